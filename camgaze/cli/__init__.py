@@ -1,0 +1,66 @@
+"""The ``camgaze`` command line.
+
+Each subcommand lives in its own module in this package and exposes
+``register(subparsers)``, which adds its parser and sets ``func`` to a
+handler ``func(args) -> int``. Module tops stay light (heavy imports inside
+the handler) so ``camgaze --help`` is fast.
+
+Bad input raises :class:`camgaze.errors.CamgazeInputError`; :func:`main`
+prints it as one line prefixed ``camgaze: error:`` and exits 2.
+"""
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from .. import __version__
+from ..errors import CamgazeError, CamgazeInputError, Cancelled
+
+#: subcommand modules, in the order ``--help`` lists them
+SUBCOMMANDS = ("process", "events", "validate", "batch", "gui", "purge", "render")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="camgaze",
+        description="Eye-movement features from recorded webcam clips, offline on the CPU. "
+        "Research estimates only - not a diagnostic, disciplinary or surveillance instrument.",
+    )
+    p.add_argument("--version", action="version", version=f"camgaze {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+    for name in SUBCOMMANDS:
+        try:
+            mod = importlib.import_module(f"{__name__}.{name}_cmd")
+        except ModuleNotFoundError as exc:  # a subcommand not built yet
+            if exc.name and exc.name.endswith(f"{name}_cmd"):
+                continue
+            raise
+        mod.register(sub)
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args.func(args) or 0)
+    except Cancelled:
+        print("camgaze: cancelled; finished outputs are kept", file=sys.stderr)
+        return 130
+    except KeyboardInterrupt:
+        print("camgaze: interrupted; finished outputs are kept", file=sys.stderr)
+        return 130
+    except CamgazeInputError as exc:
+        print(f"camgaze: error: {exc}", file=sys.stderr)
+        return 2
+    except CamgazeError as exc:
+        print(f"camgaze: error: {exc}", file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
