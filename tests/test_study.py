@@ -1,0 +1,144 @@
+"""The Qt-free study model: clips, paths relative to the study file, save/reopen, status from run.json."""
+from __future__ import annotations
+
+import json
+import shutil
+
+import pytest
+
+from camgaze.errors import CamgazeInputError
+from camgaze.study import (STATUS_DONE, STATUS_FAILED, STATUS_NEW, STATUS_STALE, guess_reference_kind, load_study,
+                           missing_files, new_study)
+
+
+@pytest.fixture()
+def folder(tmp_path):
+    clips = tmp_path / "clips"
+    clips.mkdir()
+    for stem in ("p01_s01", "p02_s01", "p03_s01"):
+        (clips / f"{stem}.mp4").write_bytes(b"\x00" * 16)
+    (clips / "p01_s01_segments.csv").write_text("label,onset_s,offset_s\npage1,0,1\n")
+    (clips / "notes.txt").write_text("not a clip")
+    return tmp_path
+
+
+def test_add_folder_save_reopen_relative_paths(folder):
+    s = new_study(path=folder / "pilot.camgaze-study.json", name="Linden Brook Primary School reading pilot")
+    added, problems = s.add_paths([folder / "clips"])
+    assert [c.stem for c in added] == ["p01_s01", "p02_s01", "p03_s01"]
+    assert problems == []
+    # a segments file named after the clip is picked up
+    assert s.find("p01_s01").segments == "clips/p01_s01_segments.csv"
+    assert s.find("p02_s01").segments is None
+    s.view = {"selected": "p02_s01", "tab": 1, "position_s": 0.5}
+    s.save()
+    raw = json.loads((folder / "pilot.camgaze-study.json").read_text())
+    assert raw["format"] == "camgaze-study"
+    assert [c["path"] for c in raw["clips"]] == ["clips/p01_s01.mp4", "clips/p02_s01.mp4", "clips/p03_s01.mp4"]
+    # moving the whole folder keeps the study working
+    moved = folder.parent / (folder.name + "_moved")
+    shutil.move(folder, moved)
+    s2 = load_study(moved / "pilot.camgaze-study.json")
+    assert s2.name == "Linden Brook Primary School reading pilot"
+    assert s2.clip_path(s2.find("p03_s01")) == (moved / "clips" / "p03_s01.mp4").resolve()
+    assert s2.view == {"selected": "p02_s01", "tab": 1, "position_s": 0.5}
+    assert missing_files(s2) == []
+    assert s2.clip_out_dir(s2.find("p01_s01")) == (moved / "results" / "p01_s01").resolve()
+
+
+def test_save_as_elsewhere_rebases_paths(folder):
+    s = new_study(path=folder / "a.json")
+    s.add_clip(folder / "clips" / "p01_s01.mp4")
+    (folder / "sub").mkdir()
+    s.save(folder / "sub" / "b.json")
+    raw = json.loads((folder / "sub" / "b.json").read_text())
+    assert raw["clips"][0]["path"] == "../clips/p01_s01.mp4"
+    assert raw["output_dir"] == "../results"
+    s2 = load_study(folder / "sub" / "b.json")
+    assert s2.clip_path(s2.clips[0]) == (folder / "clips" / "p01_s01.mp4").resolve()
+
+
+def test_bad_additions_are_reported_not_raised(folder):
+    s = new_study(path=folder / "a.json")
+    other = folder / "other"
+    other.mkdir()
+    (other / "p01_s01.mov").write_bytes(b"\x00")
+    added, problems = s.add_paths([folder / "clips" / "p01_s01.mp4", other / "p01_s01.mov",
+                                   folder / "clips" / "notes.txt", folder / "nope.mp4", folder / "empty_dir"])
+    assert len(added) == 1
+    assert len(problems) == 4
+    assert "also called 'p01_s01'" in problems[0] and "p01_s01.mov" in problems[0]
+    assert "not a video file" in problems[1] and "notes.txt" in problems[1]
+    assert "no such clip file" in problems[2]
+    # adding the same file twice is harmless
+    again, probs = s.add_paths([folder / "clips" / "p01_s01.mp4"])
+    assert again == [] and probs == [] and len(s.clips) == 1
+
+
+def test_status_from_run_json(folder):
+    s = new_study(path=folder / "a.json")
+    s.process = {"fov_deg": 60.0, "face": "largest", "max_faces": 4}
+    c = s.add_clip(folder / "clips" / "p01_s01.mp4")
+    assert c.status == STATUS_NEW
+    out = s.clip_out_dir(c)
+    out.mkdir(parents=True)
+    (out / "run.json").write_text(json.dumps({
+        "params": {"fov_deg": 60.0, "face": "largest", "max_faces": 4, "analysis": {"detector": "x"}},
+        "summary": {"frames": 30, "face_found_frac": 0.9, "usable": True, "verdict": "Usable.", "extra": 1}}))
+    assert s.refresh_status(c) == STATUS_DONE
+    assert c.summary == {"frames": 30, "face_found_frac": 0.9, "usable": True, "verdict": "Usable."}
+    s.process["fov_deg"] = 70.0
+    assert s.refresh_status(c) == STATUS_STALE
+    assert s.clips_to_process() == [c]
+    (out / "run.json").unlink()
+    assert s.refresh_status(c) == STATUS_NEW and c.summary == {}
+    c.status, c.error = STATUS_FAILED, "no face"
+    assert s.refresh_status(c) == STATUS_FAILED
+
+
+def test_reference_mapping_remembered(folder):
+    s = new_study(path=folder / "a.json")
+    c1 = s.add_clip(folder / "clips" / "p01_s01.mp4")
+    c2 = s.add_clip(folder / "clips" / "p02_s01.mp4")
+    t1 = folder / "clips" / "p01_s01_lab.csv"
+    t2 = folder / "clips" / "p02_s01_lab.csv"
+    t1.write_text("t,x,y\n")
+    t2.write_text("t,x,y\n")
+    m = {"time_col": "t", "x_col": "x", "y_col": "y", "units": "deg", "time_unit": "ms"}
+    s.set_reference(c1, t1, mapping=m)
+    s.set_reference(c2, t2)  # same columns: the last mapping is offered again
+    assert c2.reference.kind == "table" and c2.reference.mapping == m
+    s.save()
+    s2 = load_study(folder / "a.json")
+    assert s2.find("p01_s01").reference.mapping == m
+    assert s2.mappings["clips/p01_s01_lab.csv"] == m
+    assert guess_reference_kind(folder / "sub-p01_ses-s01_task-reading_recording-eye1_physio.tsv.gz") == "bids"
+    with pytest.raises(CamgazeInputError, match="no such reference file"):
+        s.set_reference(c1, folder / "missing.csv")
+
+
+@pytest.mark.parametrize("content,match", [
+    ("{not json", "not valid JSON"),
+    ('{"format": "something-else"}', "not a camgaze study"),
+    ('{"format": "camgaze-study", "version": 99}', "newer than this camgaze"),
+    ('{"format": "camgaze-study", "version": 1, "clips": [{"nopath": 1}]}', r"clips\[0\]"),
+    ('{"format": "camgaze-study", "version": 1, "clips": {"a": 1}}', "'clips' should be list"),
+    ('{"format": "camgaze-study", "version": 1, "clips": [{"path": "a/x.mp4"}, {"path": "b/x.mp4"}]}',
+     "two clips are called 'x'"),
+])
+def test_broken_study_files_named(tmp_path, content, match):
+    p = tmp_path / "broken.json"
+    p.write_text(content)
+    with pytest.raises(CamgazeInputError, match=match) as ei:
+        load_study(p)
+    assert "broken.json" in str(ei.value)
+
+
+def test_missing_file_and_missing_clip_listed(tmp_path):
+    with pytest.raises(CamgazeInputError, match="no such study file"):
+        load_study(tmp_path / "absent.json")
+    p = tmp_path / "s.json"
+    p.write_text('{"format": "camgaze-study", "version": 1, "clips": [{"path": "gone.mp4"}]}')
+    s = load_study(p)
+    probs = missing_files(s)
+    assert len(probs) == 1 and "gone.mp4" in probs[0]
