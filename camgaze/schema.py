@@ -17,7 +17,7 @@ with a screen in front of the subject (the reference tracker's screen):
 * ``pitch_deg > 0`` - the subject looks (or tilts the head) **up** (camera
   ``-y``; on a screen, towards smaller screen y).
 * ``roll_deg > 0``  - the head tilts towards the subject's right shoulder
-  (clockwise in the picture as the camera sees it).
+  (counter-clockwise in the unmirrored picture).
 * ``yaw = pitch = 0`` is the direction straight back at the camera, parallel
   to its optical axis (gaze vector ``(0, 0, -1)``).
 

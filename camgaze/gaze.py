@@ -1,0 +1,299 @@
+"""Head-compensated gaze direction from an eyeball model, and blinks.
+
+Method (per clip, vectorised over frames once landmarking is done)
+------------------------------------------------------------------
+1. **Metric scale.** The face mesh's iris outline gives the iris diameter in
+   pixels; with the horizontal visible iris diameter of 11.7 mm (Ruefer,
+   Schroeder & Erb 2005 - from memory) the eye's distance from the camera is
+   ``f * 11.7 / iris_px``. Dividing by the PnP distance of the (average-size)
+   face model gives the person's scale; its median over the clip scales the
+   head model, so translation and distance come out in millimetres.
+2. **Eyeball centre.** Each eyeball is a sphere of radius 12 mm (Bekerman,
+   Gottlieb & Vaiman 2014 - from memory). Its centre is fixed in the head
+   frame: the model's centre, moved sideways and vertically by how far this
+   person's eye-corner midpoint (median over the clip, so the corners'
+   coupling to iris motion averages out) lies from the model's. It moves
+   rigidly with the head pose from PnP, so it does not drift with the iris.
+3. **Iris centre in 3-D.** The camera ray through the iris centre (the
+   face mesh's iris point, refined on the image by fitting the dark iris disc
+   inside the eye opening - :func:`refine_iris_centres`) meets the sphere of
+   radius ``sqrt(12^2 - 5.85^2) = 10.5 mm`` around the eyeball centre, on
+   which the iris plane's centre lies. Gaze is the unit vector from eyeball
+   centre to that point, in the camera frame: head-compensated by
+   construction. Eye-in-head angles are the same vector in the head frame.
+4. **Binocular direction**: mean of both eyes' unit vectors, angles per
+   :mod:`camgaze.schema`.
+5. **Blinks**: the eye aspect ratio (Soukupova & Cech 2016) of both eyes,
+   divided by this person's open-eye level (median over the clip's face
+   frames); a frame is a blink when it falls below ``blink_rel_threshold``
+   (default 0.6), widened by one frame on each side because half-closed lids
+   hide the iris. Blink and no-face samples stay in the table, marked
+   invalid.
+"""
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from ._env import import_cv2
+from .geometry import gaze_vector_to_angles, ray_sphere_near
+from .headpose import face_model, pose_angles
+from .landmarks import (LEFT_EAR_POINTS, LEFT_EYE_CORNERS, LEFT_EYE_OUTLINE, LEFT_IRIS_CENTRE, LEFT_IRIS_RING,
+                        RIGHT_EAR_POINTS, RIGHT_EYE_CORNERS, RIGHT_EYE_OUTLINE, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING)
+
+IRIS_DIAMETER_MM = 11.7
+EYEBALL_RADIUS_MM = 12.0
+IRIS_PLANE_RADIUS_MM = float(np.sqrt(EYEBALL_RADIUS_MM ** 2 - (IRIS_DIAMETER_MM / 2) ** 2))
+
+
+@dataclass
+class GazeParams:
+    """Parameters of the gaze and blink estimate.
+
+    Attributes
+    ----------
+    blink_rel_threshold : float
+        Eyelid aperture relative to the open-eye level below which a frame is
+        a blink (0.3-0.9; default 0.6).
+    blink_pad_frames : int
+        Frames marked invalid on each side of a blink (0-3; default 1).
+    refine_iris : bool
+        Refine the face mesh's iris centre by fitting the iris disc on the
+        image (default True).
+    max_head_yaw_deg : float
+        Frames with the head turned further than this are invalid (default 45).
+    """
+
+    blink_rel_threshold: float = 0.6
+    blink_pad_frames: int = 1
+    refine_iris: bool = True
+    max_head_yaw_deg: float = 45.0
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def eye_aspect_ratio(points_px: np.ndarray, idx) -> float:
+    """EAR = (|p2-p6| + |p3-p5|) / (2 |p1-p4|) (Soukupova & Cech 2016)."""
+    p = points_px[list(idx), :2]
+    num = np.linalg.norm(p[1] - p[5]) + np.linalg.norm(p[2] - p[4])
+    den = 2.0 * np.linalg.norm(p[0] - p[3])
+    return float(num / den) if den > 0 else float("nan")
+
+
+def frame_measurements(points_px: np.ndarray) -> dict:
+    """Per-frame quantities the post-pass needs, from one face's landmarks."""
+    iris_r = points_px[RIGHT_IRIS_CENTRE, :2]
+    iris_l = points_px[LEFT_IRIS_CENTRE, :2]
+    d_r = np.linalg.norm(points_px[RIGHT_IRIS_RING[0], :2] - points_px[RIGHT_IRIS_RING[2], :2])
+    d_l = np.linalg.norm(points_px[LEFT_IRIS_RING[0], :2] - points_px[LEFT_IRIS_RING[2], :2])
+    corners = np.stack([points_px[list(RIGHT_EYE_CORNERS), :2], points_px[list(LEFT_EYE_CORNERS), :2]])
+    return {
+        "iris_px": np.stack([iris_r, iris_l]),
+        "iris_diam_px": np.array([d_r, d_l]),
+        "corners_px": corners,
+        "ear": np.array([eye_aspect_ratio(points_px, RIGHT_EAR_POINTS), eye_aspect_ratio(points_px, LEFT_EAR_POINTS)]),
+    }
+
+
+def _disc_kernel(r: float) -> np.ndarray:
+    n = int(np.ceil(r)) + 1
+    yy, xx = np.mgrid[-n:n + 1, -n:n + 1]
+    return (np.hypot(xx, yy) <= r).astype(np.float32)
+
+
+def refine_iris_centres(gray: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray,
+                        iris_diam_px: np.ndarray) -> np.ndarray:
+    """Refine both iris centres by fitting a dark disc inside the eye opening.
+
+    For each eye, within the polygon of the eyelids, the score of a candidate
+    centre is the mean darkness of the *visible* pixels under a disc of the
+    iris radius (normalised convolution, so a disc half hidden by a lid is
+    judged by its visible part) minus the mean darkness of the visible ring
+    around it. The best candidate within one iris radius of the face mesh's
+    point, refined to sub-pixel by a parabola through its neighbours, is
+    returned. Falls back to the face mesh's point when the eye is too small
+    (< 4 px iris) or nearly closed.
+
+    Parameters
+    ----------
+    gray : (H, W) uint8 or float picture.
+    points_px : (478, 3) landmarks; iris_px : (2, 2) mesh iris centres (right, left);
+    iris_diam_px : (2,) iris diameters in px.
+
+    Returns
+    -------
+    (2, 2) refined centres in px.
+    """
+    cv2 = import_cv2()
+    out = iris_px.copy()
+    h, w = gray.shape[:2]
+    for e, outline in enumerate((RIGHT_EYE_OUTLINE, LEFT_EYE_OUTLINE)):
+        r = 0.5 * float(iris_diam_px[e])
+        if not np.isfinite(r) or r < 2.0:
+            continue
+        poly = points_px[list(outline), :2]
+        pad = int(np.ceil(2 * r)) + 2
+        x0 = int(max(0, np.floor(poly[:, 0].min()) - pad))
+        x1 = int(min(w, np.ceil(poly[:, 0].max()) + pad))
+        y0 = int(max(0, np.floor(poly[:, 1].min()) - pad))
+        y1 = int(min(h, np.ceil(poly[:, 1].max()) + pad))
+        if x1 - x0 < 4 or y1 - y0 < 4:
+            continue
+        roi = gray[y0:y1, x0:x1].astype(np.float32)
+        mask = np.zeros(roi.shape, np.uint8)
+        cv2.fillPoly(mask, [np.round(poly - [x0, y0]).astype(np.int32)], 1)
+        maskf = mask.astype(np.float32)
+        if maskf.sum() < np.pi * r * r * 0.3:
+            continue
+        # darkness relative to the brightest visible pixels (sclera)
+        vis = roi[mask > 0]
+        hi = np.percentile(vis, 95)
+        dark = np.clip(hi - roi, 0, None) * maskf
+        kd = _disc_kernel(r)
+        kr = _disc_kernel(1.6 * r) - _disc_kernel(r * 1.05)
+        num_d = cv2.filter2D(dark, -1, kd, borderType=cv2.BORDER_CONSTANT)
+        den_d = cv2.filter2D(maskf, -1, kd, borderType=cv2.BORDER_CONSTANT)
+        num_r = cv2.filter2D(dark, -1, kr, borderType=cv2.BORDER_CONSTANT)
+        den_r = cv2.filter2D(maskf, -1, kr, borderType=cv2.BORDER_CONSTANT)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            score = num_d / np.maximum(den_d, 1e-3) - num_r / np.maximum(den_r, 1e-3)
+        # need a fair share of the disc visible
+        score[den_d < 0.35 * kd.sum()] = -np.inf
+        cx, cy = iris_px[e] - [x0, y0]
+        yy, xx = np.mgrid[0:roi.shape[0], 0:roi.shape[1]]
+        score[np.hypot(xx - cx, yy - cy) > r] = -np.inf
+        if not np.isfinite(score).any():
+            continue
+        iy, ix = np.unravel_index(int(np.argmax(score)), score.shape)
+        dx = dy = 0.0
+        if 0 < ix < score.shape[1] - 1 and np.isfinite(score[iy, ix - 1]) and np.isfinite(score[iy, ix + 1]):
+            a, b, c = score[iy, ix - 1], score[iy, ix], score[iy, ix + 1]
+            den = a - 2 * b + c
+            dx = 0.5 * (a - c) / den if den < 0 else 0.0
+        if 0 < iy < score.shape[0] - 1 and np.isfinite(score[iy - 1, ix]) and np.isfinite(score[iy + 1, ix]):
+            a, b, c = score[iy - 1, ix], score[iy, ix], score[iy + 1, ix]
+            den = a - 2 * b + c
+            dy = 0.5 * (a - c) / den if den < 0 else 0.0
+        out[e] = [x0 + ix + np.clip(dx, -0.5, 0.5), y0 + iy + np.clip(dy, -0.5, 0.5)]
+    return out
+
+
+def _dilate(mask: np.ndarray, n: int) -> np.ndarray:
+    if n <= 0 or not mask.any():
+        return mask.copy()
+    out = mask.copy()
+    for k in range(1, n + 1):
+        out[k:] |= mask[:-k]
+        out[:-k] |= mask[k:]
+    return out
+
+
+def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndarray, iris_px: np.ndarray,
+                  iris_diam_px: np.ndarray, corners_px: np.ndarray, ear: np.ndarray,
+                  params: GazeParams = GazeParams()) -> tuple[dict, dict]:
+    """Gaze, head pose, distance and blinks for a whole clip.
+
+    Parameters
+    ----------
+    K : (3, 3) camera matrix. found : (N,) bool face tracked.
+    R : (N, 3, 3) head->camera rotations; t : (N, 3) translations in model mm.
+    iris_px : (N, 2, 2) iris centres (right, left) in px; iris_diam_px : (N, 2).
+    corners_px : (N, 2, 2, 2) eye corners [eye][outer, inner][x, y].
+    ear : (N, 2) eye aspect ratios.
+
+    Returns
+    -------
+    columns : dict of (N,) arrays named as in :data:`camgaze.schema.SAMPLE_COLUMNS`.
+    info : dict with the clip-level figures (scale, open-eye level, eyeball offsets).
+    """
+    n = len(found)
+    found = np.asarray(found, bool)
+    nanv = np.full(n, np.nan)
+    cols: dict[str, np.ndarray] = {}
+    info: dict = {"frames_with_face": int(found.sum())}
+    model = face_model()
+    f = K[0, 0]
+    Kinv = np.linalg.inv(K)
+
+    # --- metric scale from the iris --------------------------------------
+    diam = np.nanmean(np.where(iris_diam_px > 0, iris_diam_px, np.nan), axis=1) if n else nanv
+    z_iris = f * IRIS_DIAMETER_MM / diam
+    ear_mean = np.nanmean(ear, axis=1) if n else nanv
+    open_level = float(np.nanmedian(ear_mean[found])) if found.any() else float("nan")
+    aperture_rel = ear_mean / open_level if np.isfinite(open_level) and open_level > 0 else nanv
+    eyes_open = found & (aperture_rel >= 0.8)
+    ok_scale = eyes_open & np.isfinite(z_iris) & (t[:, 2] > 0)
+    s = float(np.nanmedian(z_iris[ok_scale] / t[ok_scale, 2])) if ok_scale.sum() >= 3 else 1.0
+    info["model_scale"] = s
+    info["open_eye_ear"] = open_level
+
+    # --- eyeball centres personalised by the eye corners -----------------
+    eyes_model = np.stack([model.eye_right_mm, model.eye_left_mm])  # (2, 3)
+    corner_model = np.stack([model.points_mm[list(RIGHT_EYE_CORNERS)].mean(0),
+                             model.points_mm[list(LEFT_EYE_CORNERS)].mean(0)])  # (2, 3)
+    offsets = np.zeros((2, 3))
+    if eyes_open.sum() >= 3:
+        idx = np.flatnonzero(eyes_open)
+        Rv, tv = R[idx], t[idx]
+        for e in range(2):
+            mid_px = corners_px[idx, e].mean(axis=1)  # (M, 2)
+            ray = np.c_[mid_px, np.ones(len(idx))] @ Kinv.T  # z = 1
+            zc = np.einsum("mij,j->mi", Rv, corner_model[e])[:, 2] + tv[:, 2]
+            Xc = ray * zc[:, None]
+            Xh = np.einsum("mji,mj->mi", Rv, Xc - tv)
+            off = np.median(Xh, axis=0) - corner_model[e]
+            offsets[e, :2] = off[:2]
+    info["eyeball_offset_mm"] = (offsets * s).round(3).tolist()
+    centres_h = eyes_model + offsets  # model mm, head frame
+
+    # --- per-eye gaze -----------------------------------------------------
+    head_mid = t * s  # origin of the head frame (eyeball midpoint), mm
+    g_eyes = np.full((n, 2, 3), np.nan)
+    for e in range(2):
+        C = (np.einsum("nij,j->ni", R, centres_h[e]) + t) * s  # (N, 3) mm
+        ray = np.c_[iris_px[:, e], np.ones(n)] @ Kinv.T
+        ok = found & np.all(np.isfinite(ray), axis=1) & np.all(np.isfinite(C), axis=1)
+        if ok.any():
+            P, _missed = ray_sphere_near(ray[ok], C[ok], IRIS_PLANE_RADIUS_MM)
+            g = P - C[ok]
+            g /= np.linalg.norm(g, axis=1, keepdims=True)
+            g_eyes[ok, e] = g
+    g_bin = np.nanmean(g_eyes, axis=1)
+    norm = np.linalg.norm(g_bin, axis=1, keepdims=True)
+    g_bin = g_bin / np.where(norm > 0, norm, np.nan)
+
+    yaw, pitch = gaze_vector_to_angles(g_bin)
+    ryaw, rpitch = gaze_vector_to_angles(g_eyes[:, 0])
+    lyaw, lpitch = gaze_vector_to_angles(g_eyes[:, 1])
+    g_head = np.einsum("nji,nj->ni", R, g_bin)
+    hyaw_e, hpitch_e = gaze_vector_to_angles(g_head)
+    head_yaw, head_pitch, head_roll = pose_angles(R) if n else (nanv, nanv, nanv)
+    head_yaw = np.where(found, head_yaw, np.nan)
+    head_pitch = np.where(found, head_pitch, np.nan)
+    head_roll = np.where(found, head_roll, np.nan)
+
+    # --- blinks and validity ---------------------------------------------
+    closed = found & (aperture_rel < params.blink_rel_threshold)
+    blink = _dilate(closed, int(params.blink_pad_frames)) & found
+    valid = found & ~blink & np.isfinite(yaw) & np.isfinite(pitch) & (np.abs(head_yaw) <= params.max_head_yaw_deg)
+
+    cols["valid"] = valid
+    cols["blink"] = blink
+    cols["yaw_deg"] = np.where(valid, yaw, np.nan)
+    cols["pitch_deg"] = np.where(valid, pitch, np.nan)
+    cols["left_yaw_deg"], cols["left_pitch_deg"] = np.where(valid, lyaw, np.nan), np.where(valid, lpitch, np.nan)
+    cols["right_yaw_deg"], cols["right_pitch_deg"] = np.where(valid, ryaw, np.nan), np.where(valid, rpitch, np.nan)
+    cols["eye_in_head_yaw_deg"] = np.where(valid, hyaw_e, np.nan)
+    cols["eye_in_head_pitch_deg"] = np.where(valid, hpitch_e, np.nan)
+    cols["head_yaw_deg"], cols["head_pitch_deg"], cols["head_roll_deg"] = head_yaw, head_pitch, head_roll
+    cols["head_x_mm"] = np.where(found, head_mid[:, 0], np.nan)
+    cols["head_y_mm"] = np.where(found, head_mid[:, 1], np.nan)
+    cols["head_z_mm"] = np.where(found, head_mid[:, 2], np.nan)
+    cols["distance_mm"] = np.where(found, np.linalg.norm(head_mid, axis=1), np.nan)
+    cols["iris_diameter_px"] = np.where(found, diam, np.nan)
+    cols["ear_right"] = np.where(found, ear[:, 0], np.nan)
+    cols["ear_left"] = np.where(found, ear[:, 1], np.nan)
+    cols["aperture_rel"] = np.where(found, aperture_rel, np.nan)
+    return cols, info
