@@ -1,0 +1,138 @@
+"""``camgaze process CLIP... -o OUTDIR``: clips to samples, events and features."""
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+
+def register(sub) -> None:
+    p = sub.add_parser(
+        "process",
+        help="process recorded clips into gaze samples, events and features",
+        description="Track face and irises in each clip, estimate head-compensated gaze angles, detect "
+        "fixations, saccades and blinks, and write per-clip outputs into OUTDIR/<clip file stem>/: "
+        "samples.parquet/.csv, events.csv/.parquet, features.csv/.parquet and run.json. "
+        "A clip that fails is reported in one line; the other clips still finish.",
+    )
+    p.add_argument("clips", nargs="+", metavar="CLIP", help="video files (mp4, mov, avi, mkv, webm)")
+    p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
+    p.add_argument("--fov-deg", type=float, default=60.0,
+                   help="assumed horizontal field of view of the webcam in degrees (default 60)")
+    p.add_argument("--face", default="largest",
+                   help='which face to follow when several are in view: "largest" (default) or "index:N" '
+                        "(N-th face from the picture's left edge, from 0)")
+    p.add_argument("--max-faces", type=int, default=2, help="faces looked for per frame (default 2)")
+    p.add_argument("--segments", metavar="CSV", help="task segments (label, onset_s, offset_s) for per-segment features; applied to every clip")
+    add_analysis_arguments(p)
+    p.add_argument("--no-reuse", action="store_true",
+                   help="redo landmarking even when OUTDIR holds samples from the same clip and parameters")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=run)
+
+
+def add_analysis_arguments(p: argparse.ArgumentParser) -> None:
+    """Options shared by every command that detects events."""
+    p.add_argument("--detector", default=None, help="event detector (default: the documented default; see README)")
+    p.add_argument("--window-s", type=float, default=None, help="length of the fixed feature windows in seconds")
+    p.add_argument("--step-s", type=float, default=None, help="step between feature windows in seconds")
+    p.add_argument("--set", dest="settings", action="append", default=[], metavar="NAME=VALUE",
+                   help="any other analysis parameter, e.g. --set min_fixation_ms=80 (repeatable)")
+
+
+def analysis_params_from_args(args):
+    from ..analysis import AnalysisParams
+    from ..errors import ParameterError
+
+    d = AnalysisParams().to_dict()
+    if getattr(args, "detector", None):
+        d["detector"] = args.detector
+    if getattr(args, "window_s", None) is not None:
+        d["window_s"] = args.window_s
+    if getattr(args, "step_s", None) is not None:
+        d["step_s"] = args.step_s
+    for item in getattr(args, "settings", []) or []:
+        if "=" not in item:
+            raise ParameterError(f"--set {item!r} is not NAME=VALUE")
+        k, v = item.split("=", 1)
+        k = k.strip()
+        if k not in d:
+            raise ParameterError(f"unknown analysis parameter {k!r}", hint="known: " + ", ".join(sorted(d)))
+        d[k] = _parse_value(v.strip(), d[k])
+    return AnalysisParams.from_dict(d)
+
+
+def _parse_value(v: str, like):
+    from ..errors import ParameterError
+
+    if isinstance(like, bool):
+        if v.lower() in ("1", "true", "yes", "on"):
+            return True
+        if v.lower() in ("0", "false", "no", "off"):
+            return False
+        raise ParameterError(f"expected true/false, got {v!r}")
+    if isinstance(like, int) and not isinstance(like, bool):
+        try:
+            return int(v)
+        except ValueError:
+            return float(v)
+    if isinstance(like, float):
+        try:
+            return float(v)
+        except ValueError:
+            raise ParameterError(f"expected a number, got {v!r}") from None
+    if like is None:
+        if v.lower() in ("none", "null", ""):
+            return None
+        try:
+            return float(v)
+        except ValueError:
+            return v
+    return v
+
+
+def run(args) -> int:
+    from tqdm import tqdm
+
+    from ..errors import CamgazeInputError
+    from ..pipeline import ProcessParams, clip_output_dir, process_clip
+
+    params = ProcessParams(fov_deg=args.fov_deg, face=args.face, max_faces=args.max_faces,
+                           analysis=analysis_params_from_args(args))
+    out_root = Path(args.out)
+    failures = 0
+    stems: dict[str, Path] = {}
+    for clip in args.clips:
+        clip = Path(clip)
+        if clip.stem in stems and stems[clip.stem] != clip.resolve():
+            print(f"camgaze: error: {clip}: has the same file stem as {stems[clip.stem]}; "
+                  f"both would write to {clip_output_dir(out_root, clip)} - process them into different OUTDIRs "
+                  "or use `camgaze batch`, which keeps them apart", file=sys.stderr)
+            failures += 1
+            continue
+        stems[clip.stem] = clip.resolve()
+        bar = tqdm(total=1000, desc=clip.name, unit="‰", disable=args.quiet, leave=False,
+                   bar_format="{desc}: {percentage:3.0f}%|{bar}| [{elapsed}<{remaining}]")
+
+        def progress(frac, msg, bar=bar):
+            bar.n = int(frac * 1000)
+            bar.refresh()
+
+        try:
+            res = process_clip(clip, clip_output_dir(out_root, clip), params=params, segments=args.segments,
+                               progress=progress, reuse=not args.no_reuse)
+        except CamgazeInputError as exc:
+            bar.close()
+            print(f"camgaze: error: {exc}", file=sys.stderr)
+            failures += 1
+            continue
+        bar.close()
+        s = res.summary
+        print(f"{clip.name}: {s['frames']} frames ({s['duration_s']:.1f} s), face found {s['face_found_frac']:.0%}, "
+              f"{s['blink_count']} blinks, {s['fixation_count']} fixations, median distance "
+              f"{s['median_distance_mm']:.0f} mm, noise {s['noise_rms_s2s_deg']:.2f} deg -> {res.out_dir}")
+        print(f"  {s['verdict']}")
+    if failures:
+        print(f"camgaze: {failures} of {len(args.clips)} clip(s) failed", file=sys.stderr)
+        return 1
+    return 0
