@@ -343,3 +343,14 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
     cols["ear_left"] = np.where(found, ear[:, 1], np.nan)
     cols["aperture_rel"] = np.where(found, aperture_rel, np.nan)
     return cols, info
+
+
+def interpupillary_distance_mm(points_px: np.ndarray) -> float:
+    """Distance between the iris centres on the iris scale (11.7 mm iris), in mm.
+
+    Valid for a face roughly parallel to the picture plane; used as a check
+    of the metric scale.
+    """
+    m = frame_measurements(points_px)
+    d_px = float(np.linalg.norm(m["iris_px"][0] - m["iris_px"][1]))
+    return d_px * IRIS_DIAMETER_MM / float(np.mean(m["iris_diam_px"]))

@@ -1,0 +1,119 @@
+"""The decoder: true presentation timestamps, rotation metadata, bad files."""
+from fractions import Fraction
+
+import av
+import numpy as np
+import pytest
+
+from camgaze.errors import VideoError
+from camgaze.video import FramePrefetcher, iter_frames, probe, read_frame_at
+
+
+def _write(path, times_s, *, size=(160, 120), rotation=None, codec="libx264", container_opts=None):
+    w, h = size
+    out = av.open(str(path), "w")
+    st = out.add_stream(codec, rate=30)
+    st.width, st.height, st.pix_fmt = w, h, "yuv420p"
+    tb = Fraction(1, 3000) if codec == "mpeg4" else Fraction(1, 90000)  # MPEG-4 part 2 caps the denominator
+    st.codec_context.time_base = tb
+    st.time_base = tb
+    if rotation is not None:
+        st.set_display_rotation(rotation)
+    for i, t in enumerate(times_s):
+        img = np.zeros((h, w, 3), np.uint8)
+        img[: h // 4, : w // 4] = 255  # a white block in the top-left corner
+        img[..., 1] = (i * 7) % 256
+        fr = av.VideoFrame.from_ndarray(img, format="rgb24")
+        fr.pts = int(round(t / tb))
+        fr.time_base = tb
+        for p in st.encode(fr):
+            out.mux(p)
+    for p in st.encode():
+        out.mux(p)
+    out.close()
+
+
+def test_variable_frame_rate_keeps_true_timestamps(tmp_path):
+    # irregular intervals as a webcam under load produces them (common practice: 25-45 ms jitter)
+    rng = np.random.default_rng(3)
+    times = np.cumsum(np.r_[0.0, rng.uniform(0.020, 0.070, 59)])
+    clip = tmp_path / "vfr.mp4"
+    _write(clip, times)
+    frames = list(iter_frames(clip))
+    got = np.array([f.pts_s for f in frames])
+    assert len(frames) == len(times)
+    assert np.allclose(got - got[0], times - times[0], atol=1.5e-5)
+    # not index / fps: a constant-rate reconstruction would be far off
+    assert np.abs((got - got[0]) - np.arange(len(times)) / 30.0).max() > 0.05
+
+
+@pytest.mark.parametrize("ext", [".mp4", ".mkv", ".mov", ".avi", ".webm"])
+def test_common_containers_decode(tmp_path, ext):
+    clip = tmp_path / f"c{ext}"
+    codec = {".webm": "libvpx", ".avi": "mpeg4"}.get(ext, "libx264")
+    _write(clip, np.arange(10) / 30.0, codec=codec)
+    frames = list(iter_frames(clip))
+    assert len(frames) == 10
+    assert frames[0].image.shape == (120, 160, 3)
+    t = np.array([f.pts_s for f in frames])
+    assert np.allclose(np.diff(t), 1 / 30.0, atol=2e-3)
+
+
+def test_rotation_metadata_is_honoured(tmp_path):
+    clip = tmp_path / "rot.mp4"
+    # stored landscape, tagged to be shown rotated: FFmpeg's display-matrix convention
+    _write(clip, np.arange(5) / 30.0, rotation=90)
+    fr = next(iter(iter_frames(clip)))
+    assert fr.image.shape[:2] == (160, 120)  # portrait after applying the metadata
+    # the white block was top-left in storage; a 90 deg counter-clockwise display rotation puts it bottom-left
+    img = fr.image[..., 0].astype(float)
+    q = {"tl": img[:40, :30].mean(), "bl": img[-40:, :30].mean(), "tr": img[:40, -30:].mean(), "br": img[-40:, -30:].mean()}
+    assert max(q, key=q.get) == "bl"
+
+
+def test_probe_reports_stream(tmp_path):
+    clip = tmp_path / "p.mp4"
+    _write(clip, np.arange(30) / 30.0)
+    info = probe(clip)
+    assert (info.width_px, info.height_px) == (160, 120)
+    assert info.frame_count_hint == 30
+
+
+def test_prefetcher_matches_direct_decoding(tmp_path):
+    clip = tmp_path / "p.mp4"
+    _write(clip, np.arange(40) / 30.0)
+    a = [(f.index, f.pts_s) for f in iter_frames(clip)]
+    b = [(f.index, f.pts_s) for f in FramePrefetcher(clip, depth=2)]
+    assert a == b
+
+
+def test_read_frame_at_seeks(tmp_path):
+    clip = tmp_path / "s.mp4"
+    _write(clip, np.arange(60) / 30.0)
+    fr = read_frame_at(clip, 1.0)
+    assert fr is not None and fr.pts_s == pytest.approx(1.0, abs=0.04)
+
+
+def test_bad_files_name_the_file_and_problem(tmp_path):
+    empty = tmp_path / "empty.mp4"
+    empty.write_bytes(b"")
+    with pytest.raises(VideoError, match=r"empty\.mp4.*empty"):
+        list(iter_frames(empty))
+    text = tmp_path / "notes.mp4"
+    text.write_text("lesson notes, not a video\n" * 50)
+    with pytest.raises(VideoError, match=r"notes\.mp4.*not a readable video"):
+        list(iter_frames(text))
+    with pytest.raises(VideoError, match="not found"):
+        probe(tmp_path / "missing.mp4")
+
+
+def test_truncated_clip_keeps_frames_before_the_cut(tmp_path):
+    # an mkv cut in the middle (a recording that was not closed properly) is demuxable up to the cut
+    full_mkv = tmp_path / "full.mkv"
+    _write(full_mkv, np.arange(90) / 30.0, codec="mpeg4", size=(320, 240))
+    cut = tmp_path / "cut.mkv"
+    cut.write_bytes(full_mkv.read_bytes()[: full_mkv.stat().st_size // 2])
+    frames = list(iter_frames(cut))
+    assert 10 < len(frames) < 90
+    t = np.array([f.pts_s for f in frames])
+    assert np.all(np.diff(t) > 0)
