@@ -292,7 +292,7 @@ class Study:
                 clip.status = STATUS_NEW
                 clip.summary = {}
             return clip.status
-        summary = run.get("summary") or {}
+        summary = run.get("quality") or run.get("summary") or {}
         clip.summary = {k: summary.get(k) for k in SUMMARY_KEYS if k in summary}
         clip.error = None
         clip.status = STATUS_DONE
@@ -351,7 +351,7 @@ class Study:
 
 def _process_params_match(run_params: dict, study_process: dict) -> bool:
     """Whether a run's processing parameters equal the study's (analysis ones do not count)."""
-    rp = {k: v for k, v in (run_params.get("process", run_params) or {}).items() if k != "analysis"}
+    rp = {k: v for k, v in (run_params or {}).items() if k != "analysis"}
     sp = {k: v for k, v in study_process.items() if k != "analysis"}
     return all(rp.get(k) == v for k, v in sp.items() if k in rp)
 

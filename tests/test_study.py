@@ -84,7 +84,7 @@ def test_status_from_run_json(folder):
     out.mkdir(parents=True)
     (out / "run.json").write_text(json.dumps({
         "params": {"fov_deg": 60.0, "face": "largest", "max_faces": 4, "analysis": {"detector": "x"}},
-        "summary": {"frames": 30, "face_found_frac": 0.9, "usable": True, "verdict": "Usable.", "extra": 1}}))
+        "quality": {"frames": 30, "face_found_frac": 0.9, "usable": True, "verdict": "Usable.", "extra": 1}}))
     assert s.refresh_status(c) == STATUS_DONE
     assert c.summary == {"frames": 30, "face_found_frac": 0.9, "usable": True, "verdict": "Usable."}
     s.process["fov_deg"] = 70.0
