@@ -1,0 +1,97 @@
+"""Compare the detectors on the hand-coded recordings of Andersson et al. (2017).
+
+Conditions: each trial at its own rate (500 / 200 Hz), and downsampled to
+30 Hz (sample nearest each 1/30 s tick) with seeded Gaussian noise of 0.5 and
+1.0 deg RMS (per-axis SD = RMS / sqrt(2)), optionally with a gain error and a
+constant offset (webcam-like). Figures per detector x condition:
+
+* kappa_MN, kappa_RA - mean over trials of sample-level Cohen's kappa
+  (fixation vs not) against each coder;
+* count_err - median over trials of (detected count / coders' mean count - 1);
+* dur_err - median over trials of the same for the mean fixation duration;
+* count_r - Pearson correlation of per-trial counts with the coders' mean.
+
+Coders' counts and durations are taken at the recording's own rate.
+
+Run: ``python bench/compare_detectors.py [--trials-dir DIR] [--param name=value ...]``
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+import numpy as np
+
+REPO = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(REPO))
+sys.path.insert(0, str(REPO / "tests"))
+
+from _lund import CODERS, cohen_kappa, degrade, load_all, runs  # noqa: E402
+
+from camgaze.analysis import AnalysisParams, run_analysis  # noqa: E402
+
+CONDITIONS = {
+    "native": None,
+    "30Hz_0.5deg": dict(rate_hz=30.0, noise_rms_deg=0.5),
+    "30Hz_1.0deg": dict(rate_hz=30.0, noise_rms_deg=1.0),
+    "30Hz_1.0deg_gain1.25": dict(rate_hz=30.0, noise_rms_deg=1.0, gain=1.25, offset_deg=5.0),
+    "15Hz_1.0deg": dict(rate_hz=15.0, noise_rms_deg=1.0),
+    "60Hz_2.0deg": dict(rate_hz=60.0, noise_rms_deg=2.0),
+}
+
+
+def evaluate(trials, params: AnalysisParams, condition: dict | None, seed: int = 0) -> dict:
+    kap = {c: [] for c in CODERS}
+    det_n, det_d, ref_n, ref_d = [], [], [], []
+    for k, tr in enumerate(trials):
+        ref = [runs(tr.fixation_mask(c), tr.t_s) for c in CODERS]
+        ref_n.append(np.mean([r[0] for r in ref]))
+        ref_d.append(np.mean([r[1] for r in ref]))
+        if condition is not None:
+            cond = dict(condition)
+            gain = cond.pop("gain", 1.0)
+            off = cond.pop("offset_deg", 0.0)
+            tr = degrade(tr, seed=seed + k, **cond)
+            tr.yaw_deg = tr.yaw_deg * gain + off
+            tr.pitch_deg = tr.pitch_deg * gain - off
+        res = run_analysis(tr.samples(), params)
+        fix = res.labels == "fixation"
+        for c in CODERS:
+            kap[c].append(cohen_kappa(fix, tr.fixation_mask(c)))
+        ev = res.events[res.events["type"] == "fixation"]
+        det_n.append(len(ev))
+        det_d.append(ev["duration_ms"].mean() if len(ev) else np.nan)
+    det_n, det_d, ref_n, ref_d = map(np.asarray, (det_n, det_d, ref_n, ref_d))
+    return {
+        "kappa_MN": float(np.mean(kap["MN"])), "kappa_RA": float(np.mean(kap["RA"])),
+        "count_err": float(np.median(det_n / ref_n - 1)), "dur_err": float(np.median(det_d / ref_d - 1)),
+        "count_r": float(np.corrcoef(det_n, ref_n)[0, 1]),
+    }
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--trials-dir", default=str(REPO.parent / "shared" / "reference" / "lund2013" / "img"))
+    ap.add_argument("--detectors", nargs="*", default=["i2mc", "idt", "ivt"])
+    ap.add_argument("--conditions", nargs="*", default=list(CONDITIONS))
+    ap.add_argument("--param", action="append", default=[], help="name=value, applied to every detector")
+    ap.add_argument("--seed", type=int, default=0)
+    args = ap.parse_args(argv)
+    trials = load_all(Path(args.trials_dir))
+    extra = {}
+    for p in args.param:
+        k, v = p.split("=", 1)
+        extra[k] = eval(v, {}, {})  # bench-only convenience: numbers, tuples, None
+    print(f"{'detector':<10}{'condition':<24}{'kappa_MN':>9}{'kappa_RA':>9}{'count_err':>10}{'dur_err':>9}{'count_r':>9}")
+    for det in args.detectors:
+        params = AnalysisParams.from_dict({**AnalysisParams().to_dict(), **extra, "detector": det})
+        for name in args.conditions:
+            r = evaluate(trials, params, CONDITIONS[name], seed=args.seed)
+            print(f"{det:<10}{name:<24}{r['kappa_MN']:>9.3f}{r['kappa_RA']:>9.3f}{r['count_err']:>+10.1%}"
+                  f"{r['dur_err']:>+9.1%}{r['count_r']:>9.3f}", flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,230 @@
+"""Post-processing shared by all detectors: candidates to events and labels.
+
+0. Edge trimming by speed (camgaze's own step, in the spirit of the
+   onset/offset thresholds of Nystrom & Holmqvist 2010): samples at the start
+   or end of a candidate whose gaze speed exceeds ``edge_speed_factor`` times
+   the recording's median speed are removed, so that the end of a saccade and
+   post-saccadic oscillations (at high rates), or the one or two samples
+   smeared across a saccade (at webcam rates), are not counted as fixation.
+   The threshold is data-driven: it scales with the clip's noise.
+1. Merge: consecutive fixation candidates separated by at most
+   ``merge_gap_ms`` (offset of one to onset of the next), with no blink or
+   data loss between them, whose mean positions lie at most
+   ``merge_distance_deg`` apart, become one fixation (repeated until nothing
+   merges). 75 ms and 0.5 deg: Komogortsev et al. (2010), IEEE Trans. Biomed.
+   Eng. 57(11) - field notes, from memory.
+2. Drop fixations shorter than ``min_fixation_ms`` (60-100 ms: common
+   practice, field notes).
+3. Saccades: between two consecutive fixations with no blink or loss
+   between them and at most ``saccade_max_ms`` apart; amplitude is the
+   angular distance between the two fixations' mean positions (at webcam
+   rates the saccade itself covers only one or two samples). A saccade that
+   fell between two samples has ``n_samples = 0`` and duration 0 ms.
+4. Blinks and data-loss periods from the clean-up become their own events.
+
+Times follow :data:`camgaze.schema.EVENT_COLUMNS`: onset = time of the
+first sample, offset = time of the first sample after the event (for the
+last sample: its time plus the median sample interval).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from ..schema import EVENT_COLUMNS
+from .runs import end_times, trim_runs, true_runs
+from .types import Candidates
+
+#: per-sample label names; index = label code
+LABEL_NAMES = np.array(["unclassified", "fixation", "saccade", "blink", "loss"])
+UNCLASSIFIED, FIXATION, SACCADE, BLINK, LOSS = range(5)
+
+
+def _prefix(v: np.ndarray, ok: np.ndarray) -> np.ndarray:
+    return np.concatenate([[0.0], np.cumsum(np.where(ok, v, 0.0))])
+
+
+def _means(cx, cy, cn, s, e):
+    n = cn[e] - cn[s]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return (cx[e] - cx[s]) / n, (cy[e] - cy[s]) / n
+
+
+def merge_candidates(t_s, yaw_deg, pitch_deg, usable, blocked, starts, ends, *, merge_gap_ms: float = 75.0,
+                     merge_distance_deg: float = 0.5, dt_s: float | None = None):
+    """Merge close fixation candidates (see module docstring); returns new (starts, ends)."""
+    t = np.asarray(t_s, dtype=float)
+    s = np.asarray(starts, dtype=np.int64)
+    e = np.asarray(ends, dtype=np.int64)
+    if len(s) < 2:
+        return s, e
+    dt = float(np.median(np.diff(t))) if dt_s is None else dt_s
+    te = end_times(t, dt)
+    ok = np.asarray(usable, bool) & np.isfinite(yaw_deg) & np.isfinite(pitch_deg)
+    cx, cy = _prefix(np.asarray(yaw_deg, float), ok), _prefix(np.asarray(pitch_deg, float), ok)
+    cn = np.concatenate([[0], np.cumsum(ok)])
+    cb = np.concatenate([[0], np.cumsum(np.asarray(blocked, bool))])
+    while len(s) >= 2:
+        mx, my = _means(cx, cy, cn, s, e)
+        gap_ms = (t[s[1:]] - te[e[:-1]]) * 1000.0
+        free = (cb[s[1:]] - cb[e[:-1]]) == 0
+        dist = np.hypot(mx[1:] - mx[:-1], my[1:] - my[:-1])
+        join = free & (gap_ms <= merge_gap_ms + 1e-9) & (dist <= merge_distance_deg)
+        if not join.any():
+            break
+        # merge only non-overlapping pairs per pass so that centroids are recomputed
+        first = join & ~np.concatenate([[False], join[:-1]])
+        keep_start = ~np.concatenate([[False], first])
+        keep_end = ~np.concatenate([first, [False]])
+        s, e = s[keep_start], e[keep_end]
+    return s, e
+
+
+def trim_by_speed(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, edge_speed_factor: float = 2.0,
+                  velocity_window_ms: float = 10.0) -> tuple[np.ndarray, np.ndarray, float]:
+    """Trim candidates' fast edge samples (step 0 of the module docstring).
+
+    Parameters
+    ----------
+    t_s, yaw_deg, pitch_deg, usable : array_like, shape (n,)
+        Times (s), angles (deg), usable mask.
+    starts, ends : array_like of int
+        Candidate index ranges.
+    edge_speed_factor : float, default 2.0
+        Threshold in units of the recording's median gaze speed; <= 0 disables.
+    velocity_window_ms : float, default 10
+        Savitzky-Golay derivative window, ms (at least 3 samples).
+
+    Returns
+    -------
+    starts, ends : ndarray
+        Trimmed ranges (candidates with no slow sample are dropped).
+    threshold_deg_s : float
+        The speed threshold used, deg/s (NaN when disabled).
+    """
+    from .ivt import velocity_deg_s
+
+    s = np.asarray(starts, dtype=np.int64)
+    e = np.asarray(ends, dtype=np.int64)
+    if edge_speed_factor is None or edge_speed_factor <= 0 or not len(s):
+        return s, e, float("nan")
+    vx, vy = velocity_deg_s(t_s, yaw_deg, pitch_deg, usable, window_ms=velocity_window_ms)
+    speed = np.hypot(vx, vy)
+    if not np.isfinite(speed).any():
+        return s, e, float("nan")
+    thr = float(edge_speed_factor * np.nanmedian(speed))
+    # a sample without a speed (window touching a gap) counts as slow: gaps are handled elsewhere
+    slow = np.where(np.isfinite(speed), speed <= thr, True)
+    s2, e2 = trim_runs(s, e, slow)
+    return s2, e2, thr
+
+
+def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candidates, *,
+                 merge_gap_ms: float = 75.0, merge_distance_deg: float = 0.5, min_fixation_ms: float = 60.0,
+                 saccade_max_ms: float = 150.0, edge_speed_factor: float = 2.0,
+                 edge_velocity_window_ms: float = 10.0) -> tuple[pd.DataFrame, np.ndarray]:
+    """Events table and per-sample labels from fixation candidates.
+
+    Parameters
+    ----------
+    t_s, yaw_deg, pitch_deg : array_like, shape (n,)
+        Times (s) and angles (deg) after clean-up.
+    usable, blink, loss : array_like of bool, shape (n,)
+        Masks from :class:`camgaze.cleanup.CleanedSamples`.
+    candidates : Candidates
+        A detector's output.
+    merge_gap_ms : float, default 75
+        Longest gap between fixations that may be merged, ms.
+    merge_distance_deg : float, default 0.5
+        Largest distance between the mean positions of fixations merged, deg.
+    min_fixation_ms : float, default 60
+        Shorter fixations (after merging) are dropped, ms.
+    saccade_max_ms : float, default 150
+        Longest interval between fixations still called a saccade, ms.
+    edge_speed_factor : float, default 2.0
+        Edge trimming threshold in units of the median gaze speed; 0 disables.
+    edge_velocity_window_ms : float, default 10
+        Derivative window for the edge trimming, ms.
+
+    Returns
+    -------
+    events : pandas.DataFrame
+        Columns of :data:`camgaze.schema.EVENT_COLUMNS`, sorted by onset.
+    labels : ndarray of str, shape (n,)
+        ``"fixation"``, ``"saccade"``, ``"blink"``, ``"loss"`` or
+        ``"unclassified"`` per sample.
+    """
+    t = np.asarray(t_s, dtype=float)
+    x = np.asarray(yaw_deg, dtype=float)
+    y = np.asarray(pitch_deg, dtype=float)
+    n = len(t)
+    usable = np.asarray(usable, bool)
+    blink = np.asarray(blink, bool)
+    loss = np.asarray(loss, bool)
+    codes = np.zeros(n, dtype=np.int8)
+    if n == 0:
+        return empty_events(), LABEL_NAMES[codes]
+    dt = float(np.median(np.diff(t))) if n > 1 else 0.0
+    te = end_times(t, dt)
+    blocked = blink | loss
+    s, e, thr = trim_by_speed(t, x, y, usable, candidates.starts, candidates.ends,
+                              edge_speed_factor=edge_speed_factor, velocity_window_ms=edge_velocity_window_ms)
+    candidates.info["edge_speed_threshold_deg_s"] = thr
+    s, e = merge_candidates(t, x, y, usable, blocked, s, e,
+                            merge_gap_ms=merge_gap_ms, merge_distance_deg=merge_distance_deg, dt_s=dt)
+    dur_ms = (te[e] - t[s]) * 1000.0
+    keep = dur_ms >= min_fixation_ms - 1e-9
+    s, e = s[keep], e[keep]
+    ok = usable & np.isfinite(x) & np.isfinite(y)
+    cx, cy = _prefix(x, ok), _prefix(y, ok)
+    cn = np.concatenate([[0], np.cumsum(ok)])
+    mx, my = _means(cx, cy, cn, s, e)
+    frames = []
+    if len(s):
+        xp = np.append(x, 0.0)
+        yp = np.append(y, 0.0)
+        idx = np.empty(2 * len(s), dtype=np.int64)
+        idx[0::2], idx[1::2] = s, np.minimum(e, n)
+        disp = (np.maximum.reduceat(xp, idx)[0::2] - np.minimum.reduceat(xp, idx)[0::2]
+                + np.maximum.reduceat(yp, idx)[0::2] - np.minimum.reduceat(yp, idx)[0::2])
+        frames.append(pd.DataFrame({"type": "fixation", "onset_s": t[s], "offset_s": te[e],
+                                    "yaw_deg": mx, "pitch_deg": my, "amplitude_deg": np.nan,
+                                    "dispersion_deg": disp, "n_samples": (e - s)}))
+        d = np.zeros(n + 1, dtype=np.int64)
+        np.add.at(d, s, 1)
+        np.add.at(d, e, -1)
+        codes[np.cumsum(d[:-1]) > 0] = FIXATION
+    if len(s) >= 2:
+        cb = np.concatenate([[0], np.cumsum(blocked)])
+        a, b = e[:-1], s[1:]
+        free = (cb[b] - cb[a]) == 0
+        gap_ms = (t[b] - te[a]) * 1000.0
+        sac = free & (gap_ms <= saccade_max_ms + 1e-9)
+        a, b = a[sac], b[sac]
+        amp = np.hypot(mx[1:][sac] - mx[:-1][sac], my[1:][sac] - my[:-1][sac])
+        frames.append(pd.DataFrame({"type": "saccade", "onset_s": te[a], "offset_s": t[b], "yaw_deg": np.nan,
+                                    "pitch_deg": np.nan, "amplitude_deg": amp, "dispersion_deg": np.nan,
+                                    "n_samples": (b - a)}))
+        d = np.zeros(n + 1, dtype=np.int64)
+        np.add.at(d, a, 1)
+        np.add.at(d, b, -1)
+        codes[np.cumsum(d[:-1]) > 0] = SACCADE
+    for name, mask, code in (("blink", blink, BLINK), ("loss", loss, LOSS)):
+        rs, re_ = true_runs(mask)
+        if len(rs):
+            frames.append(pd.DataFrame({"type": name, "onset_s": t[rs], "offset_s": te[re_], "yaw_deg": np.nan,
+                                        "pitch_deg": np.nan, "amplitude_deg": np.nan, "dispersion_deg": np.nan,
+                                        "n_samples": (re_ - rs)}))
+            codes[mask] = code
+    if not frames:
+        return empty_events(), LABEL_NAMES[codes]
+    ev = pd.concat(frames, ignore_index=True)
+    ev["duration_ms"] = (ev["offset_s"] - ev["onset_s"]) * 1000.0
+    ev["n_samples"] = ev["n_samples"].astype("int64")
+    ev = ev[[c.name for c in EVENT_COLUMNS]].sort_values(["onset_s", "offset_s"], kind="stable")
+    return ev.reset_index(drop=True), LABEL_NAMES[codes]
+
+
+def empty_events() -> pd.DataFrame:
+    """An events table with every column and no rows."""
+    return pd.DataFrame({c.name: pd.Series(dtype="object" if c.dtype == "str" else c.dtype) for c in EVENT_COLUMNS})

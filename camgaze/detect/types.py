@@ -1,0 +1,33 @@
+"""Result type shared by the detectors."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+@dataclass
+class Candidates:
+    """Fixation candidates found by a detector, before post-processing.
+
+    Attributes
+    ----------
+    starts, ends : ndarray of int64
+        Index ranges ``[starts[k], ends[k])`` into the samples, sorted, not
+        overlapping, never spanning an unusable sample.
+    info : dict
+        Thresholds the detector actually used (e.g. the adapted dispersion
+        threshold in deg), for the JSON sidecar.
+    """
+
+    starts: np.ndarray
+    ends: np.ndarray
+    info: dict = field(default_factory=dict)
+
+    @classmethod
+    def empty(cls, info: dict | None = None) -> "Candidates":
+        z = np.zeros(0, dtype=np.int64)
+        return cls(z, z.copy(), dict(info or {}))
+
+    def __len__(self) -> int:
+        return len(self.starts)

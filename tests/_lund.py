@@ -1,0 +1,143 @@
+"""Loader for the hand-coded recordings of Andersson et al. (2017).
+
+Andersson, R., Larsson, L., Holmqvist, K., Stridh, M., & Nystrom, M. (2017).
+One algorithm to rule them all? An evaluation and discussion of ten eye
+movement event-detection algorithms. Behavior Research Methods, 49(2),
+616-637. doi:10.3758/s13428-016-0738-9.
+
+The files live in ``../shared/reference/lund2013/img`` (see the README there).
+Each trial was labelled by two coders (``MN`` and ``RA``); both files of a
+trial carry the same gaze samples. This module turns a trial into a camgaze
+samples table (angles in degrees via :class:`camgaze.screen.ScreenGeometry`),
+offers the low-rate, noisy versions used to check the detectors under webcam
+conditions, and the agreement figures (Cohen's kappa, fixation runs).
+
+Used by the events tests and by the validation tests.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from camgaze.screen import ScreenGeometry
+
+#: coder label codes, from the data set's README
+FIXATION, SACCADE, PSO, PURSUIT, BLINK, UNDEFINED = 1, 2, 3, 4, 5, 6
+CODERS = ("MN", "RA")
+
+
+@dataclass
+class LundTrial:
+    """One trial: gaze in degrees and both coders' labels, per sample."""
+
+    name: str
+    t_s: np.ndarray
+    yaw_deg: np.ndarray
+    pitch_deg: np.ndarray
+    valid: np.ndarray
+    labels: dict[str, np.ndarray] = field(default_factory=dict)
+    screen: ScreenGeometry | None = None
+
+    @property
+    def rate_hz(self) -> float:
+        return float(1.0 / np.median(np.diff(self.t_s)))
+
+    def samples(self) -> pd.DataFrame:
+        """The trial as a camgaze samples table."""
+        return pd.DataFrame({"t_s": self.t_s, "valid": self.valid,
+                             "yaw_deg": np.where(self.valid, self.yaw_deg, np.nan),
+                             "pitch_deg": np.where(self.valid, self.pitch_deg, np.nan)})
+
+    def fixation_mask(self, coder: str) -> np.ndarray:
+        return self.labels[coder] == FIXATION
+
+
+def _read_mat(path: Path):
+    import scipy.io as sio
+
+    return sio.loadmat(str(path), squeeze_me=True, struct_as_record=False)["ETdata"]
+
+
+def load_trial(directory: Path, name: str) -> LundTrial:
+    """Read both coders' files of trial ``name`` (e.g. ``"TH34_img_Europe"``)."""
+    directory = Path(directory)
+    labels = {}
+    pos = None
+    screen = None
+    for coder in CODERS:
+        d = _read_mat(directory / f"{name}_labelled_{coder}.mat")
+        p = np.asarray(d.pos, dtype=float)
+        if pos is None:
+            pos = p
+            dim = np.asarray(d.screenDim, dtype=float)
+            res = np.asarray(d.screenRes, dtype=float)
+            screen = ScreenGeometry(width_mm=dim[0] * 1000.0, height_mm=dim[1] * 1000.0,
+                                    distance_mm=float(d.viewDist) * 1000.0,
+                                    width_px=int(res[0]), height_px=int(res[1]))
+        labels[coder] = p[:, 5].astype(int)
+    t_s = (pos[:, 0] - pos[0, 0]) / 1e6  # timestamps are microseconds; trust them, not sampFreq
+    x, y = pos[:, 3], pos[:, 4]
+    valid = ~((x == 0) & (y == 0)) & np.isfinite(x) & np.isfinite(y)
+    yaw, pitch = screen.px_to_deg(x, y)
+    return LundTrial(name=name, t_s=t_s, yaw_deg=np.asarray(yaw), pitch_deg=np.asarray(pitch),
+                     valid=valid, labels=labels, screen=screen)
+
+
+def trial_names(directory: Path) -> list[str]:
+    names = sorted({p.name.rsplit("_labelled_", 1)[0] for p in Path(directory).glob("*_labelled_MN.mat")})
+    return names
+
+
+def load_all(directory: Path) -> list[LundTrial]:
+    return [load_trial(directory, n) for n in trial_names(directory)]
+
+
+def degrade(trial: LundTrial, *, rate_hz: float = 30.0, noise_rms_deg: float = 0.5, seed: int = 0) -> LundTrial:
+    """A low-rate, noisy version of a trial, like a webcam recording of it.
+
+    Downsampling takes the sample nearest each ``1 / rate_hz`` tick (and the
+    coders' label at that sample). Noise: independent Gaussian noise on yaw
+    and pitch with per-axis SD ``noise_rms_deg / sqrt(2)``, so the RMS length
+    of the added 2-D noise vector is ``noise_rms_deg``.
+    """
+    t = trial.t_s
+    ticks = np.arange(t[0], t[-1] + 1e-9, 1.0 / rate_hz)
+    idx = np.clip(np.searchsorted(t, ticks), 0, len(t) - 1)
+    prev = np.clip(idx - 1, 0, len(t) - 1)
+    idx = np.where(np.abs(t[prev] - ticks) <= np.abs(t[idx] - ticks), prev, idx)
+    idx = np.unique(idx)
+    rng = np.random.default_rng(seed)
+    sd = noise_rms_deg / np.sqrt(2.0)
+    return LundTrial(
+        name=trial.name, t_s=t[idx].copy(),
+        yaw_deg=trial.yaw_deg[idx] + rng.normal(0.0, sd, len(idx)),
+        pitch_deg=trial.pitch_deg[idx] + rng.normal(0.0, sd, len(idx)),
+        valid=trial.valid[idx].copy(),
+        labels={c: v[idx].copy() for c, v in trial.labels.items()}, screen=trial.screen)
+
+
+def cohen_kappa(a: np.ndarray, b: np.ndarray) -> float:
+    """Cohen's (1960) kappa of two boolean label vectors."""
+    a = np.asarray(a, dtype=bool)
+    b = np.asarray(b, dtype=bool)
+    po = np.mean(a == b)
+    pa, pb = a.mean(), b.mean()
+    pe = pa * pb + (1 - pa) * (1 - pb)
+    return float((po - pe) / (1 - pe)) if pe < 1 else float("nan")
+
+
+def runs(mask: np.ndarray, t_s: np.ndarray) -> tuple[int, float]:
+    """Number of runs of ``True`` and their mean duration in ms (first sample to first sample after)."""
+    m = np.concatenate([[False], np.asarray(mask, bool), [False]])
+    d = np.diff(m.astype(int))
+    on = np.flatnonzero(d == 1)
+    off = np.flatnonzero(d == -1)  # exclusive end index
+    if len(on) == 0:
+        return 0, float("nan")
+    dt = float(np.median(np.diff(t_s)))
+    t_end = np.append(t_s, t_s[-1] + dt)
+    dur = (t_end[off] - t_s[on]) * 1000.0
+    return int(len(on)), float(dur.mean())
