@@ -1,0 +1,370 @@
+"""Drawing one webcam-like frame: a posed face with moving eyes and lids.
+
+Geometry (all in the camera frame of :mod:`camgaze.schema`, millimetres):
+
+* A pinhole camera with principal point at the picture centre and focal
+  length ``f = (width / 2) / tan(fov / 2)`` pixels. Picture coordinates are
+  continuous with pixel ``i`` covering ``[i, i + 1)`` (the face mesh's
+  convention: ``x = x_norm * width``).
+* The photograph is scaled so that, with the head at its rest position, the
+  photo's iris has the size an 11.7 mm iris has at that distance. Each
+  landmark is lifted to 3-D by back-projecting its picture position at the
+  depth ``Z_iris + z_mesh * mm_per_px``; the rest pose therefore reprojects
+  exactly onto the photograph.
+* Each eyeball is a 12 mm sphere (Bekerman, Gottlieb & Vaiman 2014 - field
+  notes, from memory) centred 12 mm behind the photo's iris (the photographed
+  person looks at the camera). The head origin is the midpoint of the two
+  eyeball centres.
+* A head pose ``(R, T)`` moves a rest point ``P`` to ``R (P - O_rest) + T``
+  with ``R = Ry(yaw) Rx(-pitch) Rz(-roll)`` (see :func:`head_rotation`).
+* The iris centre is ``eyeball_centre + 12 mm * g`` for the gaze direction
+  ``g``; the iris is a disc of diameter 11.7 mm perpendicular to ``g``,
+  drawn as its (affine-approximated) perspective image and clipped to the
+  eyelid opening.
+
+The skin around the eyes follows the head by a piecewise-linear warp of the
+photograph from the rest landmarks to the posed landmarks (Delaunay
+triangulation with fixed anchors on a box around the face, so the background
+outside the box does not move).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ._env import import_cv2
+from .render_face import EYE_CONTOUR, EYE_IRIS, EYES, IRIS_DIAMETER_MM, FacePhoto
+
+#: eyeball radius, mm (Bekerman, Gottlieb & Vaiman 2014 - field notes, from memory)
+EYEBALL_RADIUS_MM = 12.0
+#: pupil diameter drawn inside the iris, mm (a mid-range indoor pupil - common practice, from memory)
+PUPIL_DIAMETER_MM = 3.8
+_TEX_PX = 64  # side of the canonical iris texture
+
+
+def gaze_vector(yaw_deg, pitch_deg) -> np.ndarray:
+    """Unit gaze direction(s) in the camera frame from yaw and pitch in degrees (schema.py's frame).
+
+    ``yaw = atan2(-gx, -gz)`` and ``pitch = atan2(-gy, hypot(gx, gz))``; the
+    result has shape ``(..., 3)``.
+    """
+    y = np.radians(np.asarray(yaw_deg, dtype=float))
+    p = np.radians(np.asarray(pitch_deg, dtype=float))
+    return np.stack([-np.cos(p) * np.sin(y), -np.sin(p), -np.cos(p) * np.cos(y)], axis=-1)
+
+
+def head_rotation(yaw_deg: float = 0.0, pitch_deg: float = 0.0, roll_deg: float = 0.0) -> np.ndarray:
+    """Head-to-camera rotation matrix for a head pose in degrees (schema.py's frame).
+
+    ``R = Ry(yaw) @ Rx(-pitch) @ Rz(-roll)``: the face normal ``(0, 0, -1)``
+    (towards the camera) turns to yaw ``yaw_deg`` and pitch ``pitch_deg`` by
+    the same formulas as gaze; roll turns the head's up vector towards the
+    subject's right shoulder (picture left) for ``roll_deg > 0``.
+    """
+    a, b, c = np.radians([yaw_deg, -pitch_deg, -roll_deg])
+    ry = np.array([[np.cos(a), 0, np.sin(a)], [0, 1, 0], [-np.sin(a), 0, np.cos(a)]])
+    rx = np.array([[1, 0, 0], [0, np.cos(b), -np.sin(b)], [0, np.sin(b), np.cos(b)]])
+    rz = np.array([[np.cos(c), -np.sin(c), 0], [np.sin(c), np.cos(c), 0], [0, 0, 1]])
+    return ry @ rx @ rz
+
+
+@dataclass(frozen=True)
+class Camera:
+    """Pinhole camera: picture size in pixels and horizontal field of view in degrees."""
+
+    width_px: int
+    height_px: int
+    fov_deg: float = 60.0
+
+    @property
+    def focal_px(self) -> float:
+        return (self.width_px / 2.0) / np.tan(np.radians(self.fov_deg) / 2.0)
+
+    @property
+    def centre_px(self) -> tuple[float, float]:
+        return self.width_px / 2.0, self.height_px / 2.0
+
+    def project(self, pts_mm: np.ndarray) -> np.ndarray:
+        """Project (N, 3) camera-frame points (mm) to (N, 2) picture coordinates (px)."""
+        f = self.focal_px
+        cx, cy = self.centre_px
+        z = pts_mm[..., 2]
+        return np.stack([cx + f * pts_mm[..., 0] / z, cy + f * pts_mm[..., 1] / z], axis=-1)
+
+
+def _iris_texture(rgb, seed: int) -> np.ndarray:
+    """Canonical iris disc (RGBA float32, _TEX_PX square): radial streaks, dark limbus, pupil."""
+    rng = np.random.default_rng(seed)
+    n = _TEX_PX
+    yy, xx = np.mgrid[0:n, 0:n]
+    c = (n - 1) / 2.0
+    rho = np.hypot(xx - c, yy - c) / (n / 2.0)
+    th = np.arctan2(yy - c, xx - c)
+    streak = np.zeros_like(rho)
+    for k in rng.integers(12, 60, 10):
+        streak += np.sin(k * th + rng.uniform(0, 2 * np.pi)) * rng.uniform(0.3, 1.0)
+    streak /= np.abs(streak).max()
+    base = np.asarray(rgb, dtype=float)
+    shade = 0.9 + 0.18 * streak * (rho > 0.35)
+    shade *= 1.0 + 0.12 * np.exp(-((rho - 0.5) / 0.08) ** 2)  # collarette
+    shade *= np.where(rho > 0.82, 1.0 - 0.55 * np.clip((rho - 0.82) / 0.18, 0, 1), 1.0)  # limbus
+    col = base[None, None, :] * shade[..., None]
+    pupil_r = PUPIL_DIAMETER_MM / IRIS_DIAMETER_MM
+    pw = np.clip((rho - pupil_r) / 0.05 + 0.5, 0, 1)[..., None]
+    col = col * pw + np.array([14.0, 12.0, 12.0]) * (1 - pw)
+    alpha = np.clip((1.0 - rho) * (n / 2.0) + 0.5, 0, 1)
+    return np.dstack([col, alpha]).astype(np.float32)
+
+
+class FaceRig:
+    """A face photograph placed in front of a camera, posable and with drawable eyes.
+
+    Parameters
+    ----------
+    face : FacePhoto
+        The landmarked photograph.
+    camera : Camera
+        The camera the frames are rendered for.
+    rest_head_mm : tuple of float
+        Head origin (midpoint of the eyeball centres) in the camera frame at
+        the rest pose, mm; the photograph is laid out for it.
+    background : numpy.ndarray
+        The plain picture behind the photograph, RGB uint8, camera size.
+    """
+
+    def __init__(self, face: FacePhoto, camera: Camera, *, rest_head_mm=(0.0, 0.0, 600.0),
+                 background: np.ndarray, seed: int = 0):
+        cv2 = import_cv2()
+        self.face = face
+        self.camera = camera
+        f = camera.focal_px
+        cx, cy = camera.centre_px
+        x0, y0, z0 = map(float, rest_head_mm)
+        lm = face.landmarks_px
+        iris_c = lm[[EYE_IRIS[e][0] for e in EYES]]
+        z_iris = z0 - EYEBALL_RADIUS_MM
+        # scale photo px -> canvas px so the photo iris is 11.7 mm at z_iris
+        k = f * IRIS_DIAMETER_MM / (z_iris * face.iris_diameter_px)
+        mid = iris_c[:, :2].mean(axis=0)
+        target = np.array([cx + f * x0 / z_iris, cy + f * y0 / z_iris])
+        off = target - k * mid
+        self.photo_scale = k
+        self.photo_offset_px = off
+        uv = k * lm[:, :2] + off
+        depth = z_iris + (lm[:, 2] - iris_c[:, 2].mean()) * face.mm_per_px
+        self.rest_mesh_mm = np.stack([(uv[:, 0] - cx) * depth / f, (uv[:, 1] - cy) * depth / f, depth], axis=1)
+        self.rest_uv = uv
+        self.rest_eyeball_mm = {e: self.rest_mesh_mm[EYE_IRIS[e][0]] + np.array([0.0, 0.0, EYEBALL_RADIUS_MM])
+                                for e in EYES}
+        self.rest_origin_mm = 0.5 * (self.rest_eyeball_mm["right"] + self.rest_eyeball_mm["left"])
+        span = uv.max(axis=0) - uv.min(axis=0)
+        self.face_size_px = float(max(span))
+
+        # the photo composited onto the background with feathered edges
+        h, w = camera.height_px, camera.width_px
+        M = np.array([[k, 0, off[0] + 0.5 * k - 0.5], [0, k, off[1] + 0.5 * k - 0.5]])
+        ph, pw = face.image.shape[:2]
+        photo = cv2.warpAffine(face.image, M, (w, h), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+        feather = max(4.0, 0.08 * k * min(ph, pw))
+        a = np.zeros((ph, pw), np.float32)
+        yy, xx = np.mgrid[0:ph, 0:pw]
+        edge = np.minimum.reduce([xx + 0.5, yy + 0.5, pw - xx - 0.5, ph - yy - 0.5]) * k
+        a[:] = np.clip(edge / feather, 0, 1)
+        alpha = cv2.warpAffine(a, M, (w, h), flags=cv2.INTER_LINEAR, borderValue=0)[..., None]
+        self.base = np.clip(photo * alpha + background * (1 - alpha) + 0.5, 0, 255).astype(np.uint8)
+        self.background = np.ascontiguousarray(background, dtype=np.uint8).copy()
+        self.iris_texture = {e: _iris_texture(face.eyes[e].iris_rgb, seed + i) for i, e in enumerate(EYES)}
+        self._anchor_cache = None
+
+    # ------------------------------------------------------------------ pose
+    def lid_offsets_mm(self, eye_pitch_deg: float) -> np.ndarray:
+        """Head-frame displacement (478, 3) of the eyelid landmarks for an eye-in-head pitch in degrees.
+
+        The eyelids follow vertical eye movements (lid-eye coordination): the
+        upper lid moves about 0.8 and the lower lid about 0.3 of the vertical
+        travel of the front of the eye, most at the middle of the lid and
+        none at the corners (common practice, from memory).
+        """
+        d = np.zeros_like(self.rest_mesh_mm)
+        travel = EYEBALL_RADIUS_MM * np.sin(np.radians(np.clip(eye_pitch_deg, -35.0, 35.0)))
+        for e in EYES:
+            ids = EYE_CONTOUR[e]
+            for j in range(1, 8):  # lower lid
+                d[ids[j], 1] -= 0.3 * travel * np.sin(np.pi * j / 8)
+            for j in range(9, 16):  # upper lid
+                d[ids[j], 1] -= 0.8 * travel * np.sin(np.pi * (j - 8) / 8)
+        return d
+
+    def pose(self, R: np.ndarray, T_mm, *, eye_pitch_deg: float = 0.0) -> tuple[np.ndarray, dict]:
+        """Posed mesh (478, 3) and eyeball centres for rotation ``R`` and head origin ``T_mm``.
+
+        ``eye_pitch_deg`` (gaze pitch relative to the head) moves the eyelids
+        with the eyes, see :meth:`lid_offsets_mm`.
+        """
+        T = np.asarray(T_mm, dtype=float)
+        rest = self.rest_mesh_mm
+        if eye_pitch_deg:
+            rest = rest + self.lid_offsets_mm(eye_pitch_deg)
+        mesh = (rest - self.rest_origin_mm) @ R.T + T
+        eyes = {e: R @ (c - self.rest_origin_mm) + T for e, c in self.rest_eyeball_mm.items()}
+        return mesh, eyes
+
+    def iris_centres_mm(self, R, T_mm, gaze: np.ndarray) -> dict:
+        """3-D iris centres (camera frame, mm) for a head pose and a unit gaze vector."""
+        _, eyes = self.pose(R, T_mm)
+        return {e: c + EYEBALL_RADIUS_MM * gaze for e, c in eyes.items()}
+
+    # ------------------------------------------------------------------ warp
+    def _warped_base(self, dst_uv: np.ndarray) -> np.ndarray:
+        cv2 = import_cv2()
+        from scipy.interpolate import LinearNDInterpolator
+
+        h, w = self.camera.height_px, self.camera.width_px
+        src_uv = self.rest_uv
+        d = np.abs(dst_uv - src_uv).max()
+        out = self.base.copy()
+        if d < 0.05:
+            return out
+        g = 4
+        moved = np.abs(dst_uv - src_uv).max(axis=1) > 0.05
+        both = np.vstack([src_uv[moved], dst_uv[moved]])
+        # a wide margin when the whole head moves (hair and ears stretch smoothly), a narrow one for the lids
+        margin = (0.35 if moved.mean() > 0.5 else 0.1) * self.face_size_px + d
+        x0 = int(np.floor(max(0, both[:, 0].min() - margin)))
+        y0 = int(np.floor(max(0, both[:, 1].min() - margin)))
+        x1 = int(np.ceil(min(w, both[:, 0].max() + margin)))
+        y1 = int(np.ceil(min(h, both[:, 1].max() + margin)))
+        nx, ny = max(2, (x1 - x0) // g), max(2, (y1 - y0) // g)
+        x1, y1 = min(w, x0 + nx * g), min(h, y0 + ny * g)
+        nx, ny = (x1 - x0) // g, (y1 - y0) // g
+        if nx < 2 or ny < 2:
+            return out
+        bx = np.linspace(x0, x1, 12)
+        by = np.linspace(y0, y1, 12)
+        anchors = np.vstack([np.c_[bx, np.full_like(bx, y0)], np.c_[bx, np.full_like(bx, y1)],
+                             np.c_[np.full_like(by, x0), by], np.c_[np.full_like(by, x1), by]])
+        near = ((dst_uv[:, 0] > x0) & (dst_uv[:, 0] < x1) & (dst_uv[:, 1] > y0) & (dst_uv[:, 1] < y1)
+                & (src_uv[:, 0] > x0) & (src_uv[:, 0] < x1) & (src_uv[:, 1] > y0) & (src_uv[:, 1] < y1))
+        interp = LinearNDInterpolator(np.vstack([dst_uv[near], anchors]), np.vstack([src_uv[near], anchors]))
+        gx = x0 + (np.arange(nx) + 0.5) * g
+        gy = y0 + (np.arange(ny) + 0.5) * g
+        GX, GY = np.meshgrid(gx, gy)
+        m = interp(GX, GY).astype(np.float32)
+        bad = ~np.isfinite(m[..., 0])
+        if bad.any():
+            m[bad, 0], m[bad, 1] = GX[bad], GY[bad]
+        mx = cv2.resize(m[..., 0], (nx * g, ny * g), interpolation=cv2.INTER_LINEAR) - 0.5
+        my = cv2.resize(m[..., 1], (nx * g, ny * g), interpolation=cv2.INTER_LINEAR) - 0.5
+        out[y0:y1, x0:x1] = cv2.remap(self.base, mx, my, interpolation=cv2.INTER_LINEAR,
+                                      borderMode=cv2.BORDER_REPLICATE)
+        return out
+
+    # ------------------------------------------------------------------ eyes
+    def _draw_eye(self, img: np.ndarray, eye: str, contour_uv: np.ndarray, iris_c_mm: np.ndarray,
+                  gaze: np.ndarray, closure: float) -> None:
+        cv2 = import_cv2()
+        look = self.face.eyes[eye]
+        h, w = img.shape[:2]
+        eye_w = float(np.linalg.norm(contour_uv[0] - contour_uv[8]))
+        pad = int(np.ceil(0.25 * eye_w)) + 4
+        x0 = int(max(0, np.floor(contour_uv[:, 0].min()) - pad))
+        y0 = int(max(0, np.floor(contour_uv[:, 1].min()) - pad))
+        x1 = int(min(w, np.ceil(contour_uv[:, 0].max()) + pad))
+        y1 = int(min(h, np.ceil(contour_uv[:, 1].max()) + pad))
+        if x1 - x0 < 3 or y1 - y0 < 3:
+            return
+        pw, ph = x1 - x0, y1 - y0
+        org = np.array([x0 + 0.5, y0 + 0.5])  # patch cv2 coords = canvas coords - org
+
+        def poly_mask(poly):
+            m = np.zeros((ph, pw), np.uint8)
+            cv2.fillPoly(m, [np.round((poly - org) * 16).astype(np.int32)], 255, lineType=cv2.LINE_AA, shift=4)
+            return m.astype(np.float32) / 255.0
+
+        full = poly_mask(contour_uv)
+        full = cv2.dilate(full, np.ones((3, 3), np.uint8))
+        lower = contour_uv[1:8]
+        upper = contour_uv[9:][::-1]  # outer to inner, paired with lower
+        c = float(np.clip(closure, 0.0, 1.0))
+        upper_c = upper + c * (lower - upper)
+        opening = np.vstack([contour_uv[0], lower, contour_uv[8], upper_c[::-1]])
+        open_m = poly_mask(opening) if c < 0.999 else np.zeros((ph, pw), np.float32)
+
+        patch = img[y0:y1, x0:x1].astype(np.float32)
+        skin = np.asarray(look.skin_rgb, np.float32)
+        # sclera with darker corners
+        yy, xx = np.mgrid[0:ph, 0:pw].astype(np.float32)
+        a_pt, b_pt = contour_uv[0] - org, contour_uv[8] - org
+        axis = (b_pt - a_pt) / max(eye_w, 1e-6)
+        s = ((xx - a_pt[0]) * axis[0] + (yy - a_pt[1]) * axis[1]) / max(eye_w, 1e-6) * 2 - 1
+        shade = np.clip(1.0 - 0.35 * s ** 2, 0.5, 1.0)[..., None]
+        content = np.asarray(look.sclera_rgb, np.float32)[None, None, :] * shade
+        # iris: affine image of the canonical disc
+        r = IRIS_DIAMETER_MM / 2.0
+        ax = np.cross(gaze, [0.0, 1.0, 0.0])
+        ax /= np.linalg.norm(ax)
+        ay = np.cross(gaze, ax)
+        ay /= np.linalg.norm(ay)
+        p3 = np.array([iris_c_mm, iris_c_mm + r * ax, iris_c_mm + r * ay])
+        p2 = self.camera.project(p3) - org
+        tc = (_TEX_PX - 1) / 2.0
+        tr = _TEX_PX / 2.0
+        src = np.float32([[tc, tc], [tc + tr, tc], [tc, tc + tr]])
+        A = cv2.getAffineTransform(src, p2.astype(np.float32))
+        tex = cv2.warpAffine(self.iris_texture[eye], A, (pw, ph), flags=cv2.INTER_LINEAR,
+                             borderMode=cv2.BORDER_CONSTANT, borderValue=0)
+        ia = tex[..., 3:4]
+        content = content * (1 - ia) + tex[..., :3] * ia
+        # upper-lid shadow on the eyeball
+        lid = np.zeros((ph, pw), np.float32)
+        cv2.polylines(lid, [np.round((np.vstack([contour_uv[0], upper_c, contour_uv[8]]) - org) * 16).astype(np.int32)],
+                      False, 1.0, thickness=max(1, int(round(0.25 * eye_w / 4))), lineType=cv2.LINE_AA, shift=4)
+        lid = cv2.GaussianBlur(lid, (0, 0), max(0.8, 0.04 * eye_w))
+        content = content * (1 - 0.35 * lid[..., None])
+
+        m_full = full[..., None]
+        m_open = open_m[..., None]
+        patch[:] = patch * (1 - m_full) + skin * m_full
+        patch[:] = patch * (1 - m_open) + content * m_open
+        # lash line along the (possibly lowered) upper lid
+        lash = np.zeros((ph, pw), np.float32)
+        line = np.vstack([contour_uv[0], upper_c, contour_uv[8]]) - org
+        thick = max(1, int(round(eye_w / 14)))
+        cv2.polylines(lash, [np.round(line * 16).astype(np.int32)], False, 1.0, thickness=thick,
+                      lineType=cv2.LINE_AA, shift=4)
+        lash = np.clip(lash, 0, 1)[..., None] * 0.85
+        patch[:] = patch * (1 - lash) + np.asarray(look.lash_rgb, np.float32) * lash
+        # a little optical blur over the drawn eye
+        sig = max(0.5, 0.03 * eye_w)
+        soft = cv2.GaussianBlur(cv2.dilate(full, np.ones((5, 5), np.uint8)), (0, 0), 1.5)[..., None]
+        patch[:] = patch * (1 - soft) + cv2.GaussianBlur(patch, (0, 0), sig) * soft
+        img[y0:y1, x0:x1] = np.clip(patch + 0.5, 0, 255).astype(np.uint8)
+
+    # ------------------------------------------------------------------ frame
+    def render(self, *, R: np.ndarray, T_mm, gaze: np.ndarray, closure: float) -> tuple[np.ndarray, dict]:
+        """Render one picture (RGB uint8) and return it with the eye truth.
+
+        Returns
+        -------
+        image : numpy.ndarray
+            (height, width, 3) uint8.
+        info : dict
+            ``iris_uv`` {eye: (x, y) px}, ``iris_mm`` {eye: camera-frame mm},
+            ``iris_diameter_px`` (mean of both eyes, from the projected disc).
+        """
+        g_head = R.T @ gaze
+        eye_pitch = float(np.degrees(np.arctan2(-g_head[1], np.hypot(g_head[0], g_head[2]))))
+        mesh, _ = self.pose(R, T_mm, eye_pitch_deg=eye_pitch)
+        uv = self.camera.project(mesh)
+        img = self._warped_base(uv)
+        iris_mm = self.iris_centres_mm(R, T_mm, gaze)
+        iris_uv, diam = {}, []
+        f = self.camera.focal_px
+        for e in EYES:
+            contour = uv[list(EYE_CONTOUR[e])]
+            self._draw_eye(img, e, contour, iris_mm[e], gaze, closure)
+            iris_uv[e] = self.camera.project(iris_mm[e][None])[0]
+            diam.append(f * IRIS_DIAMETER_MM / np.linalg.norm(iris_mm[e]))
+        return img, {"iris_uv": iris_uv, "iris_mm": iris_mm, "iris_diameter_px": float(np.mean(diam)),
+                     "landmarks_uv": uv}
