@@ -15,8 +15,8 @@ Method (per clip, vectorised over frames once landmarking is done)
    coupling to iris motion averages out) lies from the model's. It moves
    rigidly with the head pose from PnP, so it does not drift with the iris.
 3. **Iris centre in 3-D.** The camera ray through the iris centre (the
-   face mesh's iris point, refined on the image by fitting the dark iris disc
-   inside the eye opening - :func:`refine_iris_centres`) meets the sphere of
+   face mesh's iris point, refined on the image by a circle fitted
+   to the limbus - :func:`camgaze.limbus.limbus_centres`) meets the sphere of
    radius ``sqrt(12^2 - 5.85^2) = 10.5 mm`` around the eyeball centre, on
    which the iris plane's centre lies. Gaze is the unit vector from eyeball
    centre to that point, in the camera frame: head-compensated by
@@ -36,11 +36,10 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from ._env import import_cv2
 from .geometry import gaze_vector_to_angles, ray_sphere_near
 from .headpose import face_model, pose_angles
-from .landmarks import (LEFT_EAR_POINTS, LEFT_EYE_CORNERS, LEFT_EYE_OUTLINE, LEFT_IRIS_CENTRE, LEFT_IRIS_RING,
-                        RIGHT_EAR_POINTS, RIGHT_EYE_CORNERS, RIGHT_EYE_OUTLINE, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING)
+from .landmarks import (LEFT_EAR_POINTS, LEFT_EYE_CORNERS, LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_EAR_POINTS,
+                        RIGHT_EYE_CORNERS, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING)
 
 IRIS_DIAMETER_MM = 11.7
 EYEBALL_RADIUS_MM = 12.0
@@ -60,7 +59,7 @@ class GazeParams:
         Frames marked invalid on each side of a blink (0-3; default 1).
     refine_iris : bool
         Refine the face mesh's iris centre by fitting the iris disc on the
-        image (default False: on real photographs it added more jitter than it removed).
+        image by a circle fit to the limbus (camgaze.limbus; default True).
     max_head_yaw_deg : float
         Frames with the head turned further than this are invalid (default 45).
     head_smooth_ms : float
@@ -74,7 +73,7 @@ class GazeParams:
 
     blink_rel_threshold: float = 0.6
     blink_pad_frames: int = 1
-    refine_iris: bool = False
+    refine_iris: bool = True
     max_head_yaw_deg: float = 45.0
     head_smooth_ms: float = 300.0
 
@@ -103,92 +102,6 @@ def frame_measurements(points_px: np.ndarray) -> dict:
         "corners_px": corners,
         "ear": np.array([eye_aspect_ratio(points_px, RIGHT_EAR_POINTS), eye_aspect_ratio(points_px, LEFT_EAR_POINTS)]),
     }
-
-
-def _disc_kernel(r: float, half: int | None = None) -> np.ndarray:
-    n = int(np.ceil(r)) + 1 if half is None else half
-    yy, xx = np.mgrid[-n:n + 1, -n:n + 1]
-    return (np.hypot(xx, yy) <= r).astype(np.float32)
-
-
-def refine_iris_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray,
-                        iris_diam_px: np.ndarray) -> np.ndarray:
-    """Refine both iris centres by fitting a dark disc inside the eye opening.
-
-    For each eye, within the polygon of the eyelids, the score of a candidate
-    centre is the mean darkness of the *visible* pixels under a disc of the
-    iris radius (normalised convolution, so a disc half hidden by a lid is
-    judged by its visible part) minus the mean darkness of the visible ring
-    around it. The best candidate within one iris radius of the face mesh's
-    point, refined to sub-pixel by a parabola through its neighbours, is
-    returned. Falls back to the face mesh's point when the eye is too small
-    (< 4 px iris) or nearly closed.
-
-    Parameters
-    ----------
-    image : (H, W, 3) RGB or (H, W) grey picture (only the eye regions are read).
-    points_px : (478, 3) landmarks; iris_px : (2, 2) mesh iris centres (right, left);
-    iris_diam_px : (2,) iris diameters in px.
-
-    Returns
-    -------
-    (2, 2) refined centres in px.
-    """
-    cv2 = import_cv2()
-    out = iris_px.copy()
-    h, w = image.shape[:2]
-    for e, outline in enumerate((RIGHT_EYE_OUTLINE, LEFT_EYE_OUTLINE)):
-        r = 0.5 * float(iris_diam_px[e])
-        if not np.isfinite(r) or r < 2.0:
-            continue
-        poly = points_px[list(outline), :2]
-        pad = int(np.ceil(2 * r)) + 2
-        x0 = int(max(0, np.floor(poly[:, 0].min()) - pad))
-        x1 = int(min(w, np.ceil(poly[:, 0].max()) + pad))
-        y0 = int(max(0, np.floor(poly[:, 1].min()) - pad))
-        y1 = int(min(h, np.ceil(poly[:, 1].max()) + pad))
-        if x1 - x0 < 4 or y1 - y0 < 4:
-            continue
-        roi = image[y0:y1, x0:x1].astype(np.float32)
-        if roi.ndim == 3:
-            roi = roi.mean(axis=2)
-        mask = np.zeros(roi.shape, np.uint8)
-        cv2.fillPoly(mask, [np.round(poly - [x0, y0]).astype(np.int32)], 1)
-        maskf = mask.astype(np.float32)
-        if maskf.sum() < np.pi * r * r * 0.3:
-            continue
-        # darkness relative to the brightest visible pixels (sclera)
-        vis = roi[mask > 0]
-        hi = np.percentile(vis, 95)
-        dark = np.clip(hi - roi, 0, None) * maskf
-        kd = _disc_kernel(r)
-        half = int(np.ceil(1.6 * r)) + 1
-        kr = _disc_kernel(1.6 * r, half) - _disc_kernel(r * 1.05, half)
-        num_d = cv2.filter2D(dark, -1, kd, borderType=cv2.BORDER_CONSTANT)
-        den_d = cv2.filter2D(maskf, -1, kd, borderType=cv2.BORDER_CONSTANT)
-        num_r = cv2.filter2D(dark, -1, kr, borderType=cv2.BORDER_CONSTANT)
-        den_r = cv2.filter2D(maskf, -1, kr, borderType=cv2.BORDER_CONSTANT)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            score = num_d / np.maximum(den_d, 1e-3) - num_r / np.maximum(den_r, 1e-3)
-        # need a fair share of the disc visible
-        score[den_d < 0.35 * kd.sum()] = -np.inf
-        cx, cy = iris_px[e] - [x0, y0]
-        yy, xx = np.mgrid[0:roi.shape[0], 0:roi.shape[1]]
-        score[np.hypot(xx - cx, yy - cy) > r] = -np.inf
-        if not np.isfinite(score).any():
-            continue
-        iy, ix = np.unravel_index(int(np.argmax(score)), score.shape)
-        dx = dy = 0.0
-        if 0 < ix < score.shape[1] - 1 and np.isfinite(score[iy, ix - 1]) and np.isfinite(score[iy, ix + 1]):
-            a, b, c = score[iy, ix - 1], score[iy, ix], score[iy, ix + 1]
-            den = a - 2 * b + c
-            dx = 0.5 * (a - c) / den if den < 0 else 0.0
-        if 0 < iy < score.shape[0] - 1 and np.isfinite(score[iy - 1, ix]) and np.isfinite(score[iy + 1, ix]):
-            a, b, c = score[iy - 1, ix], score[iy, ix], score[iy + 1, ix]
-            den = a - 2 * b + c
-            dy = 0.5 * (a - c) / den if den < 0 else 0.0
-        out[e] = [x0 + ix + np.clip(dx, -0.5, 0.5), y0 + iy + np.clip(dy, -0.5, 0.5)]
-    return out
 
 
 def _dilate(mask: np.ndarray, n: int) -> np.ndarray:

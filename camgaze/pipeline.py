@@ -38,7 +38,8 @@ import pandas as pd
 from . import __version__
 from .atomic import sha256_file, sha256_json, write_csv, write_json, write_parquet
 from .errors import CamgazeInputError, Cancelled, NoFaceError
-from .gaze import GazeParams, estimate_gaze, frame_measurements, refine_iris_centres
+from .gaze import GazeParams, estimate_gaze, frame_measurements
+from .limbus import limbus_centres
 from .headpose import HeadPoseSolver
 from .landmarks import FaceTracker, mediapipe_version, parse_face_choice
 from .schema import SAMPLE_COLUMNS
@@ -185,7 +186,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                     m = frame_measurements(obs.points_px)
                     iris = m["iris_px"]
                     if params.gaze.refine_iris:
-                        iris = refine_iris_centres(fr.image, obs.points_px, iris, m["iris_diam_px"])
+                        iris, _ = limbus_centres(fr.image, obs.points_px, iris, m["iris_diam_px"])
                     row[1] = 1.0
                     row[3:12] = R.ravel()
                     row[12:15] = t

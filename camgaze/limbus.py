@@ -1,0 +1,150 @@
+"""Iris centre from the limbus: a circle fitted to the iris-sclera edges.
+
+The face mesh's iris point follows horizontal eye movements well but
+vertical ones poorly (at webcam scale the iris fills most of the eye opening
+and the lids hide its top and bottom). The left and right limbus arcs stay
+visible, though, and their curvature fixes the circle's centre in both
+directions: for an iris of radius r the visible width of the iris in a row
+at height y is ``2 sqrt(r^2 - (y - cy)^2)``.
+
+For each eye: in every pixel row inside the eye opening (the lid outline of
+the mesh, shrunk by a pixel so the lids' own edges are not used) the
+strongest darkening edge left of the iris and the strongest brightening edge
+right of it are found on the horizontal intensity gradient, refined to
+sub-pixel by a parabola. A circle of the iris radius measured by the mesh
+(allowed to vary by +-20 %) is fitted to those points by Gauss-Newton least
+squares on the geometric distance, with points further than 1 px from the
+circle down-weighted (Huber weights). Too few edge rows (a nearly closed
+eye, a tiny iris) keep the mesh's point.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from ._env import import_cv2
+from .landmarks import LEFT_EYE_OUTLINE, RIGHT_EYE_OUTLINE
+
+
+def _parabola_peak(v: np.ndarray, i: int) -> float:
+    if 0 < i < len(v) - 1:
+        a, b, c = v[i - 1], v[i], v[i + 1]
+        den = a - 2 * b + c
+        if np.isfinite(den) and den != 0:
+            return i + float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
+    return float(i)
+
+
+def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: float = 0.2,
+               iterations: int = 15, huber_px: float = 1.0) -> tuple[np.ndarray, float, float]:
+    """Robust geometric circle fit (centre, radius, RMS residual in px).
+
+    The radius is fitted too but kept within ``r0 * (1 +- r_tol)``.
+    """
+    c = np.asarray(centre0, float).copy()
+    r = float(r0)
+    for _ in range(iterations):
+        d = points - c
+        dist = np.hypot(d[:, 0], d[:, 1])
+        dist = np.where(dist < 1e-9, 1e-9, dist)
+        res = dist - r
+        w = np.where(np.abs(res) <= huber_px, 1.0, huber_px / np.abs(res))
+        # Jacobian of res wrt (cx, cy, r)
+        J = np.c_[-d[:, 0] / dist, -d[:, 1] / dist, -np.ones(len(d))]
+        JW = J * w[:, None]
+        A = JW.T @ J + 1e-6 * np.eye(3)
+        step = -np.linalg.solve(A, JW.T @ res)
+        c += step[:2]
+        r = float(np.clip(r + step[2], r0 * (1 - r_tol), r0 * (1 + r_tol)))
+        if np.abs(step).max() < 1e-3:
+            break
+    d = points - c
+    res = np.hypot(d[:, 0], d[:, 1]) - r
+    return c, r, float(np.sqrt(np.mean(res ** 2)))
+
+
+def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray, iris_diam_px: np.ndarray,
+                   *, min_points: int = 8, n_rays: int = 48, passes: int = 2) -> tuple[np.ndarray, np.ndarray]:
+    """Both eyes' iris centres (right, left) fitted to the limbus.
+
+    Rays are cast from the face mesh's iris point every ``360 / n_rays``
+    degrees; along each, the strongest dark-to-bright step between 0.6 and
+    1.5 iris radii (sub-pixel, on the grey picture smoothed by a 3x3
+    Gaussian) is a limbus candidate if it lies inside the eye opening, at
+    least 1.5 px from the lids' outline (the lid edge is itself a
+    dark-to-bright step). A circle of about the mesh's iris radius is fitted
+    to the candidates (:func:`fit_circle`).
+
+    Parameters
+    ----------
+    image : (H, W, 3) RGB or (H, W) grey picture.
+    points_px : (478, 3) face-mesh landmarks in px.
+    iris_px : (2, 2) mesh iris centres; iris_diam_px : (2,) mesh iris diameters.
+    min_points : int
+        Fewest limbus candidates needed for a fit; otherwise the mesh point is kept.
+    passes : int
+        Rays are cast again from the fitted centre this many times in all
+        (the first pass starts from the mesh point, which may be off).
+
+    Returns
+    -------
+    centres : (2, 2) px; fitted : (2,) bool (False = the mesh point was kept).
+    """
+    cv2 = import_cv2()
+    out = np.array(iris_px, float).copy()
+    fitted = np.zeros(2, bool)
+    h, w = image.shape[:2]
+    ang = np.linspace(0, 2 * np.pi, n_rays, endpoint=False)
+    for e, outline in enumerate((RIGHT_EYE_OUTLINE, LEFT_EYE_OUTLINE)):
+        r = 0.5 * float(iris_diam_px[e])
+        c0 = np.array(iris_px[e], float)
+        if not (np.isfinite(r) and r >= 2.5 and np.all(np.isfinite(c0))):
+            continue
+        cur = c0
+        for _ in range(passes):
+            nxt = _fit_one(cv2, image, points_px, outline, cur, r, ang, min_points)
+            if nxt is None or np.hypot(*(nxt - c0)) > r:
+                break
+            cur = nxt
+            fitted[e] = True
+        out[e] = cur
+    return out, fitted
+
+
+def _fit_one(cv2, image, points_px, outline, centre, r, ang, min_points):
+    """One pass of ray casting from ``centre`` and circle fitting; None when it fails."""
+    h, w = image.shape[:2]
+    n_rays = len(ang)
+    cx, cy = centre
+    x0, x1 = int(max(0, np.floor(cx - 2.0 * r))), int(min(w, np.ceil(cx + 2.0 * r) + 1))
+    y0, y1 = int(max(0, np.floor(cy - 2.0 * r))), int(min(h, np.ceil(cy + 2.0 * r) + 1))
+    if x1 - x0 < 8 or y1 - y0 < 8:
+        return None
+    roi = image[y0:y1, x0:x1]
+    g = roi.astype(np.float32).mean(axis=2) if roi.ndim == 3 else roi.astype(np.float32)
+    g = cv2.GaussianBlur(g, (3, 3), 0.8)
+    poly = (points_px[list(outline), :2] - [x0, y0]).astype(np.float32)
+    radii = np.linspace(0.6 * r, 1.5 * r, max(12, int(np.ceil(1.8 * r))))
+    px = (cx - x0) + np.cos(ang)[:, None] * radii[None, :]
+    py = (cy - y0) + np.sin(ang)[:, None] * radii[None, :]
+    prof = cv2.remap(g, px.astype(np.float32), py.astype(np.float32), cv2.INTER_LINEAR,
+                     borderMode=cv2.BORDER_REPLICATE)
+    step = np.diff(prof, axis=1)  # outward dark -> bright is positive
+    pts = []
+    contour = poly.reshape(-1, 1, 2)
+    for k in range(n_rays):
+        i = int(np.argmax(step[k]))
+        if step[k, i] <= 2.0:  # grey levels per sample: no edge
+            continue
+        fi = _parabola_peak(step[k], i) + 0.5
+        rr = np.interp(fi, np.arange(len(radii)), radii)
+        qx, qy = (cx - x0) + np.cos(ang[k]) * rr, (cy - y0) + np.sin(ang[k]) * rr
+        if cv2.pointPolygonTest(contour, (float(qx), float(qy)), True) < 1.5:
+            continue
+        pts.append((qx, qy))
+    if len(pts) < min_points:
+        return None
+    P = np.array(pts, float)
+    c, rr, rms = fit_circle(P, np.array([cx - x0, cy - y0]), r, r_tol=0.15)
+    if not np.all(np.isfinite(c)) or np.hypot(c[0] - (cx - x0), c[1] - (cy - y0)) > r or rms > 1.5:
+        return None
+    return c + [x0, y0]
