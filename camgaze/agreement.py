@@ -184,7 +184,9 @@ def _degenerate(what: str, n: int, reason: str, *, confidence: float, method: st
 
 
 def _fisher_ci(r: float, se: float, confidence: float) -> tuple[float, float]:
-    z = np.arctanh(np.clip(r, -1.0, 1.0))
+    if abs(r) >= 1.0:  # a perfect correlation: the interval collapses onto it
+        return float(r), float(r)
+    z = np.arctanh(r)
     q = stats.norm.ppf(0.5 + confidence / 2.0)
     return float(np.tanh(z - q * se)), float(np.tanh(z + q * se))
 
