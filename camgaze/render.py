@@ -31,7 +31,7 @@ from .errors import Cancelled, ParameterError
 from .render_face import EYES, FACES, IRIS_DIAMETER_MM, load_face
 from .render_frame import EYEBALL_RADIUS_MM, Camera, FaceRig, gaze_vector, head_rotation
 from .render_trajectory import Trajectory, saccade_duration_ms, synth_trajectory
-from .render_video import ClipWriter, rotate_for_storage
+from .render_video import FORMATS, ClipWriter, rotate_for_storage
 
 __all__ = ["render_clip", "RenderResult", "synth_trajectory", "Trajectory", "saccade_duration_ms",
            "TRUTH_COLUMNS", "read_truth"]
@@ -243,6 +243,9 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
 
     cv2 = import_cv2()
     path = Path(path)
+    if path.suffix.lower() not in FORMATS:
+        raise ParameterError(f"cannot write a clip with extension {path.suffix!r}", path=path,
+                             hint=f"use one of {', '.join(FORMATS)}")
     if face not in FACES:
         raise ParameterError(f"face must be one of {', '.join(FACES)}, got {face!r}")
     try:

@@ -117,6 +117,40 @@ def _iris_texture(rgb, seed: int) -> np.ndarray:
     return np.dstack([col, alpha]).astype(np.float32)
 
 
+def _piecewise_affine_grid(dst: np.ndarray, src: np.ndarray, *, x0: int, y0: int, nx: int, ny: int,
+                           step_px: int) -> np.ndarray:
+    """Source positions of a piecewise-affine warp, sampled on a grid of destination positions.
+
+    The destination points are Delaunay-triangulated; each triangle maps
+    affinely onto its source triangle. Grid node ``(i, j)`` sits at picture
+    position ``(x0 + (j + 0.5) * step_px, y0 + (i + 0.5) * step_px)``; nodes
+    outside every triangle keep their own position. Returns (ny, nx, 2)
+    float32 source positions in picture coordinates.
+    """
+    from scipy.spatial import Delaunay
+
+    cv2 = import_cv2()
+    tri = Delaunay(dst)
+    simp = tri.simplices
+    d = dst[simp]                                    # (k, 3, 2)
+    m = np.concatenate([d, np.ones(d.shape[:2] + (1,))], axis=2)  # rows [x, y, 1]
+    coef = np.linalg.pinv(m) @ src[simp]             # (k, 3, 2): [x, y, 1] @ coef = source
+    ids = np.zeros((ny, nx), np.int32)
+    grid_pts = ((d - [x0, y0]) / step_px - 0.5) * 16  # cv2 pixel-centre grid coordinates, 4 fractional bits
+    grid_pts = np.round(grid_pts).astype(np.int32)
+    for k in range(len(simp)):
+        cv2.fillConvexPoly(ids, grid_pts[k], k + 1, lineType=cv2.LINE_8, shift=4)
+    gx = x0 + (np.arange(nx) + 0.5) * step_px
+    gy = y0 + (np.arange(ny) + 0.5) * step_px
+    GX, GY = np.meshgrid(gx, gy)
+    out = np.stack([GX, GY], axis=-1)
+    inside = ids > 0
+    c = coef[ids[inside] - 1]                        # (n, 3, 2)
+    xs, ys = GX[inside], GY[inside]
+    out[inside] = xs[:, None] * c[:, 0] + ys[:, None] * c[:, 1] + c[:, 2]
+    return out.astype(np.float32)
+
+
 class FaceRig:
     """A face photograph placed in front of a camera, posable and with drawable eyes.
 
@@ -218,15 +252,13 @@ class FaceRig:
     # ------------------------------------------------------------------ warp
     def _warped_base(self, dst_uv: np.ndarray) -> np.ndarray:
         cv2 = import_cv2()
-        from scipy.interpolate import LinearNDInterpolator
-
         h, w = self.camera.height_px, self.camera.width_px
         src_uv = self.rest_uv
         d = np.abs(dst_uv - src_uv).max()
         out = self.base.copy()
         if d < 0.05:
             return out
-        g = 4
+        g = 2
         moved = np.abs(dst_uv - src_uv).max(axis=1) > 0.05
         both = np.vstack([src_uv[moved], dst_uv[moved]])
         # a wide margin when the whole head moves (hair and ears stretch smoothly), a narrow one for the lids
@@ -242,18 +274,12 @@ class FaceRig:
             return out
         bx = np.linspace(x0, x1, 12)
         by = np.linspace(y0, y1, 12)
-        anchors = np.vstack([np.c_[bx, np.full_like(bx, y0)], np.c_[bx, np.full_like(bx, y1)],
-                             np.c_[np.full_like(by, x0), by], np.c_[np.full_like(by, x1), by]])
+        anchors = np.unique(np.vstack([np.c_[bx, np.full_like(bx, y0)], np.c_[bx, np.full_like(bx, y1)],
+                                       np.c_[np.full_like(by, x0), by], np.c_[np.full_like(by, x1), by]]), axis=0)
         near = ((dst_uv[:, 0] > x0) & (dst_uv[:, 0] < x1) & (dst_uv[:, 1] > y0) & (dst_uv[:, 1] < y1)
                 & (src_uv[:, 0] > x0) & (src_uv[:, 0] < x1) & (src_uv[:, 1] > y0) & (src_uv[:, 1] < y1))
-        interp = LinearNDInterpolator(np.vstack([dst_uv[near], anchors]), np.vstack([src_uv[near], anchors]))
-        gx = x0 + (np.arange(nx) + 0.5) * g
-        gy = y0 + (np.arange(ny) + 0.5) * g
-        GX, GY = np.meshgrid(gx, gy)
-        m = interp(GX, GY).astype(np.float32)
-        bad = ~np.isfinite(m[..., 0])
-        if bad.any():
-            m[bad, 0], m[bad, 1] = GX[bad], GY[bad]
+        m = _piecewise_affine_grid(np.vstack([dst_uv[near], anchors]), np.vstack([src_uv[near], anchors]),
+                                   x0=x0, y0=y0, nx=nx, ny=ny, step_px=g)
         mx = cv2.resize(m[..., 0], (nx * g, ny * g), interpolation=cv2.INTER_LINEAR) - 0.5
         my = cv2.resize(m[..., 1], (nx * g, ny * g), interpolation=cv2.INTER_LINEAR) - 0.5
         out[y0:y1, x0:x1] = cv2.remap(self.base, mx, my, interpolation=cv2.INTER_LINEAR,
