@@ -29,7 +29,7 @@ from .errors import ParameterError
 from .features import FEATURE_COLUMNS, DegenerateWindowWarning, compute_features
 from .segments import check_segments, fixed_windows, read_segments
 
-__all__ = ["AnalysisParams", "AnalysisResult", "DegenerateWindowWarning", "FEATURE_COLUMNS", "run_analysis",
+__all__ = ["AnalysisParams", "AnalysisResult", "DegenerateWindowWarning", "FEATURE_COLUMNS", "TableRun", "analyse_table", "run_analysis",
            "write_analysis", "read_segments", "analysis_sidecar"]
 
 
@@ -341,3 +341,113 @@ def write_analysis(result: AnalysisResult, out_dir, *, meta: dict | None = None,
     if sidecar_name:
         paths["sidecar"] = write_json(out / sidecar_name, side)
     return paths
+
+
+@dataclass
+class TableRun:
+    """What :func:`analyse_table` did: the analysis and the files written."""
+
+    result: AnalysisResult
+    paths: dict
+    input_path: Path
+    input_kind: str  # "samples" (a camgaze samples table) or "gaze table" (mapped columns)
+
+
+def _read_samples_file(path: Path) -> pd.DataFrame | None:
+    """A camgaze samples table (parquet, or CSV with t_s/valid/yaw_deg/pitch_deg); None if not one."""
+    from .errors import CamgazeInputError
+    from .schema import REQUIRED_SAMPLE_COLUMNS
+
+    if path.suffix.lower() == ".parquet":
+        try:
+            df = pd.read_parquet(path)
+        except Exception as exc:  # pyarrow raises several error kinds
+            raise CamgazeInputError(f"cannot read as Parquet ({exc})", path=path) from exc
+        return df
+    try:
+        head = pd.read_csv(path, nrows=0, sep=None, engine="python")
+    except Exception:
+        return None
+    cols = [str(c).strip() for c in head.columns]
+    if all(c in cols for c in REQUIRED_SAMPLE_COLUMNS):
+        return pd.read_csv(path, sep=None, engine="python", na_values=["", "n/a", "NA", "NaN", "nan"])
+    return None
+
+
+def analyse_table(path, out_dir, *, time_col: str | None = None, time_unit: str = "s", x_col: str | None = None,
+                  y_col: str | None = None, units: str = "deg", screen=None, validity_col: str | None = None,
+                  delimiter: str | None = None, mapping=None, params: AnalysisParams | None = None,
+                  segments=None) -> TableRun:
+    """Detect events in any gaze table and write events and features.
+
+    The table is either a camgaze samples table (``samples.parquet`` or
+    ``samples.csv`` from ``camgaze process``; no column options needed) or
+    any delimited text table with a time column and x/y gaze columns, in
+    degrees or in screen pixels (then ``screen`` gives size in mm, resolution
+    in px and distance in mm). Delimiter detected; empty cells and ``n/a``
+    are missing data. Event times stay on the table's own time axis, in s.
+
+    Parameters
+    ----------
+    path : path-like
+        The table.
+    out_dir : path-like
+        Output folder; gets events.csv/.parquet, features.csv/.parquet and
+        the JSON sidecar events.json (written last).
+    time_col, x_col, y_col : str, optional
+        Column names (for a gaze table).
+    time_unit : {"s", "ms", "us"}, default "s"
+        Unit of the time column.
+    units : {"deg", "px"}, default "deg"
+        Unit of x/y (``"mm"`` and ``"norm"`` are accepted too).
+    screen : camgaze.screen.ScreenGeometry, optional
+        Needed for pixels.
+    validity_col : str, optional
+        Column saying whether a sample is valid.
+    delimiter : str, optional
+        Field delimiter; detected by default.
+    mapping : camgaze.reference.table.TableMapping, optional
+        A full column mapping instead of the column options.
+    params : AnalysisParams, optional
+        Detection and feature parameters (default: the documented default).
+    segments : path-like or pandas.DataFrame, optional
+        Task segments (label, onset_s, offset_s) for per-segment features.
+
+    Returns
+    -------
+    TableRun
+    """
+    from .atomic import sha256_file
+    from .errors import CamgazeInputError
+
+    path = Path(path)
+    if not path.is_file():
+        raise CamgazeInputError("table not found", path=path)
+    params = params or AnalysisParams()
+    samples = None
+    kind = "gaze table"
+    if mapping is None and time_col is None:
+        samples = _read_samples_file(path)
+        if samples is None:
+            raise CamgazeInputError("not a camgaze samples table (no t_s, valid, yaw_deg, pitch_deg columns)",
+                                    path=path, hint="name the columns: --time-col T --x-col X --y-col Y "
+                                    "[--units deg|px ...]")
+        kind = "samples"
+    if samples is None:
+        from .reference.table import TableMapping, read_gaze_table
+
+        if mapping is None:
+            if not x_col or not y_col:
+                raise CamgazeInputError("a gaze table needs --x-col and --y-col as well as --time-col", path=path)
+            mapping = TableMapping(time_col=time_col, time_unit=time_unit, x_col=x_col, y_col=y_col, units=units,
+                                   screen=screen, validity_col=validity_col, delimiter=delimiter,
+                                   zero_time=False)
+        samples = read_gaze_table(path, mapping)
+    seg_df = read_segments(segments) if isinstance(segments, (str, Path)) else segments
+    result = run_analysis(samples, params, segments=seg_df, source=str(path))
+    meta = {"input": {"path": str(path), "sha256": sha256_file(path), "kind": kind,
+                      "mapping": mapping.to_dict() if mapping is not None else None}}
+    if isinstance(segments, (str, Path)):
+        meta["segments"] = {"path": str(segments), "sha256": sha256_file(segments)}
+    paths = write_analysis(result, out_dir, meta=meta, sidecar_name="events.json")
+    return TableRun(result=result, paths=paths, input_path=path, input_kind=kind)

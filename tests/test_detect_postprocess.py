@@ -1,0 +1,132 @@
+"""Shared post-processing: merging, minimum duration, saccades, blinks, loss, labels."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from _signals import step_signal
+
+from camgaze.analysis import AnalysisParams, run_analysis
+from camgaze.detect import Candidates, build_events
+from camgaze.detect.postprocess import merge_candidates, trim_by_speed
+from camgaze.schema import EVENT_COLUMNS
+
+
+def _arrays(n=100, rate=100.0):
+    t = np.arange(n) / rate
+    return t, np.zeros(n), np.zeros(n), np.ones(n, bool), np.zeros(n, bool), np.zeros(n, bool)
+
+
+def test_merge_close_in_time_and_space():
+    t, x, y, ok, bl, lo = _arrays()
+    x[50:] = 0.3  # 0.3 deg apart: merged when <= 75 ms apart
+    s, e = merge_candidates(t, x, y, ok, bl | lo, [0, 57], [43, 100])  # gap 43..57 = 140 ms: too long
+    assert s.tolist() == [0, 57] and e.tolist() == [43, 100]
+    s, e = merge_candidates(t, x, y, ok, bl | lo, [0, 50], [43, 100])  # gap 70 ms, 0.3 deg: merged
+    assert s.tolist() == [0] and e.tolist() == [100]
+    x[50:] = 0.8  # too far apart
+    s, e = merge_candidates(t, x, y, ok, bl | lo, [0, 50], [43, 100])
+    assert s.tolist() == [0, 50]
+    x[50:] = 0.3
+    bl[45] = True  # a blink between them: never merged
+    s, e = merge_candidates(t, x, y, ok, bl | lo, [0, 50], [43, 100])
+    assert s.tolist() == [0, 50]
+
+
+def test_merge_chain_of_three():
+    t, x, y, ok, bl, lo = _arrays()
+    s, e = merge_candidates(t, x, y, ok, bl | lo, [0, 32, 65], [30, 62, 100])
+    assert s.tolist() == [0] and e.tolist() == [100]
+
+
+def test_min_duration_saccades_blinks_loss_and_labels():
+    t, x, y, ok, bl, lo = _arrays(n=100, rate=100.0)
+    x[10:20] = 0.0
+    x[30:] = 5.0
+    x[36:] = 5.0
+    y[60:] = 4.0
+    bl[80:85] = True
+    ok[80:85] = False
+    lo[95:] = True
+    ok[95:] = False
+    cand = Candidates(np.array([0, 32, 36, 60]), np.array([28, 36, 58, 80]))
+    ev, lab = build_events(t, x, y, ok, bl, lo, cand, edge_speed_factor=0, min_fixation_ms=60)
+    assert list(ev.columns) == [c.name for c in EVENT_COLUMNS]
+    fx = ev[ev.type == "fixation"]
+    # [32, 36) (40 ms) touches [36, 58) at the same place: merged first, so it is not dropped as too short;
+    # (5, 0) and (5, 4) are 4 deg apart: not merged
+    assert fx[["onset_s", "offset_s"]].to_numpy().round(6).tolist() == [[0.0, 0.28], [0.32, 0.58], [0.6, 0.8]]
+    assert fx["duration_ms"].round(6).tolist() == [280.0, 260.0, 200.0]
+    assert fx["yaw_deg"].tolist() == pytest.approx([0.0, 5.0, 5.0])
+    assert fx["pitch_deg"].tolist() == pytest.approx([0.0, 0.0, 4.0])
+    sc = ev[ev.type == "saccade"]
+    # 0.28 -> 0.32 (40 ms <= 150 ms): a saccade of 5 deg; 0.58 -> 0.60: 4 deg
+    assert sc[["onset_s", "offset_s"]].to_numpy().round(6).tolist() == [[0.28, 0.32], [0.58, 0.6]]
+    assert sc["amplitude_deg"].tolist() == pytest.approx([5.0, 4.0])
+    b = ev[ev.type == "blink"]
+    assert b[["onset_s", "offset_s", "n_samples"]].to_numpy().round(6).tolist() == [[0.8, 0.85, 5]]
+    lo_ev = ev[ev.type == "loss"]
+    assert lo_ev[["onset_s", "offset_s", "n_samples"]].to_numpy().round(6).tolist() == [[0.95, 1.0, 5]]
+    assert (lab[:28] == "fixation").all() and (lab[28:32] == "saccade").all()
+    assert (lab[80:85] == "blink").all() and (lab[95:] == "loss").all()
+    assert (lab[85:95] == "unclassified").all()
+    assert ev["onset_s"].is_monotonic_increasing
+
+
+def test_no_saccade_across_a_blink_or_a_long_interval():
+    t, x, y, ok, bl, lo = _arrays(n=100, rate=100.0)
+    x[50:] = 5.0
+    bl[40:45] = True
+    ok[40:45] = False
+    ev, _ = build_events(t, x, y, ok, bl, lo, Candidates(np.array([0, 50]), np.array([40, 100])), edge_speed_factor=0)
+    assert (ev.type == "saccade").sum() == 0
+    bl[:] = False
+    ok[:] = True
+    ev, _ = build_events(t, x, y, ok, bl, lo, Candidates(np.array([0, 70]), np.array([30, 100])), edge_speed_factor=0)
+    assert (ev.type == "saccade").sum() == 0  # 400 ms between them > saccade_max_ms
+
+
+def test_edge_trimming_removes_the_samples_beside_a_jump():
+    df, truth = step_signal(rate_hz=30.0)
+    t = df.t_s.to_numpy()
+    s, e, thr = trim_by_speed(t, df.yaw_deg.to_numpy(), df.pitch_deg.to_numpy(), df.valid.to_numpy(),
+                              [a for a, _, _, _ in truth], [b for _, b, _, _ in truth])
+    assert np.isfinite(thr) and thr > 0
+    # (the first sample's one-sided derivative may exceed the threshold by noise alone)
+    assert s[0] in (0, 1) and s.tolist()[1:] == [a + 1 for a, _, _, _ in truth[1:]]
+    assert e.tolist() == [b - 1 for _, b, _, _ in truth[:-1]] + [truth[-1][1]]
+
+
+def test_end_to_end_exact_times_with_idt():
+    df, truth = step_signal(rate_hz=60.0)
+    res = run_analysis(df, AnalysisParams(detector="idt", edge_speed_factor=0.0))
+    fx = res.events[res.events.type == "fixation"]
+    t = df.t_s.to_numpy()
+    te = np.append(t, t[-1] + 1 / 60.0)
+    assert fx["onset_s"].tolist() == pytest.approx([t[a] for a, _, _, _ in truth])
+    assert fx["offset_s"].tolist() == pytest.approx([te[b] for _, b, _, _ in truth])
+    sc = res.events[res.events.type == "saccade"]
+    # jumps happen between two samples: zero-length saccades with fixation-to-fixation amplitude
+    amp = [np.hypot(b[2] - a[2], b[3] - a[3]) for a, b in zip(truth[:-1], truth[1:])]
+    assert sc["amplitude_deg"].tolist() == pytest.approx(amp, abs=0.05)
+    assert (sc["duration_ms"] == 0).all() and (sc["n_samples"] == 0).all()
+    assert (res.labels == "fixation").all()
+
+
+def test_empty_input():
+    z = np.zeros(0)
+    ev, lab = build_events(z, z, z, z.astype(bool), z.astype(bool), z.astype(bool), Candidates.empty())
+    assert len(ev) == 0 and len(lab) == 0 and list(ev.columns) == [c.name for c in EVENT_COLUMNS]
+    assert isinstance(ev, pd.DataFrame)
+
+
+def test_short_isolated_fixation_is_dropped():
+    t, x, y, ok, bl, lo = _arrays(n=100, rate=100.0)
+    x[40:45] = 6.0
+    x[45:] = 12.0
+    ev, lab = build_events(t, x, y, ok, bl, lo, Candidates(np.array([0, 40, 45]), np.array([40, 45, 100])),
+                           edge_speed_factor=0, min_fixation_ms=60)
+    fx = ev[ev.type == "fixation"]
+    assert fx["onset_s"].round(6).tolist() == [0.0, 0.45]
+    assert (lab[40:45] == "saccade").all()
+    assert ev[ev.type == "saccade"]["amplitude_deg"].tolist() == pytest.approx([12.0])
