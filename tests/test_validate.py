@@ -1,0 +1,197 @@
+"""Validation mode end to end on samples tables: one pair, overrides, markers, bad input, study mode, CLI.
+
+The webcam side here is a samples table made from a known gaze trajectory
+(30 Hz, noisy, with a gain and a constant angle offset, as the webcam's
+calibration-free angles have), so these tests need no face mesh; the
+rendered-clip test is in test_validate_e2e.py.
+"""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from camgaze.cli import main
+from camgaze.errors import CamgazeInputError, ReferenceFormatError
+from camgaze.reference import TableMapping, write_demo_reference
+from camgaze.render_trajectory import synth_trajectory
+from camgaze.validate import ValidateParams, read_validation_manifest, validate_pair, validate_study
+
+FRAME_S = 1 / 30
+DURATION_S = 42.0
+
+
+def _webcam_folder(folder, truth, *, seed=0, gain=(1.1, 0.9), kappa_deg=(4.0, -3.0), noise_deg=0.4):
+    rng = np.random.default_rng(seed)
+    t = np.arange(0, truth["t_s"].iloc[-1], 1 / 30)
+    blink = np.interp(t, truth["t_s"], truth["blink"].astype(float)) > 0.5
+    yaw = np.interp(t, truth["t_s"], truth["yaw_deg"]) * gain[0] + kappa_deg[0] + rng.normal(0, noise_deg, len(t))
+    pitch = np.interp(t, truth["t_s"], truth["pitch_deg"]) * gain[1] + kappa_deg[1] + rng.normal(0, noise_deg, len(t))
+    cam = pd.DataFrame({"t_s": t, "valid": ~blink, "yaw_deg": np.where(blink, np.nan, yaw),
+                        "pitch_deg": np.where(blink, np.nan, pitch), "blink": blink})
+    folder.mkdir(parents=True)
+    cam.to_parquet(folder / "samples.parquet")
+    return folder
+
+
+@pytest.fixture(scope="module")
+def session(tmp_path_factory):
+    root = tmp_path_factory.mktemp("linden_brook")
+    truth = synth_trajectory(duration_s=DURATION_S, seed=3, task="reading").samples
+    ref = write_demo_reference(truth, root / "lab", stem="p01_s01", offset_s=-1.25, rate_hz=250.0, seed=1)
+    cam = _webcam_folder(root / "out" / "p01_s01_webcam", truth)
+    return {"root": root, "truth": truth, "ref": ref, "cam": cam}
+
+
+def _params(**kw):
+    from camgaze.analysis import AnalysisParams
+
+    return ValidateParams(analysis=AnalysisParams(window_s=5.0, step_s=5.0), **kw)
+
+
+def test_pair_against_bids_writes_every_output(session, tmp_path):
+    out = tmp_path / "val"
+    r = validate_pair(session["cam"], session["ref"]["physio"], out, params=_params(), participant="p01",
+                      session="s01")
+    # the simulated lab tracker started 1.25 s before the webcam (write_demo_reference's offset_s)
+    assert abs(r.alignment.offset_s - (-1.25)) < FRAME_S
+    al = json.loads((out / "alignment.json").read_text())
+    assert abs(al["offset_s"] + 1.25) < FRAME_S and al["confidence"] > 0.25
+    assert {"method", "search_range_s"} <= set(al)
+    ag = pd.read_csv(out / "agreement.csv")
+    for col in ("feature", "n", "pearson_r", "icc", "ccc", "ba_bias", "ba_loa_low", "ba_loa_high", "icc_form",
+                "pearson_ci_low", "ba_loa_low_ci_low"):
+        assert col in ag.columns
+    fc = ag[(ag["scope"] == "window") & (ag["feature"] == "fixation_count")].iloc[0]
+    assert fc["n"] == 8  # 40.75 s of overlap in 5 s windows
+    assert fc["pearson_r"] > 0.5
+    assert fc["icc_form"] == "ICC(2,1)"
+    assert (ag["ba_loa_low"] <= ag["ba_bias"]).all() and (ag["ba_bias"] <= ag["ba_loa_high"]).all()
+    ev = json.loads((out / "events_agreement.json").read_text())
+    assert 0.3 < ev["kappa"] <= 1 and 0.6 < ev["f1"] <= 1
+    # the calibration-free gain recovers the webcam's simulated gain of 1.1 (yaw) and 0.9 (pitch)
+    assert ev["gain"]["fixation_yaw"]["estimate"] == pytest.approx(1.1, abs=0.05)
+    assert ev["gain"]["fixation_pitch"]["estimate"] == pytest.approx(0.9, abs=0.05)
+    html = (out / "report.html").read_text()
+    assert html.count("data:image/png;base64,") == 4
+    assert "<script" not in html and "http://" not in html and "https://" not in html
+    assert "ICC(2,1): two-way random effects, absolute agreement" in html
+    for png in ("scatter_windows", "bland_altman_windows", "aligned_timeseries", "offset"):
+        assert (out / f"{png}.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    side = json.loads((out / "validation.json").read_text())
+    assert set(side["outputs"]) >= {"agreement.csv", "report.html", "alignment.json"}
+    assert "only 8 paired windows" in " ".join(r.notes)  # a small n is flagged
+    assert "Caution" in r.reading and "do not show that the webcam can replace" in r.reading
+
+
+def test_table_reference_gives_the_same_offset(session, tmp_path):
+    m = TableMapping.load(session["ref"]["mapping"])
+    r = validate_pair(session["cam"], session["ref"]["table"], tmp_path / "v", mapping=m, params=_params(),
+                      figures=False)
+    assert abs(r.alignment.offset_s + 1.25) < FRAME_S
+    assert not list((tmp_path / "v").glob("*.png"))
+
+
+def test_override_marker_and_resampling(session):
+    r = validate_pair(session["cam"], session["ref"]["physio"], write=False, params=_params(offset_s=-1.0))
+    assert r.alignment.offset_s == -1.0 and r.alignment.method == "user"
+    r = validate_pair(session["cam"], session["ref"]["physio"], write=False,
+                      params=_params(marker="webcam_start", webcam_marker_s=0.0))
+    assert r.alignment.method == "marker: webcam_start"
+    assert abs(r.alignment.offset_s + 1.25) < 0.005
+    with pytest.raises(CamgazeInputError, match="no marker 'page_2'.*webcam_start"):
+        validate_pair(session["cam"], session["ref"]["physio"], write=False,
+                      params=_params(marker="page_2", webcam_marker_s=0.0))
+    r = validate_pair(session["cam"], session["ref"]["physio"], write=False,
+                      params=_params(resample_reference_hz=30.0, reference_events="own"))
+    assert r.reference_analysis.quality["sample_rate_hz"] == pytest.approx(30.0, rel=0.05)
+    assert r.events["reference_events"] == "own"
+
+
+def test_segments_are_paired(session, tmp_path):
+    seg = tmp_path / "segments.csv"
+    seg.write_text("label,onset_s,offset_s\n" + "".join(f"page_{i},{i * 8.0 + 1},{i * 8.0 + 8}\n" for i in range(5)))
+    r = validate_pair(session["cam"], session["ref"]["physio"], write=False, params=_params(), segments=seg)
+    seg_rows = r.agreement[r.agreement["scope"] == "segment"]
+    assert len(seg_rows) and (seg_rows["n"] == 5).all()
+    assert set(r.pairs.loc[r.pairs["scope"] == "segment", "label"]) == {f"page_{i}" for i in range(5)}
+
+
+def test_bad_reference_leaves_outdir_untouched(session, tmp_path):
+    out = tmp_path / "val"
+    out.mkdir()
+    (out / "agreement.csv").write_text("previous result\n")
+    bad = tmp_path / "bad.csv"
+    bad.write_text("# lab export\ntime_ms,gaze_x_px,gaze_y_px,pupil_au,status,event\n0,1,1,1,ok,FIX\n"
+                   "8,1,1,1,ok,FIX\n4,1,1,1,ok,FIX\n")
+    m = TableMapping.load(session["ref"]["mapping"])
+    with pytest.raises(ReferenceFormatError, match=r"bad.csv \(row 5\): timestamps go backwards"):
+        validate_pair(session["cam"], bad, out, mapping=m)
+    assert sorted(p.name for p in out.iterdir()) == ["agreement.csv"]
+    assert (out / "agreement.csv").read_text() == "previous result\n"
+    # a reference that does not overlap the clip at the given offset: nothing written either
+    with pytest.raises(CamgazeInputError, match="do not overlap"):
+        validate_pair(session["cam"], session["ref"]["physio"], out, params=_params(offset_s=500.0))
+    assert sorted(p.name for p in out.iterdir()) == ["agreement.csv"]
+    with pytest.raises(CamgazeInputError, match="no samples.parquet"):
+        validate_pair(tmp_path, session["ref"]["physio"], out)
+
+
+def test_study_manifest_pooled_and_summary(session, tmp_path):
+    root = tmp_path
+    truth2 = synth_trajectory(duration_s=30.0, seed=9, task="reading").samples
+    ref2 = write_demo_reference(truth2, root / "lab2", stem="p02_s01", offset_s=2.0, rate_hz=500.0, seed=2)
+    cam2 = _webcam_folder(root / "cam2", truth2, seed=4)
+    man = root / "manifest.csv"
+    man.write_text("webcam,reference,participant,session,mapping\n"
+                   f"{session['cam']},{session['ref']['physio']},p01,s01,\n"
+                   f"cam2,{ref2['table'].relative_to(root)},p02,s01,{ref2['mapping'].relative_to(root)}\n"
+                   f"cam2,lab2/missing_physio.tsv.gz,p03,s01,\n")
+    with pytest.raises(CamgazeInputError, match=r"manifest.csv \(row 4\).*does not exist"):
+        read_validation_manifest(man)
+    man.write_text("\n".join(man.read_text().splitlines()[:3]) + "\n"
+                   f"cam2,{ref2['physio'].relative_to(root)},p03,s01,\n")
+    (root / "lab2" / "sub-p02_ses-s01_task-reading_recording-eye1_physio.json").write_text("{broken")
+    res = validate_study(man, root / "study", params=_params(), figures=True)
+    assert set(res.results) == {"p01_s01", "p02_s01"}
+    assert "p03_s01" in res.failures and "not valid JSON" in res.failures["p03_s01"]
+    assert abs(res.results["p02_s01"].alignment.offset_s - 2.0) < FRAME_S
+    assert (root / "study" / "p01_s01" / "report.html").exists()
+    pooled = pd.read_csv(root / "study" / "pooled_agreement.csv")
+    fc = pooled[(pooled["scope"] == "window") & (pooled["feature"] == "fixation_count")].iloc[0]
+    per = pd.read_csv(root / "study" / "participants.csv")
+    assert fc["n"] == per.loc[per["status"] == "ok", "windows_paired"].sum()
+    assert set(per["status"]) == {"ok", "failed"}
+    md = (root / "study" / "summary.md").read_text()
+    assert "| feature | participants | windows |" in md and "fixation_count" in md
+    assert (root / "study" / "summary.html").read_text().count("<tr>") >= 2
+    assert (root / "study" / "study_scatter.png").exists()
+
+
+def test_cli_pair_and_errors(session, tmp_path, capsys):
+    out = tmp_path / "cli"
+    rc = main(["validate", str(session["cam"]), str(session["ref"]["table"]), "-o", str(out), "--mapping",
+               str(session["ref"]["mapping"]), "--window-s", "5", "--no-figures"])
+    assert rc == 0
+    line = capsys.readouterr().out
+    assert "offset -1.25" in line and "kappa" in line
+    assert (out / "agreement.csv").exists() and (out / "report.html").exists()
+    rc = main(["validate", str(session["cam"]), str(session["ref"]["table"]), "-o", str(out / "x"),
+               "--time-col", "time_ms", "--time-unit", "ms", "--x-col", "gaze_x_px", "--y-col", "gaze_y_px",
+               "--units", "px", "--screen-size-mm", "531", "299", "--distance-mm", "650", "--screen-res-px", "1920",
+               "1080", "--validity-col", "status", "--valid-values", "ok", "--offset-s", "-1.25", "--window-s", "5",
+               "--no-figures", "--save-mapping", str(tmp_path / "m.json")])
+    assert rc == 0
+    assert json.loads((out / "x" / "alignment.json").read_text())["offset_s"] == -1.25
+    assert TableMapping.load(tmp_path / "m.json").units == "px"
+    capsys.readouterr()
+    rc = main(["validate", str(session["cam"]), str(session["ref"]["table"]), "-o", str(out / "y"), "--time-col",
+               "time_ms", "--x-col", "gaze_x_px", "--y-col", "gaze_y_px", "--units", "px"])
+    assert rc == 2
+    err = capsys.readouterr().err
+    assert "camgaze: error:" in err and "screen" in err
+    assert not (out / "y").exists()
+    rc = main(["validate", str(session["cam"]), "-o", str(out / "z")])
+    assert rc == 2 and "needs WEBCAM and REFERENCE" in capsys.readouterr().err
