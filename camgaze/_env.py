@@ -34,3 +34,32 @@ def quiet_native_logs() -> None:
     """Silence the C++ logging of mediapipe/TF-Lite (it writes to stderr)."""
     os.environ.setdefault("GLOG_minloglevel", "2")
     os.environ.setdefault("TF_CPP_MIN_LOG_LEVEL", "3")
+
+
+import contextlib as _contextlib
+import sys as _sys
+
+
+@_contextlib.contextmanager
+def native_stderr_silenced():
+    """Send file descriptor 2 to /dev/null for the duration (C++ libraries' start-up chatter).
+
+    MediaPipe and TF-Lite print INFO/WARNING lines straight to the process's
+    stderr when a graph starts; they mean nothing to a user. Python-level
+    ``sys.stderr`` writes in the block are flushed first and are not lost
+    after it.
+    """
+    try:
+        _sys.stderr.flush()
+        saved = os.dup(2)
+    except (OSError, ValueError, AttributeError):
+        yield
+        return
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    try:
+        os.dup2(devnull, 2)
+        yield
+    finally:
+        os.dup2(saved, 2)
+        os.close(saved)
+        os.close(devnull)

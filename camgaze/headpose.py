@@ -4,9 +4,12 @@ The model (``camgaze/data/face_model_mm.csv``, built by
 ``scripts/build_face_model.py``) holds the 478 face-mesh points and both
 eyeball centres in millimetres in the head frame (origin midway between the
 eyeball centres, axes equal to the camera frame at zero pose). Only points on
-the rigid part of the face are used for the pose - forehead, temples, nose,
-cheekbones - because the eyelids, eye corners (they follow the iris), mouth
-and jaw move on their own.
+the rigid part of the face are used for the pose - forehead, nose, sides of
+the face, cheeks - because the eyelids, eye corners, mouth and jaw move on
+their own. (Known limit: the face mesh shifts even these points slightly with
+vertical gaze - on rendered clips the fitted head moved up by about 0.2 mm
+whenever the eyes looked up, r = -0.97 - which costs part of the vertical
+gaze signal; see DEVELOPERS.md.)
 
 Camera intrinsics come from an assumed horizontal field of view (default 60
 deg, a common laptop webcam; the user can override it); the principal point is
@@ -29,11 +32,10 @@ from .geometry import camera_matrix, rotation_to_head_angles
 
 #: rigid face-mesh points used for PnP: forehead, nose bridge and tip, temples, cheekbones
 RIGID_POINTS = (
-    10, 151, 9, 8, 168, 6, 197, 195, 5, 4, 1, 19, 94, 2,  # midline forehead -> nose tip
-    109, 338, 67, 297, 103, 332, 54, 284, 21, 251, 71, 301, 68, 298,  # forehead and brow ridge
-    127, 356, 234, 454, 93, 323, 162, 389,  # temples / face sides at eye level
-    116, 345, 117, 346, 118, 347, 123, 352, 50, 280, 101, 330, 36, 266, 205, 425,  # cheekbones / cheeks
-    98, 327, 129, 358, 64, 294, 48, 278, 115, 344, 131, 360, 209, 429, 198, 420, 3, 248,  # nose sides
+    10, 151, 9, 109, 338, 67, 297, 103, 332, 54, 284,  # forehead, well above the brows
+    1, 2, 4, 5, 19, 94, 195, 197, 98, 327, 129, 358, 64, 294, 48, 278,  # nose below the eyes
+    127, 356, 234, 454, 93, 323, 132, 361,  # sides of the face
+    205, 425, 50, 280, 36, 266, 101, 330,  # cheeks below the cheekbones
 )
 
 

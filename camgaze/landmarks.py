@@ -25,7 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._env import quiet_native_logs
+from ._env import native_stderr_silenced, quiet_native_logs
 from .errors import ParameterError
 
 N_LANDMARKS = 478
@@ -105,7 +105,7 @@ class FaceTracker:
         self.mode, self.index = parse_face_choice(face)
         self.max_faces = int(max_faces)
         quiet_native_logs()
-        with _MP_LOCK:
+        with _MP_LOCK, native_stderr_silenced():
             from mediapipe.python.solutions import face_mesh  # noqa: PLC0415 - heavy import
 
             self._mesh = face_mesh.FaceMesh(
@@ -115,6 +115,7 @@ class FaceTracker:
                 min_detection_confidence=min_detection_confidence,
                 min_tracking_confidence=min_tracking_confidence,
             )
+        self._started = False
         self._last_centre: np.ndarray | None = None
         self._last_size: float | None = None
 
@@ -132,7 +133,12 @@ class FaceTracker:
     def process(self, image_rgb: np.ndarray) -> FaceObservation | None:
         """Landmarks of the followed face in one upright RGB frame, or None."""
         h, w = image_rgb.shape[:2]
-        res = self._mesh.process(image_rgb)
+        if not self._started:  # the graph prints its start-up lines on the first frame
+            with native_stderr_silenced():
+                res = self._mesh.process(image_rgb)
+            self._started = True
+        else:
+            res = self._mesh.process(image_rgb)
         faces = res.multi_face_landmarks
         if not faces:
             return None
