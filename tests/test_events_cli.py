@@ -1,0 +1,137 @@
+"""`camgaze events TABLE -o OUTDIR` on foreign gaze tables and on camgaze samples tables."""
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+from _signals import step_signal
+
+from camgaze.atomic import sha256_file
+from camgaze.cli import main
+from camgaze.screen import ScreenGeometry
+
+SCREEN = ScreenGeometry(width_mm=380.0, height_mm=300.0, distance_mm=670.0, width_px=1024, height_px=768)
+PX_OPTS = ["--screen-size-mm", "380", "300", "--screen-res-px", "1024", "768", "--distance-mm", "670"]
+
+
+def _px_table(path, *, delimiter=";", t0_ms=5000.0, rate=60.0):
+    df, truth = step_signal(rate_hz=rate, noise_sd_deg=0.02)
+    x, y = SCREEN.deg_to_px(df.yaw_deg.to_numpy(), df.pitch_deg.to_numpy())
+    rows = ["# Linden Brook Primary School reading pilot, p01 s01 (invented demo data)", f"time{delimiter}gx{delimiter}gy"]
+    for k, (t, a, b) in enumerate(zip(df.t_s.to_numpy() * 1000.0 + t0_ms, x, y)):
+        if k in (30, 31):
+            rows.append(f"{t:.3f}{delimiter}n/a{delimiter}n/a")
+        elif k == 32:
+            rows.append(f"{t:.3f}{delimiter}{delimiter}")
+        else:
+            rows.append(f"{t:.3f}{delimiter}{a:.3f}{delimiter}{b:.3f}")
+    path.write_text("\n".join(rows) + "\n")
+    return df, truth
+
+
+def test_pixel_table_with_missing_cells(tmp_path, capsys):
+    src = tmp_path / "p01_s01_tracker.csv"
+    df, truth = _px_table(src)
+    out = tmp_path / "out"
+    rc = main(["events", str(src), "-o", str(out), "--time-col", "time", "--time-unit", "ms", "--x-col", "gx",
+               "--y-col", "gy", "--units", "px", *PX_OPTS, "--detector", "idt"])
+    assert rc == 0
+    assert "fixations" in capsys.readouterr().out
+    ev = pd.read_csv(out / "events.csv")
+    for c in ("type", "onset_s", "offset_s", "duration_ms"):
+        assert c in ev.columns
+    assert set(ev["type"]) <= {"fixation", "saccade", "blink", "loss"}
+    fx = ev[ev.type == "fixation"]
+    assert len(fx) == len(truth)
+    # own time axis: the table starts at 5000 ms -> 5.0 s
+    assert fx["onset_s"].iloc[0] == pytest.approx(5.0, abs=1e-6)
+    # 3 missing samples at 60 Hz = 50 ms <= 75 ms: filled, not loss
+    assert (ev.type == "loss").sum() == 0
+    # pixel -> degree conversion recovers the planned positions
+    assert fx["yaw_deg"].tolist() == pytest.approx([p[2] for p in truth], abs=0.05)
+    assert fx["pitch_deg"].tolist() == pytest.approx([p[3] for p in truth], abs=0.05)
+    side = json.loads((out / "events.json").read_text())
+    assert side["detector"] == "idt" and side["input"]["sha256"] == sha256_file(src)
+    assert side["input"]["kind"] == "gaze table"
+    for name in ("events.parquet", "features.csv", "features.parquet"):
+        assert (out / name).is_file()
+
+
+def test_degree_table_tab_delimited_with_segments_and_windows(tmp_path):
+    df, truth = step_signal(rate_hz=30.0)
+    src = tmp_path / "p02_s01.tsv"
+    df.rename(columns={"t_s": "t", "yaw_deg": "h", "pitch_deg": "v"})[["t", "h", "v"]].to_csv(src, sep="\t", index=False)
+    seg = tmp_path / "segments.csv"
+    seg.write_text("label,onset_s,offset_s\npage 1,0,1.2\npage 2,1.2,2.4\n")
+    out = tmp_path / "out"
+    rc = main(["events", str(src), "-o", str(out), "--time-col", "t", "--x-col", "h", "--y-col", "v",
+               "--segments", str(seg), "--window-s", "1.0", "--step-s", "0.5"])
+    assert rc == 0
+    f = pd.read_csv(out / "features.csv")
+    assert f["scope"].tolist().count("segment") == 2 and f["scope"].tolist().count("window") == 3  # 2.4 s: windows at 0, 0.5, 1.0 s
+    assert f[f.scope == "segment"]["label"].tolist() == ["page 1", "page 2"]
+    side = json.loads((out / "events.json").read_text())
+    assert side["params"]["window_s"] == 1.0 and side["params"]["step_s"] == 0.5
+    assert side["segments"]["sha256"] == sha256_file(seg)
+
+
+@pytest.mark.parametrize("suffix", [".parquet", ".csv"])
+def test_camgaze_samples_table_needs_no_column_options(tmp_path, suffix):
+    df, truth = step_signal(rate_hz=30.0)
+    df["t_s"] += 3.0
+    df["blink"] = False
+    df.loc[40:45, ["valid", "blink"]] = [False, True]
+    src = tmp_path / f"samples{suffix}"
+    if suffix == ".parquet":
+        df.to_parquet(src)
+    else:
+        df.to_csv(src, index=False)
+    out = tmp_path / "out"
+    assert main(["events", str(src), "-o", str(out)]) == 0
+    ev = pd.read_csv(out / "events.csv")
+    b = ev[ev.type == "blink"]
+    assert len(b) == 1 and b["onset_s"].iloc[0] == pytest.approx(df.t_s.iloc[40])
+    assert json.loads((out / "events.json").read_text())["input"]["kind"] == "samples"
+
+
+def test_bad_input_is_one_clear_line(tmp_path, capsys):
+    src = tmp_path / "p03_s02.csv"
+    src.write_text("time,gx,gy\n0,1,1\n10,2,2\n5,3,3\n20,4,4\n")
+    out = tmp_path / "out"
+    rc = main(["events", str(src), "-o", str(out), "--time-col", "time", "--time-unit", "ms", "--x-col", "gx",
+               "--y-col", "gy"])
+    err = capsys.readouterr().err
+    assert rc == 2 and "p03_s02.csv" in err and "back" in err.lower() and "Traceback" not in err
+    src.write_text("time,gx,gy\n0,1,1\n10,2,2\n15,3,3\n20,4,4\n")
+    rc = main(["events", str(src), "-o", str(out), "--time-col", "time", "--x-col", "nope", "--y-col", "gy"])
+    err = capsys.readouterr().err
+    assert rc == 2 and "nope" in err
+    rc = main(["events", str(src), "-o", str(out), "--time-col", "time", "--x-col", "gx", "--y-col", "gy",
+               "--units", "px"])
+    err = capsys.readouterr().err
+    assert rc == 2 and "screen" in err
+    rc = main(["events", str(src), "-o", str(out)])
+    err = capsys.readouterr().err
+    assert rc == 2 and "--time-col" in err
+    rc = main(["events", str(tmp_path / "absent.csv"), "-o", str(out)])
+    assert rc == 2 and "not found" in capsys.readouterr().err
+    rc = main(["events", str(src), "-o", str(out), "--time-col", "time", "--x-col", "gx", "--y-col", "gy",
+               "--detector", "magic"])
+    assert rc == 2 and "unknown detector" in capsys.readouterr().err
+    assert not (out / "events.csv").exists()
+
+
+def test_entry_point_runs_as_a_program(tmp_path):
+    df, _ = step_signal(rate_hz=30.0)
+    src = tmp_path / "samples.csv"
+    df.to_csv(src, index=False)
+    r = subprocess.run([sys.executable, "-m", "camgaze", "events", str(src), "-o", str(tmp_path / "o")],
+                       capture_output=True, text=True, timeout=300)
+    assert r.returncode == 0, r.stderr
+    assert (tmp_path / "o" / "events.csv").is_file()
+    ev = pd.read_csv(tmp_path / "o" / "events.csv")
+    assert (ev.type == "fixation").sum() >= 5 and np.isfinite(ev.duration_ms).all()

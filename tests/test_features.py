@@ -1,0 +1,161 @@
+"""Features per clip, window and segment; segment files; exports and sidecar."""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from camgaze.analysis import AnalysisParams, DegenerateWindowWarning, run_analysis, write_analysis
+from camgaze.atomic import sha256_file
+from camgaze.errors import CamgazeInputError, ParameterError
+from camgaze.features import FEATURE_COLUMNS, compute_features
+from camgaze.segments import fixed_windows, read_segments
+
+
+def _events(rows):
+    ev = pd.DataFrame(rows, columns=["type", "onset_s", "offset_s", "amplitude_deg"])
+    ev["duration_ms"] = (ev.offset_s - ev.onset_s) * 1000
+    return ev
+
+
+def _scopes(*rows):
+    return pd.DataFrame(list(rows), columns=["scope", "label", "start_s", "end_s"])
+
+
+def test_hand_computed_features():
+    # 10 s at 10 Hz; three fixations (onsets 0.5, 3.0, 6.0 s), two saccades, one blink
+    t = np.arange(100) / 10.0
+    valid = np.ones(100, bool)
+    valid[70:75] = False
+    labels = np.array(["unclassified"] * 100, dtype=object)
+    ev = _events([("fixation", 0.5, 2.5, np.nan), ("saccade", 2.5, 3.0, 4.0), ("fixation", 3.0, 3.2, np.nan),
+                  ("saccade", 3.2, 6.0, 2.0), ("fixation", 6.0, 6.6, np.nan), ("blink", 7.0, 7.5, np.nan)])
+    f = compute_features(ev, t_s=t, valid=valid, yaw_deg=np.zeros(100), pitch_deg=np.zeros(100), labels=labels,
+                         scopes=_scopes(("clip", "clip", 0.0, 10.0), ("window", "w0", 0.0, 5.0),
+                                        ("segment", "read", 5.0, 10.0)))
+    clip, w0, seg = (f.iloc[i] for i in range(3))
+    assert clip.fixation_count == 3 and clip.fixation_rate_per_s == pytest.approx(0.3)
+    assert clip.fixation_duration_mean_ms == pytest.approx((2000 + 200 + 600) / 3)
+    assert clip.fixation_duration_median_ms == pytest.approx(600)
+    assert clip.fixation_duration_sd_ms == pytest.approx(np.std([2000, 200, 600], ddof=1))
+    assert clip.fixation_time_frac == pytest.approx(2.8 / 10)
+    assert clip.saccade_count == 2 and clip.saccade_amplitude_mean_deg == pytest.approx(3.0)
+    assert clip.blink_count == 1 and clip.blink_rate_per_min == pytest.approx(6.0)
+    assert clip.valid_frac == pytest.approx(0.95)
+    assert w0.fixation_count == 2 and w0.fixation_time_frac == pytest.approx(2.2 / 5)
+    assert seg.fixation_count == 1 and seg.blink_count == 1 and seg.valid_frac == pytest.approx(45 / 50)
+    assert seg.label == "read" and seg.scope == "segment"
+    assert list(f.columns[:4]) == ["scope", "label", "start_s", "end_s"]
+    for c in FEATURE_COLUMNS:
+        assert c in f.columns
+
+
+def test_fixation_time_is_clipped_at_scope_edges():
+    t = np.arange(40) / 10.0
+    ev = _events([("fixation", 0.5, 2.5, np.nan)])
+    f = compute_features(ev, t_s=t, valid=np.ones(40, bool), yaw_deg=np.zeros(40), pitch_deg=np.zeros(40),
+                         labels=np.array(["fixation"] * 40), scopes=_scopes(("window", "w", 2.0, 4.0)))
+    # the fixation started before the window: not counted there, but its 0.5 s inside are fixation time
+    assert f.iloc[0].fixation_count == 0 and f.iloc[0].fixation_time_frac == pytest.approx(0.25)
+
+
+def test_noise_only_within_fixations():
+    rng = np.random.default_rng(1)
+    n = 300
+    t = np.arange(n) / 30.0
+    x = rng.normal(0, 0.3, n)
+    y = rng.normal(0, 0.3, n)
+    labels = np.array(["fixation"] * n, dtype=object)
+    labels[100:200] = "saccade"
+    x[100:200] += np.linspace(0, 50, 100)
+    ev = _events([("fixation", 0.0, t[100], np.nan)])
+    f = compute_features(ev, t_s=t, valid=np.ones(n, bool), yaw_deg=x, pitch_deg=y, labels=labels,
+                         scopes=_scopes(("clip", "clip", 0.0, 10.0)))
+    # RMS-S2S of white noise with per-axis SD 0.3 deg is 0.6 deg (Holmqvist et al. 2012 definition)
+    assert f.iloc[0].noise_rms_s2s_deg == pytest.approx(0.6, rel=0.12)
+
+
+def test_degenerate_windows_warn_and_give_nan():
+    n = 300
+    t = np.arange(n) / 30.0
+    df = pd.DataFrame({"t_s": t, "valid": True, "yaw_deg": 0.0, "pitch_deg": 0.0})
+    df.loc[150:, "valid"] = False
+    segs = pd.DataFrame({"label": ["inside", "after"], "onset_s": [1.0, 20.0], "offset_s": [2.0, 30.0]})
+    with pytest.warns(DegenerateWindowWarning, match="3 of 7"):
+        res = run_analysis(df, AnalysisParams(detector="idt", window_s=2.5, step_s=2.5), segments=segs)
+    f = res.features.set_index("label")
+    assert f.loc["w0000", "fixation_count"] == 1
+    for lab in ("w0002", "w0003", "after"):
+        assert np.isnan(f.loc[lab, "fixation_count"]) and np.isnan(f.loc[lab, "noise_rms_s2s_deg"])
+    assert f.loc["inside", "valid_frac"] == 1.0
+
+
+def test_fixed_windows():
+    w = fixed_windows(0.0, 10.0, window_s=4.0, step_s=2.0)
+    assert w["start_s"].tolist() == [0.0, 2.0, 4.0, 6.0] and w["end_s"].tolist() == [4.0, 6.0, 8.0, 10.0]
+    assert len(fixed_windows(0.0, 3.0, window_s=4.0, step_s=2.0)) == 0
+    with pytest.raises(ParameterError):
+        fixed_windows(0.0, 10.0, window_s=0.0, step_s=1.0)
+    with pytest.raises(ParameterError):
+        AnalysisParams(step_s=-1.0)
+
+
+def test_read_segments_and_errors(tmp_path):
+    p = tmp_path / "p01_s01_segments.csv"
+    p.write_text("label,onset_s,offset_s\nread aloud,0.0,12.5\nquiz,12.5,30\n")
+    s = read_segments(p)
+    assert s["label"].tolist() == ["read aloud", "quiz"] and s["offset_s"].tolist() == [12.5, 30.0]
+    p.write_text("label;onset_s;offset_s\nread;0;5\n")
+    assert read_segments(p)["offset_s"].tolist() == [5.0]  # delimiter detected
+    cases = [("label,onset_s\nread,0\n", "missing column", "header"),
+             ("label,onset_s,offset_s\nread,0,5\nquiz,abc,9\n", "not a number", "row 3"),
+             ("label,onset_s,offset_s\nread,5,5\n", "not after", "row 2"),
+             ("label,onset_s,offset_s\n,0,5\n", "no label", "row 2")]
+    for text, what, where in cases:
+        p.write_text(text)
+        with pytest.raises(CamgazeInputError) as err:
+            read_segments(p)
+        assert what in str(err.value) and where in str(err.value) and p.name in str(err.value)
+    with pytest.raises(CamgazeInputError, match="not found"):
+        read_segments(tmp_path / "absent.csv")
+
+
+def test_exports_and_sidecar(tmp_path):
+    rng = np.random.default_rng(0)
+    n = 600
+    t = 100.0 + np.arange(n) / 30.0  # own clock, not starting at 0
+    x = np.repeat(rng.uniform(-10, 10, 20), 30) + rng.normal(0, 0.2, n)
+    y = np.repeat(rng.uniform(-5, 5, 20), 30) + rng.normal(0, 0.2, n)
+    df = pd.DataFrame({"t_s": t, "valid": True, "yaw_deg": x, "pitch_deg": y})
+    res = run_analysis(df, AnalysisParams(window_s=5.0, step_s=5.0))
+    src = tmp_path / "in.csv"
+    df.to_csv(src, index=False)
+    paths = write_analysis(res, tmp_path / "out", meta={"input": {"sha256": sha256_file(src)}},
+                           sidecar_name="events.json")
+    ev = pd.read_csv(paths["events_csv"])
+    pd.testing.assert_frame_equal(pd.read_parquet(paths["events_parquet"]), res.events, check_dtype=False)
+    assert ev["onset_s"].min() >= 100.0  # times on the input's own axis
+    feats = pd.read_parquet(paths["features_parquet"])
+    assert feats["scope"].tolist() == ["clip", "window", "window", "window", "window"]
+    side = json.loads(paths["sidecar"].read_text())
+    assert side["detector"] == AnalysisParams().detector
+    assert side["params"] == AnalysisParams(window_s=5.0, step_s=5.0).to_dict()
+    assert side["input"]["sha256"] == sha256_file(src)
+    for k in ("camgaze", "numpy", "scipy"):
+        assert side["software"][k]
+    for k in ("noise_rms_s2s_deg", "valid_frac", "loss_frac", "sample_rate_hz"):
+        assert k in side["quality"]
+    assert side["quality"]["sample_rate_hz"] == pytest.approx(30.0)
+    assert not list((tmp_path / "out").glob("*.part"))
+
+
+def test_params_round_trip():
+    p = AnalysisParams(detector="idt", idt_dispersion_deg=2.0, i2mc_downsamples=(2, 5))
+    d = json.loads(json.dumps(p.to_dict()))
+    assert AnalysisParams.from_dict(d) == p
+    with pytest.raises(ParameterError, match="unknown analysis parameter"):
+        AnalysisParams.from_dict({"dispersion": 1})
+    with pytest.raises(ParameterError, match="unknown detector"):
+        AnalysisParams(detector="magic")
