@@ -35,7 +35,7 @@ def _parabola_peak(v: np.ndarray, i: int) -> float:
 
 
 def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: float = 0.2,
-               iterations: int = 15, huber_px: float = 1.0) -> tuple[np.ndarray, float, float]:
+               iterations: int = 8, huber_px: float = 1.0) -> tuple[np.ndarray, float, float]:
     """Robust geometric circle fit (centre, radius, RMS residual in px).
 
     The radius is fitted too but kept within ``r0 * (1 +- r_tol)``.
@@ -55,7 +55,7 @@ def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: flo
         step = -np.linalg.solve(A, JW.T @ res)
         c += step[:2]
         r = float(np.clip(r + step[2], r0 * (1 - r_tol), r0 * (1 + r_tol)))
-        if np.abs(step).max() < 1e-3:
+        if np.abs(step).max() < 1e-2:
             break
     d = points - c
     res = np.hypot(d[:, 0], d[:, 1]) - r
@@ -70,7 +70,7 @@ def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray
     degrees; along each, the strongest dark-to-bright step between 0.6 and
     1.5 iris radii (sub-pixel, on the grey picture smoothed by a 3x3
     Gaussian) is a limbus candidate if it lies inside the eye opening, at
-    least 1.5 px from the lids' outline (the lid edge is itself a
+    least 2 px from the lids' outline (the lid edge is itself a
     dark-to-bright step). A circle of about the mesh's iris radius is fitted
     to the candidates (:func:`fit_circle`).
 
@@ -129,22 +129,28 @@ def _fit_one(cv2, image, points_px, outline, centre, r, ang, min_points):
     prof = cv2.remap(g, px.astype(np.float32), py.astype(np.float32), cv2.INTER_LINEAR,
                      borderMode=cv2.BORDER_REPLICATE)
     step = np.diff(prof, axis=1)  # outward dark -> bright is positive
-    pts = []
-    contour = poly.reshape(-1, 1, 2)
-    for k in range(n_rays):
-        i = int(np.argmax(step[k]))
-        if step[k, i] <= 2.0:  # grey levels per sample: no edge
-            continue
-        fi = _parabola_peak(step[k], i) + 0.5
-        rr = np.interp(fi, np.arange(len(radii)), radii)
-        qx, qy = (cx - x0) + np.cos(ang[k]) * rr, (cy - y0) + np.sin(ang[k]) * rr
-        if cv2.pointPolygonTest(contour, (float(qx), float(qy)), True) < 1.5:
-            continue
-        pts.append((qx, qy))
+    k = np.arange(n_rays)
+    i = np.argmax(step, axis=1)
+    peak = step[k, i]
+    il, ir = np.clip(i - 1, 0, step.shape[1] - 1), np.clip(i + 1, 0, step.shape[1] - 1)
+    a_, c_ = step[k, il], step[k, ir]
+    den = a_ - 2 * peak + c_
+    inner = (i > 0) & (i < step.shape[1] - 1) & (den < 0)
+    frac = np.where(inner, np.clip(0.5 * (a_ - c_) / np.where(den == 0, -1, den), -0.5, 0.5), 0.0)
+    rr = np.interp(i + frac + 0.5, np.arange(len(radii)), radii)
+    qx = (cx - x0) + np.cos(ang) * rr
+    qy = (cy - y0) + np.sin(ang) * rr
+    # inside the eye opening, at least 2 px (distance transform) from the lid outline
+    mask = np.zeros(g.shape, np.uint8)
+    cv2.fillPoly(mask, [np.round(poly).astype(np.int32)], 1)
+    dist = cv2.distanceTransform(mask, cv2.DIST_L2, 3)
+    xi = np.clip(np.round(qx).astype(int), 0, g.shape[1] - 1)
+    yi = np.clip(np.round(qy).astype(int), 0, g.shape[0] - 1)
+    keep = (peak > 2.0) & (dist[yi, xi] >= 2.0)  # > 2 grey levels per sample: a real edge
+    pts = np.c_[qx[keep], qy[keep]]
     if len(pts) < min_points:
         return None
-    P = np.array(pts, float)
-    c, rr, rms = fit_circle(P, np.array([cx - x0, cy - y0]), r, r_tol=0.15)
+    c, rr, rms = fit_circle(pts, np.array([cx - x0, cy - y0]), r, r_tol=0.15)
     if not np.all(np.isfinite(c)) or np.hypot(c[0] - (cx - x0), c[1] - (cy - y0)) > r or rms > 1.5:
         return None
     return c + [x0, y0]
