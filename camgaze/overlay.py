@@ -145,9 +145,8 @@ def blur_region(image: np.ndarray, box) -> np.ndarray:
     h, w = roi.shape[:2]
     blocks = max(1, min(w, 10)), max(1, min(h, max(1, round(10 * h / max(w, 1)))))
     small = cv2.resize(roi, blocks, interpolation=cv2.INTER_AREA)
-    big = cv2.resize(small, (w, h), interpolation=cv2.INTER_LINEAR)
-    k = max(3, (min(w, h) // 8) | 1)
-    out[y0:y1, x0:x1] = cv2.GaussianBlur(big, (k, k), 0)
+    small = cv2.GaussianBlur(small, (3, 3), 0)
+    out[y0:y1, x0:x1] = cv2.resize(small, (w, h), interpolation=cv2.INTER_LINEAR)
     return out
 
 

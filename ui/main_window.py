@@ -1,0 +1,947 @@
+"""The main window: the study's clip list, the clip and gaze-trace view, the
+feature tables, the validation view, the parameters, and the processing bar.
+
+Everything scientific is done by the library (:mod:`camgaze.pipeline`,
+:mod:`camgaze.analysis`, :mod:`camgaze.validate`) - the same calls the command
+line makes; this module only wires widgets to them.
+"""
+from __future__ import annotations
+
+import math
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+
+import pandas as pd
+from PySide6.QtCore import QSettings, Qt, QUrl, Signal
+from PySide6.QtGui import QAction, QDesktopServices, QKeySequence
+from PySide6.QtWidgets import (QAbstractItemView, QDockWidget, QFileDialog, QHBoxLayout, QHeaderView, QLabel,
+                               QMainWindow, QMenu, QMessageBox, QProgressBar, QPushButton, QSplitter, QTabWidget,
+                               QTreeWidget, QTreeWidgetItem, QVBoxLayout, QWidget)
+
+from camgaze import study as study_mod
+from camgaze.errors import CamgazeInputError
+
+from . import theme
+from .clip_view import ClipView
+from .job_runner import Job
+from .params_panel import ParamsPanel
+from .results_view import ResultsView, read_events
+from .time_view import TimeView
+from .validation_view import ValidationView
+from .workers import ProcessingRun, Reanalyser
+
+APP_TITLE = "camgaze"
+TAB_CLIP, TAB_RESULTS, TAB_VALIDATION = 0, 1, 2
+COL_NAME, COL_STATUS, COL_PROGRESS, COL_FACE, COL_USABLE = range(5)
+
+
+class _Provider:
+    """Hands the results and validation views what they need from the window."""
+
+    def __init__(self, win: "MainWindow"):
+        self.win = win
+
+    def clips(self):
+        s = self.win.study
+        out = []
+        for c in s.clips:
+            if c.status in (study_mod.STATUS_DONE, study_mod.STATUS_STALE):
+                out.append((c.stem, s.clip_out_dir(c), c.summary))
+        return out
+
+    def current(self):
+        c = self.win.current_clip()
+        return c.stem if c else None
+
+    def export_dir(self):
+        return self.win.study.output_root()
+
+
+class MainWindow(QMainWindow):
+    """The camgaze desktop window.
+
+    Parameters
+    ----------
+    settings : QSettings, optional
+        Where the recent-study list and window layout are remembered; None
+        (tests, screenshots) remembers nothing outside the study file.
+    worker_mode : {"process", "thread"}
+        How processing runs are executed (see :mod:`ui.workers`).
+
+    Signals
+    -------
+    run_finished(dict) : outcome per clip of a processing run.
+    clip_loaded(str) : the views show a clip's data.
+    reanalysed(str) : a clip's detection was re-run and the views updated.
+    """
+
+    run_finished = Signal(dict)
+    clip_loaded = Signal(str)
+    reanalysed = Signal(str)
+    _clip_data = Signal(object)
+    _save_failed = Signal(str)
+
+    def __init__(self, *, settings: QSettings | None = None, worker_mode: str = "process", parent=None):
+        super().__init__(parent)
+        # import the library's heavy modules now, not in the middle of the user's work
+        import camgaze.analysis  # noqa: F401
+        import camgaze.pipeline  # noqa: F401
+
+        self.settings = settings
+        self.worker_mode = worker_mode
+        self.study = study_mod.new_study()
+        self.run: ProcessingRun | None = None
+        self._queued: set[str] = set()
+        self._current_samples: pd.DataFrame | None = None
+        self._current_events: pd.DataFrame | None = None
+        self._loading_study = False
+        self._load_pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="camgaze-load")
+        self._save_pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="camgaze-save")
+        self._save_failed.connect(lambda m: self.statusBar().showMessage(m, 10000))
+        self._load_gen = 0
+        self._clip_data.connect(self._apply_clip_data)
+        self.reanalyser = Reanalyser(self)
+        self.reanalyser.done.connect(self._on_reanalysed)
+        self.reanalyser.failed.connect(self._on_reanalyse_failed)
+        self.provider = _Provider(self)
+        self.setAcceptDrops(True)
+        self.resize(1366, 768)
+        self.setMinimumSize(1000, 640)
+        self._build()
+        self._update_title()
+        self._refresh_list()
+        self._update_actions()
+
+    # ============================================================== layout
+    def _build(self):
+        # clip list
+        self.clip_list = QTreeWidget()
+        self.clip_list.setHeaderLabels(["Clip", "Status", "Progress", "Face", "Usable"])
+        self.clip_list.setRootIsDecorated(False)
+        self.clip_list.setSelectionMode(QAbstractItemView.ExtendedSelection)
+        self.clip_list.setContextMenuPolicy(Qt.CustomContextMenu)
+        self.clip_list.customContextMenuRequested.connect(self._clip_menu)
+        self.clip_list.currentItemChanged.connect(self._on_current_changed)
+        hdr = self.clip_list.header()
+        hdr.setStretchLastSection(False)
+        hdr.setSectionResizeMode(COL_NAME, QHeaderView.Stretch)
+        for col, w in ((COL_STATUS, 88), (COL_PROGRESS, 64), (COL_FACE, 44), (COL_USABLE, 48)):
+            hdr.setSectionResizeMode(col, QHeaderView.Fixed)
+            self.clip_list.setColumnWidth(col, w)
+        add_btn = QPushButton("Add clips…")
+        add_btn.clicked.connect(self.add_clips_dialog)
+        folder_btn = QPushButton("Add folder…")
+        folder_btn.clicked.connect(self.add_folder_dialog)
+        self.list_hint = QLabel("Drop video files or a folder here.")
+        self.list_hint.setStyleSheet("color: #555;")
+        self.list_hint.setWordWrap(True)
+        left = QWidget()
+        lv = QVBoxLayout(left)
+        lv.setContentsMargins(4, 4, 0, 4)
+        row = QHBoxLayout()
+        row.addWidget(add_btn)
+        row.addWidget(folder_btn)
+        lv.addLayout(row)
+        lv.addWidget(self.clip_list, 1)
+        lv.addWidget(self.list_hint)
+
+        # centre: tabs
+        self.clip_view = ClipView()
+        self.time_view = TimeView()
+        self.clip_view.position_changed.connect(self.time_view.set_cursor)
+        self.time_view.seek_requested.connect(self._seek_from_trace)
+        clip_split = QSplitter(Qt.Vertical)
+        clip_split.addWidget(self.clip_view)
+        clip_split.addWidget(self.time_view)
+        clip_split.setStretchFactor(0, 3)
+        clip_split.setStretchFactor(1, 2)
+        clip_split.setSizes([400, 260])
+        self.clip_message = QLabel()
+        self.clip_message.setWordWrap(True)
+        self.clip_message.setStyleSheet("color: #c62828; padding: 2px;")
+        self.clip_message.hide()
+        clip_tab = QWidget()
+        ct = QVBoxLayout(clip_tab)
+        ct.setContentsMargins(0, 0, 0, 0)
+        ct.addWidget(self.clip_message)
+        ct.addWidget(clip_split, 1)
+        self.results_view = ResultsView()
+        self.results_view.provider = self.provider
+        self.results_view.export_done.connect(lambda p: self.statusBar().showMessage(f"Saved {p}", 8000))
+        self.validation_view = ValidationView(window=self)
+        self.tabs = QTabWidget()
+        self.tabs.addTab(clip_tab, "Clip and gaze trace")
+        self.tabs.addTab(self.results_view, "Features")
+        self.tabs.addTab(self.validation_view, "Validation")
+        self.tabs.currentChanged.connect(self._on_tab)
+
+        main_split = QSplitter(Qt.Horizontal)
+        main_split.addWidget(left)
+        main_split.addWidget(self.tabs)
+        main_split.setStretchFactor(0, 0)
+        main_split.setStretchFactor(1, 1)
+        main_split.setSizes([330, 700])
+        self.main_split = main_split
+
+        # processing bar
+        self.run_all_btn = QPushButton("Process clips")
+        self.run_all_btn.setToolTip("Process every clip that has no current result")
+        self.run_all_btn.clicked.connect(lambda: self.process())
+        self.run_sel_btn = QPushButton("Process selected")
+        self.run_sel_btn.setToolTip("Process (again) the clips selected in the list")
+        self.run_sel_btn.clicked.connect(self.process_selected)
+        self.cancel_btn = QPushButton("Cancel")
+        self.cancel_btn.setToolTip("Stop processing; clips already finished keep their results")
+        self.cancel_btn.clicked.connect(self.cancel_run)
+        self.overall_bar = QProgressBar()
+        self.overall_bar.setRange(0, 1000)
+        self.overall_bar.setFormat("Study: %p %")
+        self.overall_bar.setTextVisible(True)
+        self.remaining_label = QLabel("")
+        self.remaining_label.setMinimumWidth(190)
+        self.run_label = QLabel("")
+        bar = QWidget()
+        bl = QHBoxLayout(bar)
+        bl.setContentsMargins(4, 2, 4, 2)
+        bl.addWidget(self.run_all_btn)
+        bl.addWidget(self.run_sel_btn)
+        bl.addWidget(self.cancel_btn)
+        bl.addWidget(self.overall_bar, 1)
+        bl.addWidget(self.remaining_label)
+        bl.addWidget(self.run_label, 1)
+
+        central = QWidget()
+        cv = QVBoxLayout(central)
+        cv.setContentsMargins(0, 0, 0, 0)
+        cv.setSpacing(0)
+        cv.addWidget(main_split, 1)
+        cv.addWidget(bar)
+        self.setCentralWidget(central)
+
+        # parameters dock
+        self.params = ParamsPanel()
+        self.params.analysis_changed.connect(self.set_analysis_params)
+        self.params.process_changed.connect(self.set_process_params)
+        self.params.segments_requested.connect(self.choose_segments_dialog)
+        self.params.segments_cleared.connect(lambda: self.set_segments(None))
+        self.params_dock = QDockWidget("Parameters", self)
+        self.params_dock.setObjectName("parameters")
+        self.params_dock.setWidget(self.params)
+        self.params_dock.setFeatures(QDockWidget.DockWidgetMovable | QDockWidget.DockWidgetFloatable)
+        self.params_dock.setMinimumWidth(300)
+        self.addDockWidget(Qt.RightDockWidgetArea, self.params_dock)
+        self.resizeDocks([self.params_dock], [320], Qt.Horizontal)
+
+        self._build_menus()
+
+    def _build_menus(self):
+        mb = self.menuBar()
+        m = mb.addMenu("&Study")
+
+        def act(menu, text, slot, shortcut=None, tip=None):
+            a = QAction(text, self)
+            a.triggered.connect(slot)
+            if shortcut:
+                a.setShortcut(QKeySequence(shortcut))
+            if tip:
+                a.setStatusTip(tip)
+            menu.addAction(a)
+            return a
+
+        act(m, "&New study…", self.new_study_dialog, QKeySequence.New)
+        act(m, "&Open study…", self.open_study_dialog, QKeySequence.Open)
+        self.recent_menu = m.addMenu("Open &recent")
+        self._fill_recent()
+        act(m, "&Save", self.save_study, QKeySequence.Save)
+        act(m, "Save &as…", self.save_study_as_dialog, QKeySequence.SaveAs)
+        m.addSeparator()
+        act(m, "Add &clips…", self.add_clips_dialog, "Ctrl+I")
+        act(m, "Add &folder…", self.add_folder_dialog)
+        m.addSeparator()
+        act(m, "Open &results folder", self.open_results_folder)
+        m.addSeparator()
+        act(m, "&Quit", self.close, QKeySequence.Quit)
+        r = mb.addMenu("&Processing")
+        self.act_run = act(r, "Process clips", lambda: self.process(), "Ctrl+R")
+        self.act_run_sel = act(r, "Process selected clips", self.process_selected)
+        self.act_cancel = act(r, "Cancel", self.cancel_run, "Esc")
+        v = mb.addMenu("&View")
+        self.act_unblur = QAction("Show faces unblurred", self, checkable=True)
+        self.act_unblur.toggled.connect(self.clip_view.unblur.setChecked)
+        self.clip_view.unblur.toggled.connect(self.act_unblur.setChecked)
+        v.addAction(self.act_unblur)
+        v.addAction(self.params_dock.toggleViewAction())
+        h = mb.addMenu("&Help")
+        act(h, "About camgaze", self.about)
+
+    # ============================================================== study
+    def current_clip(self) -> study_mod.StudyClip | None:
+        it = self.clip_list.currentItem()
+        return self.study.find(it.data(COL_NAME, Qt.UserRole)) if it else None
+
+    def open_study(self, path) -> bool:
+        """Open a study file; shows a message and returns False if it cannot be read."""
+        if self.run is not None and self.run.is_running():
+            self._warn("Processing is running", "Cancel or wait for the run to finish before opening another study.")
+            return False
+        try:
+            s = study_mod.load_study(path)
+        except CamgazeInputError as exc:
+            self._warn("Cannot open the study", str(exc))
+            return False
+        self._set_study(s)
+        missing = study_mod.missing_files(s)
+        if missing:
+            self.statusBar().showMessage(f"{len(missing)} file(s) of this study are missing: " + missing[0], 15000)
+        self._remember_recent(s.path)
+        return True
+
+    def _set_study(self, s: study_mod.Study):
+        self._loading_study = True
+        try:
+            self.study = s
+            self.results_view.forget()
+            self.params.set_values(s.analysis, s.process)
+            self._refresh_list()
+            view = s.view or {}
+            sel = view.get("selected")
+            target = None
+            for i in range(self.clip_list.topLevelItemCount()):
+                it = self.clip_list.topLevelItem(i)
+                if it.data(COL_NAME, Qt.UserRole) == sel or target is None:
+                    target = it
+                    if it.data(COL_NAME, Qt.UserRole) == sel:
+                        break
+            if target is not None:
+                self.clip_list.setCurrentItem(target)
+            else:
+                self._show_clip(None)
+            tab = view.get("tab")
+            if isinstance(tab, int) and 0 <= tab < self.tabs.count():
+                self.tabs.setCurrentIndex(tab)
+            pos = view.get("position_s")
+            if isinstance(pos, (int, float)) and math.isfinite(pos):
+                self.clip_view.seek(float(pos))
+        finally:
+            self._loading_study = False
+        self._update_title()
+        self._update_actions()
+
+    def new_study(self, path) -> None:
+        s = study_mod.new_study(path=path, name=Path(path).name.split(".")[0])
+        self._set_study(s)
+        self._remember_recent(s.path)
+
+    def save_study(self) -> bool:
+        if self.study.path is None:
+            return self.save_study_as_dialog()
+        self._store_view()
+        try:
+            self.study.save()
+        except (OSError, CamgazeInputError) as exc:
+            self._warn("Cannot save the study", str(exc))
+            return False
+        self._update_title()
+        return True
+
+    def save_study_as(self, path) -> bool:
+        self._store_view()
+        try:
+            self.study.save(path)
+        except (OSError, CamgazeInputError) as exc:
+            self._warn("Cannot save the study", str(exc))
+            return False
+        self.study.refresh_all()
+        self._refresh_list()
+        self._remember_recent(self.study.path)
+        self._update_title()
+        return True
+
+    def _autosave(self):
+        """Keep the study file up to date as the user works (when it has a file).
+
+        The write (atomic, with fsync) happens in a worker thread: a busy disk
+        can take hundreds of milliseconds to fsync, which the window must not wait for.
+        """
+        if self.study.path is None or self._loading_study:
+            return
+        self._store_view()
+        path, data = self.study.path, self.study.to_dict()
+        self._save_pool.submit(self._write_study, path, data)
+
+    def _write_study(self, path, data):
+        from camgaze.atomic import write_json
+
+        try:
+            write_json(path, data)
+        except OSError as exc:
+            self._save_failed.emit(f"Could not save the study: {exc}")
+
+    def flush_saves(self) -> None:
+        """Wait until pending study writes are on disk (for closing, tests and scripts)."""
+        self._save_pool.submit(lambda: None).result(timeout=30)
+
+    def _store_view(self):
+        c = self.current_clip()
+        self.study.view = {"selected": c.stem if c else None, "tab": self.tabs.currentIndex(),
+                           "position_s": round(self.clip_view.position_s, 3)}
+
+    def add_paths(self, paths) -> list[str]:
+        """Add clip files and folders; returns the problems (also shown to the user)."""
+        added, problems = self.study.add_paths(paths)
+        self._refresh_list()
+        if added and self.clip_list.currentItem() is None:
+            self.clip_list.setCurrentItem(self.clip_list.topLevelItem(0))
+        if problems:
+            self._warn("Some files were not added", "\n".join(problems))
+        self.statusBar().showMessage(f"Added {len(added)} clip(s).", 5000)
+        self._autosave()
+        self._update_actions()
+        return problems
+
+    def remove_selected(self):
+        for it in self.clip_list.selectedItems():
+            key = it.data(COL_NAME, Qt.UserRole)
+            if key in self._queued:
+                continue
+            self.study.remove_clip(key)
+        self._refresh_list()
+        self._autosave()
+
+    def set_segments(self, path, clip=None):
+        clip = clip or self.current_clip()
+        if clip is None:
+            return
+        try:
+            if path is not None:
+                from camgaze.analysis import read_segments
+
+                read_segments(path)  # check it before it is used
+            self.study.set_segments(clip, path)
+        except CamgazeInputError as exc:
+            self._warn("Segments file not used", str(exc))
+            return
+        self._autosave()
+        self._show_segments_text(clip)
+        if clip.status in (study_mod.STATUS_DONE, study_mod.STATUS_STALE):
+            self._request_reanalysis(clip)
+
+    # ============================================================ list
+    def _refresh_list(self):
+        cur = self.current_clip()
+        cur_key = cur.stem if cur else None
+        self.clip_list.blockSignals(True)
+        existing = {self.clip_list.topLevelItem(i).data(COL_NAME, Qt.UserRole): self.clip_list.topLevelItem(i)
+                    for i in range(self.clip_list.topLevelItemCount())}
+        keys = [c.stem for c in self.study.clips]
+        if list(existing) != keys:
+            self.clip_list.clear()
+            existing = {}
+            for c in self.study.clips:
+                it = QTreeWidgetItem([c.stem, "", "", "", ""])
+                it.setData(COL_NAME, Qt.UserRole, c.stem)
+                self.clip_list.addTopLevelItem(it)
+                bar = QProgressBar()
+                bar.setRange(0, 100)
+                bar.setTextVisible(True)
+                bar.setMaximumHeight(16)
+                self.clip_list.setItemWidget(it, COL_PROGRESS, bar)
+                existing[c.stem] = it
+        for c in self.study.clips:
+            self._update_item(existing[c.stem], c)
+        if cur_key in existing:
+            self.clip_list.setCurrentItem(existing[cur_key])
+        self.clip_list.blockSignals(False)
+        self.list_hint.setVisible(not self.study.clips or len(self.study.clips) < 3)
+
+    def _item(self, key) -> QTreeWidgetItem | None:
+        for i in range(self.clip_list.topLevelItemCount()):
+            it = self.clip_list.topLevelItem(i)
+            if it.data(COL_NAME, Qt.UserRole) == key:
+                return it
+        return None
+
+    def progress_bar(self, key) -> QProgressBar | None:
+        it = self._item(key)
+        return self.clip_list.itemWidget(it, COL_PROGRESS) if it else None
+
+    def _update_item(self, it: QTreeWidgetItem, c: study_mod.StudyClip, status_text: str | None = None):
+        status = status_text or c.status
+        if c.stem in self._queued and status_text is None:
+            status = "queued"
+        it.setText(COL_STATUS, status)
+        colour = theme.STATUS_COLOURS.get(status, "#424242")
+        from PySide6.QtGui import QBrush, QColor
+
+        it.setForeground(COL_STATUS, QBrush(QColor(colour)))
+        tip = theme.STATUS_TIPS.get(status, "")
+        if c.error:
+            tip = c.error
+        it.setToolTip(COL_STATUS, tip)
+        it.setToolTip(COL_NAME, c.path)
+        s = c.summary or {}
+        it.setText(COL_FACE, theme.fmt(s.get("face_found_frac"), pct=True) if s else "")
+        usable = s.get("usable")
+        it.setText(COL_USABLE, "" if usable is None else ("yes" if usable else "no"))
+        it.setToolTip(COL_USABLE, s.get("verdict") or "")
+        bar = self.clip_list.itemWidget(it, COL_PROGRESS)
+        if bar is not None and c.stem not in self._queued:
+            bar.setValue(100 if c.status in (study_mod.STATUS_DONE, study_mod.STATUS_STALE) else 0)
+
+    def _on_current_changed(self, cur, _prev):
+        if cur is None:
+            self._show_clip(None)
+            return
+        self._show_clip(self.study.find(cur.data(COL_NAME, Qt.UserRole)))
+        if not self._loading_study:
+            self._autosave()
+
+    def select_clip(self, key: str) -> None:
+        it = self._item(key)
+        if it is not None:
+            self.clip_list.setCurrentItem(it)
+
+    def _clip_menu(self, pos):
+        it = self.clip_list.itemAt(pos)
+        menu = QMenu(self)
+        if it is not None:
+            menu.addAction("Process this clip", self.process_selected)
+            menu.addAction("Choose reference recording…", self.validation_view.choose_reference_dialog)
+            menu.addAction("Choose task segments file…", self.choose_segments_dialog)
+            menu.addAction("Open result folder", self.open_clip_folder)
+            menu.addSeparator()
+            menu.addAction("Remove from study", self.remove_selected)
+        else:
+            menu.addAction("Add clips…", self.add_clips_dialog)
+            menu.addAction("Add folder…", self.add_folder_dialog)
+        menu.exec(self.clip_list.viewport().mapToGlobal(pos))
+
+    # ========================================================== clip data
+    def _show_clip(self, clip: study_mod.StudyClip | None):
+        """Show a clip: its video at once, its samples and events once read (in a worker thread)."""
+        self._current_samples = None
+        self._current_events = None
+        self._load_gen += 1
+        if clip is None:
+            self.clip_view.set_clip(None)
+            self.time_view.set_data(None)
+            self.clip_message.hide()
+            self.params.set_segments_text(None, enabled=False)
+            self.results_view.refresh()
+            self.validation_view.show_clip(None)
+            return
+        fov = float(self.study.process.get("fov_deg", 60.0)) if self.study.process else 60.0
+        clip_path = self.study.clip_path(clip)
+        self.clip_view.set_clip(clip_path if clip_path.exists() else None, summary=clip.summary, fov_deg=fov)
+        note = None
+        if not clip_path.exists():
+            note = f"The clip file is missing: {clip_path}"
+        elif clip.status == study_mod.STATUS_FAILED and clip.error:
+            note = f"{clip.stem} could not be processed. {clip.error}"
+        elif clip.status == study_mod.STATUS_STALE:
+            note = (f"{clip.stem} was processed with other processing settings; "
+                    "process it again to update its results.")
+        self.clip_message.setText(note or "")
+        self.clip_message.setVisible(bool(note))
+        self._show_segments_text(clip)
+        self.results_view.refresh()
+        self.validation_view.show_clip(clip)
+        has_results = clip.status in (study_mod.STATUS_DONE, study_mod.STATUS_STALE)
+        out = self.study.clip_out_dir(clip)
+        seg = self.study.resolve(clip.segments) if clip.segments else None
+        if not has_results:
+            self.time_view.set_data(None)
+        self._load_pool.submit(self._load_clip_data, self._load_gen, clip.stem, out, has_results, seg)
+
+    def _load_clip_data(self, gen, stem, out, has_results, seg):
+        samples = events = segments = None
+        note = None
+        if has_results:
+            try:
+                from camgaze.pipeline import load_samples
+
+                samples = load_samples(out)
+                events = read_events(out)
+            except Exception as exc:  # noqa: BLE001 - a damaged cache is reported, never a crash
+                note = f"The cached results of {stem} cannot be read: {exc}"
+        if seg is not None:
+            try:
+                from camgaze.analysis import read_segments
+
+                segments = read_segments(seg)
+            except Exception as exc:  # noqa: BLE001 - reported in the view
+                note = f"The task segments file cannot be used: {exc}"
+        self._clip_data.emit((gen, stem, samples, events, segments, note))
+
+    def _apply_clip_data(self, payload):
+        gen, stem, samples, events, segments, note = payload
+        cur = self.current_clip()
+        if gen != self._load_gen or cur is None or cur.stem != stem:
+            return
+        self._current_samples, self._current_events = samples, events
+        self.clip_view.set_samples(samples)
+        self.clip_view.seek(self.clip_view.position_s)
+        self.time_view.set_data(samples, events=events, segments=segments)
+        self.time_view.set_cursor(self.clip_view.position_s)
+        if note:
+            self.clip_message.setText(note)
+            self.clip_message.show()
+        self.clip_loaded.emit(stem)
+
+    def _read_segments_quiet(self, clip):
+        try:
+            from camgaze.analysis import read_segments
+
+            return read_segments(self.study.resolve(clip.segments))
+        except Exception:  # noqa: BLE001 - shown in the parameters panel instead
+            return None
+
+    def _show_segments_text(self, clip):
+        self.params.set_segments_text(clip.segments if clip else None, enabled=clip is not None)
+
+    def _seek_from_trace(self, t_s: float):
+        self.clip_view.seek(t_s)
+
+    # ========================================================= parameters
+    def set_analysis_params(self, d: dict) -> None:
+        """New detection parameters: save them and re-run detection on every processed clip."""
+        self.study.analysis = dict(d)
+        self._autosave()
+        done = [c for c in self.study.clips if c.status in (study_mod.STATUS_DONE, study_mod.STATUS_STALE)
+                and c.stem not in self._queued]
+        cur = self.current_clip()
+        done.sort(key=lambda c: 0 if cur is not None and c.stem == cur.stem else 1)
+        for c in done:
+            self._request_reanalysis(c)
+        if done:
+            self.run_label.setText(f"Re-running detection on {len(done)} clip(s)…")
+
+    def _request_reanalysis(self, clip):
+        seg = str(self.study.resolve(clip.segments)) if clip.segments else None
+        self.reanalyser.request(clip.stem, str(self.study.clip_out_dir(clip)), self.study.analysis, seg)
+
+    def _on_reanalysed(self, key, result, gen):
+        if self.reanalyser.latest(key) != gen:
+            return
+        self.results_view.forget(key)
+        cur = self.current_clip()
+        if cur is not None and cur.stem == key:
+            self._current_events = result.events
+            segs = self._read_segments_quiet(cur) if cur.segments else None
+            self.time_view.set_data(self._current_samples, events=result.events, segments=segs, keep_view=True)
+            self.time_view.set_cursor(self.clip_view.position_s)
+        self.results_view.refresh()
+        self.run_label.setText("")
+        self.reanalysed.emit(key)
+
+    def _on_reanalyse_failed(self, key, message, gen):
+        if self.reanalyser.latest(key) != gen:
+            return
+        self.run_label.setText("")
+        self.statusBar().showMessage(f"{key}: detection could not be re-run. {message}", 15000)
+
+    def set_process_params(self, d: dict) -> None:
+        self.study.process = dict(d)
+        self.study.refresh_all()
+        self._refresh_list()
+        self._autosave()
+
+    # ========================================================== processing
+    def process_selected(self):
+        keys = [it.data(COL_NAME, Qt.UserRole) for it in self.clip_list.selectedItems()]
+        if not keys and self.current_clip() is not None:
+            keys = [self.current_clip().stem]
+        self.process(keys, force=True)
+
+    def process(self, keys: list[str] | None = None, *, force: bool = False) -> bool:
+        """Start processing ``keys`` (default: every clip without a current result)."""
+        if self.run is not None and self.run.is_running():
+            self.statusBar().showMessage("Processing is already running.", 5000)
+            return False
+        if self.study.path is None:
+            if not self.save_study_as_dialog():
+                return False
+        clips = [self.study.find(k) for k in keys] if keys is not None else self.study.clips_to_process()
+        clips = [c for c in clips if c is not None and (force or c.status != study_mod.STATUS_DONE)]
+        if not clips:
+            self.statusBar().showMessage("Every clip already has current results.", 5000)
+            return False
+        self.params.flush()
+        jobs, weights = [], {}
+        log = self.study.output_root() / "problems.log"
+        for c in clips:
+            path = self.study.clip_path(c)
+            jobs.append(Job(key=c.stem, clip_path=str(path), out_dir=str(self.study.clip_out_dir(c)),
+                            process=dict(self.study.process), analysis=dict(self.study.analysis),
+                            segments=str(self.study.resolve(c.segments)) if c.segments else None,
+                            log_path=str(log)))
+            try:
+                weights[c.stem] = max(1.0, path.stat().st_size / 1e6)
+            except OSError:
+                weights[c.stem] = 1.0
+        self._queued = {c.stem for c in clips}
+        self._outcomes = {}
+        run = ProcessingRun(jobs, weights=weights, mode=self.worker_mode, parent=self)
+        run.clip_started.connect(self._on_clip_started)
+        run.clip_progress.connect(self._on_clip_progress)
+        run.clip_done.connect(self._on_clip_done)
+        run.clip_failed.connect(self._on_clip_failed)
+        run.clip_cancelled.connect(self._on_clip_cancelled)
+        run.overall.connect(self._on_overall)
+        run.finished.connect(self._on_run_finished)
+        self.run = run
+        for c in clips:
+            bar = self.progress_bar(c.stem)
+            if bar is not None:
+                bar.setValue(0)
+        self._refresh_list()
+        self.overall_bar.setValue(0)
+        self.remaining_label.setText(theme.fmt_duration(None))
+        self.run_label.setText(f"Processing {len(jobs)} clip(s)…")
+        run.start()
+        self._update_actions()
+        return True
+
+    def cancel_run(self):
+        if self.run is not None and self.run.is_running():
+            self.run.cancel()
+            self.run_label.setText("Cancelling: the clip being processed stops; finished clips are kept.")
+            self.cancel_btn.setEnabled(False)
+
+    def _on_clip_started(self, key):
+        it = self._item(key)
+        c = self.study.find(key)
+        if it is not None and c is not None:
+            self._update_item(it, c, "processing")
+
+    def _on_clip_progress(self, key, frac, message):
+        bar = self.progress_bar(key)
+        if bar is not None:
+            bar.setValue(int(round(100 * frac)))
+        if message:
+            self.run_label.setText(message)
+
+    def _on_overall(self, frac, remaining_s):
+        self.overall_bar.setValue(int(round(1000 * frac)))
+        self.remaining_label.setText(theme.fmt_duration(None if remaining_s < 0 else remaining_s))
+
+    def _finish_clip(self, key):
+        self._queued.discard(key)
+        c = self.study.find(key)
+        it = self._item(key)
+        if c is not None and it is not None:
+            self._update_item(it, c)
+        self._autosave()
+        cur = self.current_clip()
+        if cur is not None and cur.stem == key:
+            self._show_clip(cur)
+        else:
+            self.results_view.refresh()
+
+    def _on_clip_done(self, key, summary):
+        c = self.study.find(key)
+        if c is None:
+            return
+        self.study.refresh_status(c)
+        if not c.summary:
+            c.summary = {k: summary.get(k) for k in study_mod.SUMMARY_KEYS if k in summary}
+        c.error = None
+        self.results_view.forget(key)
+        self._finish_clip(key)
+        # detection parameters changed while this clip was processing: bring it up to date
+        if self.run is not None:
+            job = next((j for j in self.run.jobs if j.key == key), None)
+            if job is not None and job.analysis != self.study.analysis:
+                self._request_reanalysis(c)
+
+    def _on_clip_failed(self, key, message):
+        c = self.study.find(key)
+        if c is None:
+            return
+        self.study.refresh_status(c)
+        c.status = study_mod.STATUS_FAILED if c.status != study_mod.STATUS_DONE else c.status
+        c.error = message
+        if c.status == study_mod.STATUS_DONE:  # earlier results are still there; say what happened
+            c.error = "The last attempt failed; the results shown are from before. " + message
+        self._finish_clip(key)
+        self.statusBar().showMessage(f"{key}: {message}", 15000)
+
+    def _on_clip_cancelled(self, key):
+        c = self.study.find(key)
+        if c is None:
+            return
+        self.study.refresh_status(c)
+        if c.status not in (study_mod.STATUS_DONE, study_mod.STATUS_STALE):
+            c.status = study_mod.STATUS_CANCELLED
+        self._finish_clip(key)
+
+    def _on_run_finished(self, outcomes):
+        self._queued.clear()
+        n_done = sum(v == "done" for v in outcomes.values())
+        n_fail = sum(v == "failed" for v in outcomes.values())
+        n_canc = sum(v == "cancelled" for v in outcomes.values())
+        parts = [f"{n_done} clip(s) processed"]
+        if n_fail:
+            parts.append(f"{n_fail} failed (select them to read why)")
+        if n_canc:
+            parts.append(f"{n_canc} cancelled")
+        self.run_label.setText("; ".join(parts) + ".")
+        self.overall_bar.setValue(1000 if not n_canc else self.overall_bar.value())
+        self.remaining_label.setText("")
+        self._refresh_list()
+        self._autosave()
+        self._update_actions()
+        self.run_finished.emit(outcomes)
+
+    def _update_actions(self):
+        running = self.run is not None and self.run.is_running()
+        has = bool(self.study.clips)
+        for w in (self.run_all_btn, self.act_run):
+            w.setEnabled(has and not running)
+        for w in (self.run_sel_btn, self.act_run_sel):
+            w.setEnabled(has and not running)
+        self.cancel_btn.setEnabled(running)
+        self.act_cancel.setEnabled(running)
+
+    def _on_tab(self, i):
+        if i == TAB_RESULTS:
+            self.results_view.refresh()
+        if not self._loading_study:
+            self._autosave()
+
+    # ============================================================= dialogs
+    def _start_dir(self) -> str:
+        return str(self.study.base_dir)
+
+    def new_study_dialog(self):
+        path, _ = QFileDialog.getSaveFileName(self, "New study", str(Path(self._start_dir()) / ("study" + study_mod.STUDY_SUFFIX)),
+                                              "camgaze study (*.json)")
+        if path:
+            self.new_study(path)
+
+    def open_study_dialog(self):
+        path, _ = QFileDialog.getOpenFileName(self, "Open study", self._start_dir(), "camgaze study (*.json)")
+        if path:
+            self.open_study(path)
+
+    def save_study_as_dialog(self) -> bool:
+        path, _ = QFileDialog.getSaveFileName(self, "Save study as", str(Path(self._start_dir()) / ("study" + study_mod.STUDY_SUFFIX)),
+                                              "camgaze study (*.json)")
+        return self.save_study_as(path) if path else False
+
+    def add_clips_dialog(self):
+        exts = " ".join(f"*{e}" for e in study_mod.VIDEO_EXTENSIONS)
+        paths, _ = QFileDialog.getOpenFileNames(self, "Add clips", self._start_dir(), f"Videos ({exts})")
+        if paths:
+            self.add_paths(paths)
+
+    def add_folder_dialog(self):
+        d = QFileDialog.getExistingDirectory(self, "Add every clip in a folder", self._start_dir())
+        if d:
+            self.add_paths([d])
+
+    def choose_segments_dialog(self):
+        if self.current_clip() is None:
+            return
+        path, _ = QFileDialog.getOpenFileName(self, "Task segments (label, onset_s, offset_s)", self._start_dir(),
+                                              "Tables (*.csv *.tsv *.txt);;All files (*)")
+        if path:
+            self.set_segments(path)
+
+    def open_results_folder(self):
+        root = self.study.output_root()
+        root.mkdir(parents=True, exist_ok=True)
+        QDesktopServices.openUrl(QUrl.fromLocalFile(str(root)))
+
+    def open_clip_folder(self):
+        c = self.current_clip()
+        if c is not None and self.study.clip_out_dir(c).is_dir():
+            QDesktopServices.openUrl(QUrl.fromLocalFile(str(self.study.clip_out_dir(c))))
+
+    def about(self):
+        QMessageBox.about(self, "About camgaze",
+                          "<b>camgaze</b> – eye-movement features from recorded webcam clips, computed offline "
+                          "on this computer.<br><br>Webcam gaze estimates are research measurements with known "
+                          "error, not a diagnostic, disciplinary or surveillance instrument. Classroom video "
+                          "shows minors: keep to your consent, assent and ethics approval, and share features "
+                          "rather than video.")
+
+    def _warn(self, title, text):
+        if getattr(self, "quiet", False):
+            self.statusBar().showMessage(f"{title}: {text}", 15000)
+            self.last_warning = (title, text)
+            return
+        QMessageBox.warning(self, title, text)
+
+    # ============================================================== misc
+    def _update_title(self):
+        name = self.study.path.name if self.study.path else "unsaved study"
+        self.setWindowTitle(f"{APP_TITLE} – {self.study.name} ({name})")
+
+    def _fill_recent(self):
+        self.recent_menu.clear()
+        for p in self._recent():
+            self.recent_menu.addAction(p, lambda p=p: self.open_study(p))
+        self.recent_menu.setEnabled(bool(self._recent()))
+
+    def _recent(self) -> list[str]:
+        if self.settings is None:
+            return []
+        v = self.settings.value("recent_studies", [])
+        return [str(x) for x in (v if isinstance(v, list) else [v]) if x]
+
+    def _remember_recent(self, path):
+        if self.settings is None or path is None:
+            return
+        items = [str(path)] + [p for p in self._recent() if p != str(path)]
+        self.settings.setValue("recent_studies", items[:8])
+        self._fill_recent()
+
+    def dragEnterEvent(self, ev):  # noqa: N802 - Qt override
+        if ev.mimeData().hasUrls():
+            ev.acceptProposedAction()
+
+    def dropEvent(self, ev):  # noqa: N802 - Qt override
+        paths = [u.toLocalFile() for u in ev.mimeData().urls() if u.isLocalFile()]
+        studies = [p for p in paths if p.lower().endswith(".json")]
+        if len(studies) == 1 and len(paths) == 1:
+            self.open_study(studies[0])
+        elif paths:
+            self.add_paths(paths)
+        ev.acceptProposedAction()
+
+    def shutdown(self):
+        """Stop background work (run, re-analyses, frame decoding)."""
+        if self.run is not None and self.run.is_running():
+            self.run.shutdown()
+        self.reanalyser.shutdown()
+        self._load_pool.shutdown(wait=True, cancel_futures=True)
+        self._save_pool.shutdown(wait=True)
+        self.clip_view.shutdown()
+        self.time_view.shutdown()
+        self.results_view.canvas.shutdown()
+        self.validation_view.canvas.shutdown()
+
+    def closeEvent(self, ev):  # noqa: N802 - Qt override
+        if self.run is not None and self.run.is_running() and not getattr(self, "quiet", False):
+            ans = QMessageBox.question(self, "Processing is running",
+                                       "Stop processing and quit? Clips already finished keep their results.")
+            if ans != QMessageBox.Yes:
+                ev.ignore()
+                return
+        if self.study.path is None and self.study.clips and not getattr(self, "quiet", False):
+            ans = QMessageBox.question(self, "Save the study?", "This study has not been saved. Save it now?",
+                                       QMessageBox.Save | QMessageBox.Discard | QMessageBox.Cancel)
+            if ans == QMessageBox.Cancel:
+                ev.ignore()
+                return
+            if ans == QMessageBox.Save and not self.save_study_as_dialog():
+                ev.ignore()
+                return
+        self._autosave()
+        if self.settings is not None:
+            self.settings.setValue("geometry", self.saveGeometry())
+            self.settings.setValue("state", self.saveState())
+        self.shutdown()
+        super().closeEvent(ev)
+

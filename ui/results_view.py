@@ -1,0 +1,303 @@
+"""Results: the feature table (per clip, window or segment), quality per clip,
+a fixation-duration histogram, and export to CSV or Parquet.
+
+Tables are read from the clips' result folders (``features.parquet``,
+``events.parquet``, ``run.json``) - the files the command line writes too.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from PySide6.QtCore import QAbstractTableModel, QModelIndex, Qt, Signal
+from PySide6.QtWidgets import (QComboBox, QHBoxLayout, QHeaderView, QLabel, QPushButton, QSplitter, QTableView,
+                               QVBoxLayout, QWidget)
+
+from . import theme
+from .plot_canvas import PlotCanvas
+
+#: what the "Rows" chooser offers: (key, text)
+ROW_CHOICES = (("clip", "whole clip"), ("window", "fixed windows"), ("segment", "task segments"),
+               ("quality", "quality summary"))
+#: what the "Clips" chooser offers
+CLIP_CHOICES = (("current", "this clip"), ("all", "all processed clips"))
+
+#: quality summary columns (from run.json) in display order
+QUALITY_COLUMNS = ("frames", "duration_s", "face_found_frac", "valid_frac", "blink_count", "fixation_count",
+                   "noise_rms_s2s_deg", "median_distance_mm", "usable", "verdict")
+
+
+class DataFrameModel(QAbstractTableModel):
+    """A read-only Qt model over a pandas DataFrame."""
+
+    def __init__(self, df: pd.DataFrame | None = None, parent=None):
+        super().__init__(parent)
+        self._df = df if df is not None else pd.DataFrame()
+
+    def set_frame(self, df: pd.DataFrame) -> None:
+        self.beginResetModel()
+        self._df = df.reset_index(drop=True)
+        self.endResetModel()
+
+    def frame(self) -> pd.DataFrame:
+        return self._df
+
+    def rowCount(self, parent=QModelIndex()):  # noqa: N802 - Qt API
+        return 0 if parent.isValid() else len(self._df)
+
+    def columnCount(self, parent=QModelIndex()):  # noqa: N802 - Qt API
+        return 0 if parent.isValid() else len(self._df.columns)
+
+    def data(self, index, role=Qt.DisplayRole):
+        if not index.isValid():
+            return None
+        v = self._df.iat[index.row(), index.column()]
+        if role == Qt.DisplayRole:
+            if isinstance(v, (float, np.floating)):
+                if not np.isfinite(v):
+                    return "–"
+                return f"{v:.3f}" if abs(v) < 100 else f"{v:.1f}"
+            if isinstance(v, (bool, np.bool_)):
+                return "yes" if v else "no"
+            return "" if v is None else str(v)
+        if role == Qt.TextAlignmentRole and isinstance(v, (int, float, np.number)) and not isinstance(v, bool):
+            return int(Qt.AlignRight | Qt.AlignVCenter)
+        return None
+
+    def headerData(self, section, orientation, role=Qt.DisplayRole):  # noqa: N802 - Qt API
+        if role != Qt.DisplayRole:
+            return None
+        if orientation == Qt.Horizontal:
+            return str(self._df.columns[section]) if section < len(self._df.columns) else None
+        return str(section + 1)
+
+
+_CACHE: dict[Path, tuple[float, pd.DataFrame]] = {}
+
+
+def _read_table(out_dir: Path, stem: str) -> pd.DataFrame | None:
+    """``<stem>.parquet`` (else ``.csv``) of a result folder, cached by modification time."""
+    for suffix in (".parquet", ".csv"):
+        p = Path(out_dir) / (stem + suffix)
+        try:
+            mtime = p.stat().st_mtime_ns
+        except OSError:
+            continue
+        hit = _CACHE.get(p)
+        if hit is not None and hit[0] == mtime:
+            return hit[1]
+        df = pd.read_parquet(p) if suffix == ".parquet" else pd.read_csv(p)
+        _CACHE[p] = (mtime, df)
+        return df
+    return None
+
+
+def read_features(out_dir: Path) -> pd.DataFrame | None:
+    return _read_table(out_dir, "features")
+
+
+def read_events(out_dir: Path) -> pd.DataFrame | None:
+    return _read_table(out_dir, "events")
+
+
+def draw_histogram(fig, durations_ms: np.ndarray):
+    """Fixation-duration histogram (runs in the drawing thread)."""
+    fig.subplots_adjust(left=0.16, right=0.97, top=0.9, bottom=0.15)
+    ax = fig.add_subplot(1, 1, 1)
+    d = durations_ms
+    if len(d):
+        hi = max(100.0, float(np.percentile(d, 99)) * 1.05)
+        step = 25.0 if hi <= 1500 else 50.0
+        bins = np.arange(0.0, hi + step, step)
+        ax.hist(np.clip(d, 0, bins[-1]), bins=bins, color=theme.HIST_COLOUR, edgecolor="white", lw=0.5)
+        med = float(np.median(d))
+        ax.axvline(med, color=theme.CURSOR_COLOUR, lw=1.2)
+        ax.text(med, 0.97, f" median {med:.0f} ms", transform=ax.get_xaxis_transform(), va="top", ha="left",
+                fontsize=8, color=theme.CURSOR_COLOUR)
+        ax.set_title(f"Fixation durations (n = {len(d)})", fontsize=9)
+    else:
+        ax.text(0.5, 0.5, "No fixations to show", ha="center", va="center", transform=ax.transAxes, color="#555")
+        ax.set_title("Fixation durations", fontsize=9)
+    ax.set_xlabel("fixation duration (ms)", fontsize=8)
+    ax.set_ylabel("count", fontsize=8)
+    ax.tick_params(labelsize=7)
+    return int(len(d))
+
+
+class ResultsView(QWidget):
+    """Feature and quality tables with a fixation-duration histogram.
+
+    The owner supplies a ``provider`` with ``clips()`` -> list of (name,
+    out_dir, summary) for processed clips and ``current()`` -> name or None.
+
+    Signals
+    -------
+    export_done(path) : a table was written.
+    """
+
+    export_done = Signal(str)
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.provider = None
+        self._override: dict[str, tuple[pd.DataFrame, pd.DataFrame]] = {}
+        self.clips_box = QComboBox()
+        for key, text in CLIP_CHOICES:
+            self.clips_box.addItem(text, key)
+        self.rows_box = QComboBox()
+        for key, text in ROW_CHOICES:
+            self.rows_box.addItem(text, key)
+        self.clips_box.currentIndexChanged.connect(self.refresh)
+        self.rows_box.currentIndexChanged.connect(self.refresh)
+        self.export_btn = QPushButton("Export table…")
+        self.export_btn.setToolTip("Save the table shown as CSV (for spreadsheets, R, SPSS) or Parquet")
+        self.export_btn.clicked.connect(self._export_dialog)
+        self.count_label = QLabel()
+        self.count_label.setStyleSheet("color: #555;")
+        top = QHBoxLayout()
+        top.addWidget(QLabel("Clips:"))
+        top.addWidget(self.clips_box)
+        top.addWidget(QLabel("Rows:"))
+        top.addWidget(self.rows_box)
+        top.addWidget(self.count_label, 1)
+        top.addWidget(self.export_btn)
+
+        self.model = DataFrameModel()
+        self.table = QTableView()
+        self.table.setModel(self.model)
+        self.table.setAlternatingRowColors(True)
+        self.table.horizontalHeader().setSectionResizeMode(QHeaderView.Interactive)
+        self.table.verticalHeader().setDefaultSectionSize(22)
+
+        self.canvas = PlotCanvas(min_height=200)
+        self.canvas.setMinimumWidth(280)
+        self._dirty = True
+
+        split = QSplitter(Qt.Horizontal)
+        split.addWidget(self.table)
+        split.addWidget(self.canvas)
+        split.setStretchFactor(0, 3)
+        split.setStretchFactor(1, 2)
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(4, 4, 4, 4)
+        lay.addLayout(top)
+        lay.addWidget(split, 1)
+        self.n_histogram_fixations = 0
+        self.refresh()
+
+    # ----------------------------------------------------------------- API
+    def set_result(self, name: str, features: pd.DataFrame, events: pd.DataFrame) -> None:
+        """Use a fresh in-memory result for a clip (after a re-analysis) and redraw."""
+        self._override[name] = (features, events)
+        self.refresh()
+
+    def forget(self, name: str | None = None) -> None:
+        if name is None:
+            self._override.clear()
+        else:
+            self._override.pop(name, None)
+
+    def _clip_tables(self, name, out_dir):
+        if name in self._override:
+            return self._override[name]
+        return read_features(out_dir), read_events(out_dir)
+
+    def current_table(self) -> pd.DataFrame:
+        """The table as shown (also what Export writes)."""
+        if self.provider is None:
+            return pd.DataFrame()
+        which = self.clips_box.currentData()
+        rows = self.rows_box.currentData()
+        clips = self.provider.clips()
+        if which == "current":
+            cur = self.provider.current()
+            clips = [c for c in clips if c[0] == cur]
+        parts = []
+        for name, out_dir, summary in clips:
+            if rows == "quality":
+                d = {"clip": name}
+                d.update({k: summary.get(k) for k in QUALITY_COLUMNS})
+                parts.append(pd.DataFrame([d]))
+                continue
+            feats, _ev = self._clip_tables(name, out_dir)
+            if feats is None or not len(feats):
+                continue
+            f = feats[feats["scope"] == rows] if "scope" in feats else feats
+            f = f.copy()
+            f.insert(0, "clip", name)
+            parts.append(f)
+        parts = [p for p in parts if len(p)]
+        return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
+
+    def refresh(self, *_):
+        """Rebuild the table and histogram (at once when visible, else when next shown)."""
+        if not self.isVisible():
+            self._dirty = True
+            return
+        self._dirty = False
+        df = self.current_table()
+        self.model.set_frame(df)
+        self.table.resizeColumnsToContents()
+        for c in range(min(df.shape[1], 40)):
+            if self.table.columnWidth(c) > 260:
+                self.table.setColumnWidth(c, 260)
+        n = len(df)
+        self.count_label.setText(f"{n} row{'s' if n != 1 else ''}" if n else
+                                 "Nothing to show yet: process clips first.")
+        self.export_btn.setEnabled(n > 0)
+        self._draw_histogram()
+
+    def showEvent(self, ev):  # noqa: N802 - Qt override
+        super().showEvent(ev)
+        if self._dirty:
+            self.refresh()
+
+    def _draw_histogram(self):
+        durations = []
+        if self.provider is not None:
+            clips = self.provider.clips()
+            if self.clips_box.currentData() == "current":
+                cur = self.provider.current()
+                clips = [c for c in clips if c[0] == cur]
+            for name, out_dir, _s in clips:
+                _f, ev = self._clip_tables(name, out_dir)
+                if ev is not None and len(ev):
+                    durations.append(ev.loc[ev["type"] == "fixation", "duration_ms"].to_numpy(dtype=float))
+        d = np.concatenate(durations) if durations else np.empty(0)
+        d = d[np.isfinite(d)]
+        self.n_histogram_fixations = int(len(d))
+        self.canvas.plot(draw_histogram, d)
+
+    def export(self, path) -> Path:
+        """Write the shown table; ``.parquet`` writes Parquet, anything else CSV."""
+        from camgaze.atomic import write_csv, write_parquet
+
+        path = Path(path)
+        df = self.current_table()
+        if path.suffix.lower() == ".parquet":
+            write_parquet(path, df, metadata={"rows": self.rows_box.currentData(),
+                                              "clips": self.clips_box.currentData()})
+        else:
+            if path.suffix.lower() != ".csv":
+                path = path.with_suffix(path.suffix + ".csv") if path.suffix else path.with_suffix(".csv")
+            write_csv(path, df)
+        self.export_done.emit(str(path))
+        return path
+
+    def _export_dialog(self):
+        from PySide6.QtWidgets import QFileDialog, QMessageBox
+
+        rows = self.rows_box.currentData()
+        suggestion = f"features_{rows}.csv" if rows != "quality" else "quality_per_clip.csv"
+        start = str(Path(getattr(self.provider, "export_dir", lambda: Path.cwd())()) / suggestion)
+        path, flt = QFileDialog.getSaveFileName(self, "Export table", start,
+                                                "CSV table (*.csv);;Parquet table (*.parquet)")
+        if not path:
+            return
+        if "parquet" in flt and not path.lower().endswith(".parquet"):
+            path += ".parquet"
+        try:
+            self.export(path)
+        except Exception as exc:  # noqa: BLE001 - shown to the user
+            QMessageBox.warning(self, "Export failed", f"The table could not be written: {exc}")

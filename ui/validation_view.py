@@ -1,0 +1,366 @@
+"""Validation: compare a clip's webcam features with a lab eye tracker's recording.
+
+Pick the reference file (a BIDS eye-tracking recording, or a plain table with
+the column-mapping dialog; the mapping is remembered in the study), then
+"Compare" runs the library's validation (:mod:`camgaze.validate`) in a worker
+thread and shows the alignment offset, the agreement table, and the scatter
+and Bland-Altman plots; "Export report…" writes the library's HTML report.
+"""
+from __future__ import annotations
+
+import threading
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from PySide6.QtCore import Qt, Signal
+from PySide6.QtWidgets import (QComboBox, QFileDialog, QHBoxLayout, QLabel, QMessageBox, QPushButton, QSplitter,
+                               QTableView, QVBoxLayout, QWidget)
+
+from camgaze import study as study_mod
+
+from . import theme
+from .plot_canvas import PlotCanvas
+from .results_view import DataFrameModel
+
+
+@dataclass
+class ValidationOutcome:
+    """What the view shows, taken from the library's validation result.
+
+    Attributes
+    ----------
+    offset_s : float
+        Clock offset found between webcam and reference (s; reference time =
+        webcam time + offset).
+    offset_note : str
+        How the offset was found / how sure it is.
+    table : DataFrame
+        Agreement per feature (one row per feature).
+    pairs : DataFrame
+        Paired values for the plots: columns feature, webcam, reference.
+    result : object
+        The library's own result object (for the report).
+    """
+
+    offset_s: float
+    offset_note: str = ""
+    table: pd.DataFrame = field(default_factory=pd.DataFrame)
+    pairs: pd.DataFrame = field(default_factory=pd.DataFrame)
+    result: object = None
+
+
+class ValidationView(QWidget):
+    """The validation tab.
+
+    Signals
+    -------
+    compared(str) : a comparison finished for a clip (shown in the view).
+    failed(str) : a comparison failed (message shown in the view).
+    """
+
+    compared = Signal(str)
+    failed = Signal(str)
+    _done = Signal(str, object)
+    _err = Signal(str, str)
+
+    def __init__(self, *, window=None, parent=None):
+        super().__init__(parent)
+        self.window = window
+        self.clip: study_mod.StudyClip | None = None
+        self.outcome: ValidationOutcome | None = None
+        self._done.connect(self._on_done)
+        self._err.connect(self._on_err)
+
+        self.ref_label = QLabel("No reference recording chosen for this clip.")
+        self.ref_label.setWordWrap(True)
+        self.choose_btn = QPushButton("Choose reference recording…")
+        self.choose_btn.clicked.connect(self.choose_reference_dialog)
+        self.mapping_btn = QPushButton("Columns…")
+        self.mapping_btn.setToolTip("Which columns of the table hold time and gaze position, and their units")
+        self.mapping_btn.clicked.connect(self.edit_mapping_dialog)
+        self.compare_btn = QPushButton("Compare")
+        self.compare_btn.setToolTip("Align the clocks and compute the agreement of webcam and reference features")
+        self.compare_btn.clicked.connect(self.compare)
+        self.report_btn = QPushButton("Export report…")
+        self.report_btn.clicked.connect(self.export_report_dialog)
+        top = QHBoxLayout()
+        top.addWidget(self.choose_btn)
+        top.addWidget(self.mapping_btn)
+        top.addWidget(self.compare_btn)
+        top.addWidget(self.report_btn)
+        top.addStretch(1)
+
+        self.offset_label = QLabel("")
+        self.offset_label.setWordWrap(True)
+        self.status = QLabel("")
+        self.status.setWordWrap(True)
+        self.model = DataFrameModel()
+        self.table = QTableView()
+        self.table.setModel(self.model)
+        self.table.setAlternatingRowColors(True)
+        self.table.verticalHeader().setDefaultSectionSize(22)
+        self.feature_box = QComboBox()
+        self.feature_box.currentIndexChanged.connect(self._draw)
+        self.canvas = PlotCanvas(min_height=200)
+        plots = QWidget()
+        pl = QVBoxLayout(plots)
+        pl.setContentsMargins(0, 0, 0, 0)
+        fr = QHBoxLayout()
+        fr.addWidget(QLabel("Feature:"))
+        fr.addWidget(self.feature_box, 1)
+        pl.addLayout(fr)
+        pl.addWidget(self.canvas, 1)
+        split = QSplitter(Qt.Vertical)
+        split.addWidget(self.table)
+        split.addWidget(plots)
+        split.setStretchFactor(0, 2)
+        split.setStretchFactor(1, 3)
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(4, 4, 4, 4)
+        lay.addLayout(top)
+        lay.addWidget(self.ref_label)
+        lay.addWidget(self.offset_label)
+        lay.addWidget(self.status)
+        lay.addWidget(split, 1)
+        self.show_clip(None)
+
+    # ----------------------------------------------------------------- API
+    @property
+    def study(self):
+        return self.window.study if self.window is not None else None
+
+    def show_clip(self, clip) -> None:
+        self.clip = clip
+        self.outcome = None
+        self.model.set_frame(pd.DataFrame())
+        self.feature_box.clear()
+        self.offset_label.setText("")
+        self.status.setText("")
+        self._draw()
+        self._update()
+
+    def set_reference(self, path, *, mapping: dict | None = None, kind: str | None = None) -> bool:
+        """Attach a reference recording to the current clip (a table needs a mapping, asked for if unknown)."""
+        if self.clip is None or self.study is None:
+            return False
+        kind = kind or study_mod.guess_reference_kind(Path(path))
+        if kind == "table" and mapping is None:
+            rel = self.study.relative(path)
+            mapping = self.study.mappings.get(rel) or self.study.mappings.get("last")
+            if mapping is None or not self._mapping_reads(path, mapping):
+                mapping = self._ask_mapping(path, mapping)
+                if mapping is None:
+                    return False
+        try:
+            self.study.set_reference(self.clip, path, kind=kind, mapping=mapping)
+        except Exception as exc:  # noqa: BLE001 - shown to the user
+            self.status.setText(str(exc))
+            return False
+        self.window._autosave()
+        self.show_clip(self.clip)
+        return True
+
+    def compare(self) -> bool:
+        """Run the validation for the current clip in a worker thread."""
+        if self.clip is None or self.clip.reference is None:
+            self.status.setText("Choose a reference recording first.")
+            return False
+        if self.clip.status not in (study_mod.STATUS_DONE, study_mod.STATUS_STALE):
+            self.status.setText("Process the clip first: the comparison uses its gaze samples.")
+            return False
+        s = self.study
+        args = dict(out_dir=s.clip_out_dir(self.clip), reference=s.resolve(self.clip.reference.path),
+                    kind=self.clip.reference.kind, mapping=self.clip.reference.mapping, analysis=dict(s.analysis),
+                    segments=s.resolve(self.clip.segments) if self.clip.segments else None)
+        key = self.clip.stem
+        self.status.setText("Comparing…")
+        self.compare_btn.setEnabled(False)
+
+        def work():
+            try:
+                out = run_validation(**args)
+            except Exception as exc:  # noqa: BLE001 - shown in the view
+                self._err.emit(key, str(exc))
+                return
+            self._done.emit(key, out)
+
+        threading.Thread(target=work, name="camgaze-validate", daemon=True).start()
+        return True
+
+    def export_report(self, path) -> Path:
+        """Write the HTML report of the last comparison."""
+        if self.outcome is None:
+            raise RuntimeError("compare first")
+        return write_report(self.outcome, path)
+
+    # ------------------------------------------------------------- dialogs
+    def choose_reference_dialog(self):
+        if self.clip is None:
+            return
+        start = str(self.study.base_dir)
+        path, _ = QFileDialog.getOpenFileName(self, f"Reference recording for {self.clip.stem}", start,
+                                              "Gaze recordings (*.tsv *.tsv.gz *.csv *.txt *.json);;All files (*)")
+        if path:
+            self.set_reference(path)
+
+    def edit_mapping_dialog(self):
+        if self.clip is None or self.clip.reference is None or self.clip.reference.kind != "table":
+            return
+        path = self.study.resolve(self.clip.reference.path)
+        m = self._ask_mapping(path, self.clip.reference.mapping)
+        if m is not None:
+            self.study.set_reference(self.clip, path, kind="table", mapping=m)
+            self.window._autosave()
+            self.show_clip(self.clip)
+
+    def export_report_dialog(self):
+        if self.outcome is None:
+            return
+        start = str(self.study.output_root() / f"{self.clip.stem}_validation.html")
+        path, _ = QFileDialog.getSaveFileName(self, "Export validation report", start, "HTML report (*.html)")
+        if path:
+            try:
+                p = self.export_report(path)
+            except Exception as exc:  # noqa: BLE001 - shown to the user
+                QMessageBox.warning(self, "Report not written", str(exc))
+                return
+            self.status.setText(f"Report written to {p}")
+
+    def _ask_mapping(self, path, initial):
+        from .mapping_dialog import MappingDialog
+
+        dlg = MappingDialog(path, initial=initial, parent=self)
+        if dlg.exec() != MappingDialog.Accepted or dlg.mapping is None:
+            return None
+        return dlg.mapping.to_dict()
+
+    @staticmethod
+    def _mapping_reads(path, mapping) -> bool:
+        try:
+            from camgaze.reference.table import TableMapping, read_gaze_table
+
+            read_gaze_table(path, TableMapping.from_dict(mapping))
+            return True
+        except Exception:  # noqa: BLE001 - the dialog will say what is wrong
+            return False
+
+    # ------------------------------------------------------------- results
+    def _on_done(self, key, outcome):
+        self.compare_btn.setEnabled(True)
+        if self.clip is None or self.clip.stem != key:
+            return
+        self.outcome = outcome
+        self.offset_label.setText(f"<b>Clock offset:</b> reference = webcam {outcome.offset_s:+.3f} s. "
+                                  f"{outcome.offset_note}")
+        self.model.set_frame(outcome.table)
+        self.table.resizeColumnsToContents()
+        self.feature_box.blockSignals(True)
+        self.feature_box.clear()
+        feats = list(dict.fromkeys(outcome.pairs["feature"])) if len(outcome.pairs) else []
+        self.feature_box.addItems(feats)
+        self.feature_box.blockSignals(False)
+        self.status.setText("")
+        self.clip.validation = {"offset_s": outcome.offset_s, "features": int(len(outcome.table))}
+        if self.window is not None:
+            self.window._autosave()
+        self._draw()
+        self._update()
+        self.compared.emit(key)
+
+    def _on_err(self, key, message):
+        self.compare_btn.setEnabled(True)
+        if self.clip is not None and self.clip.stem == key:
+            self.status.setText(f"The comparison could not be made: {message}")
+            self.status.setStyleSheet("color: #c62828;")
+        self.failed.emit(message)
+
+    def _update(self):
+        c = self.clip
+        has_clip = c is not None
+        ref = c.reference if has_clip else None
+        self.choose_btn.setEnabled(has_clip)
+        self.mapping_btn.setEnabled(ref is not None and ref.kind == "table")
+        self.compare_btn.setEnabled(ref is not None)
+        self.report_btn.setEnabled(self.outcome is not None)
+        if not has_clip:
+            self.ref_label.setText("Select a clip to compare it with a reference recording.")
+        elif ref is None:
+            self.ref_label.setText(f"No reference recording chosen for {c.stem}.")
+        else:
+            what = "BIDS eye-tracking recording" if ref.kind == "bids" else "gaze table"
+            self.ref_label.setText(f"Reference for {c.stem}: <b>{ref.path}</b> ({what}).")
+        if not self.status.text().startswith("The comparison"):
+            self.status.setStyleSheet("")
+
+    def _draw(self, *_):
+        o = self.outcome
+        feat = self.feature_box.currentText()
+        if o is None or not len(o.pairs) or not feat:
+            self.canvas.plot(draw_agreement, None, None, "")
+            return
+        p = o.pairs[o.pairs["feature"] == feat]
+        self.canvas.plot(draw_agreement, p["webcam"].to_numpy(dtype=float), p["reference"].to_numpy(dtype=float),
+                         feat)
+
+
+def draw_agreement(fig, webcam, reference, feature: str):
+    """Scatter of webcam against reference and the Bland-Altman plot (runs in the drawing thread)."""
+    import warnings
+
+    fig.subplots_adjust(left=0.09, right=0.98, top=0.88, bottom=0.17, wspace=0.3)
+    ax_s = fig.add_subplot(1, 2, 1)
+    ax_b = fig.add_subplot(1, 2, 2)
+    if webcam is None:
+        for ax in (ax_s, ax_b):
+            ax.set_axis_off()
+        ax_s.text(0.5, 0.5, "Compare to see the plots", ha="center", va="center", transform=ax_s.transAxes,
+                  color="#555")
+        return 0
+    ok = np.isfinite(webcam) & np.isfinite(reference)
+    a, b = webcam[ok], reference[ok]
+    ax_s.scatter(b, a, s=14, color=theme.POINT_COLOUR, alpha=0.8)
+    if len(a):
+        lo, hi = float(min(a.min(), b.min())), float(max(a.max(), b.max()))
+        ax_s.plot([lo, hi], [lo, hi], color="#888", lw=0.8, ls="--")
+    ax_s.set_xlabel(f"reference {feature}", fontsize=8)
+    ax_s.set_ylabel(f"webcam {feature}", fontsize=8)
+    ax_s.set_title(f"Webcam against reference (n = {len(a)})", fontsize=9)
+    ax_b.scatter((a + b) / 2, a - b, s=14, color=theme.POINT_COLOUR, alpha=0.8)
+    if len(a) >= 2:
+        from camgaze.agreement import bland_altman
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ba = bland_altman(a, b)
+        for y, ls in ((ba.bias, "-"), (ba.loa_low, "--"), (ba.loa_high, "--")):
+            if np.isfinite(y):
+                ax_b.axhline(y, color=theme.CURSOR_COLOUR, lw=1, ls=ls)
+        ax_b.set_title(f"Bland-Altman: bias {ba.bias:.3g}, limits {ba.loa_low:.3g} to {ba.loa_high:.3g}",
+                       fontsize=9)
+    else:
+        ax_b.set_title("Bland-Altman (needs two or more pairs)", fontsize=9)
+    ax_b.set_xlabel("mean of webcam and reference", fontsize=8)
+    ax_b.set_ylabel("webcam − reference", fontsize=8)
+    for ax in (ax_s, ax_b):
+        ax.tick_params(labelsize=7)
+        ax.grid(True, color="#e6e6e6", lw=0.6)
+    return int(len(a))
+
+
+# ------------------------------------------------------------------ library adapters
+def run_validation(*, out_dir, reference, kind, mapping, analysis, segments=None) -> ValidationOutcome:
+    """Call the library's validation for one clip and return what the view shows."""
+    from camgaze import validate  # noqa: PLC0415 - the validation engineer's module
+
+    return _outcome_from(validate, out_dir=out_dir, reference=reference, kind=kind, mapping=mapping,
+                         analysis=analysis, segments=segments)
+
+
+def _outcome_from(validate, **kw) -> ValidationOutcome:
+    raise NotImplementedError("camgaze.validate's entry point is not wired yet")
+
+
+def write_report(outcome: ValidationOutcome, path) -> Path:
+    raise NotImplementedError("camgaze.validate's report writer is not wired yet")
