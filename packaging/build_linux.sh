@@ -1,0 +1,25 @@
+#!/usr/bin/env bash
+# Build the camgaze desktop bundle for Linux: dist/camgaze/camgaze (one folder).
+#
+#   bash packaging/build_linux.sh            # uses .venv/bin/python (scripts/_setup.sh makes it)
+#   PYTHON=/path/to/python bash packaging/build_linux.sh
+#
+# Installs PyInstaller (the project's "bundle" extra) into that Python if missing,
+# builds from packaging/camgaze.spec, and prints the build time and bundle size.
+# Then run packaging/smoke_test.sh to check the bundle.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+PY="${PYTHON:-.venv/bin/python}"
+if ! "$PY" -c "import PyInstaller" 2>/dev/null; then
+  "$PY" -m pip install -q -e ".[gui,bundle]"
+fi
+start=$(date +%s)
+"$PY" -m PyInstaller --noconfirm --clean --log-level WARN \
+  --distpath dist --workpath build/pyinstaller packaging/camgaze.spec
+end=$(date +%s)
+if [ -d dist/camgaze/_internal/jax ] || [ -d dist/camgaze/_internal/jaxlib ]; then
+  echo "build_linux: error: jax ended up in the bundle" >&2
+  exit 1
+fi
+size=$(du -sh dist/camgaze | cut -f1)
+echo "build_linux: built dist/camgaze in $((end - start)) s, size $size"
