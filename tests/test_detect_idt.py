@@ -19,8 +19,8 @@ def test_exact_onsets_and_offsets(rate_hz):
 
 
 def test_threshold_adapts_to_noise():
-    # noise 0.03 deg per axis -> floor 1 deg; noise 0.5 deg -> 4 x RMS-S2S (= 4 x 2 x 0.5 = 4 deg, +-15 %)
-    for sd, expect in ((0.03, 1.0), (0.5, 4.0)):
+    # noise 0.03 deg per axis -> floor 1.5 deg; noise 0.5 deg -> 3.5 x RMS-S2S (= 3.5 x 2 x 0.5 = 3.5 deg, +-15 %)
+    for sd, expect in ((0.03, 1.5), (0.5, 3.5)):
         df, _ = step_signal(rate_hz=30.0, noise_sd_deg=sd, seed=1, plan=PLAN * 8)
         cl = clean_samples(df)
         c = detect_idt(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, noise_rms_s2s_deg=cl.noise_rms_s2s_deg)
@@ -33,9 +33,12 @@ def test_window_never_spans_a_gap():
     df, truth = step_signal(rate_hz=60.0)
     df.loc[5:9, "valid"] = False  # 83 ms loss inside the first fixation
     cl = clean_samples(df)
-    c = detect_idt(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, noise_rms_s2s_deg=0.06)
+    c = detect_idt(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, noise_rms_s2s_deg=0.06, min_duration_ms=100)
     pairs = list(zip(c.starts.tolist(), c.ends.tolist()))
     assert pairs[0] == (10, truth[0][1])  # the 5 samples before the gap are shorter than 100 ms
+    c = detect_idt(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, noise_rms_s2s_deg=0.06, min_duration_ms=60)
+    pairs = list(zip(c.starts.tolist(), c.ends.tolist()))
+    assert pairs[:2] == [(0, 5), (10, truth[0][1])]  # 5 samples at 60 Hz = 83 ms >= 60 ms: a fixation of its own
     for s, e in pairs:
         assert cl.usable[s:e].all()
 

@@ -45,8 +45,8 @@ def _range_table_query(x: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> n
 
 
 def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None = None,
-               noise_rms_s2s_deg: float | None = None, noise_factor: float = 4.0,
-               min_dispersion_deg: float = 1.0, min_duration_ms: float = 100.0) -> Candidates:
+               noise_rms_s2s_deg: float | None = None, noise_factor: float = 3.5,
+               min_dispersion_deg: float = 1.5, min_duration_ms: float = 60.0) -> Candidates:
     """Fixation candidates by I-DT (Salvucci & Goldberg 2000).
 
     Parameters
@@ -64,11 +64,11 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     noise_rms_s2s_deg : float, optional
         The clip's RMS-S2S noise in degrees (needed when ``dispersion_deg`` is
         None; see :mod:`camgaze.detect.noise`).
-    noise_factor : float, default 4.0
+    noise_factor : float, default 3.5
         Adaptive threshold in units of RMS-S2S.
-    min_dispersion_deg : float, default 1.0
+    min_dispersion_deg : float, default 1.5
         Floor of the adaptive threshold, degrees.
-    min_duration_ms : float, default 100
+    min_duration_ms : float, default 60
         Duration threshold: the initial window covers at least this many ms.
 
     Returns

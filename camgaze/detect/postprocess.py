@@ -80,7 +80,7 @@ def merge_candidates(t_s, yaw_deg, pitch_deg, usable, blocked, starts, ends, *, 
     return s, e
 
 
-def trim_by_speed(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, edge_speed_factor: float = 2.0,
+def trim_by_speed(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, edge_speed_factor: float = 1.75,
                   velocity_window_ms: float = 10.0) -> tuple[np.ndarray, np.ndarray, float]:
     """Trim candidates' fast edge samples (step 0 of the module docstring).
 
@@ -90,7 +90,7 @@ def trim_by_speed(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, edge_speed_f
         Times (s), angles (deg), usable mask.
     starts, ends : array_like of int
         Candidate index ranges.
-    edge_speed_factor : float, default 2.0
+    edge_speed_factor : float, default 1.75
         Threshold in units of the recording's median gaze speed; <= 0 disables.
     velocity_window_ms : float, default 10
         Savitzky-Golay derivative window, ms (at least 3 samples).
@@ -121,8 +121,9 @@ def trim_by_speed(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, edge_speed_f
 
 def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candidates, *,
                  merge_gap_ms: float = 75.0, merge_distance_deg: float = 0.5, min_fixation_ms: float = 60.0,
-                 saccade_max_ms: float = 150.0, edge_speed_factor: float = 2.0,
-                 edge_velocity_window_ms: float = 10.0) -> tuple[pd.DataFrame, np.ndarray]:
+                 saccade_max_ms: float = 150.0, edge_speed_factor: float = 1.75,
+                 edge_velocity_window_ms: float = 10.0, merge_noise_factor: float = 0.0,
+                 noise_rms_s2s_deg: float | None = None) -> tuple[pd.DataFrame, np.ndarray]:
     """Events table and per-sample labels from fixation candidates.
 
     Parameters
@@ -141,10 +142,15 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
         Shorter fixations (after merging) are dropped, ms.
     saccade_max_ms : float, default 150
         Longest interval between fixations still called a saccade, ms.
-    edge_speed_factor : float, default 2.0
+    edge_speed_factor : float, default 1.75
         Edge trimming threshold in units of the median gaze speed; 0 disables.
     edge_velocity_window_ms : float, default 10
         Derivative window for the edge trimming, ms.
+    merge_noise_factor : float, default 0
+        If > 0, the merge distance grows with the noise:
+        ``max(merge_distance_deg, merge_noise_factor * noise_rms_s2s_deg)``.
+    noise_rms_s2s_deg : float, optional
+        The recording's RMS-S2S noise, deg (for ``merge_noise_factor``).
 
     Returns
     -------
@@ -170,8 +176,12 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
     s, e, thr = trim_by_speed(t, x, y, usable, candidates.starts, candidates.ends,
                               edge_speed_factor=edge_speed_factor, velocity_window_ms=edge_velocity_window_ms)
     candidates.info["edge_speed_threshold_deg_s"] = thr
+    merge_deg = float(merge_distance_deg)
+    if merge_noise_factor and noise_rms_s2s_deg is not None and np.isfinite(noise_rms_s2s_deg):
+        merge_deg = max(merge_deg, float(merge_noise_factor) * float(noise_rms_s2s_deg))
+    candidates.info["merge_distance_deg"] = merge_deg
     s, e = merge_candidates(t, x, y, usable, blocked, s, e,
-                            merge_gap_ms=merge_gap_ms, merge_distance_deg=merge_distance_deg, dt_s=dt)
+                            merge_gap_ms=merge_gap_ms, merge_distance_deg=merge_deg, dt_s=dt)
     dur_ms = (te[e] - t[s]) * 1000.0
     keep = dur_ms >= min_fixation_ms - 1e-9
     s, e = s[keep], e[keep]
