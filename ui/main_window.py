@@ -363,7 +363,7 @@ class MainWindow(QMainWindow):
         The write (atomic, with fsync) happens in a worker thread: a busy disk
         can take hundreds of milliseconds to fsync, which the window must not wait for.
         """
-        if self.study.path is None or self._loading_study:
+        if self.study.path is None or self._loading_study or getattr(self, "_shut", False):
             return
         self._store_view()
         path, data = self.study.path, self.study.to_dict()
@@ -911,7 +911,11 @@ class MainWindow(QMainWindow):
         ev.acceptProposedAction()
 
     def shutdown(self):
-        """Stop background work (run, re-analyses, frame decoding)."""
+        """Stop background work (run, re-analyses, frame decoding); pending study writes finish first."""
+        if getattr(self, "_shut", False):
+            return
+        self._autosave()
+        self._shut = True
         if self.run is not None and self.run.is_running():
             self.run.shutdown()
         self.reanalyser.shutdown()
@@ -938,7 +942,6 @@ class MainWindow(QMainWindow):
             if ans == QMessageBox.Save and not self.save_study_as_dialog():
                 ev.ignore()
                 return
-        self._autosave()
         if self.settings is not None:
             self.settings.setValue("geometry", self.saveGeometry())
             self.settings.setValue("state", self.saveState())
