@@ -63,3 +63,15 @@ def test_unknown_method():
     t = np.arange(10) / 30.0
     with pytest.raises(ParameterError, match="I-VT method"):
         detect_ivt(t, t, t, np.ones(10, bool), method="fixed")
+
+
+@pytest.mark.parametrize("window", [3, 5, 11, 21])
+def test_numpy_savgol_derivative_matches_scipy(window):
+    # scipy.signal.savgol_filter as the reference implementation of Savitzky & Golay (1964)
+    from scipy.signal import savgol_filter
+
+    from camgaze.detect.ivt import savgol_derivative
+
+    v = np.random.default_rng(window).normal(size=300).cumsum()
+    ref = savgol_filter(v, window, 2, deriv=1, delta=0.002, mode="interp")
+    np.testing.assert_allclose(savgol_derivative(v, window, 0.002), ref, rtol=1e-9, atol=1e-6)

@@ -132,9 +132,10 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
             ys = y[i:hi]
             d = (np.maximum.accumulate(xs) - np.minimum.accumulate(xs)
                  + np.maximum.accumulate(ys) - np.minimum.accumulate(ys))
-            over = np.flatnonzero(d[e - i:] > thr)
-            if len(over):
-                e = e + int(over[0])
+            over = d[e - i:] > thr
+            k = int(over.argmax())
+            if over[k]:
+                e = e + k
                 break
             e = hi
             chunk *= 2

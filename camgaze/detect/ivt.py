@@ -40,6 +40,39 @@ def _odd_window(window_ms: float, dt: float) -> int:
     return max(w, 3)
 
 
+def savgol_derivative(v: np.ndarray, window: int, dt_s: float, polyorder: int = 2) -> np.ndarray:
+    """First derivative by a Savitzky-Golay filter (odd ``window`` samples, uniform spacing ``dt_s``).
+
+    Savitzky, A., & Golay, M. J. E. (1964). Analytical Chemistry 36(8),
+    1627-1639. Interior samples use the centred least-squares polynomial; the
+    first and last ``window // 2`` samples use the polynomial fitted to the
+    first / last ``window`` samples (like scipy's ``mode="interp"``). Plain
+    numpy, so no import of :mod:`scipy.signal` is needed.
+    """
+    v = np.asarray(v, dtype=float)
+    n = len(v)
+    w = int(window)
+    h = w // 2
+    p = min(polyorder, w - 1)
+    pos = np.arange(-h, h + 1, dtype=float)
+    A = np.vander(pos, p + 1, increasing=True)  # columns 1, x, x^2
+    pinv = np.linalg.pinv(A)  # rows: coefficients of 1, x, x^2 as weights on the samples
+    out = np.empty(n)
+    # interior: derivative at x = 0 is the x coefficient
+    c1 = pinv[1]
+    out[h:n - h] = np.convolve(v, c1[::-1], mode="valid") / dt_s
+    # edges: derivative of the fitted polynomial at the edge positions
+    for sl, xs in ((slice(0, w), pos[:h]), (slice(n - w, n), pos[h + 1:])):
+        coef = pinv @ v[sl]
+        dcoef = coef[1:] * np.arange(1, p + 1)
+        vals = np.polynomial.polynomial.polyval(xs, dcoef) / dt_s
+        if sl.start == 0:
+            out[:h] = vals
+        else:
+            out[n - h:] = vals
+    return out
+
+
 def velocity_deg_s(t_s, yaw_deg, pitch_deg, usable, *, window_ms: float = 20.0):
     """Yaw and pitch velocity (deg/s) by a Savitzky-Golay derivative (order 2).
 
@@ -52,9 +85,6 @@ def velocity_deg_s(t_s, yaw_deg, pitch_deg, usable, *, window_ms: float = 20.0):
     vx, vy : ndarray
         Velocity components in deg/s.
     """
-    from scipy.ndimage import binary_dilation
-    from scipy.signal import savgol_filter
-
     t = np.asarray(t_s, dtype=float)
     ok = np.asarray(usable, dtype=bool)
     n = len(t)
@@ -69,9 +99,12 @@ def velocity_deg_s(t_s, yaw_deg, pitch_deg, usable, *, window_ms: float = 20.0):
     for v in (yaw_deg, pitch_deg):
         v = np.asarray(v, dtype=float)
         vf = np.interp(idx, idx[ok], v[ok])
-        d = savgol_filter(vf, w, polyorder=min(2, w - 1), deriv=1, delta=dt, mode="interp")
-        out.append(d)
-    bad = binary_dilation(~ok, structure=np.ones(w, dtype=bool))
+        out.append(savgol_derivative(vf, w, dt))
+    # a velocity is unusable when its window touches an unusable sample
+    cb = np.concatenate([[0], np.cumsum(~ok)])
+    lo = np.clip(idx - w // 2, 0, n)
+    hi = np.clip(idx + w // 2 + 1, 0, n)
+    bad = (cb[hi] - cb[lo]) > 0
     return np.where(bad, np.nan, out[0]), np.where(bad, np.nan, out[1])
 
 
