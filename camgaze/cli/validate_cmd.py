@@ -107,8 +107,12 @@ def run(args) -> int:
     from .process_cmd import analysis_params_from_args
 
     mapping, screen = _mapping(args)
+    analysis = analysis_params_from_args(args)
+    # --window-s alone means back-to-back windows of that length
+    window_s = args.window_s
+    step_s = args.step_s if args.step_s is not None else window_s
     params = ValidateParams(
-        analysis=analysis_params_from_args(args), offset_s=args.offset_s, marker=args.marker,
+        analysis=analysis, window_s=window_s, step_s=step_s, offset_s=args.offset_s, marker=args.marker,
         webcam_marker_s=args.webcam_marker_s, search_range_s=args.search_range_s, align_signal=args.align_signal,
         estimate_drift=args.drift, resample_reference_hz=args.resample_reference_hz,
         reference_events=args.reference_events, icc_form=args.icc_form, match_tolerance_s=args.match_tolerance_s,
