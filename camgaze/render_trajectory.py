@@ -73,6 +73,58 @@ class Trajectory:
     def duration_s(self) -> float:
         return float(self.params.get("duration_s", np.nan))
 
+    @classmethod
+    def from_samples(cls, samples: pd.DataFrame, *, head_distance_mm: float = DEFAULT_HEAD_Z_MM) -> "Trajectory":
+        """A trajectory from a hand-made table (for tests and special clips).
+
+        Parameters
+        ----------
+        samples : pandas.DataFrame
+            Needs ``t_s`` (s, increasing, from 0), ``yaw_deg`` and
+            ``pitch_deg`` (deg). Optional: ``lid_closure`` (0-1) or ``blink``
+            (bool, closes the lids fully), and the head columns
+            (``head_yaw_deg`` ... ``head_z_mm``); missing head columns mean
+            a still head at ``(0, 0, head_distance_mm)``.
+        head_distance_mm : float, default 600
+            Head distance used when ``head_z_mm`` is absent, mm.
+
+        Returns
+        -------
+        Trajectory
+            With empty ``fixations``/``saccades``/``blinks`` tables.
+        """
+        for c in ("t_s", "yaw_deg", "pitch_deg"):
+            if c not in samples.columns:
+                raise ParameterError(f"trajectory samples need a {c!r} column")
+        s = pd.DataFrame({"t_s": pd.to_numeric(samples["t_s"], errors="coerce").astype(float)})
+        t = s["t_s"].to_numpy()
+        if len(t) < 2 or not np.isfinite(t).all() or (np.diff(t) <= 0).any() or t[0] < 0:
+            raise ParameterError("trajectory t_s must be at least two finite, increasing times from 0 s or later")
+        for c in ("yaw_deg", "pitch_deg"):
+            v = pd.to_numeric(samples[c], errors="coerce").astype(float)
+            if not np.isfinite(v).all():
+                raise ParameterError(f"trajectory {c} must be finite",
+                                     where=f"row {int(np.argmax(~np.isfinite(v.to_numpy()))) + 1}")
+            s[c] = v
+        if "lid_closure" in samples.columns:
+            s["lid_closure"] = np.clip(samples["lid_closure"].to_numpy(float), 0.0, 1.0)
+        elif "blink" in samples.columns:
+            s["lid_closure"] = samples["blink"].to_numpy(bool).astype(float)
+        else:
+            s["lid_closure"] = 0.0
+        s.insert(3, "blink", s["lid_closure"] >= 0.5)
+        defaults = {"head_yaw_deg": 0.0, "head_pitch_deg": 0.0, "head_roll_deg": 0.0, "head_x_mm": 0.0,
+                    "head_y_mm": 0.0, "head_z_mm": float(head_distance_mm)}
+        for c, d in defaults.items():
+            s[c] = samples[c].to_numpy(float) if c in samples.columns else d
+        empty = pd.DataFrame(columns=["onset_s", "offset_s", "duration_ms", "yaw_deg", "pitch_deg"])
+        rate = float(1.0 / np.median(np.diff(t)))
+        return cls(samples=s, fixations=empty,
+                   saccades=pd.DataFrame(columns=["onset_s", "offset_s", "duration_ms", "amplitude_deg"]),
+                   blinks=pd.DataFrame(columns=["onset_s", "offset_s", "duration_ms", "closure_onset_s",
+                                                "closure_offset_s"]),
+                   params={"duration_s": float(t[-1]), "rate_hz": rate, "source": "table"})
+
     def at(self, t_s) -> pd.DataFrame:
         """The trajectory linearly interpolated at times ``t_s`` (s); ``blink`` from the interpolated closure."""
         t_s = np.asarray(t_s, dtype=float)

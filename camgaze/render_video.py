@@ -21,7 +21,7 @@ from .errors import ParameterError
 FORMATS = {".mp4": "mp4", ".mov": "mov", ".m4v": "mp4", ".mkv": "matroska", ".avi": "avi"}
 #: codecs the writer offers
 CODECS = ("libx264", "mpeg4")
-#: presentation-timestamp clock of written clips
+#: presentation-timestamp clock of written clips (Matroska itself keeps milliseconds)
 TIME_BASE = Fraction(1, 90000)
 
 
@@ -94,8 +94,14 @@ class ClipWriter:
         self._last_pts = None
 
     def pts_of(self, t_s: float) -> int:
-        """Container timestamp (ticks) for a frame time in seconds."""
+        """Encoder timestamp (ticks) for a frame time in seconds, on the clock the container keeps.
+
+        Matroska stores milliseconds, so there the time is first rounded to
+        the millisecond; mp4/mov keep the 1/90000 s clock.
+        """
         tb = self.stream.codec_context.time_base
+        if self.fmt == "matroska":
+            t_s = round(t_s * 1000.0) / 1000.0
         return int(round(t_s / float(tb)))
 
     def write(self, rgb: np.ndarray, t_s: float) -> float:

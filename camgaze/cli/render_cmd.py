@@ -34,7 +34,7 @@ def register(sub) -> None:
     p.add_argument("--rotation-deg", type=int, default=0, choices=(0, 90, 180, 270),
                    help="store the picture rotated and tag the clip so players turn it back (default 0)")
     p.add_argument("--darkness", type=float, default=1.0, help="light level in (0, 1]; lower is dimmer and noisier")
-    p.add_argument("--extra-faces", type=int, default=0, help="other, smaller faces in view (0-3, default 0)")
+    p.add_argument("--extra-faces", type=int, default=0, help="other, smaller faces in view (0-2, default 0)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=run)
 

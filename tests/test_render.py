@@ -1,0 +1,418 @@
+"""Rendered test clips: trajectories, geometry, the written clip and its truth, and what the face mesh sees."""
+from __future__ import annotations
+
+import json
+import threading
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from camgaze.atomic import sha256_file
+from camgaze.errors import Cancelled, ParameterError
+from camgaze.render import Trajectory, read_truth, render_clip, saccade_duration_ms, synth_trajectory
+from camgaze.render_frame import EYEBALL_RADIUS_MM, Camera, gaze_vector, head_rotation
+
+av = pytest.importorskip("av")
+
+SMALL = (640, 360)
+
+
+def _decode(path):
+    """Frames (RGB), times (s) and rotation tags of a clip, through PyAV."""
+    frames, times, rots = [], [], set()
+    with av.open(str(path)) as c:
+        for f in c.decode(video=0):
+            frames.append(f.to_ndarray(format="rgb24"))
+            times.append(float(f.pts * f.time_base))
+            rots.add(f.rotation)
+    return frames, np.array(times), rots
+
+
+def _steps(segments, *, rate_hz=240.0, **cols):
+    """A hand-made trajectory: ``segments`` = [(duration_s, yaw_deg, pitch_deg, lid_closure), ...]."""
+    rows = []
+    t0 = 0.0
+    for dur, yaw, pitch, closure in segments:
+        t = np.arange(int(round(dur * rate_hz))) / rate_hz + t0
+        rows.append(pd.DataFrame({"t_s": t, "yaw_deg": yaw, "pitch_deg": pitch, "lid_closure": closure}))
+        t0 += dur
+    df = pd.concat(rows, ignore_index=True)
+    for k, v in cols.items():
+        df[k] = v
+    return Trajectory.from_samples(df)
+
+
+# ----------------------------------------------------------------------------- trajectories
+def test_trajectory_is_reproducible_and_seed_dependent():
+    a = synth_trajectory(duration_s=3, seed=5)
+    b = synth_trajectory(duration_s=3, seed=5)
+    c = synth_trajectory(duration_s=3, seed=6)
+    pd.testing.assert_frame_equal(a.samples, b.samples)
+    assert not np.allclose(a.samples["yaw_deg"], c.samples["yaw_deg"])
+    assert a.samples["t_s"].iloc[-1] == pytest.approx(3.0)
+    assert np.allclose(np.diff(a.samples["t_s"]), 1 / 240)
+
+
+def test_fixation_durations_and_saccades_follow_the_literature():
+    tr = synth_trajectory(duration_s=60, seed=1, task="scene", blink_rate_per_min=0)
+    fx = tr.fixations.iloc[:-1]  # the last one is cut by the end of the clip
+    # mean fixation about 250-330 ms in scene viewing (Rayner 1998 - field notes, from memory)
+    assert 220 <= fx["duration_ms"].mean() <= 340
+    assert fx["duration_ms"].min() >= 80 - 1e-9
+    sc = tr.saccades.iloc[:-1]
+    # main sequence: 2.2 ms/deg * amplitude + 21 ms (field notes, from memory)
+    assert np.allclose(sc["duration_ms"], saccade_duration_ms(sc["amplitude_deg"]), atol=1e-6)
+    # the gaze really travels that far during each saccade, with its peak speed mid-way
+    s = tr.samples
+    t, yaw, pitch = s["t_s"].to_numpy(), s["yaw_deg"].to_numpy(), s["pitch_deg"].to_numpy()
+    speed = np.hypot(np.gradient(yaw, t), np.gradient(pitch, t))
+    for on, off, amp in sc[["onset_s", "offset_s", "amplitude_deg"]].to_numpy()[:20]:
+        i0, i1 = np.searchsorted(t, on), np.searchsorted(t, off)
+        travelled = np.hypot(yaw[i1] - yaw[i0 - 1], pitch[i1] - pitch[i0 - 1])
+        assert travelled == pytest.approx(amp, abs=0.6)  # drift of both fixations included
+        peak = t[i0 + np.argmax(speed[i0:i1])]
+        assert abs(peak - 0.5 * (on + off)) < 0.25 * (off - on) + 1 / 240
+
+
+def test_reading_moves_rightward_in_small_steps_with_return_sweeps():
+    tr = synth_trajectory(duration_s=30, seed=2, task="reading", amplitude_deg=8)
+    fx = tr.fixations
+    d = np.diff(fx["yaw_deg"].to_numpy())
+    forward = d[d > 0]
+    assert (d > 0).mean() > 0.7  # mostly towards larger yaw = the reader's right (schema frame)
+    assert 1.8 <= np.median(forward) <= 3.2
+    sweeps = d[d < -8]
+    assert len(sweeps) >= 3
+    # after a return sweep the next line is lower (pitch down) or the page starts again at the top
+    assert fx["yaw_deg"].between(-8.5, 8.5).all()
+
+
+def test_blinks_close_the_lids_at_about_the_asked_rate():
+    tr = synth_trajectory(duration_s=120, seed=3, blink_rate_per_min=15)
+    n = len(tr.blinks)
+    # a Poisson rate of 15/min with a 1 s refractory time and 0.3 s lid movement: about 23 blinks in 120 s
+    assert 12 <= n <= 36
+    # half-closed spans of 115-230 ms (blink duration 100-400 ms is common practice, from memory)
+    assert tr.blinks["duration_ms"].between(110, 235).all()
+    s = tr.samples
+    for on, off in tr.blinks[["onset_s", "offset_s"]].to_numpy():
+        inside = s["t_s"].between(on + 0.005, off - 0.005)
+        assert s.loc[inside, "blink"].all()
+        assert s.loc[inside, "lid_closure"].max() == pytest.approx(1.0, abs=0.05)
+    assert s["lid_closure"].between(0, 1).all()
+    assert s["blink"].sum() / 240 == pytest.approx(tr.blinks["duration_ms"].sum() / 1000, rel=0.05)
+
+
+def test_head_motion_leaves_the_gaze_truth_unchanged():
+    still = synth_trajectory(duration_s=8, seed=4)
+    moving = synth_trajectory(duration_s=8, seed=4, head_motion=True)
+    np.testing.assert_allclose(moving.samples["yaw_deg"], still.samples["yaw_deg"])
+    assert (still.samples["head_yaw_deg"] == 0).all() and (still.samples["head_z_mm"] == 600).all()
+    hy = moving.samples["head_yaw_deg"]
+    assert hy.abs().max() <= 15 + 1e-9 and hy.std() > 1.0
+    assert moving.samples["head_z_mm"].between(500, 700).all()
+
+
+@pytest.mark.parametrize("kwargs, word", [
+    ({"duration_s": 0}, "duration_s"),
+    ({"duration_s": 2, "task": "browsing"}, "task"),
+    ({"duration_s": 2, "head_motion": {"spin_deg": 3}}, "spin_deg"),
+    ({"duration_s": 2, "rate_hz": -5}, "rate_hz"),
+    ({"duration_s": float("nan")}, "duration_s"),
+])
+def test_trajectory_rejects_bad_parameters(kwargs, word):
+    with pytest.raises(ParameterError, match=word):
+        synth_trajectory(**kwargs)
+
+
+def test_trajectory_from_table_checks_its_input():
+    with pytest.raises(ParameterError, match="pitch_deg"):
+        Trajectory.from_samples(pd.DataFrame({"t_s": [0, 1], "yaw_deg": [0, 0]}))
+    with pytest.raises(ParameterError, match="increasing"):
+        Trajectory.from_samples(pd.DataFrame({"t_s": [0, 1, 1], "yaw_deg": 0, "pitch_deg": 0}))
+    with pytest.raises(ParameterError, match="row 2"):
+        Trajectory.from_samples(pd.DataFrame({"t_s": [0, 1], "yaw_deg": [0, np.nan], "pitch_deg": 0}))
+
+
+# ----------------------------------------------------------------------------- geometry
+def test_gaze_vector_and_head_rotation_use_the_schema_frame():
+    # schema.py: yaw = atan2(-gx, -gz), pitch = atan2(-gy, hypot(gx, gz)); (0, 0, -1) looks at the camera
+    np.testing.assert_allclose(gaze_vector(0, 0), [0, 0, -1], atol=1e-12)
+    g = gaze_vector(20, 0)
+    assert g[0] < 0  # subject's right = camera -x = picture left
+    g = gaze_vector(0, 15)
+    assert g[1] < 0  # up = camera -y
+    for yaw, pitch in [(12.0, -7.0), (-30.0, 25.0)]:
+        g = gaze_vector(yaw, pitch)
+        assert np.degrees(np.arctan2(-g[0], -g[2])) == pytest.approx(yaw)
+        assert np.degrees(np.arctan2(-g[1], np.hypot(g[0], g[2]))) == pytest.approx(pitch)
+        R = head_rotation(yaw, pitch, 0.0)
+        np.testing.assert_allclose(R @ [0, 0, -1], g, atol=1e-12)  # the face normal turns like a gaze
+        np.testing.assert_allclose(R @ R.T, np.eye(3), atol=1e-12)
+    up = head_rotation(0, 0, 10) @ [0, -1, 0]
+    assert up[0] < 0  # roll > 0: head top towards the subject's right shoulder (picture left)
+
+
+def test_camera_projection():
+    cam = Camera(1280, 720, 60.0)
+    assert cam.focal_px == pytest.approx(640 / np.tan(np.radians(30)))
+    np.testing.assert_allclose(cam.project(np.array([[0.0, 0.0, 600.0]])), [[640, 360]])
+    # 11.7 mm at 588 mm is about 22 px wide at 720p with a 60 deg field of view
+    assert cam.focal_px * 11.7 / 588 == pytest.approx(22.0, abs=0.3)
+
+
+# ----------------------------------------------------------------------------- the clip and its truth
+@pytest.fixture(scope="module")
+def plain_clip(tmp_path_factory):
+    d = tmp_path_factory.mktemp("render")
+    tr = synth_trajectory(duration_s=1.0, seed=9, task="scene", head_motion=True)
+    return render_clip(d / "plain.mp4", tr, size_px=SMALL, noise_sd=1.0, seed=9), tr
+
+
+def test_truth_matches_the_decoded_clip(plain_clip):
+    res, tr = plain_clip
+    frames, times, rots = _decode(res.path)
+    truth = read_truth(res.truth_path)
+    assert len(frames) == res.frames == len(truth) == 30
+    assert frames[0].shape == (360, 640, 3)
+    np.testing.assert_allclose(times, truth["pts_s"], atol=1e-6)
+    np.testing.assert_allclose(truth["t_s"], np.arange(30) / 30.0, atol=1e-6)  # written with 6 decimals
+    assert rots == {0}
+    # the truth is the trajectory at the frame times
+    np.testing.assert_allclose(truth["yaw_deg"], np.interp(res.truth["t_s"], tr.samples["t_s"], tr.samples["yaw_deg"]),
+                               atol=1e-6)
+    meta = json.loads(res.truth_json_path.read_text())
+    assert meta["clip_sha256"] == sha256_file(res.path)
+    assert meta["frames"] == 30 and meta["size_px"] == [640, 360] and meta["fov_deg"] == 60.0
+    assert meta["focal_px"] == pytest.approx(320 / np.tan(np.radians(30)))
+    hi = pd.read_csv(res.truth_hi_path)
+    assert len(hi) == len(tr.samples) and {"t_s", "yaw_deg", "pitch_deg", "blink"} <= set(hi.columns)
+    ev = pd.read_csv(res.truth_events_path)
+    assert set(ev["type"]) <= {"fixation", "saccade", "blink"} and (ev["type"] == "fixation").any()
+
+
+def test_truth_iris_positions_follow_the_eyeball_geometry(tmp_path):
+    tr = _steps([(0.2, 0, 0, 0), (0.2, 15, 0, 0), (0.2, 0, 12, 0)])
+    res = render_clip(tmp_path / "geo.mp4", tr, size_px=SMALL, noise_sd=0)
+    t = res.truth
+    a, b, c = t.iloc[2], t.iloc[8], t.iloc[14]
+    f = res.focal_px
+    for eye in ("right", "left"):
+        dx = b[f"{eye}_iris_x_px"] - a[f"{eye}_iris_x_px"]
+        dy = c[f"{eye}_iris_y_px"] - a[f"{eye}_iris_y_px"]
+        z = a["distance_mm"]
+        assert dx == pytest.approx(-f * EYEBALL_RADIUS_MM * np.sin(np.radians(15)) / z, rel=0.05)
+        assert dy == pytest.approx(-f * EYEBALL_RADIUS_MM * np.sin(np.radians(12)) / z, rel=0.05)
+    # the right eye is on the picture's left, about 60 mm apart (mediapipe's iris scale, brief)
+    ipd_px = a["left_iris_x_px"] - a["right_iris_x_px"]
+    assert ipd_px * a["distance_mm"] / f == pytest.approx(60, abs=6)
+    assert a["iris_diameter_px"] == pytest.approx(f * 11.7 / a["distance_mm"])
+
+
+def test_variable_frame_times_survive_the_container(tmp_path):
+    rng = np.random.default_rng(0)
+    times = np.concatenate([[0.0], np.cumsum(rng.uniform(0.02, 0.06, 30))])
+    times = times[times < 1.0]
+    tr = synth_trajectory(duration_s=1.0, seed=1)
+    res = render_clip(tmp_path / "vfr.mkv", tr, size_px=SMALL, frame_times_s=times)
+    _, decoded, _ = _decode(res.path)
+    assert len(decoded) == len(times)
+    np.testing.assert_allclose(decoded, times, atol=5e-4)  # matroska keeps milliseconds
+    np.testing.assert_allclose(decoded, res.truth["pts_s"], atol=1e-9)  # and the truth says what it stored
+    res2 = render_clip(tmp_path / "vfr.mp4", tr, size_px=SMALL, frame_times_s=times)
+    _, decoded2, _ = _decode(res2.path)
+    np.testing.assert_allclose(decoded2, times, atol=1e-5)
+    np.testing.assert_allclose(res2.truth["t_s"], times)
+
+
+def test_rotation_tag_is_reported_and_undoes_the_stored_rotation(tmp_path):
+    tr = synth_trajectory(duration_s=0.3, seed=1)
+    up = render_clip(tmp_path / "up.mp4", tr, size_px=SMALL, noise_sd=0, crf=18)
+    rot = render_clip(tmp_path / "rot.mp4", tr, size_px=SMALL, noise_sd=0, crf=18, rotation_deg=90)
+    fu, _, ru = _decode(up.path)
+    fr, _, rr = _decode(rot.path)
+    assert ru == {0} and rr == {90}
+    assert fr[0].shape == (640, 360, 3)  # stored portrait
+    turned = np.rot90(fr[0], k=1)  # apply the tag: 90 deg counter-clockwise
+    assert turned.shape == fu[0].shape
+    err = np.abs(turned.astype(float) - fu[0]).mean()
+    wrong = np.abs(np.rot90(fr[0], k=-1).astype(float) - fu[0]).mean()
+    assert err < 3.0 < wrong
+    assert json.loads(rot.truth_json_path.read_text())["stored_size_px"] == [360, 640]
+
+
+def test_hidden_face_darkness_and_noise(tmp_path):
+    tr = synth_trajectory(duration_s=0.4, seed=2, blink_rate_per_min=0)
+    vis = np.ones(12, bool)
+    vis[6:] = False
+    res = render_clip(tmp_path / "hide.mp4", tr, size_px=SMALL, noise_sd=0, face_visible=vis, crf=18)
+    frames, _, _ = _decode(res.path)
+    centre = (slice(120, 240), slice(240, 400))
+    face_c, empty_c = frames[2][centre].astype(float), frames[8][centre].astype(float)
+    assert np.abs(face_c - empty_c).mean() > 20  # the face is gone
+    assert empty_c.std(axis=(0, 1)).max() < 6  # plain wall
+    assert not res.truth["face_visible"].iloc[6:].any()
+
+    dark = render_clip(tmp_path / "dark.mp4", tr, size_px=SMALL, noise_sd=0, darkness=0.4, crf=18)
+    fd, _, _ = _decode(dark.path)
+    ratio = fd[2].astype(float).mean() / frames[2].astype(float).mean()
+    assert ratio == pytest.approx(0.4, abs=0.05)
+
+    noisy = render_clip(tmp_path / "noisy.mp4", tr, size_px=SMALL, noise_sd=12, crf=18)
+    fn, _, _ = _decode(noisy.path)
+    wall = (slice(5, 60), slice(5, 60))  # background corner
+    sd_clean = (frames[3][wall].astype(float) - frames[4][wall]).std()
+    sd_noisy = (fn[3][wall].astype(float) - fn[4][wall]).std()
+    assert sd_noisy > 4 * max(sd_clean, 0.5)
+
+
+def test_cancel_leaves_no_clip(tmp_path):
+    ev = threading.Event()
+    seen = []
+
+    def progress(frac, msg):
+        seen.append(frac)
+        if frac > 0.3:
+            ev.set()
+
+    tr = synth_trajectory(duration_s=1.0, seed=1)
+    with pytest.raises(Cancelled):
+        render_clip(tmp_path / "c.mp4", tr, size_px=SMALL, progress=progress, cancel=ev)
+    assert not (tmp_path / "c.mp4").exists()
+    assert not list(tmp_path.glob("*.part")) and not list(tmp_path.glob("c_truth*"))
+    assert seen and all(0 < s <= 1 for s in seen)
+
+
+@pytest.mark.parametrize("kwargs, word", [
+    ({"size_px": (641, 360)}, "even"),
+    ({"face": "someone"}, "face"),
+    ({"rotation_deg": 45}, "multiple of 90"),
+    ({"frame_times_s": [0.0, 0.2, 0.1]}, "frame 2"),
+    ({"frame_times_s": [0.0, 5.0]}, "past the trajectory"),
+    ({"face_visible": [True, False]}, "one entry per frame"),
+    ({"darkness": 0.0}, "darkness"),
+    ({"extra_faces": 3}, "extra_faces"),
+    ({"fps": -1}, "fps"),
+])
+def test_render_rejects_bad_parameters(tmp_path, kwargs, word):
+    tr = synth_trajectory(duration_s=0.5, seed=1)
+    with pytest.raises(ParameterError, match=word):
+        render_clip(tmp_path / "bad.mp4", tr, size_px=kwargs.pop("size_px", SMALL), **kwargs)
+    assert not list(tmp_path.iterdir())
+
+
+def test_render_rejects_unknown_container(tmp_path):
+    with pytest.raises(ParameterError, match=r"bad\.xyz.*extension"):
+        render_clip(tmp_path / "bad.xyz", synth_trajectory(duration_s=0.5), size_px=SMALL)
+
+
+def test_cli_renders_a_clip(tmp_path, capsys):
+    from camgaze.cli import main
+
+    out = tmp_path / "cli.mp4"
+    rc = main(["render", str(out), "--duration-s", "0.5", "--size", "320x240", "--quiet", "--vfr-jitter-ms", "5"])
+    assert rc == 0 and out.exists()
+    assert "wrote" in capsys.readouterr().out
+    _, times, _ = _decode(out)
+    np.testing.assert_allclose(read_truth(tmp_path / "cli_truth.csv")["pts_s"], times, atol=1e-6)
+    assert np.ptp(np.diff(times)) > 0.002  # the frame intervals really vary
+    rc = main(["render", str(tmp_path / "x.mp4"), "--size", "wide"])
+    assert rc == 2 and "WIDTHxHEIGHT" in capsys.readouterr().err
+
+
+# ----------------------------------------------------------------------------- what the face mesh sees
+def _mesh(frames, max_faces=1):
+    from camgaze.render_face import landmark_image
+
+    out = []
+    for img in frames:
+        faces = landmark_image(img, max_faces=max_faces)
+        out.append(faces)
+    return out
+
+
+def _ear(p):
+    # eye aspect ratio, Soukupova & Cech (2016) - field notes; the subject's right eye
+    p1, p2, p3, p4, p5, p6 = (p[i, :2] for i in (33, 160, 158, 133, 153, 144))
+    return (np.linalg.norm(p2 - p6) + np.linalg.norm(p3 - p5)) / (2 * np.linalg.norm(p1 - p4))
+
+
+@pytest.fixture(scope="module")
+def gaze_steps(tmp_path_factory):
+    """A still head (astronaut face) looking straight, right, left, up, down, then blinking."""
+    d = tmp_path_factory.mktemp("mesh")
+    seg = [(0.2, 0, 0, 0), (0.2, 15, 0, 0), (0.2, -15, 0, 0), (0.2, 0, 12, 0), (0.2, 0, -12, 0),
+           (0.2, 0, 0, 1.0)]
+    tr = _steps(seg)
+    res = render_clip(d / "steps.mp4", tr, face="astronaut", size_px=(960, 540), noise_sd=2.0, seed=3)
+    frames, _, _ = _decode(res.path)
+    lms = _mesh(frames)
+    return res, lms
+
+
+@pytest.mark.slow
+def test_face_mesh_finds_the_rendered_face(gaze_steps):
+    res, lms = gaze_steps
+    assert all(len(f) == 1 for f in lms)
+    # its iris centres sit within 15 % of an iris diameter of the drawn ones while the eyes are open (the face
+    # mesh reads the partly lid-covered iris about 1-1.5 px low)
+    t = res.truth
+    tol = 0.15 * t["iris_diameter_px"].iloc[0]
+    for i in range(0, 30):
+        p = lms[i][0]
+        assert np.hypot(*(p[468, :2] - t.loc[i, ["right_iris_x_px", "right_iris_y_px"]].to_numpy(float))) < tol
+        assert np.hypot(*(p[473, :2] - t.loc[i, ["left_iris_x_px", "left_iris_y_px"]].to_numpy(float))) < tol
+
+
+@pytest.mark.slow
+def test_face_mesh_iris_moves_the_way_the_schema_says(gaze_steps):
+    res, lms = gaze_steps
+    f = res.focal_px
+    z = res.truth["distance_mm"].iloc[0]
+    expect_x = f * EYEBALL_RADIUS_MM * np.sin(np.radians(15)) / z  # px for 15 deg yaw
+    expect_y = f * EYEBALL_RADIUS_MM * np.sin(np.radians(12)) / z
+
+    def iris(block):  # mean of both iris centres over the settled frames of a 6-frame block
+        pts = [0.5 * (lms[i][0][468, :2] + lms[i][0][473, :2]) for i in range(block * 6 + 2, block * 6 + 6)]
+        return np.mean(pts, axis=0)
+
+    straight, right, left, up, down = (iris(b) for b in range(5))
+    # yaw > 0 (subject's right) -> towards the picture's left edge, by about the geometric amount
+    assert right[0] - straight[0] == pytest.approx(-expect_x, rel=0.35)
+    assert left[0] - straight[0] == pytest.approx(expect_x, rel=0.35)
+    # pitch > 0 (up) -> towards the picture's top edge; the face mesh under-reads vertical iris motion
+    assert up[1] - straight[1] < -0.3 * expect_y
+    assert down[1] - straight[1] > 0.3 * expect_y
+    assert abs(up[1] - straight[1]) < 1.5 * expect_y
+
+
+@pytest.mark.slow
+def test_closed_lids_reduce_the_eye_opening(gaze_steps):
+    res, lms = gaze_steps
+    open_ear = np.median([_ear(lms[i][0]) for i in range(2, 6)])
+    closed_ear = np.median([_ear(lms[i][0]) for i in range(31, 35)])  # 35 frames: the clip ends at 1.196 s
+    assert res.truth["blink"].iloc[30:].all()
+    assert open_ear > 0.2
+    assert closed_ear < 0.6 * open_ear
+
+
+@pytest.mark.slow
+def test_head_turn_and_extra_faces_are_seen(tmp_path):
+    seg = [(0.2, 0, 0, 0)]
+    base = _steps(seg)
+    turned = _steps(seg, head_yaw_deg=12.0)
+    r0 = render_clip(tmp_path / "h0.mp4", base, size_px=SMALL, noise_sd=0)
+    r1 = render_clip(tmp_path / "h1.mp4", turned, size_px=SMALL, noise_sd=0, extra_faces=1)
+    f0, _, _ = _decode(r0.path)
+    f1, _, _ = _decode(r1.path)
+    m0 = _mesh(f0[2:3], max_faces=3)[0]
+    m1 = _mesh(f1[2:3], max_faces=3)[0]
+    assert len(m0) == 1 and len(m1) == 2
+    main = max(m1, key=lambda p: np.ptp(p[:, 0]))
+
+    def nose_offset(p):  # nose tip relative to the midpoint of the eye corners, px
+        return p[1, 0] - 0.5 * (p[33, 0] + p[263, 0])
+
+    # head yaw > 0 (face turned to the subject's right) -> the nose swings towards the picture's left
+    assert nose_offset(main) < nose_offset(m0[0]) - 6
