@@ -150,7 +150,13 @@ class AnalysisParams:
     def __post_init__(self):
         if self.detector not in DETECTORS:
             raise ParameterError(f"unknown detector {self.detector!r}; choose one of {', '.join(DETECTORS)}")
-        self.i2mc_downsamples = tuple(int(f) for f in self.i2mc_downsamples)
+        ds = self.i2mc_downsamples
+        if isinstance(ds, str):  # "2,5,10" from a command line
+            ds = [p for p in ds.replace(" ", ",").split(",") if p]
+        try:
+            self.i2mc_downsamples = tuple(int(f) for f in ds)
+        except (TypeError, ValueError):
+            raise ParameterError(f"i2mc_downsamples must be whole numbers, got {ds!r}") from None
         for name in ("merge_gap_ms", "merge_distance_deg", "min_fixation_ms", "saccade_max_ms"):
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and np.isfinite(v) and v >= 0):
