@@ -82,7 +82,7 @@ class AnalysisParams:
         Floor of the adaptive I-DT threshold, deg.
     idt_min_duration_ms : float, default 60
         I-DT duration threshold (initial window), ms.
-    ivt_method : {"nh2010", "ek2003"}, default "nh2010"
+    ivt_method : {"ek2003", "nh2010"}, default "ek2003"
         Data-driven velocity threshold rule.
     ivt_velocity_window_ms : float, default 20
         Savitzky-Golay derivative window, ms (at least 3 samples).
@@ -130,7 +130,7 @@ class AnalysisParams:
     idt_noise_factor: float = 3.5
     idt_min_dispersion_deg: float = 1.5
     idt_min_duration_ms: float = 60.0
-    ivt_method: str = "nh2010"
+    ivt_method: str = "ek2003"
     ivt_velocity_window_ms: float = 20.0
     ivt_initial_threshold_deg_s: float = 200.0
     ivt_sd_factor: float = 6.0

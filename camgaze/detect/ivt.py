@@ -132,7 +132,7 @@ def nh2010_thresholds(speed_deg_s, *, initial_deg_s: float = 200.0, sd_factor: f
     return pt, mu + onset_sd_factor * sd
 
 
-def detect_ivt(t_s, yaw_deg, pitch_deg, usable, *, method: str = "nh2010", velocity_window_ms: float = 20.0,
+def detect_ivt(t_s, yaw_deg, pitch_deg, usable, *, method: str = "ek2003", velocity_window_ms: float = 20.0,
                initial_threshold_deg_s: float = 200.0, sd_factor: float = 6.0, onset_sd_factor: float = 3.0,
                ek_lambda: float = 6.0, noise_rms_s2s_deg: float | None = None) -> Candidates:
     """Fixation candidates by I-VT with a data-driven velocity threshold.
@@ -141,7 +141,7 @@ def detect_ivt(t_s, yaw_deg, pitch_deg, usable, *, method: str = "nh2010", veloc
     ----------
     t_s, yaw_deg, pitch_deg, usable : array_like, shape (n,)
         Times (s), angles (deg), usable-sample mask.
-    method : {"nh2010", "ek2003"}
+    method : {"ek2003", "nh2010"}, default "ek2003"
         Threshold rule, see the module docstring.
     velocity_window_ms : float, default 20
         Savitzky-Golay derivative window in ms (at least 3 samples).
