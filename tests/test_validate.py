@@ -48,7 +48,8 @@ def session(tmp_path_factory):
 def _params(**kw):
     from camgaze.analysis import AnalysisParams
 
-    return ValidateParams(analysis=AnalysisParams(window_s=5.0, step_s=5.0), **kw)
+    # the detector is pinned so that these figures test the validation, not a change of the default detector
+    return ValidateParams(analysis=AnalysisParams(detector="i2mc", window_s=5.0, step_s=5.0), **kw)
 
 
 def test_pair_against_bids_writes_every_output(session, tmp_path):
@@ -173,7 +174,7 @@ def test_study_manifest_pooled_and_summary(session, tmp_path):
 def test_cli_pair_and_errors(session, tmp_path, capsys):
     out = tmp_path / "cli"
     rc = main(["validate", str(session["cam"]), str(session["ref"]["table"]), "-o", str(out), "--mapping",
-               str(session["ref"]["mapping"]), "--window-s", "5", "--no-figures"])
+               str(session["ref"]["mapping"]), "--window-s", "5", "--detector", "i2mc", "--no-figures"])
     assert rc == 0
     line = capsys.readouterr().out
     assert "offset -1.25" in line and "kappa" in line
