@@ -458,6 +458,8 @@ def analyse_table(path, out_dir, *, time_col: str | None = None, time_unit: str 
             mapping = TableMapping(time_col=time_col, time_unit=time_unit, x_col=x_col, y_col=y_col, units=units,
                                    screen=screen, validity_col=validity_col, delimiter=delimiter,
                                    zero_time=False)
+        if mapping.zero_time:  # events stay on the table's own time axis
+            mapping = dataclasses.replace(mapping, zero_time=False)
         samples = read_gaze_table(path, mapping)
     seg_df = read_segments(segments) if isinstance(segments, (str, Path)) else segments
     result = run_analysis(samples, params, segments=seg_df, source=str(path))

@@ -135,3 +135,16 @@ def test_entry_point_runs_as_a_program(tmp_path):
     assert (tmp_path / "o" / "events.csv").is_file()
     ev = pd.read_csv(tmp_path / "o" / "events.csv")
     assert (ev.type == "fixation").sum() >= 5 and np.isfinite(ev.duration_ms).all()
+
+
+def test_saved_mapping_keeps_the_tables_own_clock(tmp_path):
+    from camgaze.reference import TableMapping
+
+    src = tmp_path / "p04_s01.csv"
+    _px_table(src, delimiter=",", t0_ms=120000.0)
+    m = TableMapping(time_col="time", time_unit="ms", x_col="gx", y_col="gy", units="px", screen=SCREEN)
+    m.save(tmp_path / "mapping.json")
+    out = tmp_path / "out"
+    assert main(["events", str(src), "-o", str(out), "--mapping", str(tmp_path / "mapping.json")]) == 0
+    ev = pd.read_csv(out / "events.csv")
+    assert ev["onset_s"].min() == pytest.approx(120.0, abs=1e-6)

@@ -166,7 +166,6 @@ def _trim_edges(t_s, x, y, starts, ends, k_mad: float) -> tuple[np.ndarray, np.n
     if not len(starts):
         return starts, ends
     n = len(x)
-    member = np.zeros(n, dtype=bool)
     d = np.zeros(n + 1, dtype=np.int64)
     np.add.at(d, starts, 1)
     np.add.at(d, ends, -1)
@@ -185,13 +184,11 @@ def _trim_edges(t_s, x, y, starts, ends, k_mad: float) -> tuple[np.ndarray, np.n
     pos = pd.Series(sel[inside]).groupby(g[inside])
     first = pos.min()
     last = pos.max()
-    ng = len(starts)
     new_s = np.asarray(starts).copy()
     new_e = np.asarray(starts).copy()  # empty unless some sample is inside
     new_s[first.index.to_numpy()] = first.to_numpy()
     new_e[last.index.to_numpy()] = last.to_numpy() + 1
     keep = new_e > new_s
-    del ng
     return new_s[keep], new_e[keep]
 
 
