@@ -55,7 +55,7 @@ TRUTH_COLUMNS = {
     "head_z_mm": "head origin, camera frame z, mm",
     "eye_in_head_yaw_deg": "gaze yaw relative to the head, deg",
     "eye_in_head_pitch_deg": "gaze pitch relative to the head, deg",
-    "right_iris_x_px": "picture x of the subject's right iris centre, px",
+    "right_iris_x_px": "picture x of the subject's right iris centre, px (empty when the face is hidden)",
     "right_iris_y_px": "picture y of the subject's right iris centre, px",
     "left_iris_x_px": "picture x of the subject's left iris centre, px",
     "left_iris_y_px": "picture y of the subject's left iris centre, px",
@@ -334,6 +334,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 frame = img
                 pts_s = writer.write(rotate_for_storage(frame, rotation_deg), float(times[i]))
                 dist = [float(np.linalg.norm(iris_mm[e])) for e in EYES]
+                if not visible[i]:  # no face drawn: no iris in the picture
+                    iris_uv = {e: (np.nan, np.nan) for e in EYES}
                 rows.append({
                     "frame_index": i, "t_s": float(times[i]), "pts_s": pts_s,
                     "yaw_deg": float(r.yaw_deg), "pitch_deg": float(r.pitch_deg), "blink": bool(r.blink),

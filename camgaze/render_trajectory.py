@@ -130,10 +130,17 @@ class Trajectory:
         t_s = np.asarray(t_s, dtype=float)
         s = self.samples
         out = {"t_s": t_s}
-        tt = s["t_s"].to_numpy()
-        for c in ("yaw_deg", "pitch_deg", "lid_closure", "head_yaw_deg", "head_pitch_deg", "head_roll_deg",
-                  "head_x_mm", "head_y_mm", "head_z_mm"):
-            out[c] = np.interp(t_s, tt, s[c].to_numpy(dtype=float))
+        tt = s["t_s"].to_numpy(dtype=float)
+        defaults = {"head_yaw_deg": 0.0, "head_pitch_deg": 0.0, "head_roll_deg": 0.0, "head_x_mm": 0.0,
+                    "head_y_mm": 0.0, "head_z_mm": DEFAULT_HEAD_Z_MM}
+        for c in ("yaw_deg", "pitch_deg", "lid_closure", *defaults):
+            if c in s.columns:
+                v = s[c].to_numpy(dtype=float)
+            elif c == "lid_closure":  # a table with only a blink flag: lids fully closed while it is set
+                v = s["blink"].to_numpy(dtype=bool).astype(float) if "blink" in s.columns else np.zeros(len(tt))
+            else:
+                v = np.full(len(tt), defaults[c])
+            out[c] = np.interp(t_s, tt, v)
         out["blink"] = out["lid_closure"] >= 0.5
         return pd.DataFrame(out)
 

@@ -135,6 +135,15 @@ def test_trajectory_from_table_checks_its_input():
         Trajectory.from_samples(pd.DataFrame({"t_s": [0, 1], "yaw_deg": [0, np.nan], "pitch_deg": 0}))
 
 
+def test_trajectory_without_lid_or_head_columns_renders(tmp_path):
+    t = np.arange(0, 0.5, 1 / 240)
+    bare = Trajectory(samples=pd.DataFrame({"t_s": t, "yaw_deg": 0.0, "pitch_deg": 0.0, "blink": t > 0.3}),
+                      fixations=pd.DataFrame())
+    res = render_clip(tmp_path / "bare.mp4", bare, size_px=SMALL)
+    assert res.truth["blink"].tolist() == (res.truth["t_s"] > 0.3).tolist()
+    assert (res.truth["head_z_mm"] == 600).all()
+
+
 # ----------------------------------------------------------------------------- geometry
 def test_gaze_vector_and_head_rotation_use_the_schema_frame():
     # schema.py: yaw = atan2(-gx, -gz), pitch = atan2(-gy, hypot(gx, gz)); (0, 0, -1) looks at the camera
@@ -253,6 +262,7 @@ def test_hidden_face_darkness_and_noise(tmp_path):
     assert np.abs(face_c - empty_c).mean() > 20  # the face is gone
     assert empty_c.std(axis=(0, 1)).max() < 6  # plain wall
     assert not res.truth["face_visible"].iloc[6:].any()
+    assert res.truth["right_iris_x_px"].iloc[6:].isna().all() and res.truth["right_iris_x_px"].iloc[:6].notna().all()
 
     dark = render_clip(tmp_path / "dark.mp4", tr, size_px=SMALL, noise_sd=0, darkness=0.4, crf=18)
     fd, _, _ = _decode(dark.path)
