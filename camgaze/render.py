@@ -128,7 +128,7 @@ def _paste_face(targets: list[np.ndarray], name: str, *, centre_px, iris_px: flo
     off = np.asarray(centre_px, float) - k * fc
     h, w = targets[0].shape[:2]
     M = np.array([[k, 0, off[0] + 0.5 * k - 0.5], [0, k, off[1] + 0.5 * k - 0.5]])
-    warped = cv2.warpAffine(np.ascontiguousarray(img), M, (w, h), flags=cv2.INTER_AREA,
+    warped = cv2.warpAffine(np.ascontiguousarray(img), M, (w, h), flags=cv2.INTER_LINEAR,
                             borderMode=cv2.BORDER_CONSTANT).astype(np.float32)
     yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
     rx, ry = 0.95 * k * span[0], 0.85 * k * span[1]

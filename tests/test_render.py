@@ -163,6 +163,27 @@ def test_gaze_vector_and_head_rotation_use_the_schema_frame():
     assert up[0] < 0  # roll > 0: head top towards the subject's right shoulder (picture left)
 
 
+def test_eyelids_follow_vertical_gaze():
+    from camgaze.render_face import LEFT_EYE_CONTOUR, RIGHT_EYE_CONTOUR, load_face
+    from camgaze.render_frame import FaceRig
+
+    rig = FaceRig(load_face("hopper"), Camera(640, 360), background=np.zeros((360, 640, 3), np.uint8))
+    R = np.eye(3)
+    T = rig.rest_origin_mm
+    rest, _ = rig.pose(R, T)
+    up, _ = rig.pose(R, T, eye_pitch_deg=15.0)
+    down, _ = rig.pose(R, T, eye_pitch_deg=-15.0)
+    np.testing.assert_allclose(rig.camera.project(rest), rig.rest_uv, atol=1e-6)  # rest pose = the photo
+    for ids in (RIGHT_EYE_CONTOUR, LEFT_EYE_CONTOUR):
+        top = ids[12]  # middle of the upper lid
+        travel = EYEBALL_RADIUS_MM * np.sin(np.radians(15))
+        assert rest[top, 1] - up[top, 1] == pytest.approx(0.8 * travel, rel=0.05)  # rises (camera -y)
+        assert down[top, 1] - rest[top, 1] == pytest.approx(0.8 * travel, rel=0.05)
+        assert np.allclose(up[ids[0]], rest[ids[0]]) and np.allclose(up[ids[8]], rest[ids[8]])  # corners stay
+    others = np.setdiff1d(np.arange(478), RIGHT_EYE_CONTOUR + LEFT_EYE_CONTOUR)
+    np.testing.assert_allclose(up[others], rest[others])
+
+
 def test_camera_projection():
     cam = Camera(1280, 720, 60.0)
     assert cam.focal_px == pytest.approx(640 / np.tan(np.radians(30)))
@@ -275,6 +296,34 @@ def test_hidden_face_darkness_and_noise(tmp_path):
     sd_clean = (frames[3][wall].astype(float) - frames[4][wall]).std()
     sd_noisy = (fn[3][wall].astype(float) - fn[4][wall]).std()
     assert sd_noisy > 4 * max(sd_clean, 0.5)
+
+
+def test_mpeg4_in_avi(tmp_path):
+    tr = synth_trajectory(duration_s=0.5, seed=1)
+    res = render_clip(tmp_path / "old.avi", tr, size_px=SMALL, codec="mpeg4", bitrate_kbps=800, fps=20)
+    frames, times, _ = _decode(res.path)
+    assert len(frames) == res.frames == 10
+    np.testing.assert_allclose(times, np.arange(10) / 20, atol=1e-6)
+    with pytest.raises(ParameterError, match="variable frame"):
+        render_clip(tmp_path / "vfr.avi", tr, size_px=SMALL, frame_times_s=[0.0, 0.03, 0.07])
+
+
+def test_sample_clips_match_their_truth(repo_root):
+    d = repo_root / "sample_clips"
+    clips = sorted(d.glob("linden_brook_*.mp4"))
+    if not clips:
+        pytest.skip("sample_clips/ not generated (python scripts/make_sample_clips.py)")
+    for clip in clips:
+        meta = json.loads(clip.with_name(clip.stem + "_truth.json").read_text())
+        assert meta["clip_sha256"] == sha256_file(clip), f"{clip.name} changed without its truth"
+        truth = read_truth(clip.with_name(clip.stem + "_truth.csv"))
+        with av.open(str(clip)) as c:
+            st = c.streams.video[0]
+            pts = sorted(float(p.pts * st.time_base) for p in c.demux(st) if p.pts is not None)
+        assert len(pts) == len(truth) == meta["frames"]
+        np.testing.assert_allclose(pts, truth["pts_s"], atol=1e-6)
+    seg = pd.read_csv(d / "segments_p01_s01.csv")
+    assert list(seg.columns) == ["label", "onset_s", "offset_s"] and (seg["offset_s"] > seg["onset_s"]).all()
 
 
 def test_cancel_leaves_no_clip(tmp_path):
