@@ -209,7 +209,6 @@ class FaceRig:
         self.base = np.clip(photo * alpha + background * (1 - alpha) + 0.5, 0, 255).astype(np.uint8)
         self.background = np.ascontiguousarray(background, dtype=np.uint8).copy()
         self.iris_texture = {e: _iris_texture(face.eyes[e].iris_rgb, seed + i) for i, e in enumerate(EYES)}
-        self._anchor_cache = None
 
     # ------------------------------------------------------------------ pose
     def lid_offsets_mm(self, eye_pitch_deg: float) -> np.ndarray:
