@@ -337,3 +337,51 @@ def test_gui_command_registered_and_checks_its_argument(tmp_path, capsys):
     assert args.command == "gui" and args.study.endswith("s.json")
     assert main(["gui", str(tmp_path / "missing.json")]) == 2
     assert "no such study file" in capsys.readouterr().err
+
+
+def test_validation_tab_compares_with_reference_and_exports_report(qtbot, window, processed, tmp_path):
+    from camgaze.reference.demo import write_demo_reference
+    from camgaze.render import synth_trajectory
+
+    truth = synth_trajectory(duration_s=1.5, seed=10).samples  # the trajectory p01_s01 was rendered from
+    lab = processed.parent / "lab"
+    paths = write_demo_reference(truth, lab, stem="p01_s01", offset_s=-0.4, rate_hz=250.0, seed=3)
+    bids = next(Path(p) for p in paths.values() if str(p).endswith("_physio.tsv.gz"))
+    table = next(Path(p) for p in paths.values() if str(p).endswith("_labtracker.csv"))
+    mapping_file = next(Path(p) for p in paths.values() if str(p).endswith("_mapping.json"))
+    assert window.open_study(processed)
+    window.select_clip("p01_s01")
+    window.tabs.setCurrentIndex(2)
+    vv = window.validation_view
+    # a plain table with its column mapping: remembered in the study
+    m = json.loads(mapping_file.read_text())
+    m = {k: v for k, v in m.items() if k not in ("kind", "camgaze_version")}
+    assert vv.set_reference(table, mapping=m)
+    assert window.study.mappings[window.study.relative(table)]["time_col"] == m["time_col"]
+    assert vv.mapping_btn.isEnabled()
+    # the BIDS recording of the same session
+    assert vv.set_reference(bids)
+    assert window.current_clip().reference.kind == "bids"
+    ended = []
+    vv.compared.connect(ended.append)
+    vv.failed.connect(ended.append)
+    assert vv.compare()
+    qtbot.waitUntil(lambda: bool(ended), timeout=120_000)
+    # 1.5 s is too short to find the clock offset by cross-correlation: said in words, no crash
+    assert vv.outcome is None
+    assert "could not be made" in vv.status.text() and "overlap" in vv.status.text()
+    # with the offset given (the simulated tracker's first sample is at -0.4 s on the clip's clock)
+    vv.manual_offset.setChecked(True)
+    vv.offset_spin.setValue(-0.4)
+    ended.clear()
+    assert vv.compare()
+    qtbot.waitUntil(lambda: bool(ended), timeout=120_000)
+    assert vv.outcome is not None, vv.status.text()
+    assert "starts at" in vv.offset_label.text() and "-0.400" in vv.offset_label.text()
+    assert vv.outcome.offset_s == pytest.approx(-0.4)
+    assert vv.model.rowCount() == len(vv.outcome.table)
+    qtbot.waitUntil(vv.canvas.is_current, timeout=30_000)
+    report = vv.export_report(tmp_path / "p01_validation.html")
+    text = report.read_text()
+    assert text.lstrip().lower().startswith("<!doctype html") or "<html" in text.lower()
+    assert "p01" in text or "Bland" in text

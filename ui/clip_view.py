@@ -317,9 +317,12 @@ class ClipView(QWidget):
             self.verdict.setText("No quality figures yet: process the clip to see them.")
             self.verdict.setStyleSheet("color: #555;")
         else:
-            mark = "Usable" if usable else "Not usable"
             colour = "#2e7d32" if usable else "#b26a00"
-            self.verdict.setText(f"<b>{mark}.</b> {verdict}")
+            head, _, rest = str(verdict).partition(":")
+            if head.strip().lower() in ("usable", "not usable"):
+                self.verdict.setText(f"<b>{head.strip()}:</b>{rest}")
+            else:
+                self.verdict.setText(f"<b>{'Usable' if usable else 'Not usable'}.</b> {verdict}")
             self.verdict.setStyleSheet(f"color: {colour};")
 
     @property

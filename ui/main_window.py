@@ -117,6 +117,7 @@ class MainWindow(QMainWindow):
         # clip list
         self.clip_list = QTreeWidget()
         self.clip_list.setHeaderLabels(["Clip", "Status", "Progress", "Face", "Usable"])
+        self.clip_list.headerItem().setToolTip(COL_FACE, "Share of frames in which the face was tracked")
         self.clip_list.setRootIsDecorated(False)
         self.clip_list.setSelectionMode(QAbstractItemView.ExtendedSelection)
         self.clip_list.setContextMenuPolicy(Qt.CustomContextMenu)
@@ -125,7 +126,7 @@ class MainWindow(QMainWindow):
         hdr = self.clip_list.header()
         hdr.setStretchLastSection(False)
         hdr.setSectionResizeMode(COL_NAME, QHeaderView.Stretch)
-        for col, w in ((COL_STATUS, 88), (COL_PROGRESS, 64), (COL_FACE, 44), (COL_USABLE, 48)):
+        for col, w in ((COL_STATUS, 76), (COL_PROGRESS, 52), (COL_FACE, 50), (COL_USABLE, 46)):
             hdr.setSectionResizeMode(col, QHeaderView.Fixed)
             self.clip_list.setColumnWidth(col, w)
         add_btn = QPushButton("Add clips…")
@@ -136,6 +137,7 @@ class MainWindow(QMainWindow):
         self.list_hint.setStyleSheet("color: #555;")
         self.list_hint.setWordWrap(True)
         left = QWidget()
+        left.setMinimumWidth(300)
         lv = QVBoxLayout(left)
         lv.setContentsMargins(4, 4, 0, 4)
         row = QHBoxLayout()
@@ -228,9 +230,10 @@ class MainWindow(QMainWindow):
         self.params_dock.setObjectName("parameters")
         self.params_dock.setWidget(self.params)
         self.params_dock.setFeatures(QDockWidget.DockWidgetMovable | QDockWidget.DockWidgetFloatable)
-        self.params_dock.setMinimumWidth(300)
+        self.params_dock.setMinimumWidth(320)
+        self.params_dock.setMaximumWidth(460)
         self.addDockWidget(Qt.RightDockWidgetArea, self.params_dock)
-        self.resizeDocks([self.params_dock], [320], Qt.Horizontal)
+        self.resizeDocks([self.params_dock], [330], Qt.Horizontal)
 
         self._build_menus()
 
@@ -722,6 +725,8 @@ class MainWindow(QMainWindow):
             self.run_label.setText(message)
 
     def _on_overall(self, frac, remaining_s):
+        if self.run is None or not self.run.is_running():
+            return
         self.overall_bar.setValue(int(round(1000 * frac)))
         self.remaining_label.setText(theme.fmt_duration(None if remaining_s < 0 else remaining_s))
 

@@ -33,6 +33,7 @@ class MappingDialog(QDialog):
         from camgaze.reference.table import read_raw_table
 
         self.path = Path(path)
+        self._initial = dict(initial or {})
         self.mapping = None
         self.samples = None
         self.setWindowTitle(f"Columns of {self.path.name}")
@@ -179,11 +180,15 @@ class MappingDialog(QDialog):
             return None if t == _NONE or not t else t
 
         u = self.units.currentData()
-        d = {"time_col": self.time_col.currentText(), "time_unit": self.time_unit.currentData(),
+        d = {k: v for k, v in self._initial.items() if k not in ("kind", "camgaze_version")}
+        d.update({"time_col": self.time_col.currentText(), "time_unit": self.time_unit.currentData(),
              "x_col": self.x_col.currentText(), "y_col": self.y_col.currentText(), "units": u,
              "origin": self.origin.currentData(), "y_up": self.y_up.isChecked(),
              "validity_col": opt(self.validity_col), "pupil_col": opt(self.pupil_col),
-             "event_col": opt(self.event_col), "screen": None}
+             "event_col": opt(self.event_col), "screen": None})
+        if d.get("y_up") is not None and self._initial.get("y_up") is None and \
+                self.y_up.isChecked() == (u == "deg"):
+            d["y_up"] = None  # the unit's own convention
         if u != "deg":
             d["screen"] = {"width_mm": self.w_mm.value(), "height_mm": self.h_mm.value(),
                            "distance_mm": self.d_mm.value(), "width_px": self.w_px.value(),

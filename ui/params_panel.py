@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 from PySide6.QtCore import Qt, QTimer, Signal
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFormLayout, QGroupBox, QHBoxLayout, QLabel,
-                               QLineEdit, QPushButton, QScrollArea, QSpinBox, QToolButton, QVBoxLayout, QWidget)
+                               QLineEdit, QPushButton, QScrollArea, QSizePolicy, QSpinBox, QVBoxLayout, QWidget)
 
 
 @dataclass(frozen=True)
@@ -94,6 +94,14 @@ _GROUP_TITLES = (("detection", "Fixation detection"), ("idt", "I-DT settings"), 
                  ("more", "More parameters"))
 
 
+def _narrow(w: QWidget) -> None:
+    """Let a field shrink to the panel's width instead of pushing the panel wider."""
+    pol = w.sizePolicy()
+    pol.setHorizontalPolicy(QSizePolicy.Ignored)
+    w.setSizePolicy(pol)
+    w.setMinimumWidth(90)
+
+
 def _guess_spec(name: str, default) -> Spec:
     """Limits from the unit in a field's name, for fields without a :data:`SPECS` entry."""
     label = name.replace("_", " ")
@@ -164,6 +172,8 @@ class ParamsPanel(QWidget):
             lab = QLabel(spec.label)
             lab.setToolTip(spec.help)
             lab.setWordWrap(True)
+            w.setToolTip(w.toolTip() or spec.help)
+            _narrow(w)
             forms[spec.group].addRow(lab, w)
         # segments of the current clip
         seg_box = QGroupBox("Task segments of this clip")
@@ -181,8 +191,12 @@ class ParamsPanel(QWidget):
         sl.addWidget(self.segments_label)
         sl.addLayout(row)
         # processing settings
-        proc = QGroupBox("Processing (applies when clips are processed again)")
+        proc = QGroupBox("Processing settings")
         pf = QFormLayout(proc)
+        note = QLabel("These apply when clips are processed again (face tracking is redone).")
+        note.setWordWrap(True)
+        note.setStyleSheet("color: #555;")
+        pf.addRow(note)
         self.fov = QDoubleSpinBox()
         self.fov.setRange(20, 120)
         self.fov.setDecimals(0)
@@ -190,6 +204,8 @@ class ParamsPanel(QWidget):
         self.fov.setValue(60)
         self.fov.setToolTip("Assumed horizontal field of view of the webcam (laptop webcams: about 60°)")
         self.face = QComboBox()
+        self.face.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
+        self.face.setMinimumContentsLength(10)
         self.face.addItem("the largest face", "largest")
         for i in range(4):
             self.face.addItem(f"face {i + 1} from the left", f"index:{i}")
@@ -197,6 +213,8 @@ class ParamsPanel(QWidget):
         self.max_faces = QSpinBox()
         self.max_faces.setRange(1, 10)
         self.max_faces.setValue(2)
+        for w in (self.fov, self.face, self.max_faces):
+            _narrow(w)
         pf.addRow("Camera field of view", self.fov)
         pf.addRow("Follow", self.face)
         pf.addRow("Faces to look for", self.max_faces)
@@ -228,6 +246,8 @@ class ParamsPanel(QWidget):
     def _make_widget(self, name, spec: Spec, default):
         if spec.choices:
             w = QComboBox()
+            w.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
+            w.setMinimumContentsLength(10)
             for val, text in spec.choices:
                 w.addItem(text, val)
             w.currentIndexChanged.connect(self._changed)

@@ -51,7 +51,7 @@ def fmt(value, unit: str = "", *, digits: int = 1, pct: bool = False) -> str:
     if not math.isfinite(v):
         return "–"
     if pct:
-        return f"{100 * v:.0f} %"
+        return f"{100 * v:.0f}%"
     s = f"{v:.{digits}f}"
     return f"{s} {unit}".strip() if unit and unit != "°" else (s + unit)
 

@@ -100,7 +100,7 @@ def draw_trace(fig, data: TraceData | None, xlim: tuple[float, float]):
         for label, on, _off in data.segments:
             ax.axvline(on, color=theme.SEGMENT_EDGE, lw=0.8, ls="--")
             if ax is ax_y:
-                ax.text(on, 1.0, f" {label}", transform=ax.get_xaxis_transform(), va="bottom", ha="left",
+                ax.text(on, 0.97, f" {label}", transform=ax.get_xaxis_transform(), va="top", ha="left",
                         fontsize=7, color=theme.SEGMENT_EDGE, clip_on=True)
         finite = y[np.isfinite(y)]
         if len(finite):
@@ -156,7 +156,8 @@ class TimeView(QWidget):
         self.zoom_in_btn.clicked.connect(lambda: self.zoom(0.5))
         self.zoom_out_btn.clicked.connect(lambda: self.zoom(2.0))
         self.fit_btn.clicked.connect(self.show_all)
-        self.info = QLabel("Gaze over time – click to move the video there, drag to pan, wheel to zoom.")
+        self.info = QLabel("Gaze over time")
+        self.info.setToolTip("Click the trace to move the video there; drag to pan; mouse wheel to zoom.")
         self.info.setStyleSheet("color: #555;")
         bar = QHBoxLayout()
         bar.addWidget(self.info, 1)

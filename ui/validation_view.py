@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 from PySide6.QtCore import Qt, Signal
-from PySide6.QtWidgets import (QComboBox, QFileDialog, QHBoxLayout, QLabel, QMessageBox, QPushButton, QSplitter,
+from PySide6.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, QHBoxLayout, QLabel, QMessageBox, QPushButton, QSplitter,
                                QTableView, QVBoxLayout, QWidget)
 
 from camgaze import study as study_mod
@@ -32,8 +32,7 @@ class ValidationOutcome:
     Attributes
     ----------
     offset_s : float
-        Clock offset found between webcam and reference (s; reference time =
-        webcam time + offset).
+        Clip time of the reference's first sample (s), as aligned.
     offset_note : str
         How the offset was found / how sure it is.
     table : DataFrame
@@ -85,12 +84,23 @@ class ValidationView(QWidget):
         self.compare_btn.clicked.connect(self.compare)
         self.report_btn = QPushButton("Export report…")
         self.report_btn.clicked.connect(self.export_report_dialog)
+        self.manual_offset = QCheckBox("Offset known:")
+        self.manual_offset.setToolTip("Give the clip time of the reference's first sample yourself instead of "
+                                      "finding it by cross-correlation (needs 5 s of overlap)")
+        self.offset_spin = QDoubleSpinBox()
+        self.offset_spin.setRange(-3600.0, 3600.0)
+        self.offset_spin.setDecimals(3)
+        self.offset_spin.setSuffix(" s")
+        self.offset_spin.setEnabled(False)
+        self.manual_offset.toggled.connect(self.offset_spin.setEnabled)
         top = QHBoxLayout()
         top.addWidget(self.choose_btn)
         top.addWidget(self.mapping_btn)
         top.addWidget(self.compare_btn)
         top.addWidget(self.report_btn)
         top.addStretch(1)
+        top.addWidget(self.manual_offset)
+        top.addWidget(self.offset_spin)
 
         self.offset_label = QLabel("")
         self.offset_label.setWordWrap(True)
@@ -173,7 +183,8 @@ class ValidationView(QWidget):
         s = self.study
         args = dict(out_dir=s.clip_out_dir(self.clip), reference=s.resolve(self.clip.reference.path),
                     kind=self.clip.reference.kind, mapping=self.clip.reference.mapping, analysis=dict(s.analysis),
-                    segments=s.resolve(self.clip.segments) if self.clip.segments else None)
+                    segments=s.resolve(self.clip.segments) if self.clip.segments else None,
+                    offset_s=float(self.offset_spin.value()) if self.manual_offset.isChecked() else None)
         key = self.clip.stem
         self.status.setText("Comparing…")
         self.compare_btn.setEnabled(False)
@@ -252,14 +263,19 @@ class ValidationView(QWidget):
         if self.clip is None or self.clip.stem != key:
             return
         self.outcome = outcome
-        self.offset_label.setText(f"<b>Clock offset:</b> reference = webcam {outcome.offset_s:+.3f} s. "
-                                  f"{outcome.offset_note}")
+        self.offset_label.setText(f"<b>Alignment:</b> the reference recording starts at "
+                                  f"{outcome.offset_s:+.3f} s on the clip's clock. {outcome.offset_note}")
         self.model.set_frame(outcome.table)
         self.table.resizeColumnsToContents()
         self.feature_box.blockSignals(True)
         self.feature_box.clear()
-        feats = list(dict.fromkeys(outcome.pairs["feature"])) if len(outcome.pairs) else []
-        self.feature_box.addItems(feats)
+        if len(outcome.pairs):
+            best, best_n = 0, -1
+            for i, ((feat, scope), g) in enumerate(outcome.pairs.groupby(["feature", "scope"], sort=False)):
+                self.feature_box.addItem(f"{feat} – {scope}s (n = {len(g)})", (feat, scope))
+                if len(g) > best_n:
+                    best, best_n = i, len(g)
+            self.feature_box.setCurrentIndex(best)
         self.feature_box.blockSignals(False)
         self.status.setText("")
         self.clip.validation = {"offset_s": outcome.offset_s, "features": int(len(outcome.table))}
@@ -296,13 +312,14 @@ class ValidationView(QWidget):
 
     def _draw(self, *_):
         o = self.outcome
-        feat = self.feature_box.currentText()
-        if o is None or not len(o.pairs) or not feat:
+        key = self.feature_box.currentData()
+        if o is None or not len(o.pairs) or not key:
             self.canvas.plot(draw_agreement, None, None, "")
             return
-        p = o.pairs[o.pairs["feature"] == feat]
+        feat, scope = key
+        p = o.pairs[(o.pairs["feature"] == feat) & (o.pairs["scope"] == scope)]
         self.canvas.plot(draw_agreement, p["webcam"].to_numpy(dtype=float), p["reference"].to_numpy(dtype=float),
-                         feat)
+                         f"{feat} ({scope}s)")
 
 
 def draw_agreement(fig, webcam, reference, feature: str):
@@ -350,17 +367,56 @@ def draw_agreement(fig, webcam, reference, feature: str):
 
 
 # ------------------------------------------------------------------ library adapters
-def run_validation(*, out_dir, reference, kind, mapping, analysis, segments=None) -> ValidationOutcome:
-    """Call the library's validation for one clip and return what the view shows."""
-    from camgaze import validate  # noqa: PLC0415 - the validation engineer's module
+def run_validation(*, out_dir, reference, kind, mapping, analysis, segments=None,
+                   offset_s: float | None = None) -> ValidationOutcome:
+    """Compare one processed clip with its reference via :func:`camgaze.validate.validate_pair`.
 
-    return _outcome_from(validate, out_dir=out_dir, reference=reference, kind=kind, mapping=mapping,
-                         analysis=analysis, segments=segments)
+    The same detector and parameters as the study's run on both sides; nothing
+    is written (the report is written on request, :func:`write_report`).
+    """
+    from camgaze.analysis import AnalysisParams
+    from camgaze.reference.table import TableMapping
+    from camgaze.validate import ValidateParams, validate_pair
+
+    ap = AnalysisParams.from_dict(analysis) if analysis else AnalysisParams()
+    m = TableMapping.from_dict(mapping) if (kind == "table" and mapping) else None
+    result = validate_pair(out_dir, reference, mapping=m, params=ValidateParams(analysis=ap, offset_s=offset_s),
+                           segments=segments, write=False, figures=False)
+    al = result.alignment
+    note = f"Found by {al.method}"
+    conf = getattr(al, "confidence", float("nan"))
+    if conf == conf:
+        note += f", confidence {conf:.2f} (0-1)"
+    note += "."
+    extra = list(getattr(al, "notes", []) or [])
+    if extra:
+        note += " " + " ".join(extra)
+    return ValidationOutcome(offset_s=float(al.offset_s), offset_note=note, table=result.agreement,
+                             pairs=_long_pairs(result.pairs), result=result)
 
 
-def _outcome_from(validate, **kw) -> ValidationOutcome:
-    raise NotImplementedError("camgaze.validate's entry point is not wired yet")
+def _long_pairs(pairs: pd.DataFrame) -> pd.DataFrame:
+    """Wide ``<feature>_webcam`` / ``<feature>_reference`` columns to rows of (feature, webcam, reference)."""
+    if pairs is None or not len(pairs):
+        return pd.DataFrame(columns=["feature", "scope", "label", "webcam", "reference"])
+    p = pairs[pairs["paired"]] if "paired" in pairs else pairs
+    feats = [c[: -len("_webcam")] for c in p.columns
+             if c.endswith("_webcam") and f"{c[: -len('_webcam')]}_reference" in p.columns
+             and not c.startswith("valid_frac")]
+    rows = [pd.DataFrame({"feature": f, "scope": p.get("scope", ""), "label": p.get("label", ""),
+                          "webcam": p[f"{f}_webcam"].astype(float), "reference": p[f"{f}_reference"].astype(float)})
+            for f in feats]
+    return pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(
+        columns=["feature", "scope", "label", "webcam", "reference"])
 
 
 def write_report(outcome: ValidationOutcome, path) -> Path:
-    raise NotImplementedError("camgaze.validate's report writer is not wired yet")
+    """Write the library's HTML validation report (figures embedded) to ``path``, atomically."""
+    from camgaze.atomic import write_text
+    from camgaze.report import render_pair_figures, render_pair_report
+
+    path = Path(path)
+    if path.suffix.lower() not in (".html", ".htm"):
+        path = path.with_suffix(".html")
+    html = render_pair_report(outcome.result, render_pair_figures(outcome.result))
+    return write_text(path, html)
