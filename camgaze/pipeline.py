@@ -386,6 +386,10 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         from .errors import VideoError
 
         raise VideoError("file not found", path=clip)
+    if clip.is_dir():
+        from .errors import VideoError
+
+        raise VideoError("is a folder, not a video file", path=clip, hint="give the clip file inside it")
     input_sha = sha256_file(clip)
     seg_df = _segments_frame(segments)
     extraction_sha = sha256_json(params.extraction_dict())
