@@ -263,6 +263,18 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
                 report.frames = index
         except av.error.FFmpegError:
             pass
+        # a copy cut short can end without any decoder error: compare with the length the header states
+        if index and last_t is not None and report.stopped_early is None:
+            start = float(st.start_time * tb) if st.start_time is not None else 0.0
+            if st.duration is not None:
+                stated, slack = float(st.duration * tb), 3 * dt_nominal
+            else:  # container length: may include a slightly longer sound track
+                stated = container.duration / 1e6 if container.duration else float("nan")
+                slack = max(3 * dt_nominal, 0.5)
+            got = last_t - start + dt_nominal
+            if np.isfinite(stated) and stated - got > slack:
+                report.stopped_early = (f"frames end at {got:.2f} s but the file's header says {stated:.2f} s "
+                                        "(the file is probably truncated)")
     finally:
         container.close()
     if index == 0:
