@@ -25,6 +25,12 @@ def read_segments(path) -> pd.DataFrame:
     path = Path(path)
     if not path.is_file():
         raise CamgazeInputError("segment file not found", path=path, hint="give a CSV with label,onset_s,offset_s")
+    head = path.read_bytes()[:65536]
+    if not head.strip():
+        raise CamgazeInputError("segment file is empty", path=path, hint="give a CSV with label,onset_s,offset_s")
+    if b"\x00" in head:
+        raise CamgazeInputError("is not a text table (it holds binary data: a spreadsheet or another file renamed?)",
+                                path=path, hint="save it as CSV with a header row label,onset_s,offset_s")
     try:
         df = pd.read_csv(path, sep=None, engine="python", comment="#", dtype=str, keep_default_na=False)
     except Exception as exc:  # pandas raises many kinds of parse errors
