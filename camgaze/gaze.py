@@ -34,6 +34,8 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass
 
+import warnings
+
 import numpy as np
 
 from .geometry import gaze_vector_to_angles, ray_sphere_near
@@ -144,6 +146,13 @@ def smooth_pose(R: np.ndarray, t: np.ndarray, found: np.ndarray, t_s: np.ndarray
     return R, t
 
 
+def _nanmean_quiet(a, *, axis):
+    """``np.nanmean`` without the all-NaN RuntimeWarning (frames without a face are all-NaN rows)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.nanmean(a, axis=axis)
+
+
 def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndarray, iris_px: np.ndarray,
                   iris_diam_px: np.ndarray, corners_px: np.ndarray, ear: np.ndarray, t_s: np.ndarray | None = None,
                   params: GazeParams = GazeParams()) -> tuple[dict, dict]:
@@ -177,9 +186,9 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
     Kinv = np.linalg.inv(K)
 
     # --- metric scale from the iris --------------------------------------
-    diam = np.nanmean(np.where(iris_diam_px > 0, iris_diam_px, np.nan), axis=1) if n else nanv
+    diam = _nanmean_quiet(np.where(iris_diam_px > 0, iris_diam_px, np.nan), axis=1) if n else nanv
     z_iris = f * IRIS_DIAMETER_MM / diam
-    ear_mean = np.nanmean(ear, axis=1) if n else nanv
+    ear_mean = _nanmean_quiet(ear, axis=1) if n else nanv
     open_level = float(np.nanmedian(ear_mean[found])) if found.any() else float("nan")
     aperture_rel = ear_mean / open_level if np.isfinite(open_level) and open_level > 0 else nanv
     eyes_open = found & (aperture_rel >= 0.8)
@@ -219,7 +228,7 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
             g = P - C[ok]
             g /= np.linalg.norm(g, axis=1, keepdims=True)
             g_eyes[ok, e] = g
-    g_bin = np.nanmean(g_eyes, axis=1)
+    g_bin = _nanmean_quiet(g_eyes, axis=1)
     norm = np.linalg.norm(g_bin, axis=1, keepdims=True)
     g_bin = g_bin / np.where(norm > 0, norm, np.nan)
 
