@@ -1,0 +1,86 @@
+"""Single widgets offscreen: column-mapping dialog, parameters panel, plot canvas coordinates."""
+from __future__ import annotations
+
+import pytest
+
+pytest.importorskip("PySide6")
+pytestmark = pytest.mark.gui
+
+
+def test_mapping_dialog_reads_table_and_names_problems(qtbot, tmp_path):
+    from ui.mapping_dialog import MappingDialog
+
+    p = tmp_path / "p01_s01_lab.csv"
+    p.write_text("time_ms,gx_deg,gy_deg,ok\n0,1.0,2.0,1\n4,1.1,2.1,1\n8,n/a,2.2,0\n12,1.3,oops,1\n")
+    dlg = MappingDialog(p)
+    qtbot.addWidget(dlg)
+    assert dlg.time_col.currentText() == "time_ms"  # guessed from the header
+    dlg.time_unit.setCurrentIndex(dlg.time_unit.findData("ms"))
+    dlg.x_col.setCurrentText("gx_deg")
+    dlg.y_col.setCurrentText("gy_deg")
+    dlg.units.setCurrentIndex(dlg.units.findData("deg"))
+    # a non-numeric cell: the dialog stays open and says where
+    assert not dlg.try_accept()
+    assert "p01_s01_lab.csv" in dlg.error.text() and "5" in dlg.error.text()
+    p.write_text("time_ms,gx_deg,gy_deg,ok\n0,1.0,2.0,1\n4,1.1,2.1,1\n8,n/a,2.2,0\n12,1.3,2.3,1\n")
+    assert dlg.try_accept()
+    assert dlg.mapping.time_unit == "ms" and dlg.mapping.units == "deg"
+    assert list(dlg.samples["t_s"]) == pytest.approx([0.0, 0.004, 0.008, 0.012])
+    assert list(dlg.samples["valid"]) == [True, True, False, True]
+    # pixels need a screen: the dialog builds one from its fields
+    dlg.units.setCurrentIndex(dlg.units.findData("px"))
+    assert dlg.mapping_dict()["screen"]["width_px"] == 1920
+
+
+def test_params_panel_emits_validated_params(qtbot):
+    from ui.params_panel import ParamsPanel
+
+    panel = ParamsPanel()
+    qtbot.addWidget(panel)
+    got = []
+    panel.analysis_changed.connect(got.append)
+    panel.set_value("detector", "ivt")
+    assert panel._groups["ivt"].isVisibleTo(panel) and not panel._groups["idt"].isVisibleTo(panel)
+    panel.set_value("merge_gap_ms", 120.0)
+    panel.flush()
+    assert len(got) == 1 and got[0]["detector"] == "ivt" and got[0]["merge_gap_ms"] == 120.0
+    # every AnalysisParams field is offered
+    from dataclasses import fields
+
+    from camgaze.analysis import AnalysisParams
+
+    assert {f.name for f in fields(AnalysisParams)} == set(panel._widgets)
+    # values load back without emitting
+    panel.set_values({"detector": "idt", "min_fixation_ms": 80.0}, {"fov_deg": 70.0})
+    assert panel.values()["detector"] == "idt" and panel.values()["min_fixation_ms"] == 80.0
+    assert panel.process_values()["fov_deg"] == 70.0 and len(got) == 1
+
+
+def test_plot_canvas_maps_pixels_to_data(qtbot):
+    from ui.plot_canvas import PlotCanvas
+
+    c = PlotCanvas()
+    qtbot.addWidget(c)
+    c.resize(400, 300)
+    c.show()
+
+    def draw(fig):
+        ax = fig.add_subplot(1, 1, 1)
+        ax.set_xlim(10, 20)
+        ax.set_ylim(-5, 5)
+
+    with qtbot.waitSignal(c.rendered, timeout=20_000):
+        c.plot(draw)
+    b = c.boxes[0]
+    assert b.xlim == (10.0, 20.0)
+    x, y = b.to_data(b.x0 + 0.25 * b.width, b.y0 + 0.25 * b.height)
+    assert x == pytest.approx(12.5) and y == pytest.approx(2.5)
+    assert c.axes_at(b.x0 + 1, b.y0 + 1) == 0 and c.axes_at(1, 1) is None
+
+    def broken(fig):
+        raise ValueError("no data")
+
+    with qtbot.waitSignal(c.rendered, timeout=20_000):
+        c.plot(broken)
+    assert "no data" in c.message and c.image() is None
+    c.shutdown()
