@@ -3,6 +3,7 @@
 #
 #   bash packaging/build_linux.sh            # uses .venv/bin/python (scripts/_setup.sh makes it)
 #   PYTHON=/path/to/python bash packaging/build_linux.sh
+#   DIST=/tmp/b/dist WORK=/tmp/b/work bash packaging/build_linux.sh   # build elsewhere
 #
 # Installs PyInstaller (the project's "bundle" extra) into that Python if missing,
 # builds from packaging/camgaze.spec, and prints the build time and bundle size.
@@ -10,16 +11,18 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 PY="${PYTHON:-.venv/bin/python}"
+DIST="${DIST:-dist}"
+WORK="${WORK:-build/pyinstaller}"
 if ! "$PY" -c "import PyInstaller" 2>/dev/null; then
   "$PY" -m pip install -q -e ".[gui,bundle]"
 fi
 start=$(date +%s)
 "$PY" -m PyInstaller --noconfirm --clean --log-level WARN \
-  --distpath dist --workpath build/pyinstaller packaging/camgaze.spec
+  --distpath "$DIST" --workpath "$WORK" packaging/camgaze.spec
 end=$(date +%s)
-if [ -d dist/camgaze/_internal/jax ] || [ -d dist/camgaze/_internal/jaxlib ]; then
+if [ -d "$DIST/camgaze/_internal/jax" ] || [ -d "$DIST/camgaze/_internal/jaxlib" ]; then
   echo "build_linux: error: jax ended up in the bundle" >&2
   exit 1
 fi
-size=$(du -sh dist/camgaze | cut -f1)
-echo "build_linux: built dist/camgaze in $((end - start)) s, size $size"
+size=$(du -sh "$DIST/camgaze" | cut -f1)
+echo "build_linux: built $DIST/camgaze in $((end - start)) s, size $size"

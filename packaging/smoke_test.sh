@@ -13,7 +13,7 @@ BIN="${CAMGAZE_BUNDLE:-dist/camgaze/camgaze}"
 [ -x "$BIN" ] || { echo "smoke_test: no bundle at $BIN - run packaging/build_linux.sh first" >&2; exit 1; }
 work=$(mktemp -d)
 trap 'rm -rf "$work"' EXIT
-export HOME="$work/home" QT_QPA_PLATFORM=offscreen XDG_RUNTIME_DIR="$work/run"
+export HOME="$work/home" QT_QPA_PLATFORM=offscreen XDG_RUNTIME_DIR="$work/run" LANG=C.UTF-8
 mkdir -p "$HOME" "$XDG_RUNTIME_DIR" && chmod 700 "$XDG_RUNTIME_DIR"
 # run from an empty folder with a bare PATH, so nothing of the source tree or its venv can be picked up
 BIN_ABS=$(cd "$(dirname "$BIN")" && pwd)/$(basename "$BIN")
@@ -23,18 +23,18 @@ if [ -f "$CLIP" ]; then
 else
   CLIP_ABS="$work/linden_brook_p01_s01.mp4"
   echo "smoke_test: $CLIP not found; rendering a demo clip with the bundle"
-  (cd "$work" && env -i HOME="$HOME" PATH=/usr/bin:/bin QT_QPA_PLATFORM=offscreen \
+  (cd "$work" && env -i HOME="$HOME" LANG=C.UTF-8 PATH=/usr/bin:/bin QT_QPA_PLATFORM=offscreen \
     "$BIN_ABS" render "$CLIP_ABS" --duration-s 4 --size 640x360 --seed 101 --quiet)
 fi
 cd "$work"
-env -i HOME="$HOME" PATH=/usr/bin:/bin QT_QPA_PLATFORM=offscreen "$BIN_ABS" --version
-env -i HOME="$HOME" PATH=/usr/bin:/bin QT_QPA_PLATFORM=offscreen \
+env -i HOME="$HOME" LANG=C.UTF-8 PATH=/usr/bin:/bin QT_QPA_PLATFORM=offscreen "$BIN_ABS" --version
+env -i HOME="$HOME" LANG=C.UTF-8 PATH=/usr/bin:/bin QT_QPA_PLATFORM=offscreen \
   "$BIN_ABS" process "$CLIP_ABS" -o "$work/out" --quiet
 stem=$(basename "${CLIP_ABS%.*}")
 for f in run.json samples.parquet samples.csv events.csv features.csv; do
   [ -s "$work/out/$stem/$f" ] || { echo "smoke_test: missing output $f" >&2; exit 1; }
 done
 grep -q '"usable": true' "$work/out/$stem/run.json" || { echo "smoke_test: demo clip not usable" >&2; exit 1; }
-env -i HOME="$HOME" PATH=/usr/bin:/bin QT_QPA_PLATFORM=offscreen XDG_RUNTIME_DIR="$XDG_RUNTIME_DIR" \
+env -i HOME="$HOME" LANG=C.UTF-8 PATH=/usr/bin:/bin QT_QPA_PLATFORM=offscreen XDG_RUNTIME_DIR="$XDG_RUNTIME_DIR" \
   "$BIN_ABS" app-check
 echo "smoke_test: OK"
