@@ -40,6 +40,15 @@ import contextlib as _contextlib
 import sys as _sys
 
 
+def _flush_c_streams() -> None:
+    try:
+        import ctypes
+
+        ctypes.CDLL(None).fflush(None)
+    except (OSError, AttributeError, TypeError):
+        pass
+
+
 @_contextlib.contextmanager
 def native_stderr_silenced():
     """Send file descriptor 2 to /dev/null for the duration (C++ libraries' start-up chatter).
@@ -60,6 +69,7 @@ def native_stderr_silenced():
         os.dup2(devnull, 2)
         yield
     finally:
+        _flush_c_streams()  # C++ libraries buffer some lines in stdio; let them go to /dev/null
         os.dup2(saved, 2)
         os.close(saved)
         os.close(devnull)

@@ -115,7 +115,7 @@ class FaceTracker:
                 min_detection_confidence=min_detection_confidence,
                 min_tracking_confidence=min_tracking_confidence,
             )
-        self._started = False
+        self._quiet_frames = 8
         self._last_centre: np.ndarray | None = None
         self._last_size: float | None = None
 
@@ -133,10 +133,10 @@ class FaceTracker:
     def process(self, image_rgb: np.ndarray) -> FaceObservation | None:
         """Landmarks of the followed face in one upright RGB frame, or None."""
         h, w = image_rgb.shape[:2]
-        if not self._started:  # the graph prints its start-up lines on the first frame
+        if self._quiet_frames > 0:  # the graph's models print start-up lines on their first frames
+            self._quiet_frames -= 1
             with native_stderr_silenced():
                 res = self._mesh.process(image_rgb)
-            self._started = True
         else:
             res = self._mesh.process(image_rgb)
         faces = res.multi_face_landmarks
