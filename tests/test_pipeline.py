@@ -1,0 +1,131 @@
+"""process_clip / reanalyse / camgaze process on small rendered clips through the real decoder."""
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from camgaze.atomic import sha256_file
+from camgaze.errors import NoFaceError
+from camgaze.pipeline import CacheError, ProcessParams, load_samples, process_clip, reanalyse
+from camgaze.schema import REQUIRED_SAMPLE_COLUMNS, SAMPLE_COLUMNS
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def clip(tmp_path_factory):
+    from camgaze.render import render_clip
+    from camgaze.render_trajectory import synth_trajectory
+
+    d = tmp_path_factory.mktemp("pipe")
+    traj = synth_trajectory(duration_s=3.0, seed=5, task="scene", blink_rate_per_min=30)
+    res = render_clip(d / "p09_s01.mp4", traj, size_px=(640, 360), fps=30.0, seed=5)
+    return res.path
+
+
+@pytest.fixture(scope="module")
+def processed(clip, tmp_path_factory):
+    out = tmp_path_factory.mktemp("out") / "p09_s01"
+    return process_clip(clip, out), out
+
+
+def test_outputs_and_sidecar(processed, clip):
+    res, out = processed
+    for name in ("samples.parquet", "samples.csv", "events.csv", "events.parquet", "features.csv",
+                 "features.parquet", "run.json"):
+        assert (out / name).is_file(), name
+    run = json.loads((out / "run.json").read_text())
+    assert run["input_sha256"] == sha256_file(clip)
+    for name, meta in run["outputs"].items():  # every output listed with the checksum it has on disk
+        assert sha256_file(out / name) == meta["sha256"], name
+    assert run["params"]["fov_deg"] == 60.0 and "analysis" in run["params"]
+    assert run["software"]["mediapipe"] == "0.10.21"
+    assert set(run["columns"]) >= set(REQUIRED_SAMPLE_COLUMNS)
+
+
+def test_samples_table_schema(processed):
+    res, out = processed
+    s = pd.read_parquet(out / "samples.parquet")
+    assert list(s.columns[: len(SAMPLE_COLUMNS)]) == [c.name for c in SAMPLE_COLUMNS]
+    assert s["t_s"].iloc[0] == 0.0 and np.all(np.diff(s["t_s"]) > 0)
+    assert s["valid"].dtype == bool
+    assert s.loc[~s["valid"], "yaw_deg"].isna().all()  # invalid samples carry no angle
+    assert s.loc[s["blink"], "valid"].eq(False).all()
+    csv = pd.read_csv(out / "samples.csv")
+    assert len(csv) == len(s) and np.allclose(csv["t_s"], s["t_s"])
+
+
+def test_summary_and_blinks(processed):
+    res, _ = processed
+    s = res.summary
+    assert s["frames"] == 90 and s["face_found_frac"] > 0.95
+    assert s["usable"] is True and s["verdict"].startswith("Usable")
+    assert s["blink_count"] >= 1  # the trajectory blinks about 1.5 times in 3 s
+
+
+def test_reuse_skips_landmarking_and_damaged_cache_is_rebuilt(processed, clip):
+    res, out = processed
+    again = process_clip(clip, out)
+    assert again.reused_samples
+    pd.testing.assert_frame_equal(again.samples, res.samples)
+    # damage the cache: it is detected by its checksum and never used
+    p = out / "samples.parquet"
+    p.write_bytes(p.read_bytes()[:-100] + b"\0" * 100)
+    with pytest.raises(CacheError, match="checksum"):
+        load_samples(out)
+    rebuilt = process_clip(clip, out)
+    assert not rebuilt.reused_samples
+    pd.testing.assert_frame_equal(load_samples(out), res.samples)
+
+
+def test_reanalyse_changes_results_without_landmarking(processed):
+    from camgaze.analysis import AnalysisParams
+
+    res, out = processed
+    d = AnalysisParams().to_dict()
+    d["window_s"] = 1.0
+    d["step_s"] = 1.0
+    new = reanalyse(out, AnalysisParams.from_dict(d))
+    n_windows = (new.features["scope"] == "window").sum()
+    assert n_windows >= 3
+    run = json.loads((out / "run.json").read_text())
+    assert run["params"]["analysis"]["window_s"] == 1.0
+    assert sha256_file(out / "features.csv") == run["outputs"]["features.csv"]["sha256"]
+
+
+def test_clip_without_face(tmp_path):
+    from camgaze.render import render_clip
+    from camgaze.render_trajectory import synth_trajectory
+
+    traj = synth_trajectory(duration_s=1.0, seed=1)
+    res = render_clip(tmp_path / "empty_room.mp4", traj, size_px=(320, 240), face_visible=[False] * 30)
+    with pytest.raises(NoFaceError, match="empty_room.mp4.*no face"):
+        process_clip(res.path, tmp_path / "out")
+    assert not (tmp_path / "out" / "run.json").exists()
+
+
+def test_cli_reports_bad_clip_and_finishes_the_others(clip, tmp_path):
+    bad = tmp_path / "broken.mp4"
+    bad.write_text("this is not a video")
+    out = tmp_path / "cli"
+    r = subprocess.run([sys.executable, "-m", "camgaze", "process", str(bad), str(clip), "-o", str(out), "--quiet"],
+                       capture_output=True, text=True, timeout=600)
+    assert r.returncode == 1
+    assert "broken.mp4" in r.stderr and "not a readable video" in r.stderr
+    assert "Traceback" not in r.stderr
+    assert (out / clip.stem / "run.json").exists()
+    assert "frames" in r.stdout and "face found" in r.stdout
+
+
+def test_bad_parameters_are_refused():
+    from camgaze.errors import ParameterError
+
+    with pytest.raises(ParameterError, match="field of view"):
+        ProcessParams(fov_deg=5)
+    with pytest.raises(ParameterError, match="face choice"):
+        ProcessParams(face="biggest")
