@@ -158,9 +158,15 @@ def _watch_parent(parent_pid: int, interval_s: float = 0.5) -> None:
             os._exit(3)
 
 
-def _init_local_worker(parent_pid: int) -> None:
-    global _PARENT_PID
+_PROGRESS_QUEUE = None
+_CANCEL_EVENT = None
+
+
+def _init_local_worker(parent_pid: int, progress_queue, cancel_event) -> None:
+    global _PARENT_PID, _PROGRESS_QUEUE, _CANCEL_EVENT
     _PARENT_PID = parent_pid
+    _PROGRESS_QUEUE = progress_queue
+    _CANCEL_EVENT = cancel_event
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     from ._env import quiet_native_logs
 
@@ -168,13 +174,14 @@ def _init_local_worker(parent_pid: int) -> None:
     threading.Thread(target=_watch_parent, args=(parent_pid,), daemon=True, name="camgaze-parent-watch").start()
 
 
-def _local_call(fn, key: str, payload: Any, progress_queue, cancel_event) -> dict:
+def _local_call(fn, key: str, payload: Any) -> dict:
     worker = f"pid {os.getpid()}"
+    q = _PROGRESS_QUEUE
 
     def send(fraction: float, message: str) -> None:
-        progress_queue.put((key, worker, fraction, message))
+        q.put_nowait((key, worker, fraction, message))
 
-    result = fn(payload, _Throttle(send), cancel_event)
+    result = fn(payload, _Throttle(send), _CANCEL_EVENT)
     return {"worker": worker, "result": result}
 
 
@@ -237,9 +244,10 @@ class LocalEngine:
         n = min(self.requested_workers or default_workers(n_tasks=len(todo)), len(todo))
         self.n_workers = n
         ctx = mp.get_context(self.start_method)
-        manager = ctx.Manager()
-        pq = manager.Queue()
-        worker_cancel = manager.Event()
+        # plain queue and event handed to the workers at start-up: no manager process that could
+        # outlive a killed coordinator
+        pq = ctx.Queue()
+        worker_cancel = ctx.Event()
         stop_drain = threading.Event()
 
         def drain() -> None:
@@ -248,7 +256,7 @@ class LocalEngine:
                     item = pq.get(timeout=0.1)
                 except queue_mod.Empty:
                     continue
-                except (EOFError, OSError, BrokenPipeError):
+                except (EOFError, OSError, ValueError):
                     return
                 if on_progress is not None:
                     try:
@@ -262,7 +270,7 @@ class LocalEngine:
 
         def new_pool():
             return cf.ProcessPoolExecutor(max_workers=n, mp_context=ctx, initializer=_init_local_worker,
-                                          initargs=(os.getpid(),))
+                                          initargs=(os.getpid(), pq, worker_cancel))
 
         pool = new_pool()
         running: dict[cf.Future, str] = {}
@@ -273,7 +281,7 @@ class LocalEngine:
                     todo.clear()
                 while todo and len(running) < n:
                     key = todo.pop(0)
-                    running[pool.submit(_local_call, fn, key, payloads[key], pq, worker_cancel)] = key
+                    running[pool.submit(_local_call, fn, key, payloads[key])] = key
                 if not running:
                     break
                 done, _ = cf.wait(list(running), timeout=0.2, return_when=cf.FIRST_COMPLETED)
@@ -314,7 +322,8 @@ class LocalEngine:
             pool.shutdown(wait=True, cancel_futures=True)
             stop_drain.set()
             drainer.join(timeout=2)
-            manager.shutdown()
+            pq.close()
+            pq.join_thread()
 
 
 # --------------------------------------------------------------------------------------------
