@@ -239,7 +239,7 @@ class LocalEngine:
         from concurrent.futures.process import BrokenProcessPool
 
         todo = list(payloads)
-        if not todo:
+        if not todo or (cancel is not None and cancel.is_set()):
             return
         n = min(self.requested_workers or default_workers(n_tasks=len(todo)), len(todo))
         self.n_workers = n
@@ -391,11 +391,13 @@ class DaskEngine:
         used instead of ``address``.
     client : distributed.Client, optional
         An existing client; used as is and not closed.
+    connect_timeout_s : float, default 20
+        How long to try reaching the scheduler, s.
     """
 
     name = "dask"
 
-    def __init__(self, *, address: str | None = None, cluster=None, client=None):
+    def __init__(self, *, address: str | None = None, cluster=None, client=None, connect_timeout_s: float = 20.0):
         if address is None and cluster is None and client is None:
             from .errors import ParameterError
 
@@ -403,6 +405,7 @@ class DaskEngine:
         self.address = address
         self.cluster = cluster
         self._client = client
+        self.connect_timeout_s = float(connect_timeout_s)
         self.n_workers = 0
 
     def describe(self) -> str:
@@ -418,7 +421,7 @@ class DaskEngine:
             return self._client, False
         target = self.cluster if self.cluster is not None else self.address
         try:
-            client = Client(target, timeout="20s", set_as_default=False)
+            client = Client(target, timeout=f"{self.connect_timeout_s}s", set_as_default=False)
         except (OSError, TimeoutError) as exc:
             raise CamgazeError(f"cannot reach the Dask scheduler at {self.address}: {exc} - start it with "
                                "'dask scheduler' and check the address and firewall") from None
@@ -427,7 +430,7 @@ class DaskEngine:
     def run(self, fn: Callable, payloads: dict[str, Any], *, on_progress: Callable[[ProgressEvent], None] | None = None,
             cancel=None) -> Iterator[TaskOutcome]:
         """Same contract as :meth:`LocalEngine.run`; ``fn`` runs on the cluster's workers."""
-        if not payloads:
+        if not payloads or (cancel is not None and cancel.is_set()):
             return
         from distributed import Event, as_completed
 
@@ -452,7 +455,7 @@ class DaskEngine:
                 fut = client.submit(_dask_call, fn, key, payload, topic, cancel_name, pure=False,
                                     key=f"camgaze-clip-{key}-{token}")
                 futures[fut] = key
-            ac = as_completed(list(futures), with_results=False)
+            ac = as_completed(list(futures), with_results=False, loop=client.loop)
             cancelled = False
             pending = set(futures)
             while pending:
