@@ -48,6 +48,7 @@ import json
 import os
 import socket
 import sys
+import threading
 import time
 import traceback
 import uuid
@@ -382,6 +383,7 @@ class _Board:
         self.worker_bars: dict[str, Any] = {}
         self.n_workers = max(1, n_workers)
         self.bar = None
+        self._lock = threading.Lock()  # fed from the engine's progress thread and the coordinator
         if enabled:
             from tqdm import tqdm
 
@@ -411,6 +413,10 @@ class _Board:
                 self.callback(share, message)
 
     def on_progress(self, ev) -> None:
+        with self._lock:
+            self._on_progress(ev)
+
+    def _on_progress(self, ev) -> None:
         self.frac[ev.key] = max(self.frac.get(ev.key, 0.0), min(1.0, float(ev.fraction)) * 0.999)
         if self.bar is not None:
             wb = self.worker_bars.get(ev.worker)
@@ -426,10 +432,11 @@ class _Board:
         self._push(f"{ev.key}: {ev.message}")
 
     def finished(self, key: str, status: str) -> None:
-        self.frac[key] = 1.0
-        if status in self.counts:
-            self.counts[status] += 1
-        self._push(f"{key}: {status}")
+        with self._lock:
+            self.frac[key] = 1.0
+            if status in self.counts:
+                self.counts[status] += 1
+            self._push(f"{key}: {status}")
 
     def close(self) -> None:
         for wb in self.worker_bars.values():

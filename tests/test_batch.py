@@ -330,3 +330,14 @@ def test_engine_parameters_checked():
         LocalEngine(start_method="fork")
     assert default_workers(n_tasks=1) == 1
     assert 1 <= default_workers() <= (os.cpu_count() or 1)
+
+
+def test_progress_bars_for_study_and_workers(tmp_path, capsys):
+    src = _clips(tmp_path / "clips", {f"p0{i}.mp4": f"clip {i}".encode() for i in range(1, 4)})
+    shares = []
+    res = _run(src, tmp_path / "out", workers=2, show_progress=True, progress=lambda f, m: shares.append(f))
+    assert res.counts["done"] == 3
+    err = capsys.readouterr().err
+    assert "study:" in err and "3/3 clips, 0 failed" in err
+    assert "p01" in err or "p02" in err  # a worker bar names the clip it is on
+    assert shares == sorted(shares) and shares[-1] == pytest.approx(1.0)  # the study share only grows

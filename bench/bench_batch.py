@@ -1,0 +1,63 @@
+"""Batch throughput with 2 local workers against 1 (prints figures; not a test).
+
+Renders one clip of the reading-pilot scenario and copies it to ``--clips``
+files (each is processed in full - the batch does not notice equal
+contents), then runs :func:`camgaze.batch.run_batch` on the set with one and
+with two worker processes into fresh output folders, and prints the wall
+times and their ratio. Worker start-up (spawning, loading the face mesh) is
+included, as a user would see it. The target on a 2-core machine is at
+least 1.8x.
+
+Run: ``python bench/bench_batch.py [--clips 6] [--seconds 12] [--workers 1 2]``
+"""
+from __future__ import annotations
+
+import argparse
+import shutil
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from bench_pipeline import machine, render_test_clip  # noqa: E402
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--clips", type=int, default=6, help="clips in the set (default 6)")
+    ap.add_argument("--seconds", type=float, default=12.0, help="length of each clip in seconds (default 12)")
+    ap.add_argument("--size", default="640x360", help="picture size WxH (default 640x360)")
+    ap.add_argument("--workers", type=int, nargs="+", default=[1, 2], help="worker counts to compare (default 1 2)")
+    args = ap.parse_args(argv)
+    from camgaze.batch import run_batch
+
+    w, h = (int(v) for v in args.size.lower().split("x"))
+    print(f"machine: {machine()}")
+    times: dict[int, float] = {}
+    with tempfile.TemporaryDirectory() as d:
+        d = Path(d)
+        one = render_test_clip(d / "render" / "reading.mp4", duration_s=args.seconds, size_px=(w, h))
+        src = d / "clips"
+        src.mkdir()
+        for i in range(args.clips):
+            shutil.copy(one, src / f"p{i + 1:02d}_s01.mp4")
+        for n in args.workers:
+            t0 = time.perf_counter()
+            res = run_batch(src, d / f"out_{n}", workers=n)
+            times[n] = time.perf_counter() - t0
+            assert res.counts["done"] == args.clips, res.status
+            frames = int(res.status["frames"].sum())
+            print(f"{n} worker(s): {times[n]:7.1f} s for {args.clips} clips ({frames} frames, {w}x{h}), "
+                  f"{frames / times[n]:6.1f} frames/s", flush=True)
+    base = min(args.workers)
+    for n in args.workers:
+        if n != base:
+            print(f"speed-up {n} vs {base} worker(s): {times[base] / times[n]:.2f}x (target >= 1.8x for 2 vs 1)")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
