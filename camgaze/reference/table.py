@@ -276,6 +276,7 @@ def read_raw_table(path, *, delimiter: str | None = None, comment: str = "#", he
     text = _read_text(path)
     keep, line_no = [], []
     for i, ln in enumerate(text.splitlines(), start=1):
+        ln = ln.replace("\ufeff", "")  # stray byte-order marks (files concatenated from several exports)
         s = ln.strip()
         if not s or (comment and s.startswith(comment)):
             continue
@@ -307,6 +308,8 @@ def read_raw_table(path, *, delimiter: str | None = None, comment: str = "#", he
     try:
         df = pd.read_csv(io.StringIO("\n".join(body)), sep=sep, header=None, dtype=str, keep_default_na=False,
                          engine="python" if sep == r"\s+" else "c", skipinitialspace=True, quotechar='"')
+    except pd.errors.EmptyDataError:
+        raise ReferenceFormatError("the table has no readable cells", path=path) from None
     except pd.errors.ParserError as exc:
         m = re.search(r"line (\d+)", str(exc))
         where = f"row {body_lines[int(m.group(1)) - 1]}" if m and int(m.group(1)) <= len(body_lines) else None
