@@ -12,6 +12,8 @@ Output folder layout::
     OUTDIR/study_features.csv       one row per clip x scope (clip, window, segment), with the labels
     OUTDIR/study_features.parquet   the same table
     OUTDIR/study.json               sidecar: parameters, counts, engine, software version
+    OUTDIR/validation_manifest.csv  when clips have a reference: finished clip folders paired with their
+                                    reference recordings, ready for ``camgaze validate``
     OUTDIR/.batch/attempts.jsonl    append-only log: one fsynced line per finished attempt
     OUTDIR/.batch/hash_index.json   (size, mtime_ns) -> SHA-256 of each clip, so clips are hashed once
     OUTDIR/.batch/errors/<key>.txt  traceback of an internal error
@@ -571,6 +573,27 @@ def build_study_table(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
     return study
 
 
+def validation_manifest(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
+    """Finished clips that have a reference, as a manifest for :func:`camgaze.validate.validate_study`.
+
+    Columns ``webcam`` (the clip's output folder, relative to ``out_dir``),
+    ``reference`` (absolute), ``participant`` (the clip key when the clip has
+    no participant label), ``session``, ``segments``, ``mapping`` and
+    ``offset_s`` (empty where not given).
+    """
+    recs = []
+    for r in rows:
+        j = r.job
+        if j.reference is None or r.status not in ("done", "skipped"):
+            continue
+        recs.append({"webcam": j.key, "reference": str(j.reference),
+                     "participant": j.participant or j.key.replace("+", "_"), "session": j.session or "",
+                     "segments": str(j.segments) if j.segments else "", "mapping": j.labels.get("mapping") or "",
+                     "offset_s": j.labels.get("offset_s") or ""})
+    return pd.DataFrame(recs, columns=["webcam", "reference", "participant", "session", "segments", "mapping",
+                                       "offset_s"])
+
+
 def _write_tables(rows, out_dir: Path, *, meta: dict, final: bool) -> tuple[pd.DataFrame, pd.DataFrame | None, dict]:
     status = _status_table(rows, out_dir)
     paths = {"status": write_csv(out_dir / "status.csv", status)}
@@ -583,6 +606,9 @@ def _write_tables(rows, out_dir: Path, *, meta: dict, final: bool) -> tuple[pd.D
             if pq_study[c].dtype == object:
                 pq_study[c] = pq_study[c].map(lambda v: None if v is None else (v if isinstance(v, (bool, int, float)) else str(v)))
         paths["study_parquet"] = write_parquet(out_dir / "study_features.parquet", pq_study, metadata=meta)
+        if any(r.job.reference is not None for r in rows):
+            paths["validation_manifest"] = write_csv(out_dir / "validation_manifest.csv",
+                                                     validation_manifest(rows, out_dir))
         paths["sidecar"] = write_json(out_dir / "study.json", {**meta, "outputs": {k: Path(v).name for k, v in paths.items()}})
     return status, study, paths
 

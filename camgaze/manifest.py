@@ -10,6 +10,9 @@ Only ``clip`` is required. ``reference`` (a lab-tracker recording of the same
 session) and ``segments`` (task segments: ``label, onset_s, offset_s``) are
 optional paths. ``participant`` and ``session`` are optional labels; any other
 column (``site``, ``group`` ...) is carried as a label into the study table.
+A ``mapping`` column (the saved column mapping of a plain-table reference)
+is resolved like a path, and with ``offset_s`` passed on to the validation
+manifest the batch writes.
 Relative paths are relative to the manifest's own folder. Blank lines and
 lines starting with ``#`` are ignored.
 
@@ -323,6 +326,8 @@ def read_manifest(path) -> list[ClipJob]:
         seen[clip] = lineno
         labels = {h: orig[h] or None for h, n in zip(header, norm)
                   if n not in MANIFEST_PATH_COLUMNS + MANIFEST_LABEL_COLUMNS}
+        if labels.get("mapping"):  # the reference table's saved column mapping: a path like the others
+            labels["mapping"] = str(resolve(labels["mapping"]))
         jobs.append(ClipJob(clip=clip, rel=rec["clip"], reference=resolve(rec.get("reference", "")),
                             segments=resolve(rec.get("segments", "")),
                             participant=rec.get("participant") or None, session=rec.get("session") or None,

@@ -183,11 +183,14 @@ def test_manifest_batch_with_missing_files_segments_and_labels(tmp_path):
     seg = tmp_path / "segments.csv"
     seg.write_text("label,onset_s,offset_s\nstory,0.0,0.2\nquiz,0.2,0.3\n")
     man = tmp_path / "study.csv"
-    man.write_text("clip,participant,session,segments,reference,class\n"
-                   "clips/a/p01.mp4,p01,s01,segments.csv,,3A\n"
-                   "clips/b/p01.mp4,p01,s02,,,3A\n"
-                   "clips/p02.mp4,p02,s01,,ref/none.csv,3B\n"
-                   "clips/gone.mp4,p03,s01,,,3B\n")
+    (tmp_path / "ref").mkdir()
+    (tmp_path / "ref" / "p01_s02.csv").write_text("t,x,y\n0,1,2\n")
+    (tmp_path / "ref" / "p01_s02.json").write_text("{}")
+    man.write_text("clip,participant,session,segments,reference,class,mapping\n"
+                   "clips/a/p01.mp4,p01,s01,segments.csv,,3A,\n"
+                   "clips/b/p01.mp4,p01,s02,,ref/p01_s02.csv,3A,ref/p01_s02.json\n"
+                   "clips/p02.mp4,p02,s01,,ref/none.csv,3B,\n"
+                   "clips/gone.mp4,p03,s01,,,3B,\n")
     out = tmp_path / "out"
     res = _run(man, out)
     st = res.status.set_index("key")
@@ -201,6 +204,12 @@ def test_manifest_batch_with_missing_files_segments_and_labels(tmp_path):
     assert list(seg_rows["label"]) == ["story", "quiz"]
     assert set(res.study["class"]) == {"3A"}
     assert (out / "a__p01").is_dir() and (out / "b__p01").is_dir()
+    # finished clips with a reference are paired for the validation mode
+    from camgaze.validate import read_validation_manifest
+
+    (pair,) = read_validation_manifest(out / "validation_manifest.csv")
+    assert pair.webcam == out / "b__p01" and pair.reference == tmp_path / "ref" / "p01_s02.csv"
+    assert (pair.participant, pair.session, pair.mapping) == ("p01", "s02", tmp_path / "ref" / "p01_s02.json")
     # editing the segments file redoes only the clip that uses it
     again = _run(man, out).status.set_index("key")["status"].to_dict()
     assert again["a__p01"] == "skipped" and again["b__p01"] == "skipped"
