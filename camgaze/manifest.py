@@ -334,7 +334,12 @@ def read_manifest(path) -> list[ClipJob]:
                             labels=labels, row=lineno))
     if not jobs:
         raise CamgazeInputError("manifest lists no clips", path=path, hint="add one row per clip below the header")
-    return assign_keys(jobs)
+    try:
+        return assign_keys(jobs)
+    except CamgazeInputError as exc:
+        if exc.path is not None:
+            raise
+        raise CamgazeInputError(exc.problem, path=path, where=exc.where, hint=exc.hint) from None
 
 
 def load_jobs(source, *, extensions=VIDEO_EXTENSIONS, recursive: bool = True, exclude=(),
