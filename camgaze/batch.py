@@ -391,13 +391,14 @@ class _Board:
 
             self._tqdm = tqdm
             self.bar = tqdm(total=1000, desc="study", position=0, leave=True, dynamic_ncols=True,
-                            bar_format="{desc}: {percentage:3.0f}%|{bar}| {postfix} [{elapsed}<{remaining}]")
+                            bar_format="{desc} {percentage:3.0f}%|{bar}| [{elapsed}<{remaining}]")
             self._postfix()
 
     def _postfix(self) -> None:
         if self.bar is not None:
             c = self.counts
-            self.bar.set_postfix_str(f"{c['done'] + c['failed']}/{self.n_all} clips, {c['failed']} failed", refresh=False)
+            self.bar.set_description_str(f"study: {c['done'] + c['failed']}/{self.n_all} clips, {c['failed']} failed",
+                                         refresh=False)
 
     def _overall(self) -> float:
         return sum(self.weights.get(k, 0.0) * f for k, f in self.frac.items()) / self.total
@@ -424,12 +425,12 @@ class _Board:
             wb = self.worker_bars.get(ev.worker)
             if wb is None and len(self.worker_bars) < 16:
                 wb = self._tqdm(total=100, position=len(self.worker_bars) + 1, leave=False, dynamic_ncols=True,
-                                bar_format="  {desc}: {percentage:3.0f}%|{bar}| {postfix}")
+                                bar_format="  {desc} {percentage:3.0f}%|{bar}|")
                 self.worker_bars[ev.worker] = wb
             if wb is not None:
-                wb.set_description_str(ev.key[:28], refresh=False)
+                msg = ev.message.split(": ", 1)[-1] if ev.message.startswith(ev.key) else ev.message
+                wb.set_description_str(f"{ev.key[:28]}: {msg[:36]:<36}", refresh=False)
                 wb.n = int(round(100 * min(1.0, ev.fraction)))
-                wb.set_postfix_str(ev.message[:40], refresh=False)
                 wb.refresh()
         self._push(f"{ev.key}: {ev.message}")
 
