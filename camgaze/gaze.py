@@ -71,6 +71,15 @@ class GazeParams:
         landmarks jitters by about half a degree - which would move the
         eyeball centre by a third of a millimetre and the gaze by 1-2 deg.
         A centred average has no lag.
+    iris_combine : {"limbus", "fuse"}
+        With ``refine_iris``: use the limbus fit alone, the mesh point only
+        where the fit fails (default), or combine the two
+        (:func:`fuse_iris_centres`). Fusing halves the white part of the
+        noise and raises the pitch correlation on most rendered clips, but
+        what is left is slow, correlated noise that splits fixations under
+        the RMS-S2S-adaptive I-DT threshold (demo clip p01: median fixation
+        133 ms against a true 211 ms, 167 ms with the limbus fit alone), so it
+        is not the default.
     """
 
     blink_rel_threshold: float = 0.6
@@ -78,6 +87,7 @@ class GazeParams:
     refine_iris: bool = True
     max_head_yaw_deg: float = 45.0
     head_smooth_ms: float = 300.0
+    iris_combine: str = "limbus"
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -153,9 +163,72 @@ def _nanmean_quiet(a, *, axis):
         return np.nanmean(a, axis=axis)
 
 
+def _step_noise(x: np.ndarray) -> float:
+    """Robust noise SD of a trace from its sample-to-sample steps (median |step| x 1.4826 / sqrt 2)."""
+    d = np.diff(x[np.isfinite(x)])
+    return float(1.4826 * np.median(np.abs(d)) / np.sqrt(2)) if len(d) >= 10 else float("nan")
+
+
+def _deming_slope(x: np.ndarray, y: np.ndarray, sx: float, sy: float) -> float:
+    """Slope of y on x when both carry noise of SD sx and sy (Deming regression)."""
+    if not (np.isfinite(sx) and np.isfinite(sy)) or sx <= 0:
+        return float("nan")
+    lam = (sy / sx) ** 2
+    xm, ym = x - x.mean(), y - y.mean()
+    sxx, syy, sxy = np.mean(xm * xm), np.mean(ym * ym), np.mean(xm * ym)
+    if sxy == 0:
+        return float("nan")
+    d = syy - lam * sxx
+    return float((d + np.sqrt(d * d + 4 * lam * sxy * sxy)) / (2 * sxy))
+
+
+def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray) -> tuple[np.ndarray, dict]:
+    """Combine the limbus fit and the face mesh's iris point, per eye and picture axis.
+
+    The limbus fit is unbiased but noisy; the mesh's point is steady but
+    follows the eye with too small a gain, vertically in particular (0.2-0.6
+    on rendered clips). So, over the clip's open-eye frames, the mesh point is
+    first mapped onto the limbus scale, ``limbus ~ a + b * mesh``, by Deming
+    regression (Deming 1943) with the two noise variances estimated from
+    their sample-to-sample steps - ordinary least squares would shrink the
+    slope by the mesh's own noise - then the two are averaged with
+    inverse-variance weights. Frames without a
+    limbus fit (NaN) use the rescaled mesh point alone.
+
+    Returns the fused (N, 2, 2) centres and a record (slopes, noise, weights).
+    """
+    out = np.array(mesh_px, float).copy()
+    rec: dict = {}
+    for e, eye in enumerate(("right", "left")):
+        for axis, name in ((0, "x"), (1, "y")):
+            L = limbus_px[:, e, axis]
+            M = mesh_px[:, e, axis]
+            both = ok & np.isfinite(L) & np.isfinite(M)
+            key = f"{eye}_{name}"
+            if both.sum() < 30 or np.std(M[both]) <= 0:
+                out[:, e, axis] = np.where(np.isfinite(L), L, M)
+                rec[key] = {"fused": False}
+                continue
+            b = _deming_slope(M[both], L[both], _step_noise(np.where(both, M, np.nan)),
+                              _step_noise(np.where(both, L, np.nan)))
+            b = float(np.clip(b, 0.5, 5.0)) if np.isfinite(b) else 1.0  # a mesh that does not move cannot be rescaled
+            a = float(np.median(L[both] - b * M[both]))
+            Mc = a + b * M
+            sl, sm = _step_noise(np.where(both, L, np.nan)), _step_noise(np.where(both, Mc, np.nan))
+            wl = 1.0 / sl ** 2 if np.isfinite(sl) and sl > 0 else 0.0
+            wm = 1.0 / sm ** 2 if np.isfinite(sm) and sm > 0 else 0.0
+            if wl + wm == 0:
+                wl = wm = 1.0
+            fused = np.where(np.isfinite(L), (wl * L + wm * Mc) / (wl + wm), Mc)
+            out[:, e, axis] = fused
+            rec[key] = {"fused": True, "mesh_gain": round(b, 3), "limbus_noise_px": round(sl, 3),
+                        "mesh_noise_px": round(sm, 3), "limbus_weight": round(wl / (wl + wm), 3)}
+    return out, rec
+
+
 def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndarray, iris_px: np.ndarray,
                   iris_diam_px: np.ndarray, corners_px: np.ndarray, ear: np.ndarray, t_s: np.ndarray | None = None,
-                  params: GazeParams = GazeParams()) -> tuple[dict, dict]:
+                  iris_mesh_px: np.ndarray | None = None, params: GazeParams = GazeParams()) -> tuple[dict, dict]:
     """Gaze, head pose, distance and blinks for a whole clip.
 
     Parameters
@@ -166,6 +239,10 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
     corners_px : (N, 2, 2, 2) eye corners [eye][outer, inner][x, y].
     ear : (N, 2) eye aspect ratios.
     t_s : (N,) frame times (for the head-pose smoothing window); default 30 fps.
+    iris_mesh_px : (N, 2, 2), optional
+        The face mesh's own iris centres when ``iris_px`` holds the limbus
+        fit (NaN where the fit failed); the two are combined by
+        :func:`fuse_iris_centres`.
 
     Returns
     -------
@@ -215,6 +292,13 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
             offsets[e, :2] = off[:2]
     info["eyeball_offset_mm"] = (offsets * s).round(3).tolist()
     centres_h = eyes_model + offsets  # model mm, head frame
+
+    # --- iris source per axis ---------------------------------------------
+    if iris_mesh_px is not None:
+        if params.iris_combine == "fuse":
+            iris_px, info["iris_fusion"] = fuse_iris_centres(iris_px, iris_mesh_px, eyes_open)
+        else:
+            iris_px = np.where(np.isfinite(iris_px), iris_px, iris_mesh_px)
 
     # --- per-eye gaze -----------------------------------------------------
     head_mid = t * s  # origin of the head frame (eyeball midpoint), mm

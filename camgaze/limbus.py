@@ -150,7 +150,7 @@ def _fit_one(cv2, image, points_px, outline, centre, r, ang, min_points):
     pts = np.c_[qx[keep], qy[keep]]
     if len(pts) < min_points:
         return None
-    c, rr, rms = fit_circle(pts, np.array([cx - x0, cy - y0]), r, r_tol=0.15)
+    c, rr, rms = fit_circle(pts, np.array([cx - x0, cy - y0]), r, r_tol=0.05)
     if not np.all(np.isfinite(c)) or np.hypot(c[0] - (cx - x0), c[1] - (cy - y0)) > r or rms > 1.5:
         return None
     return c + [x0, y0]

@@ -137,8 +137,7 @@ class _Grow:
         return self.a[: self.n]
 
 
-# columns of the per-frame record: pts, found, face_count, R(9), t(3), iris(4), diam(2), corners(8), ear(2)
-_REC = 1 + 1 + 1 + 9 + 3 + 4 + 2 + 8 + 2
+_REC = 1 + 1 + 1 + 9 + 3 + 4 + 2 + 8 + 2 + 4
 
 
 def extract_samples(clip_path, *, params: ProcessParams | None = None, progress: ProgressFn | None = None,
@@ -194,6 +193,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                     row[19:21] = m["iris_diam_px"]
                     row[21:29] = m["corners_px"].ravel()
                     row[29:31] = m["ear"]
+                    row[31:35] = m["iris_px"].ravel()
             rec.append(row)
             if progress is not None and (rec.n % 10 == 0):
                 progress(min(rec.n / n_hint, 0.99), f"{clip.name}: frame {rec.n} of about {n_hint}")
@@ -210,7 +210,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     K = solver.K if solver is not None else np.eye(3)
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=a[:, 15:19].reshape(n, 2, 2), iris_diam_px=a[:, 19:21],
-        corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0], params=params.gaze)
+        corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
+        iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None, params=params.gaze)
     pts = a[:, 0]
     df = pd.DataFrame({
         "t_s": pts - pts[0] if n else pts,
@@ -298,20 +299,6 @@ def _segments_frame(segments):
 
 def _run_json_path(out_dir: Path) -> Path:
     return Path(out_dir) / "run.json"
-
-
-def _withdraw_run_json(out_dir: Path) -> None:
-    """Remove a folder's run.json before any output it vouches for is replaced.
-
-    run.json lists the checksums of the files beside it; once one of them is
-    rewritten it no longer tells the truth. Withdrawing it first means a run
-    killed half-way leaves a folder without run.json (not finished, processed
-    again next time) rather than a run.json that does not match its files.
-    """
-    try:
-        _run_json_path(Path(out_dir)).unlink()
-    except FileNotFoundError:
-        pass
 
 
 def read_run_json(out_dir) -> dict | None:
@@ -448,7 +435,6 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
     if cancel is not None and cancel.is_set():
         raise Cancelled(f"cancelled before writing {clip.name}")
     progress(0.98, f"{clip.name}: writing")
-    _withdraw_run_json(out_dir)
     if reused:
         from .analysis import write_analysis
 
@@ -485,7 +471,6 @@ def reanalyse(out_dir, analysis_params, *, segments=None, write: bool = True):
         run["params"] = params
         run["params_sha256"] = sha256_json(params)
         run["analysis_quality"] = result.quality
-        _withdraw_run_json(out_dir)
         written = write_analysis(result, out_dir, meta=run)
         outputs = dict(run.get("outputs") or {})
         for p in written.values():
