@@ -28,8 +28,8 @@ from .errors import CamgazeInputError
 #: file names (in a clip's output folder) that hold one row or one picture per frame
 PER_FRAME_FILES = ("samples.parquet", "samples.csv")
 #: glob patterns of other per-frame caches and previews a clip folder may hold
-PER_FRAME_GLOBS = ("landmarks*.npz", "landmarks*.parquet", "*.frames.npz", "preview*.png", "preview*.jpg",
-                   ".samples.parquet.*.part", ".samples.csv.*.part")
+#: (``.*.part`` are temporary files of a killed run: they may hold half a samples table)
+PER_FRAME_GLOBS = ("landmarks*.npz", "landmarks*.parquet", "*.frames.npz", "preview*.png", "preview*.jpg", ".*.part")
 #: folders of cached frames inside a clip folder
 PER_FRAME_DIRS = ("frames", "frame_cache", "previews")
 

@@ -504,6 +504,29 @@ def write_segments_corpus(folder, clip: Path) -> list[Case]:
     return cases
 
 
+def write_manifest_corpus(folder, clip: Path) -> list[Case]:
+    """Study manifests with the faults hand-made spreadsheets have (planned with ``camgaze batch --dry-run``)."""
+    d = Path(folder)
+    d.mkdir(parents=True, exist_ok=True)
+    cases = []
+
+    def add(name, data, code, msg=None, why=""):
+        p = d / f"{name}.csv"
+        p.write_bytes(data.encode("utf-8") if isinstance(data, str) else data)
+        cases.append(Case(name, p, "batch", code, msg, why=why))
+
+    add("manifest_good", f"participant,session,clip\np01,s01,{clip}\n", 0, why="control")
+    add("manifest_empty", "", 2, r"manifest_empty\.csv.*empty")
+    add("manifest_binary", bytes(range(256)) * 2, 2, r"manifest_binary\.csv.*not a UTF-8 text", why="a spreadsheet file renamed")
+    add("manifest_no_clip_col", "who,file\np01,a.mp4\n", 2, r"manifest_no_clip_col\.csv.*line 1.*'clip'")
+    add("manifest_dup", f"participant,clip\np01,{clip}\np01,{clip}\n", 2, r"manifest_dup\.csv.*line 3.*twice")
+    add("manifest_extra_cells", f"participant,clip\np01,{clip},x,y\n", 2, r"manifest_extra_cells\.csv.*line 2.*cells",
+        why="an unquoted comma in a cell")
+    add("manifest_case_clash", "participant,clip\np01,a.mp4\np02,A.MP4\n", 2,
+        r"manifest_case_clash\.csv.*same output folder", why="two clips whose folders would collide on Windows/macOS")
+    return cases
+
+
 def main(argv=None) -> int:
     out = Path((argv or sys.argv[1:] or ["camgaze-corpus"])[0])
     cases = write_video_corpus(out / "video") + write_reader_corpus(out / "tables") + write_bids_corpus(out / "bids")

@@ -29,6 +29,8 @@ TABLE_CASES = ("table_good", "table_empty", "table_header_only", "table_binary",
                "table_semicolon", "table_decimal_comma", "table_latin1", "table_gaps", "table_dup_time",
                "table_one_row", "mapping_broken")
 BIDS_CASES = ("bids_truncated_gzip", "bids_no_sidecar", "bids_bad_json", "bids_columns_mismatch", "bids_no_screen")
+MANIFEST_CASES = ("manifest_good", "manifest_empty", "manifest_binary", "manifest_no_clip_col", "manifest_dup",
+                  "manifest_extra_cells", "manifest_case_clash")
 SEGMENT_CASES = ("segments_good", "segments_empty", "segments_missing_col", "segments_reversed", "segments_text",
                  "segments_binary")
 
@@ -67,6 +69,11 @@ def segment_cases(corpus_dir, video_cases):
     return {c.name: c for c in corpus.write_segments_corpus(corpus_dir / "segments", video_cases["good"].path)}
 
 
+@pytest.fixture(scope="session")
+def manifest_cases(corpus_dir, video_cases):
+    return {c.name: c for c in corpus.write_manifest_corpus(corpus_dir / "manifests", video_cases["good"].path)}
+
+
 def _argv(case: corpus.Case, out: Path, *, webcam: Path | None = None) -> list[str]:
     if case.command == "process":
         return ["process", str(case.path), "-o", str(out), "--quiet", "--no-reuse"]
@@ -76,6 +83,8 @@ def _argv(case: corpus.Case, out: Path, *, webcam: Path | None = None) -> list[s
         return ["events", str(case.path), "-o", str(out), *case.args]
     if case.command == "events_mapping":
         return ["events", case.args[0], "--mapping", str(case.path), "-o", str(out)]
+    if case.command == "batch":
+        return ["batch", str(case.path), "-o", str(out), "--dry-run", "--quiet"]
     if case.command == "validate":
         return ["validate", str(webcam), str(case.path), "-o", str(out), "--no-figures", *case.args]
     raise AssertionError(f"unknown corpus command {case.command}")
@@ -114,7 +123,8 @@ def _run_case(case: corpus.Case, out: Path, capsys, *, webcam: Path | None = Non
         assert not (_result_dir(case, out) / "run.json").exists()
 
 
-def test_corpus_lists_every_case(video_cases, reader_cases, bids_cases, segment_cases):
+def test_corpus_lists_every_case(video_cases, reader_cases, bids_cases, segment_cases, manifest_cases):
+    assert set(manifest_cases) == set(MANIFEST_CASES)
     assert set(video_cases) == set(VIDEO_CASES)
     assert set(reader_cases) == set(TABLE_CASES)
     assert set(bids_cases) == set(BIDS_CASES)
@@ -146,6 +156,13 @@ def test_bids_case(name, bids_cases, processed_good, tmp_path, capsys):
 @pytest.mark.parametrize("name", SEGMENT_CASES)
 def test_segments_case(name, segment_cases, tmp_path, capsys):
     _run_case(segment_cases[name], tmp_path / "out", capsys)
+
+
+@pytest.mark.slow
+@pytest.mark.timeout(60)
+@pytest.mark.parametrize("name", MANIFEST_CASES)
+def test_manifest_case(name, manifest_cases, tmp_path, capsys):
+    _run_case(manifest_cases[name], tmp_path / "out", capsys)
 
 
 @pytest.mark.slow

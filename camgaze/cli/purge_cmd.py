@@ -12,7 +12,7 @@ def register(sub) -> None:
         "file's output folder): samples.parquet, samples.csv, landmark and frame caches, previews and "
         "leftover temporary files. Events, features, the study tables and run.json are kept; run.json notes "
         "what was deleted and when. Processing a clip again rebuilds its samples. Asks for confirmation "
-        "unless --yes is given.",
+        "unless --yes is given. Do not run it while clips of the same OUTDIR are being processed.",
     )
     p.add_argument("target", metavar="OUTDIR_OR_STUDY", help="an output folder, a clip's output folder or a study file")
     p.add_argument("--dry-run", action="store_true", help="list what would be deleted, delete nothing")
