@@ -301,6 +301,20 @@ def _run_json_path(out_dir: Path) -> Path:
     return Path(out_dir) / "run.json"
 
 
+def _withdraw_run_json(out_dir: Path) -> None:
+    """Remove a folder's run.json before any output it vouches for is replaced.
+
+    run.json lists the checksums of the files beside it; once one of them is
+    rewritten it no longer tells the truth. Withdrawing it first means a run
+    killed half-way leaves a folder without run.json (not finished, processed
+    again next time) rather than a run.json that does not match its files.
+    """
+    try:
+        _run_json_path(Path(out_dir)).unlink()
+    except FileNotFoundError:
+        pass
+
+
 def read_run_json(out_dir) -> dict | None:
     p = _run_json_path(Path(out_dir))
     if not p.exists():
@@ -435,6 +449,7 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
     if cancel is not None and cancel.is_set():
         raise Cancelled(f"cancelled before writing {clip.name}")
     progress(0.98, f"{clip.name}: writing")
+    _withdraw_run_json(out_dir)
     if reused:
         from .analysis import write_analysis
 
@@ -471,6 +486,7 @@ def reanalyse(out_dir, analysis_params, *, segments=None, write: bool = True):
         run["params"] = params
         run["params_sha256"] = sha256_json(params)
         run["analysis_quality"] = result.quality
+        _withdraw_run_json(out_dir)
         written = write_analysis(result, out_dir, meta=run)
         outputs = dict(run.get("outputs") or {})
         for p in written.values():
