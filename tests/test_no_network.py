@@ -172,3 +172,18 @@ def test_no_native_code_connects_either(demo_clips, tmp_path):
                log)
     assert p.returncode == 0, p.stderr
     assert inet_calls(log) == [], "network connection attempts:\n" + "\n".join(inet_calls(log))
+
+
+@pytest.mark.slow
+@pytest.mark.timeout(600)
+def test_a_batch_run_on_local_worker_processes_is_offline(demo_clips, tmp_path):
+    """``camgaze batch`` with its default engine (local worker processes, which inherit the hook) opens no socket."""
+    env, log = _hook_env(tmp_path)
+    folder = tmp_path / "study"
+    folder.mkdir()
+    (folder / demo_clips[-1].name).symlink_to(demo_clips[-1])
+    p = subprocess.run([sys.executable, "-m", "camgaze", "batch", str(folder), "-o", str(tmp_path / "out"),
+                        "--workers", "1", "--quiet"], env=env, capture_output=True, text=True, timeout=500)
+    assert p.returncode == 0, p.stderr
+    assert (tmp_path / "out" / demo_clips[-1].stem / "run.json").is_file()
+    assert log.read_text() == "", f"network use in the batch run: {log.read_text()}"
