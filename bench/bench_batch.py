@@ -6,13 +6,18 @@ contents), then runs :func:`camgaze.batch.run_batch` on the set with one and
 with two worker processes into fresh output folders, and prints the wall
 times and their ratio. Worker start-up (spawning, loading the face mesh) is
 included, as a user would see it. The target on a 2-core machine is at
-least 1.8x.
+least 1.8x. Also printed: the CPU the worker processes used per second of
+wall time (one worker of the pipeline keeps more than one core busy: decode
+thread, face-mesh threads) and the load average before each run, since
+other processes on the machine change the ratio.
 
 Run: ``python bench/bench_batch.py [--clips 6] [--seconds 12] [--workers 1 2]``
 """
 from __future__ import annotations
 
 import argparse
+import os
+import resource
 import shutil
 import sys
 import tempfile
@@ -45,13 +50,18 @@ def main(argv=None) -> int:
         for i in range(args.clips):
             shutil.copy(one, src / f"p{i + 1:02d}_s01.mp4")
         for n in args.workers:
+            c0 = resource.getrusage(resource.RUSAGE_CHILDREN)
+            load0 = os.getloadavg()[0]
             t0 = time.perf_counter()
             res = run_batch(src, d / f"out_{n}", workers=n)
             times[n] = time.perf_counter() - t0
+            c1 = resource.getrusage(resource.RUSAGE_CHILDREN)
+            cpu = (c1.ru_utime + c1.ru_stime) - (c0.ru_utime + c0.ru_stime)
             assert res.counts["done"] == args.clips, res.status
             frames = int(res.status["frames"].sum())
             print(f"{n} worker(s): {times[n]:7.1f} s for {args.clips} clips ({frames} frames, {w}x{h}), "
-                  f"{frames / times[n]:6.1f} frames/s", flush=True)
+                  f"{frames / times[n]:6.1f} frames/s; workers used {cpu / times[n]:.2f} cores on average "
+                  f"(load average before: {load0:.1f})", flush=True)
     base = min(args.workers)
     for n in args.workers:
         if n != base:
