@@ -38,28 +38,38 @@ def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: flo
                iterations: int = 8, huber_px: float = 1.0) -> tuple[np.ndarray, float, float]:
     """Robust geometric circle fit (centre, radius, RMS residual in px).
 
-    The radius is fitted too but kept within ``r0 * (1 +- r_tol)``.
+    Gauss-Newton on the distances of the points from the circle, with Huber
+    weights (points further than ``huber_px`` count less); the radius is
+    fitted too but kept within ``r0 * (1 +- r_tol)``.
     """
-    c = np.asarray(centre0, float).copy()
+    px = np.ascontiguousarray(points[:, 0], dtype=float)
+    py = np.ascontiguousarray(points[:, 1], dtype=float)
+    cx, cy = float(centre0[0]), float(centre0[1])
     r = float(r0)
+    lo, hi = r0 * (1 - r_tol), r0 * (1 + r_tol)
+    ridge = 1e-6 * np.eye(3)
     for _ in range(iterations):
-        d = points - c
-        dist = np.hypot(d[:, 0], d[:, 1])
-        dist = np.where(dist < 1e-9, 1e-9, dist)
+        dx, dy = px - cx, py - cy
+        dist = np.maximum(np.sqrt(dx * dx + dy * dy), 1e-9)
         res = dist - r
-        w = np.where(np.abs(res) <= huber_px, 1.0, huber_px / np.abs(res))
-        # Jacobian of res wrt (cx, cy, r)
-        J = np.c_[-d[:, 0] / dist, -d[:, 1] / dist, -np.ones(len(d))]
-        JW = J * w[:, None]
-        A = JW.T @ J + 1e-6 * np.eye(3)
-        step = -np.linalg.solve(A, JW.T @ res)
-        c += step[:2]
-        r = float(np.clip(r + step[2], r0 * (1 - r_tol), r0 * (1 + r_tol)))
-        if np.abs(step).max() < 1e-2:
+        ares = np.abs(res)
+        w = np.where(ares <= huber_px, 1.0, huber_px / np.maximum(ares, 1e-12))
+        ux, uy = dx / dist, dy / dist
+        wux, wuy = w * ux, w * uy
+        # the Jacobian of res wrt (cx, cy, r) is (-ux, -uy, -1)
+        A = np.array([[wux @ ux, wux @ uy, wux.sum()],
+                      [wux @ uy, wuy @ uy, wuy.sum()],
+                      [wux.sum(), wuy.sum(), w.sum()]]) + ridge
+        gvec = np.array([wux @ res, wuy @ res, w @ res])
+        step = np.linalg.solve(A, gvec)  # = -(J'WJ)^-1 J'W res
+        cx += step[0]
+        cy += step[1]
+        r = min(max(r + step[2], lo), hi)
+        if abs(step[0]) < 1e-2 and abs(step[1]) < 1e-2 and abs(step[2]) < 1e-2:
             break
-    d = points - c
-    res = np.hypot(d[:, 0], d[:, 1]) - r
-    return c, r, float(np.sqrt(np.mean(res ** 2)))
+    dx, dy = px - cx, py - cy
+    res = np.sqrt(dx * dx + dy * dy) - r
+    return np.array([cx, cy]), r, float(np.sqrt(np.mean(res * res)))
 
 
 def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray, iris_diam_px: np.ndarray,
@@ -94,41 +104,43 @@ def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray
     fitted = np.zeros(2, bool)
     h, w = image.shape[:2]
     ang = np.linspace(0, 2 * np.pi, n_rays, endpoint=False)
+    cos_a, sin_a = np.cos(ang), np.sin(ang)
     for e, outline in enumerate((RIGHT_EYE_OUTLINE, LEFT_EYE_OUTLINE)):
         r = 0.5 * float(iris_diam_px[e])
         c0 = np.array(iris_px[e], float)
         if not (np.isfinite(r) and r >= 2.5 and np.all(np.isfinite(c0))):
             continue
-        cur = c0
+        # the eye region, its smoothed grey picture and the distance to the lids, once per eye
+        x0, x1 = int(max(0, np.floor(c0[0] - 2.6 * r))), int(min(w, np.ceil(c0[0] + 2.6 * r) + 1))
+        y0, y1 = int(max(0, np.floor(c0[1] - 2.6 * r))), int(min(h, np.ceil(c0[1] + 2.6 * r) + 1))
+        if x1 - x0 < 8 or y1 - y0 < 8:
+            continue
+        roi = image[y0:y1, x0:x1]
+        g = roi.astype(np.float32).mean(axis=2) if roi.ndim == 3 else roi.astype(np.float32)
+        g = cv2.GaussianBlur(g, (3, 3), 0.8)
+        mask = np.zeros(g.shape, np.uint8)
+        cv2.fillPoly(mask, [np.round(points_px[list(outline), :2] - [x0, y0]).astype(np.int32)], 1)
+        dist = cv2.distanceTransform(mask, cv2.DIST_L2, 3)
+        radii = np.linspace(0.6 * r, 1.5 * r, max(12, int(np.ceil(1.8 * r))))
+        cur = c0 - [x0, y0]
         for _ in range(passes):
-            nxt = _fit_one(cv2, image, points_px, outline, cur, r, ang, min_points)
-            if nxt is None or np.hypot(*(nxt - c0)) > r:
+            nxt = _fit_one(cv2, g, dist, cur, r, radii, cos_a, sin_a, min_points)
+            if nxt is None or np.hypot(*(nxt - (c0 - [x0, y0]))) > r:
                 break
             cur = nxt
             fitted[e] = True
-        out[e] = cur
+        out[e] = cur + [x0, y0]
     return out, fitted
 
 
-def _fit_one(cv2, image, points_px, outline, centre, r, ang, min_points):
-    """One pass of ray casting from ``centre`` and circle fitting; None when it fails."""
-    h, w = image.shape[:2]
-    n_rays = len(ang)
+def _fit_one(cv2, g, dist, centre, r, radii, cos_a, sin_a, min_points):
+    """One pass of ray casting from ``centre`` (ROI px) and circle fitting; None when it fails."""
     cx, cy = centre
-    x0, x1 = int(max(0, np.floor(cx - 2.0 * r))), int(min(w, np.ceil(cx + 2.0 * r) + 1))
-    y0, y1 = int(max(0, np.floor(cy - 2.0 * r))), int(min(h, np.ceil(cy + 2.0 * r) + 1))
-    if x1 - x0 < 8 or y1 - y0 < 8:
-        return None
-    roi = image[y0:y1, x0:x1]
-    g = roi.astype(np.float32).mean(axis=2) if roi.ndim == 3 else roi.astype(np.float32)
-    g = cv2.GaussianBlur(g, (3, 3), 0.8)
-    poly = (points_px[list(outline), :2] - [x0, y0]).astype(np.float32)
-    radii = np.linspace(0.6 * r, 1.5 * r, max(12, int(np.ceil(1.8 * r))))
-    px = (cx - x0) + np.cos(ang)[:, None] * radii[None, :]
-    py = (cy - y0) + np.sin(ang)[:, None] * radii[None, :]
-    prof = cv2.remap(g, px.astype(np.float32), py.astype(np.float32), cv2.INTER_LINEAR,
-                     borderMode=cv2.BORDER_REPLICATE)
+    px = (cx + cos_a[:, None] * radii[None, :]).astype(np.float32)
+    py = (cy + sin_a[:, None] * radii[None, :]).astype(np.float32)
+    prof = cv2.remap(g, px, py, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
     step = np.diff(prof, axis=1)  # outward dark -> bright is positive
+    n_rays = len(cos_a)
     k = np.arange(n_rays)
     i = np.argmax(step, axis=1)
     peak = step[k, i]
@@ -138,19 +150,16 @@ def _fit_one(cv2, image, points_px, outline, centre, r, ang, min_points):
     inner = (i > 0) & (i < step.shape[1] - 1) & (den < 0)
     frac = np.where(inner, np.clip(0.5 * (a_ - c_) / np.where(den == 0, -1, den), -0.5, 0.5), 0.0)
     rr = np.interp(i + frac + 0.5, np.arange(len(radii)), radii)
-    qx = (cx - x0) + np.cos(ang) * rr
-    qy = (cy - y0) + np.sin(ang) * rr
+    qx = cx + cos_a * rr
+    qy = cy + sin_a * rr
     # inside the eye opening, at least 2 px (distance transform) from the lid outline
-    mask = np.zeros(g.shape, np.uint8)
-    cv2.fillPoly(mask, [np.round(poly).astype(np.int32)], 1)
-    dist = cv2.distanceTransform(mask, cv2.DIST_L2, 3)
     xi = np.clip(np.round(qx).astype(int), 0, g.shape[1] - 1)
     yi = np.clip(np.round(qy).astype(int), 0, g.shape[0] - 1)
     keep = (peak > 2.0) & (dist[yi, xi] >= 2.0)  # > 2 grey levels per sample: a real edge
-    pts = np.c_[qx[keep], qy[keep]]
-    if len(pts) < min_points:
+    if keep.sum() < min_points:
         return None
-    c, rr, rms = fit_circle(pts, np.array([cx - x0, cy - y0]), r, r_tol=0.05)
-    if not np.all(np.isfinite(c)) or np.hypot(c[0] - (cx - x0), c[1] - (cy - y0)) > r or rms > 1.5:
+    pts = np.stack([qx[keep], qy[keep]], axis=1)
+    c, rr, rms = fit_circle(pts, np.array([cx, cy]), r, r_tol=0.05)
+    if not np.all(np.isfinite(c)) or np.hypot(c[0] - cx, c[1] - cy) > r or rms > 1.5:
         return None
-    return c + [x0, y0]
+    return c

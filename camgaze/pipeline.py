@@ -27,6 +27,9 @@ from __future__ import annotations
 import datetime as _dt
 import json
 import platform
+import queue
+import sys
+import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -140,6 +143,48 @@ class _Grow:
 _REC = 1 + 1 + 1 + 9 + 3 + 4 + 2 + 8 + 2 + 4
 
 
+class _FrameGeometry:
+    """Per-frame head pose and eye measurements, as one row of the per-frame record."""
+
+    def __init__(self, params: ProcessParams):
+        self.params = params
+        self.solver: HeadPoseSolver | None = None
+        self.size = None
+        self.size_changes = 0
+
+    def row(self, fr, obs) -> np.ndarray:
+        h, w = fr.image.shape[:2]
+        if self.size != (w, h):
+            if self.size is not None:
+                self.size_changes += 1
+            self.size = (w, h)
+            self.solver = HeadPoseSolver(w, h, fov_deg=self.params.fov_deg)
+        row = np.full(_REC, np.nan)
+        row[0] = fr.pts_s
+        row[1] = 0.0
+        row[2] = 0.0
+        if obs is None:
+            return row
+        row[2] = obs.face_count
+        pose = self.solver.solve(obs.points_px)
+        if pose is None:
+            return row
+        R, t = pose
+        m = frame_measurements(obs.points_px)
+        iris = m["iris_px"]
+        if self.params.gaze.refine_iris:
+            iris, _ = limbus_centres(fr.image, obs.points_px, iris, m["iris_diam_px"])
+        row[1] = 1.0
+        row[3:12] = R.ravel()
+        row[12:15] = t
+        row[15:19] = iris.ravel()
+        row[19:21] = m["iris_diam_px"]
+        row[21:29] = m["corners_px"].ravel()
+        row[29:31] = m["ear"]
+        row[31:35] = m["iris_px"].ravel()
+        return row
+
+
 def extract_samples(clip_path, *, params: ProcessParams | None = None, progress: ProgressFn | None = None,
                     cancel=None) -> tuple[pd.DataFrame, dict]:
     """Decode, landmark and estimate gaze for every frame of a clip.
@@ -157,49 +202,52 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     report = DecodeReport()
     rec = _Grow(_REC, cap=min(max(n_hint + 16, 64), 1 << 20))
     t0 = time.perf_counter()
-    solver = None
-    size = None
-    size_changes = 0
+    geo = _FrameGeometry(params)
     tracker = FaceTracker(max_faces=params.max_faces, face=params.face)
     prefetch = FramePrefetcher(clip, report=report, cancel=cancel)
+    # Three stages overlap: decoding (its own thread), the face mesh (here), and the per-frame
+    # geometry - head pose, iris refinement - for the previous frame (a worker thread). The mesh and
+    # OpenCV release the GIL while they compute; a short switch interval hands it over promptly.
+    old_switch = sys.getswitchinterval()
+    sys.setswitchinterval(0.0005)
+    work: queue.Queue = queue.Queue(maxsize=8)
+    failure: list = []
+
+    def _geometry_worker():
+        try:
+            while True:
+                item = work.get()
+                if item is None:
+                    return
+                rec.append(geo.row(*item))
+        except BaseException as exc:  # noqa: BLE001 - handed to the main thread
+            failure.append(exc)
+            while work.get() is not None:  # drain so the producer never blocks
+                pass
+
+    worker = threading.Thread(target=_geometry_worker, name="camgaze-geometry", daemon=True)
+    worker.start()
+    n_in = 0
     try:
         for fr in prefetch:
             if cancel is not None and cancel.is_set():
                 raise Cancelled(f"cancelled while processing {clip.name}")
-            h, w = fr.image.shape[:2]
-            if size != (w, h):
-                if size is not None:
-                    size_changes += 1
-                size = (w, h)
-                solver = HeadPoseSolver(w, h, fov_deg=params.fov_deg)
-            row = np.full(_REC, np.nan)
-            row[0] = fr.pts_s
-            row[1] = 0.0
-            row[2] = 0.0
+            if failure:
+                raise failure[0]
             obs = tracker.process(fr.image)
-            if obs is not None:
-                row[2] = obs.face_count
-                pose = solver.solve(obs.points_px)
-                if pose is not None:
-                    R, t = pose
-                    m = frame_measurements(obs.points_px)
-                    iris = m["iris_px"]
-                    if params.gaze.refine_iris:
-                        iris, _ = limbus_centres(fr.image, obs.points_px, iris, m["iris_diam_px"])
-                    row[1] = 1.0
-                    row[3:12] = R.ravel()
-                    row[12:15] = t
-                    row[15:19] = iris.ravel()
-                    row[19:21] = m["iris_diam_px"]
-                    row[21:29] = m["corners_px"].ravel()
-                    row[29:31] = m["ear"]
-                    row[31:35] = m["iris_px"].ravel()
-            rec.append(row)
-            if progress is not None and (rec.n % 10 == 0):
-                progress(min(rec.n / n_hint, 0.99), f"{clip.name}: frame {rec.n} of about {n_hint}")
+            work.put((fr, obs))
+            n_in += 1
+            if progress is not None and (n_in % 10 == 0):
+                progress(min(n_in / n_hint, 0.99), f"{clip.name}: frame {n_in} of about {n_hint}")
     finally:
+        work.put(None)
+        worker.join()
+        sys.setswitchinterval(old_switch)
         prefetch.close()
         tracker.close()
+    if failure:
+        raise failure[0]
+    solver, size, size_changes = geo.solver, geo.size, geo.size_changes
     t_land = time.perf_counter() - t0
     a = rec.view()
     n = len(a)
