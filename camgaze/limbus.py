@@ -159,7 +159,7 @@ def _fit_one(cv2, g, dist, centre, r, radii, cos_a, sin_a, min_points):
     if keep.sum() < min_points:
         return None
     pts = np.stack([qx[keep], qy[keep]], axis=1)
-    c, rr, rms = fit_circle(pts, np.array([cx, cy]), r, r_tol=0.05)
+    c, rr, rms = fit_circle(pts, np.array([cx, cy]), r, r_tol=0.15)
     if not np.all(np.isfinite(c)) or np.hypot(c[0] - cx, c[1] - cy) > r or rms > 1.5:
         return None
     return c
