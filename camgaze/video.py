@@ -163,6 +163,29 @@ def _rotation_k(frame) -> int:
     return int(round(float(rot) / 90.0)) % 4
 
 
+def _frame_time(fr, tb, last_t, dt_nominal, report: DecodeReport) -> float:
+    """A frame's presentation time in s; missing or non-increasing stamps are repaired and counted."""
+    if fr.pts is not None:
+        t = float(fr.pts * tb)
+    elif fr.time is not None:
+        t = float(fr.time)
+        report.pts_missing += 1
+    else:
+        t = (last_t + dt_nominal) if last_t is not None else 0.0
+        report.pts_missing += 1
+    if last_t is not None and t <= last_t:
+        report.pts_non_increasing += 1
+        t = last_t + 1e-6
+    return t
+
+
+def _upright_rgb(fr) -> np.ndarray:
+    """The frame as an RGB array with its rotation metadata applied."""
+    img = fr.to_ndarray(format="rgb24")
+    k = _rotation_k(fr)
+    return np.ascontiguousarray(np.rot90(img, k)) if k else img
+
+
 def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
                 max_pixels: int = MAX_PIXELS) -> Iterator[Frame]:
     """Yield the clip's frames in presentation order with container timestamps.
@@ -225,40 +248,18 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
                 report.corrupt_packets += 1
                 continue
             for fr in frames:
-                if fr.pts is not None:
-                    t = float(fr.pts * tb)
-                elif fr.time is not None:
-                    t = float(fr.time)
-                    report.pts_missing += 1
-                else:
-                    t = (last_t + dt_nominal) if last_t is not None else 0.0
-                    report.pts_missing += 1
-                if last_t is not None and t <= last_t:
-                    report.pts_non_increasing += 1
-                    t = last_t + 1e-6
-                last_t = t
+                last_t = _frame_time(fr, tb, last_t, dt_nominal, report)
                 if fr.width * fr.height > max_pixels:
                     raise VideoError(f"picture size {fr.width}x{fr.height} is too large", path=path,
                                      where=f"frame {index}")
-                img = fr.to_ndarray(format="rgb24")
-                k = _rotation_k(fr)
-                if k:
-                    img = np.ascontiguousarray(np.rot90(img, k))
-                yield Frame(index=index, pts_s=t, image=img)
+                yield Frame(index=index, pts_s=last_t, image=_upright_rgb(fr))
                 index += 1
                 report.frames = index
         # flush the decoder
         try:
             for fr in st.codec_context.decode(None):
-                t = float(fr.pts * tb) if fr.pts is not None else ((last_t or 0.0) + dt_nominal)
-                if last_t is not None and t <= last_t:
-                    t = last_t + 1e-6
-                last_t = t
-                img = fr.to_ndarray(format="rgb24")
-                k = _rotation_k(fr)
-                if k:
-                    img = np.ascontiguousarray(np.rot90(img, k))
-                yield Frame(index=index, pts_s=t, image=img)
+                last_t = _frame_time(fr, tb, last_t, dt_nominal, report)
+                yield Frame(index=index, pts_s=last_t, image=_upright_rgb(fr))
                 index += 1
                 report.frames = index
         except av.error.FFmpegError:
@@ -369,11 +370,7 @@ def read_frame_at(path, t_s: float) -> Frame | None:
             if fr.pts is None:
                 continue
             t = float(fr.pts * tb) - first_t
-            img = fr.to_ndarray(format="rgb24")
-            k = _rotation_k(fr)
-            if k:
-                img = np.ascontiguousarray(np.rot90(img, k))
-            best = Frame(index=-1, pts_s=t + first_t, image=img)
+            best = Frame(index=-1, pts_s=t + first_t, image=_upright_rgb(fr))
             if t >= t_s - 1e-6:
                 break
         return best

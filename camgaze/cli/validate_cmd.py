@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import sys
 
+from .table_args import add_table_arguments, mapping_from_args, screen_from_args
+
 
 def register(sub) -> None:
     p = sub.add_parser(
@@ -23,25 +25,7 @@ def register(sub) -> None:
     p.add_argument("--manifest", metavar="CSV", help="study mode: a CSV pairing each webcam folder with its reference")
     p.add_argument("--participant", metavar="ID", help="participant label for the report (one pair)")
     p.add_argument("--session", metavar="ID", help="session label for the report (one pair)")
-    g = p.add_argument_group("columns of a reference table (not needed for BIDS)")
-    g.add_argument("--mapping", metavar="JSON", help="a saved table mapping instead of the column options")
-    g.add_argument("--time-col", metavar="NAME", help="time column")
-    g.add_argument("--time-unit", choices=("s", "ms", "us"), default="s", help="unit of the time column (default s)")
-    g.add_argument("--x-col", metavar="NAME", help="horizontal gaze column")
-    g.add_argument("--y-col", metavar="NAME", help="vertical gaze column")
-    g.add_argument("--units", choices=("deg", "px", "mm", "norm"), default="deg",
-                   help="unit of x/y: degrees (y up), screen pixels, mm on the screen, or normalised 0-1 "
-                        "(origin top left, y down)")
-    g.add_argument("--validity-col", metavar="NAME", help="column telling whether a sample is valid")
-    g.add_argument("--valid-values", nargs="+", metavar="V", help="values of the validity column meaning valid")
-    g.add_argument("--pupil-col", metavar="NAME", help="pupil size column")
-    g.add_argument("--event-col", metavar="NAME", help="per-sample event label column (fixation/saccade/blink)")
-    g.add_argument("--delimiter", metavar="CHAR", help="field delimiter (default: detected)")
-    g.add_argument("--save-mapping", metavar="JSON", help="save the column options as a mapping for reuse")
-    s = p.add_argument_group("screen geometry (for px, mm, norm; BIDS files carry their own)")
-    s.add_argument("--screen-size-mm", nargs=2, type=float, metavar=("W", "H"), help="visible screen size in mm")
-    s.add_argument("--screen-res-px", nargs=2, type=int, metavar=("W", "H"), help="screen resolution in pixels")
-    s.add_argument("--distance-mm", type=float, metavar="D", help="eye-to-screen distance in mm")
+    add_table_arguments(p, title="columns of a reference table (not needed for BIDS)")
     a = p.add_argument_group("time alignment")
     a.add_argument("--offset-s", type=float, metavar="X",
                    help="clip time of the reference's first sample (overrides the automatic alignment)")
@@ -74,31 +58,8 @@ def register(sub) -> None:
 
 
 def _mapping(args):
-    from ..errors import ParameterError
-    from ..reference import TableMapping
-    from ..screen import ScreenGeometry
-
-    screen = None
-    if args.screen_size_mm or args.distance_mm or args.screen_res_px:
-        if not (args.screen_size_mm and args.distance_mm):
-            raise ParameterError("screen geometry needs the size and the distance",
-                                 hint="give --screen-size-mm W H and --distance-mm D (and --screen-res-px W H)")
-        res = args.screen_res_px or (None, None)
-        screen = ScreenGeometry(width_mm=args.screen_size_mm[0], height_mm=args.screen_size_mm[1],
-                                distance_mm=args.distance_mm, width_px=res[0], height_px=res[1])
-    if args.mapping:
-        return TableMapping.load(args.mapping), screen
-    if args.time_col or args.x_col or args.y_col:
-        if not (args.time_col and args.x_col and args.y_col):
-            raise ParameterError("a reference table needs --time-col, --x-col and --y-col together")
-        m = TableMapping(time_col=args.time_col, time_unit=args.time_unit, x_col=args.x_col, y_col=args.y_col,
-                         units=args.units, screen=screen, validity_col=args.validity_col,
-                         validity_values=args.valid_values, pupil_col=args.pupil_col, event_col=args.event_col,
-                         delimiter=args.delimiter)
-        if args.save_mapping:
-            m.save(args.save_mapping)
-        return m, screen
-    return None, screen
+    screen = screen_from_args(args)
+    return mapping_from_args(args, screen), screen
 
 
 def run(args) -> int:
