@@ -332,6 +332,14 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         "decode_problems": {k: v for k, v in meta.get("decode", {}).items() if k != "frames" and v},
     }
     s["usable"], s["verdict"] = _verdict(s)
+    dp = s["decode_problems"]
+    if dp.get("stopped_early"):
+        s["verdict"] += f" Note: the file is damaged - {dp['stopped_early']}; only the part before that was analysed."
+    elif dp.get("corrupt_packets"):
+        s["verdict"] += f" Note: {dp['corrupt_packets']} damaged packet(s) in the file were skipped."
+    if s["multi_face_frac"] > 0.05:
+        s["verdict"] += (f" Several faces were in view in {s['multi_face_frac']:.0%} of frames; "
+                         "one face was followed throughout (the largest, or the one chosen with --face).")
     return s
 
 
