@@ -189,7 +189,7 @@ def _deming_slope(x: np.ndarray, y: np.ndarray, sx: float, sy: float) -> float:
 
 
 def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray, *,
-                      average: bool = True, ref_px: np.ndarray | None = None) -> tuple[np.ndarray, dict]:
+                      average: bool = True) -> tuple[np.ndarray, dict]:
     """Combine the limbus fit and the face mesh's iris point, per eye and picture axis.
 
     The limbus fit is unbiased but noisy; the mesh's point is steady but
@@ -204,9 +204,6 @@ def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray
 
     Returns the fused (N, 2, 2) centres and a record (slopes, noise, weights).
     """
-    ref = np.zeros_like(mesh_px, dtype=float) if ref_px is None else np.nan_to_num(np.asarray(ref_px, float))
-    limbus_px = limbus_px - ref
-    mesh_px = mesh_px - ref
     out = np.array(mesh_px, float).copy()
     rec: dict = {}
     for e, eye in enumerate(("right", "left")):
@@ -239,7 +236,7 @@ def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray
             out[:, e, axis] = fused
             rec[key] = {"fused": True, "mesh_gain": round(b, 3), "limbus_noise_px": round(sl, 3),
                         "mesh_noise_px": round(sm, 3), "limbus_weight": round(wl / (wl + wm), 3)}
-    return out + ref, rec
+    return out, rec
 
 
 def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndarray, iris_px: np.ndarray,
