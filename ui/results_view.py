@@ -101,6 +101,18 @@ def read_events(out_dir: Path) -> pd.DataFrame | None:
     return _read_table(out_dir, "events")
 
 
+def _frame_quantum_ms(d: np.ndarray) -> float | None:
+    """The frame interval the durations are whole multiples of (webcam data), or None."""
+    u = np.unique(np.round(np.asarray(d, float), 3))
+    gaps = np.diff(u)
+    gaps = gaps[gaps > 1.0]
+    if len(u) < 3 or not len(gaps):
+        return None
+    q = float(gaps.min())
+    k = d / q
+    return q if q >= 5.0 and np.all(np.abs(k - np.round(k)) < 0.05) else None
+
+
 def draw_histogram(fig, durations_ms: np.ndarray):
     """Fixation-duration histogram (runs in the drawing thread)."""
     fig.subplots_adjust(left=0.16, right=0.97, top=0.9, bottom=0.15)
@@ -109,7 +121,12 @@ def draw_histogram(fig, durations_ms: np.ndarray):
     if len(d):
         hi = max(100.0, float(np.percentile(d, 99)) * 1.05)
         step = 25.0 if hi <= 1500 else 50.0
-        bins = np.arange(0.0, hi + step, step)
+        start = 0.0
+        q = _frame_quantum_ms(d)
+        if q:  # durations from a camera come in whole frames: one bar per frame count, centred on it
+            step = q * np.ceil(step / q)
+            start = -step / 2
+        bins = np.arange(start, hi + step, step)
         ax.hist(np.clip(d, 0, bins[-1]), bins=bins, color=theme.HIST_COLOUR, edgecolor="white", lw=0.5)
         med = float(np.median(d))
         ax.axvline(med, color=theme.CURSOR_COLOUR, lw=1.2)
