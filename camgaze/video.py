@@ -219,7 +219,8 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
     container = _open(path)
     try:
         st = container.streams.video[0]
-        st.thread_type = "AUTO"
+        # no frame threading: one core decodes 720p at about 400 fps (well ahead of the face mesh), it leaves
+        # the other core to the pipeline, and damaged files decode the same way every time
         w, h = int(st.codec_context.width or 0), int(st.codec_context.height or 0)
         if w * h > max_pixels:
             raise VideoError(f"picture size {w}x{h} is larger than camgaze accepts ({max_pixels / 1e6:.0f} Mpx)",

@@ -163,7 +163,7 @@ TARGETS = {
 }
 
 #: file name each target writes (the error must name it)
-TARGET_FILES = {"table": "gaze_table.csv", "bids": "_physio.tsv.gz", "sidecar": "_physio.", "mapping": "mapping.json",
+TARGET_FILES = {"table": "gaze_table.csv", "bids": "_physio.", "sidecar": "_physio.", "mapping": "mapping.json",
                 "segments": "segments.csv", "manifest": "manifest.csv",
                 "validation_manifest": "validation_manifest.csv"}
 
