@@ -506,12 +506,13 @@ def _default_params():
     return ProcessParams()
 
 
+def _label_names(rows: list[_Row]) -> list[str]:
+    """The extra label columns of the clips (participant and session aside), in first-seen order."""
+    return list(dict.fromkeys(k for r in rows for k in r.job.labels))
+
+
 def _status_table(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
-    extra: list[str] = []
-    for r in rows:
-        for k in r.job.labels:
-            if k not in extra:
-                extra.append(k)
+    extra = _label_names(rows)
     recs = []
     for r in rows:
         j = r.job
@@ -546,11 +547,7 @@ def _read_features(out_dir: Path) -> pd.DataFrame | None:
 
 def build_study_table(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
     """One row per clip x scope for every finished clip, labels first, in clip order."""
-    extra: list[str] = []
-    for r in rows:
-        for k in r.job.labels:
-            if k not in extra:
-                extra.append(k)
+    extra = _label_names(rows)
     parts = []
     for r in rows:
         if r.status not in ("done", "skipped"):
