@@ -277,6 +277,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         "decode": report.to_dict(),
         "gaze_model": ginfo,
         "camera_matrix": K.tolist(),
+        "face_tracking": {"multi_face_from_frame": tracker.multi_face_from_frame,
+                          "check_every_frames": tracker.check_every},
         "landmarking_s": round(t_land, 3),
         "landmarking_fps": round(n / t_land, 1) if t_land > 0 else None,
     }

@@ -1,0 +1,106 @@
+"""Face tracker: fast landmark reading, one-face mode and the move to several faces.
+
+The checks run the real MediaPipe face mesh on the photograph shipped with
+scikit-image and on clips rendered by camgaze.render; the reference for the
+fast reader is the face mesh's own result object read attribute by
+attribute (the library's documented interface).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from camgaze.errors import ParameterError
+from camgaze.landmarks import N_LANDMARKS, FaceTracker, landmarks_array, landmarks_array_slow
+
+
+def _photo():
+    from skimage import data
+
+    return np.ascontiguousarray(data.astronaut())
+
+
+@pytest.fixture(scope="module")
+def mesh_result():
+    from mediapipe.python.solutions import face_mesh
+
+    with face_mesh.FaceMesh(static_image_mode=True, max_num_faces=1, refine_landmarks=True) as fm:
+        res = fm.process(_photo())
+    assert res.multi_face_landmarks, "the face mesh found no face on the shipped photograph"
+    return res.multi_face_landmarks[0]
+
+
+def test_fast_reader_equals_attribute_reads(mesh_result):
+    fast, slow = landmarks_array(mesh_result), landmarks_array_slow(mesh_result)
+    assert fast.shape == (N_LANDMARKS, 3) and fast.dtype == np.float64
+    np.testing.assert_array_equal(fast, slow)  # bit for bit: both are the same float32 values widened
+    assert 0.0 < fast[:, 0].min() < fast[:, 0].max() < 1.0
+
+
+def test_fast_reader_falls_back_on_other_layouts(mesh_result):
+    from mediapipe.framework.formats import landmark_pb2
+
+    other = landmark_pb2.NormalizedLandmarkList()
+    other.CopyFrom(mesh_result)
+    other.landmark[5].visibility = 0.5  # an extra field changes the byte layout
+    other.landmark[7].x = 0.0
+    np.testing.assert_array_equal(landmarks_array(other), landmarks_array_slow(other))
+    assert landmarks_array(other)[7, 0] == 0.0
+    empty = landmark_pb2.NormalizedLandmarkList()
+    assert landmarks_array(empty).shape == (0, 3)
+
+
+def test_bad_tracker_settings():
+    with pytest.raises(ParameterError, match="max_faces"):
+        FaceTracker(max_faces=0)
+    with pytest.raises(ParameterError, match="check_every"):
+        FaceTracker(check_every=0)
+    with pytest.raises(ParameterError, match="face choice"):
+        FaceTracker(face="smallest")
+
+
+def _frames(tmp_path, name, *, extra_faces=0, seconds=1.0, seed=3):
+    from camgaze.render import render_clip, synth_trajectory
+    from camgaze.video import iter_frames
+
+    clip = tmp_path / f"{name}.mp4"
+    render_clip(clip, synth_trajectory(duration_s=seconds, seed=seed), size_px=(640, 360), fps=30.0,
+                seed=seed, extra_faces=extra_faces)
+    return [f.image for f in iter_frames(clip)]
+
+
+def test_one_face_stays_in_one_face_mode(tmp_path):
+    frames = _frames(tmp_path, "one")
+    with FaceTracker(max_faces=2, check_every=5) as tr:
+        obs = [tr.process(im) for im in frames]
+    assert tr.multi_face_mode is False and tr.multi_face_from_frame is None
+    assert all(o is not None and o.face_count == 1 for o in obs)
+
+
+def test_second_face_moves_to_several_and_keeps_the_largest(tmp_path):
+    frames = _frames(tmp_path, "two", extra_faces=1)
+    with FaceTracker(max_faces=2) as tr:
+        obs = [tr.process(im) for im in frames]
+    assert tr.multi_face_from_frame == 0  # the bystander is seen on the first check
+    found = [o for o in obs if o is not None]
+    assert len(found) >= 0.9 * len(frames)
+    assert sum(o.face_count > 1 for o in found) > 0.5 * len(found)
+    # the subject (centre of the picture, the larger face) is followed throughout, never the bystander
+    # placed at 0.87 of the width (camgaze.render)
+    xs = np.array([o.points_px[:, 0].mean() for o in found])
+    assert np.all(np.abs(xs - 320.0) < 0.25 * 640), xs.round()
+    # with max_faces=1 the tracker never looks for a second face
+    with FaceTracker(max_faces=1) as tr1:
+        for im in frames[:5]:
+            tr1.process(im)
+    assert tr1.multi_face_from_frame is None
+
+
+def test_index_choice_follows_the_bystander(tmp_path):
+    frames = _frames(tmp_path, "pick", extra_faces=1, seconds=0.5)
+    with FaceTracker(max_faces=2, face="index:1") as tr:
+        obs = [tr.process(im) for im in frames]
+    found = [o for o in obs if o is not None]
+    assert found
+    xs = np.array([o.points_px[:, 0].mean() for o in found])
+    assert np.all(xs > 0.7 * 640), xs.round()  # face 1 from the left is the one at 0.87 of the width
