@@ -543,3 +543,306 @@ def feature_agreement(webcam, reference, *, feature: str, icc_form: str = DEFAUL
     return FeatureAgreement(feature=feature, n=int(a.size), mean_webcam=mean(a), mean_reference=mean(b),
                             sd_webcam=sd(a), sd_reference=sd(b), pearson=p, spearman=s, ccc=c, icc=i,
                             bland_altman=ba, notes=notes)
+
+
+# ----------------------------------------------------------------------------- repeated measures
+#
+# Windows of one participant are not independent of each other: they share the
+# participant's face, glasses, seat, lighting and reading speed. The two
+# statistics below allow for that.
+#
+# .. [9] Bakdash, J. Z., & Marusich, L. R. (2017). Repeated measures correlation.
+#    Frontiers in Psychology, 8, 456.
+# .. [10] Bland, J. M., & Altman, D. G. (2007). Agreement between methods of
+#    measurement with multiple observations per individual. Journal of
+#    Biopharmaceutical Statistics, 17(4), 571-582.
+
+
+def _missing(v) -> bool:
+    if v is None:
+        return True
+    try:
+        return bool(v != v)  # NaN
+    except TypeError:  # pandas.NA
+        return True
+
+
+def _grouped(a, b, subject) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Complete pairs with their subject codes (0..k-1, in order of first appearance) and the subject labels."""
+    a = np.asarray(a, dtype=float).ravel()
+    b = np.asarray(b, dtype=float).ravel()
+    s = np.asarray(subject, dtype=object).ravel()
+    if not (a.shape == b.shape == s.shape):
+        raise ParameterError(f"paired measurements and subjects must have the same length, got {a.size}, {b.size} "
+                             f"and {s.size}")
+    ok = np.isfinite(a) & np.isfinite(b) & np.array([not _missing(v) for v in s], dtype=bool)
+    a, b, s = a[ok], b[ok], s[ok]
+    labels, first, codes = np.unique(s.astype(str), return_index=True, return_inverse=True)
+    order = np.argsort(first)  # codes in order of first appearance
+    remap = np.empty_like(order)
+    remap[order] = np.arange(order.size)
+    return a, b, remap[codes.ravel()], labels[order]
+
+
+@dataclass(frozen=True)
+class RepeatedMeasuresCorrelation:
+    """Repeated-measures correlation of Bakdash & Marusich (2017).
+
+    The common within-participant association of two measures: each
+    participant may have their own level (intercept), all share one slope.
+
+    Attributes
+    ----------
+    estimate, ci_low, ci_high : float
+        ``r_rm`` and its Fisher-z interval.
+    df : int
+        Error degrees of freedom ``N - k - 1`` (``N`` complete pairs, ``k``
+        participants).
+    n : int
+        Complete pairs used.
+    n_subjects : int
+        Participants with at least one complete pair.
+    slope : float
+        Common within-participant slope of ``b`` on ``a`` (the ANCOVA
+        coefficient), in units of ``b`` per unit of ``a``.
+    p_value : float
+        Two-sided test of ``r_rm = 0`` (t with ``df`` degrees of freedom; the
+        same as the F test of the measure in the ANCOVA).
+    confidence : float
+    method : str
+    """
+
+    estimate: float
+    ci_low: float
+    ci_high: float
+    df: int
+    n: int
+    n_subjects: int
+    slope: float
+    p_value: float
+    confidence: float = 0.95
+    method: str = ""
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def rmcorr(a, b, subject, *, confidence: float = 0.95) -> RepeatedMeasuresCorrelation:
+    """Repeated-measures correlation (Bakdash & Marusich 2017) with its interval and degrees of freedom.
+
+    Parameters
+    ----------
+    a, b : array_like
+        Paired measurements, several per participant (e.g. one per window).
+        Pairs with a missing value are dropped.
+    subject : array_like
+        Participant of each pair (any labels).
+    confidence : float
+        Confidence level of the interval.
+
+    Returns
+    -------
+    RepeatedMeasuresCorrelation
+
+    Notes
+    -----
+    ``r_rm`` is the partial correlation of ``a`` and ``b`` after removing the
+    participants' means, i.e. from the ANCOVA ``b ~ participant + a``:
+    ``r_rm = sign(slope) * sqrt(SS_a / (SS_a + SS_error))`` [9]_, which equals
+    ``sum(a_c b_c) / sqrt(sum(a_c^2) sum(b_c^2))`` with ``a_c``, ``b_c``
+    centred on each participant's mean. Degrees of freedom
+    ``df = N - k - 1``. A participant with a single pair adds nothing to the
+    estimate and nothing to ``df`` (its pair and its intercept cancel).
+    Interval: Fisher z with ``df`` in place of ``n``, i.e.
+    ``tanh(atanh(r_rm) -+ z_q / sqrt(df - 3))``, the convention of the
+    authors' R package (from memory).
+    """
+    confidence = _check_confidence(confidence)
+    a, b, codes, labels = _grouped(a, b, subject)
+    n, k = int(a.size), int(labels.size)
+    df = n - k - 1
+    method = "repeated-measures correlation (Bakdash & Marusich 2017), Fisher z interval with df"
+
+    def nan(reason: str) -> RepeatedMeasuresCorrelation:
+        warnings.warn(f"repeated-measures correlation: {reason} (n={n}, participants={k}); reported as NaN",
+                      AgreementWarning, stacklevel=3)
+        return RepeatedMeasuresCorrelation(NAN, NAN, NAN, df, n, k, NAN, NAN, confidence, method)
+
+    if df < 1:
+        return nan("no within-participant degrees of freedom (every participant needs several pairs)")
+    cnt = np.bincount(codes, minlength=k).astype(float)
+    ac = a - (np.bincount(codes, a, minlength=k) / cnt)[codes]
+    bc = b - (np.bincount(codes, b, minlength=k) / cnt)[codes]
+    saa, sbb, sab = float(ac @ ac), float(bc @ bc), float(ac @ bc)
+    # a spread below rounding noise of the values counts as none
+    tiny = lambda ss, v: ss <= (1e-12 * max(1.0, float(np.max(np.abs(v))))) ** 2 * n  # noqa: E731
+    if tiny(saa, a) or tiny(sbb, b):
+        return nan("one side does not vary within participants")
+    r = float(np.clip(sab / np.sqrt(saa * sbb), -1.0, 1.0))
+    slope = sab / saa
+    if abs(r) >= 1.0:
+        p = 0.0
+    else:
+        t = r * np.sqrt(df / (1.0 - r * r))
+        p = float(2.0 * stats.t.sf(abs(t), df))
+    if df <= 3:
+        warnings.warn(f"repeated-measures correlation: df={df} is too few for a confidence interval",
+                      AgreementWarning, stacklevel=2)
+        lo = hi = NAN
+    else:
+        lo, hi = _fisher_ci(r, 1.0 / np.sqrt(df - 3), confidence)
+    return RepeatedMeasuresCorrelation(r, lo, hi, int(df), n, k, float(slope), p, confidence, method)
+
+
+@dataclass(frozen=True)
+class BlandAltmanRepeated:
+    """Bland-Altman limits for several observations per participant whose true value varies (Bland & Altman 2007).
+
+    Attributes
+    ----------
+    bias : float
+        Mean of all differences ``a - b``.
+    bias_ci_low, bias_ci_high : float
+        Interval of the bias allowing for the clustering (see
+        :func:`bland_altman_repeated`).
+    sd : float
+        SD of a single difference: ``sqrt(sd_between^2 + sd_within^2)``.
+    sd_within : float
+        Within-participant SD of the differences (root of the residual mean
+        square of the one-way ANOVA).
+    sd_between : float
+        Between-participant SD of the mean difference (variance component;
+        0 when its estimate is negative).
+    loa_low, loa_high : float
+        ``bias -+ loa_sd * sd``: where the difference of a single observation
+        of a new participant is expected to lie.
+    n : int
+        Complete pairs.
+    n_subjects : int
+        Participants with at least one complete pair.
+    loa_sd, confidence : float
+    ms_between, ms_within : float
+        Mean squares of the one-way ANOVA of the differences by participant
+        (``ms_within`` is 0 when no participant has two observations).
+    divisor : float
+        ``(N^2 - sum m_i^2) / ((k - 1) N)``, the coefficient of the
+        between-participant variance in ``ms_between``.
+    method : str
+    """
+
+    bias: float
+    bias_ci_low: float
+    bias_ci_high: float
+    sd: float
+    sd_within: float
+    sd_between: float
+    loa_low: float
+    loa_high: float
+    n: int
+    n_subjects: int
+    loa_sd: float = 1.96
+    confidence: float = 0.95
+    ms_between: float = NAN
+    ms_within: float = NAN
+    divisor: float = NAN
+    method: str = ""
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def bland_altman_repeated(a, b, subject, *, confidence: float = 0.95, loa_sd: float = 1.96) -> BlandAltmanRepeated:
+    """Bland-Altman bias and limits of agreement with several observations per participant (Bland & Altman 2007).
+
+    The case "where the true value varies" [10]_: each participant has
+    ``m_i`` paired observations (windows) and the quantity measured changes
+    from one to the next, so differences are analysed, not the replicates.
+
+    Parameters
+    ----------
+    a, b : array_like
+        Paired measurements (``a`` the method under test, e.g. webcam; ``b``
+        the reference); differences are ``a - b``. Pairs with a missing value
+        are dropped.
+    subject : array_like
+        Participant of each pair.
+    confidence : float
+        Confidence level of the bias interval.
+    loa_sd : float
+        Multiple of the SD for the limits (1.96 for 95 % limits).
+
+    Returns
+    -------
+    BlandAltmanRepeated
+
+    Notes
+    -----
+    One-way ANOVA of the differences by participant, ``k`` participants,
+    ``N = sum m_i`` pairs: within mean square ``MS_w`` (``N - k`` df; 0 when
+    every ``m_i = 1``), between mean square ``MS_b`` (``k - 1`` df). The
+    between-participant variance is
+    ``s_b^2 = (MS_b - MS_w) / ((N^2 - sum m_i^2) / ((k - 1) N))`` (set to 0
+    when negative), the within variance ``s_w^2 = MS_w``, and the variance of
+    a single difference ``s^2 = s_b^2 + s_w^2``; the limits are
+    ``bias -+ 1.96 s`` with the bias the mean of all differences [10]_. With
+    one observation per participant this is exactly the ordinary
+    Bland-Altman analysis.
+
+    Bias interval (not in [10]_; the variance of the mean under the same
+    one-way random-effects model): ``var = (s_b^2 sum m_i^2 + s_w^2 N) / N^2``
+    with a t quantile on ``k - 1`` df; with one observation per participant it
+    is the ordinary ``t_{n-1} sd / sqrt(n)``. No interval is given for the
+    limits here.
+    """
+    confidence = _check_confidence(confidence)
+    a, b, codes, labels = _grouped(a, b, subject)
+    n, k = int(a.size), int(labels.size)
+    method = "Bland & Altman (2007), true value varies: one-way ANOVA of the differences by participant"
+    if n < 3 or k < 2:
+        why = "fewer than 3 pairs" if n < 3 else "fewer than 2 participants"
+        warnings.warn(f"Bland-Altman (repeated measures): {why} (n={n}, participants={k}); reported as NaN",
+                      AgreementWarning, stacklevel=2)
+        return BlandAltmanRepeated(*([NAN] * 8), n=n, n_subjects=k, loa_sd=float(loa_sd), confidence=confidence,
+                                   method=method)
+    d = a - b
+    m = np.bincount(codes, minlength=k).astype(float)
+    means = np.bincount(codes, d, minlength=k) / m
+    bias = float(d.mean())
+    ss_w = float(((d - means[codes]) ** 2).sum())
+    ss_b = float((m * (means - bias) ** 2).sum())
+    df_w = n - k
+    ms_w = ss_w / df_w if df_w > 0 else 0.0
+    ms_b = ss_b / (k - 1)
+    divisor = float((n * n - (m * m).sum()) / ((k - 1) * n))
+    var_b = max((ms_b - ms_w) / divisor, 0.0)
+    var = var_b + ms_w
+    sd = float(np.sqrt(var))
+    t = float(stats.t.ppf(0.5 + confidence / 2.0, k - 1))
+    se_bias = float(np.sqrt((var_b * (m * m).sum() + ms_w * n) / (n * n)))
+    return BlandAltmanRepeated(bias=bias, bias_ci_low=bias - t * se_bias, bias_ci_high=bias + t * se_bias, sd=sd,
+                               sd_within=float(np.sqrt(ms_w)), sd_between=float(np.sqrt(var_b)),
+                               loa_low=bias - loa_sd * sd, loa_high=bias + loa_sd * sd, n=n, n_subjects=k,
+                               loa_sd=float(loa_sd), confidence=confidence, ms_between=float(ms_b),
+                               ms_within=float(ms_w), divisor=divisor, method=method)
+
+
+def subject_means(a, b, subject):
+    """One row per participant: complete pairs, mean of ``a``, mean of ``b``, mean and SD of ``a - b``.
+
+    Returns a :class:`pandas.DataFrame` with columns ``subject``, ``n``,
+    ``mean_a``, ``mean_b``, ``mean_difference``, ``sd_difference`` (NaN for a
+    participant with one pair), in order of first appearance.
+    """
+    import pandas as pd
+
+    a, b, codes, labels = _grouped(a, b, subject)
+    k = labels.size
+    m = np.bincount(codes, minlength=k).astype(float)
+    d = a - b
+    with np.errstate(invalid="ignore", divide="ignore"):
+        md = np.bincount(codes, d, minlength=k) / m
+        ss = np.bincount(codes, (d - md[codes]) ** 2, minlength=k)
+        sdd = np.where(m > 1, np.sqrt(ss / np.maximum(m - 1, 1)), NAN)
+    return pd.DataFrame({"subject": labels, "n": m.astype(int), "mean_a": np.bincount(codes, a, minlength=k) / m,
+                         "mean_b": np.bincount(codes, b, minlength=k) / m, "mean_difference": md,
+                         "sd_difference": sdd})
