@@ -229,15 +229,20 @@ def read_run(out_dir) -> dict | None:
     return d if isinstance(d, dict) else None
 
 
-def _listed_outputs(run: dict) -> dict[str, int | None]:
-    """Output file name -> expected size in bytes (None = unknown), from run.json or the defaults."""
+def _listed_outputs(run: dict) -> dict[str, tuple[int | None, str | None]]:
+    """Output file name -> (expected size in bytes, expected SHA-256), None where unknown.
+
+    From run.json's ``outputs``, or the required outputs with nothing known.
+    """
     outs = run.get("outputs")
-    got: dict[str, int | None] = {}
+    got: dict[str, tuple[int | None, str | None]] = {}
     if isinstance(outs, dict):
         for name, info in outs.items():
-            size = info.get("bytes") if isinstance(info, dict) else None
-            got[Path(name).name] = int(size) if isinstance(size, (int, float)) else None
-    return got or {n: None for n in REQUIRED_OUTPUTS}
+            info = info if isinstance(info, dict) else {}
+            size, sha = info.get("bytes"), info.get("sha256")
+            got[Path(name).name] = (int(size) if isinstance(size, (int, float)) else None,
+                                    sha if isinstance(sha, str) else None)
+    return got or {n: (None, None) for n in REQUIRED_OUTPUTS}
 
 
 def run_summary(run: dict) -> dict:
@@ -260,6 +265,10 @@ def clip_is_done(out_dir, *, input_sha256: str, params_sha256: str, segments=Non
     segments : path-like, optional
         The clip's task-segments file now. The results must have been made
         with the same file, and after its last change.
+
+    Every output run.json lists must be present with the size and SHA-256
+    recorded when it was written (a file damaged in place, even at the same
+    size, makes the clip be redone).
 
     Returns
     -------
@@ -286,12 +295,14 @@ def clip_is_done(out_dir, *, input_sha256: str, params_sha256: str, segments=Non
         except OSError:
             return False, "task segments file not readable"
     bad = []
-    for name, size in _listed_outputs(run).items():
+    for name, (size, sha) in _listed_outputs(run).items():
         p = out_dir / name
         if not p.is_file():
             bad.append(f"{name} missing")
         elif size is not None and p.stat().st_size != size:
             bad.append(f"{name} has {p.stat().st_size} bytes, not {size}")
+        elif sha is not None and sha256_file(p) != sha:
+            bad.append(f"{name} differs from what was written (SHA-256 changed)")
     if bad:
         return False, "output(s) damaged: " + ", ".join(bad)
     return True, ""

@@ -272,6 +272,14 @@ def test_clip_is_done_checks_hashes_and_outputs(tmp_path):
     write_json(d / "run.json", {"input_sha256": "a", "params_sha256": "b", "outputs": {"features.csv": {"bytes": 5}}})
     assert clip_is_done(d, input_sha256="a", params_sha256="b") == (
         False, "output(s) damaged: features.csv has 1 bytes, not 5")
+    # damaged in place at the same size: the recorded SHA-256 tells
+    (d / "features.csv").write_text("12345")
+    write_json(d / "run.json", {"input_sha256": "a", "params_sha256": "b",
+                                "outputs": {"features.csv": {"bytes": 5, "sha256": sha256_file(d / "features.csv")}}})
+    assert clip_is_done(d, input_sha256="a", params_sha256="b") == (True, "")
+    (d / "features.csv").write_text("12045")
+    assert clip_is_done(d, input_sha256="a", params_sha256="b") == (
+        False, "output(s) damaged: features.csv differs from what was written (SHA-256 changed)")
     (d / "run.json").write_text("{ torn")
     assert clip_is_done(d, input_sha256="a", params_sha256="b") == (False, "not finished")
 
