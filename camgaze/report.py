@@ -112,6 +112,10 @@ def bland_altman_figure(pairs: pd.DataFrame, agreement: pd.DataFrame, features, 
                            (r["ba_loa_high_ci_low"], r["ba_loa_high_ci_high"]),
                            (r["ba_bias_ci_low"], r["ba_bias_ci_high"])):
                 ax.axhspan(lo, hi, color="0.5", alpha=0.15, lw=0)
+            # limits for several windows per participant (Bland & Altman 2007), where the study has them
+            if "ba_rm_loa_low" in r.index and np.isfinite(r["ba_rm_loa_low"]):
+                for v in (r["ba_rm_loa_low"], r["ba_rm_loa_high"]):
+                    ax.axhline(v, color=WEBCAM_COLOUR, ls=":", lw=1.2)
         ax.axhline(0, color="0.7", lw=0.8)
         ax.set_xlabel("mean of webcam and reference", fontsize=8)
         ax.set_ylabel("webcam - reference", fontsize=8)
@@ -341,6 +345,19 @@ def render_pair_report(result, pngs: dict[str, bytes]) -> str:
     return "\n".join(parts)
 
 
+def summary_caption(icc_form: str = "2,1") -> str:
+    """The caption of the study summary: which figure treats windows as independent and which does not."""
+    return ("Agreement of webcam and lab-tracker features over paired windows of all participants. Estimates with "
+            "95 % CIs in brackets; differences are webcam minus reference. Windows taken as independent: pearson_r, "
+            f"{ICC_FORM_TEXT.get(icc_form, icc_form)}, ccc (Lin's concordance), ba_bias and ba_loa (Bland-Altman "
+            "bias and 95 % limits of agreement); their intervals are too narrow when participants differ. Allowing "
+            "for several windows per participant: rmcorr with its df (repeated-measures correlation, the "
+            "within-participant association; Bakdash & Marusich 2017), ba_bias_repeated (interval from the "
+            "between- and within-participant variance) and ba_loa_repeated (95 % limits for a single window, "
+            "Bland & Altman 2007, true value varying); participant_means_r correlates the participants' means, one "
+            "point per participant.")
+
+
 def summary_markdown(summary: pd.DataFrame, *, icc_form: str = "2,1") -> str:
     """The study summary as a Markdown table (to paste), with a caption line."""
     if not len(summary):
@@ -349,22 +366,28 @@ def summary_markdown(summary: pd.DataFrame, *, icc_form: str = "2,1") -> str:
     lines = ["| " + " | ".join(cols) + " |", "| " + " | ".join("---" for _ in cols) + " |"]
     for _, r in summary.iterrows():
         lines.append("| " + " | ".join(str(r[c]) for c in cols) + " |")
-    cap = (f"Agreement of webcam and lab-tracker features over paired windows, pooled across participants. "
-           f"Estimates with 95 % CIs in brackets; {ICC_FORM_TEXT.get(icc_form, icc_form)}; Bland-Altman bias and 95 % "
-           "limits of agreement of webcam minus reference. Pooled windows are treated as independent.")
-    return cap + "\n\n" + "\n".join(lines) + "\n"
+    return summary_caption(icc_form) + "\n\n" + "\n".join(lines) + "\n"
 
 
 def summary_html(summary: pd.DataFrame, *, icc_form: str = "2,1") -> str:
     """The study summary as a small standalone HTML table (to paste)."""
-    cap = html.escape(f"Agreement of webcam and lab-tracker features, pooled windows; {ICC_FORM_TEXT.get(icc_form)}")
+    cap = html.escape(summary_caption(icc_form))
     return (f"<!doctype html><html><head><meta charset='utf-8'><style>{_CSS}</style></head><body>"
             f"<p>{cap}</p>{_table_html(summary)}</body></html>\n")
 
 
+REPEATED_COLS = ["scope", "feature", "participants", "n", "rmcorr", "rmcorr_ci_low", "rmcorr_ci_high", "rmcorr_df",
+                 "rmcorr_p", "ba_rm_bias", "ba_rm_bias_ci_low", "ba_rm_bias_ci_high", "ba_rm_sd_within",
+                 "ba_rm_sd_between", "ba_rm_sd", "ba_rm_loa_low", "ba_rm_loa_high", "repeated_notes"]
+MEANS_COLS = ["scope", "feature", "means_n", "means_pearson_r", "means_pearson_ci_low", "means_pearson_ci_high",
+              "means_icc", "means_icc_ci_low", "means_icc_ci_high", "means_ba_bias", "means_ba_loa_low",
+              "means_ba_loa_high"]
+
+
 def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.DataFrame, all_pairs: pd.DataFrame,
-                        results: dict, failures: dict, params, *, figures: bool = True) -> tuple[str, dict]:
-    """The HTML report of a study (per participant, pooled, summary table) and its PNG figures."""
+                        results: dict, failures: dict, params, *, figures: bool = True,
+                        participant_means: pd.DataFrame | None = None, unpaired=()) -> tuple[str, dict]:
+    """The HTML report of a study (per participant, pooled, repeated measures, summary table) and its PNG figures."""
     feats = list(params.features)
     parts = [f"<!doctype html><html><head><meta charset='utf-8'><title>Validation study</title><style>{_CSS}"
              "</style></head><body><h1>Webcam against lab tracker: study</h1>",
@@ -373,12 +396,44 @@ def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.Dat
     if failures:
         parts.append("<div class='note'><strong>Failed pairs</strong><ul>" + "".join(
             f"<li>{html.escape(k)}: {html.escape(v)}</li>" for k, v in failures.items()) + "</ul></div>")
-    parts.append("<h2>Summary (pooled windows)</h2>" + _table_html(summary))
-    parts.append("<p>Pooled statistics treat all windows as independent; windows of one participant are not, so the "
-                 "intervals are too narrow when participants differ. Per-participant results below show the "
-                 "spread.</p>")
+    if unpaired:
+        parts.append("<div class='note'><strong>Not paired (not in any figure below)</strong><ul>" + "".join(
+            f"<li>{html.escape(m)}</li>" for m in unpaired) + "</ul>The pairing is in pairing.csv.</div>")
+    parts.append("<h2>Summary</h2>" + _table_html(summary))
+    parts.append("<p>" + html.escape(summary_caption(params.icc_form)) + "</p>")
+    parts.append(
+        "<h2>Which figure is which</h2><ul>"
+        "<li><strong>Pooled, windows taken as independent</strong> (<code>pearson_r</code>, ICC, <code>ccc</code>, "
+        "<code>ba_bias</code>, <code>ba_loa</code>): every paired window of every participant is one point. Windows of "
+        "one participant share that participant's face, seat, light and reading speed, so they are not independent: "
+        "these intervals are too narrow, and a correlation across participants' different levels can look strong "
+        "although the webcam does not follow changes within a participant.</li>"
+        "<li><strong>Repeated-measures correlation</strong> (<code>rmcorr</code>, Bakdash &amp; Marusich 2017): "
+        "the common within-participant association - does the webcam go up when the reference goes up, for the same "
+        "participant? Each participant keeps their own level; df = windows - participants - 1.</li>"
+        "<li><strong>Limits of agreement for repeated windows</strong> (<code>ba_rm_*</code>, "
+        "<code>ba_loa_repeated</code>; Bland &amp; Altman 2007, the case where the true value varies): the SD of a "
+        "single window's difference is split by a one-way ANOVA of the differences by participant into a "
+        "between-participant part (participants' biases differ) and a within-participant part; the limits use both, "
+        "so they say where one window of a new participant is expected to lie. Dotted lines in the Bland-Altman "
+        "plots; dashed: the pooled limits.</li>"
+        "<li><strong>Participant means</strong> (<code>means_*</code>): one point per participant (mean over their "
+        "windows), compared with Pearson r, ICC and Bland-Altman - how well the webcam ranks and measures "
+        "participants; those limits are for a participant's mean, not a single window.</li></ul>")
     parts.append("<h2>Per participant</h2>" + _table_html(per))
-    parts.append("<h2>Pooled agreement</h2>" + _table_html(pooled, [c for c in AGREEMENT_COLS if c in pooled.columns]))
+    parts.append("<h2>Pooled agreement (windows taken as independent)</h2>"
+                 + _table_html(pooled, [c for c in AGREEMENT_COLS if c in pooled.columns]))
+    if len(pooled) and "rmcorr" in pooled.columns:
+        parts.append("<h2>Allowing for several windows per participant</h2>"
+                     + _table_html(pooled, [c for c in REPEATED_COLS if c in pooled.columns]))
+        parts.append("<p>Interval of rmcorr: Fisher z with df in place of n. Interval of ba_rm_bias: from the "
+                     "between- and within-participant variance of the differences, t on participants - 1 df. No "
+                     "interval is computed for the repeated-measures limits.</p>")
+        parts.append("<h2>Participant means compared</h2>"
+                     + _table_html(pooled, [c for c in MEANS_COLS if c in pooled.columns]))
+    if participant_means is not None and len(participant_means):
+        pm = participant_means[participant_means["scope"] == "window"]
+        parts.append("<h3>One row per participant and feature (windows)</h3>" + _table_html(pm))
     pw = _window_pairs(all_pairs)
     pngs = {}
     if figures and len(pw):
@@ -387,6 +442,8 @@ def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.Dat
         pngs["study_bland_altman"] = bland_altman_figure(pw, pooled, feats,
                                                          title="Differences against means, all windows")
         parts.append(_img("study_scatter", pngs["study_scatter"], "Webcam against reference, coloured by participant"))
-        parts.append(_img("study_bland_altman", pngs["study_bland_altman"], "Bland-Altman plots, pooled windows"))
+        parts.append(_img("study_bland_altman", pngs["study_bland_altman"],
+                          "Bland-Altman plots, all windows; dashed: pooled limits, dotted: limits for repeated "
+                          "windows (Bland & Altman 2007)"))
     parts.append("<p>Each participant's folder holds its own report.html. Research estimates only.</p></body></html>")
     return "\n".join(parts), pngs

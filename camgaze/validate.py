@@ -19,8 +19,11 @@ Everything is computed first; only then are the files written (each one
 atomically, ``validation.json`` last), so a failure never leaves a mix of
 old and new results.
 
-Study mode (:func:`validate_study`): many pairs from a manifest, results per
-participant, pooled agreement over all windows, and a summary table to paste.
+Study mode (:func:`validate_study`): many pairs from a manifest or two folders
+(:mod:`camgaze.pairing`), results per participant, pooled agreement over all
+windows, statistics that allow for windows nested in participants
+(repeated-measures correlation, Bland & Altman 2007 limits, participant
+means), and a summary table to paste.
 """
 from __future__ import annotations
 
@@ -521,7 +524,7 @@ def write_validation(result: ValidationResult, out_dir, *, figures: bool = True)
 
 @dataclass
 class StudyRow:
-    """One line of a validation manifest."""
+    """One line of a validation manifest (or one pair found in folder mode)."""
 
     webcam: Path
     reference: Path
@@ -531,17 +534,21 @@ class StudyRow:
     segments: Path | None = None
     offset_s: float | None = None
     line: int = 0
+    task: str | None = None
+    run: str | None = None
 
     @property
     def key(self) -> str:
-        return self.participant + (f"_{self.session}" if self.session else "")
+        """``participant[_session][_task][_run]``: the name of the pair's output folder."""
+        return "_".join(v for v in (self.participant, self.session, self.task, self.run) if v)
 
 
 def read_validation_manifest(path) -> list[StudyRow]:
-    """Read a manifest CSV: webcam, reference, optional participant, session, mapping, segments, offset_s.
+    """Read a manifest CSV: webcam, reference, optional participant, session, task, run, mapping, segments, offset_s.
 
     Relative paths are relative to the manifest's folder. ``webcam`` is a
-    clip's output folder (or the clip, processed on the way).
+    clip's output folder (or the clip, processed on the way). Lines starting
+    with ``#`` are comments; other columns are ignored.
     """
     path = Path(path)
     if not path.is_file():
@@ -578,17 +585,19 @@ def read_validation_manifest(path) -> list[StudyRow]:
                 raise CamgazeInputError(f"{what} {q} does not exist", path=path, where=f"row {line}",
                                         hint="paths are relative to the manifest's folder")
         participant = str(r.get("participant", "")).strip() or _guess_participant(cam, ref) or f"row{line}"
-        session = str(r.get("session", "")).strip() or None
+        label = lambda col: str(r.get(col, "")).strip() or None  # noqa: E731
         off = str(r.get("offset_s", "")).strip()
         try:
             offset = float(off) if off else None
         except ValueError:
             raise CamgazeInputError(f"offset_s {off!r} is not a number of seconds", path=path,
                                     where=f"row {line}") from None
-        row = StudyRow(webcam=cam, reference=ref, participant=participant, session=session, mapping=p("mapping"),
-                       segments=p("segments"), offset_s=offset, line=line)
+        row = StudyRow(webcam=cam, reference=ref, participant=participant, session=label("session"),
+                       mapping=p("mapping"), segments=p("segments"), offset_s=offset, line=line, task=label("task"),
+                       run=label("run"))
         if row.key in seen:
-            raise CamgazeInputError(f"participant/session {row.key} appears twice", path=path, where=f"row {line}")
+            raise CamgazeInputError(f"participant/session {row.key} appears twice", path=path, where=f"row {line}",
+                                    hint="give the rows different session, task or run labels")
         seen.add(row.key)
         if not re.fullmatch(r"[A-Za-z0-9_.-]+", row.key):
             raise CamgazeInputError(f"participant/session {row.key!r} must be letters, digits, _ . -",
@@ -607,40 +616,191 @@ def _guess_participant(*paths) -> str | None:
 
 @dataclass
 class StudyResult:
-    """Per-participant results, pooled agreement, and the summary table."""
+    """Per-participant results, pooled agreement, repeated-measures statistics, and the summary table.
+
+    ``pooled`` has one row per (scope, feature): the statistics over all
+    windows taken as independent (``pearson_r`` ... ``ba_loa_high``) and
+    those that allow for windows nested in participants (``rmcorr*``,
+    ``ba_rm_*``, ``means_*``; see :func:`repeated_agreement_table`).
+    ``participant_means`` has one row per (scope, feature, participant).
+    ``pairing`` is the :class:`camgaze.pairing.FolderPairing` of folder mode
+    (None for a manifest); ``unpaired`` lists, one line each, the clips and
+    references that were not paired.
+    """
 
     per_participant: pd.DataFrame
     pooled: pd.DataFrame
     summary: pd.DataFrame
     results: dict
     failures: dict
+    participant_means: pd.DataFrame = field(default_factory=pd.DataFrame)
+    pairing: object = None
+    unpaired: list = field(default_factory=list)
     paths: dict = field(default_factory=dict)
 
 
-def validate_study(manifest, out_dir, *, params: ValidateParams | None = None, screen: ScreenGeometry | None = None,
-                   mapping: TableMapping | None = None, figures: bool = True, progress=None) -> StudyResult:
-    """Validate every pair of a manifest; pool the windows of all participants.
+#: columns of :func:`repeated_agreement_table` after scope and feature
+REPEATED_COLUMNS = (
+    "participants", "rmcorr", "rmcorr_ci_low", "rmcorr_ci_high", "rmcorr_df", "rmcorr_p", "rmcorr_slope",
+    "ba_rm_bias", "ba_rm_bias_ci_low", "ba_rm_bias_ci_high", "ba_rm_sd", "ba_rm_sd_within", "ba_rm_sd_between",
+    "ba_rm_loa_low", "ba_rm_loa_high", "means_n", "means_pearson_r", "means_pearson_ci_low",
+    "means_pearson_ci_high", "means_icc", "means_icc_ci_low", "means_icc_ci_high", "means_ba_bias",
+    "means_ba_loa_low", "means_ba_loa_high", "repeated_notes")
 
-    Each participant gets ``OUTDIR/<participant>[_<session>]/`` with the files of
-    :func:`validate_pair`. The study folder gets ``pooled_agreement.csv``
-    (all paired windows of all participants; the pooled statistics treat
-    windows as independent and ignore that they are nested in participants,
-    which the report says), ``participants.csv`` (one row per pair: offset,
-    its confidence, kappa, F1, n windows, r and ICC of the fixation count),
-    ``summary.csv`` / ``summary.md`` / ``summary.html`` (a table to paste into
-    a paper) and ``report.html``. A pair that fails is reported with its
-    error and the others go on.
+
+def repeated_agreement_table(pairs: pd.DataFrame, features, *, subject: str = "participant",
+                             icc_form: str = DEFAULT_ICC_FORM, confidence: float = 0.95
+                             ) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Agreement that respects windows nested in participants, one row per (scope, feature).
+
+    Returns
+    -------
+    table : DataFrame
+        Per (scope, feature): ``participants``; the repeated-measures
+        correlation ``rmcorr`` with its interval, ``rmcorr_df`` (N - k - 1),
+        p value and common slope (Bakdash & Marusich 2017); the Bland-Altman
+        bias (interval allowing for the clustering) and limits for a single
+        window when each participant has several and their true value varies,
+        ``ba_rm_*`` (Bland & Altman 2007); and the comparison of the
+        participants' mean values, one point per participant, ``means_*``
+        (Pearson r, ICC, Bland-Altman on the means - limits for a
+        participant's mean, not for a single window).
+    means : DataFrame
+        One row per (scope, feature, participant): windows, mean webcam, mean
+        reference, mean and SD of the differences.
     """
-    from .atomic import write_csv, write_json, write_text
-    from .report import render_study_report, summary_markdown, summary_html
+    from .agreement import bland_altman, bland_altman_repeated, icc, pearson, rmcorr, subject_means
+
+    rows, mrows = [], []
+    for scope in ("window", "segment"):
+        p = pairs[(pairs["scope"] == scope) & pairs["paired"]] if len(pairs) else pairs
+        if not len(p):
+            continue
+        for f in features:
+            if f"{f}_webcam" not in p.columns:
+                continue
+            a, b, s = p[f"{f}_webcam"].to_numpy(float), p[f"{f}_reference"].to_numpy(float), p[subject].to_numpy()
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", AgreementWarning)
+                rc = rmcorr(a, b, s, confidence=confidence)
+                ba = bland_altman_repeated(a, b, s, confidence=confidence)
+                means = subject_means(a, b, s)
+                ma, mb = means["mean_a"].to_numpy(float), means["mean_b"].to_numpy(float)
+                mp = pearson(ma, mb, confidence=confidence)
+                mi = icc(np.column_stack([ma, mb]) if len(means) else np.empty((0, 2)), form=icc_form,
+                         confidence=confidence)
+                mba = bland_altman(ma, mb, confidence=confidence)
+            notes = list(dict.fromkeys(str(w.message) for w in caught if issubclass(w.category, AgreementWarning)))
+            rows.append({
+                "scope": scope, "feature": f, "participants": rc.n_subjects,
+                "rmcorr": rc.estimate, "rmcorr_ci_low": rc.ci_low, "rmcorr_ci_high": rc.ci_high, "rmcorr_df": rc.df,
+                "rmcorr_p": rc.p_value, "rmcorr_slope": rc.slope,
+                "ba_rm_bias": ba.bias, "ba_rm_bias_ci_low": ba.bias_ci_low, "ba_rm_bias_ci_high": ba.bias_ci_high,
+                "ba_rm_sd": ba.sd, "ba_rm_sd_within": ba.sd_within, "ba_rm_sd_between": ba.sd_between,
+                "ba_rm_loa_low": ba.loa_low, "ba_rm_loa_high": ba.loa_high,
+                "means_n": int(len(means)), "means_pearson_r": mp.estimate, "means_pearson_ci_low": mp.ci_low,
+                "means_pearson_ci_high": mp.ci_high, "means_icc": mi.estimate, "means_icc_ci_low": mi.ci_low,
+                "means_icc_ci_high": mi.ci_high, "means_ba_bias": mba.bias, "means_ba_loa_low": mba.loa_low,
+                "means_ba_loa_high": mba.loa_high, "repeated_notes": "; ".join(notes)})
+            for _, m in means.iterrows():
+                mrows.append({"scope": scope, "feature": f, "participant": m["subject"], "windows": int(m["n"]),
+                              "mean_webcam": m["mean_a"], "mean_reference": m["mean_b"],
+                              "mean_difference": m["mean_difference"], "sd_difference": m["sd_difference"]})
+    table = pd.DataFrame(rows, columns=["scope", "feature", *REPEATED_COLUMNS])
+    means = pd.DataFrame(mrows, columns=["scope", "feature", "participant", "windows", "mean_webcam",
+                                         "mean_reference", "mean_difference", "sd_difference"])
+    return table, means
+
+
+def _study_rows(source, *, references=None, label_pattern=None, reference_glob=None, tables=False,
+                save_manifest=None):
+    """(rows, pairing) from a manifest, a pair of folders, or a FolderPairing."""
+    from .pairing import FolderPairing, pair_folders
+
+    if isinstance(source, FolderPairing):
+        pairing = source
+    elif references is not None:
+        src = Path(source)
+        if not src.is_dir():
+            raise CamgazeInputError("folder mode needs the webcam side as a folder", path=src,
+                                    hint="give the output folder of `camgaze batch`/`camgaze process`, or a manifest "
+                                         "CSV without a reference folder")
+        pairing = pair_folders(src, references, label_pattern=label_pattern, tables=tables,
+                               reference_glob=reference_glob)
+    else:
+        if Path(source).is_dir():
+            raise CamgazeInputError("is a folder: folder mode needs the reference folder too", path=source,
+                                    hint="camgaze validate WEBCAM_FOLDER REFERENCE_FOLDER -o OUT, or --manifest CSV")
+        return read_validation_manifest(source), None
+    written = pairing.write_manifest(save_manifest) if save_manifest is not None else None
+    pairing.raise_if_ambiguous(written)
+    if not pairing.pairs:
+        raise CamgazeInputError(
+            "no clip could be paired with a reference: " + "; ".join(pairing.messages()[:6])
+            + (" ..." if len(pairing.messages()) > 6 else ""), path=pairing.webcam_folder,
+            hint="take participant/session labels from the names with --labels REGEX, or write a manifest CSV and "
+                 "use --manifest")
+    return pairing.rows(), pairing
+
+
+def validate_study(source, out_dir, *, references=None, label_pattern: str | None = None,
+                   reference_glob: str | None = None, save_manifest=None, params: ValidateParams | None = None,
+                   screen: ScreenGeometry | None = None, mapping: TableMapping | None = None, figures: bool = True,
+                   progress=None) -> StudyResult:
+    """Validate every pair of a study; pool the windows of all participants.
+
+    Parameters
+    ----------
+    source : path-like or FolderPairing
+        A manifest CSV (:func:`read_validation_manifest`); or, with
+        ``references``, the output folder of ``camgaze batch`` / ``camgaze
+        process`` (folder mode, :func:`camgaze.pairing.pair_folders`); or a
+        pairing made beforehand.
+    out_dir : path-like
+        The study folder.
+    references : path-like, optional
+        Folder mode: the folder (or BIDS tree) of reference recordings.
+    label_pattern, reference_glob : str, optional
+        Folder mode: see :func:`camgaze.pairing.pair_folders`. Plain tables
+        are considered as references when ``mapping`` is given.
+    save_manifest : path-like, optional
+        Folder mode: write the pairs found as a manifest CSV (before any
+        validation, and also when the pairing is ambiguous).
+    params, screen, mapping, figures, progress
+        As for :func:`validate_pair`; ``mapping`` is used for rows without one.
+
+    Notes
+    -----
+    Each pair gets ``OUTDIR/<participant>[_<session>][_<task>][_<run>]/`` with
+    the files of :func:`validate_pair`. The study folder gets
+    ``pooled_agreement.csv`` (one row per scope and feature: the statistics
+    over all paired windows taken as independent, and beside them the
+    repeated-measures correlation, the Bland & Altman (2007) limits for
+    several windows per participant and the comparison of participant means,
+    :func:`repeated_agreement_table`), ``participant_means.csv``,
+    ``participants.csv`` (one row per pair: offset, its confidence, kappa, F1,
+    n windows, r and ICC of the fixation count; unpaired clips and references
+    as rows too in folder mode), ``summary.csv`` / ``summary.md`` /
+    ``summary.html`` (a table to paste into a paper), ``report.html``, in
+    folder mode ``pairing.csv`` (every clip and reference with what happened
+    to it), and ``study_validation.json`` last. A pair that fails is reported
+    with its error and the others go on. Subjects of the repeated-measures
+    statistics are participants: two sessions of one participant count as one
+    subject.
+    """
+    from .atomic import write_bytes, write_csv, write_json, write_text
+    from .report import render_study_report, summary_html, summary_markdown
 
     params = params or ValidateParams()
-    rows = read_validation_manifest(manifest)
+    rows, pairing = _study_rows(source, references=references, label_pattern=label_pattern,
+                                reference_glob=reference_glob, tables=mapping is not None, save_manifest=save_manifest)
+    unpaired = pairing.messages() if pairing is not None else []
     out = Path(out_dir)
-    results, failures = {}, {}
+    results, failures, row_of = {}, {}, {}
     for k, row in enumerate(rows):
         if progress:
             progress(k / len(rows), f"validating {row.key}")
+        row_of[row.key] = row
         m = TableMapping.load(row.mapping) if row.mapping else mapping
         p = replace(params, offset_s=row.offset_s) if row.offset_s is not None else params
         try:
@@ -657,12 +817,15 @@ def validate_study(manifest, out_dir, *, params: ValidateParams | None = None, s
         except CamgazeInputError as exc:
             failures[row.key] = str(exc)
     if not results:
-        raise CamgazeInputError("no pair of the manifest could be validated: "
-                                + "; ".join(f"{k}: {v}" for k, v in failures.items()), path=manifest)
+        raise CamgazeInputError("no pair of the study could be validated: "
+                                + "; ".join(f"{k}: {v}" for k, v in failures.items()),
+                                path=source if pairing is None else pairing.webcam_folder)
     per = []
     for key, r in results.items():
         fc = r.agreement[(r.agreement["scope"] == "window") & (r.agreement["feature"] == "fixation_count")]
-        per.append({"participant": r.meta["participant"], "session": r.meta["session"], "key": key,
+        row = row_of[key]
+        per.append({"participant": r.meta["participant"], "session": r.meta["session"], "task": row.task,
+                    "run": row.run, "key": key,
                     "offset_s": r.alignment.offset_s, "offset_confidence": r.alignment.confidence,
                     "offset_method": r.alignment.method, "overlap_s": r.meta["overlap_s"],
                     "windows_paired": int(r.pairs[(r.pairs["scope"] == "window") & r.pairs["paired"]].shape[0])
@@ -672,44 +835,84 @@ def validate_study(manifest, out_dir, *, params: ValidateParams | None = None, s
                     "fixation_count_icc": float(fc["icc"].iloc[0]) if len(fc) else np.nan,
                     "status": "ok", "notes": "; ".join(r.notes)})
     for key, msg in failures.items():
-        per.append({"key": key, "status": "failed", "notes": msg})
+        row = row_of[key]
+        per.append({"participant": row.participant, "session": row.session, "task": row.task, "run": row.run,
+                    "key": key, "status": "failed", "notes": msg})
+    if pairing is not None:
+        for c, why in pairing.clips_without_reference:
+            per.append({"key": c.key, **{k: c.labels.get(k) for k in ("participant", "session", "task", "run")},
+                        "status": "no reference", "notes": why})
+        for ref in pairing.references_without_clip:
+            per.append({**{k: ref.labels.get(k) for k in ("participant", "session", "task", "run")},
+                        "key": "", "status": "no clip", "notes": f"reference {ref.rel}: no processed clip"})
+        for key, why in pairing.not_processed:
+            per.append({"key": key, "status": "not processed", "notes": why})
     per_df = pd.DataFrame(per)
-    all_pairs = pd.concat([r.pairs.assign(participant=k) for k, r in results.items()], ignore_index=True)
+    all_pairs = pd.concat([r.pairs.assign(participant=r.meta["participant"], key=k) for k, r in results.items()],
+                          ignore_index=True)
     pooled = agreement_table(all_pairs, params.features, icc_form=params.icc_form, confidence=params.confidence)
+    repeated, part_means = repeated_agreement_table(all_pairs, params.features, icc_form=params.icc_form,
+                                                    confidence=params.confidence)
+    if len(pooled):
+        pooled = pooled.merge(repeated, on=["scope", "feature"], how="left")
     summary = study_summary(pooled, per_df, icc_form=params.icc_form)
     html, pngs = render_study_report(per_df, pooled, summary, all_pairs, results, failures, params,
-                                     figures=figures)
-    from .atomic import write_bytes
-
+                                     figures=figures, participant_means=part_means, unpaired=unpaired)
     paths = {f"{k}_png": write_bytes(out / f"{k}.png", v) for k, v in pngs.items()}
     paths |= {"participants": write_csv(out / "participants.csv", per_df),
-             "pooled_agreement": write_csv(out / "pooled_agreement.csv", pooled),
-             "pooled_pairs": write_csv(out / "pooled_pairs.csv", all_pairs),
-             "summary_csv": write_csv(out / "summary.csv", summary),
-             "summary_md": write_text(out / "summary.md", summary_markdown(summary, icc_form=params.icc_form)),
-             "summary_html": write_text(out / "summary.html", summary_html(summary, icc_form=params.icc_form)),
-             "report": write_text(out / "report.html", html)}
+              "pooled_agreement": write_csv(out / "pooled_agreement.csv", pooled),
+              "participant_means": write_csv(out / "participant_means.csv", part_means),
+              "pooled_pairs": write_csv(out / "pooled_pairs.csv", all_pairs),
+              "summary_csv": write_csv(out / "summary.csv", summary),
+              "summary_md": write_text(out / "summary.md", summary_markdown(summary, icc_form=params.icc_form)),
+              "summary_html": write_text(out / "summary.html", summary_html(summary, icc_form=params.icc_form)),
+              "report": write_text(out / "report.html", html)}
+    if pairing is not None:
+        paths["pairing"] = write_csv(out / "pairing.csv", pairing.table())
     paths["study"] = write_json(out / "study_validation.json", {
-        "camgaze": __version__, "manifest": str(manifest), "pairs": len(rows), "validated": len(results),
-        "failed": failures, "params": params.to_dict(),
-        "pooling": "all paired windows of all participants; windows treated as independent (clustering in "
-                   "participants ignored)"})
+        "camgaze": __version__,
+        "manifest": str(source) if pairing is None else None,
+        "webcam_folder": str(pairing.webcam_folder) if pairing is not None else None,
+        "reference_folder": str(pairing.reference_folder) if pairing is not None else None,
+        "pairs": len(rows), "validated": len(results), "failed": failures, "unpaired": unpaired,
+        "params": params.to_dict(),
+        "pooling": {
+            "pooled": "pearson_r ... ba_loa_high: all paired windows of all participants taken as independent "
+                      "(clustering in participants ignored; intervals too narrow when participants differ)",
+            "rmcorr": "repeated-measures correlation, Bakdash & Marusich (2017): within-participant association, "
+                      "df = N - k - 1",
+            "ba_rm": "Bland & Altman (2007), true value varies: limits for a single window with several windows "
+                     "per participant, from a one-way ANOVA of the differences by participant",
+            "means": "participants' mean values compared, one point per participant",
+            "subject": "participant (sessions of one participant are one subject)"}})
     if progress:
         progress(1.0, "study done")
     return StudyResult(per_participant=per_df, pooled=pooled, summary=summary, results=results, failures=failures,
-                       paths=paths)
+                       participant_means=part_means, pairing=pairing, unpaired=unpaired, paths=paths)
 
 
 def _fmt(v, nd=2):
-    return "n/a" if v is None or not np.isfinite(v) else f"{v:.{nd}f}"
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return "n/a"
+    return "n/a" if not np.isfinite(v) else f"{v:.{nd}f}"
 
 
 def study_summary(pooled: pd.DataFrame, per: pd.DataFrame, *, icc_form: str = DEFAULT_ICC_FORM) -> pd.DataFrame:
-    """The table to paste: one row per feature (pooled windows), estimates with 95 % intervals as text."""
+    """The table to paste: one row per feature (window scope), estimates with 95 % intervals as text.
+
+    ``pearson_r``, the ICC, ``ccc``, ``ba_bias`` and ``ba_loa`` take all
+    windows as independent; ``rmcorr`` (with ``rmcorr_df``), ``ba_bias_repeated``
+    and ``ba_loa_repeated`` allow for several windows per participant;
+    ``participant_means_r`` correlates the participants' means (one point per
+    participant).
+    """
     rows = []
     ok = per[per.get("status", pd.Series(dtype=str)) == "ok"] if len(per) else per
     n_part = int(ok["participant"].nunique()) if len(ok) else 0
     for _, r in pooled[pooled["scope"] == "window"].iterrows() if len(pooled) else []:
+        g = lambda c: r.get(c, np.nan)  # noqa: E731 - repeated-measures columns may be absent
         rows.append({
             "feature": r["feature"], "participants": n_part, "windows": int(r["n"]),
             "mean_webcam": _fmt(r["mean_webcam"]), "mean_reference": _fmt(r["mean_reference"]),
@@ -718,5 +921,12 @@ def study_summary(pooled: pd.DataFrame, per: pd.DataFrame, *, icc_form: str = DE
             "ccc": f"{_fmt(r['ccc'])} [{_fmt(r['ccc_ci_low'])}, {_fmt(r['ccc_ci_high'])}]",
             "ba_bias": f"{_fmt(r['ba_bias'])} [{_fmt(r['ba_bias_ci_low'])}, {_fmt(r['ba_bias_ci_high'])}]",
             "ba_loa": f"{_fmt(r['ba_loa_low'])} to {_fmt(r['ba_loa_high'])}",
+            "rmcorr": f"{_fmt(g('rmcorr'))} [{_fmt(g('rmcorr_ci_low'))}, {_fmt(g('rmcorr_ci_high'))}]",
+            "rmcorr_df": _fmt(g("rmcorr_df"), 0),
+            "ba_bias_repeated": f"{_fmt(g('ba_rm_bias'))} [{_fmt(g('ba_rm_bias_ci_low'))}, "
+                                f"{_fmt(g('ba_rm_bias_ci_high'))}]",
+            "ba_loa_repeated": f"{_fmt(g('ba_rm_loa_low'))} to {_fmt(g('ba_rm_loa_high'))}",
+            "participant_means_r": f"{_fmt(g('means_pearson_r'))} [{_fmt(g('means_pearson_ci_low'))}, "
+                                   f"{_fmt(g('means_pearson_ci_high'))}]",
         })
     return pd.DataFrame(rows)

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import sys
+from pathlib import Path
 
 from .table_args import add_table_arguments, mapping_from_args, screen_from_args
 
@@ -16,13 +17,28 @@ def register(sub) -> None:
         "time of the reference's first sample), events_agreement.json (kappa, F1, gain) and a self-contained "
         "report.html with PNG figures. WEBCAM is a clip's output folder from 'camgaze process'; REFERENCE is a "
         "BIDS *_physio.tsv.gz (sidecars beside it) or any gaze table described by the column options or "
-        "--mapping. Study mode: --manifest CSV with columns webcam, reference and optional participant, "
-        "session, mapping, segments, offset_s.",
+        "--mapping. Study mode: WEBCAM_FOLDER REFERENCE_FOLDER (the output folder of 'camgaze batch' or "
+        "'camgaze process', and a folder or BIDS tree of reference recordings, paired by participant/session/task/run "
+        "labels in the names, else by identical names), or --manifest CSV with columns webcam, reference and "
+        "optional participant, session, task, run, mapping, segments, offset_s.",
     )
-    p.add_argument("webcam", nargs="?", metavar="WEBCAM", help="clip output folder from 'camgaze process'")
-    p.add_argument("reference", nargs="?", metavar="REFERENCE", help="BIDS *_physio.tsv.gz or a gaze table")
+    p.add_argument("webcam", nargs="?", metavar="WEBCAM",
+                   help="clip output folder from 'camgaze process' (study: the folder holding one per clip)")
+    p.add_argument("reference", nargs="?", metavar="REFERENCE",
+                   help="BIDS *_physio.tsv.gz or a gaze table (study: a folder of them)")
     p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
     p.add_argument("--manifest", metavar="CSV", help="study mode: a CSV pairing each webcam folder with its reference")
+    s = p.add_argument_group("study from two folders")
+    s.add_argument("--labels", metavar="REGEX", default=None,
+                   help="take labels from clip folder names and reference paths with a regular expression with named "
+                        r"groups participant, session, task, run, e.g. '(?P<participant>p\d+)_(?P<session>s\d+)' "
+                        "(default: status.csv of the batch, then sub-/ses-/task-/run- entities)")
+    s.add_argument("--reference-glob", metavar="GLOB", default=None,
+                   help="only references whose name or relative path matches, e.g. '*recording-eye1_physio.tsv.gz'")
+    s.add_argument("--save-manifest", metavar="CSV", default=None,
+                   help="write the pairing found as a manifest CSV (to check, edit and rerun with --manifest)")
+    s.add_argument("--dry-run", action="store_true",
+                   help="only pair the folders: print the pairs and what was left over (and --save-manifest)")
     p.add_argument("--participant", metavar="ID", help="participant label for the report (one pair)")
     p.add_argument("--session", metavar="ID", help="session label for the report (one pair)")
     add_table_arguments(p, title="columns of a reference table (not needed for BIDS)")
@@ -78,16 +94,24 @@ def run(args) -> int:
         estimate_drift=args.drift, resample_reference_hz=args.resample_reference_hz,
         reference_events=args.reference_events, icc_form=args.icc_form, match_tolerance_s=args.match_tolerance_s,
         min_valid_frac=args.min_valid_frac)
-    if args.manifest:
-        if args.webcam or args.reference:
+    folder_mode = bool(args.webcam and args.reference and Path(args.reference).is_dir())
+    if args.manifest or folder_mode:
+        if args.manifest and (args.webcam or args.reference):
             raise ParameterError("give either WEBCAM REFERENCE or --manifest, not both")
+        if folder_mode:
+            return _run_folders(args, params, screen, mapping)
         res = validate_study(args.manifest, args.out, params=params, screen=screen, mapping=mapping,
                              figures=not args.no_figures,
                              progress=lambda f, m: print(f"[{f:4.0%}] {m}", file=sys.stderr))
-        print(f"{len(res.results)} pair(s) validated, {len(res.failures)} failed -> {res.paths['report']}")
-        for k, v in res.failures.items():
-            print(f"  failed {k}: {v}", file=sys.stderr)
-        return 1 if res.failures else 0
+        return _report_study(res)
+    if args.dry_run or args.save_manifest or args.labels or args.reference_glob:
+        raise ParameterError("--dry-run, --save-manifest, --labels and --reference-glob belong to the study from two "
+                             "folders", hint="camgaze validate WEBCAM_FOLDER REFERENCE_FOLDER -o OUT --dry-run")
+    if args.webcam and args.reference and Path(args.webcam).is_dir() and not (Path(args.webcam) / "samples.parquet"
+                                                                                ).exists() \
+            and any(Path(args.webcam).glob("*/samples.parquet")):
+        raise ParameterError(f"{args.webcam} holds one folder per clip, but {args.reference} is a single file",
+                             hint="for a study give the reference FOLDER; for one pair give one clip's folder")
     if not (args.webcam and args.reference):
         raise ParameterError("validate needs WEBCAM and REFERENCE (or --manifest CSV)",
                              hint="camgaze validate OUT/clip REFERENCE -o VALIDATION")
@@ -106,3 +130,37 @@ def run(args) -> int:
     for n in r.notes:
         print(f"  note: {n}", file=sys.stderr)
     return 0
+
+
+def _report_study(res) -> int:
+    print(f"{len(res.results)} pair(s) validated, {len(res.failures)} failed -> {res.paths['report']}")
+    for k, v in res.failures.items():
+        print(f"  failed {k}: {v}", file=sys.stderr)
+    if res.unpaired:
+        print(f"  {len(res.unpaired)} clip(s)/reference(s) not paired, listed above and in "
+              f"{res.paths.get('pairing', 'pairing.csv')}", file=sys.stderr)
+    return 1 if res.failures else 0
+
+
+def _run_folders(args, params, screen, mapping) -> int:
+    from ..pairing import pair_folders
+    from ..validate import validate_study
+
+    pairing = pair_folders(args.webcam, args.reference, label_pattern=args.labels, tables=mapping is not None,
+                           reference_glob=args.reference_glob)
+    written = pairing.write_manifest(args.save_manifest) if args.save_manifest else None
+    for p in pairing.pairs:
+        print(f"pair {p.clip.key} <- {p.reference.rel} ({p.matched_on})")
+    for m in pairing.messages():
+        print(f"  left over: {m}", file=sys.stderr)
+    if written is not None:
+        print(f"pairing written to {written}; check it, edit it if needed, and rerun with --manifest {written}")
+    pairing.raise_if_ambiguous(written)
+    if args.dry_run:
+        print(f"{len(pairing.pairs)} pair(s) found, {len(pairing.messages())} file(s) left over (dry run: nothing "
+              "validated)")
+        return 0
+    res = validate_study(pairing, args.out, params=params, screen=screen, mapping=mapping,
+                         figures=not args.no_figures,
+                         progress=lambda f, m: print(f"[{f:4.0%}] {m}", file=sys.stderr))
+    return _report_study(res)
