@@ -188,7 +188,9 @@ class FolderPairing:
         if not self.ambiguous:
             return
         a = self.ambiguous[0]
-        more = f" ({len(self.ambiguous) - 1} more ambiguous pairing(s) of this kind)" if len(self.ambiguous) > 1 else ""
+        more = "".join(f"; also {b['problem']}: {b['first']} and {b['second']}" for b in self.ambiguous[1:3])
+        if len(self.ambiguous) > 3:
+            more += f"; and {len(self.ambiguous) - 3} more"
         hint = _MANIFEST_HINT
         if manifest_written is not None:
             hint = (f"a draft manifest with the choices as commented-out lines was written to {manifest_written}: "
