@@ -45,6 +45,7 @@ def main(argv=None) -> int:
     w, h = (int(v) for v in args.size.lower().split("x"))
     print(f"machine: {machine()}")
     times: dict[int, float] = {}
+    cores_used: dict[int, float] = {}
     with tempfile.TemporaryDirectory() as d:
         d = Path(d)
         seg = render_test_clip(d / "render" / "reading.mp4", duration_s=min(12.0, args.seconds), size_px=(w, h))
@@ -63,6 +64,7 @@ def main(argv=None) -> int:
             cpu = (c1.ru_utime + c1.ru_stime) - (c0.ru_utime + c0.ru_stime)
             assert res.counts["done"] == args.clips, res.status
             frames = int(res.status["frames"].sum())
+            cores_used[n] = cpu / times[n]
             print(f"{n} worker(s): {times[n]:7.1f} s for {args.clips} clips ({frames} frames, {w}x{h}), "
                   f"{frames / times[n]:6.1f} frames/s; workers used {cpu / times[n]:.2f} cores on average "
                   f"(load average before: {load0:.1f})", flush=True)
@@ -70,6 +72,11 @@ def main(argv=None) -> int:
     for n in args.workers:
         if n != base:
             print(f"speed-up {n} vs {base} worker(s): {times[base] / times[n]:.2f}x (target >= 1.8x for 2 vs 1)")
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
+    if base in cores_used and cores_used[base] > 0:
+        # with the same CPU work per frame, n workers cannot be faster than the spare cores allow
+        print(f"ceiling from the CPU one run of {base} worker(s) already uses: {cores} cores / "
+              f"{cores_used[base]:.2f} = {cores / cores_used[base]:.2f}x")
     return 0
 
 

@@ -398,10 +398,10 @@ class _Board:
         self.bar = None
         self._lock = threading.Lock()  # fed from the engine's progress thread and the coordinator
         if enabled:
-            from tqdm import tqdm
+            from .progress_bar import ProgressBar
 
-            self._tqdm = tqdm
-            self.bar = tqdm(total=1000, desc="study", position=0, leave=True, dynamic_ncols=True,
+            self._tqdm = ProgressBar
+            self.bar = ProgressBar(total=1000, desc="study", position=0, leave=True, dynamic_ncols=True,
                             bar_format="{desc} {percentage:3.0f}%|{bar}| [{elapsed}<{remaining}]")
             self._postfix()
 

@@ -92,7 +92,7 @@ def _parse_value(v: str, like):
 
 
 def run(args) -> int:
-    from tqdm import tqdm
+    from ..progress_bar import ProgressBar
 
     from ..errors import CamgazeInputError
     from ..pipeline import ProcessParams, clip_output_dir, process_clip
@@ -111,7 +111,7 @@ def run(args) -> int:
             failures += 1
             continue
         stems[clip.stem] = clip.resolve()
-        bar = tqdm(total=1000, desc=clip.name, unit="‰", disable=args.quiet, leave=False,
+        bar = ProgressBar(total=1000, desc=clip.name, unit="‰", disable=args.quiet, leave=False,
                    bar_format="{desc}: {percentage:3.0f}%|{bar}| [{elapsed}<{remaining}]")
 
         def progress(frac, msg, bar=bar):

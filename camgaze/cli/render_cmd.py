@@ -73,9 +73,9 @@ def run(args) -> int:
     bar = None
     progress = None
     if not args.quiet:
-        from tqdm import tqdm
+        from ..progress_bar import ProgressBar
 
-        bar = tqdm(total=100, unit="%", desc="render", file=sys.stderr, leave=False)
+        bar = ProgressBar(total=100, unit="%", desc="render", file=sys.stderr, leave=False)
 
         def progress(frac, msg):
             bar.n = int(round(100 * frac))
