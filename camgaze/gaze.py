@@ -86,6 +86,16 @@ class GazeParams:
         the RMS-S2S-adaptive I-DT threshold (demo clip p01: median fixation
         133 ms against a true 211 ms, 167 ms with the limbus fit alone), so it
         is not the default.
+    decouple_reference : bool
+        Remove the part of the eyeball centres' vertical motion that follows
+        the eyes (:func:`decouple_reference`; default True). The face mesh
+        shifts its rigid points up when the eyes look up, and the eyeball
+        centres placed by the head pose follow, cancelling a third to a half
+        of the vertical gaze signal on rendered clips.
+    decouple_highpass_s : float
+        Width of the moving average subtracted before the coupling is
+        measured, s (default 2): slower changes - most head movements - do
+        not enter the estimate.
     """
 
     blink_rel_threshold: float = 0.6
@@ -94,6 +104,8 @@ class GazeParams:
     max_head_yaw_deg: float = 45.0
     head_smooth_ms: float = 300.0
     iris_combine: str = "limbus"
+    decouple_reference: bool = True
+    decouple_highpass_s: float = 2.0
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -239,6 +251,82 @@ def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray
     return out, rec
 
 
+def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarray, ok: np.ndarray,
+                       t_s: np.ndarray, *, smooth_ms: float, highpass_s: float = 2.0,
+                       max_coupling: float = 1.5) -> tuple[np.ndarray, dict]:
+    """Remove the vertical motion of the eyeball centres that follows the eyes, per eye and clip.
+
+    The face mesh moves its "rigid" points with the eyes: when the eyes look
+    up, the fitted head - and with it the eyeball centre - moves up too (on
+    rendered clips by 0.3-0.5 of the iris's own image motion), so the iris's
+    offset from the eyeball centre, the gaze signal, shrinks. A real head
+    does not move with every eye movement, so the coupling shows as a
+    regression of the eyeball centre's picture height on the iris's height
+    relative to it: ``C_y = C_true + m * d_y`` with ``d_y = iris_y - C_y``.
+    ``m`` is the least-squares slope over the open-eye frames after both
+    series have been high-passed (a centred moving average of
+    ``highpass_s`` subtracted), so slow changes - most head movements - do
+    not enter it; ``d_y`` is smoothed first by the same moving average as
+    the head pose (``smooth_ms``), as the eyeball centre is. The centre's
+    height is then corrected by ``m * (d_y - median d_y)`` (no change at
+    the clip's median gaze). ``m`` is kept within ``[0, max_coupling]``.
+
+    Known limit: head movements that go with the eyes on the time scale of
+    ``highpass_s`` (looking down at a page and nodding) look like coupling
+    and are partly removed.
+
+    Parameters
+    ----------
+    centres_mm : (N, 2, 3) eyeball centres (right, left) in the camera frame, mm.
+    iris_px : (N, 2, 2) iris centres in px. K : (3, 3) camera matrix.
+    ok : (N,) bool frames to measure on (face found, eyes open).
+    t_s : (N,) frame times, s.
+
+    Returns
+    -------
+    corrected (N, 2, 3) centres and a record {eye: coupling m or None}.
+    """
+    from scipy.ndimage import uniform_filter1d
+
+    out = np.array(centres_mm, float).copy()
+    rec: dict = {}
+    n = len(out)
+    f, cy = float(K[0, 0]), float(K[1, 2])
+    for e, eye in enumerate(("right", "left")):
+        z = out[:, e, 2]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            c_px = cy + f * out[:, e, 1] / z
+        d = iris_px[:, e, 1] - c_px
+        use = np.asarray(ok, bool) & np.isfinite(d) & np.isfinite(c_px) & (z > 0)
+        idx = np.flatnonzero(use)
+        if len(idx) < 30:
+            rec[eye] = None
+            continue
+        dt = float(np.median(np.diff(np.asarray(t_s, float)[idx]))) if len(idx) > 1 else 1 / 30
+        dt = max(dt, 1e-3)
+        k_s = int(round(smooth_ms / 1e3 / dt)) | 1
+        k_h = int(round(highpass_s / dt)) | 1
+        if k_h < 5 or len(idx) < 2 * k_h:
+            rec[eye] = None
+            continue
+        frames = np.arange(n)
+        d_f = np.interp(frames, idx, d[idx])
+        c_f = np.interp(frames, idx, c_px[idx])
+        d_s = uniform_filter1d(d_f, k_s, mode="nearest") if k_s >= 3 else d_f
+        X = (d_s - uniform_filter1d(d_s, k_h, mode="nearest"))[use]
+        Y = (c_f - uniform_filter1d(c_f, k_h, mode="nearest"))[use]
+        sxx = float(X @ X)
+        if not sxx > 0:
+            rec[eye] = None
+            continue
+        m = float(np.clip((X @ Y) / sxx, 0.0, max_coupling))
+        shift_px = m * (d_s - np.median(d_s[use]))
+        found = np.isfinite(z) & (z > 0)
+        out[found, e, 1] -= shift_px[found] * z[found] / f
+        rec[eye] = round(m, 3)
+    return out, rec
+
+
 def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndarray, iris_px: np.ndarray,
                   iris_diam_px: np.ndarray, corners_px: np.ndarray, ear: np.ndarray, t_s: np.ndarray | None = None,
                   iris_mesh_px: np.ndarray | None = None, params: GazeParams = GazeParams()) -> tuple[dict, dict]:
@@ -282,8 +370,12 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
     open_level = float(np.nanmedian(ear_mean[found])) if found.any() else float("nan")
     aperture_rel = ear_mean / open_level if np.isfinite(open_level) and open_level > 0 else nanv
     eyes_open = found & (aperture_rel >= 0.8)
-    ok_scale = eyes_open & np.isfinite(z_iris) & (t[:, 2] > 0)
-    s = float(np.nanmedian(z_iris[ok_scale] / t[ok_scale, 2])) if ok_scale.sum() >= 3 else 1.0
+    # the iris diameter gives the distance of the irises, so it is compared with the depth of the model's iris
+    # points (the head origin lies 12 mm further back, between the eyeball centres)
+    iris_model = model.points_mm[[RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE]].mean(axis=0)
+    z_model_iris = np.einsum("nj,j->n", R[:, 2, :], iris_model) + t[:, 2]
+    ok_scale = eyes_open & np.isfinite(z_iris) & (z_model_iris > 0)
+    s = float(np.nanmedian(z_iris[ok_scale] / z_model_iris[ok_scale])) if ok_scale.sum() >= 3 else 1.0
     info["model_scale"] = s
     info["open_eye_ear"] = open_level
 
@@ -314,11 +406,18 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
         else:
             iris_px = np.where(np.isfinite(iris_px), iris_px, iris_mesh_px)
 
-    # --- per-eye gaze -----------------------------------------------------
+    # --- eyeball centres in the camera frame, freed of the eyes' pull on the face mesh -------------
     head_mid = t * s  # origin of the head frame (eyeball midpoint), mm
+    centres = np.stack([(np.einsum("nij,j->ni", R, centres_h[e]) + t) * s for e in range(2)], axis=1)  # (N, 2, 3)
+    if params.decouple_reference:
+        centres, info["reference_coupling"] = decouple_reference(
+            centres, iris_px, K, eyes_open, np.asarray(t_s, float), smooth_ms=float(params.head_smooth_ms),
+            highpass_s=float(params.decouple_highpass_s))
+
+    # --- per-eye gaze -----------------------------------------------------
     g_eyes = np.full((n, 2, 3), np.nan)
     for e in range(2):
-        C = (np.einsum("nij,j->ni", R, centres_h[e]) + t) * s  # (N, 3) mm
+        C = centres[:, e]  # (N, 3) mm
         ray = np.c_[iris_px[:, e], np.ones(n)] @ Kinv.T
         ok = found & np.all(np.isfinite(ray), axis=1) & np.all(np.isfinite(C), axis=1)
         if ok.any():

@@ -17,10 +17,14 @@ Geometry (all in the camera frame of :mod:`camgaze.schema`, millimetres):
   eyeball centres.
 * A head pose ``(R, T)`` moves a rest point ``P`` to ``R (P - O_rest) + T``
   with ``R = Ry(yaw) Rx(-pitch) Rz(-roll)`` (see :func:`head_rotation`).
-* The iris centre is ``eyeball_centre + 12 mm * g`` for the gaze direction
-  ``g``; the iris is a disc of diameter 11.7 mm perpendicular to ``g``,
-  drawn as its (affine-approximated) perspective image and clipped to the
-  eyelid opening.
+* The iris is a disc of diameter 11.7 mm perpendicular to the gaze
+  direction ``g`` whose rim lies on the eyeball sphere, so its centre is
+  ``eyeball_centre + sqrt(12^2 - 5.85^2) mm * g = eyeball_centre + 10.5 mm * g``
+  (the same geometry :mod:`camgaze.gaze` assumes). It is drawn as its
+  (affine-approximated) perspective image and clipped to the eyelid opening.
+  (The disc's centre used to sit on the sphere, 12 mm from the eyeball
+  centre: the drawn iris then moved 14 % further than the eyeball model
+  predicts, which inflated every measured gaze gain by that much.)
 
 The skin around the eyes follows the head by a piecewise-linear warp of the
 photograph from the rest landmarks to the posed landmarks (Delaunay
@@ -38,6 +42,8 @@ from .render_face import EYE_CONTOUR, EYE_IRIS, EYES, IRIS_DIAMETER_MM, FacePhot
 
 #: eyeball radius, mm (Bekerman, Gottlieb & Vaiman 2014 - field notes, from memory)
 EYEBALL_RADIUS_MM = 12.0
+#: distance of the iris plane's centre from the eyeball centre: the 11.7 mm iris disc's rim on the sphere, mm
+IRIS_PLANE_RADIUS_MM = float(np.sqrt(EYEBALL_RADIUS_MM ** 2 - (IRIS_DIAMETER_MM / 2) ** 2))
 #: pupil diameter drawn inside the iris, mm (a mid-range indoor pupil - common practice, from memory)
 PUPIL_DIAMETER_MM = 3.8
 _TEX_PX = 64  # side of the canonical iris texture
@@ -246,7 +252,7 @@ class FaceRig:
     def iris_centres_mm(self, R, T_mm, gaze: np.ndarray) -> dict:
         """3-D iris centres (camera frame, mm) for a head pose and a unit gaze vector."""
         _, eyes = self.pose(R, T_mm)
-        return {e: c + EYEBALL_RADIUS_MM * gaze for e, c in eyes.items()}
+        return {e: c + IRIS_PLANE_RADIUS_MM * gaze for e, c in eyes.items()}
 
     # ------------------------------------------------------------------ warp
     def _warped_base(self, dst_uv: np.ndarray) -> np.ndarray:

@@ -62,18 +62,21 @@ def test_recovered_yaw_follows_truth_with_still_head(rendered):
     s, truth = rendered["still_head"]
     assert s["valid"].mean() > 0.95
     r, gain = _fit(s["yaw_deg"].to_numpy(), truth["yaw_deg"].to_numpy())
-    assert r >= 0.95, f"yaw: r={r:.3f}"  # floor from the foundation issue
+    assert r >= 0.95, f"yaw: r={r:.3f}"  # issue 2 floor
+    # issue 2 floor 0.8-1.25; measured 0.89 (the face mesh's eyeball centres follow horizontal eye movement by
+    # 4-10 % and its iris diameter reads 3-5 % large; DEVELOPERS.md, known limits)
     assert 0.8 <= gain <= 1.25, f"yaw: gain={gain:.2f}"
 
 
 def test_recovered_pitch_follows_truth_with_still_head(rendered):
     s, truth = rendered["still_head"]
     r, gain = _fit(s["pitch_deg"].to_numpy(), truth["pitch_deg"].to_numpy())
-    # The issue's floors are r >= 0.95 and gain 0.8-1.25. Measured here: r 0.89, gain 0.52 (0.84 on a
-    # renderer without lid movement) - both floors are NOT yet met here (DEVELOPERS.md, known limits).
-    # These bounds guard what the limbus fit reaches; the face mesh's own point gives gain 0.21.
-    assert r >= 0.85, f"pitch: r={r:.3f}"
-    assert gain >= 0.4, f"pitch: gain={gain:.2f}"
+    # Issue 2 floors: r >= 0.95, gain 0.8-1.25 - NOT yet met here: measured r 0.935, gain 0.79 (astronaut
+    # face: 0.92, 0.82). The decoupled eyeball centre (gaze.decouple_reference) raised the gain from 0.50;
+    # what is left is mostly the limbus fit's vertical error when the lids cover the iris's top and bottom
+    # (DEVELOPERS.md, known limits). These bounds guard against regressions.
+    assert r >= 0.9, f"pitch: r={r:.3f}"
+    assert 0.7 <= gain <= 1.25, f"pitch: gain={gain:.2f}"
 
 
 def test_signs_follow_the_documented_frame(rendered):
@@ -97,7 +100,7 @@ def test_head_pose_tracks_rendered_head(rendered):
     s, truth = rendered["moving_head"]
     r, gain = _fit(s["head_yaw_deg"].to_numpy(), truth["head_yaw_deg"].to_numpy())
     assert r > 0.97
-    assert gain > 0.7  # measured 0.79 on this renderer (see DEVELOPERS.md, known limits)
+    assert gain > 0.7  # measured 0.77 on this renderer (see DEVELOPERS.md, known limits)
 
 
 def test_head_compensated_gaze_with_moving_head(rendered):
@@ -108,8 +111,9 @@ def test_head_compensated_gaze_with_moving_head(rendered):
     err = np.hypot(ey - np.median(ey), ep - np.median(ep))  # the constant offset (angle kappa) is unknowable
     r_yaw, _ = _fit(s["yaw_deg"].to_numpy(), truth["yaw_deg"].to_numpy())
     assert r_yaw >= 0.95
-    # the issue's floor is a 3 deg median error; NOT yet met: measured 5.1 deg here, mostly the pitch gain
-    # and the face mesh's under-reported head rotation (gain 0.78); this bound guards against regressions
+    # issue 2 floor: median error < 3 deg - NOT yet met: measured 4.8 deg here (astronaut face 5.8), mostly
+    # the face mesh's reading of the rendered head rotation (yaw gain 0.77, and the fitted eyeball centres
+    # wander with head yaw and pitch); this bound guards against regressions
     assert np.median(err) < 6.0
 
 

@@ -2,7 +2,7 @@
 import numpy as np
 import pytest
 
-from camgaze.gaze import _deming_slope, eye_aspect_ratio, fuse_iris_centres, smooth_pose
+from camgaze.gaze import _deming_slope, decouple_reference, eye_aspect_ratio, fuse_iris_centres, smooth_pose
 from camgaze.geometry import head_rotation
 from camgaze.limbus import fit_circle
 
@@ -88,3 +88,46 @@ def test_pose_smoothing_keeps_a_steady_turn_and_removes_jitter():
     assert np.abs(est[inner] - yaw[inner]).max() < 0.5  # centred: no lag on a steady turn
     assert (est[inner] - yaw[inner]).std() < 0.25  # jitter of 0.5 deg reduced
     assert ts[inner, 2].std() < 0.15
+
+
+def _coupled_clip(m_true, *, head_amp_mm=0.0, seed=0):
+    """Eyeball centres that follow the eyes' vertical offset by m_true (px per px), plus a slow head bob."""
+    rng = np.random.default_rng(seed)
+    n, f = 900, 1000.0
+    t = np.arange(n) / 30.0
+    K = np.array([[f, 0, 640.0], [0, f, 360.0], [0, 0, 1]])
+    z = 600.0
+    # fixations of 0.2-0.5 s at random heights (px offset of the iris from the true eyeball centre)
+    d_true = np.repeat(rng.uniform(-6, 6, n // 9 + 1), 9)[:n]
+    head_px = head_amp_mm * np.sin(2 * np.pi * t / 8.0) * f / z  # slow head motion, 8 s period
+    c_true_px = 360.0 + head_px
+    d_meas = d_true / (1 + m_true)  # C_meas = C_true + m d_meas and d_meas = d_true - (C_meas - C_true)
+    c_meas_px = c_true_px + m_true * d_meas
+    C = np.zeros((n, 2, 3))
+    C[:, :, 2] = z
+    C[:, :, 1] = ((c_meas_px - 360.0) * z / f)[:, None]
+    iris = np.zeros((n, 2, 2))
+    iris[:, :, 1] = (c_true_px + d_true + rng.normal(0, 0.2, n))[:, None]
+    return C, iris, K, t, c_true_px
+
+
+def test_decoupling_recovers_and_removes_the_eyes_pull_on_the_eyeball_centre():
+    C, iris, K, t, c_true_px = _coupled_clip(0.5, head_amp_mm=3.0)
+    out, rec = decouple_reference(C, iris, K, np.ones(len(t), bool), t, smooth_ms=0.0, highpass_s=2.0)
+    assert rec["right"] == pytest.approx(0.5, abs=0.05) and rec["left"] == pytest.approx(0.5, abs=0.05)
+    fixed_px = 360.0 + K[0, 0] * out[:, 0, 1] / out[:, 0, 2]
+    before = np.std((360.0 + K[0, 0] * C[:, 0, 1] / C[:, 0, 2]) - c_true_px)
+    after = np.std(fixed_px - c_true_px)
+    assert after < 0.15 * before  # the slow head motion is kept, the eyes' pull is gone
+
+
+def test_decoupling_leaves_an_uncoupled_centre_alone():
+    C, iris, K, t, _ = _coupled_clip(0.0, head_amp_mm=3.0, seed=1)
+    out, rec = decouple_reference(C, iris, K, np.ones(len(t), bool), t, smooth_ms=0.0, highpass_s=2.0)
+    assert rec["right"] < 0.05
+    assert np.abs(out[:, 0, 1] - C[:, 0, 1]).max() < 0.05  # mm
+    # too few usable frames: nothing measured, nothing changed
+    few = np.zeros(len(t), bool)
+    few[:10] = True
+    out2, rec2 = decouple_reference(C, iris, K, few, t, smooth_ms=0.0)
+    assert rec2["right"] is None and np.array_equal(out2, C)

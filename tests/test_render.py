@@ -11,7 +11,7 @@ import pytest
 from camgaze.atomic import sha256_file
 from camgaze.errors import Cancelled, ParameterError
 from camgaze.render import Trajectory, read_truth, render_clip, saccade_duration_ms, synth_trajectory
-from camgaze.render_frame import EYEBALL_RADIUS_MM, Camera, gaze_vector, head_rotation
+from camgaze.render_frame import EYEBALL_RADIUS_MM, IRIS_PLANE_RADIUS_MM, Camera, gaze_vector, head_rotation
 
 av = pytest.importorskip("av")
 
@@ -232,8 +232,10 @@ def test_truth_iris_positions_follow_the_eyeball_geometry(tmp_path):
         dx = b[f"{eye}_iris_x_px"] - a[f"{eye}_iris_x_px"]
         dy = c[f"{eye}_iris_y_px"] - a[f"{eye}_iris_y_px"]
         z = a["distance_mm"]
-        assert dx == pytest.approx(-f * EYEBALL_RADIUS_MM * np.sin(np.radians(15)) / z, rel=0.05)
-        assert dy == pytest.approx(-f * EYEBALL_RADIUS_MM * np.sin(np.radians(12)) / z, rel=0.05)
+        # the iris disc's centre turns on a 10.5 mm radius (its rim on the 12 mm eyeball)
+        assert IRIS_PLANE_RADIUS_MM == pytest.approx(np.sqrt(12.0 ** 2 - 5.85 ** 2))
+        assert dx == pytest.approx(-f * IRIS_PLANE_RADIUS_MM * np.sin(np.radians(15)) / z, rel=0.05)
+        assert dy == pytest.approx(-f * IRIS_PLANE_RADIUS_MM * np.sin(np.radians(12)) / z, rel=0.05)
     # the right eye is on the picture's left, about 60 mm apart (mediapipe's iris scale, brief)
     ipd_px = a["left_iris_x_px"] - a["right_iris_x_px"]
     assert ipd_px * a["distance_mm"] / f == pytest.approx(60, abs=6)
@@ -429,8 +431,8 @@ def test_face_mesh_iris_moves_the_way_the_schema_says(gaze_steps):
     res, lms = gaze_steps
     f = res.focal_px
     z = res.truth["distance_mm"].iloc[0]
-    expect_x = f * EYEBALL_RADIUS_MM * np.sin(np.radians(15)) / z  # px for 15 deg yaw
-    expect_y = f * EYEBALL_RADIUS_MM * np.sin(np.radians(12)) / z
+    expect_x = f * IRIS_PLANE_RADIUS_MM * np.sin(np.radians(15)) / z  # px for 15 deg yaw
+    expect_y = f * IRIS_PLANE_RADIUS_MM * np.sin(np.radians(12)) / z
 
     def iris(block):  # mean of both iris centres over the settled frames of a 6-frame block
         pts = [0.5 * (lms[i][0][468, :2] + lms[i][0][473, :2]) for i in range(block * 6 + 2, block * 6 + 6)]
