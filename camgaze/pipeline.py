@@ -17,9 +17,10 @@ run.json            sidecar: parameters, versions, input hash, quality, output c
 ==================  =========================================================
 
 Decoding runs in a background thread (:class:`camgaze.video.FramePrefetcher`)
-so it overlaps the face mesh; the per-frame work in Python is kept to reading
-the landmarks into one array and a PnP solve. Everything else is vectorised
-over the clip once landmarking is done. Memory grows only by the samples
+so it overlaps the face mesh; the per-frame head pose and iris refinement run
+beside both (:mod:`camgaze.frame_geometry`: a child process for clips of more
+than a few seconds, a thread otherwise). Everything else is vectorised over
+the clip once landmarking is done. Memory grows only by the samples
 table (about 300 bytes per frame), never by frames.
 """
 from __future__ import annotations
@@ -41,9 +42,8 @@ import pandas as pd
 from . import __version__
 from .atomic import sha256_file, sha256_json, write_csv, write_json, write_parquet
 from .errors import CamgazeInputError, Cancelled, NoFaceError
-from .gaze import GazeParams, estimate_gaze, frame_measurements
-from .limbus import limbus_centres
-from .headpose import HeadPoseSolver
+from .gaze import GazeParams, estimate_gaze
+from .frame_geometry import RECORD_WIDTH, frame_item, start_geometry
 from .landmarks import FaceTracker, mediapipe_version, parse_face_choice
 from .schema import SAMPLE_COLUMNS
 from .video import DecodeReport, FramePrefetcher, probe
@@ -140,54 +140,13 @@ class _Grow:
         return self.a[: self.n]
 
 
-_REC = 1 + 1 + 1 + 9 + 3 + 4 + 2 + 8 + 2 + 4
-
-
-class _FrameGeometry:
-    """Per-frame head pose and eye measurements, as one row of the per-frame record."""
-
-    def __init__(self, params: ProcessParams):
-        self.params = params
-        self.solver: HeadPoseSolver | None = None
-        self.size = None
-        self.size_changes = 0
-
-    def row(self, fr, obs) -> np.ndarray:
-        h, w = fr.image.shape[:2]
-        if self.size != (w, h):
-            if self.size is not None:
-                self.size_changes += 1
-            self.size = (w, h)
-            self.solver = HeadPoseSolver(w, h, fov_deg=self.params.fov_deg)
-        row = np.full(_REC, np.nan)
-        row[0] = fr.pts_s
-        row[1] = 0.0
-        row[2] = 0.0
-        if obs is None:
-            return row
-        row[2] = obs.face_count
-        pose = self.solver.solve(obs.points_px)
-        if pose is None:
-            return row
-        R, t = pose
-        m = frame_measurements(obs.points_px)
-        iris = m["iris_px"]
-        if self.params.gaze.refine_iris:
-            iris, _ = limbus_centres(fr.image, obs.points_px, iris, m["iris_diam_px"])
-        row[1] = 1.0
-        row[3:12] = R.ravel()
-        row[12:15] = t
-        row[15:19] = iris.ravel()
-        row[19:21] = m["iris_diam_px"]
-        row[21:29] = m["corners_px"].ravel()
-        row[29:31] = m["ear"]
-        row[31:35] = m["iris_px"].ravel()
-        return row
-
-
 def extract_samples(clip_path, *, params: ProcessParams | None = None, progress: ProgressFn | None = None,
-                    cancel=None) -> tuple[pd.DataFrame, dict]:
+                    cancel=None, geometry_mode: str = "auto") -> tuple[pd.DataFrame, dict]:
     """Decode, landmark and estimate gaze for every frame of a clip.
+
+    ``geometry_mode`` says where the per-frame head pose and iris refinement
+    run: ``"auto"`` (a child process for clips of 450 frames or more, else a
+    thread), ``"thread"`` or ``"process"``; the results are the same.
 
     Returns
     -------
@@ -200,54 +159,39 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     info = probe(clip)
     n_hint = max(int(info.frame_count_hint or 0), 1)
     report = DecodeReport()
-    rec = _Grow(_REC, cap=min(max(n_hint + 16, 64), 1 << 20))
+    rec = _Grow(RECORD_WIDTH, cap=min(max(n_hint + 16, 64), 1 << 20))
     t0 = time.perf_counter()
-    geo = _FrameGeometry(params)
+    refine = bool(params.gaze.refine_iris)
     tracker = FaceTracker(max_faces=params.max_faces, face=params.face)
     prefetch = FramePrefetcher(clip, report=report, cancel=cancel)
     # Three stages overlap: decoding (its own thread), the face mesh (here), and the per-frame
-    # geometry - head pose, iris refinement - for the previous frame (a worker thread). The mesh and
-    # OpenCV release the GIL while they compute; a short switch interval hands it over promptly.
+    # geometry - head pose, iris refinement - in a child process for clips of more than a few
+    # seconds (camgaze.frame_geometry). The mesh and OpenCV release the GIL while they compute;
+    # a short switch interval hands it over promptly.
     old_switch = sys.getswitchinterval()
     sys.setswitchinterval(0.0005)
-    work: queue.Queue = queue.Queue(maxsize=8)
-    failure: list = []
-
-    def _geometry_worker():
-        try:
-            while True:
-                item = work.get()
-                if item is None:
-                    return
-                rec.append(geo.row(*item))
-        except BaseException as exc:  # noqa: BLE001 - handed to the main thread
-            failure.append(exc)
-            while work.get() is not None:  # drain so the producer never blocks
-                pass
-
-    worker = threading.Thread(target=_geometry_worker, name="camgaze-geometry", daemon=True)
-    worker.start()
+    geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=rec.append, frames_hint=n_hint,
+                              mode=geometry_mode)
     n_in = 0
+    state = None
     try:
         for fr in prefetch:
             if cancel is not None and cancel.is_set():
                 raise Cancelled(f"cancelled while processing {clip.name}")
-            if failure:
-                raise failure[0]
+            geometry.check()
             obs = tracker.process(fr.image)
-            work.put((fr, obs))
+            geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine))
             n_in += 1
             if progress is not None and (n_in % 10 == 0):
                 progress(min(n_in / n_hint, 0.99), f"{clip.name}: frame {n_in} of about {n_hint}")
+        state = geometry.finish()
     finally:
-        work.put(None)
-        worker.join()
+        if state is None:
+            geometry.abort()
         sys.setswitchinterval(old_switch)
         prefetch.close()
         tracker.close()
-    if failure:
-        raise failure[0]
-    solver, size, size_changes = geo.solver, geo.size, geo.size_changes
+    size, size_changes = state["size"], state["size_changes"]
     t_land = time.perf_counter() - t0
     a = rec.view()
     n = len(a)
@@ -255,7 +199,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     Rm = np.nan_to_num(a[:, 3:12]).reshape(n, 3, 3)
     Rm[~found] = np.eye(3)
     tm = np.nan_to_num(a[:, 12:15], nan=1.0)
-    K = solver.K if solver is not None else np.eye(3)
+    K = np.asarray(state["K"]) if state["K"] is not None else np.eye(3)
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=a[:, 15:19].reshape(n, 2, 2), iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
@@ -279,6 +223,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         "camera_matrix": K.tolist(),
         "face_tracking": {"multi_face_from_frame": tracker.multi_face_from_frame,
                           "check_every_frames": tracker.check_every},
+        "geometry_ran_in": geometry.kind,
         "landmarking_s": round(t_land, 3),
         "landmarking_fps": round(n / t_land, 1) if t_land > 0 else None,
     }

@@ -1,0 +1,314 @@
+"""Per-frame geometry (head pose, iris refinement) beside the face mesh.
+
+For every frame the face mesh has landmarked, :class:`FrameGeometry` solves
+the head pose and refines both iris centres from the picture, giving one row
+of the per-frame record (layout: :data:`RECORD_COLUMNS`). This work is
+Python and NumPy and holds the interpreter lock for about 2 ms a frame, as
+long as the face mesh's own Python share; run in a thread of the same
+process it keeps the mesh waiting for the lock. So for clips of more than a
+few seconds it runs in a separate process (:class:`GeometryProcess`) that
+receives only what it needs: the landmarks and a crop of the picture around
+both eyes (about 30 kB at 720p). Short clips, and processes that may not
+start children (e.g. daemonic cluster workers), use a thread
+(:class:`GeometryThread`). Both give identical rows (a test compares them).
+"""
+from __future__ import annotations
+
+import multiprocessing as mp
+import queue
+import threading
+
+import numpy as np
+
+from .gaze import frame_measurements
+from .headpose import HeadPoseSolver
+from .limbus import limbus_centres
+
+#: columns of one row of the per-frame record (the width of each block in brackets)
+RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_mm", 3), ("iris_px", 4),
+                  ("iris_diam_px", 2), ("corners_px", 8), ("ear", 2), ("iris_mesh_px", 4))
+RECORD_WIDTH = sum(n for _, n in RECORD_COLUMNS)
+
+#: frames per message to the geometry process
+_BATCH = 8
+#: clips shorter than this (frames) use the thread: starting a process costs about a second
+PROCESS_MIN_FRAMES = 450
+#: iris radii around each mesh iris point that the crop keeps; must cover the region
+#: :func:`camgaze.limbus.limbus_centres` reads (2.6 radii), which a test checks
+ROI_RADII = 3.0
+
+
+def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int]) -> tuple[int, int, int, int] | None:
+    """``(x0, y0, x1, y1)``: the part of the picture the iris refinement reads, or None.
+
+    The union of the limbus fit's two eye regions (:data:`ROI_RADII` iris radii around each
+    mesh iris point) with a 2 px margin, clipped to
+    the picture.
+    """
+    w, h = size_px
+    m = frame_measurements(points_px)
+    c, r = m["iris_px"], 0.5 * m["iris_diam_px"]
+    if not (np.all(np.isfinite(c)) and np.all(np.isfinite(r))):
+        return None
+    reach = ROI_RADII * r[:, None] + 2.0
+    x0 = int(max(0, np.floor((c[:, 0] - reach[:, 0]).min())))
+    y0 = int(max(0, np.floor((c[:, 1] - reach[:, 0]).min())))
+    x1 = int(min(w, np.ceil((c[:, 0] + reach[:, 0]).max()) + 1))
+    y1 = int(min(h, np.ceil((c[:, 1] + reach[:, 0]).max()) + 1))
+    if x1 <= x0 or y1 <= y0:
+        return None
+    return x0, y0, x1, y1
+
+
+class FrameGeometry:
+    """Head pose and eye measurements of one frame, as one record row.
+
+    Parameters
+    ----------
+    fov_deg : float
+        Assumed horizontal field of view of the camera.
+    refine_iris : bool
+        Refine the iris centres by the limbus fit.
+    """
+
+    def __init__(self, *, fov_deg: float, refine_iris: bool):
+        self.fov_deg = float(fov_deg)
+        self.refine_iris = bool(refine_iris)
+        self.solver: HeadPoseSolver | None = None
+        self.size: tuple[int, int] | None = None
+        self.size_changes = 0
+
+    def row(self, pts_s: float, size_px: tuple[int, int], points_px: np.ndarray | None, face_count: int,
+            eyes: np.ndarray | None = None, eyes_origin_px=(0, 0)) -> np.ndarray:
+        """One record row.
+
+        ``eyes`` is the picture (or the crop of it at ``eyes_origin_px`` that
+        :func:`eye_crop_box` gives) the iris refinement reads.
+        """
+        w, h = size_px
+        if self.size != (w, h):
+            if self.size is not None:
+                self.size_changes += 1
+            self.size = (w, h)
+            self.solver = HeadPoseSolver(w, h, fov_deg=self.fov_deg)
+        row = np.full(RECORD_WIDTH, np.nan)
+        row[0] = pts_s
+        row[1] = 0.0
+        row[2] = 0.0
+        if points_px is None:
+            return row
+        row[2] = face_count
+        pose = self.solver.solve(points_px)
+        if pose is None:
+            return row
+        R, t = pose
+        m = frame_measurements(points_px)
+        iris = m["iris_px"]
+        if self.refine_iris and eyes is not None:
+            off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
+            local = points_px - off
+            iris, _ = limbus_centres(eyes, local, iris - off[:2], m["iris_diam_px"])
+            iris = iris + off[:2]
+        row[1] = 1.0
+        row[3:12] = R.ravel()
+        row[12:15] = t
+        row[15:19] = iris.ravel()
+        row[19:21] = m["iris_diam_px"]
+        row[21:29] = m["corners_px"].ravel()
+        row[29:31] = m["ear"]
+        row[31:35] = m["iris_px"].ravel()
+        return row
+
+    def state(self) -> dict:
+        return {"K": None if self.solver is None else self.solver.K, "size": self.size,
+                "size_changes": self.size_changes}
+
+
+def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool) -> tuple:
+    """What the geometry of one frame needs, with the picture cut down to the eyes."""
+    h, w = image.shape[:2]
+    if obs is None:
+        return pts_s, (w, h), None, 0, None, (0, 0)
+    eyes, origin = None, (0, 0)
+    if refine_iris:
+        box = eye_crop_box(obs.points_px, (w, h))
+        if box is not None:
+            x0, y0, x1, y1 = box
+            eyes, origin = np.ascontiguousarray(image[y0:y1, x0:x1]), (x0, y0)
+    return pts_s, (w, h), obs.points_px, obs.face_count, eyes, origin
+
+
+class GeometryThread:
+    """Runs :class:`FrameGeometry` on a worker thread of this process."""
+
+    kind = "thread"
+
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink):
+        self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris)
+        self._sink = sink
+        self._q: queue.Queue = queue.Queue(maxsize=8)
+        self._failure: list[BaseException] = []
+        self._thread = threading.Thread(target=self._run, name="camgaze-geometry", daemon=True)
+        self._thread.start()
+
+    def _run(self):
+        try:
+            while True:
+                item = self._q.get()
+                if item is None:
+                    return
+                self._sink(self._geo.row(*item))
+        except BaseException as exc:  # noqa: BLE001 - handed to the submitting thread
+            self._failure.append(exc)
+            while self._q.get() is not None:  # drain so the producer never blocks
+                pass
+
+    def check(self) -> None:
+        if self._failure:
+            raise self._failure[0]
+
+    def submit(self, item: tuple) -> None:
+        self._q.put(item)
+
+    def finish(self) -> dict:
+        self._q.put(None)
+        self._thread.join()
+        self.check()
+        return self._geo.state()
+
+    def abort(self) -> None:
+        self._q.put(None)
+        self._thread.join(timeout=10)
+
+
+def _process_main(conn, fov_deg: float, refine_iris: bool) -> None:
+    geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris)
+    try:
+        while True:
+            try:
+                batch = conn.recv()
+            except EOFError:  # the parent is gone
+                return
+            if batch is None:
+                conn.send(("state", geo.state()))
+                return
+            conn.send(("rows", np.stack([geo.row(*item) for item in batch])))
+    except (EOFError, OSError):  # the parent is gone
+        return
+    except BaseException as exc:  # noqa: BLE001 - reported to the parent
+        for report in (exc, RuntimeError(f"{type(exc).__name__}: {exc}")):  # the second if the first does not pickle
+            try:
+                conn.send(("error", report))
+                break
+            except (EOFError, OSError):
+                break
+            except Exception:  # noqa: BLE001
+                continue
+    finally:
+        conn.close()
+
+
+class GeometryProcess:
+    """Runs :class:`FrameGeometry` in a child process (spawned, so safe beside the mesh's threads).
+
+    Frames go over a pipe in batches of a few, from a sender thread so the
+    caller never waits for the child; a receiver thread hands rows to
+    ``sink`` in frame order. Raises :class:`OSError` / ``AssertionError``
+    from the constructor when this process may not start children.
+    """
+
+    kind = "process"
+
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink):
+        ctx = mp.get_context("spawn")
+        self._sink = sink
+        self._conn, child = ctx.Pipe()
+        self._proc = ctx.Process(target=_process_main, args=(child, fov_deg, refine_iris),
+                                 name="camgaze-geometry", daemon=True)
+        self._proc.start()
+        child.close()
+        self._out: queue.Queue = queue.Queue(maxsize=64)
+        self._pending: list = []
+        self._failure: list[BaseException] = []
+        self._state: dict | None = None
+        self._sender = threading.Thread(target=self._send, name="camgaze-geometry-send", daemon=True)
+        self._receiver = threading.Thread(target=self._receive, name="camgaze-geometry-receive", daemon=True)
+        self._sender.start()
+        self._receiver.start()
+
+    def _send(self):
+        try:
+            while True:
+                batch = self._out.get()
+                self._conn.send(batch)
+                if batch is None:
+                    return
+        except (OSError, EOFError, BrokenPipeError) as exc:
+            self._failure.append(RuntimeError(f"the geometry process stopped unexpectedly ({exc})"))
+            while self._out.get() is not None:
+                pass
+
+    def _receive(self):
+        try:
+            while True:
+                kind, payload = self._conn.recv()
+                if kind == "rows":
+                    for r in payload:
+                        self._sink(r)
+                elif kind == "state":
+                    self._state = payload
+                    return
+                else:
+                    self._failure.append(payload)
+                    return
+        except (OSError, EOFError) as exc:
+            self._failure.append(RuntimeError(
+                f"the geometry process stopped unexpectedly (exit code {self._proc.exitcode}; {exc!r})"))
+
+    def check(self) -> None:
+        if self._failure:
+            raise self._failure[0]
+
+    def submit(self, item: tuple) -> None:
+        self._pending.append(item)
+        if len(self._pending) >= _BATCH:
+            self._out.put(self._pending)
+            self._pending = []
+
+    def finish(self) -> dict:
+        if self._pending:
+            self._out.put(self._pending)
+            self._pending = []
+        self._out.put(None)
+        self._sender.join()
+        self._receiver.join()
+        self._proc.join(timeout=10)
+        self.check()
+        if self._state is None:
+            raise RuntimeError("the geometry process ended without its final report")
+        return self._state
+
+    def abort(self) -> None:
+        self._pending = []
+        self._out.put(None)
+        self._sender.join(timeout=5)
+        self._proc.join(timeout=2)
+        if self._proc.is_alive():
+            self._proc.terminate()
+            self._proc.join(timeout=5)
+        self._receiver.join(timeout=5)
+        self._conn.close()
+
+
+def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto"):
+    """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, or when
+    this process may not start children); ``mode`` forces ``"thread"`` or ``"process"``."""
+    if mode not in ("auto", "thread", "process"):
+        raise ValueError(f"geometry mode must be auto, thread or process, got {mode!r}")
+    if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES):
+        try:
+            return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink)
+        except (AssertionError, OSError, RuntimeError):  # e.g. "daemonic processes are not allowed to have children"
+            if mode == "process":
+                raise
+    return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink)

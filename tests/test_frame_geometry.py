@@ -1,0 +1,140 @@
+"""Per-frame geometry: the eye crop, and the thread and child-process runners giving the same rows.
+
+Reference for every comparison: the same computation on the full picture in
+this process (camgaze's own thread path), so any difference is an error of
+the crop or of the transport.
+"""
+from __future__ import annotations
+
+import os
+import signal
+import time
+
+import numpy as np
+import pytest
+
+from camgaze.frame_geometry import (RECORD_WIDTH, FrameGeometry, GeometryProcess, eye_crop_box, frame_item,
+                                    start_geometry)
+from camgaze.landmarks import FaceTracker
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def frames_and_faces(tmp_path_factory):
+    from camgaze.render import render_clip, synth_trajectory
+    from camgaze.video import iter_frames
+
+    clip = tmp_path_factory.mktemp("geo") / "p01_s01.mp4"
+    render_clip(clip, synth_trajectory(duration_s=1.5, seed=4, head_motion=True), size_px=(640, 360), fps=30.0,
+                seed=4)
+    frs = list(iter_frames(clip))
+    with FaceTracker(max_faces=1) as tr:
+        obs = [tr.process(f.image) for f in frs]
+    assert sum(o is not None for o in obs) >= 0.9 * len(obs)
+    return frs, obs
+
+
+def test_eye_crop_gives_the_rows_of_the_full_picture(frames_and_faces):
+    frs, obs = frames_and_faces
+    full, cropped = FrameGeometry(fov_deg=60.0, refine_iris=True), FrameGeometry(fov_deg=60.0, refine_iris=True)
+    n_refined = 0
+    for fr, o in zip(frs, obs):
+        h, w = fr.image.shape[:2]
+        a = full.row(fr.pts_s, (w, h), None if o is None else o.points_px, 0 if o is None else o.face_count,
+                     fr.image, (0, 0))
+        b = cropped.row(*frame_item(fr.pts_s, fr.image, o, refine_iris=True))
+        np.testing.assert_allclose(b, a, rtol=0, atol=1e-9, equal_nan=True)
+        if o is not None:
+            n_refined += int(np.any(np.abs(a[15:19] - a[31:35]) > 1e-6))  # the limbus fit moved the point
+            x0, y0, x1, y1 = eye_crop_box(o.points_px, (w, h))
+            assert 0 <= x0 < x1 <= w and 0 <= y0 < y1 <= h
+            assert (x1 - x0) * (y1 - y0) < 0.1 * w * h  # a small part of the picture travels
+    assert n_refined > 0.5 * len(frs)
+
+
+def test_crop_at_the_picture_edge_is_clipped(frames_and_faces):
+    _, obs = frames_and_faces
+    o = next(o for o in obs if o is not None)
+    pts = o.points_px.copy()
+    pts[:, 0] -= pts[[468, 473], 0].min() - 5.0  # an iris 5 px from the left edge
+    x0, _, x1, _ = eye_crop_box(pts, (640, 360))
+    assert x0 == 0 and x1 <= 640
+    bad = pts.copy()
+    bad[468, 0] = np.nan
+    assert eye_crop_box(bad, (640, 360)) is None
+
+
+def _run(runner_cls_or_mode, items):
+    rows = []
+    g = start_geometry(fov_deg=60.0, refine_iris=True, sink=rows.append, frames_hint=len(items),
+                       mode=runner_cls_or_mode)
+    for it in items:
+        g.submit(it)
+    state = g.finish()
+    return g.kind, np.array(rows), state
+
+
+def test_thread_and_process_give_identical_rows(frames_and_faces):
+    frs, obs = frames_and_faces
+    items = [frame_item(f.pts_s, f.image, o, refine_iris=True) for f, o in zip(frs, obs)]
+    k1, a, s1 = _run("thread", items)
+    k2, b, s2 = _run("process", items)
+    assert (k1, k2) == ("thread", "process")
+    assert a.shape == b.shape == (len(frs), RECORD_WIDTH)
+    np.testing.assert_array_equal(a, b)  # same code, same inputs, bit for bit
+    np.testing.assert_array_equal(np.asarray(s1["K"]), np.asarray(s2["K"]))
+    assert s1["size"] == s2["size"] == (640, 360)
+    assert np.all(np.diff(b[:, 0]) > 0)  # frame order kept
+
+
+def test_auto_mode_uses_a_thread_for_short_clips():
+    g = start_geometry(fov_deg=60.0, refine_iris=False, sink=lambda r: None, frames_hint=10)
+    assert g.kind == "thread"
+    g.finish()
+    with pytest.raises(ValueError, match="geometry mode"):
+        start_geometry(fov_deg=60.0, refine_iris=False, sink=lambda r: None, frames_hint=10, mode="gpu")
+
+
+def test_error_in_the_child_reaches_the_caller(frames_and_faces):
+    frs, obs = frames_and_faces
+    o = next(o for o in obs if o is not None)
+    g = GeometryProcess(fov_deg=60.0, refine_iris=True, sink=lambda r: None)
+    g.submit((0.0, (640, 360), o.points_px[:10], 1, None, (0, 0)))  # 10 landmarks instead of 478
+    with pytest.raises(Exception) as ei:
+        g.finish()
+    assert "index" in str(ei.value) or "shape" in str(ei.value) or "size" in str(ei.value), ei.value
+    g.abort()
+
+
+def test_child_killed_is_reported_not_hung(frames_and_faces):
+    frs, obs = frames_and_faces
+    g = GeometryProcess(fov_deg=60.0, refine_iris=True, sink=lambda r: None)
+    os.kill(g._proc.pid, signal.SIGKILL)
+    g._proc.join(timeout=10)
+    t0 = time.monotonic()
+    for f, o in zip(frs, obs):
+        g.submit(frame_item(f.pts_s, f.image, o, refine_iris=True))
+    with pytest.raises(RuntimeError, match="geometry process stopped unexpectedly"):
+        g.finish()
+    assert time.monotonic() - t0 < 30  # a generous bound against a hang, not a timing test
+    g.abort()
+
+
+def _kind_in_daemon(q):
+    g = start_geometry(fov_deg=60.0, refine_iris=False, sink=lambda r: None, frames_hint=100_000)
+    q.put(g.kind)
+    g.finish()
+
+
+def test_daemonic_process_falls_back_to_a_thread():
+    # cluster workers (e.g. dask.distributed's, by default) are daemonic and may not start children
+    import multiprocessing as mp
+
+    ctx = mp.get_context("spawn")
+    q = ctx.Queue()
+    p = ctx.Process(target=_kind_in_daemon, args=(q,), daemon=True)
+    p.start()
+    kind = q.get(timeout=120)
+    p.join(timeout=30)
+    assert kind == "thread" and p.exitcode == 0
