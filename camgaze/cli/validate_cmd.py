@@ -100,6 +100,9 @@ def run(args) -> int:
             raise ParameterError("give either WEBCAM REFERENCE or --manifest, not both")
         if folder_mode:
             return _run_folders(args, params, screen, mapping)
+        if args.dry_run or args.save_manifest or args.labels or args.reference_glob:
+            raise ParameterError("--dry-run, --save-manifest, --labels and --reference-glob pair two folders; a "
+                                 "manifest is already paired", hint="drop them, or give WEBCAM_FOLDER REFERENCE_FOLDER")
         res = validate_study(args.manifest, args.out, params=params, screen=screen, mapping=mapping,
                              figures=not args.no_figures,
                              progress=lambda f, m: print(f"[{f:4.0%}] {m}", file=sys.stderr))
