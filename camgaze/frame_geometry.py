@@ -22,7 +22,7 @@ import numpy as np
 
 from .gaze import frame_measurements
 from .headpose import HeadPoseSolver
-from .limbus import limbus_centres
+from .limbus import ROI_RADII, limbus_centres
 
 #: columns of one row of the per-frame record (the width of each block in brackets)
 RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_mm", 3), ("iris_px", 4),
@@ -33,16 +33,13 @@ RECORD_WIDTH = sum(n for _, n in RECORD_COLUMNS)
 _BATCH = 8
 #: clips shorter than this (frames) use the thread: starting a process costs about a second
 PROCESS_MIN_FRAMES = 450
-#: iris radii around each mesh iris point that the crop keeps; must cover the region
-#: :func:`camgaze.limbus.limbus_centres` reads (2.6 radii), which a test checks
-ROI_RADII = 3.0
 
 
 def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int]) -> tuple[int, int, int, int] | None:
     """``(x0, y0, x1, y1)``: the part of the picture the iris refinement reads, or None.
 
-    The union of the limbus fit's two eye regions (:data:`ROI_RADII` iris radii around each
-    mesh iris point) with a 2 px margin, clipped to
+    The union of the limbus fit's two eye regions (:data:`camgaze.limbus.ROI_RADII`
+    iris radii around each mesh iris point) with a 2 px margin, clipped to
     the picture.
     """
     w, h = size_px

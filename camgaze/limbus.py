@@ -24,6 +24,12 @@ import numpy as np
 from ._env import import_cv2
 from .landmarks import LEFT_EYE_OUTLINE, RIGHT_EYE_OUTLINE
 
+_OUTLINES = (np.array(RIGHT_EYE_OUTLINE), np.array(LEFT_EYE_OUTLINE))
+_THIRDS = np.full((1, 3), 1.0 / 3.0, np.float32)  # grey = mean of R, G, B
+_RAYS: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+#: the eye region read around each mesh iris point, in iris radii
+ROI_RADII = 2.6
+
 
 def _parabola_peak(v: np.ndarray, i: int) -> float:
     if 0 < i < len(v) - 1:
@@ -32,6 +38,19 @@ def _parabola_peak(v: np.ndarray, i: int) -> float:
         if np.isfinite(den) and den != 0:
             return i + float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
     return float(i)
+
+
+def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[float, float, float]:
+    """Solution of a 3x3 linear system by Cramer's rule (in Python floats: the system is tiny)."""
+    (a, b_, c), (d, e, f), (g, h, i) = A.tolist()
+    u, v, w = b.tolist()
+    det = a * (e * i - f * h) - b_ * (d * i - f * g) + c * (d * h - e * g)
+    if det == 0.0 or not np.isfinite(det):
+        return float("nan"), float("nan"), float("nan")
+    x = (u * (e * i - f * h) - b_ * (v * i - f * w) + c * (v * h - e * w)) / det
+    y = (a * (v * i - f * w) - u * (d * i - f * g) + c * (d * w - v * g)) / det
+    z = (a * (e * w - v * h) - b_ * (d * w - v * g) + u * (d * h - e * g)) / det
+    return x, y, z
 
 
 def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: float = 0.2,
@@ -48,24 +67,24 @@ def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: flo
     r = float(r0)
     lo, hi = r0 * (1 - r_tol), r0 * (1 + r_tol)
     ridge = 1e-6 * np.eye(3)
+    J = np.ones((3, len(px)))
     for _ in range(iterations):
         dx, dy = px - cx, py - cy
-        dist = np.maximum(np.sqrt(dx * dx + dy * dy), 1e-9)
+        dist = np.sqrt(dx * dx + dy * dy)
+        np.maximum(dist, 1e-9, out=dist)
         res = dist - r
-        ares = np.abs(res)
-        w = np.where(ares <= huber_px, 1.0, huber_px / np.maximum(ares, 1e-12))
-        ux, uy = dx / dist, dy / dist
-        wux, wuy = w * ux, w * uy
-        # the Jacobian of res wrt (cx, cy, r) is (-ux, -uy, -1)
-        A = np.array([[wux @ ux, wux @ uy, wux.sum()],
-                      [wux @ uy, wuy @ uy, wuy.sum()],
-                      [wux.sum(), wuy.sum(), w.sum()]]) + ridge
-        gvec = np.array([wux @ res, wuy @ res, w @ res])
-        step = np.linalg.solve(A, gvec)  # = -(J'WJ)^-1 J'W res
-        cx += step[0]
-        cy += step[1]
-        r = min(max(r + step[2], lo), hi)
-        if abs(step[0]) < 1e-2 and abs(step[1]) < 1e-2 and abs(step[2]) < 1e-2:
+        w = huber_px / np.maximum(np.abs(res), huber_px)  # 1 within huber_px, huber_px / |res| beyond
+        # the Jacobian of res wrt (cx, cy, r) is -(ux, uy, 1)
+        np.divide(dx, dist, out=J[0])
+        np.divide(dy, dist, out=J[1])
+        Jw = J * w
+        sx, sy, sr = _solve3(Jw @ J.T + ridge, Jw @ res)  # = -(J'WJ)^-1 J'W res
+        if not (np.isfinite(sx) and np.isfinite(sy) and np.isfinite(sr)):
+            break
+        cx += sx
+        cy += sy
+        r = min(max(r + sr, lo), hi)
+        if abs(sx) < 1e-2 and abs(sy) < 1e-2 and abs(sr) < 1e-2:
             break
     dx, dy = px - cx, py - cy
     res = np.sqrt(dx * dx + dy * dy) - r
@@ -103,23 +122,26 @@ def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray
     out = np.array(iris_px, float).copy()
     fitted = np.zeros(2, bool)
     h, w = image.shape[:2]
-    ang = np.linspace(0, 2 * np.pi, n_rays, endpoint=False)
-    cos_a, sin_a = np.cos(ang), np.sin(ang)
-    for e, outline in enumerate((RIGHT_EYE_OUTLINE, LEFT_EYE_OUTLINE)):
+    if n_rays not in _RAYS:
+        ang = np.linspace(0, 2 * np.pi, n_rays, endpoint=False)
+        _RAYS[n_rays] = (np.cos(ang), np.sin(ang))
+    cos_a, sin_a = _RAYS[n_rays]
+    for e, outline in enumerate(_OUTLINES):
         r = 0.5 * float(iris_diam_px[e])
         c0 = np.array(iris_px[e], float)
         if not (np.isfinite(r) and r >= 2.5 and np.all(np.isfinite(c0))):
             continue
         # the eye region, its smoothed grey picture and the distance to the lids, once per eye
-        x0, x1 = int(max(0, np.floor(c0[0] - 2.6 * r))), int(min(w, np.ceil(c0[0] + 2.6 * r) + 1))
-        y0, y1 = int(max(0, np.floor(c0[1] - 2.6 * r))), int(min(h, np.ceil(c0[1] + 2.6 * r) + 1))
+        reach = ROI_RADII * r
+        x0, x1 = int(max(0, np.floor(c0[0] - reach))), int(min(w, np.ceil(c0[0] + reach) + 1))
+        y0, y1 = int(max(0, np.floor(c0[1] - reach))), int(min(h, np.ceil(c0[1] + reach) + 1))
         if x1 - x0 < 8 or y1 - y0 < 8:
             continue
         roi = image[y0:y1, x0:x1]
-        g = roi.astype(np.float32).mean(axis=2) if roi.ndim == 3 else roi.astype(np.float32)
+        g = cv2.transform(roi.astype(np.float32), _THIRDS) if roi.ndim == 3 else roi.astype(np.float32)
         g = cv2.GaussianBlur(g, (3, 3), 0.8)
         mask = np.zeros(g.shape, np.uint8)
-        cv2.fillPoly(mask, [np.round(points_px[list(outline), :2] - [x0, y0]).astype(np.int32)], 1)
+        cv2.fillPoly(mask, [np.round(points_px[outline, :2] - np.array([x0, y0])).astype(np.int32)], 1)
         dist = cv2.distanceTransform(mask, cv2.DIST_L2, 3)
         radii = np.linspace(0.6 * r, 1.5 * r, max(12, int(np.ceil(1.8 * r))))
         cur = c0 - [x0, y0]
@@ -144,17 +166,18 @@ def _fit_one(cv2, g, dist, centre, r, radii, cos_a, sin_a, min_points):
     k = np.arange(n_rays)
     i = np.argmax(step, axis=1)
     peak = step[k, i]
-    il, ir = np.clip(i - 1, 0, step.shape[1] - 1), np.clip(i + 1, 0, step.shape[1] - 1)
+    last = step.shape[1] - 1
+    il, ir = np.maximum(i - 1, 0), np.minimum(i + 1, last)
     a_, c_ = step[k, il], step[k, ir]
     den = a_ - 2 * peak + c_
-    inner = (i > 0) & (i < step.shape[1] - 1) & (den < 0)
-    frac = np.where(inner, np.clip(0.5 * (a_ - c_) / np.where(den == 0, -1, den), -0.5, 0.5), 0.0)
+    inner = (i > 0) & (i < last) & (den < 0)
+    frac = np.where(inner, np.minimum(np.maximum(0.5 * (a_ - c_) / np.where(den == 0, -1, den), -0.5), 0.5), 0.0)
     rr = np.interp(i + frac + 0.5, np.arange(len(radii)), radii)
     qx = cx + cos_a * rr
     qy = cy + sin_a * rr
     # inside the eye opening, at least 2 px (distance transform) from the lid outline
-    xi = np.clip(np.round(qx).astype(int), 0, g.shape[1] - 1)
-    yi = np.clip(np.round(qy).astype(int), 0, g.shape[0] - 1)
+    xi = np.minimum(np.maximum(np.round(qx).astype(np.intp), 0), g.shape[1] - 1)
+    yi = np.minimum(np.maximum(np.round(qy).astype(np.intp), 0), g.shape[0] - 1)
     keep = (peak > 2.0) & (dist[yi, xi] >= 2.0)  # > 2 grey levels per sample: a real edge
     if keep.sum() < min_points:
         return None
