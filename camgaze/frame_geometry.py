@@ -8,15 +8,18 @@ long as the face mesh's own Python share; run in a thread of the same
 process it keeps the mesh waiting for the lock. So for clips of more than a
 few seconds it runs in a separate process (:class:`GeometryProcess`) that
 receives only what it needs: the landmarks and a crop of the picture around
-both eyes (about 30 kB at 720p). Short clips, and processes that may not
-start children (e.g. daemonic cluster workers), use a thread
-(:class:`GeometryThread`). Both give identical rows (a test compares them).
+both eyes (about 45 kB at 720p). Short clips, a bundled (frozen) application and
+processes that cannot start a child use a thread (:class:`GeometryThread`). Both give identical rows (a test compares them).
 """
 from __future__ import annotations
 
-import multiprocessing as mp
+import os
+import pickle
 import queue
+import subprocess
+import sys
 import threading
+from pathlib import Path
 
 import numpy as np
 
@@ -178,52 +181,70 @@ class GeometryThread:
         self._thread.join(timeout=10)
 
 
-def _process_main(conn, fov_deg: float, refine_iris: bool) -> None:
+def child_main(argv=None) -> int:
+    """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
+
+    Run as ``python -m camgaze._geometry_child FOV_DEG REFINE``. Anything else
+    that would print to stdout goes to stderr, so it cannot corrupt the replies.
+    """
+    args = list(sys.argv[1:] if argv is None else argv)
+    fov_deg, refine_iris = float(args[0]), args[1] == "1"
+    out = os.fdopen(os.dup(1), "wb")
+    os.dup2(2, 1)  # stray prints from libraries go to stderr
+    inp = sys.stdin.buffer
     geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris)
-    try:
-        while True:
+
+    def reply(obj) -> bool:
+        try:
+            pickle.dump(obj, out, protocol=pickle.HIGHEST_PROTOCOL)
+            out.flush()
+            return True
+        except (OSError, ValueError):  # the parent is gone
+            return False
+
+    while True:
+        try:
+            batch = pickle.load(inp)
+        except (EOFError, OSError, pickle.UnpicklingError):  # the parent is gone
+            return 0
+        if batch is None:
+            reply(("state", geo.state()))
+            return 0
+        try:
+            rows = np.stack([geo.row(*item) for item in batch])
+        except Exception as exc:  # noqa: BLE001 - reported to the parent
             try:
-                batch = conn.recv()
-            except EOFError:  # the parent is gone
-                return
-            if batch is None:
-                conn.send(("state", geo.state()))
-                return
-            conn.send(("rows", np.stack([geo.row(*item) for item in batch])))
-    except (EOFError, OSError):  # the parent is gone
-        return
-    except BaseException as exc:  # noqa: BLE001 - reported to the parent
-        for report in (exc, RuntimeError(f"{type(exc).__name__}: {exc}")):  # the second if the first does not pickle
-            try:
-                conn.send(("error", report))
-                break
-            except (EOFError, OSError):
-                break
-            except Exception:  # noqa: BLE001
-                continue
-    finally:
-        conn.close()
+                pickle.dumps(exc)
+            except Exception:  # noqa: BLE001 - an exception that does not pickle
+                exc = RuntimeError(f"{type(exc).__name__}: {exc}")
+            reply(("error", exc))
+            return 1
+        if not reply(("rows", rows)):
+            return 0
 
 
 class GeometryProcess:
-    """Runs :class:`FrameGeometry` in a child process (spawned, so safe beside the mesh's threads).
+    """Runs :class:`FrameGeometry` in a child Python process.
 
-    Frames go over a pipe in batches of a few, from a sender thread so the
-    caller never waits for the child; a receiver thread hands rows to
-    ``sink`` in frame order. Raises :class:`OSError` / ``AssertionError``
-    from the constructor when this process may not start children.
+    The child is a plain ``python -m camgaze._geometry_child`` (not
+    :mod:`multiprocessing`), so it never re-imports the caller's own script:
+    a user's script calling :func:`camgaze.pipeline.process_clip` needs no
+    ``if __name__ == "__main__"`` guard. Frames go over its stdin in batches of
+    a few, from a sender thread so the caller never waits for the child; a
+    receiver thread hands the rows to ``sink`` in frame order. Raises
+    :class:`OSError` from the constructor when no child can be started.
     """
 
     kind = "process"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink):
-        ctx = mp.get_context("spawn")
         self._sink = sink
-        self._conn, child = ctx.Pipe()
-        self._proc = ctx.Process(target=_process_main, args=(child, fov_deg, refine_iris),
-                                 name="camgaze-geometry", daemon=True)
-        self._proc.start()
-        child.close()
+        env = dict(os.environ)
+        pkg_root = str(Path(__file__).resolve().parents[1])
+        env["PYTHONPATH"] = os.pathsep.join([pkg_root] + ([env["PYTHONPATH"]] if env.get("PYTHONPATH") else []))
+        self._proc = subprocess.Popen(
+            [sys.executable, "-m", "camgaze._geometry_child", repr(float(fov_deg)), "1" if refine_iris else "0"],
+            stdin=subprocess.PIPE, stdout=subprocess.PIPE, env=env)
         self._out: queue.Queue = queue.Queue(maxsize=64)
         self._pending: list = []
         self._failure: list[BaseException] = []
@@ -233,22 +254,29 @@ class GeometryProcess:
         self._sender.start()
         self._receiver.start()
 
+    @property
+    def pid(self) -> int:
+        return self._proc.pid
+
     def _send(self):
+        stream = self._proc.stdin
         try:
             while True:
                 batch = self._out.get()
-                self._conn.send(batch)
+                pickle.dump(batch, stream, protocol=pickle.HIGHEST_PROTOCOL)
+                stream.flush()
                 if batch is None:
                     return
-        except (OSError, EOFError, BrokenPipeError) as exc:
+        except (OSError, ValueError) as exc:
             self._failure.append(RuntimeError(f"the geometry process stopped unexpectedly ({exc})"))
             while self._out.get() is not None:
                 pass
 
     def _receive(self):
+        stream = self._proc.stdout
         try:
             while True:
-                kind, payload = self._conn.recv()
+                kind, payload = pickle.load(stream)
                 if kind == "rows":
                     for r in payload:
                         self._sink(r)
@@ -258,9 +286,10 @@ class GeometryProcess:
                 else:
                     self._failure.append(payload)
                     return
-        except (OSError, EOFError) as exc:
+        except (OSError, EOFError, ValueError, pickle.UnpicklingError) as exc:
+            self._proc.poll()
             self._failure.append(RuntimeError(
-                f"the geometry process stopped unexpectedly (exit code {self._proc.exitcode}; {exc!r})"))
+                f"the geometry process stopped unexpectedly (exit code {self._proc.returncode}; {exc!r})"))
 
     def check(self) -> None:
         if self._failure:
@@ -279,33 +308,44 @@ class GeometryProcess:
         self._out.put(None)
         self._sender.join()
         self._receiver.join()
-        self._proc.join(timeout=10)
+        try:
+            self._proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            self._proc.kill()
+        self._close_pipes()
         self.check()
         if self._state is None:
             raise RuntimeError("the geometry process ended without its final report")
         return self._state
 
+    def _close_pipes(self) -> None:
+        for stream in (self._proc.stdin, self._proc.stdout):
+            try:
+                stream.close()
+            except (OSError, ValueError):
+                pass
+
     def abort(self) -> None:
         self._pending = []
+        if self._proc.poll() is None:
+            self._proc.kill()
+        self._proc.wait(timeout=10)
         self._out.put(None)
         self._sender.join(timeout=5)
-        self._proc.join(timeout=2)
-        if self._proc.is_alive():
-            self._proc.terminate()
-            self._proc.join(timeout=5)
         self._receiver.join(timeout=5)
-        self._conn.close()
+        self._close_pipes()
 
 
 def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto"):
-    """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, or when
-    this process may not start children); ``mode`` forces ``"thread"`` or ``"process"``."""
+    """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
+    application, or when no child can be started); ``mode`` forces ``"thread"`` or ``"process"``."""
     if mode not in ("auto", "thread", "process"):
         raise ValueError(f"geometry mode must be auto, thread or process, got {mode!r}")
-    if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES):
+    frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -m" to start
+    if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
             return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink)
-        except (AssertionError, OSError, RuntimeError):  # e.g. "daemonic processes are not allowed to have children"
+        except OSError:
             if mode == "process":
                 raise
     return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink)

@@ -110,8 +110,8 @@ def test_error_in_the_child_reaches_the_caller(frames_and_faces):
 def test_child_killed_is_reported_not_hung(frames_and_faces):
     frs, obs = frames_and_faces
     g = GeometryProcess(fov_deg=60.0, refine_iris=True, sink=lambda r: None)
-    os.kill(g._proc.pid, signal.SIGKILL)
-    g._proc.join(timeout=10)
+    os.kill(g.pid, signal.SIGKILL)
+    g._proc.wait(timeout=10)
     t0 = time.monotonic()
     for f, o in zip(frs, obs):
         g.submit(frame_item(f.pts_s, f.image, o, refine_iris=True))
@@ -121,20 +121,27 @@ def test_child_killed_is_reported_not_hung(frames_and_faces):
     g.abort()
 
 
-def _kind_in_daemon(q):
-    g = start_geometry(fov_deg=60.0, refine_iris=False, sink=lambda r: None, frames_hint=100_000)
-    q.put(g.kind)
-    g.finish()
+def test_user_script_without_main_guard_runs_once(frames_and_faces, tmp_path):
+    # the child must not re-import the caller's script (as multiprocessing's spawn would): a plain
+    # script calling the pipeline, with no __main__ guard, prints its line once and works
+    import subprocess
+    import sys
 
-
-def test_daemonic_process_falls_back_to_a_thread():
-    # cluster workers (e.g. dask.distributed's, by default) are daemonic and may not start children
-    import multiprocessing as mp
-
-    ctx = mp.get_context("spawn")
-    q = ctx.Queue()
-    p = ctx.Process(target=_kind_in_daemon, args=(q,), daemon=True)
-    p.start()
-    kind = q.get(timeout=120)
-    p.join(timeout=30)
-    assert kind == "thread" and p.exitcode == 0
+    frs, obs = frames_and_faces
+    np.save(tmp_path / "pts.npy", np.stack([o.points_px for o in obs if o is not None][:5]))
+    script = tmp_path / "my_analysis.py"
+    script.write_text(
+        "import numpy as np\n"
+        "from camgaze.frame_geometry import GeometryProcess\n"
+        "print('top-level line', flush=True)\n"
+        f"pts = np.load({str(tmp_path / 'pts.npy')!r})\n"
+        "rows = []\n"
+        "g = GeometryProcess(fov_deg=60.0, refine_iris=False, sink=rows.append)\n"
+        "for i, p in enumerate(pts):\n"
+        "    g.submit((i / 30, (640, 360), p, 1, None, (0, 0)))\n"
+        "g.finish()\n"
+        "print('rows', len(rows), int(sum(r[1] for r in rows)), flush=True)\n")
+    res = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120)
+    assert res.returncode == 0, res.stderr
+    assert res.stdout.count("top-level line") == 1, res.stdout
+    assert "rows 5 5" in res.stdout, res.stdout
