@@ -124,6 +124,28 @@ class FrameGeometry:
                 "size_changes": self.size_changes}
 
 
+def peak_rss_mb() -> float | None:
+    """This process's peak resident set size in MB (None where the platform does not say).
+
+    On Linux from ``VmHWM`` in /proc/self/status: ``ru_maxrss`` would also
+    count the moment between fork and exec when the child was still a copy
+    of its (much larger) parent.
+    """
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return round(int(line.split()[1]) / 1024.0, 1)  # kB
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        import resource
+    except ImportError:  # Windows
+        return None
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    return round(peak / (2**20 if sys.platform == "darwin" else 2**10), 1)  # bytes on macOS, KiB elsewhere
+
+
 def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool) -> tuple:
     """What the geometry of one frame needs, with the picture cut down to the eyes."""
     h, w = image.shape[:2]
@@ -208,7 +230,7 @@ def child_main(argv=None) -> int:
         except (EOFError, OSError, pickle.UnpicklingError):  # the parent is gone
             return 0
         if batch is None:
-            reply(("state", geo.state()))
+            reply(("state", geo.state() | {"peak_rss_mb": peak_rss_mb()}))
             return 0
         try:
             rows = np.stack([geo.row(*item) for item in batch])

@@ -224,6 +224,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         "face_tracking": {"multi_face_from_frame": tracker.multi_face_from_frame,
                           "check_every_frames": tracker.check_every},
         "geometry_ran_in": geometry.kind,
+        "geometry_process_peak_rss_mb": state.get("peak_rss_mb"),
         "landmarking_s": round(t_land, 3),
         "landmarking_fps": round(n / t_land, 1) if t_land > 0 else None,
     }
