@@ -206,7 +206,7 @@ class GeometryThread:
 def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
-    Run as ``python -m camgaze._geometry_child FOV_DEG REFINE``. Anything else
+    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE``. Anything else
     that would print to stdout goes to stderr, so it cannot corrupt the replies.
     """
     args = list(sys.argv[1:] if argv is None else argv)
@@ -245,11 +245,26 @@ def child_main(argv=None) -> int:
             return 0
 
 
+#: the child's start: load this very copy of the camgaze package (by path, so neither another installed
+#: copy nor the caller's working folder is picked up, and no other import is shadowed), then serve
+_CHILD_BOOT = (
+    "import importlib.util, os, sys\n"
+    "pkg = sys.argv[1]\n"
+    "spec = importlib.util.spec_from_file_location('camgaze', os.path.join(pkg, '__init__.py'),"
+    " submodule_search_locations=[pkg])\n"
+    "mod = importlib.util.module_from_spec(spec)\n"
+    "sys.modules['camgaze'] = mod\n"
+    "spec.loader.exec_module(mod)\n"
+    "from camgaze.frame_geometry import child_main\n"
+    "sys.exit(child_main(sys.argv[2:]))\n"
+)
+
+
 class GeometryProcess:
     """Runs :class:`FrameGeometry` in a child Python process.
 
-    The child is a plain ``python -m camgaze._geometry_child`` (not
-    :mod:`multiprocessing`), so it never re-imports the caller's own script:
+    The child is a plain ``python -c`` interpreter that loads this copy of
+    camgaze (not :mod:`multiprocessing`), so it never re-imports the caller's own script:
     a user's script calling :func:`camgaze.pipeline.process_clip` needs no
     ``if __name__ == "__main__"`` guard. Frames go over its stdin in batches of
     a few, from a sender thread so the caller never waits for the child; a
@@ -261,12 +276,10 @@ class GeometryProcess:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink):
         self._sink = sink
-        env = dict(os.environ)
-        pkg_root = str(Path(__file__).resolve().parents[1])
-        env["PYTHONPATH"] = os.pathsep.join([pkg_root] + ([env["PYTHONPATH"]] if env.get("PYTHONPATH") else []))
         self._proc = subprocess.Popen(
-            [sys.executable, "-m", "camgaze._geometry_child", repr(float(fov_deg)), "1" if refine_iris else "0"],
-            stdin=subprocess.PIPE, stdout=subprocess.PIPE, env=env)
+            [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parent), repr(float(fov_deg)),
+             "1" if refine_iris else "0"],
+            stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._out: queue.Queue = queue.Queue(maxsize=64)
         self._pending: list = []
         self._failure: list[BaseException] = []
@@ -363,7 +376,7 @@ def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int,
     application, or when no child can be started); ``mode`` forces ``"thread"`` or ``"process"``."""
     if mode not in ("auto", "thread", "process"):
         raise ValueError(f"geometry mode must be auto, thread or process, got {mode!r}")
-    frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -m" to start
+    frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
             return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink)

@@ -145,7 +145,11 @@ def test_user_script_without_main_guard_runs_once(frames_and_faces, tmp_path):
         "    g.submit((i / 30, (640, 360), p, 1, None, (0, 0)))\n"
         "g.finish()\n"
         "print('rows', len(rows), int(sum(r[1] for r in rows)), flush=True)\n")
-    res = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120)
+    # a decoy package of the same name in the working folder must not be what the child loads
+    work = tmp_path / "work"
+    (work / "camgaze").mkdir(parents=True)
+    (work / "camgaze" / "__init__.py").write_text("raise ImportError('decoy camgaze picked up')\n")
+    res = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120, cwd=work)
     assert res.returncode == 0, res.stderr
     assert res.stdout.count("top-level line") == 1, res.stdout
     assert "rows 5 5" in res.stdout, res.stdout
