@@ -85,18 +85,27 @@ def write_csv(target, df: pd.DataFrame, **kw) -> Path:
     return Path(target)
 
 
-def write_parquet(target, df: pd.DataFrame, metadata: dict | None = None) -> Path:
-    """Write a Parquet file atomically; ``metadata`` goes into the file's key-value metadata as JSON."""
+def write_parquet(target, df: pd.DataFrame, metadata: dict | None = None, *, chunk_rows: int = 16384) -> Path:
+    """Write a Parquet file atomically; ``metadata`` goes into the file's key-value metadata as JSON.
+
+    The table goes to the file ``chunk_rows`` rows at a time (one row group
+    each), so writing an hour of samples never holds a second full copy of
+    them in memory.
+    """
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    table = pa.Table.from_pandas(df, preserve_index=False)
+    schema = pa.Schema.from_pandas(df, preserve_index=False)
     if metadata:
-        meta = dict(table.schema.metadata or {})
+        meta = dict(schema.metadata or {})
         meta[b"camgaze"] = json.dumps(_clean_nan(metadata), default=_json_default).encode()
-        table = table.replace_schema_metadata(meta)
+        schema = schema.with_metadata(meta)
+    step = max(1, int(chunk_rows))
     with atomic_path(target) as tmp:
-        pq.write_table(table, tmp)
+        with pq.ParquetWriter(tmp, schema) as writer:
+            for start in range(0, max(len(df), 1), step):
+                part = df.iloc[start:start + step]
+                writer.write_table(pa.Table.from_pandas(part, schema=schema, preserve_index=False))
     return Path(target)
 
 
