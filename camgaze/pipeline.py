@@ -28,9 +28,7 @@ from __future__ import annotations
 import datetime as _dt
 import json
 import platform
-import queue
 import sys
-import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path

@@ -289,25 +289,30 @@ def _pair_features(fw: pd.DataFrame, fr: pd.DataFrame, scope: str, features, min
     return pd.DataFrame(rows)
 
 
-def agreement_table(pairs: pd.DataFrame, features, *, icc_form: str = DEFAULT_ICC_FORM,
-                    confidence: float = 0.95) -> pd.DataFrame:
-    """One row per (scope, feature) of paired windows/segments: n, means, r, rho, CCC, ICC, Bland-Altman."""
-    rows = []
+def _paired_features(pairs: pd.DataFrame, features):
+    """``(scope, feature, rows)`` for every scope with paired rows and every feature they carry."""
     for scope in ("window", "segment"):
         p = pairs[(pairs["scope"] == scope) & pairs["paired"]] if len(pairs) else pairs
         if not len(p):
             continue
         for f in features:
-            if f"{f}_webcam" not in p.columns:
-                continue
-            fa = feature_agreement(p[f"{f}_webcam"], p[f"{f}_reference"], feature=f, icc_form=icc_form,
-                                   confidence=confidence)
-            notes = list(fa.notes)
-            if 3 <= fa.n < SMALL_N:
-                notes.append(f"only {fa.n} pairs: intervals are wide")
-            row = {"scope": scope, **fa.to_row()}
-            row["notes"] = "; ".join(notes)
-            rows.append(row)
+            if f"{f}_webcam" in p.columns:
+                yield scope, f, p
+
+
+def agreement_table(pairs: pd.DataFrame, features, *, icc_form: str = DEFAULT_ICC_FORM,
+                    confidence: float = 0.95) -> pd.DataFrame:
+    """One row per (scope, feature) of paired windows/segments: n, means, r, rho, CCC, ICC, Bland-Altman."""
+    rows = []
+    for scope, f, p in _paired_features(pairs, features):
+        fa = feature_agreement(p[f"{f}_webcam"], p[f"{f}_reference"], feature=f, icc_form=icc_form,
+                               confidence=confidence)
+        notes = list(fa.notes)
+        if 3 <= fa.n < SMALL_N:
+            notes.append(f"only {fa.n} pairs: intervals are wide")
+        row = {"scope": scope, **fa.to_row()}
+        row["notes"] = "; ".join(notes)
+        rows.append(row)
     cols = ["scope", "feature", "n"]
     df = pd.DataFrame(rows)
     return df[cols + [c for c in df.columns if c not in cols]] if len(df) else pd.DataFrame(columns=cols)
@@ -672,40 +677,34 @@ def repeated_agreement_table(pairs: pd.DataFrame, features, *, subject: str = "p
     from .agreement import bland_altman, bland_altman_repeated, icc, pearson, rmcorr, subject_means
 
     rows, mrows = [], []
-    for scope in ("window", "segment"):
-        p = pairs[(pairs["scope"] == scope) & pairs["paired"]] if len(pairs) else pairs
-        if not len(p):
-            continue
-        for f in features:
-            if f"{f}_webcam" not in p.columns:
-                continue
-            a, b, s = p[f"{f}_webcam"].to_numpy(float), p[f"{f}_reference"].to_numpy(float), p[subject].to_numpy()
-            with warnings.catch_warnings(record=True) as caught:
-                warnings.simplefilter("always", AgreementWarning)
-                rc = rmcorr(a, b, s, confidence=confidence)
-                ba = bland_altman_repeated(a, b, s, confidence=confidence)
-                means = subject_means(a, b, s)
-                ma, mb = means["mean_a"].to_numpy(float), means["mean_b"].to_numpy(float)
-                mp = pearson(ma, mb, confidence=confidence)
-                mi = icc(np.column_stack([ma, mb]) if len(means) else np.empty((0, 2)), form=icc_form,
-                         confidence=confidence)
-                mba = bland_altman(ma, mb, confidence=confidence)
-            notes = list(dict.fromkeys(str(w.message) for w in caught if issubclass(w.category, AgreementWarning)))
-            rows.append({
-                "scope": scope, "feature": f, "participants": rc.n_subjects,
-                "rmcorr": rc.estimate, "rmcorr_ci_low": rc.ci_low, "rmcorr_ci_high": rc.ci_high, "rmcorr_df": rc.df,
-                "rmcorr_p": rc.p_value, "rmcorr_slope": rc.slope,
-                "ba_rm_bias": ba.bias, "ba_rm_bias_ci_low": ba.bias_ci_low, "ba_rm_bias_ci_high": ba.bias_ci_high,
-                "ba_rm_sd": ba.sd, "ba_rm_sd_within": ba.sd_within, "ba_rm_sd_between": ba.sd_between,
-                "ba_rm_loa_low": ba.loa_low, "ba_rm_loa_high": ba.loa_high,
-                "means_n": int(len(means)), "means_pearson_r": mp.estimate, "means_pearson_ci_low": mp.ci_low,
-                "means_pearson_ci_high": mp.ci_high, "means_icc": mi.estimate, "means_icc_ci_low": mi.ci_low,
-                "means_icc_ci_high": mi.ci_high, "means_ba_bias": mba.bias, "means_ba_loa_low": mba.loa_low,
-                "means_ba_loa_high": mba.loa_high, "repeated_notes": "; ".join(notes)})
-            for _, m in means.iterrows():
-                mrows.append({"scope": scope, "feature": f, "participant": m["subject"], "windows": int(m["n"]),
-                              "mean_webcam": m["mean_a"], "mean_reference": m["mean_b"],
-                              "mean_difference": m["mean_difference"], "sd_difference": m["sd_difference"]})
+    for scope, f, p in _paired_features(pairs, features):
+        a, b, s = p[f"{f}_webcam"].to_numpy(float), p[f"{f}_reference"].to_numpy(float), p[subject].to_numpy()
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", AgreementWarning)
+            rc = rmcorr(a, b, s, confidence=confidence)
+            ba = bland_altman_repeated(a, b, s, confidence=confidence)
+            means = subject_means(a, b, s)
+            ma, mb = means["mean_a"].to_numpy(float), means["mean_b"].to_numpy(float)
+            mp = pearson(ma, mb, confidence=confidence)
+            mi = icc(np.column_stack([ma, mb]) if len(means) else np.empty((0, 2)), form=icc_form,
+                     confidence=confidence)
+            mba = bland_altman(ma, mb, confidence=confidence)
+        notes = list(dict.fromkeys(str(w.message) for w in caught if issubclass(w.category, AgreementWarning)))
+        rows.append({
+            "scope": scope, "feature": f, "participants": rc.n_subjects,
+            "rmcorr": rc.estimate, "rmcorr_ci_low": rc.ci_low, "rmcorr_ci_high": rc.ci_high, "rmcorr_df": rc.df,
+            "rmcorr_p": rc.p_value, "rmcorr_slope": rc.slope,
+            "ba_rm_bias": ba.bias, "ba_rm_bias_ci_low": ba.bias_ci_low, "ba_rm_bias_ci_high": ba.bias_ci_high,
+            "ba_rm_sd": ba.sd, "ba_rm_sd_within": ba.sd_within, "ba_rm_sd_between": ba.sd_between,
+            "ba_rm_loa_low": ba.loa_low, "ba_rm_loa_high": ba.loa_high,
+            "means_n": int(len(means)), "means_pearson_r": mp.estimate, "means_pearson_ci_low": mp.ci_low,
+            "means_pearson_ci_high": mp.ci_high, "means_icc": mi.estimate, "means_icc_ci_low": mi.ci_low,
+            "means_icc_ci_high": mi.ci_high, "means_ba_bias": mba.bias, "means_ba_loa_low": mba.loa_low,
+            "means_ba_loa_high": mba.loa_high, "repeated_notes": "; ".join(notes)})
+        for _, m in means.iterrows():
+            mrows.append({"scope": scope, "feature": f, "participant": m["subject"], "windows": int(m["n"]),
+                          "mean_webcam": m["mean_a"], "mean_reference": m["mean_b"],
+                          "mean_difference": m["mean_difference"], "sd_difference": m["sd_difference"]})
     table = pd.DataFrame(rows, columns=["scope", "feature", *REPEATED_COLUMNS])
     means = pd.DataFrame(mrows, columns=["scope", "feature", "participant", "windows", "mean_webcam",
                                          "mean_reference", "mean_difference", "sd_difference"])
