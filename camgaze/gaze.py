@@ -398,6 +398,7 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
             Xh = np.einsum("mji,mj->mi", Rv, Xc - tv)
             off = np.median(Xh, axis=0) - corner_model[e]
             offsets[e, :2] = off[:2]
+        del idx, Rv, tv, mid_px, ray, zc, Xc, Xh
     info["eyeball_offset_mm"] = (offsets * s).round(3).tolist()
     centres_h = eyes_model + offsets  # model mm, head frame
 
@@ -428,42 +429,53 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
             g = P - C[ok]
             g /= np.linalg.norm(g, axis=1, keepdims=True)
             g_eyes[ok, e] = g
+            del P, g
+        del C, ray, ok
+    del iris_px, z_iris, z_model_iris, ear_mean
     g_bin = _nanmean_quiet(g_eyes, axis=1)
     norm = np.linalg.norm(g_bin, axis=1, keepdims=True)
     g_bin = g_bin / np.where(norm > 0, norm, np.nan)
 
+    # The columns are filled in place and each intermediate is dropped as soon as it is used: on an hour of
+    # video every (N, 3) array is some 2.6 MB and they would otherwise all stay alive until the return.
     yaw, pitch = gaze_vector_to_angles(g_bin)
     ryaw, rpitch = gaze_vector_to_angles(g_eyes[:, 0])
     lyaw, lpitch = gaze_vector_to_angles(g_eyes[:, 1])
-    g_head = np.einsum("nji,nj->ni", R, g_bin)
-    hyaw_e, hpitch_e = gaze_vector_to_angles(g_head)
-    head_yaw, head_pitch, head_roll = pose_angles(R_raw) if n else (nanv, nanv, nanv)
-    head_yaw = np.where(found, head_yaw, np.nan)
-    head_pitch = np.where(found, head_pitch, np.nan)
-    head_roll = np.where(found, head_roll, np.nan)
+    hyaw_e, hpitch_e = gaze_vector_to_angles(np.einsum("nji,nj->ni", R, g_bin))
+    del g_eyes, g_bin, norm, centres, R, t
+    head_yaw, head_pitch, head_roll = pose_angles(R_raw) if n else (nanv.copy(), nanv.copy(), nanv.copy())
+    for a in (head_yaw, head_pitch, head_roll):
+        a[~found] = np.nan
 
     # --- blinks and validity ---------------------------------------------
     closed = found & (aperture_rel < params.blink_rel_threshold)
     blink = _dilate(closed, int(params.blink_pad_frames)) & found
     valid = found & ~blink & np.isfinite(yaw) & np.isfinite(pitch) & (np.abs(head_yaw) <= params.max_head_yaw_deg)
+    del closed
+
+    def only(a, keep):
+        a = np.array(a, float)  # a copy: inputs stay untouched
+        a[~keep] = np.nan
+        return a
 
     cols["valid"] = valid
     cols["blink"] = blink
-    cols["yaw_deg"] = np.where(valid, yaw, np.nan)
-    cols["pitch_deg"] = np.where(valid, pitch, np.nan)
-    cols["left_yaw_deg"], cols["left_pitch_deg"] = np.where(valid, lyaw, np.nan), np.where(valid, lpitch, np.nan)
-    cols["right_yaw_deg"], cols["right_pitch_deg"] = np.where(valid, ryaw, np.nan), np.where(valid, rpitch, np.nan)
-    cols["eye_in_head_yaw_deg"] = np.where(valid, hyaw_e, np.nan)
-    cols["eye_in_head_pitch_deg"] = np.where(valid, hpitch_e, np.nan)
+    for name, a in (("yaw_deg", yaw), ("pitch_deg", pitch), ("left_yaw_deg", lyaw), ("left_pitch_deg", lpitch),
+                    ("right_yaw_deg", ryaw), ("right_pitch_deg", rpitch), ("eye_in_head_yaw_deg", hyaw_e),
+                    ("eye_in_head_pitch_deg", hpitch_e)):
+        a[~valid] = np.nan  # made here, so filled in place
+        cols[name] = a
+    del yaw, pitch, lyaw, lpitch, ryaw, rpitch, hyaw_e, hpitch_e
     cols["head_yaw_deg"], cols["head_pitch_deg"], cols["head_roll_deg"] = head_yaw, head_pitch, head_roll
-    cols["head_x_mm"] = np.where(found, head_mid[:, 0], np.nan)
-    cols["head_y_mm"] = np.where(found, head_mid[:, 1], np.nan)
-    cols["head_z_mm"] = np.where(found, head_mid[:, 2], np.nan)
-    cols["distance_mm"] = np.where(found, np.linalg.norm(head_mid, axis=1), np.nan)
-    cols["iris_diameter_px"] = np.where(found, diam, np.nan)
-    cols["ear_right"] = np.where(found, ear[:, 0], np.nan)
-    cols["ear_left"] = np.where(found, ear[:, 1], np.nan)
-    cols["aperture_rel"] = np.where(found, aperture_rel, np.nan)
+    cols["head_x_mm"] = only(head_mid[:, 0], found)
+    cols["head_y_mm"] = only(head_mid[:, 1], found)
+    cols["head_z_mm"] = only(head_mid[:, 2], found)
+    cols["distance_mm"] = only(np.linalg.norm(head_mid, axis=1), found)
+    del head_mid
+    cols["iris_diameter_px"] = only(diam, found)
+    cols["ear_right"] = only(ear[:, 0], found)
+    cols["ear_left"] = only(ear[:, 1], found)
+    cols["aperture_rel"] = only(aperture_rel, found)
     return cols, info
 
 

@@ -194,26 +194,24 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     a = rec.view()
     n = len(a)
     found = a[:, 1] > 0.5
-    Rm = np.nan_to_num(a[:, 3:12]).reshape(n, 3, 3)
+    # rotations and translations are cleaned in place, in the record buffer itself (no copies of an hour of them)
+    Rm = np.nan_to_num(a[:, 3:12], copy=False).reshape(n, 3, 3)
     Rm[~found] = np.eye(3)
-    tm = np.nan_to_num(a[:, 12:15], nan=1.0)
+    tm = np.nan_to_num(a[:, 12:15], nan=1.0, copy=False)
     K = np.asarray(state["K"]) if state["K"] is not None else np.eye(3)
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=a[:, 15:19].reshape(n, 2, 2), iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
         iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None, params=params.gaze)
-    pts = a[:, 0]
-    df = pd.DataFrame({
-        "t_s": pts - pts[0] if n else pts,
-        "frame_index": np.arange(n, dtype=np.int64),
-        "pts_s": pts,
-        "face_found": found,
-        "face_count": a[:, 2].astype(np.int64),
-        **cols,
-    })
-    df["pupil"] = np.nan
-    order = [c.name for c in SAMPLE_COLUMNS if c.name in df.columns]
-    df = df[order + [c for c in df.columns if c not in order]]
+    pts = a[:, 0].copy()
+    counts = a[:, 2].astype(np.int64)
+    del a, rec, Rm, tm  # the per-frame records are in ``cols`` now; an hour of them is some 30 MB
+    t_clip = pts - pts[0] if n else pts
+    cols |= {"t_s": t_clip, "frame_index": np.arange(n, dtype=np.int64), "pts_s": pts, "face_found": found,
+             "face_count": counts, "pupil": np.full(n, np.nan)}
+    order = [c.name for c in SAMPLE_COLUMNS if c.name in cols]
+    df = pd.DataFrame({name: cols.pop(name) for name in order + [c for c in list(cols) if c not in order]})
+    del cols
     meta = {
         "video": info.to_dict() | {"decoded_size_px": list(size) if size else None, "size_changes": size_changes},
         "decode": report.to_dict(),
