@@ -10,7 +10,9 @@ results; :func:`analyse_table` does all of it for any delimited gaze table.
 Default detector: I-DT (Salvucci & Goldberg 2000) with a noise-adaptive
 dispersion threshold, ``max(1.5 deg, 3.5 x RMS-S2S noise)``, a 60 ms duration
 threshold, edge trimming at 1.75 x the median gaze speed, merging within
-75 ms and max(0.5 deg, 0.5 x RMS-S2S), and a 60 ms minimum fixation. Chosen on the hand-coded
+75 ms and max(0.5 deg, 0.5 x RMS-S2S) or when the two mean positions do not
+differ at the 5 % level given the within-fixation noise, and a 60 ms minimum
+fixation. Chosen on the hand-coded
 recordings of Andersson et al. (2017) at their own rate and degraded to
 15-60 Hz with 0.5-2 deg noise (``bench/compare_detectors.py``): on webcam-like
 data it beat I2MC and I-VT on count, duration and count correlation, and it
@@ -65,6 +67,12 @@ class AnalysisParams:
     merge_noise_factor : float, default 0.5
         If > 0 the merge distance grows with the clip's noise, to
         ``max(merge_distance_deg, merge_noise_factor x RMS-S2S)``.
+    merge_alpha : float, default 0.05
+        If > 0, neighbours within ``merge_gap_ms`` are also merged when their
+        mean positions do not differ significantly at this level, given the
+        pooled within-fixation noise (chi-square test of the difference of
+        two means, 2 degrees of freedom;
+        :func:`camgaze.detect.postprocess.means_indistinguishable`); 0 disables.
     min_fixation_ms : float, default 60
         Shorter fixations are dropped after merging, ms.
     saccade_max_ms : float, default 150
@@ -122,6 +130,7 @@ class AnalysisParams:
     merge_gap_ms: float = 75.0
     merge_distance_deg: float = 0.5
     merge_noise_factor: float = 0.5
+    merge_alpha: float = 0.05
     min_fixation_ms: float = 60.0
     saccade_max_ms: float = 150.0
     edge_speed_factor: float = 1.75
@@ -161,6 +170,9 @@ class AnalysisParams:
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and np.isfinite(v) and v >= 0):
                 raise ParameterError(f"{name} must be a number >= 0, got {v!r}")
+        a = self.merge_alpha
+        if not (isinstance(a, (int, float)) and np.isfinite(a) and 0 <= a < 1):
+            raise ParameterError(f"merge_alpha must be a level 0 <= alpha < 1 (0 disables), got {a!r}")
         for name in ("window_s", "step_s"):
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and np.isfinite(v) and v > 0):
@@ -272,7 +284,7 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
                                   min_fixation_ms=params.min_fixation_ms, saccade_max_ms=params.saccade_max_ms,
                                   edge_speed_factor=params.edge_speed_factor,
                                   edge_velocity_window_ms=params.edge_velocity_window_ms,
-                                  merge_noise_factor=params.merge_noise_factor,
+                                  merge_noise_factor=params.merge_noise_factor, merge_alpha=params.merge_alpha,
                                   noise_rms_s2s_deg=cl.noise_rms_s2s_deg)
     features = compute_features(events, t_s=cl.t_s, valid=cl.valid_in, yaw_deg=cl.yaw_deg, pitch_deg=cl.pitch_deg,
                                 labels=labels, scopes=_scopes(cl, params, segments),

@@ -130,3 +130,93 @@ def test_short_isolated_fixation_is_dropped():
     assert fx["onset_s"].round(6).tolist() == [0.0, 0.45]
     assert (lab[40:45] == "saccade").all()
     assert ev[ev.type == "saccade"]["amplitude_deg"].tolist() == pytest.approx([12.0])
+
+
+# --- merging by a test of the two means (merge_alpha)
+
+def test_means_indistinguishable_uses_the_chi_square_quantile():
+    from scipy.stats import chi2
+
+    from camgaze.detect.postprocess import means_indistinguishable
+
+    # the 2-dof chi-square quantile is -2 ln(alpha): scipy.stats (reference library)
+    crit = chi2.ppf(0.95, 2)
+    assert crit == pytest.approx(-2 * np.log(0.05), rel=1e-12)
+    # worked by hand: sd 1 deg on both axes, 2 + 2 samples -> SD of the difference of means 1 deg,
+    # so the statistic is dx^2 + dy^2
+    d = np.sqrt(crit)
+    got = means_indistinguishable([d - 1e-6, d + 1e-6, 0.0], [0.0, 0.0, d + 1e-6], [2, 2, 2], [2, 2, 2], (1.0, 1.0), 0.05)
+    assert got.tolist() == [True, False, False]
+    # each axis scaled by its own noise: 2 deg in yaw is nothing with yaw noise 4 deg, much with 0.5 deg
+    assert means_indistinguishable([2.0], [0.0], [4], [4], (4.0, 0.5), 0.05).tolist() == [True]
+    assert means_indistinguishable([0.0], [2.0], [4], [4], (4.0, 0.5), 0.05).tolist() == [False]
+
+
+def test_means_indistinguishable_holds_its_level_on_simulated_fixations():
+    # Monte Carlo: two fragments of the same fixation, white Gaussian noise; the test must call them
+    # different in about alpha of the cases (binomial SD at 20000 draws: 0.0015)
+    from camgaze.detect.postprocess import means_indistinguishable
+
+    rng = np.random.default_rng(7)
+    n1, n2, sx, sy, reps = 4, 7, 0.4, 1.5, 20000
+    ax = rng.normal(0, sx, (reps, n1)).mean(1) - rng.normal(0, sx, (reps, n2)).mean(1)
+    ay = rng.normal(0, sy, (reps, n1)).mean(1) - rng.normal(0, sy, (reps, n2)).mean(1)
+    for alpha in (0.05, 0.01):
+        rate = 1 - means_indistinguishable(ax, ay, n1, n2, (sx, sy), alpha).mean()
+        assert rate == pytest.approx(alpha, abs=0.005)
+
+
+def test_pooled_within_sd_matches_a_direct_computation():
+    from camgaze.detect.postprocess import pooled_within_sd_deg
+
+    rng = np.random.default_rng(3)
+    n = 60
+    x, y = rng.normal(0, 1.0, n), rng.normal(0, 2.0, n)
+    x[20:45] += 5.0  # a different position per fixation does not enter the within-fixation SD
+    ok = np.ones(n, bool)
+    ok[30] = False  # an unusable sample is left out
+    starts, ends = np.array([0, 20, 45]), np.array([18, 45, 60])
+    got = pooled_within_sd_deg(x, y, ok, starts, ends)
+    for v, g in zip((x, y), got):
+        groups = [v[s:e][ok[s:e]] for s, e in zip(starts, ends)]
+        # pooled variance of the t-test: sum of (n_k - 1) s_k^2 over sum of (n_k - 1)
+        want = np.sqrt(sum((len(a) - 1) * np.var(a, ddof=1) for a in groups) / sum(len(a) - 1 for a in groups))
+        assert g == pytest.approx(want, rel=1e-9)
+    assert all(np.isnan(pooled_within_sd_deg(x, y, ok, [0, 5], [1, 6])))  # no candidate with two samples
+
+
+def test_merge_by_test_joins_noisy_fragments_but_not_precise_ones():
+    # 30 Hz, two fragments of 5 samples 1.2 deg apart, 75 ms criteria met in time
+    t = np.arange(10) / 30.0
+    x = np.r_[np.zeros(5), np.full(5, 1.2)]
+    y = np.zeros(10)
+    ok = np.ones(10, bool)
+    blocked = np.zeros(10, bool)
+    kw = dict(merge_gap_ms=75.0, merge_distance_deg=0.5)
+    # noise SD 1 deg per axis: the means of 5 samples are 0.63 deg uncertain in their difference -> one fixation
+    s, e = merge_candidates(t, x, y, ok, blocked, [0, 5], [5, 10], noise_sd_deg=(1.0, 1.0), merge_alpha=0.05, **kw)
+    assert s.tolist() == [0] and e.tolist() == [10]
+    # without the test (or with precise data, as at 500 Hz) 1.2 deg apart stays two fixations
+    assert merge_candidates(t, x, y, ok, blocked, [0, 5], [5, 10], **kw)[0].tolist() == [0, 5]
+    s, _ = merge_candidates(t, x, y, ok, blocked, [0, 5], [5, 10], noise_sd_deg=(0.05, 0.05), merge_alpha=0.05, **kw)
+    assert s.tolist() == [0, 5]
+    # far apart in space or in time: never merged by the test
+    x2 = np.r_[np.zeros(5), np.full(5, 6.0)]
+    s, _ = merge_candidates(t, x2, y, ok, blocked, [0, 5], [5, 10], noise_sd_deg=(1.0, 1.0), merge_alpha=0.05, **kw)
+    assert s.tolist() == [0, 5]
+    s, _ = merge_candidates(t, x, y, ok, blocked, [0, 8], [4, 10], noise_sd_deg=(1.0, 1.0), merge_alpha=0.05, **kw)
+    assert s.tolist() == [0, 8]  # 4 frames = 133 ms apart
+
+
+def test_merge_alpha_parameter_checked_and_reported():
+    from camgaze.errors import ParameterError
+
+    for bad in (-0.1, 1.0, float("nan")):
+        with pytest.raises(ParameterError, match="merge_alpha"):
+            AnalysisParams(merge_alpha=bad)
+    t, x, y, ok, bl, lo = _arrays(n=60, rate=30.0)
+    x += np.random.default_rng(0).normal(0, 0.3, 60)
+    samples = pd.DataFrame({"t_s": t, "valid": ok, "yaw_deg": x, "pitch_deg": y})
+    res = run_analysis(samples)
+    assert len(res.quality["detector_thresholds"]["merge_noise_sd_deg"]) == 2
+    assert "merge_noise_sd_deg" not in run_analysis(samples, AnalysisParams(merge_alpha=0)).quality["detector_thresholds"]
