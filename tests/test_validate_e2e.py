@@ -105,11 +105,16 @@ def test_rendered_clip_following_lund_recordings(lund_dir, tmp_path):
           f"n={fc['n']}, r={fc['pearson_r']:.3f}, ICC={fc['icc']:.3f}, bias={fc['ba_bias']:.2f}; "
           f"kappa={r.events['kappa']:.3f}, F1={r.events['f1']:.3f}")
     assert fc["n"] >= 15
-    # Issue 4's floor is r >= 0.8; it is NOT met. Measured on this clip: r 0.64 (I-DT), 0.65 (I2MC),
-    # 0.69 (I-VT); ICC 0.61, bias -0.4 fixations per window. The webcam's gaze noise (about 1.3 deg
-    # sample to sample here) splits and merges the short fixations of free image viewing. This bound
-    # guards the value reached so that a change for the worse shows; see DEVELOPERS.md, "Known limits".
-    assert fc["pearson_r"] >= 0.55
+    # Issue 4's floor is r >= 0.8; it is NOT met. Measured on this clip (19 windows): r 0.70 with I-DT
+    # (0.64 before fragments were merged by the test of their means, postprocess.means_indistinguishable),
+    # ICC 0.67, bias -0.5 fixations per window; I-VT 0.80, I2MC 0.63. What limits it (DEVELOPERS.md, "What
+    # limits the end-to-end validation figure"): the webcam's error inside fixations is heavy-tailed (excess
+    # kurtosis 4-6; SD 1.4 deg in pitch, 0.5 deg in yaw), not its size - the true trajectory at 30 Hz with
+    # white Gaussian noise of the same RMS-S2S gives r 0.92-0.94, without noise 0.87, and the 500 Hz
+    # reference itself agrees with the coder at r 0.88. The same real noise drawn anew gives r 0.75 +- 0.11
+    # on this clip: one clip's r moves by about 0.1 with the noise draw. This bound guards the value reached
+    # so that a change for the worse shows.
+    assert fc["pearson_r"] >= 0.6
     assert abs(fc["ba_bias"]) < 1.5
     assert 0.2 < r.events["kappa"] < 1.0 and 0.6 < r.events["f1"] <= 1.0
     assert (out / "report.html").exists()
