@@ -465,3 +465,94 @@ def missing_files(study: Study) -> list[str]:
             if rel is not None and not study.resolve(rel).exists():
                 out.append(f"{c.stem}: {label} file {rel} not found (looked in {study.resolve(rel)})")
     return out
+
+
+def _clip_labels(stem: str) -> dict:
+    """participant/session of a clip from BIDS entities in its name, else a ``p<digits>`` / ``s<digits>`` part."""
+    import re
+
+    from .pairing import bids_labels
+
+    try:
+        labels = bids_labels(stem)
+    except CamgazeInputError:
+        labels = {}
+    if "participant" not in labels:
+        m = re.search(r"(?:^|[_-])(p\d+)(?=$|[_-])", stem)
+        labels["participant"] = m.group(1) if m else stem
+    if "session" not in labels:
+        m = re.search(r"(?:^|[_-])(s\d+)(?=$|[_-])", stem)
+        if m:
+            labels["session"] = m.group(1)
+    return labels
+
+
+def write_validation_manifest(study: Study, path: str | os.PathLike) -> tuple[Path, list[str]]:
+    """Write a validation manifest for every processed clip of ``study`` that has a reference recording.
+
+    The manifest (read by :func:`camgaze.validate.read_validation_manifest`,
+    so ``camgaze validate --manifest`` can re-run the same comparison) pairs
+    each clip's result folder with its reference; a plain reference table's
+    column mapping is written beside it as ``mappings/<clip stem>.json``.
+    Participant and session labels come from the clip name (BIDS ``sub-`` /
+    ``ses-`` entities, else parts such as ``p01`` / ``s01``); two clips of one
+    participant without a session label get the clip name as session, so
+    their windows still count for the same participant.
+
+    A clock offset the user gave for a clip (``validation["offset_given"]``,
+    set by the app's validation tab) goes into the ``offset_s`` column; the
+    other clips are aligned automatically.
+
+    Returns the manifest path and one line per clip that was left out (and why).
+    """
+    import pandas as pd
+
+    from .atomic import write_csv
+    from .reference.table import TableMapping
+
+    path = Path(path)
+    rows, skipped = [], []
+    for clip in study.clips:
+        if clip.reference is None:
+            skipped.append(f"{clip.name}: no reference recording chosen")
+            continue
+        if clip.status not in (STATUS_DONE, STATUS_STALE):
+            skipped.append(f"{clip.name}: not processed ({clip.status})")
+            continue
+        out = study.clip_out_dir(clip)
+        if read_run_json(out) is None:
+            skipped.append(f"{clip.name}: its results folder {out} holds no finished run")
+            continue
+        ref = study.resolve(clip.reference.path)
+        if ref is None or not ref.exists():
+            skipped.append(f"{clip.name}: reference {clip.reference.path} not found")
+            continue
+        mapping = ""
+        if clip.reference.kind == "table":
+            if not clip.reference.mapping:
+                skipped.append(f"{clip.name}: reference table {clip.reference.path} has no column mapping")
+                continue
+            mapping = str(TableMapping.from_dict(clip.reference.mapping).save(path.parent / "mappings"
+                                                                              / f"{clip.stem}.json"))
+        labels = _clip_labels(clip.stem)
+        rows.append({"webcam": str(out), "reference": str(ref), "participant": labels["participant"],
+                     "session": labels.get("session", ""), "task": labels.get("task", ""),
+                     "run": labels.get("run", ""), "mapping": mapping,
+                     "segments": str(study.resolve(clip.segments)) if clip.segments else "",
+                     "offset_s": repr(float(clip.validation["offset_s"])) if (clip.validation or {}).get("offset_given")
+                     else ""})
+    if not rows:
+        raise CamgazeInputError("no clip of the study has both finished results and a reference recording: "
+                                + "; ".join(skipped[:6]) + (" ..." if len(skipped) > 6 else ""),
+                                path=study.path, hint="process the clips and choose a reference for each")
+    import re
+
+    df = pd.DataFrame(rows)
+    labels = ["participant", "session", "task", "run"]
+    key = df[labels].agg("_".join, axis=1)
+    dup = key.duplicated(keep=False)
+    df.loc[dup, "session"] = [Path(w).name for w in df.loc[dup, "webcam"]]
+    for col in labels:  # the labels name output folders: letters, digits, _ . - only
+        df[col] = [re.sub(r"[^A-Za-z0-9_.-]+", "-", v).strip("-") for v in df[col]]
+    write_csv(path, df)
+    return path, skipped

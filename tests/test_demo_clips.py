@@ -1,6 +1,7 @@
 """The bundled demo clips, processed end to end as a user would (camgaze process)."""
 from __future__ import annotations
 
+import json
 import subprocess
 import sys
 
@@ -62,3 +63,52 @@ def test_segments_give_per_segment_features(demo_out, repo_root, tmp_path):
     labels = pd.read_csv(seg)["label"].tolist()
     assert f.loc[f["scope"] == "segment", "label"].tolist() == labels
     assert np.isfinite(f.loc[f["scope"] == "segment", "fixation_count"]).all()
+
+
+def test_whole_study_validation_from_the_study_model(demo_out, repo_root, tmp_path):
+    """The app's "Compare all clips": a manifest from the study, then the library's study validation.
+
+    The per-pair numbers must be those of validating each pair on its own
+    (camgaze.validate.validate_pair), and clips without a reference or results
+    are left out with a reason, not dropped silently.
+    """
+    from camgaze.reference.demo import write_demo_reference
+    from camgaze.study import STATUS_DONE, new_study, write_validation_manifest
+    from camgaze.validate import read_validation_manifest, validate_pair, validate_study
+
+    out, clips, _ = demo_out
+    sc = repo_root / "sample_clips"
+    truth2 = pd.read_csv(sc / "linden_brook_p02_s01_truth_hi.csv")
+    lab2 = write_demo_reference(truth2, tmp_path / "lab", stem="p02_s01", offset_s=-0.8, seed=5)
+    table2 = next(p for p in lab2.values() if str(p).endswith("_labtracker.csv"))
+    mapping2 = json.loads(next(p for p in lab2.values() if str(p).endswith("_mapping.json")).read_text())
+    mapping2 = {k: v for k, v in mapping2.items() if k not in ("kind", "camgaze_version")}
+    (tmp_path / "linden_brook_p03_s01.mp4").write_bytes(b"\x00" * 64)  # never processed
+
+    s = new_study(path=tmp_path / "pilot.camgaze-study.json", name="Linden Brook reading pilot")
+    s.output_dir = s.relative(out)
+    added, problems = s.add_paths([*clips, tmp_path / "linden_brook_p03_s01.mp4"])
+    assert not problems
+    p01, p02, p03 = (s.find(c) for c in ("linden_brook_p01_s01", "linden_brook_p02_s01", "linden_brook_p03_s01"))
+    s.set_reference(p01, sc / "lab_tracker" / "sub-p01_ses-s01_task-reading_recording-eye1_physio.tsv.gz",
+                    kind="bids")
+    s.set_reference(p02, table2, kind="table", mapping=mapping2)
+    s.set_reference(p03, sc / "lab_tracker" / "p01_s01_labtracker.csv", kind="table", mapping=mapping2)
+    s.refresh_all()
+    assert p01.status == STATUS_DONE and p02.status == STATUS_DONE and p03.status != STATUS_DONE
+
+    manifest, skipped = write_validation_manifest(s, tmp_path / "validation" / "validation_manifest.csv")
+    assert len(skipped) == 1 and "linden_brook_p03_s01.mp4" in skipped[0] and "not processed" in skipped[0]
+    rows = read_validation_manifest(manifest)  # the command line reads the same file
+    assert [(r.participant, r.session) for r in rows] == [("p01", "s01"), ("p02", "s01")]
+    assert rows[0].mapping is None and rows[1].mapping is not None and rows[1].mapping.exists()
+
+    res = validate_study(manifest, tmp_path / "validation", figures=False)
+    assert set(res.results) == {"p01_s01", "p02_s01"} and not res.failures
+    # the demo reference of p02 started 0.8 s before the clip
+    assert res.results["p02_s01"].alignment.offset_s == pytest.approx(-0.8, abs=1 / 30)
+    alone = validate_pair(out / "linden_brook_p01_s01", rows[0].reference, write=False, figures=False)
+    a = alone.agreement.set_index(["scope", "feature"])["pearson_r"]
+    b = res.results["p01_s01"].agreement.set_index(["scope", "feature"])["pearson_r"]
+    pd.testing.assert_series_equal(a, b)
+    assert (tmp_path / "validation" / "summary.csv").exists() and (tmp_path / "validation" / "report.html").exists()

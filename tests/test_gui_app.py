@@ -385,3 +385,59 @@ def test_validation_tab_compares_with_reference_and_exports_report(qtbot, window
     text = report.read_text()
     assert text.lstrip().lower().startswith("<!doctype html") or "<html" in text.lower()
     assert "p01" in text or "Bland" in text
+
+
+def test_compare_all_clips_uses_given_offset_and_can_be_cancelled(qtbot, window, processed, tmp_path):
+    """The validation tab's whole-study comparison: progress, a summary table, failed pairs named, cancel."""
+    from camgaze.reference.demo import write_demo_reference
+    from camgaze.render import synth_trajectory
+
+    assert window.open_study(processed)
+    vv = window.validation_view
+    window.tabs.setCurrentIndex(2)
+    for i, stem in enumerate(("p01_s01", "p02_s01")):
+        truth = synth_trajectory(duration_s=1.5, seed=10 + i).samples  # the trajectory the clip was rendered from
+        paths = write_demo_reference(truth, tmp_path / "lab", stem=stem, offset_s=-0.4, rate_hz=250.0, seed=3)
+        window.select_clip(stem)
+        assert vv.set_reference(next(Path(p) for p in paths.values() if str(p).endswith("_physio.tsv.gz")))
+        window.current_clip().validation = {}
+    ended = []
+    vv.compared.connect(ended.append)
+    vv.failed.connect(ended.append)
+    vv.study_compared.connect(ended.append)
+    # 1.5 s clips are too short for the automatic alignment: the study comparison says so for each pair
+    assert vv.compare_study(tmp_path / "auto")
+    assert not vv.study_btn.isEnabled() and vv.study_running
+    qtbot.waitUntil(lambda: bool(ended), timeout=120_000)
+    text = vv.status.text()
+    assert "could not be made" in text and "p01_s01" in text and "p02_s01" in text, text
+    assert vv.study_btn.isEnabled() and not vv.study_running
+    # the offset given once for p01 is kept and used by the whole-study comparison; p02 still fails, named
+    window.select_clip("p01_s01")
+    vv.manual_offset.setChecked(True)
+    vv.offset_spin.setValue(-0.4)
+    ended.clear()
+    assert vv.compare()
+    qtbot.waitUntil(lambda: bool(ended), timeout=120_000)
+    assert vv.outcome is not None and window.current_clip().validation["offset_given"] is True
+    ended.clear()
+    out = tmp_path / "study_validation"
+    assert vv.compare_study(out)
+    qtbot.waitUntil(lambda: bool(ended), timeout=120_000)
+    assert ended == [str(out)], vv.status.text()
+    text = vv.status.text()
+    assert "1 clip(s) compared" in text and "1 failed" in text and "p02_s01" in text, text
+    res = vv.study_outcome
+    assert vv.model.rowCount() == (len(res.summary) or len(res.per_participant)) > 0
+    man = pd.read_csv(out / "validation_manifest.csv")
+    assert man["participant"].tolist() == ["p01", "p02"]
+    assert man["offset_s"].tolist()[0] == pytest.approx(-0.4) and np.isnan(man["offset_s"].tolist()[1])
+    assert vv.study_outcome.results["p01_s01"].alignment.offset_s == pytest.approx(-0.4)
+    assert (out / "report.html").exists() and (out / "summary.csv").exists()
+    # cancelled while the first pair is compared: it stops before the second, no study tables are written
+    cancelled = tmp_path / "cancelled"
+    vv._study_progress.connect(lambda *a: vv.cancel_study())
+    assert vv.compare_study(cancelled)
+    qtbot.waitUntil(lambda: not vv.study_running, timeout=120_000)
+    assert "cancelled" in vv.status.text().lower(), vv.status.text()
+    assert not (cancelled / "summary.csv").exists() and vv.study_btn.isEnabled()

@@ -5,6 +5,13 @@ the column-mapping dialog; the mapping is remembered in the study), then
 "Compare" runs the library's validation (:mod:`camgaze.validate`) in a worker
 thread and shows the alignment offset, the agreement table, and the scatter
 and Bland-Altman plots; "Export report…" writes the library's HTML report.
+
+"Compare all clips" validates the whole study at once: every processed clip
+with a reference goes into a manifest (:func:`camgaze.study.write_validation_manifest`,
+kept in the output folder so the command line can re-run it), and
+:func:`camgaze.validate.validate_study` writes the per-participant and pooled
+results and the study report there; the view shows the summary table. It
+shows its progress and can be cancelled (finished pairs keep their files).
 """
 from __future__ import annotations
 
@@ -15,8 +22,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 from PySide6.QtCore import Qt, Signal
-from PySide6.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, QHBoxLayout, QLabel, QMessageBox, QPushButton, QSplitter,
-                               QTableView, QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, QHBoxLayout, QLabel, QMessageBox,
+                               QProgressBar, QPushButton, QSplitter, QTableView, QVBoxLayout, QWidget)
 
 from camgaze import study as study_mod
 
@@ -48,6 +55,7 @@ class ValidationOutcome:
     table: pd.DataFrame = field(default_factory=pd.DataFrame)
     pairs: pd.DataFrame = field(default_factory=pd.DataFrame)
     result: object = None
+    offset_given: bool = False
 
 
 class ValidationView(QWidget):
@@ -57,12 +65,16 @@ class ValidationView(QWidget):
     -------
     compared(str) : a comparison finished for a clip (shown in the view).
     failed(str) : a comparison failed (message shown in the view).
+    study_compared(str) : the whole-study comparison finished (its output folder).
     """
 
     compared = Signal(str)
     failed = Signal(str)
+    study_compared = Signal(str)
     _done = Signal(str, object)
     _err = Signal(str, str)
+    _study_progress = Signal(float, str)
+    _study_done = Signal(object, object)
 
     def __init__(self, *, window=None, parent=None):
         super().__init__(parent)
@@ -71,6 +83,10 @@ class ValidationView(QWidget):
         self.outcome: ValidationOutcome | None = None
         self._done.connect(self._on_done)
         self._err.connect(self._on_err)
+        self._study_progress.connect(self._on_study_progress)
+        self._study_done.connect(self._on_study_done)
+        self._study_cancel: threading.Event | None = None
+        self.study_outcome = None
 
         self.ref_label = QLabel("No reference recording chosen for this clip.")
         self.ref_label.setWordWrap(True)
@@ -98,6 +114,20 @@ class ValidationView(QWidget):
         top.addWidget(self.mapping_btn)
         top.addWidget(self.compare_btn)
         top.addWidget(self.report_btn)
+        self.study_btn = QPushButton("Compare all clips")
+        self.study_btn.setToolTip("Compare every processed clip that has a reference recording; per-participant and "
+                                  "pooled agreement and a study report go to the output folder")
+        self.study_btn.clicked.connect(lambda: self.compare_study())
+        self.study_cancel_btn = QPushButton("Cancel")
+        self.study_cancel_btn.clicked.connect(self.cancel_study)
+        self.study_cancel_btn.hide()
+        self.study_bar = QProgressBar()
+        self.study_bar.setRange(0, 1000)
+        self.study_bar.setMaximumWidth(220)
+        self.study_bar.hide()
+        top.addWidget(self.study_btn)
+        top.addWidget(self.study_bar)
+        top.addWidget(self.study_cancel_btn)
         top.addStretch(1)
         top.addWidget(self.manual_offset)
         top.addWidget(self.offset_spin)
@@ -200,6 +230,66 @@ class ValidationView(QWidget):
         threading.Thread(target=work, name="camgaze-validate", daemon=True).start()
         return True
 
+    def compare_study(self, out_dir=None) -> bool:
+        """Compare every processed clip that has a reference (in a worker thread); see the module notes.
+
+        ``out_dir`` defaults to ``<study output folder>/validation``.
+        """
+        s = self.study
+        if s is None or self._study_cancel is not None:
+            return False
+        from camgaze.errors import CamgazeError
+
+        out = Path(out_dir) if out_dir is not None else s.output_root() / "validation"
+        try:
+            s.refresh_all()
+            manifest, skipped = study_mod.write_validation_manifest(s, out / "validation_manifest.csv")
+        except CamgazeError as exc:
+            self._show_study_error(str(exc))
+            return False
+        analysis = dict(s.analysis)
+        cancel = threading.Event()
+        self._study_cancel = cancel
+        self.status.setStyleSheet("")
+        self.status.setText(f"Comparing the study's clips… ({len(skipped)} left out)" if skipped
+                            else "Comparing the study's clips…")
+        self.study_bar.setValue(0)
+        self.study_bar.show()
+        self.study_cancel_btn.show()
+        self._update()
+
+        def progress(frac, message):
+            if cancel.is_set() and frac < 1.0:  # at 1.0 everything is written: nothing left to stop
+                from camgaze.errors import Cancelled
+
+                raise Cancelled("study comparison cancelled")
+            self._study_progress.emit(float(frac), str(message))
+
+        def work():
+            from camgaze.analysis import AnalysisParams
+            from camgaze.validate import ValidateParams, validate_study
+
+            try:
+                ap = AnalysisParams.from_dict(analysis) if analysis else AnalysisParams()
+                res = validate_study(manifest, out, params=ValidateParams(analysis=ap), progress=progress)
+            except Exception as exc:  # noqa: BLE001 - shown in the view
+                self._study_done.emit(None, (str(exc), skipped, out))
+                return
+            self._study_done.emit(res, (None, skipped, out))
+
+        threading.Thread(target=work, name="camgaze-validate-study", daemon=True).start()
+        return True
+
+    def cancel_study(self) -> None:
+        """Stop the whole-study comparison after the pair being compared."""
+        if self._study_cancel is not None:
+            self._study_cancel.set()
+            self.status.setText("Cancelling after the current pair…")
+
+    @property
+    def study_running(self) -> bool:
+        return self._study_cancel is not None
+
     def export_report(self, path) -> Path:
         """Write the HTML report of the last comparison."""
         if self.outcome is None:
@@ -278,7 +368,9 @@ class ValidationView(QWidget):
             self.feature_box.setCurrentIndex(best)
         self.feature_box.blockSignals(False)
         self.status.setText("")
-        self.clip.validation = {"offset_s": outcome.offset_s, "features": int(len(outcome.table))}
+        # an offset the user gave is kept, so the whole-study comparison uses it for this clip too
+        self.clip.validation = {"offset_s": outcome.offset_s, "features": int(len(outcome.table)),
+                                "offset_given": bool(outcome.offset_given)}
         if self.window is not None:
             self.window._autosave()
         self._draw()
@@ -292,6 +384,53 @@ class ValidationView(QWidget):
             self.status.setStyleSheet("color: #c62828;")
         self.failed.emit(message)
 
+    def _on_study_progress(self, frac, message):
+        self.study_bar.setValue(int(round(1000 * max(0.0, min(1.0, frac)))))
+        self.study_bar.setFormat(f"{message} – %p%")
+
+    def _show_study_error(self, message):
+        self.status.setText(f"The study comparison could not be made: {message}")
+        self.status.setStyleSheet("color: #c62828;")
+        self.failed.emit(message)
+
+    def _on_study_done(self, res, extra):
+        error, skipped, out = extra
+        cancelled = self._study_cancel is not None and self._study_cancel.is_set()
+        self._study_cancel = None
+        self.study_bar.hide()
+        self.study_cancel_btn.hide()
+        self._update()
+        if res is None:
+            if cancelled:
+                self.status.setStyleSheet("")
+                self.status.setText(f"Study comparison cancelled; pairs compared so far keep their folders in {out}.")
+            else:
+                self._show_study_error(error)
+            return
+        self.study_outcome = res
+        self.outcome = None
+        n_ok, n_bad = len(res.results), len(res.failures)
+        lines = [f"<b>Study:</b> {n_ok} clip(s) compared with their reference"
+                 + (f", {n_bad} failed" if n_bad else "") + f". Summary below; report, pooled and per-participant "
+                 f"tables in <b>{out}</b> (report.html, summary.csv, participants.csv)."]
+        for key, msg in list(res.failures.items())[:5]:
+            lines.append(f"{key}: {msg}")
+        for msg in skipped[:5]:
+            lines.append(f"left out – {msg}")
+        self.status.setStyleSheet("")
+        self.status.setText("<br>".join(lines))
+        self.offset_label.setText("")
+        shown = res.summary
+        if not len(shown):  # e.g. clips shorter than one window: the per-pair table says what there is
+            shown = res.per_participant
+            lines.append("No windows could be paired for a pooled summary; the table lists each pair.")
+        self.status.setText("<br>".join(lines))
+        self.model.set_frame(shown)
+        self.table.resizeColumnsToContents()
+        self.feature_box.clear()
+        self._draw()
+        self.study_compared.emit(str(out))
+
     def _update(self):
         c = self.clip
         has_clip = c is not None
@@ -300,6 +439,7 @@ class ValidationView(QWidget):
         self.mapping_btn.setEnabled(ref is not None and ref.kind == "table")
         self.compare_btn.setEnabled(ref is not None)
         self.report_btn.setEnabled(self.outcome is not None)
+        self.study_btn.setEnabled(self.study is not None and self._study_cancel is None)
         if not has_clip:
             self.ref_label.setText("Select a clip to compare it with a reference recording.")
         elif ref is None:
@@ -307,7 +447,7 @@ class ValidationView(QWidget):
         else:
             what = "BIDS eye-tracking recording" if ref.kind == "bids" else "gaze table"
             self.ref_label.setText(f"Reference for {c.stem}: <b>{ref.path}</b> ({what}).")
-        if not self.status.text().startswith("The comparison"):
+        if not self.status.text().startswith(("The comparison", "The study comparison")):
             self.status.setStyleSheet("")
 
     def _draw(self, *_):
@@ -392,7 +532,7 @@ def run_validation(*, out_dir, reference, kind, mapping, analysis, segments=None
     if extra:
         note += " " + " ".join(extra)
     return ValidationOutcome(offset_s=float(al.offset_s), offset_note=note, table=result.agreement,
-                             pairs=_long_pairs(result.pairs), result=result)
+                             pairs=_long_pairs(result.pairs), result=result, offset_given=offset_s is not None)
 
 
 def _long_pairs(pairs: pd.DataFrame) -> pd.DataFrame:
