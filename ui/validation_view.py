@@ -87,6 +87,7 @@ class ValidationView(QWidget):
         self._study_done.connect(self._on_study_done)
         self._study_cancel: threading.Event | None = None
         self.study_outcome = None
+        self._plot_pairs = pd.DataFrame()
 
         self.ref_label = QLabel("No reference recording chosen for this clip.")
         self.ref_label.setWordWrap(True)
@@ -123,14 +124,17 @@ class ValidationView(QWidget):
         self.study_cancel_btn.hide()
         self.study_bar = QProgressBar()
         self.study_bar.setRange(0, 1000)
-        self.study_bar.setMaximumWidth(220)
+        self.study_bar.setMinimumWidth(260)
         self.study_bar.hide()
-        top.addWidget(self.study_btn)
-        top.addWidget(self.study_bar)
-        top.addWidget(self.study_cancel_btn)
         top.addStretch(1)
         top.addWidget(self.manual_offset)
         top.addWidget(self.offset_spin)
+        study_row = QHBoxLayout()
+        study_row.addWidget(QLabel("Whole study:"))
+        study_row.addWidget(self.study_btn)
+        study_row.addWidget(self.study_bar, 1)
+        study_row.addWidget(self.study_cancel_btn)
+        study_row.addStretch(0)
 
         self.offset_label = QLabel("")
         self.offset_label.setWordWrap(True)
@@ -160,6 +164,7 @@ class ValidationView(QWidget):
         lay = QVBoxLayout(self)
         lay.setContentsMargins(4, 4, 4, 4)
         lay.addLayout(top)
+        lay.addLayout(study_row)
         lay.addWidget(self.ref_label)
         lay.addWidget(self.offset_label)
         lay.addWidget(self.status)
@@ -174,6 +179,7 @@ class ValidationView(QWidget):
     def show_clip(self, clip) -> None:
         self.clip = clip
         self.outcome = None
+        self._plot_pairs = pd.DataFrame()
         self.model.set_frame(pd.DataFrame())
         self.feature_box.clear()
         self.offset_label.setText("")
@@ -357,16 +363,7 @@ class ValidationView(QWidget):
                                   f"{outcome.offset_s:+.3f} s on the clip's clock. {outcome.offset_note}")
         self.model.set_frame(outcome.table)
         self.table.resizeColumnsToContents()
-        self.feature_box.blockSignals(True)
-        self.feature_box.clear()
-        if len(outcome.pairs):
-            best, best_n = 0, -1
-            for i, ((feat, scope), g) in enumerate(outcome.pairs.groupby(["feature", "scope"], sort=False)):
-                self.feature_box.addItem(f"{feat} – {scope}s (n = {len(g)})", (feat, scope))
-                if len(g) > best_n:
-                    best, best_n = i, len(g)
-            self.feature_box.setCurrentIndex(best)
-        self.feature_box.blockSignals(False)
+        self._show_pairs(outcome.pairs)
         self.status.setText("")
         # an offset the user gave is kept, so the whole-study comparison uses it for this clip too
         self.clip.validation = {"offset_s": outcome.offset_s, "features": int(len(outcome.table)),
@@ -427,7 +424,8 @@ class ValidationView(QWidget):
         self.status.setText("<br>".join(lines))
         self.model.set_frame(shown)
         self.table.resizeColumnsToContents()
-        self.feature_box.clear()
+        # the plots pool the windows of every pair (one point per window, as in pooled_agreement.csv)
+        self._show_pairs(pd.concat([_long_pairs(r.pairs) for r in res.results.values()], ignore_index=True))
         self._draw()
         self.study_compared.emit(str(out))
 
@@ -450,14 +448,28 @@ class ValidationView(QWidget):
         if not self.status.text().startswith(("The comparison", "The study comparison")):
             self.status.setStyleSheet("")
 
+    def _show_pairs(self, pairs: pd.DataFrame) -> None:
+        """Offer the features of ``pairs`` (long form) for plotting; the one with most pairs first."""
+        self._plot_pairs = pairs
+        self.feature_box.blockSignals(True)
+        self.feature_box.clear()
+        if len(pairs):
+            best, best_n = 0, -1
+            for i, ((feat, scope), g) in enumerate(pairs.groupby(["feature", "scope"], sort=False)):
+                self.feature_box.addItem(f"{feat} – {scope}s (n = {len(g)})", (feat, scope))
+                if len(g) > best_n:
+                    best, best_n = i, len(g)
+            self.feature_box.setCurrentIndex(best)
+        self.feature_box.blockSignals(False)
+
     def _draw(self, *_):
-        o = self.outcome
+        pairs = self._plot_pairs
         key = self.feature_box.currentData()
-        if o is None or not len(o.pairs) or not key:
+        if not len(pairs) or not key:
             self.canvas.plot(draw_agreement, None, None, "")
             return
         feat, scope = key
-        p = o.pairs[(o.pairs["feature"] == feat) & (o.pairs["scope"] == scope)]
+        p = pairs[(pairs["feature"] == feat) & (pairs["scope"] == scope)]
         self.canvas.plot(draw_agreement, p["webcam"].to_numpy(dtype=float), p["reference"].to_numpy(dtype=float),
                          f"{feat} ({scope}s)")
 
@@ -485,7 +497,7 @@ def draw_agreement(fig, webcam, reference, feature: str):
     ax_s.set_ylabel(f"webcam {feature}", fontsize=8)
     ax_s.set_title(f"Webcam against reference (n = {len(a)})", fontsize=9)
     ax_b.scatter((a + b) / 2, a - b, s=14, color=theme.POINT_COLOUR, alpha=0.8)
-    if len(a) >= 2:
+    if len(a) >= 3:  # camgaze.agreement.bland_altman gives limits from three pairs on
         from camgaze.agreement import bland_altman
 
         with warnings.catch_warnings():
@@ -497,7 +509,7 @@ def draw_agreement(fig, webcam, reference, feature: str):
         ax_b.set_title(f"Bland-Altman: bias {ba.bias:.3g}, limits {ba.loa_low:.3g} to {ba.loa_high:.3g}",
                        fontsize=9)
     else:
-        ax_b.set_title("Bland-Altman (needs two or more pairs)", fontsize=9)
+        ax_b.set_title(f"Bland-Altman: limits need three or more pairs (n = {len(a)})", fontsize=9)
     ax_b.set_xlabel("mean of webcam and reference", fontsize=8)
     ax_b.set_ylabel("webcam − reference", fontsize=8)
     for ax in (ax_s, ax_b):
