@@ -890,6 +890,13 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
                        participant_means=part_means, pairing=pairing, unpaired=unpaired, paths=paths)
 
 
+def _finite_at_least(v, lo) -> bool:
+    try:
+        return bool(np.isfinite(float(v)) and float(v) >= lo)
+    except (TypeError, ValueError):
+        return False
+
+
 def _fmt(v, nd=2):
     try:
         v = float(v)
@@ -921,7 +928,8 @@ def study_summary(pooled: pd.DataFrame, per: pd.DataFrame, *, icc_form: str = DE
             "ba_bias": f"{_fmt(r['ba_bias'])} [{_fmt(r['ba_bias_ci_low'])}, {_fmt(r['ba_bias_ci_high'])}]",
             "ba_loa": f"{_fmt(r['ba_loa_low'])} to {_fmt(r['ba_loa_high'])}",
             "rmcorr": f"{_fmt(g('rmcorr'))} [{_fmt(g('rmcorr_ci_low'))}, {_fmt(g('rmcorr_ci_high'))}]",
-            "rmcorr_df": _fmt(g("rmcorr_df"), 0),
+            # N - k - 1 below 1 (one window per participant) means there is no estimate, not a negative df
+            "rmcorr_df": _fmt(g("rmcorr_df") if _finite_at_least(g("rmcorr_df"), 1) else np.nan, 0),
             "ba_bias_repeated": f"{_fmt(g('ba_rm_bias'))} [{_fmt(g('ba_rm_bias_ci_low'))}, "
                                 f"{_fmt(g('ba_rm_bias_ci_high'))}]",
             "ba_loa_repeated": f"{_fmt(g('ba_rm_loa_low'))} to {_fmt(g('ba_rm_loa_high'))}",

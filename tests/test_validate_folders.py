@@ -269,3 +269,21 @@ def test_folder_study_cli(study, tmp_path, capsys):
     one = next(study["bids"].rglob("*_physio.tsv.gz"))
     rc = main(["validate", str(study["cams"]), str(one), "-o", str(tmp_path / "y")])
     assert rc == 2 and "reference FOLDER" in capsys.readouterr().err
+
+
+def test_summary_with_one_window_per_participant_shows_no_negative_df():
+    """N - k - 1 = 2 - 2 - 1 < 1: the repeated-measures correlation has no estimate (Bakdash & Marusich 2017)."""
+    from camgaze.validate import repeated_agreement_table, study_summary
+
+    pairs = pd.DataFrame({"scope": "window", "participant": ["p01", "p02"], "paired": True,
+                          "fixation_count_webcam": [30.0, 41.0], "fixation_count_reference": [31.0, 38.0]})
+    rep, _ = repeated_agreement_table(pairs, ["fixation_count"])
+    assert rep["rmcorr_df"].iloc[0] == -1 and np.isnan(rep["rmcorr"].iloc[0])
+    pooled = pd.DataFrame({"scope": ["window"], "feature": ["fixation_count"], "n": [2], "mean_webcam": [35.5],
+                           "mean_reference": [34.5], **{c: [np.nan] for c in (
+                               "pearson_r", "pearson_ci_low", "pearson_ci_high", "icc", "icc_ci_low", "icc_ci_high",
+                               "ccc", "ccc_ci_low", "ccc_ci_high", "ba_bias", "ba_bias_ci_low", "ba_bias_ci_high",
+                               "ba_loa_low", "ba_loa_high")}}).merge(rep, on=["scope", "feature"])
+    per = pd.DataFrame({"participant": ["p01", "p02"], "status": ["ok", "ok"]})
+    row = study_summary(pooled, per).iloc[0]
+    assert row["rmcorr_df"] == "n/a" and row["participants"] == 2 and row["mean_webcam"] == "35.50"
