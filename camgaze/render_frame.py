@@ -30,6 +30,20 @@ The skin around the eyes follows the head by a piecewise-linear warp of the
 photograph from the rest landmarks to the posed landmarks (Delaunay
 triangulation with fixed anchors on a box around the face, so the background
 outside the box does not move).
+
+The whole head turns, not only the face-mesh surface. Hair, ears and
+headwear beyond the face outline lie on a shell around the skull centre
+(:meth:`FaceRig._head_shell`): each face-outline point's own distance from
+that centre, continued outwards in the picture up to the shell's silhouette,
+so they move rigidly with the head and go out of sight behind it when it
+turns away. Only the neck below the mouth and the background beyond the
+silhouette stay put. With the head off its rest pose the photograph is
+warped as a textured triangle mesh fixed on the rest picture, drawn far to
+near with back-facing triangles culled, so a turned head hides what a real
+one would. (The warp used to move only the face-mesh points and stretch
+everything outside them to the fixed box; the picture was then not that of a
+turned head - the outline stayed nearly where it was - and the face mesh
+read only 0.74-0.94 of a 15 deg head yaw on single frames.)
 """
 from __future__ import annotations
 
@@ -47,6 +61,18 @@ IRIS_PLANE_RADIUS_MM = float(np.sqrt(EYEBALL_RADIUS_MM ** 2 - (IRIS_DIAMETER_MM 
 #: pupil diameter drawn inside the iris, mm (a mid-range indoor pupil - common practice, from memory)
 PUPIL_DIAMETER_MM = 3.8
 _TEX_PX = 64  # side of the canonical iris texture
+
+#: MediaPipe face-oval landmarks in order around the face (forehead, subject's left side, chin, right side)
+FACE_OVAL = (10, 338, 297, 332, 284, 251, 389, 356, 454, 323, 361, 288, 397, 365, 379, 378, 400, 377, 152,
+             148, 176, 149, 150, 136, 172, 58, 132, 93, 234, 127, 162, 21, 54, 103, 67, 109)
+#: glabella (between the brows) and the mouth corners of the face mesh
+GLABELLA, MOUTH_CORNERS = 9, (61, 291)
+#: maximum head length (glabella to opisthocranion) of adults, mm (Farkas 1994, anthropometry of the head
+#: and face - from memory, about 185-195 mm); the skull centre lies half of it behind the glabella
+HEAD_LENGTH_MM = 190.0
+#: where the shell points sit, as fractions of the way from a face-outline point to the shell's silhouette (sampling
+#: of the surface, not a physical size; the last one stays just inside the silhouette, where rays graze the sphere)
+_SHELL_STEPS = (0.3, 0.6, 0.97)
 
 
 def gaze_vector(yaw_deg, pitch_deg) -> np.ndarray:
@@ -157,6 +183,45 @@ def _piecewise_affine_grid(dst: np.ndarray, src: np.ndarray, *, x0: int, y0: int
     return out.astype(np.float32)
 
 
+def _mesh_warp_grid(src: np.ndarray, dst: np.ndarray, simplices: np.ndarray, depth: np.ndarray, *, x0: int, y0: int,
+                    nx: int, ny: int, step_px: int) -> np.ndarray:
+    """Source positions of a textured triangle mesh drawn with occlusion, on a grid of destination positions.
+
+    Unlike :func:`_piecewise_affine_grid` the triangles are fixed on the
+    source (rest) picture, so a surface that turns away folds over instead of
+    being re-triangulated: triangles are drawn far to near (mean depth of
+    their corners, ``depth`` per point), the nearer one wins where they
+    overlap, and triangles whose orientation flips (seen from behind) are
+    not drawn. Grid nodes covered by no triangle keep their own position.
+    Grid layout and return value as in :func:`_piecewise_affine_grid`.
+    """
+    cv2 = import_cv2()
+    d = dst[simplices]                                # (k, 3, 2)
+    s = src[simplices]
+    area = lambda t: ((t[:, 1, 0] - t[:, 0, 0]) * (t[:, 2, 1] - t[:, 0, 1])
+                      - (t[:, 1, 1] - t[:, 0, 1]) * (t[:, 2, 0] - t[:, 0, 0]))
+    a_src, a_dst = area(s), area(d)
+    front = (a_src * a_dst > 0) & (np.abs(a_dst) > 1e-6)
+    m = np.concatenate([d, np.ones(d.shape[:2] + (1,))], axis=2)
+    coef = np.zeros((len(simplices), 3, 2))
+    coef[front] = np.linalg.solve(m[front], s[front])  # [x, y, 1] @ coef = source
+    order = np.flatnonzero(front)
+    order = order[np.argsort(-depth[simplices[order]].mean(axis=1), kind="stable")]  # far first
+    ids = np.zeros((ny, nx), np.int32)
+    grid_pts = np.round(((d - [x0, y0]) / step_px - 0.5) * 16).astype(np.int32)
+    for k in order:
+        cv2.fillConvexPoly(ids, grid_pts[k], int(k) + 1, lineType=cv2.LINE_8, shift=4)
+    gx = x0 + (np.arange(nx) + 0.5) * step_px
+    gy = y0 + (np.arange(ny) + 0.5) * step_px
+    GX, GY = np.meshgrid(gx, gy)
+    out = np.stack([GX, GY], axis=-1)
+    inside = ids > 0
+    c = coef[ids[inside] - 1]
+    xs, ys = GX[inside], GY[inside]
+    out[inside] = xs[:, None] * c[:, 0] + ys[:, None] * c[:, 1] + c[:, 2]
+    return out.astype(np.float32)
+
+
 class FaceRig:
     """A face photograph placed in front of a camera, posable and with drawable eyes.
 
@@ -200,6 +265,8 @@ class FaceRig:
         self.rest_origin_mm = 0.5 * (self.rest_eyeball_mm["right"] + self.rest_eyeball_mm["left"])
         span = uv.max(axis=0) - uv.min(axis=0)
         self.face_size_px = float(max(span))
+        self.rest_shell_mm = self._head_shell()
+        self.rest_shell_uv = camera.project(self.rest_shell_mm) if len(self.rest_shell_mm) else np.zeros((0, 2))
 
         # the photo composited onto the background with feathered edges
         h, w = camera.height_px, camera.width_px
@@ -215,6 +282,62 @@ class FaceRig:
         self.base = np.clip(photo * alpha + background * (1 - alpha) + 0.5, 0, 255).astype(np.uint8)
         self.background = np.ascontiguousarray(background, dtype=np.uint8).copy()
         self.iris_texture = {e: _iris_texture(face.eyes[e].iris_rgb, seed + i) for i, e in enumerate(EYES)}
+
+    # ------------------------------------------------------------------ head
+    def _head_shell(self) -> np.ndarray:
+        """Rest 3-D positions (S, 3), mm, of the shell points that carry hair, ears and headwear with the head.
+
+        The face mesh ends at the face outline; what the photograph shows
+        beyond it down to the mouth's level (hair, ears, a cap) belongs to the
+        head as well. The cranium is roughly round about its centre, which
+        lies half the maximum head length (:data:`HEAD_LENGTH_MM`) straight
+        behind the glabella. Each face-outline point above the mouth is
+        continued outwards in the picture, along the line from the skull
+        centre's image through it, on the sphere about the skull centre
+        through that outline point (so the shell meets the face mesh without
+        a step in depth), up to that sphere's silhouette. Below the mouth the
+        outline borders the neck, which does not turn with the head, and gets
+        no shell.
+        """
+        cam = self.camera
+        f = cam.focal_px
+        cx, cy = cam.centre_px
+        mesh, uv = self.rest_mesh_mm, self.rest_uv
+        centre = mesh[GLABELLA] + np.array([0.0, 0.0, HEAD_LENGTH_MM / 2.0])
+        c_uv = cam.project(centre[None])[0]
+        mouth_y = float(mesh[list(MOUTH_CORNERS), 1].mean())
+        out = []
+        for i in FACE_OVAL:
+            p = mesh[i]
+            if p[1] >= mouth_y:
+                continue
+            r = float(np.linalg.norm(p - centre))
+            u = uv[i] - c_uv
+            if np.linalg.norm(u) < 1e-6:
+                continue
+            u /= np.linalg.norm(u)
+            t = np.arange(0.0, 2.0 * f * r / centre[2], 0.25)  # picture distance beyond the outline point, px
+            q = uv[i] + t[:, None] * u
+            ray = np.c_[(q[:, 0] - cx) / f, (q[:, 1] - cy) / f, np.ones(len(t))]
+            a = np.einsum("ij,ij->i", ray, ray)
+            b = -2.0 * ray @ centre
+            c = float(centre @ centre) - (r + 1e-6) ** 2  # the outline point itself lies on the sphere
+            disc = b * b - 4 * a * c
+            hit = np.flatnonzero(disc >= 0)
+            if len(hit) < 2 or hit[0] != 0:
+                continue
+            t_max = t[hit[-1]]
+            for frac in _SHELL_STEPS:
+                qq = uv[i] + frac * t_max * u
+                rr = np.array([(qq[0] - cx) / f, (qq[1] - cy) / f, 1.0])
+                aa, bb = rr @ rr, -2.0 * rr @ centre
+                lam = (-bb - np.sqrt(max(bb * bb - 4 * aa * c, 0.0))) / (2 * aa)  # the near (visible) side
+                out.append(lam * rr)
+        return np.array(out).reshape(-1, 3)
+
+    def shell_mm(self, R: np.ndarray, T_mm) -> np.ndarray:
+        """Head-shell points (S, 3) in the camera frame for rotation ``R`` and head origin ``T_mm``."""
+        return (self.rest_shell_mm - self.rest_origin_mm) @ R.T + np.asarray(T_mm, dtype=float)
 
     # ------------------------------------------------------------------ pose
     def lid_offsets_mm(self, eye_pitch_deg: float) -> np.ndarray:
@@ -255,6 +378,42 @@ class FaceRig:
         return {e: c + IRIS_PLANE_RADIUS_MM * gaze for e, c in eyes.items()}
 
     # ------------------------------------------------------------------ warp
+    def _warped_head(self, dst_uv: np.ndarray, depth_mm: np.ndarray) -> np.ndarray:
+        """The photograph warped for a moved head: face mesh and head shell as one occluding triangle mesh."""
+        from scipy.spatial import Delaunay
+
+        cv2 = import_cv2()
+        h, w = self.camera.height_px, self.camera.width_px
+        src_uv = np.vstack([self.rest_uv, self.rest_shell_uv])
+        d = float(np.abs(dst_uv - src_uv).max())
+        both = np.vstack([src_uv, dst_uv])
+        g = 2
+        margin = 0.1 * self.face_size_px + d
+        x0 = int(np.floor(max(0, both[:, 0].min() - margin)))
+        y0 = int(np.floor(max(0, both[:, 1].min() - margin)))
+        x1 = int(np.ceil(min(w, both[:, 0].max() + margin)))
+        y1 = int(np.ceil(min(h, both[:, 1].max() + margin)))
+        nx, ny = (x1 - x0) // g, (y1 - y0) // g
+        x1, y1 = x0 + nx * g, y0 + ny * g
+        out = self.base.copy()
+        if nx < 2 or ny < 2:
+            return out
+        bx = np.linspace(x0, x1, 12)
+        by = np.linspace(y0, y1, 12)
+        anchors = np.unique(np.vstack([np.c_[bx, np.full_like(bx, y0)], np.c_[bx, np.full_like(bx, y1)],
+                                       np.c_[np.full_like(by, x0), by], np.c_[np.full_like(by, x1), by]]), axis=0)
+        src = np.vstack([src_uv, anchors])
+        dst = np.vstack([dst_uv, anchors])
+        depth = np.r_[depth_mm, np.full(len(anchors), np.inf)]  # the still background lies behind everything
+        simp = Delaunay(src).simplices
+        m = _mesh_warp_grid(src, dst, simp, np.where(np.isfinite(depth), depth, 1e9), x0=x0, y0=y0, nx=nx, ny=ny,
+                            step_px=g)
+        mx = cv2.resize(m[..., 0], (nx * g, ny * g), interpolation=cv2.INTER_LINEAR) - 0.5
+        my = cv2.resize(m[..., 1], (nx * g, ny * g), interpolation=cv2.INTER_LINEAR) - 0.5
+        out[y0:y1, x0:x1] = cv2.remap(self.base, mx, my, interpolation=cv2.INTER_LINEAR,
+                                      borderMode=cv2.BORDER_REPLICATE)
+        return out
+
     def _warped_base(self, dst_uv: np.ndarray) -> np.ndarray:
         cv2 = import_cv2()
         h, w = self.camera.height_px, self.camera.width_px
@@ -388,7 +547,12 @@ class FaceRig:
         eye_pitch = float(np.degrees(np.arctan2(-g_head[1], np.hypot(g_head[0], g_head[2]))))
         mesh, _ = self.pose(R, T_mm, eye_pitch_deg=eye_pitch)
         uv = self.camera.project(mesh)
-        img = self._warped_base(uv)
+        shell = self.shell_mm(R, T_mm)
+        shell_uv = self.camera.project(shell)
+        if len(shell) and np.abs(shell_uv - self.rest_shell_uv).max() >= 0.05:
+            img = self._warped_head(np.vstack([uv, shell_uv]), np.r_[mesh[:, 2], shell[:, 2]])
+        else:  # head at rest: only the lids move
+            img = self._warped_base(uv)
         iris_mm = self.iris_centres_mm(R, T_mm, gaze)
         iris_uv, diam = {}, []
         f = self.camera.focal_px

