@@ -263,6 +263,7 @@ class Study:
         """Attach (or with ``None`` detach) a reference recording; remembers a table's mapping."""
         if path is None:
             clip.reference = None
+            clip.validation = {}
             return
         p = Path(path)
         if not p.is_file():
@@ -273,7 +274,10 @@ class Study:
         rel = self.relative(p)
         if kind == "table" and mapping is None:
             mapping = self.mappings.get(rel) or self.mappings.get("last")
-        clip.reference = ReferenceFile(path=rel, kind=kind, mapping=mapping)
+        new_ref = ReferenceFile(path=rel, kind=kind, mapping=mapping)
+        if clip.reference != new_ref:
+            clip.validation = {}  # its figures and any offset the user gave belong to the old recording
+        clip.reference = new_ref
         if kind == "table" and mapping is not None:
             self.mappings[rel] = mapping
             self.mappings["last"] = mapping
@@ -467,8 +471,23 @@ def missing_files(study: Study) -> list[str]:
     return out
 
 
+_LABEL_SAFE = __import__("re").compile(r"[^A-Za-z0-9_.-]+")
+
+
+def _safe_label(v: str) -> str:
+    """A label as the validation output folders need it: letters, digits, ``_ . -`` only."""
+    return _LABEL_SAFE.sub("-", str(v)).strip("-_.")
+
+
 def _clip_labels(stem: str) -> dict:
-    """participant/session of a clip from BIDS entities in its name, else a ``p<digits>`` / ``s<digits>`` part."""
+    """participant/session of a clip, guessed from its file name.
+
+    BIDS ``sub-``/``ses-`` entities if present; else a ``p<digits>`` part is
+    the participant and an ``s<digits>`` part the session; else the name
+    without its session part is the participant (``anna_s1`` and ``anna_s2``
+    are one participant, two sessions). Labels are cleaned to letters,
+    digits and ``_ . -`` (an empty result is left empty for the caller).
+    """
     import re
 
     from .pairing import bids_labels
@@ -477,14 +496,19 @@ def _clip_labels(stem: str) -> dict:
         labels = bids_labels(stem)
     except CamgazeInputError:
         labels = {}
+    ses_match = None
+    if "session" not in labels:
+        ses_match = re.search(r"(?:^|[_-])(s\d+)(?=$|[_-])", stem)
+        if ses_match:
+            labels["session"] = ses_match.group(1)
     if "participant" not in labels:
         m = re.search(r"(?:^|[_-])(p\d+)(?=$|[_-])", stem)
-        labels["participant"] = m.group(1) if m else stem
-    if "session" not in labels:
-        m = re.search(r"(?:^|[_-])(s\d+)(?=$|[_-])", stem)
         if m:
-            labels["session"] = m.group(1)
-    return labels
+            labels["participant"] = m.group(1)
+        else:
+            rest = stem if ses_match is None else stem[:ses_match.start()] + stem[ses_match.end():]
+            labels["participant"] = rest
+    return {k: _safe_label(v) for k, v in labels.items()}
 
 
 def write_validation_manifest(study: Study, path: str | os.PathLike) -> tuple[Path, list[str]]:
@@ -505,6 +529,7 @@ def write_validation_manifest(study: Study, path: str | os.PathLike) -> tuple[Pa
 
     Returns the manifest path and one line per clip that was left out (and why).
     """
+    import numpy as np
     import pandas as pd
 
     from .atomic import write_csv
@@ -532,8 +557,8 @@ def write_validation_manifest(study: Study, path: str | os.PathLike) -> tuple[Pa
             if not clip.reference.mapping:
                 skipped.append(f"{clip.name}: reference table {clip.reference.path} has no column mapping")
                 continue
-            mapping = str(TableMapping.from_dict(clip.reference.mapping).save(path.parent / "mappings"
-                                                                              / f"{clip.stem}.json"))
+            TableMapping.from_dict(clip.reference.mapping).save(path.parent / "mappings" / f"{clip.stem}.json")
+            mapping = f"mappings/{clip.stem}.json"  # relative to the manifest, so the folder can move
         labels = _clip_labels(clip.stem)
         rows.append({"webcam": str(out), "reference": str(ref), "participant": labels["participant"],
                      "session": labels.get("session", ""), "task": labels.get("task", ""),
@@ -545,14 +570,58 @@ def write_validation_manifest(study: Study, path: str | os.PathLike) -> tuple[Pa
         raise CamgazeInputError("no clip of the study has both finished results and a reference recording: "
                                 + "; ".join(skipped[:6]) + (" ..." if len(skipped) > 6 else ""),
                                 path=study.path, hint="process the clips and choose a reference for each")
-    import re
-
     df = pd.DataFrame(rows)
+    empty = df["participant"] == ""
+    df.loc[empty, "participant"] = [f"clip{k + 1}" for k in np.flatnonzero(empty.to_numpy())]
+    # the labels are clean already (_clip_labels); now make every pair's key unique: clips of one participant
+    # that share a session label get their clip name as session, and any that still collide a number
     labels = ["participant", "session", "task", "run"]
     key = df[labels].agg("_".join, axis=1)
     dup = key.duplicated(keep=False)
-    df.loc[dup, "session"] = [Path(w).name for w in df.loc[dup, "webcam"]]
-    for col in labels:  # the labels name output folders: letters, digits, _ . - only
-        df[col] = [re.sub(r"[^A-Za-z0-9_.-]+", "-", v).strip("-") for v in df[col]]
+    df.loc[dup, "session"] = [_safe_label(Path(w).name) for w in df.loc[dup, "webcam"]]
+    key = df[labels].agg("_".join, axis=1)
+    seen: dict[str, int] = {}
+    for i, k in enumerate(key):
+        seen[k] = seen.get(k, 0) + 1
+        if seen[k] > 1:
+            df.loc[df.index[i], "session"] = f"{df['session'].iloc[i]}-{seen[k]}".lstrip("-")
     write_csv(path, df)
     return path, skipped
+
+
+def run_study_validation(study: Study, out_dir: str | os.PathLike, *, params=None, progress=None):
+    """Validate every processed clip of ``study`` that has a reference; results replace ``out_dir`` only when complete.
+
+    Writes the manifest (:func:`write_validation_manifest`) and the study
+    validation (:func:`camgaze.validate.validate_study`) into a sibling
+    folder ``.<name>.partial`` and only when everything is written swaps it
+    for ``out_dir``; a run that fails or is cancelled (``progress`` raising
+    :class:`camgaze.errors.Cancelled`) removes its partial folder and leaves
+    an earlier complete ``out_dir`` as it was - never a new manifest beside
+    an old report.
+
+    Returns ``(StudyResult, skipped)``, ``skipped`` as from
+    :func:`write_validation_manifest`.
+    """
+    import shutil
+
+    from .validate import ValidateParams, validate_study
+
+    out = Path(out_dir)
+    part = out.parent / f".{out.name}.partial"
+    old = out.parent / f".{out.name}.previous"
+    for leftover in (part, old):
+        if leftover.exists():
+            shutil.rmtree(leftover)
+    try:
+        manifest, skipped = write_validation_manifest(study, part / "validation_manifest.csv")
+        res = validate_study(manifest, part, params=params or ValidateParams(), progress=progress)
+    except BaseException:
+        shutil.rmtree(part, ignore_errors=True)
+        raise
+    if out.exists():
+        out.rename(old)
+    part.rename(out)
+    shutil.rmtree(old, ignore_errors=True)
+    res.paths = {k: out / Path(v).relative_to(part) for k, v in res.paths.items()}
+    return res, skipped

@@ -27,6 +27,7 @@ means), and a summary table to paste.
 """
 from __future__ import annotations
 
+import io
 import re
 import warnings
 from dataclasses import dataclass, field, replace
@@ -558,8 +559,19 @@ def read_validation_manifest(path) -> list[StudyRow]:
     path = Path(path)
     if not path.is_file():
         raise CamgazeInputError("manifest not found", path=path)
+    # only whole lines starting with "#" are comments: a "#" inside a path ("Class #3/") is part of it
     try:
-        df = pd.read_csv(path, sep=None, engine="python", comment="#", dtype=str, keep_default_na=False)
+        lines = path.read_text(encoding="utf-8-sig").splitlines()
+    except (OSError, UnicodeDecodeError) as exc:
+        raise CamgazeInputError(f"cannot read the manifest ({exc})", path=path) from None
+    kept = [(k + 1, ln) for k, ln in enumerate(lines) if ln.strip() and not ln.lstrip().startswith("#")]
+    if not kept:
+        raise CamgazeInputError("the manifest is empty", path=path, hint="columns: webcam, reference, participant, "
+                                "session, mapping")
+    file_line = [k for k, _ in kept]  # file line number of each table row (header first)
+    try:
+        df = pd.read_csv(io.StringIO("\n".join(ln for _, ln in kept)), sep=None, engine="python", dtype=str,
+                         keep_default_na=False)
     except Exception as exc:  # noqa: BLE001 - pandas raises several parser errors
         raise CamgazeInputError(f"cannot read the manifest as a table ({exc})", path=path) from None
     df.columns = [c.strip().lower() for c in df.columns]
@@ -573,7 +585,7 @@ def read_validation_manifest(path) -> list[StudyRow]:
     base = path.parent
     rows, seen = [], set()
     for i, r in df.iterrows():
-        line = int(i) + 2
+        line = file_line[int(i) + 1] if int(i) + 1 < len(file_line) else int(i) + 2
 
         def p(col):
             v = str(r.get(col, "")).strip()

@@ -217,6 +217,35 @@ def test_merge_alpha_parameter_checked_and_reported():
     t, x, y, ok, bl, lo = _arrays(n=60, rate=30.0)
     x += np.random.default_rng(0).normal(0, 0.3, 60)
     samples = pd.DataFrame({"t_s": t, "valid": ok, "yaw_deg": x, "pitch_deg": y})
-    res = run_analysis(samples)
-    assert len(res.quality["detector_thresholds"]["merge_noise_sd_deg"]) == 2
+    y += np.random.default_rng(1).normal(0, 0.2, 60)
+    samples = pd.DataFrame({"t_s": t, "valid": ok, "yaw_deg": x, "pitch_deg": y})
+    info = run_analysis(samples).quality["detector_thresholds"]
+    sd = info["merge_noise_sd_deg"]
+    assert len(sd) == 2 and all(np.isfinite(v) and v > 0 for v in sd)
+    assert sd[0] == pytest.approx(0.3, rel=0.35) and sd[1] == pytest.approx(0.2, rel=0.35)  # the noise put in
+    assert info["merge_test_axes"] == ["yaw", "pitch"]
     assert "merge_noise_sd_deg" not in run_analysis(samples, AnalysisParams(merge_alpha=0)).quality["detector_thresholds"]
+    # a pitch trace without any noise (e.g. a quantised table): the test runs on yaw alone, and says so
+    flat = samples.assign(pitch_deg=0.0)
+    info = run_analysis(flat).quality["detector_thresholds"]
+    assert info["merge_noise_sd_deg"][1] == 0.0 and info["merge_test_axes"] == ["yaw"]
+
+
+def test_means_test_with_one_axis_and_empty_fragments():
+    """1 degree of freedom when one axis has no noise; the quantile against scipy.stats.chi2 (reference library)."""
+    import warnings
+
+    from scipy.stats import chi2
+
+    from camgaze.detect.postprocess import _chi2_1_quantile, means_indistinguishable
+
+    for q in (0.9, 0.95, 0.99):
+        assert _chi2_1_quantile(q) == pytest.approx(chi2.ppf(q, 1), rel=1e-9)
+    lim = np.sqrt(chi2.ppf(0.95, 1) * (1 / 4 + 1 / 4))  # largest |dx| still the same position, sd 1
+    got = means_indistinguishable([lim - 1e-6, lim + 1e-6], [5.0, 5.0], [4, 4], [4, 4], (1.0, 0.0), 0.05)
+    assert got.tolist() == [True, False]  # the pitch difference of an axis without noise is not tested
+    assert means_indistinguishable([0.0], [0.0], [4], [4], (0.0, float("nan")), 0.05).tolist() == [False]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # a mean of no samples: no division warning, and never "the same"
+        assert means_indistinguishable([0.0, 0.0], [0.0, 0.0], [0, 3], [5, 0], (1.0, 1.0), 0.05).tolist() == [
+            False, False]

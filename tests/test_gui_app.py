@@ -434,10 +434,28 @@ def test_compare_all_clips_uses_given_offset_and_can_be_cancelled(qtbot, window,
     assert man["offset_s"].tolist()[0] == pytest.approx(-0.4) and np.isnan(man["offset_s"].tolist()[1])
     assert vv.study_outcome.results["p01_s01"].alignment.offset_s == pytest.approx(-0.4)
     assert (out / "report.html").exists() and (out / "summary.csv").exists()
-    # cancelled while the first pair is compared: it stops before the second, no study tables are written
-    cancelled = tmp_path / "cancelled"
-    vv._study_progress.connect(lambda *a: vv.cancel_study())
-    assert vv.compare_study(cancelled)
-    qtbot.waitUntil(lambda: not vv.study_running, timeout=120_000)
-    assert "cancelled" in vv.status.text().lower(), vv.status.text()
-    assert not (cancelled / "summary.csv").exists() and vv.study_btn.isEnabled()
+    # cancelled while the first pair is compared (the flag is set from the worker, right after that pair):
+    # it stops before the second, and the earlier complete result in the same folder is left as it was
+    import camgaze.validate as validate_mod
+
+    before = (out / "summary.csv").read_bytes()
+    real = validate_mod.validate_pair
+    seen = []
+
+    def pair_then_cancel(*a, **k):
+        seen.append(a[0])
+        r = real(*a, **k)
+        vv._study_cancel.set()
+        return r
+
+    validate_mod.validate_pair = pair_then_cancel
+    try:
+        assert vv.compare_study(out)
+        qtbot.waitUntil(lambda: not vv.study_running, timeout=120_000)
+    finally:
+        validate_mod.validate_pair = real
+    assert len(seen) == 1  # the second pair was never started
+    assert "cancelled" in vv.status.text().lower() and "as it was" in vv.status.text(), vv.status.text()
+    assert (out / "summary.csv").read_bytes() == before and vv.study_btn.isEnabled()
+    assert not (out.parent / f".{out.name}.partial").exists()
+    assert not vv.report_btn.isEnabled()

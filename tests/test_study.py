@@ -142,3 +142,97 @@ def test_missing_file_and_missing_clip_listed(tmp_path):
     s = load_study(p)
     probs = missing_files(s)
     assert len(probs) == 1 and "gone.mp4" in probs[0]
+
+
+def _processed_study(tmp_path, stems):
+    """A study whose clips have finished results (run.json) and a reference file each (contents not read)."""
+    s = new_study(path=tmp_path / "Class #3" / "pilot.camgaze-study.json")
+    clips = tmp_path / "Class #3" / "clips"
+    clips.mkdir(parents=True)
+    for stem in stems:
+        (clips / f"{stem}.mp4").write_bytes(b"\x00" * 16)
+        ref = clips / f"{stem}_physio.tsv.gz"
+        ref.write_bytes(b"\x00")
+        c = s.add_clip(clips / f"{stem}.mp4")
+        out = s.clip_out_dir(c)
+        out.mkdir(parents=True)
+        (out / "run.json").write_text(json.dumps({"params": {}, "quality": {"frames": 30}}))
+        s.set_reference(c, ref, kind="bids")
+    s.refresh_all()
+    return s
+
+
+def test_validation_manifest_labels_unique_keys_and_hash_in_path(tmp_path):
+    from camgaze.study import write_validation_manifest
+    from camgaze.validate import read_validation_manifest
+
+    stems = ["linden_brook_p01_s01", "anna_s1", "anna_s2", "anna 1", "anna-1", "学生一", "sub-07_ses-2_task-read"]
+    s = _processed_study(tmp_path, stems)
+    manifest, skipped = write_validation_manifest(s, tmp_path / "Class #3" / "validation" / "validation_manifest.csv")
+    assert skipped == []
+    rows = read_validation_manifest(manifest)  # a '#' inside a path is not a comment
+    got = {r.webcam.name: (r.participant, r.session, r.task) for r in rows}
+    assert got["linden_brook_p01_s01"] == ("p01", "s01", None)
+    assert got["anna_s1"] == ("anna", "s1", None) and got["anna_s2"] == ("anna", "s2", None)  # one participant
+    assert got["sub-07_ses-2_task-read"] == ("07", "2", "read")
+    assert got["学生一"][0] == "clip6"  # nothing usable in the name: numbered
+    # "anna 1" and "anna-1" clean to the same label: still two distinct pairs, not an error
+    assert got["anna 1"][0] == got["anna-1"][0] == "anna-1" and got["anna 1"][1] != got["anna-1"][1]
+    assert len({r.key for r in rows}) == len(rows) == len(stems)
+    assert all(r.webcam.is_dir() and "#3" in str(r.webcam) for r in rows)
+
+
+def test_manifest_comment_lines_only_whole_lines(tmp_path):
+    from camgaze.validate import read_validation_manifest
+
+    d = tmp_path / "room #2"
+    (d / "cam").mkdir(parents=True)
+    (d / "ref.tsv.gz").write_bytes(b"\x00")
+    (d / "m.csv").write_text("# pairs of the pilot\nwebcam,reference,participant\n  # a note\ncam,ref.tsv.gz,p01\n")
+    (row,) = read_validation_manifest(d / "m.csv")
+    assert row.webcam == d / "cam" and row.participant == "p01" and row.line == 4  # the file's own line number
+    (d / "bad.csv").write_text("webcam,reference\n# skipped\ncam,missing.tsv.gz\n")
+    with pytest.raises(CamgazeInputError, match="row 3"):
+        read_validation_manifest(d / "bad.csv")
+
+
+def test_new_reference_drops_the_given_offset(tmp_path):
+    from camgaze.study import write_validation_manifest
+
+    s = _processed_study(tmp_path, ["p01_s01"])
+    c = s.clips[0]
+    c.validation = {"offset_s": -0.4, "features": 3, "offset_given": True}
+    m, _ = write_validation_manifest(s, tmp_path / "v1" / "m.csv")
+    import pandas as pd
+
+    assert pd.read_csv(m)["offset_s"].tolist() == [-0.4]
+    s.set_reference(c, s.resolve(c.reference.path), kind="bids")  # the same file again: kept
+    assert c.validation["offset_given"] is True
+    other = tmp_path / "other_physio.tsv.gz"
+    other.write_bytes(b"\x00")
+    s.set_reference(c, other, kind="bids")  # another recording: the offset was for the old one
+    assert c.validation == {}
+    m, _ = write_validation_manifest(s, tmp_path / "v2" / "m.csv")
+    assert pd.read_csv(m)["offset_s"].isna().all()
+
+
+def test_study_validation_replaces_the_folder_only_when_complete(tmp_path):
+    """A failed or cancelled run leaves an earlier complete result as it was and no partial folder."""
+    from camgaze.errors import Cancelled
+    from camgaze.study import run_study_validation
+
+    s = _processed_study(tmp_path, ["p01_s01"])
+    out = tmp_path / "validation"
+    out.mkdir()
+    (out / "report.html").write_text("earlier complete report")
+
+    def cancel(frac, msg):
+        raise Cancelled("stop")
+
+    with pytest.raises(Cancelled):
+        run_study_validation(s, out, progress=cancel)
+    # the reference files here are not recordings: the comparison fails, also without touching the result
+    with pytest.raises(CamgazeInputError, match="no pair of the study could be validated"):
+        run_study_validation(s, out)
+    assert (out / "report.html").read_text() == "earlier complete report"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["Class #3", "validation"]

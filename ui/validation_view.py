@@ -10,8 +10,9 @@ and Bland-Altman plots; "Export report…" writes the library's HTML report.
 with a reference goes into a manifest (:func:`camgaze.study.write_validation_manifest`,
 kept in the output folder so the command line can re-run it), and
 :func:`camgaze.validate.validate_study` writes the per-participant and pooled
-results and the study report there; the view shows the summary table. It
-shows its progress and can be cancelled (finished pairs keep their files).
+results and the study report there (the folder is replaced only when the
+comparison is complete: :func:`camgaze.study.run_study_validation`); the
+view shows the summary table. It shows its progress and can be cancelled.
 """
 from __future__ import annotations
 
@@ -239,26 +240,21 @@ class ValidationView(QWidget):
     def compare_study(self, out_dir=None) -> bool:
         """Compare every processed clip that has a reference (in a worker thread); see the module notes.
 
-        ``out_dir`` defaults to ``<study output folder>/validation``.
+        ``out_dir`` defaults to ``<study output folder>/validation``; it is
+        replaced only when the whole comparison is written
+        (:func:`camgaze.study.run_study_validation`).
         """
         s = self.study
         if s is None or self._study_cancel is not None:
             return False
-        from camgaze.errors import CamgazeError
-
         out = Path(out_dir) if out_dir is not None else s.output_root() / "validation"
-        try:
-            s.refresh_all()
-            manifest, skipped = study_mod.write_validation_manifest(s, out / "validation_manifest.csv")
-        except CamgazeError as exc:
-            self._show_study_error(str(exc))
-            return False
+        s.refresh_all()
+        outdated = [c.name for c in s.clips if c.reference is not None and c.status == study_mod.STATUS_STALE]
         analysis = dict(s.analysis)
         cancel = threading.Event()
         self._study_cancel = cancel
         self.status.setStyleSheet("")
-        self.status.setText(f"Comparing the study's clips… ({len(skipped)} left out)" if skipped
-                            else "Comparing the study's clips…")
+        self.status.setText("Comparing the study's clips…")
         self.study_bar.setValue(0)
         self.study_bar.show()
         self.study_cancel_btn.show()
@@ -273,15 +269,20 @@ class ValidationView(QWidget):
 
         def work():
             from camgaze.analysis import AnalysisParams
-            from camgaze.validate import ValidateParams, validate_study
+            from camgaze.errors import Cancelled
+            from camgaze.validate import ValidateParams
 
             try:
                 ap = AnalysisParams.from_dict(analysis) if analysis else AnalysisParams()
-                res = validate_study(manifest, out, params=ValidateParams(analysis=ap), progress=progress)
-            except Exception as exc:  # noqa: BLE001 - shown in the view
-                self._study_done.emit(None, (str(exc), skipped, out))
+                res, skipped = study_mod.run_study_validation(s, out, params=ValidateParams(analysis=ap),
+                                                              progress=progress)
+            except Cancelled:
+                self._study_done.emit(None, {"cancelled": True, "out": out})
                 return
-            self._study_done.emit(res, (None, skipped, out))
+            except Exception as exc:  # noqa: BLE001 - shown in the view
+                self._study_done.emit(None, {"error": str(exc), "out": out})
+                return
+            self._study_done.emit(res, {"skipped": skipped, "out": out, "outdated": outdated})
 
         threading.Thread(target=work, name="camgaze-validate-study", daemon=True).start()
         return True
@@ -356,6 +357,13 @@ class ValidationView(QWidget):
     # ------------------------------------------------------------- results
     def _on_done(self, key, outcome):
         self.compare_btn.setEnabled(True)
+        # kept on the compared clip even when another one is shown by now: the whole-study comparison uses it
+        compared = self.study.find(key) if self.study is not None else None
+        if compared is not None:
+            compared.validation = {"offset_s": outcome.offset_s, "features": int(len(outcome.table)),
+                                   "offset_given": bool(outcome.offset_given)}
+            if self.window is not None:
+                self.window._autosave()
         if self.clip is None or self.clip.stem != key:
             return
         self.outcome = outcome
@@ -365,11 +373,6 @@ class ValidationView(QWidget):
         self.table.resizeColumnsToContents()
         self._show_pairs(outcome.pairs)
         self.status.setText("")
-        # an offset the user gave is kept, so the whole-study comparison uses it for this clip too
-        self.clip.validation = {"offset_s": outcome.offset_s, "features": int(len(outcome.table)),
-                                "offset_given": bool(outcome.offset_given)}
-        if self.window is not None:
-            self.window._autosave()
         self._draw()
         self._update()
         self.compared.emit(key)
@@ -391,37 +394,49 @@ class ValidationView(QWidget):
         self.failed.emit(message)
 
     def _on_study_done(self, res, extra):
-        error, skipped, out = extra
-        cancelled = self._study_cancel is not None and self._study_cancel.is_set()
+        out = extra["out"]
         self._study_cancel = None
         self.study_bar.hide()
         self.study_cancel_btn.hide()
-        self._update()
         if res is None:
-            if cancelled:
+            self._update()
+            if extra.get("cancelled"):
                 self.status.setStyleSheet("")
-                self.status.setText(f"Study comparison cancelled; pairs compared so far keep their folders in {out}.")
+                self.status.setText(f"Study comparison cancelled; nothing was written, and an earlier comparison "
+                                    f"in {out} is as it was.")
             else:
-                self._show_study_error(error)
+                self._show_study_error(extra.get("error", "unknown error"))
             return
         self.study_outcome = res
         self.outcome = None
+        self._update()
         n_ok, n_bad = len(res.results), len(res.failures)
+
+        def listed(items, what):
+            shown = [f"{what}{m}" for m in items[:5]]
+            if len(items) > 5:
+                shown.append(f"… and {len(items) - 5} more (see participants.csv)")
+            return shown
+
         lines = [f"<b>Study:</b> {n_ok} clip(s) compared with their reference"
                  + (f", {n_bad} failed" if n_bad else "") + f". Summary below; report, pooled and per-participant "
-                 f"tables in <b>{out}</b> (report.html, summary.csv, participants.csv)."]
-        for key, msg in list(res.failures.items())[:5]:
-            lines.append(f"{key}: {msg}")
-        for msg in skipped[:5]:
-            lines.append(f"left out – {msg}")
-        self.status.setStyleSheet("")
-        self.status.setText("<br>".join(lines))
-        self.offset_label.setText("")
+                 f"tables in <b>{out}</b> (report.html, summary.csv, participants.csv). Participant and session "
+                 f"labels were taken from the clip names (validation_manifest.csv; edit it and run "
+                 f"<code>camgaze validate --manifest</code> to change them)."]
+        lines += listed([f"{k}: {m}" for k, m in res.failures.items()], "")
+        lines += listed(list(extra.get("skipped") or []), "left out – ")
+        outdated = list(extra.get("outdated") or [])
+        if outdated:
+            lines.append(f"{len(outdated)} clip(s) were processed with other parameters than the study's current "
+                         f"ones and compared as they are: " + ", ".join(outdated[:5])
+                         + (" …" if len(outdated) > 5 else ""))
         shown = res.summary
         if not len(shown):  # e.g. clips shorter than one window: the per-pair table says what there is
             shown = res.per_participant
             lines.append("No windows could be paired for a pooled summary; the table lists each pair.")
+        self.status.setStyleSheet("")
         self.status.setText("<br>".join(lines))
+        self.offset_label.setText("")
         self.model.set_frame(shown)
         self.table.resizeColumnsToContents()
         # the plots pool the windows of every pair (one point per window, as in pooled_agreement.csv)

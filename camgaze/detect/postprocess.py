@@ -80,7 +80,7 @@ def merge_candidates(t_s, yaw_deg, pitch_deg, usable, blocked, starts, ends, *, 
     cn = np.concatenate([[0], np.cumsum(ok)])
     cb = np.concatenate([[0], np.cumsum(np.asarray(blocked, bool))])
     test = (merge_alpha is not None and merge_alpha > 0 and noise_sd_deg is not None
-            and all(np.isfinite(v) and v > 0 for v in noise_sd_deg))
+            and any(np.isfinite(v) and v > 0 for v in noise_sd_deg))
     while len(s) >= 2:
         mx, my = _means(cx, cy, cn, s, e)
         gap_ms = (t[s[1:]] - te[e[:-1]]) * 1000.0
@@ -107,10 +107,13 @@ def means_indistinguishable(dx_deg, dy_deg, n1, n2, noise_sd_deg, alpha: float) 
 
     The difference of two means of ``n1`` and ``n2`` samples with independent
     noise of SD ``sd`` per axis has SD ``sd * sqrt(1/n1 + 1/n2)``; the sum of
-    the squared standardised differences of both axes is chi-square with 2
-    degrees of freedom when both fixations have the same true position. The
-    means are indistinguishable when that statistic stays below the chi-square
-    quantile ``1 - alpha`` (``-2 ln(alpha)`` for 2 degrees of freedom).
+    the squared standardised differences of the axes is chi-square with as
+    many degrees of freedom as axes when both fixations have the same true
+    position. The means are indistinguishable when that statistic stays below
+    the chi-square quantile ``1 - alpha`` (``-2 ln(alpha)`` for 2 degrees of
+    freedom). An axis whose noise SD is zero or not finite carries no test and
+    is left out (1 degree of freedom then); with neither axis, or a mean of
+    no samples, the answer is False.
 
     Parameters
     ----------
@@ -127,10 +130,25 @@ def means_indistinguishable(dx_deg, dy_deg, n1, n2, noise_sd_deg, alpha: float) 
     -------
     ndarray of bool
     """
-    sx, sy = (float(v) for v in noise_sd_deg)
-    k = 1.0 / np.asarray(n1, float) + 1.0 / np.asarray(n2, float)
-    stat = (np.asarray(dx_deg, float) ** 2 / sx**2 + np.asarray(dy_deg, float) ** 2 / sy**2) / k
-    return stat <= -2.0 * np.log(alpha)
+    n1 = np.asarray(n1, float)
+    n2 = np.asarray(n2, float)
+    diffs = [np.asarray(d, float) for d, sd in zip((dx_deg, dy_deg), noise_sd_deg) if np.isfinite(sd) and sd > 0]
+    sds = [float(sd) for sd in noise_sd_deg if np.isfinite(sd) and sd > 0]
+    shape = np.broadcast(np.asarray(dx_deg, float), n1, n2).shape
+    if not sds:
+        return np.zeros(shape, bool)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        k = 1.0 / n1 + 1.0 / n2
+        stat = sum(d * d / (sd * sd) for d, sd in zip(diffs, sds)) / k
+    limit = -2.0 * np.log(alpha) if len(sds) == 2 else _chi2_1_quantile(1.0 - alpha)
+    return np.broadcast_to((n1 > 0) & (n2 > 0) & np.isfinite(stat) & (stat <= limit), shape).copy()
+
+
+def _chi2_1_quantile(q: float) -> float:
+    """Quantile of the chi-square distribution with 1 degree of freedom (the square of a normal quantile)."""
+    from scipy.stats import norm
+
+    return float(norm.ppf(0.5 + q / 2.0) ** 2)
 
 
 def pooled_within_sd_deg(yaw_deg, pitch_deg, usable, starts, ends) -> tuple[float, float]:
@@ -264,6 +282,9 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
     noise_sd = pooled_within_sd_deg(x, y, usable, s, e) if merge_alpha and merge_alpha > 0 else None
     if noise_sd is not None:
         candidates.info["merge_noise_sd_deg"] = list(noise_sd)
+        # which axes the test of two means used (an axis without noise carries none; with neither, no test ran)
+        candidates.info["merge_test_axes"] = [ax for ax, sd in zip(("yaw", "pitch"), noise_sd)
+                                              if np.isfinite(sd) and sd > 0]
     s, e = merge_candidates(t, x, y, usable, blocked, s, e, merge_gap_ms=merge_gap_ms,
                             merge_distance_deg=merge_deg, dt_s=dt, noise_sd_deg=noise_sd, merge_alpha=merge_alpha)
     dur_ms = (te[e] - t[s]) * 1000.0
