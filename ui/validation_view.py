@@ -524,7 +524,7 @@ def draw_agreement(fig, webcam, reference, feature: str):
         ax_b.set_title(f"Bland-Altman: bias {ba.bias:.3g}, limits {ba.loa_low:.3g} to {ba.loa_high:.3g}",
                        fontsize=9)
     else:
-        ax_b.set_title(f"Bland-Altman: limits need three or more pairs (n = {len(a)})", fontsize=9)
+        ax_b.set_title(f"Bland-Altman: limits need 3+ pairs (n = {len(a)})", fontsize=9)
     ax_b.set_xlabel("mean of webcam and reference", fontsize=8)
     ax_b.set_ylabel("webcam − reference", fontsize=8)
     for ax in (ax_s, ax_b):
