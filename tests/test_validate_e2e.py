@@ -10,6 +10,9 @@ agree with the reference on per-window fixation counts.
 from __future__ import annotations
 
 import json
+import subprocess
+import sys
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -74,16 +77,35 @@ def _trajectory(rec: pd.DataFrame) -> Trajectory:
                       params={"rate_hz": 240.0, "duration_s": float(t[-1])})
 
 
+def render_lund_clip(lund_dir, clip) -> None:
+    """Render the clip whose eyes follow the recordings (called in a fresh interpreter by the test)."""
+    from camgaze.render import render_clip
+
+    rec, _ = _lund_recording(Path(lund_dir))
+    render_clip(Path(clip), _trajectory(rec), size_px=(960, 540), fps=30.0, seed=1)
+
+
+def _render_in_fresh_interpreter(lund_dir, clip) -> None:
+    # Known defect (DEVELOPERS.md, "Known limits"): a clip rendered in a process that rendered a
+    # moving-head clip before can come out slightly different from run to run (up to 21 grey levels on
+    # most frames), while renders in a fresh interpreter are bit-identical. The test's input must not
+    # depend on which tests ran before it, so the clip is rendered in a fresh interpreter.
+    code = ("import sys; sys.path.insert(0, sys.argv[1]); from test_validate_e2e import render_lund_clip; "
+            "render_lund_clip(sys.argv[2], sys.argv[3])")
+    r = subprocess.run([sys.executable, "-c", code, str(Path(__file__).parent), str(lund_dir), str(clip)],
+                       capture_output=True, text=True, timeout=1200)
+    assert r.returncode == 0, r.stderr[-2000:]
+
+
 @pytest.mark.slow
 def test_rendered_clip_following_lund_recordings(lund_dir, tmp_path):
     from camgaze.pipeline import process_clip
-    from camgaze.render import render_clip
     from camgaze.validate import ValidateParams, validate_pair
     from camgaze.analysis import AnalysisParams
 
     rec, screen = _lund_recording(lund_dir)
     clip = tmp_path / "p01_s01_lund.mp4"
-    render_clip(clip, _trajectory(rec), size_px=(960, 540), fps=30.0, seed=1)
+    _render_in_fresh_interpreter(lund_dir, clip)
     proc = process_clip(clip, tmp_path / "out" / clip.stem)
     assert proc.summary["valid_frac"] > 0.8
 
@@ -105,16 +127,15 @@ def test_rendered_clip_following_lund_recordings(lund_dir, tmp_path):
           f"n={fc['n']}, r={fc['pearson_r']:.3f}, ICC={fc['icc']:.3f}, bias={fc['ba_bias']:.2f}; "
           f"kappa={r.events['kappa']:.3f}, F1={r.events['f1']:.3f}")
     assert fc["n"] >= 15
-    # Issue 4's floor is r >= 0.8; it is NOT met. Measured on this clip (19 windows): r 0.70 with I-DT
-    # (0.64 before fragments were merged by the test of their means, postprocess.means_indistinguishable),
-    # ICC 0.67, bias -0.5 fixations per window; I-VT 0.80, I2MC 0.63. What limits it (DEVELOPERS.md, "What
-    # limits the end-to-end validation figure"): the webcam's error inside fixations is heavy-tailed (excess
-    # kurtosis 4-6; SD 1.4 deg in pitch, 0.5 deg in yaw), not its size - the true trajectory at 30 Hz with
-    # white Gaussian noise of the same RMS-S2S gives r 0.92-0.94, without noise 0.87, and the 500 Hz
-    # reference itself agrees with the coder at r 0.88. The same real noise drawn anew gives r 0.75 +- 0.11
-    # on this clip: one clip's r moves by about 0.1 with the noise draw. This bound guards the value reached
-    # so that a change for the worse shows.
-    assert fc["pearson_r"] >= 0.6
+    # Issue 4's floor: per-window fixation-count r >= 0.8. Measured on this clip (19 windows): r 0.855 with
+    # I-DT, ICC 0.81, bias -0.74 fixations per window, offset -1.502 s, kappa 0.40, F1 0.80 (the same in a
+    # fresh run and after the other gaze tests). History: 0.64 -> 0.70 with the merge test of fragment
+    # means (postprocess.means_indistinguishable), -> 0.855 with the limbus fit's one-sided weights
+    # (limbus.py), which took the lid/iris junctions' pull out of the vertical iris position. Caveat
+    # (DEVELOPERS.md, "What limits the end-to-end validation figure"): a single clip of 19 windows - the
+    # same webcam error drawn anew moved r by about +-0.1 before that change - and noise-free 30 Hz gaze
+    # reaches only 0.87 here, so the margin is small.
+    assert fc["pearson_r"] >= 0.8  # issue 4 floor
     assert abs(fc["ba_bias"]) < 1.5
     assert 0.2 < r.events["kappa"] < 1.0 and 0.6 < r.events["f1"] <= 1.0
     assert (out / "report.html").exists()
