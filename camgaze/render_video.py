@@ -7,6 +7,14 @@ variable-frame-rate clip keeps its true frame times. A rotation is written as
 the stream's display matrix (the way phones tag portrait video); a decoder
 that honours it (PyAV reports it as ``VideoFrame.rotation``) shows the
 picture upright.
+
+Reproducibility: on processors with AVX-512, libx264's AVX-512 code reads
+memory it has not written (measured here: the same frames encoded in two
+processes whose freed memory held different bytes - ``MALLOC_PERTURB_`` -
+gave different files, at 960 x 540 but not at 1024 x 540; with x264 limited
+to AVX2 or without assembly they were identical). So that a rendered test
+clip depends only on its inputs, x264 is limited to its AVX2 code there
+(:func:`x264_options`); on other processors it keeps its own choice.
 """
 from __future__ import annotations
 
@@ -23,6 +31,32 @@ FORMATS = {".mp4": "mp4", ".mov": "mov", ".m4v": "mp4", ".mkv": "matroska", ".av
 CODECS = ("libx264", "mpeg4")
 #: presentation-timestamp clock of written clips (Matroska itself keeps milliseconds)
 TIME_BASE = Fraction(1, 90000)
+
+
+def _cpu_has_avx512() -> bool:
+    """Whether the processor reports AVX-512 (Linux ``/proc/cpuinfo``; False where it cannot be read)."""
+    try:
+        with open("/proc/cpuinfo", encoding="ascii", errors="replace") as fh:
+            for line in fh:
+                if line.startswith("flags"):
+                    return "avx512f" in line.split()
+    except OSError:
+        pass
+    return False
+
+
+def x264_options(crf: int | None) -> dict:
+    """libx264 options of the writer: ``veryfast`` preset, ``crf`` if given, AVX2 code on AVX-512 processors.
+
+    ``asm=AVX2`` is only set where the processor reports AVX-512 (so it has
+    AVX2): naming instruction sets the processor lacks would crash x264.
+    """
+    opts = {"preset": "veryfast"}
+    if crf is not None:
+        opts["crf"] = str(int(crf))
+    if _cpu_has_avx512():
+        opts["x264-params"] = "asm=AVX2"
+    return opts
 
 
 def rotate_for_storage(img: np.ndarray, rotation_deg: int) -> np.ndarray:
@@ -74,12 +108,9 @@ class ClipWriter:
         s = self.container.add_stream(codec, rate=rate)
         s.width, s.height, s.pix_fmt = int(width_px), int(height_px), "yuv420p"
         if codec == "libx264":
-            opts = {"preset": "veryfast"}
             if bitrate_kbps:
                 s.bit_rate = int(bitrate_kbps * 1000)
-            else:
-                opts["crf"] = str(int(crf))
-            s.options = opts
+            s.options = x264_options(None if bitrate_kbps else crf)
         else:
             s.bit_rate = int((bitrate_kbps or 1500) * 1000)
         if fmt != "avi":

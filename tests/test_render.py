@@ -526,3 +526,42 @@ def test_head_turn_and_extra_faces_are_seen(tmp_path):
 
     # head yaw > 0 (face turned to the subject's right) -> the nose swings towards the picture's left
     assert nose_offset(main) < nose_offset(m0[0]) - 6
+
+
+def test_encoded_clip_depends_only_on_its_frames(tmp_path):
+    """The same frames give the same file in processes whose freed memory holds different bytes.
+
+    glibc's MALLOC_PERTURB_ fills freed memory with the given byte, so an
+    encoder reading memory it never wrote gives different files. On this
+    project's AVX-512 machine libx264's AVX-512 code did (960 x 540); the
+    writer limits x264 to AVX2 there (camgaze.render_video.x264_options).
+    """
+    import hashlib
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    code = r"""
+import sys
+import numpy as np
+from camgaze.render_video import ClipWriter
+rng = np.random.default_rng(4)
+y, x = np.mgrid[0:540, 0:960]
+base = np.stack([(x * 0.25) % 256, (y * 0.4) % 256, ((x + y) * 0.1) % 256], axis=-1)
+w = ClipWriter(sys.argv[1], sys.argv[1] + '.part.mp4', width_px=960, height_px=540, fps=30.0)
+for i in range(24):
+    frame = np.clip(np.roll(base, 7 * i, axis=1) + rng.normal(0, 2.0, base.shape), 0, 255).astype(np.uint8)
+    w.write(frame, i / 30.0)
+w.close()
+"""
+    digests = []
+    for k, fill in enumerate(("165", "77")):
+        out = tmp_path / f"clip_{k}.mp4"
+        env = dict(os.environ, MALLOC_PERTURB_=fill)
+        r = subprocess.run([sys.executable, "-c", code, str(out)], env=env, capture_output=True, text=True,
+                           timeout=300)
+        assert r.returncode == 0, r.stderr[-2000:]
+        written = Path(str(out) + ".part.mp4")  # ClipWriter writes here; render_clip renames it when complete
+        digests.append(hashlib.sha256(written.read_bytes()).hexdigest())
+    assert digests[0] == digests[1]

@@ -86,10 +86,8 @@ def render_lund_clip(lund_dir, clip) -> None:
 
 
 def _render_in_fresh_interpreter(lund_dir, clip) -> None:
-    # Known defect (DEVELOPERS.md, "Known limits"): a clip rendered in a process that rendered a
-    # moving-head clip before can come out slightly different from run to run (up to 21 grey levels on
-    # most frames), while renders in a fresh interpreter are bit-identical. The test's input must not
-    # depend on which tests ran before it, so the clip is rendered in a fresh interpreter.
+    # Rendered in a fresh interpreter, so that the test's input cannot depend on which tests ran before
+    # it (it once did: libx264's AVX-512 code read unwritten memory - camgaze.render_video.x264_options).
     code = ("import sys; sys.path.insert(0, sys.argv[1]); from test_validate_e2e import render_lund_clip; "
             "render_lund_clip(sys.argv[2], sys.argv[3])")
     r = subprocess.run([sys.executable, "-c", code, str(Path(__file__).parent), str(lund_dir), str(clip)],
