@@ -149,6 +149,14 @@ def _iris_texture(rgb, seed: int) -> np.ndarray:
     return np.dstack([col, alpha]).astype(np.float32)
 
 
+def _box_anchors(x0: float, y0: float, x1: float, y1: float, per_side: int = 12) -> np.ndarray:
+    """Fixed points along the edges of the warped box (so the warp leaves the picture outside it as it is)."""
+    bx = np.linspace(x0, x1, per_side)
+    by = np.linspace(y0, y1, per_side)
+    return np.unique(np.vstack([np.c_[bx, np.full_like(bx, y0)], np.c_[bx, np.full_like(bx, y1)],
+                                np.c_[np.full_like(by, x0), by], np.c_[np.full_like(by, x1), by]]), axis=0)
+
+
 def _piecewise_affine_grid(dst: np.ndarray, src: np.ndarray, *, x0: int, y0: int, nx: int, ny: int,
                            step_px: int) -> np.ndarray:
     """Source positions of a piecewise-affine warp, sampled on a grid of destination positions.
@@ -398,10 +406,7 @@ class FaceRig:
         out = self.base.copy()
         if nx < 2 or ny < 2:
             return out
-        bx = np.linspace(x0, x1, 12)
-        by = np.linspace(y0, y1, 12)
-        anchors = np.unique(np.vstack([np.c_[bx, np.full_like(bx, y0)], np.c_[bx, np.full_like(bx, y1)],
-                                       np.c_[np.full_like(by, x0), by], np.c_[np.full_like(by, x1), by]]), axis=0)
+        anchors = _box_anchors(x0, y0, x1, y1)
         src = np.vstack([src_uv, anchors])
         dst = np.vstack([dst_uv, anchors])
         depth = np.r_[depth_mm, np.full(len(anchors), np.inf)]  # the still background lies behind everything
@@ -436,10 +441,7 @@ class FaceRig:
         nx, ny = (x1 - x0) // g, (y1 - y0) // g
         if nx < 2 or ny < 2:
             return out
-        bx = np.linspace(x0, x1, 12)
-        by = np.linspace(y0, y1, 12)
-        anchors = np.unique(np.vstack([np.c_[bx, np.full_like(bx, y0)], np.c_[bx, np.full_like(bx, y1)],
-                                       np.c_[np.full_like(by, x0), by], np.c_[np.full_like(by, x1), by]]), axis=0)
+        anchors = _box_anchors(x0, y0, x1, y1)
         near = ((dst_uv[:, 0] > x0) & (dst_uv[:, 0] < x1) & (dst_uv[:, 1] > y0) & (dst_uv[:, 1] < y1)
                 & (src_uv[:, 0] > x0) & (src_uv[:, 0] < x1) & (src_uv[:, 1] > y0) & (src_uv[:, 1] < y1))
         m = _piecewise_affine_grid(np.vstack([dst_uv[near], anchors]), np.vstack([src_uv[near], anchors]),

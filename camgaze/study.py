@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 from dataclasses import asdict, dataclass, field
 from pathlib import Path, PurePosixPath
 from typing import Any, Iterable
@@ -471,7 +472,7 @@ def missing_files(study: Study) -> list[str]:
     return out
 
 
-_LABEL_SAFE = __import__("re").compile(r"[^A-Za-z0-9_.-]+")
+_LABEL_SAFE = re.compile(r"[^A-Za-z0-9_.-]+")
 
 
 def _safe_label(v: str) -> str:
@@ -488,8 +489,6 @@ def _clip_labels(stem: str) -> dict:
     are one participant, two sessions). Labels are cleaned to letters,
     digits and ``_ . -`` (an empty result is left empty for the caller).
     """
-    import re
-
     from .pairing import bids_labels
 
     try:
