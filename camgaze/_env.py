@@ -73,3 +73,40 @@ def native_stderr_silenced():
         os.dup2(saved, 2)
         os.close(saved)
         os.close(devnull)
+
+
+def lower_process_priority(pid: int, by: int) -> bool:
+    """Lower another process's scheduling priority by ``by`` nice steps, relative to this thread's own.
+
+    Used for helper processes whose work may lag behind and catch up (the
+    per-frame geometry): under load the face mesh, which sets the pipeline's
+    pace, then gets the core first. Returns False where the platform has no
+    nice values (Windows) or the change is refused; nothing else changes.
+    """
+    if not hasattr(os, "setpriority") or by <= 0:
+        return False
+    try:
+        os.setpriority(os.PRIO_PROCESS, int(pid), min(19, os.getpriority(os.PRIO_PROCESS, 0) + int(by)))
+        return True
+    except OSError:
+        return False
+
+
+def lower_this_thread_priority(by: int) -> bool:
+    """Lower the calling thread's scheduling priority by ``by`` nice steps (Linux only).
+
+    Linux keeps a nice value per thread, so a background thread (the frame
+    decoder) can yield to the face mesh's threads without slowing them;
+    elsewhere the value belongs to the whole process and nothing is done
+    (returns False).
+    """
+    if not _sys.platform.startswith("linux") or by <= 0:
+        return False
+    import threading
+
+    try:
+        tid = threading.get_native_id()
+        os.setpriority(os.PRIO_PROCESS, tid, min(19, os.getpriority(os.PRIO_PROCESS, tid) + int(by)))
+        return True
+    except (OSError, AttributeError):
+        return False

@@ -39,6 +39,7 @@ import pandas as pd
 
 from . import __version__
 from .atomic import sha256_file, sha256_json, write_csv, write_json, write_parquet
+from ._env import lower_process_priority
 from .errors import CamgazeInputError, Cancelled, NoFaceError
 from .gaze import GazeParams, estimate_gaze
 from .frame_geometry import RECORD_WIDTH, frame_item, start_geometry
@@ -47,6 +48,11 @@ from .schema import SAMPLE_COLUMNS
 from .video import DecodeReport, FramePrefetcher, probe
 
 ProgressFn = Callable[[float, str], None]
+
+#: nice steps by which the decoder thread and the geometry process yield to the face mesh (see
+#: :func:`extract_samples`)
+DECODE_NICE = 5
+GEOMETRY_NICE = 10
 
 
 def _analysis_params_default():
@@ -161,15 +167,21 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     t0 = time.perf_counter()
     refine = bool(params.gaze.refine_iris)
     tracker = FaceTracker(max_faces=params.max_faces, face=params.face)
-    prefetch = FramePrefetcher(clip, report=report, cancel=cancel)
+    prefetch = FramePrefetcher(clip, report=report, cancel=cancel, lower_priority=DECODE_NICE)
     # Three stages overlap: decoding (its own thread), the face mesh (here), and the per-frame
     # geometry - head pose, iris refinement - in a child process for clips of more than a few
     # seconds (camgaze.frame_geometry). The mesh and OpenCV release the GIL while they compute;
-    # a short switch interval hands it over promptly.
+    # a short switch interval hands it over promptly. The mesh sets the pace; the other two can run
+    # ahead (decoding) or lag and catch up (geometry) through their queues, so they run at lower
+    # priority (DECODE_NICE, GEOMETRY_NICE): on two cores the three together need nearly both, and
+    # at equal priority the scheduler often parks a mesh thread behind one of them (measured with
+    # bench/bench_pipeline.py: DEVELOPERS.md, performance).
     old_switch = sys.getswitchinterval()
     sys.setswitchinterval(0.0005)
     geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=rec.append, frames_hint=n_hint,
                               mode=geometry_mode)
+    if geometry.kind == "process":
+        lower_process_priority(geometry.pid, GEOMETRY_NICE)
     n_in = 0
     state = None
     try:

@@ -289,12 +289,18 @@ class FramePrefetcher:
 
     Iterating yields :class:`Frame` objects; the bounded queue keeps memory
     flat. Exceptions in the decoder thread re-raise in the consumer.
+
+    ``lower_priority`` lowers the decoder thread's scheduling priority by that
+    many nice steps (Linux; elsewhere ignored): decoding runs well ahead of
+    the face mesh and can wait, so under load the mesh gets the core first.
     """
 
     _DONE = object()
 
-    def __init__(self, path, *, report: DecodeReport | None = None, cancel=None, depth: int = 6):
+    def __init__(self, path, *, report: DecodeReport | None = None, cancel=None, depth: int = 6,
+                 lower_priority: int = 0):
         self._path = path
+        self._lower_priority = int(lower_priority)
         self._report = report if report is not None else DecodeReport()
         self._cancel = cancel
         self._q: queue.Queue = queue.Queue(maxsize=depth)
@@ -316,6 +322,10 @@ class FramePrefetcher:
         return False
 
     def _run(self):
+        if self._lower_priority > 0:
+            from ._env import lower_this_thread_priority
+
+            lower_this_thread_priority(self._lower_priority)
         try:
             for fr in iter_frames(self._path, report=self._report, cancel=self._cancel):
                 if not self._put(fr):

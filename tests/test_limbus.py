@@ -99,3 +99,76 @@ def test_limbus_centre_with_the_lower_lid_over_the_iris():
     assert abs(out[0, 0] - centre[0]) < 0.3, out[0]
     # measured 0.6 px too high; the fit with symmetric weights (before the one-sided ones) ended 2.2 px too high
     assert abs(out[0, 1] - centre[1]) < 0.8, out[0]
+
+
+def test_many_frames_at_once_give_what_each_frame_gives_alone():
+    """limbus_centres_many fits all eyes of several frames together; each result is that of its frame alone."""
+    from camgaze.limbus import limbus_centres_many
+
+    outline = np.array(RIGHT_EYE_OUTLINE)
+    items = []
+    for k, (r, dx, dy, lower) in enumerate([(10.0, 0.3, -0.2, 6.0), (7.5, -1.1, 0.8, 5.0), (12.5, 0.0, 0.0, 9.0),
+                                            (2.0, 0.0, 0.0, 6.0), (9.0, 1.5, 1.0, 4.0)]):
+        centre = np.array([45.3 + 0.1 * k, 31.6 - 0.2 * k])
+        img = _drawn_eye(centre, r, upper_px=8.0, lower_px=lower)
+        pts = np.zeros((478, 3))
+        half = 2.4 * r
+        xs_up = np.linspace(centre[0] - half, centre[0] + half, 9)[1:-1]
+        pts[outline[0], :2] = (centre[0] - half, centre[1])
+        pts[outline[1:8], 0], pts[outline[1:8], 1] = xs_up, centre[1] - 8.0
+        pts[outline[8], :2] = (centre[0] + half, centre[1])
+        pts[outline[9:], 0], pts[outline[9:], 1] = xs_up[::-1], centre[1] + lower + 3.0
+        # radii differ, so the rays carry different numbers of samples (the batch pads them); the
+        # 2 px iris is too small to fit and keeps the mesh point; the left eye is missing throughout
+        items.append((img, pts, np.array([centre + [dx, dy], [np.nan, np.nan]]), np.array([2 * r, np.nan])))
+    together = limbus_centres_many(items)
+    alone = [limbus_centres(*it) for it in items]
+    assert len(together) == len(items)
+    for (c_t, f_t), (c_a, f_a) in zip(together, alone):
+        np.testing.assert_array_equal(f_t, f_a)
+        np.testing.assert_allclose(c_t, c_a, atol=1e-9, equal_nan=True)
+    fitted = np.array([f[0] for _, f in together])
+    assert fitted.tolist() == [True, True, True, False, True]
+    assert np.allclose(together[3][0][0], items[3][2][0])  # too small: the mesh point is kept
+    assert limbus_centres_many([]) == []
+
+
+def test_circle_fit_matches_a_reference_robust_least_squares():
+    """The symmetric fit is a Huber M-estimate: it must land where scipy.optimize.least_squares does.
+
+    Outside reference: scipy's ``least_squares(loss="huber", f_scale=1)`` on the geometric distances (a
+    general-purpose solver; its Huber loss has the same minimiser as the Huber weights used here).
+    """
+    from scipy.optimize import least_squares
+
+    rng = np.random.default_rng(11)
+    centre, r = np.array([20.0, 15.0]), 8.0
+    a = rng.uniform(0, 2 * np.pi, 40)
+    pts = centre + (r + rng.normal(0, 0.3, 40))[:, None] * np.c_[np.cos(a), np.sin(a)]
+    pts[:4] += rng.normal(0, 3.0, (4, 2))  # a few gross outliers
+    c, rr, _ = fit_circle(pts, centre + [1.0, -0.8], r, r_tol=0.5, iterations=50)
+
+    def dist(p):
+        return np.hypot(pts[:, 0] - p[0], pts[:, 1] - p[1]) - p[2]
+
+    ref = least_squares(dist, x0=[21.0, 14.2, r], loss="huber", f_scale=1.0, xtol=1e-12, ftol=1e-12).x
+    assert np.allclose(c, ref[:2], atol=2e-3), (c, ref)
+    assert rr == pytest.approx(ref[2], abs=2e-3)
+
+
+def test_degenerate_point_sets_do_not_raise():
+    from camgaze.limbus import fit_circles
+
+    pts = np.zeros((3, 10, 2))
+    pts[1] = np.c_[np.cos(np.linspace(0, 6, 10)), np.sin(np.linspace(0, 6, 10))] * 5  # a proper circle
+    pts[2, :, 0] = np.nan  # no usable coordinates
+    valid = np.ones((3, 10), bool)
+    valid[0] = False  # no points at all
+    with np.errstate(all="raise"):  # nothing may warn either
+        try:
+            c, rr, rms = fit_circles(pts, valid, np.array([[0.5, 0.5], [0.5, 0.5], [0.0, 0.0]]),
+                                     np.array([5.0, 5.0, 5.0]), r_tol=0.3)
+        except FloatingPointError as exc:  # pragma: no cover - the assertion below explains
+            raise AssertionError(f"the fit warned on a degenerate set: {exc}") from None
+    assert np.allclose(c[1], [0.0, 0.0], atol=1e-3) and rr[1] == pytest.approx(5.0, abs=1e-3)
+    assert np.isnan(rms[0])  # no points: no residual

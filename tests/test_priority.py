@@ -1,0 +1,104 @@
+"""The pipeline's helpers yield to the face mesh: lower scheduling priority for the decoder and the geometry.
+
+Reference: the nice values the operating system itself reports (``os.getpriority``), Linux semantics
+(nice is per thread there; POSIX ``setpriority`` elsewhere applies to the process).
+"""
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import threading
+
+import pytest
+
+from camgaze._env import lower_process_priority, lower_this_thread_priority
+
+linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="per-thread nice values are Linux's")
+has_nice = pytest.mark.skipif(not hasattr(os, "setpriority"), reason="this platform has no nice values")
+
+
+@has_nice
+def test_a_child_process_runs_lower_by_the_given_steps():
+    own = os.getpriority(os.PRIO_PROCESS, 0)
+    child = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(30)"])
+    try:
+        assert lower_process_priority(child.pid, 10)
+        assert os.getpriority(os.PRIO_PROCESS, child.pid) == min(19, own + 10)
+        assert os.getpriority(os.PRIO_PROCESS, 0) == own  # this process is untouched
+        assert not lower_process_priority(child.pid, 0)  # nothing to do
+    finally:
+        child.kill()
+        child.wait()
+
+
+@has_nice
+def test_a_process_that_is_gone_is_reported_not_raised():
+    child = subprocess.Popen([sys.executable, "-c", "pass"])
+    child.wait()
+    assert lower_process_priority(child.pid, 10) is False
+
+
+@linux_only
+def test_only_the_calling_thread_is_lowered():
+    own = os.getpriority(os.PRIO_PROCESS, threading.get_native_id())
+    seen = {}
+
+    def work():
+        seen["ok"] = lower_this_thread_priority(5)
+        seen["nice"] = os.getpriority(os.PRIO_PROCESS, threading.get_native_id())
+
+    t = threading.Thread(target=work)
+    t.start()
+    t.join()
+    assert seen["ok"] and seen["nice"] == min(19, own + 5)
+    assert os.getpriority(os.PRIO_PROCESS, threading.get_native_id()) == own
+
+
+@pytest.fixture(scope="module")
+def short_clip(tmp_path_factory):
+    from camgaze.render import render_clip, synth_trajectory
+
+    clip = tmp_path_factory.mktemp("prio") / "p07_s01_reading.mp4"
+    render_clip(clip, synth_trajectory(duration_s=1.0, seed=2), size_px=(320, 180), fps=30.0, seed=2)
+    return clip
+
+
+@linux_only
+def test_the_decoder_thread_runs_at_lower_priority(short_clip):
+    from camgaze.video import FramePrefetcher
+
+    own = os.getpriority(os.PRIO_PROCESS, threading.get_native_id())
+    pf = FramePrefetcher(short_clip, lower_priority=5, depth=2)  # a short queue: the thread is still decoding
+    it = iter(pf)
+    first = next(it)
+    nice = os.getpriority(os.PRIO_PROCESS, pf._thread.native_id)
+    frames = 1 + sum(1 for _ in it)
+    assert first.index == 0 and frames == 30
+    assert nice == min(19, own + 5)
+    assert os.getpriority(os.PRIO_PROCESS, threading.get_native_id()) == own  # the consumer is not lowered
+
+
+@has_nice
+def test_the_geometry_process_is_lowered_and_the_samples_do_not_change(short_clip, monkeypatch):
+    import numpy as np
+
+    from camgaze import pipeline
+
+    seen = []
+    real = pipeline.lower_process_priority
+
+    def spy(pid, by):
+        ok = real(pid, by)
+        seen.append((by, ok, os.getpriority(os.PRIO_PROCESS, pid)))
+        return ok
+
+    monkeypatch.setattr(pipeline, "lower_process_priority", spy)
+    own = os.getpriority(os.PRIO_PROCESS, 0)
+    in_child, meta = pipeline.extract_samples(short_clip, geometry_mode="process")
+    assert meta["geometry_ran_in"] == "process"
+    assert seen == [(pipeline.GEOMETRY_NICE, True, min(19, own + pipeline.GEOMETRY_NICE))]
+    in_thread, _ = pipeline.extract_samples(short_clip, geometry_mode="thread")
+    assert len(seen) == 1  # a thread of this process is not lowered
+    num = [c for c in in_child.columns if in_child[c].dtype.kind == "f"]
+    np.testing.assert_array_equal(in_child[num].to_numpy(), in_thread[num].to_numpy())
