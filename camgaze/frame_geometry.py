@@ -1,14 +1,16 @@
 """Per-frame geometry (head pose, iris refinement) beside the face mesh.
 
 For every frame the face mesh has landmarked, :class:`FrameGeometry` solves
-the head pose and refines both iris centres from the picture, giving one row
-of the per-frame record (layout: :data:`RECORD_COLUMNS`). This work is
+the head pose, refits its translation to skin points below the eyes followed
+on the picture (:mod:`camgaze.eye_anchors`) and refines both iris centres
+from the picture, giving one row of the per-frame record (layout:
+:data:`RECORD_COLUMNS`; the ``t_mm`` column holds the refitted translation). This work is
 Python and NumPy and holds the interpreter lock for about 2 ms a frame, as
 long as the face mesh's own Python share; run in a thread of the same
 process it keeps the mesh waiting for the lock. So for clips of more than a
 few seconds it runs in a separate process (:class:`GeometryProcess`) that
 receives only what it needs: the landmarks and a crop of the picture around
-both eyes (about 45 kB at 720p). Short clips, a bundled (frozen) application and
+both eyes and the skin below them (about 55 kB at 720p). Short clips, a bundled (frozen) application and
 processes that cannot start a child use a thread (:class:`GeometryThread`). Both give identical rows (a test compares them).
 """
 from __future__ import annotations
@@ -23,6 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .eye_anchors import ANCHOR_POINTS, EyeAnchorTracker, anchor_reach_px, translation_given_rotation
 from .gaze import frame_measurements
 from .headpose import HeadPoseSolver
 from .limbus import ROI_RADII, limbus_centres
@@ -39,11 +42,12 @@ PROCESS_MIN_FRAMES = 450
 
 
 def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int]) -> tuple[int, int, int, int] | None:
-    """``(x0, y0, x1, y1)``: the part of the picture the iris refinement reads, or None.
+    """``(x0, y0, x1, y1)``: the part of the picture the iris refinement and the eye anchors read, or None.
 
     The union of the limbus fit's two eye regions (:data:`camgaze.limbus.ROI_RADII`
-    iris radii around each mesh iris point) with a 2 px margin, clipped to
-    the picture.
+    iris radii around each mesh iris point) with a 2 px margin and of the
+    eye anchors' reach (:func:`camgaze.eye_anchors.anchor_reach_px` around
+    each anchor's mesh point), clipped to the picture.
     """
     w, h = size_px
     m = frame_measurements(points_px)
@@ -51,10 +55,17 @@ def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int]) -> tuple[int, 
     if not (np.all(np.isfinite(c)) and np.all(np.isfinite(r))):
         return None
     reach = ROI_RADII * r[:, None] + 2.0
-    x0 = int(max(0, np.floor((c[:, 0] - reach[:, 0]).min())))
-    y0 = int(max(0, np.floor((c[:, 1] - reach[:, 0]).min())))
-    x1 = int(min(w, np.ceil((c[:, 0] + reach[:, 0]).max()) + 1))
-    y1 = int(min(h, np.ceil((c[:, 1] + reach[:, 0]).max()) + 1))
+    a = np.asarray(points_px, float)[list(ANCHOR_POINTS), :2]
+    if np.all(np.isfinite(a)):
+        a_reach = anchor_reach_px(float(np.mean(r)))
+        lo = np.minimum((c - reach).min(axis=0), (a - a_reach).min(axis=0))
+        hi = np.maximum((c + reach).max(axis=0), (a + a_reach).max(axis=0))
+    else:
+        lo, hi = (c - reach).min(axis=0), (c + reach).max(axis=0)
+    x0 = int(max(0, np.floor(lo[0])))
+    y0 = int(max(0, np.floor(lo[1])))
+    x1 = int(min(w, np.ceil(hi[0]) + 1))
+    y1 = int(min(h, np.ceil(hi[1]) + 1))
     if x1 <= x0 or y1 <= y0:
         return None
     return x0, y0, x1, y1
@@ -69,14 +80,30 @@ class FrameGeometry:
         Assumed horizontal field of view of the camera.
     refine_iris : bool
         Refine the iris centres by the limbus fit.
+    eye_anchors : bool
+        With the eye picture (``refine_iris``): refit the head translation,
+        with the PnP rotation held, to skin points below the eyes followed on
+        the picture (:mod:`camgaze.eye_anchors`; default True). False keeps
+        the PnP translation, which the face mesh's landmark errors under head
+        rotation move by about a millimetre at 5 deg.
     """
 
-    def __init__(self, *, fov_deg: float, refine_iris: bool):
+    def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True):
         self.fov_deg = float(fov_deg)
         self.refine_iris = bool(refine_iris)
+        self.eye_anchors = bool(eye_anchors)
         self.solver: HeadPoseSolver | None = None
         self.size: tuple[int, int] | None = None
         self.size_changes = 0
+        self.anchors = EyeAnchorTracker()
+        self._anchors_model = self.anchors_model_mm()
+        self.anchored_frames = 0
+
+    @staticmethod
+    def anchors_model_mm() -> np.ndarray:
+        from .headpose import face_model
+
+        return face_model().points_mm[list(ANCHOR_POINTS)].astype(np.float64)
 
     def row(self, pts_s: float, size_px: tuple[int, int], points_px: np.ndarray | None, face_count: int,
             eyes: np.ndarray | None = None, eyes_origin_px=(0, 0)) -> np.ndarray:
@@ -91,15 +118,18 @@ class FrameGeometry:
                 self.size_changes += 1
             self.size = (w, h)
             self.solver = HeadPoseSolver(w, h, fov_deg=self.fov_deg)
+            self.anchors.reset()
         row = np.full(RECORD_WIDTH, np.nan)
         row[0] = pts_s
         row[1] = 0.0
         row[2] = 0.0
         if points_px is None:
+            self.anchors.reset()
             return row
         row[2] = face_count
         pose = self.solver.solve(points_px)
         if pose is None:
+            self.anchors.reset()
             return row
         R, t = pose
         m = frame_measurements(points_px)
@@ -109,6 +139,13 @@ class FrameGeometry:
             local = points_px - off
             iris, _ = limbus_centres(eyes, local, iris - off[:2], m["iris_diam_px"])
             iris = iris + off[:2]
+            r_px = 0.25 * float(np.sum(m["iris_diam_px"]))
+            if self.eye_anchors and np.isfinite(r_px) and r_px > 0:  # as for the eye crop (eye_crop_box)
+                a = self.anchors.update(eyes, local, r_px) + off[:2]
+                t_a = translation_given_rotation(R, self._anchors_model, a, self.solver.K)
+                if t_a is not None:
+                    t = t_a
+                    self.anchored_frames += 1
         row[1] = 1.0
         row[3:12] = R.ravel()
         row[12:15] = t
@@ -121,7 +158,7 @@ class FrameGeometry:
 
     def state(self) -> dict:
         return {"K": None if self.solver is None else self.solver.K, "size": self.size,
-                "size_changes": self.size_changes}
+                "size_changes": self.size_changes, "anchored_frames": self.anchored_frames}
 
 
 def peak_rss_mb() -> float | None:
@@ -165,8 +202,8 @@ class GeometryThread:
 
     kind = "thread"
 
-    def __init__(self, *, fov_deg: float, refine_iris: bool, sink):
-        self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris)
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True):
+        self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors)
         self._sink = sink
         self._q: queue.Queue = queue.Queue(maxsize=8)
         self._failure: list[BaseException] = []
@@ -206,15 +243,16 @@ class GeometryThread:
 def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
-    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE``. Anything else
+    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE [ANCHORS]``. Anything else
     that would print to stdout goes to stderr, so it cannot corrupt the replies.
     """
     args = list(sys.argv[1:] if argv is None else argv)
     fov_deg, refine_iris = float(args[0]), args[1] == "1"
+    eye_anchors = len(args) < 3 or args[2] == "1"
     out = os.fdopen(os.dup(1), "wb")
     os.dup2(2, 1)  # stray prints from libraries go to stderr
     inp = sys.stdin.buffer
-    geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris)
+    geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors)
 
     def reply(obj) -> bool:
         try:
@@ -274,11 +312,11 @@ class GeometryProcess:
 
     kind = "process"
 
-    def __init__(self, *, fov_deg: float, refine_iris: bool, sink):
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True):
         self._sink = sink
         self._proc = subprocess.Popen(
             [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parent), repr(float(fov_deg)),
-             "1" if refine_iris else "0"],
+             "1" if refine_iris else "0", "1" if eye_anchors else "0"],
             stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._out: queue.Queue = queue.Queue(maxsize=64)
         self._pending: list = []
@@ -371,7 +409,8 @@ class GeometryProcess:
         self._close_pipes()
 
 
-def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto"):
+def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
+                   eye_anchors: bool = True):
     """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
     application, or when no child can be started); ``mode`` forces ``"thread"`` or ``"process"``."""
     if mode not in ("auto", "thread", "process"):
@@ -379,8 +418,8 @@ def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int,
     frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
-            return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink)
+            return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors)
         except OSError:
             if mode == "process":
                 raise
-    return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink)
+    return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors)

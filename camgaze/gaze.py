@@ -13,9 +13,11 @@ Method (per clip, vectorised over frames once landmarking is done)
    frame: the model's centre, moved sideways and vertically by how far this
    person's eye-corner midpoint (median over the clip, so the corners'
    coupling to iris motion averages out) lies from the model's. It moves
-   rigidly with the head pose from PnP - except that the face mesh moves its
-   rigid points with the eyes, so the part of the centres' vertical motion
-   that follows the iris is measured per clip and removed
+   rigidly with the head pose: the rotation from PnP, the translation
+   refitted per frame to skin points below the eyes that are followed on the
+   picture (:mod:`camgaze.eye_anchors`; the face mesh's own landmarks move
+   with head rotation and with the eyes). Whatever part of the centres'
+   vertical motion still follows the iris is measured per clip and removed
    (:func:`decouple_reference`).
 3. **Iris centre in 3-D.** The camera ray through the iris centre (the
    face mesh's iris point, refined on the image by a circle fitted

@@ -15,6 +15,13 @@ Camera intrinsics come from an assumed horizontal field of view (default 60
 deg, a common laptop webcam; the user can override it); the principal point is
 the picture centre and lens distortion is ignored.
 
+The PnP translation is not what places the eyeballs: on a turned head the
+face mesh puts its landmarks a fraction of a pixel per degree away from the
+face's points, which moves the translation by about a millimetre at 5 deg.
+:mod:`camgaze.frame_geometry` keeps this rotation and refits the
+translation to skin points below the eyes followed on the picture
+(:mod:`camgaze.eye_anchors`).
+
 The model has an average adult size. Its scale only multiplies the
 translation (PnP is scale-equivariant), so :mod:`camgaze.gaze` fixes the
 metric scale per clip afterwards from the iris diameter.

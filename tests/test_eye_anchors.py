@@ -1,0 +1,83 @@
+"""Eye anchors: template matching follows a known picture shift; the translation refit with a fixed rotation."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from camgaze.eye_anchors import (ANCHOR_POINTS, PATIENCE_FRAMES, EyeAnchorTracker, anchor_reach_px,
+                                 translation_given_rotation)
+from camgaze.geometry import camera_matrix, head_rotation
+
+
+def _texture(shape=(240, 320), seed=0):
+    """A smooth random texture (skin-like: blobs a few pixels wide), RGB uint8."""
+    from scipy.ndimage import gaussian_filter
+
+    rng = np.random.default_rng(seed)
+    g = gaussian_filter(rng.normal(size=shape), 2.0)
+    g = (g - g.min()) / (g.max() - g.min())
+    return np.repeat((40 + 180 * g)[..., None], 3, axis=2)
+
+
+def _shifted(img, dx, dy):
+    """``img`` moved by (dx, dy) px (sub-pixel, bilinear), as uint8."""
+    from scipy.ndimage import shift
+
+    return np.stack([shift(img[..., c], (dy, dx), order=3, mode="nearest") for c in range(3)], axis=2).round().astype(np.uint8)
+
+
+def _points(anchor_xy):
+    pts = np.zeros((478, 3))
+    pts[list(ANCHOR_POINTS), :2] = anchor_xy
+    return pts
+
+
+ANCHORS_XY = np.array([[120.0, 110], [135, 112], [150, 110], [190, 110], [205, 112], [220, 110]])
+
+
+def test_anchors_follow_the_picture_not_the_mesh():
+    base = _texture()
+    tr = EyeAnchorTracker()
+    first = tr.update(base.round().astype(np.uint8), _points(ANCHORS_XY), 10.0)
+    np.testing.assert_allclose(first, ANCHORS_XY)
+    # the skin moves by (1.3, -0.6) px while the mesh's points move by (3, 2) px: the anchors follow the skin
+    moved = _shifted(base, 1.3, -0.6)
+    got = tr.update(moved, _points(ANCHORS_XY + [3.0, 2.0]), 10.0)
+    np.testing.assert_allclose(got, ANCHORS_XY + [1.3, -0.6], atol=0.25)  # the parabola vertex's own bias
+    assert tr.matched == len(ANCHOR_POINTS) and tr.missed == 0
+
+
+def test_a_failed_match_keeps_the_last_offset_and_a_new_template_is_cut_without_a_jump():
+    base = _texture(seed=1)
+    tr = EyeAnchorTracker()
+    tr.update(base.round().astype(np.uint8), _points(ANCHORS_XY), 10.0)
+    moved = _shifted(base, 0.8, 0.4)
+    held = tr.update(moved, _points(ANCHORS_XY), 10.0)
+    flat = np.full_like(moved, 128)  # nothing to match (a hand in front of the eyes)
+    for _ in range(PATIENCE_FRAMES):
+        np.testing.assert_allclose(tr.update(flat, _points(ANCHORS_XY), 10.0), held)
+    assert tr.missed == PATIENCE_FRAMES * len(ANCHOR_POINTS)
+    # after PATIENCE_FRAMES misses the templates are cut again where the anchors were: no jump
+    np.testing.assert_allclose(tr.update(moved, _points(ANCHORS_XY), 10.0), held)
+    np.testing.assert_allclose(tr.update(_shifted(base, 1.8, 0.4), _points(ANCHORS_XY), 10.0), held + [1.0, 0.0],
+                               atol=0.25)
+
+
+def test_reach_covers_what_the_matching_reads():
+    from camgaze.eye_anchors import OFFSET_RADII, PATCH_RADII, RESCALE_FRACTION, SEARCH_RADII
+
+    r = 11.0
+    worst = OFFSET_RADII * r + SEARCH_RADII * r + PATCH_RADII * r * (1 + RESCALE_FRACTION) + 1.5  # rounding
+    assert anchor_reach_px(r) >= worst
+
+
+@pytest.mark.parametrize("yaw, pitch", [(0.0, 0.0), (15.0, -5.0), (-20.0, 8.0)])
+def test_translation_given_rotation_recovers_the_translation(yaw, pitch):
+    K = camera_matrix(1280, 720, 60.0)
+    R = head_rotation(yaw, pitch, 2.0)
+    t = np.array([12.0, -8.0, 600.0])
+    model = np.array([[-40.0, 25, -5], [-30, 27, -3], [-20, 25, -4], [20, 25, -4], [30, 27, -3], [40, 25, -5]])
+    X = model @ R.T + t
+    px = np.c_[K[0, 0] * X[:, 0] / X[:, 2] + K[0, 2], K[1, 1] * X[:, 1] / X[:, 2] + K[1, 2]]
+    np.testing.assert_allclose(translation_given_rotation(R, model, px, K), t, atol=1e-6)
+    assert translation_given_rotation(R, model, px + np.nan, K) is None
