@@ -179,7 +179,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     old_switch = sys.getswitchinterval()
     sys.setswitchinterval(0.0005)
     geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=rec.append, frames_hint=n_hint,
-                              mode=geometry_mode)
+                              mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors))
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
     n_in = 0
@@ -232,6 +232,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         "face_tracking": {"multi_face_from_frame": tracker.multi_face_from_frame,
                           "check_every_frames": tracker.check_every},
         "geometry_ran_in": geometry.kind,
+        "eye_anchor_frames": state.get("anchored_frames"),
         "geometry_process_peak_rss_mb": state.get("peak_rss_mb"),
         "landmarking_s": round(t_land, 3),
         "landmarking_fps": round(n / t_land, 1) if t_land > 0 else None,

@@ -153,3 +153,48 @@ def test_user_script_without_main_guard_runs_once(frames_and_faces, tmp_path):
     assert res.returncode == 0, res.stderr
     assert res.stdout.count("top-level line") == 1, res.stdout
     assert "rows 5 5" in res.stdout, res.stdout
+
+
+def test_rows_of_a_batch_equal_the_rows_one_frame_at_a_time(frames_and_faces):
+    """The geometry process fits the limbus of a whole batch of frames together; rows must not change."""
+    frs, obs = frames_and_faces
+    items = [frame_item(f.pts_s, f.image, o, refine_iris=True) for f, o in zip(frs, obs)]
+    items[5] = frame_item(frs[5].pts_s, frs[5].image, None, refine_iris=True)  # a frame without a face
+    one, many = FrameGeometry(fov_deg=60.0, refine_iris=True), FrameGeometry(fov_deg=60.0, refine_iris=True)
+    alone = np.stack([one.row(*it) for it in items])
+    together = np.concatenate([many.rows(items[k:k + 16]) for k in range(0, len(items), 16)])
+    assert together.shape == (len(items), RECORD_WIDTH)
+    np.testing.assert_allclose(together, alone, rtol=0, atol=1e-9, equal_nan=True)
+    assert np.isnan(together[5, 3:]).all() and together[5, 1] == 0.0
+    fitted = np.isfinite(together[:, 15]) & (np.abs(together[:, 15] - together[:, 31]) > 0)
+    assert fitted.mean() > 0.8  # the limbus fit ran (it moves the mesh's iris point) in most frames
+    assert many.rows([]).shape == (0, RECORD_WIDTH)
+
+
+@pytest.mark.timeout(60)
+def test_error_in_the_geometry_thread_reaches_the_caller_without_a_hang(frames_and_faces, monkeypatch):
+    """The thread takes what is queued in one batch - the closing marker too - and must still report a failure.
+
+    The frames and the closing marker are queued before the worker starts, so its first batch holds them all.
+    """
+    import threading
+
+    from camgaze.frame_geometry import GeometryThread
+
+    frs, obs = frames_and_faces
+
+    def sink(row):
+        raise RuntimeError("sink refused the row")
+
+    start = threading.Thread.start
+    monkeypatch.setattr(threading.Thread, "start", lambda self: None)
+    geo = GeometryThread(fov_deg=60.0, refine_iris=True, sink=sink)
+    monkeypatch.setattr(threading.Thread, "start", start)
+    for f, o in list(zip(frs, obs))[:5]:
+        geo.submit(frame_item(f.pts_s, f.image, o, refine_iris=True))
+    geo._q.put(None)  # what finish() sends
+    geo._thread.start()
+    geo._thread.join(timeout=30)
+    assert not geo._thread.is_alive(), "the worker hangs after a failure"
+    with pytest.raises(RuntimeError, match="sink refused"):
+        geo.check()

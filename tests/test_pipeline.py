@@ -129,3 +129,38 @@ def test_bad_parameters_are_refused():
         ProcessParams(fov_deg=5)
     with pytest.raises(ParameterError, match="face choice"):
         ProcessParams(face="biggest")
+
+
+def test_gaze_parameters_are_checked():
+    from camgaze.errors import ParameterError
+    from camgaze.gaze import GazeParams
+
+    with pytest.raises(ParameterError, match="blink_rel_threshold"):
+        GazeParams(blink_rel_threshold=1.5)
+    with pytest.raises(ParameterError, match="iris_combine"):
+        GazeParams(iris_combine="average")
+    with pytest.raises(ParameterError, match="eye_anchors"):
+        GazeParams(eye_anchors="no")
+    # an older run.json without the newer keys still reads, with the defaults
+    p = ProcessParams.from_dict({"fov_deg": 60.0, "gaze": {"blink_rel_threshold": 0.5}})
+    assert p.gaze.blink_rel_threshold == 0.5 and p.gaze.eye_anchors is True
+
+
+def test_cli_gaze_setting_switches_the_eye_anchors_off(clip, tmp_path):
+    """``--gaze eye_anchors=false`` keeps the head translation from PnP; the sidecar records it."""
+    out = tmp_path / "cli"
+    r = subprocess.run([sys.executable, "-m", "camgaze", "process", str(clip), "-o", str(out), "--quiet",
+                        "--gaze", "eye_anchors=false"], capture_output=True, text=True, timeout=600)
+    assert r.returncode == 0, r.stderr
+    run = json.loads((out / clip.stem / "run.json").read_text())
+    assert run["params"]["gaze"]["eye_anchors"] is False
+    assert run["extraction"]["eye_anchor_frames"] == 0
+    with_anchors = process_clip(clip, tmp_path / "default" / clip.stem)
+    run2 = json.loads((tmp_path / "default" / clip.stem / "run.json").read_text())
+    assert run2["extraction"]["eye_anchor_frames"] > 0.8 * len(with_anchors.samples)
+    off = pd.read_parquet(out / clip.stem / "samples.parquet")
+    assert not np.allclose(off["head_x_mm"], with_anchors.samples["head_x_mm"], equal_nan=True)  # it does differ
+    bad = subprocess.run([sys.executable, "-m", "camgaze", "process", str(clip), "-o", str(tmp_path / "x"),
+                          "--quiet", "--gaze", "anchors=off"], capture_output=True, text=True, timeout=600)
+    assert bad.returncode != 0 and "unknown gaze parameter 'anchors'" in bad.stderr and "eye_anchors" in bad.stderr
+    assert "Traceback" not in bad.stderr

@@ -24,6 +24,9 @@ def register(sub) -> None:
                         "(N-th face from the picture's left edge, from 0)")
     p.add_argument("--max-faces", type=int, default=2, help="faces looked for per frame (default 2)")
     p.add_argument("--segments", metavar="CSV", help="task segments (label, onset_s, offset_s) for per-segment features; applied to every clip")
+    p.add_argument("--gaze", dest="gaze_settings", action="append", default=[], metavar="NAME=VALUE",
+                   help="a gaze-estimate parameter (camgaze.gaze.GazeParams), e.g. --gaze eye_anchors=false "
+                        "(repeatable; changes the samples, so landmarking runs again)")
     add_analysis_arguments(p)
     p.add_argument("--no-reuse", action="store_true",
                    help="redo landmarking even when OUTDIR holds samples from the same clip and parameters")
@@ -62,6 +65,23 @@ def analysis_params_from_args(args):
     return AnalysisParams.from_dict(d)
 
 
+def gaze_params_from_args(args):
+    from dataclasses import asdict
+
+    from ..errors import ParameterError
+    from ..gaze import GazeParams
+
+    d = asdict(GazeParams())
+    for item in getattr(args, "gaze_settings", []) or []:
+        if "=" not in item:
+            raise ParameterError(f"--gaze {item!r} is not NAME=VALUE")
+        k, v = (x.strip() for x in item.split("=", 1))
+        if k not in d:
+            raise ParameterError(f"unknown gaze parameter {k!r}", hint="known: " + ", ".join(sorted(d)))
+        d[k] = _parse_value(v, d[k])
+    return GazeParams(**d)
+
+
 def _parse_value(v: str, like):
     from ..errors import ParameterError
 
@@ -98,7 +118,7 @@ def run(args) -> int:
     from ..pipeline import ProcessParams, clip_output_dir, process_clip
 
     params = ProcessParams(fov_deg=args.fov_deg, face=args.face, max_faces=args.max_faces,
-                           analysis=analysis_params_from_args(args))
+                           gaze=gaze_params_from_args(args), analysis=analysis_params_from_args(args))
     out_root = Path(args.out)
     failures = 0
     stems: dict[str, Path] = {}
