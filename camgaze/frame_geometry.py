@@ -28,6 +28,7 @@ import numpy as np
 from .eye_anchors import ANCHOR_POINTS, EyeAnchorTracker, anchor_reach_px, translation_given_rotation
 from .gaze import frame_measurements
 from .headpose import HeadPoseSolver
+from .landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
 from .limbus import ROI_RADII, limbus_centres_many
 
 #: columns of one row of the per-frame record (the width of each block in brackets)
@@ -42,6 +43,12 @@ _BATCH = 16
 PROCESS_MIN_FRAMES = 450
 
 
+#: landmarks the eye crop is placed by: both iris centres, the horizontal ends of both iris outlines
+#: (the diameters as :func:`camgaze.gaze.frame_measurements` measures them), then the eye anchors
+_CROP_POINTS = np.array([RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE, RIGHT_IRIS_RING[0], RIGHT_IRIS_RING[2],
+                         LEFT_IRIS_RING[0], LEFT_IRIS_RING[2], *ANCHOR_POINTS])
+
+
 def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int]) -> tuple[int, int, int, int] | None:
     """``(x0, y0, x1, y1)``: the part of the picture the iris refinement and the eye anchors read, or None.
 
@@ -51,18 +58,19 @@ def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int]) -> tuple[int, 
     each anchor's mesh point), clipped to the picture.
     """
     w, h = size_px
-    m = frame_measurements(points_px)
-    c, r = m["iris_px"], 0.5 * m["iris_diam_px"]
-    if not (np.all(np.isfinite(c)) and np.all(np.isfinite(r))):
+    # read straight from the landmarks (this runs on the face mesh's thread, which sets the pipeline's pace)
+    p = np.asarray(points_px)[_CROP_POINTS, :2]
+    c, ends = p[:2], p[2:6]
+    r = 0.5 * np.sqrt(np.square(ends[0::2] - ends[1::2]).sum(axis=1))  # half the iris diameters
+    if not (np.isfinite(c).all() and np.isfinite(r).all()):
         return None
-    reach = ROI_RADII * r[:, None] + 2.0
-    a = np.asarray(points_px, float)[list(ANCHOR_POINTS), :2]
-    if np.all(np.isfinite(a)):
+    reach = (ROI_RADII * r + 2.0)[:, None]
+    lo, hi = (c - reach).min(axis=0), (c + reach).max(axis=0)
+    a = p[6:]
+    if np.isfinite(a).all():
         a_reach = anchor_reach_px(float(np.mean(r)))
-        lo = np.minimum((c - reach).min(axis=0), (a - a_reach).min(axis=0))
-        hi = np.maximum((c + reach).max(axis=0), (a + a_reach).max(axis=0))
-    else:
-        lo, hi = (c - reach).min(axis=0), (c + reach).max(axis=0)
+        lo = np.minimum(lo, a.min(axis=0) - a_reach)
+        hi = np.maximum(hi, a.max(axis=0) + a_reach)
     x0 = int(max(0, np.floor(lo[0])))
     y0 = int(max(0, np.floor(lo[1])))
     x1 = int(min(w, np.ceil(hi[0]) + 1))
