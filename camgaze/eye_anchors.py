@@ -10,7 +10,10 @@ which tilts the 10.5 mm eyeball-centre-to-iris vector by some 5 deg. The
 mesh also moves its points with the eyes (the eyeball centres followed the
 iris by 0.3-0.5 of its own vertical motion).
 
-The picture has neither fault: skin texture moves with the head only. So a
+The picture has neither fault to that degree: skin texture just below the
+lower lid moves with the head, and with the eyes far less than the lids do
+(on rendered clips not at all; on real faces the lower-lid skin follows
+downward gaze a little - DEVELOPERS.md, known limits). So a
 few points on the skin just below each eye's opening (the face mesh's
 second ring below the lower lid, :data:`ANCHOR_POINTS`) are followed from
 frame to frame by normalised cross-correlation template matching (Lewis
@@ -53,6 +56,19 @@ MIN_SCORE = 0.6
 PATIENCE_FRAMES = 15
 #: ... or when the iris radius has changed by more than this fraction since it was cut
 RESCALE_FRACTION = 0.2
+
+
+#: below this iris radius (px) the anchors are not followed (as the limbus fit: a face a few dozen pixels wide)
+MIN_ANCHOR_RADIUS_PX = 2.5
+
+
+def anchor_radius_px(iris_diam_px) -> float:
+    """The iris radius the anchors' sizes scale with: half the mean of both eyes' iris diameters (px).
+
+    One definition for the tracker and for the eye crop that must cover what it reads.
+    """
+    d = np.asarray(iris_diam_px, float)
+    return 0.25 * float(d[0] + d[1])
 
 
 def anchor_reach_px(iris_radius_px: float) -> float:

@@ -25,7 +25,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .eye_anchors import ANCHOR_POINTS, EyeAnchorTracker, anchor_reach_px, translation_given_rotation
+from .eye_anchors import (ANCHOR_POINTS, MIN_ANCHOR_RADIUS_PX, EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
+                          translation_given_rotation)
 from .gaze import frame_measurements
 from .headpose import HeadPoseSolver
 from .landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
@@ -36,8 +37,9 @@ RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_m
                   ("iris_diam_px", 2), ("corners_px", 8), ("ear", 2), ("iris_mesh_px", 4))
 RECORD_WIDTH = sum(n for _, n in RECORD_COLUMNS)
 
-#: frames per message to the geometry process (and per batch of limbus fits there: measured here, fitting
-#: 16 frames' eyes together costs 0.4 ms a frame against 1.2 ms one frame at a time)
+#: frames per message to the geometry process, and most frames per batch of limbus fits in either runner
+#: (measured here: fitting 16 frames' eyes together costs 0.4-0.9 ms a frame, one frame at a time 1.2-2.0 ms;
+#: the machine's speed drifts)
 _BATCH = 16
 #: clips shorter than this (frames) use the thread: starting a process costs about a second
 PROCESS_MIN_FRAMES = 450
@@ -68,7 +70,7 @@ def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int]) -> tuple[int, 
     lo, hi = (c - reach).min(axis=0), (c + reach).max(axis=0)
     a = p[6:]
     if np.isfinite(a).all():
-        a_reach = anchor_reach_px(float(np.mean(r)))
+        a_reach = anchor_reach_px(anchor_radius_px(2.0 * r))
         lo = np.minimum(lo, a.min(axis=0) - a_reach)
         hi = np.maximum(hi, a.max(axis=0) + a_reach)
     x0 = int(max(0, np.floor(lo[0])))
@@ -107,6 +109,8 @@ class FrameGeometry:
         self.anchors = EyeAnchorTracker()
         self._anchors_model = self.anchors_model_mm()
         self.anchored_frames = 0
+        self.unanchored_frames = 0
+        self._anchor_minus_pnp: np.ndarray | None = None
 
     @staticmethod
     def anchors_model_mm() -> np.ndarray:
@@ -151,17 +155,19 @@ class FrameGeometry:
             self.size = (w, h)
             self.solver = HeadPoseSolver(w, h, fov_deg=self.fov_deg)
             self.anchors.reset()
+            self._anchor_minus_pnp = None
         row = np.full(RECORD_WIDTH, np.nan)
         row[0] = pts_s
         row[1] = 0.0
         row[2] = 0.0
+        # The anchors are kept through frames without a face or a pose: starting again from the mesh's
+        # points would drop the skin-minus-mesh offsets followed so far and move the head translation -
+        # and the gaze, by 1-2 deg - for the rest of the clip. Only a new picture size starts them afresh.
         if points_px is None:
-            self.anchors.reset()
             return row, None
         row[2] = face_count
         pose = self.solver.solve(points_px)
         if pose is None:
-            self.anchors.reset()
             return row, None
         R, t = pose
         m = frame_measurements(points_px)
@@ -171,13 +177,8 @@ class FrameGeometry:
             off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
             local = points_px - off
             job = ((eyes, local, iris - off[:2], m["iris_diam_px"]), off[:2])
-            r_px = 0.25 * float(np.sum(m["iris_diam_px"]))
-            if self.eye_anchors and np.isfinite(r_px) and r_px > 0:  # as for the eye crop (eye_crop_box)
-                a = self.anchors.update(eyes, local, r_px) + off[:2]
-                t_a = translation_given_rotation(R, self._anchors_model, a, self.solver.K)
-                if t_a is not None:
-                    t = t_a
-                    self.anchored_frames += 1
+        if self.eye_anchors:
+            t = self._anchored_translation(R, t, m, eyes, points_px, eyes_origin_px)
         row[1] = 1.0
         row[3:12] = R.ravel()
         row[12:15] = t
@@ -188,9 +189,32 @@ class FrameGeometry:
         row[31:35] = m["iris_px"].ravel()
         return row, job
 
+    def _anchored_translation(self, R, t_pnp, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
+        """The head translation refitted to the eye anchors, the rotation held.
+
+        Where the refit cannot run (no eye picture, an iris too small to
+        measure, a refit that fails), the PnP translation plus the last
+        anchored frame's difference from PnP: the two differ by a slowly
+        changing offset (about 1 mm sideways and 30 mm in depth on the demo
+        clip), which a switch to plain PnP would turn into a jump of the gaze.
+        """
+        r_px = anchor_radius_px(m["iris_diam_px"])
+        if eyes is not None and np.isfinite(r_px) and r_px >= MIN_ANCHOR_RADIUS_PX:
+            off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
+            a = self.anchors.update(eyes, points_px - off, r_px) + off[:2]
+            t_a = translation_given_rotation(R, self._anchors_model, a, self.solver.K)
+            if t_a is not None:
+                self.anchored_frames += 1
+                self._anchor_minus_pnp = t_a - t_pnp
+                return t_a
+        self.unanchored_frames += 1
+        return t_pnp if self._anchor_minus_pnp is None else t_pnp + self._anchor_minus_pnp
+
     def state(self) -> dict:
         return {"K": None if self.solver is None else self.solver.K, "size": self.size,
-                "size_changes": self.size_changes, "anchored_frames": self.anchored_frames}
+                "size_changes": self.size_changes, "anchored_frames": self.anchored_frames,
+                "unanchored_frames": self.unanchored_frames, "anchor_matches": self.anchors.matched,
+                "anchor_misses": self.anchors.missed}
 
 
 def peak_rss_mb() -> float | None:
@@ -237,7 +261,7 @@ class GeometryThread:
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors)
         self._sink = sink
-        self._q: queue.Queue = queue.Queue(maxsize=8)
+        self._q: queue.Queue = queue.Queue(maxsize=2 * _BATCH)  # room for a whole batch of limbus fits
         self._failure: list[BaseException] = []
         self._thread = threading.Thread(target=self._run, name="camgaze-geometry", daemon=True)
         self._thread.start()

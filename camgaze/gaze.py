@@ -108,7 +108,10 @@ class GazeParams:
         keeps the PnP translation from the face mesh's landmarks, which
         moves the eyeball centres by about a millimetre at 5 deg of head
         rotation (median gaze error 3-7 deg with the head turning +-15 deg
-        on rendered clips, against 1.5-1.7 deg with the anchors).
+        on rendered clips, against 1.5-1.7 deg with the anchors). Needs the
+        eye picture, i.e. ``refine_iris``; without it the PnP translation
+        is used (run.json counts the frames: ``eye_anchor_frames``,
+        ``eye_anchor_fallback_frames``).
     """
 
     blink_rel_threshold: float = 0.6
@@ -133,6 +136,8 @@ class GazeParams:
         if self.iris_combine not in ("limbus", "rescale", "fuse"):
             raise ParameterError(f"gaze parameter iris_combine = {self.iris_combine!r} is not one of "
                                  "limbus, rescale, fuse")
+        if not isinstance(self.blink_pad_frames, int) or isinstance(self.blink_pad_frames, bool):
+            raise ParameterError(f"gaze parameter blink_pad_frames = {self.blink_pad_frames!r} must be a whole number")
         for name in ("refine_iris", "decouple_reference", "eye_anchors"):
             if not isinstance(getattr(self, name), bool):
                 raise ParameterError(f"gaze parameter {name} must be true or false, got {getattr(self, name)!r}")

@@ -49,15 +49,6 @@ EDGE_NOISE_PX = 0.45
 _R_TOL = 0.15
 
 
-def _parabola_peak(v: np.ndarray, i: int) -> float:
-    if 0 < i < len(v) - 1:
-        a, b, c = v[i - 1], v[i], v[i + 1]
-        den = a - 2 * b + c
-        if np.isfinite(den) and den != 0:
-            return i + float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
-    return float(i)
-
-
 def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Solutions ``(x, y, z)`` of 3x3 linear systems ``A`` (E, 3, 3), ``b`` (E, 3); NaN where one is singular."""
     try:

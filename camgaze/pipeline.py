@@ -233,6 +233,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                           "check_every_frames": tracker.check_every},
         "geometry_ran_in": geometry.kind,
         "eye_anchor_frames": state.get("anchored_frames"),
+        "eye_anchor_fallback_frames": state.get("unanchored_frames"),
+        "eye_anchor_match_frac": _fraction(state.get("anchor_matches"), state.get("anchor_misses")),
         "geometry_process_peak_rss_mb": state.get("peak_rss_mb"),
         "landmarking_s": round(t_land, 3),
         "landmarking_fps": round(n / t_land, 1) if t_land > 0 else None,
@@ -242,6 +244,13 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         meta["frame_interval_ms"] = {"median": float(np.median(d) * 1e3), "min": float(d.min() * 1e3),
                                      "max": float(d.max() * 1e3)}
     return df, meta
+
+
+def _fraction(hits, misses) -> float | None:
+    """hits / (hits + misses), or None when there were none."""
+    if hits is None or misses is None or hits + misses == 0:
+        return None
+    return round(hits / (hits + misses), 4)
 
 
 def software_versions() -> dict:

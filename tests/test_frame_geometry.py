@@ -198,3 +198,48 @@ def test_error_in_the_geometry_thread_reaches_the_caller_without_a_hang(frames_a
     assert not geo._thread.is_alive(), "the worker hangs after a failure"
     with pytest.raises(RuntimeError, match="sink refused"):
         geo.check()
+
+
+def _rows(items, **kw):
+    return FrameGeometry(fov_deg=60.0, refine_iris=True, **kw).rows(items)
+
+
+def test_a_frame_without_a_face_does_not_move_the_anchored_head_afterwards(frames_and_faces):
+    """The eye anchors keep their followed offsets through a lost frame (starting afresh moved the head by
+    about 0.4 mm - 1-2 deg of gaze - for the rest of the clip)."""
+    frs, obs = frames_and_faces
+    items = [frame_item(f.pts_s, f.image, o, refine_iris=True) for f, o in zip(frs, obs)]
+    lost = list(items)
+    lost[20] = frame_item(frs[20].pts_s, frs[20].image, None, refine_iris=True)
+    full, gap = _rows(items), _rows(lost)
+    pnp = _rows(items, eye_anchors=False)
+    np.testing.assert_array_equal(gap[:20], full[:20])
+    after = np.arange(21, len(items))
+    ok = np.isfinite(full[after, 12]) & np.isfinite(gap[after, 12])
+    d_xy = np.abs(gap[after][ok, 12:14] - full[after][ok, 12:14]).max(axis=1)
+    anchor_effect = np.median(np.abs(full[after][ok, 12:14] - pnp[after][ok, 12:14]))
+    assert anchor_effect > 0.2  # the anchors do move the head (model mm), so the check below can fail
+    # the template matches just after the gap start from the older offset and may differ for a few frames
+    # (measured: 5 frames, up to 0.6 mm); starting afresh shifted every later frame by about 0.4 mm
+    assert np.median(d_xy) < 0.05, d_xy
+    assert (d_xy > 0.05).sum() <= 8, d_xy
+    assert gap[20, 1] == 0.0
+
+
+def test_frames_the_anchors_cannot_refit_continue_their_offset(frames_and_faces):
+    """Without an eye picture for one frame the translation is PnP's plus the last anchored offset, not PnP's."""
+    frs, obs = frames_and_faces
+    items = [frame_item(f.pts_s, f.image, o, refine_iris=True) for f, o in zip(frs, obs)]
+    k = next(j for j in range(25, len(items)) if items[j][2] is not None)
+    blind = list(items)
+    blind[k] = items[k][:4] + (None, (0, 0))  # landmarks but no eye crop
+    geo = FrameGeometry(fov_deg=60.0, refine_iris=True)
+    rows = geo.rows(blind)
+    pnp = _rows(items, eye_anchors=False)
+    anchored = _rows(items)
+    jump_pnp = np.linalg.norm(pnp[k, 12:15] - anchored[k - 1, 12:15])
+    jump_here = np.linalg.norm(rows[k, 12:15] - rows[k - 1, 12:15])
+    assert jump_here < 0.25 * jump_pnp, (jump_here, jump_pnp)
+    st = geo.state()
+    assert st["unanchored_frames"] == 1 and st["anchored_frames"] >= len(items) - 6
+    assert st["anchor_matches"] > 0 and st["anchor_misses"] >= 0

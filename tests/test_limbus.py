@@ -172,3 +172,4 @@ def test_degenerate_point_sets_do_not_raise():
             raise AssertionError(f"the fit warned on a degenerate set: {exc}") from None
     assert np.allclose(c[1], [0.0, 0.0], atol=1e-3) and rr[1] == pytest.approx(5.0, abs=1e-3)
     assert np.isnan(rms[0])  # no points: no residual
+    assert np.allclose(c[2], [0.0, 0.0]) and np.isnan(rms[2])  # no usable coordinates: the start is kept

@@ -141,6 +141,8 @@ def test_gaze_parameters_are_checked():
         GazeParams(iris_combine="average")
     with pytest.raises(ParameterError, match="eye_anchors"):
         GazeParams(eye_anchors="no")
+    with pytest.raises(ParameterError, match="whole number"):
+        GazeParams(blink_pad_frames=1.5)
     # an older run.json without the newer keys still reads, with the defaults
     p = ProcessParams.from_dict({"fov_deg": 60.0, "gaze": {"blink_rel_threshold": 0.5}})
     assert p.gaze.blink_rel_threshold == 0.5 and p.gaze.eye_anchors is True
@@ -164,3 +166,18 @@ def test_cli_gaze_setting_switches_the_eye_anchors_off(clip, tmp_path):
                           "--quiet", "--gaze", "anchors=off"], capture_output=True, text=True, timeout=600)
     assert bad.returncode != 0 and "unknown gaze parameter 'anchors'" in bad.stderr and "eye_anchors" in bad.stderr
     assert "Traceback" not in bad.stderr
+
+
+@pytest.mark.parametrize("option, setting, message", [
+    ("--gaze", "blink_pad_frames=abc", "--gaze blink_pad_frames='abc': expected a whole number"),
+    ("--gaze", "blink_pad_frames=1.5", "--gaze blink_pad_frames='1.5': expected a whole number"),
+    ("--gaze", "eye_anchors=maybe", "--gaze eye_anchors='maybe': expected true or false"),
+    ("--set", "min_fixation_ms=abc", "--set min_fixation_ms='abc': expected"),
+])
+def test_cli_bad_setting_values_name_the_parameter(clip, tmp_path, option, setting, message):
+    r = subprocess.run([sys.executable, "-m", "camgaze", "process", str(clip), "-o", str(tmp_path / "x"), "--quiet",
+                        option, setting], capture_output=True, text=True, timeout=300)
+    assert r.returncode != 0
+    assert message in r.stderr, r.stderr
+    assert "Traceback" not in r.stderr
+    assert not (tmp_path / "x").exists() or not any((tmp_path / "x").rglob("run.json"))

@@ -61,7 +61,7 @@ def analysis_params_from_args(args):
         k = k.strip()
         if k not in d:
             raise ParameterError(f"unknown analysis parameter {k!r}", hint="known: " + ", ".join(sorted(d)))
-        d[k] = _parse_value(v.strip(), d[k])
+        d[k] = _parse_value(v.strip(), d[k], k, "--set")
     return AnalysisParams.from_dict(d)
 
 
@@ -78,29 +78,37 @@ def gaze_params_from_args(args):
         k, v = (x.strip() for x in item.split("=", 1))
         if k not in d:
             raise ParameterError(f"unknown gaze parameter {k!r}", hint="known: " + ", ".join(sorted(d)))
-        d[k] = _parse_value(v, d[k])
+        d[k] = _parse_value(v, d[k], k, "--gaze")
     return GazeParams(**d)
 
 
-def _parse_value(v: str, like):
+def _parse_value(v: str, like, name: str, option: str):
+    """``v`` read as the type of the parameter's default ``like``; a ParameterError naming it otherwise."""
     from ..errors import ParameterError
+
+    def refuse(expected):
+        return ParameterError(f"{option} {name}={v!r}: expected {expected}", hint=f"e.g. {option} {name}={like!r}"
+                              if like is not None else None)
 
     if isinstance(like, bool):
         if v.lower() in ("1", "true", "yes", "on"):
             return True
         if v.lower() in ("0", "false", "no", "off"):
             return False
-        raise ParameterError(f"expected true/false, got {v!r}")
-    if isinstance(like, int) and not isinstance(like, bool):
+        raise refuse("true or false")
+    if isinstance(like, int):
         try:
-            return int(v)
+            f = float(v)
         except ValueError:
-            return float(v)
+            raise refuse("a whole number") from None
+        if not f.is_integer():
+            raise refuse("a whole number")
+        return int(f)
     if isinstance(like, float):
         try:
             return float(v)
         except ValueError:
-            raise ParameterError(f"expected a number, got {v!r}") from None
+            raise refuse("a number") from None
     if like is None:
         if v.lower() in ("none", "null", ""):
             return None
