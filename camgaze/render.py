@@ -180,7 +180,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 fps: float = 30.0, frame_times_s=None, fov_deg: float = 60.0, noise_sd: float = 2.0,
                 codec: str = "libx264", crf: int = 23, bitrate_kbps: float | None = None, rotation_deg: int = 0,
                 darkness: float = 1.0, face_visible=None, extra_faces: int = 0, seed: int = 0,
-                progress=None, cancel=None) -> RenderResult:
+                lower_skin_follow: float = 0.0, progress=None, cancel=None) -> RenderResult:
     """Render a webcam-like clip of a face following ``trajectory`` and write its truth beside it.
 
     Parameters
@@ -224,6 +224,9 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         by the face mesh's detector.
     seed : int, default 0
         Seed of the noise and of the iris textures.
+    lower_skin_follow : float, default 0
+        How far the skin below the lower lids follows the lids' movement
+        with vertical gaze (0-1; :class:`camgaze.render_frame.FaceRig`).
     progress : callable, optional
         ``progress(fraction_done, message)``, called every few frames.
     cancel : object with ``is_set()``, optional
@@ -294,7 +297,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
     rest = (float(track["head_x_mm"].median()), float(track["head_y_mm"].median()),
             float(track["head_z_mm"].median()))
     bg = _background(w, h)
-    rig = FaceRig(load_face(face), camera, rest_head_mm=rest, background=bg, seed=seed)
+    rig = FaceRig(load_face(face), camera, rest_head_mm=rest, background=bg, seed=seed,
+                  lower_skin_follow=lower_skin_follow)
     if extra_faces:
         other = FACES[1] if face == FACES[0] else FACES[0]
         main_iris = camera.focal_px * IRIS_DIAMETER_MM / (rest[2] - EYEBALL_RADIUS_MM)

@@ -230,6 +230,17 @@ def _mesh_warp_grid(src: np.ndarray, dst: np.ndarray, simplices: np.ndarray, dep
     return out.astype(np.float32)
 
 
+#: the first three rings of face-mesh points below each lower lid, outer corner to inner corner (checked on
+#: the rendered rest mesh: each ring lies 3-4, 8-9 and 13-15 mm below the lid's middle); the eye anchors
+#: (camgaze.eye_anchors.ANCHOR_POINTS) are the middle of the second ring
+LOWER_SKIN_RINGS = {
+    "right": ((130, 25, 110, 24, 23, 22, 26, 112, 243), (226, 31, 228, 229, 230, 231, 232, 233, 244),
+              (35, 111, 117, 118, 119, 120, 121, 128, 245)),
+    "left": ((359, 255, 339, 254, 253, 252, 256, 341, 463), (446, 261, 448, 449, 450, 451, 452, 453, 464),
+             (265, 340, 346, 347, 348, 349, 350, 357, 465)),
+}
+
+
 class FaceRig:
     """A face photograph placed in front of a camera, posable and with drawable eyes.
 
@@ -244,11 +255,23 @@ class FaceRig:
         the rest pose, mm; the photograph is laid out for it.
     background : numpy.ndarray
         The plain picture behind the photograph, RGB uint8, camera size.
+    lower_skin_follow : float
+        How far the skin below each lower lid follows the lid's vertical
+        movement with gaze (0 = not at all, the default; 1 = the first ring of
+        face-mesh points below the lid moves as much as the lid, the second
+        ring half as much, the third a quarter). For measuring how much of
+        that motion reaches the gaze through the eye anchors
+        (:mod:`camgaze.eye_anchors` follow skin of the second ring).
     """
 
     def __init__(self, face: FacePhoto, camera: Camera, *, rest_head_mm=(0.0, 0.0, 600.0),
-                 background: np.ndarray, seed: int = 0):
+                 background: np.ndarray, seed: int = 0, lower_skin_follow: float = 0.0):
         cv2 = import_cv2()
+        if not (0.0 <= float(lower_skin_follow) <= 1.0):
+            from .errors import ParameterError
+
+            raise ParameterError(f"lower_skin_follow must be 0-1, got {lower_skin_follow}")
+        self.lower_skin_follow = float(lower_skin_follow)
         self.face = face
         self.camera = camera
         f = camera.focal_px
@@ -364,6 +387,11 @@ class FaceRig:
                 d[ids[j], 1] -= 0.3 * travel * np.sin(np.pi * j / 8)
             for j in range(9, 16):  # upper lid
                 d[ids[j], 1] -= 0.8 * travel * np.sin(np.pi * (j - 8) / 8)
+            if self.lower_skin_follow:
+                for ring, share in zip(LOWER_SKIN_RINGS[e], (1.0, 0.5, 0.25)):
+                    for j in range(1, len(ring) - 1):  # corner to corner, most in the middle
+                        d[ring[j], 1] -= (self.lower_skin_follow * share * 0.3 * travel
+                                          * np.sin(np.pi * j / (len(ring) - 1)))
         return d
 
     def pose(self, R: np.ndarray, T_mm, *, eye_pitch_deg: float = 0.0) -> tuple[np.ndarray, dict]:

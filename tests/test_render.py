@@ -184,6 +184,31 @@ def test_eyelids_follow_vertical_gaze():
     np.testing.assert_allclose(up[others], rest[others])
 
 
+def test_skin_below_the_lower_lids_can_follow_them():
+    """``lower_skin_follow`` moves the rings of skin below each lower lid with vertical gaze, less further down."""
+    from camgaze.eye_anchors import ANCHOR_POINTS
+    from camgaze.render_face import LEFT_EYE_CONTOUR, RIGHT_EYE_CONTOUR, load_face
+    from camgaze.render_frame import LOWER_SKIN_RINGS, FaceRig
+
+    face, bg = load_face("hopper"), np.zeros((360, 640, 3), np.uint8)
+    still = FaceRig(face, Camera(640, 360), background=bg)
+    moving = FaceRig(face, Camera(640, 360), background=bg, lower_skin_follow=1.0)
+    R, T = np.eye(3), still.rest_origin_mm
+    down_still, _ = still.pose(R, T, eye_pitch_deg=-15.0)
+    down, _ = moving.pose(R, T, eye_pitch_deg=-15.0)
+    rest, _ = moving.pose(R, T)
+    lid_travel = 0.3 * EYEBALL_RADIUS_MM * np.sin(np.radians(15))  # the lower lid's middle, looking down
+    for e, lid in (("right", RIGHT_EYE_CONTOUR), ("left", LEFT_EYE_CONTOUR)):
+        assert down[lid[4], 1] - rest[lid[4], 1] == pytest.approx(lid_travel, rel=0.02)
+        for ring, share in zip(LOWER_SKIN_RINGS[e], (1.0, 0.5, 0.25)):
+            assert down[ring[4], 1] - rest[ring[4], 1] == pytest.approx(share * lid_travel, rel=0.02)
+            assert np.allclose(down[[ring[0], ring[-1]]], rest[[ring[0], ring[-1]]])  # ends stay
+            np.testing.assert_allclose(down_still[list(ring)], rest[list(ring)])  # the default: skin still
+    assert set(ANCHOR_POINTS) <= set(LOWER_SKIN_RINGS["right"][1] + LOWER_SKIN_RINGS["left"][1])
+    with pytest.raises(ValueError, match="lower_skin_follow"):
+        FaceRig(face, Camera(640, 360), background=bg, lower_skin_follow=2.0)
+
+
 def test_the_whole_head_turns_with_the_face():
     """Hair, ears and headwear beyond the face outline ride on the head shell, behind the outline."""
     from camgaze.render_face import load_face
