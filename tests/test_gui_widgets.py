@@ -84,3 +84,35 @@ def test_plot_canvas_maps_pixels_to_data(qtbot):
         c.plot(broken)
     assert "no data" in c.message and c.image() is None
     c.shutdown()
+
+
+def test_duration_histogram_counts_whole_fixations_and_labels_the_overflow_bar():
+    """Counts get whole-number ticks; the longest durations piled into the last bar are labelled with
+    where that bar starts and how many it holds (they would otherwise read as fixations of that length)."""
+    import numpy as np
+    from matplotlib.figure import Figure
+
+    from ui.results_view import draw_histogram
+
+    frame_ms = 1000.0 / 30.0
+    rng = np.random.default_rng(4)
+    d = np.round(rng.gamma(4.0, 60.0, size=199) / frame_ms).clip(2) * frame_ms  # whole frames, 30 fps
+    d = np.append(d, 40 * frame_ms)  # one far longer fixation, past the 99th percentile
+    fig = Figure()
+    assert draw_histogram(fig, d) == len(d)
+    ax = fig.axes[0]
+    fig.canvas.draw()
+    ticks = [t for t in ax.get_yticks() if ax.get_ylim()[0] <= t <= ax.get_ylim()[1]]
+    assert ticks and all(float(t).is_integer() for t in ticks)
+    heights = [p.get_height() for p in ax.patches]
+    assert sum(heights) == len(d)  # every fixation is in some bar, the overflow included
+    label = [t.get_text() for t in ax.texts if t.get_text().startswith("last bar")]
+    assert len(label) == 1
+    start_ms = ax.patches[-1].get_x()
+    over = int(np.count_nonzero(d > start_ms))
+    assert label[0] == f"last bar: {start_ms:.0f} ms or longer ({over})"
+    assert heights[-1] == over
+    # nothing beyond the axis: no label
+    fig2 = Figure()
+    draw_histogram(fig2, np.full(20, 200.0))
+    assert not [t for t in fig2.axes[0].texts if t.get_text().startswith("last bar")]

@@ -119,6 +119,8 @@ class MainWindow(QMainWindow):
         self.clip_list.setHeaderLabels(["Clip", "Status", "Progress", "Face", "Usable"])
         self.clip_list.headerItem().setToolTip(COL_FACE, "Share of frames in which the face was tracked")
         self.clip_list.setRootIsDecorated(False)
+        # clips of one study share a prefix: cut names in the middle so the participant and session show
+        self.clip_list.setTextElideMode(Qt.ElideMiddle)
         self.clip_list.setSelectionMode(QAbstractItemView.ExtendedSelection)
         self.clip_list.setContextMenuPolicy(Qt.CustomContextMenu)
         self.clip_list.customContextMenuRequested.connect(self._clip_menu)

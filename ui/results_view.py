@@ -115,6 +115,8 @@ def _frame_quantum_ms(d: np.ndarray) -> float | None:
 
 def draw_histogram(fig, durations_ms: np.ndarray):
     """Fixation-duration histogram (runs in the drawing thread)."""
+    from matplotlib.ticker import MaxNLocator
+
     fig.subplots_adjust(left=0.16, right=0.97, top=0.9, bottom=0.15)
     ax = fig.add_subplot(1, 1, 1)
     d = durations_ms
@@ -128,6 +130,11 @@ def draw_histogram(fig, durations_ms: np.ndarray):
             start = -step / 2
         bins = np.arange(start, hi + step, step)
         ax.hist(np.clip(d, 0, bins[-1]), bins=bins, color=theme.HIST_COLOUR, edgecolor="white", lw=0.5)
+        over = int(np.count_nonzero(d > bins[-2]))
+        if np.any(d > bins[-1]):  # the longest 1 % are piled into the last bar: say so
+            ax.text(0.99, 0.90, f"last bar: {bins[-2]:.0f} ms or longer ({over})", transform=ax.transAxes,
+                    ha="right", va="top", fontsize=7, color="#555")
+        ax.yaxis.set_major_locator(MaxNLocator(integer=True))  # counts are whole numbers
         med = float(np.median(d))
         ax.axvline(med, color=theme.CURSOR_COLOUR, lw=1.2)
         ax.text(med, 0.97, f" median {med:.0f} ms", transform=ax.get_xaxis_transform(), va="top", ha="left",
@@ -196,6 +203,8 @@ class ResultsView(QWidget):
         split.addWidget(self.canvas)
         split.setStretchFactor(0, 3)
         split.setStretchFactor(1, 2)
+        split.setSizes([600, 400])  # the table first: the canvas' own size hint would otherwise take most
+        self.split = split
         lay = QVBoxLayout(self)
         lay.setContentsMargins(4, 4, 4, 4)
         lay.addLayout(top)
