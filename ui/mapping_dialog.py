@@ -59,7 +59,11 @@ class MappingDialog(QDialog):
             for r in range(len(head)):
                 for c in range(len(cols)):
                     preview.setItem(r, c, QTableWidgetItem(str(head.iat[r, c])))
-        preview.setMaximumHeight(200)
+        preview.verticalHeader().setDefaultSectionSize(preview.fontMetrics().height() + 6)
+        # room for the header and five rows: the layout would otherwise squeeze it to two
+        preview.setMinimumHeight(preview.horizontalHeader().sizeHint().height()
+                                 + 5 * preview.verticalHeader().defaultSectionSize() + 4)
+        preview.setMaximumHeight(max(200, preview.minimumHeight()))
 
         def combo(optional=False):
             cb = QComboBox()
