@@ -159,13 +159,12 @@ class FrameGeometry:
         row = np.full(RECORD_WIDTH, np.nan)
         row[0] = pts_s
         row[1] = 0.0
-        row[2] = 0.0
+        row[2] = face_count  # faces in view, the followed one or not
         # The anchors are kept through frames without a face or a pose: starting again from the mesh's
         # points would drop the skin-minus-mesh offsets followed so far and move the head translation -
         # and the gaze, by 1-2 deg - for the rest of the clip. Only a new picture size starts them afresh.
         if points_px is None:
             return row, None
-        row[2] = face_count
         pose = self.solver.solve(points_px)
         if pose is None:
             return row, None
@@ -239,11 +238,15 @@ def peak_rss_mb() -> float | None:
     return round(peak / (2**20 if sys.platform == "darwin" else 2**10), 1)  # bytes on macOS, KiB elsewhere
 
 
-def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool) -> tuple:
-    """What the geometry of one frame needs, with the picture cut down to the eyes."""
+def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool, faces_in_view: int = 0) -> tuple:
+    """What the geometry of one frame needs, with the picture cut down to the eyes.
+
+    ``faces_in_view`` is the face count recorded when the followed face was not found (``obs`` None):
+    other faces may be in view.
+    """
     h, w = image.shape[:2]
     if obs is None:
-        return pts_s, (w, h), None, 0, None, (0, 0)
+        return pts_s, (w, h), None, int(faces_in_view), None, (0, 0)
     eyes, origin = None, (0, 0)
     if refine_iris:
         box = eye_crop_box(obs.points_px, (w, h))

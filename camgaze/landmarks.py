@@ -18,7 +18,16 @@ more than one face the mesh reports up to ``max_faces`` faces per frame and
 one consistent face is followed - on the first such frame the face nearest to
 the one followed so far (or, at the start, the largest, or the N-th from the
 picture's left edge when the user picks one), then the face nearest to where
-the followed face was. It is re-acquired the same way after it has been lost.
+the followed face was, if it lies within 1.5 face sizes of that place. A face
+farther away is somebody else: while only such faces are in view the
+followed face counts as not found (those frames are invalid, and counted),
+so a student who ducks out of view is not replaced by a classmate behind
+them. Only after the followed face has been missing for ``reacquire_after``
+frames and several faces are in view is a face taken up again by the
+starting rule (counted as a re-acquisition: the face followed may have
+changed). With one face ever seen, any face found is the followed one (no
+recognition of persons: somebody who takes the student's seat in one-face
+mode is not told apart).
 """
 from __future__ import annotations
 
@@ -137,15 +146,33 @@ class FaceTracker:
         Passed to the face mesh and the detector (0-1).
     check_every : int
         Frames between checks for further faces while one is followed.
+    reacquire_after : int
+        With several faces seen: frames the followed face must have been
+        missing before another face is taken up by the starting rule.
+
+    After each frame, ``faces_in_view`` is the number of faces the mesh
+    found, the followed one or not; ``other_faces_only_frames`` counts the
+    frames in which faces were found but none was the followed one, and
+    ``reacquired_frames`` lists the frames where a face was taken up again.
     """
+
+    #: a face farther than this many face sizes from where the followed face was is another face
+    SAME_FACE_REACH = 1.5
 
     def __init__(self, *, max_faces: int = 2, face: str = "largest",
                  min_detection_confidence: float = 0.5, min_tracking_confidence: float = 0.5,
-                 check_every: int = 15):
+                 check_every: int = 15, reacquire_after: int = 90):
         if not (1 <= int(max_faces) <= 10):
             raise ParameterError(f"max_faces must be 1-10, got {max_faces}")
         if int(check_every) < 1:
             raise ParameterError(f"check_every must be >= 1 frame, got {check_every}")
+        if int(reacquire_after) < 1:
+            raise ParameterError(f"reacquire_after must be >= 1 frame, got {reacquire_after}")
+        self.reacquire_after = int(reacquire_after)
+        self.faces_in_view = 0
+        self.other_faces_only_frames = 0
+        self.reacquired_frames: list[int] = []
+        self._missing = 0  # frames since the followed face was last seen
         self.mode, self.index = parse_face_choice(face)
         self.max_faces = int(max_faces)
         self.check_every = int(check_every)
@@ -224,25 +251,37 @@ class FaceTracker:
         faces = res.multi_face_landmarks
         self._was_found = bool(faces)
         if not faces:
+            self.faces_in_view = 0
+            self._missing += 1
             return None
         scale = np.array([w, h, w], dtype=np.float64)
         arrays = [landmarks_array(f) * scale for f in faces]
-        k = self._choose(arrays)
         count = len(arrays) if self.multi_face_mode or self._detector is None else max(1, self._seen_count)
+        self.faces_in_view = count
+        k = self._choose(arrays)
+        if k is None:  # only other faces in view
+            self.other_faces_only_frames += 1
+            self._missing += 1
+            return None
+        self._missing = 0
         return FaceObservation(points_px=arrays[k], face_count=count)
 
-    def _choose(self, arrays: list[np.ndarray]) -> int:
+    def _choose(self, arrays: list[np.ndarray]) -> int | None:
+        """Index of the followed face among ``arrays``, or None when it is not among them."""
         centres = np.array([a[:, :2].mean(axis=0) for a in arrays])
         sizes = np.array([np.ptp(a[:, 0]) * np.ptp(a[:, 1]) for a in arrays]) ** 0.5
-        if len(arrays) == 1:
+        if self._last_centre is None:
+            k = self._initial(centres, sizes)
+        elif not self.multi_face_mode:  # one face ever seen: the mesh's one face is it
             k = 0
-        elif self._last_centre is not None:
+        else:
             d = np.linalg.norm(centres - self._last_centre, axis=1)
             k = int(np.argmin(d))
-            if d[k] > 1.5 * (self._last_size or sizes[k]):  # followed face gone: re-acquire
+            if d[k] > self.SAME_FACE_REACH * (self._last_size or sizes[k]):  # the followed face is not here
+                if len(arrays) < 2 or self._missing < self.reacquire_after:
+                    return None
                 k = self._initial(centres, sizes)
-        else:
-            k = self._initial(centres, sizes)
+                self.reacquired_frames.append(self._frame - 1)
         self._last_centre, self._last_size = centres[k], float(sizes[k])
         return k
 

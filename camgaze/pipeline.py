@@ -49,6 +49,9 @@ from .video import DecodeReport, FramePrefetcher, probe
 
 ProgressFn = Callable[[float, str], None]
 
+#: raised whenever the samples table a clip gives changes for the same parameters, so cached samples of an
+#: earlier method are rebuilt, not reused (2: a face far from the followed one is no longer taken for it)
+EXTRACTION_REVISION = 2
 #: nice steps by which the decoder thread and the geometry process yield to the face mesh (see
 #: :func:`extract_samples`)
 DECODE_NICE = 5
@@ -190,7 +193,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                 raise Cancelled(f"cancelled while processing {clip.name}")
             geometry.check()
             obs = tracker.process(fr.image)
-            geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine))
+            geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine, faces_in_view=tracker.faces_in_view))
             n_in += 1
             if progress is not None and (n_in % 10 == 0):
                 progress(min(n_in / n_hint, 0.99), f"{clip.name}: frame {n_in} of about {n_hint}")
@@ -230,7 +233,10 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         "gaze_model": ginfo,
         "camera_matrix": K.tolist(),
         "face_tracking": {"multi_face_from_frame": tracker.multi_face_from_frame,
-                          "check_every_frames": tracker.check_every},
+                          "check_every_frames": tracker.check_every,
+                          "other_faces_only_frames": tracker.other_faces_only_frames,
+                          "reacquired_at_frames": list(tracker.reacquired_frames),
+                          "reacquire_after_frames": tracker.reacquire_after},
         "geometry_ran_in": geometry.kind,
         "eye_anchor_frames": state.get("anchored_frames"),
         "eye_anchor_fallback_frames": state.get("unanchored_frames"),
@@ -303,9 +309,21 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         s["verdict"] += f" Note: the file is damaged - {dp['stopped_early']}; only the part before that was analysed."
     elif dp.get("corrupt_packets"):
         s["verdict"] += f" Note: {dp['corrupt_packets']} damaged packet(s) in the file were skipped."
-    if s["multi_face_frac"] > 0.05:
-        s["verdict"] += (f" Several faces were in view in {s['multi_face_frac']:.0%} of frames; "
-                         "one face was followed throughout (the largest, or the one chosen with --face).")
+    ft = meta.get("face_tracking") or {}
+    others, again = int(ft.get("other_faces_only_frames") or 0), list(ft.get("reacquired_at_frames") or [])
+    if s["multi_face_frac"] > 0.05 or others or again:
+        s["verdict"] += f" Several faces were in view in {s['multi_face_frac']:.0%} of frames"
+        if again:
+            s["verdict"] += (f"; the followed face was lost and a face was taken up again at frame(s) "
+                             f"{', '.join(str(f) for f in again[:5])}{' ...' if len(again) > 5 else ''}: "
+                             "check that it is the same person (--face chooses one).")
+        else:
+            s["verdict"] += "; one face was followed throughout (the largest, or the one chosen with --face)."
+        if others:
+            s["verdict"] += (f" In {others} frame(s) only other faces were in view; "
+                             "those frames are marked invalid rather than measured on another face.")
+    s["other_faces_only_frames"] = others
+    s["face_reacquisitions"] = len(again)
     return s
 
 
@@ -429,7 +447,7 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         raise VideoError("is a folder, not a video file", path=clip, hint="give the clip file inside it")
     input_sha = sha256_file(clip)
     seg_df = _segments_frame(segments)
-    extraction_sha = sha256_json(params.extraction_dict())
+    extraction_sha = sha256_json(params.extraction_dict() | {"method_revision": EXTRACTION_REVISION})
     samples = None
     meta = None
     reused = False

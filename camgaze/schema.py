@@ -55,13 +55,13 @@ class Column:
 #: filled by the webcam pipeline and may be absent in reference data.
 SAMPLE_COLUMNS: tuple[Column, ...] = (
     Column("t_s", "float64", "s", "time of the sample; for clips seconds from the first frame's presentation timestamp", True),
-    Column("valid", "bool", "", "gaze angles usable: face found, eyes open, estimate finite", True),
+    Column("valid", "bool", "", "gaze angles usable: face found, eyes open, head turned no further than the limit (default 45 deg), estimate finite", True),
     Column("yaw_deg", "float64", "deg", "binocular gaze yaw (subject's right positive), NaN when not valid", True),
     Column("pitch_deg", "float64", "deg", "binocular gaze pitch (up positive), NaN when not valid", True),
     Column("frame_index", "int64", "", "0-based index of the decoded frame"),
     Column("pts_s", "float64", "s", "presentation timestamp from the container, on the container's own clock"),
-    Column("face_found", "bool", "", "a face was tracked in this frame"),
-    Column("face_count", "int64", "", "number of faces the face mesh found in this frame"),
+    Column("face_found", "bool", "", "the followed face was tracked in this frame (false while only other faces are in view)"),
+    Column("face_count", "int64", "", "number of faces found in this frame, the followed one or not"),
     Column("blink", "bool", "", "eyelids closed (eyelid aperture well below this person's open-eye level)"),
     Column("left_yaw_deg", "float64", "deg", "subject's left eye gaze yaw"),
     Column("left_pitch_deg", "float64", "deg", "subject's left eye gaze pitch"),
@@ -93,7 +93,7 @@ EVENT_TYPES = ("fixation", "saccade", "blink", "loss")
 EVENT_COLUMNS: tuple[Column, ...] = (
     Column("type", "str", "", "fixation, saccade, blink or loss", True),
     Column("onset_s", "float64", "s", "time of the first sample of the event", True),
-    Column("offset_s", "float64", "s", "end of the event: time of its last sample plus half a sample interval is NOT added; offset is the time of the first sample after the event (or last + median interval at the end)", True),
+    Column("offset_s", "float64", "s", "end of the event: the time of the first sample after it (at the end of the data: its last sample plus the median sample interval)", True),
     Column("duration_ms", "float64", "ms", "offset_s - onset_s, in ms", True),
     Column("yaw_deg", "float64", "deg", "fixations: mean yaw; saccades: NaN"),
     Column("pitch_deg", "float64", "deg", "fixations: mean pitch; saccades: NaN"),

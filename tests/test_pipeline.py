@@ -181,3 +181,30 @@ def test_cli_bad_setting_values_name_the_parameter(clip, tmp_path, option, setti
     assert message in r.stderr, r.stderr
     assert "Traceback" not in r.stderr
     assert not (tmp_path / "x").exists() or not any((tmp_path / "x").rglob("run.json"))
+
+
+def test_frames_with_only_a_bystander_are_invalid_and_reported(tmp_path):
+    """The student leaves the picture for half a second while a classmate stays in view: those rows stay in
+    the table, invalid, with the classmate counted in face_count; run.json and the verdict say how many."""
+    from camgaze.render import render_clip
+    from camgaze.render_trajectory import synth_trajectory
+
+    vis = np.ones(90, bool)
+    vis[30:45] = False
+    clip = render_clip(tmp_path / "p10_s01.mp4", synth_trajectory(duration_s=3.0, seed=3), size_px=(640, 360),
+                       fps=30.0, seed=3, extra_faces=1, face_visible=vis).path
+    res = process_clip(clip, tmp_path / "out" / "p10_s01")
+    s = res.samples
+    assert len(s) == 90
+    gap = s.iloc[33:44]
+    assert not gap["face_found"].any() and not gap["valid"].any()
+    assert (gap["face_count"] >= 1).all()
+    run = json.loads((tmp_path / "out" / "p10_s01" / "run.json").read_text())
+    ft = run["extraction"]["face_tracking"]
+    assert ft["other_faces_only_frames"] >= 11 and ft["reacquired_at_frames"] == []
+    assert run["quality"]["other_faces_only_frames"] == ft["other_faces_only_frames"]
+    assert f"In {ft['other_faces_only_frames']} frame(s) only other faces were in view" in run["quality"]["verdict"]
+    # the distance stays the student's: the classmate sits farther back (camgaze.render)
+    after = s.iloc[50:]
+    assert after["face_found"].mean() > 0.9
+    assert abs(np.nanmedian(after["distance_mm"]) - np.nanmedian(s.iloc[:30]["distance_mm"])) < 60
