@@ -4,7 +4,8 @@ Importing ``cv2`` from the opencv-contrib wheel that mediapipe pulls in sets
 ``QT_QPA_PLATFORM_PLUGIN_PATH`` to OpenCV's own bundled Qt plugins. PySide6
 then loads the wrong platform plugins and its windows fail to open. Every
 module in camgaze imports OpenCV through :func:`import_cv2`, which imports it
-once and undoes that change, so the rest of the program never sees it.
+once and undoes that change, and mediapipe (which imports OpenCV itself)
+through :func:`import_mediapipe`, so the rest of the program never sees it.
 """
 from __future__ import annotations
 
@@ -28,6 +29,21 @@ def import_cv2():
         _strip_cv2_qt_path()
         _cv2 = cv2
     return _cv2
+
+
+def import_mediapipe():
+    """Return the ``mediapipe`` module, imported after :func:`import_cv2`.
+
+    mediapipe imports OpenCV itself; imported first, that import would set
+    the Qt plugin path behind :func:`import_cv2`'s back. Also quiets the
+    native logs. Every module in camgaze imports mediapipe through here.
+    """
+    import_cv2()
+    quiet_native_logs()
+    import mediapipe  # noqa: PLC0415 - deliberate central import
+
+    _strip_cv2_qt_path()
+    return mediapipe
 
 
 def quiet_native_logs() -> None:

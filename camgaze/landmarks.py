@@ -36,7 +36,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._env import native_stderr_silenced, quiet_native_logs
+from ._env import import_mediapipe, native_stderr_silenced, quiet_native_logs
 from .errors import ParameterError
 
 N_LANDMARKS = 478
@@ -182,7 +182,7 @@ class FaceTracker:
         self._detector = None
         if self.max_faces > 1:
             with _MP_LOCK, native_stderr_silenced():
-                from mediapipe.python.solutions import face_detection  # noqa: PLC0415 - heavy import
+                face_detection = import_mediapipe().solutions.face_detection
 
                 self._detector = face_detection.FaceDetection(min_detection_confidence=self._conf[0],
                                                               model_selection=0)
@@ -197,7 +197,7 @@ class FaceTracker:
 
     def _new_mesh(self, faces: int):
         with _MP_LOCK, native_stderr_silenced():
-            from mediapipe.python.solutions import face_mesh  # noqa: PLC0415 - heavy import
+            face_mesh = import_mediapipe().solutions.face_mesh
 
             return face_mesh.FaceMesh(static_image_mode=False, max_num_faces=faces, refine_landmarks=True,
                                       min_detection_confidence=self._conf[0],

@@ -253,10 +253,9 @@ class FrameLandmarker:
     def __call__(self, image: np.ndarray):
         """``(478, 2)`` landmarks in px of the largest face, or None."""
         if self._mesh is None:
-            from ._env import quiet_native_logs
+            from ._env import import_mediapipe
 
-            quiet_native_logs()
-            import mediapipe as mp  # noqa: PLC0415 - heavy, only when needed
+            mp = import_mediapipe()  # heavy, only when needed
 
             self._mesh = mp.solutions.face_mesh.FaceMesh(static_image_mode=True, refine_landmarks=True,
                                                          max_num_faces=self._max_faces)

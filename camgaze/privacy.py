@@ -57,10 +57,9 @@ def find_face_boxes(image: np.ndarray, *, min_confidence: float = 0.3, margin: f
     full range, up to about 5 m) so that small faces of bystanders are found
     too. The model files ship inside the mediapipe wheel.
     """
-    from ._env import native_stderr_silenced, quiet_native_logs
+    from ._env import import_mediapipe, native_stderr_silenced
 
-    quiet_native_logs()
-    import mediapipe as mp  # noqa: PLC0415 - heavy, only when a picture is written
+    mp = import_mediapipe()  # heavy, only when a picture is written
 
     img = np.ascontiguousarray(np.asarray(image)[..., :3], dtype=np.uint8)
     H, W = img.shape[:2]

@@ -110,10 +110,9 @@ def landmark_image(image: np.ndarray, *, max_faces: int = 1) -> list[np.ndarray]
         One (478, 3) array per face found, in pixels (``x = x_norm * width``,
         ``y = y_norm * height``, ``z = z_norm * width``).
     """
-    from ._env import quiet_native_logs
+    from ._env import import_mediapipe
 
-    quiet_native_logs()
-    import mediapipe as mp
+    mp = import_mediapipe()
 
     h, w = image.shape[:2]
     with mp.solutions.face_mesh.FaceMesh(static_image_mode=True, refine_landmarks=True,

@@ -31,6 +31,22 @@ def test_opencv_only_through_the_central_import():
     assert not bad, "import OpenCV via camgaze._env.import_cv2():\n" + "\n".join(bad)
 
 
+def test_mediapipe_only_through_the_central_import():
+    bad = [f"{p.relative_to(LIB.parent)}:{ln}" for p in LIB.rglob("*.py") if p.name != "_env.py"
+           for m, ln in _imports(p) if m.split(".")[0] == "mediapipe"]
+    assert not bad, "import mediapipe via camgaze._env.import_mediapipe() (it imports OpenCV):\n" + "\n".join(bad)
+
+
+def test_building_a_face_tracker_keeps_qt_plugin_path_clean():
+    """mediapipe imports OpenCV itself: the tracker must not let that set the Qt plugin path (a fresh
+    interpreter, so nothing else has imported OpenCV first)."""
+    code = ("import os; from camgaze.landmarks import FaceTracker; FaceTracker(max_faces=2).close();"
+            "print('cv2' in os.environ.get('QT_QPA_PLATFORM_PLUGIN_PATH', ''))")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=300)
+    assert r.returncode == 0, r.stderr
+    assert r.stdout.split()[-1] == "False"
+
+
 def test_importing_the_pipeline_loads_no_qt_and_keeps_qt_plugin_path_clean():
     code = ("import os, sys; import camgaze.pipeline, camgaze.analysis, camgaze.validate, camgaze.batch;"
             "from camgaze._env import import_cv2; import_cv2();"
