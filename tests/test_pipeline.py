@@ -4,6 +4,7 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -122,6 +123,37 @@ def test_cli_reports_bad_clip_and_finishes_the_others(clip, tmp_path):
     assert "frames" in r.stdout and "face found" in r.stdout
 
 
+def test_cli_outdir_that_is_a_file_is_refused_before_any_work(clip, tmp_path, capsys):
+    from camgaze.cli import main
+
+    not_a_dir = tmp_path / "results.txt"
+    not_a_dir.write_text("notes of the pilot")
+    assert main(["process", str(clip), "-o", str(not_a_dir), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "results.txt" in err and "is a file, not a folder" in err and "Traceback" not in err
+    assert not_a_dir.read_text() == "notes of the pilot"
+
+
+def test_cli_clip_whose_output_cannot_be_written_fails_alone(clip, tmp_path, capsys):
+    """One clip's output folder cannot be created (a file is in the way): that clip gets a one-line error
+    naming it, the next clip still finishes, the exit code says a clip failed."""
+    import shutil
+
+    from camgaze.cli import main
+
+    other = tmp_path / "p09_s02.mp4"
+    shutil.copy(clip, other)
+    out = tmp_path / "cli"
+    out.mkdir()
+    (out / "p09_s02").write_text("in the way")
+    assert main(["process", str(other), str(clip), "-o", str(out), "--quiet"]) == 1
+    cap = capsys.readouterr()
+    assert "p09_s02.mp4" in cap.err and "could not write its outputs" in cap.err and "Traceback" not in cap.err
+    assert "1 of 2 clip(s) failed" in cap.err
+    assert (out / clip.stem / "run.json").exists()
+    assert (out / "p09_s02").read_text() == "in the way"
+
+
 def test_bad_parameters_are_refused():
     from camgaze.errors import ParameterError
 
@@ -208,3 +240,30 @@ def test_frames_with_only_a_bystander_are_invalid_and_reported(tmp_path):
     after = s.iloc[50:]
     assert after["face_found"].mean() > 0.9
     assert abs(np.nanmedian(after["distance_mm"]) - np.nanmedian(s.iloc[:30]["distance_mm"])) < 60
+
+
+def test_cli_unexpected_fault_in_one_clip_does_not_stop_the_others(clip, tmp_path, capsys, monkeypatch):
+    """A fault inside camgaze (here: the geometry process dying, simulated) ends that clip with one line that
+    names it and the fault; the other clips are still processed."""
+    import shutil
+
+    import camgaze.pipeline as pipeline
+    from camgaze.cli import main
+
+    real = pipeline.process_clip
+
+    def flaky(path, *a, **k):
+        if Path(path).stem == "p09_s03":
+            raise RuntimeError("the geometry process stopped unexpectedly (exit code -9)")
+        return real(path, *a, **k)
+
+    monkeypatch.setattr(pipeline, "process_clip", flaky)
+    other = tmp_path / "p09_s03.mp4"
+    shutil.copy(clip, other)
+    out = tmp_path / "cli"
+    assert main(["process", str(other), str(clip), "-o", str(out), "--quiet"]) == 1
+    err = capsys.readouterr().err
+    line = [ln for ln in err.splitlines() if "p09_s03.mp4" in ln]
+    assert len(line) == 1 and "RuntimeError" in line[0] and "geometry process stopped" in line[0]
+    assert "Traceback" not in err
+    assert (out / clip.stem / "run.json").exists() and not (out / "p09_s03" / "run.json").exists()

@@ -6,7 +6,8 @@ handler ``func(args) -> int``. Module tops stay light (heavy imports inside
 the handler) so ``camgaze --help`` is fast.
 
 Bad input raises :class:`camgaze.errors.CamgazeInputError`; :func:`main`
-prints it as one line prefixed ``camgaze: error:`` and exits 2.
+prints it as one line prefixed ``camgaze: error:`` and exits 2. ``camgaze process``
+reports each clip that fails on one line, finishes the others and exits 1.
 """
 from __future__ import annotations
 

@@ -122,12 +122,20 @@ def _parse_value(v: str, like, name: str, option: str):
 def run(args) -> int:
     from ..progress_bar import ProgressBar
 
-    from ..errors import CamgazeInputError
+    from ..errors import CamgazeInputError, Cancelled
     from ..pipeline import ProcessParams, clip_output_dir, process_clip
 
     params = ProcessParams(fov_deg=args.fov_deg, face=args.face, max_faces=args.max_faces,
                            gaze=gaze_params_from_args(args), analysis=analysis_params_from_args(args))
     out_root = Path(args.out)
+    if out_root.exists() and not out_root.is_dir():
+        raise CamgazeInputError(f"{out_root}: OUTDIR is a file, not a folder; give a folder to write the "
+                                "clips' outputs into (it is created if missing)")
+    try:
+        out_root.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise CamgazeInputError(f"{out_root}: cannot create OUTDIR ({exc.strerror or exc}); "
+                                "choose a folder you can write to") from None
     failures = 0
     stems: dict[str, Path] = {}
     for clip in args.clips:
@@ -152,6 +160,24 @@ def run(args) -> int:
         except CamgazeInputError as exc:
             bar.close()
             print(f"camgaze: error: {exc}", file=sys.stderr)
+            failures += 1
+            continue
+        except (Cancelled, KeyboardInterrupt):
+            bar.close()
+            raise
+        except OSError as exc:  # writing the outputs: disk full, permissions, a path that became a file
+            bar.close()
+            where = exc.filename or clip_output_dir(out_root, clip)
+            print(f"camgaze: error: {clip}: could not write its outputs ({where}: {exc.strerror or exc}); "
+                  "the clip's folder has no run.json until it is processed completely, so nothing there passes "
+                  "for a finished result - free space or fix the folder, then run again", file=sys.stderr)
+            failures += 1
+            continue
+        except Exception as exc:  # noqa: BLE001 - one clip's failure must not stop the others
+            bar.close()
+            print(f"camgaze: error: {clip}: processing failed ({type(exc).__name__}: {exc}); this is a "
+                  "fault in camgaze, not in the clip as far as it can tell - please report it with the "
+                  "clip's run.json if there is one; the other clips go on", file=sys.stderr)
             failures += 1
             continue
         bar.close()
