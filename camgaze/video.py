@@ -143,13 +143,27 @@ def probe(path) -> VideoInfo:
         n = int(st.frames or 0)
         if not n and np.isfinite(dur) and np.isfinite(fps):
             n = int(round(dur * fps))
-        rot = 0
+        rot = _first_frame_rotation_deg(container, st)
         return VideoInfo(
             path=str(path), width_px=int(cc.width or 0), height_px=int(cc.height or 0), rotation_deg=rot,
             nominal_fps=fps, duration_s=dur, frame_count_hint=n, codec=str(cc.name), container=str(container.format.name),
         )
     finally:
         container.close()
+
+
+def _first_frame_rotation_deg(container, stream) -> int:
+    """The rotation metadata (0, 90, 180 or 270 deg counter-clockwise) as the first decoded frame carries it.
+
+    PyAV exposes the display matrix on frames, not on streams, so one frame is decoded (a few ms). A clip
+    whose first frame does not decode reports 0 here; decoding it properly reports the problem.
+    """
+    try:
+        for fr in container.decode(stream):
+            return 90 * _rotation_k(fr)
+    except (av.error.FFmpegError, ValueError, OSError):
+        pass
+    return 0
 
 
 def _rotation_k(frame) -> int:

@@ -69,6 +69,21 @@ def test_rotation_metadata_is_honoured(tmp_path):
     img = fr.image[..., 0].astype(float)
     q = {"tl": img[:40, :30].mean(), "bl": img[-40:, :30].mean(), "tr": img[:40, -30:].mean(), "br": img[-40:, -30:].mean()}
     assert max(q, key=q.get) == "bl"
+    # the probe (and so run.json) reports the same rotation and the upright size the frames have
+    info = probe(clip)
+    assert info.rotation_deg == 90
+    assert info.display_size_px == (fr.image.shape[1], fr.image.shape[0]) == (120, 160)
+
+
+@pytest.mark.parametrize("tag, expected", [(180, 180), (-90, 270), (270, 270)])
+def test_probe_rotation_in_quarter_turns(tmp_path, tag, expected):
+    """FFmpeg's display-matrix angle, counter-clockwise, as 0/90/180/270 (PyAV reports -90 for 270)."""
+    clip = tmp_path / f"rot{tag}.mp4"
+    _write(clip, np.arange(3) / 30.0, rotation=tag)
+    info = probe(clip)
+    fr = next(iter(iter_frames(clip)))
+    assert info.rotation_deg == expected
+    assert info.display_size_px == (fr.image.shape[1], fr.image.shape[0])
 
 
 def test_probe_reports_stream(tmp_path):

@@ -18,7 +18,8 @@ def register(sub) -> None:
     p.add_argument("clips", nargs="+", metavar="CLIP", help="video files (mp4, mov, avi, mkv, webm)")
     p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
     p.add_argument("--fov-deg", type=float, default=60.0,
-                   help="assumed horizontal field of view of the webcam in degrees (default 60)")
+                   help="assumed horizontal field of view of the webcam in degrees, across the upright picture's width "
+                        "(for a clip tagged to play rotated, the width as played; default 60)")
     p.add_argument("--face", default="largest",
                    help='which face to follow when several are in view: "largest" (default) or "index:N" '
                         "(N-th face from the picture's left edge, from 0)")
