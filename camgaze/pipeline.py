@@ -49,6 +49,9 @@ from .video import DecodeReport, FramePrefetcher, probe
 
 ProgressFn = Callable[[float, str], None]
 
+#: below either, a clip is reported not usable: a few frames hold no fixation to measure (common practice)
+MIN_USABLE_FRAMES = 10
+MIN_USABLE_DURATION_S = 0.5
 #: raised whenever the samples table a clip gives changes for the same parameters, so cached samples of an
 #: earlier method are rebuilt, not reused (2: a face far from the followed one is no longer taken for it)
 EXTRACTION_REVISION = 2
@@ -275,6 +278,11 @@ def software_versions() -> dict:
 def _verdict(summary: dict) -> tuple[bool, str]:
     ff, vf, noise = summary["face_found_frac"], summary["valid_frac"], summary.get("noise_rms_s2s_deg")
     reasons = []
+    n, dur = int(summary.get("frames") or 0), float(summary.get("duration_s") or 0.0)
+    if n < MIN_USABLE_FRAMES or dur < MIN_USABLE_DURATION_S:
+        reasons.append(f"the clip is too short to measure ({n} frame(s) over {dur:.2f} s; fixations and noise need "
+                       f"at least {MIN_USABLE_FRAMES} frames over {MIN_USABLE_DURATION_S:g} s) - it may be a still "
+                       "picture or a cut-off recording")
     if ff < 0.8:
         reasons.append(f"the face was tracked in only {ff:.0%} of frames (the student may have left the picture or the room is too dark)")
     if vf < 0.6:
@@ -283,8 +291,9 @@ def _verdict(summary: dict) -> tuple[bool, str]:
         reasons.append(f"the gaze signal is very noisy ({noise:.1f} deg sample to sample)")
     if reasons:
         return False, "Not usable: " + "; ".join(reasons) + "."
-    return True, (f"Usable: face tracked in {ff:.0%} of frames, {vf:.0%} usable gaze, "
-                  f"noise {noise:.2f} deg sample to sample.")
+    noise_text = (f"noise {noise:.2f} deg sample to sample" if noise is not None and np.isfinite(noise)
+                  else "noise not measurable (too few consecutive valid samples)")
+    return True, f"Usable: face tracked in {ff:.0%} of frames, {vf:.0%} usable gaze, {noise_text}."
 
 
 def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:

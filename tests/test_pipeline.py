@@ -267,3 +267,29 @@ def test_cli_unexpected_fault_in_one_clip_does_not_stop_the_others(clip, tmp_pat
     assert len(line) == 1 and "RuntimeError" in line[0] and "geometry process stopped" in line[0]
     assert "Traceback" not in err
     assert (out / clip.stem / "run.json").exists() and not (out / "p09_s03" / "run.json").exists()
+
+
+def test_a_clip_too_short_to_measure_is_not_usable(tmp_path):
+    """A few frames (a still picture saved as video, a recording cut off at once) give a face but nothing to
+    measure: the verdict says so instead of 'Usable ... noise nan'; the CLI prints n/a and warnings on one line."""
+    import subprocess as sp
+
+    from camgaze.render import render_clip
+    from camgaze.render_trajectory import synth_trajectory
+
+    clip = render_clip(tmp_path / "p11_s01.mp4", synth_trajectory(duration_s=0.2, seed=2), size_px=(320, 240),
+                       fps=30.0, seed=2).path
+    res = process_clip(clip, tmp_path / "out" / "p11_s01")
+    assert res.samples["face_found"].any()
+    assert res.summary["usable"] is False
+    assert res.summary["verdict"].startswith("Not usable: the clip is too short to measure (6 frame(s)")
+    # one frame: no noise figure at all
+    one = render_clip(tmp_path / "p11_s02.mp4", synth_trajectory(duration_s=1 / 30, seed=2), size_px=(320, 240),
+                      fps=30.0, seed=2).path
+    r = sp.run([sys.executable, "-m", "camgaze", "process", str(one), "-o", str(tmp_path / "cli"), "--quiet"],
+               capture_output=True, text=True, timeout=300)
+    assert r.returncode == 0, r.stderr
+    assert "p11_s02.mp4: 1 frame (" in r.stdout and "noise n/a" in r.stdout and "nan" not in r.stdout
+    assert "Not usable: the clip is too short" in r.stdout
+    warn = [ln for ln in r.stderr.splitlines() if "camgaze: warning:" in ln]
+    assert warn and not any("features = compute_features" in ln for ln in r.stderr.splitlines())

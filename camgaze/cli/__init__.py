@@ -41,12 +41,21 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+def _one_line_warning(message, category, filename, lineno, line=None) -> str:
+    """Warnings as one line that says what is wrong, without the source line they came from."""
+    return f"camgaze: warning: {message}\n"
+
+
 def main(argv: list[str] | None = None) -> int:
+    import warnings
+
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()
         return 2
+    previous_format = warnings.formatwarning
+    warnings.formatwarning = _one_line_warning
     try:
         return int(args.func(args) or 0)
     except Cancelled:
@@ -61,6 +70,8 @@ def main(argv: list[str] | None = None) -> int:
     except CamgazeError as exc:
         print(f"camgaze: error: {exc}", file=sys.stderr)
         return 1
+    finally:
+        warnings.formatwarning = previous_format
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -120,6 +120,15 @@ def _parse_value(v: str, like, name: str, option: str):
     return v
 
 
+def _num(x, fmt: str, unit: str) -> str:
+    """A figure with its unit for the summary line, or "n/a" where it could not be measured."""
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return "n/a"
+    return f"{format(x, fmt)} {unit}" if x == x and abs(x) != float("inf") else "n/a"
+
+
 def run(args) -> int:
     from ..progress_bar import ProgressBar
 
@@ -183,9 +192,9 @@ def run(args) -> int:
             continue
         bar.close()
         s = res.summary
-        print(f"{clip.name}: {s['frames']} frames ({s['duration_s']:.1f} s), face found {s['face_found_frac']:.0%}, "
+        print(f"{clip.name}: {s['frames']} frame{'' if s['frames'] == 1 else 's'} ({s['duration_s']:.1f} s), face found {s['face_found_frac']:.0%}, "
               f"{s['blink_count']} blinks, {s['fixation_count']} fixations, median distance "
-              f"{s['median_distance_mm']:.0f} mm, noise {s['noise_rms_s2s_deg']:.2f} deg -> {res.out_dir}")
+              f"{_num(s['median_distance_mm'], '.0f', 'mm')}, noise {_num(s['noise_rms_s2s_deg'], '.2f', 'deg')} -> {res.out_dir}")
         print(f"  {s['verdict']}")
     if failures:
         print(f"camgaze: {failures} of {len(args.clips)} clip(s) failed", file=sys.stderr)
