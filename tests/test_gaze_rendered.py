@@ -26,7 +26,7 @@ def _trajectory(duration_s=6.0, rate=240.0, head=False):
     df = pd.DataFrame({
         "t_s": t,
         "yaw_deg": 15 * np.sin(2 * np.pi * t / 3.0),
-        "pitch_deg": 12 * np.sin(2 * np.pi * t / 2.2 + 0.5),
+        "pitch_deg": 15 * np.sin(2 * np.pi * t / 2.2 + 0.5),
         "blink": False, "lid_closure": 0.0,
         "head_yaw_deg": 15 * np.sin(2 * np.pi * t / 5.0 + 1.0) if head else 0.0,
         "head_pitch_deg": 5 * np.sin(2 * np.pi * t / 4.0) if head else 0.0,
@@ -76,7 +76,8 @@ def test_recovered_yaw_follows_truth_with_still_head(rendered):
     assert s["valid"].mean() > 0.95
     r, gain = _fit(s["yaw_deg"].to_numpy(), truth["yaw_deg"].to_numpy())
     assert r >= 0.95, f"yaw: r={r:.3f}"  # issue 2 floor
-    # issue 2 floor 0.8-1.25; measured 0.95 (r 0.998) since the head translation is refitted to skin points
+    # issue 2 floor 0.8-1.25; measured 0.99 (r 0.998; 0.95 on the earlier +-12 deg pitch trajectory) since
+    # the head translation is refitted to skin points
     # followed on the picture (camgaze.eye_anchors); 0.90 before, when the eyeball centres followed horizontal
     # eye movement by 4-10 % with the face mesh. What is left: the mesh's iris diameter reads 3-5 % large
     # (DEVELOPERS.md, known limits)
@@ -86,9 +87,11 @@ def test_recovered_yaw_follows_truth_with_still_head(rendered):
 def test_recovered_pitch_follows_truth_with_still_head(rendered):
     s, truth = rendered["still_head"]
     r, gain = _fit(s["pitch_deg"].to_numpy(), truth["pitch_deg"].to_numpy())
-    # Issue 2 floors: r >= 0.95, gain 0.8-1.25. Measured r 0.984, gain 0.96 (astronaut face on the same
-    # trajectory: 0.994, 1.00) since the head translation is refitted to skin points below the eyes followed
-    # on the picture (camgaze.eye_anchors); r 0.971, gain 0.92 (astronaut 0.984, 1.00) before that, with the
+    # Issue 2 floors over +-15 deg: r >= 0.95, gain 0.8-1.25. Measured over +-15 deg: r 0.982, gain 0.93
+    # (astronaut face on the same trajectory: 0.994, 1.00). Over +-12 deg (the trajectory until the fifth
+    # session): r 0.984, gain 0.96 (astronaut 0.994, 1.00) since the head translation is refitted to skin
+    # points below the eyes followed on the picture (camgaze.eye_anchors); r 0.971, gain 0.92 (astronaut
+    # 0.984, 1.00) before that, with the
     # limbus fit's one-sided weights (camgaze.limbus); r 0.935, gain 0.79 before those. What is left: the
     # subject's left eye on this face shows only short limbus arcs near the horizontal, which fix the
     # centre's height weakly (DEVELOPERS.md, known limits).
@@ -109,8 +112,9 @@ def test_signs_follow_the_documented_frame(rendered):
 
 def test_distance_from_iris_scale(rendered):
     s, truth = rendered["still_head"]
-    # the iris scale (11.7 mm, Ruefer et al. 2005 - from memory) must put the eyes near the rendered 600 mm
-    assert s["distance_mm"].median() == pytest.approx(truth["distance_mm"].median(), rel=0.15)
+    # the iris scale (11.7 mm, Ruefer et al. 2005 - from memory) must put the eyes near the rendered 600 mm;
+    # measured -3.1 % (still head), -0.8 to -1.4 % on the other three clips of this trajectory
+    assert s["distance_mm"].median() == pytest.approx(truth["distance_mm"].median(), rel=0.06)
 
 
 @pytest.mark.parametrize("clip, min_gain", [("moving_head", 0.88), ("moving_head_astronaut", 0.85)])
@@ -135,7 +139,8 @@ def test_head_compensated_gaze_with_moving_head(rendered, clip):
     # refitted to skin points below the eyes followed on the picture (camgaze.eye_anchors); 0.91 and 0.98
     # with the translation from PnP on the face mesh's landmarks
     assert r_yaw >= 0.95, f"gaze yaw r {r_yaw:.3f}"
-    # issue 2 floor: median error < 3 deg. Measured 1.7 deg (hopper face) and 1.7 deg (astronaut), seed 3;
+    # issue 2 floor: median error < 3 deg. Measured with gaze over +-15 deg yaw and pitch: 2.0 deg (hopper
+    # face) and 1.3 (astronaut), seed 3. With pitch over +-12 deg: 1.7 deg and 1.7 deg, seed 3;
     # seed 5: 1.7 and 1.5 - with the head translation refitted, the PnP rotation held, to six skin points
     # below the eyes that are followed on the picture by template matching (camgaze.eye_anchors). With the
     # translation from PnP on the face mesh's landmarks: 5.9 and 3.1 (seed 5: 6.6 and 3.2), because the mesh
@@ -171,8 +176,8 @@ def test_gaze_meets_the_floor_with_the_true_head_pose(rendered, clip):
     t_true = truth[["head_x_mm", "head_y_mm", "head_z_mm"]].to_numpy() / info["model_scale"]
     cols_true, _ = estimate_gaze(**(kw | {"R": R_true @ R0, "t": t_true}))
     with_true_pose = _median_error(cols_true["yaw_deg"], cols_true["pitch_deg"], truth, cols_true["valid"])
-    # issue 2 floor: median error < 3 deg. Measured 1.5 deg (hopper face) and 0.8 (astronaut) with the
-    # true head pose (2.2 and 1.8 before the limbus fit's one-sided weights), against 1.7 and 1.7 with the
+    # issue 2 floor: median error < 3 deg. Measured on the earlier +-12 deg pitch trajectory: 1.5 deg (hopper
+    # face) and 0.8 (astronaut) with the true head pose (2.2 and 1.8 before the limbus fit's one-sided weights), against 1.7 and 1.7 with the
     # PnP rotation and the translation refitted to the eye anchors (camgaze.eye_anchors), and 5.9 and 3.1
     # with the whole pose from PnP on the face mesh's landmarks
     assert with_true_pose < 3.0, f"{with_true_pose:.2f} deg with the true head pose"
