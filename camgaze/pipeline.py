@@ -318,6 +318,10 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         s["verdict"] += f" Note: the file is damaged - {dp['stopped_early']}; only the part before that was analysed."
     elif dp.get("corrupt_packets"):
         s["verdict"] += f" Note: {dp['corrupt_packets']} damaged packet(s) in the file were skipped."
+    bad_times = int(dp.get("pts_missing") or 0) + int(dp.get("pts_non_increasing") or 0)
+    if bad_times:
+        s["verdict"] += (f" Note: {bad_times} frame(s) had a missing or out-of-order timestamp; they were placed "
+                         "just after the frame before (run.json, decode), so intervals there are not measured ones.")
     ft = meta.get("face_tracking") or {}
     others, again = int(ft.get("other_faces_only_frames") or 0), list(ft.get("reacquired_at_frames") or [])
     if s["multi_face_frac"] > 0.05 or others or again:
@@ -482,6 +486,7 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         "camgaze": __version__,
         "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         "clip": str(clip),
+        "clip_resolved": str(clip.resolve()),
         "clip_name": clip.name,
         "input_sha256": input_sha,
         "input_bytes": clip.stat().st_size,
@@ -504,6 +509,11 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
 
         written = write_analysis(analysis, out_dir, meta=run)
         outputs = dict(prev.get("outputs") or {})
+        csv = out_dir / "samples.csv"
+        want = (outputs.get("samples.csv") or {}).get("sha256")
+        if not csv.exists() or (want and sha256_file(csv) != want):  # deleted or edited: write it again
+            write_csv(csv, samples)
+            written = dict(written) | {"samples_csv": csv}
         for p in written.values():
             fp = Path(p)
             outputs[fp.name] = {"sha256": sha256_file(fp), "bytes": fp.stat().st_size}
@@ -535,6 +545,7 @@ def reanalyse(out_dir, analysis_params, *, segments=None, write: bool = True):
         run["params"] = params
         run["params_sha256"] = sha256_json(params)
         run["analysis_quality"] = result.quality
+        run["quality"] = summarise(samples, result, run.get("extraction") or {})  # counts and verdict follow
         _withdraw_run_json(out_dir)
         written = write_analysis(result, out_dir, meta=run)
         outputs = dict(run.get("outputs") or {})

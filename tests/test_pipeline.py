@@ -82,6 +82,15 @@ def test_reuse_skips_landmarking_and_damaged_cache_is_rebuilt(processed, clip):
     rebuilt = process_clip(clip, out)
     assert not rebuilt.reused_samples
     pd.testing.assert_frame_equal(load_samples(out), res.samples)
+    # the CSV export deleted by hand: a reusing run writes it again and run.json vouches for the new file
+    csv = out / "samples.csv"
+    before = csv.read_bytes()
+    csv.unlink()
+    again = process_clip(clip, out)
+    assert again.reused_samples and csv.read_bytes() == before
+    run = json.loads((out / "run.json").read_text())
+    assert run["outputs"]["samples.csv"]["sha256"] == sha256_file(csv)
+    assert run["clip_resolved"] == str(clip.resolve())
 
 
 def test_reanalyse_changes_results_without_landmarking(processed):
@@ -97,6 +106,25 @@ def test_reanalyse_changes_results_without_landmarking(processed):
     run = json.loads((out / "run.json").read_text())
     assert run["params"]["analysis"]["window_s"] == 1.0
     assert sha256_file(out / "features.csv") == run["outputs"]["features.csv"]["sha256"]
+    # the quality summary follows the new events (it was left from the first run)
+    assert run["quality"]["fixation_count"] == int((new.events["type"] == "fixation").sum())
+    d["min_fixation_ms"] = 200.0  # fewer fixations survive
+    fewer = reanalyse(out, AnalysisParams.from_dict(d))
+    run = json.loads((out / "run.json").read_text())
+    assert run["quality"]["fixation_count"] == int((fewer.events["type"] == "fixation").sum())
+    assert run["quality"]["fixation_count"] < int((new.events["type"] == "fixation").sum())
+
+
+def test_verdict_notes_repaired_timestamps(processed):
+    """Frames whose timestamps were missing or out of order are placed just after the previous one by the
+    decoder; the verdict says how many, so nobody reads those intervals as measured."""
+    from camgaze.pipeline import summarise
+
+    res, _ = processed
+    s = summarise(res.samples, res.analysis, {"decode": {"frames": 90, "pts_missing": 1, "pts_non_increasing": 2}})
+    assert "3 frame(s) had a missing or out-of-order timestamp" in s["verdict"]
+    clean = summarise(res.samples, res.analysis, {"decode": {"frames": 90, "pts_missing": 0}})
+    assert "timestamp" not in clean["verdict"]
 
 
 def test_clip_without_face(tmp_path):
@@ -123,6 +151,11 @@ def test_cli_reports_bad_clip_and_finishes_the_others(clip, tmp_path):
     assert "inference_feedback_manager" not in r.stderr and "TensorFlow Lite" not in r.stderr
     assert (out / clip.stem / "run.json").exists()
     assert "frames" in r.stdout and "face found" in r.stdout
+    assert "reused" not in r.stdout
+    # a second run says that it reused the gaze samples, and how to redo them
+    r2 = subprocess.run([sys.executable, "-m", "camgaze", "process", str(clip), "-o", str(out), "--quiet"],
+                        capture_output=True, text=True, timeout=600)
+    assert r2.returncode == 0 and "gaze samples reused" in r2.stdout and "--no-reuse" in r2.stdout
 
 
 def test_cli_outdir_that_is_a_file_is_refused_before_any_work(clip, tmp_path, capsys):

@@ -23,7 +23,9 @@ def register(sub) -> None:
     p.add_argument("--face", default="largest",
                    help='which face to follow when several are in view: "largest" (default) or "index:N" '
                         "(N-th face from the picture's left edge, from 0)")
-    p.add_argument("--max-faces", type=int, default=2, help="faces looked for per frame (default 2)")
+    p.add_argument("--max-faces", type=int, default=2,
+                   help="faces looked for per frame (default 2; with three or more people in view raise it, or the "
+                        "face to follow may not be among those reported)")
     p.add_argument("--segments", metavar="CSV", help="task segments (label, onset_s, offset_s) for per-segment features; applied to every clip")
     p.add_argument("--gaze", dest="gaze_settings", action="append", default=[], metavar="NAME=VALUE",
                    help="a gaze-estimate parameter (camgaze.gaze.GazeParams), e.g. --gaze eye_anchors=false "
@@ -196,6 +198,9 @@ def run(args) -> int:
               f"{s['blink_count']} blinks, {s['fixation_count']} fixations, median distance "
               f"{_num(s['median_distance_mm'], '.0f', 'mm')}, noise {_num(s['noise_rms_s2s_deg'], '.2f', 'deg')} -> {res.out_dir}")
         print(f"  {s['verdict']}")
+        if res.reused_samples:
+            print("  (gaze samples reused from the earlier run of this clip with the same settings; "
+                  "--no-reuse landmarks it again)")
     if failures:
         print(f"camgaze: {failures} of {len(args.clips)} clip(s) failed", file=sys.stderr)
         return 1
