@@ -328,3 +328,19 @@ def test_a_clip_too_short_to_measure_is_not_usable(tmp_path):
     assert "Not usable: the clip is too short" in r.stdout
     warn = [ln for ln in r.stderr.splitlines() if "camgaze: warning:" in ln]
     assert warn and not any("features = compute_features" in ln for ln in r.stderr.splitlines())
+
+
+def test_field_of_view_override_scales_distance_by_the_pinhole_model(processed, clip, tmp_path):
+    """--fov-deg sets the focal length f = (width / 2) / tan(fov / 2) (pinhole camera, e.g. Hartley &
+    Zisserman, Multiple View Geometry, ch. 6 - from memory). The iris scale gives distance = f x 11.7 mm /
+    iris diameter in px, so going from 60 to 45 deg must multiply every distance by tan 30 / tan 22.5."""
+    res60, _ = processed
+    res45 = process_clip(clip, tmp_path / "fov45", params=ProcessParams(fov_deg=45.0))
+    ratio = np.nanmedian(res45.samples["distance_mm"]) / np.nanmedian(res60.samples["distance_mm"])
+    assert ratio == pytest.approx(np.tan(np.radians(30.0)) / np.tan(np.radians(22.5)), rel=0.01)
+    run = json.loads((tmp_path / "fov45" / "run.json").read_text())
+    K = np.array(run["extraction"]["camera_matrix"])
+    assert K[0, 0] == pytest.approx(0.5 * 640 / np.tan(np.radians(22.5)))
+    # the gaze angles barely depend on it (the issue: the user may override an assumed value)
+    d = (res45.samples["yaw_deg"] - res60.samples["yaw_deg"]).abs()
+    assert np.nanmedian(d) < 1.0
