@@ -158,6 +158,8 @@ def _first_frame_rotation_deg(container, stream) -> int:
     PyAV exposes the display matrix on frames, not on streams, so one frame is decoded (a few ms). A clip
     whose first frame does not decode reports 0 here; decoding it properly reports the problem.
     """
+    import av
+
     try:
         for fr in container.decode(stream):
             return 90 * _rotation_k(fr)
