@@ -161,13 +161,15 @@ def _write_all(fd: int, data: bytes) -> None:
 def native_log_filter():
     """For the duration, drop the face mesh's routine C++ log lines from the process's stderr.
 
-    File descriptor 2 goes through a pipe to a thread that passes everything
-    on to the original stderr except lines matching :data:`_NATIVE_NOISE`
-    (the libraries' warnings and errors that do not look like their routine
-    start-up lines, Python's own output, progress bars and child processes'
-    stderr all get through, in order). Only where ``sys.stderr`` is the
-    process's real stderr on a POSIX system; elsewhere (Windows, a test's
-    captured stream) nothing changes.
+    File descriptor 2 - where C++ libraries and child processes write - goes
+    through a pipe to a thread that passes everything on to the original
+    stderr except lines matching :data:`_NATIVE_NOISE` (the libraries'
+    warnings and errors that do not look like their routine lines get
+    through). Python's own ``sys.stderr`` (progress bars, warnings, error
+    lines) writes straight to the original stderr meanwhile, so it stays in
+    step with stdout. Only where ``sys.stderr`` is the process's real stderr
+    on a POSIX system; elsewhere (Windows, a test's captured stream) nothing
+    changes.
     """
     try:
         real = os.name == "posix" and _sys.stderr.fileno() == 2
@@ -186,11 +188,20 @@ def native_log_filter():
     worker = threading.Thread(target=_forward_without_noise, args=(read_fd, saved), name="camgaze-stderr-filter",
                               daemon=True)
     worker.start()
+    import io
+
+    python_stderr = _sys.stderr
+    direct = io.TextIOWrapper(io.FileIO(os.dup(saved), "w", closefd=True),
+                              encoding=getattr(python_stderr, "encoding", None) or "utf-8",
+                              errors="backslashreplace", line_buffering=True, write_through=True)
+    _sys.stderr = direct
     try:
         yield
     finally:
+        if _sys.stderr is direct:
+            _sys.stderr = python_stderr
         try:
-            _sys.stderr.flush()
+            direct.close()
         except (OSError, ValueError):
             pass
         _flush_c_streams()
