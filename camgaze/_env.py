@@ -10,7 +10,6 @@ through :func:`import_mediapipe`, so the rest of the program never sees it.
 from __future__ import annotations
 
 import os
-import re
 
 _cv2 = None
 
@@ -90,126 +89,6 @@ def native_stderr_silenced():
         os.dup2(saved, 2)
         os.close(saved)
         os.close(devnull)
-
-
-#: what the face mesh's C++ side prints routinely (absl log lines "W0000 00:00:... file.cc:12] ...", TF-Lite's
-#: "INFO: Created TensorFlow Lite ..." and absl's note on its own start-up): nothing a user can act on
-_NOISE_LITERALS = (b"INFO: Created TensorFlow Lite", b"INFO: Initialized TensorFlow Lite",
-                   b"WARNING: All log messages before absl::InitializeLog")
-_ABSL_HEADER = rb"[IW]\d{4} \d\d:\d\d:\d+\.\d+ +\d+ [\w./-]+:\d+\] "
-_NATIVE_NOISE = re.compile(b"(?:" + _ABSL_HEADER + b"|" + b"|".join(re.escape(x) for x in _NOISE_LITERALS) + b")")
-_ABSL_HEADER_SO_FAR = re.compile(rb"[IW](?:\d{0,4}|\d{4} [\w:. /-]*)\Z")
-
-
-def _may_become_noise(tail: bytes) -> bool:
-    """Whether unfinished text could still turn into a routine line (so it is held until its line ends)."""
-    if _ABSL_HEADER_SO_FAR.match(tail) or _NATIVE_NOISE.match(tail):
-        return True
-    return any(lit.startswith(tail) for lit in _NOISE_LITERALS)
-
-
-def _filtered(piece: bytes) -> bytes:
-    """A finished piece of text without the routine line in it (which may follow a progress bar's text)."""
-    noise = _NATIVE_NOISE.search(piece)
-    return piece if noise is None else piece[:noise.start()]
-
-
-def _forward_without_noise(read_fd: int, out_fd: int) -> None:
-    """Copy ``read_fd`` to ``out_fd`` until end of file, dropping the lines :data:`_NATIVE_NOISE` matches.
-
-    Text is cut into pieces ending in a newline or a carriage return (progress bars redraw with ``\\r``
-    and no newline); each finished piece is passed on without its routine line. Unfinished text is passed
-    on at once, except from where it could still become a routine line.
-    """
-    buf = b""
-    while True:
-        try:
-            chunk = os.read(read_fd, 65536)
-        except OSError:
-            chunk = b""
-        if not chunk:
-            if buf:
-                _write_all(out_fd, _filtered(buf))
-            return
-        buf += chunk
-        out = []
-        start = 0
-        for m in re.finditer(rb"[\r\n]", buf):
-            out.append(_filtered(buf[start:m.end()]))
-            start = m.end()
-        buf = buf[start:]
-        if buf:
-            hold = next((m.start() for m in re.finditer(rb"[IW]", buf) if _may_become_noise(buf[m.start():])),
-                        len(buf))
-            out.append(buf[:hold])
-            buf = buf[hold:]
-        data = b"".join(out)
-        if data:
-            _write_all(out_fd, data)
-
-
-def _write_all(fd: int, data: bytes) -> None:
-    while data:
-        try:
-            n = os.write(fd, data)
-        except OSError:
-            return
-        data = data[n:]
-
-
-@_contextlib.contextmanager
-def native_log_filter():
-    """For the duration, drop the face mesh's routine C++ log lines from the process's stderr.
-
-    File descriptor 2 - where C++ libraries and child processes write - goes
-    through a pipe to a thread that passes everything on to the original
-    stderr except lines matching :data:`_NATIVE_NOISE` (the libraries'
-    warnings and errors that do not look like their routine lines get
-    through). Python's own ``sys.stderr`` (progress bars, warnings, error
-    lines) writes straight to the original stderr meanwhile, so it stays in
-    step with stdout. Only where ``sys.stderr`` is the process's real stderr
-    on a POSIX system; elsewhere (Windows, a test's captured stream) nothing
-    changes.
-    """
-    try:
-        real = os.name == "posix" and _sys.stderr.fileno() == 2
-    except (AttributeError, OSError, ValueError):
-        real = False
-    if not real:
-        yield
-        return
-    import threading
-
-    _sys.stderr.flush()
-    saved = os.dup(2)
-    read_fd, write_fd = os.pipe()
-    os.dup2(write_fd, 2)
-    os.close(write_fd)
-    worker = threading.Thread(target=_forward_without_noise, args=(read_fd, saved), name="camgaze-stderr-filter",
-                              daemon=True)
-    worker.start()
-    import io
-
-    python_stderr = _sys.stderr
-    direct = io.TextIOWrapper(io.FileIO(os.dup(saved), "w", closefd=True),
-                              encoding=getattr(python_stderr, "encoding", None) or "utf-8",
-                              errors="backslashreplace", line_buffering=True, write_through=True)
-    _sys.stderr = direct
-    try:
-        yield
-    finally:
-        if _sys.stderr is direct:
-            _sys.stderr = python_stderr
-        try:
-            direct.close()
-        except (OSError, ValueError):
-            pass
-        _flush_c_streams()
-        os.dup2(saved, 2)  # closes this process's write end of the pipe
-        worker.join(timeout=2.0)  # a child still holding the write end would keep it open: do not wait for it
-        if not worker.is_alive():
-            os.close(read_fd)
-            os.close(saved)
 
 
 def lower_process_priority(pid: int, by: int) -> bool:

@@ -121,6 +121,20 @@ def landmarks_array_slow(face_landmarks) -> np.ndarray:
     return np.array([(p.x, p.y, p.z) for p in face_landmarks.landmark], dtype=np.float64).reshape(-1, 3)
 
 
+def _warm_up(solution) -> None:
+    """Run a new graph once on a blank picture, inside the caller's silenced stderr.
+
+    The graphs' models print their start-up lines (TF-Lite's delegate note,
+    absl's warnings) from the graph's own threads while the first picture is
+    processed; run here, they land in the silenced stretch instead of on the
+    user's terminal a moment later (measured: with another Python thread busy,
+    they used to slip out between building the graph and its first frame). A
+    blank picture holds no face, so the tracking state is as after a frame
+    without a face.
+    """
+    solution.process(np.zeros((64, 64, 3), dtype=np.uint8))
+
+
 class FaceTracker:
     """Follows one face through a clip with the MediaPipe face mesh.
 
@@ -186,6 +200,7 @@ class FaceTracker:
 
                 self._detector = face_detection.FaceDetection(min_detection_confidence=self._conf[0],
                                                               model_selection=0)
+                _warm_up(self._detector)
         self.multi_face_from_frame: int | None = None
         self._frame = 0
         self._since_check = self.check_every  # check on the first frame
@@ -199,9 +214,11 @@ class FaceTracker:
         with _MP_LOCK, native_stderr_silenced():
             face_mesh = import_mediapipe().solutions.face_mesh
 
-            return face_mesh.FaceMesh(static_image_mode=False, max_num_faces=faces, refine_landmarks=True,
+            mesh = face_mesh.FaceMesh(static_image_mode=False, max_num_faces=faces, refine_landmarks=True,
                                       min_detection_confidence=self._conf[0],
                                       min_tracking_confidence=self._conf[1])
+            _warm_up(mesh)
+            return mesh
 
     @property
     def multi_face_mode(self) -> bool:

@@ -110,13 +110,13 @@ def landmark_image(image: np.ndarray, *, max_faces: int = 1) -> list[np.ndarray]
         One (478, 3) array per face found, in pixels (``x = x_norm * width``,
         ``y = y_norm * height``, ``z = z_norm * width``).
     """
-    from ._env import import_mediapipe
+    from ._env import import_mediapipe, native_stderr_silenced
 
     mp = import_mediapipe()
 
     h, w = image.shape[:2]
-    with mp.solutions.face_mesh.FaceMesh(static_image_mode=True, refine_landmarks=True,
-                                         max_num_faces=max_faces) as fm:
+    with native_stderr_silenced(), mp.solutions.face_mesh.FaceMesh(  # start-up lines mean nothing to a user
+            static_image_mode=True, refine_landmarks=True, max_num_faces=max_faces) as fm:
         res = fm.process(np.ascontiguousarray(image))
     out = []
     for face in res.multi_face_landmarks or []:

@@ -54,13 +54,10 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(args, "func", None):
         parser.print_help()
         return 2
-    from .._env import native_log_filter
-
     previous_format = warnings.formatwarning
     warnings.formatwarning = _one_line_warning
     try:
-        with native_log_filter():
-            return int(args.func(args) or 0)
+        return int(args.func(args) or 0)
     except Cancelled:
         print("camgaze: cancelled; finished outputs are kept", file=sys.stderr)
         return 130
