@@ -24,8 +24,9 @@ When is a clip done
 Only the files decide, never the log: a clip is done when its folder holds a
 ``run.json`` (the pipeline writes it last, after every other output was
 renamed into place) whose ``input_sha256`` equals the clip's current SHA-256
-and whose ``params_sha256`` equals :func:`camgaze.atomic.sha256_json` of the
-current :class:`~camgaze.pipeline.ProcessParams` (``to_dict()``), and whose
+and whose ``params_sha256`` equals the current
+:meth:`~camgaze.pipeline.ProcessParams.fingerprint` (every parameter and the
+method's revision, so results of an earlier method are redone), and whose
 listed outputs are all present. Such a clip is *skipped*. A clip whose file or
 parameters changed is processed again. Every output is written to a temporary
 name and renamed, so a run killed at any moment leaves complete files or none;
@@ -61,7 +62,7 @@ from typing import Any, Callable
 import pandas as pd
 
 from . import __version__
-from .atomic import sha256_file, sha256_json, write_csv, write_json, write_parquet
+from .atomic import sha256_file, write_csv, write_json, write_parquet
 from .errors import CamgazeError, CamgazeInputError, Cancelled
 from .manifest import VIDEO_EXTENSIONS, ClipJob, load_jobs
 
@@ -261,7 +262,7 @@ def clip_is_done(out_dir, *, input_sha256: str, params_sha256: str, segments=Non
     input_sha256 : str
         SHA-256 of the clip file now.
     params_sha256 : str
-        :func:`~camgaze.atomic.sha256_json` of the processing parameters now.
+        :meth:`~camgaze.pipeline.ProcessParams.fingerprint` of the processing parameters now.
     segments : path-like, optional
         The clip's task-segments file now. The results must have been made
         with the same file, and after its last change.
@@ -643,7 +644,9 @@ def _prepare(source, out_dir: Path, *, params, extensions, recursive, label_patt
     jobs = load_jobs(source, extensions=extensions, recursive=recursive, exclude=[out_dir],
                      label_pattern=label_pattern)
     params = params if params is not None else _default_params()
-    params_sha = sha256_json(params.to_dict())
+    from .pipeline import params_fingerprint
+
+    params_sha = params_fingerprint(params.to_dict())
     state = out_dir / STATE_DIR
     index = HashIndex(state / "hash_index.json")
     log = AttemptLog(state / "attempts.jsonl")

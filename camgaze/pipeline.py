@@ -113,6 +113,11 @@ class ProcessParams:
         d["analysis"] = self.analysis.to_dict()
         return d
 
+    def fingerprint(self) -> str:
+        """SHA-256 of every parameter and of the method's revision (:data:`EXTRACTION_REVISION`): what
+        run.json's ``params_sha256`` holds and what decides whether a clip's results are current."""
+        return params_fingerprint(self.to_dict())
+
     @classmethod
     def from_dict(cls, d: dict) -> "ProcessParams":
         from .analysis import AnalysisParams
@@ -121,6 +126,11 @@ class ProcessParams:
         gaze = GazeParams(**d.pop("gaze", {}) or {})
         analysis = AnalysisParams.from_dict(d.pop("analysis", {}) or {})
         return cls(gaze=gaze, analysis=analysis, **d)
+
+
+def params_fingerprint(params_dict: dict) -> str:
+    """:meth:`ProcessParams.fingerprint` of a parameter dict as run.json stores it."""
+    return sha256_json(dict(params_dict) | {"method_revision": EXTRACTION_REVISION})
 
 
 @dataclass
@@ -491,7 +501,7 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         "input_sha256": input_sha,
         "input_bytes": clip.stat().st_size,
         "params": params.to_dict(),
-        "params_sha256": sha256_json(params.to_dict()),
+        "params_sha256": params.fingerprint(),
         "extraction_sha256": extraction_sha,
         "segments": str(segments) if segments is not None and not isinstance(segments, pd.DataFrame) else None,
         "software": software_versions(),
@@ -543,7 +553,7 @@ def reanalyse(out_dir, analysis_params, *, segments=None, write: bool = True):
         params = dict(run.get("params") or {})
         params["analysis"] = analysis_params.to_dict()
         run["params"] = params
-        run["params_sha256"] = sha256_json(params)
+        run["params_sha256"] = params_fingerprint(params)
         run["analysis_quality"] = result.quality
         run["quality"] = summarise(samples, result, run.get("extraction") or {})  # counts and verdict follow
         _withdraw_run_json(out_dir)

@@ -17,10 +17,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.atomic import sha256_file, sha256_json, write_csv, write_json, write_parquet
+from camgaze.atomic import sha256_file, write_csv, write_json, write_parquet
 from camgaze.batch import AttemptLog, HashIndex, clip_is_done, plan_batch, run_batch
 from camgaze.engines import LocalEngine, default_workers
 from camgaze.errors import CamgazeError, CamgazeInputError, Cancelled, NoFaceError, VideoError
+from camgaze.pipeline import params_fingerprint
 
 HERE = Path(__file__).resolve().parent
 
@@ -80,7 +81,7 @@ def standin_process_clip(clip, out_dir, *, params, segments=None, progress=None,
     summary = {"frames": n, "duration_s": float(t[-1]), "valid_frac": 1.0, "usable": True, "verdict": "fine"}
     outputs = {n: {"bytes": (out_dir / n).stat().st_size}
                for n in ("samples.parquet", "events.csv", "features.csv", "features.parquet")}
-    write_json(out_dir / "run.json", {"input_sha256": sha256_file(clip), "params_sha256": sha256_json(params.to_dict()),
+    write_json(out_dir / "run.json", {"input_sha256": sha256_file(clip), "params_sha256": params_fingerprint(params.to_dict()),
                                       "params": params.to_dict(), "quality": summary, "outputs": outputs,
                                       "segments": None if seg_path is None else str(seg_path)})
     return _Result(summary)
@@ -358,3 +359,15 @@ def test_progress_bars_for_study_and_workers(tmp_path, capsys):
     assert "study:" in err and "3/3 clips, 0 failed" in err
     assert "p01" in err or "p02" in err  # a worker bar names the clip it is on
     assert shares == sorted(shares) and shares[-1] == pytest.approx(1.0)  # the study share only grows
+
+
+def test_results_of_an_earlier_method_revision_are_not_current(monkeypatch):
+    """The parameters' fingerprint carries the method's revision: after a change that alters the samples for
+    the same parameters (EXTRACTION_REVISION raised), a batch finds the old results out of date."""
+    import camgaze.pipeline as pipeline
+
+    p = pipeline.ProcessParams()
+    now = p.fingerprint()
+    assert now == params_fingerprint(p.to_dict())
+    monkeypatch.setattr(pipeline, "EXTRACTION_REVISION", pipeline.EXTRACTION_REVISION + 1)
+    assert p.fingerprint() != now
