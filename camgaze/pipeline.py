@@ -468,7 +468,13 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         from .errors import VideoError
 
         raise VideoError("is a folder, not a video file", path=clip, hint="give the clip file inside it")
-    input_sha = sha256_file(clip)
+    try:
+        input_sha = sha256_file(clip)
+    except OSError as exc:
+        from .errors import VideoError
+
+        raise VideoError(f"cannot be read ({exc.strerror or exc})", path=clip,
+                         hint="check the disk or network share it is on, or copy the file again") from None
     seg_df = _segments_frame(segments)
     extraction_sha = sha256_json(params.extraction_dict() | {"method_revision": EXTRACTION_REVISION})
     samples = None

@@ -345,3 +345,23 @@ def test_field_of_view_override_scales_distance_by_the_pinhole_model(processed, 
     # the gaze angles barely depend on it (the issue: the user may override an assumed value)
     d = (res45.samples["yaw_deg"] - res60.samples["yaw_deg"]).abs()
     assert np.nanmedian(d) < 1.0
+
+
+def test_a_clip_that_cannot_be_read_is_an_input_error(tmp_path):
+    """Reading the clip fails with an I/O error (here: a folder's permissions keep it out): the message
+    names the clip and says it cannot be read - not that the outputs could not be written."""
+    import os
+
+    from camgaze.errors import VideoError
+
+    if os.geteuid() == 0:
+        # root reads everything; an unreadable stand-in: a FIFO nobody writes to would hang, so use /proc
+        clip = tmp_path / "p12_s01.mp4"
+        clip.symlink_to("/proc/self/mem")
+    else:
+        clip = tmp_path / "p12_s01.mp4"
+        clip.write_bytes(b"\0" * 64)
+        clip.chmod(0)
+    with pytest.raises(VideoError, match="p12_s01.mp4.*(cannot be read|not a readable video)"):
+        process_clip(clip, tmp_path / "out")
+    assert not (tmp_path / "out" / "run.json").exists()

@@ -177,12 +177,19 @@ def run(args) -> int:
         except (Cancelled, KeyboardInterrupt):
             bar.close()
             raise
-        except OSError as exc:  # writing the outputs: disk full, permissions, a path that became a file
+        except OSError as exc:  # disk full, permissions, a path that became a file, a file that went away
             bar.close()
-            where = exc.filename or clip_output_dir(out_root, clip)
-            print(f"camgaze: error: {clip}: could not write its outputs ({where}: {exc.strerror or exc}); "
-                  "the clip's folder has no run.json until it is processed completely, so nothing there passes "
-                  "for a finished result - free space or fix the folder, then run again", file=sys.stderr)
+            clip_out = clip_output_dir(out_root, clip)
+            where = Path(exc.filename) if exc.filename else None
+            writing = where is not None and clip_out.resolve() in (where.resolve(), *where.resolve().parents)
+            if writing:
+                print(f"camgaze: error: {clip}: could not write its outputs ({where}: "
+                      f"{exc.strerror or exc}); the clip's folder has no run.json until it is processed "
+                      "completely, so nothing there passes for a finished result - free space or fix the folder, "
+                      "then run again", file=sys.stderr)
+            else:
+                print(f"camgaze: error: {clip}: file error ({f'{where}: ' if where else ''}{exc.strerror or exc}); "
+                      "the other clips go on", file=sys.stderr)
             failures += 1
             continue
         except Exception as exc:  # noqa: BLE001 - one clip's failure must not stop the others
