@@ -23,9 +23,9 @@ farther away is somebody else: while only such faces are in view the
 followed face counts as not found (those frames are invalid, and counted),
 so a student who ducks out of view is not replaced by a classmate behind
 them. Only after the followed face has been missing for ``reacquire_after``
-frames and several faces are in view is a face taken up again by the
-starting rule (counted as a re-acquisition: the face followed may have
-changed). With one face ever seen, any face found is the followed one (no
+frames is a face taken up again (counted as a re-acquisition: the face
+followed may have changed): among several faces by the starting rule, and a
+lone face only if it is not where another face was last seen. With one face ever seen, any face found is the followed one (no
 recognition of persons: somebody who takes the student's seat in one-face
 mode is not told apart).
 """
@@ -162,7 +162,7 @@ class FaceTracker:
         Frames between checks for further faces while one is followed.
     reacquire_after : int
         With several faces seen: frames the followed face must have been
-        missing before another face is taken up by the starting rule.
+        missing before a face far from where it was is taken up again.
 
     After each frame, ``faces_in_view`` is the number of faces the mesh
     found, the followed one or not; ``other_faces_only_frames`` counts the
@@ -187,6 +187,7 @@ class FaceTracker:
         self.other_faces_only_frames = 0
         self.reacquired_frames: list[int] = []
         self._missing = 0  # frames since the followed face was last seen
+        self._others: list[tuple[np.ndarray, float]] = []  # where other faces were last seen (centre, size)
         self.mode, self.index = parse_face_choice(face)
         self.max_faces = int(max_faces)
         self.check_every = int(check_every)
@@ -295,12 +296,38 @@ class FaceTracker:
             d = np.linalg.norm(centres - self._last_centre, axis=1)
             k = int(np.argmin(d))
             if d[k] > self.SAME_FACE_REACH * (self._last_size or sizes[k]):  # the followed face is not here
-                if len(arrays) < 2 or self._missing < self.reacquire_after:
+                k = self._reacquire(centres, sizes)
+                if k is None:
+                    self._remember_others(centres, sizes, None)
                     return None
-                k = self._initial(centres, sizes)
                 self.reacquired_frames.append(self._frame - 1)
         self._last_centre, self._last_size = centres[k], float(sizes[k])
+        if self.multi_face_mode:
+            self._remember_others(centres, sizes, k)
         return k
+
+    def _reacquire(self, centres, sizes) -> int | None:
+        """After the followed face has been missing for ``reacquire_after`` frames: the face to take up, or None.
+
+        Among several faces the starting rule picks. A lone face is taken only if it is not where another
+        face was seen while the followed one was around or missing (that one is somebody else); a student
+        who comes back alone at a new place is so taken up again.
+        """
+        if self._missing < self.reacquire_after:
+            return None
+        if len(centres) >= 2:
+            return self._initial(centres, sizes)
+        for c, size in self._others:
+            if np.linalg.norm(centres[0] - c) <= self.SAME_FACE_REACH * size:
+                return None
+        return 0
+
+    def _remember_others(self, centres, sizes, followed: int | None) -> None:
+        """Keep where the faces other than the followed one were last seen (at most ``max_faces`` of them)."""
+        others = [(centres[i].copy(), float(sizes[i])) for i in range(len(centres)) if i != followed]
+        kept = [o for o in self._others
+                if all(np.linalg.norm(o[0] - c) > self.SAME_FACE_REACH * s for c, s in others)]
+        self._others = (others + kept)[: max(1, self.max_faces)]
 
     def _initial(self, centres, sizes) -> int:
         if self.mode == "index":

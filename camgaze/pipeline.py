@@ -343,8 +343,8 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         else:
             s["verdict"] += "; one face was followed throughout (the largest, or the one chosen with --face)."
         if others:
-            s["verdict"] += (f" In {others} frame(s) only other faces were in view; "
-                             "those frames are marked invalid rather than measured on another face.")
+            s["verdict"] += (f" In {others} frame(s) the followed face was not found while other faces were in "
+                             "view; those frames are marked invalid rather than measured on another face.")
     s["other_faces_only_frames"] = others
     s["face_reacquisitions"] = len(again)
     return s

@@ -137,30 +137,35 @@ def test_student_out_of_view_is_not_replaced_by_the_bystander(tmp_path):
     assert tr.reacquired_frames == []
 
 
-def test_face_taken_up_again_only_after_a_long_absence_and_among_several():
+def test_face_taken_up_again_only_after_a_long_absence_and_never_a_known_other():
     """The rule itself, on landmark sets placed by hand: far faces are not the followed one until it has
-    been missing for reacquire_after frames, and then only when several faces are in view (a lone face
-    may be anybody); the starting rule (largest) then picks, and the frame is listed."""
-    with FaceTracker(max_faces=2, reacquire_after=10) as tr:
-        def face(cx, cy, half):
-            pts = np.zeros((478, 3))
-            pts[:, 0] = cx + np.linspace(-half, half, 478)
-            pts[:, 1] = cy + np.linspace(-half, half, 478)[::-1]
-            return pts
+    been missing for reacquire_after frames; then among several faces the starting rule (largest) picks, and
+    a lone face is taken only if it is not where another face was seen (a student who comes back alone at a
+    new place is followed again, the classmate who stayed is not). Each take-up is listed."""
+    def face(cx, cy, half):
+        pts = np.zeros((478, 3))
+        pts[:, 0] = cx + np.linspace(-half, half, 478)
+        pts[:, 1] = cy + np.linspace(-half, half, 478)[::-1]
+        return pts
 
+    with FaceTracker(max_faces=2, reacquire_after=10) as tr:
         tr.multi_face_from_frame = 0
         assert tr._choose([face(320, 180, 60)]) == 0  # the first face: starting rule
-        near = face(330, 185, 60)
-        far_small, far_large = face(560, 180, 40), face(100, 180, 70)
-        assert tr._choose([far_small, near]) == 1  # nearest to where it was
+        classmate = face(560, 180, 40)
+        assert tr._choose([classmate, face(330, 185, 60)]) == 1  # nearest to where it was
         tr._missing = 9
-        assert tr._choose([far_small]) is None
-        assert tr._choose([far_small, far_large]) is None  # not missing long enough
+        assert tr._choose([classmate]) is None
+        assert tr._choose([classmate, face(600, 60, 20)]) is None  # not missing long enough
         tr._missing = 10
-        assert tr._choose([far_small]) is None  # a lone far face is never taken
+        assert tr._choose([classmate]) is None  # the classmate, where it was seen: never taken
         tr._frame = 42
-        assert tr._choose([far_small, far_large]) == 1  # the larger, by the starting rule
+        back_elsewhere = face(100, 250, 60)
+        assert tr._choose([back_elsewhere]) == 0  # alone, at a new place, after a long absence
         assert tr.reacquired_frames == [41]
+        tr._missing = 10
+        tr._frame = 80
+        assert tr._choose([classmate, face(330, 300, 70)]) == 1  # several: the larger, by the starting rule
+        assert tr.reacquired_frames == [41, 79]
     with pytest.raises(ParameterError, match="reacquire_after"):
         FaceTracker(reacquire_after=0)
 
