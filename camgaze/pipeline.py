@@ -289,7 +289,9 @@ def _verdict(summary: dict) -> tuple[bool, str]:
     ff, vf, noise = summary["face_found_frac"], summary["valid_frac"], summary.get("noise_rms_s2s_deg")
     reasons = []
     n, dur = int(summary.get("frames") or 0), float(summary.get("duration_s") or 0.0)
-    if n < MIN_USABLE_FRAMES or dur < MIN_USABLE_DURATION_S:
+    if n > 1:
+        dur += dur / (n - 1)  # first to last frame, plus the last frame's own interval: the length recorded
+    if n < MIN_USABLE_FRAMES or dur < MIN_USABLE_DURATION_S - 1e-9:
         reasons.append(f"the clip is too short to measure ({n} frame(s) over {dur:.2f} s; fixations and noise need "
                        f"at least {MIN_USABLE_FRAMES} frames over {MIN_USABLE_DURATION_S:g} s) - it may be a still "
                        "picture or a cut-off recording")

@@ -109,9 +109,16 @@ def test_duration_histogram_counts_whole_fixations_and_labels_the_overflow_bar()
     label = [t.get_text() for t in ax.texts if t.get_text().startswith("last bar")]
     assert len(label) == 1
     start_ms = ax.patches[-1].get_x()
-    over = int(np.count_nonzero(d > start_ms))
+    over = int(np.count_nonzero(d >= start_ms))
     assert label[0] == f"last bar: {start_ms:.0f} ms or longer ({over})"
     assert heights[-1] == over
+    # whole-ms durations on a 25-ms grid (a lab tracker's): durations on the last bar's left edge count too
+    fig3 = Figure()
+    grid = np.concatenate([np.full(50, 100.0), np.full(50, 150.0), [225.0, 225.0, 300.0]])
+    draw_histogram(fig3, grid)
+    ax3 = fig3.axes[0]
+    lab = [t.get_text() for t in ax3.texts if t.get_text().startswith("last bar")]
+    assert lab and lab[0].endswith(f"({int(ax3.patches[-1].get_height())})")
     # nothing beyond the axis: no label
     fig2 = Figure()
     draw_histogram(fig2, np.full(20, 200.0))

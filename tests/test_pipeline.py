@@ -302,6 +302,9 @@ def test_cli_unexpected_fault_in_one_clip_does_not_stop_the_others(clip, tmp_pat
     line = [ln for ln in err.splitlines() if "p09_s03.mp4" in ln]
     assert len(line) == 1 and "RuntimeError" in line[0] and "geometry process stopped" in line[0]
     assert "Traceback" not in err
+    log = out / "p09_s03" / "error.log"
+    assert str(log) in line[0]  # the traceback is kept for the report, not shown
+    assert "Traceback" in log.read_text() and "geometry process stopped" in log.read_text()
     assert (out / clip.stem / "run.json").exists() and not (out / "p09_s03" / "run.json").exists()
 
 

@@ -130,7 +130,7 @@ def draw_histogram(fig, durations_ms: np.ndarray):
             start = -step / 2
         bins = np.arange(start, hi + step, step)
         ax.hist(np.clip(d, 0, bins[-1]), bins=bins, color=theme.HIST_COLOUR, edgecolor="white", lw=0.5)
-        over = int(np.count_nonzero(d > bins[-2]))
+        over = int(np.count_nonzero(np.clip(d, 0, bins[-1]) >= bins[-2]))  # the last bin holds its left edge
         if np.any(d > bins[-1]):  # the longest 1 % are piled into the last bar: say so
             ax.text(0.99, 0.90, f"last bar: {bins[-2]:.0f} ms or longer ({over})", transform=ax.transAxes,
                     ha="right", va="top", fontsize=7, color="#555")

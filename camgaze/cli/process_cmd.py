@@ -122,6 +122,23 @@ def _parse_value(v: str, like, name: str, option: str):
     return v
 
 
+def _write_error_log(out_dir: Path, clip: Path) -> Path | None:
+    """The traceback of the exception being handled, as ``out_dir/error.log`` (None if it cannot be written)."""
+    import datetime
+    import traceback
+
+    from .. import __version__
+
+    log = out_dir / "error.log"
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        log.write_text(f"camgaze {__version__}, {datetime.datetime.now().isoformat(timespec='seconds')}\n"
+                       f"clip: {clip.resolve()}\n\n{traceback.format_exc()}", encoding="utf-8")
+    except OSError:
+        return None
+    return log
+
+
 def _num(x, fmt: str, unit: str) -> str:
     """A figure with its unit for the summary line, or "n/a" where it could not be measured."""
     try:
@@ -194,12 +211,18 @@ def run(args) -> int:
             continue
         except Exception as exc:  # noqa: BLE001 - one clip's failure must not stop the others
             bar.close()
+            log = _write_error_log(clip_output_dir(out_root, clip), clip)
+            where = f"the details are in {log}; please report it with that file" if log else "please report it"
             print(f"camgaze: error: {clip}: processing failed ({type(exc).__name__}: {exc}); this is a "
-                  "fault in camgaze, not in the clip as far as it can tell - please report it with the "
-                  "clip's run.json if there is one; the other clips go on", file=sys.stderr)
+                  f"fault in camgaze, not in the clip as far as it can tell - {where}; the other clips go on",
+                  file=sys.stderr)
             failures += 1
             continue
         bar.close()
+        try:  # a fault of an earlier run is no longer the state of this clip
+            (res.out_dir / "error.log").unlink(missing_ok=True)
+        except OSError:
+            pass
         s = res.summary
         print(f"{clip.name}: {s['frames']} frame{'' if s['frames'] == 1 else 's'} ({s['duration_s']:.1f} s), face found {s['face_found_frac']:.0%}, "
               f"{s['blink_count']} blinks, {s['fixation_count']} fixations, median distance "
