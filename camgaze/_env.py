@@ -108,6 +108,41 @@ def lower_process_priority(pid: int, by: int) -> bool:
         return False
 
 
+def background_cpus() -> set[int] | None:
+    """The CPU for the pipeline's background work (decoder thread, geometry process), or None.
+
+    With two or more CPUs allowed, the last of them: the face mesh's own
+    threads stay free to use every CPU, and the background never takes the
+    one the mesh runs on from it (measured with bench/bench_pipeline.py's
+    clip: pipeline / mesh alone 89.5 % against 86.8 % unpinned, median of 6
+    paired rounds, 5 won; DEVELOPERS.md). None - placement left to the
+    operating system - on one CPU, where the platform cannot pin, and where
+    ``CAMGAZE_PIN_BACKGROUND=0`` (set in batch workers, several of which
+    would otherwise share one background CPU).
+    """
+    if os.environ.get("CAMGAZE_PIN_BACKGROUND", "1") == "0" or not hasattr(os, "sched_getaffinity"):
+        return None
+    try:
+        cpus = sorted(os.sched_getaffinity(0))
+    except OSError:
+        return None
+    return {cpus[-1]} if len(cpus) >= 2 else None
+
+
+def pin_to_cpus(cpus: set[int] | None, pid: int = 0) -> bool:
+    """Restrict a process (``pid``), or with ``pid=0`` the calling thread (Linux), to ``cpus``.
+
+    Returns False where nothing was done (no CPUs given, no platform support, the change refused).
+    """
+    if not cpus or not hasattr(os, "sched_setaffinity"):
+        return False
+    try:
+        os.sched_setaffinity(int(pid), set(cpus))
+        return True
+    except OSError:
+        return False
+
+
 def lower_this_thread_priority(by: int) -> bool:
     """Lower the calling thread's scheduling priority by ``by`` nice steps (Linux only).
 

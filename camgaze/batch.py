@@ -353,6 +353,9 @@ def run_clip_task(payload: dict, progress, cancel) -> dict:
         ``host``, and ``traceback`` for internal errors.
     """
     t0 = time.monotonic()
+    # several workers on one machine would all put their background work on the same CPU
+    # (camgaze._env.background_cpus): let the operating system place it
+    os.environ["CAMGAZE_PIN_BACKGROUND"] = "0"
     clip = Path(payload["clip"])
     out = Path(payload["out_dir"])
     base = {"host": socket.gethostname(), "summary": {}, "kind": "", "reason": ""}

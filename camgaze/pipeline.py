@@ -39,7 +39,7 @@ import pandas as pd
 
 from . import __version__
 from .atomic import sha256_file, sha256_json, write_csv, write_json, write_parquet
-from ._env import lower_process_priority
+from ._env import background_cpus, lower_process_priority, pin_to_cpus
 from .errors import CamgazeInputError, Cancelled, NoFaceError
 from .gaze import GazeParams, estimate_gaze
 from .frame_geometry import RECORD_WIDTH, frame_item, start_geometry
@@ -183,7 +183,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     t0 = time.perf_counter()
     refine = bool(params.gaze.refine_iris)
     tracker = FaceTracker(max_faces=params.max_faces, face=params.face)
-    prefetch = FramePrefetcher(clip, report=report, cancel=cancel, lower_priority=DECODE_NICE)
+    background = background_cpus()  # the decoder and the geometry keep off the CPUs the mesh may need
+    prefetch = FramePrefetcher(clip, report=report, cancel=cancel, lower_priority=DECODE_NICE, cpus=background)
     # Three stages overlap: decoding (its own thread), the face mesh (here), and the per-frame
     # geometry - head pose, iris refinement - in a child process for clips of more than a few
     # seconds (camgaze.frame_geometry). The mesh and OpenCV release the GIL while they compute;
@@ -198,6 +199,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                               mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors))
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
+        pin_to_cpus(background, geometry.pid)
     n_in = 0
     state = None
     try:
@@ -251,6 +253,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                           "reacquired_at_frames": list(tracker.reacquired_frames),
                           "reacquire_after_frames": tracker.reacquire_after},
         "geometry_ran_in": geometry.kind,
+        "background_cpus": sorted(background) if background else None,
         "eye_anchor_frames": state.get("anchored_frames"),
         "eye_anchor_fallback_frames": state.get("unanchored_frames"),
         "eye_anchor_match_frac": _fraction(state.get("anchor_matches"), state.get("anchor_misses")),

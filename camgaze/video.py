@@ -14,6 +14,7 @@ on the current one.
 from __future__ import annotations
 
 import queue
+import sys
 import threading
 from dataclasses import asdict, dataclass, field
 from fractions import Fraction
@@ -309,14 +310,17 @@ class FramePrefetcher:
     ``lower_priority`` lowers the decoder thread's scheduling priority by that
     many nice steps (Linux; elsewhere ignored): decoding runs well ahead of
     the face mesh and can wait, so under load the mesh gets the core first.
+    ``cpus`` restricts the decoder thread to those CPUs (Linux; elsewhere
+    ignored; see :func:`camgaze._env.background_cpus`).
     """
 
     _DONE = object()
 
     def __init__(self, path, *, report: DecodeReport | None = None, cancel=None, depth: int = 6,
-                 lower_priority: int = 0):
+                 lower_priority: int = 0, cpus: set[int] | None = None):
         self._path = path
         self._lower_priority = int(lower_priority)
+        self._cpus = set(cpus) if cpus else None
         self._report = report if report is not None else DecodeReport()
         self._cancel = cancel
         self._q: queue.Queue = queue.Queue(maxsize=depth)
@@ -342,6 +346,10 @@ class FramePrefetcher:
             from ._env import lower_this_thread_priority
 
             lower_this_thread_priority(self._lower_priority)
+        if self._cpus and sys.platform.startswith("linux"):  # pid 0 is this thread on Linux only
+            from ._env import pin_to_cpus
+
+            pin_to_cpus(self._cpus)
         try:
             for fr in iter_frames(self._path, report=self._report, cancel=self._cancel):
                 if not self._put(fr):

@@ -102,3 +102,59 @@ def test_the_geometry_process_is_lowered_and_the_samples_do_not_change(short_cli
     assert len(seen) == 1  # a thread of this process is not lowered
     num = [c for c in in_child.columns if in_child[c].dtype.kind == "f"]
     np.testing.assert_array_equal(in_child[num].to_numpy(), in_thread[num].to_numpy())
+
+
+has_affinity = pytest.mark.skipif(not (sys.platform.startswith("linux") and hasattr(os, "sched_getaffinity")
+                                       and len(os.sched_getaffinity(0)) >= 2),
+                                  reason="CPU placement needs Linux and two or more CPUs")
+
+
+@has_affinity
+def test_background_cpu_is_the_last_allowed_one_and_can_be_switched_off(monkeypatch):
+    from camgaze._env import background_cpus
+
+    allowed = sorted(os.sched_getaffinity(0))
+    monkeypatch.delenv("CAMGAZE_PIN_BACKGROUND", raising=False)
+    assert background_cpus() == {allowed[-1]}
+    monkeypatch.setenv("CAMGAZE_PIN_BACKGROUND", "0")
+    assert background_cpus() is None
+
+
+@has_affinity
+def test_the_decoder_thread_is_placed_on_the_background_cpu_alone(short_clip):
+    from camgaze.video import FramePrefetcher
+
+    allowed = set(os.sched_getaffinity(0))
+    cpu = {max(allowed)}
+    pf = FramePrefetcher(short_clip, depth=2, cpus=cpu)
+    it = iter(pf)
+    next(it)
+    on = os.sched_getaffinity(pf._thread.native_id)
+    rest = sum(1 for _ in it)
+    assert on == cpu and rest == 29
+    assert os.sched_getaffinity(0) == allowed  # the consumer (the face mesh's thread) may use every CPU
+
+
+@has_affinity
+def test_the_geometry_process_is_placed_on_the_background_cpu(short_clip, monkeypatch):
+    from camgaze import pipeline
+
+    monkeypatch.delenv("CAMGAZE_PIN_BACKGROUND", raising=False)
+    seen = []
+    real = pipeline.pin_to_cpus
+
+    def spy(cpus, pid=0):
+        ok = real(cpus, pid)
+        seen.append((cpus, ok, os.sched_getaffinity(pid)))
+        return ok
+
+    monkeypatch.setattr(pipeline, "pin_to_cpus", spy)
+    allowed = set(os.sched_getaffinity(0))
+    _, meta = pipeline.extract_samples(short_clip, geometry_mode="process")
+    assert meta["background_cpus"] == [max(allowed)]
+    assert seen == [({max(allowed)}, True, {max(allowed)})]
+    assert os.sched_getaffinity(0) == allowed
+    # a batch worker leaves placement to the operating system (several would share the one CPU)
+    monkeypatch.setenv("CAMGAZE_PIN_BACKGROUND", "0")
+    _, meta = pipeline.extract_samples(short_clip, geometry_mode="process")
+    assert meta["background_cpus"] is None and seen[-1][0] is None and seen[-1][1] is False
