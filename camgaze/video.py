@@ -153,6 +153,20 @@ def probe(path) -> VideoInfo:
         container.close()
 
 
+#: decoder threads, fixed: FFmpeg's concealment of damaged data depends on the count (measured on a clip with
+#: bad sectors: one thread and two or more gave different pictures), and the default follows the CPUs the
+#: decoding thread may use - so it would change with the machine and with the pipeline's CPU placement
+DECODER_THREADS = 2
+
+
+def _fix_decoder_threads(stream) -> None:
+    """The same decoded pictures on every machine, whatever its CPU count (see :data:`DECODER_THREADS`)."""
+    try:
+        stream.codec_context.thread_count = DECODER_THREADS
+    except (AttributeError, ValueError):  # a codec that cannot be set up so: decode as it comes
+        pass
+
+
 def _first_frame_rotation_deg(container, stream) -> int:
     """The rotation metadata (0, 90, 180 or 270 deg counter-clockwise) as the first decoded frame carries it.
 
@@ -161,6 +175,7 @@ def _first_frame_rotation_deg(container, stream) -> int:
     """
     import av
 
+    _fix_decoder_threads(stream)
     try:
         for fr in container.decode(stream):
             return 90 * _rotation_k(fr)
@@ -236,6 +251,7 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
     container = _open(path)
     try:
         st = container.streams.video[0]
+        _fix_decoder_threads(st)
         # no frame threading: one core decodes 720p at about 400 fps (well ahead of the face mesh), it leaves
         # the other core to the pipeline, and damaged files decode the same way every time
         w, h = int(st.codec_context.width or 0), int(st.codec_context.height or 0)
@@ -392,6 +408,7 @@ def read_frame_at(path, t_s: float) -> Frame | None:
     container = _open(path)
     try:
         st = container.streams.video[0]
+        _fix_decoder_threads(st)
         tb = st.time_base or Fraction(1, 90000)
         first_pts = st.start_time if st.start_time is not None else 0
         target_pts = int(first_pts + t_s / float(tb))

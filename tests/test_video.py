@@ -1,5 +1,9 @@
 """The decoder: true presentation timestamps, rotation metadata, bad files."""
+import os
+import sys
+import threading
 from fractions import Fraction
+from pathlib import Path
 
 import av
 import numpy as np
@@ -132,3 +136,35 @@ def test_truncated_clip_keeps_frames_before_the_cut(tmp_path):
     assert 10 < len(frames) < 90
     t = np.array([f.pts_s for f in frames])
     assert np.all(np.diff(t) > 0)
+
+
+@pytest.mark.skipif(not (sys.platform.startswith("linux") and hasattr(os, "sched_getaffinity")
+                         and len(os.sched_getaffinity(0)) >= 2),
+                    reason="CPU placement needs Linux and two or more CPUs")
+def test_damaged_clip_decodes_the_same_on_one_cpu_and_on_several(tmp_path):
+    """FFmpeg conceals damaged data differently with one decoder thread than with several, and by default
+    the count follows the CPUs the decoding thread may use. camgaze fixes the count (DECODER_THREADS), so a
+    clip decodes to the same pictures on any machine and wherever the pipeline places its decoder."""
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    import corpus  # noqa: E402 - the tests' own clip generator
+
+    good = corpus._render(tmp_path / "good.mp4", 1.5, seed=1)
+    corpus._damage_middle(good.path, tmp_path / "damaged.mp4")
+
+    def decode(cpus):
+        out = {}
+
+        def work():
+            if cpus:
+                os.sched_setaffinity(0, cpus)
+            out["frames"] = [f.image for f in iter_frames(tmp_path / "damaged.mp4")]
+
+        t = threading.Thread(target=work)
+        t.start()
+        t.join()
+        return out["frames"]
+
+    one = decode({max(os.sched_getaffinity(0))})
+    several = decode(None)
+    assert len(one) == len(several) > 0
+    assert all(np.array_equal(a, b) for a, b in zip(one, several))
