@@ -112,6 +112,7 @@ def _open(path: Path):
     if not container.streams.video:
         container.close()
         raise VideoError("contains no video stream", path=path, hint="is it an audio or data file?")
+    _fix_decoder_threads(container.streams.video[0])
     return container
 
 
@@ -175,7 +176,6 @@ def _first_frame_rotation_deg(container, stream) -> int:
     """
     import av
 
-    _fix_decoder_threads(stream)
     try:
         for fr in container.decode(stream):
             return 90 * _rotation_k(fr)
@@ -251,7 +251,6 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
     container = _open(path)
     try:
         st = container.streams.video[0]
-        _fix_decoder_threads(st)
         # no frame threading: one core decodes 720p at about 400 fps (well ahead of the face mesh), it leaves
         # the other core to the pipeline, and damaged files decode the same way every time
         w, h = int(st.codec_context.width or 0), int(st.codec_context.height or 0)
@@ -408,7 +407,6 @@ def read_frame_at(path, t_s: float) -> Frame | None:
     container = _open(path)
     try:
         st = container.streams.video[0]
-        _fix_decoder_threads(st)
         tb = st.time_base or Fraction(1, 90000)
         first_pts = st.start_time if st.start_time is not None else 0
         target_pts = int(first_pts + t_s / float(tb))
