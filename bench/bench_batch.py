@@ -3,7 +3,7 @@
 Renders a 12-second segment of the reading-pilot scenario, repeats its
 encoded packets to a ``--seconds`` long clip (no re-encoding) and copies
 that to ``--clips`` files (each is processed in full - the batch does not
-notice equal contents), then runs :func:`camgaze.batch.run_batch` on the set with one and
+notice equal contents), then runs :func:`aspectus.studies.batch.run_batch` on the set with one and
 with two worker processes into fresh output folders, and prints the wall
 times and their ratio. Worker start-up (spawning, loading the face mesh) is
 included, as a user would see it (a few seconds per worker, which is why the
@@ -40,7 +40,7 @@ def main(argv=None) -> int:
     ap.add_argument("--size", default="640x360", help="picture size WxH (default 640x360)")
     ap.add_argument("--workers", type=int, nargs="+", default=[1, 2], help="worker counts to compare (default 1 2)")
     args = ap.parse_args(argv)
-    from camgaze.batch import run_batch
+    from aspectus.studies.batch import run_batch
 
     w, h = (int(v) for v in args.size.lower().split("x"))
     print(f"machine: {machine()}")

@@ -20,7 +20,7 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from camgaze.analysis import AnalysisParams, run_analysis  # noqa: E402
+from aspectus.events.analysis import AnalysisParams, run_analysis  # noqa: E402
 
 
 def synthetic_samples(*, duration_s: float, rate_hz: float, noise_rms_deg: float = 0.5, seed: int = 0) -> pd.DataFrame:

@@ -3,7 +3,7 @@
 Renders a short segment of the reading-pilot scenario once, then builds the
 long clips cheaply by repeating the segment's encoded packets with shifted
 timestamps (no re-encoding; every repeat starts on a key frame). Each clip
-is processed by :func:`camgaze.pipeline.process_clip` in a fresh child
+is processed by :func:`aspectus.webcam.pipeline.process_clip` in a fresh child
 process that reports its own peak resident set size
 (``VmHWM``; ``ru_maxrss`` where there is none), plus the peak the
 per-frame geometry's child process reports of itself (in run.json). The target: the 60-minute
@@ -59,19 +59,19 @@ def loop_clip(segment: Path, out: Path, *, minutes: float) -> Path:
 def child(clip: Path) -> None:
     import resource
 
-    from camgaze.pipeline import process_clip
+    from aspectus.webcam.pipeline import process_clip
 
     with tempfile.TemporaryDirectory() as d:
         t0 = time.perf_counter()
         res = process_clip(clip, Path(d) / clip.stem, reuse=False)
         dt = time.perf_counter() - t0
         run = json.loads((Path(d) / clip.stem / "run.json").read_text())
-    from camgaze.frame_geometry import peak_rss_mb
+    from aspectus.webcam.frame_geometry import peak_rss_mb
 
     peak_mb = peak_rss_mb()  # VmHWM: ru_maxrss would count the fork from this benchmark's own process
     if peak_mb is None:
         peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
-    # the per-frame geometry's child process (camgaze.frame_geometry) reports its own peak; not
+    # the per-frame geometry's child process (aspectus.webcam.frame_geometry) reports its own peak; not
     # RUSAGE_CHILDREN, which also counts any short-lived forked helper at its parent's size
     child_mb = float((run.get("extraction") or {}).get("geometry_process_peak_rss_mb") or 0.0)
     print(json.dumps({"frames": res.summary["frames"], "duration_s": res.summary["duration_s"],

@@ -2,11 +2,11 @@
 
 On one rendered 720p clip, in this one run:
 
-* decode-only: frames/s of :func:`camgaze.video.iter_frames` (demux, decode,
+* decode-only: frames/s of :func:`aspectus.webcam.video.iter_frames` (demux, decode,
   conversion to upright RGB), nothing else;
-* landmarking-only: frames/s of :class:`camgaze.landmarks.FaceTracker` on the
+* landmarking-only: frames/s of :class:`aspectus.webcam.landmarks.FaceTracker` on the
   same frames decoded beforehand into memory;
-* full pipeline: frames/s of :func:`camgaze.pipeline.process_clip` (decode in
+* full pipeline: frames/s of :func:`aspectus.webcam.pipeline.process_clip` (decode in
   a background thread overlapped with face mesh, iris refinement, head pose,
   gaze, detection, features, all outputs written) with ``reuse=False``.
 
@@ -58,10 +58,10 @@ def machine() -> str:
 
 
 def render_test_clip(path: Path, *, duration_s: float, size_px=(1280, 720), fps: float = 30.0, seed: int = 0) -> Path:
-    """Render a clip of the reading-pilot scenario (camgaze.render) unless it already exists."""
+    """Render a clip of the reading-pilot scenario (aspectus.synth.render) unless it already exists."""
     if path.exists():
         return path
-    from camgaze.render import render_clip, synth_trajectory
+    from aspectus.synth.render import render_clip, synth_trajectory
 
     tr = synth_trajectory(duration_s=duration_s, seed=seed, head_motion=True)
     render_clip(path, tr, size_px=size_px, fps=fps, seed=seed)
@@ -81,7 +81,7 @@ def _cpu_s() -> float:
 
 def decode_fps(clip: Path) -> tuple[float, int, float]:
     """Frames/s of decoding alone, frame count, CPU ms per frame."""
-    from camgaze.video import iter_frames
+    from aspectus.webcam.video import iter_frames
 
     c0, t0 = _cpu_s(), time.perf_counter()
     n = 0
@@ -92,7 +92,7 @@ def decode_fps(clip: Path) -> tuple[float, int, float]:
 
 
 def decoded_frames(clip: Path) -> list:
-    from camgaze.video import iter_frames
+    from aspectus.webcam.video import iter_frames
 
     return [f.image for f in iter_frames(clip)]
 
@@ -101,8 +101,8 @@ def landmark_fps(clip: Path) -> tuple[float, float, int, tuple[int, int]]:
     """Frames/s of the face mesh alone on the clip's frames decoded beforehand into memory, its CPU ms per
     frame, the frame count and the picture size. The frames are dropped before it returns (a minute of 720p
     is some 5 GB), so they never sit beside the pipeline's own run."""
-    from camgaze.landmarks import FaceTracker
-    from camgaze.pipeline import ProcessParams
+    from aspectus.webcam.landmarks import FaceTracker
+    from aspectus.webcam.pipeline import ProcessParams
 
     frames = decoded_frames(clip)
     p = ProcessParams()
@@ -122,7 +122,7 @@ def pipeline_fps(clip: Path, n_frames: int) -> tuple[float, float, float]:
     """Frames/s of the whole process_clip call, of its frame loop alone (from run.json), CPU ms per frame."""
     import json
 
-    from camgaze.pipeline import process_clip
+    from aspectus.webcam.pipeline import process_clip
 
     with tempfile.TemporaryDirectory() as d:
         c0, t0 = _cpu_s(), time.perf_counter()
@@ -154,7 +154,7 @@ def main(argv=None) -> int:
     print(f"machine: {machine()}")
     with tempfile.TemporaryDirectory() as d:
         clip = args.clip or render_test_clip(Path(d) / "p01_s01_reading.mp4", duration_s=args.seconds)
-        from camgaze.video import probe
+        from aspectus.webcam.video import probe
 
         _, n, _ = decode_fps(clip)  # also brings the file into the page cache for every round alike
         size = probe(clip).display_size_px

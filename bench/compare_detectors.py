@@ -15,7 +15,7 @@ Coders' counts and durations are taken at the recording's own rate.
 
 Run: ``python bench/compare_detectors.py [--trials-dir DIR] [--param name=value ...]``
 
-What it printed for the defaults of camgaze 0.1.0 (seed 0; I-VT with its
+What it printed for the defaults of aspectus 0.1.0 (seed 0; I-VT with its
 default Engbert & Kliegl threshold), which chose I-DT as the default detector:
 
 ==========  =====================  ========  ========  =========  =======  =======
@@ -69,7 +69,7 @@ sys.path.insert(0, str(REPO / "tests"))
 
 from _lund import CODERS, cohen_kappa, degrade, load_all, runs  # noqa: E402
 
-from camgaze.analysis import AnalysisParams, run_analysis  # noqa: E402
+from aspectus.events.analysis import AnalysisParams, run_analysis  # noqa: E402
 
 CONDITIONS = {
     "native": None,

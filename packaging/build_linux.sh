@@ -1,12 +1,12 @@
 #!/usr/bin/env bash
-# Build the camgaze desktop bundle for Linux: dist/camgaze/camgaze (one folder).
+# Build the aspectus desktop bundle for Linux: dist/aspectus/aspectus (one folder).
 #
 #   bash packaging/build_linux.sh            # uses .venv/bin/python (scripts/_setup.sh makes it)
 #   PYTHON=/path/to/python bash packaging/build_linux.sh
 #   DIST=/tmp/b/dist WORK=/tmp/b/work bash packaging/build_linux.sh   # build elsewhere
 #
 # Installs PyInstaller (the project's "bundle" extra) into that Python if missing,
-# builds from packaging/camgaze.spec, and prints the build time and bundle size.
+# builds from packaging/aspectus.spec, and prints the build time and bundle size.
 # Then run packaging/smoke_test.sh to check the bundle.
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -18,11 +18,11 @@ if ! "$PY" -c "import PyInstaller" 2>/dev/null; then
 fi
 start=$(date +%s)
 "$PY" -m PyInstaller --noconfirm --clean --log-level WARN \
-  --distpath "$DIST" --workpath "$WORK" packaging/camgaze.spec
+  --distpath "$DIST" --workpath "$WORK" packaging/aspectus.spec
 end=$(date +%s)
-if [ -d "$DIST/camgaze/_internal/jax" ] || [ -d "$DIST/camgaze/_internal/jaxlib" ]; then
+if [ -d "$DIST/aspectus/_internal/jax" ] || [ -d "$DIST/aspectus/_internal/jaxlib" ]; then
   echo "build_linux: error: jax ended up in the bundle" >&2
   exit 1
 fi
-size=$(du -sh "$DIST/camgaze" | cut -f1)
-echo "build_linux: built $DIST/camgaze in $((end - start)) s, size $size"
+size=$(du -sh "$DIST/aspectus" | cut -f1)
+echo "build_linux: built $DIST/aspectus in $((end - start)) s, size $size"

@@ -1,11 +1,11 @@
-"""Entry point of the desktop bundle: the app, the ``camgaze`` commands, and a start-up check.
+"""Entry point of the desktop bundle: the app, the ``aspectus`` commands, and a start-up check.
 
-The bundle has one executable, ``camgaze``:
+The bundle has one executable, ``aspectus``:
 
-* ``camgaze`` with no arguments, or ``camgaze gui [STUDYFILE]`` - the desktop app;
-* ``camgaze process ...``, ``camgaze batch ...``, ... - the same commands as
-  the ``camgaze`` command line of a pip install;
-* ``camgaze app-check`` - opens the main window offscreen-capable, lets the
+* ``aspectus`` with no arguments, or ``aspectus gui [STUDYFILE]`` - the desktop app;
+* ``aspectus process ...``, ``aspectus batch ...``, ... - the same commands as
+  the ``aspectus`` command line of a pip install;
+* ``aspectus app-check`` - opens the main window offscreen-capable, lets the
   event loop run once, closes it and exits 0 (proves the Qt plugins and the
   app's modules are in the bundle; used by ``packaging/smoke_test.sh``).
 
@@ -50,7 +50,7 @@ def app_check() -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Dispatch to the app, to ``app-check`` or to the ``camgaze`` command line."""
+    """Dispatch to the app, to ``app-check`` or to the ``aspectus`` command line."""
     argv = list(sys.argv[1:] if argv is None else argv)
     _bundle_env()
     if not argv:
@@ -59,7 +59,7 @@ def main(argv: list[str] | None = None) -> int:
         return int(app_main([]) or 0)
     if argv[0] == "app-check":
         return app_check()
-    from camgaze.cli import main as cli_main
+    from aspectus.cli import main as cli_main
 
     return int(cli_main(argv) or 0)
 

@@ -1,5 +1,5 @@
 #!/usr/bin/env bash
-# Smoke test of the built bundle (dist/camgaze, from packaging/build_linux.sh):
+# Smoke test of the built bundle (dist/aspectus, from packaging/build_linux.sh):
 # runs it offscreen on a fresh temporary HOME, processes the demo clip, checks the
 # outputs, opens and closes the main window, and exits 0 when all of that worked.
 #
@@ -9,7 +9,7 @@
 # there, the bundle renders a short demo clip of its own first.
 set -euo pipefail
 cd "$(dirname "$0")/.."
-BIN="${CAMGAZE_BUNDLE:-dist/camgaze/camgaze}"
+BIN="${ASPECTUS_BUNDLE:-dist/aspectus/aspectus}"
 [ -x "$BIN" ] || { echo "smoke_test: no bundle at $BIN - run packaging/build_linux.sh first" >&2; exit 1; }
 work=$(mktemp -d)
 trap 'rm -rf "$work"' EXIT

@@ -1,16 +1,16 @@
-"""Build camgaze's 3-D face model (camgaze/data/face_model_mm.csv).
+"""Build aspectus's 3-D face model (aspectus/data/face_model_mm.csv).
 
 The model is the mean of the MediaPipe face-mesh landmarks of the two face
-photographs that camgaze's dependencies ship (matplotlib's sample
+photographs that aspectus's dependencies ship (matplotlib's sample
 ``grace_hopper.jpg`` and scikit-image's ``astronaut``), put on a metric scale
 by the horizontal iris diameter of 11.7 mm (Ruefer, Schroeder & Erb 2005,
 Cornea 24(3) - from memory), aligned to each other by a similarity transform
-(Umeyama 1991) and expressed in camgaze's head frame:
+(Umeyama 1991) and expressed in aspectus's head frame:
 
 * origin midway between the two eyeball centres;
 * x towards the subject's left (picture right when facing the camera),
   y down, z from the face into the head - the camera frame of
-  camgaze.schema at zero head pose;
+  aspectus.schema at zero head pose;
 * eyeball centres 12 mm (Bekerman et al. 2014 - from memory) behind each
   photographed iris centre, assuming the photographed people look at the
   camera.
@@ -27,8 +27,8 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from camgaze._env import import_cv2  # noqa: E402
-from camgaze.geometry import umeyama  # noqa: E402
+from aspectus._env import import_cv2  # noqa: E402
+from aspectus.geometry import umeyama  # noqa: E402
 
 IRIS_MM = 11.7
 EYEBALL_R_MM = 12.0
@@ -71,8 +71,8 @@ def main():
     R = np.stack([x, y, z])
     pts = (R @ (m - origin).T).T
     eyes = (R @ (np.stack([eye_r, eye_l]) - origin).T).T
-    out = ROOT / "camgaze" / "data" / "face_model_mm.csv"
-    rows = ["# camgaze head model, mm, head frame (x subject's left, y down, z into head); built by scripts/build_face_model.py",
+    out = ROOT / "aspectus" / "data" / "face_model_mm.csv"
+    rows = ["# aspectus head model, mm, head frame (x subject's left, y down, z into head); built by scripts/build_face_model.py",
             "index,x_mm,y_mm,z_mm"]
     rows += [f"{i},{p[0]:.4f},{p[1]:.4f},{p[2]:.4f}" for i, p in enumerate(pts)]
     rows += [f"eye_right,{eyes[0][0]:.4f},{eyes[0][1]:.4f},{eyes[0][2]:.4f}",

@@ -1,5 +1,5 @@
 #!/usr/bin/env bash
 # Set up (once) and run the main job on the bundled sample clip.
 source "$(dirname "$0")/_setup.sh"
-camgaze process sample_clips/*.mp4 -o out/demo "$@"
+aspectus process sample_clips/*.mp4 -o out/demo "$@"
 echo "outputs in $ROOT/out/demo/"

@@ -24,8 +24,8 @@ import pandas as pd
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
-from camgaze.atomic import write_csv  # noqa: E402
-from camgaze.render import render_clip, synth_trajectory  # noqa: E402
+from aspectus.atomic import write_csv  # noqa: E402
+from aspectus.synth.render import render_clip, synth_trajectory  # noqa: E402
 
 #: p01's task segments (s on the clip's clock)
 P01_SEGMENTS = pd.DataFrame({"label": ["passage_1", "passage_2", "questions"],
@@ -59,9 +59,9 @@ def make(out: Path, *, quiet: bool = False) -> dict[str, Path]:
 
     # p01's simulated lab tracker, recorded beside the webcam on its own clock
     try:
-        from camgaze.reference.demo import write_demo_reference
-    except ImportError:  # pragma: no cover - the reference package is part of camgaze
-        say("camgaze.reference.demo is missing: no lab-tracker files written")
+        from aspectus.synth.lab_recording import write_demo_reference
+    except ImportError:  # pragma: no cover - the reference package is part of aspectus
+        say("aspectus.synth.lab_recording is missing: no lab-tracker files written")
     else:
         ref_dir = out / "lab_tracker"
         if ref_dir.exists():

@@ -48,7 +48,7 @@ def main(argv=None) -> int:
     from ui.app import make_app
 
     app = make_app()
-    from camgaze.study import load_study
+    from aspectus.studies.project import load_study
     from ui.main_window import MainWindow
 
     out = Path(args.out).absolute()

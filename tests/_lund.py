@@ -7,8 +7,8 @@ movement event-detection algorithms. Behavior Research Methods, 49(2),
 
 The files live in ``../shared/reference/lund2013/img`` (see the README there).
 Each trial was labelled by two coders (``MN`` and ``RA``); both files of a
-trial carry the same gaze samples. This module turns a trial into a camgaze
-samples table (angles in degrees via :class:`camgaze.screen.ScreenGeometry`),
+trial carry the same gaze samples. This module turns a trial into a aspectus
+samples table (angles in degrees via :class:`aspectus.reference.screen.ScreenGeometry`),
 offers the low-rate, noisy versions used to check the detectors under webcam
 conditions, and the agreement figures (Cohen's kappa, fixation runs).
 
@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from camgaze.screen import ScreenGeometry
+from aspectus.reference.screen import ScreenGeometry
 
 #: coder label codes, from the data set's README
 FIXATION, SACCADE, PSO, PURSUIT, BLINK, UNDEFINED = 1, 2, 3, 4, 5, 6
@@ -46,7 +46,7 @@ class LundTrial:
         return float(1.0 / np.median(np.diff(self.t_s)))
 
     def samples(self) -> pd.DataFrame:
-        """The trial as a camgaze samples table."""
+        """The trial as a aspectus samples table."""
         return pd.DataFrame({"t_s": self.t_s, "valid": self.valid,
                              "yaw_deg": np.where(self.valid, self.yaw_deg, np.nan),
                              "pitch_deg": np.where(self.valid, self.pitch_deg, np.nan)})

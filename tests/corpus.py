@@ -1,13 +1,13 @@
 """A corpus of bad and awkward inputs, written from scratch into a folder.
 
 Each entry is a :class:`Case`: a file (or folder) plus the outcome the
-``camgaze`` command line must give for it - either a clear error naming the
+``aspectus`` command line must give for it - either a clear error naming the
 file and the cause (exit status and a message pattern), or a result whose
 quality figures report the problem (a check on ``run.json``'s ``quality``
 block and the samples). ``tests/test_corpus_cli.py`` runs every case through
 the CLI.
 
-Video cases are rendered with :func:`camgaze.render.render_clip` (real H.264
+Video cases are rendered with :func:`aspectus.synth.render.render_clip` (real H.264
 through the real encoder), kept tiny - 320x240 (a few at 640x360), 1-3 s - so
 the whole corpus renders and runs in a couple of minutes. Reader cases are
 gaze tables, BIDS eye-tracking recordings and task-segment files with the
@@ -15,7 +15,7 @@ faults lab exports really have.
 
 Run as a script to write the corpus somewhere for a look::
 
-    .venv/bin/python tests/corpus.py /tmp/camgaze-corpus
+    .venv/bin/python tests/corpus.py /tmp/aspectus-corpus
 """
 from __future__ import annotations
 
@@ -82,14 +82,14 @@ class Case:
 # helpers that write clips
 
 def _trajectory(duration_s: float, *, seed: int = 0, **kw):
-    from camgaze.render import synth_trajectory
+    from aspectus.synth.render import synth_trajectory
 
     return synth_trajectory(duration_s=duration_s, seed=seed, blink_rate_per_min=0.0, **kw)
 
 
 def _render(path: Path, duration_s: float = 1.5, *, size_px=SMALL, fps: float = 30.0, seed: int = 0,
             trajectory=None, **kw):
-    from camgaze.render import render_clip
+    from aspectus.synth.render import render_clip
 
     tr = trajectory if trajectory is not None else _trajectory(duration_s + 0.5 / fps, seed=seed)
     return render_clip(path, tr, size_px=size_px, fps=fps, seed=seed, noise_sd=1.5, **kw)
@@ -276,7 +276,7 @@ def write_video_corpus(folder) -> list[Case]:
     add("zero_frames", d / "zero_frames.avi", "process", 1, r"zero_frames\.avi.*no frames",
         why="recording stopped at once")
     _huge_clip(d / "huge_8k.mp4")
-    add("huge", d / "huge_8k.mp4", "process", 1, r"huge_8k\.mp4.*8704x4896.*larger than camgaze accepts",
+    add("huge", d / "huge_8k.mp4", "process", 1, r"huge_8k\.mp4.*8704x4896.*larger than aspectus accepts",
         why="a camera's full-sensor export")
 
     good = _render(d / "good.mp4", 1.5, seed=1)
@@ -432,7 +432,7 @@ def write_reader_corpus(folder) -> list[Case]:
         args=_TABLE_ARGS, why="a repeated sample")
     (d / "table_one_row.csv").write_text("time_ms,gx_deg,gy_deg\n0.0,1.0,1.0\n")
     add("table_one_row", d / "table_one_row.csv", "events", 0, args=_TABLE_ARGS, check=_check_no_numbers,
-        warns="camgaze.features:DegenerateWindowWarning",
+        warns="aspectus.events.features:DegenerateWindowWarning",
         why="a recording that stopped after one sample: no events, features NaN, never a made-up rate")
     (d / "mapping_broken.json").write_text('{"time_col": "time_ms", ')
     add("mapping_broken", d / "mapping_broken.json", "events_mapping", 2, r"mapping_broken\.json",
@@ -441,7 +441,7 @@ def write_reader_corpus(folder) -> list[Case]:
 
 
 def write_bids_corpus(folder) -> list[Case]:
-    """BIDS eye-tracking recordings with broken sidecars or data (run with ``camgaze validate``)."""
+    """BIDS eye-tracking recordings with broken sidecars or data (run with ``aspectus validate``)."""
     d = Path(folder)
     d.mkdir(parents=True, exist_ok=True)
     cases: list[Case] = []
@@ -477,7 +477,7 @@ def write_bids_corpus(folder) -> list[Case]:
 
 
 def write_segments_corpus(folder, clip: Path) -> list[Case]:
-    """Task-segment files with the faults hand-made spreadsheets have (given to ``camgaze process``)."""
+    """Task-segment files with the faults hand-made spreadsheets have (given to ``aspectus process``)."""
     d = Path(folder)
     d.mkdir(parents=True, exist_ok=True)
     cases = []
@@ -505,7 +505,7 @@ def write_segments_corpus(folder, clip: Path) -> list[Case]:
 
 
 def write_manifest_corpus(folder, clip: Path) -> list[Case]:
-    """Study manifests with the faults hand-made spreadsheets have (planned with ``camgaze batch --dry-run``)."""
+    """Study manifests with the faults hand-made spreadsheets have (planned with ``aspectus batch --dry-run``)."""
     d = Path(folder)
     d.mkdir(parents=True, exist_ok=True)
     cases = []
@@ -528,7 +528,7 @@ def write_manifest_corpus(folder, clip: Path) -> list[Case]:
 
 
 def main(argv=None) -> int:
-    out = Path((argv or sys.argv[1:] or ["camgaze-corpus"])[0])
+    out = Path((argv or sys.argv[1:] or ["aspectus-corpus"])[0])
     cases = write_video_corpus(out / "video") + write_reader_corpus(out / "tables") + write_bids_corpus(out / "bids")
     for c in cases:
         print(f"{c.name:22s} {c.command:9s} exit {c.exit_code}  {c.path}")

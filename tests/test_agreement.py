@@ -5,9 +5,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from camgaze.agreement import (ICC_FORMS, AgreementWarning, bland_altman, deming_slope, feature_agreement, icc,
+from aspectus.validation.agreement import (ICC_FORMS, AgreementWarning, bland_altman, deming_slope, feature_agreement, icc,
                                icc_all, lin_ccc, pearson, spearman)
-from camgaze.errors import ParameterError
+from aspectus.errors import ParameterError
 
 # Bland & Altman (1986) peak-flow readings (l/min), first reading per meter - field notes, data from memory
 LARGE = [494, 395, 516, 434, 476, 557, 413, 442, 650, 433, 417, 656, 267, 478, 178, 423, 427]

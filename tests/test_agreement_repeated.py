@@ -21,7 +21,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from camgaze.agreement import AgreementWarning, bland_altman, bland_altman_repeated, rmcorr, subject_means
+from aspectus.validation.agreement import AgreementWarning, bland_altman, bland_altman_repeated, rmcorr, subject_means
 
 # Bland & Altman (1986) peak-flow readings (l/min) - field notes, data from memory (as in test_agreement.py)
 LARGE = [494, 395, 516, 434, 476, 557, 413, 442, 650, 433, 417, 656, 267, 478, 178, 423, 427]
@@ -39,7 +39,7 @@ def _study(seed=0, sizes=(7, 4, 9, 1, 5), slope=0.6):
 
 
 def _ancova(x, y, subj):
-    """OLS of y on participant dummies (+ x): partial r of x, residual df, F-test p. Independent of camgaze."""
+    """OLS of y on participant dummies (+ x): partial r of x, residual df, F-test p. Independent of aspectus."""
     levels = sorted(set(subj))
     dummies = np.column_stack([(subj == s).astype(float) for s in levels])
     full = np.column_stack([dummies, x])

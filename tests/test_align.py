@@ -6,8 +6,8 @@ import pandas as pd
 import pytest
 
 from _lund import degrade, load_trial
-from camgaze.align import (apply_alignment, estimate_offset, find_marker, marker_alignment, user_alignment)
-from camgaze.errors import CamgazeInputError, ParameterError
+from aspectus.validation.align import (apply_alignment, estimate_offset, find_marker, marker_alignment, user_alignment)
+from aspectus.errors import AspectusInputError, ParameterError
 
 FRAME_S = 1.0 / 30.0  # one webcam frame
 
@@ -107,7 +107,7 @@ def test_marker_and_user_alignment():
     assert al.offset_s == pytest.approx(-1.25) and al.method == "marker: page_1" and al.confidence == 1.0
     msgs = pd.DataFrame({"label": ["start", "page_1"], "t_s": [0.5, 3.25]})
     assert find_marker(msgs, "PAGE_1") == 3.25
-    with pytest.raises(CamgazeInputError, match="no marker 'page_9'.*page_1"):
+    with pytest.raises(AspectusInputError, match="no marker 'page_9'.*page_1"):
         find_marker(msgs, "page_9")
     assert user_alignment(-1.0).to_clip_time([0.0, 1.0]).tolist() == [-1.0, 0.0]
     with pytest.raises(ParameterError):
@@ -116,7 +116,7 @@ def test_marker_and_user_alignment():
 
 def test_bad_alignment_input():
     cam = _samples(np.arange(5) / 30, np.zeros(5), np.zeros(5))
-    with pytest.raises(CamgazeInputError, match="too short"):
+    with pytest.raises(AspectusInputError, match="too short"):
         estimate_offset(cam, cam)
     t, yaw, pitch = _synthetic(duration_s=20.0)
     ref = _samples(t, yaw, pitch)
@@ -124,5 +124,5 @@ def test_bad_alignment_input():
         estimate_offset(ref, ref, signal="pupil")
     far = ref.assign(t_s=ref["t_s"])
     cam = _samples(np.arange(0, 10, 1 / 30), np.interp(np.arange(0, 10, 1 / 30), t, yaw), np.zeros(300))
-    with pytest.raises(CamgazeInputError, match="never overlap"):
+    with pytest.raises(AspectusInputError, match="never overlap"):
         estimate_offset(cam, far, search_range_s=30.0, min_overlap_s=15.0)

@@ -6,7 +6,7 @@ import json
 import numpy as np
 import pandas as pd
 
-from camgaze.atomic import write_parquet
+from aspectus.atomic import write_parquet
 
 
 def test_parquet_written_in_row_groups_reads_back_equal(tmp_path):
@@ -19,7 +19,7 @@ def test_parquet_written_in_row_groups_reads_back_equal(tmp_path):
     write_parquet(tmp_path / "s.parquet", df, metadata={"input_sha256": "ab"}, chunk_rows=16384)
     f = pq.ParquetFile(tmp_path / "s.parquet")
     assert f.num_row_groups == 3
-    assert json.loads(f.schema_arrow.metadata[b"camgaze"]) == {"input_sha256": "ab"}
+    assert json.loads(f.schema_arrow.metadata[b"aspectus"]) == {"input_sha256": "ab"}
     pd.testing.assert_frame_equal(pd.read_parquet(tmp_path / "s.parquet"), df)
     write_parquet(tmp_path / "empty.parquet", df.iloc[:0])
     assert len(pd.read_parquet(tmp_path / "empty.parquet")) == 0

@@ -17,11 +17,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.atomic import sha256_file, write_csv, write_json, write_parquet
-from camgaze.batch import AttemptLog, HashIndex, clip_is_done, plan_batch, run_batch
-from camgaze.engines import LocalEngine, default_workers
-from camgaze.errors import CamgazeError, CamgazeInputError, Cancelled, NoFaceError, VideoError
-from camgaze.pipeline import params_fingerprint
+from aspectus.atomic import sha256_file, write_csv, write_json, write_parquet
+from aspectus.studies.batch import AttemptLog, HashIndex, clip_is_done, plan_batch, run_batch
+from aspectus.studies.engines import LocalEngine, default_workers
+from aspectus.errors import AspectusError, AspectusInputError, Cancelled, NoFaceError, VideoError
+from aspectus.webcam.pipeline import params_fingerprint
 
 HERE = Path(__file__).resolve().parent
 
@@ -206,7 +206,7 @@ def test_manifest_batch_with_missing_files_segments_and_labels(tmp_path):
     assert set(res.study["class"]) == {"3A"}
     assert (out / "a__p01").is_dir() and (out / "b__p01").is_dir()
     # finished clips with a reference are paired for the validation mode
-    from camgaze.validate import read_validation_manifest
+    from aspectus.validation.pair import read_validation_manifest
 
     (pair,) = read_validation_manifest(out / "validation_manifest.csv")
     assert pair.webcam == out / "b__p01" and pair.reference == tmp_path / "ref" / "p01_s02.csv"
@@ -293,7 +293,7 @@ def test_hash_index_rehashes_only_on_change(tmp_path, monkeypatch):
     assert h == sha256_file(clip)
     idx.save()
     calls = []
-    import camgaze.batch as batch_mod
+    import aspectus.studies.batch as batch_mod
 
     monkeypatch.setattr(batch_mod, "sha256_file", lambda p: calls.append(p) or "computed")
     idx2 = HashIndex(tmp_path / "idx.json")
@@ -324,7 +324,7 @@ def test_second_run_on_same_outdir_is_refused(tmp_path):
             if (out / "status.csv").exists():
                 break
             threading.Event().wait(0.05)
-        with pytest.raises(CamgazeError, match="another batch run is using"):
+        with pytest.raises(AspectusError, match="another batch run is using"):
             _run(src, out, workers=1)
     finally:
         stop.set()
@@ -342,9 +342,9 @@ def test_dry_run_plan(tmp_path):
 
 
 def test_engine_parameters_checked():
-    with pytest.raises(CamgazeInputError, match="at least 1"):
+    with pytest.raises(AspectusInputError, match="at least 1"):
         LocalEngine(workers=0)
-    with pytest.raises(CamgazeInputError, match="spawn"):
+    with pytest.raises(AspectusInputError, match="spawn"):
         LocalEngine(start_method="fork")
     assert default_workers(n_tasks=1) == 1
     assert 1 <= default_workers() <= (os.cpu_count() or 1)
@@ -364,7 +364,7 @@ def test_progress_bars_for_study_and_workers(tmp_path, capsys):
 def test_results_of_an_earlier_method_revision_are_not_current(monkeypatch):
     """The parameters' fingerprint carries the method's revision: after a change that alters the samples for
     the same parameters (EXTRACTION_REVISION raised), a batch finds the old results out of date."""
-    import camgaze.pipeline as pipeline
+    import aspectus.webcam.pipeline as pipeline
 
     p = pipeline.ProcessParams()
     now = p.fingerprint()

@@ -20,8 +20,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.atomic import sha256_file
-from camgaze.batch import AttemptLog, run_batch
+from aspectus.atomic import sha256_file
+from aspectus.studies.batch import AttemptLog, run_batch
 
 pytestmark = pytest.mark.slow
 
@@ -39,7 +39,7 @@ def render_study_clips(base: Path) -> Path:
     marker = root / ".complete"
     if marker.exists():
         return root
-    from camgaze.render import render_clip, synth_trajectory
+    from aspectus.synth.render import render_clip, synth_trajectory
 
     shutil.rmtree(root, ignore_errors=True)
     (root / "good").mkdir(parents=True)
@@ -137,7 +137,7 @@ def test_killed_batch_restarts_without_redoing_or_losing_clips(study_clips, tmp_
     out = tmp_path / "out"
     log_path = out / ".batch" / "attempts.jsonl"
     env = dict(os.environ, PYTHONPATH=str(REPO))
-    cmd = [sys.executable, "-m", "camgaze", "batch", str(src), "-o", str(out), "--workers", "2", "--quiet"]
+    cmd = [sys.executable, "-m", "aspectus", "batch", str(src), "-o", str(out), "--workers", "2", "--quiet"]
     proc = subprocess.Popen(cmd, cwd=REPO, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     try:
         def one_done():
@@ -177,7 +177,7 @@ def test_killed_batch_restarts_without_redoing_or_losing_clips(study_clips, tmp_
 
 
 def test_cli_batch_manifest_labels_and_exit_codes(study_clips, tmp_path, capsys):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     man = tmp_path / "pilot.csv"
     good = study_clips / "good"

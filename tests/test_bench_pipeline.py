@@ -12,7 +12,7 @@ pytestmark = pytest.mark.slow
 
 
 def test_benchmark_prints_rounds_and_the_ratio(tmp_path, repo_root):
-    from camgaze.render import render_clip, synth_trajectory
+    from aspectus.synth.render import render_clip, synth_trajectory
 
     clip = tmp_path / "p03_s01_reading.mp4"
     render_clip(clip, synth_trajectory(duration_s=1.0, seed=6), size_px=(320, 180), fps=30.0, seed=6)

@@ -1,6 +1,6 @@
 """The desktop bundle builds and its smoke test passes (marked ``bundle``; a few minutes).
 
-Builds ``packaging/camgaze.spec`` with PyInstaller into a temporary folder
+Builds ``packaging/aspectus.spec`` with PyInstaller into a temporary folder
 (``packaging/build_linux.sh``), then runs ``packaging/smoke_test.sh`` on it:
 the bundle, started offscreen with an empty environment, processes the demo
 clip and opens and closes its main window. Skipped when PyInstaller is not
@@ -30,15 +30,15 @@ def test_bundle_builds_and_processes_the_demo_clip(tmp_path):
     build = subprocess.run(["bash", str(REPO / "packaging" / "build_linux.sh")], cwd=REPO, env=env,
                            capture_output=True, text=True, timeout=2000)
     assert build.returncode == 0, build.stdout[-3000:] + build.stderr[-3000:]
-    exe = tmp_path / "dist" / "camgaze" / "camgaze"
+    exe = tmp_path / "dist" / "aspectus" / "aspectus"
     assert exe.is_file()
-    internal = tmp_path / "dist" / "camgaze" / "_internal"
+    internal = tmp_path / "dist" / "aspectus" / "_internal"
     assert not (internal / "jax").exists() and not (internal / "jaxlib").exists(), "jax is in the bundle"
     models = {p.name for p in internal.rglob("*.tflite")}
     assert {"face_landmark_with_attention.tflite", "face_detection_short_range.tflite"} <= models, models
     assert list(internal.rglob("libqoffscreen.so")), "Qt's offscreen platform plugin is missing"
     smoke = subprocess.run(["bash", str(REPO / "packaging" / "smoke_test.sh")], cwd=REPO,
-                           env=dict(os.environ, CAMGAZE_BUNDLE=str(exe)), capture_output=True, text=True,
+                           env=dict(os.environ, ASPECTUS_BUNDLE=str(exe)), capture_output=True, text=True,
                            timeout=600)
     assert smoke.returncode == 0, smoke.stdout[-3000:] + smoke.stderr[-3000:]
     assert "smoke_test: OK" in smoke.stdout

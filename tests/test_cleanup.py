@@ -5,9 +5,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.cleanup import clean_samples, steffen_interpolate
-from camgaze.detect.noise import median_sd, rms_s2s_deg, robust_rms_s2s_deg
-from camgaze.errors import CamgazeInputError, ParameterError
+from aspectus.events.cleanup import clean_samples, steffen_interpolate
+from aspectus.events.detect.noise import median_sd, rms_s2s_deg, robust_rms_s2s_deg
+from aspectus.errors import AspectusInputError, ParameterError
 
 
 def _samples(n=60, rate=30.0, invalid=(), blink=()):
@@ -127,7 +127,7 @@ def test_all_invalid_and_single_sample():
                                                ([0.0, 0.1, 0.1, 0.2], "duplicate", "row 3")])
 def test_bad_timestamps_name_the_row(times, word, row):
     df = pd.DataFrame({"t_s": times, "valid": True, "yaw_deg": 0.0, "pitch_deg": 0.0})
-    with pytest.raises(CamgazeInputError) as err:
+    with pytest.raises(AspectusInputError) as err:
         clean_samples(df, source="p01_s01_samples.csv")
     assert word in str(err.value) and row in str(err.value) and "p01_s01_samples.csv" in str(err.value)
 
@@ -138,5 +138,5 @@ def test_bad_parameters():
         clean_samples(df, smoothing="wavelet")
     with pytest.raises(ParameterError):
         clean_samples(df, gap_fill_max_ms=-1)
-    with pytest.raises(CamgazeInputError, match="missing column"):
+    with pytest.raises(AspectusInputError, match="missing column"):
         clean_samples(df.drop(columns=["pitch_deg"]))

@@ -1,4 +1,4 @@
-"""Every input of the bad-input corpus (tests/corpus.py) through the ``camgaze`` command line.
+"""Every input of the bad-input corpus (tests/corpus.py) through the ``aspectus`` command line.
 
 Each case must end as its :class:`corpus.Case` says: a clear error naming the
 file and the cause (exit status + message), or a result whose quality
@@ -19,7 +19,7 @@ import pytest
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import corpus  # noqa: E402
 
-from camgaze.cli import main as cli_main  # noqa: E402
+from aspectus.cli import main as cli_main  # noqa: E402
 
 VIDEO_CASES = ("empty", "text_renamed", "folder", "missing", "audio_only", "zero_frames", "huge", "good",
                "truncated_mp4", "truncated_mkv", "damaged_middle", "wrong_extension", "fps5", "fps120", "vfr",
@@ -171,11 +171,11 @@ def test_several_bad_clips_in_one_run_do_not_stop_the_good_one(video_cases, tmp_
     """A real process: bad clips fail one line each, the good clip still finishes, exit status 1."""
     clips = [video_cases[n].path for n in ("empty", "text_renamed", "good", "no_face")]
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
-    proc = subprocess.run([sys.executable, "-m", "camgaze", "process", *map(str, clips), "-o", str(tmp_path),
+    proc = subprocess.run([sys.executable, "-m", "aspectus", "process", *map(str, clips), "-o", str(tmp_path),
                            "--quiet"], capture_output=True, text=True, env=env, timeout=220)
     assert proc.returncode == 1, proc.stderr
     assert "Traceback" not in proc.stderr
-    errors = [ln for ln in proc.stderr.splitlines() if ln.startswith("camgaze: error:")]
+    errors = [ln for ln in proc.stderr.splitlines() if ln.startswith("aspectus: error:")]
     assert len(errors) == 3, proc.stderr
     assert "3 of 4 clip(s) failed" in proc.stderr
     assert (tmp_path / "good" / "run.json").is_file()

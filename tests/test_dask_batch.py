@@ -11,8 +11,8 @@ import shutil
 import pandas as pd
 import pytest
 
-from camgaze.batch import run_batch
-from camgaze.engines import DaskEngine
+from aspectus.studies.batch import run_batch
+from aspectus.studies.engines import DaskEngine
 from test_batch_pipeline import render_study_clips
 
 pytestmark = pytest.mark.slow
@@ -78,7 +78,7 @@ def test_dask_cancel_leaves_clips_pending(cluster, study, tmp_path):
 
 
 def test_unreachable_scheduler_is_a_clear_error(study, tmp_path):
-    from camgaze.errors import CamgazeError
+    from aspectus.errors import AspectusError
 
-    with pytest.raises(CamgazeError, match="cannot reach the Dask scheduler at tcp://127.0.0.1:9"):
+    with pytest.raises(AspectusError, match="cannot reach the Dask scheduler at tcp://127.0.0.1:9"):
         run_batch(study, tmp_path / "out", engine=DaskEngine(address="tcp://127.0.0.1:9", connect_timeout_s=2))

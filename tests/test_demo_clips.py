@@ -1,4 +1,4 @@
-"""The bundled demo clips, processed end to end as a user would (camgaze process)."""
+"""The bundled demo clips, processed end to end as a user would (aspectus process)."""
 from __future__ import annotations
 
 import json
@@ -17,7 +17,7 @@ def demo_out(repo_root, tmp_path_factory):
     clips = sorted((repo_root / "sample_clips").glob("*.mp4"))
     assert clips, "sample_clips/ holds no clips - run scripts/make_sample_clips.py"
     out = tmp_path_factory.mktemp("demo")
-    r = subprocess.run([sys.executable, "-m", "camgaze", "process", *map(str, clips), "-o", str(out), "--quiet"],
+    r = subprocess.run([sys.executable, "-m", "aspectus", "process", *map(str, clips), "-o", str(out), "--quiet"],
                        capture_output=True, text=True, timeout=900)
     assert r.returncode == 0, r.stderr
     return out, clips, r.stdout
@@ -56,7 +56,7 @@ def test_segments_give_per_segment_features(demo_out, repo_root, tmp_path):
     out, clips, _ = demo_out
     p01 = [c for c in clips if "p01" in c.name][0]
     seg = repo_root / "sample_clips" / "segments_p01_s01.csv"
-    r = subprocess.run([sys.executable, "-m", "camgaze", "process", str(p01), "-o", str(out), "--segments", str(seg),
+    r = subprocess.run([sys.executable, "-m", "aspectus", "process", str(p01), "-o", str(out), "--segments", str(seg),
                         "--quiet"], capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr
     f = pd.read_csv(out / p01.stem / "features.csv")
@@ -69,12 +69,12 @@ def test_whole_study_validation_from_the_study_model(demo_out, repo_root, tmp_pa
     """The app's "Compare all clips": a manifest from the study, then the library's study validation.
 
     The per-pair numbers must be those of validating each pair on its own
-    (camgaze.validate.validate_pair), and clips without a reference or results
+    (aspectus.validation.pair.validate_pair), and clips without a reference or results
     are left out with a reason, not dropped silently.
     """
-    from camgaze.reference.demo import write_demo_reference
-    from camgaze.study import STATUS_DONE, new_study, write_validation_manifest
-    from camgaze.validate import read_validation_manifest, validate_pair, validate_study
+    from aspectus.synth.lab_recording import write_demo_reference
+    from aspectus.studies.project import STATUS_DONE, new_study, write_validation_manifest
+    from aspectus.validation.pair import read_validation_manifest, validate_pair, validate_study
 
     out, clips, _ = demo_out
     sc = repo_root / "sample_clips"
@@ -82,10 +82,10 @@ def test_whole_study_validation_from_the_study_model(demo_out, repo_root, tmp_pa
     lab2 = write_demo_reference(truth2, tmp_path / "lab", stem="p02_s01", offset_s=-0.8, seed=5)
     table2 = next(p for p in lab2.values() if str(p).endswith("_labtracker.csv"))
     mapping2 = json.loads(next(p for p in lab2.values() if str(p).endswith("_mapping.json")).read_text())
-    mapping2 = {k: v for k, v in mapping2.items() if k not in ("kind", "camgaze_version")}
+    mapping2 = {k: v for k, v in mapping2.items() if k not in ("kind", "aspectus_version")}
     (tmp_path / "linden_brook_p03_s01.mp4").write_bytes(b"\x00" * 64)  # never processed
 
-    s = new_study(path=tmp_path / "pilot.camgaze-study.json", name="Linden Brook reading pilot")
+    s = new_study(path=tmp_path / "pilot.aspectus-study.json", name="Linden Brook reading pilot")
     s.output_dir = s.relative(out)
     added, problems = s.add_paths([*clips, tmp_path / "linden_brook_p03_s01.mp4"])
     assert not problems

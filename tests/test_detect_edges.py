@@ -6,9 +6,9 @@ import pandas as pd
 import pytest
 from _signals import step_signal
 
-from camgaze.analysis import AnalysisParams, DegenerateWindowWarning, run_analysis
-from camgaze.detect import DETECTORS
-from camgaze.errors import CamgazeInputError
+from aspectus.events.analysis import AnalysisParams, DegenerateWindowWarning, run_analysis
+from aspectus.events.detect import DETECTORS
+from aspectus.errors import AspectusInputError
 
 ALL = sorted(DETECTORS)
 
@@ -68,7 +68,7 @@ def test_gaps_at_start_and_end(detector):
                                          ([0.0, 0.1, np.nan, 0.2, 0.3], "not a number")])
 def test_bad_timestamps_clear_error(detector, times, word):
     df = pd.DataFrame({"t_s": times, "valid": True, "yaw_deg": 0.0, "pitch_deg": 0.0})
-    with pytest.raises(CamgazeInputError) as err:
+    with pytest.raises(AspectusInputError) as err:
         run_analysis(df, AnalysisParams(detector=detector), source="p02_s01.csv")
     msg = str(err.value)
     assert word in msg and "p02_s01.csv" in msg and "row 3" in msg

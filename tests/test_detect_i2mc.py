@@ -5,10 +5,10 @@ import numpy as np
 import pytest
 from _signals import step_signal
 
-from camgaze.cleanup import clean_samples
-from camgaze.detect import detect_i2mc
-from camgaze.detect.i2mc import _kmeans2, clustering_weights
-from camgaze.errors import ParameterError
+from aspectus.events.cleanup import clean_samples
+from aspectus.events.detect import detect_i2mc
+from aspectus.events.detect.i2mc import _kmeans2, clustering_weights
+from aspectus.errors import ParameterError
 
 
 def test_kmeans_splits_two_clusters():

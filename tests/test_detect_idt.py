@@ -5,9 +5,9 @@ import numpy as np
 import pytest
 from _signals import PLAN, step_signal
 
-from camgaze.cleanup import clean_samples
-from camgaze.detect import detect_idt
-from camgaze.errors import ParameterError
+from aspectus.events.cleanup import clean_samples
+from aspectus.events.detect import detect_idt
+from aspectus.errors import ParameterError
 
 
 @pytest.mark.parametrize("rate_hz", [30.0, 60.0, 500.0])

@@ -5,10 +5,10 @@ import numpy as np
 import pytest
 from _signals import step_signal
 
-from camgaze.cleanup import clean_samples
-from camgaze.detect import detect_ivt
-from camgaze.detect.ivt import nh2010_thresholds, velocity_deg_s
-from camgaze.errors import ParameterError
+from aspectus.events.cleanup import clean_samples
+from aspectus.events.detect import detect_ivt
+from aspectus.events.detect.ivt import nh2010_thresholds, velocity_deg_s
+from aspectus.errors import ParameterError
 
 
 def _pairs(c):
@@ -70,7 +70,7 @@ def test_numpy_savgol_derivative_matches_scipy(window):
     # scipy.signal.savgol_filter as the reference implementation of Savitzky & Golay (1964)
     from scipy.signal import savgol_filter
 
-    from camgaze.detect.ivt import savgol_derivative
+    from aspectus.events.detect.ivt import savgol_derivative
 
     v = np.random.default_rng(window).normal(size=300).cumsum()
     ref = savgol_filter(v, window, 2, deriv=1, delta=0.002, mode="interp")

@@ -6,10 +6,10 @@ import pandas as pd
 import pytest
 from _signals import step_signal
 
-from camgaze.analysis import AnalysisParams, run_analysis
-from camgaze.detect import Candidates, build_events
-from camgaze.detect.postprocess import merge_candidates, trim_by_speed
-from camgaze.schema import EVENT_COLUMNS
+from aspectus.events.analysis import AnalysisParams, run_analysis
+from aspectus.events.detect import Candidates, build_events
+from aspectus.events.detect.postprocess import merge_candidates, trim_by_speed
+from aspectus.schema import EVENT_COLUMNS
 
 
 def _arrays(n=100, rate=100.0):
@@ -137,7 +137,7 @@ def test_short_isolated_fixation_is_dropped():
 def test_means_indistinguishable_uses_the_chi_square_quantile():
     from scipy.stats import chi2
 
-    from camgaze.detect.postprocess import means_indistinguishable
+    from aspectus.events.detect.postprocess import means_indistinguishable
 
     # the 2-dof chi-square quantile is -2 ln(alpha): scipy.stats (reference library)
     crit = chi2.ppf(0.95, 2)
@@ -155,7 +155,7 @@ def test_means_indistinguishable_uses_the_chi_square_quantile():
 def test_means_indistinguishable_holds_its_level_on_simulated_fixations():
     # Monte Carlo: two fragments of the same fixation, white Gaussian noise; the test must call them
     # different in about alpha of the cases (binomial SD at 20000 draws: 0.0015)
-    from camgaze.detect.postprocess import means_indistinguishable
+    from aspectus.events.detect.postprocess import means_indistinguishable
 
     rng = np.random.default_rng(7)
     n1, n2, sx, sy, reps = 4, 7, 0.4, 1.5, 20000
@@ -167,7 +167,7 @@ def test_means_indistinguishable_holds_its_level_on_simulated_fixations():
 
 
 def test_pooled_within_sd_matches_a_direct_computation():
-    from camgaze.detect.postprocess import pooled_within_sd_deg
+    from aspectus.events.detect.postprocess import pooled_within_sd_deg
 
     rng = np.random.default_rng(3)
     n = 60
@@ -209,7 +209,7 @@ def test_merge_by_test_joins_noisy_fragments_but_not_precise_ones():
 
 
 def test_merge_alpha_parameter_checked_and_reported():
-    from camgaze.errors import ParameterError
+    from aspectus.errors import ParameterError
 
     for bad in (-0.1, 1.0, float("nan")):
         with pytest.raises(ParameterError, match="merge_alpha"):
@@ -237,7 +237,7 @@ def test_means_test_with_one_axis_and_empty_fragments():
 
     from scipy.stats import chi2
 
-    from camgaze.detect.postprocess import _chi2_1_quantile, means_indistinguishable
+    from aspectus.events.detect.postprocess import _chi2_1_quantile, means_indistinguishable
 
     for q in (0.9, 0.95, 0.99):
         assert _chi2_1_quantile(q) == pytest.approx(chi2.ppf(q, 1), rel=1e-9)

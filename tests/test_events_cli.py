@@ -1,4 +1,4 @@
-"""`camgaze events TABLE -o OUTDIR` on foreign gaze tables and on camgaze samples tables."""
+"""`aspectus events TABLE -o OUTDIR` on foreign gaze tables and on aspectus samples tables."""
 from __future__ import annotations
 
 import json
@@ -10,9 +10,9 @@ import pandas as pd
 import pytest
 from _signals import step_signal
 
-from camgaze.atomic import sha256_file
-from camgaze.cli import main
-from camgaze.screen import ScreenGeometry
+from aspectus.atomic import sha256_file
+from aspectus.cli import main
+from aspectus.reference.screen import ScreenGeometry
 
 SCREEN = ScreenGeometry(width_mm=380.0, height_mm=300.0, distance_mm=670.0, width_px=1024, height_px=768)
 PX_OPTS = ["--screen-size-mm", "380", "300", "--screen-res-px", "1024", "768", "--distance-mm", "670"]
@@ -80,7 +80,7 @@ def test_degree_table_tab_delimited_with_segments_and_windows(tmp_path):
 
 
 @pytest.mark.parametrize("suffix", [".parquet", ".csv"])
-def test_camgaze_samples_table_needs_no_column_options(tmp_path, suffix):
+def test_aspectus_samples_table_needs_no_column_options(tmp_path, suffix):
     df, truth = step_signal(rate_hz=30.0)
     df["t_s"] += 3.0
     df["blink"] = False
@@ -129,7 +129,7 @@ def test_entry_point_runs_as_a_program(tmp_path):
     df, _ = step_signal(rate_hz=30.0)
     src = tmp_path / "samples.csv"
     df.to_csv(src, index=False)
-    r = subprocess.run([sys.executable, "-m", "camgaze", "events", str(src), "-o", str(tmp_path / "o")],
+    r = subprocess.run([sys.executable, "-m", "aspectus", "events", str(src), "-o", str(tmp_path / "o")],
                        capture_output=True, text=True, timeout=300)
     assert r.returncode == 0, r.stderr
     assert (tmp_path / "o" / "events.csv").is_file()
@@ -138,7 +138,7 @@ def test_entry_point_runs_as_a_program(tmp_path):
 
 
 def test_saved_mapping_keeps_the_tables_own_clock(tmp_path):
-    from camgaze.reference import TableMapping
+    from aspectus.reference import TableMapping
 
     src = tmp_path / "p04_s01.csv"
     _px_table(src, delimiter=",", t0_ms=120000.0)

@@ -4,9 +4,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from camgaze.eye_anchors import (ANCHOR_POINTS, PATIENCE_FRAMES, EyeAnchorTracker, anchor_reach_px,
+from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, PATIENCE_FRAMES, EyeAnchorTracker, anchor_reach_px,
                                  translation_given_rotation)
-from camgaze.geometry import camera_matrix, head_rotation
+from aspectus.geometry import camera_matrix, head_rotation
 
 
 def _texture(shape=(240, 320), seed=0):
@@ -64,7 +64,7 @@ def test_a_failed_match_keeps_the_last_offset_and_a_new_template_is_cut_without_
 
 
 def test_reach_covers_what_the_matching_reads():
-    from camgaze.eye_anchors import OFFSET_RADII, PATCH_RADII, RESCALE_FRACTION, SEARCH_RADII
+    from aspectus.webcam.eye_anchors import OFFSET_RADII, PATCH_RADII, RESCALE_FRACTION, SEARCH_RADII
 
     r = 11.0
     worst = OFFSET_RADII * r + SEARCH_RADII * r + PATCH_RADII * r * (1 + RESCALE_FRACTION) + 1.5  # rounding

@@ -7,11 +7,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.analysis import AnalysisParams, DegenerateWindowWarning, run_analysis, write_analysis
-from camgaze.atomic import sha256_file
-from camgaze.errors import CamgazeInputError, ParameterError
-from camgaze.features import FEATURE_COLUMNS, compute_features
-from camgaze.segments import fixed_windows, read_segments
+from aspectus.events.analysis import AnalysisParams, DegenerateWindowWarning, run_analysis, write_analysis
+from aspectus.atomic import sha256_file
+from aspectus.errors import AspectusInputError, ParameterError
+from aspectus.events.features import FEATURE_COLUMNS, compute_features
+from aspectus.events.segments import fixed_windows, read_segments
 
 
 def _events(rows):
@@ -115,10 +115,10 @@ def test_read_segments_and_errors(tmp_path):
              ("label,onset_s,offset_s\n,0,5\n", "no label", "row 2")]
     for text, what, where in cases:
         p.write_text(text)
-        with pytest.raises(CamgazeInputError) as err:
+        with pytest.raises(AspectusInputError) as err:
             read_segments(p)
         assert what in str(err.value) and where in str(err.value) and p.name in str(err.value)
-    with pytest.raises(CamgazeInputError, match="not found"):
+    with pytest.raises(AspectusInputError, match="not found"):
         read_segments(tmp_path / "absent.csv")
 
 
@@ -143,7 +143,7 @@ def test_exports_and_sidecar(tmp_path):
     assert side["detector"] == AnalysisParams().detector
     assert side["params"] == AnalysisParams(window_s=5.0, step_s=5.0).to_dict()
     assert side["input"]["sha256"] == sha256_file(src)
-    for k in ("camgaze", "numpy", "scipy"):
+    for k in ("aspectus", "numpy", "scipy"):
         assert side["software"][k]
     for k in ("noise_rms_s2s_deg", "valid_frac", "loss_frac", "sample_rate_hz"):
         assert k in side["quality"]

@@ -1,7 +1,7 @@
 """Per-frame geometry: the eye crop, and the thread and child-process runners giving the same rows.
 
 Reference for every comparison: the same computation on the full picture in
-this process (camgaze's own thread path), so any difference is an error of
+this process (aspectus's own thread path), so any difference is an error of
 the crop or of the transport.
 """
 from __future__ import annotations
@@ -13,17 +13,17 @@ import time
 import numpy as np
 import pytest
 
-from camgaze.frame_geometry import (RECORD_WIDTH, FrameGeometry, GeometryProcess, eye_crop_box, frame_item,
+from aspectus.webcam.frame_geometry import (RECORD_WIDTH, FrameGeometry, GeometryProcess, eye_crop_box, frame_item,
                                     start_geometry)
-from camgaze.landmarks import FaceTracker
+from aspectus.webcam.landmarks import FaceTracker
 
 pytestmark = pytest.mark.slow
 
 
 @pytest.fixture(scope="module")
 def frames_and_faces(tmp_path_factory):
-    from camgaze.render import render_clip, synth_trajectory
-    from camgaze.video import iter_frames
+    from aspectus.synth.render import render_clip, synth_trajectory
+    from aspectus.webcam.video import iter_frames
 
     clip = tmp_path_factory.mktemp("geo") / "p01_s01.mp4"
     render_clip(clip, synth_trajectory(duration_s=1.5, seed=4, head_motion=True), size_px=(640, 360), fps=30.0,
@@ -136,7 +136,7 @@ def test_user_script_without_main_guard_runs_once(frames_and_faces, tmp_path):
     script = tmp_path / "my_analysis.py"
     script.write_text(
         "import numpy as np\n"
-        "from camgaze.frame_geometry import GeometryProcess\n"
+        "from aspectus.webcam.frame_geometry import GeometryProcess\n"
         "print('top-level line', flush=True)\n"
         f"pts = np.load({str(tmp_path / 'pts.npy')!r})\n"
         "rows = []\n"
@@ -147,8 +147,8 @@ def test_user_script_without_main_guard_runs_once(frames_and_faces, tmp_path):
         "print('rows', len(rows), int(sum(r[1] for r in rows)), flush=True)\n")
     # a decoy package of the same name in the working folder must not be what the child loads
     work = tmp_path / "work"
-    (work / "camgaze").mkdir(parents=True)
-    (work / "camgaze" / "__init__.py").write_text("raise ImportError('decoy camgaze picked up')\n")
+    (work / "aspectus").mkdir(parents=True)
+    (work / "aspectus" / "__init__.py").write_text("raise ImportError('decoy aspectus picked up')\n")
     res = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120, cwd=work)
     assert res.returncode == 0, res.stderr
     assert res.stdout.count("top-level line") == 1, res.stdout
@@ -179,7 +179,7 @@ def test_error_in_the_geometry_thread_reaches_the_caller_without_a_hang(frames_a
     """
     import threading
 
-    from camgaze.frame_geometry import GeometryThread
+    from aspectus.webcam.frame_geometry import GeometryThread
 
     frs, obs = frames_and_faces
 

@@ -1,8 +1,8 @@
-"""Pins the signs of camgaze's one coordinate frame (camgaze/schema.py)."""
+"""Pins the signs of aspectus's one coordinate frame (aspectus/schema.py)."""
 import numpy as np
 import pytest
 
-from camgaze.geometry import (angles_to_gaze_vector, camera_matrix, gaze_vector_to_angles, head_rotation,
+from aspectus.geometry import (angles_to_gaze_vector, camera_matrix, gaze_vector_to_angles, head_rotation,
                               ray_sphere_near, rotation_to_head_angles, umeyama)
 
 

@@ -3,7 +3,7 @@
 Two kinds of property:
 
 * robustness - for any bytes, and for near-valid tables with odd cells, each
-  parser returns a well-formed result or raises ``CamgazeInputError`` naming
+  parser returns a well-formed result or raises ``AspectusInputError`` naming
   the file (``tests/fuzz/targets.py`` states the rule; the atheris target in
   ``tests/fuzz/fuzz_readers.py`` uses the same rule);
 * correctness - a table written from known numbers reads back as those numbers
@@ -24,7 +24,7 @@ from hypothesis import strategies as st
 sys.path.insert(0, str(Path(__file__).resolve().parent / "fuzz"))
 import targets  # noqa: E402
 
-from camgaze.errors import CamgazeInputError  # noqa: E402
+from aspectus.errors import AspectusInputError  # noqa: E402
 
 FUZZ = settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture,
                                                                         HealthCheck.too_slow])
@@ -119,7 +119,7 @@ def test_manifests_give_safe_distinct_output_keys(rows, sep):
        lost=st.sets(st.integers(0, 59), max_size=10), sep=st.sampled_from([",", ";", "\t"]),
        eol=st.sampled_from(["\n", "\r\n"]), missing=st.sampled_from(["", "n/a", "NaN", "NA"]))
 def test_a_written_table_reads_back_as_written(tmp_path_factory, t0_ms, dt_ms, xy, lost, sep, eol, missing):
-    from camgaze.reference import TableMapping, read_gaze_table
+    from aspectus.reference import TableMapping, read_gaze_table
 
     folder = tmp_path_factory.mktemp("roundtrip")
     n = len(xy)
@@ -133,7 +133,7 @@ def test_a_written_table_reads_back_as_written(tmp_path_factory, t0_ms, dt_ms, x
     mapping = TableMapping(time_col="t", time_unit="ms", x_col="x", y_col="y", units="deg")
     want_valid = np.array([i not in lost for i in range(n)])
     if not want_valid.any():
-        with pytest.raises(CamgazeInputError, match="gaze_table.csv.*no valid gaze sample"):
+        with pytest.raises(AspectusInputError, match="gaze_table.csv.*no valid gaze sample"):
             read_gaze_table(p, mapping)
         return
     df = read_gaze_table(p, mapping)
@@ -149,7 +149,7 @@ def test_a_written_table_reads_back_as_written(tmp_path_factory, t0_ms, dt_ms, x
 @given(segs=st.lists(st.tuples(st.text(st.characters(whitelist_categories=("L", "N")), min_size=1, max_size=12),
                                st.floats(0, 1e4), st.floats(1e-3, 1e3)), min_size=1, max_size=12))
 def test_a_written_segment_file_reads_back_as_written(tmp_path_factory, segs):
-    from camgaze.segments import read_segments
+    from aspectus.events.segments import read_segments
 
     p = tmp_path_factory.mktemp("seg") / "segments.csv"
     p.write_text("label,onset_s,offset_s\n" + "".join(f"{lab},{on:.6f},{on + d:.6f}\n" for lab, on, d in segs),
@@ -167,7 +167,7 @@ def test_plain_tsv_named_tsv_gz_reads_like_the_gzipped_file(tmp_path):
     (tmp_path / "b").mkdir()
     targets.read_bids_target(rows, tmp_path / "a", compress=True)
     targets.read_bids_target(rows, tmp_path / "b", compress=False)
-    from camgaze.reference.bids import read_bids_physio
+    from aspectus.reference.bids import read_bids_physio
 
     name = "sub-p01_ses-s01_task-reading_recording-eye1_physio.tsv.gz"
     a = read_bids_physio(tmp_path / "a" / name).samples
@@ -192,13 +192,13 @@ def test_atheris_target_runs_without_atheris():
 
 def test_the_rule_catches_a_parser_that_crashes(monkeypatch):
     """The outcome rule is not vacuous: a parser raising KeyError, or an error not naming the file, is a failure."""
-    from camgaze.errors import CamgazeInputError
+    from aspectus.errors import AspectusInputError
 
     def crashes(data, folder):
         raise KeyError("x")
 
     def vague(data, folder):
-        raise CamgazeInputError("bad value")
+        raise AspectusInputError("bad value")
 
     monkeypatch.setitem(targets.TARGETS, "table", crashes)
     with pytest.raises(targets.FuzzFailure, match="KeyError"):

@@ -2,9 +2,9 @@
 import numpy as np
 import pytest
 
-from camgaze.gaze import _deming_slope, decouple_reference, eye_aspect_ratio, fuse_iris_centres, smooth_pose
-from camgaze.geometry import head_rotation
-from camgaze.limbus import fit_circle
+from aspectus.webcam.gaze import _deming_slope, decouple_reference, eye_aspect_ratio, fuse_iris_centres, smooth_pose
+from aspectus.geometry import head_rotation
+from aspectus.webcam.limbus import fit_circle
 
 
 def test_deming_slope_minimises_the_deming_objective():
@@ -63,7 +63,7 @@ def test_circle_fit_shrugs_off_an_outlier():
 
 def test_eye_aspect_ratio_of_a_constructed_eye():
     """EAR = (|p2-p6| + |p3-p5|) / (2 |p1-p4|) (Soukupova & Cech 2016)."""
-    from camgaze.landmarks import RIGHT_EAR_POINTS
+    from aspectus.webcam.landmarks import RIGHT_EAR_POINTS
 
     pts = np.zeros((478, 3))
     p1, p2, p3, p4, p5, p6 = RIGHT_EAR_POINTS
@@ -81,7 +81,7 @@ def test_pose_smoothing_keeps_a_steady_turn_and_removes_jitter():
     R = np.stack([head_rotation(y + rng.normal(0, 0.5), 0, 0) for y in yaw])
     tr = np.tile([0, 0, 600.0], (n, 1)) + rng.normal(0, 0.3, (n, 3))
     Rs, ts = smooth_pose(R, tr, np.ones(n, bool), t_s, 300.0)
-    from camgaze.geometry import rotation_to_head_angles
+    from aspectus.geometry import rotation_to_head_angles
 
     est = rotation_to_head_angles(Rs)[0]
     inner = slice(10, -10)

@@ -1,6 +1,6 @@
 """The desktop app end to end, offscreen: real clips, the real decoder, the real worker process.
 
-Clips are tiny (1.5 s, 640x360) renders of camgaze.render, made once per session.
+Clips are tiny (1.5 s, 640x360) renders of aspectus.synth.render, made once per session.
 """
 from __future__ import annotations
 
@@ -19,7 +19,7 @@ pytestmark = [pytest.mark.gui, pytest.mark.slow]
 from PySide6.QtCore import QMimeData, QPointF, Qt, QTimer, QUrl  # noqa: E402
 from PySide6.QtGui import QDropEvent  # noqa: E402
 
-from camgaze import study as study_mod  # noqa: E402
+from aspectus.studies import project as study_mod  # noqa: E402
 
 RUN_TIMEOUT_MS = 240_000
 
@@ -27,7 +27,7 @@ RUN_TIMEOUT_MS = 240_000
 @pytest.fixture(scope="session")
 def tiny_clips(tmp_path_factory) -> Path:
     """Two short rendered clips of the Linden Brook pilot plus a broken one."""
-    from camgaze.render import render_clip, synth_trajectory
+    from aspectus.synth.render import render_clip, synth_trajectory
 
     d = tmp_path_factory.mktemp("linden_brook_clips")
     for i, stem in enumerate(("p01_s01", "p02_s01")):
@@ -42,7 +42,7 @@ def _make_study(tmp_path: Path, clips: Path, stems) -> Path:
     d.mkdir()
     for stem in stems:
         shutil.copy(clips / f"{stem}.mp4", d / f"{stem}.mp4")
-    s = study_mod.new_study(path=d / "pilot.camgaze-study.json", name="Linden Brook Primary School reading pilot")
+    s = study_mod.new_study(path=d / "pilot.aspectus-study.json", name="Linden Brook Primary School reading pilot")
     added, problems = s.add_paths(sorted(d.glob("*.mp4")))
     assert not problems
     s.save()
@@ -310,7 +310,7 @@ def test_drop_files_and_folder(qtbot, window, tiny_clips, tmp_path):
     shutil.copy(tiny_clips / "p01_s01.mp4", d / "p01_s01.mp4")
     shutil.copy(tiny_clips / "p02_s01.mp4", d / "p02_s01.mp4")
     (d / "notes.txt").write_text("consent forms are in the office")
-    window.save_study_as(tmp_path / "dropped.camgaze-study.json")
+    window.save_study_as(tmp_path / "dropped.aspectus-study.json")
     mime = QMimeData()
     mime.setUrls([QUrl.fromLocalFile(str(d)), QUrl.fromLocalFile(str(d / "notes.txt"))])
     ev = QDropEvent(QPointF(10, 10), Qt.CopyAction, mime, Qt.LeftButton, Qt.NoModifier)
@@ -319,19 +319,19 @@ def test_drop_files_and_folder(qtbot, window, tiny_clips, tmp_path):
     assert window.clip_list.topLevelItemCount() == 2
     assert "notes.txt" in window.last_warning[1]
     window.flush_saves()
-    assert len(json.loads((tmp_path / "dropped.camgaze-study.json").read_text())["clips"]) == 2
+    assert len(json.loads((tmp_path / "dropped.aspectus-study.json").read_text())["clips"]) == 2
 
 
 def test_unreadable_study_is_reported(qtbot, window, tmp_path):
-    p = tmp_path / "broken.camgaze-study.json"
+    p = tmp_path / "broken.aspectus-study.json"
     p.write_text("{ not json")
     assert not window.open_study(p)
-    assert "broken.camgaze-study.json" in window.last_warning[1]
+    assert "broken.aspectus-study.json" in window.last_warning[1]
     assert window.study.path is None  # the previous (empty) study stays open
 
 
 def test_gui_command_registered_and_checks_its_argument(tmp_path, capsys):
-    from camgaze.cli import build_parser, main
+    from aspectus.cli import build_parser, main
 
     args = build_parser().parse_args(["gui", str(tmp_path / "s.json")])
     assert args.command == "gui" and args.study.endswith("s.json")
@@ -340,8 +340,8 @@ def test_gui_command_registered_and_checks_its_argument(tmp_path, capsys):
 
 
 def test_validation_tab_compares_with_reference_and_exports_report(qtbot, window, processed, tmp_path):
-    from camgaze.reference.demo import write_demo_reference
-    from camgaze.render import synth_trajectory
+    from aspectus.synth.lab_recording import write_demo_reference
+    from aspectus.synth.render import synth_trajectory
 
     truth = synth_trajectory(duration_s=1.5, seed=10).samples  # the trajectory p01_s01 was rendered from
     lab = processed.parent / "lab"
@@ -355,7 +355,7 @@ def test_validation_tab_compares_with_reference_and_exports_report(qtbot, window
     vv = window.validation_view
     # a plain table with its column mapping: remembered in the study
     m = json.loads(mapping_file.read_text())
-    m = {k: v for k, v in m.items() if k not in ("kind", "camgaze_version")}
+    m = {k: v for k, v in m.items() if k not in ("kind", "aspectus_version")}
     assert vv.set_reference(table, mapping=m)
     assert window.study.mappings[window.study.relative(table)]["time_col"] == m["time_col"]
     assert vv.mapping_btn.isEnabled()
@@ -389,8 +389,8 @@ def test_validation_tab_compares_with_reference_and_exports_report(qtbot, window
 
 def test_compare_all_clips_uses_given_offset_and_can_be_cancelled(qtbot, window, processed, tmp_path):
     """The validation tab's whole-study comparison: progress, a summary table, failed pairs named, cancel."""
-    from camgaze.reference.demo import write_demo_reference
-    from camgaze.render import synth_trajectory
+    from aspectus.synth.lab_recording import write_demo_reference
+    from aspectus.synth.render import synth_trajectory
 
     assert window.open_study(processed)
     vv = window.validation_view
@@ -436,7 +436,7 @@ def test_compare_all_clips_uses_given_offset_and_can_be_cancelled(qtbot, window,
     assert (out / "report.html").exists() and (out / "summary.csv").exists()
     # cancelled while the first pair is compared (the flag is set from the worker, right after that pair):
     # it stops before the second, and the earlier complete result in the same folder is left as it was
-    import camgaze.validate as validate_mod
+    import aspectus.validation.pair as validate_mod
 
     before = (out / "summary.csv").read_bytes()
     real = validate_mod.validate_pair

@@ -1,10 +1,10 @@
-"""camgaze.overlay: landmark loops, gaze-ray direction, face blurring (Qt-free)."""
+"""aspectus.webcam.overlay: landmark loops, gaze-ray direction, face blurring (Qt-free)."""
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from camgaze import overlay as ov
+from aspectus.webcam import overlay as ov
 
 
 def _loop_edges(loop):

@@ -47,7 +47,7 @@ def test_params_panel_emits_validated_params(qtbot):
     # every AnalysisParams field is offered
     from dataclasses import fields
 
-    from camgaze.analysis import AnalysisParams
+    from aspectus.events.analysis import AnalysisParams
 
     assert {f.name for f in fields(AnalysisParams)} == set(panel._widgets)
     # values load back without emitting

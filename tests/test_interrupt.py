@@ -1,6 +1,6 @@
 """No data lost: processing killed at random points, and damaged caches.
 
-``camgaze process`` runs in a real subprocess on several clips into one
+``aspectus process`` runs in a real subprocess on several clips into one
 OUTDIR and is killed with SIGKILL at seeded random times, again and again into
 the same OUTDIR. After every kill:
 
@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.atomic import sha256_file
+from aspectus.atomic import sha256_file
 
 REPO = Path(__file__).resolve().parents[1]
 N_KILLS = 6
@@ -35,7 +35,7 @@ SEED = 20240607
 
 @pytest.fixture(scope="module")
 def clips(tmp_path_factory) -> list[Path]:
-    from camgaze.render import render_clip, synth_trajectory
+    from aspectus.synth.render import render_clip, synth_trajectory
 
     d = tmp_path_factory.mktemp("interrupt_clips")
     out = []
@@ -47,7 +47,7 @@ def clips(tmp_path_factory) -> list[Path]:
 
 def _start(clips, out_dir: Path, *extra) -> subprocess.Popen:
     env = dict(os.environ, PYTHONPATH=str(REPO), GLOG_minloglevel="2")
-    return subprocess.Popen([sys.executable, "-m", "camgaze", "process", *map(str, clips), "-o", str(out_dir),
+    return subprocess.Popen([sys.executable, "-m", "aspectus", "process", *map(str, clips), "-o", str(out_dir),
                              "--quiet", *extra], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
 
 
@@ -142,8 +142,8 @@ def test_kill_at_random_points_leaves_every_output_intact(clips, tmp_path):
 @pytest.mark.slow
 @pytest.mark.timeout(300)
 def test_damaged_cache_is_detected_and_rebuilt(clips, tmp_path):
-    from camgaze.analysis import AnalysisParams
-    from camgaze.pipeline import CacheError, load_samples, process_clip, reanalyse
+    from aspectus.events.analysis import AnalysisParams
+    from aspectus.webcam.pipeline import CacheError, load_samples, process_clip, reanalyse
 
     clip = clips[0]
     out = tmp_path / clip.stem
@@ -182,13 +182,13 @@ def replace(src, dst, *a, **kw):
     if count[0] == n:
         os.kill(os.getpid(), signal.SIGKILL)
 os.replace = replace
-from camgaze.cli import main
+from aspectus.cli import main
 sys.exit(main(sys.argv[2:]))
 """
 
 
 def _writes_of_one_run(clip: Path, out_root: Path, extra) -> int:
-    """Number of atomic renames one ``camgaze process`` run over ``out_root`` makes (same hook, never firing)."""
+    """Number of atomic renames one ``aspectus process`` run over ``out_root`` makes (same hook, never firing)."""
     env = dict(os.environ, PYTHONPATH=str(REPO), GLOG_minloglevel="2")
     code = _KILL_AFTER_NTH_WRITE.replace("if count[0] == n:", "if False:") + ""
     code = code.replace("sys.exit(main(sys.argv[2:]))",

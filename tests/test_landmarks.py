@@ -1,7 +1,7 @@
 """Face tracker: fast landmark reading, one-face mode and the move to several faces.
 
 The checks run the real MediaPipe face mesh on the photograph shipped with
-scikit-image and on clips rendered by camgaze.render; the reference for the
+scikit-image and on clips rendered by aspectus.synth.render; the reference for the
 fast reader is the face mesh's own result object read attribute by
 attribute (the library's documented interface).
 """
@@ -10,8 +10,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from camgaze.errors import ParameterError
-from camgaze.landmarks import N_LANDMARKS, FaceTracker, landmarks_array, landmarks_array_slow
+from aspectus.errors import ParameterError
+from aspectus.webcam.landmarks import N_LANDMARKS, FaceTracker, landmarks_array, landmarks_array_slow
 
 
 def _photo():
@@ -60,8 +60,8 @@ def test_bad_tracker_settings():
 
 
 def _frames(tmp_path, name, *, extra_faces=0, seconds=1.0, seed=3):
-    from camgaze.render import render_clip, synth_trajectory
-    from camgaze.video import iter_frames
+    from aspectus.synth.render import render_clip, synth_trajectory
+    from aspectus.webcam.video import iter_frames
 
     clip = tmp_path / f"{name}.mp4"
     render_clip(clip, synth_trajectory(duration_s=seconds, seed=seed), size_px=(640, 360), fps=30.0,
@@ -86,7 +86,7 @@ def test_second_face_moves_to_several_and_keeps_the_largest(tmp_path):
     assert len(found) >= 0.9 * len(frames)
     assert sum(o.face_count > 1 for o in found) > 0.5 * len(found)
     # the subject (centre of the picture, the larger face) is followed throughout, never the bystander
-    # placed at 0.87 of the width (camgaze.render)
+    # placed at 0.87 of the width (aspectus.synth.render)
     xs = np.array([o.points_px[:, 0].mean() for o in found])
     assert np.all(np.abs(xs - 320.0) < 0.25 * 640), xs.round()
     # with max_faces=1 the tracker never looks for a second face
@@ -110,8 +110,8 @@ def test_student_out_of_view_is_not_replaced_by_the_bystander(tmp_path):
     """The followed student leaves the picture for half a second while a bystander stays in view: those
     frames are 'face not found' (with the bystander counted as in view), and the student is followed again
     when back - not the bystander for the rest of the clip."""
-    from camgaze.render import render_clip, synth_trajectory
-    from camgaze.video import iter_frames
+    from aspectus.synth.render import render_clip, synth_trajectory
+    from aspectus.webcam.video import iter_frames
 
     n = 90
     vis = np.ones(n, bool)
@@ -127,7 +127,7 @@ def test_student_out_of_view_is_not_replaced_by_the_bystander(tmp_path):
             seen.append(tr.faces_in_view)
     xs = np.array([np.nan if o is None else o.points_px[:, 0].mean() for o in obs])
     followed = np.isfinite(xs)
-    # the student is centred at 0.5 of the width, the bystander at 0.87 (camgaze.render)
+    # the student is centred at 0.5 of the width, the bystander at 0.87 (aspectus.synth.render)
     assert np.all(np.abs(xs[followed] - 320.0) < 0.25 * 640), xs.round()
     assert followed[50:].mean() > 0.9  # back on the student after the return (a few frames to re-detect)
     hidden = slice(33, 44)  # inside the gap, past the mesh's own loss of the face
@@ -179,15 +179,15 @@ def test_graph_start_up_lines_stay_off_stderr_with_other_threads_busy(tmp_path):
     import subprocess
     import sys
 
-    from camgaze.render import render_clip
-    from camgaze.render_trajectory import synth_trajectory
+    from aspectus.synth.render import render_clip
+    from aspectus.synth.trajectory import synth_trajectory
 
     clip = render_clip(tmp_path / "two.mp4", synth_trajectory(duration_s=0.5, seed=3), size_px=(640, 360),
                        fps=30.0, seed=3, extra_faces=1).path
     code = (
         "import sys, threading, time\n"
-        "from camgaze.video import iter_frames\n"
-        "from camgaze.landmarks import FaceTracker\n"
+        "from aspectus.webcam.video import iter_frames\n"
+        "from aspectus.webcam.landmarks import FaceTracker\n"
         f"frames = [f.image for f in iter_frames({str(clip)!r})]\n"
         "def busy():\n"
         "    end = time.time() + 5\n"

@@ -1,11 +1,11 @@
-"""The limbus fit when the lids cover part of the iris (camgaze.limbus)."""
+"""The limbus fit when the lids cover part of the iris (aspectus.webcam.limbus)."""
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from camgaze.landmarks import RIGHT_EYE_OUTLINE
-from camgaze.limbus import EDGE_NOISE_PX, fit_circle, limbus_centres
+from aspectus.webcam.landmarks import RIGHT_EYE_OUTLINE
+from aspectus.webcam.limbus import EDGE_NOISE_PX, fit_circle, limbus_centres
 
 
 def _rim_and_lid(centre, r, lid_below_px, rng):
@@ -103,7 +103,7 @@ def test_limbus_centre_with_the_lower_lid_over_the_iris():
 
 def test_many_frames_at_once_give_what_each_frame_gives_alone():
     """limbus_centres_many fits all eyes of several frames together; each result is that of its frame alone."""
-    from camgaze.limbus import limbus_centres_many
+    from aspectus.webcam.limbus import limbus_centres_many
 
     outline = np.array(RIGHT_EYE_OUTLINE)
     items = []
@@ -157,7 +157,7 @@ def test_circle_fit_matches_a_reference_robust_least_squares():
 
 
 def test_degenerate_point_sets_do_not_raise():
-    from camgaze.limbus import fit_circles
+    from aspectus.webcam.limbus import fit_circles
 
     pts = np.zeros((3, 10, 2))
     pts[1] = np.c_[np.cos(np.linspace(0, 6, 10)), np.sin(np.linspace(0, 6, 10))] * 5  # a proper circle

@@ -2,7 +2,7 @@
 
 Source of the reference labels: Andersson, Larsson, Holmqvist, Stridh &
 Nystrom (2017), Behavior Research Methods 49(2) - the files in
-../shared/reference/lund2013 (README there). Floors from camgaze's issue 3.
+../shared/reference/lund2013 (README there). Floors from aspectus's issue 3.
 
 Definitions used here:
 * kappa: Cohen's kappa of fixation-vs-not per sample, one value per trial,
@@ -24,7 +24,7 @@ import numpy as np
 import pytest
 from _lund import CODERS, cohen_kappa, degrade, load_all, runs
 
-from camgaze.analysis import AnalysisParams, run_analysis
+from aspectus.events.analysis import AnalysisParams, run_analysis
 
 SEEDS = (0, 1, 2, 3, 4)
 

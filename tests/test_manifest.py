@@ -5,8 +5,8 @@ from pathlib import Path
 
 import pytest
 
-from camgaze.errors import CamgazeInputError
-from camgaze.manifest import assign_keys, discover_clips, labels_from_path, load_jobs, read_manifest, ClipJob
+from aspectus.errors import AspectusInputError
+from aspectus.studies.clips import assign_keys, discover_clips, labels_from_path, load_jobs, read_manifest, ClipJob
 
 
 def _touch(p: Path, data: bytes = b"x") -> Path:
@@ -58,7 +58,7 @@ def test_manifest_semicolon_bom_and_missing_clip_is_kept(tmp_path):
 def test_manifest_errors_name_file_and_line(tmp_path, text, words, line):
     man = tmp_path / "bad.csv"
     man.write_text(text, encoding="utf-8")
-    with pytest.raises(CamgazeInputError) as ei:
+    with pytest.raises(AspectusInputError) as ei:
         read_manifest(man)
     msg = str(ei.value)
     assert words in msg and "bad.csv" in msg
@@ -69,9 +69,9 @@ def test_manifest_errors_name_file_and_line(tmp_path, text, words, line):
 def test_manifest_not_utf8_and_not_found(tmp_path):
     man = tmp_path / "latin.csv"
     man.write_bytes("clip\nschüler.mp4\n".encode("latin-1"))
-    with pytest.raises(CamgazeInputError, match="not a UTF-8 text file"):
+    with pytest.raises(AspectusInputError, match="not a UTF-8 text file"):
         read_manifest(man)
-    with pytest.raises(CamgazeInputError, match="manifest not found"):
+    with pytest.raises(AspectusInputError, match="manifest not found"):
         read_manifest(tmp_path / "nope.csv")
 
 
@@ -85,7 +85,7 @@ def test_discovery_recursive_by_extension_skips_hidden_and_outdir(tmp_path):
     assert [(j.participant, j.session) for j in jobs] == [("p01", "s01"), ("p02", "s01")]
     flat = discover_clips(tmp_path, recursive=False, extensions=(".txt",))
     assert [j.rel for j in flat] == ["notes.txt"]
-    with pytest.raises(CamgazeInputError, match="no clips found"):
+    with pytest.raises(AspectusInputError, match="no clips found"):
         discover_clips(tmp_path, recursive=False)
 
 
@@ -110,8 +110,8 @@ def test_keys_disambiguate_shared_stems_deterministically(tmp_path):
 
 def test_load_jobs_dispatch(tmp_path):
     clip = _touch(tmp_path / "p01.mp4")
-    with pytest.raises(CamgazeInputError, match="single clip"):
+    with pytest.raises(AspectusInputError, match="single clip"):
         load_jobs(clip)
-    with pytest.raises(CamgazeInputError, match="not found"):
+    with pytest.raises(AspectusInputError, match="not found"):
         load_jobs(tmp_path / "missing")
     assert [j.key for j in load_jobs(tmp_path)] == ["p01"]

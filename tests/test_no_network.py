@@ -29,7 +29,7 @@ SAMPLE_CLIPS = REPO / "sample_clips"
 
 _HOOK = r'''
 import os, socket
-_log = os.environ["CAMGAZE_NET_LOG"]
+_log = os.environ["ASPECTUS_NET_LOG"]
 def _deny(what):
     def f(*a, **k):
         with open(_log, "a") as fh:
@@ -53,7 +53,7 @@ def _demo_clips(tmp_path_factory) -> list[Path]:
     clips = sorted(SAMPLE_CLIPS.glob("linden_brook_*.mp4"))
     if clips:
         return clips
-    from camgaze.render import render_clip, synth_trajectory
+    from aspectus.synth.render import render_clip, synth_trajectory
 
     d = tmp_path_factory.mktemp("demo")
     out = []
@@ -78,7 +78,7 @@ def blocked_network(monkeypatch, tmp_path):
     """Patch the socket module in this process; yields the list of attempts."""
     log = tmp_path / "net.log"
     log.write_text("")
-    monkeypatch.setenv("CAMGAZE_NET_LOG", str(log))
+    monkeypatch.setenv("ASPECTUS_NET_LOG", str(log))
     saved = {n: getattr(socket, n) for n in ("socket", "create_connection", "getaddrinfo", "gethostbyname",
                                              "gethostbyname_ex", "gethostbyaddr")}
     exec(compile(_HOOK, "net_hook", "exec"), {})
@@ -100,7 +100,7 @@ def test_in_process_hook_catches_a_connection(blocked_network):
 @pytest.mark.slow
 @pytest.mark.timeout(600)
 def test_processing_the_demo_study_opens_no_socket(blocked_network, demo_clips, tmp_path, capsys):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     out = tmp_path / "out"
     assert main(["process", *map(str, demo_clips), "-o", str(out), "--quiet"]) == 0, capsys.readouterr().err
@@ -121,7 +121,7 @@ def _hook_env(tmp_path: Path) -> tuple[dict, Path]:
     (hook_dir / "sitecustomize.py").write_text(_HOOK)
     log = tmp_path / "net.log"
     log.write_text("")
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(hook_dir), str(REPO)]), CAMGAZE_NET_LOG=str(log),
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(hook_dir), str(REPO)]), ASPECTUS_NET_LOG=str(log),
                GLOG_minloglevel="2")
     return env, log
 
@@ -136,7 +136,7 @@ def test_a_fresh_interpreter_with_a_socket_hook_processes_a_clip_offline(demo_cl
     assert "create_connection" in log.read_text()
     log.write_text("")
     clip = demo_clips[-1]
-    p = subprocess.run([sys.executable, "-m", "camgaze", "process", str(clip), "-o", str(tmp_path / "out"), "--quiet"],
+    p = subprocess.run([sys.executable, "-m", "aspectus", "process", str(clip), "-o", str(tmp_path / "out"), "--quiet"],
                        env=env, capture_output=True, text=True, timeout=500)
     assert p.returncode == 0, p.stderr
     assert log.read_text() == "", f"network use while processing: {log.read_text()}"
@@ -168,7 +168,7 @@ def test_no_native_code_connects_either(demo_clips, tmp_path):
             "except OSError: pass"], control_log)
     assert inet_calls(control_log), "strace did not see a deliberate connection attempt"
     log = tmp_path / "process.strace"
-    p = traced([sys.executable, "-m", "camgaze", "process", str(demo_clips[-1]), "-o", str(tmp_path / "out"), "--quiet"],
+    p = traced([sys.executable, "-m", "aspectus", "process", str(demo_clips[-1]), "-o", str(tmp_path / "out"), "--quiet"],
                log)
     assert p.returncode == 0, p.stderr
     assert inet_calls(log) == [], "network connection attempts:\n" + "\n".join(inet_calls(log))
@@ -177,12 +177,12 @@ def test_no_native_code_connects_either(demo_clips, tmp_path):
 @pytest.mark.slow
 @pytest.mark.timeout(600)
 def test_a_batch_run_on_local_worker_processes_is_offline(demo_clips, tmp_path):
-    """``camgaze batch`` with its default engine (local worker processes, which inherit the hook) opens no socket."""
+    """``aspectus batch`` with its default engine (local worker processes, which inherit the hook) opens no socket."""
     env, log = _hook_env(tmp_path)
     folder = tmp_path / "study"
     folder.mkdir()
     (folder / demo_clips[-1].name).symlink_to(demo_clips[-1])
-    p = subprocess.run([sys.executable, "-m", "camgaze", "batch", str(folder), "-o", str(tmp_path / "out"),
+    p = subprocess.run([sys.executable, "-m", "aspectus", "batch", str(folder), "-o", str(tmp_path / "out"),
                         "--workers", "1", "--quiet"], env=env, capture_output=True, text=True, timeout=500)
     assert p.returncode == 0, p.stderr
     assert (tmp_path / "out" / demo_clips[-1].stem / "run.json").is_file()

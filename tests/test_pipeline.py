@@ -1,4 +1,4 @@
-"""process_clip / reanalyse / camgaze process on small rendered clips through the real decoder."""
+"""process_clip / reanalyse / aspectus process on small rendered clips through the real decoder."""
 from __future__ import annotations
 
 import json
@@ -10,18 +10,18 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.atomic import sha256_file
-from camgaze.errors import NoFaceError
-from camgaze.pipeline import CacheError, ProcessParams, load_samples, process_clip, reanalyse
-from camgaze.schema import REQUIRED_SAMPLE_COLUMNS, SAMPLE_COLUMNS
+from aspectus.atomic import sha256_file
+from aspectus.errors import NoFaceError
+from aspectus.webcam.pipeline import CacheError, ProcessParams, load_samples, process_clip, reanalyse
+from aspectus.schema import REQUIRED_SAMPLE_COLUMNS, SAMPLE_COLUMNS
 
 pytestmark = pytest.mark.slow
 
 
 @pytest.fixture(scope="module")
 def clip(tmp_path_factory):
-    from camgaze.render import render_clip
-    from camgaze.render_trajectory import synth_trajectory
+    from aspectus.synth.render import render_clip
+    from aspectus.synth.trajectory import synth_trajectory
 
     d = tmp_path_factory.mktemp("pipe")
     traj = synth_trajectory(duration_s=3.0, seed=5, task="scene", blink_rate_per_min=30)
@@ -94,7 +94,7 @@ def test_reuse_skips_landmarking_and_damaged_cache_is_rebuilt(processed, clip):
 
 
 def test_reanalyse_changes_results_without_landmarking(processed):
-    from camgaze.analysis import AnalysisParams
+    from aspectus.events.analysis import AnalysisParams
 
     res, out = processed
     d = AnalysisParams().to_dict()
@@ -118,7 +118,7 @@ def test_reanalyse_changes_results_without_landmarking(processed):
 def test_verdict_notes_repaired_timestamps(processed):
     """Frames whose timestamps were missing or out of order are placed just after the previous one by the
     decoder; the verdict says how many, so nobody reads those intervals as measured."""
-    from camgaze.pipeline import summarise
+    from aspectus.webcam.pipeline import summarise
 
     res, _ = processed
     s = summarise(res.samples, res.analysis, {"decode": {"frames": 90, "pts_missing": 1, "pts_non_increasing": 2}})
@@ -128,8 +128,8 @@ def test_verdict_notes_repaired_timestamps(processed):
 
 
 def test_clip_without_face(tmp_path):
-    from camgaze.render import render_clip
-    from camgaze.render_trajectory import synth_trajectory
+    from aspectus.synth.render import render_clip
+    from aspectus.synth.trajectory import synth_trajectory
 
     traj = synth_trajectory(duration_s=1.0, seed=1)
     res = render_clip(tmp_path / "empty_room.mp4", traj, size_px=(320, 240), face_visible=[False] * 30)
@@ -142,25 +142,25 @@ def test_cli_reports_bad_clip_and_finishes_the_others(clip, tmp_path):
     bad = tmp_path / "broken.mp4"
     bad.write_text("this is not a video")
     out = tmp_path / "cli"
-    r = subprocess.run([sys.executable, "-m", "camgaze", "process", str(bad), str(clip), "-o", str(out), "--quiet"],
+    r = subprocess.run([sys.executable, "-m", "aspectus", "process", str(bad), str(clip), "-o", str(out), "--quiet"],
                        capture_output=True, text=True, timeout=600)
     assert r.returncode == 1
     assert "broken.mp4" in r.stderr and "not a readable video" in r.stderr
     assert "Traceback" not in r.stderr
     # the face mesh's start-up lines from its C++ side are kept off the user's terminal (each new graph is run
-    # once on a blank picture while stderr is silenced: camgaze.landmarks._warm_up)
+    # once on a blank picture while stderr is silenced: aspectus.webcam.landmarks._warm_up)
     assert "inference_feedback_manager" not in r.stderr and "TensorFlow Lite" not in r.stderr
     assert (out / clip.stem / "run.json").exists()
     assert "frames" in r.stdout and "face found" in r.stdout
     assert "reused" not in r.stdout
     # a second run says that it reused the gaze samples, and how to redo them
-    r2 = subprocess.run([sys.executable, "-m", "camgaze", "process", str(clip), "-o", str(out), "--quiet"],
+    r2 = subprocess.run([sys.executable, "-m", "aspectus", "process", str(clip), "-o", str(out), "--quiet"],
                         capture_output=True, text=True, timeout=600)
     assert r2.returncode == 0 and "gaze samples reused" in r2.stdout and "--no-reuse" in r2.stdout
 
 
 def test_cli_outdir_that_is_a_file_is_refused_before_any_work(clip, tmp_path, capsys):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     not_a_dir = tmp_path / "results.txt"
     not_a_dir.write_text("notes of the pilot")
@@ -175,7 +175,7 @@ def test_cli_clip_whose_output_cannot_be_written_fails_alone(clip, tmp_path, cap
     naming it, the next clip still finishes, the exit code says a clip failed."""
     import shutil
 
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     other = tmp_path / "p09_s02.mp4"
     shutil.copy(clip, other)
@@ -191,7 +191,7 @@ def test_cli_clip_whose_output_cannot_be_written_fails_alone(clip, tmp_path, cap
 
 
 def test_bad_parameters_are_refused():
-    from camgaze.errors import ParameterError
+    from aspectus.errors import ParameterError
 
     with pytest.raises(ParameterError, match="field of view"):
         ProcessParams(fov_deg=5)
@@ -200,8 +200,8 @@ def test_bad_parameters_are_refused():
 
 
 def test_gaze_parameters_are_checked():
-    from camgaze.errors import ParameterError
-    from camgaze.gaze import GazeParams
+    from aspectus.errors import ParameterError
+    from aspectus.webcam.gaze import GazeParams
 
     with pytest.raises(ParameterError, match="blink_rel_threshold"):
         GazeParams(blink_rel_threshold=1.5)
@@ -219,7 +219,7 @@ def test_gaze_parameters_are_checked():
 def test_cli_gaze_setting_switches_the_eye_anchors_off(clip, tmp_path):
     """``--gaze eye_anchors=false`` keeps the head translation from PnP; the sidecar records it."""
     out = tmp_path / "cli"
-    r = subprocess.run([sys.executable, "-m", "camgaze", "process", str(clip), "-o", str(out), "--quiet",
+    r = subprocess.run([sys.executable, "-m", "aspectus", "process", str(clip), "-o", str(out), "--quiet",
                         "--gaze", "eye_anchors=false"], capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr
     run = json.loads((out / clip.stem / "run.json").read_text())
@@ -230,7 +230,7 @@ def test_cli_gaze_setting_switches_the_eye_anchors_off(clip, tmp_path):
     assert run2["extraction"]["eye_anchor_frames"] > 0.8 * len(with_anchors.samples)
     off = pd.read_parquet(out / clip.stem / "samples.parquet")
     assert not np.allclose(off["head_x_mm"], with_anchors.samples["head_x_mm"], equal_nan=True)  # it does differ
-    bad = subprocess.run([sys.executable, "-m", "camgaze", "process", str(clip), "-o", str(tmp_path / "x"),
+    bad = subprocess.run([sys.executable, "-m", "aspectus", "process", str(clip), "-o", str(tmp_path / "x"),
                           "--quiet", "--gaze", "anchors=off"], capture_output=True, text=True, timeout=600)
     assert bad.returncode != 0 and "unknown gaze parameter 'anchors'" in bad.stderr and "eye_anchors" in bad.stderr
     assert "Traceback" not in bad.stderr
@@ -243,7 +243,7 @@ def test_cli_gaze_setting_switches_the_eye_anchors_off(clip, tmp_path):
     ("--set", "min_fixation_ms=abc", "--set min_fixation_ms='abc': expected"),
 ])
 def test_cli_bad_setting_values_name_the_parameter(clip, tmp_path, option, setting, message):
-    r = subprocess.run([sys.executable, "-m", "camgaze", "process", str(clip), "-o", str(tmp_path / "x"), "--quiet",
+    r = subprocess.run([sys.executable, "-m", "aspectus", "process", str(clip), "-o", str(tmp_path / "x"), "--quiet",
                         option, setting], capture_output=True, text=True, timeout=300)
     assert r.returncode != 0
     assert message in r.stderr, r.stderr
@@ -254,8 +254,8 @@ def test_cli_bad_setting_values_name_the_parameter(clip, tmp_path, option, setti
 def test_frames_with_only_a_bystander_are_invalid_and_reported(tmp_path):
     """The student leaves the picture for half a second while a classmate stays in view: those rows stay in
     the table, invalid, with the classmate counted in face_count; run.json and the verdict say how many."""
-    from camgaze.render import render_clip
-    from camgaze.render_trajectory import synth_trajectory
+    from aspectus.synth.render import render_clip
+    from aspectus.synth.trajectory import synth_trajectory
 
     vis = np.ones(90, bool)
     vis[30:45] = False
@@ -272,19 +272,19 @@ def test_frames_with_only_a_bystander_are_invalid_and_reported(tmp_path):
     assert ft["other_faces_only_frames"] >= 11 and ft["reacquired_at_frames"] == []
     assert run["quality"]["other_faces_only_frames"] == ft["other_faces_only_frames"]
     assert f"In {ft['other_faces_only_frames']} frame(s) the followed face was not found while other faces were in view" in run["quality"]["verdict"]
-    # the distance stays the student's: the classmate sits farther back (camgaze.render)
+    # the distance stays the student's: the classmate sits farther back (aspectus.synth.render)
     after = s.iloc[50:]
     assert after["face_found"].mean() > 0.9
     assert abs(np.nanmedian(after["distance_mm"]) - np.nanmedian(s.iloc[:30]["distance_mm"])) < 60
 
 
 def test_cli_unexpected_fault_in_one_clip_does_not_stop_the_others(clip, tmp_path, capsys, monkeypatch):
-    """A fault inside camgaze (here: the geometry process dying, simulated) ends that clip with one line that
+    """A fault inside aspectus (here: the geometry process dying, simulated) ends that clip with one line that
     names it and the fault; the other clips are still processed."""
     import shutil
 
-    import camgaze.pipeline as pipeline
-    from camgaze.cli import main
+    import aspectus.webcam.pipeline as pipeline
+    from aspectus.cli import main
 
     real = pipeline.process_clip
 
@@ -313,8 +313,8 @@ def test_a_clip_too_short_to_measure_is_not_usable(tmp_path):
     measure: the verdict says so instead of 'Usable ... noise nan'; the CLI prints n/a and warnings on one line."""
     import subprocess as sp
 
-    from camgaze.render import render_clip
-    from camgaze.render_trajectory import synth_trajectory
+    from aspectus.synth.render import render_clip
+    from aspectus.synth.trajectory import synth_trajectory
 
     clip = render_clip(tmp_path / "p11_s01.mp4", synth_trajectory(duration_s=0.2, seed=2), size_px=(320, 240),
                        fps=30.0, seed=2).path
@@ -325,12 +325,12 @@ def test_a_clip_too_short_to_measure_is_not_usable(tmp_path):
     # one frame: no noise figure at all
     one = render_clip(tmp_path / "p11_s02.mp4", synth_trajectory(duration_s=1 / 30, seed=2), size_px=(320, 240),
                       fps=30.0, seed=2).path
-    r = sp.run([sys.executable, "-m", "camgaze", "process", str(one), "-o", str(tmp_path / "cli"), "--quiet"],
+    r = sp.run([sys.executable, "-m", "aspectus", "process", str(one), "-o", str(tmp_path / "cli"), "--quiet"],
                capture_output=True, text=True, timeout=300)
     assert r.returncode == 0, r.stderr
     assert "p11_s02.mp4: 1 frame (" in r.stdout and "noise n/a" in r.stdout and "nan" not in r.stdout
     assert "Not usable: the clip is too short" in r.stdout
-    warn = [ln for ln in r.stderr.splitlines() if "camgaze: warning:" in ln]
+    warn = [ln for ln in r.stderr.splitlines() if "aspectus: warning:" in ln]
     assert warn and not any("features = compute_features" in ln for ln in r.stderr.splitlines())
 
 
@@ -355,7 +355,7 @@ def test_a_clip_that_cannot_be_read_is_an_input_error(tmp_path):
     names the clip and says it cannot be read - not that the outputs could not be written."""
     import os
 
-    from camgaze.errors import VideoError
+    from aspectus.errors import VideoError
 
     if os.geteuid() == 0:
         # root reads everything; an unreadable stand-in: a FIFO nobody writes to would hang, so use /proc

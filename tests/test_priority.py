@@ -12,7 +12,7 @@ import threading
 
 import pytest
 
-from camgaze._env import lower_process_priority, lower_this_thread_priority
+from aspectus._env import lower_process_priority, lower_this_thread_priority
 
 linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="per-thread nice values are Linux's")
 has_nice = pytest.mark.skipif(not hasattr(os, "setpriority"), reason="this platform has no nice values")
@@ -57,7 +57,7 @@ def test_only_the_calling_thread_is_lowered():
 
 @pytest.fixture(scope="module")
 def short_clip(tmp_path_factory):
-    from camgaze.render import render_clip, synth_trajectory
+    from aspectus.synth.render import render_clip, synth_trajectory
 
     clip = tmp_path_factory.mktemp("prio") / "p07_s01_reading.mp4"
     render_clip(clip, synth_trajectory(duration_s=1.0, seed=2), size_px=(320, 180), fps=30.0, seed=2)
@@ -66,7 +66,7 @@ def short_clip(tmp_path_factory):
 
 @linux_only
 def test_the_decoder_thread_runs_at_lower_priority(short_clip):
-    from camgaze.video import FramePrefetcher
+    from aspectus.webcam.video import FramePrefetcher
 
     own = os.getpriority(os.PRIO_PROCESS, threading.get_native_id())
     pf = FramePrefetcher(short_clip, lower_priority=5, depth=2)  # a short queue: the thread is still decoding
@@ -83,7 +83,7 @@ def test_the_decoder_thread_runs_at_lower_priority(short_clip):
 def test_the_geometry_process_is_lowered_and_the_samples_do_not_change(short_clip, monkeypatch):
     import numpy as np
 
-    from camgaze import pipeline
+    from aspectus.webcam import pipeline
 
     seen = []
     real = pipeline.lower_process_priority
@@ -111,18 +111,18 @@ has_affinity = pytest.mark.skipif(not (sys.platform.startswith("linux") and hasa
 
 @has_affinity
 def test_background_cpu_is_the_last_allowed_one_and_can_be_switched_off(monkeypatch):
-    from camgaze._env import background_cpus
+    from aspectus._env import background_cpus
 
     allowed = sorted(os.sched_getaffinity(0))
-    monkeypatch.delenv("CAMGAZE_PIN_BACKGROUND", raising=False)
+    monkeypatch.delenv("ASPECTUS_PIN_BACKGROUND", raising=False)
     assert background_cpus() == {allowed[-1]}
-    monkeypatch.setenv("CAMGAZE_PIN_BACKGROUND", "0")
+    monkeypatch.setenv("ASPECTUS_PIN_BACKGROUND", "0")
     assert background_cpus() is None
 
 
 @has_affinity
 def test_the_decoder_thread_is_placed_on_the_background_cpu_alone(short_clip):
-    from camgaze.video import FramePrefetcher
+    from aspectus.webcam.video import FramePrefetcher
 
     allowed = set(os.sched_getaffinity(0))
     cpu = {max(allowed)}
@@ -137,9 +137,9 @@ def test_the_decoder_thread_is_placed_on_the_background_cpu_alone(short_clip):
 
 @has_affinity
 def test_the_geometry_process_is_placed_on_the_background_cpu(short_clip, monkeypatch):
-    from camgaze import pipeline
+    from aspectus.webcam import pipeline
 
-    monkeypatch.delenv("CAMGAZE_PIN_BACKGROUND", raising=False)
+    monkeypatch.delenv("ASPECTUS_PIN_BACKGROUND", raising=False)
     seen = []
     real = pipeline.pin_to_cpus
 
@@ -155,6 +155,6 @@ def test_the_geometry_process_is_placed_on_the_background_cpu(short_clip, monkey
     assert seen == [({max(allowed)}, True, {max(allowed)})]
     assert os.sched_getaffinity(0) == allowed
     # a batch worker leaves placement to the operating system (several would share the one CPU)
-    monkeypatch.setenv("CAMGAZE_PIN_BACKGROUND", "0")
+    monkeypatch.setenv("ASPECTUS_PIN_BACKGROUND", "0")
     _, meta = pipeline.extract_samples(short_clip, geometry_mode="process")
     assert meta["background_cpus"] is None and seen[-1][0] is None and seen[-1][1] is False

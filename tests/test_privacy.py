@@ -3,7 +3,7 @@
 Blurring is measured, not assumed: the high-frequency energy (variance of the
 Laplacian) of the face region must drop to a small fraction of the unblurred
 frame's. A recognisable face has strong edges (eyes, brows, mouth); the
-mosaic-and-smooth of :func:`camgaze.overlay.blur_region` leaves almost none.
+mosaic-and-smooth of :func:`aspectus.webcam.overlay.blur_region` leaves almost none.
 """
 from __future__ import annotations
 
@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze._env import import_cv2
+from aspectus._env import import_cv2
 
 REPO = Path(__file__).resolve().parents[1]
 SAMPLE_CLIPS = REPO / "sample_clips"
@@ -40,7 +40,7 @@ def hf_energy(img: np.ndarray, box=None) -> float:
 @pytest.fixture(scope="module")
 def faces_clip(tmp_path_factory):
     """A short clip of a subject and one bystander, 640x360, noise-free so the energy measure is about faces."""
-    from camgaze.render import render_clip, synth_trajectory
+    from aspectus.synth.render import render_clip, synth_trajectory
 
     d = tmp_path_factory.mktemp("privacy")
     tr = synth_trajectory(duration_s=1.0 + 1 / 60, seed=31)
@@ -50,14 +50,14 @@ def faces_clip(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def frame(faces_clip) -> np.ndarray:
-    from camgaze.video import read_frame_at
+    from aspectus.webcam.video import read_frame_at
 
     return read_frame_at(faces_clip, 0.3).image
 
 
 @pytest.fixture(scope="module")
 def face_boxes(frame):
-    from camgaze.privacy import find_face_boxes
+    from aspectus.privacy.blur import find_face_boxes
 
     boxes = find_face_boxes(frame)
     assert len(boxes) >= 2, f"the detector should find the subject and the bystander, found {boxes}"
@@ -67,7 +67,7 @@ def face_boxes(frame):
 # --- previews and overlays -------------------------------------------------------------------
 
 def test_overlay_blurs_the_face_by_default(frame):
-    from camgaze.overlay import FrameLandmarker, draw_overlay, face_box_from_landmarks
+    from aspectus.webcam.overlay import FrameLandmarker, draw_overlay, face_box_from_landmarks
 
     lm = FrameLandmarker()
     try:
@@ -88,7 +88,7 @@ def test_overlay_blurs_the_face_by_default(frame):
 
 
 def test_saved_preview_blurs_every_face(frame, face_boxes, tmp_path):
-    from camgaze.privacy import save_preview_image
+    from aspectus.privacy.blur import save_preview_image
 
     cv2 = import_cv2()
     p = save_preview_image(tmp_path / "preview.png", frame)
@@ -107,7 +107,7 @@ def test_saved_preview_blurs_every_face(frame, face_boxes, tmp_path):
 
 
 def test_preview_without_a_detectable_face_is_blurred_whole(tmp_path):
-    from camgaze.privacy import blur_faces
+    from aspectus.privacy.blur import blur_faces
 
     rng = np.random.default_rng(0)
     img = (rng.random((120, 160, 3)) * 255).astype(np.uint8)
@@ -116,10 +116,10 @@ def test_preview_without_a_detectable_face_is_blurred_whole(tmp_path):
 
 
 def test_preview_rejects_unknown_picture_formats(frame, tmp_path):
-    from camgaze.errors import CamgazeInputError
-    from camgaze.privacy import save_preview_image
+    from aspectus.errors import AspectusInputError
+    from aspectus.privacy.blur import save_preview_image
 
-    with pytest.raises(CamgazeInputError, match=r"preview\.gif.*\.gif"):
+    with pytest.raises(AspectusInputError, match=r"preview\.gif.*\.gif"):
         save_preview_image(tmp_path / "preview.gif", frame)
     assert not (tmp_path / "preview.gif").exists()
 
@@ -202,7 +202,7 @@ def _scan_exports(out: Path, *, frame_px: int) -> list[Path]:
 @pytest.mark.slow
 @pytest.mark.timeout(600)
 def test_exports_of_the_demo_study_hold_no_pictures(tmp_path, capsys):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     clip = SAMPLE_CLIPS / "linden_brook_p01_s01.mp4"
     ref = SAMPLE_CLIPS / "lab_tracker" / "sub-p01_ses-s01_task-reading_recording-eye1_physio.tsv.gz"
@@ -238,11 +238,11 @@ def test_a_video_frame_is_not_taken_for_a_plot(frame):
     assert _is_plot(b.getvalue())
 
 
-# --- camgaze purge ---------------------------------------------------------------------------
+# --- aspectus purge ---------------------------------------------------------------------------
 
 @pytest.fixture(scope="module")
 def processed(faces_clip, tmp_path_factory):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     out = tmp_path_factory.mktemp("purge_base")
     assert main(["process", str(faces_clip), "-o", str(out), "--quiet"]) == 0
@@ -257,7 +257,7 @@ def _copy(src: Path, dst: Path) -> Path:
 
 
 def test_purge_dry_run_lists_and_keeps(processed, tmp_path, capsys):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     out = _copy(processed, tmp_path / "out")
     before = sorted(p.relative_to(out) for p in out.rglob("*"))
@@ -271,7 +271,7 @@ def test_purge_dry_run_lists_and_keeps(processed, tmp_path, capsys):
 
 
 def test_purge_asks_and_refuses_without_a_terminal(processed, tmp_path, capsys, monkeypatch):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     out = _copy(processed, tmp_path / "out")
     monkeypatch.setattr(sys, "stdin", io.StringIO("yes\n"))  # not a terminal: never taken as an answer
@@ -281,7 +281,7 @@ def test_purge_asks_and_refuses_without_a_terminal(processed, tmp_path, capsys, 
 
 
 def test_purge_answer_other_than_yes_deletes_nothing(processed, tmp_path, capsys, monkeypatch):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     out = _copy(processed, tmp_path / "out")
 
@@ -298,9 +298,9 @@ def test_purge_answer_other_than_yes_deletes_nothing(processed, tmp_path, capsys
 
 
 def test_purge_deletes_per_frame_data_and_keeps_results(processed, tmp_path, capsys):
-    from camgaze.batch import clip_is_done
-    from camgaze.cli import main
-    from camgaze.pipeline import CacheError, load_samples
+    from aspectus.studies.batch import clip_is_done
+    from aspectus.cli import main
+    from aspectus.webcam.pipeline import CacheError, load_samples
 
     out = _copy(processed, tmp_path / "out")
     d = out / "linden_brook_p01_s01"
@@ -331,8 +331,8 @@ def test_purge_deletes_per_frame_data_and_keeps_results(processed, tmp_path, cap
 
 
 def test_purge_then_process_rebuilds_the_samples(processed, faces_clip, tmp_path):
-    from camgaze.cli import main
-    from camgaze.pipeline import load_samples
+    from aspectus.cli import main
+    from aspectus.webcam.pipeline import load_samples
 
     out = _copy(processed, tmp_path / "out")
     assert main(["purge", str(out), "--yes"]) == 0
@@ -342,8 +342,8 @@ def test_purge_then_process_rebuilds_the_samples(processed, faces_clip, tmp_path
 
 
 def test_purge_a_study_file_uses_its_output_folder(processed, tmp_path):
-    from camgaze.cli import main
-    from camgaze.study import new_study
+    from aspectus.cli import main
+    from aspectus.studies.project import new_study
 
     root = tmp_path / "study"
     root.mkdir()
@@ -358,7 +358,7 @@ def test_purge_a_study_file_uses_its_output_folder(processed, tmp_path):
 @pytest.mark.parametrize("what,msg", [("missing", "no such folder"), ("empty", "holds no clip output folders"),
                                       ("csv", "neither an output folder nor a study file")])
 def test_purge_bad_targets(what, msg, tmp_path, capsys):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     target = {"missing": tmp_path / "nope", "empty": tmp_path, "csv": tmp_path / "features.csv"}[what]
     if what == "csv":

@@ -3,8 +3,8 @@ from __future__ import annotations
 
 import io
 
-from camgaze import progress_bar
-from camgaze.progress_bar import ProgressBar
+from aspectus.cli import progress_bar
+from aspectus.cli.progress_bar import ProgressBar
 
 
 class _Terminal(io.StringIO):

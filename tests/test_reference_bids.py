@@ -14,9 +14,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.errors import ReferenceFormatError
-from camgaze.reference import read_bids_physio, read_reference, write_bids_physio
-from camgaze.screen import ScreenGeometry
+from aspectus.errors import ReferenceFormatError
+from aspectus.reference import read_bids_physio, read_reference, write_bids_physio
+from aspectus.reference.screen import ScreenGeometry
 
 SCREEN = ScreenGeometry(width_mm=380.0, height_mm=300.0, distance_mm=670.0, width_px=1024, height_px=768)
 BASE = "sub-p02_ses-s01_task-reading"

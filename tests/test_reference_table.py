@@ -6,9 +6,9 @@ import gzip
 import numpy as np
 import pytest
 
-from camgaze.errors import ParameterError, ReferenceFormatError
-from camgaze.reference import TableMapping, events_from_labels, read_gaze_table, read_reference
-from camgaze.screen import ScreenGeometry
+from aspectus.errors import ParameterError, ReferenceFormatError
+from aspectus.reference import TableMapping, events_from_labels, read_gaze_table, read_reference
+from aspectus.reference.screen import ScreenGeometry
 
 SCREEN = ScreenGeometry(width_mm=531.0, height_mm=299.0, distance_mm=650.0, width_px=1920, height_px=1080)
 

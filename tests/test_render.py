@@ -8,10 +8,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.atomic import sha256_file
-from camgaze.errors import Cancelled, ParameterError
-from camgaze.render import Trajectory, read_truth, render_clip, saccade_duration_ms, synth_trajectory
-from camgaze.render_frame import EYEBALL_RADIUS_MM, IRIS_PLANE_RADIUS_MM, Camera, gaze_vector, head_rotation
+from aspectus.atomic import sha256_file
+from aspectus.errors import Cancelled, ParameterError
+from aspectus.synth.render import Trajectory, read_truth, render_clip, saccade_duration_ms, synth_trajectory
+from aspectus.synth.frame import EYEBALL_RADIUS_MM, IRIS_PLANE_RADIUS_MM, Camera, gaze_vector, head_rotation
 
 av = pytest.importorskip("av")
 
@@ -164,8 +164,8 @@ def test_gaze_vector_and_head_rotation_use_the_schema_frame():
 
 
 def test_eyelids_follow_vertical_gaze():
-    from camgaze.render_face import LEFT_EYE_CONTOUR, RIGHT_EYE_CONTOUR, load_face
-    from camgaze.render_frame import FaceRig
+    from aspectus.synth.face import LEFT_EYE_CONTOUR, RIGHT_EYE_CONTOUR, load_face
+    from aspectus.synth.frame import FaceRig
 
     rig = FaceRig(load_face("hopper"), Camera(640, 360), background=np.zeros((360, 640, 3), np.uint8))
     R = np.eye(3)
@@ -186,9 +186,9 @@ def test_eyelids_follow_vertical_gaze():
 
 def test_skin_below_the_lower_lids_can_follow_them():
     """``lower_skin_follow`` moves the rings of skin below each lower lid with vertical gaze, less further down."""
-    from camgaze.eye_anchors import ANCHOR_POINTS
-    from camgaze.render_face import LEFT_EYE_CONTOUR, RIGHT_EYE_CONTOUR, load_face
-    from camgaze.render_frame import LOWER_SKIN_RINGS, FaceRig
+    from aspectus.webcam.eye_anchors import ANCHOR_POINTS
+    from aspectus.synth.face import LEFT_EYE_CONTOUR, RIGHT_EYE_CONTOUR, load_face
+    from aspectus.synth.frame import LOWER_SKIN_RINGS, FaceRig
 
     face, bg = load_face("hopper"), np.zeros((360, 640, 3), np.uint8)
     still = FaceRig(face, Camera(640, 360), background=bg)
@@ -211,8 +211,8 @@ def test_skin_below_the_lower_lids_can_follow_them():
 
 def test_the_whole_head_turns_with_the_face():
     """Hair, ears and headwear beyond the face outline ride on the head shell, behind the outline."""
-    from camgaze.render_face import load_face
-    from camgaze.render_frame import FACE_OVAL, FaceRig
+    from aspectus.synth.face import load_face
+    from aspectus.synth.frame import FACE_OVAL, FaceRig
 
     cam = Camera(640, 360)
     rig = FaceRig(load_face("hopper"), cam, background=np.full((360, 640, 3), 128, np.uint8))
@@ -240,7 +240,7 @@ def test_the_whole_head_turns_with_the_face():
 
 
 def test_mesh_warp_draws_the_nearer_surface_and_culls_back_faces():
-    from camgaze.render_frame import _mesh_warp_grid
+    from aspectus.synth.frame import _mesh_warp_grid
 
     src = np.array([[0, 0], [40, 0], [0, 40], [100, 0], [140, 0], [100, 40]], float)
     simp = np.array([[0, 1, 2], [3, 4, 5]])
@@ -443,7 +443,7 @@ def test_render_rejects_unknown_container(tmp_path):
 
 
 def test_cli_renders_a_clip(tmp_path, capsys):
-    from camgaze.cli import main
+    from aspectus.cli import main
 
     out = tmp_path / "cli.mp4"
     rc = main(["render", str(out), "--duration-s", "0.5", "--size", "320x240", "--quiet", "--vfr-jitter-ms", "5"])
@@ -458,7 +458,7 @@ def test_cli_renders_a_clip(tmp_path, capsys):
 
 # ----------------------------------------------------------------------------- what the face mesh sees
 def _mesh(frames, max_faces=1):
-    from camgaze.render_face import landmark_image
+    from aspectus.synth.face import landmark_image
 
     out = []
     for img in frames:
@@ -559,7 +559,7 @@ def test_encoded_clip_depends_only_on_its_frames(tmp_path):
     glibc's MALLOC_PERTURB_ fills freed memory with the given byte, so an
     encoder reading memory it never wrote gives different files. On this
     project's AVX-512 machine libx264's AVX-512 code did (960 x 540); the
-    writer limits x264 to AVX2 there (camgaze.render_video.x264_options).
+    writer limits x264 to AVX2 there (aspectus.synth.clip_writer.x264_options).
     """
     import hashlib
     import os
@@ -570,7 +570,7 @@ def test_encoded_clip_depends_only_on_its_frames(tmp_path):
     code = r"""
 import sys
 import numpy as np
-from camgaze.render_video import ClipWriter
+from aspectus.synth.clip_writer import ClipWriter
 rng = np.random.default_rng(4)
 y, x = np.mgrid[0:540, 0:960]
 base = np.stack([(x * 0.25) % 256, (y * 0.4) % 256, ((x + y) * 0.1) % 256], axis=-1)

@@ -6,8 +6,8 @@ import shutil
 
 import pytest
 
-from camgaze.errors import CamgazeInputError
-from camgaze.study import (STATUS_DONE, STATUS_FAILED, STATUS_NEW, STATUS_STALE, guess_reference_kind, load_study,
+from aspectus.errors import AspectusInputError
+from aspectus.studies.project import (STATUS_DONE, STATUS_FAILED, STATUS_NEW, STATUS_STALE, guess_reference_kind, load_study,
                            missing_files, new_study)
 
 
@@ -23,7 +23,7 @@ def folder(tmp_path):
 
 
 def test_add_folder_save_reopen_relative_paths(folder):
-    s = new_study(path=folder / "pilot.camgaze-study.json", name="Linden Brook Primary School reading pilot")
+    s = new_study(path=folder / "pilot.aspectus-study.json", name="Linden Brook Primary School reading pilot")
     added, problems = s.add_paths([folder / "clips"])
     assert [c.stem for c in added] == ["p01_s01", "p02_s01", "p03_s01"]
     assert problems == []
@@ -32,13 +32,13 @@ def test_add_folder_save_reopen_relative_paths(folder):
     assert s.find("p02_s01").segments is None
     s.view = {"selected": "p02_s01", "tab": 1, "position_s": 0.5}
     s.save()
-    raw = json.loads((folder / "pilot.camgaze-study.json").read_text())
-    assert raw["format"] == "camgaze-study"
+    raw = json.loads((folder / "pilot.aspectus-study.json").read_text())
+    assert raw["format"] == "aspectus-study"
     assert [c["path"] for c in raw["clips"]] == ["clips/p01_s01.mp4", "clips/p02_s01.mp4", "clips/p03_s01.mp4"]
     # moving the whole folder keeps the study working
     moved = folder.parent / (folder.name + "_moved")
     shutil.move(folder, moved)
-    s2 = load_study(moved / "pilot.camgaze-study.json")
+    s2 = load_study(moved / "pilot.aspectus-study.json")
     assert s2.name == "Linden Brook Primary School reading pilot"
     assert s2.clip_path(s2.find("p03_s01")) == (moved / "clips" / "p03_s01.mp4").resolve()
     assert s2.view == {"selected": "p02_s01", "tab": 1, "position_s": 0.5}
@@ -113,32 +113,32 @@ def test_reference_mapping_remembered(folder):
     assert s2.find("p01_s01").reference.mapping == m
     assert s2.mappings["clips/p01_s01_lab.csv"] == m
     assert guess_reference_kind(folder / "sub-p01_ses-s01_task-reading_recording-eye1_physio.tsv.gz") == "bids"
-    with pytest.raises(CamgazeInputError, match="no such reference file"):
+    with pytest.raises(AspectusInputError, match="no such reference file"):
         s.set_reference(c1, folder / "missing.csv")
 
 
 @pytest.mark.parametrize("content,match", [
     ("{not json", "not valid JSON"),
-    ('{"format": "something-else"}', "not a camgaze study"),
-    ('{"format": "camgaze-study", "version": 99}', "newer than this camgaze"),
-    ('{"format": "camgaze-study", "version": 1, "clips": [{"nopath": 1}]}', r"clips\[0\]"),
-    ('{"format": "camgaze-study", "version": 1, "clips": {"a": 1}}', "'clips' should be list"),
-    ('{"format": "camgaze-study", "version": 1, "clips": [{"path": "a/x.mp4"}, {"path": "b/x.mp4"}]}',
+    ('{"format": "something-else"}', "not a aspectus study"),
+    ('{"format": "aspectus-study", "version": 99}', "newer than this aspectus"),
+    ('{"format": "aspectus-study", "version": 1, "clips": [{"nopath": 1}]}', r"clips\[0\]"),
+    ('{"format": "aspectus-study", "version": 1, "clips": {"a": 1}}', "'clips' should be list"),
+    ('{"format": "aspectus-study", "version": 1, "clips": [{"path": "a/x.mp4"}, {"path": "b/x.mp4"}]}',
      "two clips are called 'x'"),
 ])
 def test_broken_study_files_named(tmp_path, content, match):
     p = tmp_path / "broken.json"
     p.write_text(content)
-    with pytest.raises(CamgazeInputError, match=match) as ei:
+    with pytest.raises(AspectusInputError, match=match) as ei:
         load_study(p)
     assert "broken.json" in str(ei.value)
 
 
 def test_missing_file_and_missing_clip_listed(tmp_path):
-    with pytest.raises(CamgazeInputError, match="no such study file"):
+    with pytest.raises(AspectusInputError, match="no such study file"):
         load_study(tmp_path / "absent.json")
     p = tmp_path / "s.json"
-    p.write_text('{"format": "camgaze-study", "version": 1, "clips": [{"path": "gone.mp4"}]}')
+    p.write_text('{"format": "aspectus-study", "version": 1, "clips": [{"path": "gone.mp4"}]}')
     s = load_study(p)
     probs = missing_files(s)
     assert len(probs) == 1 and "gone.mp4" in probs[0]
@@ -146,7 +146,7 @@ def test_missing_file_and_missing_clip_listed(tmp_path):
 
 def _processed_study(tmp_path, stems):
     """A study whose clips have finished results (run.json) and a reference file each (contents not read)."""
-    s = new_study(path=tmp_path / "Class #3" / "pilot.camgaze-study.json")
+    s = new_study(path=tmp_path / "Class #3" / "pilot.aspectus-study.json")
     clips = tmp_path / "Class #3" / "clips"
     clips.mkdir(parents=True)
     for stem in stems:
@@ -163,8 +163,8 @@ def _processed_study(tmp_path, stems):
 
 
 def test_validation_manifest_labels_unique_keys_and_hash_in_path(tmp_path):
-    from camgaze.study import write_validation_manifest
-    from camgaze.validate import read_validation_manifest
+    from aspectus.studies.project import write_validation_manifest
+    from aspectus.validation.pair import read_validation_manifest
 
     stems = ["linden_brook_p01_s01", "anna_s1", "anna_s2", "anna 1", "anna-1", "学生一", "sub-07_ses-2_task-read"]
     s = _processed_study(tmp_path, stems)
@@ -183,7 +183,7 @@ def test_validation_manifest_labels_unique_keys_and_hash_in_path(tmp_path):
 
 
 def test_manifest_comment_lines_only_whole_lines(tmp_path):
-    from camgaze.validate import read_validation_manifest
+    from aspectus.validation.pair import read_validation_manifest
 
     d = tmp_path / "room #2"
     (d / "cam").mkdir(parents=True)
@@ -192,12 +192,12 @@ def test_manifest_comment_lines_only_whole_lines(tmp_path):
     (row,) = read_validation_manifest(d / "m.csv")
     assert row.webcam == d / "cam" and row.participant == "p01" and row.line == 4  # the file's own line number
     (d / "bad.csv").write_text("webcam,reference\n# skipped\ncam,missing.tsv.gz\n")
-    with pytest.raises(CamgazeInputError, match="row 3"):
+    with pytest.raises(AspectusInputError, match="row 3"):
         read_validation_manifest(d / "bad.csv")
 
 
 def test_new_reference_drops_the_given_offset(tmp_path):
-    from camgaze.study import write_validation_manifest
+    from aspectus.studies.project import write_validation_manifest
 
     s = _processed_study(tmp_path, ["p01_s01"])
     c = s.clips[0]
@@ -218,8 +218,8 @@ def test_new_reference_drops_the_given_offset(tmp_path):
 
 def test_study_validation_replaces_the_folder_only_when_complete(tmp_path):
     """A failed or cancelled run leaves an earlier complete result as it was and no partial folder."""
-    from camgaze.errors import Cancelled
-    from camgaze.study import run_study_validation
+    from aspectus.errors import Cancelled
+    from aspectus.studies.project import run_study_validation
 
     s = _processed_study(tmp_path, ["p01_s01"])
     out = tmp_path / "validation"
@@ -232,7 +232,7 @@ def test_study_validation_replaces_the_folder_only_when_complete(tmp_path):
     with pytest.raises(Cancelled):
         run_study_validation(s, out, progress=cancel)
     # the reference files here are not recordings: the comparison fails, also without touching the result
-    with pytest.raises(CamgazeInputError, match="no pair of the study could be validated"):
+    with pytest.raises(AspectusInputError, match="no pair of the study could be validated"):
         run_study_validation(s, out)
     assert (out / "report.html").read_text() == "earlier complete report"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["Class #3", "validation"]

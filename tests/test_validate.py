@@ -13,11 +13,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.cli import main
-from camgaze.errors import CamgazeInputError, ReferenceFormatError
-from camgaze.reference import TableMapping, write_demo_reference
-from camgaze.render_trajectory import synth_trajectory
-from camgaze.validate import ValidateParams, read_validation_manifest, validate_pair, validate_study
+from aspectus.cli import main
+from aspectus.errors import AspectusInputError, ReferenceFormatError
+from aspectus.reference import TableMapping, write_demo_reference
+from aspectus.synth.trajectory import synth_trajectory
+from aspectus.validation.pair import ValidateParams, read_validation_manifest, validate_pair, validate_study
 
 FRAME_S = 1 / 30
 DURATION_S = 42.0
@@ -46,7 +46,7 @@ def session(tmp_path_factory):
 
 
 def _params(**kw):
-    from camgaze.analysis import AnalysisParams
+    from aspectus.events.analysis import AnalysisParams
 
     # the detector is pinned so that these figures test the validation, not a change of the default detector
     return ValidateParams(analysis=AnalysisParams(detector="i2mc", window_s=5.0, step_s=5.0), **kw)
@@ -102,7 +102,7 @@ def test_override_marker_and_resampling(session):
                       params=_params(marker="webcam_start", webcam_marker_s=0.0))
     assert r.alignment.method == "marker: webcam_start"
     assert abs(r.alignment.offset_s + 1.25) < 0.005
-    with pytest.raises(CamgazeInputError, match="no marker 'page_2'.*webcam_start"):
+    with pytest.raises(AspectusInputError, match="no marker 'page_2'.*webcam_start"):
         validate_pair(session["cam"], session["ref"]["physio"], write=False,
                       params=_params(marker="page_2", webcam_marker_s=0.0))
     r = validate_pair(session["cam"], session["ref"]["physio"], write=False,
@@ -133,10 +133,10 @@ def test_bad_reference_leaves_outdir_untouched(session, tmp_path):
     assert sorted(p.name for p in out.iterdir()) == ["agreement.csv"]
     assert (out / "agreement.csv").read_text() == "previous result\n"
     # a reference that does not overlap the clip at the given offset: nothing written either
-    with pytest.raises(CamgazeInputError, match="do not overlap"):
+    with pytest.raises(AspectusInputError, match="do not overlap"):
         validate_pair(session["cam"], session["ref"]["physio"], out, params=_params(offset_s=500.0))
     assert sorted(p.name for p in out.iterdir()) == ["agreement.csv"]
-    with pytest.raises(CamgazeInputError, match="no samples.parquet"):
+    with pytest.raises(AspectusInputError, match="no samples.parquet"):
         validate_pair(tmp_path, session["ref"]["physio"], out)
 
 
@@ -150,7 +150,7 @@ def test_study_manifest_pooled_and_summary(session, tmp_path):
                    f"{session['cam']},{session['ref']['physio']},p01,s01,\n"
                    f"cam2,{ref2['table'].relative_to(root)},p02,s01,{ref2['mapping'].relative_to(root)}\n"
                    f"cam2,lab2/missing_physio.tsv.gz,p03,s01,\n")
-    with pytest.raises(CamgazeInputError, match=r"manifest.csv \(row 4\).*does not exist"):
+    with pytest.raises(AspectusInputError, match=r"manifest.csv \(row 4\).*does not exist"):
         read_validation_manifest(man)
     man.write_text("\n".join(man.read_text().splitlines()[:3]) + "\n"
                    f"cam2,{ref2['physio'].relative_to(root)},p03,s01,\n")
@@ -192,7 +192,7 @@ def test_cli_pair_and_errors(session, tmp_path, capsys):
                "time_ms", "--x-col", "gaze_x_px", "--y-col", "gaze_y_px", "--units", "px"])
     assert rc == 2
     err = capsys.readouterr().err
-    assert "camgaze: error:" in err and "screen" in err
+    assert "aspectus: error:" in err and "screen" in err
     assert not (out / "y").exists()
     rc = main(["validate", str(session["cam"]), "-o", str(out / "z")])
     assert rc == 2 and "needs WEBCAM and REFERENCE" in capsys.readouterr().err

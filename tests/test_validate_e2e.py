@@ -4,7 +4,7 @@ The eyes of the rendered face follow four trials of Andersson et al. (2017)
 (500 Hz lab recordings, ../shared/reference/lund2013), played one after the
 other. The same recordings, written as one BIDS eye-tracking file that
 starts 1.5 s before the clip, are the reference. The real decoder, face mesh
-and pipeline run on the clip; ``camgaze validate`` must find the offset and
+and pipeline run on the clip; ``aspectus validate`` must find the offset and
 agree with the reference on per-window fixation counts.
 """
 from __future__ import annotations
@@ -19,8 +19,8 @@ import pandas as pd
 import pytest
 
 from _lund import BLINK, FIXATION, SACCADE, load_trial
-from camgaze.reference import write_bids_physio
-from camgaze.render_trajectory import Trajectory
+from aspectus.reference import write_bids_physio
+from aspectus.synth.trajectory import Trajectory
 
 TRIALS = ("TH34_img_Europe", "TL20_img_konijntjes", "UH21_img_Rome", "UH29_img_Europe")
 LEAD_S = 1.5  # the lab recording starts this long before the clip
@@ -79,7 +79,7 @@ def _trajectory(rec: pd.DataFrame) -> Trajectory:
 
 def render_lund_clip(lund_dir, clip) -> None:
     """Render the clip whose eyes follow the recordings (called in a fresh interpreter by the test)."""
-    from camgaze.render import render_clip
+    from aspectus.synth.render import render_clip
 
     rec, _ = _lund_recording(Path(lund_dir))
     render_clip(Path(clip), _trajectory(rec), size_px=(960, 540), fps=30.0, seed=1)
@@ -87,7 +87,7 @@ def render_lund_clip(lund_dir, clip) -> None:
 
 def _render_in_fresh_interpreter(lund_dir, clip) -> None:
     # Rendered in a fresh interpreter, so that the test's input cannot depend on which tests ran before
-    # it (it once did: libx264's AVX-512 code read unwritten memory - camgaze.render_video.x264_options).
+    # it (it once did: libx264's AVX-512 code read unwritten memory - aspectus.synth.clip_writer.x264_options).
     code = ("import sys; sys.path.insert(0, sys.argv[1]); from test_validate_e2e import render_lund_clip; "
             "render_lund_clip(sys.argv[2], sys.argv[3])")
     r = subprocess.run([sys.executable, "-c", code, str(Path(__file__).parent), str(lund_dir), str(clip)],
@@ -97,9 +97,9 @@ def _render_in_fresh_interpreter(lund_dir, clip) -> None:
 
 @pytest.mark.slow
 def test_rendered_clip_following_lund_recordings(lund_dir, tmp_path):
-    from camgaze.pipeline import process_clip
-    from camgaze.validate import ValidateParams, validate_pair
-    from camgaze.analysis import AnalysisParams
+    from aspectus.webcam.pipeline import process_clip
+    from aspectus.validation.pair import ValidateParams, validate_pair
+    from aspectus.events.analysis import AnalysisParams
 
     rec, screen = _lund_recording(lund_dir)
     clip = tmp_path / "p01_s01_lund.mp4"

@@ -6,9 +6,9 @@ import pandas as pd
 import pytest
 
 from _lund import FIXATION, cohen_kappa as lund_kappa, load_all, load_trial
-from camgaze.agreement import AgreementWarning
-from camgaze.event_agreement import cohen_kappa, label_kappa, labels_at, labels_from_events, match_events
-from camgaze.reference import events_from_labels
+from aspectus.validation.agreement import AgreementWarning
+from aspectus.validation.event_agreement import cohen_kappa, label_kappa, labels_at, labels_from_events, match_events
+from aspectus.reference import events_from_labels
 
 
 def _fix_labels(codes):
@@ -16,7 +16,7 @@ def _fix_labels(codes):
 
 
 def test_coder_vs_coder_kappa_equals_direct_computation(lund_dir):
-    """Andersson et al. (2017): two coders' events; kappa through camgaze must equal the direct formula."""
+    """Andersson et al. (2017): two coders' events; kappa through aspectus must equal the direct formula."""
     kappas = []
     for trial in load_all(lund_dir):
         a, b = _fix_labels(trial.labels["MN"]), _fix_labels(trial.labels["RA"])

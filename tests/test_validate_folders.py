@@ -14,13 +14,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from camgaze.agreement import bland_altman_repeated, rmcorr
-from camgaze.cli import main
-from camgaze.errors import CamgazeInputError
-from camgaze.pairing import bids_labels, pair_folders
-from camgaze.reference import write_demo_reference
-from camgaze.render_trajectory import synth_trajectory
-from camgaze.validate import ValidateParams, read_validation_manifest, validate_study
+from aspectus.validation.agreement import bland_altman_repeated, rmcorr
+from aspectus.cli import main
+from aspectus.errors import AspectusInputError
+from aspectus.validation.pairing import bids_labels, pair_folders
+from aspectus.reference import write_demo_reference
+from aspectus.synth.trajectory import synth_trajectory
+from aspectus.validation.pair import ValidateParams, read_validation_manifest, validate_study
 
 PATTERN = r"(?P<participant>p\d+)_(?P<session>s\d+)"
 
@@ -46,7 +46,7 @@ def test_bids_labels_from_names_and_folders():
         "participant": "p01", "session": "s02", "task": "reading", "run": "1"}
     assert bids_labels("sub-p01/ses-s02/eye_physio.tsv.gz") == {"participant": "p01", "session": "s02"}
     assert bids_labels("linden_brook_p01_s01") == {}
-    with pytest.raises(CamgazeInputError, match="folder says sub-p01 but its name says sub-p02.*manifest"):
+    with pytest.raises(AspectusInputError, match="folder says sub-p01 but its name says sub-p02.*manifest"):
         bids_labels("sub-p01/sub-p02_physio.tsv.gz", source="x")
 
 
@@ -123,14 +123,14 @@ def test_ambiguous_pairings_are_refused_and_written_as_choices(tmp_path):
     _ref(refs, "sub-p02_ses-s01_task-reading_recording-eye1_physio.tsv.gz")
     pairing = pair_folders(cams, refs)
     assert [p.clip.key for p in pairing.pairs] == ["sub-p02_ses-s01"]
-    with pytest.raises(CamgazeInputError) as exc:
+    with pytest.raises(AspectusInputError) as exc:
         pairing.raise_if_ambiguous()
     msg = str(exc.value)
     assert "ambiguous pairing" in msg and str(a) in msg and str(b) in msg and "--manifest" in msg
     assert "sub-p01" in msg  # the clip folder it is about
     # the library refuses it too, and with save_manifest writes the choices as comments
     man = tmp_path / "pairs.csv"
-    with pytest.raises(CamgazeInputError, match="draft manifest .* was written to .*pairs.csv"):
+    with pytest.raises(AspectusInputError, match="draft manifest .* was written to .*pairs.csv"):
         validate_study(cams, tmp_path / "study", references=refs, save_manifest=man)
     assert not (tmp_path / "study").exists()
     text = man.read_text()
@@ -143,7 +143,7 @@ def test_ambiguous_pairings_are_refused_and_written_as_choices(tmp_path):
     assert sorted(r.key for r in read_validation_manifest(man)) == ["p01_s02_reading", "p02_s01_reading"]
     # two clip folders for one reference
     _clip(cams, "sub-p02_ses-s01_take2")
-    with pytest.raises(CamgazeInputError, match=r"fits two clip folders: .*sub-p02_ses-s01 and .*sub-p02_ses-s01_take2"):
+    with pytest.raises(AspectusInputError, match=r"fits two clip folders: .*sub-p02_ses-s01 and .*sub-p02_ses-s01_take2"):
         pair_folders(cams, refs).raise_if_ambiguous()
     # --reference-glob narrows the references
     pairing = pair_folders(cams, refs, reference_glob="*ses-s01*")
@@ -154,16 +154,16 @@ def test_folder_errors_name_the_file_and_what_to_do(tmp_path):
     refs = tmp_path / "lab"
     _ref(refs, "sub-p01_physio.tsv.gz")
     one = _clip(tmp_path / "out", "p01")
-    with pytest.raises(CamgazeInputError, match=r"out/p01: is the output folder of one clip.*folder above it"):
+    with pytest.raises(AspectusInputError, match=r"out/p01: is the output folder of one clip.*folder above it"):
         pair_folders(one, refs)
     (tmp_path / "empty").mkdir()
-    with pytest.raises(CamgazeInputError, match=r"empty: no processed clips here.*camgaze batch"):
+    with pytest.raises(AspectusInputError, match=r"empty: no processed clips here.*aspectus batch"):
         pair_folders(tmp_path / "empty", refs)
-    with pytest.raises(CamgazeInputError, match=r"empty: no reference recordings here.*--mapping"):
+    with pytest.raises(AspectusInputError, match=r"empty: no reference recordings here.*--mapping"):
         pair_folders(tmp_path / "out", tmp_path / "empty")
-    with pytest.raises(CamgazeInputError, match="no clip could be paired.*--labels REGEX"):
+    with pytest.raises(AspectusInputError, match="no clip could be paired.*--labels REGEX"):
         validate_study(tmp_path / "out", tmp_path / "study", references=refs)
-    with pytest.raises(CamgazeInputError, match="folder mode needs the reference folder too"):
+    with pytest.raises(AspectusInputError, match="folder mode needs the reference folder too"):
         validate_study(tmp_path / "out", tmp_path / "study")
 
 
@@ -198,7 +198,7 @@ def study(tmp_path_factory):
 
 
 def _params():
-    from camgaze.analysis import AnalysisParams
+    from aspectus.events.analysis import AnalysisParams
 
     return ValidateParams(analysis=AnalysisParams(detector="i2mc", window_s=5.0, step_s=5.0))
 
@@ -273,7 +273,7 @@ def test_folder_study_cli(study, tmp_path, capsys):
 
 def test_summary_with_one_window_per_participant_shows_no_negative_df():
     """N - k - 1 = 2 - 2 - 1 < 1: the repeated-measures correlation has no estimate (Bakdash & Marusich 2017)."""
-    from camgaze.validate import repeated_agreement_table, study_summary
+    from aspectus.validation.pair import repeated_agreement_table, study_summary
 
     pairs = pd.DataFrame({"scope": "window", "participant": ["p01", "p02"], "paired": True,
                           "fixation_count_webcam": [30.0, 41.0], "fixation_count_reference": [31.0, 38.0]})

@@ -9,8 +9,8 @@ import av
 import numpy as np
 import pytest
 
-from camgaze.errors import VideoError
-from camgaze.video import FramePrefetcher, iter_frames, probe, read_frame_at
+from aspectus.errors import VideoError
+from aspectus.webcam.video import FramePrefetcher, iter_frames, probe, read_frame_at
 
 
 def _write(path, times_s, *, size=(160, 120), rotation=None, codec="libx264", container_opts=None):
@@ -143,7 +143,7 @@ def test_truncated_clip_keeps_frames_before_the_cut(tmp_path):
                     reason="CPU placement needs Linux and two or more CPUs")
 def test_damaged_clip_decodes_the_same_on_one_cpu_and_on_several(tmp_path):
     """FFmpeg conceals damaged data differently with one decoder thread than with several, and by default
-    the count follows the CPUs the decoding thread may use. camgaze fixes the count (DECODER_THREADS), so a
+    the count follows the CPUs the decoding thread may use. aspectus fixes the count (DECODER_THREADS), so a
     clip decodes to the same pictures on any machine and wherever the pipeline places its decoder."""
     sys.path.insert(0, str(Path(__file__).resolve().parent))
     import corpus  # noqa: E402 - the tests' own clip generator

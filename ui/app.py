@@ -1,4 +1,4 @@
-"""Start the camgaze desktop app: ``camgaze gui [STUDYFILE]`` or ``camgaze-app``."""
+"""Start the aspectus desktop app: ``aspectus gui [STUDYFILE]`` or ``aspectus-app``."""
 from __future__ import annotations
 
 import argparse
@@ -7,8 +7,8 @@ from pathlib import Path
 
 
 def make_app(argv: list[str] | None = None):
-    """The QApplication (created once), with camgaze's names set for settings."""
-    from camgaze._env import import_cv2
+    """The QApplication (created once), with aspectus's names set for settings."""
+    from aspectus._env import import_cv2
 
     import_cv2()  # undo OpenCV's Qt plugin path before Qt starts
     from PySide6.QtWidgets import QApplication
@@ -16,15 +16,15 @@ def make_app(argv: list[str] | None = None):
     app = QApplication.instance()
     if app is None:
         app = QApplication(list(argv) if argv is not None else [sys.argv[0]])
-    app.setOrganizationName("camgaze")
-    app.setApplicationName("camgaze")
-    app.setApplicationDisplayName("camgaze")
+    app.setOrganizationName("aspectus")
+    app.setApplicationName("aspectus")
+    app.setApplicationDisplayName("aspectus")
     return app
 
 
 def main(argv: list[str] | None = None) -> int:
     """Open the main window; with a study file, open that study (else the last one used)."""
-    p = argparse.ArgumentParser(prog="camgaze-app", description="camgaze desktop app")
+    p = argparse.ArgumentParser(prog="aspectus-app", description="aspectus desktop app")
     p.add_argument("study", nargs="?", help="study file to open")
     p.add_argument("--new", action="store_true", help="start with a new, empty study")
     args = p.parse_args(sys.argv[1:] if argv is None else argv)
@@ -44,7 +44,7 @@ def run(*, study: str | None = None, new: bool = False) -> int:
         win.restoreGeometry(geom)
     if study:
         if not Path(study).exists():
-            print(f"camgaze: error: {study}: no such study file", file=sys.stderr)
+            print(f"aspectus: error: {study}: no such study file", file=sys.stderr)
             return 2
         win.open_study(study)
     elif not new:

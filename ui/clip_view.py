@@ -3,7 +3,7 @@ and the clip's quality at a glance.
 
 Frames are decoded in a background thread (:class:`FrameLoader`, PyAV, which
 releases the interpreter lock while decoding), so seeking far in a long clip
-never freezes the window. The overlay comes from :mod:`camgaze.overlay`; faces
+never freezes the window. The overlay comes from :mod:`aspectus.webcam.overlay`; faces
 are blurred unless "Show faces unblurred" is ticked (never saved).
 """
 from __future__ import annotations
@@ -19,7 +19,7 @@ from PySide6.QtGui import QImage, QPixmap
 from PySide6.QtWidgets import (QCheckBox, QGridLayout, QHBoxLayout, QLabel, QSizePolicy, QSlider, QStyle,
                                QToolButton, QVBoxLayout, QWidget)
 
-from camgaze import overlay
+from aspectus.webcam import overlay
 
 from .theme import fmt
 
@@ -50,7 +50,7 @@ class FrameLoader(QObject):
         self._stop = False
         self.find_face = False
         self._reopen = False
-        self._thread = threading.Thread(target=self._run, name="camgaze-frames", daemon=True)
+        self._thread = threading.Thread(target=self._run, name="aspectus-frames", daemon=True)
         self._thread.start()
 
     def open(self, path) -> None:

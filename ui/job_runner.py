@@ -1,7 +1,7 @@
 """The worker side of a processing run (Qt-free, runs in a child process or a thread).
 
 :func:`run_jobs` processes clips one after the other with
-:func:`camgaze.pipeline.process_clip` - the same function the command line
+:func:`aspectus.webcam.pipeline.process_clip` - the same function the command line
 calls - and reports through a queue as plain tuples (pickle-safe):
 
 ``("start", key)``, ``("progress", key, fraction, message)``,
@@ -9,7 +9,7 @@ calls - and reports through a queue as plain tuples (pickle-safe):
 ``("cancelled", key)``, and finally ``("end",)``.
 
 A failed clip does not stop the run; a set cancel flag stops it after the
-current clip's pipeline raises :class:`camgaze.errors.Cancelled`. Clips that
+current clip's pipeline raises :class:`aspectus.errors.Cancelled`. Clips that
 finished before keep their outputs (the pipeline writes ``run.json`` last).
 """
 from __future__ import annotations
@@ -53,13 +53,13 @@ class Job:
 
 def explain_error(exc: BaseException, *, clip_name: str) -> str:
     """A sentence a researcher can act on, for an exception met processing ``clip_name``."""
-    from camgaze.errors import CamgazeInputError, NoFaceError, VideoError
+    from aspectus.errors import AspectusInputError, NoFaceError, VideoError
 
     if isinstance(exc, VideoError):
         return f"The video could not be read. {exc}"
     if isinstance(exc, NoFaceError):
         return (f"No face was found in the video, so there is no gaze to measure. {exc}")
-    if isinstance(exc, CamgazeInputError):
+    if isinstance(exc, AspectusInputError):
         return f"An input file has a problem. {exc}"
     if isinstance(exc, MemoryError):
         return f"The computer ran out of memory while processing {clip_name}; close other programs and try again."
@@ -70,8 +70,8 @@ def explain_error(exc: BaseException, *, clip_name: str) -> str:
 
 
 def _make_params(process: dict, analysis: dict):
-    from camgaze.analysis import AnalysisParams
-    from camgaze.pipeline import ProcessParams
+    from aspectus.events.analysis import AnalysisParams
+    from aspectus.webcam.pipeline import ProcessParams
 
     d = {k: v for k, v in (process or {}).items() if k in ProcessParams.__dataclass_fields__ and k != "analysis"}
     params = ProcessParams.from_dict(d)
@@ -82,7 +82,7 @@ def _make_params(process: dict, analysis: dict):
 def _segments(path):
     if not path:
         return None
-    from camgaze.analysis import read_segments
+    from aspectus.events.analysis import read_segments
 
     return read_segments(path)
 
@@ -105,7 +105,7 @@ def run_jobs(jobs: list[Job], out_queue, cancel, *, lower_priority: bool = True,
     progress_interval_s : float
         Progress messages are sent at most this often (s) per clip.
     """
-    from camgaze._env import quiet_native_logs
+    from aspectus._env import quiet_native_logs
 
     quiet_native_logs()
     if lower_priority:
@@ -114,11 +114,11 @@ def run_jobs(jobs: list[Job], out_queue, cancel, *, lower_priority: bool = True,
         except (AttributeError, OSError):  # Windows, or not allowed
             pass
     try:
-        from camgaze.errors import Cancelled
-        from camgaze.pipeline import process_clip
+        from aspectus.errors import Cancelled
+        from aspectus.webcam.pipeline import process_clip
     except Exception as exc:  # noqa: BLE001 - reported, not raised
         for job in jobs:
-            out_queue.put(("failed", job.key, f"camgaze could not start its processing ({type(exc).__name__}: {exc})."))
+            out_queue.put(("failed", job.key, f"aspectus could not start its processing ({type(exc).__name__}: {exc})."))
         out_queue.put(("end",))
         return
     for i, job in enumerate(jobs):

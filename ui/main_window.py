@@ -1,8 +1,8 @@
 """The main window: the study's clip list, the clip and gaze-trace view, the
 feature tables, the validation view, the parameters, and the processing bar.
 
-Everything scientific is done by the library (:mod:`camgaze.pipeline`,
-:mod:`camgaze.analysis`, :mod:`camgaze.validate`) - the same calls the command
+Everything scientific is done by the library (:mod:`aspectus.webcam.pipeline`,
+:mod:`aspectus.events.analysis`, :mod:`aspectus.validation.pair`) - the same calls the command
 line makes; this module only wires widgets to them.
 """
 from __future__ import annotations
@@ -18,8 +18,8 @@ from PySide6.QtWidgets import (QAbstractItemView, QDockWidget, QFileDialog, QHBo
                                QMainWindow, QMenu, QMessageBox, QProgressBar, QPushButton, QSplitter, QTabWidget,
                                QTreeWidget, QTreeWidgetItem, QVBoxLayout, QWidget)
 
-from camgaze import study as study_mod
-from camgaze.errors import CamgazeInputError
+from aspectus.studies import project as study_mod
+from aspectus.errors import AspectusInputError
 
 from . import theme
 from .clip_view import ClipView
@@ -30,7 +30,7 @@ from .time_view import TimeView
 from .validation_view import ValidationView
 from .workers import ProcessingRun, Reanalyser
 
-APP_TITLE = "camgaze"
+APP_TITLE = "aspectus"
 TAB_CLIP, TAB_RESULTS, TAB_VALIDATION = 0, 1, 2
 COL_NAME, COL_STATUS, COL_PROGRESS, COL_FACE, COL_USABLE = range(5)
 
@@ -58,7 +58,7 @@ class _Provider:
 
 
 class MainWindow(QMainWindow):
-    """The camgaze desktop window.
+    """The aspectus desktop window.
 
     Parameters
     ----------
@@ -84,8 +84,8 @@ class MainWindow(QMainWindow):
     def __init__(self, *, settings: QSettings | None = None, worker_mode: str = "process", parent=None):
         super().__init__(parent)
         # import the library's heavy modules now, not in the middle of the user's work
-        import camgaze.analysis  # noqa: F401
-        import camgaze.pipeline  # noqa: F401
+        import aspectus.events.analysis  # noqa: F401
+        import aspectus.webcam.pipeline  # noqa: F401
 
         self.settings = settings
         self.worker_mode = worker_mode
@@ -95,8 +95,8 @@ class MainWindow(QMainWindow):
         self._current_samples: pd.DataFrame | None = None
         self._current_events: pd.DataFrame | None = None
         self._loading_study = False
-        self._load_pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="camgaze-load")
-        self._save_pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="camgaze-save")
+        self._load_pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="aspectus-load")
+        self._save_pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="aspectus-save")
         self._save_failed.connect(lambda m: self.statusBar().showMessage(m, 10000))
         self._load_gen = 0
         self._clip_data.connect(self._apply_clip_data)
@@ -277,7 +277,7 @@ class MainWindow(QMainWindow):
         v.addAction(self.act_unblur)
         v.addAction(self.params_dock.toggleViewAction())
         h = mb.addMenu("&Help")
-        act(h, "About camgaze", self.about)
+        act(h, "About aspectus", self.about)
 
     # ============================================================== study
     def current_clip(self) -> study_mod.StudyClip | None:
@@ -291,7 +291,7 @@ class MainWindow(QMainWindow):
             return False
         try:
             s = study_mod.load_study(path)
-        except CamgazeInputError as exc:
+        except AspectusInputError as exc:
             self._warn("Cannot open the study", str(exc))
             return False
         self._set_study(s)
@@ -343,7 +343,7 @@ class MainWindow(QMainWindow):
         self._store_view()
         try:
             self.study.save()
-        except (OSError, CamgazeInputError) as exc:
+        except (OSError, AspectusInputError) as exc:
             self._warn("Cannot save the study", str(exc))
             return False
         self._update_title()
@@ -353,7 +353,7 @@ class MainWindow(QMainWindow):
         self._store_view()
         try:
             self.study.save(path)
-        except (OSError, CamgazeInputError) as exc:
+        except (OSError, AspectusInputError) as exc:
             self._warn("Cannot save the study", str(exc))
             return False
         self.study.refresh_all()
@@ -375,7 +375,7 @@ class MainWindow(QMainWindow):
         self._save_pool.submit(self._write_study, path, data)
 
     def _write_study(self, path, data):
-        from camgaze.atomic import write_json
+        from aspectus.atomic import write_json
 
         try:
             write_json(path, data)
@@ -419,11 +419,11 @@ class MainWindow(QMainWindow):
             return
         try:
             if path is not None:
-                from camgaze.analysis import read_segments
+                from aspectus.events.analysis import read_segments
 
                 read_segments(path)  # check it before it is used
             self.study.set_segments(clip, path)
-        except CamgazeInputError as exc:
+        except AspectusInputError as exc:
             self._warn("Segments file not used", str(exc))
             return
         self._autosave()
@@ -563,7 +563,7 @@ class MainWindow(QMainWindow):
         note = None
         if has_results:
             try:
-                from camgaze.pipeline import load_samples
+                from aspectus.webcam.pipeline import load_samples
 
                 samples = load_samples(out)
                 events = read_events(out)
@@ -571,7 +571,7 @@ class MainWindow(QMainWindow):
                 note = f"The cached results of {stem} cannot be read: {exc}"
         if seg is not None:
             try:
-                from camgaze.analysis import read_segments
+                from aspectus.events.analysis import read_segments
 
                 segments = read_segments(seg)
             except Exception as exc:  # noqa: BLE001 - reported in the view
@@ -595,7 +595,7 @@ class MainWindow(QMainWindow):
 
     def _read_segments_quiet(self, clip):
         try:
-            from camgaze.analysis import read_segments
+            from aspectus.events.analysis import read_segments
 
             return read_segments(self.study.resolve(clip.segments))
         except Exception:  # noqa: BLE001 - shown in the parameters panel instead
@@ -822,18 +822,18 @@ class MainWindow(QMainWindow):
 
     def new_study_dialog(self):
         path, _ = QFileDialog.getSaveFileName(self, "New study", str(Path(self._start_dir()) / ("study" + study_mod.STUDY_SUFFIX)),
-                                              "camgaze study (*.json)")
+                                              "aspectus study (*.json)")
         if path:
             self.new_study(path)
 
     def open_study_dialog(self):
-        path, _ = QFileDialog.getOpenFileName(self, "Open study", self._start_dir(), "camgaze study (*.json)")
+        path, _ = QFileDialog.getOpenFileName(self, "Open study", self._start_dir(), "aspectus study (*.json)")
         if path:
             self.open_study(path)
 
     def save_study_as_dialog(self) -> bool:
         path, _ = QFileDialog.getSaveFileName(self, "Save study as", str(Path(self._start_dir()) / ("study" + study_mod.STUDY_SUFFIX)),
-                                              "camgaze study (*.json)")
+                                              "aspectus study (*.json)")
         return self.save_study_as(path) if path else False
 
     def add_clips_dialog(self):
@@ -866,8 +866,8 @@ class MainWindow(QMainWindow):
             QDesktopServices.openUrl(QUrl.fromLocalFile(str(self.study.clip_out_dir(c))))
 
     def about(self):
-        QMessageBox.about(self, "About camgaze",
-                          "<b>camgaze</b> – eye-movement features from recorded webcam clips, computed offline "
+        QMessageBox.about(self, "About aspectus",
+                          "<b>aspectus</b> – eye-movement features from recorded webcam clips, computed offline "
                           "on this computer.<br><br>Webcam gaze estimates are research measurements with known "
                           "error, not a diagnostic, disciplinary or surveillance instrument. Classroom video "
                           "shows minors: keep to your consent, assent and ethics approval, and share features "

@@ -1,9 +1,9 @@
-"""Column-mapping dialog: tell camgaze which columns of a plain gaze table hold what.
+"""Column-mapping dialog: tell aspectus which columns of a plain gaze table hold what.
 
 Shows the first rows of the file, offers its columns for time, horizontal and
 vertical position (and optional validity, pupil and event columns), the units,
 and the screen geometry needed for pixel, millimetre or normalised positions.
-"OK" is only accepted once :func:`camgaze.reference.table.read_gaze_table`
+"OK" is only accepted once :func:`aspectus.reference.table.read_gaze_table`
 reads the whole file with the mapping; otherwise its message is shown.
 """
 from __future__ import annotations
@@ -22,7 +22,7 @@ _POS_UNITS = (("deg", "degrees of visual angle"), ("px", "screen pixels"), ("mm"
 
 
 class MappingDialog(QDialog):
-    """Edit a :class:`camgaze.reference.table.TableMapping` for one file.
+    """Edit a :class:`aspectus.reference.table.TableMapping` for one file.
 
     After ``exec()`` returns accepted, :attr:`mapping` holds the mapping and
     :attr:`samples` the table read with it.
@@ -30,7 +30,7 @@ class MappingDialog(QDialog):
 
     def __init__(self, path, *, initial: dict | None = None, parent=None):
         super().__init__(parent)
-        from camgaze.reference.table import read_raw_table
+        from aspectus.reference.table import read_raw_table
 
         self.path = Path(path)
         self._initial = dict(initial or {})
@@ -184,7 +184,7 @@ class MappingDialog(QDialog):
             return None if t == _NONE or not t else t
 
         u = self.units.currentData()
-        d = {k: v for k, v in self._initial.items() if k not in ("kind", "camgaze_version")}
+        d = {k: v for k, v in self._initial.items() if k not in ("kind", "aspectus_version")}
         d.update({"time_col": self.time_col.currentText(), "time_unit": self.time_unit.currentData(),
              "x_col": self.x_col.currentText(), "y_col": self.y_col.currentText(), "units": u,
              "origin": self.origin.currentData(), "y_up": self.y_up.isChecked(),
@@ -201,7 +201,7 @@ class MappingDialog(QDialog):
 
     def try_accept(self) -> bool:
         """Build the mapping and read the file with it; accept only if that works."""
-        from camgaze.reference.table import TableMapping, read_gaze_table
+        from aspectus.reference.table import TableMapping, read_gaze_table
 
         try:
             m = TableMapping.from_dict(self.mapping_dict())

@@ -1,7 +1,7 @@
 """Parameters panel: the detector and its parameters (with units and limits),
 feature windows, the clip's task segments, and the processing settings.
 
-The form is built from :class:`camgaze.analysis.AnalysisParams` itself: the
+The form is built from :class:`aspectus.events.analysis.AnalysisParams` itself: the
 parameters listed in :data:`SPECS` get a label, unit, limits and help text;
 any other field of the dataclass still appears under "More parameters" with
 limits guessed from its unit, so the panel never hides a library parameter.
@@ -130,8 +130,8 @@ class ParamsPanel(QWidget):
 
     def __init__(self, parent=None):
         super().__init__(parent)
-        from camgaze.analysis import AnalysisParams
-        from camgaze.detect import DETECTORS
+        from aspectus.events.analysis import AnalysisParams
+        from aspectus.events.detect import DETECTORS
 
         self._cls = AnalysisParams
         self._defaults = AnalysisParams().to_dict()

@@ -52,7 +52,7 @@ class _Renderer(QObject):
         self._cv = threading.Condition()
         self._job = None
         self._stop = False
-        self._thread = threading.Thread(target=self._run, name="camgaze-plot", daemon=True)
+        self._thread = threading.Thread(target=self._run, name="aspectus-plot", daemon=True)
         self._thread.start()
 
     def submit(self, job) -> None:

@@ -297,7 +297,7 @@ class ResultsView(QWidget):
 
     def export(self, path) -> Path:
         """Write the shown table; ``.parquet`` writes Parquet, anything else CSV."""
-        from camgaze.atomic import write_csv, write_parquet
+        from aspectus.atomic import write_csv, write_parquet
 
         path = Path(path)
         df = self.current_table()

@@ -2,16 +2,16 @@
 
 Pick the reference file (a BIDS eye-tracking recording, or a plain table with
 the column-mapping dialog; the mapping is remembered in the study), then
-"Compare" runs the library's validation (:mod:`camgaze.validate`) in a worker
+"Compare" runs the library's validation (:mod:`aspectus.validation.pair`) in a worker
 thread and shows the alignment offset, the agreement table, and the scatter
 and Bland-Altman plots; "Export report…" writes the library's HTML report.
 
 "Compare all clips" validates the whole study at once: every processed clip
-with a reference goes into a manifest (:func:`camgaze.study.write_validation_manifest`,
+with a reference goes into a manifest (:func:`aspectus.studies.project.write_validation_manifest`,
 kept in the output folder so the command line can re-run it), and
-:func:`camgaze.validate.validate_study` writes the per-participant and pooled
+:func:`aspectus.validation.pair.validate_study` writes the per-participant and pooled
 results and the study report there (the folder is replaced only when the
-comparison is complete: :func:`camgaze.study.run_study_validation`); the
+comparison is complete: :func:`aspectus.studies.project.run_study_validation`); the
 view shows the summary table. It shows its progress and can be cancelled.
 """
 from __future__ import annotations
@@ -26,7 +26,7 @@ from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, QHBoxLayout, QLabel, QMessageBox,
                                QProgressBar, QPushButton, QSplitter, QTableView, QVBoxLayout, QWidget)
 
-from camgaze import study as study_mod
+from aspectus.studies import project as study_mod
 
 from . import theme
 from .plot_canvas import PlotCanvas
@@ -234,7 +234,7 @@ class ValidationView(QWidget):
                 return
             self._done.emit(key, out)
 
-        threading.Thread(target=work, name="camgaze-validate", daemon=True).start()
+        threading.Thread(target=work, name="aspectus-validate", daemon=True).start()
         return True
 
     def compare_study(self, out_dir=None) -> bool:
@@ -242,7 +242,7 @@ class ValidationView(QWidget):
 
         ``out_dir`` defaults to ``<study output folder>/validation``; it is
         replaced only when the whole comparison is written
-        (:func:`camgaze.study.run_study_validation`).
+        (:func:`aspectus.studies.project.run_study_validation`).
         """
         s = self.study
         if s is None or self._study_cancel is not None:
@@ -262,15 +262,15 @@ class ValidationView(QWidget):
 
         def progress(frac, message):
             if cancel.is_set() and frac < 1.0:  # at 1.0 everything is written: nothing left to stop
-                from camgaze.errors import Cancelled
+                from aspectus.errors import Cancelled
 
                 raise Cancelled("study comparison cancelled")
             self._study_progress.emit(float(frac), str(message))
 
         def work():
-            from camgaze.analysis import AnalysisParams
-            from camgaze.errors import Cancelled
-            from camgaze.validate import ValidateParams
+            from aspectus.events.analysis import AnalysisParams
+            from aspectus.errors import Cancelled
+            from aspectus.validation.pair import ValidateParams
 
             try:
                 ap = AnalysisParams.from_dict(analysis) if analysis else AnalysisParams()
@@ -284,7 +284,7 @@ class ValidationView(QWidget):
                 return
             self._study_done.emit(res, {"skipped": skipped, "out": out, "outdated": outdated})
 
-        threading.Thread(target=work, name="camgaze-validate-study", daemon=True).start()
+        threading.Thread(target=work, name="aspectus-validate-study", daemon=True).start()
         return True
 
     def cancel_study(self) -> None:
@@ -347,7 +347,7 @@ class ValidationView(QWidget):
     @staticmethod
     def _mapping_reads(path, mapping) -> bool:
         try:
-            from camgaze.reference.table import TableMapping, read_gaze_table
+            from aspectus.reference.table import TableMapping, read_gaze_table
 
             read_gaze_table(path, TableMapping.from_dict(mapping))
             return True
@@ -422,7 +422,7 @@ class ValidationView(QWidget):
                  + (f", {n_bad} failed" if n_bad else "") + f". Summary below; report, pooled and per-participant "
                  f"tables in <b>{out}</b> (report.html, summary.csv, participants.csv). Participant and session "
                  f"labels were taken from the clip names (validation_manifest.csv; edit it and run "
-                 f"<code>camgaze validate --manifest</code> to change them)."]
+                 f"<code>aspectus validate --manifest</code> to change them)."]
         lines += listed([f"{k}: {m}" for k, m in res.failures.items()], "")
         lines += listed(list(extra.get("skipped") or []), "left out – ")
         outdated = list(extra.get("outdated") or [])
@@ -512,8 +512,8 @@ def draw_agreement(fig, webcam, reference, feature: str):
     ax_s.set_ylabel(f"webcam {feature}", fontsize=8)
     ax_s.set_title(f"Webcam against reference (n = {len(a)})", fontsize=9)
     ax_b.scatter((a + b) / 2, a - b, s=14, color=theme.POINT_COLOUR, alpha=0.8)
-    if len(a) >= 3:  # camgaze.agreement.bland_altman gives limits from three pairs on
-        from camgaze.agreement import bland_altman
+    if len(a) >= 3:  # aspectus.validation.agreement.bland_altman gives limits from three pairs on
+        from aspectus.validation.agreement import bland_altman
 
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -536,14 +536,14 @@ def draw_agreement(fig, webcam, reference, feature: str):
 # ------------------------------------------------------------------ library adapters
 def run_validation(*, out_dir, reference, kind, mapping, analysis, segments=None,
                    offset_s: float | None = None) -> ValidationOutcome:
-    """Compare one processed clip with its reference via :func:`camgaze.validate.validate_pair`.
+    """Compare one processed clip with its reference via :func:`aspectus.validation.pair.validate_pair`.
 
     The same detector and parameters as the study's run on both sides; nothing
     is written (the report is written on request, :func:`write_report`).
     """
-    from camgaze.analysis import AnalysisParams
-    from camgaze.reference.table import TableMapping
-    from camgaze.validate import ValidateParams, validate_pair
+    from aspectus.events.analysis import AnalysisParams
+    from aspectus.reference.table import TableMapping
+    from aspectus.validation.pair import ValidateParams, validate_pair
 
     ap = AnalysisParams.from_dict(analysis) if analysis else AnalysisParams()
     m = TableMapping.from_dict(mapping) if (kind == "table" and mapping) else None
@@ -579,8 +579,8 @@ def _long_pairs(pairs: pd.DataFrame) -> pd.DataFrame:
 
 def write_report(outcome: ValidationOutcome, path) -> Path:
     """Write the library's HTML validation report (figures embedded) to ``path``, atomically."""
-    from camgaze.atomic import write_text
-    from camgaze.report import render_pair_figures, render_pair_report
+    from aspectus.atomic import write_text
+    from aspectus.validation.report import render_pair_figures, render_pair_report
 
     path = Path(path)
     if path.suffix.lower() not in (".html", ".htm"):

@@ -11,7 +11,7 @@ earlier keep their results. ``mode="thread"`` runs the same code in a thread
 (for comparison and for debugging).
 
 :class:`Reanalyser` re-runs event detection and features from a clip's cached
-samples (:func:`camgaze.pipeline.reanalyse`) in a worker thread; it is quick,
+samples (:func:`aspectus.webcam.pipeline.reanalyse`) in a worker thread; it is quick,
 so a thread is enough, and the newest request for a clip supersedes older ones.
 """
 from __future__ import annotations
@@ -98,15 +98,15 @@ class ProcessingRun(QObject):
             self._queue = ctx.Queue()
             self._cancel = ctx.Event()
             self._proc = ctx.Process(target=run_jobs, args=(self.jobs, self._queue, self._cancel),
-                                     name="camgaze-processing", daemon=True)
+                                     name="aspectus-processing", daemon=True)
             # starting a process forks this (large) one: done off the GUI thread
-            self._starter = threading.Thread(target=self._start_proc, name="camgaze-start", daemon=True)
+            self._starter = threading.Thread(target=self._start_proc, name="aspectus-start", daemon=True)
             self._starter.start()
         else:
             self._queue = queue_mod.Queue()
             self._cancel = threading.Event()
             self._thread = threading.Thread(target=run_jobs, args=(self.jobs, self._queue, self._cancel),
-                                            kwargs={"lower_priority": False}, name="camgaze-processing",
+                                            kwargs={"lower_priority": False}, name="aspectus-processing",
                                             daemon=True)
             self._thread.start()
         self.state.started_at = time.monotonic()
@@ -231,7 +231,7 @@ class Reanalyser(QObject):
 
     Signals
     -------
-    done(key, result, generation) : the :class:`camgaze.analysis.AnalysisResult`
+    done(key, result, generation) : the :class:`aspectus.events.analysis.AnalysisResult`
     failed(key, message, generation)
     """
 
@@ -240,7 +240,7 @@ class Reanalyser(QObject):
 
     def __init__(self, parent=None):
         super().__init__(parent)
-        self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="camgaze-reanalyse")
+        self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="aspectus-reanalyse")
         self._latest: dict[str, int] = {}
         self._gen = 0
         self._lock = threading.Lock()
@@ -262,8 +262,8 @@ class Reanalyser(QObject):
             if self._latest.get(key) != gen:
                 return  # superseded before it started
         try:
-            from camgaze.analysis import AnalysisParams, read_segments
-            from camgaze.pipeline import reanalyse
+            from aspectus.events.analysis import AnalysisParams, read_segments
+            from aspectus.webcam.pipeline import reanalyse
 
             params = AnalysisParams.from_dict(analysis) if analysis else AnalysisParams()
             segs = read_segments(segments) if segments else None

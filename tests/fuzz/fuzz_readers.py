@@ -1,4 +1,4 @@
-"""Coverage-guided fuzzing of camgaze's readers with atheris (optional; not part of the test suite).
+"""Coverage-guided fuzzing of aspectus's readers with atheris (optional; not part of the test suite).
 
 Usage, from the repository root::
 
@@ -12,7 +12,7 @@ keeping interesting inputs in a folder::
     mkdir -p /tmp/fuzz-table
     .venv/bin/python tests/fuzz/fuzz_readers.py table -max_total_time=600 /tmp/fuzz-table
 
-A finding is any exception other than ``CamgazeInputError`` naming the file
+A finding is any exception other than ``AspectusInputError`` naming the file
 (see ``tests/fuzz/targets.py``); atheris stops and writes the input as
 ``crash-*``. Reproduce it with::
 
@@ -37,17 +37,17 @@ def main(argv: list[str]) -> int:
         return 2
     with atheris.instrument_imports():
         import targets
-        import camgaze.manifest  # noqa: F401 - imported here so that their code is instrumented
-        import camgaze.reference.bids  # noqa: F401
-        import camgaze.reference.table  # noqa: F401
-        import camgaze.segments  # noqa: F401
-        import camgaze.validate  # noqa: F401
+        import aspectus.studies.clips  # noqa: F401 - imported here so that their code is instrumented
+        import aspectus.reference.bids  # noqa: F401
+        import aspectus.reference.table  # noqa: F401
+        import aspectus.events.segments  # noqa: F401
+        import aspectus.validation.pair  # noqa: F401
     if len(argv) < 2 or argv[1] not in targets.TARGETS:
         print(f"usage: {argv[0]} TARGET [options] [CORPUS]; TARGET one of {', '.join(targets.TARGETS)}",
               file=sys.stderr)
         return 2
     name = argv[1]
-    folder = Path(tempfile.mkdtemp(prefix=f"camgaze-fuzz-{name}-"))
+    folder = Path(tempfile.mkdtemp(prefix=f"aspectus-fuzz-{name}-"))
 
     def one_input(data: bytes) -> None:
         targets.check_outcome(name, data, folder)

@@ -3,7 +3,7 @@
 Each target writes the fuzzed bytes to a file (the readers take paths, as in
 real use) and calls one parser. The rule (:func:`check_outcome`): the parser
 either returns a well-formed result, or raises
-:class:`camgaze.errors.CamgazeInputError` whose message names the file. Any
+:class:`aspectus.errors.AspectusInputError` whose message names the file. Any
 other exception - a ``KeyError``, ``IndexError``, ``UnicodeDecodeError``,
 ``ValueError`` from deep inside pandas - is a bug: the user would see a
 traceback instead of a message.
@@ -28,7 +28,7 @@ REPO = Path(__file__).resolve().parents[2]
 if str(REPO) not in sys.path:
     sys.path.insert(0, str(REPO))
 
-from camgaze.errors import CamgazeInputError  # noqa: E402
+from aspectus.errors import AspectusInputError  # noqa: E402
 
 #: the column names a fuzzed gaze table is read with
 TABLE_MAPPING = {"time_col": "t", "time_unit": "ms", "x_col": "x", "y_col": "y", "units": "deg",
@@ -40,7 +40,7 @@ BIDS_SIDECAR = {"SamplingFrequency": 250, "StartTime": 0, "Columns": ["timestamp
 
 
 class FuzzFailure(AssertionError):
-    """A parser broke the rule: it raised something other than CamgazeInputError, or returned nonsense."""
+    """A parser broke the rule: it raised something other than AspectusInputError, or returned nonsense."""
 
 
 def check_samples_result(df: pd.DataFrame) -> None:
@@ -88,7 +88,7 @@ def _write(folder: Path, name: str, data: bytes) -> Path:
 
 
 def read_table_target(data: bytes, folder: Path):
-    from camgaze.reference import TableMapping, read_gaze_table
+    from aspectus.reference import TableMapping, read_gaze_table
 
     p = _write(folder, "gaze_table.csv", data)
     df = read_gaze_table(p, TableMapping(**TABLE_MAPPING))
@@ -97,7 +97,7 @@ def read_table_target(data: bytes, folder: Path):
 
 
 def read_bids_target(data: bytes, folder: Path, *, compress: bool = True):
-    from camgaze.reference.bids import read_bids_physio
+    from aspectus.reference.bids import read_bids_physio
 
     base = "sub-p01_ses-s01_task-reading_recording-eye1_physio"
     p = _write(folder, f"{base}.tsv.gz", gzip.compress(data, mtime=0) if compress else data)
@@ -109,7 +109,7 @@ def read_bids_target(data: bytes, folder: Path, *, compress: bool = True):
 
 def read_sidecar_target(data: bytes, folder: Path):
     """Fuzz the JSON sidecar of a well-formed BIDS recording."""
-    from camgaze.reference.bids import read_bids_physio
+    from aspectus.reference.bids import read_bids_physio
 
     base = "sub-p01_ses-s01_task-reading_recording-eye1_physio"
     rows = "\n".join(f"{i * 4.0}\t{math.sin(i / 9):.3f}\t{math.cos(i / 7):.3f}" for i in range(50)) + "\n"
@@ -121,7 +121,7 @@ def read_sidecar_target(data: bytes, folder: Path):
 
 
 def read_mapping_target(data: bytes, folder: Path):
-    from camgaze.reference import TableMapping
+    from aspectus.reference import TableMapping
 
     p = _write(folder, "mapping.json", data)
     TableMapping.load(p)
@@ -129,7 +129,7 @@ def read_mapping_target(data: bytes, folder: Path):
 
 
 def read_segments_target(data: bytes, folder: Path):
-    from camgaze.segments import read_segments
+    from aspectus.events.segments import read_segments
 
     p = _write(folder, "segments.csv", data)
     check_segments_result(read_segments(p))
@@ -137,7 +137,7 @@ def read_segments_target(data: bytes, folder: Path):
 
 
 def read_manifest_target(data: bytes, folder: Path):
-    from camgaze.manifest import read_manifest
+    from aspectus.studies.clips import read_manifest
 
     p = _write(folder, "manifest.csv", data)
     check_manifest_result(read_manifest(p))
@@ -145,7 +145,7 @@ def read_manifest_target(data: bytes, folder: Path):
 
 
 def read_validation_manifest_target(data: bytes, folder: Path):
-    from camgaze.validate import read_validation_manifest
+    from aspectus.validation.pair import read_validation_manifest
 
     p = _write(folder, "validation_manifest.csv", data)
     read_validation_manifest(p)
@@ -173,7 +173,7 @@ def check_outcome(target: str, data: bytes, folder: Path | None = None) -> str:
     import warnings
 
     own = folder is None
-    tmp = tempfile.TemporaryDirectory(prefix="camgaze-fuzz-") if own else None
+    tmp = tempfile.TemporaryDirectory(prefix="aspectus-fuzz-") if own else None
     folder = Path(tmp.name) if own else Path(folder)
     try:
         with warnings.catch_warnings():
@@ -181,7 +181,7 @@ def check_outcome(target: str, data: bytes, folder: Path | None = None) -> str:
             warnings.simplefilter("ignore")
             TARGETS[target](data, folder)
         return "ok"
-    except CamgazeInputError as exc:
+    except AspectusInputError as exc:
         msg = str(exc)
         if TARGET_FILES[target] not in msg:
             raise FuzzFailure(f"{target}: error does not name the file: {msg!r}") from exc

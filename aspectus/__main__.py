@@ -1,0 +1,5 @@
+import sys
+
+from aspectus.cli import main
+
+sys.exit(main())

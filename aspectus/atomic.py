@@ -1,0 +1,126 @@
+"""Atomic writes and file hashes: no output is ever half-written.
+
+Every file aspectus writes goes to a temporary name in the same folder, is
+flushed and fsynced, then renamed over the target (``os.replace`` is atomic on
+POSIX and Windows). A reader therefore sees either the old complete file or
+the new complete file, never a truncated one.
+"""
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import os
+import tempfile
+from pathlib import Path
+from typing import Any, Iterator
+
+import pandas as pd
+
+
+@contextlib.contextmanager
+def atomic_path(target: os.PathLike | str) -> Iterator[Path]:
+    """Yield a temporary path beside ``target``; rename it over ``target`` on success."""
+    target = Path(target)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    os.close(fd)
+    tmp = Path(tmp)
+    try:
+        yield tmp
+        with open(tmp, "rb+") as fh:
+            os.fsync(fh.fileno())
+        os.replace(tmp, target)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            tmp.unlink()
+        raise
+
+
+def write_bytes(target, data: bytes) -> Path:
+    with atomic_path(target) as tmp:
+        tmp.write_bytes(data)
+    return Path(target)
+
+
+def write_text(target, text: str) -> Path:
+    return write_bytes(target, text.encode("utf-8"))
+
+
+def _json_default(o):
+    import numpy as np
+
+    if isinstance(o, (np.integer,)):
+        return int(o)
+    if isinstance(o, (np.floating,)):
+        return None if not np.isfinite(o) else float(o)
+    if isinstance(o, np.bool_):
+        return bool(o)
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, Path):
+        return str(o)
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
+def _clean_nan(o):
+    if isinstance(o, float) and o != o:
+        return None
+    if isinstance(o, dict):
+        return {k: _clean_nan(v) for k, v in o.items()}
+    if isinstance(o, (list, tuple)):
+        return [_clean_nan(v) for v in o]
+    return o
+
+
+def write_json(target, obj: Any) -> Path:
+    """Write ``obj`` as indented JSON (NaN becomes null), atomically."""
+    return write_text(target, json.dumps(_clean_nan(obj), indent=2, default=_json_default, sort_keys=False) + "\n")
+
+
+def write_csv(target, df: pd.DataFrame, **kw) -> Path:
+    kw.setdefault("index", False)
+    with atomic_path(target) as tmp:
+        df.to_csv(tmp, **kw)
+    return Path(target)
+
+
+def write_parquet(target, df: pd.DataFrame, metadata: dict | None = None, *, chunk_rows: int = 16384) -> Path:
+    """Write a Parquet file atomically; ``metadata`` goes into the file's key-value metadata as JSON.
+
+    The table goes to the file ``chunk_rows`` rows at a time (one row group
+    each), so writing an hour of samples never holds a second full copy of
+    them in memory.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    schema = pa.Schema.from_pandas(df, preserve_index=False)
+    if metadata:
+        meta = dict(schema.metadata or {})
+        meta[b"aspectus"] = json.dumps(_clean_nan(metadata), default=_json_default).encode()
+        schema = schema.with_metadata(meta)
+    step = max(1, int(chunk_rows))
+    with atomic_path(target) as tmp:
+        with pq.ParquetWriter(tmp, schema) as writer:
+            for start in range(0, max(len(df), 1), step):
+                part = df.iloc[start:start + step]
+                writer.write_table(pa.Table.from_pandas(part, schema=schema, preserve_index=False))
+    return Path(target)
+
+
+def sha256_file(path, chunk: int = 1 << 20) -> str:
+    """Hex SHA-256 of a file's bytes."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while True:
+            b = fh.read(chunk)
+            if not b:
+                break
+            h.update(b)
+    return h.hexdigest()
+
+
+def sha256_json(obj: Any) -> str:
+    """Hex SHA-256 of a canonical JSON rendering (sorted keys) - used to key results by parameters."""
+    return hashlib.sha256(json.dumps(_clean_nan(obj), sort_keys=True, default=_json_default).encode()).hexdigest()

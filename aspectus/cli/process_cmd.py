@@ -1,0 +1,237 @@
+"""``aspectus process CLIP... -o OUTDIR``: clips to samples, events and features."""
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+
+def register(sub) -> None:
+    p = sub.add_parser(
+        "process",
+        help="process recorded clips into gaze samples, events and features",
+        description="Track face and irises in each clip, estimate head-compensated gaze angles, detect "
+        "fixations, saccades and blinks, and write per-clip outputs into OUTDIR/<clip file stem>/: "
+        "samples.parquet/.csv, events.csv/.parquet, features.csv/.parquet and run.json. "
+        "A clip that fails is reported in one line; the other clips still finish.",
+    )
+    p.add_argument("clips", nargs="+", metavar="CLIP", help="video files (mp4, mov, avi, mkv, webm)")
+    p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
+    p.add_argument("--fov-deg", type=float, default=60.0,
+                   help="assumed horizontal field of view of the webcam in degrees, across the upright picture's width "
+                        "(for a clip tagged to play rotated, the width as played; default 60)")
+    p.add_argument("--face", default="largest",
+                   help='which face to follow when several are in view: "largest" (default) or "index:N" '
+                        "(N-th face from the picture's left edge, from 0)")
+    p.add_argument("--max-faces", type=int, default=2,
+                   help="faces looked for per frame (default 2; with three or more people in view raise it, or the "
+                        "face to follow may not be among those reported)")
+    p.add_argument("--segments", metavar="CSV", help="task segments (label, onset_s, offset_s) for per-segment features; applied to every clip")
+    p.add_argument("--gaze", dest="gaze_settings", action="append", default=[], metavar="NAME=VALUE",
+                   help="a gaze-estimate parameter (aspectus.webcam.gaze.GazeParams), e.g. --gaze eye_anchors=false "
+                        "(repeatable; changes the samples, so landmarking runs again)")
+    add_analysis_arguments(p)
+    p.add_argument("--no-reuse", action="store_true",
+                   help="redo landmarking even when OUTDIR holds samples from the same clip and parameters")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=run)
+
+
+def add_analysis_arguments(p: argparse.ArgumentParser) -> None:
+    """Options shared by every command that detects events."""
+    p.add_argument("--detector", default=None, help="event detector (default: the documented default; see README)")
+    p.add_argument("--window-s", type=float, default=None, help="length of the fixed feature windows in seconds")
+    p.add_argument("--step-s", type=float, default=None, help="step between feature windows in seconds")
+    p.add_argument("--set", dest="settings", action="append", default=[], metavar="NAME=VALUE",
+                   help="any other analysis parameter, e.g. --set min_fixation_ms=80 (repeatable)")
+
+
+def analysis_params_from_args(args):
+    from aspectus.events.analysis import AnalysisParams
+    from aspectus.errors import ParameterError
+
+    d = AnalysisParams().to_dict()
+    if getattr(args, "detector", None):
+        d["detector"] = args.detector
+    if getattr(args, "window_s", None) is not None:
+        d["window_s"] = args.window_s
+    if getattr(args, "step_s", None) is not None:
+        d["step_s"] = args.step_s
+    for item in getattr(args, "settings", []) or []:
+        if "=" not in item:
+            raise ParameterError(f"--set {item!r} is not NAME=VALUE")
+        k, v = item.split("=", 1)
+        k = k.strip()
+        if k not in d:
+            raise ParameterError(f"unknown analysis parameter {k!r}", hint="known: " + ", ".join(sorted(d)))
+        d[k] = _parse_value(v.strip(), d[k], k, "--set")
+    return AnalysisParams.from_dict(d)
+
+
+def gaze_params_from_args(args):
+    from dataclasses import asdict
+
+    from aspectus.errors import ParameterError
+    from aspectus.webcam.gaze import GazeParams
+
+    d = asdict(GazeParams())
+    for item in getattr(args, "gaze_settings", []) or []:
+        if "=" not in item:
+            raise ParameterError(f"--gaze {item!r} is not NAME=VALUE")
+        k, v = (x.strip() for x in item.split("=", 1))
+        if k not in d:
+            raise ParameterError(f"unknown gaze parameter {k!r}", hint="known: " + ", ".join(sorted(d)))
+        d[k] = _parse_value(v, d[k], k, "--gaze")
+    return GazeParams(**d)
+
+
+def _parse_value(v: str, like, name: str, option: str):
+    """``v`` read as the type of the parameter's default ``like``; a ParameterError naming it otherwise."""
+    from aspectus.errors import ParameterError
+
+    def refuse(expected):
+        return ParameterError(f"{option} {name}={v!r}: expected {expected}", hint=f"e.g. {option} {name}={like!r}"
+                              if like is not None else None)
+
+    if isinstance(like, bool):
+        if v.lower() in ("1", "true", "yes", "on"):
+            return True
+        if v.lower() in ("0", "false", "no", "off"):
+            return False
+        raise refuse("true or false")
+    if isinstance(like, int):
+        try:
+            f = float(v)
+        except ValueError:
+            raise refuse("a whole number") from None
+        if not f.is_integer():
+            raise refuse("a whole number")
+        return int(f)
+    if isinstance(like, float):
+        try:
+            return float(v)
+        except ValueError:
+            raise refuse("a number") from None
+    if like is None:
+        if v.lower() in ("none", "null", ""):
+            return None
+        try:
+            return float(v)
+        except ValueError:
+            return v
+    return v
+
+
+def _write_error_log(out_dir: Path, clip: Path) -> Path | None:
+    """The traceback of the exception being handled, as ``out_dir/error.log`` (None if it cannot be written)."""
+    import datetime
+    import traceback
+
+    from aspectus import __version__
+
+    log = out_dir / "error.log"
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        log.write_text(f"aspectus {__version__}, {datetime.datetime.now().isoformat(timespec='seconds')}\n"
+                       f"clip: {clip.resolve()}\n\n{traceback.format_exc()}", encoding="utf-8")
+    except OSError:
+        return None
+    return log
+
+
+def _num(x, fmt: str, unit: str) -> str:
+    """A figure with its unit for the summary line, or "n/a" where it could not be measured."""
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return "n/a"
+    return f"{format(x, fmt)} {unit}" if x == x and abs(x) != float("inf") else "n/a"
+
+
+def run(args) -> int:
+    from aspectus.cli.progress_bar import ProgressBar
+
+    from aspectus.errors import AspectusInputError, Cancelled
+    from aspectus.webcam.pipeline import ProcessParams, clip_output_dir, process_clip
+
+    params = ProcessParams(fov_deg=args.fov_deg, face=args.face, max_faces=args.max_faces,
+                           gaze=gaze_params_from_args(args), analysis=analysis_params_from_args(args))
+    out_root = Path(args.out)
+    if out_root.exists() and not out_root.is_dir():
+        raise AspectusInputError(f"{out_root}: OUTDIR is a file, not a folder; give a folder to write the "
+                                "clips' outputs into (it is created if missing)")
+    try:
+        out_root.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise AspectusInputError(f"{out_root}: cannot create OUTDIR ({exc.strerror or exc}); "
+                                "choose a folder you can write to") from None
+    failures = 0
+    stems: dict[str, Path] = {}
+    for clip in args.clips:
+        clip = Path(clip)
+        if clip.stem in stems and stems[clip.stem] != clip.resolve():
+            print(f"aspectus: error: {clip}: has the same file stem as {stems[clip.stem]}; "
+                  f"both would write to {clip_output_dir(out_root, clip)} - process them into different OUTDIRs "
+                  "or use `aspectus batch`, which keeps them apart", file=sys.stderr)
+            failures += 1
+            continue
+        stems[clip.stem] = clip.resolve()
+        bar = ProgressBar(total=1000, desc=clip.name, unit="‰", disable=args.quiet, leave=False,
+                   bar_format="{desc}: {percentage:3.0f}%|{bar}| [{elapsed}<{remaining}]")
+
+        def progress(frac, msg, bar=bar):
+            bar.n = int(frac * 1000)
+            bar.refresh()
+
+        try:
+            res = process_clip(clip, clip_output_dir(out_root, clip), params=params, segments=args.segments,
+                               progress=progress, reuse=not args.no_reuse)
+        except AspectusInputError as exc:
+            bar.close()
+            print(f"aspectus: error: {exc}", file=sys.stderr)
+            failures += 1
+            continue
+        except (Cancelled, KeyboardInterrupt):
+            bar.close()
+            raise
+        except OSError as exc:  # disk full, permissions, a path that became a file, a file that went away
+            bar.close()
+            clip_out = clip_output_dir(out_root, clip)
+            where = Path(exc.filename) if exc.filename else None
+            writing = where is not None and clip_out.resolve() in (where.resolve(), *where.resolve().parents)
+            if writing:
+                print(f"aspectus: error: {clip}: could not write its outputs ({where}: "
+                      f"{exc.strerror or exc}); the clip's folder has no run.json until it is processed "
+                      "completely, so nothing there passes for a finished result - free space or fix the folder, "
+                      "then run again", file=sys.stderr)
+            else:
+                print(f"aspectus: error: {clip}: file error ({f'{where}: ' if where else ''}{exc.strerror or exc}); "
+                      "the other clips go on", file=sys.stderr)
+            failures += 1
+            continue
+        except Exception as exc:  # noqa: BLE001 - one clip's failure must not stop the others
+            bar.close()
+            log = _write_error_log(clip_output_dir(out_root, clip), clip)
+            where = f"the details are in {log}; please report it with that file" if log else "please report it"
+            print(f"aspectus: error: {clip}: processing failed ({type(exc).__name__}: {exc}); this is a "
+                  f"fault in aspectus, not in the clip as far as it can tell - {where}; the other clips go on",
+                  file=sys.stderr)
+            failures += 1
+            continue
+        bar.close()
+        try:  # a fault of an earlier run is no longer the state of this clip
+            (res.out_dir / "error.log").unlink(missing_ok=True)
+        except OSError:
+            pass
+        s = res.summary
+        print(f"{clip.name}: {s['frames']} frame{'' if s['frames'] == 1 else 's'} ({s['duration_s']:.1f} s), face found {s['face_found_frac']:.0%}, "
+              f"{s['blink_count']} blinks, {s['fixation_count']} fixations, median distance "
+              f"{_num(s['median_distance_mm'], '.0f', 'mm')}, noise {_num(s['noise_rms_s2s_deg'], '.2f', 'deg')} -> {res.out_dir}")
+        print(f"  {s['verdict']}")
+        if res.reused_samples:
+            print("  (gaze samples reused from the earlier run of this clip with the same settings; "
+                  "--no-reuse landmarks it again)")
+    if failures:
+        print(f"aspectus: {failures} of {len(args.clips)} clip(s) failed", file=sys.stderr)
+        return 1
+    return 0

@@ -1,0 +1,314 @@
+"""Privacy by default: faces blurred in every picture aspectus writes, per-frame data deletable.
+
+Classroom clips show minors. aspectus's exports hold features and gaze
+samples, never video frames; the only pictures it writes that can show a face
+are previews (screenshots of the app, an overlay frame saved for a report).
+Every such picture goes through :func:`save_preview_image`, which blurs the
+faces unless the caller turns that off explicitly with ``blur_faces=False``.
+When no face position is known and the face detector finds none, the whole
+picture is blurred rather than risk showing one.
+
+:func:`plan_purge` and :func:`purge` delete a study's cached per-frame data
+(the gaze samples tables and any frame caches) and keep the per-clip events,
+features and ``run.json``; ``aspectus purge`` is their command.
+"""
+from __future__ import annotations
+
+import contextlib
+import datetime as _dt
+import json
+import shutil
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from aspectus.errors import AspectusInputError
+
+#: file names (in a clip's output folder) that hold one row or one picture per frame
+PER_FRAME_FILES = ("samples.parquet", "samples.csv")
+#: glob patterns of other per-frame caches and previews a clip folder may hold
+#: (``.*.part`` are temporary files of a killed run: they may hold half a samples table)
+PER_FRAME_GLOBS = ("landmarks*.npz", "landmarks*.parquet", "*.frames.npz", "preview*.png", "preview*.jpg", ".*.part")
+#: folders of cached frames inside a clip folder
+PER_FRAME_DIRS = ("frames", "frame_cache", "previews")
+
+
+# --------------------------------------------------------------------------------------------
+# blurring faces in pictures
+
+def find_face_boxes(image: np.ndarray, *, min_confidence: float = 0.3, margin: float = 0.35) -> list[tuple]:
+    """Boxes ``(x0, y0, x1, y1)`` in px of every face MediaPipe's face detector finds in an RGB picture.
+
+    Parameters
+    ----------
+    image : ndarray
+        ``(H, W, 3)`` uint8 RGB picture.
+    min_confidence : float, default 0.3
+        Detection score (0-1) above which a face counts; low on purpose -
+        blurring a non-face costs little, missing a face costs much.
+    margin : float, default 0.35
+        Each box is grown by this fraction of its size on every side (hair,
+        ears, chin).
+
+    Notes
+    -----
+    Runs both of the detector's models (short range, within about 2 m, and
+    full range, up to about 5 m) so that small faces of bystanders are found
+    too. The model files ship inside the mediapipe wheel.
+    """
+    from aspectus._env import import_mediapipe, native_stderr_silenced
+
+    mp = import_mediapipe()  # heavy, only when a picture is written
+
+    img = np.ascontiguousarray(np.asarray(image)[..., :3], dtype=np.uint8)
+    H, W = img.shape[:2]
+    boxes = []
+    for model in (0, 1):
+        with native_stderr_silenced():
+            det = mp.solutions.face_detection.FaceDetection(model_selection=model,
+                                                            min_detection_confidence=float(min_confidence))
+        try:
+            res = det.process(img)
+        finally:
+            det.close()
+        for d in res.detections or []:
+            bb = d.location_data.relative_bounding_box
+            x0, y0, w, h = bb.xmin * W, bb.ymin * H, bb.width * W, bb.height * H
+            boxes.append(_grow((x0, y0, x0 + w, y0 + h), margin=margin, shape=(H, W)))
+    return boxes
+
+
+def _grow(box, *, margin: float, shape) -> tuple[int, int, int, int]:
+    H, W = shape[:2]
+    x0, y0, x1, y1 = box
+    mx, my = margin * (x1 - x0), margin * (y1 - y0)
+    return (int(max(0, np.floor(x0 - mx))), int(max(0, np.floor(y0 - my))),
+            int(min(W, np.ceil(x1 + mx))), int(min(H, np.ceil(y1 + my))))
+
+
+def blur_faces(image: np.ndarray, *, boxes=None, landmarks_px=None, detect: bool = True) -> np.ndarray:
+    """Return a copy of an RGB picture with every face made unrecognisable.
+
+    Parameters
+    ----------
+    image : ndarray
+        ``(H, W, 3)`` uint8 RGB picture (not changed).
+    boxes : list of (x0, y0, x1, y1), optional
+        Face boxes in px known to the caller.
+    landmarks_px : array, optional
+        ``(478, 2+)`` face-mesh landmarks (px) of a tracked face; its box is
+        blurred.
+    detect : bool, default True
+        Also run the face detector and blur whatever it finds.
+
+    Returns
+    -------
+    ndarray
+        The blurred copy. When no face is known or found, the whole picture is
+        blurred.
+    """
+    from aspectus.webcam.overlay import blur_region, face_box_from_landmarks
+
+    img = np.ascontiguousarray(np.asarray(image)[..., :3], dtype=np.uint8)
+    found = [tuple(int(v) for v in b) for b in (boxes or [])]
+    if landmarks_px is not None:
+        box = face_box_from_landmarks(np.asarray(landmarks_px, float)[:, :2], shape=img.shape[:2])
+        if box is not None:
+            found.append(tuple(int(v) for v in box))
+    if detect:
+        found += find_face_boxes(img)
+    if not found:
+        return blur_region(img, None)
+    out = img
+    for b in found:
+        out = blur_region(out, b)
+    return out
+
+
+_blur_faces = blur_faces  # the name save_preview_image's keyword shadows
+
+
+def save_preview_image(path, image: np.ndarray, *, blur_faces: bool = True, boxes=None, landmarks_px=None) -> Path:
+    """Write a picture that may show video frames (PNG or JPEG by extension), faces blurred, atomically.
+
+    Parameters
+    ----------
+    path : path-like
+        ``.png``, ``.jpg`` or ``.jpeg`` file to write.
+    image : ndarray
+        ``(H, W, 3)`` uint8 RGB picture.
+    blur_faces : bool, default True
+        Blur every face (see :func:`blur_faces`). Only an explicit ``False``
+        writes faces as they are - for a protocol that allows it.
+    boxes, landmarks_px
+        Face positions the caller already knows (passed to :func:`blur_faces`).
+
+    Returns
+    -------
+    Path
+    """
+    from aspectus._env import import_cv2
+    from aspectus.atomic import write_bytes
+
+    cv2 = import_cv2()
+    path = Path(path)
+    ext = path.suffix.lower()
+    if ext not in (".png", ".jpg", ".jpeg"):
+        raise AspectusInputError(f"cannot write a picture with extension {ext!r}", path=path,
+                                hint="use .png or .jpg")
+    img = np.ascontiguousarray(np.asarray(image)[..., :3], dtype=np.uint8)
+    if blur_faces is not False:
+        img = _blur_faces(img, boxes=boxes, landmarks_px=landmarks_px)
+    ok, buf = cv2.imencode(ext, cv2.cvtColor(img, cv2.COLOR_RGB2BGR))
+    if not ok:
+        raise AspectusInputError("the picture could not be encoded", path=path)
+    return write_bytes(path, buf.tobytes())
+
+
+# --------------------------------------------------------------------------------------------
+# deleting per-frame data
+
+@dataclass
+class PurgePlan:
+    """What :func:`purge` would delete.
+
+    Attributes
+    ----------
+    target : Path
+        The folder or study file given.
+    clip_dirs : list of Path
+        Clip output folders found (each holds a ``run.json`` or a samples table).
+    files : list of Path
+        Per-frame files to delete.
+    dirs : list of Path
+        Per-frame cache folders to delete.
+    bytes : int
+        Their total size.
+    """
+
+    target: Path
+    clip_dirs: list[Path] = field(default_factory=list)
+    files: list[Path] = field(default_factory=list)
+    dirs: list[Path] = field(default_factory=list)
+    bytes: int = 0
+
+
+def _is_clip_dir(d: Path) -> bool:
+    return (d / "run.json").is_file() or any((d / n).is_file() for n in PER_FRAME_FILES)
+
+
+def _output_root(target: Path) -> Path:
+    if target.is_file():
+        if target.suffix.lower() != ".json":
+            raise AspectusInputError("is neither an output folder nor a study file (.json)", path=target,
+                                    hint="give the OUTDIR of `aspectus process`/`aspectus batch`, or a study file")
+        from aspectus.studies.project import load_study
+
+        return load_study(target).output_root()
+    if not target.exists():
+        raise AspectusInputError("no such folder or study file", path=target)
+    return target
+
+
+def _dir_bytes(d: Path) -> int:
+    return sum(p.stat().st_size for p in d.rglob("*") if p.is_file())
+
+
+def plan_purge(target, *, max_depth: int = 4) -> PurgePlan:
+    """Find the per-frame data under an output folder (or a study file's output folder).
+
+    Parameters
+    ----------
+    target : path-like
+        A clip's output folder, an OUTDIR holding clip folders (nested up to
+        ``max_depth`` levels, as ``aspectus batch`` lays them out), or a study
+        file (``.json``) whose output folder is searched.
+    max_depth : int, default 4
+        How deep to look for clip folders below ``target``.
+
+    Returns
+    -------
+    PurgePlan
+    """
+    target = Path(target)
+    root = _output_root(target)
+    plan = PurgePlan(target=target)
+    if not root.is_dir():
+        return plan
+    level = [root]
+    for _ in range(max_depth + 1):
+        nxt = []
+        for d in level:
+            if _is_clip_dir(d):
+                plan.clip_dirs.append(d)
+            with contextlib.suppress(OSError):
+                nxt += [c for c in sorted(d.iterdir()) if c.is_dir() and not c.is_symlink()
+                        and c.name not in PER_FRAME_DIRS and not c.name.startswith(".")]
+        level = nxt
+    for d in plan.clip_dirs:
+        for name in PER_FRAME_FILES:
+            if (d / name).is_file():
+                plan.files.append(d / name)
+        for pat in PER_FRAME_GLOBS:
+            plan.files += sorted(p for p in d.glob(pat) if p.is_file() and p not in plan.files)
+        for name in PER_FRAME_DIRS:
+            if (d / name).is_dir() and not (d / name).is_symlink():
+                plan.dirs.append(d / name)
+    plan.bytes = sum(p.stat().st_size for p in plan.files) + sum(_dir_bytes(d) for d in plan.dirs)
+    return plan
+
+
+def purge(plan: PurgePlan) -> PurgePlan:
+    """Delete what ``plan`` lists and note the deletion in each clip's ``run.json``.
+
+    The purged files are removed from ``run.json``'s ``outputs`` (so a finished
+    clip still counts as finished for ``aspectus batch``) and listed under
+    ``purged`` with the time. Processing the clip again rebuilds them.
+
+    Returns
+    -------
+    PurgePlan
+        What was deleted.
+    """
+    from aspectus.atomic import write_json
+
+    done = PurgePlan(target=plan.target, clip_dirs=list(plan.clip_dirs))
+    for p in plan.files:
+        try:
+            size = p.stat().st_size
+            p.unlink()
+        except FileNotFoundError:
+            continue
+        done.files.append(p)
+        done.bytes += size
+    for d in plan.dirs:
+        size = _dir_bytes(d) if d.is_dir() else 0
+        shutil.rmtree(d, ignore_errors=True)
+        if not d.exists():
+            done.dirs.append(d)
+            done.bytes += size
+    now = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+    for d in done.clip_dirs:
+        gone = [p.name for p in done.files if p.parent == d] + [p.name + "/" for p in done.dirs if p.parent == d]
+        rj = d / "run.json"
+        if not gone or not rj.is_file():
+            continue
+        try:
+            run = json.loads(rj.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            continue
+        if not isinstance(run, dict):
+            continue
+        outs = run.get("outputs")
+        if isinstance(outs, dict):
+            run["outputs"] = {k: v for k, v in outs.items() if k not in gone}
+        prev = run.get("purged") if isinstance(run.get("purged"), dict) else {}
+        run["purged"] = {"utc": now, "files": sorted(set(prev.get("files", [])) | set(gone)),
+                         "note": "per-frame data deleted by `aspectus purge`; process the clip again to rebuild it"}
+        write_json(rj, run)
+    return done
+
+
+__all__ = ["save_preview_image", "blur_faces", "find_face_boxes", "plan_purge", "purge", "PurgePlan",
+           "PER_FRAME_FILES", "PER_FRAME_GLOBS", "PER_FRAME_DIRS"]

@@ -1,0 +1,407 @@
+"""Rendered webcam-like test clips with known gaze truth.
+
+:func:`render_clip` draws a face photograph that ships with the project's
+dependencies (:mod:`aspectus.synth.face`) in front of a pinhole camera, poses
+the head, turns the eyes along a gaze trajectory
+(:func:`synth_trajectory`), closes the lids for blinks, adds sensor noise and
+encodes the frames lossily with their true timestamps. Beside the clip it
+writes the ground truth:
+
+* ``<stem>_truth.csv`` - one row per frame (see :data:`TRUTH_COLUMNS`);
+* ``<stem>_truth_hi.csv`` - the trajectory at its own high rate;
+* ``<stem>_truth_events.csv`` - the true fixations, saccades and blinks;
+* ``<stem>_truth.json`` - the parameters (face, camera, noise, codec, seed,
+  trajectory) and the clip's SHA-256.
+
+The geometry is described in :mod:`aspectus.synth.frame`; angles follow
+:mod:`aspectus.schema`.
+"""
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from aspectus import __version__
+from aspectus.atomic import atomic_path, sha256_file, write_csv, write_json
+from aspectus.errors import Cancelled, ParameterError
+from aspectus.synth.face import EYES, FACES, IRIS_DIAMETER_MM, load_face
+from aspectus.synth.frame import EYEBALL_RADIUS_MM, Camera, FaceRig, gaze_vector, head_rotation
+from aspectus.synth.trajectory import Trajectory, saccade_duration_ms, synth_trajectory
+from aspectus.synth.clip_writer import FORMATS, ClipWriter, rotate_for_storage
+
+__all__ = ["render_clip", "RenderResult", "synth_trajectory", "Trajectory", "saccade_duration_ms",
+           "TRUTH_COLUMNS", "read_truth"]
+
+#: Columns of ``<stem>_truth.csv``, with their meaning. Angles in schema.py's frame; pixel positions in
+#: the upright picture (before any rotation tag is applied), face-mesh convention (pixel i spans [i, i+1)).
+TRUTH_COLUMNS = {
+    "frame_index": "0-based index of the frame in the clip",
+    "t_s": "frame time on the trajectory's clock, s (the first frame of a default clip is at 0)",
+    "pts_s": "the frame's presentation timestamp as stored in the container, s",
+    "yaw_deg": "true binocular gaze yaw (head-compensated, subject's right positive), deg",
+    "pitch_deg": "true gaze pitch (up positive), deg",
+    "blink": "lids at least half closed",
+    "lid_closure": "0 = open, 1 = closed",
+    "face_visible": "the face was drawn in this frame",
+    "head_yaw_deg": "head yaw (face turned to the subject's right positive), deg",
+    "head_pitch_deg": "head pitch (up positive), deg",
+    "head_roll_deg": "head roll (towards the subject's right shoulder positive), deg",
+    "head_x_mm": "head origin (midpoint of the eyeball centres), camera frame x, mm",
+    "head_y_mm": "head origin, camera frame y, mm",
+    "head_z_mm": "head origin, camera frame z, mm",
+    "eye_in_head_yaw_deg": "gaze yaw relative to the head, deg",
+    "eye_in_head_pitch_deg": "gaze pitch relative to the head, deg",
+    "right_iris_x_px": "picture x of the subject's right iris centre, px (empty when the face is hidden)",
+    "right_iris_y_px": "picture y of the subject's right iris centre, px",
+    "left_iris_x_px": "picture x of the subject's left iris centre, px",
+    "left_iris_y_px": "picture y of the subject's left iris centre, px",
+    "iris_diameter_px": "expected iris diameter in the picture (focal * 11.7 mm / iris distance), px",
+    "distance_mm": "mean distance of the two iris centres from the camera, mm",
+}
+
+#: size of a bystander's face relative to the subject's (smaller ones escape the face mesh's detector at 720p)
+EXTRA_FACE_SCALE = 0.7
+
+#: background wall colours, top and bottom (RGB)
+_WALL_TOP = np.array([198.0, 192.0, 180.0])
+_WALL_BOTTOM = np.array([168.0, 162.0, 150.0])
+
+
+@dataclass
+class RenderResult:
+    """What :func:`render_clip` wrote.
+
+    Attributes
+    ----------
+    path : Path
+        The clip.
+    truth_path, truth_hi_path, truth_events_path, truth_json_path : Path
+        The truth files beside it.
+    truth : pandas.DataFrame
+        The per-frame truth (the content of ``truth_path``).
+    frames : int
+        Frames written.
+    focal_px : float
+        Focal length of the camera model in pixels (upright picture).
+    size_px : tuple of int
+        Upright picture size (width, height).
+    render_ms_per_frame : float
+        Mean wall time per frame (render + encode), ms.
+    """
+
+    path: Path
+    truth_path: Path
+    truth_hi_path: Path
+    truth_events_path: Path
+    truth_json_path: Path
+    truth: pd.DataFrame
+    frames: int
+    focal_px: float
+    size_px: tuple[int, int]
+    render_ms_per_frame: float = float("nan")
+    params: dict = field(default_factory=dict)
+
+
+def _background(w: int, h: int) -> np.ndarray:
+    f = np.linspace(0.0, 1.0, h)[:, None, None]
+    img = _WALL_TOP * (1 - f) + _WALL_BOTTOM * f
+    return np.broadcast_to(img, (h, w, 3)).astype(np.uint8)
+
+
+def _paste_face(targets: list[np.ndarray], name: str, *, centre_px, iris_px: float, mirror: bool) -> None:
+    """Composite a small static face (another photo) into each picture of ``targets`` (RGB uint8, in place)."""
+    from aspectus._env import import_cv2
+
+    cv2 = import_cv2()
+    face = load_face(name)
+    k = iris_px / face.iris_diameter_px
+    img = face.image[:, ::-1] if mirror else face.image
+    lm = face.landmarks_px[:, :2].copy()
+    if mirror:
+        lm[:, 0] = face.image.shape[1] - lm[:, 0]
+    fc = 0.5 * (lm.min(axis=0) + lm.max(axis=0))
+    span = lm.max(axis=0) - lm.min(axis=0)
+    off = np.asarray(centre_px, float) - k * fc
+    h, w = targets[0].shape[:2]
+    M = np.array([[k, 0, off[0] + 0.5 * k - 0.5], [0, k, off[1] + 0.5 * k - 0.5]])
+    warped = cv2.warpAffine(np.ascontiguousarray(img), M, (w, h), flags=cv2.INTER_LINEAR,
+                            borderMode=cv2.BORDER_CONSTANT).astype(np.float32)
+    yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
+    rx, ry = 0.95 * k * span[0], 0.85 * k * span[1]
+    rho = np.hypot((xx + 0.5 - centre_px[0]) / rx, (yy + 0.5 - centre_px[1]) / ry)
+    alpha = np.clip((1.0 - rho) / 0.25, 0, 1)[..., None]
+    for t in targets:
+        t[:] = np.clip(t * (1 - alpha) + warped * alpha + 0.5, 0, 255).astype(np.uint8)
+
+
+_NOISE_PAD = 32
+_NOISE_FIELDS = 6
+
+
+def _noise_bank(h: int, w: int, *, sd: float, seed: int) -> list[np.ndarray]:
+    """A few Gaussian noise fields (int16, grey levels, SD ``sd``) a little larger than the picture.
+
+    Each frame adds one of them at a random offset: independent enough from
+    frame to frame for a sensor-noise model, and far cheaper than drawing
+    a million normal numbers per frame.
+    """
+    rng = np.random.default_rng([int(seed), 3])
+    return [np.round(rng.standard_normal((h + _NOISE_PAD, w + _NOISE_PAD, 3), dtype=np.float32) * sd)
+            .astype(np.int16) for _ in range(_NOISE_FIELDS)]
+
+
+def _check_frame_times(frame_times_s, duration_s: float) -> np.ndarray:
+    t = np.asarray(frame_times_s, dtype=float)
+    if t.ndim != 1 or len(t) == 0:
+        raise ParameterError("frame_times_s must be a non-empty 1-D sequence of seconds")
+    bad = ~np.isfinite(t) | (t < 0)
+    if bad.any():
+        i = int(np.argmax(bad))
+        raise ParameterError(f"frame time {t[i]!r} is not a finite time >= 0 s", where=f"frame {i}")
+    d = np.diff(t)
+    if (d <= 0).any():
+        i = int(np.argmax(d <= 0)) + 1
+        raise ParameterError(f"frame times must increase ({t[i - 1]:.6g} s then {t[i]:.6g} s)", where=f"frame {i}")
+    if t[-1] > duration_s + 1e-9:
+        raise ParameterError(f"frame time {t[-1]:.6g} s is past the trajectory's end ({duration_s:.6g} s)",
+                             where=f"frame {len(t) - 1}", hint="make the trajectory longer")
+    return t
+
+
+def _angles(g: np.ndarray) -> tuple[float, float]:
+    return (float(np.degrees(np.arctan2(-g[0], -g[2]))), float(np.degrees(np.arctan2(-g[1], np.hypot(g[0], g[2])))))
+
+
+def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: tuple[int, int] = (1280, 720),
+                fps: float = 30.0, frame_times_s=None, fov_deg: float = 60.0, noise_sd: float = 2.0,
+                codec: str = "libx264", crf: int = 23, bitrate_kbps: float | None = None, rotation_deg: int = 0,
+                darkness: float = 1.0, face_visible=None, extra_faces: int = 0, seed: int = 0,
+                lower_skin_follow: float = 0.0, progress=None, cancel=None) -> RenderResult:
+    """Render a webcam-like clip of a face following ``trajectory`` and write its truth beside it.
+
+    Parameters
+    ----------
+    path : path-like
+        Clip to write (``.mp4``, ``.mov``, ``.mkv``; ``.avi`` for constant
+        frame rate only). Written atomically.
+    trajectory : Trajectory
+        Gaze, blinks and head pose over time (:func:`synth_trajectory`).
+    face : {"hopper", "astronaut"}, default "hopper"
+        Which shipped photograph to animate.
+    size_px : (int, int), default (1280, 720)
+        Upright picture width and height in pixels (even numbers).
+    fps : float, default 30
+        Frame rate in frames per second; frames at ``i / fps`` unless
+        ``frame_times_s`` is given.
+    frame_times_s : sequence of float, optional
+        Explicit frame times in seconds (variable frame rate), increasing,
+        within the trajectory; stored as the container's timestamps.
+    fov_deg : float, default 60
+        Horizontal field of view of the camera in degrees.
+    noise_sd : float, default 2
+        SD of the Gaussian sensor noise in grey levels (0-255 scale).
+    codec : {"libx264", "mpeg4"}, default "libx264"
+    crf : int, default 23
+        libx264 constant-rate factor (lower = better, bigger).
+    bitrate_kbps : float, optional
+        Target bitrate in kbit/s instead of ``crf`` (mpeg4 default 1500).
+    rotation_deg : {0, 90, 180, 270}, default 0
+        Display rotation tag (counter-clockwise degrees, as
+        ``VideoFrame.rotation`` reports it). The frames are stored rotated
+        the other way, so a decoder honouring the tag shows them upright.
+    darkness : float, default 1
+        Light level in (0, 1]: the picture is multiplied by it and the noise
+        SD divided by its square root (a dim room with raised gain).
+    face_visible : sequence of bool, optional
+        Per frame: draw the face (True) or the empty background (False).
+    extra_faces : int, default 0
+        Number (0-2) of other static faces, 0.7 times the subject's size,
+        composited beside the subject (bystanders); smaller ones are missed
+        by the face mesh's detector.
+    seed : int, default 0
+        Seed of the noise and of the iris textures.
+    lower_skin_follow : float, default 0
+        How far the skin below the lower lids follows the lids' movement
+        with vertical gaze (0-1; :class:`aspectus.synth.frame.FaceRig`).
+    progress : callable, optional
+        ``progress(fraction_done, message)``, called every few frames.
+    cancel : object with ``is_set()``, optional
+        When set, rendering stops with :class:`aspectus.errors.Cancelled`; no
+        clip is left behind.
+
+    Returns
+    -------
+    RenderResult
+
+    Notes
+    -----
+    The photograph is laid out for the median head position of the clip; head
+    motion away from it is drawn by warping the photograph (see
+    :mod:`aspectus.synth.frame`). Iris size follows the geometry: at 600 mm
+    with a 60 deg field of view a 1280 px wide picture shows an 11.7 mm iris
+    about 22 px wide.
+    """
+    t_start = time.perf_counter()
+    from aspectus._env import import_cv2
+
+    cv2 = import_cv2()
+    path = Path(path)
+    if path.suffix.lower() not in FORMATS:
+        raise ParameterError(f"cannot write a clip with extension {path.suffix!r}", path=path,
+                             hint=f"use one of {', '.join(FORMATS)}")
+    if face not in FACES:
+        raise ParameterError(f"face must be one of {', '.join(FACES)}, got {face!r}")
+    try:
+        w, h = (int(v) for v in size_px)
+    except (TypeError, ValueError):
+        raise ParameterError(f"size_px must be (width, height) in pixels, got {size_px!r}") from None
+    if w < 64 or h < 64 or w % 2 or h % 2:
+        raise ParameterError(f"size_px must be even numbers of at least 64 pixels, got {w}x{h}")
+    for name, v, lo, hi in (("fps", fps, 0.0, 1000.0), ("fov_deg", fov_deg, 10.0, 150.0),
+                            ("darkness", darkness, 0.0, 1.0)):
+        if not (isinstance(v, (int, float, np.integer, np.floating)) and np.isfinite(v) and lo < v <= hi):
+            raise ParameterError(f"{name} must be in ({lo:g}, {hi:g}], got {v!r}")
+    if not (np.isfinite(noise_sd) and noise_sd >= 0):
+        raise ParameterError(f"noise_sd must be zero or more grey levels, got {noise_sd!r}")
+    if int(rotation_deg) % 90 or rotation_deg != int(rotation_deg):
+        raise ParameterError(f"rotation_deg must be a multiple of 90, got {rotation_deg!r}")
+    rotation_deg = int(rotation_deg) % 360
+    if not (isinstance(extra_faces, (int, np.integer)) and 0 <= extra_faces <= 2):
+        raise ParameterError(f"extra_faces must be 0, 1 or 2, got {extra_faces!r}")
+    if not isinstance(trajectory, Trajectory):
+        raise ParameterError("trajectory must be a Trajectory (see synth_trajectory)")
+
+    duration = float(trajectory.samples["t_s"].iloc[-1])
+    vfr = frame_times_s is not None
+    if vfr:
+        times = _check_frame_times(frame_times_s, duration)
+    else:
+        n = int(np.floor(duration * fps + 1e-6))
+        if n < 1:
+            raise ParameterError(f"the trajectory ({duration:.3g} s) is shorter than one frame at {fps:g} fps")
+        times = np.arange(n) / float(fps)
+    n = len(times)
+    if face_visible is None:
+        visible = np.ones(n, bool)
+    else:
+        visible = np.asarray(face_visible, dtype=bool)
+        if visible.shape != (n,):
+            raise ParameterError(f"face_visible must have one entry per frame ({n}), got shape {visible.shape}")
+
+    track = trajectory.at(times)
+    camera = Camera(w, h, float(fov_deg))
+    rest = (float(track["head_x_mm"].median()), float(track["head_y_mm"].median()),
+            float(track["head_z_mm"].median()))
+    bg = _background(w, h)
+    rig = FaceRig(load_face(face), camera, rest_head_mm=rest, background=bg, seed=seed,
+                  lower_skin_follow=lower_skin_follow)
+    if extra_faces:
+        other = FACES[1] if face == FACES[0] else FACES[0]
+        main_iris = camera.focal_px * IRIS_DIAMETER_MM / (rest[2] - EYEBALL_RADIUS_MM)
+        spots = [((0.87, 0.58), other, False), ((0.13, 0.58), other, True)]
+        for (fx, fy), name, mirror in spots[:extra_faces]:
+            _paste_face([rig.base, rig.background], name, centre_px=(fx * w, fy * h), iris_px=EXTRA_FACE_SCALE * main_iris,
+                        mirror=mirror)
+
+    sd = float(noise_sd) / np.sqrt(float(darkness))
+    bank = _noise_bank(h, w, sd=sd, seed=seed) if sd > 0 else None
+    pick = np.random.default_rng([int(seed), 7])
+    stored_w, stored_h = (h, w) if rotation_deg in (90, 270) else (w, h)
+    rows = []
+    with atomic_path(path) as tmp:
+        writer = ClipWriter(path, tmp, width_px=stored_w, height_px=stored_h, fps=float(fps), codec=codec,
+                            crf=crf, bitrate_kbps=bitrate_kbps, rotation_deg=rotation_deg, vfr=vfr)
+        try:
+            for i in range(n):
+                if cancel is not None and cancel.is_set():
+                    raise Cancelled(f"rendering {path.name} cancelled at frame {i}")
+                r = track.iloc[i]
+                R = head_rotation(r.head_yaw_deg, r.head_pitch_deg, r.head_roll_deg)
+                T = (r.head_x_mm, r.head_y_mm, r.head_z_mm)
+                g = gaze_vector(r.yaw_deg, r.pitch_deg)
+                eih_yaw, eih_pitch = _angles(R.T @ g)
+                iris_mm = rig.iris_centres_mm(R, T, g)
+                iris_uv = {e: camera.project(iris_mm[e][None])[0] for e in EYES}
+                if visible[i]:
+                    img, _info = rig.render(R=R, T_mm=T, gaze=g, closure=r.lid_closure)
+                else:
+                    img = rig.background.copy()
+                if darkness < 1.0:
+                    img = cv2.convertScaleAbs(img, alpha=float(darkness))
+                if bank is not None:
+                    k, dy, dx = pick.integers(0, len(bank)), pick.integers(0, _NOISE_PAD), pick.integers(0, _NOISE_PAD)
+                    img = cv2.add(img, bank[k][dy:dy + h, dx:dx + w], dtype=cv2.CV_8U)
+                frame = img
+                pts_s = writer.write(rotate_for_storage(frame, rotation_deg), float(times[i]))
+                dist = [float(np.linalg.norm(iris_mm[e])) for e in EYES]
+                if not visible[i]:  # no face drawn: no iris in the picture
+                    iris_uv = {e: (np.nan, np.nan) for e in EYES}
+                rows.append({
+                    "frame_index": i, "t_s": float(times[i]), "pts_s": pts_s,
+                    "yaw_deg": float(r.yaw_deg), "pitch_deg": float(r.pitch_deg), "blink": bool(r.blink),
+                    "lid_closure": float(r.lid_closure), "face_visible": bool(visible[i]),
+                    "head_yaw_deg": float(r.head_yaw_deg), "head_pitch_deg": float(r.head_pitch_deg),
+                    "head_roll_deg": float(r.head_roll_deg), "head_x_mm": float(r.head_x_mm),
+                    "head_y_mm": float(r.head_y_mm), "head_z_mm": float(r.head_z_mm),
+                    "eye_in_head_yaw_deg": eih_yaw, "eye_in_head_pitch_deg": eih_pitch,
+                    "right_iris_x_px": float(iris_uv["right"][0]), "right_iris_y_px": float(iris_uv["right"][1]),
+                    "left_iris_x_px": float(iris_uv["left"][0]), "left_iris_y_px": float(iris_uv["left"][1]),
+                    "iris_diameter_px": float(np.mean([camera.focal_px * IRIS_DIAMETER_MM / d for d in dist])),
+                    "distance_mm": float(np.mean(dist)),
+                })
+                if progress is not None and (i % 10 == 0 or i == n - 1):
+                    progress((i + 1) / n, f"rendering {path.name}: frame {i + 1} of {n}")
+            writer.close()
+        except BaseException:
+            writer.abort()
+            raise
+    elapsed = time.perf_counter() - t_start
+
+    truth = pd.DataFrame(rows, columns=list(TRUTH_COLUMNS))
+    stem = path.with_suffix("")
+    truth_path = Path(f"{stem}_truth.csv")
+    hi_path = Path(f"{stem}_truth_hi.csv")
+    ev_path = Path(f"{stem}_truth_events.csv")
+    json_path = Path(f"{stem}_truth.json")
+    write_csv(truth_path, truth, float_format="%.6f")
+    write_csv(hi_path, trajectory.samples, float_format="%.6f")
+    ev_cols = ["type", "onset_s", "offset_s", "duration_ms", "yaw_deg", "pitch_deg", "amplitude_deg"]
+    parts = [tab.assign(type=kind).reindex(columns=ev_cols).astype({c: float for c in ev_cols[1:]})
+             for tab, kind in ((trajectory.fixations, "fixation"), (trajectory.saccades, "saccade"),
+                               (trajectory.blinks, "blink")) if len(tab)]
+    ev = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=ev_cols)
+    write_csv(ev_path, ev.sort_values("onset_s", kind="stable"), float_format="%.6f")
+    import av
+
+    params = {
+        "clip": path.name, "clip_sha256": sha256_file(path), "face": face, "size_px": [w, h],
+        "stored_size_px": [stored_w, stored_h], "fps": float(fps), "variable_frame_rate": vfr, "frames": n,
+        "duration_s": float(times[-1] - times[0]) + (1.0 / fps if not vfr else 0.0),
+        "fov_deg": float(fov_deg), "focal_px": camera.focal_px, "principal_point_px": list(camera.centre_px),
+        "rest_head_mm": list(rest), "noise_sd": float(noise_sd), "darkness": float(darkness), "codec": codec,
+        "crf": int(crf) if codec == "libx264" and not bitrate_kbps else None, "bitrate_kbps": bitrate_kbps,
+        "rotation_deg": rotation_deg, "extra_faces": int(extra_faces), "seed": int(seed),
+        "face_hidden_frames": int((~visible).sum()),
+        "geometry": {"iris_diameter_mm": IRIS_DIAMETER_MM, "eyeball_radius_mm": EYEBALL_RADIUS_MM,
+                     "frame": "aspectus.schema (yaw>0 subject's right, pitch>0 up)",
+                     "picture_coordinates": "x = x_norm * width (pixel i spans [i, i+1)), upright picture"},
+        "trajectory": trajectory.params, "truth_columns": TRUTH_COLUMNS,
+        "software": {"aspectus": __version__, "av": av.__version__, "numpy": np.__version__},
+    }
+    write_json(json_path, params)
+    return RenderResult(path=path, truth_path=truth_path, truth_hi_path=hi_path, truth_events_path=ev_path,
+                        truth_json_path=json_path, truth=truth, frames=n, focal_px=camera.focal_px, size_px=(w, h),
+                        render_ms_per_frame=1000.0 * elapsed / n, params=params)
+
+
+def read_truth(path) -> pd.DataFrame:
+    """Read a ``<stem>_truth.csv`` written by :func:`render_clip` (blink and face_visible as bool)."""
+    df = pd.read_csv(path)
+    for c in ("blink", "face_visible"):
+        if c in df:
+            df[c] = df[c].astype(str).str.lower().isin(("true", "1"))
+    return df

@@ -1,0 +1,207 @@
+"""Where the eyes are: skin points below the eyes followed on the picture itself.
+
+The head pose from PnP on the face mesh's landmarks (:mod:`aspectus.webcam.headpose`)
+has a good rotation but a poor origin under head rotation: on a turned head
+the mesh places its landmarks 0.2-0.6 px per degree away from where the
+face's points are, with a direction that differs from face to face
+(rendered clips; DEVELOPERS.md), so the PnP translation - and with it both
+eyeball centres - moves by about a millimetre at 5 deg of head rotation,
+which tilts the 10.5 mm eyeball-centre-to-iris vector by some 5 deg. The
+mesh also moves its points with the eyes (the eyeball centres followed the
+iris by 0.3-0.5 of its own vertical motion).
+
+The picture has neither fault to that degree: skin texture just below the
+lower lid moves with the head, and with the eyes far less than the lids do
+(on rendered clips not at all; on real faces the lower-lid skin follows
+downward gaze a little - DEVELOPERS.md, known limits). So a
+few points on the skin just below each eye's opening (the face mesh's
+second ring below the lower lid, :data:`ANCHOR_POINTS`) are followed from
+frame to frame by normalised cross-correlation template matching (Lewis
+1995, "Fast normalized cross-correlation"; sub-pixel by a parabola through
+the correlation peak) against a template cut from the first frame of each
+run of tracked frames, and the head translation is refitted to them with
+the PnP rotation held fixed (:func:`translation_given_rotation`). The
+templates are taken at the mesh's points; what is followed is each point's
+offset from the mesh's point, so a failed match (a blink, a hand) keeps the
+last offset, and a template is cut again - at the mesh point plus that
+offset, so the anchor does not jump - after :data:`PATIENCE_FRAMES` failed
+matches in a row or when the iris (the picture's scale) has grown or shrunk
+by more than a fifth since it was cut.
+
+Sizes scale with the iris radius ``r`` (about 11 px at 720p): templates of
+half-width :data:`PATCH_RADII` ``r``, searched within :data:`SEARCH_RADII`
+``r`` of the point predicted from the last offset, offsets kept within
+:data:`OFFSET_RADII` ``r`` of the mesh's point. :func:`anchor_reach_px` is
+how far from the mesh's points the matching may read, so the eye crop sent
+to the geometry process covers it.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from aspectus._env import import_cv2
+
+#: face-mesh points on the skin below the eye openings (second ring below the lower lid, under the iris):
+#: right eye 229-231, left eye 449-451
+ANCHOR_POINTS = (229, 230, 231, 449, 450, 451)
+#: template half-width, in iris radii
+PATCH_RADII = 0.7
+#: search half-range around the point predicted from the last offset, in iris radii
+SEARCH_RADII = 0.4
+#: largest offset of an anchor from the mesh's point, in iris radii
+OFFSET_RADII = 1.0
+#: matches with a lower normalised correlation are not used
+MIN_SCORE = 0.6
+#: a template is cut again after this many failed matches in a row
+PATIENCE_FRAMES = 15
+#: ... or when the iris radius has changed by more than this fraction since it was cut
+RESCALE_FRACTION = 0.2
+
+
+#: below this iris radius (px) the anchors are not followed (as the limbus fit: a face a few dozen pixels wide)
+MIN_ANCHOR_RADIUS_PX = 2.5
+
+
+def anchor_radius_px(iris_diam_px) -> float:
+    """The iris radius the anchors' sizes scale with: half the mean of both eyes' iris diameters (px).
+
+    One definition for the tracker and for the eye crop that must cover what it reads.
+    """
+    d = np.asarray(iris_diam_px, float)
+    return 0.25 * float(d[0] + d[1])
+
+
+def anchor_reach_px(iris_radius_px: float) -> float:
+    """How far from an anchor's mesh point the matching may read (px), for the eye crop."""
+    r = float(iris_radius_px)
+    return (OFFSET_RADII + SEARCH_RADII + PATCH_RADII * (1.0 + RESCALE_FRACTION)) * r + 3.0
+
+
+def _grey(image: np.ndarray, x0: int, y0: int, x1: int, y1: int) -> np.ndarray | None:
+    """The grey (float32) picture in ``[y0:y1, x0:x1]``, or None when that reaches outside it."""
+    h, w = image.shape[:2]
+    if x0 < 0 or y0 < 0 or x1 > w or y1 > h or x1 <= x0 or y1 <= y0:
+        return None
+    patch = image[y0:y1, x0:x1]
+    if patch.ndim == 3:
+        cv2 = import_cv2()
+        patch = cv2.cvtColor(np.ascontiguousarray(patch), cv2.COLOR_RGB2GRAY)
+    return patch.astype(np.float32)
+
+
+def _vertex(a: float, b: float, c: float) -> float:
+    den = a - 2.0 * b + c
+    return min(0.5, max(-0.5, 0.5 * (a - c) / den)) if den != 0 else 0.0
+
+
+def _peak(res: np.ndarray) -> tuple[float, float, float] | None:
+    """Sub-pixel (x, y) and height of the correlation peak; None at the border of the search range."""
+    _, score, _, (x, y) = import_cv2().minMaxLoc(res)
+    h, w = res.shape
+    if not (0 < x < w - 1 and 0 < y < h - 1):
+        return None
+    row, col = res[y].tolist(), res[:, x].tolist()
+    return x + _vertex(row[x - 1], row[x], row[x + 1]), y + _vertex(col[y - 1], col[y], col[y + 1]), float(score)
+
+
+class EyeAnchorTracker:
+    """Follows :data:`ANCHOR_POINTS` on the picture, frame after frame (one face, one run of frames)."""
+
+    def __init__(self, points=ANCHOR_POINTS):
+        self.points = tuple(points)
+        self.reset()
+
+    def reset(self) -> None:
+        self._templates: list | None = None
+        self.offsets_px = np.zeros((len(self.points), 2))
+        self._misses = [0] * len(self.points)
+        self.matched = 0
+        self.missed = 0
+
+    def _cut(self, j: int, image: np.ndarray, p, half: int, r: float) -> None:
+        xi, yi = int(round(p[0])), int(round(p[1]))
+        tpl = _grey(image, xi - half, yi - half, xi + half + 1, yi + half + 1)
+        self._templates[j] = None if tpl is None else (tpl, (p[0] - xi, p[1] - yi), half, r)
+        self._misses[j] = 0
+
+    def update(self, image: np.ndarray, points_px: np.ndarray, iris_radius_px: float) -> np.ndarray:
+        """The anchors' picture positions (k, 2) in this frame: the mesh's points plus the followed offsets.
+
+        ``image`` is the picture or a crop of it, and ``points_px`` are in the same coordinates.
+        """
+        r = float(iris_radius_px)
+        mesh = np.asarray(points_px, float)[list(self.points), :2]
+        if not (np.isfinite(r) and r > 0 and np.all(np.isfinite(mesh))):
+            return mesh + self.offsets_px
+        half = max(3, int(round(PATCH_RADII * r)))
+        if self._templates is None:
+            self._templates = [None] * len(self.points)
+            for j in range(len(self.points)):
+                self._cut(j, image, mesh[j].tolist(), half, r)
+            return mesh + self.offsets_px
+        cv2 = import_cv2()
+        s = max(2, int(round(SEARCH_RADII * r)))
+        bound = OFFSET_RADII * r
+        pred = mesh + np.clip(self.offsets_px, -bound, bound)
+        jobs = []  # (anchor, window box) of the anchors matched in this frame
+        for j in range(len(self.points)):
+            t = self._templates[j]
+            if t is None or abs(t[3] / r - 1.0) > RESCALE_FRACTION or self._misses[j] >= PATIENCE_FRAMES:
+                self._cut(j, image, (mesh[j] + self.offsets_px[j]).tolist(), half, r)
+                continue
+            e = t[2] + s
+            xi, yi = int(round(pred[j, 0])), int(round(pred[j, 1]))
+            jobs.append((j, xi, yi, (xi - e, yi - e, xi + e + 1, yi + e + 1)))
+        if not jobs:
+            return mesh + self.offsets_px
+        # one grey conversion for all the windows that lie in the picture
+        inside = [jb for jb in jobs if _grey_box_ok(image, jb[3])]
+        grey = None
+        if inside:
+            bx0 = min(jb[3][0] for jb in inside)
+            by0 = min(jb[3][1] for jb in inside)
+            grey = _grey(image, bx0, by0, max(jb[3][2] for jb in inside), max(jb[3][3] for jb in inside))
+        for j, xi, yi, (x0, y0, x1, y1) in jobs:
+            pk = None
+            if grey is not None and _grey_box_ok(image, (x0, y0, x1, y1)):
+                tpl, sub, _, _ = self._templates[j]
+                win = grey[y0 - by0:y1 - by0, x0 - bx0:x1 - bx0]
+                pk = _peak(cv2.matchTemplate(win, tpl, cv2.TM_CCOEFF_NORMED))
+            if pk is None or not pk[2] >= MIN_SCORE:
+                self._misses[j] += 1
+                self.missed += 1
+                continue
+            tpl, sub, _, _ = self._templates[j]
+            fx, fy = xi - s + pk[0] + sub[0], yi - s + pk[1] + sub[1]
+            self.offsets_px[j] = (min(bound, max(-bound, fx - mesh[j, 0])), min(bound, max(-bound, fy - mesh[j, 1])))
+            self._misses[j] = 0
+            self.matched += 1
+        return mesh + self.offsets_px
+
+
+def _grey_box_ok(image: np.ndarray, box) -> bool:
+    h, w = image.shape[:2]
+    return box[0] >= 0 and box[1] >= 0 and box[2] <= w and box[3] <= h
+
+
+def translation_given_rotation(R: np.ndarray, model_mm: np.ndarray, points_px: np.ndarray,
+                               K: np.ndarray) -> np.ndarray | None:
+    """Translation ``t`` that best reprojects ``model_mm`` (k, 3) onto ``points_px`` (k, 2) given rotation R.
+
+    With R fixed, ``u = cx + f (X + tx) / (Z + tz)`` is linear in ``t`` once multiplied out:
+    ``f tx - (u - cx) tz = (u - cx) Z - f X`` (and the same in y), solved by least squares
+    (an algebraic, not geometric, error - the two differ by the point's depth, which varies by a few
+    per cent across the anchors).
+    """
+    X = np.asarray(model_mm, float) @ np.asarray(R, float).T
+    u = np.asarray(points_px, float)[:, 0] - K[0, 2]
+    v = np.asarray(points_px, float)[:, 1] - K[1, 2]
+    fx, fy, k = float(K[0, 0]), float(K[1, 1]), len(X)
+    A = np.zeros((2 * k, 3))
+    b = np.empty(2 * k)
+    A[:k, 0], A[:k, 2], b[:k] = fx, -u, u * X[:, 2] - fx * X[:, 0]
+    A[k:, 1], A[k:, 2], b[k:] = fy, -v, v * X[:, 2] - fy * X[:, 1]
+    if not (np.all(np.isfinite(A)) and np.all(np.isfinite(b))):
+        return None
+    t = np.linalg.lstsq(A, b, rcond=None)[0]
+    return t if np.isfinite(t).all() and t[2] > 0 else None

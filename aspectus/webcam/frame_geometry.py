@@ -1,0 +1,493 @@
+"""Per-frame geometry (head pose, iris refinement) beside the face mesh.
+
+For every frame the face mesh has landmarked, :class:`FrameGeometry` solves
+the head pose, refits its translation to skin points below the eyes followed
+on the picture (:mod:`aspectus.webcam.eye_anchors`) and refines both iris centres
+from the picture, giving one row of the per-frame record (layout:
+:data:`RECORD_COLUMNS`; the ``t_mm`` column holds the refitted translation). This work is
+Python and NumPy and holds the interpreter lock for about 2 ms a frame, as
+long as the face mesh's own Python share; run in a thread of the same
+process it keeps the mesh waiting for the lock. So for clips of more than a
+few seconds it runs in a separate process (:class:`GeometryProcess`) that
+receives only what it needs: the landmarks and a crop of the picture around
+both eyes and the skin below them (about 55 kB at 720p). Short clips, a bundled (frozen) application and
+processes that cannot start a child use a thread (:class:`GeometryThread`). Both give identical rows (a test compares them).
+"""
+from __future__ import annotations
+
+import os
+import pickle
+import queue
+import subprocess
+import sys
+import threading
+from pathlib import Path
+
+import numpy as np
+
+from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, MIN_ANCHOR_RADIUS_PX, EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
+                          translation_given_rotation)
+from aspectus.webcam.gaze import frame_measurements
+from aspectus.webcam.headpose import HeadPoseSolver
+from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
+from aspectus.webcam.limbus import ROI_RADII, limbus_centres_many
+
+#: columns of one row of the per-frame record (the width of each block in brackets)
+RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_mm", 3), ("iris_px", 4),
+                  ("iris_diam_px", 2), ("corners_px", 8), ("ear", 2), ("iris_mesh_px", 4))
+RECORD_WIDTH = sum(n for _, n in RECORD_COLUMNS)
+
+#: frames per message to the geometry process, and most frames per batch of limbus fits in either runner
+#: (measured here: fitting 16 frames' eyes together costs 0.4-0.9 ms a frame, one frame at a time 1.2-2.0 ms;
+#: the machine's speed drifts)
+_BATCH = 16
+#: clips shorter than this (frames) use the thread: starting a process costs about a second
+PROCESS_MIN_FRAMES = 450
+
+
+#: landmarks the eye crop is placed by: both iris centres, the horizontal ends of both iris outlines
+#: (the diameters as :func:`aspectus.webcam.gaze.frame_measurements` measures them), then the eye anchors
+_CROP_POINTS = np.array([RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE, RIGHT_IRIS_RING[0], RIGHT_IRIS_RING[2],
+                         LEFT_IRIS_RING[0], LEFT_IRIS_RING[2], *ANCHOR_POINTS])
+
+
+def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int]) -> tuple[int, int, int, int] | None:
+    """``(x0, y0, x1, y1)``: the part of the picture the iris refinement and the eye anchors read, or None.
+
+    The union of the limbus fit's two eye regions (:data:`aspectus.webcam.limbus.ROI_RADII`
+    iris radii around each mesh iris point) with a 2 px margin and of the
+    eye anchors' reach (:func:`aspectus.webcam.eye_anchors.anchor_reach_px` around
+    each anchor's mesh point), clipped to the picture.
+    """
+    w, h = size_px
+    # read straight from the landmarks (this runs on the face mesh's thread, which sets the pipeline's pace)
+    p = np.asarray(points_px)[_CROP_POINTS, :2]
+    c, ends = p[:2], p[2:6]
+    r = 0.5 * np.sqrt(np.square(ends[0::2] - ends[1::2]).sum(axis=1))  # half the iris diameters
+    if not (np.isfinite(c).all() and np.isfinite(r).all()):
+        return None
+    reach = (ROI_RADII * r + 2.0)[:, None]
+    lo, hi = (c - reach).min(axis=0), (c + reach).max(axis=0)
+    a = p[6:]
+    if np.isfinite(a).all():
+        a_reach = anchor_reach_px(anchor_radius_px(2.0 * r))
+        lo = np.minimum(lo, a.min(axis=0) - a_reach)
+        hi = np.maximum(hi, a.max(axis=0) + a_reach)
+    x0 = int(max(0, np.floor(lo[0])))
+    y0 = int(max(0, np.floor(lo[1])))
+    x1 = int(min(w, np.ceil(hi[0]) + 1))
+    y1 = int(min(h, np.ceil(hi[1]) + 1))
+    if x1 <= x0 or y1 <= y0:
+        return None
+    return x0, y0, x1, y1
+
+
+class FrameGeometry:
+    """Head pose and eye measurements of one frame, as one record row.
+
+    Parameters
+    ----------
+    fov_deg : float
+        Assumed horizontal field of view of the camera.
+    refine_iris : bool
+        Refine the iris centres by the limbus fit.
+    eye_anchors : bool
+        With the eye picture (``refine_iris``): refit the head translation,
+        with the PnP rotation held, to skin points below the eyes followed on
+        the picture (:mod:`aspectus.webcam.eye_anchors`; default True). False keeps
+        the PnP translation, which the face mesh's landmark errors under head
+        rotation move by about a millimetre at 5 deg.
+    """
+
+    def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True):
+        self.fov_deg = float(fov_deg)
+        self.refine_iris = bool(refine_iris)
+        self.eye_anchors = bool(eye_anchors)
+        self.solver: HeadPoseSolver | None = None
+        self.size: tuple[int, int] | None = None
+        self.size_changes = 0
+        self.anchors = EyeAnchorTracker()
+        self._anchors_model = self.anchors_model_mm()
+        self.anchored_frames = 0
+        self.unanchored_frames = 0
+        self._anchor_minus_pnp: np.ndarray | None = None
+
+    @staticmethod
+    def anchors_model_mm() -> np.ndarray:
+        from aspectus.webcam.headpose import face_model
+
+        return face_model().points_mm[list(ANCHOR_POINTS)].astype(np.float64)
+
+    def row(self, pts_s: float, size_px: tuple[int, int], points_px: np.ndarray | None, face_count: int,
+            eyes: np.ndarray | None = None, eyes_origin_px=(0, 0)) -> np.ndarray:
+        """One record row.
+
+        ``eyes`` is the picture (or the crop of it at ``eyes_origin_px`` that
+        :func:`eye_crop_box` gives) the iris refinement reads.
+        """
+        return self.rows([(pts_s, size_px, points_px, face_count, eyes, eyes_origin_px)])[0]
+
+    def rows(self, items) -> np.ndarray:
+        """The rows of consecutive frames, ``items`` as :func:`frame_item` gives them; (len(items), width).
+
+        The same rows as :meth:`row` frame by frame; the limbus fits of all
+        the frames' eyes run together (:func:`aspectus.webcam.limbus.limbus_centres_many`),
+        which costs a fraction of fitting them one frame at a time. (Head
+        pose and eye anchors follow the frames in order, as they must.)
+        """
+        out = np.full((len(items), RECORD_WIDTH), np.nan)
+        fits = []  # (row index, (limbus arguments, crop origin))
+        for k, item in enumerate(items):
+            out[k], job = self._row_before_iris(*item)
+            if job is not None:
+                fits.append((k, job))
+        if fits:
+            for (k, (_, off)), (iris, _) in zip(fits, limbus_centres_many([job[0] for _, job in fits])):
+                out[k, 15:19] = (iris + off).ravel()
+        return out
+
+    def _row_before_iris(self, pts_s, size_px, points_px, face_count, eyes=None, eyes_origin_px=(0, 0)):
+        """One frame's row with the mesh's iris centres, and the limbus fit still to run for it (or None)."""
+        w, h = size_px
+        if self.size != (w, h):
+            if self.size is not None:
+                self.size_changes += 1
+            self.size = (w, h)
+            self.solver = HeadPoseSolver(w, h, fov_deg=self.fov_deg)
+            self.anchors.reset()
+            self._anchor_minus_pnp = None
+        row = np.full(RECORD_WIDTH, np.nan)
+        row[0] = pts_s
+        row[1] = 0.0
+        row[2] = face_count  # faces in view, the followed one or not
+        # The anchors are kept through frames without a face or a pose: starting again from the mesh's
+        # points would drop the skin-minus-mesh offsets followed so far and move the head translation -
+        # and the gaze, by 1-2 deg - for the rest of the clip. Only a new picture size starts them afresh.
+        if points_px is None:
+            return row, None
+        pose = self.solver.solve(points_px)
+        if pose is None:
+            return row, None
+        R, t = pose
+        m = frame_measurements(points_px)
+        iris = m["iris_px"]
+        job = None
+        if self.refine_iris and eyes is not None:
+            off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
+            local = points_px - off
+            job = ((eyes, local, iris - off[:2], m["iris_diam_px"]), off[:2])
+        if self.eye_anchors:
+            t = self._anchored_translation(R, t, m, eyes, points_px, eyes_origin_px)
+        row[1] = 1.0
+        row[3:12] = R.ravel()
+        row[12:15] = t
+        row[15:19] = iris.ravel()
+        row[19:21] = m["iris_diam_px"]
+        row[21:29] = m["corners_px"].ravel()
+        row[29:31] = m["ear"]
+        row[31:35] = m["iris_px"].ravel()
+        return row, job
+
+    def _anchored_translation(self, R, t_pnp, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
+        """The head translation refitted to the eye anchors, the rotation held.
+
+        Where the refit cannot run (no eye picture, an iris too small to
+        measure, a refit that fails), the PnP translation plus the last
+        anchored frame's difference from PnP: the two differ by a slowly
+        changing offset (about 1 mm sideways and 30 mm in depth on the demo
+        clip), which a switch to plain PnP would turn into a jump of the gaze.
+        """
+        r_px = anchor_radius_px(m["iris_diam_px"])
+        if eyes is not None and np.isfinite(r_px) and r_px >= MIN_ANCHOR_RADIUS_PX:
+            off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
+            a = self.anchors.update(eyes, points_px - off, r_px) + off[:2]
+            t_a = translation_given_rotation(R, self._anchors_model, a, self.solver.K)
+            if t_a is not None:
+                self.anchored_frames += 1
+                self._anchor_minus_pnp = t_a - t_pnp
+                return t_a
+        self.unanchored_frames += 1
+        return t_pnp if self._anchor_minus_pnp is None else t_pnp + self._anchor_minus_pnp
+
+    def state(self) -> dict:
+        return {"K": None if self.solver is None else self.solver.K, "size": self.size,
+                "size_changes": self.size_changes, "anchored_frames": self.anchored_frames,
+                "unanchored_frames": self.unanchored_frames, "anchor_matches": self.anchors.matched,
+                "anchor_misses": self.anchors.missed}
+
+
+def peak_rss_mb() -> float | None:
+    """This process's peak resident set size in MB (None where the platform does not say).
+
+    On Linux from ``VmHWM`` in /proc/self/status: ``ru_maxrss`` would also
+    count the moment between fork and exec when the child was still a copy
+    of its (much larger) parent.
+    """
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return round(int(line.split()[1]) / 1024.0, 1)  # kB
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        import resource
+    except ImportError:  # Windows
+        return None
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    return round(peak / (2**20 if sys.platform == "darwin" else 2**10), 1)  # bytes on macOS, KiB elsewhere
+
+
+def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool, faces_in_view: int = 0) -> tuple:
+    """What the geometry of one frame needs, with the picture cut down to the eyes.
+
+    ``faces_in_view`` is the face count recorded when the followed face was not found (``obs`` None):
+    other faces may be in view.
+    """
+    h, w = image.shape[:2]
+    if obs is None:
+        return pts_s, (w, h), None, int(faces_in_view), None, (0, 0)
+    eyes, origin = None, (0, 0)
+    if refine_iris:
+        box = eye_crop_box(obs.points_px, (w, h))
+        if box is not None:
+            x0, y0, x1, y1 = box
+            eyes, origin = np.ascontiguousarray(image[y0:y1, x0:x1]), (x0, y0)
+    return pts_s, (w, h), obs.points_px, obs.face_count, eyes, origin
+
+
+class GeometryThread:
+    """Runs :class:`FrameGeometry` on a worker thread of this process."""
+
+    kind = "thread"
+
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True):
+        self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors)
+        self._sink = sink
+        self._q: queue.Queue = queue.Queue(maxsize=2 * _BATCH)  # room for a whole batch of limbus fits
+        self._failure: list[BaseException] = []
+        self._thread = threading.Thread(target=self._run, name="aspectus-geometry", daemon=True)
+        self._thread.start()
+
+    def _run(self):
+        done = False
+        try:
+            while not done:
+                batch = [self._q.get()]  # waits for one frame, then takes what else is queued
+                while len(batch) < _BATCH:
+                    try:
+                        batch.append(self._q.get_nowait())
+                    except queue.Empty:
+                        break
+                if any(item is None for item in batch):
+                    done = True
+                    batch = batch[: next(k for k, item in enumerate(batch) if item is None)]
+                if batch:
+                    for r in self._geo.rows(batch):
+                        self._sink(r)
+        except BaseException as exc:  # noqa: BLE001 - handed to the submitting thread
+            self._failure.append(exc)
+            while not done and self._q.get() is not None:  # drain so the producer never blocks
+                pass
+
+    def check(self) -> None:
+        if self._failure:
+            raise self._failure[0]
+
+    def submit(self, item: tuple) -> None:
+        self._q.put(item)
+
+    def finish(self) -> dict:
+        self._q.put(None)
+        self._thread.join()
+        self.check()
+        return self._geo.state()
+
+    def abort(self) -> None:
+        self._q.put(None)
+        self._thread.join(timeout=10)
+
+
+def child_main(argv=None) -> int:
+    """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
+
+    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE [ANCHORS]``. Anything else
+    that would print to stdout goes to stderr, so it cannot corrupt the replies.
+    """
+    args = list(sys.argv[1:] if argv is None else argv)
+    fov_deg, refine_iris = float(args[0]), args[1] == "1"
+    eye_anchors = len(args) < 3 or args[2] == "1"
+    out = os.fdopen(os.dup(1), "wb")
+    os.dup2(2, 1)  # stray prints from libraries go to stderr
+    inp = sys.stdin.buffer
+    geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors)
+
+    def reply(obj) -> bool:
+        try:
+            pickle.dump(obj, out, protocol=pickle.HIGHEST_PROTOCOL)
+            out.flush()
+            return True
+        except (OSError, ValueError):  # the parent is gone
+            return False
+
+    while True:
+        try:
+            batch = pickle.load(inp)
+        except (EOFError, OSError, pickle.UnpicklingError):  # the parent is gone
+            return 0
+        if batch is None:
+            reply(("state", geo.state() | {"peak_rss_mb": peak_rss_mb()}))
+            return 0
+        try:
+            rows = geo.rows(batch)
+        except Exception as exc:  # noqa: BLE001 - reported to the parent
+            try:
+                pickle.dumps(exc)
+            except Exception:  # noqa: BLE001 - an exception that does not pickle
+                exc = RuntimeError(f"{type(exc).__name__}: {exc}")
+            reply(("error", exc))
+            return 1
+        if not reply(("rows", rows)):
+            return 0
+
+
+#: the child's start: load this very copy of the aspectus package (by path, so neither another installed
+#: copy nor the caller's working folder is picked up, and no other import is shadowed), then serve
+_CHILD_BOOT = (
+    "import importlib.util, os, sys\n"
+    "pkg = sys.argv[1]\n"
+    "spec = importlib.util.spec_from_file_location('aspectus', os.path.join(pkg, '__init__.py'),"
+    " submodule_search_locations=[pkg])\n"
+    "mod = importlib.util.module_from_spec(spec)\n"
+    "sys.modules['aspectus'] = mod\n"
+    "spec.loader.exec_module(mod)\n"
+    "from aspectus.webcam.frame_geometry import child_main\n"
+    "sys.exit(child_main(sys.argv[2:]))\n"
+)
+
+
+class GeometryProcess:
+    """Runs :class:`FrameGeometry` in a child Python process.
+
+    The child is a plain ``python -c`` interpreter that loads this copy of
+    aspectus (not :mod:`multiprocessing`), so it never re-imports the caller's own script:
+    a user's script calling :func:`aspectus.webcam.pipeline.process_clip` needs no
+    ``if __name__ == "__main__"`` guard. Frames go over its stdin in batches of
+    a few, from a sender thread so the caller never waits for the child; a
+    receiver thread hands the rows to ``sink`` in frame order. Raises
+    :class:`OSError` from the constructor when no child can be started.
+    """
+
+    kind = "process"
+
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True):
+        self._sink = sink
+        self._proc = subprocess.Popen(
+            [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parents[1]), repr(float(fov_deg)),
+             "1" if refine_iris else "0", "1" if eye_anchors else "0"],
+            stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+        self._out: queue.Queue = queue.Queue(maxsize=32)  # batches in flight: some 30 MB of eye crops at most
+        self._pending: list = []
+        self._failure: list[BaseException] = []
+        self._state: dict | None = None
+        self._sender = threading.Thread(target=self._send, name="aspectus-geometry-send", daemon=True)
+        self._receiver = threading.Thread(target=self._receive, name="aspectus-geometry-receive", daemon=True)
+        self._sender.start()
+        self._receiver.start()
+
+    @property
+    def pid(self) -> int:
+        return self._proc.pid
+
+    def _send(self):
+        stream = self._proc.stdin
+        try:
+            while True:
+                batch = self._out.get()
+                pickle.dump(batch, stream, protocol=pickle.HIGHEST_PROTOCOL)
+                stream.flush()
+                if batch is None:
+                    return
+        except (OSError, ValueError) as exc:
+            self._failure.append(RuntimeError(f"the geometry process stopped unexpectedly ({exc})"))
+            while self._out.get() is not None:
+                pass
+
+    def _receive(self):
+        stream = self._proc.stdout
+        try:
+            while True:
+                kind, payload = pickle.load(stream)
+                if kind == "rows":
+                    for r in payload:
+                        self._sink(r)
+                elif kind == "state":
+                    self._state = payload
+                    return
+                else:
+                    self._failure.append(payload)
+                    return
+        except (OSError, EOFError, ValueError, pickle.UnpicklingError) as exc:
+            self._proc.poll()
+            self._failure.append(RuntimeError(
+                f"the geometry process stopped unexpectedly (exit code {self._proc.returncode}; {exc!r})"))
+
+    def check(self) -> None:
+        if self._failure:
+            raise self._failure[0]
+
+    def submit(self, item: tuple) -> None:
+        self._pending.append(item)
+        if len(self._pending) >= _BATCH:
+            self._out.put(self._pending)
+            self._pending = []
+
+    def finish(self) -> dict:
+        if self._pending:
+            self._out.put(self._pending)
+            self._pending = []
+        self._out.put(None)
+        self._sender.join()
+        self._receiver.join()
+        try:
+            self._proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            self._proc.kill()
+        self._close_pipes()
+        self.check()
+        if self._state is None:
+            raise RuntimeError("the geometry process ended without its final report")
+        return self._state
+
+    def _close_pipes(self) -> None:
+        for stream in (self._proc.stdin, self._proc.stdout):
+            try:
+                stream.close()
+            except (OSError, ValueError):
+                pass
+
+    def abort(self) -> None:
+        self._pending = []
+        if self._proc.poll() is None:
+            self._proc.kill()
+        self._proc.wait(timeout=10)
+        self._out.put(None)
+        self._sender.join(timeout=5)
+        self._receiver.join(timeout=5)
+        self._close_pipes()
+
+
+def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
+                   eye_anchors: bool = True):
+    """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
+    application, or when no child can be started); ``mode`` forces ``"thread"`` or ``"process"``."""
+    if mode not in ("auto", "thread", "process"):
+        raise ValueError(f"geometry mode must be auto, thread or process, got {mode!r}")
+    frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
+    if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
+        try:
+            return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors)
+        except OSError:
+            if mode == "process":
+                raise
+    return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors)

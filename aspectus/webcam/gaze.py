@@ -1,0 +1,522 @@
+"""Head-compensated gaze direction from an eyeball model, and blinks.
+
+Method (per clip, vectorised over frames once landmarking is done)
+------------------------------------------------------------------
+1. **Metric scale.** The face mesh's iris outline gives the iris diameter in
+   pixels; with the horizontal visible iris diameter of 11.7 mm (Ruefer,
+   Schroeder & Erb 2005 - from memory) the eye's distance from the camera is
+   ``f * 11.7 / iris_px``. Dividing by the PnP distance of the (average-size)
+   face model gives the person's scale; its median over the clip scales the
+   head model, so translation and distance come out in millimetres.
+2. **Eyeball centre.** Each eyeball is a sphere of radius 12 mm (Bekerman,
+   Gottlieb & Vaiman 2014 - from memory). Its centre is fixed in the head
+   frame: the model's centre, moved sideways and vertically by how far this
+   person's eye-corner midpoint (median over the clip, so the corners'
+   coupling to iris motion averages out) lies from the model's. It moves
+   rigidly with the head pose: the rotation from PnP, the translation
+   refitted per frame to skin points below the eyes that are followed on the
+   picture (:mod:`aspectus.webcam.eye_anchors`; the face mesh's own landmarks move
+   with head rotation and with the eyes). Whatever part of the centres'
+   vertical motion still follows the iris is measured per clip and removed
+   (:func:`decouple_reference`).
+3. **Iris centre in 3-D.** The camera ray through the iris centre (the
+   face mesh's iris point, refined on the image by a circle fitted
+   to the limbus - :func:`aspectus.webcam.limbus.limbus_centres`) meets the sphere of
+   radius ``sqrt(12^2 - 5.85^2) = 10.5 mm`` around the eyeball centre, on
+   which the iris plane's centre lies. Gaze is the unit vector from eyeball
+   centre to that point, in the camera frame: head-compensated by
+   construction. Eye-in-head angles are the same vector in the head frame.
+4. **Binocular direction**: mean of both eyes' unit vectors, angles per
+   :mod:`aspectus.schema`.
+5. **Blinks**: the eye aspect ratio (Soukupova & Cech 2016) of both eyes,
+   divided by this person's open-eye level (median over the clip's face
+   frames); a frame is a blink when it falls below ``blink_rel_threshold``
+   (default 0.6), widened by one frame on each side because half-closed lids
+   hide the iris. Blink and no-face samples stay in the table, marked
+   invalid.
+"""
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import warnings
+
+import numpy as np
+
+from aspectus.geometry import gaze_vector_to_angles, ray_sphere_near
+from aspectus.webcam.headpose import face_model, pose_angles
+from aspectus.webcam.landmarks import (LEFT_EAR_POINTS, LEFT_EYE_CORNERS, LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_EAR_POINTS,
+                        RIGHT_EYE_CORNERS, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING)
+
+IRIS_DIAMETER_MM = 11.7
+EYEBALL_RADIUS_MM = 12.0
+IRIS_PLANE_RADIUS_MM = float(np.sqrt(EYEBALL_RADIUS_MM ** 2 - (IRIS_DIAMETER_MM / 2) ** 2))
+
+
+@dataclass
+class GazeParams:
+    """Parameters of the gaze and blink estimate.
+
+    Attributes
+    ----------
+    blink_rel_threshold : float
+        Eyelid aperture relative to the open-eye level below which a frame is
+        a blink (0.3-0.9; default 0.6).
+    blink_pad_frames : int
+        Frames marked invalid on each side of a blink (0-3; default 1).
+    refine_iris : bool
+        Refine the face mesh's iris centre by fitting the iris disc on the
+        image by a circle fit to the limbus (aspectus.webcam.limbus; default True).
+    max_head_yaw_deg : float
+        Frames with the head turned further than this are invalid (default 45).
+    head_smooth_ms : float
+        Width of the centred moving average applied to the head pose before
+        it places the eyeball centres (0 = off; default 300 ms). The head
+        moves slowly next to the eyes, while the pose from one frame's
+        landmarks jitters by about half a degree - which would move the
+        eyeball centre by a third of a millimetre and the gaze by 1-2 deg.
+        A centred average has no lag.
+    iris_combine : {"limbus", "rescale", "fuse"}
+        With ``refine_iris``: use the limbus fit alone, the mesh point only
+        where the fit fails (default); ``"rescale"``: horizontally the limbus
+        fit, vertically the face mesh's steady point rescaled to the limbus
+        fit's gain; ``"fuse"``: both averaged (:func:`fuse_iris_centres`).
+        Evidence on rendered clips (DEVELOPERS.md): "rescale" agrees far
+        better with a reference recording under the default I-DT detector
+        (per-window fixation counts r 0.91 against 0.22) but shortens the
+        demo clip p01's median fixation to 133 ms (limbus: 167 ms, truth
+        211 ms). Fusing halves the white part of the
+        noise and raises the pitch correlation on most rendered clips, but
+        what is left is slow, correlated noise that splits fixations under
+        the RMS-S2S-adaptive I-DT threshold (demo clip p01: median fixation
+        133 ms against a true 211 ms, 167 ms with the limbus fit alone), so it
+        is not the default.
+    decouple_reference : bool
+        Remove the part of the eyeball centres' vertical motion that follows
+        the eyes (:func:`decouple_reference`; default True). The face mesh
+        shifts its rigid points up when the eyes look up, and the eyeball
+        centres placed by the head pose follow, cancelling a third to a half
+        of the vertical gaze signal on rendered clips.
+    decouple_highpass_s : float
+        Width of the moving average subtracted before the coupling is
+        measured, s (default 2): slower changes - most head movements - do
+        not enter the estimate.
+    eye_anchors : bool
+        With ``refine_iris``: place the head (and so the eyeball centres)
+        by skin points below the eyes followed on the picture, the rotation
+        from PnP held (:mod:`aspectus.webcam.eye_anchors`; default True). False
+        keeps the PnP translation from the face mesh's landmarks, which
+        moves the eyeball centres by about a millimetre at 5 deg of head
+        rotation (median gaze error 3-7 deg with the head turning +-15 deg
+        on rendered clips, against 1.5-1.7 deg with the anchors). Needs the
+        eye picture, i.e. ``refine_iris``; without it the PnP translation
+        is used (run.json counts the frames: ``eye_anchor_frames``,
+        ``eye_anchor_fallback_frames``).
+    """
+
+    blink_rel_threshold: float = 0.6
+    blink_pad_frames: int = 1
+    refine_iris: bool = True
+    max_head_yaw_deg: float = 45.0
+    head_smooth_ms: float = 300.0
+    iris_combine: str = "limbus"
+    decouple_reference: bool = True
+    decouple_highpass_s: float = 2.0
+    eye_anchors: bool = True
+
+    def __post_init__(self):
+        from aspectus.errors import ParameterError
+
+        checks = (("blink_rel_threshold", 0.3, 0.9), ("blink_pad_frames", 0, 3), ("max_head_yaw_deg", 0.0, 90.0),
+                  ("head_smooth_ms", 0.0, 2000.0), ("decouple_highpass_s", 0.2, 30.0))
+        for name, lo, hi in checks:
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not (lo <= v <= hi):
+                raise ParameterError(f"gaze parameter {name} = {v!r} is outside {lo}-{hi}")
+        if self.iris_combine not in ("limbus", "rescale", "fuse"):
+            raise ParameterError(f"gaze parameter iris_combine = {self.iris_combine!r} is not one of "
+                                 "limbus, rescale, fuse")
+        if not isinstance(self.blink_pad_frames, int) or isinstance(self.blink_pad_frames, bool):
+            raise ParameterError(f"gaze parameter blink_pad_frames = {self.blink_pad_frames!r} must be a whole number")
+        for name in ("refine_iris", "decouple_reference", "eye_anchors"):
+            if not isinstance(getattr(self, name), bool):
+                raise ParameterError(f"gaze parameter {name} must be true or false, got {getattr(self, name)!r}")
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def eye_aspect_ratio(points_px: np.ndarray, idx) -> float:
+    """EAR = (|p2-p6| + |p3-p5|) / (2 |p1-p4|) (Soukupova & Cech 2016)."""
+    p = points_px[list(idx), :2]
+    num = np.linalg.norm(p[1] - p[5]) + np.linalg.norm(p[2] - p[4])
+    den = 2.0 * np.linalg.norm(p[0] - p[3])
+    return float(num / den) if den > 0 else float("nan")
+
+
+def frame_measurements(points_px: np.ndarray) -> dict:
+    """Per-frame quantities the post-pass needs, from one face's landmarks."""
+    iris_r = points_px[RIGHT_IRIS_CENTRE, :2]
+    iris_l = points_px[LEFT_IRIS_CENTRE, :2]
+    d_r = np.linalg.norm(points_px[RIGHT_IRIS_RING[0], :2] - points_px[RIGHT_IRIS_RING[2], :2])
+    d_l = np.linalg.norm(points_px[LEFT_IRIS_RING[0], :2] - points_px[LEFT_IRIS_RING[2], :2])
+    corners = np.stack([points_px[list(RIGHT_EYE_CORNERS), :2], points_px[list(LEFT_EYE_CORNERS), :2]])
+    return {
+        "iris_px": np.stack([iris_r, iris_l]),
+        "iris_diam_px": np.array([d_r, d_l]),
+        "corners_px": corners,
+        "ear": np.array([eye_aspect_ratio(points_px, RIGHT_EAR_POINTS), eye_aspect_ratio(points_px, LEFT_EAR_POINTS)]),
+    }
+
+
+def _dilate(mask: np.ndarray, n: int) -> np.ndarray:
+    if n <= 0 or not mask.any():
+        return mask.copy()
+    out = mask.copy()
+    for k in range(1, n + 1):
+        out[k:] |= mask[:-k]
+        out[:-k] |= mask[k:]
+    return out
+
+
+def smooth_pose(R: np.ndarray, t: np.ndarray, found: np.ndarray, t_s: np.ndarray, width_ms: float):
+    """Centred moving average of head rotations (as rotation vectors) and translations.
+
+    Runs of consecutive frames with a face are smoothed separately; the
+    window is ``width_ms`` converted to frames with the run's median frame
+    interval. Returns smoothed copies (R, t).
+    """
+    from scipy.ndimage import uniform_filter1d
+    from scipy.spatial.transform import Rotation
+
+    R = R.copy()
+    t = t.copy()
+    if width_ms <= 0 or not found.any():
+        return R, t
+    edges = np.flatnonzero(np.diff(np.r_[0, found.astype(np.int8), 0]))
+    for a, b in zip(edges[::2], edges[1::2]):
+        if b - a < 3:
+            continue
+        dt = np.median(np.diff(t_s[a:b])) if b - a > 1 else 1 / 30
+        k = int(round(width_ms / 1e3 / max(dt, 1e-3)))
+        if k < 2:
+            continue
+        k = min(k | 1, (b - a) | 1)
+        rv = Rotation.from_matrix(R[a:b]).as_rotvec()
+        rv = uniform_filter1d(rv, k, axis=0, mode="nearest")
+        R[a:b] = Rotation.from_rotvec(rv).as_matrix()
+        t[a:b] = uniform_filter1d(t[a:b], k, axis=0, mode="nearest")
+    return R, t
+
+
+def _nanmean_quiet(a, *, axis):
+    """``np.nanmean`` without the all-NaN RuntimeWarning (frames without a face are all-NaN rows)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.nanmean(a, axis=axis)
+
+
+def _step_noise(x: np.ndarray) -> float:
+    """Robust noise SD of a trace from its sample-to-sample steps (median |step| x 1.4826 / sqrt 2)."""
+    d = np.diff(x[np.isfinite(x)])
+    return float(1.4826 * np.median(np.abs(d)) / np.sqrt(2)) if len(d) >= 10 else float("nan")
+
+
+def _deming_slope(x: np.ndarray, y: np.ndarray, sx: float, sy: float) -> float:
+    """Slope of y on x when both carry noise of SD sx and sy (Deming regression)."""
+    if not (np.isfinite(sx) and np.isfinite(sy)) or sx <= 0:
+        return float("nan")
+    lam = (sy / sx) ** 2
+    xm, ym = x - x.mean(), y - y.mean()
+    sxx, syy, sxy = np.mean(xm * xm), np.mean(ym * ym), np.mean(xm * ym)
+    if sxy == 0:
+        return float("nan")
+    d = syy - lam * sxx
+    return float((d + np.sqrt(d * d + 4 * lam * sxy * sxy)) / (2 * sxy))
+
+
+def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray, *,
+                      average: bool = True) -> tuple[np.ndarray, dict]:
+    """Combine the limbus fit and the face mesh's iris point, per eye and picture axis.
+
+    The limbus fit is unbiased but noisy; the mesh's point is steady but
+    follows the eye with too small a gain, vertically in particular (0.2-0.6
+    on rendered clips). So, over the clip's open-eye frames, the mesh point is
+    first mapped onto the limbus scale, ``limbus ~ a + b * mesh``, by Deming
+    regression (Deming 1943) with the two noise variances estimated from
+    their sample-to-sample steps - ordinary least squares would shrink the
+    slope by the mesh's own noise - then the two are averaged with
+    inverse-variance weights. Frames without a
+    limbus fit (NaN) use the rescaled mesh point alone.
+
+    Returns the fused (N, 2, 2) centres and a record (slopes, noise, weights).
+    """
+    out = np.array(mesh_px, float).copy()
+    rec: dict = {}
+    for e, eye in enumerate(("right", "left")):
+        for axis, name in ((0, "x"), (1, "y")):
+            L = limbus_px[:, e, axis]
+            M = mesh_px[:, e, axis]
+            if not average and axis == 0:
+                # horizontally the limbus fit is both unbiased and the steadier (0.2 px against the
+                # mesh's 0.35 px on rendered clips): nothing to gain from the mesh
+                out[:, e, axis] = np.where(np.isfinite(L), L, M)
+                rec[f"{eye}_{name}"] = {"fused": False, "source": "limbus"}
+                continue
+            both = ok & np.isfinite(L) & np.isfinite(M)
+            key = f"{eye}_{name}"
+            if both.sum() < 30 or np.std(M[both]) <= 0:
+                out[:, e, axis] = np.where(np.isfinite(L), L, M)
+                rec[key] = {"fused": False}
+                continue
+            b = _deming_slope(M[both], L[both], _step_noise(np.where(both, M, np.nan)),
+                              _step_noise(np.where(both, L, np.nan)))
+            b = float(np.clip(b, 0.5, 5.0)) if np.isfinite(b) else 1.0  # a mesh that does not move cannot be rescaled
+            a = float(np.median(L[both] - b * M[both]))
+            Mc = a + b * M
+            sl, sm = _step_noise(np.where(both, L, np.nan)), _step_noise(np.where(both, Mc, np.nan))
+            wl = 1.0 / sl ** 2 if np.isfinite(sl) and sl > 0 and average else 0.0
+            wm = 1.0 / sm ** 2 if np.isfinite(sm) and sm > 0 else 0.0
+            if wl + wm == 0:
+                wl, wm = (1.0, 1.0) if average else (0.0, 1.0)
+            fused = np.where(np.isfinite(L), (wl * L + wm * Mc) / (wl + wm), Mc)
+            out[:, e, axis] = fused
+            rec[key] = {"fused": True, "mesh_gain": round(b, 3), "limbus_noise_px": round(sl, 3),
+                        "mesh_noise_px": round(sm, 3), "limbus_weight": round(wl / (wl + wm), 3)}
+    return out, rec
+
+
+def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarray, ok: np.ndarray,
+                       t_s: np.ndarray, *, smooth_ms: float, highpass_s: float = 2.0,
+                       max_coupling: float = 1.5) -> tuple[np.ndarray, dict]:
+    """Remove the vertical motion of the eyeball centres that follows the eyes, per eye and clip.
+
+    The face mesh moves its "rigid" points with the eyes: when the eyes look
+    up, the fitted head - and with it the eyeball centre - moves up too (on
+    rendered clips by 0.3-0.5 of the iris's own image motion), so the iris's
+    offset from the eyeball centre, the gaze signal, shrinks. A real head
+    does not move with every eye movement, so the coupling shows as a
+    regression of the eyeball centre's picture height on the iris's height
+    relative to it: ``C_y = C_true + m * d_y`` with ``d_y = iris_y - C_y``.
+    ``m`` is the least-squares slope over the open-eye frames after both
+    series have been high-passed (a centred moving average of
+    ``highpass_s`` subtracted), so slow changes - most head movements - do
+    not enter it; ``d_y`` is smoothed first by the same moving average as
+    the head pose (``smooth_ms``), as the eyeball centre is. The centre's
+    height is then corrected by ``m * (d_y - median d_y)`` (no change at
+    the clip's median gaze). ``m`` is kept within ``[0, max_coupling]``.
+
+    Known limit: head movements that go with the eyes on the time scale of
+    ``highpass_s`` (looking down at a page and nodding) look like coupling
+    and are partly removed.
+
+    Parameters
+    ----------
+    centres_mm : (N, 2, 3) eyeball centres (right, left) in the camera frame, mm.
+    iris_px : (N, 2, 2) iris centres in px. K : (3, 3) camera matrix.
+    ok : (N,) bool frames to measure on (face found, eyes open).
+    t_s : (N,) frame times, s.
+
+    Returns
+    -------
+    corrected (N, 2, 3) centres and a record {eye: coupling m or None}.
+    """
+    from scipy.ndimage import uniform_filter1d
+
+    out = np.array(centres_mm, float).copy()
+    rec: dict = {}
+    n = len(out)
+    f, cy = float(K[0, 0]), float(K[1, 2])
+    for e, eye in enumerate(("right", "left")):
+        z = out[:, e, 2]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            c_px = cy + f * out[:, e, 1] / z
+        d = iris_px[:, e, 1] - c_px
+        use = np.asarray(ok, bool) & np.isfinite(d) & np.isfinite(c_px) & (z > 0)
+        idx = np.flatnonzero(use)
+        if len(idx) < 30:
+            rec[eye] = None
+            continue
+        dt = float(np.median(np.diff(np.asarray(t_s, float)[idx]))) if len(idx) > 1 else 1 / 30
+        dt = max(dt, 1e-3)
+        k_s = int(round(smooth_ms / 1e3 / dt)) | 1
+        k_h = int(round(highpass_s / dt)) | 1
+        if k_h < 5 or len(idx) < 2 * k_h:
+            rec[eye] = None
+            continue
+        frames = np.arange(n)
+        d_f = np.interp(frames, idx, d[idx])
+        c_f = np.interp(frames, idx, c_px[idx])
+        d_s = uniform_filter1d(d_f, k_s, mode="nearest") if k_s >= 3 else d_f
+        X = (d_s - uniform_filter1d(d_s, k_h, mode="nearest"))[use]
+        Y = (c_f - uniform_filter1d(c_f, k_h, mode="nearest"))[use]
+        sxx = float(X @ X)
+        if not sxx > 0:
+            rec[eye] = None
+            continue
+        m = float(np.clip((X @ Y) / sxx, 0.0, max_coupling))
+        shift_px = m * (d_s - np.median(d_s[use]))
+        found = np.isfinite(z) & (z > 0)
+        out[found, e, 1] -= shift_px[found] * z[found] / f
+        rec[eye] = round(m, 3)
+    return out, rec
+
+
+def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndarray, iris_px: np.ndarray,
+                  iris_diam_px: np.ndarray, corners_px: np.ndarray, ear: np.ndarray, t_s: np.ndarray | None = None,
+                  iris_mesh_px: np.ndarray | None = None, params: GazeParams = GazeParams()) -> tuple[dict, dict]:
+    """Gaze, head pose, distance and blinks for a whole clip.
+
+    Parameters
+    ----------
+    K : (3, 3) camera matrix. found : (N,) bool face tracked.
+    R : (N, 3, 3) head->camera rotations; t : (N, 3) translations in model mm.
+    iris_px : (N, 2, 2) iris centres (right, left) in px; iris_diam_px : (N, 2).
+    corners_px : (N, 2, 2, 2) eye corners [eye][outer, inner][x, y].
+    ear : (N, 2) eye aspect ratios.
+    t_s : (N,) frame times (for the head-pose smoothing window); default 30 fps.
+    iris_mesh_px : (N, 2, 2), optional
+        The face mesh's own iris centres when ``iris_px`` holds the limbus
+        fit (NaN where the fit failed); the two are combined by
+        :func:`fuse_iris_centres`.
+
+    Returns
+    -------
+    columns : dict of (N,) arrays named as in :data:`aspectus.schema.SAMPLE_COLUMNS`.
+    info : dict with the clip-level figures (scale, open-eye level, eyeball offsets).
+    """
+    n = len(found)
+    found = np.asarray(found, bool)
+    nanv = np.full(n, np.nan)
+    cols: dict[str, np.ndarray] = {}
+    info: dict = {"frames_with_face": int(found.sum())}
+    model = face_model()
+    if t_s is None:
+        t_s = np.arange(n) / 30.0
+    R_raw = R
+    R, t = smooth_pose(R, t, found, np.asarray(t_s, float), float(params.head_smooth_ms))
+    f = K[0, 0]
+    Kinv = np.linalg.inv(K)
+
+    # --- metric scale from the iris --------------------------------------
+    diam = _nanmean_quiet(np.where(iris_diam_px > 0, iris_diam_px, np.nan), axis=1) if n else nanv
+    z_iris = f * IRIS_DIAMETER_MM / diam
+    ear_mean = _nanmean_quiet(ear, axis=1) if n else nanv
+    open_level = float(np.nanmedian(ear_mean[found])) if found.any() else float("nan")
+    aperture_rel = ear_mean / open_level if np.isfinite(open_level) and open_level > 0 else nanv
+    eyes_open = found & (aperture_rel >= 0.8)
+    # the iris diameter gives the distance of the irises, so it is compared with the depth of the model's iris
+    # points (the head origin lies 12 mm further back, between the eyeball centres)
+    iris_model = model.points_mm[[RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE]].mean(axis=0)
+    z_model_iris = np.einsum("nj,j->n", R[:, 2, :], iris_model) + t[:, 2]
+    ok_scale = eyes_open & np.isfinite(z_iris) & (z_model_iris > 0)
+    s = float(np.nanmedian(z_iris[ok_scale] / z_model_iris[ok_scale])) if ok_scale.sum() >= 3 else 1.0
+    info["model_scale"] = s
+    info["open_eye_ear"] = open_level
+
+    # --- eyeball centres personalised by the eye corners -----------------
+    eyes_model = np.stack([model.eye_right_mm, model.eye_left_mm])  # (2, 3)
+    corner_model = np.stack([model.points_mm[list(RIGHT_EYE_CORNERS)].mean(0),
+                             model.points_mm[list(LEFT_EYE_CORNERS)].mean(0)])  # (2, 3)
+    offsets = np.zeros((2, 3))
+    if eyes_open.sum() >= 3:
+        idx = np.flatnonzero(eyes_open)
+        Rv, tv = R[idx], t[idx]
+        for e in range(2):
+            mid_px = corners_px[idx, e].mean(axis=1)  # (M, 2)
+            ray = np.c_[mid_px, np.ones(len(idx))] @ Kinv.T  # z = 1
+            zc = np.einsum("mij,j->mi", Rv, corner_model[e])[:, 2] + tv[:, 2]
+            Xc = ray * zc[:, None]
+            Xh = np.einsum("mji,mj->mi", Rv, Xc - tv)
+            off = np.median(Xh, axis=0) - corner_model[e]
+            offsets[e, :2] = off[:2]
+        del idx, Rv, tv, mid_px, ray, zc, Xc, Xh
+    info["eyeball_offset_mm"] = (offsets * s).round(3).tolist()
+    centres_h = eyes_model + offsets  # model mm, head frame
+
+    # --- iris source per axis ---------------------------------------------
+    if iris_mesh_px is not None:
+        if params.iris_combine in ("fuse", "rescale"):
+            iris_px, info["iris_fusion"] = fuse_iris_centres(iris_px, iris_mesh_px, eyes_open,
+                                                             average=params.iris_combine == "fuse")
+        else:
+            iris_px = np.where(np.isfinite(iris_px), iris_px, iris_mesh_px)
+
+    # --- eyeball centres in the camera frame, freed of the eyes' pull on the face mesh -------------
+    head_mid = t * s  # origin of the head frame (eyeball midpoint), mm
+    centres = np.stack([(np.einsum("nij,j->ni", R, centres_h[e]) + t) * s for e in range(2)], axis=1)  # (N, 2, 3)
+    if params.decouple_reference:
+        centres, info["reference_coupling"] = decouple_reference(
+            centres, iris_px, K, eyes_open, np.asarray(t_s, float), smooth_ms=float(params.head_smooth_ms),
+            highpass_s=float(params.decouple_highpass_s))
+
+    # --- per-eye gaze -----------------------------------------------------
+    g_eyes = np.full((n, 2, 3), np.nan)
+    for e in range(2):
+        C = centres[:, e]  # (N, 3) mm
+        ray = np.c_[iris_px[:, e], np.ones(n)] @ Kinv.T
+        ok = found & np.all(np.isfinite(ray), axis=1) & np.all(np.isfinite(C), axis=1)
+        if ok.any():
+            P, _missed = ray_sphere_near(ray[ok], C[ok], IRIS_PLANE_RADIUS_MM)
+            g = P - C[ok]
+            g /= np.linalg.norm(g, axis=1, keepdims=True)
+            g_eyes[ok, e] = g
+            del P, g
+        del C, ray, ok
+    del iris_px, z_iris, z_model_iris, ear_mean
+    g_bin = _nanmean_quiet(g_eyes, axis=1)
+    norm = np.linalg.norm(g_bin, axis=1, keepdims=True)
+    g_bin = g_bin / np.where(norm > 0, norm, np.nan)
+
+    # The columns are filled in place and each intermediate is dropped as soon as it is used: on an hour of
+    # video every (N, 3) array is some 2.6 MB and they would otherwise all stay alive until the return.
+    yaw, pitch = gaze_vector_to_angles(g_bin)
+    ryaw, rpitch = gaze_vector_to_angles(g_eyes[:, 0])
+    lyaw, lpitch = gaze_vector_to_angles(g_eyes[:, 1])
+    hyaw_e, hpitch_e = gaze_vector_to_angles(np.einsum("nji,nj->ni", R, g_bin))
+    del g_eyes, g_bin, norm, centres, R, t
+    head_yaw, head_pitch, head_roll = pose_angles(R_raw) if n else (nanv.copy(), nanv.copy(), nanv.copy())
+    for a in (head_yaw, head_pitch, head_roll):
+        a[~found] = np.nan
+
+    # --- blinks and validity ---------------------------------------------
+    closed = found & (aperture_rel < params.blink_rel_threshold)
+    blink = _dilate(closed, int(params.blink_pad_frames)) & found
+    valid = found & ~blink & np.isfinite(yaw) & np.isfinite(pitch) & (np.abs(head_yaw) <= params.max_head_yaw_deg)
+    del closed
+
+    def only(a, keep):
+        a = np.array(a, float)  # a copy: inputs stay untouched
+        a[~keep] = np.nan
+        return a
+
+    cols["valid"] = valid
+    cols["blink"] = blink
+    for name, a in (("yaw_deg", yaw), ("pitch_deg", pitch), ("left_yaw_deg", lyaw), ("left_pitch_deg", lpitch),
+                    ("right_yaw_deg", ryaw), ("right_pitch_deg", rpitch), ("eye_in_head_yaw_deg", hyaw_e),
+                    ("eye_in_head_pitch_deg", hpitch_e)):
+        a[~valid] = np.nan  # made here, so filled in place
+        cols[name] = a
+    del yaw, pitch, lyaw, lpitch, ryaw, rpitch, hyaw_e, hpitch_e
+    cols["head_yaw_deg"], cols["head_pitch_deg"], cols["head_roll_deg"] = head_yaw, head_pitch, head_roll
+    cols["head_x_mm"] = only(head_mid[:, 0], found)
+    cols["head_y_mm"] = only(head_mid[:, 1], found)
+    cols["head_z_mm"] = only(head_mid[:, 2], found)
+    cols["distance_mm"] = only(np.linalg.norm(head_mid, axis=1), found)
+    del head_mid
+    cols["iris_diameter_px"] = only(diam, found)
+    cols["ear_right"] = only(ear[:, 0], found)
+    cols["ear_left"] = only(ear[:, 1], found)
+    cols["aperture_rel"] = only(aperture_rel, found)
+    return cols, info
+
+
+def interpupillary_distance_mm(points_px: np.ndarray) -> float:
+    """Distance between the iris centres on the iris scale (11.7 mm iris), in mm.
+
+    Valid for a face roughly parallel to the picture plane; used as a check
+    of the metric scale.
+    """
+    m = frame_measurements(points_px)
+    d_px = float(np.linalg.norm(m["iris_px"][0] - m["iris_px"][1]))
+    return d_px * IRIS_DIAMETER_MM / float(np.mean(m["iris_diam_px"]))

@@ -1,0 +1,277 @@
+"""Drawing what the tracker saw on a video frame, and blurring faces.
+
+Qt-free, OpenCV only: the desktop app's clip view and the screenshot script
+both use it, and so can a report. Everything works on ``(H, W, 3)`` uint8 RGB
+pictures and returns a new picture (the input is never changed).
+
+Privacy: classroom clips show minors. :func:`draw_overlay` blurs the face by
+default; when it does not know where the face is, it blurs the whole picture
+rather than risk showing one. Only an explicit ``blur=False`` shows faces.
+
+Landmark indices follow MediaPipe's 478-point face mesh with irises
+(``refine_landmarks=True``): the loops below are the face oval, the eyelid
+contours and the iris rings, listed in drawing order; ``tests/test_gui_overlay.py``
+checks them against MediaPipe's own connection sets.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from aspectus._env import import_cv2
+
+#: face outline, in drawing order
+FACE_OVAL = (10, 338, 297, 332, 284, 251, 389, 356, 454, 323, 361, 288, 397, 365, 379, 378, 400, 377, 152,
+             148, 176, 149, 150, 136, 172, 58, 132, 93, 234, 127, 162, 21, 54, 103, 67, 109)
+#: subject's left eye lid contour (picture right in an unmirrored clip)
+LEFT_EYE = (263, 249, 390, 373, 374, 380, 381, 382, 362, 398, 384, 385, 386, 387, 388, 466)
+#: subject's right eye lid contour
+RIGHT_EYE = (33, 7, 163, 144, 145, 153, 154, 155, 133, 173, 157, 158, 159, 160, 161, 246)
+#: iris rings and centres
+LEFT_IRIS = (474, 475, 476, 477)
+RIGHT_IRIS = (469, 470, 471, 472)
+LEFT_IRIS_CENTRE = 473
+RIGHT_IRIS_CENTRE = 468
+N_LANDMARKS = 478
+
+#: a face is about this wide and tall (mm) for the blur box when only the head position is known
+FACE_WIDTH_MM = 160.0
+FACE_HEIGHT_MM = 220.0
+
+
+@dataclass(frozen=True)
+class OverlayStyle:
+    """Colours (RGB) and line widths (px) of the overlay.
+
+    The defaults are chosen to stay visible on skin, hair and classroom walls,
+    and to be told apart by readers with red-green colour vision deficiency
+    (blue-orange contrast).
+    """
+
+    mesh_rgb: tuple[int, int, int] = (120, 200, 255)
+    eye_rgb: tuple[int, int, int] = (255, 255, 255)
+    iris_rgb: tuple[int, int, int] = (255, 170, 0)
+    ray_rgb: tuple[int, int, int] = (255, 90, 30)
+    invalid_rgb: tuple[int, int, int] = (160, 160, 160)
+    line_px: int = 1
+    ray_px: int = 2
+
+
+def _as_points(landmarks_px) -> np.ndarray | None:
+    if landmarks_px is None:
+        return None
+    pts = np.asarray(landmarks_px, dtype=float)
+    if pts.ndim != 2 or pts.shape[0] < N_LANDMARKS or pts.shape[1] < 2:
+        return None
+    pts = pts[:, :2]
+    if not np.isfinite(pts[list(FACE_OVAL)]).all():
+        return None
+    return pts
+
+
+def face_box_from_landmarks(landmarks_px, *, shape: tuple[int, int], margin: float = 0.2):
+    """Bounding box ``(x0, y0, x1, y1)`` in px of the face mesh, grown by ``margin`` (fraction of size).
+
+    Returns None when the landmarks are missing or not finite.
+    """
+    pts = _as_points(landmarks_px)
+    if pts is None:
+        return None
+    x0, y0 = pts.min(axis=0)
+    x1, y1 = pts.max(axis=0)
+    return _grow_clip((x0, y0, x1, y1), margin=margin, shape=shape)
+
+
+def _grow_clip(box, *, margin: float, shape: tuple[int, int]):
+    x0, y0, x1, y1 = box
+    w, h = x1 - x0, y1 - y0
+    x0, x1 = x0 - margin * w, x1 + margin * w
+    y0, y1 = y0 - margin * h, y1 + margin * h
+    H, W = shape[:2]
+    x0, x1 = int(max(0, math.floor(x0))), int(min(W, math.ceil(x1)))
+    y0, y1 = int(max(0, math.floor(y0))), int(min(H, math.ceil(y1)))
+    if x1 <= x0 or y1 <= y0:
+        return None
+    return x0, y0, x1, y1
+
+
+def focal_length_px(*, width_px: int, fov_deg: float = 60.0) -> float:
+    """Pinhole focal length in px from the picture width and the assumed horizontal field of view (deg)."""
+    return (width_px / 2.0) / math.tan(math.radians(fov_deg) / 2.0)
+
+
+def project_point(*, x_mm: float, y_mm: float, z_mm: float, shape: tuple[int, int], fov_deg: float = 60.0):
+    """Camera-frame point (mm, :mod:`aspectus.schema` frame) to picture px ``(u, v)``; None if behind the camera."""
+    if not (np.isfinite(x_mm) and np.isfinite(y_mm) and np.isfinite(z_mm)) or z_mm <= 0:
+        return None
+    H, W = shape[:2]
+    f = focal_length_px(width_px=W, fov_deg=fov_deg)
+    return W / 2.0 + f * x_mm / z_mm, H / 2.0 + f * y_mm / z_mm
+
+
+def face_box_from_head(*, head_x_mm: float, head_y_mm: float, head_z_mm: float, shape: tuple[int, int],
+                       fov_deg: float = 60.0, margin: float = 0.2):
+    """Approximate face box in px from the head position (mm) and the camera's field of view (deg).
+
+    Used to blur the face when no landmarks are cached for a frame.
+    """
+    c = project_point(x_mm=head_x_mm, y_mm=head_y_mm, z_mm=head_z_mm, shape=shape, fov_deg=fov_deg)
+    if c is None:
+        return None
+    f = focal_length_px(width_px=shape[1], fov_deg=fov_deg)
+    half_w = 0.5 * f * FACE_WIDTH_MM / head_z_mm
+    half_h = 0.5 * f * FACE_HEIGHT_MM / head_z_mm
+    u, v = c
+    # the head origin is between the eyes, which sit above the middle of the face
+    return _grow_clip((u - half_w, v - 0.4 * 2 * half_h, u + half_w, v + 0.6 * 2 * half_h), margin=margin,
+                      shape=shape)
+
+
+def blur_region(image: np.ndarray, box) -> np.ndarray:
+    """Return a copy of ``image`` with ``box`` (x0, y0, x1, y1 px; None = whole picture) made unrecognisable.
+
+    The region is reduced to a coarse mosaic (about 10 blocks across) and then
+    smoothed, which removes identity while keeping the head's position visible.
+    """
+    cv2 = import_cv2()
+    out = np.array(image, copy=True)
+    H, W = out.shape[:2]
+    x0, y0, x1, y1 = box if box is not None else (0, 0, W, H)
+    roi = out[y0:y1, x0:x1]
+    if roi.size == 0:
+        return out
+    h, w = roi.shape[:2]
+    blocks = max(1, min(w, 10)), max(1, min(h, max(1, round(10 * h / max(w, 1)))))
+    small = cv2.resize(roi, blocks, interpolation=cv2.INTER_AREA)
+    small = cv2.GaussianBlur(small, (3, 3), 0)
+    out[y0:y1, x0:x1] = cv2.resize(small, (w, h), interpolation=cv2.INTER_LINEAR)
+    return out
+
+
+def _poly(cv2, img, pts, idx, rgb, width):
+    p = np.round(pts[list(idx)]).astype(np.int32).reshape(-1, 1, 2)
+    cv2.polylines(img, [p], isClosed=True, color=tuple(int(c) for c in rgb), thickness=width, lineType=cv2.LINE_AA)
+
+
+def gaze_ray_end(origin_px, *, yaw_deg: float, pitch_deg: float, length_px: float):
+    """End point in px of a gaze ray drawn from ``origin_px``.
+
+    In an unmirrored picture a gaze to the subject's right (yaw > 0) points to
+    the picture's left, and up (pitch > 0) points to the top
+    (:mod:`aspectus.schema`). The ray is the gaze direction projected onto the
+    picture plane, scaled so a gaze straight at the camera has length 0.
+    """
+    y, p = math.radians(yaw_deg), math.radians(pitch_deg)
+    dx = -math.sin(y) * math.cos(p)
+    dy = -math.sin(p)
+    return origin_px[0] + length_px * dx, origin_px[1] + length_px * dy
+
+
+def draw_overlay(image: np.ndarray, *, landmarks_px=None, yaw_deg: float = float("nan"),
+                 pitch_deg: float = float("nan"), head_mm: tuple[float, float, float] | None = None,
+                 fov_deg: float = 60.0, blur: bool = True, show_mesh: bool = True,
+                 style: OverlayStyle = OverlayStyle()) -> np.ndarray:
+    """Draw the tracked face on a frame.
+
+    Parameters
+    ----------
+    image : ndarray
+        ``(H, W, 3)`` uint8 RGB frame.
+    landmarks_px : array, optional
+        ``(478, 2 or 3)`` face-mesh landmarks in picture px for this frame.
+    yaw_deg, pitch_deg : float
+        Gaze angles of the frame (deg, :mod:`aspectus.schema` frame); NaN =
+        no valid gaze, no ray drawn.
+    head_mm : (x_mm, y_mm, z_mm), optional
+        Head position in the camera frame (mm): places the blur box and the
+        ray's origin when no landmarks are given.
+    fov_deg : float
+        Assumed horizontal field of view of the webcam (deg).
+    blur : bool
+        Blur the face (default). With no face position known, the whole
+        picture is blurred.
+    show_mesh : bool
+        Draw the face outline, eyelids and iris rings.
+    style : OverlayStyle
+        Colours and line widths.
+
+    Returns
+    -------
+    ndarray
+        A new ``(H, W, 3)`` uint8 RGB picture.
+    """
+    cv2 = import_cv2()
+    img = np.ascontiguousarray(image[..., :3], dtype=np.uint8)
+    shape = img.shape[:2]
+    pts = _as_points(landmarks_px)
+    box = None
+    if pts is not None:
+        box = face_box_from_landmarks(pts, shape=shape)
+    elif head_mm is not None:
+        box = face_box_from_head(head_x_mm=head_mm[0], head_y_mm=head_mm[1], head_z_mm=head_mm[2], shape=shape,
+                                 fov_deg=fov_deg)
+    img = blur_region(img, box) if blur else img.copy()
+    origin = None
+    scale_px = None
+    if pts is not None:
+        if show_mesh:
+            _poly(cv2, img, pts, FACE_OVAL, style.mesh_rgb, style.line_px)
+            _poly(cv2, img, pts, LEFT_EYE, style.eye_rgb, style.line_px)
+            _poly(cv2, img, pts, RIGHT_EYE, style.eye_rgb, style.line_px)
+            _poly(cv2, img, pts, LEFT_IRIS, style.iris_rgb, style.line_px + 1)
+            _poly(cv2, img, pts, RIGHT_IRIS, style.iris_rgb, style.line_px + 1)
+        origin = (pts[LEFT_IRIS_CENTRE] + pts[RIGHT_IRIS_CENTRE]) / 2.0
+        scale_px = float(np.linalg.norm(pts[LEFT_IRIS_CENTRE] - pts[RIGHT_IRIS_CENTRE]))
+    elif head_mm is not None:
+        c = project_point(x_mm=head_mm[0], y_mm=head_mm[1], z_mm=head_mm[2], shape=shape, fov_deg=fov_deg)
+        if c is not None:
+            origin = np.array(c)
+            scale_px = focal_length_px(width_px=shape[1], fov_deg=fov_deg) * 63.0 / head_mm[2]
+    if origin is not None and np.isfinite(yaw_deg) and np.isfinite(pitch_deg) and scale_px:
+        length = 4.0 * scale_px
+        end = gaze_ray_end(origin, yaw_deg=yaw_deg, pitch_deg=pitch_deg, length_px=length)
+        o = tuple(int(round(v)) for v in origin)
+        e = tuple(int(round(v)) for v in end)
+        cv2.circle(img, o, max(2, style.ray_px + 1), style.ray_rgb, -1, lineType=cv2.LINE_AA)
+        cv2.arrowedLine(img, o, e, style.ray_rgb, style.ray_px, line_type=cv2.LINE_AA, tipLength=0.2)
+    return img
+
+
+class FrameLandmarker:
+    """Face mesh on single pictures, for frames whose landmarks are not cached.
+
+    MediaPipe is imported when the first picture is processed. Not
+    thread-safe: use one instance per thread.
+    """
+
+    def __init__(self, *, max_faces: int = 1):
+        self._mesh = None
+        self._max_faces = max_faces
+
+    def __call__(self, image: np.ndarray):
+        """``(478, 2)`` landmarks in px of the largest face, or None."""
+        if self._mesh is None:
+            from aspectus._env import import_mediapipe
+
+            mp = import_mediapipe()  # heavy, only when needed
+
+            self._mesh = mp.solutions.face_mesh.FaceMesh(static_image_mode=True, refine_landmarks=True,
+                                                         max_num_faces=self._max_faces)
+        H, W = image.shape[:2]
+        res = self._mesh.process(np.ascontiguousarray(image[..., :3]))
+        if not res.multi_face_landmarks:
+            return None
+        best, best_area = None, -1.0
+        for face in res.multi_face_landmarks:
+            pts = np.array([(lm.x * W, lm.y * H) for lm in face.landmark], dtype=float)
+            area = float(np.ptp(pts[:, 0]) * np.ptp(pts[:, 1]))
+            if area > best_area:
+                best, best_area = pts, area
+        return best
+
+    def close(self):
+        if self._mesh is not None:
+            self._mesh.close()
+            self._mesh = None

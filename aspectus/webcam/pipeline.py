@@ -1,0 +1,587 @@
+"""From a clip file to its samples, events, features and sidecar.
+
+This is the one place where the steps are strung together; the CLI, the
+batch runner and the desktop app all call :func:`process_clip` (and
+:func:`reanalyse` for new detection parameters on cached samples).
+
+Per-clip output folder (all files written atomically; ``run.json`` last, so
+its presence with a matching input hash and parameter hash means the clip is
+complete):
+
+==================  =========================================================
+samples.parquet     the gaze samples table (aspectus.schema), the cache
+samples.csv         the same, for spreadsheets and statistics packages
+events.csv/.parquet fixations, saccades, blinks, data loss
+features.csv/.parquet  per clip, per window, per segment
+run.json            sidecar: parameters, versions, input hash, quality, output checksums
+==================  =========================================================
+
+Decoding runs in a background thread (:class:`aspectus.webcam.video.FramePrefetcher`)
+so it overlaps the face mesh; the per-frame head pose and iris refinement run
+beside both (:mod:`aspectus.webcam.frame_geometry`: a child process for clips of more
+than a few seconds, a thread otherwise). Everything else is vectorised over
+the clip once landmarking is done. Memory grows only by the samples
+table (about 300 bytes per frame), never by frames.
+"""
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import platform
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from aspectus import __version__
+from aspectus.atomic import sha256_file, sha256_json, write_csv, write_json, write_parquet
+from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
+from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
+from aspectus.webcam.gaze import GazeParams, estimate_gaze
+from aspectus.webcam.frame_geometry import RECORD_WIDTH, frame_item, start_geometry
+from aspectus.webcam.landmarks import FaceTracker, mediapipe_version, parse_face_choice
+from aspectus.schema import SAMPLE_COLUMNS
+from aspectus.webcam.video import DecodeReport, FramePrefetcher, probe
+
+ProgressFn = Callable[[float, str], None]
+
+#: below either, a clip is reported not usable: a few frames hold no fixation to measure (common practice)
+MIN_USABLE_FRAMES = 10
+MIN_USABLE_DURATION_S = 0.5
+#: raised whenever the samples table a clip gives changes for the same parameters, so cached samples of an
+#: earlier method are rebuilt, not reused (2: a face far from the followed one is no longer taken for it)
+EXTRACTION_REVISION = 2
+#: nice steps by which the decoder thread and the geometry process yield to the face mesh (see
+#: :func:`extract_samples`)
+DECODE_NICE = 5
+GEOMETRY_NICE = 10
+
+
+def _analysis_params_default():
+    from aspectus.events.analysis import AnalysisParams
+
+    return AnalysisParams()
+
+
+@dataclass
+class ProcessParams:
+    """Everything that decides a clip's outputs.
+
+    Attributes
+    ----------
+    fov_deg : float
+        Assumed horizontal field of view of the webcam, degrees (20-120;
+        default 60, typical of laptop webcams). Changes distance and head
+        translation; gaze angles depend on it only weakly.
+    face : str
+        Which face to follow: ``"largest"`` (default) or ``"index:N"`` (the
+        N-th face from the picture's left edge, 0-based, on the first frame).
+    max_faces : int
+        Faces the face mesh looks for in each frame (1-10; default 2).
+    gaze : GazeParams
+        Blink threshold, iris refinement, head-turn limit.
+    analysis : AnalysisParams
+        Clean-up, detector and feature parameters (aspectus.events.analysis).
+    """
+
+    fov_deg: float = 60.0
+    face: str = "largest"
+    max_faces: int = 2
+    gaze: GazeParams = field(default_factory=GazeParams)
+    analysis: object = field(default_factory=_analysis_params_default)
+
+    def __post_init__(self):
+        from aspectus.errors import ParameterError
+
+        parse_face_choice(self.face)
+        if not (20.0 <= float(self.fov_deg) <= 120.0):
+            raise ParameterError(f"field of view {self.fov_deg} deg is outside 20-120 deg")
+        if not (1 <= int(self.max_faces) <= 10):
+            raise ParameterError(f"max_faces must be 1-10, got {self.max_faces}")
+
+    def extraction_dict(self) -> dict:
+        """The parameters that change the samples table (landmarking and gaze)."""
+        return {"fov_deg": float(self.fov_deg), "face": self.face, "max_faces": int(self.max_faces),
+                "gaze": self.gaze.to_dict()}
+
+    def to_dict(self) -> dict:
+        d = self.extraction_dict()
+        d["analysis"] = self.analysis.to_dict()
+        return d
+
+    def fingerprint(self) -> str:
+        """SHA-256 of every parameter and of the method's revision (:data:`EXTRACTION_REVISION`): what
+        run.json's ``params_sha256`` holds and what decides whether a clip's results are current."""
+        return params_fingerprint(self.to_dict())
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "ProcessParams":
+        from aspectus.events.analysis import AnalysisParams
+
+        d = dict(d or {})
+        gaze = GazeParams(**d.pop("gaze", {}) or {})
+        analysis = AnalysisParams.from_dict(d.pop("analysis", {}) or {})
+        return cls(gaze=gaze, analysis=analysis, **d)
+
+
+def params_fingerprint(params_dict: dict) -> str:
+    """:meth:`ProcessParams.fingerprint` of a parameter dict as run.json stores it."""
+    return sha256_json(dict(params_dict) | {"method_revision": EXTRACTION_REVISION})
+
+
+@dataclass
+class ClipResult:
+    clip: Path
+    out_dir: Path
+    samples: pd.DataFrame
+    analysis: object
+    summary: dict
+    reused_samples: bool = False
+
+
+class _Grow:
+    """A float64 matrix that grows by doubling (rows = frames)."""
+
+    def __init__(self, width: int, cap: int = 1024):
+        self.a = np.full((cap, width), np.nan)
+        self.n = 0
+
+    def append(self, row):
+        if self.n == len(self.a):
+            self.a = np.concatenate([self.a, np.full_like(self.a, np.nan)])
+        self.a[self.n] = row
+        self.n += 1
+
+    def view(self) -> np.ndarray:
+        return self.a[: self.n]
+
+
+def extract_samples(clip_path, *, params: ProcessParams | None = None, progress: ProgressFn | None = None,
+                    cancel=None, geometry_mode: str = "auto") -> tuple[pd.DataFrame, dict]:
+    """Decode, landmark and estimate gaze for every frame of a clip.
+
+    ``geometry_mode`` says where the per-frame head pose and iris refinement
+    run: ``"auto"`` (a child process for clips of 450 frames or more, else a
+    thread), ``"thread"`` or ``"process"``; the results are the same.
+
+    Returns
+    -------
+    samples : DataFrame in the aspectus samples schema (one row per frame).
+    meta : dict with the video properties, decode report, gaze-model figures
+        and timing.
+    """
+    params = params or ProcessParams()
+    clip = Path(clip_path)
+    info = probe(clip)
+    n_hint = max(int(info.frame_count_hint or 0), 1)
+    report = DecodeReport()
+    rec = _Grow(RECORD_WIDTH, cap=min(max(n_hint + 16, 64), 1 << 20))
+    t0 = time.perf_counter()
+    refine = bool(params.gaze.refine_iris)
+    tracker = FaceTracker(max_faces=params.max_faces, face=params.face)
+    background = background_cpus()  # the decoder and the geometry keep off the CPUs the mesh may need
+    prefetch = FramePrefetcher(clip, report=report, cancel=cancel, lower_priority=DECODE_NICE, cpus=background)
+    # Three stages overlap: decoding (its own thread), the face mesh (here), and the per-frame
+    # geometry - head pose, iris refinement - in a child process for clips of more than a few
+    # seconds (aspectus.webcam.frame_geometry). The mesh and OpenCV release the GIL while they compute;
+    # a short switch interval hands it over promptly. The mesh sets the pace; the other two can run
+    # ahead (decoding) or lag and catch up (geometry) through their queues, so they run at lower
+    # priority (DECODE_NICE, GEOMETRY_NICE): on two cores the three together need nearly both, and
+    # at equal priority the scheduler often parks a mesh thread behind one of them (measured with
+    # bench/bench_pipeline.py: DEVELOPERS.md, performance).
+    old_switch = sys.getswitchinterval()
+    sys.setswitchinterval(0.0005)
+    geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=rec.append, frames_hint=n_hint,
+                              mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors))
+    if geometry.kind == "process":
+        lower_process_priority(geometry.pid, GEOMETRY_NICE)
+        pin_to_cpus(background, geometry.pid)
+    n_in = 0
+    state = None
+    try:
+        for fr in prefetch:
+            if cancel is not None and cancel.is_set():
+                raise Cancelled(f"cancelled while processing {clip.name}")
+            geometry.check()
+            obs = tracker.process(fr.image)
+            geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine, faces_in_view=tracker.faces_in_view))
+            n_in += 1
+            if progress is not None and (n_in % 10 == 0):
+                progress(min(n_in / n_hint, 0.99), f"{clip.name}: frame {n_in} of about {n_hint}")
+        state = geometry.finish()
+    finally:
+        if state is None:
+            geometry.abort()
+        sys.setswitchinterval(old_switch)
+        prefetch.close()
+        tracker.close()
+    size, size_changes = state["size"], state["size_changes"]
+    t_land = time.perf_counter() - t0
+    a = rec.view()
+    n = len(a)
+    found = a[:, 1] > 0.5
+    # rotations and translations are cleaned in place, in the record buffer itself (no copies of an hour of them)
+    Rm = np.nan_to_num(a[:, 3:12], copy=False).reshape(n, 3, 3)
+    Rm[~found] = np.eye(3)
+    tm = np.nan_to_num(a[:, 12:15], nan=1.0, copy=False)
+    K = np.asarray(state["K"]) if state["K"] is not None else np.eye(3)
+    cols, ginfo = estimate_gaze(
+        K=K, found=found, R=Rm, t=tm, iris_px=a[:, 15:19].reshape(n, 2, 2), iris_diam_px=a[:, 19:21],
+        corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
+        iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None, params=params.gaze)
+    pts = a[:, 0].copy()
+    counts = a[:, 2].astype(np.int64)
+    del a, rec, Rm, tm  # the per-frame records are in ``cols`` now; an hour of them is some 30 MB
+    t_clip = pts - pts[0] if n else pts
+    cols |= {"t_s": t_clip, "frame_index": np.arange(n, dtype=np.int64), "pts_s": pts, "face_found": found,
+             "face_count": counts, "pupil": np.full(n, np.nan)}
+    order = [c.name for c in SAMPLE_COLUMNS if c.name in cols]
+    df = pd.DataFrame({name: cols.pop(name) for name in order + [c for c in list(cols) if c not in order]})
+    del cols
+    meta = {
+        "video": info.to_dict() | {"decoded_size_px": list(size) if size else None, "size_changes": size_changes},
+        "decode": report.to_dict(),
+        "gaze_model": ginfo,
+        "camera_matrix": K.tolist(),
+        "face_tracking": {"multi_face_from_frame": tracker.multi_face_from_frame,
+                          "check_every_frames": tracker.check_every,
+                          "other_faces_only_frames": tracker.other_faces_only_frames,
+                          "reacquired_at_frames": list(tracker.reacquired_frames),
+                          "reacquire_after_frames": tracker.reacquire_after},
+        "geometry_ran_in": geometry.kind,
+        "background_cpus": sorted(background) if background else None,
+        "eye_anchor_frames": state.get("anchored_frames"),
+        "eye_anchor_fallback_frames": state.get("unanchored_frames"),
+        "eye_anchor_match_frac": _fraction(state.get("anchor_matches"), state.get("anchor_misses")),
+        "geometry_process_peak_rss_mb": state.get("peak_rss_mb"),
+        "landmarking_s": round(t_land, 3),
+        "landmarking_fps": round(n / t_land, 1) if t_land > 0 else None,
+    }
+    if n and n > 1:
+        d = np.diff(pts)
+        meta["frame_interval_ms"] = {"median": float(np.median(d) * 1e3), "min": float(d.min() * 1e3),
+                                     "max": float(d.max() * 1e3)}
+    return df, meta
+
+
+def _fraction(hits, misses) -> float | None:
+    """hits / (hits + misses), or None when there were none."""
+    if hits is None or misses is None or hits + misses == 0:
+        return None
+    return round(hits / (hits + misses), 4)
+
+
+def software_versions() -> dict:
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {"aspectus": __version__, "python": platform.python_version(), "mediapipe": mediapipe_version()}
+    for pkg in ("numpy", "pandas", "scipy", "pyarrow", "av", "opencv-contrib-python"):
+        try:
+            out[pkg] = version(pkg)
+        except PackageNotFoundError:
+            out[pkg] = None
+    out["face_model"] = "MediaPipe face mesh with attention (iris refinement), 478 landmarks, bundled in mediapipe " + out["mediapipe"]
+    return out
+
+
+def _verdict(summary: dict) -> tuple[bool, str]:
+    ff, vf, noise = summary["face_found_frac"], summary["valid_frac"], summary.get("noise_rms_s2s_deg")
+    reasons = []
+    n, dur = int(summary.get("frames") or 0), float(summary.get("duration_s") or 0.0)
+    if n > 1:
+        dur += dur / (n - 1)  # first to last frame, plus the last frame's own interval: the length recorded
+    if n < MIN_USABLE_FRAMES or dur < MIN_USABLE_DURATION_S - 1e-9:
+        reasons.append(f"the clip is too short to measure ({n} frame(s) over {dur:.2f} s; fixations and noise need "
+                       f"at least {MIN_USABLE_FRAMES} frames over {MIN_USABLE_DURATION_S:g} s) - it may be a still "
+                       "picture or a cut-off recording")
+    if ff < 0.8:
+        reasons.append(f"the face was tracked in only {ff:.0%} of frames (the student may have left the picture or the room is too dark)")
+    if vf < 0.6:
+        reasons.append(f"only {vf:.0%} of frames gave usable gaze (blinks, closed eyes, turned head or no face)")
+    if noise is not None and np.isfinite(noise) and noise > 3.0:
+        reasons.append(f"the gaze signal is very noisy ({noise:.1f} deg sample to sample)")
+    if reasons:
+        return False, "Not usable: " + "; ".join(reasons) + "."
+    noise_text = (f"noise {noise:.2f} deg sample to sample" if noise is not None and np.isfinite(noise)
+                  else "noise not measurable (too few consecutive valid samples)")
+    return True, f"Usable: face tracked in {ff:.0%} of frames, {vf:.0%} usable gaze, {noise_text}."
+
+
+def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
+    n = len(samples)
+    ev = analysis.events
+    q = dict(analysis.quality or {})
+    s = {
+        "frames": int(n),
+        "duration_s": float(samples["t_s"].iloc[-1]) if n else 0.0,
+        "face_found_frac": float(samples["face_found"].mean()) if n else 0.0,
+        "multi_face_frac": float((samples["face_count"] > 1).mean()) if n else 0.0,
+        "valid_frac": float(samples["valid"].mean()) if n else 0.0,
+        "blink_count": int((ev["type"] == "blink").sum()) if len(ev) else 0,
+        "fixation_count": int((ev["type"] == "fixation").sum()) if len(ev) else 0,
+        "median_distance_mm": float(np.nanmedian(samples["distance_mm"])) if samples["face_found"].any() else float("nan"),
+        "noise_rms_s2s_deg": float(q.get("noise_rms_s2s_deg", np.nan)),
+        "decode_problems": {k: v for k, v in meta.get("decode", {}).items() if k != "frames" and v},
+    }
+    s["usable"], s["verdict"] = _verdict(s)
+    dp = s["decode_problems"]
+    if dp.get("stopped_early"):
+        s["verdict"] += f" Note: the file is damaged - {dp['stopped_early']}; only the part before that was analysed."
+    elif dp.get("corrupt_packets"):
+        s["verdict"] += f" Note: {dp['corrupt_packets']} damaged packet(s) in the file were skipped."
+    bad_times = int(dp.get("pts_missing") or 0) + int(dp.get("pts_non_increasing") or 0)
+    if bad_times:
+        s["verdict"] += (f" Note: {bad_times} frame(s) had a missing or out-of-order timestamp; they were placed "
+                         "just after the frame before (run.json, decode), so intervals there are not measured ones.")
+    ft = meta.get("face_tracking") or {}
+    others, again = int(ft.get("other_faces_only_frames") or 0), list(ft.get("reacquired_at_frames") or [])
+    if s["multi_face_frac"] > 0.05 or others or again:
+        s["verdict"] += f" Several faces were in view in {s['multi_face_frac']:.0%} of frames"
+        if again:
+            s["verdict"] += (f"; the followed face was lost and a face was taken up again at frame(s) "
+                             f"{', '.join(str(f) for f in again[:5])}{' ...' if len(again) > 5 else ''}: "
+                             "check that it is the same person (--face chooses one).")
+        else:
+            s["verdict"] += "; one face was followed throughout (the largest, or the one chosen with --face)."
+        if others:
+            s["verdict"] += (f" In {others} frame(s) the followed face was not found while other faces were in "
+                             "view; those frames are marked invalid rather than measured on another face.")
+    s["other_faces_only_frames"] = others
+    s["face_reacquisitions"] = len(again)
+    return s
+
+
+def _segments_frame(segments):
+    if segments is None:
+        return None
+    if isinstance(segments, pd.DataFrame):
+        return segments
+    from aspectus.events.analysis import read_segments
+
+    return read_segments(segments)
+
+
+def _run_json_path(out_dir: Path) -> Path:
+    return Path(out_dir) / "run.json"
+
+
+def _withdraw_run_json(out_dir: Path) -> None:
+    """Remove a folder's run.json before any output it vouches for is replaced.
+
+    run.json lists the checksums of the files beside it; once one of them is
+    rewritten it no longer tells the truth. Withdrawing it first means a run
+    killed half-way leaves a folder without run.json (not finished, processed
+    again next time) rather than a run.json that does not match its files.
+    """
+    try:
+        _run_json_path(Path(out_dir)).unlink()
+    except FileNotFoundError:
+        pass
+
+
+def read_run_json(out_dir) -> dict | None:
+    p = _run_json_path(Path(out_dir))
+    if not p.exists():
+        return None
+    try:
+        return json.loads(p.read_text())
+    except (OSError, ValueError):
+        return None
+
+
+class CacheError(AspectusInputError):
+    """A cached samples table is missing, unreadable or fails its checksum."""
+
+
+def load_samples(out_dir, *, verify: bool = True) -> pd.DataFrame:
+    """Read a clip's cached samples table, checking it against run.json's checksum."""
+    out_dir = Path(out_dir)
+    p = out_dir / "samples.parquet"
+    if not p.exists():
+        raise CacheError("no samples.parquet here", path=out_dir, hint="run `aspectus process` on the clip first")
+    run = read_run_json(out_dir)
+    if verify and run is not None:
+        want = (run.get("outputs") or {}).get("samples.parquet", {}).get("sha256")
+        if want and sha256_file(p) != want:
+            raise CacheError("samples.parquet does not match the checksum in run.json (damaged or edited)",
+                             path=p, hint="process the clip again to rebuild it")
+    try:
+        return pd.read_parquet(p)
+    except Exception as exc:  # noqa: BLE001 - pyarrow raises many kinds
+        raise CacheError(f"samples.parquet cannot be read ({exc})", path=p,
+                         hint="process the clip again to rebuild it") from None
+
+
+def _write_outputs(out_dir: Path, samples: pd.DataFrame, analysis, run: dict) -> dict:
+    from aspectus.events.analysis import write_analysis
+
+    out_dir.mkdir(parents=True, exist_ok=True)
+    outputs = {}
+    write_parquet(out_dir / "samples.parquet", samples, metadata={"input_sha256": run["input_sha256"]})
+    write_csv(out_dir / "samples.csv", samples)
+    written = write_analysis(analysis, out_dir, meta=run)
+    names = ["samples.parquet", "samples.csv"] + [Path(p).name for p in written.values()]
+    for name in names:
+        fp = out_dir / name
+        if fp.exists():
+            outputs[name] = {"sha256": sha256_file(fp), "bytes": fp.stat().st_size}
+    return outputs
+
+
+def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, segments=None,
+                 progress: ProgressFn | None = None, cancel=None, reuse: bool = True) -> ClipResult:
+    """Process one clip into ``out_dir`` (see the module docstring for the files).
+
+    Parameters
+    ----------
+    clip_path : path-like
+        The recorded clip (any container FFmpeg reads).
+    out_dir : path-like
+        The clip's output folder (created).
+    params : ProcessParams
+    segments : path-like or DataFrame, optional
+        Task segments (label, onset_s, offset_s) for per-segment features.
+    progress : callable(fraction, message), optional
+    cancel : object with ``is_set()``, optional
+        Raises :class:`~aspectus.errors.Cancelled` when set; outputs already
+        complete are never touched.
+    reuse : bool
+        When ``out_dir`` already holds samples made from the same input file
+        with the same landmarking parameters (and its checksum holds), skip
+        landmarking and only re-run detection and features.
+
+    Raises
+    ------
+    VideoError, NoFaceError, AspectusInputError
+    """
+    from aspectus.events.analysis import run_analysis
+
+    params = params or ProcessParams()
+    clip = Path(clip_path)
+    out_dir = Path(out_dir)
+    progress = progress or (lambda f, m: None)
+    progress(0.0, f"{clip.name}: reading")
+    if not clip.exists():
+        from aspectus.errors import VideoError
+
+        raise VideoError("file not found", path=clip)
+    if clip.is_dir():
+        from aspectus.errors import VideoError
+
+        raise VideoError("is a folder, not a video file", path=clip, hint="give the clip file inside it")
+    try:
+        input_sha = sha256_file(clip)
+    except OSError as exc:
+        from aspectus.errors import VideoError
+
+        raise VideoError(f"cannot be read ({exc.strerror or exc})", path=clip,
+                         hint="check the disk or network share it is on, or copy the file again") from None
+    seg_df = _segments_frame(segments)
+    extraction_sha = params_fingerprint(params.extraction_dict())
+    samples = None
+    meta = None
+    reused = False
+    prev = read_run_json(out_dir) if reuse else None
+    if prev and prev.get("input_sha256") == input_sha and prev.get("extraction_sha256") == extraction_sha:
+        try:
+            samples = load_samples(out_dir)
+            meta = prev.get("extraction") or {}
+            reused = True
+        except CacheError:
+            samples = None  # damaged cache: rebuild it
+    if samples is None:
+        samples, meta = extract_samples(clip, params=params, progress=lambda f, m: progress(0.95 * f, m), cancel=cancel)
+    if not samples["face_found"].any():
+        raise NoFaceError(f"no face found in any of its {len(samples)} frames", path=clip,
+                          hint="check that the student's face is in the picture and lit")
+    if cancel is not None and cancel.is_set():
+        raise Cancelled(f"cancelled before writing {clip.name}")
+    progress(0.96, f"{clip.name}: detecting events")
+    analysis = run_analysis(samples, params.analysis, segments=seg_df, source=str(clip))
+    summary = summarise(samples, analysis, meta)
+    run = {
+        "aspectus": __version__,
+        "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+        "clip": str(clip),
+        "clip_resolved": str(clip.resolve()),
+        "clip_name": clip.name,
+        "input_sha256": input_sha,
+        "input_bytes": clip.stat().st_size,
+        "params": params.to_dict(),
+        "params_sha256": params.fingerprint(),
+        "extraction_sha256": extraction_sha,
+        "segments": str(segments) if segments is not None and not isinstance(segments, pd.DataFrame) else None,
+        "software": software_versions(),
+        "extraction": meta,
+        "quality": summary,
+        "analysis_quality": analysis.quality,
+        "columns": {c.name: {"unit": c.unit, "doc": c.doc} for c in SAMPLE_COLUMNS},
+    }
+    if cancel is not None and cancel.is_set():
+        raise Cancelled(f"cancelled before writing {clip.name}")
+    progress(0.98, f"{clip.name}: writing")
+    _withdraw_run_json(out_dir)
+    if reused:
+        from aspectus.events.analysis import write_analysis
+
+        written = write_analysis(analysis, out_dir, meta=run)
+        outputs = dict(prev.get("outputs") or {})
+        csv = out_dir / "samples.csv"
+        want = (outputs.get("samples.csv") or {}).get("sha256")
+        if not csv.exists() or (want and sha256_file(csv) != want):  # deleted or edited: write it again
+            write_csv(csv, samples)
+            written = dict(written) | {"samples_csv": csv}
+        for p in written.values():
+            fp = Path(p)
+            outputs[fp.name] = {"sha256": sha256_file(fp), "bytes": fp.stat().st_size}
+    else:
+        outputs = _write_outputs(out_dir, samples, analysis, run)
+    run["outputs"] = outputs
+    write_json(_run_json_path(out_dir), run)
+    progress(1.0, f"{clip.name}: done")
+    return ClipResult(clip=clip, out_dir=out_dir, samples=samples, analysis=analysis, summary=summary, reused_samples=reused)
+
+
+def reanalyse(out_dir, analysis_params, *, segments=None, write: bool = True):
+    """Re-run clean-up, detection and features on a clip's cached samples.
+
+    No landmarking: this takes well under a second for a 10-minute clip. With
+    ``write`` the clip's events/features files and run.json are updated
+    (atomically).
+    """
+    from aspectus.events.analysis import run_analysis, write_analysis
+
+    out_dir = Path(out_dir)
+    samples = load_samples(out_dir)
+    seg_df = _segments_frame(segments)
+    result = run_analysis(samples, analysis_params, segments=seg_df, source=str(out_dir / "samples.parquet"))
+    if write:
+        run = read_run_json(out_dir) or {}
+        params = dict(run.get("params") or {})
+        params["analysis"] = analysis_params.to_dict()
+        run["params"] = params
+        run["params_sha256"] = params_fingerprint(params)
+        run["analysis_quality"] = result.quality
+        run["quality"] = summarise(samples, result, run.get("extraction") or {})  # counts and verdict follow
+        _withdraw_run_json(out_dir)
+        written = write_analysis(result, out_dir, meta=run)
+        outputs = dict(run.get("outputs") or {})
+        for p in written.values():
+            fp = Path(p)
+            outputs[fp.name] = {"sha256": sha256_file(fp), "bytes": fp.stat().st_size}
+        run["outputs"] = outputs
+        write_json(_run_json_path(out_dir), run)
+    return result
+
+
+def clip_output_dir(out_root, clip_path) -> Path:
+    """``OUTDIR/<clip file stem>``."""
+    return Path(out_root) / Path(clip_path).stem
+
+
+__all__ = ["ProcessParams", "ClipResult", "process_clip", "reanalyse", "load_samples", "extract_samples",
+           "summarise", "clip_output_dir", "CacheError", "read_run_json"]
