@@ -82,9 +82,27 @@ def rotation_to_head_angles(R: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.n
     return np.degrees(yaw), np.degrees(pitch), np.degrees(roll)
 
 
+def focal_length_px(*, width_px: int, fov_deg: float = 60.0) -> float:
+    """Pinhole focal length in px from the picture width and the horizontal field of view (deg).
+
+    ``f = (width / 2) / tan(fov / 2)``: the one place aspectus relates a field
+    of view to pixels (the webcam side, the overlay and the renderer use it).
+    """
+    return float((width_px / 2.0) / np.tan(np.radians(fov_deg) / 2.0))
+
+
+def project_point(*, x_mm: float, y_mm: float, z_mm: float, shape: tuple[int, int], fov_deg: float = 60.0):
+    """Camera-frame point (mm, :mod:`aspectus.schema` frame) to picture px ``(u, v)``; None if behind the camera."""
+    if not (np.isfinite(x_mm) and np.isfinite(y_mm) and np.isfinite(z_mm)) or z_mm <= 0:
+        return None
+    H, W = shape[:2]
+    f = focal_length_px(width_px=W, fov_deg=fov_deg)
+    return W / 2.0 + f * x_mm / z_mm, H / 2.0 + f * y_mm / z_mm
+
+
 def camera_matrix(width_px: int, height_px: int, fov_deg: float) -> np.ndarray:
     """Pinhole intrinsics from a horizontal field of view; principal point at the centre."""
-    f = (width_px / 2.0) / np.tan(np.radians(fov_deg) / 2.0)
+    f = focal_length_px(width_px=width_px, fov_deg=fov_deg)
     return np.array([[f, 0, width_px / 2.0], [0, f, height_px / 2.0], [0, 0, 1.0]])
 
 

@@ -206,7 +206,7 @@ def test_manifest_batch_with_missing_files_segments_and_labels(tmp_path):
     assert set(res.study["class"]) == {"3A"}
     assert (out / "a__p01").is_dir() and (out / "b__p01").is_dir()
     # finished clips with a reference are paired for the validation mode
-    from aspectus.validation.pair import read_validation_manifest
+    from aspectus.validation.manifest import read_validation_manifest
 
     (pair,) = read_validation_manifest(out / "validation_manifest.csv")
     assert pair.webcam == out / "b__p01" and pair.reference == tmp_path / "ref" / "p01_s02.csv"
@@ -293,7 +293,7 @@ def test_hash_index_rehashes_only_on_change(tmp_path, monkeypatch):
     assert h == sha256_file(clip)
     idx.save()
     calls = []
-    import aspectus.studies.batch as batch_mod
+    import aspectus.studies.state as batch_mod
 
     monkeypatch.setattr(batch_mod, "sha256_file", lambda p: calls.append(p) or "computed")
     idx2 = HashIndex(tmp_path / "idx.json")

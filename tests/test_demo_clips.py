@@ -74,7 +74,9 @@ def test_whole_study_validation_from_the_study_model(demo_out, repo_root, tmp_pa
     """
     from aspectus.synth.lab_recording import write_demo_reference
     from aspectus.studies.project import STATUS_DONE, new_study, write_validation_manifest
-    from aspectus.validation.pair import read_validation_manifest, validate_pair, validate_study
+    from aspectus.validation.manifest import read_validation_manifest
+    from aspectus.validation.pair import validate_pair
+    from aspectus.validation.study import validate_study
 
     out, clips, _ = demo_out
     sc = repo_root / "sample_clips"

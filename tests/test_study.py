@@ -164,7 +164,7 @@ def _processed_study(tmp_path, stems):
 
 def test_validation_manifest_labels_unique_keys_and_hash_in_path(tmp_path):
     from aspectus.studies.project import write_validation_manifest
-    from aspectus.validation.pair import read_validation_manifest
+    from aspectus.validation.manifest import read_validation_manifest
 
     stems = ["linden_brook_p01_s01", "anna_s1", "anna_s2", "anna 1", "anna-1", "学生一", "sub-07_ses-2_task-read"]
     s = _processed_study(tmp_path, stems)
@@ -183,7 +183,7 @@ def test_validation_manifest_labels_unique_keys_and_hash_in_path(tmp_path):
 
 
 def test_manifest_comment_lines_only_whole_lines(tmp_path):
-    from aspectus.validation.pair import read_validation_manifest
+    from aspectus.validation.manifest import read_validation_manifest
 
     d = tmp_path / "room #2"
     (d / "cam").mkdir(parents=True)

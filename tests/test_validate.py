@@ -17,7 +17,9 @@ from aspectus.cli import main
 from aspectus.errors import AspectusInputError, ReferenceFormatError
 from aspectus.reference import TableMapping, write_demo_reference
 from aspectus.synth.trajectory import synth_trajectory
-from aspectus.validation.pair import ValidateParams, read_validation_manifest, validate_pair, validate_study
+from aspectus.validation.pair import ValidateParams, validate_pair
+from aspectus.validation.manifest import read_validation_manifest
+from aspectus.validation.study import validate_study
 
 FRAME_S = 1 / 30
 DURATION_S = 42.0

@@ -20,7 +20,9 @@ from aspectus.errors import AspectusInputError
 from aspectus.validation.pairing import bids_labels, pair_folders
 from aspectus.reference import write_demo_reference
 from aspectus.synth.trajectory import synth_trajectory
-from aspectus.validation.pair import ValidateParams, read_validation_manifest, validate_study
+from aspectus.validation.pair import ValidateParams
+from aspectus.validation.manifest import read_validation_manifest
+from aspectus.validation.study import validate_study
 
 PATTERN = r"(?P<participant>p\d+)_(?P<session>s\d+)"
 
@@ -273,7 +275,8 @@ def test_folder_study_cli(study, tmp_path, capsys):
 
 def test_summary_with_one_window_per_participant_shows_no_negative_df():
     """N - k - 1 = 2 - 2 - 1 < 1: the repeated-measures correlation has no estimate (Bakdash & Marusich 2017)."""
-    from aspectus.validation.pair import repeated_agreement_table, study_summary
+    from aspectus.validation.repeated import repeated_agreement_table
+    from aspectus.validation.summary import study_summary
 
     pairs = pd.DataFrame({"scope": "window", "participant": ["p01", "p02"], "paired": True,
                           "fixation_count_webcam": [30.0, 41.0], "fixation_count_reference": [31.0, 38.0]})

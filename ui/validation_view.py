@@ -9,7 +9,7 @@ and Bland-Altman plots; "Export report…" writes the library's HTML report.
 "Compare all clips" validates the whole study at once: every processed clip
 with a reference goes into a manifest (:func:`aspectus.studies.project.write_validation_manifest`,
 kept in the output folder so the command line can re-run it), and
-:func:`aspectus.validation.pair.validate_study` writes the per-participant and pooled
+:func:`aspectus.validation.study.validate_study` writes the per-participant and pooled
 results and the study report there (the folder is replaced only when the
 comparison is complete: :func:`aspectus.studies.project.run_study_validation`); the
 view shows the summary table. It shows its progress and can be cancelled.

@@ -80,7 +80,8 @@ def _mapping(args):
 
 def run(args) -> int:
     from aspectus.errors import ParameterError
-    from aspectus.validation.pair import ValidateParams, validate_pair, validate_study
+    from aspectus.validation.pair import ValidateParams, validate_pair
+    from aspectus.validation.study import validate_study
     from aspectus.cli.process_cmd import analysis_params_from_args
 
     mapping, screen = _mapping(args)
@@ -147,7 +148,7 @@ def _report_study(res) -> int:
 
 def _run_folders(args, params, screen, mapping) -> int:
     from aspectus.validation.pairing import pair_folders
-    from aspectus.validation.pair import validate_study
+    from aspectus.validation.study import validate_study
 
     pairing = pair_folders(args.webcam, args.reference, label_pattern=args.labels, tables=mapping is not None,
                            reference_glob=args.reference_glob)

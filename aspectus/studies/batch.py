@@ -46,30 +46,24 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
-import importlib
-import json
-import os
-import socket
 import sys
-import threading
 import time
-import traceback
 import uuid
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Callable
 
 import pandas as pd
 
 from aspectus import __version__
-from aspectus.atomic import sha256_file, write_csv, write_json, write_parquet
-from aspectus.errors import AspectusError, AspectusInputError, Cancelled
+from aspectus.atomic import write_csv, write_json, write_parquet
+from aspectus.run_record import read_run_json
 from aspectus.studies.clips import VIDEO_EXTENSIONS, ClipJob, load_jobs
+from aspectus.studies.board import _Board
+from aspectus.studies.done import clip_is_done, run_summary, _clean_partials  # noqa: F401 (clip_is_done re-exported)
+from aspectus.studies.state import AttemptLog, HashIndex, _out_dir_lock, _utc_now  # noqa: F401 (re-exported)
+from aspectus.studies.task import DEFAULT_CLIP_FN, run_clip_task  # noqa: F401 (re-exported)
 
-#: the per-clip function workers call, as "module:function"
-DEFAULT_CLIP_FN = "aspectus.webcam.pipeline:process_clip"
-#: outputs a finished clip folder must hold (besides run.json)
-REQUIRED_OUTPUTS = ("samples.parquet", "events.csv", "features.csv", "features.parquet")
 #: batch bookkeeping folder inside OUTDIR (clip keys never start with a dot)
 STATE_DIR = ".batch"
 #: status.csv is rewritten at least this often while a run goes on, s
@@ -80,387 +74,6 @@ STATUS_TAIL_COLUMNS = ("frames", "duration_s", "valid_frac", "usable", "verdict"
                        "input_sha256", "out_dir", "reference", "segments", "finished_utc")
 
 
-def _utc_now() -> str:
-    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
-
-
-# ------------------------------------------------------------------------------------------------
-# small on-disk state: hash index, attempts log, lock
-
-class HashIndex:
-    """Cache of clip SHA-256 keyed by absolute path, valid while (size, mtime_ns) stay the same.
-
-    Parameters
-    ----------
-    path : path-like
-        The JSON file that holds the index (written atomically).
-    """
-
-    def __init__(self, path):
-        self.path = Path(path)
-        self._d: dict[str, dict] = {}
-        self.dirty = False
-        try:
-            d = json.loads(self.path.read_text(encoding="utf-8"))
-            if isinstance(d, dict):
-                self._d = {k: v for k, v in d.items() if isinstance(v, dict)}
-        except (OSError, ValueError):
-            self._d = {}
-
-    @staticmethod
-    def _stat(p: Path) -> tuple[int, int]:
-        st = p.stat()
-        return int(st.st_size), int(st.st_mtime_ns)
-
-    def lookup(self, clip: Path) -> str | None:
-        """The cached hash if the file's size and mtime are unchanged, else None."""
-        e = self._d.get(str(clip))
-        if not e:
-            return None
-        try:
-            size, mtime = self._stat(clip)
-        except OSError:
-            return None
-        return e.get("sha256") if (e.get("size"), e.get("mtime_ns")) == (size, mtime) else None
-
-    def sha256(self, clip: Path) -> str:
-        """Hash of the clip, from the cache or computed (and cached)."""
-        h = self.lookup(clip)
-        if h is None:
-            before = self._stat(clip)
-            h = sha256_file(clip)
-            if self._stat(clip) == before:
-                self.put(clip, h, stat=before)
-        return h
-
-    def put(self, clip: Path, sha: str, *, stat: tuple[int, int] | None = None) -> None:
-        size, mtime = stat if stat is not None else self._stat(clip)
-        self._d[str(clip)] = {"size": size, "mtime_ns": mtime, "sha256": sha}
-        self.dirty = True
-
-    def save(self) -> None:
-        if self.dirty:
-            write_json(self.path, self._d)
-            self.dirty = False
-
-
-class AttemptLog:
-    """Append-only JSON-lines log of finished attempts, one fsynced line each.
-
-    A line torn by a kill (the last one) is ignored on reading, and the next
-    append starts on a fresh line.
-    """
-
-    def __init__(self, path):
-        self.path = Path(path)
-        self.path.parent.mkdir(parents=True, exist_ok=True)
-
-    def read(self) -> list[dict]:
-        out = []
-        try:
-            with open(self.path, encoding="utf-8", errors="replace") as fh:
-                for line in fh:
-                    line = line.strip()
-                    if not line:
-                        continue
-                    try:
-                        rec = json.loads(line)
-                    except ValueError:
-                        continue
-                    if isinstance(rec, dict):
-                        out.append(rec)
-        except FileNotFoundError:
-            pass
-        return out
-
-    def append(self, rec: dict) -> None:
-        data = (json.dumps(rec, sort_keys=True, default=str) + "\n").encode("utf-8")
-        fd = os.open(self.path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o644)
-        try:
-            size = os.fstat(fd).st_size
-            if size:
-                with open(self.path, "rb") as fh:
-                    fh.seek(size - 1)
-                    if fh.read(1) != b"\n":
-                        data = b"\n" + data
-            os.write(fd, data)
-            os.fsync(fd)
-        finally:
-            os.close(fd)
-
-
-@contextlib.contextmanager
-def _out_dir_lock(state_dir: Path):
-    """Hold an exclusive lock on OUTDIR for the run (released by the OS if the process dies)."""
-    state_dir.mkdir(parents=True, exist_ok=True)
-    lock_path = state_dir / "lock"
-    fh = open(lock_path, "a+")
-    try:
-        try:
-            import fcntl
-        except ImportError:  # Windows: no advisory lock; rely on the user
-            fcntl = None
-        if fcntl is not None:
-            try:
-                fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-            except OSError:
-                fh.seek(0)
-                who = fh.read().strip()
-                raise AspectusError(f"another batch run is using {state_dir.parent} ({who or 'unknown process'}); "
-                                   "wait for it to finish or stop it first") from None
-        fh.seek(0)
-        fh.truncate()
-        fh.write(f"pid {os.getpid()} on {socket.gethostname()} since {_utc_now()}\n")
-        fh.flush()
-        yield
-    finally:
-        fh.close()
-
-
-# ------------------------------------------------------------------------------------------------
-# what is on disk for one clip
-
-def read_run(out_dir) -> dict | None:
-    """A clip folder's ``run.json``, or None if absent or unreadable."""
-    try:
-        with open(Path(out_dir) / "run.json", encoding="utf-8") as fh:
-            d = json.load(fh)
-    except (OSError, ValueError):
-        return None
-    return d if isinstance(d, dict) else None
-
-
-def _listed_outputs(run: dict) -> dict[str, tuple[int | None, str | None]]:
-    """Output file name -> (expected size in bytes, expected SHA-256), None where unknown.
-
-    From run.json's ``outputs``, or the required outputs with nothing known.
-    """
-    outs = run.get("outputs")
-    got: dict[str, tuple[int | None, str | None]] = {}
-    if isinstance(outs, dict):
-        for name, info in outs.items():
-            info = info if isinstance(info, dict) else {}
-            size, sha = info.get("bytes"), info.get("sha256")
-            got[Path(name).name] = (int(size) if isinstance(size, (int, float)) else None,
-                                    sha if isinstance(sha, str) else None)
-    return got or {n: (None, None) for n in REQUIRED_OUTPUTS}
-
-
-def run_summary(run: dict) -> dict:
-    """The clip summary a run.json carries (``summary`` or ``quality``)."""
-    s = run.get("summary") or run.get("quality") or {}
-    return dict(s) if isinstance(s, dict) else {}
-
-
-def clip_is_done(out_dir, *, input_sha256: str, params_sha256: str, segments=None) -> tuple[bool, str]:
-    """Decide from the files whether a clip folder holds finished results for this input and parameters.
-
-    Parameters
-    ----------
-    out_dir : path-like
-        The clip's output folder.
-    input_sha256 : str
-        SHA-256 of the clip file now.
-    params_sha256 : str
-        :meth:`~aspectus.webcam.pipeline.ProcessParams.fingerprint` of the processing parameters now.
-    segments : path-like, optional
-        The clip's task-segments file now. The results must have been made
-        with the same file, and after its last change.
-
-    Every output run.json lists must be present with the size and SHA-256
-    recorded when it was written (a file damaged in place, even at the same
-    size, makes the clip be redone).
-
-    Returns
-    -------
-    (bool, str)
-        Whether it is done, and why not (empty when done).
-    """
-    out_dir = Path(out_dir)
-    run = read_run(out_dir)
-    if run is None:
-        return False, "not processed yet" if not out_dir.exists() else "not finished"
-    if run.get("input_sha256") != input_sha256:
-        return False, "clip file changed since it was processed"
-    if run.get("params_sha256") != params_sha256:
-        return False, "parameters changed since it was processed"
-    want_seg = str(Path(segments).resolve()) if segments is not None else None
-    had_seg = run.get("segments")
-    had_seg = str(Path(had_seg).resolve()) if had_seg else None
-    if want_seg != had_seg:
-        return False, "task segments file changed since it was processed"
-    if want_seg is not None:
-        try:
-            if Path(want_seg).stat().st_mtime_ns > (out_dir / "run.json").stat().st_mtime_ns:
-                return False, "task segments file edited since it was processed"
-        except OSError:
-            return False, "task segments file not readable"
-    bad = []
-    for name, (size, sha) in _listed_outputs(run).items():
-        p = out_dir / name
-        if not p.is_file():
-            bad.append(f"{name} missing")
-        elif size is not None and p.stat().st_size != size:
-            bad.append(f"{name} has {p.stat().st_size} bytes, not {size}")
-        elif sha is not None and sha256_file(p) != sha:
-            bad.append(f"{name} differs from what was written (SHA-256 changed)")
-    if bad:
-        return False, "output(s) damaged: " + ", ".join(bad)
-    return True, ""
-
-
-def _clean_partials(out_dir: Path) -> int:
-    """Remove temporary files (``.*.part``) left in a clip folder by a killed attempt."""
-    n = 0
-    if out_dir.is_dir():
-        for p in out_dir.glob(".*.part"):
-            with contextlib.suppress(OSError):
-                p.unlink()
-                n += 1
-    return n
-
-
-# ------------------------------------------------------------------------------------------------
-# the task a worker runs for one clip
-
-def _resolve_fn(spec: str | Callable) -> Callable:
-    if callable(spec):
-        return spec
-    mod, _, name = spec.partition(":")
-    return getattr(importlib.import_module(mod), name)
-
-
-def run_clip_task(payload: dict, progress, cancel) -> dict:
-    """Process one clip in a worker; never raises for a clip's own problems.
-
-    Parameters
-    ----------
-    payload : dict
-        ``clip``, ``out_dir`` (absolute paths as str), ``params`` (a
-        ProcessParams), ``segments`` (path or None), ``clip_fn``
-        ("module:function" with :func:`aspectus.webcam.pipeline.process_clip`'s
-        signature).
-    progress : callable
-        ``progress(fraction, message)``.
-    cancel : object with ``is_set()``
-        Stop flag passed on to the per-clip function.
-
-    Returns
-    -------
-    dict
-        ``status`` ("done", "failed" or "pending"), ``reason``, ``kind``
-        ("input", "internal" or ""), ``summary`` (dict), ``elapsed_s``,
-        ``host``, and ``traceback`` for internal errors.
-    """
-    t0 = time.monotonic()
-    # several workers on one machine would all put their background work on the same CPU
-    # (aspectus._env.background_cpus): let the operating system place it
-    os.environ["ASPECTUS_PIN_BACKGROUND"] = "0"
-    clip = Path(payload["clip"])
-    out = Path(payload["out_dir"])
-    base = {"host": socket.gethostname(), "summary": {}, "kind": "", "reason": ""}
-    try:
-        if not clip.is_file():
-            raise AspectusInputError(f"clip not found on worker {socket.gethostname()}", path=clip,
-                                    hint="workers need the clips on a shared filesystem under the same path")
-        _clean_partials(out)
-        segments = payload.get("segments") or None  # a path: the pipeline reads it and records it in run.json
-        fn = _resolve_fn(payload.get("clip_fn") or DEFAULT_CLIP_FN)
-        res = fn(clip, out, params=payload["params"], segments=segments, progress=progress, cancel=cancel)
-        summary = dict(getattr(res, "summary", None) or {})
-        return {**base, "status": "done", "summary": summary, "elapsed_s": time.monotonic() - t0}
-    except Cancelled:
-        return {**base, "status": "pending", "reason": "stopped before it finished", "elapsed_s": time.monotonic() - t0}
-    except AspectusInputError as exc:
-        return {**base, "status": "failed", "kind": "input", "reason": str(exc), "elapsed_s": time.monotonic() - t0}
-    except MemoryError:
-        return {**base, "status": "failed", "kind": "internal", "reason": "out of memory while processing",
-                "elapsed_s": time.monotonic() - t0}
-    except Exception as exc:  # noqa: BLE001 - reported per clip, the batch goes on
-        return {**base, "status": "failed", "kind": "internal",
-                "reason": f"internal error: {type(exc).__name__}: {exc}",
-                "traceback": "".join(traceback.format_exception(exc)), "elapsed_s": time.monotonic() - t0}
-
-
-# ------------------------------------------------------------------------------------------------
-# progress display
-
-class _Board:
-    """Study bar plus one bar per worker (tqdm), fed from engine threads; time remaining from tqdm."""
-
-    def __init__(self, *, weights: dict[str, float], n_workers: int, enabled: bool,
-                 callback: Callable[[float, str], None] | None):
-        self.weights = weights
-        self.total = sum(weights.values()) or 1.0
-        self.frac: dict[str, float] = {}
-        self.counts = {"done": 0, "failed": 0, "pending": 0}
-        self.n_all = len(weights)
-        self.callback = callback
-        self.enabled = enabled
-        self.worker_bars: dict[str, Any] = {}
-        self.n_workers = max(1, n_workers)
-        self.bar = None
-        self._lock = threading.Lock()  # fed from the engine's progress thread and the coordinator
-        if enabled:
-            from aspectus.cli.progress_bar import ProgressBar
-
-            self._tqdm = ProgressBar
-            self.bar = ProgressBar(total=1000, desc="study", position=0, leave=True, dynamic_ncols=True,
-                            bar_format="{desc} {percentage:3.0f}%|{bar}| [{elapsed}<{remaining}]")
-            self._postfix()
-
-    def _postfix(self) -> None:
-        if self.bar is not None:
-            c = self.counts
-            self.bar.set_description_str(f"study: {c['done'] + c['failed']}/{self.n_all} clips, {c['failed']} failed",
-                                         refresh=False)
-
-    def _overall(self) -> float:
-        return sum(self.weights.get(k, 0.0) * f for k, f in self.frac.items()) / self.total
-
-    def _push(self, message: str) -> None:
-        share = self._overall()
-        if self.bar is not None:
-            n = int(round(share * 1000))
-            if n > self.bar.n:
-                self.bar.update(n - self.bar.n)
-            self._postfix()
-            self.bar.refresh()
-        if self.callback is not None:
-            with contextlib.suppress(Exception):
-                self.callback(share, message)
-
-    def on_progress(self, ev) -> None:
-        with self._lock:
-            self._on_progress(ev)
-
-    def _on_progress(self, ev) -> None:
-        self.frac[ev.key] = max(self.frac.get(ev.key, 0.0), min(1.0, float(ev.fraction)) * 0.999)
-        if self.bar is not None:
-            wb = self.worker_bars.get(ev.worker)
-            if wb is None and len(self.worker_bars) < 16:
-                wb = self._tqdm(total=100, position=len(self.worker_bars) + 1, leave=False, dynamic_ncols=True,
-                                bar_format="  {desc} {percentage:3.0f}%|{bar}|")
-                self.worker_bars[ev.worker] = wb
-            if wb is not None:
-                msg = ev.message.split(": ", 1)[-1] if ev.message.startswith(ev.key) else ev.message
-                wb.set_description_str(f"{ev.key[:28]}: {msg[:36]:<36}", refresh=False)
-                wb.n = int(round(100 * min(1.0, ev.fraction)))
-                wb.refresh()
-        self._push(f"{ev.key}: {ev.message}")
-
-    def finished(self, key: str, status: str) -> None:
-        with self._lock:
-            self.frac[key] = 1.0
-            if status in self.counts:
-                self.counts[status] += 1
-            self._push(f"{key}: {status}")
-
-    def close(self) -> None:
-        for wb in self.worker_bars.values():
-            wb.close()
-        if self.bar is not None:
-            self.bar.close()
 
 
 # ------------------------------------------------------------------------------------------------
@@ -587,7 +200,7 @@ def build_study_table(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
 
 
 def validation_manifest(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
-    """Finished clips that have a reference, as a manifest for :func:`aspectus.validation.pair.validate_study`.
+    """Finished clips that have a reference, as a manifest for :func:`aspectus.validation.study.validate_study`.
 
     Columns ``webcam`` (the clip's output folder, relative to ``out_dir``),
     ``reference`` (absolute), ``participant`` (the clip key when the clip has
@@ -684,7 +297,7 @@ def _prepare(source, out_dir: Path, *, params, extensions, recursive, label_patt
             row.status, row.reason = "failed", "clip file is empty (0 bytes)"
             continue
         clip_out = out_dir / job.key
-        run = read_run(clip_out)
+        run = read_run_json(clip_out)
         if run is not None:
             row.input_sha256 = index.sha256(job.clip)
             done, why = clip_is_done(clip_out, input_sha256=row.input_sha256, params_sha256=params_sha,
@@ -811,7 +424,7 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
                 row.elapsed_s = res.get("elapsed_s")
                 row.finished_utc = _utc_now()
                 if row.status == "done":
-                    run = read_run(out_dir / row.job.key) or {}
+                    run = read_run_json(out_dir / row.job.key) or {}
                     sha = run.get("input_sha256")
                     try:
                         now_stat = index._stat(row.job.clip)

@@ -36,16 +36,16 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from aspectus.labels import labels_from_path  # noqa: F401 (re-exported)
+from aspectus.webcam.video import VIDEO_EXTENSIONS
 from aspectus.errors import AspectusInputError
 
 #: file extensions searched for when a batch is given a folder
-VIDEO_EXTENSIONS = (".mp4", ".mov", ".m4v", ".avi", ".mkv", ".webm", ".wmv", ".mpg", ".mpeg")
 
 #: manifest columns with a fixed meaning; all others become labels
 MANIFEST_PATH_COLUMNS = ("clip", "reference", "segments")
 MANIFEST_LABEL_COLUMNS = ("participant", "session")
 
-_BIDS_ENTITY = re.compile(r"(?:^|[_/\\])(sub|ses)-([A-Za-z0-9]+)")
 _UNSAFE = re.compile(r"[^A-Za-z0-9._+-]+")
 
 
@@ -155,35 +155,6 @@ def assign_keys(jobs: list[ClipJob]) -> list[ClipJob]:
             raise AspectusInputError(f"clips map to the same output folder name(s) {', '.join(dup)}",
                                     hint="rename one of the clips")
     return [j.with_key(k) for j, k in zip(jobs, keys)]
-
-
-def labels_from_path(rel: str, *, pattern: str | None = None) -> dict:
-    """Labels encoded in a clip's relative path.
-
-    Parameters
-    ----------
-    rel : str
-        Path of the clip relative to the searched folder.
-    pattern : str, optional
-        Regular expression with named groups (e.g.
-        ``r"(?P<participant>p\\d+)_(?P<session>s\\d+)"``), searched in the
-        relative path with ``/`` separators. Without it, BIDS-style entities
-        ``sub-<label>`` and ``ses-<label>`` give participant and session.
-
-    Returns
-    -------
-    dict
-        ``participant``/``session`` and any other named groups found; missing
-        ones are absent.
-    """
-    rel = rel.replace("\\", "/")
-    if pattern:
-        m = re.search(pattern, rel)
-        return {k: v for k, v in (m.groupdict() if m else {}).items() if v is not None}
-    out: dict = {}
-    for ent, val in _BIDS_ENTITY.findall(rel):
-        out["participant" if ent == "sub" else "session"] = val
-    return out
 
 
 def discover_clips(folder, *, extensions=VIDEO_EXTENSIONS, recursive: bool = True,

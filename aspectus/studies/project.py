@@ -18,12 +18,15 @@ from __future__ import annotations
 
 import json
 import os
-import re
 from dataclasses import asdict, dataclass, field
 from pathlib import Path, PurePosixPath
 from typing import Any, Iterable
 
 from aspectus.atomic import write_json
+from aspectus.labels import guess_labels, safe_label
+from aspectus.reference import is_bids_physio
+from aspectus.run_record import read_run_json
+from aspectus.webcam.video import VIDEO_EXTENSIONS
 from aspectus.errors import AspectusInputError
 
 #: value of the ``format`` key that marks a aspectus study file
@@ -34,7 +37,6 @@ STUDY_VERSION = 1
 STUDY_SUFFIX = ".aspectus-study.json"
 
 #: container extensions picked up when a whole folder is added
-VIDEO_EXTENSIONS = (".mp4", ".mov", ".avi", ".mkv", ".webm", ".m4v")
 
 #: clip status values
 STATUS_NEW = "not processed"
@@ -361,21 +363,11 @@ def _process_params_match(run_params: dict, study_process: dict) -> bool:
     return all(rp.get(k) == v for k, v in sp.items() if k in rp)
 
 
-def read_run_json(out_dir: Path) -> dict | None:
-    """The clip's ``run.json`` (present = processing finished), or None if absent or unreadable."""
-    p = Path(out_dir) / "run.json"
-    try:
-        with open(p, encoding="utf-8") as fh:
-            d = json.load(fh)
-    except (OSError, ValueError):
-        return None
-    return d if isinstance(d, dict) else None
-
-
 def guess_reference_kind(path: Path) -> str:
     """``"bids"`` for a BIDS physio file or its sidecar, else ``"table"``."""
-    name = Path(path).name.lower()
-    if name.endswith("_physio.tsv.gz") or name.endswith("_physio.json") or name.endswith("_physio.tsv"):
+    p = Path(path)
+    if is_bids_physio(p) or is_bids_physio(p.with_name(p.name[:-len(".json")] + ".tsv.gz")
+                                           if p.name.lower().endswith(".json") else p):
         return "bids"
     return "table"
 
@@ -472,48 +464,10 @@ def missing_files(study: Study) -> list[str]:
     return out
 
 
-_LABEL_SAFE = re.compile(r"[^A-Za-z0-9_.-]+")
-
-
-def _safe_label(v: str) -> str:
-    """A label as the validation output folders need it: letters, digits, ``_ . -`` only."""
-    return _LABEL_SAFE.sub("-", str(v)).strip("-_.")
-
-
-def _clip_labels(stem: str) -> dict:
-    """participant/session of a clip, guessed from its file name.
-
-    BIDS ``sub-``/``ses-`` entities if present; else a ``p<digits>`` part is
-    the participant and an ``s<digits>`` part the session; else the name
-    without its session part is the participant (``anna_s1`` and ``anna_s2``
-    are one participant, two sessions). Labels are cleaned to letters,
-    digits and ``_ . -`` (an empty result is left empty for the caller).
-    """
-    from aspectus.validation.pairing import bids_labels
-
-    try:
-        labels = bids_labels(stem)
-    except AspectusInputError:
-        labels = {}
-    ses_match = None
-    if "session" not in labels:
-        ses_match = re.search(r"(?:^|[_-])(s\d+)(?=$|[_-])", stem)
-        if ses_match:
-            labels["session"] = ses_match.group(1)
-    if "participant" not in labels:
-        m = re.search(r"(?:^|[_-])(p\d+)(?=$|[_-])", stem)
-        if m:
-            labels["participant"] = m.group(1)
-        else:
-            rest = stem if ses_match is None else stem[:ses_match.start()] + stem[ses_match.end():]
-            labels["participant"] = rest
-    return {k: _safe_label(v) for k, v in labels.items()}
-
-
 def write_validation_manifest(study: Study, path: str | os.PathLike) -> tuple[Path, list[str]]:
     """Write a validation manifest for every processed clip of ``study`` that has a reference recording.
 
-    The manifest (read by :func:`aspectus.validation.pair.read_validation_manifest`,
+    The manifest (read by :func:`aspectus.validation.manifest.read_validation_manifest`,
     so ``aspectus validate --manifest`` can re-run the same comparison) pairs
     each clip's result folder with its reference; a plain reference table's
     column mapping is written beside it as ``mappings/<clip stem>.json``.
@@ -558,7 +512,7 @@ def write_validation_manifest(study: Study, path: str | os.PathLike) -> tuple[Pa
                 continue
             TableMapping.from_dict(clip.reference.mapping).save(path.parent / "mappings" / f"{clip.stem}.json")
             mapping = f"mappings/{clip.stem}.json"  # relative to the manifest, so the folder can move
-        labels = _clip_labels(clip.stem)
+        labels = guess_labels(clip.stem)
         rows.append({"webcam": str(out), "reference": str(ref), "participant": labels["participant"],
                      "session": labels.get("session", ""), "task": labels.get("task", ""),
                      "run": labels.get("run", ""), "mapping": mapping,
@@ -577,7 +531,7 @@ def write_validation_manifest(study: Study, path: str | os.PathLike) -> tuple[Pa
     labels = ["participant", "session", "task", "run"]
     key = df[labels].agg("_".join, axis=1)
     dup = key.duplicated(keep=False)
-    df.loc[dup, "session"] = [_safe_label(Path(w).name) for w in df.loc[dup, "webcam"]]
+    df.loc[dup, "session"] = [safe_label(Path(w).name) for w in df.loc[dup, "webcam"]]
     key = df[labels].agg("_".join, axis=1)
     seen: dict[str, int] = {}
     for i, k in enumerate(key):
@@ -592,7 +546,7 @@ def run_study_validation(study: Study, out_dir: str | os.PathLike, *, params=Non
     """Validate every processed clip of ``study`` that has a reference; results replace ``out_dir`` only when complete.
 
     Writes the manifest (:func:`write_validation_manifest`) and the study
-    validation (:func:`aspectus.validation.pair.validate_study`) into a sibling
+    validation (:func:`aspectus.validation.study.validate_study`) into a sibling
     folder ``.<name>.partial`` and only when everything is written swaps it
     for ``out_dir``; a run that fails or is cancelled (``progress`` raising
     :class:`aspectus.errors.Cancelled`) removes its partial folder and leaves
@@ -604,7 +558,9 @@ def run_study_validation(study: Study, out_dir: str | os.PathLike, *, params=Non
     """
     import shutil
 
-    from aspectus.validation.pair import ValidateParams, validate_study
+    from aspectus.validation.pair import ValidateParams
+
+    from aspectus.validation.study import validate_study
 
     out = Path(out_dir)
     part = out.parent / f".{out.name}.partial"

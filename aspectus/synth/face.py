@@ -14,18 +14,18 @@ from dataclasses import dataclass
 import numpy as np
 
 from aspectus.errors import ParameterError
+from aspectus.face_mesh import (EYES, LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING,
+                                eye_contour_lower_first)
 
 #: faces :func:`load_face` knows
 FACES = ("hopper", "astronaut")
 
 #: MediaPipe eye contours: outer corner, 7 lower-lid points, inner corner, 7 upper-lid points (inner to outer)
-RIGHT_EYE_CONTOUR = (33, 7, 163, 144, 145, 153, 154, 155, 133, 173, 157, 158, 159, 160, 161, 246)
-LEFT_EYE_CONTOUR = (263, 249, 390, 373, 374, 380, 381, 382, 362, 398, 384, 385, 386, 387, 388, 466)
+RIGHT_EYE_CONTOUR = eye_contour_lower_first("right")
+LEFT_EYE_CONTOUR = eye_contour_lower_first("left")
 #: iris centre and its four rim points (rim: temporal/up/nasal/down order as MediaPipe gives them)
-RIGHT_IRIS = (468, 469, 470, 471, 472)
-LEFT_IRIS = (473, 474, 475, 476, 477)
-#: eye keys: the subject's own right and left eye
-EYES = ("right", "left")
+RIGHT_IRIS = (RIGHT_IRIS_CENTRE, *RIGHT_IRIS_RING)
+LEFT_IRIS = (LEFT_IRIS_CENTRE, *LEFT_IRIS_RING)
 EYE_CONTOUR = {"right": RIGHT_EYE_CONTOUR, "left": LEFT_EYE_CONTOUR}
 EYE_IRIS = {"right": RIGHT_IRIS, "left": LEFT_IRIS}
 

@@ -52,6 +52,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from aspectus._env import import_cv2
+from aspectus.geometry import focal_length_px
 from aspectus.synth.face import EYE_CONTOUR, EYE_IRIS, EYES, IRIS_DIAMETER_MM, FacePhoto
 
 #: eyeball radius, mm (Bekerman, Gottlieb & Vaiman 2014 - field notes, from memory)
@@ -111,7 +112,7 @@ class Camera:
 
     @property
     def focal_px(self) -> float:
-        return (self.width_px / 2.0) / np.tan(np.radians(self.fov_deg) / 2.0)
+        return focal_length_px(width_px=self.width_px, fov_deg=self.fov_deg)
 
     @property
     def centre_px(self) -> tuple[float, float]:

@@ -1,7 +1,7 @@
 """Folder mode of the study validation: pair processed clips with reference recordings by their names.
 
 ``aspectus validate WEBCAM_FOLDER REFERENCE_FOLDER -o OUT`` (and
-:func:`aspectus.validation.pair.validate_study` given two folders) calls
+:func:`aspectus.validation.study.validate_study` given two folders) calls
 :func:`pair_folders`, which
 
 1. finds the processed clips: the sub-folders of ``WEBCAM_FOLDER`` that hold
@@ -49,17 +49,17 @@ from pathlib import Path
 
 import pandas as pd
 
+from aspectus.labels import LABEL_KEYS, bids_labels, pattern_labels
+from aspectus.reference import is_bids_physio
 from aspectus.errors import AspectusInputError
+from aspectus.run_record import read_run_json
+from aspectus.validation.manifest import StudyRow
 
 #: labels used for pairing, in order of importance
-LABEL_KEYS = ("participant", "session", "task", "run")
-_ENTITY_KEY = {"sub": "participant", "ses": "session", "task": "task", "run": "run"}
-_ENTITY = re.compile(r"(?:^|[_/\\])(sub|ses|task|run)-([A-Za-z0-9]+)(?=[_./\\]|$)")
 #: BIDS folders that do not hold raw recordings
 SKIP_DIRS = ("derivatives", "sourcedata")
 #: suffixes of plain tables that can be references (with a column mapping)
 TABLE_SUFFIXES = (".csv", ".tsv", ".txt", ".csv.gz", ".tsv.gz", ".txt.gz")
-_BIDS_PHYSIO = re.compile(r"_physio\.tsv(\.gz)?$")
 #: BIDS tables that are never gaze recordings
 _BIDS_OTHER = re.compile(r"(_physioevents|_events|_channels|_scans|_sessions|_beh)\.tsv(\.gz)?$|^participants\.tsv$")
 _MANIFEST_HINT = ("write a manifest CSV (columns webcam, reference, participant, session) and run "
@@ -67,35 +67,8 @@ _MANIFEST_HINT = ("write a manifest CSV (columns webcam, reference, participant,
                   "start, or narrow the references with --reference-glob")
 
 
-def bids_labels(rel: str, *, source=None) -> dict:
-    """``participant``/``session``/``task``/``run`` from BIDS entities in a relative path.
-
-    Entities of the file name take precedence over those of its folders; a
-    folder that disagrees with the name (``sub-p01/sub-p02_...``) is an error.
-    """
-    rel = str(rel).replace("\\", "/")
-    parts = rel.split("/")
-    out: dict = {}
-    for part in parts[:-1]:
-        for ent, val in _ENTITY.findall(part):
-            out[_ENTITY_KEY[ent]] = val
-    for ent, val in _ENTITY.findall(parts[-1]):
-        key = _ENTITY_KEY[ent]
-        if key in out and out[key] != val:
-            raise AspectusInputError(f"its folder says {ent}-{out[key]} but its name says {ent}-{val}",
-                                    path=source or rel, hint="rename the file or its folder so they agree, or "
-                                    "pair the files in a manifest (--manifest)")
-        out[key] = val
-    return out
-
-
-def pattern_labels(text: str, pattern: str | None) -> dict:
-    """Named groups of ``pattern`` found in ``text`` (as :func:`aspectus.studies.clips.labels_from_path`)."""
-    from aspectus.studies.clips import labels_from_path
-
-    if not pattern:
-        return {}
-    return {k: v for k, v in labels_from_path(text, pattern=pattern).items() if k in LABEL_KEYS and v}
+def _pattern(text: str, pattern: str | None) -> dict:
+    return {k: v for k, v in pattern_labels(text, pattern).items() if k in LABEL_KEYS and v}
 
 
 def _stem(name: str) -> str:
@@ -166,8 +139,8 @@ class FolderPairing:
     # ------------------------------------------------------------------ rows for the study
 
     def rows(self) -> list:
-        """The pairs as :class:`aspectus.validation.pair.StudyRow` (participant, session, task, run from the labels)."""
-        from aspectus.validation.pair import StudyRow
+        """The pairs as :class:`aspectus.validation.manifest.StudyRow` (participant, session, task, run from the labels)."""
+
 
         rows, seen = [], {}
         for p in self.pairs:
@@ -330,7 +303,7 @@ def find_clip_folders(folder, *, label_pattern: str | None = None
     ignored : list of (path, reason)
         Other sub-folders.
     """
-    from aspectus.webcam.pipeline import read_run_json
+
 
     root = Path(folder)
     if not root.is_dir():
@@ -353,7 +326,7 @@ def find_clip_folders(folder, *, label_pattern: str | None = None
             continue
         run = read_run_json(d) or {}
         clip = run.get("clip")
-        labels, source = pattern_labels(d.name, label_pattern), "--labels"
+        labels, source = _pattern(d.name, label_pattern), "--labels"
         if not labels.get("participant") and st is not None:
             labels = {k: st.get(k) for k in LABEL_KEYS if st.get(k)}
             source = "status.csv"
@@ -397,7 +370,7 @@ def find_references(folder, *, tables: bool = False, label_pattern: str | None =
                 continue
             p = Path(dirpath) / name
             rel = p.relative_to(root).as_posix()
-            if _BIDS_PHYSIO.search(name):
+            if is_bids_physio(name):
                 kind = "bids"
             elif name.lower().endswith(TABLE_SUFFIXES) and not _BIDS_OTHER.search(name):
                 kind = "table"
@@ -410,7 +383,7 @@ def find_references(folder, *, tables: bool = False, label_pattern: str | None =
             if reference_glob and not (fnmatch.fnmatch(name, reference_glob) or fnmatch.fnmatch(rel, reference_glob)):
                 ignored.append((p, f"does not match --reference-glob {reference_glob}"))
                 continue
-            labels, source = pattern_labels(rel, label_pattern), "--labels"
+            labels, source = _pattern(rel, label_pattern), "--labels"
             if not labels.get("participant"):
                 labels, source = bids_labels(rel, source=p), "BIDS names"
             refs.append(ReferenceFile(path=p, rel=rel, kind=kind, labels=labels,

@@ -39,19 +39,9 @@ import numpy as np
 from aspectus._env import import_mediapipe, native_stderr_silenced, quiet_native_logs
 from aspectus.errors import ParameterError
 
-N_LANDMARKS = 478
-RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE = 468, 473
-RIGHT_IRIS_RING = (469, 470, 471, 472)
-LEFT_IRIS_RING = (474, 475, 476, 477)
-RIGHT_EYE_CORNERS = (33, 133)
-LEFT_EYE_CORNERS = (263, 362)
-RIGHT_EAR_POINTS = (33, 160, 158, 133, 153, 144)
-LEFT_EAR_POINTS = (362, 385, 387, 263, 373, 380)
-#: eye-opening outlines (upper and lower lid), for drawing and for the iris refinement mask
-RIGHT_EYE_OUTLINE = (33, 246, 161, 160, 159, 158, 157, 173, 133, 155, 154, 153, 145, 144, 163, 7)
-LEFT_EYE_OUTLINE = (362, 398, 384, 385, 386, 387, 388, 466, 263, 249, 390, 373, 374, 380, 381, 382)
-FACE_OVAL = (10, 338, 297, 332, 284, 251, 389, 356, 454, 323, 361, 288, 397, 365, 379, 378, 400, 377, 152,
-             148, 176, 149, 150, 136, 172, 58, 132, 93, 234, 127, 162, 21, 54, 103, 67, 109)
+from aspectus.face_mesh import (FACE_OVAL, LEFT_EAR_POINTS, LEFT_EYE_CORNERS, LEFT_EYE_OUTLINE,  # noqa: F401 (re-exported)
+                                LEFT_IRIS_CENTRE, LEFT_IRIS_RING, N_LANDMARKS, RIGHT_EAR_POINTS, RIGHT_EYE_CORNERS,
+                                RIGHT_EYE_OUTLINE, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING)
 
 
 @dataclass

@@ -22,19 +22,15 @@ import numpy as np
 
 from aspectus._env import import_cv2
 
-#: face outline, in drawing order
-FACE_OVAL = (10, 338, 297, 332, 284, 251, 389, 356, 454, 323, 361, 288, 397, 365, 379, 378, 400, 377, 152,
-             148, 176, 149, 150, 136, 172, 58, 132, 93, 234, 127, 162, 21, 54, 103, 67, 109)
-#: subject's left eye lid contour (picture right in an unmirrored clip)
-LEFT_EYE = (263, 249, 390, 373, 374, 380, 381, 382, 362, 398, 384, 385, 386, 387, 388, 466)
-#: subject's right eye lid contour
-RIGHT_EYE = (33, 7, 163, 144, 145, 153, 154, 155, 133, 173, 157, 158, 159, 160, 161, 246)
-#: iris rings and centres
-LEFT_IRIS = (474, 475, 476, 477)
-RIGHT_IRIS = (469, 470, 471, 472)
-LEFT_IRIS_CENTRE = 473
-RIGHT_IRIS_CENTRE = 468
-N_LANDMARKS = 478
+from aspectus.face_mesh import (FACE_OVAL, LEFT_IRIS_CENTRE, LEFT_IRIS_RING, N_LANDMARKS,  # noqa: F401 (re-exported)
+                                RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING, eye_contour_lower_first)
+from aspectus.geometry import focal_length_px, project_point  # noqa: F401 (re-exported)
+
+#: lid contours of the subject's left and right eye, and the iris rings, in drawing order
+LEFT_EYE = eye_contour_lower_first("left")
+RIGHT_EYE = eye_contour_lower_first("right")
+LEFT_IRIS = LEFT_IRIS_RING
+RIGHT_IRIS = RIGHT_IRIS_RING
 
 #: a face is about this wide and tall (mm) for the blur box when only the head position is known
 FACE_WIDTH_MM = 160.0
@@ -95,20 +91,6 @@ def _grow_clip(box, *, margin: float, shape: tuple[int, int]):
     if x1 <= x0 or y1 <= y0:
         return None
     return x0, y0, x1, y1
-
-
-def focal_length_px(*, width_px: int, fov_deg: float = 60.0) -> float:
-    """Pinhole focal length in px from the picture width and the assumed horizontal field of view (deg)."""
-    return (width_px / 2.0) / math.tan(math.radians(fov_deg) / 2.0)
-
-
-def project_point(*, x_mm: float, y_mm: float, z_mm: float, shape: tuple[int, int], fov_deg: float = 60.0):
-    """Camera-frame point (mm, :mod:`aspectus.schema` frame) to picture px ``(u, v)``; None if behind the camera."""
-    if not (np.isfinite(x_mm) and np.isfinite(y_mm) and np.isfinite(z_mm)) or z_mm <= 0:
-        return None
-    H, W = shape[:2]
-    f = focal_length_px(width_px=W, fov_deg=fov_deg)
-    return W / 2.0 + f * x_mm / z_mm, H / 2.0 + f * y_mm / z_mm
 
 
 def face_box_from_head(*, head_x_mm: float, head_y_mm: float, head_z_mm: float, shape: tuple[int, int],

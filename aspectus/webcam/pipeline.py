@@ -26,7 +26,6 @@ table (about 300 bytes per frame), never by frames.
 from __future__ import annotations
 
 import datetime as _dt
-import json
 import platform
 import sys
 import time
@@ -40,6 +39,7 @@ import pandas as pd
 from aspectus import __version__
 from aspectus.atomic import sha256_file, sha256_json, write_csv, write_json, write_parquet
 from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
+from aspectus.run_record import read_run_json, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import GazeParams, estimate_gaze
 from aspectus.webcam.frame_geometry import RECORD_WIDTH, frame_item, start_geometry
@@ -365,8 +365,7 @@ def _segments_frame(segments):
     return read_segments(segments)
 
 
-def _run_json_path(out_dir: Path) -> Path:
-    return Path(out_dir) / "run.json"
+_run_json_path = run_json_path
 
 
 def _withdraw_run_json(out_dir: Path) -> None:
@@ -381,16 +380,6 @@ def _withdraw_run_json(out_dir: Path) -> None:
         _run_json_path(Path(out_dir)).unlink()
     except FileNotFoundError:
         pass
-
-
-def read_run_json(out_dir) -> dict | None:
-    p = _run_json_path(Path(out_dir))
-    if not p.exists():
-        return None
-    try:
-        return json.loads(p.read_text())
-    except (OSError, ValueError):
-        return None
 
 
 class CacheError(AspectusInputError):

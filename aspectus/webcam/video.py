@@ -25,8 +25,15 @@ import numpy as np
 
 from aspectus.errors import Cancelled, VideoError
 
-#: container extensions aspectus looks for when it scans folders
-VIDEO_EXTENSIONS = (".mp4", ".mov", ".avi", ".mkv", ".webm", ".m4v")
+#: container extensions that count as clips wherever aspectus looks for them (batch, the app's
+#: "Add folder", validation's folder pairing): the one list
+VIDEO_EXTENSIONS = (".mp4", ".mov", ".m4v", ".avi", ".mkv", ".webm", ".wmv", ".mpg", ".mpeg")
+
+
+def is_video_file(path) -> bool:
+    """True for an existing regular file whose extension is in :data:`VIDEO_EXTENSIONS` (case-insensitive)."""
+    p = Path(path)
+    return p.suffix.lower() in VIDEO_EXTENSIONS and p.is_file()
 
 #: decoded pictures larger than this many pixels are refused (8K UHD is 33 Mpx)
 MAX_PIXELS = 40_000_000

@@ -145,7 +145,7 @@ def read_manifest_target(data: bytes, folder: Path):
 
 
 def read_validation_manifest_target(data: bytes, folder: Path):
-    from aspectus.validation.pair import read_validation_manifest
+    from aspectus.validation.manifest import read_validation_manifest
 
     p = _write(folder, "validation_manifest.csv", data)
     read_validation_manifest(p)

@@ -1,0 +1,79 @@
+"""The task a batch worker runs for one clip."""
+from __future__ import annotations
+
+import importlib
+import os
+import socket
+import time
+import traceback
+from pathlib import Path
+from typing import Callable
+
+
+from aspectus.errors import AspectusInputError, Cancelled
+from aspectus.studies.done import _clean_partials
+
+#: the per-clip function workers call, as "module:function"
+DEFAULT_CLIP_FN = "aspectus.webcam.pipeline:process_clip"
+
+
+
+
+
+def _resolve_fn(spec: str | Callable) -> Callable:
+    if callable(spec):
+        return spec
+    mod, _, name = spec.partition(":")
+    return getattr(importlib.import_module(mod), name)
+
+
+def run_clip_task(payload: dict, progress, cancel) -> dict:
+    """Process one clip in a worker; never raises for a clip's own problems.
+
+    Parameters
+    ----------
+    payload : dict
+        ``clip``, ``out_dir`` (absolute paths as str), ``params`` (a
+        ProcessParams), ``segments`` (path or None), ``clip_fn``
+        ("module:function" with :func:`aspectus.webcam.pipeline.process_clip`'s
+        signature).
+    progress : callable
+        ``progress(fraction, message)``.
+    cancel : object with ``is_set()``
+        Stop flag passed on to the per-clip function.
+
+    Returns
+    -------
+    dict
+        ``status`` ("done", "failed" or "pending"), ``reason``, ``kind``
+        ("input", "internal" or ""), ``summary`` (dict), ``elapsed_s``,
+        ``host``, and ``traceback`` for internal errors.
+    """
+    t0 = time.monotonic()
+    # several workers on one machine would all put their background work on the same CPU
+    # (aspectus._env.background_cpus): let the operating system place it
+    os.environ["ASPECTUS_PIN_BACKGROUND"] = "0"
+    clip = Path(payload["clip"])
+    out = Path(payload["out_dir"])
+    base = {"host": socket.gethostname(), "summary": {}, "kind": "", "reason": ""}
+    try:
+        if not clip.is_file():
+            raise AspectusInputError(f"clip not found on worker {socket.gethostname()}", path=clip,
+                                    hint="workers need the clips on a shared filesystem under the same path")
+        _clean_partials(out)
+        segments = payload.get("segments") or None  # a path: the pipeline reads it and records it in run.json
+        fn = _resolve_fn(payload.get("clip_fn") or DEFAULT_CLIP_FN)
+        res = fn(clip, out, params=payload["params"], segments=segments, progress=progress, cancel=cancel)
+        summary = dict(getattr(res, "summary", None) or {})
+        return {**base, "status": "done", "summary": summary, "elapsed_s": time.monotonic() - t0}
+    except Cancelled:
+        return {**base, "status": "pending", "reason": "stopped before it finished", "elapsed_s": time.monotonic() - t0}
+    except AspectusInputError as exc:
+        return {**base, "status": "failed", "kind": "input", "reason": str(exc), "elapsed_s": time.monotonic() - t0}
+    except MemoryError:
+        return {**base, "status": "failed", "kind": "internal", "reason": "out of memory while processing",
+                "elapsed_s": time.monotonic() - t0}
+    except Exception as exc:  # noqa: BLE001 - reported per clip, the batch goes on
+        return {**base, "status": "failed", "kind": "internal",
+                "reason": f"internal error: {type(exc).__name__}: {exc}",
+                "traceback": "".join(traceback.format_exception(exc)), "elapsed_s": time.monotonic() - t0}
