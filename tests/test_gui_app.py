@@ -436,7 +436,7 @@ def test_compare_all_clips_uses_given_offset_and_can_be_cancelled(qtbot, window,
     assert (out / "report.html").exists() and (out / "summary.csv").exists()
     # cancelled while the first pair is compared (the flag is set from the worker, right after that pair):
     # it stops before the second, and the earlier complete result in the same folder is left as it was
-    import aspectus.validation.pair as validate_mod
+    import aspectus.validation.study as validate_mod
 
     before = (out / "summary.csv").read_bytes()
     real = validate_mod.validate_pair

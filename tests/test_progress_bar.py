@@ -3,8 +3,8 @@ from __future__ import annotations
 
 import io
 
-from aspectus.cli import progress_bar
-from aspectus.cli.progress_bar import ProgressBar
+from aspectus import progress as progress_bar
+from aspectus.progress import ProgressBar
 
 
 class _Terminal(io.StringIO):

@@ -53,17 +53,19 @@ class Job:
 
 def explain_error(exc: BaseException, *, clip_name: str) -> str:
     """A sentence a researcher can act on, for an exception met processing ``clip_name``."""
-    from aspectus.errors import AspectusInputError, NoFaceError, VideoError
+    from aspectus.errors import NoFaceError, VideoError
+    from aspectus.progress import classify_failure
 
+    failure = classify_failure(exc)
     if isinstance(exc, VideoError):
         return f"The video could not be read. {exc}"
     if isinstance(exc, NoFaceError):
         return (f"No face was found in the video, so there is no gaze to measure. {exc}")
-    if isinstance(exc, AspectusInputError):
+    if failure.kind == "input":
         return f"An input file has a problem. {exc}"
-    if isinstance(exc, MemoryError):
+    if failure.kind == "memory":
         return f"The computer ran out of memory while processing {clip_name}; close other programs and try again."
-    if isinstance(exc, OSError):
+    if failure.kind == "file":
         return f"A file could not be read or written ({exc.strerror or exc}). Check free disk space and permissions."
     return (f"Processing {clip_name} stopped because of an unexpected problem ({type(exc).__name__}: {exc}). "
             "The other clips are not affected; the technical details are in the log file.")

@@ -23,33 +23,14 @@ import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
+from aspectus.progress import WeightedProgress
 from PySide6.QtCore import QObject, QTimer, Signal
 
 from .job_runner import Job, explain_error, run_jobs
 
 
-@dataclass
-class RunState:
-    """Progress of a processing run, per clip and overall."""
-
-    keys: list[str]
-    weights: dict[str, float]
-    fraction: dict[str, float] = field(default_factory=dict)
-    outcome: dict[str, str] = field(default_factory=dict)  # key -> done / failed / cancelled
-    started_at: float = field(default_factory=time.monotonic)
-
-    def overall(self) -> float:
-        total = sum(self.weights.values()) or 1.0
-        got = sum(self.weights[k] * (1.0 if k in self.outcome else self.fraction.get(k, 0.0)) for k in self.keys)
-        return min(1.0, got / total)
-
-    def remaining_s(self) -> float | None:
-        """Estimated seconds left, from the elapsed time and the work done (None until enough is known)."""
-        done = self.overall()
-        elapsed = time.monotonic() - self.started_at
-        if done < 0.02 or elapsed < 1.0:
-            return None
-        return elapsed * (1.0 - done) / done
+#: progress of a processing run, per clip and overall (the library's one convention)
+RunState = WeightedProgress
 
 
 class ProcessingRun(QObject):

@@ -149,7 +149,7 @@ def _num(x, fmt: str, unit: str) -> str:
 
 
 def run(args) -> int:
-    from aspectus.cli.progress_bar import ProgressBar
+    from aspectus.progress import ProgressBar
 
     from aspectus.errors import AspectusInputError, Cancelled
     from aspectus.webcam.pipeline import ProcessParams, clip_output_dir, process_clip

@@ -73,7 +73,7 @@ def run(args) -> int:
     bar = None
     progress = None
     if not args.quiet:
-        from aspectus.cli.progress_bar import ProgressBar
+        from aspectus.progress import ProgressBar
 
         bar = ProgressBar(total=100, unit="%", desc="render", file=sys.stderr, leave=False)
 

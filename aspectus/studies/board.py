@@ -5,6 +5,8 @@ import contextlib
 import threading
 from typing import Any, Callable
 
+from aspectus.progress import ProgressBar, WeightedProgress
+
 
 
 
@@ -18,8 +20,7 @@ class _Board:
     def __init__(self, *, weights: dict[str, float], n_workers: int, enabled: bool,
                  callback: Callable[[float, str], None] | None):
         self.weights = weights
-        self.total = sum(weights.values()) or 1.0
-        self.frac: dict[str, float] = {}
+        self.share = WeightedProgress(keys=list(weights), weights=weights)
         self.counts = {"done": 0, "failed": 0, "pending": 0}
         self.n_all = len(weights)
         self.callback = callback
@@ -29,9 +30,6 @@ class _Board:
         self.bar = None
         self._lock = threading.Lock()  # fed from the engine's progress thread and the coordinator
         if enabled:
-            from aspectus.cli.progress_bar import ProgressBar
-
-            self._tqdm = ProgressBar
             self.bar = ProgressBar(total=1000, desc="study", position=0, leave=True, dynamic_ncols=True,
                             bar_format="{desc} {percentage:3.0f}%|{bar}| [{elapsed}<{remaining}]")
             self._postfix()
@@ -43,7 +41,7 @@ class _Board:
                                          refresh=False)
 
     def _overall(self) -> float:
-        return sum(self.weights.get(k, 0.0) * f for k, f in self.frac.items()) / self.total
+        return self.share.overall()
 
     def _push(self, message: str) -> None:
         share = self._overall()
@@ -62,11 +60,11 @@ class _Board:
             self._on_progress(ev)
 
     def _on_progress(self, ev) -> None:
-        self.frac[ev.key] = max(self.frac.get(ev.key, 0.0), min(1.0, float(ev.fraction)) * 0.999)
+        self.share.update(ev.key, min(1.0, float(ev.fraction)) * 0.999)
         if self.bar is not None:
             wb = self.worker_bars.get(ev.worker)
             if wb is None and len(self.worker_bars) < 16:
-                wb = self._tqdm(total=100, position=len(self.worker_bars) + 1, leave=False, dynamic_ncols=True,
+                wb = ProgressBar(total=100, position=len(self.worker_bars) + 1, leave=False, dynamic_ncols=True,
                                 bar_format="  {desc} {percentage:3.0f}%|{bar}|")
                 self.worker_bars[ev.worker] = wb
             if wb is not None:
@@ -78,7 +76,7 @@ class _Board:
 
     def finished(self, key: str, status: str) -> None:
         with self._lock:
-            self.frac[key] = 1.0
+            self.share.finish(key, status)
             if status in self.counts:
                 self.counts[status] += 1
             self._push(f"{key}: {status}")

@@ -33,6 +33,8 @@ import uuid
 from dataclasses import dataclass
 from typing import Any, Callable, Iterator
 
+from aspectus.progress import ProgressEvent  # noqa: F401 (re-exported)
+
 #: approximate peak memory of one worker processing a clip (face mesh + buffers), MB
 WORKER_MEMORY_MB = 700.0
 #: smallest interval between two progress messages from one task, s
@@ -62,28 +64,6 @@ class TaskOutcome:
     error: str | None = None
     traceback: str | None = None
     worker: str = ""
-
-
-@dataclass
-class ProgressEvent:
-    """One progress report of a running task.
-
-    Attributes
-    ----------
-    key : str
-        The task's key.
-    worker : str
-        Which worker runs it.
-    fraction : float
-        Share of the task done, 0-1.
-    message : str
-        What it is doing.
-    """
-
-    key: str
-    worker: str
-    fraction: float
-    message: str
 
 
 def default_workers(*, n_tasks: int | None = None, memory_per_worker_mb: float = WORKER_MEMORY_MB) -> int:

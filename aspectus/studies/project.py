@@ -542,14 +542,14 @@ def write_validation_manifest(study: Study, path: str | os.PathLike) -> tuple[Pa
     return path, skipped
 
 
-def run_study_validation(study: Study, out_dir: str | os.PathLike, *, params=None, progress=None):
+def run_study_validation(study: Study, out_dir: str | os.PathLike, *, params=None, progress=None, cancel=None):
     """Validate every processed clip of ``study`` that has a reference; results replace ``out_dir`` only when complete.
 
     Writes the manifest (:func:`write_validation_manifest`) and the study
     validation (:func:`aspectus.validation.study.validate_study`) into a sibling
     folder ``.<name>.partial`` and only when everything is written swaps it
-    for ``out_dir``; a run that fails or is cancelled (``progress`` raising
-    :class:`aspectus.errors.Cancelled`) removes its partial folder and leaves
+    for ``out_dir``; a run that fails or is cancelled (``cancel`` set, or
+    ``progress`` raising :class:`aspectus.errors.Cancelled`) removes its partial folder and leaves
     an earlier complete ``out_dir`` as it was - never a new manifest beside
     an old report.
 
@@ -570,7 +570,7 @@ def run_study_validation(study: Study, out_dir: str | os.PathLike, *, params=Non
             shutil.rmtree(leftover)
     try:
         manifest, skipped = write_validation_manifest(study, part / "validation_manifest.csv")
-        res = validate_study(manifest, part, params=params or ValidateParams(), progress=progress)
+        res = validate_study(manifest, part, params=params or ValidateParams(), progress=progress, cancel=cancel)
     except BaseException:
         shutil.rmtree(part, ignore_errors=True)
         raise

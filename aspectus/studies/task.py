@@ -10,6 +10,7 @@ from pathlib import Path
 from typing import Callable
 
 
+from aspectus.progress import classify_failure
 from aspectus.errors import AspectusInputError, Cancelled
 from aspectus.studies.done import _clean_partials
 
@@ -66,14 +67,14 @@ def run_clip_task(payload: dict, progress, cancel) -> dict:
         res = fn(clip, out, params=payload["params"], segments=segments, progress=progress, cancel=cancel)
         summary = dict(getattr(res, "summary", None) or {})
         return {**base, "status": "done", "summary": summary, "elapsed_s": time.monotonic() - t0}
-    except Cancelled:
-        return {**base, "status": "pending", "reason": "stopped before it finished", "elapsed_s": time.monotonic() - t0}
-    except AspectusInputError as exc:
-        return {**base, "status": "failed", "kind": "input", "reason": str(exc), "elapsed_s": time.monotonic() - t0}
-    except MemoryError:
-        return {**base, "status": "failed", "kind": "internal", "reason": "out of memory while processing",
-                "elapsed_s": time.monotonic() - t0}
     except Exception as exc:  # noqa: BLE001 - reported per clip, the batch goes on
-        return {**base, "status": "failed", "kind": "internal",
-                "reason": f"internal error: {type(exc).__name__}: {exc}",
-                "traceback": "".join(traceback.format_exception(exc)), "elapsed_s": time.monotonic() - t0}
+        failure = classify_failure(exc)
+        elapsed = time.monotonic() - t0
+        if failure.kind == "cancelled":
+            return {**base, "status": "pending", "reason": failure.message, "elapsed_s": elapsed}
+        # a file error on a worker is retried like a fault: the shared drive may be back next time
+        kind = "input" if failure.kind == "input" else "internal"
+        out_ = {**base, "status": "failed", "kind": kind, "reason": failure.message, "elapsed_s": elapsed}
+        if failure.kind in ("internal", "file"):
+            out_["traceback"] = "".join(traceback.format_exception(exc))
+        return out_

@@ -16,6 +16,7 @@ from aspectus.errors import AspectusInputError
 from aspectus.reference import TableMapping
 from aspectus.reference.screen import ScreenGeometry
 
+from aspectus.progress import CancelFlag, ProgressFn, raise_if_cancelled
 from aspectus.validation.manifest import read_validation_manifest
 from aspectus.validation.pair import ValidateParams, agreement_table, is_clip, validate_pair
 
@@ -82,7 +83,7 @@ def _study_rows(source, *, references=None, label_pattern=None, reference_glob=N
 def validate_study(source, out_dir, *, references=None, label_pattern: str | None = None,
                    reference_glob: str | None = None, save_manifest=None, params: ValidateParams | None = None,
                    screen: ScreenGeometry | None = None, mapping: TableMapping | None = None, figures: bool = True,
-                   progress=None) -> StudyResult:
+                   progress: ProgressFn | None = None, cancel: CancelFlag | None = None) -> StudyResult:
     """Validate every pair of a study; pool the windows of all participants.
 
     Parameters
@@ -102,8 +103,13 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
     save_manifest : path-like, optional
         Folder mode: write the pairs found as a manifest CSV (before any
         validation, and also when the pairing is ambiguous).
-    params, screen, mapping, figures, progress
+    params, screen, mapping, figures
         As for :func:`validate_pair`; ``mapping`` is used for rows without one.
+    progress : callable(fraction, message), optional
+        Called before each pair and at the end (:mod:`aspectus.progress`).
+    cancel : object with ``is_set()``, optional
+        Checked before each pair; when set, :class:`aspectus.errors.Cancelled`
+        is raised and nothing of the study's own tables is written.
 
     Notes
     -----
@@ -128,12 +134,14 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
     from aspectus.validation.report import render_study_report, summary_html, summary_markdown
 
     params = params or ValidateParams()
+    raise_if_cancelled(cancel)
     rows, pairing = _study_rows(source, references=references, label_pattern=label_pattern,
                                 reference_glob=reference_glob, tables=mapping is not None, save_manifest=save_manifest)
     unpaired = pairing.messages() if pairing is not None else []
     out = Path(out_dir)
     results, failures, row_of = {}, {}, {}
     for k, row in enumerate(rows):
+        raise_if_cancelled(cancel)
         if progress:
             progress(k / len(rows), f"validating {row.key}")
         row_of[row.key] = row
