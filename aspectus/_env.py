@@ -52,8 +52,8 @@ def quiet_native_logs() -> None:
     os.environ.setdefault("TF_CPP_MIN_LOG_LEVEL", "3")
 
 
-import contextlib as _contextlib
-import sys as _sys
+import contextlib as _contextlib  # noqa: E402 - after the environment is set
+import sys as _sys  # noqa: E402 - after the environment is set
 
 
 def _flush_c_streams() -> None:

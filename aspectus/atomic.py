@@ -13,7 +13,8 @@ import json
 import os
 import tempfile
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
+from collections.abc import Iterator
 
 import pandas as pd
 

@@ -26,7 +26,8 @@ from __future__ import annotations
 import sys
 import time
 from dataclasses import dataclass, field
-from typing import Callable, Protocol
+from typing import Protocol
+from collections.abc import Callable
 
 from tqdm import tqdm
 

@@ -20,7 +20,6 @@ import subprocess
 import sys
 import tempfile
 import time
-from fractions import Fraction
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))

@@ -135,7 +135,7 @@ def pipeline_fps(clip: Path, n_frames: int) -> tuple[float, float, float]:
 
 def _load() -> str:
     try:
-        return "load %.2f" % os.getloadavg()[0]
+        return f"load {os.getloadavg()[0]:.2f}"
     except OSError:
         return "load ?"
 

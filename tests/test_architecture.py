@@ -1,10 +1,14 @@
-"""The library stays Qt-free; OpenCV is imported in one place only."""
+"""The library's rooms: Qt-free, layered along the data flow, no cycles, one OpenCV import; ruff's rules hold."""
 import ast
+import os
 import subprocess
 import sys
 from pathlib import Path
 
-LIB = Path(__file__).resolve().parents[1] / "aspectus"
+import pytest
+
+REPO = Path(__file__).resolve().parents[1]
+LIB = REPO / "aspectus"
 
 
 def _imports(path: Path):
@@ -55,3 +59,66 @@ def test_importing_the_pipeline_loads_no_qt_and_keeps_qt_plugin_path_clean():
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=300)
     assert r.returncode == 0, r.stderr
     assert r.stdout.split() == ["False", "False"]
+
+
+# --- the rooms and the style rules, as the checkers see them --------------------------------------------
+
+def _tool(name: str) -> str:
+    import shutil
+
+    exe = Path(sys.executable).with_name(name)
+    found = str(exe) if exe.exists() else shutil.which(name)
+    if not found:
+        pytest.fail(f"{name} is not installed: it comes with the dev extra (pip install -e '.[dev]')")
+    return found
+
+
+def test_import_contracts_hold():
+    """The layers and forbidden imports of pyproject.toml's [tool.importlinter] (import-linter)."""
+    r = subprocess.run([_tool("lint-imports"), "--no-cache"], cwd=REPO, capture_output=True, text=True, timeout=300)
+    assert r.returncode == 0, r.stdout[-3000:] + r.stderr[-2000:]
+    assert "0 broken" in r.stdout
+
+
+def test_import_contracts_catch_a_violation(tmp_path):
+    """A deliberate violation (the renderer importing the gaze chain) breaks the contracts."""
+    import shutil
+
+    copy = tmp_path / "repo"
+    shutil.copytree(REPO / "aspectus", copy / "aspectus", ignore=shutil.ignore_patterns("__pycache__"))
+    shutil.copy(REPO / "pyproject.toml", copy / "pyproject.toml")
+    bad = copy / "aspectus" / "synth" / "face.py"
+    bad.write_text(bad.read_text() + "\nfrom aspectus.webcam import gaze  # deliberate violation\n")
+    env = {**os.environ, "PYTHONPATH": str(copy)}
+    r = subprocess.run([_tool("lint-imports"), "--no-cache"], cwd=copy, capture_output=True, text=True, env=env,
+                       timeout=300)
+    assert r.returncode != 0 and "aspectus.synth.face -> aspectus.webcam.gaze" in r.stdout, r.stdout[-3000:]
+
+
+def test_no_import_cycles_between_modules():
+    """No module reaches itself through imports, at module level or inside functions (grimp's graph)."""
+    import grimp
+
+    g = grimp.build_graph("aspectus")
+    edges = {m: {x for x in g.find_modules_directly_imported_by(m) if x.startswith("aspectus")} for m in g.modules}
+    cycles = []
+    for m in sorted(edges):
+        for x in edges[m]:
+            if m != x and g.chain_exists(importer=x, imported=m):
+                cycles.append((m, x))
+    assert not cycles, f"import cycles: {cycles[:5]}"
+
+
+def test_code_passes_ruff():
+    """The rules of pyproject.toml's [tool.ruff] hold for the whole tree."""
+    r = subprocess.run([_tool("ruff"), "check", "--no-cache", "."], cwd=REPO, capture_output=True, text=True,
+                       timeout=300)
+    assert r.returncode == 0, r.stdout[-3000:]
+
+
+def test_ruff_catches_a_violation(tmp_path):
+    bad = tmp_path / "bad.py"
+    bad.write_text("import os\n")  # unused import (F401)
+    r = subprocess.run([_tool("ruff"), "check", "--no-cache", "--config", str(REPO / "pyproject.toml"), str(bad)],
+                       capture_output=True, text=True, timeout=120)
+    assert r.returncode != 0 and "F401" in r.stdout

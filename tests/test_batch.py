@@ -180,7 +180,7 @@ def test_input_failures_are_not_retried_until_file_changes(tmp_path):
 
 
 def test_manifest_batch_with_missing_files_segments_and_labels(tmp_path):
-    src = _clips(tmp_path / "clips", {"a/p01.mp4": b"one", "b/p01.mp4": b"two", "p02.mp4": b"three"})
+    _clips(tmp_path / "clips", {"a/p01.mp4": b"one", "b/p01.mp4": b"two", "p02.mp4": b"three"})
     seg = tmp_path / "segments.csv"
     seg.write_text("label,onset_s,offset_s\nstory,0.0,0.2\nquiz,0.2,0.3\n")
     man = tmp_path / "study.csv"

@@ -51,7 +51,7 @@ def rendered(tmp_path_factory):
         captured = {}
 
         def spy(**kw):  # keep the estimator's inputs (one clip's head poses and iris centres)
-            captured.update(kw)
+            captured.update(kw)  # noqa: B023 - used within the iteration
             return estimate_gaze(**kw)
 
         pipeline.estimate_gaze = spy

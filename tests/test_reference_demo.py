@@ -5,7 +5,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from aspectus.reference import TableMapping, read_reference, write_demo_reference
+from aspectus.reference import TableMapping, read_reference
+from aspectus.synth.lab_recording import write_demo_reference
 
 
 def _truth(duration_s=6.0, rate=240.0, seed=3):

@@ -15,7 +15,8 @@ import pytest
 
 from aspectus.cli import main
 from aspectus.errors import AspectusInputError, ReferenceFormatError
-from aspectus.reference import TableMapping, write_demo_reference
+from aspectus.reference import TableMapping
+from aspectus.synth.lab_recording import write_demo_reference
 from aspectus.synth.trajectory import synth_trajectory
 from aspectus.validation.pair import ValidateParams, validate_pair
 from aspectus.validation.manifest import read_validation_manifest
@@ -146,7 +147,7 @@ def test_study_manifest_pooled_and_summary(session, tmp_path):
     root = tmp_path
     truth2 = synth_trajectory(duration_s=30.0, seed=9, task="reading").samples
     ref2 = write_demo_reference(truth2, root / "lab2", stem="p02_s01", offset_s=2.0, rate_hz=500.0, seed=2)
-    cam2 = _webcam_folder(root / "cam2", truth2, seed=4)
+    _webcam_folder(root / "cam2", truth2, seed=4)
     man = root / "manifest.csv"
     man.write_text("webcam,reference,participant,session,mapping\n"
                    f"{session['cam']},{session['ref']['physio']},p01,s01,\n"

@@ -18,7 +18,7 @@ from aspectus.validation.agreement import bland_altman_repeated, rmcorr
 from aspectus.cli import main
 from aspectus.errors import AspectusInputError
 from aspectus.validation.pairing import bids_labels, pair_folders
-from aspectus.reference import write_demo_reference
+from aspectus.synth.lab_recording import write_demo_reference
 from aspectus.synth.trajectory import synth_trajectory
 from aspectus.validation.pair import ValidateParams
 from aspectus.validation.manifest import read_validation_manifest

@@ -38,7 +38,7 @@ COL_NAME, COL_STATUS, COL_PROGRESS, COL_FACE, COL_USABLE = range(5)
 class _Provider:
     """Hands the results and validation views what they need from the window."""
 
-    def __init__(self, win: "MainWindow"):
+    def __init__(self, win: MainWindow):
         self.win = win
 
     def clips(self):

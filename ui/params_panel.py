@@ -163,7 +163,7 @@ class ParamsPanel(QWidget):
             form.setContentsMargins(6, 4, 6, 4)
             self._groups[key] = box
             forms[key] = form
-        for name, f in self._fields.items():
+        for name, f in self._fields.items():  # noqa: B007
             default = self._defaults[name]
             spec = SPECS.get(name) or _guess_spec(name, default)
             if name == "detector":

@@ -43,10 +43,10 @@ class DataFrameModel(QAbstractTableModel):
     def frame(self) -> pd.DataFrame:
         return self._df
 
-    def rowCount(self, parent=QModelIndex()):  # noqa: N802 - Qt API
+    def rowCount(self, parent=QModelIndex()):  # noqa: N802, B008 - Qt API
         return 0 if parent.isValid() else len(self._df)
 
-    def columnCount(self, parent=QModelIndex()):  # noqa: N802 - Qt API
+    def columnCount(self, parent=QModelIndex()):  # noqa: N802, B008 - Qt API
         return 0 if parent.isValid() else len(self._df.columns)
 
     def data(self, index, role=Qt.DisplayRole):

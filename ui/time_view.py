@@ -32,7 +32,7 @@ class TraceData:
 
     @classmethod
     def from_frames(cls, samples: pd.DataFrame, events: pd.DataFrame | None,
-                    segments: pd.DataFrame | None) -> "TraceData":
+                    segments: pd.DataFrame | None) -> TraceData:
         t = samples["t_s"].to_numpy(dtype=float).copy()
         valid = samples["valid"].to_numpy(dtype=bool)
         yaw = samples["yaw_deg"].to_numpy(dtype=float).copy()

@@ -21,7 +21,6 @@ import queue as queue_mod
 import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, field
 
 from aspectus.progress import WeightedProgress
 from PySide6.QtCore import QObject, QTimer, Signal

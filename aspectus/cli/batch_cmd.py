@@ -1,7 +1,6 @@
 """``aspectus batch FOLDER_OR_MANIFEST -o OUTDIR``: a whole study, resumable, in parallel."""
 from __future__ import annotations
 
-import argparse
 import signal
 import sys
 import threading

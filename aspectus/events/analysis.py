@@ -184,7 +184,7 @@ class AnalysisParams:
         return d
 
     @classmethod
-    def from_dict(cls, d: dict) -> "AnalysisParams":
+    def from_dict(cls, d: dict) -> AnalysisParams:
         names = {f.name for f in dataclasses.fields(cls)}
         unknown = sorted(set(d) - names)
         if unknown:

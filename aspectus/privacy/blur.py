@@ -288,7 +288,7 @@ def purge(plan: PurgePlan) -> PurgePlan:
         if not d.exists():
             done.dirs.append(d)
             done.bytes += size
-    now = _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+    now = _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
     for d in done.clip_dirs:
         gone = [p.name for p in done.files if p.parent == d] + [p.name + "/" for p in done.dirs if p.parent == d]
         rj = d / "run.json"

@@ -3,7 +3,6 @@
 * :func:`read_bids_physio` - BIDS eye-tracking recordings (``*_physio.tsv.gz``).
 * :func:`read_gaze_table` with a :class:`TableMapping` - any delimited table.
 * :func:`read_reference` - either of the two, chosen by the file name.
-* :func:`write_demo_reference` - a simulated lab recording of a rendered clip.
 """
 from __future__ import annotations
 
@@ -19,14 +18,7 @@ from aspectus.reference.bids import ReferenceRecording, read_bids_physio, write_
 from aspectus.reference.table import TableMapping, events_from_labels, read_gaze_table
 
 __all__ = ["ReferenceRecording", "TableMapping", "events_from_labels", "read_bids_physio", "read_gaze_table",
-           "read_reference", "write_bids_physio", "write_demo_reference"]
-
-
-def write_demo_reference(*args, **kw):
-    """See :func:`aspectus.synth.lab_recording.write_demo_reference`."""
-    from aspectus.synth.lab_recording import write_demo_reference as _w
-
-    return _w(*args, **kw)
+           "read_reference", "write_bids_physio", "is_bids_physio"]
 
 
 def is_bids_physio(path) -> bool:

@@ -162,7 +162,7 @@ class TableMapping:
         return d
 
     @classmethod
-    def from_dict(cls, d: dict) -> "TableMapping":
+    def from_dict(cls, d: dict) -> TableMapping:
         known = set(cls.__dataclass_fields__)
         unknown = sorted(set(d) - known - {"kind", "aspectus_version"})
         if unknown:
@@ -177,7 +177,7 @@ class TableMapping:
         return write_json(path, {"kind": "aspectus table mapping", "aspectus_version": __version__, **self.to_dict()})
 
     @classmethod
-    def load(cls, path) -> "TableMapping":
+    def load(cls, path) -> TableMapping:
         """Read a mapping written by :meth:`save`."""
         path = Path(path)
         try:

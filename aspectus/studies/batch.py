@@ -51,7 +51,7 @@ import time
 import uuid
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
+from collections.abc import Callable
 
 import pandas as pd
 
@@ -388,7 +388,7 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
     t0 = time.monotonic()
     out_dir = Path(out_dir).resolve()
     out_dir.mkdir(parents=True, exist_ok=True)
-    run_id = f"{_dt.datetime.now(_dt.timezone.utc).strftime('%Y%m%dT%H%M%SZ')}-{uuid.uuid4().hex[:6]}"
+    run_id = f"{_dt.datetime.now(_dt.UTC).strftime('%Y%m%dT%H%M%SZ')}-{uuid.uuid4().hex[:6]}"
     with _out_dir_lock(out_dir / STATE_DIR):
         jobs, rows, todo, (params, params_sha), (index, log) = _prepare(
             source, out_dir, params=params, extensions=extensions, recursive=recursive,

@@ -3,7 +3,8 @@ from __future__ import annotations
 
 import contextlib
 import threading
-from typing import Any, Callable
+from typing import Any
+from collections.abc import Callable
 
 from aspectus.progress import ProgressBar, WeightedProgress
 

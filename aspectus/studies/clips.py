@@ -91,7 +91,7 @@ class ClipJob:
         out.update(self.labels)
         return out
 
-    def with_key(self, key: str) -> "ClipJob":
+    def with_key(self, key: str) -> ClipJob:
         return ClipJob(self.clip, self.rel, key, self.reference, self.segments, self.participant,
                        self.session, dict(self.labels), self.row)
 

@@ -31,7 +31,8 @@ import time
 import traceback
 import uuid
 from dataclasses import dataclass
-from typing import Any, Callable, Iterator
+from typing import Any
+from collections.abc import Callable, Iterator
 
 from aspectus.progress import ProgressEvent  # noqa: F401 (re-exported)
 

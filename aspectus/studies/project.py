@@ -20,7 +20,8 @@ import json
 import os
 from dataclasses import asdict, dataclass, field
 from pathlib import Path, PurePosixPath
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 from aspectus.atomic import write_json
 from aspectus.labels import guess_labels, safe_label

@@ -16,7 +16,7 @@ from aspectus.errors import AspectusError
 
 
 def _utc_now() -> str:
-    return _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")
+    return _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
 
 
 

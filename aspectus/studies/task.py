@@ -7,11 +7,11 @@ import socket
 import time
 import traceback
 from pathlib import Path
-from typing import Callable
+from collections.abc import Callable
 
 
 from aspectus.progress import classify_failure
-from aspectus.errors import AspectusInputError, Cancelled
+from aspectus.errors import AspectusInputError
 from aspectus.studies.done import _clean_partials
 
 #: the per-clip function workers call, as "module:function"

@@ -151,14 +151,14 @@ def _eye_look(image: np.ndarray, lm: np.ndarray, eye: str, iris_d_px: float) -> 
 
     sel = inside & (dist < 0.85 * r)
     if sel.sum() >= 4:
-        vals, l = px[sel], lum[sel]
+        vals, l = px[sel], lum[sel]  # noqa: E741
         iris = np.median(vals[l >= np.percentile(l, 25)], axis=0)
     else:  # pragma: no cover - both shipped photos have visible irises
         iris = np.array([90.0, 70.0, 55.0])
 
     sel = inside & (dist > 1.1 * r)
     if sel.sum() >= 4:
-        vals, l = px[sel], lum[sel]
+        vals, l = px[sel], lum[sel]  # noqa: E741
         sclera = np.median(vals[l >= np.percentile(l, 60)], axis=0)
     else:  # pragma: no cover
         sclera = np.array([215.0, 205.0, 195.0])

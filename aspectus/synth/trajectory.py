@@ -74,7 +74,7 @@ class Trajectory:
         return float(self.params.get("duration_s", np.nan))
 
     @classmethod
-    def from_samples(cls, samples: pd.DataFrame, *, head_distance_mm: float = DEFAULT_HEAD_Z_MM) -> "Trajectory":
+    def from_samples(cls, samples: pd.DataFrame, *, head_distance_mm: float = DEFAULT_HEAD_Z_MM) -> Trajectory:
         """A trajectory from a hand-made table (for tests and special clips).
 
         Parameters

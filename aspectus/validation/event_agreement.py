@@ -297,7 +297,7 @@ def match_events(webcam: pd.DataFrame, reference: pd.DataFrame, *, offset_s: flo
                 cand.append((d, int(i), int(r_in[order[jj]])))
     cand.sort()
     used_w, used_r, pairs = set(), set(), []
-    for d, i, j in cand:
+    for d, i, j in cand:  # noqa: B007 - sorted by distance, unpacked for the indices
         if i in used_w or j in used_r:
             continue
         used_w.add(i)

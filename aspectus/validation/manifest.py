@@ -73,7 +73,7 @@ def read_validation_manifest(path) -> list[StudyRow]:
         line = file_line[int(i) + 1] if int(i) + 1 < len(file_line) else int(i) + 2
 
         def p(col):
-            v = str(r.get(col, "")).strip()
+            v = str(r.get(col, "")).strip()  # noqa: B023 - used within the iteration
             if not v:
                 return None
             q = Path(v)
@@ -87,7 +87,7 @@ def read_validation_manifest(path) -> list[StudyRow]:
                 raise AspectusInputError(f"{what} {q} does not exist", path=path, where=f"row {line}",
                                         hint="paths are relative to the manifest's folder")
         participant = str(r.get("participant", "")).strip() or _guess_participant(cam, ref) or f"row{line}"
-        label = lambda col: str(r.get(col, "")).strip() or None  # noqa: E731
+        label = lambda col: str(r.get(col, "")).strip() or None  # noqa: E731, B023 - used within the iteration
         off = str(r.get("offset_s", "")).strip()
         try:
             offset = float(off) if off else None

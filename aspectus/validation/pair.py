@@ -35,8 +35,10 @@ import numpy as np
 import pandas as pd
 
 from aspectus import __version__
-from aspectus.validation.agreement import DEFAULT_ICC_FORM, ICC_FORM_TEXT, AgreementWarning, deming_slope, feature_agreement
-from aspectus.validation.align import Alignment, apply_alignment, estimate_offset, find_marker, marker_alignment, user_alignment
+from aspectus.validation.agreement import (DEFAULT_ICC_FORM, ICC_FORM_TEXT, AgreementWarning, deming_slope,
+                                           feature_agreement)
+from aspectus.validation.align import (Alignment, apply_alignment, estimate_offset, find_marker, marker_alignment,
+                                       user_alignment)
 from aspectus.errors import AspectusInputError, ParameterError
 from aspectus.validation.event_agreement import label_kappa, match_events
 from aspectus.reference import ReferenceRecording, TableMapping, read_reference

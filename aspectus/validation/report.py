@@ -105,7 +105,7 @@ def bland_altman_figure(pairs: pd.DataFrame, agreement: pd.DataFrame, features, 
         ax.scatter((a[ok] + b[ok]) / 2, a[ok] - b[ok], s=14, color=REFERENCE_COLOUR, alpha=0.75)
         if ag is not None and f in ag.index and np.isfinite(ag.loc[f, "ba_bias"]):
             r = ag.loc[f]
-            for v, ls, lab in ((r["ba_bias"], "-", "bias"), (r["ba_loa_low"], "--", "limits"),
+            for v, ls, lab in ((r["ba_bias"], "-", "bias"), (r["ba_loa_low"], "--", "limits"),  # noqa: B007
                                (r["ba_loa_high"], "--", None)):
                 ax.axhline(v, color="0.25", ls=ls, lw=1)
             for lo, hi in ((r["ba_loa_low_ci_low"], r["ba_loa_low_ci_high"]),

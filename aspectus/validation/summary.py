@@ -37,7 +37,7 @@ def study_summary(pooled: pd.DataFrame, per: pd.DataFrame, *, icc_form: str = DE
     ok = per[per.get("status", pd.Series(dtype=str)) == "ok"] if len(per) else per
     n_part = int(ok["participant"].nunique()) if len(ok) else 0
     for _, r in pooled[pooled["scope"] == "window"].iterrows() if len(pooled) else []:
-        g = lambda c: r.get(c, np.nan)  # noqa: E731 - repeated-measures columns may be absent
+        g = lambda c: r.get(c, np.nan)  # noqa: E731, B023 - used within the iteration - repeated-measures columns may be absent
         rows.append({
             "feature": r["feature"], "participants": n_part, "windows": int(r["n"]),
             "mean_webcam": _fmt(r["mean_webcam"]), "mean_reference": _fmt(r["mean_reference"]),

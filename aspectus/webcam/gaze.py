@@ -364,7 +364,7 @@ def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarra
 
 def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndarray, iris_px: np.ndarray,
                   iris_diam_px: np.ndarray, corners_px: np.ndarray, ear: np.ndarray, t_s: np.ndarray | None = None,
-                  iris_mesh_px: np.ndarray | None = None, params: GazeParams = GazeParams()) -> tuple[dict, dict]:
+                  iris_mesh_px: np.ndarray | None = None, params: GazeParams = GazeParams()) -> tuple[dict, dict]:  # noqa: B008 - a frozen default
     """Gaze, head pose, distance and blinks for a whole clip.
 
     Parameters

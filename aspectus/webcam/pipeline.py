@@ -31,7 +31,7 @@ import sys
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 import pandas as pd
@@ -119,7 +119,7 @@ class ProcessParams:
         return params_fingerprint(self.to_dict())
 
     @classmethod
-    def from_dict(cls, d: dict) -> "ProcessParams":
+    def from_dict(cls, d: dict) -> ProcessParams:
         from aspectus.events.analysis import AnalysisParams
 
         d = dict(d or {})
@@ -494,7 +494,7 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
     summary = summarise(samples, analysis, meta)
     run = {
         "aspectus": __version__,
-        "created_utc": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
+        "created_utc": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
         "clip": str(clip),
         "clip_resolved": str(clip.resolve()),
         "clip_name": clip.name,

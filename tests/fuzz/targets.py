@@ -16,7 +16,6 @@ from __future__ import annotations
 import gzip
 import json
 import math
-import os
 import sys
 import tempfile
 from pathlib import Path

@@ -25,7 +25,7 @@ class Candidates:
     info: dict = field(default_factory=dict)
 
     @classmethod
-    def empty(cls, info: dict | None = None) -> "Candidates":
+    def empty(cls, info: dict | None = None) -> Candidates:
         z = np.zeros(0, dtype=np.int64)
         return cls(z, z.copy(), dict(info or {}))
 
