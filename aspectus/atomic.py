@@ -11,12 +11,44 @@ import contextlib
 import hashlib
 import json
 import os
+import stat
 import tempfile
 from pathlib import Path
 from typing import Any
 from collections.abc import Iterator
 
 import pandas as pd
+
+
+def current_umask() -> int:
+    """The process's file-creation mask (read without changing it where the OS allows)."""
+    try:  # Linux: /proc tells it without touching it (os.umask would, for a moment, for every thread)
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("Umask:"):
+                return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+#: names of the temporary files :func:`atomic_path` makes (``.<name>.<random>.part``)
+PART_GLOB = ".*.part"
+
+
+def remove_stale_parts(folder) -> list[Path]:
+    """Delete temporary files left by a write that was killed (``.<name>.<random>.part``) in ``folder``.
+
+    Call it only where no other aspectus process writes into ``folder`` at the same time.
+    """
+    removed = []
+    for p in Path(folder).glob(PART_GLOB):
+        if p.is_file() and not p.is_symlink():
+            with contextlib.suppress(OSError):
+                p.unlink()
+                removed.append(p)
+    return removed
 
 
 @contextlib.contextmanager
@@ -31,6 +63,10 @@ def atomic_path(target: os.PathLike | str) -> Iterator[Path]:
         yield tmp
         with open(tmp, "rb+") as fh:
             os.fsync(fh.fileno())
+        # mkstemp makes the file owner-only (0600); an output follows the umask like any file the user makes,
+        # so colleagues on a shared drive can read it when the user's umask lets them
+        with contextlib.suppress(OSError):
+            os.chmod(tmp, 0o666 & ~current_umask())
         os.replace(tmp, target)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
@@ -111,9 +147,24 @@ def write_parquet(target, df: pd.DataFrame, metadata: dict | None = None, *, chu
 
 
 def sha256_file(path, chunk: int = 1 << 20) -> str:
-    """Hex SHA-256 of a file's bytes."""
+    """Hex SHA-256 of a file's bytes.
+
+    Raises :class:`~aspectus.errors.AspectusInputError` for a FIFO, socket or
+    device: reading one would block for good (it is opened without blocking
+    and checked before a byte is read).
+    """
+    from aspectus.errors import AspectusInputError
+
     h = hashlib.sha256()
-    with open(path, "rb") as fh:
+    fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0))
+    try:
+        if not stat.S_ISREG(os.fstat(fd).st_mode):
+            raise AspectusInputError("is not a regular file (a pipe, socket or device)", path=path,
+                                     hint="give the recorded file itself")
+    except BaseException:
+        os.close(fd)
+        raise
+    with os.fdopen(fd, "rb") as fh:
         while True:
             b = fh.read(chunk)
             if not b:

@@ -82,8 +82,8 @@ def test_overlay_blurs_the_face_by_default(frame):
     assert hf_energy(blurred, box) < MAX_HF_SHARE * raw
     shown = draw_overlay(frame, landmarks_px=pts, show_mesh=False, blur=False)
     assert hf_energy(shown, box) == pytest.approx(raw, rel=0.05)
-    # no face position known: the whole picture is blurred rather than risk a face
-    whole = draw_overlay(frame, show_mesh=False)
+    # no face position known and none found by the caller: the whole picture is blurred rather than risk a face
+    whole = draw_overlay(frame, show_mesh=False, face_boxes=[])
     assert hf_energy(whole) < MAX_HF_SHARE * hf_energy(frame)
 
 
@@ -311,13 +311,13 @@ def test_purge_deletes_per_frame_data_and_keeps_results(processed, tmp_path, cap
     keep = {n: (d / n).read_bytes() for n in ("events.csv", "events.parquet", "features.csv", "features.parquet")}
     assert main(["purge", str(out), "--yes"]) == 0
     left = sorted(p.name for p in d.iterdir())
-    assert left == sorted(["events.csv", "events.parquet", "events.json", "features.csv", "features.parquet",
-                           "run.json"]) or left == sorted(list(keep) + ["run.json"])
+    # frames/ is not listed in run.json: not aspectus's to delete (issue 17.4)
+    assert left == sorted(list(keep) + ["frames", "run.json"])
     for n, b in keep.items():
         assert (d / n).read_bytes() == b
     run = json.loads((d / "run.json").read_text())
     assert "samples.parquet" not in run["outputs"] and "samples.csv" not in run["outputs"]
-    assert set(run["purged"]["files"]) >= {"samples.parquet", "samples.csv", "frames/"}
+    assert set(run["purged"]["files"]) >= {"samples.parquet", "samples.csv"}
     assert run["quality"] == run_before["quality"]
     # still finished for the batch runner (not redone), and a clear message when the samples are wanted
     done, why = clip_is_done(d, input_sha256=run["input_sha256"], params_sha256=run["params_sha256"])

@@ -4,7 +4,8 @@ and the clip's quality at a glance.
 Frames are decoded in a background thread (:class:`FrameLoader`, PyAV, which
 releases the interpreter lock while decoding), so seeking far in a long clip
 never freezes the window. The overlay comes from :mod:`aspectus.webcam.overlay`; faces
-are blurred unless "Show faces unblurred" is ticked (never saved).
+- every face in the picture, bystanders too - are blurred unless "Show faces
+unblurred" is ticked (never saved).
 """
 from __future__ import annotations
 
@@ -32,13 +33,14 @@ class FrameLoader(QObject):
 
     Signals
     -------
-    frame_ready(t_s, image, landmarks) : frame time on the clip's clock (s from
-        the first frame), RGB uint8 array, and face-mesh landmarks (px) found
-        on that frame when ``find_face`` is on (else None).
+    frame_ready(t_s, image, landmarks, face_boxes) : frame time on the clip's clock (s from
+        the first frame), RGB uint8 array, face-mesh landmarks (px) found
+        on that frame when ``find_face`` is on (else None), and the boxes of
+        every face the face detector found on it (for blurring bystanders too).
     failed(message)
     """
 
-    frame_ready = Signal(float, object, object)
+    frame_ready = Signal(float, object, object, object)
     opened = Signal(str, float)  # clip path, duration in s (0 if unknown)
     failed = Signal(str)
 
@@ -82,6 +84,7 @@ class FrameLoader(QObject):
         decoder = None
         path = None
         landmarker = None
+        finder = None
         while True:
             with self._cv:
                 while not self._stop and self._target is None and not self._reopen:
@@ -146,7 +149,15 @@ class FrameLoader(QObject):
                         lms = landmarker(img)
                     except Exception:  # noqa: BLE001 - the mesh is a nicety; the frame still shows
                         lms = None
-                self.frame_ready.emit(t, img, lms)
+                if finder is None:
+                    from aspectus.privacy.blur import FaceBoxFinder
+
+                    finder = FaceBoxFinder()
+                try:
+                    boxes = finder(img)
+                except Exception:  # noqa: BLE001 - without boxes the overlay looks for faces itself
+                    boxes = None
+                self.frame_ready.emit(t, img, lms, boxes)
             except Exception as exc:  # noqa: BLE001 - shown in the view, never a crash
                 self.failed.emit(f"{Path(path).name}: the video cannot be shown ({type(exc).__name__}: {exc})")
                 if container is not None:
@@ -156,6 +167,8 @@ class FrameLoader(QObject):
             container.close()
         if landmarker is not None:
             landmarker.close()
+        if finder is not None:
+            finder.close()
 
 
 class ClipView(QWidget):
@@ -181,6 +194,7 @@ class ClipView(QWidget):
         self._t = 0.0
         self._img: np.ndarray | None = None
         self._lms = None
+        self._boxes = None
         self._playing = False
         self._frame_dt = 1 / 30
         self._slider_scale = 1000  # slider steps per second
@@ -276,6 +290,7 @@ class ClipView(QWidget):
         self._container_duration_s = 0.0
         self._img = None
         self._lms = None
+        self._boxes = None
         self.set_samples(samples)
         self.set_summary(summary or {})
         if self._clip_path is None:
@@ -414,9 +429,10 @@ class ClipView(QWidget):
         self.seek(v / self._slider_scale)
         self.position_changed.emit(self._t)
 
-    def _on_frame(self, t_s: float, img, lms) -> None:
+    def _on_frame(self, t_s: float, img, lms, boxes=None) -> None:
         self._img = img
         self._lms = lms
+        self._boxes = boxes
         self._shown_t = t_s
         self._redraw()
         self.position_changed.emit(t_s)
@@ -457,7 +473,8 @@ class ClipView(QWidget):
                 head = (hx, hy, hz)
         return overlay.draw_overlay(self._img, landmarks_px=self._lms, yaw_deg=yaw, pitch_deg=pitch, head_mm=head,
                                     fov_deg=self._fov_deg,
-                                    blur=not self.unblur.isChecked(), show_mesh=self.mesh.isChecked())
+                                    blur=not self.unblur.isChecked(), show_mesh=self.mesh.isChecked(),
+                                    face_boxes=getattr(self, "_boxes", None))
 
     def _redraw(self, *_):
         img = self._compose()

@@ -64,7 +64,7 @@ def _params_from_args(args):
     if args.params:
         path = Path(args.params)
         try:
-            d = json.loads(path.read_text(encoding="utf-8"))
+            d = json.loads(path.read_text(encoding="utf-8-sig"))
         except (OSError, ValueError) as exc:
             raise AspectusInputError(f"cannot read parameters ({exc})", path=path,
                                     hint="give a JSON file such as a clip's run.json or the batch's study.json") from None

@@ -201,8 +201,8 @@ def run(args) -> int:
             writing = where is not None and clip_out.resolve() in (where.resolve(), *where.resolve().parents)
             if writing:
                 print(f"aspectus: error: {clip}: could not write its outputs ({where}: "
-                      f"{exc.strerror or exc}); the clip's folder has no run.json until it is processed "
-                      "completely, so nothing there passes for a finished result - free space or fix the folder, "
+                      f"{exc.strerror or exc}); the new result was built beside the earlier one and is discarded, "
+                      "so the earlier result (if any) is still there and valid - free space or fix the folder, "
                       "then run again", file=sys.stderr)
             else:
                 print(f"aspectus: error: {clip}: file error ({f'{where}: ' if where else ''}{exc.strerror or exc}); "

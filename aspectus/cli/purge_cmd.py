@@ -10,7 +10,8 @@ def register(sub) -> None:
         help="delete a study's cached per-frame data (gaze samples, frame caches)",
         description="Delete the per-frame data of every clip output folder under OUTDIR (or under a study "
         "file's output folder): samples.parquet, samples.csv, landmark and frame caches, previews and "
-        "leftover temporary files. Events, features, the study tables and run.json are kept; run.json notes "
+        "leftover temporary files - only files the folder's run.json lists as written by aspectus. Events, features, "
+        "the study tables and run.json are kept; run.json notes "
         "what was deleted and when. Processing a clip again rebuilds its samples. Asks for confirmation "
         "unless --yes is given. Do not run it while clips of the same OUTDIR are being processed.",
     )
@@ -31,7 +32,7 @@ def run(args) -> int:
     plan = plan_purge(args.target)
     n = len(plan.files) + len(plan.dirs)
     if not plan.clip_dirs:
-        raise AspectusInputError("holds no clip output folders (none with run.json or a samples table)",
+        raise AspectusInputError("holds no clip output folders (none with a run.json written by aspectus)",
                                 path=args.target, hint="give the OUTDIR of `aspectus process` or `aspectus batch`")
     if n == 0:
         print(f"{args.target}: {len(plan.clip_dirs)} clip folder(s), no per-frame data left to delete")

@@ -177,6 +177,11 @@ class AnalysisParams:
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and np.isfinite(v) and v > 0):
                 raise ParameterError(f"{name} must be a number of seconds > 0, got {v!r}")
+        if self.step_s * MAX_WINDOWS_PER_WINDOW_LENGTH < self.window_s:
+            raise ParameterError(
+                f"step_s {self.step_s!r} s is less than 1/{MAX_WINDOWS_PER_WINDOW_LENGTH} of window_s "
+                f"{self.window_s!r} s: every moment would lie in more than {MAX_WINDOWS_PER_WINDOW_LENGTH} windows",
+                hint="choose a step of at least window_s / 1000 (e.g. --window-s 10 --step-s 1)")
 
     def to_dict(self) -> dict:
         d = dataclasses.asdict(self)
@@ -195,6 +200,10 @@ class AnalysisParams:
         """Parameters of the chosen detector, prefix removed."""
         prefix = f"{self.detector}_"
         return {k[len(prefix):]: v for k, v in self.to_dict().items() if k.startswith(prefix)}
+
+
+#: windows that may overlap any one moment (window_s / step_s); more is a mistyped step, not an analysis
+MAX_WINDOWS_PER_WINDOW_LENGTH = 1000
 
 
 @dataclass

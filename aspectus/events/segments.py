@@ -9,6 +9,8 @@ import pandas as pd
 from aspectus.errors import AspectusInputError, ParameterError
 
 SEGMENT_COLUMNS = ("label", "onset_s", "offset_s")
+#: most fixed windows one clip may get (a 10 h clip in 1 s steps has 36,000); more is a mistyped step
+MAX_WINDOWS = 200_000
 
 
 def read_segments(path) -> pd.DataFrame:
@@ -32,7 +34,8 @@ def read_segments(path) -> pd.DataFrame:
         raise AspectusInputError("is not a text table (it holds binary data: a spreadsheet or another file renamed?)",
                                 path=path, hint="save it as CSV with a header row label,onset_s,offset_s")
     try:
-        df = pd.read_csv(path, sep=None, engine="python", comment="#", dtype=str, keep_default_na=False)
+        df = pd.read_csv(path, sep=None, engine="python", comment="#", dtype=str, keep_default_na=False,
+                         encoding="utf-8-sig")
     except Exception as exc:  # pandas raises many kinds of parse errors
         raise AspectusInputError(f"cannot read as a table ({exc})", path=path,
                                 hint="save it as CSV with a header row label,onset_s,offset_s") from exc
@@ -105,5 +108,9 @@ def fixed_windows(start_s: float, end_s: float, *, window_s: float = 10.0, step_
         return pd.DataFrame({"label": pd.Series(dtype=str), "start_s": pd.Series(dtype=float),
                              "end_s": pd.Series(dtype=float)})
     k = int(np.floor((end_s - start_s - window_s) / step_s + 1e-9)) + 1
+    if k > MAX_WINDOWS:
+        raise ParameterError(f"windows of {window_s:g} s every {step_s:g} s over {end_s - start_s:.6g} s would be "
+                             f"{k} windows, more than the {MAX_WINDOWS} aspectus computes features for",
+                             hint="choose a larger step_s (--step-s) or a longer window_s")
     starts = start_s + step_s * np.arange(k)
     return pd.DataFrame({"label": [f"w{i:04d}" for i in range(k)], "start_s": starts, "end_s": starts + window_s})

@@ -27,15 +27,66 @@ from aspectus.errors import AspectusInputError
 
 #: file names (in a clip's output folder) that hold one row or one picture per frame
 PER_FRAME_FILES = ("samples.parquet", "samples.csv")
-#: glob patterns of other per-frame caches and previews a clip folder may hold
-#: (``.*.part`` are temporary files of a killed run: they may hold half a samples table)
-PER_FRAME_GLOBS = ("landmarks*.npz", "landmarks*.parquet", "*.frames.npz", "preview*.png", "preview*.jpg", ".*.part")
+#: glob patterns of other per-frame caches and previews a clip folder may hold; deleted only when the
+#: folder's run.json lists them (temporary ``.<name>.<random>.part`` files of a killed write of a listed
+#: or per-frame name go too: they may hold half a samples table)
+PER_FRAME_GLOBS = ("landmarks*.npz", "landmarks*.parquet", "*.frames.npz", "preview*.png", "preview*.jpg")
 #: folders of cached frames inside a clip folder
 PER_FRAME_DIRS = ("frames", "frame_cache", "previews")
 
 
 # --------------------------------------------------------------------------------------------
 # blurring faces in pictures
+
+class FaceBoxFinder:
+    """MediaPipe's face detector kept open, for many pictures in a row (a video player's frames).
+
+    Calling it gives the boxes ``(x0, y0, x1, y1)`` in px of every face in an
+    RGB picture (see :func:`find_face_boxes`). Not thread-safe: one instance
+    per thread; :meth:`close` when done.
+    """
+
+    def __init__(self, *, min_confidence: float = 0.3, margin: float = 0.35):
+        self.min_confidence = float(min_confidence)
+        self.margin = float(margin)
+        self._detectors = None
+
+    def _open(self):
+        from aspectus._env import import_mediapipe, native_stderr_silenced
+
+        mp = import_mediapipe()  # heavy, only when a picture is shown or written
+        dets = []
+        for model in (0, 1):
+            with native_stderr_silenced():
+                dets.append(mp.solutions.face_detection.FaceDetection(model_selection=model,
+                                                                      min_detection_confidence=self.min_confidence))
+        return dets
+
+    def __call__(self, image: np.ndarray) -> list[tuple]:
+        if self._detectors is None:
+            self._detectors = self._open()
+        img = np.ascontiguousarray(np.asarray(image)[..., :3], dtype=np.uint8)
+        H, W = img.shape[:2]
+        boxes = []
+        for det in self._detectors:
+            res = det.process(img)
+            for d in res.detections or []:
+                bb = d.location_data.relative_bounding_box
+                x0, y0, w, h = bb.xmin * W, bb.ymin * H, bb.width * W, bb.height * H
+                boxes.append(_grow((x0, y0, x0 + w, y0 + h), margin=self.margin, shape=(H, W)))
+        return boxes
+
+    def close(self) -> None:
+        for det in self._detectors or []:
+            det.close()
+        self._detectors = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
 
 def find_face_boxes(image: np.ndarray, *, min_confidence: float = 0.3, margin: float = 0.35) -> list[tuple]:
     """Boxes ``(x0, y0, x1, y1)`` in px of every face MediaPipe's face detector finds in an RGB picture.
@@ -55,28 +106,11 @@ def find_face_boxes(image: np.ndarray, *, min_confidence: float = 0.3, margin: f
     -----
     Runs both of the detector's models (short range, within about 2 m, and
     full range, up to about 5 m) so that small faces of bystanders are found
-    too. The model files ship inside the mediapipe wheel.
+    too. The model files ship inside the mediapipe wheel. For many pictures
+    in a row keep a :class:`FaceBoxFinder` open instead.
     """
-    from aspectus._env import import_mediapipe, native_stderr_silenced
-
-    mp = import_mediapipe()  # heavy, only when a picture is written
-
-    img = np.ascontiguousarray(np.asarray(image)[..., :3], dtype=np.uint8)
-    H, W = img.shape[:2]
-    boxes = []
-    for model in (0, 1):
-        with native_stderr_silenced():
-            det = mp.solutions.face_detection.FaceDetection(model_selection=model,
-                                                            min_detection_confidence=float(min_confidence))
-        try:
-            res = det.process(img)
-        finally:
-            det.close()
-        for d in res.detections or []:
-            bb = d.location_data.relative_bounding_box
-            x0, y0, w, h = bb.xmin * W, bb.ymin * H, bb.width * W, bb.height * H
-            boxes.append(_grow((x0, y0, x0 + w, y0 + h), margin=margin, shape=(H, W)))
-    return boxes
+    with FaceBoxFinder(min_confidence=min_confidence, margin=margin) as finder:
+        return finder(image)
 
 
 def _grow(box, *, margin: float, shape) -> tuple[int, int, int, int]:
@@ -178,7 +212,8 @@ class PurgePlan:
     target : Path
         The folder or study file given.
     clip_dirs : list of Path
-        Clip output folders found (each holds a ``run.json`` or a samples table).
+        Clip output folders found (each holds a ``run.json`` written by aspectus; a folder that merely
+        holds a file called ``samples.csv`` is not one).
     files : list of Path
         Per-frame files to delete.
     dirs : list of Path
@@ -194,8 +229,48 @@ class PurgePlan:
     bytes: int = 0
 
 
+def _our_run_json(d: Path) -> dict | None:
+    """The folder's run.json if it is one aspectus wrote (a JSON object with its version, the input's
+    hash and an ``outputs`` table), else None: a folder without it is not ours to delete from."""
+    rj = d / "run.json"
+    if not rj.is_file() or rj.is_symlink():
+        return None
+    try:
+        run = json.loads(rj.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    if not (isinstance(run, dict) and isinstance(run.get("outputs"), dict) and "aspectus" in run
+            and isinstance(run.get("input_sha256"), str)):
+        return None
+    return run
+
+
 def _is_clip_dir(d: Path) -> bool:
-    return (d / "run.json").is_file() or any((d / n).is_file() for n in PER_FRAME_FILES)
+    return _our_run_json(d) is not None
+
+
+def _listed_per_frame(d: Path, run: dict) -> tuple[list[Path], list[Path]]:
+    """Per-frame files and folders in clip folder ``d`` that its run.json lists as written by aspectus,
+    plus the temporary files aspectus's own writes of those names left (``.<name>.<random>.part``)."""
+    import fnmatch
+
+    files, dirs = [], []
+    names = [str(n) for n in (run.get("outputs") or {})]
+    for name in names:
+        if "/" in name.rstrip("/") or "\\" in name or name.startswith("."):
+            continue  # only plain names beside run.json
+        bare = name.rstrip("/")
+        p = d / bare
+        if p.is_symlink():
+            continue
+        per_frame = bare in PER_FRAME_FILES or any(fnmatch.fnmatch(bare, g) for g in PER_FRAME_GLOBS)
+        if per_frame and p.is_file():
+            files.append(p)
+        elif bare in PER_FRAME_DIRS and p.is_dir():
+            dirs.append(p)
+    for name in set(names) | set(PER_FRAME_FILES):
+        files += sorted(p for p in d.glob(f".{name.rstrip('/')}.*.part") if p.is_file() and not p.is_symlink())
+    return sorted(set(files)), sorted(set(dirs))
 
 
 def _output_root(target: Path) -> Path:
@@ -246,15 +321,10 @@ def plan_purge(target, *, max_depth: int = 4) -> PurgePlan:
                 nxt += [c for c in sorted(d.iterdir()) if c.is_dir() and not c.is_symlink()
                         and c.name not in PER_FRAME_DIRS and not c.name.startswith(".")]
         level = nxt
-    for d in plan.clip_dirs:
-        for name in PER_FRAME_FILES:
-            if (d / name).is_file():
-                plan.files.append(d / name)
-        for pat in PER_FRAME_GLOBS:
-            plan.files += sorted(p for p in d.glob(pat) if p.is_file() and p not in plan.files)
-        for name in PER_FRAME_DIRS:
-            if (d / name).is_dir() and not (d / name).is_symlink():
-                plan.dirs.append(d / name)
+    for d in plan.clip_dirs:  # only what a run.json of aspectus lists: never a file of the user's
+        files, dirs = _listed_per_frame(d, _our_run_json(d) or {})
+        plan.files += files
+        plan.dirs += dirs
     plan.bytes = sum(p.stat().st_size for p in plan.files) + sum(_dir_bytes(d) for d in plan.dirs)
     return plan
 
@@ -310,5 +380,5 @@ def purge(plan: PurgePlan) -> PurgePlan:
     return done
 
 
-__all__ = ["save_preview_image", "blur_faces", "find_face_boxes", "plan_purge", "purge", "PurgePlan",
+__all__ = ["save_preview_image", "blur_faces", "find_face_boxes", "FaceBoxFinder", "plan_purge", "purge", "PurgePlan",
            "PER_FRAME_FILES", "PER_FRAME_GLOBS", "PER_FRAME_DIRS"]

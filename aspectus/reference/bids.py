@@ -98,7 +98,7 @@ def _suffix(name: str) -> str:
 
 def _load_json(path: Path) -> dict:
     try:
-        d = json.loads(path.read_text(encoding="utf-8"))
+        d = json.loads(path.read_text(encoding="utf-8-sig"))
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise ReferenceFormatError(f"sidecar is not valid JSON ({exc})", path=path) from None
     if not isinstance(d, dict):

@@ -145,6 +145,12 @@ class TableMapping:
                                  hint="use deg, px, mm or norm")
         if self.origin not in ORIGINS:
             raise ParameterError(f"origin {self.origin!r} is not one of {', '.join(ORIGINS)}")
+        d = self.delimiter
+        if d is not None and d not in ("\\t", r"\s+") and (not isinstance(d, str) or len(d) != 1
+                                                           or d in "\r\n\"" or not (d == "\t" or d.isprintable())):
+            raise ParameterError(f"delimiter {d!r} is not one character that can separate fields",
+                                 hint='give one character such as "," ";" "|" or "\\t" for a tab, or leave it '
+                                      "out to have it detected")
         if self.units in ("px", "mm", "norm") and self.screen is None:
             raise ParameterError(f"positions in {self.units} need the screen geometry",
                                  hint="give --screen-size-mm W H and --distance-mm D"
@@ -181,7 +187,7 @@ class TableMapping:
         """Read a mapping written by :meth:`save`."""
         path = Path(path)
         try:
-            d = json.loads(path.read_text(encoding="utf-8"))
+            d = json.loads(path.read_text(encoding="utf-8-sig"))
         except FileNotFoundError:
             raise ReferenceFormatError("mapping file not found", path=path) from None
         except (json.JSONDecodeError, UnicodeDecodeError) as exc:
@@ -216,16 +222,61 @@ def _read_text(path: Path) -> str:
     except IsADirectoryError:
         raise ReferenceFormatError("is a folder, expected a gaze table file", path=path) from None
     if raw[:2] == b"\x1f\x8b":
-        try:
-            raw = gzip.decompress(raw)
-        except (OSError, EOFError) as exc:
-            raise ReferenceFormatError(f"gzip data is damaged ({exc})", path=path) from None
+        raw = _gunzip_bounded(raw, path)
+    if raw[:2] in (b"\xff\xfe", b"\xfe\xff") or raw[:4] in (b"\x00\x00\xfe\xff", b"\xff\xfe\x00\x00"):
+        raise ReferenceFormatError("is UTF-16/UTF-32 text; aspectus reads UTF-8 (or Latin-1) tables", path=path,
+                                   hint="save the table again as CSV UTF-8")
+    nul = raw.find(b"\x00")
+    if nul >= 0:  # a NUL would end a cell early in the parser (6.7\x00574 read as 6.7): never read such a file
+        line = raw.count(b"\n", 0, nul) + 1
+        raise ReferenceFormatError("holds a NUL byte (binary data, or UTF-16 text without its byte-order mark)",
+                                   path=path, where=f"line {line}",
+                                   hint="export the table again as plain text (CSV UTF-8)")
     for enc in ("utf-8-sig", "latin-1"):
         try:
             return raw.decode(enc)
         except UnicodeDecodeError:
             continue
     raise ReferenceFormatError("cannot decode the file as text", path=path)  # pragma: no cover
+
+
+#: a gzip table may inflate to at most this many times its compressed size (text tables of gaze samples
+#: compress 3-10 times; a "zip bomb" a thousand times and more)
+GZIP_MAX_RATIO = 200
+#: ... and never to more than this many bytes (an hour at 2000 Hz with 20 columns is some 1.5 GB of text)
+GZIP_MAX_BYTES = 4 << 30
+
+
+def _gunzip_bounded(raw: bytes, path: Path) -> bytes:
+    """Inflate gzip data, refusing when it grows beyond :data:`GZIP_MAX_RATIO` x its size or :data:`GZIP_MAX_BYTES`."""
+    import zlib
+
+    limit = min(max(GZIP_MAX_RATIO * len(raw), 64 << 20), GZIP_MAX_BYTES)
+    out = bytearray()
+    d = zlib.decompressobj(16 + zlib.MAX_WBITS)
+    data = raw
+    try:
+        while data:
+            out += d.decompress(data, limit + 1 - len(out))
+            if len(out) > limit:
+                raise ReferenceFormatError(
+                    f"gzip data inflates to more than {limit / 1e6:.0f} MB ({GZIP_MAX_RATIO} times its size or "
+                    f"{GZIP_MAX_BYTES >> 30} GiB at most): not a gzip-compressed gaze table", path=path,
+                    hint="decompress it yourself if it really is one, and give the plain table")
+            data = d.unconsumed_tail
+            if d.eof:
+                rest = d.unused_data
+                if rest.strip(b"\x00"):  # concatenated gzip members (gzip -c a b > c)
+                    d = zlib.decompressobj(16 + zlib.MAX_WBITS)
+                    data = rest
+                else:
+                    break
+        if not d.eof:
+            raise ReferenceFormatError("gzip data is damaged (it ends before the end of the compressed stream)",
+                                       path=path, hint="copy the file again")
+    except zlib.error as exc:
+        raise ReferenceFormatError(f"gzip data is damaged ({exc})", path=path, hint="copy the file again") from None
+    return bytes(out)
 
 
 def _sniff_delimiter(lines: list[str]) -> str:
@@ -299,7 +350,9 @@ def read_raw_table(path, *, delimiter: str | None = None, comment: str = "#", he
         names = list(column_names) if column_names else [str(i) for i in range(len(first))]
         body, body_lines = keep, line_no
     if len(set(names)) != len(names):
-        dup = sorted({n for n in names if names.count(n) > 1})
+        from collections import Counter
+
+        dup = sorted(n for n, c in Counter(names).items() if c > 1)[:10]  # linear: a header may have 1e5 fields
         raise ReferenceFormatError(f"column name(s) {', '.join(dup)} appear more than once", path=path,
                                    where=f"row {line_no[0]}")
     if not body:

@@ -410,7 +410,7 @@ def load_study(path: str | os.PathLike) -> Study:
     if not path.is_file():
         raise AspectusInputError("no such study file", path=path, hint="check the path or create a new study")
     try:
-        with open(path, encoding="utf-8") as fh:
+        with open(path, encoding="utf-8-sig") as fh:
             raw = json.load(fh)
     except UnicodeDecodeError:
         raise AspectusInputError("not a text file", path=path, hint="a study file is JSON text") from None

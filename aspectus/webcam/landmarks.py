@@ -81,6 +81,10 @@ def parse_face_choice(face: str) -> tuple[str, int]:
     raise ParameterError(f"face choice {face!r} not understood", hint='use "largest" or "index:N" (N from 0, left to right)')
 
 
+class FaceChoiceError(ParameterError):
+    """``--face index:N`` names a face that is not in the picture."""
+
+
 _MP_LOCK = threading.Lock()
 
 #: bytes of one serialised landmark: field 1 (x), 2 (y), 3 (z), each a 4-byte float with its tag,
@@ -322,7 +326,12 @@ class FaceTracker:
     def _initial(self, centres, sizes) -> int:
         if self.mode == "index":
             order = np.argsort(centres[:, 0])
-            return int(order[min(self.index, len(order) - 1)])
+            if self.index >= len(order):  # never follow another face than the one asked for
+                raise FaceChoiceError(
+                    f"--face index:{self.index} asks for face {self.index + 1} from the left, but the first frame "
+                    f"with a face (frame {self._frame - 1}) shows {len(order)} face(s)",
+                    hint=f"use index:0 to index:{len(order) - 1}, or \"largest\"")
+            return int(order[self.index])
         return int(np.argmax(sizes))
 
 

@@ -4,9 +4,11 @@ Qt-free, OpenCV only: the desktop app's clip view and the screenshot script
 both use it, and so can a report. Everything works on ``(H, W, 3)`` uint8 RGB
 pictures and returns a new picture (the input is never changed).
 
-Privacy: classroom clips show minors. :func:`draw_overlay` blurs the face by
-default; when it does not know where the face is, it blurs the whole picture
-rather than risk showing one. Only an explicit ``blur=False`` shows faces.
+Privacy: classroom clips show minors. :func:`draw_overlay` blurs every face
+in the picture by default - the followed one and any bystander (found with the
+face detector unless the caller passes the boxes it found); when it does not
+know where any face is, it blurs the whole picture rather than risk showing
+one. Only an explicit ``blur=False`` shows faces.
 
 Landmark indices follow MediaPipe's 478-point face mesh with irises
 (``refine_landmarks=True``): the loops below are the face oval, the eyelid
@@ -154,7 +156,7 @@ def gaze_ray_end(origin_px, *, yaw_deg: float, pitch_deg: float, length_px: floa
 def draw_overlay(image: np.ndarray, *, landmarks_px=None, yaw_deg: float = float("nan"),
                  pitch_deg: float = float("nan"), head_mm: tuple[float, float, float] | None = None,
                  fov_deg: float = 60.0, blur: bool = True, show_mesh: bool = True,
-                 style: OverlayStyle = OverlayStyle()) -> np.ndarray:
+                 style: OverlayStyle = OverlayStyle(), face_boxes=None) -> np.ndarray:
     """Draw the tracked face on a frame.
 
     Parameters
@@ -172,12 +174,18 @@ def draw_overlay(image: np.ndarray, *, landmarks_px=None, yaw_deg: float = float
     fov_deg : float
         Assumed horizontal field of view of the webcam (deg).
     blur : bool
-        Blur the face (default). With no face position known, the whole
-        picture is blurred.
+        Blur every face (default): the tracked one and every box in
+        ``face_boxes``. With no face position known at all, the whole picture
+        is blurred.
     show_mesh : bool
         Draw the face outline, eyelids and iris rings.
     style : OverlayStyle
         Colours and line widths.
+    face_boxes : list of (x0, y0, x1, y1), optional
+        Boxes (px) of every face the caller found in this picture (e.g. with
+        :class:`aspectus.privacy.blur.FaceBoxFinder`; an empty list means it
+        looked and found none). When None and ``blur`` is on, the face
+        detector is run here, so bystanders are blurred too.
 
     Returns
     -------
@@ -194,7 +202,19 @@ def draw_overlay(image: np.ndarray, *, landmarks_px=None, yaw_deg: float = float
     elif head_mm is not None:
         box = face_box_from_head(head_x_mm=head_mm[0], head_y_mm=head_mm[1], head_z_mm=head_mm[2], shape=shape,
                                  fov_deg=fov_deg)
-    img = blur_region(img, box) if blur else img.copy()
+    if blur:
+        if face_boxes is None:
+            from aspectus.privacy.blur import find_face_boxes
+
+            face_boxes = find_face_boxes(img)
+        boxes = ([box] if box is not None else []) + [tuple(int(v) for v in b) for b in face_boxes]
+        if not boxes:
+            img = blur_region(img, None)
+        else:
+            for b in boxes:
+                img = blur_region(img, b)
+    else:
+        img = img.copy()
     origin = None
     scale_px = None
     if pts is not None:

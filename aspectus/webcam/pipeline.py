@@ -4,9 +4,11 @@ This is the one place where the steps are strung together; the CLI, the
 batch runner and the desktop app all call :func:`process_clip` (and
 :func:`reanalyse` for new detection parameters on cached samples).
 
-Per-clip output folder (all files written atomically; ``run.json`` last, so
-its presence with a matching input hash and parameter hash means the clip is
-complete):
+Per-clip output folder (all files written atomically; a new result is built
+in ``.next/`` beside the earlier one and moved over it only when complete,
+``run.json`` last - so a run that fails or is killed leaves the earlier
+complete result valid, and a run.json with a matching input hash and
+parameter hash means the clip is complete; see :func:`recover_output_dir`):
 
 ==================  =========================================================
 samples.parquet     the gaze samples table (aspectus.schema), the cache
@@ -26,7 +28,9 @@ table (about 300 bytes per frame), never by frames.
 from __future__ import annotations
 
 import datetime as _dt
+import os
 import platform
+import shutil
 import sys
 import time
 from dataclasses import dataclass, field
@@ -43,7 +47,7 @@ from aspectus.run_record import read_run_json, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import GazeParams, estimate_gaze
 from aspectus.webcam.frame_geometry import RECORD_WIDTH, frame_item, start_geometry
-from aspectus.webcam.landmarks import FaceTracker, mediapipe_version, parse_face_choice
+from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.schema import SAMPLE_COLUMNS
 from aspectus.webcam.video import DecodeReport, FramePrefetcher, probe
 
@@ -97,7 +101,11 @@ class ProcessParams:
     def __post_init__(self):
         from aspectus.errors import ParameterError
 
-        parse_face_choice(self.face)
+        mode, index = parse_face_choice(self.face)
+        if mode == "index" and index >= int(self.max_faces):
+            raise ParameterError(f"face choice {self.face!r}: only {int(self.max_faces)} face(s) are looked for per "
+                                 f"frame (max_faces), so face {index} from the left can never be found",
+                                 hint=f"raise --max-faces to {index + 1} (at most 10) or choose a lower index")
         if not (20.0 <= float(self.fov_deg) <= 120.0):
             raise ParameterError(f"field of view {self.fov_deg} deg is outside 20-120 deg")
         if not (1 <= int(self.max_faces) <= 10):
@@ -207,7 +215,10 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
             if cancel is not None and cancel.is_set():
                 raise Cancelled(f"cancelled while processing {clip.name}")
             geometry.check()
-            obs = tracker.process(fr.image)
+            try:
+                obs = tracker.process(fr.image)
+            except FaceChoiceError as exc:
+                raise FaceChoiceError(exc.problem, path=clip, hint=exc.hint) from None
             geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine, faces_in_view=tracker.faces_in_view))
             n_in += 1
             if progress is not None and (n_in % 10 == 0):
@@ -368,18 +379,90 @@ def _segments_frame(segments):
 _run_json_path = run_json_path
 
 
-def _withdraw_run_json(out_dir: Path) -> None:
-    """Remove a folder's run.json before any output it vouches for is replaced.
+#: folder inside a clip's output folder where a new result is built before it replaces the old one
+STAGING_DIR = ".next"
 
-    run.json lists the checksums of the files beside it; once one of them is
-    rewritten it no longer tells the truth. Withdrawing it first means a run
-    killed half-way leaves a folder without run.json (not finished, processed
-    again next time) rather than a run.json that does not match its files.
-    """
+
+def _fsync_dir(d: Path) -> None:
     try:
-        _run_json_path(Path(out_dir)).unlink()
-    except FileNotFoundError:
+        fd = os.open(d, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
         pass
+    finally:
+        os.close(fd)
+
+
+def _finish_swap(out_dir: Path) -> None:
+    """Move a complete staged result (its run.json is in the staging folder) over the old one; run.json last."""
+    st = out_dir / STAGING_DIR
+    for p in sorted(st.iterdir()):
+        if p.name != "run.json" and p.is_file() and not p.name.startswith("."):
+            os.replace(p, out_dir / p.name)
+    os.replace(st / "run.json", _run_json_path(out_dir))
+    _fsync_dir(out_dir)
+    shutil.rmtree(st, ignore_errors=True)
+
+
+def recover_output_dir(out_dir) -> str | None:
+    """Bring a clip folder left by a killed run back to one complete result; say what was done.
+
+    A new result is built in ``STAGING_DIR`` beside the old one and its
+    run.json is written there last; only then are the files moved over the old
+    ones (run.json last). So after a kill either the staging folder lacks
+    run.json (the new result was incomplete: it is discarded and the old
+    result stands) or it has one (the new result was complete: the move is
+    finished). Temporary ``.part`` files of killed writes are removed. Call it
+    only from the one process writing into ``out_dir``.
+    """
+    from aspectus.atomic import remove_stale_parts
+
+    out_dir = Path(out_dir)
+    if not out_dir.is_dir():
+        return None
+    what = None
+    st = out_dir / STAGING_DIR
+    if st.is_dir() and not st.is_symlink():
+        if (st / "run.json").is_file():
+            _finish_swap(out_dir)
+            what = "finished installing a complete result a killed run had built"
+        else:
+            shutil.rmtree(st, ignore_errors=True)
+            what = "discarded the incomplete result of a killed run; the earlier result stands"
+    if remove_stale_parts(out_dir):
+        what = (what + "; " if what else "") + "removed temporary files of killed writes"
+    return what
+
+
+class _Staged:
+    """Context: a staging folder to build the new result in; on success it replaces the old result.
+
+    On any failure (a full disk, an error, an interrupt) the staging folder is
+    removed and the earlier result in ``out_dir`` is untouched.
+    """
+
+    def __init__(self, out_dir: Path):
+        self.out_dir = Path(out_dir)
+        self.path = self.out_dir / STAGING_DIR
+
+    def __enter__(self) -> Path:
+        self.out_dir.mkdir(parents=True, exist_ok=True)
+        shutil.rmtree(self.path, ignore_errors=True)
+        self.path.mkdir()
+        return self.path
+
+    def commit(self, run: dict) -> None:
+        write_json(self.path / "run.json", run)
+        _fsync_dir(self.path)
+        _finish_swap(self.out_dir)
+
+    def __exit__(self, et, ev, tb):
+        if et is not None and not (self.path / "run.json").is_file():
+            shutil.rmtree(self.path, ignore_errors=True)
+        return False
 
 
 class CacheError(AspectusInputError):
@@ -462,6 +545,11 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         from aspectus.errors import VideoError
 
         raise VideoError("is a folder, not a video file", path=clip, hint="give the clip file inside it")
+    if not clip.is_file():  # a FIFO named .mp4 would block the hash (and every clip after it) for good
+        from aspectus.errors import VideoError
+
+        raise VideoError("is not a regular file (a pipe, socket or device)", path=clip,
+                         hint="give the recorded clip file itself")
     try:
         input_sha = sha256_file(clip)
     except OSError as exc:
@@ -474,6 +562,7 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
     samples = None
     meta = None
     reused = False
+    recover_output_dir(out_dir)  # a run killed earlier: finish or discard its half-installed result
     prev = read_run_json(out_dir) if reuse else None
     if prev and prev.get("input_sha256") == input_sha and prev.get("extraction_sha256") == extraction_sha:
         try:
@@ -513,24 +602,26 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
     if cancel is not None and cancel.is_set():
         raise Cancelled(f"cancelled before writing {clip.name}")
     progress(0.98, f"{clip.name}: writing")
-    _withdraw_run_json(out_dir)
-    if reused:
-        from aspectus.events.analysis import write_analysis
+    staged = _Staged(out_dir)
+    with staged as stage:  # the new result is built beside the old one, which stays valid until the swap
+        if reused:
+            from aspectus.events.analysis import write_analysis
 
-        written = write_analysis(analysis, out_dir, meta=run)
-        outputs = dict(prev.get("outputs") or {})
-        csv = out_dir / "samples.csv"
-        want = (outputs.get("samples.csv") or {}).get("sha256")
-        if not csv.exists() or (want and sha256_file(csv) != want):  # deleted or edited: write it again
-            write_csv(csv, samples)
-            written = dict(written) | {"samples_csv": csv}
-        for p in written.values():
-            fp = Path(p)
-            outputs[fp.name] = {"sha256": sha256_file(fp), "bytes": fp.stat().st_size}
-    else:
-        outputs = _write_outputs(out_dir, samples, analysis, run)
-    run["outputs"] = outputs
-    write_json(_run_json_path(out_dir), run)
+            written = write_analysis(analysis, stage, meta=run)
+            outputs = dict(prev.get("outputs") or {})
+            csv = out_dir / "samples.csv"
+            want = (outputs.get("samples.csv") or {}).get("sha256")
+            if not csv.exists() or (want and sha256_file(csv) != want):  # deleted or edited: write it again
+                written = dict(written) | {"samples_csv": write_csv(stage / "samples.csv", samples)}
+            for p in written.values():
+                fp = Path(p)
+                outputs[fp.name] = {"sha256": sha256_file(fp), "bytes": fp.stat().st_size}
+        else:
+            outputs = _write_outputs(stage, samples, analysis, run)
+        run["outputs"] = outputs
+        if cancel is not None and cancel.is_set():
+            raise Cancelled(f"cancelled before writing {clip.name}")
+        staged.commit(run)
     progress(1.0, f"{clip.name}: done")
     return ClipResult(clip=clip, out_dir=out_dir, samples=samples, analysis=analysis, summary=summary, reused_samples=reused)
 
@@ -556,14 +647,16 @@ def reanalyse(out_dir, analysis_params, *, segments=None, write: bool = True):
         run["params_sha256"] = params_fingerprint(params)
         run["analysis_quality"] = result.quality
         run["quality"] = summarise(samples, result, run.get("extraction") or {})  # counts and verdict follow
-        _withdraw_run_json(out_dir)
-        written = write_analysis(result, out_dir, meta=run)
-        outputs = dict(run.get("outputs") or {})
-        for p in written.values():
-            fp = Path(p)
-            outputs[fp.name] = {"sha256": sha256_file(fp), "bytes": fp.stat().st_size}
-        run["outputs"] = outputs
-        write_json(_run_json_path(out_dir), run)
+        recover_output_dir(out_dir)
+        staged = _Staged(out_dir)
+        with staged as stage:
+            written = write_analysis(result, stage, meta=run)
+            outputs = dict(run.get("outputs") or {})
+            for p in written.values():
+                fp = Path(p)
+                outputs[fp.name] = {"sha256": sha256_file(fp), "bytes": fp.stat().st_size}
+            run["outputs"] = outputs
+            staged.commit(run)
     return result
 
 
@@ -573,4 +666,4 @@ def clip_output_dir(out_root, clip_path) -> Path:
 
 
 __all__ = ["ProcessParams", "ClipResult", "process_clip", "reanalyse", "load_samples", "extract_samples",
-           "summarise", "clip_output_dir", "CacheError", "read_run_json"]
+           "summarise", "clip_output_dir", "CacheError", "read_run_json", "recover_output_dir", "STAGING_DIR"]

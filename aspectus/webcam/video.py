@@ -107,6 +107,9 @@ def _open(path: Path):
         raise VideoError("file not found", path=path, hint="check the path")
     if path.is_dir():
         raise VideoError("is a folder, not a video file", path=path)
+    if not path.is_file():  # a FIFO, socket or device would block the reader for good
+        raise VideoError("is not a regular file (a pipe, socket or device)", path=path,
+                         hint="give the recorded clip file itself")
     if path.stat().st_size == 0:
         raise VideoError("file is empty (0 bytes)", path=path, hint="the recording was not saved; re-export it")
     try:

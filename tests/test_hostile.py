@@ -1,0 +1,400 @@
+"""The hostile-input findings (issue 17): nothing leaked, nothing lost, no hangs, no silent wrong numbers.
+
+Each test here failed on the code before its fix. Clips are rendered tiny
+(320x240, 1-1.5 s) so the whole file runs in well under a minute of CPU.
+"""
+from __future__ import annotations
+
+import gzip
+import json
+import os
+import re
+import stat
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from aspectus.cli import main
+from aspectus.errors import AspectusInputError, ParameterError
+
+REPO = Path(__file__).resolve().parents[1]
+TABLE_ARGS = ["--time-col", "time_ms", "--time-unit", "ms", "--x-col", "gx_deg", "--y-col", "gy_deg"]
+
+
+def _table(n: int = 200, rate_hz: float = 100.0) -> str:
+    rng = np.random.default_rng(0)
+    t = np.arange(n) * 1000.0 / rate_hz
+    x = np.repeat(rng.uniform(-8, 8, n // 25 + 1), 25)[:n] + rng.normal(0, 0.05, n)
+    y = np.repeat(rng.uniform(-4, 4, n // 25 + 1), 25)[:n] + rng.normal(0, 0.05, n)
+    return "time_ms,gx_deg,gy_deg\n" + "".join(f"{a:.1f},{b:.4f},{c:.4f}\n" for a, b, c in zip(t, x, y))
+
+
+@pytest.fixture(scope="module")
+def small_clip(tmp_path_factory) -> Path:
+    from aspectus.synth.render import render_clip, synth_trajectory
+
+    d = tmp_path_factory.mktemp("hostile_clip")
+    tr = synth_trajectory(duration_s=1.5 + 1 / 60, seed=17, blink_rate_per_min=0.0)
+    return render_clip(d / "linden_p07_s02.mp4", tr, size_px=(320, 240), fps=30.0, seed=17, noise_sd=1.5).path
+
+
+@pytest.fixture(scope="module")
+def processed_once(small_clip, tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("hostile_out")
+    assert main(["process", str(small_clip), "-o", str(out), "--quiet"]) == 0
+    return out
+
+
+def _copy(src: Path, dst: Path) -> Path:
+    import shutil
+
+    shutil.copytree(src, dst)
+    return dst
+
+
+def _run_json_holds(d: Path) -> dict:
+    """run.json is there and every output it lists matches its checksum: a complete, valid result."""
+    from aspectus.atomic import sha256_file
+
+    run = json.loads((d / "run.json").read_text())
+    for name, rec in run["outputs"].items():
+        assert sha256_file(d / name) == rec["sha256"], name
+    return run
+
+
+# --- privacy -------------------------------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def bystanders_frame(tmp_path_factory):
+    """A frame of `aspectus render --extra-faces 2`: the subject and two classmates, noise-free."""
+    from aspectus.synth.render import render_clip, synth_trajectory
+    from aspectus.webcam.video import read_frame_at
+
+    d = tmp_path_factory.mktemp("bystanders")
+    tr = synth_trajectory(duration_s=0.5 + 1 / 60, seed=31)
+    clip = render_clip(d / "linden_p03_s01.mp4", tr, size_px=(640, 360), noise_sd=0.0, extra_faces=2, seed=31).path
+    return clip, read_frame_at(clip, 0.2).image
+
+
+def _bystander_boxes(w: int, h: int, half_px: int = 45) -> list[tuple[int, int, int, int]]:
+    # where the renderer pastes the two classmates (aspectus/synth/render.py: 13 % and 87 % across, 58 % down)
+    return [(int(fx * w) - half_px, int(0.58 * h) - half_px, int(fx * w) + half_px, int(0.58 * h) + half_px)
+            for fx in (0.13, 0.87)]
+
+
+def test_overlay_blurs_the_bystanders_too(bystanders_frame):
+    """Issue 17.1: draw_overlay blurred only the followed face; the two classmates showed sharp."""
+    from test_privacy import MAX_HF_SHARE, hf_energy
+
+    from aspectus.webcam.overlay import FrameLandmarker, draw_overlay
+
+    _, frame = bystanders_frame
+    lm = FrameLandmarker()
+    try:
+        pts = lm(frame)  # the largest face: the subject
+    finally:
+        lm.close()
+    assert pts is not None
+    shown = draw_overlay(frame, landmarks_px=pts, show_mesh=False)
+    for box in _bystander_boxes(frame.shape[1], frame.shape[0]):
+        raw = hf_energy(frame, box)
+        assert raw > 20, box  # a face with edges to lose
+        assert hf_energy(shown, box) < MAX_HF_SHARE * raw, box
+    # the caller's own boxes are used as given (the clip view passes the detector's boxes of each frame)
+    from aspectus.privacy.blur import find_face_boxes
+
+    boxes = find_face_boxes(frame)
+    again = draw_overlay(frame, landmarks_px=pts, show_mesh=False, face_boxes=boxes)
+    assert np.array_equal(again, shown)
+
+
+@pytest.mark.gui
+@pytest.mark.timeout(120)
+def test_clip_view_blurs_every_face_of_an_extra_faces_clip(qtbot, bystanders_frame):
+    """Issue 17.1 in the app: with "Show faces unblurred" unticked no face is shown sharp."""
+    from test_privacy import MAX_HF_SHARE, hf_energy
+
+    from ui.clip_view import ClipView
+
+    clip, frame = bystanders_frame
+    view = ClipView()
+    qtbot.addWidget(view)
+    assert view.mesh.isChecked() and not view.unblur.isChecked()  # the defaults: the followed face is found
+    with qtbot.waitSignal(view.frame_shown, timeout=60000):
+        view.set_clip(clip, position_s=0.2)
+    if view._lms is None:  # the face mesh runs on a paused frame: wait for the frame that carries it
+        with qtbot.waitSignal(view.frame_shown, timeout=60000):
+            view.seek(0.2)
+    assert view._lms is not None
+    shown = view.shown_image()
+    for box in _bystander_boxes(frame.shape[1], frame.shape[0]):
+        assert hf_energy(shown, box) < MAX_HF_SHARE * hf_energy(frame, box), box
+    view.shutdown()
+
+
+def test_outputs_follow_the_umask(tmp_path):
+    """Issue 17.3: mkstemp made every output owner-only (0600) whatever the umask."""
+    from aspectus.atomic import write_json, write_text
+
+    old = os.umask(0o022)
+    try:
+        p = write_text(tmp_path / "a.txt", "x")
+        q = write_json(tmp_path / "b.json", {"a": 1})
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE(p.stat().st_mode) == 0o644
+    assert stat.S_IMODE(q.stat().st_mode) == 0o644
+    old = os.umask(0o077)
+    try:
+        r = write_text(tmp_path / "c.txt", "x")
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE(r.stat().st_mode) == 0o600
+
+
+# --- data loss -----------------------------------------------------------------------------------
+
+def test_purge_leaves_folders_without_our_run_json_alone(tmp_path, capsys):
+    """Issue 17.4: any folder with a file named samples.csv counted as a clip folder and was emptied."""
+    d = tmp_path / "d" / "a"
+    (d / "frames").mkdir(parents=True)
+    (d / "samples.csv").write_text("mine\n")
+    (d / "preview_fig.png").write_text("x\n")
+    (d / "frames" / "1.png").write_text("y\n")
+    assert main(["purge", str(tmp_path / "d"), "--yes"]) == 2
+    assert "holds no clip output folders" in capsys.readouterr().err
+    assert (d / "samples.csv").read_text() == "mine\n"
+    assert (d / "preview_fig.png").exists() and (d / "frames" / "1.png").exists()
+    # a run.json that is not ours (any JSON) does not make it ours either
+    (d / "run.json").write_text('{"note": "my own run log"}')
+    assert main(["purge", str(tmp_path / "d"), "--yes"]) == 2
+    assert (d / "samples.csv").exists()
+
+
+def test_purge_deletes_only_what_run_json_lists(processed_once, tmp_path, capsys):
+    out = _copy(processed_once, tmp_path / "out")
+    d = out / "linden_p07_s02"
+    (d / "preview_fig.png").write_text("the user's own figure\n")
+    (d / "frames").mkdir()
+    (d / "frames" / "1.png").write_text("y\n")
+    (d / ".samples.parquet.k3j4.part").write_bytes(b"half a table")
+    assert main(["purge", str(out), "--yes"]) == 0
+    assert not (d / "samples.parquet").exists() and not (d / "samples.csv").exists()
+    assert not (d / ".samples.parquet.k3j4.part").exists()
+    assert (d / "preview_fig.png").exists() and (d / "frames" / "1.png").exists()
+
+
+def test_a_failed_rerun_keeps_the_earlier_result(processed_once, small_clip, tmp_path, monkeypatch, capsys):
+    """Issue 17.5: a re-run deleted run.json first; a full disk or a kill then left no valid result."""
+    import errno
+
+    import aspectus.atomic as atomic
+
+    out = _copy(processed_once, tmp_path / "out")
+    d = out / "linden_p07_s02"
+    before = _run_json_holds(d)
+    real = atomic.write_csv
+
+    def disk_full(target, df, **kw):
+        if Path(target).name == "features.csv":
+            raise OSError(errno.ENOSPC, "No space left on device", str(target))
+        return real(target, df, **kw)
+
+    monkeypatch.setattr(atomic, "write_csv", disk_full)
+    assert main(["process", str(small_clip), "-o", str(out), "--quiet", "--no-reuse", "--window-s", "0.5"]) == 1
+    err = capsys.readouterr().err
+    assert "No space left" in err and "earlier result" in err, err
+    after = _run_json_holds(d)  # still there, and every file it lists is the one it vouches for
+    assert after["created_utc"] == before["created_utc"]
+    assert not any(p.name.endswith(".part") for p in d.rglob("*"))
+    assert not (d / ".next").exists()
+
+
+def test_a_run_killed_mid_install_is_finished_or_discarded(processed_once, small_clip, tmp_path):
+    """Issue 17.5: stale .part files and a half-built result of a killed run are cleaned by the next run."""
+    from aspectus.webcam.pipeline import STAGING_DIR, recover_output_dir
+
+    out = _copy(processed_once, tmp_path / "out")
+    d = out / "linden_p07_s02"
+    # killed while building: an incomplete staging folder and a stray temporary file
+    (d / STAGING_DIR).mkdir()
+    (d / STAGING_DIR / "events.csv").write_text("half\n")
+    (d / ".samples.parquet.a8b9.part").write_bytes(b"half")
+    assert "discarded" in recover_output_dir(d)
+    assert not (d / STAGING_DIR).exists() and not (d / ".samples.parquet.a8b9.part").exists()
+    _run_json_holds(d)
+    # killed while moving a complete new result in: the move is finished
+    st = d / STAGING_DIR
+    st.mkdir()
+    run = json.loads((d / "run.json").read_text())
+    from aspectus.atomic import sha256_file, write_json
+
+    (st / "events.csv").write_text("type,onset_s\n")
+    run["outputs"]["events.csv"] = {"sha256": sha256_file(st / "events.csv"), "bytes": 13}
+    run["created_utc"] = "2026-01-01T00:00:00+00:00"
+    write_json(st / "run.json", run)
+    assert "finished" in recover_output_dir(d)
+    assert _run_json_holds(d)["created_utc"] == "2026-01-01T00:00:00+00:00"
+    # and `process` does it itself before anything else
+    (d / ".events.csv.zz.part").write_bytes(b"x")
+    assert main(["process", str(small_clip), "-o", str(out), "--quiet"]) == 0
+    assert not (d / ".events.csv.zz.part").exists()
+    _run_json_holds(d)
+
+
+@pytest.mark.timeout(120)
+def test_sigkill_during_a_rerun_never_leaves_the_folder_without_a_valid_result(processed_once, small_clip, tmp_path):
+    """A real SIGKILL at several moments of a re-run: afterwards run.json holds (old or new), always."""
+    import signal
+    import time
+
+    out = _copy(processed_once, tmp_path / "out")
+    d = out / "linden_p07_s02"
+    env = dict(os.environ, PYTHONPATH=str(REPO))
+    for delay_s in (0.3, 1.5, 3.0):
+        proc = subprocess.Popen([sys.executable, "-m", "aspectus", "process", str(small_clip), "-o", str(out),
+                                 "--quiet", "--no-reuse"], env=env, stdout=subprocess.DEVNULL,
+                                stderr=subprocess.DEVNULL)
+        time.sleep(delay_s)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait()
+        # what a reader sees at once: the earlier result, or a new complete one being moved in
+        if not (d / ".next" / "run.json").exists():
+            _run_json_holds(d)
+    assert main(["process", str(small_clip), "-o", str(out), "--quiet"]) == 0
+    _run_json_holds(d)
+    assert not (d / ".next").exists() and not list(d.glob(".*.part"))
+
+
+# --- hangs and runaway memory --------------------------------------------------------------------
+
+@pytest.mark.timeout(60)
+def test_a_fifo_named_like_a_clip_is_refused_not_waited_on(small_clip, tmp_path, capsys):
+    """Issue 17.8: a FIFO named .mp4 hung `process` in open() for hashing, and every clip after it."""
+    fifo = tmp_path / "pipe.mp4"
+    os.mkfifo(fifo)
+    from aspectus.atomic import sha256_file
+
+    with pytest.raises(AspectusInputError, match="not a regular file"):
+        sha256_file(fifo)
+    code = main(["process", str(fifo), str(small_clip), "-o", str(tmp_path / "out"), "--quiet"])
+    assert code == 1
+    err = capsys.readouterr().err
+    assert re.search(r"pipe\.mp4.*not a regular file", err), err
+    assert (tmp_path / "out" / small_clip.stem / "run.json").is_file()  # the clip after it still ran
+
+
+def test_unbounded_feature_windows_are_refused(tmp_path, capsys):
+    """Issue 17.9: --window-s 1 --step-s 1e-7 grew memory without bound."""
+    src = tmp_path / "t.csv"
+    src.write_text(_table())
+    assert main(["events", str(src), "-o", str(tmp_path / "o"), *TABLE_ARGS, "--window-s", "1", "--step-s", "1e-7"]) == 2
+    err = capsys.readouterr().err
+    assert "step_s" in err and "window" in err and "Traceback" not in err
+    from aspectus.events.segments import MAX_WINDOWS, fixed_windows
+
+    with pytest.raises(ParameterError, match="windows"):
+        fixed_windows(0.0, 10 * 3600.0, window_s=0.1, step_s=0.1)
+    assert MAX_WINDOWS >= 36_000  # 10 hours in 1 s steps still work
+    assert len(fixed_windows(0.0, 3600.0, window_s=10.0, step_s=1.0)) == 3591
+
+
+def test_gzip_bomb_is_refused_before_it_inflates(tmp_path, capsys):
+    """Issue 17.10: a 0.29 MB gzip table inflated to 2.8 GB of memory before the error."""
+    from aspectus.reference.table import GZIP_MAX_RATIO, _gunzip_bounded
+
+    head = b"time_ms,gx_deg,gy_deg\n"
+    bomb = gzip.compress(head + b"0" * (300 << 20), compresslevel=9)  # 300 MB of zeros, 0.3 MB packed
+    p = tmp_path / "bomb.csv.gz"
+    p.write_bytes(bomb)
+    assert len(bomb) * GZIP_MAX_RATIO < 300 << 20
+    assert main(["events", str(p), "-o", str(tmp_path / "o"), *TABLE_ARGS]) == 2
+    err = capsys.readouterr().err
+    assert "bomb.csv.gz" in err and "inflates to more than" in err
+    # an honest gzip table still reads, also as two concatenated members
+    good = _table().encode()
+    assert _gunzip_bounded(gzip.compress(good), p) == good
+    assert _gunzip_bounded(gzip.compress(good[:100]) + gzip.compress(good[100:]), p) == good
+    with pytest.raises(AspectusInputError, match="damaged"):
+        _gunzip_bounded(gzip.compress(good)[:-12], p)
+
+
+def test_duplicate_column_check_on_a_huge_header(tmp_path):
+    """Issue 17.10: the duplicate-column check counted each name in the whole header (quadratic)."""
+    from aspectus.reference.table import read_raw_table
+
+    names = [f"c{i}" for i in range(60_000)] + ["c7", "c9"]
+    p = tmp_path / "wide.csv"
+    p.write_text(",".join(names) + "\n" + ",".join("1" for _ in names) + "\n")
+    with pytest.raises(AspectusInputError, match=r"c7, c9 appear more than once"):
+        read_raw_table(p, delimiter=",")
+
+
+# --- silent wrong results ------------------------------------------------------------------------
+
+def test_nul_byte_inside_a_number_is_an_error_not_a_truncated_number(tmp_path, capsys):
+    """Issue 17.12: 6.7\\x00574 was read as 6.0."""
+    text = _table().splitlines()
+    text[5] = "40.0,6.7\x00574,1.0"
+    p = tmp_path / "nul.csv"
+    p.write_bytes(("\n".join(text) + "\n").encode())
+    assert main(["events", str(p), "-o", str(tmp_path / "o"), *TABLE_ARGS]) == 2
+    err = capsys.readouterr().err
+    assert "nul.csv" in err and "line 6" in err and "NUL" in err
+    assert not (tmp_path / "o" / "events.csv").exists()
+
+
+def test_utf16_table_gets_one_line_saying_so(tmp_path, capsys):
+    p = tmp_path / "u16.csv"
+    p.write_bytes(_table().encode("utf-16"))
+    assert main(["events", str(p), "-o", str(tmp_path / "o"), *TABLE_ARGS]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "UTF-16" in err and "u16.csv" in err
+
+
+def test_face_index_beyond_the_faces_in_view_is_refused(small_clip, tmp_path, capsys):
+    """Issue 17.13: --face index:99 silently followed the only face."""
+    from aspectus.webcam.pipeline import ProcessParams
+
+    with pytest.raises(ParameterError, match="max_faces"):
+        ProcessParams(face="index:99")
+    assert main(["process", str(small_clip), "-o", str(tmp_path / "o"), "--quiet", "--face", "index:99"]) == 2
+    assert "index:99" in capsys.readouterr().err
+    # within max_faces but not in the picture (one face): refused naming the clip, no result written
+    assert main(["process", str(small_clip), "-o", str(tmp_path / "o"), "--quiet", "--face", "index:1"]) == 1
+    err = capsys.readouterr().err
+    assert "linden_p07_s02.mp4" in err and "index:1" in err and "1 face(s)" in err
+    assert not (tmp_path / "o" / small_clip.stem / "run.json").exists()
+
+
+# --- one-line errors -----------------------------------------------------------------------------
+
+@pytest.mark.parametrize("delim", [",,", "\n", ""])
+def test_bad_delimiter_is_a_one_line_error(delim, tmp_path, capsys):
+    p = tmp_path / "t.csv"
+    p.write_text(_table())
+    assert main(["events", str(p), "-o", str(tmp_path / "o"), *TABLE_ARGS, "--delimiter", delim]) == 2
+    err = capsys.readouterr().err
+    assert "delimiter" in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
+
+
+def test_bom_prefixed_segments_mapping_and_sidecar_are_read(small_clip, tmp_path):
+    """Excel writes CSV UTF-8 with a byte-order mark: accepted everywhere a text file is read."""
+    from aspectus.events.segments import read_segments
+    from aspectus.reference.bids import _load_json
+    from aspectus.reference.table import TableMapping
+
+    seg = tmp_path / "seg.csv"
+    seg.write_bytes("\ufefflabel,onset_s,offset_s\npassage_1,0.0,0.7\n".encode())
+    assert list(read_segments(seg)["label"]) == ["passage_1"]
+    m = tmp_path / "map.json"
+    m.write_bytes(("\ufeff" + json.dumps({"time_col": "t", "x_col": "x", "y_col": "y"})).encode())
+    assert TableMapping.load(m).time_col == "t"
+    side = tmp_path / "sub-p01_physio.json"
+    side.write_bytes(("\ufeff" + json.dumps({"SamplingFrequency": 250})).encode())
+    assert _load_json(side)["SamplingFrequency"] == 250
+
