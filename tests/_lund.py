@@ -141,3 +141,28 @@ def runs(mask: np.ndarray, t_s: np.ndarray) -> tuple[int, float]:
     t_end = np.append(t_s, t_s[-1] + dt)
     dur = (t_end[off] - t_s[on]) * 1000.0
     return int(len(on)), float(dur.mean())
+
+
+def as_trajectory(trial: LundTrial, *, duration_s: float | None = None, head_motion: dict | None = None,
+                  distance_mm: float = 600.0, seed: int = 0):
+    """The trial's gaze as a renderer trajectory (camgaze.render_trajectory.Trajectory), for rendered clips.
+
+    Samples the coders marked as lost (``valid`` False) are filled by linear interpolation, so the rendered
+    eyes never jump to the screen corner. ``head_motion``: keys as in
+    ``camgaze.render_trajectory.HEAD_MOTION_DEFAULTS`` (slow drift in rotation, translation and distance,
+    drawn with ``seed``); None keeps the head still at ``distance_mm``.
+    """
+    from camgaze.render_trajectory import HEAD_MOTION_DEFAULTS, Trajectory, head_track
+
+    t = trial.t_s
+    keep = t <= (duration_s if duration_s is not None else t[-1])
+    cols = {}
+    for name, v in (("yaw_deg", trial.yaw_deg), ("pitch_deg", trial.pitch_deg)):
+        s = pd.Series(np.where(trial.valid, v, np.nan)[keep]).interpolate().bfill().ffill()
+        cols[name] = s.to_numpy()
+    df = pd.DataFrame({"t_s": t[keep], **cols})
+    if head_motion is not None:
+        motion = dict(HEAD_MOTION_DEFAULTS, distance_mm=distance_mm) | dict(head_motion)
+        for k, v in head_track(t[keep], motion, seed=seed).items():
+            df[k] = v
+    return Trajectory.from_samples(df, head_distance_mm=distance_mm)

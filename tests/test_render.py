@@ -384,6 +384,16 @@ def test_mpeg4_in_avi(tmp_path):
         render_clip(tmp_path / "vfr.avi", tr, size_px=SMALL, frame_times_s=[0.0, 0.03, 0.07])
 
 
+def test_mpeg4_in_mp4(tmp_path):
+    """MPEG-4 part 2 keeps its time base in 16 bits: the writer used the 1/90000 s clock and FFmpeg refused it."""
+    tr = synth_trajectory(duration_s=0.5, seed=1)
+    res = render_clip(tmp_path / "old.mp4", tr, size_px=SMALL, codec="mpeg4", fps=30)
+    frames, times, _ = _decode(res.path)
+    assert len(frames) == res.frames == 15
+    np.testing.assert_allclose(times, np.arange(15) / 30, atol=1e-6)
+    np.testing.assert_allclose(res.truth["pts_s"], np.arange(15) / 30, atol=1e-6)
+
+
 def test_sample_clips_match_their_truth(repo_root):
     d = repo_root / "sample_clips"
     clips = sorted(d.glob("linden_brook_*.mp4"))

@@ -31,6 +31,9 @@ FORMATS = {".mp4": "mp4", ".mov": "mov", ".m4v": "mp4", ".mkv": "matroska", ".av
 CODECS = ("libx264", "mpeg4")
 #: presentation-timestamp clock of written clips (Matroska itself keeps milliseconds)
 TIME_BASE = Fraction(1, 90000)
+#: MPEG-4 part 2 keeps its time base in 16 bits (FFmpeg refuses 1/90000); 1/30000 s holds 30, 25, 60 and
+#: 29.97 fps frame times exactly
+MPEG4_TIME_BASE = Fraction(1, 30000)
 
 
 def _cpu_has_avx512() -> bool:
@@ -114,8 +117,9 @@ class ClipWriter:
         else:
             s.bit_rate = int((bitrate_kbps or 1500) * 1000)
         if fmt != "avi":
-            s.codec_context.time_base = TIME_BASE
-            s.time_base = TIME_BASE
+            tb = TIME_BASE if codec == "libx264" else MPEG4_TIME_BASE
+            s.codec_context.time_base = tb
+            s.time_base = tb
         else:
             s.codec_context.time_base = 1 / rate
         if rotation_deg % 360:

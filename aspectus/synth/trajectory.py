@@ -223,6 +223,17 @@ def _ou_noise(rng, n, *, rate_hz, sd, tau_s):
     return lfilter([1.0], [1.0, -a], e)
 
 
+def head_track(t_s, motion: dict, *, seed: int = 0) -> dict:
+    """Slow head motion at times ``t_s`` (s): the columns ``head_yaw_deg`` ... ``head_z_mm`` of a trajectory.
+
+    ``motion`` holds the keys of :data:`HEAD_MOTION_DEFAULTS` (amplitudes, the slowest period and the mean
+    distance); each axis is a sum of three sinusoids of random phase (periods about ``period_s``,
+    ``period_s / 2.3`` and ``period_s / 4.1``), drawn with ``seed``.
+    """
+    motion = dict(HEAD_MOTION_DEFAULTS) | dict(motion)
+    return _head_track(np.random.default_rng(seed), np.asarray(t_s, float), motion)
+
+
 def _head_track(rng, t, motion: dict):
     """Slow head motion as a sum of three sinusoids per axis, normalised to the amplitude."""
     period = float(motion["period_s"])

@@ -98,9 +98,10 @@ class GazeParams:
         centres placed by the head pose follow, cancelling a third to a half
         of the vertical gaze signal on rendered clips.
     decouple_highpass_s : float
-        Width of the moving average subtracted before the coupling is
-        measured, s (default 2): slower changes - most head movements - do
-        not enter the estimate.
+        Width of the local quadratic fit whose residuals the coupling is
+        measured on, s (default 0.7): the head's own motion, smooth over
+        that time, does not enter the estimate (a 2-s moving average before
+        let slow head drift through and over-read pitch up to twofold).
     eye_anchors : bool
         With ``refine_iris``: place the head (and so the eyeball centres)
         by skin points below the eyes followed on the picture, the rotation
@@ -121,7 +122,7 @@ class GazeParams:
     head_smooth_ms: float = 300.0
     iris_combine: str = "limbus"
     decouple_reference: bool = True
-    decouple_highpass_s: float = 2.0
+    decouple_highpass_s: float = 0.7
     eye_anchors: bool = True
 
     def __post_init__(self):
@@ -287,7 +288,7 @@ def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray
 
 
 def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarray, ok: np.ndarray,
-                       t_s: np.ndarray, *, smooth_ms: float, highpass_s: float = 2.0,
+                       t_s: np.ndarray, *, smooth_ms: float, highpass_s: float = 0.7,
                        max_coupling: float = 1.5) -> tuple[np.ndarray, dict]:
     """Remove the vertical motion of the eyeball centres that follows the eyes, per eye and clip.
 
@@ -298,17 +299,23 @@ def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarra
     does not move with every eye movement, so the coupling shows as a
     regression of the eyeball centre's picture height on the iris's height
     relative to it: ``C_y = C_true + m * d_y`` with ``d_y = iris_y - C_y``.
-    ``m`` is the least-squares slope over the open-eye frames after both
-    series have been high-passed (a centred moving average of
-    ``highpass_s`` subtracted), so slow changes - most head movements - do
-    not enter it; ``d_y`` is smoothed first by the same moving average as
-    the head pose (``smooth_ms``), as the eyeball centre is. The centre's
-    height is then corrected by ``m * (d_y - median d_y)`` (no change at
-    the clip's median gaze). ``m`` is kept within ``[0, max_coupling]``.
+    The iris height is smoothed first by the same moving average as the head
+    pose (``smooth_ms``), as the eyeball centre is, before ``d_y`` is taken. ``m`` is the least-squares
+    slope over the open-eye frames of the two series' residuals from a
+    local quadratic fit over ``highpass_s`` (Savitzky & Golay 1964): what
+    is left there is what changes within a fraction of a second - the eyes'
+    saccades and whatever follows them - while the head's own motion, smooth
+    on that scale, is removed. (A 2-s moving average used before let head
+    drift with periods of 3-6 s through; over a few seconds it correlates
+    with the gaze by chance and was read as coupling of 0.5-1.2, which
+    over-read pitch by that factor: 1.5-2.3 on rendered clips with slow
+    head drift, tests/test_gaze_units.py.) The centre's height is then
+    corrected by ``m * (d_y - median d_y)`` (no change at the clip's median
+    gaze). ``m`` is kept within ``[0, max_coupling]``.
 
-    Known limit: head movements that go with the eyes on the time scale of
-    ``highpass_s`` (looking down at a page and nodding) look like coupling
-    and are partly removed.
+    Known limit: head movements that go with the eyes within ``highpass_s``
+    (a quick nod with a downward saccade) look like coupling and are partly
+    removed.
 
     Parameters
     ----------
@@ -319,9 +326,12 @@ def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarra
 
     Returns
     -------
-    corrected (N, 2, 3) centres and a record {eye: coupling m or None}.
+    corrected (N, 2, 3) centres and a record {eye: coupling m or None}
+    (plus ``{eye}_se``: the slope's standard error, from the residuals with
+    one independent sample per head-smoothing window).
     """
     from scipy.ndimage import uniform_filter1d
+    from scipy.signal import savgol_filter
 
     out = np.array(centres_mm, float).copy()
     rec: dict = {}
@@ -340,21 +350,28 @@ def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarra
         dt = float(np.median(np.diff(np.asarray(t_s, float)[idx]))) if len(idx) > 1 else 1 / 30
         dt = max(dt, 1e-3)
         k_s = int(round(smooth_ms / 1e3 / dt)) | 1
-        k_h = int(round(highpass_s / dt)) | 1
-        if k_h < 5 or len(idx) < 2 * k_h:
+        # the quadratic fit's window must be clearly wider than the smoothing, or nothing is left of a saccade
+        k_h = max(int(round(highpass_s / dt)) | 1, (2 * k_s + 1) | 1, 7)
+        if len(idx) < 2 * k_h or k_h > n:
             rec[eye] = None
             continue
         frames = np.arange(n)
-        d_f = np.interp(frames, idx, d[idx])
+        i_f = np.interp(frames, idx, iris_px[idx, e, 1])
         c_f = np.interp(frames, idx, c_px[idx])
-        d_s = uniform_filter1d(d_f, k_s, mode="nearest") if k_s >= 3 else d_f
-        X = (d_s - uniform_filter1d(d_s, k_h, mode="nearest"))[use]
-        Y = (c_f - uniform_filter1d(c_f, k_h, mode="nearest"))[use]
+        # the iris is smoothed as the head pose was, and the offset taken from the (already smoothed) centre:
+        # smoothing the offset itself would smooth the centre twice, and the slope would read low
+        d_s = (uniform_filter1d(i_f, k_s, mode="nearest") if k_s >= 3 else i_f) - c_f
+        X = (d_s - savgol_filter(d_s, k_h, 2))[use]
+        Y = (c_f - savgol_filter(c_f, k_h, 2))[use]
         sxx = float(X @ X)
         if not sxx > 0:
             rec[eye] = None
             continue
-        m = float(np.clip((X @ Y) / sxx, 0.0, max_coupling))
+        m_raw = (X @ Y) / sxx
+        res = Y - m_raw * X
+        n_eff = max(len(X) / max(k_s, 1), 2.0)
+        rec[f"{eye}_se"] = round(float(np.sqrt(np.mean(res * res) / (np.mean(X * X) * n_eff))), 3)
+        m = float(np.clip(m_raw, 0.0, max_coupling))
         shift_px = m * (d_s - np.median(d_s[use]))
         found = np.isfinite(z) & (z > 0)
         out[found, e, 1] -= shift_px[found] * z[found] / f

@@ -57,8 +57,10 @@ ProgressFn = Callable[[float, str], None]
 MIN_USABLE_FRAMES = 10
 MIN_USABLE_DURATION_S = 0.5
 #: raised whenever the samples table a clip gives changes for the same parameters, so cached samples of an
-#: earlier method are rebuilt, not reused (2: a face far from the followed one is no longer taken for it)
-EXTRACTION_REVISION = 2
+#: earlier method are rebuilt, not reused (2: a face far from the followed one is no longer taken for it;
+#: 3: the eyeball centres' coupling to the eyes is measured on local-quadratic residuals, not 2-s high-passed
+#: series)
+EXTRACTION_REVISION = 3
 #: nice steps by which the decoder thread and the geometry process yield to the face mesh (see
 #: :func:`extract_samples`)
 DECODE_NICE = 5
