@@ -145,14 +145,14 @@ def runs(mask: np.ndarray, t_s: np.ndarray) -> tuple[int, float]:
 
 def as_trajectory(trial: LundTrial, *, duration_s: float | None = None, head_motion: dict | None = None,
                   distance_mm: float = 600.0, seed: int = 0):
-    """The trial's gaze as a renderer trajectory (camgaze.render_trajectory.Trajectory), for rendered clips.
+    """The trial's gaze as a renderer trajectory (aspectus.synth.trajectory.Trajectory), for rendered clips.
 
     Samples the coders marked as lost (``valid`` False) are filled by linear interpolation, so the rendered
     eyes never jump to the screen corner. ``head_motion``: keys as in
-    ``camgaze.render_trajectory.HEAD_MOTION_DEFAULTS`` (slow drift in rotation, translation and distance,
+    ``aspectus.synth.trajectory.HEAD_MOTION_DEFAULTS`` (slow drift in rotation, translation and distance,
     drawn with ``seed``); None keeps the head still at ``distance_mm``.
     """
-    from camgaze.render_trajectory import HEAD_MOTION_DEFAULTS, Trajectory, head_track
+    from aspectus.synth.trajectory import HEAD_MOTION_DEFAULTS, Trajectory, head_track
 
     t = trial.t_s
     keep = t <= (duration_s if duration_s is not None else t[-1])

@@ -136,14 +136,14 @@ def test_decoupling_leaves_an_uncoupled_centre_alone():
 def _drifting_head_clip(seed, *, m_true=0.0):
     """A 10-s, 30 fps clip whose head drifts slowly in height and distance while the eyes make saccades.
 
-    The head moves as the renderer's slow head drift does (camgaze.render_trajectory: three sinusoids per axis,
+    The head moves as the renderer's slow head drift does (aspectus.synth.trajectory: three sinusoids per axis,
     periods of about 12, 5 and 3 s; 15 mm up/down and 40 mm to and fro at 530 mm), the eyes fixate for
     0.2-0.6 s at random heights. The eyeball centres carry the smoothed head pose (300 ms), as in the
     estimator, and optionally follow the eyes by ``m_true``.
     """
     from scipy.ndimage import uniform_filter1d
 
-    from camgaze.render_trajectory import _head_track
+    from aspectus.synth.trajectory import _head_track
 
     rng = np.random.default_rng(seed)
     n, f = 300, 1108.0
@@ -186,3 +186,20 @@ def test_decoupling_still_finds_coupling_under_slow_head_drift(seed):
     C, iris, K, t = _drifting_head_clip(seed, m_true=0.5)
     _, rec = decouple_reference(C, iris, K, np.ones(len(t), bool), t, smooth_ms=300.0)
     assert rec["right"] == pytest.approx(0.5, abs=0.12)
+
+
+def test_unmirror_turns_left_right_quantities_back():
+    from aspectus.webcam.gaze import GazeParams, unmirror
+
+    cols = {"yaw_deg": np.array([5.0]), "pitch_deg": np.array([3.0]), "right_yaw_deg": np.array([4.0]),
+            "left_yaw_deg": np.array([6.0]), "right_pitch_deg": np.array([1.0]), "left_pitch_deg": np.array([2.0]),
+            "head_yaw_deg": np.array([10.0]), "head_roll_deg": np.array([2.0]), "head_pitch_deg": np.array([-1.0]),
+            "head_x_mm": np.array([12.0]), "ear_right": np.array([0.3]), "ear_left": np.array([0.2])}
+    unmirror(cols)
+    assert cols["yaw_deg"][0] == -5.0 and cols["pitch_deg"][0] == 3.0
+    assert cols["right_yaw_deg"][0] == -6.0 and cols["left_yaw_deg"][0] == -4.0  # the eyes swap
+    assert cols["right_pitch_deg"][0] == 2.0 and cols["ear_right"][0] == 0.2
+    assert cols["head_yaw_deg"][0] == -10.0 and cols["head_roll_deg"][0] == -2.0 and cols["head_pitch_deg"][0] == -1.0
+    assert cols["head_x_mm"][0] == -12.0
+    with pytest.raises(Exception, match="mirrored"):
+        GazeParams(mirrored="yes")

@@ -384,6 +384,85 @@ def test_mpeg4_in_avi(tmp_path):
         render_clip(tmp_path / "vfr.avi", tr, size_px=SMALL, frame_times_s=[0.0, 0.03, 0.07])
 
 
+def test_lids_can_stay_still():
+    """``lid_follow=0``: the lids keep their place whatever the eyes do; 0.5 moves them half as far as 1."""
+    from aspectus.synth.face import RIGHT_EYE_CONTOUR, load_face
+    from aspectus.synth.frame import FaceRig
+
+    face, bg = load_face("hopper"), np.zeros((360, 640, 3), np.uint8)
+    R = np.eye(3)
+    tops = {}
+    for follow in (0.0, 0.5, 1.0):
+        rig = FaceRig(face, Camera(640, 360), background=bg, lid_follow=follow)
+        rest, _ = rig.pose(R, rig.rest_origin_mm)
+        up, _ = rig.pose(R, rig.rest_origin_mm, eye_pitch_deg=15.0)
+        tops[follow] = rest[RIGHT_EYE_CONTOUR[12], 1] - up[RIGHT_EYE_CONTOUR[12], 1]
+    assert tops[0.0] == 0.0
+    assert tops[0.5] == pytest.approx(0.5 * tops[1.0]) and tops[1.0] > 1.0  # mm
+    with pytest.raises(ParameterError, match="lid_follow"):
+        FaceRig(face, Camera(640, 360), background=bg, lid_follow=1.5)
+
+
+def test_glasses_rims_sit_before_the_eyes_and_are_drawn(tmp_path):
+    from aspectus.synth.face import load_face
+    from aspectus.synth.frame import FaceRig
+
+    cam = Camera(640, 360)
+    rig = FaceRig(load_face("astronaut"), cam, background=np.zeros((360, 640, 3), np.uint8), glasses=True)
+    R, T = head_rotation(10, 0, 0), rig.rest_origin_mm
+    rims = rig.glasses_rims_mm(R, T)
+    _, eyes = rig.pose(R, T)
+    for e in ("right", "left"):
+        centre = rims[e].mean(axis=0)
+        assert np.linalg.norm(centre - eyes[e]) == pytest.approx(np.hypot(2.0, 24.0), abs=1e-6)
+        assert (R.T @ (centre - eyes[e]))[2] == pytest.approx(-24.0)  # in front of the eye (towards the camera)
+        rim_uv = cam.project(rims[e])
+        iris_uv = cam.project(eyes[e][None] + np.array([[0, 0, -IRIS_PLANE_RADIUS_MM]]))[0]
+        inside = (rim_uv.min(axis=0) < iris_uv) & (iris_uv < rim_uv.max(axis=0))
+        assert inside.all()  # the iris is seen through the lens
+    tr = synth_trajectory(duration_s=0.2, seed=1, blink_rate_per_min=0)
+    plain = render_clip(tmp_path / "plain.mp4", tr, face="astronaut", size_px=SMALL, noise_sd=0, crf=18)
+    specs = render_clip(tmp_path / "specs.mp4", tr, face="astronaut", size_px=SMALL, noise_sd=0, crf=18, glasses=True)
+    fp, fs = _decode(plain.path)[0][2].astype(float), _decode(specs.path)[0][2].astype(float)
+    rim = np.round(rig.camera.project(rig.glasses_rims_mm(np.eye(3), rig.rest_origin_mm)["right"])).astype(int)
+    on_rim = [(y, x) for x, y in rim if 0 <= y < 360 and 0 <= x < 640]
+    dark = np.mean([fp[y, x].mean() - fs[y, x].mean() for y, x in on_rim])
+    assert dark > 40  # the rim darkens the picture where it runs
+    assert json.loads(specs.truth_json_path.read_text())["glasses"] is True
+
+
+def test_lighting_drift_and_gradient(tmp_path):
+    tr = synth_trajectory(duration_s=6.0, seed=1, blink_rate_per_min=0)
+    times = np.arange(0, 6.0, 0.5)
+    flat = render_clip(tmp_path / "flat.mp4", tr, size_px=(320, 180), noise_sd=0, crf=12, frame_times_s=times)
+    lit = render_clip(tmp_path / "lit.mp4", tr, size_px=(320, 180), noise_sd=0, crf=12, frame_times_s=times,
+                      lighting_drift=0.2, lighting_gradient=0.4, seed=4)
+    ff, fl = _decode(flat.path)[0], _decode(lit.path)[0]
+    left, right = (slice(0, 40), slice(2, 12)), (slice(0, 40), slice(308, 318))  # wall at both edges, top
+    ratio_lr = [fl[i][left].mean() / fl[i][right].mean() / (ff[i][left].mean() / ff[i][right].mean())
+                for i in range(len(times))]
+    level = [(fl[i][left].mean() + fl[i][right].mean()) / (ff[i][left].mean() + ff[i][right].mean())
+             for i in range(len(times))]
+    # left edge (1 + 0.2 L) / right edge (1 - 0.2 L) with L the light level (0.8-1.2)
+    assert 1.3 < min(ratio_lr) and max(ratio_lr) < 1.7
+    assert np.ptp(level) > 0.1 and 0.75 < min(level) and max(level) < 1.25  # it drifts, within +-20 %
+    with pytest.raises(ParameterError, match="lighting_drift"):
+        render_clip(tmp_path / "bad.mp4", tr, size_px=(320, 180), lighting_drift=0.9)
+
+
+def test_mirrored_picture(tmp_path):
+    tr = synth_trajectory(duration_s=0.3, seed=1, blink_rate_per_min=0)
+    kw = dict(size_px=SMALL, noise_sd=0, crf=12)
+    plain = render_clip(tmp_path / "plain.mp4", tr, **kw)
+    mirrored = render_clip(tmp_path / "mirror.mp4", tr, mirror=True, **kw)
+    fp, fm = _decode(plain.path)[0][3].astype(float), _decode(mirrored.path)[0][3].astype(float)
+    assert np.abs(fp[:, ::-1] - fm).mean() < 2.0 < np.abs(fp - fm).mean()
+    for e in ("right", "left"):
+        np.testing.assert_allclose(mirrored.truth[f"{e}_iris_x_px"], SMALL[0] - plain.truth[f"{e}_iris_x_px"])
+    assert (mirrored.truth["right_iris_x_px"] > mirrored.truth["left_iris_x_px"]).all()
+    np.testing.assert_allclose(mirrored.truth["yaw_deg"], plain.truth["yaw_deg"])  # the subject's own angles
+
+
 def test_mpeg4_in_mp4(tmp_path):
     """MPEG-4 part 2 keeps its time base in 16 bits: the writer used the 1/90000 s clock and FFmpeg refused it."""
     tr = synth_trajectory(duration_s=0.5, seed=1)
@@ -462,6 +541,16 @@ def test_cli_renders_a_clip(tmp_path, capsys):
     _, times, _ = _decode(out)
     np.testing.assert_allclose(read_truth(tmp_path / "cli_truth.csv")["pts_s"], times, atol=1e-6)
     assert np.ptp(np.diff(times)) > 0.002  # the frame intervals really vary
+    out2 = tmp_path / "classroom.mp4"
+    rc = main(["render", str(out2), "--duration-s", "0.3", "--size", "320x240", "--quiet", "--head-drift",
+               "--lids", "still", "--glasses", "--lighting-drift", "0.1", "--lighting-gradient", "0.3", "--mirror",
+               "--codec", "libx264", "--crf", "28", "--distance-mm", "800"])
+    assert rc == 0
+    info = json.loads((tmp_path / "classroom_truth.json").read_text())
+    assert (info["lid_follow"], info["glasses"], info["mirror"], info["crf"]) == (0.0, True, True, 28)
+    assert info["lighting_drift"] == 0.1 and info["lighting_gradient"] == 0.3
+    head = info["trajectory"]["head_motion"]
+    assert head["yaw_deg"] == 0 and head["pitch_deg"] == 0 and head["z_mm"] > 0 and head["roll_deg"] > 0
     rc = main(["render", str(tmp_path / "x.mp4"), "--size", "wide"])
     assert rc == 2 and "WIDTHxHEIGHT" in capsys.readouterr().err
 

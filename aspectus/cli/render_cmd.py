@@ -26,6 +26,18 @@ def register(sub) -> None:
                    help="half-width of the region looked at, degrees (default 8 reading, 10 scene)")
     p.add_argument("--blink-rate-per-min", type=float, default=12.0, help="mean blinks per minute (default 12)")
     p.add_argument("--head-motion", action="store_true", help="slow head turns and drift (yaw up to +-10 deg)")
+    p.add_argument("--head-drift", action="store_true",
+                   help="slow head drift in position (+-15 mm sideways, +-10 mm up and down), distance (+-25 mm) "
+                   "and roll (+-2 deg) without turning; with --head-motion the head turns as well")
+    p.add_argument("--lids", default="follow", choices=("follow", "still"),
+                   help="upper lids that follow vertical gaze, the lower lid a little (default), or still lids")
+    p.add_argument("--glasses", action="store_true", help="spectacles on the face")
+    p.add_argument("--lighting-drift", type=float, default=0.0,
+                   help="slow change of the light level, as a fraction (e.g. 0.15 for +-15 %%; default 0)")
+    p.add_argument("--lighting-gradient", type=float, default=0.0,
+                   help="light falling off from the picture's left to its right, as a fraction of the mean "
+                   "(e.g. 0.4; default 0)")
+    p.add_argument("--mirror", action="store_true", help="store the picture mirrored left to right")
     p.add_argument("--distance-mm", type=float, default=600.0, help="head distance from the camera, mm (default 600)")
     p.add_argument("--fov-deg", type=float, default=60.0, help="horizontal field of view of the camera, degrees (default 60)")
     p.add_argument("--noise-sd", type=float, default=2.0, help="sensor noise SD in grey levels (default 2)")
@@ -49,6 +61,12 @@ def _size(text: str) -> tuple[int, int]:
         raise ParameterError(f"--size {text!r} is not WIDTHxHEIGHT in pixels, e.g. 1280x720") from None
 
 
+def _head_motion(args):
+    if args.head_drift and not args.head_motion:
+        return {"yaw_deg": 0.0, "pitch_deg": 0.0}  # translation, distance and roll at their default amplitudes
+    return bool(args.head_motion)
+
+
 def run(args) -> int:
     import numpy as np
 
@@ -58,7 +76,7 @@ def run(args) -> int:
     size = _size(args.size)
     traj = synth_trajectory(duration_s=args.duration_s, seed=args.seed, task=args.task,
                             amplitude_deg=args.amplitude_deg, blink_rate_per_min=args.blink_rate_per_min,
-                            head_motion=bool(args.head_motion), head_distance_mm=args.distance_mm)
+                            head_motion=_head_motion(args), head_distance_mm=args.distance_mm)
     frame_times = None
     if args.vfr_jitter_ms:
         step = 1.0 / args.fps
@@ -85,7 +103,9 @@ def run(args) -> int:
         res = render_clip(args.out, traj, face=args.face, size_px=size, fps=args.fps, frame_times_s=frame_times,
                           fov_deg=args.fov_deg, noise_sd=args.noise_sd, codec=args.codec, crf=args.crf,
                           rotation_deg=args.rotation_deg, darkness=args.darkness, extra_faces=args.extra_faces,
-                          seed=args.seed, progress=progress)
+                          seed=args.seed, lid_follow=1.0 if args.lids == "follow" else 0.0, glasses=args.glasses,
+                          lighting_drift=args.lighting_drift, lighting_gradient=args.lighting_gradient,
+                          mirror=args.mirror, progress=progress)
     finally:
         if bar is not None:
             bar.close()

@@ -263,16 +263,28 @@ class FaceRig:
         ring half as much, the third a quarter). For measuring how much of
         that motion reaches the gaze through the eye anchors
         (:mod:`aspectus.webcam.eye_anchors` follow skin of the second ring).
+    lid_follow : float
+        How far the lids follow vertical gaze, as a share of the usual
+        lid-eye coordination (1 = the default: upper lid 0.8, lower lid 0.3
+        of the front of the eye's vertical travel; 0 = lids that stay still).
+    glasses : bool
+        Draw spectacles: dark rims round both eyes about 24 mm in front of
+        the eyeball centres, a bridge, slightly tinted lenses with a soft
+        reflection, all moving with the head.
     """
 
     def __init__(self, face: FacePhoto, camera: Camera, *, rest_head_mm=(0.0, 0.0, 600.0),
-                 background: np.ndarray, seed: int = 0, lower_skin_follow: float = 0.0):
+                 background: np.ndarray, seed: int = 0, lower_skin_follow: float = 0.0, lid_follow: float = 1.0,
+                 glasses: bool = False):
         cv2 = import_cv2()
-        if not (0.0 <= float(lower_skin_follow) <= 1.0):
-            from aspectus.errors import ParameterError
+        for name, v in (("lower_skin_follow", lower_skin_follow), ("lid_follow", lid_follow)):
+            if not (0.0 <= float(v) <= 1.0):
+                from aspectus.errors import ParameterError
 
-            raise ParameterError(f"lower_skin_follow must be 0-1, got {lower_skin_follow}")
+                raise ParameterError(f"{name} must be 0-1, got {v}")
         self.lower_skin_follow = float(lower_skin_follow)
+        self.lid_follow = float(lid_follow)
+        self.glasses = bool(glasses)
         self.face = face
         self.camera = camera
         f = camera.focal_px
@@ -381,7 +393,7 @@ class FaceRig:
         none at the corners (common practice, from memory).
         """
         d = np.zeros_like(self.rest_mesh_mm)
-        travel = EYEBALL_RADIUS_MM * np.sin(np.radians(np.clip(eye_pitch_deg, -35.0, 35.0)))
+        travel = self.lid_follow * EYEBALL_RADIUS_MM * np.sin(np.radians(np.clip(eye_pitch_deg, -35.0, 35.0)))
         for e in EYES:
             ids = EYE_CONTOUR[e]
             for j in range(1, 8):  # lower lid
@@ -562,6 +574,64 @@ class FaceRig:
         patch[:] = patch * (1 - soft) + cv2.GaussianBlur(patch, (0, 0), sig) * soft
         img[y0:y1, x0:x1] = np.clip(patch + 0.5, 0, 255).astype(np.uint8)
 
+    def glasses_rims_mm(self, R: np.ndarray, T_mm) -> dict:
+        """Spectacle rims (camera frame, mm): {eye: (48, 3) closed outline} for a head pose.
+
+        Each rim is an ellipse 46 x 32 mm in the head's frontal plane, centred 2 mm outward of the eyeball
+        centre and 24 mm in front of it (a vertex distance of about 12 mm before the cornea; common practice,
+        from memory).
+        """
+        th = np.linspace(0.0, 2 * np.pi, 48, endpoint=False)
+        out = {}
+        for e, c in self.rest_eyeball_mm.items():
+            outward = -1.0 if e == "right" else 1.0  # the subject's right eye lies at the picture's left (-x)
+            centre = c - self.rest_origin_mm + np.array([2.0 * outward, 0.0, -24.0])
+            pts = centre + np.stack([23.0 * np.cos(th), 16.0 * np.sin(th), np.zeros_like(th)], axis=1)
+            out[e] = pts @ R.T + np.asarray(T_mm, dtype=float)
+        return out
+
+    def _draw_glasses(self, img: np.ndarray, R: np.ndarray, T_mm) -> None:
+        cv2 = import_cv2()
+        rims = self.glasses_rims_mm(R, T_mm)
+        z = float(np.mean([r[:, 2].mean() for r in rims.values()]))
+        px_per_mm = self.camera.focal_px / max(z, 1.0)
+        h, w = img.shape[:2]
+        uv = {e: self.camera.project(r) for e, r in rims.items()}
+        allp = np.vstack(list(uv.values()))
+        pad = int(np.ceil(4 * px_per_mm)) + 4
+        x0, y0 = (max(0, int(np.floor(v)) - pad) for v in allp.min(axis=0))
+        x1, y1 = int(min(w, np.ceil(allp[:, 0].max()) + pad)), int(min(h, np.ceil(allp[:, 1].max()) + pad))
+        if x1 - x0 < 3 or y1 - y0 < 3:
+            return
+        ph, pw = y1 - y0, x1 - x0
+        org = np.array([x0 + 0.5, y0 + 0.5])
+        thick = max(1, int(round(1.6 * px_per_mm)))
+        lens = np.zeros((ph, pw), np.uint8)
+        shine = np.zeros((ph, pw), np.float32)
+        lines = np.zeros((ph, pw), np.uint8)
+        for e, p in uv.items():
+            poly = np.round((p - org) * 16).astype(np.int32)
+            cv2.fillPoly(lens, [poly], 255, lineType=cv2.LINE_AA, shift=4)
+            cv2.polylines(lines, [poly], True, 255, thickness=thick, lineType=cv2.LINE_AA, shift=4)
+            # a soft reflection in the upper outer part of the lens
+            outward = -1.0 if e == "right" else 1.0
+            spot = p.mean(axis=0) + np.array([outward * 9.0, -7.0]) * px_per_mm - org
+            cv2.ellipse(shine, (int(round(spot[0])), int(round(spot[1]))),
+                        (max(1, int(7 * px_per_mm)), max(1, int(3 * px_per_mm))), -25.0 * outward, 0, 360, 1.0, -1)
+        # the bridge between the rims' inner tops
+        a = uv["right"][np.argmax(uv["right"][:, 0] - 0.3 * uv["right"][:, 1])] - org
+        b = uv["left"][np.argmin(uv["left"][:, 0] + 0.3 * uv["left"][:, 1])] - org
+        cv2.line(lines, tuple(int(v) for v in np.round(a * 16)), tuple(int(v) for v in np.round(b * 16)), 255,
+                 thickness=thick, lineType=cv2.LINE_AA, shift=4)
+        lens_a = lens.astype(np.float32) / 255.0
+        shine = cv2.GaussianBlur(shine, (0, 0), max(0.8, 2.5 * px_per_mm)) * lens_a
+        out = img[y0:y1, x0:x1].astype(np.float32)
+        out *= 1.0 - 0.06 * lens_a[..., None]  # a slight tint
+        out += 60.0 * shine[..., None]
+        a_line = (lines.astype(np.float32) / 255.0)[..., None] * 0.9
+        out = out * (1 - a_line) + np.array([38.0, 32.0, 30.0], np.float32) * a_line
+        img[y0:y1, x0:x1] = np.clip(out + 0.5, 0, 255).astype(np.uint8)
+
     # ------------------------------------------------------------------ frame
     def render(self, *, R: np.ndarray, T_mm, gaze: np.ndarray, closure: float) -> tuple[np.ndarray, dict]:
         """Render one picture (RGB uint8) and return it with the eye truth.
@@ -592,5 +662,7 @@ class FaceRig:
             self._draw_eye(img, e, contour, iris_mm[e], gaze, closure)
             iris_uv[e] = self.camera.project(iris_mm[e][None])[0]
             diam.append(f * IRIS_DIAMETER_MM / np.linalg.norm(iris_mm[e]))
+        if self.glasses:
+            self._draw_glasses(img, R, T_mm)
         return img, {"iris_uv": iris_uv, "iris_mm": iris_mm, "iris_diameter_px": float(np.mean(diam)),
                      "landmarks_uv": uv}

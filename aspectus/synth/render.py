@@ -176,11 +176,25 @@ def _angles(g: np.ndarray) -> tuple[float, float]:
     return (float(np.degrees(np.arctan2(-g[0], -g[2]))), float(np.degrees(np.arctan2(-g[1], np.hypot(g[0], g[2])))))
 
 
+def _light_level(times_s: np.ndarray, *, seed: int, drift: float) -> np.ndarray:
+    """Relative light level per frame: 1 + drift * (a sum of three slow sinusoids scaled into -1..1)."""
+    if not drift:
+        return np.ones(len(times_s))
+    rng = np.random.default_rng([int(seed), 11])
+    s = np.zeros(len(times_s))
+    for period_s, weight in ((20.0, 1.0), (9.0, 0.5), (5.0, 0.25)):
+        s += weight * np.sin(2 * np.pi * np.asarray(times_s) / (period_s * rng.uniform(0.8, 1.25))
+                             + rng.uniform(0, 2 * np.pi))
+    return 1.0 + drift * s / 1.75
+
+
 def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: tuple[int, int] = (1280, 720),
                 fps: float = 30.0, frame_times_s=None, fov_deg: float = 60.0, noise_sd: float = 2.0,
                 codec: str = "libx264", crf: int = 23, bitrate_kbps: float | None = None, rotation_deg: int = 0,
                 darkness: float = 1.0, face_visible=None, extra_faces: int = 0, seed: int = 0,
-                lower_skin_follow: float = 0.0, progress=None, cancel=None) -> RenderResult:
+                lower_skin_follow: float = 0.0, lid_follow: float = 1.0, glasses: bool = False,
+                lighting_drift: float = 0.0, lighting_gradient: float = 0.0, mirror: bool = False,
+                progress=None, cancel=None) -> RenderResult:
     """Render a webcam-like clip of a face following ``trajectory`` and write its truth beside it.
 
     Parameters
@@ -227,6 +241,27 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
     lower_skin_follow : float, default 0
         How far the skin below the lower lids follows the lids' movement
         with vertical gaze (0-1; :class:`aspectus.synth.frame.FaceRig`).
+    lid_follow : float, default 1
+        How far the lids follow vertical gaze (1: the upper lid 0.8 and the
+        lower lid 0.3 of the front of the eye's vertical travel, as real lids
+        do; 0: lids that stay still).
+    glasses : bool, default False
+        Spectacles on the face (dark rims, a bridge, tinted lenses with a
+        soft reflection), moving with the head.
+    lighting_drift : float, default 0
+        Slow change of the light level: the picture is multiplied by
+        ``1 + lighting_drift * s(t)`` with ``s`` a sum of slow sinusoids
+        (periods of about 20, 9 and 5 s) within -1..1 (e.g. 0.15: +-15 %).
+    lighting_gradient : float, default 0
+        Light falling off from one side: the picture's left edge is
+        ``1 + lighting_gradient / 2`` times as bright as the middle, the
+        right edge ``1 - lighting_gradient / 2`` (e.g. 0.4: a window on the
+        left). The gradient's strength drifts with the light level.
+    mirror : bool, default False
+        Store the picture mirrored left to right, as webcam software often
+        shows and records it. The truth's gaze and head angles stay the
+        subject's; its pixel positions are those of the stored picture (the
+        subject's right iris then lies on the picture's right side).
     progress : callable, optional
         ``progress(fraction_done, message)``, called every few frames.
     cancel : object with ``is_set()``, optional
@@ -274,6 +309,10 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         raise ParameterError(f"extra_faces must be 0, 1 or 2, got {extra_faces!r}")
     if not isinstance(trajectory, Trajectory):
         raise ParameterError("trajectory must be a Trajectory (see synth_trajectory)")
+    for name, v, lo, hi in (("lighting_drift", lighting_drift, 0.0, 0.5),
+                            ("lighting_gradient", lighting_gradient, 0.0, 1.0)):
+        if not (isinstance(v, (int, float, np.integer, np.floating)) and np.isfinite(v) and lo <= v <= hi):
+            raise ParameterError(f"{name} must be within {lo:g}-{hi:g}, got {v!r}")
 
     duration = float(trajectory.samples["t_s"].iloc[-1])
     vfr = frame_times_s is not None
@@ -298,7 +337,9 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
             float(track["head_z_mm"].median()))
     bg = _background(w, h)
     rig = FaceRig(load_face(face), camera, rest_head_mm=rest, background=bg, seed=seed,
-                  lower_skin_follow=lower_skin_follow)
+                  lower_skin_follow=lower_skin_follow, lid_follow=lid_follow, glasses=glasses)
+    light = _light_level(times, seed=seed, drift=float(lighting_drift))
+    ramp = (0.5 - (np.arange(w, dtype=np.float32) + 0.5) / w)[None, :, None]  # +0.5 at the left edge
     if extra_faces:
         other = FACES[1] if face == FACES[0] else FACES[0]
         main_iris = camera.focal_px * IRIS_DIAMETER_MM / (rest[2] - EYEBALL_RADIUS_MM)
@@ -330,6 +371,12 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                     img, _info = rig.render(R=R, T_mm=T, gaze=g, closure=r.lid_closure)
                 else:
                     img = rig.background.copy()
+                if mirror:
+                    img = np.ascontiguousarray(img[:, ::-1])
+                    iris_uv = {e: (w - iris_uv[e][0], iris_uv[e][1]) for e in EYES}
+                if lighting_drift or lighting_gradient:
+                    gain = light[i] * (1.0 + float(lighting_gradient) * light[i] * ramp)
+                    img = np.clip(img * gain + 0.5, 0, 255).astype(np.uint8)
                 if darkness < 1.0:
                     img = cv2.convertScaleAbs(img, alpha=float(darkness))
                 if bank is not None:
@@ -385,6 +432,9 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         "rest_head_mm": list(rest), "noise_sd": float(noise_sd), "darkness": float(darkness), "codec": codec,
         "crf": int(crf) if codec == "libx264" and not bitrate_kbps else None, "bitrate_kbps": bitrate_kbps,
         "rotation_deg": rotation_deg, "extra_faces": int(extra_faces), "seed": int(seed),
+        "lower_skin_follow": float(lower_skin_follow), "lid_follow": float(lid_follow), "glasses": bool(glasses),
+        "lighting_drift": float(lighting_drift), "lighting_gradient": float(lighting_gradient),
+        "mirror": bool(mirror),
         "face_hidden_frames": int((~visible).sum()),
         "geometry": {"iris_diameter_mm": IRIS_DIAMETER_MM, "eyeball_radius_mm": EYEBALL_RADIUS_MM,
                      "frame": "aspectus.schema (yaw>0 subject's right, pitch>0 up)",

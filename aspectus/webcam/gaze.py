@@ -113,6 +113,12 @@ class GazeParams:
         eye picture, i.e. ``refine_iris``; without it the PnP translation
         is used (run.json counts the frames: ``eye_anchor_frames``,
         ``eye_anchor_fallback_frames``).
+    mirrored : bool
+        The clip shows the subject mirrored left to right (as webcam
+        software often records it): everything is measured in the mirror
+        world and turned back at the end - yaw, head yaw, head roll and the
+        head's sideways position change sign and the two eyes' columns swap
+        (default False).
     """
 
     blink_rel_threshold: float = 0.6
@@ -124,6 +130,7 @@ class GazeParams:
     decouple_reference: bool = True
     decouple_highpass_s: float = 0.7
     eye_anchors: bool = True
+    mirrored: bool = False
 
     def __post_init__(self):
         from aspectus.errors import ParameterError
@@ -139,7 +146,7 @@ class GazeParams:
                                  "limbus, rescale, fuse")
         if not isinstance(self.blink_pad_frames, int) or isinstance(self.blink_pad_frames, bool):
             raise ParameterError(f"gaze parameter blink_pad_frames = {self.blink_pad_frames!r} must be a whole number")
-        for name in ("refine_iris", "decouple_reference", "eye_anchors"):
+        for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored"):
             if not isinstance(getattr(self, name), bool):
                 raise ParameterError(f"gaze parameter {name} must be true or false, got {getattr(self, name)!r}")
 
@@ -525,7 +532,24 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
     cols["ear_right"] = only(ear[:, 0], found)
     cols["ear_left"] = only(ear[:, 1], found)
     cols["aperture_rel"] = only(aperture_rel, found)
+    if params.mirrored:
+        unmirror(cols)
     return cols, info
+
+
+def unmirror(cols: dict) -> None:
+    """Turn columns measured on a mirrored picture back into the subject's frame (in place).
+
+    In the mirror the subject's right eye is the one the face mesh takes for the left, and every left-right
+    quantity changes sign: yaw (binocular, per eye, eye-in-head), head yaw and roll, the head's x.
+    """
+    for a, b in (("left_yaw_deg", "right_yaw_deg"), ("left_pitch_deg", "right_pitch_deg"), ("ear_left", "ear_right")):
+        if a in cols and b in cols:
+            cols[a], cols[b] = cols[b], cols[a]
+    for c in ("yaw_deg", "left_yaw_deg", "right_yaw_deg", "eye_in_head_yaw_deg", "head_yaw_deg", "head_roll_deg",
+              "head_x_mm"):
+        if c in cols:
+            cols[c] = -np.asarray(cols[c], float)
 
 
 def interpupillary_distance_mm(points_px: np.ndarray) -> float:
