@@ -1,0 +1,128 @@
+"""The gaze precision grid: classroom-like rendered clips whose eyes follow hand-coded recordings.
+
+Each condition renders a clip with :func:`camgaze.render.render_clip` whose eyes follow the first seconds of
+one of the hand-coded trials of Andersson et al. (2017) (../shared/reference/lund2013, read by
+:mod:`_lund`), runs the whole webcam pipeline on it and compares with the truth:
+
+* ``rms_s2s_deg``: RMS of the sample-to-sample change of the 2-D gaze error (estimate minus truth) over
+  consecutive valid frames - the precision of the signal with the true eye movement taken out;
+* ``noise_rms_s2s_deg``: the pipeline's own noise figure (run.json's quality), as a user sees it;
+* ``yaw_r``, ``yaw_gain``, ``pitch_r``, ``pitch_gain``: Pearson r and the least-squares slope of the
+  estimate on the truth over valid frames;
+* ``kappa``: Cohen's (1960) sample kappa, fixation vs not, of the default detector on the clip's samples
+  against each coder's labels at the frame times, mean over the two coders; ``kappa_truth``: the same for
+  the detector run on the true gaze at the frame times (the ceiling at this frame rate).
+
+Used by bench/bench_gaze_grid.py (the whole grid) and tests/test_gaze_grid.py (the floors on a subset).
+"""
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+import _lund
+
+#: slow head drift and rotation (the renderer's defaults: yaw +-10, pitch +-4, roll +-2 deg; 15 / 10 / 25 mm)
+HEAD_DRIFT_AND_TURNS: dict = {}
+#: slow head drift in translation, distance and roll only
+HEAD_DRIFT_ONLY = {"yaw_deg": 0.0, "pitch_deg": 0.0, "roll_deg": 3.0, "x_mm": 20.0, "y_mm": 15.0, "z_mm": 40.0}
+
+
+@dataclass
+class Condition:
+    """One cell of the grid (names as in the renderer's parameters)."""
+
+    name: str
+    size_px: tuple = (1280, 720)
+    distance_mm: float = 600.0
+    codec: str = "libx264"
+    crf: int = 28
+    lid_follow: float = 1.0
+    lighting_drift: float = 0.15
+    lighting_gradient: float = 0.3
+    head_motion: dict | None = field(default_factory=lambda: dict(HEAD_DRIFT_AND_TURNS))
+    glasses: bool = False
+    mirror: bool = False
+    face: str = "hopper"
+    trial: str = "UH21_img_Rome"
+    duration_s: float = 8.0
+    seed: int = 0
+
+    def label(self) -> str:
+        w, h = self.size_px
+        codec = f"CRF{self.crf}" if self.codec == "libx264" else "mp4v"
+        extra = "".join([" glasses" if self.glasses else "", " mirror" if self.mirror else "",
+                         " still-lids" if not self.lid_follow else ""])
+        return f"{w}x{h} {self.distance_mm:.0f}mm {codec} {self.face} {self.trial.split('_')[0]} s{self.seed}{extra}"
+
+
+def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
+    from camgaze.render import render_clip
+
+    trial = _lund.load_trial(lund_dir, cond.trial)
+    traj = _lund.as_trajectory(trial, duration_s=cond.duration_s, head_motion=cond.head_motion,
+                               distance_mm=cond.distance_mm, seed=cond.seed)
+    path = Path(out_dir) / f"{cond.name}.mp4"
+    kw = {"crf": cond.crf} if cond.codec == "libx264" else {"bitrate_kbps": None}
+    res = render_clip(path, traj, face=cond.face, size_px=tuple(cond.size_px), codec=cond.codec, seed=cond.seed,
+                      lid_follow=cond.lid_follow, lighting_drift=cond.lighting_drift,
+                      lighting_gradient=cond.lighting_gradient, glasses=cond.glasses, mirror=cond.mirror, **kw)
+    return res, trial
+
+
+def _fit(est, truth):
+    ok = np.isfinite(est) & np.isfinite(truth)
+    if ok.sum() < 10:
+        return float("nan"), float("nan")
+    return float(np.corrcoef(est[ok], truth[ok])[0, 1]), float(np.polyfit(truth[ok], est[ok], 1)[0])
+
+
+def _labels_at(trial, t_s):
+    idx = np.clip(np.searchsorted(trial.t_s, t_s), 0, len(trial.t_s) - 1)
+    prev = np.clip(idx - 1, 0, len(trial.t_s) - 1)
+    idx = np.where(np.abs(trial.t_s[prev] - t_s) <= np.abs(trial.t_s[idx] - t_s), prev, idx)
+    return {c: trial.labels[c][idx] == _lund.FIXATION for c in _lund.CODERS}
+
+
+def _kappa(samples: pd.DataFrame, coders: dict) -> float:
+    from camgaze.analysis import run_analysis
+
+    res = run_analysis(samples)
+    fix = np.asarray(res.labels == "fixation")
+    return float(np.mean([_lund.cohen_kappa(fix, m) for m in coders.values()]))
+
+
+def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
+    """The grid's figures for one processed clip (see the module docstring)."""
+    from camgaze.analysis import run_analysis
+
+    ok = samples["valid"].to_numpy(bool)
+    ey = samples["yaw_deg"].to_numpy() - truth["yaw_deg"].to_numpy()
+    ep = samples["pitch_deg"].to_numpy() - truth["pitch_deg"].to_numpy()
+    pair = ok[1:] & ok[:-1]
+    d2 = np.diff(ey) ** 2 + np.diff(ep) ** 2
+    out = {"iris_px": float(truth["iris_diameter_px"].median()), "valid_frac": float(ok.mean()),
+           "rms_s2s_deg": float(np.sqrt(np.mean(d2[pair]))) if pair.sum() >= 10 else float("nan")}
+    out["yaw_r"], out["yaw_gain"] = _fit(samples["yaw_deg"].to_numpy(), truth["yaw_deg"].to_numpy())
+    out["pitch_r"], out["pitch_gain"] = _fit(samples["pitch_deg"].to_numpy(), truth["pitch_deg"].to_numpy())
+    coders = _labels_at(trial, truth["t_s"].to_numpy())
+    out["kappa"] = _kappa(samples, coders)
+    true_samples = pd.DataFrame({"t_s": truth["t_s"], "valid": True, "yaw_deg": truth["yaw_deg"],
+                                 "pitch_deg": truth["pitch_deg"]})
+    out["kappa_truth"] = _kappa(true_samples, coders)
+    out["noise_rms_s2s_deg"] = float(run_analysis(samples).quality.get("noise_rms_s2s_deg", np.nan))
+    return out
+
+
+def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, gaze_params=None) -> dict:
+    """Render, process and measure one condition; returns the condition's fields and its figures."""
+    from camgaze.gaze import GazeParams
+    from camgaze.pipeline import ProcessParams, extract_samples
+
+    res, trial = render_condition(cond, out_dir, lund_dir)
+    gp = gaze_params or GazeParams(mirrored=cond.mirror)
+    samples, _ = extract_samples(res.path, params=ProcessParams(gaze=gp))
+    return asdict(cond) | {"label": cond.label()} | measure(samples, res.truth, trial)
