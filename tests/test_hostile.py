@@ -15,7 +15,6 @@ import sys
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from aspectus.cli import main

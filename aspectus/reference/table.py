@@ -17,7 +17,6 @@ that line.
 """
 from __future__ import annotations
 
-import gzip
 import io
 import json
 import re
