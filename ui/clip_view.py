@@ -150,7 +150,7 @@ class FrameLoader(QObject):
                     except Exception:  # noqa: BLE001 - the mesh is a nicety; the frame still shows
                         lms = None
                 if finder is None:
-                    from aspectus.privacy.blur import FaceBoxFinder
+                    from aspectus.webcam.face_boxes import FaceBoxFinder
 
                     finder = FaceBoxFinder()
                 try:

@@ -204,7 +204,7 @@ def draw_overlay(image: np.ndarray, *, landmarks_px=None, yaw_deg: float = float
                                  fov_deg=fov_deg)
     if blur:
         if face_boxes is None:
-            from aspectus.privacy.blur import find_face_boxes
+            from aspectus.webcam.face_boxes import find_face_boxes
 
             face_boxes = find_face_boxes(img)
         boxes = ([box] if box is not None else []) + [tuple(int(v) for v in b) for b in face_boxes]
