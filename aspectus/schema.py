@@ -43,11 +43,33 @@ from aspectus.errors import AspectusInputError
 
 @dataclass(frozen=True)
 class Column:
+    """One column of a table aspectus writes: name (with its unit), dtype, unit, definition, human label."""
+
     name: str
     dtype: str
     unit: str
     doc: str
     required: bool = False
+    label: str = ""
+
+    @property
+    def human(self) -> str:
+        """The label people read (reports, the app), with the unit: ``"Fixation duration, mean (ms)"``."""
+        text = self.label or _label_from_name(self.name, self.unit)
+        return f"{text} ({self.unit})" if self.unit and self.unit not in ("", "1") else text
+
+
+_UNIT_SUFFIXES = ("_per_min", "_per_s", "_deg_s", "_deg", "_ms", "_mm", "_px", "_s", "_frac", "_hz")
+
+
+def _label_from_name(name: str, unit: str) -> str:
+    base = name
+    for suf in _UNIT_SUFFIXES:
+        if base.endswith(suf) and len(base) > len(suf):
+            base = base[: -len(suf)]
+            break
+    text = base.replace("_", " ")
+    return text[:1].upper() + text[1:]
 
 
 #: Columns of a gaze samples table, one row per frame (webcam) or per sample
@@ -103,6 +125,9 @@ EVENT_COLUMNS: tuple[Column, ...] = (
 )
 
 
+_EVENT_COLUMN_BY_NAME = {c.name: c for c in EVENT_COLUMNS}
+
+
 def empty_samples() -> pd.DataFrame:
     """A samples table with every column and no rows."""
     return pd.DataFrame({c.name: pd.Series(dtype=c.dtype) for c in SAMPLE_COLUMNS})
@@ -144,3 +169,43 @@ def check_samples(df: pd.DataFrame, source: str = "samples table") -> pd.DataFra
         valid = valid.map(lambda v: str(v).strip().lower() in ("1", "true", "yes", "1.0"))
     out["valid"] = valid.astype(bool) & np.isfinite(out["yaw_deg"]) & np.isfinite(out["pitch_deg"])
     return out
+
+
+#: Columns of the features table besides the scope columns (``scope``, ``label``, ``start_s``, ``end_s``)
+#: and ``n_samples``: one row per clip, fixed window and task segment. An event belongs to the scope its
+#: onset falls in; rates divide by the scope's length.
+FEATURE_COLUMNS: tuple[Column, ...] = (
+    Column("fixation_count", "int64", "", "fixations whose onset falls in the scope", label="Fixations"),
+    Column("fixation_rate_per_s", "float64", "1/s", "fixation_count divided by the scope's length",
+           label="Fixation rate"),
+    Column("fixation_duration_mean_ms", "float64", "ms", "mean duration of the scope's fixations",
+           label="Fixation duration, mean"),
+    Column("fixation_duration_median_ms", "float64", "ms", "median duration of the scope's fixations",
+           label="Fixation duration, median"),
+    Column("fixation_duration_sd_ms", "float64", "ms", "standard deviation of the scope's fixation durations",
+           label="Fixation duration, SD"),
+    Column("fixation_time_frac", "float64", "1", "share of the scope's time inside fixations",
+           label="Time in fixations (share)"),
+    Column("saccade_count", "int64", "", "saccades whose onset falls in the scope", label="Saccades"),
+    Column("saccade_amplitude_mean_deg", "float64", "deg", "mean amplitude of the scope's saccades",
+           label="Saccade amplitude, mean"),
+    Column("blink_count", "int64", "", "blinks whose onset falls in the scope", label="Blinks"),
+    Column("blink_rate_per_min", "float64", "1/min", "blink_count per minute of the scope", label="Blink rate"),
+    Column("valid_frac", "float64", "1", "share of the scope's samples with usable gaze",
+           label="Usable gaze (share)"),
+    Column("noise_rms_s2s_deg", "float64", "deg",
+           "root mean square of the sample-to-sample angular distance over steps inside fixations "
+           "(precision, RMS-S2S)", label="Noise, RMS sample to sample"),
+)
+FEATURE_COLUMN_BY_NAME = {c.name: c for c in FEATURE_COLUMNS}
+
+
+def column(name: str) -> Column | None:
+    """The definition of a samples, events or features column by name (None if aspectus does not define it)."""
+    return FEATURE_COLUMN_BY_NAME.get(name) or SAMPLE_COLUMN_BY_NAME.get(name) or _EVENT_COLUMN_BY_NAME.get(name)
+
+
+def human_label(name: str) -> str:
+    """What people read for a column name: its label with the unit, or a readable form of the name."""
+    c = column(name)
+    return c.human if c is not None else _label_from_name(name, "")

@@ -16,12 +16,10 @@ import warnings
 import numpy as np
 import pandas as pd
 
+from aspectus import schema as _schema
+
 #: feature columns, in order; every name carries its unit
-FEATURE_COLUMNS = (
-    "fixation_count", "fixation_rate_per_s", "fixation_duration_mean_ms", "fixation_duration_median_ms",
-    "fixation_duration_sd_ms", "fixation_time_frac", "saccade_count", "saccade_amplitude_mean_deg",
-    "blink_count", "blink_rate_per_min", "valid_frac", "noise_rms_s2s_deg",
-)
+FEATURE_COLUMNS = tuple(c.name for c in _schema.FEATURE_COLUMNS)  # defined, with units, in aspectus.schema
 SCOPE_COLUMNS = ("scope", "label", "start_s", "end_s")
 
 
