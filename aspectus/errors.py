@@ -63,6 +63,10 @@ class ReferenceFormatError(AspectusInputError):
     """A reference tracker file does not match what it claims to be."""
 
 
+class AspectusWarning(UserWarning):
+    """Base class of the warnings aspectus gives: a result is computed but needs care (NaN, few data)."""
+
+
 class Cancelled(AspectusError):
     """Raised inside long work when the user's cancel flag is set."""
 

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import gzip
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -147,3 +148,30 @@ def test_read_reference_needs_a_mapping_for_tables(tmp_path):
     p = _write(tmp_path, "t,x,y\n0,1,1\n")
     with pytest.raises(ReferenceFormatError, match="mapping"):
         read_reference(p)
+
+
+def test_reference_readers_registry_chooses_by_file_name(tmp_path):
+    """read_reference asks the registry (one place) which reader a file name needs; tables need a mapping."""
+    from aspectus.errors import ReferenceFormatError
+    from aspectus.reference import READERS, ReferenceFormat, read_reference
+
+    assert [f.name for f in READERS] == ["bids"]
+    assert READERS[0].matches(Path("sub-p01_task-x_physio.tsv.gz")) and not READERS[0].matches(Path("x.csv"))
+    seen = []
+    READERS.append(ReferenceFormat("test", lambda p: p.suffix == ".xyz", lambda p, **kw: seen.append(p) or "read"))
+    try:
+        f = tmp_path / "rec.xyz"
+        f.write_text("anything")
+        assert read_reference(f) == "read" and seen == [f]
+    finally:
+        READERS.pop()
+    with pytest.raises(ReferenceFormatError, match="no column mapping"):
+        read_reference(tmp_path / "rec.xyz")
+
+
+def test_project_warnings_share_one_base_class():
+    from aspectus.errors import AspectusWarning
+    from aspectus.events.features import DegenerateWindowWarning
+    from aspectus.validation.agreement import AgreementWarning
+
+    assert issubclass(DegenerateWindowWarning, AspectusWarning) and issubclass(AgreementWarning, AspectusWarning)

@@ -16,6 +16,8 @@ import warnings
 import numpy as np
 import pandas as pd
 
+from aspectus.errors import AspectusWarning
+
 from aspectus import schema as _schema
 
 #: feature columns, in order; every name carries its unit
@@ -23,7 +25,7 @@ FEATURE_COLUMNS = tuple(c.name for c in _schema.FEATURE_COLUMNS)  # defined, wit
 SCOPE_COLUMNS = ("scope", "label", "start_s", "end_s")
 
 
-class DegenerateWindowWarning(UserWarning):
+class DegenerateWindowWarning(AspectusWarning):
     """A feature scope (window or segment) holds no valid sample; its features are NaN."""
 
 

@@ -7,6 +7,8 @@
 from __future__ import annotations
 
 import re
+from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -18,12 +20,29 @@ from aspectus.reference.bids import ReferenceRecording, read_bids_physio, write_
 from aspectus.reference.table import TableMapping, events_from_labels, read_gaze_table
 
 __all__ = ["ReferenceRecording", "TableMapping", "events_from_labels", "read_bids_physio", "read_gaze_table",
-           "read_reference", "write_bids_physio", "is_bids_physio"]
+           "read_reference", "write_bids_physio", "is_bids_physio", "READERS", "ReferenceFormat"]
 
 
 def is_bids_physio(path) -> bool:
     """True when ``path`` is named like a BIDS physiological recording."""
     return bool(re.search(r"_physio\.tsv(\.gz)?$", Path(path).name))
+
+
+@dataclass(frozen=True)
+class ReferenceFormat:
+    """A reference file type: how it is recognised by its name, and its reader.
+
+    ``read(path, mapping=..., screen=...)`` returns a :class:`ReferenceRecording`.
+    """
+
+    name: str
+    matches: Callable[[Path], bool]
+    read: Callable[..., ReferenceRecording]
+
+
+#: file type -> reader, tried in order; a file no entry matches is read as a delimited table through a
+#: :class:`TableMapping`. A new format adds one entry here (DEVELOPERS.md, "A new reference file format").
+READERS: list[ReferenceFormat] = []
 
 
 def read_reference(path, mapping: TableMapping | None = None, *,
@@ -47,11 +66,20 @@ def read_reference(path, mapping: TableMapping | None = None, *,
         types (e.g. a logged marker).
     """
     path = Path(path)
-    if is_bids_physio(path):
-        return read_bids_physio(path, screen=screen)
+    for fmt in READERS:
+        if fmt.matches(path):
+            return fmt.read(path, mapping=mapping, screen=screen)
     if mapping is None:
         raise ReferenceFormatError("not a BIDS *_physio.tsv.gz file, and no column mapping was given", path=path,
                                    hint="give --time-col, --time-unit, --x-col, --y-col, --units (or --mapping FILE)")
+    return _read_table(path, mapping=mapping, screen=screen)
+
+
+def _read_bids(path: Path, *, mapping=None, screen=None) -> ReferenceRecording:
+    return read_bids_physio(path, screen=screen)
+
+
+def _read_table(path: Path, *, mapping: TableMapping, screen=None) -> ReferenceRecording:
     samples = read_gaze_table(path, mapping)
     events = None
     messages = pd.DataFrame({"label": pd.Series(dtype=str), "t_s": pd.Series(dtype=float)})
@@ -70,3 +98,6 @@ def read_reference(path, mapping: TableMapping | None = None, *,
     return ReferenceRecording(samples=samples, events=events, messages=messages, screen=mapping.screen,
                               clock_start_s=float(samples.attrs.get("clock_start_s", 0.0)), rate_hz=rate,
                               path=path, meta={"format": "table", "mapping": mapping.to_dict()})
+
+
+READERS.append(ReferenceFormat("bids", is_bids_physio, _read_bids))

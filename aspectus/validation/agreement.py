@@ -35,7 +35,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 from scipy import stats
 
-from aspectus.errors import ParameterError
+from aspectus.errors import AspectusWarning, ParameterError
 
 #: ICC forms of Shrout & Fleiss (1979), in their notation
 ICC_FORMS = ("1,1", "2,1", "3,1", "1,k", "2,k", "3,k")
@@ -51,7 +51,7 @@ ICC_FORM_TEXT = {
 }
 
 
-class AgreementWarning(UserWarning):
+class AgreementWarning(AspectusWarning):
     """A statistic could not be computed meaningfully (too few pairs, no variation); it is NaN."""
 
 
