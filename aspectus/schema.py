@@ -23,7 +23,7 @@ with a screen in front of the subject (the reference tracker's screen):
 
 A gaze direction ``g = (gx, gy, gz)`` (unit vector, camera frame) maps to
 ``yaw = atan2(-gx, -gz)`` and ``pitch = atan2(-gy, hypot(gx, gz))``.
-``tests/test_frame_signs.py`` pins these signs.
+``tests/webcam/test_frame_signs.py`` pins these signs.
 
 "Left" and "right" eye mean the subject's own left and right eye.
 

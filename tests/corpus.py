@@ -4,7 +4,7 @@ Each entry is a :class:`Case`: a file (or folder) plus the outcome the
 ``aspectus`` command line must give for it - either a clear error naming the
 file and the cause (exit status and a message pattern), or a result whose
 quality figures report the problem (a check on ``run.json``'s ``quality``
-block and the samples). ``tests/test_corpus_cli.py`` runs every case through
+block and the samples). ``tests/cli/test_corpus_cli.py`` runs every case through
 the CLI.
 
 Video cases are rendered with :func:`aspectus.synth.render.render_clip` (real H.264

@@ -316,7 +316,7 @@ def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarra
     drift with periods of 3-6 s through; over a few seconds it correlates
     with the gaze by chance and was read as coupling of 0.5-1.2, which
     over-read pitch by that factor: 1.5-2.3 on rendered clips with slow
-    head drift, tests/test_gaze_units.py.) The centre's height is then
+    head drift, tests/webcam/test_gaze_units.py.) The centre's height is then
     corrected by ``m * (d_y - median d_y)`` (no change at the clip's median
     gaze). ``m`` is kept within ``[0, max_coupling]``.
 

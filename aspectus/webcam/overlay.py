@@ -12,7 +12,7 @@ one. Only an explicit ``blur=False`` shows faces.
 
 Landmark indices follow MediaPipe's 478-point face mesh with irises
 (``refine_landmarks=True``): the loops below are the face oval, the eyelid
-contours and the iris rings, listed in drawing order; ``tests/test_gui_overlay.py``
+contours and the iris rings, listed in drawing order; ``tests/ui/test_gui_overlay.py``
 checks them against MediaPipe's own connection sets.
 """
 from __future__ import annotations

@@ -18,7 +18,7 @@ A finding is any exception other than ``AspectusInputError`` naming the file
 
     .venv/bin/python tests/fuzz/fuzz_readers.py TARGET crash-<hash>
 
-and turn it into a regression example in ``tests/test_fuzz_parsers.py``.
+and turn it into a regression example in ``tests/cli/test_fuzz_parsers.py``.
 """
 from __future__ import annotations
 

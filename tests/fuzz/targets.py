@@ -8,7 +8,7 @@ other exception - a ``KeyError``, ``IndexError``, ``UnicodeDecodeError``,
 ``ValueError`` from deep inside pandas - is a bug: the user would see a
 traceback instead of a message.
 
-Used by ``tests/test_fuzz_parsers.py`` (hypothesis, in the normal suite) and
+Used by ``tests/cli/test_fuzz_parsers.py`` (hypothesis, in the normal suite) and
 by ``tests/fuzz/fuzz_readers.py`` (atheris, coverage-guided, run by hand).
 """
 from __future__ import annotations

@@ -3,7 +3,7 @@ the pairing written as a manifest; the study's repeated-measures figures.
 
 The pairing tests use empty stand-in files (pairing reads only names,
 status.csv and run.json). The end-to-end test makes webcam samples tables
-from known gaze trajectories (as tests/test_validate.py does) and simulated
+from known gaze trajectories (as tests/validation/test_validate.py does) and simulated
 lab recordings in a BIDS tree, so no face mesh runs.
 """
 from __future__ import annotations

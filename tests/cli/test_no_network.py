@@ -24,7 +24,7 @@ from pathlib import Path
 
 import pytest
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 SAMPLE_CLIPS = REPO / "sample_clips"
 
 _HOOK = r'''

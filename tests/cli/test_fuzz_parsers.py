@@ -21,7 +21,7 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-sys.path.insert(0, str(Path(__file__).resolve().parent / "fuzz"))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "fuzz"))
 import targets  # noqa: E402
 
 from aspectus.errors import AspectusInputError  # noqa: E402
@@ -181,7 +181,7 @@ def test_atheris_target_runs_without_atheris():
     """The fuzz script's entry point loads and refuses cleanly when atheris is absent or no target is given."""
     import runpy
 
-    mod = runpy.run_path(str(Path(__file__).resolve().parent / "fuzz" / "fuzz_readers.py"), run_name="not_main")
+    mod = runpy.run_path(str(Path(__file__).resolve().parents[1] / "fuzz" / "fuzz_readers.py"), run_name="not_main")
     try:
         import atheris  # noqa: F401
     except ImportError:

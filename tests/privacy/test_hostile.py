@@ -20,7 +20,7 @@ import pytest
 from aspectus.cli import main
 from aspectus.errors import AspectusInputError, ParameterError
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 TABLE_ARGS = ["--time-col", "time_ms", "--time-unit", "ms", "--x-col", "gx_deg", "--y-col", "gy_deg"]
 
 

@@ -28,7 +28,7 @@ import pytest
 
 from aspectus.atomic import sha256_file
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 N_KILLS = 6
 SEED = 20240607
 

@@ -10,7 +10,7 @@ import pandas as pd
 from aspectus import schema
 from aspectus.events.analysis import run_analysis
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 SCOPE = {"scope", "label", "start_s", "end_s", "n_samples"}
 
 

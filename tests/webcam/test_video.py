@@ -145,7 +145,7 @@ def test_damaged_clip_decodes_the_same_on_one_cpu_and_on_several(tmp_path):
     """FFmpeg conceals damaged data differently with one decoder thread than with several, and by default
     the count follows the CPUs the decoding thread may use. aspectus fixes the count (DECODER_THREADS), so a
     clip decodes to the same pictures on any machine and wherever the pipeline places its decoder."""
-    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
     import corpus  # noqa: E402 - the tests' own clip generator
 
     good = corpus._render(tmp_path / "good.mp4", 1.5, seed=1)

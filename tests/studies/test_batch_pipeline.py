@@ -24,7 +24,7 @@ from aspectus.studies.batch import AttemptLog, run_batch
 
 pytestmark = pytest.mark.slow
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 GOOD = ("p01_s01", "p02_s01", "p03_s01", "p04_s01", "p05_s01")
 
 

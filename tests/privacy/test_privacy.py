@@ -20,7 +20,7 @@ import pytest
 
 from aspectus._env import import_cv2
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 SAMPLE_CLIPS = REPO / "sample_clips"
 #: the face region must keep less than this share of its high-frequency energy (common practice for this
 #: measure: a blur that removes identity removes well over 90 % of it)

@@ -16,7 +16,7 @@ from pathlib import Path
 
 import pytest
 
-sys.path.insert(0, str(Path(__file__).resolve().parent))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 import corpus  # noqa: E402
 
 from aspectus.cli import main as cli_main  # noqa: E402
@@ -170,7 +170,7 @@ def test_manifest_case(name, manifest_cases, tmp_path, capsys):
 def test_several_bad_clips_in_one_run_do_not_stop_the_good_one(video_cases, tmp_path):
     """A real process: bad clips fail one line each, the good clip still finishes, exit status 1."""
     clips = [video_cases[n].path for n in ("empty", "text_renamed", "good", "no_face")]
-    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[2]))
     proc = subprocess.run([sys.executable, "-m", "aspectus", "process", *map(str, clips), "-o", str(tmp_path),
                            "--quiet"], capture_output=True, text=True, env=env, timeout=220)
     assert proc.returncode == 1, proc.stderr
