@@ -25,3 +25,38 @@ def lund_dir() -> Path:
 @pytest.fixture(scope="session")
 def repo_root() -> Path:
     return REPO
+
+
+def _key(value):
+    import numpy as np
+
+    if isinstance(value, np.ndarray):
+        return ("ndarray", value.dtype.str, value.shape, value.tobytes())
+    if isinstance(value, (list, tuple)):
+        return tuple(_key(v) for v in value)
+    return value
+
+
+@pytest.fixture(scope="session")
+def rendered_clip(tmp_path_factory):
+    """Render a test clip once per session for each set of arguments (``aspectus.synth.render_clip``).
+
+    Call it as ``rendered_clip(duration_s=3.0, seed=3, size_px=(640, 360), extra_faces=1, ...)``; the
+    trajectory is ``synth_trajectory(duration_s, seed, head_motion)``, the render's seed the same ``seed``.
+    Several tests share the file: a test that changes or deletes a clip renders its own.
+    """
+    from aspectus.synth.render import render_clip
+    from aspectus.synth.trajectory import synth_trajectory
+
+    cache: dict = {}
+
+    def make(*, duration_s: float, seed: int, size_px=(640, 360), fps: float = 30.0, head_motion: bool = False,
+             name: str = "p01_s01.mp4", **kw):
+        key = (duration_s, seed, tuple(size_px), fps, head_motion, name, tuple(sorted((k, _key(v)) for k, v in kw.items())))
+        if key not in cache:
+            d = tmp_path_factory.mktemp("rendered")
+            traj = synth_trajectory(duration_s=duration_s, seed=seed, head_motion=head_motion)
+            cache[key] = render_clip(d / name, traj, size_px=tuple(size_px), fps=fps, seed=seed, **kw)
+        return cache[key]
+
+    return make

@@ -11,11 +11,8 @@ import pytest
 pytestmark = pytest.mark.slow
 
 
-def test_benchmark_prints_rounds_and_the_ratio(tmp_path, repo_root):
-    from aspectus.synth.render import render_clip, synth_trajectory
-
-    clip = tmp_path / "p03_s01_reading.mp4"
-    render_clip(clip, synth_trajectory(duration_s=1.0, seed=6), size_px=(320, 180), fps=30.0, seed=6)
+def test_benchmark_prints_rounds_and_the_ratio(rendered_clip, repo_root):
+    clip = rendered_clip(duration_s=1.0, seed=2, size_px=(320, 180), name="p07_s01_reading.mp4").path
     r = subprocess.run([sys.executable, str(Path(repo_root) / "bench" / "bench_pipeline.py"), "--clip", str(clip),
                         "--rounds", "2"], capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr[-2000:]

@@ -106,19 +106,16 @@ def test_index_choice_follows_the_bystander(tmp_path):
     assert np.all(xs > 0.7 * 640), xs.round()  # face 1 from the left is the one at 0.87 of the width
 
 
-def test_student_out_of_view_is_not_replaced_by_the_bystander(tmp_path):
+def test_student_out_of_view_is_not_replaced_by_the_bystander(rendered_clip):
     """The followed student leaves the picture for half a second while a bystander stays in view: those
     frames are 'face not found' (with the bystander counted as in view), and the student is followed again
     when back - not the bystander for the rest of the clip."""
-    from aspectus.synth.render import render_clip, synth_trajectory
     from aspectus.webcam.video import iter_frames
 
     n = 90
     vis = np.ones(n, bool)
     vis[30:45] = False
-    clip = tmp_path / "ducks.mp4"
-    render_clip(clip, synth_trajectory(duration_s=3.0, seed=3), size_px=(640, 360), fps=30.0, seed=3,
-                extra_faces=1, face_visible=vis)
+    clip = rendered_clip(duration_s=3.0, seed=3, extra_faces=1, face_visible=vis, name="p10_s01.mp4").path
     frames = [f.image for f in iter_frames(clip)]
     with FaceTracker(max_faces=2) as tr:
         obs, seen = [], []

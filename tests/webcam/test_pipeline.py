@@ -251,16 +251,12 @@ def test_cli_bad_setting_values_name_the_parameter(clip, tmp_path, option, setti
     assert not (tmp_path / "x").exists() or not any((tmp_path / "x").rglob("run.json"))
 
 
-def test_frames_with_only_a_bystander_are_invalid_and_reported(tmp_path):
+def test_frames_with_only_a_bystander_are_invalid_and_reported(rendered_clip, tmp_path):
     """The student leaves the picture for half a second while a classmate stays in view: those rows stay in
     the table, invalid, with the classmate counted in face_count; run.json and the verdict say how many."""
-    from aspectus.synth.render import render_clip
-    from aspectus.synth.trajectory import synth_trajectory
-
     vis = np.ones(90, bool)
     vis[30:45] = False
-    clip = render_clip(tmp_path / "p10_s01.mp4", synth_trajectory(duration_s=3.0, seed=3), size_px=(640, 360),
-                       fps=30.0, seed=3, extra_faces=1, face_visible=vis).path
+    clip = rendered_clip(duration_s=3.0, seed=3, extra_faces=1, face_visible=vis, name="p10_s01.mp4").path
     res = process_clip(clip, tmp_path / "out" / "p10_s01")
     s = res.samples
     assert len(s) == 90

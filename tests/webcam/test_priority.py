@@ -56,12 +56,8 @@ def test_only_the_calling_thread_is_lowered():
 
 
 @pytest.fixture(scope="module")
-def short_clip(tmp_path_factory):
-    from aspectus.synth.render import render_clip, synth_trajectory
-
-    clip = tmp_path_factory.mktemp("prio") / "p07_s01_reading.mp4"
-    render_clip(clip, synth_trajectory(duration_s=1.0, seed=2), size_px=(320, 180), fps=30.0, seed=2)
-    return clip
+def short_clip(rendered_clip):
+    return rendered_clip(duration_s=1.0, seed=2, size_px=(320, 180), name="p07_s01_reading.mp4").path
 
 
 @linux_only
