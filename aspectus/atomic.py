@@ -125,6 +125,12 @@ def write_csv(target, df: pd.DataFrame, **kw) -> Path:
 def write_parquet(target, df: pd.DataFrame, metadata: dict | None = None, *, chunk_rows: int = 16384) -> Path:
     """Write a Parquet file atomically; ``metadata`` goes into the file's key-value metadata as JSON.
 
+    Units travel in the schema, so R (``arrow``) and Python (``pyarrow``)
+    find them without a sidecar: every field whose column has a unit
+    (:func:`aspectus.schema.column_unit`) carries ``unit`` in its field
+    metadata, and the schema metadata key ``units`` holds a JSON object
+    column -> unit (``""`` for columns without one).
+
     The table goes to the file ``chunk_rows`` rows at a time (one row group
     each), so writing an hour of samples never holds a second full copy of
     them in memory.
@@ -132,11 +138,17 @@ def write_parquet(target, df: pd.DataFrame, metadata: dict | None = None, *, chu
     import pyarrow as pa
     import pyarrow.parquet as pq
 
+    from aspectus.schema import column_unit
+
     schema = pa.Schema.from_pandas(df, preserve_index=False)
+    units = {f.name: column_unit(f.name) for f in schema}
+    schema = pa.schema([f.with_metadata({**(f.metadata or {}), b"unit": units[f.name].encode()})
+                        if units[f.name] else f for f in schema], metadata=schema.metadata)
+    meta = dict(schema.metadata or {})
+    meta[b"units"] = json.dumps(units).encode()
     if metadata:
-        meta = dict(schema.metadata or {})
         meta[b"aspectus"] = json.dumps(_clean_nan(metadata), default=_json_default).encode()
-        schema = schema.with_metadata(meta)
+    schema = schema.with_metadata(meta)
     step = max(1, int(chunk_rows))
     with atomic_path(target) as tmp:
         with pq.ParquetWriter(tmp, schema) as writer:

@@ -127,6 +127,47 @@ EVENT_COLUMNS: tuple[Column, ...] = (
 
 _EVENT_COLUMN_BY_NAME = {c.name: c for c in EVENT_COLUMNS}
 
+#: unit of a column aspectus does not define, from the end of its name (names carry units), longest first
+UNIT_SUFFIXES: tuple[tuple[str, str], ...] = (
+    ("_per_min", "1/min"), ("_per_s", "1/s"), ("_ms", "ms"), ("_s", "s"), ("_deg", "deg"), ("_mm", "mm"),
+    ("_px", "px"), ("_hz", "Hz"), ("_frac", "1"), ("_rel", "1"),
+)
+
+
+def column_unit(name: str) -> str:
+    """Unit of an aspectus table column: its definition (:func:`column`), else the end of its name.
+
+    Parameters
+    ----------
+    name : str
+        Column name of a samples, events, features or study table.
+
+    Returns
+    -------
+    str
+        The unit (``"s"``, ``"ms"``, ``"deg"``, ``"mm"``, ``"px"``,
+        ``"1/s"``, ``"1/min"``, ``"Hz"``, ``"a.u."``, ``"1"`` for fractions),
+        or ``""`` for columns without one (labels, flags, counts).
+
+    Examples
+    --------
+    >>> column_unit("fixation_duration_mean_ms")
+    'ms'
+    >>> column_unit("blink_rate_per_min")
+    '1/min'
+    >>> column_unit("pupil")
+    'a.u.'
+    >>> column_unit("participant")
+    ''
+    """
+    c = column(name)
+    if c is not None:
+        return c.unit
+    for suffix, unit in UNIT_SUFFIXES:
+        if name.endswith(suffix) and len(name) > len(suffix):
+            return unit
+    return ""
+
 
 def empty_samples() -> pd.DataFrame:
     """A samples table with every column and no rows."""

@@ -33,6 +33,7 @@ import pandas as pd
 from aspectus.atomic import write_bytes, write_json
 from aspectus.errors import ParameterError, ReferenceFormatError
 from aspectus.reference.screen import ScreenGeometry
+from aspectus.schema import EVENT_COLUMNS
 from aspectus.reference.table import (MISSING_TOKENS, TIME_UNITS, RawTable, check_position_range, check_times, numeric_column,
                     positions_to_deg, read_raw_table)
 
@@ -343,10 +344,16 @@ def read_bids_physio(path, *, screen: ScreenGeometry | None = None) -> Reference
         raise ReferenceFormatError(f"no valid gaze sample in {len(samples)} rows (all x/y are n/a)", path=path,
                                    hint="check that this is the right recording")
 
+    blink_col = None
+    if "blink" in cols:  # an additional 0/1 column (aspectus's own exports write one)
+        b = numeric_column(raw, "blink", "blink")
+        blink_col = np.isfinite(b) & (b != 0)
+        samples["blink"] = blink_col
+
     # --- events
     events, messages, ev_meta = _read_physioevents(path, t0=t0, ts_scale=(
         BIDS_TIME_UNITS.get(_column_unit(sidecar, "timestamp", "s"), 1.0) if "timestamp" in cols else 1.0))
-    if events is not None:
+    if events is not None and blink_col is None:
         blinks = events[events["type"] == "blink"]
         if len(blinks):
             t = samples["t_s"].to_numpy()
@@ -410,14 +417,18 @@ def _read_physioevents(physio: Path, *, t0: float, ts_scale: float):
     blink = raw.frame["blink"].str.lower().isin(["1", "1.0", "true"]) if "blink" in cols else \
         pd.Series([False] * len(onset))
     msg = raw.frame["message"] if "message" in cols else pd.Series(["n/a"] * len(onset))
-    rows = []
-    for i in range(len(onset)):
-        kind = "blink" if blink.iloc[i] else {"fixation": "fixation", "saccade": "saccade",
-                                              "blink": "blink"}.get(tt.iloc[i])
-        if kind and np.isfinite(dur[i]):
-            rows.append((kind, onset[i], onset[i] + dur[i], dur[i] * 1e3))
-    events = pd.DataFrame(rows, columns=["type", "onset_s", "offset_s", "duration_ms"]).astype(
-        {"onset_s": float, "offset_s": float, "duration_ms": float})
+    kinds = [("blink" if blink.iloc[i] else {"fixation": "fixation", "saccade": "saccade", "blink": "blink",
+                                             "loss": "loss"}.get(tt.iloc[i])) for i in range(len(onset))]
+    keep = np.array([bool(k) for k in kinds], bool) & np.isfinite(dur)
+    events = pd.DataFrame({"type": pd.Series([k for k, ok in zip(kinds, keep) if ok], dtype=object),
+                           "onset_s": onset[keep], "offset_s": onset[keep] + dur[keep],
+                           "duration_ms": dur[keep] * 1e3})
+    # further columns of the events schema (aspectus's own exports carry them), in their units
+    for col in EVENT_COLUMNS:
+        if col.name in cols and col.name not in events.columns:
+            v = numeric_column(raw, col.name, col.name)[keep]
+            events[col.name] = (pd.array([int(x) if np.isfinite(x) else pd.NA for x in v], dtype="Int64")
+                                if col.dtype == "int64" else v)
     events = events.sort_values("onset_s", kind="stable").reset_index(drop=True)
     m = ~msg.str.lower().isin(MISSING_TOKENS).to_numpy()
     messages = pd.DataFrame({"label": msg[m].to_numpy(dtype=str), "t_s": onset[m]})

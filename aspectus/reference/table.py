@@ -389,12 +389,17 @@ def numeric_column(raw: RawTable, name: str, role: str, *, extra_missing=()) -> 
     s = _col(raw, name, role)
     low = s.str.lower()
     missing = low.isin(list(MISSING_TOKENS) + [m.lower() for m in extra_missing])
-    vals = pd.to_numeric(s.where(~missing, None), errors="coerce").to_numpy(dtype=float)
+    vals = pd.to_numeric(s.where(~missing, None), errors="coerce").to_numpy(dtype=float, copy=True)
     bad = ~missing.to_numpy() & ~np.isfinite(vals)
     if bad.any():
         i = int(np.argmax(bad))
         raise ReferenceFormatError(f"{role} column {name!r} holds {s.iloc[i]!r}, expected a number", path=raw.path,
                                    where=f"row {raw.line_no[i]}", hint="fix the cell or the column mapping")
+    # pandas' fast parser can be off by one unit in the last place; Python's float() reads every decimal
+    # to the nearest double, so a number written with repr() reads back bit for bit
+    ok = np.isfinite(vals)
+    if ok.any():
+        vals[ok] = s.to_numpy(dtype=object)[ok].astype(float)
     return vals
 
 
