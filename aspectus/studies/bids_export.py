@@ -70,6 +70,7 @@ import pandas as pd
 from aspectus import __version__
 from aspectus.atomic import sha256_file, write_bytes, write_json, write_text
 from aspectus.errors import AspectusInputError
+from aspectus.labels import guess_labels
 from aspectus.schema import EVENT_COLUMNS, SAMPLE_COLUMN_BY_NAME
 
 #: BIDS version the export follows (eye-tracking recordings entered BIDS in 1.10.0)
@@ -249,12 +250,12 @@ def _clips_from_batch(folder: Path) -> tuple[list[_Clip], list[tuple[str, str]],
 
 
 def _clips_from_study(path: Path) -> tuple[list[_Clip], list[tuple[str, str]], str]:
-    from aspectus.studies.project import _clip_labels, load_study
+    from aspectus.studies.project import load_study
 
     study = load_study(path)
     clips = []
     for c in study.clips:
-        labels = {"participant": None, "session": None, **_clip_labels(c.stem)}
+        labels = {"participant": None, "session": None, **guess_labels(c.stem)}
         clips.append(_Clip(c.stem, study.clip_out_dir(c), labels))
     return clips, [], study.name
 
@@ -459,8 +460,6 @@ def _events_sidecar(table: pd.DataFrame) -> dict:
 
 def _assign_entities(clips: list[_Clip], *, task: str | None, notes: list[str]) -> list[dict]:
     """BIDS entities per clip: sub, ses, task, run (run only where several clips share the rest)."""
-    from aspectus.studies.project import _clip_labels
-
     raw_to_label: dict[tuple[str, str], str] = {}
     label_to_raw: dict[tuple[str, str], str] = {}
     guessed = []
@@ -468,7 +467,7 @@ def _assign_entities(clips: list[_Clip], *, task: str | None, notes: list[str]) 
     for c in clips:
         lab = dict(c.labels)
         if not lab.get("participant"):
-            g = _clip_labels(c.key)
+            g = guess_labels(c.key)
             lab["participant"] = g.get("participant") or c.key
             if not lab.get("session") and g.get("session"):
                 lab["session"] = g["session"]
@@ -489,7 +488,14 @@ def _assign_entities(clips: list[_Clip], *, task: str | None, notes: list[str]) 
             raw_to_label[(ent, raw)] = lbl
             e[ent] = lbl
         e["task"] = bids_label(lab.get("task") or task or DEFAULT_TASK, what="task")
-        e["labels"] = {k: v for k, v in lab.items() if k not in ("participant", "session", "task") and v is not None}
+        run = lab.get("run")
+        if run is not None:
+            if not str(run).isdigit():
+                raise AspectusInputError(f"the run label {run!r} is not a number, which BIDS run labels must be",
+                                         path=c.folder, hint="give runs as 1, 2, ... or leave the label out")
+            e["run"] = str(int(run))
+        e["labels"] = {k: v for k, v in lab.items() if k not in ("participant", "session", "task", "run")
+                       and v is not None}
         ents.append(e)
     if guessed:
         notes.append(f"{len(guessed)} clip(s) had no participant label; participant and session were taken from "
@@ -497,10 +503,19 @@ def _assign_entities(clips: list[_Clip], *, task: str | None, notes: list[str]) 
     groups: dict[tuple, list[int]] = {}
     for i, e in enumerate(ents):
         groups.setdefault((e["sub"], e.get("ses"), e["task"]), []).append(i)
-    for idx in groups.values():
-        if len(idx) > 1:
-            for n, i in enumerate(sorted(idx, key=lambda i: clips[i].key), start=1):
-                ents[i]["run"] = str(n)
+    for (sub, ses, tsk), idx in groups.items():
+        if len(idx) < 2:
+            continue
+        given = [ents[i].get("run") for i in idx]
+        if all(r is not None for r in given) and len(set(given)) == len(given):
+            continue
+        if any(r is not None for r in given):
+            keys = ", ".join(clips[i].key for i in idx)
+            raise AspectusInputError(f"clips {keys} are all sub-{sub}{f' ses-{ses}' if ses else ''} task-{tsk}, "
+                                     "and their run labels do not tell them apart",
+                                     hint="give each of them its own run label (1, 2, ...), or none of them")
+        for n, i in enumerate(sorted(idx, key=lambda i: clips[i].key), start=1):
+            ents[i]["run"] = str(n)
     return ents
 
 
