@@ -379,7 +379,7 @@ def _column_doc(name: str) -> dict:
     return d
 
 
-def _physio_sidecar(samples: pd.DataFrame, table: pd.DataFrame, run: dict) -> tuple[dict, float, bool]:
+def _physio_sidecar(samples: pd.DataFrame, table: pd.DataFrame, run: dict, *, task: str) -> tuple[dict, float, bool]:
     t = samples["t_s"].to_numpy(dtype=float)
     d = np.diff(t)
     med = float(np.median(d))
@@ -403,6 +403,7 @@ def _physio_sidecar(samples: pd.DataFrame, table: pd.DataFrame, run: dict) -> tu
     versions = ", ".join(f"{k} {v}" for k, v in sw.items() if k not in ("face_model",) and v)
     side = {
         "PhysioType": "eyetrack",
+        "TaskName": task,
         "SamplingFrequency": fs,
         "StartTime": 0.0,
         "Columns": list(table.columns),
@@ -424,15 +425,16 @@ def _physio_sidecar(samples: pd.DataFrame, table: pd.DataFrame, run: dict) -> tu
     }
     dist = samples["distance_mm"].to_numpy(dtype=float) if "distance_mm" in samples.columns else np.array([])
     if np.isfinite(dist).any():
-        side["EyeTrackerDistance"] = round(float(np.nanmedian(dist)) / 10.0, 1)
+        side["EyeTrackerDistance"] = round(float(np.nanmedian(dist)) / 1000.0, 3)  # metres (BIDS)
     for c in table.columns[3:]:
         side[c] = _column_doc(c)
     return side, fs, vfr
 
 
-def _events_sidecar(table: pd.DataFrame) -> dict:
+def _events_sidecar(table: pd.DataFrame, *, task: str) -> dict:
     docs = {c.name: c for c in EVENT_COLUMNS}
     side = {
+        "TaskName": task,
         "Columns": list(table.columns),
         "OnsetSource": "timestamp",
         "Description": "Fixations, saccades, blinks and data-loss periods detected by aspectus in the webcam "
@@ -659,12 +661,12 @@ def export_bids(results, out_root, *, task: str | None = None, name: str | None 
         folder = _folder(root, e)
         stem = _stem(e)
         physio = _physio_table(samples)
-        side, fs, vfr = _physio_sidecar(samples, physio, run)
+        side, fs, vfr = _physio_sidecar(samples, physio, run, task=e["task"])
         ev = _events_table(events)
         p = write_bytes(folder / f"{stem}_physio.tsv.gz", _tsv_gz(physio))
         write_json(folder / f"{stem}_physio.json", side)
         write_bytes(folder / f"{stem}_physioevents.tsv.gz", _tsv_gz(ev))
-        write_json(folder / f"{stem}_physioevents.json", _events_sidecar(ev))
+        write_json(folder / f"{stem}_physioevents.json", _events_sidecar(ev, task=e["task"]))
         params = run.get("params") or {}
         params_seen.setdefault(json.dumps(params, sort_keys=True, default=str), params)
         det = (params.get("analysis") or {}).get("detector")
