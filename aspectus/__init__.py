@@ -35,6 +35,7 @@ __getattr__, __dir__, _names = _attach(__name__, {
     "ValidateParams": "aspectus.validation.pair",
     "validate_study": "aspectus.validation.study",
     "run_batch": "aspectus.studies.batch",
+    "export_bids": "aspectus.studies.bids_export",
     "read_reference": "aspectus.reference",
     "TableMapping": "aspectus.reference.table",
     "render_clip": "aspectus.synth.render",

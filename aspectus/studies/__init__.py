@@ -3,6 +3,7 @@ from aspectus._lazy import attach as _attach
 
 __getattr__, __dir__, __all__ = _attach(__name__, {
     "run_batch": "aspectus.studies.batch",
+    "export_bids": "aspectus.studies.bids_export",
     "plan_batch": "aspectus.studies.batch",
     "BatchResult": "aspectus.studies.batch",
     "clip_is_done": "aspectus.studies.done",
