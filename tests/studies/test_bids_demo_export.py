@@ -14,7 +14,7 @@ of the export in one place each and seeing the validator report it:
 * ``dataset_description.json`` against its JSON schema (checked on the intact export: no error).
 
 The eye-tracking fields the release does not check are checked against the BIDS schema in
-``tests/test_bids_export.py``. Locally the test is skipped unless the validator is installed
+``tests/studies/test_bids_export.py``. Locally the test is skipped unless the validator is installed
 (``npm install --prefix .ci/node bids-validator@1.15.0``) or named by ``ASPECTUS_BIDS_VALIDATOR``;
 ``.ci/run`` sets ``ASPECTUS_REQUIRE_BIDS_VALIDATOR=1`` so that in CI a missing validator fails.
 """
@@ -35,7 +35,7 @@ from aspectus.reference.bids import read_bids_physio
 
 pytestmark = pytest.mark.slow
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 
 
 def _validator() -> str | None:
