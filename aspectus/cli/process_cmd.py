@@ -149,9 +149,9 @@ def _num(x, fmt: str, unit: str) -> str:
 
 
 def run(args) -> int:
-    from aspectus.progress import ProgressBar
+    from aspectus.progress import ProgressBar, classify_failure
 
-    from aspectus.errors import AspectusInputError, Cancelled
+    from aspectus.errors import AspectusInputError
     from aspectus.webcam.pipeline import ProcessParams, clip_output_dir, process_clip
 
     params = ProcessParams(fov_deg=args.fov_deg, face=args.face, max_faces=args.max_faces,
@@ -186,36 +186,33 @@ def run(args) -> int:
         try:
             res = process_clip(clip, clip_output_dir(out_root, clip), params=params, segments=args.segments,
                                progress=progress, reuse=not args.no_reuse)
-        except AspectusInputError as exc:
+        except BaseException as exc:  # noqa: BLE001 - one clip's failure must not stop the others
             bar.close()
-            print(f"aspectus: error: {exc}", file=sys.stderr)
-            failures += 1
-            continue
-        except (Cancelled, KeyboardInterrupt):
-            bar.close()
-            raise
-        except OSError as exc:  # disk full, permissions, a path that became a file, a file that went away
-            bar.close()
-            clip_out = clip_output_dir(out_root, clip)
-            where = Path(exc.filename) if exc.filename else None
-            writing = where is not None and clip_out.resolve() in (where.resolve(), *where.resolve().parents)
-            if writing:
-                print(f"aspectus: error: {clip}: could not write its outputs ({where}: "
-                      f"{exc.strerror or exc}); the new result was built beside the earlier one and is discarded, "
-                      "so the earlier result (if any) is still there and valid - free space or fix the folder, "
-                      "then run again", file=sys.stderr)
-            else:
-                print(f"aspectus: error: {clip}: file error ({f'{where}: ' if where else ''}{exc.strerror or exc}); "
-                      "the other clips go on", file=sys.stderr)
-            failures += 1
-            continue
-        except Exception as exc:  # noqa: BLE001 - one clip's failure must not stop the others
-            bar.close()
-            log = _write_error_log(clip_output_dir(out_root, clip), clip)
-            where = f"the details are in {log}; please report it with that file" if log else "please report it"
-            print(f"aspectus: error: {clip}: processing failed ({type(exc).__name__}: {exc}); this is a "
-                  f"fault in aspectus, not in the clip as far as it can tell - {where}; the other clips go on",
-                  file=sys.stderr)
+            failure = classify_failure(exc)  # the one sorting of failures (aspectus.progress)
+            if failure.kind == "cancelled":
+                raise
+            if failure.kind == "input":
+                print(f"aspectus: error: {exc}", file=sys.stderr)
+            elif failure.kind == "file":
+                clip_out = clip_output_dir(out_root, clip)
+                where = Path(exc.filename) if exc.filename else None
+                writing = where is not None and clip_out.resolve() in (where.resolve(), *where.resolve().parents)
+                if writing:
+                    print(f"aspectus: error: {clip}: could not write its outputs ({where}: "
+                          f"{exc.strerror or exc}); the new result was built beside the earlier one and is "
+                          "discarded, so the earlier result (if any) is still there and valid - free space or fix "
+                          "the folder, then run again", file=sys.stderr)
+                else:
+                    print(f"aspectus: error: {clip}: file error ({f'{where}: ' if where else ''}"
+                          f"{exc.strerror or exc}); the other clips go on", file=sys.stderr)
+            else:  # memory or a fault of aspectus: keep the traceback for a report
+                if not isinstance(exc, Exception):
+                    raise
+                log = _write_error_log(clip_output_dir(out_root, clip), clip)
+                where = f"the details are in {log}; please report it with that file" if log else "please report it"
+                print(f"aspectus: error: {clip}: processing failed ({type(exc).__name__}: {exc}); this is a "
+                      f"fault in aspectus, not in the clip as far as it can tell - {where}; the other clips go on",
+                      file=sys.stderr)
             failures += 1
             continue
         bar.close()
