@@ -188,3 +188,31 @@ def sha256_file(path, chunk: int = 1 << 20) -> str:
 def sha256_json(obj: Any) -> str:
     """Hex SHA-256 of a canonical JSON rendering (sorted keys) - used to key results by parameters."""
     return hashlib.sha256(json.dumps(_clean_nan(obj), sort_keys=True, default=_json_default).encode()).hexdigest()
+
+
+#: environment variable that, when "1", makes outputs record inputs by their absolute paths as well
+FULL_PATHS_ENV = "ASPECTUS_FULL_PATHS"
+
+
+def recorded_path(path, base) -> str:
+    """How an output records an input's path: relative to ``base`` (the output folder or study file's folder).
+
+    Absolute paths carry user names and often students' names, so outputs
+    hold paths relative to where they are written (with ``/`` separators),
+    and identify inputs by their SHA-256. When ``path`` cannot be expressed
+    relative to ``base`` (another drive on Windows) only its file name is
+    kept.
+    """
+    p = Path(os.path.abspath(path))
+    try:
+        rel = os.path.relpath(p, os.path.abspath(base))
+    except ValueError:
+        return p.name
+    return Path(rel).as_posix()
+
+
+def full_paths_wanted(flag: bool | None = None) -> bool:
+    """Whether outputs should also record absolute paths: ``flag`` if given, else ``ASPECTUS_FULL_PATHS=1``."""
+    if flag is not None:
+        return bool(flag)
+    return os.environ.get(FULL_PATHS_ENV, "").strip() in ("1", "true", "yes")

@@ -56,11 +56,22 @@ def bids_labels(rel: str, *, source=None) -> dict:
     return out
 
 
+def compile_label_pattern(pattern: str) -> re.Pattern:
+    """``--labels`` as a compiled regular expression; a one-line ParameterError when it is not one."""
+    from aspectus.errors import ParameterError
+
+    try:
+        return re.compile(pattern)
+    except re.error as exc:
+        raise ParameterError(f"--labels {pattern!r} is not a regular expression ({exc})",
+                             hint=r"e.g. --labels '(?P<participant>p\d+)_(?P<session>s\d+)'") from None
+
+
 def pattern_labels(text: str, pattern: str | None) -> dict:
     """Named groups of ``pattern`` found in ``text`` (``/`` separators); groups that did not match are absent."""
     if not pattern:
         return {}
-    m = re.search(pattern, str(text).replace("\\", "/"))
+    m = compile_label_pattern(pattern).search(str(text).replace("\\", "/"))
     return {k: v for k, v in (m.groupdict() if m else {}).items() if v is not None}
 
 

@@ -46,6 +46,17 @@ def _one_line_warning(message, category, filename, lineno, line=None) -> str:
     return f"aspectus: warning: {message}\n"
 
 
+def _silence_stdout() -> None:
+    """Point stdout at the null device so the interpreter's final flush does not fail again."""
+    import os
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):
+        pass
+
+
 def main(argv: list[str] | None = None) -> int:
     import warnings
 
@@ -55,9 +66,16 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 2
     previous_format = warnings.formatwarning
+    import os
+
+    from aspectus.atomic import FULL_PATHS_ENV
+
+    previous_full_paths = os.environ.get(FULL_PATHS_ENV)  # --full-paths holds for this command only
     warnings.formatwarning = _one_line_warning
     try:
-        return int(args.func(args) or 0)
+        code = int(args.func(args) or 0)
+        sys.stdout.flush()  # a closed pipe shows here, inside the handler below, not at interpreter exit
+        return code
     except Cancelled:
         print("aspectus: cancelled; finished outputs are kept", file=sys.stderr)
         return 130
@@ -70,8 +88,15 @@ def main(argv: list[str] | None = None) -> int:
     except AspectusError as exc:
         print(f"aspectus: error: {exc}", file=sys.stderr)
         return 1
+    except BrokenPipeError:  # `aspectus ... | head -1`: the reader went away; the work itself is done
+        _silence_stdout()
+        return 141
     finally:
         warnings.formatwarning = previous_format
+        if previous_full_paths is None:
+            os.environ.pop(FULL_PATHS_ENV, None)
+        else:
+            os.environ[FULL_PATHS_ENV] = previous_full_paths
 
 
 if __name__ == "__main__":  # pragma: no cover

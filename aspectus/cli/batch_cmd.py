@@ -2,6 +2,8 @@
 from __future__ import annotations
 
 import signal
+
+from aspectus.cli.outdir import add_output_options
 import sys
 import threading
 from pathlib import Path
@@ -21,6 +23,7 @@ def register(sub) -> None:
     )
     p.add_argument("source", metavar="FOLDER_OR_MANIFEST", help="folder of clips, or manifest CSV")
     p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="batch output folder")
+    add_output_options(p)
     p.add_argument("--workers", type=int, default=None, metavar="N",
                    help="local worker processes (default: one per core, fewer if memory is short)")
     p.add_argument("--scheduler", default=None, metavar="tcp://HOST:PORT",
@@ -95,6 +98,16 @@ def run(args) -> int:
     from aspectus.studies.batch import plan_batch, run_batch
     from aspectus.studies.clips import VIDEO_EXTENSIONS
 
+    from aspectus.cli.outdir import apply_output_options, prepare_out_dir
+    from aspectus.labels import compile_label_pattern
+    from aspectus.studies.engines import check_scheduler_address
+
+    apply_output_options(args)
+    if args.labels:
+        compile_label_pattern(args.labels)
+    if args.scheduler:
+        check_scheduler_address(args.scheduler)
+    prepare_out_dir(args.out, create=False)
     exts = tuple(e.strip() for e in args.ext.split(",") if e.strip()) if args.ext else VIDEO_EXTENSIONS
     params = _params_from_args(args)
     common = dict(params=params, extensions=exts, recursive=not args.no_recursive, label_pattern=args.labels,

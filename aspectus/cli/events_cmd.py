@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import sys
 
+from aspectus.cli.outdir import add_output_options
 from aspectus.cli.table_args import add_table_arguments, mapping_from_args, screen_from_args
 
 
@@ -19,6 +20,7 @@ def register(sub) -> None:
     )
     p.add_argument("table", metavar="TABLE", help="gaze table (CSV/TSV/...) or aspectus samples table")
     p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
+    add_output_options(p)
     add_table_arguments(p, title="columns of a gaze table (not needed for a aspectus samples table)")
     p.add_argument("--segments", metavar="CSV", help="task segments (label, onset_s, offset_s) for per-segment features")
     from aspectus.cli.process_cmd import add_analysis_arguments
@@ -32,7 +34,11 @@ def run(args) -> int:
     from aspectus.errors import ParameterError
     from aspectus.cli.process_cmd import analysis_params_from_args
 
+    from aspectus.cli.outdir import apply_output_options, prepare_out_dir
+
+    apply_output_options(args)
     params = analysis_params_from_args(args)
+    prepare_out_dir(args.out, create=False)
     if args.time_col is None and (args.x_col or args.y_col):
         raise ParameterError("--x-col/--y-col given without --time-col", hint="name the time column too")
     mapping = mapping_from_args(args, screen_from_args(args), zero_time=False)

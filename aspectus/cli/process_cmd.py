@@ -17,6 +17,9 @@ def register(sub) -> None:
     )
     p.add_argument("clips", nargs="+", metavar="CLIP", help="video files (mp4, mov, avi, mkv, webm)")
     p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
+    from aspectus.cli.outdir import add_output_options
+
+    add_output_options(p)
     p.add_argument("--fov-deg", type=float, default=60.0,
                    help="assumed horizontal field of view of the webcam in degrees, across the upright picture's width "
                         "(for a clip tagged to play rotated, the width as played; default 60)")
@@ -133,7 +136,7 @@ def _write_error_log(out_dir: Path, clip: Path) -> Path | None:
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
         log.write_text(f"aspectus {__version__}, {datetime.datetime.now().isoformat(timespec='seconds')}\n"
-                       f"clip: {clip.resolve()}\n\n{traceback.format_exc()}", encoding="utf-8")
+                       f"clip: {clip.name}\n\n{traceback.format_exc()}", encoding="utf-8")
     except OSError:
         return None
     return log
@@ -156,15 +159,10 @@ def run(args) -> int:
 
     params = ProcessParams(fov_deg=args.fov_deg, face=args.face, max_faces=args.max_faces,
                            gaze=gaze_params_from_args(args), analysis=analysis_params_from_args(args))
-    out_root = Path(args.out)
-    if out_root.exists() and not out_root.is_dir():
-        raise AspectusInputError(f"{out_root}: OUTDIR is a file, not a folder; give a folder to write the "
-                                "clips' outputs into (it is created if missing)")
-    try:
-        out_root.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise AspectusInputError(f"{out_root}: cannot create OUTDIR ({exc.strerror or exc}); "
-                                "choose a folder you can write to") from None
+    from aspectus.cli.outdir import apply_output_options, prepare_out_dir
+
+    apply_output_options(args)
+    out_root = prepare_out_dir(args.out)
     failures = 0
     stems: dict[str, Path] = {}
     for clip in args.clips:

@@ -4,6 +4,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+from aspectus.cli.outdir import add_output_options
 from aspectus.cli.table_args import add_table_arguments, mapping_from_args, screen_from_args
 
 
@@ -27,6 +28,7 @@ def register(sub) -> None:
     p.add_argument("reference", nargs="?", metavar="REFERENCE",
                    help="BIDS *_physio.tsv.gz or a gaze table (study: a folder of them)")
     p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
+    add_output_options(p)
     p.add_argument("--manifest", metavar="CSV", help="study mode: a CSV pairing each webcam folder with its reference")
     s = p.add_argument_group("study from two folders")
     s.add_argument("--labels", metavar="REGEX", default=None,
@@ -84,6 +86,14 @@ def run(args) -> int:
     from aspectus.validation.study import validate_study
     from aspectus.cli.process_cmd import analysis_params_from_args
 
+    from aspectus.cli.outdir import apply_output_options, prepare_out_dir
+
+    apply_output_options(args)
+    if getattr(args, "labels", None):
+        from aspectus.labels import compile_label_pattern
+
+        compile_label_pattern(args.labels)
+    prepare_out_dir(args.out, create=False)
     mapping, screen = _mapping(args)
     analysis = analysis_params_from_args(args)
     # --window-s alone means back-to-back windows of that length

@@ -454,7 +454,7 @@ def analyse_table(path, out_dir, *, time_col: str | None = None, time_unit: str 
     -------
     TableRun
     """
-    from aspectus.atomic import sha256_file
+    from aspectus.atomic import full_paths_wanted, recorded_path, sha256_file
     from aspectus.errors import AspectusInputError
 
     path = Path(path)
@@ -483,10 +483,13 @@ def analyse_table(path, out_dir, *, time_col: str | None = None, time_unit: str 
             mapping = dataclasses.replace(mapping, zero_time=False)
         samples = read_gaze_table(path, mapping)
     seg_df = read_segments(segments) if isinstance(segments, (str, Path)) else segments
-    result = run_analysis(samples, params, segments=seg_df, source=str(path))
-    meta = {"input": {"path": str(path), "sha256": sha256_file(path), "kind": kind,
+    result = run_analysis(samples, params, segments=seg_df, source=path.name)
+    # paths relative to the output folder (absolute ones name users and students), identity by SHA-256
+    meta = {"input": {"path": recorded_path(path, out_dir), "sha256": sha256_file(path), "kind": kind,
                       "mapping": mapping.to_dict() if mapping is not None else None}}
+    if full_paths_wanted():
+        meta["input"]["path_resolved"] = str(path.resolve())
     if isinstance(segments, (str, Path)):
-        meta["segments"] = {"path": str(segments), "sha256": sha256_file(segments)}
+        meta["segments"] = {"path": recorded_path(segments, out_dir), "sha256": sha256_file(segments)}
     paths = write_analysis(result, out_dir, meta=meta, sidecar_name="events.json")
     return TableRun(result=result, paths=paths, input_path=path, input_kind=kind)

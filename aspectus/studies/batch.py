@@ -420,7 +420,7 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
                     row.summary = res.get("summary") or {}
                     if res.get("traceback"):
                         _save_traceback(out_dir, row.job.key, res["traceback"])
-                row.worker = f"{res.get('host', '')} {out.worker}".strip()
+                row.worker = str(out.worker)  # no host name in the outputs
                 row.elapsed_s = res.get("elapsed_s")
                 row.finished_utc = _utc_now()
                 if row.status == "done":
@@ -444,6 +444,8 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
                                 "mtime_ns": row.stat[1] if row.stat else None, "worker": row.worker,
                                 "elapsed_s": row.elapsed_s})
                 board.finished(row.job.key, row.status)
+                # status.csv follows every finished clip, so a kill never leaves finished clips "pending" there
+                write_csv(out_dir / "status.csv", _status_table(rows, out_dir))
                 if time.monotonic() - last_status >= STATUS_EVERY_S:
                     index.save()
                     _write_tables(rows, out_dir, meta=meta, final=False)

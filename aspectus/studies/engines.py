@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import os
 import queue as queue_mod
+import re
 import signal
 import threading
 import time
@@ -358,6 +359,19 @@ def _dask_call(fn, key: str, payload: Any, topic: str, cancel_name: str) -> dict
     return {"worker": worker, "result": result}
 
 
+_SCHEDULER_ADDRESS = re.compile(r"^(?:(?:tcp|tls|ws|wss|ucx)://)?[A-Za-z0-9_.\-]+(?::\d{1,5})?$|^(?:tcp|tls)://\[[0-9A-Fa-f:]+\](?::\d{1,5})?$|^inproc://\S+$")
+
+
+def check_scheduler_address(address: str) -> str:
+    """A one-line ParameterError unless ``address`` looks like a Dask scheduler address (before any wait)."""
+    from aspectus.errors import ParameterError
+
+    if not isinstance(address, str) or not _SCHEDULER_ADDRESS.match(address.strip()):
+        raise ParameterError(f"--scheduler {address!r} is not a scheduler address",
+                             hint="give tcp://HOST:PORT, e.g. tcp://10.0.0.5:8786")
+    return address
+
+
 class DaskEngine:
     """Clips as tasks on a ``dask.distributed`` cluster.
 
@@ -383,6 +397,8 @@ class DaskEngine:
             from aspectus.errors import ParameterError
 
             raise ParameterError("the Dask engine needs a scheduler address, a cluster or a client")
+        if address is not None:
+            check_scheduler_address(address)
         self.address = address
         self.cluster = cluster
         self._client = client
@@ -403,9 +419,11 @@ class DaskEngine:
         target = self.cluster if self.cluster is not None else self.address
         try:
             client = Client(target, timeout=f"{self.connect_timeout_s}s", set_as_default=False)
-        except (OSError, TimeoutError) as exc:
-            raise AspectusError(f"cannot reach the Dask scheduler at {self.address}: {exc} - start it with "
-                               "'dask scheduler' and check the address and firewall") from None
+        except Exception as exc:  # noqa: BLE001 - OSError, TimeoutError, and garbage from a non-Dask server
+            first = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+            raise AspectusError(f"cannot reach the Dask scheduler at {self.address} ({type(exc).__name__}: "
+                               f"{first}) - start it with 'dask scheduler' and check the address and "
+                               "firewall") from None
         return client, True
 
     def run(self, fn: Callable, payloads: dict[str, Any], *, on_progress: Callable[[ProgressEvent], None] | None = None,

@@ -5,7 +5,6 @@ import contextlib
 import datetime as _dt
 import json
 import os
-import socket
 from pathlib import Path
 
 
@@ -21,13 +20,22 @@ def _utc_now() -> str:
 
 
 class HashIndex:
-    """Cache of clip SHA-256 keyed by absolute path, valid while (size, mtime_ns) stay the same.
+    """Cache of clip SHA-256 keyed by absolute path, valid while the file is provably untouched.
+
+    A cached hash is used only while the file's size, modification time,
+    inode change time (``st_ctime_ns``, which no user tool can set back) and
+    inode number are all the same as when it was hashed. A clip rewritten in
+    place with the same size and its modification time put back (``touch
+    -r``) therefore gets hashed again: identity is decided by content.
 
     Parameters
     ----------
     path : path-like
         The JSON file that holds the index (written atomically).
     """
+
+    #: the file properties a cached hash is tied to
+    IDENTITY = ("size", "mtime_ns", "ctime_ns", "ino")
 
     def __init__(self, path):
         self.path = Path(path)
@@ -45,30 +53,43 @@ class HashIndex:
         st = p.stat()
         return int(st.st_size), int(st.st_mtime_ns)
 
+    @staticmethod
+    def _identity(p: Path) -> dict:
+        st = p.stat()
+        return {"size": int(st.st_size), "mtime_ns": int(st.st_mtime_ns), "ctime_ns": int(st.st_ctime_ns),
+                "ino": int(st.st_ino)}
+
     def lookup(self, clip: Path) -> str | None:
-        """The cached hash if the file's size and mtime are unchanged, else None."""
+        """The cached hash if the file is untouched since it was hashed (see the class), else None."""
         e = self._d.get(str(clip))
         if not e:
             return None
         try:
-            size, mtime = self._stat(clip)
+            now = self._identity(clip)
         except OSError:
             return None
-        return e.get("sha256") if (e.get("size"), e.get("mtime_ns")) == (size, mtime) else None
+        return e.get("sha256") if all(e.get(k) == now[k] for k in self.IDENTITY) else None
 
     def sha256(self, clip: Path) -> str:
         """Hash of the clip, from the cache or computed (and cached)."""
         h = self.lookup(clip)
         if h is None:
-            before = self._stat(clip)
+            before = self._identity(clip)
             h = sha256_file(clip)
-            if self._stat(clip) == before:
-                self.put(clip, h, stat=before)
+            if self._identity(clip) == before:
+                self._d[str(clip)] = before | {"sha256": h}
+                self.dirty = True
         return h
 
     def put(self, clip: Path, sha: str, *, stat: tuple[int, int] | None = None) -> None:
-        size, mtime = stat if stat is not None else self._stat(clip)
-        self._d[str(clip)] = {"size": size, "mtime_ns": mtime, "sha256": sha}
+        """Cache ``sha`` for the clip as it is now; not if its (size, mtime) is no longer ``stat``."""
+        try:
+            now = self._identity(clip)
+        except OSError:
+            return
+        if stat is not None and (now["size"], now["mtime_ns"]) != tuple(stat):
+            return
+        self._d[str(clip)] = now | {"sha256": sha}
         self.dirty = True
 
     def save(self) -> None:
@@ -143,7 +164,7 @@ def _out_dir_lock(state_dir: Path):
                                    "wait for it to finish or stop it first") from None
         fh.seek(0)
         fh.truncate()
-        fh.write(f"pid {os.getpid()} on {socket.gethostname()} since {_utc_now()}\n")
+        fh.write(f"pid {os.getpid()} since {_utc_now()}\n")  # no host name: outputs name no machine
         fh.flush()
         yield
     finally:

@@ -51,6 +51,10 @@ def run_clip_task(payload: dict, progress, cancel) -> dict:
         ``host``, and ``traceback`` for internal errors.
     """
     t0 = time.monotonic()
+    import warnings
+
+    # a worker's warnings as one line each, like the command line's (not file, line and source line)
+    warnings.formatwarning = lambda message, category, *a, **k: f"aspectus: warning: {message}\n"
     # several workers on one machine would all put their background work on the same CPU
     # (aspectus._env.background_cpus): let the operating system place it
     os.environ["ASPECTUS_PIN_BACKGROUND"] = "0"

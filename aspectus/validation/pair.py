@@ -478,7 +478,9 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
 
     meta = {
         "aspectus": __version__, "participant": participant, "session": session,
-        "webcam": str(cam_dir), "reference": str(ref.path), "reference_format": ref.meta.get("format"),
+        # paths relative to the output folder (absolute ones name users and students); identity by SHA-256
+        "webcam": _recorded(cam_dir, out_dir), "reference": _recorded(ref.path, out_dir),
+        "reference_sha256": _sha_or_none(ref.path), "reference_format": ref.meta.get("format"),
         "reference_rate_hz": ref.rate_hz, "reference_screen": ref.screen.to_dict() if ref.screen else None,
         "webcam_rate_hz": res_w.quality.get("sample_rate_hz"), "overlap_s": float(overlap),
         "windows": int(len(windows)), "segments": int(0 if segs is None else len(segs)),
@@ -494,6 +496,24 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     if write:
         write_validation(result, out_dir, figures=figures)
     return result
+
+
+def _recorded(path, out_dir) -> str:
+    """``path`` as outputs record it: relative to ``out_dir``; absolute only with ASPECTUS_FULL_PATHS=1."""
+    from aspectus.atomic import full_paths_wanted, recorded_path
+
+    if full_paths_wanted():
+        return str(Path(path).resolve())
+    return recorded_path(path, out_dir) if out_dir is not None else Path(path).name
+
+
+def _sha_or_none(path) -> str | None:
+    from aspectus.atomic import sha256_file
+
+    try:
+        return sha256_file(path) if Path(path).is_file() else None
+    except (OSError, AspectusInputError):
+        return None
 
 
 def write_validation(result: ValidationResult, out_dir, *, figures: bool = True) -> dict[str, Path]:

@@ -41,7 +41,8 @@ import numpy as np
 import pandas as pd
 
 from aspectus import __version__
-from aspectus.atomic import sha256_file, sha256_json, write_csv, write_json, write_parquet
+from aspectus.atomic import (full_paths_wanted, recorded_path, sha256_file, sha256_json, write_csv, write_json,
+                             write_parquet)
 from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import read_run_json, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
@@ -506,8 +507,23 @@ def _write_outputs(out_dir: Path, samples: pd.DataFrame, analysis, run: dict) ->
     return outputs
 
 
+def _paths_recorded(meta: dict, clip: Path, out_dir: Path, full_paths) -> dict:
+    """The extraction record with the clip's path relative to ``out_dir`` (absolute only on request)."""
+    meta = dict(meta or {})
+    video = dict(meta.get("video") or {})
+    if "path" in video:
+        video["path"] = recorded_path(clip, out_dir)
+        if full_paths_wanted(full_paths):
+            video["path_resolved"] = str(clip.resolve())
+        else:
+            video.pop("path_resolved", None)
+        meta["video"] = video
+    return meta
+
+
 def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, segments=None,
-                 progress: ProgressFn | None = None, cancel=None, reuse: bool = True) -> ClipResult:
+                 progress: ProgressFn | None = None, cancel=None, reuse: bool = True,
+                 full_paths: bool | None = None) -> ClipResult:
     """Process one clip into ``out_dir`` (see the module docstring for the files).
 
     Parameters
@@ -527,6 +543,10 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         When ``out_dir`` already holds samples made from the same input file
         with the same landmarking parameters (and its checksum holds), skip
         landmarking and only re-run detection and features.
+    full_paths : bool, optional
+        Also record the clip's absolute path in run.json (``clip_resolved``).
+        Default: no (``ASPECTUS_FULL_PATHS=1`` turns it on); run.json always
+        holds the path relative to ``out_dir`` and the clip's SHA-256.
 
     Raises
     ------
@@ -581,26 +601,31 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
     if cancel is not None and cancel.is_set():
         raise Cancelled(f"cancelled before writing {clip.name}")
     progress(0.96, f"{clip.name}: detecting events")
-    analysis = run_analysis(samples, params.analysis, segments=seg_df, source=str(clip))
+    analysis = run_analysis(samples, params.analysis, segments=seg_df, source=clip.name)
     summary = summarise(samples, analysis, meta)
+    meta = _paths_recorded(meta, clip, out_dir, full_paths)
     run = {
         "aspectus": __version__,
         "created_utc": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
-        "clip": str(clip),
-        "clip_resolved": str(clip.resolve()),
+        "clip": recorded_path(clip, out_dir),  # relative to this folder: no user or student names from the path
         "clip_name": clip.name,
         "input_sha256": input_sha,
         "input_bytes": clip.stat().st_size,
         "params": params.to_dict(),
         "params_sha256": params.fingerprint(),
         "extraction_sha256": extraction_sha,
-        "segments": str(segments) if segments is not None and not isinstance(segments, pd.DataFrame) else None,
+        "segments": recorded_path(segments, out_dir) if segments is not None
+        and not isinstance(segments, pd.DataFrame) else None,
         "software": software_versions(),
         "extraction": meta,
         "quality": summary,
         "analysis_quality": analysis.quality,
         "columns": {c.name: {"unit": c.unit, "doc": c.doc} for c in SAMPLE_COLUMNS},
     }
+    if full_paths_wanted(full_paths):  # only on request: absolute paths name users and often students
+        run["clip_resolved"] = str(clip.resolve())
+        if run["segments"] is not None:
+            run["segments_resolved"] = str(Path(segments).resolve())
     if cancel is not None and cancel.is_set():
         raise Cancelled(f"cancelled before writing {clip.name}")
     progress(0.98, f"{clip.name}: writing")
@@ -640,7 +665,7 @@ def reanalyse(out_dir, analysis_params, *, segments=None, write: bool = True):
     out_dir = Path(out_dir)
     samples = load_samples(out_dir)
     seg_df = _segments_frame(segments)
-    result = run_analysis(samples, analysis_params, segments=seg_df, source=str(out_dir / "samples.parquet"))
+    result = run_analysis(samples, analysis_params, segments=seg_df, source="samples.parquet")
     if write:
         run = read_run_json(out_dir) or {}
         params = dict(run.get("params") or {})

@@ -15,6 +15,7 @@ import sys
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from aspectus.cli import main
@@ -397,3 +398,187 @@ def test_bom_prefixed_segments_mapping_and_sidecar_are_read(small_clip, tmp_path
     side.write_bytes(("\ufeff" + json.dumps({"SamplingFrequency": 250})).encode())
     assert _load_json(side)["SamplingFrequency"] == 250
 
+
+
+# --- batch: status as clips finish, identity by content, no host names ---------------------------
+
+def test_status_csv_follows_each_finished_clip(tmp_path):
+    """Issue 17.7: after a kill, status.csv said "pending" for clips complete on disk (rewritten every 30 s)."""
+    import threading
+
+    from test_batch import _clips, _run
+
+    src = _clips(tmp_path / "clips", {"p01.mp4": b"clip one", "p02.mp4": b"WAIT"})
+    out = tmp_path / "out"
+    stop = threading.Event()
+    t = threading.Thread(target=lambda: _run(src, out, workers=2, cancel=stop))
+    t.start()
+    seen = None
+    try:
+        for _ in range(400):  # while p02 still runs (it waits to be cancelled)
+            threading.Event().wait(0.05)
+            try:
+                st = pd.read_csv(out / "status.csv").set_index("key")["status"].to_dict()
+            except (OSError, ValueError, KeyError):
+                continue
+            if st.get("p01") == "done":
+                seen = st
+                break
+    finally:
+        stop.set()
+        t.join(timeout=60)
+    assert seen is not None and seen["p02"] == "pending", seen
+
+
+def test_a_clip_changed_in_place_with_same_size_and_mtime_is_redone(tmp_path):
+    """Issue 17.6: the hash cache trusted (size, mtime); run.json's SHA differed from the file's."""
+    from test_batch import _clips, _run
+
+    src = _clips(tmp_path / "clips", {"p01.mp4": b"clip one", "p02.mp4": b"clip two"})
+    out = tmp_path / "out"
+    assert _run(src, out).counts["done"] == 2
+    clip = src / "p02.mp4"
+    st = clip.stat()
+    with open(clip, "r+b") as fh:  # rewritten in place: same size, and the modification time put back
+        fh.write(b"CLIP")
+    os.utime(clip, ns=(st.st_atime_ns, st.st_mtime_ns))
+    assert clip.stat().st_size == st.st_size and clip.stat().st_mtime_ns == st.st_mtime_ns
+    again = _run(src, out)
+    assert again.status.set_index("key")["status"].to_dict() == {"p01": "skipped", "p02": "done"}
+
+
+def test_no_host_name_in_status_or_lock(tmp_path):
+    import socket
+
+    from test_batch import _clips, _run
+
+    src = _clips(tmp_path / "clips", {"p01.mp4": b"clip one"})
+    out = tmp_path / "out"
+    _run(src, out, workers=1)
+    host = socket.gethostname()
+    assert host not in (out / "status.csv").read_text()
+    assert host not in (out / ".batch" / "lock").read_text()
+    assert str(tmp_path) not in (out / "status.csv").read_text()
+
+
+def test_outputs_hold_no_absolute_paths_unless_asked(processed_once, small_clip, tmp_path):
+    """Issue 17.2: run.json and the Parquet metadata carried absolute paths (user and student names)."""
+    import pyarrow.parquet as pq
+
+    d = processed_once / small_clip.stem
+    secret = str(small_clip.parent)  # the folder the clip is in: stands for /home/<user>/<student>/
+    for p in d.iterdir():
+        if p.suffix in (".json", ".csv"):
+            assert secret not in p.read_text(), p
+        if p.suffix == ".parquet":
+            meta = pq.read_schema(p).metadata or {}
+            assert all(secret.encode() not in v for v in meta.values()), p
+    run = json.loads((d / "run.json").read_text())
+    assert (d / run["clip"]).resolve() == small_clip.resolve() and len(run["input_sha256"]) == 64
+    assert "clip_resolved" not in run
+    # on request: full paths too
+    out = tmp_path / "full"
+    assert main(["process", str(small_clip), "-o", str(out), "--quiet", "--full-paths"]) == 0
+    run = json.loads((out / small_clip.stem / "run.json").read_text())
+    assert run["clip_resolved"] == str(small_clip.resolve())
+
+
+def test_events_output_records_the_table_relative(tmp_path):
+    src = tmp_path / "in" / "t.csv"
+    src.parent.mkdir()
+    src.write_text(_table())
+    assert main(["events", str(src), "-o", str(tmp_path / "o"), *TABLE_ARGS]) == 0
+    side = json.loads((tmp_path / "o" / "events.json").read_text())
+    assert side["input"]["path"] == "../in/t.csv"
+    assert str(tmp_path) not in (tmp_path / "o" / "events.json").read_text()
+
+
+# --- one-line errors for the output folder, --labels, --scheduler, a closed pipe ----------------
+
+@pytest.mark.parametrize("command", ["events", "validate", "batch", "process"])
+@pytest.mark.parametrize("what", ["file", "read-only"])
+def test_outdir_that_is_a_file_or_read_only_is_one_line(command, what, tmp_path, capsys):
+    if what == "read-only" and os.geteuid() == 0:
+        pytest.skip("root writes into read-only folders")
+    src = tmp_path / "t.csv"
+    src.write_text(_table())
+    out = tmp_path / "out"
+    if what == "file":
+        out.write_text("x")
+    else:
+        out.mkdir()
+        out.chmod(0o555)
+    argv = {"events": ["events", str(src), "-o", str(out), *TABLE_ARGS],
+            "validate": ["validate", str(tmp_path), str(src), "-o", str(out)],
+            "batch": ["batch", str(tmp_path), "-o", str(out), "--quiet"],
+            "process": ["process", str(tmp_path / "a.mp4"), "-o", str(out), "--quiet"]}[command]
+    try:
+        code = main(argv)
+    finally:
+        if what == "read-only":
+            out.chmod(0o755)
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert "OUTDIR" in err and str(out) in err and len(err.strip().splitlines()) == 1, err
+
+
+def test_outdir_read_only_as_an_ordinary_user(tmp_path):
+    """The same check as a non-root user (the test machine may run as root, who may write anywhere)."""
+    from aspectus.cli.outdir import prepare_out_dir
+
+    out = tmp_path / "ro"
+    out.mkdir()
+    real = os.access
+    try:
+        os.access = lambda p, mode: False if Path(p) == out else real(p, mode)
+        with pytest.raises(AspectusInputError, match="not writable"):
+            prepare_out_dir(out)
+    finally:
+        os.access = real
+
+
+def test_bad_label_pattern_and_scheduler_are_one_line(tmp_path, capsys):
+    assert main(["batch", str(tmp_path), "-o", str(tmp_path / "o"), "--labels", r"(?P<participant>p\d+"]) == 2
+    err = capsys.readouterr().err
+    assert "--labels" in err and "not a regular expression" in err and len(err.strip().splitlines()) == 1
+    assert main(["batch", str(tmp_path), "-o", str(tmp_path / "o"), "--scheduler", "not a url"]) == 2
+    err = capsys.readouterr().err
+    assert "not a scheduler address" in err and len(err.strip().splitlines()) == 1
+
+
+@pytest.mark.timeout(60)
+def test_output_into_a_closed_pipe_is_quiet(tmp_path):
+    """`aspectus batch ... | head -1` gave a BrokenPipeError traceback."""
+    clips = tmp_path / "clips"
+    clips.mkdir()
+    for i in range(300):
+        (clips / f"p{i:03d}.mp4").write_bytes(b"x")
+    env = dict(os.environ, PYTHONPATH=str(REPO))
+    proc = subprocess.run(f"'{sys.executable}' -m aspectus batch '{clips}' -o '{tmp_path / 'o'}' --dry-run | head -1",
+                          shell=True, capture_output=True, text=True, env=env, timeout=50)
+    assert proc.stdout.count("\n") == 1
+    assert "Traceback" not in proc.stderr and "BrokenPipe" not in proc.stderr, proc.stderr
+
+
+def test_worker_warnings_are_one_line(tmp_path, capsys):
+    import warnings
+
+    from aspectus.studies.task import run_clip_task
+
+    clip = tmp_path / "c.mp4"
+    clip.write_bytes(b"x")
+    old = warnings.formatwarning
+    try:
+        res = run_clip_task({"clip": str(clip), "out_dir": str(tmp_path / "o"), "params": None,
+                             "clip_fn": "test_hostile:_warning_clip_fn"}, lambda f, m: None, None)
+        assert res["status"] == "done"
+        text = warnings.formatwarning("few valid samples", UserWarning, "x.py", 3)
+    finally:
+        warnings.formatwarning = old
+    assert text == "aspectus: warning: few valid samples\n"
+
+
+def _warning_clip_fn(clip, out, **kw):
+    class R:
+        summary = {}
+    return R()

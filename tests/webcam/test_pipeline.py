@@ -90,7 +90,8 @@ def test_reuse_skips_landmarking_and_damaged_cache_is_rebuilt(processed, clip):
     assert again.reused_samples and csv.read_bytes() == before
     run = json.loads((out / "run.json").read_text())
     assert run["outputs"]["samples.csv"]["sha256"] == sha256_file(csv)
-    assert run["clip_resolved"] == str(clip.resolve())
+    assert "clip_resolved" not in run  # absolute paths only on request (issue 17.2)
+    assert (out / run["clip"]).resolve() == clip.resolve()
 
 
 def test_reanalyse_changes_results_without_landmarking(processed):
