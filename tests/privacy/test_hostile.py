@@ -22,6 +22,8 @@ from aspectus.cli import main
 from aspectus.errors import AspectusInputError, ParameterError
 
 REPO = Path(__file__).resolve().parents[2]
+# the batch tests' stand-in clip function (tests/studies/test_batch.py) is reused below, in workers too
+sys.path.insert(0, str(REPO / "tests" / "studies"))
 TABLE_ARGS = ["--time-col", "time_ms", "--time-unit", "ms", "--x-col", "gx_deg", "--y-col", "gy_deg"]
 
 
