@@ -1,6 +1,6 @@
 """The gaze precision grid: classroom-like rendered clips whose eyes follow hand-coded recordings.
 
-Each condition renders a clip with :func:`camgaze.render.render_clip` whose eyes follow the first seconds of
+Each condition renders a clip with :func:`aspectus.synth.render.render_clip` whose eyes follow the first seconds of
 one of the hand-coded trials of Andersson et al. (2017) (../shared/reference/lund2013, read by
 :mod:`_lund`), runs the whole webcam pipeline on it and compares with the truth:
 
@@ -60,7 +60,7 @@ class Condition:
 
 
 def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
-    from camgaze.render import render_clip
+    from aspectus.synth.render import render_clip
 
     trial = _lund.load_trial(lund_dir, cond.trial)
     traj = _lund.as_trajectory(trial, duration_s=cond.duration_s, head_motion=cond.head_motion,
@@ -88,7 +88,7 @@ def _labels_at(trial, t_s):
 
 
 def _kappa(samples: pd.DataFrame, coders: dict) -> float:
-    from camgaze.analysis import run_analysis
+    from aspectus.events.analysis import run_analysis
 
     res = run_analysis(samples)
     fix = np.asarray(res.labels == "fixation")
@@ -97,7 +97,7 @@ def _kappa(samples: pd.DataFrame, coders: dict) -> float:
 
 def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     """The grid's figures for one processed clip (see the module docstring)."""
-    from camgaze.analysis import run_analysis
+    from aspectus.events.analysis import run_analysis
 
     ok = samples["valid"].to_numpy(bool)
     ey = samples["yaw_deg"].to_numpy() - truth["yaw_deg"].to_numpy()
@@ -117,12 +117,42 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     return out
 
 
-def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, gaze_params=None) -> dict:
-    """Render, process and measure one condition; returns the condition's fields and its figures."""
-    from camgaze.gaze import GazeParams
-    from camgaze.pipeline import ProcessParams, extract_samples
+#: gaze settings the grid compares: the default, and the limbus fit fused with the face mesh's iris point
+#: (mapped onto the limbus scale in the head, :func:`aspectus.webcam.gaze.fuse_iris_centres`)
+VARIANTS = {"limbus": {}, "fuse": {"iris_combine": "fuse"}}
+
+
+def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: dict | None = None) -> list[dict]:
+    """Render, process and measure one condition; one row (the condition's fields and figures) per variant.
+
+    The face mesh runs once; each variant re-runs only the clip-level gaze estimate on the same per-frame
+    measurements (the pipeline's own samples for the default variant).
+    """
+    from aspectus.webcam import pipeline
+    from aspectus.webcam.gaze import GazeParams, estimate_gaze
+    from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
     res, trial = render_condition(cond, out_dir, lund_dir)
-    gp = gaze_params or GazeParams(mirrored=cond.mirror)
-    samples, _ = extract_samples(res.path, params=ProcessParams(gaze=gp))
-    return asdict(cond) | {"label": cond.label()} | measure(samples, res.truth, trial)
+    captured = {}
+
+    def spy(**kw):
+        captured.update(kw)
+        return estimate_gaze(**kw)
+
+    pipeline.estimate_gaze = spy
+    try:
+        samples, _ = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(mirrored=cond.mirror)))
+    finally:
+        pipeline.estimate_gaze = estimate_gaze
+    rows = []
+    for name, over in (variants or VARIANTS).items():
+        s = samples
+        if over:
+            kw = {k: v for k, v in captured.items() if k != "params"}
+            cols, _ = estimate_gaze(**kw, params=GazeParams(mirrored=cond.mirror, **over))
+            s = samples.copy()
+            for c, v in cols.items():
+                if c in s.columns:
+                    s[c] = v
+        rows.append(asdict(cond) | {"label": cond.label(), "variant": name} | measure(s, res.truth, trial))
+    return rows

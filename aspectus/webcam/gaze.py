@@ -113,6 +113,12 @@ class GazeParams:
         eye picture, i.e. ``refine_iris``; without it the PnP translation
         is used (run.json counts the frames: ``eye_anchor_frames``,
         ``eye_anchor_fallback_frames``).
+    fuse_in_head : bool
+        With ``iris_combine`` "fuse" or "rescale": fit the mapping of the
+        mesh point onto the limbus scale on both points' offsets from the
+        eyeball centre's picture position (the eye's motion in the head),
+        not on their picture positions, which head motion dominates
+        (default True; False is the mapping before issue 15).
     mirrored : bool
         The clip shows the subject mirrored left to right (as webcam
         software often records it): everything is measured in the mirror
@@ -131,6 +137,7 @@ class GazeParams:
     decouple_highpass_s: float = 0.7
     eye_anchors: bool = True
     mirrored: bool = False
+    fuse_in_head: bool = True
 
     def __post_init__(self):
         from aspectus.errors import ParameterError
@@ -146,7 +153,7 @@ class GazeParams:
                                  "limbus, rescale, fuse")
         if not isinstance(self.blink_pad_frames, int) or isinstance(self.blink_pad_frames, bool):
             raise ParameterError(f"gaze parameter blink_pad_frames = {self.blink_pad_frames!r} must be a whole number")
-        for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored"):
+        for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored", "fuse_in_head"):
             if not isinstance(getattr(self, name), bool):
                 raise ParameterError(f"gaze parameter {name} must be true or false, got {getattr(self, name)!r}")
 
@@ -244,7 +251,7 @@ def _deming_slope(x: np.ndarray, y: np.ndarray, sx: float, sy: float) -> float:
 
 
 def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray, *,
-                      average: bool = True) -> tuple[np.ndarray, dict]:
+                      average: bool = True, ref_px: np.ndarray | None = None) -> tuple[np.ndarray, dict]:
     """Combine the limbus fit and the face mesh's iris point, per eye and picture axis.
 
     The limbus fit is unbiased but noisy; the mesh's point is steady but
@@ -257,24 +264,34 @@ def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray
     inverse-variance weights. Frames without a
     limbus fit (NaN) use the rescaled mesh point alone.
 
+    ``ref_px`` (N, 2, 2), optional: a point per eye that moves with the head
+    but not with the eyes (the eyeball centre's picture position). The mapping is then
+    fitted to both centres' offsets from it, i.e. to the eye's motion in
+    the head: with the head moving, the picture positions are dominated by
+    the head's motion, which both sources follow with gain 1, and a mapping
+    fitted to them left the mesh point's eye motion at its own low gain
+    (pitch gain 0.5-0.6 of the fused estimate on rendered clips with head
+    drift and turns).
+
     Returns the fused (N, 2, 2) centres and a record (slopes, noise, weights).
     """
     out = np.array(mesh_px, float).copy()
     rec: dict = {}
     for e, eye in enumerate(("right", "left")):
         for axis, name in ((0, "x"), (1, "y")):
-            L = limbus_px[:, e, axis]
-            M = mesh_px[:, e, axis]
+            base = ref_px[:, e, axis] if ref_px is not None else 0.0
+            L = limbus_px[:, e, axis] - base
+            M = mesh_px[:, e, axis] - base
             if not average and axis == 0:
                 # horizontally the limbus fit is both unbiased and the steadier (0.2 px against the
                 # mesh's 0.35 px on rendered clips): nothing to gain from the mesh
-                out[:, e, axis] = np.where(np.isfinite(L), L, M)
+                out[:, e, axis] = np.where(np.isfinite(L), L, M) + base
                 rec[f"{eye}_{name}"] = {"fused": False, "source": "limbus"}
                 continue
             both = ok & np.isfinite(L) & np.isfinite(M)
             key = f"{eye}_{name}"
             if both.sum() < 30 or np.std(M[both]) <= 0:
-                out[:, e, axis] = np.where(np.isfinite(L), L, M)
+                out[:, e, axis] = np.where(np.isfinite(L), L, M) + base
                 rec[key] = {"fused": False}
                 continue
             b = _deming_slope(M[both], L[both], _step_noise(np.where(both, M, np.nan)),
@@ -288,7 +305,7 @@ def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray
             if wl + wm == 0:
                 wl, wm = (1.0, 1.0) if average else (0.0, 1.0)
             fused = np.where(np.isfinite(L), (wl * L + wm * Mc) / (wl + wm), Mc)
-            out[:, e, axis] = fused
+            out[:, e, axis] = fused + base
             rec[key] = {"fused": True, "mesh_gain": round(b, 3), "limbus_noise_px": round(sl, 3),
                         "mesh_noise_px": round(sm, 3), "limbus_weight": round(wl / (wl + wm), 3)}
     return out, rec
@@ -458,17 +475,24 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
     info["eyeball_offset_mm"] = (offsets * s).round(3).tolist()
     centres_h = eyes_model + offsets  # model mm, head frame
 
+    # --- eyeball centres in the camera frame (placed by the smoothed head pose) ---------------------
+    head_mid = t * s  # origin of the head frame (eyeball midpoint), mm
+    centres = np.stack([(np.einsum("nij,j->ni", R, centres_h[e]) + t) * s for e in range(2)], axis=1)  # (N, 2, 3)
+
     # --- iris source per axis ---------------------------------------------
     if iris_mesh_px is not None:
         if params.iris_combine in ("fuse", "rescale"):
+            ref = None
+            if params.fuse_in_head:  # the eyeball centres' picture positions: they move with the head, not the eyes
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    ref = np.stack([(centres[:, e, :2] / centres[:, e, 2:3]) * [K[0, 0], K[1, 1]] + [K[0, 2], K[1, 2]]
+                                    for e in range(2)], axis=1)
             iris_px, info["iris_fusion"] = fuse_iris_centres(iris_px, iris_mesh_px, eyes_open,
-                                                             average=params.iris_combine == "fuse")
+                                                             average=params.iris_combine == "fuse", ref_px=ref)
         else:
             iris_px = np.where(np.isfinite(iris_px), iris_px, iris_mesh_px)
 
-    # --- eyeball centres in the camera frame, freed of the eyes' pull on the face mesh -------------
-    head_mid = t * s  # origin of the head frame (eyeball midpoint), mm
-    centres = np.stack([(np.einsum("nij,j->ni", R, centres_h[e]) + t) * s for e in range(2)], axis=1)  # (N, 2, 3)
+    # --- the eyeball centres freed of the eyes' pull on the face mesh -------------------------------
     if params.decouple_reference:
         centres, info["reference_coupling"] = decouple_reference(
             centres, iris_px, K, eyes_open, np.asarray(t_s, float), smooth_ms=float(params.head_smooth_ms),

@@ -203,3 +203,27 @@ def test_unmirror_turns_left_right_quantities_back():
     assert cols["head_x_mm"][0] == -12.0
     with pytest.raises(Exception, match="mirrored"):
         GazeParams(mirrored="yes")
+
+
+def test_fusion_maps_the_mesh_point_in_the_head_not_in_the_picture():
+    """With the head moving, the picture positions are mostly head motion, which both iris sources follow with
+    gain 1; the mesh point's eye motion (gain 0.3 here, 0.2-0.6 on rendered clips) must be mapped onto the limbus
+    scale on the offsets from a point that moves with the head only."""
+    rng = np.random.default_rng(5)
+    n = 600
+    head = 40 * np.sin(2 * np.pi * np.arange(n) / 240.0)  # px, slow
+    eye = np.repeat(rng.uniform(-4, 4, n // 8 + 1), 8)[:n]  # px, saccades between fixations
+    limbus = np.zeros((n, 2, 2))
+    mesh = np.zeros((n, 2, 2))
+    limbus[:, :, 1] = (head + eye)[:, None] + rng.normal(0, 0.6, (n, 2))
+    mesh[:, :, 1] = (head + 0.3 * eye)[:, None] + rng.normal(0, 0.1, (n, 2))
+    limbus[:, :, 0] = mesh[:, :, 0] = 100.0 + rng.normal(0, 0.1, (n, 2))
+    ref = np.zeros((n, 2, 2))
+    ref[:, :, 1] = head[:, None]
+    ok = np.ones(n, bool)
+    for with_ref, lo, hi in ((True, 0.9, 1.1), (False, 0.0, 0.8)):
+        out, _ = fuse_iris_centres(limbus, mesh, ok, average=True, ref_px=ref if with_ref else None)
+        gain = np.polyfit(eye, out[:, 0, 1] - head, 1)[0]
+        assert lo <= gain <= hi, (with_ref, gain)
+    out, _ = fuse_iris_centres(limbus, mesh, ok, average=True, ref_px=ref)
+    assert np.std(out[:, 0, 1] - head - eye) < 0.6 * 0.6  # the fused point is steadier than the limbus fit
