@@ -122,11 +122,13 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
 VARIANTS = {"limbus": {}, "fuse": {"iris_combine": "fuse"}}
 
 
-def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: dict | None = None) -> list[dict]:
+def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: dict | None = None,
+                  keep_samples: bool = False) -> list[dict]:
     """Render, process and measure one condition; one row (the condition's fields and figures) per variant.
 
     The face mesh runs once; each variant re-runs only the clip-level gaze estimate on the same per-frame
-    measurements (the pipeline's own samples for the default variant).
+    measurements (the pipeline's own samples for the default variant). ``keep_samples``: each row also
+    holds its samples table under ``"samples"``.
     """
     from aspectus.webcam import pipeline
     from aspectus.webcam.gaze import GazeParams, estimate_gaze
@@ -154,5 +156,6 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
             for c, v in cols.items():
                 if c in s.columns:
                     s[c] = v
-        rows.append(asdict(cond) | {"label": cond.label(), "variant": name} | measure(s, res.truth, trial))
+        rows.append(asdict(cond) | {"label": cond.label(), "variant": name} | measure(s, res.truth, trial)
+                    | ({"samples": s} if keep_samples else {}))
     return rows

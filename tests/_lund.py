@@ -147,8 +147,10 @@ def as_trajectory(trial: LundTrial, *, duration_s: float | None = None, head_mot
                   distance_mm: float = 600.0, seed: int = 0):
     """The trial's gaze as a renderer trajectory (aspectus.synth.trajectory.Trajectory), for rendered clips.
 
-    Samples the coders marked as lost (``valid`` False) are filled by linear interpolation, so the rendered
-    eyes never jump to the screen corner. ``head_motion``: keys as in
+    Samples either coder labelled as a blink, and samples without gaze (``valid`` False), become a blink in
+    the trajectory: the lids close (ramping over about 40 ms) and the gaze is interpolated across, so the
+    rendered eyes never follow the tracker's wild values during a blink (up to 77 deg in UL23). ``head_motion``:
+    keys as in
     ``aspectus.synth.trajectory.HEAD_MOTION_DEFAULTS`` (slow drift in rotation, translation and distance,
     drawn with ``seed``); None keeps the head still at ``distance_mm``.
     """
@@ -156,11 +158,16 @@ def as_trajectory(trial: LundTrial, *, duration_s: float | None = None, head_mot
 
     t = trial.t_s
     keep = t <= (duration_s if duration_s is not None else t[-1])
+    lost = ~np.asarray(trial.valid, bool)
+    for c in CODERS:
+        lost |= trial.labels[c] == BLINK
     cols = {}
     for name, v in (("yaw_deg", trial.yaw_deg), ("pitch_deg", trial.pitch_deg)):
-        s = pd.Series(np.where(trial.valid, v, np.nan)[keep]).interpolate().bfill().ffill()
+        s = pd.Series(np.where(lost, np.nan, v)[keep]).interpolate().bfill().ffill()
         cols[name] = s.to_numpy()
-    df = pd.DataFrame({"t_s": t[keep], **cols})
+    ramp = max(1, int(round(0.04 * trial.rate_hz)))
+    closure = np.convolve(lost[keep].astype(float), np.ones(2 * ramp + 1) / (2 * ramp + 1), mode="same")
+    df = pd.DataFrame({"t_s": t[keep], **cols, "lid_closure": np.clip(2.0 * closure, 0.0, 1.0)})
     if head_motion is not None:
         motion = dict(HEAD_MOTION_DEFAULTS, distance_mm=distance_mm) | dict(head_motion)
         for k, v in head_track(t[keep], motion, seed=seed).items():

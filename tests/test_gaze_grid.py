@@ -1,0 +1,77 @@
+"""Issue 15's floors on a subset of the classroom grid (the whole grid: bench/bench_gaze_grid.py).
+
+Two cells, 640 x 480 H.264 at CRF 28, lids that follow vertical gaze, slow lighting drift (+-15 %) with a
+lateral gradient, slow head drift with rotation (yaw +-10, pitch +-4, roll +-2 deg); the eyes follow the first
+8 s of hand-coded recordings (Andersson et al. 2017, ../shared/reference/lund2013): iris 12 px (55 cm, trial
+UH21, hopper face) and 8.5 px (78 cm, trial UL23, astronaut face). Figures are defined in tests/_gaze_grid.py.
+
+Issue 15's floors at iris >= 12 px: RMS-S2S <= 1.5 deg, yaw and pitch |r| >= 0.95 with gain 0.85-1.15,
+fixation kappa >= 0.5; at 8-9 px: RMS-S2S <= 3 deg and a verdict that says which features are usable.
+Where a floor is not reached yet the test guards the level reached (so it cannot slip back) and says so.
+"""
+from __future__ import annotations
+
+import pytest
+
+import _gaze_grid as G
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def cells(lund_dir, tmp_path_factory):
+    d = tmp_path_factory.mktemp("grid")
+    out = {}
+    for name, size, dist, trial, face in (("12px", (640, 480), 550.0, "UH21_img_Rome", "hopper"),
+                                          ("8px", (640, 480), 780.0, "UL23_img_Europe", "astronaut")):
+        cond = G.Condition(name, size_px=size, distance_mm=dist, trial=trial, face=face)
+        for row in G.run_condition(cond, d, lund_dir, keep_samples=True):
+            out[(name, row["variant"])] = row
+    return out
+
+
+def test_the_cells_have_the_asked_iris_sizes(cells):
+    assert 11.5 <= cells[("12px", "limbus")]["iris_px"] <= 12.5
+    assert 8.0 <= cells[("8px", "limbus")]["iris_px"] <= 9.0
+
+
+def test_noise_floor_at_12_px_with_the_fused_iris_centre(cells):
+    # issue 15 floor RMS-S2S <= 1.5 deg: measured 1.43 with the fused centre (limbus fit alone 3.40; the fused
+    # centre before it was mapped in the head: 1.52-1.62 on other clips, pitch gain 0.45-0.51)
+    assert cells[("12px", "fuse")]["rms_s2s_deg"] <= 1.5
+    assert cells[("12px", "limbus")]["rms_s2s_deg"] > 2 * cells[("12px", "fuse")]["rms_s2s_deg"]
+
+
+def test_noise_floor_at_8_px(cells):
+    # issue 15 floor RMS-S2S <= 3 deg at 8-9 px: measured 1.25 fused, 3.37 with the limbus fit alone
+    assert cells[("8px", "fuse")]["rms_s2s_deg"] <= 3.0
+
+
+def test_yaw_at_12_px(cells):
+    # issue 15 floor |r| >= 0.95: measured 0.961 (limbus) and 0.954 (fused). The gain floor 0.85-1.15 is NOT
+    # reached: 0.78 / 0.75 (guarded here at 0.7)
+    for v in ("limbus", "fuse"):
+        assert cells[("12px", v)]["yaw_r"] >= 0.95
+        assert cells[("12px", v)]["yaw_gain"] >= 0.7
+
+
+def test_pitch_and_fixation_agreement_at_12_px_guarded_below_the_floor(cells):
+    # NOT reached: issue 15 floors pitch |r| >= 0.95 with gain 0.85-1.15 and kappa >= 0.5. Measured: pitch r
+    # 0.575 / 0.882 (limbus / fused), gain 0.60 / 0.59, kappa 0.27 / 0.37, while the default detector on the
+    # noise-free truth at the same 30 frames a second reaches only 0.60 against the coders (kappa_truth).
+    fused = cells[("12px", "fuse")]
+    assert fused["pitch_r"] >= 0.85 and fused["pitch_gain"] >= 0.5
+    assert fused["kappa"] >= 0.3 and fused["kappa"] > cells[("12px", "limbus")]["kappa"]
+    assert 0.5 <= fused["kappa_truth"] <= 0.7
+
+
+def test_verdict_at_8_px_says_which_features_are_usable(cells):
+    from aspectus.events.analysis import run_analysis
+    from aspectus.webcam.pipeline import summarise
+
+    smp = cells[("8px", "limbus")]["samples"]
+    s = summarise(smp, run_analysis(smp), {})
+    assert s["precision_tier"] in ("coarse", "minimal")  # noise 2.4 deg (its own figure), iris 8.5 px
+    assert "fixation count and durations" not in s["trusted_features"]
+    assert "blink rate" in s["trusted_features"] and "blink rate" in s["verdict"]
+    assert "irises about 8 px" in s["verdict"] or "irises about 9 px" in s["verdict"]
