@@ -74,13 +74,13 @@ def main(argv=None) -> int:
     rows = []
     out_dir = Path(args.keep) if args.keep else Path(tempfile.mkdtemp(prefix="gaze_grid_"))
     out_dir.mkdir(parents=True, exist_ok=True)
-    head = f"{"cell":56s} " + " ".join(f"{c[:11]:>11s}" for c, _ in COLUMNS)
+    head = f"{'cell':56s} " + " ".join(f"{c[:11]:>11s}" for c, _ in COLUMNS)
     print(head, flush=True)
     for cond in grid(args.quick, args.seed):
         t0 = time.perf_counter()
         for row in G.run_condition(cond, out_dir, LUND):
             rows.append(row)
-            print(f"{row["label"][:56]:56s} " + " ".join(f"{fmt.format(row[c]):>11s}" for c, fmt in COLUMNS),
+            print(f"{row['label'][:56]:56s} " + " ".join(f"{fmt.format(row[c]):>11s}" for c, fmt in COLUMNS),
                   flush=True)
         print(f"  ({cond.name}: {time.perf_counter() - t0:.0f} s)", file=sys.stderr, flush=True)
     if args.csv:
