@@ -335,7 +335,8 @@ def _trust_sentence(summary: dict) -> str:
     iris = summary.get("median_iris_px")
     size = f"irises about {iris:.0f} px across" if iris is not None and np.isfinite(iris) else "iris size unknown"
     if tier == "events":
-        return f" Gaze precision ({size}) supports fixation and saccade measures."
+        return (f" Gaze precision ({size}) supports fixation and saccade measures (at 30 frames a second their "
+                "counts and durations are approximate).")
     if tier == "coarse":
         return (f" Gaze precision ({size}) is too low for fixation counts and durations; trust only: "
                 + "; ".join(features) + ".")
