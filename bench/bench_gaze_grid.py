@@ -47,7 +47,7 @@ def grid(quick: bool, seed: int) -> list[G.Condition]:
                            trial=trials[1], seed=seed))
     out.append(G.Condition("16px_glasses_mirror", size_px=(1280, 720), distance_mm=800.0, glasses=True,
                            mirror=True, face="astronaut", trial=trials[3], seed=seed))
-    for k, tr in enumerate(trials[:3]):  # issue 15's second finding: large faces, head drift without turning
+    for tr in trials[:3]:  # issue 15's second finding: large faces, head drift without turning
         out.append(G.Condition(f"25px_drift_{tr.split('_')[0]}", size_px=(1280, 720), distance_mm=530.0,
                                codec="mpeg4", head_motion=dict(G.HEAD_DRIFT_ONLY), lighting_drift=0.0,
                                lighting_gradient=0.0, trial=tr, seed=seed))
