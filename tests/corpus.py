@@ -65,6 +65,8 @@ class Case:
     warns : str, optional
         ``"module:Class"`` of a warning the run must give (e.g. features
         that are NaN because a scope holds no valid sample).
+    names_file : bool
+        Whether the error must name the file (not for an option's error).
     """
 
     name: str
@@ -76,6 +78,8 @@ class Case:
     check: Callable | None = None
     why: str = ""
     warns: str | None = None
+    #: False for an option's error (it names the option, not a file)
+    names_file: bool = True
 
 
 # ----------------------------------------------------------------------------------------------
@@ -269,6 +273,12 @@ def write_video_corpus(folder) -> list[Case]:
     (d / "folder.mp4").mkdir(exist_ok=True)
     add("folder", d / "folder.mp4", "process", 1, r"folder\.mp4.*is a folder", why="a folder named like a clip")
     add("missing", d / "missing.mp4", "process", 1, r"missing\.mp4.*file not found", why="wrong path")
+    import os
+
+    if hasattr(os, "mkfifo") and not (d / "fifo.mp4").exists():
+        os.mkfifo(d / "fifo.mp4")
+    add("fifo", d / "fifo.mp4", "process", 1, r"fifo\.mp4.*not a regular file",
+        why="a named pipe called .mp4: reading it would wait for ever (issue 17.8)")
     _audio_only_clip(d / "audio_only.mkv")
     add("audio_only", d / "audio_only.mkv", "process", 1, r"audio_only\.mkv.*no video stream",
         why="the sound track exported instead of the video")
@@ -281,6 +291,8 @@ def write_video_corpus(folder) -> list[Case]:
 
     good = _render(d / "good.mp4", 1.5, seed=1)
     add("good", good.path, "process", 0, check=_check_usable, why="control: an ordinary clip")
+    add("face_index_absent", good.path, "process", 1, r"good\.mp4.*index:1.*1 face\(s\)", args=["--face", "index:1"],
+        why="--face names a face that is not in the picture: never follow another one (issue 17.13)")
     _truncate(good.path, d / "truncated_moov.mp4", 0.6)
     add("truncated_mp4", d / "truncated_moov.mp4", "process", 1, r"truncated_moov\.mp4.*not a readable video",
         why="copy interrupted: the mp4 index (moov) is at the end and missing")
@@ -434,6 +446,30 @@ def write_reader_corpus(folder) -> list[Case]:
     add("table_one_row", d / "table_one_row.csv", "events", 0, args=_TABLE_ARGS, check=_check_no_numbers,
         warns="aspectus.events.features:DegenerateWindowWarning",
         why="a recording that stopped after one sample: no events, features NaN, never a made-up rate")
+    (d / "table_ms_as_s.csv").write_text(good)
+    add("table_ms_as_s", d / "table_ms_as_s.csv", "events", 2, r"table_ms_as_s\.csv.*0\.1 Hz.*look like ms",
+        args=[a if a != "ms" else "s" for a in _TABLE_ARGS],
+        why="milliseconds declared as seconds: 0.1 Hz and minute-long fixations (issue 17.11)")
+    nul = good.splitlines()
+    nul[5] = nul[5][:6] + "\x00" + nul[5][6:]
+    (d / "table_nul.csv").write_bytes(("\n".join(nul) + "\n").encode())
+    add("table_nul", d / "table_nul.csv", "events", 2, r"table_nul\.csv.*line 6.*NUL", args=_TABLE_ARGS,
+        why="a NUL byte inside a number was read as a shorter number (issue 17.12)")
+    (d / "table_utf16.csv").write_bytes(good.encode("utf-16"))
+    add("table_utf16", d / "table_utf16.csv", "events", 2, r"table_utf16\.csv.*UTF-16", args=_TABLE_ARGS,
+        why="a spreadsheet's 'Unicode text' export")
+    (d / "table_bomb.csv.gz").write_bytes(gzip.compress(b"time_ms,gx_deg,gy_deg\n" + b"0" * (120 << 20), 9))
+    add("table_gzip_bomb", d / "table_bomb.csv.gz", "events", 2, r"table_bomb\.csv\.gz.*inflates to more than",
+        args=_TABLE_ARGS, why="a small gzip file that inflates a thousandfold (issue 17.10)")
+    wide = ",".join([f"c{i}" for i in range(40_000)] + ["c1"])
+    (d / "table_wide_dup.csv").write_text(wide + "\n" + ",".join("1" for _ in range(40_001)) + "\n")
+    add("table_wide_dup", d / "table_wide_dup.csv", "events", 2, r"table_wide_dup\.csv.*c1 appear",
+        args=_TABLE_ARGS, why="a 40,000-field single-line table (issue 17.10: the check was quadratic)")
+    add("table_windows_unbounded", d / "table_good.csv", "events", 2, r"step_s",
+        args=_TABLE_ARGS + ["--window-s", "1", "--step-s", "1e-7"], why="windows without bound (issue 17.9)",
+        names_file=False)
+    add("table_bad_delimiter", d / "table_good.csv", "events", 2, r"delimiter ',,'",
+        args=_TABLE_ARGS + ["--delimiter", ",,"], why="two characters as the delimiter", names_file=False)
     (d / "mapping_broken.json").write_text('{"time_col": "time_ms", ')
     add("mapping_broken", d / "mapping_broken.json", "events_mapping", 2, r"mapping_broken\.json",
         args=[str(d / "table_good.csv")], why="a hand-edited mapping file with a syntax error")
@@ -501,6 +537,8 @@ def write_segments_corpus(folder, clip: Path) -> list[Case]:
         r"segments_reversed\.csv.*(row|line) (1|2)", why="offset before onset")
     add("segments_text", "label,onset_s,offset_s\npassage_1,zero,0.5\n", 1, r"segments_text\.csv.*(row|line) (1|2)")
     add("segments_binary", b"\x00\x01\x02PK\x03\x04" * 50, 1, r"segments_binary\.csv.*binary", why="a spreadsheet saved as .xlsx, renamed")
+    add("segments_bom", "\ufefflabel,onset_s,offset_s\npassage_1,0.0,0.7\nquestions,0.7,1.4\n".encode("utf-8"), 0,
+        check=seg_check(["passage_1", "questions"]), why="Excel's CSV UTF-8 starts with a byte-order mark")
     return cases
 
 
@@ -522,6 +560,7 @@ def write_manifest_corpus(folder, clip: Path) -> list[Case]:
     add("manifest_dup", f"participant,clip\np01,{clip}\np01,{clip}\n", 2, r"manifest_dup\.csv.*line 3.*twice")
     add("manifest_extra_cells", f"participant,clip\np01,{clip},x,y\n", 2, r"manifest_extra_cells\.csv.*line 2.*cells",
         why="an unquoted comma in a cell")
+    add("manifest_bom", f"\ufeffparticipant,session,clip\np01,s01,{clip}\n", 0, why="Excel's CSV UTF-8 (byte-order mark)")
     add("manifest_case_clash", "participant,clip\np01,a.mp4\np02,A.MP4\n", 2,
         r"manifest_case_clash\.csv.*same output folder", why="two clips whose folders would collide on Windows/macOS")
     return cases

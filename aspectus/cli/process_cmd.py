@@ -154,7 +154,6 @@ def _num(x, fmt: str, unit: str) -> str:
 def run(args) -> int:
     from aspectus.progress import ProgressBar, classify_failure
 
-    from aspectus.errors import AspectusInputError
     from aspectus.webcam.pipeline import ProcessParams, clip_output_dir, process_clip
 
     params = ProcessParams(fov_deg=args.fov_deg, face=args.face, max_faces=args.max_faces,

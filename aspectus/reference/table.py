@@ -422,6 +422,36 @@ def check_times(t_s: np.ndarray, *, raw_line: np.ndarray, path: Path, column: st
                                    hint="remove the repeated sample, or check the time unit (too coarse?)")
 
 
+#: sampling rates a gaze recording can have, Hz: below, the slowest webcams (5 fps) and hand-coded data leave a
+#: wide margin; above, the fastest lab trackers (2 kHz) do (common practice)
+PLAUSIBLE_RATE_HZ = (1.0, 10_000.0)
+
+
+def check_sampling_rate(t_s: np.ndarray, *, path: Path, column: str, unit: str) -> None:
+    """Refuse a time column whose declared unit gives an impossible sampling rate (a unit mistake).
+
+    Milliseconds read as seconds make 250 Hz data 0.25 Hz, and its fixations
+    minutes long; seconds read as milliseconds make it 250 kHz. The median
+    sample interval decides, and the error names the unit that fits.
+    """
+    if len(t_s) < 3:
+        return
+    d = np.diff(np.asarray(t_s, dtype=float))
+    d = d[np.isfinite(d) & (d > 0)]
+    if not len(d):
+        return
+    rate = 1.0 / float(np.median(d))
+    lo, hi = PLAUSIBLE_RATE_HZ
+    if lo <= rate <= hi:
+        return
+    fits = [u for u, f in TIME_UNITS.items() if lo <= rate * TIME_UNITS[unit] / f <= hi and u != unit]
+    likely = (f"the times look like {' or '.join(fits)}" if fits else "check the time column")
+    raise ReferenceFormatError(
+        f"time column {column!r} read in {unit} gives a sampling rate of {rate:.3g} Hz, which no gaze recording "
+        f"has (expected {lo:g}-{hi:g} Hz)", path=path,
+        hint=f"{likely}: set the time unit accordingly (--time-unit)")
+
+
 def positions_to_deg(x, y, *, units: str, screen: ScreenGeometry | None, origin: str = "top-left",
                      y_up: bool | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Gaze positions in ``units`` to (yaw_deg, pitch_deg) in the frame of :mod:`aspectus.schema`.
@@ -556,6 +586,7 @@ def samples_from_raw(raw: RawTable, mapping: TableMapping) -> pd.DataFrame:
     extra = mapping.missing_values
     t_raw = numeric_column(raw, mapping.time_col, "time", extra_missing=extra) * TIME_UNITS[mapping.time_unit]
     check_times(t_raw, raw_line=raw.line_no, path=path, column=mapping.time_col)
+    check_sampling_rate(t_raw, path=path, column=mapping.time_col, unit=mapping.time_unit)
     x = numeric_column(raw, mapping.x_col, "gaze x", extra_missing=extra)
     y = numeric_column(raw, mapping.y_col, "gaze y", extra_missing=extra)
     if mapping.zero_is_missing:

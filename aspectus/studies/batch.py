@@ -139,13 +139,22 @@ def _label_names(rows: list[_Row]) -> list[str]:
     return list(dict.fromkeys(k for r in rows for k in r.job.labels))
 
 
+def _rec(path, out_dir: Path) -> str:
+    """An input's path as the study tables record it: relative to OUTDIR (absolute ones name users and
+    students), absolute only with --full-paths / ASPECTUS_FULL_PATHS=1."""
+    from aspectus.atomic import full_paths_wanted, recorded_path
+
+    return str(Path(path).resolve()) if full_paths_wanted() else recorded_path(path, out_dir)
+
+
 def _status_table(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
     extra = _label_names(rows)
     recs = []
     for r in rows:
         j = r.job
         s = r.summary or {}
-        rec = {"clip": j.rel, "key": j.key, "status": r.status, "reason": r.reason,
+        reason = r.reason.replace(str(j.clip), j.rel) if isinstance(r.reason, str) else r.reason
+        rec = {"clip": j.rel, "key": j.key, "status": r.status, "reason": reason,
                "participant": j.participant, "session": j.session}
         for k in extra:
             rec[k] = j.labels.get(k)
@@ -154,8 +163,8 @@ def _status_table(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
             "usable": s.get("usable"), "verdict": s.get("verdict"), "worker": r.worker or None,
             "elapsed_s": None if r.elapsed_s is None else round(float(r.elapsed_s), 3),
             "input_sha256": r.input_sha256, "out_dir": j.key,
-            "reference": str(j.reference) if j.reference else None,
-            "segments": str(j.segments) if j.segments else None, "finished_utc": r.finished_utc,
+            "reference": _rec(j.reference, out_dir) if j.reference else None,
+            "segments": _rec(j.segments, out_dir) if j.segments else None, "finished_utc": r.finished_utc,
         })
         recs.append(rec)
     cols = list(STATUS_COLUMNS) + extra + list(STATUS_TAIL_COLUMNS)
@@ -203,8 +212,8 @@ def validation_manifest(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
     """Finished clips that have a reference, as a manifest for :func:`aspectus.validation.study.validate_study`.
 
     Columns ``webcam`` (the clip's output folder, relative to ``out_dir``),
-    ``reference`` (absolute), ``participant`` (the clip key when the clip has
-    no participant label), ``session``, ``segments``, ``mapping`` and
+    ``reference`` (relative to ``out_dir``, where the manifest is written; absolute with --full-paths),
+    ``participant`` (the clip key when the clip has no participant label), ``session``, ``segments``, ``mapping`` and
     ``offset_s`` (empty where not given).
     """
     recs = []
@@ -212,9 +221,9 @@ def validation_manifest(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
         j = r.job
         if j.reference is None or r.status not in ("done", "skipped"):
             continue
-        recs.append({"webcam": j.key, "reference": str(j.reference),
+        recs.append({"webcam": j.key, "reference": _rec(j.reference, out_dir),
                      "participant": j.participant or j.key.replace("+", "_"), "session": j.session or "",
-                     "segments": str(j.segments) if j.segments else "", "mapping": j.labels.get("mapping") or "",
+                     "segments": _rec(j.segments, out_dir) if j.segments else "", "mapping": j.labels.get("mapping") or "",
                      "offset_s": j.labels.get("offset_s") or ""})
     return pd.DataFrame(recs, columns=["webcam", "reference", "participant", "session", "segments", "mapping",
                                        "offset_s"])
@@ -395,7 +404,7 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
             label_pattern=label_pattern, retry_failed=retry_failed, run_id=run_id, write=True)
         if engine is None:
             engine = DaskEngine(address=scheduler) if scheduler else LocalEngine(workers=workers)
-        meta = {"software": "aspectus", "version": __version__, "run_id": run_id, "source": str(Path(source).resolve()),
+        meta = {"software": "aspectus", "version": __version__, "run_id": run_id, "source": _rec(source, out_dir),
                 "params": params.to_dict(), "params_sha256": params_sha, "python": sys.version.split()[0],
                 "started_utc": _utc_now()}
         _write_tables(rows, out_dir, meta=meta, final=False)

@@ -160,6 +160,45 @@ def test_a_written_segment_file_reads_back_as_written(tmp_path_factory, segs):
     np.testing.assert_allclose(df["offset_s"], [float(f"{on + d:.6f}") for _, on, d in segs])
 
 
+@settings(max_examples=60, deadline=None)
+@given(t0_ms=st.floats(0, 1e6), n=st.integers(5, 40), row=st.integers(0, 39), col=st.integers(0, 30))
+def test_a_nul_byte_anywhere_in_a_table_is_refused_never_read(tmp_path_factory, t0_ms, n, row, col):
+    """Issue 17.12: a NUL ended a cell early (6.7\\x00574 was read as 6.0); wherever it is, the file is refused."""
+    from aspectus.reference import TableMapping, read_gaze_table
+
+    lines = ["t,x,y"] + [f"{t0_ms + 4.0 * i:.3f},{np.sin(i):.4f},{np.cos(i):.4f}" for i in range(n)]
+    k = 1 + row % n
+    c = col % len(lines[k])
+    lines[k] = lines[k][:c] + "\x00" + lines[k][c:]
+    p = tmp_path_factory.mktemp("nul") / "gaze_table.csv"
+    p.write_bytes(("\n".join(lines) + "\n").encode())
+    with pytest.raises(AspectusInputError, match=rf"gaze_table\.csv \(line {k + 1}\).*NUL"):
+        read_gaze_table(p, TableMapping(time_col="t", time_unit="ms", x_col="x", y_col="y", units="deg"))
+
+
+@settings(max_examples=40, deadline=None)
+@given(segs=st.lists(st.tuples(st.sampled_from(["passage_1", "questions", "Übung"]), st.floats(0, 100),
+                               st.floats(0.01, 10)), min_size=1, max_size=6))
+def test_a_byte_order_mark_changes_nothing(tmp_path_factory, segs):
+    """Excel's "CSV UTF-8" starts with a byte-order mark: segments, mappings and sidecars read the same with it."""
+    import json
+
+    from aspectus.events.segments import read_segments
+    from aspectus.reference import TableMapping
+    from aspectus.reference.bids import _load_json
+
+    d = tmp_path_factory.mktemp("bom")
+    text = "label,onset_s,offset_s\n" + "".join(f"{lab},{on:.4f},{on + dur:.4f}\n" for lab, on, dur in segs)
+    (d / "a.csv").write_bytes(text.encode("utf-8"))
+    (d / "b.csv").write_bytes(text.encode("utf-8-sig"))
+    assert read_segments(d / "a.csv").equals(read_segments(d / "b.csv"))
+    m = json.dumps({"time_col": "t", "x_col": "x", "y_col": "y", "time_unit": "ms"})
+    (d / "m.json").write_bytes(m.encode("utf-8-sig"))
+    assert TableMapping.load(d / "m.json").time_unit == "ms"
+    (d / "s_physio.json").write_bytes(json.dumps(targets.BIDS_SIDECAR).encode("utf-8-sig"))
+    assert _load_json(d / "s_physio.json") == targets.BIDS_SIDECAR
+
+
 def test_plain_tsv_named_tsv_gz_reads_like_the_gzipped_file(tmp_path):
     """A recording saved uncompressed under a .tsv.gz name gives the same samples as the real gzip file."""
     rows = "".join(f"{i * 4.0}\t{np.sin(i / 5):.4f}\t{np.cos(i / 5):.4f}\n" for i in range(100)).encode()
@@ -216,3 +255,8 @@ def test_outcomes_of_known_inputs():
     assert targets.check_outcome("segments", b"label,onset_s,offset_s\nq,1,0\n") == "input error"
     assert targets.check_outcome("manifest", b"clip\na.mp4\nb/a.mp4\n") == "ok"
     assert targets.check_outcome("manifest", b"clip\na.mp4\na.mp4\n") == "input error"
+    assert targets.check_outcome("gzip_table", gzip.compress(good)) == "ok"
+    assert targets.check_outcome("gzip_table", gzip.compress(good)[:-9]) == "input error"  # cut short
+    assert targets.check_outcome("gzip_table", gzip.compress(b"t,x,y\n" + b"0" * (80 << 20))) == "input error"
+    assert targets.check_outcome("table", b"t,x,y\n0,6.7\x00574,1\n4,1,1\n8,1,1\n") == "input error"
+    assert targets.check_outcome("study", b"{") == "input error"

@@ -151,8 +151,28 @@ def read_validation_manifest_target(data: bytes, folder: Path):
     return p
 
 
+def read_gzip_table_target(data: bytes, folder: Path):
+    """The raw bytes as a ``.csv.gz`` table: damaged, truncated or inflating gzip streams (issue 17.10)."""
+    from aspectus.reference import TableMapping, read_gaze_table
+
+    p = _write(folder, "gaze_table.csv.gz", b"\x1f\x8b" + data if not data.startswith(b"\x1f\x8b") else data)
+    df = read_gaze_table(p, TableMapping(**TABLE_MAPPING))
+    check_samples_result(df)
+    return p
+
+
+def read_study_target(data: bytes, folder: Path):
+    from aspectus.studies.project import load_study
+
+    p = _write(folder, "study.json", data)
+    load_study(p)
+    return p
+
+
 TARGETS = {
     "table": read_table_target,
+    "gzip_table": read_gzip_table_target,
+    "study": read_study_target,
     "bids": read_bids_target,
     "sidecar": read_sidecar_target,
     "mapping": read_mapping_target,
@@ -162,7 +182,8 @@ TARGETS = {
 }
 
 #: file name each target writes (the error must name it)
-TARGET_FILES = {"table": "gaze_table.csv", "bids": "_physio.", "sidecar": "_physio.", "mapping": "mapping.json",
+TARGET_FILES = {"table": "gaze_table.csv", "gzip_table": "gaze_table.csv.gz", "study": "study.json",
+                "bids": "_physio.", "sidecar": "_physio.", "mapping": "mapping.json",
                 "segments": "segments.csv", "manifest": "manifest.csv",
                 "validation_manifest": "validation_manifest.csv"}
 

@@ -209,7 +209,8 @@ def test_manifest_batch_with_missing_files_segments_and_labels(tmp_path):
     from aspectus.validation.manifest import read_validation_manifest
 
     (pair,) = read_validation_manifest(out / "validation_manifest.csv")
-    assert pair.webcam == out / "b__p01" and pair.reference == tmp_path / "ref" / "p01_s02.csv"
+    assert pair.webcam == out / "b__p01"  # the reference is recorded relative to OUTDIR (issue 17.2):
+    assert pair.reference.resolve() == (tmp_path / "ref" / "p01_s02.csv").resolve()
     assert (pair.participant, pair.session, pair.mapping) == ("p01", "s02", tmp_path / "ref" / "p01_s02.json")
     # editing the segments file redoes only the clip that uses it
     again = _run(man, out).status.set_index("key")["status"].to_dict()
