@@ -586,9 +586,9 @@ def samples_from_raw(raw: RawTable, mapping: TableMapping) -> pd.DataFrame:
     extra = mapping.missing_values
     t_raw = numeric_column(raw, mapping.time_col, "time", extra_missing=extra) * TIME_UNITS[mapping.time_unit]
     check_times(t_raw, raw_line=raw.line_no, path=path, column=mapping.time_col)
-    check_sampling_rate(t_raw, path=path, column=mapping.time_col, unit=mapping.time_unit)
     x = numeric_column(raw, mapping.x_col, "gaze x", extra_missing=extra)
     y = numeric_column(raw, mapping.y_col, "gaze y", extra_missing=extra)
+    check_sampling_rate(t_raw, path=path, column=mapping.time_col, unit=mapping.time_unit)
     if mapping.zero_is_missing:
         zero = (x == 0) & (y == 0)
         x[zero] = np.nan

@@ -194,8 +194,46 @@ def _first_frame_rotation_deg(container, stream) -> int:
     return 0
 
 
+def _display_matrix(frame) -> tuple[int, int, int, int] | None:
+    """The top-left 2x2 (a, b, c, d) of the frame's display matrix (FFmpeg's AV_FRAME_DATA_DISPLAYMATRIX), or None."""
+    import struct
+
+    try:
+        for sd in frame.side_data:
+            if "DISPLAYMATRIX" in str(getattr(sd, "type", "")):
+                m = struct.unpack("<9i", bytes(sd)[:36])
+                return m[0], m[1], m[3], m[4]
+    except Exception:  # noqa: BLE001 - old PyAV or malformed side data: no matrix
+        return None
+    return None
+
+
+def _mirrored(frame) -> bool:
+    """Whether the display matrix mirrors the picture (negative determinant): not a rotation."""
+    m = _display_matrix(frame)
+    return m is not None and m[0] * m[3] - m[1] * m[2] < 0
+
+
+def _unmirror(img: np.ndarray, frame) -> np.ndarray:
+    """Apply a mirroring display matrix as FFmpeg's own player does (its autorotate: hflip where the matrix's
+    x scale is negative, vflip where its y scale is; a transposing matrix with a mirror is a transpose)."""
+    a, b, c, d = _display_matrix(frame)
+    if b == 0 and c == 0:
+        if a < 0:
+            img = img[:, ::-1]
+        if d < 0:
+            img = img[::-1]
+        return np.ascontiguousarray(img)
+    t = np.swapaxes(img, 0, 1)
+    return np.ascontiguousarray(t if b > 0 else t[::-1, ::-1])
+
+
 def _rotation_k(frame) -> int:
-    """Number of counter-clockwise quarter turns that make the frame upright."""
+    """Number of counter-clockwise quarter turns that make the frame upright (0 for a mirroring matrix with
+    no quarter turn: a horizontal flip is not a 180 deg rotation)."""
+    if _mirrored(frame):
+        a, b, c, d = _display_matrix(frame)
+        return 0 if (b == 0 and c == 0) else 1  # 1: the picture's sides swap, as for a quarter turn
     try:
         rot = frame.rotation  # degrees counter-clockwise (FFmpeg display matrix)
     except Exception:  # noqa: BLE001 - old PyAV or no side data
@@ -224,6 +262,8 @@ def _frame_time(fr, tb, last_t, dt_nominal, report: DecodeReport) -> float:
 def _upright_rgb(fr) -> np.ndarray:
     """The frame as an RGB array with its rotation metadata applied."""
     img = fr.to_ndarray(format="rgb24")
+    if _mirrored(fr):
+        return _unmirror(img, fr)
     k = _rotation_k(fr)
     return np.ascontiguousarray(np.rot90(img, k)) if k else img
 
@@ -272,7 +312,8 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
         dt_nominal = 1.0 / float(rate) if rate else 1.0 / 30.0
         last_t = None
         index = 0
-        demux = container.demux(st)
+        other_end_s = None  # where the data of the other streams (sound) ends: tells a cut file from a long sound track
+        demux = container.demux()  # every stream: the demuxer reads their packets anyway
         while True:
             if cancel is not None and cancel.is_set():
                 raise Cancelled(f"cancelled while decoding {path.name}")
@@ -285,6 +326,11 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
             except av.error.FFmpegError as exc:
                 report.stopped_early = f"demuxing stopped after frame {index}: {_ffmpeg_reason(exc)}"
                 break
+            if packet.stream.index != st.index:
+                if packet.pts is not None and packet.time_base is not None:
+                    end = float((packet.pts + (packet.duration or 0)) * packet.time_base)
+                    other_end_s = end if other_end_s is None else max(other_end_s, end)
+                continue
             try:
                 frames = packet.decode()
             except av.error.FFmpegError:
@@ -317,8 +363,14 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
                 slack = max(3 * dt_nominal, 0.5)
             got = last_t - start + dt_nominal
             if np.isfinite(stated) and stated - got > slack:
-                report.stopped_early = (f"frames end at {got:.2f} s but the file's header says {stated:.2f} s "
-                                        "(the file is probably truncated)")
+                other_got = None if other_end_s is None else other_end_s - start
+                if st.duration is None and other_got is not None and stated - other_got <= slack:
+                    # the header's length is the sound track's, and its data is all there: not a cut file
+                    report.notes.append(f"the video ends at {got:.2f} s; the sound track runs on to "
+                                        f"{other_got:.2f} s")
+                else:
+                    report.stopped_early = (f"frames end at {got:.2f} s but the file's header says {stated:.2f} s "
+                                            "(the file is probably truncated)")
     finally:
         container.close()
     if index == 0:
