@@ -445,8 +445,16 @@ def _fsync_dir(d: Path) -> None:
 
 
 def _finish_swap(out_dir: Path) -> None:
-    """Move a complete staged result (its run.json is in the staging folder) over the old one; run.json last."""
+    """Move a complete staged result (its run.json is in the staging folder) over the old one; run.json last.
+
+    The old run.json goes first: while the files are moved one by one, no
+    run.json in ``out_dir`` vouches for a mix of old and new files. A kill in
+    between leaves the folder without run.json and the staging folder with
+    the new one, which :func:`recover_output_dir` finishes installing.
+    """
     st = out_dir / STAGING_DIR
+    _run_json_path(out_dir).unlink(missing_ok=True)
+    _fsync_dir(out_dir)
     for p in sorted(st.iterdir()):
         if p.name != "run.json" and p.is_file() and not p.name.startswith("."):
             os.replace(p, out_dir / p.name)
