@@ -40,10 +40,56 @@ def import_mediapipe():
     """
     import_cv2()
     quiet_native_logs()
+    import sys
+
+    if "mediapipe" not in sys.modules:
+        with _plotting_left_out():
+            import mediapipe  # noqa: PLC0415 - deliberate central import
     import mediapipe  # noqa: PLC0415 - deliberate central import
 
     _strip_cv2_qt_path()
     return mediapipe
+
+
+class _NoPlotting(__import__("types").ModuleType):
+    """Stands in for matplotlib while mediapipe is imported (see :func:`_plotting_left_out`)."""
+
+    __path__: list = []
+
+    def __getattr__(self, name):
+        if name.startswith("__"):
+            raise AttributeError(name)
+        raise ImportError(f"matplotlib was left out of mediapipe's import by aspectus ({self.__name__}.{name}); "
+                          "mediapipe's plotting helpers are not available")
+
+
+@__import__("contextlib").contextmanager
+def _plotting_left_out():
+    """Import mediapipe without its plotting helpers' matplotlib.
+
+    ``import mediapipe`` imports matplotlib.pyplot (for a landmark-plotting
+    helper aspectus never calls): some 0.4 s of CPU in every process that
+    starts a face mesh - each clip's command, each batch worker (measured
+    with bench/bench_cpu.py: 650-780 ms against 270 ms for the import). While it runs,
+    matplotlib and matplotlib.pyplot are placeholders; afterwards they are
+    removed again, so a later ``import matplotlib`` (the report, the app)
+    gets the real one. Where matplotlib is already imported nothing changes.
+    """
+    import sys
+
+    names = ("matplotlib", "matplotlib.pyplot")
+    if any(n in sys.modules for n in names):
+        yield
+        return
+    placed = {n: _NoPlotting(n) for n in names}
+    placed["matplotlib"].pyplot = placed["matplotlib.pyplot"]  # what ``import matplotlib.pyplot as plt`` binds
+    sys.modules.update(placed)
+    try:
+        yield
+    finally:
+        for n, m in placed.items():
+            if sys.modules.get(n) is m:
+                del sys.modules[n]
 
 
 def quiet_native_logs() -> None:

@@ -26,6 +26,10 @@ def register(sub) -> None:
     add_output_options(p)
     p.add_argument("--workers", type=int, default=None, metavar="N",
                    help="local worker processes (default: one per core, fewer if memory is short)")
+    p.add_argument("--stages", choices=("serial", "overlapped"), default="serial",
+                   help="how each worker runs its clip: serial (default) - decoding, face mesh and geometry in one "
+                        "thread on one core, so N workers on N cores come close to N times one; overlapped - the "
+                        "stages side by side as `aspectus process` runs them, for workers with cores to spare")
     p.add_argument("--scheduler", default=None, metavar="tcp://HOST:PORT",
                    help="run on a Dask cluster with this scheduler; clips and OUTDIR must be on a filesystem "
                         "all workers see under the same paths")
@@ -134,7 +138,7 @@ def run(args) -> int:
         previous = signal.signal(signal.SIGINT, on_sigint)
     try:
         res = run_batch(args.source, args.out, workers=args.workers, scheduler=args.scheduler,
-                        show_progress=not args.quiet, cancel=stop, **common)
+                        show_progress=not args.quiet, cancel=stop, stages=args.stages, **common)
     finally:
         if previous is not None:
             signal.signal(signal.SIGINT, previous)

@@ -36,6 +36,11 @@ def register(sub) -> None:
     add_analysis_arguments(p)
     p.add_argument("--no-reuse", action="store_true",
                    help="redo landmarking even when OUTDIR holds samples from the same clip and parameters")
+    p.add_argument("--stages", choices=("overlapped", "serial"), default=None,
+                   help="overlapped (default): decoding and the per-frame geometry run beside the face mesh, the "
+                        "fastest for one clip on a machine of its own; serial: all in one thread on one core, the "
+                        "least CPU per frame, for running one such command per core (batch workers do this); "
+                        "the outputs are the same")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=run)
 
@@ -182,7 +187,7 @@ def run(args) -> int:
 
         try:
             res = process_clip(clip, clip_output_dir(out_root, clip), params=params, segments=args.segments,
-                               progress=progress, reuse=not args.no_reuse)
+                               progress=progress, reuse=not args.no_reuse, stages=args.stages)
         except BaseException as exc:  # noqa: BLE001 - one clip's failure must not stop the others
             bar.close()
             failure = classify_failure(exc)  # the one sorting of failures (aspectus.progress)

@@ -339,7 +339,7 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
               engine=None, extensions=VIDEO_EXTENSIONS, recursive: bool = True, label_pattern: str | None = None,
               retry_failed: bool = False, show_progress: bool = False,
               progress: Callable[[float, str], None] | None = None, cancel=None,
-              clip_fn: str = DEFAULT_CLIP_FN) -> BatchResult:
+              clip_fn: str = DEFAULT_CLIP_FN, stages: str = "serial") -> BatchResult:
     """Process every clip of a study; resumable; local processes or a Dask cluster.
 
     Parameters
@@ -380,6 +380,11 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
         status stays ``pending``.
     clip_fn : str, default "aspectus.webcam.pipeline:process_clip"
         The per-clip function as "module:function".
+    stages : {"serial", "overlapped"}, default "serial"
+        How each worker runs its clip's stages (:data:`aspectus.webcam.pipeline.STAGES`): serial - decoding,
+        face mesh and geometry one after the other on one core, the least CPU per frame, so N workers on N
+        cores come close to N times one (bench/bench_batch.py); overlapped - as ``aspectus process`` runs one
+        clip, for a worker that has cores to spare. The outputs are the same.
 
     Returns
     -------
@@ -394,6 +399,9 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
     """
     from aspectus.studies.engines import DaskEngine, LocalEngine
 
+    from aspectus.webcam.pipeline import resolve_stages
+
+    stages = resolve_stages(stages)
     t0 = time.monotonic()
     out_dir = Path(out_dir).resolve()
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -410,7 +418,8 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
         _write_tables(rows, out_dir, meta=meta, final=False)
         by_key = {r.job.key: r for r in todo}
         payloads = {r.job.key: {"clip": str(r.job.clip), "out_dir": str(out_dir / r.job.key), "params": params,
-                                "segments": str(r.job.segments) if r.job.segments else None, "clip_fn": clip_fn}
+                                "segments": str(r.job.segments) if r.job.segments else None, "clip_fn": clip_fn,
+                                "stages": stages}
                     for r in todo}
         board = _Board(weights={r.job.key: float(r.stat[0] if r.stat else 1) for r in todo},
                        n_workers=getattr(engine, "n_workers", 1), enabled=show_progress and bool(todo),

@@ -37,7 +37,7 @@ def run_clip_task(payload: dict, progress, cancel) -> dict:
         ``clip``, ``out_dir`` (absolute paths as str), ``params`` (a
         ProcessParams), ``segments`` (path or None), ``clip_fn``
         ("module:function" with :func:`aspectus.webcam.pipeline.process_clip`'s
-        signature).
+        signature), ``stages`` ("serial" or "overlapped", default serial).
     progress : callable
         ``progress(fraction, message)``.
     cancel : object with ``is_set()``
@@ -58,6 +58,9 @@ def run_clip_task(payload: dict, progress, cancel) -> dict:
     # several workers on one machine would all put their background work on the same CPU
     # (aspectus._env.background_cpus): let the operating system place it
     os.environ["ASPECTUS_PIN_BACKGROUND"] = "0"
+    # one clip per core: the stages run one after the other in this process (aspectus.webcam.pipeline.STAGES),
+    # unless the batch asked otherwise; the per-clip function reads it from the environment
+    os.environ["ASPECTUS_STAGES"] = str(payload.get("stages") or "serial")
     clip = Path(payload["clip"])
     out = Path(payload["out_dir"])
     base = {"host": socket.gethostname(), "summary": {}, "kind": "", "reason": ""}

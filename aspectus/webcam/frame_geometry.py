@@ -308,6 +308,40 @@ class GeometryThread:
         self._thread.join(timeout=10)
 
 
+class GeometryInline:
+    """Runs :class:`FrameGeometry` in the calling thread, in batches of :data:`_BATCH` frames (the same
+    batches as :class:`GeometryProcess`): no hand-over at all, for a pipeline whose stages run one after
+    the other on one core (batch workers: one clip per core)."""
+
+    kind = "inline"
+
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True):
+        self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors)
+        self._sink = sink
+        self._pending: list = []
+
+    def check(self) -> None:
+        pass
+
+    def _flush(self) -> None:
+        if self._pending:
+            for r in self._geo.rows(self._pending):
+                self._sink(r)
+            self._pending = []
+
+    def submit(self, item: tuple) -> None:
+        self._pending.append(item)
+        if len(self._pending) >= _BATCH:
+            self._flush()
+
+    def finish(self) -> dict:
+        self._flush()
+        return self._geo.state()
+
+    def abort(self) -> None:
+        self._pending = []
+
+
 def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
@@ -480,9 +514,12 @@ class GeometryProcess:
 def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
                    eye_anchors: bool = True):
     """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
-    application, or when no child can be started); ``mode`` forces ``"thread"`` or ``"process"``."""
-    if mode not in ("auto", "thread", "process"):
-        raise ValueError(f"geometry mode must be auto, thread or process, got {mode!r}")
+    application, or when no child can be started); ``mode`` forces ``"thread"``, ``"process"`` or
+    ``"inline"`` (:class:`GeometryInline`, in the calling thread)."""
+    if mode not in ("auto", "thread", "process", "inline"):
+        raise ValueError(f"geometry mode must be auto, thread, process or inline, got {mode!r}")
+    if mode == "inline":
+        return GeometryInline(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors)
     frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:

@@ -50,7 +50,7 @@ from aspectus.webcam.gaze import GazeParams, estimate_gaze
 from aspectus.webcam.frame_geometry import RECORD_WIDTH, frame_item, start_geometry
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.schema import SAMPLE_COLUMNS
-from aspectus.webcam.video import DecodeReport, FramePrefetcher, probe
+from aspectus.webcam.video import DecodeReport, FramePrefetcher, iter_frames, probe
 
 ProgressFn = Callable[[float, str], None]
 
@@ -171,13 +171,35 @@ class _Grow:
         return self.a[: self.n]
 
 
+#: how the stages of one clip run: "overlapped" (decoding in a thread, the geometry in a child process or
+#: thread, beside the face mesh: fastest for one clip on a machine of its own) or "serial" (all in the
+#: calling thread, one after the other: the least CPU per frame, for batch workers that each have a core)
+STAGES = ("overlapped", "serial")
+#: environment variable that sets the stages where the caller does not (batch workers set it)
+STAGES_ENV = "ASPECTUS_STAGES"
+
+
+def resolve_stages(stages: str | None = None) -> str:
+    """``stages`` if given, else :data:`STAGES_ENV` from the environment, else ``"overlapped"``."""
+    from aspectus.errors import ParameterError
+
+    s = (stages or os.environ.get(STAGES_ENV) or "overlapped").strip().lower()
+    if s not in STAGES:
+        raise ParameterError(f"stages must be one of {', '.join(STAGES)}, not {s!r}",
+                             hint=f"check {STAGES_ENV} in the environment" if not stages else None)
+    return s
+
+
 def extract_samples(clip_path, *, params: ProcessParams | None = None, progress: ProgressFn | None = None,
-                    cancel=None, geometry_mode: str = "auto") -> tuple[pd.DataFrame, dict]:
+                    cancel=None, geometry_mode: str = "auto", stages: str | None = None) -> tuple[pd.DataFrame, dict]:
     """Decode, landmark and estimate gaze for every frame of a clip.
 
     ``geometry_mode`` says where the per-frame head pose and iris refinement
     run: ``"auto"`` (a child process for clips of 450 frames or more, else a
-    thread), ``"thread"`` or ``"process"``; the results are the same.
+    thread), ``"thread"``, ``"process"`` or ``"inline"``; the results are the
+    same. ``stages`` (:func:`resolve_stages`): with ``"serial"`` decoding,
+    mesh and geometry run one after the other in the calling thread (and
+    ``geometry_mode`` is ``"inline"``), with the same results.
 
     Returns
     -------
@@ -193,9 +215,15 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     rec = _Grow(RECORD_WIDTH, cap=min(max(n_hint + 16, 64), 1 << 20))
     t0 = time.perf_counter()
     refine = bool(params.gaze.refine_iris)
+    serial = resolve_stages(stages) == "serial"
     tracker = FaceTracker(max_faces=params.max_faces, face=params.face)
-    background = background_cpus()  # the decoder and the geometry keep off the CPUs the mesh may need
-    prefetch = FramePrefetcher(clip, report=report, cancel=cancel, lower_priority=DECODE_NICE, cpus=background)
+    if serial:  # one thread, one core: no hand-over between stages at all
+        background = None
+        geometry_mode = "inline"
+        prefetch = iter_frames(clip, report=report, cancel=cancel)
+    else:
+        background = background_cpus()  # the decoder and the geometry keep off the CPUs the mesh may need
+        prefetch = FramePrefetcher(clip, report=report, cancel=cancel, lower_priority=DECODE_NICE, cpus=background)
     # Three stages overlap: decoding (its own thread), the face mesh (here), and the per-frame
     # geometry - head pose, iris refinement - in a child process for clips of more than a few
     # seconds (aspectus.webcam.frame_geometry). The mesh and OpenCV release the GIL while they compute;
@@ -266,6 +294,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                           "other_faces_only_frames": tracker.other_faces_only_frames,
                           "reacquired_at_frames": list(tracker.reacquired_frames),
                           "reacquire_after_frames": tracker.reacquire_after},
+        "stages": "serial" if serial else "overlapped",
         "geometry_ran_in": geometry.kind,
         "background_cpus": sorted(background) if background else None,
         "eye_anchor_frames": state.get("anchored_frames"),
@@ -576,7 +605,7 @@ def _paths_recorded(meta: dict, clip: Path, out_dir: Path, full_paths) -> dict:
 
 def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, segments=None,
                  progress: ProgressFn | None = None, cancel=None, reuse: bool = True,
-                 full_paths: bool | None = None) -> ClipResult:
+                 full_paths: bool | None = None, stages: str | None = None) -> ClipResult:
     """Process one clip into ``out_dir`` (see the module docstring for the files).
 
     Parameters
@@ -600,6 +629,10 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         Also record the clip's absolute path in run.json (``clip_resolved``).
         Default: no (``ASPECTUS_FULL_PATHS=1`` turns it on); run.json always
         holds the path relative to ``out_dir`` and the clip's SHA-256.
+    stages : {"overlapped", "serial"}, optional
+        How decoding, the face mesh and the geometry share the CPU (see
+        :data:`STAGES`; default from the ``ASPECTUS_STAGES`` environment
+        variable, else overlapped). The outputs are the same either way.
 
     Raises
     ------
@@ -647,7 +680,8 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         except CacheError:
             samples = None  # damaged cache: rebuild it
     if samples is None:
-        samples, meta = extract_samples(clip, params=params, progress=lambda f, m: progress(0.95 * f, m), cancel=cancel)
+        samples, meta = extract_samples(clip, params=params, progress=lambda f, m: progress(0.95 * f, m), cancel=cancel,
+                                        stages=stages)
     if not samples["face_found"].any():
         raise NoFaceError(f"no face found in any of its {len(samples)} frames", path=clip,
                           hint="check that the student's face is in the picture and lit")

@@ -90,6 +90,10 @@ def test_thread_and_process_give_identical_rows(frames_and_faces):
     if sys.platform.startswith("linux"):  # the child reports its own peak memory (an interpreter with NumPy
         assert 20 < s2["peak_rss_mb"] < 2000, s2  # and OpenCV loaded is tens of MB)
     assert np.all(np.diff(b[:, 0]) > 0)  # frame order kept
+    k3, c, s3 = _run("inline", items)  # the serial pipeline's runner: the same batches of 16 in this thread
+    assert k3 == "inline"
+    np.testing.assert_array_equal(a, c)
+    assert s3["size"] == (640, 360) and s3["anchored_frames"] == s1["anchored_frames"]
 
 
 def test_auto_mode_uses_a_thread_for_short_clips():
