@@ -58,9 +58,6 @@ def run_clip_task(payload: dict, progress, cancel) -> dict:
     # several workers on one machine would all put their background work on the same CPU
     # (aspectus._env.background_cpus): let the operating system place it
     os.environ["ASPECTUS_PIN_BACKGROUND"] = "0"
-    # one clip per core: the stages run one after the other in this process (aspectus.webcam.pipeline.STAGES),
-    # unless the batch asked otherwise; the per-clip function reads it from the environment
-    os.environ["ASPECTUS_STAGES"] = str(payload.get("stages") or "serial")
     clip = Path(payload["clip"])
     out = Path(payload["out_dir"])
     base = {"host": socket.gethostname(), "summary": {}, "kind": "", "reason": ""}
@@ -71,7 +68,18 @@ def run_clip_task(payload: dict, progress, cancel) -> dict:
         _clean_partials(out)
         segments = payload.get("segments") or None  # a path: the pipeline reads it and records it in run.json
         fn = _resolve_fn(payload.get("clip_fn") or DEFAULT_CLIP_FN)
-        res = fn(clip, out, params=payload["params"], segments=segments, progress=progress, cancel=cancel)
+        # one clip per core: the stages run one after the other in this process (aspectus.webcam.pipeline.STAGES)
+        # unless the batch asked otherwise; the per-clip function reads it from the environment, which is put
+        # back afterwards (a task run in the caller's own process must not change its later clips)
+        before = os.environ.get("ASPECTUS_STAGES")
+        os.environ["ASPECTUS_STAGES"] = str(payload.get("stages") or "serial")
+        try:
+            res = fn(clip, out, params=payload["params"], segments=segments, progress=progress, cancel=cancel)
+        finally:
+            if before is None:
+                os.environ.pop("ASPECTUS_STAGES", None)
+            else:
+                os.environ["ASPECTUS_STAGES"] = before
         summary = dict(getattr(res, "summary", None) or {})
         return {**base, "status": "done", "summary": summary, "elapsed_s": time.monotonic() - t0}
     except Exception as exc:  # noqa: BLE001 - reported per clip, the batch goes on
