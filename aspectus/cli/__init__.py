@@ -19,7 +19,7 @@ from aspectus import __version__
 from aspectus.errors import AspectusError, AspectusInputError, Cancelled
 
 #: subcommand modules, in the order ``--help`` lists them
-SUBCOMMANDS = ("process", "events", "validate", "batch", "export_bids", "gui", "purge", "render")
+SUBCOMMANDS = ("process", "events", "validate", "batch", "export_bids", "gui", "purge", "render", "targets")
 
 
 def build_parser() -> argparse.ArgumentParser:

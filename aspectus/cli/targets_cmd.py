@@ -1,0 +1,130 @@
+"""``aspectus targets make|check|table``: the known-target sequence, its check on a clip, the study table."""
+from __future__ import annotations
+
+import sys
+
+
+def register(sub) -> None:
+    p = sub.add_parser(
+        "targets",
+        help="known-target sequence: make it, check a clip that recorded it, tabulate a study's checks",
+        description="A short sequence of dots at known places and times, shown on the study's screen while the "
+        "webcam records, measures each student's gaze quality without a lab tracker: per-person offset and "
+        "gain, accuracy, precision, data loss, fixations on the dots and smooth-pursuit gain.",
+    )
+    tsub = p.add_subparsers(dest="targets_command", metavar="ACTION")
+
+    m = tsub.add_parser("make", help="write schedule.json, the offline page and the video for a screen",
+                        description="Write OUTDIR/schedule.json (the documented, versioned schedule), "
+                        "OUTDIR/targets.html (self-contained offline page: open it in a browser on the study's "
+                        "screen, press the space bar) and OUTDIR/targets.mp4 (the same sequence as a video).")
+    m.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="folder to write into")
+    m.add_argument("--screen-px", nargs=2, type=int, required=True, metavar=("W", "H"),
+                   help="screen resolution in pixels, e.g. 1920 1080")
+    m.add_argument("--screen-mm", nargs=2, type=float, required=True, metavar=("W", "H"),
+                   help="visible screen area in mm, e.g. 344 194")
+    m.add_argument("--distance-mm", type=float, required=True, help="viewing distance (eyes to screen centre), mm")
+    m.add_argument("--seed", type=int, default=0, help="orders the dots (default 0)")
+    m.add_argument("--fixation-s", type=float, default=2.0, help="time per still dot, s (default 2)")
+    m.add_argument("--targets", type=int, default=13, help="still dots, 5-13 (default 13)")
+    m.add_argument("--pursuit-speed-deg-s", type=float, default=8.0, help="moving dot's speed, deg/s (default 8)")
+    m.add_argument("--pursuit-sweeps", type=int, default=2, choices=(0, 1, 2),
+                   help="moving sweeps: 0, 1 (horizontal), 2 (and vertical; default)")
+    m.add_argument("--no-video", action="store_true", help="skip the video")
+    m.add_argument("--video-fps", type=float, default=30.0, help="video frame rate (default 30)")
+    m.set_defaults(func=run_make)
+
+    c = tsub.add_parser("check", help="measure gaze quality on a clip that recorded the sequence",
+                        description="Process the clip (or reuse its outputs), find the sequence (the flash in the "
+                        "picture, else by matching the gaze to the dots' path), fit offset and gain and write "
+                        "target_check.json and target_check_targets.csv into the clip's output folder "
+                        "OUTDIR/<clip stem>/.")
+    c.add_argument("clip", metavar="CLIP")
+    c.add_argument("--schedule", required=True, help="the schedule.json that was shown")
+    c.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output root (as for aspectus process)")
+    c.add_argument("--align", default="auto", choices=("auto", "flash", "xcorr", "given"),
+                   help="how to find the sequence (default auto: the flash, else cross-correlation)")
+    c.add_argument("--start-s", type=float, default=None, help="clip time of the flash with --align given, s")
+    c.add_argument("--search-from-s", type=float, default=0.0,
+                   help="look for the flash from this clip time on (a second showing at the session's end)")
+    c.add_argument("--apply-mapping", action="store_true",
+                   help="also write screen_gaze.parquet/.csv: every sample of the clip mapped to the screen")
+    c.add_argument("--quiet", action="store_true", help="no progress bar")
+    c.set_defaults(func=run_check_cmd)
+
+    t = tsub.add_parser("table", help="one row per session from all checks under a results folder, with a rule",
+                        description="Collect the target_check.json of every clip output folder under RESULTS and "
+                        "write target_quality.csv and target_quality.md (the exclusion rule in words, how each "
+                        "figure was computed, the sessions and their verdicts) into OUTDIR.")
+    t.add_argument("results", metavar="RESULTS")
+    t.add_argument("-o", "--out", required=True, metavar="OUTDIR")
+    t.add_argument("--rule", default="", metavar="NAME=VALUE,...",
+                   help="exclusion thresholds: max_accuracy_deg, max_precision_rms_s2s_deg, max_loss_frac, "
+                   "gain_min, gain_max, min_targets_used (defaults 3, 1, 0.25, 0.8, 1.25, 5)")
+    t.set_defaults(func=run_table)
+    p.set_defaults(func=lambda args: (p.print_help(), 2)[1])
+
+
+def run_make(args) -> int:
+    from pathlib import Path
+
+    from aspectus.targets.page import write_page, write_video
+    from aspectus.targets.schedule import Screen, make_schedule
+
+    screen = Screen(int(args.screen_px[0]), int(args.screen_px[1]), float(args.screen_mm[0]), float(args.screen_mm[1]),
+                    float(args.distance_mm))
+    sched = make_schedule(screen, seed=args.seed, fixation_s=args.fixation_s, n_fixations=args.targets,
+                          pursuit_speed_deg_s=args.pursuit_speed_deg_s, pursuit_sweeps=args.pursuit_sweeps)
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    sched.write(out / "schedule.json")
+    write_page(sched, out / "targets.html")
+    print(f"{out / 'schedule.json'}: {len(sched.fixations)} still dots, {len(sched.pursuits)} moving sweeps, "
+          f"{sched.duration_s:.1f} s")
+    print(f"{out / 'targets.html'}: open it on the study's screen, press the space bar")
+    if not args.no_video:
+        write_video(sched, out / "targets.mp4", fps=args.video_fps)
+        print(f"{out / 'targets.mp4'}: the same sequence, 2 s before the flash")
+    return 0
+
+
+def run_check_cmd(args) -> int:
+    from pathlib import Path
+
+    from aspectus.targets.analysis import CheckParams
+    from aspectus.targets.check import read_check, run_check, summary_lines
+    from aspectus.webcam.pipeline import clip_output_dir
+
+    params = CheckParams(align=args.align, start_s=args.start_s, search_from_s=args.search_from_s)
+    clip = Path(args.clip)
+    out_dir = clip_output_dir(args.out, clip)
+    bar = None
+    if not args.quiet:
+        from aspectus.cli.progress_bar import ProgressBar
+
+        bar = ProgressBar(total=1000, desc=clip.name, leave=False, bar_format="{desc}: {percentage:3.0f}%|{bar}|")
+
+    def progress(frac, message):
+        if bar is not None:
+            bar.n = int(1000 * min(1.0, max(0.0, frac)))
+            bar.refresh()
+
+    try:
+        run_check(clip, args.schedule, out_dir, params=params, apply_mapping=args.apply_mapping, progress=progress)
+    finally:
+        if bar is not None:
+            bar.close()
+    doc = read_check(out_dir)
+    print(f"{clip.name}: target check -> {out_dir / 'target_check.json'}")
+    for line in summary_lines(doc or {}):
+        print(f"  {line}")
+    return 0
+
+
+def run_table(args) -> int:
+    from aspectus.targets.study import ExclusionRule, write_quality_report
+
+    rule = ExclusionRule.parse(args.rule)
+    res = write_quality_report(args.results, args.out, rule=rule)
+    print(f"{res['sessions']} session(s), {res['excluded']} excluded -> {res['csv']}, {res['md']}")
+    return 0

@@ -1,0 +1,177 @@
+"""A clip's known-target check, written beside the clip's other outputs.
+
+:func:`run_check` processes the clip (or reuses its cached samples, as
+``aspectus process`` does), finds the sequence, computes the figures of
+:mod:`aspectus.targets.analysis` and writes into the clip's output folder:
+
+=========================  ======================================================
+target_check.json          the sidecar: figures, fitted offset and gain, how the
+                           start was found, flags, parameters, the schedule, the
+                           SHA-256 of the clip, the schedule and the samples
+target_check_targets.csv   one row per target: place, window, valid samples,
+                           median gaze, errors, precision, pursuit gain
+screen_gaze.parquet/.csv   only with ``apply_mapping=True``: every sample of the
+                           session mapped to the screen (degrees and pixels)
+=========================  ======================================================
+
+``run.json`` is left as ``aspectus process`` wrote it; the check's sidecar
+names the samples' checksum it was computed from, so a stale check can be
+told from a current one (:func:`read_check`).
+"""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from aspectus import __version__
+from aspectus.errors import AspectusInputError
+from aspectus.targets.analysis import CheckParams, Mapping, TargetCheck, check_samples, find_start
+from aspectus.targets.schedule import Schedule, deg_to_px, read_schedule
+
+CHECK_JSON = "target_check.json"
+CHECK_TARGETS_CSV = "target_check_targets.csv"
+SCREEN_GAZE = "screen_gaze"
+#: version of target_check.json's layout
+CHECK_VERSION = 1
+
+
+def map_samples(samples: pd.DataFrame, mapping: Mapping, schedule: Schedule) -> pd.DataFrame:
+    """Gaze on the screen for every sample: ``t_s``, ``valid``, ``screen_x_deg``, ``screen_y_deg``,
+    ``screen_x_px``, ``screen_y_px`` (offset and gain of ``mapping``; NaN where the gaze is not valid).
+
+    The mapping holds while the head stays about where it was during the
+    sequence; it is an angle mapping, so head turns are already compensated
+    by the gaze estimate, but a student who moves much nearer or farther
+    changes the screen's angles.
+    """
+    x, y = mapping.to_screen_deg(samples["yaw_deg"], samples["pitch_deg"])
+    valid = samples["valid"].to_numpy(bool)
+    x = np.where(valid, x, np.nan)
+    y = np.where(valid, y, np.nan)
+    xp, yp = deg_to_px(schedule.screen, x, y)
+    return pd.DataFrame({"t_s": samples["t_s"].to_numpy(float), "valid": valid, "screen_x_deg": x,
+                         "screen_y_deg": y, "screen_x_px": xp, "screen_y_px": yp})
+
+
+def run_check(clip_path, schedule_path, out_dir, *, params: CheckParams | None = None, process_params=None,
+              apply_mapping: bool = False, progress=None, cancel=None) -> TargetCheck:
+    """Check the clip at ``clip_path`` against the schedule and write the sidecar into ``out_dir``.
+
+    Parameters
+    ----------
+    clip_path : path-like
+        The recorded clip with the sequence in it.
+    schedule_path : path-like
+        ``schedule.json`` of the sequence that was shown.
+    out_dir : path-like
+        The clip's output folder (as ``aspectus process`` makes it; processed here if needed).
+    params : CheckParams, optional
+    process_params : aspectus.webcam.pipeline.ProcessParams, optional
+    apply_mapping : bool, default False
+        Also write ``screen_gaze.parquet/.csv`` (the whole session on the screen).
+    progress : callable(fraction, message), optional
+    cancel : object with ``is_set()``, optional
+
+    Returns
+    -------
+    TargetCheck
+    """
+    from aspectus.atomic import sha256_file, write_csv, write_json, write_parquet
+    from aspectus.targets.analysis import frame_brightness
+    from aspectus.webcam.pipeline import process_clip
+
+    params = params or CheckParams()
+    clip = Path(clip_path)
+    out_dir = Path(out_dir)
+    schedule = read_schedule(schedule_path)
+    prog = progress or (lambda f, m: None)
+    res = process_clip(clip, out_dir, params=process_params, progress=lambda f, m: prog(0.9 * f, m), cancel=cancel)
+    samples = res.samples
+    prog(0.9, f"{clip.name}: finding the target sequence")
+    brightness = None
+    if params.align in ("auto", "flash"):
+        brightness = frame_brightness(clip, cancel=cancel)
+    try:
+        alignment = find_start(schedule, samples, clip_path=clip, params=params, brightness=brightness)
+    except AspectusInputError as exc:
+        raise AspectusInputError(exc.problem, path=clip, where=exc.where, hint=exc.hint) from None
+    check = check_samples(samples, schedule, start_s=alignment["start_s"], alignment=alignment, params=params)
+    prog(0.97, f"{clip.name}: writing the check")
+    doc = check.to_dict()
+    doc.update({
+        "format": "aspectus.target_check", "format_version": CHECK_VERSION, "aspectus": __version__,
+        "clip": clip.name, "clip_sha256": sha256_file(clip), "schedule_file": Path(schedule_path).name,
+        "schedule_sha256": sha256_file(schedule_path), "schedule": schedule.to_dict(),
+        "samples_sha256": _samples_sha(out_dir),
+        "method": "see aspectus.targets.analysis (module docstring): mapping gaze = offset + gain * target per "
+                  "axis fitted on the still dots' median gaze; accuracy = mean angle between dot and mapped "
+                  "median gaze; precision RMS-S2S and SD on the mapped gaze of each still dot's window",
+    })
+    write_csv(out_dir / CHECK_TARGETS_CSV, check.targets, float_format="%.6f")
+    if apply_mapping:
+        if not np.isfinite(check.mapping.gain_yaw):
+            raise AspectusInputError("the mapping could not be fitted, so it cannot be applied", path=clip)
+        mapped = map_samples(samples, check.mapping, schedule)
+        write_parquet(out_dir / f"{SCREEN_GAZE}.parquet", mapped)
+        write_csv(out_dir / f"{SCREEN_GAZE}.csv", mapped, float_format="%.6f")
+        doc["screen_gaze"] = {"files": [f"{SCREEN_GAZE}.parquet", f"{SCREEN_GAZE}.csv"],
+                              "note": "offset and gain of this check applied to every sample of the clip"}
+    write_json(out_dir / CHECK_JSON, doc)
+    prog(1.0, f"{clip.name}: check done")
+    return check
+
+
+def _samples_sha(out_dir: Path) -> str | None:
+    run = out_dir / "run.json"
+    try:
+        d = json.loads(run.read_text(encoding="utf-8"))
+        return ((d.get("outputs") or {}).get("samples.parquet") or {}).get("sha256")
+    except (OSError, ValueError):
+        return None
+
+
+def read_check(out_dir) -> dict | None:
+    """The ``target_check.json`` of a clip's output folder, or None when there is none or it is unreadable.
+
+    ``"stale"`` is added: True when the clip's samples changed since the check was made.
+    """
+    out_dir = Path(out_dir)
+    p = out_dir / CHECK_JSON
+    try:
+        d = json.loads(p.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    if not isinstance(d, dict) or d.get("format") != "aspectus.target_check":
+        return None
+    now = _samples_sha(out_dir)
+    d["stale"] = bool(now and d.get("samples_sha256") and now != d.get("samples_sha256"))
+    return d
+
+
+def summary_lines(doc: dict) -> list[str]:
+    """A few plain lines of a check's figures (for the terminal and the app's clip view)."""
+    s, m, a = doc.get("summary", {}), doc.get("mapping", {}), doc.get("alignment", {})
+
+    def f(v, fmt="{:.2f}"):
+        return "n/a" if v is None else fmt.format(v)
+
+    lines = [
+        f"start {f(s.get('start_s'), '{:.3f}')} s ({a.get('method', '?')}); "
+        f"{s.get('n_targets_used', 0)} of {s.get('n_fixation_targets', 0)} still dots usable",
+        f"offset yaw {f(m.get('offset_yaw_deg'), '{:+.2f}')} deg, pitch {f(m.get('offset_pitch_deg'), '{:+.2f}')} deg; "
+        f"gain yaw {f(m.get('gain_yaw'))}, pitch {f(m.get('gain_pitch'))}",
+        f"accuracy {f(s.get('accuracy_offset_deg'))} deg after offset, {f(s.get('accuracy_offset_gain_deg'))} deg "
+        f"after offset+gain ({f(s.get('accuracy_offset_gain_loo_deg'))} leave-one-out)",
+        f"precision RMS-S2S {f(s.get('precision_rms_s2s_deg'))} deg, SD {f(s.get('precision_sd_deg'))} deg; "
+        f"data loss {f(None if s.get('loss_frac') is None else 100 * s['loss_frac'], '{:.1f}')} %",
+        f"fixations on dots {f(s.get('n_fixations_on_targets'), '{:.0f}')} (dots fixated "
+        f"{f(s.get('n_targets_fixated'), '{:.0f}')} of {s.get('n_fixation_targets', 0)}); "
+        f"pursuit gain {f(s.get('pursuit_gain'))}",
+    ]
+    lines += [f"note: {x}" for x in doc.get("flags", [])]
+    if doc.get("stale"):
+        lines.append("note: the clip's samples changed since this check; run it again")
+    return lines
