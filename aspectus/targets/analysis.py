@@ -19,7 +19,9 @@ checked in five steps:
 3. **Accuracy**: the mean over the still dots of the angle between each
    dot and its median gaze mapped back to the screen (after the offset fit;
    after offset and gain; and after offset and gain fitted without that dot,
-   leave-one-out, which does not reward over-fitting). The accuracy and
+   leave-one-out, which does not reward over-fitting). Beside it, the
+   accuracy that the measured noise alone would give (``accuracy_noise_floor_deg``):
+   what is above it is systematic error of the measurement. The accuracy and
    precision definitions follow Holmqvist, Nystroem & Mulvey (2012, ETRA,
    "Eye tracker data quality: what it is and how to measure it"; from
    memory).
@@ -450,6 +452,15 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
     tab["precision_rms_s2s_deg"] = s2s
     tab["precision_sd_deg"] = sd
     tab["precision_rms_s2s_raw_deg"] = s2s_raw
+    # the accuracy that the noise alone would give: the error of a median of n samples with SD sd/sqrt(2) per
+    # axis is about 1.2533 * sd / sqrt(2 n) per axis (efficiency of the median, normal noise), and the mean
+    # length of such a 2-D error is sqrt(pi / 2) times that (Rayleigh); independent samples assumed (white noise:
+    # RMS-S2S near sqrt(2) x SD; more correlated noise makes this a lower bound)
+    n_valid = tab["n_valid"].to_numpy(float)
+    tab["accuracy_noise_floor_deg"] = np.where(
+        (tab["kind"] == "fixation") & (n_valid >= 2),
+        math.sqrt(math.pi / 2) * 1.2533 * tab["precision_sd_deg"].to_numpy(float) / np.sqrt(2 * np.maximum(n_valid, 1)),
+        nan)
     fxt = tab[tab["kind"] == "fixation"]
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
@@ -459,6 +470,8 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
             if fxt["precision_sd_deg"].notna().any() else nan
         summary["precision_rms_s2s_raw_deg"] = float(np.nanmedian(fxt["precision_rms_s2s_raw_deg"])) \
             if fxt["precision_rms_s2s_raw_deg"].notna().any() else nan
+    used = tab["kind"].eq("fixation") & tab["error_offset_gain_deg"].notna()
+    summary["accuracy_noise_floor_deg"] = float(tab.loc[used, "accuracy_noise_floor_deg"].mean()) if used.any() else nan
 
     # data loss over the whole sequence
     summary["n_samples"] = int(span.sum())

@@ -125,11 +125,12 @@ def run_check(clip_path, schedule_path, out_dir, *, params: CheckParams | None =
 
 
 def _samples_sha(out_dir: Path) -> str | None:
-    run = out_dir / "run.json"
+    from aspectus.run_record import read_run_json
+
+    d = read_run_json(out_dir) or {}
     try:
-        d = json.loads(run.read_text(encoding="utf-8"))
         return ((d.get("outputs") or {}).get("samples.parquet") or {}).get("sha256")
-    except (OSError, ValueError):
+    except AttributeError:
         return None
 
 
@@ -164,7 +165,8 @@ def summary_lines(doc: dict) -> list[str]:
         f"offset yaw {f(m.get('offset_yaw_deg'), '{:+.2f}')} deg, pitch {f(m.get('offset_pitch_deg'), '{:+.2f}')} deg; "
         f"gain yaw {f(m.get('gain_yaw'))}, pitch {f(m.get('gain_pitch'))}",
         f"accuracy {f(s.get('accuracy_offset_deg'))} deg after offset, {f(s.get('accuracy_offset_gain_deg'))} deg "
-        f"after offset+gain ({f(s.get('accuracy_offset_gain_loo_deg'))} leave-one-out)",
+        f"after offset+gain ({f(s.get('accuracy_offset_gain_loo_deg'))} leave-one-out; noise alone would give "
+        f"{f(s.get('accuracy_noise_floor_deg'))})",
         f"precision RMS-S2S {f(s.get('precision_rms_s2s_deg'))} deg, SD {f(s.get('precision_sd_deg'))} deg; "
         f"data loss {f(None if s.get('loss_frac') is None else 100 * s['loss_frac'], '{:.1f}')} %",
         f"fixations on dots {f(s.get('n_fixations_on_targets'), '{:.0f}')} (dots fixated "

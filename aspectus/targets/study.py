@@ -9,7 +9,6 @@ writes the table, the rule's text and the per-session verdicts.
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
@@ -31,6 +30,7 @@ QUALITY_COLUMNS = {
     "accuracy_offset_deg": "mean angle between dot and gaze after the offset fit, deg",
     "accuracy_offset_gain_deg": "the same after the offset+gain fit, deg",
     "accuracy_offset_gain_loo_deg": "the same, each dot left out of its own fit, deg",
+    "accuracy_noise_floor_deg": "the accuracy the measured noise alone would give (the rest is systematic), deg",
     "precision_rms_s2s_deg": "median over still dots of the RMS sample-to-sample step of the mapped gaze, deg",
     "precision_sd_deg": "median over still dots of the SD of the mapped gaze, deg",
     "loss_frac": "share of the sequence's frames without valid gaze",
@@ -44,26 +44,11 @@ QUALITY_COLUMNS = {
 
 
 def _labels(name: str) -> dict:
-    """participant / session from a clip name (``sub-``/``ses-`` entities or ``p01``/``s01`` parts)."""
-    out = {}
-    m = re.search(r"sub-([A-Za-z0-9]+)", name)
-    if m:
-        out["participant"] = m.group(1)
-    m = re.search(r"ses-([A-Za-z0-9]+)", name)
-    if m:
-        out["session"] = m.group(1)
-    parts = re.split(r"[_\-. ]+", name)
-    if "participant" not in out:
-        p = [x for x in parts if re.fullmatch(r"p\d+", x, re.I)]
-        if p:
-            out["participant"] = p[0]
-    if "session" not in out:
-        s = [x for x in parts if re.fullmatch(r"s\d+", x, re.I)]
-        if s:
-            out["session"] = s[0]
-    out.setdefault("participant", name)
-    out.setdefault("session", "")
-    return out
+    """participant / session of a clip output folder's name (the project's one rule, :mod:`aspectus.labels`)."""
+    from aspectus.labels import guess_labels
+
+    lab = guess_labels(name)
+    return {"participant": lab.get("participant") or name, "session": lab.get("session", "")}
 
 
 def collect_checks(results_dir) -> pd.DataFrame:

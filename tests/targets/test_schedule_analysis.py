@@ -1,0 +1,207 @@
+"""Schedule geometry and file, and the check's figures on gaze tables with known properties (no rendering)."""
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from aspectus.errors import AspectusInputError, ParameterError
+from aspectus.synth.target_gaze import schedule_trajectory
+from aspectus.targets.analysis import (CheckParams, angle_between_deg, check_samples, find_flashes, find_start,
+                                       xcorr_start)
+from aspectus.targets.schedule import (SCHEDULE_VERSION, Screen, deg_to_px, make_schedule, px_to_deg,
+                                       read_schedule)
+
+SCREEN = Screen(1920, 1080, 344.0, 193.5, 600.0)
+
+
+def _sched(**kw):
+    kw = {"seed": 2, "fixation_s": 1.5, "n_fixations": 9, "pursuit_sweeps": 2, **kw}
+    return make_schedule(SCREEN, **kw)
+
+
+def _samples(sched, *, gain=(1.0, 1.0), offset=(1.5, -4.0), noise_deg=0.3, lead_in_s=2.0, fps=30.0, seed=0,
+             loss_frac=0.0):
+    tr = schedule_trajectory(sched, lead_in_s=lead_in_s, gain=gain, offset_deg=offset, seed=seed)
+    t = np.arange(0, tr.duration_s, 1 / fps)
+    s = tr.at(t)
+    rng = np.random.default_rng(seed)
+    s["yaw_deg"] += rng.normal(0, noise_deg, len(t))
+    s["pitch_deg"] += rng.normal(0, noise_deg, len(t))
+    s["valid"] = rng.random(len(t)) >= loss_frac
+    return s[["t_s", "valid", "yaw_deg", "pitch_deg"]]
+
+
+# --- schedule -------------------------------------------------------------------------------------------------
+
+def test_degrees_by_hand():
+    """Worked by hand (plane trigonometry): a 344 mm wide screen at 600 mm; the point 10 % in from the left
+    edge is 0.4 * 344 = 137.6 mm left of the centre: atan(137.6 / 600) = 12.917 deg; the top edge 96.75 mm
+    above it: atan(96.75 / 600) = 9.160 deg."""
+    x, y = px_to_deg(SCREEN, 0.1 * 1920, 0.0)
+    assert x == pytest.approx(-12.917, abs=0.001) and y == pytest.approx(9.160, abs=0.001)
+    xp, yp = deg_to_px(SCREEN, x, y)
+    assert xp == pytest.approx(192.0, abs=1e-9) and yp == pytest.approx(0.0, abs=1e-9)
+
+
+def test_schedule_is_reproducible_and_round_trips(tmp_path):
+    a, b, c = _sched(), _sched(), _sched(seed=3)
+    pd.testing.assert_frame_equal(a.targets, b.targets)
+    assert not a.targets[["x0_deg"]].equals(c.targets[["x0_deg"]])
+    assert (a.fixations.iloc[0][["x0_deg", "y0_deg"]] == 0).all()  # the centre comes first
+    p = a.write(tmp_path / "schedule.json")
+    d = json.loads(p.read_text())
+    assert d["format_version"] == SCHEDULE_VERSION and d["flash"] == {"onset_s": 0.0, "offset_s": 0.25}
+    back = read_schedule(p)
+    assert back.screen == a.screen and back.duration_s == pytest.approx(a.duration_s)
+    np.testing.assert_allclose(back.targets["x0_px"], a.targets["x0_px"], atol=1e-5)
+    # every still dot's pixels and degrees agree; moving dots move at the stated speed
+    for r in back.targets.itertuples():
+        xp, yp = deg_to_px(back.screen, r.x0_deg, r.y0_deg)
+        assert abs(xp - r.x0_px) < 1e-3 and abs(yp - r.y0_px) < 1e-3
+        if r.kind == "pursuit":
+            amp = math.hypot(r.x1_deg - r.x0_deg, r.y1_deg - r.y0_deg)
+            assert amp / (r.offset_s - r.onset_s) == pytest.approx(r.speed_deg_s, rel=1e-4)
+
+
+def test_schedule_file_errors(tmp_path):
+    p = _sched().write(tmp_path / "s.json")
+    d = json.loads(p.read_text())
+    d["format_version"] = SCHEDULE_VERSION + 1
+    p.write_text(json.dumps(d))
+    with pytest.raises(AspectusInputError, match="format version"):
+        read_schedule(p)
+    p.write_text("{broken")
+    with pytest.raises(AspectusInputError, match="JSON"):
+        read_schedule(p)
+    with pytest.raises(AspectusInputError, match="not found"):
+        read_schedule(tmp_path / "none.json")
+    with pytest.raises(ParameterError, match="shape in mm"):
+        Screen(1920, 1080, 344.0, 300.0, 600.0)
+    with pytest.raises(ParameterError, match="viewing_distance_mm"):
+        Screen(1920, 1080, 344.0, 193.5, 0.0)
+    with pytest.raises(ParameterError, match="n_fixations"):
+        make_schedule(SCREEN, n_fixations=3)
+
+
+# --- figures ----------------------------------------------------------------------------------------------------
+
+def test_offset_and_gain_are_recovered_and_a_wrong_gain_is_flagged():
+    sched = _sched()
+    good = check_samples(_samples(sched, noise_deg=0.0), sched, start_s=2.0)
+    m = good.mapping
+    assert m.gain_yaw == pytest.approx(1.0, abs=0.01) and m.gain_pitch == pytest.approx(1.0, abs=0.01)
+    assert m.offset_yaw_deg == pytest.approx(1.5, abs=0.05) and m.offset_pitch_deg == pytest.approx(-4.0, abs=0.05)
+    assert good.summary["accuracy_offset_gain_deg"] < 0.1 and good.flags == []
+    bad = check_samples(_samples(sched, noise_deg=0.0, gain=(0.6, 0.7)), sched, start_s=2.0)
+    assert bad.mapping.gain_yaw == pytest.approx(0.6, abs=0.01) and bad.mapping.gain_pitch == pytest.approx(0.7, abs=0.01)
+    assert not bad.summary["gain_in_range"]
+    assert any("yaw gain 0.60" in f for f in bad.flags) and any("pitch gain 0.70" in f for f in bad.flags)
+    # offset only cannot absorb a gain: the error grows with the dot's distance from the centre
+    assert bad.summary["accuracy_offset_deg"] > 2.0 > bad.summary["accuracy_offset_gain_deg"] * 10
+    mirrored = check_samples(_samples(sched, noise_deg=0.0, gain=(-1.0, 1.0)), sched, start_s=2.0)
+    assert any("mirrored" in f for f in mirrored.flags)
+
+
+def test_precision_on_white_noise():
+    """White noise of SD s per axis: SD precision sqrt(2) s, RMS-S2S 2 s (successive differences of independent
+    samples have variance 2 s^2 per axis), so RMS-S2S / SD = sqrt(2) - the ratio Holmqvist et al. (2012) name
+    for white noise (from memory)."""
+    sched = _sched(fixation_s=3.0)
+    s = _samples(sched, noise_deg=0.5, gain=(1.0, 1.0))
+    c = check_samples(s, sched, start_s=2.0, run_events=False)
+    assert c.summary["precision_sd_deg"] == pytest.approx(math.sqrt(2) * 0.5, rel=0.12)
+    assert c.summary["precision_rms_s2s_deg"] == pytest.approx(2 * 0.5, rel=0.12)
+    # the accuracy from noise alone: what the mapped medians of this noise give
+    assert c.summary["accuracy_offset_gain_deg"] == pytest.approx(c.summary["accuracy_noise_floor_deg"], rel=0.6)
+
+
+def test_data_loss_fixations_and_pursuit_gain():
+    sched = _sched()
+    s = _samples(sched, noise_deg=0.1, loss_frac=0.2, seed=3)
+    c = check_samples(s, sched, start_s=2.0)
+    assert c.summary["loss_frac"] == pytest.approx(0.2, abs=0.03)
+    assert c.summary["pursuit_gain"] == pytest.approx(1.0, abs=0.05)
+    n = c.summary["n_fixation_targets"]
+    assert c.summary["n_targets_fixated"] == n  # every still dot got a fixation on it
+    assert n <= c.summary["n_fixations_on_targets"] <= 2 * n
+    # a student who lets the moving dot run ahead: eyes at 70 % of its speed on the sweeps
+    tr = schedule_trajectory(sched, lead_in_s=2.0, offset_deg=(1.5, -4.0))
+    t = np.arange(0, tr.duration_s, 1 / 30)
+    g = tr.at(t)
+    ts = t - 2.0 - 0.2
+    for r in sched.pursuits.itertuples():
+        sel = (ts >= r.onset_s) & (ts < r.offset_s)
+        f = 0.7 * (ts[sel] - r.onset_s) / (r.offset_s - r.onset_s)
+        g.loc[sel, "yaw_deg"] = 1.5 + r.x0_deg + f * (r.x1_deg - r.x0_deg)
+        g.loc[sel, "pitch_deg"] = -4.0 + r.y0_deg + f * (r.y1_deg - r.y0_deg)
+    g["valid"] = True
+    slow = check_samples(g, sched, start_s=2.0, run_events=False)
+    assert slow.summary["pursuit_gain"] == pytest.approx(0.7, abs=0.03)
+
+
+def test_accuracy_is_the_angle_on_the_sphere():
+    # straight ahead vs 10 deg right: 10 deg; (10, 10) vs (0, 0): atan(sqrt(2) tan 10) = atan(0.24936) = 14.002 deg
+    # (by hand)
+    assert angle_between_deg(0.0, 0.0, 10.0, 0.0) == pytest.approx(10.0, abs=1e-9)
+    assert angle_between_deg(10.0, 10.0, 0.0, 0.0) == pytest.approx(14.002, abs=0.001)
+
+
+def test_flash_found_within_a_frame_and_a_lamp_is_not_a_flash():
+    rng = np.random.default_rng(1)
+    t = np.arange(900) / 30.0
+    b = 90 + rng.normal(0, 0.4, len(t))
+    b[300:] += 0.0
+    b[400:] += 25.0  # a lamp switched on: a lasting rise
+    on = 612  # the flash: 8 frames
+    b[on:on + 8] += 30.0
+    fl = find_flashes(t, b, flash_s=0.25)
+    assert [f.frame_index for f in fl] == [on]
+    assert find_flashes(t, b, flash_s=0.25, search_from_s=25.0) == []
+
+
+def test_start_found_by_cross_correlation_without_a_flash():
+    sched = _sched()
+    s = _samples(sched, noise_deg=0.4, lead_in_s=3.3)
+    start, r = xcorr_start(s["t_s"], s["yaw_deg"], s["pitch_deg"], s["valid"], sched)
+    assert r > 0.9
+    # the gaze lags the dot by the eyes' latency (0.2 s here) and half a saccade: within two frames of 3.5 s
+    assert start == pytest.approx(3.3 + 0.2, abs=2 / 30)
+    al = find_start(sched, s, params=CheckParams(align="auto"), brightness=(s["t_s"].to_numpy(), np.full(len(s), 90.0)))
+    assert al["method"] == "xcorr" and al["start_s"] == pytest.approx(3.3, abs=2 / 30)
+
+
+def test_clip_too_short_is_an_error_not_a_number():
+    sched = _sched()
+    s = _samples(sched)
+    with pytest.raises(AspectusInputError, match="before the sequence's end"):
+        check_samples(s[s["t_s"] < 10], sched, start_s=2.0)
+
+
+def test_study_table_and_exclusion_rule(tmp_path):
+    from aspectus.atomic import write_json
+    from aspectus.targets.check import CHECK_JSON
+    from aspectus.targets.study import ExclusionRule, collect_checks, write_quality_report
+
+    sched = _sched()
+    for name, gain, noise in (("linden_brook_p01_s01", 1.0, 0.2), ("linden_brook_p02_s01", 0.6, 0.2),
+                              ("linden_brook_p03_s01", 1.0, 1.5)):
+        c = check_samples(_samples(sched, gain=(gain, gain), noise_deg=noise), sched, start_s=2.0, run_events=False)
+        d = c.to_dict() | {"format": "aspectus.target_check"}
+        (tmp_path / name).mkdir()
+        write_json(tmp_path / name / CHECK_JSON, d)
+    tab = collect_checks(tmp_path)
+    assert list(tab["participant"]) == ["p01", "p02", "p03"] and set(tab["session"]) == {"s01"}
+    rule = ExclusionRule.parse("max_precision_rms_s2s_deg=1.0")
+    out = rule.apply(tab)
+    assert list(out["excluded"]) == [False, True, True]
+    assert "gain" in out["exclusion_reasons"][1] and "precision" in out["exclusion_reasons"][2]
+    res = write_quality_report(tmp_path, tmp_path / "report", rule=rule)
+    assert res["sessions"] == 3 and res["excluded"] == 2
+    md = (tmp_path / "report" / "target_quality.md").read_text()
+    assert "worse than 1 deg" in md and "p02" in md
+    with pytest.raises(ParameterError, match="unknown exclusion rule"):
+        ExclusionRule.parse("max_speed=3")
