@@ -133,30 +133,31 @@ def brighten_flash(path, *, onset_s: float, duration_s: float, gain: float = FLA
 
     Frame times are kept. Returns ``{"flash_first_frame": i, "flash_first_frame_t_s": t, "flash_frames": n}``.
     """
+    import av
+
     from aspectus.atomic import atomic_path
     from aspectus.synth.clip_writer import ClipWriter
-    from aspectus.webcam.video import iter_frames, probe
 
     path = Path(path)
-    info = probe(path)
-    if info.rotation_deg % 360:
-        raise ParameterError("brighten_flash handles clips without a rotation tag only")
     first, count, first_t, t_first_frame = None, 0, None, None
-    with atomic_path(path) as tmp:
-        w = ClipWriter(path, tmp, width_px=info.width_px, height_px=info.height_px, fps=info.nominal_fps,
+    with av.open(str(path)) as src, atomic_path(path) as tmp:
+        st = src.streams.video[0]
+        rate = float(st.average_rate or 30)
+        w = ClipWriter(path, tmp, width_px=st.codec_context.width, height_px=st.codec_context.height, fps=rate,
                        codec="libx264", crf=18, vfr=True)
         try:
-            for fr in iter_frames(path):
+            for i, fr in enumerate(src.decode(st)):
+                pts_s = float(fr.pts * fr.time_base)
                 if t_first_frame is None:
-                    t_first_frame = fr.pts_s
-                t = fr.pts_s - t_first_frame
-                img = fr.image
+                    t_first_frame = pts_s
+                t = pts_s - t_first_frame
+                img = fr.to_ndarray(format="rgb24")
                 if onset_s - 1e-6 <= t < onset_s + duration_s - 1e-6:
                     img = np.clip(img.astype(np.float32) * gain + lift, 0, 255).astype(np.uint8)
                     if first is None:
-                        first, first_t = fr.index, t
+                        first, first_t = i, t
                     count += 1
-                w.write(img, fr.pts_s)
+                w.write(img, pts_s)
             w.close()
         except BaseException:
             w.abort()
@@ -176,6 +177,8 @@ def render_target_clip(path, schedule, *, lead_in_s: float = 2.0, tail_s: float 
     from aspectus.atomic import sha256_file, write_json
     from aspectus.synth.render import render_clip
 
+    if render_kwargs.get("rotation_deg"):
+        raise ParameterError("render_target_clip writes upright clips only (no rotation_deg)")
     traj = schedule_trajectory(schedule, lead_in_s=lead_in_s, tail_s=tail_s, offset_deg=offset_deg, gain=gain,
                                latency_s=latency_s, drift_sd_deg=drift_sd_deg, head_motion=head_motion, seed=seed)
     res = render_clip(path, traj, seed=seed, **render_kwargs)
