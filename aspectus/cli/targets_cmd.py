@@ -1,8 +1,6 @@
 """``aspectus targets make|check|table``: the known-target sequence, its check on a clip, the study table."""
 from __future__ import annotations
 
-import sys
-
 
 def register(sub) -> None:
     p = sub.add_parser(

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from aspectus.errors import ParameterError
-from aspectus.synth.trajectory import DEFAULT_HEAD_Z_MM, Trajectory, _min_jerk, _ou_noise, saccade_duration_ms
+from aspectus.synth.trajectory import Trajectory, _min_jerk, _ou_noise, saccade_duration_ms
 
 __all__ = ["schedule_trajectory", "render_target_clip", "FLASH_GAIN", "FLASH_LIFT"]
 

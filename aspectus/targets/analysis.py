@@ -426,7 +426,7 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
     if np.isfinite(m.gain_yaw):
         x1, y1 = m.to_screen_deg(use["gaze_yaw_deg"], use["gaze_pitch_deg"])
         tab.loc[idx_use, "error_offset_gain_deg"] = angle_between_deg(x1, y1, use["x_deg"], use["y_deg"])
-        for k, i in enumerate(idx_use):
+        for i in idx_use:
             rest = use.drop(index=i)
             mk = fit_mapping(rest["x_deg"], rest["y_deg"], rest["gaze_yaw_deg"], rest["gaze_pitch_deg"])
             if np.isfinite(mk.gain_yaw):

@@ -32,7 +32,7 @@ _PAGE = """<!DOCTYPE html>
 <html lang="en">
 <head>
 <meta charset="utf-8">
-<meta http-equiv="Content-Security-Policy" content="default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; img-src 'none'; connect-src 'none'; font-src 'none'; media-src 'none'; frame-src 'none'; form-action 'none'; base-uri 'none'">
+<meta http-equiv="Content-Security-Policy" content="__CSP__">
 <title>Target sequence</title>
 <style>
 html, body { margin: 0; padding: 0; height: 100%; overflow: hidden; background: __BG__; }
@@ -136,10 +136,15 @@ if (m) { document.dispatchEvent(new KeyboardEvent("keydown", {code: m[1], key: m
 """
 
 
+#: the page's Content-Security-Policy: inline script and style only, no fetch of any kind
+CSP = ("default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; img-src 'none'; "
+       "connect-src 'none'; font-src 'none'; media-src 'none'; frame-src 'none'; form-action 'none'; base-uri 'none'")
+
+
 def page_html(schedule: Schedule) -> str:
     """The page's HTML text (everything inline)."""
     data = json.dumps(schedule.to_dict(), separators=(",", ":")).replace("</", "<\\/")
-    return (_PAGE.replace("__SCHEDULE__", data).replace("__BG__", schedule.colours["background"])
+    return (_PAGE.replace("__SCHEDULE__", data).replace("__CSP__", CSP).replace("__BG__", schedule.colours["background"])
             .replace("__DIST_CM__", f"{schedule.screen.viewing_distance_mm / 10:.0f}"))
 
 

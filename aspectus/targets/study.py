@@ -105,7 +105,7 @@ class ExclusionRule:
             raise ParameterError(f"exclusion rule gain_min ({self.gain_min}) must be below gain_max ({self.gain_max})")
 
     @classmethod
-    def parse(cls, text: str) -> "ExclusionRule":
+    def parse(cls, text: str) -> ExclusionRule:
         """From ``"max_accuracy_deg=2.5,max_loss_frac=0.2"`` (unnamed fields keep their defaults)."""
         kw = {}
         known = set(asdict(cls()))
