@@ -14,7 +14,7 @@ import pytest
 REPO = Path(__file__).resolve().parents[1]
 
 PUBLIC = ["aspectus", "aspectus.webcam", "aspectus.events", "aspectus.reference", "aspectus.validation",
-          "aspectus.studies", "aspectus.privacy", "aspectus.synth", "aspectus.events.detect"]
+          "aspectus.studies", "aspectus.privacy", "aspectus.synth", "aspectus.events.detect", "aspectus.targets"]
 
 
 @pytest.mark.parametrize("package", PUBLIC)

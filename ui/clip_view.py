@@ -253,6 +253,9 @@ class ClipView(QWidget):
         self.q_valid = QLabel()
         self.verdict = QLabel()
         self.verdict.setWordWrap(True)
+        self.targets_info = QLabel()  # the known-target check's figures, when the clip has one
+        self.targets_info.setWordWrap(True)
+        self.targets_info.hide()
         grid = QGridLayout()
         grid.setContentsMargins(0, 0, 0, 0)
         for i, (name, lab, tip) in enumerate((
@@ -275,6 +278,7 @@ class ClipView(QWidget):
         lay.addLayout(controls)
         lay.addLayout(grid)
         lay.addWidget(self.verdict)
+        lay.addWidget(self.targets_info)
 
         self._timer = QTimer(self)
         self._timer.timeout.connect(self._tick)
@@ -339,6 +343,20 @@ class ClipView(QWidget):
             else:
                 self.verdict.setText(f"<b>{'Usable' if usable else 'Not usable'}.</b> {verdict}")
             self.verdict.setStyleSheet(f"color: {colour};")
+
+    def set_target_check(self, doc: dict | None) -> None:
+        """Show the figures of the clip's known-target check (``target_check.json`` as read), or hide them."""
+        if not doc:
+            self.targets_info.clear()
+            self.targets_info.hide()
+            return
+        from aspectus.targets.check import summary_lines
+
+        lines = summary_lines(doc)
+        self.targets_info.setText("<b>Known-target check:</b> " + "<br>".join(lines))
+        self.targets_info.setToolTip("Gaze quality measured on the target sequence in this clip "
+                                     "(aspectus targets check); target_check.json in the clip's result folder")
+        self.targets_info.show()
 
     @property
     def position_s(self) -> float:

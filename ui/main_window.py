@@ -80,6 +80,7 @@ class MainWindow(QMainWindow):
     reanalysed = Signal(str)
     _clip_data = Signal(object)
     _save_failed = Signal(str)
+    _status_message = Signal(str)
 
     def __init__(self, *, settings: QSettings | None = None, worker_mode: str = "process", parent=None):
         super().__init__(parent)
@@ -270,6 +271,10 @@ class MainWindow(QMainWindow):
         self.act_run = act(r, "Process clips", lambda: self.process(), "Ctrl+R")
         self.act_run_sel = act(r, "Process selected clips", self.process_selected)
         self.act_cancel = act(r, "Cancel", self.cancel_run, "Esc")
+        r.addSeparator()
+        self.act_targets = act(r, "Make target sequence for the study's screen…", self.make_target_sequence_dialog,
+                               tip="Schedule, offline page and video of the known-target check")
+        self._status_message.connect(lambda m: self.statusBar().showMessage(m, 15000))
         v = mb.addMenu("&View")
         self.act_unblur = QAction("Show faces unblurred", self, checkable=True)
         self.act_unblur.toggled.connect(self.clip_view.unblur.setChecked)
@@ -278,6 +283,37 @@ class MainWindow(QMainWindow):
         v.addAction(self.params_dock.toggleViewAction())
         h = mb.addMenu("&Help")
         act(h, "About aspectus", self.about)
+
+    def make_target_sequence_dialog(self, *, exec_dialog: bool = True):
+        """Ask for the screen and a folder; write the target sequence there (the video in a thread)."""
+        import threading
+
+        from .targets_dialog import TargetSequenceDialog
+
+        screen = ((self.study.mappings or {}).get("last") or {}).get("screen") if self.study else None
+        folder = self.study.output_root() / "target_sequence" if self.study and self.study.path else None
+        dlg = TargetSequenceDialog(self, folder=folder, screen=screen)
+        if not exec_dialog:
+            return dlg
+        if not dlg.exec() or dlg.schedule is None:
+            return None
+        sched, out = dlg.schedule, dlg.out_dir
+        if not dlg.want_video:
+            self._status_message.emit(f"Target sequence written to {out} (schedule and page)")
+            return dlg
+
+        def work():
+            from aspectus.targets.page import write_video
+
+            try:
+                write_video(sched, out / "targets.mp4")
+                self._status_message.emit(f"Target sequence written to {out} (schedule, page and video)")
+            except Exception as exc:  # noqa: BLE001 - the schedule and the page are written already
+                self._status_message.emit(f"The target video could not be written: {exc}")
+
+        self._status_message.emit(f"Writing the target video into {out} …")
+        threading.Thread(target=work, name="target-video", daemon=True).start()
+        return dlg
 
     # ============================================================== study
     def current_clip(self) -> study_mod.StudyClip | None:
@@ -538,6 +574,9 @@ class MainWindow(QMainWindow):
         fov = float(self.study.process.get("fov_deg", 60.0)) if self.study.process else 60.0
         clip_path = self.study.clip_path(clip)
         self.clip_view.set_clip(clip_path if clip_path.exists() else None, summary=clip.summary, fov_deg=fov)
+        from aspectus.targets.check import read_check
+
+        self.clip_view.set_target_check(read_check(self.study.clip_out_dir(clip)))
         note = None
         if not clip_path.exists():
             note = f"The clip file is missing: {clip_path}"

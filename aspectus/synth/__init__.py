@@ -11,4 +11,6 @@ __getattr__, __dir__, __all__ = _attach(__name__, {
     "synth_trajectory": "aspectus.synth.trajectory",
     "Trajectory": "aspectus.synth.trajectory",
     "write_demo_reference": "aspectus.synth.lab_recording",
+    "schedule_trajectory": "aspectus.synth.target_gaze",
+    "render_target_clip": "aspectus.synth.target_gaze",
 })
