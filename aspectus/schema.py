@@ -1,7 +1,7 @@
 """The one samples schema, the events schema, and the coordinate frame.
 
 Coordinate frame (used for gaze *and* head pose, everywhere in aspectus)
------------------------------------------------------------------------
+------------------------------------------------------------------------
 3-D vectors are in the camera frame of OpenCV: origin at the camera's optical
 centre, ``x`` towards the right edge of the (unmirrored) picture, ``y`` towards
 its bottom edge, ``z`` forward, from the camera into the scene. Distances in

@@ -64,6 +64,20 @@ def read_reference(path, mapping: TableMapping | None = None, *,
         For a table, ``events`` comes from its event column (runs of equal
         labels), ``messages`` from event-column values that are not event
         types (e.g. a logged marker).
+
+    Examples
+    --------
+    >>> rec = read_reference(sample_clips / "lab_tracker" /
+    ...                      "sub-p01_ses-s01_task-reading_recording-eye1_physio.tsv.gz")
+    >>> round(rec.rate_hz, 3), len(rec.samples)
+    (250.0, 5313)
+    >>> rec.screen.width_mm, rec.screen.distance_mm, rec.screen.width_px
+    (531.0, 650.0, 1920)
+    >>> rec.samples[["t_s", "valid", "yaw_deg", "pitch_deg"]].head(3).round(3)
+         t_s  valid  yaw_deg  pitch_deg
+    0  0.000   True   -8.158      3.852
+    1  0.004   True   -8.407      3.939
+    2  0.008   True   -7.879      3.706
     """
     path = Path(path)
     for fmt in READERS:

@@ -256,6 +256,13 @@ def plan_batch(source, out_dir, *, params=None, extensions=VIDEO_EXTENSIONS, rec
     -------
     pandas.DataFrame
         Columns ``clip``, ``key``, ``action`` ("process", "skip" or "fail") and ``reason``.
+
+    Examples
+    --------
+    >>> plan_batch(sample_clips, tmp / "out")[["key", "action"]]
+                        key   action
+    0  linden_brook_p01_s01  process
+    1  linden_brook_p02_s01  process
     """
     jobs, rows, todo, _, _ = _prepare(source, Path(out_dir).resolve(), params=params, extensions=extensions,
                                       recursive=recursive, label_pattern=label_pattern, retry_failed=retry_failed,
@@ -396,6 +403,20 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
         The folder or manifest is unusable (no clips, bad manifest row).
     AspectusError
         Another run holds the output folder, or the scheduler is unreachable.
+
+    Examples
+    --------
+    A manifest with one demo clip and its labels (the shorter one, about
+    ten seconds on a laptop CPU):
+
+    >>> _ = (tmp / "study.csv").write_text("clip,participant,session\\n"
+    ...                                    f"{sample_clips / 'linden_brook_p02_s01.mp4'},p02,s01\\n")
+    >>> res = run_batch(tmp / "study.csv", tmp / "out", workers=1)
+    >>> res.status[["key", "status", "participant", "session"]]
+                        key status participant session
+    0  linden_brook_p02_s01   done         p02     s01
+    >>> sorted(p.name for p in (tmp / "out").iterdir() if p.is_file())
+    ['status.csv', 'study.json', 'study_features.csv', 'study_features.parquet']
     """
     from aspectus.studies.engines import DaskEngine, LocalEngine
 

@@ -628,14 +628,20 @@ def export_bids(results, out_root, *, task: str | None = None, name: str | None 
 
     Examples
     --------
-    Write the results of a batch run and read one recording back:
+    Export a batch output folder (``batch_folder``: two processed clips,
+    labelled p01/s01 and p02/s01) and read one recording back with the
+    BIDS reader:
 
-    >>> from aspectus.studies.bids_export import export_bids
+    >>> ex = export_bids(batch_folder, tmp / "bids", task="reading")
+    >>> [str(r.physio.relative_to(ex.root)) for r in ex.recordings]  # doctest: +NORMALIZE_WHITESPACE
+    ['sub-p01/ses-s01/beh/sub-p01_ses-s01_task-reading_recording-cyclopean_physio.tsv.gz',
+     'sub-p02/ses-s01/beh/sub-p02_ses-s01_task-reading_recording-cyclopean_physio.tsv.gz']
     >>> from aspectus.reference.bids import read_bids_physio
-    >>> ex = export_bids(batch_folder, tmp / "bids")                  # doctest: +SKIP
-    >>> rec = read_bids_physio(ex.recordings[0].physio)                # doctest: +SKIP
-    >>> rec.samples.columns.tolist()                                   # doctest: +SKIP
-    ['t_s', 'valid', 'yaw_deg', 'pitch_deg', 'blink']
+    >>> rec = read_bids_physio(ex.recordings[0].physio)
+    >>> rec.samples.columns.tolist(), rec.meta["SampleCoordinateSystem"]
+    (['t_s', 'valid', 'yaw_deg', 'pitch_deg', 'blink'], 'gaze-in-world')
+    >>> sorted(rec.events["type"].unique())
+    ['blink', 'fixation', 'loss', 'saccade']
     """
     root = Path(out_root)
     clips, skipped, default_name = find_results(results)

@@ -306,6 +306,14 @@ def synth_trajectory(*, duration_s: float, rate_hz: float = 240.0, seed: int = 0
     15 %, opening 50 % of it); ``blink`` is true while the lids are at least
     half closed (about 115-230 ms; blink duration 100-400 ms is common
     practice, from memory). The gaze keeps its fixation value under a blink.
+
+    Examples
+    --------
+    >>> tr = synth_trajectory(duration_s=10.0, seed=1)
+    >>> len(tr.samples), len(tr.fixations), len(tr.saccades), len(tr.blinks)
+    (2401, 41, 40, 1)
+    >>> tr.samples.columns.tolist()[:4]
+    ['t_s', 'yaw_deg', 'pitch_deg', 'blink']
     """
     _check_positive("duration_s", duration_s)
     _check_positive("rate_hz", rate_hz)

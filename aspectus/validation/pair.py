@@ -383,6 +383,25 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     Returns
     -------
     ValidationResult
+
+    Examples
+    --------
+    Any BIDS eye-tracking recording is a reference - also a clip's own BIDS
+    export, which therefore agrees perfectly with the clip (the tutorial
+    "validate a pilot" uses the demo's lab recording):
+
+    >>> from aspectus.studies.bids_export import export_bids
+    >>> ex = export_bids(batch_folder, tmp / "bids")
+    >>> res = validate_pair(batch_folder / "linden_brook_p01_s01", ex.recordings[0].physio, tmp / "val",
+    ...                     params=ValidateParams(window_s=2.0, step_s=2.0), figures=False)
+    >>> res.alignment.offset_s
+    0.0
+    >>> res.agreement.query("scope == 'window'").set_index("feature").loc[
+    ...     ["fixation_count", "fixation_duration_mean_ms"], ["n", "pearson_r", "icc", "ba_bias"]]
+                               n  pearson_r  icc  ba_bias
+    feature
+    fixation_count             4        1.0  1.0      0.0
+    fixation_duration_mean_ms  4        1.0  1.0      0.0
     """
     params = params or ValidateParams()
     if write and out_dir is None:

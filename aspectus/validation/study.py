@@ -129,6 +129,24 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
     with its error and the others go on. Subjects of the repeated-measures
     statistics are participants: two sessions of one participant count as one
     subject.
+
+    Examples
+    --------
+    Folder mode: the clip results of a batch (``batch_folder``) against a
+    folder of BIDS recordings - here the batch's own BIDS export, so the
+    agreement is perfect (the participants and sessions are paired by their
+    labels):
+
+    >>> from aspectus.studies.bids_export import export_bids
+    >>> from aspectus.validation.pair import ValidateParams
+    >>> _ = export_bids(batch_folder, tmp / "bids")
+    >>> res = validate_study(batch_folder, tmp / "study", references=tmp / "bids",
+    ...                      params=ValidateParams(window_s=2.0, step_s=2.0), figures=False)
+    >>> sorted(res.results), res.failures
+    (['p01_s01_webcam', 'p02_s01_webcam'], {})
+    >>> res.pooled.query("scope == 'window' and feature == 'fixation_count'")[["n", "pearson_r", "icc"]]
+       n  pearson_r  icc
+    0  8        1.0  1.0
     """
     from aspectus.atomic import write_bytes, write_csv, write_json, write_text
     from aspectus.validation.report import render_study_report, summary_html, summary_markdown

@@ -10,13 +10,13 @@ in ``.next/`` beside the earlier one and moved over it only when complete,
 complete result valid, and a run.json with a matching input hash and
 parameter hash means the clip is complete; see :func:`recover_output_dir`):
 
-==================  =========================================================
-samples.parquet     the gaze samples table (aspectus.schema), the cache
-samples.csv         the same, for spreadsheets and statistics packages
-events.csv/.parquet fixations, saccades, blinks, data loss
+=====================  =========================================================
+samples.parquet        the gaze samples table (aspectus.schema), the cache
+samples.csv            the same, for spreadsheets and statistics packages
+events.csv/.parquet    fixations, saccades, blinks, data loss
 features.csv/.parquet  per clip, per window, per segment
-run.json            sidecar: parameters, versions, input hash, quality, output checksums
-==================  =========================================================
+run.json               sidecar: parameters, versions, input hash, quality, output checksums
+=====================  =========================================================
 
 Decoding runs in a background thread (:class:`aspectus.webcam.video.FramePrefetcher`)
 so it overlaps the face mesh; the per-frame head pose and iris refinement run
@@ -555,7 +555,17 @@ class CacheError(AspectusInputError):
 
 
 def load_samples(out_dir, *, verify: bool = True) -> pd.DataFrame:
-    """Read a clip's cached samples table, checking it against run.json's checksum."""
+    """Read a clip's cached samples table, checking it against run.json's checksum.
+
+    Examples
+    --------
+    >>> samples = load_samples(batch_folder / "linden_brook_p01_s01")
+    >>> samples[["t_s", "valid", "yaw_deg", "pitch_deg"]].head(3).round(3)
+         t_s  valid  yaw_deg  pitch_deg
+    0  0.000   True    0.017     -0.070
+    1  0.033   True    0.041     -0.011
+    2  0.067   True    0.017     -0.044
+    """
     out_dir = Path(out_dir)
     p = out_dir / "samples.parquet"
     if not p.exists():
@@ -637,6 +647,18 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
     Raises
     ------
     VideoError, NoFaceError, AspectusInputError
+
+    Examples
+    --------
+    Process the shorter demo clip (12 s; about ten seconds on a laptop CPU):
+
+    >>> res = process_clip(sample_clips / "linden_brook_p02_s01.mp4", tmp / "p02")
+    >>> res.summary["usable"], res.summary["frames"]
+    (True, 360)
+    >>> sorted(p.name for p in (tmp / "p02").glob("*.*"))
+    ['events.csv', 'events.parquet', 'features.csv', 'features.parquet', 'run.json', 'samples.csv', 'samples.parquet']
+    >>> res.samples[["t_s", "valid", "yaw_deg", "pitch_deg"]].shape
+    (360, 4)
     """
     from aspectus.events.analysis import run_analysis
 
@@ -746,6 +768,16 @@ def reanalyse(out_dir, analysis_params, *, segments=None, write: bool = True):
     No landmarking: this takes well under a second for a 10-minute clip. With
     ``write`` the clip's events/features files and run.json are updated
     (atomically).
+
+    Examples
+    --------
+    Run another detector on a processed clip's samples, without landmarking again
+    (``batch_folder`` holds clip results):
+
+    >>> from aspectus.events.analysis import AnalysisParams
+    >>> res = reanalyse(batch_folder / "linden_brook_p01_s01", AnalysisParams(detector="ivt"), write=False)
+    >>> sorted(res.events["type"].unique())
+    ['blink', 'fixation', 'loss', 'saccade']
     """
     from aspectus.events.analysis import run_analysis, write_analysis
 
