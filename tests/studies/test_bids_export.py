@@ -397,3 +397,19 @@ def test_parquet_outputs_carry_units_in_their_schema(exported):
             assert table_units[col] == unit
         assert b"unit" not in (schema.field("valid" if name == "samples.parquet" else
                                             "type" if name == "events.parquet" else "scope").metadata or {})
+
+
+def test_a_study_file_is_exported_with_labels_from_its_clip_names(tmp_path):
+    from aspectus.studies.project import new_study
+
+    study = new_study(path=tmp_path / "pilot.aspectus-study.json", name="Reading pilot", output_dir="results")
+    for stem, seed in (("anna_s1", 1), ("anna_s2", 2), ("ben_s1", 3)):
+        (tmp_path / f"{stem}.mp4").write_bytes(b"not decoded by the export")
+        study.add_clip(tmp_path / f"{stem}.mp4")
+        if stem != "ben_s1":  # ben's clip was never processed
+            write_clip_results(tmp_path / "results" / stem, constructed_samples(seed=seed))
+    study.save()
+    ex = export_bids(study.path, tmp_path / "bids")
+    assert sorted((r.subject, r.session) for r in ex.recordings) == [("anna", "s1"), ("anna", "s2")]
+    assert ex.skipped == [("ben_s1", "not processed (no run.json)")]
+    assert json.loads((ex.root / "dataset_description.json").read_text())["Name"].startswith("Reading pilot")
