@@ -105,6 +105,7 @@ class MainWindow(QMainWindow):
         self.reanalyser.done.connect(self._on_reanalysed)
         self.reanalyser.failed.connect(self._on_reanalyse_failed)
         self.provider = _Provider(self)
+        self.setObjectName("aspectus_main")
         self.setAcceptDrops(True)
         self.resize(1366, 768)
         self.setMinimumSize(1000, 640)
@@ -282,6 +283,8 @@ class MainWindow(QMainWindow):
         v.addAction(self.act_unblur)
         v.addAction(self.params_dock.toggleViewAction())
         h = mb.addMenu("&Help")
+        self.act_guide = act(h, "&User guide", self.show_guide, QKeySequence.HelpContents,
+                             tip="A short guide to running a pilot study with aspectus (offline)")
         act(h, "About aspectus", self.about)
 
     def make_target_sequence_dialog(self, *, exec_dialog: bool = True):
@@ -903,6 +906,16 @@ class MainWindow(QMainWindow):
         c = self.current_clip()
         if c is not None and self.study.clip_out_dir(c).is_dir():
             QDesktopServices.openUrl(QUrl.fromLocalFile(str(self.study.clip_out_dir(c))))
+
+    def show_guide(self):
+        """Open the bundled user guide (non-modal; one window however often it is asked for)."""
+        from .guide import GuideDialog
+
+        if getattr(self, "guide", None) is None:
+            self.guide = GuideDialog(self)
+        self.guide.show()
+        self.guide.raise_()
+        return self.guide
 
     def about(self):
         QMessageBox.about(self, "About aspectus",

@@ -36,62 +36,140 @@ class Spec:
 
 
 DETECTOR_TEXT = {
-    "i2mc": "I2MC – two-means clustering (Hessels et al. 2017)",
-    "idt": "I-DT – dispersion threshold (Salvucci & Goldberg 2000)",
-    "ivt": "I-VT – velocity threshold, data-driven",
+    "i2mc": "I2MC (clustering)",
+    "idt": "I-DT (spread)",
+    "ivt": "I-VT (speed)",
+}
+DETECTOR_HELP = {
+    "i2mc": "I2MC: two-means clustering (Hessels et al. 2017)",
+    "idt": "I-DT: dispersion (spread) threshold (Salvucci & Goldberg 2000)",
+    "ivt": "I-VT: velocity (speed) threshold, derived from the data (Engbert & Kliegl 2003; Nyström & Holmqvist 2010)",
 }
 
+#: marks a parameter whose value differs from the library's default
+CHANGED_MARK = "● "
+
 SPECS: dict[str, Spec] = {
-    "detector": Spec("Detector", help="Method that finds fixations in the gaze signal. I2MC copes best with the "
-                     "noise and low frame rate of webcam clips.", group="detection"),
-    "min_fixation_ms": Spec("Shortest fixation", "ms", 20, 1000, 10, help="Fixations shorter than this are "
+    "detector": Spec("Method", help="How fixations are found in the gaze signal. I-DT (the default) kept fixation "
+                     "counts and durations closest to hand coding on webcam-like data.", group="detection"),
+    "min_fixation_ms": Spec("Shortest fixation kept", "ms", 20, 1000, 10, help="Fixations shorter than this are "
                             "dropped after merging (common practice: 60-100 ms).", group="detection"),
-    "merge_gap_ms": Spec("Merge fixations closer than", "ms", 0, 500, 5, help="Fixations separated by at most "
-                         "this much time and the distance below are merged into one (Komogortsev et al. 2010).",
-                         group="detection"),
-    "merge_distance_deg": Spec("… and nearer than", "°", 0, 10, 0.1, 1, help="Angular distance for merging.",
-                               group="detection"),
-    "saccade_max_ms": Spec("Longest saccade", "ms", 20, 1000, 10, help="A longer interval between two "
-                           "fixations is not called a saccade.", group="detection"),
+    "merge_gap_ms": Spec("Join fixations less than … apart", "ms", 0, 500, 5, help="Two fixations separated by at "
+                         "most this much time, and close enough in angle (next rows), are joined into one "
+                         "(Komogortsev et al. 2010).", group="detection"),
+    "merge_distance_deg": Spec("… and nearer than", "°", 0, 10, 0.1, 2, help="Largest angle between two fixations "
+                               "that are joined.", group="detection"),
+    "merge_noise_factor": Spec("… or nearer than noise ×", "× noise", 0, 10, 0.1, 2, help="The joining angle grows "
+                               "with the clip's noise: the larger of the angle above and this many times the "
+                               "sample-to-sample noise. 0 switches it off.", group="detection"),
+    "merge_alpha": Spec("Join when positions not different at level", "", 0, 0.5, 0.01, 3, help="Neighbouring "
+                        "fixations are also joined when their mean positions do not differ at this significance "
+                        "level, given the noise inside them (noisy webcam gaze splits fixations into fragments). "
+                        "0 switches it off.", group="detection"),
+    "saccade_max_ms": Spec("Longest gap still called a saccade", "ms", 20, 1000, 10, help="Between two fixations "
+                           "closer in time than this a saccade is recorded; a longer gap is not a saccade.",
+                           group="detection"),
+    "edge_speed_factor": Spec("Trim fixation edges faster than", "× median speed", 0, 20, 0.05, 2, help="Samples at "
+                              "a fixation's start or end moving faster than this many times the clip's median gaze "
+                              "speed belong to the saccade and are cut off. 0 switches it off.", group="detection"),
+    "edge_velocity_window_ms": Spec("Speed measured over", "ms", 0, 200, 5, help="Time span over which that gaze "
+                                    "speed is measured (at least 3 samples).", group="detection"),
     "gap_fill_max_ms": Spec("Fill gaps up to", "ms", 0, 500, 5, help="Shorter losses of the signal are "
                             "interpolated; longer ones count as data loss.", group="cleanup"),
     "interpolation": Spec("Gap filling", choices=(("steffen", "Steffen (monotone)"), ("linear", "linear")),
-                          group="cleanup"),
+                          help="How short gaps are filled.", group="cleanup"),
     "smoothing": Spec("Smoothing", choices=((None, "none"), ("median", "median filter"),
                                             ("savgol", "Savitzky-Golay")), group="cleanup",
                       help="Optional smoothing before detection (centred, no lag)."),
-    "smoothing_window_ms": Spec("Smoothing window", "ms", 20, 1000, 10, group="cleanup"),
-    "window_s": Spec("Feature window length", "s", 1, 3600, 1, 1, help="Features are also computed in fixed "
+    "smoothing_window_ms": Spec("Smoothing window", "ms", 20, 1000, 10, help="Length of the smoothing filter "
+                                "(used only when smoothing is on).", group="cleanup"),
+    "window_s": Spec("Feature window length", "s", 0.5, 3600, 1, 1, help="Features are also computed in fixed "
                      "windows of this length.", group="windows"),
-    "step_s": Spec("Window step", "s", 1, 3600, 1, 1, help="Start-to-start distance of the fixed windows "
+    "step_s": Spec("Window step", "s", 0.5, 3600, 1, 1, help="Start-to-start distance of the fixed windows "
                    "(equal to the length: windows do not overlap).", group="windows"),
-    "idt_dispersion_deg": Spec("Dispersion threshold", "°", 0.1, 20, 0.1, 1, group="idt",
-                               optional="adapt to the clip's noise",
-                               help="Largest (max-min yaw) + (max-min pitch) inside a fixation."),
-    "idt_noise_factor": Spec("Adaptive threshold", "× noise", 1, 20, 0.5, 1, group="idt",
-                             help="Threshold in units of the clip's RMS-S2S noise."),
-    "idt_min_dispersion_deg": Spec("Smallest adaptive threshold", "°", 0.1, 10, 0.1, 1, group="idt"),
-    "idt_min_duration_ms": Spec("Initial window", "ms", 20, 1000, 10, group="idt"),
-    "ivt_method": Spec("Threshold rule", choices=(("nh2010", "Nyström & Holmqvist 2010"),
-                                                  ("ek2003", "Engbert & Kliegl 2003")), group="ivt"),
-    "ivt_velocity_window_ms": Spec("Velocity window", "ms", 5, 300, 5, group="ivt"),
-    "ivt_initial_threshold_deg_s": Spec("Initial threshold", "°/s", 10, 2000, 10, group="ivt"),
-    "ivt_sd_factor": Spec("Peak threshold", "SD", 1, 20, 0.5, 1, group="ivt"),
-    "ivt_onset_sd_factor": Spec("Onset threshold", "SD", 0.5, 20, 0.5, 1, group="ivt"),
-    "ivt_ek_lambda": Spec("λ (Engbert & Kliegl)", "× SD", 1, 20, 0.5, 1, group="ivt"),
-    "i2mc_window_ms": Spec("Clustering window", "ms", 50, 2000, 10, group="i2mc"),
-    "i2mc_step_ms": Spec("Window step", "ms", 5, 500, 5, group="i2mc"),
-    "i2mc_cutoff_sd": Spec("Weight cut-off", "SD", 0.5, 10, 0.1, 1, group="i2mc"),
-    "i2mc_onoffset_mad": Spec("Edge trimming", "MAD", 0.5, 10, 0.1, 1, group="i2mc"),
+    "idt_dispersion_deg": Spec("Spread threshold", "°", 0.1, 20, 0.1, 1, group="idt",
+                               optional="adapt to each clip's noise",
+                               help="Largest spread inside a fixation: (max-min yaw) + (max-min pitch). When "
+                               "adapted, each clip gets its own threshold (rows below); run.json records it."),
+    "idt_noise_factor": Spec("Adapted threshold: noise ×", "× noise", 1, 20, 0.5, 1, group="idt",
+                             help="The adapted threshold in units of the clip's sample-to-sample (RMS-S2S) noise."),
+    "idt_min_dispersion_deg": Spec("Adapted threshold at least", "°", 0.1, 10, 0.1, 1, group="idt",
+                                   help="Lower bound of the adapted threshold."),
+    "idt_min_duration_ms": Spec("Shortest fixation searched for", "ms", 20, 1000, 10, group="idt",
+                                help="I-DT's duration threshold: the window that must stay within the spread "
+                                "threshold to start a fixation."),
+    "ivt_method": Spec("Speed threshold rule", choices=(("nh2010", "Nyström & Holmqvist 2010"),
+                                                        ("ek2003", "Engbert & Kliegl 2003")), group="ivt",
+                       help="How the saccade speed threshold is derived from the data."),
+    "ivt_velocity_window_ms": Spec("Speed measured over", "ms", 5, 300, 5, group="ivt",
+                                   help="Savitzky-Golay derivative window."),
+    "ivt_initial_threshold_deg_s": Spec("Starting threshold", "°/s", 10, 2000, 10, group="ivt",
+                                        help="Where the Nyström & Holmqvist iteration starts."),
+    "ivt_sd_factor": Spec("Peak threshold", "SD", 1, 20, 0.5, 1, group="ivt",
+                          help="Saccade peak: this many SDs above the mean speed (Nyström & Holmqvist)."),
+    "ivt_onset_sd_factor": Spec("Onset threshold", "SD", 0.5, 20, 0.5, 1, group="ivt",
+                                help="Saccade start and end: this many SDs above the mean speed."),
+    "ivt_ek_lambda": Spec("Threshold multiplier λ", "× SD", 1, 20, 0.5, 1, group="ivt",
+                          help="Engbert & Kliegl: multiple of the median-based speed SD."),
+    "i2mc_window_ms": Spec("Clustering window", "ms", 50, 2000, 10, group="i2mc",
+                           help="Length of the moving window in which two clusters are fitted."),
+    "i2mc_step_ms": Spec("Window step", "ms", 5, 500, 5, group="i2mc", help="Step of that moving window."),
+    "i2mc_cutoff_sd": Spec("Weight cut-off", "SD", 0.5, 10, 0.1, 1, group="i2mc",
+                           help="Fixation boundaries where the clustering weight exceeds mean + this many SDs."),
+    "i2mc_onoffset_mad": Spec("Edge trimming", "MAD", 0.5, 10, 0.1, 1, group="i2mc",
+                              help="Samples further than this many MADs from the fixation's median are trimmed "
+                              "from its edges."),
     "i2mc_downsamples": Spec("Downsampling factors", group="i2mc", help="Comma-separated whole numbers."),
-    "i2mc_min_window_samples": Spec("Fewest samples per window", "", 2, 100, 1, group="i2mc"),
-    "i2mc_chebyshev_order": Spec("Anti-alias filter order", "", 1, 20, 1, group="i2mc"),
-    "i2mc_kmeans_iterations": Spec("Clustering iterations", "", 1, 100, 1, group="i2mc"),
+    "i2mc_min_window_samples": Spec("Fewest samples per window", "", 2, 100, 1, group="i2mc",
+                                    help="Windows with fewer valid samples are skipped."),
+    "i2mc_chebyshev_order": Spec("Anti-alias filter order", "", 1, 20, 1, group="i2mc",
+                                 help="Order of the Chebyshev filter before downsampling."),
+    "i2mc_kmeans_iterations": Spec("Clustering iterations", "", 1, 100, 1, group="i2mc",
+                                   help="Iterations of two-means clustering per window."),
 }
 
 _GROUP_TITLES = (("detection", "Fixation detection"), ("idt", "I-DT settings"), ("ivt", "I-VT settings"),
                  ("i2mc", "I2MC settings"), ("cleanup", "Gaps and smoothing"), ("windows", "Feature windows"),
                  ("more", "More parameters"))
+
+
+def _decimals_for(value) -> int:
+    """Decimals a spin box needs to show ``value`` exactly (so a default is never rounded)."""
+    if not isinstance(value, float):
+        return 0
+    for d in range(0, 7):
+        if abs(round(value, d) - value) < 1e-12:
+            return d
+    return 6
+
+
+def fmt_value(value, spec: Spec) -> str:
+    """A parameter value as the researcher reads it, with its unit."""
+    if value is None:
+        return spec.optional or "automatic"
+    if spec.choices:
+        return next((t for v, t in spec.choices if v == value), str(value))
+    if isinstance(value, (list, tuple)):
+        return ", ".join(str(x) for x in value)
+    if isinstance(value, bool):
+        return "on" if value else "off"
+    txt = f"{value:g}" if isinstance(value, float) else str(value)
+    if not spec.unit:
+        return txt
+    return f"{txt}{spec.unit}" if spec.unit == "°" else f"{txt} {spec.unit}"
+
+
+def tooltip_text(name: str, spec: Spec, default) -> str:
+    """What the parameter does, its unit, its default and its limits (and the library name for scripts)."""
+    lines = [spec.help] if spec.help else []
+    if spec.unit:
+        lines.append(f"Unit: {spec.unit}.")
+    lines.append(f"Default: {fmt_value(default, spec)}.")
+    if not spec.choices and not isinstance(default, (list, tuple, bool)):
+        lo, hi = (f"{spec.lo:g}", f"{spec.hi:g}")
+        lines.append(f"Allowed: {lo} to {hi}" + (f" {spec.unit}." if spec.unit else "."))
+    lines.append(f"Name in scripts and run.json: {name}.")
+    return "\n".join(lines)
 
 
 def _narrow(w: QWidget) -> None:
@@ -134,7 +212,14 @@ class ParamsPanel(QWidget):
         from aspectus.events.detect import DETECTORS
 
         self._cls = AnalysisParams
+        from aspectus.webcam.pipeline import ProcessParams
+
+        # the one source of defaults: the library's own parameter classes
         self._defaults = AnalysisParams().to_dict()
+        pdef = ProcessParams()
+        self._process_defaults = {"fov_deg": float(pdef.fov_deg), "face": pdef.face, "max_faces": int(pdef.max_faces)}
+        self._labels: dict[str, QLabel] = {}
+        self._specs: dict[str, Spec] = {}
         self._fields = {f.name: f for f in dataclasses.fields(AnalysisParams)}
         self._widgets: dict[str, tuple] = {}
         self._loading = False
@@ -150,7 +235,9 @@ class ParamsPanel(QWidget):
         inner = QWidget()
         v = QVBoxLayout(inner)
         v.setContentsMargins(2, 2, 2, 2)
-        intro = QLabel("Changes to these re-run detection on the cached gaze samples at once.")
+        intro = QLabel("Changes to these re-run detection on the cached gaze samples at once. "
+                       f"{CHANGED_MARK.strip()} marks a value that differs from the default; hover over a name "
+                       "for what it does.")
         intro.setWordWrap(True)
         intro.setStyleSheet("color: #555;")
         v.addWidget(intro)
@@ -167,13 +254,23 @@ class ParamsPanel(QWidget):
             default = self._defaults[name]
             spec = SPECS.get(name) or _guess_spec(name, default)
             if name == "detector":
-                spec = dataclasses.replace(spec, choices=tuple((d, DETECTOR_TEXT.get(d, d)) for d in DETECTORS))
+                spec = dataclasses.replace(
+                    spec, choices=tuple((d, DETECTOR_TEXT.get(d, d)) for d in DETECTORS),
+                    help=spec.help + " " + "; ".join(DETECTOR_HELP.get(d, d) for d in DETECTORS) + ".")
+            if spec.decimals < _decimals_for(default):
+                spec = dataclasses.replace(spec, decimals=_decimals_for(default))
+            self._specs[name] = spec
             w = self._make_widget(name, spec, default)
             lab = QLabel(spec.label)
-            lab.setToolTip(spec.help)
+            lab.setObjectName(f"param_label_{name}")
             lab.setWordWrap(True)
-            w.setToolTip(w.toolTip() or spec.help)
+            tip = tooltip_text(name, spec, default)
+            lab.setToolTip(tip)
+            w.setToolTip(tip)
+            for child in w.findChildren(QWidget):
+                child.setToolTip(tip)
             _narrow(w)
+            self._labels[name] = lab
             forms[spec.group].addRow(lab, w)
         # segments of the current clip
         seg_box = QGroupBox("Task segments of this clip")
@@ -201,28 +298,41 @@ class ParamsPanel(QWidget):
         self.fov.setRange(20, 120)
         self.fov.setDecimals(0)
         self.fov.setSuffix(" °")
-        self.fov.setValue(60)
-        self.fov.setToolTip("Assumed horizontal field of view of the webcam (laptop webcams: about 60°)")
+        pd_ = self._process_defaults
+        self.fov.setValue(pd_["fov_deg"])
+        self.fov.setToolTip("Assumed horizontal field of view of the webcam (laptop webcams: about 60°).\n"
+                            f"Unit: °. Default: {pd_['fov_deg']:g}°. Name in scripts and run.json: fov_deg.")
         self.face = QComboBox()
         self.face.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
         self.face.setMinimumContentsLength(10)
         self.face.addItem("the largest face", "largest")
         for i in range(4):
             self.face.addItem(f"face {i + 1} from the left", f"index:{i}")
-        self.face.setToolTip("Whose face to follow when more than one is in the picture")
+        self.face.setCurrentIndex(max(0, self.face.findData(pd_["face"])))
+        self.face.setToolTip("Whose face to follow when more than one is in the picture.\n"
+                             "Default: the largest face. Name in scripts and run.json: face.")
         self.max_faces = QSpinBox()
         self.max_faces.setRange(1, 10)
-        self.max_faces.setValue(2)
+        self.max_faces.setValue(pd_["max_faces"])
+        self.max_faces.setToolTip("How many faces the face mesh looks for in each frame (a classmate behind the "
+                                  f"student is a second face).\nDefault: {pd_['max_faces']}. Allowed: 1 to 10. "
+                                  "Name in scripts and run.json: max_faces.")
         for w in (self.fov, self.face, self.max_faces):
             _narrow(w)
-        pf.addRow("Camera field of view", self.fov)
-        pf.addRow("Follow", self.face)
-        pf.addRow("Faces to look for", self.max_faces)
+        for key, text, w in (("fov_deg", "Camera field of view", self.fov), ("face", "Follow", self.face),
+                             ("max_faces", "Faces to look for", self.max_faces)):
+            lab = QLabel(text)
+            lab.setObjectName(f"param_label_{key}")
+            lab.setWordWrap(True)
+            lab.setToolTip(w.toolTip())
+            self._labels[key] = lab
+            pf.addRow(lab, w)
         for w in (self.fov, self.max_faces):
             w.valueChanged.connect(self._emit_process)
         self.face.currentIndexChanged.connect(self._emit_process)
 
         self.defaults_btn = QPushButton("Restore defaults")
+        self.defaults_btn.setToolTip("Set every parameter on this panel back to the default")
         self.defaults_btn.clicked.connect(self.restore_defaults)
 
         for key, _t in _GROUP_TITLES:
@@ -240,7 +350,7 @@ class ParamsPanel(QWidget):
         lay.setContentsMargins(0, 0, 0, 0)
         lay.addWidget(self.message)
         lay.addWidget(scroll, 1)
-        self._show_detector_groups()
+        self.set_values({}, {})  # a new panel shows the defaults (never a spin box's lower limit)
 
     # -------------------------------------------------------------- widgets
     def _make_widget(self, name, spec: Spec, default):
@@ -282,7 +392,7 @@ class ParamsPanel(QWidget):
         sp.valueChanged.connect(self._changed)
         if spec.optional is not None or default is None:
             auto = QCheckBox(spec.optional or "automatic")
-            auto.toggled.connect(lambda on, s=sp: s.setEnabled(not on))
+            auto.toggled.connect(lambda on, s=sp: s.setVisible(not on))
             auto.toggled.connect(self._changed)
             box = QWidget()
             hl = QVBoxLayout(box)
@@ -319,22 +429,59 @@ class ParamsPanel(QWidget):
                     w[1].setChecked(bool(v))
                 elif kind == "optional":
                     w[2].setChecked(v is None)
-                    w[1].setEnabled(v is not None)
+                    w[1].setVisible(v is not None)
                     if v is not None:
                         w[1].setValue(float(v))
-                    elif not w[1].value():
-                        w[1].setValue(1.0)
                 else:
                     w[1].setValue(v)
-            p = process or {}
-            self.fov.setValue(float(p.get("fov_deg", 60.0)))
-            i = self.face.findData(p.get("face", "largest"))
+            p = dict(self._process_defaults)
+            p.update({k: v for k, v in (process or {}).items() if k in p and v is not None})
+            self.fov.setValue(float(p["fov_deg"]))
+            i = self.face.findData(p["face"])
             self.face.setCurrentIndex(max(i, 0))
-            self.max_faces.setValue(int(p.get("max_faces", 2)))
+            self.max_faces.setValue(int(p["max_faces"]))
         finally:
             self._loading = False
         self._show_detector_groups()
+        self.update_markers()
         self.message.setText("")
+
+    def defaults(self) -> dict:
+        """The library's defaults (AnalysisParams), as the panel shows them."""
+        return dict(self._defaults)
+
+    def process_defaults(self) -> dict:
+        return dict(self._process_defaults)
+
+    def changed_names(self) -> list[str]:
+        """Parameters whose shown value differs from the library's default."""
+        vals = self.values()
+        out = [n for n in self._widgets if not _same(vals[n], self._defaults[n])]
+        pv = self.process_values()
+        out += [k for k, v in pv.items() if not _same(v, self._process_defaults[k])]
+        return out
+
+    def update_markers(self) -> None:
+        """Mark every parameter that differs from its default (bullet, bold, tooltip says from what)."""
+        changed = set(self.changed_names())
+        for name, lab in self._labels.items():
+            spec = self._specs.get(name)
+            base = spec.label if spec is not None else lab.property("base_text") or lab.text()
+            if lab.property("base_text") is None:
+                lab.setProperty("base_text", base)
+                lab.setProperty("base_tip", lab.toolTip())
+            base = lab.property("base_text")
+            on = name in changed
+            lab.setText(CHANGED_MARK + base if on else base)
+            font = lab.font()
+            font.setBold(on)
+            lab.setFont(font)
+            tip = lab.property("base_tip")
+            if on:
+                dflt = self._defaults.get(name, self._process_defaults.get(name))
+                shown = fmt_value(dflt, spec) if spec is not None else str(dflt)
+                tip = f"Changed from the default ({shown}).\n" + tip
+            lab.setToolTip(tip)
 
     def values(self) -> dict:
         """The form as an AnalysisParams dict (not validated)."""
@@ -394,6 +541,7 @@ class ParamsPanel(QWidget):
 
     def _changed(self, *_):
         if not self._loading:
+            self.update_markers()
             self._debounce.start()
 
     def _emit_analysis(self):
@@ -407,4 +555,13 @@ class ParamsPanel(QWidget):
 
     def _emit_process(self, *_):
         if not self._loading:
+            self.update_markers()
             self.process_changed.emit(self.process_values())
+
+
+def _same(a, b) -> bool:
+    if isinstance(a, (list, tuple)) and isinstance(b, (list, tuple)):
+        return list(a) == list(b)
+    if isinstance(a, (int, float)) and isinstance(b, (int, float)) and not isinstance(a, bool):
+        return abs(float(a) - float(b)) < 1e-9
+    return a == b

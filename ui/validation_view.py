@@ -57,6 +57,7 @@ class ValidationOutcome:
     pairs: pd.DataFrame = field(default_factory=pd.DataFrame)
     result: object = None
     offset_given: bool = False
+    reference_rel: str | None = None
 
 
 class ValidationView(QWidget):
@@ -180,11 +181,23 @@ class ValidationView(QWidget):
     def show_clip(self, clip) -> None:
         self.clip = clip
         self.outcome = None
+        self.saved_outcome = None
         self._plot_pairs = pd.DataFrame()
         self.model.set_frame(pd.DataFrame())
         self.feature_box.clear()
         self.offset_label.setText("")
         self.status.setText("")
+        if clip is not None and self.study is not None and clip.validation:
+            saved = load_outcome(self.study.clip_out_dir(clip))
+            ref = clip.reference.path if clip.reference else None
+            if saved is not None and saved.get("reference") == ref:
+                self.saved_outcome = saved
+                self.offset_label.setText(
+                    f"<b>Earlier comparison</b> ({saved.get('saved_at', '')}): the reference recording starts at "
+                    f"{saved['offset_s']:+.3f} s on the clip's clock. {saved.get('offset_note', '')} "
+                    "Press Compare to compute it again (and to export the report).")
+                self._show_table(saved["table"])
+                self._show_pairs(saved["pairs"])
         self._draw()
         self._update()
 
@@ -223,6 +236,7 @@ class ValidationView(QWidget):
                     segments=s.resolve(self.clip.segments) if self.clip.segments else None,
                     offset_s=float(self.offset_spin.value()) if self.manual_offset.isChecked() else None)
         key = self.clip.stem
+        ref_rel = self.clip.reference.path
         self.status.setText("Comparing…")
         self.compare_btn.setEnabled(False)
 
@@ -232,6 +246,11 @@ class ValidationView(QWidget):
             except Exception as exc:  # noqa: BLE001 - shown in the view
                 self._err.emit(key, str(exc))
                 return
+            out.reference_rel = ref_rel
+            try:
+                save_outcome(args["out_dir"], out)
+            except OSError as exc:  # shown, but the result is still there to look at
+                out.offset_note += f" (Not saved for the next session: {exc})"
             self._done.emit(key, out)
 
         threading.Thread(target=work, name="aspectus-validate", daemon=True).start()
@@ -361,7 +380,7 @@ class ValidationView(QWidget):
         compared = self.study.find(key) if self.study is not None else None
         if compared is not None:
             compared.validation = {"offset_s": outcome.offset_s, "features": int(len(outcome.table)),
-                                   "offset_given": bool(outcome.offset_given)}
+                                   "offset_given": bool(outcome.offset_given), "saved": SAVED_DIR}
             if self.window is not None:
                 self.window._autosave()
         if self.clip is None or self.clip.stem != key:
@@ -369,10 +388,8 @@ class ValidationView(QWidget):
         self.outcome = outcome
         self.offset_label.setText(f"<b>Alignment:</b> the reference recording starts at "
                                   f"{outcome.offset_s:+.3f} s on the clip's clock. {outcome.offset_note}")
-        self.model.set_frame(outcome.table)
-        self.table.resizeColumnsToContents()
+        self._show_table(outcome.table)
         self._show_pairs(outcome.pairs)
-        self.status.setText("")
         self._draw()
         self._update()
         self.compared.emit(key)
@@ -430,15 +447,25 @@ class ValidationView(QWidget):
             lines.append(f"{len(outdated)} clip(s) were processed with other parameters than the study's current "
                          f"ones and compared as they are: " + ", ".join(outdated[:5])
                          + (" …" if len(outdated) > 5 else ""))
-        shown = res.summary
+        from aspectus.validation.report import compact_agreement, compact_participants
+
+        shown = compact_agreement(res.pooled, "window")
         if not len(shown):  # e.g. clips shorter than one window: the per-pair table says what there is
-            shown = res.per_participant
+            shown = compact_participants(res.per_participant)
             lines.append("No windows could be paired for a pooled summary; the table lists each pair.")
+        else:
+            n_max = int(pd.to_numeric(shown["n"]).max())
+            from aspectus.validation.windows import MIN_PAIRS
+
+            if n_max < MIN_PAIRS:
+                from aspectus.validation.report import withheld_reason
+
+                lines.append(withheld_reason(n_max))
         self.status.setStyleSheet("")
         self.status.setText("<br>".join(lines))
         self.offset_label.setText("")
         self.model.set_frame(shown)
-        self.table.resizeColumnsToContents()
+        self._fit_columns()
         # the plots pool the windows of every pair (one point per window, as in pooled_agreement.csv)
         self._show_pairs(pd.concat([_long_pairs(r.pairs) for r in res.results.values()], ignore_index=True))
         self._draw()
@@ -463,6 +490,39 @@ class ValidationView(QWidget):
         if not self.status.text().startswith(("The comparison", "The study comparison")):
             self.status.setStyleSheet("")
 
+    def _show_table(self, agreement: pd.DataFrame) -> None:
+        """The library's agreement table in the report's compact form (names with units, no statistics below
+        the minimum n - and the reason why above the table)."""
+        from aspectus.validation.report import compact_agreement, withheld_reason
+        from aspectus.validation.windows import MIN_PAIRS
+
+        parts = []
+        for scope, word in (("window", "windows"), ("segment", "segments")):
+            t = compact_agreement(agreement, scope)
+            if len(t):
+                parts.append(t.assign(Per=scope)[["Per", *t.columns]])
+        from aspectus.validation.report import COMPACT_COLUMNS
+
+        shown = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=["Per", *COMPACT_COLUMNS])
+        self.model.set_frame(shown)
+        self._fit_columns()
+        note = ""
+        if len(shown):
+            win = shown[shown["Per"] == "window"]
+            n_max = int(pd.to_numeric(win["n"]).max()) if len(win) else 0
+            if n_max < MIN_PAIRS:
+                note = withheld_reason(n_max)
+        self.status.setStyleSheet("")
+        self.status.setText(note)
+
+    def _fit_columns(self) -> None:
+        """Columns as wide as their contents, but the feature names never wider than a third of the view."""
+        self.table.resizeColumnsToContents()
+        cap = max(160, self.table.viewport().width() // 3)
+        for c in range(self.model.columnCount()):
+            if self.table.columnWidth(c) > cap:
+                self.table.setColumnWidth(c, cap)
+
     def _show_pairs(self, pairs: pd.DataFrame) -> None:
         """Offer the features of ``pairs`` (long form) for plotting; the one with most pairs first."""
         self._plot_pairs = pairs
@@ -471,7 +531,10 @@ class ValidationView(QWidget):
         if len(pairs):
             best, best_n = 0, -1
             for i, ((feat, scope), g) in enumerate(pairs.groupby(["feature", "scope"], sort=False)):
-                self.feature_box.addItem(f"{feat} – {scope}s (n = {len(g)})", (feat, scope))
+                from aspectus.validation.report import feature_label
+
+                self.feature_box.addItem(f"{feature_label(feat, scope=scope)} – per {scope} (n = {len(g)})",
+                                         (feat, scope))
                 if len(g) > best_n:
                     best, best_n = i, len(g)
             self.feature_box.setCurrentIndex(best)
@@ -485,8 +548,10 @@ class ValidationView(QWidget):
             return
         feat, scope = key
         p = pairs[(pairs["feature"] == feat) & (pairs["scope"] == scope)]
+        from aspectus.validation.report import feature_label
+
         self.canvas.plot(draw_agreement, p["webcam"].to_numpy(dtype=float), p["reference"].to_numpy(dtype=float),
-                         f"{feat} ({scope}s)")
+                         f"{feature_label(feat, scope=scope)}, per {scope}")
 
 
 def draw_agreement(fig, webcam, reference, feature: str):
@@ -508,11 +573,13 @@ def draw_agreement(fig, webcam, reference, feature: str):
     if len(a):
         lo, hi = float(min(a.min(), b.min())), float(max(a.max(), b.max()))
         ax_s.plot([lo, hi], [lo, hi], color="#888", lw=0.8, ls="--")
-    ax_s.set_xlabel(f"reference {feature}", fontsize=8)
-    ax_s.set_ylabel(f"webcam {feature}", fontsize=8)
-    ax_s.set_title(f"Webcam against reference (n = {len(a)})", fontsize=9)
+    ax_s.set_xlabel("lab tracker", fontsize=8)
+    ax_s.set_ylabel("webcam", fontsize=8)
+    ax_s.set_title(f"{feature}: webcam against lab tracker (n = {len(a)})", fontsize=9)
     ax_b.scatter((a + b) / 2, a - b, s=14, color=theme.POINT_COLOUR, alpha=0.8)
-    if len(a) >= 3:  # aspectus.validation.agreement.bland_altman gives limits from three pairs on
+    from aspectus.validation.windows import MIN_PAIRS
+
+    if len(a) >= MIN_PAIRS:
         from aspectus.validation.agreement import bland_altman
 
         with warnings.catch_warnings():
@@ -521,15 +588,18 @@ def draw_agreement(fig, webcam, reference, feature: str):
         for y, ls in ((ba.bias, "-"), (ba.loa_low, "--"), (ba.loa_high, "--")):
             if np.isfinite(y):
                 ax_b.axhline(y, color=theme.CURSOR_COLOUR, lw=1, ls=ls)
-        ax_b.set_title(f"Bland-Altman: bias {ba.bias:.3g}, limits {ba.loa_low:.3g} to {ba.loa_high:.3g}",
+        ax_b.set_title(f"Difference: bias {ba.bias:.3g}, limits {ba.loa_low:.3g} to {ba.loa_high:.3g}",
                        fontsize=9)
     else:
-        ax_b.set_title(f"Bland-Altman: limits need 3+ pairs (n = {len(a)})", fontsize=9)
-    ax_b.set_xlabel("mean of webcam and reference", fontsize=8)
-    ax_b.set_ylabel("webcam − reference", fontsize=8)
+        ax_b.set_title(f"Difference (limits need {MIN_PAIRS}+ pairs; n = {len(a)})", fontsize=9)
+    ax_b.set_xlabel("mean of webcam and lab tracker", fontsize=8)
+    ax_b.set_ylabel("webcam − lab tracker", fontsize=8)
+    from aspectus.validation.report import _plain_axes
+
     for ax in (ax_s, ax_b):
         ax.tick_params(labelsize=7)
         ax.grid(True, color="#e6e6e6", lw=0.6)
+        _plain_axes(ax)
     return int(len(a))
 
 
@@ -560,6 +630,48 @@ def run_validation(*, out_dir, reference, kind, mapping, analysis, segments=None
         note += " " + " ".join(extra)
     return ValidationOutcome(offset_s=float(al.offset_s), offset_note=note, table=result.agreement,
                              pairs=_long_pairs(result.pairs), result=result, offset_given=offset_s is not None)
+
+
+#: where the app keeps a clip's last comparison (inside the clip's result folder), to show it when the study is
+#: opened again; the files are the library's agreement table and the paired values
+SAVED_DIR = "app_validation"
+
+
+def save_outcome(out_dir, outcome: ValidationOutcome) -> Path:
+    """Keep a comparison's table and pairs beside the clip's results (atomically; note json last)."""
+    import datetime
+
+    from aspectus.atomic import write_csv, write_json
+
+    d = Path(out_dir) / SAVED_DIR
+    d.mkdir(parents=True, exist_ok=True)
+    write_csv(d / "agreement.csv", outcome.table)
+    write_csv(d / "pairs_long.csv", outcome.pairs)
+    meta = getattr(outcome.result, "meta", {}) or {}
+    write_json(d / "comparison.json", {
+        "offset_s": float(outcome.offset_s), "offset_note": outcome.offset_note,
+        "offset_given": bool(outcome.offset_given), "reference": getattr(outcome, "reference_rel", None),
+        "saved_at": datetime.datetime.now().strftime("%Y-%m-%d %H:%M"),
+        "window_s": (meta.get("params") or {}).get("window_s"), "windows": meta.get("windows")})
+    return d
+
+
+def load_outcome(out_dir) -> dict | None:
+    """The comparison :func:`save_outcome` kept, or None (none, or unreadable: then it is simply not shown)."""
+    import json
+
+    d = Path(out_dir) / SAVED_DIR
+    try:
+        meta = json.loads((d / "comparison.json").read_text(encoding="utf-8"))
+        table = pd.read_csv(d / "agreement.csv")
+        pairs = pd.read_csv(d / "pairs_long.csv", keep_default_na=False, na_values=[""])
+    except (OSError, ValueError):
+        return None
+    for c in ("webcam", "reference"):
+        if c in pairs:
+            pairs[c] = pd.to_numeric(pairs[c], errors="coerce")
+    meta.update(table=table, pairs=pairs)
+    return meta
 
 
 def _long_pairs(pairs: pd.DataFrame) -> pd.DataFrame:

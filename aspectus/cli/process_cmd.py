@@ -47,7 +47,15 @@ def register(sub) -> None:
 
 def add_analysis_arguments(p: argparse.ArgumentParser) -> None:
     """Options shared by every command that detects events."""
-    p.add_argument("--detector", default=None, help="event detector (default: the documented default; see README)")
+    from aspectus.events.analysis import AnalysisParams
+    from aspectus.events.detect import DETECTORS
+
+    names = {"idt": "dispersion threshold, Salvucci & Goldberg 2000", "i2mc": "two-means clustering, Hessels et al. "
+             "2017", "ivt": "velocity threshold, Engbert & Kliegl 2003 / Nystroem & Holmqvist 2010"}
+    default = AnalysisParams().detector
+    p.add_argument("--detector", default=None, metavar="NAME",
+                   help="event detector, one of: " + "; ".join(
+                       f"{d} ({names.get(d, d)})" for d in DETECTORS) + f". Default: {default}")
     p.add_argument("--window-s", type=float, default=None, help="length of the fixed feature windows in seconds")
     p.add_argument("--step-s", type=float, default=None, help="step between feature windows in seconds")
     p.add_argument("--set", dest="settings", action="append", default=[], metavar="NAME=VALUE",

@@ -62,8 +62,12 @@ def register(sub) -> None:
     c.add_argument("--reference-events", choices=("detect", "own"), default="detect",
                    help="event agreement against events detected in the reference's samples (default) or the "
                         "events stored in the reference file")
-    c.add_argument("--icc-form", default="2,1", choices=("1,1", "2,1", "3,1", "1,k", "2,k", "3,k"),
-                   help="Shrout & Fleiss ICC form reported as 'icc' (default 2,1: absolute agreement)")
+    from aspectus.validation.agreement import DEFAULT_ICC_FORM, ICC_FORM_TEXT, ICC_FORMS
+
+    c.add_argument("--icc-form", default=DEFAULT_ICC_FORM, choices=ICC_FORMS, metavar="FORM",
+                   help="Shrout & Fleiss ICC form reported as 'icc', one of: " + "; ".join(
+                       f"{f} = {ICC_FORM_TEXT[f].split(': ', 1)[1]}" for f in ICC_FORMS)
+                   + f". Default: {DEFAULT_ICC_FORM}")
     c.add_argument("--match-tolerance-s", type=float, default=0.1, metavar="S",
                    help="largest onset difference of matched events (default 0.1 s)")
     c.add_argument("--min-valid-frac", type=float, default=0.5, metavar="F",

@@ -150,7 +150,8 @@ class ValidateParams:
         d = {k: getattr(self, k) for k in self.__dataclass_fields__ if k != "analysis"}
         d["features"] = list(self.features)
         d["window_s"], d["step_s"] = self.window_length_s, self.window_step_s
-        d["analysis"] = self.analysis.to_dict()
+        # the paired windows are these, not the analysis' own feature windows: record the ones used
+        d["analysis"] = {**self.analysis.to_dict(), "window_s": d["window_s"], "step_s": d["step_s"]}
         return d
 
 
@@ -422,11 +423,16 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
             f"after alignment (offset {alignment.offset_s:.3f} s) the recordings do not overlap "
             f"(webcam {tw[0]:.1f}-{tw[-1]:.1f} s, reference {tr[0]:.1f}-{tr[-1]:.1f} s on the clip clock)",
             path=reference, hint="check the offset, the marker or the pairing of files")
+    from aspectus.validation.windows import MIN_PAIRS, choose_window_s
+
+    choice = choose_window_s(overlap, params.window_length_s, given=params.window_s is not None)
+    if params.window_s is None:
+        params = replace(params, window_s=choice.window_s, step_s=params.step_s or choice.window_s)
     windows = _common_windows(tw, tr, params.window_length_s, params.window_step_s)
-    if len(windows) < 3:
+    if len(windows) < MIN_PAIRS:
         notes.append(f"the recordings overlap for {overlap:.1f} s, giving only {len(windows)} windows of "
-                     f"{params.window_length_s:g} s; window-level agreement is not meaningful - use shorter "
-                     "windows (--window-s)")
+                     f"{params.window_length_s:g} s: too few for window-level agreement statistics (at least "
+                     f"{MIN_PAIRS}) - use shorter windows (--window-s) or compare several clips together")
     scopes = windows.rename(columns={"start_s": "onset_s", "end_s": "offset_s"})
     scopes["label"] = "w:" + scopes["label"].astype(str)
     if segs is not None and len(segs):
@@ -503,6 +509,7 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
         "reference_rate_hz": ref.rate_hz, "reference_screen": ref.screen.to_dict() if ref.screen else None,
         "webcam_rate_hz": res_w.quality.get("sample_rate_hz"), "overlap_s": float(overlap),
         "windows": int(len(windows)), "segments": int(0 if segs is None else len(segs)),
+        "window_choice": choice.reason,
         "params": params.to_dict(), "icc_form": ICC_FORM_TEXT[params.icc_form.replace(" ", "").lower()],
         "webcam_quality": res_w.quality, "reference_quality": res_r.quality,
         "reference_measured_at": (f"{params.resample_reference_hz:g} Hz (resampled)" if params.resample_reference_hz

@@ -1,9 +1,15 @@
-"""Validation reports: PNG figures and one self-contained HTML file.
+"""Validation reports: PNG figures and one self-contained HTML file, written for a reader.
 
-The HTML embeds its figures as base64 PNG (no external files, no
-JavaScript); the same PNGs are written beside it. No figure shows a video
-frame, so no face needs blurring. Figures are drawn with matplotlib's Agg
-canvas directly (no pyplot, no global backend state).
+The HTML embeds its figures as base64 PNG and its full tables as CSV downloads
+(data URIs: no external files, no JavaScript); the same files are written
+beside it. Features are named in words with their units
+(:func:`aspectus.schema.feature_label`); the main table is compact (feature,
+n, both means, r, ICC and bias with their intervals) and shows no statistics
+below :data:`aspectus.validation.windows.MIN_PAIRS` pairs, saying why and how
+to get more. The page fits 1366 px wide screens and A4 paper (tests open it in
+headless Chromium). No figure shows a video frame, so no face needs blurring.
+Figures are drawn with matplotlib's Agg canvas directly (no pyplot, no global
+backend state), with plain tick labels (no "1e-17" offsets).
 """
 from __future__ import annotations
 
@@ -15,17 +21,37 @@ import numpy as np
 import pandas as pd
 
 from aspectus import __version__
+from aspectus.schema import human_label
 from aspectus.validation.agreement import ICC_FORM_TEXT
+from aspectus.validation.windows import MIN_PAIRS
 
 WEBCAM_COLOUR = "#c0392b"
 REFERENCE_COLOUR = "#1f5f8b"
-LABELS = {
-    "fixation_count": "fixations per window", "fixation_rate_per_s": "fixation rate (1/s)",
-    "fixation_duration_mean_ms": "mean fixation duration (ms)",
-    "fixation_duration_median_ms": "median fixation duration (ms)", "fixation_time_frac": "time in fixations (share)",
-    "saccade_count": "saccades per window", "saccade_amplitude_mean_deg": "mean saccade amplitude (deg)",
-    "blink_count": "blinks per window", "blink_rate_per_min": "blink rate (1/min)",
-}
+
+
+def feature_label(name: str, *, scope: str | None = None) -> str:
+    """The schema's label with its unit; counts say what they count in: ``"Fixations (per window)"``."""
+    text = human_label(name)
+    return f"{text} (per {scope})" if scope and name.endswith("_count") else text
+
+
+def _label(f: str) -> str:
+    return feature_label(f, scope="window")
+
+
+def _plain_axes(ax, *, min_span: float | None = None) -> None:
+    """Tick labels as plain numbers: no offset or power above the axis (a constant series drew "1e-17")."""
+    from matplotlib.ticker import ScalarFormatter
+
+    for axis in (ax.xaxis, ax.yaxis):
+        fmt = ScalarFormatter(useOffset=False)
+        fmt.set_scientific(False)
+        axis.set_major_formatter(fmt)
+    if min_span is not None:
+        lo, hi = ax.get_ylim()
+        if hi - lo < min_span:
+            mid = 0.5 * (lo + hi)
+            ax.set_ylim(mid - min_span / 2, mid + min_span / 2)
 
 
 def _fmt(v, nd=2) -> str:
@@ -83,10 +109,11 @@ def scatter_figure(pairs: pd.DataFrame, features, *, title: str, groups: pd.Seri
             lo, hi = float(min(x[ok].min(), y[ok].min())), float(max(x[ok].max(), y[ok].max()))
             pad = 0.05 * (hi - lo or 1.0)
             ax.plot([lo - pad, hi + pad], [lo - pad, hi + pad], color="0.4", lw=1, ls="--", label="_identity")
-        ax.set_xlabel(f"reference: {LABELS.get(f, f)}", fontsize=8)
+        ax.set_xlabel("lab tracker", fontsize=8)
         ax.set_ylabel("webcam", fontsize=8)
-        ax.set_title(f"{LABELS.get(f, f)} (n={int(ok.sum())})", fontsize=9)
+        ax.set_title(f"{_label(f)}, n = {int(ok.sum())}", fontsize=9)
         ax.tick_params(labelsize=7)
+        _plain_axes(ax)
     fig.suptitle(title, fontsize=11)
     fig.tight_layout()
     return _png(fig)
@@ -103,7 +130,7 @@ def bland_altman_figure(pairs: pd.DataFrame, agreement: pd.DataFrame, features, 
         a, b = pairs[f"{f}_webcam"].to_numpy(float), pairs[f"{f}_reference"].to_numpy(float)
         ok = np.isfinite(a) & np.isfinite(b)
         ax.scatter((a[ok] + b[ok]) / 2, a[ok] - b[ok], s=14, color=REFERENCE_COLOUR, alpha=0.75)
-        if ag is not None and f in ag.index and np.isfinite(ag.loc[f, "ba_bias"]):
+        if ag is not None and f in ag.index and np.isfinite(ag.loc[f, "ba_bias"]) and ag.loc[f, "n"] >= MIN_PAIRS:
             r = ag.loc[f]
             for v, ls, lab in ((r["ba_bias"], "-", "bias"), (r["ba_loa_low"], "--", "limits"),  # noqa: B007
                                (r["ba_loa_high"], "--", None)):
@@ -117,10 +144,12 @@ def bland_altman_figure(pairs: pd.DataFrame, agreement: pd.DataFrame, features, 
                 for v in (r["ba_rm_loa_low"], r["ba_rm_loa_high"]):
                     ax.axhline(v, color=WEBCAM_COLOUR, ls=":", lw=1.2)
         ax.axhline(0, color="0.7", lw=0.8)
-        ax.set_xlabel("mean of webcam and reference", fontsize=8)
-        ax.set_ylabel("webcam - reference", fontsize=8)
-        ax.set_title(LABELS.get(f, f), fontsize=9)
+        ax.set_xlabel("mean of webcam and lab tracker", fontsize=8)
+        ax.set_ylabel("webcam minus lab tracker", fontsize=8)
+        ax.set_title(_label(f), fontsize=9)
         ax.tick_params(labelsize=7)
+        _plain_axes(ax, min_span=1e-6 + 0.1 * max(1.0, float(np.nanmax(np.abs((a[ok] + b[ok]) / 2)))
+                                                  if ok.any() else 1.0))
     fig.suptitle(title, fontsize=11)
     fig.tight_layout()
     return _png(fig)
@@ -148,35 +177,49 @@ def timeseries_figure(result, *, max_span_s: float = 40.0) -> bytes:
         yw = cam[col].to_numpy(float)
         yr = ref[col].to_numpy(float)
         shift = np.nanmedian(yr[mr]) - np.nanmedian(yw[mw]) if mw.any() and mr.any() else 0.0
-        ax.plot(tr[mr], yr[mr], color=REFERENCE_COLOUR, lw=0.7, label="reference")
+        ax.plot(tr[mr], yr[mr], color=REFERENCE_COLOUR, lw=0.7, label="lab tracker")
         ax.plot(tw[mw], yw[mw] + shift, color=WEBCAM_COLOUR, lw=0.9,
-                label=f"webcam (shifted by {shift:+.1f} deg to the reference's median)")
+                label=f"webcam (moved by {shift:+.1f} deg onto the lab tracker's median)")
         _bands(ax, result.webcam_analysis.events, lo, hi, 0.5, 1.0, WEBCAM_COLOUR)
         _bands(ax, result.reference_analysis.events, lo, hi, 0.0, 0.5, REFERENCE_COLOUR)
         ax.set_xlim(lo, hi)
         ax.set_ylabel(name, fontsize=8)
         ax.tick_params(labelsize=7)
+        _plain_axes(ax)
         if k == 0:
             ax.legend(fontsize=7, loc="upper right")
-            ax.set_title(f"Aligned gaze, clip time {lo:.1f}-{hi:.1f} s (offset {result.alignment.offset_s:+.3f} s); "
-                         "fixations: webcam bands above, reference below", fontsize=9)
+            ax.set_title(f"Aligned gaze, clip time {lo:.1f}-{hi:.1f} s; fixations as bands: webcam in the upper "
+                         "half, lab tracker in the lower", fontsize=9)
     ax.set_xlabel("clip time (s)", fontsize=8)
     fig.tight_layout()
     return _png(fig)
 
 
 def offset_figure(alignment) -> bytes:
-    """The correlation against candidate offset, with the chosen offset marked."""
+    """The correlation against candidate offset over the whole searched range, with the chosen offset marked."""
     fig = _figure(8.0, 3.0)
     ax = fig.add_subplot(1, 1, 1)
     if alignment.curve is not None and len(alignment.curve):
         ax.plot(alignment.curve["offset_s"], alignment.curve["corr"], color="0.2", lw=0.8)
-        ax.set_ylabel("normalised correlation", fontsize=8)
+        ax.set_ylabel("correlation", fontsize=8)
     ax.axvline(alignment.offset_s, color=WEBCAM_COLOUR, lw=1.2)
-    ax.set_xlabel("offset: clip time of the reference's first sample (s)", fontsize=8)
-    ax.set_title(f"Clock offset {alignment.offset_s:+.3f} s by {alignment.method}, confidence "
-                 f"{alignment.confidence:.2f}", fontsize=9)
+    rng = getattr(alignment, "search_range_s", None)
+    if rng is not None and np.isfinite(rng) and rng > 0 and alignment.method not in ("user",):
+        lo, hi = min(-rng, float(alignment.offset_s)), max(rng, float(alignment.offset_s))
+        if alignment.curve is not None and len(alignment.curve):
+            c_lo, c_hi = float(alignment.curve["offset_s"].min()), float(alignment.curve["offset_s"].max())
+            for a, b in ((lo, c_lo), (c_hi, hi)):
+                if b - a > 0.01 * (hi - lo):
+                    ax.axvspan(a, b, color="0.85", lw=0)
+            if c_lo - lo > 0.01 * (hi - lo) or hi - c_hi > 0.01 * (hi - lo):
+                ax.text(0.01, 0.97, "grey: searched, too little overlap to score", transform=ax.transAxes,
+                        fontsize=7, va="top", color="0.3")
+        ax.set_xlim(lo, hi)
+    ax.set_xlabel("offset: clip time of the lab tracker's first sample (s)", fontsize=8)
+    ax.set_title(f"Clock offset {alignment.offset_s:+.3f} s ({alignment.method}); confidence "
+                 f"{alignment.confidence:.2f} on a 0-1 scale", fontsize=9)
     ax.tick_params(labelsize=7)
+    _plain_axes(ax)
     fig.tight_layout()
     return _png(fig)
 
@@ -201,6 +244,32 @@ def _verbal_r(r: float) -> str:
             "weak" if a >= 0.3 else "little or no")
 
 
+#: how the alignment's confidence reads (aspectus.validation.align.Alignment.confidence)
+CONFIDENCE_SCALE = ("Confidence = (height of the correlation peak - height of the best competing peak at least 1 s "
+                    "away) / height of the peak, on a scale from 0 (another offset fits as well) to 1 (no other "
+                    "offset correlates at all). 0.5 or more: clear; 0.25 to 0.5: probable - check that the two "
+                    "traces below move together; below 0.25: uncertain - give the offset yourself (--offset-s, in "
+                    "the app: Offset known). The figure does not say how accurate the offset is: a clear peak "
+                    "is usually right to within a sample.")
+
+
+def confidence_words(conf: float) -> str:
+    """``clear`` / ``probable`` / ``uncertain`` on the scale of :data:`CONFIDENCE_SCALE`."""
+    if not np.isfinite(conf):
+        return "not estimated"
+    return "clear" if conf >= 0.5 else ("probable" if conf >= 0.25 else "uncertain")
+
+
+def withheld_reason(n: int, what: str = "windows", *, min_pairs: int = MIN_PAIRS) -> str:
+    """Why statistics are not shown below ``min_pairs`` pairs, and how to get more pairs."""
+    more = ("shorter windows (--window-s; in the app: Feature window length), longer recordings, or several clips "
+            "compared together (aspectus validate with a folder or manifest; in the app: Compare all clips)"
+            if what == "windows" else "more participants")
+    return (f"Only {n} {what} could be paired. With fewer than {min_pairs}, correlations, ICCs and limits of "
+            f"agreement are too uncertain to mean anything (their 95 % intervals span most of the possible range), "
+            f"so they are not shown; the full table (download) still has them. To get more: {more}.")
+
+
 def plain_reading(result) -> str:
     """A short, careful reading of the agreement in plain words."""
     ag = result.agreement
@@ -211,16 +280,20 @@ def plain_reading(result) -> str:
     elif al.method.startswith("marker"):
         parts.append(f"The clocks were aligned on a shared marker ({al.offset_s:+.3f} s).")
     else:
-        word = "clearly" if al.confidence >= 0.5 else ("probably" if al.confidence >= 0.25 else "only uncertainly")
-        parts.append(f"The clocks were {word} aligned by cross-correlation: the reference started "
+        word = {"clear": "clearly", "probable": "probably"}.get(confidence_words(al.confidence), "only uncertainly")
+        parts.append(f"The clocks were {word} aligned by cross-correlation: the lab tracker started "
                      f"{abs(al.offset_s):.2f} s {'before' if al.offset_s < 0 else 'after'} the webcam "
-                     f"(confidence {al.confidence:.2f}).")
+                     f"(confidence {al.confidence:.2f} on a scale from 0 to 1).")
     w = ag[ag["scope"] == "window"].set_index("feature") if len(ag) else pd.DataFrame()
-    if "fixation_count" in w.index and np.isfinite(w.loc["fixation_count", "pearson_r"]):
+    n_fc = int(w.loc["fixation_count", "n"]) if "fixation_count" in w.index else 0
+    if "fixation_count" in w.index and n_fc < MIN_PAIRS:
+        parts.append(f"Only {n_fc} windows could be paired - fewer than the {MIN_PAIRS} agreement statistics need, "
+                     "so none are given; use shorter windows or compare several clips together.")
+    elif "fixation_count" in w.index and np.isfinite(w.loc["fixation_count", "pearson_r"]):
         r = w.loc["fixation_count"]
         parts.append(
             f"Across {int(r['n'])} windows, the webcam's fixation counts showed {_verbal_r(r['pearson_r'])} "
-            f"correlation with the reference (r = {_fmt(r['pearson_r'])}, 95 % CI {_fmt(r['pearson_ci_low'])} to "
+            f"correlation with the lab tracker's (r = {_fmt(r['pearson_r'])}, 95 % CI {_fmt(r['pearson_ci_low'])} to "
             f"{_fmt(r['pearson_ci_high'])}); absolute agreement ICC(2,1) = {_fmt(r['icc'])}. On average the webcam "
             f"counted {_fmt(abs(r['ba_bias']), 1)} {'more' if r['ba_bias'] > 0 else 'fewer'} fixations per window, "
             f"and for 95 % of windows the difference would be expected between {_fmt(r['ba_loa_low'], 1)} and "
@@ -236,13 +309,69 @@ def plain_reading(result) -> str:
     parts.append("These figures describe this recording only; they do not show that the webcam can replace the lab "
                  "tracker, and correlation alone does not mean the two measure on the same scale - the limits of "
                  "agreement say how far single values may differ.")
-    small = [n for n in result.notes if "wide" in n or "uncertain" in n or "not meaningful" in n]
+    small = [n for n in result.notes if "uncertain" in n or "not meaningful" in n
+             or ("wide" in n and n_fc >= MIN_PAIRS)]
     if small:
         parts.append("Caution: " + " ".join(small))
     return " ".join(parts)
 
 
-def _table_html(df: pd.DataFrame, cols=None, nd: int = 3) -> str:
+# ------------------------------------------------------------------------------------------ tables
+def _digits(feature: str) -> int:
+    if feature.endswith("_ms"):
+        return 0
+    if feature.endswith("_frac") or feature.endswith("_deg"):
+        return 2
+    return 1 if feature.endswith("_count") else 2
+
+
+def _ci(est, lo, hi, nd: int, sep: str = ", ") -> str:
+    if _fmt(est, nd) == "n/a":
+        return "n/a"
+    return f"{_fmt(est, nd)} [{_fmt(lo, nd)}{sep}{_fmt(hi, nd)}]"
+
+
+#: columns of the compact agreement table (reports and the app's validation view)
+COMPACT_COLUMNS = ("Feature", "n", "Webcam mean", "Lab tracker mean", "r [95 % CI]", "ICC [95 % CI]",
+                   "Bias [95 % limits]")
+
+
+def compact_agreement(agreement: pd.DataFrame, scope: str = "window", *, min_pairs: int = MIN_PAIRS) -> pd.DataFrame:
+    """One row per feature: name and unit in words, n, both means, r, ICC and bias with intervals, as text.
+
+    Below ``min_pairs`` pairs the statistics read "not shown" (see :func:`withheld_reason`); the means stay.
+    """
+    rows = []
+    if agreement is None or not len(agreement):
+        return pd.DataFrame(columns=list(COMPACT_COLUMNS))
+    ag = agreement[agreement["scope"] == scope] if "scope" in agreement else agreement
+    for _, r in ag.iterrows():
+        f = str(r["feature"])
+        nd = _digits(f)
+        n = int(r["n"]) if np.isfinite(float(r["n"])) else 0
+        row = {"Feature": feature_label(f, scope=scope), "n": str(n), "Webcam mean": _fmt(r.get("mean_webcam"), nd),
+               "Lab tracker mean": _fmt(r.get("mean_reference"), nd)}
+        if n < min_pairs:
+            row.update({"r [95 % CI]": "not shown", "ICC [95 % CI]": "not shown", "Bias [95 % limits]": "not shown"})
+        else:
+            row.update({"r [95 % CI]": _ci(r.get("pearson_r"), r.get("pearson_ci_low"), r.get("pearson_ci_high"), 2),
+                        "ICC [95 % CI]": _ci(r.get("icc"), r.get("icc_ci_low"), r.get("icc_ci_high"), 2),
+                        "Bias [95 % limits]": _ci(r.get("ba_bias"), r.get("ba_loa_low"), r.get("ba_loa_high"), nd,
+                                                  sep=" to ")})
+        rows.append(row)
+    return pd.DataFrame(rows, columns=list(COMPACT_COLUMNS))
+
+
+def _cell(v) -> str:
+    """A table cell; an estimate with an interval breaks before its interval so that columns stay narrow."""
+    s = "" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v)
+    if " [" in s and s.endswith("]"):
+        est, ci = s.split(" [", 1)
+        return f"{html.escape(est)}<span class='ci'>[{html.escape(ci)}</span>"
+    return html.escape(s)
+
+
+def _table_html(df: pd.DataFrame, cols=None, nd: int = 3, *, cls: str = "") -> str:
     if df is None or not len(df):
         return "<p><em>none</em></p>"
     cols = cols or list(df.columns)
@@ -250,22 +379,45 @@ def _table_html(df: pd.DataFrame, cols=None, nd: int = 3) -> str:
     body = []
     for _, r in df.iterrows():
         cells = []
-        for c in cols:
+        for j, c in enumerate(cols):
             v = r.get(c)
             if isinstance(v, (float, np.floating)):
-                s = _fmt(v, nd)
-            else:
-                s = "" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v)
-            cells.append(f"<td>{html.escape(s)}</td>")
+                v = _fmt(v, nd)
+            klass = " class='num'" if j > 0 and _looks_numeric(v) else ""
+            cells.append(f"<td{klass}>{_cell(v)}</td>")
         body.append("<tr>" + "".join(cells) + "</tr>")
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+    c = f" class='{cls}'" if cls else ""
+    return f"<table{c}><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
-_CSS = """body{font-family:system-ui,sans-serif;max-width:1150px;margin:2em auto;padding:0 1em;color:#222}
-table{border-collapse:collapse;font-size:12px;margin:0.5em 0 1.5em}th,td{border:1px solid #ccc;padding:3px 6px;
-text-align:right}th{background:#f2f2f2}td:first-child,th:first-child{text-align:left}img{max-width:100%}
-.note{background:#fff6e0;border-left:4px solid #e0a800;padding:0.5em 1em}.reading{background:#eef5fb;
-border-left:4px solid #1f5f8b;padding:0.6em 1em}code{background:#f4f4f4;padding:0 3px}"""
+def _looks_numeric(v) -> bool:
+    s = str(v).split(" [")[0].replace("-", "").replace("+", "").replace(".", "").replace("n/a", "0")
+    return s.isdigit()
+
+
+def _download(filename: str, df: pd.DataFrame, text: str) -> str:
+    """A link that saves ``df`` as ``filename`` (CSV inside the page: works offline, no second file needed)."""
+    data = base64.b64encode(df.to_csv(index=False).encode("utf-8")).decode("ascii")
+    return (f"<a class='dl' download='{html.escape(filename)}' href='data:text/csv;base64,{data}'>"
+            f"{html.escape(text)}</a>")
+
+
+_CSS = """*{box-sizing:border-box}
+body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;max-width:1100px;margin:1.5em auto;padding:0 1em;
+color:#222;line-height:1.45;font-size:15px}
+h1{font-size:1.5em}h2{font-size:1.2em;margin-top:1.6em;border-bottom:1px solid #ddd}
+table{border-collapse:collapse;font-size:0.87em;margin:0.5em 0 1.2em;max-width:100%}
+th,td{border:1px solid #ccc;padding:3px 6px;text-align:left;vertical-align:top;overflow-wrap:anywhere}
+th{background:#f2f2f2;font-weight:600}td.num{text-align:right;white-space:nowrap}
+.ci{display:block;color:#555;font-size:0.85em;white-space:nowrap}
+table.facts td:first-child{white-space:nowrap;color:#444}
+img{max-width:100%;height:auto;display:block}figure{margin:1em 0}figcaption{font-size:0.87em;color:#444}
+.note{background:#fff6e0;border-left:4px solid #e0a800;padding:0.5em 1em;margin:1em 0}
+.reading{background:#eef5fb;border-left:4px solid #1f5f8b;padding:0.6em 1em}
+.small{font-size:0.87em;color:#444}code{background:#f4f4f4;padding:0 3px;overflow-wrap:anywhere}
+a.dl{display:inline-block;margin:0 1em 0.3em 0}
+@media print{@page{size:A4;margin:14mm}body{max-width:none;margin:0;padding:0;font-size:11px}
+h2{break-after:avoid}figure,tr{break-inside:avoid}a.dl{color:#222}}"""
 
 
 def _img(name: str, data: bytes, alt: str) -> str:
@@ -279,69 +431,106 @@ AGREEMENT_COLS = ["scope", "feature", "n", "mean_webcam", "mean_reference", "pea
                   "icc_ci_high", "ba_bias", "ba_bias_ci_low", "ba_bias_ci_high", "ba_loa_low", "ba_loa_high", "notes"]
 
 
+def _facts(items) -> str:
+    return "<table class='facts'><tbody>" + "".join(
+        f"<tr><td>{html.escape(k)}</td><td>{html.escape(str(v))}</td></tr>" for k, v in items) + "</tbody></table>"
+
+
+def _agreement_section(agreement: pd.DataFrame, scope: str, what: str) -> str:
+    table = compact_agreement(agreement, scope)
+    if not len(table):
+        return ""
+    n_max = int(pd.to_numeric(table["n"]).max())
+    out = _table_html(table, cls="compact")
+    if n_max < MIN_PAIRS:
+        out = f"<p class='note'>{html.escape(withheld_reason(n_max, what))}</p>" + out
+    elif (pd.to_numeric(table["n"]) < MIN_PAIRS).any():
+        out += (f"<p class='small'>\"not shown\": fewer than {MIN_PAIRS} pairs for that feature (windows where it "
+                "could not be measured on one side are left out).</p>")
+    return out
+
+
 def render_pair_report(result, pngs: dict[str, bytes]) -> str:
     """The HTML report of one pair (self-contained)."""
     m = result.meta
     al = result.alignment
     ev = result.events
-    title = "Webcam against lab tracker"
+    p = m["params"]
+    title = "Webcam against lab eye tracker"
     if m.get("participant"):
         title += f": {m['participant']}" + (f", {m['session']}" if m.get("session") else "")
-    parts = [f"<!doctype html><html><head><meta charset='utf-8'><title>{html.escape(title)}</title>"
+    parts = [f"<!doctype html><html><head><meta charset='utf-8'>"
+             f"<meta name='viewport' content='width=device-width, initial-scale=1'><title>{html.escape(title)}</title>"
              f"<style>{_CSS}</style></head><body><h1>{html.escape(title)}</h1>",
              f"<p class='reading'>{html.escape(result.reading)}</p>"]
     if result.notes:
         parts.append("<div class='note'><strong>Warnings</strong><ul>" +
                      "".join(f"<li>{html.escape(n)}</li>" for n in result.notes) + "</ul></div>")
-    parts.append("<h2>Inputs</h2><table><tbody>" + "".join(
-        f"<tr><td>{html.escape(k)}</td><td>{html.escape(str(v))}</td></tr>" for k, v in (
-            ("webcam", m["webcam"]), ("reference", f"{m['reference']} ({m['reference_format']})"),
-            ("webcam rate", f"{_fmt(m['webcam_rate_hz'], 1)} Hz"),
-            ("reference measured at", m["reference_measured_at"]),
-            ("detector (both sides)", m["params"]["analysis"].get("detector")),
-            ("overlap", f"{m['overlap_s']:.1f} s"), ("windows", f"{m['windows']} of {m['params']['window_s']:g} s "
-                                                                 f"(step {m['params']['step_s']:g} s)"),
-            ("task segments", m["segments"]), ("ICC reported", m["icc_form"]),
-            ("aspectus", m["aspectus"]))) + "</tbody></table>")
-    parts.append("<h2>Time alignment</h2>" + _table_html(pd.DataFrame([al.to_dict()]), [
-        "offset_s", "confidence", "method", "search_range_s", "peak_corr", "second_peak_corr", "overlap_s",
-        "drift_ppm"], nd=3))
-    parts.append("<p><code>offset_s</code> is the clip time of the reference's first sample (negative: the reference "
-                 "started first). Confidence is the share of the correlation peak's height that stands above the "
-                 "best competing peak.</p>")
-    if "offset" in pngs:
-        parts.append(_img("offset", pngs["offset"], "Correlation of the two gaze signals against the clock offset"))
-    if "aligned_timeseries" in pngs:
-        parts.append(_img("aligned_timeseries", pngs["aligned_timeseries"], "Both recordings after alignment"))
-    parts.append("<h2>Feature agreement</h2><p>Webcam minus reference for Bland-Altman; intervals are 95 % unless "
-                 f"stated. ICC: {html.escape(m['icc_form'])} (Shrout &amp; Fleiss 1979). Pearson r with Fisher-z "
-                 "interval, Lin's concordance (Lin 1989), Bland-Altman limits with the approximate intervals of "
-                 "Bland &amp; Altman (1999).</p>")
-    parts.append(_table_html(result.agreement, [c for c in AGREEMENT_COLS if c in result.agreement.columns]))
-    for key, alt in (("scatter_windows", "Webcam against reference per window; dashed: identity"),
-                     ("bland_altman_windows", "Bland-Altman plots per window; shaded: 95 % intervals")):
+    parts.append("<h2>What was compared</h2>" + _facts((
+        ("webcam", m["webcam"]), ("lab tracker", f"{m['reference']} ({m['reference_format']})"),
+        ("webcam rate", f"{_fmt(m['webcam_rate_hz'], 1)} Hz"),
+        ("lab tracker measured at", m["reference_measured_at"]),
+        ("detector, both sides", p["analysis"].get("detector")),
+        ("time both recorded", f"{m['overlap_s']:.1f} s (after alignment)"),
+        ("windows", f"{m['windows']} of {p['window_s']:g} s, one every {p['step_s']:g} s"),
+        ("task segments", m["segments"]), ("ICC reported", m["icc_form"]),
+        ("aspectus", m["aspectus"]))))
+    if m.get("window_choice"):
+        parts.append(f"<p class='small'>{html.escape(m['window_choice'])}</p>")
+
+    parts.append("<h2>Agreement per window</h2>" + _agreement_section(result.agreement, "window", "windows"))
+    parts.append(f"<p class='small'>Each row compares the feature measured in the same windows by the webcam and "
+                 f"the lab tracker. n: paired windows. r: Pearson correlation with its Fisher-z interval. ICC: "
+                 f"{html.escape(m['icc_form'])} (Shrout &amp; Fleiss 1979). Bias: mean of webcam minus lab tracker, "
+                 "with the 95 % limits of agreement (Bland &amp; Altman 1999) - where the difference of a single "
+                 "window is expected to lie. Intervals are 95 %.</p>")
+    parts.append("<p>" + _download("agreement.csv", result.agreement, "Full table (agreement.csv: Spearman, Lin's "
+                                   "concordance, every interval)")
+                 + _download("pairs.csv", result.pairs, "Paired values per window (pairs.csv)") + "</p>")
+    if (result.agreement["scope"] == "segment").any() if len(result.agreement) else False:
+        parts.append("<h2>Agreement per task segment</h2>"
+                     + _agreement_section(result.agreement, "segment", "segments"))
+    for key, alt in (("scatter_windows", "Webcam against lab tracker per window; dashed: identity (equal values)"),
+                     ("bland_altman_windows", "Differences against means per window; solid: bias, dashed: 95 % "
+                                              "limits of agreement, shaded: their 95 % intervals")):
         if key in pngs:
             parts.append(_img(key, pngs[key], alt))
-    parts.append("<h2>Event agreement</h2>")
-    rows = [{"measure": "kappa, fixation vs other (per sample)", "value": ev["kappa"], "ci_low": ev["kappa_ci_low"],
-             "ci_high": ev["kappa_ci_high"], "n": ev["kappa_n_samples"]},
-            {"measure": "kappa, all labels", "value": ev["kappa_all_labels"]}]
+
+    parts.append("<h2>Fixations sample by sample</h2>")
+    rows = [{"measure": "kappa, fixation or not, per sample",
+             "value": _ci(ev["kappa"], ev["kappa_ci_low"], ev["kappa_ci_high"], 2), "n": ev["kappa_n_samples"]},
+            {"measure": "kappa, all labels", "value": _fmt(ev["kappa_all_labels"]), "n": ""}]
     for t, mm in ev["matching"].items():
-        rows.append({"measure": f"{t} onsets matched within {mm['tolerance_s']:g} s: F1", "value": mm["f1"],
-                     "n": f"{mm['n_matched']} of {mm['n_webcam']} webcam / {mm['n_reference']} reference"})
-        rows.append({"measure": f"{t}: precision / recall", "value": mm["precision"], "ci_low": mm["recall"]})
+        rows.append({"measure": f"{t} onsets matched within {mm['tolerance_s']:g} s: F1 (precision, recall)",
+                     "value": f"{_fmt(mm['f1'])} ({_fmt(mm['precision'])}, {_fmt(mm['recall'])})",
+                     "n": f"{mm['n_matched']} of {mm['n_webcam']} webcam / {mm['n_reference']} lab tracker"})
     for k, g in ev["gain"].items():
         if isinstance(g, dict) and "estimate" in g:
-            rows.append({"measure": f"gain (webcam / reference), {k.replace('_', ' ')}", "value": g["estimate"],
-                         "ci_low": g["ci_low"], "ci_high": g["ci_high"], "n": g["n"]})
-    parts.append(_table_html(pd.DataFrame(rows), ["measure", "value", "ci_low", "ci_high", "n"]))
-    parts.append(f"<p>{html.escape(ev['method']['kappa'])}. {html.escape(ev['method']['matching'])}. Gain: "
-                 f"{html.escape(ev['gain']['method'])}. In the precision / recall rows the second number is the "
-                 "recall.</p>")
-    parts.append("<h2>Paired windows</h2>" + _table_html(result.pairs))
-    parts.append("<p>Research estimates only - not a diagnostic, disciplinary or surveillance instrument. The same "
-                 "numbers are in agreement.csv, pairs.csv, alignment.json and events_agreement.json.</p>"
-                 "</body></html>")
+            rows.append({"measure": f"gain (webcam / lab tracker), {k.replace('_', ' ')}",
+                         "value": _ci(g["estimate"], g["ci_low"], g["ci_high"], 2), "n": g["n"]})
+    parts.append(_table_html(pd.DataFrame(rows), ["measure", "value", "n"]))
+    parts.append(f"<p class='small'>{html.escape(ev['method']['kappa'])}. {html.escape(ev['method']['matching'])}. "
+                 f"Gain: {html.escape(ev['gain']['method'])}.</p>")
+
+    parts.append("<h2>Time alignment</h2>")
+    how = {"user": "given by the user"}.get(al.method, al.method)
+    text = (f"The lab tracker's first sample is at {al.offset_s:+.3f} s on the webcam clip's clock (negative: the "
+            f"lab tracker started first); found by {how}.")
+    if not al.method == "user" and not al.method.startswith("marker"):
+        text += (f" Offsets from -{al.search_range_s:g} to +{al.search_range_s:g} s were searched. Confidence "
+                 f"{al.confidence:.2f}: {confidence_words(al.confidence)}. Correlation at the chosen offset "
+                 f"{_fmt(al.peak_corr)}, at the best other offset {_fmt(al.second_peak_corr)}.")
+    parts.append(f"<p>{html.escape(text)}</p>")
+    if not al.method == "user" and not al.method.startswith("marker"):
+        parts.append(f"<p class='small'>{html.escape(CONFIDENCE_SCALE)}</p>")
+    if "offset" in pngs:
+        parts.append(_img("offset", pngs["offset"], "Correlation of the two gaze signals against the clock offset; "
+                                                   "red: the offset used"))
+    if "aligned_timeseries" in pngs:
+        parts.append(_img("aligned_timeseries", pngs["aligned_timeseries"], "Both recordings after alignment"))
+    parts.append("<p class='small'>Research estimates only - not a diagnostic, disciplinary or surveillance "
+                 "instrument. The numbers are also in agreement.csv, pairs.csv, alignment.json and "
+                 "events_agreement.json beside this report.</p></body></html>")
     return "\n".join(parts)
 
 
@@ -384,13 +573,75 @@ MEANS_COLS = ["scope", "feature", "means_n", "means_pearson_r", "means_pearson_c
               "means_ba_loa_high"]
 
 
+def compact_repeated(pooled: pd.DataFrame, *, min_pairs: int = MIN_PAIRS) -> pd.DataFrame:
+    """Repeated-measures figures per feature (windows), compact: rmcorr, bias and limits for one window."""
+    rows = []
+    for _, r in pooled[pooled["scope"] == "window"].iterrows() if len(pooled) else []:
+        f = str(r["feature"])
+        nd = _digits(f)
+        n = int(r["n"]) if np.isfinite(float(r["n"])) else 0
+        g = lambda c: r.get(c, np.nan)  # noqa: E731 - repeated-measures columns may be absent
+        df = g("rmcorr_df")
+        ok = n >= min_pairs
+        rows.append({"Feature": feature_label(f, scope="window"), "Participants": _fmt(g("participants"), 0),
+                     "Windows": str(n),
+                     "rmcorr [95 % CI]": (_ci(g("rmcorr"), g("rmcorr_ci_low"), g("rmcorr_ci_high"), 2)
+                                          + (f" (df {_fmt(df, 0)})" if np.isfinite(float(df)) and df >= 1 else ""))
+                     if ok else "not shown",
+                     "Bias [95 % CI]": _ci(g("ba_rm_bias"), g("ba_rm_bias_ci_low"), g("ba_rm_bias_ci_high"), nd)
+                     if ok else "not shown",
+                     "Limits for one window": f"{_fmt(g('ba_rm_loa_low'), nd)} to {_fmt(g('ba_rm_loa_high'), nd)}"
+                     if ok else "not shown"})
+    return pd.DataFrame(rows)
+
+
+def compact_means(pooled: pd.DataFrame, *, min_pairs: int = MIN_PAIRS) -> pd.DataFrame:
+    """Participants' means compared, one point per participant, compact."""
+    rows = []
+    for _, r in pooled[pooled["scope"] == "window"].iterrows() if len(pooled) else []:
+        f = str(r["feature"])
+        nd = _digits(f)
+        g = lambda c: r.get(c, np.nan)  # noqa: E731
+        n = int(g("means_n")) if np.isfinite(float(g("means_n"))) else 0
+        ok = n >= min_pairs
+        rows.append({"Feature": feature_label(f, scope="window"), "Participants": str(n),
+                     "r [95 % CI]": _ci(g("means_pearson_r"), g("means_pearson_ci_low"), g("means_pearson_ci_high"),
+                                        2) if ok else "not shown",
+                     "ICC [95 % CI]": _ci(g("means_icc"), g("means_icc_ci_low"), g("means_icc_ci_high"), 2)
+                     if ok else "not shown",
+                     "Bias [95 % limits]": _ci(g("means_ba_bias"), g("means_ba_loa_low"), g("means_ba_loa_high"), nd,
+                                               sep=" to ") if ok else "not shown"})
+    return pd.DataFrame(rows)
+
+
+def compact_participants(per: pd.DataFrame) -> pd.DataFrame:
+    """One row per pair: labels, status, windows, overlap, offset with its confidence, fixation-count r, kappa."""
+    rows = []
+    for _, r in per.iterrows() if len(per) else []:
+        g = lambda c: r.get(c, np.nan)  # noqa: E731
+        who = " ".join(str(v) for v in (g("participant"), g("session"), g("task"), g("run"))
+                       if isinstance(v, str) and v) or str(g("key"))
+        ok = g("status") == "ok"
+        rows.append({"Pair": who, "Status": str(g("status")),
+                     "Windows": _fmt(g("windows_paired"), 0) if ok else "",
+                     "Overlap (s)": _fmt(g("overlap_s"), 1) if ok else "",
+                     "Offset (s), confidence": f"{_fmt(g('offset_s'), 3)}, {_fmt(g('offset_confidence'))}"
+                     if ok else "",
+                     "Fixations r": (_fmt(g("fixation_count_r")) if _fmt(g("windows_paired"), 0) != "n/a"
+                                     and float(g("windows_paired")) >= MIN_PAIRS else "not shown") if ok else "",
+                     "kappa": _fmt(g("kappa")) if ok else "",
+                     "Notes": "" if (isinstance(g("notes"), float) or g("notes") is None) else str(g("notes"))})
+    return pd.DataFrame(rows)
+
+
 def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.DataFrame, all_pairs: pd.DataFrame,
                         results: dict, failures: dict, params, *, figures: bool = True,
                         participant_means: pd.DataFrame | None = None, unpaired=()) -> tuple[str, dict]:
     """The HTML report of a study (per participant, pooled, repeated measures, summary table) and its PNG figures."""
     feats = list(params.features)
-    parts = [f"<!doctype html><html><head><meta charset='utf-8'><title>Validation study</title><style>{_CSS}"
-             "</style></head><body><h1>Webcam against lab tracker: study</h1>",
+    parts = [f"<!doctype html><html><head><meta charset='utf-8'>"
+             f"<meta name='viewport' content='width=device-width, initial-scale=1'><title>Validation study</title>"
+             f"<style>{_CSS}</style></head><body><h1>Webcam against lab eye tracker: study</h1>",
              f"<p>{len(results)} pair(s) validated, {len(failures)} failed. Same detector and parameters on both "
              f"sides ({html.escape(str(params.analysis.detector))}); windows of {params.window_length_s:g} s.</p>"]
     if failures:
@@ -399,51 +650,59 @@ def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.Dat
     if unpaired:
         parts.append("<div class='note'><strong>Not paired (not in any figure below)</strong><ul>" + "".join(
             f"<li>{html.escape(m)}</li>" for m in unpaired) + "</ul>The pairing is in pairing.csv.</div>")
-    parts.append("<h2>Summary</h2>" + _table_html(summary))
-    parts.append("<p>" + html.escape(summary_caption(params.icc_form)) + "</p>")
+    parts.append("<h2>Summary: all windows of all participants</h2>"
+                 + _agreement_section(pooled, "window", "windows"))
+    parts.append("<p class='small'>" + html.escape(summary_caption(params.icc_form)) + "</p>")
+    downloads = [("summary.csv", summary, "Summary table to paste (summary.csv)"),
+                 ("pooled_agreement.csv", pooled, "Full pooled table (pooled_agreement.csv)"),
+                 ("participants.csv", per, "Per participant (participants.csv)"),
+                 ("pooled_pairs.csv", all_pairs, "Paired values (pooled_pairs.csv)")]
+    if participant_means is not None:
+        downloads.append(("participant_means.csv", participant_means, "Participant means (participant_means.csv)"))
+    parts.append("<p>" + "".join(_download(*d) for d in downloads) + "</p>")
     parts.append(
         "<h2>Which figure is which</h2><ul>"
-        "<li><strong>Pooled, windows taken as independent</strong> (<code>pearson_r</code>, ICC, <code>ccc</code>, "
-        "<code>ba_bias</code>, <code>ba_loa</code>): every paired window of every participant is one point. Windows of "
-        "one participant share that participant's face, seat, light and reading speed, so they are not independent: "
-        "these intervals are too narrow, and a correlation across participants' different levels can look strong "
-        "although the webcam does not follow changes within a participant.</li>"
-        "<li><strong>Repeated-measures correlation</strong> (<code>rmcorr</code>, Bakdash &amp; Marusich 2017): "
-        "the common within-participant association - does the webcam go up when the reference goes up, for the same "
+        "<li><strong>Pooled, windows taken as independent</strong> (the summary above): every paired window of every "
+        "participant is one point. Windows of one participant share that participant's face, seat, light and "
+        "reading speed, so they are not independent: these intervals are too narrow, and a correlation across "
+        "participants' different levels can look strong although the webcam does not follow changes within a "
+        "participant.</li>"
+        "<li><strong>Repeated-measures correlation</strong> (rmcorr, Bakdash &amp; Marusich 2017): the common "
+        "within-participant association - does the webcam go up when the lab tracker goes up, for the same "
         "participant? Each participant keeps their own level; df = windows - participants - 1.</li>"
-        "<li><strong>Limits of agreement for repeated windows</strong> (<code>ba_rm_*</code>, "
-        "<code>ba_loa_repeated</code>; Bland &amp; Altman 2007, the case where the true value varies): the SD of a "
-        "single window's difference is split by a one-way ANOVA of the differences by participant into a "
-        "between-participant part (participants' biases differ) and a within-participant part; the limits use both, "
-        "so they say where one window of a new participant is expected to lie. Dotted lines in the Bland-Altman "
-        "plots; dashed: the pooled limits.</li>"
-        "<li><strong>Participant means</strong> (<code>means_*</code>): one point per participant (mean over their "
-        "windows), compared with Pearson r, ICC and Bland-Altman - how well the webcam ranks and measures "
-        "participants; those limits are for a participant's mean, not a single window.</li></ul>")
-    parts.append("<h2>Per participant</h2>" + _table_html(per))
-    parts.append("<h2>Pooled agreement (windows taken as independent)</h2>"
-                 + _table_html(pooled, [c for c in AGREEMENT_COLS if c in pooled.columns]))
+        "<li><strong>Limits of agreement for repeated windows</strong> (Bland &amp; Altman 2007, the case where the "
+        "true value varies): the SD of a single window's difference is split by a one-way ANOVA of the differences "
+        "by participant into a between-participant part (participants' biases differ) and a within-participant "
+        "part; the limits use both, so they say where one window of a new participant is expected to lie. Dotted "
+        "lines in the Bland-Altman plots; dashed: the pooled limits.</li>"
+        "<li><strong>Participant means</strong>: one point per participant (mean over their windows), compared with "
+        "Pearson r, ICC and Bland-Altman - how well the webcam ranks and measures participants; those limits are "
+        "for a participant's mean, not a single window.</li></ul>")
     if len(pooled) and "rmcorr" in pooled.columns:
         parts.append("<h2>Allowing for several windows per participant</h2>"
-                     + _table_html(pooled, [c for c in REPEATED_COLS if c in pooled.columns]))
-        parts.append("<p>Interval of rmcorr: Fisher z with df in place of n. Interval of ba_rm_bias: from the "
-                     "between- and within-participant variance of the differences, t on participants - 1 df. No "
+                     + _table_html(compact_repeated(pooled), cls="compact"))
+        parts.append("<p class='small'>Interval of rmcorr: Fisher z with df in place of n. Interval of the bias: from "
+                     "the between- and within-participant variance of the differences, t on participants - 1 df. No "
                      "interval is computed for the repeated-measures limits.</p>")
-        parts.append("<h2>Participant means compared</h2>"
-                     + _table_html(pooled, [c for c in MEANS_COLS if c in pooled.columns]))
-    if participant_means is not None and len(participant_means):
-        pm = participant_means[participant_means["scope"] == "window"]
-        parts.append("<h3>One row per participant and feature (windows)</h3>" + _table_html(pm))
+    if len(pooled) and "means_n" in pooled.columns:
+        means = compact_means(pooled)
+        parts.append("<h2>Participant means compared</h2>")
+        if len(means) and (pd.to_numeric(means["Participants"]) < MIN_PAIRS).all():
+            parts.append(f"<p class='note'>{html.escape(withheld_reason(int(pd.to_numeric(means['Participants']).max()), 'participants'))}</p>")
+        parts.append(_table_html(means, cls="compact"))
+    parts.append("<h2>Per participant</h2>" + _table_html(compact_participants(per), cls="compact"))
     pw = _window_pairs(all_pairs)
     pngs = {}
     if figures and len(pw):
-        pngs["study_scatter"] = scatter_figure(pw, feats, title="Webcam against reference, all windows",
+        pngs["study_scatter"] = scatter_figure(pw, feats, title="Webcam against lab tracker, all windows",
                                                groups=pw["participant"])
         pngs["study_bland_altman"] = bland_altman_figure(pw, pooled, feats,
                                                          title="Differences against means, all windows")
-        parts.append(_img("study_scatter", pngs["study_scatter"], "Webcam against reference, coloured by participant"))
+        parts.append(_img("study_scatter", pngs["study_scatter"],
+                          "Webcam against lab tracker, coloured by participant"))
         parts.append(_img("study_bland_altman", pngs["study_bland_altman"],
                           "Bland-Altman plots, all windows; dashed: pooled limits, dotted: limits for repeated "
                           "windows (Bland & Altman 2007)"))
-    parts.append("<p>Each participant's folder holds its own report.html. Research estimates only.</p></body></html>")
+    parts.append("<p class='small'>Each participant's folder holds its own report.html. Research estimates only."
+                 "</p></body></html>")
     return "\n".join(parts), pngs

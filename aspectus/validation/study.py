@@ -152,6 +152,8 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
     from aspectus.validation.report import render_study_report, summary_html, summary_markdown
 
     params = params or ValidateParams()
+    if params.window_s is None:  # one window length for every pair, so that their windows can be pooled
+        params = replace(params, window_s=params.window_length_s, step_s=params.window_step_s)
     raise_if_cancelled(cancel)
     rows, pairing = _study_rows(source, references=references, label_pattern=label_pattern,
                                 reference_glob=reference_glob, tables=mapping is not None, save_manifest=save_manifest)

@@ -254,15 +254,24 @@ class FrameLandmarker:
 
     def __call__(self, image: np.ndarray):
         """``(478, 2)`` landmarks in px of the largest face, or None."""
-        if self._mesh is None:
-            from aspectus._env import import_mediapipe
+        from aspectus._env import native_stderr_silenced
 
-            mp = import_mediapipe()  # heavy, only when needed
+        first = self._mesh is None
+        if first:
+            from aspectus._env import import_mediapipe, quiet_native_logs
 
-            self._mesh = mp.solutions.face_mesh.FaceMesh(static_image_mode=True, refine_landmarks=True,
-                                                         max_num_faces=self._max_faces)
+            quiet_native_logs()
+            with native_stderr_silenced():  # the graph's start-up lines are not for the user's terminal
+                mp = import_mediapipe()  # heavy, only when needed
+                self._mesh = mp.solutions.face_mesh.FaceMesh(static_image_mode=True, refine_landmarks=True,
+                                                             max_num_faces=self._max_faces)
+                self._mesh.process(np.zeros((64, 64, 3), dtype=np.uint8))  # as landmarks._warm_up
         H, W = image.shape[:2]
-        res = self._mesh.process(np.ascontiguousarray(image[..., :3]))
+        if first:  # some start-up lines come with the first real picture
+            with native_stderr_silenced():
+                res = self._mesh.process(np.ascontiguousarray(image[..., :3]))
+        else:
+            res = self._mesh.process(np.ascontiguousarray(image[..., :3]))
         if not res.multi_face_landmarks:
             return None
         best, best_area = None, -1.0

@@ -384,6 +384,21 @@ def test_validation_tab_compares_with_reference_and_exports_report(qtbot, window
     text = report.read_text()
     assert text.lstrip().lower().startswith("<!doctype html") or "<html" in text.lower()
     assert "p01" in text or "Bland" in text
+    # the table reads for a researcher: names with units; 1.5 s holds no window of 10 s, so no statistics
+    heads = [vv.model.headerData(c, Qt.Horizontal, Qt.DisplayRole) for c in range(vv.model.columnCount())]
+    assert "ICC [95 % CI]" in heads and "Feature" in heads, heads
+    # reopened later, the study shows this comparison again
+    window.flush_saves()
+    offset_text = vv.offset_label.text()
+    rows = vv.model.rowCount()
+    window.open_study(processed)
+    window.select_clip("p02_s01")
+    window.select_clip("p01_s01")
+    assert vv.saved_outcome is not None and vv.model.rowCount() == rows
+    assert "Earlier comparison" in vv.offset_label.text() and "-0.400" in vv.offset_label.text(), offset_text
+    # a new reference recording: the earlier comparison no longer applies and is not shown
+    assert vv.set_reference(table, mapping=m)
+    assert vv.saved_outcome is None and vv.model.rowCount() == 0
 
 
 def test_compare_all_clips_uses_given_offset_and_can_be_cancelled(qtbot, window, processed, tmp_path):
