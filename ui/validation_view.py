@@ -497,7 +497,7 @@ class ValidationView(QWidget):
         from aspectus.validation.windows import MIN_PAIRS
 
         parts = []
-        for scope, word in (("window", "windows"), ("segment", "segments")):
+        for scope in ("window", "segment"):
             t = compact_agreement(agreement, scope)
             if len(t):
                 parts.append(t.assign(Per=scope)[["Per", *t.columns]])

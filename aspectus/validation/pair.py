@@ -423,6 +423,8 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
             f"after alignment (offset {alignment.offset_s:.3f} s) the recordings do not overlap "
             f"(webcam {tw[0]:.1f}-{tw[-1]:.1f} s, reference {tr[0]:.1f}-{tr[-1]:.1f} s on the clip clock)",
             path=reference, hint="check the offset, the marker or the pairing of files")
+    from dataclasses import replace
+
     from aspectus.validation.windows import MIN_PAIRS, choose_window_s
 
     choice = choose_window_s(overlap, params.window_length_s, given=params.window_s is not None)

@@ -573,6 +573,12 @@ MEANS_COLS = ["scope", "feature", "means_n", "means_pearson_r", "means_pearson_c
               "means_ba_loa_high"]
 
 
+def _getter(row):
+    def g(col):
+        return row.get(col, np.nan)
+    return g
+
+
 def compact_repeated(pooled: pd.DataFrame, *, min_pairs: int = MIN_PAIRS) -> pd.DataFrame:
     """Repeated-measures figures per feature (windows), compact: rmcorr, bias and limits for one window."""
     rows = []
@@ -580,7 +586,7 @@ def compact_repeated(pooled: pd.DataFrame, *, min_pairs: int = MIN_PAIRS) -> pd.
         f = str(r["feature"])
         nd = _digits(f)
         n = int(r["n"]) if np.isfinite(float(r["n"])) else 0
-        g = lambda c: r.get(c, np.nan)  # noqa: E731 - repeated-measures columns may be absent
+        g = _getter(r)  # repeated-measures columns may be absent
         df = g("rmcorr_df")
         ok = n >= min_pairs
         rows.append({"Feature": feature_label(f, scope="window"), "Participants": _fmt(g("participants"), 0),
@@ -601,7 +607,7 @@ def compact_means(pooled: pd.DataFrame, *, min_pairs: int = MIN_PAIRS) -> pd.Dat
     for _, r in pooled[pooled["scope"] == "window"].iterrows() if len(pooled) else []:
         f = str(r["feature"])
         nd = _digits(f)
-        g = lambda c: r.get(c, np.nan)  # noqa: E731
+        g = _getter(r)
         n = int(g("means_n")) if np.isfinite(float(g("means_n"))) else 0
         ok = n >= min_pairs
         rows.append({"Feature": feature_label(f, scope="window"), "Participants": str(n),
@@ -618,7 +624,7 @@ def compact_participants(per: pd.DataFrame) -> pd.DataFrame:
     """One row per pair: labels, status, windows, overlap, offset with its confidence, fixation-count r, kappa."""
     rows = []
     for _, r in per.iterrows() if len(per) else []:
-        g = lambda c: r.get(c, np.nan)  # noqa: E731
+        g = _getter(r)
         who = " ".join(str(v) for v in (g("participant"), g("session"), g("task"), g("run"))
                        if isinstance(v, str) and v) or str(g("key"))
         ok = g("status") == "ok"
