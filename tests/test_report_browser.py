@@ -15,9 +15,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from aspectus.reference import write_demo_reference
+from aspectus.synth.lab_recording import write_demo_reference
 from aspectus.synth.trajectory import synth_trajectory
-from aspectus.validation.pair import ValidateParams, validate_pair, validate_study
+from aspectus.validation.pair import ValidateParams, validate_pair
+from aspectus.validation.study import validate_study
 
 CHROMIUM = os.environ.get("ASPECTUS_CHROMIUM") or shutil.which("chromium") or "/usr/bin/chromium"
 #: A4 is 210 mm wide; the report's print style has 14 mm margins: 182 mm = 688 CSS px at 96 px per inch
