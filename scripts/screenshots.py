@@ -17,7 +17,7 @@ import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
-VIEWS = ("clip_and_trace", "features", "validation", "column_mapping", "parameters")
+VIEWS = ("clip_and_trace", "features", "validation", "column_mapping", "parameters", "user_guide")
 
 
 def _wait(app, cond, timeout_s: float, what: str) -> None:
@@ -48,6 +48,7 @@ def main(argv=None) -> int:
     from ui.app import make_app
 
     app = make_app()
+    print(f"platform: {app.platformName()}", flush=True)
     from aspectus.studies.project import load_study
     from ui.main_window import MainWindow
 
@@ -126,6 +127,10 @@ def main(argv=None) -> int:
         dlg.close()
 
     grab(win.params_dock, "parameters")
+    guide = win.show_guide()
+    _settle(app)
+    grab(guide, "user_guide")
+    guide.close()
     win.flush_saves()
     win.shutdown()
     for pth in written:

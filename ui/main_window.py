@@ -32,7 +32,9 @@ from .workers import ProcessingRun, Reanalyser
 
 APP_TITLE = "aspectus"
 TAB_CLIP, TAB_RESULTS, TAB_VALIDATION = 0, 1, 2
-COL_NAME, COL_STATUS, COL_PROGRESS, COL_FACE, COL_USABLE = range(5)
+COL_NAME, COL_STATUS, COL_FACE, COL_USABLE = range(4)
+#: a clip's progress bar covers its status while it is queued or processing (one column fewer at 1366 px)
+COL_PROGRESS = COL_STATUS
 
 
 class _Provider:
@@ -118,8 +120,11 @@ class MainWindow(QMainWindow):
     def _build(self):
         # clip list
         self.clip_list = QTreeWidget()
-        self.clip_list.setHeaderLabels(["Clip", "Status", "Progress", "Face", "Usable"])
+        self.clip_list.setHeaderLabels(["Clip", "Status", "Face", "Usable"])
+        self.clip_list.headerItem().setToolTip(COL_STATUS, "Processing status; a progress bar while processing")
         self.clip_list.headerItem().setToolTip(COL_FACE, "Share of frames in which the face was tracked")
+        self.clip_list.headerItem().setToolTip(COL_USABLE, "The verdict on the clip's quality (hover over a clip's "
+                                                           "entry for the reasons)")
         self.clip_list.setRootIsDecorated(False)
         # clips of one study share a prefix: cut names in the middle so the participant and session show
         self.clip_list.setTextElideMode(Qt.ElideMiddle)
@@ -130,7 +135,15 @@ class MainWindow(QMainWindow):
         hdr = self.clip_list.header()
         hdr.setStretchLastSection(False)
         hdr.setSectionResizeMode(COL_NAME, QHeaderView.Stretch)
-        for col, w in ((COL_STATUS, 76), (COL_PROGRESS, 52), (COL_FACE, 50), (COL_USABLE, 46)):
+        fm = self.clip_list.fontMetrics()
+        hfm = hdr.fontMetrics()
+
+        def room(texts, header):  # the widest text of a column, and its header, with the cell's margins
+            return max(max(fm.horizontalAdvance(t) for t in texts) + 14, hfm.horizontalAdvance(header) + 16)
+
+        statuses = (*study_mod.STATUSES, "processing", "queued")
+        for col, w in ((COL_STATUS, room(statuses, "Status")), (COL_FACE, room(("100 %",), "Face")),
+                       (COL_USABLE, room(("yes", "no"), "Usable"))):
             hdr.setSectionResizeMode(col, QHeaderView.Fixed)
             self.clip_list.setColumnWidth(col, w)
         add_btn = QPushButton("Add clips…")
@@ -142,6 +155,7 @@ class MainWindow(QMainWindow):
         self.list_hint.setWordWrap(True)
         left = QWidget()
         left.setMinimumWidth(300)
+        self._left = left
         lv = QVBoxLayout(left)
         lv.setContentsMargins(4, 4, 0, 4)
         row = QHBoxLayout()
@@ -186,7 +200,7 @@ class MainWindow(QMainWindow):
         main_split.addWidget(self.tabs)
         main_split.setStretchFactor(0, 0)
         main_split.setStretchFactor(1, 1)
-        main_split.setSizes([330, 700])
+        main_split.setSizes([360, 680])
         self.main_split = main_split
 
         # processing bar
@@ -488,7 +502,9 @@ class MainWindow(QMainWindow):
                 bar = QProgressBar()
                 bar.setRange(0, 100)
                 bar.setTextVisible(True)
+                bar.setFormat("%p %")
                 bar.setMaximumHeight(16)
+                bar.hide()
                 self.clip_list.setItemWidget(it, COL_PROGRESS, bar)
                 existing[c.stem] = it
         for c in self.study.clips:
@@ -497,6 +513,18 @@ class MainWindow(QMainWindow):
             self.clip_list.setCurrentItem(existing[cur_key])
         self.clip_list.blockSignals(False)
         self.list_hint.setVisible(not self.study.clips or len(self.study.clips) < 3)
+        self._fit_clip_names()
+
+    def _fit_clip_names(self) -> None:
+        """Widen the clip list (up to 40 % of the window) so that the clips' names are not cut."""
+        fm = self.clip_list.fontMetrics()
+        names = [c.stem for c in self.study.clips]
+        if not names:
+            return
+        fixed = sum(self.clip_list.columnWidth(c) for c in range(1, self.clip_list.columnCount()))
+        need = max(fm.horizontalAdvance(n) for n in names) + 16 + fixed + 28  # cell margins, frame, scroll bar
+        # a minimum width holds before the window is laid out too; the user can still widen the list
+        self._left.setMinimumWidth(max(300, min(need, int(0.4 * max(self.width() - 330, 1000)))))
 
     def _item(self, key) -> QTreeWidgetItem | None:
         for i in range(self.clip_list.topLevelItemCount()):
@@ -529,8 +557,10 @@ class MainWindow(QMainWindow):
         it.setText(COL_USABLE, "" if usable is None else ("yes" if usable else "no"))
         it.setToolTip(COL_USABLE, s.get("verdict") or "")
         bar = self.clip_list.itemWidget(it, COL_PROGRESS)
-        if bar is not None and c.stem not in self._queued:
-            bar.setValue(100 if c.status in (study_mod.STATUS_DONE, study_mod.STATUS_STALE) else 0)
+        if bar is not None:
+            if c.stem not in self._queued:
+                bar.setValue(100 if c.status in (study_mod.STATUS_DONE, study_mod.STATUS_STALE) else 0)
+            bar.setVisible(c.stem in self._queued)
 
     def _on_current_changed(self, cur, _prev):
         if cur is None:

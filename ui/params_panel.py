@@ -88,7 +88,7 @@ SPECS: dict[str, Spec] = {
     "step_s": Spec("Window step", "s", 0.5, 3600, 1, 1, help="Start-to-start distance of the fixed windows "
                    "(equal to the length: windows do not overlap).", group="windows"),
     "idt_dispersion_deg": Spec("Spread threshold", "°", 0.1, 20, 0.1, 1, group="idt",
-                               optional="adapt to each clip's noise",
+                               optional="adapt to each clip",
                                help="Largest spread inside a fixation: (max-min yaw) + (max-min pitch). When "
                                "adapted, each clip gets its own threshold (rows below); run.json records it."),
     "idt_noise_factor": Spec("Adapted threshold: noise ×", "× noise", 1, 20, 0.5, 1, group="idt",

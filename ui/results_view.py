@@ -65,12 +65,41 @@ class DataFrameModel(QAbstractTableModel):
             return int(Qt.AlignRight | Qt.AlignVCenter)
         return None
 
+    #: show column names as people read them (set by views that list the library's tables)
+    human_headers = False
+
     def headerData(self, section, orientation, role=Qt.DisplayRole):  # noqa: N802 - Qt API
+        if orientation == Qt.Horizontal and section < len(self._df.columns):
+            name = str(self._df.columns[section])
+            if role == Qt.DisplayRole:
+                return _human(name) if self.human_headers else name
+            if role == Qt.ToolTipRole and self.human_headers:
+                return _column_tip(name)
+            return None
         if role != Qt.DisplayRole:
             return None
-        if orientation == Qt.Horizontal:
-            return str(self._df.columns[section]) if section < len(self._df.columns) else None
         return str(section + 1)
+
+
+def _human(name: str) -> str:
+    """A column's label with its unit (aspectus.schema), two lines when long, so columns stay narrow."""
+    from aspectus.schema import column, human_label
+
+    if name in ("clip", "scope", "label"):
+        return name.capitalize()
+    text = human_label(name) if column(name) is not None or name in QUALITY_COLUMNS else name
+    if len(text) > 16 and " (" in text:
+        text = text.replace(" (", "\n(", 1)
+    elif len(text) > 16 and ", " in text:
+        text = text.replace(", ", ",\n", 1)
+    return text
+
+
+def _column_tip(name: str) -> str:
+    from aspectus.schema import column
+
+    c = column(name)
+    return f"{name}: {c.doc}" if c is not None and c.doc else name
 
 
 _CACHE: dict[Path, tuple[float, pd.DataFrame]] = {}
@@ -179,6 +208,7 @@ class ResultsView(QWidget):
         self.export_btn.clicked.connect(self._export_dialog)
         self.count_label = QLabel()
         self.count_label.setStyleSheet("color: #555;")
+        self.count_label.setWordWrap(True)
         top = QHBoxLayout()
         top.addWidget(QLabel("Clips:"))
         top.addWidget(self.clips_box)
@@ -188,6 +218,7 @@ class ResultsView(QWidget):
         top.addWidget(self.export_btn)
 
         self.model = DataFrameModel()
+        self.model.human_headers = True
         self.table = QTableView()
         self.table.setModel(self.model)
         self.table.setAlternatingRowColors(True)
@@ -198,12 +229,13 @@ class ResultsView(QWidget):
         self.canvas.setMinimumWidth(280)
         self._dirty = True
 
-        split = QSplitter(Qt.Horizontal)
+        # the histogram below the table: the table gets the tab's whole width for its many columns
+        split = QSplitter(Qt.Vertical)
         split.addWidget(self.table)
         split.addWidget(self.canvas)
         split.setStretchFactor(0, 3)
         split.setStretchFactor(1, 2)
-        split.setSizes([600, 400])  # the table first: the canvas' own size hint would otherwise take most
+        split.setSizes([380, 240])  # the table first: the canvas' own size hint would otherwise take most
         self.split = split
         lay = QVBoxLayout(self)
         lay.setContentsMargins(4, 4, 4, 4)
@@ -265,7 +297,7 @@ class ResultsView(QWidget):
         df = self.current_table()
         self.model.set_frame(df)
         self.table.resizeColumnsToContents()
-        for c in range(min(df.shape[1], 40)):
+        for c in range(min(df.shape[1], 60)):
             if self.table.columnWidth(c) > 260:
                 self.table.setColumnWidth(c, 260)
         n = len(df)
