@@ -256,8 +256,7 @@ class FrameLandmarker:
         """``(478, 2)`` landmarks in px of the largest face, or None."""
         from aspectus._env import native_stderr_silenced
 
-        first = self._mesh is None
-        if first:
+        if self._mesh is None:
             from aspectus._env import import_mediapipe, quiet_native_logs
 
             quiet_native_logs()
@@ -267,9 +266,11 @@ class FrameLandmarker:
                                                              max_num_faces=self._max_faces)
                 self._mesh.process(np.zeros((64, 64, 3), dtype=np.uint8))  # as landmarks._warm_up
         H, W = image.shape[:2]
-        if first:  # some start-up lines come with the first real picture
+        if not getattr(self, "_face_seen", False):
+            # the landmark model starts (and prints its lines) only with the first picture that holds a face
             with native_stderr_silenced():
                 res = self._mesh.process(np.ascontiguousarray(image[..., :3]))
+            self._face_seen = bool(res.multi_face_landmarks)
         else:
             res = self._mesh.process(np.ascontiguousarray(image[..., :3]))
         if not res.multi_face_landmarks:
