@@ -23,7 +23,7 @@ NAMES = ("linden_brook_p01_s01", "linden_brook_p02_s01", "linden_brook_p13_s02")
 def window(qtbot, tmp_path):
     from ui.main_window import MainWindow
 
-    src = Path(__file__).resolve().parents[1] / "sample_clips"
+    src = Path(__file__).resolve().parents[2] / "sample_clips"
     clip = next(iter(sorted(src.glob("*.mp4"))), None)
     if clip is None:
         pytest.skip("sample_clips/*.mp4 absent: run scripts/make_sample_clips.py")

@@ -17,7 +17,7 @@ import pytest
 pytest.importorskip("PySide6")
 pytestmark = [pytest.mark.gui, pytest.mark.slow]
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 ARTEFACTS = ROOT / "test-artifacts" / "screenshots"
 VIEWS = ("clip_and_trace", "features", "validation", "parameters", "user_guide")
 
