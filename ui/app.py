@@ -125,6 +125,18 @@ def run(*, study: str | None = None, new: bool = False) -> int:
         if recent and Path(recent[0]).is_file():
             win.open_study(recent[0])
     win.show()
+    quit_ms = os.environ.get("ASPECTUS_APP_QUIT_AFTER_MS")  # smoke tests: show the window, say so, close
+    if quit_ms:
+        from PySide6.QtCore import QTimer
+
+        def report_and_quit():
+            print(f"window shown: {win.windowTitle()!r} {win.width()}x{win.height()} "
+                  f"(platform {app.platformName()}, visible {win.isVisible()})", flush=True)
+            win.quiet = True
+            win.close()
+            app.quit()
+
+        QTimer.singleShot(int(quit_ms), report_and_quit)
     return int(app.exec())
 
 
