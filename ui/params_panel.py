@@ -61,19 +61,19 @@ SPECS: dict[str, Spec] = {
                                "that are joined.", group="detection"),
     "merge_noise_factor": Spec("… or nearer than noise ×", "× noise", 0, 10, 0.1, 2, help="The joining angle grows "
                                "with the clip's noise: the larger of the angle above and this many times the "
-                               "sample-to-sample noise. 0 switches it off.", group="detection"),
+                               "sample-to-sample noise. 0 switches it off.", group="tuning"),
     "merge_alpha": Spec("Join when positions not different at level", "", 0, 0.5, 0.01, 3, help="Neighbouring "
                         "fixations are also joined when their mean positions do not differ at this significance "
                         "level, given the noise inside them (noisy webcam gaze splits fixations into fragments). "
-                        "0 switches it off.", group="detection"),
+                        "0 switches it off.", group="tuning"),
     "saccade_max_ms": Spec("Longest gap still called a saccade", "ms", 20, 1000, 10, help="Between two fixations "
                            "closer in time than this a saccade is recorded; a longer gap is not a saccade.",
                            group="detection"),
     "edge_speed_factor": Spec("Trim fixation edges faster than", "× median speed", 0, 20, 0.05, 2, help="Samples at "
                               "a fixation's start or end moving faster than this many times the clip's median gaze "
-                              "speed belong to the saccade and are cut off. 0 switches it off.", group="detection"),
+                              "speed belong to the saccade and are cut off. 0 switches it off.", group="tuning"),
     "edge_velocity_window_ms": Spec("Speed measured over", "ms", 0, 200, 5, help="Time span over which that gaze "
-                                    "speed is measured (at least 3 samples).", group="detection"),
+                                    "speed is measured (at least 3 samples).", group="tuning"),
     "gap_fill_max_ms": Spec("Fill gaps up to", "ms", 0, 500, 5, help="Shorter losses of the signal are "
                             "interpolated; longer ones count as data loss.", group="cleanup"),
     "interpolation": Spec("Gap filling", choices=(("steffen", "Steffen (monotone)"), ("linear", "linear")),
@@ -129,8 +129,51 @@ SPECS: dict[str, Spec] = {
 }
 
 _GROUP_TITLES = (("detection", "Fixation detection"), ("idt", "I-DT settings"), ("ivt", "I-VT settings"),
-                 ("i2mc", "I2MC settings"), ("cleanup", "Gaps and smoothing"), ("windows", "Feature windows"),
-                 ("more", "More parameters"))
+                 ("i2mc", "I2MC settings"), ("tuning", "Joining and trimming fixations"),
+                 ("cleanup", "Gaps and smoothing"), ("windows", "Feature windows"), ("more", "More parameters"))
+#: sections shown folded at first (the panel fits a 768-px-high screen); a folded section says how many of its
+#: values differ from the default
+FOLDED = ("tuning", "cleanup", "windows", "more", "processing")
+
+
+class Section(QWidget):
+    """A titled section that folds: a header button (arrow, title, changed count) above its group box."""
+
+    def __init__(self, key: str, title: str, box: QGroupBox, *, folded: bool, parent=None):
+        super().__init__(parent)
+        from PySide6.QtWidgets import QToolButton
+
+        self.key, self.title, self.box = key, title, box
+        self.header = QToolButton()
+        self.header.setObjectName(f"section_{key}")
+        self.header.setCheckable(True)
+        self.header.setChecked(not folded)
+        self.header.setToolButtonStyle(Qt.ToolButtonTextBesideIcon)
+        self.header.setAutoRaise(True)
+        self.header.setSizePolicy(QSizePolicy.Expanding, QSizePolicy.Fixed)
+        self.header.setStyleSheet("QToolButton { font-weight: 600; text-align: left; }")
+        self.header.toggled.connect(self._toggled)
+        box.setTitle("")
+        lay = QVBoxLayout(self)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.setSpacing(0)
+        lay.addWidget(self.header)
+        lay.addWidget(box)
+        self._changed = 0
+        self._toggled(not folded)
+
+    def _toggled(self, on: bool) -> None:
+        self.header.setArrowType(Qt.DownArrow if on else Qt.RightArrow)
+        self.box.setVisible(on)
+        self.set_changed(self._changed)
+
+    def set_changed(self, n: int) -> None:
+        self._changed = n
+        extra = f"  {CHANGED_MARK.strip()} {n} changed" if n and not self.header.isChecked() else ""
+        self.header.setText(self.title + extra)
+
+    def unfold(self, on: bool = True) -> None:
+        self.header.setChecked(on)
 
 
 def _decimals_for(value) -> int:
@@ -242,6 +285,8 @@ class ParamsPanel(QWidget):
         intro.setStyleSheet("color: #555;")
         v.addWidget(intro)
         self._groups: dict[str, QGroupBox] = {}
+        self.sections: dict[str, Section] = {}
+        self._group_of: dict[str, str] = {}
         forms: dict[str, QFormLayout] = {}
         for key, title in _GROUP_TITLES:
             box = QGroupBox(title)
@@ -271,6 +316,7 @@ class ParamsPanel(QWidget):
                 child.setToolTip(tip)
             _narrow(w)
             self._labels[name] = lab
+            self._group_of[name] = spec.group
             forms[spec.group].addRow(lab, w)
         # segments of the current clip
         seg_box = QGroupBox("Task segments of this clip")
@@ -326,6 +372,7 @@ class ParamsPanel(QWidget):
             lab.setWordWrap(True)
             lab.setToolTip(w.toolTip())
             self._labels[key] = lab
+            self._group_of[key] = "processing"
             pf.addRow(lab, w)
         for w in (self.fov, self.max_faces):
             w.valueChanged.connect(self._emit_process)
@@ -335,11 +382,13 @@ class ParamsPanel(QWidget):
         self.defaults_btn.setToolTip("Set every parameter on this panel back to the default")
         self.defaults_btn.clicked.connect(self.restore_defaults)
 
-        for key, _t in _GROUP_TITLES:
+        for key, title in _GROUP_TITLES:
             if forms[key].rowCount():
-                v.addWidget(self._groups[key])
+                self.sections[key] = Section(key, title, self._groups[key], folded=key in FOLDED)
+                v.addWidget(self.sections[key])
         v.addWidget(seg_box)
-        v.addWidget(proc)
+        self.sections["processing"] = Section("processing", "Processing settings", proc, folded=True)
+        v.addWidget(self.sections["processing"])
         v.addWidget(self.defaults_btn)
         v.addStretch(1)
         scroll = QScrollArea()
@@ -407,8 +456,8 @@ class ParamsPanel(QWidget):
     def _show_detector_groups(self, *_):
         det = self._widgets["detector"][1].currentData() if "detector" in self._widgets else None
         for key in ("idt", "ivt", "i2mc"):
-            if key in self._groups:
-                self._groups[key].setVisible(key == det)
+            if key in getattr(self, "sections", {}):
+                self.sections[key].setVisible(key == det)
 
     # ---------------------------------------------------------------- state
     def set_values(self, analysis: dict | None, process: dict | None = None) -> None:
@@ -464,6 +513,8 @@ class ParamsPanel(QWidget):
     def update_markers(self) -> None:
         """Mark every parameter that differs from its default (bullet, bold, tooltip says from what)."""
         changed = set(self.changed_names())
+        for key, sec in getattr(self, "sections", {}).items():
+            sec.set_changed(sum(1 for n in changed if self._group_of.get(n) == key))
         for name, lab in self._labels.items():
             spec = self._specs.get(name)
             base = spec.label if spec is not None else lab.property("base_text") or lab.text()

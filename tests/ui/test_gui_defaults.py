@@ -72,8 +72,12 @@ def test_gui_new_command_starts_with_defaults(qtbot, monkeypatch):
 
     from PySide6.QtWidgets import QApplication
 
+    before = {id(w) for w in QApplication.topLevelWidgets()}
+
     def fake_exec(*_a):
-        shown["win"] = [w for w in QApplication.topLevelWidgets() if w.objectName() == "aspectus_main"][-1]
+        new_ = [w for w in QApplication.topLevelWidgets() if w.objectName() == "aspectus_main" and id(w) not in before]
+        assert len(new_) == 1
+        shown["win"] = new_[0]
         return 0
 
     monkeypatch.setattr(QApplication, "exec", fake_exec)

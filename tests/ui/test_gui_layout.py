@@ -115,6 +115,10 @@ def test_nothing_cut_at_1366x768(window):
     combo = win.params._widgets["detector"][1]
     for i in range(combo.count()):
         assert combo.fontMetrics().horizontalAdvance(combo.itemText(i)) <= combo.width() - 30, combo.itemText(i)
+    # folded sections say how many of their values differ from the default
+    win.params.set_value("gap_fill_max_ms", 100.0)
+    sec = win.params.sections["cleanup"]
+    assert not sec.header.isChecked() and "1 changed" in sec.header.text()
     # no horizontal scrolling in the parameters panel
     from PySide6.QtWidgets import QScrollArea
 
@@ -125,8 +129,10 @@ def test_nothing_cut_at_1366x768(window):
 
 
 def test_every_parameter_group_fits(window):
-    """Each detector's settings in turn (the panel shows only the chosen detector's group)."""
+    """Each detector's settings in turn (the panel shows only the chosen detector's group), every section open."""
     win = window
+    for sec in win.params.sections.values():
+        sec.unfold()
     for det in ("idt", "ivt", "i2mc"):
         win.params.set_value("detector", det)
         bad = _cut(win)
