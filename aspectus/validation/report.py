@@ -591,9 +591,9 @@ def compact_repeated(pooled: pd.DataFrame, *, min_pairs: int = MIN_PAIRS) -> pd.
         ok = n >= min_pairs
         rows.append({"Feature": feature_label(f, scope="window"), "Participants": _fmt(g("participants"), 0),
                      "Windows": str(n),
-                     "rmcorr [95 % CI]": (_ci(g("rmcorr"), g("rmcorr_ci_low"), g("rmcorr_ci_high"), 2)
-                                          + (f" (df {_fmt(df, 0)})" if np.isfinite(float(df)) and df >= 1 else ""))
+                     "rmcorr [95 % CI]": _ci(g("rmcorr"), g("rmcorr_ci_low"), g("rmcorr_ci_high"), 2)
                      if ok else "not shown",
+                     "df": _fmt(df, 0) if ok and np.isfinite(float(df)) and df >= 1 else "",
                      "Bias [95 % CI]": _ci(g("ba_rm_bias"), g("ba_rm_bias_ci_low"), g("ba_rm_bias_ci_high"), nd)
                      if ok else "not shown",
                      "Limits for one window": f"{_fmt(g('ba_rm_loa_low'), nd)} to {_fmt(g('ba_rm_loa_high'), nd)}"
@@ -658,7 +658,12 @@ def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.Dat
             f"<li>{html.escape(m)}</li>" for m in unpaired) + "</ul>The pairing is in pairing.csv.</div>")
     parts.append("<h2>Summary: all windows of all participants</h2>"
                  + _agreement_section(pooled, "window", "windows"))
-    parts.append("<p class='small'>" + html.escape(summary_caption(params.icc_form)) + "</p>")
+    parts.append("<p class='small'>Windows taken as independent: every paired window of every participant is one point (see \"Which "
+                 "figure is which\" below: these intervals are too narrow when participants differ). r: Pearson "
+                 f"correlation; ICC: {html.escape(ICC_FORM_TEXT.get(params.icc_form, params.icc_form))}; bias: mean "
+                 "of webcam minus lab tracker with the 95 % limits of agreement. The summary table to paste "
+                 "(summary.csv, .md, .html) has these and the figures allowing for several windows per participant, "
+                 "with their column names explained in its caption.</p>")
     downloads = [("summary.csv", summary, "Summary table to paste (summary.csv)"),
                  ("pooled_agreement.csv", pooled, "Full pooled table (pooled_agreement.csv)"),
                  ("participants.csv", per, "Per participant (participants.csv)"),
