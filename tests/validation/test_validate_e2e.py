@@ -88,7 +88,7 @@ def render_lund_clip(lund_dir, clip) -> None:
 def _render_in_fresh_interpreter(lund_dir, clip) -> None:
     # Rendered in a fresh interpreter, so that the test's input cannot depend on which tests ran before
     # it (it once did: libx264's AVX-512 code read unwritten memory - aspectus.synth.clip_writer.x264_options).
-    code = ("import sys; sys.path.insert(0, sys.argv[1]); from test_validate_e2e import render_lund_clip; "
+    code = ("import sys; sys.path[:0] = [sys.argv[1], sys.argv[1] + '/..']; from test_validate_e2e import render_lund_clip; "
             "render_lund_clip(sys.argv[2], sys.argv[3])")
     r = subprocess.run([sys.executable, "-c", code, str(Path(__file__).parent), str(lund_dir), str(clip)],
                        capture_output=True, text=True, timeout=1200)
