@@ -73,6 +73,9 @@ def register(sub) -> None:
     c.add_argument("--min-valid-frac", type=float, default=0.5, metavar="F",
                    help="leave out windows with less valid data than this on either side (default 0.5)")
     c.add_argument("--no-figures", action="store_true", help="skip the PNG figures")
+    c.add_argument("--force-agreement", action="store_true",
+                   help="report the agreement figures even when the automatic alignment is uncertain (by default "
+                        "they are withheld then)")
     from aspectus.cli.process_cmd import add_analysis_arguments
 
     add_analysis_arguments(p)
@@ -108,7 +111,7 @@ def run(args) -> int:
         webcam_marker_s=args.webcam_marker_s, search_range_s=args.search_range_s, align_signal=args.align_signal,
         estimate_drift=args.drift, resample_reference_hz=args.resample_reference_hz,
         reference_events=args.reference_events, icc_form=args.icc_form, match_tolerance_s=args.match_tolerance_s,
-        min_valid_frac=args.min_valid_frac)
+        min_valid_frac=args.min_valid_frac, force_agreement=args.force_agreement)
     folder_mode = bool(args.webcam and args.reference and Path(args.reference).is_dir())
     if args.manifest or folder_mode:
         if args.manifest and (args.webcam or args.reference):
@@ -145,6 +148,9 @@ def run(args) -> int:
         line += f"; fixation count per window r {fc['pearson_r'].iloc[0]:.2f}, ICC {fc['icc'].iloc[0]:.2f} " \
                 f"(n={int(fc['n'].iloc[0])})"
     print(line + f" -> {r.paths['report']}")
+    if r.meta.get("agreement_withheld"):
+        print("WARNING: the alignment is uncertain - agreement figures withheld (see the note below; "
+              "--force-agreement shows them)")
     for n in r.notes:
         print(f"  note: {n}", file=sys.stderr)
     return 0

@@ -101,6 +101,10 @@ class ValidateParams:
         Shrout & Fleiss form reported as ``icc`` (default ``"2,1"``).
     confidence : float
         Confidence level of every interval.
+    force_agreement : bool
+        Report the agreement figures even when the automatic alignment is
+        uncertain (they are withheld by default then: a wrong offset pairs
+        unrelated moments and can still give a high ICC).
     """
 
     analysis: object = None
@@ -120,6 +124,7 @@ class ValidateParams:
     match_tolerance_s: float = 0.1
     icc_form: str = DEFAULT_ICC_FORM
     confidence: float = 0.95
+    force_agreement: bool = False
 
     def __post_init__(self):
         if self.analysis is None:
@@ -501,6 +506,13 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
         n_w = int(agreement.loc[agreement["scope"] == "window", "n"].max())
         if n_w < SMALL_N:
             notes.append(f"only {n_w} paired windows: every interval is wide; treat the figures as a first look")
+    withheld = alignment_uncertain(alignment) and not params.force_agreement
+    if withheld:  # a wrong offset pairs unrelated moments: the figures would mislead, so they are not given
+        agreement, events = _withhold(agreement, events)
+        notes.insert(0, WITHHELD_NOTE.format(conf=alignment.confidence, peak=alignment.peak_corr))
+    elif alignment_uncertain(alignment):
+        notes.insert(0, "THE ALIGNMENT IS UNCERTAIN: the agreement figures are shown because --force-agreement was "
+                        "given; they are only as good as the offset")
     from aspectus.validation.report import plain_reading
 
     meta = {
@@ -516,6 +528,7 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
         "webcam_quality": res_w.quality, "reference_quality": res_r.quality,
         "reference_measured_at": (f"{params.resample_reference_hz:g} Hz (resampled)" if params.resample_reference_hz
                                   else f"its own rate ({ref.rate_hz:.0f} Hz)"),
+        "agreement_withheld": bool(withheld),
     }
     result = ValidationResult(agreement=agreement, pairs=pairs, alignment=alignment, events=events, webcam=cam,
                               reference=ref_aligned, webcam_analysis=res_w, reference_analysis=res_r, notes=notes,
@@ -524,6 +537,43 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     if write:
         write_validation(result, out_dir, figures=figures)
     return result
+
+
+#: the first note of a validation whose automatic alignment is uncertain
+WITHHELD_NOTE = ("THE ALIGNMENT IS UNCERTAIN (confidence {conf:.2f}, peak correlation {peak:.2f}): the agreement "
+                 "figures are withheld, because a wrong offset pairs unrelated moments and can still give high "
+                 "figures - check the offset in the time-series figure, give --offset-s or a shared marker, or add "
+                 "--force-agreement to see the figures anyway")
+
+
+def alignment_uncertain(alignment) -> bool:
+    """Whether an automatic (cross-correlation) alignment is too uncertain to trust (aspectus.validation.align)."""
+    from aspectus.validation.align import LOW_CONFIDENCE
+
+    if not str(alignment.method).startswith("cross-correlation"):
+        return False  # a marker or the user's offset
+    peak = alignment.peak_corr
+    return bool(alignment.confidence < LOW_CONFIDENCE or not (peak == peak) or peak < 0.2)
+
+
+def _withhold(agreement: pd.DataFrame, events: dict) -> tuple[pd.DataFrame, dict]:
+    """The agreement table and event figures with every agreement figure blanked (counts kept)."""
+    ag = agreement.copy()
+    for c in ag.columns:
+        keep = c in ("scope", "label", "feature", "n", "confidence") or c.startswith(("mean_", "sd_"))
+        if not keep and pd.api.types.is_float_dtype(ag[c]):
+            ag[c] = np.nan
+    ev = dict(events)
+    for k in ("kappa", "kappa_ci_low", "kappa_ci_high", "f1", "precision", "recall", "kappa_all_labels"):
+        if k in ev:
+            ev[k] = float("nan")
+    nan = float("nan")
+    ev["matching"] = {t: dict(m, f1=nan, precision=nan, recall=nan) if isinstance(m, dict) else m
+                      for t, m in (ev.get("matching") or {}).items()}
+    ev["gain"] = {k: (dict(g, estimate=nan, ci_low=nan, ci_high=nan) if isinstance(g, dict) and "estimate" in g else g)
+                  for k, g in (ev.get("gain") or {}).items()}
+    ev["withheld"] = True
+    return ag, ev
 
 
 def _recorded(path, out_dir) -> str:

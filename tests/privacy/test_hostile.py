@@ -655,3 +655,53 @@ def test_sound_longer_than_the_video_is_not_called_truncation(tmp_path):
     r = DecodeReport()
     list(iter_frames(cut, report=r))
     assert r.stopped_early and "truncated" in r.stopped_early, r
+
+
+# --- validation against an unrelated reference ---------------------------------------------------
+
+@pytest.fixture(scope="module")
+def unrelated_pair(tmp_path_factory):
+    """A webcam recording, its true lab recording, and the lab recording shuffled in 1 s blocks (unrelated)."""
+    sys.path.insert(0, str(REPO / "tests" / "validation"))
+    from test_validate import _webcam_folder
+
+    from aspectus.synth.lab_recording import write_demo_reference
+    from aspectus.synth.trajectory import synth_trajectory
+
+    root = tmp_path_factory.mktemp("unrelated")
+    truth = synth_trajectory(duration_s=42.0, seed=3, task="reading").samples
+    true_ref = write_demo_reference(truth, root / "lab", stem="p01_s01", offset_s=-1.25, rate_hz=250.0, seed=1)
+    cam = _webcam_folder(root / "out" / "p01_s01", truth)
+    blocks = np.floor(truth["t_s"]).astype(int)
+    order = np.random.default_rng(5).permutation(blocks.max() + 1)
+    shuffled = pd.concat([truth[blocks == b] for b in order], ignore_index=True)
+    fake = truth.copy()
+    for c in fake.columns:
+        if c != "t_s":
+            fake[c] = shuffled[c].to_numpy()
+    fake_ref = write_demo_reference(fake, root / "lab2", stem="p01_s01", offset_s=-1.25, rate_hz=250.0, seed=1)
+    return cam, true_ref["physio"], fake_ref["physio"]
+
+
+def test_uncertain_alignment_withholds_the_agreement_figures(unrelated_pair, tmp_path, capsys):
+    """Issue 17.15: an unrelated reference validated with ICC 0.79 and no warning beyond a low kappa."""
+    from test_validate import _params
+
+    from aspectus.validation.pair import validate_pair
+
+    cam, true_ref, fake_ref = unrelated_pair
+    good = validate_pair(cam, true_ref, write=False, params=_params())
+    assert not good.meta["agreement_withheld"] and np.isfinite(good.events["kappa"])
+    r = validate_pair(cam, fake_ref, tmp_path / "v", params=_params())
+    assert r.meta["agreement_withheld"] and r.notes[0].startswith("THE ALIGNMENT IS UNCERTAIN")
+    assert not np.isfinite(r.events["kappa"]) and r.agreement["icc"].isna().all()
+    assert r.agreement["pearson_r"].isna().all() and (r.agreement["n"] >= 0).all()
+    assert json.loads((tmp_path / "v" / "validation.json").read_text())["agreement_withheld"] is True
+    assert "THE ALIGNMENT IS UNCERTAIN" in (tmp_path / "v" / "report.html").read_text()
+    forced = validate_pair(cam, fake_ref, write=False, params=_params(force_agreement=True))
+    assert not forced.meta["agreement_withheld"] and np.isfinite(forced.events["kappa"])
+    assert "--force-agreement was given" in forced.notes[0]
+    # the command line says so on its first lines
+    code = main(["validate", str(cam), str(fake_ref), "-o", str(tmp_path / "cli"), "--no-figures"])
+    out = capsys.readouterr().out
+    assert code == 0 and "WARNING: the alignment is uncertain - agreement figures withheld" in out
