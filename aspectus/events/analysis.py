@@ -416,7 +416,9 @@ def _read_samples_file(path: Path) -> pd.DataFrame | None:
         try:
             df = pd.read_parquet(path)
         except Exception as exc:  # pyarrow raises several error kinds
-            raise AspectusInputError(f"cannot read as Parquet ({exc})", path=path) from exc
+            first = (str(exc).strip().splitlines() or [type(exc).__name__])[0]  # pyarrow's messages run to lines
+            raise AspectusInputError(f"cannot read as Parquet ({first})", path=path,
+                                     hint="the file is damaged or not Parquet; write it again") from None
         return df
     try:
         head = pd.read_csv(path, nrows=0, sep=None, engine="python")

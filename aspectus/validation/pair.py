@@ -192,7 +192,12 @@ def load_webcam(path) -> tuple[pd.DataFrame, Path, dict]:
                                     hint="WEBCAM is a clip's output folder from `aspectus process` (or the clip)")
         return load_samples(p), p, read_run_json(p) or {}
     if p.suffix == ".parquet" and p.exists():
-        return pd.read_parquet(p), p.parent, read_run_json(p.parent) or {}
+        try:
+            return pd.read_parquet(p), p.parent, read_run_json(p.parent) or {}
+        except Exception as exc:  # noqa: BLE001 - pyarrow raises many kinds, over several lines
+            first = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+            raise AspectusInputError(f"cannot read as Parquet ({first})", path=p,
+                                     hint="the file is damaged or not Parquet; process the clip again") from None
     if p.suffix == ".csv" and p.exists():
         from aspectus.schema import check_samples
 
@@ -416,7 +421,12 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     segs = _segments(segments, cam_dir, run)
     ref = read_reference(reference, mapping, screen=screen)
     notes: list[str] = []
-    alignment = _align(cam, ref, params, segs)
+    try:
+        alignment = _align(cam, ref, params, segs)
+    except AspectusInputError as exc:
+        if exc.path is not None:
+            raise
+        raise AspectusInputError(exc.problem, path=ref.path, where=exc.where, hint=exc.hint) from None
     notes += alignment.notes
     ref_aligned = apply_alignment(ref.samples, alignment)
     if params.resample_reference_hz:

@@ -579,7 +579,8 @@ def load_samples(out_dir, *, verify: bool = True) -> pd.DataFrame:
     try:
         return pd.read_parquet(p)
     except Exception as exc:  # noqa: BLE001 - pyarrow raises many kinds
-        raise CacheError(f"samples.parquet cannot be read ({exc})", path=p,
+        first = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+        raise CacheError(f"samples.parquet cannot be read ({first})", path=p,
                          hint="process the clip again to rebuild it") from None
 
 

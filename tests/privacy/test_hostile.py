@@ -705,3 +705,21 @@ def test_uncertain_alignment_withholds_the_agreement_figures(unrelated_pair, tmp
     code = main(["validate", str(cam), str(fake_ref), "-o", str(tmp_path / "cli"), "--no-figures"])
     out = capsys.readouterr().out
     assert code == 0 and "WARNING: the alignment is uncertain - agreement figures withheld" in out
+
+
+def test_damaged_parquet_is_one_line(tmp_path, capsys):
+    p = tmp_path / "samples.parquet"
+    p.write_bytes(b"PAR1" + bytes(range(256)) * 4 + b"PAR1")
+    assert main(["events", str(p), "-o", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "samples.parquet" in err and "Parquet" in err, err
+
+
+def test_too_short_reference_error_names_the_file(unrelated_pair, tmp_path, capsys):
+    cam, _, _ = unrelated_pair
+    ref = tmp_path / "p01_s01_short.csv"
+    ref.write_text("time_ms,gx_deg,gy_deg\n" + "".join(f"{i * 4},{i % 3},{i % 2}\n" for i in range(5)))
+    code = main(["validate", str(cam), str(ref), "-o", str(tmp_path / "v"), "--time-col", "time_ms",
+                 "--time-unit", "ms", "--x-col", "gx_deg", "--y-col", "gy_deg", "--no-figures"])
+    err = capsys.readouterr().err
+    assert code == 2 and "p01_s01_short.csv" in err and "too short" in err, err
