@@ -234,7 +234,9 @@ def xcorr_start(t_s, yaw_deg, pitch_deg, valid, schedule: Schedule, *, search_fr
             continue
         rx = _pearson(yw[m], x[m])
         ry = _pearson(pt[m], y[m])
-        scores[k] = np.nanmean([rx, ry])
+        vals = [v for v in (rx, ry) if np.isfinite(v)]
+        if vals:
+            scores[k] = float(np.mean(vals))
     if not np.isfinite(scores).any():
         return float("nan"), float("nan")
     k = int(np.nanargmax(scores))
@@ -280,6 +282,12 @@ class Mapping:
     r_yaw: float
     r_pitch: float
     n_targets: int
+
+    @property
+    def usable(self) -> bool:
+        """Both gains fitted and at least 0.05 in size (a smaller one cannot be inverted sensibly)."""
+        return bool(np.isfinite(self.gain_yaw) and np.isfinite(self.gain_pitch)
+                    and abs(self.gain_yaw) >= 0.05 and abs(self.gain_pitch) >= 0.05)
 
     def to_screen_deg(self, yaw_deg, pitch_deg, *, gain: bool = True):
         yaw_deg, pitch_deg = np.asarray(yaw_deg, float), np.asarray(pitch_deg, float)
@@ -412,8 +420,13 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
     if len(use) < 5:
         flags.append(f"only {len(use)} of {len(fx)} still dots had {params.min_valid_samples} or more valid samples: "
                      "the mapping and accuracy are not reliable")
+    usable = m.usable
+    summary["mapping_usable"] = usable
     if not np.isfinite(m.gain_yaw):
         flags.append("the mapping could not be fitted (too few still dots with valid gaze)")
+    elif not usable:
+        flags.append(f"the gaze hardly moves with the dots (gain yaw {m.gain_yaw:.2f}, pitch {m.gain_pitch:.2f}): "
+                     "the mapping cannot be inverted; accuracy, precision on the screen and pursuit gain are not given")
 
     # accuracy per still dot (offset only; offset + gain; offset + gain leave-one-out)
     tab["error_offset_deg"] = nan
@@ -423,13 +436,13 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
     if len(use):
         x0, y0 = m.to_screen_deg(use["gaze_yaw_deg"], use["gaze_pitch_deg"], gain=False)
         tab.loc[idx_use, "error_offset_deg"] = angle_between_deg(x0, y0, use["x_deg"], use["y_deg"])
-    if np.isfinite(m.gain_yaw):
+    if usable:
         x1, y1 = m.to_screen_deg(use["gaze_yaw_deg"], use["gaze_pitch_deg"])
         tab.loc[idx_use, "error_offset_gain_deg"] = angle_between_deg(x1, y1, use["x_deg"], use["y_deg"])
         for i in idx_use:
             rest = use.drop(index=i)
             mk = fit_mapping(rest["x_deg"], rest["y_deg"], rest["gaze_yaw_deg"], rest["gaze_pitch_deg"])
-            if np.isfinite(mk.gain_yaw):
+            if mk.usable:
                 xk, yk = mk.to_screen_deg(use.loc[i, "gaze_yaw_deg"], use.loc[i, "gaze_pitch_deg"])
                 tab.loc[i, "error_offset_gain_loo_deg"] = float(
                     angle_between_deg(xk, yk, use.loc[i, "x_deg"], use.loc[i, "y_deg"]))
@@ -438,7 +451,7 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
     summary["accuracy_offset_gain_loo_deg"] = float(tab["error_offset_gain_loo_deg"].mean())
 
     # precision per still dot, on the mapped gaze and on the raw angle
-    gx, gy = m.to_screen_deg(yaw, pitch) if np.isfinite(m.gain_yaw) else (yaw * nan, pitch * nan)
+    gx, gy = m.to_screen_deg(yaw, pitch) if usable else (yaw * nan, pitch * nan)
     s2s, sd, s2s_raw = [], [], []
     for r in schedule.targets.itertuples(index=False):
         if r.kind != "fixation":
@@ -486,7 +499,7 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
     tab["pursuit_gain"] = nan
     for r in schedule.pursuits.itertuples(index=False):
         w = (ts >= r.onset_s + params.settle_s) & (ts < r.offset_s - 0.1) & ok
-        if w.sum() < 10 or not np.isfinite(m.gain_yaw):
+        if w.sum() < 10 or not usable:
             continue
         ux, uy = r.x1_deg - r.x0_deg, r.y1_deg - r.y0_deg
         norm = math.hypot(ux, uy)
@@ -502,7 +515,7 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
     summary["n_fixations_on_targets"] = nan
     summary["n_targets_fixated"] = nan
     summary["n_fixations_in_sequence"] = nan
-    if run_events and np.isfinite(m.gain_yaw):
+    if run_events and usable:
         from aspectus.events.analysis import run_analysis
 
         sub = samples[span].copy()
@@ -571,7 +584,8 @@ def find_start(schedule: Schedule, samples: pd.DataFrame, *, clip_path=None, par
     s, r = xcorr_start(samples["t_s"], samples["yaw_deg"], samples["pitch_deg"], samples["valid"], schedule,
                        search_from_s=params.search_from_s)
     if not np.isfinite(s):
-        raise AspectusInputError("the sequence could not be found in the gaze (clip shorter than the sequence?)",
+        raise AspectusInputError("the sequence could not be found in the gaze (the clip is shorter than the "
+                                 "sequence, or the gaze does not follow the dots)",
                                  path=clip_path, hint="give the start time (align=given)")
     out.update({"start_s": s - params.xcorr_latency_s, "method": "xcorr", "xcorr_r": r,
                 "xcorr_latency_s": params.xcorr_latency_s})

@@ -112,7 +112,7 @@ def run_check(clip_path, schedule_path, out_dir, *, params: CheckParams | None =
     })
     write_csv(out_dir / CHECK_TARGETS_CSV, check.targets, float_format="%.6f")
     if apply_mapping:
-        if not np.isfinite(check.mapping.gain_yaw):
+        if not check.mapping.usable:
             raise AspectusInputError("the mapping could not be fitted, so it cannot be applied", path=clip)
         mapped = map_samples(samples, check.mapping, schedule)
         write_parquet(out_dir / f"{SCREEN_GAZE}.parquet", mapped)

@@ -316,6 +316,11 @@ def read_schedule(path) -> Schedule:
         if bad.any():
             raise AspectusInputError(f"target kind {targets['kind'][bad].iloc[0]!r} is neither fixation nor pursuit",
                                      path=path, where=f"target {int(np.argmax(bad.to_numpy()))}")
+        pos = targets[["x0_deg", "y0_deg", "x1_deg", "y1_deg", "x0_px", "y0_px", "x1_px", "y1_px"]].to_numpy(float)
+        if not np.isfinite(pos).all() or (np.abs(pos[:, :4]) >= 89).any():
+            i = int(np.argmax(~np.isfinite(pos).all(axis=1) | (np.abs(pos[:, :4]) >= 89).any(axis=1)))
+            raise AspectusInputError("a target position is not a finite angle below 89 deg / pixel position",
+                                     path=path, where=f"target {i}")
         on, off = targets["onset_s"].to_numpy(float), targets["offset_s"].to_numpy(float)
         if not (np.all(np.isfinite(on)) and np.all(off > on) and np.all(on[1:] >= off[:-1] - 1e-9)):
             raise AspectusInputError("target times must be finite, each offset after its onset, in time order",

@@ -174,6 +174,30 @@ def test_start_found_by_cross_correlation_without_a_flash():
     assert al["method"] == "xcorr" and al["start_s"] == pytest.approx(3.3, abs=2 / 30)
 
 
+def test_degenerate_gaze_is_flagged_not_a_crash():
+    sched = _sched(n_fixations=5, pursuit_sweeps=1)
+    t = np.arange(0, sched.duration_s + 3, 1 / 30)
+    s = pd.DataFrame({"t_s": t, "valid": False, "yaw_deg": np.nan, "pitch_deg": np.nan})
+    c = check_samples(s, sched, start_s=1.0)
+    assert c.summary["loss_frac"] == 1.0 and math.isnan(c.summary["accuracy_offset_gain_deg"])
+    assert any("could not be fitted" in f for f in c.flags)
+    s = s.assign(valid=True, yaw_deg=0.0, pitch_deg=0.0)  # a gaze that never moves
+    c = check_samples(s, sched, start_s=1.0)
+    assert not c.mapping.usable and any("hardly moves" in f for f in c.flags)
+    assert math.isnan(c.summary["accuracy_offset_gain_deg"]) and math.isnan(c.summary["pursuit_gain"])
+    with pytest.raises(AspectusInputError, match="does not follow the dots"):
+        find_start(sched, s, params=CheckParams(align="xcorr"))
+
+
+def test_schedule_with_a_bad_position_is_refused(tmp_path):
+    p = _sched().write(tmp_path / "s.json")
+    d = json.loads(p.read_text())
+    d["targets"][3]["x0_deg"] = None
+    p.write_text(json.dumps(d))
+    with pytest.raises(AspectusInputError, match="target 3"):
+        read_schedule(p)
+
+
 def test_clip_too_short_is_an_error_not_a_number():
     sched = _sched()
     s = _samples(sched)
@@ -205,3 +229,30 @@ def test_study_table_and_exclusion_rule(tmp_path):
     assert "worse than 1 deg" in md and "p02" in md
     with pytest.raises(ParameterError, match="unknown exclusion rule"):
         ExclusionRule.parse("max_speed=3")
+
+
+def test_cli_make_and_table(tmp_path, capsys):
+    from aspectus.cli import main
+    from aspectus.targets.check import CHECK_JSON
+
+    assert main(["targets", "make", "-o", str(tmp_path / "seq"), "--screen-px", "1280", "800", "--screen-mm",
+                 "286", "179", "--distance-mm", "550", "--seed", "7", "--no-video"]) == 0
+    sched = read_schedule(tmp_path / "seq" / "schedule.json")
+    assert sched.seed == 7 and sched.screen.viewing_distance_mm == 550.0
+    assert (tmp_path / "seq" / "targets.html").exists() and not (tmp_path / "seq" / "targets.mp4").exists()
+    # a bad screen is one line naming the problem, exit 2
+    assert main(["targets", "make", "-o", str(tmp_path / "bad"), "--screen-px", "1280", "800", "--screen-mm",
+                 "286", "400", "--distance-mm", "550", "--no-video"]) == 2
+    assert "does not match its pixel grid" in capsys.readouterr().err
+    # the study table from two checks
+    from aspectus.atomic import write_json
+
+    for name, gain in (("sub-p01_ses-s1", 1.0), ("sub-p02_ses-s1", 0.5)):
+        c = check_samples(_samples(sched, gain=(gain, gain), noise_deg=0.2), sched, start_s=2.0, run_events=False)
+        (tmp_path / "res" / name).mkdir(parents=True)
+        write_json(tmp_path / "res" / name / CHECK_JSON, c.to_dict() | {"format": "aspectus.target_check"})
+    assert main(["targets", "table", str(tmp_path / "res"), "-o", str(tmp_path / "q")]) == 0
+    assert "2 session(s), 1 excluded" in capsys.readouterr().out
+    tab = pd.read_csv(tmp_path / "q" / "target_quality.csv")
+    assert list(tab["participant"]) == ["p01", "p02"] and list(tab["excluded"]) == [False, True]
+    assert main(["targets", "table", str(tmp_path / "res"), "-o", str(tmp_path / "q"), "--rule", "gain_min=2"]) == 2
