@@ -95,19 +95,25 @@ def test_cross_correlation_finds_the_start_without_the_flash(good_clip):
 
 
 def test_wrong_gain_is_reported(tmp_path, capsys):
-    """Eyes that move only 0.6 times as far as the dots (a scaled measurement, or a student not following)."""
+    """Eyes that move only 0.6 times as far as the dots (a scaled measurement, or a student not following),
+    in classroom light: a slow +-15 % drift of the light level and a window on the left (the renderer's
+    lighting_drift and lighting_gradient); the flash is still found on its first frame."""
     from aspectus.cli import main
 
     sched = make_schedule(SCREEN, seed=5, fixation_s=1.2, n_fixations=5, pursuit_sweeps=0)
     sched.write(tmp_path / "schedule.json")
     render_target_clip(tmp_path / "wrong_gain.mp4", sched, lead_in_s=1.0, tail_s=0.5, gain=(0.6, 0.6),
-                       offset_deg=(2.0, -2.0), size_px=(640, 480), fov_deg=45.0, seed=3)
+                       offset_deg=(2.0, -2.0), size_px=(640, 480), fov_deg=45.0, seed=3,
+                       lighting_drift=0.15, lighting_gradient=0.4)
     rc = main(["targets", "check", str(tmp_path / "wrong_gain.mp4"), "--schedule", str(tmp_path / "schedule.json"),
                "-o", str(tmp_path / "out"), "--quiet"])
     assert rc == 0
     out = capsys.readouterr().out
     doc = json.loads((tmp_path / "out" / "wrong_gain" / "target_check.json").read_text())
     print(out)
+    truth = json.loads((tmp_path / "wrong_gain_targets.json").read_text())
+    assert doc["alignment"]["method"] == "flash"
+    assert abs(doc["alignment"]["frame_index"] - truth["flash_first_frame"]) <= 1
     assert doc["summary"]["gain_in_range"] is False
     assert doc["mapping"]["gain_yaw"] < 0.7 and doc["mapping"]["gain_pitch"] < 0.75
     assert "yaw gain" in out and "outside 0.8-1.25" in out
