@@ -33,7 +33,8 @@ from .workers import ProcessingRun, Reanalyser
 APP_TITLE = "aspectus"
 TAB_CLIP, TAB_RESULTS, TAB_VALIDATION = 0, 1, 2
 COL_NAME, COL_STATUS, COL_FACE, COL_USABLE = range(4)
-#: a clip's progress bar covers its status while it is queued or processing (one column fewer at 1366 px)
+#: a clip's status is shown by its progress bar: the status in words, the percentage while it processes (one
+#: column fewer at 1366 px)
 COL_PROGRESS = COL_STATUS
 
 
@@ -502,9 +503,7 @@ class MainWindow(QMainWindow):
                 bar = QProgressBar()
                 bar.setRange(0, 100)
                 bar.setTextVisible(True)
-                bar.setFormat("%p %")
                 bar.setMaximumHeight(16)
-                bar.hide()
                 self.clip_list.setItemWidget(it, COL_PROGRESS, bar)
                 existing[c.stem] = it
         for c in self.study.clips:
@@ -560,7 +559,8 @@ class MainWindow(QMainWindow):
         if bar is not None:
             if c.stem not in self._queued:
                 bar.setValue(100 if c.status in (study_mod.STATUS_DONE, study_mod.STATUS_STALE) else 0)
-            bar.setVisible(c.stem in self._queued)
+            bar.setFormat("%p %" if status == "processing" else status)
+            bar.setToolTip(tip)
 
     def _on_current_changed(self, cur, _prev):
         if cur is None:
@@ -794,6 +794,7 @@ class MainWindow(QMainWindow):
     def _on_clip_progress(self, key, frac, message):
         bar = self.progress_bar(key)
         if bar is not None:
+            bar.setFormat("%p %")
             bar.setValue(int(round(100 * frac)))
         if message:
             self.run_label.setText(message)

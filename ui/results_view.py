@@ -57,6 +57,8 @@ class DataFrameModel(QAbstractTableModel):
             if isinstance(v, (float, np.floating)):
                 if not np.isfinite(v):
                     return "–"
+                if self.human_headers and float(v).is_integer() and abs(v) < 1e9:
+                    return str(int(v))  # counts read as counts
                 return f"{v:.3f}" if abs(v) < 100 else f"{v:.1f}"
             if isinstance(v, (bool, np.bool_)):
                 return "yes" if v else "no"
@@ -87,6 +89,8 @@ def _human(name: str) -> str:
 
     if name in ("clip", "scope", "label"):
         return name.capitalize()
+    if name in ("start_s", "end_s"):
+        return {"start_s": "Start (s)", "end_s": "End (s)"}[name]
     text = human_label(name) if column(name) is not None or name in QUALITY_COLUMNS else name
     if len(text) > 16 and " (" in text:
         text = text.replace(" (", "\n(", 1)

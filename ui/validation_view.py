@@ -503,15 +503,20 @@ class ValidationView(QWidget):
         for scope in ("window", "segment"):
             t = compact_agreement(agreement, scope)
             if len(t):
-                parts.append(t.assign(Per=scope)[["Per", *t.columns]])
+                if scope != "window":  # counts say "(per segment)" already; the rest say it here
+                    t["Feature"] = [f if "per segment" in f else f"{f}, segments" for f in t["Feature"]]
+                parts.append(t.assign(Per=scope))
         from aspectus.validation.report import COMPACT_COLUMNS
 
-        shown = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=["Per", *COMPACT_COLUMNS])
-        self.model.set_frame(shown)
+        shown = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=[*COMPACT_COLUMNS, "Per"])
+        per = shown.pop("Per")
+        # two-line headers keep the columns narrow enough for the tab at 1366 px
+        self.model.set_frame(shown.rename(columns={c: c.replace(" [", "\n[").replace(" mean", "\nmean")
+                                                   for c in shown.columns}))
         self._fit_columns()
         note = ""
         if len(shown):
-            win = shown[shown["Per"] == "window"]
+            win = shown[per == "window"]
             n_max = int(pd.to_numeric(win["n"]).max()) if len(win) else 0
             if n_max < MIN_PAIRS:
                 note = withheld_reason(n_max)
@@ -561,7 +566,7 @@ def draw_agreement(fig, webcam, reference, feature: str):
     """Scatter of webcam against reference and the Bland-Altman plot (runs in the drawing thread)."""
     import warnings
 
-    fig.subplots_adjust(left=0.09, right=0.98, top=0.88, bottom=0.17, wspace=0.3)
+    fig.subplots_adjust(left=0.09, right=0.98, top=0.84, bottom=0.17, wspace=0.3)
     ax_s = fig.add_subplot(1, 2, 1)
     ax_b = fig.add_subplot(1, 2, 2)
     if webcam is None:
@@ -578,7 +583,8 @@ def draw_agreement(fig, webcam, reference, feature: str):
         ax_s.plot([lo, hi], [lo, hi], color="#888", lw=0.8, ls="--")
     ax_s.set_xlabel("lab tracker", fontsize=8)
     ax_s.set_ylabel("webcam", fontsize=8)
-    ax_s.set_title(f"{feature}: webcam against lab tracker (n = {len(a)})", fontsize=9)
+    fig.suptitle(feature, fontsize=9)
+    ax_s.set_title(f"Webcam against lab tracker, n = {len(a)}", fontsize=8)
     ax_b.scatter((a + b) / 2, a - b, s=14, color=theme.POINT_COLOUR, alpha=0.8)
     from aspectus.validation.windows import MIN_PAIRS
 
@@ -591,10 +597,9 @@ def draw_agreement(fig, webcam, reference, feature: str):
         for y, ls in ((ba.bias, "-"), (ba.loa_low, "--"), (ba.loa_high, "--")):
             if np.isfinite(y):
                 ax_b.axhline(y, color=theme.CURSOR_COLOUR, lw=1, ls=ls)
-        ax_b.set_title(f"Difference: bias {ba.bias:.3g}, limits {ba.loa_low:.3g} to {ba.loa_high:.3g}",
-                       fontsize=9)
+        ax_b.set_title(f"Bias {ba.bias:.3g}, limits {ba.loa_low:.3g} to {ba.loa_high:.3g}", fontsize=8)
     else:
-        ax_b.set_title(f"Difference (limits need {MIN_PAIRS}+ pairs; n = {len(a)})", fontsize=9)
+        ax_b.set_title(f"Differences (limits need {MIN_PAIRS}+ pairs)", fontsize=8)
     ax_b.set_xlabel("mean of webcam and lab tracker", fontsize=8)
     ax_b.set_ylabel("webcam − lab tracker", fontsize=8)
     from aspectus.validation.report import _plain_axes
@@ -625,8 +630,11 @@ def run_validation(*, out_dir, reference, kind, mapping, analysis, segments=None
     al = result.alignment
     note = f"Found by {al.method}"
     conf = getattr(al, "confidence", float("nan"))
-    if conf == conf:
-        note += f", confidence {conf:.2f} (0-1)"
+    if conf == conf and al.method != "user":
+        from aspectus.validation.report import confidence_words
+
+        note += (f", confidence {conf:.2f} on a scale from 0 (another offset fits as well) to 1 (no other offset "
+                 f"fits): {confidence_words(conf)}")
     note += "."
     extra = list(getattr(al, "notes", []) or [])
     if extra:

@@ -30,8 +30,10 @@ class FaceBoxFinder:
         dets = []
         for model in (0, 1):
             with native_stderr_silenced():
-                dets.append(mp.solutions.face_detection.FaceDetection(model_selection=model,
-                                                                      min_detection_confidence=self.min_confidence))
+                det = mp.solutions.face_detection.FaceDetection(model_selection=model,
+                                                                min_detection_confidence=self.min_confidence)
+                det.process(np.zeros((64, 64, 3), dtype=np.uint8))  # its start-up lines come with a first picture
+                dets.append(det)
         return dets
 
     def __call__(self, image: np.ndarray) -> list[tuple]:

@@ -89,7 +89,8 @@ def test_cli_help_lists_choices_readably(capsys):
 
 
 def test_face_mesh_start_up_lines_stay_off_the_terminal():
-    """The app's clip view finds the face on single frames (overlay.FrameLandmarker); TF-Lite's and absl's
+    """The app's clip view finds the face on single frames (overlay.FrameLandmarker) and blurs every face
+    (face_boxes.FaceBoxFinder); TF-Lite's and absl's
     start-up lines ("INFO: Created TensorFlow Lite XNNPACK delegate", "W0000 ...") are not printed."""
     clip = ROOT / "sample_clips" / "linden_brook_p01_s01.mp4"
     if not clip.is_file():
@@ -100,6 +101,8 @@ def test_face_mesh_start_up_lines_stay_off_the_terminal():
             f"cap = cv2.VideoCapture({str(clip)!r})\nframes = [cap.read()[1][..., ::-1] for _ in range(3)]\n"
             "f = FrameLandmarker()\nf(np.full((120, 160, 3), 128, np.uint8))\n"
             "found = [f(fr) is not None for fr in frames]\nf.close()\n"
+            "from aspectus.webcam.face_boxes import FaceBoxFinder\nb = FaceBoxFinder()\n"
+            "found += [len(b(fr)) >= 1 for fr in frames]\nb.close()\n"
             "print('found', all(found), file=sys.stderr)\n")
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=300, cwd=ROOT)
     assert r.returncode == 0, r.stderr

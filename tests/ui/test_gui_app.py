@@ -386,7 +386,7 @@ def test_validation_tab_compares_with_reference_and_exports_report(qtbot, window
     assert "p01" in text or "Bland" in text
     # the table reads for a researcher: names with units; 1.5 s holds no window of 10 s, so no statistics
     heads = [vv.model.headerData(c, Qt.Horizontal, Qt.DisplayRole) for c in range(vv.model.columnCount())]
-    assert "ICC [95 % CI]" in heads and "Feature" in heads, heads
+    assert "ICC\n[95 % CI]" in heads and "Feature" in heads, heads
     # reopened later, the study shows this comparison again
     window.flush_saves()
     offset_text = vv.offset_label.text()
