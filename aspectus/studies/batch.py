@@ -324,7 +324,7 @@ def _prepare(source, out_dir: Path, *, params, extensions, recursive, label_patt
                 row.finished_utc = run.get("finished_utc") or run.get("created_utc")
                 if write and (job.key, row.input_sha256, params_sha) not in done_logged:
                     # finished by a run that was killed before it could log it
-                    log.append({"t_utc": _utc_now(), "run_id": run_id, "key": job.key, "clip": str(job.clip),
+                    log.append({"t_utc": _utc_now(), "run_id": run_id, "key": job.key, "clip": job.rel,
                                 "status": "recovered", "input_sha256": row.input_sha256,
                                 "params_sha256": params_sha, "size": row.stat[0], "mtime_ns": row.stat[1]})
                 continue
@@ -477,7 +477,7 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
                         row.reason = "the clip's run.json records other parameters than were asked for"
                 if row.status != "pending":
                     log.append({"t_utc": row.finished_utc, "run_id": run_id, "key": row.job.key,
-                                "clip": str(row.job.clip), "status": row.status, "kind": kind, "reason": row.reason,
+                                "clip": row.job.rel, "status": row.status, "kind": kind, "reason": row.reason,
                                 "input_sha256": row.input_sha256, "params_sha256": params_sha,
                                 "size": row.stat[0] if row.stat else None,
                                 "mtime_ns": row.stat[1] if row.stat else None, "worker": row.worker,

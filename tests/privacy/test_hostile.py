@@ -723,3 +723,36 @@ def test_too_short_reference_error_names_the_file(unrelated_pair, tmp_path, caps
                  "--time-unit", "ms", "--x-col", "gx_deg", "--y-col", "gy_deg", "--no-figures"])
     err = capsys.readouterr().err
     assert code == 2 and "p01_s01_short.csv" in err and "too short" in err, err
+
+
+@pytest.mark.timeout(60)
+def test_a_scheduler_that_talks_garbage_is_one_line(tmp_path):
+    """Issue 17.16: an address that answers, but not as a Dask scheduler, gave a traceback."""
+    import socket
+    import threading
+
+    from aspectus.errors import AspectusError
+    from aspectus.studies.engines import DaskEngine
+
+    srv = socket.socket()
+    srv.bind(("127.0.0.1", 0))
+    srv.listen(4)
+    port = srv.getsockname()[1]
+
+    def answer():
+        for _ in range(4):
+            try:
+                conn, _ = srv.accept()
+            except OSError:
+                return
+            conn.sendall(b"\xff" * 64)  # a length prefix of some exabytes, then nothing useful
+            conn.close()
+
+    threading.Thread(target=answer, daemon=True).start()
+    try:
+        with pytest.raises(AspectusError) as info:
+            DaskEngine(address=f"tcp://127.0.0.1:{port}", connect_timeout_s=3)._connect()
+    finally:
+        srv.close()
+    msg = str(info.value)
+    assert "cannot reach the Dask scheduler" in msg and "\n" not in msg
