@@ -556,6 +556,10 @@ WITHHELD_NOTE = ("THE ALIGNMENT IS UNCERTAIN (confidence {conf:.2f}, peak correl
                  "--force-agreement to see the figures anyway")
 
 
+#: a correlation peak this high is trusted even when another offset competes (common practice)
+TRUSTED_PEAK_CORR = 0.8
+
+
 def alignment_uncertain(alignment) -> bool:
     """Whether an automatic (cross-correlation) alignment is too uncertain to trust (aspectus.validation.align)."""
     from aspectus.validation.align import LOW_CONFIDENCE
@@ -563,7 +567,11 @@ def alignment_uncertain(alignment) -> bool:
     if not str(alignment.method).startswith("cross-correlation"):
         return False  # a marker or the user's offset
     peak = alignment.peak_corr
-    return bool(alignment.confidence < LOW_CONFIDENCE or not (peak == peak) or peak < 0.2)
+    if not (peak == peak) or peak < 0.2:
+        return True
+    # a competing offset fits nearly as well - unless the peak itself is a near-perfect match (a recording
+    # against its own export): no unrelated pairing correlates 0.8 or more
+    return bool(alignment.confidence < LOW_CONFIDENCE and peak < TRUSTED_PEAK_CORR)
 
 
 def _withhold(agreement: pd.DataFrame, events: dict) -> tuple[pd.DataFrame, dict]:
