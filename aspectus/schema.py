@@ -111,17 +111,25 @@ REQUIRED_SAMPLE_COLUMNS = tuple(c.name for c in SAMPLE_COLUMNS if c.required)
 #: Event types written to ``events.csv``.
 EVENT_TYPES = ("fixation", "saccade", "blink", "loss")
 
-#: Columns of an events table. Times are on the input's own time axis.
+#: Columns of an events table. Times are on the input's own time axis. Each
+#: sample stands for the time from half an interval before it to half an
+#: interval after it (half-way to each neighbour), so fixations, blinks and
+#: loss tile the time axis and a fixation's duration estimates its true
+#: duration at any sampling rate.
 EVENT_COLUMNS: tuple[Column, ...] = (
     Column("type", "str", "", "fixation, saccade, blink or loss", True),
-    Column("onset_s", "float64", "s", "time of the first sample of the event", True),
-    Column("offset_s", "float64", "s", "end of the event: the time of the first sample after it (at the end of the data: its last sample plus the median sample interval)", True),
-    Column("duration_ms", "float64", "ms", "offset_s - onset_s, in ms", True),
-    Column("yaw_deg", "float64", "deg", "fixations: mean yaw; saccades: NaN"),
-    Column("pitch_deg", "float64", "deg", "fixations: mean pitch; saccades: NaN"),
+    Column("onset_s", "float64", "s", "start: half an interval before the event's first sample (saccades: the time of the last sample of the fixation before)", True),
+    Column("offset_s", "float64", "s", "end: half an interval after the event's last sample (saccades: the time of the first sample of the fixation after); a loss that is a hole in the time axis runs from half an interval after the sample before it to half an interval before the sample after it", True),
+    Column("duration_ms", "float64", "ms", "offset_s - onset_s, in ms; saccades last at least one sample interval, and below some 200 Hz their duration is only an upper bound", True),
+    Column("yaw_deg", "float64", "deg", "fixations: mean yaw; others: NaN"),
+    Column("pitch_deg", "float64", "deg", "fixations: mean pitch; others: NaN"),
     Column("amplitude_deg", "float64", "deg", "saccades: angular distance between the centres of the fixations before and after"),
-    Column("dispersion_deg", "float64", "deg", "fixations: (max-min yaw) + (max-min pitch)"),
-    Column("n_samples", "int64", "", "samples in the event"),
+    Column("dispersion_deg", "float64", "deg", "fixations: (max-min yaw) + (max-min pitch) over the fixation's usable samples"),
+    Column("n_samples", "int64", "", "samples of the input in the event (saccades: strictly between the two fixations)"),
+    Column("dispersion_threshold_deg", "float64", "deg", "fixations found by I-DT: the dispersion threshold for a window of this fixation's sample count; NaN for other detectors"),
+    Column("dispersion_noise_deg", "float64", "deg", "fixations found by I-DT: the dispersion that the recording's noise alone is expected to reach over this many samples (compare with dispersion_deg)"),
+    Column("peak_velocity_deg_s", "float64", "deg/s", "saccades: peak gaze speed (Savitzky-Golay, 20 ms); NaN where the rate cannot resolve it (see peak_velocity_note)"),
+    Column("peak_velocity_note", "str", "", "saccades: why peak_velocity_deg_s is NaN; empty where measured"),
 )
 
 
@@ -213,31 +221,60 @@ def check_samples(df: pd.DataFrame, source: str = "samples table") -> pd.DataFra
 
 
 #: Columns of the features table besides the scope columns (``scope``, ``label``, ``start_s``, ``end_s``)
-#: and ``n_samples``: one row per clip, fixed window and task segment. An event belongs to the scope its
-#: onset falls in; rates divide by the scope's length.
+#: and ``n_samples``: one row per clip, fixed window and task segment (:mod:`aspectus.events.features`).
+#: Counting rule: a fixation, saccade, blink or loss belongs to the scope its onset falls in; fractions of
+#: time are clipped at the scope's edges. "Recorded time" is the part of the scope the recording covers,
+#: holes in its time axis included (they count as missing). Rates are per minute of recorded time
+#: (``fixation_rate_per_s`` is kept for files written before the per-minute rates existed). Counts are
+#: NaN, not 0, in a scope without a valid sample.
 FEATURE_COLUMNS: tuple[Column, ...] = (
-    Column("fixation_count", "int64", "", "fixations whose onset falls in the scope", label="Fixations"),
-    Column("fixation_rate_per_s", "float64", "1/s", "fixation_count divided by the scope's length",
+    Column("fixation_count", "int64", "", "fixations whose onset lies in the scope", label="Fixations"),
+    Column("fixation_rate_per_s", "float64", "1/s", "fixation_count per second of recorded time",
            label="Fixation rate"),
-    Column("fixation_duration_mean_ms", "float64", "ms", "mean duration of the scope's fixations",
+    Column("fixation_rate_per_min", "float64", "1/min", "fixation_count per minute of recorded time",
+           label="Fixation rate"),
+    Column("fixation_duration_mean_ms", "float64", "ms", "mean duration of those fixations",
            label="Fixation duration, mean"),
-    Column("fixation_duration_median_ms", "float64", "ms", "median duration of the scope's fixations",
+    Column("fixation_duration_median_ms", "float64", "ms", "median duration of those fixations",
            label="Fixation duration, median"),
-    Column("fixation_duration_sd_ms", "float64", "ms", "standard deviation of the scope's fixation durations",
+    Column("fixation_duration_sd_ms", "float64", "ms", "SD (n - 1) of their durations; NaN below 2 fixations",
            label="Fixation duration, SD"),
-    Column("fixation_time_frac", "float64", "1", "share of the scope's time inside fixations",
-           label="Time in fixations (share)"),
-    Column("saccade_count", "int64", "", "saccades whose onset falls in the scope", label="Saccades"),
-    Column("saccade_amplitude_mean_deg", "float64", "deg", "mean amplitude of the scope's saccades",
+    Column("fixation_time_frac", "float64", "1", "time inside fixations (clipped at the scope's edges) over recorded "
+           "time", label="Time in fixations (share)"),
+    Column("fixation_dispersion_mean_deg", "float64", "deg", "mean of the fixations' dispersion_deg ((max-min yaw) + "
+           "(max-min pitch))", label="Fixation dispersion, mean"),
+    Column("fixation_dispersion_median_deg", "float64", "deg", "median of the fixations' dispersion_deg",
+           label="Fixation dispersion, median"),
+    Column("saccade_count", "int64", "", "saccades (between two fixations at most saccade_max_ms apart) whose onset "
+           "lies in the scope", label="Saccades"),
+    Column("saccade_rate_per_min", "float64", "1/min", "saccade_count per minute of recorded time",
+           label="Saccade rate"),
+    Column("saccade_amplitude_mean_deg", "float64", "deg", "mean amplitude (fixation centre to fixation centre)",
            label="Saccade amplitude, mean"),
-    Column("blink_count", "int64", "", "blinks whose onset falls in the scope", label="Blinks"),
-    Column("blink_rate_per_min", "float64", "1/min", "blink_count per minute of the scope", label="Blink rate"),
-    Column("valid_frac", "float64", "1", "share of the scope's samples with usable gaze",
-           label="Usable gaze (share)"),
-    Column("noise_rms_s2s_deg", "float64", "deg",
-           "root mean square of the sample-to-sample angular distance over steps inside fixations "
-           "(precision, RMS-S2S)", label="Noise, RMS sample to sample"),
+    Column("saccade_amplitude_median_deg", "float64", "deg", "median amplitude", label="Saccade amplitude, median"),
+    Column("saccade_amplitude_sd_deg", "float64", "deg", "SD (n - 1) of the amplitudes; NaN below 2 saccades",
+           label="Saccade amplitude, SD"),
+    Column("saccade_duration_mean_ms", "float64", "ms", "mean saccade duration where the rate resolves it "
+           "(>= 200 Hz); NaN below, where a saccade spans one or two samples", label="Saccade duration, mean"),
+    Column("saccade_peak_velocity_mean_deg_s", "float64", "deg/s", "mean of the measured peak velocities; NaN where "
+           "none is measurable", label="Saccade peak velocity, mean"),
+    Column("blink_count", "int64", "", "blinks whose onset lies in the scope", label="Blinks"),
+    Column("blink_rate_per_min", "float64", "1/min", "blink_count per minute of recorded time", label="Blink rate"),
+    Column("blink_duration_mean_ms", "float64", "ms", "mean blink duration", label="Blink duration, mean"),
+    Column("loss_count", "int64", "", "data-loss periods (not blinks; gaps longer than the fill limit, holes in the "
+           "time axis included) whose onset lies in the scope", label="Data-loss periods"),
+    Column("loss_frac", "float64", "1", "time in data loss (clipped at the scope's edges) over recorded time",
+           label="Data loss (share)"),
+    Column("valid_frac", "float64", "1", "time covered by samples the input marked valid over recorded time (holes "
+           "in the time axis count as not valid)", label="Usable gaze (share)"),
+    Column("noise_rms_s2s_deg", "float64", "deg", "precision: RMS of the sample-to-sample distances between "
+           "consecutive valid samples of the same fixation (Holmqvist, Nystrom & Mulvey 2012); the same figure as the "
+           "clip's noise_rms_s2s_deg in the sidecar and summary", label="Noise, RMS sample to sample"),
 )
+#: the same table under the name used before the features moved here
+FEATURE_COLUMN_DEFS = FEATURE_COLUMNS
+#: feature column names, in order
+FEATURE_COLUMN_NAMES: tuple[str, ...] = tuple(c.name for c in FEATURE_COLUMNS)
 FEATURE_COLUMN_BY_NAME = {c.name: c for c in FEATURE_COLUMNS}
 
 

@@ -8,8 +8,10 @@ segment (:mod:`aspectus.events.features`). :func:`write_analysis` exports the
 results; :func:`analyse_table` does all of it for any delimited gaze table.
 
 Default detector: I-DT (Salvucci & Goldberg 2000) with a noise-adaptive
-dispersion threshold, ``max(1.5 deg, 3.5 x RMS-S2S noise)``, a 60 ms duration
-threshold, edge trimming at 1.75 x the median gaze speed, merging within
+dispersion threshold, ``max(1.5 deg, 3.5 x RMS-S2S noise, 1.2 x the
+dispersion the noise reaches over the window's sample count)``, a 60 ms
+duration threshold, edge samples trimmed only where they differ measurably
+from the fixation (test at the 1 % level), merging within
 75 ms and max(0.5 deg, 0.5 x RMS-S2S) or when the two mean positions do not
 differ at the 5 % level given the within-fixation noise, and a 60 ms minimum
 fixation. Chosen on the hand-coded
@@ -77,9 +79,16 @@ class AnalysisParams:
         Shorter fixations are dropped after merging, ms.
     saccade_max_ms : float, default 150
         Longest interval between two fixations called a saccade, ms.
+    edge_alpha : float, default 0.01
+        Fixation edge samples that differ from their inner neighbours by more
+        than the noise allows at this level are trimmed (0 disables); see
+        :mod:`aspectus.events.detect.postprocess`.
+    edge_window_ms : float, default 20
+        Inner neighbours the edge samples are compared with, ms (at least 2).
     edge_speed_factor : float, default 1.75
-        Fixation edges faster than this many times the recording's median gaze
-        speed are trimmed (0 disables); see :mod:`aspectus.events.detect.postprocess`.
+        At 200 Hz and above, fixation edges faster than this many times the
+        recording's median gaze speed are trimmed too (0 disables); below
+        200 Hz the derivative window spans the saccade and it is not applied.
     edge_velocity_window_ms : float, default 10
         Derivative window for that speed, ms (at least 3 samples).
     idt_dispersion_deg : float or None, default None
@@ -90,6 +99,10 @@ class AnalysisParams:
         Floor of the adaptive I-DT threshold, deg.
     idt_min_duration_ms : float, default 60
         I-DT duration threshold (initial window), ms.
+    idt_noise_range_factor : float, default 1.2
+        The adaptive I-DT threshold for a window of m samples is at least this
+        many times the dispersion the noise is expected to reach over m
+        samples (0: ignore the sample count); see :mod:`aspectus.events.detect.idt`.
     ivt_method : {"ek2003", "nh2010"}, default "ek2003"
         Data-driven velocity threshold rule.
     ivt_velocity_window_ms : float, default 20
@@ -133,12 +146,15 @@ class AnalysisParams:
     merge_alpha: float = 0.05
     min_fixation_ms: float = 60.0
     saccade_max_ms: float = 150.0
+    edge_alpha: float = 0.01
+    edge_window_ms: float = 20.0
     edge_speed_factor: float = 1.75
     edge_velocity_window_ms: float = 10.0
     idt_dispersion_deg: float | None = None
     idt_noise_factor: float = 3.5
     idt_min_dispersion_deg: float = 1.5
     idt_min_duration_ms: float = 60.0
+    idt_noise_range_factor: float = 1.2
     ivt_method: str = "ek2003"
     ivt_velocity_window_ms: float = 20.0
     ivt_initial_threshold_deg_s: float = 200.0
@@ -170,9 +186,10 @@ class AnalysisParams:
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and np.isfinite(v) and v >= 0):
                 raise ParameterError(f"{name} must be a number >= 0, got {v!r}")
-        a = self.merge_alpha
-        if not (isinstance(a, (int, float)) and np.isfinite(a) and 0 <= a < 1):
-            raise ParameterError(f"merge_alpha must be a level 0 <= alpha < 1 (0 disables), got {a!r}")
+        for name in ("merge_alpha", "edge_alpha"):
+            a = getattr(self, name)
+            if not (isinstance(a, (int, float)) and np.isfinite(a) and 0 <= a < 1):
+                raise ParameterError(f"{name} must be a level 0 <= alpha < 1 (0 disables), got {a!r}")
         for name in ("window_s", "step_s"):
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and np.isfinite(v) and v > 0):
@@ -219,9 +236,12 @@ class AnalysisResult:
     features : pandas.DataFrame
         One row per scope (clip, window, segment), see :mod:`aspectus.events.features`.
     quality : dict
-        noise_rms_s2s_deg (robust, all valid samples), noise_rms_s2s_fixation_deg,
-        valid_frac, loss_frac, blink_frac, filled_frac, sample_rate_hz,
-        n_samples, duration_s, the detector's thresholds.
+        noise_rms_s2s_deg (within fixations, the same figure as the clip's
+        feature), noise_rms_s2s_robust_deg (all valid steps, median-based; it
+        adapts the thresholds), valid_frac, loss_frac, blink_frac,
+        filled_frac (fractions of the recorded time; holes in the time axis
+        count as missing), time_holes, sample_rate_hz, n_samples, duration_s,
+        the detector's thresholds and warnings.
     params : dict
         :meth:`AnalysisParams.to_dict` of the run.
     source : str
@@ -241,9 +261,10 @@ def _scopes(cleaned: CleanedSamples, params: AnalysisParams, segments: pd.DataFr
     t = cleaned.t_s
     parts = []
     if len(t):
-        end = float(t[-1] + cleaned.sample_interval_s)
-        parts.append(pd.DataFrame({"scope": ["clip"], "label": ["clip"], "start_s": [float(t[0])], "end_s": [end]}))
-        w = fixed_windows(float(t[0]), end, window_s=params.window_s, step_s=params.step_s)
+        start = float(cleaned.lo_s[0])
+        end = float(cleaned.hi_s[-1])
+        parts.append(pd.DataFrame({"scope": ["clip"], "label": ["clip"], "start_s": [start], "end_s": [end]}))
+        w = fixed_windows(start, end, window_s=params.window_s, step_s=params.step_s)
         if len(w):
             parts.append(w.assign(scope="window"))
     if segments is not None and len(segments):
@@ -305,32 +326,49 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
     det = DETECTORS[params.detector]
     cand = det(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, noise_rms_s2s_deg=cl.noise_rms_s2s_deg,
                **params.detector_kwargs())
-    events, labels = build_events(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, cl.blink, cl.loss, cand,
-                                  merge_gap_ms=params.merge_gap_ms, merge_distance_deg=params.merge_distance_deg,
-                                  min_fixation_ms=params.min_fixation_ms, saccade_max_ms=params.saccade_max_ms,
-                                  edge_speed_factor=params.edge_speed_factor,
-                                  edge_velocity_window_ms=params.edge_velocity_window_ms,
-                                  merge_noise_factor=params.merge_noise_factor, merge_alpha=params.merge_alpha,
-                                  noise_rms_s2s_deg=cl.noise_rms_s2s_deg)
+    events, labels_all = build_events(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, cl.blink, cl.loss, cand,
+                                      merge_gap_ms=params.merge_gap_ms, merge_distance_deg=params.merge_distance_deg,
+                                      min_fixation_ms=params.min_fixation_ms, saccade_max_ms=params.saccade_max_ms,
+                                      edge_speed_factor=params.edge_speed_factor,
+                                      edge_velocity_window_ms=params.edge_velocity_window_ms,
+                                      edge_alpha=params.edge_alpha, edge_window_ms=params.edge_window_ms,
+                                      merge_noise_factor=params.merge_noise_factor, merge_alpha=params.merge_alpha,
+                                      noise_rms_s2s_deg=cl.noise_rms_s2s_deg, lo_s=cl.lo_s, hi_s=cl.hi_s,
+                                      inserted=cl.inserted)
     features = compute_features(events, t_s=cl.t_s, valid=cl.valid_in, yaw_deg=cl.yaw_deg, pitch_deg=cl.pitch_deg,
-                                labels=labels, scopes=_scopes(cl, params, segments),
-                                sample_interval_s=cl.sample_interval_s)
+                                labels=labels_all, scopes=_scopes(cl, params, segments),
+                                sample_interval_s=cl.sample_interval_s, lo_s=cl.lo_s, hi_s=cl.hi_s,
+                                inserted=cl.inserted)
+    labels = labels_all[cl.row_index]
     n = cl.n
+    n_in = len(cl.row_index)
     clip_row = features[features["scope"] == "clip"]
+    noise_fix = float(clip_row["noise_rms_s2s_deg"].iloc[0]) if len(clip_row) else float("nan")
     quality = {
-        "n_samples": n,
-        "duration_s": float(cl.t_s[-1] - cl.t_s[0] + cl.sample_interval_s) if n else 0.0,
+        "n_samples": n_in,
+        "duration_s": float(cl.hi_s[-1] - cl.lo_s[0]) if n else 0.0,
         "sample_rate_hz": cl.rate_hz if n > 1 else float("nan"),
-        "noise_rms_s2s_deg": cl.noise_rms_s2s_deg,
+        # one meaning everywhere: within fixations, as the features' noise_rms_s2s_deg
+        "noise_rms_s2s_deg": noise_fix,
+        "noise_rms_s2s_fixation_deg": noise_fix,
+        "noise_rms_s2s_robust_deg": cl.noise_rms_s2s_deg,
         "noise_rms_s2s_all_steps_deg": cl.noise_rms_s2s_plain_deg,
-        "noise_rms_s2s_fixation_deg": float(clip_row["noise_rms_s2s_deg"].iloc[0]) if len(clip_row) else float("nan"),
-        "valid_frac": float(cl.valid_in.mean()) if n else float("nan"),
-        "filled_frac": float(cl.filled.mean()) if n else float("nan"),
-        "loss_frac": float(cl.loss.mean()) if n else float("nan"),
-        "blink_frac": float(cl.blink.mean()) if n else float("nan"),
+        "noise_definitions": {
+            "noise_rms_s2s_deg": "RMS of sample-to-sample distances between consecutive valid samples of the same "
+                                 "fixation (Holmqvist, Nystrom & Mulvey 2012); = the clip's feature",
+            "noise_rms_s2s_robust_deg": "median sample-to-sample distance x 2 / sqrt(4 ln 2) over all valid steps "
+                                        "(equals RMS-S2S for white noise; adapts the detectors' thresholds)",
+            "noise_rms_s2s_all_steps_deg": "RMS of all valid sample-to-sample distances, saccades included"},
+        # fractions of the recorded time: holes in the time axis count as missing
+        "valid_frac": cl.time_frac(cl.valid_in),
+        "filled_frac": cl.time_frac(cl.filled),
+        "loss_frac": cl.time_frac(cl.loss),
+        "blink_frac": cl.time_frac(cl.blink),
+        "time_holes": int(cl.holes),
         "fixation_count": int((events["type"] == "fixation").sum()),
         "smoothing": cl.smoothing,
         "detector_thresholds": cand.info,
+        "warnings": list(cand.info.get("warnings", [])),
     }
     return AnalysisResult(events=events, labels=labels, features=features, quality=quality,
                           params=params.to_dict(), source=source, cleaned=cl)

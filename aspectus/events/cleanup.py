@@ -2,6 +2,12 @@
 
 Steps, in order:
 
+0. Holes in the time axis are made explicit: where two consecutive rows are
+   more than 1.5 median intervals apart, the missing samples are inserted as
+   not valid (rows the input did not have; :attr:`CleanedSamples.inserted`).
+   A hole whose missing time exceeds ``gap_fill_max_ms`` gets a single
+   inserted row that stands for the whole missing time, so it becomes data
+   loss whatever the validity column says, and no fixation spans it.
 1. Blink and no-face samples are excluded: a sample is usable only when the
    table marks it ``valid`` and its angles are finite. A run of unusable
    samples that contains any ``blink`` sample is a blink period as a whole.
@@ -16,7 +22,15 @@ Steps, in order:
 4. A per-clip noise estimate: RMS sample-to-sample distance in degrees
    (Holmqvist, Nystrom & Mulvey 2012), robust form (see
    :func:`aspectus.events.detect.noise.robust_rms_s2s_deg`), over steps between
-   two originally valid samples.
+   two originally valid samples. It adapts the detectors' thresholds; the
+   figure reported as ``noise_rms_s2s_deg`` is measured within fixations
+   (:mod:`aspectus.events.features`).
+
+Every sample stands for the time from half an interval before it to half an
+interval after it (:attr:`CleanedSamples.lo_s`, :attr:`~CleanedSamples.hi_s`:
+half-way to each neighbour; half the median interval at the ends and beside a
+hole), so the spans of consecutive samples tile the time axis and the
+fraction of valid *time* (``valid_frac``) counts holes as missing.
 """
 from __future__ import annotations
 
@@ -60,6 +74,14 @@ class CleanedSamples:
         Plain RMS-S2S over the same steps (inflated by saccades).
     smoothing : dict
         Filter name, its parameters and its lag in ms.
+    lo_s, hi_s : ndarray
+        Start and end of the time each sample stands for, s.
+    inserted : ndarray of bool
+        Rows inserted for holes in the time axis (not in the input).
+    row_index : ndarray of int
+        For each input row, its index here.
+    holes : int
+        Holes found in the time axis (intervals over 1.5 median intervals).
     """
 
     t_s: np.ndarray
@@ -74,14 +96,125 @@ class CleanedSamples:
     noise_rms_s2s_deg: float
     noise_rms_s2s_plain_deg: float
     smoothing: dict = field(default_factory=dict)
+    lo_s: np.ndarray | None = None
+    hi_s: np.ndarray | None = None
+    inserted: np.ndarray | None = None
+    row_index: np.ndarray | None = None
+    holes: int = 0
+
+    def __post_init__(self):
+        n = len(self.t_s)
+        if self.inserted is None:
+            self.inserted = np.zeros(n, dtype=bool)
+        if self.row_index is None:
+            self.row_index = np.flatnonzero(~self.inserted)
+        if self.lo_s is None or self.hi_s is None:
+            self.lo_s, self.hi_s = sample_spans(self.t_s, self.sample_interval_s)
 
     @property
     def n(self) -> int:
         return len(self.t_s)
 
     @property
+    def span_s(self) -> np.ndarray:
+        """Time each sample stands for, s."""
+        return self.hi_s - self.lo_s
+
+    def time_frac(self, mask) -> float:
+        """Fraction of the recording's time (first span start to last span end) covered by ``mask``'s samples."""
+        if not self.n:
+            return float("nan")
+        total = float(self.hi_s[-1] - self.lo_s[0])
+        if total <= 0:
+            return float(np.mean(mask))
+        return float(self.span_s[np.asarray(mask, bool)].sum() / total)
+
+    @property
     def rate_hz(self) -> float:
         return 1.0 / self.sample_interval_s if self.sample_interval_s > 0 else float("nan")
+
+
+#: an interval longer than this many median intervals is a hole in the time axis
+HOLE_FACTOR = 1.5
+
+
+def sample_spans(t_s, dt_s: float, hole_after=None) -> tuple[np.ndarray, np.ndarray]:
+    """Start and end (s) of the time each sample stands for.
+
+    Half-way to each neighbour; at the ends, and at a hole (``hole_after[i]``:
+    the interval after sample ``i`` is a hole), half the median interval
+    ``dt_s``.
+    """
+    t = np.asarray(t_s, dtype=float)
+    n = len(t)
+    half = 0.5 * float(dt_s) if np.isfinite(dt_s) and dt_s > 0 else 0.0
+    if n == 0:
+        return t.copy(), t.copy()
+    mid = 0.5 * (t[1:] + t[:-1])
+    hi = np.append(mid, t[-1] + half)
+    lo = np.insert(mid, 0, t[0] - half)
+    if hole_after is not None and n > 1:
+        h = np.asarray(hole_after, bool)[: n - 1]
+        hi[:-1] = np.where(h, t[:-1] + half, hi[:-1])
+        lo[1:] = np.where(h, t[1:] - half, lo[1:])
+    return lo, hi
+
+
+def _fill_time_holes(df: pd.DataFrame, dt: float, gap_fill_max_ms: float):
+    """Insert not-valid rows for the holes in the time axis (step 0 of the module docstring).
+
+    Returns the new frame, the inserted mask, each input row's new index, the
+    span bounds of every row, and the number of holes.
+    """
+    t = df["t_s"].to_numpy(dtype=float)
+    n = len(t)
+    if n < 2 or not (dt > 0):
+        lo, hi = sample_spans(t, dt)
+        return df, np.zeros(n, bool), np.arange(n), lo, hi, 0
+    d = np.diff(t)
+    hole = d > HOLE_FACTOR * dt
+    if not hole.any():
+        lo, hi = sample_spans(t, dt)
+        return df, np.zeros(n, bool), np.arange(n), lo, hi, 0
+    idx = np.flatnonzero(hole)
+    missing_ms = (d[idx] - dt) * 1000.0
+    short = missing_ms <= gap_fill_max_ms + 1e-9
+    # short holes: the missing samples on an even grid; long ones: one row standing for the whole hole
+    k = np.where(short, np.maximum(np.round(d[idx] / dt).astype(np.int64) - 1, 1), 1)
+    new_t, after, marker = [], [], []
+    for i, kk, sh in zip(idx, k, short):
+        if sh:
+            new_t.append(t[i] + d[i] * np.arange(1, kk + 1) / (kk + 1))
+        else:
+            new_t.append(np.array([t[i] + 0.5 * d[i]]))
+        after.append(np.full(kk, i))
+        marker.append(np.full(kk, not sh))
+    new_t = np.concatenate(new_t)
+    after = np.concatenate(after)
+    marker = np.concatenate(marker)
+    # merged order: each inserted row goes after input row `after`
+    key = np.concatenate([np.arange(n, dtype=float), after + 0.5])
+    order = np.argsort(key, kind="stable")
+    t_all = np.concatenate([t, new_t])[order]
+    ins = np.concatenate([np.zeros(n, bool), np.ones(len(new_t), bool)])[order]
+    mk = np.concatenate([np.zeros(n, bool), marker])[order]
+    row_index = np.empty(n, dtype=np.int64)
+    row_index[order[order < n]] = np.flatnonzero(order < n)
+    extra = pd.DataFrame({"t_s": new_t, "valid": False, "yaw_deg": np.nan, "pitch_deg": np.nan})
+    if "blink" in df.columns:
+        extra["blink"] = False
+    out = pd.concat([df[list(extra.columns)], extra], ignore_index=True).iloc[order].reset_index(drop=True)
+    out["t_s"] = t_all
+    out["valid"] = out["valid"].astype(bool)
+    # spans: a marker row covers its whole hole; its neighbours keep half an interval each
+    hole_after = np.zeros(len(t_all), bool)
+    m_idx = np.flatnonzero(mk)
+    hole_after[m_idx - 1] = True
+    hole_after[m_idx] = True
+    lo, hi = sample_spans(t_all, dt, hole_after[:-1])
+    lo[m_idx] = t_all[m_idx - 1] + 0.5 * dt
+    hi[m_idx] = t_all[m_idx + 1] - 0.5 * dt
+    return out, ins, row_index, lo, hi, int(hole.sum())
 
 
 def steffen_interpolate(x, y, xi) -> np.ndarray:
@@ -201,6 +334,9 @@ def clean_samples(samples: pd.DataFrame, *, gap_fill_max_ms: float = 75.0, inter
     if not (np.isfinite(smoothing_window_ms) and smoothing_window_ms > 0):
         raise ParameterError(f"smoothing_window_ms must be > 0 ms, got {smoothing_window_ms!r}")
     df = check_samples(samples, source=source)
+    t0 = df["t_s"].to_numpy(dtype=float)
+    dt = float(np.median(np.diff(t0))) if len(t0) > 1 else 0.0
+    df, inserted, row_index, lo_s, hi_s, holes = _fill_time_holes(df, dt, gap_fill_max_ms)
     t = df["t_s"].to_numpy(dtype=float)
     n = len(t)
     yaw = df["yaw_deg"].to_numpy(dtype=float).copy()
@@ -213,7 +349,6 @@ def clean_samples(samples: pd.DataFrame, *, gap_fill_max_ms: float = 75.0, inter
         blink_flag = bl.to_numpy(dtype=bool) & ~valid
     else:
         blink_flag = np.zeros(n, dtype=bool)
-    dt = float(np.median(np.diff(t))) if n > 1 else 0.0
     yaw[~valid] = np.nan
     pitch[~valid] = np.nan
 
@@ -223,10 +358,14 @@ def clean_samples(samples: pd.DataFrame, *, gap_fill_max_ms: float = 75.0, inter
     if len(starts):
         # a run containing a blink sample is a blink as a whole
         cb = np.concatenate([[0], np.cumsum(blink_flag)])
-        has_blink = (cb[ends] - cb[starts]) > 0
+        # a run holding a row that stands for a long hole in the time axis is loss: nobody saw a blink there
+        long_hole = inserted & (hi_s - lo_s > 1.5 * dt) if dt > 0 else np.zeros(n, bool)
+        ch = np.concatenate([[0], np.cumsum(long_hole)])
+        has_blink = ((cb[ends] - cb[starts]) > 0) & ((ch[ends] - ch[starts]) == 0)
         blink = runs_to_mask(starts[has_blink], ends[has_blink], n)
         inner = (starts > 0) & (ends < n) & ~has_blink
-        gap_ms = np.where(inner, (t[np.minimum(ends, n - 1)] - t[starts]) * 1000.0, np.inf)
+        # missing time: from the start of the first missing sample's span to the next usable sample's start
+        gap_ms = np.where(inner, (lo_s[np.minimum(ends, n - 1)] - lo_s[starts]) * 1000.0, np.inf)
         fill = inner & (gap_ms <= gap_fill_max_ms + 1e-9)
         if fill.any():
             filled = runs_to_mask(starts[fill], ends[fill], n)
@@ -251,4 +390,5 @@ def clean_samples(samples: pd.DataFrame, *, gap_fill_max_ms: float = 75.0, inter
     noise_plain = rms_s2s_deg(yaw, pitch, valid) if n > 1 else float("nan")
     return CleanedSamples(t_s=t, yaw_deg=yaw, pitch_deg=pitch, valid_in=valid, usable=usable, filled=filled,
                           blink=blink, loss=loss, sample_interval_s=dt, noise_rms_s2s_deg=noise,
-                          noise_rms_s2s_plain_deg=noise_plain, smoothing=smooth_info)
+                          noise_rms_s2s_plain_deg=noise_plain, smoothing=smooth_info, lo_s=lo_s, hi_s=hi_s,
+                          inserted=inserted, row_index=row_index, holes=holes)

@@ -1,13 +1,18 @@
 """Eye-movement features per clip, per fixed window and per task segment.
 
-Counting rule: a fixation, saccade or blink belongs to the scope its onset
-falls in (``start_s <= onset_s < end_s``). ``fixation_time_frac`` is the time
-covered by fixations inside the scope (clipped at its edges) over the scope's
-length. ``noise_rms_s2s_deg`` is the RMS sample-to-sample distance over steps
-between two originally valid samples of the same fixation (precision as in
-Holmqvist, Nystrom & Mulvey 2012, Proc. ETRA). A scope without a single valid
-sample is degenerate: all its features are NaN and a
-:class:`DegenerateWindowWarning` is issued.
+Every column, with its unit and definition, is listed in
+:data:`aspectus.schema.FEATURE_COLUMNS` (README and ``run.json`` take
+them from there). Counting rule: a fixation, saccade, blink or loss belongs
+to the scope its onset falls in (``start_s <= onset_s < end_s``); fractions
+of time are clipped at the scope's edges and taken over the scope's recorded
+time (the part the recording covers, holes in its time axis included, where
+the samples are missing). Each sample stands for the time from half an
+interval before it to half an interval after it
+(:func:`aspectus.events.cleanup.sample_spans`). ``noise_rms_s2s_deg`` is the RMS
+sample-to-sample distance over steps between two originally valid samples of
+the same fixation (precision as in Holmqvist, Nystrom & Mulvey 2012, Proc.
+ETRA). A scope without a single valid sample is degenerate: all its features
+are NaN and a :class:`DegenerateWindowWarning` is issued.
 """
 from __future__ import annotations
 
@@ -17,12 +22,16 @@ import numpy as np
 import pandas as pd
 
 from aspectus.errors import AspectusWarning
+from aspectus.schema import FEATURE_COLUMN_NAMES, FEATURE_COLUMNS as FEATURE_COLUMN_DEFS
 
-from aspectus import schema as _schema
-
-#: feature columns, in order; every name carries its unit
-FEATURE_COLUMNS = tuple(c.name for c in _schema.FEATURE_COLUMNS)  # defined, with units, in aspectus.schema
+#: feature columns, in order; every name carries its unit (definitions: :data:`aspectus.schema.FEATURE_COLUMNS`)
+FEATURE_COLUMNS = FEATURE_COLUMN_NAMES
 SCOPE_COLUMNS = ("scope", "label", "start_s", "end_s")
+
+#: saccade durations are features only at this rate or above (see aspectus.events.detect.postprocess)
+SACCADE_DURATION_MIN_RATE_HZ = 200.0
+
+__all__ = ["FEATURE_COLUMNS", "FEATURE_COLUMN_DEFS", "SCOPE_COLUMNS", "DegenerateWindowWarning", "compute_features"]
 
 
 class DegenerateWindowWarning(AspectusWarning):
@@ -35,14 +44,19 @@ def _overlap_s(on: np.ndarray, off: np.ndarray, start: float, end: float) -> flo
     return float(np.clip(np.minimum(off, end) - np.maximum(on, start), 0.0, None).sum())
 
 
+def _stat(v: np.ndarray, fn) -> float:
+    v = v[np.isfinite(v)]
+    return float(fn(v)) if len(v) else np.nan
+
+
 def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, labels, scopes: pd.DataFrame,
-                     sample_interval_s: float | None = None) -> pd.DataFrame:
+                     sample_interval_s: float | None = None, lo_s=None, hi_s=None, inserted=None) -> pd.DataFrame:
     """Features for each scope.
 
     Parameters
     ----------
     events : pandas.DataFrame
-        Events table (:data:`aspectus.schema.EVENT_COLUMNS`).
+        Events table (:data:`aspectus.schema.EVENT_COLUMNS`), in any order.
     t_s : array_like, shape (n,)
         Sample times, s.
     valid : array_like of bool, shape (n,)
@@ -54,68 +68,111 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
     scopes : pandas.DataFrame
         Columns scope, label, start_s, end_s (s).
     sample_interval_s : float, optional
-        Median sample interval (for the clip's end time); computed if absent.
+        Median sample interval; computed if absent.
+    lo_s, hi_s : array_like, optional
+        Span of time each sample stands for (:func:`aspectus.events.cleanup.sample_spans`; computed if absent).
+    inserted : array_like of bool, optional
+        Rows that stand for holes in the time axis (not counted in ``n_samples``).
 
     Returns
     -------
     pandas.DataFrame
         One row per scope: :data:`SCOPE_COLUMNS`, :data:`FEATURE_COLUMNS`, n_samples.
     """
+    from aspectus.events.cleanup import sample_spans
+
     t = np.asarray(t_s, dtype=float)
+    n = len(t)
     valid = np.asarray(valid, dtype=bool)
     x = np.asarray(yaw_deg, dtype=float)
     y = np.asarray(pitch_deg, dtype=float)
+    dt = (float(np.median(np.diff(t))) if n > 1 else 0.0) if sample_interval_s is None else float(sample_interval_s)
+    if lo_s is None or hi_s is None:
+        lo_s, hi_s = sample_spans(t, dt)
+    lo_s = np.asarray(lo_s, float)
+    hi_s = np.asarray(hi_s, float)
+    real = ~np.asarray(inserted, bool) if inserted is not None else np.ones(n, bool)
+    creal = np.concatenate([[0], np.cumsum(real)])
     fixlab = np.asarray(labels) == "fixation"
-    step_ok = valid[1:] & valid[:-1] & fixlab[1:] & fixlab[:-1]
-    d2 = np.where(step_ok, np.diff(x) ** 2 + np.diff(y) ** 2, 0.0) if len(t) > 1 else np.zeros(0)
-    d2 = np.nan_to_num(d2)
+    if n > 1:
+        step_ok = valid[1:] & valid[:-1] & fixlab[1:] & fixlab[:-1]
+        d2 = np.nan_to_num(np.where(step_ok, np.diff(x) ** 2 + np.diff(y) ** 2, 0.0))
+    else:
+        step_ok = np.zeros(0, bool)
+        d2 = np.zeros(0)
     cd2 = np.concatenate([[0.0], np.cumsum(d2)])
-    cnd = np.concatenate([[0], np.cumsum(step_ok)]) if len(t) > 1 else np.zeros(1, dtype=np.int64)
+    cnd = np.concatenate([[0], np.cumsum(step_ok)])
     cval = np.concatenate([[0], np.cumsum(valid)])
+    rate_hz = 1.0 / dt if dt > 0 else np.nan
+
+    ev = events.sort_values(["onset_s", "offset_s"], kind="stable") if len(events) else events
 
     def by_type(name):
-        ev = events[events["type"] == name]
-        return (ev["onset_s"].to_numpy(dtype=float), ev["offset_s"].to_numpy(dtype=float),
-                ev["duration_ms"].to_numpy(dtype=float), ev["amplitude_deg"].to_numpy(dtype=float))
+        e = ev[ev["type"] == name]
+        get = lambda c: e[c].to_numpy(dtype=float) if c in e.columns else np.full(len(e), np.nan)  # noqa: E731
+        return {c: get(c) for c in ("onset_s", "offset_s", "duration_ms", "amplitude_deg", "dispersion_deg",
+                                    "peak_velocity_deg_s")}
 
-    fon, foff, fdur, _ = by_type("fixation")
-    son, _, _, samp = by_type("saccade")
-    bon, _, _, _ = by_type("blink")
+    fx, sc, bl, ls = by_type("fixation"), by_type("saccade"), by_type("blink"), by_type("loss")
     rows = []
     degenerate = 0
-    for sc in scopes.itertuples(index=False):
-        start, end = float(sc.start_s), float(sc.end_s)
+    for scp in scopes.itertuples(index=False):
+        start, end = float(scp.start_s), float(scp.end_s)
+        # samples whose span overlaps the scope
+        j0 = int(np.searchsorted(hi_s, start, side="right"))
+        j1 = int(np.searchsorted(lo_s, end, side="left"))
+        over = np.clip(np.minimum(hi_s[j0:j1], end) - np.maximum(lo_s[j0:j1], start), 0.0, None)
+        recorded_s = float(over.sum())
+        valid_s = float(over[valid[j0:j1]].sum())
         i0, i1 = np.searchsorted(t, [start, end], side="left")
-        n_in = int(i1 - i0)
+        n_in = int(creal[i1] - creal[i0])
         nval = int(cval[i1] - cval[i0])
-        row = {"scope": sc.scope, "label": sc.label, "start_s": start, "end_s": end}
-        length_s = end - start
-        if nval == 0 or length_s <= 0:
+        row = {"scope": scp.scope, "label": scp.label, "start_s": start, "end_s": end}
+        if nval == 0 or end - start <= 0 or recorded_s <= 0:
             degenerate += 1
             row.update({c: np.nan for c in FEATURE_COLUMNS})
-            row["valid_frac"] = 0.0 if n_in else np.nan
+            row["valid_frac"] = 0.0 if (n_in or recorded_s > 0) else np.nan
             row["n_samples"] = n_in
             rows.append(row)
             continue
-        j0, j1 = np.searchsorted(fon, [start, end], side="left")
-        dur = fdur[j0:j1]
-        k0, k1 = np.searchsorted(son, [start, end], side="left")
-        b0, b1 = np.searchsorted(bon, [start, end], side="left")
-        ov = (foff > start) & (fon < end)
+        per_min = 60.0 / recorded_s
+
+        def sel(d):
+            a, b = np.searchsorted(d["onset_s"], [start, end], side="left")
+            return {k: v[a:b] for k, v in d.items()}
+
+        f, s, b, lo = sel(fx), sel(sc), sel(bl), sel(ls)
+        fov = (fx["offset_s"] > start) & (fx["onset_s"] < end)
+        lov = (ls["offset_s"] > start) & (ls["onset_s"] < end)
         m = max(int(i1) - 1 - int(i0), 0)
         nsteps = int(cnd[i0 + m] - cnd[i0]) if m > 0 else 0
+        dur = f["duration_ms"]
+        amp = s["amplitude_deg"]
+        sac_dur = s["duration_ms"] if rate_hz >= SACCADE_DURATION_MIN_RATE_HZ else np.zeros(0)
         row.update({
             "fixation_count": float(len(dur)),
-            "fixation_rate_per_s": len(dur) / length_s,
-            "fixation_duration_mean_ms": float(dur.mean()) if len(dur) else np.nan,
-            "fixation_duration_median_ms": float(np.median(dur)) if len(dur) else np.nan,
-            "fixation_duration_sd_ms": float(dur.std(ddof=1)) if len(dur) > 1 else np.nan,
-            "fixation_time_frac": _overlap_s(fon[ov], foff[ov], start, end) / length_s,
-            "saccade_count": float(k1 - k0),
-            "saccade_amplitude_mean_deg": float(np.nanmean(samp[k0:k1])) if k1 > k0 else np.nan,
-            "blink_count": float(b1 - b0),
-            "blink_rate_per_min": (b1 - b0) / (length_s / 60.0),
-            "valid_frac": nval / n_in,
+            "fixation_rate_per_s": len(dur) / recorded_s,
+            "fixation_rate_per_min": len(dur) * per_min,
+            "fixation_duration_mean_ms": _stat(dur, np.mean),
+            "fixation_duration_median_ms": _stat(dur, np.median),
+            "fixation_duration_sd_ms": float(np.std(dur, ddof=1)) if len(dur) > 1 else np.nan,
+            "fixation_time_frac": _overlap_s(fx["onset_s"][fov], fx["offset_s"][fov], start, end) / recorded_s,
+            "fixation_dispersion_mean_deg": _stat(f["dispersion_deg"], np.mean),
+            "fixation_dispersion_median_deg": _stat(f["dispersion_deg"], np.median),
+            "saccade_count": float(len(amp)),
+            "saccade_rate_per_min": len(amp) * per_min,
+            "saccade_amplitude_mean_deg": _stat(amp, np.mean),
+            "saccade_amplitude_median_deg": _stat(amp, np.median),
+            "saccade_amplitude_sd_deg": float(np.std(amp[np.isfinite(amp)], ddof=1)) if np.isfinite(amp).sum() > 1
+            else np.nan,
+            "saccade_duration_mean_ms": _stat(sac_dur, np.mean),
+            "saccade_peak_velocity_mean_deg_s": _stat(s["peak_velocity_deg_s"], np.mean),
+            "blink_count": float(len(b["onset_s"])),
+            "blink_rate_per_min": len(b["onset_s"]) * per_min,
+            "blink_duration_mean_ms": _stat(b["duration_ms"], np.mean),
+            "loss_count": float(len(lo["onset_s"])),
+            "loss_frac": _overlap_s(ls["onset_s"][lov], ls["offset_s"][lov], start, end) / recorded_s,
+            "valid_frac": valid_s / recorded_s,
             "noise_rms_s2s_deg": float(np.sqrt((cd2[i0 + m] - cd2[i0]) / nsteps)) if nsteps else np.nan,
             "n_samples": n_in,
         })

@@ -11,6 +11,20 @@ sample by sample until the dispersion would exceed the threshold, and the
 window is a fixation; otherwise the first sample is dropped. aspectus adds two
 things: windows never span unusable samples, and the dispersion threshold
 may adapt to the clip's measured noise (``dispersion_deg=None``).
+
+The adaptive threshold depends on the window's sample count. The extremes
+of noise grow with the number of samples: the expected range of ``m``
+independent normal values is ``d2(m)`` SDs (Tippett 1925, Biometrika 17;
+the control-chart constant d2 - 1.13 for 2 samples, 3.08 for 10, 5.02 for
+100, 6.07 for 500), and for white noise of per-axis SD ``s`` the RMS-S2S is
+``2 s``, so the noise alone gives a window of ``m`` samples an expected
+dispersion ``d2(m) x RMS-S2S``. A fixed threshold therefore cuts fixations
+into fragments at a lab tracker's rate (hundreds of samples per fixation)
+that it leaves whole at a webcam's (a handful). The threshold for ``m``
+samples is ``max(min_dispersion_deg, noise_factor x RMS-S2S,
+noise_range_factor x d2(m) x RMS-S2S)``: at webcam rates the first two
+decide as before; over many samples the last keeps the noise's own spread
+inside the threshold.
 """
 from __future__ import annotations
 
@@ -44,9 +58,38 @@ def _range_table_query(x: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> n
     return out
 
 
+_D2_TABLE = np.zeros(2)  # d2(0) (unused) and d2(1) = 0; grown on demand
+
+
+def expected_range_sd(m) -> np.ndarray:
+    """Expected range of ``m`` independent standard normal values, ``d2(m)`` (Tippett 1925).
+
+    ``d2(m) = integral of 1 - Phi(x)^m - (1 - Phi(x))^m dx`` over the real
+    line, by numerical quadrature; ``d2(1) = 0``, ``d2(2) = 2 / sqrt(pi)``.
+    Vectorised over ``m``; the table of values is kept.
+    """
+    global _D2_TABLE
+    from scipy.special import log_ndtr
+
+    m = np.maximum(np.asarray(m, dtype=np.int64), 1)
+    top = int(m.max()) if m.size else 1
+    if top >= len(_D2_TABLE):
+        x = np.linspace(-12.0, 12.0, 4801)
+        lp, lq = log_ndtr(x), log_ndtr(-x)
+        new = np.arange(len(_D2_TABLE), max(top + 1, 2 * len(_D2_TABLE)), dtype=float)
+        parts = []
+        for b in range(0, len(new), 256):
+            ks = new[b:b + 256, None]
+            f = 1.0 - np.exp(ks * lp[None, :]) - np.exp(ks * lq[None, :])
+            parts.append(np.trapz(f, x, axis=1))
+        _D2_TABLE = np.concatenate([_D2_TABLE, *parts])
+    return _D2_TABLE[m]
+
+
 def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None = None,
                noise_rms_s2s_deg: float | None = None, noise_factor: float = 3.5,
-               min_dispersion_deg: float = 1.5, min_duration_ms: float = 60.0) -> Candidates:
+               min_dispersion_deg: float = 1.5, min_duration_ms: float = 60.0,
+               noise_range_factor: float = 1.2) -> Candidates:
     """Fixation candidates by I-DT (Salvucci & Goldberg 2000).
 
     Parameters
@@ -70,29 +113,56 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
         Floor of the adaptive threshold, degrees.
     min_duration_ms : float, default 60
         Duration threshold: the initial window covers at least this many ms.
+    noise_range_factor : float, default 1.2
+        Adaptive threshold for ``m`` samples at least this many times the
+        dispersion the noise alone is expected to reach over ``m`` samples
+        (module docstring); 0 gives a threshold that ignores the sample count.
 
     Returns
     -------
     Candidates
-        Fixation candidates as index ranges, plus ``info["dispersion_deg"]``.
+        Fixation candidates as index ranges, plus ``info["dispersion_deg"]``
+        (the threshold of the shortest window) and the rule; its
+        ``threshold_of_samples`` gives the threshold for any sample count.
     """
     t = np.asarray(t_s, dtype=float)
     x = np.asarray(yaw_deg, dtype=float)
     y = np.asarray(pitch_deg, dtype=float)
     ok = np.asarray(usable, dtype=bool) & np.isfinite(x) & np.isfinite(y)
     n = len(t)
+    if not (np.isfinite(noise_range_factor) and noise_range_factor >= 0):
+        raise ParameterError(f"I-DT noise_range_factor must be >= 0, got {noise_range_factor!r}")
+    noise = 0.0
     if dispersion_deg is None:
         noise = noise_rms_s2s_deg if noise_rms_s2s_deg is not None and np.isfinite(noise_rms_s2s_deg) else 0.0
         thr = max(float(min_dispersion_deg), float(noise_factor) * float(noise))
+        k_range = float(noise_range_factor)
     else:
         thr = float(dispersion_deg)
+        k_range = 0.0
     if not (np.isfinite(thr) and thr > 0):
         raise ParameterError(f"I-DT dispersion threshold must be > 0 deg, got {thr!r}")
     if not (np.isfinite(min_duration_ms) and min_duration_ms > 0):
         raise ParameterError(f"I-DT min_duration_ms must be > 0 ms, got {min_duration_ms!r}")
-    info = {"dispersion_deg": thr, "min_duration_ms": float(min_duration_ms)}
+    base = thr
+    noise = float(noise)
+
+    def thr_of(m):
+        m = np.asarray(m)
+        if k_range <= 0 or noise <= 0:
+            return np.full(m.shape, base)
+        return np.maximum(base, k_range * expected_range_sd(m) * noise)
+
+    def noise_disp_of(m):
+        return expected_range_sd(np.asarray(m)) * noise if noise > 0 else np.full(np.shape(m), np.nan)
+
+    info = {"dispersion_deg": thr, "min_duration_ms": float(min_duration_ms),
+            "dispersion_rule": ("fixed" if dispersion_deg is not None else
+                                f"max({float(min_dispersion_deg):g} deg, {float(noise_factor):g} x RMS-S2S, "
+                                f"{k_range:g} x d2(samples) x RMS-S2S)"),
+            "noise_rms_s2s_deg": noise if dispersion_deg is None else None}
     if n < 2 or not ok.any():
-        return Candidates.empty(info)
+        return Candidates(np.zeros(0, np.int64), np.zeros(0, np.int64), info, thr_of, noise_disp_of)
     dt = float(np.median(np.diff(t)))
     te = end_times(t, dt)
     # run end (exclusive) for each sample
@@ -104,14 +174,16 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     need = t + min_duration_ms / 1000.0 - 1e-9
     e0 = np.searchsorted(te, need, side="left")
     e0 = np.maximum(e0, np.arange(n) + 1)
+    empty = Candidates(np.zeros(0, np.int64), np.zeros(0, np.int64), info, thr_of, noise_disp_of)
     cand = np.flatnonzero(ok & (e0 <= np.where(ok, run_end, -1)))
     if not len(cand):
-        return Candidates.empty(info)
+        return empty
     disp = _range_table_query(x, cand, e0[cand]) + _range_table_query(y, cand, e0[cand])
+    info["dispersion_deg"] = float(thr_of(int(np.median(e0[cand] - cand))))
     good = np.zeros(n, dtype=bool)
-    good[cand[disp <= thr]] = True
+    good[cand[disp <= thr_of(e0[cand] - cand)]] = True
     if not good.any():
-        return Candidates.empty(info)
+        return empty
     # next good start at or after each index
     idx = np.where(good, np.arange(n), n)
     next_good = np.minimum.accumulate(idx[::-1])[::-1]
@@ -132,7 +204,7 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
             ys = y[i:hi]
             d = (np.maximum.accumulate(xs) - np.minimum.accumulate(xs)
                  + np.maximum.accumulate(ys) - np.minimum.accumulate(ys))
-            over = d[e - i:] > thr
+            over = d[e - i:] > thr_of(np.arange(e - i, hi - i) + 1)
             k = int(over.argmax())
             if over[k]:
                 e = e + k
@@ -142,4 +214,5 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
         starts.append(i)
         ends.append(e)
         i = e
-    return Candidates(np.asarray(starts, dtype=np.int64), np.asarray(ends, dtype=np.int64), info)
+    return Candidates(np.asarray(starts, dtype=np.int64), np.asarray(ends, dtype=np.int64), info, thr_of,
+                      noise_disp_of)

@@ -73,11 +73,51 @@ def savgol_derivative(v: np.ndarray, window: int, dt_s: float, polyorder: int = 
     return out
 
 
+def local_quadratic_derivative(t_s, v, window: int, *, chunk: int = 200_000) -> np.ndarray:
+    """First derivative by a least-squares quadratic over ``window`` samples, on the samples' own times.
+
+    The Savitzky-Golay derivative (Savitzky & Golay 1964, order 2) generalised
+    to uneven sampling: for each sample a parabola in ``t - t_i`` is fitted to
+    the ``window`` samples centred on it (at the ends: the first / last
+    ``window`` samples, like scipy's ``mode="interp"``) and its slope at
+    ``t_i`` is the derivative. On an even grid it equals
+    :func:`savgol_derivative`; with a dropped frame it still reads a ramp's
+    true slope, where a derivative assuming a uniform interval would read it
+    too steep on both sides of the hole.
+    """
+    t = np.asarray(t_s, dtype=float)
+    v = np.asarray(v, dtype=float)
+    n = len(t)
+    w = int(window)
+    h = w // 2
+    out = np.empty(n)
+    if n < w:
+        raise ValueError("window longer than the signal")
+    scale = float(np.median(np.diff(t))) if n > 1 else 1.0
+    scale = scale if scale > 0 else 1.0
+    j = np.arange(w)
+    for c0 in range(0, n, chunk):
+        i = np.arange(c0, min(n, c0 + chunk))
+        ws = np.clip(i - h, 0, n - w)
+        tau = (t[ws[:, None] + j[None, :]] - t[i][:, None]) / scale
+        vv = v[ws[:, None] + j[None, :]]
+        s = [np.ones(len(i)) * w] + [(tau ** k).sum(axis=1) for k in range(1, 5)]
+        r = [(vv * tau ** k).sum(axis=1) for k in range(3)]
+        A = np.stack([np.stack([s[0], s[1], s[2]], -1), np.stack([s[1], s[2], s[3]], -1),
+                      np.stack([s[2], s[3], s[4]], -1)], -2)
+        b = np.stack(r, -1)[..., None]
+        coef = np.linalg.solve(A, b)[..., 0]
+        out[i] = coef[:, 1] / scale
+    return out
+
+
 def velocity_deg_s(t_s, yaw_deg, pitch_deg, usable, *, window_ms: float = 20.0):
-    """Yaw and pitch velocity (deg/s) by a Savitzky-Golay derivative (order 2).
+    """Yaw and pitch velocity (deg/s) by a Savitzky-Golay derivative (order 2) on the samples' own times.
 
     The window is ``window_ms`` rounded to an odd number of samples, at least
-    3 (at 30 Hz: 3 samples, the central difference). Velocities are NaN where
+    3 (at 30 Hz: 3 samples, the central difference). The fit uses each
+    sample's time (:func:`local_quadratic_derivative`), so uneven intervals
+    and dropped frames do not distort the velocity. Velocities are NaN where
     the window touches an unusable sample.
 
     Returns
@@ -99,7 +139,7 @@ def velocity_deg_s(t_s, yaw_deg, pitch_deg, usable, *, window_ms: float = 20.0):
     for v in (yaw_deg, pitch_deg):
         v = np.asarray(v, dtype=float)
         vf = np.interp(idx, idx[ok], v[ok])
-        out.append(savgol_derivative(vf, w, dt))
+        out.append(local_quadratic_derivative(t, vf, w))
     # a velocity is unusable when its window touches an unusable sample
     cb = np.concatenate([[0], np.cumsum(~ok)])
     lo = np.clip(idx - w // 2, 0, n)

@@ -26,13 +26,23 @@
 3. Saccades: between two consecutive fixations with no blink or loss
    between them and at most ``saccade_max_ms`` apart; amplitude is the
    angular distance between the two fixations' mean positions (at webcam
-   rates the saccade itself covers only one or two samples). A saccade that
-   fell between two samples has ``n_samples = 0`` and duration 0 ms.
+   rates the saccade itself covers only one or two samples). A saccade runs
+   from the time of the last sample of the fixation before to the time of
+   the first sample of the fixation after - the interval the movement is
+   known to lie in - so it lasts at least one sample interval, also when it
+   fell between two samples (``n_samples``, the samples strictly between,
+   is then 0). Its peak velocity (:func:`peak_velocities`) is reported only
+   where the rate resolves it (at least ``PEAK_VELOCITY_MIN_RATE_HZ`` and 3
+   samples inside the saccade); elsewhere it is NaN and
+   ``peak_velocity_note`` says why.
 4. Blinks and data-loss periods from the clean-up become their own events.
 
-Times follow :data:`aspectus.schema.EVENT_COLUMNS`: onset = time of the
-first sample, offset = time of the first sample after the event (for the
-last sample: its time plus the median sample interval).
+Times follow :data:`aspectus.schema.EVENT_COLUMNS`: a sample stands for the
+time from half an interval before it to half an interval after it
+(:func:`aspectus.events.cleanup.sample_spans`), so a fixation, blink or loss runs
+from the start of its first sample's span to the end of its last one's. The
+duration of a fixation sampled at any rate then estimates its true duration
+without bias.
 """
 from __future__ import annotations
 
@@ -40,8 +50,17 @@ import numpy as np
 import pandas as pd
 
 from aspectus.schema import EVENT_COLUMNS
-from aspectus.events.detect.runs import end_times, trim_runs, true_runs
+from aspectus.events.detect.runs import end_times, runs_to_mask, trim_runs, true_runs
 from aspectus.events.detect.types import Candidates
+
+#: Peak saccade velocity is reported only at this rate or above (Hz). Velocity
+#: profiles of saccades need a rate of some 200 Hz or more (Holmqvist et al.
+#: 2011, "Eye tracking: a comprehensive guide to methods and measures",
+#: chapter on sampling frequency - from memory); below, a saccade spans one
+#: or two samples and the "peak" is the mean speed between two samples.
+PEAK_VELOCITY_MIN_RATE_HZ = 200.0
+#: ... and only for saccades with at least this many samples inside them.
+PEAK_VELOCITY_MIN_SAMPLES = 3
 
 #: per-sample label names; index = label code
 LABEL_NAMES = np.array(["unclassified", "fixation", "saccade", "blink", "loss"])
@@ -60,7 +79,8 @@ def _means(cx, cy, cn, s, e):
 
 def merge_candidates(t_s, yaw_deg, pitch_deg, usable, blocked, starts, ends, *, merge_gap_ms: float = 75.0,
                      merge_distance_deg: float = 0.5, dt_s: float | None = None,
-                     noise_sd_deg: tuple[float, float] | None = None, merge_alpha: float = 0.0):
+                     noise_sd_deg: tuple[float, float] | None = None, merge_alpha: float = 0.0,
+                     lo_s=None, hi_s=None):
     """Merge close fixation candidates (see module docstring); returns new (starts, ends).
 
     With ``noise_sd_deg = (sd_yaw, sd_pitch)`` and ``merge_alpha > 0`` two
@@ -74,7 +94,14 @@ def merge_candidates(t_s, yaw_deg, pitch_deg, usable, blocked, starts, ends, *, 
     if len(s) < 2:
         return s, e
     dt = float(np.median(np.diff(t))) if dt_s is None else dt_s
-    te = end_times(t, dt)
+    if lo_s is None or hi_s is None:
+        te = end_times(t, dt)
+        lo = t
+        hi_of_last = lambda ee: te[ee]  # noqa: E731
+    else:
+        lo = np.asarray(lo_s, float)
+        hi = np.asarray(hi_s, float)
+        hi_of_last = lambda ee: hi[ee - 1]  # noqa: E731
     ok = np.asarray(usable, bool) & np.isfinite(yaw_deg) & np.isfinite(pitch_deg)
     cx, cy = _prefix(np.asarray(yaw_deg, float), ok), _prefix(np.asarray(pitch_deg, float), ok)
     cn = np.concatenate([[0], np.cumsum(ok)])
@@ -83,7 +110,7 @@ def merge_candidates(t_s, yaw_deg, pitch_deg, usable, blocked, starts, ends, *, 
             and any(np.isfinite(v) and v > 0 for v in noise_sd_deg))
     while len(s) >= 2:
         mx, my = _means(cx, cy, cn, s, e)
-        gap_ms = (t[s[1:]] - te[e[:-1]]) * 1000.0
+        gap_ms = (lo[s[1:]] - hi_of_last(e[:-1])) * 1000.0
         free = (cb[s[1:]] - cb[e[:-1]]) == 0
         dist = np.hypot(mx[1:] - mx[:-1], my[1:] - my[:-1])
         close = dist <= merge_distance_deg
@@ -218,11 +245,160 @@ def trim_by_speed(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, edge_speed_f
     return s2, e2, thr
 
 
+def within_fixation_mad_sd_deg(yaw_deg, pitch_deg, usable, starts, ends) -> tuple[float, float]:
+    """Robust within-fixation noise SD of yaw and pitch, deg.
+
+    ``1.4826 x median |x - median of its candidate|`` over the usable samples
+    of every candidate (the MAD scaled to the SD of normal noise; any
+    statistics text). A few saccade samples at a candidate's edges barely move
+    it. NaN when there is no candidate.
+    """
+    ok = np.asarray(usable, bool)
+    s = np.asarray(starts, dtype=np.int64)
+    e = np.asarray(ends, dtype=np.int64)
+    n = len(ok)
+    if not len(s):
+        return float("nan"), float("nan")
+    lens = np.maximum(e - s, 0)
+    pos = np.repeat(s - np.concatenate([[0], np.cumsum(lens)[:-1]]), lens) + np.arange(lens.sum())
+    gid = np.repeat(np.arange(len(s)), lens)
+    keep = ok[pos]
+    pos, gid = pos[keep], gid[keep]
+    out = []
+    for v in (yaw_deg, pitch_deg):
+        v = np.asarray(v, float)[pos]
+        fin = np.isfinite(v)
+        if not fin.any():
+            out.append(float("nan"))
+            continue
+        med = pd.Series(v[fin]).groupby(gid[fin]).transform("median").to_numpy()
+        out.append(float(1.4826 * np.median(np.abs(v[fin] - med))))
+    return out[0], out[1]
+
+
+def trim_by_position(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, noise_sd_deg, alpha: float = 0.01,
+                     window_ms: float = 20.0) -> tuple[np.ndarray, np.ndarray]:
+    """Trim candidates' edge samples that are measurably away from the fixation (step 0 of the module docstring).
+
+    Parameters
+    ----------
+    t_s, yaw_deg, pitch_deg, usable : array_like, shape (n,)
+    starts, ends : array_like of int
+        Candidate index ranges.
+    noise_sd_deg : (float, float)
+        Per-sample noise SD of yaw and pitch, deg.
+    alpha : float
+        Level of the test; an edge sample is removed when the squared
+        standardised distance to the mean of its inner neighbours exceeds
+        ``-2 ln(alpha)`` (the chi-square quantile with 2 degrees of freedom).
+    window_ms : float
+        Inner neighbours compared with: those within this time (at least 2).
+
+    Returns
+    -------
+    starts, ends : ndarray
+        Trimmed ranges (a candidate may shrink to nothing and is then dropped).
+    """
+    t = np.asarray(t_s, float)
+    x = np.asarray(yaw_deg, float)
+    y = np.asarray(pitch_deg, float)
+    s = np.asarray(starts, dtype=np.int64).copy()
+    e = np.asarray(ends, dtype=np.int64).copy()
+    sds = [float(v) if np.isfinite(v) and v > 0 else np.nan for v in noise_sd_deg]
+    if not len(s) or not (alpha and alpha > 0) or all(np.isnan(sds)):
+        return s, e
+    n = len(t)
+    dt = float(np.median(np.diff(t))) if n > 1 else 0.0
+    k = max(2, int(round(window_ms / 1000.0 / dt))) if dt > 0 else 2
+    ok = np.asarray(usable, bool) & np.isfinite(x) & np.isfinite(y)
+    cx, cy = _prefix(x, ok), _prefix(y, ok)
+    cn = np.concatenate([[0], np.cumsum(ok)])
+    limit = -2.0 * np.log(alpha)
+    sx, sy = sds
+
+    def far(i, a, b):
+        """Sample i against the mean of the usable samples [a, b)."""
+        m = (cn[b] - cn[a]).astype(float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mx = (cx[b] - cx[a]) / m
+            my = (cy[b] - cy[a]) / m
+            f = 1.0 + 1.0 / m
+            stat = np.zeros(len(i))
+            if np.isfinite(sx):
+                stat += (x[i] - mx) ** 2 / (sx * sx * f)
+            if np.isfinite(sy):
+                stat += (y[i] - my) ** 2 / (sy * sy * f)
+        return (m >= 1) & np.isfinite(stat) & (stat > limit)
+
+    for side in ("start", "end"):
+        active = np.ones(len(s), bool)
+        for _ in range(n):
+            idx = np.flatnonzero(active & (e - s > 1))
+            if not len(idx):
+                break
+            if side == "start":
+                i = s[idx]
+                hit = far(i, i + 1, np.minimum(i + 1 + k, e[idx]))
+                s[idx[hit]] += 1
+            else:
+                i = e[idx] - 1
+                hit = far(i, np.maximum(i - k, s[idx]), i)
+                e[idx[hit]] -= 1
+            active[:] = False
+            active[idx[hit]] = True
+    keep = e > s
+    return s[keep], e[keep]
+
+
+def peak_velocities(t_s, yaw_deg, pitch_deg, usable, a, b, *, rate_hz: float, window_ms: float = 20.0):
+    """Peak gaze speed (deg/s) of each saccade from the last fixation sample ``a`` to the next one's first ``b``.
+
+    Savitzky-Golay speed (order 2, ``window_ms``, on the samples' own times;
+    :func:`aspectus.events.detect.ivt.velocity_deg_s`), maximum over the samples
+    ``a..b``. NaN, with the reason, where the rate cannot resolve a velocity
+    profile (below :data:`PEAK_VELOCITY_MIN_RATE_HZ`), the saccade has fewer
+    than :data:`PEAK_VELOCITY_MIN_SAMPLES` samples inside it, or its speed
+    touches missing data.
+
+    Returns
+    -------
+    peak_deg_s : ndarray
+    notes : ndarray of str
+        ``""`` where measured, else why not.
+    """
+    from aspectus.events.detect.ivt import velocity_deg_s
+
+    a = np.asarray(a, dtype=np.int64)
+    b = np.asarray(b, dtype=np.int64)
+    peak = np.full(len(a), np.nan)
+    notes = np.full(len(a), "", dtype=object)
+    if not len(a):
+        return peak, notes.astype(str)
+    if not (np.isfinite(rate_hz) and rate_hz >= PEAK_VELOCITY_MIN_RATE_HZ):
+        notes[:] = (f"not measurable at {rate_hz:.0f} Hz: a saccade spans one or two samples "
+                    f"(peak velocity needs >= {PEAK_VELOCITY_MIN_RATE_HZ:.0f} Hz)")
+        return peak, notes.astype(str)
+    vx, vy = velocity_deg_s(t_s, yaw_deg, pitch_deg, usable, window_ms=window_ms)
+    sp = np.hypot(vx, vy)
+    inside = b - a - 1
+    few = inside < PEAK_VELOCITY_MIN_SAMPLES
+    notes[few] = f"not measurable: fewer than {PEAK_VELOCITY_MIN_SAMPLES} samples inside the saccade"
+    for k in np.flatnonzero(~few):
+        seg = sp[a[k]:b[k] + 1]
+        if np.isfinite(seg).all():
+            peak[k] = float(seg.max())
+        else:
+            notes[k] = "not measurable: the velocity window touches missing data"
+    return peak, notes.astype(str)
+
+
 def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candidates, *,
                  merge_gap_ms: float = 75.0, merge_distance_deg: float = 0.5, min_fixation_ms: float = 60.0,
-                 saccade_max_ms: float = 150.0, edge_speed_factor: float = 1.75,
+                 saccade_max_ms: float = 150.0, edge_speed_factor: float = 0.0,
                  edge_velocity_window_ms: float = 10.0, merge_noise_factor: float = 0.0,
-                 noise_rms_s2s_deg: float | None = None, merge_alpha: float = 0.0) -> tuple[pd.DataFrame, np.ndarray]:
+                 noise_rms_s2s_deg: float | None = None, merge_alpha: float = 0.0, edge_alpha: float = 0.0,
+                 edge_window_ms: float = 20.0, lo_s=None, hi_s=None, inserted=None,
+                 peak_velocity_window_ms: float = 20.0) -> tuple[pd.DataFrame, np.ndarray]:
     """Events table and per-sample labels from fixation candidates.
 
     Parameters
@@ -241,15 +417,30 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
         Shorter fixations (after merging) are dropped, ms.
     saccade_max_ms : float, default 150
         Longest interval between fixations still called a saccade, ms.
-    edge_speed_factor : float, default 1.75
-        Edge trimming threshold in units of the median gaze speed; 0 disables.
+    edge_speed_factor : float, default 0
+        Trimming by speed, in units of the median gaze speed (applied only at
+        :data:`PEAK_VELOCITY_MIN_RATE_HZ` and above); 0 disables.
     edge_velocity_window_ms : float, default 10
-        Derivative window for the edge trimming, ms.
+        Derivative window for the trimming by speed, ms.
     merge_noise_factor : float, default 0
         If > 0, the merge distance grows with the noise:
         ``max(merge_distance_deg, merge_noise_factor * noise_rms_s2s_deg)``.
     noise_rms_s2s_deg : float, optional
         The recording's RMS-S2S noise, deg (for ``merge_noise_factor``).
+    merge_alpha : float, default 0
+        Level of the merge test of two means; 0 disables.
+    edge_alpha : float, default 0
+        Level of the edge trimming test (:func:`trim_by_position`); 0 disables.
+    edge_window_ms : float, default 20
+        Inner neighbours the edge samples are compared with, ms.
+    lo_s, hi_s : array_like, optional
+        Span of time each sample stands for
+        (:func:`aspectus.events.cleanup.sample_spans`; computed when absent).
+    inserted : array_like of bool, optional
+        Rows not in the input (holes in the time axis): not counted in
+        ``n_samples``.
+    peak_velocity_window_ms : float, default 20
+        Derivative window of the saccades' peak velocity, ms.
 
     Returns
     -------
@@ -259,6 +450,8 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
         ``"fixation"``, ``"saccade"``, ``"blink"``, ``"loss"`` or
         ``"unclassified"`` per sample.
     """
+    from aspectus.events.cleanup import sample_spans
+
     t = np.asarray(t_s, dtype=float)
     x = np.asarray(yaw_deg, dtype=float)
     y = np.asarray(pitch_deg, dtype=float)
@@ -270,11 +463,26 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
     if n == 0:
         return empty_events(), LABEL_NAMES[codes]
     dt = float(np.median(np.diff(t))) if n > 1 else 0.0
-    te = end_times(t, dt)
+    if lo_s is None or hi_s is None:
+        lo_s, hi_s = sample_spans(t, dt)
+    lo_s = np.asarray(lo_s, float)
+    hi_s = np.asarray(hi_s, float)
+    real = ~np.asarray(inserted, bool) if inserted is not None else np.ones(n, bool)
+    creal = np.concatenate([[0], np.cumsum(real)])
     blocked = blink | loss
-    s, e, thr = trim_by_speed(t, x, y, usable, candidates.starts, candidates.ends,
-                              edge_speed_factor=edge_speed_factor, velocity_window_ms=edge_velocity_window_ms)
+    s, e = np.asarray(candidates.starts, dtype=np.int64), np.asarray(candidates.ends, dtype=np.int64)
+    rate = 1.0 / dt if dt > 0 else float("nan")
+    if rate >= PEAK_VELOCITY_MIN_RATE_HZ:  # below, the derivative window spans the saccade (module docstring)
+        s, e, thr = trim_by_speed(t, x, y, usable, s, e, edge_speed_factor=edge_speed_factor,
+                                  velocity_window_ms=edge_velocity_window_ms)
+    else:
+        thr = float("nan")
     candidates.info["edge_speed_threshold_deg_s"] = thr
+    if edge_alpha and edge_alpha > 0:
+        sd = within_fixation_mad_sd_deg(x, y, usable, s, e)
+        s, e = trim_by_position(t, x, y, usable, s, e, noise_sd_deg=sd, alpha=edge_alpha, window_ms=edge_window_ms)
+        candidates.info["edge_noise_sd_deg"] = list(sd)
+        candidates.info["edge_alpha"] = float(edge_alpha)
     merge_deg = float(merge_distance_deg)
     if merge_noise_factor and noise_rms_s2s_deg is not None and np.isfinite(noise_rms_s2s_deg):
         merge_deg = max(merge_deg, float(merge_noise_factor) * float(noise_rms_s2s_deg))
@@ -286,56 +494,66 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
         candidates.info["merge_test_axes"] = [ax for ax, sd in zip(("yaw", "pitch"), noise_sd)
                                               if np.isfinite(sd) and sd > 0]
     s, e = merge_candidates(t, x, y, usable, blocked, s, e, merge_gap_ms=merge_gap_ms,
-                            merge_distance_deg=merge_deg, dt_s=dt, noise_sd_deg=noise_sd, merge_alpha=merge_alpha)
-    dur_ms = (te[e] - t[s]) * 1000.0
+                            merge_distance_deg=merge_deg, dt_s=dt, noise_sd_deg=noise_sd, merge_alpha=merge_alpha,
+                            lo_s=lo_s, hi_s=hi_s)
+    dur_ms = (hi_s[np.maximum(e - 1, 0)] - lo_s[s]) * 1000.0
     keep = dur_ms >= min_fixation_ms - 1e-9
     s, e = s[keep], e[keep]
     ok = usable & np.isfinite(x) & np.isfinite(y)
     cx, cy = _prefix(x, ok), _prefix(y, ok)
     cn = np.concatenate([[0], np.cumsum(ok)])
     mx, my = _means(cx, cy, cn, s, e)
+    nan = np.full(len(s), np.nan)
     frames = []
     if len(s):
-        xp = np.append(x, 0.0)
-        yp = np.append(y, 0.0)
+        xp = np.append(np.where(ok, x, np.nan), 0.0)
+        yp = np.append(np.where(ok, y, np.nan), 0.0)
         idx = np.empty(2 * len(s), dtype=np.int64)
         idx[0::2], idx[1::2] = s, np.minimum(e, n)
-        disp = (np.maximum.reduceat(xp, idx)[0::2] - np.minimum.reduceat(xp, idx)[0::2]
-                + np.maximum.reduceat(yp, idx)[0::2] - np.minimum.reduceat(yp, idx)[0::2])
-        frames.append(pd.DataFrame({"type": "fixation", "onset_s": t[s], "offset_s": te[e],
-                                    "yaw_deg": mx, "pitch_deg": my, "amplitude_deg": np.nan,
-                                    "dispersion_deg": disp, "n_samples": (e - s)}))
-        d = np.zeros(n + 1, dtype=np.int64)
-        np.add.at(d, s, 1)
-        np.add.at(d, e, -1)
-        codes[np.cumsum(d[:-1]) > 0] = FIXATION
+        with np.errstate(invalid="ignore"):
+            disp = (np.fmax.reduceat(xp, idx)[0::2] - np.fmin.reduceat(xp, idx)[0::2]
+                    + np.fmax.reduceat(yp, idx)[0::2] - np.fmin.reduceat(yp, idx)[0::2])
+        m_ok = (cn[e] - cn[s]).astype(np.int64)
+        thr_fn = getattr(candidates, "threshold_of_samples", None)
+        noise_fn = getattr(candidates, "noise_dispersion_of_samples", None)
+        frames.append(pd.DataFrame({
+            "type": "fixation", "onset_s": lo_s[s], "offset_s": hi_s[e - 1], "yaw_deg": mx, "pitch_deg": my,
+            "amplitude_deg": np.nan, "dispersion_deg": disp, "n_samples": creal[e] - creal[s],
+            "dispersion_threshold_deg": thr_fn(m_ok) if thr_fn is not None else nan,
+            "dispersion_noise_deg": noise_fn(m_ok) if noise_fn is not None else nan,
+            "peak_velocity_deg_s": np.nan, "peak_velocity_note": ""}))
+        codes[runs_to_mask(s, e, n)] = FIXATION
     if len(s) >= 2:
         cb = np.concatenate([[0], np.cumsum(blocked)])
-        a, b = e[:-1], s[1:]
-        free = (cb[b] - cb[a]) == 0
-        gap_ms = (t[b] - te[a]) * 1000.0
+        a, b = e[:-1] - 1, s[1:]  # last sample of one fixation, first of the next
+        free = (cb[b] - cb[a + 1]) == 0
+        gap_ms = (lo_s[b] - hi_s[a]) * 1000.0
         sac = free & (gap_ms <= saccade_max_ms + 1e-9)
         a, b = a[sac], b[sac]
         amp = np.hypot(mx[1:][sac] - mx[:-1][sac], my[1:][sac] - my[:-1][sac])
-        frames.append(pd.DataFrame({"type": "saccade", "onset_s": te[a], "offset_s": t[b], "yaw_deg": np.nan,
+        rate = 1.0 / dt if dt > 0 else float("nan")
+        peak, notes = peak_velocities(t, x, y, usable, a, b, rate_hz=rate, window_ms=peak_velocity_window_ms)
+        frames.append(pd.DataFrame({"type": "saccade", "onset_s": t[a], "offset_s": t[b], "yaw_deg": np.nan,
                                     "pitch_deg": np.nan, "amplitude_deg": amp, "dispersion_deg": np.nan,
-                                    "n_samples": (b - a)}))
-        d = np.zeros(n + 1, dtype=np.int64)
-        np.add.at(d, a, 1)
-        np.add.at(d, b, -1)
-        codes[np.cumsum(d[:-1]) > 0] = SACCADE
+                                    "n_samples": creal[b] - creal[a + 1], "dispersion_threshold_deg": np.nan,
+                                    "dispersion_noise_deg": np.nan, "peak_velocity_deg_s": peak,
+                                    "peak_velocity_note": notes}))
+        codes[runs_to_mask(a + 1, b, n)] = SACCADE
     for name, mask, code in (("blink", blink, BLINK), ("loss", loss, LOSS)):
         rs, re_ = true_runs(mask)
         if len(rs):
-            frames.append(pd.DataFrame({"type": name, "onset_s": t[rs], "offset_s": te[re_], "yaw_deg": np.nan,
-                                        "pitch_deg": np.nan, "amplitude_deg": np.nan, "dispersion_deg": np.nan,
-                                        "n_samples": (re_ - rs)}))
+            frames.append(pd.DataFrame({"type": name, "onset_s": lo_s[rs], "offset_s": hi_s[re_ - 1],
+                                        "yaw_deg": np.nan, "pitch_deg": np.nan, "amplitude_deg": np.nan,
+                                        "dispersion_deg": np.nan, "n_samples": creal[re_] - creal[rs],
+                                        "dispersion_threshold_deg": np.nan, "dispersion_noise_deg": np.nan,
+                                        "peak_velocity_deg_s": np.nan, "peak_velocity_note": ""}))
             codes[mask] = code
     if not frames:
         return empty_events(), LABEL_NAMES[codes]
     ev = pd.concat(frames, ignore_index=True)
     ev["duration_ms"] = (ev["offset_s"] - ev["onset_s"]) * 1000.0
     ev["n_samples"] = ev["n_samples"].astype("int64")
+    ev["peak_velocity_note"] = ev["peak_velocity_note"].astype(str)
     ev = ev[[c.name for c in EVENT_COLUMNS]].sort_values(["onset_s", "offset_s"], kind="stable")
     return ev.reset_index(drop=True), LABEL_NAMES[codes]
 

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Callable
 
 import numpy as np
 
@@ -18,11 +19,19 @@ class Candidates:
     info : dict
         Thresholds the detector actually used (e.g. the adapted dispersion
         threshold in deg), for the JSON sidecar.
+    threshold_of_samples : callable, optional
+        I-DT: the dispersion threshold (deg) of a window of ``m`` samples,
+        vectorised over ``m``; reported per fixation.
+    noise_dispersion_of_samples : callable, optional
+        I-DT: the dispersion (deg) the noise alone is expected to reach over
+        ``m`` samples.
     """
 
     starts: np.ndarray
     ends: np.ndarray
     info: dict = field(default_factory=dict)
+    threshold_of_samples: Callable | None = field(default=None, repr=False)
+    noise_dispersion_of_samples: Callable | None = field(default=None, repr=False)
 
     @classmethod
     def empty(cls, info: dict | None = None) -> Candidates:
