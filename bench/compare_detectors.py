@@ -73,6 +73,9 @@ from aspectus.events.analysis import AnalysisParams, run_analysis  # noqa: E402
 
 CONDITIONS = {
     "native": None,
+    "250Hz_0.1deg": dict(rate_hz=250.0, noise_rms_deg=0.1),
+    "120Hz_0.1deg": dict(rate_hz=120.0, noise_rms_deg=0.1),
+    "60Hz_0.3deg": dict(rate_hz=60.0, noise_rms_deg=0.3),
     "30Hz_0.5deg": dict(rate_hz=30.0, noise_rms_deg=0.5),
     "30Hz_1.0deg": dict(rate_hz=30.0, noise_rms_deg=1.0),
     "30Hz_1.0deg_gain1.25": dict(rate_hz=30.0, noise_rms_deg=1.0, gain=1.25, offset_deg=5.0),

@@ -149,6 +149,7 @@ class AnalysisParams:
     edge_alpha: float = 0.01
     edge_window_ms: float = 20.0
     edge_speed_factor: float = 1.75
+    edge_speed_low_rates: bool = False
     edge_velocity_window_ms: float = 10.0
     idt_dispersion_deg: float | None = None
     idt_noise_factor: float = 3.5
@@ -332,6 +333,7 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
                                       edge_speed_factor=params.edge_speed_factor,
                                       edge_velocity_window_ms=params.edge_velocity_window_ms,
                                       edge_alpha=params.edge_alpha, edge_window_ms=params.edge_window_ms,
+                                      edge_speed_low_rates=params.edge_speed_low_rates,
                                       merge_noise_factor=params.merge_noise_factor, merge_alpha=params.merge_alpha,
                                       noise_rms_s2s_deg=cl.noise_rms_s2s_deg, lo_s=cl.lo_s, hi_s=cl.hi_s,
                                       inserted=cl.inserted)

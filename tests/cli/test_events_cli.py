@@ -47,8 +47,8 @@ def test_pixel_table_with_missing_cells(tmp_path, capsys):
     assert set(ev["type"]) <= {"fixation", "saccade", "blink", "loss"}
     fx = ev[ev.type == "fixation"]
     assert len(fx) == len(truth)
-    # own time axis: the table starts at 5000 ms -> 5.0 s
-    assert fx["onset_s"].iloc[0] == pytest.approx(5.0, abs=1e-6)
+    # own time axis: the table starts at 5000 ms -> 5.0 s; the first sample stands for half an interval either side
+    assert fx["onset_s"].iloc[0] == pytest.approx(5.0 - 0.5 / 60.0, abs=1e-6)
     # 3 missing samples at 60 Hz = 50 ms <= 75 ms: filled, not loss
     assert (ev.type == "loss").sum() == 0
     # pixel -> degree conversion recovers the planned positions
@@ -94,7 +94,8 @@ def test_aspectus_samples_table_needs_no_column_options(tmp_path, suffix):
     assert main(["events", str(src), "-o", str(out)]) == 0
     ev = pd.read_csv(out / "events.csv")
     b = ev[ev.type == "blink"]
-    assert len(b) == 1 and b["onset_s"].iloc[0] == pytest.approx(df.t_s.iloc[40])
+    dt = df.t_s.iloc[1] - df.t_s.iloc[0]
+    assert len(b) == 1 and b["onset_s"].iloc[0] == pytest.approx(df.t_s.iloc[40] - dt / 2)
     assert json.loads((out / "events.json").read_text())["input"]["kind"] == "samples"
 
 
@@ -147,4 +148,5 @@ def test_saved_mapping_keeps_the_tables_own_clock(tmp_path):
     out = tmp_path / "out"
     assert main(["events", str(src), "-o", str(out), "--mapping", str(tmp_path / "mapping.json")]) == 0
     ev = pd.read_csv(out / "events.csv")
-    assert ev["onset_s"].min() == pytest.approx(120.0, abs=1e-6)
+    dt = 1.0 / 60.0
+    assert ev["onset_s"].min() == pytest.approx(120.0 - dt / 2, abs=1e-6)

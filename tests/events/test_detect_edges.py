@@ -54,11 +54,12 @@ def test_gaps_at_start_and_end(detector):
     loss = res.events[res.events.type == "loss"]
     t = df.t_s.to_numpy()
     dt = t[1] - t[0]
-    assert loss["onset_s"].tolist() == pytest.approx([t[0], t[n - 10]])
-    assert loss["offset_s"].tolist() == pytest.approx([t[10], t[-1] + dt])
+    h = dt / 2  # each sample stands for half an interval either side of it
+    assert loss["onset_s"].tolist() == pytest.approx([t[0] - h, t[n - 10] - h])
+    assert loss["offset_s"].tolist() == pytest.approx([t[10] - h, t[-1] + h])
     fx = res.events[res.events.type == "fixation"]
     assert len(fx) == len(truth)
-    assert fx["onset_s"].min() >= t[10] - 1e-9 and fx["offset_s"].max() <= t[n - 10] + 1e-9
+    assert fx["onset_s"].min() >= t[10] - h - 1e-9 and fx["offset_s"].max() <= t[n - 10] - h + 1e-9
     assert (res.labels[:10] == "loss").all() and (res.labels[-10:] == "loss").all()
 
 

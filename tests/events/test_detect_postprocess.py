@@ -54,19 +54,21 @@ def test_min_duration_saccades_blinks_loss_and_labels():
     assert list(ev.columns) == [c.name for c in EVENT_COLUMNS]
     fx = ev[ev.type == "fixation"]
     # [32, 36) (40 ms) touches [36, 58) at the same place: merged first, so it is not dropped as too short;
-    # (5, 0) and (5, 4) are 4 deg apart: not merged
-    assert fx[["onset_s", "offset_s"]].to_numpy().round(6).tolist() == [[0.0, 0.28], [0.32, 0.58], [0.6, 0.8]]
+    # (5, 0) and (5, 4) are 4 deg apart: not merged. Each sample stands for 5 ms either side of it.
+    assert fx[["onset_s", "offset_s"]].to_numpy().round(6).tolist() == [[-0.005, 0.275], [0.315, 0.575],
+                                                                          [0.595, 0.795]]
     assert fx["duration_ms"].round(6).tolist() == [280.0, 260.0, 200.0]
     assert fx["yaw_deg"].tolist() == pytest.approx([0.0, 5.0, 5.0])
     assert fx["pitch_deg"].tolist() == pytest.approx([0.0, 0.0, 4.0])
     sc = ev[ev.type == "saccade"]
-    # 0.28 -> 0.32 (40 ms <= 150 ms): a saccade of 5 deg; 0.58 -> 0.60: 4 deg
-    assert sc[["onset_s", "offset_s"]].to_numpy().round(6).tolist() == [[0.28, 0.32], [0.58, 0.6]]
+    # from the last fixation sample to the next one's first: 0.27 -> 0.32, a saccade of 5 deg; 0.57 -> 0.60: 4 deg
+    assert sc[["onset_s", "offset_s"]].to_numpy().round(6).tolist() == [[0.27, 0.32], [0.57, 0.6]]
+    assert sc["n_samples"].tolist() == [4, 2]
     assert sc["amplitude_deg"].tolist() == pytest.approx([5.0, 4.0])
     b = ev[ev.type == "blink"]
-    assert b[["onset_s", "offset_s", "n_samples"]].to_numpy().round(6).tolist() == [[0.8, 0.85, 5]]
+    assert b[["onset_s", "offset_s", "n_samples"]].to_numpy().round(6).tolist() == [[0.795, 0.845, 5]]
     lo_ev = ev[ev.type == "loss"]
-    assert lo_ev[["onset_s", "offset_s", "n_samples"]].to_numpy().round(6).tolist() == [[0.95, 1.0, 5]]
+    assert lo_ev[["onset_s", "offset_s", "n_samples"]].to_numpy().round(6).tolist() == [[0.945, 0.995, 5]]
     assert (lab[:28] == "fixation").all() and (lab[28:32] == "saccade").all()
     assert (lab[80:85] == "blink").all() and (lab[95:] == "loss").all()
     assert (lab[85:95] == "unclassified").all()
@@ -99,17 +101,23 @@ def test_edge_trimming_removes_the_samples_beside_a_jump():
 
 def test_end_to_end_exact_times_with_idt():
     df, truth = step_signal(rate_hz=60.0)
-    res = run_analysis(df, AnalysisParams(detector="idt", edge_speed_factor=0.0))
+    res = run_analysis(df, AnalysisParams(detector="idt"))
     fx = res.events[res.events.type == "fixation"]
     t = df.t_s.to_numpy()
-    te = np.append(t, t[-1] + 1 / 60.0)
-    assert fx["onset_s"].tolist() == pytest.approx([t[a] for a, _, _, _ in truth])
-    assert fx["offset_s"].tolist() == pytest.approx([te[b] for _, b, _, _ in truth])
+    h = 0.5 / 60.0
+    # each fixation runs from half an interval before its first sample to half an interval after its last one:
+    # its duration is the planned one exactly
+    assert fx["onset_s"].tolist() == pytest.approx([t[a] - h for a, _, _, _ in truth])
+    assert fx["offset_s"].tolist() == pytest.approx([t[b - 1] + h for _, b, _, _ in truth])
+    assert fx["duration_ms"].tolist() == pytest.approx([(b - a) * 1000 / 60.0 for a, b, _, _ in truth])
     sc = res.events[res.events.type == "saccade"]
-    # jumps happen between two samples: zero-length saccades with fixation-to-fixation amplitude
+    # jumps happen between two samples: the saccade runs from the last sample before to the first after it
+    # (one sample interval, never zero), with fixation-to-fixation amplitude; no peak velocity at 60 Hz
     amp = [np.hypot(b[2] - a[2], b[3] - a[3]) for a, b in zip(truth[:-1], truth[1:])]
     assert sc["amplitude_deg"].tolist() == pytest.approx(amp, abs=0.05)
-    assert (sc["duration_ms"] == 0).all() and (sc["n_samples"] == 0).all()
+    assert sc["duration_ms"].tolist() == pytest.approx([1000 / 60.0] * len(amp)) and (sc["n_samples"] == 0).all()
+    assert sc["onset_s"].tolist() == pytest.approx([t[b - 1] for _, b, _, _ in truth[:-1]])
+    assert sc["peak_velocity_deg_s"].isna().all() and sc["peak_velocity_note"].str.contains("60 Hz").all()
     assert (res.labels == "fixation").all()
 
 
@@ -127,7 +135,7 @@ def test_short_isolated_fixation_is_dropped():
     ev, lab = build_events(t, x, y, ok, bl, lo, Candidates(np.array([0, 40, 45]), np.array([40, 45, 100])),
                            edge_speed_factor=0, min_fixation_ms=60)
     fx = ev[ev.type == "fixation"]
-    assert fx["onset_s"].round(6).tolist() == [0.0, 0.45]
+    assert fx["onset_s"].round(6).tolist() == [-0.005, 0.445]
     assert (lab[40:45] == "saccade").all()
     assert ev[ev.type == "saccade"]["amplitude_deg"].tolist() == pytest.approx([12.0])
 

@@ -25,8 +25,9 @@ def _scopes(*rows):
 
 
 def test_hand_computed_features():
-    # 10 s at 10 Hz; three fixations (onsets 0.5, 3.0, 6.0 s), two saccades, one blink
-    t = np.arange(100) / 10.0
+    # 10 s at 10 Hz; three fixations (onsets 0.5, 3.0, 6.0 s), two saccades, one blink. Each sample stands for
+    # half an interval either side of it: samples at 0.05, 0.15, ... cover the clip [0, 10] s exactly
+    t = 0.05 + np.arange(100) / 10.0
     valid = np.ones(100, bool)
     valid[70:75] = False
     labels = np.array(["unclassified"] * 100, dtype=object)
@@ -53,7 +54,7 @@ def test_hand_computed_features():
 
 
 def test_fixation_time_is_clipped_at_scope_edges():
-    t = np.arange(40) / 10.0
+    t = 0.05 + np.arange(40) / 10.0  # spans cover [0, 4] s
     ev = _events([("fixation", 0.5, 2.5, np.nan)])
     f = compute_features(ev, t_s=t, valid=np.ones(40, bool), yaw_deg=np.zeros(40), pitch_deg=np.zeros(40),
                          labels=np.array(["fixation"] * 40), scopes=_scopes(("window", "w", 2.0, 4.0)))
@@ -136,7 +137,8 @@ def test_exports_and_sidecar(tmp_path):
                            sidecar_name="events.json")
     ev = pd.read_csv(paths["events_csv"])
     pd.testing.assert_frame_equal(pd.read_parquet(paths["events_parquet"]), res.events, check_dtype=False)
-    assert ev["onset_s"].min() >= 100.0  # times on the input's own axis
+    # times on the input's own axis: the first sample (100.0 s) stands for half an interval either side
+    assert ev["onset_s"].min() >= 100.0 - 0.5 / 30.0 - 1e-9
     feats = pd.read_parquet(paths["features_parquet"])
     assert feats["scope"].tolist() == ["clip", "window", "window", "window", "window"]
     side = json.loads(paths["sidecar"].read_text())

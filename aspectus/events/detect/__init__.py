@@ -13,7 +13,7 @@ from aspectus.events.detect.i2mc import detect_i2mc
 from aspectus.events.detect.idt import detect_idt
 from aspectus.events.detect.ivt import detect_ivt
 from aspectus.events.detect.postprocess import LABEL_NAMES, build_events, empty_events
-from aspectus.events.detect.types import Candidates
+from aspectus.events.detect.types import Candidates, DetectionWarning
 
 #: detector name -> function(t_s, yaw_deg, pitch_deg, usable, **params) -> Candidates
 DETECTORS = {
@@ -29,5 +29,5 @@ DETECTOR_DOCS = {
     "ivt": "velocity threshold, data-driven (Nystrom & Holmqvist 2010 / Engbert & Kliegl 2003)",
 }
 
-__all__ = ["DETECTORS", "DETECTOR_DOCS", "Candidates", "LABEL_NAMES", "build_events", "empty_events",
+__all__ = ["DETECTORS", "DETECTOR_DOCS", "Candidates", "DetectionWarning", "LABEL_NAMES", "build_events", "empty_events",
            "detect_i2mc", "detect_idt", "detect_ivt"]

@@ -25,12 +25,18 @@ Everything not saccadic and usable is a fixation candidate.
 """
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 
 from aspectus.errors import ParameterError
 from aspectus.events.detect.noise import median_sd
 from aspectus.events.detect.runs import true_runs
-from aspectus.events.detect.types import Candidates
+from aspectus.events.detect.types import Candidates, DetectionWarning
+
+#: nh2010 needs saccade velocity profiles: below this rate it is warned against (Hz). Nystrom & Holmqvist (2010)
+#: developed it on 1250 Hz data; velocity profiles need some 200 Hz or more (Holmqvist et al. 2011 - from memory).
+NH2010_MIN_RATE_HZ = 200.0
 
 
 def _odd_window(window_ms: float, dt: float) -> int:
@@ -215,6 +221,21 @@ def detect_ivt(t_s, yaw_deg, pitch_deg, usable, *, method: str = "ek2003", veloc
         pt, onset = nh2010_thresholds(speed, initial_deg_s=initial_threshold_deg_s, sd_factor=sd_factor,
                                       onset_sd_factor=onset_sd_factor)
         info.update(peak_threshold_deg_s=pt, onset_threshold_deg_s=onset)
+        rate = 1.0 / float(np.median(np.diff(t)))
+        problems = []
+        if rate < NH2010_MIN_RATE_HZ:
+            problems.append(f"I-VT with the Nystrom & Holmqvist (2010) threshold at {rate:.0f} Hz: the method needs "
+                            f"saccade velocity profiles (>= {NH2010_MIN_RATE_HZ:.0f} Hz); at this rate a saccade "
+                            "spans one or two samples and fixations are lost. Use the default detector (idt) or "
+                            "--set ivt_method=ek2003")
+        if np.isfinite(pt) and pt >= initial_threshold_deg_s - 1e-9:
+            problems.append(f"I-VT nh2010: the peak threshold did not adapt (it stayed at its start, "
+                            f"{initial_threshold_deg_s:g} deg/s): the velocities do not separate saccades from "
+                            "fixations; the result is not trustworthy")
+        for msg in problems:
+            warnings.warn(msg, DetectionWarning, stacklevel=2)
+        if problems:
+            info["warnings"] = problems
         fast = np.nan_to_num(speed, nan=0.0) > onset
         peak = np.nan_to_num(speed, nan=0.0) > pt
         fs, fe = true_runs(fast)

@@ -398,7 +398,7 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
                  edge_velocity_window_ms: float = 10.0, merge_noise_factor: float = 0.0,
                  noise_rms_s2s_deg: float | None = None, merge_alpha: float = 0.0, edge_alpha: float = 0.0,
                  edge_window_ms: float = 20.0, lo_s=None, hi_s=None, inserted=None,
-                 peak_velocity_window_ms: float = 20.0) -> tuple[pd.DataFrame, np.ndarray]:
+                 peak_velocity_window_ms: float = 20.0, edge_speed_low_rates: bool = False) -> tuple[pd.DataFrame, np.ndarray]:
     """Events table and per-sample labels from fixation candidates.
 
     Parameters
@@ -472,7 +472,7 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
     blocked = blink | loss
     s, e = np.asarray(candidates.starts, dtype=np.int64), np.asarray(candidates.ends, dtype=np.int64)
     rate = 1.0 / dt if dt > 0 else float("nan")
-    if rate >= PEAK_VELOCITY_MIN_RATE_HZ:  # below, the derivative window spans the saccade (module docstring)
+    if rate >= PEAK_VELOCITY_MIN_RATE_HZ or edge_speed_low_rates:
         s, e, thr = trim_by_speed(t, x, y, usable, s, e, edge_speed_factor=edge_speed_factor,
                                   velocity_window_ms=edge_velocity_window_ms)
     else:

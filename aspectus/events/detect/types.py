@@ -7,6 +7,10 @@ from typing import Callable
 import numpy as np
 
 
+class DetectionWarning(UserWarning):
+    """A detector's parameters do not suit the input (e.g. its sampling rate); the result is doubtful."""
+
+
 @dataclass
 class Candidates:
     """Fixation candidates found by a detector, before post-processing.
