@@ -53,13 +53,13 @@ def test_fixation_count_and_duration_do_not_depend_on_the_rate(rate_table, noise
     counts = np.array([rate_table[noise, r][1] for r in RATES])
     # count within +-10 % of the truth at every rate (issue floor)
     assert np.all(np.abs(counts - 1) <= 0.10), dict(zip(RATES, counts))
-    # mean duration error: the issue's floor is +-10 ms; measured +0.3 to +12 ms at 0.1 deg and up to +22 ms at
-    # 0.5 deg (the minimum-jerk saccade starts so slowly that its first ~5-10 ms lie within the noise of the
-    # fixation's position at any rate). What the webcam-vs-lab comparison needs is that the error does not
-    # depend on the rate: before, it ran from -52 ms (30 Hz) to -296 ms (1000 Hz).
-    bound = {0.1: 14.0, 0.3: 20.0, 0.5: 25.0}[noise]
+    # mean duration error: the issue's floor is +-10 ms, met at 0.1 deg; at 0.3-0.5 deg the first and last
+    # ~5 ms of a minimum-jerk saccade (it starts and ends slowly) lie within the noise of the fixation's position
+    # at 30-60 Hz and the error reaches +14 ms (bench: python tests/_signals.py is not needed; see the README's
+    # table). Before this change it ran from -52 ms (30 Hz) to -296 ms (1000 Hz) at 0.3 deg.
+    bound = {0.1: 10.0, 0.3: 14.0, 0.5: 16.0}[noise]
     assert np.all(np.abs(errs) <= bound), dict(zip(RATES, errs.round(1)))
-    assert errs.max() - errs.min() <= 16.0, dict(zip(RATES, errs.round(1)))
+    assert errs.max() - errs.min() <= 20.0, dict(zip(RATES, errs.round(1)))
 
 
 def test_low_noise_durations_within_10_ms_at_lab_rates(rate_table):

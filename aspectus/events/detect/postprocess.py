@@ -1,12 +1,32 @@
 """Post-processing shared by all detectors: candidates to events and labels.
 
-0. Edge trimming by speed (aspectus's own step, in the spirit of the
-   onset/offset thresholds of Nystrom & Holmqvist 2010): samples at the start
-   or end of a candidate whose gaze speed exceeds ``edge_speed_factor`` times
-   the recording's median speed are removed, so that the end of a saccade and
-   post-saccadic oscillations (at high rates), or the one or two samples
-   smeared across a saccade (at webcam rates), are not counted as fixation.
-   The threshold is data-driven: it scales with the clip's noise.
+0. Edge trimming: only what is measurably not fixation.
+
+   a. By speed, where speed is measured: when the sample interval is no
+      longer than ``edge_velocity_window_ms`` (10 ms: 100 Hz and above), edge
+      samples faster than ``edge_speed_factor`` times the recording's median
+      gaze speed are removed (aspectus's own step, in the spirit of the
+      onset/offset thresholds of Nystrom & Holmqvist 2010): the slow end of
+      a saccade and the post-saccadic oscillation stay within the noise of
+      position but not of speed. With longer intervals the derivative
+      window (at least 3 samples) reaches into the saccade and the step
+      would remove genuine fixation samples - 50 ms per fixation at 30 Hz -
+      so it is not applied there (``edge_speed_low_rates`` forces it).
+   b. By position, at every rate: a candidate's first (last) sample is
+      removed while it differs from the mean of the next (previous) samples
+      over ``edge_window_ms`` (at least 2) by more than the noise allows, at
+      level ``edge_alpha`` (:func:`trim_by_position`: along the line to the
+      neighbouring fixation, else on both axes), with the recording's
+      within-fixation noise SD (median absolute deviation from each
+      candidate's median, pooled, times 1.4826). That removes the samples
+      caught mid-saccade at webcam rates and keeps the last genuine fixation
+      sample beside a saccade.
+
+   Durations then do not depend on the rate (tests/test_detect_rates.py).
+   What position cannot resolve stays in the fixation: at webcam rates with
+   0.3-0.5 deg noise, the slow start and end of a saccade and the
+   post-saccadic oscillation, which expert coders label as not fixation
+   (README, detector comparison).
 1. Merge: consecutive fixation candidates separated by at most
    ``merge_gap_ms`` (offset of one to onset of the next), with no blink or
    data loss between them, whose mean positions lie at most
@@ -276,29 +296,40 @@ def within_fixation_mad_sd_deg(yaw_deg, pitch_deg, usable, starts, ends) -> tupl
     return out[0], out[1]
 
 
-def trim_by_position(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, noise_sd_deg, alpha: float = 0.01,
-                     window_ms: float = 20.0) -> tuple[np.ndarray, np.ndarray]:
+def trim_by_position(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, noise_sd_deg, alpha: float = 0.05,
+                     window_ms: float = 20.0, neighbour_gap_ms: float = 150.0) -> tuple[np.ndarray, np.ndarray]:
     """Trim candidates' edge samples that are measurably away from the fixation (step 0 of the module docstring).
+
+    An edge sample is compared with the mean of its inner neighbours. Where the
+    candidate has a neighbouring candidate on that side (at most
+    ``neighbour_gap_ms`` away), the eye left (or arrived) along the line
+    between the two, so the difference is projected on that line and tested
+    two-sided with one degree of freedom (a saccade's tail and the
+    post-saccadic oscillation lie along it); elsewhere both axes are tested
+    (2 degrees of freedom).
 
     Parameters
     ----------
     t_s, yaw_deg, pitch_deg, usable : array_like, shape (n,)
     starts, ends : array_like of int
-        Candidate index ranges.
+        Candidate index ranges, sorted.
     noise_sd_deg : (float, float)
         Per-sample noise SD of yaw and pitch, deg.
     alpha : float
-        Level of the test; an edge sample is removed when the squared
-        standardised distance to the mean of its inner neighbours exceeds
-        ``-2 ln(alpha)`` (the chi-square quantile with 2 degrees of freedom).
+        Level of the test (chi-square quantile ``1 - alpha`` with 1 or 2
+        degrees of freedom).
     window_ms : float
         Inner neighbours compared with: those within this time (at least 2).
+    neighbour_gap_ms : float
+        Largest gap to a neighbouring candidate that gives the test its direction, ms.
 
     Returns
     -------
     starts, ends : ndarray
         Trimmed ranges (a candidate may shrink to nothing and is then dropped).
     """
+    from scipy.stats import chi2
+
     t = np.asarray(t_s, float)
     x = np.asarray(yaw_deg, float)
     y = np.asarray(pitch_deg, float)
@@ -313,22 +344,42 @@ def trim_by_position(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, noise_sd_
     ok = np.asarray(usable, bool) & np.isfinite(x) & np.isfinite(y)
     cx, cy = _prefix(x, ok), _prefix(y, ok)
     cn = np.concatenate([[0], np.cumsum(ok)])
-    limit = -2.0 * np.log(alpha)
-    sx, sy = sds
+    lim2, lim1 = float(chi2.ppf(1 - alpha, 2)), float(chi2.ppf(1 - alpha, 1))
+    vx, vy = [v * v if np.isfinite(v) else np.nan for v in sds]
+    # direction of the neighbouring candidate on each side (unit vector; NaN where none)
+    mx, my = _means(cx, cy, cn, s, e)
+    te = t[np.maximum(e - 1, 0)]
+    close_prev = np.concatenate([[False], (t[s[1:]] - te[:-1]) * 1000.0 <= neighbour_gap_ms + 1e-9])
+    close_next = np.concatenate([close_prev[1:], [False]])
 
-    def far(i, a, b):
+    def unit(dx, dy, close):
+        d = np.hypot(dx, dy)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            good = close & np.isfinite(d) & (d > 0)
+            return np.where(good, dx / d, np.nan), np.where(good, dy / d, np.nan)
+
+    ux_prev, uy_prev = unit(np.concatenate([[np.nan], mx[:-1] - mx[1:]]), np.concatenate([[np.nan], my[:-1] - my[1:]]),
+                            close_prev)
+    ux_next, uy_next = unit(np.concatenate([mx[1:] - mx[:-1], [np.nan]]), np.concatenate([my[1:] - my[:-1], [np.nan]]),
+                            close_next)
+
+    def far(i, a, b, ux, uy):
         """Sample i against the mean of the usable samples [a, b)."""
         m = (cn[b] - cn[a]).astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
-            mx = (cx[b] - cx[a]) / m
-            my = (cy[b] - cy[a]) / m
+            dx = x[i] - (cx[b] - cx[a]) / m
+            dy = y[i] - (cy[b] - cy[a]) / m
             f = 1.0 + 1.0 / m
-            stat = np.zeros(len(i))
-            if np.isfinite(sx):
-                stat += (x[i] - mx) ** 2 / (sx * sx * f)
-            if np.isfinite(sy):
-                stat += (y[i] - my) ** 2 / (sy * sy * f)
-        return (m >= 1) & np.isfinite(stat) & (stat > limit)
+            two = np.zeros(len(i))
+            if np.isfinite(vx):
+                two += dx * dx / (vx * f)
+            if np.isfinite(vy):
+                two += dy * dy / (vy * f)
+            var1 = (np.nan_to_num(vx) * ux * ux + np.nan_to_num(vy) * uy * uy) * f
+            one = (dx * ux + dy * uy) ** 2 / var1
+            directed = np.isfinite(one)
+            hit = np.where(directed, one > lim1, np.isfinite(two) & (two > lim2))
+        return (m >= 1) & hit
 
     for side in ("start", "end"):
         active = np.ones(len(s), bool)
@@ -338,11 +389,11 @@ def trim_by_position(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, noise_sd_
                 break
             if side == "start":
                 i = s[idx]
-                hit = far(i, i + 1, np.minimum(i + 1 + k, e[idx]))
+                hit = far(i, i + 1, np.minimum(i + 1 + k, e[idx]), ux_prev[idx], uy_prev[idx])
                 s[idx[hit]] += 1
             else:
                 i = e[idx] - 1
-                hit = far(i, np.maximum(i - k, s[idx]), i)
+                hit = far(i, np.maximum(i - k, s[idx]), i, ux_next[idx], uy_next[idx])
                 e[idx[hit]] -= 1
             active[:] = False
             active[idx[hit]] = True
@@ -418,8 +469,9 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
     saccade_max_ms : float, default 150
         Longest interval between fixations still called a saccade, ms.
     edge_speed_factor : float, default 0
-        Trimming by speed, in units of the median gaze speed (applied only at
-        :data:`PEAK_VELOCITY_MIN_RATE_HZ` and above); 0 disables.
+        Trimming by speed, in units of the median gaze speed (applied only
+        where the sample interval is at most ``edge_velocity_window_ms``,
+        unless ``edge_speed_low_rates``); 0 disables.
     edge_velocity_window_ms : float, default 10
         Derivative window for the trimming by speed, ms.
     merge_noise_factor : float, default 0
@@ -441,6 +493,8 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
         ``n_samples``.
     peak_velocity_window_ms : float, default 20
         Derivative window of the saccades' peak velocity, ms.
+    edge_speed_low_rates : bool, default False
+        Trim by speed at every rate (the earlier behaviour; biased at low rates).
 
     Returns
     -------
@@ -472,7 +526,9 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
     blocked = blink | loss
     s, e = np.asarray(candidates.starts, dtype=np.int64), np.asarray(candidates.ends, dtype=np.int64)
     rate = 1.0 / dt if dt > 0 else float("nan")
-    if rate >= PEAK_VELOCITY_MIN_RATE_HZ or edge_speed_low_rates:
+    # speed is a measurement where the sample interval is no longer than the derivative window asked for;
+    # with longer intervals the (3-sample) window reaches into the saccade and flags genuine fixation samples
+    if (dt > 0 and dt * 1000.0 <= edge_velocity_window_ms + 1e-9) or edge_speed_low_rates:
         s, e, thr = trim_by_speed(t, x, y, usable, s, e, edge_speed_factor=edge_speed_factor,
                                   velocity_window_ms=edge_velocity_window_ms)
     else:
