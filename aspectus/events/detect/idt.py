@@ -12,19 +12,25 @@ window is a fixation; otherwise the first sample is dropped. aspectus adds two
 things: windows never span unusable samples, and the dispersion threshold
 may adapt to the clip's measured noise (``dispersion_deg=None``).
 
-The adaptive threshold depends on the window's sample count. The extremes
-of noise grow with the number of samples: the expected range of ``m``
-independent normal values is ``d2(m)`` SDs (Tippett 1925, Biometrika 17;
-the control-chart constant d2 - 1.13 for 2 samples, 3.08 for 10, 5.02 for
-100, 6.07 for 500), and for white noise of per-axis SD ``s`` the RMS-S2S is
-``2 s``, so the noise alone gives a window of ``m`` samples an expected
-dispersion ``d2(m) x RMS-S2S``. A fixed threshold therefore cuts fixations
-into fragments at a lab tracker's rate (hundreds of samples per fixation)
-that it leaves whole at a webcam's (a handful). The threshold for ``m``
-samples is ``max(min_dispersion_deg, noise_factor x RMS-S2S,
-noise_range_factor x d2(m) x RMS-S2S)``: at webcam rates the first two
-decide as before; over many samples the last keeps the noise's own spread
-inside the threshold.
+The adaptive threshold accounts for the window's sample count. The
+extremes of noise grow with the number of samples: the expected range of
+``m`` independent normal values is ``d2(m)`` SDs (Tippett 1925, Biometrika
+17; the control-chart constant d2 - 1.13 for 2 samples, 3.08 for 10, 5.02
+for 100, 6.07 for 500), and for white noise of per-axis SD ``s`` the
+RMS-S2S is ``2 s``, so the noise alone gives a window of ``m`` samples an
+expected dispersion ``d2(m) x RMS-S2S``. A threshold of a fixed multiple of
+the noise is then rarely reached by a 60 ms window of 2 samples (30 Hz) but
+usually by one of 60 samples (1000 Hz): at a lab tracker's rate a fixation
+could hardly start and was cut into fragments (x1.2 fixations, -220 ms at
+500 Hz, 0.3 deg noise). The threshold for a window of ``m`` samples is
+therefore ``max(min_dispersion_deg, noise_factor x RMS-S2S,
+noise_range_factor x d2(m0) x RMS-S2S, d2(m) x RMS-S2S)`` with ``m0`` the
+sample count of the duration-threshold window: at webcam rates the first
+two decide as before (a fixation of 15 samples, 500 ms at 30 Hz, reaches
+d2 = 3.5); at a lab tracker's rate the third lets a fixation start and the
+last lets it grow as far as the noise's own expected spread. What noise
+alone still cuts lies side by side at the same place, and the merge step
+joins it (:mod:`aspectus.events.detect.postprocess`).
 """
 from __future__ import annotations
 
@@ -114,16 +120,18 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     min_duration_ms : float, default 60
         Duration threshold: the initial window covers at least this many ms.
     noise_range_factor : float, default 1.2
-        Adaptive threshold for ``m`` samples at least this many times the
-        dispersion the noise alone is expected to reach over ``m`` samples
-        (module docstring); 0 gives a threshold that ignores the sample count.
+        Adaptive threshold at least this many times the dispersion the noise
+        alone is expected to reach over the duration-threshold window's
+        samples (module docstring); 0 ignores the sample count.
 
     Returns
     -------
     Candidates
         Fixation candidates as index ranges, plus ``info["dispersion_deg"]``
-        (the threshold of the shortest window) and the rule; its
-        ``threshold_of_samples`` gives the threshold for any sample count.
+        (the threshold of the duration-threshold window) and the rule;
+        ``threshold_of_samples`` gives the threshold for any window length and
+        ``noise_dispersion_of_samples`` the dispersion the noise alone is
+        expected to reach over it.
     """
     t = np.asarray(t_s, dtype=float)
     x = np.asarray(yaw_deg, dtype=float)
@@ -147,11 +155,15 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     base = thr
     noise = float(noise)
 
+    m0_box = [2]  # samples in the duration-threshold window (set below)
+
     def thr_of(m):
+        """The threshold (deg) used for a window of ``m`` samples (module docstring)."""
         m = np.asarray(m)
         if k_range <= 0 or noise <= 0:
             return np.full(m.shape, base)
-        return np.maximum(base, k_range * expected_range_sd(m) * noise)
+        first = max(base, k_range * float(expected_range_sd(m0_box[0])) * noise)
+        return np.maximum(first, expected_range_sd(m) * noise)
 
     def noise_disp_of(m):
         return expected_range_sd(np.asarray(m)) * noise if noise > 0 else np.full(np.shape(m), np.nan)
@@ -159,7 +171,8 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     info = {"dispersion_deg": thr, "min_duration_ms": float(min_duration_ms),
             "dispersion_rule": ("fixed" if dispersion_deg is not None else
                                 f"max({float(min_dispersion_deg):g} deg, {float(noise_factor):g} x RMS-S2S, "
-                                f"{k_range:g} x d2(samples) x RMS-S2S)"),
+                                f"{k_range:g} x d2(samples in {float(min_duration_ms):g} ms) x RMS-S2S, "
+                                "d2(samples in the window) x RMS-S2S)"),
             "noise_rms_s2s_deg": noise if dispersion_deg is None else None}
     if n < 2 or not ok.any():
         return Candidates(np.zeros(0, np.int64), np.zeros(0, np.int64), info, thr_of, noise_disp_of)
@@ -179,7 +192,8 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     if not len(cand):
         return empty
     disp = _range_table_query(x, cand, e0[cand]) + _range_table_query(y, cand, e0[cand])
-    info["dispersion_deg"] = float(thr_of(int(np.median(e0[cand] - cand))))
+    m0_box[0] = int(np.median(e0[cand] - cand))
+    info["dispersion_deg"] = float(thr_of(m0_box[0]))
     good = np.zeros(n, dtype=bool)
     good[cand[disp <= thr_of(e0[cand] - cand)]] = True
     if not good.any():

@@ -296,7 +296,7 @@ def within_fixation_mad_sd_deg(yaw_deg, pitch_deg, usable, starts, ends) -> tupl
     return out[0], out[1]
 
 
-def trim_by_position(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, noise_sd_deg, alpha: float = 0.05,
+def trim_by_position(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, noise_sd_deg, alpha: float = 0.1,
                      window_ms: float = 20.0, neighbour_gap_ms: float = 150.0) -> tuple[np.ndarray, np.ndarray]:
     """Trim candidates' edge samples that are measurably away from the fixation (step 0 of the module docstring).
 
