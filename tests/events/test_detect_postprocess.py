@@ -101,7 +101,8 @@ def test_edge_trimming_removes_the_samples_beside_a_jump():
 
 def test_end_to_end_exact_times_with_idt():
     df, truth = step_signal(rate_hz=60.0)
-    res = run_analysis(df, AnalysisParams(detector="idt"))
+    # no edge test here: at its 10 % level it removes a genuine edge sample now and then (on average a few ms)
+    res = run_analysis(df, AnalysisParams(detector="idt", edge_alpha=0.0))
     fx = res.events[res.events.type == "fixation"]
     t = df.t_s.to_numpy()
     h = 0.5 / 60.0
