@@ -410,6 +410,13 @@ def icc(ratings, *, form: str = DEFAULT_ICC_FORM, confidence: float = 0.95) -> I
     if bms == 0 and ems == 0 and wms == 0:
         warnings.warn(f"{desc}: the ratings do not vary (n={n}); reported as NaN", AgreementWarning, stacklevel=2)
         return nan_result
+    scale = max(1.0, float(np.max(np.abs(x))))
+    if bms <= (1e-12 * scale) ** 2:
+        # every target got the same mean rating (e.g. two constant columns): there is no between-target
+        # variance to attribute, and every form is 0/0 or a meaningless -1
+        warnings.warn(f"{desc}: the targets do not differ (each judge's ratings are constant or the targets' means "
+                      f"are all equal; n={n}); reported as NaN", AgreementWarning, stacklevel=2)
+        return nan_result
     alpha = 1.0 - confidence
     fq = lambda d1, d2: float(stats.f.ppf(1.0 - alpha / 2.0, d1, d2))  # noqa: E731
     single = key.endswith(",1")
@@ -457,7 +464,8 @@ def icc_all(ratings, *, confidence: float = 0.95) -> dict[str, IccResult]:
     return out
 
 
-def deming_slope(reference, test, *, variance_ratio: float = 1.0, confidence: float = 0.95) -> Estimate:
+def deming_slope(reference, test, *, variance_ratio: float = 1.0, confidence: float = 0.95,
+                 error_sd_reference: float | None = None, error_sd_test: float | None = None) -> Estimate:
     """Calibration-free gain: Deming regression slope of ``test`` on ``reference``, jackknife interval.
 
     Both methods measure with error, so ordinary least squares would bias the
@@ -472,30 +480,61 @@ def deming_slope(reference, test, *, variance_ratio: float = 1.0, confidence: fl
     reference, test : array_like
         Paired values in the same unit (e.g. saccade amplitudes in deg).
     variance_ratio : float
-        Ratio of the test's to the reference's error variance (dimensionless).
+        Ratio of the test's to the reference's error variance (dimensionless);
+        used when the two error SDs are not given.
     confidence : float
         Confidence level of the interval.
+    error_sd_reference, error_sd_test : float, optional
+        Measured error SD of each method in the unit of the values (e.g. each
+        side's RMS-S2S noise, deg). When both are given (finite, > 0) the
+        ratio is ``(error_sd_test / error_sd_reference) ** 2``: a noisier
+        webcam against a precise lab tracker is then not read as a gain
+        above 1 (with ratio 1 and a true gain of 1: 1.06, 1.13 and 1.25 at
+        webcam errors of 1.0, 1.5 and 2.0 deg against 0.1 deg).
+
+    Notes
+    -----
+    Slope ``(s_yy - l s_xx + sqrt((s_yy - l s_xx)^2 + 4 l s_xy^2)) / (2 s_xy)``
+    with ``l`` the error-variance ratio (Linnet 1990 [8]_; Cornbleet &
+    Gochman 1979, Clinical Chemistry 25(3), 432-438 - from memory). As
+    ``l`` grows it tends to the least-squares slope of test on reference,
+    as ``l`` falls to zero to that of reference on test, inverted. NaN with
+    an :class:`AgreementWarning` when a side does not vary or the two do not
+    covary (``s_xy = 0``: no slope is defined).
     """
     confidence = _check_confidence(confidence)
     x, y = paired(reference, test)
     n = x.size
-    method = f"Deming regression slope (variance ratio {variance_ratio:g}), jackknife interval"
+    lam = float(variance_ratio)
+    given = [v for v in (error_sd_reference, error_sd_test) if v is not None]
+    if len(given) == 2 and all(np.isfinite(v) and v > 0 for v in given):
+        lam = (float(error_sd_test) / float(error_sd_reference)) ** 2
+        method = (f"Deming regression slope (error SDs {float(error_sd_test):.3g} test, "
+                  f"{float(error_sd_reference):.3g} reference: variance ratio {lam:.3g}), jackknife interval")
+    else:
+        method = f"Deming regression slope (variance ratio {lam:g}), jackknife interval"
+    if not (np.isfinite(lam) and lam > 0):
+        raise ParameterError(f"Deming variance ratio must be > 0, got {lam!r}")
     if n < 3:
         return _degenerate("gain", n, "fewer than 3 pairs", confidence=confidence, method=method)
     if np.ptp(x) == 0:
         return _degenerate("gain", n, "the reference does not vary", confidence=confidence, method=method)
+    if np.ptp(y) == 0:
+        return _degenerate("gain", n, "the test method does not vary", confidence=confidence, method=method)
 
     def slope(xx, yy):
         mx, my = xx.mean(), yy.mean()
         sxx = np.mean((xx - mx) ** 2)
         syy = np.mean((yy - my) ** 2)
         sxy = np.mean((xx - mx) * (yy - my))
-        if sxy == 0:
-            return 0.0
-        lam = variance_ratio
+        if abs(sxy) <= 1e-12 * np.sqrt(sxx * syy):
+            return NAN
         return (syy - lam * sxx + np.sqrt((syy - lam * sxx) ** 2 + 4 * lam * sxy * sxy)) / (2 * sxy)
 
     b = float(slope(x, y))
+    if not np.isfinite(b):
+        return _degenerate("gain", n, "the two methods do not covary (s_xy = 0): no slope is defined",
+                           confidence=confidence, method=method)
     idx = np.arange(n)
     jack = np.array([slope(x[idx != i], y[idx != i]) for i in range(n)])
     if not np.isfinite(jack).all():
@@ -687,9 +726,11 @@ def rmcorr(a, b, subject, *, confidence: float = 0.95) -> RepeatedMeasuresCorrel
     centred on each participant's mean. Degrees of freedom
     ``df = N - k - 1``. A participant with a single pair adds nothing to the
     estimate and nothing to ``df`` (its pair and its intercept cancel).
-    Interval: Fisher z with ``df`` in place of ``n``, i.e.
-    ``tanh(atanh(r_rm) -+ z_q / sqrt(df - 3))``, the convention of the
-    authors' R package (from memory).
+    Interval: Fisher z with ``n = df + 2``, i.e.
+    ``tanh(atanh(r_rm) -+ z_q / sqrt(df - 1))`` - the convention of the
+    authors' corrected R package (rmcorr 0.5.4 and later) and of pingouin's
+    ``rm_corr`` (checked against pingouin in the tests); the earlier
+    ``sqrt(df - 3)`` made the interval too wide at small ``df``.
     """
     confidence = _check_confidence(confidence)
     a, b, codes, labels = _grouped(a, b, subject)
@@ -719,12 +760,12 @@ def rmcorr(a, b, subject, *, confidence: float = 0.95) -> RepeatedMeasuresCorrel
     else:
         t = r * np.sqrt(df / (1.0 - r * r))
         p = float(2.0 * stats.t.sf(abs(t), df))
-    if df <= 3:
+    if df <= 1:
         warnings.warn(f"repeated-measures correlation: df={df} is too few for a confidence interval",
                       AgreementWarning, stacklevel=2)
         lo = hi = NAN
     else:
-        lo, hi = _fisher_ci(r, 1.0 / np.sqrt(df - 3), confidence)
+        lo, hi = _fisher_ci(r, 1.0 / np.sqrt(df - 1), confidence)
     return RepeatedMeasuresCorrelation(r, lo, hi, int(df), n, k, float(slope), p, confidence, method)
 
 

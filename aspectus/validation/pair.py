@@ -330,8 +330,25 @@ def agreement_table(pairs: pd.DataFrame, features, *, icc_form: str = DEFAULT_IC
     return df[cols + [c for c in df.columns if c not in cols]] if len(df) else pd.DataFrame(columns=cols)
 
 
-def _gain(ev_w: pd.DataFrame, ev_r: pd.DataFrame, tol: float, confidence: float) -> dict:
+def _mean_error_sd(ev: pd.DataFrame, noise_rms_s2s_deg) -> float | None:
+    """Error SD (deg, per axis) of a fixation's mean position from the measured noise.
+
+    RMS-S2S of white noise is twice the per-axis SD (Holmqvist, Nystrom & Mulvey 2012), and a mean of ``n``
+    samples has ``1 / sqrt(n)`` of it; ``n`` is the median sample count of the side's fixations.
+    """
+    fx = ev[ev["type"] == "fixation"] if len(ev) else ev
+    if noise_rms_s2s_deg is None or not np.isfinite(noise_rms_s2s_deg) or noise_rms_s2s_deg <= 0 or not len(fx) \
+            or "n_samples" not in fx.columns:
+        return None
+    n = float(np.median(fx["n_samples"]))
+    return float(noise_rms_s2s_deg) / 2.0 / np.sqrt(max(n, 1.0))
+
+
+def _gain(ev_w: pd.DataFrame, ev_r: pd.DataFrame, tol: float, confidence: float, *, noise_w=None,
+          noise_r=None) -> dict:
+    """Deming slopes with each side's measured error (:func:`_mean_error_sd`); ratio 1 where one is unknown."""
     out = {}
+    sd_w, sd_r = _mean_error_sd(ev_w, noise_w), _mean_error_sd(ev_r, noise_r)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", AgreementWarning)
         sac = match_events(ev_w, ev_r, event_type="saccade", tolerance_s=tol)
@@ -342,7 +359,8 @@ def _gain(ev_w: pd.DataFrame, ev_r: pd.DataFrame, tol: float, confidence: float)
             b = amp_r["amplitude_deg"].to_numpy(float)[sac.pairs["reference_index"].to_numpy(int)]
         else:
             a = b = np.empty(0)
-        out["saccade_amplitude"] = deming_slope(b, a, confidence=confidence).to_dict()
+        out["saccade_amplitude"] = deming_slope(b, a, confidence=confidence, error_sd_reference=sd_r,
+                                                error_sd_test=sd_w).to_dict()
         fix = match_events(ev_w, ev_r, event_type="fixation", tolerance_s=tol)
         fw = ev_w[ev_w["type"] == "fixation"].reset_index(drop=True)
         fr = ev_r[ev_r["type"] == "fixation"].reset_index(drop=True)
@@ -353,7 +371,8 @@ def _gain(ev_w: pd.DataFrame, ev_r: pd.DataFrame, tol: float, confidence: float)
                 b = fr[col].to_numpy(float)[fix.pairs["reference_index"].to_numpy(int)]
             else:
                 a = b = np.empty(0)
-            out[f"fixation_{axis}"] = deming_slope(b, a, confidence=confidence).to_dict()
+            out[f"fixation_{axis}"] = deming_slope(b, a, confidence=confidence, error_sd_reference=sd_r,
+                                                   error_sd_test=sd_w).to_dict()
     out["notes"] = sorted({str(w.message) for w in caught})
     out["method"] = ("Deming regression (error variance ratio 1) of webcam on reference, over events matched by "
                      "onset; slope = gain, the intercept absorbs the webcam's constant angle offset")
@@ -493,7 +512,8 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
         matches = {t: match_events(res_w.events, ref_events, event_type=t, tolerance_s=params.match_tolerance_s)
                    for t in ("fixation", "saccade", "blink")}
     ev_notes = sorted({str(w.message) for w in caught})
-    gain = _gain(res_w.events, ref_events, params.match_tolerance_s, params.confidence)
+    gain = _gain(res_w.events, ref_events, params.match_tolerance_s, params.confidence,
+                 noise_w=res_w.quality.get("noise_rms_s2s_deg"), noise_r=res_r.quality.get("noise_rms_s2s_deg"))
     fm = matches["fixation"]
     events = {
         "kappa": kap.kappa, "kappa_ci_low": kap.ci_low, "kappa_ci_high": kap.ci_high, "kappa_n_samples": kap.n,

@@ -385,7 +385,8 @@ def _verdict(summary: dict) -> tuple[bool, str]:
     if ff < 0.8:
         reasons.append(f"the face was tracked in only {ff:.0%} of frames (the student may have left the picture or the room is too dark)")
     if vf < 0.6:
-        reasons.append(f"only {vf:.0%} of frames gave usable gaze (blinks, closed eyes, turned head or no face)")
+        reasons.append(f"usable gaze in only {vf:.0%} of the recorded time (blinks, closed eyes, turned head, no "
+                       "face, or frames missing from the recording)")
     if noise is not None and np.isfinite(noise) and noise > 3.0:
         reasons.append(f"the gaze signal is very noisy ({noise:.1f} deg sample to sample)")
     if reasons:
@@ -404,7 +405,10 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         "duration_s": float(samples["t_s"].iloc[-1]) if n else 0.0,
         "face_found_frac": float(samples["face_found"].mean()) if n else 0.0,
         "multi_face_frac": float((samples["face_count"] > 1).mean()) if n else 0.0,
-        "valid_frac": float(samples["valid"].mean()) if n else 0.0,
+        # of the recorded time, from the analysis: holes in the time axis (dropped frames, a paused
+        # recording) count as not valid
+        "valid_frac": float(q["valid_frac"]) if n and np.isfinite(q.get("valid_frac", np.nan))
+        else (float(samples["valid"].mean()) if n else 0.0),
         "blink_count": int((ev["type"] == "blink").sum()) if len(ev) else 0,
         "fixation_count": int((ev["type"] == "fixation").sum()) if len(ev) else 0,
         "median_distance_mm": float(np.nanmedian(samples["distance_mm"])) if samples["face_found"].any() else float("nan"),

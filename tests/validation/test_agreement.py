@@ -120,6 +120,43 @@ def test_deming_gain_recovers_known_slope():
     assert abs(g.estimate - 0.8) <= abs(ols - 0.8) + 1e-3  # OLS is attenuated by the reference's noise
 
 
+def test_deming_with_measured_error_variances_is_unbiased_for_a_noisier_webcam():
+    # true gain 1.0; the webcam errs by SD 2.0 deg, the reference by 0.1 deg (issue: ratio 1 read 1.25)
+    rng = np.random.default_rng(3)
+    truth = rng.uniform(-10, 10, 4000)
+    ref = truth + rng.normal(0, 0.1, truth.size)
+    cam = truth + rng.normal(0, 2.0, truth.size)
+    with_ratio_1 = deming_slope(ref, cam).estimate
+    g = deming_slope(ref, cam, error_sd_reference=0.1, error_sd_test=2.0)
+    assert with_ratio_1 > 1.04  # biased: orthogonal regression leans towards the noisier side
+    assert g.estimate == pytest.approx(1.0, abs=0.02) and g.ci_low < 1.0 < g.ci_high
+    assert "error SDs" in g.method
+    # limits (any regression text): a very large ratio gives least squares of test on reference, a very small one
+    # least squares of reference on test, inverted - scipy.stats.linregress as the reference
+    assert deming_slope(ref, cam, variance_ratio=1e9).estimate == pytest.approx(stats.linregress(ref, cam).slope,
+                                                                                  rel=1e-6)
+    assert deming_slope(ref, cam, variance_ratio=1e-9).estimate == pytest.approx(
+        1.0 / stats.linregress(cam, ref).slope, rel=1e-6)
+
+
+def test_deming_degenerate_cases_are_nan_with_a_warning():
+    with pytest.warns(AgreementWarning, match="test method does not vary"):
+        g = deming_slope([1.0, 2.0, 3.0, 4.0], [5.0, 5.0, 5.0, 5.0])
+    assert np.isnan(g.estimate) and np.isnan(g.ci_low) and np.isnan(g.ci_high)
+    # s_xy = 0 exactly: both vary but do not covary
+    with pytest.warns(AgreementWarning, match="do not covary"):
+        g = deming_slope([1.0, 2.0, 3.0, 4.0, 5.0], [1.0, 3.0, 5.0, 3.0, 1.0])
+    assert np.isnan(g.estimate)
+
+
+def test_icc_of_two_constant_columns_is_nan_with_a_warning():
+    # the issue's case: two constant but different columns gave -1 with CI (-1, -1)
+    for form in ICC_FORMS:
+        with pytest.warns(AgreementWarning, match="targets do not differ"):
+            r = icc(np.column_stack([np.full(6, 2.0), np.full(6, 5.0)]), form=form)
+        assert np.isnan(r.estimate) and np.isnan(r.ci_low) and np.isnan(r.ci_high)
+
+
 @pytest.mark.parametrize("fn", [pearson, spearman, lin_ccc, deming_slope])
 def test_degenerate_input_gives_nan_and_a_warning(fn):
     with pytest.warns(AgreementWarning, match="fewer than 3"):

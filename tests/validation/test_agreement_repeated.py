@@ -65,10 +65,11 @@ def test_rmcorr_equals_ancova_partial_correlation(seed):
     assert r.p_value == pytest.approx(p, abs=1e-9)  # the ANCOVA's F test of x
     assert r.slope == pytest.approx(slope, abs=1e-9)
     assert (r.n, r.n_subjects) == (26, 5)
-    # Fisher z with df in place of n (the authors' R package convention, from memory)
+    # Fisher z with n = df + 2, se = 1 / sqrt(df - 1): the corrected convention of the authors' R package
+    # (rmcorr >= 0.5.4) and of pingouin's rm_corr (checked against pingouin below)
     q = stats.norm.ppf(0.975)
-    assert r.ci_low == pytest.approx(np.tanh(np.arctanh(pr) - q / np.sqrt(df - 3)), abs=1e-12)
-    assert r.ci_high == pytest.approx(np.tanh(np.arctanh(pr) + q / np.sqrt(df - 3)), abs=1e-12)
+    assert r.ci_low == pytest.approx(np.tanh(np.arctanh(pr) - q / np.sqrt(df - 1)), abs=1e-12)
+    assert r.ci_high == pytest.approx(np.tanh(np.arctanh(pr) + q / np.sqrt(df - 1)), abs=1e-12)
     # the pooled Pearson r is dominated by the participants' levels, rmcorr is not
     assert abs(r.estimate - stats.pearsonr(x, y)[0]) > 0.1
 
@@ -119,10 +120,29 @@ def test_rmcorr_edge_cases():
     lvl = np.repeat(np.arange(5.0), (7, 4, 9, 1, 5))
     with pytest.warns(AgreementWarning, match="does not vary within participants"):
         assert np.isnan(rmcorr(lvl, y, subj).estimate)
-    # too few df for an interval: estimate kept, interval NaN
+    # df = 3 now has an interval (the old sqrt(df - 3) gave NaN there); df = 1 is too few: estimate kept, NaN interval
+    r = rmcorr([1, 2, 3, 5, 4, 6], [1, 3, 2, 4, 6, 5], ["a", "a", "a", "b", "b", "b"])
+    assert r.df == 3 and np.isfinite(r.estimate) and -1 < r.ci_low < r.estimate < r.ci_high < 1
     with pytest.warns(AgreementWarning, match="too few for a confidence interval"):
-        r = rmcorr([1, 2, 3, 5, 4, 6], [1, 3, 2, 4, 6, 5], ["a", "a", "a", "b", "b", "b"])
-    assert r.df == 3 and np.isfinite(r.estimate) and np.isnan(r.ci_low)
+        r = rmcorr([1, 2, 3, 5], [1, 3, 2, 4], ["a", "a", "b", "b"])
+    assert r.df == 1 and np.isfinite(r.estimate) and np.isnan(r.ci_low)
+
+
+@pytest.mark.parametrize("seed", [0, 3])
+def test_rmcorr_matches_pingouin(seed):
+    # pingouin (a general-purpose statistics library; dev dependency) as the outside reference: r, dof, p and the
+    # 95 % interval, which pingouin rounds to 2 decimals
+    pg = pytest.importorskip("pingouin")
+    import pandas as pd
+
+    x, y, subj = _study(seed, sizes=(5, 4, 6, 3))
+    ref = pg.rm_corr(data=pd.DataFrame({"x": x, "y": y, "s": subj}), x="x", y="y", subject="s")
+    r = rmcorr(x, y, subj)
+    assert r.estimate == pytest.approx(float(ref["r"].iloc[0]), abs=1e-9)
+    assert r.df == int(ref["dof"].iloc[0]) == 18 - 4 - 1
+    assert r.p_value == pytest.approx(float(ref["pval"].iloc[0]), rel=1e-6)
+    lo, hi = ref["CI95" if "CI95" in ref.columns else "CI95%"].iloc[0]
+    assert (r.ci_low, r.ci_high) == pytest.approx((lo, hi), abs=0.005 + 1e-9)
 
 
 def test_bland_altman_repeated_by_hand():
