@@ -177,6 +177,11 @@ def column_unit(name: str) -> str:
     return ""
 
 
+def column_table(columns) -> dict:
+    """``{name: {"unit": ..., "doc": ...}}`` of a column table, for run.json and the events sidecar."""
+    return {c.name: {"unit": c.unit, "doc": c.doc} for c in columns}
+
+
 def empty_samples() -> pd.DataFrame:
     """A samples table with every column and no rows."""
     return pd.DataFrame({c.name: pd.Series(dtype=c.dtype) for c in SAMPLE_COLUMNS})

@@ -393,6 +393,7 @@ def analysis_sidecar(result: AnalysisResult, *, meta: dict | None = None) -> dic
     import scipy
 
     from aspectus.events.detect import DETECTOR_DOCS
+    from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMN_DEFS, column_table
 
     side = {
         "software": {"aspectus": __version__, "numpy": np.__version__, "scipy": scipy.__version__,
@@ -404,6 +405,8 @@ def analysis_sidecar(result: AnalysisResult, *, meta: dict | None = None) -> dic
         "quality": result.quality,
         "counts": {k: int(v) for k, v in result.events["type"].value_counts().items()},
         "units": {"time": "s", "angle": "deg", "duration": "ms"},
+        "event_columns": column_table(EVENT_COLUMNS),
+        "feature_columns": column_table(FEATURE_COLUMN_DEFS),
     }
     if meta:
         side.update(meta)

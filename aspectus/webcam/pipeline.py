@@ -49,7 +49,7 @@ from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import GazeParams, estimate_gaze
 from aspectus.webcam.frame_geometry import RECORD_WIDTH, frame_item, start_geometry
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
-from aspectus.schema import SAMPLE_COLUMNS
+from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, SAMPLE_COLUMNS, column_table
 from aspectus.webcam.video import DecodeReport, FramePrefetcher, iter_frames, probe
 
 ProgressFn = Callable[[float, str], None]
@@ -735,6 +735,8 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
         "quality": summary,
         "analysis_quality": analysis.quality,
         "columns": {c.name: {"unit": c.unit, "doc": c.doc} for c in SAMPLE_COLUMNS},
+        "event_columns": column_table(EVENT_COLUMNS),
+        "feature_columns": column_table(FEATURE_COLUMNS),
     }
     if full_paths_wanted(full_paths):  # only on request: absolute paths name users and often students
         run["clip_resolved"] = str(clip.resolve())

@@ -161,3 +161,72 @@ def test_params_round_trip():
         AnalysisParams.from_dict({"dispersion": 1})
     with pytest.raises(ParameterError, match="unknown detector"):
         AnalysisParams(detector="magic")
+
+
+def test_features_do_not_assume_sorted_events():
+    t = 0.05 + np.arange(100) / 10.0
+    rows = [("fixation", 0.5, 2.5, np.nan), ("saccade", 2.5, 3.0, 4.0), ("fixation", 3.0, 3.2, np.nan),
+            ("blink", 7.0, 7.5, np.nan), ("saccade", 3.2, 6.0, 2.0), ("fixation", 6.0, 6.6, np.nan)]
+    kw = dict(t_s=t, valid=np.ones(100, bool), yaw_deg=np.zeros(100), pitch_deg=np.zeros(100),
+              labels=np.array(["unclassified"] * 100), scopes=_scopes(("clip", "clip", 0.0, 10.0),
+                                                                      ("window", "w0", 0.0, 5.0)))
+    sorted_ = compute_features(_events(rows), **kw)
+    shuffled = compute_features(_events([rows[i] for i in (5, 3, 0, 4, 2, 1)]), **kw)
+    pd.testing.assert_frame_equal(sorted_, shuffled)
+    assert sorted_.loc[1, "fixation_count"] == 2 and sorted_.loc[1, "saccade_count"] == 2
+
+
+def test_completed_features_by_hand():
+    # 60 s at 10 Hz; per-minute rates are per minute of recorded time
+    t = 0.05 + np.arange(600) / 10.0
+    valid = np.ones(600, bool)
+    valid[100:130] = False  # 3 s not valid (a loss event below)
+    ev = _events([("fixation", 1.0, 1.5, np.nan), ("saccade", 1.5, 1.55, 4.0), ("fixation", 1.55, 2.0, np.nan),
+                  ("saccade", 2.0, 2.1, 2.0), ("fixation", 2.1, 2.5, np.nan), ("saccade", 2.5, 2.6, 9.0),
+                  ("blink", 5.0, 5.2, np.nan), ("blink", 20.0, 20.4, np.nan), ("loss", 10.0, 13.0, np.nan)])
+    ev["dispersion_deg"] = [1.0, np.nan, 2.0, np.nan, 4.0, np.nan, np.nan, np.nan, np.nan]
+    f = compute_features(ev, t_s=t, valid=valid, yaw_deg=np.zeros(600), pitch_deg=np.zeros(600),
+                         labels=np.array(["unclassified"] * 600), scopes=_scopes(("clip", "clip", 0.0, 60.0)),
+                         sample_interval_s=0.1).iloc[0]
+    assert f.fixation_rate_per_min == pytest.approx(3.0) and f.fixation_rate_per_s == pytest.approx(0.05)
+    assert f.saccade_rate_per_min == pytest.approx(3.0) and f.blink_rate_per_min == pytest.approx(2.0)
+    assert f.saccade_amplitude_median_deg == pytest.approx(4.0)
+    assert f.saccade_amplitude_sd_deg == pytest.approx(np.std([4.0, 2.0, 9.0], ddof=1))
+    assert np.isnan(f.saccade_duration_mean_ms)  # 10 Hz: a saccade's duration is not measured
+    assert np.isnan(f.saccade_peak_velocity_mean_deg_s)
+    assert f.blink_duration_mean_ms == pytest.approx(300.0)
+    assert f.loss_count == 1 and f.loss_frac == pytest.approx(3.0 / 60.0)
+    assert f.valid_frac == pytest.approx(57.0 / 60.0)
+    assert f.fixation_dispersion_mean_deg == pytest.approx(7.0 / 3) and f.fixation_dispersion_median_deg == 2.0
+
+
+def test_every_feature_column_is_defined_once_with_a_unit_and_documented():
+    from pathlib import Path
+
+    from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMN_DEFS
+
+    names = [c.name for c in FEATURE_COLUMN_DEFS]
+    assert tuple(names) == tuple(FEATURE_COLUMNS) and len(set(names)) == len(names)
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    for c in FEATURE_COLUMN_DEFS:
+        assert c.unit and c.doc
+        assert f"| `{c.name}` | {c.unit} |" in readme, c.name
+    for c in EVENT_COLUMNS:
+        assert f"`{c.name}`" in readme, c.name
+
+
+def test_sidecar_lists_event_and_feature_columns(tmp_path):
+    from aspectus.schema import FEATURE_COLUMN_DEFS
+
+    n = 300
+    df = pd.DataFrame({"t_s": np.arange(n) / 30.0, "valid": True, "yaw_deg": 0.0, "pitch_deg": 0.0})
+    res = run_analysis(df)
+    paths = write_analysis(res, tmp_path, sidecar_name="events.json")
+    side = json.loads(paths["sidecar"].read_text())
+    assert set(side["feature_columns"]) == {c.name for c in FEATURE_COLUMN_DEFS}
+    assert side["feature_columns"]["blink_rate_per_min"]["unit"] == "1/min"
+    assert "peak_velocity_deg_s" in side["event_columns"]
+    # one meaning of noise_rms_s2s_deg: the sidecar's figure is the clip's feature
+    clip = res.features[res.features.scope == "clip"].iloc[0]
+    assert side["quality"]["noise_rms_s2s_deg"] == clip.noise_rms_s2s_deg or (
+        np.isnan(clip.noise_rms_s2s_deg) and side["quality"]["noise_rms_s2s_deg"] is None)
