@@ -276,8 +276,6 @@ FEATURE_COLUMNS: tuple[Column, ...] = (
            "consecutive valid samples of the same fixation (Holmqvist, Nystrom & Mulvey 2012); the same figure as the "
            "clip's noise_rms_s2s_deg in the sidecar and summary", label="Noise, RMS sample to sample"),
 )
-#: the same table under the name used before the features moved here
-FEATURE_COLUMN_DEFS = FEATURE_COLUMNS
 #: feature column names, in order
 FEATURE_COLUMN_NAMES: tuple[str, ...] = tuple(c.name for c in FEATURE_COLUMNS)
 FEATURE_COLUMN_BY_NAME = {c.name: c for c in FEATURE_COLUMNS}

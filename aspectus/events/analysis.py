@@ -393,7 +393,7 @@ def analysis_sidecar(result: AnalysisResult, *, meta: dict | None = None) -> dic
     import scipy
 
     from aspectus.events.detect import DETECTOR_DOCS
-    from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMN_DEFS, column_table
+    from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, column_table
 
     side = {
         "software": {"aspectus": __version__, "numpy": np.__version__, "scipy": scipy.__version__,
@@ -406,7 +406,7 @@ def analysis_sidecar(result: AnalysisResult, *, meta: dict | None = None) -> dic
         "counts": {k: int(v) for k, v in result.events["type"].value_counts().items()},
         "units": {"time": "s", "angle": "deg", "duration": "ms"},
         "event_columns": column_table(EVENT_COLUMNS),
-        "feature_columns": column_table(FEATURE_COLUMN_DEFS),
+        "feature_columns": column_table(FEATURE_COLUMNS),
     }
     if meta:
         side.update(meta)

@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from aspectus.errors import AspectusWarning
-from aspectus.schema import FEATURE_COLUMN_NAMES, FEATURE_COLUMNS as FEATURE_COLUMN_DEFS
+from aspectus.schema import FEATURE_COLUMN_NAMES
 
 #: feature columns, in order; every name carries its unit (definitions: :data:`aspectus.schema.FEATURE_COLUMNS`)
 FEATURE_COLUMNS = FEATURE_COLUMN_NAMES
@@ -31,7 +31,7 @@ SCOPE_COLUMNS = ("scope", "label", "start_s", "end_s")
 #: saccade durations are features only at this rate or above (see aspectus.events.detect.postprocess)
 SACCADE_DURATION_MIN_RATE_HZ = 200.0
 
-__all__ = ["FEATURE_COLUMNS", "FEATURE_COLUMN_DEFS", "SCOPE_COLUMNS", "DegenerateWindowWarning", "compute_features"]
+__all__ = ["FEATURE_COLUMNS", "SCOPE_COLUMNS", "DegenerateWindowWarning", "compute_features"]
 
 
 class DegenerateWindowWarning(AspectusWarning):

@@ -203,20 +203,21 @@ def test_completed_features_by_hand():
 def test_every_feature_column_is_defined_once_with_a_unit_and_documented():
     from pathlib import Path
 
-    from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMN_DEFS
+    from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS as FEATURE_COLUMN_DEFS
 
     names = [c.name for c in FEATURE_COLUMN_DEFS]
     assert tuple(names) == tuple(FEATURE_COLUMNS) and len(set(names)) == len(names)
-    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
-    for c in FEATURE_COLUMN_DEFS:
-        assert c.unit and c.doc
-        assert f"| `{c.name}` | {c.unit} |" in readme, c.name
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    for c in FEATURE_COLUMN_DEFS:  # the README's features table: tests/events/test_schema_columns.py
+        assert c.doc
+    events = readme.split("### The events table", 1)[1].split("\n### ", 1)[0]
     for c in EVENT_COLUMNS:
-        assert f"`{c.name}`" in readme, c.name
+        unit = c.unit if c.unit not in ("", "1") else "-"
+        assert f"| `{c.name}` | {unit} |" in events, c.name
 
 
 def test_sidecar_lists_event_and_feature_columns(tmp_path):
-    from aspectus.schema import FEATURE_COLUMN_DEFS
+    from aspectus.schema import FEATURE_COLUMNS as FEATURE_COLUMN_DEFS
 
     n = 300
     df = pd.DataFrame({"t_s": np.arange(n) / 30.0, "valid": True, "yaw_deg": 0.0, "pitch_deg": 0.0})

@@ -6,8 +6,10 @@ from typing import Callable
 
 import numpy as np
 
+from aspectus.errors import AspectusWarning
 
-class DetectionWarning(UserWarning):
+
+class DetectionWarning(AspectusWarning):
     """A detector's parameters do not suit the input (e.g. its sampling rate); the result is doubtful."""
 
 
