@@ -137,7 +137,7 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
             continue
         per_min = 60.0 / recorded_s
 
-        def sel(d):
+        def sel(d, start=start, end=end):
             a, b = np.searchsorted(d["onset_s"], [start, end], side="left")
             return {k: v[a:b] for k, v in d.items()}
 

@@ -276,7 +276,6 @@ def within_fixation_mad_sd_deg(yaw_deg, pitch_deg, usable, starts, ends) -> tupl
     ok = np.asarray(usable, bool)
     s = np.asarray(starts, dtype=np.int64)
     e = np.asarray(ends, dtype=np.int64)
-    n = len(ok)
     if not len(s):
         return float("nan"), float("nan")
     lens = np.maximum(e - s, 0)

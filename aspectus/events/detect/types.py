@@ -1,8 +1,8 @@
 """Result type shared by the detectors."""
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Callable
 
 import numpy as np
 
