@@ -93,15 +93,6 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
     hi_s = np.asarray(hi_s, float)
     real = ~np.asarray(inserted, bool) if inserted is not None else np.ones(n, bool)
     creal = np.concatenate([[0], np.cumsum(real)])
-    fixlab = np.asarray(labels) == "fixation"
-    if n > 1:
-        step_ok = valid[1:] & valid[:-1] & fixlab[1:] & fixlab[:-1]
-        d2 = np.nan_to_num(np.where(step_ok, np.diff(x) ** 2 + np.diff(y) ** 2, 0.0))
-    else:
-        step_ok = np.zeros(0, bool)
-        d2 = np.zeros(0)
-    cd2 = np.concatenate([[0.0], np.cumsum(d2)])
-    cnd = np.concatenate([[0], np.cumsum(step_ok)])
     cval = np.concatenate([[0], np.cumsum(valid)])
     rate_hz = 1.0 / dt if dt > 0 else np.nan
 
@@ -114,6 +105,22 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
                                     "peak_velocity_deg_s")}
 
     fx, sc, bl, ls = by_type("fixation"), by_type("saccade"), by_type("blink"), by_type("loss")
+    fixlab = np.asarray(labels) == "fixation"
+    # steps count only between two samples of the same fixation (adjacent fixations share no step: the jump
+    # between them is a saccade that fell between two samples)
+    fix_id = np.full(n, -1, dtype=np.int64)
+    if len(fx["onset_s"]) and n:
+        k = np.searchsorted(fx["onset_s"], t, side="right") - 1
+        inside = (k >= 0) & (t < fx["offset_s"][np.clip(k, 0, None)])
+        fix_id = np.where(inside & fixlab, k, -1)
+    if n > 1:
+        step_ok = valid[1:] & valid[:-1] & (fix_id[1:] >= 0) & (fix_id[1:] == fix_id[:-1])
+        d2 = np.nan_to_num(np.where(step_ok, np.diff(x) ** 2 + np.diff(y) ** 2, 0.0))
+    else:
+        step_ok = np.zeros(0, bool)
+        d2 = np.zeros(0)
+    cd2 = np.concatenate([[0.0], np.cumsum(d2)])
+    cnd = np.concatenate([[0], np.cumsum(step_ok)])
     rows = []
     degenerate = 0
     for scp in scopes.itertuples(index=False):

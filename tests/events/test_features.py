@@ -231,3 +231,20 @@ def test_sidecar_lists_event_and_feature_columns(tmp_path):
     clip = res.features[res.features.scope == "clip"].iloc[0]
     assert side["quality"]["noise_rms_s2s_deg"] == clip.noise_rms_s2s_deg or (
         np.isnan(clip.noise_rms_s2s_deg) and side["quality"]["noise_rms_s2s_deg"] is None)
+
+
+def test_noise_skips_the_jump_between_adjacent_fixations():
+    # a saccade that fell between two samples leaves two fixations side by side; the step across it is not noise
+    rng = np.random.default_rng(2)
+    n = 200
+    t = np.arange(n) / 30.0
+    x = rng.normal(0, 0.3, n)
+    x[100:] += 10.0
+    y = rng.normal(0, 0.3, n)
+    h = 0.5 / 30.0
+    ev = _events([("fixation", t[0] - h, t[99] + h, np.nan), ("fixation", t[100] - h, t[199] + h, np.nan)])
+    f = compute_features(ev, t_s=t, valid=np.ones(n, bool), yaw_deg=x, pitch_deg=y,
+                         labels=np.array(["fixation"] * n), scopes=_scopes(("clip", "clip", t[0] - h, t[-1] + h)))
+    # RMS-S2S of white noise with per-axis SD 0.3 deg is 0.6 deg (Holmqvist et al. 2012 definition); with the
+    # 10 deg step counted it would be about 1.2 deg
+    assert f.iloc[0].noise_rms_s2s_deg == pytest.approx(0.6, rel=0.12)
