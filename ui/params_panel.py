@@ -71,7 +71,16 @@ SPECS: dict[str, Spec] = {
                            group="detection"),
     "edge_speed_factor": Spec("Trim fixation edges faster than", "× median speed", 0, 20, 0.05, 2, help="Samples at "
                               "a fixation's start or end moving faster than this many times the clip's median gaze "
-                              "speed belong to the saccade and are cut off. 0 switches it off.", group="tuning"),
+                              "speed belong to the saccade and are cut off - where the samples are at most the speed "
+                              "window apart (100 Hz and more). 0 switches it off.", group="tuning"),
+    "edge_speed_low_rates": Spec("Trim by speed at every rate", help="Also trim by speed at webcam rates (the "
+                                 "earlier behaviour): fixations come out about 50 ms shorter at 30 Hz.",
+                                 group="tuning"),
+    "edge_alpha": Spec("Trim edges unlike the fixation at level", "", 0, 0.5, 0.01, 3, help="A fixation's first or "
+                       "last sample is cut off while it differs from its neighbours inside the fixation by more than "
+                       "the noise allows at this significance level. 0 switches it off.", group="tuning"),
+    "edge_window_ms": Spec("… compared with the samples within", "ms", 0, 200, 5, help="Time span of the inner "
+                           "neighbours an edge sample is compared with (at least 2 samples).", group="tuning"),
     "edge_velocity_window_ms": Spec("Speed measured over", "ms", 0, 200, 5, help="Time span over which that gaze "
                                     "speed is measured (at least 3 samples).", group="tuning"),
     "gap_fill_max_ms": Spec("Fill gaps up to", "ms", 0, 500, 5, help="Shorter losses of the signal are "
@@ -98,6 +107,11 @@ SPECS: dict[str, Spec] = {
     "idt_min_duration_ms": Spec("Shortest fixation searched for", "ms", 20, 1000, 10, group="idt",
                                 help="I-DT's duration threshold: the window that must stay within the spread "
                                 "threshold to start a fixation."),
+    "idt_noise_range_factor": Spec("Adapted threshold: noise's own spread ×", "×", 0, 5, 0.1, 1, group="idt",
+                                   help="The adapted threshold is at least this many times the spread the noise "
+                                   "alone reaches over the samples of the shortest fixation searched for (more "
+                                   "samples, wider extremes: at 500 Hz that keeps fixations whole). 0 switches "
+                                   "it off."),
     "ivt_method": Spec("Speed threshold rule", choices=(("nh2010", "Nyström & Holmqvist 2010"),
                                                         ("ek2003", "Engbert & Kliegl 2003")), group="ivt",
                        help="How the saccade speed threshold is derived from the data."),
