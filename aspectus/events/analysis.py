@@ -316,7 +316,10 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
 
     Examples
     --------
-    Three seconds at 30 Hz with one 8-degree gaze shift half-way:
+    Three seconds at 30 Hz with one 8-degree gaze shift half-way. Each sample
+    stands for half an interval either side of it, so both fixations last
+    their true 1.5 s; the saccade fell between two samples and runs from the
+    last sample of one fixation to the first of the next (one interval):
 
     >>> import numpy as np, pandas as pd
     >>> t = np.arange(90) / 30.0
@@ -325,11 +328,11 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
     >>> result = run_analysis(samples)
     >>> result.events[["type", "onset_s", "duration_ms", "amplitude_deg"]].round(3)
            type  onset_s  duration_ms  amplitude_deg
-    0  fixation    0.000     1466.667            NaN
-    1   saccade    1.467       66.667            8.0
-    2  fixation    1.533     1433.333            NaN
+    0  fixation   -0.017     1500.000            NaN
+    1   saccade    1.467       33.333            8.0
+    2  fixation    1.483     1500.000            NaN
     >>> result.features.loc[0, ["scope", "fixation_count", "fixation_duration_mean_ms"]].tolist()
-    ['clip', 2.0, 1450.0]
+    ['clip', 2.0, 1500.0]
     """
     params = params or AnalysisParams()
     if segments is not None:
@@ -539,7 +542,7 @@ def analyse_table(path, out_dir, *, time_col: str | None = None, time_unit: str 
     >>> sorted(p.name for p in (tmp / "lab").iterdir())
     ['events.csv', 'events.json', 'events.parquet', 'features.csv', 'features.parquet']
     >>> run.result.events["type"].value_counts().to_dict()
-    {'fixation': 80, 'saccade': 73, 'blink': 4}
+    {'fixation': 75, 'saccade': 69, 'blink': 4}
     """
     from aspectus.atomic import full_paths_wanted, recorded_path, sha256_file
     from aspectus.errors import AspectusInputError
