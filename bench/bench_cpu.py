@@ -83,7 +83,7 @@ def breakdown(clip: Path) -> dict:
     from aspectus.webcam.frame_geometry import _BATCH, FrameGeometry, frame_item
     from aspectus.webcam.landmarks import FaceTracker
     from aspectus.webcam.pipeline import ProcessParams, _write_outputs, extract_samples, summarise
-    from aspectus.webcam.video import _fix_decoder_threads, _upright_rgb
+    from aspectus.webcam.video import _fix_decoder_threads, _reformatter, _upright_rgb
 
     cpu = dict.fromkeys(("decode", "yuv->rgb", "mesh", "geometry", "hand-over", "hashing", "events/features",
                          "writing"), 0.0)
@@ -100,6 +100,7 @@ def breakdown(clip: Path) -> dict:
         st = container.streams.video[0]
         _fix_decoder_threads(st)
         frames = container.decode(st)
+        reformatter = _reformatter()  # as the decoder does: one scaler for the clip's frames
         while True:
             c = pt()
             fr = next(frames, None)
@@ -107,7 +108,7 @@ def breakdown(clip: Path) -> dict:
             if fr is None:
                 break
             c = pt()
-            img = _upright_rgb(fr)
+            img = _upright_rgb(fr, reformatter)
             cpu["yuv->rgb"] += pt() - c
             c, w0 = pt(), time.perf_counter()
             obs = tracker.process(img)
