@@ -201,8 +201,28 @@ class ValidationView(QWidget):
                     "Press Compare to compute it again (and to export the report).")
                 self._show_table(saved["table"])
                 self._show_pairs(saved["pairs"])
+        if clip is not None and self.saved_outcome is None and self.study is not None:
+            self._show_earlier_study()
         self._draw()
         self._update()
+
+    def _show_earlier_study(self) -> None:
+        """The last whole-study comparison (Compare all clips), when one is in the study's output folder."""
+        import datetime
+
+        out = self.study.output_root() / "validation"
+        try:
+            pooled = pd.read_csv(out / "pooled_agreement.csv")
+            when = datetime.datetime.fromtimestamp((out / "pooled_agreement.csv").stat().st_mtime)
+        except (OSError, ValueError):
+            return
+        from aspectus.validation.report import compact_agreement
+
+        self.offset_label.setText(f"<b>Earlier whole-study comparison</b> ({when:%Y-%m-%d %H:%M}), all clips "
+                                  f"pooled; report: {out / 'report.html'}. Press Compare for this clip alone or "
+                                  "Compare all clips to compute it again.")
+        self.model.set_frame(compact_agreement(pooled, "window"))
+        self._fit_columns()
 
     def set_reference(self, path, *, mapping: dict | None = None, kind: str | None = None) -> bool:
         """Attach a reference recording to the current clip (a table needs a mapping, asked for if unknown)."""

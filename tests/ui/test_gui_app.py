@@ -473,3 +473,15 @@ def test_compare_all_clips_uses_given_offset_and_can_be_cancelled(qtbot, window,
     assert (out / "summary.csv").read_bytes() == before and vv.study_btn.isEnabled()
     assert not (out.parent / f".{out.name}.partial").exists()
     assert not vv.report_btn.isEnabled()
+    # reopened, a clip without a comparison of its own shows the last whole-study comparison (from the
+    # study's output folder, where Compare all clips writes by default)
+    import shutil
+
+    shutil.copytree(out, window.study.output_root() / "validation", dirs_exist_ok=True)
+    window.flush_saves()
+    assert window.open_study(processed)
+    window.select_clip("p01_s01")
+    window.select_clip("p02_s01")
+    assert "Earlier whole-study comparison" in vv.offset_label.text(), vv.offset_label.text()
+    assert vv.model.rowCount() == (window.study.output_root() / "validation" / "pooled_agreement.csv"
+                                   ).read_text().count("\nwindow,")
