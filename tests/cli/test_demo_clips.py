@@ -75,7 +75,7 @@ def test_whole_study_validation_from_the_study_model(demo_out, repo_root, tmp_pa
     from aspectus.synth.lab_recording import write_demo_reference
     from aspectus.studies.project import STATUS_DONE, new_study, write_validation_manifest
     from aspectus.validation.manifest import read_validation_manifest
-    from aspectus.validation.pair import validate_pair
+    from aspectus.validation.pair import ValidateParams, validate_pair
     from aspectus.validation.study import validate_study
 
     out, clips, _ = demo_out
@@ -109,7 +109,11 @@ def test_whole_study_validation_from_the_study_model(demo_out, repo_root, tmp_pa
     assert set(res.results) == {"p01_s01", "p02_s01"} and not res.failures
     # the demo reference of p02 started 0.8 s before the clip
     assert res.results["p02_s01"].alignment.offset_s == pytest.approx(-0.8, abs=1 / 30)
-    alone = validate_pair(out / "linden_brook_p01_s01", rows[0].reference, write=False, figures=False)
+    # alone, a pair's window length is chosen from its overlap; a study keeps one length for all pairs (so
+    # their windows pool): compare at the study's length
+    study_params = ValidateParams()
+    same = ValidateParams(window_s=study_params.window_length_s, step_s=study_params.window_step_s)
+    alone = validate_pair(out / "linden_brook_p01_s01", rows[0].reference, write=False, figures=False, params=same)
     a = alone.agreement.set_index(["scope", "feature"])["pearson_r"]
     b = res.results["p01_s01"].agreement.set_index(["scope", "feature"])["pearson_r"]
     pd.testing.assert_series_equal(a, b)

@@ -83,8 +83,12 @@ def test_native_rate_kappa_against_each_coder(trials):
     # 0.1 deg, +19.3, +10.5 and +27.8 at 30 Hz / 0.1, 0.3, 0.5 deg): the end of a saccade and the post-saccadic
     # oscillation, which the coders label as not fixation, lie within the position noise of the landing point and
     # no speed can be measured at 30-60 Hz. (Trimming by speed at these rates, edge_speed_low_rates, gives -24 to
-    # -1 ms here but -52 ms on synthetic scan paths without oscillations.) Bounds: measured + 5 ms.
-    (60.0, 0.1, 25.0, 0.10), (30.0, 0.1, 25.0, 0.10), (30.0, 0.3, 16.0, 0.10), (30.0, 0.5, 33.0, 0.10),
+    # -1 ms here but -52 ms on synthetic scan paths without oscillations.) At 30 Hz the rule that a fixation
+    # holds at least 3 samples (postprocess.MIN_FIXATION_SAMPLES) drops the coders' shortest fixations too:
+    # +29.2, +21.3 and +37.0 ms at 0.1, 0.3, 0.5 deg (the demo clips' rendered truth, in exchange, reads
+    # mean duration 204 vs 211 and 244 vs 246 ms, against 191 and 201 without the rule). Issue 16's +-10 ms
+    # is NOT met at 30 Hz on these recordings. Bounds: measured + 5 ms.
+    (60.0, 0.1, 25.0, 0.10), (30.0, 0.1, 35.0, 0.10), (30.0, 0.3, 27.0, 0.10), (30.0, 0.5, 42.0, 0.10),
 ])
 def test_downsampled_counts_and_durations_against_the_coders(trials, rate_hz, noise, dur_ms, count_frac):
     d_err, c_err = [], []

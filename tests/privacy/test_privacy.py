@@ -160,13 +160,13 @@ def _embedded_images(html: str) -> list[tuple[str, bytes]]:
 
 
 def _is_plot(png: bytes) -> bool:
-    """A chart: a few flat colours cover most of it (a video frame has no dominant colour)."""
+    """A chart: a few flat colours (background, fills) cover most of it (a video frame has no dominant colours)."""
     from PIL import Image
 
     img = np.asarray(Image.open(io.BytesIO(png)).convert("RGB"))
     flat = img.reshape(-1, 3)
     _, counts = np.unique(flat, axis=0, return_counts=True)
-    return counts.max() / len(flat) > 0.4
+    return np.sort(counts)[-3:].sum() / len(flat) > 0.6
 
 
 def _scan_exports(out: Path, *, frame_px: int) -> list[Path]:

@@ -42,7 +42,9 @@
    means, over a handful of samples each, cannot be told apart; at 500 Hz the
    means are so precise that the 0.5 deg criterion decides.
 2. Drop fixations shorter than ``min_fixation_ms`` (60-100 ms: common
-   practice, field notes).
+   practice, field notes) or made of fewer than :data:`MIN_FIXATION_SAMPLES`
+   usable samples (at webcam rates two noisy samples are no evidence of a
+   fixation: common practice).
 3. Saccades: between two consecutive fixations with no blink or loss
    between them and at most ``saccade_max_ms`` apart; amplitude is the
    angular distance between the two fixations' mean positions (at webcam
@@ -86,6 +88,9 @@ PEAK_VELOCITY_MIN_SAMPLES = 3
 LABEL_NAMES = np.array(["unclassified", "fixation", "saccade", "blink", "loss"])
 UNCLASSIFIED, FIXATION, SACCADE, BLINK, LOSS = range(5)
 
+
+#: fewest usable samples a fixation may hold (3: at 30 Hz 100 ms; at lab rates min_fixation_ms decides)
+MIN_FIXATION_SAMPLES = 3
 
 def _prefix(v: np.ndarray, ok: np.ndarray) -> np.ndarray:
     return np.concatenate([[0.0], np.cumsum(np.where(ok, v, 0.0))])
@@ -552,7 +557,11 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
                             merge_distance_deg=merge_deg, dt_s=dt, noise_sd_deg=noise_sd, merge_alpha=merge_alpha,
                             lo_s=lo_s, hi_s=hi_s)
     dur_ms = (hi_s[np.maximum(e - 1, 0)] - lo_s[s]) * 1000.0
-    keep = dur_ms >= min_fixation_ms - 1e-9
+    # a fixation needs at least MIN_FIXATION_SAMPLES samples whatever min_fixation_ms says: over fewer, its
+    # position and dispersion rest on one or two noisy samples (at 30 Hz: 100 ms; at 500 Hz min_fixation_ms decides)
+    n_usable = np.concatenate([[0], np.cumsum(usable)])
+    keep = (dur_ms >= min_fixation_ms - 1e-9) & (n_usable[e] - n_usable[s] >= MIN_FIXATION_SAMPLES)
+    candidates.info["min_fixation_samples"] = MIN_FIXATION_SAMPLES
     s, e = s[keep], e[keep]
     ok = usable & np.isfinite(x) & np.isfinite(y)
     cx, cy = _prefix(x, ok), _prefix(y, ok)
