@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import hashlib
 import json
 import os
 from pathlib import Path
@@ -20,7 +21,10 @@ def _utc_now() -> str:
 
 
 class HashIndex:
-    """Cache of clip SHA-256 keyed by absolute path, valid while the file is provably untouched.
+    """Cache of clip SHA-256, valid while the file is provably untouched.
+
+    Entries are keyed by a SHA-256 of the clip's absolute path, so the index
+    (which sits in the output folder) holds no path, user or student name.
 
     A cached hash is used only while the file's size, modification time,
     inode change time (``st_ctime_ns``, which no user tool can set back) and
@@ -59,9 +63,13 @@ class HashIndex:
         return {"size": int(st.st_size), "mtime_ns": int(st.st_mtime_ns), "ctime_ns": int(st.st_ctime_ns),
                 "ino": int(st.st_ino)}
 
+    @staticmethod
+    def _key(clip: Path) -> str:
+        return hashlib.sha256(str(Path(clip).absolute()).encode("utf-8", "surrogateescape")).hexdigest()
+
     def lookup(self, clip: Path) -> str | None:
         """The cached hash if the file is untouched since it was hashed (see the class), else None."""
-        e = self._d.get(str(clip))
+        e = self._d.get(self._key(clip))
         if not e:
             return None
         try:
@@ -77,7 +85,7 @@ class HashIndex:
             before = self._identity(clip)
             h = sha256_file(clip)
             if self._identity(clip) == before:
-                self._d[str(clip)] = before | {"sha256": h}
+                self._d[self._key(clip)] = before | {"sha256": h}
                 self.dirty = True
         return h
 
@@ -89,7 +97,7 @@ class HashIndex:
             return
         if stat is not None and (now["size"], now["mtime_ns"]) != tuple(stat):
             return
-        self._d[str(clip)] = now | {"sha256": sha}
+        self._d[self._key(clip)] = now | {"sha256": sha}
         self.dirty = True
 
     def save(self) -> None:

@@ -756,3 +756,19 @@ def test_a_scheduler_that_talks_garbage_is_one_line(tmp_path):
         srv.close()
     msg = str(info.value)
     assert "cannot reach the Dask scheduler" in msg and "\n" not in msg
+
+
+def test_batch_hash_index_holds_no_clip_path(tmp_path):
+    """The clip hash cache in OUTDIR/.batch/ keys its entries by a hash of the path, not the path itself."""
+    from aspectus.studies.state import HashIndex
+
+    clip = tmp_path / "student_anna_smith" / "p01.mp4"
+    clip.parent.mkdir()
+    clip.write_bytes(b"clip bytes")
+    idx = HashIndex(tmp_path / "out" / ".batch" / "hash_index.json")
+    (tmp_path / "out" / ".batch").mkdir(parents=True)
+    h = idx.sha256(clip)
+    idx.save()
+    text = (tmp_path / "out" / ".batch" / "hash_index.json").read_text()
+    assert "anna" not in text and str(tmp_path) not in text and "p01" not in text
+    assert HashIndex(tmp_path / "out" / ".batch" / "hash_index.json").lookup(clip) == h
