@@ -173,3 +173,75 @@ def as_trajectory(trial: LundTrial, *, duration_s: float | None = None, head_mot
         for k, v in head_track(t[keep], motion, seed=seed).items():
             df[k] = v
     return Trajectory.from_samples(df, head_distance_mm=distance_mm)
+
+
+def _label_runs(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    m = np.concatenate([[False], np.asarray(mask, bool), [False]]).astype(int)
+    d = np.diff(m)
+    return np.flatnonzero(d == 1), np.flatnonzero(d == -1)
+
+
+def saccade_known_kappa(low: LundTrial, coder: str) -> float:
+    """Kappa against ``coder`` of a labelling that knows the coder's saccades, blinks etc. but not the PSO.
+
+    Fixation = the coder's fixation or post-saccadic oscillation (PSO); everything else as the coder. The
+    ceiling for a detector that finds every saccade sample but cannot see the oscillation.
+    """
+    lab = low.labels[coder]
+    return cohen_kappa(np.isin(lab, [FIXATION, PSO]), lab == FIXATION)
+
+
+def position_oracle_kappa(trial: LundTrial, low: LundTrial, coder: str, *, z: float, noise_sd_deg: float):
+    """Kappa of a position rule that knows the coder's true fixation centres, against ``coder``.
+
+    ``trial`` is the native recording, ``low`` its degraded version. For each coder fixation the centre is
+    the mean of its native (noise-free) samples. A sample of ``low`` that the coder labels saccade, or a
+    fixation sample beside a saccade or PSO sample, is compared with the two fixations around it: it is
+    labelled not-fixation when its (noisy) position, projected on the line from the fixation before to the
+    fixation after, lies more than ``z`` x ``noise_sd_deg`` from both centres and between them. Every other
+    sample keeps a perfect label, except PSO, which is labelled fixation. So the rule is told what no
+    detector knows (the true centres, which samples to test); what it still misses, position cannot show.
+
+    Returns (kappa, hits on saccade samples, false alarms on fixation samples).
+    """
+    lab, lab_n = low.labels[coder], trial.labels[coder]
+    s, e = _label_runs(lab_n == FIXATION)
+    cx = np.array([np.nanmean(trial.yaw_deg[a:b]) for a, b in zip(s, e)])
+    cy = np.array([np.nanmean(trial.pitch_deg[a:b]) for a, b in zip(s, e)])
+    ts, te = trial.t_s[s], trial.t_s[e - 1]
+    t = low.t_s
+    run_of = np.searchsorted(ts, t, side="right") - 1
+    nonfix = ~np.isin(lab, [FIXATION, PSO, SACCADE])
+    hits = alarms = 0
+    for i in range(len(t)):
+        if lab[i] == SACCADE:
+            ib, ia = np.searchsorted(te, t[i], side="right") - 1, np.searchsorted(ts, t[i], side="right")
+        elif lab[i] == FIXATION and i + 1 < len(t) and lab[i + 1] in (SACCADE, PSO):
+            ib = run_of[i]
+            ia = ib + 1
+        elif lab[i] == FIXATION and i > 0 and lab[i - 1] in (SACCADE, PSO):
+            ia = run_of[i]
+            ib = ia - 1
+        else:
+            continue
+        if ib < 0 or ia >= len(s):
+            continue
+        a, b = np.array([cx[ib], cy[ib]]), np.array([cx[ia], cy[ia]])
+        dist = float(np.linalg.norm(b - a))
+        if not np.isfinite(dist) or dist == 0:
+            continue
+        p = float((np.array([low.yaw_deg[i], low.pitch_deg[i]]) - a) @ (b - a) / dist)
+        if z * noise_sd_deg < p < dist - z * noise_sd_deg:
+            nonfix[i] = True
+            hits += lab[i] == SACCADE
+            alarms += lab[i] == FIXATION
+    return cohen_kappa(~nonfix, lab == FIXATION), int(hits), int(alarms)
+
+
+def pso_duration_bias_ms(trial: LundTrial, coder: str) -> float:
+    """Mean fixation duration with the coder's PSO counted as fixation, minus without, ms (native rate).
+
+    What a detector that finds the coder's saccades exactly but cannot see the oscillation reads too long.
+    """
+    return runs(np.isin(trial.labels[coder], [FIXATION, PSO]), trial.t_s)[1] - runs(trial.fixation_mask(coder),
+                                                                                        trial.t_s)[1]
