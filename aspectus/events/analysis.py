@@ -93,8 +93,12 @@ class AnalysisParams:
         rates the derivative window reaches into the saccade and it is not
         applied.
     edge_speed_low_rates : bool, default False
-        Apply the trimming by speed at every rate (the behaviour before this
-        change; shortens fixations by about 50 ms at 30 Hz).
+        Apply the trimming by speed at every rate (the behaviour before
+        version 0.2). Off by default: on eye movements without post-saccadic
+        oscillations it shortens fixations by 64-73 ms at 30 Hz and 25 ms at
+        60 Hz (bench/scan_path_rates.py); it comes nearer coders who label the
+        oscillation as not fixation only by removing the sample beside every
+        saccade (docs/notes/lund-30hz-limits.md).
     edge_velocity_window_ms : float, default 10
         Derivative window for that speed, ms (at least 3 samples).
     idt_dispersion_deg : float or None, default None

@@ -52,6 +52,30 @@ def test_fixation_and_blink_counts_near_the_rendered_truth(demo_out, repo_root):
         assert (ev["type"] == "blink").sum() == (truth["type"] == "blink").sum()
 
 
+def test_demo_clips_have_no_zero_length_saccades_and_define_their_columns(demo_out):
+    """Issue 16: 35 of 68 saccades on p01 (4 of 27 on p02) once had onset == offset and 0 ms; a saccade now runs
+    from the last fixation sample to the next fixation's first, at least one sample interval (1/30 s here).
+    run.json defines every feature column with its unit (aspectus.schema), and its noise figure is the clip's
+    noise_rms_s2s_deg feature (one meaning everywhere)."""
+    import json
+
+    from aspectus.schema import FEATURE_COLUMNS
+
+    out, clips, _ = demo_out
+    for clip in clips:
+        ev = pd.read_csv(out / clip.stem / "events.csv")
+        sc = ev[ev["type"] == "saccade"]
+        assert len(sc) >= 10, clip.name
+        assert (sc["offset_s"] > sc["onset_s"]).all() and (sc["duration_ms"] >= 1000.0 / 30.0 - 1.0).all(), clip.name
+        assert sc["peak_velocity_deg_s"].isna().all()  # not measurable at 30 Hz: NaN with the reason
+        assert sc["peak_velocity_note"].str.contains("30 Hz").all()
+        run = json.loads((out / clip.stem / "run.json").read_text(encoding="utf-8"))
+        assert {k: v["unit"] for k, v in run["feature_columns"].items()} == {c.name: c.unit for c in FEATURE_COLUMNS}
+        feats = pd.read_csv(out / clip.stem / "features.csv")
+        clip_noise = float(feats.loc[feats["scope"] == "clip", "noise_rms_s2s_deg"].iloc[0])
+        assert run["quality"]["noise_rms_s2s_deg"] == pytest.approx(clip_noise, rel=1e-9)
+
+
 def test_segments_give_per_segment_features(demo_out, repo_root, tmp_path):
     out, clips, _ = demo_out
     p01 = [c for c in clips if "p01" in c.name][0]

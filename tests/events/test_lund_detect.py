@@ -80,15 +80,16 @@ def test_native_rate_kappa_against_each_coder(trials):
 @pytest.mark.parametrize("rate_hz, noise, dur_ms, count_frac", [
     # at rates where speed is measured (>= 100 Hz) both edges are found as the coders find them: the issue's floors
     (250.0, 0.1, 10.0, 0.10), (120.0, 0.1, 10.0, 0.10),
-    # at webcam rates fixations come out longer than the coders' by +10 to +28 ms (measured +19.9 at 60 Hz /
-    # 0.1 deg, +19.3, +10.5 and +27.8 at 30 Hz / 0.1, 0.3, 0.5 deg): the end of a saccade and the post-saccadic
-    # oscillation, which the coders label as not fixation, lie within the position noise of the landing point and
-    # no speed can be measured at 30-60 Hz. (Trimming by speed at these rates, edge_speed_low_rates, gives -24 to
-    # -1 ms here but -52 ms on synthetic scan paths without oscillations.) At 30 Hz the rule that a fixation
-    # holds at least 3 samples (postprocess.MIN_FIXATION_SAMPLES) drops the coders' shortest fixations too:
-    # +29.2, +21.3 and +37.0 ms at 0.1, 0.3, 0.5 deg (the demo clips' rendered truth, in exchange, reads
-    # mean duration 204 vs 211 and 244 vs 246 ms, against 191 and 201 without the rule). Issue 16's +-10 ms
-    # is NOT met at 30 Hz on these recordings. Bounds: measured + 5 ms.
+    # at webcam rates fixations come out longer than the coders': measured +19.9 ms at 60 Hz / 0.1 deg and +29.2,
+    # +21.3 and +37.0 ms at 30 Hz / 0.1, 0.3, 0.5 deg. Issue 16's +-10 % and issue 22's +-10 ms are NOT met at
+    # 30-60 Hz on these recordings, and at 30 Hz cannot be by a detector unbiased on eye movements without
+    # post-saccadic oscillations (PSO): the coders' PSO alone makes +13 to +17 ms, and saccade samples that lie
+    # within the noise of a fixation centre another 14 ms at 0.5 deg (test_30hz_half_degree_noise_limits_of_what_
+    # position_can_show, docs/notes/lund-30hz-limits.md). The rule that a fixation holds at least 3 samples
+    # (postprocess.MIN_FIXATION_SAMPLES) adds some 9 ms at 30 Hz by dropping the coders' shortest fixations; it
+    # keeps the demo clips' fixation counts near their rendered truth (74 / 78 and 34 / 39; 82 and 45 without).
+    # Trimming by speed at these rates (edge_speed_low_rates) gives -18 to +0 ms here but -64 to -73 ms on the
+    # synthetic scan paths. Bounds: measured + 5 ms.
     (60.0, 0.1, 25.0, 0.10), (30.0, 0.1, 35.0, 0.10), (30.0, 0.3, 27.0, 0.10), (30.0, 0.5, 42.0, 0.10),
 ])
 def test_downsampled_counts_and_durations_against_the_coders(trials, rate_hz, noise, dur_ms, count_frac):
@@ -128,10 +129,11 @@ def test_30hz_half_degree_noise(trials):
     dur_err = np.median(first[:, 1] / ref_d - 1)
     assert abs(count_err) <= 0.20, count_err
     assert abs(dur_err) <= 0.20, dur_err
-    # sample kappa fell from 0.63 / 0.61 to 0.51 / 0.48 when the trimming by speed stopped removing genuine fixation
-    # samples at 30 Hz (it removed the sample beside every saccade, which the coders often label as saccade or
-    # post-saccadic oscillation - and so shortened every fixation by about 50 ms on synthetic scan paths). The
-    # issue's floor of 0.62 is not met; see the README's detector comparison.
+    # sample kappa fell from 0.63 / 0.61 to 0.51 / 0.48 (measured 0.507 / 0.481) when the trimming by speed stopped
+    # removing genuine fixation samples at 30 Hz (it removed the sample beside every saccade, which the coders often
+    # label as saccade or post-saccadic oscillation - and so shortened every fixation by 64-73 ms on synthetic scan
+    # paths). Issue 16's floor of 0.62 is NOT met; a position rule told the true fixation centres reaches at most
+    # 0.489 / 0.514 here (test_30hz_half_degree_noise_limits_of_what_position_can_show below).
     assert first[:, 2].mean() >= 0.48 and first[:, 3].mean() >= 0.45, first[:, 2:4]
     mean_counts = np.array([r[2][:, 0].mean() for r in runs_])
     r = np.corrcoef(mean_counts, ref_n)[0, 1]
