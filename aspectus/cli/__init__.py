@@ -22,7 +22,22 @@ from aspectus.errors import AspectusError, AspectusInputError, Cancelled
 SUBCOMMANDS = ("process", "events", "validate", "batch", "export_bids", "gui", "purge", "render", "targets")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _command_module(argv: list[str] | None) -> str | None:
+    """The subcommand module the command line names (``export-bids`` -> ``export_bids``), or None."""
+    args = sys.argv[1:] if argv is None else list(argv)
+    if not args or args[0].startswith("-"):
+        return None
+    name = args[0].replace("-", "_")
+    return name if name in SUBCOMMANDS else None
+
+
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The command line's parser; with ``only`` (a name from :data:`SUBCOMMANDS`) that subcommand alone.
+
+    Each subcommand's ``register`` may import what its options need (the validation's ICC forms pull in
+    scipy.stats, the analysis options the detectors): some 0.4 s of CPU per command together, which a
+    command that names its subcommand does not pay for the others.
+    """
     p = argparse.ArgumentParser(
         prog="aspectus",
         description="Eye-movement features from recorded webcam clips, offline on the CPU. "
@@ -30,7 +45,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--version", action="version", version=f"aspectus {__version__}")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
-    for name in SUBCOMMANDS:
+    for name in SUBCOMMANDS if only is None else (only,):
         try:
             mod = importlib.import_module(f"{__name__}.{name}_cmd")
         except ModuleNotFoundError as exc:  # a subcommand not built yet
@@ -60,7 +75,7 @@ def _silence_stdout() -> None:
 def main(argv: list[str] | None = None) -> int:
     import warnings
 
-    parser = build_parser()
+    parser = build_parser(_command_module(argv))
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()

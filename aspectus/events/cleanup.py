@@ -274,7 +274,8 @@ def _window_samples(window_ms: float, dt_s: float) -> int:
 
 def _smooth_runs(v: np.ndarray, usable: np.ndarray, method: str, w: int) -> np.ndarray:
     from scipy.ndimage import median_filter
-    from scipy.signal import savgol_filter
+
+    from aspectus.events.savgol import savgol_filter
 
     out = v.copy()
     starts, ends = true_runs(usable)

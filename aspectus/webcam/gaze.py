@@ -355,7 +355,7 @@ def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarra
     one independent sample per head-smoothing window).
     """
     from scipy.ndimage import uniform_filter1d
-    from scipy.signal import savgol_filter
+    from aspectus.events.savgol import savgol_filter
 
     out = np.array(centres_mm, float).copy()
     rec: dict = {}

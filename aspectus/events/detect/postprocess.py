@@ -202,9 +202,9 @@ def means_indistinguishable(dx_deg, dy_deg, n1, n2, noise_sd_deg, alpha: float) 
 
 def _chi2_1_quantile(q: float) -> float:
     """Quantile of the chi-square distribution with 1 degree of freedom (the square of a normal quantile)."""
-    from scipy.stats import norm
+    from scipy.special import ndtri  # the normal quantile (what scipy.stats.norm.ppf computes), without scipy.stats
 
-    return float(norm.ppf(0.5 + q / 2.0) ** 2)
+    return float(ndtri(0.5 + q / 2.0) ** 2)
 
 
 def pooled_within_sd_deg(yaw_deg, pitch_deg, usable, starts, ends) -> tuple[float, float]:
@@ -336,7 +336,7 @@ def trim_by_position(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, noise_sd_
     starts, ends : ndarray
         Trimmed ranges (a candidate may shrink to nothing and is then dropped).
     """
-    from scipy.stats import chi2
+    from scipy.special import gammaincinv
 
     t = np.asarray(t_s, float)
     x = np.asarray(yaw_deg, float)
@@ -352,7 +352,9 @@ def trim_by_position(t_s, yaw_deg, pitch_deg, usable, starts, ends, *, noise_sd_
     ok = np.asarray(usable, bool) & np.isfinite(x) & np.isfinite(y)
     cx, cy = _prefix(x, ok), _prefix(y, ok)
     cn = np.concatenate([[0], np.cumsum(ok)])
-    lim2, lim1 = float(chi2.ppf(1 - alpha, 2)), float(chi2.ppf(1 - alpha, 1))
+    # chi-square quantiles, 2 gammaincinv(df / 2, p) as scipy.stats.chi2.ppf computes them (without importing
+    # scipy.stats: 0.7 s of CPU per process)
+    lim2, lim1 = float(2.0 * gammaincinv(1.0, 1 - alpha)), float(2.0 * gammaincinv(0.5, 1 - alpha))
     vx, vy = [v * v if np.isfinite(v) else np.nan for v in sds]
     # direction of the neighbouring candidate on each side (unit vector; NaN where none)
     mx, my = _means(cx, cy, cn, s, e)
