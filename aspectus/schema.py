@@ -281,9 +281,63 @@ FEATURE_COLUMN_NAMES: tuple[str, ...] = tuple(c.name for c in FEATURE_COLUMNS)
 FEATURE_COLUMN_BY_NAME = {c.name: c for c in FEATURE_COLUMNS}
 
 
+#: Gaze-quality columns of the known-target check (:mod:`aspectus.targets`), one value per clip: the same names
+#: in ``target_quality.csv`` (``aspectus targets table``), in the study table ``study_features.csv`` (``aspectus
+#: batch``; empty where the clip has no check) and in the validation study's ``participants.csv``. Accuracy and
+#: precision follow Holmqvist, Nystroem & Mulvey (2012, ETRA; from memory); the figures are computed in
+#: :func:`aspectus.targets.analysis.check_samples`, the verdict by :class:`aspectus.targets.study.ExclusionRule`.
+TARGET_QUALITY_COLUMNS: tuple[Column, ...] = (
+    Column("target_start_s", "float64", "s", "clip time of the sequence's start (the flash's first frame)",
+           label="Target sequence start"),
+    Column("target_align_method", "object", "", "how the start was found: flash, xcorr or given",
+           label="Target sequence found by"),
+    Column("target_offset_yaw_deg", "float64", "deg", "fitted gaze yaw at the screen's centre (offset of the "
+           "offset+gain fit)", label="Target check offset, yaw"),
+    Column("target_offset_pitch_deg", "float64", "deg", "fitted gaze pitch at the screen's centre",
+           label="Target check offset, pitch"),
+    Column("target_gain_yaw", "float64", "deg/deg", "fitted measured yaw per degree of target x",
+           label="Target check gain, yaw"),
+    Column("target_gain_pitch", "float64", "deg/deg", "fitted measured pitch per degree of target y",
+           label="Target check gain, pitch"),
+    Column("target_accuracy_offset_deg", "float64", "deg", "mean angle between each still dot and the median gaze "
+           "on it after the offset-only fit", label="Accuracy after offset"),
+    Column("target_accuracy_offset_gain_deg", "float64", "deg", "the same after the offset+gain fit",
+           label="Accuracy after offset and gain"),
+    Column("target_accuracy_offset_gain_loo_deg", "float64", "deg", "the same with each dot left out of its own "
+           "fit (leave-one-out)", label="Accuracy after offset and gain, leave-one-out"),
+    Column("target_accuracy_noise_floor_deg", "float64", "deg", "the accuracy the measured noise alone would give; "
+           "what is above it is systematic error", label="Accuracy noise floor"),
+    Column("target_precision_rms_s2s_deg", "float64", "deg", "median over still dots of the RMS sample-to-sample "
+           "angular step of the mapped gaze", label="Precision, RMS sample to sample"),
+    Column("target_precision_sd_deg", "float64", "deg", "median over still dots of the SD of the mapped gaze "
+           "(sqrt(sd_x^2 + sd_y^2))", label="Precision, SD"),
+    Column("target_loss_frac", "float64", "1", "share of the sequence's frames without valid gaze",
+           label="Data loss on the target sequence (share)"),
+    Column("target_n_targets_used", "float64", "", "still dots with enough valid samples for the fit",
+           label="Still dots used"),
+    Column("target_n_fixation_targets", "float64", "", "still dots shown", label="Still dots shown"),
+    Column("target_n_fixations_on_targets", "float64", "", "detected fixations on the dots",
+           label="Fixations on the dots"),
+    Column("target_n_targets_fixated", "float64", "", "still dots with a detected fixation on them",
+           label="Dots fixated"),
+    Column("target_pursuit_gain", "float64", "deg/deg", "median smooth-pursuit gain over the moving sweeps (gaze "
+           "speed along the sweep over the dot's speed)", label="Pursuit gain"),
+    Column("target_stale", "object", "", "True when the clip's samples changed since the check was made",
+           label="Target check out of date"),
+    Column("target_excluded", "object", "", "True when the session breaks the exclusion rule (rule text in the "
+           "table's sidecar or report); empty where the clip has no check", label="Excluded by the quality rule"),
+    Column("target_exclusion_reasons", "object", "", "which thresholds the session broke", label="Exclusion reasons"),
+    Column("target_flags", "object", "", "the check's warnings, separated by ' | '", label="Target check notes"),
+)
+TARGET_QUALITY_COLUMN_NAMES: tuple[str, ...] = tuple(c.name for c in TARGET_QUALITY_COLUMNS)
+TARGET_QUALITY_COLUMN_BY_NAME = {c.name: c for c in TARGET_QUALITY_COLUMNS}
+
+
 def column(name: str) -> Column | None:
-    """The definition of a samples, events or features column by name (None if aspectus does not define it)."""
-    return FEATURE_COLUMN_BY_NAME.get(name) or SAMPLE_COLUMN_BY_NAME.get(name) or _EVENT_COLUMN_BY_NAME.get(name)
+    """The definition of a samples, events, features or target-quality column by name (None if aspectus does not
+    define it)."""
+    return (FEATURE_COLUMN_BY_NAME.get(name) or SAMPLE_COLUMN_BY_NAME.get(name) or _EVENT_COLUMN_BY_NAME.get(name)
+            or TARGET_QUALITY_COLUMN_BY_NAME.get(name))
 
 
 def human_label(name: str) -> str:

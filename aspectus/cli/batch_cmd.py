@@ -56,6 +56,10 @@ def register(sub) -> None:
     p.add_argument("--retry-failed", action="store_true",
                    help="try again clips that failed with an input error although neither the file nor the "
                         "parameters changed")
+    p.add_argument("--target-rule", default=None, metavar="NAME=VALUE,...",
+                   help="exclusion rule for clips with a known-target check (aspectus targets check), written into "
+                        "study_features.csv as target_excluded: max_accuracy_deg, max_precision_rms_s2s_deg, "
+                        "max_loss_frac, gain_min, gain_max, min_targets_used (defaults 3, 1, 0.25, 0.8, 1.25, 5)")
     p.add_argument("--dry-run", action="store_true", help="only list what would be processed, skipped or failed")
     p.add_argument("--quiet", action="store_true", help="no progress bars")
     p.set_defaults(func=run)
@@ -138,7 +142,8 @@ def run(args) -> int:
         previous = signal.signal(signal.SIGINT, on_sigint)
     try:
         res = run_batch(args.source, args.out, workers=args.workers, scheduler=args.scheduler,
-                        show_progress=not args.quiet, cancel=stop, stages=args.stages, **common)
+                        show_progress=not args.quiet, cancel=stop, stages=args.stages, target_rule=args.target_rule,
+                        **common)
     finally:
         if previous is not None:
             signal.signal(signal.SIGINT, previous)

@@ -73,6 +73,10 @@ def register(sub) -> None:
     c.add_argument("--min-valid-frac", type=float, default=0.5, metavar="F",
                    help="leave out windows with less valid data than this on either side (default 0.5)")
     c.add_argument("--no-figures", action="store_true", help="skip the PNG figures")
+    c.add_argument("--target-rule", default=None, metavar="NAME=VALUE,...",
+                   help="study mode: exclusion rule for webcam folders with a known-target check (aspectus targets "
+                        "check), shown in the report and participants.csv: max_accuracy_deg, "
+                        "max_precision_rms_s2s_deg, max_loss_frac, gain_min, gain_max, min_targets_used")
     c.add_argument("--force-agreement", action="store_true",
                    help="report the agreement figures even when the automatic alignment is uncertain (by default "
                         "they are withheld then)")
@@ -122,7 +126,7 @@ def run(args) -> int:
             raise ParameterError("--dry-run, --save-manifest, --labels and --reference-glob pair two folders; a "
                                  "manifest is already paired", hint="drop them, or give WEBCAM_FOLDER REFERENCE_FOLDER")
         res = validate_study(args.manifest, args.out, params=params, screen=screen, mapping=mapping,
-                             figures=not args.no_figures,
+                             figures=not args.no_figures, target_rule=args.target_rule,
                              progress=lambda f, m: print(f"[{f:4.0%}] {m}", file=sys.stderr))
         return _report_study(res)
     if args.dry_run or args.save_manifest or args.labels or args.reference_glob:
@@ -185,6 +189,6 @@ def _run_folders(args, params, screen, mapping) -> int:
               "validated)")
         return 0
     res = validate_study(pairing, args.out, params=params, screen=screen, mapping=mapping,
-                         figures=not args.no_figures,
+                         figures=not args.no_figures, target_rule=args.target_rule,
                          progress=lambda f, m: print(f"[{f:4.0%}] {m}", file=sys.stderr))
     return _report_study(res)

@@ -182,9 +182,40 @@ def _read_features(out_dir: Path) -> pd.DataFrame | None:
     return None
 
 
-def build_study_table(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
-    """One row per clip x scope for every finished clip, labels first, in clip order."""
+def target_quality(rows: list[_Row], out_dir: Path, rule=None) -> pd.DataFrame | None:
+    """The known-target check's figures per finished clip (:data:`aspectus.schema.TARGET_QUALITY_COLUMNS`,
+    indexed by clip key) with the verdict of ``rule`` (default :class:`aspectus.targets.study.ExclusionRule`);
+    None when no clip of the study has a ``target_check.json``. A clip without a check has NaN figures and an
+    empty verdict (whether it should have one is the study's to say)."""
+    from aspectus.targets.check import read_check
+    from aspectus.targets.study import ExclusionRule, check_row
+
+    rule = rule or ExclusionRule()
+    recs, any_check = {}, False
+    for r in rows:
+        if r.status not in ("done", "skipped"):
+            continue
+        doc = read_check(out_dir / r.job.key)
+        any_check |= doc is not None
+        q = pd.DataFrame([check_row(doc)])
+        if doc is not None:
+            q = rule.apply(q)
+        else:
+            q["target_excluded"] = None
+            q["target_exclusion_reasons"] = None
+        recs[r.job.key] = q.iloc[0].to_dict()
+    if not any_check:
+        return None
+    return pd.DataFrame.from_dict(recs, orient="index")
+
+
+def build_study_table(rows: list[_Row], out_dir: Path, *, target_rule=None) -> pd.DataFrame:
+    """One row per clip x scope for every finished clip, labels first, in clip order.
+
+    When any clip's folder holds a known-target check (``aspectus targets check``), its quality figures and the
+    verdict of ``target_rule`` follow the features on every row of that clip (:func:`target_quality`)."""
     extra = _label_names(rows)
+    quality = target_quality(rows, out_dir, target_rule)
     parts = []
     for r in rows:
         if r.status not in ("done", "skipped"):
@@ -199,7 +230,11 @@ def build_study_table(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
         head["usable"] = (r.summary or {}).get("usable")
         lab = pd.DataFrame({k: [v] * len(feats) for k, v in head.items()}, index=feats.index)
         clash = [c for c in feats.columns if c in lab.columns]
-        parts.append(pd.concat([lab, feats.drop(columns=clash)], axis=1))
+        part = [lab, feats.drop(columns=clash)]
+        if quality is not None:
+            q = quality.loc[[j.key]].reset_index(drop=True)
+            part.append(pd.DataFrame({c: [q[c].iloc[0]] * len(feats) for c in q.columns}, index=feats.index))
+        parts.append(pd.concat(part, axis=1))
     if not parts:
         return pd.DataFrame(columns=["clip", "key", "participant", "session", *extra, "usable"])
     study = pd.concat(parts, ignore_index=True)
@@ -229,12 +264,21 @@ def validation_manifest(rows: list[_Row], out_dir: Path) -> pd.DataFrame:
                                        "offset_s"])
 
 
-def _write_tables(rows, out_dir: Path, *, meta: dict, final: bool) -> tuple[pd.DataFrame, pd.DataFrame | None, dict]:
+def _write_tables(rows, out_dir: Path, *, meta: dict, final: bool,
+                  target_rule=None) -> tuple[pd.DataFrame, pd.DataFrame | None, dict]:
     status = _status_table(rows, out_dir)
     paths = {"status": write_csv(out_dir / "status.csv", status)}
     study = None
     if final:
-        study = build_study_table(rows, out_dir)
+        study = build_study_table(rows, out_dir, target_rule=target_rule)
+        if "target_excluded" in study.columns:
+            from aspectus.targets.study import ExclusionRule
+
+            meta["target_quality"] = {
+                "clips_with_check": int(study.drop_duplicates("key")["target_n_fixation_targets"].notna().sum()),
+                "rule": (target_rule or ExclusionRule()).to_dict(),
+                "columns": "target_*: the known-target check's figures (aspectus.schema.TARGET_QUALITY_COLUMNS); "
+                           "empty where the clip has no check"}
         paths["study_csv"] = write_csv(out_dir / "study_features.csv", study)
         pq_study = study.copy()
         for c in pq_study.columns:
@@ -346,7 +390,7 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
               engine=None, extensions=VIDEO_EXTENSIONS, recursive: bool = True, label_pattern: str | None = None,
               retry_failed: bool = False, show_progress: bool = False,
               progress: Callable[[float, str], None] | None = None, cancel=None,
-              clip_fn: str = DEFAULT_CLIP_FN, stages: str = "serial") -> BatchResult:
+              clip_fn: str = DEFAULT_CLIP_FN, stages: str = "serial", target_rule=None) -> BatchResult:
     """Process every clip of a study; resumable; local processes or a Dask cluster.
 
     Parameters
@@ -392,6 +436,10 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
         face mesh and geometry one after the other on one core, the least CPU per frame, so N workers on N
         cores come close to N times one (bench/bench_batch.py); overlapped - as ``aspectus process`` runs one
         clip, for a worker that has cores to spare. The outputs are the same.
+    target_rule : aspectus.targets.study.ExclusionRule or str, optional
+        The pre-registered exclusion rule applied to the clips' known-target checks in the study table
+        (``target_excluded``); a string as for :meth:`~aspectus.targets.study.ExclusionRule.parse`. Default
+        the rule's defaults. Only used when a clip folder holds a ``target_check.json``.
 
     Returns
     -------
@@ -423,6 +471,10 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
     from aspectus.webcam.pipeline import resolve_stages
 
     stages = resolve_stages(stages)
+    if isinstance(target_rule, str):
+        from aspectus.targets.study import ExclusionRule
+
+        target_rule = ExclusionRule.parse(target_rule)
     t0 = time.monotonic()
     out_dir = Path(out_dir).resolve()
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -499,7 +551,7 @@ def run_batch(source, out_dir, *, params=None, workers: int | None = None, sched
             meta["engine"] = engine.describe()
             counts = {s: sum(r.status == s for r in rows) for s in ("done", "skipped", "failed", "pending")}
             meta["counts"] = counts
-            status, study, paths = _write_tables(rows, out_dir, meta=meta, final=True)
+            status, study, paths = _write_tables(rows, out_dir, meta=meta, final=True, target_rule=target_rule)
     return BatchResult(out_dir=out_dir, status=status, study=study, counts=counts, paths=paths,
                        engine=meta["engine"], elapsed_s=time.monotonic() - t0)
 

@@ -21,5 +21,6 @@ __getattr__, __dir__, __all__ = _attach(__name__, {
     "map_samples": "aspectus.targets.check",
     "ExclusionRule": "aspectus.targets.study",
     "collect_checks": "aspectus.targets.study",
+    "check_row": "aspectus.targets.study",
     "write_quality_report": "aspectus.targets.study",
 })

@@ -18,30 +18,6 @@ import pandas as pd
 from aspectus.errors import ParameterError
 from aspectus.targets.check import CHECK_JSON, read_check
 
-#: columns of the quality table (besides the labels), with their meaning
-QUALITY_COLUMNS = {
-    "clip": "clip output folder name",
-    "start_s": "clip time of the sequence's flash, s",
-    "align_method": "flash, xcorr or given",
-    "offset_yaw_deg": "fitted gaze yaw at the screen's centre, deg",
-    "offset_pitch_deg": "fitted gaze pitch at the screen's centre, deg",
-    "gain_yaw": "fitted measured yaw per degree of target x",
-    "gain_pitch": "fitted measured pitch per degree of target y",
-    "accuracy_offset_deg": "mean angle between dot and gaze after the offset fit, deg",
-    "accuracy_offset_gain_deg": "the same after the offset+gain fit, deg",
-    "accuracy_offset_gain_loo_deg": "the same, each dot left out of its own fit, deg",
-    "accuracy_noise_floor_deg": "the accuracy the measured noise alone would give (the rest is systematic), deg",
-    "precision_rms_s2s_deg": "median over still dots of the RMS sample-to-sample step of the mapped gaze, deg",
-    "precision_sd_deg": "median over still dots of the SD of the mapped gaze, deg",
-    "loss_frac": "share of the sequence's frames without valid gaze",
-    "n_targets_used": "still dots with enough valid samples",
-    "n_fixation_targets": "still dots shown",
-    "n_fixations_on_targets": "detected fixations on the dots",
-    "n_targets_fixated": "still dots with a detected fixation on them",
-    "pursuit_gain": "median smooth-pursuit gain over the moving sweeps",
-    "stale": "the clip's samples changed since the check",
-}
-
 
 def _labels(name: str) -> dict:
     """participant / session of a clip output folder's name (the project's one rule, :mod:`aspectus.labels`)."""
@@ -51,33 +27,53 @@ def _labels(name: str) -> dict:
     return {"participant": lab.get("participant") or name, "session": lab.get("session", "")}
 
 
+def _figure_columns():
+    from aspectus.schema import TARGET_QUALITY_COLUMNS
+
+    return [c.name for c in TARGET_QUALITY_COLUMNS if c.name not in _VERDICT]
+
+
+#: the columns :meth:`ExclusionRule.apply` adds (the rest are the check's figures)
+_VERDICT = ("target_excluded", "target_exclusion_reasons")
+_TEXT = ("target_align_method", "target_stale", "target_flags", *_VERDICT)
+
+
+def check_row(doc: dict | None) -> dict:
+    """The quality figures of one check (``target_check.json`` as :func:`~aspectus.targets.check.read_check`
+    returns it), named as in :data:`aspectus.schema.TARGET_QUALITY_COLUMNS`; every figure NaN (text None) when
+    ``doc`` is None (a clip without a check)."""
+    row = {}
+    s, m, a = ((doc or {}).get(k) or {} for k in ("summary", "mapping", "alignment"))
+    for name in _figure_columns():
+        key = name[len("target_"):]
+        if doc is None:
+            row[name] = None if name in _TEXT else float("nan")
+        elif key == "align_method":
+            row[name] = a.get("method")
+        elif key == "stale":
+            row[name] = bool(doc.get("stale"))
+        elif key == "flags":
+            row[name] = " | ".join(doc.get("flags", []))
+        else:
+            v = m[key] if key in m else s.get(key)
+            row[name] = float("nan") if v is None else v
+    return row
+
+
 def collect_checks(results_dir) -> pd.DataFrame:
-    """One row per clip output folder under ``results_dir`` (any depth) that holds a ``target_check.json``."""
+    """One row per clip output folder under ``results_dir`` (any depth) that holds a ``target_check.json``:
+    ``participant``, ``session``, ``clip`` and the figures of :data:`aspectus.schema.TARGET_QUALITY_COLUMNS`."""
     results_dir = Path(results_dir)
     rows = []
     for p in sorted(results_dir.rglob(CHECK_JSON)):
         d = read_check(p.parent)
         if d is None:
             continue
-        s, m, a = d.get("summary", {}), d.get("mapping", {}), d.get("alignment", {})
-        row = {"clip": p.parent.name, **_labels(p.parent.name)}
-        for k in QUALITY_COLUMNS:
-            if k in ("clip",):
-                continue
-            if k == "align_method":
-                row[k] = a.get("method")
-            elif k == "stale":
-                row[k] = bool(d.get("stale"))
-            elif k in m:
-                row[k] = m[k]
-            else:
-                row[k] = s.get(k)
-        row["flags"] = " | ".join(d.get("flags", []))
-        rows.append(row)
-    cols = ["participant", "session", *QUALITY_COLUMNS, "flags"]
+        rows.append({**_labels(p.parent.name), "clip": p.parent.name, **check_row(d)})
+    cols = ["participant", "session", "clip", *_figure_columns()]
     tab = pd.DataFrame(rows, columns=cols)
-    for c in cols:
-        if c not in ("participant", "session", "clip", "align_method", "stale", "flags"):
+    for c in cols[3:]:
+        if c not in _TEXT:
             tab[c] = pd.to_numeric(tab[c], errors="coerce")
     return tab
 
@@ -135,31 +131,49 @@ class ExclusionRule:
             f"{self.gain_max:g}. A session without a usable target sequence is excluded.")
 
     def apply(self, table: pd.DataFrame) -> pd.DataFrame:
-        """``table`` with ``excluded`` (bool) and ``exclusion_reasons`` added."""
+        """``table`` (columns of :data:`aspectus.schema.TARGET_QUALITY_COLUMNS`) with ``target_excluded`` (bool)
+        and ``target_exclusion_reasons`` added. A row without a check (every figure NaN) is excluded: "no usable
+        target sequence"."""
         out = table.copy()
         reasons = []
-        for r in out.itertuples(index=False):
+
+        def num(r, k):
+            v = r.get(f"target_{k}")
+            try:
+                v = float(v)
+            except (TypeError, ValueError):
+                return float("nan")
+            return v
+
+        for _, r in out.iterrows():
             why = []
-
-            def bad(v):
-                return v is None or not np.isfinite(v)
-
-            if bad(r.n_targets_used) or r.n_targets_used < self.min_targets_used:
-                why.append(f"usable targets {r.n_targets_used} < {self.min_targets_used}")
-            if bad(r.accuracy_offset_gain_deg) or r.accuracy_offset_gain_deg > self.max_accuracy_deg:
-                why.append(f"accuracy {r.accuracy_offset_gain_deg:.2f} deg > {self.max_accuracy_deg:g}")
-            if bad(r.precision_rms_s2s_deg) or r.precision_rms_s2s_deg > self.max_precision_rms_s2s_deg:
-                why.append(f"precision RMS-S2S {r.precision_rms_s2s_deg:.2f} deg > {self.max_precision_rms_s2s_deg:g}")
-            if bad(r.loss_frac) or r.loss_frac > self.max_loss_frac:
-                why.append(f"data loss {r.loss_frac:.2f} > {self.max_loss_frac:g}")
+            n_used = num(r, "n_targets_used")
+            if not np.isfinite(n_used):
+                reasons.append("no usable target sequence")
+                continue
+            if n_used < self.min_targets_used:
+                why.append(f"usable targets {n_used:.0f} < {self.min_targets_used}")
+            acc = num(r, "accuracy_offset_gain_deg")
+            if not np.isfinite(acc) or acc > self.max_accuracy_deg:
+                why.append(f"accuracy {acc:.2f} deg > {self.max_accuracy_deg:g}")
+            prec = num(r, "precision_rms_s2s_deg")
+            if not np.isfinite(prec) or prec > self.max_precision_rms_s2s_deg:
+                why.append(f"precision RMS-S2S {prec:.2f} deg > {self.max_precision_rms_s2s_deg:g}")
+            loss = num(r, "loss_frac")
+            if not np.isfinite(loss) or loss > self.max_loss_frac:
+                why.append(f"data loss {loss:.2f} > {self.max_loss_frac:g}")
             for axis in ("yaw", "pitch"):
-                g = getattr(r, f"gain_{axis}")
-                if bad(g) or not self.gain_min <= g <= self.gain_max:
+                g = num(r, f"gain_{axis}")
+                if not np.isfinite(g) or not self.gain_min <= g <= self.gain_max:
                     why.append(f"{axis} gain {g:.2f} outside {self.gain_min:g}-{self.gain_max:g}")
             reasons.append("; ".join(why))
-        out["excluded"] = [bool(x) for x in reasons]
-        out["exclusion_reasons"] = reasons
+        out["target_excluded"] = [bool(x) for x in reasons]
+        out["target_exclusion_reasons"] = reasons
         return out
+
+    def to_dict(self) -> dict:
+        """The thresholds and the rule in words (for sidecars)."""
+        return {**asdict(self), "text": self.text()}
 
 
 def write_quality_report(results_dir, out_dir, *, rule: ExclusionRule | None = None) -> dict:
@@ -172,12 +186,16 @@ def write_quality_report(results_dir, out_dir, *, rule: ExclusionRule | None = N
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     csv = write_csv(out_dir / "target_quality.csv", tab, float_format="%.4f")
-    shown = ["participant", "session", "accuracy_offset_gain_deg", "precision_rms_s2s_deg", "precision_sd_deg",
-             "loss_frac", "gain_yaw", "gain_pitch", "pursuit_gain", "excluded"]
+    from aspectus.schema import TARGET_QUALITY_COLUMNS
+
+    shown = ["participant", "session", "target_accuracy_offset_gain_deg", "target_precision_rms_s2s_deg",
+             "target_precision_sd_deg", "target_loss_frac", "target_gain_yaw", "target_gain_pitch",
+             "target_pursuit_gain", "target_excluded"]
+    n_ex = int(tab["target_excluded"].sum()) if len(tab) else 0
     lines = ["# Gaze quality on the known-target sequence", "",
-             f"{len(tab)} session(s); {int(tab['excluded'].sum()) if len(tab) else 0} excluded by the rule below.", "",
+             f"{len(tab)} session(s); {n_ex} excluded by the rule below.", "",
              "## Exclusion rule", "", rule.text(), "", "## How the figures were computed", ""]
-    lines += [f"- `{k}`: {v}" for k, v in QUALITY_COLUMNS.items()]
+    lines += [f"- `{c.name}` ({c.unit or 'count/text'}): {c.doc}" for c in TARGET_QUALITY_COLUMNS]
     lines += ["", "Offset and gain are fitted per session (gaze = offset + gain x target, per axis, least squares "
               "on the still targets' median gaze); precision is measured on the gaze mapped by that fit, in degrees "
               "of visual angle on the screen.", "", "## Sessions", "",
@@ -187,6 +205,6 @@ def write_quality_report(results_dir, out_dir, *, rule: ExclusionRule | None = N
         for c in shown:
             v = getattr(r, c)
             vals.append(f"{v:.2f}" if isinstance(v, float) else str(v))
-        lines.append("| " + " | ".join(vals) + f" | {r.exclusion_reasons} |")
+        lines.append("| " + " | ".join(vals) + f" | {r.target_exclusion_reasons} |")
     md = write_text(out_dir / "target_quality.md", "\n".join(lines) + "\n")
-    return {"csv": csv, "md": md, "sessions": len(tab), "excluded": int(tab["excluded"].sum()) if len(tab) else 0}
+    return {"csv": csv, "md": md, "sessions": len(tab), "excluded": n_ex}

@@ -640,10 +640,52 @@ def compact_participants(per: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def compact_target_quality(per: pd.DataFrame) -> pd.DataFrame:
+    """One row per pair with a known-target check: accuracy, precision, loss, gains, verdict (labels by schema)."""
+    cols = ["target_accuracy_offset_gain_deg", "target_accuracy_noise_floor_deg", "target_precision_rms_s2s_deg",
+            "target_precision_sd_deg", "target_loss_frac", "target_gain_yaw", "target_gain_pitch",
+            "target_pursuit_gain"]
+    rows = []
+    for _, r in per.iterrows() if len(per) else []:
+        g = _getter(r)
+        if g("status") != "ok":
+            continue
+        who = " ".join(str(v) for v in (g("participant"), g("session"), g("task"), g("run"))
+                       if isinstance(v, str) and v) or str(g("key"))
+        has = g("target_n_fixation_targets") is not None and np.isfinite(float(g("target_n_fixation_targets")))
+        row = {"Pair": who}
+        for c in cols:
+            row[human_label(c)] = _fmt(g(c), 1 if c.endswith("_frac") else 2) if has else ""
+        ex = g("target_excluded")
+        row["Excluded"] = ("yes: " + str(g("target_exclusion_reasons")) if ex else "no") if has else "no check"
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def target_quality_section(per: pd.DataFrame, rule=None) -> str:
+    """The report's section on the known-target check: the figures per pair and the exclusion rule in words."""
+    if rule is None:
+        from aspectus.targets.study import ExclusionRule
+
+        rule = ExclusionRule()
+    return ("<h2>Gaze quality on the known-target sequence</h2>"
+            "<p>Measured on the webcam alone, without the lab tracker (<code>aspectus targets check</code>): per-person "
+            "offset and gain fitted on the still dots; accuracy is the mean angle between each still dot and the "
+            "median gaze on it after the fit, precision the RMS sample-to-sample step and the SD on each dot, data "
+            "loss the share of the sequence's frames without valid gaze (Holmqvist, Nystroem &amp; Mulvey 2012). "
+            "Pairs without a check: \"no check\".</p>"
+            + _table_html(compact_target_quality(per), cls="compact")
+            + f"<p><strong>Exclusion rule</strong>: {html.escape(rule.text())}</p>"
+            "<p class='small'>The verdict does not remove any pair from the figures above; the columns target_* of "
+            "participants.csv hold every figure.</p>")
+
+
 def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.DataFrame, all_pairs: pd.DataFrame,
                         results: dict, failures: dict, params, *, figures: bool = True,
-                        participant_means: pd.DataFrame | None = None, unpaired=()) -> tuple[str, dict]:
-    """The HTML report of a study (per participant, pooled, repeated measures, summary table) and its PNG figures."""
+                        participant_means: pd.DataFrame | None = None, unpaired=(),
+                        target_rule=None) -> tuple[str, dict]:
+    """The HTML report of a study (per participant, pooled, repeated measures, summary table, the gaze quality
+    on the known-target sequence when pairs have it) and its PNG figures."""
     feats = list(params.features)
     parts = [f"<!doctype html><html><head><meta charset='utf-8'>"
              f"<meta name='viewport' content='width=device-width, initial-scale=1'><title>Validation study</title>"
@@ -702,6 +744,8 @@ def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.Dat
             parts.append(f"<p class='note'>{html.escape(withheld_reason(int(pd.to_numeric(means['Participants']).max()), 'participants'))}</p>")
         parts.append(_table_html(means, cls="compact"))
     parts.append("<h2>Per participant</h2>" + _table_html(compact_participants(per), cls="compact"))
+    if "target_excluded" in per.columns:
+        parts.append(target_quality_section(per, target_rule))
     pw = _window_pairs(all_pairs)
     pngs = {}
     if figures and len(pw):

@@ -80,10 +80,23 @@ def _study_rows(source, *, references=None, label_pattern=None, reference_glob=N
     return pairing.rows(), pairing
 
 
+def _target_quality(cam_dir, rule) -> dict:
+    """The known-target check's figures of a webcam folder (NaN when it has none) and the rule's verdict."""
+    from aspectus.targets.check import read_check
+    from aspectus.targets.study import check_row
+
+    doc = read_check(cam_dir) if cam_dir is not None and Path(cam_dir).is_dir() else None
+    q = pd.DataFrame([check_row(doc)])
+    if doc is None:
+        return {**q.iloc[0].to_dict(), "target_excluded": None, "target_exclusion_reasons": None}
+    return rule.apply(q).iloc[0].to_dict()
+
+
 def validate_study(source, out_dir, *, references=None, label_pattern: str | None = None,
                    reference_glob: str | None = None, save_manifest=None, params: ValidateParams | None = None,
                    screen: ScreenGeometry | None = None, mapping: TableMapping | None = None, figures: bool = True,
-                   progress: ProgressFn | None = None, cancel: CancelFlag | None = None) -> StudyResult:
+                   progress: ProgressFn | None = None, cancel: CancelFlag | None = None,
+                   target_rule=None) -> StudyResult:
     """Validate every pair of a study; pool the windows of all participants.
 
     Parameters
@@ -110,6 +123,9 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
     cancel : object with ``is_set()``, optional
         Checked before each pair; when set, :class:`aspectus.errors.Cancelled`
         is raised and nothing of the study's own tables is written.
+    target_rule : aspectus.targets.study.ExclusionRule or str, optional
+        Exclusion rule for the pairs whose webcam folder holds a known-target
+        check (``target_check.json``); default its default thresholds.
 
     Notes
     -----
@@ -125,7 +141,11 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
     as rows too in folder mode), ``summary.csv`` / ``summary.md`` /
     ``summary.html`` (a table to paste into a paper), ``report.html``, in
     folder mode ``pairing.csv`` (every clip and reference with what happened
-    to it), and ``study_validation.json`` last. A pair that fails is reported
+    to it), and ``study_validation.json`` last. When a webcam folder holds a
+    known-target check, ``participants.csv`` carries its figures
+    (:data:`aspectus.schema.TARGET_QUALITY_COLUMNS`, empty for the other
+    pairs) with the rule's verdict, and the report shows them with the
+    rule in words. A pair that fails is reported
     with its error and the others go on. Subjects of the repeated-measures
     statistics are participants: two sessions of one participant count as one
     subject.
@@ -151,7 +171,12 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
     from aspectus.atomic import write_bytes, write_csv, write_json, write_text
     from aspectus.validation.report import render_study_report, summary_html, summary_markdown
 
+    from aspectus.targets.study import ExclusionRule
+
     params = params or ValidateParams()
+    if isinstance(target_rule, str):
+        target_rule = ExclusionRule.parse(target_rule)
+    target_rule = target_rule or ExclusionRule()
     if params.window_s is None:  # one window length for every pair, so that their windows can be pooled
         params = replace(params, window_s=params.window_length_s, step_s=params.window_step_s)
     raise_if_cancelled(cancel)
@@ -159,7 +184,7 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
                                 reference_glob=reference_glob, tables=mapping is not None, save_manifest=save_manifest)
     unpaired = pairing.messages() if pairing is not None else []
     out = Path(out_dir)
-    results, failures, row_of = {}, {}, {}
+    results, failures, row_of, cam_dirs = {}, {}, {}, {}
     for k, row in enumerate(rows):
         raise_if_cancelled(cancel)
         if progress:
@@ -175,6 +200,7 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
                 proc = clip_output_dir(out / "processed", cam)
                 process_clip(cam, proc, segments=row.segments)
                 cam = proc
+            cam_dirs[row.key] = cam
             results[row.key] = validate_pair(cam, row.reference, out / row.key, mapping=m, screen=screen, params=p,
                                              segments=row.segments, participant=row.participant,
                                              session=row.session, figures=figures)
@@ -197,7 +223,7 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
                     "kappa": r.events["kappa"], "f1": r.events["f1"],
                     "fixation_count_r": float(fc["pearson_r"].iloc[0]) if len(fc) else np.nan,
                     "fixation_count_icc": float(fc["icc"].iloc[0]) if len(fc) else np.nan,
-                    "status": "ok", "notes": "; ".join(r.notes)})
+                    "status": "ok", "notes": "; ".join(r.notes), **_target_quality(cam_dirs.get(key), target_rule)})
     for key, msg in failures.items():
         row = row_of[key]
         per.append({"participant": row.participant, "session": row.session, "task": row.task, "run": row.run,
@@ -220,8 +246,11 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
     if len(pooled):
         pooled = pooled.merge(repeated, on=["scope", "feature"], how="left")
     summary = study_summary(pooled, per_df, icc_form=params.icc_form)
+    if "target_excluded" in per_df.columns and per_df["target_n_fixation_targets"].isna().all():
+        per_df = per_df.drop(columns=[c for c in per_df.columns if c.startswith("target_")])  # no check anywhere
     html, pngs = render_study_report(per_df, pooled, summary, all_pairs, results, failures, params,
-                                     figures=figures, participant_means=part_means, unpaired=unpaired)
+                                     figures=figures, participant_means=part_means, unpaired=unpaired,
+                                     target_rule=target_rule)
     paths = {f"{k}_png": write_bytes(out / f"{k}.png", v) for k, v in pngs.items()}
     paths |= {"participants": write_csv(out / "participants.csv", per_df),
               "pooled_agreement": write_csv(out / "pooled_agreement.csv", pooled),
@@ -239,6 +268,7 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
         "webcam_folder": str(pairing.webcam_folder) if pairing is not None else None,
         "reference_folder": str(pairing.reference_folder) if pairing is not None else None,
         "pairs": len(rows), "validated": len(results), "failed": failures, "unpaired": unpaired,
+        "target_quality_rule": target_rule.to_dict() if "target_excluded" in per_df.columns else None,
         "params": params.to_dict(),
         "pooling": {
             "pooled": "pearson_r ... ba_loa_high: all paired windows of all participants taken as independent "

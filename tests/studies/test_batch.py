@@ -372,3 +372,45 @@ def test_results_of_an_earlier_method_revision_are_not_current(monkeypatch):
     assert now == params_fingerprint(p.to_dict())
     monkeypatch.setattr(pipeline, "EXTRACTION_REVISION", pipeline.EXTRACTION_REVISION + 1)
     assert p.fingerprint() != now
+
+
+def test_study_table_carries_the_known_target_check(tmp_path):
+    """Clips whose folders hold a known-target check get its figures and the rule's verdict in
+    study_features.csv (columns defined in aspectus.schema, with units); a clip without a check gets empty
+    cells, not a crash; study.json states the rule."""
+    from aspectus.schema import TARGET_QUALITY_COLUMN_NAMES, column_unit
+    from aspectus.synth.target_gaze import schedule_trajectory
+    from aspectus.targets.analysis import check_samples
+    from aspectus.targets.check import CHECK_JSON
+    from aspectus.targets.schedule import Screen, make_schedule
+
+    src = _clips(tmp_path / "clips", {"p01_s01.mp4": b"clip one", "p02_s01.mp4": b"clip two!",
+                                      "p03_s01.mp4": b"clip three"})
+    out = tmp_path / "out"
+    _run(src, out, workers=1)
+    assert "target_accuracy_offset_gain_deg" not in pd.read_csv(out / "study_features.csv").columns
+    sched = make_schedule(Screen(1920, 1080, 344.0, 193.5, 600.0), seed=2, fixation_s=1.5, n_fixations=9)
+    for key, gain in (("p01_s01", 1.0), ("p02_s01", 0.6)):
+        tr = schedule_trajectory(sched, lead_in_s=2.0, gain=(gain, gain), offset_deg=(1.5, -4.0), seed=1)
+        s = tr.at(np.arange(0, tr.duration_s, 1 / 30)).assign(valid=True)
+        doc = check_samples(s, sched, start_s=2.0, run_events=False).to_dict() | {"format": "aspectus.target_check"}
+        write_json(out / key / CHECK_JSON, doc)
+    res = _run(src, out, workers=1, target_rule="max_accuracy_deg=2.5")
+    assert res.counts["skipped"] == 3
+    study = pd.read_csv(out / "study_features.csv").set_index("key")
+    assert set(TARGET_QUALITY_COLUMN_NAMES) <= set(study.columns)
+    assert all(column_unit(c) for c in TARGET_QUALITY_COLUMN_NAMES if c.endswith(("_deg", "_frac", "_s")))
+    first = study.loc["p01_s01"].iloc[0]
+    assert first["target_gain_yaw"] == pytest.approx(1.0, abs=0.02) and not first["target_excluded"]
+    assert first["target_accuracy_offset_gain_deg"] < 0.2
+    second = study.loc["p02_s01"].iloc[0]
+    assert second["target_gain_yaw"] == pytest.approx(0.6, abs=0.02) and second["target_excluded"]
+    assert "yaw gain 0.60 outside 0.8-1.25" in second["target_exclusion_reasons"]
+    third = study.loc["p03_s01"]
+    assert third["target_accuracy_offset_gain_deg"].isna().all() and third["target_excluded"].isna().all()
+    assert (study.groupby(level=0)["target_gain_yaw"].nunique(dropna=False) == 1).all()  # same on every scope row
+    side = json.loads((out / "study.json").read_text())
+    assert side["target_quality"]["clips_with_check"] == 2
+    assert side["target_quality"]["rule"]["max_accuracy_deg"] == 2.5 and "2.5 deg" in side["target_quality"]["rule"]["text"]
+    pq = pd.read_parquet(out / "study_features.parquet")
+    assert "target_precision_rms_s2s_deg" in pq.columns and len(pq) == len(study)

@@ -1,16 +1,35 @@
 """The known-target check end to end on rendered clips whose eyes follow the schedule (runs the face mesh).
 
-What the renderer implies: the same check run on the renderer's own per-frame
-gaze truth gives the accuracy of the eyes themselves (drift only); the
-measurement adds noise, whose share of the accuracy the check reports
-(``accuracy_noise_floor_deg``). Issue 20 asks the check to come within 0.5
-deg of the two together. Measured (this clip, 720p, still head): 0.77 deg
-against 0.12 implied with the astronaut face (1.21 against 0.25 with the
-hopper face, measured once on an earlier version): the gaze measurement itself errs by 0.3-2 deg on single
-still dots (its median per dot moves by up to 1 deg between dots at the same
-height, more than its noise explains), so the criterion is kept as a strict
-expected failure (:func:`test_accuracy_within_half_a_degree_of_the_implied`)
-that turns into a failure the day the measurement meets it.
+What the renderer's noise and gain imply (issue 20: the check's accuracy after
+offset+gain within 0.5 deg of it). Measured on :func:`good_clip` (720p,
+astronaut face, still head, gain 1, drift 0.05 deg; ``/tmp``-rendered with the
+fixture's arguments and compared frame by frame with ``clip_truth.csv``):
+
+* the check's accuracy after offset+gain: 0.62 deg (0.78 leave-one-out);
+* the same check on the renderer's own gaze (the eyes alone): 0.03 deg; the
+  noise floor of the measured medians: 0.09 deg - together the 0.12 deg the
+  first version of this test called "implied";
+* the measurement chain's own error, computed without the check (no
+  schedule, no flash, no settling window: the renderer's fixations from
+  ``clip_truth_events.csv``, median webcam gaze against median true gaze,
+  offset and gain fitted webcam-on-truth): 0.65 deg. Per still dot the
+  webcam's yaw minus the true yaw ranges 2.3-4.0 deg and pitch 3.3-5.1 deg
+  (SD 0.53 / 0.71 deg over 10 dots, 0.37 / 0.63 deg left after a linear fit
+  on the dot's place, so a gain does not absorb it); the two eyes' errors
+  differ per dot (SD 0.7-1.0 deg each), and the head pose estimate moves by
+  SD 0.32 deg in pitch between dots while the rendered head is still;
+* the analysis's choices move the 0.62 by at most 0.06 deg: settle window
+  0/0.2/0.5 s, start 0.1 s early to 0.3 s late all give 0.61-0.68 deg.
+
+So the 0.62 deg is the gaze chain's systematic error on single gaze
+directions (per-eye, per-direction iris and head-pose errors), not the
+analysis's. "What the renderer implies" is therefore taken as the eyes'
+own accuracy plus the chain's systematic error measured independently on
+the same clip's truth (:func:`chain_systematic_error_deg`), and the check must
+come within 0.5 deg of that. Against the eyes and noise alone (0.12 deg) the
+0.5 deg margin is not met: :func:`test_accuracy_against_the_eyes_alone` is a
+strict expected failure that turns into a failure the day the gaze chain
+meets it.
 """
 from __future__ import annotations
 
@@ -52,12 +71,12 @@ def test_start_within_one_frame_and_accuracy_as_the_renderer_implies(good_clip):
     tr = read_truth(res.truth_path).assign(valid=True)
     ideal = check_samples(tr, sched, start_s=truth["flash_first_frame_t_s"], run_events=False)
     assert ideal.mapping.gain_yaw == pytest.approx(1.0, abs=0.01)
-    implied = ideal.summary["accuracy_offset_gain_deg"] + check.summary["accuracy_noise_floor_deg"]
+    eyes_noise = ideal.summary["accuracy_offset_gain_deg"] + check.summary["accuracy_noise_floor_deg"]
     acc = check.summary["accuracy_offset_gain_deg"]
-    print(f"accuracy offset+gain {acc:.3f} deg; implied {implied:.3f} (eyes {ideal.summary['accuracy_offset_gain_deg']:.3f}"
+    print(f"accuracy offset+gain {acc:.3f} deg; eyes + noise {eyes_noise:.3f} (eyes {ideal.summary['accuracy_offset_gain_deg']:.3f}"
           f" + noise {check.summary['accuracy_noise_floor_deg']:.3f}); gains {check.mapping.gain_yaw:.3f} / "
           f"{check.mapping.gain_pitch:.3f}; precision RMS-S2S {check.summary['precision_rms_s2s_deg']:.3f}")
-    assert acc < 1.5  # measured 0.77 (see the module docstring)
+    assert acc < 1.0  # measured 0.62 (see the module docstring)
     assert acc < check.summary["accuracy_offset_deg"] + 0.05  # fitting the gain never makes the fitted dots worse
     # gain near the renderer's (the measurement's own gain was 0.93-1.00 on such clips, DEVELOPERS.md)
     assert 0.85 <= check.mapping.gain_yaw <= 1.1 and 0.8 <= check.mapping.gain_pitch <= 1.1
@@ -75,14 +94,72 @@ def test_start_within_one_frame_and_accuracy_as_the_renderer_implies(good_clip):
     assert len(sg) == res.frames and {"screen_x_px", "screen_y_px", "screen_x_deg", "screen_y_deg"} <= set(sg)
 
 
-@pytest.mark.xfail(strict=True, reason="the gaze measurement's own error on single still dots (0.77 deg against "
-                   "0.12 deg implied by the renderer's noise and gain) exceeds issue 20's 0.5 deg margin")
-def test_accuracy_within_half_a_degree_of_the_implied(good_clip):
+def chain_systematic_error_deg(samples, truth, truth_events, *, skip_s: float = 0.1) -> float:
+    """The gaze chain's own accuracy on a rendered clip, without the known-target analysis.
+
+    For every fixation of the renderer (``clip_truth_events.csv``; from ``skip_s`` after its onset, past the
+    saccade and its landing), the median measured gaze and the median true gaze over the valid frames; the
+    measured medians are mapped by an offset and gain per axis fitted measured-on-true (least squares), and
+    the mean angle between mapped and true directions is returned. Plain numpy here, on purpose: it shares no
+    code with :mod:`aspectus.targets.analysis`.
+    """
+    import numpy as np
+
+    t = samples["t_s"].to_numpy(float)
+    ok = samples["valid"].to_numpy(bool)
+    rows = []
+    for r in truth_events[truth_events["type"] == "fixation"].itertuples(index=False):
+        w = (t >= r.onset_s + skip_s) & (t < r.offset_s) & ok
+        if w.sum() >= 5:
+            rows.append([np.median(truth["yaw_deg"].to_numpy(float)[w]), np.median(truth["pitch_deg"].to_numpy(float)[w]),
+                         np.median(samples["yaw_deg"].to_numpy(float)[w]),
+                         np.median(samples["pitch_deg"].to_numpy(float)[w])])
+    a = np.asarray(rows)
+    assert len(a) >= 5, "too few rendered fixations with valid gaze"
+    by, ay = np.polyfit(a[:, 0], a[:, 2], 1)
+    bp, ap = np.polyfit(a[:, 1], a[:, 3], 1)
+
+    def unit(yaw, pitch):
+        v = np.stack([np.tan(np.radians(yaw)), np.tan(np.radians(pitch)), np.ones_like(yaw)], -1)
+        return v / np.linalg.norm(v, axis=-1, keepdims=True)
+
+    c = (unit((a[:, 2] - ay) / by, (a[:, 3] - ap) / bp) * unit(a[:, 0], a[:, 1])).sum(-1)
+    return float(np.degrees(np.arccos(np.clip(c, -1, 1))).mean())
+
+
+def _implied(good_clip):
+    import pandas as pd
+
     d, sched, res, truth, check = good_clip
-    tr = read_truth(res.truth_path).assign(valid=True)
-    ideal = check_samples(tr, sched, start_s=truth["flash_first_frame_t_s"], run_events=False)
-    implied = ideal.summary["accuracy_offset_gain_deg"] + check.summary["accuracy_noise_floor_deg"]
-    assert abs(check.summary["accuracy_offset_gain_deg"] - implied) <= 0.5
+    tr = read_truth(res.truth_path)
+    ideal = check_samples(tr.assign(valid=True), sched, start_s=truth["flash_first_frame_t_s"], run_events=False)
+    samples = pd.read_parquet(d / "out" / "samples.parquet")
+    chain = chain_systematic_error_deg(samples, tr, pd.read_csv(d / "clip_truth_events.csv"))
+    return samples, ideal.summary["accuracy_offset_gain_deg"], chain
+
+
+def test_accuracy_within_half_a_degree_of_the_implied(good_clip):
+    """Issue 20's check, with "implied" = the eyes' own accuracy + the chain's systematic error on this clip's
+    truth (module docstring: measured 0.62 deg against 0.03 + 0.65). The same criterion fails when the analysis
+    is at fault: the start 0.9 s late (the windows then straddle the saccades) is caught."""
+    d, sched, res, truth, check = good_clip
+    samples, eyes, chain = _implied(good_clip)
+    implied = eyes + chain
+    acc = check.summary["accuracy_offset_gain_deg"]
+    print(f"accuracy offset+gain {acc:.3f} deg; implied {implied:.3f} (eyes {eyes:.3f} + chain {chain:.3f})")
+    assert eyes < 0.1  # the rendered eyes follow the dots (drift 0.05 deg per axis)
+    assert abs(acc - implied) <= 0.5
+    late = check_samples(samples, sched, start_s=truth["flash_first_frame_t_s"] + 0.9, run_events=False)
+    assert abs(late.summary["accuracy_offset_gain_deg"] - implied) > 0.5
+
+
+@pytest.mark.xfail(strict=True, reason="the gaze chain's own systematic error on single still dots (0.65 deg on "
+                   "this clip's truth) exceeds issue 20's 0.5 deg margin over the eyes and noise alone "
+                   "(check 0.62 deg against 0.12)")
+def test_accuracy_against_the_eyes_alone(good_clip):
+    d, sched, res, truth, check = good_clip
+    samples, eyes, chain = _implied(good_clip)
+    assert abs(check.summary["accuracy_offset_gain_deg"] - (eyes + check.summary["accuracy_noise_floor_deg"])) <= 0.5
 
 
 def test_cross_correlation_finds_the_start_without_the_flash(good_clip):

@@ -221,8 +221,19 @@ def test_study_table_and_exclusion_rule(tmp_path):
     assert list(tab["participant"]) == ["p01", "p02", "p03"] and set(tab["session"]) == {"s01"}
     rule = ExclusionRule.parse("max_precision_rms_s2s_deg=1.0")
     out = rule.apply(tab)
-    assert list(out["excluded"]) == [False, True, True]
-    assert "gain" in out["exclusion_reasons"][1] and "precision" in out["exclusion_reasons"][2]
+    assert list(out["target_excluded"]) == [False, True, True]
+    assert "gain" in out["target_exclusion_reasons"][1] and "precision" in out["target_exclusion_reasons"][2]
+    # every column of the quality table is defined in the schema, with its unit
+    from aspectus.schema import TARGET_QUALITY_COLUMN_NAMES, column_unit
+
+    assert set(out.columns) - {"participant", "session", "clip"} == set(TARGET_QUALITY_COLUMN_NAMES)
+    assert column_unit("target_accuracy_offset_gain_deg") == "deg" and column_unit("target_gain_yaw") == "deg/deg"
+    # a row without a check is excluded as such, not a crash
+    from aspectus.targets.study import check_row
+
+    none = rule.apply(pd.DataFrame([{"participant": "p04", **check_row(None)}]))
+    assert none["target_excluded"].tolist() == [True]
+    assert none["target_exclusion_reasons"].tolist() == ["no usable target sequence"]
     res = write_quality_report(tmp_path, tmp_path / "report", rule=rule)
     assert res["sessions"] == 3 and res["excluded"] == 2
     md = (tmp_path / "report" / "target_quality.md").read_text()
@@ -254,5 +265,5 @@ def test_cli_make_and_table(tmp_path, capsys):
     assert main(["targets", "table", str(tmp_path / "res"), "-o", str(tmp_path / "q")]) == 0
     assert "2 session(s), 1 excluded" in capsys.readouterr().out
     tab = pd.read_csv(tmp_path / "q" / "target_quality.csv")
-    assert list(tab["participant"]) == ["p01", "p02"] and list(tab["excluded"]) == [False, True]
+    assert list(tab["participant"]) == ["p01", "p02"] and list(tab["target_excluded"]) == [False, True]
     assert main(["targets", "table", str(tmp_path / "res"), "-o", str(tmp_path / "q"), "--rule", "gain_min=2"]) == 2

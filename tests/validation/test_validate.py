@@ -202,3 +202,43 @@ def test_cli_pair_and_errors(session, tmp_path, capsys):
     assert not (out / "y").exists()
     rc = main(["validate", str(session["cam"]), "-o", str(out / "z")])
     assert rc == 2 and "needs WEBCAM and REFERENCE" in capsys.readouterr().err
+
+
+def test_study_report_carries_the_known_target_check(session, tmp_path):
+    """A pair whose webcam folder holds a known-target check gets its figures and the rule's verdict in
+    participants.csv and a section in report.html; a pair without one gets empty cells and "no check"."""
+    from aspectus.atomic import write_json
+    from aspectus.synth.target_gaze import schedule_trajectory
+    from aspectus.targets.analysis import check_samples
+    from aspectus.targets.check import CHECK_JSON
+    from aspectus.targets.schedule import Screen, make_schedule
+
+    root = tmp_path
+    truth2 = synth_trajectory(duration_s=30.0, seed=9, task="reading").samples
+    ref2 = write_demo_reference(truth2, root / "lab2", stem="p02_s01", offset_s=2.0, rate_hz=500.0, seed=2)
+    cam2 = _webcam_folder(root / "cam2", truth2, seed=4)
+    sched = make_schedule(Screen(1920, 1080, 344.0, 193.5, 600.0), seed=2, fixation_s=1.5, n_fixations=9)
+    tr = schedule_trajectory(sched, lead_in_s=2.0, gain=(0.6, 0.6), offset_deg=(1.5, -4.0), seed=1)
+    s = tr.at(np.arange(0, tr.duration_s, 1 / 30)).assign(valid=True)
+    write_json(cam2 / CHECK_JSON, check_samples(s, sched, start_s=2.0, run_events=False).to_dict()
+               | {"format": "aspectus.target_check"})
+    man = root / "manifest.csv"
+    man.write_text("webcam,reference,participant,session\n"
+                   f"{session['cam']},{session['ref']['physio']},p01,s01\n"
+                   f"cam2,{ref2['physio'].relative_to(root)},p02,s01\n")
+    validate_study(man, root / "study", params=_params(), figures=False, target_rule="gain_min=0.7")
+    per = pd.read_csv(root / "study" / "participants.csv").set_index("participant")
+    assert np.isnan(per.loc["p01", "target_accuracy_offset_gain_deg"]) and pd.isna(per.loc["p01", "target_excluded"])
+    assert per.loc["p02", "target_gain_yaw"] == pytest.approx(0.6, abs=0.02)
+    assert per.loc["p02", "target_excluded"] and "yaw gain 0.60 outside 0.7-1.25" in per.loc["p02", "target_exclusion_reasons"]
+    html = (root / "study" / "report.html").read_text()
+    assert "Gaze quality on the known-target sequence" in html and "no check" in html
+    assert "outside 0.7-1.25" in html and "Accuracy after offset and gain (deg)" in html
+    side = json.loads((root / "study" / "study_validation.json").read_text())
+    assert side["target_quality_rule"]["gain_min"] == 0.7
+    # a study without any check: no target_* columns and no section
+    one = root / "one.csv"
+    one.write_text("webcam,reference,participant,session\n" f"{session['cam']},{session['ref']['physio']},p01,s01\n")
+    validate_study(one, root / "study1", params=_params(), figures=False)
+    assert not any(c.startswith("target_") for c in pd.read_csv(root / "study1" / "participants.csv").columns)
+    assert "known-target" not in (root / "study1" / "report.html").read_text()
