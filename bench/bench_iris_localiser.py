@@ -14,11 +14,12 @@ convention is moved by 0.5 px to OpenCV's pixel centres):
 
 Localisers: ``limbus`` (the pipeline's circle fit to the limbus), ``mesh`` (the face mesh's iris point),
 ``disc`` and ``disc_open`` (bench/_iris_disc_model.py: a blurred dark disc of fixed radius fitted by robust
-least squares to every pixel around the iris, inside the mesh's eye outline or to all pixels). Then the gaze
+least squares to every pixel around the iris, inside the mesh's eye outline or to all pixels), ``lids`` and
+``upper_lid`` (the same disc with the lids in the model, both lids' heights fitted or the upper one only). Then the gaze
 figures of the grid (tests/_gaze_grid.py) with the pipeline's own iris centres and with the true ones put
 in their place (what the rest of the chain gives when the localiser is perfect).
 
-    python bench/bench_iris_localiser.py            # three clips of 5 s, about 2 minutes
+    python bench/bench_iris_localiser.py            # three clips of 5 s, about 3 minutes
 """
 from __future__ import annotations
 
@@ -35,7 +36,7 @@ sys.path.insert(0, str(ROOT / "tests"))
 sys.path.insert(0, str(ROOT / "bench"))
 
 import _gaze_grid as G  # noqa: E402
-from _iris_disc_model import eye_opening_mask, fit_iris_discs  # noqa: E402
+from _iris_disc_model import eye_opening_mask, fit_iris_discs, fit_iris_with_lids, lid_model_pixels  # noqa: E402
 
 LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
 
@@ -92,7 +93,7 @@ def localise(jobs):
 
     n = len(jobs)
     idx = [i for i, j in enumerate(jobs) if j is not None]
-    est = {k: np.full((n, 2, 2), np.nan) for k in ("limbus", "mesh", "disc", "disc_open")}
+    est = {k: np.full((n, 2, 2), np.nan) for k in ("limbus", "mesh", "disc", "disc_open", "lids", "upper_lid")}
     cpu = {}
     t0 = time.process_time()
     fits = limbus_centres_many([jobs[i][:4] for i in idx])
@@ -117,6 +118,14 @@ def localise(jobs):
         cpu[name] = (time.process_time() - t0) / max(len(greys), 1) * 1e3
         for k, (i, e, off) in enumerate(where):
             est[name][i, e] = c[k] + off
+    for name, lower in (("lids", True), ("upper_lid", False)):
+        t0 = time.process_time()
+        for k, (i, e, off) in enumerate(where):
+            P = lid_model_pixels(greys[k], jobs[i][1][_OUTLINES[e], :2], c0[k], radii[k])
+            th = None if P is None else fit_iris_with_lids(P, c0[k], radii[k], lower_lid_free=lower)
+            if th is not None:
+                est[name][i, e] = th[:2] + off
+        cpu[name] = (time.process_time() - t0) / max(len(greys), 1) * 1e3
     return est, cpu
 
 
