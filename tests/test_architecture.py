@@ -122,3 +122,44 @@ def test_ruff_catches_a_violation(tmp_path):
     r = subprocess.run([_tool("ruff"), "check", "--no-cache", "--config", str(REPO / "pyproject.toml"), str(bad)],
                        capture_output=True, text=True, timeout=120)
     assert r.returncode != 0 and "F401" in r.stdout
+
+
+def _module_file(name: str) -> Path | None:
+    base = REPO.joinpath(*name.split("."))
+    for cand in (base.with_suffix(".py"), base / "__init__.py"):
+        if cand.is_file():
+            return cand
+    return None
+
+
+def _top_level_names(path: Path) -> set[str]:
+    names: set[str] = set()
+    for node in ast.walk(ast.parse(path.read_text(), filename=str(path))):
+        if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef)):
+            names.add(node.name)
+        elif isinstance(node, (ast.Import, ast.ImportFrom)):
+            names.update((a.asname or a.name).split(".")[0] for a in node.names)
+        elif isinstance(node, ast.Name) and isinstance(node.ctx, ast.Store):
+            names.add(node.id)
+    return names
+
+
+def test_every_import_of_the_project_names_an_existing_module_and_name():
+    """Imports inside functions (the command line defers most of them) run only when that command runs:
+    one that names a moved module crashes that command with a traceback, so each is checked here."""
+    bad = []
+    for p in [*LIB.rglob("*.py"), *(REPO / "ui").rglob("*.py")]:
+        for node in ast.walk(ast.parse(p.read_text(), filename=str(p))):
+            if not (isinstance(node, ast.ImportFrom) and node.module and node.level == 0
+                    and node.module.split(".")[0] in ("aspectus", "ui")):
+                continue
+            where = f"{p.relative_to(REPO)}:{node.lineno}"
+            target = _module_file(node.module)
+            if target is None:
+                bad.append(f"{where}: no module {node.module}")
+                continue
+            names = _top_level_names(target)
+            for a in node.names:
+                if a.name != "*" and a.name not in names and _module_file(f"{node.module}.{a.name}") is None:
+                    bad.append(f"{where}: {node.module} has no {a.name}")
+    assert not bad, "\n".join(bad)

@@ -98,7 +98,7 @@ def run_check_cmd(args) -> int:
     out_dir = clip_output_dir(args.out, clip)
     bar = None
     if not args.quiet:
-        from aspectus.cli.progress_bar import ProgressBar
+        from aspectus.progress import ProgressBar
 
         bar = ProgressBar(total=1000, desc=clip.name, leave=False, bar_format="{desc}: {percentage:3.0f}%|{bar}|")
 
