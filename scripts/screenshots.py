@@ -17,7 +17,8 @@ import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
-VIEWS = ("clip_and_trace", "features", "validation", "column_mapping", "parameters", "user_guide")
+VIEWS = ("clip_and_trace", "features", "validation", "column_mapping", "target_sequence", "parameters",
+         "user_guide")
 
 
 def _wait(app, cond, timeout_s: float, what: str) -> None:
@@ -125,6 +126,12 @@ def main(argv=None) -> int:
         _settle(app)
         grab(dlg, "column_mapping")
         dlg.close()
+
+    seq = win.make_target_sequence_dialog(exec_dialog=False)
+    seq.show()
+    _settle(app)
+    grab(seq, "target_sequence")
+    seq.close()
 
     grab(win.params_dock, "parameters")
     guide = win.show_guide()

@@ -14,9 +14,13 @@ screen_gaze.parquet/.csv   only with ``apply_mapping=True``: every sample of the
                            session mapped to the screen (degrees and pixels)
 =========================  ======================================================
 
-``run.json`` is left as ``aspectus process`` wrote it; the check's sidecar
-names the samples' checksum it was computed from, so a stale check can be
-told from a current one (:func:`read_check`).
+The clip's ``run.json`` gets a ``target_check`` block (:func:`record_in_run_json`):
+the fitted offset and gain, how the start was found, the headline figures,
+the flags, the parameters and the SHA-256 of ``target_check.json`` and of the
+schedule. Nothing else in ``run.json`` changes, so a batch still sees the
+clip as done; processing the clip again rewrites ``run.json`` without the
+block. The check's sidecar names the samples' checksum it was computed
+from, so a stale check can be told from a current one (:func:`read_check`).
 """
 from __future__ import annotations
 
@@ -120,8 +124,43 @@ def run_check(clip_path, schedule_path, out_dir, *, params: CheckParams | None =
         doc["screen_gaze"] = {"files": [f"{SCREEN_GAZE}.parquet", f"{SCREEN_GAZE}.csv"],
                               "note": "offset and gain of this check applied to every sample of the clip"}
     write_json(out_dir / CHECK_JSON, doc)
+    record_in_run_json(out_dir, doc)
     prog(1.0, f"{clip.name}: check done")
     return check
+
+
+#: the headline figures copied into run.json's target_check block
+RUN_JSON_FIGURES = ("accuracy_offset_deg", "accuracy_offset_gain_deg", "accuracy_offset_gain_loo_deg",
+                    "accuracy_noise_floor_deg", "precision_rms_s2s_deg", "precision_sd_deg", "loss_frac",
+                    "n_targets_used", "n_fixation_targets", "pursuit_gain", "gain_in_range")
+
+
+def record_in_run_json(out_dir, doc: dict) -> dict | None:
+    """Add the check's fitted parameters to the clip's ``run.json`` (key ``target_check``); returns the block,
+    or None when the folder has no readable ``run.json`` (then nothing is written)."""
+    from aspectus.atomic import sha256_file, write_json
+    from aspectus.run_record import read_run_json, run_json_path
+
+    out_dir = Path(out_dir)
+    run = read_run_json(out_dir)
+    if run is None:
+        return None
+    s, a = doc.get("summary") or {}, doc.get("alignment") or {}
+    block = {
+        "file": CHECK_JSON,
+        "sha256": sha256_file(out_dir / CHECK_JSON) if (out_dir / CHECK_JSON).is_file() else None,
+        "format_version": doc.get("format_version"),
+        "schedule_file": doc.get("schedule_file"), "schedule_sha256": doc.get("schedule_sha256"),
+        "mapping": doc.get("mapping"),
+        "alignment": {k: a.get(k) for k in ("method", "start_s", "frame_index", "xcorr_r") if k in a},
+        "figures": {k: s.get(k) for k in RUN_JSON_FIGURES},
+        "flags": list(doc.get("flags") or []),
+        "params": doc.get("params"),
+        "samples_sha256": doc.get("samples_sha256"),
+    }
+    run["target_check"] = block
+    write_json(run_json_path(out_dir), run)
+    return block
 
 
 def _samples_sha(out_dir: Path) -> str | None:

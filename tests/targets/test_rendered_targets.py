@@ -88,6 +88,18 @@ def test_start_within_one_frame_and_accuracy_as_the_renderer_implies(good_clip):
     doc = json.loads((d / "out" / "target_check.json").read_text())
     assert doc["mapping"]["gain_yaw"] == pytest.approx(check.mapping.gain_yaw)
     assert doc["schedule"]["format_version"] == 1 and doc["samples_sha256"]
+    # the fitted parameters in run.json, which still marks the clip as done
+    from aspectus.atomic import sha256_file
+    from aspectus.studies.done import clip_is_done
+
+    run = json.loads((d / "out" / "run.json").read_text())
+    tc = run["target_check"]
+    assert tc["mapping"]["gain_yaw"] == pytest.approx(check.mapping.gain_yaw)
+    assert tc["mapping"]["offset_pitch_deg"] == pytest.approx(check.mapping.offset_pitch_deg)
+    assert tc["alignment"]["method"] == "flash" and tc["alignment"]["start_s"] == pytest.approx(check.summary["start_s"])
+    assert tc["figures"]["accuracy_offset_gain_deg"] == pytest.approx(check.summary["accuracy_offset_gain_deg"])
+    assert tc["sha256"] == sha256_file(d / "out" / "target_check.json") and tc["params"]["settle_s"] == 0.5
+    assert clip_is_done(d / "out", input_sha256=run["input_sha256"], params_sha256=run["params_sha256"])[0]
     import pandas as pd
 
     sg = pd.read_parquet(d / "out" / "screen_gaze.parquet")

@@ -267,3 +267,41 @@ def test_cli_make_and_table(tmp_path, capsys):
     tab = pd.read_csv(tmp_path / "q" / "target_quality.csv")
     assert list(tab["participant"]) == ["p01", "p02"] and list(tab["target_excluded"]) == [False, True]
     assert main(["targets", "table", str(tmp_path / "res"), "-o", str(tmp_path / "q"), "--rule", "gain_min=2"]) == 2
+
+
+def test_run_json_gets_the_fitted_parameters(tmp_path):
+    """record_in_run_json adds the mapping, alignment, figures and parameters to run.json and keeps the rest;
+    a folder without run.json is left alone."""
+    from aspectus.atomic import sha256_file, write_json
+    from aspectus.targets.check import CHECK_JSON, record_in_run_json
+
+    sched = _sched()
+    c = check_samples(_samples(sched, gain=(0.6, 0.6)), sched, start_s=2.0, run_events=False)
+    doc = c.to_dict() | {"format": "aspectus.target_check", "format_version": 1, "schedule_sha256": "ab"}
+    write_json(tmp_path / CHECK_JSON, doc)
+    assert record_in_run_json(tmp_path, doc) is None and not (tmp_path / "run.json").exists()
+    write_json(tmp_path / "run.json", {"input_sha256": "x", "outputs": {"samples.parquet": {"sha256": "y"}}})
+    block = record_in_run_json(tmp_path, doc)
+    run = json.loads((tmp_path / "run.json").read_text())
+    assert run["input_sha256"] == "x" and run["outputs"] == {"samples.parquet": {"sha256": "y"}}
+    tc = run["target_check"]
+    assert tc == json.loads(json.dumps(block))
+    assert tc["mapping"]["gain_yaw"] == pytest.approx(c.mapping.gain_yaw) and tc["mapping"]["gain_yaw"] < 0.7
+    assert tc["figures"]["gain_in_range"] is False and any("yaw gain" in f for f in tc["flags"])
+    assert tc["params"] == CheckParams().to_dict() and tc["sha256"] == sha256_file(tmp_path / CHECK_JSON)
+
+
+def test_schedule_format_is_documented_in_the_readme():
+    """Every key of schedule.json (and of a target in it) is named in README's schedule paragraph, with the
+    format's name and version."""
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    para = readme[readme.index("**The schedule file**"):]
+    para = para[:para.index("\n\n")]
+    d = _sched().to_dict()
+    assert f'"format": "{d["format"]}"' in para and f'"format_version": {SCHEDULE_VERSION}' in para
+    names = (set(d) | set(d["screen"]) | set(d["targets"][0]) | set(d["flash"])) - {"format", "format_version"}
+    missing = [k for k in sorted(names) if f"`{k}`" not in para and not any(
+        f"`{k[:-len(suf)]}`" in para or f"`{k[:-len(suf)]}_" in para for suf in ("_px", "_deg") if k.endswith(suf))]
+    assert not missing, f"schedule keys not documented in README: {missing}"
