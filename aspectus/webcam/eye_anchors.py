@@ -109,6 +109,7 @@ class EyeAnchorTracker:
 
     def __init__(self, points=ANCHOR_POINTS):
         self.points = tuple(points)
+        self._rows = np.array(self.points, dtype=np.intp)
         self.reset()
 
     def reset(self) -> None:
@@ -130,7 +131,7 @@ class EyeAnchorTracker:
         ``image`` is the picture or a crop of it, and ``points_px`` are in the same coordinates.
         """
         r = float(iris_radius_px)
-        mesh = np.asarray(points_px, float)[list(self.points), :2]
+        mesh = np.asarray(points_px, float)[self._rows, :2]
         if not (np.isfinite(r) and r > 0 and np.all(np.isfinite(mesh))):
             return mesh + self.offsets_px
         half = max(3, int(round(PATCH_RADII * r)))
@@ -142,38 +143,42 @@ class EyeAnchorTracker:
         cv2 = import_cv2()
         s = max(2, int(round(SEARCH_RADII * r)))
         bound = OFFSET_RADII * r
-        pred = mesh + np.clip(self.offsets_px, -bound, bound)
+        # plain floats from here on: the same float64 arithmetic without NumPy's per-scalar cost
+        pred = (mesh + np.clip(self.offsets_px, -bound, bound)).tolist()
+        mesh_l = mesh.tolist()
+        offsets = self.offsets_px.tolist()
+        h, w = image.shape[:2]
         jobs = []  # (anchor, window box) of the anchors matched in this frame
-        for j in range(len(self.points)):
-            t = self._templates[j]
+        for j, t in enumerate(self._templates):
             if t is None or abs(t[3] / r - 1.0) > RESCALE_FRACTION or self._misses[j] >= PATIENCE_FRAMES:
-                self._cut(j, image, (mesh[j] + self.offsets_px[j]).tolist(), half, r)
+                self._cut(j, image, [mesh_l[j][0] + offsets[j][0], mesh_l[j][1] + offsets[j][1]], half, r)
                 continue
             e = t[2] + s
-            xi, yi = int(round(pred[j, 0])), int(round(pred[j, 1]))
-            jobs.append((j, xi, yi, (xi - e, yi - e, xi + e + 1, yi + e + 1)))
+            xi, yi = int(round(pred[j][0])), int(round(pred[j][1]))
+            box = (xi - e, yi - e, xi + e + 1, yi + e + 1)
+            jobs.append((j, xi, yi, box, box[0] >= 0 and box[1] >= 0 and box[2] <= w and box[3] <= h))
         if not jobs:
             return mesh + self.offsets_px
         # one grey conversion for all the windows that lie in the picture
-        inside = [jb for jb in jobs if _grey_box_ok(image, jb[3])]
+        inside = [jb[3] for jb in jobs if jb[4]]
         grey = None
         if inside:
-            bx0 = min(jb[3][0] for jb in inside)
-            by0 = min(jb[3][1] for jb in inside)
-            grey = _grey(image, bx0, by0, max(jb[3][2] for jb in inside), max(jb[3][3] for jb in inside))
-        for j, xi, yi, (x0, y0, x1, y1) in jobs:
+            bx0 = min(b[0] for b in inside)
+            by0 = min(b[1] for b in inside)
+            grey = _grey(image, bx0, by0, max(b[2] for b in inside), max(b[3] for b in inside))
+        for j, xi, yi, (x0, y0, x1, y1), ok in jobs:
             pk = None
-            if grey is not None and _grey_box_ok(image, (x0, y0, x1, y1)):
-                tpl, sub, _, _ = self._templates[j]
+            tpl, sub, _, _ = self._templates[j]
+            if grey is not None and ok:
                 win = grey[y0 - by0:y1 - by0, x0 - bx0:x1 - bx0]
                 pk = _peak(cv2.matchTemplate(win, tpl, cv2.TM_CCOEFF_NORMED))
             if pk is None or not pk[2] >= MIN_SCORE:
                 self._misses[j] += 1
                 self.missed += 1
                 continue
-            tpl, sub, _, _ = self._templates[j]
             fx, fy = xi - s + pk[0] + sub[0], yi - s + pk[1] + sub[1]
-            self.offsets_px[j] = (min(bound, max(-bound, fx - mesh[j, 0])), min(bound, max(-bound, fy - mesh[j, 1])))
+            mx, my = mesh_l[j]
+            self.offsets_px[j] = (min(bound, max(-bound, fx - mx)), min(bound, max(-bound, fy - my)))
             self._misses[j] = 0
             self.matched += 1
         return mesh + self.offsets_px

@@ -195,12 +195,16 @@ def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray
 class _Eye:
     """One eye's region of one frame, prepared for ray casting (ROI px)."""
 
-    __slots__ = ("frame", "eye", "origin", "c0", "r", "g", "dist", "radii", "cur", "r_fit")
+    __slots__ = ("frame", "eye", "origin", "c0", "r", "g", "dist", "radii", "cur", "r_fit", "index", "ray_x", "ray_y",
+                 "rad_step")
 
     def __init__(self, frame, eye, origin, c0, r, g, dist, radii):
         self.frame, self.eye, self.origin = frame, eye, origin
         self.c0, self.r, self.g, self.dist, self.radii = c0, r, g, dist, radii
         self.cur, self.r_fit = c0, r
+        self.index = -1  # row in the batch's distance maps (:func:`limbus_centres_many`)
+        self.ray_x = self.ray_y = None  # the rays' sample offsets from the centre (the same in every pass)
+        self.rad_step = (radii[-1] - radii[0]) / (len(radii) - 1)
 
 
 def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None:
@@ -248,11 +252,12 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48,
             eye = _prepare_eye(cv2, image, points_px, outline, c0, r, f, e)
             if eye is not None:
                 eyes.append(eye)
+    dist = _distance_maps(eyes) if eyes else None
     active = eyes
     for _ in range(passes):
         if not active:
             break
-        results = _fit_many(cv2, active, cos_a, sin_a, min_points)
+        results = _fit_many(cv2, active, cos_a, sin_a, min_points, dist)
         still = []
         for eye, nxt in zip(active, results):
             if nxt is None or np.hypot(*(nxt[0] - eye.c0)) > eye.r:
@@ -266,32 +271,46 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48,
     return list(zip(outs, fitted))
 
 
-def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points):
+def _distance_maps(eyes: list) -> np.ndarray:
+    """The eyes' distance-to-the-lids maps in one zero-padded (E, H, W) array (built once for all passes)."""
+    hmax = max(eye.dist.shape[0] for eye in eyes)
+    wmax = max(eye.dist.shape[1] for eye in eyes)
+    dist = np.zeros((len(eyes), hmax, wmax), np.float32)
+    for k, eye in enumerate(eyes):
+        eye.index = k
+        dist[k, : eye.dist.shape[0], : eye.dist.shape[1]] = eye.dist
+    return dist
+
+
+def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | None = None):
     """One pass of ray casting from each eye's current centre and circle fitting: [(centre, radius) or None].
 
     The fit starts from the eye's current centre and radius (the previous pass's circle), with the radius
-    kept within 15 % of the mesh's.
+    kept within 15 % of the mesh's. ``dist_all`` holds the distance maps of the eyes' batch
+    (:func:`_distance_maps`; built here when not given).
     """
+    if dist_all is None:
+        dist_all = _distance_maps(eyes)
     n_eyes, n_rays = len(eyes), len(cos_a)
     m = max(len(eye.radii) for eye in eyes)
     step = np.full((n_eyes, n_rays, m - 1), -np.inf)
-    hmax = max(eye.dist.shape[0] for eye in eyes)
-    wmax = max(eye.dist.shape[1] for eye in eyes)
-    dist = np.zeros((n_eyes, hmax, wmax), np.float32)
     centre = np.array([eye.cur for eye in eyes], float)
     r = np.array([eye.r for eye in eyes])
     r_start = np.array([eye.r_fit for eye in eyes])
     n_rad = np.array([len(eye.radii) for eye in eyes])
     rad0 = np.array([eye.radii[0] for eye in eyes])
-    rad_step = np.array([(eye.radii[-1] - eye.radii[0]) / (len(eye.radii) - 1) for eye in eyes])
+    rad_step = np.array([eye.rad_step for eye in eyes])
     shape = np.array([eye.g.shape for eye in eyes])
+    rows = np.array([eye.index for eye in eyes])
     for k, eye in enumerate(eyes):
+        if eye.ray_x is None:
+            eye.ray_x = cos_a[:, None] * eye.radii[None, :]
+            eye.ray_y = sin_a[:, None] * eye.radii[None, :]
         cx, cy = eye.cur
-        px = (cx + cos_a[:, None] * eye.radii[None, :]).astype(np.float32)
-        py = (cy + sin_a[:, None] * eye.radii[None, :]).astype(np.float32)
+        px = (cx + eye.ray_x).astype(np.float32)
+        py = (cy + eye.ray_y).astype(np.float32)
         prof = cv2.remap(eye.g, px, py, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
-        step[k, :, : len(eye.radii) - 1] = np.diff(prof, axis=1)  # outward dark -> bright is positive
-        dist[k, : eye.dist.shape[0], : eye.dist.shape[1]] = eye.dist
+        step[k, :, : len(eye.radii) - 1] = prof[:, 1:] - prof[:, :-1]  # outward dark -> bright is positive
     i = np.argmax(step, axis=2)  # (E, rays); the padding (-inf) is never the maximum
     peak = np.take_along_axis(step, i[..., None], axis=2)[..., 0]
     last = (n_rad - 2)[:, None]
@@ -311,7 +330,7 @@ def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points):
     # inside the eye opening, at least 2 px (distance transform) from the lid outline
     xi = np.minimum(np.maximum(np.round(qx).astype(np.intp), 0), shape[:, 1:2] - 1)
     yi = np.minimum(np.maximum(np.round(qy).astype(np.intp), 0), shape[:, 0:1] - 1)
-    keep = (peak > 2.0) & (dist[np.arange(n_eyes)[:, None], yi, xi] >= 2.0)  # > 2 grey levels per sample: a real edge
+    keep = (peak > 2.0) & (dist_all[rows[:, None], yi, xi] >= 2.0)  # > 2 grey levels per sample: a real edge
     ok = keep.sum(axis=1) >= min_points
     out: list = [None] * n_eyes
     if not ok.any():
