@@ -59,6 +59,18 @@ def reports(tmp_path_factory):
     r_small = validate_pair(rows[1][0], rows[1][1], root / "small", params=ValidateParams(analysis=ap))
     out["small"] = root / "small" / "report.html"
     out["small_result"] = r_small
+    # p01's webcam folder holds a known-target check (a wrong gain): the study report shows its section
+    from aspectus.atomic import write_json
+    from aspectus.synth.target_gaze import schedule_trajectory
+    from aspectus.targets.analysis import check_samples
+    from aspectus.targets.check import CHECK_JSON
+    from aspectus.targets.schedule import Screen, make_schedule
+
+    sched = make_schedule(Screen(1920, 1080, 344.0, 193.5, 600.0), seed=2, fixation_s=1.5, n_fixations=9)
+    tr = schedule_trajectory(sched, lead_in_s=2.0, gain=(0.6, 0.6), seed=1)
+    s = tr.at(np.arange(0, tr.duration_s, 1 / 30)).assign(valid=True)
+    write_json(rows[0][0] / CHECK_JSON, check_samples(s, sched, start_s=2.0, run_events=False).to_dict()
+               | {"format": "aspectus.target_check"})
     man = root / "pairs.csv"
     man.write_text("webcam,reference,participant\n" + "".join(f"{c},{ref},{p}\n" for c, ref, p in rows))
     validate_study(man, root / "study", params=ValidateParams(analysis=ap, window_s=4.0), figures=True)
@@ -95,6 +107,12 @@ def test_report_reads_for_a_reader(reports):
     assert "not shown" in small and "could be paired" in small and "shorter windows" in small
     n = int(reports["small_result"].meta["windows"])
     assert n < 10 and f"Only {n} windows could be paired" in small
+
+
+def test_study_report_shows_the_known_target_check(reports):
+    html = reports["study"].read_text()
+    assert "Gaze quality on the known-target sequence" in html and "Exclusion rule" in html
+    assert "yes: " in html and "yaw gain 0.60 outside 0.8-1.25" in html and html.count(">no check<") == 2
 
 
 def test_figures_have_no_axis_offset(reports):
