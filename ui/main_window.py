@@ -214,6 +214,10 @@ class MainWindow(QMainWindow):
         self.cancel_btn = QPushButton("Cancel")
         self.cancel_btn.setToolTip("Stop processing; clips already finished keep their results")
         self.cancel_btn.clicked.connect(self.cancel_run)
+        self.targets_btn = QPushButton("Target sequence…")
+        self.targets_btn.setToolTip("Make the known-target sequence for the study's screen: schedule, offline page "
+                                    "and video, to show while the webcam records (gaze quality without a lab tracker)")
+        self.targets_btn.clicked.connect(lambda: self.make_target_sequence_dialog())
         self.overall_bar = QProgressBar()
         self.overall_bar.setRange(0, 1000)
         self.overall_bar.setFormat("Study: %p %")
@@ -227,6 +231,7 @@ class MainWindow(QMainWindow):
         bl.addWidget(self.run_all_btn)
         bl.addWidget(self.run_sel_btn)
         bl.addWidget(self.cancel_btn)
+        bl.addWidget(self.targets_btn)
         bl.addWidget(self.overall_bar, 1)
         bl.addWidget(self.remaining_label)
         bl.addWidget(self.run_label, 1)

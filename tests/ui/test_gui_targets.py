@@ -58,3 +58,31 @@ def test_main_window_offers_the_sequence(qtbot):
     dlg = w.make_target_sequence_dialog(exec_dialog=False)
     qtbot.addWidget(dlg)
     assert dlg.w_px.value() == 1920  # no study screen known: the defaults
+
+
+def test_button_opens_the_sequence_dialog_for_the_study_screen(qtbot, monkeypatch, tmp_path):
+    """The processing bar's button opens the dialog with the study's screen (from its reference-table mapping)."""
+    from PySide6.QtCore import Qt
+
+    import ui.targets_dialog as td
+    from aspectus.studies.project import new_study
+    from ui.main_window import MainWindow
+
+    seen = []
+    monkeypatch.setattr(td.TargetSequenceDialog, "exec", lambda self: seen.append(self) or 0)
+    st = new_study(path=tmp_path / "study.json")
+    st.mappings["last"] = {"screen": {"width_px": 1280, "height_px": 800, "width_mm": 286.0, "height_mm": 179.0,
+                                      "distance_mm": 550.0}}
+    st.save()
+    w = MainWindow(worker_mode="thread")
+    qtbot.addWidget(w)
+    w.quiet = True
+    assert w.open_study(tmp_path / "study.json")
+    w.resize(1366, 768)
+    w.show()
+    assert w.targets_btn.isVisible() and w.targets_btn.isEnabled()
+    qtbot.mouseClick(w.targets_btn, Qt.LeftButton)
+    assert len(seen) == 1
+    dlg = seen[0]
+    assert dlg.w_px.value() == 1280 and dlg.d_mm.value() == 550.0
+    assert dlg.folder.text() == str(tmp_path / "results" / "target_sequence")  # in the study's results folder
