@@ -61,6 +61,14 @@ def _one_line_warning(message, category, filename, lineno, line=None) -> str:
     return f"aspectus: warning: {message}\n"
 
 
+def _os_error_line(exc: OSError) -> str:
+    """An error of the file system in words: which file, what the system said, what to do."""
+    what = exc.strerror or type(exc).__name__
+    name = f"{exc.filename}: " if exc.filename is not None else ""
+    return (f"{name}{what} - check that the folder exists and you can write to it, and that the disk is not full "
+            "(finished outputs are kept)")
+
+
 def _silence_stdout() -> None:
     """Point stdout at the null device so the interpreter's final flush does not fail again."""
     import os
@@ -106,6 +114,9 @@ def main(argv: list[str] | None = None) -> int:
     except BrokenPipeError:  # `aspectus ... | head -1`: the reader went away; the work itself is done
         _silence_stdout()
         return 141
+    except OSError as exc:  # the file system refused (read-only, full, no permission): one line, no traceback
+        print(f"aspectus: error: {_os_error_line(exc)}", file=sys.stderr)
+        return 1
     finally:
         warnings.formatwarning = previous_format
         if previous_full_paths is None:

@@ -25,8 +25,10 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
+    from aspectus.cli.outdir import prepare_out_dir
     from aspectus.studies.bids_export import export_bids
 
+    prepare_out_dir(args.out, create=False)
     ex = export_bids(args.results, args.out, task=args.task, name=args.name)
     for r in ex.recordings:
         rate = f"{r.sampling_frequency_hz:.3f} Hz" + (" nominal, variable frame rate" if r.variable_frame_rate else "")

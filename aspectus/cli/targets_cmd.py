@@ -64,7 +64,6 @@ def register(sub) -> None:
 
 
 def run_make(args) -> int:
-    from pathlib import Path
 
     from aspectus.targets.page import write_page, write_video
     from aspectus.targets.schedule import Screen, make_schedule
@@ -73,8 +72,9 @@ def run_make(args) -> int:
                     float(args.distance_mm))
     sched = make_schedule(screen, seed=args.seed, fixation_s=args.fixation_s, n_fixations=args.targets,
                           pursuit_speed_deg_s=args.pursuit_speed_deg_s, pursuit_sweeps=args.pursuit_sweeps)
-    out = Path(args.out)
-    out.mkdir(parents=True, exist_ok=True)
+    from aspectus.cli.outdir import prepare_out_dir
+
+    out = prepare_out_dir(args.out)
     sched.write(out / "schedule.json")
     write_page(sched, out / "targets.html")
     print(f"{out / 'schedule.json'}: {len(sched.fixations)} still dots, {len(sched.pursuits)} moving sweeps, "
@@ -94,8 +94,10 @@ def run_check_cmd(args) -> int:
     from aspectus.webcam.pipeline import clip_output_dir
 
     params = CheckParams(align=args.align, start_s=args.start_s, search_from_s=args.search_from_s)
+    from aspectus.cli.outdir import prepare_out_dir
+
     clip = Path(args.clip)
-    out_dir = clip_output_dir(args.out, clip)
+    out_dir = clip_output_dir(prepare_out_dir(args.out, create=False), clip)
     bar = None
     if not args.quiet:
         from aspectus.progress import ProgressBar
@@ -122,7 +124,10 @@ def run_check_cmd(args) -> int:
 def run_table(args) -> int:
     from aspectus.targets.study import ExclusionRule, write_quality_report
 
+    from aspectus.cli.outdir import prepare_out_dir
+
     rule = ExclusionRule.parse(args.rule)
+    prepare_out_dir(args.out, create=False)
     res = write_quality_report(args.results, args.out, rule=rule)
     print(f"{res['sessions']} session(s), {res['excluded']} excluded -> {res['csv']}, {res['md']}")
     return 0

@@ -209,7 +209,10 @@ def _finished(folder: Path) -> tuple[bool, str]:
         return False, "not processed (no run.json)"
     for name in ("samples.parquet",):
         if not (folder / name).is_file():
-            return False, f"{name} missing"
+            from aspectus.run_record import missing_output
+
+            problem, hint = missing_output(folder, name)
+            return False, f"{problem} - {hint}"
     if not ((folder / "events.parquet").is_file() or (folder / "events.csv").is_file()):
         return False, "events table missing"
     return True, ""
@@ -686,7 +689,7 @@ def export_bids(results, out_root, *, task: str | None = None, name: str | None 
     if not result.recordings:
         why = "; ".join(f"{k}: {r}" for k, r in result.skipped[:5]) or "no clips"
         raise AspectusInputError(f"no clip could be exported ({why})", path=results,
-                                 hint="process the clips first (aspectus batch / aspectus process)")
+                                 hint="each clip's reason says what to do")
     _write_participants(root, written)
     plist = list(params_seen.values())
     gen = {"Name": "aspectus", "Version": __version__,

@@ -188,8 +188,12 @@ def load_webcam(path) -> tuple[pd.DataFrame, Path, dict]:
     p = Path(path)
     if p.is_dir():
         if not (p / "samples.parquet").exists():
-            raise AspectusInputError("no samples.parquet in this folder", path=p,
-                                    hint="WEBCAM is a clip's output folder from `aspectus process` (or the clip)")
+            from aspectus.run_record import missing_output
+
+            problem, hint = missing_output(p, "samples.parquet")
+            if read_run_json(p) is None:
+                hint = "WEBCAM is a clip's output folder from `aspectus process` (or the clip)"
+            raise AspectusInputError(problem, path=p, hint=hint)
         return load_samples(p), p, read_run_json(p) or {}
     if p.suffix == ".parquet" and p.exists():
         try:

@@ -179,11 +179,26 @@ def test_a_damaged_clip_is_left_out_with_the_reason_and_the_others_are_written(t
     assert ex.skipped[0][0] == "b" and "checksum" in ex.skipped[0][1]
 
 
-def test_purged_clips_are_left_out_with_what_to_do(tmp_path):
+def test_clips_without_samples_are_left_out_with_what_to_do(tmp_path):
     batch = write_batch_folder(tmp_path / "b", {"a": {"participant": "p1", "seed": 1}})
     (batch / "a" / "samples.parquet").unlink()
-    with pytest.raises(AspectusInputError, match="samples.parquet missing"):
+    with pytest.raises(AspectusInputError, match="samples.parquet is missing.*process the clip again"):
         export_bids(batch, tmp_path / "bids")
+
+
+def test_purged_clips_say_that_only_processing_the_clip_again_rebuilds_them(tmp_path):
+    # `aspectus batch` counts a purged clip as done and skips it: the advice must name `aspectus process`
+    from aspectus.privacy import plan_purge, purge
+
+    batch = write_batch_folder(tmp_path / "b", {"a": {"participant": "p1", "seed": 1},
+                                                "b": {"participant": "p2", "seed": 2}})
+    purge(plan_purge(batch / "b"))
+    assert not (batch / "b" / "samples.parquet").exists()
+    ex = export_bids(batch, tmp_path / "bids")
+    assert [r.key for r in ex.recordings] == ["a"]
+    key, why = ex.skipped[0]
+    assert key == "b"
+    assert "deleted by `aspectus purge`" in why and "aspectus process " in why and "skips it" in why
 
 
 def test_cli_export_bids(exported, tmp_path):

@@ -146,6 +146,19 @@ def test_bad_reference_leaves_outdir_untouched(session, tmp_path):
         validate_pair(tmp_path, session["ref"]["physio"], out)
 
 
+def test_a_purged_clip_says_how_to_rebuild_its_samples(session, tmp_path):
+    # after `aspectus purge` the batch counts the clip as done, so the advice names `aspectus process`
+    from _results import write_batch_folder
+
+    from aspectus.privacy import plan_purge, purge
+
+    batch = write_batch_folder(tmp_path / "b", {"a": {"participant": "p1", "seed": 1}})
+    purge(plan_purge(batch))
+    with pytest.raises(AspectusInputError, match=r"samples.parquet was deleted by `aspectus purge`.*aspectus process "):
+        validate_pair(batch / "a", session["ref"]["physio"], tmp_path / "v")
+    assert not (tmp_path / "v").exists()
+
+
 def test_study_manifest_pooled_and_summary(session, tmp_path):
     root = tmp_path
     truth2 = synth_trajectory(duration_s=30.0, seed=9, task="reading").samples
