@@ -120,6 +120,16 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
 #: gaze settings the grid compares: the default, and the limbus fit fused with the face mesh's iris point
 #: (mapped onto the limbus scale in the head, :func:`aspectus.webcam.gaze.fuse_iris_centres`)
 VARIANTS = {"limbus": {}, "fuse": {"iris_combine": "fuse"}}
+#: a variant with the renderer's true iris centres in place of the localiser's (what the rest of the chain -
+#: head pose, eyeball centres, detector - gives with a perfect iris localiser)
+TRUE_IRIS = {"true_iris": {"iris_px": "truth"}}
+
+
+def true_iris_px(truth: pd.DataFrame) -> np.ndarray:
+    """(N, 2, 2) true iris centres (right, left) in OpenCV's pixel-centre convention (the truth file's pixel
+    i spans [i, i+1), so 0.5 px is taken off)."""
+    return np.stack([truth[["right_iris_x_px", "right_iris_y_px"]].to_numpy(float),
+                     truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy(float)], axis=1) - 0.5
 
 
 def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: dict | None = None,
@@ -150,7 +160,10 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
     for name, over in (variants or VARIANTS).items():
         s = samples
         if over:
+            over = dict(over)
             kw = {k: v for k, v in captured.items() if k != "params"}
+            if over.pop("iris_px", None) == "truth":
+                kw["iris_px"] = true_iris_px(res.truth)
             cols, _ = estimate_gaze(**kw, params=GazeParams(mirrored=cond.mirror, **over))
             s = samples.copy()
             for c, v in cols.items():

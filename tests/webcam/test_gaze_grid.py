@@ -25,7 +25,7 @@ def cells(lund_dir, tmp_path_factory):
     for name, size, dist, trial, face in (("12px", (640, 480), 550.0, "UH21_img_Rome", "hopper"),
                                           ("8px", (640, 480), 780.0, "UL23_img_Europe", "astronaut")):
         cond = G.Condition(name, size_px=size, distance_mm=dist, trial=trial, face=face)
-        for row in G.run_condition(cond, d, lund_dir, keep_samples=True):
+        for row in G.run_condition(cond, d, lund_dir, keep_samples=True, variants=G.VARIANTS | G.TRUE_IRIS):
             out[(name, row["variant"])] = row
     return out
 
@@ -36,20 +36,20 @@ def test_the_cells_have_the_asked_iris_sizes(cells):
 
 
 def test_noise_floor_at_12_px_with_the_fused_iris_centre(cells):
-    # issue 15 floor RMS-S2S <= 1.5 deg: measured 1.43 with the fused centre (limbus fit alone 3.40; the fused
+    # issue 15 floor RMS-S2S <= 1.5 deg: measured 1.37 with the fused centre (limbus fit alone 3.22; the fused
     # centre before it was mapped in the head: 1.52-1.62 on other clips, pitch gain 0.45-0.51)
     assert cells[("12px", "fuse")]["rms_s2s_deg"] <= 1.5
     assert cells[("12px", "limbus")]["rms_s2s_deg"] > 2 * cells[("12px", "fuse")]["rms_s2s_deg"]
 
 
 def test_noise_floor_at_8_px(cells):
-    # issue 15 floor RMS-S2S <= 3 deg at 8-9 px: measured 1.25 fused, 3.37 with the limbus fit alone
+    # issue 15 floor RMS-S2S <= 3 deg at 8-9 px: measured 1.21 fused, 3.62 with the limbus fit alone
     assert cells[("8px", "fuse")]["rms_s2s_deg"] <= 3.0
 
 
 def test_yaw_at_12_px(cells):
-    # issue 15 floor |r| >= 0.95: measured 0.961 (limbus) and 0.954 (fused). The gain floor 0.85-1.15 is NOT
-    # reached: 0.78 / 0.75 (guarded here at 0.7)
+    # issue 15 floor |r| >= 0.95: measured 0.969 (limbus) and 0.964 (fused). The gain floor 0.85-1.15 is NOT
+    # reached: 0.80 / 0.78 (guarded here at 0.7)
     for v in ("limbus", "fuse"):
         assert cells[("12px", v)]["yaw_r"] >= 0.95
         assert cells[("12px", v)]["yaw_gain"] >= 0.7
@@ -57,12 +57,27 @@ def test_yaw_at_12_px(cells):
 
 def test_pitch_and_fixation_agreement_at_12_px_guarded_below_the_floor(cells):
     # NOT reached: issue 15 floors pitch |r| >= 0.95 with gain 0.85-1.15 and kappa >= 0.5. Measured: pitch r
-    # 0.575 / 0.882 (limbus / fused), gain 0.60 / 0.59, kappa 0.27 / 0.37, while the default detector on the
-    # noise-free truth at the same 30 frames a second reaches only 0.60 against the coders (kappa_truth).
+    # 0.629 / 0.899 (limbus / fused), gain 0.61 / 0.60, kappa 0.16 / 0.21, while the default detector on the
+    # noise-free truth at the same 30 frames a second reaches only 0.63 against the coders (kappa_truth).
+    # (Kappa was 0.27 / 0.37 and guarded at 0.3 before the detector's sample-count-aware I-DT threshold and
+    # edge trimming of the events rework; the gaze itself did not change.)
     fused = cells[("12px", "fuse")]
     assert fused["pitch_r"] >= 0.85 and fused["pitch_gain"] >= 0.5
-    assert fused["kappa"] >= 0.3 and fused["kappa"] > cells[("12px", "limbus")]["kappa"]
+    assert fused["kappa"] >= 0.18 and fused["kappa"] > cells[("12px", "limbus")]["kappa"]
     assert 0.5 <= fused["kappa_truth"] <= 0.7
+
+
+def test_with_the_true_iris_centres_the_12_px_pitch_floors_are_reached(cells):
+    # The rest of the chain (head pose, eyeball centres) measured with the renderer's true iris centres in place
+    # of the localiser's: at 12 px it reaches issue 15's pitch floors (measured r 0.990, gain 0.91; yaw r
+    # 0.975, gain 0.89; RMS-S2S 0.25 deg), so there they are the iris localiser's to reach. Its kappa, 0.29,
+    # is below the floor of 0.5 all the same: that floor is not reachable by a better localiser alone. At 8.5 px
+    # the chain is what is wrong (true iris: pitch r 0.729, gain 0.24; yaw r 0.842, gain 0.71).
+    true12, true8 = cells[("12px", "true_iris")], cells[("8px", "true_iris")]
+    assert true12["pitch_r"] >= 0.95 and 0.85 <= true12["pitch_gain"] <= 1.15
+    assert true12["yaw_r"] >= 0.95 and 0.85 <= true12["yaw_gain"] <= 1.15
+    assert true12["rms_s2s_deg"] <= 0.5
+    assert true8["rms_s2s_deg"] <= 1.0  # measured 0.48 deg
 
 
 def test_verdict_at_8_px_says_which_features_are_usable(cells):
