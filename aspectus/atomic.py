@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import contextlib
 import hashlib
+import io
 import json
 import os
 import stat
@@ -183,6 +184,88 @@ def sha256_file(path, chunk: int = 1 << 20) -> str:
                 break
             h.update(b)
     return h.hexdigest()
+
+
+class HashingReader(io.RawIOBase):
+    """A file opened for reading that computes the SHA-256 of its bytes from what its reader reads.
+
+    Handed to a demuxer (PyAV takes file objects), it hashes the file in the
+    same pass that decodes it, instead of reading it once more beforehand.
+    Each read that continues the part hashed so far extends it; reads
+    elsewhere (a demuxer that jumps to an index at the end and back) are
+    passed through, and :meth:`hexdigest` hashes what no read covered in order,
+    so the digest is always that of the whole file - the same as
+    :func:`sha256_file` (tests/test_atomic.py). The first ``first`` bytes are
+    read on opening: a file that cannot be read fails here, with an
+    :class:`OSError`, before any decoding. Raises
+    :class:`~aspectus.errors.AspectusInputError` for a FIFO, socket or device.
+    """
+
+    def __init__(self, path, *, first: int = 1 << 16):
+        from aspectus.errors import AspectusInputError
+
+        super().__init__()
+        self.name = str(path)
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0))
+        try:
+            if not stat.S_ISREG(os.fstat(fd).st_mode):
+                raise AspectusInputError("is not a regular file (a pipe, socket or device)", path=path,
+                                         hint="give the recorded file itself")
+        except BaseException:
+            os.close(fd)
+            raise
+        self._f = os.fdopen(fd, "rb", buffering=0)
+        self._h = hashlib.sha256()
+        self._done = 0  # bytes [0, _done) are in the hash
+        self._digest: str | None = None
+        try:
+            head = self._f.read(first)
+            self._f.seek(0)
+        except BaseException:
+            self._f.close()
+            raise
+        self._h.update(head)
+        self._done = len(head)
+
+    def readable(self) -> bool:
+        return True
+
+    def seekable(self) -> bool:
+        return True
+
+    def readinto(self, b) -> int:
+        pos = self._f.tell()
+        n = self._f.readinto(b)
+        if n and pos <= self._done < pos + n:
+            self._h.update(memoryview(b)[self._done - pos:n])
+            self._done = pos + n
+        return n
+
+    def seek(self, offset: int, whence: int = 0) -> int:
+        return self._f.seek(offset, whence)
+
+    def tell(self) -> int:
+        return self._f.tell()
+
+    def hexdigest(self, chunk: int = 1 << 20) -> str:
+        """The file's SHA-256 (hex): the bytes not read in order so far are read now."""
+        if self._digest is None:
+            pos = self._f.tell()
+            self._f.seek(self._done)
+            while True:
+                b = self._f.read(chunk)
+                if not b:
+                    break
+                self._h.update(b)
+                self._done += len(b)
+            self._f.seek(pos)
+            self._digest = self._h.hexdigest()
+        return self._digest
+
+    def close(self) -> None:
+        if not self.closed:
+            self._f.close()
+        super().close()
 
 
 def sha256_json(obj: Any) -> str:

@@ -191,7 +191,8 @@ def resolve_stages(stages: str | None = None) -> str:
 
 
 def extract_samples(clip_path, *, params: ProcessParams | None = None, progress: ProgressFn | None = None,
-                    cancel=None, geometry_mode: str = "auto", stages: str | None = None) -> tuple[pd.DataFrame, dict]:
+                    cancel=None, geometry_mode: str = "auto", stages: str | None = None,
+                    source=None) -> tuple[pd.DataFrame, dict]:
     """Decode, landmark and estimate gaze for every frame of a clip.
 
     ``geometry_mode`` says where the per-frame head pose and iris refinement
@@ -199,7 +200,9 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     thread), ``"thread"``, ``"process"`` or ``"inline"``; the results are the
     same. ``stages`` (:func:`resolve_stages`): with ``"serial"`` decoding,
     mesh and geometry run one after the other in the calling thread (and
-    ``geometry_mode`` is ``"inline"``), with the same results.
+    ``geometry_mode`` is ``"inline"``), with the same results. ``source``: a
+    file object the decoder reads the clip's bytes from (an
+    :class:`aspectus.atomic.HashingReader` hashes the clip in the same pass).
 
     Returns
     -------
@@ -220,10 +223,11 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     if serial:  # one thread, one core: no hand-over between stages at all
         background = None
         geometry_mode = "inline"
-        prefetch = iter_frames(clip, report=report, cancel=cancel)
+        prefetch = iter_frames(clip, report=report, cancel=cancel, source=source)
     else:
         background = background_cpus()  # the decoder and the geometry keep off the CPUs the mesh may need
-        prefetch = FramePrefetcher(clip, report=report, cancel=cancel, lower_priority=DECODE_NICE, cpus=background)
+        prefetch = FramePrefetcher(clip, report=report, cancel=cancel, lower_priority=DECODE_NICE, cpus=background,
+                                   source=source)
     # Three stages overlap: decoding (its own thread), the face mesh (here), and the per-frame
     # geometry - head pose, iris refinement - in a child process for clips of more than a few
     # seconds (aspectus.webcam.frame_geometry). The mesh and OpenCV release the GIL while they compute;
@@ -618,6 +622,28 @@ def _paths_recorded(meta: dict, clip: Path, out_dir: Path, full_paths) -> dict:
     return meta
 
 
+def _read_or_fail(clip: Path, read):
+    """``read()``, with an I/O error turned into a :class:`VideoError` that names the clip."""
+    try:
+        return read()
+    except OSError as exc:
+        from aspectus.errors import VideoError
+
+        raise VideoError(f"cannot be read ({exc.strerror or exc})", path=clip,
+                         hint="check the disk or network share it is on, or copy the file again") from None
+
+
+def _clip_sha256(clip: Path) -> str:
+    return _read_or_fail(clip, lambda: sha256_file(clip))
+
+
+def _clip_reader(clip: Path):
+    """The clip opened for decoding and hashing in one pass (:class:`aspectus.atomic.HashingReader`)."""
+    from aspectus.atomic import HashingReader
+
+    return _read_or_fail(clip, lambda: HashingReader(clip))
+
+
 def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, segments=None,
                  progress: ProgressFn | None = None, cancel=None, reuse: bool = True,
                  full_paths: bool | None = None, stages: str | None = None) -> ClipResult:
@@ -685,30 +711,34 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
 
         raise VideoError("is not a regular file (a pipe, socket or device)", path=clip,
                          hint="give the recorded clip file itself")
-    try:
-        input_sha = sha256_file(clip)
-    except OSError as exc:
-        from aspectus.errors import VideoError
-
-        raise VideoError(f"cannot be read ({exc.strerror or exc})", path=clip,
-                         hint="check the disk or network share it is on, or copy the file again") from None
     seg_df = _segments_frame(segments)
     extraction_sha = params_fingerprint(params.extraction_dict())
     samples = None
     meta = None
     reused = False
+    input_sha = None
     recover_output_dir(out_dir)  # a run killed earlier: finish or discard its half-installed result
     prev = read_run_json(out_dir) if reuse else None
-    if prev and prev.get("input_sha256") == input_sha and prev.get("extraction_sha256") == extraction_sha:
-        try:
-            samples = load_samples(out_dir)
-            meta = prev.get("extraction") or {}
-            reused = True
-        except CacheError:
-            samples = None  # damaged cache: rebuild it
+    if prev and prev.get("extraction_sha256") == extraction_sha:  # the samples may be reusable: the hash decides
+        input_sha = _clip_sha256(clip)
+        if prev.get("input_sha256") == input_sha:
+            try:
+                samples = load_samples(out_dir)
+                meta = prev.get("extraction") or {}
+                reused = True
+            except CacheError:
+                samples = None  # damaged cache: rebuild it
     if samples is None:
-        samples, meta = extract_samples(clip, params=params, progress=lambda f, m: progress(0.95 * f, m), cancel=cancel,
-                                        stages=stages)
+        # otherwise the clip is hashed as it is decoded: one read of the file, not two
+        reader = _clip_reader(clip) if input_sha is None else None
+        try:
+            samples, meta = extract_samples(clip, params=params, progress=lambda f, m: progress(0.95 * f, m),
+                                            cancel=cancel, stages=stages, source=reader)
+            if reader is not None:
+                input_sha = _read_or_fail(clip, reader.hexdigest)
+        finally:
+            if reader is not None:
+                reader.close()
     if not samples["face_found"].any():
         raise NoFaceError(f"no face found in any of its {len(samples)} frames", path=clip,
                           hint="check that the student's face is in the picture and lit")

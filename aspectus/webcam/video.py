@@ -100,7 +100,9 @@ class DecodeReport:
         return asdict(self)
 
 
-def _open(path: Path):
+def _open(path: Path, source=None):
+    """The clip's container, opened by path or, given ``source``, from that file object (e.g. a
+    :class:`aspectus.atomic.HashingReader` of the same file)."""
     import av
 
     if not path.exists():
@@ -113,7 +115,7 @@ def _open(path: Path):
     if path.stat().st_size == 0:
         raise VideoError("file is empty (0 bytes)", path=path, hint="the recording was not saved; re-export it")
     try:
-        container = av.open(str(path), mode="r", metadata_errors="ignore")
+        container = av.open(str(path) if source is None else source, mode="r", metadata_errors="ignore")
     except av.error.FFmpegError as exc:
         raise VideoError(f"not a readable video file ({_ffmpeg_reason(exc)})", path=path,
                          hint="check that it is a video (mp4, mov, avi, mkv, webm) and not truncated or renamed") from None
@@ -284,7 +286,7 @@ def _reformatter():
 
 
 def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
-                max_pixels: int = MAX_PIXELS) -> Iterator[Frame]:
+                max_pixels: int = MAX_PIXELS, source=None) -> Iterator[Frame]:
     """Yield the clip's frames in presentation order with container timestamps.
 
     Parameters
@@ -299,6 +301,10 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
     max_pixels : int
         Larger pictures are refused with a :class:`VideoError` (they would
         need gigabytes per second of memory bandwidth and are not webcam clips).
+    source : file object, optional
+        Read the clip's bytes from this (opened on ``path``; e.g. an
+        :class:`aspectus.atomic.HashingReader`, which hashes the clip as it is
+        decoded); the caller closes it.
 
     Notes
     -----
@@ -313,7 +319,7 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
 
     path = Path(path)
     report = report if report is not None else DecodeReport()
-    container = _open(path)
+    container = _open(path, source)
     try:
         st = container.streams.video[0]
         # no frame threading: one core decodes 720p at about 400 fps (well ahead of the face mesh), it leaves
@@ -410,8 +416,9 @@ class FramePrefetcher:
     _DONE = object()
 
     def __init__(self, path, *, report: DecodeReport | None = None, cancel=None, depth: int = 6,
-                 lower_priority: int = 0, cpus: set[int] | None = None):
+                 lower_priority: int = 0, cpus: set[int] | None = None, source=None):
         self._path = path
+        self._source = source
         self._lower_priority = int(lower_priority)
         self._cpus = set(cpus) if cpus else None
         self._report = report if report is not None else DecodeReport()
@@ -444,7 +451,7 @@ class FramePrefetcher:
 
             pin_to_cpus(self._cpus)
         try:
-            for fr in iter_frames(self._path, report=self._report, cancel=self._cancel):
+            for fr in iter_frames(self._path, report=self._report, cancel=self._cancel, source=self._source):
                 if not self._put(fr):
                     return
             self._put(self._DONE)

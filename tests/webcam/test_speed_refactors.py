@@ -11,6 +11,7 @@ import pandas as pd
 import pytest
 
 import _geometry_reference as ref
+from aspectus.atomic import HashingReader
 from aspectus.webcam import limbus
 from aspectus.webcam.eye_anchors import EyeAnchorTracker
 from aspectus.webcam.frame_geometry import _BATCH, FrameGeometry, frame_item
@@ -52,8 +53,11 @@ def test_geometry_rows_are_those_of_the_reference_code(demo_clip, monkeypatch):
 
 
 def test_samples_table_is_that_of_the_reference_code(demo_clip, monkeypatch):
+    """As the process command runs it (the clip hashed while decoded), against the code as it was (the clip
+    decoded by path, the geometry's reference copies)."""
     p = ProcessParams()
-    fast, _ = extract_samples(demo_clip, params=p, stages="serial")
+    with HashingReader(demo_clip) as reader:
+        fast, _ = extract_samples(demo_clip, params=p, stages="serial", source=reader)
     _use_reference(monkeypatch)
     slow, _ = extract_samples(demo_clip, params=p, stages="serial")
     assert fast["valid"].mean() > 0.8
