@@ -17,6 +17,11 @@ approval. Keep the videos only as long as your protocol allows.</li>
 <li>The numbers are research estimates with known error: never use them to judge, grade or monitor a single
 student.</li>
 <li>Record at 30 frames per second or more, face well lit, the whole face in the picture.</li>
+<li>To measure each student's gaze quality without a lab tracker, press <b>Target sequence&hellip;</b> (beside
+<b>Process clips</b>), give the classroom screen's size and the viewing distance, and show the page it writes
+(<i>targets.html</i>, full screen, space bar) at the start of each recording. After processing, the command
+<i>aspectus targets check</i> measures accuracy, precision and data loss on it; the clip view then shows
+these figures.</li>
 </ul>
 
 <h3>2. Make a study</h3>
