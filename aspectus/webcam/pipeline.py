@@ -338,9 +338,11 @@ def software_versions() -> dict:
 #: gaze precision tiers of the verdict: (tier, largest RMS-S2S noise in deg, smallest median iris diameter in px,
 #: the features that can be trusted there). Measured on the rendered grid (bench/bench_gaze_grid.py, README
 #: "Gaze precision"): at 1.5 deg and irises of 12 px or more the default detector's fixations agree with two
-#: expert coders at sample kappa 0.3-0.5 (the detector on the noise-free truth at 30 Hz: 0.54-0.6); by 3 deg
-#: and 8-9 px irises the agreement is near chance (0.1) while gaze r against the truth stays 0.86-0.96, so
-#: direction shifts averaged over seconds survive but fixation counts and durations do not.
+#: expert coders at sample kappa 0.19-0.42 (the detector on the noise-free truth at 30 Hz: 0.54-0.63; measured
+#: after the events rework, 0.3-0.5 before it); at 1.5-3 deg (irises of 8.5-17 px) it is 0.06-0.38 and varies
+#: more from clip to clip than with the noise, while gaze r against the truth stays 0.41-0.98 (0.71-0.98 at
+#: CRF 28 or better), so direction shifts averaged over seconds survive but fixation counts and durations do
+#: not.
 PRECISION_TIERS = (
     ("events", 1.5, 12.0, ["fixation count and durations", "saccades", "where the gaze rests (dwell)",
                            "blink rate", "head movement", "data quality"]),
