@@ -37,15 +37,17 @@ def run(args) -> int:
     if n == 0:
         print(f"{args.target}: {len(plan.clip_dirs)} clip folder(s), no per-frame data left to delete")
         return 0
+    can_ask = bool(sys.stdin) and sys.stdin.isatty()
+    deleting = not args.dry_run and (args.yes or can_ask)  # else the list is only what would go
     for f in plan.files + plan.dirs:
-        print(f"  {'would delete' if args.dry_run else 'delete'} {f}{'/' if f in plan.dirs else ''}")
+        print(f"  {'delete' if deleting else 'would delete'} {f}{'/' if f in plan.dirs else ''}")
     print(f"{n} item(s), {_mb(plan.bytes)}, in {len(plan.clip_dirs)} clip folder(s); events, features and "
           "run.json are kept")
     if args.dry_run:
         print("dry run: nothing deleted")
         return 0
     if not args.yes:
-        if not sys.stdin or not sys.stdin.isatty():
+        if not can_ask:
             raise AspectusInputError("needs confirmation, and no terminal is attached to ask",
                                     path=args.target, hint="add --yes to delete without asking, or --dry-run to list")
         answer = input("Delete these files for good? Type 'yes' to go on: ").strip().lower()

@@ -149,8 +149,16 @@ def run(args) -> int:
     line = f"offset {al.offset_s:+.3f} s ({al.method}, confidence {al.confidence:.2f}); kappa {r.events['kappa']:.2f}, " \
            f"F1 {r.events['f1']:.2f}"
     if len(fc):
-        line += f"; fixation count per window r {fc['pearson_r'].iloc[0]:.2f}, ICC {fc['icc'].iloc[0]:.2f} " \
-                f"(n={int(fc['n'].iloc[0])})"
+        from aspectus.validation.windows import MIN_PAIRS
+
+        n = int(fc["n"].iloc[0])
+        if r.meta.get("agreement_withheld"):
+            line += f"; fixation count per window: r and ICC withheld (n={n})"
+        elif n < MIN_PAIRS:  # as the report and the app: too few pairs for r, ICC and limits to mean anything
+            line += f"; fixation count per window: {n} windows, too few for r and ICC (at least {MIN_PAIRS})"
+        else:
+            line += f"; fixation count per window r {fc['pearson_r'].iloc[0]:.2f}, ICC {fc['icc'].iloc[0]:.2f} " \
+                    f"(n={n})"
     print(line + f" -> {r.paths['report']}")
     if r.meta.get("agreement_withheld"):
         print("WARNING: the alignment is uncertain - agreement figures withheld (see the note below; "

@@ -122,7 +122,9 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
     cd2 = np.concatenate([[0.0], np.cumsum(d2)])
     cnd = np.concatenate([[0], np.cumsum(step_ok)])
     rows = []
-    degenerate = 0
+    degenerate: list[str] = []
+    outside = False
+    span = (float(lo_s[0]), float(hi_s[-1])) if n else None
     for scp in scopes.itertuples(index=False):
         start, end = float(scp.start_s), float(scp.end_s)
         # samples whose span overlaps the scope
@@ -136,7 +138,11 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
         nval = int(cval[i1] - cval[i0])
         row = {"scope": scp.scope, "label": scp.label, "start_s": start, "end_s": end}
         if nval == 0 or end - start <= 0 or recorded_s <= 0:
-            degenerate += 1
+            what = f"{scp.scope} {str(scp.label)!r} ({start:g} to {end:g} s)"
+            if span is not None and recorded_s <= 0 and end - start > 0 and (start >= span[1] or end <= span[0]):
+                what += f" lies outside the recording ({span[0]:.2f} to {span[1]:.2f} s)"
+                outside = outside or scp.scope == "segment"
+            degenerate.append(what)
             row.update({c: np.nan for c in FEATURE_COLUMNS})
             row["valid_frac"] = 0.0 if (n_in or recorded_s > 0) else np.nan
             row["n_samples"] = n_in
@@ -185,8 +191,11 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
         })
         rows.append(row)
     if degenerate:
-        warnings.warn(f"{degenerate} of {len(scopes)} feature scope(s) hold no valid sample; their features are NaN",
-                      DegenerateWindowWarning, stacklevel=2)
+        named = "; ".join(degenerate[:3]) + (f"; {len(degenerate) - 3} more" if len(degenerate) > 3 else "")
+        todo = (" - check that the segments file belongs to this recording and that its times are seconds from "
+                "its start") if outside else ""
+        warnings.warn(f"{len(degenerate)} of {len(scopes)} feature scope(s) hold no valid sample; their features "
+                      f"are NaN: {named}{todo}", DegenerateWindowWarning, stacklevel=2)
     cols = list(SCOPE_COLUMNS) + list(FEATURE_COLUMNS) + ["n_samples"]
     if not rows:
         return pd.DataFrame({c: pd.Series(dtype=object if c in ("scope", "label") else float) for c in cols})

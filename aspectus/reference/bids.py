@@ -34,8 +34,9 @@ from aspectus.atomic import write_bytes, write_json
 from aspectus.errors import ParameterError, ReferenceFormatError
 from aspectus.reference.screen import ScreenGeometry
 from aspectus.schema import EVENT_COLUMNS
-from aspectus.reference.table import (MISSING_TOKENS, TIME_UNITS, RawTable, check_position_range, check_times, numeric_column,
-                    positions_to_deg, read_raw_table)
+from aspectus.reference.table import (MISSING_TOKENS, TIME_UNITS, RawTable, check_median_on_screen,
+                                      check_position_range, check_times, numeric_column, positions_to_deg,
+                                      read_raw_table)
 
 #: BIDS unit strings for time columns -> seconds per unit
 BIDS_TIME_UNITS = {"s": 1.0, "sec": 1.0, "seconds": 1.0, "ms": 1e-3, "msec": 1e-3, "us": 1e-6, "µs": 1e-6,
@@ -345,6 +346,8 @@ def read_bids_physio(path, *, screen: ScreenGeometry | None = None) -> Reference
         y_up, tl_origin = True, "top-left"
     check_position_range(x, y, units=unit, screen=geo, path=path, line_no=raw.line_no, x_name="x_coordinate",
                          y_name="y_coordinate")
+    check_median_on_screen(x, y, units=unit, screen=geo, origin=tl_origin, path=path, x_name="x_coordinate",
+                           y_name="y_coordinate")
     yaw, pitch = positions_to_deg(x, y, units=unit, screen=geo, origin=tl_origin, y_up=y_up)
     valid = np.isfinite(yaw) & np.isfinite(pitch)
     t0 = float(t_raw[0])

@@ -379,6 +379,12 @@ def read_raw_table(path, *, delimiter: str | None = None, comment: str = "#", he
 def _col(raw: RawTable, name: str, role: str) -> pd.Series:
     if name in raw.frame.columns:
         return raw.frame[name]
+    cols = [str(c) for c in raw.frame.columns]
+    if len(cols) == 1 and name in cols[0] and name != cols[0]:  # the header, delimiters and all, is one column
+        raise ReferenceFormatError(
+            f"no column {name!r} for the {role}: the whole header {cols[0]!r} was read as one column, so the file "
+            "is separated by another delimiter than the one set", path=raw.path,
+            hint="set the mapping's delimiter (--delimiter) to the file's, or leave it out: it is detected")
     raise ReferenceFormatError(
         f"no column {name!r} for the {role}; the table has {', '.join(map(str, raw.frame.columns))}",
         path=raw.path, hint="fix the column mapping (or --mapping file)")
@@ -530,6 +536,41 @@ def check_position_range(x, y, *, units: str, screen: ScreenGeometry | None, pat
                 hint=f"check the units (perhaps {guess}) and the screen geometry")
 
 
+def check_median_on_screen(x, y, *, units: str, screen: ScreenGeometry | None, origin: str, path: Path,
+                           x_name: str, y_name: str) -> None:
+    """Catch a wrong unit that :func:`check_position_range` lets through: gaze recorded at a screen rests on
+    the screen, so a median position more than half a screen beyond its edge (more than one screen width or
+    height from its centre) means the unit or the screen geometry is wrong (e.g. pixels read as mm)."""
+    if units == "deg" or screen is None:
+        return
+    if units == "px":
+        size = (screen.width_px, screen.height_px)
+        unit = "px"
+    elif units == "mm":
+        size, unit = (screen.width_mm, screen.height_mm), "mm"
+    else:
+        size, unit = (1.0, 1.0), "screen widths/heights"
+    if size[0] is None or size[1] is None:
+        return
+    for vals, extent, name, what in ((x, size[0], x_name, "width"), (y, size[1], y_name, "height")):
+        v = np.asarray(vals, dtype=float)
+        v = v[np.isfinite(v)]
+        if not len(v):
+            continue
+        med = float(np.median(v))
+        centre = 0.0 if origin == "center" else extent / 2.0
+        if abs(med - centre) > extent:
+            guess = {"px": "mm or deg, or another screen resolution", "mm": "px, or another screen size",
+                     "norm": "px or mm"}.get(units, "another unit")
+            raise ReferenceFormatError(
+                f"column {name!r} has its median at {med:.6g} {unit}, more than half a screen beyond the edge of a "
+                f"screen {extent:.6g} {unit} in {what} (positions measured from its "
+                f"{'centre' if origin == 'center' else 'top-left corner'}): the gaze would "
+                "mostly lie off the screen", path=path,
+                hint=f"check the position unit (perhaps {guess}), the screen size and resolution, and where "
+                "positions are measured from")
+
+
 def _validity(raw: RawTable, mapping: TableMapping) -> np.ndarray:
     s = _col(raw, mapping.validity_col, "validity").str.lower()
     ok = [v.strip().lower() for v in (mapping.validity_values or ["1", "1.0", "true", "yes", "valid", "ok"])]
@@ -595,6 +636,8 @@ def samples_from_raw(raw: RawTable, mapping: TableMapping) -> pd.DataFrame:
         y[zero] = np.nan
     check_position_range(x, y, units=mapping.units, screen=mapping.screen, path=path, line_no=raw.line_no,
                          x_name=mapping.x_col, y_name=mapping.y_col)
+    check_median_on_screen(x, y, units=mapping.units, screen=mapping.screen, origin=mapping.origin, path=path,
+                           x_name=mapping.x_col, y_name=mapping.y_col)
     yaw, pitch = positions_to_deg(x, y, units=mapping.units, screen=mapping.screen, origin=mapping.origin,
                                   y_up=mapping.y_up)
     valid = np.isfinite(yaw) & np.isfinite(pitch)

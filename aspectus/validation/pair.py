@@ -46,7 +46,7 @@ from aspectus.reference.screen import ScreenGeometry
 
 #: features compared by default (columns of the features table)
 DEFAULT_FEATURES = (
-    "fixation_count", "fixation_rate_per_s", "fixation_duration_mean_ms", "fixation_duration_median_ms",
+    "fixation_count", "fixation_rate_per_min", "fixation_duration_mean_ms", "fixation_duration_median_ms",
     "fixation_time_frac", "saccade_count", "saccade_amplitude_mean_deg", "blink_count", "blink_rate_per_min",
 )
 #: fewer pairs than this make the report warn that the intervals are wide
@@ -241,11 +241,28 @@ def resample_samples(samples: pd.DataFrame, rate_hz: float) -> pd.DataFrame:
     return samples.iloc[j].reset_index(drop=True)
 
 
+def _recorded_span(t: np.ndarray) -> tuple[float, float]:
+    """The time a recording covers: each sample stands for half an interval either side of it (the rule of
+    :func:`aspectus.events.cleanup.sample_spans`, as the clip's own feature windows use it), so 600 frames
+    at 30 Hz cover 20 s, not the 19.97 s from the first sample to the last."""
+    from aspectus.events.cleanup import sample_spans
+
+    dt = float(np.median(np.diff(t))) if len(t) > 1 else float("nan")
+    lo, hi = sample_spans(t, dt)
+    return float(lo[0]), float(hi[-1])
+
+
+def _common_span(tw: np.ndarray, tr: np.ndarray) -> tuple[float, float]:
+    """Start and end (s, clip clock) of the time both recordings cover."""
+    (lw, hw), (lr, hr) = _recorded_span(tw), _recorded_span(tr)
+    return max(lw, lr), min(hw, hr)
+
+
 def _common_windows(tw: np.ndarray, tr: np.ndarray, window_s: float, step_s: float) -> pd.DataFrame:
     from aspectus.events.segments import fixed_windows
 
-    lo, hi = max(tw[0], tr[0]), min(tw[-1], tr[-1])
-    return fixed_windows(float(lo), float(hi), window_s=window_s, step_s=step_s)
+    lo, hi = _common_span(tw, tr)
+    return fixed_windows(lo, hi, window_s=window_s, step_s=step_s)
 
 
 def _analyse(samples, params, scopes, source):
@@ -455,22 +472,23 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     if params.resample_reference_hz:
         ref_aligned = resample_samples(ref_aligned, params.resample_reference_hz)
     tw, tr = cam["t_s"].to_numpy(float), ref_aligned["t_s"].to_numpy(float)
-    overlap = min(tw[-1], tr[-1]) - max(tw[0], tr[0])
-    if overlap <= 0:
+    lo, hi = _common_span(tw, tr)
+    overlap = hi - lo
+    if min(tw[-1], tr[-1]) <= max(tw[0], tr[0]):
         raise AspectusInputError(
             f"after alignment (offset {alignment.offset_s:.3f} s) the recordings do not overlap "
             f"(webcam {tw[0]:.1f}-{tw[-1]:.1f} s, reference {tr[0]:.1f}-{tr[-1]:.1f} s on the clip clock)",
             path=reference, hint="check the offset, the marker or the pairing of files")
     from dataclasses import replace
 
-    from aspectus.validation.windows import MIN_PAIRS, choose_window_s
+    from aspectus.validation.windows import MIN_PAIRS, choose_window_s, overlap_text
 
     choice = choose_window_s(overlap, params.window_length_s, given=params.window_s is not None)
     if params.window_s is None:
         params = replace(params, window_s=choice.window_s, step_s=params.step_s or choice.window_s)
     windows = _common_windows(tw, tr, params.window_length_s, params.window_step_s)
     if len(windows) < MIN_PAIRS:
-        notes.append(f"the recordings overlap for {overlap:.1f} s, giving only {len(windows)} windows of "
+        notes.append(f"the recordings overlap for {overlap_text(overlap)}, giving only {len(windows)} windows of "
                      f"{params.window_length_s:g} s: too few for window-level agreement statistics (at least "
                      f"{MIN_PAIRS}) - use shorter windows (--window-s) or compare several clips together")
     scopes = windows.rename(columns={"start_s": "onset_s", "end_s": "offset_s"})

@@ -23,7 +23,7 @@ import pandas as pd
 from aspectus import __version__
 from aspectus.schema import human_label
 from aspectus.validation.agreement import ICC_FORM_TEXT
-from aspectus.validation.windows import MIN_PAIRS
+from aspectus.validation.windows import MIN_PAIRS, overlap_text
 
 WEBCAM_COLOUR = "#c0392b"
 REFERENCE_COLOUR = "#1f5f8b"
@@ -471,7 +471,7 @@ def render_pair_report(result, pngs: dict[str, bytes]) -> str:
         ("webcam rate", f"{_fmt(m['webcam_rate_hz'], 1)} Hz"),
         ("lab tracker measured at", m["reference_measured_at"]),
         ("detector, both sides", p["analysis"].get("detector")),
-        ("time both recorded", f"{m['overlap_s']:.1f} s (after alignment)"),
+        ("time both recorded", f"{overlap_text(m['overlap_s'])} (after alignment)"),
         ("windows", f"{m['windows']} of {p['window_s']:g} s, one every {p['step_s']:g} s"),
         ("task segments", m["segments"]), ("ICC reported", m["icc_form"]),
         ("aspectus", m["aspectus"]))))

@@ -32,6 +32,16 @@ class WindowChoice:
     reason: str
 
 
+def overlap_text(overlap_s: float) -> str:
+    """How long two recordings overlap, in words: truncated to 0.01 s, never rounded up, so that "20.0 s" does
+    not stand beside the 9 windows of 2 s that 19.97 s holds.
+
+    >>> overlap_text(19.9667)
+    '19.96 s'
+    """
+    return f"{math.floor(float(overlap_s) * 100.0 + 1e-6) / 100.0:.2f} s"
+
+
 def n_windows(overlap_s: float, window_s: float, step_s: float | None = None) -> int:
     """Complete windows of ``window_s`` (start-to-start ``step_s``) in ``overlap_s`` seconds."""
     step_s = window_s if step_s is None else step_s
@@ -54,17 +64,17 @@ def choose_window_s(overlap_s: float, preferred_s: float, *, given: bool = False
             f"; fewer than the {min_pairs} windows agreement statistics need - shorter windows or longer recordings "
             "give more")
         return WindowChoice(float(preferred_s), n_pref, False,
-                            f"Windows of {preferred_s:g} s as set; the recordings overlap for {overlap_s:.1f} s, "
+                            f"Windows of {preferred_s:g} s as set; the recordings overlap for {overlap_text(overlap_s)}, "
                             f"which gives {n_pref} window(s){enough}.")
     if n_pref >= min_pairs:
         return WindowChoice(float(preferred_s), n_pref, False,
                             f"Windows of {preferred_s:g} s (the feature window length); the recordings overlap for "
-                            f"{overlap_s:.1f} s, which gives {n_pref} windows.")
+                            f"{overlap_text(overlap_s)}, which gives {n_pref} windows.")
     for w in CANDIDATE_WINDOWS_S:
         if w < preferred_s and w >= SHORTEST_WINDOW_S and n_windows(overlap_s, w) >= min_pairs:
             return WindowChoice(w, n_windows(overlap_s, w), True,
                                 f"Windows of {w:g} s, chosen from the overlap: the recordings overlap for "
-                                f"{overlap_s:.1f} s, and the feature window length of {preferred_s:g} s would give "
+                                f"{overlap_text(overlap_s)}, and the feature window length of {preferred_s:g} s would give "
                                 f"only {n_pref} window(s), fewer than the {min_pairs} agreement statistics need; "
                                 f"{w:g} s is the longest of {', '.join(f'{c:g}' for c in CANDIDATE_WINDOWS_S)} s "
                                 f"that gives at least {min_pairs} ({n_windows(overlap_s, w)}). Set another length "
@@ -72,6 +82,6 @@ def choose_window_s(overlap_s: float, preferred_s: float, *, given: bool = False
     w = min(float(preferred_s), SHORTEST_WINDOW_S)
     n = n_windows(overlap_s, w)
     return WindowChoice(w, n, w != preferred_s,
-                        f"Windows of {w:g} s, the shortest used: the recordings overlap for {overlap_s:.1f} s, which "
+                        f"Windows of {w:g} s, the shortest used: the recordings overlap for {overlap_text(overlap_s)}, which "
                         f"gives only {n} window(s) - too few for agreement statistics (at least {min_pairs}). Longer "
                         "recordings, or several clips compared together (Compare all clips / a study), give more.")

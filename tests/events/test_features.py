@@ -93,6 +93,18 @@ def test_degenerate_windows_warn_and_give_nan():
     assert f.loc["inside", "valid_frac"] == 1.0
 
 
+def test_a_segment_beyond_the_recording_is_named_with_what_to_check():
+    # e.g. another clip's segments file: 'questions' starts after this 12-s recording has ended
+    t = np.arange(360) / 30.0
+    df = pd.DataFrame({"t_s": t, "valid": True, "yaw_deg": 0.0, "pitch_deg": 0.0})
+    segs = pd.DataFrame({"label": ["passage_1", "questions"], "onset_s": [0.0, 15.0], "offset_s": [8.0, 20.0]})
+    with pytest.warns(DegenerateWindowWarning) as rec:
+        run_analysis(df, AnalysisParams(detector="idt", window_s=10.0, step_s=10.0), segments=segs)
+    msg = str(rec[0].message)
+    assert "1 of 4" in msg and "segment 'questions' (15 to 20 s) lies outside the recording (-0.02 to 11.98 s)" in msg
+    assert "passage_1" not in msg and "segments file belongs to this recording" in msg
+
+
 def test_fixed_windows():
     w = fixed_windows(0.0, 10.0, window_s=4.0, step_s=2.0)
     assert w["start_s"].tolist() == [0.0, 2.0, 4.0, 6.0] and w["end_s"].tolist() == [4.0, 6.0, 8.0, 10.0]

@@ -276,7 +276,10 @@ def test_purge_asks_and_refuses_without_a_terminal(processed, tmp_path, capsys, 
     out = _copy(processed, tmp_path / "out")
     monkeypatch.setattr(sys, "stdin", io.StringIO("yes\n"))  # not a terminal: never taken as an answer
     assert main(["purge", str(out)]) == 2
-    assert "needs confirmation" in capsys.readouterr().err
+    cap = capsys.readouterr()
+    assert "needs confirmation" in cap.err
+    # nothing is deleted, so the list says what would go, not "delete"
+    assert "would delete" in cap.out and "  delete " not in cap.out
     assert (out / "linden_brook_p01_s01" / "samples.parquet").is_file()
 
 

@@ -67,6 +67,29 @@ def test_mm_units_and_origins_agree(tmp_path):
     assert a["pitch_deg"].iloc[1] > 0  # 100 mm above centre is looking up
 
 
+def test_pixels_read_as_mm_are_an_error_not_a_silent_wrong_angle(tmp_path):
+    # px of a 1920 px screen, near its centre, all inside the generous per-row range for mm (-2 to 3 screens):
+    # read as mm on a 531 mm screen their median lies 609 mm from its centre, more than half a screen off it
+    rows = "".join(f"{k * 4},{874.5 + (k % 5) * 20},{515 + (k % 3) * 10}\n" for k in range(50))
+    p = _write(tmp_path, "t,gx,gy\n" + rows)
+    ok = read_gaze_table(p, TableMapping(time_col="t", time_unit="ms", x_col="gx", y_col="gy", units="px",
+                                         screen=SCREEN))
+    assert ok["valid"].all() and abs(ok["yaw_deg"].median()) < 5  # as px: near the screen's centre
+    with pytest.raises(ReferenceFormatError) as ei:
+        read_gaze_table(p, TableMapping(time_col="t", time_unit="ms", x_col="gx", y_col="gy", units="mm",
+                                        screen=SCREEN))
+    msg = str(ei.value)
+    assert str(p) in msg and "'gx'" in msg and "off the screen" in msg and "perhaps px" in msg
+    # measured from the centre, the same mm are off the screen too; small mm offsets from the centre are not
+    with pytest.raises(ReferenceFormatError, match="off the screen"):
+        read_gaze_table(p, TableMapping(time_col="t", time_unit="ms", x_col="gx", y_col="gy", units="mm",
+                                        screen=SCREEN, origin="center"))
+    q = _write(tmp_path, "t,gx,gy\n" + "".join(f"{k * 4},{(k % 5) * 20 - 40},{(k % 3) * 10}\n" for k in range(50)),
+               "centre.csv")
+    assert read_gaze_table(q, TableMapping(time_col="t", time_unit="ms", x_col="gx", y_col="gy", units="mm",
+                                           screen=SCREEN, origin="center"))["valid"].all()
+
+
 def test_gzip_table_and_event_column(tmp_path):
     p = tmp_path / "g.csv.gz"
     body = "time,x,y,ev\n" + "".join(f"{i * 10},{i % 3},{0},{'F' if i < 5 else 'S'}\n" for i in range(8))
@@ -102,6 +125,8 @@ def test_mapping_round_trip(tmp_path):
     ("t,x,y\n0,1,1\n,2,2\n", dict(time_col="t"), "row 3", "time column"),
     ("t,x,y\n0,n/a,n/a\n1,,\n", dict(time_col="t"), None, "no valid gaze sample"),
     ("t,x,y\n0,960,540\n1,1200,600\n", dict(time_col="t"), "row 2", "not a plausible position in deg"),
+    # a semicolon file read with the comma of a saved mapping: the header is one column, and it says so
+    ("t;x;y\n0;1;1\n1;2;2\n", dict(time_col="t", delimiter=","), None, "another delimiter than the one set"),
 ])
 def test_bad_tables_name_file_and_row(tmp_path, text, mapping, where, words):
     p = _write(tmp_path, text)

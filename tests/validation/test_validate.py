@@ -197,6 +197,8 @@ def test_cli_pair_and_errors(session, tmp_path, capsys):
     assert rc == 0
     line = capsys.readouterr().out
     assert "offset -1.25" in line and "kappa" in line
+    # 8 windows of 5 s: the terminal, like the report and the app, shows no r or ICC below MIN_PAIRS
+    assert "8 windows, too few for r and ICC (at least 10)" in line and "ICC 0." not in line and "ICC -" not in line
     assert (out / "agreement.csv").exists() and (out / "report.html").exists()
     rc = main(["validate", str(session["cam"]), str(session["ref"]["table"]), "-o", str(out / "x"),
                "--time-col", "time_ms", "--time-unit", "ms", "--x-col", "gaze_x_px", "--y-col", "gaze_y_px",
@@ -255,3 +257,36 @@ def test_study_report_carries_the_known_target_check(session, tmp_path):
     validate_study(one, root / "study1", params=_params(), figures=False)
     assert not any(c.startswith("target_") for c in pd.read_csv(root / "study1" / "participants.csv").columns)
     assert "known-target" not in (root / "study1" / "report.html").read_text()
+
+
+def test_the_overlap_counts_the_time_each_sample_stands_for_and_never_reads_as_more_windows():
+    # the demo clip: 600 frames at 30 Hz cover 20 s (each frame half an interval either side, as the clip's
+    # own feature windows count them), so 2-s windows give 10, not the 9 that 19.97 s from the first frame to
+    # the last held; a 250 Hz reference that starts 1.25 s earlier and ends later does not shorten it
+    from aspectus.validation.pair import _common_span, _common_windows
+    from aspectus.validation.windows import choose_window_s, n_windows, overlap_text
+
+    tw = np.arange(600) / 30.0
+    tr = np.arange(0, 22.5, 1 / 250.0) - 1.25
+    lo, hi = _common_span(tw, tr)
+    assert lo == pytest.approx(-1 / 60, abs=1e-12) and hi == pytest.approx(20 - 1 / 60, abs=1e-12)
+    assert n_windows(hi - lo, 2.0) == 10 and len(_common_windows(tw, tr, 2.0, 2.0)) == 10
+    assert len(_common_windows(tw, tr, 5.0, 5.0)) == 4
+    assert overlap_text(hi - lo) == "20.00 s"
+    # in words the overlap is truncated, never rounded up past what the windows hold
+    assert overlap_text(599 / 30) == "19.96 s"
+    for given in (True, False):
+        c = choose_window_s(599 / 30, 2.0, given=given)
+        assert c.windows == 9
+        assert "19.96 s" in c.reason and "20.0 s" not in c.reason
+
+
+def test_compared_rates_share_the_features_tables_unit():
+    # README "The features table": rates are per minute (fixation_rate_per_s stays only for files written
+    # before); a report that put 'Fixation rate (1/s)' beside 'Blink rate (1/min)' read as two kinds of rate
+    from aspectus.schema import FEATURE_COLUMNS
+    from aspectus.validation.pair import DEFAULT_FEATURES
+
+    rates = [f for f in DEFAULT_FEATURES if "_rate_" in f]
+    assert rates and all(f.endswith("_per_min") for f in rates), rates
+    assert set(DEFAULT_FEATURES) <= {c.name for c in FEATURE_COLUMNS}
