@@ -36,10 +36,16 @@ def register(sub) -> None:
                         description="Process the clip (or reuse its outputs), find the sequence (the flash in the "
                         "picture, else by matching the gaze to the dots' path), fit offset and gain and write "
                         "target_check.json and target_check_targets.csv into the clip's output folder "
-                        "OUTDIR/<clip stem>/.")
+                        "OUTDIR/<clip key>/: the folder 'aspectus batch' made for the clip when a batch ran into "
+                        "OUTDIR (e.g. OUTDIR/classA__p01 for classA/p01.mp4 beside classB/p01.mp4), the key the "
+                        "batch would give it within --study, else OUTDIR/<clip stem>.")
     c.add_argument("clip", metavar="CLIP")
     c.add_argument("--schedule", required=True, help="the schedule.json that was shown")
     c.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output root (as for aspectus process)")
+    c.add_argument("--study", default=None, metavar="FOLDER_OR_MANIFEST",
+                   help="the study the clip belongs to, as given to 'aspectus batch': the check goes into the "
+                   "folder the batch names for the clip (needed before the batch has run when two clips of the "
+                   "study share a file name)")
     c.add_argument("--align", default="auto", choices=("auto", "flash", "xcorr", "given"),
                    help="how to find the sequence (default auto: the flash, else cross-correlation)")
     c.add_argument("--start-s", type=float, default=None, help="clip time of the flash with --align given, s")
@@ -91,13 +97,21 @@ def run_check_cmd(args) -> int:
 
     from aspectus.targets.analysis import CheckParams
     from aspectus.targets.check import read_check, run_check, summary_lines
-    from aspectus.webcam.pipeline import clip_output_dir
+    from aspectus.errors import AspectusInputError
+    from aspectus.studies.clips import clip_output_dir, output_folder_holds_another_clip
 
     params = CheckParams(align=args.align, start_s=args.start_s, search_from_s=args.search_from_s)
     from aspectus.cli.outdir import prepare_out_dir
 
     clip = Path(args.clip)
-    out_dir = clip_output_dir(prepare_out_dir(args.out, create=False), clip)
+    if not clip.is_file():
+        raise AspectusInputError("no such clip file", path=clip, hint="give the recorded clip with the sequence in it")
+    out_dir = clip_output_dir(prepare_out_dir(args.out, create=False), clip, study=args.study)
+    clash = output_folder_holds_another_clip(out_dir, clip)
+    if clash:
+        raise AspectusInputError(clash, path=clip,
+                                 hint="give the study the clip belongs to (--study FOLDER_OR_MANIFEST, as for "
+                                 "'aspectus batch') so that it gets its own folder, or another OUTDIR")
     bar = None
     if not args.quiet:
         from aspectus.progress import ProgressBar

@@ -27,6 +27,13 @@ by ``__`` (``classA/p01.mp4`` -> ``classA__p01``); if that still collides
 (``p01.mp4`` and ``p01.mov`` side by side) the extension is kept
 (``p01_mp4``). The rule depends only on the set of clips, so the same study
 always maps to the same folders.
+
+A command that works on one clip of a study (``aspectus targets check``) names
+its folder through :func:`clip_output_dir`: the key a batch run into the same
+output folder gave the clip (its ``status.csv``), or :func:`assign_keys` applied
+to the study the user names, else the file stem (as ``aspectus process`` and
+the app, whose clips have unique stems, name it) - so a clip's check lands
+beside the results the batch made for it.
 """
 from __future__ import annotations
 
@@ -326,3 +333,114 @@ def load_jobs(source, *, extensions=VIDEO_EXTENSIONS, recursive: bool = True, ex
                                     hint="use 'aspectus process' for one clip, or give its folder")
         return read_manifest(p)
     raise AspectusInputError("not found", path=p, hint="give a folder of clips or a manifest CSV")
+
+
+#: the batch's per-clip record in its output folder (clip as given, key) and its sidecar (the study's source)
+BATCH_STATUS = "status.csv"
+BATCH_SIDECAR = "study.json"
+
+
+def _same_file(a: Path, b: Path) -> bool:
+    try:
+        return a.resolve() == b.resolve() or (a.exists() and b.exists() and os.path.samefile(a, b))
+    except OSError:
+        return False
+
+
+def _key_from_batch_record(out_root: Path, clip: Path) -> str | None:
+    """The key a batch run into ``out_root`` gave ``clip`` (from its ``status.csv`` and the source named in
+    ``study.json``), or None when ``out_root`` holds no batch record naming this clip."""
+    import json
+
+    try:
+        side = json.loads((out_root / BATCH_SIDECAR).read_text(encoding="utf-8"))
+        with open(out_root / BATCH_STATUS, newline="", encoding="utf-8") as fh:
+            recs = list(csv.DictReader(fh))
+    except (OSError, ValueError, csv.Error):
+        return None
+    source = side.get("source") if isinstance(side, dict) else None
+    if not source:
+        return None
+    src = Path(source) if Path(source).is_absolute() else out_root / source
+    base = src if src.is_dir() else src.parent
+    for r in recs:
+        rel, key = (r.get("clip") or "").strip(), (r.get("key") or "").strip()
+        if rel and key and _same_file(Path(rel) if Path(rel).is_absolute() else base / rel, clip):
+            return key
+    return None
+
+
+def clip_output_key(clip, out_root=None, *, study=None) -> str:
+    """The name of ``clip``'s output folder under ``out_root``: the batch's key for it (:func:`assign_keys`).
+
+    Parameters
+    ----------
+    clip : path-like
+        The clip.
+    out_root : path-like, optional
+        The output root. When a batch ran into it (its ``status.csv`` and
+        ``study.json``) and that batch covered ``clip``, its key is used.
+    study : path-like or list of path-like, optional
+        The study the clip belongs to: the folder or manifest given to
+        ``aspectus batch``, or the study's clip paths. The keys are assigned
+        to the whole study, as the batch does; this wins over the batch
+        record.
+
+    Returns
+    -------
+    str
+        Without a study and without a batch record naming the clip: the
+        clip's file stem, as ``aspectus process`` and the app name a
+        clip's folder (their clips have unique stems).
+
+    Raises
+    ------
+    AspectusInputError
+        ``study`` is given but does not contain ``clip``.
+    """
+    clip = Path(clip)
+    if study is not None:
+        if isinstance(study, (str, os.PathLike)):
+            jobs = load_jobs(study, exclude=[out_root] if out_root is not None else ())
+        else:
+            jobs = assign_keys([ClipJob(clip=Path(p), rel=Path(p).name) for p in study])
+        for j in jobs:
+            if _same_file(j.clip, clip):
+                return j.key
+        raise AspectusInputError("the clip is not one of the study's clips", path=clip,
+                                 hint=f"give the folder or manifest the clip belongs to (looked in {study})"
+                                 if isinstance(study, (str, os.PathLike)) else "add the clip to the study first")
+    if out_root is not None:
+        key = _key_from_batch_record(Path(out_root), clip)
+        if key:
+            return key
+    from aspectus.webcam.pipeline import clip_output_dir as one_clip_dir
+
+    return one_clip_dir("", clip).name  # what ``aspectus process`` names a lone clip's folder
+
+
+def clip_output_dir(out_root, clip, *, study=None) -> Path:
+    """``out_root / clip_output_key(clip, out_root, study=study)``: where ``clip``'s outputs are (see
+    :func:`clip_output_key`)."""
+    return Path(out_root) / clip_output_key(clip, out_root, study=study)
+
+
+def output_folder_holds_another_clip(out_dir, clip) -> str | None:
+    """A sentence when ``out_dir`` holds the results of a clip other than ``clip`` (its ``run.json`` names
+    another file and another SHA-256), else None - so that a command never overwrites another clip's results."""
+    from aspectus.atomic import sha256_file
+    from aspectus.run_record import read_run_json
+
+    run = read_run_json(out_dir)
+    if not run or not run.get("input_sha256"):
+        return None
+    rec = run.get("clip")
+    if isinstance(rec, str) and rec and _same_file(Path(out_dir) / rec, Path(clip)):
+        return None
+    try:
+        if sha256_file(clip) == run["input_sha256"]:
+            return None
+    except OSError:
+        return None
+    return (f"{out_dir} holds the results of another clip ({run.get('clip_name') or rec or 'unknown'}, "
+            "another SHA-256)")
