@@ -291,12 +291,19 @@ def plain_reading(result) -> str:
                      "so none are given; use shorter windows or compare several clips together.")
     elif "fixation_count" in w.index and np.isfinite(w.loc["fixation_count", "pearson_r"]):
         r = w.loc["fixation_count"]
+        form = str(r.get("icc_form", "ICC(2,1)"))  # the form the user chose (--icc-form), named as computed
+        kind = "absolute agreement" if form.startswith("ICC(2") else (
+            "consistency" if form.startswith("ICC(3") else "agreement")
+        bias = _fmt(abs(r["ba_bias"]), 1)
+        same = bias == _fmt(0.0, 1)
         parts.append(
             f"Across {int(r['n'])} windows, the webcam's fixation counts showed {_verbal_r(r['pearson_r'])} "
             f"correlation with the lab tracker's (r = {_fmt(r['pearson_r'])}, 95 % CI {_fmt(r['pearson_ci_low'])} to "
-            f"{_fmt(r['pearson_ci_high'])}); absolute agreement ICC(2,1) = {_fmt(r['icc'])}. On average the webcam "
-            f"counted {_fmt(abs(r['ba_bias']), 1)} {'more' if r['ba_bias'] > 0 else 'fewer'} fixations per window, "
-            f"and for 95 % of windows the difference would be expected between {_fmt(r['ba_loa_low'], 1)} and "
+            f"{_fmt(r['pearson_ci_high'])}); {kind} {form} = {_fmt(r['icc'])}. "
+            + ("On average the webcam counted as many fixations per window as the lab tracker" if same else
+               f"On average the webcam counted {bias} {'more' if r['ba_bias'] > 0 else 'fewer'} fixations per "
+               "window")
+            + f", and for 95 % of windows the difference would be expected between {_fmt(r['ba_loa_low'], 1)} and "
             f"{_fmt(r['ba_loa_high'], 1)}.")
     elif len(w):
         parts.append("Window-level agreement of fixation counts could not be estimated (too few usable windows).")

@@ -290,3 +290,14 @@ def test_compared_rates_share_the_features_tables_unit():
     rates = [f for f in DEFAULT_FEATURES if "_rate_" in f]
     assert rates and all(f.endswith("_per_min") for f in rates), rates
     assert set(DEFAULT_FEATURES) <= {c.name for c in FEATURE_COLUMNS}
+
+
+def test_the_reading_names_the_icc_form_that_was_computed(session, tmp_path):
+    # --icc-form 3,1 (consistency): the plain-language reading said "absolute agreement ICC(2,1)" beside it
+    r = validate_pair(session["cam"], session["ref"]["physio"], tmp_path / "v", params=_params(window_s=2.0,
+                      icc_form="3,1"), figures=False)
+    fc = r.agreement[(r.agreement["scope"] == "window") & (r.agreement["feature"] == "fixation_count")].iloc[0]
+    assert fc["n"] >= 10 and fc["icc_form"] == "ICC(3,1)"
+    assert f"consistency ICC(3,1) = {fc['icc']:.2f}" in r.reading and "ICC(2,1)" not in r.reading
+    bias = f"{abs(fc['ba_bias']):.1f}"
+    assert (f"counted {bias} " in r.reading) != (bias == "0.0")  # a zero bias reads "as many", not "0.0 fewer"
