@@ -354,7 +354,7 @@ def _prepare(source, out_dir: Path, *, params, extensions, recursive, label_patt
         st = job.clip.stat()
         row.stat = (int(st.st_size), int(st.st_mtime_ns))
         if st.st_size == 0:
-            row.status, row.reason = "failed", "clip file is empty (0 bytes)"
+            row.status, row.reason = "failed", "clip file is empty (0 bytes) - the recording was not saved; re-export it"
             continue
         clip_out = out_dir / job.key
         run = read_run_json(clip_out)

@@ -333,6 +333,17 @@ def test_second_run_on_same_outdir_is_refused(tmp_path):
     assert not t.is_alive()
 
 
+def test_an_empty_clip_fails_with_what_to_do(tmp_path):
+    # as `aspectus process` says it (webcam.video): not only what is wrong but what to do
+    src = _clips(tmp_path / "clips", {"p01.mp4": b"a", "p02.mp4": b""})
+    out = tmp_path / "out"
+    _run(src, out, workers=1)
+    st = pd.read_csv(out / "status.csv").set_index("key")
+    assert st.loc["p01", "status"] == "done"
+    assert st.loc["p02", "status"] == "failed" and st.loc["p02", "reason"] == (
+        "clip file is empty (0 bytes) - the recording was not saved; re-export it")
+
+
 def test_dry_run_plan(tmp_path):
     src = _clips(tmp_path / "clips", {"p01.mp4": b"a", "p02.mp4": b"b"})
     out = tmp_path / "out"
