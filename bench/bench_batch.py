@@ -67,6 +67,8 @@ def main(argv=None) -> int:
     w, h = (int(v) for v in args.size.lower().split("x"))
     print(f"machine: {machine()}")
     times: dict[tuple[str, int], float] = {}
+    cpu_ms: dict[tuple[str, int], float] = {}
+    loads: dict[tuple[str, int], tuple[float, float]] = {}
     with tempfile.TemporaryDirectory() as d:
         d = Path(d)
         seg = render_test_clip(d / "render" / "reading.mp4", duration_s=min(12.0, args.seconds), size_px=(w, h))
@@ -104,15 +106,23 @@ def main(argv=None) -> int:
                 same = "" if (engine, n) == ("local", args.workers[0]) else (
                     "; outputs identical to the local pool's" if _outputs_equal(out, d / f"out_local_{args.workers[0]}", keys)
                     else "; OUTPUTS DIFFER from the local pool's")
+                cpu_ms[engine, n] = 1e3 * cpu / frames
+                loads[engine, n] = (load0, os.getloadavg()[0])
                 print(f"{engine}, {n} worker(s): {times[engine, n]:7.1f} s for {args.clips} clips ({frames} frames, "
                       f"{w}x{h}), {frames / times[engine, n]:6.1f} frames/s; {1e3 * cpu / frames:.2f} CPU ms/frame, "
-                      f"{cpu / times[engine, n]:.2f} cores busy (load average before: {load0:.1f}){same}", flush=True)
+                      f"{cpu / times[engine, n]:.2f} cores busy (load average {load0:.1f} -> {loads[engine, n][1]:.1f})"
+                      f"{same}", flush=True)
     base = min(args.workers)
     for engine in engines:
         for n in args.workers:
             if n != base:
+                la = ", ".join(f"{k} worker(s) {a:.1f} -> {b:.1f}" for k, (a, b) in
+                               ((k, loads[engine, k]) for k in (base, n)))
                 print(f"{engine}: speed-up {n} vs {base} worker(s): {times[engine, base] / times[engine, n]:.2f}x "
-                      "(wall clock; target >= 1.8x for 2 vs 1 on 2 free cores)")
+                      f"wall clock, measured at load average {la} on {os.cpu_count()} CPUs (other processes take "
+                      "cores from the workers: not a fair figure unless the load average stays well under the "
+                      f"CPU count); from the CPU per frame, {n} workers on {n} free cores would give at most "
+                      f"{n * cpu_ms[engine, base] / cpu_ms[engine, n]:.2f}x (target >= 1.8x for 2 vs 1)")
     return 0
 
 
