@@ -18,7 +18,7 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 VIEWS = ("clip_and_trace", "features", "validation", "column_mapping", "target_sequence", "parameters",
-         "user_guide")
+         "user_guide", "target_check_running", "target_check")
 
 
 def _wait(app, cond, timeout_s: float, what: str) -> None:
@@ -37,6 +37,22 @@ def _settle(app, seconds: float = 0.4) -> None:
     while time.monotonic() - t0 < seconds:
         app.processEvents()
         time.sleep(0.01)
+
+
+def _target_clip(folder: Path) -> tuple[Path, Path]:
+    """A short clip with the known-target sequence in it (rendered once, kept for next time) and its schedule."""
+    clip, sched_path = folder / "student_targets.mp4", folder / "schedule.json"
+    if not clip.is_file() or not sched_path.is_file():
+        from aspectus.synth.target_gaze import render_target_clip
+        from aspectus.targets.schedule import Screen, make_schedule
+
+        folder.mkdir(parents=True, exist_ok=True)
+        sched = make_schedule(Screen(1280, 720, 344.0, 193.5, 600.0), seed=5, fixation_s=1.2, n_fixations=9,
+                              pursuit_sweeps=1)
+        sched.write(sched_path)
+        render_target_clip(clip, sched, lead_in_s=1.0, tail_s=0.5, gain=(1.0, 1.0), offset_deg=(2.0, -2.0),
+                           size_px=(640, 480), fov_deg=45.0, seed=3)
+    return clip, sched_path
 
 
 def main(argv=None) -> int:
@@ -138,6 +154,32 @@ def main(argv=None) -> int:
     _settle(app)
     grab(guide, "user_guide")
     guide.close()
+
+    # the known-target check run from the clip view, on a rendered clip whose eyes follow the dots
+    clip, sched = _target_clip(out / "target_check")
+    loaded = []
+    win.clip_loaded.connect(loaded.append)
+    win.add_paths([str(clip)])
+    win.select_clip(clip.stem)
+    win.tabs.setCurrentIndex(0)
+    _wait(app, lambda: clip.stem in loaded, 60, "the clip's data")
+    _wait(app, lambda: win.clip_view.shown_image() is not None, 60, "a video frame")
+    shots, finished = [], []
+    win.target_check_finished.connect(finished.append)
+
+    def on_progress(key, frac, message):
+        if frac >= 0.3 and not shots:
+            shots.append(frac)
+            _settle(app, 0.2)
+            grab(win, "target_check_running")
+
+    win._check_progress.connect(on_progress)
+    win.check_targets(schedule=sched)
+    _wait(app, lambda: bool(finished), 600, "the target check")
+    _wait(app, lambda: win.time_view.n_fixation_bands > 0, 60, "the checked clip's gaze trace")
+    _wait(app, win.time_view.is_current, 60, "the trace drawing")
+    _settle(app)
+    grab(win, "target_check")
     win.flush_saves()
     win.shutdown()
     for pth in written:

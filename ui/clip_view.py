@@ -17,8 +17,8 @@ import numpy as np
 import pandas as pd
 from PySide6.QtCore import QObject, Qt, QTimer, Signal
 from PySide6.QtGui import QImage, QPixmap
-from PySide6.QtWidgets import (QCheckBox, QGridLayout, QHBoxLayout, QLabel, QSizePolicy, QSlider, QStyle,
-                               QToolButton, QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QCheckBox, QGridLayout, QHBoxLayout, QLabel, QProgressBar, QPushButton, QSizePolicy,
+                               QSlider, QStyle, QToolButton, QVBoxLayout, QWidget)
 
 from aspectus.webcam import overlay
 
@@ -182,6 +182,8 @@ class ClipView(QWidget):
 
     position_changed = Signal(float)
     frame_shown = Signal(float)
+    check_requested = Signal()  # "Check against target sequence…" pressed
+    check_cancel_requested = Signal()
 
     def __init__(self, parent=None):
         super().__init__(parent)
@@ -198,6 +200,8 @@ class ClipView(QWidget):
         self._playing = False
         self._frame_dt = 1 / 30
         self._slider_scale = 1000  # slider steps per second
+        self._check_available = False
+        self._check_running = False
 
         self.loader = FrameLoader(self)
         self.loader.frame_ready.connect(self._on_frame)
@@ -256,6 +260,31 @@ class ClipView(QWidget):
         self.targets_info = QLabel()  # the known-target check's figures, when the clip has one
         self.targets_info.setWordWrap(True)
         self.targets_info.hide()
+        # running the known-target check on this clip (the window runs it; see MainWindow.check_targets)
+        self.check_btn = QPushButton("Check against target sequence…")
+        self.check_btn.setToolTip("Measure this clip's gaze quality on the known-target sequence recorded in it: "
+                                  "pick the schedule.json that was shown (made with the Target sequence button)")
+        self.check_btn.setEnabled(False)
+        self.check_btn.clicked.connect(self.check_requested)
+        self.check_bar = QProgressBar()
+        self.check_bar.setRange(0, 1000)
+        self.check_bar.setTextVisible(True)
+        self.check_bar.setFormat("%p%")
+        self.check_bar.setMaximumWidth(220)
+        self.check_bar.hide()
+        self.check_cancel_btn = QPushButton("Cancel")
+        self.check_cancel_btn.setToolTip("Stop the check; nothing of it is written")
+        self.check_cancel_btn.clicked.connect(self.check_cancel_requested)
+        self.check_cancel_btn.hide()
+        self.check_status = QLabel()
+        self.check_status.setWordWrap(True)
+        self.check_status.setTextInteractionFlags(Qt.TextSelectableByMouse)
+        check_row = QHBoxLayout()
+        check_row.setContentsMargins(0, 0, 0, 0)
+        check_row.addWidget(self.check_btn)
+        check_row.addWidget(self.check_bar)
+        check_row.addWidget(self.check_cancel_btn)
+        check_row.addWidget(self.check_status, 1)
         grid = QGridLayout()
         grid.setContentsMargins(0, 0, 0, 0)
         for i, (name, lab, tip) in enumerate((
@@ -279,12 +308,33 @@ class ClipView(QWidget):
         lay.addLayout(grid)
         lay.addWidget(self.verdict)
         lay.addWidget(self.targets_info)
+        lay.addLayout(check_row)
 
         self._timer = QTimer(self)
         self._timer.timeout.connect(self._tick)
         self.set_summary({})
 
     # ----------------------------------------------------------------- API
+    def set_check_state(self, *, available: bool | None = None, running: bool | None = None,
+                        fraction: float | None = None, message: str | None = None, error: bool = False) -> None:
+        """The known-target check's controls: button enabled (``available``), progress bar and Cancel while
+        ``running``, the bar at ``fraction``, a plain ``message`` (red when ``error``)."""
+        if available is not None:
+            self._check_available = bool(available)
+        if running is not None:
+            self._check_running = bool(running)
+            self.check_bar.setVisible(running)
+            self.check_cancel_btn.setVisible(running)
+            self.check_cancel_btn.setEnabled(running)
+            if running:
+                self.check_bar.setValue(0)
+        self.check_btn.setEnabled(self._check_available and not self._check_running)
+        if fraction is not None:
+            self.check_bar.setValue(int(1000 * min(1.0, max(0.0, fraction))))
+        if message is not None:
+            self.check_status.setText(message)
+            self.check_status.setStyleSheet("color: #b00020;" if error else "color: #555;")
+
     def set_clip(self, clip_path, *, samples: pd.DataFrame | None = None, summary: dict | None = None,
                  fov_deg: float = 60.0, position_s: float = 0.0) -> None:
         """Show a clip; ``samples`` (the cached samples table) supplies frame times, gaze and head position."""

@@ -19,9 +19,11 @@ student.</li>
 <li>Record at 30 frames per second or more, face well lit, the whole face in the picture.</li>
 <li>To measure each student's gaze quality without a lab tracker, press <b>Target sequence&hellip;</b> (beside
 <b>Process clips</b>), give the classroom screen's size and the viewing distance, and show the page it writes
-(<i>targets.html</i>, full screen, space bar) at the start of each recording. After processing, the command
-<i>aspectus targets check</i> measures accuracy, precision and data loss on it; the clip view then shows
-these figures.</li>
+(<i>targets.html</i>, full screen, space bar) at the start of each recording. Then select the clip and press
+<b>Check against target sequence&hellip;</b> under the video (or right-click the clip) and pick the
+<i>schedule.json</i> the page was made with: the check measures accuracy, precision and data loss on the
+sequence (processing the clip first if needed; <b>Cancel</b> beside its progress bar stops it and writes
+nothing), and the clip view shows these figures.</li>
 </ul>
 
 <h3>2. Make a study</h3>

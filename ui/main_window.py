@@ -84,6 +84,9 @@ class MainWindow(QMainWindow):
     _clip_data = Signal(object)
     _save_failed = Signal(str)
     _status_message = Signal(str)
+    _check_progress = Signal(str, float, str)  # clip stem, fraction, message
+    _check_done = Signal(str, object)  # clip stem, {"doc"|"error"|"cancelled": ...}
+    target_check_finished = Signal(str)  # clip stem (for tests and scripts)
 
     def __init__(self, *, settings: QSettings | None = None, worker_mode: str = "process", parent=None):
         super().__init__(parent)
@@ -170,6 +173,12 @@ class MainWindow(QMainWindow):
         self.clip_view = ClipView()
         self.time_view = TimeView()
         self.clip_view.position_changed.connect(self.time_view.set_cursor)
+        self.clip_view.check_requested.connect(lambda: self.check_targets())
+        self.clip_view.check_cancel_requested.connect(self.cancel_target_check)
+        self._check_cancel = None  # threading.Event of the running known-target check
+        self._check_key: str | None = None
+        self._check_progress.connect(self._on_check_progress)
+        self._check_done.connect(self._on_check_done)
         self.time_view.seek_requested.connect(self._seek_from_trace)
         clip_split = QSplitter(Qt.Vertical)
         clip_split.addWidget(self.clip_view)
@@ -337,6 +346,102 @@ class MainWindow(QMainWindow):
         self._status_message.emit(f"Writing the target video into {out} …")
         threading.Thread(target=work, name="target-video", daemon=True).start()
         return dlg
+
+    # ================================================= known-target check
+    def check_targets(self, schedule=None) -> bool:
+        """Run the known-target check on the current clip in a worker thread (the library's
+        :func:`aspectus.targets.check.run_check`, as ``aspectus targets check`` does), into the clip's result
+        folder. ``schedule`` (the schedule.json that was shown) is asked for when not given. Progress and
+        Cancel are in the clip view; a cancelled check writes nothing."""
+        import threading
+
+        clip = self.current_clip()
+        if self.study is None or clip is None:
+            self.clip_view.set_check_state(message="Select a clip first.", error=True)
+            return False
+        if self._check_cancel is not None:
+            return False
+        if self.run is not None and self.run.is_running():
+            self.clip_view.set_check_state(
+                message="Processing is running: check the clip when it has finished (or cancel the run).",
+                error=True)
+            return False
+        clip_path = self.study.clip_path(clip)
+        if not clip_path.is_file():
+            self.clip_view.set_check_state(message=f"The clip file is missing: {clip_path}. Put it back or "
+                                           "remove the clip from the study.", error=True)
+            return False
+        if schedule is None:
+            start = self.study.output_root() / "target_sequence" if self.study.path else Path.home()
+            schedule, _ = QFileDialog.getOpenFileName(
+                self, f"Schedule of the target sequence shown in {clip.name}", str(start),
+                "Target schedule (*.json);;All files (*)")
+            if not schedule:
+                return False
+        schedule = Path(schedule)
+        out_dir = self.study.clip_out_dir(clip)
+        from .job_runner import _make_params
+
+        params = _make_params(self.study.process, self.study.analysis)
+        cancel = threading.Event()
+        self._check_cancel, self._check_key = cancel, clip.stem
+        self.clip_view.set_check_state(running=True, message=f"Checking {clip.name} against {schedule.name}…")
+        key = clip.stem
+
+        def progress(frac, message):
+            self._check_progress.emit(key, float(frac), str(message))
+
+        def work():
+            from aspectus.errors import Cancelled
+            from aspectus.targets.check import read_check, run_check
+
+            try:
+                run_check(clip_path, schedule, out_dir, process_params=params, progress=progress, cancel=cancel)
+            except Cancelled:
+                self._check_done.emit(key, {"cancelled": True})
+                return
+            except Exception as exc:  # noqa: BLE001 - shown in the clip view as a plain message
+                self._check_done.emit(key, {"error": _check_error_text(exc, clip.name, schedule)})
+                return
+            self._check_done.emit(key, {"doc": read_check(out_dir), "out": out_dir})
+
+        threading.Thread(target=work, name="aspectus-target-check", daemon=True).start()
+        return True
+
+    def cancel_target_check(self) -> None:
+        if self._check_cancel is not None:
+            self._check_cancel.set()
+            self.clip_view.check_cancel_btn.setEnabled(False)
+            self.clip_view.set_check_state(message="Stopping the check…")
+
+    def _on_check_progress(self, key, frac, message):
+        cur = self.current_clip()
+        if cur is not None and cur.stem == key and self._check_cancel is not None:
+            self.clip_view.set_check_state(fraction=frac, message=message)
+
+    def _on_check_done(self, key, res):
+        self._check_cancel, self._check_key = None, None
+        clip = self.study.find(key) if self.study else None
+        if clip is not None:
+            self.study.refresh_status(clip)  # the check processes a clip that had no results yet
+            it = self._item(key)
+            if it is not None:
+                self._update_item(it, clip)
+        cur = self.current_clip()
+        shown = cur is not None and cur.stem == key
+        self.clip_view.set_check_state(running=False)
+        if res.get("cancelled"):
+            msg, err = f"The check of {key} was cancelled; nothing of it was written.", False
+        elif res.get("error"):
+            msg, err = res["error"], True
+        else:
+            msg, err = f"Check of {key} written to {res['out'] / 'target_check.json'}.", False
+            if shown:
+                self._show_clip(cur)
+        if shown:
+            self.clip_view.set_check_state(message=msg, error=err)
+        self._status_message.emit(msg)
+        self.target_check_finished.emit(key)
 
     # ============================================================== study
     def current_clip(self) -> study_mod.StudyClip | None:
@@ -588,6 +693,8 @@ class MainWindow(QMainWindow):
             menu.addAction("Choose reference recording…", self.validation_view.choose_reference_dialog)
             menu.addAction("Choose task segments file…", self.choose_segments_dialog)
             menu.addAction("Open result folder", self.open_clip_folder)
+            act = menu.addAction("Check against target sequence…", lambda: self.check_targets())
+            act.setEnabled(self._check_cancel is None)
             menu.addSeparator()
             menu.addAction("Remove from study", self.remove_selected)
         else:
@@ -603,6 +710,7 @@ class MainWindow(QMainWindow):
         self._load_gen += 1
         if clip is None:
             self.clip_view.set_clip(None)
+            self.clip_view.set_check_state(available=False, message="")
             self.time_view.set_data(None)
             self.clip_message.hide()
             self.params.set_segments_text(None, enabled=False)
@@ -615,6 +723,10 @@ class MainWindow(QMainWindow):
         from aspectus.targets.check import read_check
 
         self.clip_view.set_target_check(read_check(self.study.clip_out_dir(clip)))
+        running = self._check_cancel is not None
+        self.clip_view.set_check_state(available=clip_path.exists(), running=running,
+                                       message=("" if not running else None if self._check_key == clip.stem
+                                                else f"Checking {self._check_key}…"))
         note = None
         if not clip_path.exists():
             note = f"The clip file is missing: {clip_path}"
@@ -1043,3 +1155,16 @@ class MainWindow(QMainWindow):
         self.shutdown()
         super().closeEvent(ev)
 
+
+def _check_error_text(exc: BaseException, clip_name: str, schedule: Path) -> str:
+    """A failed known-target check as a plain message: which file, what was wrong, what to do."""
+    from aspectus.errors import AspectusError
+
+    if isinstance(exc, AspectusError):
+        return f"The check of {clip_name} against {schedule.name} could not be made: {exc}"
+    if isinstance(exc, OSError):
+        where = exc.filename or schedule
+        return (f"The check of {clip_name} could not read or write {where} ({exc.strerror or exc}); "
+                "check that the file exists and the result folder is writable, then try again.")
+    return (f"The check of {clip_name} against {schedule.name} stopped because of an unexpected problem "
+            f"({type(exc).__name__}: {exc}); please report it with this message.")
