@@ -10,7 +10,7 @@ import json
 import os
 from pathlib import Path
 
-__all__ = ["RUN_JSON", "run_json_path", "read_run_json", "missing_output"]
+__all__ = ["RUN_JSON", "run_json_path", "read_run_json", "missing_output", "foreign_files", "refuse_foreign_files"]
 
 #: the sidecar's file name in a clip's output folder
 RUN_JSON = "run.json"
@@ -57,3 +57,42 @@ def missing_output(out_dir, name: str) -> tuple[str, str]:
                 "(aspectus batch counts a purged clip as done and skips it)")
     return (f"{name} is missing, though run.json says the clip was processed",
             "process the clip again to rebuild it (aspectus process CLIP -o OUTDIR)")
+
+
+def foreign_files(out_dir, names) -> list[str]:
+    """Which of the files ``names`` (the ones a run is about to write) already sit in ``out_dir`` although
+    aspectus did not write them there: all present ones when the folder has no ``run.json`` of aspectus,
+    else those its ``run.json`` does not list among its outputs.
+
+    Examples
+    --------
+    >>> foreign_files("no/such/folder", ["samples.csv"])
+    []
+    """
+    out_dir = Path(out_dir)
+    present = [n for n in names if (out_dir / n).exists() or (out_dir / n).is_symlink()]
+    if not present:
+        return []
+    run = read_run_json(out_dir)
+    if run is None or "aspectus" not in run:  # no run.json, or someone else's: nothing here is known to be ours
+        return present
+    own = {RUN_JSON} | set((run.get("outputs") or {}) if isinstance(run.get("outputs"), dict) else ())
+    return [n for n in present if n not in own]
+
+
+def refuse_foreign_files(out_dir, names) -> None:
+    """Raise :class:`aspectus.errors.AspectusInputError` naming the folder when writing ``names`` into it would
+    overwrite files aspectus did not write (:func:`foreign_files`); a user's own files are never replaced."""
+    foreign = foreign_files(out_dir, names)
+    if not foreign:
+        return
+    from aspectus.errors import AspectusInputError
+
+    run = read_run_json(out_dir)
+    why = ("its run.json does not list them" if run is not None and "aspectus" in run
+           else "the folder has no run.json of aspectus")
+    listed = ", ".join(foreign)
+    raise AspectusInputError(
+        f"holds {listed}, which aspectus did not write ({why}); processing would overwrite "
+        f"{'it' if len(foreign) == 1 else 'them'}, so nothing was written", path=out_dir,
+        hint="choose another output folder (-o OUTDIR), or move those files out of this folder and run again")

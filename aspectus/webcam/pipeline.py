@@ -44,7 +44,7 @@ from aspectus import __version__
 from aspectus.atomic import (full_paths_wanted, recorded_path, sha256_file, sha256_json, write_csv, write_json,
                              write_parquet)
 from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
-from aspectus.run_record import read_run_json, run_json_path
+from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import GazeParams, estimate_gaze
 from aspectus.webcam.frame_geometry import RECORD_WIDTH, frame_item, start_geometry
@@ -466,6 +466,10 @@ def _segments_frame(segments):
 _run_json_path = run_json_path
 
 
+#: the files :func:`process_clip` writes into a clip's output folder (the staged swap replaces these)
+CLIP_OUTPUT_FILES = ("samples.parquet", "samples.csv", "events.csv", "events.parquet", "features.csv",
+                     "features.parquet", "run.json")
+
 #: folder inside a clip's output folder where a new result is built before it replaces the old one
 STAGING_DIR = ".next"
 
@@ -579,7 +583,8 @@ def load_samples(out_dir, *, verify: bool = True) -> pd.DataFrame:
     out_dir = Path(out_dir)
     p = out_dir / "samples.parquet"
     if not p.exists():
-        raise CacheError("no samples.parquet here", path=out_dir, hint="run `aspectus process` on the clip first")
+        problem, hint = missing_output(out_dir, "samples.parquet")  # purged, never processed, or lost
+        raise CacheError(problem, path=out_dir, hint=hint)
     run = read_run_json(out_dir)
     if verify and run is not None:
         want = (run.get("outputs") or {}).get("samples.parquet", {}).get("sha256")
@@ -720,6 +725,7 @@ def process_clip(clip_path, out_dir, *, params: ProcessParams | None = None, seg
     reused = False
     input_sha = None
     recover_output_dir(out_dir)  # a run killed earlier: finish or discard its half-installed result
+    refuse_foreign_files(out_dir, CLIP_OUTPUT_FILES)  # never over a user's own files (checked before the work)
     prev = read_run_json(out_dir) if reuse else None
     if prev and prev.get("extraction_sha256") == extraction_sha:  # the samples may be reusable: the hash decides
         input_sha = _clip_sha256(clip)

@@ -325,8 +325,9 @@ def test_purge_deletes_per_frame_data_and_keeps_results(processed, tmp_path, cap
     # still finished for the batch runner (not redone), and a clear message when the samples are wanted
     done, why = clip_is_done(d, input_sha256=run["input_sha256"], params_sha256=run["params_sha256"])
     assert done, why
-    with pytest.raises(CacheError, match="no samples.parquet"):
+    with pytest.raises(CacheError, match="deleted by `aspectus purge`") as err:
         load_samples(d)
+    assert "aspectus process " in str(err.value) and "-o " in str(err.value)  # the command that rebuilds it
     # a second purge finds nothing more
     capsys.readouterr()
     assert main(["purge", str(out), "--yes"]) == 0

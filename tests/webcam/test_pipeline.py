@@ -365,3 +365,43 @@ def test_a_clip_that_cannot_be_read_is_an_input_error(tmp_path):
     with pytest.raises(VideoError, match="p12_s01.mp4.*(cannot be read|not a readable video)"):
         process_clip(clip, tmp_path / "out")
     assert not (tmp_path / "out" / "run.json").exists()
+
+
+def test_cli_refuses_to_overwrite_files_it_did_not_write(clip, tmp_path, capsys):
+    """A clip's output folder holding a user's own samples.csv (no run.json of aspectus): nothing is written
+    over it; one line names the folder, the file and what to do."""
+    from aspectus.cli import main
+
+    out = tmp_path / "X"
+    mine = out / clip.stem / "samples.csv"
+    mine.parent.mkdir(parents=True)
+    mine.write_text("mine\n")
+    rc = main(["process", str(clip), "-o", str(out), "--quiet"])
+    err = capsys.readouterr().err
+    assert rc == 1
+    assert mine.read_text() == "mine\n"
+    assert sorted(p.name for p in mine.parent.iterdir()) == ["samples.csv"]  # no run.json, no staging left
+    line = next(ln for ln in err.splitlines() if "samples.csv" in ln)
+    assert str(mine.parent) in line and "did not write" in line
+    assert "-o OUTDIR" in line and "move those files" in line
+
+
+def test_reprocessing_keeps_a_users_other_files_and_refuses_unlisted_outputs(processed, clip, tmp_path):
+    import shutil
+
+    from aspectus.errors import AspectusInputError
+
+    _, out = processed
+    d = tmp_path / out.name
+    shutil.copytree(out, d)
+    (d / "notes.txt").write_text("lighting was poor\n")  # a name aspectus never writes: kept, not in the way
+    again = process_clip(clip, d, reuse=False)
+    assert not again.reused_samples and (d / "notes.txt").read_text() == "lighting was poor\n"
+    # an output name that aspectus's run.json does not list: someone else's file, never overwritten
+    run = json.loads((d / "run.json").read_text())
+    del run["outputs"]["features.csv"]
+    (d / "run.json").write_text(json.dumps(run))
+    (d / "features.csv").write_text("a,b\n1,2\n")
+    with pytest.raises(AspectusInputError, match=r"features\.csv, which aspectus did not write \(its run\.json"):
+        process_clip(clip, d)
+    assert (d / "features.csv").read_text() == "a,b\n1,2\n"
