@@ -159,7 +159,9 @@ class FrameLoader(QObject):
                     boxes = None
                 self.frame_ready.emit(t, img, lms, boxes)
             except Exception as exc:  # noqa: BLE001 - shown in the view, never a crash
-                self.failed.emit(f"{Path(path).name}: the video cannot be shown ({type(exc).__name__}: {exc})")
+                reason = (getattr(exc, "strerror", None) or next(iter(str(exc).strip().splitlines()), "")
+                          or type(exc).__name__)  # the decoder's words without its error number and path
+                self.failed.emit(f"The video of {Path(path).name} cannot be shown: {reason}.")
                 if container is not None:
                     container.close()
                 container = stream = decoder = None
@@ -202,6 +204,7 @@ class ClipView(QWidget):
         self._slider_scale = 1000  # slider steps per second
         self._check_available = False
         self._check_running = False
+        self._failure: tuple[str, str, str] | None = None  # (headline, why, what to do) of a failed processing
 
         self.loader = FrameLoader(self)
         self.loader.frame_ready.connect(self._on_frame)
@@ -212,6 +215,8 @@ class ClipView(QWidget):
         self.picture.setAlignment(Qt.AlignCenter)
         self.picture.setMinimumSize(320, 180)
         self.picture.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Ignored)
+        self.picture.setWordWrap(True)  # a message in the video pane is read whole, never cut off
+        self.picture.setMargin(16)
         self.picture.setStyleSheet("background: #202020; color: #e0e0e0;")
 
         st = self.style()
@@ -336,13 +341,21 @@ class ClipView(QWidget):
             self.check_status.setStyleSheet("color: #b00020;" if error else "color: #555;")
 
     def set_clip(self, clip_path, *, samples: pd.DataFrame | None = None, summary: dict | None = None,
-                 fov_deg: float = 60.0, position_s: float = 0.0) -> None:
-        """Show a clip; ``samples`` (the cached samples table) supplies frame times, gaze and head position."""
+                 fov_deg: float = 60.0, position_s: float = 0.0, failure: str | None = None) -> None:
+        """Show a clip; ``samples`` (the cached samples table) supplies frame times, gaze and head position;
+        ``failure`` is the message of a processing that failed (shown in plain words: what, why, what to do)."""
         self.pause()
         self._clip_path = Path(clip_path) if clip_path is not None else None
+        if failure:
+            from ui.job_runner import failure_parts
+
+            self._failure = failure_parts(failure, clip_name=self._clip_path.name if self._clip_path else None)
+        else:
+            self._failure = None
         self._fov_deg = float(fov_deg)
         self._container_duration_s = 0.0
         self._img = None
+        self._pixmap = None  # the previous clip's picture is never fitted back in on a resize
         self._lms = None
         self._boxes = None
         self.set_samples(samples)
@@ -353,9 +366,17 @@ class ClipView(QWidget):
             self.picture.setPixmap(QPixmap())
             self.picture.setText("Select a clip in the list to see it here.")
             return
+        if self._failure is not None:  # shown until (unless) a frame of the video can be shown after all
+            self.picture.setPixmap(QPixmap())
+            self.picture.setText(self._failure_text())
         self.loader.find_face = self.mesh.isChecked() and not self._has_landmarks()
         self.loader.open(self._clip_path)
         self.seek(position_s)
+
+    def _failure_text(self) -> str:
+        head, why, todo = self._failure
+        lines = [head] + ([why] if why != head else []) + [f"What to do: {todo}"]
+        return "\n\n".join(lines)
 
     def set_samples(self, samples: pd.DataFrame | None) -> None:
         self._samples = samples if samples is not None and len(samples) else None
@@ -382,7 +403,11 @@ class ClipView(QWidget):
         self.q_valid.setText(fmt(s.get("valid_frac"), pct=True))
         verdict = s.get("verdict")
         usable = s.get("usable")
-        if verdict is None:
+        if verdict is None and self._failure is not None:
+            head, why, _ = self._failure
+            self.verdict.setText(f"<b>No quality figures:</b> processing failed. {why if why != head else head}")
+            self.verdict.setStyleSheet("color: #b00020;")
+        elif verdict is None:
             self.verdict.setText("No quality figures yet: process the clip to see them.")
             self.verdict.setStyleSheet("color: #555;")
         else:
@@ -517,7 +542,7 @@ class ClipView(QWidget):
         self.pause()
         self._img = None
         self.picture.setPixmap(QPixmap())
-        self.picture.setText(message)
+        self.picture.setText(self._failure_text() if self._failure is not None else message)
 
     def _sample_at(self, t_s: float):
         if self._samples is None or not len(self._frame_times):

@@ -71,6 +71,27 @@ def explain_error(exc: BaseException, *, clip_name: str) -> str:
             "The other clips are not affected; the technical details are in the log file.")
 
 
+def failure_parts(message: str, *, clip_name: str | None = None) -> tuple[str, str, str]:
+    """A stored failure message (:func:`explain_error`'s sentence, then the error's ``FILE: problem - hint``)
+    as three plain parts for the clip view: ``(headline, why, what to do)``; the file name is dropped from
+    ``why`` when it is the clip's own (the view names the clip already)."""
+    text = " ".join(str(message or "").split())
+    head, sep, rest = text.partition(". ")
+    if not sep:
+        head, rest = text, ""
+    head = head.rstrip(".") + "."
+    if clip_name:
+        before, colon, after = rest.partition(": ")
+        if colon and before.endswith(clip_name):
+            rest = after
+    why, dash, todo = rest.partition(" - ")
+    if not dash:  # no error of aspectus's own form: the sentence is the reason, the rest is advice
+        why, todo = head, rest
+    why = why.strip() or head
+    todo = todo.strip() or "check the clip file, then process it again"
+    return head, why[0].upper() + why[1:].rstrip(".") + ".", todo[0].upper() + todo[1:].rstrip(".") + "."
+
+
 def _make_params(process: dict, analysis: dict):
     from aspectus.events.analysis import AnalysisParams
     from aspectus.webcam.pipeline import ProcessParams

@@ -26,11 +26,13 @@ from .clip_view import ClipView
 from .job_runner import Job
 from .params_panel import ParamsPanel
 from .results_view import ResultsView, read_events
-from .time_view import TimeView
+from .time_view import NO_SAMPLES_TEXT, TimeView
 from .validation_view import ValidationView
 from .workers import ProcessingRun, Reanalyser
 
 APP_TITLE = "aspectus"
+#: what the gaze trace says for a clip whose processing failed
+FAILED_TRACE_TEXT = "No gaze trace: processing this clip failed (the reason is shown above)."
 TAB_CLIP, TAB_RESULTS, TAB_VALIDATION = 0, 1, 2
 COL_NAME, COL_STATUS, COL_FACE, COL_USABLE = range(4)
 #: a clip's status is shown by its progress bar: the status in words, the percentage while it processes (one
@@ -233,6 +235,7 @@ class MainWindow(QMainWindow):
         self.overall_bar.setTextVisible(True)
         self.remaining_label = QLabel("")
         self.remaining_label.setMinimumWidth(190)
+        self.remaining_label.hide()  # shown while a run goes on
         self.run_label = QLabel("")
         bar = QWidget()
         bl = QHBoxLayout(bar)
@@ -243,7 +246,7 @@ class MainWindow(QMainWindow):
         bl.addWidget(self.targets_btn)
         bl.addWidget(self.overall_bar, 1)
         bl.addWidget(self.remaining_label)
-        bl.addWidget(self.run_label, 1)
+        bl.addWidget(self.run_label, 2)  # its sentences are read whole at 1366 px; the bar can be narrower
 
         central = QWidget()
         cv = QVBoxLayout(central)
@@ -719,7 +722,9 @@ class MainWindow(QMainWindow):
             return
         fov = float(self.study.process.get("fov_deg", 60.0)) if self.study.process else 60.0
         clip_path = self.study.clip_path(clip)
-        self.clip_view.set_clip(clip_path if clip_path.exists() else None, summary=clip.summary, fov_deg=fov)
+        failed = clip.status == study_mod.STATUS_FAILED and bool(clip.error)
+        self.clip_view.set_clip(clip_path if clip_path.exists() else None, summary=clip.summary, fov_deg=fov,
+                                failure=clip.error if failed else None)
         from aspectus.targets.check import read_check
 
         self.clip_view.set_target_check(read_check(self.study.clip_out_dir(clip)))
@@ -744,7 +749,8 @@ class MainWindow(QMainWindow):
         out = self.study.clip_out_dir(clip)
         seg = self.study.resolve(clip.segments) if clip.segments else None
         if not has_results:
-            self.time_view.set_data(None)
+            self.time_view.set_data(None, empty_text=(
+                FAILED_TRACE_TEXT if failed else NO_SAMPLES_TEXT))
         self._load_pool.submit(self._load_clip_data, self._load_gen, clip.stem, out, has_results, seg)
 
     def _load_clip_data(self, gen, stem, out, has_results, seg):
@@ -775,7 +781,9 @@ class MainWindow(QMainWindow):
         self._current_samples, self._current_events = samples, events
         self.clip_view.set_samples(samples)
         self.clip_view.seek(self.clip_view.position_s)
-        self.time_view.set_data(samples, events=events, segments=segments)
+        self.time_view.set_data(samples, events=events, segments=segments,
+                                empty_text=FAILED_TRACE_TEXT if cur.status == study_mod.STATUS_FAILED
+                                else NO_SAMPLES_TEXT)
         self.time_view.set_cursor(self.clip_view.position_s)
         if note:
             self.clip_message.setText(note)
@@ -891,6 +899,7 @@ class MainWindow(QMainWindow):
         self._refresh_list()
         self.overall_bar.setValue(0)
         self.remaining_label.setText(theme.fmt_duration(None))
+        self.remaining_label.show()
         self.run_label.setText(f"Processing {len(jobs)} clip(s)…")
         run.start()
         self._update_actions()
@@ -979,12 +988,14 @@ class MainWindow(QMainWindow):
         n_canc = sum(v == "cancelled" for v in outcomes.values())
         parts = [f"{n_done} clip(s) processed"]
         if n_fail:
-            parts.append(f"{n_fail} failed (select them to read why)")
+            parts.append(f"{n_fail} failed (select one to see why)")
         if n_canc:
             parts.append(f"{n_canc} cancelled")
         self.run_label.setText("; ".join(parts) + ".")
+        self.run_label.setToolTip(self.run_label.text())
         self.overall_bar.setValue(1000 if not n_canc else self.overall_bar.value())
         self.remaining_label.setText("")
+        self.remaining_label.hide()  # its room goes to the run's summary, read whole at 1366 px
         self._refresh_list()
         self._autosave()
         self._update_actions()

@@ -55,7 +55,11 @@ class TraceData:
         return d
 
 
-def draw_trace(fig, data: TraceData | None, xlim: tuple[float, float]):
+#: what the trace says when there are no samples and nothing else is known
+NO_SAMPLES_TEXT = "No gaze samples yet: process the clip to see its gaze trace."
+
+
+def draw_trace(fig, data: TraceData | None, xlim: tuple[float, float], empty_text: str = NO_SAMPLES_TEXT):
     """Fill ``fig`` with the yaw and pitch panels (runs in the drawing thread)."""
     from matplotlib.collections import PolyCollection
     from matplotlib.patches import Patch
@@ -71,7 +75,7 @@ def draw_trace(fig, data: TraceData | None, xlim: tuple[float, float]):
     ax_y.tick_params(labelbottom=False)
     ax_p.set_xlabel("time (s)", fontsize=8)
     if data is None or not len(data.t_s):
-        ax_y.text(0.5, 0.5, "No gaze samples yet: process the clip to see its gaze trace.", ha="center",
+        ax_y.text(0.5, 0.5, empty_text, ha="center",
                   va="center", transform=ax_y.transAxes, color="#555", fontsize=9)
         ax_y.set_xlim(0, 1)
         return None
@@ -171,8 +175,11 @@ class TimeView(QWidget):
 
     # ----------------------------------------------------------------- API
     def set_data(self, samples: pd.DataFrame | None, *, events: pd.DataFrame | None = None,
-                 segments: pd.DataFrame | None = None, keep_view: bool = False) -> None:
-        """Show a clip's samples with its events (and task segments as labelled edges)."""
+                 segments: pd.DataFrame | None = None, keep_view: bool = False,
+                 empty_text: str = NO_SAMPLES_TEXT) -> None:
+        """Show a clip's samples with its events (and task segments as labelled edges); ``empty_text`` is
+        what the trace says when there are no samples."""
+        self._empty_text = empty_text
         if samples is None or not len(samples):
             self._data = None
             self._t_max = 1.0
@@ -185,6 +192,11 @@ class TimeView(QWidget):
             if not keep_view or self._xlim == (0.0, 1.0) or self._xlim[1] > self._t_max + 1.0:
                 self._xlim = (0.0, max(self._t_max, 1e-3))
         self._replot()
+
+    @property
+    def empty_text(self) -> str:
+        """What the trace says while it has no samples to show."""
+        return getattr(self, "_empty_text", NO_SAMPLES_TEXT)
 
     def set_cursor(self, t_s: float) -> None:
         """Move the position cursor (and the view, when following and the cursor leaves it)."""
@@ -222,7 +234,7 @@ class TimeView(QWidget):
 
     # ------------------------------------------------------------ internals
     def _replot(self):
-        self.canvas.plot(draw_trace, self._data, tuple(self._xlim))
+        self.canvas.plot(draw_trace, self._data, tuple(self._xlim), self.empty_text)
 
     def _on_press(self, x, y, button):
         if button == 1 and self.canvas.axes_at(x, y) is not None:

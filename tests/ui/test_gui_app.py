@@ -207,6 +207,20 @@ def test_broken_clip_error_shown_others_complete(qtbot, window, tiny_clips, tmp_
     assert window._item("p03_s01").text(1) == "failed"
     assert window._item("p03_s01").toolTip(1) == bad.error
     assert window.study.find("p01_s01").status == study_mod.STATUS_DONE
+    # the clip view says it in plain words - what happened, why, what to do - never the decoder's raw error
+    from ui.main_window import FAILED_TRACE_TEXT
+
+    qtbot.waitUntil(lambda: window.time_view.empty_text == FAILED_TRACE_TEXT, timeout=10_000)
+    qtbot.wait(500)  # the frame loader's own attempt at the file has answered by now
+    pane = window.clip_view.picture.text()
+    assert pane.startswith("The video could not be read.") and "What to do: Check that it is a video" in pane
+    assert "Errno" not in pane and "InvalidDataError" not in pane and "p03_s01.mp4:" not in pane
+    assert window.clip_view.picture.wordWrap()
+    verdict = window.clip_view.verdict.text()
+    assert "processing failed" in verdict and "yet" not in verdict
+    # the run's summary is read whole at 1366 px wide (the width the window is opened with here)
+    assert "1 failed (select one to see why)" in window.run_label.text()
+    assert window.run_label.width() >= window.run_label.sizeHint().width(), window.run_label.text()
 
 
 def test_gui_thread_stays_responsive_while_processing(qtbot, window, tiny_clips, tmp_path):
