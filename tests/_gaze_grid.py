@@ -133,12 +133,14 @@ def true_iris_px(truth: pd.DataFrame) -> np.ndarray:
 
 
 def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: dict | None = None,
-                  keep_samples: bool = False) -> list[dict]:
+                  keep_samples: bool = False, pipeline_gaze: dict | None = None) -> list[dict]:
     """Render, process and measure one condition; one row (the condition's fields and figures) per variant.
 
     The face mesh runs once; each variant re-runs only the clip-level gaze estimate on the same per-frame
     measurements (the pipeline's own samples for the default variant). ``keep_samples``: each row also
-    holds its samples table under ``"samples"``.
+    holds its samples table under ``"samples"``. ``pipeline_gaze``: gaze settings for the pipeline's own run
+    (e.g. ``{"eye_anchor_set": "below_and_beside"}``, which acts in the per-frame geometry); the variants
+    re-estimate with them too.
     """
     from aspectus.webcam import pipeline
     from aspectus.webcam.gaze import GazeParams, estimate_gaze
@@ -153,7 +155,8 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
 
     pipeline.estimate_gaze = spy
     try:
-        samples, _ = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(mirrored=cond.mirror)))
+        samples, _ = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(mirrored=cond.mirror,
+                                                                                    **(pipeline_gaze or {}))))
     finally:
         pipeline.estimate_gaze = estimate_gaze
     rows = []
@@ -164,7 +167,7 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
             kw = {k: v for k, v in captured.items() if k != "params"}
             if over.pop("iris_px", None) == "truth":
                 kw["iris_px"] = true_iris_px(res.truth)
-            cols, _ = estimate_gaze(**kw, params=GazeParams(mirrored=cond.mirror, **over))
+            cols, _ = estimate_gaze(**kw, params=GazeParams(mirrored=cond.mirror, **(pipeline_gaze or {}) | over))
             s = samples.copy()
             for c, v in cols.items():
                 if c in s.columns:

@@ -233,7 +233,8 @@ def _mesh_warp_grid(src: np.ndarray, dst: np.ndarray, simplices: np.ndarray, dep
 
 #: the first three rings of face-mesh points below each lower lid, outer corner to inner corner (checked on
 #: the rendered rest mesh: each ring lies 3-4, 8-9 and 13-15 mm below the lid's middle); the eye anchors
-#: (aspectus.webcam.eye_anchors.ANCHOR_POINTS) are the middle of the second ring
+#: (aspectus.webcam.eye_anchors.ANCHOR_SETS) are the middle of the second ring and the outer ends of the second and
+#: third rings
 LOWER_SKIN_RINGS = {
     "right": ((130, 25, 110, 24, 23, 22, 26, 112, 243), (226, 31, 228, 229, 230, 231, 232, 233, 244),
               (35, 111, 117, 118, 119, 120, 121, 128, 245)),

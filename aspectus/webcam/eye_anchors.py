@@ -41,9 +41,18 @@ import numpy as np
 
 from aspectus._env import import_cv2
 
-#: face-mesh points on the skin below the eye openings (second ring below the lower lid, under the iris):
-#: right eye 229-231, left eye 449-451
-ANCHOR_POINTS = (229, 230, 231, 449, 450, 451)
+#: the sets of face-mesh skin points that can be followed, by name. ``"below"`` (the default): below the eye
+#: openings (second ring below the lower lid, under the iris: right eye 229-231, left eye 449-451).
+#: ``"below_and_beside"``: those and two points beside each eye's outer corner (226 and 35, 446 and 265), which
+#: lie close to the eyeball centres' depth (3.9 and -0.2 mm in front of them in the face model, the points below
+#: 12-15 mm), so an error of the PnP rotation moves their fitted translation - and with it the eyeball centres -
+#: less. At classroom scale it halves the head placement's error, but on large faces turning +-15 deg the points
+#: beside the eye turned away read worse (docs/notes/gaze-measurement.md), so it is an option, not the default.
+ANCHOR_SETS = {"below": (229, 230, 231, 449, 450, 451),
+               "below_and_beside": (229, 230, 231, 449, 450, 451, 226, 35, 446, 265)}
+DEFAULT_ANCHOR_SET = "below"
+#: every point any set may follow (what the eye crop must cover)
+ANCHOR_POINTS = tuple(dict.fromkeys(p for pts in ANCHOR_SETS.values() for p in pts))
 #: template half-width, in iris radii
 PATCH_RADII = 0.7
 #: search half-range around the point predicted from the last offset, in iris radii
@@ -107,7 +116,7 @@ def _peak(res: np.ndarray) -> tuple[float, float, float] | None:
 class EyeAnchorTracker:
     """Follows :data:`ANCHOR_POINTS` on the picture, frame after frame (one face, one run of frames)."""
 
-    def __init__(self, points=ANCHOR_POINTS):
+    def __init__(self, points=ANCHOR_SETS[DEFAULT_ANCHOR_SET]):
         self.points = tuple(points)
         self._rows = np.array(self.points, dtype=np.intp)
         self.reset()

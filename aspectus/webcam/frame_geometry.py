@@ -25,8 +25,9 @@ from pathlib import Path
 
 import numpy as np
 
-from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, MIN_ANCHOR_RADIUS_PX, EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
-                          translation_given_rotation)
+from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, ANCHOR_SETS, DEFAULT_ANCHOR_SET, MIN_ANCHOR_RADIUS_PX,
+                                         EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
+                                         translation_given_rotation)
 from aspectus.webcam.gaze import frame_measurements
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
@@ -97,26 +98,29 @@ class FrameGeometry:
         the picture (:mod:`aspectus.webcam.eye_anchors`; default True). False keeps
         the PnP translation, which the face mesh's landmark errors under head
         rotation move by about a millimetre at 5 deg.
+    anchor_set : str
+        Which skin points are followed (a key of :data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`).
     """
 
-    def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True):
+    def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True,
+                 anchor_set: str = DEFAULT_ANCHOR_SET):
         self.fov_deg = float(fov_deg)
         self.refine_iris = bool(refine_iris)
         self.eye_anchors = bool(eye_anchors)
         self.solver: HeadPoseSolver | None = None
         self.size: tuple[int, int] | None = None
         self.size_changes = 0
-        self.anchors = EyeAnchorTracker()
-        self._anchors_model = self.anchors_model_mm()
+        self.anchors = EyeAnchorTracker(ANCHOR_SETS[anchor_set])
+        self._anchors_model = self.anchors_model_mm(self.anchors.points)
         self.anchored_frames = 0
         self.unanchored_frames = 0
         self._anchor_minus_pnp: np.ndarray | None = None
 
     @staticmethod
-    def anchors_model_mm() -> np.ndarray:
+    def anchors_model_mm(points=ANCHOR_SETS[DEFAULT_ANCHOR_SET]) -> np.ndarray:
         from aspectus.webcam.headpose import face_model
 
-        return face_model().points_mm[list(ANCHOR_POINTS)].astype(np.float64)
+        return face_model().points_mm[list(points)].astype(np.float64)
 
     def row(self, pts_s: float, size_px: tuple[int, int], points_px: np.ndarray | None, face_count: int,
             eyes: np.ndarray | None = None, eyes_origin_px=(0, 0)) -> np.ndarray:
@@ -261,8 +265,10 @@ class GeometryThread:
 
     kind = "thread"
 
-    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True):
-        self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors)
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
+                 anchor_set: str = DEFAULT_ANCHOR_SET):
+        self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
+                                  anchor_set=anchor_set)
         self._sink = sink
         self._q: queue.Queue = queue.Queue(maxsize=2 * _BATCH)  # room for a whole batch of limbus fits
         self._failure: list[BaseException] = []
@@ -315,8 +321,10 @@ class GeometryInline:
 
     kind = "inline"
 
-    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True):
-        self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors)
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
+                 anchor_set: str = DEFAULT_ANCHOR_SET):
+        self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
+                                  anchor_set=anchor_set)
         self._sink = sink
         self._pending: list = []
 
@@ -345,16 +353,17 @@ class GeometryInline:
 def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
-    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE [ANCHORS]``. Anything else
+    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET]]``. Anything else
     that would print to stdout goes to stderr, so it cannot corrupt the replies.
     """
     args = list(sys.argv[1:] if argv is None else argv)
     fov_deg, refine_iris = float(args[0]), args[1] == "1"
     eye_anchors = len(args) < 3 or args[2] == "1"
+    anchor_set = args[3] if len(args) > 3 else DEFAULT_ANCHOR_SET
     out = os.fdopen(os.dup(1), "wb")
     os.dup2(2, 1)  # stray prints from libraries go to stderr
     inp = sys.stdin.buffer
-    geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors)
+    geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors, anchor_set=anchor_set)
 
     def reply(obj) -> bool:
         try:
@@ -414,11 +423,14 @@ class GeometryProcess:
 
     kind = "process"
 
-    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True):
+    def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
+                 anchor_set: str = DEFAULT_ANCHOR_SET):
         self._sink = sink
+        if anchor_set not in ANCHOR_SETS:
+            raise ValueError(f"anchor set must be one of {', '.join(ANCHOR_SETS)}, got {anchor_set!r}")
         self._proc = subprocess.Popen(
             [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parents[1]), repr(float(fov_deg)),
-             "1" if refine_iris else "0", "1" if eye_anchors else "0"],
+             "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set],
             stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._out: queue.Queue = queue.Queue(maxsize=32)  # batches in flight: some 30 MB of eye crops at most
         self._pending: list = []
@@ -512,19 +524,22 @@ class GeometryProcess:
 
 
 def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
-                   eye_anchors: bool = True):
+                   eye_anchors: bool = True, anchor_set: str = DEFAULT_ANCHOR_SET):
     """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
     application, or when no child can be started); ``mode`` forces ``"thread"``, ``"process"`` or
     ``"inline"`` (:class:`GeometryInline`, in the calling thread)."""
     if mode not in ("auto", "thread", "process", "inline"):
         raise ValueError(f"geometry mode must be auto, thread, process or inline, got {mode!r}")
     if mode == "inline":
-        return GeometryInline(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors)
+        return GeometryInline(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
+                              anchor_set=anchor_set)
     frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
-            return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors)
+            return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
+                              anchor_set=anchor_set)
         except OSError:
             if mode == "process":
                 raise
-    return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors)
+    return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
+                              anchor_set=anchor_set)

@@ -113,6 +113,18 @@ class GazeParams:
         eye picture, i.e. ``refine_iris``; without it the PnP translation
         is used (run.json counts the frames: ``eye_anchor_frames``,
         ``eye_anchor_fallback_frames``).
+    eye_anchor_set : {"below", "below_and_beside"}
+        Which skin points the anchors follow (:data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`):
+        ``"below"`` (default): three below each eye; ``"below_and_beside"``:
+        also two beside each eye's outer corner, near the eyeball centres'
+        depth, so the PnP rotation's error moves the fitted translation
+        less. On five 640 x 480 classroom clips (iris 8.3-12.2 px) it cut
+        the head origin's picture-position error from SD 0.16-0.81 to
+        0.10-0.51 mm sideways and 0.12-0.89 to 0.06-0.65 mm vertically and
+        raised pitch r on all five, but on large faces turning +-15 deg the
+        point beside the eye turned away reads worse (median gaze error
+        2.14 -> 2.25 and 1.78 -> 1.94 deg on two of three clips, 90th
+        percentile 2.94 -> 4.19 on one; docs/notes/gaze-measurement.md).
     fuse_in_head : bool
         With ``iris_combine`` "fuse" or "rescale": fit the mapping of the
         mesh point onto the limbus scale on both points' offsets from the
@@ -136,6 +148,7 @@ class GazeParams:
     decouple_reference: bool = True
     decouple_highpass_s: float = 0.7
     eye_anchors: bool = True
+    eye_anchor_set: str = "below"
     mirrored: bool = False
     fuse_in_head: bool = True
 
@@ -148,6 +161,11 @@ class GazeParams:
             v = getattr(self, name)
             if isinstance(v, bool) or not isinstance(v, (int, float)) or not (lo <= v <= hi):
                 raise ParameterError(f"gaze parameter {name} = {v!r} is outside {lo}-{hi}")
+        from aspectus.webcam.eye_anchors import ANCHOR_SETS
+
+        if self.eye_anchor_set not in ANCHOR_SETS:
+            raise ParameterError(f"gaze parameter eye_anchor_set = {self.eye_anchor_set!r} is not one of "
+                                 f"{', '.join(ANCHOR_SETS)}")
         if self.iris_combine not in ("limbus", "rescale", "fuse"):
             raise ParameterError(f"gaze parameter iris_combine = {self.iris_combine!r} is not one of "
                                  "limbus, rescale, fuse")

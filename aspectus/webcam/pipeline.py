@@ -239,7 +239,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     old_switch = sys.getswitchinterval()
     sys.setswitchinterval(0.0005)
     geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=rec.append, frames_hint=n_hint,
-                              mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors))
+                              mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors),
+                              anchor_set=params.gaze.eye_anchor_set)
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
         pin_to_cpus(background, geometry.pid)

@@ -186,7 +186,7 @@ def test_eyelids_follow_vertical_gaze():
 
 def test_skin_below_the_lower_lids_can_follow_them():
     """``lower_skin_follow`` moves the rings of skin below each lower lid with vertical gaze, less further down."""
-    from aspectus.webcam.eye_anchors import ANCHOR_POINTS
+    from aspectus.webcam.eye_anchors import ANCHOR_SETS
     from aspectus.synth.face import LEFT_EYE_CONTOUR, RIGHT_EYE_CONTOUR, load_face
     from aspectus.synth.frame import LOWER_SKIN_RINGS, FaceRig
 
@@ -204,7 +204,10 @@ def test_skin_below_the_lower_lids_can_follow_them():
             assert down[ring[4], 1] - rest[ring[4], 1] == pytest.approx(share * lid_travel, rel=0.02)
             assert np.allclose(down[[ring[0], ring[-1]]], rest[[ring[0], ring[-1]]])  # ends stay
             np.testing.assert_allclose(down_still[list(ring)], rest[list(ring)])  # the default: skin still
-    assert set(ANCHOR_POINTS) <= set(LOWER_SKIN_RINGS["right"][1] + LOWER_SKIN_RINGS["left"][1])
+    assert set(ANCHOR_SETS["below"]) <= set(LOWER_SKIN_RINGS["right"][1] + LOWER_SKIN_RINGS["left"][1])
+    # the anchors beside the eyes are the outer ends of the second and third rings, which stay
+    ends = {ring[0] for e in ("right", "left") for ring in LOWER_SKIN_RINGS[e][1:]}
+    assert set(ANCHOR_SETS["below_and_beside"]) - set(ANCHOR_SETS["below"]) == ends
     with pytest.raises(ValueError, match="lower_skin_follow"):
         FaceRig(face, Camera(640, 360), background=bg, lower_skin_follow=2.0)
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, PATIENCE_FRAMES, EyeAnchorTracker, anchor_reach_px,
+from aspectus.webcam.eye_anchors import (ANCHOR_SETS, PATIENCE_FRAMES, EyeAnchorTracker, anchor_reach_px,
                                  translation_given_rotation)
 from aspectus.geometry import camera_matrix, head_rotation
 
@@ -26,6 +26,10 @@ def _shifted(img, dx, dy):
     return np.stack([shift(img[..., c], (dy, dx), order=3, mode="nearest") for c in range(3)], axis=2).round().astype(np.uint8)
 
 
+#: the six points below the eyes (the tracker is given them; the default set adds four beside the eyes)
+ANCHOR_POINTS = ANCHOR_SETS["below"]
+
+
 def _points(anchor_xy):
     pts = np.zeros((478, 3))
     pts[list(ANCHOR_POINTS), :2] = anchor_xy
@@ -37,7 +41,7 @@ ANCHORS_XY = np.array([[120.0, 110], [135, 112], [150, 110], [190, 110], [205, 1
 
 def test_anchors_follow_the_picture_not_the_mesh():
     base = _texture()
-    tr = EyeAnchorTracker()
+    tr = EyeAnchorTracker(ANCHOR_POINTS)
     first = tr.update(base.round().astype(np.uint8), _points(ANCHORS_XY), 10.0)
     np.testing.assert_allclose(first, ANCHORS_XY)
     # the skin moves by (1.3, -0.6) px while the mesh's points move by (3, 2) px: the anchors follow the skin
@@ -49,7 +53,7 @@ def test_anchors_follow_the_picture_not_the_mesh():
 
 def test_a_failed_match_keeps_the_last_offset_and_a_new_template_is_cut_without_a_jump():
     base = _texture(seed=1)
-    tr = EyeAnchorTracker()
+    tr = EyeAnchorTracker(ANCHOR_POINTS)
     tr.update(base.round().astype(np.uint8), _points(ANCHORS_XY), 10.0)
     moved = _shifted(base, 0.8, 0.4)
     held = tr.update(moved, _points(ANCHORS_XY), 10.0)

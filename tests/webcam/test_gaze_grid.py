@@ -90,3 +90,26 @@ def test_verdict_at_8_px_says_which_features_are_usable(cells):
     assert "fixation count and durations" not in s["trusted_features"]
     assert "blink rate" in s["trusted_features"] and "blink rate" in s["verdict"]
     assert "irises about 8 px" in s["verdict"] or "irises about 9 px" in s["verdict"]
+
+
+@pytest.fixture(scope="module")
+def beside(lund_dir, tmp_path_factory):
+    """The 8.5 px cell again, the head translation refitted to the anchors below *and beside* the eyes."""
+    cond = G.Condition("8px_beside", size_px=(640, 480), distance_mm=780.0, trial="UL23_img_Europe", face="astronaut")
+    rows = G.run_condition(cond, tmp_path_factory.mktemp("beside"), lund_dir, variants={"limbus": {}} | G.TRUE_IRIS,
+                           pipeline_gaze={"eye_anchor_set": "below_and_beside"})
+    return {r["variant"]: r for r in rows}
+
+
+def test_anchors_beside_the_eyes_place_the_head_better_at_8_px(cells, beside):
+    # The head translation's error at classroom scale is slow and mostly the PnP rotation's error carried over
+    # the lever from the anchors below the eyes (12-15 mm in front of the eyeball centres) to the eyeball
+    # centres (bench/bench_head_translation.py; docs/notes/gaze-measurement.md). Anchors beside the eyes' outer
+    # corners lie near the eyeball centres' depth. Measured on this cell with the true iris centres: pitch r
+    # 0.729 -> 0.918, gain 0.24 -> 0.44, yaw r 0.842 -> 0.935; with the pipeline's own iris: pitch r 0.554 ->
+    # 0.741, gain 0.33 -> 0.54. Issue 15's floors (pitch |r| >= 0.95, gain 0.85-1.15) are still NOT met here. Not
+    # the default: on large faces turning +-15 deg the anchor beside the eye turned away reads worse.
+    old, new = cells[("8px", "true_iris")], beside["true_iris"]
+    assert new["pitch_r"] >= 0.88 and new["pitch_r"] > old["pitch_r"] + 0.1
+    assert new["pitch_gain"] >= 0.38 and new["yaw_r"] >= 0.9
+    assert beside["limbus"]["pitch_r"] > cells[("8px", "limbus")]["pitch_r"] + 0.1
