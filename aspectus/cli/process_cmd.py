@@ -11,7 +11,8 @@ def register(sub) -> None:
         "process",
         help="process recorded clips into gaze samples, events and features",
         description="Track face and irises in each clip, estimate head-compensated gaze angles, detect "
-        "fixations, saccades and blinks, and write per-clip outputs into OUTDIR/<clip file stem>/: "
+        "fixations, saccades and blinks, and write per-clip outputs into OUTDIR/<clip file stem>/ (or the "
+        "folder 'aspectus batch' gave the clip, when a batch ran into OUTDIR): "
         "samples.parquet/.csv, events.csv/.parquet, features.csv/.parquet and run.json. "
         "A clip that fails is reported in one line; the other clips still finish.",
     )
@@ -167,7 +168,8 @@ def _num(x, fmt: str, unit: str) -> str:
 def run(args) -> int:
     from aspectus.progress import ProgressBar, classify_failure
 
-    from aspectus.webcam.pipeline import ProcessParams, clip_output_dir, process_clip
+    from aspectus.studies.clips import clip_output_dir
+    from aspectus.webcam.pipeline import ProcessParams, process_clip
 
     params = ProcessParams(fov_deg=args.fov_deg, face=args.face, max_faces=args.max_faces,
                            gaze=gaze_params_from_args(args), analysis=analysis_params_from_args(args))
@@ -179,13 +181,14 @@ def run(args) -> int:
     stems: dict[str, Path] = {}
     for clip in args.clips:
         clip = Path(clip)
-        if clip.stem in stems and stems[clip.stem] != clip.resolve():
-            print(f"aspectus: error: {clip}: has the same file stem as {stems[clip.stem]}; "
-                  f"both would write to {clip_output_dir(out_root, clip)} - process them into different OUTDIRs "
+        clip_out = clip_output_dir(out_root, clip)  # the batch's folder for the clip when a batch ran into OUTDIR
+        if clip_out.name in stems and stems[clip_out.name] != clip.resolve():
+            print(f"aspectus: error: {clip}: has the same file stem as {stems[clip_out.name]}; "
+                  f"both would write to {clip_out} - process them into different OUTDIRs "
                   "or use `aspectus batch`, which keeps them apart", file=sys.stderr)
             failures += 1
             continue
-        stems[clip.stem] = clip.resolve()
+        stems[clip_out.name] = clip.resolve()
         bar = ProgressBar(total=1000, desc=clip.name, unit="‰", disable=args.quiet, leave=False,
                    bar_format="{desc}: {percentage:3.0f}%|{bar}| [{elapsed}<{remaining}]")
 
@@ -194,7 +197,7 @@ def run(args) -> int:
             bar.refresh()
 
         try:
-            res = process_clip(clip, clip_output_dir(out_root, clip), params=params, segments=args.segments,
+            res = process_clip(clip, clip_out, params=params, segments=args.segments,
                                progress=progress, reuse=not args.no_reuse, stages=args.stages)
         except BaseException as exc:  # noqa: BLE001 - one clip's failure must not stop the others
             bar.close()
@@ -204,7 +207,6 @@ def run(args) -> int:
             if failure.kind == "input":
                 print(f"aspectus: error: {exc}", file=sys.stderr)
             elif failure.kind == "file":
-                clip_out = clip_output_dir(out_root, clip)
                 where = Path(exc.filename) if exc.filename else None
                 writing = where is not None and clip_out.resolve() in (where.resolve(), *where.resolve().parents)
                 if writing:
@@ -218,7 +220,7 @@ def run(args) -> int:
             else:  # memory or a fault of aspectus: keep the traceback for a report
                 if not isinstance(exc, Exception):
                     raise
-                log = _write_error_log(clip_output_dir(out_root, clip), clip)
+                log = _write_error_log(clip_out, clip)
                 where = f"the details are in {log}; please report it with that file" if log else "please report it"
                 print(f"aspectus: error: {clip}: processing failed ({type(exc).__name__}: {exc}); this is a "
                       f"fault in aspectus, not in the clip as far as it can tell - {where}; the other clips go on",

@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import hashlib
 import json
+import shutil
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -138,3 +140,25 @@ def test_two_same_named_clips_in_two_folders_each_get_their_own_check(tmp_path, 
     for k in ("classA__p01", "classB__p01"):
         doc = json.loads((out / k / "target_check.json").read_text())
         assert per.loc[k, "target_gain_yaw"] == pytest.approx(doc["mapping"]["gain_yaw"], abs=1e-6)
+
+
+@pytest.mark.slow
+def test_process_after_a_batch_updates_the_batchs_folder(tmp_path):
+    """``aspectus process CLIP -o results/`` names the folder by the same rule: after a batch into results/,
+    classA/p01.mp4 is processed into results/classA__p01 (runs the pipeline on the shorter demo clip)."""
+    from aspectus.cli import main
+    from tests.studies.test_batch import StandinParams
+
+    demo = Path(__file__).resolve().parents[2] / "sample_clips" / "linden_brook_p02_s01.mp4"
+    src = tmp_path / "study"
+    for cls in ("classA", "classB"):
+        (src / cls).mkdir(parents=True)
+        shutil.copy(demo, src / cls / "p01.mp4")
+    out = tmp_path / "results"
+    run_batch(src, out, params=StandinParams(), workers=1, clip_fn=STANDIN)  # stand-in outputs, real keys
+    standin_b = (out / "classB__p01" / "samples.parquet").read_bytes()
+    assert main(["process", str(src / "classA" / "p01.mp4"), "-o", str(out), "--quiet"]) == 0
+    assert not (out / "p01").exists()
+    run = json.loads((out / "classA__p01" / "run.json").read_text())
+    assert run["input_sha256"] == _sha(src / "classA" / "p01.mp4") and "params_sha256" in run
+    assert (out / "classB__p01" / "samples.parquet").read_bytes() == standin_b  # the other clip untouched
