@@ -157,6 +157,9 @@ def test_process_after_a_batch_updates_the_batchs_folder(tmp_path):
     out = tmp_path / "results"
     run_batch(src, out, params=StandinParams(), workers=1, clip_fn=STANDIN)  # stand-in outputs, real keys
     standin_b = (out / "classB__p01" / "samples.parquet").read_bytes()
+    # the stand-in's files are not a run of aspectus (processing refuses to overwrite such files): class A's
+    # folder is cleared, the batch's record (status.csv) still names its key
+    shutil.rmtree(out / "classA__p01")
     assert main(["process", str(src / "classA" / "p01.mp4"), "-o", str(out), "--quiet"]) == 0
     assert not (out / "p01").exists()
     run = json.loads((out / "classA__p01" / "run.json").read_text())
