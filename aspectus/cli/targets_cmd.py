@@ -24,7 +24,9 @@ def register(sub) -> None:
     m.add_argument("--distance-mm", type=float, required=True, help="viewing distance (eyes to screen centre), mm")
     m.add_argument("--seed", type=int, default=0, help="orders the dots (default 0)")
     m.add_argument("--fixation-s", type=float, default=2.0, help="time per still dot, s (default 2)")
-    m.add_argument("--targets", type=int, default=13, help="still dots, 5-13 (default 13)")
+    m.add_argument("--targets", type=int, default=13,
+                   help="still dots of the grid, 5-13 (default 13); each moving sweep adds a 1-s still dot before "
+                   "it, which the check counts as a still target too")
     m.add_argument("--pursuit-speed-deg-s", type=float, default=8.0, help="moving dot's speed, deg/s (default 8)")
     m.add_argument("--pursuit-sweeps", type=int, default=2, choices=(0, 1, 2),
                    help="moving sweeps: 0, 1 (horizontal), 2 (and vertical; default)")
@@ -83,8 +85,7 @@ def run_make(args) -> int:
     out = prepare_out_dir(args.out)
     sched.write(out / "schedule.json")
     write_page(sched, out / "targets.html")
-    print(f"{out / 'schedule.json'}: {len(sched.fixations)} still dots, {len(sched.pursuits)} moving sweeps, "
-          f"{sched.duration_s:.1f} s")
+    print(f"{out / 'schedule.json'}: {sched.describe()}")
     print(f"{out / 'targets.html'}: open it on the study's screen, press the space bar")
     if not args.no_video:
         write_video(sched, out / "targets.mp4", fps=args.video_fps)

@@ -96,7 +96,8 @@ class CheckParams:
         if self.align not in ("auto", "flash", "xcorr", "given"):
             raise ParameterError(f"align must be auto, flash, xcorr or given, got {self.align!r}")
         if self.align == "given" and (self.start_s is None or not math.isfinite(self.start_s)):
-            raise ParameterError("align=given needs start_s, the clip time of the flash in seconds")
+            raise ParameterError("align given needs the clip time of the flash in seconds "
+                                 "(aspectus targets check: --align given --start-s S)")
         if not (0.0 <= self.settle_s <= 5.0):
             raise ParameterError(f"settle_s must be between 0 and 5 s, got {self.settle_s!r}")
         if not (0.1 <= self.hit_radius_deg <= 20.0):
@@ -394,7 +395,8 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
     if span.sum() == 0 or ts[-1] < schedule.duration_s - 1.0:
         raise AspectusInputError(
             f"the clip ends {max(0.0, ts[-1]):.1f} s after the sequence's start, before the sequence's end "
-            f"({schedule.duration_s:.1f} s)", hint="record the whole sequence, or give the right start time")
+            f"({schedule.duration_s:.1f} s)",
+            hint="record the whole sequence, or give the right start time (--align given --start-s S)")
 
     rows = []
     for r in schedule.targets.itertuples(index=False):
@@ -580,13 +582,15 @@ def find_start(schedule: Schedule, samples: pd.DataFrame, *, clip_path=None, par
         if params.align == "flash":
             raise AspectusInputError(
                 "no flash was found in the picture's brightness", path=clip_path,
-                hint="check that the sequence was recorded from its start, or use align=xcorr")
+                hint="check that the sequence was recorded from its start, or find it by the gaze (--align xcorr), "
+                "or give the clip time of its flash (--align given --start-s S)")
     s, r = xcorr_start(samples["t_s"], samples["yaw_deg"], samples["pitch_deg"], samples["valid"], schedule,
                        search_from_s=params.search_from_s)
     if not np.isfinite(s):
         raise AspectusInputError("the sequence could not be found in the gaze (the clip is shorter than the "
                                  "sequence, or the gaze does not follow the dots)",
-                                 path=clip_path, hint="give the start time (align=given)")
+                                 path=clip_path, hint="if the whole sequence is in the clip, give the clip time of "
+                                 "its flash in seconds: --align given --start-s S")
     out.update({"start_s": s - params.xcorr_latency_s, "method": "xcorr", "xcorr_r": r,
                 "xcorr_latency_s": params.xcorr_latency_s})
     return out

@@ -102,7 +102,10 @@ def run_check(clip_path, schedule_path, out_dir, *, params: CheckParams | None =
         alignment = find_start(schedule, samples, clip_path=clip, params=params, brightness=brightness)
     except AspectusInputError as exc:
         raise AspectusInputError(exc.problem, path=clip, where=exc.where, hint=exc.hint) from None
-    check = check_samples(samples, schedule, start_s=alignment["start_s"], alignment=alignment, params=params)
+    try:
+        check = check_samples(samples, schedule, start_s=alignment["start_s"], alignment=alignment, params=params)
+    except AspectusInputError as exc:  # the clip is the file the user can act on
+        raise AspectusInputError(exc.problem, path=exc.path or clip, where=exc.where, hint=exc.hint) from None
     prog(0.97, f"{clip.name}: writing the check")
     doc = check.to_dict()
     doc.update({

@@ -147,6 +147,28 @@ class Schedule:
     def pursuits(self) -> pd.DataFrame:
         return self.targets[self.targets["kind"] == "pursuit"]
 
+    def describe(self) -> str:
+        """The sequence in words, counting as the README and ``--targets`` do: the still dots of the grid, the
+        short still dot before each moving sweep, and all still targets the check measures.
+
+        Examples
+        --------
+        >>> sched = make_schedule(Screen(1920, 1080, 344.0, 194.0, 600.0))
+        >>> sched.describe()
+        '13 still dots of 2 s, then the moving dot: 2 sweeps there and back, each after a still dot of 1 s (15 still targets in the check), 38.2 s'
+        """
+        kinds = self.targets["kind"].tolist()
+        lead = [i for i in range(len(kinds) - 1) if kinds[i] == "fixation" and kinds[i + 1] == "pursuit"]
+        fx = self.fixations
+        grid = fx.drop(index=self.targets.index[lead])
+        dur = (grid["offset_s"] - grid["onset_s"]).median() if len(grid) else float("nan")
+        text = f"{len(grid)} still dots of {dur:g} s"
+        if lead:
+            lead_s = float(self.targets.iloc[lead[0]]["offset_s"] - self.targets.iloc[lead[0]]["onset_s"])
+            text += (f", then the moving dot: {len(lead)} sweep{'s' if len(lead) != 1 else ''} there and back, "
+                     f"each after a still dot of {lead_s:g} s ({len(fx)} still targets in the check)")
+        return f"{text}, {self.duration_s:.1f} s"
+
     @property
     def dot_radius_px(self) -> float:
         mx, my = self.screen.mm_per_px

@@ -176,13 +176,35 @@ class ExclusionRule:
         return {**asdict(self), "text": self.text()}
 
 
+def _no_checks(results_dir) -> None:
+    """Raise the one-line error for a results folder without any known-target check, saying what it holds."""
+    from aspectus.errors import AspectusInputError
+    from aspectus.run_record import RUN_JSON
+
+    results_dir = Path(results_dir)
+    if not results_dir.is_dir():
+        raise AspectusInputError("no such folder", path=results_dir,
+                                 hint="give the output folder of `aspectus process`/`batch` the checks were run into")
+    n = sum(1 for _ in results_dir.rglob(RUN_JSON))
+    held = (f"it holds {n} processed clip folder{'s' if n != 1 else ''}, none with a {CHECK_JSON}" if n
+            else "it holds no processed clips")
+    raise AspectusInputError(f"no known-target checks found ({held}), so there is no session to tabulate",
+                             path=results_dir,
+                             hint="run `aspectus targets check CLIP --schedule schedule.json -o OUTDIR` on the "
+                             "clips that recorded the sequence, then tabulate OUTDIR")
+
+
 def write_quality_report(results_dir, out_dir, *, rule: ExclusionRule | None = None) -> dict:
     """Write ``target_quality.csv`` (one row per clip, with the verdict) and ``target_quality.md`` (the rule,
-    how each figure was computed, the table) into ``out_dir``; returns their paths and counts."""
+    how each figure was computed, the table) into ``out_dir``; returns their paths and counts. A folder without
+    any check is an error that says what it holds (nothing is written)."""
     from aspectus.atomic import write_csv, write_text
 
     rule = rule or ExclusionRule()
-    tab = rule.apply(collect_checks(results_dir))
+    checks = collect_checks(results_dir)
+    if not len(checks):
+        _no_checks(results_dir)
+    tab = rule.apply(checks)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     csv = write_csv(out_dir / "target_quality.csv", tab, float_format="%.4f")

@@ -207,3 +207,25 @@ def test_wrong_gain_is_reported(tmp_path, capsys):
     assert doc["summary"]["gain_in_range"] is False
     assert doc["mapping"]["gain_yaw"] < 0.7 and doc["mapping"]["gain_pitch"] < 0.75
     assert "yaw gain" in out and "outside 0.8-1.25" in out
+
+
+def test_a_clip_without_the_whole_sequence_names_the_clip_and_the_options(tmp_path, capsys):
+    """A 1.5-s clip of a student (no sequence in it): the automatic search names the options that give the start
+    by hand, and those options on the too-short clip name the clip file, what was expected and what to do."""
+    from aspectus.cli import main
+    from aspectus.synth.render import render_clip
+    from aspectus.synth.trajectory import synth_trajectory
+
+    clip = render_clip(tmp_path / "short_p01.mp4", synth_trajectory(duration_s=1.5, seed=3), size_px=(640, 360),
+                       fps=30.0, seed=3).path
+    sched = make_schedule(SCREEN, seed=1, fixation_s=1.2, n_fixations=5, pursuit_sweeps=0).write(tmp_path / "s.json")
+    base = ["targets", "check", str(clip), "--schedule", str(sched), "-o", str(tmp_path / "out"), "--quiet"]
+    assert main(base) == 2
+    err = capsys.readouterr().err
+    assert str(clip) in err and "could not be found" in err and "--align given --start-s S" in err
+    assert "align=given" not in err
+    assert main(base + ["--align", "given", "--start-s", "0"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith(f"aspectus: error: {clip}: the clip ends 1.5 s after the sequence's start"), err
+    assert "record the whole sequence" in err and "--start-s" in err
+    assert not (tmp_path / "out" / "short_p01" / "target_check.json").exists()

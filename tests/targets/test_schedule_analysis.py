@@ -185,8 +185,9 @@ def test_degenerate_gaze_is_flagged_not_a_crash():
     c = check_samples(s, sched, start_s=1.0)
     assert not c.mapping.usable and any("hardly moves" in f for f in c.flags)
     assert math.isnan(c.summary["accuracy_offset_gain_deg"]) and math.isnan(c.summary["pursuit_gain"])
-    with pytest.raises(AspectusInputError, match="does not follow the dots"):
+    with pytest.raises(AspectusInputError, match="does not follow the dots") as err:
         find_start(sched, s, params=CheckParams(align="xcorr"))
+    assert "--align given --start-s S" in str(err.value)  # the command's options, not an internal name
 
 
 def test_schedule_with_a_bad_position_is_refused(tmp_path):
@@ -249,6 +250,24 @@ def test_cli_make_and_table(tmp_path, capsys):
     assert main(["targets", "make", "-o", str(tmp_path / "seq"), "--screen-px", "1280", "800", "--screen-mm",
                  "286", "179", "--distance-mm", "550", "--seed", "7", "--no-video"]) == 0
     sched = read_schedule(tmp_path / "seq" / "schedule.json")
+    # the counts as the README and --targets give them: 13 grid dots of 2 s, and one 1-s dot before each of the
+    # 2 sweeps, which the check measures as still targets too (15)
+    made = capsys.readouterr().out
+    assert "13 still dots of 2 s" in made and "2 sweeps" in made and "(15 still targets in the check)" in made
+    assert len(sched.fixations) == 15 and len(sched.pursuits) == 4
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    para = " ".join(readme[readme.index("## Gaze quality without a lab tracker"):].split("\n\n")[1].split())
+    assert "13 still dots for 2 s each" in para and "15 still targets" in para, para
+    # a results folder without any check: an error that says so and what to do, nothing written
+    (tmp_path / "nochecks" / "p01").mkdir(parents=True)
+    (tmp_path / "nochecks" / "p01" / "run.json").write_text("{}")
+    assert main(["targets", "table", str(tmp_path / "nochecks"), "-o", str(tmp_path / "q0")]) == 2
+    err = capsys.readouterr().err
+    assert "no known-target checks found (it holds 1 processed clip folder, none with a target_check.json)" in err
+    assert "aspectus targets check CLIP" in err and str(tmp_path / "nochecks") in err
+    assert not (tmp_path / "q0" / "target_quality.csv").exists()
     assert sched.seed == 7 and sched.screen.viewing_distance_mm == 550.0
     assert (tmp_path / "seq" / "targets.html").exists() and not (tmp_path / "seq" / "targets.mp4").exists()
     # a bad screen is one line naming the problem, exit 2
