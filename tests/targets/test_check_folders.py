@@ -64,6 +64,10 @@ def test_key_is_the_batchs_before_and_after_the_batch(tmp_path):
     man = tmp_path / "study.csv"
     man.write_text("clip,participant\nstudy/classA/p01.mp4,p01\nstudy/classB/p01.mp4,p01\n")
     assert clip_output_key(b, None, study=man) == "classB__p01"
+    # and the record of a batch run on that manifest (clip paths relative to the manifest's folder)
+    out_m = tmp_path / "results_manifest"
+    run_batch(man, out_m, params=StandinParams(), workers=1, clip_fn=STANDIN)
+    assert clip_output_dir(out_m, a) == out_m / "classA__p01" and clip_output_dir(out_m, b) == out_m / "classB__p01"
 
 
 def test_check_refuses_to_write_over_another_clips_results(tmp_path, capsys):
