@@ -174,13 +174,40 @@ def _is_terminal(stream) -> bool:
 
 
 class ProgressBar(tqdm):
-    """A tqdm bar whose explicit ``refresh()`` calls are rate-limited off a terminal."""
+    """A tqdm bar; off a terminal (a log file, a pipe) it writes plain lines - one per draw, no carriage
+    returns or cursor codes, so several bars (``position``) never garble a log - and its explicit
+    ``refresh()`` calls are rate-limited."""
 
     def __init__(self, *args, **kwargs):
         stream = kwargs.get("file") or sys.stderr
         self._to_terminal = _is_terminal(stream)
         self._last_draw = -float("inf")
+        self._last_line = None
         super().__init__(*args, **kwargs)
+
+    def display(self, msg=None, pos=None):
+        if self._to_terminal:
+            return super().display(msg, pos)
+        line = (self.__str__() if msg is None else str(msg)).rstrip()
+        if line.strip() and line != self._last_line:  # an empty message is tqdm clearing its line: nothing to clear
+            self._last_line = line
+            self.fp.write(line + "\n")
+            self.fp.flush()
+        return None
+
+    def moveto(self, n):
+        if self._to_terminal:
+            super().moveto(n)
+
+    def clear(self, nolock=False):
+        if self._to_terminal:
+            super().clear(nolock=nolock)
+
+    def close(self):
+        if not self._to_terminal and not self.disable and self.leave:
+            self.leave = False  # tqdm would add a blank line after the last one; draw the final state instead
+            self.display()
+        super().close()
 
     def refresh(self, *args, **kwargs):
         if not self._to_terminal:

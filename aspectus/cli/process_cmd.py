@@ -82,7 +82,21 @@ def analysis_params_from_args(args):
         if k not in d:
             raise ParameterError(f"unknown analysis parameter {k!r}", hint="known: " + ", ".join(sorted(d)))
         d[k] = _parse_value(v.strip(), d[k], k, "--set")
-    return AnalysisParams.from_dict(d)
+    try:
+        return AnalysisParams.from_dict(d)
+    except ParameterError as exc:  # worded with the options the user typed, not the parameters' inner names
+        import re
+
+        def opt(m):
+            return _OPTION_OF[m.group(0)]
+
+        names = r"\b(?:" + "|".join(_OPTION_OF) + r")\b"
+        raise ParameterError(re.sub(names, opt, exc.problem), path=exc.path, where=exc.where,
+                             hint=re.sub(names, opt, exc.hint) if exc.hint else None) from None
+
+
+#: analysis parameters with an option of their own (every other one is given as --set NAME=VALUE)
+_OPTION_OF = {"window_s": "--window-s", "step_s": "--step-s"}
 
 
 def gaze_params_from_args(args):

@@ -150,3 +150,19 @@ def test_saved_mapping_keeps_the_tables_own_clock(tmp_path):
     ev = pd.read_csv(out / "events.csv")
     dt = 1.0 / 60.0
     assert ev["onset_s"].min() == pytest.approx(120.0 - dt / 2, abs=1e-6)
+
+
+@pytest.mark.parametrize("argv, said", [
+    (["--window-s", "0"], "--window-s must be a number of seconds > 0, got 0.0"),
+    (["--window-s", "10", "--step-s", "0.001"], "--step-s 0.001 s is less than 1/1000 of --window-s 10.0 s"),
+])
+def test_window_options_are_named_as_typed(tmp_path, capsys, argv, said):
+    """A refused window setting names the option the user typed, not the parameter's inner name."""
+    df, _ = step_signal(rate_hz=30.0)
+    src = tmp_path / "p02_s01.csv"
+    df[["t_s", "yaw_deg", "pitch_deg"]].to_csv(src, index=False)
+    rc = main(["events", str(src), "-o", str(tmp_path / "out")] + argv)
+    err = capsys.readouterr().err
+    assert rc == 2 and said in err, err
+    assert "window_s" not in err and "step_s" not in err
+    assert not (tmp_path / "out" / "features.csv").exists()
