@@ -860,6 +860,10 @@ class MainWindow(QMainWindow):
         if self.run is not None and self.run.is_running():
             self.statusBar().showMessage("Processing is already running.", 5000)
             return False
+        if self._check_cancel is not None:  # the check may be processing its clip into the same folder
+            self.statusBar().showMessage(f"The target check of {self._check_key} is running: process when it has "
+                                         "finished, or cancel it in the clip view.", 8000)
+            return False
         if self.study.path is None:
             if not self.save_study_as_dialog():
                 return False

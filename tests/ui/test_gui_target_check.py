@@ -60,6 +60,9 @@ def test_app_checks_a_clip_and_shows_the_figures(qtbot, tmp_path, target_clip):
     with qtbot.waitSignal(w.target_check_finished, timeout=300_000):
         assert w.check_targets(schedule=target_clip / "schedule.json")
         assert not v.check_bar.isHidden() and not v.check_cancel_btn.isHidden() and not v.check_btn.isEnabled()
+        # one job per clip folder at a time: no processing run and no second check while the check runs
+        assert not w.process([c.stem], force=True) and "target check" in w.statusBar().currentMessage()
+        assert not w.check_targets(schedule=target_clip / "schedule.json")
     out = w.study.clip_out_dir(c)
     doc = json.loads((out / "target_check.json").read_text())
     # the figures the library wrote are the ones shown
