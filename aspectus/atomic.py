@@ -159,16 +159,12 @@ def write_parquet(target, df: pd.DataFrame, metadata: dict | None = None, *, chu
     return Path(target)
 
 
-def sha256_file(path, chunk: int = 1 << 20) -> str:
-    """Hex SHA-256 of a file's bytes.
-
-    Raises :class:`~aspectus.errors.AspectusInputError` for a FIFO, socket or
-    device: reading one would block for good (it is opened without blocking
-    and checked before a byte is read).
-    """
+def _open_regular_file(path) -> int:
+    """A read-only descriptor of ``path``, opened without blocking and checked to be a regular file before a
+    byte is read: a FIFO, socket or device (which would block a read for good) raises
+    :class:`~aspectus.errors.AspectusInputError`."""
     from aspectus.errors import AspectusInputError
 
-    h = hashlib.sha256()
     fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0))
     try:
         if not stat.S_ISREG(os.fstat(fd).st_mode):
@@ -177,7 +173,18 @@ def sha256_file(path, chunk: int = 1 << 20) -> str:
     except BaseException:
         os.close(fd)
         raise
-    with os.fdopen(fd, "rb") as fh:
+    return fd
+
+
+def sha256_file(path, chunk: int = 1 << 20) -> str:
+    """Hex SHA-256 of a file's bytes.
+
+    Raises :class:`~aspectus.errors.AspectusInputError` for a FIFO, socket or
+    device: reading one would block for good (it is opened without blocking
+    and checked before a byte is read).
+    """
+    h = hashlib.sha256()
+    with os.fdopen(_open_regular_file(path), "rb") as fh:
         while True:
             b = fh.read(chunk)
             if not b:
@@ -202,19 +209,9 @@ class HashingReader(io.RawIOBase):
     """
 
     def __init__(self, path, *, first: int = 1 << 16):
-        from aspectus.errors import AspectusInputError
-
         super().__init__()
         self.name = str(path)
-        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0))
-        try:
-            if not stat.S_ISREG(os.fstat(fd).st_mode):
-                raise AspectusInputError("is not a regular file (a pipe, socket or device)", path=path,
-                                         hint="give the recorded file itself")
-        except BaseException:
-            os.close(fd)
-            raise
-        self._f = os.fdopen(fd, "rb", buffering=0)
+        self._f = os.fdopen(_open_regular_file(path), "rb", buffering=0)
         self._h = hashlib.sha256()
         self._done = 0  # bytes [0, _done) are in the hash
         self._digest: str | None = None
