@@ -48,8 +48,15 @@ from aspectus._env import import_cv2
 #: 12-15 mm), so an error of the PnP rotation moves their fitted translation - and with it the eyeball centres -
 #: less. At classroom scale it halves the head placement's error, but on large faces turning +-15 deg the points
 #: beside the eye turned away read worse (docs/notes/gaze-measurement.md), so it is an option, not the default.
+#: ``"below_and_facing_beside"``: the same points, but in each frame a point beside an eye is left out of the
+#: translation's refit while the head is turned away from it by more than :func:`turn_away_limits_deg`.
 ANCHOR_SETS = {"below": (229, 230, 231, 449, 450, 451),
-               "below_and_beside": (229, 230, 231, 449, 450, 451, 226, 35, 446, 265)}
+               "below_and_beside": (229, 230, 231, 449, 450, 451, 226, 35, 446, 265),
+               "below_and_facing_beside": (229, 230, 231, 449, 450, 451, 226, 35, 446, 265)}
+#: the sets whose points beside the eyes are left out while the head is turned away from them
+TURN_LIMITED_SETS = ("below_and_facing_beside",)
+#: the points beside the eyes (the rest of every set lies below the eyes and is always used)
+BESIDE_POINTS = (226, 35, 446, 265)
 DEFAULT_ANCHOR_SET = "below"
 #: every point any set may follow (what the eye crop must cover)
 ANCHOR_POINTS = tuple(dict.fromkeys(p for pts in ANCHOR_SETS.values() for p in pts))
@@ -65,6 +72,35 @@ MIN_SCORE = 0.6
 PATIENCE_FRAMES = 15
 #: ... or when the iris radius has changed by more than this fraction since it was cut
 RESCALE_FRACTION = 0.2
+
+
+def _surface_normal(points_mm: np.ndarray, j: int, k: int = 10) -> np.ndarray:
+    """The outward (towards -z, the face's front) unit normal of the model's surface at point ``j``: the
+    plane through its ``k`` nearest model points."""
+    d = np.linalg.norm(points_mm - points_mm[j], axis=1)
+    nb = points_mm[np.argsort(d)[:k]]
+    n = np.linalg.svd(nb - nb.mean(axis=0))[2][-1]
+    return -n if n[2] > 0 else n
+
+
+def turn_away_limits_deg(points, points_mm: np.ndarray) -> np.ndarray:
+    """For each of ``points``, the head yaw (deg, turned away from the point's side) beyond which it is left out.
+
+    Geometry, not a fit to clips: a point whose surface normal lies ``a`` deg (horizontally) from the face's
+    forward direction shows its template foreshortened sideways by ``cos(a + yaw) / cos(a)`` when the head
+    turns ``yaw`` away from it, against a template cut with the face towards the camera. The limit is the yaw
+    where that reaches ``1 - RESCALE_FRACTION``: the scale change beyond which the tracker cuts a new template
+    for a changed iris size. In the face model the points beside the eyes face 34-41 deg sideways, which gives
+    12-14 deg; points below the eyes get no limit (``inf``).
+    """
+    out = np.full(len(points), np.inf)
+    for i, j in enumerate(points):
+        if j not in BESIDE_POINTS:
+            continue
+        n = _surface_normal(points_mm, j)
+        a = abs(np.arctan2(n[0], -n[2]))
+        out[i] = np.degrees(np.arccos((1.0 - RESCALE_FRACTION) * np.cos(a)) - a)
+    return out
 
 
 #: below this iris radius (px) the anchors are not followed (as the limbus fit: a face a few dozen pixels wide)

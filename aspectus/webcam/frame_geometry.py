@@ -26,8 +26,8 @@ from pathlib import Path
 import numpy as np
 
 from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, ANCHOR_SETS, DEFAULT_ANCHOR_SET, MIN_ANCHOR_RADIUS_PX,
-                                         EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
-                                         translation_given_rotation)
+                                         TURN_LIMITED_SETS, EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
+                                         translation_given_rotation, turn_away_limits_deg)
 from aspectus.webcam.gaze import frame_measurements
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
@@ -112,6 +112,15 @@ class FrameGeometry:
         self.size_changes = 0
         self.anchors = EyeAnchorTracker(ANCHOR_SETS[anchor_set])
         self._anchors_model = self.anchors_model_mm(self.anchors.points)
+        # the sets that leave out a point beside an eye while the head is turned away from it: per point, the
+        # yaw limit and the sign of yaw that turns the head away from it (+ for the subject's right, model x < 0)
+        self._turn_limits = None
+        if anchor_set in TURN_LIMITED_SETS:
+            from aspectus.webcam.headpose import face_model
+
+            pts_mm = face_model().points_mm
+            self._turn_limits = (turn_away_limits_deg(self.anchors.points, pts_mm),
+                                 -np.sign(self._anchors_model[:, 0]))
         self.anchored_frames = 0
         self.unanchored_frames = 0
         self._anchor_minus_pnp: np.ndarray | None = None
@@ -205,7 +214,14 @@ class FrameGeometry:
         if eyes is not None and np.isfinite(r_px) and r_px >= MIN_ANCHOR_RADIUS_PX:
             off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
             a = self.anchors.update(eyes, points_px - off, r_px) + off[:2]
-            t_a = translation_given_rotation(R, self._anchors_model, a, self.solver.K)
+            model = self._anchors_model
+            if self._turn_limits is not None:
+                limit, away_sign = self._turn_limits
+                yaw = float(np.degrees(np.arctan2(R[0, 2], R[2, 2])))  # aspectus.geometry.rotation_to_head_angles
+                keep = away_sign * yaw <= limit
+                if not keep.all():
+                    model, a = model[keep], a[keep]
+            t_a = translation_given_rotation(R, model, a, self.solver.K)
             if t_a is not None:
                 self.anchored_frames += 1
                 self._anchor_minus_pnp = t_a - t_pnp

@@ -113,7 +113,7 @@ class GazeParams:
         eye picture, i.e. ``refine_iris``; without it the PnP translation
         is used (run.json counts the frames: ``eye_anchor_frames``,
         ``eye_anchor_fallback_frames``).
-    eye_anchor_set : {"below", "below_and_beside"}
+    eye_anchor_set : {"below", "below_and_beside", "below_and_facing_beside"}
         Which skin points the anchors follow (:data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`):
         ``"below"`` (default): three below each eye; ``"below_and_beside"``:
         also two beside each eye's outer corner, near the eyeball centres'
@@ -125,6 +125,11 @@ class GazeParams:
         point beside the eye turned away reads worse (median gaze error
         2.14 -> 2.25 and 1.78 -> 1.94 deg on two of three clips, 90th
         percentile 2.94 -> 4.19 on one; docs/notes/gaze-measurement.md).
+        ``"below_and_facing_beside"``: the same points, a point beside an
+        eye left out of the refit in frames where the head is turned away
+        from it by more than 12-14 deg (where its template has foreshortened
+        by the tracker's rescale limit:
+        :func:`aspectus.webcam.eye_anchors.turn_away_limits_deg`).
     fuse_in_head : bool
         With ``iris_combine`` "fuse" or "rescale": fit the mapping of the
         mesh point onto the limbus scale on both points' offsets from the

@@ -85,3 +85,53 @@ def test_translation_given_rotation_recovers_the_translation(yaw, pitch):
     px = np.c_[K[0, 0] * X[:, 0] / X[:, 2] + K[0, 2], K[1, 1] * X[:, 1] / X[:, 2] + K[1, 2]]
     np.testing.assert_allclose(translation_given_rotation(R, model, px, K), t, atol=1e-6)
     assert translation_given_rotation(R, model, px + np.nan, K) is None
+
+
+def test_points_beside_the_eyes_are_left_out_where_their_template_foreshortens_past_the_rescale_limit():
+    """The yaw limit of each point beside an eye is where its surface, turned with the head (aspectus.geometry's
+    convention: yaw > 0 turns the face towards the subject's right, camera -x), shows the camera
+    1 - RESCALE_FRACTION of its facing width; turned the other way the point faces the camera more."""
+    from aspectus.geometry import head_rotation
+    from aspectus.webcam.eye_anchors import BESIDE_POINTS, RESCALE_FRACTION, _surface_normal, turn_away_limits_deg
+    from aspectus.webcam.headpose import face_model
+
+    pts = face_model().points_mm
+    points = ANCHOR_SETS["below_and_facing_beside"]
+    limits = turn_away_limits_deg(points, pts)
+    assert np.isinf(limits[[points.index(p) for p in ANCHOR_POINTS]]).all()
+    for p in BESIDE_POINTS:
+        lim = limits[points.index(p)]
+        assert 8.0 < lim < 20.0
+        n = _surface_normal(pts, p)
+        n_flat = np.array([n[0], 0.0, n[2]]) / np.hypot(n[0], n[2])  # its sideways facing only
+        away = 1.0 if pts[p, 0] < 0 else -1.0  # the subject's right side turns away with yaw > 0
+        facing = -n_flat[2]
+        assert -(head_rotation(away * lim, 0, 0) @ n_flat)[2] / facing == pytest.approx(1 - RESCALE_FRACTION, abs=1e-6)
+        assert -(head_rotation(-away * lim, 0, 0) @ n_flat)[2] / facing > 1.0
+
+
+@pytest.mark.parametrize("yaw_deg, right_used", [(0.0, True), (20.0, False), (-20.0, True)])
+def test_a_point_beside_the_eye_the_head_is_turned_away_from_leaves_the_refit(yaw_deg, right_used):
+    """With ``below_and_facing_beside``, the points beside the right eye (subject's right, model x < 0) are left out
+    of the translation's refit when the head is turned 20 deg to the right (beyond their 12-14 deg limits), and used
+    otherwise; ``below_and_beside`` always uses them. The mesh is a perfect projection of the face model except for
+    a 3 px error on the right eye's beside points, so the refit is exact exactly when they are left out."""
+    from aspectus.geometry import head_rotation
+    from aspectus.webcam.frame_geometry import FrameGeometry
+    from aspectus.webcam.headpose import HeadPoseSolver, face_model
+
+    R, t = head_rotation(yaw_deg, 0.0, 0.0), np.array([5.0, -3.0, 600.0])
+    fits = {}
+    for name in ("below_and_beside", "below_and_facing_beside"):
+        geo = FrameGeometry(fov_deg=60.0, refine_iris=True, anchor_set=name)
+        geo.solver = HeadPoseSolver(640, 480, fov_deg=60.0)
+        K = geo.solver.K
+        cam = face_model().points_mm @ R.T + t
+        pts = np.c_[K[0, 0] * cam[:, 0] / cam[:, 2] + K[0, 2], K[1, 1] * cam[:, 1] / cam[:, 2] + K[1, 2], cam[:, 2]]
+        pts[[226, 35], 0] += 3.0
+        img = _texture(shape=(480, 640))
+        fits[name] = geo._anchored_translation(R, t + 50.0, {"iris_diam_px": np.array([12.0, 12.0])},
+                                               img.round().astype(np.uint8), pts, (0, 0))
+    assert np.linalg.norm(fits["below_and_beside"] - t) > 0.1
+    exact = np.linalg.norm(fits["below_and_facing_beside"] - t) < 1e-6
+    assert exact != right_used
