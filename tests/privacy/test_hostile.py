@@ -296,7 +296,7 @@ def test_unbounded_feature_windows_are_refused(tmp_path, capsys):
     src.write_text(_table())
     assert main(["events", str(src), "-o", str(tmp_path / "o"), *TABLE_ARGS, "--window-s", "1", "--step-s", "1e-7"]) == 2
     err = capsys.readouterr().err
-    assert "step_s" in err and "window" in err and "Traceback" not in err
+    assert "--step-s" in err and "--window-s" in err and "Traceback" not in err
     from aspectus.events.segments import MAX_WINDOWS, fixed_windows
 
     with pytest.raises(ParameterError, match="windows"):
