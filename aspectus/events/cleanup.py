@@ -160,6 +160,19 @@ def sample_spans(t_s, dt_s: float, hole_after=None) -> tuple[np.ndarray, np.ndar
     return lo, hi
 
 
+def spans_and_real_counts(t_s, dt_s: float, lo_s=None, hi_s=None, inserted=None):
+    """The spans of the samples (:func:`sample_spans` when ``lo_s``/``hi_s`` are not given) and the running
+    count of real samples (not rows inserted for holes): ``creal[j] - creal[i]`` real samples in ``[i, j)``.
+
+    Returns ``(lo_s, hi_s, creal)`` as float, float and int arrays (``creal`` has one element more than ``t_s``).
+    """
+    n = len(t_s)
+    if lo_s is None or hi_s is None:
+        lo_s, hi_s = sample_spans(t_s, dt_s)
+    real = ~np.asarray(inserted, bool) if inserted is not None else np.ones(n, bool)
+    return np.asarray(lo_s, float), np.asarray(hi_s, float), np.concatenate([[0], np.cumsum(real)])
+
+
 def _fill_time_holes(df: pd.DataFrame, dt: float, gap_fill_max_ms: float):
     """Insert not-valid rows for the holes in the time axis (step 0 of the module docstring).
 

@@ -79,7 +79,7 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
     pandas.DataFrame
         One row per scope: :data:`SCOPE_COLUMNS`, :data:`FEATURE_COLUMNS`, n_samples.
     """
-    from aspectus.events.cleanup import sample_spans
+    from aspectus.events.cleanup import spans_and_real_counts
 
     t = np.asarray(t_s, dtype=float)
     n = len(t)
@@ -87,12 +87,7 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
     x = np.asarray(yaw_deg, dtype=float)
     y = np.asarray(pitch_deg, dtype=float)
     dt = (float(np.median(np.diff(t))) if n > 1 else 0.0) if sample_interval_s is None else float(sample_interval_s)
-    if lo_s is None or hi_s is None:
-        lo_s, hi_s = sample_spans(t, dt)
-    lo_s = np.asarray(lo_s, float)
-    hi_s = np.asarray(hi_s, float)
-    real = ~np.asarray(inserted, bool) if inserted is not None else np.ones(n, bool)
-    creal = np.concatenate([[0], np.cumsum(real)])
+    lo_s, hi_s, creal = spans_and_real_counts(t, dt, lo_s, hi_s, inserted)
     cval = np.concatenate([[0], np.cumsum(valid)])
     rate_hz = 1.0 / dt if dt > 0 else np.nan
 

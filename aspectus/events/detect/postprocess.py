@@ -514,7 +514,7 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
         ``"fixation"``, ``"saccade"``, ``"blink"``, ``"loss"`` or
         ``"unclassified"`` per sample.
     """
-    from aspectus.events.cleanup import sample_spans
+    from aspectus.events.cleanup import spans_and_real_counts
 
     t = np.asarray(t_s, dtype=float)
     x = np.asarray(yaw_deg, dtype=float)
@@ -527,12 +527,7 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
     if n == 0:
         return empty_events(), LABEL_NAMES[codes]
     dt = float(np.median(np.diff(t))) if n > 1 else 0.0
-    if lo_s is None or hi_s is None:
-        lo_s, hi_s = sample_spans(t, dt)
-    lo_s = np.asarray(lo_s, float)
-    hi_s = np.asarray(hi_s, float)
-    real = ~np.asarray(inserted, bool) if inserted is not None else np.ones(n, bool)
-    creal = np.concatenate([[0], np.cumsum(real)])
+    lo_s, hi_s, creal = spans_and_real_counts(t, dt, lo_s, hi_s, inserted)
     blocked = blink | loss
     s, e = np.asarray(candidates.starts, dtype=np.int64), np.asarray(candidates.ends, dtype=np.int64)
     rate = 1.0 / dt if dt > 0 else float("nan")
