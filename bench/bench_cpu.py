@@ -102,7 +102,7 @@ def breakdown(clip: Path) -> dict:
     from aspectus.webcam.frame_geometry import _BATCH, FrameGeometry, frame_item
     from aspectus.webcam.landmarks import FaceTracker
     from aspectus.webcam.pipeline import ProcessParams, _write_outputs, extract_samples, summarise
-    from aspectus.webcam.video import _fix_decoder_threads, _reformatter, _upright_rgb
+    from aspectus.webcam.video import _fix_decoder_threads, _reformatter, upright_rgb
 
     cpu = dict.fromkeys(("decode", "yuv->rgb", "mesh", "geometry", "hand-over", "hashing", "events/features",
                          "writing"), 0.0)
@@ -127,7 +127,7 @@ def breakdown(clip: Path) -> dict:
             if fr is None:
                 break
             c = pt()
-            img = _upright_rgb(fr, reformatter)
+            img = upright_rgb(fr, reformatter)
             cpu["yuv->rgb"] += pt() - c
             c, w0 = pt(), time.perf_counter()
             obs = tracker.process(img)

@@ -21,6 +21,7 @@ from PySide6.QtWidgets import (QCheckBox, QGridLayout, QHBoxLayout, QLabel, QPro
                                QSlider, QStyle, QToolButton, QVBoxLayout, QWidget)
 
 from aspectus.webcam import overlay
+from aspectus.webcam.video import upright_rgb
 
 from .theme import fmt
 
@@ -137,10 +138,7 @@ class FrameLoader(QObject):
                     decoder = None
                     continue
                 t, fr = frame
-                img = fr.to_ndarray(format="rgb24")
-                rot = int(round(float(getattr(fr, "rotation", 0) or 0) / 90.0)) % 4
-                if rot:
-                    img = np.ascontiguousarray(np.rot90(img, rot))
+                img = upright_rgb(fr)  # the same rule as processing: quarter turns and mirroring matrices
                 lms = None
                 if find_face:
                     if landmarker is None:

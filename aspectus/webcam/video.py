@@ -261,7 +261,7 @@ def _frame_time(fr, tb, last_t, dt_nominal, report: DecodeReport) -> float:
     return t
 
 
-def _upright_rgb(fr, reformatter=None) -> np.ndarray:
+def upright_rgb(fr, reformatter=None) -> np.ndarray:
     """The frame as an RGB array with its rotation metadata applied.
 
     ``reformatter`` (a PyAV ``VideoReformatter`` kept for a clip's frames) keeps the scaler set up from one
@@ -363,14 +363,14 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
                 if fr.width * fr.height > max_pixels:
                     raise VideoError(f"picture size {fr.width}x{fr.height} is too large", path=path,
                                      where=f"frame {index}")
-                yield Frame(index=index, pts_s=last_t, image=_upright_rgb(fr, reformatter))
+                yield Frame(index=index, pts_s=last_t, image=upright_rgb(fr, reformatter))
                 index += 1
                 report.frames = index
         # flush the decoder
         try:
             for fr in st.codec_context.decode(None):
                 last_t = _frame_time(fr, tb, last_t, dt_nominal, report)
-                yield Frame(index=index, pts_s=last_t, image=_upright_rgb(fr, reformatter))
+                yield Frame(index=index, pts_s=last_t, image=upright_rgb(fr, reformatter))
                 index += 1
                 report.frames = index
         except av.error.FFmpegError:
@@ -505,7 +505,7 @@ def read_frame_at(path, t_s: float) -> Frame | None:
             if fr.pts is None:
                 continue
             t = float(fr.pts * tb) - first_t
-            best = Frame(index=-1, pts_s=t + first_t, image=_upright_rgb(fr))
+            best = Frame(index=-1, pts_s=t + first_t, image=upright_rgb(fr))
             if t >= t_s - 1e-6:
                 break
         return best
