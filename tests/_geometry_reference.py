@@ -129,14 +129,14 @@ def anchors_update(self, image: np.ndarray, points_px: np.ndarray, iris_radius_p
     for j, xi, yi, (x0, y0, x1, y1) in jobs:
         pk = None
         if grey is not None and _grey_box_ok(image, (x0, y0, x1, y1)):
-            tpl, sub, _, _ = self._templates[j]
+            tpl, sub = self._templates[j][:2]
             win = grey[y0 - by0:y1 - by0, x0 - bx0:x1 - bx0]
             pk = _peak(cv2.matchTemplate(win, tpl, cv2.TM_CCOEFF_NORMED))
         if pk is None or not pk[2] >= MIN_SCORE:
             self._misses[j] += 1
             self.missed += 1
             continue
-        tpl, sub, _, _ = self._templates[j]
+        tpl, sub = self._templates[j][:2]
         fx, fy = xi - s + pk[0] + sub[0], yi - s + pk[1] + sub[1]
         self.offsets_px[j] = (min(bound, max(-bound, fx - mesh[j, 0])), min(bound, max(-bound, fy - mesh[j, 1])))
         self._misses[j] = 0

@@ -72,9 +72,13 @@ MIN_SCORE = 0.6
 PATIENCE_FRAMES = 15
 #: ... or when the iris radius has changed by more than this fraction since it was cut
 RESCALE_FRACTION = 0.2
+#: ... or (when the tracker is given the head rotation) when the head has turned by more than this since it was
+#: cut: the angle whose sine is :data:`RESCALE_FRACTION`, so that a point at the template's edge has moved by the
+#: same fraction of the half-width as under the scale rule (11.5 deg)
+RECUT_ROTATION_DEG = float(np.degrees(np.arcsin(RESCALE_FRACTION)))
 
 
-def _surface_normal(points_mm: np.ndarray, j: int, k: int = 10) -> np.ndarray:
+def surface_normal(points_mm: np.ndarray, j: int, k: int = 10) -> np.ndarray:
     """The outward (towards -z, the face's front) unit normal of the model's surface at point ``j``: the
     plane through its ``k`` nearest model points."""
     d = np.linalg.norm(points_mm - points_mm[j], axis=1)
@@ -97,7 +101,7 @@ def turn_away_limits_deg(points, points_mm: np.ndarray) -> np.ndarray:
     for i, j in enumerate(points):
         if j not in BESIDE_POINTS:
             continue
-        n = _surface_normal(points_mm, j)
+        n = surface_normal(points_mm, j)
         a = abs(np.arctan2(n[0], -n[2]))
         out[i] = np.degrees(np.arccos((1.0 - RESCALE_FRACTION) * np.cos(a)) - a)
     return out
@@ -163,27 +167,37 @@ class EyeAnchorTracker:
         self._misses = [0] * len(self.points)
         self.matched = 0
         self.missed = 0
+        #: per point, whether the last :meth:`update` placed it by a match (within the offset bound)
+        self.last_matched = np.zeros(len(self.points), bool)
+        #: per point, whether the last :meth:`update` cut its template (at the position it returned)
+        self.last_cut = np.zeros(len(self.points), bool)
 
-    def _cut(self, j: int, image: np.ndarray, p, half: int, r: float) -> None:
+    def _cut(self, j: int, image: np.ndarray, p, half: int, r: float, rotation=None) -> None:
         xi, yi = int(round(p[0])), int(round(p[1]))
         tpl = _grey(image, xi - half, yi - half, xi + half + 1, yi + half + 1)
-        self._templates[j] = None if tpl is None else (tpl, (p[0] - xi, p[1] - yi), half, r)
+        self._templates[j] = None if tpl is None else (tpl, (p[0] - xi, p[1] - yi), half, r, rotation)
         self._misses[j] = 0
+        self.last_cut[j] = tpl is not None
 
-    def update(self, image: np.ndarray, points_px: np.ndarray, iris_radius_px: float) -> np.ndarray:
+    def update(self, image: np.ndarray, points_px: np.ndarray, iris_radius_px: float,
+               rotation: np.ndarray | None = None) -> np.ndarray:
         """The anchors' picture positions (k, 2) in this frame: the mesh's points plus the followed offsets.
 
-        ``image`` is the picture or a crop of it, and ``points_px`` are in the same coordinates.
+        ``image`` is the picture or a crop of it, and ``points_px`` are in the same coordinates. ``rotation``
+        (the head rotation of this frame, 3 x 3), when given, also cuts a template again once the head has
+        turned by :data:`RECUT_ROTATION_DEG` since it was cut.
         """
         r = float(iris_radius_px)
         mesh = np.asarray(points_px, float)[self._rows, :2]
+        self.last_matched[:] = False
+        self.last_cut[:] = False
         if not (np.isfinite(r) and r > 0 and np.all(np.isfinite(mesh))):
             return mesh + self.offsets_px
         half = max(3, int(round(PATCH_RADII * r)))
         if self._templates is None:
             self._templates = [None] * len(self.points)
             for j in range(len(self.points)):
-                self._cut(j, image, mesh[j].tolist(), half, r)
+                self._cut(j, image, mesh[j].tolist(), half, r, rotation)
             return mesh + self.offsets_px
         cv2 = import_cv2()
         s = max(2, int(round(SEARCH_RADII * r)))
@@ -195,8 +209,9 @@ class EyeAnchorTracker:
         h, w = image.shape[:2]
         jobs = []  # (anchor, window box) of the anchors matched in this frame
         for j, t in enumerate(self._templates):
-            if t is None or abs(t[3] / r - 1.0) > RESCALE_FRACTION or self._misses[j] >= PATIENCE_FRAMES:
-                self._cut(j, image, [mesh_l[j][0] + offsets[j][0], mesh_l[j][1] + offsets[j][1]], half, r)
+            if (t is None or abs(t[3] / r - 1.0) > RESCALE_FRACTION or self._misses[j] >= PATIENCE_FRAMES
+                    or _turned(rotation, t[4])):
+                self._cut(j, image, [mesh_l[j][0] + offsets[j][0], mesh_l[j][1] + offsets[j][1]], half, r, rotation)
                 continue
             e = t[2] + s
             xi, yi = int(round(pred[j][0])), int(round(pred[j][1]))
@@ -213,7 +228,7 @@ class EyeAnchorTracker:
             grey = _grey(image, bx0, by0, max(b[2] for b in inside), max(b[3] for b in inside))
         for j, xi, yi, (x0, y0, x1, y1), ok in jobs:
             pk = None
-            tpl, sub, _, _ = self._templates[j]
+            tpl, sub = self._templates[j][:2]
             if grey is not None and ok:
                 win = grey[y0 - by0:y1 - by0, x0 - bx0:x1 - bx0]
                 pk = _peak(cv2.matchTemplate(win, tpl, cv2.TM_CCOEFF_NORMED))
@@ -223,10 +238,23 @@ class EyeAnchorTracker:
                 continue
             fx, fy = xi - s + pk[0] + sub[0], yi - s + pk[1] + sub[1]
             mx, my = mesh_l[j]
-            self.offsets_px[j] = (min(bound, max(-bound, fx - mx)), min(bound, max(-bound, fy - my)))
+            ox, oy = fx - mx, fy - my
+            self.offsets_px[j] = (min(bound, max(-bound, ox)), min(bound, max(-bound, oy)))
+            self.last_matched[j] = abs(ox) <= bound and abs(oy) <= bound
             self._misses[j] = 0
             self.matched += 1
         return mesh + self.offsets_px
+
+
+def _turned(rotation, cut_rotation) -> bool:
+    """Whether the head has turned by more than :data:`RECUT_ROTATION_DEG` between two rotations (None: no)."""
+    if rotation is None or cut_rotation is None:
+        return False
+    c = 0.5 * (float(np.trace(np.asarray(rotation) @ np.asarray(cut_rotation).T)) - 1.0)
+    return c < _RECUT_COS
+
+
+_RECUT_COS = float(np.cos(np.radians(RECUT_ROTATION_DEG)))
 
 
 def _grey_box_ok(image: np.ndarray, box) -> bool:

@@ -32,6 +32,7 @@ from aspectus.webcam.gaze import frame_measurements
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
 from aspectus.webcam.limbus import ROI_RADII, limbus_centres_many
+from aspectus.webcam.skin_pose import SKIN_POSE_POINTS, SkinPose
 
 #: columns of one row of the per-frame record (the width of each block in brackets)
 RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_mm", 3), ("iris_px", 4),
@@ -50,19 +51,24 @@ PROCESS_MIN_FRAMES = 450
 #: (the diameters as :func:`aspectus.webcam.gaze.frame_measurements` measures them), then the eye anchors
 _CROP_POINTS = np.array([RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE, RIGHT_IRIS_RING[0], RIGHT_IRIS_RING[2],
                          LEFT_IRIS_RING[0], LEFT_IRIS_RING[2], *ANCHOR_POINTS])
+#: the same with the skin points the head rotation is followed by (:mod:`aspectus.webcam.skin_pose`)
+_CROP_POINTS_SKIN = np.array([*_CROP_POINTS, *(p for p in SKIN_POSE_POINTS if p not in ANCHOR_POINTS)])
 
 
-def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int]) -> tuple[int, int, int, int] | None:
+def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int], *,
+                 skin_pose: bool = False) -> tuple[int, int, int, int] | None:
     """``(x0, y0, x1, y1)``: the part of the picture the iris refinement and the eye anchors read, or None.
 
     The union of the limbus fit's two eye regions (:data:`aspectus.webcam.limbus.ROI_RADII`
     iris radii around each mesh iris point) with a 2 px margin and of the
     eye anchors' reach (:func:`aspectus.webcam.eye_anchors.anchor_reach_px` around
-    each anchor's mesh point), clipped to the picture.
+    each anchor's mesh point), clipped to the picture. With ``skin_pose`` the
+    same reach around the skin points the head rotation is followed by
+    (:data:`aspectus.webcam.skin_pose.SKIN_POSE_POINTS`: most of the face).
     """
     w, h = size_px
     # read straight from the landmarks (this runs on the face mesh's thread, which sets the pipeline's pace)
-    p = np.asarray(points_px)[_CROP_POINTS, :2]
+    p = np.asarray(points_px)[_CROP_POINTS_SKIN if skin_pose else _CROP_POINTS, :2]
     c, ends = p[:2], p[2:6]
     r = 0.5 * np.sqrt(np.square(ends[0::2] - ends[1::2]).sum(axis=1))  # half the iris diameters
     if not (np.isfinite(c).all() and np.isfinite(r).all()):
@@ -100,13 +106,20 @@ class FrameGeometry:
         rotation move by about a millimetre at 5 deg.
     anchor_set : str
         Which skin points are followed (a key of :data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`).
+    skin_pose : bool
+        With the eye picture (``refine_iris``): the head rotation from skin
+        points over the face followed on the picture
+        (:mod:`aspectus.webcam.skin_pose`) instead of PnP on the face mesh's
+        points, which follows the gaze. The picture handed in must then be
+        the crop ``eye_crop_box(..., skin_pose=True)`` gives (or the whole picture).
     """
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
         self.fov_deg = float(fov_deg)
         self.refine_iris = bool(refine_iris)
         self.eye_anchors = bool(eye_anchors)
+        self.skin = SkinPose() if skin_pose else None
         self.solver: HeadPoseSolver | None = None
         self.size: tuple[int, int] | None = None
         self.size_changes = 0
@@ -169,6 +182,8 @@ class FrameGeometry:
             self.solver = HeadPoseSolver(w, h, fov_deg=self.fov_deg)
             self.anchors.reset()
             self._anchor_minus_pnp = None
+            if self.skin is not None:
+                self.skin.reset()
         row = np.full(RECORD_WIDTH, np.nan)
         row[0] = pts_s
         row[1] = 0.0
@@ -183,6 +198,8 @@ class FrameGeometry:
             return row, None
         R, t = pose
         m = frame_measurements(points_px)
+        if self.skin is not None:
+            R = self._skin_rotation(R, t, m, eyes, points_px, eyes_origin_px)
         iris = m["iris_px"]
         job = None
         if self.refine_iris and eyes is not None:
@@ -200,6 +217,14 @@ class FrameGeometry:
         row[29:31] = m["ear"]
         row[31:35] = m["iris_px"].ravel()
         return row, job
+
+    def _skin_rotation(self, R_mesh, t_mesh, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
+        """The head rotation from the skin points (:class:`aspectus.webcam.skin_pose.SkinPose`), or where they
+        cannot be followed (no picture, an iris too small) the mesh's turned by the last solved difference."""
+        r_px = anchor_radius_px(m["iris_diam_px"])
+        if eyes is not None and np.isfinite(r_px) and r_px >= MIN_ANCHOR_RADIUS_PX:
+            return self.skin.update(eyes, points_px, eyes_origin_px, r_px, self.solver.K, R_mesh, t_mesh)
+        return self.skin.fallback(R_mesh)
 
     def _anchored_translation(self, R, t_pnp, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
         """The head translation refitted to the eye anchors, the rotation held.
@@ -233,7 +258,9 @@ class FrameGeometry:
         return {"K": None if self.solver is None else self.solver.K, "size": self.size,
                 "size_changes": self.size_changes, "anchored_frames": self.anchored_frames,
                 "unanchored_frames": self.unanchored_frames, "anchor_matches": self.anchors.matched,
-                "anchor_misses": self.anchors.missed}
+                "anchor_misses": self.anchors.missed,
+                "skin_pose_frames": None if self.skin is None else self.skin.solved_frames,
+                "skin_pose_fallback_frames": None if self.skin is None else self.skin.fallback_frames}
 
 
 def peak_rss_mb() -> float | None:
@@ -258,8 +285,10 @@ def peak_rss_mb() -> float | None:
     return round(peak / (2**20 if sys.platform == "darwin" else 2**10), 1)  # bytes on macOS, KiB elsewhere
 
 
-def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool, faces_in_view: int = 0) -> tuple:
-    """What the geometry of one frame needs, with the picture cut down to the eyes.
+def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool, faces_in_view: int = 0,
+               skin_pose: bool = False) -> tuple:
+    """What the geometry of one frame needs, with the picture cut down to the eyes (with ``skin_pose``, to the
+    eyes and the skin points the head rotation is followed by).
 
     ``faces_in_view`` is the face count recorded when the followed face was not found (``obs`` None):
     other faces may be in view.
@@ -269,7 +298,7 @@ def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool, faces
         return pts_s, (w, h), None, int(faces_in_view), None, (0, 0)
     eyes, origin = None, (0, 0)
     if refine_iris:
-        box = eye_crop_box(obs.points_px, (w, h))
+        box = eye_crop_box(obs.points_px, (w, h), skin_pose=skin_pose)
         if box is not None:
             x0, y0, x1, y1 = box
             eyes, origin = np.ascontiguousarray(image[y0:y1, x0:x1]), (x0, y0)
@@ -282,9 +311,9 @@ class GeometryThread:
     kind = "thread"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
-                                  anchor_set=anchor_set)
+                                  anchor_set=anchor_set, skin_pose=skin_pose)
         self._sink = sink
         self._q: queue.Queue = queue.Queue(maxsize=2 * _BATCH)  # room for a whole batch of limbus fits
         self._failure: list[BaseException] = []
@@ -338,9 +367,9 @@ class GeometryInline:
     kind = "inline"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
-                                  anchor_set=anchor_set)
+                                  anchor_set=anchor_set, skin_pose=skin_pose)
         self._sink = sink
         self._pending: list = []
 
@@ -369,17 +398,19 @@ class GeometryInline:
 def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
-    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET]]``. Anything else
+    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE]]]``. Anything else
     that would print to stdout goes to stderr, so it cannot corrupt the replies.
     """
     args = list(sys.argv[1:] if argv is None else argv)
     fov_deg, refine_iris = float(args[0]), args[1] == "1"
     eye_anchors = len(args) < 3 or args[2] == "1"
     anchor_set = args[3] if len(args) > 3 else DEFAULT_ANCHOR_SET
+    skin_pose = len(args) > 4 and args[4] == "1"
     out = os.fdopen(os.dup(1), "wb")
     os.dup2(2, 1)  # stray prints from libraries go to stderr
     inp = sys.stdin.buffer
-    geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors, anchor_set=anchor_set)
+    geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors, anchor_set=anchor_set,
+                        skin_pose=skin_pose)
 
     def reply(obj) -> bool:
         try:
@@ -440,13 +471,13 @@ class GeometryProcess:
     kind = "process"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
         self._sink = sink
         if anchor_set not in ANCHOR_SETS:
             raise ValueError(f"anchor set must be one of {', '.join(ANCHOR_SETS)}, got {anchor_set!r}")
         self._proc = subprocess.Popen(
             [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parents[1]), repr(float(fov_deg)),
-             "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set],
+             "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set, "1" if skin_pose else "0"],
             stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._out: queue.Queue = queue.Queue(maxsize=32)  # batches in flight: some 30 MB of eye crops at most
         self._pending: list = []
@@ -540,22 +571,24 @@ class GeometryProcess:
 
 
 def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
-                   eye_anchors: bool = True, anchor_set: str = DEFAULT_ANCHOR_SET):
+                   eye_anchors: bool = True, anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
     """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
     application, or when no child can be started); ``mode`` forces ``"thread"``, ``"process"`` or
-    ``"inline"`` (:class:`GeometryInline`, in the calling thread)."""
+    ``"inline"`` (:class:`GeometryInline`, in the calling thread). ``skin_pose``: the head rotation from skin
+    points followed on the picture (:class:`FrameGeometry`); the frames must then be cut with
+    ``frame_item(..., skin_pose=True)``."""
     if mode not in ("auto", "thread", "process", "inline"):
         raise ValueError(f"geometry mode must be auto, thread, process or inline, got {mode!r}")
     if mode == "inline":
         return GeometryInline(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
-                              anchor_set=anchor_set)
+                              anchor_set=anchor_set, skin_pose=skin_pose)
     frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
             return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
-                              anchor_set=anchor_set)
+                              anchor_set=anchor_set, skin_pose=skin_pose)
         except OSError:
             if mode == "process":
                 raise
     return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
-                              anchor_set=anchor_set)
+                              anchor_set=anchor_set, skin_pose=skin_pose)

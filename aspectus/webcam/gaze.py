@@ -130,6 +130,18 @@ class GazeParams:
         from it by more than 12-14 deg (where its template has foreshortened
         by the tracker's rescale limit:
         :func:`aspectus.webcam.eye_anchors.turn_away_limits_deg`).
+    head_rotation : {"mesh", "skin"}
+        Where the head rotation comes from (with ``refine_iris``, which
+        sends the picture to the per-frame geometry). ``"mesh"`` (default):
+        PnP on the face mesh's rigid points (:mod:`aspectus.webcam.headpose`),
+        which follow the eyes: on a still-head 720p clip its pitch moved
+        with the gaze pitch (r -0.85, SD 0.34 deg). ``"skin"``: PnP on skin
+        points over the face followed on the picture against key frames
+        (:mod:`aspectus.webcam.skin_pose`): there r -0.02, SD 0.05 deg, and
+        at 12 px pitch gain 0.90 -> 1.00; but with the head turning +-15
+        deg on a 25 px clip its rotation error grew (yaw SD 0.9 -> 1.9 deg,
+        median gaze error 1.9 -> 3.3 deg), so it is not the default
+        (docs/notes/gaze-measurement.md).
     fuse_in_head : bool
         With ``iris_combine`` "fuse" or "rescale": fit the mapping of the
         mesh point onto the limbus scale on both points' offsets from the
@@ -154,6 +166,7 @@ class GazeParams:
     decouple_highpass_s: float = 0.7
     eye_anchors: bool = True
     eye_anchor_set: str = "below"
+    head_rotation: str = "mesh"
     mirrored: bool = False
     fuse_in_head: bool = True
 
@@ -171,6 +184,8 @@ class GazeParams:
         if self.eye_anchor_set not in ANCHOR_SETS:
             raise ParameterError(f"gaze parameter eye_anchor_set = {self.eye_anchor_set!r} is not one of "
                                  f"{', '.join(ANCHOR_SETS)}")
+        if self.head_rotation not in ("mesh", "skin"):
+            raise ParameterError(f"gaze parameter head_rotation = {self.head_rotation!r} is not one of mesh, skin")
         if self.iris_combine not in ("limbus", "rescale", "fuse"):
             raise ParameterError(f"gaze parameter iris_combine = {self.iris_combine!r} is not one of "
                                  "limbus, rescale, fuse")

@@ -218,6 +218,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     rec = _Grow(RECORD_WIDTH, cap=min(max(n_hint + 16, 64), 1 << 20))
     t0 = time.perf_counter()
     refine = bool(params.gaze.refine_iris)
+    skin = refine and params.gaze.head_rotation == "skin"
     serial = resolve_stages(stages) == "serial"
     tracker = FaceTracker(max_faces=params.max_faces, face=params.face)
     if serial:  # one thread, one core: no hand-over between stages at all
@@ -240,7 +241,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     sys.setswitchinterval(0.0005)
     geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=rec.append, frames_hint=n_hint,
                               mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors),
-                              anchor_set=params.gaze.eye_anchor_set)
+                              anchor_set=params.gaze.eye_anchor_set, skin_pose=skin)
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
         pin_to_cpus(background, geometry.pid)
@@ -255,7 +256,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                 obs = tracker.process(fr.image)
             except FaceChoiceError as exc:
                 raise FaceChoiceError(exc.problem, path=clip, hint=exc.hint) from None
-            geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine, faces_in_view=tracker.faces_in_view))
+            geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine, faces_in_view=tracker.faces_in_view,
+                                       skin_pose=skin))
             n_in += 1
             if progress is not None and (n_in % 10 == 0):
                 progress(min(n_in / n_hint, 0.99), f"{clip.name}: frame {n_in} of about {n_hint}")
@@ -305,6 +307,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         "eye_anchor_frames": state.get("anchored_frames"),
         "eye_anchor_fallback_frames": state.get("unanchored_frames"),
         "eye_anchor_match_frac": _fraction(state.get("anchor_matches"), state.get("anchor_misses")),
+        "skin_pose_frames": state.get("skin_pose_frames"),
+        "skin_pose_fallback_frames": state.get("skin_pose_fallback_frames"),
         "geometry_process_peak_rss_mb": state.get("peak_rss_mb"),
         "landmarking_s": round(t_land, 3),
         "landmarking_fps": round(n / t_land, 1) if t_land > 0 else None,

@@ -92,7 +92,7 @@ def test_points_beside_the_eyes_are_left_out_where_their_template_foreshortens_p
     convention: yaw > 0 turns the face towards the subject's right, camera -x), shows the camera
     1 - RESCALE_FRACTION of its facing width; turned the other way the point faces the camera more."""
     from aspectus.geometry import head_rotation
-    from aspectus.webcam.eye_anchors import BESIDE_POINTS, RESCALE_FRACTION, _surface_normal, turn_away_limits_deg
+    from aspectus.webcam.eye_anchors import BESIDE_POINTS, RESCALE_FRACTION, surface_normal, turn_away_limits_deg
     from aspectus.webcam.headpose import face_model
 
     pts = face_model().points_mm
@@ -102,7 +102,7 @@ def test_points_beside_the_eyes_are_left_out_where_their_template_foreshortens_p
     for p in BESIDE_POINTS:
         lim = limits[points.index(p)]
         assert 8.0 < lim < 20.0
-        n = _surface_normal(pts, p)
+        n = surface_normal(pts, p)
         n_flat = np.array([n[0], 0.0, n[2]]) / np.hypot(n[0], n[2])  # its sideways facing only
         away = 1.0 if pts[p, 0] < 0 else -1.0  # the subject's right side turns away with yaw > 0
         facing = -n_flat[2]

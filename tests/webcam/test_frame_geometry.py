@@ -65,10 +65,10 @@ def test_crop_at_the_picture_edge_is_clipped(frames_and_faces):
     assert eye_crop_box(bad, (640, 360)) is None
 
 
-def _run(runner_cls_or_mode, items):
+def _run(runner_cls_or_mode, items, **kw):
     rows = []
     g = start_geometry(fov_deg=60.0, refine_iris=True, sink=rows.append, frames_hint=len(items),
-                       mode=runner_cls_or_mode)
+                       mode=runner_cls_or_mode, **kw)
     for it in items:
         g.submit(it)
     state = g.finish()
@@ -94,6 +94,28 @@ def test_thread_and_process_give_identical_rows(frames_and_faces):
     assert k3 == "inline"
     np.testing.assert_array_equal(a, c)
     assert s3["size"] == (640, 360) and s3["anchored_frames"] == s1["anchored_frames"]
+
+
+def test_skin_pose_rows_from_the_crop_and_the_child_are_those_of_the_full_picture(frames_and_faces):
+    """The head rotation from skin points (aspectus.webcam.skin_pose) reads the larger crop that
+    frame_item(skin_pose=True) cuts: the same rows as on the full picture, in a thread and in the child."""
+    frs, obs = frames_and_faces
+    full = FrameGeometry(fov_deg=60.0, refine_iris=True, skin_pose=True)
+    ref = np.array([full.row(f.pts_s, f.image.shape[1::-1], None if o is None else o.points_px,
+                             0 if o is None else o.face_count, f.image, (0, 0)) for f, o in zip(frs, obs)])
+    items = [frame_item(f.pts_s, f.image, o, refine_iris=True, skin_pose=True) for f, o in zip(frs, obs)]
+    k1, a, s1 = _run("thread", items, skin_pose=True)
+    k2, b, s2 = _run("process", items, skin_pose=True)
+    assert (k1, k2) == ("thread", "process")
+    np.testing.assert_allclose(a, ref, rtol=0, atol=1e-9, equal_nan=True)
+    np.testing.assert_array_equal(a, b)
+    found = sum(o is not None for o in obs)
+    assert s1["skin_pose_frames"] == s2["skin_pose_frames"] >= 0.8 * found
+    assert s1["skin_pose_frames"] + s1["skin_pose_fallback_frames"] == found
+    # the rotation is not the mesh's: the rows differ from those without the skin points
+    _, plain, s0 = _run("thread", [frame_item(f.pts_s, f.image, o, refine_iris=True) for f, o in zip(frs, obs)])
+    assert s0["skin_pose_frames"] is None
+    assert np.nanmax(np.abs(plain[:, 3:12] - a[:, 3:12])) > 1e-4
 
 
 def test_auto_mode_uses_a_thread_for_short_clips():
