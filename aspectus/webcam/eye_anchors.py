@@ -208,9 +208,12 @@ class EyeAnchorTracker:
         offsets = self.offsets_px.tolist()
         h, w = image.shape[:2]
         jobs = []  # (anchor, window box) of the anchors matched in this frame
+        turned = {}  # per rotation the templates were cut at (most share one): turned since?
         for j, t in enumerate(self._templates):
+            if t is not None and rotation is not None and id(t[4]) not in turned:
+                turned[id(t[4])] = _turned(rotation, t[4])
             if (t is None or abs(t[3] / r - 1.0) > RESCALE_FRACTION or self._misses[j] >= PATIENCE_FRAMES
-                    or _turned(rotation, t[4])):
+                    or turned.get(id(t[4]), False)):
                 self._cut(j, image, [mesh_l[j][0] + offsets[j][0], mesh_l[j][1] + offsets[j][1]], half, r, rotation)
                 continue
             e = t[2] + s

@@ -134,13 +134,14 @@ class GazeParams:
         Where the head rotation comes from (with ``refine_iris``, which
         sends the picture to the per-frame geometry). ``"mesh"`` (default):
         PnP on the face mesh's rigid points (:mod:`aspectus.webcam.headpose`),
-        which follow the eyes: on a still-head 720p clip its pitch moved
-        with the gaze pitch (r -0.85, SD 0.34 deg). ``"skin"``: PnP on skin
-        points over the face followed on the picture against key frames
-        (:mod:`aspectus.webcam.skin_pose`): there r -0.02, SD 0.05 deg, and
-        at 12 px pitch gain 0.90 -> 1.00; but with the head turning +-15
-        deg on a 25 px clip its rotation error grew (yaw SD 0.9 -> 1.9 deg,
-        median gaze error 1.9 -> 3.3 deg), so it is not the default
+        which follow the eyes: on a still-head 720p clip its pitch error
+        moved with the gaze pitch (r -0.85, SD 0.34 deg). ``"skin"``: PnP on
+        skin points over the face followed on the picture against key
+        frames (:mod:`aspectus.webcam.skin_pose`): there r -0.02, SD 0.03
+        deg, and pitch gain up on five dev clips (at 12 px 0.90 -> 0.99);
+        but with the head turning +-15 deg on 25 px clips its yaw errs more
+        (SD 1.03 -> 1.46 deg on one) and the median gaze error rose (1.90 ->
+        3.14 and 1.59 -> 2.00 deg), so it is not the default
         (docs/notes/gaze-measurement.md).
     fuse_in_head : bool
         With ``iris_combine`` "fuse" or "rescale": fit the mapping of the
