@@ -62,7 +62,7 @@ class Condition:
 def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
     from aspectus.synth.render import render_clip
 
-    trial = _lund.load_trial(lund_dir, cond.trial)
+    trial = _lund.load_trials(lund_dir, cond.trial)  # names joined by '+': end to end
     traj = _lund.as_trajectory(trial, duration_s=cond.duration_s, head_motion=cond.head_motion,
                                distance_mm=cond.distance_mm, seed=cond.seed)
     path = Path(out_dir) / f"{cond.name}.mp4"

@@ -143,6 +143,25 @@ def runs(mask: np.ndarray, t_s: np.ndarray) -> tuple[int, float]:
     return int(len(on)), float(dur.mean())
 
 
+def load_trials(directory: Path, names: str) -> LundTrial:
+    """One trial (:func:`load_trial`), or several end to end: ``names`` joined by "+" (each trial's time
+    continues from the end of the one before; the same screen geometry, that of the first)."""
+    parts = names.split("+")
+    if len(parts) == 1:
+        return load_trial(directory, names)
+    trs = [load_trial(directory, n) for n in parts]
+    t, off = [], 0.0
+    for tr in trs:
+        t.append(tr.t_s - tr.t_s[0] + off)
+        off = t[-1][-1] + float(np.median(np.diff(tr.t_s)))
+
+    def cat(f):
+        return np.concatenate([getattr(tr, f) for tr in trs])
+
+    return LundTrial(names, np.concatenate(t), cat("yaw_deg"), cat("pitch_deg"), cat("valid"),
+                     {c: np.concatenate([tr.labels[c] for tr in trs]) for c in CODERS}, trs[0].screen)
+
+
 def as_trajectory(trial: LundTrial, *, duration_s: float | None = None, head_motion: dict | None = None,
                   distance_mm: float = 600.0, seed: int = 0):
     """The trial's gaze as a renderer trajectory (aspectus.synth.trajectory.Trajectory), for rendered clips.

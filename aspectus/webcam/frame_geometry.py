@@ -29,6 +29,7 @@ from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, ANCHOR_SETS, DEFAULT_ANC
                                          TURN_LIMITED_SETS, EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
                                          translation_given_rotation, turn_away_limits_deg)
 from aspectus.webcam.gaze import frame_measurements
+from aspectus.webcam.iris_appearance import PATCH_BYTES, EyePatchSampler
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
 from aspectus.webcam.limbus import ROI_RADII, limbus_centres_many
@@ -38,6 +39,11 @@ from aspectus.webcam.skin_pose import SKIN_POSE_POINTS, SkinPose
 RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_mm", 3), ("iris_px", 4),
                   ("iris_diam_px", 2), ("corners_px", 8), ("ear", 2), ("iris_mesh_px", 4))
 RECORD_WIDTH = sum(n for _, n in RECORD_COLUMNS)
+#: columns that follow those with ``appearance`` on (:mod:`aspectus.webcam.iris_appearance`): whether each
+#: eye's limbus fit succeeded (1/0), each eye's patch frame (2 x 2 x 3, NaN where the frame has no patch) and
+#: both eyes' patches, uint8 bytes carried in float64 columns (read back with ``.view(np.uint8)``)
+APPEARANCE_COLUMNS = (("limbus_ok", 2), ("patch_affine", 12), ("patches", PATCH_BYTES // 8))
+APPEARANCE_WIDTH = sum(n for _, n in APPEARANCE_COLUMNS)
 
 #: frames per message to the geometry process, and most frames per batch of limbus fits in either runner
 #: (measured here: fitting 16 frames' eyes together costs 0.4-0.9 ms a frame, one frame at a time 1.2-2.0 ms;
@@ -112,11 +118,19 @@ class FrameGeometry:
         (:mod:`aspectus.webcam.skin_pose`) instead of PnP on the face mesh's
         points, which follows the gaze. The picture handed in must then be
         the crop ``eye_crop_box(..., skin_pose=True)`` gives (or the whole picture).
+    appearance : bool
+        With the eye picture and the anchors: also sample both eyes into patches in the anchors' frame
+        (:class:`aspectus.webcam.iris_appearance.EyePatchSampler`) and record whether each limbus fit
+        succeeded; the rows are then :data:`APPEARANCE_WIDTH` columns wider (:data:`APPEARANCE_COLUMNS`).
     """
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False):
         self.fov_deg = float(fov_deg)
+        self.appearance = bool(appearance)
+        self.width = RECORD_WIDTH + (APPEARANCE_WIDTH if self.appearance else 0)
+        self.sampler = EyePatchSampler()
+        self._last_anchors: np.ndarray | None = None
         self.refine_iris = bool(refine_iris)
         self.eye_anchors = bool(eye_anchors)
         self.skin = SkinPose() if skin_pose else None
@@ -161,15 +175,17 @@ class FrameGeometry:
         which costs a fraction of fitting them one frame at a time. (Head
         pose and eye anchors follow the frames in order, as they must.)
         """
-        out = np.full((len(items), RECORD_WIDTH), np.nan)
+        out = np.full((len(items), self.width), np.nan)
         fits = []  # (row index, (limbus arguments, crop origin))
         for k, item in enumerate(items):
             out[k], job = self._row_before_iris(*item)
             if job is not None:
                 fits.append((k, job))
         if fits:
-            for (k, (_, off)), (iris, _) in zip(fits, limbus_centres_many([job[0] for _, job in fits])):
+            for (k, (_, off)), (iris, ok) in zip(fits, limbus_centres_many([job[0] for _, job in fits])):
                 out[k, 15:19] = (iris + off).ravel()
+                if self.appearance:
+                    out[k, RECORD_WIDTH:RECORD_WIDTH + 2] = ok
         return out
 
     def _row_before_iris(self, pts_s, size_px, points_px, face_count, eyes=None, eyes_origin_px=(0, 0)):
@@ -181,10 +197,11 @@ class FrameGeometry:
             self.size = (w, h)
             self.solver = HeadPoseSolver(w, h, fov_deg=self.fov_deg)
             self.anchors.reset()
+            self.sampler.reset()
             self._anchor_minus_pnp = None
             if self.skin is not None:
                 self.skin.reset()
-        row = np.full(RECORD_WIDTH, np.nan)
+        row = np.full(self.width, np.nan)
         row[0] = pts_s
         row[1] = 0.0
         row[2] = face_count  # faces in view, the followed one or not
@@ -206,8 +223,11 @@ class FrameGeometry:
             off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
             local = points_px - off
             job = ((eyes, local, iris - off[:2], m["iris_diam_px"]), off[:2])
+        self._last_anchors = None
         if self.eye_anchors:
             t = self._anchored_translation(R, t, m, eyes, points_px, eyes_origin_px)
+        if self.appearance:
+            self._appearance_columns(row, m, eyes, eyes_origin_px)
         row[1] = 1.0
         row[3:12] = R.ravel()
         row[12:15] = t
@@ -226,6 +246,21 @@ class FrameGeometry:
             return self.skin.update(eyes, points_px, eyes_origin_px, r_px, self.solver.K, R_mesh, t_mesh)
         return self.skin.fallback(R_mesh)
 
+    def _appearance_columns(self, row, m, eyes, eyes_origin_px) -> None:
+        """The limbus-fit flags (0 until a fit succeeds), the patch frames and the patches of one frame."""
+        w = RECORD_WIDTH
+        row[w:w + 2] = 0.0
+        if eyes is None or self._last_anchors is None:
+            return
+        A = self.sampler.affines(self._last_anchors, m["corners_px"])
+        if A is None:
+            return
+        patches = self.sampler.sample(eyes, eyes_origin_px, A)
+        if patches is None:
+            return
+        row[w + 2:w + 14] = A.ravel()
+        row[w + 14:] = np.ascontiguousarray(patches).reshape(-1).view(np.float64)
+
     def _anchored_translation(self, R, t_pnp, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
         """The head translation refitted to the eye anchors, the rotation held.
 
@@ -239,6 +274,7 @@ class FrameGeometry:
         if eyes is not None and np.isfinite(r_px) and r_px >= MIN_ANCHOR_RADIUS_PX:
             off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
             a = self.anchors.update(eyes, points_px - off, r_px) + off[:2]
+            self._last_anchors = a[:6].copy()  # every set starts with the six points below the eyes
             model = self._anchors_model
             if self._turn_limits is not None:
                 limit, away_sign = self._turn_limits
@@ -311,9 +347,9 @@ class GeometryThread:
     kind = "thread"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
-                                  anchor_set=anchor_set, skin_pose=skin_pose)
+                                  anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)
         self._sink = sink
         self._q: queue.Queue = queue.Queue(maxsize=2 * _BATCH)  # room for a whole batch of limbus fits
         self._failure: list[BaseException] = []
@@ -367,9 +403,9 @@ class GeometryInline:
     kind = "inline"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
-                                  anchor_set=anchor_set, skin_pose=skin_pose)
+                                  anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)
         self._sink = sink
         self._pending: list = []
 
@@ -398,7 +434,7 @@ class GeometryInline:
 def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
-    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE]]]``. Anything else
+    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE [APPEARANCE]]]]``. Anything else
     that would print to stdout goes to stderr, so it cannot corrupt the replies.
     """
     args = list(sys.argv[1:] if argv is None else argv)
@@ -406,11 +442,12 @@ def child_main(argv=None) -> int:
     eye_anchors = len(args) < 3 or args[2] == "1"
     anchor_set = args[3] if len(args) > 3 else DEFAULT_ANCHOR_SET
     skin_pose = len(args) > 4 and args[4] == "1"
+    appearance = len(args) > 5 and args[5] == "1"
     out = os.fdopen(os.dup(1), "wb")
     os.dup2(2, 1)  # stray prints from libraries go to stderr
     inp = sys.stdin.buffer
     geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors, anchor_set=anchor_set,
-                        skin_pose=skin_pose)
+                        skin_pose=skin_pose, appearance=appearance)
 
     def reply(obj) -> bool:
         try:
@@ -471,13 +508,14 @@ class GeometryProcess:
     kind = "process"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False):
         self._sink = sink
         if anchor_set not in ANCHOR_SETS:
             raise ValueError(f"anchor set must be one of {', '.join(ANCHOR_SETS)}, got {anchor_set!r}")
         self._proc = subprocess.Popen(
             [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parents[1]), repr(float(fov_deg)),
-             "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set, "1" if skin_pose else "0"],
+             "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set, "1" if skin_pose else "0",
+             "1" if appearance else "0"],
             stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._out: queue.Queue = queue.Queue(maxsize=32)  # batches in flight: some 30 MB of eye crops at most
         self._pending: list = []
@@ -571,7 +609,8 @@ class GeometryProcess:
 
 
 def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
-                   eye_anchors: bool = True, anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False):
+                   eye_anchors: bool = True, anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False,
+                   appearance: bool = False):
     """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
     application, or when no child can be started); ``mode`` forces ``"thread"``, ``"process"`` or
     ``"inline"`` (:class:`GeometryInline`, in the calling thread). ``skin_pose``: the head rotation from skin
@@ -581,14 +620,14 @@ def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int,
         raise ValueError(f"geometry mode must be auto, thread, process or inline, got {mode!r}")
     if mode == "inline":
         return GeometryInline(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
-                              anchor_set=anchor_set, skin_pose=skin_pose)
+                              anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)
     frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
             return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
-                              anchor_set=anchor_set, skin_pose=skin_pose)
+                              anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)
         except OSError:
             if mode == "process":
                 raise
     return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
-                              anchor_set=anchor_set, skin_pose=skin_pose)
+                              anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)

@@ -51,6 +51,10 @@ from aspectus.webcam.landmarks import (LEFT_EAR_POINTS, LEFT_EYE_CORNERS, LEFT_I
 IRIS_DIAMETER_MM = 11.7
 EYEBALL_RADIUS_MM = 12.0
 IRIS_PLANE_RADIUS_MM = float(np.sqrt(EYEBALL_RADIUS_MM ** 2 - (IRIS_DIAMETER_MM / 2) ** 2))
+#: the ways the iris centre is taken (GazeParams.iris_combine)
+IRIS_COMBINE = ("limbus", "rescale", "fuse", "appearance")
+#: frames whose eye aperture is at least this share of the clip's open-eye level count as open eyes
+OPEN_EYE_REL = 0.8
 
 
 @dataclass
@@ -76,7 +80,7 @@ class GazeParams:
         landmarks jitters by about half a degree - which would move the
         eyeball centre by a third of a millimetre and the gaze by 1-2 deg.
         A centred average has no lag.
-    iris_combine : {"limbus", "rescale", "fuse"}
+    iris_combine : {"limbus", "rescale", "fuse", "appearance"}
         With ``refine_iris``: use the limbus fit alone, the mesh point only
         where the fit fails (default); ``"rescale"``: horizontally the limbus
         fit, vertically the face mesh's steady point rescaled to the limbus
@@ -90,7 +94,16 @@ class GazeParams:
         what is left is slow, correlated noise that splits fixations under
         the RMS-S2S-adaptive I-DT threshold (demo clip p01: median fixation
         133 ms against a true 211 ms, 167 ms with the limbus fit alone), so it
-        is not the default.
+        is not the default. ``"appearance"``: horizontally the limbus fit,
+        vertically the iris height predicted from the eyes' own appearance by
+        a regression learnt per clip on the limbus fits
+        (:mod:`aspectus.webcam.iris_appearance`; needs ``refine_iris`` and
+        ``eye_anchors``). On twelve held-out rendered classroom clips it cut
+        RMS-S2S by 30-65 % and raised pitch r on nine, with pitch gain nearer
+        one than ``"fuse"`` on most, but lowered the fixation kappa against
+        hand-coders on about half (docs/notes/gaze-measurement.md); it keeps
+        both eyes' patches, 768 bytes a frame (some 80 MB an hour at 30 fps),
+        until the clip's end.
     decouple_reference : bool
         Remove the part of the eyeball centres' vertical motion that follows
         the eyes (:func:`decouple_reference`; default True). The face mesh
@@ -187,9 +200,9 @@ class GazeParams:
                                  f"{', '.join(ANCHOR_SETS)}")
         if self.head_rotation not in ("mesh", "skin"):
             raise ParameterError(f"gaze parameter head_rotation = {self.head_rotation!r} is not one of mesh, skin")
-        if self.iris_combine not in ("limbus", "rescale", "fuse"):
+        if self.iris_combine not in IRIS_COMBINE:
             raise ParameterError(f"gaze parameter iris_combine = {self.iris_combine!r} is not one of "
-                                 "limbus, rescale, fuse")
+                                 f"{', '.join(IRIS_COMBINE)}")
         if not isinstance(self.blink_pad_frames, int) or isinstance(self.blink_pad_frames, bool):
             raise ParameterError(f"gaze parameter blink_pad_frames = {self.blink_pad_frames!r} must be a whole number")
         for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored", "fuse_in_head"):
@@ -221,6 +234,18 @@ def frame_measurements(points_px: np.ndarray) -> dict:
         "corners_px": corners,
         "ear": np.array([eye_aspect_ratio(points_px, RIGHT_EAR_POINTS), eye_aspect_ratio(points_px, LEFT_EAR_POINTS)]),
     }
+
+
+def relative_aperture(found: np.ndarray, ear: np.ndarray) -> tuple[np.ndarray, float]:
+    """Each frame's eye aspect ratio (mean of both eyes) over the clip's open-eye level (the median over the
+    frames with a face), and that level; NaN where there is none."""
+    found = np.asarray(found, bool)
+    n = len(found)
+    ear_mean = _nanmean_quiet(ear, axis=1) if n else np.full(n, np.nan)
+    open_level = float(np.nanmedian(ear_mean[found])) if found.any() else float("nan")
+    if np.isfinite(open_level) and open_level > 0:
+        return ear_mean / open_level, open_level
+    return np.full(n, np.nan), open_level
 
 
 def _dilate(mask: np.ndarray, n: int) -> np.ndarray:
@@ -481,10 +506,8 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
     # --- metric scale from the iris --------------------------------------
     diam = _nanmean_quiet(np.where(iris_diam_px > 0, iris_diam_px, np.nan), axis=1) if n else nanv
     z_iris = f * IRIS_DIAMETER_MM / diam
-    ear_mean = _nanmean_quiet(ear, axis=1) if n else nanv
-    open_level = float(np.nanmedian(ear_mean[found])) if found.any() else float("nan")
-    aperture_rel = ear_mean / open_level if np.isfinite(open_level) and open_level > 0 else nanv
-    eyes_open = found & (aperture_rel >= 0.8)
+    aperture_rel, open_level = relative_aperture(found, ear)
+    eyes_open = found & (aperture_rel >= OPEN_EYE_REL)
     # the iris diameter gives the distance of the irises, so it is compared with the depth of the model's iris
     # points (the head origin lies 12 mm further back, between the eyeball centres)
     iris_model = model.points_mm[[RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE]].mean(axis=0)
@@ -550,7 +573,7 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
             g_eyes[ok, e] = g
             del P, g
         del C, ray, ok
-    del iris_px, z_iris, z_model_iris, ear_mean
+    del iris_px, z_iris, z_model_iris
     g_bin = _nanmean_quiet(g_eyes, axis=1)
     norm = np.linalg.norm(g_bin, axis=1, keepdims=True)
     g_bin = g_bin / np.where(norm > 0, norm, np.nan)

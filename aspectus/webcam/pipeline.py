@@ -47,7 +47,8 @@ from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import GazeParams, estimate_gaze
-from aspectus.webcam.frame_geometry import RECORD_WIDTH, frame_item, start_geometry
+from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, RECORD_WIDTH, frame_item, start_geometry
+from aspectus.webcam.iris_appearance import PATCH_BYTES
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, SAMPLE_COLUMNS, column_table
 from aspectus.webcam.video import DecodeReport, FramePrefetcher, iter_frames, probe
@@ -155,20 +156,57 @@ class ClipResult:
 
 
 class _Grow:
-    """A float64 matrix that grows by doubling (rows = frames)."""
+    """A matrix (float64 unless ``dtype`` says otherwise) that grows by doubling (rows = frames)."""
 
-    def __init__(self, width: int, cap: int = 1024):
-        self.a = np.full((cap, width), np.nan)
+    def __init__(self, width: int, cap: int = 1024, dtype=np.float64):
+        self.fill = np.nan if np.dtype(dtype).kind == "f" else 0
+        self.a = np.full((cap, width), self.fill, dtype=dtype)
         self.n = 0
 
     def append(self, row):
         if self.n == len(self.a):
-            self.a = np.concatenate([self.a, np.full_like(self.a, np.nan)])
+            self.a = np.concatenate([self.a, np.full_like(self.a, self.fill)])
         self.a[self.n] = row
         self.n += 1
 
     def view(self) -> np.ndarray:
         return self.a[: self.n]
+
+
+class _SplitSink:
+    """Hands the record's columns of a geometry row to one store and its patch bytes to another."""
+
+    def __init__(self, rec: _Grow, patches: _Grow, width: int):
+        self.rec, self.patches, self.width = rec, patches, width
+
+    def __call__(self, row) -> None:
+        self.rec.append(row[:self.width])
+        self.patches.append(np.ascontiguousarray(row[self.width:]).view(np.uint8))
+
+
+def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> tuple[np.ndarray, dict]:
+    """The iris centres with their height from the eyes' appearance (``iris_combine="appearance"``).
+
+    ``a``: the record with the appearance columns (limbus-fit flags, patch frames); ``patches``: (N, bytes)
+    uint8. Where no prediction is made (too few labelled frames, no patch) the limbus fit's height stays.
+    """
+    from aspectus.webcam.gaze import OPEN_EYE_REL, relative_aperture
+    from aspectus.webcam.iris_appearance import PATCH_SIZE, appearance_iris
+
+    n = len(a)
+    iris = a[:, 15:19].reshape(n, 2, 2).copy()
+    w = RECORD_WIDTH
+    limbus = iris.copy()
+    limbus[~(a[:, w:w + 2] > 0.5)] = np.nan
+    rel, _ = relative_aperture(found, a[:, 29:31])
+    usable = found & (rel >= OPEN_EYE_REL)
+    W, H = PATCH_SIZE
+    pred, info = appearance_iris(patches.reshape(n, 2, H, W), a[:, w + 2:w + 14].reshape(n, 2, 2, 3), limbus,
+                                 usable)  # the columns: APPEARANCE_COLUMNS
+    y = pred[..., 1]
+    iris[..., 1] = np.where(np.isfinite(y), y, iris[..., 1])
+    info["frames_predicted"] = [int(np.isfinite(y[:, e]).sum()) for e in range(2)]
+    return iris, info
 
 
 #: how the stages of one clip run: "overlapped" (decoding in a thread, the geometry in a child process or
@@ -215,9 +253,19 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     info = probe(clip)
     n_hint = max(int(info.frame_count_hint or 0), 1)
     report = DecodeReport()
-    rec = _Grow(RECORD_WIDTH, cap=min(max(n_hint + 16, 64), 1 << 20))
-    t0 = time.perf_counter()
     refine = bool(params.gaze.refine_iris)
+    # the iris height from the eyes' appearance (aspectus.webcam.iris_appearance) needs each frame's eye patches:
+    # kept as uint8 beside the record, the limbus-fit flags and patch frames in more record columns
+    appearance = refine and params.gaze.iris_combine == "appearance" and bool(params.gaze.eye_anchors)
+    cap = min(max(n_hint + 16, 64), 1 << 20)
+    n_meta = sum(k for name, k in APPEARANCE_COLUMNS if name != "patches")
+    rec = _Grow(RECORD_WIDTH + (n_meta if appearance else 0), cap=cap)
+    sink = rec.append
+    patches = None
+    if appearance:
+        patches = _Grow(PATCH_BYTES, cap=cap, dtype=np.uint8)
+        sink = _SplitSink(rec, patches, RECORD_WIDTH + n_meta)
+    t0 = time.perf_counter()
     skin = refine and params.gaze.head_rotation == "skin"
     serial = resolve_stages(stages) == "serial"
     tracker = FaceTracker(max_faces=params.max_faces, face=params.face)
@@ -239,9 +287,9 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     # bench/bench_pipeline.py: DEVELOPERS.md, performance).
     old_switch = sys.getswitchinterval()
     sys.setswitchinterval(0.0005)
-    geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=rec.append, frames_hint=n_hint,
+    geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=sink, frames_hint=n_hint,
                               mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors),
-                              anchor_set=params.gaze.eye_anchor_set, skin_pose=skin)
+                              anchor_set=params.gaze.eye_anchor_set, skin_pose=skin, appearance=appearance)
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
         pin_to_cpus(background, geometry.pid)
@@ -278,13 +326,20 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     Rm[~found] = np.eye(3)
     tm = np.nan_to_num(a[:, 12:15], nan=1.0, copy=False)
     K = np.asarray(state["K"]) if state["K"] is not None else np.eye(3)
+    iris = a[:, 15:19].reshape(n, 2, 2)
+    app_info = None
+    if appearance:
+        iris, app_info = _appearance_iris(a, patches.view(), found)
+        patches.a = patches.a[:0]  # the patches are not needed any more (the sink still holds the store)
     cols, ginfo = estimate_gaze(
-        K=K, found=found, R=Rm, t=tm, iris_px=a[:, 15:19].reshape(n, 2, 2), iris_diam_px=a[:, 19:21],
+        K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
         iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None, params=params.gaze)
+    if app_info is not None:
+        ginfo["iris_appearance"] = app_info
     pts = a[:, 0].copy()
     counts = a[:, 2].astype(np.int64)
-    del a, rec, Rm, tm  # the per-frame records are in ``cols`` now; an hour of them is some 30 MB
+    del a, rec, Rm, tm, iris  # the per-frame records are in ``cols`` now; an hour of them is some 30 MB
     t_clip = pts - pts[0] if n else pts
     cols |= {"t_s": t_clip, "frame_index": np.arange(n, dtype=np.int64), "pts_s": pts, "face_found": found,
              "face_count": counts, "pupil": np.full(n, np.nan)}

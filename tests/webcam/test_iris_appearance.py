@@ -1,0 +1,164 @@
+"""The iris height learnt from the eyes' own appearance (aspectus.webcam.iris_appearance), on synthetic patches.
+
+The patches are drawn here: a dark disc (the iris) on a brighter background, at a known position that moves in
+fixations and saccades, with pixel noise and a slow lighting drift; the labels are that position plus
+independent noise of 0.8 px per eye (about the limbus fit's vertical error at classroom scale,
+docs/notes/gaze-measurement.md). What a regression on many pixels should do against noisy labels: follow the
+position with gain near one and far less noise than the labels, never echo a frame's own label noise
+(cross-fitting), and leave out what it is told to leave out.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from aspectus.webcam import iris_appearance as IA
+
+W, H = IA.PATCH_SIZE
+
+
+def _positions(n: int, rng) -> np.ndarray:
+    """(n, 2) patch positions: fixations of 5-15 frames joined by jumps, within the patch's middle."""
+    pos = np.empty((n, 2))
+    k = 0
+    while k < n:
+        m = int(rng.integers(5, 16))
+        pos[k:k + m] = [W / 2 - 0.5 + rng.uniform(-3, 3), H / 2 - 0.5 + rng.uniform(-2.5, 2.5)]
+        k += m
+    return pos
+
+
+def _draw(pos: np.ndarray, rng, *, noise=4.0, radius=3.5) -> np.ndarray:
+    """(n, H, W) uint8 patches with a dark anti-aliased disc at ``pos`` and a lighting drift of +-20 %."""
+    n = len(pos)
+    v, u = np.mgrid[0:H, 0:W]
+    d = np.hypot(u[None] - pos[:, 0, None, None], v[None] - pos[:, 1, None, None])
+    cover = np.clip(radius - d + 0.5, 0.0, 1.0)
+    light = 1.0 + 0.2 * np.sin(np.linspace(0, 3 * np.pi, n))[:, None, None]
+    img = (150.0 - 90.0 * cover) * light + rng.normal(0, noise, (n, H, W))
+    return np.clip(np.rint(img), 0, 255).astype(np.uint8)
+
+
+def _clip(n=600, seed=1, label_sd=0.8):
+    rng = np.random.default_rng(seed)
+    pos = _positions(n, rng)
+    patches = np.stack([_draw(pos, rng), _draw(pos, rng)], axis=1)  # both eyes look at the same place
+    affines = np.zeros((n, 2, 2, 3))
+    affines[..., 0, 0] = affines[..., 1, 1] = 1.0  # patch coordinates are picture px here
+    affines[:, 1, 0, 2] = 60.0  # the left eye sits 60 px to the right
+    truth = np.stack([pos, pos + [60.0, 0.0]], axis=1)
+    labels = truth + rng.normal(0, label_sd, truth.shape)
+    return patches, affines, truth, labels
+
+
+def _gain_sd(est, truth):
+    ok = np.isfinite(est)
+    g = np.polyfit(truth[ok], est[ok], 1)[0]
+    return g, float(np.std(est[ok] - truth[ok]))
+
+
+def test_regression_follows_the_position_with_far_less_noise_than_its_labels():
+    patches, affines, truth, labels = _clip()
+    pred, info = IA.appearance_iris(patches, affines, labels, np.ones(len(truth), bool))
+    for e in range(2):
+        for ax in range(2):
+            g, sd = _gain_sd(pred[:, e, ax], truth[:, e, ax])
+            _, sd_label = _gain_sd(labels[:, e, ax], truth[:, e, ax])
+            assert 0.9 <= g <= 1.1, (e, ax, g)
+            assert sd < 0.4 * sd_label, (e, ax, sd, sd_label)
+    assert info["blocks"][0]["right"]["fitted"] and info["blocks"][0]["left"]["fitted"]
+
+
+def test_a_frames_own_label_noise_does_not_reach_its_prediction():
+    """Patches that carry no information and labels that are pure noise: an in-sample fit of 32 components on
+    300 frames would echo the labels (r about 0.3); the cross-fitted prediction must not."""
+    rng = np.random.default_rng(3)
+    n = 600
+    X = rng.normal(0, 1, (n, W * H)).astype(np.float32)
+    y = rng.normal(0, 1, (n, 2))
+    pred, info = IA.crossfit_predict(X, y, np.ones(n, bool))
+    ok = np.isfinite(pred).all(axis=1)
+    assert ok.mean() > 0.95
+    for j in range(2):
+        # no echo; a cross-fit of pure noise leans slightly negative instead (each fold is predicted around the
+        # other folds' mean, which lacks its own labels: r about -1/sqrt(frames per fold) = -0.13 from that alone)
+        assert -0.3 < np.corrcoef(pred[ok, j], y[ok, j])[0, 1] < 0.1
+    # the contrast that shows the test can fail: the same model fitted on all frames, in-sample
+    Xc = X - X.mean(axis=0)
+    _, _, Vt = np.linalg.svd(Xc, full_matrices=False)
+    Z = Xc @ Vt[:32].T
+    fit = Z @ np.linalg.lstsq(Z, y - y.mean(axis=0), rcond=None)[0]
+    assert np.corrcoef(fit[:, 0], y[:, 0])[0, 1] > 0.15
+
+
+def test_closed_eye_frames_are_not_labels():
+    """A fifth of the frames carry labels 6 px off (a blink's failed fit); marked not usable they do not pull
+    the fit, used they would."""
+    patches, affines, truth, labels = _clip(seed=5)
+    bad = np.zeros(len(truth), bool)
+    bad[::5] = True
+    labels[bad, :, 1] += 6.0
+    usable = ~bad
+    pred, _ = IA.appearance_iris(patches, affines, labels, usable)
+    pred_all, _ = IA.appearance_iris(patches, affines, labels, np.ones(len(truth), bool))
+    err = np.abs(np.nanmean(pred[:, :, 1] - truth[:, :, 1]))
+    err_all = np.abs(np.nanmean(pred_all[:, :, 1] - truth[:, :, 1]))
+    assert err < 0.15, err
+    assert err_all > 0.5, err_all  # the same frames used as labels would have moved it by about a pixel
+
+
+def test_too_few_frames_no_patches_and_failed_fits_give_no_prediction_and_no_crash():
+    patches, affines, truth, labels = _clip(n=120)
+    pred, info = IA.appearance_iris(patches, affines, labels, np.ones(120, bool))
+    assert np.isnan(pred).all() and not info["blocks"][0]["right"]["fitted"]
+    patches, affines, truth, labels = _clip(n=400)
+    affines[:, 1] = np.nan  # the left eye never had a patch
+    pred, _ = IA.appearance_iris(patches, affines, labels, np.ones(400, bool))
+    assert np.isnan(pred[:, 1]).all() and np.isfinite(pred[:, 0]).all()
+    labels[:] = np.nan  # every limbus fit failed
+    pred, info = IA.appearance_iris(patches, affines, labels, np.ones(400, bool))
+    assert np.isnan(pred).all()
+    pred, info = IA.appearance_iris(patches[:0], affines[:0], labels[:0], np.ones(0, bool))
+    assert pred.shape == (0, 2, 2) and info["blocks"] == []
+
+
+def test_long_clips_are_fitted_in_blocks_and_a_short_last_block_joins_the_one_before():
+    patches, affines, truth, labels = _clip(n=950)
+    pred, info = IA.appearance_iris(patches, affines, labels, np.ones(950, bool), block_frames=400)
+    assert [b["frames"] for b in info["blocks"]] == [[0, 400], [400, 950]]
+    g, sd = _gain_sd(pred[:, 0, 1], truth[:, 0, 1])
+    assert 0.9 <= g <= 1.1 and sd < 0.3
+
+
+def test_patch_frame_round_trip_and_sampling_follows_the_picture():
+    rng = np.random.default_rng(0)
+    A = np.zeros((5, 2, 2, 3))
+    A[..., :2] = rng.normal(0, 1, (5, 2, 2, 2)) + 2 * np.eye(2)
+    A[..., 2] = rng.normal(100, 10, (5, 2, 2))
+    p = rng.normal(50, 20, (5, 2, 2))
+    np.testing.assert_allclose(IA.to_picture(IA.to_patch(p, A), A), p, atol=1e-9)
+    A[0, 0] = np.nan
+    assert np.isnan(IA.to_patch(p, A)[0, 0]).all() and np.isfinite(IA.to_patch(p, A)[0, 1]).all()
+
+    sampler = IA.EyePatchSampler()
+    anchors = np.array([[90, 130], [100, 132], [110, 130], [150, 130], [160, 132], [170, 130]], float)
+    corners = np.array([[[85, 115], [115, 115]], [[145, 115], [175, 115]]], float)
+    aff = sampler.affines(anchors, corners)
+    assert aff is not None
+    # a dark square in the picture moves the patch's dark centroid by the same amount in patch samples
+    pic = np.full((240, 320), 200, np.uint8)
+    pic[110:118, 96:104] = 30
+    p1 = sampler.sample(pic, (0, 0), aff).astype(float)
+    pic2 = np.full((240, 320), 200, np.uint8)
+    pic2[114:122, 96:104] = 30  # 4 px lower
+    p2 = sampler.sample(pic2, (0, 0), aff).astype(float)
+    v = np.arange(H)[:, None]
+
+    def centroid(p):
+        w = np.clip(200.0 - p[0], 0.0, None)  # the dark square only
+        return float((w * v).sum() / w.sum())
+
+    step = float(np.hypot(*aff[0, :, 1]))  # px per patch sample, vertically
+    assert centroid(p2) - centroid(p1) == pytest.approx(4.0 / step, abs=0.25)
+    assert sampler.sample(pic[:100], (0, 0), aff) is None  # the patch reaches outside the crop
+    assert IA.EyePatchSampler().affines(np.full((6, 2), np.nan), corners) is None

@@ -1,0 +1,80 @@
+"""``GazeParams(iris_combine="appearance")`` on a rendered classroom clip, against the default limbus fit.
+
+A 40-s 640 x 480 H.264 CRF 28 clip (iris 12 px, lids that follow vertical gaze, lighting drift and gradient,
+head drift and turns), the eyes following four hand-coded trials of Andersson et al. (2017)
+(../shared/reference/lund2013) end to end, on a seed no measurement in docs/notes/gaze-measurement.md used (the
+option's settings were chosen on other clips: bench/bench_iris_appearance.py). The pipeline runs once with
+the option; the default's figures come from the same per-frame measurements with the limbus fit's own
+centres (as tests/_gaze_grid.py re-estimates its variants). Figures against the renderer's truth as in
+tests/_gaze_grid.py; issue 15's floors at 12 px (RMS-S2S <= 1.5 deg, pitch |r| >= 0.95 with gain 0.85-1.15)
+are the reference.
+"""
+from __future__ import annotations
+
+import pytest
+
+import _gaze_grid as G
+
+TRIALS = "UH29_img_Europe+UL31_img_konijntjes+UL43_img_Rome+UH47_img_Europe"
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def figures(lund_dir, tmp_path_factory):
+    from aspectus.webcam import pipeline
+    from aspectus.webcam.gaze import GazeParams, estimate_gaze
+    from aspectus.webcam.pipeline import ProcessParams, extract_samples
+
+    cond = G.Condition("appearance_12px", size_px=(640, 480), distance_mm=550.0, trial=TRIALS, face="hopper",
+                       seed=12, duration_s=40.0)
+    res, trial = G.render_condition(cond, tmp_path_factory.mktemp("appearance"), lund_dir)
+    seen = {}
+    orig_app, orig_est = pipeline._appearance_iris, pipeline.estimate_gaze
+
+    def app_spy(a, patches, found):
+        seen["limbus"] = a[:, 15:19].reshape(len(a), 2, 2).copy()
+        return orig_app(a, patches, found)
+
+    def est_spy(**kw):
+        seen["kw"] = kw
+        return orig_est(**kw)
+
+    pipeline._appearance_iris, pipeline.estimate_gaze = app_spy, est_spy
+    try:
+        samples, meta = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(iris_combine="appearance")))
+    finally:
+        pipeline._appearance_iris, pipeline.estimate_gaze = orig_app, orig_est
+    kw = {k: v for k, v in seen["kw"].items() if k != "params"} | {"iris_px": seen["limbus"]}
+    cols, _ = estimate_gaze(**kw, params=GazeParams())
+    default = samples.copy()
+    for c, v in cols.items():
+        if c in default.columns:
+            default[c] = v
+    return {"appearance": G.measure(samples, res.truth, trial), "default": G.measure(default, res.truth, trial),
+            "info": meta["gaze_model"]["iris_appearance"], "n": len(samples)}
+
+
+def test_appearance_predicts_every_open_eye_frame(figures):
+    info = figures["info"]
+    assert len(info["blocks"]) == 1
+    assert all(info["blocks"][0][eye]["fitted"] for eye in ("right", "left"))
+    assert min(info["frames_predicted"]) >= 0.9 * figures["n"]
+
+
+def test_appearance_cuts_the_noise_and_raises_pitch_r_without_losing_gain(figures):
+    app, dft = figures["appearance"], figures["default"]
+    assert app["rms_s2s_deg"] <= 0.6 * dft["rms_s2s_deg"]
+    assert app["pitch_r"] >= dft["pitch_r"] + 0.05
+    assert abs(app["pitch_gain"] - 1.0) <= abs(dft["pitch_gain"] - 1.0) + 0.05
+    assert app["yaw_r"] >= dft["yaw_r"] - 0.01  # horizontally it is the limbus fit still
+
+
+def test_appearance_against_issue_15s_floors_at_12px(figures):
+    """Issue 15, 12 px, CRF 28: RMS-S2S <= 1.5 deg is met here (measured 1.42; the default 3.06). Pitch |r| >=
+    0.95 is NOT met: measured 0.915 (default 0.772), guarded at the reached level; gain 0.89 is within
+    0.85-1.15 (default 0.815). Kappa (floor 0.5) is not asserted: 0.43 measured, the default 0.41."""
+    app = figures["appearance"]
+    assert app["rms_s2s_deg"] <= 1.5
+    assert app["pitch_r"] >= 0.90
+    assert 0.85 <= app["pitch_gain"] <= 1.15
