@@ -99,9 +99,9 @@ class GazeParams:
         a regression learnt per clip on the limbus fits
         (:mod:`aspectus.webcam.iris_appearance`; needs ``refine_iris`` and
         ``eye_anchors``). On twelve held-out rendered classroom clips it cut
-        RMS-S2S by 30-65 % and raised pitch r on nine, with pitch gain nearer
-        one than ``"fuse"`` on most, but lowered the fixation kappa against
-        hand-coders on about half (docs/notes/gaze-measurement.md); it keeps
+        RMS-S2S by 31-58 % and raised pitch r on ten, with pitch gain nearer
+        one than ``"fuse"`` on eleven, but lowered the fixation kappa against
+        hand-coders on five (docs/notes/gaze-measurement.md); it keeps
         both eyes' patches, 768 bytes a frame (some 80 MB an hour at 30 fps),
         until the clip's end.
     decouple_reference : bool
