@@ -208,6 +208,10 @@ class GazeParams:
         for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored", "fuse_in_head"):
             if not isinstance(getattr(self, name), bool):
                 raise ParameterError(f"gaze parameter {name} must be true or false, got {getattr(self, name)!r}")
+        if self.iris_combine == "appearance" and not (self.refine_iris and self.eye_anchors):
+            raise ParameterError("gaze parameter iris_combine = 'appearance' needs refine_iris and eye_anchors "
+                                 "(the eye patches are read from the eye picture in a frame the eye anchors place): "
+                                 "set both true, or choose iris_combine limbus, rescale or fuse")
 
     def to_dict(self) -> dict:
         return asdict(self)

@@ -208,6 +208,10 @@ def test_gaze_parameters_are_checked():
         GazeParams(blink_rel_threshold=1.5)
     with pytest.raises(ParameterError, match="iris_combine"):
         GazeParams(iris_combine="average")
+    with pytest.raises(ParameterError, match="needs refine_iris and eye_anchors"):
+        GazeParams(iris_combine="appearance", eye_anchors=False)
+    with pytest.raises(ParameterError, match="needs refine_iris and eye_anchors"):
+        GazeParams(iris_combine="appearance", refine_iris=False)
     with pytest.raises(ParameterError, match="eye_anchors"):
         GazeParams(eye_anchors="no")
     with pytest.raises(ParameterError, match="whole number"):
