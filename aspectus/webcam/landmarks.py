@@ -102,12 +102,110 @@ def landmarks_array(face_landmarks) -> np.ndarray:
     when the bytes are not the plain x/y/z layout (e.g. a landmark carrying
     visibility). Both give identical numbers (a test compares them).
     """
-    raw = np.frombuffer(face_landmarks.SerializeToString(), dtype=np.uint8)
+    a = _plain_landmarks(face_landmarks.SerializeToString())
+    return a if a is not None else landmarks_array_slow(face_landmarks)
+
+
+def landmarks_from_serialized(raw: bytes) -> np.ndarray:
+    """:func:`landmarks_array` of a face-mesh result given as its serialised bytes (as MediaPipe's graph
+    hands them out: :class:`_GraphCall`)."""
+    a = _plain_landmarks(raw)
+    if a is not None:
+        return a
+    from mediapipe.framework.formats import landmark_pb2
+
+    msg = landmark_pb2.NormalizedLandmarkList()
+    msg.ParseFromString(raw)
+    return landmarks_array_slow(msg)
+
+
+def _plain_landmarks(raw: bytes) -> np.ndarray | None:
+    """The landmarks of serialised bytes in the plain x/y/z layout, or None for any other layout."""
+    raw = np.frombuffer(raw, dtype=np.uint8)
     if raw.size and raw.size % _LM_BYTES == 0:
         rows = raw.reshape(-1, _LM_BYTES)
         if (rows[:, :3] == _LM_HEAD).all() and (rows[:, 7] == 0x15).all() and (rows[:, 12] == 0x1D).all():
             return np.ascontiguousarray(rows[:, _LM_XYZ_COLS]).view("<f4").reshape(-1, 3).astype(np.float64)
-    return landmarks_array_slow(face_landmarks)
+    return None
+
+
+def mesh_input(image_rgb: np.ndarray) -> np.ndarray:
+    """The picture as MediaPipe takes it without copying it: C-contiguous and read-only.
+
+    MediaPipe copies a writeable array into a picture of its own (0.15-0.25 ms a frame at 720p, measured
+    with bench/bench_cpu.py) and refers to a read-only one in place. This is a read-only view of the
+    caller's array (a copy only when it is not contiguous); the caller's array stays writeable. The graph
+    has finished with the picture when ``process`` returns, so the caller may reuse it afterwards.
+    """
+    a = np.ascontiguousarray(image_rgb)
+    if a.flags.writeable:
+        a = a.view()
+        a.flags.writeable = False
+    return a
+
+
+#: call MediaPipe's graphs as :class:`_GraphCall` does (False: through MediaPipe's public ``process``,
+#: which gives the same landmarks; tests/webcam/test_landmarks.py compares the two)
+DIRECT_GRAPH_CALLS = True
+
+
+class _GraphCall:
+    """Run a MediaPipe solution's graph on one picture and take one output stream's serialised protos.
+
+    This is what the solution's public ``process`` does for a graph with one picture input - the picture
+    as a packet at the next simulated 30-fps timestamp, then run until idle - without what it adds each
+    frame: a named-tuple class built anew (``collections.namedtuple``, which compiles code), the results
+    parsed into Python messages which :func:`landmarks_array` would serialise again. It uses the
+    solution's own graph, timestamps and output buffer, so calls through either way can be mixed. It
+    relies on attributes of mediapipe's ``SolutionBase`` (0.10.x); :meth:`make` returns None where they
+    are not as expected, and the caller then uses ``process``.
+    """
+
+    def __init__(self, solution, input_name: str, make_packet, image_format, output: str, serialized):
+        self._s = solution
+        self._in = input_name
+        self._make_packet = make_packet
+        self._format = image_format
+        self._out = output
+        self._serialized = serialized
+
+    @classmethod
+    def make(cls, solution, output: str):
+        if not DIRECT_GRAPH_CALLS:
+            return None
+        try:
+            from mediapipe.python import packet_creator
+            from mediapipe.python._framework_bindings import _packet_getter, image_frame
+            from mediapipe.python.solution_base import PacketDataType
+
+            inputs = dict(solution._input_stream_type_info)
+            outputs = dict(solution._output_stream_type_info)
+            (name, kind), = inputs.items()
+            make_packet = {PacketDataType.IMAGE: packet_creator.create_image,
+                           PacketDataType.IMAGE_FRAME: packet_creator.create_image_frame}[kind]
+            if outputs.get(output) != PacketDataType.PROTO_LIST:
+                return None
+            ok = (isinstance(solution._simulated_timestamp, int) and hasattr(solution._graph, "wait_until_idle")
+                  and isinstance(solution._graph_outputs, dict))
+            serialized = _packet_getter._get_serialized_proto_list
+            image_format = image_frame.ImageFormat.SRGB
+        except (AttributeError, ImportError, KeyError, TypeError, ValueError):
+            return None
+        return cls(solution, name, make_packet, image_format, output, serialized) if ok else None
+
+    def __call__(self, image: np.ndarray) -> list[bytes]:
+        s = self._s
+        if image.ndim != 3 or image.shape[2] != 3:
+            raise ValueError("Input image must contain three channel rgb data.")
+        s._graph_outputs.clear()
+        s._simulated_timestamp += 33333  # as SolutionBase.process: a 30-fps clock
+        s._graph.add_packet_to_input_stream(
+            stream=self._in, packet=self._make_packet(image, image_format=self._format).at(s._simulated_timestamp))
+        s._graph.wait_until_idle()
+        p = s._graph_outputs.get(self._out)
+        if p is None or p.is_empty():
+            return []
+        return list(self._serialized(p))
 
 
 def landmarks_array_slow(face_landmarks) -> np.ndarray:
@@ -196,6 +294,8 @@ class FaceTracker:
                 self._detector = face_detection.FaceDetection(min_detection_confidence=self._conf[0],
                                                               model_selection=0)
                 _warm_up(self._detector)
+        self._mesh_call = _GraphCall.make(self._mesh, "multi_face_landmarks")
+        self._detector_call = None if self._detector is None else _GraphCall.make(self._detector, "detections")
         self.multi_face_from_frame: int | None = None
         self._frame = 0
         self._since_check = self.check_every  # check on the first frame
@@ -232,19 +332,29 @@ class FaceTracker:
     def __exit__(self, *exc):
         self.close()
 
-    def _run(self, solution, image_rgb):
+    def _run(self, call, image_rgb):
         if self._quiet_frames > 0:  # the graphs' models print start-up lines on their first frames
             with native_stderr_silenced():
-                return solution.process(image_rgb)
-        return solution.process(image_rgb)
+                return call(image_rgb)
+        return call(image_rgb)
 
     def _count_faces(self, image_rgb) -> int:
-        res = self._run(self._detector, image_rgb)
+        if self._detector_call is not None:
+            return len(self._run(self._detector_call, image_rgb))
+        res = self._run(self._detector.process, image_rgb)
         return len(res.detections or [])
+
+    def _faces(self, image_rgb) -> list[np.ndarray]:
+        """The mesh's faces in the picture, each ``(478, 3)`` normalised as :func:`landmarks_array` gives."""
+        if self._mesh_call is not None:
+            return [landmarks_from_serialized(raw) for raw in self._run(self._mesh_call, image_rgb)]
+        res = self._run(self._mesh.process, image_rgb)
+        return [landmarks_array(f) for f in res.multi_face_landmarks or []]
 
     def process(self, image_rgb: np.ndarray) -> FaceObservation | None:
         """Landmarks of the followed face in one upright RGB frame, or None."""
         h, w = image_rgb.shape[:2]
+        image_rgb = mesh_input(image_rgb)
         check = (self._detector is not None and not self.multi_face_mode
                  and (self._since_check >= self.check_every or not self._was_found))
         if check:
@@ -253,21 +363,21 @@ class FaceTracker:
             if self._seen_count > 1:
                 self._mesh.close()
                 self._mesh = self._new_mesh(self.max_faces)
+                self._mesh_call = _GraphCall.make(self._mesh, "multi_face_landmarks")
                 self.multi_face_from_frame = self._frame
                 self._quiet_frames = max(self._quiet_frames, 2)
         self._since_check += 1
         self._frame += 1
-        res = self._run(self._mesh, image_rgb)
+        faces = self._faces(image_rgb)
         if self._quiet_frames > 0:
             self._quiet_frames -= 1
-        faces = res.multi_face_landmarks
         self._was_found = bool(faces)
         if not faces:
             self.faces_in_view = 0
             self._missing += 1
             return None
         scale = np.array([w, h, w], dtype=np.float64)
-        arrays = [landmarks_array(f) * scale for f in faces]
+        arrays = [f * scale for f in faces]
         count = len(arrays) if self.multi_face_mode or self._detector is None else max(1, self._seen_count)
         self.faces_in_view = count
         k = self._choose(arrays)

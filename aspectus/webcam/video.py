@@ -261,15 +261,18 @@ def _frame_time(fr, tb, last_t, dt_nominal, report: DecodeReport) -> float:
     return t
 
 
-def upright_rgb(fr, reformatter=None) -> np.ndarray:
+def upright_rgb(fr, reformatter=None, *, display_matrix: bool = True) -> np.ndarray:
     """The frame as an RGB array with its rotation metadata applied.
 
     ``reformatter`` (a PyAV ``VideoReformatter`` kept for a clip's frames) keeps the scaler set up from one
     frame to the next instead of building it again for each frame; the pictures are the same bit for bit
     (tests/webcam/test_video.py), for some 8 % less CPU of the conversion (bench/bench_cpu.py's host).
+    ``display_matrix=False``: the caller knows the frame carries none (:class:`_Upright`).
     """
     img = (fr.to_ndarray(format="rgb24") if reformatter is None
            else reformatter.reformat(fr, format="rgb24").to_ndarray())
+    if not display_matrix:
+        return img
     if _mirrored(fr):
         return _unmirror(img, fr)
     k = _rotation_k(fr)
@@ -283,6 +286,38 @@ def _reformatter():
     except ImportError:
         return None
     return VideoReformatter()
+
+
+def _rotation_tag(frame) -> int | None:
+    """The frame's display rotation as PyAV reads it without building its side-data objects, or None."""
+    try:
+        return int(frame.rotation)
+    except Exception:  # noqa: BLE001 - old PyAV
+        return None
+
+
+class _Upright:
+    """One clip's frames as upright RGB arrays (:func:`upright_rgb`), with one scaler for the clip.
+
+    A frame's side data is read only where it can hold a display matrix: on the first frame, on every
+    frame after one that carried a matrix, and on any frame whose display rotation (which PyAV reads
+    without building side-data objects) is not 0. Reading it builds objects that refer to the frame and
+    to which the frame refers, so the decoded picture (1.4 MB at 720p) waits for Python's cycle
+    collector instead of going back to the decoder at once; measured on a 720p clip (bench/bench_cpu.py's
+    host), that cost some 220 fresh memory pages and 0.2-0.3 ms of system CPU a frame. The pictures are
+    the same (tests/webcam/test_video.py). Not read so: a matrix that only mirrors appearing in the middle
+    of a clip whose first frame carried none.
+    """
+
+    def __init__(self):
+        self.reformatter = _reformatter()
+        self._matrix = True  # until the first frame is seen
+
+    def __call__(self, fr) -> np.ndarray:
+        if not self._matrix and _rotation_tag(fr) == 0:
+            return upright_rgb(fr, self.reformatter, display_matrix=False)
+        self._matrix = _display_matrix(fr) is not None
+        return upright_rgb(fr, self.reformatter)
 
 
 def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
@@ -333,7 +368,7 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
         dt_nominal = 1.0 / float(rate) if rate else 1.0 / 30.0
         last_t = None
         index = 0
-        reformatter = _reformatter()
+        upright = _Upright()
         other_end_s = None  # where the data of the other streams (sound) ends: tells a cut file from a long sound track
         demux = container.demux()  # every stream: the demuxer reads their packets anyway
         while True:
@@ -363,14 +398,14 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
                 if fr.width * fr.height > max_pixels:
                     raise VideoError(f"picture size {fr.width}x{fr.height} is too large", path=path,
                                      where=f"frame {index}")
-                yield Frame(index=index, pts_s=last_t, image=upright_rgb(fr, reformatter))
+                yield Frame(index=index, pts_s=last_t, image=upright(fr))
                 index += 1
                 report.frames = index
         # flush the decoder
         try:
             for fr in st.codec_context.decode(None):
                 last_t = _frame_time(fr, tb, last_t, dt_nominal, report)
-                yield Frame(index=index, pts_s=last_t, image=upright_rgb(fr, reformatter))
+                yield Frame(index=index, pts_s=last_t, image=upright(fr))
                 index += 1
                 report.frames = index
         except av.error.FFmpegError:
