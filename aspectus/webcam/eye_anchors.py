@@ -72,6 +72,8 @@ MIN_SCORE = 0.6
 PATIENCE_FRAMES = 15
 #: ... or when the iris radius has changed by more than this fraction since it was cut
 RESCALE_FRACTION = 0.2
+#: templates kept per point for heads turned back (key frames; the oldest is dropped)
+MAX_KEY_TEMPLATES = 8
 #: ... or (when the tracker is given the head rotation) when the head has turned by more than this since it was
 #: cut: the angle whose sine is :data:`RESCALE_FRACTION`, so that a point at the template's edge has moved by the
 #: same fraction of the half-width as under the scale rule (11.5 deg)
@@ -171,21 +173,49 @@ class EyeAnchorTracker:
         self.last_matched = np.zeros(len(self.points), bool)
         #: per point, whether the last :meth:`update` cut its template (at the position it returned)
         self.last_cut = np.zeros(len(self.points), bool)
+        #: per point, a number naming the template in use (new for every cut; a key frame's template taken up
+        #: again keeps its number)
+        self.template_ids = np.full(len(self.points), -1, dtype=np.int64)
+        self._keys: list[list] = [[] for _ in self.points]  # per point, the templates cut at turned heads
+        self._next_id = 0
 
-    def _cut(self, j: int, image: np.ndarray, p, half: int, r: float, rotation=None) -> None:
+    def _cut(self, j: int, image: np.ndarray, p, half: int, r: float, rotation=None, keep_keys: bool = False) -> None:
         xi, yi = int(round(p[0])), int(round(p[1]))
         tpl = _grey(image, xi - half, yi - half, xi + half + 1, yi + half + 1)
-        self._templates[j] = None if tpl is None else (tpl, (p[0] - xi, p[1] - yi), half, r, rotation)
+        t = None
+        if tpl is not None:
+            t = (tpl, (p[0] - xi, p[1] - yi), half, r, rotation, tuple(self.offsets_px[j]), self._next_id)
+            self._next_id += 1
+        self._templates[j] = t
         self._misses[j] = 0
-        self.last_cut[j] = tpl is not None
+        self.last_cut[j] = t is not None
+        self.template_ids[j] = -1 if t is None else t[6]
+        if rotation is not None:
+            keys = self._keys[j] if keep_keys else []
+            if t is not None:
+                keys = (keys + [t])[-MAX_KEY_TEMPLATES:]
+            self._keys[j] = keys
+
+    def _key_for(self, j: int, rotation, r: float):
+        """The stored template of point ``j`` cut nearest to ``rotation`` (within the turn and scale limits)."""
+        best, best_c = None, _RECUT_COS
+        for t in self._keys[j]:
+            if abs(t[3] / r - 1.0) > RESCALE_FRACTION:
+                continue
+            c = 0.5 * (float(np.trace(np.asarray(rotation) @ np.asarray(t[4]).T)) - 1.0)
+            if c >= best_c:
+                best, best_c = t, c
+        return best
 
     def update(self, image: np.ndarray, points_px: np.ndarray, iris_radius_px: float,
                rotation: np.ndarray | None = None) -> np.ndarray:
         """The anchors' picture positions (k, 2) in this frame: the mesh's points plus the followed offsets.
 
         ``image`` is the picture or a crop of it, and ``points_px`` are in the same coordinates. ``rotation``
-        (the head rotation of this frame, 3 x 3), when given, also cuts a template again once the head has
-        turned by :data:`RECUT_ROTATION_DEG` since it was cut.
+        (the head rotation of this frame, 3 x 3), when given, also changes a template once the head has
+        turned by :data:`RECUT_ROTATION_DEG` since it was cut: to one cut earlier at a rotation within that
+        angle (a key frame taken up again, so a head that turns away and back comes back to the same
+        templates rather than to a chain of cuts), or to a new one.
         """
         r = float(iris_radius_px)
         mesh = np.asarray(points_px, float)[self._rows, :2]
@@ -212,10 +242,20 @@ class EyeAnchorTracker:
         for j, t in enumerate(self._templates):
             if t is not None and rotation is not None and id(t[4]) not in turned:
                 turned[id(t[4])] = _turned(rotation, t[4])
-            if (t is None or abs(t[3] / r - 1.0) > RESCALE_FRACTION or self._misses[j] >= PATIENCE_FRAMES
-                    or turned.get(id(t[4]), False)):
+            if t is None or abs(t[3] / r - 1.0) > RESCALE_FRACTION or self._misses[j] >= PATIENCE_FRAMES:
                 self._cut(j, image, [mesh_l[j][0] + offsets[j][0], mesh_l[j][1] + offsets[j][1]], half, r, rotation)
                 continue
+            if turned.get(id(t[4]), False):
+                key = self._key_for(j, rotation, r)
+                if key is None:
+                    self._cut(j, image, [mesh_l[j][0] + offsets[j][0], mesh_l[j][1] + offsets[j][1]], half, r,
+                              rotation, keep_keys=True)
+                    continue
+                # the key frame's template, searched where its skin lay from the mesh's point when it was cut
+                self._templates[j] = t = key
+                self.template_ids[j] = t[6]
+                ox, oy = t[5]
+                pred[j] = [mesh_l[j][0] + min(bound, max(-bound, ox)), mesh_l[j][1] + min(bound, max(-bound, oy))]
             e = t[2] + s
             xi, yi = int(round(pred[j][0])), int(round(pred[j][1]))
             box = (xi - e, yi - e, xi + e + 1, yi + e + 1)

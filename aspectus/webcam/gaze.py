@@ -152,10 +152,10 @@ class GazeParams:
         skin points over the face followed on the picture against key
         frames (:mod:`aspectus.webcam.skin_pose`): there r -0.02, SD 0.03
         deg, and pitch gain up on five dev clips (at 12 px 0.90 -> 0.99);
-        but with the head turning +-15 deg on 25 px clips its yaw errs more
-        (SD 1.03 -> 1.46 deg on one) and the median gaze error rose (1.90 ->
-        3.14 and 1.59 -> 2.00 deg), so it is not the default
-        (docs/notes/gaze-measurement.md).
+        but with the head turning +-15 deg on 25 px clips the two faces
+        measured part (median gaze error 1.59 -> 1.44 deg on one, 1.90 ->
+        3.35 on the other, whose yaw it reads with gain 0.86), so it is
+        not the default (docs/notes/gaze-measurement.md).
     fuse_in_head : bool
         With ``iris_combine`` "fuse" or "rescale": fit the mapping of the
         mesh point onto the limbus scale on both points' offsets from the

@@ -10,10 +10,11 @@ Here the rotation comes from the picture instead. Skin points spread over the ri
 (:data:`SKIN_POSE_POINTS`: forehead, nose bridge and tip, cheeks, temples - away from the lids, brows and
 mouth) are followed by the eye anchors' template matcher (:class:`aspectus.webcam.eye_anchors.EyeAnchorTracker`:
 the same templates, search, score and rules for cutting a template again - after failed matches, a changed
-face scale, or a head turned by :data:`aspectus.webcam.eye_anchors.RECUT_ROTATION_DEG` since the cut). Each
-template is matched against the frame it was cut from (a key frame), not chained from frame to frame, so a
-still head gives a still pose. When a template is cut, its point's 3-D position is where the line of sight
-through the cut position meets the face model's surface (the plane through the model point and its 10
+face scale, or a head turned by :data:`aspectus.webcam.eye_anchors.RECUT_ROTATION_DEG` since the cut, where a
+template of the same point cut earlier near the present rotation is taken up again). Each template is matched
+against the frame it was cut from (a key frame), not chained from frame to frame, so a still head gives a
+still pose, and a head turned away and back returns to its first templates. When a template is cut, its
+point's 3-D position is where the line of sight through the cut position meets the face model's surface (the plane through the model point and its 10
 nearest neighbours) under that frame's pose, so the points reproject exactly where they were cut and the
 mesh's errors at later frames do not enter. The pose is then solved per frame by PnP on the matched points
 (:func:`solve_pose`: Levenberg-Marquardt from the previous frame's pose; points beyond three robust scales
@@ -131,6 +132,7 @@ class SkinPose:
     def reset(self) -> None:
         self.tracker.reset()
         self.X = np.full((len(self.points), 3), np.nan)  # each point's head-frame position at its template's cut
+        self._X_by_template: dict[int, np.ndarray] = {}  # the same by template number (key frames taken up again)
         self._R = self._t = None  # the last solved pose
         self._diff: np.ndarray | None = None  # the last solved rotation times the mesh's rotation's inverse
         self.inliers = np.zeros(len(self.points), bool)
@@ -151,6 +153,9 @@ class SkinPose:
         local = np.asarray(points_px, float).copy()
         local[:, :2] -= off
         a = self.tracker.update(image, local, iris_radius_px, rotation=R_g) + off
+        for j, tid in enumerate(self.tracker.template_ids.tolist()):
+            if not self.tracker.last_cut[j]:
+                self.X[j] = self._X_by_template.get(tid, self.X[j])
         use = self.tracker.last_matched & np.isfinite(self.X).all(axis=1)
         sol = solve_pose(self.X[use], a[use], K, R_g, t_g) if use.sum() >= MIN_POINTS else None
         self.inliers[:] = False
@@ -167,6 +172,10 @@ class SkinPose:
             self.fallback_frames += 1
         for j in np.flatnonzero(self.tracker.last_cut):  # where the line of sight meets the face model
             self.X[j] = back_project(a[j], K, R, t, self._model[j], self._normals[j])
+            self._X_by_template[int(self.tracker.template_ids[j])] = self.X[j].copy()
+        if len(self._X_by_template) > 4 * len(self.points) * 8:  # forget templates no longer kept
+            live = {int(t[6]) for ks in self.tracker._keys for t in ks} | set(self.tracker.template_ids.tolist())
+            self._X_by_template = {k: v for k, v in self._X_by_template.items() if k in live}
         return R
 
     def fallback(self, R_mesh: np.ndarray) -> np.ndarray:

@@ -135,3 +135,35 @@ def test_a_point_beside_the_eye_the_head_is_turned_away_from_leaves_the_refit(ya
     assert np.linalg.norm(fits["below_and_beside"] - t) > 0.1
     exact = np.linalg.norm(fits["below_and_facing_beside"] - t) < 1e-6
     assert exact != right_used
+
+
+def test_a_head_turned_away_and_back_takes_up_its_first_templates_again():
+    """Given the head rotation, a template is changed once the head has turned by RECUT_ROTATION_DEG since its
+    cut; turned back, the tracker takes up the template cut there before (a key frame), not a chain of cuts."""
+    from aspectus.webcam.eye_anchors import RECUT_ROTATION_DEG
+
+    img = _texture(seed=4).round().astype(np.uint8)
+    pts = _points(ANCHORS_XY)
+    tr = EyeAnchorTracker(ANCHOR_POINTS)
+    R0 = head_rotation(0.0, 0.0, 0.0)
+    tr.update(img, pts, 10.0, rotation=R0)
+    first = tr.template_ids.copy()
+    assert tr.last_cut.all()
+    tr.update(img, pts, 10.0, rotation=head_rotation(RECUT_ROTATION_DEG - 1.0, 0.0, 0.0))
+    np.testing.assert_array_equal(tr.template_ids, first)  # within the limit: the same templates
+    assert not tr.last_cut.any() and tr.last_matched.all()
+    tr.update(img, pts, 10.0, rotation=head_rotation(RECUT_ROTATION_DEG + 3.0, 0.0, 0.0))
+    assert tr.last_cut.all() and not np.isin(tr.template_ids, first).any()  # turned further: new cuts
+    turned = tr.template_ids.copy()
+    got = tr.update(img, pts, 10.0, rotation=head_rotation(1.0, 0.0, 0.0))  # back near the start
+    np.testing.assert_array_equal(tr.template_ids, first)
+    assert not tr.last_cut.any() and tr.last_matched.all()
+    np.testing.assert_allclose(got, ANCHORS_XY, atol=0.25)
+    tr.update(img, pts, 10.0, rotation=head_rotation(RECUT_ROTATION_DEG + 2.0, 0.0, 0.0))
+    np.testing.assert_array_equal(tr.template_ids, turned)
+    # without a rotation (the eye anchors) nothing of this applies
+    plain = EyeAnchorTracker(ANCHOR_POINTS)
+    plain.update(img, pts, 10.0)
+    ids = plain.template_ids.copy()
+    plain.update(img, pts, 10.0)
+    np.testing.assert_array_equal(plain.template_ids, ids)
