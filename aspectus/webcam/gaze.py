@@ -212,6 +212,10 @@ class GazeParams:
             raise ParameterError("gaze parameter iris_combine = 'appearance' needs refine_iris and eye_anchors "
                                  "(the eye patches are read from the eye picture in a frame the eye anchors place): "
                                  "set both true, or choose iris_combine limbus, rescale or fuse")
+        if self.head_rotation == "skin" and not self.refine_iris:
+            raise ParameterError("gaze parameter head_rotation = 'skin' needs refine_iris (the skin points are "
+                                 "followed on the picture sent with the eye crop): set refine_iris true, or choose "
+                                 "head_rotation mesh")
 
     def to_dict(self) -> dict:
         return asdict(self)

@@ -214,6 +214,11 @@ def test_gaze_parameters_are_checked():
         GazeParams(iris_combine="appearance", refine_iris=False)
     with pytest.raises(ParameterError, match="eye_anchors"):
         GazeParams(eye_anchors="no")
+    with pytest.raises(ParameterError, match="head_rotation = 'face'"):
+        GazeParams(head_rotation="face")
+    with pytest.raises(ParameterError, match="head_rotation = 'skin' needs refine_iris"):
+        GazeParams(head_rotation="skin", refine_iris=False)
+    assert GazeParams(head_rotation="skin", eye_anchors=False).head_rotation == "skin"
     with pytest.raises(ParameterError, match="whole number"):
         GazeParams(blink_pad_frames=1.5)
     # an older run.json without the newer keys still reads, with the defaults
