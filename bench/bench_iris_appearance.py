@@ -1,8 +1,8 @@
 """The iris centre learnt from each clip's own eye appearance, against the limbus fit (issue 15).
 
-Measures :mod:`aspectus.webcam.iris_appearance` (``GazeParams(iris_combine="appearance")``) and variants of it. Renders held-out classroom-like
-clips (H.264 CRF 28, lids that follow vertical gaze, lighting drift and gradient, head drift and rotation; eyes
-on hand-coded trials of Andersson et al. 2017 and seeds that the gaze grid's tests do not use), runs the
+Measures :mod:`aspectus.webcam.iris_appearance` (``GazeParams(iris_combine="appearance")``) and variants of it.
+Renders held-out classroom-like clips (H.264 CRF 28, lids that follow vertical gaze, lighting drift and
+gradient, head drift and rotation; eyes on hand-coded trials of Andersson et al. 2017 and seeds that the gaze grid's tests do not use), runs the
 pipeline once per clip (the per-frame eye crops and landmarks kept, as bench/bench_iris_localiser.py does),
 replays the per-frame geometry to get the eye anchors' picture positions, samples both eyes into 24 x 16
 patches in the anchors' head-fixed frame, and learns per clip and eye the map from the patch's pixels to the
@@ -11,11 +11,13 @@ from a first cross-fit dropped; closed eyes and failed fits are not labels). Pri
 
 * the iris centre in px against the renderer's truth, per eye and axis (``gain`` of the eye's own motion and
   error ``sd``, as bench/bench_iris_localiser.py measures them), for the limbus fit and the appearance
-  estimate (``app``) and the appearance estimate rescaled by its gain measured with the other eye's limbus
-  fit as instrument (``app_iv``);
+  estimate (``app``), the appearance estimate rescaled by its gain measured with the other eye's limbus
+  fit as instrument (``app_iv``) and that blended with the limbus fit by the weight that agrees best with the
+  other eye's fit (``app_w``, what ``iris_combine=appearance`` uses vertically);
 * the gaze figures of the grid (tests/_gaze_grid.py: RMS-S2S, yaw/pitch r and gain, kappa) for the default
   (limbus fit, mesh point where it fails), ``iris_combine=fuse``, ``app`` (the appearance estimate in place of
-  the limbus fit), ``app_iv``, ``app_iv_y`` (``app_iv`` vertically, the default horizontally), ``app+fuse``
+  the limbus fit), ``app_iv``, ``app_iv_y`` (``app_iv`` vertically, the default horizontally), ``appearance``
+  (the option: ``app_w`` vertically, the default horizontally), ``app+fuse``
   (the appearance estimate fused with the mesh point as ``iris_combine=fuse`` does with the limbus fit), and
   the true iris centres;
 * the CPU cost (``time.process_time``) per frame of the patch sampling and of the regression.
@@ -152,7 +154,9 @@ def appearance_estimate(d: dict, anchors: np.ndarray, limbus: np.ndarray):
         recs.append(rec)
     ms_fit = (time.process_time() - t0) / max(int(have.sum()), 1) * 1e3
     est_iv, _ = AP.instrument_rescale(est, labels, have & eyes_open)
-    return AP.to_picture(est, A), AP.to_picture(est_iv, A), ms_sample, ms_fit, recs
+    est_w, wrec = AP.blend_with_labels(est_iv, labels, have & eyes_open)
+    recs.append(wrec)
+    return AP.to_picture(est, A), AP.to_picture(est_iv, A), AP.to_picture(est_w, A), ms_sample, ms_fit, recs
 
 
 def main(argv=None) -> int:
@@ -176,21 +180,24 @@ def main(argv=None) -> int:
             continue
         d = processed(name, spec, secs, args.cache, out_dir)
         anchors, limbus = replay(d["items"])
-        app, app_iv, ms_s, ms_f, recs = appearance_estimate(d, anchors, limbus)
+        app, app_iv, app_w, ms_s, ms_f, recs = appearance_estimate(d, anchors, limbus)
         truth, cap = d["truth"], d["cap"]
         print(f"{name}: {d['cond'].label()}  iris {truth['iris_diameter_px'].median():.1f} px, {len(d['items'])} "
               f"frames; sampling {ms_s:.2f} ms/frame, regression {ms_f:.2f} ms/frame; components "
-              f"{[r.get('components') for r in recs]} ridge {[r.get('ridge') for r in recs]}", flush=True)
-        for loc, est in (("limbus", limbus), ("app", app), ("app_iv", app_iv)):
+              f"{[r.get('components') for r in recs[:2]]} ridge {[r.get('ridge') for r in recs[:2]]}; blend {recs[2]}", flush=True)
+        for loc, est in (("limbus", limbus), ("app", app), ("app_iv", app_iv), ("app_w", app_w)):
             print(f"  {loc:8s} " + "  ".join(f"{eye}{axis} gain {g:4.2f} sd {sd:4.2f}"
                                              for eye, axis, g, sd, _f in pixel_figures(est, truth)), flush=True)
         base = cap["iris_px"]
         app, app_iv = (np.where(np.isfinite(e), e, base) for e in (app, app_iv))  # no patch: the pipeline's
         vert = base.copy()
         vert[..., 1] = app_iv[..., 1]
+        vert_w = base.copy()
+        vert_w[..., 1] = np.where(np.isfinite(app_w[..., 1]), app_w[..., 1], base[..., 1])
         for label, iris, over in (("default", base, {}), ("fuse", base, {"iris_combine": "fuse"}),
                                   ("app", app, {}), ("app_iv", app_iv, {}),
-                                  ("app_iv_y", vert, {}), ("app+fuse", app, {"iris_combine": "fuse"}),
+                                  ("app_iv_y", vert, {}), ("appearance", vert_w, {}),
+                                  ("app+fuse", app, {"iris_combine": "fuse"}),
                                   ("true iris", G.true_iris_px(truth), {})):
             m = gaze_with(cap, iris, d["samples"], truth, d["trial"], **over)
             print(f"  gaze {label:9s} rms_s2s {m['rms_s2s_deg']:4.2f}  yaw r {m['yaw_r']:5.3f} gain "

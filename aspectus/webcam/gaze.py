@@ -98,9 +98,9 @@ class GazeParams:
         vertically the iris height predicted from the eyes' own appearance by
         a regression learnt per clip on the limbus fits
         (:mod:`aspectus.webcam.iris_appearance`; needs ``refine_iris`` and
-        ``eye_anchors``). On twelve held-out rendered classroom clips it cut
-        RMS-S2S by 31-58 % and raised pitch r on ten, with pitch gain nearer
-        one than ``"fuse"`` on eleven, but lowered the fixation kappa against
+        ``eye_anchors``). On twelve rendered dev clips (8.5-25 px) it cut
+        RMS-S2S by 5-55 % and raised pitch r on eleven (equal on the
+        twelfth, a large face), but lowered the fixation kappa against
         hand-coders on five (docs/notes/gaze-measurement.md); it keeps
         both eyes' patches, 768 bytes a frame (some 80 MB an hour at 30 fps),
         until the clip's end.

@@ -24,14 +24,19 @@ lids that follow vertical gaze. So:
    the pixels explain it only in part (shrinkage). The gain is measured per eye with the *other* eye's limbus
    fit as an instrument (:func:`instrument_rescale`: the eyes move together vertically, and their fits' noise
    is independent) and divided out.
-4. The prediction is mapped back to the picture through the same frame's transform; its height replaces the
+4. Per eye, the height taken is ``w * prediction + (1 - w) * limbus fit`` (the prediction alone where the fit
+   failed), ``w`` in steps of 0.1 the one whose series correlates best with the *other* eye's limbus fit
+   (:func:`blend_with_labels`): of two measures of the same motion, the one that agrees better with an
+   independent third carries more signal, so each clip and eye falls back towards its limbus fit where the
+   appearance is the noisier measure (large, sharp irises) and takes the appearance where the limbus fit is.
+5. The result is mapped back to the picture through the same frame's transform; its height replaces the
    limbus fit's (the horizontal position stays the limbus fit's, which is already unbiased and steady).
 
-Measured on twelve held-out rendered clips (bench/bench_iris_appearance.py; docs/notes/gaze-measurement.md):
-RMS-S2S down on all twelve (by 31-58 %), pitch r up on ten, pitch gain nearer one on seven - but the fixation
-kappa against the hand-coders down on five, and pitch r down on a large face, so it is an option, not the
-default. Costs (``time.process_time``): sampling 0.2-0.35 ms a frame at 640 x 480 (0.8-1.0 ms on 720p crops),
-the regression 0.3-0.45 ms a frame on 40-s clips.
+Measured on twelve rendered dev clips (bench/bench_iris_appearance.py; docs/notes/gaze-measurement.md): RMS-S2S
+down on all twelve (by 5-55 %), pitch r up on eleven and equal on a large face, pitch gain nearer one on
+seven and further on two - but the fixation kappa against the hand-coders down on five (by 0.02-0.08), so it
+is an option, not the default. Costs (``time.process_time``): sampling 0.2-0.35 ms a frame at 640 x 480
+(0.8-1.0 ms on 720p crops), the regression 0.15-0.5 ms a frame on 40-s clips.
 """
 from __future__ import annotations
 
@@ -59,6 +64,8 @@ RIDGE = (0.1, 1.0, 10.0, 100.0)
 TRIM_SD = 3.0
 #: the instrument's gain is kept within these limits before it is divided out
 GAIN_LIMITS = (0.5, 1.5)
+#: the appearance estimate's weights against the limbus fit that are tried (:func:`blend_with_labels`)
+BLEND_WEIGHTS = tuple(round(0.1 * k, 1) for k in range(11))
 
 
 class EyePatchSampler:
@@ -304,8 +311,40 @@ def appearance_iris(patches: np.ndarray, affines: np.ndarray, limbus_px: np.ndar
             pred[~rows] = np.nan
             est[:, e] = pred
             recs.append(rec)
-        est, gains = instrument_rescale(est, labels[a:b], np.asarray(usable[a:b], bool))
+        use = np.asarray(usable[a:b], bool)
+        est, gains = instrument_rescale(est, labels[a:b], use)
+        est, blend = blend_with_labels(est, labels[a:b], use, axis=1)
         out[a:b] = to_picture(est, affines[a:b])
-        info["blocks"].append({"frames": [int(a), int(b)], "right": recs[0], "left": recs[1], "gain": gains})
+        info["blocks"].append({"frames": [int(a), int(b)], "right": recs[0], "left": recs[1], "gain": gains,
+                               "appearance_weight": blend})
     out[~have] = np.nan
     return out, info
+
+
+def blend_with_labels(est: np.ndarray, labels: np.ndarray, use: np.ndarray, *, axis: int = 1,
+                      weights=BLEND_WEIGHTS) -> tuple[np.ndarray, dict]:
+    """Per eye, ``w * est + (1 - w) * label`` along ``axis`` with the ``w`` whose series agrees best (Pearson r)
+    with the *other* eye's labels; where the label is missing, the estimate. (N, 2, 2) in, the same out.
+
+    Both eyes see the same vertical gaze and their fits' errors are independent, so of two measures of one
+    eye the one that correlates better with the other eye's measure carries the larger share of signal in
+    its variance; the blend lets each clip and eye fall back to its limbus fit where the appearance estimate
+    is the noisier (a large, sharp iris) and use it where the limbus fit is.
+    """
+    out = np.array(est, float).copy()
+    rec: dict = {}
+    for e in range(2):
+        other = labels[:, 1 - e, axis]
+        ok = np.asarray(use, bool) & np.isfinite(other) & np.isfinite(est[:, e, axis]) & np.isfinite(labels[:, e, axis])
+        if ok.sum() < 20:
+            continue
+        best, best_r = 1.0, -np.inf
+        for w in weights:
+            c = w * est[ok, e, axis] + (1.0 - w) * labels[ok, e, axis]
+            r = float(np.corrcoef(c, other[ok])[0, 1])
+            if r > best_r:
+                best, best_r = float(w), r
+        lab = labels[:, e, axis]
+        out[:, e, axis] = np.where(np.isfinite(lab), best * est[:, e, axis] + (1.0 - best) * lab, est[:, e, axis])
+        rec[("right", "left")[e]] = round(best, 2)
+    return out, rec
