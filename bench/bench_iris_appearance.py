@@ -148,15 +148,19 @@ def appearance_estimate(d: dict, anchors: np.ndarray, limbus: np.ndarray):
     t0 = time.process_time()
     for e in range(2):
         train = have & eyes_open & np.isfinite(labels[:, e]).all(axis=1)
-        pred, rec = AP.crossfit_predict(AP.normalise(P[:, e]), labels[:, e], train, have)
+        pred, rec = AP.crossfit_predict(AP.normalise(P[:, e]), labels[:, e], train, have & eyes_open)
         pred[~have] = np.nan
         est[:, e] = pred
         recs.append(rec)
     ms_fit = (time.process_time() - t0) / max(int(have.sum()), 1) * 1e3
     est_iv, _ = AP.instrument_rescale(est, labels, have & eyes_open)
-    est_w, wrec = AP.blend_with_labels(est_iv, labels, have & eyes_open)
-    recs.append(wrec)
-    return AP.to_picture(est, A), AP.to_picture(est_iv, A), AP.to_picture(est_w, A), ms_sample, ms_fit, recs
+    weights = AP.blend_weights(est_iv, labels, have & eyes_open)
+    recs.append(weights)
+    app_w = AP.to_picture(est_iv, A)
+    for e, w in weights.items():  # as aspectus.webcam.iris_appearance.appearance_iris: applied in the picture
+        lab = limbus[:, e, 1]
+        app_w[:, e, 1] = np.where(np.isfinite(lab), w * app_w[:, e, 1] + (1.0 - w) * lab, app_w[:, e, 1])
+    return AP.to_picture(est, A), AP.to_picture(est_iv, A), app_w, ms_sample, ms_fit, recs
 
 
 def main(argv=None) -> int:

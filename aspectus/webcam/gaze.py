@@ -99,8 +99,8 @@ class GazeParams:
         a regression learnt per clip on the limbus fits
         (:mod:`aspectus.webcam.iris_appearance`; needs ``refine_iris`` and
         ``eye_anchors``). On twelve rendered dev clips (8.5-25 px) it cut
-        RMS-S2S by 5-55 % and raised pitch r on eleven (equal on the
-        twelfth, a large face), but lowered the fixation kappa against
+        RMS-S2S by 21-55 % on eleven and raised pitch r on ten (within
+        0.002 on the other two), but lowered the fixation kappa against
         hand-coders on five (docs/notes/gaze-measurement.md); it keeps
         both eyes' patches, 768 bytes a frame (some 80 MB an hour at 30 fps),
         until the clip's end.

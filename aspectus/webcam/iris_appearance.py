@@ -14,8 +14,8 @@ lids that follow vertical gaze. So:
 2. Per clip, in blocks of :data:`BLOCK_FRAMES` frames (memory stays bounded on long clips), and per eye, a
    linear map from the patch's pixels - each patch normalised to zero mean and unit SD, so lighting's offset
    and gain do not enter - to the limbus fit's centre in patch coordinates is learnt
-   (:func:`crossfit_predict`): the patches' principal components (from all of the block's patches; no label
-   enters them), ridge regression on their scores, both chosen by the cross-fitted error against the labels.
+   (:func:`crossfit_predict`): the patches' principal components (from the block's open-eye patches; no
+   label enters them), ridge regression on their scores, both chosen by the cross-fitted error against the labels.
    The limbus fits are the labels: their noise does not bias a regression, and the prediction averages many
    pixels. Each of 10 contiguous time folds is predicted by a model fitted on the other nine, so a frame's
    own label noise never enters its prediction; labels more than 3 robust SD from a first cross-fit, frames
@@ -26,16 +26,17 @@ lids that follow vertical gaze. So:
    is independent) and divided out.
 4. Per eye, the height taken is ``w * prediction + (1 - w) * limbus fit`` (the prediction alone where the fit
    failed), ``w`` in steps of 0.1 the one whose series correlates best with the *other* eye's limbus fit
-   (:func:`blend_with_labels`): of two measures of the same motion, the one that agrees better with an
+   (:func:`blend_weights`; chosen in patch coordinates, applied in the picture, so that ``w = 0`` is the
+   limbus fit itself): of two measures of the same motion, the one that agrees better with an
    independent third carries more signal, so each clip and eye falls back towards its limbus fit where the
    appearance is the noisier measure (large, sharp irises) and takes the appearance where the limbus fit is.
 5. The result is mapped back to the picture through the same frame's transform; its height replaces the
    limbus fit's (the horizontal position stays the limbus fit's, which is already unbiased and steady).
 
 Measured on twelve rendered dev clips (bench/bench_iris_appearance.py; docs/notes/gaze-measurement.md): RMS-S2S
-down on all twelve (by 5-55 %), pitch r up on eleven and equal on a large face, pitch gain nearer one on
-seven and further on two - but the fixation kappa against the hand-coders down on five (by 0.02-0.08), so it
-is an option, not the default. Costs (``time.process_time``): sampling 0.2-0.35 ms a frame at 640 x 480
+down on eleven (by 21-55 %; +1 % on the twelfth), pitch r up on ten and within 0.002 on two, pitch gain nearer
+one on seven and further on one - but the fixation kappa against the hand-coders down on five (by 0.01-0.13),
+so it is an option, not the default. Costs (``time.process_time``): sampling 0.2-0.35 ms a frame at 640 x 480
 (0.8-1.0 ms on 720p crops), the regression 0.15-0.5 ms a frame on 40-s clips.
 """
 from __future__ import annotations
@@ -307,32 +308,37 @@ def appearance_iris(patches: np.ndarray, affines: np.ndarray, limbus_px: np.ndar
                 recs.append({"fitted": False, "train_frames": int(train.sum())})
                 continue
             X = normalise(patches[a:b, e])
-            pred, rec = crossfit_predict(X, labels[a:b, e], train, rows)
+            # the components from the open eyes' patches: a blink's patch is an outlier that would take some
+            pred, rec = crossfit_predict(X, labels[a:b, e], train, rows & np.asarray(usable[a:b], bool))
             pred[~rows] = np.nan
             est[:, e] = pred
             recs.append(rec)
         use = np.asarray(usable[a:b], bool)
         est, gains = instrument_rescale(est, labels[a:b], use)
-        est, blend = blend_with_labels(est, labels[a:b], use, axis=1)
-        out[a:b] = to_picture(est, affines[a:b])
+        weights = blend_weights(est, labels[a:b], use, axis=1)  # chosen in the head's frame (patch coordinates)
+        pic = to_picture(est, affines[a:b])
+        for e, w in weights.items():  # applied in the picture, so that w = 0 gives the limbus fit itself
+            lab = np.asarray(limbus_px[a:b, e, 1], float)
+            pic[:, e, 1] = np.where(np.isfinite(lab), w * pic[:, e, 1] + (1.0 - w) * lab, pic[:, e, 1])
+        out[a:b] = pic
+        blend = {("right", "left")[e]: w for e, w in weights.items()}
         info["blocks"].append({"frames": [int(a), int(b)], "right": recs[0], "left": recs[1], "gain": gains,
                                "appearance_weight": blend})
     out[~have] = np.nan
     return out, info
 
 
-def blend_with_labels(est: np.ndarray, labels: np.ndarray, use: np.ndarray, *, axis: int = 1,
-                      weights=BLEND_WEIGHTS) -> tuple[np.ndarray, dict]:
-    """Per eye, ``w * est + (1 - w) * label`` along ``axis`` with the ``w`` whose series agrees best (Pearson r)
-    with the *other* eye's labels; where the label is missing, the estimate. (N, 2, 2) in, the same out.
+def blend_weights(est: np.ndarray, labels: np.ndarray, use: np.ndarray, *, axis: int = 1,
+                  weights=BLEND_WEIGHTS) -> dict:
+    """Per eye (0 right, 1 left), the weight ``w`` of ``w * est + (1 - w) * label`` along ``axis`` whose series
+    agrees best (Pearson r) with the *other* eye's labels; eyes without enough frames are left out.
 
     Both eyes see the same vertical gaze and their fits' errors are independent, so of two measures of one
     eye the one that correlates better with the other eye's measure carries the larger share of signal in
     its variance; the blend lets each clip and eye fall back to its limbus fit where the appearance estimate
     is the noisier (a large, sharp iris) and use it where the limbus fit is.
     """
-    out = np.array(est, float).copy()
-    rec: dict = {}
+    out: dict = {}
     for e in range(2):
         other = labels[:, 1 - e, axis]
         ok = np.asarray(use, bool) & np.isfinite(other) & np.isfinite(est[:, e, axis]) & np.isfinite(labels[:, e, axis])
@@ -344,7 +350,17 @@ def blend_with_labels(est: np.ndarray, labels: np.ndarray, use: np.ndarray, *, a
             r = float(np.corrcoef(c, other[ok])[0, 1])
             if r > best_r:
                 best, best_r = float(w), r
+        out[e] = round(best, 2)
+    return out
+
+
+def blend_with_labels(est: np.ndarray, labels: np.ndarray, use: np.ndarray, *, axis: int = 1,
+                      weights=BLEND_WEIGHTS) -> tuple[np.ndarray, dict]:
+    """(N, 2, 2) estimates blended with the labels along ``axis`` by :func:`blend_weights` (the estimate where
+    the label is missing), and the weights by eye name."""
+    out = np.array(est, float).copy()
+    w = blend_weights(est, labels, use, axis=axis, weights=weights)
+    for e, we in w.items():
         lab = labels[:, e, axis]
-        out[:, e, axis] = np.where(np.isfinite(lab), best * est[:, e, axis] + (1.0 - best) * lab, est[:, e, axis])
-        rec[("right", "left")[e]] = round(best, 2)
-    return out, rec
+        out[:, e, axis] = np.where(np.isfinite(lab), we * est[:, e, axis] + (1.0 - we) * lab, est[:, e, axis])
+    return out, {("right", "left")[e]: we for e, we in w.items()}
