@@ -10,6 +10,7 @@ otherwise. The face mesh is CPU-heavy: the default grid takes 10-15 minutes on t
     python bench/bench_gaze_grid.py                 # the whole grid
     python bench/bench_gaze_grid.py --quick         # four cells
     python bench/bench_gaze_grid.py --csv grid.csv  # also write the rows
+    python bench/bench_gaze_grid.py --appearance    # also --gaze iris_combine=appearance (a second run per cell)
 """
 from __future__ import annotations
 
@@ -67,6 +68,9 @@ def main(argv=None) -> int:
     ap.add_argument("--seed", type=int, default=0, help="seed of the head motion, noise and lighting (default 0)")
     ap.add_argument("--csv", help="write the rows to this CSV file as well")
     ap.add_argument("--keep", help="keep the rendered clips in this folder")
+    ap.add_argument("--appearance", action="store_true",
+                    help="also the setting iris_combine=appearance (a second pipeline run per cell: its patches are "
+                         "read in the per-frame geometry)")
     args = ap.parse_args(argv)
     if not LUND.is_dir():
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
@@ -78,7 +82,11 @@ def main(argv=None) -> int:
     print(head, flush=True)
     for cond in grid(args.quick, args.seed):
         t0 = time.perf_counter()
-        for row in G.run_condition(cond, out_dir, LUND):
+        cell = G.run_condition(cond, out_dir, LUND)
+        if args.appearance:
+            cell += G.run_condition(cond, out_dir, LUND, variants={"appear": {}},
+                                    pipeline_gaze={"iris_combine": "appearance"})
+        for row in cell:
             rows.append(row)
             print(f"{row['label'][:56]:56s} " + " ".join(f"{fmt.format(row[c]):>11s}" for c, fmt in COLUMNS),
                   flush=True)
