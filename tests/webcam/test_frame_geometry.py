@@ -269,3 +269,36 @@ def test_frames_the_anchors_cannot_refit_continue_their_offset(frames_and_faces)
     st = geo.state()
     assert st["unanchored_frames"] == 1 and st["anchored_frames"] >= len(items) - 6
     assert st["anchor_matches"] > 0 and st["anchor_misses"] >= 0
+
+
+def test_appearance_columns_follow_the_record_and_leave_it_unchanged(frames_and_faces):
+    """With ``appearance`` the rows carry the limbus-fit flags, each eye's patch frame and both patches after
+    the record's columns; the record itself is the same as without (aspectus.webcam.iris_appearance)."""
+    from aspectus.webcam.frame_geometry import APPEARANCE_WIDTH
+    from aspectus.webcam.iris_appearance import PATCH_BYTES, PATCH_SIZE
+
+    frs, obs = frames_and_faces
+    items = [frame_item(f.pts_s, f.image, o, refine_iris=True) for f, o in zip(frs, obs)]
+    plain, app = _rows(items), _rows(items, appearance=True)
+    assert app.shape == (len(items), RECORD_WIDTH + APPEARANCE_WIDTH)
+    np.testing.assert_array_equal(app[:, :RECORD_WIDTH], plain)
+    found = plain[:, 1] > 0.5
+    flags = app[found, RECORD_WIDTH:RECORD_WIDTH + 2]
+    assert set(np.unique(flags)) <= {0.0, 1.0} and flags.mean() > 0.8
+    # the flag says whether the limbus fit moved the mesh's point
+    moved = np.abs(plain[found, 15:19:2] - plain[found, 31:35:2]) > 0
+    assert (flags[moved] == 1.0).all()
+    affine = app[:, RECORD_WIDTH + 2:RECORD_WIDTH + 14]
+    with_patch = np.isfinite(affine).all(axis=1)
+    assert with_patch[found].mean() > 0.9 and not with_patch[~found].any()
+    patches = np.ascontiguousarray(app[with_patch, RECORD_WIDTH + 14:]).view(np.uint8)
+    assert patches.shape == (with_patch.sum(), PATCH_BYTES)
+    W, H = PATCH_SIZE
+    p = patches.reshape(-1, 2, H, W).astype(float)
+    assert (p.std(axis=(2, 3)) > 3).all()  # real picture content, not a constant
+    # the same bytes from the child process and from a thread
+    k1, t_rows, _ = _run("thread", items, appearance=True)
+    k2, p_rows, _ = _run("process", items, appearance=True)
+    assert (k1, k2) == ("thread", "process")
+    np.testing.assert_array_equal(np.ascontiguousarray(t_rows).view(np.uint8), np.ascontiguousarray(app).view(np.uint8))
+    np.testing.assert_array_equal(np.ascontiguousarray(p_rows).view(np.uint8), np.ascontiguousarray(app).view(np.uint8))
