@@ -51,6 +51,16 @@ def import_mediapipe():
     return mediapipe
 
 
+def import_mediapipe_part(name: str):
+    """A submodule of mediapipe (``"mediapipe.python.packet_creator"``), imported after :func:`import_mediapipe`."""
+    import importlib
+
+    if name != "mediapipe" and not name.startswith("mediapipe."):
+        raise ValueError(f"not a part of mediapipe: {name!r}")
+    import_mediapipe()
+    return importlib.import_module(name)
+
+
 class _NoPlotting(__import__("types").ModuleType):
     """Stands in for matplotlib while mediapipe is imported (see :func:`_plotting_left_out`)."""
 

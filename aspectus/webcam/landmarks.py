@@ -36,7 +36,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from aspectus._env import import_mediapipe, native_stderr_silenced, quiet_native_logs
+from aspectus._env import import_mediapipe, import_mediapipe_part, native_stderr_silenced, quiet_native_logs
 from aspectus.errors import ParameterError
 
 from aspectus.face_mesh import (FACE_OVAL, LEFT_EAR_POINTS, LEFT_EYE_CORNERS, LEFT_EYE_OUTLINE,  # noqa: F401 (re-exported)
@@ -112,9 +112,7 @@ def landmarks_from_serialized(raw: bytes) -> np.ndarray:
     a = _plain_landmarks(raw)
     if a is not None:
         return a
-    from mediapipe.framework.formats import landmark_pb2
-
-    msg = landmark_pb2.NormalizedLandmarkList()
+    msg = import_mediapipe_part("mediapipe.framework.formats.landmark_pb2").NormalizedLandmarkList()
     msg.ParseFromString(raw)
     return landmarks_array_slow(msg)
 
@@ -174,9 +172,10 @@ class _GraphCall:
         if not DIRECT_GRAPH_CALLS:
             return None
         try:
-            from mediapipe.python import packet_creator
-            from mediapipe.python._framework_bindings import _packet_getter, image_frame
-            from mediapipe.python.solution_base import PacketDataType
+            packet_creator = import_mediapipe_part("mediapipe.python.packet_creator")
+            _packet_getter = import_mediapipe_part("mediapipe.python._framework_bindings._packet_getter")
+            image_frame = import_mediapipe_part("mediapipe.python._framework_bindings.image_frame")
+            PacketDataType = import_mediapipe_part("mediapipe.python.solution_base").PacketDataType
 
             inputs = dict(solution._input_stream_type_info)
             outputs = dict(solution._output_stream_type_info)
