@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from _tagged_clips import tagged_clip
 
 from aspectus.cli import main
 from aspectus.errors import AspectusInputError, ParameterError
@@ -588,56 +589,16 @@ def _warning_clip_fn(clip, out, **kw):
 
 # --- containers: mirrored pictures and sound tracks that outlast the video -----------------------
 
-def _tagged_clip(path: Path, *, matrix=None, rotation_deg: int = 0, video_s: float = 0.2, audio_s: float = 0.0,
-                 fmt: str | None = None) -> Path:
-    """A tiny clip, white in its left quarter as stored, with a display matrix and optionally a sound track."""
-    from fractions import Fraction
-
-    import av
-
-    with av.open(str(path), "w", format=fmt) as c:
-        v = c.add_stream("libx264", rate=30, options={"preset": "ultrafast"})
-        v.width, v.height, v.pix_fmt = 160, 120, "yuv420p"
-        if matrix is not None:
-            v.set_display_matrix(matrix)
-        elif rotation_deg:
-            v.set_display_rotation(rotation_deg)
-        a = None
-        if audio_s:
-            a = c.add_stream("pcm_s16le", rate=8000)
-            a.layout = "mono"
-        img = np.zeros((120, 160, 3), np.uint8)
-        img[:, :40] = 255
-        img[:30, :] = 128  # and a grey band at the top, to tell a flip from a rotation
-        for i in range(int(round(video_s * 30))):
-            fr = av.VideoFrame.from_ndarray(img, format="rgb24")
-            fr.pts, fr.time_base = i, Fraction(1, 30)
-            for p in v.encode(fr):
-                c.mux(p)
-        for p in v.encode(None):
-            c.mux(p)
-        if a is not None:
-            n = int(audio_s * 8000)
-            for k in range(0, n, 8000):
-                af = av.AudioFrame.from_ndarray(np.zeros((1, min(8000, n - k)), np.int16), format="s16", layout="mono")
-                af.sample_rate, af.pts, af.time_base = 8000, k, Fraction(1, 8000)
-                for p in a.encode(af):
-                    c.mux(p)
-            for p in a.encode(None):
-                c.mux(p)
-    return path
-
-
 def test_a_horizontal_flip_is_not_read_as_a_half_turn(tmp_path):
     """Issue 17.14: a mirroring display matrix was read as 180 deg (face upside down, 58 deg noise)."""
     from aspectus.webcam.video import iter_frames, probe
 
-    flip = _tagged_clip(tmp_path / "hflip.mp4", matrix=[-65536, 0, 0, 0, 65536, 0, 0, 0, 1 << 30])
+    flip = tagged_clip(tmp_path / "hflip.mp4", matrix=[-65536, 0, 0, 0, 65536, 0, 0, 0, 1 << 30])
     img = next(iter(iter_frames(flip))).image
     assert img[:, -40:, 0].mean() > 200 and img[60:, :40, 0].mean() < 30  # white moved right ...
     assert img[:30, 60:100, 0].mean() < 200 and abs(img[:25, 60:100, 0].mean() - 128) < 20  # ... grey stays on top
     assert probe(flip).rotation_deg == 0
-    turned = _tagged_clip(tmp_path / "rot180.mp4", rotation_deg=180)  # a real half turn still is one
+    turned = tagged_clip(tmp_path / "rot180.mp4", rotation_deg=180)  # a real half turn still is one
     img = next(iter(iter_frames(turned))).image
     assert img[-25:, 60:100, 0].mean() == pytest.approx(128, abs=20) and probe(turned).rotation_deg == 180
 
@@ -646,7 +607,7 @@ def test_sound_longer_than_the_video_is_not_called_truncation(tmp_path):
     """Issue 17.14: an MKV whose audio runs on got "file is damaged, probably truncated"."""
     from aspectus.webcam.video import DecodeReport, iter_frames
 
-    p = _tagged_clip(tmp_path / "long_sound.mkv", video_s=1.0, audio_s=3.0, fmt="matroska")
+    p = tagged_clip(tmp_path / "long_sound.mkv", video_s=1.0, audio_s=3.0, fmt="matroska")
     r = DecodeReport()
     assert sum(1 for _ in iter_frames(p, report=r)) == 30
     assert r.stopped_early is None and any("sound track runs on" in n for n in r.notes), r

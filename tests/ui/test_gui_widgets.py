@@ -125,30 +125,6 @@ def test_duration_histogram_counts_whole_fixations_and_labels_the_overflow_bar()
     assert not [t for t in fig2.axes[0].texts if t.get_text().startswith("last bar")]
 
 
-def _flagged_clip(path, matrix):
-    """A tiny H.264 clip, white in its left quarter and grey along its top as stored, with a display matrix."""
-    from fractions import Fraction
-
-    import av
-    import numpy as np
-
-    with av.open(str(path), "w") as c:
-        v = c.add_stream("libx264", rate=30, options={"preset": "ultrafast"})
-        v.width, v.height, v.pix_fmt = 160, 120, "yuv420p"
-        v.set_display_matrix(matrix)
-        img = np.zeros((120, 160, 3), np.uint8)
-        img[:, :40] = 255
-        img[:30, :] = 128
-        for i in range(6):
-            fr = av.VideoFrame.from_ndarray(img, format="rgb24")
-            fr.pts, fr.time_base = i, Fraction(1, 30)
-            for p in v.encode(fr):
-                c.mux(p)
-        for p in v.encode(None):
-            c.mux(p)
-    return path
-
-
 @pytest.mark.parametrize("matrix", [[-65536, 0, 0, 0, 65536, 0, 0, 0, 1 << 30],  # mirrored left-right
                                     [0, 65536, 0, -65536, 0, 0, 0, 0, 1 << 30]])  # a quarter turn
 def test_clip_view_shows_a_flagged_clip_as_processing_reads_it(qtbot, tmp_path, matrix):
@@ -156,10 +132,12 @@ def test_clip_view_shows_a_flagged_clip_as_processing_reads_it(qtbot, tmp_path, 
     while processing read it right: both now go through one rule (``video.upright_rgb``)."""
     import numpy as np
 
+    from _tagged_clips import tagged_clip
+
     from aspectus.webcam.video import iter_frames
     from ui.clip_view import FrameLoader
 
-    clip = _flagged_clip(tmp_path / "flagged.mp4", matrix)
+    clip = tagged_clip(tmp_path / "flagged.mp4", matrix=matrix)
     want = next(iter(iter_frames(clip))).image
     loader = FrameLoader()
     try:
