@@ -126,7 +126,7 @@ class ThreadCpu:
             cpu = (int(fields[11]) + int(fields[12])) / self._tick
             t = int(tid)
             self.cpu[t] = max(self.cpu.get(t, 0.0), cpu)
-            self.names.setdefault(t, py.get(t) or f"native: {comm}")
+            self.names.setdefault(t, py.get(t) or f"native: {comm.split('/')[0]}")
             if t in py:
                 self.names[t] = py[t]
 
@@ -145,7 +145,13 @@ class ThreadCpu:
 
 
 def install(acc: Account) -> None:
-    """Wrap the named steps of the command (module attributes, looked up where they are called)."""
+    """Wrap the named steps of the command (module attributes, looked up where they are called).
+
+    Labels are ``"group: part"``; the groups are those of :data:`GROUPS`.
+    """
+    from aspectus._env import import_mediapipe
+
+    import_mediapipe()  # first through aspectus, as the command does (without matplotlib)
     from mediapipe.python import solution_base
 
     import aspectus.atomic as atomic
@@ -159,21 +165,24 @@ def install(acc: Account) -> None:
     import aspectus.webcam.video as video
 
     # decoding: each next() of the frame iterator, less the conversion inside it
-    pipeline.iter_frames = acc.wrap_iter("decode (demux, decode, per-frame Python)", pipeline.iter_frames)
-    acc.patch(video, "upright_rgb", "YUV->RGB conversion")
-    acc.patch(video, "probe", "probe (open the clip, decode its first frame)")
-    acc.patch(atomic.HashingReader, "readinto", "reading the clip + hashing")
-    acc.patch(atomic.HashingReader, "hexdigest", "reading the clip + hashing")
+    pipeline.iter_frames = acc.wrap_iter("decode: demux, libavcodec, per-frame Python", pipeline.iter_frames)
+    acc.patch(video, "upright_rgb", "YUV->RGB: swscale conversion to an upright RGB array")
+    acc.patch(video, "probe", "decode: probe (open the clip, decode its first frame)")
+    acc.patch(atomic.HashingReader, "readinto", "decode: reading the clip + hashing")
+    acc.patch(atomic.HashingReader, "hexdigest", "decode: reading the clip + hashing")
     # the face mesh: MediaPipe's graph, its Python wrapper, the landmarks read from the result
-    acc.patch(solution_base.SolutionBase, "process", "mesh: MediaPipe graph + its Python wrapper")
+    acc.patch(landmarks._GraphCall, "__call__", "mesh: MediaPipe graph (direct call)")
+    acc.patch(solution_base.SolutionBase, "process", "mesh: MediaPipe graph + its Python wrapper (public call)")
     acc.patch(solution_base.SolutionBase, "_make_packet", "mesh: input picture copied into MediaPipe")
     acc.patch(solution_base.SolutionBase, "_get_packet_content", "mesh: result read out of MediaPipe")
-    acc.patch(landmarks, "landmarks_array", "landmark conversion (bytes -> array)")
+    acc.patch(landmarks, "landmarks_from_serialized", "mesh: landmark conversion (bytes -> array)")
+    acc.patch(landmarks, "landmarks_array", "mesh: landmark conversion (bytes -> array)")
+    acc.patch(landmarks, "mesh_input", "mesh: face tracker's own Python")
     acc.patch(landmarks.FaceTracker, "process", "mesh: face tracker's own Python")
     acc.patch(landmarks.FaceTracker, "__init__", "start-up: face mesh graphs")
     # hand-over to the geometry stage: the eye crop cut from the frame
-    acc.patch(pipeline, "frame_item", "eye crop (frame_item: box + copy)")
-    acc.patch(fg, "eye_crop_box", "eye crop (frame_item: box + copy)")
+    acc.patch(pipeline, "frame_item", "hand-over: eye crop (box + copy)")
+    acc.patch(fg, "eye_crop_box", "hand-over: eye crop (box + copy)")
     # the geometry
     acc.patch(headpose.HeadPoseSolver, "solve", "geometry: PnP (head pose)")
     acc.patch(fg, "frame_measurements", "geometry: landmark measurements")
@@ -183,16 +192,20 @@ def install(acc: Account) -> None:
     acc.patch(fg.FrameGeometry, "rows", "geometry: row building")
     acc.patch(fg.FrameGeometry, "_row_before_iris", "geometry: row building")
     acc.patch(fg.FrameGeometry, "_anchored_translation", "geometry: row building")
-    acc.patch(pipeline._Grow, "append", "record buffer append")
+    acc.patch(pipeline._Grow, "append", "pipeline loop: record buffer append")
     # after the frames
-    acc.patch(pipeline, "estimate_gaze", "gaze (whole clip)")
-    acc.patch(analysis, "run_analysis", "events/features")
-    acc.patch(pipeline, "summarise", "events/features")
-    acc.patch(pipeline, "_write_outputs", "writing outputs + checksums")
-    acc.patch(pipeline._Staged, "commit", "writing outputs + checksums")
-    acc.patch(pipeline, "software_versions", "run record (versions)")
-    acc.patch(pipeline, "extract_samples", "pipeline loop + samples table (per-frame Python)")
-    acc.patch(pipeline, "process_clip", "process_clip's own Python")
+    acc.patch(pipeline, "estimate_gaze", "after the frames: gaze (whole clip)")
+    acc.patch(analysis, "run_analysis", "after the frames: events/features")
+    acc.patch(pipeline, "summarise", "after the frames: events/features")
+    acc.patch(pipeline, "_write_outputs", "after the frames: writing outputs + checksums")
+    acc.patch(pipeline._Staged, "commit", "after the frames: writing outputs + checksums")
+    acc.patch(pipeline, "software_versions", "after the frames: run record")
+    acc.patch(pipeline, "extract_samples", "pipeline loop: per-frame Python + samples table")
+    acc.patch(pipeline, "process_clip", "after the frames: run record")
+
+
+#: the groups of the labels, in the order they are printed
+GROUPS = ("start-up", "decode", "YUV->RGB", "mesh", "hand-over", "geometry", "pipeline loop", "after the frames")
 
 
 def main(argv=None) -> int:
@@ -208,6 +221,7 @@ def main(argv=None) -> int:
         install(acc)
     c_start = _self_cpu_s()
     acc.cpu["start-up: interpreter + imports"] = c_start
+    acc.calls["start-up: interpreter + imports"] = 1
     kids0 = _children_cpu_s()
     threads = ThreadCpu()
     rc = cli_main(["process", clip, "-o", out, "--no-reuse", "--quiet"])

@@ -27,7 +27,12 @@ second of wall time (the mesh alone's rate is its own wall time summed over the
 frames of the breakdown pass). With ``--serial`` the command is also run with the
 stages in one thread (as batch workers run them).
 
-Run: ``python bench/bench_cpu.py [--seconds 60] [--seconds 300] [--rounds 2]``
+With ``--account`` the command is also run with CPU timers inside it (``bench/_cpu_account.py``): the serial
+run's CPU split by named part (start-up, decoding, the conversion, the mesh's graph and its Python, the eye
+crops, each part of the geometry, the pipeline loop, the steps after the frames), and the overlapped run's
+CPU by thread and the geometry process.
+
+Run: ``python bench/bench_cpu.py [--seconds 60] [--seconds 300] [--rounds 2] [--serial] [--account]``
 """
 from __future__ import annotations
 
@@ -102,7 +107,7 @@ def breakdown(clip: Path) -> dict:
     from aspectus.webcam.frame_geometry import _BATCH, FrameGeometry, frame_item
     from aspectus.webcam.landmarks import FaceTracker
     from aspectus.webcam.pipeline import ProcessParams, _write_outputs, extract_samples, summarise
-    from aspectus.webcam.video import _fix_decoder_threads, _reformatter, upright_rgb
+    from aspectus.webcam.video import _fix_decoder_threads, _Upright
 
     cpu = dict.fromkeys(("decode", "yuv->rgb", "mesh", "geometry", "hand-over", "hashing", "events/features",
                          "writing"), 0.0)
@@ -119,7 +124,7 @@ def breakdown(clip: Path) -> dict:
         st = container.streams.video[0]
         _fix_decoder_threads(st)
         frames = container.decode(st)
-        reformatter = _reformatter()  # as the decoder does: one scaler for the clip's frames
+        upright = _Upright()  # as the decoder does: one scaler for the clip's frames
         while True:
             c = pt()
             fr = next(frames, None)
@@ -127,7 +132,7 @@ def breakdown(clip: Path) -> dict:
             if fr is None:
                 break
             c = pt()
-            img = upright_rgb(fr, reformatter)
+            img = upright(fr)
             cpu["yuv->rgb"] += pt() - c
             c, w0 = pt(), time.perf_counter()
             obs = tracker.process(img)
@@ -177,12 +182,64 @@ def command(clip: Path, out: Path, *, serial: bool = False) -> tuple[float, floa
     return time.perf_counter() - t0, _children_cpu_s() - c0
 
 
+#: what runs in each thread of the command with its stages overlapped (names as bench/_cpu_account.py reports them)
+_THREADS = {"MainThread": "main thread: face mesh calls, eye crops, pipeline loop, after the frames",
+            "native: mediapipe": "MediaPipe's graph threads (the face mesh itself)",
+            "aspectus-decode": "decoder thread: demux, per-frame Python, YUV->RGB conversion",
+            "native: python": "FFmpeg's decoder threads (libavcodec), OpenBLAS's",
+            "aspectus-geometry-send": "hand-over: pickling eye crops and landmarks to the geometry process",
+            "aspectus-geometry-receive": "hand-over: rows back from the geometry process"}
+
+
+def account(clip: Path, out: Path, stages: str) -> dict:
+    """The command run with CPU timers inside it (bench/_cpu_account.py), in a child process."""
+    import json
+
+    p = subprocess.run([sys.executable, str(REPO / "bench" / "_cpu_account.py"), str(clip), str(out), stages],
+                       cwd=REPO, check=True, capture_output=True, text=True, env=dict(os.environ, PYTHONPATH=str(REPO)))
+    return json.loads(p.stdout.strip().splitlines()[-1])
+
+
+def print_account(serial: dict, overlapped: dict, mesh_ms: float) -> None:
+    """The serial command's CPU by named part, and the overlapped command's CPU by thread."""
+    from _cpu_account import GROUPS
+
+    n = serial["frames"]
+    ms = {k: 1e3 * v / n for k, v in serial["cpu_s"].items()}
+    total = 1e3 * serial["process_cpu_s"] / n
+    print("  the command itself, stages serial, CPU by named part (timers inside it: bench/_cpu_account.py)")
+    print(f"  {'part':72s} CPU ms/frame")
+    for g in GROUPS:
+        parts = {k.split(": ", 1)[1]: v for k, v in ms.items() if k.split(": ", 1)[0] == g and v >= 0.0005}
+        print(f"  {g:72s} {sum(parts.values()):8.3f}")
+        for k, v in sorted(parts.items(), key=lambda kv: -kv[1]):
+            print(f"      {k:68s} {v:8.3f}")
+    print(f"  {'not named (between the timers)':72s} {1e3 * serial['unnamed_s'] / n:8.3f}")
+    print(f"  {'total: the process CPU (getrusage)':72s} {total:8.3f}   = {total / mesh_ms:.2f}x the mesh alone "
+          f"(timers included)")
+    n = overlapped["frames"]
+    print("  the command itself, stages overlapped, CPU by thread (/proc/self/task)")
+    threads = dict(overlapped["threads_cpu_s"])
+    for name, what in _THREADS.items():
+        print(f"      {what:68s} {1e3 * threads.pop(name, 0.0) / n:8.3f}")
+    threads.pop("cpu-account", None)
+    print(f"      {'other threads':68s} {1e3 * sum(threads.values()) / n:8.3f}")
+    kids = 1e3 * overlapped["children_cpu_s"] / n
+    print(f"      {'geometry process (start-up, unpickling, geometry)':68s} {kids:8.3f}")
+    o_total = 1e3 * overlapped["process_cpu_s"] / n + kids
+    print(f"  {'total (process + geometry process)':72s} {o_total:8.3f}   = {o_total / mesh_ms:.2f}x the mesh alone; "
+          f"overlapped - serial = {o_total - total:+.3f}")
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seconds", type=float, action="append", default=None,
                     help="clip length in seconds (repeatable; default 60)")
     ap.add_argument("--rounds", type=int, default=1, help="rounds per clip (default 1)")
     ap.add_argument("--serial", action="store_true", help="also run the command with its stages in one thread")
+    ap.add_argument("--account", action="store_true",
+                    help="also run the command with CPU timers inside it: the serial run split by named part, "
+                         "the overlapped run by thread (bench/_cpu_account.py)")
     args = ap.parse_args(argv)
     print(f"machine: {machine()}")
     with tempfile.TemporaryDirectory() as d:
@@ -217,6 +274,10 @@ def main(argv=None) -> int:
                           f"throughput / mesh alone ({mesh_fps:.1f} frames/s) = {n / wall / mesh_fps:.2f} "
                           f"(wall clock: loaded machine, see load average); CPU per frame / mesh alone = "
                           f"{ccpu / n / mesh:.2f}")
+                if args.account:
+                    print_account(account(clip, d / "out_account", "serial"),
+                                  account(clip, d / "out_account", "overlapped"), 1e3 * mesh)
+                    print(f"  (load average now {_load():.1f})")
     return 0
 
 
