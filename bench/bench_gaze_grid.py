@@ -59,7 +59,7 @@ def grid(quick: bool, seed: int) -> list[G.Condition]:
 
 COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_deg", "{:5.2f}"),
            ("yaw_r", "{:5.3f}"), ("yaw_gain", "{:5.2f}"), ("pitch_r", "{:6.3f}"), ("pitch_gain", "{:5.2f}"),
-           ("kappa", "{:6.3f}"), ("kappa_truth", "{:5.3f}")]
+           ("kappa", "{:6.3f}"), ("kappa_truth", "{:5.3f}"), ("iris_estimate", "{!s:10s}")]
 
 
 def main(argv=None) -> int:

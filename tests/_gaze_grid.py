@@ -117,9 +117,12 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     return out
 
 
-#: gaze settings the grid compares: the default, and the limbus fit fused with the face mesh's iris point
-#: (mapped onto the limbus scale in the head, :func:`aspectus.webcam.gaze.fuse_iris_centres`)
-VARIANTS = {"limbus": {}, "fuse": {"iris_combine": "fuse"}}
+#: gaze settings the grid compares: the default (``iris_combine="auto"``: the appearance estimate below a 17.3 px
+#: iris, the limbus fit above), the limbus fit alone, and the limbus fit fused with the face mesh's iris point
+#: (mapped onto the limbus scale in the head, :func:`aspectus.webcam.gaze.fuse_iris_centres`); ``"iris_px":
+#: "limbus"`` re-estimates on the limbus fit's own centres (what the pipeline had before the appearance estimate)
+VARIANTS = {"default": {}, "limbus": {"iris_combine": "limbus", "iris_px": "limbus"},
+            "fuse": {"iris_combine": "fuse", "iris_px": "limbus"}}
 #: a variant with the renderer's true iris centres in place of the localiser's (what the rest of the chain -
 #: head pose, eyeball centres, detector - gives with a perfect iris localiser)
 TRUE_IRIS = {"true_iris": {"iris_px": "truth"}}
@@ -148,30 +151,40 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
 
     res, trial = render_condition(cond, out_dir, lund_dir)
     captured = {}
+    orig_app = pipeline._appearance_iris
 
     def spy(**kw):
         captured.update(kw)
         return estimate_gaze(**kw)
 
-    pipeline.estimate_gaze = spy
+    def app_spy(a, patches, found):
+        captured["limbus_iris_px"] = a[:, 15:19].reshape(len(a), 2, 2).copy()
+        return orig_app(a, patches, found)
+
+    pipeline.estimate_gaze, pipeline._appearance_iris = spy, app_spy
     try:
-        samples, _ = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(mirrored=cond.mirror,
-                                                                                    **(pipeline_gaze or {}))))
+        samples, meta = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(mirrored=cond.mirror,
+                                                                                       **(pipeline_gaze or {}))))
     finally:
-        pipeline.estimate_gaze = estimate_gaze
+        pipeline.estimate_gaze, pipeline._appearance_iris = estimate_gaze, orig_app
+    limbus_iris = captured.pop("limbus_iris_px", None)
     rows = []
     for name, over in (variants or VARIANTS).items():
         s = samples
         if over:
             over = dict(over)
             kw = {k: v for k, v in captured.items() if k != "params"}
-            if over.pop("iris_px", None) == "truth":
+            src = over.pop("iris_px", None)
+            if src == "truth":
                 kw["iris_px"] = true_iris_px(res.truth)
+            elif src == "limbus" and limbus_iris is not None:
+                kw["iris_px"] = limbus_iris
             cols, _ = estimate_gaze(**kw, params=GazeParams(mirrored=cond.mirror, **(pipeline_gaze or {}) | over))
             s = samples.copy()
             for c, v in cols.items():
                 if c in s.columns:
                     s[c] = v
         rows.append(asdict(cond) | {"label": cond.label(), "variant": name} | measure(s, res.truth, trial)
+                    | {"iris_estimate": (meta["gaze_model"].get("iris_estimate") or {}).get("used") if not over else None}
                     | ({"samples": s} if keep_samples else {}))
     return rows

@@ -52,7 +52,13 @@ IRIS_DIAMETER_MM = 11.7
 EYEBALL_RADIUS_MM = 12.0
 IRIS_PLANE_RADIUS_MM = float(np.sqrt(EYEBALL_RADIUS_MM ** 2 - (IRIS_DIAMETER_MM / 2) ** 2))
 #: the ways the iris centre is taken (GazeParams.iris_combine)
-IRIS_COMBINE = ("limbus", "rescale", "fuse", "appearance")
+IRIS_COMBINE = ("auto", "limbus", "rescale", "fuse", "appearance")
+#: with ``iris_combine="auto"`` the appearance estimate is taken below this median iris diameter (the face
+#: mesh's, px) and the limbus fit at or above it: the geometric middle, sqrt(12 x 25), of the largest size where
+#: the appearance estimate was measured to help (8-12 px: RMS-S2S down 21-55 % on eleven of twelve dev clips,
+#: pitch r up on ten) and the size where it did not (25 px: no better than the limbus fit, pitch r a little
+#: lower on one grid cell); docs/notes/gaze-measurement.md. Set between the measured sizes, not tuned to a test.
+AUTO_APPEARANCE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)), 1)
 #: frames whose eye aperture is at least this share of the clip's open-eye level count as open eyes
 OPEN_EYE_REL = 0.8
 
@@ -80,9 +86,15 @@ class GazeParams:
         landmarks jitters by about half a degree - which would move the
         eyeball centre by a third of a millimetre and the gaze by 1-2 deg.
         A centred average has no lag.
-    iris_combine : {"limbus", "rescale", "fuse", "appearance"}
-        With ``refine_iris``: use the limbus fit alone, the mesh point only
-        where the fit fails (default); ``"rescale"``: horizontally the limbus
+    iris_combine : {"auto", "limbus", "rescale", "fuse", "appearance"}
+        ``"auto"`` (default): ``"appearance"`` where the clip's median iris
+        diameter (the face mesh's, px) is below
+        :data:`AUTO_APPEARANCE_BELOW_PX` (17.3 px), ``"limbus"`` otherwise,
+        and ``"limbus"`` where the appearance estimate cannot run
+        (``refine_iris`` or ``eye_anchors`` off, too few open-eye frames);
+        run.json says which was used and why (``gaze_model.iris_estimate``).
+        ``"limbus"``: with ``refine_iris``, the limbus fit alone, the mesh
+        point only where the fit fails; ``"rescale"``: horizontally the limbus
         fit, vertically the face mesh's steady point rescaled to the limbus
         fit's gain; ``"fuse"``: both averaged (:func:`fuse_iris_centres`).
         Evidence on rendered clips (DEVELOPERS.md): "rescale" agrees far
@@ -101,9 +113,12 @@ class GazeParams:
         ``eye_anchors``). On twelve rendered dev clips (8.5-25 px) it cut
         RMS-S2S by 21-55 % on eleven and raised pitch r on ten (within
         0.002 on the other two), but lowered the fixation kappa against
-        hand-coders on five (docs/notes/gaze-measurement.md); it keeps
-        both eyes' patches, 768 bytes a frame (some 80 MB an hour at 30 fps),
-        until the clip's end.
+        hand-coders on five (docs/notes/gaze-measurement.md); at 25 px it
+        was no better than the limbus fit. It keeps both eyes' patches, 768
+        bytes a frame (some 80 MB an hour at 30 fps), until the clip's end;
+        ``"auto"`` keeps them only while the clip's first frames show an
+        iris below the threshold
+        (:data:`aspectus.webcam.pipeline.AUTO_DECIDE_FRAMES`).
     decouple_reference : bool
         Remove the part of the eyeball centres' vertical motion that follows
         the eyes (:func:`decouple_reference`; default True). The face mesh
@@ -175,7 +190,7 @@ class GazeParams:
     refine_iris: bool = True
     max_head_yaw_deg: float = 45.0
     head_smooth_ms: float = 300.0
-    iris_combine: str = "limbus"
+    iris_combine: str = "auto"
     decouple_reference: bool = True
     decouple_highpass_s: float = 0.7
     eye_anchors: bool = True

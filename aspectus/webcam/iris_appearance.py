@@ -281,7 +281,8 @@ def appearance_iris(patches: np.ndarray, affines: np.ndarray, limbus_px: np.ndar
                     block_frames: int = BLOCK_FRAMES, min_train: int = MIN_TRAIN_FRAMES) -> tuple[np.ndarray, dict]:
     """Iris centres (N, 2, 2) in picture px predicted from the eye patches, NaN where there is no prediction.
 
-    ``patches``: (N, 2, H, W) uint8 (:meth:`EyePatchSampler.sample`); ``affines``: (N, 2, 2, 3), NaN where a
+    ``patches``: (N, 2, H, W) uint8 (:meth:`EyePatchSampler.sample`), or any sequence of N frames whose slice
+    ``patches[a:b]`` gives that array for frames a-b (read one block at a time); ``affines``: (N, 2, 2, 3), NaN where a
     frame has no patch; ``limbus_px``: (N, 2, 2) the limbus fit, NaN where it failed; ``usable``: (N,) frames
     whose fits may be labels (face found, eyes open). Blocks of ``block_frames`` (a last block shorter than
     half of that joins the one before) are fitted separately; an eye with fewer than ``min_train`` labelled
@@ -301,13 +302,14 @@ def appearance_iris(patches: np.ndarray, affines: np.ndarray, limbus_px: np.ndar
     for a, b in zip(edges[:-1], edges[1:]):
         est = np.full((b - a, 2, 2), np.nan)
         recs = []
+        block = np.asarray(patches[a:b])  # one block at a time: the patches may be read from a file
         for e in range(2):
             rows = have[a:b, e]
             train = rows & np.asarray(usable[a:b], bool) & np.isfinite(labels[a:b, e]).all(axis=1)
             if train.sum() < min_train:
                 recs.append({"fitted": False, "train_frames": int(train.sum())})
                 continue
-            X = normalise(patches[a:b, e])
+            X = normalise(block[:, e])
             # the components from the open eyes' patches: a blink's patch is an outlier that would take some
             pred, rec = crossfit_predict(X, labels[a:b, e], train, rows & np.asarray(usable[a:b], bool))
             pred[~rows] = np.nan

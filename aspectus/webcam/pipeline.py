@@ -46,9 +46,9 @@ from aspectus.atomic import (full_paths_wanted, recorded_path, sha256_file, sha2
 from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
-from aspectus.webcam.gaze import GazeParams, estimate_gaze
+from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze
 from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, RECORD_WIDTH, frame_item, start_geometry
-from aspectus.webcam.iris_appearance import PATCH_BYTES
+from aspectus.webcam.iris_appearance import MIN_TRAIN_FRAMES, PATCH_BYTES
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, SAMPLE_COLUMNS, column_table
 from aspectus.webcam.video import DecodeReport, FramePrefetcher, iter_frames, probe
@@ -173,22 +173,119 @@ class _Grow:
         return self.a[: self.n]
 
 
-class _SplitSink:
-    """Hands the record's columns of a geometry row to one store and its patch bytes to another."""
+class _PatchFile:
+    """The eye patches (one row of bytes a frame) kept in an unnamed temporary file, not in memory.
 
-    def __init__(self, rec: _Grow, patches: _Grow, width: int):
+    Rows are gathered in a small buffer and written in chunks; ``self[a:b]`` reads rows ``a``-``b`` back as a
+    (b - a, 2, H, W) uint8 array (:func:`aspectus.webcam.iris_appearance.appearance_iris` reads one block of
+    frames at a time), so an hour of patches (some 80 MB at 30 fps) costs disk, not memory.
+    """
+
+    CHUNK = 1024
+
+    def __init__(self, width: int):
+        import tempfile
+
+        self.width = int(width)
+        self.n = 0
+        self._buf: list = []
+        self._f = tempfile.TemporaryFile(prefix="aspectus_patches_")
+
+    def append(self, row) -> None:
+        self._buf.append(np.asarray(row, np.uint8).tobytes())
+        self.n += 1
+        if len(self._buf) >= self.CHUNK:
+            self._flush()
+
+    def _flush(self) -> None:
+        if self._buf:
+            self._f.seek(0, 2)
+            self._f.write(b"".join(self._buf))
+            self._buf = []
+
+    def __len__(self) -> int:
+        return self.n
+
+    def __getitem__(self, key) -> np.ndarray:
+        from aspectus.webcam.iris_appearance import PATCH_SIZE
+
+        a, b, step = key.indices(self.n)
+        if step != 1:
+            raise IndexError("patch rows are read in contiguous blocks")
+        self._flush()
+        self._f.seek(a * self.width)
+        out = np.fromfile(self._f, dtype=np.uint8, count=max(b - a, 0) * self.width)
+        W, H = PATCH_SIZE
+        return out.reshape(-1, 2, H, W)
+
+    def clear(self) -> None:
+        """Drop every row kept (the file is emptied; appending starts again at row 0)."""
+        self._buf = []
+        self._f.seek(0)
+        self._f.truncate()
+        self.n = 0
+
+    def close(self) -> None:
+        self._buf = []
+        self._f.close()
+
+
+#: with ``iris_combine="auto"``: the eye patches are kept only if the median iris diameter of the first this
+#: many frames with a face (5 s at 30 fps) is below the threshold (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`);
+#: a large face then stores none (768 bytes a frame, some 80 MB an hour at 30 fps)
+AUTO_DECIDE_FRAMES = 150
+
+
+def _median_iris_px(diam: np.ndarray) -> float:
+    """Median over frames of the two eyes' mean iris diameter (the face mesh's, px; (N, 2), NaN or 0 where none)."""
+    d = np.where(np.asarray(diam, float) > 0, diam, np.nan)
+    ok = np.isfinite(d).any(axis=1)
+    return float(np.median(np.nanmean(d[ok], axis=1))) if ok.any() else float("nan")
+
+
+class _SplitSink:
+    """Hands the record's columns of a geometry row to one store and its patch bytes to another.
+
+    With ``decide_below_px`` (``iris_combine="auto"``) the patches are kept only while the first
+    :data:`AUTO_DECIDE_FRAMES` frames with a face show a median iris diameter below it; otherwise the patches
+    stored so far are dropped and no more are kept (``self.keep`` False).
+    """
+
+    def __init__(self, rec: _Grow, patches: _PatchFile, width: int, decide_below_px: float | None = None):
         self.rec, self.patches, self.width = rec, patches, width
+        self.decide_below_px = decide_below_px
+        self.keep = True
+        self.first_median_iris_px: float | None = None
+        self._diams: list = []
 
     def __call__(self, row) -> None:
         self.rec.append(row[:self.width])
+        if not self.keep:
+            return
         self.patches.append(np.ascontiguousarray(row[self.width:]).view(np.uint8))
+        if self.decide_below_px is not None and self.first_median_iris_px is None and row[1] > 0.5:
+            self._diams.append(np.array(row[19:21], float))
+            if len(self._diams) >= AUTO_DECIDE_FRAMES:
+                self.decide()
+
+    def decide(self) -> None:
+        """Settle whether the patches are kept, from the frames seen so far (also called at the clip's end)."""
+        if self.decide_below_px is None or self.first_median_iris_px is not None:
+            return
+        med = _median_iris_px(np.array(self._diams).reshape(-1, 2))
+        self.first_median_iris_px = med
+        self._diams = []
+        if not (np.isfinite(med) and med < self.decide_below_px):
+            self.keep = False
+            self.patches.clear()
 
 
 def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> tuple[np.ndarray, dict]:
     """The iris centres with their height from the eyes' appearance (``iris_combine="appearance"``).
 
-    ``a``: the record with the appearance columns (limbus-fit flags, patch frames); ``patches``: (N, bytes)
-    uint8. Where no prediction is made (too few labelled frames, no patch) the limbus fit's height stays.
+    ``a``: the record with the appearance columns (limbus-fit flags, patch frames); ``patches``: (N, 2, H, W)
+    uint8 or a :class:`_PatchFile` of N rows. Where no prediction is made (too few labelled frames, no patch)
+    the limbus fit's height stays.
     """
     from aspectus.webcam.gaze import OPEN_EYE_REL, relative_aperture
     from aspectus.webcam.iris_appearance import PATCH_SIZE, appearance_iris
@@ -200,8 +297,10 @@ def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> t
     limbus[~(a[:, w:w + 2] > 0.5)] = np.nan
     rel, _ = relative_aperture(found, a[:, 29:31])
     usable = found & (rel >= OPEN_EYE_REL)
-    W, H = PATCH_SIZE
-    pred, info = appearance_iris(patches.reshape(n, 2, H, W), a[:, w + 2:w + 14].reshape(n, 2, 2, 3), limbus,
+    if isinstance(patches, np.ndarray):
+        W, H = PATCH_SIZE
+        patches = patches.reshape(n, 2, H, W)
+    pred, info = appearance_iris(patches, a[:, w + 2:w + 14].reshape(n, 2, 2, 3), limbus,
                                  usable)  # the columns: APPEARANCE_COLUMNS
     y = pred[..., 1]
     iris[..., 1] = np.where(np.isfinite(y), y, iris[..., 1])
@@ -256,15 +355,17 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     refine = bool(params.gaze.refine_iris)
     # the iris height from the eyes' appearance (aspectus.webcam.iris_appearance) needs each frame's eye patches:
     # kept as uint8 beside the record, the limbus-fit flags and patch frames in more record columns
-    appearance = refine and params.gaze.iris_combine == "appearance" and bool(params.gaze.eye_anchors)
+    combine = params.gaze.iris_combine
+    appearance = refine and combine in ("appearance", "auto") and bool(params.gaze.eye_anchors)
     cap = min(max(n_hint + 16, 64), 1 << 20)
     n_meta = sum(k for name, k in APPEARANCE_COLUMNS if name != "patches")
     rec = _Grow(RECORD_WIDTH + (n_meta if appearance else 0), cap=cap)
     sink = rec.append
     patches = None
     if appearance:
-        patches = _Grow(PATCH_BYTES, cap=cap, dtype=np.uint8)
-        sink = _SplitSink(rec, patches, RECORD_WIDTH + n_meta)
+        patches = _PatchFile(PATCH_BYTES)  # on disk: an hour of them is some 80 MB
+        sink = _SplitSink(rec, patches, RECORD_WIDTH + n_meta,
+                          decide_below_px=AUTO_APPEARANCE_BELOW_PX if combine == "auto" else None)
     t0 = time.perf_counter()
     skin = refine and params.gaze.head_rotation == "skin"
     serial = resolve_stages(stages) == "serial"
@@ -328,15 +429,49 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     K = np.asarray(state["K"]) if state["K"] is not None else np.eye(3)
     iris = a[:, 15:19].reshape(n, 2, 2)
     app_info = None
+    choice = {"setting": combine, "threshold_px": AUTO_APPEARANCE_BELOW_PX,
+              "median_iris_px": _round(_median_iris_px(a[found, 19:21]))} if combine == "auto" else None
+    if appearance and combine == "auto":
+        sink.decide()  # a clip shorter than the deciding frames
+        choice["first_frames_median_iris_px"] = _round(sink.first_median_iris_px)
+        choice["first_frames"] = AUTO_DECIDE_FRAMES
+        if not sink.keep:
+            appearance = False
+            choice["reason"] = (f"median iris diameter of the first frames {choice['first_frames_median_iris_px']} px "
+                                f"is not below {AUTO_APPEARANCE_BELOW_PX} px: no eye patches kept")
+        elif not (choice["median_iris_px"] is not None and choice["median_iris_px"] < AUTO_APPEARANCE_BELOW_PX):
+            appearance = False
+            choice["reason"] = (f"the clip's median iris diameter {choice['median_iris_px']} px is not below "
+                                f"{AUTO_APPEARANCE_BELOW_PX} px")
+    elif combine == "auto":
+        off = [name for name, on in (("refine_iris", refine), ("eye_anchors", bool(params.gaze.eye_anchors))) if not on]
+        choice["reason"] = (f"the appearance estimate needs {' and '.join(off)} (off): the "
+                            + ("limbus fit" if refine else "face mesh's iris point") + " is used")
     if appearance:
-        iris, app_info = _appearance_iris(a, patches.view(), found)
-        patches.a = patches.a[:0]  # the patches are not needed any more (the sink still holds the store)
+        iris, app_info = _appearance_iris(a, patches, found)
+        fitted = any(blk[e].get("fitted") for blk in app_info["blocks"] for e in ("right", "left"))
+        if choice is not None:
+            if fitted:
+                choice["reason"] = (f"the clip's median iris diameter {choice['median_iris_px']} px is below "
+                                    f"{AUTO_APPEARANCE_BELOW_PX} px")
+            else:
+                choice["reason"] = ("the appearance regression was not fitted (too few open-eye frames with a limbus "
+                                    f"fit: at least {MIN_TRAIN_FRAMES} per eye are needed): the limbus fit is used")
+        if not fitted:
+            iris = a[:, 15:19].reshape(n, 2, 2)
+            if choice is not None:
+                app_info = None
+    if patches is not None:
+        patches.close()  # the patches are not needed any more (the temporary file goes with it)
+    if choice is not None:
+        choice["used"] = "appearance" if app_info is not None else ("limbus" if refine else "face mesh")
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
         iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None, params=params.gaze)
     if app_info is not None:
         ginfo["iris_appearance"] = app_info
+    ginfo["iris_estimate"] = choice or {"setting": combine, "used": combine if refine else "face mesh"}
     pts = a[:, 0].copy()
     counts = a[:, 2].astype(np.int64)
     del a, rec, Rm, tm, iris  # the per-frame records are in ``cols`` now; an hour of them is some 30 MB
@@ -373,6 +508,10 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         meta["frame_interval_ms"] = {"median": float(np.median(d) * 1e3), "min": float(d.min() * 1e3),
                                      "max": float(d.max() * 1e3)}
     return df, meta
+
+
+def _round(x, nd: int = 2) -> float | None:
+    return round(float(x), nd) if x is not None and np.isfinite(x) else None
 
 
 def _fraction(hits, misses) -> float | None:

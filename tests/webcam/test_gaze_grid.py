@@ -96,7 +96,7 @@ def test_verdict_at_8_px_says_which_features_are_usable(cells):
 def beside(lund_dir, tmp_path_factory):
     """The 8.5 px cell again, the head translation refitted to the anchors below *and beside* the eyes."""
     cond = G.Condition("8px_beside", size_px=(640, 480), distance_mm=780.0, trial="UL23_img_Europe", face="astronaut")
-    rows = G.run_condition(cond, tmp_path_factory.mktemp("beside"), lund_dir, variants={"limbus": {}} | G.TRUE_IRIS,
+    rows = G.run_condition(cond, tmp_path_factory.mktemp("beside"), lund_dir, variants={"limbus": G.VARIANTS["limbus"]} | G.TRUE_IRIS,
                            pipeline_gaze={"eye_anchor_set": "below_and_beside"})
     return {r["variant"]: r for r in rows}
 
