@@ -41,6 +41,18 @@ def test_median_fixation_duration_is_plausible(demo_out):
         assert 150.0 <= fix["duration_ms"].median() <= 400.0, clip.name
 
 
+def test_the_demo_clips_are_large_faces_and_keep_the_limbus_fit(demo_out, repo_root):
+    """The demo clips' irises are some 21-22 px across (their rendered truth), above the 17.3 px below which the
+    default ``iris_combine="auto"`` takes the appearance estimate: the limbus fit is kept, as before it existed."""
+    out, clips, _ = demo_out
+    for clip in clips:
+        c = json.loads((out / clip.stem / "run.json").read_text())["extraction"]["gaze_model"]["iris_estimate"]
+        truth = pd.read_csv(repo_root / "sample_clips" / f"{clip.stem}_truth.csv")
+        assert truth["iris_diameter_px"].median() > 20.0
+        assert c["setting"] == "auto" and c["used"] == "limbus", (clip.name, c)
+        assert c["first_frames_median_iris_px"] >= c["threshold_px"], (clip.name, c)
+
+
 def test_fixation_and_blink_counts_near_the_rendered_truth(demo_out, repo_root):
     out, clips, _ = demo_out
     for clip in clips:

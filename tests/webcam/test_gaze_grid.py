@@ -5,8 +5,10 @@ lateral gradient, slow head drift with rotation (yaw +-10, pitch +-4, roll +-2 d
 8 s of hand-coded recordings (Andersson et al. 2017, ../shared/reference/lund2013): iris 12 px (55 cm, trial
 UH21, hopper face) and 8.5 px (78 cm, trial UL23, astronaut face). Figures are defined in tests/_gaze_grid.py.
 
-Issue 15's floors at iris >= 12 px: RMS-S2S <= 1.5 deg, yaw and pitch |r| >= 0.95 with gain 0.85-1.15,
-fixation kappa >= 0.5; at 8-9 px: RMS-S2S <= 3 deg and a verdict that says which features are usable.
+The rows: ``default`` (``iris_combine="auto"``: the appearance estimate below a 17.3 px iris), ``limbus`` (the
+limbus fit alone, the default before), ``fuse`` and ``true_iris``. Issue 15's floors at iris >= 12 px:
+RMS-S2S <= 1.5 deg, yaw and pitch |r| >= 0.95 with gain 0.85-1.15, fixation kappa >= 0.5; at 8-9 px: RMS-S2S
+<= 3 deg and a verdict that says which features are usable.
 Where a floor is not reached yet the test guards the level reached (so it cannot slip back) and says so.
 """
 from __future__ import annotations
@@ -80,13 +82,36 @@ def test_with_the_true_iris_centres_the_12_px_pitch_floors_are_reached(cells):
     assert true8["rms_s2s_deg"] <= 1.0  # measured 0.48 deg
 
 
+def test_the_default_takes_the_appearance_estimate_at_classroom_scale(cells):
+    # The default iris_combine="auto" takes the appearance estimate below a 17.3 px iris (both cells: 12.1 and
+    # 8.5 px by the face mesh). Measured, default against the limbus fit alone (the default before), RMS-S2S
+    # deg / pitch r / pitch gain / kappa: 12 px 1.64 / 0.726 / 0.63 / 0.165 against 3.22 / 0.629 / 0.61 / 0.156;
+    # 8.5 px 1.51 / 0.830 / 0.33 / 0.351 against 3.62 / 0.554 / 0.33 / 0.312; yaw unchanged (the limbus fit
+    # horizontally). Issue 15's floors at 12 px: RMS-S2S <= 1.5 NOT met (1.64), pitch r >= 0.95 NOT met, pitch
+    # gain 0.85-1.15 NOT met, kappa >= 0.5 NOT met - each guarded at the reached level and not below the old
+    # default's; at 8-9 px RMS-S2S <= 3 met (1.51).
+    for name in ("12px", "8px"):
+        dft, lim = cells[(name, "default")], cells[(name, "limbus")]
+        assert dft["iris_estimate"] == "appearance"
+        assert dft["rms_s2s_deg"] <= 0.6 * lim["rms_s2s_deg"]
+        assert dft["pitch_r"] >= lim["pitch_r"] + 0.05
+        assert dft["pitch_gain"] >= lim["pitch_gain"] - 0.03
+        assert dft["kappa"] >= lim["kappa"] - 0.01
+        assert abs(dft["yaw_r"] - lim["yaw_r"]) <= 0.005
+    d12, d8 = cells[("12px", "default")], cells[("8px", "default")]
+    assert d12["rms_s2s_deg"] <= 1.8 and d12["pitch_r"] >= 0.70 and d12["pitch_gain"] >= 0.58
+    assert d8["rms_s2s_deg"] <= 3.0 and d8["rms_s2s_deg"] <= 1.8 and d8["pitch_r"] >= 0.78
+
+
 def test_verdict_at_8_px_says_which_features_are_usable(cells):
     from aspectus.events.analysis import run_analysis
     from aspectus.webcam.pipeline import summarise
 
-    smp = cells[("8px", "limbus")]["samples"]
+    smp = cells[("8px", "default")]["samples"]
     s = summarise(smp, run_analysis(smp), {})
-    assert s["precision_tier"] in ("coarse", "minimal")  # noise 2.4 deg (its own figure), iris 8.5 px
+    # the default's own noise figure 0.98 deg (2.39 with the limbus fit alone), iris 8.5 px: below 12 px the
+    # verdict does not trust fixation counts however low the noise reads
+    assert s["precision_tier"] in ("coarse", "minimal")
     assert "fixation count and durations" not in s["trusted_features"]
     assert "blink rate" in s["trusted_features"] and "blink rate" in s["verdict"]
     assert "irises about 8 px" in s["verdict"] or "irises about 9 px" in s["verdict"]

@@ -46,7 +46,7 @@ def figures(lund_dir, tmp_path_factory):
     finally:
         pipeline._appearance_iris, pipeline.estimate_gaze = orig_app, orig_est
     kw = {k: v for k, v in seen["kw"].items() if k != "params"} | {"iris_px": seen["limbus"]}
-    cols, _ = estimate_gaze(**kw, params=GazeParams())
+    cols, _ = estimate_gaze(**kw, params=GazeParams(iris_combine="limbus"))
     default = samples.copy()
     for c, v in cols.items():
         if c in default.columns:
