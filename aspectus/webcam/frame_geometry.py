@@ -29,7 +29,7 @@ from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, ANCHOR_SETS, DEFAULT_ANC
                                          TURN_LIMITED_SETS, EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
                                          translation_given_rotation, turn_away_limits_deg)
 from aspectus.webcam.gaze import frame_measurements
-from aspectus.webcam.iris_appearance import PATCH_BYTES, EyePatchSampler
+from aspectus.webcam.iris_appearance import DECIDE_FRAMES, PATCH_BYTES, EyePatchSampler, small_iris
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
 from aspectus.webcam.limbus import ROI_RADII, limbus_centres_many
@@ -122,13 +122,21 @@ class FrameGeometry:
         With the eye picture and the anchors: also sample both eyes into patches in the anchors' frame
         (:class:`aspectus.webcam.iris_appearance.EyePatchSampler`) and record whether each limbus fit
         succeeded; the rows are then :data:`APPEARANCE_WIDTH` columns wider (:data:`APPEARANCE_COLUMNS`).
+    appearance_below_px : float or None
+        With ``appearance``: stop sampling patches (their columns stay empty) once the first
+        :data:`aspectus.webcam.iris_appearance.DECIDE_FRAMES` frames with a face show a median iris diameter
+        that is not below this (``iris_combine="auto"``, whose pipeline drops them by the same rule).
     """
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
+                 appearance_below_px: float | None = None):
         self.fov_deg = float(fov_deg)
         self.appearance = bool(appearance)
         self.width = RECORD_WIDTH + (APPEARANCE_WIDTH if self.appearance else 0)
+        self.appearance_below_px = None if appearance_below_px is None else float(appearance_below_px)
+        self._sampling = True
+        self._first_diams: list | None = [] if self.appearance_below_px is not None else None
         self.sampler = EyePatchSampler()
         self._last_anchors: np.ndarray | None = None
         self.refine_iris = bool(refine_iris)
@@ -250,7 +258,12 @@ class FrameGeometry:
         """The limbus-fit flags (0 until a fit succeeds), the patch frames and the patches of one frame."""
         w = RECORD_WIDTH
         row[w:w + 2] = 0.0
-        if eyes is None or self._last_anchors is None:
+        if self._first_diams is not None:  # "auto": settle on the first frames with a face whether to go on
+            self._first_diams.append(np.array(m["iris_diam_px"], float))
+            if len(self._first_diams) >= DECIDE_FRAMES:
+                self._sampling = small_iris(np.array(self._first_diams), self.appearance_below_px)[0]
+                self._first_diams = None
+        if not self._sampling or eyes is None or self._last_anchors is None:
             return
         A = self.sampler.affines(self._last_anchors, m["corners_px"])
         if A is None:
@@ -347,9 +360,11 @@ class GeometryThread:
     kind = "thread"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
+                 appearance_below_px: float | None = None):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
-                                  anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)
+                                  anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
+                              appearance_below_px=appearance_below_px)
         self._sink = sink
         self._q: queue.Queue = queue.Queue(maxsize=2 * _BATCH)  # room for a whole batch of limbus fits
         self._failure: list[BaseException] = []
@@ -403,9 +418,11 @@ class GeometryInline:
     kind = "inline"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
+                 appearance_below_px: float | None = None):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
-                                  anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)
+                                  anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
+                              appearance_below_px=appearance_below_px)
         self._sink = sink
         self._pending: list = []
 
@@ -434,8 +451,9 @@ class GeometryInline:
 def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
-    Started by :class:`GeometryProcess` with the arguments ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE [APPEARANCE]]]]``. Anything else
-    that would print to stdout goes to stderr, so it cannot corrupt the replies.
+    Started by :class:`GeometryProcess` with the arguments
+    ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE [APPEARANCE [BELOW_PX]]]]]`` (BELOW_PX "-" for none). Anything
+    else that would print to stdout goes to stderr, so it cannot corrupt the replies.
     """
     args = list(sys.argv[1:] if argv is None else argv)
     fov_deg, refine_iris = float(args[0]), args[1] == "1"
@@ -443,11 +461,12 @@ def child_main(argv=None) -> int:
     anchor_set = args[3] if len(args) > 3 else DEFAULT_ANCHOR_SET
     skin_pose = len(args) > 4 and args[4] == "1"
     appearance = len(args) > 5 and args[5] == "1"
+    appearance_below_px = float(args[6]) if len(args) > 6 and args[6] != "-" else None
     out = os.fdopen(os.dup(1), "wb")
     os.dup2(2, 1)  # stray prints from libraries go to stderr
     inp = sys.stdin.buffer
     geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors, anchor_set=anchor_set,
-                        skin_pose=skin_pose, appearance=appearance)
+                        skin_pose=skin_pose, appearance=appearance, appearance_below_px=appearance_below_px)
 
     def reply(obj) -> bool:
         try:
@@ -508,14 +527,15 @@ class GeometryProcess:
     kind = "process"
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
-                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False):
+                 anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
+                 appearance_below_px: float | None = None):
         self._sink = sink
         if anchor_set not in ANCHOR_SETS:
             raise ValueError(f"anchor set must be one of {', '.join(ANCHOR_SETS)}, got {anchor_set!r}")
         self._proc = subprocess.Popen(
             [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parents[1]), repr(float(fov_deg)),
              "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set, "1" if skin_pose else "0",
-             "1" if appearance else "0"],
+             "1" if appearance else "0", "-" if appearance_below_px is None else repr(float(appearance_below_px))],
             stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._out: queue.Queue = queue.Queue(maxsize=32)  # batches in flight: some 30 MB of eye crops at most
         self._pending: list = []
@@ -610,7 +630,7 @@ class GeometryProcess:
 
 def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
                    eye_anchors: bool = True, anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False,
-                   appearance: bool = False):
+                   appearance: bool = False, appearance_below_px: float | None = None):
     """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
     application, or when no child can be started); ``mode`` forces ``"thread"``, ``"process"`` or
     ``"inline"`` (:class:`GeometryInline`, in the calling thread). ``skin_pose``: the head rotation from skin
@@ -620,14 +640,17 @@ def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int,
         raise ValueError(f"geometry mode must be auto, thread, process or inline, got {mode!r}")
     if mode == "inline":
         return GeometryInline(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
-                              anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)
+                              anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
+                              appearance_below_px=appearance_below_px)
     frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
             return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
-                              anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)
+                              anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
+                              appearance_below_px=appearance_below_px)
         except OSError:
             if mode == "process":
                 raise
     return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
-                              anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance)
+                              anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
+                              appearance_below_px=appearance_below_px)

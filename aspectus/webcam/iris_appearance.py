@@ -72,6 +72,26 @@ GAIN_LIMITS = (0.5, 1.5)
 BLEND_WEIGHTS = tuple(round(0.1 * k, 1) for k in range(11))
 
 
+#: with ``iris_combine="auto"``: whether the eye patches are kept is settled on this many first frames with a
+#: face (5 s at 30 fps): :func:`small_iris`
+DECIDE_FRAMES = 150
+
+
+def median_iris_px(diam: np.ndarray) -> float:
+    """Median over frames of the two eyes' mean iris diameter (px; (N, 2), NaN or 0 where none), NaN if none."""
+    d = np.asarray(diam, float).reshape(-1, 2)
+    d = np.where(d > 0, d, np.nan)
+    ok = np.isfinite(d).any(axis=1)
+    return float(np.median(np.nanmean(d[ok], axis=1))) if ok.any() else float("nan")
+
+
+def small_iris(diam: np.ndarray, below_px: float) -> tuple[bool, float]:
+    """(median iris diameter below ``below_px``, that median) - the one rule by which both the per-frame geometry
+    (whether to go on sampling patches) and the pipeline (whether to keep them) decide."""
+    med = median_iris_px(diam)
+    return bool(np.isfinite(med) and med < below_px), med
+
+
 class EyePatchSampler:
     """Samples both eyes' regions into fixed-size patches in a frame that moves with the head, not the eyes.
 

@@ -48,7 +48,7 @@ from aspectus.run_record import missing_output, read_run_json, refuse_foreign_fi
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze
 from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, RECORD_WIDTH, frame_item, start_geometry
-from aspectus.webcam.iris_appearance import MIN_TRAIN_FRAMES, PATCH_BYTES
+from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, SAMPLE_COLUMNS, column_table
 from aspectus.webcam.video import DecodeReport, FramePrefetcher, iter_frames, probe
@@ -232,15 +232,8 @@ class _PatchFile:
 
 #: with ``iris_combine="auto"``: the eye patches are kept only if the median iris diameter of the first this
 #: many frames with a face (5 s at 30 fps) is below the threshold (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`);
-#: a large face then stores none (768 bytes a frame, some 80 MB an hour at 30 fps)
-AUTO_DECIDE_FRAMES = 150
-
-
-def _median_iris_px(diam: np.ndarray) -> float:
-    """Median over frames of the two eyes' mean iris diameter (the face mesh's, px; (N, 2), NaN or 0 where none)."""
-    d = np.where(np.asarray(diam, float) > 0, diam, np.nan)
-    ok = np.isfinite(d).any(axis=1)
-    return float(np.median(np.nanmean(d[ok], axis=1))) if ok.any() else float("nan")
+#: a large face then stores none (768 bytes a frame, some 80 MB an hour at 30 fps) and samples none past them
+AUTO_DECIDE_FRAMES = DECIDE_FRAMES
 
 
 class _SplitSink:
@@ -272,10 +265,10 @@ class _SplitSink:
         """Settle whether the patches are kept, from the frames seen so far (also called at the clip's end)."""
         if self.decide_below_px is None or self.first_median_iris_px is not None:
             return
-        med = _median_iris_px(np.array(self._diams).reshape(-1, 2))
+        small, med = small_iris(np.array(self._diams), self.decide_below_px)
         self.first_median_iris_px = med
         self._diams = []
-        if not (np.isfinite(med) and med < self.decide_below_px):
+        if not small:
             self.keep = False
             self.patches.clear()
 
@@ -390,7 +383,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     sys.setswitchinterval(0.0005)
     geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=sink, frames_hint=n_hint,
                               mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors),
-                              anchor_set=params.gaze.eye_anchor_set, skin_pose=skin, appearance=appearance)
+                              anchor_set=params.gaze.eye_anchor_set, skin_pose=skin, appearance=appearance,
+                              appearance_below_px=AUTO_APPEARANCE_BELOW_PX if combine == "auto" else None)
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
         pin_to_cpus(background, geometry.pid)
@@ -430,7 +424,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     iris = a[:, 15:19].reshape(n, 2, 2)
     app_info = None
     choice = {"setting": combine, "threshold_px": AUTO_APPEARANCE_BELOW_PX,
-              "median_iris_px": _round(_median_iris_px(a[found, 19:21]))} if combine == "auto" else None
+              "median_iris_px": _round(median_iris_px(a[found, 19:21]))} if combine == "auto" else None
     if appearance and combine == "auto":
         sink.decide()  # a clip shorter than the deciding frames
         choice["first_frames_median_iris_px"] = _round(sink.first_median_iris_px)

@@ -104,3 +104,28 @@ def test_auto_falls_back_to_the_limbus_fit_where_appearance_cannot_run(rendered_
     _, meta = extract_samples(clip, params=ProcessParams(gaze=GazeParams(refine_iris=False)))
     c = meta["gaze_model"]["iris_estimate"]
     assert c["used"] == "face mesh" and "refine_iris" in c["reason"], c
+
+
+@pytest.mark.slow
+def test_on_a_large_iris_the_geometry_stops_sampling_patches_after_the_first_frames(rendered_clip, monkeypatch):
+    """The per-frame geometry settles by the same rule as the pipeline (aspectus.webcam.iris_appearance.small_iris)
+    and samples no patches past the deciding frames; in a child process (the argument passed on) the samples
+    are the same as in a thread."""
+    from aspectus.webcam import iris_appearance
+    from aspectus.webcam.pipeline import AUTO_DECIDE_FRAMES, extract_samples
+
+    clip = rendered_clip(duration_s=6.0, seed=22, size_px=(1280, 720), name="p22_s01.mp4").path
+    calls = []
+    orig = iris_appearance.EyePatchSampler.sample
+
+    def counting(self, *a, **kw):
+        calls.append(1)
+        return orig(self, *a, **kw)
+
+    monkeypatch.setattr(iris_appearance.EyePatchSampler, "sample", counting)
+    s_thread, meta = extract_samples(clip, geometry_mode="thread")
+    assert meta["gaze_model"]["iris_estimate"]["used"] == "limbus"
+    assert 0 < len(calls) <= AUTO_DECIDE_FRAMES < len(s_thread)
+    s_proc, meta = extract_samples(clip, geometry_mode="process")
+    assert meta["geometry_ran_in"] == "process" and meta["gaze_model"]["iris_estimate"]["used"] == "limbus"
+    np.testing.assert_allclose(s_proc["pitch_deg"], s_thread["pitch_deg"], equal_nan=True)
