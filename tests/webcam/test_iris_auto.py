@@ -70,6 +70,8 @@ def test_auto_takes_the_appearance_estimate_on_a_small_iris(rendered_clip, tmp_p
     assert 9.0 <= c["median_iris_px"] <= 13.0  # 11.7 mm at 60 cm through a 60 deg lens 640 px wide: 10.8 px
     assert "below" in c["reason"]
     assert any(gm["iris_appearance"]["blocks"][0][e]["fitted"] for e in ("right", "left"))
+    verdict = json.loads((tmp_path / clip.stem / "run.json").read_text())["quality"]["verdict"]
+    assert "eyes' own appearance" in verdict  # the clip's verdict says how its iris height was read
 
 
 @pytest.mark.slow
@@ -83,6 +85,7 @@ def test_auto_keeps_the_limbus_fit_and_no_patches_on_a_large_iris(rendered_clip,
     assert c["used"] == "limbus", c
     assert c["first_frames_median_iris_px"] >= c["threshold_px"]  # about 22 px
     assert c["first_frames"] == AUTO_DECIDE_FRAMES
+    assert "appearance" not in json.loads((tmp_path / clip.stem / "run.json").read_text())["quality"]["verdict"]
     assert "no eye patches kept" in c["reason"]
     assert "iris_appearance" not in gm
 
