@@ -408,6 +408,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     finally:
         if state is None:
             geometry.abort()
+            if patches is not None:
+                patches.close()  # a failed or cancelled run: the eye patches go at once, not when collected
         sys.setswitchinterval(old_switch)
         prefetch.close()
         tracker.close()
