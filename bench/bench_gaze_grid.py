@@ -5,7 +5,13 @@ recording of Andersson et al. (2017) (../shared/reference/lund2013), runs the we
 compares with the truth and with the two coders' labels; see tests/_gaze_grid.py for the figures' definitions.
 Every cell has lids that follow vertical gaze, a slow lighting drift (+-15 %) with a lateral gradient (0.3)
 and slow head drift with rotation (yaw +-10, pitch +-4, roll +-2 deg; 15 / 10 / 25 mm) unless its label says
-otherwise. The face mesh is CPU-heavy: the default grid takes 10-15 minutes on two cores.
+otherwise. One face-mesh run per cell: the 13 cells took about 3 minutes on two cores (2026-12-04; more when the
+machine is busy).
+
+Rows per cell: ``default`` (the pipeline's own run with the default settings; its ``iris_estimate`` column says
+which iris estimate ``iris_combine=auto`` took, run.json's ``gaze_model.iris_estimate.used``), then ``limbus``
+(the default before ``auto``) and ``fuse`` re-estimated on the same per-frame measurements. ``iris_px`` is the
+rendered truth's median iris diameter, ``iris_px_measured`` the face mesh's (what ``auto`` decides on).
 
     python bench/bench_gaze_grid.py                 # the whole grid
     python bench/bench_gaze_grid.py --quick         # four cells
@@ -57,7 +63,8 @@ def grid(quick: bool, seed: int) -> list[G.Condition]:
     return out
 
 
-COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_deg", "{:5.2f}"),
+COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("iris_px_measured", "{:5.1f}"),
+           ("rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_deg", "{:5.2f}"),
            ("yaw_r", "{:5.3f}"), ("yaw_gain", "{:5.2f}"), ("pitch_r", "{:6.3f}"), ("pitch_gain", "{:5.2f}"),
            ("kappa", "{:6.3f}"), ("kappa_truth", "{:5.3f}"), ("iris_estimate", "{!s:10s}")]
 

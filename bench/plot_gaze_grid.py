@@ -3,13 +3,29 @@
     python bench/bench_gaze_grid.py --csv grid.csv
     python bench/plot_gaze_grid.py grid.csv docs/gaze_grid.png
 
-Left: RMS-S2S of the gaze error against the iris diameter; middle: pitch gain; right: fixation kappa against
-the coders, with the detector's kappa on the noise-free truth (the ceiling at 30 Hz) in grey. One marker per
-cell and gaze setting; H.264 CRF in the marker (23, 28, 33; MPEG-4 part 2 as "m").
+Six panels against the iris diameter (px, the rendered truth): RMS-S2S of the gaze error, yaw and pitch r and
+gain against the truth, and the fixation kappa against the coders with the detector's kappa on the noise-free
+truth (the ceiling at 30 Hz) as grey dashes. Black: the default setting (filled circle where it took the
+appearance estimate of the iris height, open square where it took the limbus fit); blue and orange, smaller:
+``limbus`` and ``fuse``. H.264 CRF beside the default's markers (23, 28, 33; MPEG-4 part 2 as "m").
+Issue 15's floors in grey over the iris sizes they apply to (dotted lines, shaded gain band).
 """
 from __future__ import annotations
 
 import sys
+
+#: (column, panel title, y label, floor) - floor: ("line", value, from_px, to_px) or ("band", lo, hi, from_px)
+PANELS = [("rms_s2s_deg", "RMS-S2S of the gaze error", "deg", None),
+          ("yaw_r", "yaw: r against the truth", "Pearson r", ("line", 0.95, 12.0, None)),
+          ("yaw_gain", "yaw: gain against the truth", "slope (1 = true size)", ("band", 0.85, 1.15, 12.0)),
+          ("kappa", "fixation agreement with the coders", "Cohen's kappa", ("line", 0.5, 12.0, None)),
+          ("pitch_r", "pitch: r against the truth", "Pearson r", ("line", 0.95, 12.0, None)),
+          ("pitch_gain", "pitch: gain against the truth", "slope (1 = true size)", ("band", 0.85, 1.15, 12.0))]
+COMPARE = {"limbus": "tab:blue", "fuse": "tab:orange"}
+
+
+def _tag(r) -> str:
+    return "m" if r["codec"] == "mpeg4" else str(int(r["crf"]))
 
 
 def main(argv=None) -> int:
@@ -24,28 +40,47 @@ def main(argv=None) -> int:
     import pandas as pd
 
     d = pd.read_csv(argv[0])
-    fig, axes = plt.subplots(1, 3, figsize=(12, 3.8))
-    colours = {"limbus": "tab:blue", "fuse": "tab:orange"}
-    for variant, g in d.groupby("variant"):
+    missing = ({"variant", "iris_px", "codec", "crf", "iris_estimate", "kappa_truth"} | {c for c, *_ in PANELS}) - set(
+        d.columns)
+    if missing:
+        print(f"{argv[0]}: columns {sorted(missing)} missing; write the CSV with bench/bench_gaze_grid.py --csv",
+              file=sys.stderr)
+        return 2
+    xmax = max(27.0, float(d["iris_px"].max()) + 1.0)
+    fig, axes = plt.subplots(2, 3, figsize=(13, 7.2))
+    for ax, (col, title, ylabel, floor) in zip(axes.flat, PANELS):
+        for variant, colour in COMPARE.items():
+            g = d[d["variant"] == variant]
+            ax.scatter(g["iris_px"], g[col], color=colour, s=14, alpha=0.8, zorder=2)
+        g = d[d["variant"] == "default"]
+        app = g["iris_estimate"] == "appearance"
+        ax.scatter(g.loc[app, "iris_px"], g.loc[app, col], color="k", s=30, zorder=3)
+        ax.scatter(g.loc[~app, "iris_px"], g.loc[~app, col], facecolors="none", edgecolors="k", marker="s", s=34,
+                   zorder=3)
         for _, r in g.iterrows():
-            tag = "m" if r["codec"] == "mpeg4" else str(int(r["crf"]))
-            for ax, col in zip(axes, ("rms_s2s_deg", "pitch_gain", "kappa")):
-                ax.scatter(r["iris_px"], r[col], color=colours.get(variant, "k"), s=18)
-                ax.annotate(tag, (r["iris_px"], r[col]), fontsize=6, xytext=(3, 2), textcoords="offset points")
-    axes[2].scatter(d["iris_px"], d["kappa_truth"], color="0.6", marker="_", s=80, label="truth at 30 Hz")
-    for ax, title in zip(axes, ("RMS-S2S of the error, deg", "pitch gain", "fixation kappa vs coders")):
+            ax.annotate(_tag(r), (r["iris_px"], r[col]), fontsize=7, xytext=(4, 2), textcoords="offset points")
+        if col == "kappa":
+            ax.scatter(d["iris_px"], d["kappa_truth"], color="0.55", marker="_", s=90, zorder=1,
+                       label="detector on the true gaze")
+        if col == "rms_s2s_deg":
+            ax.hlines(1.5, 12.0, xmax, color="0.4", ls=":", lw=1.2, label="floor at >= 12 px")
+            ax.hlines(3.0, 8.0, 9.0, color="0.4", ls="--", lw=1.2, label="floor at 8-9 px")
+        elif floor and floor[0] == "line":
+            ax.hlines(floor[1], floor[2], xmax, color="0.4", ls=":", lw=1.2, label="floor at >= 12 px")
+        elif floor and floor[0] == "band":
+            ax.fill_between([floor[3], xmax], floor[1], floor[2], color="0.88", zorder=0,
+                            label="floor 0.85-1.15 at >= 12 px")
+        ax.set_xlim(7.0, xmax)
         ax.set_xlabel("iris diameter, px")
+        ax.set_ylabel(ylabel)
         ax.set_title(title, fontsize=10)
         ax.grid(alpha=0.3)
-    axes[0].axhline(1.5, color="0.5", ls=":", lw=1)
-    axes[0].axhline(3.0, color="0.5", ls=":", lw=1)
-    axes[1].axhspan(0.85, 1.15, color="0.9", zorder=0)
-    axes[2].axhline(0.5, color="0.5", ls=":", lw=1)
-    for v, c in colours.items():
-        axes[0].scatter([], [], color=c, label=v)
-    axes[0].legend(fontsize=8)
-    axes[2].legend(fontsize=8)
-    fig.tight_layout()
+        ax.legend(fontsize=7, loc="best")
+    handles = [plt.Line2D([], [], color="k", marker="o", ls="", label="default: appearance estimate"),
+               plt.Line2D([], [], color="k", marker="s", mfc="none", ls="", label="default: limbus fit"),
+               *[plt.Line2D([], [], color=c, marker="o", ls="", ms=4, label=v) for v, c in COMPARE.items()]]
+    fig.legend(handles=handles, loc="lower center", ncol=4, fontsize=9, frameon=False)
+    fig.tight_layout(rect=(0, 0.05, 1, 1))
     fig.savefig(argv[1], dpi=110)
     return 0
 
