@@ -260,6 +260,11 @@ class ClipView(QWidget):
         self.q_valid = QLabel()
         self.verdict = QLabel()
         self.verdict.setWordWrap(True)
+        self.iris_info = QLabel()  # how the iris height was measured (run.json: extraction.gaze_model.iris_estimate)
+        self.iris_info.setObjectName("iris_info")
+        self.iris_info.setWordWrap(True)
+        self.iris_info.setStyleSheet("color: #555;")
+        self.iris_info.hide()
         self.targets_info = QLabel()  # the known-target check's figures, when the clip has one
         self.targets_info.setWordWrap(True)
         self.targets_info.hide()
@@ -310,6 +315,7 @@ class ClipView(QWidget):
         lay.addLayout(controls)
         lay.addLayout(grid)
         lay.addWidget(self.verdict)
+        lay.addWidget(self.iris_info)
         lay.addWidget(self.targets_info)
         lay.addLayout(check_row)
 
@@ -416,6 +422,14 @@ class ClipView(QWidget):
             else:
                 self.verdict.setText(f"<b>{'Usable' if usable else 'Not usable'}.</b> {verdict}")
             self.verdict.setStyleSheet(f"color: {colour};")
+
+    def set_iris_estimate(self, text: str | None) -> None:
+        """Which iris estimate the clip's processing used, in plain words (None hides the line)."""
+        self.iris_info.setText(text or "")
+        self.iris_info.setToolTip("From the clip's run.json (extraction, gaze_model, iris_estimate). Change it with "
+                                  "\"Iris height from\" under Gaze measurement, then process the clip again."
+                                  if text else "")
+        self.iris_info.setVisible(bool(text))
 
     def set_target_check(self, doc: dict | None) -> None:
         """Show the figures of the clip's known-target check (``target_check.json`` as read), or hide them."""

@@ -260,6 +260,7 @@ class MainWindow(QMainWindow):
         self.params = ParamsPanel()
         self.params.analysis_changed.connect(self.set_analysis_params)
         self.params.process_changed.connect(self.set_process_params)
+        self.params.reprocess_requested.connect(self.reprocess)
         self.params.segments_requested.connect(self.choose_segments_dialog)
         self.params.segments_cleared.connect(lambda: self.set_segments(None))
         self.params_dock = QDockWidget("Parameters", self)
@@ -496,6 +497,9 @@ class MainWindow(QMainWindow):
                 self.clip_view.seek(float(pos))
         finally:
             self._loading_study = False
+        if s.notes:  # saved settings it could not take over: named, and their defaults used
+            self.params.message.setText(" ".join(s.notes))
+            self.statusBar().showMessage(s.notes[0], 15000)
         self._update_title()
         self._update_actions()
 
@@ -713,6 +717,7 @@ class MainWindow(QMainWindow):
         self._load_gen += 1
         if clip is None:
             self.clip_view.set_clip(None)
+            self.clip_view.set_iris_estimate(None)
             self.clip_view.set_check_state(available=False, message="")
             self.time_view.set_data(None)
             self.clip_message.hide()
@@ -728,6 +733,7 @@ class MainWindow(QMainWindow):
         from aspectus.targets.check import read_check
 
         self.clip_view.set_target_check(read_check(self.study.clip_out_dir(clip)))
+        self.clip_view.set_iris_estimate(self._iris_estimate_text(clip))
         running = self._check_cancel is not None
         self.clip_view.set_check_state(available=clip_path.exists(), running=running,
                                        message=("" if not running else None if self._check_key == clip.stem
@@ -752,6 +758,18 @@ class MainWindow(QMainWindow):
             self.time_view.set_data(None, empty_text=(
                 FAILED_TRACE_TEXT if failed else NO_SAMPLES_TEXT))
         self._load_pool.submit(self._load_clip_data, self._load_gen, clip.stem, out, has_results, seg)
+
+    def _iris_estimate_text(self, clip) -> str | None:
+        """run.json's record of the iris estimate the clip's results used, in plain words."""
+        if clip.status not in (study_mod.STATUS_DONE, study_mod.STATUS_STALE):
+            return None
+        from aspectus.run_record import read_run_json
+        from aspectus.webcam.gaze import describe_iris_estimate
+
+        run = read_run_json(self.study.clip_out_dir(clip)) or {}
+        extraction = run.get("extraction") if isinstance(run.get("extraction"), dict) else {}
+        model = extraction.get("gaze_model") if isinstance(extraction.get("gaze_model"), dict) else {}
+        return describe_iris_estimate(model.get("iris_estimate"))
 
     def _load_clip_data(self, gen, stem, out, has_results, seg):
         samples = events = segments = None
@@ -847,13 +865,35 @@ class MainWindow(QMainWindow):
         self.study.refresh_all()
         self._refresh_list()
         self._autosave()
+        self._offer_reprocess()
+
+    def _outdated_keys(self) -> list[str]:
+        return [c.stem for c in self.study.clips if c.status == study_mod.STATUS_STALE]
+
+    def _offer_reprocess(self) -> None:
+        """Say in the gaze section how many clips hold results measured with other settings, and offer to process
+        the selected (or every outdated) clip again."""
+        selected = self.clip_list.selectedItems() or ([self.clip_list.currentItem()]
+                                                      if self.clip_list.currentItem() is not None else [])
+        self.params.show_reprocess_offer(len(self._outdated_keys()), len(selected))
+
+    def reprocess(self, which: str) -> bool:
+        """Process clips again after a processing setting changed: ``"selected"`` or ``"outdated"`` ones."""
+        if which == "selected":
+            started = self.process_selected()
+        else:
+            keys = self._outdated_keys()
+            started = bool(keys) and self.process(keys, force=True)
+        if started:
+            self.params.show_reprocess_offer(0, 0)
+        return bool(started)
 
     # ========================================================== processing
-    def process_selected(self):
+    def process_selected(self) -> bool:
         keys = [it.data(COL_NAME, Qt.UserRole) for it in self.clip_list.selectedItems()]
         if not keys and self.current_clip() is not None:
             keys = [self.current_clip().stem]
-        self.process(keys, force=True)
+        return self.process(keys, force=True)
 
     def process(self, keys: list[str] | None = None, *, force: bool = False) -> bool:
         """Start processing ``keys`` (default: every clip without a current result)."""

@@ -6,8 +6,10 @@ parameters listed in :data:`SPECS` get a label, unit, limits and help text;
 any other field of the dataclass still appears under "More parameters" with
 limits guessed from its unit, so the panel never hides a library parameter.
 Edits are collected for 400 ms and then emitted as one ``analysis_changed``
-(the app re-runs detection from the cached samples); processing settings emit
-``process_changed`` (they need the clips processed again).
+(the app re-runs detection from the cached samples); the gaze-measurement
+choices (:data:`aspectus.webcam.gaze.GAZE_CHOICES`, in plain words) and the
+processing settings emit ``process_changed`` (they need the clips processed
+again: the gaze section says so and offers it, ``reprocess_requested``).
 """
 from __future__ import annotations
 
@@ -148,6 +150,10 @@ _GROUP_TITLES = (("detection", "Fixation detection"), ("idt", "I-DT settings"), 
 #: sections shown folded at first (the panel fits a 768-px-high screen); a folded section says how many of its
 #: values differ from the default
 FOLDED = ("tuning", "cleanup", "windows", "more", "processing")
+GAZE_SECTION_TITLE = "Gaze measurement"
+GAZE_NOTE = ("<b>Needs the clips processed again.</b> How the gaze is measured from the video: unlike the detection "
+             "settings above, a change here takes effect only when a clip is processed again (the face is tracked "
+             "again, which takes about as long as the first time).")
 
 
 class Section(QWidget):
@@ -254,12 +260,14 @@ class ParamsPanel(QWidget):
     Signals
     -------
     analysis_changed(dict) : AnalysisParams as a dict, validated.
-    process_changed(dict) : processing settings (fov_deg, face, max_faces).
+    process_changed(dict) : processing settings (fov_deg, face, max_faces, gaze: the GazeParams it sets).
+    reprocess_requested(str) : the user wants clips processed again: ``"selected"`` or ``"outdated"``.
     segments_requested() / segments_cleared() : the user wants to choose / drop the clip's segment file.
     """
 
     analysis_changed = Signal(dict)
     process_changed = Signal(dict)
+    reprocess_requested = Signal(str)
     segments_requested = Signal()
     segments_cleared = Signal()
 
@@ -292,7 +300,9 @@ class ParamsPanel(QWidget):
         inner = QWidget()
         v = QVBoxLayout(inner)
         v.setContentsMargins(2, 2, 2, 2)
-        intro = QLabel("Changes to these re-run detection on the cached gaze samples at once. "
+        intro = QLabel("Changes to the detection settings re-run detection on the cached gaze samples at once; "
+                       "the gaze measurement and processing settings (further down) need the clips processed "
+                       "again. "
                        f"{CHANGED_MARK.strip()} marks a value that differs from the default; hover over a name "
                        "for what it does.")
         intro.setWordWrap(True)
@@ -347,6 +357,7 @@ class ParamsPanel(QWidget):
         row.addWidget(self.segments_clear)
         sl.addWidget(self.segments_label)
         sl.addLayout(row)
+        gaze_box = self._build_gaze_box()
         # processing settings
         proc = QGroupBox("Processing settings")
         pf = QFormLayout(proc)
@@ -401,6 +412,8 @@ class ParamsPanel(QWidget):
                 self.sections[key] = Section(key, title, self._groups[key], folded=key in FOLDED)
                 v.addWidget(self.sections[key])
         v.addWidget(seg_box)
+        self.sections["gaze"] = Section("gaze", GAZE_SECTION_TITLE, gaze_box, folded=False)
+        v.addWidget(self.sections["gaze"])
         self.sections["processing"] = Section("processing", "Processing settings", proc, folded=True)
         v.addWidget(self.sections["processing"])
         v.addWidget(self.defaults_btn)
@@ -416,6 +429,104 @@ class ParamsPanel(QWidget):
         self.set_values({}, {})  # a new panel shows the defaults (never a spin box's lower limit)
 
     # -------------------------------------------------------------- widgets
+    def _build_gaze_box(self) -> QGroupBox:
+        """The gaze-measurement choices (label above a full-width choice, the chosen option's help below it) and
+        the offer to process clips again after a change."""
+        from aspectus.webcam.gaze import GAZE_CHOICES
+
+        box = QGroupBox("Gaze measurement")
+        lay = QVBoxLayout(box)
+        lay.setContentsMargins(6, 4, 6, 6)
+        note = QLabel(GAZE_NOTE)
+        note.setObjectName("gaze_note")
+        note.setWordWrap(True)
+        note.setStyleSheet("color: #555;")
+        lay.addWidget(note)
+        self._gaze_choices = {c.name: c for c in GAZE_CHOICES}
+        self._gaze_combos: dict[str, QComboBox] = {}
+        self._gaze_help: dict[str, QLabel] = {}
+        self._gaze_extra: dict = {}  # saved gaze settings the panel does not show, handed back unchanged
+        for c in GAZE_CHOICES:
+            key = f"gaze:{c.name}"
+            lab = QLabel(c.label)
+            lab.setObjectName(f"param_label_{key}")
+            lab.setWordWrap(True)
+            combo = QComboBox()
+            combo.setObjectName(f"gaze_{c.name}")
+            combo.setSizeAdjustPolicy(QComboBox.AdjustToMinimumContentsLengthWithIcon)
+            combo.setMinimumContentsLength(10)
+            for i, (value, text, help_) in enumerate(c.options):
+                combo.addItem(text, value)
+                combo.setItemData(i, help_, Qt.ToolTipRole)
+            tip = (f"{c.help}\n" + "\n".join(f"• {t}: {h}" for _, t, h in c.options)
+                   + f"\nDefault: {c.options[0][1].removesuffix(' (default)')}."
+                   f"\nName in scripts and run.json: gaze {c.name}.")
+            lab.setToolTip(tip)
+            combo.setToolTip(tip)
+            _narrow(combo)
+            help_lab = QLabel()
+            help_lab.setObjectName(f"gaze_help_{c.name}")
+            help_lab.setWordWrap(True)
+            help_lab.setStyleSheet("color: #555; font-size: 90%;")
+            combo.currentIndexChanged.connect(lambda _i, n=c.name: self._gaze_changed(n))
+            self._labels[key] = lab
+            self._group_of[key] = "gaze"
+            self._gaze_combos[c.name] = combo
+            self._gaze_help[c.name] = help_lab
+            lay.addSpacing(4)
+            lay.addWidget(lab)
+            lay.addWidget(combo)
+            lay.addWidget(help_lab)
+        # shown after a change while clips hold results measured otherwise
+        self.reprocess_box = QWidget()
+        self.reprocess_box.setObjectName("reprocess_offer")
+        rl = QVBoxLayout(self.reprocess_box)
+        rl.setContentsMargins(0, 6, 0, 0)
+        self.reprocess_label = QLabel()
+        self.reprocess_label.setWordWrap(True)
+        self.reprocess_label.setStyleSheet("color: #8a5a00;")
+        self.reprocess_selected_btn = QPushButton("Process selected clips again")
+        self.reprocess_selected_btn.setToolTip("Process the clips selected in the list again with these settings")
+        self.reprocess_selected_btn.clicked.connect(lambda: self.reprocess_requested.emit("selected"))
+        self.reprocess_outdated_btn = QPushButton("Process every outdated clip")
+        self.reprocess_outdated_btn.setToolTip("Process again every clip whose results were measured with other "
+                                               "settings")
+        self.reprocess_outdated_btn.clicked.connect(lambda: self.reprocess_requested.emit("outdated"))
+        rl.addWidget(self.reprocess_label)
+        rl.addWidget(self.reprocess_selected_btn)
+        rl.addWidget(self.reprocess_outdated_btn)
+        self.reprocess_box.hide()
+        lay.addWidget(self.reprocess_box)
+        for c in GAZE_CHOICES:
+            self._show_gaze_help(c.name)
+        return box
+
+    def _show_gaze_help(self, name: str) -> None:
+        combo = self._gaze_combos[name]
+        self._gaze_help[name].setText(combo.itemData(combo.currentIndex(), Qt.ToolTipRole) or "")
+
+    def _gaze_changed(self, name: str) -> None:
+        self._show_gaze_help(name)
+        self._emit_process()
+
+    def show_reprocess_offer(self, outdated: int, selected: int) -> None:
+        """Offer to process clips again: ``outdated`` clips hold results measured with other settings,
+        ``selected`` clips are selected in the list (0 hides the offer's buttons that do not apply)."""
+        self.reprocess_box.setVisible(outdated > 0)
+        if outdated <= 0:
+            return
+        self.reprocess_label.setText(
+            f"{outdated} clip{'s' if outdated != 1 else ''} {'were' if outdated != 1 else 'was'} measured with other "
+            "settings: their results stay as they are until processed again.")
+        self.reprocess_selected_btn.setVisible(selected > 0)
+        self.reprocess_selected_btn.setText("Process the selected clip again" if selected == 1
+                                            else f"Process the {selected} selected clips again")
+        self.sections["gaze"].unfold()
+
+    def gaze_values(self) -> dict:
+        """The gaze settings as GazeParams fields (the shown choices and any saved ones the panel does not show)."""
+        return {**self._gaze_extra, **{n: c.currentData() for n, c in self._gaze_combos.items()}}
+
     def _make_widget(self, name, spec: Spec, default):
         if spec.choices:
             w = QComboBox()
@@ -503,6 +614,15 @@ class ParamsPanel(QWidget):
             i = self.face.findData(p["face"])
             self.face.setCurrentIndex(max(i, 0))
             self.max_faces.setValue(int(p["max_faces"]))
+            gaze = dict((process or {}).get("gaze") or {})
+            self._gaze_extra = {k: v for k, v in gaze.items() if k not in self._gaze_combos}
+            for n, combo in self._gaze_combos.items():
+                choice = self._gaze_choices[n]
+                want = gaze.get(n, choice.values[0])
+                i = next((i for i, v in enumerate(choice.values) if type(v) is type(want) and v == want), 0)
+                combo.setCurrentIndex(i)
+                self._show_gaze_help(n)
+            self.reprocess_box.hide()
         finally:
             self._loading = False
         self._show_detector_groups()
@@ -521,7 +641,8 @@ class ParamsPanel(QWidget):
         vals = self.values()
         out = [n for n in self._widgets if not _same(vals[n], self._defaults[n])]
         pv = self.process_values()
-        out += [k for k, v in pv.items() if not _same(v, self._process_defaults[k])]
+        out += [k for k, v in pv.items() if k in self._process_defaults and not _same(v, self._process_defaults[k])]
+        out += [f"gaze:{n}" for n, c in self._gaze_combos.items() if c.currentIndex() != 0]
         return out
 
     def update_markers(self) -> None:
@@ -542,7 +663,10 @@ class ParamsPanel(QWidget):
             font.setBold(on)
             lab.setFont(font)
             tip = lab.property("base_tip")
-            if on:
+            if on and name.startswith("gaze:"):
+                shown = self._gaze_choices[name[5:]].options[0][1].removesuffix(" (default)")
+                tip = f"Changed from the default ({shown}).\n" + tip
+            elif on:
                 dflt = self._defaults.get(name, self._process_defaults.get(name))
                 shown = fmt_value(dflt, spec) if spec is not None else str(dflt)
                 tip = f"Changed from the default ({shown}).\n" + tip
@@ -569,7 +693,7 @@ class ParamsPanel(QWidget):
 
     def process_values(self) -> dict:
         return {"fov_deg": float(self.fov.value()), "face": self.face.currentData(),
-                "max_faces": int(self.max_faces.value())}
+                "max_faces": int(self.max_faces.value()), "gaze": self.gaze_values()}
 
     def set_value(self, name: str, value) -> None:
         """Set one parameter as if the user had edited it (emits after the debounce)."""

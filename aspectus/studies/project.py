@@ -146,6 +146,10 @@ class Study:
     view : dict
         Where the user left off: ``selected`` (clip stem), ``tab``,
         ``position_s``.
+    notes : list of str
+        What :func:`load_study` could not take over from the file (a
+        gaze setting outside its choices, left at its default), one
+        sentence each; not saved.
     """
 
     path: Path | None = None
@@ -156,6 +160,7 @@ class Study:
     clips: list[StudyClip] = field(default_factory=list)
     mappings: dict = field(default_factory=dict)
     view: dict = field(default_factory=dict)
+    notes: list[str] = field(default_factory=list)
 
     # ----------------------------------------------------------------- paths
     @property
@@ -358,10 +363,24 @@ class Study:
 
 
 def _process_params_match(run_params: dict, study_process: dict) -> bool:
-    """Whether a run's processing parameters equal the study's (analysis ones do not count)."""
+    """Whether a run's processing parameters equal the study's (analysis ones do not count).
+
+    The study's ``gaze`` entry holds only the settings it sets; the others are at
+    :class:`aspectus.webcam.gaze.GazeParams`' defaults, which is what they are compared with.
+    """
     rp = {k: v for k, v in (run_params or {}).items() if k != "analysis"}
-    sp = {k: v for k, v in study_process.items() if k != "analysis"}
-    return all(rp.get(k) == v for k, v in sp.items() if k in rp)
+    sp = {k: v for k, v in study_process.items() if k not in ("analysis", "gaze")}
+    if not all(rp.get(k) == v for k, v in sp.items() if k in rp):
+        return False
+    if "gaze" in study_process and isinstance(rp.get("gaze"), dict):
+        from aspectus.webcam.gaze import GazeParams
+
+        try:
+            want = GazeParams(**(study_process.get("gaze") or {})).to_dict()
+        except (AspectusInputError, TypeError):  # a setting the study cannot use: no run matches it
+            return False
+        return all(rp["gaze"].get(k) == v for k, v in want.items() if k in rp["gaze"])
+    return True
 
 
 def guess_reference_kind(path: Path) -> str:
@@ -428,6 +447,11 @@ def load_study(path: str | os.PathLike) -> Study:
     s.name = _need(raw, "name", str, path, "Untitled study")
     s.output_dir = _need(raw, "output_dir", str, path, "results")
     s.process = _need(raw, "process", dict, path, {})
+    if "gaze" in s.process:  # a study saved before the gaze settings existed has none: their defaults hold
+        from aspectus.webcam.gaze import gaze_settings_from_stored
+
+        s.process["gaze"], notes = gaze_settings_from_stored(s.process["gaze"])
+        s.notes.extend(f"{path.name}: {n}" for n in notes)
     s.analysis = _need(raw, "analysis", dict, path, {})
     s.mappings = _need(raw, "mappings", dict, path, {})
     s.view = _need(raw, "view", dict, path, {})

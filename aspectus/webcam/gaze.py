@@ -236,6 +236,185 @@ class GazeParams:
         return asdict(self)
 
 
+@dataclass(frozen=True)
+class GazeChoice:
+    """One gaze-measurement setting as the desktop app offers it: a :class:`GazeParams` field in plain words.
+
+    Attributes
+    ----------
+    name : str
+        The :class:`GazeParams` field.
+    label : str
+        What the setting is called on screen.
+    help : str
+        What the setting decides, in plain words.
+    options : tuple of (value, text, help)
+        The allowed values (the field's default first), each with its screen text and when to choose it.
+    """
+
+    name: str
+    label: str
+    help: str
+    options: tuple
+
+    @property
+    def values(self) -> tuple:
+        return tuple(o[0] for o in self.options)
+
+    def text_of(self, value) -> str:
+        """The screen text of ``value`` (its repr when the value is not one of the options)."""
+        return next((t for v, t, _ in self.options if _same_choice(v, value)), repr(value))
+
+
+def _same_choice(a, b) -> bool:
+    """Equal and of the same type (so ``1`` is not taken for ``True``, nor ``"true"`` for it)."""
+    return type(a) is type(b) and a == b
+
+
+#: the gaze-measurement settings the desktop app shows (in this order), each value with plain text and help;
+#: from :class:`GazeParams`' docstring and README's gaze section. They change the samples, so a clip must be
+#: processed again for them to take effect (unlike the detection settings).
+GAZE_CHOICES: tuple[GazeChoice, ...] = (
+    GazeChoice(
+        "iris_combine", "Iris height from",
+        "How the height of the iris centre in the picture is measured; it decides how well up/down gaze is read.",
+        (("auto", "automatic by face size (default)",
+          f"Uses the eye's appearance where the iris is small in the picture (below {AUTO_APPEARANCE_BELOW_PX:g} px "
+          "across, as a classroom webcam sees a face) and the circle fit otherwise. The clip view says which one a "
+          "clip used. Keep this unless a comparison with a lab eye tracker tells you otherwise."),
+         ("limbus", "circle fit to the iris edge",
+          "A circle is fitted to the edge of the iris in every frame. Best when faces are large in the picture "
+          "(close to the camera, good resolution)."),
+         ("appearance", "the eye's appearance",
+          "The height is predicted from how the whole eye looks, learnt on each clip from the circle fits. "
+          "Steadier for small faces (far from the camera); it keeps small eye pictures (about 80 MB an hour) "
+          "while the clip is processed."),
+         ("fuse", "circle fit and face mesh averaged",
+          "Averages the circle fit with the face tracker's own iris point: less jitter, but slow drift remains "
+          "and can split fixations in two. For comparisons."),
+         ("rescale", "face mesh, scaled to the circle fit",
+          "Side to side from the circle fit, height from the face tracker's steady iris point scaled to the "
+          "circle fit. Agreed best with a lab eye tracker on fixation counts per window in our tests, but "
+          "shortened fixations. For comparisons."))),
+    GazeChoice(
+        "head_rotation", "Head turn measured from",
+        "Where the head's rotation comes from; the gaze is corrected for it.",
+        (("mesh", "the face tracker (default)",
+          "The head's rotation from the face tracker's points. Keep this when students turn their heads a lot."),
+         ("skin", "skin texture over the face",
+          "Follows small patches of skin over the face. Steadier when the head stays still (up/down gaze read "
+          "more fully), but worse on some faces that turn by 15° or more."))),
+    GazeChoice(
+        "eye_anchor_set", "Eyes placed by skin points",
+        "Which skin points are followed to place the eyeballs as the head moves.",
+        (("below", "below each eye (default)",
+          "Three points below each eye. Keep this for faces that are large in the picture or turn a lot."),
+         ("below_and_beside", "below and beside each eye",
+          "Also two points beside each eye's outer corner. Steadier for small faces (a classroom webcam), but "
+          "worse when the head turns far to one side."),
+         ("below_and_facing_beside", "below, and beside when facing the camera",
+          "As the previous choice, but a point beside an eye is left out while the head is turned away from it "
+          "(by more than about 12°)."))),
+    GazeChoice(
+        "mirrored", "The clips show the student",
+        "Whether the recording is a mirror image (as webcam software often shows and records the picture).",
+        ((False, "as the camera saw them (default)",
+          "The picture is as the camera saw it: the student's right eye is on the picture's left."),
+         (True, "mirrored left to right",
+          "For recordings made mirrored: left-right gaze and head turn would otherwise come out with the wrong "
+          "sign."))),
+)
+#: :data:`GAZE_CHOICES` by field name
+GAZE_CHOICE_OF = {c.name: c for c in GAZE_CHOICES}
+
+
+def gaze_settings_from_stored(stored) -> tuple[dict, list[str]]:
+    """Gaze settings read back from a saved study: the usable ones, and a sentence per value that was not.
+
+    ``stored`` is the ``gaze`` entry of saved processing settings (``None`` for a study saved before it
+    existed: every setting takes its default, without a message). A value of a :data:`GAZE_CHOICES` setting
+    that is not one of its options, a name :class:`GazeParams` does not know, or a combination it refuses is
+    left out, so the default is used, with a sentence naming the setting in plain words.
+
+    Returns
+    -------
+    settings : dict
+        The valid entries (``GazeParams(**settings)`` is accepted).
+    notes : list of str
+        One sentence per value left out.
+
+    Examples
+    --------
+    >>> gaze_settings_from_stored({"iris_combine": "limbus", "mirrored": True})
+    ({'iris_combine': 'limbus', 'mirrored': True}, [])
+    >>> settings, notes = gaze_settings_from_stored({"iris_combine": "sideways"})
+    >>> settings, notes[0][:61]
+    ({}, 'The saved setting "Iris height from" had the value \\'sideways\\'')
+    """
+    from aspectus.errors import ParameterError
+
+    if stored is None:
+        return {}, []
+    if not isinstance(stored, dict):
+        return {}, [f"The saved gaze measurement settings are not readable (found {type(stored).__name__}, "
+                    "expected name: value pairs); every gaze setting is at its default."]
+    fields = GazeParams().to_dict()
+    out, notes = {}, []
+    for name, value in stored.items():
+        choice = GAZE_CHOICE_OF.get(name)
+        if choice is not None:
+            if any(_same_choice(v, value) for v in choice.values):
+                out[name] = value
+            else:
+                notes.append(f"The saved setting \"{choice.label}\" had the value {value!r}, which is not one of "
+                             f"its choices ({'; '.join(t for _, t, _ in choice.options)}); the default "
+                             f"\"{choice.options[0][1]}\" is used.")
+        elif name in fields:
+            out[name] = value
+        else:
+            notes.append(f"The saved gaze setting {name!r} is not known to this version; it is left out.")
+    try:
+        GazeParams(**out)
+    except (ParameterError, TypeError) as exc:
+        shown = {k: v for k, v in out.items() if k in GAZE_CHOICE_OF}
+        notes.append(f"The saved gaze settings do not go together ({exc}); "
+                     + ("only the ones the app shows are kept." if shown else "every gaze setting is at its default."))
+        out = shown
+        try:
+            GazeParams(**out)
+        except (ParameterError, TypeError):
+            out = {}
+    return out, notes
+
+
+def describe_iris_estimate(info) -> str | None:
+    """run.json's ``extraction.gaze_model.iris_estimate`` in plain words (None without one).
+
+    Examples
+    --------
+    >>> describe_iris_estimate({"setting": "limbus", "used": "limbus"})
+    'Iris height from: circle fit to the iris edge (as chosen).'
+    >>> print(describe_iris_estimate({"setting": "auto", "used": "appearance", "median_iris_px": 11.2}))
+    Iris height from: the eye's appearance (chosen automatically: the iris is 11.2 px across, below 17.3 px).
+    """
+    if not isinstance(info, dict) or not info.get("used"):
+        return None
+    used, setting = info.get("used"), info.get("setting")
+    words = {"face mesh": "the face tracker's iris point"}
+    text = words.get(used) or GAZE_CHOICE_OF["iris_combine"].text_of(used).removesuffix(" (default)")
+    if setting != "auto":
+        return f"Iris height from: {text} (as chosen)."
+    px = info.get("median_iris_px")
+    if isinstance(px, (int, float)) and not isinstance(px, bool) and np.isfinite(px):
+        side = "below" if px < AUTO_APPEARANCE_BELOW_PX else "not below"
+        why = f"the iris is {px:g} px across, {side} {AUTO_APPEARANCE_BELOW_PX:g} px"
+        if used != "appearance" and px < AUTO_APPEARANCE_BELOW_PX and info.get("reason"):
+            why = str(info["reason"])
+    else:
+        why = str(info.get("reason") or "by face size")
+    return f"Iris height from: {text} (chosen automatically: {why})."
+
+
 def eye_aspect_ratio(points_px: np.ndarray, idx) -> float:
     """EAR = (|p2-p6| + |p3-p5|) / (2 |p1-p4|) (Soukupova & Cech 2016)."""
     p = points_px[list(idx), :2]

@@ -1,0 +1,118 @@
+"""The gaze-measurement settings a study saves: the plain choices the app offers map onto GazeParams, survive
+saving and loading, an older study without them loads with GazeParams' defaults, a stored value outside the
+choices falls back to the default with a sentence naming the setting, and the app hands them to processing as
+the command line's ``--gaze NAME=VALUE`` does (the reference: ``aspectus.cli.process_cmd.gaze_params_from_args``).
+"""
+from __future__ import annotations
+
+import argparse
+import json
+
+import pytest
+
+from aspectus.studies import project as study_mod
+from aspectus.webcam.gaze import (GAZE_CHOICE_OF, GAZE_CHOICES, IRIS_COMBINE, GazeParams, describe_iris_estimate,
+                                  gaze_settings_from_stored)
+from aspectus.webcam.pipeline import ProcessParams
+
+
+def test_choices_are_exactly_the_values_gazeparams_accepts():
+    from aspectus.webcam.eye_anchors import ANCHOR_SETS
+
+    assert set(GAZE_CHOICE_OF["iris_combine"].values) == set(IRIS_COMBINE)
+    assert set(GAZE_CHOICE_OF["eye_anchor_set"].values) == set(ANCHOR_SETS)
+    assert GAZE_CHOICE_OF["head_rotation"].values == ("mesh", "skin")
+    assert GAZE_CHOICE_OF["mirrored"].values == (False, True)
+    defaults = GazeParams().to_dict()
+    for c in GAZE_CHOICES:
+        assert c.values[0] == defaults[c.name], f"{c.name}: the first choice must be GazeParams' default"
+        assert c.options[0][1].endswith("(default)") and sum("(default)" in t for _, t, _ in c.options) == 1
+        for value, text, help_ in c.options:
+            assert GazeParams(**{c.name: value}).to_dict()[c.name] == value
+            # plain words: no field names or values in code spelling on screen
+            assert "_" not in text and "_" not in c.label and "_" not in help_, (c.name, value)
+            assert len(help_) > 40, f"{c.name}={value!r}: help says what it does and when to choose it"
+
+
+def test_study_round_trip_and_old_study_defaults(tmp_path):
+    s = study_mod.new_study(path=tmp_path / "pilot.aspectus-study.json")
+    s.process = {"fov_deg": 60.0, "face": "largest", "max_faces": 2,
+                 "gaze": {"iris_combine": "limbus", "head_rotation": "skin", "eye_anchor_set": "below_and_beside",
+                          "mirrored": True}}
+    s.save()
+    back = study_mod.load_study(s.path)
+    assert back.process == s.process and back.notes == []
+    # a study written before the gaze settings existed: no key, no message, GazeParams' defaults
+    raw = json.loads(s.path.read_text())
+    raw["process"].pop("gaze")
+    s.path.write_text(json.dumps(raw))
+    old = study_mod.load_study(s.path)
+    assert "gaze" not in old.process and old.notes == []
+    from ui.job_runner import _make_params
+
+    assert _make_params(old.process, {}).gaze == GazeParams()
+
+
+def test_invalid_stored_value_falls_back_with_a_message_naming_the_setting(tmp_path):
+    settings, notes = gaze_settings_from_stored({"iris_combine": "sideways", "mirrored": "yes",
+                                                 "head_rotation": "skin", "pupil_colour": "blue"})
+    assert settings == {"head_rotation": "skin"}
+    assert len(notes) == 3
+    assert "Iris height from" in notes[0] and "'sideways'" in notes[0] and "automatic by face size" in notes[0]
+    assert "The clips show the student" in notes[1] and "'yes'" in notes[1]  # a string is not the boolean
+    assert "pupil_colour" in notes[2]
+    # a combination GazeParams refuses (the appearance estimate needs the eye anchors) drops the hidden one
+    settings, notes = gaze_settings_from_stored({"iris_combine": "appearance", "eye_anchors": False})
+    assert settings == {"iris_combine": "appearance"} and "do not go together" in notes[0]
+    assert gaze_settings_from_stored([1, 2])[0] == {} and "not readable" in gaze_settings_from_stored([1, 2])[1][0]
+    # through the study file
+    p = tmp_path / "s.aspectus-study.json"
+    p.write_text(json.dumps({"format": study_mod.STUDY_FORMAT, "version": 1, "process": {
+        "fov_deg": 60.0, "gaze": {"iris_combine": "sideways", "eye_anchor_set": "below_and_beside"}}}))
+    s = study_mod.load_study(p)
+    assert s.process["gaze"] == {"eye_anchor_set": "below_and_beside"}
+    assert len(s.notes) == 1 and "Iris height from" in s.notes[0] and p.name in s.notes[0]
+
+
+@pytest.mark.parametrize("gaze", [{"iris_combine": "limbus"},
+                                  {"iris_combine": "fuse", "head_rotation": "skin", "mirrored": True},
+                                  {"eye_anchor_set": "below_and_facing_beside", "iris_combine": "appearance"}])
+def test_the_app_passes_gaze_settings_as_the_command_line_does(gaze):
+    from aspectus.cli.process_cmd import gaze_params_from_args
+    from ui.job_runner import _make_params
+
+    cli = gaze_params_from_args(argparse.Namespace(gaze_settings=[f"{k}={str(v).lower()}" for k, v in gaze.items()]))
+    app = _make_params({"fov_deg": 60.0, "face": "largest", "max_faces": 2, "gaze": gaze}, {})
+    assert app.gaze == cli
+    assert app.fingerprint() == ProcessParams(gaze=cli).fingerprint()
+
+
+def test_outdated_when_a_run_used_other_gaze_settings(tmp_path):
+    """A clip whose run.json records other gaze settings than the study's is outdated; the same ones are current."""
+    s = study_mod.new_study(path=tmp_path / "s.aspectus-study.json")
+    clip = tmp_path / "p01_s01.mp4"
+    clip.write_bytes(b"\0" * 16)
+    c = s.add_clip(clip)
+    out = s.clip_out_dir(c)
+    out.mkdir(parents=True)
+    (out / "run.json").write_text(json.dumps({"params": ProcessParams().to_dict()}))
+    s.process = {"fov_deg": 60.0, "face": "largest", "max_faces": 2, "gaze": {"iris_combine": "auto"}}
+    assert s.refresh_status(c) == study_mod.STATUS_DONE
+    s.process["gaze"] = {"iris_combine": "limbus"}
+    assert s.refresh_status(c) == study_mod.STATUS_STALE
+    s.process["gaze"] = {}  # every gaze setting at its default
+    assert s.refresh_status(c) == study_mod.STATUS_DONE
+
+
+def test_iris_estimate_in_plain_words():
+    # the shapes pipeline.extract_samples writes into run.json's extraction.gaze_model.iris_estimate
+    assert describe_iris_estimate({"setting": "limbus", "used": "limbus"}) == \
+        "Iris height from: circle fit to the iris edge (as chosen)."
+    assert describe_iris_estimate({"setting": "limbus", "used": "face mesh"}).startswith(
+        "Iris height from: the face tracker's iris point")
+    auto_big = describe_iris_estimate({"setting": "auto", "used": "limbus", "median_iris_px": 24.5,
+                                       "reason": "the clip's median iris diameter 24.5 px is not below 17.3 px"})
+    assert auto_big == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 24.5 px "
+                        "across, not below 17.3 px).")
+    assert "automatic by face size" not in auto_big and "_" not in auto_big
+    assert describe_iris_estimate(None) is None and describe_iris_estimate({}) is None
