@@ -18,7 +18,7 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 VIEWS = ("clip_and_trace", "features", "validation", "column_mapping", "target_sequence", "parameters",
-         "user_guide", "target_check_running", "target_check")
+         "gaze_settings", "user_guide", "target_check_running", "target_check")
 
 
 def _wait(app, cond, timeout_s: float, what: str) -> None:
@@ -150,6 +150,19 @@ def main(argv=None) -> int:
     seq.close()
 
     grab(win.params_dock, "parameters")
+    # the gaze-measurement choices just after one changed: the processed clips are outdated, and the section
+    # offers to process them again; then the study's own choice is put back (nothing is processed here)
+    combo = win.params._gaze_combos["iris_combine"]
+    before = combo.currentIndex()
+    combo.setCurrentIndex(combo.findData("limbus") if combo.currentData() != "limbus" else 0)
+    _settle(app)
+    win.params.scroll_to("gaze")
+    win.tabs.setCurrentIndex(0)  # the clip view says which iris estimate the clip's results used
+    _settle(app)
+    grab(win, "gaze_settings")
+    combo.setCurrentIndex(before)
+    win.params.scroll_to("detection")
+    _settle(app)
     guide = win.show_guide()
     _settle(app)
     grab(guide, "user_guide")

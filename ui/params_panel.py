@@ -300,9 +300,8 @@ class ParamsPanel(QWidget):
         inner = QWidget()
         v = QVBoxLayout(inner)
         v.setContentsMargins(2, 2, 2, 2)
-        intro = QLabel("Changes to the detection settings re-run detection on the cached gaze samples at once; "
-                       "the gaze measurement and processing settings (further down) need the clips processed "
-                       "again. "
+        intro = QLabel("Detection settings re-run at once on the cached gaze samples; gaze measurement and "
+                       "processing settings (further down) need the clips processed again. "
                        f"{CHANGED_MARK.strip()} marks a value that differs from the default; hover over a name "
                        "for what it does.")
         intro.setWordWrap(True)
@@ -473,7 +472,7 @@ class ParamsPanel(QWidget):
             self._group_of[key] = "gaze"
             self._gaze_combos[c.name] = combo
             self._gaze_help[c.name] = help_lab
-            lay.addSpacing(4)
+            lay.addSpacing(8)
             lay.addWidget(lab)
             lay.addWidget(combo)
             lay.addWidget(help_lab)
@@ -522,6 +521,12 @@ class ParamsPanel(QWidget):
         self.reprocess_selected_btn.setText("Process the selected clip again" if selected == 1
                                             else f"Process the {selected} selected clips again")
         self.sections["gaze"].unfold()
+
+    def scroll_to(self, key: str) -> None:
+        """Scroll the panel so that section ``key`` starts at its top."""
+        sec = self.sections[key]
+        scroll = self.findChild(QScrollArea)
+        scroll.verticalScrollBar().setValue(sec.y())
 
     def gaze_values(self) -> dict:
         """The gaze settings as GazeParams fields (the shown choices and any saved ones the panel does not show)."""

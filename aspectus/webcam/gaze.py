@@ -405,13 +405,20 @@ def describe_iris_estimate(info) -> str | None:
     if setting != "auto":
         return f"Iris height from: {text} (as chosen)."
     px = info.get("median_iris_px")
-    if isinstance(px, (int, float)) and not isinstance(px, bool) and np.isfinite(px):
-        side = "below" if px < AUTO_APPEARANCE_BELOW_PX else "not below"
-        why = f"the iris is {px:g} px across, {side} {AUTO_APPEARANCE_BELOW_PX:g} px"
-        if used != "appearance" and px < AUTO_APPEARANCE_BELOW_PX and info.get("reason"):
-            why = str(info["reason"])
+    reason = str(info.get("reason") or "")
+    if "not fitted" in reason:  # the appearance regression had too few open-eye frames to learn from
+        obstacle = "the clip has too few frames with open eyes to learn the eye's appearance"
+    elif "needs" in reason:  # refine_iris or eye_anchors switched off
+        obstacle = "the eye's appearance cannot be used with the other gaze settings chosen"
     else:
-        why = str(info.get("reason") or "by face size")
+        obstacle = reason
+    if isinstance(px, (int, float)) and not isinstance(px, bool) and np.isfinite(px):
+        small = px < AUTO_APPEARANCE_BELOW_PX
+        why = f"the iris is {round(px, 1):g} px across, {'below' if small else 'not below'} {AUTO_APPEARANCE_BELOW_PX:g} px"
+        if used != "appearance" and small and obstacle:
+            why += f", but {obstacle}"
+    else:
+        why = obstacle or "by face size"
     return f"Iris height from: {text} (chosen automatically: {why})."
 
 

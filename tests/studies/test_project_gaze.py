@@ -115,4 +115,12 @@ def test_iris_estimate_in_plain_words():
     assert auto_big == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 24.5 px "
                         "across, not below 17.3 px).")
     assert "automatic by face size" not in auto_big and "_" not in auto_big
+    # small iris, but the appearance estimate could not be learnt: said without the method's inner words
+    short = describe_iris_estimate({
+        "setting": "auto", "used": "limbus", "median_iris_px": 12.1,
+        "reason": "the appearance regression was not fitted (too few open-eye frames with a limbus fit: at least "
+                  "150 per eye are needed): the limbus fit is used"})
+    assert short == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 12.1 px "
+                     "across, below 17.3 px, but the clip has too few frames with open eyes to learn the eye's "
+                     "appearance).")
     assert describe_iris_estimate(None) is None and describe_iris_estimate({}) is None

@@ -72,6 +72,15 @@ def test_gaze_choices_are_plain_and_apart_from_detection(window):
     assert "small" in help_lab.text()
     _choose(window, "iris_combine", "limbus")
     assert "circle is fitted to the edge of the iris" in help_lab.text()
+    # at 1366x768 every option's text fits its choice (test_gui_layout checks the shown ones)
+    from PySide6.QtWidgets import QApplication
+
+    p.scroll_to("gaze")
+    QApplication.processEvents()
+    for name, combo in p._gaze_combos.items():
+        for i in range(combo.count()):
+            need = combo.fontMetrics().horizontalAdvance(combo.itemText(i))
+            assert need <= combo.width() - 30, (name, combo.itemText(i), need, combo.width())
 
 
 def test_choice_round_trips_through_saving_and_loading(qtbot, tmp_path):

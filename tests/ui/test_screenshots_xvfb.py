@@ -19,7 +19,7 @@ pytestmark = pytest.mark.gui
 
 ROOT = Path(__file__).resolve().parents[2]
 ARTEFACTS = ROOT / "test-artifacts" / "screenshots"
-VIEWS = ("clip_and_trace", "features", "validation", "parameters", "user_guide", "target_check_running", "target_check")
+VIEWS = ("clip_and_trace", "features", "validation", "parameters", "gaze_settings", "user_guide", "target_check_running", "target_check")
 
 
 def test_readme_commands_bring_up_the_window(tmp_path):
