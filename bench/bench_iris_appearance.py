@@ -25,6 +25,16 @@ from a first cross-fit dropped; closed eyes and failed fits are not labels). Pri
     python bench/bench_iris_appearance.py                 # eight 10-s clips, about 5 minutes
     python bench/bench_iris_appearance.py --long          # also four 40-s clips (four trials end to end)
     python bench/bench_iris_appearance.py --cache DIR     # keep the processed clips in DIR and reuse them
+    python bench/bench_iris_appearance.py --stages        # where the vertical gain is lost, stage by stage
+
+``--stages`` measures, per clip, the iris height's vertical gain / error SD / mean bias (px) per eye against the
+truth at each stage of the default chain below 17.3 px and with candidate changes at each: the limbus fit (the
+regression's labels) with its radius free within 15 % of the mesh's (the pipeline), fixed per clip at the median
+of its fitted radii or at the true radius, and its rays cast first from the true centre instead of the mesh
+point (how much of the starting point's error a fit keeps); the fitted radius against the mesh's and the true
+one; the appearance estimate learnt from the limbus fit and, as a bound, from the true centres (is it the
+labels or the regression that loses gain?); and the gaze pitch (r, gain) with the appearance height, with the
+true height (horizontal as the pipeline) and with the true iris.
 """
 from __future__ import annotations
 
@@ -163,12 +173,105 @@ def appearance_estimate(d: dict, anchors: np.ndarray, limbus: np.ndarray):
     return AP.to_picture(est, A), AP.to_picture(est_iv, A), app_w, ms_sample, ms_fit, recs
 
 
+def _vertical(est, truth):
+    """[(gain, sd, mean bias)] per eye of the iris height (px) against the truth (pixel_figures' gain and sd)."""
+    tp = G.true_iris_px(truth)
+    figs = [f for f in pixel_figures(est, truth) if f[1] == "y"]
+    open_ = truth["lid_closure"].to_numpy() < 0.2
+    bias = [float(np.nanmean(np.where(open_, est[:, e, 1] - tp[:, e, 1], np.nan))) for e in range(2)]
+    return [(f[2], f[3], b) for f, b in zip(figs, bias)]
+
+
+def _limbus_variant(items, *, diam=None, start=None):
+    """The limbus fits (N, 2, 2; NaN where one failed) and their radii (N, 2), with the rays first cast from
+    ``start`` (N, 2, 2 picture px) instead of the mesh point and, with ``diam`` (N, 2), the radius fixed at half
+    of it instead of free within 15 % of the mesh's."""
+    from aspectus.webcam import limbus as LB
+
+    jobs = eye_jobs(items)
+    idx = [i for i, j in enumerate(jobs) if j is not None]
+    radii: dict = {}
+    orig_fit, orig_tol = LB._fit_many, LB._R_TOL
+
+    def spy(cv2, eyes, *a, **k):
+        out = orig_fit(cv2, eyes, *a, **k)
+        for eye, nxt in zip(eyes, out):
+            if nxt is not None:
+                radii[(eye.frame, eye.eye)] = nxt[1]
+        return out
+
+    args = []
+    for i in idx:
+        img, P, mesh, dm, off = jobs[i]
+        args.append((img, P, mesh if start is None else start[i] - off, dm if diam is None else diam[i]))
+    LB._fit_many = spy
+    if diam is not None:
+        LB._R_TOL = 1e-9
+    try:
+        fits = LB.limbus_centres_many(args)
+    finally:
+        LB._fit_many, LB._R_TOL = orig_fit, orig_tol
+    lim = np.full((len(items), 2, 2), np.nan)
+    rad = np.full((len(items), 2), np.nan)
+    for f, (i, (c, ok)) in enumerate(zip(idx, fits)):
+        lim[i] = np.where(ok[:, None], c + jobs[i][4], np.nan)
+        for e in range(2):
+            if ok[e] and (f, e) in radii:
+                rad[i, e] = radii[(f, e)]
+    return lim, rad
+
+
+def _appearance_from(d, anchors, labels_px):
+    """The appearance chain of iris_combine=appearance (one block) learnt from ``labels_px``: (unscaled, blended)."""
+    app, _iv, app_w, _ms, _mf, _recs = appearance_estimate(d, anchors, labels_px)
+    return app, app_w
+
+
+def stages(name, d) -> None:
+    """``--stages``: the vertical figures stage by stage (module docstring)."""
+    truth, cap, items = d["truth"], d["cap"], d["items"]
+    anchors, limbus = replay(items)
+    tp = G.true_iris_px(truth)
+    true_d = truth["iris_diameter_px"].to_numpy()
+    mesh_d = np.array([j[3] if j is not None else (np.nan, np.nan) for j in eye_jobs(items)], float)
+    print(f"{name}: {d['cond'].label()}  iris {np.median(true_d):.1f} px (truth)", flush=True)
+
+    def line(label, est):
+        print(f"  {label:22s} " + "  ".join(f"{'RL'[e]} gain {g:4.2f} sd {sd:4.2f} bias {b:+5.2f}"
+                                          for e, (g, sd, b) in enumerate(_vertical(est, truth))), flush=True)
+
+    lim, rad = _limbus_variant(items)
+    line("limbus (pipeline)", lim)
+    med = np.nanmedian(rad, axis=0)
+    print("  fitted radius median " + ", ".join(
+        f"{'RL'[e]} {med[e]:.2f} px (p10-p90 {np.nanpercentile(rad[:, e], 10):.2f}-{np.nanpercentile(rad[:, e], 90):.2f}; "
+        f"mesh {np.nanmedian(mesh_d[:, e]) / 2:.2f}, true {np.median(true_d) / 2:.2f})" for e in range(2)), flush=True)
+    line("limbus r = median fit", _limbus_variant(items, diam=np.tile(2 * med, (len(items), 1)))[0])
+    line("limbus r = true", _limbus_variant(items, diam=np.c_[true_d, true_d])[0])
+    line("limbus from true start", _limbus_variant(items, start=tp)[0])
+    app, app_w = _appearance_from(d, anchors, limbus)
+    line("appearance (unscaled)", app)
+    line("appearance (default)", app_w)
+    app_t, _ = _appearance_from(d, anchors, tp)
+    line("appearance, true labels", app_t)
+    base = cap["iris_px"]
+    for label, y in (("appearance", app_w[..., 1]), ("true height", tp[..., 1]), ("true iris", None)):
+        iris = tp if y is None else base.copy()
+        if y is not None:
+            iris[..., 1] = np.where(np.isfinite(y), y, base[..., 1])
+        m = gaze_with(cap, iris, d["samples"], truth, d["trial"], iris_combine="limbus")
+        print(f"  gaze, {label:15s} rms_s2s {m['rms_s2s_deg']:4.2f}  pitch r {m['pitch_r']:5.3f} gain "
+              f"{m['pitch_gain']:4.2f}  yaw r {m['yaw_r']:5.3f}  kappa {m['kappa']:5.2f}", flush=True)
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--seconds", type=float, default=10.0, help="length of the short clips (default 10)")
     ap.add_argument("--long", action="store_true", help="also the four 40-s clips")
     ap.add_argument("--only", nargs="*", help="clip names to run (default all)")
     ap.add_argument("--cache", type=Path, help="folder to keep the processed clips in and reuse them from")
+    ap.add_argument("--stages", action="store_true",
+                    help="the iris height's vertical gain and SD stage by stage, with candidate changes at each")
     args = ap.parse_args(argv)
     if not LUND.is_dir():
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
@@ -183,6 +286,9 @@ def main(argv=None) -> int:
         if args.only and name not in args.only:
             continue
         d = processed(name, spec, secs, args.cache, out_dir)
+        if args.stages:
+            stages(name, d)
+            continue
         anchors, limbus = replay(d["items"])
         app, app_iv, app_w, ms_s, ms_f, recs = appearance_estimate(d, anchors, limbus)
         truth, cap = d["truth"], d["cap"]
