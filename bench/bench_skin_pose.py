@@ -30,7 +30,15 @@ its record, exactly as the pipeline does. Printed per clip and variant:
   and noise alone imply, and the SD of the head pitch between the dots (median per rendered fixation);
 * the geometry's CPU time per frame (``time.process_time`` around FrameGeometry.rows).
 
+Head rotations measured (:data:`VARIANTS`): ``mesh``; ``skin`` (as ``head_rotation="skin"`` runs it); ``skin+warp``
+(each template matched in the picture resampled by the affine map the face model's local plane gives between the
+pose it was cut at and the predicted one); ``skin+shape`` (the skin points' depths learnt from the clip by
+:func:`aspectus.webcam.skin_pose.refine_shape`, with its CPU per frame); ``skin+warp+shape``.
+
     python bench/bench_skin_pose.py            # all clips, some 10 minutes of CPU; or name clips: target 12px
+
+``SKIN_BENCH_CACHE=DIR`` keeps the rendered clips and the face mesh's runs in DIR for the next run;
+``SKIN_BENCH_VARIANTS=mesh,skin`` measures only those.
 """
 from __future__ import annotations
 
@@ -49,6 +57,10 @@ sys.path.insert(0, str(ROOT / "tests" / "webcam"))
 
 LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
 CLIPS = ("target", "12px", "12px-b", "25px turns", "25px turns-a")
+#: the head rotations measured: the face mesh's PnP; the skin points as ``head_rotation="skin"`` runs them; with
+#: template matches warped by the predicted pose (``SkinPose(warp=True)``); with the skin points' depths learnt
+#: from the clip (``SkinPose(learn_shape=True)``); both
+VARIANTS = ("mesh", "skin", "skin+warp", "skin+shape", "skin+warp+shape")
 
 
 def render(name: str, d: Path) -> dict:
@@ -101,10 +113,14 @@ def geometry(frs, obs, head_rotation: str):
     from aspectus.webcam.frame_geometry import FrameGeometry, frame_item
     from aspectus.webcam.gaze import GazeParams
 
-    skin = head_rotation == "skin"
+    skin = head_rotation.startswith("skin")
     items = [frame_item(f.pts_s, f.image, o, refine_iris=True, faces_in_view=n, skin_pose=skin)
              for f, (o, n) in zip(frs, obs)]
     geo = FrameGeometry(fov_deg=60.0, refine_iris=True, skin_pose=skin)
+    if skin:  # "skin" as the option runs it; "+warp": warped template matches; "+shape": the shape learnt
+        from aspectus.webcam.skin_pose import SkinPose
+
+        geo.skin = SkinPose(learn_shape="+shape" in head_rotation, warp="+warp" in head_rotation)
     c0 = time.process_time()
     a = np.concatenate([geo.rows(items[i:i + 16]) for i in range(0, len(items), 16)])
     cpu_ms = (time.process_time() - c0) / len(items) * 1e3
@@ -115,8 +131,12 @@ def geometry(frs, obs, head_rotation: str):
     kw = dict(K=np.asarray(geo.solver.K), found=found, R=R, t=np.nan_to_num(a[:, 12:15], nan=1.0),
               iris_px=a[:, 15:19].reshape(n, 2, 2), iris_diam_px=a[:, 19:21],
               corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
-              iris_mesh_px=a[:, 31:35].reshape(n, 2, 2), params=GazeParams(head_rotation=head_rotation))
-    return kw, cpu_ms, geo.state()
+              iris_mesh_px=a[:, 31:35].reshape(n, 2, 2), params=GazeParams(head_rotation="skin" if skin else "mesh"))
+    st = geo.state()
+    if skin:
+        st["refinements"] = geo.skin.refinements
+        st["refine_cpu_ms_per_frame"] = geo.skin.refine_cpu_s / len(items) * 1e3
+    return kw, cpu_ms, st
 
 
 def samples_from(kw, frs) -> pd.DataFrame:
@@ -163,8 +183,11 @@ def measure(name, clip, frs, obs, how) -> dict:
     truth = clip["truth"]
     ok = s["valid"].to_numpy(bool) & kw["found"]
     out = {"cpu_ms_per_frame": round(cpu, 2)}
-    if how == "skin":
+    if how.startswith("skin"):
         out["skin_frames_solved_fallback"] = [st["skin_pose_frames"], st["skin_pose_fallback_frames"]]
+        if "+shape" in how:
+            out["shape_refinements"] = st["refinements"]
+            out["refine_cpu_ms_per_frame"] = round(st["refine_cpu_ms_per_frame"], 2)
     out |= head_errors(kw, info, truth, ok)
     if "trial" in clip:
         import _gaze_grid as G
@@ -207,12 +230,25 @@ def main(argv) -> int:
     if not LUND.is_dir():
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
         return 2
+    import os
+    import pickle
+
+    cache = os.environ.get("SKIN_BENCH_CACHE")  # a folder to keep the rendered clips and face-mesh runs in
     for name in names:
-        d = Path(tempfile.mkdtemp(prefix="skin_pose_"))
-        clip = render(name, d)
-        frs, obs = landmarks(clip["path"])
+        hit = Path(cache) / (name.replace(" ", "_") + ".pkl") if cache else None
+        if hit is not None and hit.exists():
+            from aspectus.webcam.video import iter_frames
+
+            clip, obs = pickle.loads(hit.read_bytes())
+            frs = list(iter_frames(clip["path"]))
+        else:
+            d = Path(tempfile.mkdtemp(prefix="skin_pose_", dir=cache))
+            clip = render(name, d)
+            frs, obs = landmarks(clip["path"])
+            if hit is not None:
+                hit.write_bytes(pickle.dumps((clip, obs)))
         print(f"{name}: iris {clip['truth']['iris_diameter_px'].median():.1f} px, {len(frs)} frames", flush=True)
-        for how in ("mesh", "skin"):
+        for how in os.environ.get("SKIN_BENCH_VARIANTS", ",".join(VARIANTS)).split(","):
             print(f"  {how:4s} {json.dumps(measure(name, clip, frs, obs, how))}", flush=True)
     return 0
 

@@ -208,14 +208,18 @@ class EyeAnchorTracker:
         return best
 
     def update(self, image: np.ndarray, points_px: np.ndarray, iris_radius_px: float,
-               rotation: np.ndarray | None = None) -> np.ndarray:
+               rotation: np.ndarray | None = None, warp=None) -> np.ndarray:
         """The anchors' picture positions (k, 2) in this frame: the mesh's points plus the followed offsets.
 
         ``image`` is the picture or a crop of it, and ``points_px`` are in the same coordinates. ``rotation``
         (the head rotation of this frame, 3 x 3), when given, also changes a template once the head has
         turned by :data:`RECUT_ROTATION_DEG` since it was cut: to one cut earlier at a rotation within that
         angle (a key frame taken up again, so a head that turns away and back comes back to the same
-        templates rather than to a chain of cuts), or to a new one.
+        templates rather than to a chain of cuts), or to a new one. ``warp``, when given, is called as
+        ``warp(j, template_number)`` and returns the 2 x 3 affine map from the template's pixel offsets (from
+        its centre pixel) to this picture's coordinates, or None: the picture is then resampled into the
+        template's geometry before the match (the skin seen under another pose changes its shape on the
+        picture, which moves a plain match's peak), and the peak mapped back.
         """
         r = float(iris_radius_px)
         mesh = np.asarray(points_px, float)[self._rows, :2]
@@ -272,14 +276,24 @@ class EyeAnchorTracker:
         for j, xi, yi, (x0, y0, x1, y1), ok in jobs:
             pk = None
             tpl, sub = self._templates[j][:2]
-            if grey is not None and ok:
-                win = grey[y0 - by0:y1 - by0, x0 - bx0:x1 - bx0]
-                pk = _peak(cv2.matchTemplate(win, tpl, cv2.TM_CCOEFF_NORMED))
-            if pk is None or not pk[2] >= MIN_SCORE:
-                self._misses[j] += 1
-                self.missed += 1
-                continue
-            fx, fy = xi - s + pk[0] + sub[0], yi - s + pk[1] + sub[1]
+            G = None if warp is None else warp(j, self._templates[j][6])
+            if G is not None:
+                found = _warped_match(image, tpl, G, pred[j], s)
+                if found is None or not found[2] >= MIN_SCORE:
+                    self._misses[j] += 1
+                    self.missed += 1
+                    continue
+                du, dv = found[0] + sub[0], found[1] + sub[1]
+                fx, fy = G[0, 0] * du + G[0, 1] * dv + G[0, 2], G[1, 0] * du + G[1, 1] * dv + G[1, 2]
+            else:
+                if grey is not None and ok:
+                    win = grey[y0 - by0:y1 - by0, x0 - bx0:x1 - bx0]
+                    pk = _peak(cv2.matchTemplate(win, tpl, cv2.TM_CCOEFF_NORMED))
+                if pk is None or not pk[2] >= MIN_SCORE:
+                    self._misses[j] += 1
+                    self.missed += 1
+                    continue
+                fx, fy = xi - s + pk[0] + sub[0], yi - s + pk[1] + sub[1]
             mx, my = mesh_l[j]
             ox, oy = fx - mx, fy - my
             self.offsets_px[j] = (min(bound, max(-bound, ox)), min(bound, max(-bound, oy)))
@@ -287,6 +301,37 @@ class EyeAnchorTracker:
             self._misses[j] = 0
             self.matched += 1
         return mesh + self.offsets_px
+
+
+def _warped_match(image: np.ndarray, tpl: np.ndarray, G: np.ndarray, pred, s: int):
+    """Match ``tpl`` in the picture resampled into the template's geometry by the affine ``G`` (template pixel
+    offsets -> picture), searching ``s`` px around the offset that maps to ``pred``: the matched template
+    centre's offset (du, dv) and the score, or None (singular map, window off the picture, peak at the border)."""
+    cv2 = import_cv2()
+    A = G[:, :2]
+    det = float(A[0, 0] * A[1, 1] - A[0, 1] * A[1, 0])
+    if not (np.isfinite(G).all() and abs(det) > 1e-3):
+        return None
+    Ai = np.array([[A[1, 1], -A[0, 1]], [-A[1, 0], A[0, 0]]]) / det
+    pu, pv = Ai @ (np.asarray(pred, float) - G[:, 2])
+    half = tpl.shape[0] // 2
+    e = half + s
+    u0, v0 = int(round(pu)) - e, int(round(pv)) - e
+    n = 2 * e + 1
+    corners = np.array([[u0, v0], [u0 + n, v0], [u0, v0 + n], [u0 + n, v0 + n]], float) @ A.T + G[:, 2]
+    bx0, by0 = int(np.floor(corners[:, 0].min())) - 1, int(np.floor(corners[:, 1].min())) - 1
+    bx1, by1 = int(np.ceil(corners[:, 0].max())) + 2, int(np.ceil(corners[:, 1].max())) + 2
+    grey = _grey(image, bx0, by0, bx1, by1)
+    if grey is None:
+        return None
+    # window pixel (x, y) -> template offset (u0 + x, v0 + y) -> picture G(...) -> grey patch (minus its origin)
+    M = np.c_[A, A @ [u0, v0] + G[:, 2] - [bx0, by0]].astype(np.float64)
+    win = cv2.warpAffine(grey, M, (n, n), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
+                         borderMode=cv2.BORDER_REPLICATE)
+    pk = _peak(cv2.matchTemplate(win, tpl, cv2.TM_CCOEFF_NORMED))
+    if pk is None:
+        return None
+    return u0 + pk[0] + half, v0 + pk[1] + half, pk[2]
 
 
 def _turned(rotation, cut_rotation) -> bool:
