@@ -30,10 +30,11 @@ its record, exactly as the pipeline does. Printed per clip and variant:
   and noise alone imply, and the SD of the head pitch between the dots (median per rendered fixation);
 * the geometry's CPU time per frame (``time.process_time`` around FrameGeometry.rows).
 
-Head rotations measured (:data:`VARIANTS`): ``mesh``; ``skin`` (as ``head_rotation="skin"`` runs it); ``skin+warp``
-(each template matched in the picture resampled by the affine map the face model's local plane gives between the
-pose it was cut at and the predicted one); ``skin+shape`` (the skin points' depths learnt from the clip by
-:func:`aspectus.webcam.skin_pose.refine_shape`, with its CPU per frame); ``skin+warp+shape``.
+Head rotations measured (:data:`VARIANTS`, or any of ``skin`` with ``+modelplanes``, ``+warp``, ``+shape``):
+``mesh``; ``skin`` (as ``head_rotation="skin"`` runs it); ``+modelplanes`` (the cut points on the face model's local
+planes, as the option did before); ``+warp`` (each template matched in the picture resampled by the affine map the
+local plane gives between the pose it was cut at and the predicted one); ``+shape`` (the skin points' depths
+learnt from the clip by :func:`aspectus.webcam.skin_pose.refine_shape`, with its CPU per frame).
 
     python bench/bench_skin_pose.py            # all clips, some 10 minutes of CPU; or name clips: target 12px
 
@@ -57,10 +58,12 @@ sys.path.insert(0, str(ROOT / "tests" / "webcam"))
 
 LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
 CLIPS = ("target", "12px", "12px-b", "25px turns", "25px turns-a")
-#: the head rotations measured: the face mesh's PnP; the skin points as ``head_rotation="skin"`` runs them; with
-#: template matches warped by the predicted pose (``SkinPose(warp=True)``); with the skin points' depths learnt
-#: from the clip (``SkinPose(learn_shape=True)``); both
-VARIANTS = ("mesh", "skin", "skin+warp", "skin+shape", "skin+warp+shape")
+#: the head rotations measured: the face mesh's PnP; the skin points as ``head_rotation="skin"`` runs them (each
+#: cut point put on the face mesh's own surface of that frame); the same with the cut points on the face model's
+#: local planes instead (``SkinPose(mesh_depth=False)``, the option before); with template matches warped by the
+#: predicted pose (``SkinPose(warp=True)``); with the skin points' depths learnt from the clip
+#: (``SkinPose(learn_shape=True)``), on the model's planes
+VARIANTS = ("mesh", "skin", "skin+modelplanes", "skin+warp", "skin+modelplanes+shape")
 
 
 def render(name: str, d: Path) -> dict:
@@ -120,7 +123,8 @@ def geometry(frs, obs, head_rotation: str):
     if skin:  # "skin" as the option runs it; "+warp": warped template matches; "+shape": the shape learnt
         from aspectus.webcam.skin_pose import SkinPose
 
-        geo.skin = SkinPose(learn_shape="+shape" in head_rotation, warp="+warp" in head_rotation)
+        geo.skin = SkinPose(learn_shape="+shape" in head_rotation, warp="+warp" in head_rotation,
+                            mesh_depth="+modelplanes" not in head_rotation)
     c0 = time.process_time()
     a = np.concatenate([geo.rows(items[i:i + 16]) for i in range(0, len(items), 16)])
     cpu_ms = (time.process_time() - c0) / len(items) * 1e3

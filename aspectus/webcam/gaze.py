@@ -165,12 +165,12 @@ class GazeParams:
         which follow the eyes: on a still-head 720p clip its pitch error
         moved with the gaze pitch (r -0.85, SD 0.34 deg). ``"skin"``: PnP on
         skin points over the face followed on the picture against key
-        frames (:mod:`aspectus.webcam.skin_pose`): there r -0.02, SD 0.03
-        deg, and pitch gain up on five dev clips (at 12 px 0.90 -> 0.99);
-        but with the head turning +-15 deg on 25 px clips the two faces
-        measured part (median gaze error 1.59 -> 1.44 deg on one, 1.90 ->
-        3.35 on the other, whose yaw it reads with gain 0.86), so it is
-        not the default (docs/notes/gaze-measurement.md).
+        frames (:mod:`aspectus.webcam.skin_pose`): there r -0.05, SD 0.02
+        deg, and pitch gain up on both 12 px dev clips (0.90 -> 0.96,
+        0.68 -> 0.78); but with the head turning +-15 deg on
+        25 px clips its median gaze error is 1.96 and 1.71 deg against the
+        mesh's 1.90 and 1.59 (90th percentile 4.36 / 2.95 against 3.94 /
+        2.66), so it is not the default (docs/notes/gaze-measurement.md).
     fuse_in_head : bool
         With ``iris_combine`` "fuse" or "rescale": fit the mapping of the
         mesh point onto the limbus scale on both points' offsets from the

@@ -14,9 +14,16 @@ face scale, or a head turned by :data:`aspectus.webcam.eye_anchors.RECUT_ROTATIO
 template of the same point cut earlier near the present rotation is taken up again). Each template is matched
 against the frame it was cut from (a key frame), not chained from frame to frame, so a still head gives a
 still pose, and a head turned away and back returns to its first templates. When a template is cut, its
-point's 3-D position is where the line of sight through the cut position meets the face model's surface (the plane through the model point and its 10
-nearest neighbours) under that frame's pose, so the points reproject exactly where they were cut and the
-mesh's errors at later frames do not enter. The pose is then solved per frame by PnP on the matched points
+point's 3-D position is where the line of sight through the cut position meets the face's surface as the face
+mesh reports it in that frame (its landmarks lifted to 3-D by their own relative depth, one depth offset fitted
+to the face model under the pose; the plane through the point's landmark along its 10 nearest), under that
+frame's pose, so the points reproject exactly where they were cut and the mesh's errors at later frames do not
+enter. (On the face model's own local planes instead - ``mesh_depth=False``, as before - the followed points lie
+a few mm off the skin they were cut from, which attenuates the rotation: head yaw gain 0.86 on a rendered face
+turning +-15 deg even with exact picture positions, 0.98 on the face mesh's surface.) Two further options were
+measured and are left off: the points' depths learnt from the clip (``learn_shape``: :func:`refine_shape`) and
+template matches warped by the predicted pose (``warp``); see docs/notes/gaze-measurement.md. The pose is
+then solved per frame by PnP on the matched points
 (:func:`solve_pose`: Levenberg-Marquardt from the previous frame's pose; points beyond three robust scales
 of the residuals are left out and the pose solved again).
 
@@ -119,16 +126,21 @@ def back_project(point_px, K: np.ndarray, R: np.ndarray, t: np.ndarray, model_po
 class SkinPose:
     """The head rotation of one face over a run of frames, from :data:`SKIN_POSE_POINTS` followed on the picture."""
 
-    def __init__(self, points=SKIN_POSE_POINTS, *, learn_shape: bool = False, warp: bool = False):
+    def __init__(self, points=SKIN_POSE_POINTS, *, learn_shape: bool = False, warp: bool = False,
+                 mesh_depth: bool = True):
         from aspectus.webcam.headpose import face_model
 
         self.points = tuple(points)
         self.learn_shape = bool(learn_shape)
         self.warp = bool(warp)
+        self.mesh_depth = bool(mesh_depth)
         self.tracker = EyeAnchorTracker(self.points)
         pts = face_model().points_mm
         self._model = pts[list(self.points)].astype(np.float64)
         self._normals = np.array([surface_normal(pts, j) for j in self.points])
+        # per point, its 10 nearest model points (the local surface the cut point is put on with mesh_depth)
+        self._near = [np.argsort(np.linalg.norm(pts - pts[j], axis=1))[:10] for j in self.points]
+        self._rows = np.array(self.points, dtype=np.intp)
         self.solved_frames = 0
         self.fallback_frames = 0
         self.reset()
@@ -191,8 +203,14 @@ class SkinPose:
             t = np.asarray(t_mesh, float)
             self._R = self._t = None
             self.fallback_frames += 1
+        lifted = None
+        if self.mesh_depth and self.tracker.last_cut.any():
+            lifted = self._lifted(points_px, K, R, t)
         for j in np.flatnonzero(self.tracker.last_cut):  # where the line of sight meets the face model
-            self.X[j] = back_project(a[j], K, R, t, self._model[j], self._normals[j])
+            if lifted is not None:
+                self.X[j] = self._on_mesh_surface(a[j], K, R, t, lifted, j)
+            else:
+                self.X[j] = back_project(a[j], K, R, t, self._model[j], self._normals[j])
             tid = int(self.tracker.template_ids[j])
             self._X_by_template[tid] = self.X[j].copy()
             if self.warp:
@@ -213,6 +231,32 @@ class SkinPose:
             self._cuts = {k: v for k, v in self._cuts.items() if k in live}
             self._plane_points = {k: v for k, v in self._plane_points.items() if k in live}
         return R
+
+    def _lifted(self, points_px, K, R, t) -> np.ndarray | None:
+        """The face mesh's landmarks of this frame in the head frame (mm): each lifted to the depth its own
+        relative depth gives (the mesh reports it in the picture's pixel scale), one depth offset for the face
+        fitted to the model's depths at the followed points under the pose ``(R, t)``; None when unusable."""
+        q = np.asarray(points_px, float)
+        if q.ndim != 2 or q.shape[1] < 3 or not np.isfinite(q[self._rows]).all():
+            return None
+        f = float(K[0, 0])
+        z_model = self._model @ np.asarray(R, float)[2] + float(t[2])  # the model's depths at the points
+        zr = q[self._rows, 2]
+        # depth Z_k = D (1 + z_k / f): D fitted to the model's depths (least squares)
+        g = 1.0 + zr / f
+        D = float(g @ z_model / (g @ g))
+        if not D > 0:
+            return None
+        Z = D * (1.0 + q[:, 2] / f)
+        cam = np.c_[(q[:, 0] - K[0, 2]) * Z / f, (q[:, 1] - K[1, 2]) * Z / float(K[1, 1]), Z]
+        return (cam - np.asarray(t, float)) @ np.asarray(R, float)
+
+    def _on_mesh_surface(self, point_px, K, R, t, lifted: np.ndarray, j: int) -> np.ndarray:
+        """Where the line of sight through ``point_px`` meets the plane through the lifted mesh's point ``j``
+        along its 10 nearest (head frame, mm)."""
+        nb = lifted[self._near[j]]
+        n = np.linalg.svd(nb - nb.mean(axis=0))[2][-1]
+        return back_project(point_px, K, R, t, lifted[self.points[j]], n)
 
     def _template_map(self, j: int, tid: int, K, R, t, off):
         """The affine map from template ``tid``'s pixel offsets to this picture's crop (point ``j``, head at the

@@ -87,6 +87,16 @@ def _texture(shape, seed=0):
     return np.repeat((40 + 180 * g)[..., None], 3, axis=2).round().astype(np.uint8)
 
 
+def _mesh_points(R, t):
+    """The face mesh's points as it reports them for the model at pose (R, t): picture x, y and the relative
+    depth in the picture's pixel scale (f (Z / mean Z - 1))."""
+    P = face_model().points_mm @ R.T + t
+    pts = np.zeros((len(P), 3))
+    pts[:, :2] = _project(face_model().points_mm, R, t)
+    pts[:, 2] = K[0, 0] * (P[:, 2] / P[:, 2].mean() - 1.0)
+    return pts
+
+
 def test_points_off_the_picture_fall_back_to_the_mesh_rotation_without_a_jump():
     """A face whose skin points lie off the picture crop (a face half out of view): no solve, the mesh's
     rotation turned by the last solved difference (none yet: the mesh's own), and no error."""
@@ -111,8 +121,7 @@ def test_a_still_textured_picture_gives_the_first_frames_pose():
     """Skin that does not move while the mesh's points do (as when they follow the eyes): the rotation
     stays where the templates were cut."""
     R, t = head_rotation(0.0, 0.0, 0.0), np.array([0.0, 0.0, 600.0])
-    pts = np.zeros((478, 3))
-    pts[:, :2] = _project(face_model().points_mm, R, t)
+    pts = _mesh_points(R, t)
     img = _texture((720, 1280), seed=3)
     sp = SkinPose()
     first = sp.update(img, pts, (0, 0), 11.0, K, R, t)
@@ -123,6 +132,31 @@ def test_a_still_textured_picture_gives_the_first_frames_pose():
         got = sp.update(img, moved, (0, 0), 11.0, K, R_mesh, t)
     assert sp.solved_frames == 3
     assert _angle_deg(got, first) < 0.02
+
+
+def test_cut_points_take_the_face_meshs_own_depth():
+    """A face whose depth relief is 0.8 of the face model's (projected with a pinhole camera): the skin points
+    cut on it are put on the surface the face mesh reports for this face, so their relief is the face's (within
+    0.3 mm), not the model's (20 % deeper)."""
+    R, t = head_rotation(8.0, -4.0, 2.0), np.array([15.0, -10.0, 620.0])
+    M = face_model().points_mm.astype(float)
+    face = M.copy()
+    zc = M[list(SKIN_POSE_POINTS), 2].mean()
+    face[:, 2] = zc + 0.8 * (M[:, 2] - zc)  # a flatter face
+    P = face @ R.T + t
+    pts = np.zeros((len(P), 3))
+    pts[:, :2] = _project(face, R, t)
+    pts[:, 2] = K[0, 0] * (P[:, 2] / P[:, 2].mean() - 1.0)  # the mesh's relative depth, picture pixel scale
+    sp = SkinPose()
+    lifted = sp._lifted(pts, K, R, t)
+    got = np.array([sp._on_mesh_surface(pts[j, :2], K, R, t, lifted, i) for i, j in enumerate(SKIN_POSE_POINTS)])
+    want = face[list(SKIN_POSE_POINTS)]
+    rel = lambda X: X[:, 2] - X[:, 2].mean()  # noqa: E731 - the relief about the points' mean depth
+    assert np.abs(rel(got) - rel(want)).max() < 0.3
+    assert np.abs(rel(M[list(SKIN_POSE_POINTS)]) - rel(want)).max() > 3.0  # the model's relief is not the face's
+    # and on the model's local planes (the option before) the relief stays the model's
+    on_planes = np.array([back_project(pts[j, :2], K, R, t, M[j], sp._normals[i]) for i, j in enumerate(SKIN_POSE_POINTS)])
+    assert np.abs(rel(on_planes) - rel(want)).max() > 2.0
 
 
 # --- the per-clip shape (structure from motion with the pose) -----------------------------------------------
