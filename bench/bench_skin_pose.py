@@ -30,7 +30,8 @@ its record, exactly as the pipeline does. Printed per clip and variant:
   and noise alone imply, and the SD of the head pitch between the dots (median per rendered fixation);
 * the geometry's CPU time per frame (``time.process_time`` around FrameGeometry.rows).
 
-Head rotations measured (:data:`VARIANTS`, or any of ``skin`` with ``+modelplanes``, ``+warp``, ``+shape``):
+Head rotations measured (:data:`VARIANTS`, or ``skin`` with any of ``+modelplanes``, ``+warp``, ``+shape``,
+``+anchors`` - the eye anchors' points on the face mesh's surface too, :meth:`FrameGeometry.place_anchors_on_mesh`):
 ``mesh``; ``skin`` (as ``head_rotation="skin"`` runs it); ``+modelplanes`` (the cut points on the face model's local
 planes, as the option did before); ``+warp`` (each template matched in the picture resampled by the affine map the
 local plane gives between the pose it was cut at and the predicted one); ``+shape`` (the skin points' depths
@@ -125,6 +126,8 @@ def geometry(frs, obs, head_rotation: str):
 
         geo.skin = SkinPose(learn_shape="+shape" in head_rotation, warp="+warp" in head_rotation,
                             mesh_depth="+modelplanes" not in head_rotation)
+        if "+anchors" in head_rotation:
+            geo.place_anchors_on_mesh()
     c0 = time.process_time()
     a = np.concatenate([geo.rows(items[i:i + 16]) for i in range(0, len(items), 16)])
     cpu_ms = (time.process_time() - c0) / len(items) * 1e3

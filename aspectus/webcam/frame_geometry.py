@@ -156,6 +156,7 @@ class FrameGeometry:
             pts_mm = face_model().points_mm
             self._turn_limits = (turn_away_limits_deg(self.anchors.points, pts_mm),
                                  -np.sign(self._anchors_model[:, 0]))
+        self._anchors_on_mesh = None  # see place_anchors_on_mesh
         self.anchored_frames = 0
         self.unanchored_frames = 0
         self._anchor_minus_pnp: np.ndarray | None = None
@@ -289,6 +290,8 @@ class FrameGeometry:
             a = self.anchors.update(eyes, points_px - off, r_px) + off[:2]
             self._last_anchors = a[:6].copy()  # every set starts with the six points below the eyes
             model = self._anchors_model
+            if self._anchors_on_mesh is not None:
+                model = self._anchors_3d(R, t_pnp, points_px, a)
             if self._turn_limits is not None:
                 limit, away_sign = self._turn_limits
                 yaw = float(np.degrees(np.arctan2(R[0, 2], R[2, 2])))  # aspectus.geometry.rotation_to_head_angles
@@ -302,6 +305,28 @@ class FrameGeometry:
                 return t_a
         self.unanchored_frames += 1
         return t_pnp if self._anchor_minus_pnp is None else t_pnp + self._anchor_minus_pnp
+
+    def place_anchors_on_mesh(self) -> None:
+        """With the skin rotation (``skin_pose``): put the eye anchors' head-frame points on the face mesh's
+        surface when their templates are cut, as the skin points are, instead of at the face model's points.
+        Measured and left off (docs/notes/gaze-measurement.md: better on 25 px turning faces, worse at 12 px)."""
+        if self.skin is None or not self.skin.mesh_depth:
+            raise ValueError("the anchors go on the face mesh's surface only with the skin rotation on it")
+        self._anchors_on_mesh = np.full((len(self.anchors.points), 3), np.nan)
+
+    def _anchors_3d(self, R, t_pnp, points_px, a) -> np.ndarray:
+        """With the skin rotation on the face mesh's surface: the anchors' head-frame points put on the same
+        surface when their templates are cut (as the skin points are), under this frame's rotation and the
+        best translation known (PnP plus the last anchored difference); the model's points until then."""
+        X = self._anchors_on_mesh
+        cut = self.anchors.last_cut
+        if cut.any():
+            t = t_pnp if self._anchor_minus_pnp is None else t_pnp + self._anchor_minus_pnp
+            lifted = self.skin._lifted(points_px, self.solver.K, R, t)
+            if lifted is not None:
+                for j in np.flatnonzero(cut):
+                    X[j] = self.skin.on_surface(a[j], self.solver.K, R, t, lifted, self.anchors.points[j])
+        return np.where(np.isfinite(X), X, self._anchors_model)
 
     def state(self) -> dict:
         return {"K": None if self.solver is None else self.solver.K, "size": self.size,

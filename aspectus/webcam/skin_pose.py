@@ -252,11 +252,21 @@ class SkinPose:
         return (cam - np.asarray(t, float)) @ np.asarray(R, float)
 
     def _on_mesh_surface(self, point_px, K, R, t, lifted: np.ndarray, j: int) -> np.ndarray:
-        """Where the line of sight through ``point_px`` meets the plane through the lifted mesh's point ``j``
-        along its 10 nearest (head frame, mm)."""
+        """Where the line of sight through ``point_px`` meets the plane through the lifted mesh's point of
+        :attr:`points` ``[j]`` along its 10 nearest (head frame, mm)."""
         nb = lifted[self._near[j]]
         n = np.linalg.svd(nb - nb.mean(axis=0))[2][-1]
         return back_project(point_px, K, R, t, lifted[self.points[j]], n)
+
+    def on_surface(self, point_px, K, R, t, lifted: np.ndarray, mesh_point: int) -> np.ndarray:
+        """The same for any face-mesh point ``mesh_point`` (head frame, mm)."""
+        from aspectus.webcam.headpose import face_model
+
+        pts = face_model().points_mm
+        near = np.argsort(np.linalg.norm(pts - pts[mesh_point], axis=1))[:10]
+        nb = lifted[near]
+        n = np.linalg.svd(nb - nb.mean(axis=0))[2][-1]
+        return back_project(point_px, K, R, t, lifted[mesh_point], n)
 
     def _template_map(self, j: int, tid: int, K, R, t, off):
         """The affine map from template ``tid``'s pixel offsets to this picture's crop (point ``j``, head at the

@@ -159,6 +159,29 @@ def test_cut_points_take_the_face_meshs_own_depth():
     assert np.abs(rel(on_planes) - rel(want)).max() > 2.0
 
 
+def test_eye_anchors_on_the_mesh_surface_agree_with_the_model_on_the_model_face():
+    """The eye anchors put on the face mesh's surface (``FrameGeometry.place_anchors_on_mesh``): on a face that
+    is the face model itself they are the model's own points and the head translation is the one those give
+    (within 0.05 mm); without the skin rotation the placement is refused."""
+    from aspectus.webcam.frame_geometry import FrameGeometry
+
+    R, t = head_rotation(6.0, -3.0, 0.0), np.array([10.0, -5.0, 600.0])
+    pts = _mesh_points(R, t)
+    img = _texture((720, 1280), seed=4)
+    rows = []
+    for on in (False, True):
+        geo = FrameGeometry(fov_deg=60.0, refine_iris=True, skin_pose=True)
+        if on:
+            geo.place_anchors_on_mesh()
+        rows.append(np.array([geo.row(k / 30, (1280, 720), pts, 1, eyes=img) for k in range(4)]))
+        assert geo.anchored_frames == 4
+    # the anchors' points on the mesh's surface are the model's own (the face is the model)
+    np.testing.assert_allclose(geo._anchors_on_mesh, geo.anchors_model_mm(geo.anchors.points), atol=0.05)
+    np.testing.assert_allclose(rows[1][:, 12:15], rows[0][:, 12:15], atol=0.05)
+    with pytest.raises(ValueError):
+        FrameGeometry(fov_deg=60.0, refine_iris=True).place_anchors_on_mesh()
+
+
 # --- the per-clip shape (structure from motion with the pose) -----------------------------------------------
 
 
