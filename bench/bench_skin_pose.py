@@ -12,7 +12,9 @@ tests/targets/test_rendered_targets.py do not use):
 * ``12px-b``: the same, astronaut face, trial UL31, seed 12;
 * ``25px turns``: 1280 x 720 at 600 mm (iris about 25 px), gaze and head yaw over +-15 deg (head pitch +-5),
   the trajectory of tests/webcam/test_gaze_rendered.py with render seed 7 (the test: 3), hopper face; and
-  ``25px turns-a``: the astronaut face.
+  ``25px turns-a``: the astronaut face;
+* ``25px turns-2`` / ``25px turns-2a``: the same size, another trajectory (other periods and phases, gaze pitch
+  +-12 deg; :func:`_other_turns`), render seed 9, hopper / astronaut face.
 
 The face mesh runs once per clip; the per-frame geometry (:class:`aspectus.webcam.frame_geometry.FrameGeometry`)
 is then run on the same landmarks and pictures with each head rotation, and the clip-level gaze estimate on
@@ -58,7 +60,7 @@ sys.path.insert(0, str(ROOT / "tests"))
 sys.path.insert(0, str(ROOT / "tests" / "webcam"))
 
 LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
-CLIPS = ("target", "12px", "12px-b", "25px turns", "25px turns-a")
+CLIPS = ("target", "12px", "12px-b", "25px turns", "25px turns-a", "25px turns-2", "25px turns-2a")
 #: the head rotations measured: the face mesh's PnP; the skin points as ``head_rotation="skin"`` runs them (each
 #: cut point put on the face mesh's own surface of that frame); the same with the cut points on the face model's
 #: local planes instead (``SkinPose(mesh_depth=False)``, the option before); with template matches warped by the
@@ -95,9 +97,31 @@ def render(name: str, d: Path) -> dict:
 
     from aspectus.synth.render import render_clip
 
+    if name.startswith("25px turns-2"):
+        res = render_clip(d / "clip.mp4", _other_turns(), face="astronaut" if name.endswith("a") else "hopper",
+                          size_px=(1280, 720), fps=30.0, seed=9)
+        return {"path": res.path, "truth": res.truth.reset_index(drop=True)}
     res = render_clip(d / "clip.mp4", _trajectory(head=True), face="astronaut" if name.endswith("-a") else "hopper",
                       size_px=(1280, 720), fps=30.0, seed=7)
     return {"path": res.path, "truth": res.truth.reset_index(drop=True)}
+
+
+def _other_turns(duration_s=6.0, rate=240.0):
+    """A second turning trajectory no test uses: gaze over +-15 / +-12 deg, head yaw +-15 and pitch +-5 deg, with
+    other periods and phases than test_gaze_rendered.py's."""
+    from aspectus.synth.trajectory import Trajectory
+
+    t = np.arange(int(duration_s * rate)) / rate
+    df = pd.DataFrame({
+        "t_s": t, "yaw_deg": 15 * np.sin(2 * np.pi * t / 3.7 + 0.3), "pitch_deg": 12 * np.sin(2 * np.pi * t / 2.6 + 1.2),
+        "blink": False, "lid_closure": 0.0,
+        "head_yaw_deg": 15 * np.sin(2 * np.pi * t / 4.3 + 2.0), "head_pitch_deg": 5 * np.sin(2 * np.pi * t / 3.3 + 0.7),
+        "head_roll_deg": 0.0, "head_x_mm": 0.0, "head_y_mm": 0.0, "head_z_mm": 600.0,
+    })
+    empty = pd.DataFrame({c: [] for c in ("onset_s", "offset_s", "duration_ms", "yaw_deg", "pitch_deg",
+                                          "amplitude_deg", "closure_onset_s", "closure_offset_s")})
+    return Trajectory(samples=df, fixations=empty, saccades=empty, blinks=empty,
+                      params={"rate_hz": rate, "duration_s": duration_s})
 
 
 def landmarks(path):

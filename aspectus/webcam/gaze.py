@@ -168,9 +168,10 @@ class GazeParams:
         frames (:mod:`aspectus.webcam.skin_pose`): there r -0.05, SD 0.02
         deg, and pitch gain up on both 12 px dev clips (0.90 -> 0.96,
         0.68 -> 0.78); but with the head turning +-15 deg on
-        25 px clips its median gaze error is 1.96 and 1.71 deg against the
-        mesh's 1.90 and 1.59 (90th percentile 4.36 / 2.95 against 3.94 /
-        2.66), so it is not the default (docs/notes/gaze-measurement.md).
+        25 px clips its median gaze error is 1.96 / 2.15 deg on one face
+        against the mesh's 1.90 / 1.42 and 1.71 / 1.07 on the other against
+        1.59 / 2.17 (two trajectories), so it is not the default
+        (docs/notes/gaze-measurement.md).
     fuse_in_head : bool
         With ``iris_combine`` "fuse" or "rescale": fit the mapping of the
         mesh point onto the limbus scale on both points' offsets from the
