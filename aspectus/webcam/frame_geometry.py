@@ -37,8 +37,11 @@ from aspectus.webcam.skin_pose import SKIN_POSE_POINTS, SkinPose
 
 #: columns of one row of the per-frame record (the width of each block in brackets)
 RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_mm", 3), ("iris_px", 4),
-                  ("iris_diam_px", 2), ("corners_px", 8), ("ear", 2), ("iris_mesh_px", 4))
+                  ("iris_diam_px", 2), ("corners_px", 8), ("ear", 2), ("iris_mesh_px", 4), ("limbus_diam_px", 2))
 RECORD_WIDTH = sum(n for _, n in RECORD_COLUMNS)
+#: the record's columns of both eyes' limbus-fit diameters, px (NaN where the fit failed or did not run): the
+#: iris scale (:func:`aspectus.webcam.gaze.limbus_iris_scale`); 16 bytes a frame, some 1.7 MB an hour at 30 fps
+LIMBUS_DIAM = slice(RECORD_WIDTH - 2, RECORD_WIDTH)
 #: columns that follow those with ``appearance`` on (:mod:`aspectus.webcam.iris_appearance`): whether each
 #: eye's limbus fit succeeded (1/0), each eye's patch frame (2 x 2 x 3, NaN where the frame has no patch) and
 #: both eyes' patches, uint8 bytes carried in float64 columns (read back with ``.view(np.uint8)``)
@@ -191,8 +194,10 @@ class FrameGeometry:
             if job is not None:
                 fits.append((k, job))
         if fits:
-            for (k, (_, off)), (iris, ok) in zip(fits, limbus_centres_many([job[0] for _, job in fits])):
+            for (k, (_, off)), (iris, ok, diam) in zip(fits, limbus_centres_many([job[0] for _, job in fits],
+                                                                                  diameters=True)):
                 out[k, 15:19] = (iris + off).ravel()
+                out[k, LIMBUS_DIAM] = diam
                 if self.appearance:
                     out[k, RECORD_WIDTH:RECORD_WIDTH + 2] = ok
         return out

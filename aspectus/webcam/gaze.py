@@ -61,6 +61,10 @@ IRIS_COMBINE = ("auto", "limbus", "rescale", "fuse", "appearance")
 AUTO_APPEARANCE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)), 1)
 #: frames whose eye aperture is at least this share of the clip's open-eye level count as open eyes
 OPEN_EYE_REL = 0.8
+#: where the iris's size in pixels (the metric scale) comes from (GazeParams.iris_scale)
+IRIS_SCALES = ("limbus", "mesh")
+#: fewest open-eye limbus fits (both eyes' together) for the limbus scale; with fewer the face mesh's is used
+MIN_SCALE_FITS = 30
 
 
 @dataclass
@@ -178,6 +182,25 @@ class GazeParams:
         eyeball centre's picture position (the eye's motion in the head),
         not on their picture positions, which head motion dominates
         (default True; False is the mapping before issue 15).
+    iris_scale : {"limbus", "mesh"}
+        Where the iris's size in pixels - the metric scale of step 1, which
+        every gaze angle is inversely proportional to - comes from.
+        ``"limbus"`` (default, with ``refine_iris``): the face mesh's
+        per-frame diameter taken onto the limbus fit's level, the median
+        over the clip's open-eye frames of the fitted circle's diameter over
+        the mesh's (:func:`limbus_iris_scale`; the mesh's own where there are
+        fewer than :data:`MIN_SCALE_FITS` fits). ``"mesh"``: the face mesh's
+        iris outline alone (before issue 15). On twelve rendered dev clips
+        (8.5-25 px, CRF 23/28/33 and mp4v, both faces, lids following and
+        still, glasses) the mesh read the iris 0.8-8.6 % too large (median
+        5.5 %), the limbus fit 0.9 % too large to 4.3 % too small (median
+        2.6 % small), with no lean on lid cover (eyes lowest against
+        highest third: -2.7 to +3.0 %); with the limbus scale yaw gain moved
+        towards 1 on 7 of 12 clips and pitch gain on 9 (median |gain - 1|
+        0.12 -> 0.10 and 0.21 -> 0.16), r within 0.003, the head distance's
+        median error 4.3 % -> 3.0 % (docs/notes/gaze-measurement.md). run.json
+        records both clip medians and which was used
+        (``gaze_model.iris_scale``).
     mirrored : bool
         The clip shows the subject mirrored left to right (as webcam
         software often records it): everything is measured in the mirror
@@ -199,6 +222,7 @@ class GazeParams:
     head_rotation: str = "mesh"
     mirrored: bool = False
     fuse_in_head: bool = True
+    iris_scale: str = "limbus"
 
     def __post_init__(self):
         from aspectus.errors import ParameterError
@@ -214,6 +238,9 @@ class GazeParams:
         if self.eye_anchor_set not in ANCHOR_SETS:
             raise ParameterError(f"gaze parameter eye_anchor_set = {self.eye_anchor_set!r} is not one of "
                                  f"{', '.join(ANCHOR_SETS)}")
+        if self.iris_scale not in IRIS_SCALES:
+            raise ParameterError(f"gaze parameter iris_scale = {self.iris_scale!r} is not one of "
+                                 f"{', '.join(IRIS_SCALES)}")
         if self.head_rotation not in ("mesh", "skin"):
             raise ParameterError(f"gaze parameter head_rotation = {self.head_rotation!r} is not one of mesh, skin")
         if self.iris_combine not in IRIS_COMBINE:
@@ -677,9 +704,57 @@ def decouple_reference(centres_mm: np.ndarray, iris_px: np.ndarray, K: np.ndarra
     return out, rec
 
 
+def limbus_iris_scale(mesh_diam_px: np.ndarray, limbus_diam_px: np.ndarray | None, ok: np.ndarray, *,
+                      setting: str = "limbus") -> tuple[float, dict]:
+    """The factor that takes the face mesh's iris diameters onto the limbus fit's, for the clip's metric scale.
+
+    ``mesh_diam_px`` and ``limbus_diam_px`` are (N, 2) per eye (NaN where there is none; the limbus fit's is
+    the diameter of its circle, :func:`aspectus.webcam.limbus.limbus_centres_many`); ``ok`` (N,) the frames
+    to measure on (face found, eyes open). The factor is the median over those frames and both eyes of
+    ``limbus / mesh`` (a ratio per frame, so that the head's moving nearer or further does not enter it);
+    the per-frame diameters used for the scale are the mesh's times it, which keeps the mesh's steady
+    frame-to-frame reading of distance changes and takes the limbus fit's level. With ``setting="mesh"``,
+    without the limbus diameters or with fewer than :data:`MIN_SCALE_FITS` ratios, the factor is 1 (the
+    face mesh's own diameter).
+
+    Returns the factor and a record for run.json: the setting, the source used, why, both clip medians (px)
+    over the frames measured on and the number of limbus fits there.
+    """
+    ok = np.asarray(ok, bool)
+    mesh = np.where(np.asarray(mesh_diam_px, float) > 0, mesh_diam_px, np.nan)
+    rec: dict = {"setting": setting,
+                 "mesh_median_px": _round_or_none(np.nanmedian(mesh[ok]) if np.isfinite(mesh[ok]).any() else np.nan)}
+    if limbus_diam_px is None:
+        rec |= {"used": "mesh", "limbus_median_px": None, "limbus_fits": 0,
+                "reason": "no limbus fits (refine_iris off)" if setting == "limbus" else "as chosen"}
+        return 1.0, rec
+    lim = np.where(np.asarray(limbus_diam_px, float) > 0, limbus_diam_px, np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = (lim / mesh)[ok]
+    ratio = ratio[np.isfinite(ratio)]
+    fin = np.isfinite(lim[ok])
+    rec |= {"limbus_median_px": _round_or_none(np.median(lim[ok][fin]) if fin.any() else np.nan),
+            "limbus_fits": int(len(ratio))}
+    factor = float(np.median(ratio)) if len(ratio) else float("nan")
+    rec["limbus_to_mesh"] = _round_or_none(factor, 4)
+    if setting == "mesh":
+        rec |= {"used": "mesh", "reason": "as chosen"}
+        return 1.0, rec
+    if len(ratio) < MIN_SCALE_FITS or not np.isfinite(factor) or factor <= 0:
+        rec |= {"used": "mesh", "reason": f"{len(ratio)} open-eye limbus fits, fewer than {MIN_SCALE_FITS}"}
+        return 1.0, rec
+    rec |= {"used": "limbus", "reason": f"median of {len(ratio)} open-eye limbus fits"}
+    return factor, rec
+
+
+def _round_or_none(x, nd: int = 3):
+    return round(float(x), nd) if x is not None and np.isfinite(x) else None
+
+
 def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndarray, iris_px: np.ndarray,
                   iris_diam_px: np.ndarray, corners_px: np.ndarray, ear: np.ndarray, t_s: np.ndarray | None = None,
-                  iris_mesh_px: np.ndarray | None = None, params: GazeParams = GazeParams()) -> tuple[dict, dict]:  # noqa: B008 - a frozen default
+                  iris_mesh_px: np.ndarray | None = None, limbus_diam_px: np.ndarray | None = None,
+                  params: GazeParams = GazeParams()) -> tuple[dict, dict]:  # noqa: B008 - a frozen default
     """Gaze, head pose, distance and blinks for a whole clip.
 
     Parameters
@@ -715,9 +790,12 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
 
     # --- metric scale from the iris --------------------------------------
     diam = _nanmean_quiet(np.where(iris_diam_px > 0, iris_diam_px, np.nan), axis=1) if n else nanv
-    z_iris = f * IRIS_DIAMETER_MM / diam
     aperture_rel, open_level = relative_aperture(found, ear)
     eyes_open = found & (aperture_rel >= OPEN_EYE_REL)
+    # the iris's size in pixels: the face mesh's, taken onto the limbus fit's level (iris_scale)
+    scale_factor, info["iris_scale"] = limbus_iris_scale(iris_diam_px, limbus_diam_px, eyes_open,
+                                                         setting=params.iris_scale)
+    z_iris = f * IRIS_DIAMETER_MM / (diam * scale_factor)
     # the iris diameter gives the distance of the irises, so it is compared with the depth of the model's iris
     # points (the head origin lies 12 mm further back, between the eyeball centres)
     iris_model = model.points_mm[[RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE]].mean(axis=0)

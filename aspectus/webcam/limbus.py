@@ -226,9 +226,12 @@ def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None
     return _Eye(frame, e, origin, c0 - origin, r, g, dist, radii)
 
 
-def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48,
-                        passes: int = 2) -> list[tuple[np.ndarray, np.ndarray]]:
+def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
+                        diameters: bool = False) -> list[tuple[np.ndarray, ...]]:
     """:func:`limbus_centres` of several frames, ``items`` = [(image, points_px, iris_px, iris_diam_px), ...].
+
+    With ``diameters`` each frame's tuple also holds both eyes' fitted circle diameters, px (2,), NaN where
+    the fit failed (the iris scale, :func:`aspectus.webcam.gaze.limbus_iris_scale`).
 
     The ray casting and circle fits of all eyes run together, pass by pass
     (the per-eye arithmetic is the same; NumPy's per-call cost, which is
@@ -266,9 +269,12 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48,
             fitted[eye.frame][eye.eye] = True
             still.append(eye)
         active = still
+    diams = [np.full(2, np.nan) for _ in items]
     for eye in eyes:
         outs[eye.frame][eye.eye] = eye.cur + eye.origin
-    return list(zip(outs, fitted))
+        if fitted[eye.frame][eye.eye]:
+            diams[eye.frame][eye.eye] = 2.0 * eye.r_fit
+    return list(zip(outs, fitted, diams)) if diameters else list(zip(outs, fitted))
 
 
 def _distance_maps(eyes: list) -> np.ndarray:

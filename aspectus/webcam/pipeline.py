@@ -47,7 +47,7 @@ from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze
-from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, RECORD_WIDTH, frame_item, start_geometry
+from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, LIMBUS_DIAM, RECORD_WIDTH, frame_item, start_geometry
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, SAMPLE_COLUMNS, column_table
@@ -464,7 +464,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
-        iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None, params=params.gaze)
+        iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None,
+        limbus_diam_px=a[:, LIMBUS_DIAM] if params.gaze.refine_iris else None, params=params.gaze)
     if app_info is not None:
         ginfo["iris_appearance"] = app_info
     ginfo["iris_estimate"] = choice or {"setting": combine, "used": combine if refine else "face mesh"}
