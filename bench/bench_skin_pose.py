@@ -138,7 +138,7 @@ def landmarks(path):
 def geometry(frs, obs, head_rotation: str):
     """The gaze estimator's inputs from the per-frame geometry (as extract_samples builds them), and its CPU
     time per frame (ms)."""
-    from aspectus.webcam.frame_geometry import FrameGeometry, frame_item
+    from aspectus.webcam.frame_geometry import LIMBUS_DIAM, FrameGeometry, frame_item
     from aspectus.webcam.gaze import GazeParams
 
     skin = head_rotation.startswith("skin")
@@ -162,7 +162,8 @@ def geometry(frs, obs, head_rotation: str):
     kw = dict(K=np.asarray(geo.solver.K), found=found, R=R, t=np.nan_to_num(a[:, 12:15], nan=1.0),
               iris_px=a[:, 15:19].reshape(n, 2, 2), iris_diam_px=a[:, 19:21],
               corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
-              iris_mesh_px=a[:, 31:35].reshape(n, 2, 2), params=GazeParams(head_rotation="skin" if skin else "mesh"))
+              iris_mesh_px=a[:, 31:35].reshape(n, 2, 2), limbus_diam_px=a[:, LIMBUS_DIAM],
+              params=GazeParams(head_rotation="skin" if skin else "mesh"))
     st = geo.state()
     if skin:
         st["refinements"] = geo.skin.refinements

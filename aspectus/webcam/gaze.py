@@ -170,11 +170,11 @@ class GazeParams:
         moved with the gaze pitch (r -0.85, SD 0.34 deg). ``"skin"``: PnP on
         skin points over the face followed on the picture against key
         frames (:mod:`aspectus.webcam.skin_pose`): there r -0.05, SD 0.02
-        deg, and pitch gain up on both 12 px dev clips (0.90 -> 0.96,
-        0.68 -> 0.78); but with the head turning +-15 deg on
-        25 px clips its median gaze error is 1.96 / 2.15 deg on one face
-        against the mesh's 1.90 / 1.42 and 1.71 / 1.07 on the other against
-        1.59 / 2.17 (two trajectories), so it is not the default
+        deg; at 12 px pitch r 0.657 -> 0.734 on one dev clip (0.916 ->
+        0.910 on the other); but with the head turning +-15 deg on 25 px
+        clips its median gaze error is 1.96 / 2.17 deg on one face against
+        the mesh's 1.70 / 1.31 and 1.98 / 0.85 on the other against 1.54 /
+        1.69 (two trajectories), so it is not the default
         (docs/notes/gaze-measurement.md).
     fuse_in_head : bool
         With ``iris_combine`` "fuse" or "rescale": fit the mapping of the
