@@ -142,12 +142,13 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
     The face mesh runs once; each variant re-runs only the clip-level gaze estimate on the same per-frame
     measurements (the pipeline's own samples for the default variant). Besides the figures of :func:`measure`, each
     row holds ``iris_estimate``: the iris estimate the default took (run.json's ``gaze_model.iris_estimate.used``;
-    None in the other variants' rows) and ``iris_px_measured``: the clip's median iris diameter as the pipeline
-    measured it (``gaze_model.iris_estimate.median_iris_px``; what the default's choice is made on, NaN unless
-    the pipeline's setting is ``auto``). ``keep_samples``: each row also
-    holds its samples table under ``"samples"``. ``pipeline_gaze``: gaze settings for the pipeline's own run
-    (e.g. ``{"eye_anchor_set": "below_and_beside"}``, which acts in the per-frame geometry); the variants
-    re-estimate with them too.
+    None in the other variants' rows), ``eye_anchor_set``: the skin points that placed the head
+    (``gaze_model.eye_anchor_set.used``; None in the other variants' rows, which re-use the default's head
+    placement) and ``iris_px_measured``: the clip's median iris diameter as the pipeline measured it
+    (``gaze_model.iris_estimate.median_iris_px``; what the default's choice is made on, NaN unless the
+    pipeline's setting is ``auto``). ``keep_samples``: each row also holds its samples table under
+    ``"samples"``. ``pipeline_gaze``: gaze settings for the pipeline's own run (e.g. ``{"eye_anchor_set":
+    "below"}``, which acts in the per-frame geometry); the variants re-estimate with them too.
     """
     from aspectus.webcam import pipeline
     from aspectus.webcam.gaze import GazeParams, estimate_gaze
@@ -173,6 +174,7 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
         pipeline.estimate_gaze, pipeline._appearance_iris = estimate_gaze, orig_app
     limbus_iris = captured.pop("limbus_iris_px", None)
     choice = meta["gaze_model"].get("iris_estimate") or {}
+    anchors = meta["gaze_model"].get("eye_anchor_set") or {}
     rows = []
     for name, over in (variants or VARIANTS).items():
         s = samples
@@ -191,6 +193,7 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
                     s[c] = v
         rows.append(asdict(cond) | {"label": cond.label(), "variant": name} | measure(s, res.truth, trial)
                     | {"iris_estimate": choice.get("used") if not over else None,
+                       "eye_anchor_set": anchors.get("used") if not over else None,
                        "iris_px_measured": float(np.nan if choice.get("median_iris_px") is None
                                                   else choice["median_iris_px"])}
                     | ({"samples": s} if keep_samples else {}))

@@ -50,6 +50,8 @@ from aspectus._env import import_cv2
 #: beside the eye turned away read worse (docs/notes/gaze-measurement.md), so it is an option, not the default.
 #: ``"below_and_facing_beside"``: the same points, but in each frame a point beside an eye is left out of the
 #: translation's refit while the head is turned away from it by more than :func:`turn_away_limits_deg`.
+#: (``GazeParams.eye_anchor_set`` also takes ``"auto"``: :data:`AUTO_SMALL_FACE_SET` on a small face, ``"below"``
+#: otherwise; :data:`ANCHOR_SET_CHOICES`.)
 ANCHOR_SETS = {"below": (229, 230, 231, 449, 450, 451),
                "below_and_beside": (229, 230, 231, 449, 450, 451, 226, 35, 446, 265),
                "below_and_facing_beside": (229, 230, 231, 449, 450, 451, 226, 35, 446, 265)}
@@ -58,6 +60,14 @@ TURN_LIMITED_SETS = ("below_and_facing_beside",)
 #: the points beside the eyes (the rest of every set lies below the eyes and is always used)
 BESIDE_POINTS = (226, 35, 446, 265)
 DEFAULT_ANCHOR_SET = "below"
+#: with ``eye_anchor_set="auto"`` (the default of ``GazeParams``) the set used where the iris is small in the picture
+#: (the same rule as ``iris_combine="auto"``: :func:`aspectus.webcam.iris_appearance.small_iris` below
+#: ``aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX``); :data:`DEFAULT_ANCHOR_SET` elsewhere. Measured on fourteen
+#: small-face dev clips (8.4-12.1 px, eight of them with the head turning +-15 deg): yaw r up on ten, by 0.04-0.38
+#: on all seven astronaut-face clips, down by 0.01-0.06 on four hopper-face clips (docs/notes/gaze-measurement.md).
+AUTO_SMALL_FACE_SET = "below_and_beside"
+#: what ``GazeParams.eye_anchor_set`` may be: ``"auto"`` or a key of :data:`ANCHOR_SETS`
+ANCHOR_SET_CHOICES = ("auto", *ANCHOR_SETS)
 #: every point any set may follow (what the eye crop must cover)
 ANCHOR_POINTS = tuple(dict.fromkeys(p for pts in ANCHOR_SETS.values() for p in pts))
 #: template half-width, in iris radii

@@ -25,10 +25,11 @@ from pathlib import Path
 
 import numpy as np
 
-from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, ANCHOR_SETS, DEFAULT_ANCHOR_SET, MIN_ANCHOR_RADIUS_PX,
-                                         TURN_LIMITED_SETS, EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
+from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, ANCHOR_SET_CHOICES, ANCHOR_SETS, AUTO_SMALL_FACE_SET,
+                                         DEFAULT_ANCHOR_SET, MIN_ANCHOR_RADIUS_PX, TURN_LIMITED_SETS,
+                                         EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
                                          translation_given_rotation, turn_away_limits_deg)
-from aspectus.webcam.gaze import frame_measurements
+from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, frame_measurements
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, PATCH_BYTES, EyePatchSampler, small_iris
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
@@ -37,7 +38,12 @@ from aspectus.webcam.skin_pose import SKIN_POSE_POINTS, SkinPose
 
 #: columns of one row of the per-frame record (the width of each block in brackets)
 RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_mm", 3), ("iris_px", 4),
-                  ("iris_diam_px", 2), ("corners_px", 8), ("ear", 2), ("iris_mesh_px", 4), ("limbus_diam_px", 2))
+                  ("iris_diam_px", 2), ("corners_px", 8), ("ear", 2), ("iris_mesh_px", 4), ("t_small_face_mm", 3),
+                  ("limbus_diam_px", 2))
+#: with ``anchor_set="auto"``: the translation refitted to :data:`aspectus.webcam.eye_anchors.AUTO_SMALL_FACE_SET`
+#: (NaN once the first frames have shown a face that is not small, and with any other set); ``t_mm`` holds the
+#: one refitted to :data:`aspectus.webcam.eye_anchors.DEFAULT_ANCHOR_SET`, and the pipeline takes one of the two
+SMALL_FACE_T_COLUMNS = slice(35, 38)
 RECORD_WIDTH = sum(n for _, n in RECORD_COLUMNS)
 #: the record's columns of both eyes' limbus-fit diameters, px (NaN where the fit failed or did not run): the
 #: iris scale (:func:`aspectus.webcam.gaze.limbus_iris_scale`); 16 bytes a frame, some 1.7 MB an hour at 30 fps
@@ -114,7 +120,13 @@ class FrameGeometry:
         the PnP translation, which the face mesh's landmark errors under head
         rotation move by about a millimetre at 5 deg.
     anchor_set : str
-        Which skin points are followed (a key of :data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`).
+        Which skin points are followed (a key of :data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`), or
+        ``"auto"``: :data:`aspectus.webcam.eye_anchors.DEFAULT_ANCHOR_SET` into ``t_mm`` and, while the first
+        :data:`aspectus.webcam.iris_appearance.DECIDE_FRAMES` frames with a face show a small iris
+        (:func:`aspectus.webcam.iris_appearance.small_iris` below
+        :data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`) and after them if they did, also
+        :data:`aspectus.webcam.eye_anchors.AUTO_SMALL_FACE_SET` into :data:`SMALL_FACE_T_COLUMNS` (its extra
+        points followed by a tracker of their own, so the first set's rows are those it gives alone).
     skin_pose : bool
         With the eye picture (``refine_iris``): the head rotation from skin
         points over the face followed on the picture
@@ -142,14 +154,32 @@ class FrameGeometry:
         self._first_diams: list | None = [] if self.appearance_below_px is not None else None
         self.sampler = EyePatchSampler()
         self._last_anchors: np.ndarray | None = None
+        self._last_all: np.ndarray | None = None  # this frame's followed points of the anchor set
         self.refine_iris = bool(refine_iris)
         self.eye_anchors = bool(eye_anchors)
         self.skin = SkinPose() if skin_pose else None
         self.solver: HeadPoseSolver | None = None
         self.size: tuple[int, int] | None = None
         self.size_changes = 0
+        self.auto_anchors = anchor_set == "auto"
+        if self.auto_anchors:
+            anchor_set = DEFAULT_ANCHOR_SET
         self.anchors = EyeAnchorTracker(ANCHOR_SETS[anchor_set])
         self._anchors_model = self.anchors_model_mm(self.anchors.points)
+        # "auto": the small-face set's extra points, their own tracker (per-point tracking: the same offsets as in
+        # one tracker of the whole set), and its refit's model points in the set's order
+        self._small = None
+        self._small_diams: list | None = None
+        self.small_face: bool | None = None  # the decision, once made
+        if self.auto_anchors:
+            small_pts = ANCHOR_SETS[AUTO_SMALL_FACE_SET]
+            extra = tuple(p for p in small_pts if p not in self.anchors.points)
+            if self.anchors.points + extra != small_pts:
+                raise ValueError(f"the set {AUTO_SMALL_FACE_SET!r} must start with the points of {anchor_set!r}")
+            self._small = EyeAnchorTracker(extra)
+            self._small_model = self.anchors_model_mm(small_pts)
+            self._small_diams = []
+            self._small_minus_pnp: np.ndarray | None = None
         # the sets that leave out a point beside an eye while the head is turned away from it: per point, the
         # yaw limit and the sign of yaw that turns the head away from it (+ for the subject's right, model x < 0)
         self._turn_limits = None
@@ -211,6 +241,9 @@ class FrameGeometry:
             self.size = (w, h)
             self.solver = HeadPoseSolver(w, h, fov_deg=self.fov_deg)
             self.anchors.reset()
+            if self._small is not None:
+                self._small.reset()
+                self._small_minus_pnp = None
             self.sampler.reset()
             self._anchor_minus_pnp = None
             if self.skin is not None:
@@ -237,9 +270,16 @@ class FrameGeometry:
             off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
             local = points_px - off
             job = ((eyes, local, iris - off[:2], m["iris_diam_px"]), off[:2])
-        self._last_anchors = None
+        self._last_anchors = self._last_all = None
         if self.eye_anchors:
+            if self._small_diams is not None:  # "auto": settle on the first frames with a face whether it is small
+                self._small_diams.append(np.array(m["iris_diam_px"], float))
+                if len(self._small_diams) >= DECIDE_FRAMES:
+                    self._decide_small()
+            t_pnp = t
             t = self._anchored_translation(R, t, m, eyes, points_px, eyes_origin_px)
+            if self._small is not None and self.small_face is not False:
+                row[SMALL_FACE_T_COLUMNS] = self._small_translation(R, t_pnp, m, eyes, points_px, eyes_origin_px)
         if self.appearance:
             self._appearance_columns(row, m, eyes, eyes_origin_px)
         row[1] = 1.0
@@ -280,6 +320,26 @@ class FrameGeometry:
         row[w + 2:w + 14] = A.ravel()
         row[w + 14:] = np.ascontiguousarray(patches).reshape(-1).view(np.float64)
 
+    def _decide_small(self) -> None:
+        """``anchor_set="auto"``: whether the face is small, from the frames seen so far (then no more)."""
+        if self._small_diams is None:
+            return
+        self.small_face = small_iris(np.array(self._small_diams).reshape(-1, 2), AUTO_APPEARANCE_BELOW_PX)[0]
+        self._small_diams = None
+
+    def _small_translation(self, R, t_pnp, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
+        """``anchor_set="auto"``: the translation refitted to the small-face set (:meth:`_anchored_translation`
+        for that set: the points below the eyes as followed for ``t_mm``, the extra ones by their own tracker)."""
+        r_px = anchor_radius_px(m["iris_diam_px"])
+        if eyes is not None and np.isfinite(r_px) and r_px >= MIN_ANCHOR_RADIUS_PX and self._last_all is not None:
+            off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
+            b = self._small.update(eyes, points_px - off, r_px) + off[:2]
+            t_s = translation_given_rotation(R, self._small_model, np.vstack([self._last_all, b]), self.solver.K)
+            if t_s is not None:
+                self._small_minus_pnp = t_s - t_pnp
+                return t_s
+        return t_pnp if self._small_minus_pnp is None else t_pnp + self._small_minus_pnp
+
     def _anchored_translation(self, R, t_pnp, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
         """The head translation refitted to the eye anchors, the rotation held.
 
@@ -294,6 +354,7 @@ class FrameGeometry:
             off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
             a = self.anchors.update(eyes, points_px - off, r_px) + off[:2]
             self._last_anchors = a[:6].copy()  # every set starts with the six points below the eyes
+            self._last_all = a
             model = self._anchors_model
             if self._anchors_on_mesh is not None:
                 model = self._anchors_3d(R, t_pnp, points_px, a)
@@ -334,7 +395,10 @@ class FrameGeometry:
         return np.where(np.isfinite(X), X, self._anchors_model)
 
     def state(self) -> dict:
+        if self.auto_anchors:
+            self._decide_small()  # a clip shorter than the deciding frames
         return {"K": None if self.solver is None else self.solver.K, "size": self.size,
+                "small_face": self.small_face if self.auto_anchors else None,
                 "size_changes": self.size_changes, "anchored_frames": self.anchored_frames,
                 "unanchored_frames": self.unanchored_frames, "anchor_matches": self.anchors.matched,
                 "anchor_misses": self.anchors.missed,
@@ -560,8 +624,8 @@ class GeometryProcess:
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
                  appearance_below_px: float | None = None):
         self._sink = sink
-        if anchor_set not in ANCHOR_SETS:
-            raise ValueError(f"anchor set must be one of {', '.join(ANCHOR_SETS)}, got {anchor_set!r}")
+        if anchor_set not in ANCHOR_SET_CHOICES:
+            raise ValueError(f"anchor set must be one of {', '.join(ANCHOR_SET_CHOICES)}, got {anchor_set!r}")
         self._proc = subprocess.Popen(
             [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parents[1]), repr(float(fov_deg)),
              "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set, "1" if skin_pose else "0",

@@ -145,9 +145,25 @@ class GazeParams:
         eye picture, i.e. ``refine_iris``; without it the PnP translation
         is used (run.json counts the frames: ``eye_anchor_frames``,
         ``eye_anchor_fallback_frames``).
-    eye_anchor_set : {"below", "below_and_beside", "below_and_facing_beside"}
-        Which skin points the anchors follow (:data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`):
-        ``"below"`` (default): three below each eye; ``"below_and_beside"``:
+    eye_anchor_set : {"auto", "below", "below_and_beside", "below_and_facing_beside"}
+        Which skin points the anchors follow (:data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`).
+        ``"auto"`` (default): ``"below_and_beside"`` where the iris is
+        small - by the rule ``iris_combine="auto"`` follows (the first
+        frames' and the clip's median iris diameter, the face mesh's,
+        below :data:`AUTO_APPEARANCE_BELOW_PX`) - and ``"below"``
+        otherwise, so large faces are placed as before; run.json says which
+        was used and why (``gaze_model.eye_anchor_set``). Measured with the
+        default chain on fourteen held-out small-face clips (8.4-12.1 px,
+        640 x 480 CRF 28, eight with the head turning +-15 deg;
+        bench/bench_anchor_sets.py): RMS-S2S no higher on any, yaw r up on
+        ten (by 0.04-0.38 on all seven astronaut-face clips) and down by
+        0.01-0.06 on four hopper-face ones (yaw gain 0.81 -> 0.69 on one
+        turning clip), pitch r up on ten (by up to 0.10) and down by at
+        most 0.007 on four, pitch gain up on twelve; but kappa down on
+        eight (by up to 0.07) and up on five. ``"below_and_facing_beside"``
+        was no better than ``"below_and_beside"`` there
+        (docs/notes/gaze-measurement.md).
+        ``"below"``: three below each eye; ``"below_and_beside"``:
         also two beside each eye's outer corner, near the eyeball centres'
         depth, so the PnP rotation's error moves the fitted translation
         less. On five 640 x 480 classroom clips (iris 8.3-12.2 px) it cut
@@ -218,7 +234,7 @@ class GazeParams:
     decouple_reference: bool = True
     decouple_highpass_s: float = 0.7
     eye_anchors: bool = True
-    eye_anchor_set: str = "below"
+    eye_anchor_set: str = "auto"
     head_rotation: str = "mesh"
     mirrored: bool = False
     fuse_in_head: bool = True
@@ -233,11 +249,11 @@ class GazeParams:
             v = getattr(self, name)
             if isinstance(v, bool) or not isinstance(v, (int, float)) or not (lo <= v <= hi):
                 raise ParameterError(f"gaze parameter {name} = {v!r} is outside {lo}-{hi}")
-        from aspectus.webcam.eye_anchors import ANCHOR_SETS
+        from aspectus.webcam.eye_anchors import ANCHOR_SET_CHOICES
 
-        if self.eye_anchor_set not in ANCHOR_SETS:
+        if self.eye_anchor_set not in ANCHOR_SET_CHOICES:
             raise ParameterError(f"gaze parameter eye_anchor_set = {self.eye_anchor_set!r} is not one of "
-                                 f"{', '.join(ANCHOR_SETS)}")
+                                 f"{', '.join(ANCHOR_SET_CHOICES)}")
         if self.iris_scale not in IRIS_SCALES:
             raise ParameterError(f"gaze parameter iris_scale = {self.iris_scale!r} is not one of "
                                  f"{', '.join(IRIS_SCALES)}")
@@ -335,11 +351,15 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
     GazeChoice(
         "eye_anchor_set", "Eyes placed by skin points",
         "Which skin points are followed to place the eyeballs as the head moves.",
-        (("below", "below each eye (default)",
-          "Three points below each eye. Keep this for faces that are large in the picture or turn a lot."),
+        (("auto", "automatic by face size (default)",
+          f"Below and beside each eye where the iris is small in the picture (below {AUTO_APPEARANCE_BELOW_PX:g} px "
+          "across, as a classroom webcam sees a face), below each eye otherwise; the same size rule as for the "
+          "iris height. Keep this unless a comparison with a lab eye tracker tells you otherwise."),
+         ("below", "below each eye",
+          "Three points below each eye. Best for faces that are large in the picture."),
          ("below_and_beside", "below and beside each eye",
-          "Also two points beside each eye's outer corner. Steadier for small faces (a classroom webcam), but "
-          "worse when the head turns far to one side."),
+          "Also two points beside each eye's outer corner. Steadier for small faces (a classroom webcam); on "
+          "large faces worse when the head turns far to one side."),
          ("below_and_facing_beside", "below, and beside when facing the camera",
           "As the previous choice, but a point beside an eye is left out while the head is turned away from it "
           "(by more than about 12°)."))),

@@ -47,7 +47,9 @@ from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze
-from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, LIMBUS_DIAM, RECORD_WIDTH, frame_item, start_geometry
+from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
+from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
+                                            frame_item, start_geometry)
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, SAMPLE_COLUMNS, column_table
@@ -273,6 +275,39 @@ class _SplitSink:
             self.patches.clear()
 
 
+def _anchor_set_choice(gaze, refine: bool, small_first: bool | None, diam: np.ndarray) -> dict:
+    """run.json's ``gaze_model.eye_anchor_set``: the setting, the set used (None: no anchors, the face mesh's PnP
+    translation) and, with ``"auto"``, why.
+
+    ``"auto"`` takes :data:`aspectus.webcam.eye_anchors.AUTO_SMALL_FACE_SET` when both the per-frame geometry's
+    first frames (``small_first``: its decision, :func:`aspectus.webcam.iris_appearance.small_iris`) and the whole
+    clip (``diam``: the face frames' iris diameters) show an iris below
+    :data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX` - the rule ``iris_combine="auto"`` follows - and
+    :data:`aspectus.webcam.eye_anchors.DEFAULT_ANCHOR_SET` otherwise.
+    """
+    setting = gaze.eye_anchor_set
+    if not (refine and gaze.eye_anchors):
+        off = " and ".join(n for n, on in (("refine_iris", refine), ("eye_anchors", gaze.eye_anchors)) if not on)
+        return {"setting": setting, "used": None, "reason": f"no eye anchors ({off} off): the face mesh's head "
+                                                            "translation is used"}
+    if setting != "auto":
+        return {"setting": setting, "used": setting}
+    small_clip, med = small_iris(diam, AUTO_APPEARANCE_BELOW_PX)
+    out = {"setting": "auto", "threshold_px": AUTO_APPEARANCE_BELOW_PX, "median_iris_px": _round(med),
+           "first_frames": AUTO_DECIDE_FRAMES}
+    if not small_first:
+        out["used"] = DEFAULT_ANCHOR_SET
+        out["reason"] = (f"the first frames' median iris diameter is not below {AUTO_APPEARANCE_BELOW_PX} px"
+                         if small_first is False else "no face frames to decide on")
+    elif not small_clip:
+        out["used"] = DEFAULT_ANCHOR_SET
+        out["reason"] = f"the clip's median iris diameter {out['median_iris_px']} px is not below {AUTO_APPEARANCE_BELOW_PX} px"
+    else:
+        out["used"] = AUTO_SMALL_FACE_SET
+        out["reason"] = f"the clip's median iris diameter {out['median_iris_px']} px is below {AUTO_APPEARANCE_BELOW_PX} px"
+    return out
+
+
 def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> tuple[np.ndarray, dict]:
     """The iris centres with their height from the eyes' appearance (``iris_combine="appearance"``).
 
@@ -421,6 +456,9 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     # rotations and translations are cleaned in place, in the record buffer itself (no copies of an hour of them)
     Rm = np.nan_to_num(a[:, 3:12], copy=False).reshape(n, 3, 3)
     Rm[~found] = np.eye(3)
+    anchors_choice = _anchor_set_choice(params.gaze, refine, state.get("small_face"), a[found, 19:21])
+    if params.gaze.eye_anchor_set == "auto" and anchors_choice["used"] == AUTO_SMALL_FACE_SET:
+        a[:, 12:15] = a[:, SMALL_FACE_T_COLUMNS]  # the small-face set's translation (NaN where no face, as t_mm)
     tm = np.nan_to_num(a[:, 12:15], nan=1.0, copy=False)
     K = np.asarray(state["K"]) if state["K"] is not None else np.eye(3)
     iris = a[:, 15:19].reshape(n, 2, 2)
@@ -469,6 +507,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     if app_info is not None:
         ginfo["iris_appearance"] = app_info
     ginfo["iris_estimate"] = choice or {"setting": combine, "used": combine if refine else "face mesh"}
+    ginfo["eye_anchor_set"] = anchors_choice
     pts = a[:, 0].copy()
     counts = a[:, 2].astype(np.int64)
     del a, rec, Rm, tm, iris  # the per-frame records are in ``cols`` now; an hour of them is some 30 MB

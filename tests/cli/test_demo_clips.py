@@ -51,6 +51,9 @@ def test_the_demo_clips_are_large_faces_and_keep_the_limbus_fit(demo_out, repo_r
         assert truth["iris_diameter_px"].median() > 20.0
         assert c["setting"] == "auto" and c["used"] == "limbus", (clip.name, c)
         assert c["first_frames_median_iris_px"] >= c["threshold_px"], (clip.name, c)
+        # and the head is placed by the skin points below the eyes, as before eye_anchor_set="auto" existed
+        a = json.loads((out / clip.stem / "run.json").read_text())["extraction"]["gaze_model"]["eye_anchor_set"]
+        assert a["setting"] == "auto" and a["used"] == "below", (clip.name, a)
 
 
 def test_the_demo_clips_take_the_iris_scale_from_the_limbus_fit(demo_out, repo_root):

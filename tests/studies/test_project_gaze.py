@@ -17,10 +17,10 @@ from aspectus.webcam.pipeline import ProcessParams
 
 
 def test_choices_are_exactly_the_values_gazeparams_accepts():
-    from aspectus.webcam.eye_anchors import ANCHOR_SETS
+    from aspectus.webcam.eye_anchors import ANCHOR_SET_CHOICES
 
     assert set(GAZE_CHOICE_OF["iris_combine"].values) == set(IRIS_COMBINE)
-    assert set(GAZE_CHOICE_OF["eye_anchor_set"].values) == set(ANCHOR_SETS)
+    assert set(GAZE_CHOICE_OF["eye_anchor_set"].values) == set(ANCHOR_SET_CHOICES)
     assert GAZE_CHOICE_OF["head_rotation"].values == ("mesh", "skin")
     assert GAZE_CHOICE_OF["mirrored"].values == (False, True)
     defaults = GazeParams().to_dict()

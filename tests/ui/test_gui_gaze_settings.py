@@ -94,7 +94,7 @@ def test_choice_round_trips_through_saving_and_loading(qtbot, tmp_path):
         assert w.study.process["gaze"]["iris_combine"] == "limbus" and w.study.process["gaze"]["mirrored"] is True
         w.flush_saves()
         saved = json.loads(s.path.read_text())["process"]["gaze"]
-        assert saved == {"iris_combine": "limbus", "head_rotation": "mesh", "eye_anchor_set": "below",
+        assert saved == {"iris_combine": "limbus", "head_rotation": "mesh", "eye_anchor_set": "auto",
                          "mirrored": True}
     finally:
         w.shutdown()
@@ -112,7 +112,7 @@ def test_choice_round_trips_through_saving_and_loading(qtbot, tmp_path):
         # Restore defaults puts the gaze choices back too
         p.restore_defaults()
         assert w2.study.process["gaze"] == {"iris_combine": "auto", "head_rotation": "mesh",
-                                            "eye_anchor_set": "below", "mirrored": False}
+                                            "eye_anchor_set": "auto", "mirrored": False}
     finally:
         w2.shutdown()
 
