@@ -9,7 +9,8 @@ otherwise. One face-mesh run per cell: the 13 cells took about 3 minutes on two 
 machine is busy).
 
 Rows per cell: ``default`` (the pipeline's own run with the default settings; its ``iris_estimate`` column says
-which iris estimate ``iris_combine=auto`` took, run.json's ``gaze_model.iris_estimate.used``), then ``limbus``
+which iris estimate ``iris_combine=auto`` took, run.json's ``gaze_model.iris_estimate.used``, and its
+``eye_anchor_set`` column which skin points ``eye_anchor_set=auto`` placed the head by), then ``limbus``
 (the default before ``auto``) and ``fuse`` re-estimated on the same per-frame measurements. ``iris_px`` is the
 rendered truth's median iris diameter, ``iris_px_measured`` the face mesh's (what ``auto`` decides on).
 
@@ -66,7 +67,8 @@ def grid(quick: bool, seed: int) -> list[G.Condition]:
 COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("iris_px_measured", "{:5.1f}"),
            ("rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_deg", "{:5.2f}"),
            ("yaw_r", "{:5.3f}"), ("yaw_gain", "{:5.2f}"), ("pitch_r", "{:6.3f}"), ("pitch_gain", "{:5.2f}"),
-           ("kappa", "{:6.3f}"), ("kappa_truth", "{:5.3f}"), ("iris_estimate", "{!s:10s}")]
+           ("kappa", "{:6.3f}"), ("kappa_truth", "{:5.3f}"), ("iris_estimate", "{!s:10s}"),
+           ("eye_anchor_set", "{!s:16s}")]
 
 
 def main(argv=None) -> int:

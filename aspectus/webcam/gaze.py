@@ -157,10 +157,10 @@ class GazeParams:
         640 x 480 CRF 28, eight with the head turning +-15 deg;
         bench/bench_anchor_sets.py): RMS-S2S no higher on any, yaw r up on
         ten (by 0.04-0.38 on all seven astronaut-face clips) and down by
-        0.01-0.06 on four hopper-face ones (yaw gain 0.81 -> 0.69 on one
+        0.01-0.06 on four hopper-face ones (yaw gain 0.91 -> 0.78 on one
         turning clip), pitch r up on ten (by up to 0.10) and down by at
-        most 0.007 on four, pitch gain up on twelve; but kappa down on
-        eight (by up to 0.07) and up on five. ``"below_and_facing_beside"``
+        most 0.007 on four, pitch gain up on twelve; kappa up on seven and
+        down on six (-0.09..+0.07). ``"below_and_facing_beside"``
         was no better than ``"below_and_beside"`` there
         (docs/notes/gaze-measurement.md).
         ``"below"``: three below each eye; ``"below_and_beside"``:
