@@ -41,13 +41,14 @@ import numpy as np
 
 from aspectus._env import import_cv2
 
-#: the sets of face-mesh skin points that can be followed, by name. ``"below"`` (the default): below the eye
+#: the sets of face-mesh skin points that can be followed, by name. ``"below"`` (large faces' set): below the eye
 #: openings (second ring below the lower lid, under the iris: right eye 229-231, left eye 449-451).
 #: ``"below_and_beside"``: those and two points beside each eye's outer corner (226 and 35, 446 and 265), which
 #: lie close to the eyeball centres' depth (3.9 and -0.2 mm in front of them in the face model, the points below
 #: 12-15 mm), so an error of the PnP rotation moves their fitted translation - and with it the eyeball centres -
 #: less. At classroom scale it halves the head placement's error, but on large faces turning +-15 deg the points
-#: beside the eye turned away read worse (docs/notes/gaze-measurement.md), so it is an option, not the default.
+#: beside the eye turned away read worse (docs/notes/gaze-measurement.md), so it is the default on small faces
+#: only (:data:`AUTO_SMALL_FACE_SET`).
 #: ``"below_and_facing_beside"``: the same points, but in each frame a point beside an eye is left out of the
 #: translation's refit while the head is turned away from it by more than :func:`turn_away_limits_deg`.
 #: (``GazeParams.eye_anchor_set`` also takes ``"auto"``: :data:`AUTO_SMALL_FACE_SET` on a small face, ``"below"``
