@@ -99,15 +99,8 @@ def chain(items, anchor_set: str) -> tuple[dict, dict]:
 
 
 def figures(kw, samples, truth, trial, true_iris: bool = False) -> dict:
-    from aspectus.webcam.gaze import estimate_gaze
-
     kw = dict(kw) | ({"iris_px": G.true_iris_px(truth)} if true_iris else {})
-    cols, _ = estimate_gaze(**kw)
-    s = samples.copy()
-    for c, v in cols.items():
-        if c in s.columns:
-            s[c] = v
-    return G.measure(s, truth, trial)
+    return G.measure(G.with_gaze(samples, **kw), truth, trial)
 
 
 def head_error_sd(kw, truth) -> np.ndarray:

@@ -44,23 +44,13 @@ CLIPS = (("test 12px", 550.0, "UH21_img_Rome", "hopper", 0, 8.0),
 
 
 def capture(path, anchors: bool, anchor_set: str = "below") -> tuple[dict, object]:
-    from aspectus.webcam import pipeline
-    from aspectus.webcam.gaze import GazeParams, estimate_gaze
+    from aspectus.webcam.gaze import GazeParams
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
-    cap = {}
-
-    def spy(**kw):
-        cap.update(kw)
-        return estimate_gaze(**kw)
-
-    pipeline.estimate_gaze = spy
-    try:
+    with G.gaze_inputs() as cap:
         samples, _ = extract_samples(path, params=ProcessParams(gaze=GazeParams(eye_anchors=anchors,
                                                                                       eye_anchor_set=anchor_set)))
-    finally:
-        pipeline.estimate_gaze = estimate_gaze
-    return {k: v for k, v in cap.items() if k != "params"}, samples
+    return cap, samples
 
 
 def picture_error_mm(t, truth) -> np.ndarray:
@@ -105,17 +95,10 @@ def lever(cap, truth, t, scale, ok) -> str:
 
 
 def gaze(cap, samples, truth, trial, t, true_iris):
-    from aspectus.webcam.gaze import estimate_gaze
-
     kw = dict(cap) | {"t": t}
     if true_iris:
         kw["iris_px"] = G.true_iris_px(truth)
-    cols, _ = estimate_gaze(**kw)
-    s = samples.copy()
-    for c, v in cols.items():
-        if c in s.columns:
-            s[c] = v
-    return G.measure(s, truth, trial)
+    return G.measure(G.with_gaze(samples, **kw), truth, trial)
 
 
 def main() -> int:

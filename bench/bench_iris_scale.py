@@ -60,23 +60,13 @@ DEV = (
 
 def capture(cond: G.Condition, out_dir: Path):
     """Render and process one clip: the gaze estimate's inputs, the samples, the truth and the trial."""
-    from aspectus.webcam import pipeline
-    from aspectus.webcam.gaze import GazeParams, estimate_gaze
+    from aspectus.webcam.gaze import GazeParams
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
     res, trial = G.render_condition(cond, out_dir, LUND)
-    cap = {}
-
-    def spy(**kw):
-        cap.update(kw)
-        return estimate_gaze(**kw)
-
-    pipeline.estimate_gaze = spy
-    try:
+    with G.gaze_inputs() as cap:
         samples, _ = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(mirrored=cond.mirror)),
                                      geometry_mode="inline")
-    finally:
-        pipeline.estimate_gaze = estimate_gaze
     return cap, samples, res.truth, trial
 
 
@@ -109,8 +99,7 @@ def diameters(cap: dict, truth: pd.DataFrame) -> dict:
 def gaze_figures(cap: dict, samples: pd.DataFrame, truth: pd.DataFrame, trial, scale: str, mirror: bool) -> dict:
     from aspectus.webcam.gaze import GazeParams, estimate_gaze
 
-    kw = {k: v for k, v in cap.items() if k != "params"}
-    cols, info = estimate_gaze(**kw, params=GazeParams(mirrored=mirror, iris_scale=scale))
+    cols, info = estimate_gaze(**cap, params=GazeParams(mirrored=mirror, iris_scale=scale))
     s = samples.copy()
     for c, v in cols.items():
         if c in s.columns:

@@ -17,6 +17,7 @@ Used by bench/bench_gaze_grid.py (the whole grid) and tests/test_gaze_grid.py (t
 """
 from __future__ import annotations
 
+from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
@@ -135,6 +136,40 @@ def true_iris_px(truth: pd.DataFrame) -> np.ndarray:
                      truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy(float)], axis=1) - 0.5
 
 
+@contextmanager
+def gaze_inputs():
+    """While the block runs, keep the keyword inputs (without ``params``) of the pipeline's clip-level gaze
+    estimate: the per-frame head poses, iris centres and the rest, for re-estimating with other settings or with
+    true inputs swapped in. Yields the dict, filled by the last clip processed in the block."""
+    from aspectus.webcam import pipeline
+
+    orig = pipeline.estimate_gaze
+    cap: dict = {}
+
+    def spy(**kw):
+        cap.clear()
+        cap.update({k: v for k, v in kw.items() if k != "params"})
+        return orig(**kw)
+
+    pipeline.estimate_gaze = spy
+    try:
+        yield cap
+    finally:
+        pipeline.estimate_gaze = orig
+
+
+def with_gaze(samples: pd.DataFrame, **kw) -> pd.DataFrame:
+    """A copy of ``samples`` with the gaze columns re-estimated by ``estimate_gaze(**kw)``."""
+    from aspectus.webcam.gaze import estimate_gaze
+
+    cols, _ = estimate_gaze(**kw)
+    s = samples.copy()
+    for c, v in cols.items():
+        if c in s.columns:
+            s[c] = v
+    return s
+
+
 def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: dict | None = None,
                   keep_samples: bool = False, pipeline_gaze: dict | None = None) -> list[dict]:
     """Render, process and measure one condition; one row (the condition's fields and figures) per variant.
@@ -186,11 +221,7 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
                 kw["iris_px"] = true_iris_px(res.truth)
             elif src == "limbus" and limbus_iris is not None:
                 kw["iris_px"] = limbus_iris
-            cols, _ = estimate_gaze(**kw, params=GazeParams(mirrored=cond.mirror, **(pipeline_gaze or {}) | over))
-            s = samples.copy()
-            for c, v in cols.items():
-                if c in s.columns:
-                    s[c] = v
+            s = with_gaze(samples, **kw, params=GazeParams(mirrored=cond.mirror, **(pipeline_gaze or {}) | over))
         rows.append(asdict(cond) | {"label": cond.label(), "variant": name} | measure(s, res.truth, trial)
                     | {"iris_estimate": choice.get("used") if not over else None,
                        "eye_anchor_set": anchors.get("used") if not over else None,
