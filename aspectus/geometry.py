@@ -2,11 +2,27 @@
 
 Angles in degrees at the interface; radians only inside. Conventions follow
 :mod:`aspectus.schema` (OpenCV camera frame; yaw to the subject's right and
-pitch up positive).
+pitch up positive; picture positions with pixel i spanning [i, i + 1), converted
+to and from OpenCV's pixel-centre positions only by :func:`to_opencv_px` and
+:func:`from_opencv_px`).
 """
 from __future__ import annotations
 
 import numpy as np
+
+#: where pixel i's centre lies in aspectus's picture coordinates (pixel i spans [i, i + 1); :mod:`aspectus.schema`)
+PIXEL_CENTRE_PX = 0.5
+
+
+def to_opencv_px(xy):
+    """Picture positions (px, aspectus's convention: pixel i spans [i, i + 1)) in OpenCV's, where pixel i's centre
+    lies at i: for ``remap``/``warpAffine`` sampling, pixel indices and drawing."""
+    return np.asarray(xy, float) - PIXEL_CENTRE_PX
+
+
+def from_opencv_px(xy):
+    """Inverse of :func:`to_opencv_px`: OpenCV's pixel-centre positions (px) in aspectus's picture convention."""
+    return np.asarray(xy, float) + PIXEL_CENTRE_PX
 
 
 def umeyama(src: np.ndarray, dst: np.ndarray, *, with_scale: bool = True):

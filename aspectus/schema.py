@@ -27,6 +27,16 @@ A gaze direction ``g = (gx, gy, gz)`` (unit vector, camera frame) maps to
 
 "Left" and "right" eye mean the subject's own left and right eye.
 
+Picture coordinates (every 2-D position on a picture, in px): ``x`` right,
+``y`` down, origin at the top-left *corner* of the top-left pixel, so pixel
+``i`` spans ``[i, i + 1)`` and its centre lies at ``i + 0.5``: the face mesh's
+landmarks (normalised coordinates times width and height) and the renderer's
+truth use it, and so does every position aspectus passes on. OpenCV's
+sampling and drawing (``remap``, ``warpAffine``, ``matchTemplate``'s indices,
+``circle``, ``polylines``) put pixel ``i``'s centre at ``i``: a position
+crosses between the two only through :func:`aspectus.geometry.to_opencv_px`
+and :func:`aspectus.geometry.from_opencv_px`.
+
 Webcam angles carry an unknown per-person constant offset (angle kappa, about
 4-8 deg) and an uncertain gain; aspectus's detectors work on changes of angle,
 never on the absolute value.

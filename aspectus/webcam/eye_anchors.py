@@ -191,6 +191,8 @@ class EyeAnchorTracker:
         self._next_id = 0
 
     def _cut(self, j: int, image: np.ndarray, p, half: int, r: float, rotation=None, keep_keys: bool = False) -> None:
+        # p in aspectus.schema's picture convention; matches return the pixel-index displacement plus p - xi,
+        # so the anchors stay in p's convention (no pixel-centre conversion needed)
         xi, yi = int(round(p[0])), int(round(p[1]))
         tpl = _grey(image, xi - half, yi - half, xi + half + 1, yi + half + 1)
         t = None

@@ -47,6 +47,7 @@ from __future__ import annotations
 import numpy as np
 
 from aspectus._env import import_cv2
+from aspectus.geometry import to_opencv_px
 
 #: patch size (width, height) in samples, per eye
 PATCH_SIZE = (24, 16)
@@ -151,7 +152,10 @@ class EyePatchSampler:
         box = np.array([[0, W - 1, 0, W - 1], [0, 0, H - 1, H - 1], [1, 1, 1, 1]], float)
         for e in range(2):
             A = np.array(affines[e], float)
-            A[:, 2] -= np.asarray(origin_px, float)
+            # the affine gives picture positions (aspectus.schema's convention); warpAffine samples the crop
+            # with its pixel i's centre at i: the crop's position, then OpenCV's, so a label mapped by
+            # to_patch lies where its picture point lies in the patch
+            A[:, 2] = to_opencv_px(A[:, 2] - np.asarray(origin_px, float))
             c = A @ box
             if not np.isfinite(c).all() or c.min() < 0 or c[0].max() > w - 1 or c[1].max() > h - 1:
                 return None

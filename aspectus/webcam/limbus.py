@@ -33,6 +33,7 @@ from __future__ import annotations
 import numpy as np
 
 from aspectus._env import import_cv2
+from aspectus.geometry import from_opencv_px
 from aspectus.webcam.landmarks import LEFT_EYE_OUTLINE, RIGHT_EYE_OUTLINE
 
 _OUTLINES = (np.array(RIGHT_EYE_OUTLINE), np.array(LEFT_EYE_OUTLINE))
@@ -218,11 +219,13 @@ def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None
     roi = image[y0:y1, x0:x1]
     g = cv2.transform(roi.astype(np.float32), _THIRDS) if roi.ndim == 3 else roi.astype(np.float32)
     g = cv2.GaussianBlur(g, (3, 3), 0.8)
+    # the region's coordinates are OpenCV's (its pixel (0, 0)'s centre at 0): picture position = region
+    # position + origin, with origin the picture position of that pixel's centre (aspectus.schema's convention)
+    origin = from_opencv_px([x0, y0])
     mask = np.zeros(g.shape, np.uint8)
-    cv2.fillPoly(mask, [np.round(points_px[outline, :2] - np.array([x0, y0])).astype(np.int32)], 1)
+    cv2.fillPoly(mask, [np.round(points_px[outline, :2] - origin).astype(np.int32)], 1)
     dist = cv2.distanceTransform(mask, cv2.DIST_L2, 3)
     radii = np.linspace(0.6 * r, 1.5 * r, max(12, int(np.ceil(1.8 * r))))
-    origin = np.array([x0, y0], float)
     return _Eye(frame, e, origin, c0 - origin, r, g, dist, radii)
 
 

@@ -26,7 +26,7 @@ from aspectus._env import import_cv2
 
 from aspectus.face_mesh import (FACE_OVAL, LEFT_IRIS_CENTRE, LEFT_IRIS_RING, N_LANDMARKS,  # noqa: F401 (re-exported)
                                 RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING, eye_contour_lower_first)
-from aspectus.geometry import focal_length_px, project_point  # noqa: F401 (re-exported)
+from aspectus.geometry import focal_length_px, project_point, to_opencv_px  # noqa: F401 (re-exported)
 
 #: lid contours of the subject's left and right eye, and the iris rings, in drawing order
 LEFT_EYE = eye_contour_lower_first("left")
@@ -135,7 +135,7 @@ def blur_region(image: np.ndarray, box) -> np.ndarray:
 
 
 def _poly(cv2, img, pts, idx, rgb, width):
-    p = np.round(pts[list(idx)]).astype(np.int32).reshape(-1, 1, 2)
+    p = np.round(to_opencv_px(pts[list(idx)])).astype(np.int32).reshape(-1, 1, 2)  # cv2 draws at pixel centres
     cv2.polylines(img, [p], isClosed=True, color=tuple(int(c) for c in rgb), thickness=width, lineType=cv2.LINE_AA)
 
 
@@ -234,8 +234,8 @@ def draw_overlay(image: np.ndarray, *, landmarks_px=None, yaw_deg: float = float
     if origin is not None and np.isfinite(yaw_deg) and np.isfinite(pitch_deg) and scale_px:
         length = 4.0 * scale_px
         end = gaze_ray_end(origin, yaw_deg=yaw_deg, pitch_deg=pitch_deg, length_px=length)
-        o = tuple(int(round(v)) for v in origin)
-        e = tuple(int(round(v)) for v in end)
+        o = tuple(int(round(v)) for v in to_opencv_px(origin))  # cv2 draws at pixel centres
+        e = tuple(int(round(v)) for v in to_opencv_px(end))
         cv2.circle(img, o, max(2, style.ray_px + 1), style.ray_rgb, -1, lineType=cv2.LINE_AA)
         cv2.arrowedLine(img, o, e, style.ray_rgb, style.ray_px, line_type=cv2.LINE_AA, tipLength=0.2)
     return img

@@ -167,3 +167,35 @@ def test_a_head_turned_away_and_back_takes_up_its_first_templates_again():
     ids = plain.template_ids.copy()
     plain.update(img, pts, 10.0)
     np.testing.assert_array_equal(plain.template_ids, ids)
+
+
+def _blobs(shift_xy=(0.0, 0.0), shape=(240, 320), seed=3):
+    """Smooth Gaussian blobs (skin-like texture) evaluated at each pixel's centre in aspectus's picture
+    convention (aspectus.schema: pixel i spans [i, i + 1), its centre at i + 0.5), all moved by ``shift_xy``:
+    the picture a camera forms of the same skin moved by a known sub-pixel amount, without resampling."""
+    rng = np.random.default_rng(seed)
+    h, w = shape
+    c = rng.uniform([0, 0], [w, h], (900, 2)) + np.asarray(shift_xy, float)
+    a = rng.uniform(-1, 1, 900)
+    yy, xx = np.mgrid[0:h, 0:w].astype(float) + 0.5
+    g = np.zeros(shape)
+    for (cx, cy), ak in zip(c, a):
+        x0, x1 = int(max(0, cx - 9)), int(min(w, cx + 10))
+        y0, y1 = int(max(0, cy - 9)), int(min(h, cy + 10))
+        if x1 > x0 and y1 > y0:
+            g[y0:y1, x0:x1] += ak * np.exp(-((xx[y0:y1, x0:x1] - cx) ** 2 + (yy[y0:y1, x0:x1] - cy) ** 2) / (2 * 2.5 ** 2))
+    return np.repeat(np.clip(128 + 60 * g, 0, 255)[..., None], 3, axis=2).round().astype(np.uint8)
+
+
+@pytest.mark.parametrize("shift", [(0.5, 0.5), (2.3, -1.7)])
+def test_anchor_positions_are_in_the_picture_convention_of_the_mesh_points(shift):
+    """Anchors cut at mesh points given in aspectus's picture convention and matched on the same skin drawn
+    moved by a known sub-pixel shift report the moved points in that convention (not half a pixel off, as
+    an OpenCV pixel-centre index would be): the matcher measures a displacement from the mesh point."""
+    tr = EyeAnchorTracker(ANCHOR_POINTS)
+    tr.update(_blobs(), _points(ANCHORS_XY + 0.37), 10.0)
+    got = tr.update(_blobs(shift), _points(ANCHORS_XY + 0.37 + [2.0, -1.0]), 10.0)
+    err = got - (ANCHORS_XY + 0.37 + np.asarray(shift))
+    assert tr.matched == len(ANCHOR_POINTS)
+    assert np.all(np.abs(err) < 0.25), err  # the parabola vertex's own bias per point
+    assert np.all(np.abs(err.mean(axis=0)) < 0.1), err.mean(axis=0)

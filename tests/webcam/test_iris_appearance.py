@@ -185,3 +185,36 @@ def test_the_blend_leans_on_the_measure_that_agrees_with_the_other_eye():
     labels[:50, 0, 1] = np.nan  # where the label is missing, the estimate is taken
     out, _ = IA.blend_with_labels(est, labels, np.ones(n, bool))
     np.testing.assert_allclose(out[:50, 0, 1], est[:50, 0, 1])
+
+
+def test_a_label_and_its_patch_stay_aligned_in_the_picture_convention():
+    """A dark disc drawn by its area in each pixel at a known centre (aspectus.schema's picture convention:
+    pixel i spans [i, i + 1)) and sampled into patches from a crop: the disc's centre in each patch (its
+    darkness-weighted centroid over the patch's samples) is where to_patch puts the centre, within 0.1 px of
+    the picture (OpenCV samples with pixel i's centre at i; mixing the two would leave 0.5 px)."""
+    n, r, (w, h) = 8, 5.0, (100, 80)
+    centres = np.array([[35.3, 41.6], [66.85, 39.2]])
+    s = (np.arange(n) + 0.5) / n
+    ys = (np.arange(h)[:, None] + s[None, :]).ravel()
+    xs = (np.arange(w)[:, None] + s[None, :]).ravel()
+    cover = np.zeros((h * n, w * n))
+    for c in centres:
+        cover += np.hypot(xs[None, :] - c[0], ys[:, None] - c[1]) <= r
+    img = np.rint(200.0 - 150.0 * cover.reshape(h, n, w, n).mean(axis=(1, 3))).astype(np.uint8)
+    origin = (7, 12)
+    crop = img[origin[1]:, origin[0]:]
+    sampler = IA.EyePatchSampler()
+    W, H = sampler.size
+    A = np.zeros((2, 2, 3))
+    for e, step in enumerate((0.9, 1.2)):  # px per sample; patch centred 1.3 px beside the disc
+        A[e, :, :2] = np.diag([step, step])
+        A[e, :, 2] = centres[e] + [1.3, -0.4] - step * np.array([(W - 1) / 2, (H - 1) / 2])
+    patches = sampler.sample(crop, origin, A)
+    assert patches is not None
+    label = IA.to_patch(centres[None], A[None])[0]
+    jj, ii = np.mgrid[0:H, 0:W].astype(float)
+    for e in range(2):
+        dark = np.clip(200.0 - patches[e].astype(float), 0, None)
+        got = np.array([(dark * ii).sum(), (dark * jj).sum()]) / dark.sum()
+        step = A[e, 0, 0]
+        assert np.all(np.abs(got - label[e]) * step < 0.1), (e, got, label[e])

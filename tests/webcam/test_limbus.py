@@ -63,9 +63,12 @@ def test_start_radius_is_kept_within_the_bounds():
 
 
 def _drawn_eye(centre, r, upper_px, lower_px, size=(90, 64)):
-    """Grey picture: skin, an eye opening between two straight lids, a dark iris disc (anti-aliased)."""
+    """Grey picture: skin, an eye opening between two straight lids, a dark iris disc (anti-aliased).
+
+    ``centre`` in aspectus's picture convention (aspectus.schema: pixel i spans [i, i + 1)): each pixel's
+    value is taken at its centre, i + 0.5."""
     w, h = size
-    yy, xx = np.mgrid[0:h, 0:w].astype(float)
+    yy, xx = np.mgrid[0:h, 0:w].astype(float) + 0.5
     d = np.hypot(xx - centre[0], yy - centre[1])
     iris = np.clip(r - d + 0.5, 0, 1)
     eye = 220.0 * (1 - iris) + 60.0 * iris  # sclera, iris
@@ -173,3 +176,35 @@ def test_degenerate_point_sets_do_not_raise():
     assert np.allclose(c[1], [0.0, 0.0], atol=1e-3) and rr[1] == pytest.approx(5.0, abs=1e-3)
     assert np.isnan(rms[0])  # no points: no residual
     assert np.allclose(c[2], [0.0, 0.0]) and np.isnan(rms[2])  # no usable coordinates: the start is kept
+
+
+def _supersampled_disc(centre, r, size=(64, 48), n=8):
+    """Grey picture of a dark disc on a bright ground, each pixel the mean of n x n samples at
+    ``(i + (k + 0.5) / n, j + (l + 0.5) / n)``: the disc's area in the pixel, with ``centre`` in aspectus's
+    picture convention (pixel i spans [i, i + 1); aspectus.schema), as a camera or the renderer forms it."""
+    w, h = size
+    s = (np.arange(n) + 0.5) / n
+    ys = (np.arange(h)[:, None] + s[None, :]).ravel()
+    xs = (np.arange(w)[:, None] + s[None, :]).ravel()
+    inside = np.hypot(xs[None, :] - centre[0], ys[:, None] - centre[1]) <= r
+    cover = inside.reshape(h, n, w, n).mean(axis=(1, 3))
+    return np.clip(np.rint(210.0 - 150.0 * cover), 0, 255).astype(np.uint8)
+
+
+@pytest.mark.parametrize("centre", [(31.3, 23.7), (32.0, 24.0), (30.5, 22.5), (32.81, 23.14)])
+def test_limbus_centre_of_a_disc_at_a_known_sub_pixel_centre(centre):
+    """A disc drawn by its area in each pixel at a known centre (aspectus.schema's picture convention, the face
+    mesh's and the renderer's) comes back from the limbus fit within 0.1 px of that centre: the fit's
+    positions are in the same convention as the mesh point it starts from. (Before the fit's region origin
+    was taken at its first pixel's centre, the centres came back 0.5 px up and left.)"""
+    centre, r = np.array(centre), 9.0
+    img = _supersampled_disc(centre, r)
+    pts = np.zeros((478, 3))
+    outline = np.array(RIGHT_EYE_OUTLINE)
+    a = np.linspace(0, 2 * np.pi, len(outline), endpoint=False)
+    pts[outline, 0] = centre[0] + 2.2 * r * np.cos(a)  # the lids' outline well outside the iris
+    pts[outline, 1] = centre[1] + 2.2 * r * np.sin(a)
+    iris_px = np.array([centre + [0.7, -0.6], [np.nan, np.nan]])  # the mesh point, off
+    out, fitted = limbus_centres(img, pts, iris_px, np.array([2.0 * r, np.nan]))
+    assert fitted[0]
+    assert np.all(np.abs(out[0] - centre) < 0.1), (out[0], centre)
