@@ -130,10 +130,10 @@ TRUE_IRIS = {"true_iris": {"iris_px": "truth"}}
 
 
 def true_iris_px(truth: pd.DataFrame) -> np.ndarray:
-    """(N, 2, 2) true iris centres (right, left) in OpenCV's pixel-centre convention (the truth file's pixel
-    i spans [i, i+1), so 0.5 px is taken off)."""
+    """(N, 2, 2) true iris centres (right, left), px: the truth file's picture convention (pixel i spans
+    [i, i+1)) is aspectus's (aspectus.schema), the one the pipeline's iris centres are in."""
     return np.stack([truth[["right_iris_x_px", "right_iris_y_px"]].to_numpy(float),
-                     truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy(float)], axis=1) - 0.5
+                     truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy(float)], axis=1)
 
 
 @contextmanager
