@@ -28,14 +28,16 @@ own accuracy plus the chain's systematic error measured independently on
 the same clip's truth (:func:`chain_systematic_error_deg`), and the check must
 come within 0.5 deg of that (held out, measured once on a hopper-face clip with another schedule: 1.36
 against 0.03 + 0.98; docs/notes/target-check.md). Against the eyes and noise alone (0.12 deg) the
-0.5 deg margin is not met: :func:`test_accuracy_against_the_eyes_alone` is a
-strict expected failure that turns into a failure the day the gaze chain
-meets it. Its reason holds the decomposition of the error per still dot on three dev clips
+0.5 deg margin was not met (a strict expected failure) until the limbus fit's centres were put in the face
+mesh's picture convention: since then :func:`test_accuracy_against_the_eyes_alone` passes on this clip
+(0.54 against 0.12) but the margin is not met on three dev clips (0.75 / 1.51 / 1.44; its docstring). The
+test's docstring holds the decomposition of the error per still dot on three dev clips
 (bench/bench_target_error.py; docs/notes/target-check.md, "The accuracy error decomposed per still dot"):
 the iris centres' picture error and the eyeball centres' motion with the eyes, in about equal shares; the
 eyeball model itself 0.08-0.09 deg; the analysis's windows, fit and reference not the cause. Re-measured
 2026-12-04 with the limbus iris scale: check 0.626 deg, eyes 0.026 + noise 0.091, chain 0.652, gains
-1.013 / 1.102.
+1.013 / 1.102; with the limbus fit in the mesh's picture convention: check 0.540, eyes 0.026 + noise 0.092,
+chain 0.521, gains 1.011 / 1.099.
 """
 from __future__ import annotations
 
@@ -82,7 +84,7 @@ def test_start_within_one_frame_and_accuracy_as_the_renderer_implies(good_clip):
     print(f"accuracy offset+gain {acc:.3f} deg; eyes + noise {eyes_noise:.3f} (eyes {ideal.summary['accuracy_offset_gain_deg']:.3f}"
           f" + noise {check.summary['accuracy_noise_floor_deg']:.3f}); gains {check.mapping.gain_yaw:.3f} / "
           f"{check.mapping.gain_pitch:.3f}; precision RMS-S2S {check.summary['precision_rms_s2s_deg']:.3f}")
-    assert acc < 1.0  # measured 0.62 (see the module docstring)
+    assert acc < 1.0  # measured 0.54 (0.62 before the picture convention fix; see the module docstring)
     assert acc < check.summary["accuracy_offset_deg"] + 0.05  # fitting the gain never makes the fitted dots worse
     # gain near the renderer's (the measurement's own gain was 0.93-1.00 on such clips, DEVELOPERS.md). Measured
     # yaw 1.01, pitch 1.10 with the metric scale from the limbus fit (GazeParams.iris_scale, the default; it
@@ -175,16 +177,20 @@ def test_accuracy_within_half_a_degree_of_the_implied(good_clip):
     assert abs(late.summary["accuracy_offset_gain_deg"] - implied) > 0.5
 
 
-@pytest.mark.xfail(strict=True, reason="issue 20's 0.5 deg margin over the eyes and noise alone is not met (this "
-                   "clip: check 0.62 deg against 0.12; dev clips 0.80 / 1.30 / 1.43 against 0.17-0.19). Decomposed "
-                   "with the check's own code on three dev clips (bench/bench_target_error.py, "
-                   "docs/notes/target-check.md): the true iris centres alone bring it to 0.48-0.87, the renderer's "
-                   "eyeball centres (placement kept, motion removed) alone to 0.41-0.79, both to 0.08-0.09 (the "
-                   "eyeball model itself); the window, the fit and the reference are not the cause")
 def test_accuracy_against_the_eyes_alone(good_clip):
+    """Issue 20's 0.5 deg margin over the eyes and noise alone. Met on this clip since the limbus fit's centres
+    are in the face mesh's picture convention (aspectus.schema): 0.54 deg against 0.026 + 0.092 (0.62 before,
+    a strict expected failure). Not met on three dev clips (bench/bench_target_error.py, after the same change):
+    0.75 / 1.51 / 1.44 deg against 0.14 / 0.19 / 0.16, so the floor is not met in general and this clip's 0.08 deg
+    of headroom is within the +-0.2 deg a half-pixel change moves such figures. Decomposed with the check's own
+    code on the dev clips (docs/notes/target-check.md): the iris centres' per-direction picture error and the
+    eyeball centres' motion with the eyes, in about equal shares; the window, the fit and the reference are
+    not the cause."""
     d, sched, res, truth, check = good_clip
     samples, eyes, chain = _implied(good_clip)
-    assert abs(check.summary["accuracy_offset_gain_deg"] - (eyes + check.summary["accuracy_noise_floor_deg"])) <= 0.5
+    acc, floor = check.summary["accuracy_offset_gain_deg"], check.summary["accuracy_noise_floor_deg"]
+    print(f"accuracy offset+gain {acc:.3f} deg; eyes {eyes:.3f} + noise floor {floor:.3f}; chain {chain:.3f}")
+    assert abs(acc - (eyes + floor)) <= 0.5
 
 
 def test_cross_correlation_finds_the_start_without_the_flash(good_clip):
