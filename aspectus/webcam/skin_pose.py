@@ -278,6 +278,10 @@ class SkinPose:
         if cut is None or X is None or not np.isfinite(X).all():
             return None
         P = self._plane_points.get(int(tid))
+        # The map takes the template's centre pixel index (C, OpenCV's convention) as a picture position
+        # (aspectus.schema's) and its output serves both as OpenCV sampling coordinates and, through the
+        # matched offset, as the anchor's position: consistent at the cut's pose; the half pixel only moves
+        # where the plane is evaluated (second order, docs/notes/gaze-measurement.md).
         if P is None:  # the template's centre and two pixels beside it on the model's local plane (head frame)
             C, Rc, tc = cut
             P = np.array([back_project(q, K, Rc, tc, X, self._normals[j])
