@@ -3,8 +3,9 @@
 Renders small classroom-like clips (640 x 480 H.264 CRF 28, lids that follow vertical gaze, lighting drift and
 gradient, head drift and rotation; the eyes follow the first seconds of hand-coded recordings of Andersson et
 al. 2017 that the gaze grid's tests do not use), runs the pipeline once per clip, keeps every frame's eye crop
-and landmarks, and measures each localiser's centre against the truth (``*_truth.csv``; its pixel-edge
-convention is moved by 0.5 px to OpenCV's pixel centres):
+and landmarks, and measures each localiser's centre against the truth (``*_truth.csv``, in aspectus's picture
+convention, pixel i spanning [i, i+1), as the face mesh and the limbus fit; the disc models work in OpenCV's pixel
+centres and are converted with aspectus.geometry):
 
 * ``gain``: one plus the slope of the error on the true eye-in-head angle times the expected picture motion
   per degree (10.5 mm iris-plane radius at the iris's own scale), sign-corrected so that 1 is right - the
@@ -30,6 +31,8 @@ import time
 from pathlib import Path
 
 import numpy as np
+
+from aspectus.geometry import from_opencv_px, to_opencv_px
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests"))
@@ -108,23 +111,23 @@ def localise(jobs):
         for e in range(2):
             start = est["limbus"][i, e] if np.isfinite(est["limbus"][i, e]).all() else est["mesh"][i, e]
             greys.append(g)
-            c0.append(start - off)
+            c0.append(to_opencv_px(start - off))  # the disc models: OpenCV's pixel centres
             radii.append(0.5 * diam[e] * 0.96)  # the mesh's iris reads 3-5 % large (gaze-measurement notes)
-            masks.append(eye_opening_mask(g.shape, P[_OUTLINES[e], :2]))
+            masks.append(eye_opening_mask(g.shape, to_opencv_px(P[_OUTLINES[e], :2])))
             where.append((i, e, off))
     for name, mk in (("disc", masks), ("disc_open", None)):
         t0 = time.process_time()
         c, _ = fit_iris_discs(greys, np.array(c0), np.array(radii), mk)
         cpu[name] = (time.process_time() - t0) / max(len(greys), 1) * 1e3
         for k, (i, e, off) in enumerate(where):
-            est[name][i, e] = c[k] + off
+            est[name][i, e] = from_opencv_px(c[k]) + off
     for name, lower in (("lids", True), ("upper_lid", False)):
         t0 = time.process_time()
         for k, (i, e, off) in enumerate(where):
-            P = lid_model_pixels(greys[k], jobs[i][1][_OUTLINES[e], :2], c0[k], radii[k])
+            P = lid_model_pixels(greys[k], to_opencv_px(jobs[i][1][_OUTLINES[e], :2]), c0[k], radii[k])
             th = None if P is None else fit_iris_with_lids(P, c0[k], radii[k], lower_lid_free=lower)
             if th is not None:
-                est[name][i, e] = th[:2] + off
+                est[name][i, e] = from_opencv_px(th[:2]) + off
         cpu[name] = (time.process_time() - t0) / max(len(greys), 1) * 1e3
     return est, cpu
 
@@ -132,7 +135,7 @@ def localise(jobs):
 def pixel_figures(est, truth):
     """[(eye, axis, gain, sd, fail)] of one localiser against the truth (module docstring)."""
     tp = np.stack([truth[["right_iris_x_px", "right_iris_y_px"]].to_numpy(),
-                   truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy()], axis=1) - 0.5
+                   truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy()], axis=1)
     px_deg = 10.5 * truth["iris_diameter_px"].to_numpy() / 11.7 * np.pi / 180.0
     open_ = truth["lid_closure"].to_numpy() < 0.2
     out = []
@@ -179,7 +182,7 @@ def main(argv=None) -> int:
             print(f"  {loc:9s} {cpu[loc] if loc in cpu else float('nan'):5.2f} ms/eye  " + "  ".join(
                 f"{eye}{axis} gain {g:4.2f} sd {sd:4.2f} fail {f:4.2f}" for eye, axis, g, sd, f in figs), flush=True)
         tp = np.stack([truth[["right_iris_x_px", "right_iris_y_px"]].to_numpy(),
-                       truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy()], axis=1) - 0.5
+                       truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy()], axis=1)
         for label, iris, over in (("pipeline", cap["iris_px"], {}), ("fused", cap["iris_px"], {"iris_combine": "fuse"}),
                                   ("true iris", tp, {})):
             m = gaze_with(cap, iris, samples, truth, trial, **over)
