@@ -572,12 +572,13 @@ def software_versions() -> dict:
 
 #: gaze precision tiers of the verdict: (tier, largest RMS-S2S noise in deg, smallest median iris diameter in px,
 #: the features that can be trusted there). Measured on the rendered grid (bench/bench_gaze_grid.py, README
-#: "Gaze precision"): at 1.5 deg and irises of 12 px or more the default detector's fixations agree with two
-#: expert coders at sample kappa 0.19-0.42 (the detector on the noise-free truth at 30 Hz: 0.54-0.63; measured
-#: after the events rework, 0.3-0.5 before it); at 1.5-3 deg (irises of 8.5-17 px) it is 0.06-0.38 and varies
-#: more from clip to clip than with the noise, while gaze r against the truth stays 0.41-0.98 (0.71-0.98 at
-#: CRF 28 or better), so direction shifts averaged over seconds survive but fixation counts and durations do
-#: not.
+#: "Gaze precision"; 2026-12-04, commit 66a999a, seed 0, default settings): at 1.5 deg and irises of 12 px or
+#: more (9 of 13 cells, noise 0.51-1.28 deg) the default detector's fixations agree with two expert coders at
+#: sample kappa 0.12-0.40 (the detector on the noise-free truth at 30 Hz: 0.54-0.63; kappa 0.5 needs about
+#: 0.7 deg RMS-S2S, docs/notes/lund-30hz-limits.md); in the coarse tier (4 cells: 8.5 px at 1.36 deg, 12-25 px
+#: at 1.74-2.18 deg) it is 0.17-0.41, no lower: it varies more from clip to clip than with the noise, while gaze
+#: r against the truth stays 0.32-0.995 (0.87-0.995 at CRF 28 or better), so direction shifts averaged over
+#: seconds survive but fixation counts and durations do not.
 PRECISION_TIERS = (
     ("events", 1.5, 12.0, ["fixation count and durations", "saccades", "where the gaze rests (dwell)",
                            "blink rate", "head movement", "data quality"]),
