@@ -129,11 +129,17 @@ VARIANTS = {"default": {}, "limbus": {"iris_combine": "limbus", "iris_px": "limb
 TRUE_IRIS = {"true_iris": {"iris_px": "truth"}}
 
 
-def true_iris_px(truth: pd.DataFrame) -> np.ndarray:
-    """(N, 2, 2) true iris centres (right, left), px: the truth file's picture convention (pixel i spans
-    [i, i+1)) is aspectus's (aspectus.schema), the one the pipeline's iris centres are in."""
-    return np.stack([truth[["right_iris_x_px", "right_iris_y_px"]].to_numpy(float),
-                     truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy(float)], axis=1)
+def true_iris_px(truth: pd.DataFrame, mirrored: bool = False) -> np.ndarray:
+    """(N, 2, 2) true iris centres in the pipeline's eye order, px: the truth file's picture convention (pixel i
+    spans [i, i+1)) is aspectus's (aspectus.schema), the one the pipeline's iris centres are in.
+
+    The pipeline's iris centres are in the face mesh's order (its right eye first), which on a ``mirrored``
+    picture is the subject's left eye (aspectus.webcam.gaze.unmirror); the truth names the subject's eyes (the
+    renderer's ``mirror``: the subject's right iris then lies on the picture's right side). So on a mirrored
+    clip the truth's left eye comes first."""
+    right = truth[["right_iris_x_px", "right_iris_y_px"]].to_numpy(float)
+    left = truth[["left_iris_x_px", "left_iris_y_px"]].to_numpy(float)
+    return np.stack([left, right] if mirrored else [right, left], axis=1)
 
 
 @contextmanager
@@ -218,7 +224,7 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
             kw = {k: v for k, v in captured.items() if k != "params"}
             src = over.pop("iris_px", None)
             if src == "truth":
-                kw["iris_px"] = true_iris_px(res.truth)
+                kw["iris_px"] = true_iris_px(res.truth, mirrored=cond.mirror)
             elif src == "limbus" and limbus_iris is not None:
                 kw["iris_px"] = limbus_iris
             s = with_gaze(samples, **kw, params=GazeParams(mirrored=cond.mirror, **(pipeline_gaze or {}) | over))
