@@ -223,7 +223,8 @@ def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None
     # position + origin, with origin the picture position of that pixel's centre (aspectus.schema's convention)
     origin = from_opencv_px([x0, y0])
     mask = np.zeros(g.shape, np.uint8)
-    cv2.fillPoly(mask, [np.round(points_px[outline, :2] - origin).astype(np.int32)], 1)
+    # the outline at 1/16 px (fillPoly's fixed-point vertices), not rounded to whole pixels
+    cv2.fillPoly(mask, [np.round((points_px[outline, :2] - origin) * 16).astype(np.int32)], 1, cv2.LINE_8, 4)
     dist = cv2.distanceTransform(mask, cv2.DIST_L2, 3)
     radii = np.linspace(0.6 * r, 1.5 * r, max(12, int(np.ceil(1.8 * r))))
     return _Eye(frame, e, origin, c0 - origin, r, g, dist, radii)
