@@ -368,6 +368,15 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
           "As the previous choice, but a point beside an eye is left out while the head is turned away from it "
           "(by more than about 12°)."))),
     GazeChoice(
+        "iris_scale", "Iris size from",
+        "The iris's size in the picture sets the scale of every gaze angle (an iris is about 11.7 mm across).",
+        (("limbus", "circle fit to the iris edge (default)",
+          "The face tracker's iris size, brought to the level of the circle fits over the clip. In our tests the "
+          "face tracker read the iris 1-9 % too large, which made every angle that much too small."),
+         ("mesh", "the face tracker",
+          "The face tracker's own iris size in every frame. For comparisons with results made before the circle "
+          "fit's size was used."))),
+    GazeChoice(
         "mirrored", "The clips show the student",
         "Whether the recording is a mirror image (as webcam software often shows and records the picture).",
         ((False, "as the camera saw them (default)",
