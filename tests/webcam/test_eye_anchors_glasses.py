@@ -1,0 +1,56 @@
+"""The eye anchors on a face with spectacles: a rim crossing a template must not drag the head translation.
+
+The anchors (aspectus.webcam.eye_anchors) follow skin below and beside the eyes by template matching; on a face
+with glasses the rendered rims (aspectus.synth.frame, 24 mm in front of the eyeball centres, some 10 mm in front
+of that skin) cross those templates, and a plain normalised correlation follows the dark rim, which slides over
+the skin by parallax as the head turns: on a 16.3 px dev clip the anchors' offsets from the mesh moved with head
+yaw by 0.2-0.5 px/deg more than without glasses, and gaze yaw r fell from 0.986 to 0.810
+(docs/notes/gaze-measurement.md). The check is against the renderer's truth (its gaze angles).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import _gaze_grid as G
+
+
+def _patch(line_contrast: float, across: bool = True, size: int = 41) -> np.ndarray:
+    """A skin-like grey patch (level 180, fine texture) with a 3-px dark line, ``line_contrast`` of the level."""
+    rng = np.random.default_rng(0)
+    img = 180.0 + 4.0 * rng.standard_normal((size, size))
+    y = size // 2 + 6
+    x0 = 0 if across else size // 2 - 2
+    img[y - 1:y + 2, x0:] -= line_contrast * 180.0
+    return np.clip(img, 0, 255).astype(np.uint8)
+
+
+def test_a_dark_rim_across_the_template_is_masked_a_fold_is_not():
+    from aspectus.webcam import eye_anchors as EA
+
+    r = 8.0
+    half = int(round(EA.PATCH_RADII * r))
+    c = 41 // 2
+    # a rim (80 % darker than the skin, as the rendered rims read: 0.78-1.30 of the median grey) crossing it
+    mask = EA._skin_mask(_patch(0.8), c, c, half, r)
+    assert mask is not None and mask.shape == (2 * half + 1, 2 * half + 1)
+    assert 0 < (~mask).sum() < mask.size  # the line and its margin left out, the rest read
+    assert mask[0].all()
+    # a fold 40 % darker (the darkest lines crossing a template without glasses read 0.50-0.57) and a short dark
+    # mark that does not cross the template (an eye's corner) leave the plain match
+    assert EA._skin_mask(_patch(0.4), c, c, half, r) is None
+    assert EA._skin_mask(_patch(0.8, across=False), c, c, half, r) is None
+
+
+@pytest.mark.slow
+def test_glasses_clip_yaw_follows_the_truth(lund_dir, tmp_path):
+    # the dev clip the rule was worked out on ("a16g" in the notes; not a grid cell): 1280 x 720 at 800 mm (iris
+    # 16.3 px), CRF 28, lids following, lighting drift, head drift and turns, spectacles, mirrored picture
+    cond = G.Condition("glasses", size_px=(1280, 720), distance_mm=800.0, glasses=True, mirror=True,
+                       face="astronaut", trial="TH34_img_Europe", duration_s=6.0, seed=11)
+    row = G.run_condition(cond, tmp_path, lund_dir, variants={"default": {}})[0]
+    # measured: yaw r 0.810 before the rim rule, 0.966 with it (0.986 on the same clip without glasses).
+    # Issue 15's floor (|r| >= 0.95 with gain 0.85-1.15) is met here (gain 1.02) but not on every glasses clip
+    # (the grid's glasses cell and a held-out 16 px clip read 0.94 or less; notes).
+    assert row["yaw_r"] >= 0.93
+    assert 0.85 <= row["yaw_gain"] <= 1.15
