@@ -18,6 +18,7 @@ rendered truth's median iris diameter, ``iris_px_measured`` the face mesh's (wha
     python bench/bench_gaze_grid.py --quick         # four cells
     python bench/bench_gaze_grid.py --csv grid.csv  # also write the rows
     python bench/bench_gaze_grid.py --appearance    # also --gaze iris_combine=appearance (a second run per cell)
+    python bench/bench_gaze_grid.py --quick --gaze head_rotation=skin   # every row with these gaze settings
 """
 from __future__ import annotations
 
@@ -80,7 +81,17 @@ def main(argv=None) -> int:
     ap.add_argument("--appearance", action="store_true",
                     help="also the setting iris_combine=appearance (a second pipeline run per cell: its patches are "
                          "read in the per-frame geometry)")
+    ap.add_argument("--gaze", action="append", default=[], metavar="NAME=VALUE",
+                    help="a gaze setting (aspectus.webcam.gaze.GazeParams) for every row, e.g. head_rotation=skin; "
+                         "may be given more than once")
     args = ap.parse_args(argv)
+    gaze = {}
+    for item in args.gaze:
+        name, sep, value = item.partition("=")
+        if not sep:
+            print(f"--gaze {item!r}: expected NAME=VALUE", file=sys.stderr)
+            return 2
+        gaze[name] = {"true": True, "false": False}.get(value.lower(), value)
     if not LUND.is_dir():
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
         return 2
@@ -91,10 +102,10 @@ def main(argv=None) -> int:
     print(head, flush=True)
     for cond in grid(args.quick, args.seed):
         t0 = time.perf_counter()
-        cell = G.run_condition(cond, out_dir, LUND)
+        cell = G.run_condition(cond, out_dir, LUND, pipeline_gaze=gaze or None)
         if args.appearance:
             cell += G.run_condition(cond, out_dir, LUND, variants={"appear": {}},
-                                    pipeline_gaze={"iris_combine": "appearance"})
+                                    pipeline_gaze=gaze | {"iris_combine": "appearance"})
         for row in cell:
             rows.append(row)
             print(f"{row['label'][:56]:56s} " + " ".join(f"{fmt.format(row[c]):>11s}" for c, fmt in COLUMNS),

@@ -13,17 +13,30 @@ on gaze computed from mixes of measured and true inputs, so every figure is the 
 * ``true iris + centres``: both; what is left is the eyeball model's constant placement against the renderer's
   eye (c: the model's own non-linearity with the true inputs);
 * ``renderer``: true iris and the renderer's own eyeball centres (a check of this script: about 0);
-* ``right`` / ``left``: each eye alone (the pipeline's per-eye columns) against both averaged (d).
+* ``right`` / ``left``: each eye alone (the pipeline's per-eye columns) against both averaged (d);
+* ``centres: common x/y/z still``, ``centres: difference x/y/z still``: the estimator's eyeball centres with one
+  part of their motion (against the renderer's, after the clip's median) removed - the part both eyes share
+  (the head origin's sideways, vertical, depth motion), or the part that differs between them (a roll turns
+  the line between the centres: one rises as the other falls) - which part of (b) reaches the binocular gaze.
 
 Printed per clip: the check's accuracy after offset and after offset+gain for each, the eyes alone on the
 renderer's gaze and the noise floor (the check's "implied" reference), the iris centre's picture error per eye
 (median bias, x/y, and SD of the per-dot medians), the eyeball centres' error (mm, per-dot medians' SD) and the
-per-dot errors of every variant. The face mesh runs once per clip (``TARGET_BENCH_CACHE=DIR`` keeps it);
-``TARGET_BENCH_ROTATION=skin`` takes the head rotation from skin points (``--gaze head_rotation=skin``).
+per-dot errors of every variant, and the head rotation's per-dot figures (``head_rotation_per_10deg``: deg of
+head yaw, pitch, roll per 10 deg of true gaze yaw (first row) and pitch (second), least squares over the dots'
+medians; ``head_rotation_sd_between_dots``). The face mesh runs once per clip (``TARGET_BENCH_CACHE=DIR`` keeps
+it); ``TARGET_BENCH_ROTATION=skin`` takes the head rotation from skin points (``--gaze head_rotation=skin``);
+``TARGET_BENCH_PNP_POINTS=NAME`` solves the face mesh's PnP on a subset of its rigid points (:data:`PNP_SUBSETS`:
+the points' picture motion with the gaze measured on a-c, ``python bench/bench_target_error.py --points``);
+``TARGET_BENCH_ROTATION=still`` replaces the face mesh's PnP rotation in every frame by its mean over the clip
+(the rendered head is still, so this is the true rotation up to a constant; the translation is still fitted to
+the eye anchors under it): what is left of (b) then comes from the anchors.
 
     python bench/bench_target_error.py                 # the dev clips: a (astronaut, schedule 7, render 4),
                                                        # b (hopper, schedule 11, render 5), c (astronaut, 12 / 6)
     python bench/bench_target_error.py a
+    python bench/bench_target_error.py d e             # the held-out clips: d (hopper, 17 / 13), e (astronaut, 19 / 14)
+    python bench/bench_target_error.py --points a b c  # the rigid points' picture motion with the gaze
 
 Not the test clip (tests/targets/test_rendered_targets.py: schedule seed 1, render seed 2).
 """
@@ -42,8 +55,61 @@ import pandas as pd
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "bench"))
 
-#: dev target clips: (face, schedule seed, render seed); 8 still dots of 1.2 s, no sweep, 1280x720, head still
-CLIPS = {"a": ("astronaut", 7, 4), "b": ("hopper", 11, 5), "c": ("astronaut", 12, 6)}
+#: target clips: (face, schedule seed, render seed); 8 still dots of 1.2 s, no sweep, 1280x720, head still;
+#: a-c the dev clips, d and e held out (measured only to check what was chosen on a-c)
+CLIPS = {"a": ("astronaut", 7, 4), "b": ("hopper", 11, 5), "c": ("astronaut", 12, 6),
+         "d": ("hopper", 17, 13), "e": ("astronaut", 19, 14)}
+
+
+#: subsets of :data:`aspectus.webcam.headpose.RIGID_POINTS` for ``TARGET_BENCH_PNP_POINTS``: the cheeks below the
+#: cheekbones (the rigid points whose picture position moved least with the gaze on a-c), with the nose's
+#: sides and bridge, with the whole nose; the rigid points without the forehead, without the sides of the face
+PNP_SUBSETS = {"cheeks": (205, 425, 50, 280, 36, 266, 101, 330),
+               "cheeks+alar": (205, 425, 50, 280, 36, 266, 101, 330, 129, 358, 98, 327, 64, 294, 48, 278, 197, 195),
+               "cheeks+nose": (205, 425, 50, 280, 36, 266, 101, 330, 1, 2, 4, 5, 19, 94, 195, 197, 98, 327, 129, 358,
+                               64, 294, 48, 278),
+               "no-forehead": "forehead", "no-sides": "sides"}
+
+
+def pnp_points():
+    """The rigid points the PnP is solved on (``TARGET_BENCH_PNP_POINTS``; the pipeline's by default)."""
+    from aspectus.webcam.headpose import RIGID_POINTS
+
+    name = os.environ.get("TARGET_BENCH_PNP_POINTS")
+    if not name:
+        return RIGID_POINTS
+    sub = PNP_SUBSETS[name]
+    if sub == "forehead":
+        return tuple(p for p in RIGID_POINTS if p not in RIGID_POINTS[:11])
+    if sub == "sides":
+        return tuple(p for p in RIGID_POINTS if p not in (127, 356, 234, 454, 93, 323, 132, 361))
+    return sub
+
+
+def point_motion(names) -> list[str]:
+    """Per rigid point, its picture motion with the true gaze on the still-head clips: px per 10 deg of gaze
+    yaw and pitch (x, y), least squares over the dots' medians of the face mesh's points; one line per point."""
+    from aspectus.webcam.headpose import RIGID_POINTS
+
+    lines = ["point  " + "  ".join(f"{n}: dx/yaw dy/yaw dx/pitch dy/pitch" for n in names)]
+    coef = {}
+    for n in names:
+        clip, _frs, obs = load(n)
+        tr = clip["truth"]
+        t = tr["t_s"].to_numpy() - tr["t_s"].to_numpy()[0]
+        P = np.full((len(obs), 478, 2), np.nan)
+        for i, (o, _) in enumerate(obs):
+            if o is not None:
+                P[i] = o.points_px[:, :2]
+        ok = np.isfinite(P[:, 0, 0]) & ~tr["blink"].to_numpy(bool)
+        g = per_dot(tr[["yaw_deg", "pitch_deg"]].to_numpy(float), t, clip["schedule"], clip["start_s"], ok)
+        D = per_dot(P.reshape(len(P), -1), t, clip["schedule"], clip["start_s"], ok)
+        c = np.linalg.lstsq(g - g.mean(axis=0), D - D.mean(axis=0), rcond=None)[0]
+        coef[n] = 10 * c.reshape(2, 478, 2)
+    for j in RIGID_POINTS:
+        lines.append(f"{j:5d}  " + "  ".join(" ".join(f"{coef[n][a, j, b]:+6.2f}" for a in range(2) for b in range(2))
+                                            for n in names))
+    return lines
 
 
 def render(name: str, d: Path) -> dict:
@@ -153,14 +219,46 @@ def per_dot(values, t, sched, start_s, ok, settle_s=0.5):
     return np.asarray(out)
 
 
+def still_geometry(frs, obs):
+    """The per-frame geometry with the face mesh's PnP rotation replaced by its mean over the clip (the
+    translation fitted to the eye anchors under that rotation, as the pipeline does under the PnP's)."""
+    from bench_skin_pose import geometry
+    from scipy.spatial.transform import Rotation
+
+    import aspectus.webcam.headpose as H
+
+    kw, _, _ = geometry(frs, obs, "mesh")
+    R0 = Rotation.from_matrix(kw["R"][kw["found"]]).mean().as_matrix()
+    orig = H.HeadPoseSolver.solve
+
+    def solve(self, points_px):
+        pose = orig(self, points_px)
+        return None if pose is None else (R0.copy(), pose[1])
+
+    H.HeadPoseSolver.solve = solve
+    try:
+        return geometry(frs, obs, "mesh")
+    finally:
+        H.HeadPoseSolver.solve = orig
+
+
 def measure(name: str) -> dict:
     from bench_skin_pose import geometry, samples_from  # noqa: F401 - geometry as the pipeline builds it
 
     from aspectus.targets.analysis import check_samples
+    from aspectus.webcam.gaze import smooth_pose
+    from aspectus.webcam.headpose import pose_angles
 
     clip, frs, obs = load(name)
     truth, sched, start = clip["truth"], clip["schedule"], clip["start_s"]
-    kw, _cpu, _st = geometry(frs, obs, os.environ.get("TARGET_BENCH_ROTATION", "mesh"))
+    import aspectus.webcam.headpose as H
+
+    rotation = os.environ.get("TARGET_BENCH_ROTATION", "mesh")
+    rigid, H.RIGID_POINTS = H.RIGID_POINTS, pnp_points()
+    try:
+        kw, _cpu, _st = still_geometry(frs, obs) if rotation == "still" else geometry(frs, obs, rotation)
+    finally:
+        H.RIGID_POINTS = rigid
     K = kw["K"]
     cols, info, iris_est, C_est = run_chain(kw)
     t = kw["t_s"] - kw["t_s"][0]
@@ -184,8 +282,16 @@ def measure(name: str) -> dict:
         "true iris + centres": gaze_from(iris_true, C_const, K),
         "renderer": gaze_from(iris_true, C_true, K),
     }
-    out = {"clip": name, "face": clip["face"], "seeds": CLIPS[name][1:],
-           "head_rotation": os.environ.get("TARGET_BENCH_ROTATION", "mesh")}
+    err = C_est - C_const
+    for ax, a in (("x", 0), ("y", 1), ("z", 2)):
+        common = np.zeros_like(err)
+        common[:, :, a] = err[:, :, a].mean(axis=1, keepdims=True)
+        diff = np.zeros_like(err)
+        diff[:, :, a] = err[:, :, a] - common[:, :, a]
+        variants[f"centres: common {ax} still"] = gaze_from(iris_est, C_est - common, K)
+        variants[f"centres: difference {ax} still"] = gaze_from(iris_est, C_est - diff, K)
+    out = {"clip": name, "face": clip["face"], "seeds": CLIPS[name][1:], "head_rotation": rotation,
+           "pnp_points": os.environ.get("TARGET_BENCH_PNP_POINTS", "all rigid")}
     y0, p0 = angles(g_chain)
     out["recomputed_vs_pipeline_max_deg"] = float(np.nanmax(np.abs(np.r_[y0 - cols["yaw_deg"], p0 - cols["pitch_deg"]][
         np.r_[valid, valid]])))
@@ -214,10 +320,20 @@ def measure(name: str) -> dict:
     out["per_dot_offset_gain_deg"] = {k: np.round(v, 2).tolist() for k, v in rows.items()}
     tt = per_dot(truth[["yaw_deg", "pitch_deg"]].to_numpy(float), t, sched, start, valid)
     out["per_dot_true_yaw_pitch"] = np.round(tt, 1).tolist()
+    # the head rotation (smoothed as the estimate smooths it) per dot against the true gaze: the head is still
+    R_s, _ = smooth_pose(kw["R"], kw["t"], kw["found"], kw["t_s"], kw["params"].head_smooth_ms)
+    ang = per_dot(np.stack(pose_angles(R_s), axis=1), t, sched, start, valid)
+    ang -= ang.mean(axis=0)
+    slope = np.linalg.lstsq(tt - tt.mean(axis=0), ang, rcond=None)[0]
+    out["head_rotation_per_10deg"] = np.round(10 * slope, 3).tolist()
+    out["head_rotation_sd_between_dots"] = np.round(ang.std(axis=0), 3).tolist()
     return out
 
 
 def main(argv) -> int:
+    if argv[:1] == ["--points"]:
+        print("\n".join(point_motion(argv[1:] or ["a", "b", "c"])))
+        return 0
     names = argv or list(CLIPS)
     for n in names:
         if n not in CLIPS:
