@@ -26,6 +26,8 @@ per-dot errors of every variant, and the head rotation's per-dot figures (``head
 head yaw, pitch, roll per 10 deg of true gaze yaw (first row) and pitch (second), least squares over the dots'
 medians; ``head_rotation_sd_between_dots``). The face mesh runs once per clip (``TARGET_BENCH_CACHE=DIR`` keeps
 it); ``TARGET_BENCH_ROTATION=skin`` takes the head rotation from skin points (``--gaze head_rotation=skin``);
+``TARGET_BENCH_ANCHORS=SET`` places the head by another eye-anchor set (a key of
+:data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`; the pipeline's default for these faces is ``below``);
 ``TARGET_BENCH_PNP_POINTS=NAME`` solves the face mesh's PnP on a subset of its rigid points (:data:`PNP_SUBSETS`:
 the points' picture motion with the gaze measured on a-c, ``python bench/bench_target_error.py --points``);
 ``TARGET_BENCH_ROTATION=still`` replaces the face mesh's PnP rotation in every frame by its mean over the clip
@@ -254,11 +256,20 @@ def measure(name: str) -> dict:
     import aspectus.webcam.headpose as H
 
     rotation = os.environ.get("TARGET_BENCH_ROTATION", "mesh")
+    import aspectus.webcam.frame_geometry as FG
+
     rigid, H.RIGID_POINTS = H.RIGID_POINTS, pnp_points()
+    anchors = os.environ.get("TARGET_BENCH_ANCHORS")
+    init = FG.FrameGeometry.__init__
+    if anchors:
+        def with_anchors(self, *a, **k):
+            init(self, *a, **(k | {"anchor_set": anchors}))
+        FG.FrameGeometry.__init__ = with_anchors
     try:
         kw, _cpu, _st = still_geometry(frs, obs) if rotation == "still" else geometry(frs, obs, rotation)
     finally:
         H.RIGID_POINTS = rigid
+        FG.FrameGeometry.__init__ = init
     K = kw["K"]
     cols, info, iris_est, C_est = run_chain(kw)
     t = kw["t_s"] - kw["t_s"][0]
@@ -291,7 +302,7 @@ def measure(name: str) -> dict:
         variants[f"centres: common {ax} still"] = gaze_from(iris_est, C_est - common, K)
         variants[f"centres: difference {ax} still"] = gaze_from(iris_est, C_est - diff, K)
     out = {"clip": name, "face": clip["face"], "seeds": CLIPS[name][1:], "head_rotation": rotation,
-           "pnp_points": os.environ.get("TARGET_BENCH_PNP_POINTS", "all rigid")}
+           "pnp_points": os.environ.get("TARGET_BENCH_PNP_POINTS", "all rigid"), "anchors": anchors or "below"}
     y0, p0 = angles(g_chain)
     out["recomputed_vs_pipeline_max_deg"] = float(np.nanmax(np.abs(np.r_[y0 - cols["yaw_deg"], p0 - cols["pitch_deg"]][
         np.r_[valid, valid]])))
