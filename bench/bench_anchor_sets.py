@@ -8,7 +8,11 @@ the per-frame geometry is run again on the captured eye crops and landmarks once
 tests/_gaze_grid.py are measured: RMS-S2S, yaw / pitch r and gain, kappa against the hand-coders; then the same
 with the renderer's true iris centres, and the error of the head origin's picture position (sideways / vertical
 SD, mm at the true depth, after the clip's median: bench/bench_head_translation.py), which places the eyeball
-centres.
+centres, and the per-frame geometry's CPU time (process_time per frame, the whole geometry: limbus fit, anchors,
+eye patches; the sets differ only in the placement) and the placement's own part (the anchors' matching, the
+region's registration). The eye crops are cut to cover every set's points.
+(``--from``: bench_iris_appearance.py's clips were cut for the default sets only; the sets with points further out,
+``below_low_cheeks_and_beside`` and ``skin_region``, need clips processed here.)
 
     python bench/bench_anchor_sets.py --cache DIR       # sixteen 10-s clips; processed clips kept in DIR
     python bench/bench_anchor_sets.py --cache DIR --from /tmp/appear   # reuse bench_iris_appearance's cache
@@ -19,6 +23,7 @@ import argparse
 import pickle
 import sys
 import tempfile
+import time
 from pathlib import Path
 
 import numpy as np
@@ -58,7 +63,17 @@ def processed(name, spec, seconds, cache: Path | None, reuse: Path | None, out_d
     kw = {"head_motion": dict(motion[0])} if motion else {}
     cond = G.Condition(name, size_px=size, distance_mm=dist, trial=trial, face=face, seed=seed, duration_s=seconds,
                        **kw)
-    items, cap, samples, truth, tr = capture(cond, out_dir)
+    from aspectus.webcam import frame_geometry as FG
+    from aspectus.webcam.eye_anchors import ANCHOR_POINTS
+
+    # the eye crops cover the points of every set (the pipeline's cover only the sets its setting may use); the
+    # default chain's own figures do not depend on it (its templates and fits lie well inside either crop)
+    orig = FG._crop_points
+    FG._crop_points = lambda anchor_set, skin_pose: np.array(FG._IRIS_CROP_POINTS + ANCHOR_POINTS)
+    try:
+        items, cap, samples, truth, tr = capture(cond, out_dir)
+    finally:
+        FG._crop_points = orig
     d = {"cond": cond, "items": items, "cap": cap, "samples": samples, "truth": truth, "trial": tr}
     if cache is not None:
         with open(cache / f"{name}_{seconds:.0f}s.pkl", "wb") as fh:
@@ -76,7 +91,29 @@ def chain(items, anchor_set: str) -> tuple[dict, dict]:
 
     geo = FrameGeometry(fov_deg=60.0, refine_iris=True, eye_anchors=True, anchor_set=anchor_set, appearance=True,
                         appearance_below_px=AUTO_APPEARANCE_BELOW_PX)
-    rows = np.vstack([geo.rows(items[i:i + 8]) for i in range(0, len(items), 8)])
+    from aspectus.webcam.eye_anchors import EyeAnchorTracker
+    from aspectus.webcam.skin_region import SkinRegionTracker
+
+    spent = [0.0]  # the placement's own CPU time: the anchors' matching and the region's registration
+
+    def timed(f):
+        def g(*a, **k):
+            c = time.process_time()
+            try:
+                return f(*a, **k)
+            finally:
+                spent[0] += time.process_time() - c
+        return g
+
+    originals = EyeAnchorTracker.update, SkinRegionTracker.update
+    EyeAnchorTracker.update, SkinRegionTracker.update = timed(originals[0]), timed(originals[1])
+    c0 = time.process_time()
+    try:
+        rows = np.vstack([geo.rows(items[i:i + 8]) for i in range(0, len(items), 8)])
+    finally:
+        EyeAnchorTracker.update, SkinRegionTracker.update = originals
+    cpu_ms = 1e3 * (time.process_time() - c0) / max(1, len(items))
+    placement_ms = 1e3 * spent[0] / max(1, len(items))
     w = RECORD_WIDTH + sum(k for nm, k in APPEARANCE_COLUMNS if nm != "patches")
     a = rows[:, :w]
     n = len(a)
@@ -95,7 +132,8 @@ def chain(items, anchor_set: str) -> tuple[dict, dict]:
     kw = {"K": np.asarray(geo.state()["K"]), "found": found, "R": R, "t": t, "iris_px": iris,
           "iris_diam_px": a[:, 19:21], "corners_px": a[:, 21:29].reshape(n, 2, 2, 2), "ear": a[:, 29:31],
           "t_s": a[:, 0], "iris_mesh_px": a[:, 31:35].reshape(n, 2, 2), "limbus_diam_px": a[:, LIMBUS_DIAM]}
-    return kw, {"used": used, "median_iris_px": med}
+    return kw, {"used": used, "median_iris_px": med, "geometry_ms_per_frame": cpu_ms,
+                "placement_ms_per_frame": placement_ms}
 
 
 def figures(kw, samples, truth, trial, true_iris: bool = False) -> dict:
@@ -146,6 +184,8 @@ def main(argv=None) -> int:
                 print(f"  {s:24s} {label:9s} rms_s2s {m['rms_s2s_deg']:4.2f}  yaw r {m['yaw_r']:5.3f} gain "
                       f"{m['yaw_gain']:4.2f}  pitch r {m['pitch_r']:5.3f} gain {m['pitch_gain']:4.2f}  kappa "
                       f"{m['kappa']:5.2f}" + (f"  head x/y SD {sd[0]:.2f}/{sd[1]:.2f} mm  iris {est['used']}"
+                                              + f"  geometry {est['geometry_ms_per_frame']:.2f} ms/frame, of it "
+                                                f"placement {est['placement_ms_per_frame']:.2f}"
                                               if not true_iris else ""), flush=True)
     return 0
 

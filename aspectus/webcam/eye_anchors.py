@@ -60,11 +60,27 @@ from aspectus._env import import_cv2
 #: only (:data:`AUTO_SMALL_FACE_SET`).
 #: ``"below_and_facing_beside"``: the same points, but in each frame a point beside an eye is left out of the
 #: translation's refit while the head is turned away from it by more than :func:`turn_away_limits_deg`.
+#: ``"below_low_cheeks_and_beside"``: the points of ``"below_and_beside"`` and four on the cheeks a little further
+#: from the lower lids (117 and 118, 346 and 347: 14-16 mm below the eyeball centres, 8-13 mm in front of them).
+#: ``"skin_region"``: not points followed one by one but one masked region of skin spanned by these points (below,
+#: cheeks, beside the eyes, nose bridge 6, 168, 197), registered to a key frame in its shift
+#: (:mod:`aspectus.webcam.skin_region`). Both measured at classroom scale against ``"below_and_beside"`` and left
+#: as options (neither won on a clear majority of held-out dev clips; docs/notes/gaze-measurement.md).
+#: Whatever the set, the tracker follows the six points below the eyes first (the eye patches' frames are placed by
+#: them), then the set's other points; only the set's own points enter the refit.
 #: (``GazeParams.eye_anchor_set`` also takes ``"auto"``: :data:`AUTO_SMALL_FACE_SET` on a small face, ``"below"``
 #: otherwise; :data:`ANCHOR_SET_CHOICES`.)
 ANCHOR_SETS = {"below": (229, 230, 231, 449, 450, 451),
                "below_and_beside": (229, 230, 231, 449, 450, 451, 226, 35, 446, 265),
-               "below_and_facing_beside": (229, 230, 231, 449, 450, 451, 226, 35, 446, 265)}
+               "below_and_facing_beside": (229, 230, 231, 449, 450, 451, 226, 35, 446, 265),
+               "below_low_cheeks_and_beside": (229, 230, 231, 449, 450, 451, 117, 118, 346, 347, 226, 35, 446, 265),
+               "skin_region": (229, 230, 231, 449, 450, 451, 117, 118, 119, 346, 347, 348, 226, 35, 446, 265,
+                               6, 168, 197)}
+#: the sets with points further from the eyes than the others': the eye crop covers them only when they are chosen
+#: (:func:`aspectus.webcam.frame_geometry.eye_crop_box`), so the other settings read the same crop as before
+WIDE_SETS = ("below_low_cheeks_and_beside", "skin_region")
+#: the sets followed as one masked region of skin (:mod:`aspectus.webcam.skin_region`), not point by point
+REGION_SETS = ("skin_region",)
 #: the sets whose points beside the eyes are left out while the head is turned away from them
 TURN_LIMITED_SETS = ("below_and_facing_beside",)
 #: the points beside the eyes (the rest of every set lies below the eyes and is always used)

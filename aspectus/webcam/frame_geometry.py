@@ -15,6 +15,7 @@ processes that cannot start a child use a thread (:class:`GeometryThread`). Both
 """
 from __future__ import annotations
 
+import functools
 import os
 import pickle
 import queue
@@ -25,8 +26,8 @@ from pathlib import Path
 
 import numpy as np
 
-from aspectus.webcam.eye_anchors import (ANCHOR_POINTS, ANCHOR_SET_CHOICES, ANCHOR_SETS, AUTO_SMALL_FACE_SET,
-                                         DEFAULT_ANCHOR_SET, MIN_ANCHOR_RADIUS_PX, TURN_LIMITED_SETS,
+from aspectus.webcam.eye_anchors import (ANCHOR_SET_CHOICES, ANCHOR_SETS, AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET,
+                                         MIN_ANCHOR_RADIUS_PX, REGION_SETS, TURN_LIMITED_SETS, WIDE_SETS,
                                          EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
                                          translation_given_rotation, turn_away_limits_deg)
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, frame_measurements
@@ -35,6 +36,7 @@ from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
 from aspectus.webcam.limbus import ROI_RADII, limbus_centres_many
 from aspectus.webcam.skin_pose import SKIN_POSE_POINTS, SkinPose
+from aspectus.webcam.skin_region import SkinRegionTracker
 
 #: columns of one row of the per-frame record (the width of each block in brackets)
 RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_mm", 3), ("iris_px", 4),
@@ -64,14 +66,29 @@ PROCESS_MIN_FRAMES = 450
 
 #: landmarks the eye crop is placed by: both iris centres, the horizontal ends of both iris outlines
 #: (the diameters as :func:`aspectus.webcam.gaze.frame_measurements` measures them), then the eye anchors
-_CROP_POINTS = np.array([RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE, RIGHT_IRIS_RING[0], RIGHT_IRIS_RING[2],
-                         LEFT_IRIS_RING[0], LEFT_IRIS_RING[2], *ANCHOR_POINTS])
-#: the same with the skin points the head rotation is followed by (:mod:`aspectus.webcam.skin_pose`)
-_CROP_POINTS_SKIN = np.array([*_CROP_POINTS, *(p for p in SKIN_POSE_POINTS if p not in ANCHOR_POINTS)])
+_IRIS_CROP_POINTS = (RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE, RIGHT_IRIS_RING[0], RIGHT_IRIS_RING[2],
+                     LEFT_IRIS_RING[0], LEFT_IRIS_RING[2])
 
 
-def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int], *,
-                 skin_pose: bool = False) -> tuple[int, int, int, int] | None:
+@functools.lru_cache(maxsize=16)
+def _crop_points(anchor_set: str | None, skin_pose: bool) -> np.ndarray:
+    """The landmarks the eye crop covers: the iris points, then the skin points of every anchor set but those
+    further out (:data:`aspectus.webcam.eye_anchors.WIDE_SETS`), those only when ``anchor_set`` is one of them (or
+    ``"auto"`` takes one for a small face), and, with ``skin_pose``, the skin points the head rotation is followed
+    by. (One crop for the other settings: the same pixels, so ``"auto"`` gives what its set gives alone, bit for
+    bit.)"""
+    sets = [name for name in ANCHOR_SETS if name not in WIDE_SETS]
+    for extra in (anchor_set, AUTO_SMALL_FACE_SET if anchor_set in (None, "auto") else None):
+        if extra in WIDE_SETS:
+            sets.append(extra)
+    pts = tuple(dict.fromkeys(p for name in sets for p in ANCHOR_SETS[name]))
+    if skin_pose:
+        pts = pts + tuple(p for p in SKIN_POSE_POINTS if p not in pts)
+    return np.array(_IRIS_CROP_POINTS + pts)
+
+
+def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int], *, skin_pose: bool = False,
+                 anchor_set: str | None = None) -> tuple[int, int, int, int] | None:
     """``(x0, y0, x1, y1)``: the part of the picture the iris refinement and the eye anchors read, or None.
 
     The union of the limbus fit's two eye regions (:data:`aspectus.webcam.limbus.ROI_RADII`
@@ -79,11 +96,12 @@ def eye_crop_box(points_px: np.ndarray, size_px: tuple[int, int], *,
     eye anchors' reach (:func:`aspectus.webcam.eye_anchors.anchor_reach_px` around
     each anchor's mesh point), clipped to the picture. With ``skin_pose`` the
     same reach around the skin points the head rotation is followed by
-    (:data:`aspectus.webcam.skin_pose.SKIN_POSE_POINTS`: most of the face).
+    (:data:`aspectus.webcam.skin_pose.SKIN_POSE_POINTS`: most of the face). ``anchor_set`` (the
+    ``GazeParams.eye_anchor_set``; None: ``"auto"``) says which anchor points it must cover.
     """
     w, h = size_px
     # read straight from the landmarks (this runs on the face mesh's thread, which sets the pipeline's pace)
-    p = np.asarray(points_px)[_CROP_POINTS_SKIN if skin_pose else _CROP_POINTS, :2]
+    p = np.asarray(points_px)[_crop_points(anchor_set, bool(skin_pose)), :2]
     c, ends = p[:2], p[2:6]
     r = 0.5 * np.sqrt(np.square(ends[0::2] - ends[1::2]).sum(axis=1))  # half the iris diameters
     if not (np.isfinite(c).all() and np.isfinite(r).all()):
@@ -164,19 +182,33 @@ class FrameGeometry:
         self.auto_anchors = anchor_set == "auto"
         if self.auto_anchors:
             anchor_set = DEFAULT_ANCHOR_SET
-        self.anchors = EyeAnchorTracker(ANCHOR_SETS[anchor_set])
-        self._anchors_model = self.anchors_model_mm(self.anchors.points)
-        # "auto": the small-face set's extra points, their own tracker (per-point tracking: the same offsets as in
-        # one tracker of the whole set), and its refit's model points in the set's order
+        # the tracker always follows the points below the eyes first (the eye patches' frames are placed by them,
+        # whatever the set), then the set's other points; the refit uses the set's own points
+        base = ANCHOR_SETS[DEFAULT_ANCHOR_SET]
+        own = ANCHOR_SETS[anchor_set]
+        # a region set: the region's tracker places the set's points; the point tracker follows only those below
+        self._region = SkinRegionTracker() if anchor_set in REGION_SETS else None
+        tracked = base + (() if self._region is not None else tuple(p for p in own if p not in base))
+        self.anchors = EyeAnchorTracker(tracked)
+        self._fit_rows = (None if self._region is not None
+                          else np.array([tracked.index(p) for p in own], dtype=np.intp))
+        self._tracked_model = self.anchors_model_mm(tracked)
+        self._anchors_model = self.anchors_model_mm(own)
+        # "auto": the small-face set's points not followed already, their own tracker (per-point tracking: the same
+        # offsets as in one tracker of the whole set), the rows of the set's points among all followed points, and
+        # its refit's model points in the set's order
         self._small = None
         self._small_diams: list | None = None
         self.small_face: bool | None = None  # the decision, once made
+        self._small_region = None
+        if self.auto_anchors and AUTO_SMALL_FACE_SET in REGION_SETS:
+            self._small_region = SkinRegionTracker()
         if self.auto_anchors:
             small_pts = ANCHOR_SETS[AUTO_SMALL_FACE_SET]
-            extra = tuple(p for p in small_pts if p not in self.anchors.points)
-            if self.anchors.points + extra != small_pts:
-                raise ValueError(f"the set {AUTO_SMALL_FACE_SET!r} must start with the points of {anchor_set!r}")
+            extra = () if self._small_region is not None else tuple(p for p in small_pts if p not in tracked)
             self._small = EyeAnchorTracker(extra)
+            self._small_rows = (None if self._small_region is not None else
+                                np.array([(tracked + extra).index(p) for p in small_pts], dtype=np.intp))
             self._small_model = self.anchors_model_mm(small_pts)
             self._small_diams = []
             self._small_minus_pnp: np.ndarray | None = None
@@ -187,7 +219,7 @@ class FrameGeometry:
             from aspectus.webcam.headpose import face_model
 
             pts_mm = face_model().points_mm
-            self._turn_limits = (turn_away_limits_deg(self.anchors.points, pts_mm),
+            self._turn_limits = (turn_away_limits_deg(own, pts_mm),
                                  -np.sign(self._anchors_model[:, 0]))
         self._anchors_on_mesh = None  # see place_anchors_on_mesh
         self.anchored_frames = 0
@@ -241,8 +273,12 @@ class FrameGeometry:
             self.size = (w, h)
             self.solver = HeadPoseSolver(w, h, fov_deg=self.fov_deg)
             self.anchors.reset()
+            if self._region is not None:
+                self._region.reset()
             if self._small is not None:
                 self._small.reset()
+                if self._small_region is not None:
+                    self._small_region.reset()
                 self._small_minus_pnp = None
             self.sampler.reset()
             self._anchor_minus_pnp = None
@@ -333,8 +369,12 @@ class FrameGeometry:
         r_px = anchor_radius_px(m["iris_diam_px"])
         if eyes is not None and np.isfinite(r_px) and r_px >= MIN_ANCHOR_RADIUS_PX and self._last_all is not None:
             off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
-            b = self._small.update(eyes, points_px - off, r_px) + off[:2]
-            t_s = translation_given_rotation(R, self._small_model, np.vstack([self._last_all, b]), self.solver.K)
+            if self._small_region is not None:
+                p = self._small_region.update(eyes, points_px - off, r_px, rotation=R) + off[:2]
+            else:
+                p = np.vstack([self._last_all, self._small.update(eyes, points_px - off, r_px) + off[:2]])
+                p = p[self._small_rows]
+            t_s = translation_given_rotation(R, self._small_model, p, self.solver.K)
             if t_s is not None:
                 self._small_minus_pnp = t_s - t_pnp
                 return t_s
@@ -353,11 +393,15 @@ class FrameGeometry:
         if eyes is not None and np.isfinite(r_px) and r_px >= MIN_ANCHOR_RADIUS_PX:
             off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
             a = self.anchors.update(eyes, points_px - off, r_px) + off[:2]
-            self._last_anchors = a[:6].copy()  # every set starts with the six points below the eyes
+            self._last_anchors = a[:6].copy()  # the tracker follows the six points below the eyes first
             self._last_all = a
             model = self._anchors_model
-            if self._anchors_on_mesh is not None:
-                model = self._anchors_3d(R, t_pnp, points_px, a)
+            if self._region is not None:
+                a = self._region.update(eyes, points_px - off, r_px, rotation=R) + off[:2]
+            else:
+                if self._anchors_on_mesh is not None:
+                    model = self._anchors_3d(R, t_pnp, points_px, a)[self._fit_rows]
+                a = a[self._fit_rows]
             if self._turn_limits is not None:
                 limit, away_sign = self._turn_limits
                 yaw = float(np.degrees(np.arctan2(R[0, 2], R[2, 2])))  # aspectus.geometry.rotation_to_head_angles
@@ -378,6 +422,8 @@ class FrameGeometry:
         Measured and left off (docs/notes/gaze-measurement.md: better on 25 px turning faces, worse at 12 px)."""
         if self.skin is None or not self.skin.mesh_depth:
             raise ValueError("the anchors go on the face mesh's surface only with the skin rotation on it")
+        if self._region is not None:
+            raise ValueError("the anchors go on the face mesh's surface only when followed point by point")
         self._anchors_on_mesh = np.full((len(self.anchors.points), 3), np.nan)
 
     def _anchors_3d(self, R, t_pnp, points_px, a) -> np.ndarray:
@@ -392,7 +438,7 @@ class FrameGeometry:
             if lifted is not None:
                 for j in np.flatnonzero(cut):
                     X[j] = self.skin.on_surface(a[j], self.solver.K, R, t, lifted, self.anchors.points[j])
-        return np.where(np.isfinite(X), X, self._anchors_model)
+        return np.where(np.isfinite(X), X, self._tracked_model)
 
     def state(self) -> dict:
         if self.auto_anchors:
@@ -429,7 +475,7 @@ def peak_rss_mb() -> float | None:
 
 
 def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool, faces_in_view: int = 0,
-               skin_pose: bool = False) -> tuple:
+               skin_pose: bool = False, anchor_set: str | None = None) -> tuple:
     """What the geometry of one frame needs, with the picture cut down to the eyes (with ``skin_pose``, to the
     eyes and the skin points the head rotation is followed by).
 
@@ -441,7 +487,7 @@ def frame_item(pts_s: float, image: np.ndarray, obs, *, refine_iris: bool, faces
         return pts_s, (w, h), None, int(faces_in_view), None, (0, 0)
     eyes, origin = None, (0, 0)
     if refine_iris:
-        box = eye_crop_box(obs.points_px, (w, h), skin_pose=skin_pose)
+        box = eye_crop_box(obs.points_px, (w, h), skin_pose=skin_pose, anchor_set=anchor_set)
         if box is not None:
             x0, y0, x1, y1 = box
             eyes, origin = np.ascontiguousarray(image[y0:y1, x0:x1]), (x0, y0)

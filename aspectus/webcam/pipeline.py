@@ -435,7 +435,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
             except FaceChoiceError as exc:
                 raise FaceChoiceError(exc.problem, path=clip, hint=exc.hint) from None
             geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine, faces_in_view=tracker.faces_in_view,
-                                       skin_pose=skin))
+                                       skin_pose=skin, anchor_set=params.gaze.eye_anchor_set))
             n_in += 1
             if progress is not None and (n_in % 10 == 0):
                 progress(min(n_in / n_hint, 0.99), f"{clip.name}: frame {n_in} of about {n_hint}")
