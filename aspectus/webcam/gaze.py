@@ -147,7 +147,7 @@ class GazeParams:
         eye picture, i.e. ``refine_iris``; without it the PnP translation
         is used (run.json counts the frames: ``eye_anchor_frames``,
         ``eye_anchor_fallback_frames``).
-    eye_anchor_set : {"auto", "below", "below_and_beside", "below_and_facing_beside"}
+    eye_anchor_set : {"auto", "below", "below_and_beside", "below_and_facing_beside", "below_low_cheeks_and_beside", "skin_region"}
         Which skin points the anchors follow (:data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`).
         ``"auto"`` (default): ``"below_and_beside"`` where the iris is
         small - by the rule ``iris_combine="auto"`` follows (the first
@@ -180,6 +180,14 @@ class GazeParams:
         from it by more than 12-14 deg (where its template has foreshortened
         by the tracker's rescale limit:
         :func:`aspectus.webcam.eye_anchors.turn_away_limits_deg`).
+        ``"below_low_cheeks_and_beside"`` (also two points on each cheek,
+        further from the lower lid) and ``"skin_region"`` (the skin round
+        the eyes as one masked region registered to a key frame:
+        :mod:`aspectus.webcam.skin_region`): measured at classroom scale and
+        left as options - neither placed the head better than
+        ``"below_and_beside"`` on a clear majority of held-out clips
+        (docs/notes/gaze-measurement.md, "The head's placement at
+        classroom scale").
     head_rotation : {"mesh", "skin"}
         Where the head rotation comes from (with ``refine_iris``, which
         sends the picture to the per-frame geometry). ``"mesh"`` (default):
@@ -366,7 +374,14 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
           "large faces worse when the head turns far to one side."),
          ("below_and_facing_beside", "below, and beside when facing the camera",
           "As the previous choice, but a point beside an eye is left out while the head is turned away from it "
-          "(by more than about 12°)."))),
+          "(by more than about 12°)."),
+         ("below_low_cheeks_and_beside", "below, on the cheeks and beside each eye",
+          "Also two points on each cheek a little further from the lower lid. For comparisons: in our tests on "
+          "small faces it was no better overall than below and beside."),
+         ("skin_region", "the skin round the eyes as one patch",
+          "Follows the skin below and beside both eyes and the nose bridge as one patch, the eyes left out. For "
+          "comparisons: in our tests on small faces it read up/down a little more fully but placed the head worse "
+          "sideways."))),
     GazeChoice(
         "iris_scale", "Iris size from",
         "The iris's size in the picture sets the scale of every gaze angle (an iris is about 11.7 mm across).",
