@@ -599,6 +599,21 @@ def _deming_slope(x: np.ndarray, y: np.ndarray, sx: float, sy: float) -> float:
     return float((d + np.sqrt(d * d + 4 * lam * sxy * sxy)) / (2 * sxy))
 
 
+def _mesh_on_limbus_scale(L: np.ndarray, M: np.ndarray, both: np.ndarray) -> tuple[np.ndarray, float, float]:
+    """The mesh trace ``M`` mapped onto the limbus trace ``L``'s scale, ``a + b * M``, by Deming regression over
+    the frames ``both`` with the noise variances from the two traces' steps (:func:`fuse_iris_centres`).
+
+    Returns the mapped trace and the slope ``b``, or ``(M, nan, nan)`` where the mapping cannot be fitted (fewer
+    than 30 frames, a mesh that does not move)."""
+    if both.sum() < 30 or np.std(M[both]) <= 0:
+        return M, float("nan"), float("nan")
+    b = _deming_slope(M[both], L[both], _step_noise(np.where(both, M, np.nan)),
+                      _step_noise(np.where(both, L, np.nan)))
+    b = float(np.clip(b, 0.5, 5.0)) if np.isfinite(b) else 1.0  # a mesh that does not move cannot be rescaled
+    a = float(np.median(L[both] - b * M[both]))
+    return a + b * M, b, a
+
+
 def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray, *,
                       average: bool = True, ref_px: np.ndarray | None = None) -> tuple[np.ndarray, dict]:
     """Combine the limbus fit and the face mesh's iris point, per eye and picture axis.
@@ -631,23 +646,19 @@ def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray
             base = ref_px[:, e, axis] if ref_px is not None else 0.0
             L = limbus_px[:, e, axis] - base
             M = mesh_px[:, e, axis] - base
+            key = f"{eye}_{name}"
             if not average and axis == 0:
                 # horizontally the limbus fit is both unbiased and the steadier (0.2 px against the
                 # mesh's 0.35 px on rendered clips): nothing to gain from the mesh
                 out[:, e, axis] = np.where(np.isfinite(L), L, M) + base
-                rec[f"{eye}_{name}"] = {"fused": False, "source": "limbus"}
+                rec[key] = {"fused": False, "source": "limbus"}
                 continue
             both = ok & np.isfinite(L) & np.isfinite(M)
-            key = f"{eye}_{name}"
-            if both.sum() < 30 or np.std(M[both]) <= 0:
+            Mc, b, _ = _mesh_on_limbus_scale(L, M, both)
+            if not np.isfinite(b):
                 out[:, e, axis] = np.where(np.isfinite(L), L, M) + base
                 rec[key] = {"fused": False}
                 continue
-            b = _deming_slope(M[both], L[both], _step_noise(np.where(both, M, np.nan)),
-                              _step_noise(np.where(both, L, np.nan)))
-            b = float(np.clip(b, 0.5, 5.0)) if np.isfinite(b) else 1.0  # a mesh that does not move cannot be rescaled
-            a = float(np.median(L[both] - b * M[both]))
-            Mc = a + b * M
             sl, sm = _step_noise(np.where(both, L, np.nan)), _step_noise(np.where(both, Mc, np.nan))
             wl = 1.0 / sl ** 2 if np.isfinite(sl) and sl > 0 and average else 0.0
             wm = 1.0 / sm ** 2 if np.isfinite(sm) and sm > 0 else 0.0
@@ -657,6 +668,54 @@ def fuse_iris_centres(limbus_px: np.ndarray, mesh_px: np.ndarray, ok: np.ndarray
             out[:, e, axis] = fused + base
             rec[key] = {"fused": True, "mesh_gain": round(b, 3), "limbus_noise_px": round(sl, 3),
                         "mesh_noise_px": round(sm, 3), "limbus_weight": round(wl / (wl + wm), 3)}
+    return out, rec
+
+
+#: the longest run of frames without a limbus fit that :func:`fill_iris_gaps` bridges, s: shorter than a typical
+#: fixation (some 200-400 ms, common practice), so that at most one saccade falls inside a bridged gap
+MAX_IRIS_GAP_S = 0.3
+
+
+def fill_iris_gaps(iris_px: np.ndarray, ref_px: np.ndarray, found: np.ndarray, t_s: np.ndarray, *,
+                   max_gap_s: float = MAX_IRIS_GAP_S) -> tuple[np.ndarray, dict]:
+    """Bridge short runs of frames without a limbus fit (NaN in ``iris_px``) by interpolating the fitted
+    centres' offsets from ``ref_px``, the eyeball centres' picture positions, over time.
+
+    The fit fails on a frame when too few limbus candidates are left or the circle lands too far from the mesh
+    point (lids half over the iris, looking down or far up). The face mesh's own iris point, which those frames
+    used to take, follows the eye with a low vertical gain: on a 25-px rendered clip it was 2-3 px off vertically
+    there (so the gaze stepped by some 5-8 deg whenever the source changed, and those steps were most of the
+    error's frame-to-frame RMS). The eye's position in the head between two fits is bridged linearly instead
+    (the head's own motion stays in ``ref_px``). Gaps longer than ``max_gap_s``, and those at the clip's ends,
+    stay NaN (the caller takes the mesh point there).
+
+    ``iris_px`` (N, 2, 2) px, NaN where there is no fit; ``ref_px`` (N, 2, 2); ``found`` (N,) face tracked;
+    ``t_s`` (N,) frame times. Returns the filled centres and a record: per eye the frames filled and left.
+    """
+    out = np.array(iris_px, float).copy()
+    rec: dict = {}
+    t = np.asarray(t_s, float)
+    for e, eye in enumerate(("right", "left")):
+        off = out[:, e] - ref_px[:, e]
+        fit = np.isfinite(off).all(axis=1)
+        gap = found & ~fit
+        filled = 0
+        if fit.sum() >= 2 and gap.any():
+            idx = np.flatnonzero(fit)
+            # each gap frame's nearest fits before and after it
+            after = np.searchsorted(idx, np.flatnonzero(gap))
+            g = np.flatnonzero(gap)
+            inside = (after > 0) & (after < len(idx))
+            g, after = g[inside], after[inside]
+            lo, hi = idx[after - 1], idx[after]
+            short = (t[hi] - t[lo]) <= max_gap_s + 1e-9
+            g, lo, hi = g[short], lo[short], hi[short]
+            ok_ref = np.isfinite(ref_px[g, e]).all(axis=1)
+            g, lo, hi = g[ok_ref], lo[ok_ref], hi[ok_ref]
+            w = ((t[g] - t[lo]) / (t[hi] - t[lo]))[:, None]
+            out[g, e] = (1 - w) * off[lo] + w * off[hi] + ref_px[g, e]
+            filled = len(g)
+        rec[eye] = {"filled_frames": int(filled), "unfilled_frames": int(gap.sum() - filled)}
     return out, rec
 
 
@@ -879,15 +938,20 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
 
     # --- iris source per axis ---------------------------------------------
     if iris_mesh_px is not None:
+        ref = None
+        if params.fuse_in_head:  # the eyeball centres' picture positions: they move with the head, not the eyes
+            with np.errstate(invalid="ignore", divide="ignore"):
+                ref = np.stack([(centres[:, e, :2] / centres[:, e, 2:3]) * [K[0, 0], K[1, 1]] + [K[0, 2], K[1, 2]]
+                                for e in range(2)], axis=1)
         if params.iris_combine in ("fuse", "rescale"):
-            ref = None
-            if params.fuse_in_head:  # the eyeball centres' picture positions: they move with the head, not the eyes
-                with np.errstate(invalid="ignore", divide="ignore"):
-                    ref = np.stack([(centres[:, e, :2] / centres[:, e, 2:3]) * [K[0, 0], K[1, 1]] + [K[0, 2], K[1, 2]]
-                                    for e in range(2)], axis=1)
             iris_px, info["iris_fusion"] = fuse_iris_centres(iris_px, iris_mesh_px, eyes_open,
                                                              average=params.iris_combine == "fuse", ref_px=ref)
         else:
+            if ref is None:
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    ref = np.stack([(centres[:, e, :2] / centres[:, e, 2:3]) * [K[0, 0], K[1, 1]]
+                                    + [K[0, 2], K[1, 2]] for e in range(2)], axis=1)
+            iris_px, info["iris_gaps"] = fill_iris_gaps(iris_px, ref, found, np.asarray(t_s, float))
             iris_px = np.where(np.isfinite(iris_px), iris_px, iris_mesh_px)
 
     # --- the eyeball centres freed of the eyes' pull on the face mesh -------------------------------

@@ -499,6 +499,12 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         patches.close()  # the patches are not needed any more (the temporary file goes with it)
     if choice is not None:
         choice["used"] = "appearance" if app_info is not None else ("limbus" if refine else "face mesh")
+    if refine and app_info is None:
+        # where the limbus fit failed the record holds the face mesh's iris point: marked missing, so that the
+        # gaze estimate fills it with the mesh point mapped onto the fit's scale (the raw point is biased by
+        # 1-3 px vertically, and the gaze stepped each time the source changed)
+        iris = np.array(iris, float)
+        iris[~np.isfinite(a[:, LIMBUS_DIAM])] = np.nan
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],

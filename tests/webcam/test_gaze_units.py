@@ -227,3 +227,25 @@ def test_fusion_maps_the_mesh_point_in_the_head_not_in_the_picture():
         assert lo <= gain <= hi, (with_ref, gain)
     out, _ = fuse_iris_centres(limbus, mesh, ok, average=True, ref_px=ref)
     assert np.std(out[:, 0, 1] - head - eye) < 0.6 * 0.6  # the fused point is steadier than the limbus fit
+
+
+def test_iris_gaps_are_bridged_in_the_head_and_long_ones_left_open():
+    from aspectus.webcam.gaze import MAX_IRIS_GAP_S, fill_iris_gaps
+
+    n, dt = 120, 1 / 30
+    t = np.arange(n) * dt
+    rng = np.random.default_rng(0)
+    head = np.cumsum(rng.normal(0, 0.8, (n, 2)), axis=0)[:, None, :] + [[300.0, 200.0], [360.0, 200.0]]
+    eye = np.where(np.arange(n)[:, None] < 40, 0.0, 4.0) * np.array([0.5, 1.0])  # a saccade at frame 40
+    iris = head + eye[:, None, :]
+    miss = iris.copy()
+    short = [10, 11, 12, 50]  # inside fixations: bridged exactly (the head's motion kept in the reference)
+    long_ = list(range(70, 70 + int(round(2 * MAX_IRIS_GAP_S / dt))))  # longer than MAX_IRIS_GAP_S: left open
+    ends = [0, 1, n - 1]  # before the first and after the last fit: left open
+    miss[short + long_ + ends, 1] = np.nan
+    out, rec = fill_iris_gaps(miss, head, np.ones(n, bool), t)
+    np.testing.assert_allclose(out[short, 1], iris[short, 1], atol=1e-9)
+    assert np.isnan(out[long_ + ends, 1]).all()
+    np.testing.assert_array_equal(out[:, 0], iris[:, 0])  # the other eye untouched
+    assert rec["left"] == {"filled_frames": len(short), "unfilled_frames": len(long_) + len(ends)}
+    assert rec["right"] == {"filled_frames": 0, "unfilled_frames": 0}

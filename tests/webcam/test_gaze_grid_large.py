@@ -1,0 +1,56 @@
+"""The gaze grid's large-face cell: frames where the limbus fit fails must not take the face mesh's raw iris point.
+
+One cell of bench/bench_gaze_grid.py: 1280 x 720 H.264 at CRF 28, face at 53 cm (iris 25 px), lids that follow
+vertical gaze, slow lighting drift with a lateral gradient and slow head drift with rotation; the eyes follow the
+first 8 s of trial TL20 of Andersson et al. (2017) (../shared/reference/lund2013). Figures as in
+tests/_gaze_grid.py. Issue 15's floors: RMS-S2S <= 1.5 deg, pitch |r| >= 0.95, gain 0.85-1.15.
+
+Decomposed against the renderer's truth, the error's frame-to-frame RMS of 2.02 deg (pitch gain 0.81) came to a
+large part from the 7 + 34 frames (right, left eye) where the limbus fit failed: those took the face mesh's iris
+point, 2-3 px off vertically there, so the gaze stepped by 5-8 deg each time the source changed. With the true
+centres in those frames the figures were 1.60 deg and gain 0.89; the gaps bridged in the head
+(:func:`aspectus.webcam.gaze.fill_iris_gaps`) read 1.53 deg and 0.87. The rest is the limbus fit's own vertical
+error on fitted frames (SD 0.75 / 1.09 px right / left; docs/notes/gaze-measurement.md).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import _gaze_grid as G
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def cell(lund_dir, tmp_path_factory):
+    from aspectus.webcam.gaze import GazeParams
+    from aspectus.webcam.pipeline import ProcessParams, extract_samples
+
+    cond = G.Condition("25px", size_px=(1280, 720), distance_mm=530.0, trial="TL20_img_konijntjes", face="hopper")
+    res, trial = G.render_condition(cond, tmp_path_factory.mktemp("large"), lund_dir)
+    with G.gaze_inputs() as kw:
+        samples, meta = extract_samples(res.path, params=ProcessParams(gaze=GazeParams()))
+    return dict(kw), samples, meta, res.truth, trial
+
+
+def test_frames_without_a_limbus_fit_are_bridged_not_taken_from_the_raw_mesh_point(cell):
+    from aspectus.webcam.gaze import GazeParams
+
+    kw, samples, meta, truth, trial = cell
+    assert meta["gaze_model"]["iris_estimate"]["used"] == "limbus"
+    failed = ~np.isfinite(kw["limbus_diam_px"]) & kw["found"][:, None]
+    assert failed.sum() >= 10  # measured 7 + 34 frames
+    assert np.isnan(kw["iris_px"][failed]).all()  # marked missing, not the mesh point
+    gaps = meta["gaze_model"]["iris_gaps"]
+    assert gaps["left"]["filled_frames"] + gaps["right"]["filled_frames"] >= 20  # measured 7 + 25
+    now = G.measure(samples, truth, trial)
+    raw = np.where(np.isfinite(kw["iris_px"]), kw["iris_px"], kw["iris_mesh_px"])  # the mesh point in the gaps
+    before = G.measure(G.with_gaze(samples, **(kw | {"iris_px": raw}), params=GazeParams()), truth, trial)
+    # measured 2.02 -> 1.53 deg, pitch r 0.969 -> 0.977, gain 0.81 -> 0.87 (issue 15's floor RMS-S2S <= 1.5 is
+    # not met: the limbus fit's own vertical error on fitted frames remains)
+    assert now["rms_s2s_deg"] <= 0.85 * before["rms_s2s_deg"]
+    assert now["rms_s2s_deg"] <= 1.7
+    assert now["pitch_gain"] >= 0.85 and now["pitch_gain"] >= before["pitch_gain"] + 0.03
+    assert now["pitch_r"] >= 0.97
+    assert now["yaw_r"] >= 0.98 and 0.9 <= now["yaw_gain"] <= 1.1  # measured 0.986-0.987, gain 0.97 -> 0.99
