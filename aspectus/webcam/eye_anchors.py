@@ -37,16 +37,15 @@ to the geometry process covers it.
 
 Spectacles: a rim lies some 10 mm in front of the skin below the eyes and
 slides over it by parallax as the head turns; where one crosses a template
-the plain correlation follows the rim. Such a template (a thin dark line
-across it, :data:`RIM_CONTRAST`) is matched on its skin pixels alone, the
-line and a margin of :data:`LINE_MARGIN_RADII` left out in the template and
-in each frame's window (:func:`_skin_mask`, :func:`_masked_peak`); templates
-without one match as before, to the bit.
+the correlation follows the rim. Such a template (a thin dark line across
+it, :data:`RIM_CONTRAST`, :func:`crossed_by_rim`) is not matched: the point
+keeps its last offset from the mesh's point, as after a failed match, and
+is cut again - and looked at again - after :data:`PATIENCE_FRAMES`.
+Templates without a rim match as before, to the bit.
 """
 from __future__ import annotations
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 
 from aspectus._env import import_cv2
 
@@ -112,17 +111,14 @@ RESCALE_FRACTION = 0.2
 #: than this many iris radii (the diameter of the disc a grey-level closing fills it with; an iris radius is about
 #: 5.9 mm on the face, rims are 1-5 mm wide)
 LINE_WIDTH_RADII = 1.0
-#: ... and darker than the closing by more than this fraction of the window's median grey level (the pixels a
-#: masked match leaves out: skin texture and the sensor's noise stay below a few per cent)
+#: ... whose pixels are darker than the closing by more than this fraction of the template's median grey (skin
+#: texture and the sensor's noise stay below a few per cent)
 LINE_CONTRAST = 0.25
-#: the pixels within this many iris radii of a line are left out with it: the edge of a lens (its tint, the skin
-#: seen through it) lies along the rim and slides with it, by up to the search range between frames
-LINE_MARGIN_RADII = SEARCH_RADII
-#: a template is matched on its skin pixels alone when a line crosses it (spans its full width or height) and is
-#: somewhere darker than the closing by more than this fraction of the median grey: a spectacle rim (on rendered
-#: dev clips 0.78-1.30 with glasses; the darkest lines crossing a template without glasses, skin folds and painted
-#: strokes below the eyes, 0.50-0.57 - docs/notes/gaze-measurement.md). Lines that do not cross it (an eye's
-#: corner, lashes) leave the plain match in place.
+#: a template is not matched when such a line crosses it (spans its full width or height) and is somewhere darker
+#: than the closing by more than this fraction of the median grey: a spectacle rim (on rendered dev clips
+#: 0.78-1.30 with glasses; the darkest lines crossing a template without glasses, skin folds and painted strokes
+#: below the eyes, 0.50-0.57 - docs/notes/gaze-measurement.md). Lines that do not cross it (an eye's corner,
+#: lashes) leave it matched.
 RIM_CONTRAST = 0.7
 #: templates kept per point for heads turned back (key frames; the oldest is dropped)
 MAX_KEY_TEMPLATES = 8
@@ -223,7 +219,7 @@ class EyeAnchorTracker:
         self.missed = 0
         #: per point, whether the last :meth:`update` placed it by a match (within the offset bound)
         self.last_matched = np.zeros(len(self.points), bool)
-        #: per point, whether its template in use is crossed by a spectacle rim (:func:`_skin_mask`)
+        #: per point, whether its template in use is crossed by a spectacle rim (:func:`crossed_by_rim`)
         self.on_rim = np.zeros(len(self.points), bool)
         #: per point, whether the last :meth:`update` cut its template (at the position it returned)
         self.last_cut = np.zeros(len(self.points), bool)
@@ -241,10 +237,10 @@ class EyeAnchorTracker:
         t = None
         if tpl is not None:
             t = (tpl, (p[0] - xi, p[1] - yi), half, r, rotation, tuple(self.offsets_px[j]), self._next_id,
-                 _skin_mask(image, xi, yi, half, r))
+                 crossed_by_rim(image, xi, yi, half, r))
             self._next_id += 1
         self._templates[j] = t
-        self.on_rim[j] = t is not None and t[7] is not None
+        self.on_rim[j] = t is not None and t[7]
         self._misses[j] = 0
         self.last_cut[j] = t is not None
         self.template_ids[j] = -1 if t is None else t[6]
@@ -334,6 +330,11 @@ class EyeAnchorTracker:
         for j, xi, yi, (x0, y0, x1, y1), ok in jobs:
             pk = None
             tpl, sub = self._templates[j][:2]
+            self.on_rim[j] = self._templates[j][7]
+            if self.on_rim[j]:  # a rim slides over the skin: no match (the offset is kept, the template cut again)
+                self._misses[j] += 1
+                self.missed += 1
+                continue
             G = None if warp is None else warp(j, self._templates[j][6])
             if G is not None:
                 found = _warped_match(image, tpl, G, pred[j], s)
@@ -344,11 +345,7 @@ class EyeAnchorTracker:
                 du, dv = found[0] + sub[0], found[1] + sub[1]
                 fx, fy = G[0, 0] * du + G[0, 1] * dv + G[0, 2], G[1, 0] * du + G[1, 1] * dv + G[1, 2]
             else:
-                mask = self._templates[j][7]
-                self.on_rim[j] = mask is not None
-                if mask is not None:
-                    pk = _masked_peak(image, tpl, mask, x0, y0, x1, y1, r)
-                elif grey is not None and ok:
+                if grey is not None and ok:
                     win = grey[y0 - by0:y1 - by0, x0 - bx0:x1 - bx0]
                     pk = _peak(cv2.matchTemplate(win, tpl, cv2.TM_CCOEFF_NORMED))
                 if pk is None or not pk[2] >= MIN_SCORE:
@@ -365,76 +362,28 @@ class EyeAnchorTracker:
         return mesh + self.offsets_px
 
 
-def _line_hat(image: np.ndarray, x0: int, y0: int, x1: int, y1: int, r: float):
-    """The grey-level black top-hat of ``[y0:y1, x0:x1]`` (a closing by a disc of :data:`LINE_WIDTH_RADII` iris
-    radii minus the picture, read on a margin around the box so its edge is right) and the box's median grey;
-    None when the box and its margin reach outside the picture."""
+def crossed_by_rim(image: np.ndarray, xi: int, yi: int, half: int, r: float) -> bool:
+    """Whether a thin dark line crosses the template box of half-width ``half`` at pixel ``(xi, yi)``
+    (:data:`LINE_WIDTH_RADII`, :data:`LINE_CONTRAST`, :data:`RIM_CONTRAST`): a grey-level black top-hat (closing
+    minus picture, read on a margin around the box so its edge is right) with a connected set of line pixels that
+    spans the box and is somewhere darker than :data:`RIM_CONTRAST` of the box's median grey. A spectacle rim, in
+    front of the face, slides over the skin by parallax as the head turns and would hold the correlation's peak;
+    False where the box and its margin reach outside the picture."""
     cv2 = import_cv2()
     k = max(3, 2 * int(round(0.5 * LINE_WIDTH_RADII * r)) + 1)
     m = k // 2 + 1
-    g = _grey(image, x0 - m, y0 - m, x1 + m, y1 + m)
+    g = _grey(image, xi - half - m, yi - half - m, xi + half + 1 + m, yi + half + 1 + m)
     if g is None:
-        return None
-    se = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k))
-    return cv2.morphologyEx(g, cv2.MORPH_BLACKHAT, se)[m:-m, m:-m], float(np.median(g[m:-m, m:-m]))
-
-
-def _grown(line: np.ndarray, r: float) -> np.ndarray:
-    """Line pixels grown by :data:`LINE_MARGIN_RADII` iris radii (at least a pixel, the line's soft edge)."""
-    g = max(1, int(round(LINE_MARGIN_RADII * r)))
-    se = import_cv2().getStructuringElement(import_cv2().MORPH_ELLIPSE, (2 * g + 1, 2 * g + 1))
-    return import_cv2().dilate(line.astype(np.uint8), se).astype(bool)
-
-
-def _skin_mask(image: np.ndarray, xi: int, yi: int, half: int, r: float) -> np.ndarray | None:
-    """At a template's cut: the template's pixels that are off a thin dark line (True: skin) when a rim crosses
-    it (:data:`RIM_CONTRAST`), which the match then reads alone; None otherwise (the plain match). A line that
-    moves against the skin - a spectacle rim, in front of the face, shifts by parallax as the head turns - would
-    otherwise hold the correlation's peak and drag the anchor with it."""
-    got = _line_hat(image, xi - half, yi - half, xi + half + 1, yi + half + 1, r)
-    if got is None:
-        return None
-    hat, med = got
+        return False
+    hat = cv2.morphologyEx(g, cv2.MORPH_BLACKHAT, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k)))[m:-m, m:-m]
+    med = float(np.median(g[m:-m, m:-m]))
     line = hat > LINE_CONTRAST * med
     if not line.any():
-        return None
-    cv2 = import_cv2()
+        return False
     n, lab, st, _ = cv2.connectedComponentsWithStats(line.astype(np.uint8))
     size = 2 * half + 1
-    for i in range(1, n):
-        if max(st[i, 2], st[i, 3]) >= size and float(hat[lab == i].max()) > RIM_CONTRAST * med:
-            return ~_grown(line, r)
-    return None
-
-
-#: a masked match counts a shift only where at least this fraction of the template's pixels is skin in both
-MIN_SKIN_FRACTION = 0.5
-
-
-def _masked_peak(image: np.ndarray, tpl: np.ndarray, mask: np.ndarray, x0: int, y0: int, x1: int, y1: int,
-                 r: float) -> tuple[float, float, float] | None:
-    """As :func:`_peak` on ``matchTemplate(window, tpl, TM_CCOEFF_NORMED)`` for the window ``[y0:y1, x0:x1]``,
-    but the normalised correlation at each shift reads only the pixels that are skin (off any thin dark line) in
-    the template (``mask``) and in the window: neither the template's rim nor the rim where it lies in this frame
-    enters the score."""
-    win = _grey(image, x0, y0, x1, y1)
-    got = _line_hat(image, x0, y0, x1, y1, r)
-    if win is None or got is None:
-        return None
-    line = _grown(got[0] > LINE_CONTRAST * got[1], r)
-    n = tpl.shape[0]
-    W = sliding_window_view(win, (n, n))  # (sy, sx, n, n)
-    V = sliding_window_view(~line, (n, n)) & mask
-    cnt = V.sum(axis=(2, 3)).astype(np.float64)
-    T = np.broadcast_to(tpl, W.shape)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mt = np.where(V, T, 0.0).sum(axis=(2, 3)) / cnt
-        mw = np.where(V, W, 0.0).sum(axis=(2, 3)) / cnt
-        dt = np.where(V, T - mt[..., None, None], 0.0)
-        dw = np.where(V, W - mw[..., None, None], 0.0)
-        res = (dt * dw).sum(axis=(2, 3)) / np.sqrt((dt * dt).sum(axis=(2, 3)) * (dw * dw).sum(axis=(2, 3)))
-    res = np.where((cnt >= MIN_SKIN_FRACTION * n * n) & np.isfinite(res), res, -1.0).astype(np.float32)
-    return _peak(res)
+    return any(max(st[i, 2], st[i, 3]) >= size and float(hat[lab == i].max()) > RIM_CONTRAST * med
+               for i in range(1, n))
 
 
 def _warped_match(image: np.ndarray, tpl: np.ndarray, G: np.ndarray, pred, s: int):
