@@ -16,6 +16,7 @@ rendered truth's median iris diameter, ``iris_px_measured`` the face mesh's (wha
 
     python bench/bench_gaze_grid.py                 # the whole grid
     python bench/bench_gaze_grid.py --quick         # four cells
+    python bench/bench_gaze_grid.py --fps 60        # the same four cells rendered at 60 fps
     python bench/bench_gaze_grid.py --csv grid.csv  # also write the rows
     python bench/bench_gaze_grid.py --appearance    # also --gaze iris_combine=appearance (a second run per cell)
     python bench/bench_gaze_grid.py --quick --gaze head_rotation=skin   # every row with these gaze settings
@@ -39,12 +40,14 @@ SIZES = {"25px": ((1280, 720), 530.0), "16px": ((1280, 720), 800.0), "12px": ((6
          "8px": ((640, 480), 780.0)}
 
 
-def grid(quick: bool, seed: int) -> list[G.Condition]:
+def grid(quick: bool, seed: int, fps: float | None = None) -> list[G.Condition]:
     trials = ["TL20_img_konijntjes", "TH34_img_Europe", "UH21_img_Rome", "UL23_img_Europe"]
     out = []
     for i, (name, (size, dist)) in enumerate(SIZES.items()):
         out.append(G.Condition(f"{name}_crf28", size_px=size, distance_mm=dist, trial=trials[i % 4],
                                face=("hopper", "astronaut")[i % 2], seed=seed))
+    if fps is not None:  # the four face sizes at this frame rate only (same trajectories and seeds)
+        return [G.Condition(**{**c.__dict__, "name": f"{c.name}_{fps:g}fps", "fps": fps}) for c in out]
     if quick:
         return out
     for crf in (23, 33):
@@ -56,6 +59,8 @@ def grid(quick: bool, seed: int) -> list[G.Condition]:
                            trial=trials[1], seed=seed))
     out.append(G.Condition("16px_glasses_mirror", size_px=(1280, 720), distance_mm=800.0, glasses=True,
                            mirror=True, face="astronaut", trial=trials[3], seed=seed))
+    for c in out[1:3]:  # what a 60 fps webcam buys at 16.6 and 12 px (same trajectories and seeds)
+        out.append(G.Condition(**{**c.__dict__, "name": f"{c.name}_60fps", "fps": 60.0}))
     for tr in trials[:3]:  # issue 15's second finding: large faces, head drift without turning
         out.append(G.Condition(f"25px_drift_{tr.split('_')[0]}", size_px=(1280, 720), distance_mm=530.0,
                                codec="mpeg4", head_motion=dict(G.HEAD_DRIFT_ONLY), lighting_drift=0.0,
@@ -66,7 +71,8 @@ def grid(quick: bool, seed: int) -> list[G.Condition]:
 
 
 COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("iris_px_measured", "{:5.1f}"),
-           ("rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_deg", "{:5.2f}"),
+           ("rms_s2s_deg", "{:5.2f}"), ("rms_fix_deg", "{:5.2f}"), ("rms_s2s_fix_deg", "{:5.2f}"),
+           ("noise_rms_s2s_deg", "{:5.2f}"),
            ("yaw_r", "{:5.3f}"), ("yaw_gain", "{:5.2f}"), ("pitch_r", "{:6.3f}"), ("pitch_gain", "{:5.2f}"),
            ("kappa", "{:6.3f}"), ("kappa_truth", "{:5.3f}"), ("iris_estimate", "{!s:10s}"),
            ("eye_anchor_set", "{!s:16s}")]
@@ -75,6 +81,10 @@ COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("iris_px_measured", "{
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--quick", action="store_true", help="four cells, one per face size")
+    ap.add_argument("--fps", type=float, help="render the four face sizes (CRF 28) at this frame rate instead of "
+                    "the grid (the same trajectories and seeds as the 30 fps cells)")
+    ap.add_argument("--variants", choices=("all", "default"), default="all",
+                    help="'default': only the pipeline's own run per cell (no re-estimated rows)")
     ap.add_argument("--seed", type=int, default=0, help="seed of the head motion, noise and lighting (default 0)")
     ap.add_argument("--csv", help="write the rows to this CSV file as well")
     ap.add_argument("--keep", help="keep the rendered clips in this folder")
@@ -100,9 +110,13 @@ def main(argv=None) -> int:
     out_dir.mkdir(parents=True, exist_ok=True)
     head = f"{'cell':56s} " + " ".join(f"{c[:11]:>11s}" for c, _ in COLUMNS)
     print(head, flush=True)
-    for cond in grid(args.quick, args.seed):
+    if args.fps is not None and not 1.0 <= args.fps <= 240.0:
+        print(f"--fps {args.fps:g}: expected a frame rate of 1-240 frames per second", file=sys.stderr)
+        return 2
+    variants = {"default": {}} if args.variants == "default" else None
+    for cond in grid(args.quick, args.seed, args.fps):
         t0 = time.perf_counter()
-        cell = G.run_condition(cond, out_dir, LUND, pipeline_gaze=gaze or None)
+        cell = G.run_condition(cond, out_dir, LUND, variants=variants, pipeline_gaze=gaze or None)
         if args.appearance:
             cell += G.run_condition(cond, out_dir, LUND, variants={"appear": {}},
                                     pipeline_gaze=gaze | {"iris_combine": "appearance"})

@@ -6,6 +6,9 @@ one of the hand-coded trials of Andersson et al. (2017) (../shared/reference/lun
 
 * ``rms_s2s_deg``: RMS of the sample-to-sample change of the 2-D gaze error (estimate minus truth) over
   consecutive valid frames - the precision of the signal with the true eye movement taken out;
+* ``rms_fix_deg``, ``rms_s2s_fix_deg``: the error's RMS about its mean over each fixation both coders agree
+  on, and its RMS-S2S inside them (:func:`_within_fixations`): per-sample RMS-S2S is comparable across frame
+  rates only for white noise, the first is comparable for any error;
 * ``noise_rms_s2s_deg``: the pipeline's own noise figure (run.json's quality), as a user sees it;
 * ``yaw_r``, ``yaw_gain``, ``pitch_r``, ``pitch_gain``: Pearson r and the least-squares slope of the
   estimate on the truth over valid frames;
@@ -51,12 +54,14 @@ class Condition:
     trial: str = "UH21_img_Rome"
     duration_s: float = 8.0
     seed: int = 0
+    fps: float = 30.0
 
     def label(self) -> str:
         w, h = self.size_px
         codec = f"CRF{self.crf}" if self.codec == "libx264" else "mp4v"
         extra = "".join([" glasses" if self.glasses else "", " mirror" if self.mirror else "",
-                         " still-lids" if not self.lid_follow else ""])
+                         " still-lids" if not self.lid_follow else "",
+                         f" {self.fps:g}fps" if self.fps != 30.0 else ""])
         return f"{w}x{h} {self.distance_mm:.0f}mm {codec} {self.face} {self.trial.split('_')[0]} s{self.seed}{extra}"
 
 
@@ -68,7 +73,8 @@ def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
                                distance_mm=cond.distance_mm, seed=cond.seed)
     path = Path(out_dir) / f"{cond.name}.mp4"
     kw = {"crf": cond.crf} if cond.codec == "libx264" else {"bitrate_kbps": None}
-    res = render_clip(path, traj, face=cond.face, size_px=tuple(cond.size_px), codec=cond.codec, seed=cond.seed,
+    res = render_clip(path, traj, face=cond.face, size_px=tuple(cond.size_px), fps=cond.fps, codec=cond.codec,
+                      seed=cond.seed,
                       lid_follow=cond.lid_follow, lighting_drift=cond.lighting_drift,
                       lighting_gradient=cond.lighting_gradient, glasses=cond.glasses, mirror=cond.mirror, **kw)
     return res, trial
@@ -96,6 +102,27 @@ def _kappa(samples: pd.DataFrame, coders: dict) -> float:
     return float(np.mean([_lund.cohen_kappa(fix, m) for m in coders.values()]))
 
 
+def _within_fixations(ey: np.ndarray, ep: np.ndarray, ok: np.ndarray, coders: dict) -> dict:
+    """The error's spread inside the fixations both coders agree on (runs of at least 3 such frames):
+    ``rms_fix_deg``, the RMS of the 2-D error after removing its mean over each fixation, and
+    ``rms_s2s_fix_deg``, the RMS-S2S of the error over steps inside them. For white noise of per-axis SD s the
+    first is s*sqrt(2) and the second 2 s at any frame rate (ratio sqrt(2)); error that changes slowly within a
+    fixation raises the first and not the second, and its sample-to-sample steps shrink as the rate rises."""
+    both = ok & np.logical_and.reduce([np.asarray(m, bool) for m in coders.values()])
+    m = np.concatenate([[False], both, [False]]).astype(int)
+    on, off = np.flatnonzero(np.diff(m) == 1), np.flatnonzero(np.diff(m) == -1)
+    res, steps = [], []
+    for a, b in zip(on, off):
+        if b - a < 3:
+            continue
+        res.append(np.hypot(ey[a:b] - ey[a:b].mean(), ep[a:b] - ep[a:b].mean()))
+        steps.append(np.hypot(np.diff(ey[a:b]), np.diff(ep[a:b])))
+    if not res:
+        return {"rms_fix_deg": float("nan"), "rms_s2s_fix_deg": float("nan")}
+    r, d = np.concatenate(res), np.concatenate(steps)
+    return {"rms_fix_deg": float(np.sqrt(np.mean(r ** 2))), "rms_s2s_fix_deg": float(np.sqrt(np.mean(d ** 2)))}
+
+
 def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     """The grid's figures for one processed clip (see the module docstring)."""
     from aspectus.events.analysis import run_analysis
@@ -107,6 +134,7 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     d2 = np.diff(ey) ** 2 + np.diff(ep) ** 2
     out = {"iris_px": float(truth["iris_diameter_px"].median()), "valid_frac": float(ok.mean()),
            "rms_s2s_deg": float(np.sqrt(np.mean(d2[pair]))) if pair.sum() >= 10 else float("nan")}
+    out.update(_within_fixations(ey, ep, ok, _labels_at(trial, truth["t_s"].to_numpy())))
     out["yaw_r"], out["yaw_gain"] = _fit(samples["yaw_deg"].to_numpy(), truth["yaw_deg"].to_numpy())
     out["pitch_r"], out["pitch_gain"] = _fit(samples["pitch_deg"].to_numpy(), truth["pitch_deg"].to_numpy())
     coders = _labels_at(trial, truth["t_s"].to_numpy())

@@ -376,7 +376,7 @@ def _process_params_match(run_params: dict, study_process: dict) -> bool:
         from aspectus.webcam.gaze import GazeParams
 
         try:
-            want = GazeParams(**(study_process.get("gaze") or {})).to_dict()
+            want = GazeParams.from_dict(study_process.get("gaze")).to_dict()
         except (AspectusInputError, TypeError):  # a setting the study cannot use: no run matches it
             return False
         return all(rp["gaze"].get(k) == v for k, v in want.items() if k in rp["gaze"])

@@ -33,8 +33,8 @@ Method (per clip, vectorised over frames once landmarking is done)
 5. **Blinks**: the eye aspect ratio (Soukupova & Cech 2016) of both eyes,
    divided by this person's open-eye level (median over the clip's face
    frames); a frame is a blink when it falls below ``blink_rel_threshold``
-   (default 0.6), widened by one frame on each side because half-closed lids
-   hide the iris. Blink and no-face samples stay in the table, marked
+   (default 0.6), widened on each side by ``blink_pad_ms`` (40 ms: one frame
+   at 30 fps, two at 60) because half-closed lids hide the iris. Blink and no-face samples stay in the table, marked
    invalid.
 """
 from __future__ import annotations
@@ -78,8 +78,12 @@ class GazeParams:
     blink_rel_threshold : float
         Eyelid aperture relative to the open-eye level below which a frame is
         a blink (0.3-0.9; default 0.6).
-    blink_pad_frames : int
-        Frames marked invalid on each side of a blink (0-3; default 1).
+    blink_pad_ms : float
+        Time marked invalid on each side of a blink, in ms (0-150; default 40),
+        converted to whole frames with the clip's median frame interval
+        (rounded: one frame at 30 fps, two at 60, none below 0.5 frame).
+        Run settings from before it replaced ``blink_pad_frames`` read with
+        :meth:`GazeParams.from_dict` (n frames -> 40 n ms).
     refine_iris : bool
         Refine the face mesh's iris centre by fitting the iris disc on the
         image by a circle fit to the limbus (aspectus.webcam.limbus; default True).
@@ -238,7 +242,7 @@ class GazeParams:
     """
 
     blink_rel_threshold: float = 0.6
-    blink_pad_frames: int = 1
+    blink_pad_ms: float = 40.0
     refine_iris: bool = True
     max_head_yaw_deg: float = 45.0
     head_smooth_ms: float = 300.0
@@ -255,7 +259,7 @@ class GazeParams:
     def __post_init__(self):
         from aspectus.errors import ParameterError
 
-        checks = (("blink_rel_threshold", 0.3, 0.9), ("blink_pad_frames", 0, 3), ("max_head_yaw_deg", 0.0, 90.0),
+        checks = (("blink_rel_threshold", 0.3, 0.9), ("blink_pad_ms", 0.0, 150.0), ("max_head_yaw_deg", 0.0, 90.0),
                   ("head_smooth_ms", 0.0, 2000.0), ("decouple_highpass_s", 0.2, 30.0))
         for name, lo, hi in checks:
             v = getattr(self, name)
@@ -274,8 +278,6 @@ class GazeParams:
         if self.iris_combine not in IRIS_COMBINE:
             raise ParameterError(f"gaze parameter iris_combine = {self.iris_combine!r} is not one of "
                                  f"{', '.join(IRIS_COMBINE)}")
-        if not isinstance(self.blink_pad_frames, int) or isinstance(self.blink_pad_frames, bool):
-            raise ParameterError(f"gaze parameter blink_pad_frames = {self.blink_pad_frames!r} must be a whole number")
         for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored", "fuse_in_head"):
             if not isinstance(getattr(self, name), bool):
                 raise ParameterError(f"gaze parameter {name} must be true or false, got {getattr(self, name)!r}")
@@ -290,6 +292,17 @@ class GazeParams:
 
     def to_dict(self) -> dict:
         return asdict(self)
+
+    @classmethod
+    def from_dict(cls, d: dict | None) -> GazeParams:
+        """Gaze settings as run.json and study files store them; the older ``blink_pad_frames`` (frames, meant
+        at 30 fps) is read as ``blink_pad_ms`` = 40 ms per frame, which gives the same frames at 25-30 fps."""
+        d = dict(d or {})
+        if "blink_pad_frames" in d:
+            n = d.pop("blink_pad_frames")
+            if "blink_pad_ms" not in d:
+                d["blink_pad_ms"] = 40.0 * n if isinstance(n, (int, float)) and not isinstance(n, bool) else n
+        return cls(**d)
 
 
 @dataclass(frozen=True)
@@ -531,6 +544,17 @@ def relative_aperture(found: np.ndarray, ear: np.ndarray) -> tuple[np.ndarray, f
     if np.isfinite(open_level) and open_level > 0:
         return ear_mean / open_level, open_level
     return np.full(n, np.nan), open_level
+
+
+def blink_pad_frames(pad_ms: float, t_s: np.ndarray) -> int:
+    """``pad_ms`` as whole frames at the median interval of the frame times ``t_s`` (rounded; 0 without two
+    frames): the blink pad is a time, so a 60 fps clip pads as long as a 30 fps one."""
+    t = np.asarray(t_s, float)
+    dt = np.diff(t[np.isfinite(t)])
+    dt = dt[dt > 0]
+    if not len(dt) or pad_ms <= 0:
+        return 0
+    return int(round(float(pad_ms) / (1000.0 * float(np.median(dt)))))
 
 
 def _dilate(mask: np.ndarray, n: int) -> np.ndarray:
@@ -991,7 +1015,7 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
 
     # --- blinks and validity ---------------------------------------------
     closed = found & (aperture_rel < params.blink_rel_threshold)
-    blink = _dilate(closed, int(params.blink_pad_frames)) & found
+    blink = _dilate(closed, blink_pad_frames(params.blink_pad_ms, t_s)) & found
     valid = found & ~blink & np.isfinite(yaw) & np.isfinite(pitch) & (np.abs(head_yaw) <= params.max_head_yaw_deg)
     del closed
 

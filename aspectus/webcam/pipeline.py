@@ -137,7 +137,7 @@ class ProcessParams:
         from aspectus.events.analysis import AnalysisParams
 
         d = dict(d or {})
-        gaze = GazeParams(**d.pop("gaze", {}) or {})
+        gaze = GazeParams.from_dict(d.pop("gaze", {}))
         analysis = AnalysisParams.from_dict(d.pop("analysis", {}) or {})
         return cls(gaze=gaze, analysis=analysis, **d)
 

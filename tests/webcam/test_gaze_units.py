@@ -249,3 +249,39 @@ def test_iris_gaps_are_bridged_in_the_head_and_long_ones_left_open():
     np.testing.assert_array_equal(out[:, 0], iris[:, 0])  # the other eye untouched
     assert rec["left"] == {"filled_frames": len(short), "unfilled_frames": len(long_) + len(ends)}
     assert rec["right"] == {"filled_frames": 0, "unfilled_frames": 0}
+
+
+@pytest.mark.parametrize("fps", [30.0, 60.0, 120.0])
+def test_the_blink_pad_head_smoothing_and_gap_bridging_act_in_seconds(fps):
+    """At 60 or 120 fps the blink pad, the head-pose smoothing and the limbus gap bridging cover the same time as at
+    30 fps (they were set on 30 fps clips); a pad counted in frames would halve at 60 fps."""
+    from aspectus.webcam.gaze import MAX_IRIS_GAP_S, GazeParams, _dilate, blink_pad_frames, fill_iris_gaps
+
+    dt = 1.0 / fps
+    t = np.arange(int(round(3.0 * fps))) * dt
+    closed = (t >= 1.0) & (t < 1.15)  # a 150 ms blink
+    pad = blink_pad_frames(GazeParams().blink_pad_ms, t)
+    span = np.ptp(t[_dilate(closed, pad)]) - np.ptp(t[closed])
+    assert span == pytest.approx(2 * 0.040, abs=2 * 0.5 / fps)  # 40 ms on each side to the nearest frame
+    assert pad == {30.0: 1, 60.0: 2, 120.0: 5}[fps]  # in frames it was 1 at every rate
+    assert blink_pad_frames(40.0, t + 0.01 * np.sin(t)) == pad  # frame-time jitter: the median interval
+    assert blink_pad_frames(0.0, t) == 0 and blink_pad_frames(40.0, t[:1]) == 0
+
+    # head smoothing: a step in the head's yaw is spread over the same time (10-90 %) at every rate
+    R = np.stack([head_rotation(10.0 if x >= 1.5 else 0.0, 0, 0) for x in t])
+    tr = np.tile([0, 0, 600.0], (len(t), 1))
+    from aspectus.geometry import rotation_to_head_angles
+
+    Rs, _ = smooth_pose(R, tr, np.ones(len(t), bool), t, 300.0)
+    yaw = rotation_to_head_angles(Rs)[0]
+    rise = t[np.argmax(yaw >= 9.0)] - t[np.argmax(yaw >= 1.0)]
+    assert rise == pytest.approx(0.8 * 0.3, abs=2.5 / fps)  # a window counted in frames: 0.12 s at 60 fps
+
+    # gap bridging: a gap just shorter than MAX_IRIS_GAP_S is bridged, one twice as long is not
+    head = np.tile([[300.0, 200.0], [360.0, 200.0]], (len(t), 1, 1))
+    miss = head.copy()
+    short = (t > 0.5) & (t < 0.5 + 0.9 * MAX_IRIS_GAP_S)
+    long_ = (t > 2.0) & (t < 2.0 + 2 * MAX_IRIS_GAP_S)
+    miss[short | long_, 0] = np.nan
+    out, rec = fill_iris_gaps(miss, head, np.ones(len(t), bool), t)
+    assert np.isfinite(out[short, 0]).all() and np.isnan(out[long_, 0]).all()

@@ -219,8 +219,10 @@ def test_gaze_parameters_are_checked():
     with pytest.raises(ParameterError, match="head_rotation = 'skin' needs refine_iris"):
         GazeParams(head_rotation="skin", refine_iris=False)
     assert GazeParams(head_rotation="skin", eye_anchors=False).head_rotation == "skin"
-    with pytest.raises(ParameterError, match="whole number"):
-        GazeParams(blink_pad_frames=1.5)
+    with pytest.raises(ParameterError, match="blink_pad_ms = 200"):
+        GazeParams(blink_pad_ms=200)
+    # the blink pad was in frames before it was in ms: older settings read as 40 ms a frame
+    assert ProcessParams.from_dict({"gaze": {"blink_pad_frames": 2}}).gaze.blink_pad_ms == 80.0
     # an older run.json without the newer keys still reads, with the defaults
     p = ProcessParams.from_dict({"fov_deg": 60.0, "gaze": {"blink_rel_threshold": 0.5}})
     assert p.gaze.blink_rel_threshold == 0.5 and p.gaze.eye_anchors is True
@@ -247,8 +249,7 @@ def test_cli_gaze_setting_switches_the_eye_anchors_off(clip, tmp_path):
 
 
 @pytest.mark.parametrize("option, setting, message", [
-    ("--gaze", "blink_pad_frames=abc", "--gaze blink_pad_frames='abc': expected a whole number"),
-    ("--gaze", "blink_pad_frames=1.5", "--gaze blink_pad_frames='1.5': expected a whole number"),
+    ("--gaze", "blink_pad_ms=abc", "--gaze blink_pad_ms='abc': expected a number"),
     ("--gaze", "eye_anchors=maybe", "--gaze eye_anchors='maybe': expected true or false"),
     ("--set", "min_fixation_ms=abc", "--set min_fixation_ms='abc': expected"),
 ])
