@@ -159,3 +159,27 @@ def test_the_sets_measured_against_the_default_small_face_set_stay_at_their_leve
     assert p["skin_region_used"] == "skin_region"
     assert p["below_low_cheeks_and_beside"][0] <= 0.42 and p["below_low_cheeks_and_beside"][1] <= 0.40
     assert p["skin_region"][0] <= 0.5 and p["skin_region"][1] <= 0.36
+
+
+def test_the_eye_crop_covers_the_points_of_the_chosen_set_and_no_more_for_the_others():
+    from aspectus.face_mesh import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
+    from aspectus.webcam.eye_anchors import ANCHOR_SETS, anchor_radius_px, anchor_reach_px
+    from aspectus.webcam.frame_geometry import eye_crop_box
+
+    pts = _points()
+    for (cx, cy), c, ring in zip(EYES, (RIGHT_IRIS_CENTRE, LEFT_IRIS_CENTRE), (RIGHT_IRIS_RING, LEFT_IRIS_RING)):
+        pts[c, :2] = (cx, cy)
+        pts[list(ring), :2] = [(cx + 5, cy), (cx, cy - 5), (cx - 5, cy), (cx, cy + 5)]
+    size = (640, 480)
+    reach = anchor_reach_px(anchor_radius_px([10.0, 10.0]))
+    for name in ("skin_region", "below_low_cheeks_and_beside"):
+        x0, y0, x1, y1 = eye_crop_box(pts, size, anchor_set=name)
+        p = pts[list(ANCHOR_SETS[name]), :2]
+        assert (p[:, 0] - reach >= x0 - 1).all() and (p[:, 0] + reach <= x1).all()
+        assert (p[:, 1] - reach >= y0 - 1).all() and (p[:, 1] + reach <= y1).all()
+    # the other settings cut one crop (so "auto" reads the pixels its set reads alone), smaller than skin_region's
+    boxes = {name: eye_crop_box(pts, size, anchor_set=name) for name in (None, "auto", "below", "below_and_beside")}
+    assert len(set(boxes.values())) == 1
+    x0, y0, x1, y1 = boxes[None]
+    X0, Y0, X1, Y1 = eye_crop_box(pts, size, anchor_set="skin_region")
+    assert (x1 - x0) * (y1 - y0) < (X1 - X0) * (Y1 - Y0)
