@@ -373,13 +373,14 @@ def _process_params_match(run_params: dict, study_process: dict) -> bool:
     if not all(rp.get(k) == v for k, v in sp.items() if k in rp):
         return False
     if "gaze" in study_process and isinstance(rp.get("gaze"), dict):
-        from aspectus.webcam.gaze import GazeParams
+        from aspectus.webcam.gaze import GazeParams, renamed_settings_read
 
         try:
             want = GazeParams.from_dict(study_process.get("gaze")).to_dict()
         except (AspectusInputError, TypeError):  # a setting the study cannot use: no run matches it
             return False
-        return all(rp["gaze"].get(k) == v for k, v in want.items() if k in rp["gaze"])
+        ran = renamed_settings_read(rp["gaze"])  # a run from before a setting's new name: read under it
+        return all(ran.get(k) == v for k, v in want.items() if k in ran)
     return True
 
 

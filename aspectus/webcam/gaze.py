@@ -297,12 +297,19 @@ class GazeParams:
     def from_dict(cls, d: dict | None) -> GazeParams:
         """Gaze settings as run.json and study files store them; the older ``blink_pad_frames`` (frames, meant
         at 30 fps) is read as ``blink_pad_ms`` = 40 ms per frame, which gives the same frames at 25-30 fps."""
-        d = dict(d or {})
-        if "blink_pad_frames" in d:
-            n = d.pop("blink_pad_frames")
-            if "blink_pad_ms" not in d:
-                d["blink_pad_ms"] = 40.0 * n if isinstance(n, (int, float)) and not isinstance(n, bool) else n
-        return cls(**d)
+        return cls(**renamed_settings_read(d))
+
+
+def renamed_settings_read(d: dict | None) -> dict:
+    """A copy of stored gaze settings (run.json, a study file) with the older names read as today's: the older
+    ``blink_pad_frames`` n (frames, meant at 30 fps) as ``blink_pad_ms`` = 40 n ms (when both are there, the
+    newer one holds)."""
+    d = dict(d or {})
+    if "blink_pad_frames" in d:
+        n = d.pop("blink_pad_frames")
+        if "blink_pad_ms" not in d:
+            d["blink_pad_ms"] = 40.0 * n if isinstance(n, (int, float)) and not isinstance(n, bool) else n
+    return d
 
 
 @dataclass(frozen=True)
@@ -447,6 +454,7 @@ def gaze_settings_from_stored(stored) -> tuple[dict, list[str]]:
     if not isinstance(stored, dict):
         return {}, [f"The saved gaze measurement settings are not readable (found {type(stored).__name__}, "
                     "expected name: value pairs); every gaze setting is at its default."]
+    stored = renamed_settings_read(stored)
     fields = GazeParams().to_dict()
     out, notes = {}, []
     for name, value in stored.items():

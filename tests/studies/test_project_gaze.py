@@ -125,3 +125,23 @@ def test_iris_estimate_in_plain_words():
                      "across, below 17.3 px, but the clip has too few frames with open eyes to learn the eye's "
                      "appearance).")
     assert describe_iris_estimate(None) is None and describe_iris_estimate({}) is None
+
+
+def test_a_blink_pad_saved_in_frames_is_read_in_ms(tmp_path):
+    """The older setting ``blink_pad_frames`` n (frames at 30 fps) reads as ``blink_pad_ms`` 40 n ms, in a saved
+    study and in a run's run.json alike (aspectus.webcam.gaze.GazeParams.from_dict)."""
+    settings, notes = gaze_settings_from_stored({"blink_pad_frames": 2, "mirrored": True})
+    assert settings == {"blink_pad_ms": 80.0, "mirrored": True} and notes == []
+    s = study_mod.new_study(path=tmp_path / "s.aspectus-study.json")
+    clip = tmp_path / "p01_s01.mp4"
+    clip.write_bytes(b"\0" * 16)
+    c = s.add_clip(clip)
+    out = s.clip_out_dir(c)
+    out.mkdir(parents=True)
+    params = ProcessParams().to_dict()
+    del params["gaze"]["blink_pad_ms"]
+    s.process = {"fov_deg": 60.0, "face": "largest", "max_faces": 2, "gaze": {}}  # the default pad, 40 ms
+    for frames, status in ((3, study_mod.STATUS_STALE), (1, study_mod.STATUS_DONE)):
+        params["gaze"]["blink_pad_frames"] = frames  # a run made when the pad was set in frames
+        (out / "run.json").write_text(json.dumps({"params": params}))
+        assert s.refresh_status(c) == status, frames
