@@ -970,19 +970,15 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
 
     # --- iris source per axis ---------------------------------------------
     if iris_mesh_px is not None:
-        ref = None
-        if params.fuse_in_head:  # the eyeball centres' picture positions: they move with the head, not the eyes
-            with np.errstate(invalid="ignore", divide="ignore"):
-                ref = np.stack([(centres[:, e, :2] / centres[:, e, 2:3]) * [K[0, 0], K[1, 1]] + [K[0, 2], K[1, 2]]
-                                for e in range(2)], axis=1)
+        # the eyeball centres' picture positions: they move with the head, not the eyes
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ref = np.stack([(centres[:, e, :2] / centres[:, e, 2:3]) * [K[0, 0], K[1, 1]] + [K[0, 2], K[1, 2]]
+                            for e in range(2)], axis=1)
         if params.iris_combine in ("fuse", "rescale"):
             iris_px, info["iris_fusion"] = fuse_iris_centres(iris_px, iris_mesh_px, eyes_open,
-                                                             average=params.iris_combine == "fuse", ref_px=ref)
+                                                             average=params.iris_combine == "fuse",
+                                                             ref_px=ref if params.fuse_in_head else None)
         else:
-            if ref is None:
-                with np.errstate(invalid="ignore", divide="ignore"):
-                    ref = np.stack([(centres[:, e, :2] / centres[:, e, 2:3]) * [K[0, 0], K[1, 1]]
-                                    + [K[0, 2], K[1, 2]] for e in range(2)], axis=1)
             iris_px, info["iris_gaps"] = fill_iris_gaps(iris_px, ref, found, np.asarray(t_s, float))
             iris_px = np.where(np.isfinite(iris_px), iris_px, iris_mesh_px)
 
