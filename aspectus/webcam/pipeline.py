@@ -501,8 +501,9 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         choice["used"] = "appearance" if app_info is not None else ("limbus" if refine else "face mesh")
     if refine and app_info is None:
         # where the limbus fit failed the record holds the face mesh's iris point: marked missing, so that the
-        # gaze estimate fills it with the mesh point mapped onto the fit's scale (the raw point is biased by
-        # 1-3 px vertically, and the gaze stepped each time the source changed)
+        # gaze estimate bridges it from the neighbouring fits (gaze.fill_iris_gaps; the raw mesh point only past
+        # 0.3 s), or with fuse / rescale takes the mesh point mapped onto the fit's scale (the raw point is biased
+        # by 1-3 px vertically, and the gaze stepped each time the source changed)
         iris = np.array(iris, float)
         iris[~np.isfinite(a[:, LIMBUS_DIAM])] = np.nan
     cols, ginfo = estimate_gaze(
