@@ -169,7 +169,6 @@ class FrameGeometry:
         self.width = RECORD_WIDTH + (APPEARANCE_WIDTH if self.appearance else 0)
         self.appearance_below_px = None if appearance_below_px is None else float(appearance_below_px)
         self._sampling = True
-        self._first_diams: list | None = [] if self.appearance_below_px is not None else None
         self.sampler = EyePatchSampler()
         self._last_anchors: np.ndarray | None = None
         self._last_all: np.ndarray | None = None  # this frame's followed points of the anchor set
@@ -198,7 +197,6 @@ class FrameGeometry:
         # offsets as in one tracker of the whole set), the rows of the set's points among all followed points, and
         # its refit's model points in the set's order
         self._small = None
-        self._small_diams: list | None = None
         self.small_face: bool | None = None  # the decision, once made
         self._small_region = None
         if self.auto_anchors and AUTO_SMALL_FACE_SET in REGION_SETS:
@@ -210,7 +208,6 @@ class FrameGeometry:
             self._small_rows = (None if self._small_region is not None else
                                 np.array([(tracked + extra).index(p) for p in small_pts], dtype=np.intp))
             self._small_model = self.anchors_model_mm(small_pts)
-            self._small_diams = []
             self._small_minus_pnp: np.ndarray | None = None
         # the sets that leave out a point beside an eye while the head is turned away from it: per point, the
         # yaw limit and the sign of yaw that turns the head away from it (+ for the subject's right, model x < 0)
@@ -222,6 +219,9 @@ class FrameGeometry:
             self._turn_limits = (turn_away_limits_deg(own, pts_mm),
                                  -np.sign(self._anchors_model[:, 0]))
         self._anchors_on_mesh = None  # see place_anchors_on_mesh
+        # "auto" (eye patches, anchor set): the first frames' iris diameters, until the one decision is made
+        self._first_diams: list | None = ([] if (self.appearance and self.appearance_below_px is not None)
+                                          or self.auto_anchors else None)
         self.anchored_frames = 0
         self.unanchored_frames = 0
         self._anchor_minus_pnp: np.ndarray | None = None
@@ -307,11 +307,11 @@ class FrameGeometry:
             local = points_px - off
             job = ((eyes, local, iris - off[:2], m["iris_diam_px"]), off[:2])
         self._last_anchors = self._last_all = None
+        if self._first_diams is not None:  # "auto": settle on the first frames with a face whether it is small
+            self._first_diams.append(np.array(m["iris_diam_px"], float))
+            if len(self._first_diams) >= DECIDE_FRAMES:
+                self._decide_small()
         if self.eye_anchors:
-            if self._small_diams is not None:  # "auto": settle on the first frames with a face whether it is small
-                self._small_diams.append(np.array(m["iris_diam_px"], float))
-                if len(self._small_diams) >= DECIDE_FRAMES:
-                    self._decide_small()
             t_pnp = t
             t = self._anchored_translation(R, t, m, eyes, points_px, eyes_origin_px)
             if self._small is not None and self.small_face is not False:
@@ -340,11 +340,6 @@ class FrameGeometry:
         """The limbus-fit flags (0 until a fit succeeds), the patch frames and the patches of one frame."""
         w = RECORD_WIDTH
         row[w:w + 2] = 0.0
-        if self._first_diams is not None:  # "auto": settle on the first frames with a face whether to go on
-            self._first_diams.append(np.array(m["iris_diam_px"], float))
-            if len(self._first_diams) >= DECIDE_FRAMES:
-                self._sampling = small_iris(np.array(self._first_diams), self.appearance_below_px)[0]
-                self._first_diams = None
         if not self._sampling or eyes is None or self._last_anchors is None:
             return
         A = self.sampler.affines(self._last_anchors, m["corners_px"])
@@ -357,11 +352,17 @@ class FrameGeometry:
         row[w + 14:] = np.ascontiguousarray(patches).reshape(-1).view(np.float64)
 
     def _decide_small(self) -> None:
-        """``anchor_set="auto"``: whether the face is small, from the frames seen so far (then no more)."""
-        if self._small_diams is None:
+        """The "auto" settings' one decision, from the frames with a face seen so far (then no more): whether to go
+        on sampling eye patches (``appearance_below_px``) and whether the face is small (``anchor_set="auto"``).
+        Both follow :func:`aspectus.webcam.iris_appearance.small_iris` on the same frames' iris diameters."""
+        if self._first_diams is None:
             return
-        self.small_face = small_iris(np.array(self._small_diams).reshape(-1, 2), AUTO_APPEARANCE_BELOW_PX)[0]
-        self._small_diams = None
+        diams = np.array(self._first_diams).reshape(-1, 2)
+        self._first_diams = None
+        if self.appearance_below_px is not None and self.appearance:
+            self._sampling = small_iris(diams, self.appearance_below_px)[0]
+        if self.auto_anchors:
+            self.small_face = small_iris(diams, AUTO_APPEARANCE_BELOW_PX)[0]
 
     def _small_translation(self, R, t_pnp, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
         """``anchor_set="auto"``: the translation refitted to the small-face set (:meth:`_anchored_translation`
@@ -441,8 +442,7 @@ class FrameGeometry:
         return np.where(np.isfinite(X), X, self._tracked_model)
 
     def state(self) -> dict:
-        if self.auto_anchors:
-            self._decide_small()  # a clip shorter than the deciding frames
+        self._decide_small()  # a clip shorter than the deciding frames
         return {"K": None if self.solver is None else self.solver.K, "size": self.size,
                 "small_face": self.small_face if self.auto_anchors else None,
                 "size_changes": self.size_changes, "anchored_frames": self.anchored_frames,
