@@ -6,7 +6,8 @@ compares with the truth and with the two coders' labels; see tests/_gaze_grid.py
 Every cell has lids that follow vertical gaze, a slow lighting drift (+-15 %) with a lateral gradient (0.3)
 and slow head drift with rotation (yaw +-10, pitch +-4, roll +-2 deg; 15 / 10 / 25 mm) unless its label says
 otherwise. One face-mesh run per cell: the 13 cells took about 3 minutes on two cores (2026-12-04; more when the
-machine is busy).
+machine is busy); the grid has 15 since (the 16.6 and 12 px cells also at 60 fps, each twice a 30 fps cell's
+face-mesh time).
 
 Rows per cell: ``default`` (the pipeline's own run with the default settings; its ``iris_estimate`` column says
 which iris estimate ``iris_combine=auto`` took, run.json's ``gaze_model.iris_estimate.used``, and its

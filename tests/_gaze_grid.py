@@ -215,7 +215,8 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
     (``gaze_model.eye_anchor_set.used``; None in the other variants' rows, which re-use the default's head
     placement) and ``iris_px_measured``: the clip's median iris diameter as the pipeline measured it
     (``gaze_model.iris_estimate.median_iris_px``; what the default's choice is made on, NaN unless the
-    pipeline's setting is ``auto``). ``keep_samples``: each row also holds its samples table under
+    pipeline's setting is ``auto``), ``blink_pad_frames`` (``gaze_model.blink_pad_frames``) and ``n_samples``.
+    ``keep_samples``: each row also holds its samples table under
     ``"samples"``. ``pipeline_gaze``: gaze settings for the pipeline's own run (e.g. ``{"eye_anchor_set":
     "below"}``, which acts in the per-frame geometry); the variants re-estimate with them too.
     """
@@ -259,6 +260,7 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
         rows.append(asdict(cond) | {"label": cond.label(), "variant": name} | measure(s, res.truth, trial)
                     | {"iris_estimate": choice.get("used") if not over else None,
                        "eye_anchor_set": anchors.get("used") if not over else None,
+                       "blink_pad_frames": meta["gaze_model"].get("blink_pad_frames"), "n_samples": len(s),
                        "iris_px_measured": float(np.nan if choice.get("median_iris_px") is None
                                                   else choice["median_iris_px"])}
                     | ({"samples": s} if keep_samples else {}))

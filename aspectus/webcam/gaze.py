@@ -1019,7 +1019,8 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
 
     # --- blinks and validity ---------------------------------------------
     closed = found & (aperture_rel < params.blink_rel_threshold)
-    blink = _dilate(closed, blink_pad_frames(params.blink_pad_ms, t_s)) & found
+    info["blink_pad_frames"] = blink_pad_frames(params.blink_pad_ms, t_s)
+    blink = _dilate(closed, info["blink_pad_frames"]) & found
     valid = found & ~blink & np.isfinite(yaw) & np.isfinite(pitch) & (np.abs(head_yaw) <= params.max_head_yaw_deg)
     del closed
 

@@ -1,0 +1,65 @@
+"""The gaze chain on the same trajectory rendered at 30 and at 60 fps (bench: bench/bench_gaze_grid.py --fps 60).
+
+The grid's 12 px cell (640 x 480 H.264 CRF 28, 55 cm, hopper face, lids following, lighting and head drift with
+rotation) whose eyes follow the first 8 s of the hand-coded trial UH21 of Andersson et al. (2017)
+(../shared/reference/lund2013), rendered with the same seed at 30 and at 60 fps. Rows: the default, and the
+default's chain fed the renderer's true iris centres (what head pose, eyeball centres, smoothing, blinks and the
+detector give at each rate with a perfect iris localiser). The pipeline's time constants are in seconds
+(tests/webcam/test_gaze_units.py), so with the true iris the two rates must agree; the default's own figures at
+60 fps are guarded at the level measured. Figures are defined in tests/_gaze_grid.py; numbers in the comments were
+measured with seeds 0 and 1 (README, "Gaze precision at classroom scale").
+"""
+from __future__ import annotations
+
+import pytest
+
+import _gaze_grid as G
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def rows(lund_dir, tmp_path_factory):
+    d = tmp_path_factory.mktemp("fps")
+    out = {}
+    for fps in (30.0, 60.0):
+        cond = G.Condition(f"12px_{fps:g}", size_px=(640, 480), distance_mm=550.0, trial="UH21_img_Rome",
+                           face="hopper", fps=fps)
+        for row in G.run_condition(cond, d, lund_dir, variants={"default": {}} | G.TRUE_IRIS):
+            out[(fps, row["variant"])] = row
+    return out
+
+
+def test_the_60_fps_clip_has_twice_the_samples_and_pads_blinks_for_the_same_time(rows):
+    assert rows[(60.0, "default")]["n_samples"] == pytest.approx(2 * rows[(30.0, "default")]["n_samples"], abs=2)
+    assert rows[(30.0, "default")]["blink_pad_frames"] == 1  # 40 ms: one frame at 30 fps
+    assert rows[(60.0, "default")]["blink_pad_frames"] == 2  # and two at 60
+
+
+def test_with_the_true_iris_the_chain_gives_the_same_figures_at_60_fps(rows):
+    # measured (seed 0), 30 -> 60 fps: yaw r / gain 0.993 / 1.05 -> 0.992 / 1.03, pitch 0.998 / 1.05 -> 0.995 / 1.09,
+    # the error's RMS about each fixation's mean 0.299 -> 0.303 deg (its RMS-S2S 0.19 -> 0.11: the error left is
+    # slow, so its sample-to-sample steps halve with the frame interval)
+    lo, hi = rows[(30.0, "true_iris")], rows[(60.0, "true_iris")]
+    for axis in ("yaw", "pitch"):
+        assert hi[f"{axis}_r"] >= 0.98 and abs(hi[f"{axis}_gain"] - lo[f"{axis}_gain"]) <= 0.08, (axis, lo, hi)
+    assert hi["rms_fix_deg"] <= 1.25 * lo["rms_fix_deg"], (lo["rms_fix_deg"], hi["rms_fix_deg"])
+    assert hi["kappa"] >= lo["kappa"] - 0.05  # 0.439 -> 0.485
+
+
+def test_the_default_at_60_fps_is_guarded_at_the_level_measured(rows):
+    # default, 30 -> 60 fps, seed 0 / seed 1: yaw r / gain 0.967 / 0.96 -> 0.953 / 0.93, 0.962 / 1.01 -> 0.957 /
+    # 0.97; pitch 0.917 / 0.79 -> 0.824 / 0.62, 0.933 / 1.22 -> 0.872 / 1.04; RMS about each fixation's mean
+    # 1.15 -> 0.89, 1.18 -> 2.10 deg. The 60 fps picture reads the iris worse (x264 at CRF 28 spends about 30 %
+    # fewer bits a frame at 60 fps: 189 against 274 bytes here), so pitch does not gain from the rate; issue 15's
+    # pitch floor (r >= 0.95, gain 0.85-1.15) is met at neither rate on this cell
+    hi = rows[(60.0, "default")]
+    assert hi["yaw_r"] >= 0.94 and 0.85 <= hi["yaw_gain"] <= 1.15, (hi["yaw_r"], hi["yaw_gain"])
+    assert hi["pitch_r"] >= 0.78, hi["pitch_r"]
+    assert hi["rms_fix_deg"] <= 2.5, hi["rms_fix_deg"]
+
+
+def test_the_detector_ceiling_is_no_lower_at_60_fps(rows):
+    # kappa of the default detector on the noise-free truth at the frame times: 0.629 -> 0.652 on this clip; over
+    # all 8 Lund trials 0.64 / 0.69 / 0.78 at 30 / 60 / 120 Hz (bench/lund_rate_ceiling.py)
+    assert rows[(60.0, "default")]["kappa_truth"] >= rows[(30.0, "default")]["kappa_truth"] - 0.01
