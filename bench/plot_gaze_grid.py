@@ -25,7 +25,10 @@ COMPARE = {"limbus": "tab:blue", "fuse": "tab:orange"}
 
 
 def _tag(r) -> str:
-    return "m" if r["codec"] == "mpeg4" else str(int(r["crf"]))
+    """The compression ("m": MPEG-4 part 2, else the CRF), and the frame rate when it is not 30 fps ("28@60")."""
+    tag = "m" if r["codec"] == "mpeg4" else str(int(r["crf"]))
+    fps = r.get("fps", 30.0)
+    return tag if fps != fps or fps == 30.0 else f"{tag}@{fps:g}"
 
 
 def main(argv=None) -> int:
