@@ -103,6 +103,9 @@ def main(argv=None) -> int:
             print(f"--gaze {item!r}: expected NAME=VALUE", file=sys.stderr)
             return 2
         gaze[name] = {"true": True, "false": False}.get(value.lower(), value)
+    if args.fps is not None and not 1.0 <= args.fps <= 240.0:
+        print(f"--fps {args.fps:g}: expected a frame rate of 1-240 frames per second", file=sys.stderr)
+        return 2
     if not LUND.is_dir():
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
         return 2
@@ -111,9 +114,6 @@ def main(argv=None) -> int:
     out_dir.mkdir(parents=True, exist_ok=True)
     head = f"{'cell':56s} " + " ".join(f"{c[:11]:>11s}" for c, _ in COLUMNS)
     print(head, flush=True)
-    if args.fps is not None and not 1.0 <= args.fps <= 240.0:
-        print(f"--fps {args.fps:g}: expected a frame rate of 1-240 frames per second", file=sys.stderr)
-        return 2
     variants = {"default": {}} if args.variants == "default" else None
     for cond in grid(args.quick, args.seed, args.fps):
         t0 = time.perf_counter()
