@@ -68,7 +68,7 @@ def register(sub) -> None:
 def _params_from_args(args):
     import json
 
-    from aspectus.errors import AspectusInputError
+    from aspectus.errors import AspectusInputError, ParameterError
     from aspectus.webcam.pipeline import ProcessParams
 
     base: dict = {}
@@ -82,6 +82,10 @@ def _params_from_args(args):
         base = d.get("params", d) if isinstance(d, dict) else {}
         if not isinstance(base, dict):
             raise AspectusInputError("no parameters object found", path=path)
+        try:
+            ProcessParams.from_dict(base)
+        except ParameterError as exc:  # name the file the setting was read from
+            raise ParameterError(exc.problem, path=path, hint=exc.hint) from None
     params = ProcessParams.from_dict(base)
     d = params.to_dict()
     for opt, key in (("fov_deg", "fov_deg"), ("face", "face"), ("max_faces", "max_faces")):

@@ -297,7 +297,20 @@ class GazeParams:
     def from_dict(cls, d: dict | None) -> GazeParams:
         """Gaze settings as run.json and study files store them; the older ``blink_pad_frames`` (frames, meant
         at 30 fps) is read as ``blink_pad_ms`` = 40 ms per frame, which gives the same frames at 25-30 fps."""
-        return cls(**renamed_settings_read(d))
+        from aspectus.errors import ParameterError
+
+        if d is not None and not isinstance(d, dict):
+            raise ParameterError(f"the gaze settings are not name: value pairs (found {type(d).__name__})",
+                                 hint="write them as a JSON object, e.g. {\"mirrored\": true}")
+        d = renamed_settings_read(d)
+        known = set(cls.__dataclass_fields__)
+        for name in d:
+            if name == "blink_pad_frames":
+                raise ParameterError(f"gaze parameter blink_pad_frames = {d[name]!r} is not a number of frames",
+                                     hint="give blink_pad_ms, the pad in ms (0-150; 40 ms is one frame at 25-30 fps)")
+            if name not in known:
+                raise ParameterError(f"unknown gaze parameter {name!r}", hint="known: " + ", ".join(sorted(known)))
+        return cls(**d)
 
 
 def renamed_settings_read(d: dict | None) -> dict:
@@ -308,7 +321,10 @@ def renamed_settings_read(d: dict | None) -> dict:
     if "blink_pad_frames" in d:
         n = d.pop("blink_pad_frames")
         if "blink_pad_ms" not in d:
-            d["blink_pad_ms"] = 40.0 * n if isinstance(n, (int, float)) and not isinstance(n, bool) else n
+            if isinstance(n, bool) or not isinstance(n, (int, float)):
+                d["blink_pad_frames"] = n  # not a number of frames: left under its old name
+            else:
+                d["blink_pad_ms"] = 40.0 * n
     return d
 
 

@@ -228,6 +228,34 @@ def test_gaze_parameters_are_checked():
     assert p.gaze.blink_rel_threshold == 0.5 and p.gaze.eye_anchors is True
 
 
+def test_stored_gaze_settings_that_cannot_be_read_are_named(tmp_path):
+    """Gaze settings read from a file (a batch's --params run.json): a name this version does not know, a gaze entry
+    that is not name: value pairs, or an older blink pad that is not a number are refused with the setting's
+    name, not a Python error."""
+    from aspectus.errors import ParameterError
+    from aspectus.webcam.gaze import GazeParams
+
+    with pytest.raises(ParameterError, match="unknown gaze parameter 'pupil_colour'") as exc:
+        ProcessParams.from_dict({"gaze": {"pupil_colour": "blue"}})
+    assert "blink_pad_ms" in exc.value.hint
+    with pytest.raises(ParameterError, match="gaze settings .* name: value pairs"):
+        ProcessParams.from_dict({"gaze": "limbus"})
+    with pytest.raises(ParameterError, match="blink_pad_frames = 'one'"):
+        GazeParams.from_dict({"blink_pad_frames": "one"})
+    # a batch's --params file: the error names it
+    import argparse
+
+    from aspectus.cli.batch_cmd import _params_from_args
+
+    f = tmp_path / "run.json"
+    f.write_text(json.dumps({"params": {"gaze": {"pupil_colour": "blue"}}}))
+    with pytest.raises(ParameterError, match="unknown gaze parameter 'pupil_colour'") as exc:
+        _params_from_args(argparse.Namespace(params=str(f)))
+    assert exc.value.path == f
+    f.write_text(json.dumps({"params": {"gaze": {"blink_pad_frames": 2}}}))
+    assert _params_from_args(argparse.Namespace(params=str(f))).gaze.blink_pad_ms == 80.0
+
+
 def test_cli_gaze_setting_switches_the_eye_anchors_off(clip, tmp_path):
     """``--gaze eye_anchors=false`` keeps the head translation from PnP; the sidecar records it."""
     out = tmp_path / "cli"
