@@ -81,7 +81,8 @@ class GazeParams:
     blink_pad_ms : float
         Time marked invalid on each side of a blink, in ms (0-150; default 40),
         converted to whole frames with the clip's median frame interval
-        (rounded: one frame at 30 fps, two at 60, none below 0.5 frame).
+        (rounded, half a frame up: one frame at 30 fps, two at 60, none below
+        0.5 frame).
         Run settings from before it replaced ``blink_pad_frames`` read with
         :meth:`GazeParams.from_dict` (n frames -> 40 n ms).
     refine_iris : bool
@@ -578,7 +579,9 @@ def blink_pad_frames(pad_ms: float, t_s: np.ndarray) -> int:
     dt = dt[dt > 0]
     if not len(dt) or pad_ms <= 0:
         return 0
-    return int(round(float(pad_ms) / (1000.0 * float(np.median(dt)))))
+    # half a frame rounds up, within a tolerance for the last bits of the frame times (round() would round half
+    # to even, and the same clip starting at another time would pad by a frame more or less)
+    return int(np.floor(float(pad_ms) / (1000.0 * float(np.median(dt))) + 0.5 + 1e-6))
 
 
 def _dilate(mask: np.ndarray, n: int) -> np.ndarray:

@@ -285,3 +285,15 @@ def test_the_blink_pad_head_smoothing_and_gap_bridging_act_in_seconds(fps):
     miss[short | long_, 0] = np.nan
     out, rec = fill_iris_gaps(miss, head, np.ones(len(t), bool), t)
     assert np.isfinite(out[short, 0]).all() and np.isnan(out[long_, 0]).all()
+
+
+def test_a_blink_pad_of_half_frames_rounds_up_whatever_the_clip_start():
+    """A pad of 20, 60, 100 or 140 ms at 25 fps is 0.5, 1.5, 2.5, 3.5 frames: rounded up (the docstring's "none
+    below 0.5 frame"), the same for a clip starting at 0 s or at 10 s, whose frame intervals differ in the last
+    bits only (round-half-to-even on those gave 0, 1, 2, 3 frames from 0 s and 1, 2, 3, 4 from 10 s)."""
+    from aspectus.webcam.gaze import blink_pad_frames
+
+    for start in (0.0, 10.0, 1234.56):
+        t = start + np.arange(100) / 25.0
+        assert [blink_pad_frames(ms, t) for ms in (20.0, 60.0, 100.0, 140.0)] == [1, 2, 3, 4], start
+        assert blink_pad_frames(19.0, t) == 0 and blink_pad_frames(40.0, t) == 1
