@@ -481,6 +481,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         off = [name for name, on in (("refine_iris", refine), ("eye_anchors", bool(params.gaze.eye_anchors))) if not on]
         choice["reason"] = (f"the appearance estimate needs {' and '.join(off)} (off): the "
                             + ("limbus fit" if refine else "face mesh's iris point") + " is used")
+    fitted = False  # whether the appearance estimate is the iris source (else the limbus fit, with refine)
     if appearance:
         iris, app_info = _appearance_iris(a, patches, found)
         fitted = any(blk[e].get("fitted") for blk in app_info["blocks"] for e in ("right", "left"))
@@ -499,7 +500,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         patches.close()  # the patches are not needed any more (the temporary file goes with it)
     if choice is not None:
         choice["used"] = "appearance" if app_info is not None else ("limbus" if refine else "face mesh")
-    if refine and app_info is None:
+    if refine and not fitted:
         # where the limbus fit failed the record holds the face mesh's iris point: marked missing, so that the
         # gaze estimate bridges it from the neighbouring fits (gaze.fill_iris_gaps; the raw mesh point only past
         # 0.3 s), or with fuse / rescale takes the mesh point mapped onto the fit's scale (the raw point is biased
@@ -513,7 +514,9 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         limbus_diam_px=a[:, LIMBUS_DIAM] if params.gaze.refine_iris else None, params=params.gaze)
     if app_info is not None:
         ginfo["iris_appearance"] = app_info
-    ginfo["iris_estimate"] = choice or {"setting": combine, "used": combine if refine else "face mesh"}
+    ginfo["iris_estimate"] = choice or {"setting": combine, "used": ("face mesh" if not refine else "limbus"
+                                                                     if combine == "appearance" and not fitted
+                                                                     else combine)}
     ginfo["eye_anchor_set"] = anchors_choice
     pts = a[:, 0].copy()
     counts = a[:, 2].astype(np.int64)

@@ -443,3 +443,22 @@ def test_reprocessing_keeps_a_users_other_files_and_refuses_unlisted_outputs(pro
     with pytest.raises(AspectusInputError, match=r"features\.csv, which aspectus did not write \(its run\.json"):
         process_clip(clip, d)
     assert (d / "features.csv").read_text() == "a,b\n1,2\n"
+
+
+def test_appearance_without_enough_frames_reads_the_iris_as_the_limbus_setting_does(clip):
+    """``iris_combine="appearance"`` on a clip too short to learn the regression (90 frames, 150 open-eye frames
+    a block needed) takes the limbus fit: the same gaze as ``iris_combine="limbus"``, frames where the fit failed
+    included (bridged from the neighbouring fits, not the face mesh's raw iris point)."""
+    from aspectus.webcam.gaze import GazeParams, describe_iris_estimate
+    from aspectus.webcam.pipeline import extract_samples
+
+    app, meta_app = extract_samples(clip, params=ProcessParams(gaze=GazeParams(iris_combine="appearance")))
+    lim, meta_lim = extract_samples(clip, params=ProcessParams(gaze=GazeParams(iris_combine="limbus")))
+    gm = meta_lim["gaze_model"]
+    assert sum(v["filled_frames"] for v in gm["iris_gaps"].values()) > 0  # the fit failed somewhere, bridged
+    assert meta_app["gaze_model"]["iris_gaps"] == gm["iris_gaps"]
+    assert meta_app["gaze_model"]["iris_estimate"] == {"setting": "appearance", "used": "limbus"}  # as it was
+    said = describe_iris_estimate(meta_app["gaze_model"]["iris_estimate"])
+    assert said.startswith("Iris height from: circle fit") and "could not be used" in said, said
+    for col in ("yaw_deg", "pitch_deg"):
+        np.testing.assert_array_equal(app[col].to_numpy(), lim[col].to_numpy(), err_msg=col)
