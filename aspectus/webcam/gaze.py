@@ -519,7 +519,7 @@ def describe_iris_estimate(info) -> str | None:
     if setting != "auto":
         if used != setting and setting in GAZE_CHOICE_OF["iris_combine"].values:  # e.g. appearance not learnt
             chosen = GAZE_CHOICE_OF["iris_combine"].text_of(setting).removesuffix(" (default)")
-            return f"Iris height from: {text} (chosen: {chosen}, which could not be used on this clip)."
+            return f"Iris height from: {text} (chosen: {chosen}, which could not be used with this clip or settings)."
         return f"Iris height from: {text} (as chosen)."
     px = info.get("median_iris_px")
     reason = str(info.get("reason") or "")

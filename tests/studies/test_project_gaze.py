@@ -110,7 +110,7 @@ def test_iris_estimate_in_plain_words():
     assert describe_iris_estimate({"setting": "limbus", "used": "limbus"}) == \
         "Iris height from: circle fit to the iris edge (as chosen)."
     assert describe_iris_estimate({"setting": "limbus", "used": "face mesh"}).startswith(
-        "Iris height from: the face tracker's iris point")
+        "Iris height from: the face tracker's iris point (chosen: circle fit to the iris edge, which could not be used")
     auto_big = describe_iris_estimate({"setting": "auto", "used": "limbus", "median_iris_px": 24.5,
                                        "reason": "the clip's median iris diameter 24.5 px is not below 17.3 px"})
     assert auto_big == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 24.5 px "
