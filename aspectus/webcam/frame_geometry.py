@@ -448,6 +448,8 @@ class FrameGeometry:
                 "size_changes": self.size_changes, "anchored_frames": self.anchored_frames,
                 "unanchored_frames": self.unanchored_frames, "anchor_matches": self.anchors.matched,
                 "anchor_misses": self.anchors.missed,
+                "region_registered": None if self._region is None else self._region.registered,
+                "region_failed": None if self._region is None else self._region.failed,
                 "skin_pose_frames": None if self.skin is None else self.skin.solved_frames,
                 "skin_pose_fallback_frames": None if self.skin is None else self.skin.fallback_frames}
 

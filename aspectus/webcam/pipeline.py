@@ -543,6 +543,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         "eye_anchor_frames": state.get("anchored_frames"),
         "eye_anchor_fallback_frames": state.get("unanchored_frames"),
         "eye_anchor_match_frac": _fraction(state.get("anchor_matches"), state.get("anchor_misses")),
+        "eye_anchor_region_frac": _fraction(state.get("region_registered"), state.get("region_failed")),
         "skin_pose_frames": state.get("skin_pose_frames"),
         "skin_pose_fallback_frames": state.get("skin_pose_fallback_frames"),
         "geometry_process_peak_rss_mb": state.get("peak_rss_mb"),

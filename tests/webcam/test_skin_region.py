@@ -134,6 +134,7 @@ def placements(lund_dir, tmp_path_factory):
         ok = cap["found"] & np.isfinite(e).all(axis=1)
         out[name] = (e[ok] - np.median(e[ok], axis=0)).std(axis=0)
         out[name + "_used"] = meta["gaze_model"]["eye_anchor_set"]["used"]
+        out[name + "_region_frac"] = meta["eye_anchor_region_frac"]
     return out
 
 
@@ -157,6 +158,9 @@ def test_the_sets_measured_against_the_default_small_face_set_stay_at_their_leve
     p = placements
     assert p["below_low_cheeks_and_beside_used"] == "below_low_cheeks_and_beside"
     assert p["skin_region_used"] == "skin_region"
+    # run.json says how often the region was registered (the other sets have no region)
+    assert p["skin_region_region_frac"] >= 0.8, p["skin_region_region_frac"]
+    assert p["below_low_cheeks_and_beside_region_frac"] is None and p["auto_region_frac"] is None
     assert p["below_low_cheeks_and_beside"][0] <= 0.42 and p["below_low_cheeks_and_beside"][1] <= 0.40
     assert p["skin_region"][0] <= 0.5 and p["skin_region"][1] <= 0.36
 
