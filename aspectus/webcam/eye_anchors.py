@@ -62,7 +62,7 @@ from aspectus._env import import_cv2
 #: ``"below_low_cheeks_and_beside"``: the points of ``"below_and_beside"`` and four on the cheeks a little further
 #: from the lower lids (117 and 118, 346 and 347: 14-16 mm below the eyeball centres, 8-13 mm in front of them).
 #: ``"skin_region"``: not points followed one by one but one masked region of skin spanned by these points (below,
-#: cheeks, beside the eyes, nose bridge 6, 168, 197), registered to a key frame in its shift
+#: cheeks, beside the eyes; the nose bridge 6, 168, 197 only shape the map), registered to a key frame in its shift
 #: (:mod:`aspectus.webcam.skin_region`). Both measured at classroom scale against ``"below_and_beside"`` and left
 #: as options (neither won on a clear majority of held-out dev clips; docs/notes/gaze-measurement.md).
 #: Whatever the set, the tracker follows the six points below the eyes first (the eye patches' frames are placed by

@@ -416,7 +416,7 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
           "Also two points on each cheek a little further from the lower lid. For comparisons: in our tests on "
           "small faces it was no better overall than below and beside."),
          ("skin_region", "the skin round the eyes as one patch",
-          "Follows the skin below and beside both eyes and the nose bridge as one patch, the eyes left out. For "
+          "Follows the skin below and beside both eyes as one patch, the eyes left out. For "
           "comparisons: in our tests on small faces it read up/down a little more fully but placed the head worse "
           "sideways."))),
     GazeChoice(

@@ -3,9 +3,10 @@
 The eye anchors (:mod:`aspectus.webcam.eye_anchors`) follow a few templates of a few pixels each; at classroom
 scale (iris 8-12 px) those templates are 6-12 px wide and lie next to the lower lid, and on rendered clips they
 moved with the eyes (up to 0.5-1.3 px per 10 deg of eye-in-head pitch; docs/notes/gaze-measurement.md). Here one
-larger region is followed instead: the skin below and beside both eyes and the nose bridge between them
-(:data:`REGION_POINTS`), with each eye opening and a margin round it (:data:`EYE_MARGIN_RADII` iris radii beyond the
-face mesh's eye outline) left out. It is registered to a key frame by the Lucas-Kanade method (Lucas & Kanade
+larger region is followed instead: the skin below and beside both eyes, the hull of each side's points
+(:data:`HULLS`; the nose bridge's points 6, 168, 197 of :data:`REGION_POINTS` enter the affine map below, not the
+region), with each eye opening and a margin round it (:data:`EYE_MARGIN_RADII` iris radii beyond the face mesh's
+eye outline; the same erosion trims the region's outer edge) left out. It is registered to a key frame by the Lucas-Kanade method (Lucas & Kanade
 1981; Baker & Matthews 2004, the inverse-compositional form) in its translation only: the face mesh's region
 points give the rest of the map from the key frame to this frame (an affine map fitted to them by least squares:
 scale, roll and the foreshortening of a turning head), and the registration finds the sub-pixel shift that the
