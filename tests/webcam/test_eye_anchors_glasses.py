@@ -40,6 +40,27 @@ def test_a_dark_rim_across_the_template_is_seen_a_fold_is_not():
     assert not EA.crossed_by_rim(_patch(0.0), c, c, half, r)
 
 
+def test_noise_in_a_dark_picture_is_not_a_rim():
+    """The contrasts are fractions of the grey level; in a dark, noisy picture the noise alone exceeds them. Before
+    the noise bound (LINE_NOISE_SDS) a uniform grey of 20 with noise SD 5 was read as crossed in 41 of 50 boxes
+    and a grey of 10 with SD 3 in 50 of 50, so no anchor there was ever matched."""
+    from aspectus.webcam import eye_anchors as EA
+
+    r, size = 5.0, 41
+    half, c = int(round(EA.PATCH_RADII * r)), size // 2
+    for level, sd in ((10, 2), (10, 3), (20, 5)):
+        flagged = sum(EA.crossed_by_rim(np.clip(level + sd * np.random.default_rng(k).standard_normal((size, size)),
+                                                0, 255).astype(np.uint8), c, c, half, r) for k in range(50))
+        assert flagged <= 2, (level, sd, flagged)
+    # a rim well above the noise in a dim picture is still seen (grey 40, SD 5, the rim 32 darker: 6 SDs)
+    seen = 0
+    for k in range(20):
+        img = 40.0 + 5.0 * np.random.default_rng(100 + k).standard_normal((size, size))
+        img[c + 2:c + 5] -= 32.0
+        seen += EA.crossed_by_rim(np.clip(img, 0, 255).astype(np.uint8), c, c, half, r)
+    assert seen >= 18
+
+
 def test_a_template_on_a_rim_is_not_matched():
     from aspectus.webcam import eye_anchors as EA
 
