@@ -198,15 +198,13 @@ class FrameGeometry:
         # its refit's model points in the set's order
         self._small = None
         self.small_face: bool | None = None  # the decision, once made
-        self._small_region = None
-        if self.auto_anchors and AUTO_SMALL_FACE_SET in REGION_SETS:
-            self._small_region = SkinRegionTracker()
         if self.auto_anchors:
+            # the small-face set is a set of points (a region set would need its own tracker here)
+            assert AUTO_SMALL_FACE_SET not in REGION_SETS, AUTO_SMALL_FACE_SET
             small_pts = ANCHOR_SETS[AUTO_SMALL_FACE_SET]
-            extra = () if self._small_region is not None else tuple(p for p in small_pts if p not in tracked)
+            extra = tuple(p for p in small_pts if p not in tracked)
             self._small = EyeAnchorTracker(extra)
-            self._small_rows = (None if self._small_region is not None else
-                                np.array([(tracked + extra).index(p) for p in small_pts], dtype=np.intp))
+            self._small_rows = np.array([(tracked + extra).index(p) for p in small_pts], dtype=np.intp)
             self._small_model = self.anchors_model_mm(small_pts)
             self._small_minus_pnp: np.ndarray | None = None
         # the sets that leave out a point beside an eye while the head is turned away from it: per point, the
@@ -277,8 +275,6 @@ class FrameGeometry:
                 self._region.reset()
             if self._small is not None:
                 self._small.reset()
-                if self._small_region is not None:
-                    self._small_region.reset()
                 self._small_minus_pnp = None
             self.sampler.reset()
             self._anchor_minus_pnp = None
@@ -370,11 +366,8 @@ class FrameGeometry:
         r_px = anchor_radius_px(m["iris_diam_px"])
         if eyes is not None and np.isfinite(r_px) and r_px >= MIN_ANCHOR_RADIUS_PX and self._last_all is not None:
             off = np.array([eyes_origin_px[0], eyes_origin_px[1], 0.0])
-            if self._small_region is not None:
-                p = self._small_region.update(eyes, points_px - off, r_px, rotation=R) + off[:2]
-            else:
-                p = np.vstack([self._last_all, self._small.update(eyes, points_px - off, r_px) + off[:2]])
-                p = p[self._small_rows]
+            p = np.vstack([self._last_all, self._small.update(eyes, points_px - off, r_px) + off[:2]])
+            p = p[self._small_rows]
             t_s = translation_given_rotation(R, self._small_model, p, self.solver.K)
             if t_s is not None:
                 self._small_minus_pnp = t_s - t_pnp
