@@ -88,14 +88,20 @@ def test_the_app_passes_gaze_settings_as_the_command_line_does(gaze):
     assert app.fingerprint() == ProcessParams(gaze=cli).fingerprint()
 
 
-def test_outdated_when_a_run_used_other_gaze_settings(tmp_path):
-    """A clip whose run.json records other gaze settings than the study's is outdated; the same ones are current."""
+def _study_with_a_clip(tmp_path):
+    """A study with one (undecodable) clip and its empty output folder: (study, clip, folder)."""
     s = study_mod.new_study(path=tmp_path / "s.aspectus-study.json")
     clip = tmp_path / "p01_s01.mp4"
     clip.write_bytes(b"\0" * 16)
     c = s.add_clip(clip)
     out = s.clip_out_dir(c)
     out.mkdir(parents=True)
+    return s, c, out
+
+
+def test_outdated_when_a_run_used_other_gaze_settings(tmp_path):
+    """A clip whose run.json records other gaze settings than the study's is outdated; the same ones are current."""
+    s, c, out = _study_with_a_clip(tmp_path)
     (out / "run.json").write_text(json.dumps({"params": ProcessParams().to_dict()}))
     s.process = {"fov_deg": 60.0, "face": "largest", "max_faces": 2, "gaze": {"iris_combine": "auto"}}
     assert s.refresh_status(c) == study_mod.STATUS_DONE
@@ -132,12 +138,7 @@ def test_a_blink_pad_saved_in_frames_is_read_in_ms(tmp_path):
     study and in a run's run.json alike (aspectus.webcam.gaze.GazeParams.from_dict)."""
     settings, notes = gaze_settings_from_stored({"blink_pad_frames": 2, "mirrored": True})
     assert settings == {"blink_pad_ms": 80.0, "mirrored": True} and notes == []
-    s = study_mod.new_study(path=tmp_path / "s.aspectus-study.json")
-    clip = tmp_path / "p01_s01.mp4"
-    clip.write_bytes(b"\0" * 16)
-    c = s.add_clip(clip)
-    out = s.clip_out_dir(c)
-    out.mkdir(parents=True)
+    s, c, out = _study_with_a_clip(tmp_path)
     params = ProcessParams().to_dict()
     del params["gaze"]["blink_pad_ms"]
     s.process = {"fov_deg": 60.0, "face": "largest", "max_faces": 2, "gaze": {}}  # the default pad, 40 ms
