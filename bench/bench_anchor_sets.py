@@ -85,7 +85,7 @@ def chain(items, anchor_set: str) -> tuple[dict, dict]:
     """The per-frame geometry with ``anchor_set`` and the pipeline's clip-level iris estimate (``auto``):
     estimate_gaze's inputs and the iris estimate's record."""
     from aspectus.webcam import pipeline as PL
-    from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, LABEL_DIAM, LIMBUS_DIAM, RECORD_WIDTH, FrameGeometry
+    from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, LIMBUS_DIAM, RECORD_WIDTH, FrameGeometry
     from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX
     from aspectus.webcam.iris_appearance import small_iris
 
@@ -124,16 +124,14 @@ def chain(items, anchor_set: str) -> tuple[dict, dict]:
     iris = a[:, 15:19].reshape(n, 2, 2).copy()
     small, med = small_iris(a[found, 19:21], AUTO_APPEARANCE_BELOW_PX)
     used = "limbus"
-    limbus_diam = a[:, LIMBUS_DIAM]
     if small:
         patches = np.ascontiguousarray(rows[:, w:]).view(np.uint8)
         iris_app, info = PL._appearance_iris(a, patches, found)
         if any(b[e].get("fitted") for b in info["blocks"] for e in ("right", "left")):
             iris, used = iris_app, "appearance"
-            limbus_diam = a[:, RECORD_WIDTH + LABEL_DIAM.start:RECORD_WIDTH + LABEL_DIAM.stop]  # its labels' fits
     kw = {"K": np.asarray(geo.state()["K"]), "found": found, "R": R, "t": t, "iris_px": iris,
           "iris_diam_px": a[:, 19:21], "corners_px": a[:, 21:29].reshape(n, 2, 2, 2), "ear": a[:, 29:31],
-          "t_s": a[:, 0], "iris_mesh_px": a[:, 31:35].reshape(n, 2, 2), "limbus_diam_px": limbus_diam}
+          "t_s": a[:, 0], "iris_mesh_px": a[:, 31:35].reshape(n, 2, 2), "limbus_diam_px": a[:, LIMBUS_DIAM]}
     return kw, {"used": used, "median_iris_px": med, "geometry_ms_per_frame": cpu_ms,
                 "placement_ms_per_frame": placement_ms}
 

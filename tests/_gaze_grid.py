@@ -221,7 +221,6 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
     "below"}``, which acts in the per-frame geometry); the variants re-estimate with them too.
     """
     from aspectus.webcam import pipeline
-    from aspectus.webcam.frame_geometry import LIMBUS_DIAM
     from aspectus.webcam.gaze import GazeParams, estimate_gaze
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
@@ -234,11 +233,7 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
         return estimate_gaze(**kw)
 
     def app_spy(a, patches, found):
-        # the fits iris_combine="limbus" takes (with the side-arc rule), failed ones missing as the pipeline marks them
-        diam = a[:, LIMBUS_DIAM].copy()
-        iris = a[:, 15:19].reshape(len(a), 2, 2).copy()
-        iris[~np.isfinite(diam)] = np.nan
-        captured["limbus_iris_px"], captured["limbus_fit_diam_px"] = iris, diam
+        captured["limbus_iris_px"] = a[:, 15:19].reshape(len(a), 2, 2).copy()
         return orig_app(a, patches, found)
 
     pipeline.estimate_gaze, pipeline._appearance_iris = spy, app_spy
@@ -248,7 +243,6 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
     finally:
         pipeline.estimate_gaze, pipeline._appearance_iris = estimate_gaze, orig_app
     limbus_iris = captured.pop("limbus_iris_px", None)
-    limbus_diam = captured.pop("limbus_fit_diam_px", None)
     choice = meta["gaze_model"].get("iris_estimate") or {}
     anchors = meta["gaze_model"].get("eye_anchor_set") or {}
     rows = []
@@ -261,7 +255,7 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
             if src == "truth":
                 kw["iris_px"] = true_iris_px(res.truth, mirrored=cond.mirror)
             elif src == "limbus" and limbus_iris is not None:
-                kw["iris_px"], kw["limbus_diam_px"] = limbus_iris, limbus_diam
+                kw["iris_px"] = limbus_iris
             s = with_gaze(samples, **kw, params=GazeParams(mirrored=cond.mirror, **(pipeline_gaze or {}) | over))
         rows.append(asdict(cond) | {"label": cond.label(), "variant": name} | measure(s, res.truth, trial)
                     | {"iris_estimate": choice.get("used") if not over else None,

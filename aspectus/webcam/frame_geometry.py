@@ -34,7 +34,7 @@ from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, frame_measurements
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, PATCH_BYTES, EyePatchSampler, small_iris
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
-from aspectus.webcam.limbus import ROI_RADII, limbus_centres_both, limbus_centres_many
+from aspectus.webcam.limbus import ROI_RADII, limbus_centres_many
 from aspectus.webcam.skin_pose import SKIN_POSE_POINTS, SkinPose
 from aspectus.webcam.skin_region import SkinRegionTracker
 
@@ -51,18 +51,9 @@ RECORD_WIDTH = sum(n for _, n in RECORD_COLUMNS)
 #: iris scale (:func:`aspectus.webcam.gaze.limbus_iris_scale`); 16 bytes a frame, some 1.7 MB an hour at 30 fps
 LIMBUS_DIAM = slice(RECORD_WIDTH - 2, RECORD_WIDTH)
 #: columns that follow those with ``appearance`` on (:mod:`aspectus.webcam.iris_appearance`): whether each
-#: eye's limbus fit succeeded (1/0), each eye's patch frame (2 x 2 x 3, NaN where the frame has no patch), the
-#: limbus fits the appearance estimate learns from and takes where it predicts nothing (centres, diameters;
-#: those fitted without the side-arc rule, :data:`aspectus.webcam.limbus.SIDE_DEG`: ``iris_px`` and
-#: ``limbus_diam_px`` hold the fits with it, the gaze estimate where the limbus fit is that; NaN once the
-#: patches are no longer sampled) and both eyes' patches, uint8 bytes carried in float64 columns (read back
-#: with ``.view(np.uint8)``); ``limbus_ok`` is that of the label fits
-APPEARANCE_COLUMNS = (("limbus_ok", 2), ("patch_affine", 12), ("label_iris_px", 4), ("label_diam_px", 2),
-                      ("patches", PATCH_BYTES // 8))
-#: offsets of the label fits' columns from :data:`RECORD_WIDTH` (rows with ``appearance`` on)
-LABEL_IRIS = slice(14, 18)
-LABEL_DIAM = slice(18, 20)
-_PATCHES_AT = 20
+#: eye's limbus fit succeeded (1/0), each eye's patch frame (2 x 2 x 3, NaN where the frame has no patch) and
+#: both eyes' patches, uint8 bytes carried in float64 columns (read back with ``.view(np.uint8)``)
+APPEARANCE_COLUMNS = (("limbus_ok", 2), ("patch_affine", 12), ("patches", PATCH_BYTES // 8))
 APPEARANCE_WIDTH = sum(n for _, n in APPEARANCE_COLUMNS)
 
 #: frames per message to the geometry process, and most frames per batch of limbus fits in either runner
@@ -263,24 +254,12 @@ class FrameGeometry:
             if job is not None:
                 fits.append((k, job))
         if fits:
-            jobs = [job[0] for _, job in fits]
-            # the fits with the side-arc rule are the gaze estimate where the limbus fit is that; while eye
-            # patches are sampled, also those without it, the appearance estimate's labels (aspectus.webcam.limbus)
-            labels = self.appearance and self._sampling
-            if labels:
-                plain, sides = limbus_centres_both(jobs, diameters=True)
-            else:
-                plain, sides = None, limbus_centres_many(jobs, diameters=True, side_arcs=True)
-            w = RECORD_WIDTH
-            for j, (k, (_, off)) in enumerate(fits):
-                iris, _, diam = sides[j]
+            for (k, (_, off)), (iris, ok, diam) in zip(fits, limbus_centres_many([job[0] for _, job in fits],
+                                                                                  diameters=True)):
                 out[k, 15:19] = (iris + off).ravel()
                 out[k, LIMBUS_DIAM] = diam
-                if labels:
-                    iris, ok, diam = plain[j]
-                    out[k, w:w + 2] = ok
-                    out[k, w + LABEL_IRIS.start:w + LABEL_IRIS.stop] = (iris + off).ravel()
-                    out[k, w + LABEL_DIAM.start:w + LABEL_DIAM.stop] = diam
+                if self.appearance:
+                    out[k, RECORD_WIDTH:RECORD_WIDTH + 2] = ok
         return out
 
     def _row_before_iris(self, pts_s, size_px, points_px, face_count, eyes=None, eyes_origin_px=(0, 0)):
@@ -366,7 +345,7 @@ class FrameGeometry:
         if patches is None:
             return
         row[w + 2:w + 14] = A.ravel()
-        row[w + _PATCHES_AT:] = np.ascontiguousarray(patches).reshape(-1).view(np.float64)
+        row[w + 14:] = np.ascontiguousarray(patches).reshape(-1).view(np.float64)
 
     def _decide_small(self) -> None:
         """The "auto" settings' one decision, from the frames with a face seen so far (then no more): whether to go

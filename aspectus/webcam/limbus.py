@@ -48,11 +48,6 @@ ROI_RADII = 2.6
 EDGE_NOISE_PX = 0.45
 #: the fitted radius stays within this fraction of the face mesh's iris radius
 _R_TOL = 0.15
-#: limbus candidates within this angle of the horizontal (seen from the circle's centre) count as rim, never as
-#: lid in front of it: in an open eye the upper lid covers some 1-2 mm of the 11.7 mm iris and the lower lid
-#: less (common anatomy, from memory), while a lid reaches these angles only when it covers half the iris's
-#: radius (2.9 mm) or more. :func:`fit_circle`'s one-sided weights apply to the other candidates only.
-SIDE_DEG = 30.0
 
 
 def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -70,20 +65,17 @@ def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.nd
     return s[:, 0], s[:, 1], s[:, 2]
 
 
-def _weights(res: np.ndarray, huber_px: float, inside_px: float | None, sided: np.ndarray | None = None) -> np.ndarray:
-    """The circle fit's weights of residuals ``res`` (:func:`fit_circle`); ``sided`` (same shape, optional): the
-    points the one-sided weights apply to (the others get the symmetric Huber weights)."""
-    huber = huber_px / np.maximum(np.abs(res), huber_px)  # 1 within huber_px, huber_px / |res| beyond
+def _weights(res: np.ndarray, huber_px: float, inside_px: float | None) -> np.ndarray:
+    """The circle fit's weights of residuals ``res`` (:func:`fit_circle`)."""
     if inside_px is None:
-        return huber
+        return huber_px / np.maximum(np.abs(res), huber_px)  # 1 within huber_px, huber_px / |res| beyond
     # the first factor is 1 inside the circle, the second 1 outside it
-    one = huber_px / np.maximum(res, huber_px) * np.square(inside_px / np.maximum(-res, inside_px))
-    return one if sided is None else np.where(sided, one, huber)
+    return huber_px / np.maximum(res, huber_px) * np.square(inside_px / np.maximum(-res, inside_px))
 
 
 def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: float = 0.2,
                iterations: int = 8, huber_px: float = 1.0, inside_px: float | None = None,
-               r_start: float | None = None, sided: np.ndarray | None = None) -> tuple[np.ndarray, float, float]:
+               r_start: float | None = None) -> tuple[np.ndarray, float, float]:
     """Robust geometric circle fit (centre, radius, RMS residual in px).
 
     Gauss-Newton on the distances of the points from the circle, with Huber
@@ -100,31 +92,25 @@ def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: flo
     falls off as ``1 / |res|`` (a redescending, Cauchy-like tail), so the
     lid/iris junctions no longer pull the circle inwards. The RMS returned
     is then weighted the same way (that of the points taken as the rim).
-    ``sided`` (N,) bool, optional: the points the one-sided weights apply to;
-    the others, which no occluder can hide, keep the symmetric Huber weight
-    (default: all points).
 
     One circle; :func:`fit_circles` fits many at once.
     """
     pts = np.asarray(points, dtype=float)[None]
     c, r, rms = fit_circles(pts, np.ones(pts.shape[:2], bool), np.asarray(centre0, float)[None], np.array([float(r0)]),
                             r_tol=r_tol, iterations=iterations, huber_px=huber_px, inside_px=inside_px,
-                            r_start=None if r_start is None else np.array([float(r_start)]),
-                            sided=None if sided is None else np.asarray(sided, bool)[None])
+                            r_start=None if r_start is None else np.array([float(r_start)]))
     return c[0], float(r[0]), float(rms[0])
 
 
 def fit_circles(points: np.ndarray, valid: np.ndarray, centre0: np.ndarray, r0: np.ndarray, *,
                 r_tol: float = 0.2, iterations: int = 8, huber_px: float = 1.0, inside_px: float | None = None,
-                r_start: np.ndarray | None = None, sided: np.ndarray | None = None
-                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                r_start: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """:func:`fit_circle` for many point sets at once.
 
     Parameters
     ----------
     points : (E, N, 2) candidate points of E circles (padded); valid : (E, N) bool, the points that count.
     centre0 : (E, 2) starting centres; r0 : (E,) nominal radii; r_start : (E,) starting radii, optional.
-    sided : (E, N) bool, optional: the points the one-sided weights (``inside_px``) apply to.
 
     Returns
     -------
@@ -154,7 +140,7 @@ def fit_circles(points: np.ndarray, valid: np.ndarray, centre0: np.ndarray, r0: 
         dist = np.sqrt(dx * dx + dy * dy)
         np.maximum(dist, 1e-9, out=dist)
         np.subtract(dist, r[:, None], out=J[:, 3])
-        w = _weights(J[:, 3], huber_px, inside_px, sided) * vf
+        w = _weights(J[:, 3], huber_px, inside_px) * vf
         np.divide(dx, dist, out=J[:, 0])
         np.divide(dy, dist, out=J[:, 1])
         G = (J[:, :3] * w[:, None, :]) @ J.transpose(0, 2, 1)  # (E, 3, 4): J'WJ | J'W res
@@ -168,7 +154,7 @@ def fit_circles(points: np.ndarray, valid: np.ndarray, centre0: np.ndarray, r0: 
     res = np.sqrt(dx * dx + dy * dy) - r[:, None]
     # with one-sided weights the RMS of the rim points: weighted, so that occluder edges well inside the
     # circle hardly count
-    w = vf if inside_px is None else _weights(res, huber_px, inside_px, sided) * vf
+    w = vf if inside_px is None else _weights(res, huber_px, inside_px) * vf
     with np.errstate(invalid="ignore", divide="ignore"):
         rms = np.sqrt((w * res * res).sum(1) / w.sum(1))
     return np.stack([cx, cy], axis=1), r, rms
@@ -211,7 +197,7 @@ class _Eye:
     """One eye's region of one frame, prepared for ray casting (ROI px)."""
 
     __slots__ = ("frame", "eye", "origin", "c0", "r", "g", "dist", "radii", "cur", "r_fit", "index", "ray_x", "ray_y",
-                 "rad_step", "side_arcs", "fitted")
+                 "rad_step")
 
     def __init__(self, frame, eye, origin, c0, r, g, dist, radii):
         self.frame, self.eye, self.origin = frame, eye, origin
@@ -220,14 +206,6 @@ class _Eye:
         self.index = -1  # row in the batch's distance maps (:func:`limbus_centres_many`)
         self.ray_x = self.ray_y = None  # the rays' sample offsets from the centre (the same in every pass)
         self.rad_step = (radii[-1] - radii[0]) / (len(radii) - 1)
-        self.side_arcs = False  # the fit's rule for the candidates near the horizontal (SIDE_DEG)
-        self.fitted = False
-
-    def copy(self) -> _Eye:
-        """The same eye region (its arrays shared), fitted anew."""
-        other = _Eye(self.frame, self.eye, self.origin, self.c0, self.r, self.g, self.dist, self.radii)
-        other.index, other.ray_x, other.ray_y = self.index, self.ray_x, self.ray_y
-        return other
 
 
 def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None:
@@ -253,41 +231,26 @@ def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None
 
 
 def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
-                        diameters: bool = False, side_arcs: bool = False) -> list[tuple[np.ndarray, ...]]:
+                        diameters: bool = False) -> list[tuple[np.ndarray, ...]]:
     """:func:`limbus_centres` of several frames, ``items`` = [(image, points_px, iris_px, iris_diam_px), ...].
 
     With ``diameters`` each frame's tuple also holds both eyes' fitted circle diameters, px (2,), NaN where
-    the fit failed (the iris scale, :func:`aspectus.webcam.gaze.limbus_iris_scale`). With ``side_arcs`` the
-    candidates within :data:`SIDE_DEG` of the horizontal count as rim, never as lid (the fit that is itself
-    the gaze estimate; without, the fits the appearance estimate learns from). Both at once:
-    :func:`limbus_centres_both`.
+    the fit failed (the iris scale, :func:`aspectus.webcam.gaze.limbus_iris_scale`).
 
     The ray casting and circle fits of all eyes run together, pass by pass
     (the per-eye arithmetic is the same; NumPy's per-call cost, which is
     most of the time for a few dozen points, is paid once per pass rather
     than once per eye).
     """
-    return _limbus_runs(items, (bool(side_arcs),), min_points=min_points, n_rays=n_rays, passes=passes,
-                        diameters=diameters)[0]
-
-
-def limbus_centres_both(items, *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
-                        diameters: bool = False) -> tuple[list, list]:
-    """:func:`limbus_centres_many` without and with ``side_arcs``, the eye regions prepared once."""
-    without, with_ = _limbus_runs(items, (False, True), min_points=min_points, n_rays=n_rays, passes=passes,
-                                  diameters=diameters)
-    return without, with_
-
-
-def _limbus_runs(items, side_arcs: tuple, *, min_points, n_rays, passes, diameters) -> list:
-    """:func:`limbus_centres_many`'s results once per entry of ``side_arcs`` (all eyes' fits in one batch)."""
     cv2 = import_cv2()
     if n_rays not in _RAYS:
         ang = np.linspace(0, 2 * np.pi, n_rays, endpoint=False)
         _RAYS[n_rays] = (np.cos(ang), np.sin(ang))
     cos_a, sin_a = _RAYS[n_rays]
-    prepared = []
+    outs, fitted, eyes = [], [], []
     for f, (image, points_px, iris_px, iris_diam_px) in enumerate(items):
+        outs.append(np.array(iris_px, float).copy())
+        fitted.append(np.zeros(2, bool))
         for e, outline in enumerate(_OUTLINES):
             r = 0.5 * float(iris_diam_px[e])
             c0 = np.array(iris_px[e], float)
@@ -295,17 +258,8 @@ def _limbus_runs(items, side_arcs: tuple, *, min_points, n_rays, passes, diamete
                 continue
             eye = _prepare_eye(cv2, image, points_px, outline, c0, r, f, e)
             if eye is not None:
-                prepared.append(eye)
-    dist = _distance_maps(prepared) if prepared else None
-    runs, eyes = [], []
-    for v, sides in enumerate(side_arcs):
-        outs = [np.array(item[2], float).copy() for item in items]
-        fitted = [np.zeros(2, bool) for _ in items]
-        mine = prepared if v == 0 else [eye.copy() for eye in prepared]
-        for eye in mine:
-            eye.side_arcs = sides
-        eyes += mine
-        runs.append((outs, fitted, mine))
+                eyes.append(eye)
+    dist = _distance_maps(eyes) if eyes else None
     active = eyes
     for _ in range(passes):
         if not active:
@@ -316,19 +270,15 @@ def _limbus_runs(items, side_arcs: tuple, *, min_points, n_rays, passes, diamete
             if nxt is None or np.hypot(*(nxt[0] - eye.c0)) > eye.r:
                 continue
             eye.cur, eye.r_fit = nxt
-            eye.fitted = True
+            fitted[eye.frame][eye.eye] = True
             still.append(eye)
         active = still
-    out = []
-    for outs, fitted, mine in runs:
-        diams = [np.full(2, np.nan) for _ in items]
-        for eye in mine:
-            outs[eye.frame][eye.eye] = eye.cur + eye.origin
-            if eye.fitted:
-                fitted[eye.frame][eye.eye] = True
-                diams[eye.frame][eye.eye] = 2.0 * eye.r_fit
-        out.append(list(zip(outs, fitted, diams)) if diameters else list(zip(outs, fitted)))
-    return out
+    diams = [np.full(2, np.nan) for _ in items]
+    for eye in eyes:
+        outs[eye.frame][eye.eye] = eye.cur + eye.origin
+        if fitted[eye.frame][eye.eye]:
+            diams[eye.frame][eye.eye] = 2.0 * eye.r_fit
+    return list(zip(outs, fitted, diams)) if diameters else list(zip(outs, fitted))
 
 
 def _distance_maps(eyes: list) -> np.ndarray:
@@ -397,13 +347,8 @@ def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | 
         return out
     sel = np.flatnonzero(ok)
     pts = np.stack([qx[sel], qy[sel]], axis=2)
-    # the candidates near the horizontal are rim whatever the lids do (SIDE_DEG): with one-sided weights there
-    # too, a circle 2-3 px higher and 5-9 % larger through the lower lid's junction with the iris, with the true
-    # rim's upper side arcs inside it, cost little, and the fit flipped between the two from frame to frame
-    sides = np.array([eyes[k].side_arcs for k in sel])
-    sided = ~sides[:, None] | (np.abs(sin_a)[None, :] >= np.sin(np.radians(SIDE_DEG)))
     c, rfit, rms = fit_circles(pts, keep[sel], centre[sel], r[sel], r_tol=_R_TOL, inside_px=EDGE_NOISE_PX,
-                               r_start=r_start[sel], sided=sided)
+                               r_start=r_start[sel])
     grown = rfit >= (1 + _R_TOL) * r[sel] * (1 - 1e-9)
     if grown.any():
         # With the one-sided weights a circle that holds every candidate inside it costs little, so a fit

@@ -48,7 +48,7 @@ from aspectus.run_record import missing_output, read_run_json, refuse_foreign_fi
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
-from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LABEL_DIAM, LABEL_IRIS, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
+from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
                                             frame_item, start_geometry)
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
@@ -319,8 +319,8 @@ def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> t
     from aspectus.webcam.iris_appearance import PATCH_SIZE, appearance_iris
 
     n = len(a)
+    iris = a[:, 15:19].reshape(n, 2, 2).copy()
     w = RECORD_WIDTH
-    iris = a[:, w + LABEL_IRIS.start:w + LABEL_IRIS.stop].reshape(n, 2, 2).copy()  # the fits without the side arcs
     limbus = iris.copy()
     limbus[~(a[:, w:w + 2] > 0.5)] = np.nan
     rel, _ = relative_aperture(found, a[:, 29:31])
@@ -500,10 +500,6 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         patches.close()  # the patches are not needed any more (the temporary file goes with it)
     if choice is not None:
         choice["used"] = "appearance" if app_info is not None else ("limbus" if refine else "face mesh")
-    # the limbus fits' diameters: with the appearance estimate those it learnt from, else those of the fits
-    # with the side-arc rule (aspectus.webcam.frame_geometry.APPEARANCE_COLUMNS)
-    limbus_diam = (a[:, RECORD_WIDTH + LABEL_DIAM.start:RECORD_WIDTH + LABEL_DIAM.stop] if fitted
-                   else a[:, LIMBUS_DIAM])
     if refine and not fitted:
         # where the limbus fit failed the record holds the face mesh's iris point: marked missing, so that the
         # gaze estimate bridges it from the neighbouring fits (gaze.fill_iris_gaps; the raw mesh point only past
@@ -515,7 +511,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
         iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None,
-        limbus_diam_px=limbus_diam if params.gaze.refine_iris else None, params=params.gaze)
+        limbus_diam_px=a[:, LIMBUS_DIAM] if params.gaze.refine_iris else None, params=params.gaze)
     if app_info is not None:
         ginfo["iris_appearance"] = app_info
     ginfo["iris_estimate"] = choice or {"setting": combine, "used": ("face mesh" if not refine else "limbus"

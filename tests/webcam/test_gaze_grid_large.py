@@ -10,8 +10,7 @@ large part from the 7 + 34 frames (right, left eye) where the limbus fit failed:
 point, 2-3 px off vertically there, so the gaze stepped by 5-8 deg each time the source changed. With the true
 centres in those frames the figures were 1.60 deg and gain 0.89; the gaps bridged in the head
 (:func:`aspectus.webcam.gaze.fill_iris_gaps`) read 1.53 deg and 0.87. The rest is the limbus fit's own vertical
-error on fitted frames (SD 0.75 / 1.09 px right / left; docs/notes/gaze-measurement.md), most of it a second
-solution of the fit that the side-arc rule (:data:`aspectus.webcam.limbus.SIDE_DEG`) removes: 1.39 deg, gain 0.89.
+error on fitted frames (SD 0.75 / 1.09 px right / left; docs/notes/gaze-measurement.md).
 """
 from __future__ import annotations
 
@@ -41,30 +40,17 @@ def test_frames_without_a_limbus_fit_are_bridged_not_taken_from_the_raw_mesh_poi
     kw, samples, meta, truth, trial = cell
     assert meta["gaze_model"]["iris_estimate"]["used"] == "limbus"
     failed = ~np.isfinite(kw["limbus_diam_px"]) & kw["found"][:, None]
-    assert failed.sum() >= 10  # measured 7 + 26 frames (7 + 34 before the side-arc rule)
+    assert failed.sum() >= 10  # measured 7 + 34 frames
     assert np.isnan(kw["iris_px"][failed]).all()  # marked missing, not the mesh point
     gaps = meta["gaze_model"]["iris_gaps"]
-    assert gaps["left"]["filled_frames"] + gaps["right"]["filled_frames"] >= 20  # measured 7 + 17 (7 + 25 before)
+    assert gaps["left"]["filled_frames"] + gaps["right"]["filled_frames"] >= 20  # measured 7 + 25
     now = G.measure(samples, truth, trial)
     raw = np.where(np.isfinite(kw["iris_px"]), kw["iris_px"], kw["iris_mesh_px"])  # the mesh point in the gaps
     before = G.measure(G.with_gaze(samples, **(kw | {"iris_px": raw}), params=GazeParams()), truth, trial)
-    # measured 1.53 -> 1.39 deg, pitch r 0.977 -> 0.979, gain 0.85 -> 0.89; before the limbus fit kept the side
-    # arcs as rim (fewer failed fits since) 2.02 -> 1.53 deg, pitch r 0.969 -> 0.977, gain 0.81 -> 0.87
-    assert now["rms_s2s_deg"] <= 0.93 * before["rms_s2s_deg"]
+    # measured 2.02 -> 1.53 deg, pitch r 0.969 -> 0.977, gain 0.81 -> 0.87 (issue 15's floor RMS-S2S <= 1.5 is
+    # not met: the limbus fit's own vertical error on fitted frames remains)
+    assert now["rms_s2s_deg"] <= 0.85 * before["rms_s2s_deg"]
     assert now["rms_s2s_deg"] <= 1.7
-    assert now["pitch_gain"] >= 0.85 and now["pitch_gain"] >= before["pitch_gain"] + 0.02
+    assert now["pitch_gain"] >= 0.85 and now["pitch_gain"] >= before["pitch_gain"] + 0.03
     assert now["pitch_r"] >= 0.97
     assert now["yaw_r"] >= 0.98 and 0.9 <= now["yaw_gain"] <= 1.1  # measured 0.986-0.987, gain 0.97 -> 0.99
-
-
-def test_limbus_fit_as_the_estimate_keeps_the_side_arcs_as_rim(cell):
-    """Where the limbus fit is the gaze estimate it counts the candidates within SIDE_DEG of the horizontal as
-    rim (aspectus.webcam.limbus): the second solution - a circle 2-3 px higher and 5-9 % larger through the
-    lower lid's junction with the iris - then pays for the side arcs it leaves inside it. Issue 15's floor
-    RMS-S2S <= 1.5 deg is met on this cell: measured 1.53 -> 1.39 deg, pitch r 0.977 -> 0.979, gain
-    0.87 -> 0.89 (without -> with the rule; docs/notes/gaze-measurement.md)."""
-    kw, samples, meta, truth, trial = cell
-    assert meta["gaze_model"]["iris_estimate"]["used"] == "limbus"
-    now = G.measure(samples, truth, trial)
-    assert now["rms_s2s_deg"] <= 1.5
-    assert now["pitch_r"] >= 0.975 and 0.88 <= now["pitch_gain"] <= 1.15

@@ -23,7 +23,6 @@ pytestmark = pytest.mark.slow
 @pytest.fixture(scope="module")
 def figures(lund_dir, tmp_path_factory):
     from aspectus.webcam import pipeline
-    from aspectus.webcam.frame_geometry import LIMBUS_DIAM
     from aspectus.webcam.gaze import GazeParams, estimate_gaze
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
@@ -34,8 +33,7 @@ def figures(lund_dir, tmp_path_factory):
     orig_app, orig_est = pipeline._appearance_iris, pipeline.estimate_gaze
 
     def app_spy(a, patches, found):
-        seen["limbus"] = a[:, 15:19].reshape(len(a), 2, 2).copy()  # the fits iris_combine="limbus" takes
-        seen["limbus_diam"] = a[:, LIMBUS_DIAM].copy()
+        seen["limbus"] = a[:, 15:19].reshape(len(a), 2, 2).copy()
         return orig_app(a, patches, found)
 
     def est_spy(**kw):
@@ -47,8 +45,7 @@ def figures(lund_dir, tmp_path_factory):
         samples, meta = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(iris_combine="appearance")))
     finally:
         pipeline._appearance_iris, pipeline.estimate_gaze = orig_app, orig_est
-    kw = {k: v for k, v in seen["kw"].items() if k != "params"} | {"iris_px": seen["limbus"],
-                                                                   "limbus_diam_px": seen["limbus_diam"]}
+    kw = {k: v for k, v in seen["kw"].items() if k != "params"} | {"iris_px": seen["limbus"]}
     cols, _ = estimate_gaze(**kw, params=GazeParams(iris_combine="limbus"))
     default = samples.copy()
     for c, v in cols.items():
