@@ -757,8 +757,8 @@ def fill_iris_gaps(iris_px: np.ndarray, ref_px: np.ndarray, found: np.ndarray, t
         if fit.sum() >= 2 and gap.any():
             idx = np.flatnonzero(fit)
             # each gap frame's nearest fits before and after it
-            after = np.searchsorted(idx, np.flatnonzero(gap))
             g = np.flatnonzero(gap)
+            after = np.searchsorted(idx, g)
             inside = (after > 0) & (after < len(idx))
             g, after = g[inside], after[inside]
             lo, hi = idx[after - 1], idx[after]

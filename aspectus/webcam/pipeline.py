@@ -514,9 +514,13 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         limbus_diam_px=a[:, LIMBUS_DIAM] if params.gaze.refine_iris else None, params=params.gaze)
     if app_info is not None:
         ginfo["iris_appearance"] = app_info
-    ginfo["iris_estimate"] = choice or {"setting": combine, "used": ("face mesh" if not refine else "limbus"
-                                                                     if combine == "appearance" and not fitted
-                                                                     else combine)}
+    if choice is None:
+        # an explicit setting: appearance that could not be learnt falls back to the limbus fit
+        used = combine if refine else "face mesh"
+        if refine and combine == "appearance" and not fitted:
+            used = "limbus"
+        choice = {"setting": combine, "used": used}
+    ginfo["iris_estimate"] = choice
     ginfo["eye_anchor_set"] = anchors_choice
     pts = a[:, 0].copy()
     counts = a[:, 2].astype(np.int64)
