@@ -40,9 +40,12 @@ HULLS = ((0, 1, 2, 6, 7, 8, 12, 13), (3, 4, 5, 9, 10, 11, 14, 15))
 REGION_MARGIN_RADII = 0.5
 #: pixels closer than this many iris radii to an eye opening (the face mesh's eye outline) are left out
 EYE_MARGIN_RADII = 0.6
-#: Gauss-Newton steps per frame, and the step (px) below which it stops
+#: Gauss-Newton steps per frame, and the step (px) below which it has converged: OpenCV's bilinear warp places
+#: its samples on a grid of 1/32 px (INTER_BITS = 5, OpenCV's imgproc documentation), so a shift changed by less
+#: than that leaves the warped region as it was and the iteration cannot settle finer. A registration still
+#: stepping further than this after MAX_STEPS steps is a miss (the last shift is kept).
 MAX_STEPS = 8
-STOP_STEP_PX = 0.01
+STOP_STEP_PX = 1.0 / 32.0
 #: a registration that moves the region further than this many iris radii from the mesh's prediction fails
 MAX_SHIFT_RADII = 1.0
 #: fewest usable (masked-in) pixels
@@ -79,6 +82,7 @@ class SkinRegionTracker:
         self._misses = 0
         self.registered = 0
         self.failed = 0
+        self.unconverged = 0  # of the failed: the step limit reached before the step fell below STOP_STEP_PX
         self.offset_px = np.zeros(2)  # this frame's region shift from the mesh's points (picture px)
 
     def _cut(self, grey, pts, eyes, r, rotation, offset) -> None:
@@ -168,8 +172,8 @@ class SkinRegionTracker:
             if np.hypot(*step) < STOP_STEP_PX:
                 ok = True
                 break
-        else:
-            ok = True
+        else:  # the step limit reached before the step fell below STOP_STEP_PX: not converged, a miss
+            self.unconverged += 1
         if not ok:
             return self._miss(pts)
         self.offset_px = self.offset_px + G[:, :2] @ d

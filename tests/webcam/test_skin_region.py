@@ -105,6 +105,64 @@ def test_a_failed_registration_keeps_the_last_shift():
     assert tr.failed == 1
 
 
+def _fine_texture(seed, sigma=0.7, shape=(200, 320)):
+    """A random texture finer than the skin's (blobs about a pixel wide), float RGB."""
+    from scipy.ndimage import gaussian_filter
+
+    g = gaussian_filter(np.random.default_rng(seed).normal(size=shape), sigma)
+    g = (g - g.min()) / (g.max() - g.min())
+    return np.repeat((40 + 180 * g)[..., None], 3, axis=2)
+
+
+def test_a_registration_that_does_not_converge_is_a_miss():
+    # something else in front of the region (a hand, hair: another texture, nothing of the key frame's skin), and a
+    # fine texture moved by 4 px, beyond the reach of its gradients: the iteration wanders and has not settled
+    # within its MAX_STEPS steps. Such a frame is a miss (the last shift kept, counted in ``failed`` and so in
+    # run.json's eye_anchor_region_frac), not a registered frame with a shift from wherever the steps stopped.
+    unsettled = 0
+    for seed in range(6):
+        tr = SkinRegionTracker()
+        tr.update(_texture(seed=seed).round().astype(np.uint8), _points(), 5.0)
+        got = tr.update(_texture(seed=100 + seed).round().astype(np.uint8), _points(), 5.0)
+        assert (tr.registered, tr.failed) == (0, 1), seed
+        np.testing.assert_allclose(got, _points()[list(REGION_POINTS), :2])
+        unsettled += tr.unconverged
+    assert unsettled >= 3  # most of them by the step limit (5 of 6 when written), the rest by the shift limit
+    for seed in (0, 2):
+        base = _fine_texture(seed)
+        tr = SkinRegionTracker()
+        tr.update(base.round().astype(np.uint8), _points(), 5.0)
+        got = tr.update(_shifted(base, 4.0, 0.0).round().astype(np.uint8), _points(), 5.0)
+        assert (tr.registered, tr.failed, tr.unconverged) == (0, 1, 1), seed
+        np.testing.assert_allclose(got, _points()[list(REGION_POINTS), :2])
+    # the same fine texture moved by 2 px is within reach: registered, to the shift
+    base = _fine_texture(0)
+    tr = SkinRegionTracker()
+    tr.update(base.round().astype(np.uint8), _points(), 5.0)
+    got = tr.update(_shifted(base, 2.0, 0.0).round().astype(np.uint8), _points(), 5.0)
+    assert (tr.registered, tr.failed) == (1, 0)
+    np.testing.assert_allclose(got, _points()[list(REGION_POINTS), :2] + [2.0, 0.0], atol=0.05)
+
+
+def test_the_convergence_step_is_the_finest_shift_the_warp_resolves():
+    # OpenCV's bilinear warpAffine puts its samples on a 1/32 px grid (INTER_BITS = 5; OpenCV imgproc
+    # documentation): a shift of 0.01 px leaves the warped picture unchanged, 0.05 px does not. A stopping step
+    # below that grid could be met only by chance (docs/notes/gaze-measurement.md).
+    import aspectus.webcam.skin_region as SR
+    from aspectus._env import import_cv2
+
+    cv2 = import_cv2()
+    g = _texture(seed=1)[..., 0].astype(np.float32)
+
+    def warp(dx):
+        M = np.array([[1.0, 0.0, 40.0 + dx], [0.0, 1.0, 40.0]])
+        return cv2.warpAffine(g, M, (60, 40), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP)
+
+    assert np.array_equal(warp(0.01), warp(0.0))
+    assert not np.array_equal(warp(0.05), warp(0.0))
+    assert SR.STOP_STEP_PX >= 1 / 32
+
+
 # --- the head placement against the renderer's truth on a rendered classroom-scale clip -----------------------
 
 
