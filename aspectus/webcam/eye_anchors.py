@@ -374,23 +374,29 @@ def crossed_by_rim(image: np.ndarray, xi: int, yi: int, half: int, r: float) -> 
     minus picture, read on a margin around the box so its edge is right) with a connected set of line pixels that
     spans the box and is somewhere darker than :data:`RIM_CONTRAST` of the box's median grey (every line pixel also
     darker than :data:`LINE_NOISE_SDS` of the box's noise SDs, so noise alone is not a line). A spectacle rim, in
-    front of the face, slides over the skin by parallax as the head turns and would hold the correlation's peak;
-    False where the box and its margin reach outside the picture."""
+    front of the face, slides over the skin by parallax as the head turns and would hold the correlation's peak.
+    Near the picture's edge (the picture may be a crop round the eyes) the box and its margin are read where they
+    are inside it: the closing there takes only the pixels inside, and a line spans the box's inside part; False
+    where none of the box is inside."""
     cv2 = import_cv2()
     k = max(3, 2 * int(round(0.5 * LINE_WIDTH_RADII * r)) + 1)
     m = k // 2 + 1
-    g = _grey(image, xi - half - m, yi - half - m, xi + half + 1 + m, yi + half + 1 + m)
-    if g is None:
+    h, w = image.shape[:2]
+    bx0, by0, bx1, by1 = max(0, xi - half), max(0, yi - half), min(w, xi + half + 1), min(h, yi + half + 1)
+    if bx1 <= bx0 or by1 <= by0:
         return False
-    hat = cv2.morphologyEx(g, cv2.MORPH_BLACKHAT, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k)))[m:-m, m:-m]
-    box = g[m:-m, m:-m]
+    x0, y0 = max(0, bx0 - m), max(0, by0 - m)
+    g = _grey(image, x0, y0, min(w, bx1 + m), min(h, by1 + m))
+    # OpenCV's morphology leaves the pixels beyond the picture out of its maxima and minima (its default border)
+    hat = cv2.morphologyEx(g, cv2.MORPH_BLACKHAT, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k)))
+    inside = (slice(by0 - y0, by1 - y0), slice(bx0 - x0, bx1 - x0))
+    hat, box = hat[inside], g[inside]
     med = float(np.median(box))
     line = hat > max(LINE_CONTRAST * med, LINE_NOISE_SDS * _noise_sd(box))
     if not line.any():
         return False
     n, lab, st, _ = cv2.connectedComponentsWithStats(line.astype(np.uint8))
-    size = 2 * half + 1
-    return any(max(st[i, 2], st[i, 3]) >= size and float(hat[lab == i].max()) > RIM_CONTRAST * med
+    return any((st[i, 2] >= bx1 - bx0 or st[i, 3] >= by1 - by0) and float(hat[lab == i].max()) > RIM_CONTRAST * med
                for i in range(1, n))
 
 

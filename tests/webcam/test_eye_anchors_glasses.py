@@ -93,6 +93,73 @@ def test_a_template_on_a_rim_is_not_matched():
     assert plain.last_matched[0] and moved[0, 1] - 40.0 > 1.0
 
 
+def _skin(size=41, level=180.0, seed=0) -> np.ndarray:
+    """A skin-like grey picture (level 180, fine texture), float."""
+    return level + 4.0 * np.random.default_rng(seed).standard_normal((size, size))
+
+
+def _u8(img):
+    return np.clip(img, 0, 255).astype(np.uint8)
+
+
+def test_a_rim_is_seen_at_the_picture_edge_and_plain_skin_is_not():
+    """A template whose box lies at the picture's edge (the eye crop's edge, often) with part of the margin the
+    top-hat reads outside it: the rule is read on the part inside, so a rim crossing such a box is seen as in the
+    middle of the picture, and plain skin, a fold and noise in a dark picture are not."""
+    from aspectus.webcam import eye_anchors as EA
+
+    r, size = 8.0, 41
+    half = int(round(EA.PATCH_RADII * r))
+    lo, hi = half, size - 1 - half  # box centres whose box touches the edge (its margin is outside)
+    for xi, yi in ((lo, lo), (hi, lo), (lo, hi), (hi, hi), (lo, size // 2), (size // 2, hi)):
+        for seed in range(3):
+            # a horizontal rim (80 % darker than the skin) 2 px below the box centre, and a vertical one (a frame's
+            # side) 2 px beside it
+            across = _skin(seed=seed)
+            across[yi + 1:yi + 4] -= 0.8 * 180.0
+            down = _skin(seed=seed)
+            down[:, xi + 1:xi + 4] -= 0.8 * 180.0
+            assert EA.crossed_by_rim(_u8(across), xi, yi, half, r), (xi, yi, seed)
+            assert EA.crossed_by_rim(_u8(down), xi, yi, half, r), (xi, yi, seed)
+            # plain skin, a fold 40 % darker and a dark picture's noise (grey 20, SD 5): not a rim
+            fold = _skin(seed=seed)
+            fold[yi + 1:yi + 4] -= 0.4 * 180.0
+            dark = 20.0 + 5.0 * np.random.default_rng(50 + seed).standard_normal((size, size))
+            for img in (_skin(seed=seed), fold, dark):
+                assert not EA.crossed_by_rim(_u8(img), xi, yi, half, r), (xi, yi, seed)
+    # a box with none of it inside the picture is not crossed
+    assert not EA.crossed_by_rim(_u8(_skin()), -half - 1, 20, half, r)
+
+
+def test_a_template_on_a_rim_at_the_picture_edge_is_not_matched():
+    from aspectus.webcam import eye_anchors as EA
+
+    # as in test_a_template_on_a_rim_is_not_matched, the point 9 or 10 px from the picture's left edge (iris radius
+    # 8 px: template box half-width 6, search 3 px, the top-hat's margin 5 px): the match's window is inside the
+    # picture, the margin is not
+    rng = np.random.default_rng(1)
+    import cv2
+
+    skin = cv2.GaussianBlur(180.0 + 6.0 * rng.standard_normal((80, 80)), (0, 0), 1.0)
+    a, b = skin.copy(), skin.copy()
+    a[44:47] -= 150.0
+    b[46:49] -= 150.0
+    for x in (9.0, 10.0):
+        pts = np.zeros((468, 2))
+        pts[229] = (x, 40.0)
+        tr = EA.EyeAnchorTracker((229,))
+        tr.update(_u8(a), pts, 8.0)
+        assert tr.on_rim[0], x
+        out = tr.update(_u8(b), pts, 8.0)
+        assert not tr.last_matched[0] and np.allclose(out[0], (x, 40.0)), x
+        # plain skin at the same place is matched
+        plain = EA.EyeAnchorTracker((229,))
+        plain.update(_u8(skin), pts, 8.0)
+        assert not plain.on_rim[0]
+        plain.update(_u8(skin), pts, 8.0)
+        assert plain.last_matched[0], x
+
+
 @pytest.mark.slow
 def test_glasses_clip_yaw_follows_the_truth(lund_dir, tmp_path):
     # the dev clip the rule was worked out on ("a16g" in the notes; not a grid cell): 1280 x 720 at 800 mm (iris
