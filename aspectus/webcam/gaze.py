@@ -234,6 +234,22 @@ class GazeParams:
         median error 4.3 % -> 3.0 % (docs/notes/gaze-measurement.md). run.json
         records both clip medians and which was used
         (``gaze_model.iris_scale``).
+    iris_registration : bool
+        Fuse the iris centres with the iris's motion between frames, read by
+        registering the iris disc in the head-stabilised eye patches
+        (:mod:`aspectus.webcam.iris_registration`: Lucas-Kanade increments
+        as the process, the absolute centres as observations, a Kalman
+        smoother whose gain and noise levels come from the clip itself).
+        Needs ``refine_iris`` and ``eye_anchors`` and the eye patches: with
+        ``iris_combine="auto"`` only where the appearance estimate is taken
+        (iris below 17.3 px); with another ``iris_combine`` the patches are
+        sampled for it (0.2-1.0 ms a frame in the per-frame geometry, 768
+        bytes a frame on disk). Default False: on the gaze grid and twelve
+        held-out rendered clips it lowered RMS-S2S but not the fixation
+        agreement with hand-coders on a clear majority
+        (docs/notes/gaze-measurement.md, "The iris's motion from
+        registration between frames"); costs about 3 ms a frame at the
+        clip's end. run.json: ``gaze_model.iris_registration``.
     mirrored : bool
         The clip shows the subject mirrored left to right (as webcam
         software often records it): everything is measured in the mirror
@@ -256,6 +272,7 @@ class GazeParams:
     mirrored: bool = False
     fuse_in_head: bool = True
     iris_scale: str = "limbus"
+    iris_registration: bool = False
 
     def __post_init__(self):
         from aspectus.errors import ParameterError
@@ -279,13 +296,18 @@ class GazeParams:
         if self.iris_combine not in IRIS_COMBINE:
             raise ParameterError(f"gaze parameter iris_combine = {self.iris_combine!r} is not one of "
                                  f"{', '.join(IRIS_COMBINE)}")
-        for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored", "fuse_in_head"):
+        for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored", "fuse_in_head",
+                     "iris_registration"):
             if not isinstance(getattr(self, name), bool):
                 raise ParameterError(f"gaze parameter {name} must be true or false, got {getattr(self, name)!r}")
         if self.iris_combine == "appearance" and not (self.refine_iris and self.eye_anchors):
             raise ParameterError("gaze parameter iris_combine = 'appearance' needs refine_iris and eye_anchors "
                                  "(the eye patches are read from the eye picture in a frame the eye anchors place): "
                                  "set both true, or choose iris_combine limbus, rescale or fuse")
+        if self.iris_registration and not (self.refine_iris and self.eye_anchors):
+            raise ParameterError("gaze parameter iris_registration needs refine_iris and eye_anchors (the iris is "
+                                 "registered in eye patches read from the eye picture in a frame the eye anchors "
+                                 "place): set both true, or iris_registration false")
         if self.head_rotation == "skin" and not self.refine_iris:
             raise ParameterError("gaze parameter head_rotation = 'skin' needs refine_iris (the skin points are "
                                  "followed on the picture sent with the eye crop): set refine_iris true, or choose "

@@ -336,6 +336,27 @@ def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> t
     return iris, info
 
 
+def _registered_iris(a: np.ndarray, patches, found: np.ndarray, iris: np.ndarray) -> tuple[np.ndarray, dict]:
+    """The iris centres ``iris`` (N, 2, 2) fused with the iris disc's registered motion between frames
+    (``iris_registration``; :func:`aspectus.webcam.iris_registration.registered_iris`). ``a``: the record with the
+    appearance columns; ``patches``: (N, 2, H, W) uint8 or a :class:`_PatchFile` of N rows."""
+    from aspectus.webcam.gaze import OPEN_EYE_REL, relative_aperture
+    from aspectus.webcam.iris_appearance import PATCH_SIZE
+    from aspectus.webcam.iris_registration import registered_iris
+
+    n = len(a)
+    rel, _ = relative_aperture(found, a[:, 29:31])
+    usable = found & (rel >= OPEN_EYE_REL)
+    if isinstance(patches, np.ndarray):
+        W, H = PATCH_SIZE
+        patches = patches.reshape(n, 2, H, W)
+    t0 = time.process_time()
+    out, info = registered_iris(patches, a[:, RECORD_WIDTH + 2:RECORD_WIDTH + 14].reshape(n, 2, 2, 3), iris,
+                                a[:, 19:21], usable)
+    info["cpu_ms_per_frame"] = round((time.process_time() - t0) * 1e3 / max(n, 1), 3)
+    return out, info
+
+
 #: how the stages of one clip run: "overlapped" (decoding in a thread, the geometry in a child process or
 #: thread, beside the face mesh: fastest for one clip on a machine of its own) or "serial" (all in the
 #: calling thread, one after the other: the least CPU per frame, for batch workers that each have a core)
@@ -385,12 +406,15 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     # kept as uint8 beside the record, the limbus-fit flags and patch frames in more record columns
     combine = params.gaze.iris_combine
     appearance = refine and combine in ("appearance", "auto") and bool(params.gaze.eye_anchors)
+    # the iris's registered motion between frames (aspectus.webcam.iris_registration) reads the same patches
+    registration = refine and bool(params.gaze.iris_registration) and bool(params.gaze.eye_anchors)
+    sample_patches = appearance or registration
     cap = min(max(n_hint + 16, 64), 1 << 20)
     n_meta = sum(k for name, k in APPEARANCE_COLUMNS if name != "patches")
-    rec = _Grow(RECORD_WIDTH + (n_meta if appearance else 0), cap=cap)
+    rec = _Grow(RECORD_WIDTH + (n_meta if sample_patches else 0), cap=cap)
     sink = rec.append
     patches = None
-    if appearance:
+    if sample_patches:
         patches = _PatchFile(PATCH_BYTES)  # on disk: an hour of them is some 80 MB
         sink = _SplitSink(rec, patches, RECORD_WIDTH + n_meta,
                           decide_below_px=AUTO_APPEARANCE_BELOW_PX if combine == "auto" else None)
@@ -418,7 +442,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     sys.setswitchinterval(0.0005)
     geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=sink, frames_hint=n_hint,
                               mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors),
-                              anchor_set=params.gaze.eye_anchor_set, skin_pose=skin, appearance=appearance,
+                              anchor_set=params.gaze.eye_anchor_set, skin_pose=skin, appearance=sample_patches,
                               appearance_below_px=AUTO_APPEARANCE_BELOW_PX if combine == "auto" else None)
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
@@ -465,16 +489,16 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     app_info = None
     choice = {"setting": combine, "threshold_px": AUTO_APPEARANCE_BELOW_PX,
               "median_iris_px": _round(median_iris_px(a[found, 19:21]))} if combine == "auto" else None
-    if appearance and combine == "auto":
+    if sample_patches and combine == "auto":
         sink.decide()  # a clip shorter than the deciding frames
         choice["first_frames_median_iris_px"] = _round(sink.first_median_iris_px)
         choice["first_frames"] = AUTO_DECIDE_FRAMES
         if not sink.keep:
-            appearance = False
+            appearance = registration = False
             choice["reason"] = (f"median iris diameter of the first frames {choice['first_frames_median_iris_px']} px "
                                 f"is not below {AUTO_APPEARANCE_BELOW_PX} px: no eye patches kept")
         elif not (choice["median_iris_px"] is not None and choice["median_iris_px"] < AUTO_APPEARANCE_BELOW_PX):
-            appearance = False
+            appearance = registration = False
             choice["reason"] = (f"the clip's median iris diameter {choice['median_iris_px']} px is not below "
                                 f"{AUTO_APPEARANCE_BELOW_PX} px")
     elif combine == "auto":
@@ -496,8 +520,6 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
             iris = a[:, 15:19].reshape(n, 2, 2)
             if choice is not None:
                 app_info = None
-    if patches is not None:
-        patches.close()  # the patches are not needed any more (the temporary file goes with it)
     if choice is not None:
         choice["used"] = "appearance" if app_info is not None else ("limbus" if refine else "face mesh")
     if refine and not fitted:
@@ -507,6 +529,15 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         # by 1-3 px vertically, and the gaze stepped each time the source changed)
         iris = np.array(iris, float)
         iris[~np.isfinite(a[:, LIMBUS_DIAM])] = np.nan
+    reg_info = None
+    if params.gaze.iris_registration:
+        reg_info = {"applied": False, "reason": "the eye patches were not kept (iris_combine auto: iris not below "
+                                                f"{AUTO_APPEARANCE_BELOW_PX} px)" if refine and params.gaze.eye_anchors
+                    else "needs refine_iris and eye_anchors"}
+    if registration and patches is not None:
+        iris, reg_info = _registered_iris(a, patches, found, iris)
+    if patches is not None:
+        patches.close()  # the patches are not needed any more (the temporary file goes with it)
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
@@ -514,6 +545,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         limbus_diam_px=a[:, LIMBUS_DIAM] if params.gaze.refine_iris else None, params=params.gaze)
     if app_info is not None:
         ginfo["iris_appearance"] = app_info
+    if reg_info is not None:
+        ginfo["iris_registration"] = reg_info
     if choice is None:
         # an explicit setting: appearance that could not be learnt falls back to the limbus fit
         used = combine if refine else "face mesh"
