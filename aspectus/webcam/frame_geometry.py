@@ -155,6 +155,10 @@ class FrameGeometry:
         With the eye picture and the anchors: also sample both eyes into patches in the anchors' frame
         (:class:`aspectus.webcam.iris_appearance.EyePatchSampler`) and record whether each limbus fit
         succeeded; the rows are then :data:`APPEARANCE_WIDTH` columns wider (:data:`APPEARANCE_COLUMNS`).
+    iris_shape : bool
+        With ``refine_iris``: fit the iris as the ellipse its circle fit's centre predicts, measured from the
+        eyeball centres the head model places under the frame's pose (:meth:`_eyeball_px`;
+        ``GazeParams.iris_shape="ellipse"``, :func:`aspectus.webcam.limbus.iris_shape`); default False (a circle).
     appearance_below_px : float or None
         With ``appearance``: stop sampling patches (their columns stay empty) once the first
         :data:`aspectus.webcam.iris_appearance.DECIDE_FRAMES` frames with a face show a median iris diameter
@@ -163,7 +167,7 @@ class FrameGeometry:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None):
+                 appearance_below_px: float | None = None, iris_shape: bool = False):
         self.fov_deg = float(fov_deg)
         self.appearance = bool(appearance)
         self.width = RECORD_WIDTH + (APPEARANCE_WIDTH if self.appearance else 0)
@@ -173,6 +177,8 @@ class FrameGeometry:
         self._last_anchors: np.ndarray | None = None
         self._last_all: np.ndarray | None = None  # this frame's followed points of the anchor set
         self.refine_iris = bool(refine_iris)
+        self.iris_shape = bool(iris_shape)
+        self._eyes_model: np.ndarray | None = None
         self.eye_anchors = bool(eye_anchors)
         self.skin = SkinPose() if skin_pose else None
         self.solver: HeadPoseSolver | None = None
@@ -254,8 +260,10 @@ class FrameGeometry:
             if job is not None:
                 fits.append((k, job))
         if fits:
-            for (k, (_, off)), (iris, ok, diam) in zip(fits, limbus_centres_many([job[0] for _, job in fits],
-                                                                                  diameters=True)):
+            eyeballs = [job[2] for _, job in fits] if self.iris_shape else None
+            for (k, (_, off, *_e)), (iris, ok, diam) in zip(fits, limbus_centres_many([job[0] for _, job in fits],
+                                                                                       diameters=True,
+                                                                                       eyeball_px=eyeballs)):
                 out[k, 15:19] = (iris + off).ravel()
                 out[k, LIMBUS_DIAM] = diam
                 if self.appearance:
@@ -322,7 +330,21 @@ class FrameGeometry:
         row[21:29] = m["corners_px"].ravel()
         row[29:31] = m["ear"]
         row[31:35] = m["iris_px"].ravel()
+        if job is not None and self.iris_shape:
+            job = job + (self._eyeball_px(R, t) - job[1],)
         return row, job
+
+    def _eyeball_px(self, R: np.ndarray, t: np.ndarray) -> np.ndarray:
+        """Both eyeball centres' picture positions (right, left; px) by the head model under this frame's pose:
+        where the iris shape the limbus fit expects is measured from (:func:`aspectus.webcam.limbus.iris_shape`)."""
+        if self._eyes_model is None:
+            from aspectus.webcam.headpose import face_model
+
+            model = face_model()
+            self._eyes_model = np.stack([model.eye_right_mm, model.eye_left_mm]).astype(np.float64)
+        X = self._eyes_model @ np.asarray(R, float).T + np.asarray(t, float)
+        p = X @ np.asarray(self.solver.K, float).T
+        return p[:, :2] / p[:, 2:3]
 
     def _skin_rotation(self, R_mesh, t_mesh, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
         """The head rotation from the skin points (:class:`aspectus.webcam.skin_pose.SkinPose`), or where they
@@ -496,10 +518,10 @@ class GeometryThread:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None):
+                 appearance_below_px: float | None = None, iris_shape: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
                                   anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px)
+                                  appearance_below_px=appearance_below_px, iris_shape=iris_shape)
         self._sink = sink
         self._q: queue.Queue = queue.Queue(maxsize=2 * _BATCH)  # room for a whole batch of limbus fits
         self._failure: list[BaseException] = []
@@ -554,10 +576,10 @@ class GeometryInline:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None):
+                 appearance_below_px: float | None = None, iris_shape: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
                                   anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px)
+                                  appearance_below_px=appearance_below_px, iris_shape=iris_shape)
         self._sink = sink
         self._pending: list = []
 
@@ -587,7 +609,8 @@ def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
     Started by :class:`GeometryProcess` with the arguments
-    ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE [APPEARANCE [BELOW_PX]]]]]`` (BELOW_PX "-" for none). Anything
+    ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE [APPEARANCE [BELOW_PX [IRIS_SHAPE]]]]]]`` (BELOW_PX "-" for
+    none). Anything
     else that would print to stdout goes to stderr, so it cannot corrupt the replies.
     """
     args = list(sys.argv[1:] if argv is None else argv)
@@ -597,11 +620,13 @@ def child_main(argv=None) -> int:
     skin_pose = len(args) > 4 and args[4] == "1"
     appearance = len(args) > 5 and args[5] == "1"
     appearance_below_px = float(args[6]) if len(args) > 6 and args[6] != "-" else None
+    iris_shape = len(args) > 7 and args[7] == "1"
     out = os.fdopen(os.dup(1), "wb")
     os.dup2(2, 1)  # stray prints from libraries go to stderr
     inp = sys.stdin.buffer
     geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors, anchor_set=anchor_set,
-                        skin_pose=skin_pose, appearance=appearance, appearance_below_px=appearance_below_px)
+                        skin_pose=skin_pose, appearance=appearance, appearance_below_px=appearance_below_px,
+                        iris_shape=iris_shape)
 
     def reply(obj) -> bool:
         try:
@@ -663,14 +688,15 @@ class GeometryProcess:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None):
+                 appearance_below_px: float | None = None, iris_shape: bool = False):
         self._sink = sink
         if anchor_set not in ANCHOR_SET_CHOICES:
             raise ValueError(f"anchor set must be one of {', '.join(ANCHOR_SET_CHOICES)}, got {anchor_set!r}")
         self._proc = subprocess.Popen(
             [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parents[1]), repr(float(fov_deg)),
              "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set, "1" if skin_pose else "0",
-             "1" if appearance else "0", "-" if appearance_below_px is None else repr(float(appearance_below_px))],
+             "1" if appearance else "0", "-" if appearance_below_px is None else repr(float(appearance_below_px)),
+             "1" if iris_shape else "0"],
             stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._out: queue.Queue = queue.Queue(maxsize=32)  # batches in flight: some 30 MB of eye crops at most
         self._pending: list = []
@@ -765,27 +791,28 @@ class GeometryProcess:
 
 def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
                    eye_anchors: bool = True, anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False,
-                   appearance: bool = False, appearance_below_px: float | None = None):
+                   appearance: bool = False, appearance_below_px: float | None = None, iris_shape: bool = False):
     """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
     application, or when no child can be started); ``mode`` forces ``"thread"``, ``"process"`` or
     ``"inline"`` (:class:`GeometryInline`, in the calling thread). ``skin_pose``: the head rotation from skin
     points followed on the picture (:class:`FrameGeometry`); the frames must then be cut with
-    ``frame_item(..., skin_pose=True)``."""
+    ``frame_item(..., skin_pose=True)``. ``iris_shape``: the limbus fit fits the iris as the ellipse its circle
+    fit's centre predicts (:class:`FrameGeometry`)."""
     if mode not in ("auto", "thread", "process", "inline"):
         raise ValueError(f"geometry mode must be auto, thread, process or inline, got {mode!r}")
     if mode == "inline":
         return GeometryInline(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
                               anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px)
+                              appearance_below_px=appearance_below_px, iris_shape=iris_shape)
     frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
             return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
                               anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px)
+                              appearance_below_px=appearance_below_px, iris_shape=iris_shape)
         except OSError:
             if mode == "process":
                 raise
     return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
                               anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px)
+                              appearance_below_px=appearance_below_px, iris_shape=iris_shape)

@@ -65,6 +65,8 @@ AUTO_APPEARANCE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)), 1)
 OPEN_EYE_REL = 0.8
 #: where the iris's size in pixels (the metric scale) comes from (GazeParams.iris_scale)
 IRIS_SCALES = ("limbus", "mesh")
+#: the shapes the limbus fit can take the iris's picture to have (GazeParams.iris_shape)
+IRIS_SHAPES = ("circle", "ellipse")
 #: fewest open-eye limbus fits (both eyes' together) for the limbus scale; with fewer the face mesh's is used
 MIN_SCALE_FITS = 30
 
@@ -250,6 +252,28 @@ class GazeParams:
         (docs/notes/gaze-measurement.md, "The iris's motion from
         registration between frames"); costs about 3 ms a frame at the
         clip's end. run.json: ``gaze_model.iris_registration``.
+    iris_shape : {"circle", "ellipse"}
+        The shape the limbus fit gives the iris in the picture (with
+        ``refine_iris``). ``"circle"`` (default): a circle. ``"ellipse"``: the
+        disc seen obliquely - an ellipse whose minor axis lies along the
+        direction in which the eye is turned from the camera, minor/major the
+        cosine of the angle between the gaze and the line of sight
+        (:func:`aspectus.webcam.limbus.iris_shape`). The circle fit's centre,
+        measured from the eyeball centre the head model places under the
+        frame's head pose, predicts that ellipse; two more passes fit its
+        centre and major radius (the limbus diameter, and so the iris scale,
+        is then the major axis). It helps where the eyes look far off the
+        camera's axis (a camera well below or above a screen): on five
+        rendered target clips with the gaze about 10-40 deg off it the
+        known-target check's accuracy after offset improved on all five
+        (e.g. 1.68 -> 1.01 deg) and its fitted gains moved towards 1 on four;
+        after offset and gain on three. Where the gaze stays within about 15
+        deg of the camera it was worse on four of five target clips and mixed
+        on seven gaze-grid clips (RMS-S2S lower on four, kappa lower on two),
+        so it is not the default. What limits it is the eyeball centre the
+        shape is measured from (about 2 mm off on the rendered faces):
+        docs/notes/gaze-measurement.md. The limbus fit costs about 1.5 times
+        the CPU (three passes instead of two).
     mirrored : bool
         The clip shows the subject mirrored left to right (as webcam
         software often records it): everything is measured in the mirror
@@ -273,6 +297,7 @@ class GazeParams:
     fuse_in_head: bool = True
     iris_scale: str = "limbus"
     iris_registration: bool = False
+    iris_shape: str = "circle"
 
     def __post_init__(self):
         from aspectus.errors import ParameterError
@@ -291,6 +316,9 @@ class GazeParams:
         if self.iris_scale not in IRIS_SCALES:
             raise ParameterError(f"gaze parameter iris_scale = {self.iris_scale!r} is not one of "
                                  f"{', '.join(IRIS_SCALES)}")
+        if self.iris_shape not in IRIS_SHAPES:
+            raise ParameterError(f"gaze parameter iris_shape = {self.iris_shape!r} is not one of "
+                                 f"{', '.join(IRIS_SHAPES)}")
         if self.head_rotation not in ("mesh", "skin"):
             raise ParameterError(f"gaze parameter head_rotation = {self.head_rotation!r} is not one of mesh, skin")
         if self.iris_combine not in IRIS_COMBINE:

@@ -27,6 +27,18 @@ was 0.77-0.85. An occluder can only make the visible iris smaller, so no
 true edge lies outside the rim: points outside keep the Huber weight, points
 further inside than the edge noise count little. Too few candidates (a
 nearly closed eye, a tiny iris) or a poor fit keep the mesh's point.
+
+An iris seen obliquely is an ellipse, not a circle: the disc is perpendicular
+to the gaze, so its picture's minor/major ratio is the cosine of the angle
+between the gaze and the line of sight, the minor axis along the direction
+the eye is turned (:func:`iris_shape`). With the lids hiding the top and
+bottom arcs, a circle through the side arcs then misses the centre: on drawn
+ellipses of a 25 px iris 30 deg off the line of sight by 0.4-0.8 px, at 10
+deg by 0.07 px. Given the eyeballs' picture positions
+(:func:`limbus_centres_many`, ``eyeball_px``) the circle's centre predicts
+the ellipse, and its centre and major radius are fitted as a circle to the
+candidates stretched along the minor axis (:func:`shape_warp`), twice. It is
+an option (``GazeParams.iris_shape``): docs/notes/gaze-measurement.md.
 """
 from __future__ import annotations
 
@@ -48,6 +60,11 @@ ROI_RADII = 2.6
 EDGE_NOISE_PX = 0.45
 #: the fitted radius stays within this fraction of the face mesh's iris radius
 _R_TOL = 0.15
+#: the iris plane's distance from the eyeball centre in iris radii (10.5 mm / 5.85 mm: the gaze model's,
+#: aspectus.webcam.gaze.IRIS_PLANE_RADIUS_MM over half of IRIS_DIAMETER_MM)
+_PLANE_PER_IRIS_RADIUS = float(np.sqrt(12.0 ** 2 - 5.85 ** 2) / 5.85)
+#: the iris shape's largest sin(angle off the line of sight) (60 deg: ratio 0.5)
+_MAX_SIN = float(np.sin(np.radians(60.0)))
 
 
 def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -161,7 +178,8 @@ def fit_circles(points: np.ndarray, valid: np.ndarray, centre0: np.ndarray, r0: 
 
 
 def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray, iris_diam_px: np.ndarray,
-                   *, min_points: int = 8, n_rays: int = 48, passes: int = 2) -> tuple[np.ndarray, np.ndarray]:
+                   *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
+                   shapes: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Both eyes' iris centres (right, left) fitted to the limbus.
 
     Rays are cast from the face mesh's iris point every ``360 / n_rays``
@@ -190,14 +208,14 @@ def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray
     Several frames at once: :func:`limbus_centres_many` (the same results).
     """
     return limbus_centres_many([(image, points_px, iris_px, iris_diam_px)], min_points=min_points,
-                               n_rays=n_rays, passes=passes)[0]
+                               n_rays=n_rays, passes=passes, shapes=None if shapes is None else [shapes])[0]
 
 
 class _Eye:
     """One eye's region of one frame, prepared for ray casting (ROI px)."""
 
     __slots__ = ("frame", "eye", "origin", "c0", "r", "g", "dist", "radii", "cur", "r_fit", "index", "ray_x", "ray_y",
-                 "rad_step")
+                 "rad_step", "warp")
 
     def __init__(self, frame, eye, origin, c0, r, g, dist, radii):
         self.frame, self.eye, self.origin = frame, eye, origin
@@ -206,6 +224,7 @@ class _Eye:
         self.index = -1  # row in the batch's distance maps (:func:`limbus_centres_many`)
         self.ray_x = self.ray_y = None  # the rays' sample offsets from the centre (the same in every pass)
         self.rad_step = (radii[-1] - radii[0]) / (len(radii) - 1)
+        self.warp = None  # (2, 2) map that turns the eye's expected ellipse into a circle (:func:`shape_warp`)
 
 
 def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None:
@@ -230,12 +249,44 @@ def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None
     return _Eye(frame, e, origin, c0 - origin, r, g, dist, radii)
 
 
+def shape_warp(ratio: float, angle_rad: float) -> np.ndarray | None:
+    """The linear map that stretches an ellipse of minor/major ``ratio``, minor axis at ``angle_rad`` from the
+    picture's x axis (towards +y), along its minor axis into a circle of its major radius (None: a circle)."""
+    if not (np.isfinite(ratio) and np.isfinite(angle_rad)) or ratio >= 1.0 or ratio <= 0.0:
+        return None
+    u = np.array([np.cos(angle_rad), np.sin(angle_rad)])
+    return np.eye(2) + (1.0 / ratio - 1.0) * np.outer(u, u)
+
+
+def iris_shape(offset_px: np.ndarray, r_px: float) -> tuple[float, float]:
+    """The projected iris's (minor/major ratio, minor-axis angle, rad) from the iris centre's picture offset from
+    the eyeball centre's picture position and the iris's radius, px (weak perspective).
+
+    The iris centre lies ``IRIS_PLANE_RADIUS_MM`` (10.5 mm) from the eyeball centre along the gaze ``g``, so its
+    offset in the picture is that length times the component of ``g`` across the line of sight, at the iris's
+    own scale (``r_px`` per 5.85 mm): ``|offset| / (r_px * 10.5 / 5.85) = sin(theta)``, ``theta`` the angle
+    between the gaze and the line of sight. The iris disc is perpendicular to ``g``, so its picture is an
+    ellipse with minor/major ratio ``cos(theta)``, its minor axis along the offset (the orthographic image of
+    a tilted circle).
+    """
+    s = float(np.hypot(offset_px[0], offset_px[1])) / (r_px * _PLANE_PER_IRIS_RADIUS)
+    if not np.isfinite(s):
+        return 1.0, 0.0
+    s = min(s, _MAX_SIN)
+    return float(np.sqrt(1.0 - s * s)), float(np.arctan2(offset_px[1], offset_px[0]))
+
+
 def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
-                        diameters: bool = False) -> list[tuple[np.ndarray, ...]]:
+                        diameters: bool = False, shapes=None, eyeball_px=None) -> list[tuple[np.ndarray, ...]]:
     """:func:`limbus_centres` of several frames, ``items`` = [(image, points_px, iris_px, iris_diam_px), ...].
 
     With ``diameters`` each frame's tuple also holds both eyes' fitted circle diameters, px (2,), NaN where
     the fit failed (the iris scale, :func:`aspectus.webcam.gaze.limbus_iris_scale`).
+
+    ``eyeball_px``: per frame None or both eyeball centres' picture positions (2, 2), in the pictures'
+    coordinates: the iris is then fitted as the ellipse the first pass's circle predicts (:func:`iris_shape`),
+    ``passes`` more times, and the diameters are the ellipses' major axes. ``shapes``: per frame None or a
+    fixed (ratio, minor-axis angle) per eye (2, 2) for every pass (for measurements against a known shape).
 
     The ray casting and circle fits of all eyes run together, pass by pass
     (the per-eye arithmetic is the same; NumPy's per-call cost, which is
@@ -258,10 +309,15 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes:
                 continue
             eye = _prepare_eye(cv2, image, points_px, outline, c0, r, f, e)
             if eye is not None:
+                if shapes is not None and shapes[f] is not None:
+                    eye.warp = shape_warp(float(shapes[f][e][0]), float(shapes[f][e][1]))
                 eyes.append(eye)
     dist = _distance_maps(eyes) if eyes else None
     active = eyes
-    for _ in range(passes):
+    # with the eyeball centres a circle is fitted first and the ellipse it predicts ``passes`` times after it,
+    # each time with the shape its last fit predicts (the circle's radius lies between the ellipse's axes, which
+    # makes the first prediction's ratio a little off)
+    for _ in range(passes + (eyeball_px is not None)):
         if not active:
             break
         results = _fit_many(cv2, active, cos_a, sin_a, min_points, dist)
@@ -271,6 +327,11 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes:
                 continue
             eye.cur, eye.r_fit = nxt
             fitted[eye.frame][eye.eye] = True
+            if eyeball_px is not None and eyeball_px[eye.frame] is not None:
+                # the next pass fits the ellipse this centre predicts
+                ratio, ang = iris_shape(eye.cur + eye.origin - np.asarray(eyeball_px[eye.frame][eye.eye], float),
+                                        eye.r_fit)
+                eye.warp = shape_warp(ratio, ang)
             still.append(eye)
         active = still
     diams = [np.full(2, np.nan) for _ in items]
@@ -347,7 +408,15 @@ def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | 
         return out
     sel = np.flatnonzero(ok)
     pts = np.stack([qx[sel], qy[sel]], axis=2)
-    c, rfit, rms = fit_circles(pts, keep[sel], centre[sel], r[sel], r_tol=_R_TOL, inside_px=EDGE_NOISE_PX,
+    c0 = centre[sel]
+    # a known ellipse: the points stretched along its minor axis lie on a circle of its major radius
+    warps = [eyes[k].warp for k in sel]
+    shaped = np.array([w_ is not None for w_ in warps])
+    if shaped.any():
+        W = np.stack([np.eye(2) if w_ is None else w_ for w_ in warps])
+        pts = np.einsum("eij,enj->eni", W, pts)
+        c0 = np.einsum("eij,ej->ei", W, c0)
+    c, rfit, rms = fit_circles(pts, keep[sel], c0, r[sel], r_tol=_R_TOL, inside_px=EDGE_NOISE_PX,
                                r_start=r_start[sel])
     grown = rfit >= (1 + _R_TOL) * r[sel] * (1 - 1e-9)
     if grown.any():
@@ -357,9 +426,11 @@ def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | 
         # 1.5 px had mostly reached it; the others end at a median 0.91-0.96 of the mesh's radius). The
         # symmetric fit is used instead.
         g_ = np.flatnonzero(grown)
-        c2, r2, rms2 = fit_circles(pts[g_], keep[sel][g_], centre[sel][g_], r[sel][g_], r_tol=_R_TOL,
+        c2, r2, rms2 = fit_circles(pts[g_], keep[sel][g_], c0[g_], r[sel][g_], r_tol=_R_TOL,
                                    r_start=r_start[sel][g_])
         c[g_], rfit[g_], rms[g_] = c2, r2, rms2
+    if shaped.any():
+        c = np.einsum("eij,ej->ei", np.linalg.inv(W), c)
     for j, k in enumerate(sel):
         cj = c[j]
         if not np.all(np.isfinite(cj)) or np.hypot(cj[0] - centre[k, 0], cj[1] - centre[k, 1]) > r[k] or not rms[j] <= 1.5:

@@ -443,7 +443,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=sink, frames_hint=n_hint,
                               mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors),
                               anchor_set=params.gaze.eye_anchor_set, skin_pose=skin, appearance=sample_patches,
-                              appearance_below_px=AUTO_APPEARANCE_BELOW_PX if combine == "auto" else None)
+                              appearance_below_px=AUTO_APPEARANCE_BELOW_PX if combine == "auto" else None,
+                              iris_shape=params.gaze.iris_shape == "ellipse")
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
         pin_to_cpus(background, geometry.pid)

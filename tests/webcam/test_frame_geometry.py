@@ -96,6 +96,22 @@ def test_thread_and_process_give_identical_rows(frames_and_faces):
     assert s3["size"] == (640, 360) and s3["anchored_frames"] == s1["anchored_frames"]
 
 
+def test_the_ellipse_setting_reaches_every_runner(frames_and_faces):
+    """``iris_shape`` (GazeParams ``iris_shape="ellipse"``): the same rows in a thread, the child process and
+    inline, and not the circle fit's rows (the limbus centres and diameters move; nothing before them does)."""
+    frs, obs = frames_and_faces
+    items = [frame_item(f.pts_s, f.image, o, refine_iris=True) for f, o in zip(frs, obs)]
+    _, a, _ = _run("thread", items, iris_shape=True)
+    _, b, _ = _run("process", items, iris_shape=True)
+    _, c, _ = _run("inline", items, iris_shape=True)
+    np.testing.assert_array_equal(a, b)
+    np.testing.assert_array_equal(a, c)
+    _, circle, _ = _run("thread", items)
+    np.testing.assert_array_equal(a[:, :15], circle[:, :15])  # head pose untouched
+    moved = np.abs(a[:, 15:19] - circle[:, 15:19])
+    assert np.nanmax(moved) > 0.01
+
+
 def test_skin_pose_rows_from_the_crop_and_the_child_are_those_of_the_full_picture(frames_and_faces):
     """The head rotation from skin points (aspectus.webcam.skin_pose) reads the larger crop that
     frame_item(skin_pose=True) cuts: the same rows as on the full picture, in a thread and in the child."""
