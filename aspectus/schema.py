@@ -285,6 +285,11 @@ FEATURE_COLUMNS: tuple[Column, ...] = (
     Column("noise_rms_s2s_deg", "float64", "deg", "precision: RMS of the sample-to-sample distances between "
            "consecutive valid samples of the same fixation (Holmqvist, Nystrom & Mulvey 2012); the same figure as the "
            "clip's noise_rms_s2s_deg in the sidecar and summary", label="Noise, RMS sample to sample"),
+    Column("noise_rms_s2s_33ms_deg", "float64", "deg", "precision at a 33 ms step: RMS of the distances between "
+           "valid samples of the same fixation 33 ms apart (the nearest whole number of sample intervals, at least "
+           "one); noise_rms_s2s_deg at 30 fps and comparable with it at any frame rate (the per-sample figure reads "
+           "lower at higher rates where the error changes over tens of ms); the clip's value sets the precision "
+           "tier", label="Noise, RMS over 33 ms steps"),
 )
 #: feature column names, in order
 FEATURE_COLUMN_NAMES: tuple[str, ...] = tuple(c.name for c in FEATURE_COLUMNS)

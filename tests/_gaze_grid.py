@@ -9,7 +9,8 @@ one of the hand-coded trials of Andersson et al. (2017) (../shared/reference/lun
 * ``rms_fix_deg``, ``rms_s2s_fix_deg``: the error's RMS about its mean over each fixation both coders agree
   on, and its RMS-S2S inside them (:func:`_within_fixations`): per-sample RMS-S2S is comparable across frame
   rates only for white noise, the first is comparable for any error;
-* ``noise_rms_s2s_deg``: the pipeline's own noise figure (run.json's quality), as a user sees it;
+* ``noise_rms_s2s_deg``: the pipeline's own noise figure (run.json's quality), as a user sees it, and
+  ``noise_rms_s2s_33ms_deg``, the same over 33 ms steps (the precision tier's figure; equal at 30 fps);
 * ``yaw_r``, ``yaw_gain``, ``pitch_r``, ``pitch_gain``: Pearson r and the least-squares slope of the
   estimate on the truth over valid frames;
 * ``kappa``: Cohen's (1960) sample kappa, fixation vs not, of the default detector on the clip's samples
@@ -142,7 +143,9 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     true_samples = pd.DataFrame({"t_s": truth["t_s"], "valid": True, "yaw_deg": truth["yaw_deg"],
                                  "pitch_deg": truth["pitch_deg"]})
     out["kappa_truth"] = _kappa(true_samples, coders)
-    out["noise_rms_s2s_deg"] = float(run_analysis(samples).quality.get("noise_rms_s2s_deg", np.nan))
+    q = run_analysis(samples).quality
+    out["noise_rms_s2s_deg"] = float(q.get("noise_rms_s2s_deg", np.nan))
+    out["noise_rms_s2s_33ms_deg"] = float(q.get("noise_rms_s2s_33ms_deg", np.nan))
     return out
 
 

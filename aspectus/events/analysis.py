@@ -254,7 +254,9 @@ class AnalysisResult:
         One row per scope (clip, window, segment), see :mod:`aspectus.events.features`.
     quality : dict
         noise_rms_s2s_deg (within fixations, the same figure as the clip's
-        feature), noise_rms_s2s_robust_deg (all valid steps, median-based; it
+        feature), noise_rms_s2s_33ms_deg (the same over 33 ms steps, the
+        clip's feature: equal at 30 fps, comparable across frame rates; it
+        sets the precision tier), noise_rms_s2s_robust_deg (all valid steps, median-based; it
         adapts the thresholds), valid_frac, loss_frac, blink_frac,
         filled_frac (fractions of the recorded time; holes in the time axis
         count as missing), time_holes, sample_rate_hz, n_samples, duration_s,
@@ -365,6 +367,7 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
     n_in = len(cl.row_index)
     clip_row = features[features["scope"] == "clip"]
     noise_fix = float(clip_row["noise_rms_s2s_deg"].iloc[0]) if len(clip_row) else float("nan")
+    noise_33 = float(clip_row["noise_rms_s2s_33ms_deg"].iloc[0]) if len(clip_row) else float("nan")
     quality = {
         "n_samples": n_in,
         "duration_s": float(cl.hi_s[-1] - cl.lo_s[0]) if n else 0.0,
@@ -372,11 +375,15 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
         # one meaning everywhere: within fixations, as the features' noise_rms_s2s_deg
         "noise_rms_s2s_deg": noise_fix,
         "noise_rms_s2s_fixation_deg": noise_fix,
+        "noise_rms_s2s_33ms_deg": noise_33,
         "noise_rms_s2s_robust_deg": cl.noise_rms_s2s_deg,
         "noise_rms_s2s_all_steps_deg": cl.noise_rms_s2s_plain_deg,
         "noise_definitions": {
             "noise_rms_s2s_deg": "RMS of sample-to-sample distances between consecutive valid samples of the same "
                                  "fixation (Holmqvist, Nystrom & Mulvey 2012); = the clip's feature",
+            "noise_rms_s2s_33ms_deg": "RMS of the distances between valid samples of the same fixation 33 ms apart "
+                                      "(the nearest whole number of sample intervals): noise_rms_s2s_deg at 30 fps, "
+                                      "comparable across frame rates; sets the precision tier; = the clip's feature",
             "noise_rms_s2s_robust_deg": "median sample-to-sample distance x 2 / sqrt(4 ln 2) over all valid steps "
                                         "(equals RMS-S2S for white noise; adapts the detectors' thresholds)",
             "noise_rms_s2s_all_steps_deg": "RMS of all valid sample-to-sample distances, saccades included"},

@@ -11,8 +11,11 @@ interval before it to half an interval after it
 (:func:`aspectus.events.cleanup.sample_spans`). ``noise_rms_s2s_deg`` is the RMS
 sample-to-sample distance over steps between two originally valid samples of
 the same fixation (precision as in Holmqvist, Nystrom & Mulvey 2012, Proc.
-ETRA). A scope without a single valid sample is degenerate: all its features
-are NaN and a :class:`DegenerateWindowWarning` is issued.
+ETRA); ``noise_rms_s2s_33ms_deg`` is the same over steps between valid samples of the same fixation 33 ms
+apart (:data:`aspectus.events.detect.noise.REFERENCE_INTERVAL_S`; the nearest whole number of sample
+intervals): at 30 fps the two are one figure, at other rates the second compares with 30 fps clips.
+A scope without a single valid sample is degenerate: all its features are NaN and a
+:class:`DegenerateWindowWarning` is issued.
 """
 from __future__ import annotations
 
@@ -22,6 +25,7 @@ import numpy as np
 import pandas as pd
 
 from aspectus.errors import AspectusWarning
+from aspectus.events.detect.noise import reference_lag
 from aspectus.schema import FEATURE_COLUMN_NAMES
 
 #: feature columns, in order; every name carries its unit (definitions: :data:`aspectus.schema.FEATURE_COLUMNS`)
@@ -32,6 +36,27 @@ SCOPE_COLUMNS = ("scope", "label", "start_s", "end_s")
 SACCADE_DURATION_MIN_RATE_HZ = 200.0
 
 __all__ = ["FEATURE_COLUMNS", "SCOPE_COLUMNS", "DegenerateWindowWarning", "compute_features"]
+
+
+def _fixation_steps(valid, x, y, fix_id, lag: int):
+    """Cumulative sums over the steps from each sample to the one ``lag`` samples on, counted where both are valid
+    and in the same fixation: (lag, summed squared distances, step counts), each sum starting at 0."""
+    if len(x) > lag:
+        ok = valid[lag:] & valid[:-lag] & (fix_id[lag:] >= 0) & (fix_id[lag:] == fix_id[:-lag])
+        d2 = np.nan_to_num(np.where(ok, (x[lag:] - x[:-lag]) ** 2 + (y[lag:] - y[:-lag]) ** 2, 0.0))
+    else:
+        ok, d2 = np.zeros(0, bool), np.zeros(0)
+    return lag, np.concatenate([[0.0], np.cumsum(d2)]), np.concatenate([[0], np.cumsum(ok)])
+
+
+def _step_rms(steps, i0: int, i1: int) -> float:
+    """RMS distance of the counted steps with both ends among samples ``i0 .. i1 - 1`` (NaN without any)."""
+    lag, cd2, cnd = steps
+    m = int(i1) - lag - int(i0)
+    if m <= 0:
+        return np.nan
+    k = int(cnd[i0 + m] - cnd[i0])
+    return float(np.sqrt((cd2[i0 + m] - cd2[i0]) / k)) if k else np.nan
 
 
 class DegenerateWindowWarning(AspectusWarning):
@@ -108,14 +133,9 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
         k = np.searchsorted(fx["onset_s"], t, side="right") - 1
         inside = (k >= 0) & (t < fx["offset_s"][np.clip(k, 0, None)])
         fix_id = np.where(inside & fixlab, k, -1)
-    if n > 1:
-        step_ok = valid[1:] & valid[:-1] & (fix_id[1:] >= 0) & (fix_id[1:] == fix_id[:-1])
-        d2 = np.nan_to_num(np.where(step_ok, np.diff(x) ** 2 + np.diff(y) ** 2, 0.0))
-    else:
-        step_ok = np.zeros(0, bool)
-        d2 = np.zeros(0)
-    cd2 = np.concatenate([[0.0], np.cumsum(d2)])
-    cnd = np.concatenate([[0], np.cumsum(step_ok)])
+    # sample-to-sample steps, and steps of the reference interval (33 ms)
+    lag = reference_lag(dt)
+    steps = {k: _fixation_steps(valid, x, y, fix_id, k) for k in {1, lag}}
     rows = []
     degenerate: list[str] = []
     outside = False
@@ -152,8 +172,6 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
         f, s, b, lo = sel(fx), sel(sc), sel(bl), sel(ls)
         fov = (fx["offset_s"] > start) & (fx["onset_s"] < end)
         lov = (ls["offset_s"] > start) & (ls["onset_s"] < end)
-        m = max(int(i1) - 1 - int(i0), 0)
-        nsteps = int(cnd[i0 + m] - cnd[i0]) if m > 0 else 0
         dur = f["duration_ms"]
         amp = s["amplitude_deg"]
         sac_dur = s["duration_ms"] if rate_hz >= SACCADE_DURATION_MIN_RATE_HZ else np.zeros(0)
@@ -181,7 +199,8 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
             "loss_count": float(len(lo["onset_s"])),
             "loss_frac": _overlap_s(ls["onset_s"][lov], ls["offset_s"][lov], start, end) / recorded_s,
             "valid_frac": valid_s / recorded_s,
-            "noise_rms_s2s_deg": float(np.sqrt((cd2[i0 + m] - cd2[i0]) / nsteps)) if nsteps else np.nan,
+            "noise_rms_s2s_deg": _step_rms(steps[1], i0, i1),
+            "noise_rms_s2s_33ms_deg": _step_rms(steps[lag], i0, i1),
             "n_samples": n_in,
         })
         rows.append(row)

@@ -619,8 +619,9 @@ def software_versions() -> dict:
     return out
 
 
-#: gaze precision tiers of the verdict: (tier, largest RMS-S2S noise in deg, smallest median iris diameter in px,
-#: the features that can be trusted there). Measured on the rendered grid (bench/bench_gaze_grid.py, README
+#: gaze precision tiers of the verdict: (tier, largest noise in deg - the clip's RMS-S2S over 33 ms steps,
+#: ``noise_rms_s2s_33ms_deg``, which at 30 fps is its RMS-S2S and at other rates compares with it -, smallest
+#: median iris diameter in px, the features that can be trusted there). Measured at 30 fps on the rendered grid (bench/bench_gaze_grid.py, README
 #: "Gaze precision"; 2026-12-04, commit 66a999a, seed 0, default settings): at 1.5 deg and irises of 12 px or
 #: more (9 of 13 cells, noise 0.51-1.28 deg) the default detector's fixations agree with two expert coders at
 #: sample kappa 0.12-0.40 (the detector on the noise-free truth at 30 Hz: 0.54-0.63; kappa 0.5 needs about
@@ -638,7 +639,8 @@ PRECISION_TIERS = (
 
 
 def precision_tier(noise_deg, iris_px) -> tuple[str, list[str]]:
-    """Which features a clip's gaze supports, from its own noise (RMS-S2S, deg) and median iris diameter (px).
+    """Which features a clip's gaze supports, from its own noise (deg; the RMS-S2S over 33 ms steps,
+    ``noise_rms_s2s_33ms_deg``, so that a tier means the same at any frame rate) and median iris diameter (px).
 
     NaN noise or iris size (too few valid samples, no face) gives the lowest tier.
     """
@@ -664,7 +666,7 @@ def _trust_sentence(summary: dict) -> str:
 
 
 def _verdict(summary: dict) -> tuple[bool, str]:
-    ff, vf, noise = summary["face_found_frac"], summary["valid_frac"], summary.get("noise_rms_s2s_deg")
+    ff, vf, noise = summary["face_found_frac"], summary["valid_frac"], summary.get("noise_rms_s2s_33ms_deg")
     reasons = []
     n, dur = int(summary.get("frames") or 0), float(summary.get("duration_s") or 0.0)
     if n > 1:
@@ -679,10 +681,10 @@ def _verdict(summary: dict) -> tuple[bool, str]:
         reasons.append(f"usable gaze in only {vf:.0%} of the recorded time (blinks, closed eyes, turned head, no "
                        "face, or frames missing from the recording)")
     if noise is not None and np.isfinite(noise) and noise > 3.0:
-        reasons.append(f"the gaze signal is very noisy ({noise:.1f} deg sample to sample)")
+        reasons.append(f"the gaze signal is very noisy ({noise:.1f} deg sample to sample over 33 ms steps)")
     if reasons:
         return False, "Not usable: " + "; ".join(reasons) + "."
-    noise_text = (f"noise {noise:.2f} deg sample to sample" if noise is not None and np.isfinite(noise)
+    noise_text = (f"noise {noise:.2f} deg sample to sample (over 33 ms steps)" if noise is not None and np.isfinite(noise)
                   else "noise not measurable (too few consecutive valid samples)")
     return True, f"Usable: face tracked in {ff:.0%} of frames, {vf:.0%} usable gaze, {noise_text}."
 
@@ -704,11 +706,12 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         "fixation_count": int((ev["type"] == "fixation").sum()) if len(ev) else 0,
         "median_distance_mm": float(np.nanmedian(samples["distance_mm"])) if samples["face_found"].any() else float("nan"),
         "noise_rms_s2s_deg": float(q.get("noise_rms_s2s_deg", np.nan)),
+        "noise_rms_s2s_33ms_deg": float(q.get("noise_rms_s2s_33ms_deg", np.nan)),
         "decode_problems": {k: v for k, v in meta.get("decode", {}).items() if k != "frames" and v},
     }
     iris = samples["iris_diameter_px"].to_numpy(float) if "iris_diameter_px" in samples else np.full(n, np.nan)
     s["median_iris_px"] = float(np.nanmedian(iris)) if np.isfinite(iris).any() else float("nan")
-    s["precision_tier"], s["trusted_features"] = precision_tier(s["noise_rms_s2s_deg"], s["median_iris_px"])
+    s["precision_tier"], s["trusted_features"] = precision_tier(s["noise_rms_s2s_33ms_deg"], s["median_iris_px"])
     s["usable"], s["verdict"] = _verdict(s)
     s["verdict"] += _trust_sentence(s)
     if ((meta.get("gaze_model") or {}).get("iris_estimate") or {}).get("used") == "appearance":

@@ -17,6 +17,24 @@ import numpy as np
 RAYLEIGH_RMS_PER_MEDIAN = 2.0 / np.sqrt(4.0 * np.log(2.0))
 
 
+#: The step (s) the clip's precision figure ``noise_rms_s2s_33ms_deg`` is read at: one frame at 30 fps, the rate
+#: the precision tiers were measured at. Per-sample RMS-S2S is comparable across sampling rates only for white
+#: noise; webcam gaze error also changes over tens of milliseconds (drift of the iris estimate, the video codec's
+#: error shared by neighbouring frames), so its steps shrink with the interval: on rendered clips run.json's noise
+#: read some 20 % lower at 60 fps than at 30 fps against the same error's spread (README, "What 60 frames a
+#: second buys").
+REFERENCE_INTERVAL_S = 1.0 / 30.0
+
+
+def reference_lag(sample_interval_s: float) -> int:
+    """Samples between the two ends of a step of :data:`REFERENCE_INTERVAL_S`: the nearest whole number of sample
+    intervals, at least one (1 at 30 fps and below, 2 at 50-60 fps, 4 at 120 fps)."""
+    dt = float(sample_interval_s)
+    if not (np.isfinite(dt) and dt > 0):
+        return 1
+    return max(1, int(np.floor(REFERENCE_INTERVAL_S / dt + 0.5)))
+
+
 def s2s_distances_deg(yaw_deg, pitch_deg, ok=None) -> np.ndarray:
     """Angular distances between consecutive samples, in degrees.
 
