@@ -270,7 +270,8 @@ class GazeParams:
         after offset and gain on three. Where the gaze stays within about 15
         deg of the camera it was worse on four of five target clips and mixed
         on seven gaze-grid clips (RMS-S2S lower on four, kappa lower on two),
-        so it is not the default. What limits it is the eyeball centre the
+        and issue 4's end-to-end check would fall below its floor (per-window
+        fixation-count r 0.849 -> 0.743), so it is not the default. What limits it is the eyeball centre the
         shape is measured from (about 2 mm off on the rendered faces):
         docs/notes/gaze-measurement.md. The limbus fit costs about 1.5 times
         the CPU (three passes instead of two).
