@@ -246,11 +246,14 @@ class GazeParams:
         ``iris_combine="auto"`` only where the appearance estimate is taken
         (iris below 17.3 px); with another ``iris_combine`` the patches are
         sampled for it (0.2-1.0 ms a frame in the per-frame geometry, 768
-        bytes a frame on disk). Default False: on the gaze grid and twelve
-        held-out rendered clips it lowered RMS-S2S but not the fixation
-        agreement with hand-coders on a clear majority
-        (docs/notes/gaze-measurement.md, "The iris's motion from
-        registration between frames"); costs about 3 ms a frame at the
+        bytes a frame on disk). Default False: on the gaze grid's ten
+        small-face cells it lowered RMS-S2S on all ten and on ten of eleven
+        held-out rendered clips, but the fixation kappa against hand-coders
+        fell on four cells and seven clips (by up to 0.11), and issue 4's
+        end-to-end per-window fixation-count r with it (the smoothed gaze's
+        small frame-to-frame noise lowers the adaptive I-DT threshold below
+        its slow wander; docs/notes/gaze-measurement.md, "The iris's motion
+        from registration between frames"); costs about 3 ms a frame at the
         clip's end. run.json: ``gaze_model.iris_registration``.
     iris_shape : {"circle", "ellipse"}
         The shape the limbus fit gives the iris in the picture (with
@@ -479,6 +482,17 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
          ("mesh", "the face tracker",
           "The face tracker's own iris size in every frame. For comparisons with results made before the circle "
           "fit's size was used."))),
+    GazeChoice(
+        "iris_registration", "Iris movement between frames",
+        "Whether the iris's small movements from one frame to the next are also read from the whole iris picture.",
+        ((False, "each frame measured on its own (default)",
+          "Every frame's iris position is measured by itself. Keep this unless a comparison with a lab eye "
+          "tracker tells you otherwise."),
+         (True, "also followed from frame to frame",
+          "The iris is also followed from each frame to the next and combined with each frame's own measurement: "
+          "less jitter where the iris is small in the picture (a classroom webcam), but in our tests the fixations "
+          "found agreed no better with expert coders. Acts where the eye's appearance is used, or with another "
+          "choice of iris height; costs a few milliseconds a frame."))),
     GazeChoice(
         "mirrored", "The clips show the student",
         "Whether the recording is a mirror image (as webcam software often shows and records the picture).",
