@@ -14,7 +14,7 @@ Materials (one JSON line per clip and variant):
 * ``a``-``e``: bench/bench_target_error.py's target clips (gaze within about 18 deg of the camera); the
   known-target check's accuracy after offset / offset+gain, its fitted gains, the iris centre's error per dot;
 * ``ta``-``te``: target clips with the whole gaze offset from the screen by 15-30 deg (a camera below, beside or
-  above the screen), the same figures;
+  above the screen), the same figures; ``tf``-``ti``: four more, held out;
 * ``g25``: the gaze grid's 25 px cell (seed 0), ``d1``-``d6``: six held-out 20-26 px clips like it (other trials,
   seeds 1-6): the limbus estimate re-estimated as the pipeline does (failed fits bridged), with the grid's figures
   (tests/_gaze_grid.py ``measure``) and the fit's error SD against the renderer's iris centres.
@@ -48,7 +48,10 @@ LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
 #: target clips with the camera off the screen's axis: (face, schedule seed, render seed), gaze offset (yaw, pitch)
 OFF_AXIS = {"ta": (("astronaut", 7, 4), (2.0, 22.0)), "tb": (("hopper", 11, 5), (-18.0, 15.0)),
             "tc": (("hopper", 17, 13), (0.0, -18.0)), "td": (("astronaut", 19, 14), (20.0, 20.0)),
-            "te": (("hopper", 23, 21), (-5.0, 25.0))}
+            "te": (("hopper", 23, 21), (-5.0, 25.0)),
+            # held out: measured once, after the option was settled on the five above
+            "tf": (("hopper", 37, 41), (0.0, 20.0)), "tg": (("astronaut", 43, 47), (25.0, 5.0)),
+            "th": (("hopper", 53, 59), (-10.0, 18.0)), "ti": (("astronaut", 61, 67), (12.0, -15.0))}
 #: the grid's 25 px cell and six held-out clips like it
 GRID = {"g25": dict(name="25px_crf28", trial="TL20_img_konijntjes", face="hopper", seed=0, distance_mm=530.0),
         "d1": dict(name="dev_TH34_s1", trial="TH34_img_Europe", face="astronaut", seed=1, distance_mm=530.0),

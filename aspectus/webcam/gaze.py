@@ -270,7 +270,8 @@ class GazeParams:
         rendered target clips with the gaze about 10-40 deg off it the
         known-target check's accuracy after offset improved on all five
         (e.g. 1.68 -> 1.01 deg) and its fitted gains moved towards 1 on four;
-        after offset and gain on three. Where the gaze stays within about 15
+        after offset and gain on three; on four held-out ones both improved
+        on three. Where the gaze stays within about 15
         deg of the camera it was worse on four of five target clips and mixed
         on seven gaze-grid clips (RMS-S2S lower on four, kappa lower on two),
         and issue 4's end-to-end check would fall below its floor (per-window
