@@ -484,6 +484,16 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
           "The face tracker's own iris size in every frame. For comparisons with results made before the circle "
           "fit's size was used."))),
     GazeChoice(
+        "iris_shape", "Iris outline fitted as",
+        "The shape fitted to the iris's edge. Seen from the side, the round iris looks like an oval.",
+        (("circle", "a circle (default)",
+          "A circle is fitted to the visible edge. Keep this when the camera sits close to the screen the "
+          "students look at."),
+         ("ellipse", "an oval that follows the eye's turn",
+          "The oval the iris makes when the eye looks well away from the camera (a camera far below, beside or "
+          "above the screen). In our tests it read gaze more accurately with eyes 20-40° off the camera's axis "
+          "and a little worse nearer it. For comparisons."))),
+    GazeChoice(
         "iris_registration", "Iris movement between frames",
         "Whether the iris's small movements from one frame to the next are also read from the whole iris picture.",
         ((False, "each frame measured on its own (default)",

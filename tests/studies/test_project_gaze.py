@@ -11,7 +11,7 @@ import json
 import pytest
 
 from aspectus.studies import project as study_mod
-from aspectus.webcam.gaze import (GAZE_CHOICE_OF, GAZE_CHOICES, IRIS_COMBINE, IRIS_SCALES, GazeParams, describe_iris_estimate,
+from aspectus.webcam.gaze import (GAZE_CHOICE_OF, GAZE_CHOICES, IRIS_COMBINE, IRIS_SCALES, IRIS_SHAPES, GazeParams, describe_iris_estimate,
                                   gaze_settings_from_stored)
 from aspectus.webcam.pipeline import ProcessParams
 
@@ -24,6 +24,8 @@ def test_choices_are_exactly_the_values_gazeparams_accepts():
     assert GAZE_CHOICE_OF["head_rotation"].values == ("mesh", "skin")
     assert GAZE_CHOICE_OF["mirrored"].values == (False, True)
     assert set(GAZE_CHOICE_OF["iris_scale"].values) == set(IRIS_SCALES)
+    assert set(GAZE_CHOICE_OF["iris_shape"].values) == set(IRIS_SHAPES)
+    assert GAZE_CHOICE_OF["iris_registration"].values == (False, True)
     defaults = GazeParams().to_dict()
     for c in GAZE_CHOICES:
         assert c.values[0] == defaults[c.name], f"{c.name}: the first choice must be GazeParams' default"

@@ -95,7 +95,8 @@ def test_choice_round_trips_through_saving_and_loading(qtbot, tmp_path):
         w.flush_saves()
         saved = json.loads(s.path.read_text())["process"]["gaze"]
         assert saved == {"iris_combine": "limbus", "head_rotation": "mesh", "eye_anchor_set": "auto",
-                         "iris_scale": "limbus", "mirrored": True}
+                         "iris_scale": "limbus", "iris_shape": "circle", "iris_registration": False,
+                         "mirrored": True}
     finally:
         w.shutdown()
     w2 = _window(qtbot)
@@ -113,6 +114,7 @@ def test_choice_round_trips_through_saving_and_loading(qtbot, tmp_path):
         p.restore_defaults()
         assert w2.study.process["gaze"] == {"iris_combine": "auto", "head_rotation": "mesh",
                                             "eye_anchor_set": "auto", "iris_scale": "limbus",
+                                            "iris_shape": "circle", "iris_registration": False,
                                             "mirrored": False}
     finally:
         w2.shutdown()
