@@ -247,13 +247,15 @@ class GazeParams:
         (iris below 17.3 px); with another ``iris_combine`` the patches are
         sampled for it (0.2-1.0 ms a frame in the per-frame geometry, 768
         bytes a frame on disk). Default False: on the gaze grid's ten
-        small-face cells it lowered RMS-S2S on all ten and on ten of eleven
-        held-out rendered clips, but the fixation kappa against hand-coders
-        fell on four cells and seven clips (by up to 0.11), and issue 4's
-        end-to-end per-window fixation-count r with it (the smoothed gaze's
-        small frame-to-frame noise lowers the adaptive I-DT threshold below
-        its slow wander; docs/notes/gaze-measurement.md, "The iris's motion
-        from registration between frames"); costs about 3 ms a frame at the
+        small-face cells and fourteen held-out rendered clips it lowered
+        RMS-S2S on every one (by 10-77 %) and raised pitch r, but the
+        default detector's fixation kappa against hand-coders fell on six
+        cells and eleven clips (by up to 0.14), and issue 4's end-to-end
+        per-window fixation-count r with it: the smoothed gaze's small
+        frame-to-frame noise lowers the adaptive I-DT threshold below its
+        slower wander (at a fixed threshold kappa rose on 18-19 of 22;
+        docs/notes/gaze-measurement.md, "The iris's motion from
+        registration between frames"); costs about 3 ms a frame at the
         clip's end. run.json: ``gaze_model.iris_registration``.
     iris_shape : {"circle", "ellipse"}
         The shape the limbus fit gives the iris in the picture (with
@@ -502,7 +504,7 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
          (True, "also followed from frame to frame",
           "The iris is also followed from each frame to the next and combined with each frame's own measurement: "
           "less jitter where the iris is small in the picture (a classroom webcam), but in our tests the fixations "
-          "found agreed no better with expert coders. Acts where the eye's appearance is used, or with another "
+          "found agreed less well with expert coders. Acts where the eye's appearance is used, or with another "
           "choice of iris height; costs a few milliseconds a frame."))),
     GazeChoice(
         "mirrored", "The clips show the student",

@@ -16,19 +16,24 @@ itself. So:
    (no motion, and the absolute estimate's own step, so that a saccade's step is found where it is large)
    (:func:`register_shift`). A shift beyond :data:`MAX_SHIFT_RADII` of the disc's radius, a residual beyond
    :data:`RESIDUAL_SD` robust SD of the clip's, and frames with closed eyes give no increment.
-2. Per eye and axis, a Kalman filter and Rauch-Tung-Striebel smoother (Rauch, Tung & Striebel 1965 - from memory)
-   takes the registration's increments as the process (``x_t = x_{t-1} + k d_t + w_t``) and the absolute
-   estimates as observations (``z_t = x_t + v_t``), so the absolute error stays bounded while the
-   frame-to-frame noise is the registration's (:func:`smooth`). Nothing is tuned: the gain ``k`` (the
-   registration reads the disc's vertical motion short where lids cover its rim) is the least-squares slope of
-   the absolute estimate's change on the summed increments over :data:`GAIN_SPAN_FRAMES` frames
-   (:func:`clip_gain`: the increments are far less noisy than the absolute change, so the slope is nearly free
-   of the errors-in-variables bias), and the two noise variances come from the clip's own innovations
-   ``e_t = z_t - z_{t-1} - k d_t = v_t - v_{t-1} + w_t``: ``cov(e_t, e_{t-1}) = -R``, ``var(e) = 2R + Q``
-   (:func:`noise_levels`; white-noise assumptions, which the absolute estimate's slow error bends - measured in
-   docs/notes/gaze-measurement.md).
-3. The smoothed positions (patch coordinates) go back to the picture through each frame's patch transform;
-   frames without an absolute estimate keep theirs (none is invented).
+2. Each increment is taken into the picture: frame ``t - 1``'s centre moved by the increment (times a gain, below),
+   through frame ``t``'s patch transform, minus that centre through frame ``t - 1``'s. The patch frame jitters
+   with the eye anchors that place it, each eye's on its own, but the jitter is in both the registered shift and
+   the transforms and cancels, so the two eyes' true picture increments agree - which the noise level below
+   relies on (in patch coordinates the eyes' true increments differ by the anchors' jitter, SD 0.33 samples a
+   frame at 12 px against the registration's 0.08-0.15).
+3. Per eye and picture axis, a Kalman filter and Rauch-Tung-Striebel smoother (Rauch, Tung & Striebel 1965 - from
+   memory) takes the increments as the process (``x_t = x_{t-1} + d_t + w_t``) and the absolute centres as
+   observations (``z_t = x_t + v_t``), so the absolute error stays bounded while the frame-to-frame noise is the
+   registration's (:func:`smooth`). Nothing is tuned: the gain (the registration reads the disc's motion short
+   where lids cover its rim, and compression lets a small iris lag) is the least-squares slope of the absolute
+   estimate's change on the summed increments over :data:`GAIN_SPAN_FRAMES` frames, in patch coordinates
+   (:func:`clip_gain`: the increments are far less noisy than the absolute change, so the slope is nearly free of
+   the errors-in-variables bias); the increments' noise Q is half the variance of the two eyes' increments'
+   difference, and the absolute's frame-to-frame noise R follows from the innovations ``e_t = z_t - z_{t-1} -
+   d_t = v_t - v_{t-1} + w_t`` as ``(var(e) - Q) / 2`` (:func:`noise_levels`; white-noise assumptions, which
+   the absolute estimate's slow error bends - measured in docs/notes/gaze-measurement.md).
+4. Frames without an absolute centre or a patch keep theirs (none is invented).
 
 Measured on the gaze grid and held-out rendered clips: docs/notes/gaze-measurement.md ("The iris's motion from
 registration between frames"). Not the default: see there.
@@ -277,13 +282,28 @@ def smooth(z: np.ndarray, d: np.ndarray, gain: float, Q: float, R: float) -> np.
     return xs
 
 
+def picture_increments(centres: np.ndarray, d: np.ndarray, gains: np.ndarray, affines: np.ndarray) -> np.ndarray:
+    """The registered increments (N, 2, 2; patch samples, frame t's against t-1's) as picture motion (px):
+    frame t-1's ``centres`` (patch coordinates) moved by ``gains`` (2 eyes, 2 axes) times the increment, through
+    frame t's transform, minus those centres through frame t-1's (``affines``: (N, 2, 2, 3)). Motion of the patch
+    frame itself between the two frames is in both terms and cancels. NaN in the first frame and wherever an
+    input is missing."""
+    z = np.asarray(centres, float)
+    A = np.asarray(affines, float)
+    out = np.full(z.shape, np.nan)
+    if len(z) > 1:
+        moved = z[:-1] + np.asarray(gains, float)[None] * np.asarray(d, float)[1:]
+        out[1:] = to_picture(moved, A[1:]) - to_picture(z[:-1], A[:-1])
+    return out
+
+
 def registered_iris(patches, affines: np.ndarray, iris_px: np.ndarray, iris_diam_px: np.ndarray,
                     usable: np.ndarray) -> tuple[np.ndarray, dict]:
     """The absolute iris centres ``iris_px`` (N, 2, 2; picture px, NaN where none) fused with the registered motion
     of the iris disc in the eye ``patches`` (see the module docstring); frames without an absolute centre or a
     patch keep ``iris_px``. ``affines``: (N, 2, 2, 3) the patches' transforms (NaN where a frame has none);
     ``iris_diam_px``: (N, 2) the iris diameters (px; the disc's size); ``usable``: (N,) frames with open eyes.
-    Returns the centres and a record (per eye and axis the gain and both noise levels, samples; increments found).
+    Returns the centres and a record (per eye and axis the gain and both noise levels, px; increments found).
     """
     iris = np.array(iris_px, float)
     A = np.asarray(affines, float)
@@ -303,24 +323,28 @@ def registered_iris(patches, affines: np.ndarray, iris_px: np.ndarray, iris_diam
     z = to_patch(iris, np.where(have[..., None, None], A, np.nan))
     d, res = patch_increments(patches, z, radius, np.asarray(usable, bool))
     d = reject_failed(d, res, radius)
-    out_patch = np.full_like(z, np.nan)
-    levels = {}
     gains = np.array([[clip_gain(z[:, e, ax], d[:, e, ax]) for ax in range(2)] for e in range(2)])
+    # each increment taken into the picture: frame t-1's centre moved by the scaled increment, through frame t's
+    # transform, minus that centre through frame t-1's. The patches' frame jitters with the eye anchors, each eye's
+    # on its own (0.3 patch samples a frame at 12 px), but that jitter is in both the registered shift and the
+    # transforms and cancels here, so in the picture the two eyes' true increments agree (the binocular noise
+    # level below needs that; in patch coordinates they differ by the anchors' jitter)
+    inc = picture_increments(z, d, gains, np.where(have[..., None, None], A, np.nan))
+    out = np.full_like(iris, np.nan)
+    levels = {}
     for e in range(2):
         for ax in range(2):
-            k = float(gains[e, ax])
-            Q, R = noise_levels(z[:, e, ax], d[:, e, ax], k, other=gains[1 - e, ax] * d[:, 1 - e, ax])
+            Q, R = noise_levels(iris[:, e, ax], inc[:, e, ax], 1.0, other=inc[:, 1 - e, ax])
             name = f"{('right', 'left')[e]}_{'xy'[ax]}"
             if not (np.isfinite(Q) and np.isfinite(R)):
-                out_patch[:, e, ax] = z[:, e, ax]
+                out[:, e, ax] = iris[:, e, ax]
                 levels[name] = None
                 continue
-            out_patch[:, e, ax] = smooth(z[:, e, ax], d[:, e, ax], k, Q, R)
-            levels[name] = {"gain": round(k, 3), "increment_sd_samples": round(float(np.sqrt(Q)), 4),
-                            "absolute_sd_samples": round(float(np.sqrt(R)), 4)}
-    pic = to_picture(np.nan_to_num(out_patch), np.where(have[..., None, None], A, 0.0))
-    take = have[..., None] & np.isfinite(out_patch) & np.isfinite(iris)
-    iris = np.where(take, pic, iris)
+            out[:, e, ax] = smooth(iris[:, e, ax], inc[:, e, ax], 1.0, Q, R)
+            levels[name] = {"gain": round(float(gains[e, ax]), 3), "increment_sd_px": round(float(np.sqrt(Q)), 4),
+                            "absolute_sd_px": round(float(np.sqrt(R)), 4)}
+    take = have[..., None] & np.isfinite(out) & np.isfinite(iris)
+    iris = np.where(take, out, iris)
     info.update({"applied": True, "disc_radius_samples": round(radius, 3),
                  "increments": [int(np.isfinite(d[:, e]).all(axis=1).sum()) for e in range(2)],
                  "frames_fused": [int(take[:, e].all(axis=1).sum()) for e in range(2)], "levels": levels})

@@ -130,3 +130,38 @@ def test_a_missing_increment_restarts_from_the_observation():
     assert np.isfinite(x).all()
     x2 = smooth(z[100:], np.concatenate([[np.nan], d[101:]]), 1.0, 0.0025, 0.09)
     assert np.allclose(x[100:], x2)
+
+
+def test_the_setting_needs_the_eye_picture():
+    from aspectus.errors import ParameterError
+    from aspectus.webcam.gaze import GazeParams
+
+    with pytest.raises(ParameterError, match="iris_registration needs refine_iris and eye_anchors"):
+        GazeParams(iris_registration=True, refine_iris=False)
+    with pytest.raises(ParameterError, match="iris_registration"):
+        GazeParams(iris_registration="yes")
+    assert GazeParams.from_dict({"iris_registration": True}).iris_registration is True
+
+
+def test_increments_in_the_picture_are_free_of_the_patch_frames_jitter():
+    """Both eyes move alike in the picture; each eye's patch frame jitters on its own (as the eye anchors that
+    place it do). The iris's shift inside each patch then carries the frame's jitter, and so do the transforms:
+    in the picture the increments must give the true motion back, the same for both eyes."""
+    from aspectus.webcam.iris_appearance import to_patch
+    from aspectus.webcam.iris_registration import picture_increments
+
+    rng = np.random.default_rng(4)
+    n = 200
+    path = np.cumsum(rng.normal(0.0, 0.4, (n, 2)), axis=0) + [320.0, 240.0]
+    iris = np.stack([path, path + [60.0, 1.0]], axis=1)  # (n, 2 eyes, 2) px, moving together
+    A = np.zeros((n, 2, 2, 3))
+    scale = 1.4 * (1.0 + rng.normal(0.0, 0.01, (n, 2)))  # px per sample, jittering per eye
+    A[..., 0, 0] = A[..., 1, 1] = scale
+    A[..., 2] = iris[0] - [16.0, 11.0] + rng.normal(0.0, 0.45, (n, 2, 2))  # each eye's frame jitters by 0.45 px
+    z = to_patch(iris, A)
+    d = np.diff(z, axis=0, prepend=np.nan)  # a perfect registration, in patch samples
+    inc = picture_increments(z, d, np.ones((2, 2)), A)
+    true = np.diff(iris, axis=0)
+    assert np.allclose(inc[1:], true, atol=1e-9)
+    # in patch coordinates the two eyes' increments differ by the frames' jitter
+    assert np.std(d[1:, 0] - d[1:, 1]) > 0.3

@@ -68,13 +68,35 @@ def test_fused_iris_centres_change_with_less_error_than_the_absolute_ones(run):
     a = _s2s_px(run["seen"]["absolute"], run["truth"])
     f = _s2s_px(run["seen"]["fused"], run["truth"])
     print("iris error RMS-S2S px (x, y): absolute", np.round(a, 3), "fused", np.round(f, 3))
-    assert (f < a).all()
+    # measured (2026-12-04): absolute 0.265 / 0.316 px, fused 0.209 / 0.244 (x / y)
+    assert (f < 0.85 * a).all()
 
 
 def test_fused_gaze_is_steadier_and_no_less_correlated(run):
     a, f = run["absolute"], run["fused"]
     print({k: (round(a[k], 3), round(f[k], 3)) for k in ("rms_s2s_deg", "rms_fix_deg", "yaw_r", "pitch_r",
                                                           "pitch_gain", "kappa")})
-    assert f["rms_s2s_deg"] < a["rms_s2s_deg"]
+    # measured (2026-12-04): RMS-S2S 1.66 -> 1.31 deg, the error's RMS about each fixation's mean 1.24 -> 1.07, yaw r
+    # 0.971 -> 0.973, pitch r 0.969 -> 0.972. Not asserted, and the reason the option is not the default: kappa
+    # against the coders under the default noise-adaptive I-DT 0.387 -> 0.282 (docs/notes/gaze-measurement.md)
+    assert f["rms_s2s_deg"] < 0.85 * a["rms_s2s_deg"]
     assert f["rms_fix_deg"] < a["rms_fix_deg"]
     assert f["yaw_r"] >= a["yaw_r"] - 0.005 and f["pitch_r"] >= a["pitch_r"] - 0.005
+
+
+def test_large_face_under_auto_keeps_no_patches_and_says_so(lund_dir, tmp_path):
+    """At 25 px ``iris_combine="auto"`` takes the limbus fit and keeps no eye patches: nothing to register, and
+    run.json says why (the samples are the default's)."""
+    from aspectus.webcam.gaze import GazeParams
+    from aspectus.webcam.pipeline import ProcessParams, extract_samples
+
+    cond = G.Condition("registration_25px", size_px=(1280, 720), distance_mm=530.0, trial="TH34_img_Europe",
+                       seed=41, duration_s=3.0)
+    res, _ = G.render_condition(cond, tmp_path, lund_dir)
+    s1, m1 = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(iris_registration=True)))
+    info = m1["gaze_model"]["iris_registration"]
+    assert info["applied"] is False and "17.3 px" in info["reason"]
+    assert m1["gaze_model"]["iris_estimate"]["used"] == "limbus"
+    s0, _ = extract_samples(res.path, params=ProcessParams(gaze=GazeParams()))
+    assert np.allclose(s0["yaw_deg"], s1["yaw_deg"], equal_nan=True)
+    assert np.allclose(s0["pitch_deg"], s1["pitch_deg"], equal_nan=True)
