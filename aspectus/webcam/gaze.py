@@ -253,8 +253,9 @@ class GazeParams:
         cells and eleven clips (by up to 0.14), and issue 4's end-to-end
         per-window fixation-count r with it: the smoothed gaze's small
         frame-to-frame noise lowers the adaptive I-DT threshold below its
-        slower wander (at a fixed threshold kappa rose on 18-19 of 22;
-        docs/notes/gaze-measurement.md, "The iris's motion from
+        slower wander - the clip's noise figure and precision tier then
+        read better than the gaze is (at a fixed threshold kappa rose on
+        18-19 of 22; docs/notes/gaze-measurement.md, "The iris's motion from
         registration between frames"); costs about 3 ms a frame at the
         clip's end. run.json: ``gaze_model.iris_registration``.
     iris_shape : {"circle", "ellipse"}
