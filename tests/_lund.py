@@ -119,6 +119,31 @@ def degrade(trial: LundTrial, *, rate_hz: float = 30.0, noise_rms_deg: float = 0
         labels={c: v[idx].copy() for c, v in trial.labels.items()}, screen=trial.screen)
 
 
+def ou_error(t_s: np.ndarray, sd_deg: float, tau_s: float, seed: int) -> np.ndarray:
+    """An Ornstein-Uhlenbeck error, shape (n, 2), of per-axis SD ``sd_deg`` and time constant ``tau_s`` at the times
+    ``t_s`` (autocovariance sd^2 exp(-|d| / tau); Uhlenbeck & Ornstein 1930 - from memory), exact over each
+    interval: an error that changes over tens of milliseconds, as webcam gaze error does in part."""
+    rng = np.random.default_rng(seed)
+    t = np.asarray(t_s, float)
+    e = np.zeros((len(t), 2))
+    if not len(t) or sd_deg <= 0:
+        return e
+    a = np.exp(-np.diff(t) / tau_s)
+    kick = rng.normal(0.0, 1.0, (len(t), 2))
+    e[0] = sd_deg * kick[0]
+    for k in range(1, len(t)):
+        e[k] = a[k - 1] * e[k - 1] + sd_deg * np.sqrt(1.0 - a[k - 1] ** 2) * kick[k]
+    return e
+
+
+def with_drift(trial: LundTrial, sd_deg: float, tau_s: float = 0.05, seed: int = 0) -> LundTrial:
+    """The trial with an Ornstein-Uhlenbeck error (:func:`ou_error`) added at its own rate, so that every rate
+    :func:`degrade` makes of it samples the same error: the same eyes at 30, 60 or 120 Hz."""
+    e = ou_error(trial.t_s, sd_deg, tau_s, seed)
+    return LundTrial(trial.name, trial.t_s, trial.yaw_deg + e[:, 0], trial.pitch_deg + e[:, 1], trial.valid,
+                     trial.labels, trial.screen)
+
+
 def cohen_kappa(a: np.ndarray, b: np.ndarray) -> float:
     """Cohen's (1960) kappa of two boolean label vectors."""
     a = np.asarray(a, dtype=bool)

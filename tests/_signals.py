@@ -108,3 +108,29 @@ def scan_path(*, rate_hz: float, noise_rms_deg: float = 0.3, duration_s: float =
     truth = pd.DataFrame(fix, columns=["onset_s", "offset_s", "yaw_deg", "pitch_deg"])
     samples = pd.DataFrame({"t_s": ts, "valid": True, "yaw_deg": yaw, "pitch_deg": pitch})
     return samples, truth, inside
+
+
+def same_eyes(rate_hz, seconds=120.0, tau_s=0.05, drift_sd=1.2, white_sd=0.4, iris_px=20.0, seed=0):
+    """One gaze path sampled at ``rate_hz`` (30, 60 or 120) from the same continuous eyes: fixations of 400 ms
+    (300 in the default 120 s) joined by 10-20 deg jumps, plus an error that changes over tens of milliseconds (an Ornstein-Uhlenbeck
+    process, per-axis SD ``drift_sd`` deg, time constant ``tau_s``, drawn on a 120 Hz grid) and a white error of
+    per-axis SD ``white_sd`` deg drawn afresh for each sample (the picture's own noise)."""
+    rng = np.random.default_rng(seed)
+    n = int(seconds * 120)
+    t = np.arange(n) / 120.0
+    jumps = rng.uniform(10, 20, int(np.ceil(seconds / 0.4)))
+    ang = rng.uniform(0, 2 * np.pi, len(jumps))
+    pos = np.cumsum(np.c_[jumps * np.cos(ang), jumps * np.sin(ang)], axis=0)
+    pos -= np.round(pos / 40.0) * 40.0
+    a = np.exp(-1 / 120.0 / tau_s)
+    e = np.zeros((n, 2))
+    e[0] = rng.normal(0, drift_sd, 2)
+    kick = rng.normal(0, drift_sd * np.sqrt(1 - a * a), (n, 2))
+    for k in range(1, n):
+        e[k] = a * e[k - 1] + kick[k]
+    g = pos[(t / 0.4).astype(int)] + e
+    step = int(round(120 / rate_hz))
+    g, t = g[::step], t[::step]
+    g = g + np.random.default_rng(seed + 1000 * step).normal(0, white_sd, g.shape)
+    return pd.DataFrame({"t_s": t, "valid": True, "yaw_deg": g[:, 0], "pitch_deg": g[:, 1], "face_found": True,
+                         "face_count": 1, "distance_mm": 600.0, "iris_diameter_px": iris_px})

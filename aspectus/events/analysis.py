@@ -9,7 +9,9 @@ results; :func:`analyse_table` does all of it for any delimited gaze table.
 
 Default detector: I-DT (Salvucci & Goldberg 2000) with a noise-adaptive
 dispersion threshold, ``max(1.5 deg, 3.5 x RMS-S2S noise, 1.2 x the
-dispersion the noise reaches over the samples of a 60 ms window)``, a 60 ms
+dispersion the noise reaches over the samples of a 60 ms window)``, the
+noise read over 33 ms steps (the RMS-S2S at 30 Hz; per sample, an error that
+changes over tens of milliseconds reads smaller at higher rates), a 60 ms
 duration threshold, edge samples trimmed only where they differ measurably
 from the fixation (by speed at 100 Hz and above, by position at the 10 % level
 at every rate), merging within
@@ -256,8 +258,9 @@ class AnalysisResult:
         noise_rms_s2s_deg (within fixations, the same figure as the clip's
         feature), noise_rms_s2s_33ms_deg (the same over 33 ms steps, the
         clip's feature: equal at 30 fps, comparable across frame rates; it
-        sets the precision tier), noise_rms_s2s_robust_deg (all valid steps, median-based; it
-        adapts the thresholds), valid_frac, loss_frac, blink_frac,
+        sets the precision tier), noise_rms_s2s_robust_deg (all valid steps, median-based),
+        noise_rms_s2s_33ms_robust_deg (the same over 33 ms steps; it adapts the
+        thresholds, so that they do not shrink at higher frame rates), valid_frac, loss_frac, blink_frac,
         filled_frac (fractions of the recorded time; holes in the time axis
         count as missing), time_holes, sample_rate_hz, n_samples, duration_s,
         the detector's thresholds and warnings.
@@ -346,7 +349,10 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
     cl = clean_samples(samples, gap_fill_max_ms=params.gap_fill_max_ms, interpolation=params.interpolation,
                        smoothing=params.smoothing, smoothing_window_ms=params.smoothing_window_ms, source=source)
     det = DETECTORS[params.detector]
-    cand = det(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, noise_rms_s2s_deg=cl.noise_rms_s2s_deg,
+    # the thresholds adapt to the noise read over 33 ms steps: per sample, an error that changes over tens of
+    # milliseconds reads smaller at higher rates and shrank the thresholds with it (noise.REFERENCE_INTERVAL_S)
+    cand = det(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, noise_rms_s2s_deg=cl.noise_rms_s2s_33ms_deg,
+               noise_rms_s2s_1sample_deg=cl.noise_rms_s2s_deg,
                **params.detector_kwargs())
     events, labels_all = build_events(cl.t_s, cl.yaw_deg, cl.pitch_deg, cl.usable, cl.blink, cl.loss, cand,
                                       merge_gap_ms=params.merge_gap_ms, merge_distance_deg=params.merge_distance_deg,
@@ -356,7 +362,8 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
                                       edge_alpha=params.edge_alpha, edge_window_ms=params.edge_window_ms,
                                       edge_speed_low_rates=params.edge_speed_low_rates,
                                       merge_noise_factor=params.merge_noise_factor, merge_alpha=params.merge_alpha,
-                                      noise_rms_s2s_deg=cl.noise_rms_s2s_deg, lo_s=cl.lo_s, hi_s=cl.hi_s,
+                                      noise_rms_s2s_deg=cl.noise_rms_s2s_33ms_deg,
+                                      noise_rms_s2s_1sample_deg=cl.noise_rms_s2s_deg, lo_s=cl.lo_s, hi_s=cl.hi_s,
                                       inserted=cl.inserted)
     features = compute_features(events, t_s=cl.t_s, valid=cl.valid_in, yaw_deg=cl.yaw_deg, pitch_deg=cl.pitch_deg,
                                 labels=labels_all, scopes=_scopes(cl, params, segments),
@@ -377,6 +384,7 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
         "noise_rms_s2s_fixation_deg": noise_fix,
         "noise_rms_s2s_33ms_deg": noise_33,
         "noise_rms_s2s_robust_deg": cl.noise_rms_s2s_deg,
+        "noise_rms_s2s_33ms_robust_deg": cl.noise_rms_s2s_33ms_deg,
         "noise_rms_s2s_all_steps_deg": cl.noise_rms_s2s_plain_deg,
         "noise_definitions": {
             "noise_rms_s2s_deg": "RMS of sample-to-sample distances between consecutive valid samples of the same "
@@ -385,7 +393,10 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
                                       "(the nearest whole number of sample intervals): noise_rms_s2s_deg at 30 fps, "
                                       "comparable across frame rates; sets the precision tier; = the clip's feature",
             "noise_rms_s2s_robust_deg": "median sample-to-sample distance x 2 / sqrt(4 ln 2) over all valid steps "
-                                        "(equals RMS-S2S for white noise; adapts the detectors' thresholds)",
+                                        "(equals RMS-S2S for white noise)",
+            "noise_rms_s2s_33ms_robust_deg": "the same over all valid steps 33 ms long (the nearest whole number of "
+                                             "sample intervals): noise_rms_s2s_robust_deg at 30 fps, comparable "
+                                             "across frame rates; adapts the detectors' thresholds",
             "noise_rms_s2s_all_steps_deg": "RMS of all valid sample-to-sample distances, saccades included"},
         # fractions of the recorded time: holes in the time axis count as missing
         "valid_frac": cl.time_frac(cl.valid_in),

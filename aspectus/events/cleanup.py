@@ -39,7 +39,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from aspectus.events.detect.noise import rms_s2s_deg, robust_rms_s2s_deg
+from aspectus.events.detect.noise import reference_lag, rms_s2s_deg, robust_rms_s2s_deg
 from aspectus.events.detect.runs import runs_to_mask, true_runs
 from aspectus.errors import ParameterError
 from aspectus.schema import check_samples
@@ -72,6 +72,11 @@ class CleanedSamples:
         Robust RMS-S2S of the valid input samples, degrees.
     noise_rms_s2s_plain_deg : float
         Plain RMS-S2S over the same steps (inflated by saccades).
+    noise_rms_s2s_33ms_deg : float
+        The robust figure over steps 33 ms long
+        (:func:`aspectus.events.detect.noise.reference_lag`): ``noise_rms_s2s_deg`` at
+        30 Hz and below, comparable across sampling rates; it adapts the
+        detectors' thresholds.
     smoothing : dict
         Filter name, its parameters and its lag in ms.
     lo_s, hi_s : ndarray
@@ -95,6 +100,7 @@ class CleanedSamples:
     sample_interval_s: float
     noise_rms_s2s_deg: float
     noise_rms_s2s_plain_deg: float
+    noise_rms_s2s_33ms_deg: float = float("nan")
     smoothing: dict = field(default_factory=dict)
     lo_s: np.ndarray | None = None
     hi_s: np.ndarray | None = None
@@ -402,7 +408,8 @@ def clean_samples(samples: pd.DataFrame, *, gap_fill_max_ms: float = 75.0, inter
                        "polyorder": 2 if smoothing == "savgol" else None, "centred": True, "lag_ms": 0.0}
     noise = robust_rms_s2s_deg(yaw, pitch, valid) if n > 1 else float("nan")
     noise_plain = rms_s2s_deg(yaw, pitch, valid) if n > 1 else float("nan")
+    noise_33 = robust_rms_s2s_deg(yaw, pitch, valid, reference_lag(dt)) if n > 1 else float("nan")
     return CleanedSamples(t_s=t, yaw_deg=yaw, pitch_deg=pitch, valid_in=valid, usable=usable, filled=filled,
                           blink=blink, loss=loss, sample_interval_s=dt, noise_rms_s2s_deg=noise,
-                          noise_rms_s2s_plain_deg=noise_plain, smoothing=smooth_info, lo_s=lo_s, hi_s=hi_s,
+                          noise_rms_s2s_plain_deg=noise_plain, noise_rms_s2s_33ms_deg=noise_33, smoothing=smooth_info, lo_s=lo_s, hi_s=hi_s,
                           inserted=inserted, row_index=row_index, holes=holes)

@@ -151,3 +151,27 @@ def test_clip_view_shows_a_flagged_clip_as_processing_reads_it(qtbot, tmp_path, 
     assert np.abs(img.astype(int) - want.astype(int)).max() <= 2
     if matrix[0] < 0:  # the mirror: white on the right, grey still on top
         assert img[:, -40:, 0].mean() > 200 and abs(img[:25, 60:100, 0].mean() - 128) < 20
+
+
+def test_clip_view_noise_is_the_figure_the_verdict_reads(qtbot):
+    """The quality panel's noise and the verdict's noise are one figure: the RMS over 33 ms steps (at 60 fps the
+    per-sample RMS-S2S reads lower; it is named in the tooltip where it differs). A summary from before that
+    figure existed shows its per-sample RMS-S2S, the same figure at 30 fps."""
+    from aspectus.webcam.pipeline import summarise
+    from _signals import same_eyes
+    from aspectus.events.analysis import run_analysis
+    from ui.clip_view import ClipView
+
+    smp = same_eyes(60, seconds=30.0)
+    s = summarise(smp, run_analysis(smp), {})
+    assert s["noise_rms_s2s_deg"] < 0.9 * s["noise_rms_s2s_33ms_deg"]  # the two differ at 60 fps
+    view = ClipView()
+    qtbot.addWidget(view)
+    view.set_summary(s)
+    shown = view.q_noise.text()
+    assert shown == f"{s['noise_rms_s2s_33ms_deg']:.2f}°"
+    assert f"noise {s['noise_rms_s2s_33ms_deg']:.2f} deg" in s["verdict"]
+    assert f"Per sample (run.json's noise_rms_s2s_deg): {s['noise_rms_s2s_deg']:.2f}°" in view.q_noise.toolTip()
+    old = {k: v for k, v in s.items() if k != "noise_rms_s2s_33ms_deg"}
+    view.set_summary(old)
+    assert view.q_noise.text() == f"{s['noise_rms_s2s_deg']:.2f}°" and "Per sample" not in view.q_noise.toolTip()

@@ -195,7 +195,8 @@ def _trim_edges(t_s, x, y, starts, ends, k_mad: float) -> tuple[np.ndarray, np.n
 def detect_i2mc(t_s, yaw_deg, pitch_deg, usable, *, window_ms: float = 200.0, step_ms: float = 20.0,
                 downsamples: tuple[int, ...] = (2, 5, 10), min_window_samples: int = 4,
                 cutoff_sd: float = 2.0, onoffset_mad: float = 3.0, chebyshev_order: int = 8,
-                kmeans_iterations: int = 10, noise_rms_s2s_deg: float | None = None) -> Candidates:
+                kmeans_iterations: int = 10, noise_rms_s2s_deg: float | None = None,
+                noise_rms_s2s_1sample_deg: float | None = None) -> Candidates:
     """Fixation candidates by I2MC (Hessels et al. 2017).
 
     Parameters
@@ -211,7 +212,7 @@ def detect_i2mc(t_s, yaw_deg, pitch_deg, usable, *, window_ms: float = 200.0, st
         Edge trimming: samples at a candidate's start or end farther from its
         median position than ``median + onoffset_mad * MAD`` of the distances
         are removed.
-    noise_rms_s2s_deg : float, optional
+    noise_rms_s2s_deg, noise_rms_s2s_1sample_deg : float, optional
         Not needed: the cut-off adapts through the weight distribution.
 
     Returns

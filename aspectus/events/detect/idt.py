@@ -31,12 +31,32 @@ d2 = 3.5); at a lab tracker's rate the third lets a fixation start and the
 last lets it grow as far as the noise's own expected spread. What noise
 alone still cuts lies side by side at the same place, and the merge step
 joins it (:mod:`aspectus.events.detect.postprocess`).
+
+Frame rates above 30 Hz with noise that is not white. Webcam gaze error
+changes partly over tens of milliseconds, so per sample its RMS-S2S reads
+lower at higher rates (some 20 % at 60 fps) although the eyes and the error's
+spread are the same; a threshold of a multiple of it shrank with the rate and
+the drift split fixations (on a simulated path with such an error 1.85 times
+the 30 Hz count at 60 Hz; bench/rate_independence.py). So ``noise_rms_s2s_deg``
+is the noise over 33 ms steps (:func:`aspectus.events.detect.noise.reference_lag`;
+the RMS-S2S itself at 30 Hz and below, where nothing changes), while the d2
+terms, which model independent samples, read the per-sample figure
+(``noise_rms_s2s_1sample_deg``). One more term keeps what finer sampling
+shows of the same error: over a window of ``m`` samples the noise reaches
+``g = d2(m) / d2(m_ref)`` times as far as over the ``m_ref`` samples a 30 Hz
+camera takes in the same time, so the threshold is at least ``noise_factor x
+RMS-S2S x sqrt(1 + (g^2 - 1) w)``, with ``w`` the share of the noise that is
+not white: ``(looks - 1) / (L - 1)``, ``looks`` from
+:func:`aspectus.events.detect.noise.samples_per_look` and ``L`` the samples
+of a 33 ms step (0 for white noise, whose growth the d2 terms already hold; 1
+for an error that changes like a random walk within 33 ms).
 """
 from __future__ import annotations
 
 import numpy as np
 
 from aspectus.errors import ParameterError
+from aspectus.events.detect.noise import reference_lag, samples_per_look
 from aspectus.events.detect.runs import end_times, true_runs
 from aspectus.events.detect.types import Candidates
 
@@ -95,7 +115,7 @@ def expected_range_sd(m) -> np.ndarray:
 def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None = None,
                noise_rms_s2s_deg: float | None = None, noise_factor: float = 3.5,
                min_dispersion_deg: float = 1.5, min_duration_ms: float = 60.0,
-               noise_range_factor: float = 1.2) -> Candidates:
+               noise_range_factor: float = 1.2, noise_rms_s2s_1sample_deg: float | None = None) -> Candidates:
     """Fixation candidates by I-DT (Salvucci & Goldberg 2000).
 
     Parameters
@@ -112,7 +132,11 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
         noise_factor * noise_rms_s2s_deg)``.
     noise_rms_s2s_deg : float, optional
         The clip's RMS-S2S noise in degrees (needed when ``dispersion_deg`` is
-        None; see :mod:`aspectus.events.detect.noise`).
+        None; see :mod:`aspectus.events.detect.noise`), read over 33 ms steps
+        by :func:`aspectus.events.analysis.run_analysis` (module docstring).
+    noise_rms_s2s_1sample_deg : float, optional
+        The same per sample, for the terms that count samples (the expected
+        range of ``m`` independent samples); defaults to ``noise_rms_s2s_deg``.
     noise_factor : float, default 3.5
         Adaptive threshold in units of RMS-S2S.
     min_dispersion_deg : float, default 1.5
@@ -140,9 +164,11 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     n = len(t)
     if not (np.isfinite(noise_range_factor) and noise_range_factor >= 0):
         raise ParameterError(f"I-DT noise_range_factor must be >= 0, got {noise_range_factor!r}")
-    noise = 0.0
+    noise = noise1 = 0.0
     if dispersion_deg is None:
         noise = noise_rms_s2s_deg if noise_rms_s2s_deg is not None and np.isfinite(noise_rms_s2s_deg) else 0.0
+        noise1 = (noise_rms_s2s_1sample_deg if noise_rms_s2s_1sample_deg is not None
+                  and np.isfinite(noise_rms_s2s_1sample_deg) else noise)
         thr = max(float(min_dispersion_deg), float(noise_factor) * float(noise))
         k_range = float(noise_range_factor)
     else:
@@ -153,27 +179,42 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     if not (np.isfinite(min_duration_ms) and min_duration_ms > 0):
         raise ParameterError(f"I-DT min_duration_ms must be > 0 ms, got {min_duration_ms!r}")
     base = thr
-    noise = float(noise)
+    noise, noise1 = float(noise), float(noise1)
+    k_noise = float(noise_factor) if dispersion_deg is None else 0.0
 
     m0_box = [2]  # samples in the duration-threshold window (set below)
+    dt0 = float(np.median(np.diff(t))) if n > 1 else 0.0
+    lag = reference_lag(dt0)
+    looks = samples_per_look(dt0, noise1, noise) if noise > 0 else 1.0
 
     def thr_of(m):
         """The threshold (deg) used for a window of ``m`` samples (module docstring)."""
         m = np.asarray(m)
-        if k_range <= 0 or noise <= 0:
+        if k_range <= 0 or noise1 <= 0:
             return np.full(m.shape, base)
-        first = max(base, k_range * float(expected_range_sd(m0_box[0])) * noise)
-        return np.maximum(first, expected_range_sd(m) * noise)
+        first = max(base, k_range * float(expected_range_sd(m0_box[0])) * noise1)
+        out = np.maximum(first, expected_range_sd(m) * noise1)
+        if lag > 1 and looks > 1:
+            # the threshold a 30 Hz camera would use over the same time, grown by how much further the noise
+            # reaches over m samples than over the m_ref such a camera takes in that time (module docstring)
+            m_ref = np.maximum(1 + np.floor((m - 1) / lag + 0.5).astype(np.int64), 2)
+            g = np.maximum(expected_range_sd(m) / expected_range_sd(m_ref), 1.0)
+            out = np.maximum(out, k_noise * noise * np.sqrt(1.0 + (g * g - 1.0) * (looks - 1.0) / (lag - 1.0)))
+        return out
 
     def noise_disp_of(m):
-        return expected_range_sd(np.asarray(m)) * noise if noise > 0 else np.full(np.shape(m), np.nan)
+        return expected_range_sd(np.asarray(m)) * noise1 if noise1 > 0 else np.full(np.shape(m), np.nan)
 
     info = {"dispersion_deg": thr, "min_duration_ms": float(min_duration_ms),
             "dispersion_rule": ("fixed" if dispersion_deg is not None else
                                 f"max({float(min_dispersion_deg):g} deg, {float(noise_factor):g} x RMS-S2S, "
-                                f"{k_range:g} x d2(samples in {float(min_duration_ms):g} ms) x RMS-S2S, "
-                                "d2(samples in the window) x RMS-S2S)"),
-            "noise_rms_s2s_deg": noise if dispersion_deg is None else None}
+                                f"{k_range:g} x d2(samples in {float(min_duration_ms):g} ms) x RMS-S2S per sample, "
+                                "d2(samples in the window) x RMS-S2S per sample, "
+                                f"{float(noise_factor):g} x RMS-S2S x the growth of d2 from the samples a 30 Hz "
+                                "camera takes in the window to its samples, as far as the noise is not white); "
+                                "RMS-S2S over 33 ms steps"),
+            "noise_rms_s2s_deg": noise if dispersion_deg is None else None,
+            "noise_rms_s2s_1sample_deg": noise1 if dispersion_deg is None else None}
     if n < 2 or not ok.any():
         return Candidates(np.zeros(0, np.int64), np.zeros(0, np.int64), info, thr_of, noise_disp_of)
     dt = float(np.median(np.diff(t)))

@@ -180,7 +180,8 @@ def nh2010_thresholds(speed_deg_s, *, initial_deg_s: float = 200.0, sd_factor: f
 
 def detect_ivt(t_s, yaw_deg, pitch_deg, usable, *, method: str = "ek2003", velocity_window_ms: float = 20.0,
                initial_threshold_deg_s: float = 200.0, sd_factor: float = 6.0, onset_sd_factor: float = 3.0,
-               ek_lambda: float = 6.0, noise_rms_s2s_deg: float | None = None) -> Candidates:
+               ek_lambda: float = 6.0, noise_rms_s2s_deg: float | None = None,
+               noise_rms_s2s_1sample_deg: float | None = None) -> Candidates:
     """Fixation candidates by I-VT with a data-driven velocity threshold.
 
     Parameters
@@ -197,7 +198,7 @@ def detect_ivt(t_s, yaw_deg, pitch_deg, usable, *, method: str = "ek2003", veloc
         nh2010 peak and onset thresholds in SDs above the mean velocity.
     ek_lambda : float, default 6
         ek2003 threshold multiplier of the median-based velocity SD.
-    noise_rms_s2s_deg : float, optional
+    noise_rms_s2s_deg, noise_rms_s2s_1sample_deg : float, optional
         Not needed: the threshold comes from the velocities themselves.
 
     Returns

@@ -35,8 +35,29 @@ def reference_lag(sample_interval_s: float) -> int:
     return max(1, int(np.floor(REFERENCE_INTERVAL_S / dt + 0.5)))
 
 
-def s2s_distances_deg(yaw_deg, pitch_deg, ok=None) -> np.ndarray:
-    """Angular distances between consecutive samples, in degrees.
+def samples_per_look(sample_interval_s: float, noise_rms_s2s_1sample_deg: float, noise_rms_s2s_33ms_deg: float) -> float:
+    """How many consecutive samples make one independent look at the error, at this sample interval.
+
+    ``(33 ms figure / per-sample figure)^2``, the growth of the squared step from one sample interval to the
+    :data:`REFERENCE_INTERVAL_S` step, within ``[1, L]`` (``L =`` :func:`reference_lag`). Exact at both ends: for
+    white noise steps of any length are alike (1: every sample a new look, as a lab tracker's); for an error that
+    changes over tens of milliseconds like a random walk, the squared step grows with its length (``L``: one new
+    look per 33 ms step, as at 30 Hz); between, it interpolates. 1 at 30 Hz and below whatever the noise. The rules
+    that count samples as evidence or as draws of the noise - the merge test of two means, the fewest samples of a
+    fixation, the I-DT threshold's growth with the window - count looks, so they ask the same of the same eyes at
+    any rate. Both figures are the robust ones over all valid steps (:func:`robust_rms_s2s_deg`).
+    """
+    lag = reference_lag(sample_interval_s)
+    n1, n33 = float(noise_rms_s2s_1sample_deg), float(noise_rms_s2s_33ms_deg)
+    if lag == 1 or not (np.isfinite(n1) and np.isfinite(n33) and n33 > 0):
+        return 1.0
+    if n1 <= 0:
+        return float(lag)
+    return float(np.clip((n33 / n1) ** 2, 1.0, lag))
+
+
+def s2s_distances_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1) -> np.ndarray:
+    """Angular distances between samples ``lag`` apart (consecutive samples by default), in degrees.
 
     Parameters
     ----------
@@ -44,6 +65,8 @@ def s2s_distances_deg(yaw_deg, pitch_deg, ok=None) -> np.ndarray:
         Gaze angles in degrees (NaN where missing).
     ok : array_like of bool, shape (n,), optional
         Samples to use; a step counts only when both its samples are ok.
+    lag : int, default 1
+        Samples between the two ends of a step (:func:`reference_lag` gives the one of a 33 ms step).
 
     Returns
     -------
@@ -52,27 +75,31 @@ def s2s_distances_deg(yaw_deg, pitch_deg, ok=None) -> np.ndarray:
     """
     x = np.asarray(yaw_deg, dtype=float)
     y = np.asarray(pitch_deg, dtype=float)
-    d = np.hypot(np.diff(x), np.diff(y))
+    lag = max(1, int(lag))
+    if len(x) <= lag:
+        return np.zeros(0)
+    d = np.hypot(x[lag:] - x[:-lag], y[lag:] - y[:-lag])
     keep = np.isfinite(d)
     if ok is not None:
         ok = np.asarray(ok, dtype=bool)
-        keep &= ok[1:] & ok[:-1]
+        keep &= ok[lag:] & ok[:-lag]
     return d[keep]
 
 
-def rms_s2s_deg(yaw_deg, pitch_deg, ok=None) -> float:
-    """RMS of sample-to-sample distances (Holmqvist et al. 2012), in degrees; NaN if no step."""
-    d = s2s_distances_deg(yaw_deg, pitch_deg, ok)
+def rms_s2s_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1) -> float:
+    """RMS of sample-to-sample distances (Holmqvist et al. 2012; of steps ``lag`` samples long), in degrees; NaN
+    if no step."""
+    d = s2s_distances_deg(yaw_deg, pitch_deg, ok, lag)
     return float(np.sqrt(np.mean(d * d))) if len(d) else float("nan")
 
 
-def robust_rms_s2s_deg(yaw_deg, pitch_deg, ok=None) -> float:
-    """RMS-S2S estimated from the median step, in degrees; NaN if no step.
+def robust_rms_s2s_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1) -> float:
+    """RMS-S2S estimated from the median step (of steps ``lag`` samples long), in degrees; NaN if no step.
 
     ``median(step) * 2 / sqrt(4 ln 2)`` equals the RMS-S2S for white Gaussian
     noise and is barely moved by saccades, which are a minority of steps.
     """
-    d = s2s_distances_deg(yaw_deg, pitch_deg, ok)
+    d = s2s_distances_deg(yaw_deg, pitch_deg, ok, lag)
     return float(np.median(d) * RAYLEIGH_RMS_PER_MEDIAN) if len(d) else float("nan")
 
 

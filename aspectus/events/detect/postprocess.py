@@ -40,7 +40,11 @@
    (:func:`means_indistinguishable`, :func:`pooled_within_sd_deg`). Noisy
    low-rate data split fixations into fragments a degree or two apart whose
    means, over a handful of samples each, cannot be told apart; at 500 Hz the
-   means are so precise that the 0.5 deg criterion decides.
+   means are so precise that the 0.5 deg criterion decides. The test counts
+   independent looks at the error, not samples
+   (:func:`aspectus.events.detect.noise.samples_per_look`: one sample at 30 Hz
+   and for white noise, up to two at 60 Hz where the error changes over tens
+   of milliseconds), so it asks the same of the same eyes at either rate.
 2. Drop fixations shorter than ``min_fixation_ms`` (60-100 ms: common
    practice, field notes) or made of fewer than :data:`MIN_FIXATION_SAMPLES`
    usable samples (at webcam rates two noisy samples are no evidence of a
@@ -72,6 +76,7 @@ import numpy as np
 import pandas as pd
 
 from aspectus.schema import EVENT_COLUMNS
+from aspectus.events.detect.noise import samples_per_look
 from aspectus.events.detect.runs import end_times, runs_to_mask, trim_runs, true_runs
 from aspectus.events.detect.types import Candidates
 
@@ -109,13 +114,15 @@ def _means(cx, cy, cn, s, e):
 def merge_candidates(t_s, yaw_deg, pitch_deg, usable, blocked, starts, ends, *, merge_gap_ms: float = 75.0,
                      merge_distance_deg: float = 0.5, dt_s: float | None = None,
                      noise_sd_deg: tuple[float, float] | None = None, merge_alpha: float = 0.0,
-                     lo_s=None, hi_s=None):
+                     lo_s=None, hi_s=None, samples_per_look: float = 1.0):
     """Merge close fixation candidates (see module docstring); returns new (starts, ends).
 
     With ``noise_sd_deg = (sd_yaw, sd_pitch)`` and ``merge_alpha > 0`` two
     neighbours are also merged when their mean positions do not differ
     significantly at level ``merge_alpha`` given that noise (see
-    :func:`means_indistinguishable`).
+    :func:`means_indistinguishable`), each mean over its samples divided by
+    ``samples_per_look`` independent looks at the error
+    (:func:`aspectus.events.detect.noise.samples_per_look`).
     """
     t = np.asarray(t_s, dtype=float)
     s = np.asarray(starts, dtype=np.int64)
@@ -123,6 +130,7 @@ def merge_candidates(t_s, yaw_deg, pitch_deg, usable, blocked, starts, ends, *, 
     if len(s) < 2:
         return s, e
     dt = float(np.median(np.diff(t))) if dt_s is None else dt_s
+    per_look = max(float(samples_per_look), 1.0) if np.isfinite(samples_per_look) else 1.0
     if lo_s is None or hi_s is None:
         te = end_times(t, dt)
         lo = t
@@ -144,7 +152,9 @@ def merge_candidates(t_s, yaw_deg, pitch_deg, usable, blocked, starts, ends, *, 
         dist = np.hypot(mx[1:] - mx[:-1], my[1:] - my[:-1])
         close = dist <= merge_distance_deg
         if test:
-            n = (cn[e] - cn[s]).astype(float)
+            # samples closer than 33 ms are not all independent draws of webcam error (part of it changes over
+            # tens of ms): count independent looks, as many at any rate as at 30 Hz (per sample at 30 Hz)
+            n = np.maximum((cn[e] - cn[s]) / per_look, 1.0)
             close |= means_indistinguishable(mx[1:] - mx[:-1], my[1:] - my[:-1], n[:-1], n[1:], noise_sd_deg,
                                              merge_alpha)
         join = free & (gap_ms <= merge_gap_ms + 1e-9) & close
@@ -459,6 +469,7 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
                  edge_velocity_window_ms: float = 10.0, merge_noise_factor: float = 0.0,
                  noise_rms_s2s_deg: float | None = None, merge_alpha: float = 0.0, edge_alpha: float = 0.0,
                  edge_window_ms: float = 20.0, lo_s=None, hi_s=None, inserted=None,
+                 noise_rms_s2s_1sample_deg: float | None = None,
                  peak_velocity_window_ms: float = 20.0, edge_speed_low_rates: bool = False) -> tuple[pd.DataFrame, np.ndarray]:
     """Events table and per-sample labels from fixation candidates.
 
@@ -488,7 +499,13 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
         If > 0, the merge distance grows with the noise:
         ``max(merge_distance_deg, merge_noise_factor * noise_rms_s2s_deg)``.
     noise_rms_s2s_deg : float, optional
-        The recording's RMS-S2S noise, deg (for ``merge_noise_factor``).
+        The recording's RMS-S2S noise, deg (for ``merge_noise_factor``), read
+        over 33 ms steps by :func:`aspectus.events.analysis.run_analysis`.
+    noise_rms_s2s_1sample_deg : float, optional
+        The same per sample; with ``noise_rms_s2s_deg`` it sets how many
+        samples make one independent look at the error
+        (:func:`aspectus.events.detect.noise.samples_per_look`) for the merge
+        test and the fewest samples of a fixation. Absent: one sample.
     merge_alpha : float, default 0
         Level of the merge test of two means; 0 disables.
     edge_alpha : float, default 0
@@ -554,12 +571,16 @@ def build_events(t_s, yaw_deg, pitch_deg, usable, blink, loss, candidates: Candi
         # which axes the test of two means used (an axis without noise carries none; with neither, no test ran)
         candidates.info["merge_test_axes"] = [ax for ax, sd in zip(("yaw", "pitch"), noise_sd)
                                               if np.isfinite(sd) and sd > 0]
+    looks = (samples_per_look(dt, noise_rms_s2s_1sample_deg, noise_rms_s2s_deg)
+             if noise_rms_s2s_1sample_deg is not None and noise_rms_s2s_deg is not None else 1.0)
+    candidates.info["samples_per_look"] = looks
     s, e = merge_candidates(t, x, y, usable, blocked, s, e, merge_gap_ms=merge_gap_ms,
                             merge_distance_deg=merge_deg, dt_s=dt, noise_sd_deg=noise_sd, merge_alpha=merge_alpha,
-                            lo_s=lo_s, hi_s=hi_s)
+                            lo_s=lo_s, hi_s=hi_s, samples_per_look=looks)
     dur_ms = (hi_s[np.maximum(e - 1, 0)] - lo_s[s]) * 1000.0
     # a fixation needs at least MIN_FIXATION_SAMPLES samples whatever min_fixation_ms says: over fewer, its
-    # position and dispersion rest on one or two noisy samples (at 30 Hz: 100 ms; at 500 Hz min_fixation_ms decides)
+    # position and dispersion rest on one or two noisy samples (at 30 Hz: 100 ms; at 60 Hz and above
+    # min_fixation_ms decides)
     n_usable = np.concatenate([[0], np.cumsum(usable)])
     keep = (dur_ms >= min_fixation_ms - 1e-9) & (n_usable[e] - n_usable[s] >= MIN_FIXATION_SAMPLES)
     candidates.info["min_fixation_samples"] = MIN_FIXATION_SAMPLES
