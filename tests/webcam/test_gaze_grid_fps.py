@@ -73,13 +73,21 @@ def test_the_noise_figure_and_the_tier_mean_the_same_at_60_fps(rows):
     # sample, 0.80 at 33 ms; with the true iris 0.73 -> 0.48 per sample, 0.71 at 33 ms (0.219 -> 0.144 / 0.251 deg)
     from aspectus.webcam.pipeline import precision_tier
 
-    for variant in ("default", "true_iris"):
+    # Since the detector's thresholds read the noise over 33 ms steps too (tests/events/test_detect_frame_rate.py) it
+    # no longer splits the 60 fps clip's fixations (31 at both rates, 48 at 60 fps before), so their inside holds
+    # more of the slow error and of the samples beside saccades: with the default the 60 fps figures read higher
+    # against rms_fix, per sample 0.63 -> 0.85, at 33 ms 0.80 -> 0.99 (30 fps 0.84): 1.18 times the 30 fps meaning
+    # (0.95 before), the per-sample one 1.01 (0.75 before). Guarded at that level; with the true iris (thresholds at
+    # their 1.5 deg floor, unchanged) the 33 ms figure still means what it does at 30 fps (0.97; per sample 0.65)
+    for variant, band in (("default", (0.85, 1.25)), ("true_iris", (0.9, 1.1))):
         lo, hi = rows[(30.0, variant)], rows[(60.0, variant)]
         assert lo["noise_rms_s2s_33ms_deg"] == lo["noise_rms_s2s_deg"]
         # against the error's own spread in the coders' fixations (rms_fix, comparable at any rate)
         per_sample = (hi["noise_rms_s2s_deg"] / hi["rms_fix_deg"]) / (lo["noise_rms_s2s_deg"] / lo["rms_fix_deg"])
         at_33ms = (hi["noise_rms_s2s_33ms_deg"] / hi["rms_fix_deg"]) / (lo["noise_rms_s2s_deg"] / lo["rms_fix_deg"])
-        assert abs(at_33ms - 1.0) < abs(per_sample - 1.0), (variant, per_sample, at_33ms)
+        assert band[0] <= at_33ms <= band[1], (variant, per_sample, at_33ms)
+        if variant == "true_iris":
+            assert abs(at_33ms - 1.0) < abs(per_sample - 1.0), (variant, per_sample, at_33ms)
     iris = rows[(30.0, "default")]["iris_px_measured"]
     tiers = {fps: precision_tier(rows[(fps, "default")]["noise_rms_s2s_33ms_deg"], iris)[0] for fps in (30.0, 60.0)}
     assert tiers[30.0] == tiers[60.0], tiers
