@@ -303,7 +303,9 @@ def registered_iris(patches, affines: np.ndarray, iris_px: np.ndarray, iris_diam
     of the iris disc in the eye ``patches`` (see the module docstring); frames without an absolute centre or a
     patch keep ``iris_px``. ``affines``: (N, 2, 2, 3) the patches' transforms (NaN where a frame has none);
     ``iris_diam_px``: (N, 2) the iris diameters (px; the disc's size); ``usable``: (N,) frames with open eyes.
-    Returns the centres and a record (per eye and axis the gain and both noise levels, px; increments found).
+    Returns the centres and a record (per eye and axis the gain and both noise levels, px; increments found;
+    frames fused - those the smoother joined to a neighbour by an increment, on both axes -; ``applied`` False,
+    with a reason, where no eye and axis had enough increments for its noise levels and nothing was fused).
     """
     iris = np.array(iris_px, float)
     A = np.asarray(affines, float)
@@ -331,6 +333,7 @@ def registered_iris(patches, affines: np.ndarray, iris_px: np.ndarray, iris_diam
     # level below needs that; in patch coordinates they differ by the anchors' jitter)
     inc = picture_increments(z, d, gains, np.where(have[..., None, None], A, np.nan))
     out = np.full_like(iris, np.nan)
+    smoothed = np.zeros((2, 2), bool)  # eyes and axes with noise levels, whose centres the smoother gives
     levels = {}
     for e in range(2):
         for ax in range(2):
@@ -341,11 +344,21 @@ def registered_iris(patches, affines: np.ndarray, iris_px: np.ndarray, iris_diam
                 levels[name] = None
                 continue
             out[:, e, ax] = smooth(iris[:, e, ax], inc[:, e, ax], 1.0, Q, R)
+            smoothed[e, ax] = True
             levels[name] = {"gain": round(float(gains[e, ax]), 3), "increment_sd_px": round(float(np.sqrt(Q)), 4),
                             "absolute_sd_px": round(float(np.sqrt(R)), 4)}
     take = have[..., None] & np.isfinite(out) & np.isfinite(iris)
     iris = np.where(take, out, iris)
-    info.update({"applied": True, "disc_radius_samples": round(radius, 3),
+    # fused: a smoothed axis's frame joined to a neighbour by an increment (a frame with none on either side
+    # keeps its own observation, as do the axes without noise levels)
+    linked = np.isfinite(inc)
+    linked[:-1] |= np.isfinite(inc[1:])
+    fused = (take & smoothed[None] & linked).all(axis=2)
+    info.update({"applied": bool(fused.any()), "disc_radius_samples": round(radius, 3),
                  "increments": [int(np.isfinite(d[:, e]).all(axis=1).sum()) for e in range(2)],
-                 "frames_fused": [int(take[:, e].all(axis=1).sum()) for e in range(2)], "levels": levels})
+                 "frames_fused": [int(fused[:, e].sum()) for e in range(2)], "levels": levels})
+    if not info["applied"]:
+        info["reason"] = (f"too few registered increments for the noise levels (at least 20 per eye are needed; "
+                          f"found {info['increments'][0]} and {info['increments'][1]}, right and left): the centres "
+                          "are the absolute estimate's")
     return iris, info

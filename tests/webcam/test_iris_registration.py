@@ -165,3 +165,45 @@ def test_increments_in_the_picture_are_free_of_the_patch_frames_jitter():
     assert np.allclose(inc[1:], true, atol=1e-9)
     # in patch coordinates the two eyes' increments differ by the frames' jitter
     assert np.std(d[1:, 0] - d[1:, 1]) > 0.3
+
+
+def _still_clip(n: int, *, open_eyes: bool = True):
+    """``n`` frames of both eyes' drawn patches (the iris still, ``_eye_patch``), identity-scaled patch frames
+    placed at fixed picture positions, the absolute centres where the drawing puts them; ``open_eyes`` False: every
+    frame a blink."""
+    patch = _eye_patch(0.0, 0.0)
+    patches = np.broadcast_to(patch, (n, 2) + patch.shape).copy()
+    A = np.zeros((n, 2, 2, 3))
+    A[..., 0, 0] = A[..., 1, 1] = 1.5
+    A[:, 0, :, 2], A[:, 1, :, 2] = (300.0, 200.0), (380.0, 200.0)
+    iris = A[..., 2] + 1.5 * np.array([11.5, 7.5])
+    diam = np.full((n, 2), 1.5 * 8.4)
+    return patches, A, iris, diam, np.full(n, open_eyes)
+
+
+@pytest.mark.parametrize("n, open_eyes", [(12, True), (300, False)])
+def test_the_record_does_not_call_frames_fused_that_no_smoother_touched(n, open_eyes):
+    """Too few frames for the noise levels (a clip of 12 frames), or no increment at all (every frame a blink):
+    the centres stay as they were, and the record (run.json's gaze_model.iris_registration) must say that nothing
+    was fused rather than count every frame."""
+    from aspectus.webcam.iris_registration import registered_iris
+
+    patches, A, iris, diam, usable = _still_clip(n, open_eyes=open_eyes)
+    out, info = registered_iris(patches, A, iris, diam, usable)
+    assert np.array_equal(out, iris)
+    assert all(v is None for v in info["levels"].values())
+    assert info["frames_fused"] == [0, 0]
+    assert info["applied"] is False
+    assert "reason" in info
+
+
+def test_the_record_counts_fused_frames_of_a_clip_long_enough():
+    """The same drawn eyes over 300 open-eye frames, the absolute centres noisy: every frame is fused."""
+    from aspectus.webcam.iris_registration import registered_iris
+
+    patches, A, iris, diam, usable = _still_clip(300)
+    noisy = iris + np.random.default_rng(2).normal(0.0, 0.5, iris.shape)
+    out, info = registered_iris(patches, A, noisy, diam, usable)
+    assert info["applied"] is True and info["frames_fused"] == [300, 300]
+    # the still iris: the fused centres scatter less than the absolute ones
+    assert np.std(out - iris) < 0.5 * np.std(noisy - iris)
