@@ -69,6 +69,9 @@ GAIN_LIMITS = (0.5, 2.0)
 INNOVATION_TRIM_SD = 4.0
 #: the smallest noise variance either level may take, patch samples squared
 MIN_VARIANCE = 1e-4
+#: frames registered between two calls of the ``on_frames`` callback (progress, cancellation): about a second
+#: at some 3 ms a frame
+CALLBACK_FRAMES = 250
 
 
 def register_shift(ref: np.ndarray, cur: np.ndarray, centre, radius: float, start=None) -> tuple[np.ndarray, float]:
@@ -132,14 +135,16 @@ def register_shift(ref: np.ndarray, cur: np.ndarray, centre, radius: float, star
 
 
 def patch_increments(patches, centres: np.ndarray, radius: float, usable: np.ndarray, *,
-                     block_frames: int = 3000) -> tuple[np.ndarray, np.ndarray]:
+                     block_frames: int = 3000, on_frames=None) -> tuple[np.ndarray, np.ndarray]:
     """Per frame and eye, the iris's registered shift from the frame before (N, 2, 2; patch samples, NaN where
     none) and the fit's residual (N, 2).
 
     ``patches``: (N, 2, H, W) uint8, or any sequence whose slice ``[a:b]`` gives that array (read in blocks of
     ``block_frames``); ``centres``: (N, 2, 2) the absolute iris centres in patch coordinates (the disc of frame
     ``t - 1`` is centred on its centre; the absolute step is the second start); ``radius``: the disc's radius,
-    samples; ``usable``: (N,) frames whose eyes are open (both frames of a pair must be).
+    samples; ``usable``: (N,) frames whose eyes are open (both frames of a pair must be). ``on_frames``: called
+    with the number of frames done every :data:`CALLBACK_FRAMES` frames and at the end (progress; an exception
+    it raises, such as a cancellation, stops the work).
     """
     n = len(patches)
     d = np.full((n, 2, 2), np.nan)
@@ -168,6 +173,10 @@ def patch_increments(patches, centres: np.ndarray, radius: float, usable: np.nda
                     if best is not None:
                         d[t, e], res[t, e] = best
             prev = cur
+            if on_frames is not None and (t + 1) % CALLBACK_FRAMES == 0:
+                on_frames(t + 1)
+    if on_frames is not None:
+        on_frames(n)
     return d, res
 
 
@@ -298,11 +307,12 @@ def picture_increments(centres: np.ndarray, d: np.ndarray, gains: np.ndarray, af
 
 
 def registered_iris(patches, affines: np.ndarray, iris_px: np.ndarray, iris_diam_px: np.ndarray,
-                    usable: np.ndarray) -> tuple[np.ndarray, dict]:
+                    usable: np.ndarray, *, on_frames=None) -> tuple[np.ndarray, dict]:
     """The absolute iris centres ``iris_px`` (N, 2, 2; picture px, NaN where none) fused with the registered motion
     of the iris disc in the eye ``patches`` (see the module docstring); frames without an absolute centre or a
     patch keep ``iris_px``. ``affines``: (N, 2, 2, 3) the patches' transforms (NaN where a frame has none);
-    ``iris_diam_px``: (N, 2) the iris diameters (px; the disc's size); ``usable``: (N,) frames with open eyes.
+    ``iris_diam_px``: (N, 2) the iris diameters (px; the disc's size); ``usable``: (N,) frames with open eyes;
+    ``on_frames``: progress and cancellation during the registration (:func:`patch_increments`).
     Returns the centres and a record (per eye and axis the gain and both noise levels, px; increments found;
     frames fused - those the smoother joined to a neighbour by an increment, on both axes -; ``applied`` False,
     with a reason, where no eye and axis had enough increments for its noise levels and nothing was fused).
@@ -323,7 +333,7 @@ def registered_iris(patches, affines: np.ndarray, iris_px: np.ndarray, iris_diam
         return iris, info
     radius = DISC_RADII * 0.5 * float(np.nanmedian(ratio))
     z = to_patch(iris, np.where(have[..., None, None], A, np.nan))
-    d, res = patch_increments(patches, z, radius, np.asarray(usable, bool))
+    d, res = patch_increments(patches, z, radius, np.asarray(usable, bool), on_frames=on_frames)
     d = reject_failed(d, res, radius)
     gains = np.array([[clip_gain(z[:, e, ax], d[:, e, ax]) for ax in range(2)] for e in range(2)])
     # each increment taken into the picture: frame t-1's centre moved by the scaled increment, through frame t's

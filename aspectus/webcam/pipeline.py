@@ -336,10 +336,18 @@ def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> t
     return iris, info
 
 
-def _registered_iris(a: np.ndarray, patches, found: np.ndarray, iris: np.ndarray) -> tuple[np.ndarray, dict]:
+#: the share of a clip's progress given to the iris registration at its end (``iris_registration``: some 3 ms a
+#: frame, after the frames' own work)
+REGISTRATION_PROGRESS_SHARE = 0.1
+
+
+def _registered_iris(a: np.ndarray, patches, found: np.ndarray, iris: np.ndarray, *, progress=None, cancel=None,
+                     name: str = "") -> tuple[np.ndarray, dict]:
     """The iris centres ``iris`` (N, 2, 2) fused with the iris disc's registered motion between frames
     (``iris_registration``; :func:`aspectus.webcam.iris_registration.registered_iris`). ``a``: the record with the
-    appearance columns; ``patches``: (N, 2, H, W) uint8 or a :class:`_PatchFile` of N rows."""
+    appearance columns; ``patches``: (N, 2, H, W) uint8 or a :class:`_PatchFile` of N rows. ``progress`` (the
+    extraction's) runs over the last :data:`REGISTRATION_PROGRESS_SHARE` of the clip's bar; ``cancel`` set raises
+    :class:`~aspectus.errors.Cancelled` (clip ``name`` in its message)."""
     from aspectus.webcam.gaze import OPEN_EYE_REL, relative_aperture
     from aspectus.webcam.iris_appearance import PATCH_SIZE
     from aspectus.webcam.iris_registration import registered_iris
@@ -350,9 +358,18 @@ def _registered_iris(a: np.ndarray, patches, found: np.ndarray, iris: np.ndarray
     if isinstance(patches, np.ndarray):
         W, H = PATCH_SIZE
         patches = patches.reshape(n, 2, H, W)
+    start = 0.99 * (1.0 - REGISTRATION_PROGRESS_SHARE)
+
+    def on_frames(k: int) -> None:
+        if cancel is not None and cancel.is_set():
+            raise Cancelled(f"cancelled while processing {name}")
+        if progress is not None:
+            progress(start + (0.99 - start) * k / max(n, 1), f"{name}: following the iris between frames, "
+                                                                f"frame {k} of {n}")
+
     t0 = time.process_time()
     out, info = registered_iris(patches, a[:, RECORD_WIDTH + 2:RECORD_WIDTH + 14].reshape(n, 2, 2, 3), iris,
-                                a[:, 19:21], usable)
+                                a[:, 19:21], usable, on_frames=on_frames)
     info["cpu_ms_per_frame"] = round((time.process_time() - t0) * 1e3 / max(n, 1), 3)
     return out, info
 
@@ -450,6 +467,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         pin_to_cpus(background, geometry.pid)
     n_in = 0
     state = None
+    # the iris registration at the clip's end takes the last part of the progress (_registered_iris)
+    loop_share = 1.0 - REGISTRATION_PROGRESS_SHARE if registration else 1.0
     try:
         for fr in prefetch:
             if cancel is not None and cancel.is_set():
@@ -463,7 +482,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                                        skin_pose=skin, anchor_set=params.gaze.eye_anchor_set))
             n_in += 1
             if progress is not None and (n_in % 10 == 0):
-                progress(min(n_in / n_hint, 0.99), f"{clip.name}: frame {n_in} of about {n_hint}")
+                progress(min(n_in / n_hint, 0.99) * loop_share, f"{clip.name}: frame {n_in} of about {n_hint}")
         state = geometry.finish()
     finally:
         if state is None:
@@ -535,10 +554,13 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         reg_info = {"applied": False, "reason": "the eye patches were not kept (iris_combine auto: iris not below "
                                                 f"{AUTO_APPEARANCE_BELOW_PX} px)" if refine and params.gaze.eye_anchors
                     else "needs refine_iris and eye_anchors"}
-    if registration and patches is not None:
-        iris, reg_info = _registered_iris(a, patches, found, iris)
-    if patches is not None:
-        patches.close()  # the patches are not needed any more (the temporary file goes with it)
+    try:
+        if registration and patches is not None:
+            iris, reg_info = _registered_iris(a, patches, found, iris, progress=progress, cancel=cancel,
+                                              name=clip.name)
+    finally:
+        if patches is not None:
+            patches.close()  # the patches are not needed any more (the temporary file goes with it)
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],

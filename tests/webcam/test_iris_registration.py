@@ -207,3 +207,46 @@ def test_the_record_counts_fused_frames_of_a_clip_long_enough():
     assert info["applied"] is True and info["frames_fused"] == [300, 300]
     # the still iris: the fused centres scatter less than the absolute ones
     assert np.std(out - iris) < 0.5 * np.std(noisy - iris)
+
+
+def _record(A, iris, diam):
+    """The per-frame record the pipeline keeps (aspectus.webcam.frame_geometry's columns) for ``_still_clip``."""
+    from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, RECORD_WIDTH
+
+    n = len(A)
+    n_meta = sum(k for name, k in APPEARANCE_COLUMNS if name != "patches")
+    a = np.full((n, RECORD_WIDTH + n_meta), np.nan)
+    a[:, 15:19] = iris.reshape(n, 4)
+    a[:, 19:21] = diam
+    a[:, 29:31] = 0.3  # eyes open throughout
+    a[:, RECORD_WIDTH + 2:RECORD_WIDTH + 14] = A.reshape(n, 12)
+    return a
+
+
+def test_the_registration_step_reports_progress_and_honours_cancellation():
+    """The registration runs after the frames (some 3 ms a frame: minutes on an hour's clip); like the frame loop
+    it must move the progress bar and stop when the user cancels."""
+    from aspectus.errors import Cancelled
+    from aspectus.webcam.pipeline import _registered_iris
+
+    n = 600
+    patches, A, iris, diam, _ = _still_clip(n)
+    a = _record(A, iris, diam)
+    found = np.ones(n, bool)
+    seen = []
+    _registered_iris(a, patches, found, iris, progress=lambda f, m: seen.append((f, m)), name="clip.mp4")
+    fr = [f for f, _ in seen]
+    assert len(seen) >= 3 and fr == sorted(fr) and 0.85 < fr[0] and fr[-1] == pytest.approx(0.99)
+    assert "clip.mp4" in seen[-1][1] and f"frame {n} of {n}" in seen[-1][1]
+
+    class Flag:
+        calls = 0
+
+        def is_set(self):
+            self.calls += 1
+            return self.calls > 1
+
+    flag = Flag()
+    with pytest.raises(Cancelled, match="clip.mp4"):
+        _registered_iris(a, patches, found, iris, cancel=flag, name="clip.mp4")
+    assert flag.calls == 2  # stopped at the second look, not after the whole clip
