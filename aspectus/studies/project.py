@@ -366,7 +366,9 @@ def _process_params_match(run_params: dict, study_process: dict) -> bool:
     """Whether a run's processing parameters equal the study's (analysis ones do not count).
 
     The study's ``gaze`` entry holds only the settings it sets; the others are at
-    :class:`aspectus.webcam.gaze.GazeParams`' defaults, which is what they are compared with.
+    :class:`aspectus.webcam.gaze.GazeParams`' defaults, which is what they are compared with. A gaze setting
+    the run's record lacks (a run from before the setting existed) counts as its default: the settings added
+    later default to the earlier behaviour, so such a run is outdated only for a study that chose another value.
     """
     rp = {k: v for k, v in (run_params or {}).items() if k != "analysis"}
     sp = {k: v for k, v in study_process.items() if k not in ("analysis", "gaze")}
@@ -380,7 +382,8 @@ def _process_params_match(run_params: dict, study_process: dict) -> bool:
         except (AspectusInputError, TypeError):  # a setting the study cannot use: no run matches it
             return False
         ran = renamed_settings_read(rp["gaze"])  # a run from before a setting's new name: read under it
-        return all(ran.get(k) == v for k, v in want.items() if k in ran)
+        default = GazeParams().to_dict()
+        return all(ran.get(k, default[k]) == v for k, v in want.items())
     return True
 
 

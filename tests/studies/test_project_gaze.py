@@ -148,3 +148,18 @@ def test_a_blink_pad_saved_in_frames_is_read_in_ms(tmp_path):
         params["gaze"]["blink_pad_frames"] = frames  # a run made when the pad was set in frames
         (out / "run.json").write_text(json.dumps({"params": params}))
         assert s.refresh_status(c) == status, frames
+
+
+@pytest.mark.parametrize("name, value", [("iris_registration", True), ("iris_shape", "ellipse")])
+def test_a_run_from_before_a_setting_existed_ran_with_its_default(tmp_path, name, value):
+    """A run.json written before a gaze setting existed has no entry for it: that run measured as the setting's
+    default does (the settings added later default to the earlier behaviour). It is current for a study at the
+    default, and outdated for a study that chose another value - not counted as done with it."""
+    s, c, out = _study_with_a_clip(tmp_path)
+    params = ProcessParams().to_dict()
+    del params["gaze"][name]
+    (out / "run.json").write_text(json.dumps({"params": params}))
+    s.process = {"fov_deg": 60.0, "face": "largest", "max_faces": 2, "gaze": {}}
+    assert s.refresh_status(c) == study_mod.STATUS_DONE
+    s.process["gaze"] = {name: value}
+    assert s.refresh_status(c) == study_mod.STATUS_STALE
