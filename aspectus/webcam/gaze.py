@@ -259,7 +259,7 @@ class GazeParams:
         registration between frames"); costs about 3 ms a frame at the
         clip's end. run.json: ``gaze_model.iris_registration``.
     iris_shape : {"circle", "ellipse"}
-        The shape the limbus fit gives the iris in the picture (with
+        The shape the limbus fit gives the iris in the picture (needs
         ``refine_iris``). ``"circle"`` (default): a circle. ``"ellipse"``: the
         disc seen obliquely - an ellipse whose minor axis lies along the
         direction in which the eye is turned from the camera, minor/major the
@@ -344,6 +344,9 @@ class GazeParams:
             raise ParameterError("gaze parameter iris_registration needs refine_iris and eye_anchors (the iris is "
                                  "registered in eye patches read from the eye picture in a frame the eye anchors "
                                  "place): set both true, or iris_registration false")
+        if self.iris_shape == "ellipse" and not self.refine_iris:
+            raise ParameterError("gaze parameter iris_shape = 'ellipse' needs refine_iris (the ellipse is the shape "
+                                 "the limbus fit gives the iris): set refine_iris true, or choose iris_shape circle")
         if self.head_rotation == "skin" and not self.refine_iris:
             raise ParameterError("gaze parameter head_rotation = 'skin' needs refine_iris (the skin points are "
                                  "followed on the picture sent with the eye crop): set refine_iris true, or choose "

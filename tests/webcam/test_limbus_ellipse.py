@@ -148,3 +148,19 @@ def test_the_setting_is_checked_and_reaches_the_per_frame_geometry(tmp_path, mon
     for shape in ("circle", "ellipse"):
         pipeline.extract_samples(clip, params=pipeline.ProcessParams(gaze=GazeParams(iris_shape=shape)))
     assert seen == [False, True]
+
+
+def test_the_ellipse_setting_needs_the_limbus_fit():
+    """``iris_shape="ellipse"`` shapes the limbus fit; without ``refine_iris`` there is none, and the setting would
+    do nothing while run.json recorded it: refused with what to do, as the other settings that need the fit are."""
+    from aspectus.errors import ParameterError
+    from aspectus.webcam.gaze import GazeParams, gaze_settings_from_stored
+
+    with pytest.raises(ParameterError, match="iris_shape = 'ellipse' needs refine_iris"):
+        GazeParams(iris_shape="ellipse", refine_iris=False)
+    assert GazeParams(iris_shape="circle", refine_iris=False).iris_shape == "circle"
+    assert GazeParams(iris_shape="ellipse").refine_iris is True
+    # a saved study with the combination loads with a sentence, not a failure
+    settings, notes = gaze_settings_from_stored({"iris_shape": "ellipse", "refine_iris": False})
+    GazeParams(**settings)
+    assert len(notes) == 1 and "do not go together" in notes[0]
