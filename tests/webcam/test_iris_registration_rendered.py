@@ -29,9 +29,9 @@ def run(lund_dir, tmp_path_factory):
     seen = {}
     orig = pipeline._registered_iris
 
-    def spy(a, patches, found, iris):
+    def spy(a, patches, found, iris, **kw):
         seen["absolute"] = np.array(iris, float)
-        out, info = orig(a, patches, found, iris)
+        out, info = orig(a, patches, found, iris, **kw)
         seen["fused"] = np.array(out, float)
         return out, info
 
