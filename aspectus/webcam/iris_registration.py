@@ -67,7 +67,8 @@ GAIN_SPAN_FRAMES = 3
 GAIN_LIMITS = (0.5, 2.0)
 #: innovations further than this many robust SD from their median are left out of the noise levels
 INNOVATION_TRIM_SD = 4.0
-#: the smallest noise variance either level may take, patch samples squared
+#: the smallest noise variance either level may take, squared units of the series (picture px squared as
+#: registered_iris uses it)
 MIN_VARIANCE = 1e-4
 #: frames registered between two calls of the ``on_frames`` callback (progress, cancellation): about a second
 #: at some 3 ms a frame
