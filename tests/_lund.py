@@ -289,3 +289,28 @@ def pso_duration_bias_ms(trial: LundTrial, coder: str) -> float:
     """
     return runs(np.isin(trial.labels[coder], [FIXATION, PSO]), trial.t_s)[1] - runs(trial.fixation_mask(coder),
                                                                                         trial.t_s)[1]
+
+
+def ar1_noise(n: int, rho: float, sd: float, rng: np.random.Generator) -> np.ndarray:
+    """``n`` values of an AR(1) process ``e[i] = rho e[i-1] + w[i]`` with stationary SD ``sd`` (started in its
+    stationary distribution); ``rho = 0`` is white noise."""
+    if not 0.0 <= rho < 1.0:
+        raise ValueError(f"rho must be in [0, 1), got {rho!r}")
+    w = rng.normal(0.0, sd * np.sqrt(1.0 - rho * rho), n)
+    e = np.empty(n)
+    if n:
+        e[0] = rng.normal(0.0, sd)
+    for i in range(1, n):
+        e[i] = rho * e[i - 1] + w[i]
+    return e
+
+
+def with_noise(trial: LundTrial, noise_rms_deg: float, *, rho: float = 0.0, seed: int = 0) -> LundTrial:
+    """``trial`` plus noise on yaw and pitch: AR(1) of lag-1 correlation ``rho`` (:func:`ar1_noise`), per-axis SD
+    ``noise_rms_deg / sqrt(2)`` as in :func:`degrade` (RMS length of the 2-D noise vector ``noise_rms_deg``)."""
+    rng = np.random.default_rng(seed)
+    sd = noise_rms_deg / np.sqrt(2.0)
+    n = len(trial.t_s)
+    return LundTrial(name=trial.name, t_s=trial.t_s.copy(), yaw_deg=trial.yaw_deg + ar1_noise(n, rho, sd, rng),
+                     pitch_deg=trial.pitch_deg + ar1_noise(n, rho, sd, rng), valid=trial.valid.copy(),
+                     labels={c: v.copy() for c, v in trial.labels.items()}, screen=trial.screen)

@@ -106,7 +106,9 @@ class AnalysisParams:
     idt_dispersion_deg : float or None, default None
         I-DT dispersion threshold, deg; None adapts it to the clip's noise.
     idt_noise_factor : float, default 3.5
-        Adaptive I-DT threshold in units of the clip's RMS-S2S noise.
+        Adaptive I-DT threshold in units of the clip's RMS-S2S noise (the
+        larger of it per sample and over steps of ``idt_min_duration_ms``:
+        :mod:`aspectus.events.detect.idt`).
     idt_min_dispersion_deg : float, default 1.5
         Floor of the adaptive I-DT threshold, deg.
     idt_min_duration_ms : float, default 60
@@ -564,7 +566,7 @@ def analyse_table(path, out_dir, *, time_col: str | None = None, time_unit: str 
     >>> sorted(p.name for p in (tmp / "lab").iterdir())
     ['events.csv', 'events.json', 'events.parquet', 'features.csv', 'features.parquet']
     >>> run.result.events["type"].value_counts().to_dict()
-    {'fixation': 75, 'saccade': 69, 'blink': 4}
+    {'fixation': 77, 'saccade': 72, 'blink': 4}
     """
     from aspectus.atomic import full_paths_wanted, recorded_path, sha256_file
     from aspectus.errors import AspectusInputError

@@ -50,13 +50,25 @@ not white: ``(looks - 1) / (L - 1)``, ``looks`` from
 :func:`aspectus.events.detect.noise.samples_per_look` and ``L`` the samples
 of a 33 ms step (0 for white noise, whose growth the d2 terms already hold; 1
 for an error that changes like a random walk within 33 ms).
+
+The noise in ``noise_factor x RMS-S2S`` is the larger of that figure and
+the same figure read over steps as long as the duration threshold (60 ms:
+2 samples at 30 Hz, 4 at 60 Hz), measured here on the clip's own samples (:func:`aspectus.events.detect.noise.wander_rms_deg`).
+A webcam gaze's error is mostly slow (lag-1 autocorrelation 0.6-0.9): its
+per-sample steps are short while the gaze wanders further within a
+fixation, so a threshold set from them alone was too tight and split
+fixations - the more so the better a gaze estimate removed the fast part
+of its error. For white noise both readings are the same. Measured on the
+Lund trials at 30 Hz with AR(1) noise (rho 0.7-0.9) and on rendered
+webcam clips against the coders (docs/notes/lund-30hz-limits.md, "Noise
+that wanders").
 """
 from __future__ import annotations
 
 import numpy as np
 
 from aspectus.errors import ParameterError
-from aspectus.events.detect.noise import reference_lag, samples_per_look
+from aspectus.events.detect.noise import reference_lag, samples_per_look, span_lag, wander_rms_deg
 from aspectus.events.detect.runs import end_times, true_runs
 from aspectus.events.detect.types import Candidates
 
@@ -129,7 +141,9 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     dispersion_deg : float or None, default None
         Dispersion threshold in degrees, ``(max-min yaw) + (max-min pitch)``.
         ``None`` adapts it to the noise: ``max(min_dispersion_deg,
-        noise_factor * noise_rms_s2s_deg)``.
+        noise_factor * max(noise_rms_s2s_deg, wander))``, the wander the
+        same figure read over steps of ``min_duration_ms`` on these samples
+        (module docstring; ``info["noise_wander_deg"]``).
     noise_rms_s2s_deg : float, optional
         The clip's RMS-S2S noise in degrees (needed when ``dispersion_deg`` is
         None; see :mod:`aspectus.events.detect.noise`), read over 33 ms steps
@@ -178,6 +192,13 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
         raise ParameterError(f"I-DT dispersion threshold must be > 0 deg, got {thr!r}")
     if not (np.isfinite(min_duration_ms) and min_duration_ms > 0):
         raise ParameterError(f"I-DT min_duration_ms must be > 0 ms, got {min_duration_ms!r}")
+    wander = float("nan")
+    if dispersion_deg is None and noise > 0 and n > 1:
+        # the wander over the duration threshold's span (module docstring); never below the per-sample figure
+        lag = span_lag(float(np.median(np.diff(t))), float(min_duration_ms))
+        wander = wander_rms_deg(x, y, ok, lag, max_step_deg=thr) if lag > 1 else float("nan")
+        if np.isfinite(wander) and wander > noise:
+            thr = max(thr, float(noise_factor) * wander)
     base = thr
     noise, noise1 = float(noise), float(noise1)
     k_noise = float(noise_factor) if dispersion_deg is None else 0.0
@@ -207,14 +228,16 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
 
     info = {"dispersion_deg": thr, "min_duration_ms": float(min_duration_ms),
             "dispersion_rule": ("fixed" if dispersion_deg is not None else
-                                f"max({float(min_dispersion_deg):g} deg, {float(noise_factor):g} x RMS-S2S, "
+                                f"max({float(min_dispersion_deg):g} deg, {float(noise_factor):g} x max(RMS-S2S, RMS-S2S over "
+                                f"{float(min_duration_ms):g} ms steps), "
                                 f"{k_range:g} x d2(samples in {float(min_duration_ms):g} ms) x RMS-S2S per sample, "
                                 "d2(samples in the window) x RMS-S2S per sample, "
                                 f"{float(noise_factor):g} x RMS-S2S x the growth of d2 from the samples a 30 Hz "
                                 "camera takes in the window to its samples, as far as the noise is not white); "
                                 "RMS-S2S over 33 ms steps"),
             "noise_rms_s2s_deg": noise if dispersion_deg is None else None,
-            "noise_rms_s2s_1sample_deg": noise1 if dispersion_deg is None else None}
+            "noise_rms_s2s_1sample_deg": noise1 if dispersion_deg is None else None,
+            "noise_wander_deg": wander if dispersion_deg is None else None}
     if n < 2 or not ok.any():
         return Candidates(np.zeros(0, np.int64), np.zeros(0, np.int64), info, thr_of, noise_disp_of)
     dt = float(np.median(np.diff(t)))

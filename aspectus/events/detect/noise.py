@@ -56,7 +56,7 @@ def samples_per_look(sample_interval_s: float, noise_rms_s2s_1sample_deg: float,
     return float(np.clip((n33 / n1) ** 2, 1.0, lag))
 
 
-def s2s_distances_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1) -> np.ndarray:
+def s2s_distances_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1, max_step_deg: float | None = None) -> np.ndarray:
     """Angular distances between samples ``lag`` apart (consecutive samples by default), in degrees.
 
     Parameters
@@ -67,6 +67,9 @@ def s2s_distances_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1) -> np.ndarray:
         Samples to use; a step counts only when both its samples are ok.
     lag : int, default 1
         Samples between the two ends of a step (:func:`reference_lag` gives the one of a 33 ms step).
+    max_step_deg : float, optional
+        Leave out the steps over which one sample-to-sample distance exceeds this (or is missing): steps
+        across a saccade, where a fixation cannot hold such a distance.
 
     Returns
     -------
@@ -83,6 +86,10 @@ def s2s_distances_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1) -> np.ndarray:
     if ok is not None:
         ok = np.asarray(ok, dtype=bool)
         keep &= ok[lag:] & ok[:-lag]
+    if max_step_deg is not None and np.isfinite(max_step_deg) and max_step_deg > 0 and lag > 1:
+        one = np.hypot(np.diff(x), np.diff(y))
+        jump = np.concatenate([[0], np.cumsum(~(one <= float(max_step_deg)))])
+        keep &= (jump[lag:] - jump[:-lag]) == 0
     return d[keep]
 
 
@@ -114,3 +121,29 @@ def median_sd(v) -> float:
     if not len(v):
         return float("nan")
     return float(np.sqrt(max(np.median(v * v) - np.median(v) ** 2, 0.0)))
+
+
+def span_lag(sample_interval_s: float, span_ms: float) -> int:
+    """Samples between the two ends of a step spanning ``span_ms``: the nearest whole number of sample intervals,
+    at least one (2 for 60 ms at 30 fps, 4 at 60 fps, 30 at 500 Hz)."""
+    dt = float(sample_interval_s)
+    if not (np.isfinite(dt) and dt > 0 and np.isfinite(span_ms) and span_ms > 0):
+        return 1
+    return max(1, int(np.floor(float(span_ms) / 1000.0 / dt + 0.5)))
+
+
+def wander_rms_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1, max_step_deg: float | None = None) -> float:
+    """The robust RMS-S2S (:func:`robust_rms_s2s_deg`) of steps ``lag`` samples long, in degrees; NaN if no step.
+
+    For white noise it equals the per-sample figure at any ``lag``. For an error that changes slowly (a webcam
+    gaze's: lag-1 autocorrelation 0.6-0.9) the per-sample steps are short and understate how far the gaze wanders
+    within a fixation; steps as long as the I-DT duration threshold's window measure the wander that window sees
+    (an AR(1) error of stationary per-axis SD ``s`` and lag-1 correlation ``rho`` gives ``2 s sqrt(1 - rho^lag)``,
+    the white-noise figure ``2 s`` once ``rho^lag`` is small). The I-DT threshold adapts to it
+    (:mod:`aspectus.events.detect.idt`). Steps over a sample-to-sample step longer than ``max_step_deg`` (the I-DT
+    passes its threshold before the wander: no fixation holds such a step) are left out, and the median
+    leaves out most of the rest of those that straddle a saccade while ``lag`` stays well below a fixation's
+    length.
+    """
+    d = s2s_distances_deg(yaw_deg, pitch_deg, ok, lag, max_step_deg)
+    return float(np.median(d) * RAYLEIGH_RMS_PER_MEDIAN) if len(d) else float("nan")
