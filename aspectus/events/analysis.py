@@ -566,7 +566,7 @@ def analyse_table(path, out_dir, *, time_col: str | None = None, time_unit: str 
     >>> sorted(p.name for p in (tmp / "lab").iterdir())
     ['events.csv', 'events.json', 'events.parquet', 'features.csv', 'features.parquet']
     >>> run.result.events["type"].value_counts().to_dict()
-    {'fixation': 77, 'saccade': 72, 'blink': 4}
+    {'fixation': 75, 'saccade': 69, 'blink': 4}
     """
     from aspectus.atomic import full_paths_wanted, recorded_path, sha256_file
     from aspectus.errors import AspectusInputError

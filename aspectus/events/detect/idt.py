@@ -51,9 +51,12 @@ not white: ``(looks - 1) / (L - 1)``, ``looks`` from
 of a 33 ms step (0 for white noise, whose growth the d2 terms already hold; 1
 for an error that changes like a random walk within 33 ms).
 
-The noise in ``noise_factor x RMS-S2S`` is the larger of that figure and
-the same figure read over steps as long as the duration threshold (60 ms:
-2 samples at 30 Hz, 4 at 60 Hz), measured here on the clip's own samples (:func:`aspectus.events.detect.noise.wander_rms_deg`).
+The noise in the ``noise_factor x RMS-S2S`` terms (the first and the last)
+is the larger of that figure and the same figure read over steps as long
+as the duration threshold (60 ms: 2 samples at 30 Hz, 4 at 60 Hz), measured
+here on the clip's own samples
+(:func:`aspectus.events.detect.noise.wander_rms_deg`) below 100 Hz
+(:data:`aspectus.events.detect.noise.WANDER_MIN_INTERVAL_S`).
 A webcam gaze's error is mostly slow (lag-1 autocorrelation 0.6-0.9): its
 per-sample steps are short while the gaze wanders further within a
 fixation, so a threshold set from them alone was too tight and split
@@ -68,7 +71,8 @@ from __future__ import annotations
 import numpy as np
 
 from aspectus.errors import ParameterError
-from aspectus.events.detect.noise import reference_lag, samples_per_look, span_lag, wander_rms_deg
+from aspectus.events.detect.noise import (WANDER_MIN_INTERVAL_S, reference_lag, samples_per_look, span_lag,
+                                          wander_rms_deg)
 from aspectus.events.detect.runs import end_times, true_runs
 from aspectus.events.detect.types import Candidates
 
@@ -193,11 +197,15 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
     if not (np.isfinite(min_duration_ms) and min_duration_ms > 0):
         raise ParameterError(f"I-DT min_duration_ms must be > 0 ms, got {min_duration_ms!r}")
     wander = float("nan")
+    noise_main = float(noise)  # the noise of the noise_factor terms: the larger of the 33 ms figure and the wander
     if dispersion_deg is None and noise > 0 and n > 1:
-        # the wander over the duration threshold's span (module docstring); never below the per-sample figure
-        lag = span_lag(float(np.median(np.diff(t))), float(min_duration_ms))
-        wander = wander_rms_deg(x, y, ok, lag, max_step_deg=thr) if lag > 1 else float("nan")
+        # the wander over the duration threshold's span (module docstring)
+        dt_w = float(np.median(np.diff(t)))
+        span = span_lag(dt_w, float(min_duration_ms))
+        wander = (wander_rms_deg(x, y, ok, span, max_step_deg=thr) if span > 1 and dt_w > WANDER_MIN_INTERVAL_S
+                  else float("nan"))
         if np.isfinite(wander) and wander > noise:
+            noise_main = float(wander)
             thr = max(thr, float(noise_factor) * wander)
     base = thr
     noise, noise1 = float(noise), float(noise1)
@@ -220,7 +228,7 @@ def detect_idt(t_s, yaw_deg, pitch_deg, usable, *, dispersion_deg: float | None 
             # reaches over m samples than over the m_ref such a camera takes in that time (module docstring)
             m_ref = np.maximum(1 + np.floor((m - 1) / lag + 0.5).astype(np.int64), 2)
             g = np.maximum(expected_range_sd(m) / expected_range_sd(m_ref), 1.0)
-            out = np.maximum(out, k_noise * noise * np.sqrt(1.0 + (g * g - 1.0) * (looks - 1.0) / (lag - 1.0)))
+            out = np.maximum(out, k_noise * noise_main * np.sqrt(1.0 + (g * g - 1.0) * (looks - 1.0) / (lag - 1.0)))
         return out
 
     def noise_disp_of(m):

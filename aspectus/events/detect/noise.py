@@ -123,6 +123,14 @@ def median_sd(v) -> float:
     return float(np.sqrt(max(np.median(v * v) - np.median(v) ** 2, 0.0)))
 
 
+#: The I-DT reads the wander (:func:`wander_rms_deg`) only at sample intervals longer than this (below 100 Hz:
+#: cameras). At a lab tracker's rate the 60 ms steps hold the eye's own fixational movement, which the threshold's
+#: terms for many samples and the coders already count as fixation; read there it lowered the count on the Lund
+#: trials at 500 Hz (0.979 -> 0.955 of the coders') and with it issue 4's lab reference (end-to-end r 0.849 ->
+#: 0.832). The same 10 ms bound as the edge step's by speed (``edge_velocity_window_ms``).
+WANDER_MIN_INTERVAL_S = 0.010
+
+
 def span_lag(sample_interval_s: float, span_ms: float) -> int:
     """Samples between the two ends of a step spanning ``span_ms``: the nearest whole number of sample intervals,
     at least one (2 for 60 ms at 30 fps, 4 at 60 fps, 30 at 500 Hz)."""
