@@ -679,7 +679,9 @@ def _trust_sentence(summary: dict) -> str:
     iris = summary.get("median_iris_px")
     size = f"irises about {iris:.0f} px across" if iris is not None and np.isfinite(iris) else "iris size unknown"
     if tier == "events":
-        return (f" Gaze precision ({size}) supports fixation and saccade measures (at 30 frames a second their "
+        rate = summary.get("frame_rate_hz")
+        at = f"at {rate:.0f} frames a second" if rate is not None and np.isfinite(rate) else "at webcam frame rates"
+        return (f" Gaze precision ({size}) supports fixation and saccade measures ({at} their "
                 "counts and durations are approximate).")
     if tier == "coarse":
         return (f" Gaze precision ({size}) is too low for fixation counts and durations; trust only: "
@@ -731,6 +733,9 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         "noise_rms_s2s_33ms_deg": float(q.get("noise_rms_s2s_33ms_deg", np.nan)),
         "decode_problems": {k: v for k, v in meta.get("decode", {}).items() if k != "frames" and v},
     }
+    steps = np.diff(samples["t_s"].to_numpy(float)) if n > 1 else np.array([])
+    steps = steps[np.isfinite(steps) & (steps > 0)]
+    s["frame_rate_hz"] = float(1.0 / np.median(steps)) if len(steps) else float("nan")
     iris = samples["iris_diameter_px"].to_numpy(float) if "iris_diameter_px" in samples else np.full(n, np.nan)
     s["median_iris_px"] = float(np.nanmedian(iris)) if np.isfinite(iris).any() else float("nan")
     s["precision_tier"], s["trusted_features"] = precision_tier(s["noise_rms_s2s_33ms_deg"], s["median_iris_px"])

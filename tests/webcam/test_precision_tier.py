@@ -51,6 +51,17 @@ def test_summary_and_verdict_carry_the_tier(noise, iris, tier, words):
     assert words in s["verdict"] and f"irises about {iris:.0f} px" in s["verdict"]
 
 
+@pytest.mark.parametrize("rate", [30, 60])
+def test_the_verdict_names_the_clips_own_frame_rate(rate):
+    from aspectus.events.analysis import run_analysis
+
+    smp = _samples(0.3, 20.0, n=10 * rate)
+    smp["t_s"] = np.arange(len(smp)) / rate
+    s = summarise(smp, run_analysis(smp), {})
+    assert s["frame_rate_hz"] == pytest.approx(rate)
+    assert f"at {rate} frames a second their counts and durations are approximate" in s["verdict"]
+
+
 def test_the_same_eyes_at_30_and_60_fps_get_the_same_tier():
     """RMS-S2S per sample is comparable across rates only for white noise (Holmqvist, Nystrom & Mulvey 2012 define
     it per sample). For an error with an Ornstein-Uhlenbeck part the expected squared step over an interval d is
