@@ -63,7 +63,7 @@ SPECS: dict[str, Spec] = {
                                "that are joined.", group="detection"),
     "merge_noise_factor": Spec("… or nearer than noise ×", "× noise", 0, 10, 0.1, 2, help="The joining angle grows "
                                "with the clip's noise: the larger of the angle above and this many times the "
-                               "sample-to-sample noise. 0 switches it off.", group="tuning"),
+                               "sample-to-sample noise (read over 33 ms steps). 0 switches it off.", group="tuning"),
     "merge_alpha": Spec("Join when positions not different at level", "", 0, 0.5, 0.01, 3, help="Neighbouring "
                         "fixations are also joined when their mean positions do not differ at this significance "
                         "level, given the noise inside them (noisy webcam gaze splits fixations into fragments). "
@@ -103,7 +103,9 @@ SPECS: dict[str, Spec] = {
                                help="Largest spread inside a fixation: (max-min yaw) + (max-min pitch). When "
                                "adapted, each clip gets its own threshold (rows below); run.json records it."),
     "idt_noise_factor": Spec("Adapted threshold: noise ×", "× noise", 1, 20, 0.5, 1, group="idt",
-                             help="The adapted threshold in units of the clip's sample-to-sample (RMS-S2S) noise."),
+                             help="The adapted threshold in units of the clip's noise: its sample-to-sample (RMS-S2S) noise "
+                             "read over 33 ms steps, or, below 100 frames a second, how far the gaze wanders over "
+                             "the shortest fixation searched for, whichever is larger (run.json records both)."),
     "idt_min_dispersion_deg": Spec("Adapted threshold at least", "°", 0.1, 10, 0.1, 1, group="idt",
                                    help="Lower bound of the adapted threshold."),
     "idt_min_duration_ms": Spec("Shortest fixation searched for", "ms", 20, 1000, 10, group="idt",

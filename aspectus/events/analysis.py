@@ -71,7 +71,8 @@ class AnalysisParams:
         See ``merge_gap_ms``, deg.
     merge_noise_factor : float, default 0.5
         If > 0 the merge distance grows with the clip's noise, to
-        ``max(merge_distance_deg, merge_noise_factor x RMS-S2S)``.
+        ``max(merge_distance_deg, merge_noise_factor x RMS-S2S)``, the
+        RMS-S2S read over 33 ms steps (``noise_rms_s2s_33ms_deg``).
     merge_alpha : float, default 0.05
         If > 0, neighbours within ``merge_gap_ms`` are also merged when their
         mean positions do not differ significantly at this level, given the
