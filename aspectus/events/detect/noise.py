@@ -29,10 +29,15 @@ REFERENCE_INTERVAL_S = 1.0 / 30.0
 def reference_lag(sample_interval_s: float) -> int:
     """Samples between the two ends of a step of :data:`REFERENCE_INTERVAL_S`: the nearest whole number of sample
     intervals, at least one (1 at 30 fps and below, 2 at 50-60 fps, 4 at 120 fps)."""
-    dt = float(sample_interval_s)
-    if not (np.isfinite(dt) and dt > 0):
+    return _lag_of(sample_interval_s, REFERENCE_INTERVAL_S)
+
+
+def _lag_of(sample_interval_s: float, span_s: float) -> int:
+    """The nearest whole number of sample intervals in ``span_s``, at least one (one where either is unusable)."""
+    dt, span_s = float(sample_interval_s), float(span_s)
+    if not (np.isfinite(dt) and dt > 0 and np.isfinite(span_s) and span_s > 0):
         return 1
-    return max(1, int(np.floor(REFERENCE_INTERVAL_S / dt + 0.5)))
+    return max(1, int(np.floor(span_s / dt + 0.5)))
 
 
 def samples_per_look(sample_interval_s: float, noise_rms_s2s_1sample_deg: float, noise_rms_s2s_33ms_deg: float) -> float:
@@ -100,13 +105,14 @@ def rms_s2s_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1) -> float:
     return float(np.sqrt(np.mean(d * d))) if len(d) else float("nan")
 
 
-def robust_rms_s2s_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1) -> float:
-    """RMS-S2S estimated from the median step (of steps ``lag`` samples long), in degrees; NaN if no step.
+def robust_rms_s2s_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1, max_step_deg: float | None = None) -> float:
+    """RMS-S2S estimated from the median step (of steps ``lag`` samples long; ``max_step_deg`` as in
+    :func:`s2s_distances_deg`), in degrees; NaN if no step.
 
     ``median(step) * 2 / sqrt(4 ln 2)`` equals the RMS-S2S for white Gaussian
     noise and is barely moved by saccades, which are a minority of steps.
     """
-    d = s2s_distances_deg(yaw_deg, pitch_deg, ok, lag)
+    d = s2s_distances_deg(yaw_deg, pitch_deg, ok, lag, max_step_deg)
     return float(np.median(d) * RAYLEIGH_RMS_PER_MEDIAN) if len(d) else float("nan")
 
 
@@ -134,10 +140,7 @@ WANDER_MIN_INTERVAL_S = 0.010
 def span_lag(sample_interval_s: float, span_ms: float) -> int:
     """Samples between the two ends of a step spanning ``span_ms``: the nearest whole number of sample intervals,
     at least one (2 for 60 ms at 30 fps, 4 at 60 fps, 30 at 500 Hz)."""
-    dt = float(sample_interval_s)
-    if not (np.isfinite(dt) and dt > 0 and np.isfinite(span_ms) and span_ms > 0):
-        return 1
-    return max(1, int(np.floor(float(span_ms) / 1000.0 / dt + 0.5)))
+    return _lag_of(sample_interval_s, float(span_ms) / 1000.0)
 
 
 def wander_rms_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1, max_step_deg: float | None = None) -> float:
@@ -153,5 +156,4 @@ def wander_rms_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1, max_step_deg: floa
     leaves out most of the rest of those that straddle a saccade while ``lag`` stays well below a fixation's
     length.
     """
-    d = s2s_distances_deg(yaw_deg, pitch_deg, ok, lag, max_step_deg)
-    return float(np.median(d) * RAYLEIGH_RMS_PER_MEDIAN) if len(d) else float("nan")
+    return robust_rms_s2s_deg(yaw_deg, pitch_deg, ok, lag, max_step_deg)
