@@ -25,7 +25,9 @@ A gaze direction ``g = (gx, gy, gz)`` (unit vector, camera frame) maps to
 ``yaw = atan2(-gx, -gz)`` and ``pitch = atan2(-gy, hypot(gx, gz))``.
 ``tests/webcam/test_frame_signs.py`` pins these signs.
 
-"Left" and "right" eye mean the subject's own left and right eye.
+"Left" and "right" eye mean the subject's own left and right eye, in the samples' columns and in run.json's
+per-eye records alike, mirrored clip or not (``aspectus.webcam.gaze.unmirror`` and ``unmirror_record``:
+the face mesh's right eye is the subject's left in a mirrored picture).
 
 Picture coordinates (every 2-D position on a picture, in px): ``x`` right,
 ``y`` down, origin at the top-left *corner* of the top-left pixel, so pixel

@@ -287,6 +287,8 @@ class GazeParams:
         software often records it): everything is measured in the mirror
         world and turned back at the end - yaw, head yaw, head roll and the
         head's sideways position change sign and the two eyes' columns swap
+        and so do the per-eye records in run.json's ``gaze_model``, which
+        name the subject's own eyes either way (:func:`unmirror_record`)
         (default False).
     """
 
@@ -1153,6 +1155,7 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
     cols["aperture_rel"] = only(aperture_rel, found)
     if params.mirrored:
         unmirror(cols)
+        unmirror_record(info)
     return cols, info
 
 
@@ -1169,6 +1172,50 @@ def unmirror(cols: dict) -> None:
               "head_x_mm"):
         if c in cols:
             cols[c] = -np.asarray(cols[c], float)
+
+
+#: run.json's per-eye lists: [the face mesh's right eye, its left eye], in that order like every per-eye record
+PER_EYE_LISTS = ("eyeball_offset_mm", "increments", "frames_fused", "frames_predicted")
+#: the per-eye lists whose items are head-frame vectors (x, y, z): mirrored, their x changes sign
+PER_EYE_VECTORS = ("eyeball_offset_mm",)
+_OTHER_EYE = {"right": "left", "left": "right"}
+
+
+def _other_eye_key(key):
+    """``key`` named for the other eye: ``right`` <-> ``left``, also as a ``right_`` / ``left_`` prefix."""
+    if not isinstance(key, str):
+        return key
+    if key in _OTHER_EYE:
+        return _OTHER_EYE[key]
+    head, sep, tail = key.partition("_")
+    return _OTHER_EYE[head] + sep + tail if sep and head in _OTHER_EYE else key
+
+
+def unmirror_record(rec):
+    """Turn a per-eye record measured on a mirrored picture into the subject's eyes (in place; returned too).
+
+    The one rule for run.json's ``gaze_model``: per-eye entries are keyed ``right`` / ``left`` (or ``right_*`` /
+    ``left_*``) or are two-item lists in :data:`PER_EYE_LISTS` ([right, left]), and name the face mesh's eyes as
+    measured. In a mirrored picture the mesh's right eye is the subject's left (:func:`unmirror`), so every such
+    key swaps with its partner, every such list is reversed, and the head-frame vectors (:data:`PER_EYE_VECTORS`)
+    change the sign of x, as the head's own x does. Nested dicts and lists are walked; other values stay.
+    """
+    if isinstance(rec, list):
+        for item in rec:
+            unmirror_record(item)
+        return rec
+    if not isinstance(rec, dict):
+        return rec
+    items = list(rec.items())
+    rec.clear()
+    for key, value in items:
+        unmirror_record(value)
+        if key in PER_EYE_LISTS and isinstance(value, list) and len(value) == 2:
+            value = value[::-1]
+            if key in PER_EYE_VECTORS:
+                value = [[0.0 - v[0], *v[1:]] if isinstance(v, list) and v else v for v in value]
+        rec[_other_eye_key(key)] = value
+    return rec
 
 
 def interpupillary_distance_mm(points_px: np.ndarray) -> float:

@@ -370,6 +370,6 @@ def registered_iris(patches, affines: np.ndarray, iris_px: np.ndarray, iris_diam
                  "frames_fused": [int(fused[:, e].sum()) for e in range(2)], "levels": levels})
     if not info["applied"]:
         info["reason"] = (f"too few registered increments for the noise levels (at least 20 per eye are needed; "
-                          f"found {info['increments'][0]} and {info['increments'][1]}, right and left): the centres "
+                          f"found {min(info['increments'])} for one eye, {max(info['increments'])} for the other): the centres "
                           "are the absolute estimate's")
     return iris, info

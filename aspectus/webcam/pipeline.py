@@ -46,7 +46,7 @@ from aspectus.atomic import (full_paths_wanted, recorded_path, sha256_file, sha2
 from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
-from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze
+from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze, unmirror_record
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
 from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
                                             frame_item, start_geometry)
@@ -566,10 +566,10 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
         iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None,
         limbus_diam_px=a[:, LIMBUS_DIAM] if params.gaze.refine_iris else None, params=params.gaze)
-    if app_info is not None:
-        ginfo["iris_appearance"] = app_info
-    if reg_info is not None:
-        ginfo["iris_registration"] = reg_info
+    # measured per eye of the face mesh: in a mirrored clip named for the subject's eyes, as estimate_gaze's own
+    # records are (gaze.unmirror_record)
+    more = {k: v for k, v in (("iris_appearance", app_info), ("iris_registration", reg_info)) if v is not None}
+    ginfo |= unmirror_record(more) if params.gaze.mirrored else more
     if choice is None:
         # an explicit setting: appearance that could not be learnt falls back to the limbus fit
         used = combine if refine else "face mesh"
