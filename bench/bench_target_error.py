@@ -6,7 +6,8 @@ on gaze computed from mixes of measured and true inputs, so every figure is the 
 * ``chain``: the pipeline's gaze (the estimator's iris centres and eyeball centres) - the check as it runs;
 * ``true iris``: the renderer's iris centres in the picture (``*_truth.csv``; the same pixel convention as the
   face mesh's, pixel i spans [i, i+1)) with the estimator's eyeball centres - what the iris's picture error adds
-  is ``chain`` minus this (a);
+  is ``chain`` minus this (a); ``true iris x`` / ``true iris y``: only the iris centres' horizontal / vertical
+  picture position taken from the truth (which axis of the iris error reaches the check);
 * ``true centres``: the estimator's iris centres with the renderer's eyeball centres moved by the clip's median
   difference (the estimator's constant placement kept, its frame-to-frame and dot-to-dot motion removed) - what
   the eyeball centres' placement by the head pose adds (b);
@@ -22,7 +23,9 @@ on gaze computed from mixes of measured and true inputs, so every figure is the 
 Printed per clip: the check's accuracy after offset and after offset+gain for each, the eyes alone on the
 renderer's gaze and the noise floor (the check's "implied" reference), the iris centre's picture error per eye
 (median bias, x/y, and SD of the per-dot medians), the eyeball centres' error (mm, per-dot medians' SD) and the
-per-dot errors of every variant, and the head rotation's per-dot figures (``head_rotation_per_10deg``: deg of
+per-dot errors of every variant (``per_dot_offset_gain_deg``; ``residual_rms_yaw_pitch_deg``: per variant the RMS
+over the dots of the residual's yaw and pitch after the check's offset+gain mapping, which axis the error is in),
+and the head rotation's per-dot figures (``head_rotation_per_10deg``: deg of
 head yaw, pitch, roll per 10 deg of true gaze yaw (first row) and pitch (second), least squares over the dots'
 medians; ``head_rotation_sd_between_dots``). The face mesh runs once per clip (``TARGET_BENCH_CACHE=DIR`` keeps
 it); ``TARGET_BENCH_ROTATION=skin`` takes the head rotation from skin points (``--gaze head_rotation=skin``);
@@ -39,6 +42,14 @@ the eye anchors under it): what is left of (b) then comes from the anchors.
     python bench/bench_target_error.py a
     python bench/bench_target_error.py d e             # the held-out clips: d (hopper, 17 / 13), e (astronaut, 19 / 14)
     python bench/bench_target_error.py --points a b c  # the rigid points' picture motion with the gaze
+    python bench/bench_target_error.py --limbus a b c d e  # the limbus candidates against the true iris rim
+
+``--limbus``: per eye and still dot, over the check's windows, the limbus fit's (:mod:`aspectus.webcam.limbus`)
+last-pass candidates that the fit keeps, as distance from the renderer's true iris circle (px, negative =
+inside the rim), split into the arcs above the centre (more than 20 deg above the horizontal), beside it and
+below it, with the fit's centre error and radius against the truth; then over all eye-dots of the clips named
+the correlations of the fit's vertical error with those, and its median and SD by gaze direction (down, level,
+up: the lids).
 
 Not the test clip (tests/targets/test_rendered_targets.py: schedule seed 1, render seed 2).
 """
@@ -244,6 +255,115 @@ def still_geometry(frs, obs):
         H.HeadPoseSolver.solve = orig
 
 
+def axis_residual_rms(c) -> np.ndarray:
+    """RMS over the check's still dots of the residual after its offset+gain mapping, (yaw, pitch) deg."""
+    fx = c.targets[(c.targets["kind"] == "fixation") & c.targets["error_offset_gain_deg"].notna()]
+    x, y = c.mapping.to_screen_deg(fx["gaze_yaw_deg"].to_numpy(float), fx["gaze_pitch_deg"].to_numpy(float))
+    r = np.c_[x - fx["x_deg"].to_numpy(float), y - fx["y_deg"].to_numpy(float)]
+    return np.sqrt(np.mean(r * r, axis=0))
+
+
+def limbus_candidates(name: str) -> list[dict]:
+    """Per eye and still dot of clip ``name``: the limbus fit's kept last-pass candidates against the renderer's
+    true iris circle (``--limbus``). The per-frame geometry runs as the pipeline runs it; each frame's limbus
+    fit is run again on the same eye regions with its circle fits watched."""
+    import aspectus.webcam.frame_geometry as FG
+    import aspectus.webcam.limbus as L
+
+    clip, frs, obs = load(name)
+    tr, sched = clip["truth"], clip["schedule"]
+    ts = tr["t_s"].to_numpy() - tr["t_s"].to_numpy()[0] - clip["start_s"]
+    blink = tr["blink"].to_numpy(bool)
+    many, fit = L.limbus_centres_many, L.fit_circles
+    seen: dict = {}
+
+    def spy_many(items, **k):
+        seen["items"], seen["k"] = items, k
+        return many(items, **k)
+
+    def spy_fit(pts, valid, *a, **k):
+        seen["fits"].append((np.array(pts), np.array(valid)))
+        return fit(pts, valid, *a, **k)
+
+    geo = FG.FrameGeometry(fov_deg=60.0, refine_iris=True)
+    out = []
+    FG.limbus_centres_many = spy_many
+    try:
+        for d, fx in enumerate(sched.fixations.itertuples(index=False)):
+            acc = {e: {"ang": [], "res": [], "fit": [], "ratio": []} for e in (0, 1)}
+            for i in np.flatnonzero((ts >= fx.onset_s + 0.5) & (ts < fx.offset_s) & ~blink):
+                f, (o, n) = frs[i], obs[i]
+                item = FG.frame_item(f.pts_s, f.image, o, refine_iris=True, faces_in_view=n)
+                seen.clear()
+                geo.rows([item])
+                if "items" not in seen:
+                    continue
+                off = np.asarray(item[5], float)
+                seen["fits"] = []
+                L.fit_circles = spy_fit
+                try:
+                    res = many(seen["items"], **(seen["k"] | {"diameters": True}))[0]
+                finally:
+                    L.fit_circles = fit
+                _img, _pts, mesh_c, mesh_d = seen["items"][0]
+                pts, valid = seen["fits"][-1]
+                for e, side in enumerate(("right", "left")):
+                    if not res[1][e] or len(pts) < 2:
+                        continue
+                    tc = np.array([tr[f"{side}_iris_x_px"][i], tr[f"{side}_iris_y_px"][i]])
+                    t_r = 0.5 * tr["iris_diameter_px"][i]
+                    # the eye region's origin (limbus._prepare_eye): its first pixel's centre
+                    reach = L.ROI_RADII * 0.5 * mesh_d[e]
+                    org = np.floor(np.maximum(0.0, np.asarray(mesh_c[e], float) - reach)) + 0.5 + off
+                    dv = pts[e][valid[e]] + org - tc
+                    acc[e]["ang"].append(np.degrees(np.arctan2(dv[:, 1], dv[:, 0])))
+                    acc[e]["res"].append(np.hypot(dv[:, 0], dv[:, 1]) - t_r)
+                    acc[e]["fit"].append(res[0][e] + off - tc)
+                    acc[e]["ratio"].append(0.5 * res[2][e] / t_r)
+            for e in (0, 1):
+                a = acc[e]
+                if not a["fit"]:
+                    continue
+                ang, r = np.concatenate(a["ang"]), np.concatenate(a["res"])
+                up, low = ang < -20, ang > 20
+                fit_err = np.median(np.array(a["fit"]), axis=0)
+                out.append({"clip": name, "eye": ("right", "left")[e], "dot": d,
+                            "fit_err_x_px": float(fit_err[0]), "fit_err_y_px": float(fit_err[1]),
+                            "radius_ratio": float(np.median(a["ratio"])),
+                            "above_px": float(np.median(r[up])) if up.sum() > 3 else float("nan"),
+                            "beside_px": float(np.median(r[~up & ~low])),
+                            "below_px": float(np.median(r[low])) if low.sum() > 3 else float("nan"),
+                            "n_above": round(float(up.sum()) / len(a["fit"]), 1),
+                            "n_below": round(float(low.sum()) / len(a["fit"]), 1)})
+    finally:
+        FG.limbus_centres_many = many
+    g = per_dot(tr[["yaw_deg", "pitch_deg"]].to_numpy(float), ts + clip["start_s"], sched, clip["start_s"],
+                ~blink)
+    for row in out:
+        row["true_yaw_deg"], row["true_pitch_deg"] = (round(float(v), 1) for v in g[row["dot"]])
+    return out
+
+
+def limbus_summary(rows: list[dict]) -> dict:
+    """Over eye-dots: correlations of the fit's vertical error, and its median / SD by gaze direction."""
+    df = pd.DataFrame(rows)
+    df["above_minus_beside_px"] = df["above_px"] - df["beside_px"]
+    df["below_minus_beside_px"] = df["below_px"] - df["beside_px"]
+    cols = ["true_pitch_deg", "above_px", "above_minus_beside_px", "below_minus_beside_px", "radius_ratio", "n_above",
+            "n_below"]
+    ok = df[cols + ["fit_err_y_px"]].notna().all(axis=1)
+    out = {"eye_dots": int(len(df)), "r_with_fit_err_y": {c: round(float(np.corrcoef(df.loc[ok, c],
+                                                                                       df.loc[ok, "fit_err_y_px"])[0, 1]), 2)
+                                                          for c in cols}}
+    for label, sel in (("down", df["true_pitch_deg"] < -5), ("level", df["true_pitch_deg"].abs() <= 5),
+                       ("up", df["true_pitch_deg"] > 5)):
+        v = df.loc[sel, "fit_err_y_px"]
+        out[f"fit_err_y_px_{label}_median_sd"] = [round(float(v.median()), 2), round(float(v.std(ddof=0)), 2)]
+    out["medians_px"] = {c: round(float(df[c].median()), 3) for c in ("beside_px", "above_px", "below_px",
+                                                                     "radius_ratio")}
+    return out
+
+
 def measure(name: str) -> dict:
     from bench_skin_pose import geometry, samples_from  # noqa: F401 - geometry as the pipeline builds it
 
@@ -289,6 +409,8 @@ def measure(name: str) -> dict:
     variants = {
         "chain": g_chain,
         "true iris": gaze_from(iris_true, C_est, K),
+        "true iris x": gaze_from(np.stack([iris_true[..., 0], iris_est[..., 1]], axis=-1), C_est, K),
+        "true iris y": gaze_from(np.stack([iris_est[..., 0], iris_true[..., 1]], axis=-1), C_est, K),
         "true centres": gaze_from(iris_est, C_const, K),
         "true iris + centres": gaze_from(iris_true, C_const, K),
         "renderer": gaze_from(iris_true, C_true, K),
@@ -307,11 +429,12 @@ def measure(name: str) -> dict:
     out["recomputed_vs_pipeline_max_deg"] = float(np.nanmax(np.abs(np.r_[y0 - cols["yaw_deg"], p0 - cols["pitch_deg"]][
         np.r_[valid, valid]])))
     ideal = check_samples(truth.assign(valid=True), sched, start_s=start, run_events=False)
-    rows = {}
+    rows, rms = {}, {}
     for k, g in variants.items():
         c = check(*angles(g))
         out[k] = [round(c.summary["accuracy_offset_deg"], 3), round(c.summary["accuracy_offset_gain_deg"], 3)]
         rows[k] = c.targets.loc[c.targets["kind"] == "fixation", "error_offset_gain_deg"].to_numpy()
+        rms[k] = np.round(axis_residual_rms(c), 3).tolist()
         if k == "chain":
             out["noise_floor_deg"] = round(c.summary["accuracy_noise_floor_deg"], 3)
             out["gain_yaw_pitch"] = [round(c.mapping.gain_yaw, 3), round(c.mapping.gain_pitch, 3)]
@@ -329,6 +452,7 @@ def measure(name: str) -> dict:
     out["centre_err_mm_median_r_l"] = np.round(np.nanmedian(d_c, axis=0), 2).tolist()
     out["centre_err_mm_sd_between_dots_r_l"] = np.round(np.nanstd(d_c, axis=0), 2).tolist()
     out["per_dot_offset_gain_deg"] = {k: np.round(v, 2).tolist() for k, v in rows.items()}
+    out["residual_rms_yaw_pitch_deg"] = rms
     tt = per_dot(truth[["yaw_deg", "pitch_deg"]].to_numpy(float), t, sched, start, valid)
     out["per_dot_true_yaw_pitch"] = np.round(tt, 1).tolist()
     # the head rotation (smoothed as the estimate smooths it) per dot against the true gaze: the head is still
@@ -344,6 +468,14 @@ def measure(name: str) -> dict:
 def main(argv) -> int:
     if argv[:1] == ["--points"]:
         print("\n".join(point_motion(argv[1:] or ["a", "b", "c"])))
+        return 0
+    if argv[:1] == ["--limbus"]:
+        rows = []
+        for n in argv[1:] or ["a", "b", "c"]:
+            rows += limbus_candidates(n)
+        for r in rows:
+            print(json.dumps({k: round(v, 2) if isinstance(v, float) else v for k, v in r.items()}))
+        print(json.dumps(limbus_summary(rows)))
         return 0
     names = argv or list(CLIPS)
     for n in names:
