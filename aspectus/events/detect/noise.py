@@ -74,7 +74,8 @@ def s2s_distances_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1, max_step_deg: f
         Samples between the two ends of a step (:func:`reference_lag` gives the one of a 33 ms step).
     max_step_deg : float, optional
         Leave out the steps over which one sample-to-sample distance exceeds this (or is missing): steps
-        across a saccade, where a fixation cannot hold such a distance.
+        across a saccade, where a fixation cannot hold such a distance. ``inf`` leaves out only the steps over
+        a missing sample (NaN angles).
 
     Returns
     -------
@@ -91,17 +92,17 @@ def s2s_distances_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1, max_step_deg: f
     if ok is not None:
         ok = np.asarray(ok, dtype=bool)
         keep &= ok[lag:] & ok[:-lag]
-    if max_step_deg is not None and np.isfinite(max_step_deg) and max_step_deg > 0 and lag > 1:
+    if max_step_deg is not None and not np.isnan(max_step_deg) and max_step_deg > 0 and lag > 1:
         one = np.hypot(np.diff(x), np.diff(y))
         jump = np.concatenate([[0], np.cumsum(~(one <= float(max_step_deg)))])
         keep &= (jump[lag:] - jump[:-lag]) == 0
     return d[keep]
 
 
-def rms_s2s_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1) -> float:
-    """RMS of sample-to-sample distances (Holmqvist et al. 2012; of steps ``lag`` samples long), in degrees; NaN
-    if no step."""
-    d = s2s_distances_deg(yaw_deg, pitch_deg, ok, lag)
+def rms_s2s_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1, max_step_deg: float | None = None) -> float:
+    """RMS of sample-to-sample distances (Holmqvist et al. 2012; of steps ``lag`` samples long; ``max_step_deg``
+    as in :func:`s2s_distances_deg`), in degrees; NaN if no step."""
+    d = s2s_distances_deg(yaw_deg, pitch_deg, ok, lag, max_step_deg)
     return float(np.sqrt(np.mean(d * d))) if len(d) else float("nan")
 
 
@@ -157,3 +158,38 @@ def wander_rms_deg(yaw_deg, pitch_deg, ok=None, lag: int = 1, max_step_deg: floa
     length.
     """
     return robust_rms_s2s_deg(yaw_deg, pitch_deg, ok, lag, max_step_deg)
+
+
+#: The largest lag-1 correlation :func:`step_correlation` reports: near 1 the growth of the steps from one sample
+#: to two cannot tell a slow error from a drift, and the stationary SD an AR(1) reading implies
+#: (``1 / sqrt(1 - rho)`` times the white-noise figure) grows without bound. A bound of this module, not a
+#: measurement; webcam gaze on rendered clips reads 0.6-0.9.
+MAX_STEP_CORRELATION = 0.95
+
+
+def step_correlation(noise_rms_s2s_1sample_deg: float, noise_rms_s2s_2sample_deg: float) -> float:
+    """The error's lag-1 autocorrelation as an AR(1) error's, read off its RMS-S2S over steps of one and of two
+    samples: the squared step of ``k`` samples is ``4 s^2 (1 - rho^k)`` (per-axis stationary SD ``s``), so
+    ``(r2 / r1)^2 = 1 + rho``. Within ``[0,`` :data:`MAX_STEP_CORRELATION` ``]``; 0 (white) where either figure is
+    unusable. Both figures should be read alike over the same stretches (e.g. :func:`rms_s2s_deg` at ``lag`` 1
+    and 2 within fixations).
+    """
+    r1, r2 = float(noise_rms_s2s_1sample_deg), float(noise_rms_s2s_2sample_deg)
+    if not (np.isfinite(r1) and np.isfinite(r2) and r1 > 0):
+        return 0.0
+    return float(np.clip((r2 / r1) ** 2 - 1.0, 0.0, MAX_STEP_CORRELATION))
+
+
+def mean_variance_factor(rho: float, n: float) -> float:
+    """How many times the white-noise figure ``s^2 / n`` the variance of the mean of ``n`` consecutive samples of an
+    AR(1) error is (stationary SD ``s``, lag-1 correlation ``rho``, so lag-``k`` correlation ``rho^k``):
+    ``1 + 2 sum_{k=1}^{n-1} (1 - k / n) rho^k`` (n Var(mean) = sum over |h| < n of (1 - |h| / n) gamma(h):
+    Brockwell & Davis 1991, Time Series: Theory and Methods, Theorem 7.1.1 - from memory). 1 for white noise
+    (``rho = 0``) or a single sample; ``n`` is rounded to whole samples, at least one.
+    """
+    m = max(int(round(float(n))), 1)
+    r = float(rho)
+    if m == 1 or not np.isfinite(r) or r == 0.0:
+        return 1.0
+    k = np.arange(1, m)
+    return float(1.0 + 2.0 * np.sum((1.0 - k / m) * r ** k))
