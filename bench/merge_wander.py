@@ -1,0 +1,84 @@
+"""The fixation merge distance's noise figure: the 33 ms RMS-S2S (as built) or the I-DT threshold's (the larger of
+that and the wander over the 60 ms window, below 100 Hz), on the Lund trials at 30 Hz with white and AR(1) noise.
+
+The hand-coded recordings of Andersson et al. (2017) (../shared/reference/lund2013) at 30 Hz plus noise, as in
+``bench/idt_wander.py`` (same conditions and seeds). Fixations within 75 ms are merged when their means lie within
+``max(merge_distance_deg, merge_noise_factor x noise)``; ``wander`` puts the I-DT's figure
+(``detector_thresholds.noise_wander_deg`` where larger) in that ``noise``. Per condition, means over the 8 trials
+against both coders: sample kappa and fixations per coder fixation, as built and with the wander.
+
+Run: ``python bench/merge_wander.py [--noise 0.5 1.0 1.5] [--rho 0 0.7 0.8 0.9]``
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+from contextlib import contextmanager
+from pathlib import Path
+
+import numpy as np
+
+REPO = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(REPO))
+sys.path.insert(0, str(REPO / "tests"))
+
+import _lund  # noqa: E402
+from _lund import CODERS, cohen_kappa, load_all, runs  # noqa: E402
+
+import aspectus.events.analysis as analysis  # noqa: E402
+from aspectus.events.analysis import AnalysisParams, run_analysis  # noqa: E402
+
+
+@contextmanager
+def merge_reads_wander(on: bool = True):
+    """While the block runs, the merge distance reads ``max(33 ms figure, the I-DT's wander)`` (with ``on``)."""
+    orig = analysis.build_events
+
+    def patched(t_s, yaw, pitch, usable, blink, loss, cand, **kw):
+        wander = cand.info.get("noise_wander_deg")
+        f = kw.get("merge_noise_factor") or 0.0
+        if on and f and wander is not None and np.isfinite(wander):
+            kw["merge_distance_deg"] = max(float(kw.get("merge_distance_deg", 0.5)), float(f) * float(wander))
+        return orig(t_s, yaw, pitch, usable, blink, loss, cand, **kw)
+
+    analysis.build_events = patched
+    try:
+        yield
+    finally:
+        analysis.build_events = orig
+
+
+def measure(trials, noise_rms_deg: float, rho: float, wander: bool) -> dict:
+    k_, ratio = [], []
+    with merge_reads_wander(wander):
+        for k, tr in enumerate(trials):
+            lo = _lund.with_noise(_lund.degrade(tr, rate_hz=30.0, noise_rms_deg=0.0, seed=k), noise_rms_deg,
+                                  rho=rho, seed=1000 + k)
+            res = run_analysis(lo.samples(), AnalysisParams())
+            fix = res.labels == "fixation"
+            k_.append(np.mean([cohen_kappa(fix, lo.labels[c] == _lund.FIXATION) for c in CODERS]))
+            n_ref = np.mean([runs(lo.fixation_mask(c), lo.t_s)[0] for c in CODERS])
+            ratio.append(int((res.events.type == "fixation").sum()) / n_ref)
+    return {"kappa": float(np.mean(k_)), "count_ratio": float(np.mean(ratio))}
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--trials-dir", type=Path, default=REPO.parent / "shared" / "reference" / "lund2013" / "img")
+    ap.add_argument("--noise", type=float, nargs="+", default=[0.5, 1.0, 1.5], help="noise RMS per sample, deg")
+    ap.add_argument("--rho", type=float, nargs="+", default=[0.0, 0.7, 0.8, 0.9])
+    a = ap.parse_args(argv)
+    trials = load_all(a.trials_dir)
+    print("| noise RMS deg | rho | kappa as built -> wander | fixations / coders' as built -> wander |")
+    print("|---|---|---|---|")
+    for lev in a.noise:
+        for rho in a.rho:
+            b = measure(trials, lev, rho, False)
+            f = measure(trials, lev, rho, True)
+            print(f"| {lev:g} | {rho:g} | {b['kappa']:.3f} -> {f['kappa']:.3f} | {b['count_ratio']:.3f} -> "
+                  f"{f['count_ratio']:.3f} |", flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
