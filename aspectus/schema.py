@@ -291,7 +291,12 @@ FEATURE_COLUMNS: tuple[Column, ...] = (
            "valid samples of the same fixation 33 ms apart (the nearest whole number of sample intervals, at least "
            "one); noise_rms_s2s_deg at 30 fps and comparable with it at any frame rate (the per-sample figure reads "
            "lower at higher rates where the error changes over tens of ms); the clip's value sets the precision "
-           "tier", label="Noise, RMS over 33 ms steps"),
+           "tier, together with noise_sd_deg", label="Noise, RMS over 33 ms steps"),
+    Column("noise_sd_deg", "float64", "deg", "precision as SD: sqrt(sd_yaw^2 + sd_pitch^2) of the valid samples "
+           "about their fixation's mean, pooled over the fixations (n - 1 each; Holmqvist, Nystrom & Mulvey 2012); "
+           "noise_rms_s2s_deg / sqrt(2) for white noise, higher where the error wanders slowly within a fixation; "
+           "filtering lowers it far less than the sample-to-sample figures (a k-sample average of white noise: SD / "
+           "sqrt(k), RMS-S2S / k); the clip's value sets the precision tier together with noise_rms_s2s_33ms_deg", label="Noise, SD within fixations"),
 )
 #: feature column names, in order
 FEATURE_COLUMN_NAMES: tuple[str, ...] = tuple(c.name for c in FEATURE_COLUMNS)

@@ -73,7 +73,7 @@ def grid(quick: bool, seed: int, fps: float | None = None) -> list[G.Condition]:
 
 COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("iris_px_measured", "{:5.1f}"),
            ("rms_s2s_deg", "{:5.2f}"), ("rms_fix_deg", "{:5.2f}"), ("rms_s2s_fix_deg", "{:5.2f}"),
-           ("noise_rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_33ms_deg", "{:5.2f}"),
+           ("noise_rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_33ms_deg", "{:5.2f}"), ("noise_sd_deg", "{:5.2f}"),
            ("yaw_r", "{:5.3f}"), ("yaw_gain", "{:5.2f}"), ("pitch_r", "{:6.3f}"), ("pitch_gain", "{:5.2f}"),
            ("kappa", "{:6.3f}"), ("kappa_truth", "{:5.3f}"), ("iris_estimate", "{!s:10s}"),
            ("eye_anchor_set", "{!s:16s}")]

@@ -10,7 +10,8 @@ one of the hand-coded trials of Andersson et al. (2017) (../shared/reference/lun
   on, and its RMS-S2S inside them (:func:`_within_fixations`): per-sample RMS-S2S is comparable across frame
   rates only for white noise, the first is comparable for any error;
 * ``noise_rms_s2s_deg``: the pipeline's own noise figure (run.json's quality), as a user sees it, and
-  ``noise_rms_s2s_33ms_deg``, the same over 33 ms steps (the precision tier's figure; equal at 30 fps);
+  ``noise_rms_s2s_33ms_deg``, the same over 33 ms steps (the precision tier's figure; equal at 30 fps), and
+  ``noise_sd_deg``, the SD of the samples about their fixation's mean (the tier's second figure);
 * ``yaw_r``, ``yaw_gain``, ``pitch_r``, ``pitch_gain``: Pearson r and the least-squares slope of the
   estimate on the truth over valid frames;
 * ``kappa``: Cohen's (1960) sample kappa, fixation vs not, of the default detector on the clip's samples
@@ -146,6 +147,7 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     q = run_analysis(samples).quality
     out["noise_rms_s2s_deg"] = float(q.get("noise_rms_s2s_deg", np.nan))
     out["noise_rms_s2s_33ms_deg"] = float(q.get("noise_rms_s2s_33ms_deg", np.nan))
+    out["noise_sd_deg"] = float(q.get("noise_sd_deg", np.nan))
     return out
 
 

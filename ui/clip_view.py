@@ -37,6 +37,14 @@ NOISE_TIP = ("Precision: RMS of the angular distances between samples of the sam
              "eyes are the same")
 
 
+#: what the SD figure of the quality panel is (the tier's second figure)
+SD_TIP = ("Precision as SD: how far the gaze samples lie from their fixation's mean, sqrt(SD yaw² + SD pitch²), "
+          "pooled over the fixations (Holmqvist, Nyström & Mulvey 2012). For unfiltered white noise it is the "
+          "RMS-S2S / √2; a slow wander of the gaze raises it, and a filter lowers it far less than the RMS-S2S. The "
+          "verdict and the precision tier read both: a clip earns a tier only if its SD is within the tier's "
+          "noise limit / √2 as well")
+
+
 def shown_noise_deg(summary: dict):
     """The noise the quality panel shows: the verdict's figure (over 33 ms steps); runs from before it was recorded
     carry only the per-sample RMS-S2S, which is the same figure at 30 fps."""
@@ -281,6 +289,7 @@ class ClipView(QWidget):
         self.q_face = QLabel()
         self.q_blinks = QLabel()
         self.q_noise = QLabel()
+        self.q_sd = QLabel()
         self.q_dist = QLabel()
         self.q_valid = QLabel()
         self.verdict = QLabel()
@@ -324,6 +333,7 @@ class ClipView(QWidget):
                 ("Face found", self.q_face, "Share of frames in which a face was tracked"),
                 ("Blinks", self.q_blinks, "Number of blinks detected"),
                 ("Noise (RMS-S2S)", self.q_noise, NOISE_TIP),
+                ("Noise (SD)", self.q_sd, SD_TIP),
                 ("Distance", self.q_dist, "Median eye-to-camera distance from the iris size"),
                 ("Valid gaze", self.q_valid, "Share of samples with a usable gaze estimate"))):
             cap = QLabel(name + ":")
@@ -331,7 +341,7 @@ class ClipView(QWidget):
             cap.setStyleSheet("color: #555;")
             grid.addWidget(cap, 0, 2 * i)
             grid.addWidget(lab, 0, 2 * i + 1)
-        grid.setColumnStretch(10, 1)
+        grid.setColumnStretch(12, 1)
 
         lay = QVBoxLayout(self)
         lay.setContentsMargins(4, 4, 4, 4)
@@ -428,6 +438,8 @@ class ClipView(QWidget):
         self.q_blinks.setText("–" if s.get("blink_count") is None else str(int(s["blink_count"])))
         self.q_noise.setText(fmt(shown_noise_deg(s), "°", digits=2))
         self.q_noise.setToolTip(noise_tooltip(s))
+        self.q_sd.setText(fmt(s.get("noise_sd_deg"), "°", digits=2))  # "–" for runs from before it was recorded
+        self.q_sd.setToolTip(SD_TIP)
         self.q_dist.setText(fmt(s.get("median_distance_mm"), "mm", digits=0))
         self.q_valid.setText(fmt(s.get("valid_frac"), pct=True))
         verdict = s.get("verdict")

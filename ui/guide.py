@@ -46,7 +46,10 @@ why when you select it; the others go on.</p>
 <p>The <b>Clip and gaze trace</b> tab shows the video with the tracked face (blurred unless you tick
 <i>Show faces unblurred</i>), a verdict on the clip's quality, and the gaze over time: coloured bands are
 fixations; blinks and lost data are marked. Click the trace to jump the video there. The clip list's
-<i>Face</i> column is the share of frames in which the face was found; <i>Usable</i> is the verdict.</p>
+<i>Face</i> column is the share of frames in which the face was found; <i>Usable</i> is the verdict. The
+verdict's precision reads two figures: the noise from sample to sample (RMS-S2S) and the SD of the samples about
+each fixation's mean; a clip is trusted for fixation counts only if both are small, so a gaze signal that was
+smoothed, whose steps are small while it still wanders, is not taken for a steady one.</p>
 
 <h3>5. Parameters</h3>
 <p>The <b>Parameters</b> panel on the right starts with the defaults, which suit webcam clips. Hover over a

@@ -25,7 +25,7 @@ CLIP_CHOICES = (("current", "this clip"), ("all", "all processed clips"))
 
 #: quality summary columns (from run.json) in display order
 QUALITY_COLUMNS = ("frames", "duration_s", "face_found_frac", "valid_frac", "blink_count", "fixation_count",
-                   "noise_rms_s2s_33ms_deg", "noise_rms_s2s_deg", "median_distance_mm", "usable", "verdict")
+                   "noise_rms_s2s_33ms_deg", "noise_rms_s2s_deg", "noise_sd_deg", "median_distance_mm", "usable", "verdict")
 
 
 class DataFrameModel(QAbstractTableModel):

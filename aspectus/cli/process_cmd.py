@@ -247,10 +247,12 @@ def run(args) -> int:
         except OSError:
             pass
         s = res.summary
-        # the noise figure the verdict and the precision tier read (over 33 ms steps), as the app shows it
+        # the two noise figures the verdict and the precision tier read (RMS over 33 ms steps, SD within fixations), as
+        # the app shows them
         print(f"{clip.name}: {s['frames']} frame{'' if s['frames'] == 1 else 's'} ({s['duration_s']:.1f} s), face found {s['face_found_frac']:.0%}, "
               f"{s['blink_count']} blinks, {s['fixation_count']} fixations, median distance "
-              f"{_num(s['median_distance_mm'], '.0f', 'mm')}, noise {_num(s.get('noise_rms_s2s_33ms_deg'), '.2f', 'deg')} -> {res.out_dir}")
+              f"{_num(s['median_distance_mm'], '.0f', 'mm')}, noise {_num(s.get('noise_rms_s2s_33ms_deg'), '.2f', 'deg')}, "
+              f"SD {_num(s.get('noise_sd_deg'), '.2f', 'deg')} -> {res.out_dir}")
         print(f"  {s['verdict']}")
         if res.reused_samples:
             print("  (gaze samples reused from the earlier run of this clip with the same settings; "

@@ -261,7 +261,9 @@ class AnalysisResult:
         noise_rms_s2s_deg (within fixations, the same figure as the clip's
         feature), noise_rms_s2s_33ms_deg (the same over 33 ms steps, the
         clip's feature: equal at 30 fps, comparable across frame rates; it
-        sets the precision tier), noise_rms_s2s_robust_deg (all valid steps, median-based),
+        sets the precision tier), noise_sd_deg (the SD of samples about
+        their fixation's mean, the clip's feature; it sets the tier too),
+        noise_rms_s2s_robust_deg (all valid steps, median-based),
         noise_rms_s2s_33ms_robust_deg (the same over 33 ms steps; it adapts the
         thresholds, so that they do not shrink at higher frame rates), valid_frac, loss_frac, blink_frac,
         filled_frac (fractions of the recorded time; holes in the time axis
@@ -378,6 +380,7 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
     clip_row = features[features["scope"] == "clip"]
     noise_fix = float(clip_row["noise_rms_s2s_deg"].iloc[0]) if len(clip_row) else float("nan")
     noise_33 = float(clip_row["noise_rms_s2s_33ms_deg"].iloc[0]) if len(clip_row) else float("nan")
+    noise_sd = float(clip_row["noise_sd_deg"].iloc[0]) if len(clip_row) else float("nan")
     quality = {
         "n_samples": n_in,
         "duration_s": float(cl.hi_s[-1] - cl.lo_s[0]) if n else 0.0,
@@ -386,6 +389,7 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
         "noise_rms_s2s_deg": noise_fix,
         "noise_rms_s2s_fixation_deg": noise_fix,
         "noise_rms_s2s_33ms_deg": noise_33,
+        "noise_sd_deg": noise_sd,
         "noise_rms_s2s_robust_deg": cl.noise_rms_s2s_deg,
         "noise_rms_s2s_33ms_robust_deg": cl.noise_rms_s2s_33ms_deg,
         "noise_rms_s2s_all_steps_deg": cl.noise_rms_s2s_plain_deg,
@@ -394,7 +398,12 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
                                  "fixation (Holmqvist, Nystrom & Mulvey 2012); = the clip's feature",
             "noise_rms_s2s_33ms_deg": "RMS of the distances between valid samples of the same fixation 33 ms apart "
                                       "(the nearest whole number of sample intervals): noise_rms_s2s_deg at 30 fps, "
-                                      "comparable across frame rates; sets the precision tier; = the clip's feature",
+                                      "comparable across frame rates; sets the precision tier with noise_sd_deg; = "
+                                      "the clip's feature",
+            "noise_sd_deg": "sqrt(sd_yaw^2 + sd_pitch^2) of the valid samples about their fixation's mean, pooled "
+                            "over the fixations (Holmqvist, Nystrom & Mulvey 2012): noise_rms_s2s_deg / sqrt(2) for "
+                            "white noise, higher for an error that wanders slowly, which filtering leaves; sets the "
+                            "precision tier with noise_rms_s2s_33ms_deg; = the clip's feature",
             "noise_rms_s2s_robust_deg": "median sample-to-sample distance x 2 / sqrt(4 ln 2) over all valid steps "
                                         "(equals RMS-S2S for white noise)",
             "noise_rms_s2s_33ms_robust_deg": "the same over all valid steps 33 ms long (the nearest whole number of "

@@ -14,6 +14,10 @@ the same fixation (precision as in Holmqvist, Nystrom & Mulvey 2012, Proc.
 ETRA); ``noise_rms_s2s_33ms_deg`` is the same over steps between valid samples of the same fixation 33 ms
 apart (:data:`aspectus.events.detect.noise.REFERENCE_INTERVAL_S`; the nearest whole number of sample
 intervals): at 30 fps the two are one figure, at other rates the second compares with 30 fps clips.
+``noise_sd_deg`` is precision as the SD of the originally valid samples about their fixation's mean, pooled over
+the scope's fixations (:func:`aspectus.events.detect.noise.fixation_sd_deg`; a fixation cut by the scope's edge
+counts with its part inside): RMS-S2S / sqrt(2) for white noise, and unlike RMS-S2S barely lowered by filtering,
+which removes the fast part of the error and leaves the slow wander.
 A scope without a single valid sample is degenerate: all its features are NaN and a
 :class:`DegenerateWindowWarning` is issued.
 """
@@ -25,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from aspectus.errors import AspectusWarning
-from aspectus.events.detect.noise import reference_lag
+from aspectus.events.detect.noise import fixation_sd_deg, reference_lag
 from aspectus.schema import FEATURE_COLUMN_NAMES
 
 #: feature columns, in order; every name carries its unit (definitions: :data:`aspectus.schema.FEATURE_COLUMNS`)
@@ -201,6 +205,7 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
             "valid_frac": valid_s / recorded_s,
             "noise_rms_s2s_deg": _step_rms(steps[1], i0, i1),
             "noise_rms_s2s_33ms_deg": _step_rms(steps[lag], i0, i1),
+            "noise_sd_deg": fixation_sd_deg(x[i0:i1], y[i0:i1], np.where(valid[i0:i1], fix_id[i0:i1], -1)),
             "n_samples": n_in,
         })
         rows.append(row)

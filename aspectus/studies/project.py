@@ -49,7 +49,7 @@ STATUSES = (STATUS_NEW, STATUS_DONE, STATUS_FAILED, STATUS_CANCELLED, STATUS_STA
 
 #: summary keys shown per clip (from the pipeline's ClipResult.summary / run.json)
 SUMMARY_KEYS = ("frames", "duration_s", "face_found_frac", "blink_count", "median_distance_mm",
-                "noise_rms_s2s_33ms_deg", "noise_rms_s2s_deg", "valid_frac", "usable", "verdict")
+                "noise_rms_s2s_33ms_deg", "noise_rms_s2s_deg", "noise_sd_deg", "valid_frac", "usable", "verdict")
 
 
 @dataclass

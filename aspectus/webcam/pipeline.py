@@ -52,6 +52,7 @@ from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_DIAM, REC
                                             frame_item, start_geometry)
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
+from aspectus.events.detect.noise import SD_PER_RMS_S2S_WHITE
 from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, SAMPLE_COLUMNS, column_table
 from aspectus.webcam.video import DecodeReport, FramePrefetcher, iter_frames, probe
 
@@ -651,6 +652,10 @@ def software_versions() -> dict:
 #: at 1.74-2.18 deg) it is 0.17-0.41, no lower: it varies more from clip to clip than with the noise, while gaze
 #: r against the truth stays 0.32-0.995 (0.87-0.995 at CRF 28 or better), so direction shifts averaged over
 #: seconds survive but fixation counts and durations do not.
+#: noise (deg, RMS-S2S over 33 ms steps) above which the verdict calls a clip not usable (with the SD above
+#: :func:`tier_sd_limit_deg` of it): the coarse tier's limit
+VERY_NOISY_DEG = 3.0
+
 PRECISION_TIERS = (
     ("events", 1.5, 12.0, ["fixation count and durations", "saccades", "where the gaze rests (dwell)",
                            "blink rate", "head movement", "data quality"]),
@@ -660,16 +665,37 @@ PRECISION_TIERS = (
 )
 
 
-def precision_tier(noise_deg, iris_px) -> tuple[str, list[str]]:
-    """Which features a clip's gaze supports, from its own noise (deg; the RMS-S2S over 33 ms steps,
-    ``noise_rms_s2s_33ms_deg``, so that a tier means the same at any frame rate) and median iris diameter (px).
+#: The SD limit of each tier, per degree of its RMS-S2S limit. The tiers were set on the RMS-S2S alone; a clip is
+#: now in a tier only if its SD of samples about their fixation's mean (``noise_sd_deg``) is within the tier's
+#: limit too. For white noise of per-axis SD ``s`` the RMS-S2S is ``2 s`` and that SD ``sqrt(2) s``
+#: (:data:`aspectus.events.detect.noise.SD_PER_RMS_S2S_WHITE`), so a limit of ``L / sqrt(2)`` on the SD is met
+#: exactly where ``L`` on the RMS-S2S is: unfiltered white noise gets the tier it got from the RMS-S2S alone (1.5 ->
+#: 1.06 deg, 3.0 -> 2.12 deg). A filter (a smoother of the gaze, or of the iris positions it is read from) lowers the
+#: RMS-S2S far more than the SD, and an error that wanders slowly reads a higher SD than its RMS-S2S / sqrt(2); there
+#: the SD decides, so smoothing alone cannot earn a better tier.
+TIER_SD_PER_NOISE = SD_PER_RMS_S2S_WHITE
 
-    NaN noise or iris size (too few valid samples, no face) gives the lowest tier.
+
+def tier_sd_limit_deg(max_noise_deg: float) -> float:
+    """The largest ``noise_sd_deg`` of the tier whose largest RMS-S2S is ``max_noise_deg`` (:data:`TIER_SD_PER_NOISE`)."""
+    return float(max_noise_deg) * TIER_SD_PER_NOISE
+
+
+def precision_tier(noise_deg, iris_px, noise_sd_deg) -> tuple[str, list[str]]:
+    """Which features a clip's gaze supports, from its own noise (deg; the RMS-S2S over 33 ms steps,
+    ``noise_rms_s2s_33ms_deg``, so that a tier means the same at any frame rate), its SD of samples about their
+    fixation's mean (deg, ``noise_sd_deg``) and median iris diameter (px).
+
+    A tier needs both figures within its limits (the SD's: :func:`tier_sd_limit_deg`). NaN noise, SD or iris size
+    (too few valid samples, no fixation, no face) gives the lowest tier.
     """
-    noise = float(noise_deg) if noise_deg is not None else float("nan")
-    iris = float(iris_px) if iris_px is not None else float("nan")
+    def _num(v):
+        return float(v) if v is not None else float("nan")
+
+    noise, sd, iris = _num(noise_deg), _num(noise_sd_deg), _num(iris_px)
     for tier, max_noise, min_iris, features in PRECISION_TIERS:
-        if np.isfinite(noise) and np.isfinite(iris) and noise <= max_noise and iris >= min_iris:
+        if (np.isfinite(noise) and np.isfinite(sd) and np.isfinite(iris) and noise <= max_noise
+                and sd <= tier_sd_limit_deg(max_noise) and iris >= min_iris):
             return tier, list(features)
     return PRECISION_TIERS[-1][0], list(PRECISION_TIERS[-1][3])
 
@@ -691,6 +717,8 @@ def _trust_sentence(summary: dict) -> str:
 
 def _verdict(summary: dict) -> tuple[bool, str]:
     ff, vf, noise = summary["face_found_frac"], summary["valid_frac"], summary.get("noise_rms_s2s_33ms_deg")
+    sd = summary.get("noise_sd_deg")
+    sd_ok = sd is not None and np.isfinite(sd)
     reasons = []
     n, dur = int(summary.get("frames") or 0), float(summary.get("duration_s") or 0.0)
     if n > 1:
@@ -704,12 +732,19 @@ def _verdict(summary: dict) -> tuple[bool, str]:
     if vf < 0.6:
         reasons.append(f"usable gaze in only {vf:.0%} of the recorded time (blinks, closed eyes, turned head, no "
                        "face, or frames missing from the recording)")
-    if noise is not None and np.isfinite(noise) and noise > 3.0:
+    limit = VERY_NOISY_DEG
+    if noise is not None and np.isfinite(noise) and noise > limit:
         reasons.append(f"the gaze signal is very noisy ({noise:.1f} deg sample to sample over 33 ms steps)")
+    elif sd_ok and sd > tier_sd_limit_deg(limit):
+        reasons.append(f"the gaze signal is very noisy (it wanders {sd:.1f} deg (SD) about each fixation's mean, "
+                       f"above {tier_sd_limit_deg(limit):.2f} deg, although its sample-to-sample noise reads "
+                       f"{noise:.1f} deg: an error that changes slowly, or a filtered signal)")
     if reasons:
         return False, "Not usable: " + "; ".join(reasons) + "."
     noise_text = (f"noise {noise:.2f} deg sample to sample (over 33 ms steps)" if noise is not None and np.isfinite(noise)
                   else "noise not measurable (too few consecutive valid samples)")
+    if sd_ok:
+        noise_text += f", SD {sd:.2f} deg within fixations"
     return True, f"Usable: face tracked in {ff:.0%} of frames, {vf:.0%} usable gaze, {noise_text}."
 
 
@@ -731,6 +766,7 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         "median_distance_mm": float(np.nanmedian(samples["distance_mm"])) if samples["face_found"].any() else float("nan"),
         "noise_rms_s2s_deg": float(q.get("noise_rms_s2s_deg", np.nan)),
         "noise_rms_s2s_33ms_deg": float(q.get("noise_rms_s2s_33ms_deg", np.nan)),
+        "noise_sd_deg": float(q.get("noise_sd_deg", np.nan)),
         "decode_problems": {k: v for k, v in meta.get("decode", {}).items() if k != "frames" and v},
     }
     steps = np.diff(samples["t_s"].to_numpy(float)) if n > 1 else np.array([])
@@ -738,7 +774,8 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
     s["frame_rate_hz"] = float(1.0 / np.median(steps)) if len(steps) else float("nan")
     iris = samples["iris_diameter_px"].to_numpy(float) if "iris_diameter_px" in samples else np.full(n, np.nan)
     s["median_iris_px"] = float(np.nanmedian(iris)) if np.isfinite(iris).any() else float("nan")
-    s["precision_tier"], s["trusted_features"] = precision_tier(s["noise_rms_s2s_33ms_deg"], s["median_iris_px"])
+    s["precision_tier"], s["trusted_features"] = precision_tier(s["noise_rms_s2s_33ms_deg"], s["median_iris_px"],
+                                                                s["noise_sd_deg"])
     s["usable"], s["verdict"] = _verdict(s)
     s["verdict"] += _trust_sentence(s)
     if ((meta.get("gaze_model") or {}).get("iris_estimate") or {}).get("used") == "appearance":

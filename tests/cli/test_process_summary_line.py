@@ -15,7 +15,7 @@ def test_the_printed_noise_is_the_verdicts(monkeypatch, tmp_path, capsys):
     clip.write_bytes(b"")  # never read: processing is replaced below
     summary = {"frames": 600, "duration_s": 10.0, "face_found_frac": 1.0, "blink_count": 2, "fixation_count": 20,
                "median_distance_mm": 600.0, "noise_rms_s2s_deg": 0.41, "noise_rms_s2s_33ms_deg": 0.57,
-               "verdict": "Usable: noise 0.57 deg sample to sample (over 33 ms steps)."}
+               "noise_sd_deg": 0.48, "verdict": "Usable: noise 0.57 deg sample to sample (over 33 ms steps)."}
 
     def fake_process_clip(clip_path, out_dir, **kw):
         return SimpleNamespace(summary=summary, out_dir=out_dir, reused_samples=False)
@@ -24,6 +24,7 @@ def test_the_printed_noise_is_the_verdicts(monkeypatch, tmp_path, capsys):
     assert main(["process", "--quiet", "-o", str(tmp_path / "out"), str(clip)]) == 0
     line = capsys.readouterr().out.splitlines()[0]
     assert "noise 0.57 deg" in line and "0.41" not in line, line
+    assert "SD 0.48 deg" in line, line  # the tier's second figure (SD within fixations) beside it
 
 
 def test_a_clip_without_the_figure_prints_no_number(monkeypatch, tmp_path, capsys):
@@ -41,4 +42,4 @@ def test_a_clip_without_the_figure_prints_no_number(monkeypatch, tmp_path, capsy
                         lambda c, o, **kw: SimpleNamespace(summary=summary, out_dir=o, reused_samples=False))
     assert main(["process", "--quiet", "-o", str(tmp_path / "out"), str(clip)]) == 0
     line = capsys.readouterr().out.splitlines()[0]
-    assert "0.30" not in line and "noise n/a" in line, line
+    assert "0.30" not in line and "noise n/a" in line and "SD n/a" in line, line

@@ -175,3 +175,10 @@ def test_clip_view_noise_is_the_figure_the_verdict_reads(qtbot):
     old = {k: v for k, v in s.items() if k != "noise_rms_s2s_33ms_deg"}
     view.set_summary(old)
     assert view.q_noise.text() == f"{s['noise_rms_s2s_deg']:.2f}°" and "Per sample" not in view.q_noise.toolTip()
+    # the tier's second figure, the SD within fixations, beside it as the verdict states it; "–" in runs from
+    # before it was recorded
+    view.set_summary(s)
+    assert view.q_sd.text() == f"{s['noise_sd_deg']:.2f}°" and f"SD {s['noise_sd_deg']:.2f} deg" in s["verdict"]
+    assert "√2" in view.q_sd.toolTip()
+    view.set_summary({k: v for k, v in s.items() if k != "noise_sd_deg"})
+    assert view.q_sd.text() == "–"

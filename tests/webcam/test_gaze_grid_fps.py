@@ -89,5 +89,6 @@ def test_the_noise_figure_and_the_tier_mean_the_same_at_60_fps(rows):
         if variant == "true_iris":
             assert abs(at_33ms - 1.0) < abs(per_sample - 1.0), (variant, per_sample, at_33ms)
     iris = rows[(30.0, "default")]["iris_px_measured"]
-    tiers = {fps: precision_tier(rows[(fps, "default")]["noise_rms_s2s_33ms_deg"], iris)[0] for fps in (30.0, 60.0)}
+    tiers = {fps: precision_tier(rows[(fps, "default")]["noise_rms_s2s_33ms_deg"], iris,
+                                 rows[(fps, "default")]["noise_sd_deg"])[0] for fps in (30.0, 60.0)}
     assert tiers[30.0] == tiers[60.0], tiers

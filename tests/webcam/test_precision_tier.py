@@ -7,7 +7,11 @@ import pytest
 
 from _signals import same_eyes as _same_eyes
 
-from aspectus.webcam.pipeline import PRECISION_TIERS, precision_tier, summarise
+from aspectus.events.detect.noise import SD_PER_RMS_S2S_WHITE
+from aspectus.webcam.pipeline import PRECISION_TIERS, precision_tier, summarise, tier_sd_limit_deg
+
+#: the SD of white noise whose RMS-S2S is ``noise`` (SD = RMS-S2S / sqrt(2): aspectus.events.detect.noise)
+_white = SD_PER_RMS_S2S_WHITE
 
 
 @pytest.mark.parametrize("noise, iris, tier", [
@@ -16,10 +20,20 @@ from aspectus.webcam.pipeline import PRECISION_TIERS, precision_tier, summarise
     (3.5, 25.0, "minimal"), (1.0, 7.0, "minimal"), (float("nan"), 20.0, "minimal"), (1.0, None, "minimal"),
 ])
 def test_tier_follows_noise_and_iris_size(noise, iris, tier):
-    got, features = precision_tier(noise, iris)
+    got, features = precision_tier(noise, iris, _white * noise)
     assert got == tier
     assert "blink rate" in features and "data quality" in features  # always measurable with a face
     assert ("fixation count and durations" in features) == (tier == "events")
+
+
+@pytest.mark.parametrize("noise, sd, tier", [
+    (0.5, 1.06, "events"), (0.5, 1.07, "coarse"),      # the SD's edge: 1.5 / sqrt(2) = 1.0607
+    (0.5, 2.12, "coarse"), (0.5, 2.13, "minimal"),     # 3.0 / sqrt(2) = 2.1213
+    (1.0, float("nan"), "minimal"), (1.0, None, "minimal"),
+])
+def test_a_tier_needs_the_sd_within_its_limit_too(noise, sd, tier):
+    assert tier_sd_limit_deg(1.5) == pytest.approx(1.5 / np.sqrt(2)) and tier_sd_limit_deg(3.0) == pytest.approx(2.1213, abs=1e-4)
+    assert precision_tier(noise, 20.0, sd)[0] == tier
 
 
 def test_tiers_are_ordered():
@@ -47,8 +61,10 @@ def test_summary_and_verdict_carry_the_tier(noise, iris, tier, words):
     smp = _samples(noise, iris)
     s = summarise(smp, run_analysis(smp), {})
     assert s["median_iris_px"] == pytest.approx(iris)
-    assert s["precision_tier"] == tier and s["trusted_features"] == precision_tier(s["noise_rms_s2s_deg"], iris)[1]
+    assert s["precision_tier"] == tier
+    assert s["trusted_features"] == precision_tier(s["noise_rms_s2s_33ms_deg"], iris, s["noise_sd_deg"])[1]
     assert words in s["verdict"] and f"irises about {iris:.0f} px" in s["verdict"]
+    assert f"SD {s['noise_sd_deg']:.2f} deg within fixations" in s["verdict"]
 
 
 @pytest.mark.parametrize("rate", [30, 60])
@@ -109,3 +125,75 @@ def test_white_noise_reads_the_same_per_sample_and_at_33_ms():
     q = run_analysis(_same_eyes(60, drift_sd=0.0, white_sd=0.3)).quality
     assert q["noise_rms_s2s_deg"] == pytest.approx(0.6, rel=0.05)
     assert q["noise_rms_s2s_33ms_deg"] == pytest.approx(q["noise_rms_s2s_deg"], rel=0.03)
+
+
+def _held(noise_deg, n=900, hold=30, seed=0, average=1):
+    """Fixations of ``hold`` samples at 30 fps with white noise of RMS-S2S ``noise_deg``, optionally low-pass
+    filtered by an ``average``-sample moving mean."""
+    rng = np.random.default_rng(seed)
+    smp = _samples(0.0, 20.0, n=n, seed=seed)
+    smp["yaw_deg"] = np.repeat(rng.uniform(-8, 8, n // hold + 1), hold)[:n]
+    smp["pitch_deg"] = np.repeat(rng.uniform(-5, 5, n // hold + 1), hold)[:n]
+    for col in ("yaw_deg", "pitch_deg"):
+        e = rng.normal(0, noise_deg / 2, n + average - 1)
+        smp[col] += np.convolve(e, np.ones(average) / average, "valid")
+    return smp
+
+
+@pytest.mark.parametrize("noise", [0.5, 1.0, 1.25, 1.75, 2.5, 3.5])
+def test_white_noise_keeps_the_tier_the_rms_s2s_alone_gave(noise):
+    """The SD limits are the RMS-S2S limits / sqrt(2), the white-noise relation (Holmqvist, Nystrom & Mulvey
+    2012): unfiltered white noise reads SD = RMS-S2S / sqrt(2) and gets the tier it got before the SD was read
+    (levels kept 0.25 deg or more from the tier edges, where sampling decides either way)."""
+    from aspectus.events.analysis import run_analysis
+
+    for seed in (0, 1):
+        smp = _held(noise, seed=seed)
+        s = summarise(smp, run_analysis(smp), {})
+        assert s["noise_sd_deg"] == pytest.approx(_white * s["noise_rms_s2s_33ms_deg"], rel=0.06)
+        rms_alone = precision_tier(s["noise_rms_s2s_33ms_deg"], 20.0, 0.0)[0]
+        assert s["precision_tier"] == rms_alone
+
+
+def test_a_filtered_signal_does_not_earn_a_better_tier():
+    """White noise of RMS-S2S 2.8 deg (coarse) and the same noise through a 2-sample moving mean. By hand
+    (per-axis SD s, independent samples): the filtered step (x[t+1] - x[t-1]) / 2 has variance s^2 / 2 against
+    2 s^2 unfiltered - RMS-S2S halved, to 1.4 deg, inside the events tier's 1.5 -, while the samples' variance falls
+    to s^2 / 2 - SD / sqrt(2), 1.40 deg, above its 1.06 deg limit. Measured inside the detector's fixations the SD
+    reads a little lower than the filtered process's (a fixation's own mean takes up part of an error correlated
+    from sample to sample; the detector's threshold, read off the lowered RMS-S2S, splits some fixations): 0.65-0.68
+    of the unfiltered SD on these seeds. With heavier filtering the white noise's SD itself falls (a 3-sample mean:
+    SD / sqrt(3), 1.14 deg here), and the split fixations then read 0.93 deg: SD within detected fixations is
+    lowered by filtering far less than the RMS-S2S, not immune to it."""
+    from aspectus.events.analysis import run_analysis
+
+    for seed in (0, 1, 2):
+        got = {}
+        for average in (1, 2):
+            smp = _held(2.8, seed=seed, average=average)
+            got[average] = summarise(smp, run_analysis(smp), {})
+        raw, filt = got[1], got[2]
+        rms_ratio = filt["noise_rms_s2s_33ms_deg"] / raw["noise_rms_s2s_33ms_deg"]
+        sd_ratio = filt["noise_sd_deg"] / raw["noise_sd_deg"]
+        assert rms_ratio == pytest.approx(0.5, abs=0.04)          # hand computation above
+        assert sd_ratio > rms_ratio + 0.1                           # the SD falls far less (1 / sqrt(2) by hand)
+        assert precision_tier(filt["noise_rms_s2s_33ms_deg"], 20.0, 0.0)[0] == "events"  # the RMS-S2S alone: flattered
+        assert raw["precision_tier"] == filt["precision_tier"] == "coarse"
+
+
+@pytest.mark.parametrize("sd, usable", [(2.5, False), (2.0, True)])
+def test_the_verdict_reads_the_sd_too(sd, usable):
+    """'Very noisy' where either figure is beyond the coarse tier: small sample-to-sample steps (1.2 deg over 33 ms)
+    do not make a clip usable whose samples wander 2.5 deg (SD) about their fixation's mean (limit 3.0 / sqrt(2) =
+    2.12 deg)."""
+    from types import SimpleNamespace
+
+    smp = _samples(0.3, 20.0)
+    q = {"valid_frac": 1.0, "noise_rms_s2s_deg": 1.2, "noise_rms_s2s_33ms_deg": 1.2, "noise_sd_deg": sd}
+    s = summarise(smp, SimpleNamespace(events=pd.DataFrame({"type": []}), quality=q), {})
+    assert s["noise_sd_deg"] == sd and s["usable"] is usable
+    assert s["precision_tier"] == ("minimal" if sd > 2.12 else "coarse")
+    if usable:
+        assert f"noise 1.20 deg sample to sample (over 33 ms steps), SD {sd:.2f} deg within fixations" in s["verdict"]
+    else:
+        assert "very noisy (it wanders 2.5 deg (SD) about each fixation's mean, above 2.12 deg" in s["verdict"]

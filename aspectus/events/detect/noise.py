@@ -193,3 +193,50 @@ def mean_variance_factor(rho: float, n: float) -> float:
         return 1.0
     k = np.arange(1, m)
     return float(1.0 + 2.0 * np.sum((1.0 - k / m) * r ** k))
+
+
+#: For white noise of per-axis SD ``s`` the RMS-S2S is ``2 s`` (a step's squared length has expectation
+#: ``2 s^2`` per axis, two axes) and the SD of the samples about their mean, ``sqrt(sd_yaw^2 + sd_pitch^2)``, is
+#: ``sqrt(2) s``: SD = RMS-S2S / sqrt(2) (Holmqvist, Nystrom & Mulvey 2012 report precision both ways; the ratio
+#: follows from the definitions). A filter lowers the two by different amounts - a k-sample moving average of
+#: white noise divides the RMS-S2S by k and the SD by sqrt(k) - and an error that changes slowly (webcam gaze: lag-1
+#: autocorrelation 0.6-0.9) reads a higher SD than its RMS-S2S / sqrt(2).
+SD_PER_RMS_S2S_WHITE = 1.0 / np.sqrt(2.0)
+
+
+def fixation_sd_deg(yaw_deg, pitch_deg, group) -> float:
+    """Precision as the SD of samples about their fixation's mean, pooled over fixations, in degrees.
+
+    ``sqrt(sum over fixations of the squared distances of their samples from the fixation's mean / sum over
+    fixations of (n - 1))``: the pooled per-axis variances (n - 1 per fixation: the fixations' own means cost white
+    noise no bias; an error correlated from sample to sample loses more to them, :func:`mean_variance_factor`), summed over yaw and pitch - ``sqrt(sd_yaw^2 + sd_pitch^2)``, the 2-D SD of Holmqvist, Nystrom & Mulvey
+    (2012). For white noise it is the RMS-S2S / sqrt(2) (:data:`SD_PER_RMS_S2S_WHITE`); it measures the slow
+    wander within a fixation that a filter leaves, which the sample-to-sample figure barely sees.
+
+    Parameters
+    ----------
+    yaw_deg, pitch_deg : array_like, shape (n,)
+        Gaze angles in degrees; samples with either missing (NaN) are left out.
+    group : array_like of int, shape (n,)
+        The fixation each sample belongs to (any integer id, >= 0); negative for samples outside fixations.
+
+    Returns
+    -------
+    float
+        The SD in degrees; NaN where no fixation holds two usable samples.
+    """
+    x = np.asarray(yaw_deg, dtype=float)
+    y = np.asarray(pitch_deg, dtype=float)
+    g = np.asarray(group)
+    keep = (g >= 0) & np.isfinite(x) & np.isfinite(y)
+    if keep.sum() < 2:
+        return float("nan")
+    _, gid = np.unique(g[keep], return_inverse=True)
+    x, y = x[keep], y[keep]
+    n = np.bincount(gid).astype(float)
+    ss = 0.0
+    for v in (x, y):
+        mean = np.bincount(gid, weights=v) / n
+        ss += float(np.sum((v - mean[gid]) ** 2))
+    dof = float(np.sum(n - 1.0))
+    return float(np.sqrt(ss / dof)) if dof > 0 else float("nan")
