@@ -209,7 +209,8 @@ def fixation_sd_deg(yaw_deg, pitch_deg, group) -> float:
 
     ``sqrt(sum over fixations of the squared distances of their samples from the fixation's mean / sum over
     fixations of (n - 1))``: the pooled per-axis variances (n - 1 per fixation: the fixations' own means cost white
-    noise no bias; an error correlated from sample to sample loses more to them, :func:`mean_variance_factor`), summed over yaw and pitch - ``sqrt(sd_yaw^2 + sd_pitch^2)``, the 2-D SD of Holmqvist, Nystrom & Mulvey
+    noise no bias; an error correlated from sample to sample loses more to them, :func:`mean_variance_factor`),
+    summed over yaw and pitch - ``sqrt(sd_yaw^2 + sd_pitch^2)``, the 2-D SD of Holmqvist, Nystrom & Mulvey
     (2012). For white noise it is the RMS-S2S / sqrt(2) (:data:`SD_PER_RMS_S2S_WHITE`); it measures the slow
     wander within a fixation that a filter leaves, which the sample-to-sample figure barely sees.
 
