@@ -121,3 +121,37 @@ def test_unmirror_record_swaps_every_kind_of_per_eye_entry():
     assert blk["gain"] == {"left_y": 1.1, "right_y": 0.9} and blk["appearance_weight"] == {"left": 0.5}
     assert rec["iris_appearance"]["frames_predicted"] == [0, 380]
     assert rec["iris_registration"] == {"increments": [12, 300], "frames_fused": [0, 290], "levels": {"left_x": None}}
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("mirrored", [True, False])
+def test_the_pipeline_writes_the_registration_record_for_the_subjects_eyes(tmp_path, monkeypatch, mirrored):
+    """The iris registration's record (measured per face-mesh eye in the pipeline, after the gaze estimate's own
+    records) reaches run.json's gaze_model named for the subject's eyes: swapped on a mirrored clip, as it is."""
+    import copy
+
+    from aspectus.synth.render import render_clip, synth_trajectory
+    from aspectus.webcam import pipeline
+    from aspectus.webcam.pipeline import ProcessParams, extract_samples
+
+    clip = tmp_path / "clip.mp4"
+    render_clip(clip, synth_trajectory(duration_s=1.5, seed=4), size_px=(640, 480), fps=30.0, mirror=mirrored, seed=2)
+    seen = {}
+    orig = pipeline._registered_iris
+
+    def spy(*a, **kw):
+        iris, info = orig(*a, **kw)
+        seen["info"] = copy.deepcopy(info)
+        return iris, info
+
+    monkeypatch.setattr(pipeline, "_registered_iris", spy)
+    _, meta = extract_samples(clip, params=ProcessParams(gaze=GazeParams(
+        mirrored=mirrored, iris_combine="limbus", iris_registration=True)))
+    measured = seen["info"]
+    lv = measured["levels"]
+    # the two eyes' records differ, so a swap shows
+    assert lv["right_x"] is not None and lv["left_x"] is not None and lv["right_x"] != lv["left_x"]
+    expected = unmirror_record(copy.deepcopy(measured)) if mirrored else measured
+    assert meta["gaze_model"]["iris_registration"] == expected
+    if mirrored:
+        assert meta["gaze_model"]["iris_registration"]["levels"]["left_x"] == lv["right_x"]
