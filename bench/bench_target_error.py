@@ -45,7 +45,7 @@ the eye anchors under it): what is left of (b) then comes from the anchors.
     python bench/bench_target_error.py --limbus a b c d e  # the limbus candidates against the true iris rim
 
 ``--limbus``: per eye and still dot, over the check's windows, the limbus fit's (:mod:`aspectus.webcam.limbus`)
-last-pass candidates that the fit keeps, as distance from the renderer's true iris circle (px, negative =
+candidates that the fit keeps in the pass that gave its centre, as distance from the renderer's true iris circle (px, negative =
 inside the rim), split into the arcs above the centre (more than 20 deg above the horizontal), beside it and
 below it, with the fit's centre error and radius against the truth; then over all eye-dots of the clips named
 the correlations of the fit's vertical error with those, and its median and SD by gaze direction (down, level,
@@ -264,9 +264,11 @@ def axis_residual_rms(c) -> np.ndarray:
 
 
 def limbus_candidates(name: str) -> list[dict]:
-    """Per eye and still dot of clip ``name``: the limbus fit's kept last-pass candidates against the renderer's
-    true iris circle (``--limbus``). The per-frame geometry runs as the pipeline runs it; each frame's limbus
-    fit is run again on the same eye regions with its circle fits watched."""
+    """Per eye and still dot of clip ``name``: the limbus fit's kept candidates of the pass that gave its centre,
+    against the renderer's true iris circle (``--limbus``). The per-frame geometry runs as the pipeline runs it;
+    each frame's limbus fit is run again on the same eye regions with its passes watched (an eye-frame whose
+    candidates cannot be told from the other eye's - one eye without enough of them in that pass - is left out,
+    as are eye-frames where the fit kept the face mesh's point)."""
     import aspectus.webcam.frame_geometry as FG
     import aspectus.webcam.limbus as L
 
@@ -274,7 +276,7 @@ def limbus_candidates(name: str) -> list[dict]:
     tr, sched = clip["truth"], clip["schedule"]
     ts = tr["t_s"].to_numpy() - tr["t_s"].to_numpy()[0] - clip["start_s"]
     blink = tr["blink"].to_numpy(bool)
-    many, fit = L.limbus_centres_many, L.fit_circles
+    many, fit, fit_many = L.limbus_centres_many, L.fit_circles, L._fit_many
     seen: dict = {}
 
     def spy_many(items, **k):
@@ -284,6 +286,16 @@ def limbus_candidates(name: str) -> list[dict]:
     def spy_fit(pts, valid, *a, **k):
         seen["fits"].append((np.array(pts), np.array(valid)))
         return fit(pts, valid, *a, **k)
+
+    def spy_fit_many(cv2, eyes, *a, **k):
+        seen["fits"] = []
+        res = fit_many(cv2, eyes, *a, **k)
+        pts, valid = seen["fits"][0] if seen["fits"] else (None, None)
+        for j, (eye, nxt) in enumerate(zip(eyes, res)):
+            # accepted as limbus_centres_many accepts a pass (the centre within a mesh radius of the mesh's point)
+            if nxt is not None and np.hypot(*(nxt[0] - eye.c0)) <= eye.r:
+                seen["passes"][eye.eye] = (pts[j], valid[j]) if pts is not None and len(pts) == len(eyes) else None
+        return res
 
     geo = FG.FrameGeometry(fov_deg=60.0, refine_iris=True)
     out = []
@@ -299,23 +311,23 @@ def limbus_candidates(name: str) -> list[dict]:
                 if "items" not in seen:
                     continue
                 off = np.asarray(item[5], float)
-                seen["fits"] = []
-                L.fit_circles = spy_fit
+                seen["passes"] = {}
+                L.fit_circles, L._fit_many = spy_fit, spy_fit_many
                 try:
                     res = many(seen["items"], **(seen["k"] | {"diameters": True}))[0]
                 finally:
-                    L.fit_circles = fit
+                    L.fit_circles, L._fit_many = fit, fit_many
                 _img, _pts, mesh_c, mesh_d = seen["items"][0]
-                pts, valid = seen["fits"][-1]
                 for e, side in enumerate(("right", "left")):
-                    if not res[1][e] or len(pts) < 2:
+                    cand = seen["passes"].get(e)
+                    if not res[1][e] or cand is None:
                         continue
                     tc = np.array([tr[f"{side}_iris_x_px"][i], tr[f"{side}_iris_y_px"][i]])
                     t_r = 0.5 * tr["iris_diameter_px"][i]
                     # the eye region's origin (limbus._prepare_eye): its first pixel's centre
                     reach = L.ROI_RADII * 0.5 * mesh_d[e]
                     org = np.floor(np.maximum(0.0, np.asarray(mesh_c[e], float) - reach)) + 0.5 + off
-                    dv = pts[e][valid[e]] + org - tc
+                    dv = cand[0][cand[1]] + org - tc
                     acc[e]["ang"].append(np.degrees(np.arctan2(dv[:, 1], dv[:, 0])))
                     acc[e]["res"].append(np.hypot(dv[:, 0], dv[:, 1]) - t_r)
                     acc[e]["fit"].append(res[0][e] + off - tc)
