@@ -246,17 +246,18 @@ class GazeParams:
         ``iris_combine="auto"`` only where the appearance estimate is taken
         (iris below 17.3 px); with another ``iris_combine`` the patches are
         sampled for it (0.2-1.0 ms a frame in the per-frame geometry, 768
-        bytes a frame on disk). Default False: on the gaze grid's ten
-        small-face cells and fourteen held-out rendered clips it lowered
-        RMS-S2S on every one (by 10-77 %) and raised pitch r, but the
-        default detector's fixation kappa against hand-coders fell on six
-        cells and eleven clips (by up to 0.14), and issue 4's end-to-end
-        per-window fixation-count r with it: the smoothed gaze's small
-        frame-to-frame noise lowers the adaptive I-DT threshold below its
-        slower wander - the clip's noise figure and precision tier then
-        read better than the gaze is (at a fixed threshold kappa rose on
-        18-19 of 22; docs/notes/gaze-measurement.md, "The iris's motion from
-        registration between frames"); costs about 3 ms a frame at the
+        bytes a frame on disk). Default False, by a rule written before
+        measuring: on the gaze grid's eight small-face cells and fourteen
+        held-out rendered clips it lowered the error's SD within the
+        coders' fixations on all 22 (mean 1.33 -> 0.87 deg) and raised
+        pitch r, but the default detector's fixation kappa against
+        hand-coders rose on 10 and fell on 12 (mean +0.011, 12 px CRF 23
+        down 0.107, beyond the rule's 0.10) and the saccade-frame step gain
+        fell (median 0.75 -> 0.71). The precision tier reads the SD within
+        fixations (``noise_sd_deg``) as well as the RMS-S2S, which the
+        smoother lowers some three times as much (docs/notes/
+        gaze-measurement.md, "The iris's motion from registration between
+        frames"); costs about 3 ms a frame at the
         clip's end. run.json: ``gaze_model.iris_registration``.
     iris_shape : {"circle", "ellipse"}
         The shape the limbus fit gives the iris in the picture (needs
@@ -509,9 +510,12 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
           "tracker tells you otherwise."),
          (True, "also followed from frame to frame",
           "The iris is also followed from each frame to the next and combined with each frame's own measurement: "
-          "less jitter where the iris is small in the picture (a classroom webcam), but in our tests the fixations "
-          "found agreed less well with expert coders. Acts where the eye's appearance is used, or with another "
-          "choice of iris height; costs a few milliseconds a frame."))),
+          "less jitter and less slow wander where the iris is small in the picture (a classroom webcam), but in our "
+          "tests the fixations found agreed with expert coders no better on average (better on some clips, worse "
+          "on others) and saccades read a little smaller. The quality verdict reads how far the gaze wanders "
+          "within fixations as well as its jitter, so it does not rate the smoothed gaze steadier than it is. "
+          "Acts where the eye's appearance is used, or with another choice of iris height; costs a few "
+          "milliseconds a frame."))),
     GazeChoice(
         "mirrored", "The clips show the student",
         "Whether the recording is a mirror image (as webcam software often shows and records the picture).",
