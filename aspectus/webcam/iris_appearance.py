@@ -67,8 +67,9 @@ COMPONENTS = (4, 8, 16, 32)
 RIDGE = (0.1, 1.0, 10.0, 100.0)
 #: labels further than this many robust SD from a first cross-fit are left out of the fit
 TRIM_SD = 3.0
-#: the instrument's gain is kept within these limits before it is divided out
-GAIN_LIMITS = (0.5, 1.5)
+#: the instrument's gain is kept within these limits before it is divided out: never above one, since a regression
+#: on the labels shrinks (:func:`instrument_rescale`)
+GAIN_LIMITS = (0.5, 1.0)
 #: the appearance estimate's weights against the limbus fit that are tried (:func:`blend_with_labels`)
 BLEND_WEIGHTS = tuple(round(0.1 * k, 1) for k in range(11))
 
@@ -284,6 +285,15 @@ def instrument_rescale(est: np.ndarray, labels: np.ndarray, use: np.ndarray, *,
     right eye's labelled motion that its estimate follows, free of the label noise that biases a plain
     regression of estimate on label (instrumental variables, Reiersol 1945 - from memory). The gain is kept
     within ``limits`` before dividing; where it cannot be measured the estimate is left as it is.
+
+    The upper limit is one: the estimate is a regression on the labels, E[label | pixels], whose motion is at
+    most the labels' own (the pixels explain all of it or shrink it), so under the instrument's assumptions
+    its gain is at most one. A gain measured above one says that the assumptions fail - the eyes' label errors
+    are not independent of each other, e.g. both fits read the iris's height with an error that depends on
+    where the lids cross it, which moves with the gaze - and dividing by it would shrink the estimate below
+    its labels' motion; the estimate is then left at its own scale. (On the gaze grid's 12 px CRF 28 cell the
+    right eye's gain measured 1.24, and divided by it its vertical gain against the rendered truth was 0.69
+    against 0.80 at its own scale; docs/notes/gaze-measurement.md, "Where the vertical gain is lost at 12 px".)
     """
     out = np.array(est, float).copy()
     gains: dict = {}

@@ -122,8 +122,13 @@ def test_the_default_takes_the_appearance_estimate_at_classroom_scale(cells):
         assert dft["pitch_gain"] >= lim["pitch_gain"] - 0.08  # 0.03 before the convention fix (12 px: -0.06)
         assert dft["kappa"] >= lim["kappa"] - 0.05  # 0.01 before the convention fix (8.5 px: -0.035)
         assert abs(dft["yaw_r"] - lim["yaw_r"]) <= 0.005
+    # Since the appearance estimate's instrument gain is kept at or below one (aspectus.webcam.iris_appearance,
+    # GAIN_LIMITS; it read 1.24 / 1.10 here and shrank the estimate below its labels' motion): 12 px 1.68 / 0.916 /
+    # 0.88 / 0.277 (before 1.64 / 0.917 / 0.79 / 0.328); issue 15's pitch gain band (0.85-1.15) now met at 12 px,
+    # pitch r (0.95) and RMS-S2S (1.5) still NOT met. The 8.5 px cell is unchanged (its gains were below one).
+    # Where the rest is lost: docs/notes/gaze-measurement.md, "Where the vertical gain is lost at 12 px".
     d12, d8 = cells[("12px", "default")], cells[("8px", "default")]
-    assert d12["rms_s2s_deg"] <= 1.8 and d12["pitch_r"] >= 0.70 and d12["pitch_gain"] >= 0.58
+    assert d12["rms_s2s_deg"] <= 1.8 and d12["pitch_r"] >= 0.88 and 0.85 <= d12["pitch_gain"] <= 1.15
     # 8.5 px: issue 15's floor (3 deg) met; the reached level is guarded (2.23 with the sub-pixel lid mask, 1.73
     # with the rounded one: this cell's noise rose while the 12 px cell's pitch r, gain and kappa rose)
     assert d8["rms_s2s_deg"] <= 3.0 and d8["rms_s2s_deg"] <= 2.4 and d8["pitch_r"] >= 0.78

@@ -218,3 +218,34 @@ def test_a_label_and_its_patch_stay_aligned_in_the_picture_convention():
         got = np.array([(dark * ii).sum(), (dark * jj).sum()]) / dark.sum()
         step = A[e, 0, 0]
         assert np.all(np.abs(got - label[e]) * step < 0.1), (e, got, label[e])
+
+
+def test_the_instrument_never_shrinks_an_estimate_below_its_own_motion():
+    """The rescale divides out a regression's shrinkage, measured with the other eye's labels as the instrument
+    (instrumental variables, Reiersol 1945 - from memory: cov(est_R, label_L) / cov(label_R, label_L) is the
+    share of the labelled motion the estimate follows when the eyes' label errors are independent). A regression
+    on the labels cannot follow more than all of it, so a gain measured above one means the eyes' label errors
+    are not independent (here: errors of opposite sign in the two eyes on the same frames), and the estimate keeps
+    its own scale instead of being shrunk by it; with independent errors a gain below one is still divided out."""
+    rng = np.random.default_rng(5)
+    n = 600
+    y = np.repeat(rng.uniform(-3, 3, n // 10), 10)  # fixations at random heights
+    use = np.ones(n, bool)
+    # the right eye's estimate follows the motion itself, the left eye's 0.7 of it (a shrunk regression)
+    est = np.zeros((n, 2, 2))
+    est[:, 0, 1] = y + rng.normal(0, 0.1, n)
+    est[:, 1, 1] = 0.7 * y + rng.normal(0, 0.1, n)
+    for shared_sd, independent_sd in ((1.2, 0.3), (0.0, 1.2)):
+        shared = rng.normal(0, 1.0, n) * shared_sd  # one error per frame, of opposite sign in the two eyes
+        labels = np.zeros((n, 2, 2))
+        labels[:, 0, 1] = y + shared + rng.normal(0, independent_sd, n)
+        labels[:, 1, 1] = y - shared + rng.normal(0, independent_sd, n)
+        labels[..., 0] = est[..., 0] = rng.normal(0, 1, (n, 2))
+        out, gains = IA.instrument_rescale(est, labels, use)
+        if shared_sd:
+            # measured gains var(y) / (var(y) - var(shared)) and 0.7 times that, both above one: not divided out
+            assert gains["right_y"] == pytest.approx(1.0) and gains["left_y"] == pytest.approx(1.0)
+            np.testing.assert_allclose(out[..., 1], est[..., 1])
+        else:
+            assert gains["right_y"] == pytest.approx(1.0, abs=0.1)
+            assert np.polyfit(y, out[:, 1, 1], 1)[0] == pytest.approx(1.0, abs=0.1)  # the shrinkage divided out
