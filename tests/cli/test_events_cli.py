@@ -40,7 +40,8 @@ def test_pixel_table_with_missing_cells(tmp_path, capsys):
     rc = main(["events", str(src), "-o", str(out), "--time-col", "time", "--time-unit", "ms", "--x-col", "gx",
                "--y-col", "gy", "--units", "px", *PX_OPTS, "--detector", "idt"])
     assert rc == 0
-    assert "fixations" in capsys.readouterr().out
+    printed = capsys.readouterr().out
+    assert "fixations" in printed
     ev = pd.read_csv(out / "events.csv")
     for c in ("type", "onset_s", "offset_s", "duration_ms"):
         assert c in ev.columns
@@ -57,6 +58,9 @@ def test_pixel_table_with_missing_cells(tmp_path, capsys):
     side = json.loads((out / "events.json").read_text())
     assert side["detector"] == "idt" and side["input"]["sha256"] == sha256_file(src)
     assert side["input"]["kind"] == "gaze table"
+    # both precision figures, as the sidecar holds them (Holmqvist, Nystrom & Mulvey 2012: RMS-S2S and SD)
+    q = side["quality"]
+    assert f"{q['noise_rms_s2s_deg']:.3g} deg RMS-S2S, {q['noise_sd_deg']:.3g} deg SD within fixations" in printed
     for name in ("events.parquet", "features.csv", "features.parquet"):
         assert (out / name).is_file()
 
