@@ -88,7 +88,15 @@ def test_the_noise_figure_and_the_tier_mean_the_same_at_60_fps(rows):
         assert band[0] <= at_33ms <= band[1], (variant, per_sample, at_33ms)
         if variant == "true_iris":
             assert abs(at_33ms - 1.0) < abs(per_sample - 1.0), (variant, per_sample, at_33ms)
+    # The tier reads the SD within fixations too (rate-free: no step length in it). With the default the error
+    # itself is not the same at the two rates: its SD about the coders' fixations (rms_fix) 1.153 deg at 30 fps,
+    # 0.894 at 60 (seed 0; with the true iris 0.299 / 0.303). The clip's own SD reads it within 5 % (1.125 /
+    # 0.930), so the tiers differ as the error does - coarse at 30 fps (SD above 1.5 / sqrt(2) = 1.06 deg), events
+    # at 60 - where the RMS-S2S alone (1.20 / 0.92 deg over 33 ms) said events at both. Guarded: at each rate the
+    # clip's SD is its error's within 10 %, and the tier is the one its error's SD gives
     iris = rows[(30.0, "default")]["iris_px_measured"]
-    tiers = {fps: precision_tier(rows[(fps, "default")]["noise_rms_s2s_33ms_deg"], iris,
-                                 rows[(fps, "default")]["noise_sd_deg"])[0] for fps in (30.0, 60.0)}
-    assert tiers[30.0] == tiers[60.0], tiers
+    for fps in (30.0, 60.0):
+        r = rows[(fps, "default")]
+        assert r["noise_sd_deg"] == pytest.approx(r["rms_fix_deg"], rel=0.1), (fps, r["noise_sd_deg"], r["rms_fix_deg"])
+        tier = precision_tier(r["noise_rms_s2s_33ms_deg"], iris, r["noise_sd_deg"])[0]
+        assert tier == precision_tier(r["noise_rms_s2s_33ms_deg"], iris, r["rms_fix_deg"])[0], (fps, tier)
