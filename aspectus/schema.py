@@ -285,7 +285,7 @@ FEATURE_COLUMNS: tuple[Column, ...] = (
     Column("valid_frac", "float64", "1", "time covered by samples the input marked valid over recorded time (holes "
            "in the time axis count as not valid)", label="Usable gaze (share)"),
     Column("noise_rms_s2s_deg", "float64", "deg", "precision: RMS of the sample-to-sample distances between "
-           "consecutive valid samples of the same fixation (Holmqvist, Nystrom & Mulvey 2012); the same figure as the "
+           "consecutive valid samples (before any smoothing) of the same fixation (Holmqvist, Nystrom & Mulvey 2012); the same figure as the "
            "clip's noise_rms_s2s_deg in the sidecar and summary", label="Noise, RMS sample to sample"),
     Column("noise_rms_s2s_33ms_deg", "float64", "deg", "precision at a 33 ms step: RMS of the distances between "
            "valid samples of the same fixation 33 ms apart (the nearest whole number of sample intervals, at least "
@@ -293,7 +293,7 @@ FEATURE_COLUMNS: tuple[Column, ...] = (
            "lower at higher rates where the error changes over tens of ms); the clip's value sets the precision "
            "tier, together with noise_sd_deg", label="Noise, RMS over 33 ms steps"),
     Column("noise_sd_deg", "float64", "deg", "precision as SD: sqrt(sd_yaw^2 + sd_pitch^2) of the valid samples "
-           "about their fixation's mean, pooled over the fixations (n - 1 each; Holmqvist, Nystrom & Mulvey 2012); "
+           "(before any smoothing) about their fixation's mean, pooled over the fixations (n - 1 each; Holmqvist, Nystrom & Mulvey 2012); "
            "noise_rms_s2s_deg / sqrt(2) for white noise, higher where the error wanders slowly within a fixation; "
            "filtering lowers it far less than the sample-to-sample figures (a k-sample average of white noise: SD / "
            "sqrt(k), RMS-S2S / k); the clip's value sets the precision tier together with noise_rms_s2s_33ms_deg", label="Noise, SD within fixations"),

@@ -91,7 +91,9 @@ SPECS: dict[str, Spec] = {
                           help="How short gaps are filled.", group="cleanup"),
     "smoothing": Spec("Smoothing", choices=((None, "none"), ("median", "median filter"),
                                             ("savgol", "Savitzky-Golay")), group="cleanup",
-                      help="Optional smoothing before detection (centred, no lag)."),
+                      help="Optional smoothing before detection (centred, no lag). The noise figures and the "
+                      "verdict's precision are read from the samples before it: smoothing does not make a clip "
+                      "read steadier."),
     "smoothing_window_ms": Spec("Smoothing window", "ms", 20, 1000, 10, help="Length of the smoothing filter "
                                 "(used only when smoothing is on).", group="cleanup"),
     "window_s": Spec("Feature window length", "s", 0.5, 3600, 1, 1, help="Features are also computed in fixed "

@@ -61,7 +61,9 @@ class AnalysisParams:
     interpolation : {"steffen", "linear"}, default "steffen"
         Gap filling method.
     smoothing : {None, "median", "savgol"}, default None
-        Optional centred smoothing (lag 0 ms) before detection.
+        Optional centred smoothing (lag 0 ms) before detection. The
+        precision figures (``noise_*``, and with them the precision tier)
+        are read from the samples before it.
     smoothing_window_ms : float, default 100
         Smoothing window, ms.
     merge_gap_ms : float, default 75
@@ -370,7 +372,10 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
                                       noise_rms_s2s_deg=cl.noise_rms_s2s_33ms_deg,
                                       noise_rms_s2s_1sample_deg=cl.noise_rms_s2s_deg, lo_s=cl.lo_s, hi_s=cl.hi_s,
                                       inserted=cl.inserted)
-    features = compute_features(events, t_s=cl.t_s, valid=cl.valid_in, yaw_deg=cl.yaw_deg, pitch_deg=cl.pitch_deg,
+    # the precision figures (noise_*) describe the recording: read from the samples before any smoothing, inside
+    # the fixations found on the smoothed ones (a filter lowers them, the sample-to-sample ones most)
+    raw_yaw, raw_pitch = cl.unsmoothed
+    features = compute_features(events, t_s=cl.t_s, valid=cl.valid_in, yaw_deg=raw_yaw, pitch_deg=raw_pitch,
                                 labels=labels_all, scopes=_scopes(cl, params, segments),
                                 sample_interval_s=cl.sample_interval_s, lo_s=cl.lo_s, hi_s=cl.hi_s,
                                 inserted=cl.inserted)
@@ -395,7 +400,8 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
         "noise_rms_s2s_all_steps_deg": cl.noise_rms_s2s_plain_deg,
         "noise_definitions": {
             "noise_rms_s2s_deg": "RMS of sample-to-sample distances between consecutive valid samples of the same "
-                                 "fixation (Holmqvist, Nystrom & Mulvey 2012); = the clip's feature",
+                                 "fixation (Holmqvist, Nystrom & Mulvey 2012), before any smoothing; = the clip's "
+                                 "feature",
             "noise_rms_s2s_33ms_deg": "RMS of the distances between valid samples of the same fixation 33 ms apart "
                                       "(the nearest whole number of sample intervals): noise_rms_s2s_deg at 30 fps, "
                                       "comparable across frame rates; sets the precision tier with noise_sd_deg; = "

@@ -87,6 +87,10 @@ class CleanedSamples:
         For each input row, its index here.
     holes : int
         Holes found in the time axis (intervals over 1.5 median intervals).
+    yaw_unsmoothed_deg, pitch_unsmoothed_deg : ndarray or None
+        The angles after gap filling, before smoothing (None where no smoothing ran: then ``yaw_deg`` and
+        ``pitch_deg``). The clip's precision figures are read from them (:func:`aspectus.events.analysis.run_analysis`):
+        precision describes the recording, which a smoothing filter would state as steadier than it is.
     """
 
     t_s: np.ndarray
@@ -107,6 +111,15 @@ class CleanedSamples:
     inserted: np.ndarray | None = None
     row_index: np.ndarray | None = None
     holes: int = 0
+    yaw_unsmoothed_deg: np.ndarray | None = None
+    pitch_unsmoothed_deg: np.ndarray | None = None
+
+    @property
+    def unsmoothed(self) -> tuple[np.ndarray, np.ndarray]:
+        """(yaw, pitch) before smoothing, deg: the smoothed ones where no smoothing ran."""
+        if self.yaw_unsmoothed_deg is None or self.pitch_unsmoothed_deg is None:
+            return self.yaw_deg, self.pitch_deg
+        return self.yaw_unsmoothed_deg, self.pitch_unsmoothed_deg
 
     def __post_init__(self):
         n = len(self.t_s)
@@ -400,7 +413,9 @@ def clean_samples(samples: pd.DataFrame, *, gap_fill_max_ms: float = 75.0, inter
     loss = ~usable & ~blink
 
     smooth_info: dict = {"filter": None, "lag_ms": 0.0}
+    unsmoothed = (None, None)
     if smoothing is not None and n >= 3 and dt > 0:
+        unsmoothed = (yaw.copy(), pitch.copy())
         w = _window_samples(smoothing_window_ms, dt)
         yaw = _smooth_runs(yaw, usable, smoothing, w)
         pitch = _smooth_runs(pitch, usable, smoothing, w)
@@ -412,4 +427,5 @@ def clean_samples(samples: pd.DataFrame, *, gap_fill_max_ms: float = 75.0, inter
     return CleanedSamples(t_s=t, yaw_deg=yaw, pitch_deg=pitch, valid_in=valid, usable=usable, filled=filled,
                           blink=blink, loss=loss, sample_interval_s=dt, noise_rms_s2s_deg=noise,
                           noise_rms_s2s_plain_deg=noise_plain, noise_rms_s2s_33ms_deg=noise_33, smoothing=smooth_info, lo_s=lo_s, hi_s=hi_s,
-                          inserted=inserted, row_index=row_index, holes=holes)
+                          inserted=inserted, row_index=row_index, holes=holes,
+                          yaw_unsmoothed_deg=unsmoothed[0], pitch_unsmoothed_deg=unsmoothed[1])
