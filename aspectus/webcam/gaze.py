@@ -251,13 +251,13 @@ class GazeParams:
         bytes a frame on disk). Default False, by a rule written before
         measuring: on the gaze grid's eight small-face cells and fourteen
         held-out rendered clips it lowered the error's SD within the
-        coders' fixations on all 22 (mean 1.33 -> 0.87 deg) and raised
+        coders' fixations on all 22 (mean 1.31 -> 0.85 deg) and raised
         pitch r, but the default detector's fixation kappa against
-        hand-coders rose on 10 and fell on 12 (mean +0.011, 12 px CRF 23
+        hand-coders rose on 10 and fell on 12 (mean +0.009, 12 px CRF 23
         down 0.107, beyond the rule's 0.10) and the saccade-frame step gain
         fell (median 0.75 -> 0.71). The precision tier reads the SD within
         fixations (``noise_sd_deg``) as well as the RMS-S2S, which the
-        smoother lowers some three times as much (docs/notes/
+        smoother lowers over three times as much (docs/notes/
         gaze-measurement.md, "The iris's motion from registration between
         frames"); costs about 3 ms a frame at the
         clip's end. run.json: ``gaze_model.iris_registration``.
