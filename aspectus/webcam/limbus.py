@@ -65,6 +65,15 @@ _R_TOL = 0.15
 _PLANE_PER_IRIS_RADIUS = float(np.sqrt(12.0 ** 2 - 5.85 ** 2) / 5.85)
 #: the iris shape's largest sin(angle off the line of sight) (60 deg: ratio 0.5)
 _MAX_SIN = float(np.sin(np.radians(60.0)))
+#: the edge-profile model's search (:func:`_model_edges`): the step's midpoint within this range of the steepest
+#: point, px (outward positive), on this grid; the step's blur SD, px; the profile read within this half-width
+#: of the steepest point, px (chosen on the target clips a-c of bench/bench_target_error.py: 2.0-3.5 px tried)
+EDGE_SHIFT_PX = (-1.0, 2.0)
+_EDGE_SHIFT_STEP_PX = 0.25
+EDGE_BLUR_PX = (0.6, 0.9, 1.3, 1.8)
+EDGE_WINDOW_PX = 3.5
+#: where a ray's limbus candidate is taken on its grey profile (:func:`limbus_centres_many`, ``edge``)
+EDGE_LOCATORS = ("steepest", "model")
 
 
 def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -179,7 +188,7 @@ def fit_circles(points: np.ndarray, valid: np.ndarray, centre0: np.ndarray, r0: 
 
 def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray, iris_diam_px: np.ndarray,
                    *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
-                   shapes: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+                   shapes: np.ndarray | None = None, edge: str = "steepest") -> tuple[np.ndarray, np.ndarray]:
     """Both eyes' iris centres (right, left) fitted to the limbus.
 
     Rays are cast from the face mesh's iris point every ``360 / n_rays``
@@ -208,14 +217,14 @@ def limbus_centres(image: np.ndarray, points_px: np.ndarray, iris_px: np.ndarray
     Several frames at once: :func:`limbus_centres_many` (the same results).
     """
     return limbus_centres_many([(image, points_px, iris_px, iris_diam_px)], min_points=min_points,
-                               n_rays=n_rays, passes=passes, shapes=None if shapes is None else [shapes])[0]
+                               n_rays=n_rays, passes=passes, shapes=None if shapes is None else [shapes], edge=edge)[0]
 
 
 class _Eye:
     """One eye's region of one frame, prepared for ray casting (ROI px)."""
 
     __slots__ = ("frame", "eye", "origin", "c0", "r", "g", "dist", "radii", "cur", "r_fit", "index", "ray_x", "ray_y",
-                 "rad_step", "warp")
+                 "rad_step", "warp", "pad")
 
     def __init__(self, frame, eye, origin, c0, r, g, dist, radii):
         self.frame, self.eye, self.origin = frame, eye, origin
@@ -225,6 +234,7 @@ class _Eye:
         self.ray_x = self.ray_y = None  # the rays' sample offsets from the centre (the same in every pass)
         self.rad_step = (radii[-1] - radii[0]) / (len(radii) - 1)
         self.warp = None  # (2, 2) map that turns the eye's expected ellipse into a circle (:func:`shape_warp`)
+        self.pad = 0  # samples read beyond each end of ``radii`` (for the edge-profile model, :func:`_model_edges`)
 
 
 def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None:
@@ -277,7 +287,8 @@ def iris_shape(offset_px: np.ndarray, r_px: float) -> tuple[float, float]:
 
 
 def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
-                        diameters: bool = False, shapes=None, eyeball_px=None) -> list[tuple[np.ndarray, ...]]:
+                        diameters: bool = False, shapes=None, eyeball_px=None,
+                        edge: str = "steepest") -> list[tuple[np.ndarray, ...]]:
     """:func:`limbus_centres` of several frames, ``items`` = [(image, points_px, iris_px, iris_diam_px), ...].
 
     With ``diameters`` each frame's tuple also holds both eyes' fitted circle diameters, px (2,), NaN where
@@ -293,6 +304,8 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes:
     most of the time for a few dozen points, is paid once per pass rather
     than once per eye).
     """
+    if edge not in EDGE_LOCATORS:
+        raise ValueError(f"edge = {edge!r} is not one of {EDGE_LOCATORS}")
     cv2 = import_cv2()
     if n_rays not in _RAYS:
         ang = np.linspace(0, 2 * np.pi, n_rays, endpoint=False)
@@ -320,7 +333,7 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes:
     for _ in range(passes + (eyeball_px is not None)):
         if not active:
             break
-        results = _fit_many(cv2, active, cos_a, sin_a, min_points, dist)
+        results = _fit_many(cv2, active, cos_a, sin_a, min_points, dist, edge)
         still = []
         for eye, nxt in zip(active, results):
             if nxt is None or np.hypot(*(nxt[0] - eye.c0)) > eye.r:
@@ -353,8 +366,89 @@ def _distance_maps(eyes: list) -> np.ndarray:
     return dist
 
 
-def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | None = None):
+def _model_edges(profs: np.ndarray, i: np.ndarray, rad_step: np.ndarray, *, shift_px=EDGE_SHIFT_PX,
+                 blur_px=EDGE_BLUR_PX, window_px: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Each ray's step position from a model of its grey profile rather than its steepest point.
+
+    The profile within ``window_px`` of the steepest step is fitted, by least squares, with a blurred step
+    from a flat level (the iris) to a level that changes linearly outwards (the sclera under a shading)::
+
+        p(s) = a + c L(d / w) + e w softplus(d / w),    d = s - s0
+
+    (``L`` the logistic function, ``softplus`` its integral: a step and a ramp that both start at ``s0``,
+    blurred by the same logistic of scale ``w``). The position ``s0`` of the step's midpoint is the candidate.
+    A shading that darkens the sclera towards a lid is a factor on the bright side of the step only, so it
+    moves the steepest point of the blurred step into the iris - by up to a pixel where it leaves the step
+    weak - while the midpoint of the fitted step stays: the ramp is part of the model. The three levels are
+    linear given ``(s0, w)``, which are searched on a grid (``s0`` within ``shift_px`` of the steepest point in
+    0.25 px steps; ``w`` for each blur SD in ``blur_px``, ``w = SD sqrt(3) / pi``, one for the whole eye: the one
+    most of its stronger steps fit best), the best ``s0`` refined by a parabola through the residuals of its
+    grid neighbours. (A linear shading on the iris's side as well, or a blur fitted per ray, made the centres
+    noisier on the rendered target clips: the extra terms trade against the step's position.)
+
+    Parameters
+    ----------
+    profs : (E, R, M) grey profiles along the rays, evenly spaced ``rad_step`` (E,) px apart.
+    i : (E, R) index in ``profs`` of the steepest step's inner sample (the step lies between ``i`` and ``i + 1``).
+
+    Returns
+    -------
+    shift : (E, R) px, the fitted midpoint's distance outward from the steepest step's (``i + 0.5``);
+    fitted : (E, R) bool, False where no dark-to-bright step fits better inside the grid's range (the steepest
+    point is kept there).
+    """
+    E, R, M = profs.shape
+    window_px = EDGE_WINDOW_PX if window_px is None else window_px
+    h = int(np.ceil(window_px / float(np.min(rad_step)))) + 1
+    offs = np.arange(-h, h + 1)
+    pos = (offs[None, :] - 0.5) * rad_step[:, None]  # (E, W) px from the steepest step
+    inwin = np.abs(pos) <= window_px
+    j = np.clip(i[..., None] + offs, 0, M - 1)
+    y = np.take_along_axis(profs, j, axis=2)
+    ok_y = np.isfinite(y) & inwin[:, None, :]
+    y = np.where(ok_y, y, 0.0)
+    s0 = np.arange(shift_px[0], shift_px[1] + 1e-9, _EDGE_SHIFT_STEP_PX)
+    w = np.asarray(blur_px, float) * np.sqrt(3.0) / np.pi
+    d = pos[:, :, None, None] - s0[None, None, :, None]  # (E, W, S, 1)
+    u = d / w  # (E, W, S, G)
+    B = np.stack(np.broadcast_arrays(np.ones_like(u), 1.0 / (1.0 + np.exp(-u)), w * np.logaddexp(0.0, u)), axis=-1)
+    B *= inwin[:, :, None, None, None]
+    A = np.einsum("ewsga,ewsgb->esgab", B, B) + 1e-9 * np.eye(3)
+    by = np.einsum("erw,ewsga->ersga", y, B)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        coef = np.einsum("esgab,ersgb->ersga", np.linalg.pinv(A), by)
+        sse = np.einsum("erw,erw->er", y, y)[..., None, None] - np.einsum("ersga,ersga->ersg", coef, by)
+    n_s, n_g = len(s0), len(w)
+    best = np.argmin(sse.reshape(E, R, -1), axis=2)
+    bs, bg = best // n_g, best % n_g
+    # one blur for the eye: the one most of its stronger steps chose (the picture's blur is the same on every
+    # ray; a blur fitted per ray trades against the step's position where the step is weak)
+    amp0 = np.take_along_axis(coef[..., 1].reshape(E, R, -1), best[..., None], axis=2)[..., 0]
+    strong = amp0 >= np.median(amp0, axis=1, keepdims=True)
+    votes = np.stack([((bg == g_) & strong).sum(axis=1) for g_ in range(n_g)], axis=1)
+    bg = np.broadcast_to(np.argmax(votes, axis=1)[:, None], (E, R)).copy()
+    bs = np.argmin(np.take_along_axis(sse, np.repeat(bg[..., None, None], n_s, axis=2), axis=3)[..., 0], axis=2)
+    best = bs * n_g + bg
+    inner = (bs > 0) & (bs < n_s - 1)
+    gi = bg[..., None, None]
+    line = np.take_along_axis(sse, np.broadcast_to(gi, (E, R, n_s, 1)), axis=3)[..., 0]  # (E, R, S) at the best w
+    a_ = np.take_along_axis(line, np.clip(bs - 1, 0, n_s - 1)[..., None], axis=2)[..., 0]
+    b_ = np.take_along_axis(line, bs[..., None], axis=2)[..., 0]
+    c_ = np.take_along_axis(line, np.clip(bs + 1, 0, n_s - 1)[..., None], axis=2)[..., 0]
+    amp = np.take_along_axis(coef[..., 1].reshape(E, R, -1), best[..., None], axis=2)[..., 0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        den = a_ - 2 * b_ + c_
+        frac = np.where(den > 0, np.clip(0.5 * (a_ - c_) / np.where(den > 0, den, 1.0), -0.5, 0.5), 0.0)
+    shift = s0[bs] + frac * _EDGE_SHIFT_STEP_PX
+    fitted = inner & (amp > 0) & np.all(ok_y == inwin[:, None, :], axis=2) & np.isfinite(shift)
+    return shift, fitted
+
+
+def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | None = None, edge: str = "steepest"):
     """One pass of ray casting from each eye's current centre and circle fitting: [(centre, radius) or None].
+
+    ``edge``: where on its grey profile a ray's candidate lies, ``"steepest"`` (the steepest step, sub-pixel) or
+    ``"model"`` (the midpoint of a blurred step fitted to the profile around it, :func:`_model_edges`).
 
     The fit starts from the eye's current centre and radius (the previous pass's circle), with the radius
     kept within 15 % of the mesh's. ``dist_all`` holds the distance maps of the eyes' batch
@@ -373,14 +467,24 @@ def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | 
     rad_step = np.array([eye.rad_step for eye in eyes])
     shape = np.array([eye.g.shape for eye in eyes])
     rows = np.array([eye.index for eye in eyes])
+    model = edge == "model"
+    if model:
+        # the profiles read EDGE_WINDOW_PX beyond the search range's ends as well, at the same spacing
+        pads = [int(np.ceil(EDGE_WINDOW_PX / eye.rad_step)) + 1 for eye in eyes]
+        profs = np.full((n_eyes, n_rays, m + 2 * max(pads)), np.nan)
     for k, eye in enumerate(eyes):
-        if eye.ray_x is None:
-            eye.ray_x = cos_a[:, None] * eye.radii[None, :]
-            eye.ray_y = sin_a[:, None] * eye.radii[None, :]
+        if eye.ray_x is None or (model and eye.pad != pads[k]):
+            eye.pad = pads[k] if model else 0
+            rad = eye.radii[0] + eye.rad_step * np.arange(-eye.pad, len(eye.radii) + eye.pad)
+            eye.ray_x = cos_a[:, None] * rad[None, :]
+            eye.ray_y = sin_a[:, None] * rad[None, :]
         cx, cy = eye.cur
         px = (cx + eye.ray_x).astype(np.float32)
         py = (cy + eye.ray_y).astype(np.float32)
         prof = cv2.remap(eye.g, px, py, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+        if model:
+            profs[k, :, : prof.shape[1]] = prof
+            prof = prof[:, eye.pad: eye.pad + len(eye.radii)]
         step[k, :, : len(eye.radii) - 1] = prof[:, 1:] - prof[:, :-1]  # outward dark -> bright is positive
     i = np.argmax(step, axis=2)  # (E, rays); the padding (-inf) is never the maximum
     peak = np.take_along_axis(step, i[..., None], axis=2)[..., 0]
@@ -394,7 +498,11 @@ def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | 
         frac = np.where(inner, np.minimum(np.maximum(0.5 * (a_ - c_) / np.where(den == 0, -1, den), -0.5), 0.5), 0.0)
     # the radius at fractional sample index i + frac + 0.5 (samples evenly spaced; clamped at the ends as
     # linear interpolation between them is)
-    x = np.minimum(np.maximum(i + frac + 0.5, 0.0), (n_rad - 1)[:, None])
+    x = i + frac + 0.5
+    if model:
+        shift, fitted = _model_edges(profs, i + np.array(pads)[:, None], rad_step)
+        x = np.where(fitted, i + 0.5 + shift / rad_step[:, None], x)
+    x = np.minimum(np.maximum(x, 0.0), (n_rad - 1)[:, None])
     rr = rad0[:, None] + x * rad_step[:, None]
     qx = centre[:, :1] + cos_a[None, :] * rr
     qy = centre[:, 1:] + sin_a[None, :] * rr
