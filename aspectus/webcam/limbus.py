@@ -70,7 +70,7 @@ _MAX_SIN = float(np.sin(np.radians(60.0)))
 #: of the steepest point, px (chosen on the target clips a-c of bench/bench_target_error.py: 2.0-3.5 px tried)
 EDGE_SHIFT_PX = (-1.0, 2.0)
 _EDGE_SHIFT_STEP_PX = 0.25
-EDGE_BLUR_PX = (0.6, 0.9, 1.3, 1.8)
+EDGE_BLUR_PX = (0.5, 0.7, 0.9, 1.1, 1.3, 1.6, 2.0)
 EDGE_WINDOW_PX = 3.5
 #: where a ray's limbus candidate is taken on its grey profile (:func:`limbus_centres_many`, ``edge``)
 EDGE_LOCATORS = ("steepest", "model")
@@ -373,15 +373,15 @@ def _model_edges(profs: np.ndarray, i: np.ndarray, rad_step: np.ndarray, *, shif
     The profile within ``window_px`` of the steepest step is fitted, by least squares, with a blurred step
     from a flat level (the iris) to a level that changes linearly outwards (the sclera under a shading)::
 
-        p(s) = a + c L(d / w) + e w softplus(d / w),    d = s - s0
+        p(s) = a + c Phi(u) + e w (u Phi(u) + phi(u)),    u = (s - s0) / w
 
-    (``L`` the logistic function, ``softplus`` its integral: a step and a ramp that both start at ``s0``,
-    blurred by the same logistic of scale ``w``). The position ``s0`` of the step's midpoint is the candidate.
+    (``Phi`` and ``phi`` the normal distribution and density: a step and a ramp that both start at ``s0``,
+    blurred by the same Gaussian of SD ``w``). The position ``s0`` of the step's midpoint is the candidate.
     A shading that darkens the sclera towards a lid is a factor on the bright side of the step only, so it
     moves the steepest point of the blurred step into the iris - by up to a pixel where it leaves the step
     weak - while the midpoint of the fitted step stays: the ramp is part of the model. The three levels are
     linear given ``(s0, w)``, which are searched on a grid (``s0`` within ``shift_px`` of the steepest point in
-    0.25 px steps; ``w`` for each blur SD in ``blur_px``, ``w = SD sqrt(3) / pi``, one for the whole eye: the one
+    0.25 px steps; ``w`` each blur SD in ``blur_px``, one for the whole eye: the one
     most of its stronger steps fit best), the best ``s0`` refined by a parabola through the residuals of its
     grid neighbours. (A linear shading on the iris's side as well, or a blur fitted per ray, made the centres
     noisier on the rendered target clips: the extra terms trade against the step's position.)
@@ -408,10 +408,14 @@ def _model_edges(profs: np.ndarray, i: np.ndarray, rad_step: np.ndarray, *, shif
     ok_y = np.isfinite(y) & inwin[:, None, :]
     y = np.where(ok_y, y, 0.0)
     s0 = np.arange(shift_px[0], shift_px[1] + 1e-9, _EDGE_SHIFT_STEP_PX)
-    w = np.asarray(blur_px, float) * np.sqrt(3.0) / np.pi
+    from scipy.special import ndtr
+
+    w = np.asarray(blur_px, float)
     d = pos[:, :, None, None] - s0[None, None, :, None]  # (E, W, S, 1)
     u = d / w  # (E, W, S, G)
-    B = np.stack(np.broadcast_arrays(np.ones_like(u), 1.0 / (1.0 + np.exp(-u)), w * np.logaddexp(0.0, u)), axis=-1)
+    Phi = ndtr(u)
+    ramp = w * (u * Phi + np.exp(-0.5 * u * u) / np.sqrt(2.0 * np.pi))
+    B = np.stack(np.broadcast_arrays(np.ones_like(u), Phi, ramp), axis=-1)
     B *= inwin[:, :, None, None, None]
     A = np.einsum("ewsga,ewsgb->esgab", B, B) + 1e-9 * np.eye(3)
     by = np.einsum("erw,ewsga->ersga", y, B)
