@@ -33,6 +33,8 @@ it); ``TARGET_BENCH_ROTATION=skin`` takes the head rotation from skin points (``
 :data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`; the pipeline's default for these faces is ``below``);
 ``TARGET_BENCH_PNP_POINTS=NAME`` solves the face mesh's PnP on a subset of its rigid points (:data:`PNP_SUBSETS`:
 the points' picture motion with the gaze measured on a-c, ``python bench/bench_target_error.py --points``);
+``TARGET_BENCH_EDGE=model`` takes the limbus candidates from the edge-profile model instead of the steepest step
+(:func:`aspectus.webcam.limbus.limbus_centres_many`, ``edge``; also in ``--limbus`` and in bench/bench_iris_shape.py);
 ``TARGET_BENCH_ROTATION=still`` replaces the face mesh's PnP rotation in every frame by its mean over the clip
 (the rendered head is still, so this is the true rotation up to a constant; the translation is still fitted to
 the eye anchors under it): what is left of (b) then comes from the anchors.
@@ -55,6 +57,7 @@ Not the test clip (tests/targets/test_rendered_targets.py: schedule seed 1, rend
 """
 from __future__ import annotations
 
+import functools
 import json
 import os
 import pickle
@@ -67,6 +70,13 @@ import pandas as pd
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "bench"))
+
+#: where the limbus fit takes each ray's candidate (``TARGET_BENCH_EDGE``; :data:`aspectus.webcam.limbus.EDGE_LOCATORS`)
+EDGE = os.environ.get("TARGET_BENCH_EDGE", "steepest")
+if EDGE != "steepest":
+    import aspectus.webcam.frame_geometry as _FG
+
+    _FG.limbus_centres_many = functools.partial(_FG.limbus_centres_many, edge=EDGE)
 
 #: target clips: (face, schedule seed, render seed); 8 still dots of 1.2 s, no sweep, 1280x720, head still;
 #: a-c the dev clips, d and e held out (measured only to check what was chosen on a-c)
@@ -276,7 +286,8 @@ def limbus_candidates(name: str) -> list[dict]:
     tr, sched = clip["truth"], clip["schedule"]
     ts = tr["t_s"].to_numpy() - tr["t_s"].to_numpy()[0] - clip["start_s"]
     blink = tr["blink"].to_numpy(bool)
-    many, fit, fit_many = L.limbus_centres_many, L.fit_circles, L._fit_many
+    many, fit, fit_many = functools.partial(L.limbus_centres_many, edge=EDGE), L.fit_circles, L._fit_many
+    in_geometry = FG.limbus_centres_many
     seen: dict = {}
 
     def spy_many(items, **k):
@@ -348,7 +359,7 @@ def limbus_candidates(name: str) -> list[dict]:
                             "n_above": round(float(up.sum()) / len(a["fit"]), 1),
                             "n_below": round(float(low.sum()) / len(a["fit"]), 1)})
     finally:
-        FG.limbus_centres_many = many
+        FG.limbus_centres_many = in_geometry
     g = per_dot(tr[["yaw_deg", "pitch_deg"]].to_numpy(float), ts + clip["start_s"], sched, clip["start_s"],
                 ~blink)
     for row in out:

@@ -39,6 +39,15 @@ deg by 0.07 px. Given the eyeballs' picture positions
 the ellipse, and its centre and major radius are fitted as a circle to the
 candidates stretched along the minor axis (:func:`shape_warp`), twice. It is
 an option (``GazeParams.iris_shape``): docs/notes/gaze-measurement.md.
+
+Where on a ray the candidate lies: by default at the steepest dark-to-bright
+step. A shading that darkens the sclera towards a lid moves the steepest
+point of the blurred step into the iris; ``limbus_centres_many(...,
+edge="model")`` takes instead the midpoint of a blurred step with a shading
+ramp fitted to the ray's profile (:func:`_model_edges`). Measured on rendered
+clips it lowers the noise on blurred, compressed eyes but also the vertical
+gain, and it is not the pipeline's (docs/notes/target-check.md, "The limbus
+candidate from a model of the edge profile").
 """
 from __future__ import annotations
 
@@ -479,7 +488,7 @@ def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | 
     for k, eye in enumerate(eyes):
         if eye.ray_x is None or (model and eye.pad != pads[k]):
             eye.pad = pads[k] if model else 0
-            rad = eye.radii[0] + eye.rad_step * np.arange(-eye.pad, len(eye.radii) + eye.pad)
+            rad = eye.radii if not eye.pad else eye.radii[0] + eye.rad_step * np.arange(-eye.pad, len(eye.radii) + eye.pad)
             eye.ray_x = cos_a[:, None] * rad[None, :]
             eye.ray_y = sin_a[:, None] * rad[None, :]
         cx, cy = eye.cur
