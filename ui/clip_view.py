@@ -15,9 +15,10 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from PySide6.QtCore import QObject, Qt, QTimer, Signal
+from PySide6.QtCore import QEvent, QObject, QSize, Qt, QTimer, Signal
 from PySide6.QtGui import QImage, QPixmap
-from PySide6.QtWidgets import (QCheckBox, QGridLayout, QHBoxLayout, QLabel, QProgressBar, QPushButton, QSizePolicy,
+from PySide6.QtWidgets import (QCheckBox, QFrame, QGridLayout, QHBoxLayout, QLabel, QProgressBar, QPushButton,
+                               QScrollArea, QSizePolicy,
                                QSlider, QStyle, QToolButton, QVBoxLayout, QWidget)
 
 from aspectus.webcam import overlay
@@ -30,19 +31,27 @@ _SEEK_AHEAD_S = 1.5
 
 
 
-#: what the noise figure of the quality panel is (the verdict's figure)
-NOISE_TIP = ("Precision: RMS of the angular distances between samples of the same fixation 33 ms apart - at 30 fps "
-             "the sample-to-sample RMS (RMS-S2S; Holmqvist, Nyström & Mulvey 2012) itself. The figure the verdict "
-             "and the precision tier read: per sample the RMS-S2S reads lower at higher frame rates although the "
-             "eyes are the same")
+#: what the noise figure of the quality panel is (the verdict's figure); the tiers' limits follow (:func:`_limits`)
+NOISE_TIP = ("Noise from sample to sample, in degrees of visual angle (lower is steadier): how far the gaze estimate "
+             "moves from one frame to the next while the eyes rest on one spot, as the root mean square of those "
+             "steps inside fixations (RMS-S2S; Holmqvist, Nyström & Mulvey 2012). Read over 33 ms steps - at 30 fps "
+             "each step from one frame to the next - so that it means the same at any frame rate: per frame the "
+             "RMS-S2S reads lower at higher frame rates although the eyes are the same")
 
 
 #: what the SD figure of the quality panel is (the tier's second figure)
-SD_TIP = ("Precision as SD: how far the gaze samples lie from their fixation's mean, sqrt(SD yaw² + SD pitch²), "
-          "pooled over the fixations (Holmqvist, Nyström & Mulvey 2012). For unfiltered white noise it is the "
-          "RMS-S2S / √2; a slow wander of the gaze raises it, and a filter lowers it far less than the RMS-S2S. The "
-          "verdict and the precision tier read both: a clip earns a tier only if its SD is within the tier's "
-          "noise limit / √2 as well")
+SD_TIP = ("SD within fixations, in degrees of visual angle (lower is steadier): how widely the gaze samples of one "
+          "fixation scatter about its centre, sqrt(SD yaw² + SD pitch²) pooled over the fixations (Holmqvist, "
+          "Nyström & Mulvey 2012). For a plain, unsmoothed noise it is the sample-to-sample noise / √2; a gaze that "
+          "wanders slowly reads higher, and smoothing lowers it far less than the sample-to-sample figure, so a "
+          "smoothed gaze is not taken for a steady one")
+
+
+def _limits() -> str:
+    """The verdict's limits on the two figures, from the library (one rule in one place)."""
+    from aspectus.webcam.pipeline import precision_limits_text
+
+    return ". The verdict reads both figures and the iris size. " + precision_limits_text()
 
 
 def shown_noise_deg(summary: dict):
@@ -59,7 +68,8 @@ def noise_tooltip(summary: dict) -> str:
         differs = abs(float(shown) - float(per_sample)) >= 0.005
     except (TypeError, ValueError):
         differs = False
-    return NOISE_TIP + (f". Per sample (run.json's noise_rms_s2s_deg): {float(per_sample):.2f}°" if differs else "")
+    return (NOISE_TIP + (f". Per sample (run.json's noise_rms_s2s_deg): {float(per_sample):.2f}°" if differs else "")
+            + _limits())
 
 
 class FrameLoader(QObject):
@@ -204,6 +214,43 @@ class FrameLoader(QObject):
             finder.close()
 
 
+class _TextPane(QScrollArea):
+    """The texts under the video (quality figures, verdict, known-target check) at their full wrapped height where
+    the pane has room, scrolled where it has not: wrapped labels have a height for a width, which a splitter does not
+    ask for, so without it the texts were drawn over the video and its controls when the pane was short."""
+
+    def __init__(self, inner: QWidget, parent=None):
+        super().__init__(parent)
+        self.setWidget(inner)
+        self.setWidgetResizable(True)
+        self.setFrameShape(QFrame.NoFrame)
+        self.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
+        self.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Maximum)
+        inner.installEventFilter(self)
+
+    def content_height(self) -> int:
+        inner = self.widget()
+        width = self.viewport().width()
+        return inner.heightForWidth(width) if inner.hasHeightForWidth() else inner.sizeHint().height()
+
+    def sizeHint(self) -> QSize:  # noqa: N802 - Qt override
+        return QSize(super().sizeHint().width(), self.content_height())
+
+    def minimumSizeHint(self) -> QSize:  # noqa: N802 - Qt override
+        # at least the quality figures' two rows; the rest scrolls
+        return QSize(0, min(self.content_height(), 3 * self.fontMetrics().height()))
+
+    def eventFilter(self, obj, ev):  # noqa: N802 - Qt override
+        if obj is self.widget() and ev.type() == QEvent.LayoutRequest:
+            self.updateGeometry()
+        return super().eventFilter(obj, ev)
+
+    def resizeEvent(self, ev):  # noqa: N802 - Qt override
+        super().resizeEvent(ev)
+        if ev.size().width() != ev.oldSize().width():
+            self.updateGeometry()  # the wrapped texts' height follows the width
+
+
 class ClipView(QWidget):
     """The video of one clip with overlay, slider, play/pause/step and quality figures.
 
@@ -327,31 +374,46 @@ class ClipView(QWidget):
         check_row.addWidget(self.check_bar)
         check_row.addWidget(self.check_cancel_btn)
         check_row.addWidget(self.check_status, 1)
+        # two rows: how much of the clip is there (face, usable gaze, blinks), then how steady the gaze is (the two
+        # precision figures the verdict reads, named as the verdict names them) and how far away the face is
         grid = QGridLayout()
         grid.setContentsMargins(0, 0, 0, 0)
-        for i, (name, lab, tip) in enumerate((
-                ("Face found", self.q_face, "Share of frames in which a face was tracked"),
-                ("Blinks", self.q_blinks, "Number of blinks detected"),
-                ("Noise (RMS-S2S)", self.q_noise, NOISE_TIP),
-                ("Noise (SD)", self.q_sd, SD_TIP),
-                ("Distance", self.q_dist, "Median eye-to-camera distance from the iris size"),
-                ("Valid gaze", self.q_valid, "Share of samples with a usable gaze estimate"))):
-            cap = QLabel(name + ":")
-            cap.setToolTip(tip)
-            cap.setStyleSheet("color: #555;")
-            grid.addWidget(cap, 0, 2 * i)
-            grid.addWidget(lab, 0, 2 * i + 1)
-        grid.setColumnStretch(12, 1)
+        grid.setHorizontalSpacing(6)
+        cells = ((("Face found", self.q_face, "Share of frames in which a face was tracked"),
+                  ("Valid gaze", self.q_valid, "Share of the recorded time with a usable gaze estimate"),
+                  ("Blinks", self.q_blinks, "Number of blinks detected")),
+                 (("Noise, sample to sample", self.q_noise, NOISE_TIP + _limits()),
+                  ("SD within fixations", self.q_sd, SD_TIP + _limits()),
+                  ("Distance", self.q_dist, "Median eye-to-camera distance, from the iris size")))
+        self.quality_captions: dict[str, QLabel] = {}
+        for row, items in enumerate(cells):
+            for i, (name, lab, tip) in enumerate(items):
+                cap = QLabel(name + ":")
+                cap.setToolTip(tip)
+                cap.setStyleSheet("color: #555;")
+                self.quality_captions[name] = cap
+                grid.addWidget(cap, row, 2 * i)
+                grid.addWidget(lab, row, 2 * i + 1)
+                lab.setMinimumWidth(lab.fontMetrics().horizontalAdvance("100 %"))
+                if i < len(items) - 1:
+                    grid.setColumnMinimumWidth(2 * i + 1, lab.fontMetrics().horizontalAdvance("0000 mm") + 12)
+        grid.setColumnStretch(6, 1)
+
+        texts = QWidget()
+        tl = QVBoxLayout(texts)
+        tl.setContentsMargins(0, 0, 0, 0)
+        tl.addLayout(grid)
+        tl.addWidget(self.verdict)
+        tl.addWidget(self.iris_info)
+        tl.addWidget(self.targets_info)
+        tl.addLayout(check_row)
+        self.text_pane = _TextPane(texts)
 
         lay = QVBoxLayout(self)
         lay.setContentsMargins(4, 4, 4, 4)
         lay.addWidget(self.picture, 1)
         lay.addLayout(controls)
-        lay.addLayout(grid)
-        lay.addWidget(self.verdict)
-        lay.addWidget(self.iris_info)
-        lay.addWidget(self.targets_info)
-        lay.addLayout(check_row)
+        lay.addWidget(self.text_pane)
 
         self._timer = QTimer(self)
         self._timer.timeout.connect(self._tick)
@@ -439,7 +501,7 @@ class ClipView(QWidget):
         self.q_noise.setText(fmt(shown_noise_deg(s), "°", digits=2))
         self.q_noise.setToolTip(noise_tooltip(s))
         self.q_sd.setText(fmt(s.get("noise_sd_deg"), "°", digits=2))  # "–" for runs from before it was recorded
-        self.q_sd.setToolTip(SD_TIP)
+        self.q_sd.setToolTip(SD_TIP + _limits())
         self.q_dist.setText(fmt(s.get("median_distance_mm"), "mm", digits=0))
         self.q_valid.setText(fmt(s.get("valid_frac"), pct=True))
         verdict = s.get("verdict")

@@ -46,10 +46,14 @@ why when you select it; the others go on.</p>
 <p>The <b>Clip and gaze trace</b> tab shows the video with the tracked face (blurred unless you tick
 <i>Show faces unblurred</i>), a verdict on the clip's quality, and the gaze over time: coloured bands are
 fixations; blinks and lost data are marked. Click the trace to jump the video there. The clip list's
-<i>Face</i> column is the share of frames in which the face was found; <i>Usable</i> is the verdict. The
-verdict's precision reads two figures: the noise from sample to sample (RMS-S2S) and the SD of the samples about
-each fixation's mean; a clip is trusted for fixation counts only if both are small, so a gaze signal that was
-smoothed, whose steps are small while it still wanders, is not taken for a steady one.</p>
+<i>Face</i> column is the share of frames in which the face was found; <i>Usable</i> is the verdict.</p>
+<p>Under the video, <i>Noise, sample to sample</i> and <i>SD within fixations</i> are the clip's gaze precision,
+in degrees of visual angle (lower is steadier): how far the gaze estimate moves from one frame to the next while
+the eyes rest on one spot (RMS-S2S), and how widely the samples of one fixation scatter about its centre (SD).
+The verdict reads both, with the size of the irises in the picture, and says in words which features of the clip
+can be trusted and, where fixation counts and durations cannot, which figure is too high or too small.
+{precision_limits} Both figures are read because a smoothed gaze signal moves little from frame to frame while
+it still wanders. Hover over a figure for its definition.</p>
 
 <h3>5. Parameters</h3>
 <p>The <b>Parameters</b> panel on the right starts with the defaults, which suit webcam clips. Hover over a
@@ -81,6 +85,13 @@ opens it.</li>
 """
 
 
+def guide_html() -> str:
+    """:data:`GUIDE_HTML` with the precision tiers' limits filled in from the library (one rule in one place)."""
+    from aspectus.webcam.pipeline import precision_limits_text
+
+    return GUIDE_HTML.replace("{precision_limits}", precision_limits_text())
+
+
 class GuideDialog(QDialog):
     """A non-modal window with the user guide."""
 
@@ -89,7 +100,7 @@ class GuideDialog(QDialog):
         self.setWindowTitle("aspectus user guide")
         self.browser = QTextBrowser()
         self.browser.setOpenExternalLinks(False)
-        self.browser.setHtml(GUIDE_HTML)
+        self.browser.setHtml(guide_html())
         buttons = QDialogButtonBox(QDialogButtonBox.Close)
         buttons.rejected.connect(self.close)
         lay = QVBoxLayout(self)

@@ -251,8 +251,8 @@ def run(args) -> int:
         # the app shows them
         print(f"{clip.name}: {s['frames']} frame{'' if s['frames'] == 1 else 's'} ({s['duration_s']:.1f} s), face found {s['face_found_frac']:.0%}, "
               f"{s['blink_count']} blinks, {s['fixation_count']} fixations, median distance "
-              f"{_num(s['median_distance_mm'], '.0f', 'mm')}, noise {_num(s.get('noise_rms_s2s_33ms_deg'), '.2f', 'deg')}, "
-              f"SD {_num(s.get('noise_sd_deg'), '.2f', 'deg')} -> {res.out_dir}")
+              f"{_num(s['median_distance_mm'], '.0f', 'mm')}, noise {_num(s.get('noise_rms_s2s_33ms_deg'), '.2f', 'deg')} "
+              f"sample to sample, SD {_num(s.get('noise_sd_deg'), '.2f', 'deg')} within fixations -> {res.out_dir}")
         print(f"  {s['verdict']}")
         if res.reused_samples:
             print("  (gaze samples reused from the earlier run of this clip with the same settings; "

@@ -700,7 +700,49 @@ def precision_tier(noise_deg, iris_px, noise_sd_deg) -> tuple[str, list[str]]:
     return PRECISION_TIERS[-1][0], list(PRECISION_TIERS[-1][3])
 
 
+def tier_needs(tier: str) -> str:
+    """What ``tier`` needs of a clip, in plain words with the limits of :data:`PRECISION_TIERS` (for help texts):
+    e.g. "a noise of at most 1.5 deg from sample to sample, an SD within fixations of at most 1.06 deg and irises
+    at least 12 px across"."""
+    _, max_noise, min_iris, _ = next(t for t in PRECISION_TIERS if t[0] == tier)
+    return (f"a noise of at most {max_noise:g} deg from sample to sample, an SD within fixations of at most "
+            f"{tier_sd_limit_deg(max_noise):.2f} deg and irises at least {min_iris:g} px across")
+
+
+def precision_limits_text() -> str:
+    """The precision tiers' limits in one sentence for help texts (the guide, the quality panel's tooltips)."""
+    return ("Fixation counts and durations need " + tier_needs("events") + "; gaze direction averaged over a "
+            "second or more needs " + tier_needs("coarse") + ".")
+
+
+def _tier_shortfall(summary: dict, tier: str) -> list[str]:
+    """In plain words, which of the clip's figures miss ``tier``'s limits (:data:`PRECISION_TIERS`,
+    :func:`tier_sd_limit_deg`): what the verdict gives as the reason a better tier was not reached."""
+    _, max_noise, min_iris, _ = next(t for t in PRECISION_TIERS if t[0] == tier)
+    noise, sd, iris = (summary.get(k) for k in ("noise_rms_s2s_33ms_deg", "noise_sd_deg", "median_iris_px"))
+    sd_limit = tier_sd_limit_deg(max_noise)
+    out = []
+    if noise is None or sd is None or not (np.isfinite(noise) and np.isfinite(sd)):
+        out.append("the gaze noise could not be measured (too few steady stretches of usable gaze)")
+    else:
+        if noise > max_noise:
+            out.append(f"the gaze moves {noise:.2f} deg from one sample to the next (RMS-S2S; at most "
+                       f"{max_noise:g} deg needed)")
+        if sd > sd_limit:
+            out.append(f"the samples spread {sd:.2f} deg about each fixation's centre (SD; at most {sd_limit:.2f} deg "
+                       "needed)")
+    if iris is None or not np.isfinite(iris):
+        out.append("no iris was measured")
+    elif iris < min_iris:
+        shown = f"{iris:.0f}" if round(iris) < min_iris else f"{iris:.1f}"
+        out.append(f"irises about {shown} px across (at least {min_iris:g} px needed; the face is small in the "
+                   "picture)")
+    return out
+
+
 def _trust_sentence(summary: dict) -> str:
+    """Which features the clip's precision tier supports, and why not more, in a sentence a reader without the
+    measures' definitions can follow (the figures' limits: :data:`PRECISION_TIERS`)."""
     tier, features = summary["precision_tier"], summary["trusted_features"]
     iris = summary.get("median_iris_px")
     size = f"irises about {iris:.0f} px across" if iris is not None and np.isfinite(iris) else "iris size unknown"
@@ -709,10 +751,10 @@ def _trust_sentence(summary: dict) -> str:
         at = f"at {rate:.0f} frames a second" if rate is not None and np.isfinite(rate) else "at webcam frame rates"
         return (f" Gaze precision ({size}) supports fixation and saccade measures ({at} their "
                 "counts and durations are approximate).")
-    if tier == "coarse":
-        return (f" Gaze precision ({size}) is too low for fixation counts and durations; trust only: "
-                + "; ".join(features) + ".")
-    return f" Gaze precision ({size}) supports only: " + "; ".join(features) + "."
+    better, what = (("events", "fixation counts and durations") if tier == "coarse"
+                    else ("coarse", "fixation measures, and even for gaze direction averaged over seconds"))
+    return (f" Gaze precision is too low for {what}: " + "; ".join(_tier_shortfall(summary, better))
+            + ". Trust only: " + "; ".join(features) + ".")
 
 
 def _verdict(summary: dict) -> tuple[bool, str]:

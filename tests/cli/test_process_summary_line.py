@@ -25,6 +25,8 @@ def test_the_printed_noise_is_the_verdicts(monkeypatch, tmp_path, capsys):
     line = capsys.readouterr().out.splitlines()[0]
     assert "noise 0.57 deg" in line and "0.41" not in line, line
     assert "SD 0.48 deg" in line, line  # the tier's second figure (SD within fixations) beside it
+    # each figure says what it measures, so the two are not read as one noise and its SD
+    assert "noise 0.57 deg sample to sample, SD 0.48 deg within fixations" in line, line
 
 
 def test_a_clip_without_the_figure_prints_no_number(monkeypatch, tmp_path, capsys):

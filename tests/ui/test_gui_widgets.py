@@ -182,3 +182,68 @@ def test_clip_view_noise_is_the_figure_the_verdict_reads(qtbot):
     assert "√2" in view.q_sd.toolTip()
     view.set_summary({k: v for k, v in s.items() if k != "noise_sd_deg"})
     assert view.q_sd.text() == "–"
+
+
+def test_clip_view_texts_never_cover_the_video_or_its_controls(qtbot):
+    """With a long verdict, the iris line and a known-target check in a short pane (the clip view's share of a
+    1366x768 window after a check), the texts under the video scroll instead of being drawn over the video and its
+    controls (as they were: wrapped labels need a height for their width, which the splitter never asked for)."""
+    from PySide6.QtWidgets import QApplication
+
+    from ui.clip_view import ClipView
+
+    view = ClipView()
+    qtbot.addWidget(view)
+    view.resize(640, 400)
+    view.show()
+    view.set_summary({"face_found_frac": 1.0, "blink_count": 4, "noise_rms_s2s_33ms_deg": 1.16, "noise_sd_deg": 1.12,
+                      "median_distance_mm": 613.0, "valid_frac": 0.95, "usable": True,
+                      "verdict": "Usable: " + "a long verdict that wraps over several lines. " * 12})
+    view.set_iris_estimate("Iris height from: the eye's appearance (chosen automatically: the iris is 16.1 px across, "
+                           "below 17.3 px).")
+    view.targets_info.setText("<b>Known-target check:</b> " + "<br>".join(f"line {i} of the check" for i in range(6)))
+    view.targets_info.show()
+    for _ in range(3):
+        QApplication.processEvents()
+    pic, slider, pane = view.picture.geometry(), view.slider.geometry(), view.text_pane.geometry()
+    assert pic.height() >= view.picture.minimumHeight()
+    assert pic.bottom() < slider.top() and slider.bottom() < pane.top(), (pic, slider, pane)
+    assert pane.bottom() <= view.contentsRect().bottom() + 1
+    assert view.text_pane.verticalScrollBar().maximum() > 0  # the rest is reached by scrolling
+    # the two precision figures are named as the verdict names them, and each caption fits
+    for name in ("Noise, sample to sample", "SD within fixations"):
+        cap = view.quality_captions[name]
+        assert cap.fontMetrics().horizontalAdvance(cap.text()) <= cap.contentsRect().width() + 1, name
+    # with room to spare, nothing scrolls
+    view.set_target_check(None)
+    view.set_summary({"verdict": "Usable: short.", "usable": True})
+    view.resize(640, 700)
+    for _ in range(3):
+        QApplication.processEvents()
+    assert view.text_pane.verticalScrollBar().maximum() == 0
+
+
+def test_guide_and_tooltips_explain_the_two_precision_figures_with_the_verdicts_limits(qtbot):
+    """The user guide and the quality panel's tooltips name the two figures as the panel does, in degrees, and give
+    the limits the verdict applies, read from the library's tiers (PRECISION_TIERS), not copied."""
+    from aspectus.webcam.pipeline import PRECISION_TIERS, tier_sd_limit_deg
+    from ui.clip_view import ClipView
+    from ui.guide import GuideDialog
+
+    g = GuideDialog()
+    qtbot.addWidget(g)
+    text = " ".join(g.browser.toPlainText().split())
+    view = ClipView()
+    qtbot.addWidget(view)
+    view.set_summary({"noise_rms_s2s_33ms_deg": 1.16, "noise_sd_deg": 1.12})
+    tips = [" ".join(t.split()) for t in (view.q_noise.toolTip(), view.q_sd.toolTip())]
+    assert "{" not in text
+    for name in ("Noise, sample to sample", "SD within fixations"):
+        assert name in text and name in view.quality_captions
+    assert "degrees of visual angle" in text and all("degrees of visual angle" in t for t in tips)
+    for tier, max_noise, min_iris, _ in PRECISION_TIERS[:2]:
+        for words in (f"at most {max_noise:g} deg from sample to sample",
+                      f"SD within fixations of at most {tier_sd_limit_deg(max_noise):.2f} deg",
+                      f"irises at least {min_iris:g} px across"):
+            assert words in text, (tier, words)
+            assert all(words in t for t in tips), (tier, words)

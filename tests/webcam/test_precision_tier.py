@@ -67,6 +67,38 @@ def test_summary_and_verdict_carry_the_tier(noise, iris, tier, words):
     assert f"SD {s['noise_sd_deg']:.2f} deg within fixations" in s["verdict"]
 
 
+@pytest.mark.parametrize("noise, sd, iris, tier, named, not_named", [
+    # the SD alone above the events tier's limit (1.5 / sqrt(2) = 1.06 deg), iris large enough: the iris is not
+    # given as a reason
+    (1.16, 1.12, 23.0, "coarse", ["spread 1.12 deg about each fixation's centre (SD; at most 1.06 deg needed)"],
+     ["irises about", "from one sample to the next"]),
+    # the RMS-S2S alone above 1.5 deg
+    (1.70, 1.00, 20.0, "coarse", ["moves 1.70 deg from one sample to the next (RMS-S2S; at most 1.5 deg needed)"],
+     ["about each fixation's centre", "irises about"]),
+    # the iris alone below 12 px
+    (0.80, 0.55, 9.0, "coarse", ["irises about 9 px across (at least 12 px needed"], ["RMS-S2S;", "(SD;"]),
+    # beyond the coarse tier: its limits (3.0 deg, 2.12 deg, 8 px) are the ones named
+    (3.40, 2.30, 20.0, "minimal", ["at most 3 deg needed", "at most 2.12 deg needed"], ["1.5 deg", "irises about"]),
+    (0.80, 0.55, 7.5, "minimal", ["irises about 7.5 px across (at least 8 px needed"], ["RMS-S2S;"]),
+])
+def test_the_verdict_says_which_figure_misses_the_better_tier(noise, sd, iris, tier, named, not_named):
+    """A reader is told why fixation measures (or gaze direction) cannot be trusted: the figure that misses the
+    better tier's limit, with the limit (PRECISION_TIERS, tier_sd_limit_deg), and not a figure that meets it."""
+    from types import SimpleNamespace
+
+    smp = _samples(0.3, iris)
+    q = {"valid_frac": 1.0, "noise_rms_s2s_deg": noise, "noise_rms_s2s_33ms_deg": noise, "noise_sd_deg": sd}
+    s = summarise(smp, SimpleNamespace(events=pd.DataFrame({"type": []}), quality=q), {})
+    assert s["precision_tier"] == tier
+    tail = s["verdict"].split("Gaze precision is too low for ", 1)[1]
+    assert tail.startswith("fixation counts and durations:" if tier == "coarse" else "fixation measures, and even")
+    for words in named:
+        assert words in tail, (words, tail)
+    for words in not_named:
+        assert words not in tail, (words, tail)
+    assert tail.endswith("Trust only: " + "; ".join(s["trusted_features"]) + ".")
+
+
 @pytest.mark.parametrize("rate", [30, 60])
 def test_the_verdict_names_the_clips_own_frame_rate(rate):
     from aspectus.events.analysis import run_analysis
