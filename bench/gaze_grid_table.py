@@ -14,8 +14,8 @@ import sys
 
 import pandas as pd
 
-HEADER = ["| iris | picture, compression, face, trial | setting | rms_s2s deg | noise deg | yaw r / gain "
-          "| pitch r / gain | kappa (truth) |", "| --- | --- | --- | --- | --- | --- | --- | --- |"]
+HEADER = ["| iris | picture, compression, face, trial | setting | rms_s2s deg | in fixations deg | noise / SD deg "
+          "| yaw r / gain | pitch r / gain | kappa (truth) |", "| --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
 
 
 def describe(r) -> str:
@@ -38,6 +38,12 @@ def describe(r) -> str:
     return ", ".join(parts)
 
 
+def _sd(r) -> str:
+    """The clip's own SD within its fixations (``noise_sd_deg``); "-" in grids measured before it existed."""
+    v = r.get("noise_sd_deg", float("nan"))
+    return "-" if pd.isna(v) else f"{float(v):.2f}"
+
+
 def lines(df: pd.DataFrame) -> list[str]:
     out = list(HEADER)
     for _, cell in df.groupby("label", sort=False):
@@ -47,8 +53,8 @@ def lines(df: pd.DataFrame) -> list[str]:
         for name, r in d.iterrows():
             if name == "limbus" and took == "limbus":
                 continue
-            fig = (f"{r['rms_s2s_deg']:.2f} | {r['noise_rms_s2s_deg']:.2f} | {r['yaw_r']:.3f} / {r['yaw_gain']:.2f} | "
-                   f"{r['pitch_r']:.3f} / {r['pitch_gain']:.2f} | {r['kappa']:.2f}")
+            fig = (f"{r['rms_s2s_deg']:.2f} | {r['rms_s2s_fix_deg']:.2f} | {r['noise_rms_s2s_deg']:.2f} / {_sd(r)} | "
+                   f"{r['yaw_r']:.3f} / {r['yaw_gain']:.2f} | {r['pitch_r']:.3f} / {r['pitch_gain']:.2f} | {r['kappa']:.2f}")
             if name == "default":
                 sep = " =" if took == "limbus" else ":"
                 setting = f"**default**{sep} {took} (mesh {r['iris_px_measured']:.1f} px)"
@@ -67,7 +73,7 @@ def main(argv=None) -> int:
     except (OSError, pd.errors.ParserError) as e:
         print(f"{args.csv}: cannot read the grid's rows ({e})", file=sys.stderr)
         return 2
-    need = {"label", "variant", "rms_s2s_deg", "noise_rms_s2s_deg", "yaw_r", "yaw_gain", "pitch_r", "pitch_gain",
+    need = {"label", "variant", "rms_s2s_deg", "rms_s2s_fix_deg", "noise_rms_s2s_deg", "yaw_r", "yaw_gain", "pitch_r", "pitch_gain",
             "kappa", "kappa_truth", "iris_px", "iris_px_measured", "iris_estimate"}
     if not need <= set(df.columns):
         print(f"{args.csv}: not a grid CSV from bench_gaze_grid.py --csv (missing {sorted(need - set(df.columns))})",

@@ -15,7 +15,8 @@ import gaze_grid_table as T  # noqa: E402
 def _row(label, variant, **kw):
     base = dict(name="12px_crf28", size_px="(640, 480)", codec="libx264", crf=28, lid_follow=1.0, glasses=False,
                 mirror=False, face="hopper", trial="UH21_img_Rome", seed=0, fps=30.0, label=label, variant=variant,
-                iris_px=12.06, rms_s2s_deg=1.234, noise_rms_s2s_deg=0.9, yaw_r=0.9671, yaw_gain=0.96, pitch_r=0.9174,
+                iris_px=12.06, rms_s2s_deg=1.234, rms_s2s_fix_deg=0.812, noise_rms_s2s_deg=0.9, noise_sd_deg=0.654,
+                yaw_r=0.9671, yaw_gain=0.96, pitch_r=0.9174,
                 pitch_gain=0.79, kappa=0.271, kappa_truth=0.629, iris_estimate=None, iris_px_measured=float("nan"))
     return base | kw
 
@@ -30,12 +31,20 @@ def test_rows_name_the_estimate_and_leave_out_the_duplicate_limbus_row(tmp_path)
     pd.DataFrame(rows).to_csv(path, index=False)
     out = T.lines(pd.read_csv(path))
     assert out[0].startswith("| iris |") and len(out) == 2 + 3 + 2
-    assert out[2] == ("| 12.1 px | 640x480 CRF 28, hopper, UH21 | **default**: appearance (mesh 12.9 px) | 1.23 | 0.90 "
-                      "| 0.967 / 0.96 | 0.917 / 0.79 | 0.27 (0.63) |")
+    assert out[2] == ("| 12.1 px | 640x480 CRF 28, hopper, UH21 | **default**: appearance (mesh 12.9 px) | 1.23 | 0.81 "
+                      "| 0.90 / 0.65 | 0.967 / 0.96 | 0.917 / 0.79 | 0.27 (0.63) |")
     assert out[3].startswith("|  |  | limbus | 4.13 |")
     assert "MPEG-4 part 2, hopper, UH21, glasses, mirrored, drift without turning" in out[5]
     assert "**default** = limbus (mesh 26.9 px)" in out[5]
     assert not any("| limbus |" in line for line in out[5:])
+
+
+def test_a_grid_measured_before_the_clips_sd_existed_shows_a_dash(tmp_path):
+    path = tmp_path / "old.csv"
+    pd.DataFrame([{k: v for k, v in _row("a", "default", iris_estimate="appearance", iris_px_measured=12.9).items()
+                   if k != "noise_sd_deg"}]).to_csv(path, index=False)
+    out = T.lines(pd.read_csv(path))
+    assert "| 1.23 | 0.81 | 0.90 / - | 0.967 / 0.96 |" in out[2]
 
 
 def test_a_file_that_is_not_a_grid_csv_is_refused_with_its_name(tmp_path, capsys):
