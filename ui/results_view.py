@@ -25,7 +25,28 @@ CLIP_CHOICES = (("current", "this clip"), ("all", "all processed clips"))
 
 #: quality summary columns (from run.json) in display order
 QUALITY_COLUMNS = ("frames", "duration_s", "face_found_frac", "valid_frac", "blink_count", "fixation_count",
-                   "noise_rms_s2s_33ms_deg", "noise_rms_s2s_deg", "noise_sd_deg", "median_distance_mm", "usable", "verdict")
+                   "noise_rms_s2s_33ms_deg", "noise_rms_s2s_deg", "noise_sd_deg", "median_distance_mm", "precision_tier",
+                   "usable", "verdict")
+
+#: headers and definitions of the quality summary's columns that are not feature columns (aspectus.schema has
+#: those); the precision tier's definition is read from the library (:func:`_tier_tip`)
+_QUALITY_LABELS = {
+    "frames": ("Frames", "video frames read"),
+    "duration_s": ("Duration (s)", "time from the first frame to the last"),
+    "face_found_frac": ("Face found (share)", "share of frames in which the face was tracked"),
+    "median_distance_mm": ("Median distance (mm)", "median eye-to-camera distance, from the iris size"),
+    "precision_tier": ("Precision tier", ""),
+    "usable": ("Usable", "the verdict: enough face, usable gaze and a gaze signal that is not very noisy"),
+    "verdict": ("Verdict", "the clip's verdict in words: hover over a cell to read it whole"),
+}
+
+
+def _tier_tip() -> str:
+    from aspectus.webcam.pipeline import PRECISION_TIERS, precision_limits_text
+
+    return ("which features the clip's gaze precision supports (the verdict says why): "
+            + "; ".join(f"{tier}: {', '.join(features)}" for tier, _, _, features in PRECISION_TIERS)
+            + ". " + precision_limits_text())
 
 
 class DataFrameModel(QAbstractTableModel):
@@ -63,6 +84,8 @@ class DataFrameModel(QAbstractTableModel):
             if isinstance(v, (bool, np.bool_)):
                 return "yes" if v else "no"
             return "" if v is None else str(v)
+        if role == Qt.ToolTipRole and isinstance(v, str) and len(v) > 40:
+            return v  # a long text (a verdict) is read whole on hover, however narrow its column
         if role == Qt.TextAlignmentRole and isinstance(v, (int, float, np.number)) and not isinstance(v, bool):
             return int(Qt.AlignRight | Qt.AlignVCenter)
         return None
@@ -91,7 +114,10 @@ def _human(name: str) -> str:
         return name.capitalize()
     if name in ("start_s", "end_s"):
         return {"start_s": "Start (s)", "end_s": "End (s)"}[name]
-    text = human_label(name) if column(name) is not None or name in QUALITY_COLUMNS else name
+    if column(name) is None and name in _QUALITY_LABELS:
+        text = _QUALITY_LABELS[name][0]
+    else:
+        text = human_label(name) if column(name) is not None or name in QUALITY_COLUMNS else name
     if len(text) > 16 and " (" in text:
         text = text.replace(" (", "\n(", 1)
     elif len(text) > 16 and ", " in text:
@@ -103,6 +129,9 @@ def _column_tip(name: str) -> str:
     from aspectus.schema import column
 
     c = column(name)
+    if c is None and name in _QUALITY_LABELS:
+        doc = _tier_tip() if name == "precision_tier" else _QUALITY_LABELS[name][1]
+        return f"{name}: {doc}"
     return f"{name}: {c.doc}" if c is not None and c.doc else name
 
 

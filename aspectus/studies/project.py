@@ -48,8 +48,9 @@ STATUS_STALE = "outdated"  # processed, but with other processing parameters
 STATUSES = (STATUS_NEW, STATUS_DONE, STATUS_FAILED, STATUS_CANCELLED, STATUS_STALE)
 
 #: summary keys shown per clip (from the pipeline's ClipResult.summary / run.json)
-SUMMARY_KEYS = ("frames", "duration_s", "face_found_frac", "blink_count", "median_distance_mm",
-                "noise_rms_s2s_33ms_deg", "noise_rms_s2s_deg", "noise_sd_deg", "valid_frac", "usable", "verdict")
+SUMMARY_KEYS = ("frames", "duration_s", "face_found_frac", "blink_count", "fixation_count", "median_distance_mm",
+                "noise_rms_s2s_33ms_deg", "noise_rms_s2s_deg", "noise_sd_deg", "valid_frac", "precision_tier", "usable",
+                "verdict")
 
 
 @dataclass

@@ -59,7 +59,10 @@ def _fmt(v, nd=2) -> str:
         v = float(v)
     except (TypeError, ValueError):
         return "n/a"
-    return "n/a" if not np.isfinite(v) else f"{v:.{nd}f}"
+    if not np.isfinite(v):
+        return "n/a"
+    s = f"{v:.{nd}f}"
+    return s[1:] if s.startswith("-") and float(s) == 0 else s  # "-0.00" reads as a negative number: "0.00"
 
 
 def _figure(w_in: float, h_in: float):

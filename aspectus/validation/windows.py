@@ -77,7 +77,7 @@ def choose_window_s(overlap_s: float, preferred_s: float, *, given: bool = False
                                 f"{overlap_text(overlap_s)}, and the feature window length of {preferred_s:g} s would give "
                                 f"only {n_pref} window(s), fewer than the {min_pairs} agreement statistics need; "
                                 f"{w:g} s is the longest of {', '.join(f'{c:g}' for c in CANDIDATE_WINDOWS_S)} s "
-                                f"that gives at least {min_pairs} ({n_windows(overlap_s, w)}). Set another length "
+                                f"that gives at least {min_pairs} windows (it gives {n_windows(overlap_s, w)}). Set another length "
                                 "with --window-s (in the app: Feature window length).")
     w = min(float(preferred_s), SHORTEST_WINDOW_S)
     n = n_windows(overlap_s, w)

@@ -312,6 +312,22 @@ def test_export_tables(qtbot, window, processed, tmp_path):
     rv.rows_box.setCurrentIndex(rv.rows_box.findData("quality"))
     q = pd.read_parquet(rv.export(tmp_path / "quality.parquet"))
     assert list(q["clip"]) == ["p01_s01", "p02_s01"] and q["face_found_frac"].between(0, 1).all()
+    # the quality summary has each clip's fixation count and precision tier from its run.json (the fixation
+    # column was empty: the study did not keep the count), headers with units, the verdict whole on hover
+    from PySide6.QtCore import Qt
+
+    for stem in ("p01_s01", "p02_s01"):
+        run = json.loads((window.study.clip_out_dir(window.study.find(stem)) / "run.json").read_text())
+        row = q[q["clip"] == stem].iloc[0]
+        assert int(row["fixation_count"]) == run["quality"]["fixation_count"]
+        assert row["precision_tier"] == run["quality"]["precision_tier"]
+    heads = [rv.model.headerData(i, Qt.Horizontal) for i in range(rv.model.columnCount())]
+    for h in ("Duration (s)", "Face found\n(share)", "Median distance\n(mm)", "Precision tier", "Verdict"):
+        assert h in heads, (h, heads)
+    tier_col = list(q.columns).index("precision_tier")
+    assert "events:" in rv.model.headerData(tier_col, Qt.Horizontal, Qt.ToolTipRole)
+    verdict = rv.model.index(0, list(q.columns).index("verdict"))
+    assert rv.model.data(verdict, Qt.ToolTipRole) == q["verdict"].iloc[0]
     assert rv.n_histogram_fixations > 0
     qtbot.waitUntil(rv.canvas.is_current, timeout=20_000)
     assert rv.canvas.image() is not None

@@ -301,3 +301,26 @@ def test_the_reading_names_the_icc_form_that_was_computed(session, tmp_path):
     assert f"consistency ICC(3,1) = {fc['icc']:.2f}" in r.reading and "ICC(2,1)" not in r.reading
     bias = f"{abs(fc['ba_bias']):.1f}"
     assert (f"counted {bias} " in r.reading) != (bias == "0.0")  # a zero bias reads "as many", not "0.0 fewer"
+
+
+def test_the_compact_table_shows_no_negative_zero_and_the_window_choice_says_what_it_counts():
+    # the demo pair's blink rate: every window agreed, so the limits of agreement are 0 give or take the last bit
+    # of a float; printed with two decimals that read "-0.00 to 0.00", a negative figure where there is none
+    from aspectus.validation.report import compact_agreement
+    from aspectus.validation.windows import choose_window_s
+
+    ag = pd.DataFrame([{"scope": "window", "feature": "blink_rate_per_min", "n": 10, "mean_webcam": 12.0,
+                        "mean_reference": 12.0, "pearson_r": 1.0, "pearson_ci_low": 1.0, "pearson_ci_high": 1.0,
+                        "icc": 1.0, "icc_ci_low": np.nan, "icc_ci_high": np.nan, "ba_bias": 0.0,
+                        "ba_loa_low": -1e-15, "ba_loa_high": 1e-15},
+                       {"scope": "window", "feature": "fixation_count", "n": 10, "mean_webcam": 6.6,
+                        "mean_reference": 7.4, "pearson_r": 0.74, "pearson_ci_low": 0.22, "pearson_ci_high": 0.94,
+                        "icc": 0.58, "icc_ci_low": -0.06, "icc_ci_high": 0.88, "ba_bias": -0.8,
+                        "ba_loa_low": -2.35, "ba_loa_high": 0.75}])
+    t = compact_agreement(ag).set_index("Feature")
+    blink = t.loc["Blink rate (1/min)", "Bias [95 % limits]"]
+    assert "-0.0" not in blink and blink.startswith("0.0") and " [0.0" in blink
+    assert t.loc["Fixations (per window)", "ICC [95 % CI]"] == "0.58 [-0.06, 0.88]"  # real negatives stay
+    # 20 s of overlap with the 10 s feature windows: 2 s chosen, and the count it gives is named as windows
+    c = choose_window_s(20.0, 10.0)
+    assert c.window_s == 2.0 and "gives at least 10 windows (it gives 10)" in c.reason
