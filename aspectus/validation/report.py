@@ -460,6 +460,28 @@ def _agreement_section(agreement: pd.DataFrame, scope: str, what: str) -> str:
     return out
 
 
+def _events_in_words(ev: dict) -> str:
+    """What the rows of "Fixations sample by sample" mean, for a reader without the statistics' definitions, with
+    each side's measurement error as the gains took it into account."""
+    text = ("Kappa: how well the two agree on which samples belong to a fixation, beyond what chance would give "
+            "(0: no better than chance, 1: complete agreement). F1: how many onsets the two found at the same moment "
+            "(precision: the share of the webcam's onsets the lab tracker also has; recall: the share of the lab "
+            "tracker's onsets the webcam found). Gain: how many degrees the webcam measures for each degree the lab "
+            "tracker measures (1: the same scale; below 1 the webcam reads eye movements smaller).")
+    sd, rho = (ev.get("gain") or {}).get("fixation_mean_error_sd_deg") or {}, \
+        (ev.get("gain") or {}).get("error_lag1_correlation") or {}
+    sides = []
+    for key, name in (("webcam", "webcam"), ("reference", "lab tracker")):
+        a, r = sd.get(key), rho.get(key)
+        if a is not None and r is not None and np.isfinite(float(a)) and np.isfinite(float(r)):
+            sides.append(f"{name} {_fmt(a)} deg (successive errors correlated {_fmt(r)})")
+    if sides:
+        text += (" The gains allow for each side's own measurement error (Deming regression):"
+                 " the uncertainty of a fixation's mean position per axis, from the noise and how much of it "
+                 "carries over from one sample to the next - " + ", ".join(sides) + ".")
+    return text
+
+
 def render_pair_report(result, pngs: dict[str, bytes]) -> str:
     """The HTML report of one pair (self-contained)."""
     m = result.meta
@@ -507,18 +529,19 @@ def render_pair_report(result, pngs: dict[str, bytes]) -> str:
             parts.append(_img(key, pngs[key], alt))
 
     parts.append("<h2>Fixations sample by sample</h2>")
-    rows = [{"measure": "kappa, fixation or not, per sample",
-             "value": _ci(ev["kappa"], ev["kappa_ci_low"], ev["kappa_ci_high"], 2), "n": ev["kappa_n_samples"]},
-            {"measure": "kappa, all labels", "value": _fmt(ev["kappa_all_labels"]), "n": ""}]
+    rows = [{"Measure": "Kappa, fixation or not, per sample",
+             "Value": _ci(ev["kappa"], ev["kappa_ci_low"], ev["kappa_ci_high"], 2), "n": ev["kappa_n_samples"]},
+            {"Measure": "Kappa, all labels", "Value": _fmt(ev["kappa_all_labels"]), "n": ""}]
     for t, mm in ev["matching"].items():
-        rows.append({"measure": f"{t} onsets matched within {mm['tolerance_s']:g} s: F1 (precision, recall)",
-                     "value": f"{_fmt(mm['f1'])} ({_fmt(mm['precision'])}, {_fmt(mm['recall'])})",
+        rows.append({"Measure": f"{t.capitalize()} onsets matched within {mm['tolerance_s']:g} s: F1 (precision, recall)",
+                     "Value": f"{_fmt(mm['f1'])} ({_fmt(mm['precision'])}, {_fmt(mm['recall'])})",
                      "n": f"{mm['n_matched']} of {mm['n_webcam']} webcam / {mm['n_reference']} lab tracker"})
     for k, g in ev["gain"].items():
         if isinstance(g, dict) and "estimate" in g:
-            rows.append({"measure": f"gain (webcam / lab tracker), {k.replace('_', ' ')}",
-                         "value": _ci(g["estimate"], g["ci_low"], g["ci_high"], 2), "n": g["n"]})
-    parts.append(_table_html(pd.DataFrame(rows), ["measure", "value", "n"]))
+            rows.append({"Measure": f"Gain (webcam / lab tracker), {k.replace('_', ' ')}",
+                         "Value": _ci(g["estimate"], g["ci_low"], g["ci_high"], 2), "n": g["n"]})
+    parts.append(_table_html(pd.DataFrame(rows), ["Measure", "Value", "n"]))
+    parts.append(f"<p>{html.escape(_events_in_words(ev))}</p>")
     parts.append(f"<p class='small'>{html.escape(ev['method']['kappa'])}. {html.escape(ev['method']['matching'])}. "
                  f"Gain: {html.escape(ev['gain']['method'])}.</p>")
 

@@ -324,3 +324,19 @@ def test_the_compact_table_shows_no_negative_zero_and_the_window_choice_says_wha
     # 20 s of overlap with the 10 s feature windows: 2 s chosen, and the count it gives is named as windows
     c = choose_window_s(20.0, 10.0)
     assert c.window_s == 2.0 and "gives at least 10 windows (it gives 10)" in c.reason
+
+
+def test_the_report_says_in_words_what_kappa_f1_and_gain_are_with_each_sides_error(session, tmp_path):
+    # the gains' error allowance (each side's fixation-mean error and its lag-1 correlation, events_agreement.json)
+    # was given only as a method note; the report now says what the rows mean and gives both sides' figures
+    import html as _html
+
+    out = tmp_path / "v"
+    validate_pair(session["cam"], session["ref"]["physio"], out, params=_params(window_s=2.0), figures=False)
+    ev = json.loads((out / "events_agreement.json").read_text())
+    page = _html.unescape((out / "report.html").read_text())
+    assert "Kappa: how well the two agree on which samples belong to a fixation" in page
+    assert "Gain: how many degrees the webcam measures for each degree the lab tracker measures" in page
+    sd, rho = ev["gain"]["fixation_mean_error_sd_deg"], ev["gain"]["error_lag1_correlation"]
+    for side, name in (("webcam", "webcam"), ("reference", "lab tracker")):
+        assert f"{name} {sd[side]:.2f} deg (successive errors correlated {rho[side]:.2f})" in page, side
