@@ -652,10 +652,6 @@ def software_versions() -> dict:
 #: at 1.74-2.18 deg) it is 0.17-0.41, no lower: it varies more from clip to clip than with the noise, while gaze
 #: r against the truth stays 0.32-0.995 (0.87-0.995 at CRF 28 or better), so direction shifts averaged over
 #: seconds survive but fixation counts and durations do not.
-#: noise (deg, RMS-S2S over 33 ms steps) above which the verdict calls a clip not usable (with the SD above
-#: :func:`tier_sd_limit_deg` of it): the coarse tier's limit
-VERY_NOISY_DEG = 3.0
-
 PRECISION_TIERS = (
     ("events", 1.5, 12.0, ["fixation count and durations", "saccades", "where the gaze rests (dwell)",
                            "blink rate", "head movement", "data quality"]),
@@ -700,6 +696,13 @@ def precision_tier(noise_deg, iris_px, noise_sd_deg) -> tuple[str, list[str]]:
     return PRECISION_TIERS[-1][0], list(PRECISION_TIERS[-1][3])
 
 
+def very_noisy_deg() -> float:
+    """The noise (deg, RMS-S2S over 33 ms steps) above which the verdict calls a clip not usable, as it does a clip
+    whose SD within fixations is above :func:`tier_sd_limit_deg` of it: the coarse tier's limit
+    (:data:`PRECISION_TIERS`)."""
+    return float(next(t[1] for t in PRECISION_TIERS if t[0] == "coarse"))
+
+
 def tier_needs(tier: str) -> str:
     """What ``tier`` needs of a clip, in plain words with the limits of :data:`PRECISION_TIERS` (for help texts):
     e.g. "a noise of at most 1.5 deg from sample to sample, an SD within fixations of at most 1.06 deg and irises
@@ -722,13 +725,20 @@ def _tier_shortfall(summary: dict, tier: str) -> list[str]:
     noise, sd, iris = (summary.get(k) for k in ("noise_rms_s2s_33ms_deg", "noise_sd_deg", "median_iris_px"))
     sd_limit = tier_sd_limit_deg(max_noise)
     out = []
-    if noise is None or sd is None or not (np.isfinite(noise) and np.isfinite(sd)):
+    noise_ok, sd_ok = (v is not None and np.isfinite(v) for v in (noise, sd))
+    if not (noise_ok or sd_ok):
         out.append("the gaze noise could not be measured (too few steady stretches of usable gaze)")
     else:
-        if noise > max_noise:
+        if not noise_ok:
+            out.append("the gaze's noise from sample to sample could not be measured (too few steady stretches of "
+                       "usable gaze)")
+        elif noise > max_noise:
             out.append(f"the gaze moves {noise:.2f} deg from one sample to the next (RMS-S2S; at most "
                        f"{max_noise:g} deg needed)")
-        if sd > sd_limit:
+        if not sd_ok:
+            out.append("the gaze's spread within fixations could not be measured (no fixation holds two usable "
+                       "samples)")
+        elif sd > sd_limit:
             out.append(f"the samples spread {sd:.2f} deg about each fixation's centre (SD; at most {sd_limit:.2f} deg "
                        "needed)")
     if iris is None or not np.isfinite(iris):
@@ -774,13 +784,15 @@ def _verdict(summary: dict) -> tuple[bool, str]:
     if vf < 0.6:
         reasons.append(f"usable gaze in only {vf:.0%} of the recorded time (blinks, closed eyes, turned head, no "
                        "face, or frames missing from the recording)")
-    limit = VERY_NOISY_DEG
-    if noise is not None and np.isfinite(noise) and noise > limit:
+    limit = very_noisy_deg()
+    noise_ok = noise is not None and np.isfinite(noise)
+    if noise_ok and noise > limit:
         reasons.append(f"the gaze signal is very noisy ({noise:.1f} deg sample to sample over 33 ms steps)")
     elif sd_ok and sd > tier_sd_limit_deg(limit):
+        why = (f", although its sample-to-sample noise reads {noise:.1f} deg: an error that changes slowly, or a "
+               "filtered signal" if noise_ok else "")
         reasons.append(f"the gaze signal is very noisy (it wanders {sd:.1f} deg (SD) about each fixation's mean, "
-                       f"above {tier_sd_limit_deg(limit):.2f} deg, although its sample-to-sample noise reads "
-                       f"{noise:.1f} deg: an error that changes slowly, or a filtered signal)")
+                       f"above {tier_sd_limit_deg(limit):.2f} deg{why})")
     if reasons:
         return False, "Not usable: " + "; ".join(reasons) + "."
     noise_text = (f"noise {noise:.2f} deg sample to sample (over 33 ms steps)" if noise is not None and np.isfinite(noise)

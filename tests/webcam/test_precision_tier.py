@@ -257,3 +257,37 @@ def test_the_analysis_smoothing_does_not_change_the_precision_figures_or_the_tie
         assert smooth.quality[k] == pytest.approx(plain.quality[k], rel=0.08), k
     s_plain, s_smooth = summarise(smp, plain, {}), summarise(smp, smooth, {})
     assert s_plain["precision_tier"] == s_smooth["precision_tier"] == "coarse"
+
+
+def test_the_sd_reason_does_not_need_the_sample_to_sample_figure():
+    """A clip whose SD within fixations is beyond the coarse tier while its RMS-S2S over 33 ms steps could not be
+    read (a fixation's valid samples never 33 ms apart, e.g. every other frame dropped as invalid): the verdict
+    says why it is not usable without a figure it does not have (no 'nan deg'), and the better tier's shortfall
+    names the SD that it has beside the figure that could not be read."""
+    from types import SimpleNamespace
+
+    noise = float("nan")
+    smp = _samples(0.3, 20.0)
+    q = {"valid_frac": 1.0, "noise_rms_s2s_deg": noise, "noise_rms_s2s_33ms_deg": noise, "noise_sd_deg": 2.5}
+    s = summarise(smp, SimpleNamespace(events=pd.DataFrame({"type": []}), quality=q), {})
+    assert s["usable"] is False and s["precision_tier"] == "minimal"
+    assert "wanders 2.5 deg (SD) about each fixation's mean, above 2.12 deg" in s["verdict"]
+    assert "nan" not in s["verdict"].lower()
+    assert "the samples spread 2.50 deg about each fixation's centre (SD; at most 2.12 deg needed)" in s["verdict"]
+
+
+def test_the_very_noisy_limit_is_the_coarse_tiers(monkeypatch):
+    """One rule in one place: the verdict's 'very noisy' limits are the coarse tier's own (PRECISION_TIERS), so
+    a change to the tier's limit moves the verdict's with it (here the coarse limit put at 2.5 deg, SD 1.77)."""
+    from types import SimpleNamespace
+
+    from aspectus.webcam import pipeline
+
+    tiers = tuple((name, 2.5 if name == "coarse" else lim, iris, feats) for name, lim, iris, feats in PRECISION_TIERS)
+    monkeypatch.setattr(pipeline, "PRECISION_TIERS", tiers)
+    smp = _samples(0.3, 20.0)
+    for noise, sd, words in ((2.8, 1.9, "very noisy (2.8 deg sample to sample"),
+                             (2.0, 1.9, "wanders 1.9 deg (SD) about each fixation's mean, above 1.77 deg")):
+        q = {"valid_frac": 1.0, "noise_rms_s2s_deg": noise, "noise_rms_s2s_33ms_deg": noise, "noise_sd_deg": sd}
+        s = summarise(smp, SimpleNamespace(events=pd.DataFrame({"type": []}), quality=q), {})
+        assert s["usable"] is False and words in s["verdict"], s["verdict"]
