@@ -96,7 +96,8 @@ SAMPLE_COLUMNS: tuple[Column, ...] = (
     Column("pts_s", "float64", "s", "presentation timestamp from the container, on the container's own clock"),
     Column("face_found", "bool", "", "the followed face was tracked in this frame (false while only other faces are in view)"),
     Column("face_count", "int64", "", "number of faces found in this frame, the followed one or not"),
-    Column("blink", "bool", "", "eyelids closed (eyelid aperture well below this person's open-eye level)"),
+    Column("blink", "bool", "", "eyelids closed: the two eyes' mean aperture, or either eye's own, below "
+           "blink_rel_threshold (default 0.6) of this person's open-eye level, widened by blink_pad_ms on each side"),
     Column("left_yaw_deg", "float64", "deg", "subject's left eye gaze yaw"),
     Column("left_pitch_deg", "float64", "deg", "subject's left eye gaze pitch"),
     Column("right_yaw_deg", "float64", "deg", "subject's right eye gaze yaw"),
@@ -111,8 +112,8 @@ SAMPLE_COLUMNS: tuple[Column, ...] = (
     Column("head_z_mm", "float64", "mm", "head origin in camera frame, z"),
     Column("distance_mm", "float64", "mm", "eye-to-camera distance from the iris scale (11.7 mm iris)"),
     Column("iris_diameter_px", "float64", "px", "mean iris diameter of both eyes in the picture"),
-    Column("ear_left", "float64", "", "eye aspect ratio of the left eye (Soukupova & Cech 2016)"),
-    Column("ear_right", "float64", "", "eye aspect ratio of the right eye"),
+    Column("ear_left", "float64", "", "eye aspect ratio of the subject's own left eye (Soukupova & Cech 2016)"),
+    Column("ear_right", "float64", "", "eye aspect ratio of the subject's own right eye"),
     Column("aperture_rel", "float64", "", "mean eye aspect ratio relative to this clip's open-eye level (1 = typical open)"),
     Column("pupil", "float64", "a.u.", "pupil size of a reference tracker (arbitrary units), NaN for webcam"),
 )

@@ -833,8 +833,9 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
     s["usable"], s["verdict"] = _verdict(s)
     s["verdict"] += _trust_sentence(s)
     if ((meta.get("gaze_model") or {}).get("iris_estimate") or {}).get("used") == "appearance":
-        s["verdict"] += (" The iris height was read from the eyes' own appearance over the clip, as for faces this "
-                         "small (run.json: extraction, gaze_model, iris_estimate).")
+        s["verdict"] += (" The iris height was read from the eyes' own appearance over the whole clip, the method "
+                         "chosen for faces this small (details in run.json under extraction, gaze_model, "
+                         "iris_estimate).")
     dp = s["decode_problems"]
     if dp.get("stopped_early"):
         s["verdict"] += f" Note: the file is damaged - {dp['stopped_early']}; only the part before that was analysed."
