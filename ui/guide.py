@@ -64,8 +64,9 @@ processed again.</p>
 
 <h3>6. Features and export</h3>
 <p>The <b>Features</b> tab lists the features per clip, per fixed window and per task segment (fixation count
-and durations, saccades, blinks, data quality), with a histogram of fixation durations. <b>Export</b> saves
-the table as CSV (for spreadsheets) or Parquet.</p>
+and durations, saccades, blinks, data quality), with a histogram of fixation durations. Clips whose gaze
+precision is too low for fixation counts and durations are named above the table; <i>quality summary</i> lists
+each clip's precision tier and verdict. <b>Export</b> saves the table as CSV (for spreadsheets) or Parquet.</p>
 
 <h3>7. Validate against a lab eye tracker</h3>
 <p>Before trusting webcam measures, record a few sessions with the webcam and a lab eye tracker at once.

@@ -49,6 +49,23 @@ def _tier_tip() -> str:
             + ". " + precision_limits_text())
 
 
+def precision_caveat(clips) -> str:
+    """A note on the clips shown whose precision tier (run.json's ``quality.precision_tier``) does not support
+    fixation counts and durations (:data:`aspectus.webcam.pipeline.PRECISION_TIERS`); "" where every clip's does or
+    none has a tier recorded. ``clips``: (name, out_dir, summary) as the provider gives them."""
+    from aspectus.webcam.pipeline import PRECISION_TIERS
+
+    trusted = {tier: features for tier, _, _, features in PRECISION_TIERS}
+    low = [name for name, _, summary in clips
+           if (summary or {}).get("precision_tier") in trusted
+           and "fixation count and durations" not in trusted[summary["precision_tier"]]]
+    if not low:
+        return ""
+    names = ", ".join(low[:3]) + (f" and {len(low) - 3} more" if len(low) > 3 else "")
+    return (f"Gaze precision too low for fixation counts and durations in {names}: read those columns with care "
+            "(each clip's verdict says why and what can be trusted).")
+
+
 class DataFrameModel(QAbstractTableModel):
     """A read-only Qt model over a pandas DataFrame."""
 
@@ -78,8 +95,9 @@ class DataFrameModel(QAbstractTableModel):
             if isinstance(v, (float, np.floating)):
                 if not np.isfinite(v):
                     return "–"
-                if self.human_headers and float(v).is_integer() and abs(v) < 1e9:
-                    return str(int(v))  # counts read as counts
+                if self.human_headers and float(v).is_integer() and abs(v) < 1e9 and \
+                        _is_count(str(self._df.columns[index.column()])):
+                    return str(int(v))  # counts read as counts; a rate or a share keeps its decimals
                 return f"{v:.3f}" if abs(v) < 100 else f"{v:.1f}"
             if isinstance(v, (bool, np.bool_)):
                 return "yes" if v else "no"
@@ -104,6 +122,14 @@ class DataFrameModel(QAbstractTableModel):
         if role != Qt.DisplayRole:
             return None
         return str(section + 1)
+
+
+def _is_count(name: str) -> bool:
+    """A column of whole numbers (aspectus.schema's int64 columns, the quality summary's frame count)."""
+    from aspectus.schema import column
+
+    c = column(name)
+    return name == "frames" or (c is not None and c.dtype == "int64")
 
 
 def _human(name: str) -> str:
@@ -249,6 +275,11 @@ class ResultsView(QWidget):
         top.addWidget(self.rows_box)
         top.addWidget(self.count_label, 1)
         top.addWidget(self.export_btn)
+        # clips whose gaze precision does not support the fixation columns (their precision tier)
+        self.caveat_label = QLabel()
+        self.caveat_label.setWordWrap(True)
+        self.caveat_label.setStyleSheet("color: #b26a00;")
+        self.caveat_label.hide()
 
         self.model = DataFrameModel()
         self.model.human_headers = True
@@ -273,6 +304,7 @@ class ResultsView(QWidget):
         lay = QVBoxLayout(self)
         lay.setContentsMargins(4, 4, 4, 4)
         lay.addLayout(top)
+        lay.addWidget(self.caveat_label)
         lay.addWidget(split, 1)
         self.n_histogram_fixations = 0
         self.refresh()
@@ -294,16 +326,22 @@ class ResultsView(QWidget):
             return self._override[name]
         return read_features(out_dir), read_events(out_dir)
 
+    def _shown_clips(self) -> list:
+        """The clips the table shows: (name, out_dir, summary)."""
+        if self.provider is None:
+            return []
+        clips = self.provider.clips()
+        if self.clips_box.currentData() == "current":
+            cur = self.provider.current()
+            clips = [c for c in clips if c[0] == cur]
+        return clips
+
     def current_table(self) -> pd.DataFrame:
         """The table as shown (also what Export writes)."""
         if self.provider is None:
             return pd.DataFrame()
-        which = self.clips_box.currentData()
         rows = self.rows_box.currentData()
-        clips = self.provider.clips()
-        if which == "current":
-            cur = self.provider.current()
-            clips = [c for c in clips if c[0] == cur]
+        clips = self._shown_clips()
         parts = []
         for name, out_dir, summary in clips:
             if rows == "quality":
@@ -336,6 +374,9 @@ class ResultsView(QWidget):
         n = len(df)
         self.count_label.setText(f"{n} row{'s' if n != 1 else ''}" if n else
                                  "Nothing to show yet: process clips first.")
+        caveat = precision_caveat(self._shown_clips()) if n else ""
+        self.caveat_label.setText(caveat)
+        self.caveat_label.setVisible(bool(caveat))
         self.export_btn.setEnabled(n > 0)
         self._draw_histogram()
 

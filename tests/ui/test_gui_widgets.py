@@ -247,3 +247,28 @@ def test_guide_and_tooltips_explain_the_two_precision_figures_with_the_verdicts_
                       f"irises at least {min_iris:g} px across"):
             assert words in text, (tier, words)
             assert all(words in t for t in tips), (tier, words)
+
+
+def test_features_table_counts_as_counts_rates_with_decimals_and_the_precision_caveat(qtbot):
+    """Whole-number rates read as counts beside the same column's decimals ("192" over "204.0"); and clips whose
+    precision tier does not support fixation counts and durations (aspectus.webcam.pipeline.PRECISION_TIERS) are
+    named above the table."""
+    import pandas as pd
+    from PySide6.QtCore import Qt
+
+    from aspectus.webcam.pipeline import PRECISION_TIERS
+    from ui.results_view import DataFrameModel, precision_caveat
+
+    m = DataFrameModel(pd.DataFrame({"fixation_count": [32.0, 34.0], "fixation_rate_per_min": [192.0, 204.0],
+                                     "frames": [600.0, 360.0]}))
+    m.human_headers = True
+    shown = [[m.data(m.index(r, c), Qt.DisplayRole) for c in range(3)] for r in range(2)]
+    assert shown == [["32", "192.0", "600"], ["34", "204.0", "360"]]
+
+    without = [t for t, _, _, features in PRECISION_TIERS if "fixation count and durations" not in features]
+    assert without == ["coarse", "minimal"]
+    clips = [("p01", None, {"precision_tier": "coarse"}), ("p02", None, {"precision_tier": "events"}),
+             ("p03", None, {})]
+    note = precision_caveat(clips)
+    assert "p01" in note and "p02" not in note and "p03" not in note and "fixation counts and durations" in note
+    assert precision_caveat(clips[1:]) == ""
