@@ -582,6 +582,23 @@ class ValidationView(QWidget):
                          f"{feature_label(feat, scope=scope)}, per {scope}")
 
 
+
+def _same_decimals(*values: float) -> list[str]:
+    """Figures printed side by side with one number of decimals, three significant digits for the largest
+    ("-0.80, -2.35 to 0.75", not "-0.8, -2.35 to 0.746"); no "-0.00"."""
+    finite = [abs(float(v)) for v in values if np.isfinite(v)]
+    big = max(finite) if finite else 0.0
+    nd = 2 if big < 1e-9 else int(min(6, max(0, 2 - np.floor(np.log10(big)))))
+    out = []
+    for v in values:
+        if not np.isfinite(v):
+            out.append("n/a")
+            continue
+        t = f"{float(v):.{nd}f}"
+        out.append(t[1:] if t.startswith("-") and float(t) == 0 else t)
+    return out
+
+
 def draw_agreement(fig, webcam, reference, feature: str):
     """Scatter of webcam against reference and the Bland-Altman plot (runs in the drawing thread)."""
     import warnings
@@ -617,7 +634,8 @@ def draw_agreement(fig, webcam, reference, feature: str):
         for y, ls in ((ba.bias, "-"), (ba.loa_low, "--"), (ba.loa_high, "--")):
             if np.isfinite(y):
                 ax_b.axhline(y, color=theme.CURSOR_COLOUR, lw=1, ls=ls)
-        ax_b.set_title(f"Bias {ba.bias:.3g}, limits {ba.loa_low:.3g} to {ba.loa_high:.3g}", fontsize=8)
+        b_, lo_, hi_ = _same_decimals(ba.bias, ba.loa_low, ba.loa_high)
+        ax_b.set_title(f"Bias {b_}, limits {lo_} to {hi_}", fontsize=8)
     else:
         ax_b.set_title(f"Differences (limits need {MIN_PAIRS}+ pairs)", fontsize=8)
     ax_b.set_xlabel("mean of webcam and lab tracker", fontsize=8)

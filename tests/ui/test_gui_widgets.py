@@ -272,3 +272,12 @@ def test_features_table_counts_as_counts_rates_with_decimals_and_the_precision_c
     note = precision_caveat(clips)
     assert "p01" in note and "p02" not in note and "p03" not in note and "fixation counts and durations" in note
     assert precision_caveat(clips[1:]) == ""
+
+
+def test_the_bland_altman_title_prints_its_three_figures_alike():
+    # the app's validation plot read "Bias -0.8, limits -2.35 to 0.746" (three figures, three precisions)
+    from ui.validation_view import _same_decimals
+
+    assert _same_decimals(-0.8, -2.35, 0.746) == ["-0.80", "-2.35", "0.75"]
+    assert _same_decimals(31.2, -60.4, 122.3) == ["31", "-60", "122"]
+    assert _same_decimals(0.0, -1e-15, 1e-15) == ["0.00", "0.00", "0.00"]  # no "-0.00"
