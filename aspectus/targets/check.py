@@ -25,6 +25,7 @@ from, so a stale check can be told from a current one (:func:`read_check`).
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 
 import numpy as np
@@ -199,16 +200,21 @@ def summary_lines(doc: dict) -> list[str]:
     s, m, a = doc.get("summary", {}), doc.get("mapping", {}), doc.get("alignment", {})
 
     def f(v, fmt="{:.2f}"):
-        return "n/a" if v is None else fmt.format(v)
+        try:
+            return fmt.format(v) if v is not None and math.isfinite(float(v)) else "n/a"
+        except (TypeError, ValueError):
+            return "n/a"
 
+    found_by = {"flash": "by its flash", "xcorr": "by the gaze's match with the dots", "given": "as given"}
+    how = found_by.get(a.get("method"), f"by {a['method']}" if a.get("method") else "")
     lines = [
-        f"start {f(s.get('start_s'), '{:.3f}')} s ({a.get('method', '?')}); "
+        f"sequence starts at {f(s.get('start_s'), '{:.3f}')} s{f' ({how})' if how else ''}; "
         f"{s.get('n_targets_used', 0)} of {s.get('n_fixation_targets', 0)} still dots usable",
         f"offset yaw {f(m.get('offset_yaw_deg'), '{:+.2f}')} deg, pitch {f(m.get('offset_pitch_deg'), '{:+.2f}')} deg; "
         f"gain yaw {f(m.get('gain_yaw'))}, pitch {f(m.get('gain_pitch'))}",
         f"accuracy {f(s.get('accuracy_offset_deg'))} deg after offset, {f(s.get('accuracy_offset_gain_deg'))} deg "
         f"after offset+gain ({f(s.get('accuracy_offset_gain_loo_deg'))} leave-one-out; noise alone would give "
-        f"{f(s.get('accuracy_noise_floor_deg'))})",
+        f"{f(s.get('accuracy_noise_floor_deg'))} deg)",
         f"precision RMS-S2S {f(s.get('precision_rms_s2s_deg'))} deg, SD {f(s.get('precision_sd_deg'))} deg; "
         f"data loss {f(None if s.get('loss_frac') is None else 100 * s['loss_frac'], '{:.1f}')} %",
         f"fixations on dots {f(s.get('n_fixations_on_targets'), '{:.0f}')} (dots fixated "

@@ -45,6 +45,13 @@ def test_clip_view_shows_the_check(qtbot):
     text = v.targets_info.text()
     assert not v.targets_info.isHidden()
     assert "gain yaw 0.58" in text and "0.80 deg after offset+gain" in text and "yaw gain 0.58 is outside" in text
+    assert "sequence starts at 1.500 s (by its flash)" in text
+    # a figure the check could not measure reads "n/a", never "nan"
+    doc["summary"]["pursuit_gain"] = float("nan")
+    doc["mapping"]["gain_pitch"] = None
+    v.set_target_check(doc)
+    text = v.targets_info.text()
+    assert "nan" not in text.lower().replace("n/a", "") and "pursuit gain n/a" in text and "pitch n/a" in text
     v.set_target_check(None)
     assert v.targets_info.isHidden()
 
