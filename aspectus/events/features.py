@@ -42,6 +42,22 @@ SACCADE_DURATION_MIN_RATE_HZ = 200.0
 __all__ = ["FEATURE_COLUMNS", "SCOPE_COLUMNS", "DegenerateWindowWarning", "compute_features"]
 
 
+def fixation_ids(t_s, fixation_onset_s, fixation_offset_s, labels) -> np.ndarray:
+    """Each sample's fixation: the index of the fixation (of those given, sorted by onset) whose span holds the
+    sample's time, where the sample is labelled ``"fixation"``; -1 elsewhere. Two fixations side by side in the
+    labels (a saccade that fell between two samples) get different ids, so that no step is counted across them.
+    """
+    t = np.asarray(t_s, dtype=float)
+    on = np.asarray(fixation_onset_s, dtype=float)
+    off = np.asarray(fixation_offset_s, dtype=float)
+    fix_id = np.full(len(t), -1, dtype=np.int64)
+    if len(on) and len(t):
+        k = np.searchsorted(on, t, side="right") - 1
+        inside = (k >= 0) & (t < off[np.clip(k, 0, None)])
+        fix_id = np.where(inside & (np.asarray(labels) == "fixation"), k, -1)
+    return fix_id
+
+
 def _fixation_steps(valid, x, y, fix_id, lag: int):
     """Cumulative sums over the steps from each sample to the one ``lag`` samples on, counted where both are valid
     and in the same fixation: (lag, summed squared distances, step counts), each sum starting at 0."""
@@ -129,14 +145,9 @@ def compute_features(events: pd.DataFrame, *, t_s, valid, yaw_deg, pitch_deg, la
                                     "peak_velocity_deg_s")}
 
     fx, sc, bl, ls = by_type("fixation"), by_type("saccade"), by_type("blink"), by_type("loss")
-    fixlab = np.asarray(labels) == "fixation"
     # steps count only between two samples of the same fixation (adjacent fixations share no step: the jump
     # between them is a saccade that fell between two samples)
-    fix_id = np.full(n, -1, dtype=np.int64)
-    if len(fx["onset_s"]) and n:
-        k = np.searchsorted(fx["onset_s"], t, side="right") - 1
-        inside = (k >= 0) & (t < fx["offset_s"][np.clip(k, 0, None)])
-        fix_id = np.where(inside & fixlab, k, -1)
+    fix_id = fixation_ids(t, fx["onset_s"], fx["offset_s"], labels)
     # sample-to-sample steps, and steps of the reference interval (33 ms)
     lag = reference_lag(dt)
     steps = {k: _fixation_steps(valid, x, y, fix_id, k) for k in {1, lag}}

@@ -351,24 +351,45 @@ def agreement_table(pairs: pd.DataFrame, features, *, icc_form: str = DEFAULT_IC
     return df[cols + [c for c in df.columns if c not in cols]] if len(df) else pd.DataFrame(columns=cols)
 
 
-def _error_correlation(samples: pd.DataFrame, labels) -> float:
+def _error_correlation(samples: pd.DataFrame, labels, events: pd.DataFrame | None = None) -> float:
     """The lag-1 autocorrelation of a side's error within its fixations (0 where it cannot be read).
 
-    Read as an AR(1) error's from the RMS-S2S over steps of one and of two samples within fixations (steps over
-    another label left out; :func:`aspectus.events.detect.noise.step_correlation`): webcam gaze error changes
-    slowly (0.6-0.9 on rendered clips), and a lab tracker's filtered signal is correlated from sample to sample
-    too. The plain RMS rather than the median-based one: within fixations there are no saccades to shrug off,
-    and near 1 the correlation is sensitive to the figures' ratio (the median's own scatter read an AR(1)
-    error of 0.85 as 0.885 over 30 000 samples, the RMS's as 0.853).
+    Read as an AR(1) error's from the RMS-S2S over steps of one and of two samples within fixations
+    (:func:`aspectus.events.detect.noise.step_correlation`): a step counts where every sample it spans is usable
+    and in one fixation - one fixation event of ``events`` (:func:`aspectus.events.features.fixation_ids`, as the
+    clip's precision features count steps), or without ``events`` one run of fixation labels. Two fixations side
+    by side in the labels are a saccade that fell between two samples (common at 30 Hz): a step across them would
+    weigh the jump twice in the two-sample steps and once in the one-sample ones, and read the correlation near
+    its bound whatever the error's own. Webcam gaze error changes slowly (0.6-0.9 on rendered clips), and a lab
+    tracker's filtered signal is correlated from sample to sample too. The plain RMS rather than the
+    median-based one: within fixations there are no saccades to shrug off, and near 1 the correlation is
+    sensitive to the figures' ratio (the median's own scatter read an AR(1) error of 0.85 as 0.885 over 30 000
+    samples, the RMS's as 0.853).
     """
-    from aspectus.events.detect.noise import rms_s2s_deg, step_correlation
+    from aspectus.events.detect.noise import step_correlation
+    from aspectus.events.features import fixation_ids
 
     if labels is None or not {"yaw_deg", "pitch_deg"} <= set(samples.columns) or len(labels) != len(samples):
         return 0.0
-    fix = np.asarray(labels) == "fixation"
-    yaw = np.where(fix, samples["yaw_deg"].to_numpy(float), np.nan)
-    pitch = np.where(fix, samples["pitch_deg"].to_numpy(float), np.nan)
-    return step_correlation(rms_s2s_deg(yaw, pitch, lag=1), rms_s2s_deg(yaw, pitch, lag=2, max_step_deg=np.inf))
+    labels = np.asarray(labels)
+    yaw, pitch = samples["yaw_deg"].to_numpy(float), samples["pitch_deg"].to_numpy(float)
+    fix = labels == "fixation"
+    if events is not None and len(events) and "t_s" in samples.columns:
+        fx = events[events["type"] == "fixation"].sort_values("onset_s", kind="stable")
+        fid = fixation_ids(samples["t_s"].to_numpy(float), fx["onset_s"].to_numpy(float),
+                           fx["offset_s"].to_numpy(float), labels)
+    else:
+        fid = np.where(fix, np.cumsum(np.r_[True, fix[1:] != fix[:-1]]), -1)
+    ok = (fid >= 0) & np.isfinite(yaw) & np.isfinite(pitch)
+    # runs of usable samples of one fixation: a step counts where both its ends are in one run
+    run = np.where(ok, np.cumsum(np.r_[True, (fid[1:] != fid[:-1]) | ~ok[1:] | ~ok[:-1]]), -1)
+
+    def rms(lag):
+        same = (run[lag:] == run[:-lag]) & (run[lag:] >= 0) if len(run) > lag else np.zeros(0, bool)
+        d2 = (yaw[lag:] - yaw[:-lag]) ** 2 + (pitch[lag:] - pitch[:-lag]) ** 2
+        return float(np.sqrt(np.mean(d2[same]))) if same.any() else float("nan")
+
+    return step_correlation(rms(1), rms(2))
 
 
 def _mean_error_sd(ev: pd.DataFrame, noise_rms_s2s_deg, rho: float = 0.0) -> float | None:
@@ -568,7 +589,8 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     ev_notes = sorted({str(w.message) for w in caught})
     gain = _gain(res_w.events, ref_events, params.match_tolerance_s, params.confidence,
                  noise_w=res_w.quality.get("noise_rms_s2s_deg"), noise_r=res_r.quality.get("noise_rms_s2s_deg"),
-                 rho_w=_error_correlation(cam, res_w.labels), rho_r=_error_correlation(ref_aligned, res_r.labels))
+                 rho_w=_error_correlation(cam, res_w.labels, res_w.events),
+                 rho_r=_error_correlation(ref_aligned, res_r.labels, res_r.events))
     fm = matches["fixation"]
     events = {
         "kappa": kap.kappa, "kappa_ci_low": kap.ci_low, "kappa_ci_high": kap.ci_high, "kappa_n_samples": kap.n,
