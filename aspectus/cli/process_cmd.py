@@ -256,7 +256,7 @@ def run(args) -> int:
         print(f"  {s['verdict']}")
         if res.reused_samples:
             print("  (gaze samples reused from the earlier run of this clip with the same settings; "
-                  "--no-reuse landmarks it again)")
+                  "--no-reuse tracks the face again)")
     if failures:
         print(f"aspectus: {failures} of {len(args.clips)} clip(s) failed", file=sys.stderr)
         return 1
