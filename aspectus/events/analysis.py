@@ -403,19 +403,23 @@ def run_analysis(samples: pd.DataFrame, params: AnalysisParams | None = None, *,
                                  "fixation (Holmqvist, Nystrom & Mulvey 2012), before any smoothing; = the clip's "
                                  "feature",
             "noise_rms_s2s_33ms_deg": "RMS of the distances between valid samples of the same fixation 33 ms apart "
-                                      "(the nearest whole number of sample intervals): noise_rms_s2s_deg at 30 fps, "
+                                      "(the nearest whole number of sample intervals), before any smoothing: "
+                                      "noise_rms_s2s_deg at 30 fps, "
                                       "comparable across frame rates; sets the precision tier with noise_sd_deg; = "
                                       "the clip's feature",
             "noise_sd_deg": "sqrt(sd_yaw^2 + sd_pitch^2) of the valid samples about their fixation's mean, pooled "
-                            "over the fixations (Holmqvist, Nystrom & Mulvey 2012): noise_rms_s2s_deg / sqrt(2) for "
+                            "over the fixations, before any smoothing (Holmqvist, Nystrom & Mulvey 2012): noise_rms_s2s_deg / sqrt(2) for "
                             "white noise, higher for an error that wanders slowly, which filtering leaves; sets the "
                             "precision tier with noise_rms_s2s_33ms_deg; = the clip's feature",
             "noise_rms_s2s_robust_deg": "median sample-to-sample distance x 2 / sqrt(4 ln 2) over all valid steps "
-                                        "(equals RMS-S2S for white noise)",
+                                        "of the samples the detectors read, after any smoothing (equals RMS-S2S "
+                                        "for white noise)",
             "noise_rms_s2s_33ms_robust_deg": "the same over all valid steps 33 ms long (the nearest whole number of "
-                                             "sample intervals): noise_rms_s2s_robust_deg at 30 fps, comparable "
-                                             "across frame rates; adapts the detectors' thresholds",
-            "noise_rms_s2s_all_steps_deg": "RMS of all valid sample-to-sample distances, saccades included"},
+                                             "sample intervals), after any smoothing: noise_rms_s2s_robust_deg at "
+                                             "30 fps, comparable across frame rates; adapts the detectors' "
+                                             "thresholds",
+            "noise_rms_s2s_all_steps_deg": "RMS of all valid sample-to-sample distances, saccades included, after "
+                                           "any smoothing"},
         # fractions of the recorded time: holes in the time axis count as missing
         "valid_frac": cl.time_frac(cl.valid_in),
         "filled_frac": cl.time_frac(cl.filled),

@@ -97,3 +97,28 @@ def test_clip_quality_carries_the_sd_as_its_feature():
     smp["valid"] = False
     with pytest.warns(Warning):
         assert np.isnan(run_analysis(smp).quality["noise_sd_deg"])
+
+
+def test_each_noise_figure_says_which_samples_it_reads():
+    """run.json's quality holds precision figures read before the optional smoothing (the clip's features) beside
+    the thresholds' noise figures read from the samples the detectors see (after it). With smoothing on the two
+    kinds differ several-fold, so each definition says which it is, and the figures are what they say."""
+    from aspectus.events.analysis import AnalysisParams
+    from aspectus.events.detect.noise import robust_rms_s2s_deg, rms_s2s_deg
+
+    rng = np.random.default_rng(6)
+    n = 900
+    smp = pd.DataFrame({"t_s": np.arange(n) / 30.0, "valid": True,
+                        "yaw_deg": np.repeat(rng.uniform(-8, 8, 30), 30) + rng.normal(0, 0.5, n),
+                        "pitch_deg": np.repeat(rng.uniform(-5, 5, 30), 30) + rng.normal(0, 0.5, n)})
+    res = run_analysis(smp, AnalysisParams(smoothing="median", smoothing_window_ms=200.0))
+    q, cl = res.quality, res.cleaned
+    ok = cl.valid_in
+    assert q["noise_rms_s2s_robust_deg"] == pytest.approx(robust_rms_s2s_deg(cl.yaw_deg, cl.pitch_deg, ok))
+    assert q["noise_rms_s2s_all_steps_deg"] == pytest.approx(rms_s2s_deg(cl.yaw_deg, cl.pitch_deg, ok))
+    assert q["noise_rms_s2s_robust_deg"] < 0.6 * q["noise_rms_s2s_deg"]  # the smoothed samples' figure
+    defs = q["noise_definitions"]
+    for k in ("noise_rms_s2s_deg", "noise_rms_s2s_33ms_deg", "noise_sd_deg"):
+        assert "before any smoothing" in defs[k], k
+    for k in ("noise_rms_s2s_robust_deg", "noise_rms_s2s_33ms_robust_deg", "noise_rms_s2s_all_steps_deg"):
+        assert "after any smoothing" in defs[k], k
