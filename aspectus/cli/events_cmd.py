@@ -32,7 +32,7 @@ def register(sub) -> None:
 def run(args) -> int:
     from aspectus.events.analysis import analyse_table
     from aspectus.errors import ParameterError
-    from aspectus.cli.process_cmd import analysis_params_from_args
+    from aspectus.cli.process_cmd import _num, analysis_params_from_args
 
     from aspectus.cli.outdir import apply_output_options, prepare_out_dir
 
@@ -48,7 +48,8 @@ def run(args) -> int:
     counts = ev["type"].value_counts()
     print(f"{run_.input_path}: {int(counts.get('fixation', 0))} fixations, {int(counts.get('saccade', 0))} saccades, "
           f"{int(counts.get('blink', 0))} blinks, {int(counts.get('loss', 0))} loss periods; "
-          f"noise {q['noise_rms_s2s_deg']:.3g} deg RMS-S2S, {q['noise_sd_deg']:.3g} deg SD within fixations, "
+          f"noise {_num(q['noise_rms_s2s_deg'], '.3g', 'deg')} RMS-S2S, {_num(q['noise_sd_deg'], '.3g', 'deg')} SD "
+          "within fixations, "
           f"valid {q['valid_frac']:.0%}, "
           f"detector {params.detector} -> {run_.paths['events_csv']}", file=sys.stdout)
     return 0

@@ -170,3 +170,22 @@ def test_window_options_are_named_as_typed(tmp_path, capsys, argv, said):
     assert rc == 2 and said in err, err
     assert "window_s" not in err and "step_s" not in err
     assert not (tmp_path / "out" / "features.csv").exists()
+
+
+def test_a_precision_figure_that_cannot_be_read_prints_n_a(tmp_path, capsys):
+    """The sample-to-sample noise needs two consecutive valid samples of one fixation: a table whose every other
+    row is missing (filled by the gap filling, not valid) has none, and the printed line says 'n/a' for it rather
+    than 'nan deg', beside the SD within fixations, which it can read."""
+    rng = np.random.default_rng(0)
+    t = np.arange(0, 6.0, 1 / 30)
+    x = np.repeat(rng.uniform(-8, 8, 12), 15) + rng.normal(0, 0.2, len(t))
+    y = np.repeat(rng.uniform(-5, 5, 12), 15) + rng.normal(0, 0.2, len(t))
+    x[1::2] = y[1::2] = np.nan
+    src = tmp_path / "every_other.csv"
+    pd.DataFrame({"time": t, "gx": x, "gy": y}).to_csv(src, index=False)
+    rc = main(["events", str(src), "-o", str(tmp_path / "out"), "--time-col", "time", "--x-col", "gx",
+               "--y-col", "gy"])
+    assert rc == 0
+    printed = capsys.readouterr().out
+    assert "nan" not in printed.lower(), printed
+    assert "noise n/a RMS-S2S, 0.2" in printed and " deg SD within fixations" in printed, printed
