@@ -62,8 +62,10 @@ class AnalysisParams:
         Gap filling method.
     smoothing : {None, "median", "savgol"}, default None
         Optional centred smoothing (lag 0 ms) before detection. The
-        precision figures (``noise_*``, and with them the precision tier)
-        are read from the samples before it.
+        precision figures (``noise_rms_s2s_deg``, ``noise_rms_s2s_33ms_deg``,
+        ``noise_sd_deg``, and with them the precision tier) are read from the
+        samples before it; the thresholds' robust noise figures from the
+        samples after it.
     smoothing_window_ms : float, default 100
         Smoothing window, ms.
     merge_gap_ms : float, default 75
