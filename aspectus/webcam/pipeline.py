@@ -705,10 +705,10 @@ def very_noisy_deg() -> float:
 
 def tier_needs(tier: str) -> str:
     """What ``tier`` needs of a clip, in plain words with the limits of :data:`PRECISION_TIERS` (for help texts):
-    e.g. "a noise of at most 1.5 deg from sample to sample, an SD within fixations of at most 1.06 deg and irises
+    e.g. "a noise of at most 1.5 deg between samples 33 ms apart, an SD within fixations of at most 1.06 deg and irises
     at least 12 px across"."""
     _, max_noise, min_iris, _ = next(t for t in PRECISION_TIERS if t[0] == tier)
-    return (f"a noise of at most {max_noise:g} deg from sample to sample, an SD within fixations of at most "
+    return (f"a noise of at most {max_noise:g} deg between samples 33 ms apart, an SD within fixations of at most "
             f"{tier_sd_limit_deg(max_noise):.2f} deg and irises at least {min_iris:g} px across")
 
 
@@ -730,10 +730,10 @@ def _tier_shortfall(summary: dict, tier: str) -> list[str]:
         out.append("the gaze noise could not be measured (too few steady stretches of usable gaze)")
     else:
         if not noise_ok:
-            out.append("the gaze's noise from sample to sample could not be measured (too few steady stretches of "
+            out.append("the gaze's noise between samples 33 ms apart could not be measured (too few steady stretches of "
                        "usable gaze)")
         elif noise > max_noise:
-            out.append(f"the gaze moves {noise:.2f} deg from one sample to the next (RMS-S2S; at most "
+            out.append(f"the gaze moves {noise:.2f} deg between samples 33 ms apart (RMS-S2S; at most "
                        f"{max_noise:g} deg needed)")
         if not sd_ok:
             out.append("the gaze's spread within fixations could not be measured (no fixation holds two usable "

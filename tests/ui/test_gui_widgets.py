@@ -242,7 +242,7 @@ def test_guide_and_tooltips_explain_the_two_precision_figures_with_the_verdicts_
         assert name in text and name in view.quality_captions
     assert "degrees of visual angle" in text and all("degrees of visual angle" in t for t in tips)
     for tier, max_noise, min_iris, _ in PRECISION_TIERS[:2]:
-        for words in (f"at most {max_noise:g} deg from sample to sample",
+        for words in (f"at most {max_noise:g} deg between samples 33 ms apart",
                       f"SD within fixations of at most {tier_sd_limit_deg(max_noise):.2f} deg",
                       f"irises at least {min_iris:g} px across"):
             assert words in text, (tier, words)

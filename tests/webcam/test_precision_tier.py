@@ -71,9 +71,9 @@ def test_summary_and_verdict_carry_the_tier(noise, iris, tier, words):
     # the SD alone above the events tier's limit (1.5 / sqrt(2) = 1.06 deg), iris large enough: the iris is not
     # given as a reason
     (1.16, 1.12, 23.0, "coarse", ["spread 1.12 deg about each fixation's centre (SD; at most 1.06 deg needed)"],
-     ["irises about", "from one sample to the next"]),
+     ["irises about", "between samples 33 ms apart"]),
     # the RMS-S2S alone above 1.5 deg
-    (1.70, 1.00, 20.0, "coarse", ["moves 1.70 deg from one sample to the next (RMS-S2S; at most 1.5 deg needed)"],
+    (1.70, 1.00, 20.0, "coarse", ["moves 1.70 deg between samples 33 ms apart (RMS-S2S; at most 1.5 deg needed)"],
      ["about each fixation's centre", "irises about"]),
     # the iris alone below 12 px
     (0.80, 0.55, 9.0, "coarse", ["irises about 9 px across (at least 12 px needed"], ["RMS-S2S;", "(SD;"]),
