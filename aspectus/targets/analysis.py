@@ -317,17 +317,23 @@ def fit_mapping(target_x_deg, target_y_deg, gaze_yaw_deg, gaze_pitch_deg) -> Map
 
 
 def _rms_s2s(x, y, ok) -> float:
-    both = ok[1:] & ok[:-1]
-    if both.sum() < 2:
+    """RMS-S2S (deg) of one still dot's samples (:func:`aspectus.events.detect.noise.rms_s2s_deg`); NaN below two
+    steps between usable samples."""
+    from aspectus.events.detect.noise import rms_s2s_deg
+
+    if (ok[1:] & ok[:-1]).sum() < 2:
         return float("nan")
-    dx, dy = np.diff(x)[both], np.diff(y)[both]
-    return float(np.sqrt(np.mean(dx * dx + dy * dy)))
+    return rms_s2s_deg(x, y, ok)
 
 
 def _sd(x, y, ok) -> float:
+    """SD (deg, 2-D) of one still dot's samples about their mean (:func:`aspectus.events.detect.noise.fixation_sd_deg`
+    with the dot as the one fixation); NaN below three usable samples."""
+    from aspectus.events.detect.noise import fixation_sd_deg
+
     if ok.sum() < 3:
         return float("nan")
-    return float(np.sqrt(np.var(x[ok], ddof=1) + np.var(y[ok], ddof=1)))
+    return fixation_sd_deg(x, y, np.where(ok, 0, -1))
 
 
 @dataclass
