@@ -16,17 +16,14 @@ import argparse
 import sys
 from pathlib import Path
 
-import numpy as np
-
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "tests"))
 
 import _lund  # noqa: E402
-from _lund import CODERS, cohen_kappa, load_all, runs  # noqa: E402
+from _lund import load_all  # noqa: E402
 
 import aspectus.events.detect.idt as idt  # noqa: E402
-from aspectus.events.analysis import AnalysisParams, run_analysis  # noqa: E402
 
 
 def measure(trials, noise_rms_deg: float, rho: float, wander: bool) -> dict:
@@ -34,19 +31,9 @@ def measure(trials, noise_rms_deg: float, rho: float, wander: bool) -> dict:
     if not wander:
         idt.wander_rms_deg = lambda *a, **k: float("nan")
     try:
-        k_, ratio, thr = [], [], []
-        for k, tr in enumerate(trials):
-            lo = _lund.with_noise(_lund.degrade(tr, rate_hz=30.0, noise_rms_deg=0.0, seed=k), noise_rms_deg,
-                                  rho=rho, seed=1000 + k)
-            res = run_analysis(lo.samples(), AnalysisParams())
-            fix = res.labels == "fixation"
-            k_.append(np.mean([cohen_kappa(fix, lo.labels[c] == _lund.FIXATION) for c in CODERS]))
-            n_ref = np.mean([runs(lo.fixation_mask(c), lo.t_s)[0] for c in CODERS])
-            ratio.append(int((res.events.type == "fixation").sum()) / n_ref)
-            thr.append(res.quality["detector_thresholds"]["dispersion_deg"])
+        return _lund.agreement_at_30hz(trials, noise_rms_deg, rho)
     finally:
         idt.wander_rms_deg = keep
-    return {"kappa": float(np.mean(k_)), "count_ratio": float(np.mean(ratio)), "thr": float(np.mean(thr))}
 
 
 def main(argv=None) -> int:
@@ -63,7 +50,7 @@ def main(argv=None) -> int:
             b = measure(trials, lev, rho, False)
             f = measure(trials, lev, rho, True)
             print(f"| {lev:g} | {rho:g} | {b['kappa']:.3f} -> {f['kappa']:.3f} | {b['count_ratio']:.2f} -> "
-                  f"{f['count_ratio']:.2f} | {b['thr']:.2f} -> {f['thr']:.2f} |", flush=True)
+                  f"{f['count_ratio']:.2f} | {b['threshold_deg']:.2f} -> {f['threshold_deg']:.2f} |", flush=True)
     return 0
 
 

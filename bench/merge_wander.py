@@ -23,10 +23,9 @@ sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "tests"))
 
 import _lund  # noqa: E402
-from _lund import CODERS, cohen_kappa, load_all, runs  # noqa: E402
+from _lund import load_all  # noqa: E402
 
 import aspectus.events.analysis as analysis  # noqa: E402
-from aspectus.events.analysis import AnalysisParams, run_analysis  # noqa: E402
 
 
 @contextmanager
@@ -49,17 +48,8 @@ def merge_reads_wander(on: bool = True):
 
 
 def measure(trials, noise_rms_deg: float, rho: float, wander: bool) -> dict:
-    k_, ratio = [], []
     with merge_reads_wander(wander):
-        for k, tr in enumerate(trials):
-            lo = _lund.with_noise(_lund.degrade(tr, rate_hz=30.0, noise_rms_deg=0.0, seed=k), noise_rms_deg,
-                                  rho=rho, seed=1000 + k)
-            res = run_analysis(lo.samples(), AnalysisParams())
-            fix = res.labels == "fixation"
-            k_.append(np.mean([cohen_kappa(fix, lo.labels[c] == _lund.FIXATION) for c in CODERS]))
-            n_ref = np.mean([runs(lo.fixation_mask(c), lo.t_s)[0] for c in CODERS])
-            ratio.append(int((res.events.type == "fixation").sum()) / n_ref)
-    return {"kappa": float(np.mean(k_)), "count_ratio": float(np.mean(ratio))}
+        return _lund.agreement_at_30hz(trials, noise_rms_deg, rho)
 
 
 def main(argv=None) -> int:

@@ -314,3 +314,21 @@ def with_noise(trial: LundTrial, noise_rms_deg: float, *, rho: float = 0.0, seed
     return LundTrial(name=trial.name, t_s=trial.t_s.copy(), yaw_deg=trial.yaw_deg + ar1_noise(n, rho, sd, rng),
                      pitch_deg=trial.pitch_deg + ar1_noise(n, rho, sd, rng), valid=trial.valid.copy(),
                      labels={c: v.copy() for c, v in trial.labels.items()}, screen=trial.screen)
+
+
+def agreement_at_30hz(trials: list[LundTrial], noise_rms_deg: float, rho: float = 0.0) -> dict:
+    """The default analysis against both coders on ``trials`` at 30 Hz (:func:`degrade`, noise-free) plus noise
+    (:func:`with_noise`, seed 1000 + trial index): means over the trials of the sample kappa (``kappa``), the
+    fixations found per coder fixation (``count_ratio``) and the I-DT threshold in degrees (``threshold_deg``)."""
+    from aspectus.events.analysis import AnalysisParams, run_analysis
+
+    kappa, ratio, thr = [], [], []
+    for k, tr in enumerate(trials):
+        lo = with_noise(degrade(tr, rate_hz=30.0, noise_rms_deg=0.0, seed=k), noise_rms_deg, rho=rho, seed=1000 + k)
+        res = run_analysis(lo.samples(), AnalysisParams())
+        fix = res.labels == "fixation"
+        kappa.append(np.mean([cohen_kappa(fix, lo.labels[c] == FIXATION) for c in CODERS]))
+        n_ref = np.mean([runs(lo.fixation_mask(c), lo.t_s)[0] for c in CODERS])
+        ratio.append(int((res.events.type == "fixation").sum()) / n_ref)
+        thr.append(res.quality["detector_thresholds"]["dispersion_deg"])
+    return {"kappa": float(np.mean(kappa)), "count_ratio": float(np.mean(ratio)), "threshold_deg": float(np.mean(thr))}
