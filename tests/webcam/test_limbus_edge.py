@@ -12,12 +12,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from _drawn_eye import eye_opening
+
 from aspectus.webcam.landmarks import LEFT_EYE_OUTLINE, RIGHT_EYE_OUTLINE
 from aspectus.webcam.limbus import _model_edges, limbus_centres_many
 
 cv2 = pytest.importorskip("cv2")
 
-_SS = 8
 R_PX = 11.0  # iris radius (a 22 px iris, as on the rendered target clips)
 
 
@@ -61,19 +62,7 @@ def _eye(centre, rng, shading, upper_only=False, size=80):
     eye opening, drawn at 8x and averaged down, blurred (SD 1.3 px), with noise; and the eye's outline as the face
     mesh's 16 points."""
     a = R_PX
-    cx, cy = centre
-    ew = 2.6 * a
-    top, bot = cy - 1.5 * a, cy + 1.5 * a
-    xs = np.linspace(cx - ew, cx + ew, 9)
-    u = (xs - cx) / ew
-    upper = np.c_[xs, cy + (top - cy) * (1 - u ** 2)]
-    lower = np.c_[xs, cy + (bot - cy) * (1 - u ** 2)]
-    outline = np.vstack([upper, lower[1:-1][::-1]])
-    n = size * _SS
-    m = np.zeros((n, n), np.uint8)
-    cv2.fillPoly(m, [np.round(outline * _SS * 16).astype(np.int32)], 1, cv2.LINE_8, 4)
-    yy, xx = np.mgrid[0:n, 0:n].astype(np.float32)
-    X, Y = (xx + 0.5) / _SS - cx, (yy + 0.5) / _SS - cy  # picture coordinates: pixel i spans [i, i + 1)
+    outline, m, X, Y = eye_opening(cv2, centre, a, centre[1] - 1.5 * a, centre[1] + 1.5 * a, size)
     rho = np.hypot(X, Y)
     f = np.clip(1.0 - shading * (rho - a), 0.3, 1.0)
     if upper_only:

@@ -13,12 +13,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from _drawn_eye import eye_opening
+
 from aspectus.webcam.landmarks import LEFT_EYE_OUTLINE, RIGHT_EYE_OUTLINE
 from aspectus.webcam.limbus import iris_shape, limbus_centres_many
 
 cv2 = pytest.importorskip("cv2")
 
-_SS = 8  # supersampling of the drawing
 R_PX = 12.5  # iris radius (a 25 px iris: a large face, 1280 x 720 at about half a metre)
 PLANE_PX = R_PX * 10.4775 / 5.85  # the iris plane's distance from the eyeball centre at this scale, px
 
@@ -56,20 +57,8 @@ def _draw(centre, ratio, minor_deg, rng, size=100):
     lids that hide its top fifth and bottom twentieth, drawn at 8x and averaged down, blurred, with noise; and
     the eye's outline as the face mesh's 16 points (the lids' own edge)."""
     a = R_PX
-    cx, cy = centre
-    ew = 2.6 * a
-    top, bot = cy - a + 0.4 * a, cy + a - 0.1 * a
-    xs = np.linspace(cx - ew, cx + ew, 9)
-    u = (xs - cx) / ew
-    upper = np.c_[xs, cy + (top - cy) * (1 - u ** 2)]
-    lower = np.c_[xs, cy + (bot - cy) * (1 - u ** 2)]
-    outline = np.vstack([upper, lower[1:-1][::-1]])
-    n = size * _SS
-    skin = np.full((n, n), 150, np.float32)
-    m = np.zeros((n, n), np.uint8)
-    cv2.fillPoly(m, [np.round(outline * _SS * 16).astype(np.int32)], 1, cv2.LINE_8, 4)
-    yy, xx = np.mgrid[0:n, 0:n].astype(np.float32)
-    X, Y = (xx + 0.5) / _SS - cx, (yy + 0.5) / _SS - cy  # picture coordinates: pixel i spans [i, i + 1)
+    outline, m, X, Y = eye_opening(cv2, centre, a, centre[1] - a + 0.4 * a, centre[1] + a - 0.1 * a, size)
+    skin = np.full(m.shape, 150, np.float32)
     phi = np.radians(minor_deg)
     s, t = X * np.cos(phi) + Y * np.sin(phi), -X * np.sin(phi) + Y * np.cos(phi)
     eye = np.where((s / (ratio * a)) ** 2 + (t / a) ** 2 <= 1.0, 70.0, 215.0).astype(np.float32)

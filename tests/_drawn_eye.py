@@ -1,0 +1,29 @@
+"""Drawn grey eyes for the limbus tests: the eye opening and the picture grid they are drawn on.
+
+The eye opening is the face mesh's 16-point outline (upper and lower lid as parabolas through the eye corners,
+2.6 iris radii either side of the centre); the picture is drawn ``SUPERSAMPLE`` times finer and averaged down by
+the tests, so edges land at sub-pixel positions.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+SUPERSAMPLE = 8
+
+
+def eye_opening(cv2, centre, iris_r_px: float, top: float, bottom: float, size: int):
+    """The outline (16 x 2, picture px) of an eye opening centred at ``centre`` whose lids reach the heights ``top``
+    and ``bottom`` at the middle; its mask on the fine grid (``size * SUPERSAMPLE`` square, uint8); and the fine
+    grid's picture coordinates relative to ``centre`` (X, Y; pixel i spans [i, i + 1))."""
+    cx, cy = centre
+    ew = 2.6 * iris_r_px
+    xs = np.linspace(cx - ew, cx + ew, 9)
+    u = (xs - cx) / ew
+    upper = np.c_[xs, cy + (top - cy) * (1 - u ** 2)]
+    lower = np.c_[xs, cy + (bottom - cy) * (1 - u ** 2)]
+    outline = np.vstack([upper, lower[1:-1][::-1]])
+    n = size * SUPERSAMPLE
+    mask = np.zeros((n, n), np.uint8)
+    cv2.fillPoly(mask, [np.round(outline * SUPERSAMPLE * 16).astype(np.int32)], 1, cv2.LINE_8, 4)
+    yy, xx = np.mgrid[0:n, 0:n].astype(np.float32)
+    return outline, mask, (xx + 0.5) / SUPERSAMPLE - cx, (yy + 0.5) / SUPERSAMPLE - cy
