@@ -12,7 +12,6 @@ Run: ``python bench/idt_wander.py [--noise 0.5 1.0 1.5] [--rho 0 0.7 0.8 0.9]``
 """
 from __future__ import annotations
 
-import argparse
 import sys
 from pathlib import Path
 
@@ -21,7 +20,6 @@ sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "tests"))
 
 import _lund  # noqa: E402
-from _lund import load_all  # noqa: E402
 
 import aspectus.events.detect.idt as idt  # noqa: E402
 
@@ -37,21 +35,7 @@ def measure(trials, noise_rms_deg: float, rho: float, wander: bool) -> dict:
 
 
 def main(argv=None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--trials-dir", type=Path, default=REPO.parent / "shared" / "reference" / "lund2013" / "img")
-    ap.add_argument("--noise", type=float, nargs="+", default=[0.5, 1.0, 1.5], help="noise RMS per sample, deg")
-    ap.add_argument("--rho", type=float, nargs="+", default=[0.0, 0.7, 0.8, 0.9])
-    a = ap.parse_args(argv)
-    trials = load_all(a.trials_dir)
-    print("| noise RMS deg | rho | kappa before -> after | fixations / coders' before -> after | threshold deg |")
-    print("|---|---|---|---|---|")
-    for lev in a.noise:
-        for rho in a.rho:
-            b = measure(trials, lev, rho, False)
-            f = measure(trials, lev, rho, True)
-            print(f"| {lev:g} | {rho:g} | {b['kappa']:.3f} -> {f['kappa']:.3f} | {b['count_ratio']:.2f} -> "
-                  f"{f['count_ratio']:.2f} | {b['threshold_deg']:.2f} -> {f['threshold_deg']:.2f} |", flush=True)
-    return 0
+    return _lund.noise_conditions_main(argv, __doc__.splitlines()[0], measure, labels=("before", "after"))
 
 
 if __name__ == "__main__":

@@ -11,7 +11,6 @@ Run: ``python bench/merge_wander.py [--noise 0.5 1.0 1.5] [--rho 0 0.7 0.8 0.9]`
 """
 from __future__ import annotations
 
-import argparse
 import sys
 from contextlib import contextmanager
 from pathlib import Path
@@ -23,7 +22,6 @@ sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "tests"))
 
 import _lund  # noqa: E402
-from _lund import load_all  # noqa: E402
 
 import aspectus.events.analysis as analysis  # noqa: E402
 
@@ -53,21 +51,7 @@ def measure(trials, noise_rms_deg: float, rho: float, wander: bool) -> dict:
 
 
 def main(argv=None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--trials-dir", type=Path, default=REPO.parent / "shared" / "reference" / "lund2013" / "img")
-    ap.add_argument("--noise", type=float, nargs="+", default=[0.5, 1.0, 1.5], help="noise RMS per sample, deg")
-    ap.add_argument("--rho", type=float, nargs="+", default=[0.0, 0.7, 0.8, 0.9])
-    a = ap.parse_args(argv)
-    trials = load_all(a.trials_dir)
-    print("| noise RMS deg | rho | kappa as built -> wander | fixations / coders' as built -> wander |")
-    print("|---|---|---|---|")
-    for lev in a.noise:
-        for rho in a.rho:
-            b = measure(trials, lev, rho, False)
-            f = measure(trials, lev, rho, True)
-            print(f"| {lev:g} | {rho:g} | {b['kappa']:.3f} -> {f['kappa']:.3f} | {b['count_ratio']:.3f} -> "
-                  f"{f['count_ratio']:.3f} |", flush=True)
-    return 0
+    return _lund.noise_conditions_main(argv, __doc__.splitlines()[0], measure, labels=("as built", "wander"))
 
 
 if __name__ == "__main__":

@@ -27,3 +27,14 @@ def eye_opening(cv2, centre, iris_r_px: float, top: float, bottom: float, size: 
     cv2.fillPoly(mask, [np.round(outline * SUPERSAMPLE * 16).astype(np.int32)], 1, cv2.LINE_8, 4)
     yy, xx = np.mgrid[0:n, 0:n].astype(np.float32)
     return outline, mask, (xx + 0.5) / SUPERSAMPLE - cx, (yy + 0.5) / SUPERSAMPLE - cy
+
+
+def right_eye_only(outline: np.ndarray) -> np.ndarray:
+    """Face mesh points (478 x 3) with the right eye's outline at ``outline`` and the left eye's 1000 px off the
+    picture, so only the right eye is fitted."""
+    from aspectus.webcam.landmarks import LEFT_EYE_OUTLINE, RIGHT_EYE_OUTLINE
+
+    pts = np.zeros((478, 3))
+    pts[list(RIGHT_EYE_OUTLINE), :2] = outline
+    pts[list(LEFT_EYE_OUTLINE), :2] = outline + 1000.0
+    return pts

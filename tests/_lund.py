@@ -332,3 +332,27 @@ def agreement_at_30hz(trials: list[LundTrial], noise_rms_deg: float, rho: float 
         ratio.append(int((res.events.type == "fixation").sum()) / n_ref)
         thr.append(res.quality["detector_thresholds"]["dispersion_deg"])
     return {"kappa": float(np.mean(kappa)), "count_ratio": float(np.mean(ratio)), "threshold_deg": float(np.mean(thr))}
+
+
+def noise_conditions_main(argv, description: str, measure, labels=("before", "after")) -> int:
+    """The command line of the benches that compare two settings on the Lund trials at 30 Hz over noise levels and
+    lag-1 correlations (``--noise``, ``--rho``): one Markdown row per condition with ``measure(trials, noise, rho,
+    on)``'s kappa, fixations per coder fixation and, where it gives one, I-DT threshold, off -> on."""
+    import argparse
+
+    ap = argparse.ArgumentParser(description=description)
+    ap.add_argument("--trials-dir", type=Path,
+                    default=Path(__file__).resolve().parents[2] / "shared" / "reference" / "lund2013" / "img")
+    ap.add_argument("--noise", type=float, nargs="+", default=[0.5, 1.0, 1.5], help="noise RMS per sample, deg")
+    ap.add_argument("--rho", type=float, nargs="+", default=[0.0, 0.7, 0.8, 0.9])
+    a = ap.parse_args(argv)
+    trials = load_all(a.trials_dir)
+    arrow = f"{labels[0]} -> {labels[1]}"
+    print(f"| noise RMS deg | rho | kappa {arrow} | fixations / coders' {arrow} | threshold deg {arrow} |")
+    print("|---|---|---|---|---|")
+    for lev in a.noise:
+        for rho in a.rho:
+            b, f = measure(trials, lev, rho, False), measure(trials, lev, rho, True)
+            print(f"| {lev:g} | {rho:g} | {b['kappa']:.3f} -> {f['kappa']:.3f} | {b['count_ratio']:.3f} -> "
+                  f"{f['count_ratio']:.3f} | {b['threshold_deg']:.2f} -> {f['threshold_deg']:.2f} |", flush=True)
+    return 0

@@ -12,9 +12,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from _drawn_eye import eye_opening
+from _drawn_eye import eye_opening, right_eye_only
 
-from aspectus.webcam.landmarks import LEFT_EYE_OUTLINE, RIGHT_EYE_OUTLINE
 from aspectus.webcam.limbus import _model_edges, limbus_centres_many
 
 cv2 = pytest.importorskip("cv2")
@@ -80,9 +79,7 @@ def _fits(shading, upper_only, edge):
     for _ in range(12):
         c = np.array([40.0, 40.0]) + rng.uniform(-0.5, 0.5, 2)
         img, outline = _eye(c, rng, shading, upper_only)
-        pts = np.zeros((478, 3))
-        pts[list(RIGHT_EYE_OUTLINE), :2] = outline
-        pts[list(LEFT_EYE_OUTLINE), :2] = outline + 1000.0  # the other eye off the picture: not fitted
+        pts = right_eye_only(outline)
         items.append((img, pts, np.array([c + rng.normal(0, 0.5, 2), c + 1000.0]), np.array([2 * R_PX, 2 * R_PX])))
         truth.append(c)
     res = limbus_centres_many(items, edge=edge, diameters=True)

@@ -13,9 +13,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from _drawn_eye import eye_opening
+from _drawn_eye import eye_opening, right_eye_only
 
-from aspectus.webcam.landmarks import LEFT_EYE_OUTLINE, RIGHT_EYE_OUTLINE
 from aspectus.webcam.limbus import iris_shape, limbus_centres_many
 
 cv2 = pytest.importorskip("cv2")
@@ -76,9 +75,7 @@ def test_a_fitted_ellipse_takes_away_the_circle_fits_bias_behind_the_lids(theta_
     for _ in range(12):
         c = np.array([50.0, 50.0]) + rng.uniform(-0.5, 0.5, 2)
         img, outline = _draw(c, ratio, minor_deg, rng)
-        pts = np.zeros((478, 3))
-        pts[list(RIGHT_EYE_OUTLINE), :2] = outline
-        pts[list(LEFT_EYE_OUTLINE), :2] = outline + 1000.0  # the other eye off the picture: not fitted
+        pts = right_eye_only(outline)
         start = np.array([c + rng.normal(0, 0.7, 2), c + 1000.0])  # the face mesh's iris point, a little off
         items.append((img, pts, start, np.array([2 * R_PX * rng.uniform(0.95, 1.05), 2 * R_PX])))
         # the eyeball centre's picture position: the iris centre PLANE_PX sin(theta) back along the minor axis
@@ -105,9 +102,7 @@ def test_an_iris_seen_face_on_is_fitted_as_well_as_by_the_circle():
         rng = np.random.default_rng(seed)
         c = np.array([50.2, 49.7]) + rng.uniform(-0.5, 0.5, 2)
         img, outline = _draw(c, 1.0, 0.0, rng)
-        pts = np.zeros((478, 3))
-        pts[list(RIGHT_EYE_OUTLINE), :2] = outline
-        pts[list(LEFT_EYE_OUTLINE), :2] = outline + 1000.0
+        pts = right_eye_only(outline)
         item = (img, pts, np.array([c + [0.4, -0.6], c + 1000.0]), np.array([2 * R_PX, 2 * R_PX]))
         err_c.append(limbus_centres_many([item])[0][0][0] - c)
         err_e.append(limbus_centres_many([item], eyeball_px=[np.array([c, c + 1000.0])])[0][0][0] - c)
