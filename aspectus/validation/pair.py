@@ -351,26 +351,27 @@ def agreement_table(pairs: pd.DataFrame, features, *, icc_form: str = DEFAULT_IC
     return df[cols + [c for c in df.columns if c not in cols]] if len(df) else pd.DataFrame(columns=cols)
 
 
-def _error_correlation(samples: pd.DataFrame, labels, events: pd.DataFrame | None = None) -> float:
-    """The lag-1 autocorrelation of a side's error within its fixations (0 where it cannot be read).
+AXES = ("yaw", "pitch")
 
-    Read as an AR(1) error's from the RMS-S2S over steps of one and of two samples within fixations
-    (:func:`aspectus.events.detect.noise.step_correlation`): a step counts where every sample it spans is usable
+
+def _fixation_step_rms(samples: pd.DataFrame, labels, events: pd.DataFrame | None = None) -> dict | None:
+    """RMS-S2S within fixations over steps of one and of two samples, per axis and in 2-D (deg), or None.
+
+    ``{"yaw": (r1, r2), "pitch": (r1, r2), "2d": (r1, r2)}``: a step counts where every sample it spans is usable
     and in one fixation - one fixation event of ``events`` (:func:`aspectus.events.features.fixation_ids`, as the
     clip's precision features count steps), or without ``events`` one run of fixation labels. Two fixations side
     by side in the labels are a saccade that fell between two samples (common at 30 Hz): a step across them would
     weigh the jump twice in the two-sample steps and once in the one-sample ones, and read the correlation near
-    its bound whatever the error's own. Webcam gaze error changes slowly (0.6-0.9 on rendered clips), and a lab
-    tracker's filtered signal is correlated from sample to sample too. The plain RMS rather than the
-    median-based one: within fixations there are no saccades to shrug off, and near 1 the correlation is
-    sensitive to the figures' ratio (the median's own scatter read an AR(1) error of 0.85 as 0.885 over 30 000
-    samples, the RMS's as 0.853).
+    its bound whatever the error's own. A per-axis figure is the RMS of that axis's component of the steps
+    (``sqrt(2) s sqrt(1 - rho)`` for an AR(1) error of stationary SD ``s``; the 2-D figure is the root of the two
+    axes' squares). The plain RMS rather than the median-based one: within fixations there are no saccades to
+    shrug off, and near 1 the correlation is sensitive to the figures' ratio (the median's own scatter read an
+    AR(1) error of 0.85 as 0.885 over 30 000 samples, the RMS's as 0.853).
     """
-    from aspectus.events.detect.noise import step_correlation
     from aspectus.events.features import fixation_ids
 
     if labels is None or not {"yaw_deg", "pitch_deg"} <= set(samples.columns) or len(labels) != len(samples):
-        return 0.0
+        return None
     labels = np.asarray(labels)
     yaw, pitch = samples["yaw_deg"].to_numpy(float), samples["pitch_deg"].to_numpy(float)
     fix = labels == "fixation"
@@ -384,22 +385,54 @@ def _error_correlation(samples: pd.DataFrame, labels, events: pd.DataFrame | Non
     # runs of usable samples of one fixation: a step counts where both its ends are in one run
     run = np.where(ok, np.cumsum(np.r_[True, (fid[1:] != fid[:-1]) | ~ok[1:] | ~ok[:-1]]), -1)
 
-    def rms(lag):
+    def ms(v, lag):
         same = (run[lag:] == run[:-lag]) & (run[lag:] >= 0) if len(run) > lag else np.zeros(0, bool)
-        d2 = (yaw[lag:] - yaw[:-lag]) ** 2 + (pitch[lag:] - pitch[:-lag]) ** 2
-        return float(np.sqrt(np.mean(d2[same]))) if same.any() else float("nan")
+        return float(np.mean((v[lag:] - v[:-lag])[same] ** 2)) if same.any() else float("nan")
 
-    return step_correlation(rms(1), rms(2))
+    out = {axis: (ms(v, 1), ms(v, 2)) for axis, v in zip(AXES, (yaw, pitch))}
+    out["2d"] = tuple(out["yaw"][k] + out["pitch"][k] for k in range(2))
+    return {k: tuple(float(np.sqrt(m)) for m in v) for k, v in out.items()}
 
 
-def _mean_error_sd(ev: pd.DataFrame, noise_rms_s2s_deg, rho: float = 0.0) -> float | None:
+def _error_correlation(samples: pd.DataFrame, labels, events: pd.DataFrame | None = None,
+                       axis: str = "2d") -> float:
+    """The lag-1 autocorrelation of a side's error within its fixations (0 where it cannot be read).
+
+    Read as an AR(1) error's from the RMS-S2S over steps of one and of two samples within fixations
+    (:func:`_fixation_step_rms`, :func:`aspectus.events.detect.noise.step_correlation`): of one axis's component of
+    the steps (``axis`` ``"yaw"`` or ``"pitch"``) or of their 2-D length (``"2d"``, the two axes pooled, which
+    follows the axis with the larger steps). Webcam gaze error changes slowly (0.6-0.9 on rendered clips), and a
+    lab tracker's filtered signal is correlated from sample to sample too.
+    """
+    from aspectus.events.detect.noise import step_correlation
+
+    rms = _fixation_step_rms(samples, labels, events)
+    return 0.0 if rms is None else step_correlation(*rms[axis])
+
+
+def _side_error(samples: pd.DataFrame, labels, events: pd.DataFrame | None = None) -> dict:
+    """One side's error within fixations, per axis: ``{"noise_rms_s2s_deg": {axis: r1}, "rho": {axis: rho}}``
+    (the one-sample RMS-S2S of the axis's component of the steps, and its lag-1 correlation; NaN and 0 where they
+    cannot be read), plus the pooled 2-D reading of the correlation under ``"rho"["2d"]``."""
+    from aspectus.events.detect.noise import step_correlation
+
+    rms = _fixation_step_rms(samples, labels, events)
+    if rms is None:
+        return {"noise_rms_s2s_deg": {a: float("nan") for a in AXES}, "rho": {a: 0.0 for a in (*AXES, "2d")}}
+    return {"noise_rms_s2s_deg": {a: rms[a][0] for a in AXES},
+            "rho": {a: step_correlation(*rms[a]) for a in (*AXES, "2d")}}
+
+
+def _mean_error_sd(ev: pd.DataFrame, noise_rms_s2s_deg, rho: float = 0.0, *, axes: int = 2) -> float | None:
     """Error SD (deg, per axis) of a fixation's mean position from the measured noise and its lag-1 correlation.
 
-    RMS-S2S is ``2 s sqrt(1 - rho)`` for an AR(1) error of per-axis stationary SD ``s`` and lag-1 correlation
-    ``rho`` (``2 s`` for white noise: Holmqvist, Nystrom & Mulvey 2012), and a mean of ``n`` consecutive samples
-    has the variance ``s^2 / n`` times :func:`aspectus.events.detect.noise.mean_variance_factor` (1 for white
-    noise: the ``1 / sqrt(n)`` of independent samples); ``n`` is the median sample count of the side's fixations.
-    A slowly changing error averages out over far fewer independent looks than samples.
+    ``noise_rms_s2s_deg`` is the 2-D RMS-S2S (``axes=2``, the two axes pooled) or one axis's (``axes=1``, the RMS
+    of that axis's component of the steps). RMS-S2S is ``sqrt(2 axes) s sqrt(1 - rho)`` for an AR(1) error of
+    per-axis stationary SD ``s`` and lag-1 correlation ``rho`` (``2 s`` in 2-D for white noise: Holmqvist, Nystrom
+    & Mulvey 2012), and a mean of ``n`` consecutive samples has the variance ``s^2 / n`` times
+    :func:`aspectus.events.detect.noise.mean_variance_factor` (1 for white noise: the ``1 / sqrt(n)`` of
+    independent samples); ``n`` is the median sample count of the side's fixations. A slowly changing error
+    averages out over far fewer independent looks than samples.
     """
     from aspectus.events.detect.noise import mean_variance_factor
 
@@ -409,47 +442,130 @@ def _mean_error_sd(ev: pd.DataFrame, noise_rms_s2s_deg, rho: float = 0.0) -> flo
         return None
     n = max(float(np.median(fx["n_samples"])), 1.0)
     rho = float(rho) if rho is not None and np.isfinite(rho) else 0.0
-    s2 = (float(noise_rms_s2s_deg) / 2.0) ** 2 / (1.0 - rho)
+    s2 = float(noise_rms_s2s_deg) ** 2 / (2.0 * axes) / (1.0 - rho)
     return float(np.sqrt(s2 / n * mean_variance_factor(rho, n)))
 
 
+def _saccade_cos2(ev: pd.DataFrame, idx) -> np.ndarray:
+    """``cos^2`` of the direction (from the yaw axis) of the saccades ``ev[ev.type == "saccade"].iloc[idx]``, read
+    off the fixations either side (the pair of consecutive fixations whose means are the saccade's amplitude
+    apart, the detector's rule); NaN where no such pair is found (e.g. a reference's own events)."""
+    sac = ev[ev["type"] == "saccade"].reset_index(drop=True).iloc[np.asarray(idx, dtype=int)]
+    out = np.full(len(sac), np.nan)
+    need = {"onset_s", "yaw_deg", "pitch_deg"}
+    if not len(sac) or not need <= set(ev.columns) or "amplitude_deg" not in sac.columns:
+        return out
+    fx = ev[ev["type"] == "fixation"].sort_values("onset_s", kind="stable")
+    on, x, y = (fx[c].to_numpy(float) for c in ("onset_s", "yaw_deg", "pitch_deg"))
+    k = np.searchsorted(on, sac["onset_s"].to_numpy(float), side="right") - 1  # the fixation the saccade leaves
+    fine = (k >= 0) & (k + 1 < len(on))
+    k = np.clip(k, 0, max(len(on) - 2, 0))
+    if len(on) < 2:
+        return out
+    dx, dy = x[k + 1] - x[k], y[k + 1] - y[k]
+    amp = np.hypot(dx, dy)
+    fine &= np.isclose(amp, sac["amplitude_deg"].to_numpy(float), rtol=1e-6, atol=1e-9) & (amp > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out[fine] = (dx[fine] / amp[fine]) ** 2
+    return out
+
+
+def _amplitude_error_sd(sd_yaw: float | None, sd_pitch: float | None, cos2) -> float | None:
+    """Error SD (deg) of a saccade amplitude, the 2-D distance of two fixation means of per-axis error SDs
+    ``sd_yaw`` and ``sd_pitch``, over saccades whose directions have ``cos^2`` ``cos2`` (NaN: unknown).
+
+    Derivation (first-order Taylor expansion, the delta method - common practice): ``A = sqrt(dx^2 + dy^2)`` with
+    ``dx``, ``dy`` the differences of the two means per axis; each difference of two independent means has the error variance ``2 sd_axis^2``, and
+    ``dA/d(dx) = dx / A = cos(theta)``, ``dA/d(dy) = sin(theta)``, so
+    ``Var(A) = 2 (cos^2(theta) sd_yaw^2 + sin^2(theta) sd_pitch^2)``. Deming regression takes one error variance per
+    side for all pairs, so that of the saccades' mean ``cos^2`` (1/2 where no direction is known: directions spread
+    evenly, ``Var(A) = sd_yaw^2 + sd_pitch^2``). For equal per-axis SDs ``s`` it is ``2 s^2`` whatever the directions:
+    both sides ``sqrt(2)`` times their fixation-mean SD, the variance ratio and the slope as with ``s`` itself.
+    Left out: the correlation of the two means' errors (a slowly changing error shared by neighbouring fixations
+    makes the difference's error smaller), the second-order term of the error across the movement
+    (``(2 sd_perp^2)^2 / (2 A^2)`` more variance) and the upward bias of a length it brings
+    (``E[A] ~ A + sd_perp^2 / A``): small for saccades several times longer than the error of the difference.
+    """
+    if sd_yaw is None or sd_pitch is None or not (np.isfinite(sd_yaw) and np.isfinite(sd_pitch)):
+        return None
+    c = np.asarray(cos2, dtype=float)
+    c = c[np.isfinite(c)]
+    c2 = float(np.mean(c)) if len(c) else 0.5
+    return float(np.sqrt(2.0 * (c2 * sd_yaw ** 2 + (1.0 - c2) * sd_pitch ** 2)))
+
+
 def _gain(ev_w: pd.DataFrame, ev_r: pd.DataFrame, tol: float, confidence: float, *, noise_w=None,
-          noise_r=None, rho_w: float = 0.0, rho_r: float = 0.0) -> dict:
-    """Deming slopes with each side's measured error (:func:`_mean_error_sd`); ratio 1 where one is unknown."""
+          noise_r=None, err_w: dict | None = None, err_r: dict | None = None) -> dict:
+    """Deming slopes with each side's measured error, per axis; ratio 1 where one side's is unknown.
+
+    Deming regression with a known error-variance ratio (:func:`aspectus.validation.agreement.deming_slope`:
+    Cornbleet & Gochman 1979, Linnet 1990) is unbiased only with the ratio of the errors of the values it fits.
+
+    Each fixation slope (``fixation_yaw``, ``fixation_pitch``) weighs the two sides by the error SD of their
+    fixation means on that axis (:func:`_mean_error_sd` from the axis's own RMS-S2S and lag-1 correlation within
+    fixations, :func:`_side_error` as ``err_w`` / ``err_r``); the saccade amplitude slope by the error SD of a 2-D
+    distance of two fixation means (:func:`_amplitude_error_sd`). ``noise_w`` / ``noise_r`` (each side's 2-D
+    RMS-S2S within fixations, the clip's precision figure) give the pooled figures kept for reading
+    (``fixation_mean_error_sd_deg``, ``error_lag1_correlation``).
+    """
     out = {}
-    sd_w, sd_r = _mean_error_sd(ev_w, noise_w, rho_w), _mean_error_sd(ev_r, noise_r, rho_r)
+    err = {"webcam": err_w, "reference": err_r}
+    evs = {"webcam": ev_w, "reference": ev_r}
+    sd_axis = {side: {a: (None if e is None else _mean_error_sd(evs[side], e["noise_rms_s2s_deg"][a], e["rho"][a],
+                                                                axes=1)) for a in AXES}
+               for side, e in err.items()}
+    rho_pool = {side: (0.0 if e is None else float(e["rho"]["2d"])) for side, e in err.items()}
+    sd_pool = {"webcam": _mean_error_sd(ev_w, noise_w, rho_pool["webcam"]),
+               "reference": _mean_error_sd(ev_r, noise_r, rho_pool["reference"])}
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", AgreementWarning)
         sac = match_events(ev_w, ev_r, event_type="saccade", tolerance_s=tol)
         amp_w = ev_w[ev_w["type"] == "saccade"].reset_index(drop=True)
         amp_r = ev_r[ev_r["type"] == "saccade"].reset_index(drop=True)
         if sac.n_matched and "amplitude_deg" in amp_w.columns and "amplitude_deg" in amp_r.columns:
-            a = amp_w["amplitude_deg"].to_numpy(float)[sac.pairs["webcam_index"].to_numpy(int)]
-            b = amp_r["amplitude_deg"].to_numpy(float)[sac.pairs["reference_index"].to_numpy(int)]
+            iw, ir = sac.pairs["webcam_index"].to_numpy(int), sac.pairs["reference_index"].to_numpy(int)
+            a = amp_w["amplitude_deg"].to_numpy(float)[iw]
+            b = amp_r["amplitude_deg"].to_numpy(float)[ir]
+            # the movement's direction from the reference's fixations (the more precise), else the webcam's
+            cos2 = _saccade_cos2(ev_r, ir)
+            cos2 = np.where(np.isfinite(cos2), cos2, _saccade_cos2(ev_w, iw))
         else:
-            a = b = np.empty(0)
-        out["saccade_amplitude"] = deming_slope(b, a, confidence=confidence, error_sd_reference=sd_r,
-                                                error_sd_test=sd_w).to_dict()
+            a = b = cos2 = np.empty(0)
+        sd_amp = {side: _amplitude_error_sd(sd_axis[side]["yaw"], sd_axis[side]["pitch"], cos2) for side in err}
+        out["saccade_amplitude"] = deming_slope(b, a, confidence=confidence, error_sd_reference=sd_amp["reference"],
+                                                error_sd_test=sd_amp["webcam"]).to_dict()
         fix = match_events(ev_w, ev_r, event_type="fixation", tolerance_s=tol)
         fw = ev_w[ev_w["type"] == "fixation"].reset_index(drop=True)
         fr = ev_r[ev_r["type"] == "fixation"].reset_index(drop=True)
-        for axis in ("yaw", "pitch"):
+        for axis in AXES:
             col = f"{axis}_deg"
             if fix.n_matched and col in fw.columns and col in fr.columns:
                 a = fw[col].to_numpy(float)[fix.pairs["webcam_index"].to_numpy(int)]
                 b = fr[col].to_numpy(float)[fix.pairs["reference_index"].to_numpy(int)]
             else:
                 a = b = np.empty(0)
-            out[f"fixation_{axis}"] = deming_slope(b, a, confidence=confidence, error_sd_reference=sd_r,
-                                                   error_sd_test=sd_w).to_dict()
+            out[f"fixation_{axis}"] = deming_slope(b, a, confidence=confidence,
+                                                   error_sd_reference=sd_axis["reference"][axis],
+                                                   error_sd_test=sd_axis["webcam"][axis]).to_dict()
     out["notes"] = sorted({str(w.message) for w in caught})
-    out["fixation_mean_error_sd_deg"] = {"webcam": None if sd_w is None else round(sd_w, 4),
-                                         "reference": None if sd_r is None else round(sd_r, 4)}
-    out["error_lag1_correlation"] = {"webcam": round(float(rho_w), 3), "reference": round(float(rho_r), 3)}
-    out["method"] = ("Deming regression of webcam on reference, over events matched by onset, with the error "
-                     "variance ratio of the two sides' fixation means (each side's noise, its lag-1 correlation "
-                     "and fixation length; 1 where one is unknown); slope = gain, the intercept absorbs the "
-                     "webcam's constant angle offset")
+
+    def r(v, nd=4):
+        return None if v is None or not np.isfinite(v) else round(float(v), nd)
+
+    out["fixation_mean_error_sd_deg"] = {side: r(sd_pool[side]) for side in err}
+    out["error_lag1_correlation"] = {side: round(rho_pool[side], 3) for side in err}
+    out["fixation_mean_error_sd_per_axis_deg"] = {side: {a: r(sd_axis[side][a]) for a in AXES} for side in err}
+    out["error_lag1_correlation_per_axis"] = {side: {a: (None if e is None else round(float(e["rho"][a]), 3))
+                                                     for a in AXES} for side, e in err.items()}
+    out["noise_rms_s2s_per_axis_deg"] = {side: {a: (None if e is None else r(e["noise_rms_s2s_deg"][a]))
+                                                for a in AXES} for side, e in err.items()}
+    out["saccade_amplitude_error_sd_deg"] = {side: r(sd_amp[side]) for side in err}
+    out["method"] = ("Deming regression of webcam on reference, over events matched by onset; each fixation "
+                     "slope with the error variance ratio of the two sides' fixation means on its own axis (the "
+                     "axis's RMS-S2S within fixations, its lag-1 correlation and the fixation length), the saccade "
+                     "amplitude slope with that of a 2-D distance of two fixation means (2 (cos^2 sd_yaw^2 + "
+                     "sin^2 sd_pitch^2) over the saccades' directions); ratio 1 where one side's is unknown; "
+                     "slope = gain, the intercept absorbs the webcam's constant angle offset")
     return out
 
 
@@ -589,8 +705,8 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     ev_notes = sorted({str(w.message) for w in caught})
     gain = _gain(res_w.events, ref_events, params.match_tolerance_s, params.confidence,
                  noise_w=res_w.quality.get("noise_rms_s2s_deg"), noise_r=res_r.quality.get("noise_rms_s2s_deg"),
-                 rho_w=_error_correlation(cam, res_w.labels, res_w.events),
-                 rho_r=_error_correlation(ref_aligned, res_r.labels, res_r.events))
+                 err_w=_side_error(cam, res_w.labels, res_w.events),
+                 err_r=_side_error(ref_aligned, res_r.labels, res_r.events))
     fm = matches["fixation"]
     events = {
         "kappa": kap.kappa, "kappa_ci_low": kap.ci_low, "kappa_ci_high": kap.ci_high, "kappa_n_samples": kap.n,

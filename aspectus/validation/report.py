@@ -468,17 +468,25 @@ def _events_in_words(ev: dict) -> str:
             "(precision: the share of the webcam's onsets the lab tracker also has; recall: the share of the lab "
             "tracker's onsets the webcam found). Gain: how many degrees the webcam measures for each degree the lab "
             "tracker measures (1: the same scale; below 1 the webcam reads eye movements smaller).")
-    sd, rho = (ev.get("gain") or {}).get("fixation_mean_error_sd_deg") or {}, \
-        (ev.get("gain") or {}).get("error_lag1_correlation") or {}
+    gain = ev.get("gain") or {}
+    sd_ax, rho_ax = gain.get("fixation_mean_error_sd_per_axis_deg") or {}, gain.get("error_lag1_correlation_per_axis") or {}
+    sd, rho = gain.get("fixation_mean_error_sd_deg") or {}, gain.get("error_lag1_correlation") or {}
+
+    def ok(*v):
+        return all(x is not None and np.isfinite(float(x)) for x in v)
+
     sides = []
     for key, name in (("webcam", "webcam"), ("reference", "lab tracker")):
-        a, r = sd.get(key), rho.get(key)
-        if a is not None and r is not None and np.isfinite(float(a)) and np.isfinite(float(r)):
-            sides.append(f"{name} {_fmt(a)} deg (successive errors correlated {_fmt(r)})")
+        a, r = sd_ax.get(key) or {}, rho_ax.get(key) or {}
+        if ok(a.get("yaw"), a.get("pitch"), r.get("yaw"), r.get("pitch")):
+            sides.append(f"{name} {_fmt(a['yaw'])} deg across (yaw; successive errors correlated {_fmt(r['yaw'])}) "
+                         f"and {_fmt(a['pitch'])} deg up-down (pitch; {_fmt(r['pitch'])})")
+        elif ok(sd.get(key), rho.get(key)):  # a file written before the per-axis figures
+            sides.append(f"{name} {_fmt(sd[key])} deg (successive errors correlated {_fmt(rho[key])})")
     if sides:
         text += (" The gains allow for each side's own measurement error (Deming regression):"
-                 " the uncertainty of a fixation's mean position per axis, from the noise and how much of it "
-                 "carries over from one sample to the next - " + ", ".join(sides) + ".")
+                 " the uncertainty of a fixation's mean position on each axis, from that axis's noise and how much of "
+                 "it carries over from one sample to the next - " + ", ".join(sides) + ".")
     return text
 
 

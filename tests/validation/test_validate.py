@@ -337,6 +337,8 @@ def test_the_report_says_in_words_what_kappa_f1_and_gain_are_with_each_sides_err
     page = _html.unescape((out / "report.html").read_text())
     assert "Kappa: how well the two agree on which samples belong to a fixation" in page
     assert "Gain: how many degrees the webcam measures for each degree the lab tracker measures" in page
-    sd, rho = ev["gain"]["fixation_mean_error_sd_deg"], ev["gain"]["error_lag1_correlation"]
+    # per axis, as the fixation gains are fitted (events_agreement.json's per-axis figures)
+    sd, rho = ev["gain"]["fixation_mean_error_sd_per_axis_deg"], ev["gain"]["error_lag1_correlation_per_axis"]
     for side, name in (("webcam", "webcam"), ("reference", "lab tracker")):
-        assert f"{name} {sd[side]:.2f} deg (successive errors correlated {rho[side]:.2f})" in page, side
+        assert (f"{name} {sd[side]['yaw']:.2f} deg across (yaw; successive errors correlated {rho[side]['yaw']:.2f})"
+                f" and {sd[side]['pitch']:.2f} deg up-down (pitch; {rho[side]['pitch']:.2f})") in page, side

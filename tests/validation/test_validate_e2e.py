@@ -139,3 +139,13 @@ def test_rendered_clip_following_lund_recordings(lund_dir, tmp_path):
     assert abs(fc["ba_bias"]) < 1.5
     assert 0.2 < r.events["kappa"] < 1.0 and 0.6 < r.events["f1"] <= 1.0
     assert (out / "report.html").exists()
+    # the gains' per-axis error figures are recorded (events_agreement.json) and read on both sides
+    g = json.loads((out / "events_agreement.json").read_text())["gain"]
+    print("gains: saccade amplitude {:.4f}, fixation yaw {:.4f}, pitch {:.4f}; per-axis fixation-mean error SD "
+          "{}; lag-1 correlation {}; amplitude error SD {}".format(
+              g["saccade_amplitude"]["estimate"], g["fixation_yaw"]["estimate"], g["fixation_pitch"]["estimate"],
+              g["fixation_mean_error_sd_per_axis_deg"], g["error_lag1_correlation_per_axis"],
+              g["saccade_amplitude_error_sd_deg"]))
+    for side in ("webcam", "reference"):
+        assert all(v is not None and v > 0 for v in g["fixation_mean_error_sd_per_axis_deg"][side].values())
+        assert g["saccade_amplitude_error_sd_deg"][side] > 0
