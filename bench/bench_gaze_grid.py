@@ -7,7 +7,8 @@ Every cell has lids that follow vertical gaze, a slow lighting drift (+-15 %) wi
 and slow head drift with rotation (yaw +-10, pitch +-4, roll +-2 deg; 15 / 10 / 25 mm) unless its label says
 otherwise. One face-mesh run per cell: the 13 cells took about 3 minutes on two cores (2026-12-04; more when the
 machine is busy); the grid has 15 since (the 16.6 and 12 px cells also at 60 fps, each twice a 30 fps cell's
-face-mesh time).
+face-mesh time), and 19 with the 16.6 and 12 px cells with light irises and with a 33 ms exposure (each exposed
+clip takes longer to render: sub-frames on moving frames).
 
 Rows per cell: ``default`` (the pipeline's own run with the default settings; its ``iris_estimate`` column says
 which iris estimate ``iris_combine=auto`` took, run.json's ``gaze_model.iris_estimate.used``, and its
@@ -19,6 +20,7 @@ rendered truth's median iris diameter, ``iris_px_measured`` the face mesh's (wha
     python bench/bench_gaze_grid.py --quick         # four cells
     python bench/bench_gaze_grid.py --fps 60        # the same four cells rendered at 60 fps
     python bench/bench_gaze_grid.py --csv grid.csv  # also write the rows
+    python bench/bench_gaze_grid.py --only 16px_crf28 16px_crf28_light_iris   # these cells only
     python bench/bench_gaze_grid.py --appearance    # also --gaze iris_combine=appearance (a second run per cell)
     python bench/bench_gaze_grid.py --quick --gaze head_rotation=skin   # every row with these gaze settings
 """
@@ -68,12 +70,16 @@ def grid(quick: bool, seed: int, fps: float | None = None) -> list[G.Condition]:
                                lighting_gradient=0.0, trial=tr, seed=seed))
     out.append(G.Condition("12px_crf28_other_seed", size_px=(640, 480), distance_mm=550.0, trial=trials[0],
                            face="astronaut", seed=seed + 1))
+    for c in out[1:3]:  # light irises (low limbus contrast) and a 33 ms exposure (smeared saccades and blinks)
+        out.append(G.Condition(**{**c.__dict__, "name": f"{c.name}_light_iris", "iris_colour": "light_blue_grey"}))
+        out.append(G.Condition(**{**c.__dict__, "name": f"{c.name}_exp33ms", "exposure_ms": 33.0}))
     return out
 
 
 COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("iris_px_measured", "{:5.1f}"),
            ("rms_s2s_deg", "{:5.2f}"), ("rms_fix_deg", "{:5.2f}"), ("rms_s2s_fix_deg", "{:5.2f}"),
            ("noise_rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_33ms_deg", "{:5.2f}"), ("noise_sd_deg", "{:5.2f}"),
+           ("valid_frac", "{:5.3f}"), ("valid_far_frac", "{:5.3f}"),
            ("yaw_r", "{:5.3f}"), ("yaw_gain", "{:5.2f}"), ("pitch_r", "{:6.3f}"), ("pitch_gain", "{:5.2f}"),
            ("kappa", "{:6.3f}"), ("kappa_truth", "{:5.3f}"), ("iris_estimate", "{!s:10s}"),
            ("eye_anchor_set", "{!s:16s}")]
@@ -84,6 +90,9 @@ def main(argv=None) -> int:
     ap.add_argument("--quick", action="store_true", help="four cells, one per face size")
     ap.add_argument("--fps", type=float, help="render the four face sizes (CRF 28) at this frame rate instead of "
                     "the grid (the same trajectories and seeds as the 30 fps cells)")
+    ap.add_argument("--only", nargs="+", metavar="CELL",
+                    help="run only these cells of the grid (names as printed in the timing lines, e.g. 16px_crf28 "
+                         "16px_crf28_light_iris)")
     ap.add_argument("--variants", choices=("all", "default"), default="all",
                     help="'default': only the pipeline's own run per cell (no re-estimated rows)")
     ap.add_argument("--seed", type=int, default=0, help="seed of the head motion, noise and lighting (default 0)")
@@ -109,13 +118,21 @@ def main(argv=None) -> int:
     if not LUND.is_dir():
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
         return 2
+    cells = grid(args.quick, args.seed, args.fps)
+    if args.only:
+        unknown = sorted(set(args.only) - {c.name for c in cells})
+        if unknown:
+            print(f"--only: no cell named {', '.join(unknown)} (cells: {', '.join(c.name for c in cells)})",
+                  file=sys.stderr)
+            return 2
+        cells = [c for c in cells if c.name in args.only]
     rows = []
     out_dir = Path(args.keep) if args.keep else Path(tempfile.mkdtemp(prefix="gaze_grid_"))
     out_dir.mkdir(parents=True, exist_ok=True)
     head = f"{'cell':56s} " + " ".join(f"{c[:11]:>11s}" for c, _ in COLUMNS)
     print(head, flush=True)
     variants = {"default": {}} if args.variants == "default" else None
-    for cond in grid(args.quick, args.seed, args.fps):
+    for cond in cells:
         t0 = time.perf_counter()
         cell = G.run_condition(cond, out_dir, LUND, variants=variants, pipeline_gaze=gaze or None)
         if args.appearance:

@@ -14,6 +14,8 @@ one of the hand-coded trials of Andersson et al. (2017) (../shared/reference/lun
   ``noise_sd_deg``, the SD of the samples about their fixation's mean (the tier's second figure);
 * ``yaw_r``, ``yaw_gain``, ``pitch_r``, ``pitch_gain``: Pearson r and the least-squares slope of the
   estimate on the truth over valid frames;
+* ``valid_frac``: the share of frames the pipeline marks valid; ``valid_far_frac``: the share of frames marked
+  valid whose error is more than 5 deg from the clip's median error (trusted gaze far off, e.g. smeared frames);
 * ``kappa``: Cohen's (1960) sample kappa, fixation vs not, of the default detector on the clip's samples
   against each coder's labels at the frame times, mean over the two coders; ``kappa_truth``: the same for
   the detector run on the true gaze at the frame times (the ceiling at this frame rate).
@@ -57,13 +59,17 @@ class Condition:
     duration_s: float = 8.0
     seed: int = 0
     fps: float = 30.0
+    iris_colour: str | None = None
+    exposure_ms: float = 0.0
 
     def label(self) -> str:
         w, h = self.size_px
         codec = f"CRF{self.crf}" if self.codec == "libx264" else "mp4v"
         extra = "".join([" glasses" if self.glasses else "", " mirror" if self.mirror else "",
                          " still-lids" if not self.lid_follow else "",
-                         f" {self.fps:g}fps" if self.fps != 30.0 else ""])
+                         f" {self.fps:g}fps" if self.fps != 30.0 else "",
+                         f" iris-{self.iris_colour}" if self.iris_colour else "",
+                         f" exp{self.exposure_ms:g}ms" if self.exposure_ms else ""])
         return f"{w}x{h} {self.distance_mm:.0f}mm {codec} {self.face} {self.trial.split('_')[0]} s{self.seed}{extra}"
 
 
@@ -78,7 +84,8 @@ def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
     res = render_clip(path, traj, face=cond.face, size_px=tuple(cond.size_px), fps=cond.fps, codec=cond.codec,
                       seed=cond.seed,
                       lid_follow=cond.lid_follow, lighting_drift=cond.lighting_drift,
-                      lighting_gradient=cond.lighting_gradient, glasses=cond.glasses, mirror=cond.mirror, **kw)
+                      lighting_gradient=cond.lighting_gradient, glasses=cond.glasses, mirror=cond.mirror,
+                      iris_colour=cond.iris_colour, exposure_ms=cond.exposure_ms, **kw)
     return res, trial
 
 
@@ -125,16 +132,30 @@ def _within_fixations(ey: np.ndarray, ep: np.ndarray, ok: np.ndarray, coders: di
     return {"rms_fix_deg": float(np.sqrt(np.mean(r ** 2))), "rms_s2s_fix_deg": float(np.sqrt(np.mean(d ** 2)))}
 
 
+def _far_fraction(ey: np.ndarray, ep: np.ndarray, ok: np.ndarray, far_deg: float = 5.0) -> float:
+    """Share of all frames taken as valid whose error lies more than ``far_deg`` from the clip's median error (the
+    median removes the constant offset of a calibration-free estimate): gaze the detector would trust, far off."""
+    if not ok.any():
+        return float("nan")
+    far = np.hypot(ey - np.median(ey[ok]), ep - np.median(ep[ok])) > far_deg
+    return float((ok & far).mean())
+
+
 def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     """The grid's figures for one processed clip (see the module docstring)."""
     from aspectus.events.analysis import run_analysis
 
+    # rows are compared by frame: the samples' times must be the truth's (the middle of each frame's exposure)
+    if len(samples) != len(truth) or not np.allclose(samples["pts_s"].to_numpy(float),
+                                                     truth["pts_s"].to_numpy(float), atol=2e-3):
+        raise ValueError("the samples' frame times are not the truth's; estimate and truth cannot be compared")
     ok = samples["valid"].to_numpy(bool)
     ey = samples["yaw_deg"].to_numpy() - truth["yaw_deg"].to_numpy()
     ep = samples["pitch_deg"].to_numpy() - truth["pitch_deg"].to_numpy()
     pair = ok[1:] & ok[:-1]
     d2 = np.diff(ey) ** 2 + np.diff(ep) ** 2
     out = {"iris_px": float(truth["iris_diameter_px"].median()), "valid_frac": float(ok.mean()),
+           "valid_far_frac": _far_fraction(ey, ep, ok),
            "rms_s2s_deg": float(np.sqrt(np.mean(d2[pair]))) if pair.sum() >= 10 else float("nan")}
     out.update(_within_fixations(ey, ep, ok, _labels_at(trial, truth["t_s"].to_numpy())))
     out["yaw_r"], out["yaw_gain"] = _fit(samples["yaw_deg"].to_numpy(), truth["yaw_deg"].to_numpy())

@@ -62,6 +62,11 @@ IRIS_PLANE_RADIUS_MM = float(np.sqrt(EYEBALL_RADIUS_MM ** 2 - (IRIS_DIAMETER_MM 
 #: pupil diameter drawn inside the iris, mm (a mid-range indoor pupil - common practice, from memory)
 PUPIL_DIAMETER_MM = 3.8
 _TEX_PX = 64  # side of the canonical iris texture
+#: iris colour presets, sRGB 0-255, for :class:`FaceRig`'s ``iris_rgb`` (the renderer's ``iris_colour``): the mean
+#: colour of the iris stroma as a webcam shows it under indoor light (common practice, from memory; not measured).
+#: The light one is about as bright as a dim sclera in the picture, so the limbus has little grey-level contrast.
+IRIS_COLOURS = {"dark_brown": (62.0, 38.0, 26.0), "hazel": (124.0, 96.0, 58.0),
+                "light_blue_grey": (132.0, 150.0, 162.0)}
 
 #: MediaPipe face-oval landmarks in order around the face (forehead, subject's left side, chin, right side)
 FACE_OVAL = (10, 338, 297, 332, 284, 251, 389, 356, 454, 323, 361, 288, 397, 365, 379, 378, 400, 377, 152,
@@ -272,11 +277,14 @@ class FaceRig:
         Draw spectacles: dark rims round both eyes about 24 mm in front of
         the eyeball centres, a bridge, slightly tinted lenses with a soft
         reflection, all moving with the head.
+    iris_rgb : (float, float, float), optional
+        Iris colour of both eyes, sRGB 0-255 (e.g. a value of
+        :data:`IRIS_COLOURS`); by default each eye's colour in the photograph.
     """
 
     def __init__(self, face: FacePhoto, camera: Camera, *, rest_head_mm=(0.0, 0.0, 600.0),
                  background: np.ndarray, seed: int = 0, lower_skin_follow: float = 0.0, lid_follow: float = 1.0,
-                 glasses: bool = False):
+                 glasses: bool = False, iris_rgb=None):
         cv2 = import_cv2()
         for name, v in (("lower_skin_follow", lower_skin_follow), ("lid_follow", lid_follow)):
             if not (0.0 <= float(v) <= 1.0):
@@ -326,7 +334,15 @@ class FaceRig:
         alpha = cv2.warpAffine(a, M, (w, h), flags=cv2.INTER_LINEAR, borderValue=0)[..., None]
         self.base = np.clip(photo * alpha + background * (1 - alpha) + 0.5, 0, 255).astype(np.uint8)
         self.background = np.ascontiguousarray(background, dtype=np.uint8).copy()
-        self.iris_texture = {e: _iris_texture(face.eyes[e].iris_rgb, seed + i) for i, e in enumerate(EYES)}
+        if iris_rgb is not None:
+            rgb = np.asarray(iris_rgb, dtype=float)
+            if rgb.shape != (3,) or not np.all(np.isfinite(rgb)) or rgb.min() < 0 or rgb.max() > 255:
+                from aspectus.errors import ParameterError
+
+                raise ParameterError(f"iris_rgb must be three sRGB values 0-255, got {iris_rgb!r}")
+        self.iris_rgb = {e: (tuple(map(float, iris_rgb)) if iris_rgb is not None else face.eyes[e].iris_rgb)
+                         for e in EYES}
+        self.iris_texture = {e: _iris_texture(self.iris_rgb[e], seed + i) for i, e in enumerate(EYES)}
 
     # ------------------------------------------------------------------ head
     def _head_shell(self) -> np.ndarray:

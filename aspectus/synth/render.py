@@ -29,7 +29,7 @@ from aspectus import __version__
 from aspectus.atomic import atomic_path, sha256_file, write_csv, write_json
 from aspectus.errors import Cancelled, ParameterError
 from aspectus.synth.face import EYES, FACES, IRIS_DIAMETER_MM, load_face
-from aspectus.synth.frame import EYEBALL_RADIUS_MM, Camera, FaceRig, gaze_vector, head_rotation
+from aspectus.synth.frame import EYEBALL_RADIUS_MM, IRIS_COLOURS, Camera, FaceRig, gaze_vector, head_rotation
 from aspectus.synth.trajectory import Trajectory, saccade_duration_ms, synth_trajectory
 from aspectus.synth.clip_writer import FORMATS, ClipWriter, rotate_for_storage
 
@@ -40,7 +40,8 @@ __all__ = ["render_clip", "RenderResult", "synth_trajectory", "Trajectory", "sac
 #: the upright picture (before any rotation tag is applied), face-mesh convention (pixel i spans [i, i+1)).
 TRUTH_COLUMNS = {
     "frame_index": "0-based index of the frame in the clip",
-    "t_s": "frame time on the trajectory's clock, s (the first frame of a default clip is at 0)",
+    "t_s": "frame time on the trajectory's clock, s (the first frame of a default clip is at 0); the middle of "
+           "the frame's exposure: every truth column of the row is the state at this instant",
     "pts_s": "the frame's presentation timestamp as stored in the container, s",
     "yaw_deg": "true binocular gaze yaw (head-compensated, subject's right positive), deg",
     "pitch_deg": "true gaze pitch (up positive), deg",
@@ -61,6 +62,8 @@ TRUTH_COLUMNS = {
     "left_iris_y_px": "picture y of the subject's left iris centre, px",
     "iris_diameter_px": "expected iris diameter in the picture (focal * 11.7 mm / iris distance), px",
     "distance_mm": "mean distance of the two iris centres from the camera, mm",
+    "exposure_start_s": "start of the frame's exposure on the trajectory's clock, s (t_s without exposure blur)",
+    "exposure_end_s": "end of the frame's exposure, s (the picture is the mean of the scene over it)",
 }
 
 #: size of a bystander's face relative to the subject's (smaller ones escape the face mesh's detector at 720p)
@@ -138,6 +141,30 @@ def _paste_face(targets: list[np.ndarray], name: str, *, centre_px, iris_px: flo
         t[:] = np.clip(t * (1 - alpha) + warped * alpha + 0.5, 0, 255).astype(np.uint8)
 
 
+#: the scene may move this far (px, either iris centre or the lid margin) between two sub-frames of an exposure
+EXPOSURE_STEP_PX = 0.5
+#: most sub-frames averaged for one exposed frame
+MAX_SUBFRAMES = 16
+
+
+def _subframe_times(track_at, iris_at, t_mid: float, exposure_s: float, duration_s: float) -> np.ndarray:
+    """Times of the sub-frames averaged for a frame exposed over ``t_mid +- exposure_s / 2`` (midpoint rule).
+
+    Their number follows the fastest motion within the exposure: the path length of either iris centre in the
+    picture (``iris_at(rows) -> (n, 2, 2) px``) and of the lid margin (the lid closure's travel times the iris
+    diameter, roughly the eye's opening) divided by :data:`EXPOSURE_STEP_PX`, between 1 (a still eye: the
+    instant at ``t_mid``) and :data:`MAX_SUBFRAMES`. Times are clamped to the trajectory.
+    """
+    probe = np.clip(t_mid + exposure_s * np.linspace(-0.5, 0.5, 9), 0.0, duration_s)
+    rows = track_at(probe)
+    uv, diam = iris_at(rows)
+    path = np.abs(np.diff(uv, axis=0))
+    iris_path = float(np.hypot(path[..., 0], path[..., 1]).sum(axis=0).max())
+    lid_path = float(np.abs(np.diff(rows["lid_closure"].to_numpy())).sum() * diam)
+    k = int(np.clip(np.ceil(max(iris_path, lid_path) / EXPOSURE_STEP_PX), 1, MAX_SUBFRAMES))
+    return np.clip(t_mid + exposure_s * ((np.arange(k) + 0.5) / k - 0.5), 0.0, duration_s)
+
+
 _NOISE_PAD = 32
 _NOISE_FIELDS = 6
 
@@ -194,7 +221,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 darkness: float = 1.0, face_visible=None, extra_faces: int = 0, seed: int = 0,
                 lower_skin_follow: float = 0.0, lid_follow: float = 1.0, glasses: bool = False,
                 lighting_drift: float = 0.0, lighting_gradient: float = 0.0, mirror: bool = False,
-                progress=None, cancel=None) -> RenderResult:
+                iris_colour=None, exposure_ms: float = 0.0, progress=None, cancel=None) -> RenderResult:
     """Render a webcam-like clip of a face following ``trajectory`` and write its truth beside it.
 
     Parameters
@@ -262,6 +289,21 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         shows and records it. The truth's gaze and head angles stay the
         subject's; its pixel positions are those of the stored picture (the
         subject's right iris then lies on the picture's right side).
+    iris_colour : str or (float, float, float), optional
+        Iris colour of both eyes: a preset of
+        :data:`aspectus.synth.frame.IRIS_COLOURS` (``"dark_brown"``,
+        ``"hazel"``, ``"light_blue_grey"``) or sRGB 0-255; by default the
+        photograph's own (dark in both shipped faces).
+    exposure_ms : float, default 0
+        Exposure time per frame, ms (0: each frame is an instant). A frame is
+        the mean of sub-frames rendered over ``t_s +- exposure_ms / 2``, as
+        many as the fastest motion in it needs (the iris centres or the lid
+        margin move at most :data:`EXPOSURE_STEP_PX` between two; at most
+        :data:`MAX_SUBFRAMES`), so saccades and blinks are smeared as a
+        webcam indoors smears them. The truth stays the state at the
+        middle of the exposure (``t_s``); ``exposure_start_s`` and
+        ``exposure_end_s`` give the exposure. At most the shortest frame
+        interval.
     progress : callable, optional
         ``progress(fraction_done, message)``, called every few frames.
     cancel : object with ``is_set()``, optional
@@ -324,6 +366,17 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                             ("lighting_gradient", lighting_gradient, 0.0, 1.0)):
         if not (isinstance(v, (int, float, np.integer, np.floating)) and np.isfinite(v) and lo <= v <= hi):
             raise ParameterError(f"{name} must be within {lo:g}-{hi:g}, got {v!r}")
+    if isinstance(iris_colour, str):
+        if iris_colour not in IRIS_COLOURS:
+            raise ParameterError(f"iris_colour must be one of {', '.join(IRIS_COLOURS)} or three sRGB values, "
+                                 f"got {iris_colour!r}")
+        iris_rgb = IRIS_COLOURS[iris_colour]
+    else:
+        iris_rgb = iris_colour
+    if not (isinstance(exposure_ms, (int, float, np.integer, np.floating)) and np.isfinite(exposure_ms)
+            and exposure_ms >= 0):
+        raise ParameterError(f"exposure_ms must be zero or more milliseconds, got {exposure_ms!r}")
+    exposure_s = float(exposure_ms) / 1000.0
 
     duration = float(trajectory.samples["t_s"].iloc[-1])
     vfr = frame_times_s is not None
@@ -335,6 +388,10 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
             raise ParameterError(f"the trajectory ({duration:.3g} s) is shorter than one frame at {fps:g} fps")
         times = np.arange(n) / float(fps)
     n = len(times)
+    interval = float(np.diff(times).min()) if n > 1 else (1.0 / fps if not vfr else np.inf)
+    if exposure_s > interval + 1e-9:
+        raise ParameterError(f"exposure_ms {exposure_ms:g} is longer than the frame interval ({1000 * interval:.4g} ms)",
+                             hint="a frame's exposure cannot outlast the time to the next frame")
     if face_visible is None:
         visible = np.ones(n, bool)
     else:
@@ -348,7 +405,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
             float(track["head_z_mm"].median()))
     bg = _background(w, h)
     rig = FaceRig(load_face(face), camera, rest_head_mm=rest, background=bg, seed=seed,
-                  lower_skin_follow=lower_skin_follow, lid_follow=lid_follow, glasses=glasses)
+                  lower_skin_follow=lower_skin_follow, lid_follow=lid_follow, glasses=glasses, iris_rgb=iris_rgb)
     light = _light_level(times, seed=seed, drift=float(lighting_drift))
     ramp = (0.5 - (np.arange(w, dtype=np.float32) + 0.5) / w)[None, :, None]  # +0.5 at the left edge
     if extra_faces:
@@ -363,7 +420,28 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
     bank = _noise_bank(h, w, sd=sd, seed=seed) if sd > 0 else None
     pick = np.random.default_rng([int(seed), 7])
     stored_w, stored_h = (h, w) if rotation_deg in (90, 270) else (w, h)
+    def iris_at(sub: pd.DataFrame):
+        uv = np.empty((len(sub), 2, 2))
+        for j, q in enumerate(sub.itertuples()):
+            mm = rig.iris_centres_mm(head_rotation(q.head_yaw_deg, q.head_pitch_deg, q.head_roll_deg),
+                                     (q.head_x_mm, q.head_y_mm, q.head_z_mm), gaze_vector(q.yaw_deg, q.pitch_deg))
+            uv[j] = [camera.project(mm[e][None])[0] for e in EYES]
+        z = float(np.linalg.norm(mm[EYES[0]]))
+        return uv, camera.focal_px * IRIS_DIAMETER_MM / z
+
+    def exposed(t_mid: float) -> tuple[np.ndarray, int]:
+        """The picture exposed over ``t_mid +- exposure_s / 2`` and its number of sub-frames."""
+        sub_t = _subframe_times(trajectory.at, iris_at, t_mid, exposure_s, duration)
+        acc = None
+        for q in trajectory.at(sub_t).itertuples():
+            Rq = head_rotation(q.head_yaw_deg, q.head_pitch_deg, q.head_roll_deg)
+            im, _ = rig.render(R=Rq, T_mm=(q.head_x_mm, q.head_y_mm, q.head_z_mm),
+                               gaze=gaze_vector(q.yaw_deg, q.pitch_deg), closure=q.lid_closure)
+            acc = im.astype(np.float32) if acc is None else acc + im
+        return np.clip(acc / len(sub_t) + 0.5, 0, 255).astype(np.uint8), len(sub_t)
+
     rows = []
+    subframes = []
     with atomic_path(path) as tmp:
         writer = ClipWriter(path, tmp, width_px=stored_w, height_px=stored_h, fps=float(fps), codec=codec,
                             crf=crf, bitrate_kbps=bitrate_kbps, rotation_deg=rotation_deg, vfr=vfr)
@@ -378,7 +456,10 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 eih_yaw, eih_pitch = _angles(R.T @ g)
                 iris_mm = rig.iris_centres_mm(R, T, g)
                 iris_uv = {e: camera.project(iris_mm[e][None])[0] for e in EYES}
-                if visible[i]:
+                if visible[i] and exposure_s > 0:
+                    img, k_sub = exposed(float(times[i]))
+                    subframes.append(k_sub)
+                elif visible[i]:
                     img, _info = rig.render(R=R, T_mm=T, gaze=g, closure=r.lid_closure)
                 else:
                     img = rig.background.copy()
@@ -410,6 +491,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                     "left_iris_x_px": float(iris_uv["left"][0]), "left_iris_y_px": float(iris_uv["left"][1]),
                     "iris_diameter_px": float(np.mean([camera.focal_px * IRIS_DIAMETER_MM / d for d in dist])),
                     "distance_mm": float(np.mean(dist)),
+                    "exposure_start_s": float(times[i]) - 0.5 * exposure_s,
+                    "exposure_end_s": float(times[i]) + 0.5 * exposure_s,
                 })
                 if progress is not None and (i % 10 == 0 or i == n - 1):
                     progress((i + 1) / n, f"rendering {path.name}: frame {i + 1} of {n}")
@@ -446,6 +529,10 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         "lower_skin_follow": float(lower_skin_follow), "lid_follow": float(lid_follow), "glasses": bool(glasses),
         "lighting_drift": float(lighting_drift), "lighting_gradient": float(lighting_gradient),
         "mirror": bool(mirror),
+        "iris_colour": iris_colour if isinstance(iris_colour, str) or iris_colour is None else list(iris_rgb),
+        "iris_rgb": {e: list(rig.iris_rgb[e]) for e in EYES},
+        "exposure_ms": float(exposure_ms), "truth_time": "middle of each frame's exposure (t_s)",
+        "exposure_subframes": {"mean": float(np.mean(subframes)), "max": int(max(subframes))} if subframes else None,
         "face_hidden_frames": int((~visible).sum()),
         "geometry": {"iris_diameter_mm": IRIS_DIAMETER_MM, "eyeball_radius_mm": EYEBALL_RADIUS_MM,
                      "frame": "aspectus.schema (yaw>0 subject's right, pitch>0 up)",
