@@ -15,12 +15,15 @@ from aspectus.webcam.eye_anchors import (MIN_SCORE, OFFSET_RADII, PATCH_RADII, P
 from aspectus.webcam.limbus import EDGE_NOISE_PX, _R_TOL, fit_circles
 
 
-def fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all=None):
+def fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all=None, edge="steepest"):
     """One pass of ray casting from each eye's current centre and circle fitting: [(centre, radius) or None].
+
+    (``edge``: only the steepest step, the pipeline's locator, is kept here.)
 
     The fit starts from the eye's current centre and radius (the previous pass's circle), with the radius
     kept within 15 % of the mesh's.
     """
+    assert edge == "steepest", edge
     n_eyes, n_rays = len(eyes), len(cos_a)
     m = max(len(eye.radii) for eye in eyes)
     step = np.full((n_eyes, n_rays, m - 1), -np.inf)
