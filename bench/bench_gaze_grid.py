@@ -8,7 +8,8 @@ and slow head drift with rotation (yaw +-10, pitch +-4, roll +-2 deg; 15 / 10 / 
 otherwise. One face-mesh run per cell: the 13 cells took about 3 minutes on two cores (2026-12-04; more when the
 machine is busy); the grid has 15 since (the 16.6 and 12 px cells also at 60 fps, each twice a 30 fps cell's
 face-mesh time), and 19 with the 16.6 and 12 px cells with light irises and with a 33 ms exposure (each exposed
-clip takes longer to render: sub-frames on moving frames).
+clip takes longer to render: sub-frames on moving frames), and 22 with the 25, 16.6 and 12 px CRF 28 cells again with
+the screen's reflection on the corneas.
 
 Rows per cell: ``default`` (the pipeline's own run with the default settings; its ``iris_estimate`` column says
 which iris estimate ``iris_combine=auto`` took, run.json's ``gaze_model.iris_estimate.used``, and its
@@ -19,6 +20,8 @@ rendered truth's median iris diameter, ``iris_px_measured`` the face mesh's (wha
     python bench/bench_gaze_grid.py                 # the whole grid
     python bench/bench_gaze_grid.py --quick         # four cells
     python bench/bench_gaze_grid.py --fps 60        # the same four cells rendered at 60 fps
+    python bench/bench_gaze_grid.py --reflection    # the 25, 16.6 and 12 px CRF 28 cells without and with a
+                                                    # corneal reflection of the screen (same trajectories and seeds)
     python bench/bench_gaze_grid.py --csv grid.csv  # also write the rows
     python bench/bench_gaze_grid.py --only 16px_crf28 16px_crf28_light_iris   # these cells only
     python bench/bench_gaze_grid.py --appearance    # also --gaze iris_combine=appearance (a second run per cell)
@@ -43,7 +46,7 @@ SIZES = {"25px": ((1280, 720), 530.0), "16px": ((1280, 720), 800.0), "12px": ((6
          "8px": ((640, 480), 780.0)}
 
 
-def grid(quick: bool, seed: int, fps: float | None = None) -> list[G.Condition]:
+def grid(quick: bool, seed: int, fps: float | None = None, reflection: bool = False) -> list[G.Condition]:
     trials = ["TL20_img_konijntjes", "TH34_img_Europe", "UH21_img_Rome", "UL23_img_Europe"]
     out = []
     for i, (name, (size, dist)) in enumerate(SIZES.items()):
@@ -51,6 +54,9 @@ def grid(quick: bool, seed: int, fps: float | None = None) -> list[G.Condition]:
                                face=("hopper", "astronaut")[i % 2], seed=seed))
     if fps is not None:  # the four face sizes at this frame rate only (same trajectories and seeds)
         return [G.Condition(**{**c.__dict__, "name": f"{c.name}_{fps:g}fps", "fps": fps}) for c in out]
+    if reflection:  # each cell without and with the screen's reflection on the corneas
+        return [G.Condition(**{**c.__dict__, "name": f"{c.name}_reflection" if r else c.name, "corneal_reflection": r})
+                for c in out[:3] for r in (False, True)]
     if quick:
         return out
     for crf in (23, 33):
@@ -68,6 +74,8 @@ def grid(quick: bool, seed: int, fps: float | None = None) -> list[G.Condition]:
         out.append(G.Condition(f"25px_drift_{tr.split('_')[0]}", size_px=(1280, 720), distance_mm=530.0,
                                codec="mpeg4", head_motion=dict(G.HEAD_DRIFT_ONLY), lighting_drift=0.0,
                                lighting_gradient=0.0, trial=tr, seed=seed))
+    for c in out[:3]:  # the screen mirrored by the corneas (aspectus.synth.frame.CornealReflection)
+        out.append(G.Condition(**{**c.__dict__, "name": f"{c.name}_reflection", "corneal_reflection": True}))
     out.append(G.Condition("12px_crf28_other_seed", size_px=(640, 480), distance_mm=550.0, trial=trials[0],
                            face="astronaut", seed=seed + 1))
     for c in out[1:3]:  # light irises (low limbus contrast) and a 33 ms exposure (smeared saccades and blinks)
@@ -93,6 +101,9 @@ def main(argv=None) -> int:
     ap.add_argument("--only", nargs="+", metavar="CELL",
                     help="run only these cells of the grid (names as printed in the timing lines, e.g. 16px_crf28 "
                          "16px_crf28_light_iris)")
+    ap.add_argument("--reflection", action="store_true",
+                    help="the 25, 16.6 and 12 px CRF 28 cells each without and with a corneal reflection of the "
+                         "screen (the same trajectories and seeds)")
     ap.add_argument("--variants", choices=("all", "default"), default="all",
                     help="'default': only the pipeline's own run per cell (no re-estimated rows)")
     ap.add_argument("--seed", type=int, default=0, help="seed of the head motion, noise and lighting (default 0)")
@@ -118,7 +129,7 @@ def main(argv=None) -> int:
     if not LUND.is_dir():
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
         return 2
-    cells = grid(args.quick, args.seed, args.fps)
+    cells = grid(args.quick, args.seed, args.fps, args.reflection)
     if args.only:
         unknown = sorted(set(args.only) - {c.name for c in cells})
         if unknown:

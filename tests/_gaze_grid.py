@@ -54,6 +54,7 @@ class Condition:
     head_motion: dict | None = field(default_factory=lambda: dict(HEAD_DRIFT_AND_TURNS))
     glasses: bool = False
     mirror: bool = False
+    corneal_reflection: bool = False
     face: str = "hopper"
     trial: str = "UH21_img_Rome"
     duration_s: float = 8.0
@@ -66,6 +67,7 @@ class Condition:
         w, h = self.size_px
         codec = f"CRF{self.crf}" if self.codec == "libx264" else "mp4v"
         extra = "".join([" glasses" if self.glasses else "", " mirror" if self.mirror else "",
+                         " reflection" if self.corneal_reflection else "",
                          " still-lids" if not self.lid_follow else "",
                          f" {self.fps:g}fps" if self.fps != 30.0 else "",
                          f" iris-{self.iris_colour}" if self.iris_colour else "",
@@ -85,7 +87,8 @@ def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
                       seed=cond.seed,
                       lid_follow=cond.lid_follow, lighting_drift=cond.lighting_drift,
                       lighting_gradient=cond.lighting_gradient, glasses=cond.glasses, mirror=cond.mirror,
-                      iris_colour=cond.iris_colour, exposure_ms=cond.exposure_ms, **kw)
+                      iris_colour=cond.iris_colour, exposure_ms=cond.exposure_ms,
+                      corneal_reflection=cond.corneal_reflection, **kw)
     return res, trial
 
 

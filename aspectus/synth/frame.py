@@ -67,6 +67,13 @@ _TEX_PX = 64  # side of the canonical iris texture
 #: The light one is about as bright as a dim sclera in the picture, so the limbus has little grey-level contrast.
 IRIS_COLOURS = {"dark_brown": (62.0, 38.0, 26.0), "hazel": (124.0, 96.0, 58.0),
                 "light_blue_grey": (132.0, 150.0, 162.0)}
+#: anterior corneal radius of curvature, mm (Le Grand's schematic eye 7.8 mm, Gullstrand's 7.7 mm - from memory)
+CORNEA_RADIUS_MM = 7.8
+#: distance of the corneal apex from the eye's centre of rotation (the eyeball centre here), mm (field notes: about
+#: 13 mm - from memory); the cornea's centre of curvature lies CORNEA_RADIUS_MM behind the apex, so
+#: 13 - 7.8 = 5.2 mm in front of the centre of rotation (between it and the 10.5 mm iris plane)
+CORNEA_APEX_MM = 13.0
+CORNEA_CENTRE_MM = CORNEA_APEX_MM - CORNEA_RADIUS_MM
 
 #: MediaPipe face-oval landmarks in order around the face (forehead, subject's left side, chin, right side)
 FACE_OVAL = (10, 338, 297, 332, 284, 251, 389, 356, 454, 323, 361, 288, 397, 365, 379, 378, 400, 377, 152,
@@ -129,6 +136,68 @@ class Camera:
         cx, cy = self.centre_px
         z = pts_mm[..., 2]
         return np.stack([cx + f * pts_mm[..., 0] / z, cy + f * pts_mm[..., 1] / z], axis=-1)
+
+
+@dataclass(frozen=True)
+class CornealReflection:
+    """A light source mirrored by the cornea (the first Purkinje image), drawn on each eye.
+
+    The default is a 50 x 30 cm screen facing the subject, its centre 16 cm below the camera and 2 cm behind
+    it (a monitor with the webcam on its top edge).
+
+    Attributes
+    ----------
+    source_mm : (x, y, z)
+        The source's centre in the camera frame (aspectus.schema: x to the picture's right, y down, z away
+        from the camera), mm.
+    size_mm : (width, height)
+        The source's extent, a rectangle facing the camera's direction (in the camera's x-y plane), mm.
+    brightness : float
+        Grey level (0-255) the reflection shows where it covers a whole pixel before blur, compression and the
+        lighting changes (a screen's reflection is near saturated on webcam pictures).
+    """
+
+    source_mm: tuple = (0.0, 160.0, -20.0)
+    size_mm: tuple = (500.0, 300.0)
+    brightness: float = 245.0
+
+    def __post_init__(self):
+        from aspectus.errors import ParameterError
+
+        src, size = np.asarray(self.source_mm, float), np.asarray(self.size_mm, float)
+        if src.shape != (3,) or not np.all(np.isfinite(src)):
+            raise ParameterError(f"corneal reflection source_mm must be (x, y, z) in mm, got {self.source_mm!r}")
+        if size.shape != (2,) or not np.all(np.isfinite(size)) or np.any(size <= 0):
+            raise ParameterError(f"corneal reflection size_mm must be (width, height) above 0 mm, got {self.size_mm!r}")
+        if not (np.isfinite(self.brightness) and 0.0 <= float(self.brightness) <= 255.0):
+            raise ParameterError(f"corneal reflection brightness must be a grey level 0-255, got {self.brightness!r}")
+
+    def outline_mm(self) -> np.ndarray:
+        """(4, 3) corners of the source, camera frame, mm."""
+        (x, y, z), (w, h) = self.source_mm, self.size_mm
+        return np.array([[x - w / 2, y - h / 2, z], [x + w / 2, y - h / 2, z], [x + w / 2, y + h / 2, z],
+                         [x - w / 2, y + h / 2, z]], float)
+
+
+def corneal_reflection_points_mm(eyeball_mm, gaze, sources_mm) -> tuple[np.ndarray, np.ndarray]:
+    """Where the cornea mirrors point sources towards the camera (at the origin), camera frame, mm.
+
+    The cornea is a sphere of radius :data:`CORNEA_RADIUS_MM` centred :data:`CORNEA_CENTRE_MM` from the
+    eyeball centre along the gaze. A source is seen where the sphere's outward normal bisects the directions to
+    the camera and to the source (the law of reflection); with both much further away than the radius, the
+    virtual image lies on that line of sight, about half the radius behind the surface, so its picture
+    position is the projection of this surface point. Returns the (N, 3) points and (N,) bool: the point lies
+    on the corneal cap (within the 11.7 mm limbus circle), not on the sclera.
+    """
+    centre = np.asarray(eyeball_mm, float) + CORNEA_CENTRE_MM * np.asarray(gaze, float)
+    src = np.atleast_2d(np.asarray(sources_mm, float))
+    to_cam = -centre / np.linalg.norm(centre)
+    to_src = src - centre
+    to_src /= np.linalg.norm(to_src, axis=1, keepdims=True)
+    n = to_cam[None, :] + to_src
+    n /= np.linalg.norm(n, axis=1, keepdims=True)
+    cap = np.cos(np.arcsin((IRIS_DIAMETER_MM / 2) / CORNEA_RADIUS_MM))
+    return centre + CORNEA_RADIUS_MM * n, (n @ np.asarray(gaze, float)) >= cap
 
 
 def _iris_texture(rgb, seed: int) -> np.ndarray:
@@ -280,11 +349,15 @@ class FaceRig:
     iris_rgb : (float, float, float), optional
         Iris colour of both eyes, sRGB 0-255 (e.g. a value of
         :data:`IRIS_COLOURS`); by default each eye's colour in the photograph.
+    corneal_reflection : CornealReflection, optional
+        Draw the source's reflection on each cornea (None: no reflection,
+        the default).
     """
 
     def __init__(self, face: FacePhoto, camera: Camera, *, rest_head_mm=(0.0, 0.0, 600.0),
                  background: np.ndarray, seed: int = 0, lower_skin_follow: float = 0.0, lid_follow: float = 1.0,
-                 glasses: bool = False, iris_rgb=None):
+                 glasses: bool = False, iris_rgb=None, corneal_reflection: CornealReflection | None = None):
+        self.corneal_reflection = corneal_reflection
         cv2 = import_cv2()
         for name, v in (("lower_skin_follow", lower_skin_follow), ("lid_follow", lid_follow)):
             if not (0.0 <= float(v) <= 1.0):
@@ -512,7 +585,7 @@ class FaceRig:
 
     # ------------------------------------------------------------------ eyes
     def _draw_eye(self, img: np.ndarray, eye: str, contour_uv: np.ndarray, iris_c_mm: np.ndarray,
-                  gaze: np.ndarray, closure: float) -> None:
+                  gaze: np.ndarray, closure: float, eyeball_mm: np.ndarray | None = None) -> None:
         cv2 = import_cv2()
         look = self.face.eyes[eye]
         h, w = img.shape[:2]
@@ -572,6 +645,21 @@ class FaceRig:
                       False, 1.0, thickness=max(1, int(round(0.25 * eye_w / 4))), lineType=cv2.LINE_AA, shift=4)
         lid = cv2.GaussianBlur(lid, (0, 0), max(0.8, 0.04 * eye_w))
         content = content * (1 - 0.35 * lid[..., None])
+        if self.corneal_reflection is not None and eyeball_mm is not None:
+            # the source's outline as the cornea mirrors it: drawn on the eyeball, so the lids clip it below
+            pts, on_cap = corneal_reflection_points_mm(eyeball_mm, gaze, self.corneal_reflection.outline_mm())
+            if on_cap.any():
+                quad = self.camera.project(pts) - org
+                spot = np.zeros((ph, pw), np.uint8)
+                cv2.fillPoly(spot, [np.round(quad * 16).astype(np.int32)], 255, lineType=cv2.LINE_AA, shift=4)
+                # the part of the outline mirrored by the sclera is not drawn (cornea only)
+                cap = np.zeros((ph, pw), np.uint8)
+                ring = iris_c_mm + r * (np.cos(np.linspace(0, 2 * np.pi, 33))[:, None] * ax
+                                        + np.sin(np.linspace(0, 2 * np.pi, 33))[:, None] * ay)
+                cv2.fillPoly(cap, [np.round((self.camera.project(ring) - org) * 16).astype(np.int32)], 255,
+                             lineType=cv2.LINE_AA, shift=4)
+                a = (spot.astype(np.float32) * cap.astype(np.float32) / 255.0 ** 2)[..., None]
+                content = content * (1 - a) + float(self.corneal_reflection.brightness) * a
 
         m_full = full[..., None]
         m_open = open_m[..., None]
@@ -672,14 +760,18 @@ class FaceRig:
         else:  # head at rest: only the lids move
             img = self._warped_base(uv)
         iris_mm = self.iris_centres_mm(R, T_mm, gaze)
-        iris_uv, diam = {}, []
+        _, eyeballs = self.pose(R, T_mm)
+        iris_uv, diam, glint_uv = {}, [], {}
         f = self.camera.focal_px
         for e in EYES:
             contour = uv[list(EYE_CONTOUR[e])]
-            self._draw_eye(img, e, contour, iris_mm[e], gaze, closure)
+            self._draw_eye(img, e, contour, iris_mm[e], gaze, closure, eyeballs[e])
             iris_uv[e] = self.camera.project(iris_mm[e][None])[0]
             diam.append(f * IRIS_DIAMETER_MM / np.linalg.norm(iris_mm[e]))
+            if self.corneal_reflection is not None:
+                p, _ = corneal_reflection_points_mm(eyeballs[e], gaze, np.asarray(self.corneal_reflection.source_mm))
+                glint_uv[e] = self.camera.project(p)[0]
         if self.glasses:
             self._draw_glasses(img, R, T_mm)
         return img, {"iris_uv": iris_uv, "iris_mm": iris_mm, "iris_diameter_px": float(np.mean(diam)),
-                     "landmarks_uv": uv}
+                     "landmarks_uv": uv, "reflection_uv": glint_uv}

@@ -29,7 +29,8 @@ from aspectus import __version__
 from aspectus.atomic import atomic_path, sha256_file, write_csv, write_json
 from aspectus.errors import Cancelled, ParameterError
 from aspectus.synth.face import EYES, FACES, IRIS_DIAMETER_MM, load_face
-from aspectus.synth.frame import EYEBALL_RADIUS_MM, IRIS_COLOURS, Camera, FaceRig, gaze_vector, head_rotation
+from aspectus.synth.frame import (EYEBALL_RADIUS_MM, IRIS_COLOURS, Camera, CornealReflection, FaceRig, gaze_vector,
+                                   head_rotation)
 from aspectus.synth.trajectory import Trajectory, saccade_duration_ms, synth_trajectory
 from aspectus.synth.clip_writer import FORMATS, ClipWriter, rotate_for_storage
 
@@ -221,7 +222,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 darkness: float = 1.0, face_visible=None, extra_faces: int = 0, seed: int = 0,
                 lower_skin_follow: float = 0.0, lid_follow: float = 1.0, glasses: bool = False,
                 lighting_drift: float = 0.0, lighting_gradient: float = 0.0, mirror: bool = False,
-                iris_colour=None, exposure_ms: float = 0.0, progress=None, cancel=None) -> RenderResult:
+                iris_colour=None, exposure_ms: float = 0.0, corneal_reflection=False, progress=None,
+                cancel=None) -> RenderResult:
     """Render a webcam-like clip of a face following ``trajectory`` and write its truth beside it.
 
     Parameters
@@ -304,6 +306,13 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         middle of the exposure (``t_s``); ``exposure_start_s`` and
         ``exposure_end_s`` give the exposure. At most the shortest frame
         interval.
+    corneal_reflection : bool or CornealReflection, default False
+        Draw the reflection of a light source on each cornea (the first
+        Purkinje image; :class:`aspectus.synth.frame.CornealReflection`):
+        True for the default source, a 50 x 30 cm screen just below and
+        behind the camera, or a ``CornealReflection`` with the source's
+        position, size and brightness. It is drawn before the optical blur,
+        noise and compression and clipped by the lids.
     progress : callable, optional
         ``progress(fraction_done, message)``, called every few frames.
     cancel : object with ``is_set()``, optional
@@ -378,6 +387,14 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         raise ParameterError(f"exposure_ms must be zero or more milliseconds, got {exposure_ms!r}")
     exposure_s = float(exposure_ms) / 1000.0
 
+    if corneal_reflection is True:
+        corneal_reflection = CornealReflection()
+    elif corneal_reflection is False or corneal_reflection is None:
+        corneal_reflection = None
+    elif not isinstance(corneal_reflection, CornealReflection):
+        raise ParameterError("corneal_reflection must be True, False or a CornealReflection, got "
+                             f"{corneal_reflection!r}")
+
     duration = float(trajectory.samples["t_s"].iloc[-1])
     vfr = frame_times_s is not None
     if vfr:
@@ -405,7 +422,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
             float(track["head_z_mm"].median()))
     bg = _background(w, h)
     rig = FaceRig(load_face(face), camera, rest_head_mm=rest, background=bg, seed=seed,
-                  lower_skin_follow=lower_skin_follow, lid_follow=lid_follow, glasses=glasses, iris_rgb=iris_rgb)
+                  lower_skin_follow=lower_skin_follow, lid_follow=lid_follow, glasses=glasses, iris_rgb=iris_rgb,
+                  corneal_reflection=corneal_reflection)
     light = _light_level(times, seed=seed, drift=float(lighting_drift))
     ramp = (0.5 - (np.arange(w, dtype=np.float32) + 0.5) / w)[None, :, None]  # +0.5 at the left edge
     if extra_faces:
@@ -533,6 +551,10 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         "iris_rgb": {e: list(rig.iris_rgb[e]) for e in EYES},
         "exposure_ms": float(exposure_ms), "truth_time": "middle of each frame's exposure (t_s)",
         "exposure_subframes": {"mean": float(np.mean(subframes)), "max": int(max(subframes))} if subframes else None,
+        "corneal_reflection": (None if corneal_reflection is None else
+                               {"source_mm": [float(v) for v in corneal_reflection.source_mm],
+                                "size_mm": [float(v) for v in corneal_reflection.size_mm],
+                                "brightness": float(corneal_reflection.brightness)}),
         "face_hidden_frames": int((~visible).sum()),
         "geometry": {"iris_diameter_mm": IRIS_DIAMETER_MM, "eyeball_radius_mm": EYEBALL_RADIUS_MM,
                      "frame": "aspectus.schema (yaw>0 subject's right, pitch>0 up)",
