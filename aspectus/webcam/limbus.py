@@ -54,7 +54,7 @@ from __future__ import annotations
 import numpy as np
 
 from aspectus._env import import_cv2
-from aspectus.geometry import from_opencv_px
+from aspectus.geometry import from_opencv_px, to_opencv_px
 from aspectus.webcam.landmarks import LEFT_EYE_OUTLINE, RIGHT_EYE_OUTLINE
 
 _OUTLINES = (np.array(RIGHT_EYE_OUTLINE), np.array(LEFT_EYE_OUTLINE))
@@ -83,6 +83,12 @@ EDGE_BLUR_PX = (0.5, 0.7, 0.9, 1.1, 1.3, 1.6, 2.0)
 EDGE_WINDOW_PX = 3.5
 #: where a ray's limbus candidate is taken on its grey profile (:func:`limbus_centres_many`, ``edge``)
 EDGE_LOCATORS = ("steepest", "model")
+#: the bright-spot search (:func:`fill_bright_spots`): within this many iris radii of the iris point; a pixel
+#: brighter than the disc's median by this many grey levels (and 4 robust SDs) belongs to a spot; a spot
+#: covers at most this share of the disc
+SPOT_DISC_RADII = 0.9
+SPOT_MIN_EXCESS = 25.0
+SPOT_MAX_SHARE = 0.25
 
 
 def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -266,6 +272,99 @@ def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None
     dist = cv2.distanceTransform(mask, cv2.DIST_L2, 3)
     radii = np.linspace(0.6 * r, 1.5 * r, max(12, int(np.ceil(1.8 * r))))
     return _Eye(frame, e, origin, c0 - origin, r, g, dist, radii)
+
+
+def fill_bright_spots(g: np.ndarray, centre: np.ndarray, r: float) -> int:
+    """Fill compact bright spots inside the iris disc from their surround, in place; returns the pixels filled.
+
+    A light source mirrored by the cornea (a screen, a window, a lamp: the first Purkinje image) is a small
+    near-saturated patch on the iris. Common practice in pupil and iris localisation is to find such
+    reflections and leave them out (fill them in) before measuring the eye. Here, within ``SPOT_DISC_RADII`` iris
+    radii of ``centre`` (the region's coordinates, pixel centres at integers), pixels brighter than the disc's
+    median by ``SPOT_MIN_EXCESS`` grey levels and 4 robust SDs form spots; a spot that reaches the disc's edge
+    (sclera or lid skin where the centre is off) or covers more than ``SPOT_MAX_SHARE`` of the disc is left
+    alone. Each spot takes in the pixels within a tenth of the radius (and 1 px) of it that are still brighter
+    than the median by a fifth of that excess (its blurred halo), and one pixel more, within the disc; it is
+    filled with the median of the unlit disc pixels within 2 px around it (the iris there).
+    """
+    cv2 = import_cv2()
+    h, w = g.shape
+    rad = SPOT_DISC_RADII * r
+    x0, x1 = int(max(0, np.floor(centre[0] - rad - 3))), int(min(w, np.ceil(centre[0] + rad + 4)))
+    y0, y1 = int(max(0, np.floor(centre[1] - rad - 3))), int(min(h, np.ceil(centre[1] + rad + 4)))
+    if x1 - x0 < 3 or y1 - y0 < 3:
+        return 0
+    sub = g[y0:y1, x0:x1]
+    yy, xx = np.mgrid[y0:y1, x0:x1]
+    d = np.hypot(xx - centre[0], yy - centre[1])
+    disc = d <= rad
+    if disc.sum() < 12:
+        return 0
+    vals = sub[disc]
+    med = float(np.median(vals))
+    sd = 1.4826 * float(np.median(np.abs(vals - med)))
+    excess = max(SPOT_MIN_EXCESS, 4.0 * sd)
+    seeds = (disc & (sub > med + excess)).astype(np.uint8)
+    if not seeds.any():
+        return 0
+    n, lab = cv2.connectedComponents(seeds, connectivity=8)
+    edge = disc & (d > rad - 1.0)
+    core = np.zeros(sub.shape, np.uint8)
+    for k in range(1, n):
+        spot = lab == k
+        if (spot & edge).any() or spot.sum() > SPOT_MAX_SHARE * disc.sum():
+            continue
+        core[spot] = 1
+    if not core.any():
+        return 0
+    # the blurred halo: pixels near a core still above the median by a fifth of the excess, and one pixel more
+    reach = 1 + int(round(0.1 * r))
+    near = cv2.dilate(core, np.ones((2 * reach + 1,) * 2, np.uint8)).astype(bool)
+    lit = sub > med + 0.2 * excess
+    mask = cv2.dilate((core.astype(bool) | (near & lit)).astype(np.uint8), np.ones((3, 3), np.uint8)).astype(bool)
+    mask &= disc
+    # the fill: the iris around the spot (the disc's pixels within 2 px of it that are not lit), not the rim's
+    # blur or the sclera beyond it
+    ring = cv2.dilate(mask.astype(np.uint8), np.ones((5, 5), np.uint8)).astype(bool) & ~mask & disc & ~lit
+    if ring.sum() < 3:
+        return 0
+    sub[mask] = np.median(sub[ring])
+    return int(mask.sum())
+
+
+def fill_iris_reflections(image: np.ndarray, iris_px, iris_diam_px) -> tuple[np.ndarray, int]:
+    """A copy of the RGB picture with compact bright spots on both irises filled (:func:`fill_bright_spots` on
+    the grey picture, the change added to each colour channel), and the pixels filled; the picture itself when
+    there is nothing to fill.
+
+    ``iris_px`` (2, 2) and ``iris_diam_px`` (2,): where the irises are expected (aspectus.schema's picture
+    convention), e.g. the face mesh's in the frame before. The face mesh reads a screen mirrored by the cornea
+    as part of the eye (on rendered 12 px irises its iris point's horizontal error SD went from 0.4 to 1.2 px
+    on one eye: docs/notes/gaze-measurement.md), so the pipeline fills the reflections before it runs the mesh.
+    """
+    out, n = image, 0
+    h, w = image.shape[:2]
+    for c, dmt in zip(np.asarray(iris_px, float), np.asarray(iris_diam_px, float)):
+        r = 0.5 * dmt
+        if not (np.isfinite(r) and r >= 2.5 and np.all(np.isfinite(c))):
+            continue
+        x0, y0 = int(max(0, np.floor(c[0] - 2 * r))), int(max(0, np.floor(c[1] - 2 * r)))
+        x1, y1 = int(min(w, np.ceil(c[0] + 2 * r) + 1)), int(min(h, np.ceil(c[1] + 2 * r) + 1))
+        if x1 - x0 < 4 or y1 - y0 < 4:
+            continue
+        sub = image[y0:y1, x0:x1].astype(np.float32)
+        grey = sub.mean(axis=2) if sub.ndim == 3 else sub.copy()
+        before = grey.copy()
+        k = fill_bright_spots(grey, to_opencv_px(c) - [x0, y0], r)
+        if not k:
+            continue
+        if out is image:
+            out = image.copy()
+        change = grey - before
+        out[y0:y1, x0:x1] = np.clip(sub + (change[..., None] if sub.ndim == 3 else change) + 0.5, 0, 255).astype(
+            image.dtype)
+        n += k
+    return out, n
 
 
 def shape_warp(ratio: float, angle_rad: float) -> np.ndarray | None:

@@ -46,12 +46,13 @@ from aspectus.atomic import (full_paths_wanted, recorded_path, sha256_file, sha2
 from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
-from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze, unmirror_record
+from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements, unmirror_record
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
 from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
                                             frame_item, start_geometry)
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
+from aspectus.webcam.limbus import fill_iris_reflections
 from aspectus.events.detect.noise import SD_PER_RMS_S2S_WHITE
 from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, SAMPLE_COLUMNS, column_table
 from aspectus.webcam.video import DecodeReport, FramePrefetcher, iter_frames, probe
@@ -468,6 +469,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         pin_to_cpus(background, geometry.pid)
     n_in = 0
     state = None
+    last_iris = None  # the face mesh's iris centres and diameters in the frame before
     # the iris registration at the clip's end takes the last part of the progress (_registered_iris)
     loop_share = 1.0 - REGISTRATION_PROGRESS_SHARE if registration else 1.0
     try:
@@ -476,9 +478,17 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                 raise Cancelled(f"cancelled while processing {clip.name}")
             geometry.check()
             try:
-                obs = tracker.process(fr.image)
+                # the face mesh sees the picture with the corneal reflections near the last frame's irises filled
+                # (aspectus.webcam.limbus.fill_iris_reflections); the stages after it read the picture as it is
+                mesh_image = fr.image if last_iris is None else fill_iris_reflections(fr.image, *last_iris)[0]
+                obs = tracker.process(mesh_image)
             except FaceChoiceError as exc:
                 raise FaceChoiceError(exc.problem, path=clip, hint=exc.hint) from None
+            if obs is None:
+                last_iris = None
+            else:
+                m_obs = frame_measurements(obs.points_px)
+                last_iris = (m_obs["iris_px"], m_obs["iris_diam_px"])
             geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine, faces_in_view=tracker.faces_in_view,
                                        skin_pose=skin, anchor_set=params.gaze.eye_anchor_set))
             n_in += 1
