@@ -41,7 +41,7 @@ from aspectus.webcam.skin_region import SkinRegionTracker
 #: columns of one row of the per-frame record (the width of each block in brackets)
 RECORD_COLUMNS = (("pts_s", 1), ("found", 1), ("face_count", 1), ("R", 9), ("t_mm", 3), ("iris_px", 4),
                   ("iris_diam_px", 2), ("corners_px", 8), ("ear", 2), ("iris_mesh_px", 4), ("t_small_face_mm", 3),
-                  ("limbus_diam_px", 2))
+                  ("limbus_diam_px", 2), ("limbus_contrast_pct", 2))
 #: with ``anchor_set="auto"``: the translation refitted to :data:`aspectus.webcam.eye_anchors.AUTO_SMALL_FACE_SET`
 #: (NaN once the first frames have shown a face that is not small, and with any other set); ``t_mm`` holds the
 #: one refitted to :data:`aspectus.webcam.eye_anchors.DEFAULT_ANCHOR_SET`, and the pipeline takes one of the two
@@ -49,7 +49,10 @@ SMALL_FACE_T_COLUMNS = slice(35, 38)
 RECORD_WIDTH = sum(n for _, n in RECORD_COLUMNS)
 #: the record's columns of both eyes' limbus-fit diameters, px (NaN where the fit failed or did not run): the
 #: iris scale (:func:`aspectus.webcam.gaze.limbus_iris_scale`); 16 bytes a frame, some 1.7 MB an hour at 30 fps
-LIMBUS_DIAM = slice(RECORD_WIDTH - 2, RECORD_WIDTH)
+LIMBUS_DIAM = slice(RECORD_WIDTH - 4, RECORD_WIDTH - 2)
+#: the record's columns of both eyes' iris contrast against the sclera about the limbus fit's circle, % (NaN where not
+#: measured; :func:`aspectus.webcam.limbus.limbus_contrast`): the clip's check of the iris's contrast
+LIMBUS_CONTRAST = slice(RECORD_WIDTH - 2, RECORD_WIDTH)
 #: columns that follow those with ``appearance`` on (:mod:`aspectus.webcam.iris_appearance`): whether each
 #: eye's limbus fit succeeded (1/0), each eye's patch frame (2 x 2 x 3, NaN where the frame has no patch) and
 #: both eyes' patches, uint8 bytes carried in float64 columns (read back with ``.view(np.uint8)``)
@@ -261,11 +264,12 @@ class FrameGeometry:
                 fits.append((k, job))
         if fits:
             eyeballs = [job[2] for _, job in fits] if self.iris_shape else None
-            for (k, (_, off, *_e)), (iris, ok, diam) in zip(fits, limbus_centres_many([job[0] for _, job in fits],
-                                                                                       diameters=True,
-                                                                                       eyeball_px=eyeballs)):
+            for (k, (_, off, *_e)), (iris, ok, diam, step) in zip(
+                    fits, limbus_centres_many([job[0] for _, job in fits], diameters=True, eyeball_px=eyeballs,
+                                              contrast=True)):
                 out[k, 15:19] = (iris + off).ravel()
                 out[k, LIMBUS_DIAM] = diam
+                out[k, LIMBUS_CONTRAST] = step
                 if self.appearance:
                     out[k, RECORD_WIDTH:RECORD_WIDTH + 2] = ok
         return out

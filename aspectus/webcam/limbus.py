@@ -89,6 +89,11 @@ EDGE_LOCATORS = ("steepest", "model")
 SPOT_DISC_RADII = 0.9
 SPOT_MIN_EXCESS = 25.0
 SPOT_MAX_SHARE = 0.25
+#: the rings, in iris radii about the iris centre the fit ends at (the mesh's point and radius where it failed),
+#: whose median greys inside the eye opening give an eye's iris contrast (:func:`limbus_contrast`): the
+#: iris outside a pupil and inside the limbus's blur, and the white of the eye beside it
+CONTRAST_IRIS_RING = (0.55, 0.85)
+CONTRAST_SCLERA_RING = (1.2, 1.7)
 
 
 def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -396,11 +401,12 @@ def iris_shape(offset_px: np.ndarray, r_px: float) -> tuple[float, float]:
 
 def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
                         diameters: bool = False, shapes=None, eyeball_px=None,
-                        edge: str = "steepest") -> list[tuple[np.ndarray, ...]]:
+                        edge: str = "steepest", contrast: bool = False) -> list[tuple[np.ndarray, ...]]:
     """:func:`limbus_centres` of several frames, ``items`` = [(image, points_px, iris_px, iris_diam_px), ...].
 
     With ``diameters`` each frame's tuple also holds both eyes' fitted circle diameters, px (2,), NaN where
-    the fit failed (the iris scale, :func:`aspectus.webcam.gaze.limbus_iris_scale`).
+    the fit failed (the iris scale, :func:`aspectus.webcam.gaze.limbus_iris_scale`). With ``contrast`` it then
+    also holds both eyes' iris contrast against the sclera, % (:func:`limbus_contrast`; NaN where it was not measured).
 
     ``eyeball_px``: per frame None or both eyeball centres' picture positions (2, 2), in the pictures'
     coordinates: the iris is then fitted as the ellipse the first pass's circle predicts (:func:`iris_shape`),
@@ -456,11 +462,40 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes:
             still.append(eye)
         active = still
     diams = [np.full(2, np.nan) for _ in items]
+    steps = [np.full(2, np.nan) for _ in items]
     for eye in eyes:
         outs[eye.frame][eye.eye] = eye.cur + eye.origin
         if fitted[eye.frame][eye.eye]:
             diams[eye.frame][eye.eye] = 2.0 * eye.r_fit
+        if contrast:
+            steps[eye.frame][eye.eye] = limbus_contrast(eye.g, eye.dist, eye.cur, eye.r_fit)
+    if contrast:
+        return list(zip(outs, fitted, diams, steps))
     return list(zip(outs, fitted, diams)) if diameters else list(zip(outs, fitted))
+
+
+def limbus_contrast(grey: np.ndarray, lid_dist: np.ndarray, centre: np.ndarray, r: float) -> float:
+    """How much darker the iris is than the white of the eye, in % of the white's grey: 100 x (sclera - iris) /
+    sclera, with ``sclera`` and ``iris`` the median greys of the rings :data:`CONTRAST_SCLERA_RING` and
+    :data:`CONTRAST_IRIS_RING` (iris radii ``r`` about ``centre``, px, in ``grey``'s coordinates), both read inside
+    the eye opening (``lid_dist``, the distance to the lids' outline, at least 1 px). The grey is what the limbus
+    fit reads (the mean of R, G, B). NaN where a ring holds fewer than 3 pixels.
+
+    A ratio, so that the same eye reads the same under a brighter or dimmer light (a gain on the picture). A dark
+    iris is 50-70 % darker than the sclera beside it on the rendered grid; a light (blue-grey) one 14-22 %, and the
+    limbus fit then follows whatever edge is strongest (docs/notes/gaze-measurement.md, "Light irises and
+    exposure blur in the rendered grid").
+    """
+    h, w = grey.shape
+    yy, xx = np.mgrid[0:h, 0:w]
+    d = np.hypot(xx - centre[0], yy - centre[1]) / max(float(r), 1e-6)
+    inside = lid_dist >= 1.0
+    iris = grey[inside & (d >= CONTRAST_IRIS_RING[0]) & (d <= CONTRAST_IRIS_RING[1])]
+    sclera = grey[inside & (d >= CONTRAST_SCLERA_RING[0]) & (d <= CONTRAST_SCLERA_RING[1])]
+    if iris.size < 3 or sclera.size < 3:
+        return float("nan")
+    white = float(np.median(sclera))
+    return 100.0 * (white - float(np.median(iris))) / max(white, 1.0)
 
 
 def _distance_maps(eyes: list) -> np.ndarray:

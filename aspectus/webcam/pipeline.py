@@ -48,7 +48,7 @@ from aspectus.run_record import missing_output, read_run_json, refuse_foreign_fi
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements, unmirror_record
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
-from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
+from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_CONTRAST, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
                                             frame_item, start_geometry)
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
@@ -572,6 +572,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     finally:
         if patches is not None:
             patches.close()  # the patches are not needed any more (the temporary file goes with it)
+    contrast = iris_contrast(a[:, LIMBUS_CONTRAST]) if refine else None
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
@@ -618,6 +619,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         "skin_pose_frames": state.get("skin_pose_frames"),
         "skin_pose_fallback_frames": state.get("skin_pose_fallback_frames"),
         "geometry_process_peak_rss_mb": state.get("peak_rss_mb"),
+        "iris_contrast": contrast,
         "landmarking_s": round(t_land, 3),
         "landmarking_fps": round(n / t_land, 1) if t_land > 0 else None,
     }
@@ -626,6 +628,29 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         meta["frame_interval_ms"] = {"median": float(np.median(d) * 1e3), "min": float(d.min() * 1e3),
                                      "max": float(d.max() * 1e3)}
     return df, meta
+
+
+#: the least iris contrast against the whites of the eyes (%, the clip's :func:`iris_contrast`) at which the
+#: limbus fit is trusted to find the iris. Measured with the default chain (docs/notes/gaze-measurement.md,
+#: "Light irises and exposure blur in the rendered grid"; 2026-12-04): dark irises on the rendered grid (the 15
+#: default cells, seed 0) 54.4-65.0 % and on 16 held-out rendered clips 53.3-61.5 %; light blue-grey irises (16.6
+#: and 12 px, seeds 0 and 1) 0.9-18.8 %, where the gaze error's RMS-S2S was 3.3-6.3 deg. Set about midway
+#: between the two (a light iris on one eye is enough: the clip's figure is the lower eye's).
+MIN_IRIS_CONTRAST_PCT = 35.0
+
+
+def iris_contrast(steps: np.ndarray) -> dict:
+    """The clip's iris contrast against the whites of the eyes from the frames' per-eye contrasts (N, 2), % (NaN
+    where not measured; :func:`aspectus.webcam.limbus.limbus_contrast`): each eye's median over its frames, the
+    clip's the lower of the two (the gaze reads both eyes), and how many frames each was measured in."""
+    steps = np.asarray(steps, float).reshape(-1, 2)
+    out = {"frames": [int(np.isfinite(steps[:, e]).sum()) for e in (0, 1)]}
+    med = [float(np.median(steps[np.isfinite(steps[:, e]), e])) if out["frames"][e] else float("nan") for e in (0, 1)]
+    out["right_pct"], out["left_pct"] = _round(med[0], 1), _round(med[1], 1)
+    both = [m for m in med if np.isfinite(m)]
+    out["clip_pct"] = _round(min(both), 1) if both else None
+    out["min_pct"] = MIN_IRIS_CONTRAST_PCT
+    return out
 
 
 def _round(x, nd: int = 2) -> float | None:
@@ -751,6 +776,8 @@ def _tier_shortfall(summary: dict, tier: str) -> list[str]:
         elif sd > sd_limit:
             out.append(f"the samples spread {sd:.2f} deg about each fixation's centre (SD; at most {sd_limit:.2f} deg "
                        "needed)")
+    if _low_iris_contrast(summary):
+        out.append("the iris could not be located (too little contrast against the whites of the eyes)")
     if iris is None or not np.isfinite(iris):
         out.append("no iris was measured")
     elif iris < min_iris:
@@ -775,6 +802,20 @@ def _trust_sentence(summary: dict) -> str:
                     else ("coarse", "fixation measures, and even for gaze direction averaged over seconds"))
     return (f" Gaze precision is too low for {what}: " + "; ".join(_tier_shortfall(summary, better))
             + ". Trust only: " + "; ".join(features) + ".")
+
+
+def _low_iris_contrast(summary: dict) -> bool:
+    """Whether the clip's irises stand out too little from the whites of the eyes for the limbus fit
+    (``iris_contrast_pct`` below :data:`MIN_IRIS_CONTRAST_PCT`; unknown is not low)."""
+    v = summary.get("iris_contrast_pct")
+    return v is not None and bool(np.isfinite(v)) and v < MIN_IRIS_CONTRAST_PCT
+
+
+def _low_contrast_text(summary: dict) -> str:
+    return (f"the irises show too little contrast against the whites of the eyes for the iris to be located (they "
+            f"are {summary['iris_contrast_pct']:.0f} % darker than the whites; at least {MIN_IRIS_CONTRAST_PCT:g} % "
+            "needed): light irises, dim light or overexposure - the gaze follows other edges and its direction "
+            "is not measured")
 
 
 def _verdict(summary: dict) -> tuple[bool, str]:
@@ -803,6 +844,8 @@ def _verdict(summary: dict) -> tuple[bool, str]:
                "filtered signal" if noise_ok else "")
         reasons.append(f"the gaze signal is very noisy (it wanders {sd:.1f} deg (SD) about each fixation's mean, "
                        f"above {tier_sd_limit_deg(limit):.2f} deg{why})")
+    if _low_iris_contrast(summary):
+        reasons.append(_low_contrast_text(summary))
     if reasons:
         return False, "Not usable: " + "; ".join(reasons) + "."
     noise_text = (f"noise {noise:.2f} deg sample to sample (over 33 ms steps)" if noise is not None and np.isfinite(noise)
@@ -840,6 +883,10 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
     s["median_iris_px"] = float(np.nanmedian(iris)) if np.isfinite(iris).any() else float("nan")
     s["precision_tier"], s["trusted_features"] = precision_tier(s["noise_rms_s2s_33ms_deg"], s["median_iris_px"],
                                                                 s["noise_sd_deg"])
+    ic = (meta.get("iris_contrast") or {}).get("clip_pct")
+    s["iris_contrast_pct"] = float(ic) if ic is not None else float("nan")
+    if _low_iris_contrast(s):  # the iris was not located: no gaze feature can be trusted, however steady
+        s["precision_tier"], s["trusted_features"] = PRECISION_TIERS[-1][0], list(PRECISION_TIERS[-1][3])
     s["usable"], s["verdict"] = _verdict(s)
     s["verdict"] += _trust_sentence(s)
     if ((meta.get("gaze_model") or {}).get("iris_estimate") or {}).get("used") == "appearance":
