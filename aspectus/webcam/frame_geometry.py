@@ -34,7 +34,8 @@ from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, frame_measurements
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, PATCH_BYTES, EyePatchSampler, small_iris
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
-from aspectus.webcam.limbus import ROI_RADII, limbus_centres_many
+from aspectus.webcam.limbus import (CONTRAST_MIN_FRAMES, MIN_IRIS_CONTRAST_PCT, ROI_RADII, limbus_centres_many,
+                                    pupil_centre)
 from aspectus.webcam.skin_pose import SKIN_POSE_POINTS, SkinPose
 from aspectus.webcam.skin_region import SkinRegionTracker
 
@@ -231,6 +232,10 @@ class FrameGeometry:
                                           or self.auto_anchors else None)
         self.anchored_frames = 0
         self.unanchored_frames = 0
+        # each eye's iris contrasts so far, counted in 1 % bins from -100 to 100 %: where their median is low the
+        # eye's centre is its pupil's (a median over the clip so far at the cost of a histogram, for hour-long clips)
+        self._contrasts = np.zeros((2, 201), np.int64)
+        self.pupil_eye_frames = 0
         self._anchor_minus_pnp: np.ndarray | None = None
 
     @staticmethod
@@ -263,16 +268,44 @@ class FrameGeometry:
             if job is not None:
                 fits.append((k, job))
         if fits:
+            fits_job = {k: job[0] for k, job in fits}
             eyeballs = [job[2] for _, job in fits] if self.iris_shape else None
             for (k, (_, off, *_e)), (iris, ok, diam, step) in zip(
                     fits, limbus_centres_many([job[0] for _, job in fits], diameters=True, eyeball_px=eyeballs,
                                               contrast=True)):
+                iris, ok, diam = self._pupil_where_faint(fits_job[k], iris, ok, diam, step)
                 out[k, 15:19] = (iris + off).ravel()
                 out[k, LIMBUS_DIAM] = diam
                 out[k, LIMBUS_CONTRAST] = step
                 if self.appearance:
                     out[k, RECORD_WIDTH:RECORD_WIDTH + 2] = ok
         return out
+
+    def _pupil_where_faint(self, job, iris, ok, diam, step):
+        """An eye whose frames so far show too little iris contrast (the median of at least
+        :data:`CONTRAST_MIN_FRAMES` frames' contrasts below :data:`MIN_IRIS_CONTRAST_PCT`: a light iris) takes its
+        pupil's centre (:func:`aspectus.webcam.limbus.pupil_centre`) rather than the limbus fit's, and the mesh's
+        iris diameter. The median of the eye's frames, not the frame's own figure, decides: on dark irises single
+        frames dip below it (a blink, compression), and so do the medians of stretches of 30 frames - switching
+        there made the gaze worse (docs/notes/gaze-measurement.md)."""
+        image, points_px, iris_px, iris_diam_px = job
+        for e in (0, 1):
+            h = self._contrasts[e]
+            if np.isfinite(step[e]):
+                h[int(np.clip(np.round(step[e]), -100, 100)) + 100] += 1
+            n = int(h.sum())
+            if n < CONTRAST_MIN_FRAMES:
+                continue
+            median = float(np.searchsorted(np.cumsum(h), (n + 1) // 2)) - 100.0  # the lower median, whole %
+            if median >= MIN_IRIS_CONTRAST_PCT:
+                continue
+            p = pupil_centre(image, points_px, iris_px[e], float(iris_diam_px[e]), e)
+            if p is None:
+                continue
+            iris, ok, diam = np.array(iris, float), np.array(ok, bool), np.array(diam, float)
+            iris[e], ok[e], diam[e] = p, True, float(iris_diam_px[e])
+            self.pupil_eye_frames += 1
+        return iris, ok, diam
 
     def _row_before_iris(self, pts_s, size_px, points_px, face_count, eyes=None, eyes_origin_px=(0, 0)):
         """One frame's row with the mesh's iris centres, and the limbus fit still to run for it (or None)."""
@@ -466,6 +499,7 @@ class FrameGeometry:
                 "small_face": self.small_face if self.auto_anchors else None,
                 "size_changes": self.size_changes, "anchored_frames": self.anchored_frames,
                 "unanchored_frames": self.unanchored_frames, "anchor_matches": self.anchors.matched,
+                "pupil_eye_frames": self.pupil_eye_frames,
                 "anchor_misses": self.anchors.missed,
                 "region_registered": None if self._region is None else self._region.registered,
                 "region_failed": None if self._region is None else self._region.failed,

@@ -94,6 +94,20 @@ SPOT_MAX_SHARE = 0.25
 #: iris outside a pupil and inside the limbus's blur, and the white of the eye beside it
 CONTRAST_IRIS_RING = (0.55, 0.85)
 CONTRAST_SCLERA_RING = (1.2, 1.7)
+#: the least iris contrast against the whites of the eyes (%, :func:`limbus_contrast`) at which the limbus fit is
+#: trusted to find the iris. Measured with the default chain (docs/notes/gaze-measurement.md, "Light irises and
+#: exposure blur in the rendered grid"; 2026-12-04): dark irises on the rendered grid (the 15 default cells, seed 0)
+#: 54.4-65.0 % and on 16 held-out rendered clips 53.3-61.5 % (the clips' lower eye's median); light blue-grey
+#: irises (16.6 and 12 px, seeds 0 and 1) 0.9-18.8 %, where the gaze error's RMS-S2S was 3.3-6.3 deg. Set about
+#: midway between the two.
+MIN_IRIS_CONTRAST_PCT = 35.0
+#: below :data:`MIN_IRIS_CONTRAST_PCT` (the median of all the eye's contrasts so far in the clip, once it has
+#: at least this many) the eye's centre is its pupil's (:func:`pupil_centre`): the centroid of the darkest
+#: :data:`PUPIL_DARKEST_FRAC` of the opening's pixels within :data:`PUPIL_REACH_RADII` iris radii of the face
+#: mesh's iris point (twice, the second time about the first centroid)
+CONTRAST_MIN_FRAMES = 1
+PUPIL_DARKEST_FRAC = 0.1
+PUPIL_REACH_RADII = 0.7
 
 
 def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -496,6 +510,31 @@ def limbus_contrast(grey: np.ndarray, lid_dist: np.ndarray, centre: np.ndarray, 
         return float("nan")
     white = float(np.median(sclera))
     return 100.0 * (white - float(np.median(iris))) / max(white, 1.0)
+
+
+def pupil_centre(image: np.ndarray, points_px: np.ndarray, iris_px, iris_diam_px: float, eye: int):
+    """One eye's pupil centre, px (2,), or None: the centroid of the darkest :data:`PUPIL_DARKEST_FRAC` of the
+    pixels inside the eye opening within :data:`PUPIL_REACH_RADII` iris radii of ``iris_px`` (the face mesh's
+    point), then again about that centroid. What a light iris keeps where its edge against the sclera has gone
+    (:func:`limbus_contrast`): its pupil, far darker than the iris round it. ``eye``: 0 right, 1 left (the mesh's
+    outlines, as in :func:`limbus_centres`)."""
+    cv2 = import_cv2()
+    r = 0.5 * float(iris_diam_px)
+    c = np.asarray(iris_px, float)
+    if not (np.isfinite(r) and r >= 2.5 and np.all(np.isfinite(c))):
+        return None
+    for _ in range(2):
+        e = _prepare_eye(cv2, image, points_px, _OUTLINES[eye], c, r, 0, eye)
+        if e is None:
+            return None
+        yy, xx = np.mgrid[0:e.g.shape[0], 0:e.g.shape[1]]
+        m = (np.hypot(xx - e.c0[0], yy - e.c0[1]) <= PUPIL_REACH_RADII * r) & (e.dist >= 1.0)
+        if m.sum() < 10:
+            return None
+        k = max(3, int(round(PUPIL_DARKEST_FRAC * m.sum())))
+        dark = np.argsort(e.g[m], kind="stable")[:k]
+        c = np.array([xx[m][dark].mean(), yy[m][dark].mean()]) + e.origin
+    return c
 
 
 def _distance_maps(eyes: list) -> np.ndarray:

@@ -48,6 +48,7 @@ from aspectus.run_record import missing_output, read_run_json, refuse_foreign_fi
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements, unmirror_record
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
+from aspectus.webcam.limbus import MIN_IRIS_CONTRAST_PCT
 from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_CONTRAST, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
                                             frame_item, start_geometry)
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
@@ -573,6 +574,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         if patches is not None:
             patches.close()  # the patches are not needed any more (the temporary file goes with it)
     contrast = iris_contrast(a[:, LIMBUS_CONTRAST]) if refine else None
+    if contrast is not None:
+        contrast["pupil_eye_frames"] = state.get("pupil_eye_frames")  # eyes located by the pupil (a light iris)
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
@@ -628,15 +631,6 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         meta["frame_interval_ms"] = {"median": float(np.median(d) * 1e3), "min": float(d.min() * 1e3),
                                      "max": float(d.max() * 1e3)}
     return df, meta
-
-
-#: the least iris contrast against the whites of the eyes (%, the clip's :func:`iris_contrast`) at which the
-#: limbus fit is trusted to find the iris. Measured with the default chain (docs/notes/gaze-measurement.md,
-#: "Light irises and exposure blur in the rendered grid"; 2026-12-04): dark irises on the rendered grid (the 15
-#: default cells, seed 0) 54.4-65.0 % and on 16 held-out rendered clips 53.3-61.5 %; light blue-grey irises (16.6
-#: and 12 px, seeds 0 and 1) 0.9-18.8 %, where the gaze error's RMS-S2S was 3.3-6.3 deg. Set about midway
-#: between the two (a light iris on one eye is enough: the clip's figure is the lower eye's).
-MIN_IRIS_CONTRAST_PCT = 35.0
 
 
 def iris_contrast(steps: np.ndarray) -> dict:
@@ -814,8 +808,11 @@ def _low_iris_contrast(summary: dict) -> bool:
 def _low_contrast_text(summary: dict) -> str:
     return (f"the irises show too little contrast against the whites of the eyes for the iris to be located (they "
             f"are {summary['iris_contrast_pct']:.0f} % darker than the whites; at least {MIN_IRIS_CONTRAST_PCT:g} % "
-            "needed): light irises, dim light or overexposure - the gaze follows other edges and its direction "
-            "is not measured")
+            "needed): light irises, dim light or overexposure - "
+            + ("the eyes were located by their pupils instead, which is not validated (on rendered 12 px irises "
+               "the gaze was still about 3 deg off), so the gaze direction is not trusted"
+               if (summary.get("pupil_located_frac") or 0) > 0 else
+               "the gaze follows other edges and its direction is not measured"))
 
 
 def _verdict(summary: dict) -> tuple[bool, str]:
@@ -885,6 +882,10 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
                                                                 s["noise_sd_deg"])
     ic = (meta.get("iris_contrast") or {}).get("clip_pct")
     s["iris_contrast_pct"] = float(ic) if ic is not None else float("nan")
+    ic_all = meta.get("iris_contrast") or {}
+    eye_frames = sum(ic_all.get("frames") or [0])
+    s["pupil_located_frac"] = (float(ic_all["pupil_eye_frames"]) / eye_frames
+                               if ic_all.get("pupil_eye_frames") is not None and eye_frames else 0.0)
     if _low_iris_contrast(s):  # the iris was not located: no gaze feature can be trusted, however steady
         s["precision_tier"], s["trusted_features"] = PRECISION_TIERS[-1][0], list(PRECISION_TIERS[-1][3])
     s["usable"], s["verdict"] = _verdict(s)

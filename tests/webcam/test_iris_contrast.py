@@ -116,3 +116,65 @@ def test_rendered_light_irises_are_flagged_and_dark_ones_are_not(rendered, tmp_p
     assert "too little contrast against the whites of the eyes" in light["verdict"]
     ext = runs["light"]["extraction"]["iris_contrast"]
     assert ext["clip_pct"] == light["iris_contrast_pct"] and min(ext["frames"]) > 60
+    # the light irises were located by their pupils (aspectus.webcam.frame_geometry), the dark ones never
+    assert ext["pupil_eye_frames"] > 60 and "located by their pupils" in light["verdict"]
+    assert runs["dark"]["extraction"]["iris_contrast"]["pupil_eye_frames"] == 0 and dark["pupil_located_frac"] == 0
+
+
+def _drawn_light_eye(centre, r, *, iris=175.0, sclera=190.0, pupil=15.0, size=48):
+    """A drawn eye (supersampled, averaged down) whose light iris barely differs from the sclera, with a dark pupil
+    of 0.4 iris radii; its face mesh points (right eye only)."""
+    import cv2
+
+    from _drawn_eye import SUPERSAMPLE, eye_opening, right_eye_only
+
+    outline, mask, X, Y = eye_opening(cv2, centre, r, top=centre[1] - 0.8 * r, bottom=centre[1] + 0.7 * r,
+                                      size=size)
+    rho = np.hypot(X, Y)
+    fine = np.where(mask > 0, np.where(rho <= r, np.where(rho <= 0.4 * r, pupil, iris), sclera), 120.0)
+    n = size
+    img = fine.reshape(n, SUPERSAMPLE, n, SUPERSAMPLE).mean(axis=(1, 3))
+    return np.repeat(img[..., None], 3, axis=2).astype(np.uint8), right_eye_only(outline)
+
+
+@pytest.mark.parametrize("r", [8.0, 6.0])
+def test_pupil_centre_finds_a_light_irises_centre_from_an_offset_start(r):
+    from aspectus.webcam.limbus import limbus_centres_many, pupil_centre
+
+    centre = np.array([24.3, 23.6])
+    img, pts = _drawn_light_eye(centre, r)
+    start = centre + [0.1 * 2 * r, -0.08 * 2 * r]  # the mesh point 10 % of the diameter off
+    iris_px = np.array([start, start + 1000.0])
+    diam = np.array([2 * r, 2 * r])
+    # the drawn eye's contrast is the light iris's, below the limit (Weber contrast of 190 vs 175: 7.9 %)
+    (_, _, _, step), = limbus_centres_many([(img, pts, iris_px, diam)], contrast=True)
+    assert step[0] < MIN_IRIS_CONTRAST_PCT
+    got = pupil_centre(img, pts, start, 2 * r, 0)
+    # the darkest tenth of the pixels within 0.7 radii: the pupil (its area is 0.4^2 / 0.7^2 = 33 % of the disc,
+    # the lids cut a little), symmetric about the centre
+    assert np.hypot(*(got - centre)) < 0.3, got
+
+
+def test_a_light_iris_is_located_by_its_pupil_in_the_geometry_and_a_dark_one_by_the_limbus():
+    """The per-frame geometry switches an eye to its pupil once the median of its frames' contrasts is low, and
+    never on a dark iris."""
+    from aspectus.webcam.frame_geometry import FrameGeometry
+    from aspectus.webcam.limbus import CONTRAST_MIN_FRAMES
+
+    centre, r = np.array([24.3, 23.6]), 8.0
+    light, pts = _drawn_light_eye(centre, r)
+    dark, _ = _drawn_light_eye(centre, r, iris=60.0)
+    start = centre + [1.2, -1.0]
+    job = (None, pts, np.array([start, start + 1000.0]), np.array([2 * r, 2 * r]))
+    for img, pct, want_pupil in ((light, 8.0, True), (dark, 68.0, False)):
+        g = FrameGeometry(fov_deg=60.0, refine_iris=True)
+        iris0 = np.array([start + [0.5, 0.5], start + 1000.0])
+        ok0, diam0 = np.array([True, False]), np.array([15.0, np.nan])
+        for i in range(CONTRAST_MIN_FRAMES):  # the median of the eye's frames so far decides, once there are enough
+            iris, ok, diam = g._pupil_where_faint((img,) + job[1:], iris0, ok0, diam0, np.array([pct, np.nan]))
+            if i < CONTRAST_MIN_FRAMES - 1:
+                assert np.array_equal(iris, iris0) and g.pupil_eye_frames == 0
+        if want_pupil:
+            assert np.hypot(*(iris[0] - centre)) < 0.3 and ok[0] and diam[0] == 2 * r and g.pupil_eye_frames == 1
+        else:
+            assert np.array_equal(iris, iris0) and diam[0] == 15.0 and g.pupil_eye_frames == 0
