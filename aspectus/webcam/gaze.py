@@ -293,6 +293,18 @@ class GazeParams:
         and so do the per-eye records in run.json's ``gaze_model``, which
         name the subject's own eyes either way (:func:`unmirror_record`)
         (default False).
+    fill_reflections : bool
+        Before the face mesh reads a frame, fill compact near-saturated spots
+        on the irises (a screen or lamp mirrored by the cornea) near the last
+        frame's iris points (:func:`aspectus.webcam.limbus.fill_iris_reflections`;
+        the stages after the mesh read the picture as it is). Default False:
+        on the rendered 12 px cell with a screen's reflection it lowered
+        RMS-S2S 4.01 -> 2.55 deg, but on two held-out reflection clips it was
+        neutral (1.35 -> 1.27 deg, kappa 0.378 -> 0.337) and worse (16.5 px
+        1.97 -> 2.76 deg, through the ``auto`` choice of iris estimate), and on
+        a 25 px clip without any reflection it filled 2 of 238 frames, which
+        moved the mesh's tracking: kappa 0.463 -> 0.390, noise 1.46 -> 1.60 deg
+        (docs/notes/gaze-measurement.md, "A screen mirrored by the corneas").
     """
 
     blink_rel_threshold: float = 0.6
@@ -311,6 +323,7 @@ class GazeParams:
     iris_scale: str = "limbus"
     iris_registration: bool = False
     iris_shape: str = "circle"
+    fill_reflections: bool = False
 
     def __post_init__(self):
         from aspectus.errors import ParameterError
@@ -338,7 +351,7 @@ class GazeParams:
             raise ParameterError(f"gaze parameter iris_combine = {self.iris_combine!r} is not one of "
                                  f"{', '.join(IRIS_COMBINE)}")
         for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored", "fuse_in_head",
-                     "iris_registration"):
+                     "iris_registration", "fill_reflections"):
             if not isinstance(getattr(self, name), bool):
                 raise ParameterError(f"gaze parameter {name} must be true or false, got {getattr(self, name)!r}")
         if self.iris_combine == "appearance" and not (self.refine_iris and self.eye_anchors):

@@ -479,9 +479,11 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                 raise Cancelled(f"cancelled while processing {clip.name}")
             geometry.check()
             try:
-                # the face mesh sees the picture with the corneal reflections near the last frame's irises filled
-                # (aspectus.webcam.limbus.fill_iris_reflections); the stages after it read the picture as it is
-                mesh_image = fr.image if last_iris is None else fill_iris_reflections(fr.image, *last_iris)[0]
+                # with GazeParams.fill_reflections the face mesh sees the picture with the corneal reflections near
+                # the last frame's irises filled (aspectus.webcam.limbus.fill_iris_reflections); the stages after it
+                # read the picture as it is
+                mesh_image = fr.image if last_iris is None or not params.gaze.fill_reflections \
+                    else fill_iris_reflections(fr.image, *last_iris)[0]
                 obs = tracker.process(mesh_image)
             except FaceChoiceError as exc:
                 raise FaceChoiceError(exc.problem, path=clip, hint=exc.hint) from None

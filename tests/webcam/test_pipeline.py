@@ -462,3 +462,26 @@ def test_appearance_without_enough_frames_reads_the_iris_as_the_limbus_setting_d
     assert said.startswith("Iris height from: circle fit") and "could not be used" in said, said
     for col in ("yaw_deg", "pitch_deg"):
         np.testing.assert_array_equal(app[col].to_numpy(), lim[col].to_numpy(), err_msg=col)
+
+
+def test_reflections_are_filled_before_the_face_mesh_only_when_asked(clip, tmp_path, monkeypatch):
+    """``GazeParams.fill_reflections`` is off by default: the fill moved the face mesh's tracking on a clip without
+    any reflection (docs/notes/gaze-measurement.md, "A screen mirrored by the corneas"), so the mesh sees the frame
+    as decoded unless asked; with it, every frame after the first with a face goes through the fill."""
+    import aspectus.webcam.pipeline as pipeline
+    from aspectus.webcam.gaze import GazeParams
+
+    calls = []
+    real = pipeline.fill_iris_reflections
+
+    def counting(image, iris_px, iris_diam_px):
+        calls.append(1)
+        return real(image, iris_px, iris_diam_px)
+
+    monkeypatch.setattr(pipeline, "fill_iris_reflections", counting)
+    process_clip(clip, tmp_path / "default" / clip.stem)
+    assert not calls
+    res = process_clip(clip, tmp_path / "fill" / clip.stem, params=ProcessParams(gaze=GazeParams(fill_reflections=True)))
+    assert len(calls) >= 0.8 * len(res.samples)
+    run = json.loads((tmp_path / "fill" / clip.stem / "run.json").read_text())
+    assert run["params"]["gaze"]["fill_reflections"] is True
