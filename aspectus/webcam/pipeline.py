@@ -48,12 +48,11 @@ from aspectus.run_record import missing_output, read_run_json, refuse_foreign_fi
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements, unmirror_record
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
-from aspectus.webcam.limbus import MIN_IRIS_CONTRAST_PCT
 from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_CONTRAST, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
                                             frame_item, start_geometry)
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
-from aspectus.webcam.limbus import fill_iris_reflections
+from aspectus.webcam.limbus import MIN_IRIS_CONTRAST_PCT, fill_iris_reflections
 from aspectus.events.detect.noise import SD_PER_RMS_S2S_WHITE
 from aspectus.schema import EVENT_COLUMNS, FEATURE_COLUMNS, SAMPLE_COLUMNS, column_table
 from aspectus.webcam.video import DecodeReport, FramePrefetcher, iter_frames, probe
@@ -470,7 +469,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         pin_to_cpus(background, geometry.pid)
     n_in = 0
     state = None
-    last_iris = None  # the face mesh's iris centres and diameters in the frame before
+    fill = bool(params.gaze.fill_reflections)
+    last_iris = None  # with ``fill``: the face mesh's iris centres and diameters in the frame before
     # the iris registration at the clip's end takes the last part of the progress (_registered_iris)
     loop_share = 1.0 - REGISTRATION_PROGRESS_SHARE if registration else 1.0
     try:
@@ -482,16 +482,13 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                 # with GazeParams.fill_reflections the face mesh sees the picture with the corneal reflections near
                 # the last frame's irises filled (aspectus.webcam.limbus.fill_iris_reflections); the stages after it
                 # read the picture as it is
-                mesh_image = fr.image if last_iris is None or not params.gaze.fill_reflections \
-                    else fill_iris_reflections(fr.image, *last_iris)[0]
+                mesh_image = fr.image if last_iris is None else fill_iris_reflections(fr.image, *last_iris)[0]
                 obs = tracker.process(mesh_image)
             except FaceChoiceError as exc:
                 raise FaceChoiceError(exc.problem, path=clip, hint=exc.hint) from None
-            if obs is None:
-                last_iris = None
-            else:
-                m_obs = frame_measurements(obs.points_px)
-                last_iris = (m_obs["iris_px"], m_obs["iris_diam_px"])
+            if fill:
+                m_obs = None if obs is None else frame_measurements(obs.points_px)
+                last_iris = None if m_obs is None else (m_obs["iris_px"], m_obs["iris_diam_px"])
             geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine, faces_in_view=tracker.faces_in_view,
                                        skin_pose=skin, anchor_set=params.gaze.eye_anchor_set))
             n_in += 1
@@ -882,12 +879,11 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
     s["median_iris_px"] = float(np.nanmedian(iris)) if np.isfinite(iris).any() else float("nan")
     s["precision_tier"], s["trusted_features"] = precision_tier(s["noise_rms_s2s_33ms_deg"], s["median_iris_px"],
                                                                 s["noise_sd_deg"])
-    ic = (meta.get("iris_contrast") or {}).get("clip_pct")
-    s["iris_contrast_pct"] = float(ic) if ic is not None else float("nan")
-    ic_all = meta.get("iris_contrast") or {}
-    eye_frames = sum(ic_all.get("frames") or [0])
-    s["pupil_located_frac"] = (float(ic_all["pupil_eye_frames"]) / eye_frames
-                               if ic_all.get("pupil_eye_frames") is not None and eye_frames else 0.0)
+    ic = meta.get("iris_contrast") or {}
+    s["iris_contrast_pct"] = float(ic["clip_pct"]) if ic.get("clip_pct") is not None else float("nan")
+    eye_frames = sum(ic.get("frames") or [0])
+    s["pupil_located_frac"] = (float(ic["pupil_eye_frames"]) / eye_frames
+                               if ic.get("pupil_eye_frames") is not None and eye_frames else 0.0)
     if _low_iris_contrast(s):  # the iris was not located: no gaze feature can be trusted, however steady
         s["precision_tier"], s["trusted_features"] = PRECISION_TIERS[-1][0], list(PRECISION_TIERS[-1][3])
     s["usable"], s["verdict"] = _verdict(s)
