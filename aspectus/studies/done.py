@@ -70,8 +70,8 @@ def clip_is_done(out_dir, *, input_sha256: str, params_sha256: str, segments=Non
     if run.get("params_sha256") != params_sha256:
         return False, "parameters changed since it was processed"
     want_seg = str(Path(segments).resolve()) if segments is not None else None
-    had_seg = run.get("segments")
-    had_seg = str(Path(had_seg).resolve()) if had_seg else None
+    had_seg = run.get("segments")  # recorded relative to the clip's output folder (aspectus.atomic.recorded_path)
+    had_seg = str((out_dir / had_seg).resolve()) if had_seg else None
     if want_seg != had_seg:
         return False, "task segments file changed since it was processed"
     if want_seg is not None:

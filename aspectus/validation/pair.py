@@ -217,13 +217,21 @@ def is_clip(path) -> bool:
     return is_video_file(path)
 
 
-def _segments(segments, webcam_dir: Path | None, run: dict):
+def _segments(segments, webcam_dir: Path | None, run: dict, notes: list[str] | None = None):
+    """The task segments to compare: those given, else the file the clip was processed with (run.json records its
+    path relative to the clip's output folder; an older run.json may hold it relative to where aspectus ran)."""
     from aspectus.events.segments import check_segments, read_segments
 
     if segments is None and run.get("segments"):
-        cand = Path(run["segments"])
-        if cand.exists():
-            segments = cand
+        rec = Path(run["segments"])
+        cands = [rec] if rec.is_absolute() else [*([webcam_dir / rec] if webcam_dir is not None else []), rec]
+        if run.get("segments_resolved"):
+            cands.append(Path(run["segments_resolved"]))
+        segments = next((c for c in cands if c.is_file()), None)
+        if segments is None and notes is not None:
+            notes.append(f"the clip was processed with task segments from {run['segments']} (relative to the clip's "
+                         "output folder), but that file is no longer there: compared per window only - give the "
+                         "segments file again (--segments) for per-segment agreement")
     if segments is None:
         return None
     if isinstance(segments, pd.DataFrame):
@@ -627,9 +635,9 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     if write and out_dir is None:
         raise ParameterError("validate_pair needs out_dir to write its results")
     cam, cam_dir, run = load_webcam(webcam)
-    segs = _segments(segments, cam_dir, run)
-    ref = read_reference(reference, mapping, screen=screen)
     notes: list[str] = []
+    segs = _segments(segments, cam_dir, run, notes)
+    ref = read_reference(reference, mapping, screen=screen)
     try:
         alignment = _align(cam, ref, params, segs)
     except AspectusInputError as exc:

@@ -286,6 +286,28 @@ def test_clip_is_done_checks_hashes_and_outputs(tmp_path):
     assert clip_is_done(d, input_sha256="a", params_sha256="b") == (False, "not finished")
 
 
+def test_clip_is_done_reads_the_segments_path_relative_to_the_clip_folder(tmp_path, monkeypatch):
+    # run.json records the segments file relative to the clip's output folder (as the pipeline writes it), so a
+    # finished clip stays done whatever folder the batch is started from
+    from aspectus.atomic import recorded_path
+
+    d = tmp_path / "out" / "p01"
+    d.mkdir(parents=True)
+    seg = tmp_path / "segments.csv"
+    seg.write_text("label,onset_s,offset_s\nreading,0,5\n")
+    for n in ("samples.parquet", "events.csv", "features.csv", "features.parquet"):
+        (d / n).write_text("x")
+    write_json(d / "run.json", {"input_sha256": "a", "params_sha256": "b", "segments": recorded_path(seg, d)})
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    monkeypatch.chdir(elsewhere)
+    assert clip_is_done(d, input_sha256="a", params_sha256="b", segments=seg) == (True, "")
+    other = tmp_path / "other.csv"
+    other.write_text(seg.read_text())
+    assert clip_is_done(d, input_sha256="a", params_sha256="b", segments=other)[1] == (
+        "task segments file changed since it was processed")
+
+
 def test_hash_index_rehashes_only_on_change(tmp_path, monkeypatch):
     clip = tmp_path / "p01.mp4"
     clip.write_bytes(b"abc")

@@ -126,6 +126,31 @@ def test_segments_are_paired(session, tmp_path):
     assert set(r.pairs.loc[r.pairs["scope"] == "segment", "label"]) == {f"page_{i}" for i in range(5)}
 
 
+def test_segments_the_clip_was_processed_with_are_found_from_any_folder(session, tmp_path, monkeypatch):
+    # run.json records the segments file relative to the clip's output folder (aspectus.atomic.recorded_path);
+    # validate finds it from wherever it runs, and says so when the file is gone instead of silently leaving the
+    # segments out
+    import shutil
+
+    from aspectus.atomic import recorded_path
+
+    cam = tmp_path / "out" / "p01_s01"
+    shutil.copytree(session["cam"], cam)
+    seg = tmp_path / "segments.csv"
+    seg.write_text("label,onset_s,offset_s\n" + "".join(f"page_{i},{i * 8.0 + 1},{i * 8.0 + 8}\n" for i in range(5)))
+    (cam / "run.json").write_text(json.dumps({"segments": recorded_path(seg, cam)}))
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    monkeypatch.chdir(elsewhere)
+    r = validate_pair(cam, session["ref"]["physio"], write=False, params=_params())
+    assert r.meta["segments"] == 5
+    assert set(r.pairs.loc[r.pairs["scope"] == "segment", "label"]) == {f"page_{i}" for i in range(5)}
+    seg.unlink()
+    r = validate_pair(cam, session["ref"]["physio"], write=False, params=_params())
+    assert r.meta["segments"] == 0
+    assert any("task segments" in n and "no longer there" in n for n in r.notes)
+
+
 def test_bad_reference_leaves_outdir_untouched(session, tmp_path):
     out = tmp_path / "val"
     out.mkdir()
