@@ -72,7 +72,9 @@ class CheckParams:
         Samples from this long after a dot's onset are used (saccade latency
         and landing; 0.5 s is common practice).
     min_valid_samples : int
-        A still dot with fewer valid samples in its window is left out of the fit.
+        A still dot with fewer valid samples in its window is left out of the fit,
+        and has no precision figures (nor with fewer than ``min_valid_samples - 1``
+        steps between successive valid samples; :func:`precision_admits`).
     hit_radius_deg : float
         A fixation within this angle of the dot (after the mapping) is on it.
     gain_range : (float, float)
@@ -316,23 +318,29 @@ def fit_mapping(target_x_deg, target_y_deg, gaze_yaw_deg, gaze_pitch_deg) -> Map
                    r_yaw=_pearson(gx, tx), r_pitch=_pearson(gy, ty), n_targets=n)
 
 
+def precision_admits(ok: np.ndarray, min_samples: int) -> bool:
+    """Whether a still dot's window holds enough for its precision figures: at least ``min_samples`` usable
+    samples (:attr:`CheckParams.min_valid_samples`, the count that admits it to the fit) and ``min_samples - 1``
+    steps between successive usable ones. From 2-4 samples a 2-D SD scatters by 0.29-0.5 of itself (2 (n - 1)
+    degrees of freedom, relative SE about 1 / sqrt(4 (n - 1)) for normal samples; the sampling variance of a
+    variance, 2 sigma^4 / dof, from memory), 0.25 at 5, and it would describe dots the accuracy leaves out."""
+    ok = np.asarray(ok, bool)
+    k = max(3, int(min_samples))
+    return bool(ok.sum() >= k and (ok[1:] & ok[:-1]).sum() >= k - 1)
+
+
 def _rms_s2s(x, y, ok) -> float:
-    """RMS-S2S (deg) of one still dot's samples (:func:`aspectus.events.detect.noise.rms_s2s_deg`); NaN below two
-    steps between usable samples."""
+    """RMS-S2S (deg) of one still dot's samples (:func:`aspectus.events.detect.noise.rms_s2s_deg`)."""
     from aspectus.events.detect.noise import rms_s2s_deg
 
-    if (ok[1:] & ok[:-1]).sum() < 2:
-        return float("nan")
     return rms_s2s_deg(x, y, ok)
 
 
 def _sd(x, y, ok) -> float:
     """SD (deg, 2-D) of one still dot's samples about their mean (:func:`aspectus.events.detect.noise.fixation_sd_deg`
-    with the dot as the one fixation); NaN below three usable samples."""
+    with the dot as the one fixation)."""
     from aspectus.events.detect.noise import fixation_sd_deg
 
-    if ok.sum() < 3:
-        return float("nan")
     return fixation_sd_deg(x, y, np.where(ok, 0, -1))
 
 
@@ -461,15 +469,20 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
     # precision per still dot, on the mapped gaze and on the raw angle
     gx, gy = m.to_screen_deg(yaw, pitch) if usable else (yaw * nan, pitch * nan)
     s2s, sd, s2s_raw = [], [], []
+    n_prec = 0
     for r in schedule.targets.itertuples(index=False):
         if r.kind != "fixation":
             s2s.append(nan), sd.append(nan), s2s_raw.append(nan)
             continue
         w = (ts >= r.onset_s + params.settle_s) & (ts < r.offset_s)
         okw = ok[w]
+        if not precision_admits(okw, params.min_valid_samples):  # missing (NaN), not zero or a wild figure
+            s2s.append(nan), sd.append(nan), s2s_raw.append(nan)
+            continue
         s2s.append(_rms_s2s(gx[w], gy[w], okw))
         sd.append(_sd(gx[w], gy[w], okw))
         s2s_raw.append(_rms_s2s(yaw[w], pitch[w], okw))
+        n_prec += 1
     tab["precision_rms_s2s_deg"] = s2s
     tab["precision_sd_deg"] = sd
     tab["precision_rms_s2s_raw_deg"] = s2s_raw
@@ -491,6 +504,8 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
             if fxt["precision_sd_deg"].notna().any() else nan
         summary["precision_rms_s2s_raw_deg"] = float(np.nanmedian(fxt["precision_rms_s2s_raw_deg"])) \
             if fxt["precision_rms_s2s_raw_deg"].notna().any() else nan
+    # still dots with precision figures (:func:`precision_admits`; the others are missing, not zero)
+    summary["n_targets_precision"] = n_prec
     used = tab["kind"].eq("fixation") & tab["error_offset_gain_deg"].notna()
     summary["accuracy_noise_floor_deg"] = float(tab.loc[used, "accuracy_noise_floor_deg"].mean()) if used.any() else nan
 

@@ -136,7 +136,7 @@ def run_check(clip_path, schedule_path, out_dir, *, params: CheckParams | None =
 #: the headline figures copied into run.json's target_check block
 RUN_JSON_FIGURES = ("accuracy_offset_deg", "accuracy_offset_gain_deg", "accuracy_offset_gain_loo_deg",
                     "accuracy_noise_floor_deg", "precision_rms_s2s_deg", "precision_sd_deg", "loss_frac",
-                    "n_targets_used", "n_fixation_targets", "pursuit_gain", "gain_in_range")
+                    "n_targets_used", "n_targets_precision", "n_fixation_targets", "pursuit_gain", "gain_in_range")
 
 
 def record_in_run_json(out_dir, doc: dict) -> dict | None:
@@ -195,6 +195,11 @@ def read_check(out_dir) -> dict | None:
     return d
 
 
+def _of(n, total) -> str:
+    """'n of total', or 'n/a of total' for a check written before the count was kept."""
+    return f"{'n/a' if n is None else int(n)} of {total}"
+
+
 def summary_lines(doc: dict) -> list[str]:
     """A few plain lines of a check's figures (for the terminal and the app's clip view)."""
     s, m, a = doc.get("summary", {}), doc.get("mapping", {}), doc.get("alignment", {})
@@ -215,7 +220,8 @@ def summary_lines(doc: dict) -> list[str]:
         f"accuracy {f(s.get('accuracy_offset_deg'))} deg after offset, {f(s.get('accuracy_offset_gain_deg'))} deg "
         f"after offset+gain ({f(s.get('accuracy_offset_gain_loo_deg'))} leave-one-out; noise alone would give "
         f"{f(s.get('accuracy_noise_floor_deg'))} deg)",
-        f"precision RMS-S2S {f(s.get('precision_rms_s2s_deg'))} deg, SD {f(s.get('precision_sd_deg'))} deg; "
+        f"precision RMS-S2S {f(s.get('precision_rms_s2s_deg'))} deg, SD {f(s.get('precision_sd_deg'))} deg "
+        f"({_of(s.get('n_targets_precision'), s.get('n_fixation_targets', 0))} still dots); "
         f"data loss {f(None if s.get('loss_frac') is None else 100 * s['loss_frac'], '{:.1f}')} %",
         f"fixations on dots {f(s.get('n_fixations_on_targets'), '{:.0f}')} (dots fixated "
         f"{f(s.get('n_targets_fixated'), '{:.0f}')} of {s.get('n_fixation_targets', 0)}); "

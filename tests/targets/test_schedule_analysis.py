@@ -119,6 +119,37 @@ def test_precision_on_white_noise():
     assert c.summary["accuracy_offset_gain_deg"] == pytest.approx(c.summary["accuracy_noise_floor_deg"], rel=0.6)
 
 
+def test_dots_with_too_few_samples_have_no_precision_and_are_counted():
+    """A still dot with 2-4 valid samples gives no SD or RMS-S2S (NaN, missing; an SD from 3 samples of white
+    noise scatters by a third of itself), nor one with 5 samples none of them successive; 5 in a row do. The
+    minimum is the count that admits a dot to the fit (CheckParams.min_valid_samples), and the summary counts
+    the dots with precision figures."""
+    from aspectus.targets.check import summary_lines
+
+    sched = _sched(fixation_s=3.0)
+    s = _samples(sched, noise_deg=0.5)
+    fx = sched.fixations
+    keep = {1: [0, 1], 2: [0, 1, 2], 3: [0, 1, 2, 3], 4: [0, 2, 4, 6, 8], 5: [0, 1, 2, 3, 4]}
+    for k, kept in keep.items():
+        r = fx.iloc[k]
+        idx = np.flatnonzero((s["t_s"] - 2.0 >= r.onset_s + 0.5) & (s["t_s"] - 2.0 < r.offset_s))
+        s.loc[np.setdiff1d(idx, idx[kept]), "valid"] = False
+    c = check_samples(s, sched, start_s=2.0, run_events=False)
+    tab = c.targets[c.targets["kind"] == "fixation"].reset_index(drop=True)
+    cols = ["precision_rms_s2s_deg", "precision_sd_deg", "precision_rms_s2s_raw_deg", "accuracy_noise_floor_deg"]
+    for k in (1, 2, 3, 4):
+        assert tab.loc[k, cols].isna().all(), (k, tab.loc[k, cols].tolist())
+    assert tab.loc[5, cols].notna().all() and tab.loc[5, "n_valid"] == 5
+    others = tab.drop(index=[1, 2, 3, 4])
+    assert others[cols].notna().all().all()
+    assert c.summary["n_targets_precision"] == len(others) == len(fx) - 4
+    # the medians are over those dots only (white noise, SD 0.5 per axis: RMS-S2S 2 x 0.5)
+    assert c.summary["precision_rms_s2s_deg"] == pytest.approx(float(np.median(others["precision_rms_s2s_deg"])))
+    assert c.summary["precision_rms_s2s_deg"] == pytest.approx(1.0, rel=0.15)
+    line = next(x for x in summary_lines(c.to_dict() | {"summary": c.summary}) if x.startswith("precision"))
+    assert f"({len(others)} of {len(fx)} still dots)" in line
+
+
 def test_data_loss_fixations_and_pursuit_gain():
     sched = _sched()
     s = _samples(sched, noise_deg=0.1, loss_frac=0.2, seed=3)
