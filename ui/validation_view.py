@@ -666,7 +666,9 @@ def run_validation(*, out_dir, reference, kind, mapping, analysis, segments=None
     result = validate_pair(out_dir, reference, mapping=m, params=ValidateParams(analysis=ap, offset_s=offset_s),
                            segments=segments, write=False, figures=False)
     al = result.alignment
-    note = f"Found by {al.method}"
+    from aspectus.validation.align import method_text
+
+    note = f"Found by {method_text(al.method)}"
     conf = getattr(al, "confidence", float("nan"))
     if conf == conf and al.method != "user":
         from aspectus.validation.report import confidence_words

@@ -143,23 +143,7 @@ def run(args) -> int:
     r = validate_pair(args.webcam, args.reference, args.out, mapping=mapping, screen=screen, params=params,
                       segments=args.segments, participant=args.participant, session=args.session,
                       figures=not args.no_figures)
-    al = r.alignment
-    ag = r.agreement
-    fc = ag[(ag["scope"] == "window") & (ag["feature"] == "fixation_count")] if len(ag) else ag
-    line = f"offset {al.offset_s:+.3f} s ({al.method}, confidence {al.confidence:.2f}); kappa {r.events['kappa']:.2f}, " \
-           f"F1 {r.events['f1']:.2f}"
-    if len(fc):
-        from aspectus.validation.windows import MIN_PAIRS
-
-        n = int(fc["n"].iloc[0])
-        if r.meta.get("agreement_withheld"):
-            line += f"; fixation count per window: r and ICC withheld (n={n})"
-        elif n < MIN_PAIRS:  # as the report and the app: too few pairs for r, ICC and limits to mean anything
-            line += f"; fixation count per window: {n} windows, too few for r and ICC (at least {MIN_PAIRS})"
-        else:
-            line += f"; fixation count per window r {fc['pearson_r'].iloc[0]:.2f}, ICC {fc['icc'].iloc[0]:.2f} " \
-                    f"(n={n})"
-    print(line + f" -> {r.paths['report']}")
+    print("\n".join(pair_summary_lines(r)))
     if r.meta.get("agreement_withheld"):
         print("WARNING: the alignment is uncertain - agreement figures withheld (see the note below; "
               "--force-agreement shows them)")
@@ -200,3 +184,35 @@ def _run_folders(args, params, screen, mapping) -> int:
                          figures=not args.no_figures, target_rule=args.target_rule,
                          progress=lambda f, m: print(f"[{f:4.0%}] {m}", file=sys.stderr))
     return _report_study(res)
+
+
+def pair_summary_lines(r) -> list[str]:
+    """What the terminal says after one pair: how the clocks were aligned, the headline agreement figures (each
+    named in words, with its scale), and where the report is."""
+    from aspectus.validation.align import method_text
+    from aspectus.validation.report import confidence_words
+    from aspectus.validation.windows import MIN_PAIRS
+
+    al, ag = r.alignment, r.agreement
+    when = "before" if al.offset_s < 0 else "after"
+    clocks = (f"Clocks: the lab tracker started {abs(al.offset_s):.3f} s {when} the webcam (found by "
+              f"{method_text(al.method)}")
+    if al.method != "user" and not al.method.startswith("marker"):
+        clocks += f"; confidence {al.confidence:.2f} on a 0-1 scale: {confidence_words(al.confidence)}"
+    lines = [clocks + ")."]
+    agree = (f"Agreement: fixation labels sample by sample kappa {r.events['kappa']:.2f} (0: chance, 1: complete); "
+             f"fixation onsets found by both F1 {r.events['f1']:.2f} (1: all matched)")
+    fc = ag[(ag["scope"] == "window") & (ag["feature"] == "fixation_count")] if len(ag) else ag
+    if len(fc):
+        n = int(fc["n"].iloc[0])
+        win = (r.meta.get("params") or {}).get("window_s")
+        per = f"fixations per {win:g} s window" if win else "fixations per window"
+        if r.meta.get("agreement_withheld"):
+            agree += f"; {per} r and ICC withheld ({n} windows)"
+        elif n < MIN_PAIRS:  # as the report and the app: too few pairs for r, ICC and limits to mean anything
+            agree += f"; {per}: {n} windows, too few for r and ICC (at least {MIN_PAIRS})"
+        else:
+            agree += f"; {per} r {fc['pearson_r'].iloc[0]:.2f}, ICC {fc['icc'].iloc[0]:.2f} ({n} windows)"
+    lines.append(agree + ".")
+    lines.append(f"Report (open in a browser): {r.paths['report']}")
+    return lines

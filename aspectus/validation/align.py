@@ -49,7 +49,8 @@ class Alignment:
         peak at least ``exclusion_s`` away, relative to its height
         (``(peak - second) / peak``); 1 for a marker or a user override.
     method : str
-        ``cross-correlation (angle+speed)``, ``marker: <label>`` or ``user``.
+        ``cross-correlation (both)`` (or ``(angle)``, ``(speed)``; ``+ linear drift`` when a drift was
+        fitted), ``marker: <label>`` or ``user``; :func:`method_text` says it in words.
     search_range_s : float
         Offsets searched, -search_range_s to +search_range_s around 0 s.
     peak_corr : float
@@ -101,6 +102,34 @@ class Alignment:
         """Reference times (s from its first sample) to clip times."""
         t = np.asarray(t_reference_s, dtype=float)
         return t + self.offset_s + self.drift_s_per_s * t
+
+
+#: what each alignment signal is, in words (:func:`method_text`)
+SIGNAL_TEXT = {"both": "the gaze angles and the gaze speed", "angle": "the gaze angles", "speed": "the gaze speed"}
+
+
+def method_text(method: str) -> str:
+    """How an offset was found (:attr:`Alignment.method`), in words for reports and messages, e.g.
+    ``cross-correlation (both)`` -> "cross-correlating the gaze angles and the gaze speed of both recordings".
+
+    >>> method_text("cross-correlation (angle) + linear drift")
+    'cross-correlating the gaze angles of both recordings, with a linear clock drift'
+    >>> method_text("marker: page_2"), method_text("user")
+    ("the marker 'page_2' in both recordings", 'the offset given by the user')
+    """
+    m = str(method)
+    drift = m.endswith(" + linear drift")
+    m = m.removesuffix(" + linear drift")
+    if m == "user":
+        text = "the offset given by the user"
+    elif m.startswith("marker: "):
+        text = f"the marker '{m.removeprefix('marker: ')}' in both recordings"
+    elif m.startswith("cross-correlation (") and m.endswith(")"):
+        sig = m.removeprefix("cross-correlation (")[:-1]
+        text = f"cross-correlating {SIGNAL_TEXT.get(sig, sig)} of both recordings"
+    else:
+        text = m
+    return text + (", with a linear clock drift" if drift else "")
 
 
 def user_alignment(offset_s: float) -> Alignment:

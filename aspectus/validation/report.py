@@ -23,6 +23,7 @@ import pandas as pd
 from aspectus import __version__
 from aspectus.schema import human_label
 from aspectus.validation.agreement import ICC_FORM_TEXT
+from aspectus.validation.align import method_text
 from aspectus.validation.windows import MIN_PAIRS, overlap_text
 
 WEBCAM_COLOUR = "#c0392b"
@@ -172,7 +173,7 @@ def timeseries_figure(result, *, max_span_s: float = 40.0) -> bytes:
     tw, tr = cam["t_s"].to_numpy(float), ref["t_s"].to_numpy(float)
     lo = max(tw[0], tr[0])
     hi = min(tw[-1], tr[-1], lo + max_span_s)
-    fig = _figure(11.0, 5.2)
+    fig = _figure(11.0, 5.6)
     for k, (col, name) in enumerate((("yaw_deg", "yaw (deg)"), ("pitch_deg", "pitch (deg)"))):
         ax = fig.add_subplot(2, 1, k + 1)
         mw = (tw >= lo) & (tw <= hi)
@@ -189,10 +190,11 @@ def timeseries_figure(result, *, max_span_s: float = 40.0) -> bytes:
         ax.set_ylabel(name, fontsize=8)
         ax.tick_params(labelsize=7)
         _plain_axes(ax)
-        if k == 0:
-            ax.legend(fontsize=7, loc="upper right")
-            ax.set_title(f"Aligned gaze, clip time {lo:.1f}-{hi:.1f} s; fixations as bands: webcam in the upper "
-                         "half, lab tracker in the lower", fontsize=9)
+        # above the plot, not over the traces; each angle says its own shift
+        ax.legend(fontsize=7, loc="lower right", bbox_to_anchor=(1.0, 1.0), ncol=2, frameon=False,
+                  borderaxespad=0.1)
+    fig.suptitle(f"Aligned gaze, clip time {lo:.1f}-{hi:.1f} s; fixations as bands: webcam in the upper half, lab "
+                 "tracker in the lower", fontsize=9)
     ax.set_xlabel("clip time (s)", fontsize=8)
     fig.tight_layout()
     return _png(fig)
@@ -219,8 +221,8 @@ def offset_figure(alignment) -> bytes:
                         fontsize=7, va="top", color="0.3")
         ax.set_xlim(lo, hi)
     ax.set_xlabel("offset: clip time of the lab tracker's first sample (s)", fontsize=8)
-    ax.set_title(f"Clock offset {alignment.offset_s:+.3f} s ({alignment.method}); confidence "
-                 f"{alignment.confidence:.2f} on a 0-1 scale", fontsize=9)
+    ax.set_title(f"Clock offset {alignment.offset_s:+.3f} s; confidence {alignment.confidence:.2f} on a 0-1 scale",
+                 fontsize=9)
     ax.tick_params(labelsize=7)
     _plain_axes(ax)
     fig.tight_layout()
@@ -233,7 +235,7 @@ def render_pair_figures(result) -> dict[str, bytes]:
     pw = _window_pairs(result.pairs)
     out = {}
     if len(pw):
-        out["scatter_windows"] = scatter_figure(pw, feats, title="Webcam against reference, per window")
+        out["scatter_windows"] = scatter_figure(pw, feats, title="Webcam against lab tracker, per window")
         out["bland_altman_windows"] = bland_altman_figure(pw, result.agreement, feats,
                                                           title="Differences against means, per window")
     out["aligned_timeseries"] = timeseries_figure(result)
@@ -271,6 +273,12 @@ def withheld_reason(n: int, what: str = "windows", *, min_pairs: int = MIN_PAIRS
     return (f"Only {n} {what} could be paired. With fewer than {min_pairs}, correlations, ICCs and limits of "
             f"agreement are too uncertain to mean anything (their 95 % intervals span most of the possible range), "
             f"so they are not shown; the full table (download) still has them. To get more: {more}.")
+
+
+#: the reference's format and the detector, named in words in the report's "What was compared"
+_FORMAT_TEXT = {"BIDS eyetrack": "BIDS eye-tracking recording", "table": "table read with a column mapping"}
+_DETECTOR_TEXT = {"idt": "I-DT (dispersion threshold)", "ivt": "I-VT (velocity threshold)",
+                  "i2mc": "I2MC (two-means clustering)"}
 
 
 def plain_reading(result) -> str:
@@ -507,10 +515,11 @@ def render_pair_report(result, pngs: dict[str, bytes]) -> str:
         parts.append("<div class='note'><strong>Warnings</strong><ul>" +
                      "".join(f"<li>{html.escape(n)}</li>" for n in result.notes) + "</ul></div>")
     parts.append("<h2>What was compared</h2>" + _facts((
-        ("webcam", m["webcam"]), ("lab tracker", f"{m['reference']} ({m['reference_format']})"),
+        ("webcam", m["webcam"]),
+        ("lab tracker", f"{m['reference']} ({_FORMAT_TEXT.get(m['reference_format'], m['reference_format'])})"),
         ("webcam rate", f"{_fmt(m['webcam_rate_hz'], 1)} Hz"),
         ("lab tracker measured at", m["reference_measured_at"]),
-        ("detector, both sides", p["analysis"].get("detector")),
+        ("detector, both sides", _DETECTOR_TEXT.get(p["analysis"].get("detector"), p["analysis"].get("detector"))),
         ("time both recorded", f"{overlap_text(m['overlap_s'])} (after alignment)"),
         ("windows", f"{m['windows']} of {p['window_s']:g} s, one every {p['step_s']:g} s"),
         ("task segments", m["segments"]), ("ICC reported", m["icc_form"]),
@@ -554,7 +563,7 @@ def render_pair_report(result, pngs: dict[str, bytes]) -> str:
                  f"Gain: {html.escape(ev['gain']['method'])}.</p>")
 
     parts.append("<h2>Time alignment</h2>")
-    how = {"user": "given by the user"}.get(al.method, al.method)
+    how = method_text(al.method)
     text = (f"The lab tracker's first sample is at {al.offset_s:+.3f} s on the webcam clip's clock (negative: the "
             f"lab tracker started first); found by {how}.")
     if not al.method == "user" and not al.method.startswith("marker"):

@@ -32,6 +32,10 @@ class WindowChoice:
     reason: str
 
 
+def _count(n: int) -> str:
+    return f"{n} window" if n == 1 else f"{n} windows"
+
+
 def overlap_text(overlap_s: float) -> str:
     """How long two recordings overlap, in words: truncated to 0.01 s, never rounded up, so that "20.0 s" does
     not stand beside the 9 windows of 2 s that 19.97 s holds.
@@ -65,7 +69,7 @@ def choose_window_s(overlap_s: float, preferred_s: float, *, given: bool = False
             "give more")
         return WindowChoice(float(preferred_s), n_pref, False,
                             f"Windows of {preferred_s:g} s as set; the recordings overlap for {overlap_text(overlap_s)}, "
-                            f"which gives {n_pref} window(s){enough}.")
+                            f"which gives {_count(n_pref)}{enough}.")
     if n_pref >= min_pairs:
         return WindowChoice(float(preferred_s), n_pref, False,
                             f"Windows of {preferred_s:g} s (the feature window length); the recordings overlap for "
@@ -75,7 +79,7 @@ def choose_window_s(overlap_s: float, preferred_s: float, *, given: bool = False
             return WindowChoice(w, n_windows(overlap_s, w), True,
                                 f"Windows of {w:g} s, chosen from the overlap: the recordings overlap for "
                                 f"{overlap_text(overlap_s)}, and the feature window length of {preferred_s:g} s would give "
-                                f"only {n_pref} window(s), fewer than the {min_pairs} agreement statistics need; "
+                                f"only {_count(n_pref)}, fewer than the {min_pairs} agreement statistics need; "
                                 f"{w:g} s is the longest of {', '.join(f'{c:g}' for c in CANDIDATE_WINDOWS_S)} s "
                                 f"that gives at least {min_pairs} windows (it gives {n_windows(overlap_s, w)}). Set another length "
                                 "with --window-s (in the app: Feature window length).")
@@ -83,5 +87,5 @@ def choose_window_s(overlap_s: float, preferred_s: float, *, given: bool = False
     n = n_windows(overlap_s, w)
     return WindowChoice(w, n, w != preferred_s,
                         f"Windows of {w:g} s, the shortest used: the recordings overlap for {overlap_text(overlap_s)}, which "
-                        f"gives only {n} window(s) - too few for agreement statistics (at least {min_pairs}). Longer "
+                        f"gives only {_count(n)} - too few for agreement statistics (at least {min_pairs}). Longer "
                         "recordings, or several clips compared together (Compare all clips / a study), give more.")

@@ -84,6 +84,11 @@ def test_pair_against_bids_writes_every_output(session, tmp_path):
     assert html.count("data:image/png;base64,") == 4
     assert "<script" not in html and "http://" not in html and "https://" not in html
     assert "ICC(2,1): two-way random effects, absolute agreement" in html
+    # the report names how the clocks were aligned, the lab tracker's format and the detector in words, not by
+    # their names in alignment.json and validation.json
+    assert "found by cross-correlating the gaze angles and the gaze speed of both recordings" in html
+    assert "(both)" not in html and "BIDS eyetrack)" not in html and "(BIDS eye-tracking recording)" in html
+    assert "I2MC (two-means clustering)" in html and "window(s)" not in html
     for png in ("scatter_windows", "bland_altman_windows", "aligned_timeseries", "offset"):
         assert (out / f"{png}.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     side = json.loads((out / "validation.json").read_text())
@@ -221,7 +226,11 @@ def test_cli_pair_and_errors(session, tmp_path, capsys):
                str(session["ref"]["mapping"]), "--window-s", "5", "--detector", "i2mc", "--no-figures"])
     assert rc == 0
     line = capsys.readouterr().out
-    assert "offset -1.25" in line and "kappa" in line
+    # the terminal names each figure in words: the clock offset, kappa and F1 with their scales, the report's path
+    assert "the lab tracker started 1.25" in line and "before the webcam" in line and "kappa" in line
+    assert "cross-correlating the gaze angles and the gaze speed" in line and "(both)" not in line
+    assert "(0: chance, 1: complete)" in line and "fixations per 5 s window" in line
+    assert line.rstrip().splitlines()[-1] == f"Report (open in a browser): {out / 'report.html'}"
     # 8 windows of 5 s: the terminal, like the report and the app, shows no r or ICC below MIN_PAIRS
     assert "8 windows, too few for r and ICC (at least 10)" in line and "ICC 0." not in line and "ICC -" not in line
     assert (out / "agreement.csv").exists() and (out / "report.html").exists()
