@@ -8,8 +8,8 @@ and slow head drift with rotation (yaw +-10, pitch +-4, roll +-2 deg; 15 / 10 / 
 otherwise. One face-mesh run per cell: the 13 cells took about 3 minutes on two cores (2026-12-04; more when the
 machine is busy); the grid has 15 since (the 16.6 and 12 px cells also at 60 fps, each twice a 30 fps cell's
 face-mesh time), and 19 with the 16.6 and 12 px cells with light irises and with a 33 ms exposure (each exposed
-clip takes longer to render: sub-frames on moving frames), and 22 with the 25, 16.6 and 12 px CRF 28 cells again with
-the screen's reflection on the corneas.
+clip takes longer to render: sub-frames on moving frames), 21 with the same two cells with hazel irises, and 24
+with the 25, 16.6 and 12 px CRF 28 cells again with the screen's reflection on the corneas.
 
 Rows per cell: ``default`` (the pipeline's own run with the default settings; its ``iris_estimate`` column says
 which iris estimate ``iris_combine=auto`` took, run.json's ``gaze_model.iris_estimate.used``, and its
@@ -78,8 +78,9 @@ def grid(quick: bool, seed: int, fps: float | None = None, reflection: bool = Fa
         out.append(G.Condition(**{**c.__dict__, "name": f"{c.name}_reflection", "corneal_reflection": True}))
     out.append(G.Condition("12px_crf28_other_seed", size_px=(640, 480), distance_mm=550.0, trial=trials[0],
                            face="astronaut", seed=seed + 1))
-    for c in out[1:3]:  # light irises (low limbus contrast) and a 33 ms exposure (smeared saccades and blinks)
+    for c in out[1:3]:  # light and hazel irises (low / middling limbus contrast) and a 33 ms exposure (smeared saccades and blinks)
         out.append(G.Condition(**{**c.__dict__, "name": f"{c.name}_light_iris", "iris_colour": "light_blue_grey"}))
+        out.append(G.Condition(**{**c.__dict__, "name": f"{c.name}_hazel_iris", "iris_colour": "hazel"}))
         out.append(G.Condition(**{**c.__dict__, "name": f"{c.name}_exp33ms", "exposure_ms": 33.0}))
     return out
 
