@@ -249,6 +249,27 @@ def resample_samples(samples: pd.DataFrame, rate_hz: float) -> pd.DataFrame:
     return samples.iloc[j].reset_index(drop=True)
 
 
+def reference_sample_counts(n_in_file: int, file_rate_hz: float, n_analysed: int,
+                            resampled_to_hz: float | None) -> dict:
+    """validation.json's ``reference_samples``: the reference's samples as read from its file (``n_in_file``, at
+    ``file_rate_hz``) and as analysed (``n_analysed``: after ``--resample-reference-hz``, the samples nearest the
+    ticks; the count ``reference_quality.n_samples`` gives), and ``text``, the report's line for them.
+
+    >>> reference_sample_counts(10813, 250.0, 1298, 30.0)["text"]
+    '30 Hz (resampled from 250 Hz: 1298 of its 10813 samples analysed, the one nearest each tick)'
+    >>> reference_sample_counts(10813, 250.0, 10813, None)["text"]
+    'its own rate (250 Hz: all 10813 samples analysed)'
+    """
+    out = {"n_in_file": int(n_in_file), "file_rate_hz": float(file_rate_hz), "n_analysed": int(n_analysed),
+           "resampled_to_hz": float(resampled_to_hz) if resampled_to_hz else None}
+    if resampled_to_hz:
+        out["text"] = (f"{resampled_to_hz:g} Hz (resampled from {file_rate_hz:.0f} Hz: {n_analysed} of its "
+                       f"{n_in_file} samples analysed, the one nearest each tick)")
+    else:
+        out["text"] = f"its own rate ({file_rate_hz:.0f} Hz: all {n_in_file} samples analysed)"
+    return out
+
+
 def _recorded_span(t: np.ndarray) -> tuple[float, float]:
     """The time a recording covers: each sample stands for half an interval either side of it (the rule of
     :func:`aspectus.events.cleanup.sample_spans`, as the clip's own feature windows use it), so 600 frames
@@ -648,6 +669,8 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     ref_aligned = apply_alignment(ref.samples, alignment)
     if params.resample_reference_hz:
         ref_aligned = resample_samples(ref_aligned, params.resample_reference_hz)
+    ref_counts = reference_sample_counts(len(ref.samples), ref.rate_hz, len(ref_aligned),
+                                         params.resample_reference_hz)
     tw, tr = cam["t_s"].to_numpy(float), ref_aligned["t_s"].to_numpy(float)
     lo, hi = _common_span(tw, tr)
     overlap = hi - lo
@@ -757,8 +780,7 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
         "window_choice": choice.reason,
         "params": params.to_dict(), "icc_form": ICC_FORM_TEXT[params.icc_form.replace(" ", "").lower()],
         "webcam_quality": res_w.quality, "reference_quality": res_r.quality,
-        "reference_measured_at": (f"{params.resample_reference_hz:g} Hz (resampled)" if params.resample_reference_hz
-                                  else f"its own rate ({ref.rate_hz:.0f} Hz)"),
+        "reference_measured_at": ref_counts.pop("text"), "reference_samples": ref_counts,
         "agreement_withheld": bool(withheld),
     }
     result = ValidationResult(agreement=agreement, pairs=pairs, alignment=alignment, events=events, webcam=cam,

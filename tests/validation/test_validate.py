@@ -122,6 +122,31 @@ def test_override_marker_and_resampling(session):
     assert r.events["reference_events"] == "own"
 
 
+def test_resampled_reference_counts_name_the_file_and_the_analysed_samples(session, tmp_path):
+    """validation.json and the report say how many reference samples the file held and how many were analysed:
+    resampled to 30 Hz, the analysed ones are the resampled rows (reference_quality.n_samples counts them), about
+    30 a second over the reference's time; at its own rate every row of the file."""
+    from aspectus.reference import read_reference
+
+    n_file = len(read_reference(session["ref"]["physio"]).samples)
+    r = validate_pair(session["cam"], session["ref"]["physio"], tmp_path / "v30", figures=False,
+                      params=_params(resample_reference_hz=30.0))
+    doc = json.loads((tmp_path / "v30" / "validation.json").read_text())
+    rs = doc["reference_samples"]
+    assert rs["n_in_file"] == n_file and rs["file_rate_hz"] == pytest.approx(250.0, rel=1e-6)
+    assert rs["resampled_to_hz"] == 30.0
+    assert rs["n_analysed"] == len(r.reference) == doc["reference_quality"]["n_samples"]
+    assert rs["n_analysed"] == pytest.approx(30.0 * n_file / 250.0, rel=0.01)
+    text = f"{rs['n_analysed']} of its {n_file} samples analysed"
+    assert text in doc["reference_measured_at"]
+    assert text in (tmp_path / "v30" / "report.html").read_text()
+    own = validate_pair(session["cam"], session["ref"]["physio"], write=False, params=_params())
+    assert own.meta["reference_samples"]["n_analysed"] == own.meta["reference_samples"]["n_in_file"] == n_file
+    assert own.meta["reference_samples"]["resampled_to_hz"] is None
+    assert own.reference_analysis.quality["n_samples"] == n_file
+    assert f"all {n_file} samples analysed" in own.meta["reference_measured_at"]
+
+
 def test_segments_are_paired(session, tmp_path):
     seg = tmp_path / "segments.csv"
     seg.write_text("label,onset_s,offset_s\n" + "".join(f"page_{i},{i * 8.0 + 1},{i * 8.0 + 8}\n" for i in range(5)))
