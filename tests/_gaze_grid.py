@@ -6,7 +6,7 @@ one of the hand-coded trials of Andersson et al. (2017) (../shared/reference/lun
 
 * ``rms_s2s_deg``: RMS of the sample-to-sample change of the 2-D gaze error (estimate minus truth) over
   consecutive valid frames - the precision of the signal with the true eye movement taken out;
-* ``rms_fix_deg``, ``rms_s2s_fix_deg``: the error's RMS about its mean over each fixation both coders agree
+* ``rms_fix_deg``, ``rms_s2s_fix_deg``: the error's SD about its mean over each fixation both coders agree
   on, and its RMS-S2S inside them (:func:`_within_fixations`): per-sample RMS-S2S is comparable across frame
   rates only for white noise, the first is comparable for any error;
 * ``noise_rms_s2s_deg``: the pipeline's own noise figure (run.json's quality), as a user sees it, and
@@ -114,25 +114,55 @@ def _kappa(samples: pd.DataFrame, coders: dict) -> float:
     return float(np.mean([_lund.cohen_kappa(fix, m) for m in coders.values()]))
 
 
-def _within_fixations(ey: np.ndarray, ep: np.ndarray, ok: np.ndarray, coders: dict) -> dict:
-    """The error's spread inside the fixations both coders agree on (runs of at least 3 such frames):
-    ``rms_fix_deg``, the RMS of the 2-D error after removing its mean over each fixation, and
-    ``rms_s2s_fix_deg``, the RMS-S2S of the error over steps inside them. For white noise of per-axis SD s the
+def _fixation_breaks(trial, t_s) -> np.ndarray:
+    """(n - 1,) bool: whether the coders' own labels (at the trial's full rate) hold a sample that is not a
+    fixation of both coders between frame i and frame i + 1 (both ends included). Labels read at the frame
+    times alone miss a saccade shorter than a frame interval: both frames then read fixation, and the step
+    between them would cross from one fixation to the next (2-4 of some 160 steps on two of the grid's four
+    trials at 30 fps)."""
+    t_s = np.asarray(t_s, float)
+    fine = np.logical_and.reduce([trial.labels[c] == _lund.FIXATION for c in _lund.CODERS]).astype(int)
+    cum = np.concatenate([[0], np.cumsum(1 - fine)])  # non-fixation samples before each index
+    near = np.clip(np.searchsorted(trial.t_s, t_s), 0, len(trial.t_s) - 1)
+    prev = np.clip(near - 1, 0, len(trial.t_s) - 1)
+    near = np.where(np.abs(trial.t_s[prev] - t_s) <= np.abs(trial.t_s[near] - t_s), prev, near)  # as _labels_at
+    return (cum[near[1:] + 1] - cum[near[:-1]]) > 0
+
+
+def _within_fixations(ey: np.ndarray, ep: np.ndarray, ok: np.ndarray, coders: dict,
+                      breaks: np.ndarray | None = None) -> dict:
+    """The error's spread inside the fixations both coders agree on (runs of at least 3 such frames, cut where
+    ``breaks`` (:func:`_fixation_breaks`) says the coders' labels leave fixation between two frames):
+    ``rms_fix_deg``, the SD of the 2-D error about its mean over each fixation, pooled
+    (:func:`aspectus.events.detect.noise.fixation_sd_deg`: n - 1 per fixation, since each fixation's mean is taken
+    from its own samples; dividing by n read it low by sqrt(1 - fixations / samples), 0.92-0.94 on the grid's
+    trials at 30 fps and 0.96-0.97 at 60, which differed between the rates), and ``rms_s2s_fix_deg``, the
+    RMS-S2S of the error over the steps between successive frames inside them (the root of the mean over
+    steps of the squared distance; Holmqvist, Nystrom & Mulvey 2012). For white noise of per-axis SD s the
     first is s*sqrt(2) and the second 2 s at any frame rate (ratio sqrt(2)); error that changes slowly within a
     fixation raises the first and not the second, and its sample-to-sample steps shrink as the rate rises."""
+    from aspectus.events.detect.noise import fixation_sd_deg
+
     both = ok & np.logical_and.reduce([np.asarray(m, bool) for m in coders.values()])
-    m = np.concatenate([[False], both, [False]]).astype(int)
-    on, off = np.flatnonzero(np.diff(m) == 1), np.flatnonzero(np.diff(m) == -1)
-    res, steps = [], []
-    for a, b in zip(on, off):
-        if b - a < 3:
-            continue
-        res.append(np.hypot(ey[a:b] - ey[a:b].mean(), ep[a:b] - ep[a:b].mean()))
-        steps.append(np.hypot(np.diff(ey[a:b]), np.diff(ep[a:b])))
-    if not res:
+    cut = np.zeros(len(both), bool)  # a run ends after frame i where the labels leave fixation before i + 1
+    if breaks is not None:
+        cut[:-1] = np.asarray(breaks, bool)
+    group = np.full(len(both), -1)
+    steps, run, a = [], 0, None
+    for i in range(len(both) + 1):
+        inside = i < len(both) and both[i] and not (a is not None and cut[i - 1])
+        if a is not None and not inside:  # the run a..i-1 ends
+            if i - a >= 3:
+                group[a:i] = run
+                run += 1
+                steps.append(np.hypot(np.diff(ey[a:i]), np.diff(ep[a:i])))
+            a = None
+        if a is None and i < len(both) and both[i]:
+            a = i
+    if not steps:
         return {"rms_fix_deg": float("nan"), "rms_s2s_fix_deg": float("nan")}
-    r, d = np.concatenate(res), np.concatenate(steps)
-    return {"rms_fix_deg": float(np.sqrt(np.mean(r ** 2))), "rms_s2s_fix_deg": float(np.sqrt(np.mean(d ** 2)))}
+    d = np.concatenate(steps)
+    return {"rms_fix_deg": fixation_sd_deg(ey, ep, group), "rms_s2s_fix_deg": float(np.sqrt(np.mean(d ** 2)))}
 
 
 def _far_fraction(ey: np.ndarray, ep: np.ndarray, ok: np.ndarray, far_deg: float = 5.0) -> float:
@@ -160,7 +190,8 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     out = {"iris_px": float(truth["iris_diameter_px"].median()), "valid_frac": float(ok.mean()),
            "valid_far_frac": _far_fraction(ey, ep, ok),
            "rms_s2s_deg": float(np.sqrt(np.mean(d2[pair]))) if pair.sum() >= 10 else float("nan")}
-    out.update(_within_fixations(ey, ep, ok, _labels_at(trial, truth["t_s"].to_numpy())))
+    t_s = truth["t_s"].to_numpy()
+    out.update(_within_fixations(ey, ep, ok, _labels_at(trial, t_s), _fixation_breaks(trial, t_s)))
     out["yaw_r"], out["yaw_gain"] = _fit(samples["yaw_deg"].to_numpy(), truth["yaw_deg"].to_numpy())
     out["pitch_r"], out["pitch_gain"] = _fit(samples["pitch_deg"].to_numpy(), truth["pitch_deg"].to_numpy())
     coders = _labels_at(trial, truth["t_s"].to_numpy())
