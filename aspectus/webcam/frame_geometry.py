@@ -34,7 +34,7 @@ from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, frame_measurements
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, PATCH_BYTES, EyePatchSampler, small_iris
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
-from aspectus.webcam.limbus import (CONTRAST_MIN_FRAMES, MIN_IRIS_CONTRAST_PCT, ROI_RADII, limbus_centres_many,
+from aspectus.webcam.limbus import (CONTRAST_MIN_FRAMES, MIN_IRIS_CONTRAST_PCT, ROI_RADII, limbus_centres_variants,
                                     pupil_centre)
 from aspectus.webcam.skin_pose import SKIN_POSE_POINTS, SkinPose
 from aspectus.webcam.skin_region import SkinRegionTracker
@@ -55,9 +55,18 @@ LIMBUS_DIAM = slice(RECORD_WIDTH - 4, RECORD_WIDTH - 2)
 #: measured; :func:`aspectus.webcam.limbus.limbus_contrast`): the clip's check of the iris's contrast
 LIMBUS_CONTRAST = slice(RECORD_WIDTH - 2, RECORD_WIDTH)
 #: columns that follow those with ``appearance`` on (:mod:`aspectus.webcam.iris_appearance`): whether each
-#: eye's limbus fit succeeded (1/0), each eye's patch frame (2 x 2 x 3, NaN where the frame has no patch) and
-#: both eyes' patches, uint8 bytes carried in float64 columns (read back with ``.view(np.uint8)``)
-APPEARANCE_COLUMNS = (("limbus_ok", 2), ("patch_affine", 12), ("patches", PATCH_BYTES // 8))
+#: eye's limbus fit succeeded (1/0), each eye's patch frame (2 x 2 x 3, NaN where the frame has no patch), the
+#: limbus fits the appearance estimate learns from (centres, diameters; NaN where the frame was not fitted that
+#: way): those without the side-arc rule (``side_arcs``, :data:`aspectus.webcam.limbus.SIDE_DEG`), which
+#: ``iris_px`` and ``limbus_diam_px`` then hold only where the limbus fit is itself the gaze estimate - and both
+#: eyes' patches, uint8 bytes carried in float64 columns (read back with ``.view(np.uint8)``); ``limbus_ok`` is
+#: that of the label fits where a frame has them
+APPEARANCE_COLUMNS = (("limbus_ok", 2), ("patch_affine", 12), ("label_iris_px", 4), ("label_diam_px", 2),
+                      ("patches", PATCH_BYTES // 8))
+#: offsets of the label fits' columns and of the patches from :data:`RECORD_WIDTH` (rows with ``appearance`` on)
+LABEL_IRIS = slice(14, 18)
+LABEL_DIAM = slice(18, 20)
+PATCHES_AT = 20
 APPEARANCE_WIDTH = sum(n for _, n in APPEARANCE_COLUMNS)
 
 #: frames per message to the geometry process, and most frames per batch of limbus fits in either runner
@@ -163,6 +172,13 @@ class FrameGeometry:
         With ``refine_iris``: fit the iris as the ellipse its circle fit's centre predicts, measured from the
         eyeball centres the head model places under the frame's pose (:meth:`_eyeball_px`;
         ``GazeParams.iris_shape="ellipse"``, :func:`aspectus.webcam.limbus.iris_shape`); default False (a circle).
+    side_arcs : bool
+        With ``refine_iris``: fit the limbus with the side-arc rule (``GazeParams.side_arcs``,
+        :func:`aspectus.webcam.limbus.limbus_centres_many`) where the fit is itself the gaze estimate. With
+        ``appearance`` and ``appearance_below_px`` (``iris_combine="auto"``) both fits are made while the first
+        frames are undecided (the label fits into the appearance columns), then only the one the decision needs
+        (without the rule for a small face, whose appearance estimate learns from it; with it otherwise); else
+        every fit has the rule. Default False.
     appearance_below_px : float or None
         With ``appearance``: stop sampling patches (their columns stay empty) once the first
         :data:`aspectus.webcam.iris_appearance.DECIDE_FRAMES` frames with a face show a median iris diameter
@@ -171,8 +187,9 @@ class FrameGeometry:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None, iris_shape: bool = False):
+                 appearance_below_px: float | None = None, iris_shape: bool = False, side_arcs: bool = False):
         self.fov_deg = float(fov_deg)
+        self.side_arcs = bool(side_arcs)
         self.appearance = bool(appearance)
         self.width = RECORD_WIDTH + (APPEARANCE_WIDTH if self.appearance else 0)
         self.appearance_below_px = None if appearance_below_px is None else float(appearance_below_px)
@@ -262,36 +279,60 @@ class FrameGeometry:
         pose and eye anchors follow the frames in order, as they must.)
         """
         out = np.full((len(items), self.width), np.nan)
-        fits = []  # (row index, (limbus arguments, crop origin))
+        fits = []  # (row index, (limbus arguments, crop origin), which fits)
         for k, item in enumerate(items):
             out[k], job = self._row_before_iris(*item)
             if job is not None:
-                fits.append((k, job))
+                fits.append((k, job, self._fit_variant()))
         if fits:
-            fits_job = {k: job[0] for k, job in fits}
-            eyeballs = [job[2] for _, job in fits] if self.iris_shape else None
-            for (k, (_, off, *_e)), (iris, ok, diam, step) in zip(
-                    fits, limbus_centres_many([job[0] for _, job in fits], diameters=True, eyeball_px=eyeballs,
-                                              contrast=True)):
-                iris, ok, diam = self._pupil_where_faint(fits_job[k], iris, ok, diam, step)
+            fits_job = {k: job[0] for k, job, _ in fits}
+            eyeballs = [job[2] for _, job, _ in fits] if self.iris_shape else None
+            plain, side = limbus_centres_variants([job[0] for _, job, _ in fits], [v for *_, v in fits],
+                                                  diameters=True, eyeball_px=eyeballs, contrast=True)
+            w = RECORD_WIDTH
+            for j, (k, (_, off, *_e), _v) in enumerate(fits):
+                if plain[j] is not None:
+                    # the histogram of iris contrasts follows the fits without the side-arc rule where there are any
+                    iris, ok, diam = self._pupil_where_faint(fits_job[k], *plain[j])
+                    if self.appearance:
+                        out[k, w:w + 2] = ok
+                        if self.side_arcs:  # the appearance estimate's labels, apart from the gaze estimate's fits
+                            out[k, w + LABEL_IRIS.start:w + LABEL_IRIS.stop] = (iris + off).ravel()
+                            out[k, w + LABEL_DIAM.start:w + LABEL_DIAM.stop] = diam
+                    out[k, LIMBUS_CONTRAST] = plain[j][3]
+                if side[j] is not None:
+                    iris, ok, diam = self._pupil_where_faint(fits_job[k], *side[j], count=plain[j] is None)
+                    if self.appearance and plain[j] is None:
+                        out[k, w:w + 2] = ok
+                    if plain[j] is None:
+                        out[k, LIMBUS_CONTRAST] = side[j][3]
                 out[k, 15:19] = (iris + off).ravel()
                 out[k, LIMBUS_DIAM] = diam
-                out[k, LIMBUS_CONTRAST] = step
-                if self.appearance:
-                    out[k, RECORD_WIDTH:RECORD_WIDTH + 2] = ok
         return out
 
-    def _pupil_where_faint(self, job, iris, ok, diam, step):
+    def _fit_variant(self) -> str:
+        """Which limbus fits the frame just placed needs (:func:`aspectus.webcam.limbus.limbus_centres_variants`):
+        ``"plain"`` without the side-arc rule, ``"side"`` with it, ``"both"`` (``side_arcs``)."""
+        if not self.side_arcs:
+            return "plain"
+        if not (self.appearance and self.appearance_below_px is not None):
+            return "side"  # the limbus fit is the gaze estimate (or the iris_combine setting chose the appearance's)
+        if self._first_diams is not None:
+            return "both"  # "auto", undecided: the appearance estimate may learn from these frames
+        return "plain" if self._sampling else "side"
+
+    def _pupil_where_faint(self, job, iris, ok, diam, step, count: bool = True):
         """An eye whose frames so far show too little iris contrast (the median of at least
         :data:`CONTRAST_MIN_FRAMES` frames' contrasts below :data:`MIN_IRIS_CONTRAST_PCT`: a light iris) takes its
         pupil's centre (:func:`aspectus.webcam.limbus.pupil_centre`) rather than the limbus fit's, and the mesh's
         iris diameter. The median of the eye's frames, not the frame's own figure, decides: on dark irises single
         frames dip below it (a blink, compression), and so do the medians of stretches of 30 frames - switching
-        there made the gaze worse (docs/notes/gaze-measurement.md)."""
+        there made the gaze worse (docs/notes/gaze-measurement.md). ``count``: the frame's contrasts enter the
+        histogram (False for a frame's second fit)."""
         image, points_px, iris_px, iris_diam_px = job
         for e in (0, 1):
             h = self._contrasts[e]
-            if np.isfinite(step[e]):
+            if count and np.isfinite(step[e]):
                 h[int(np.clip(np.round(step[e]), -100, 100)) + 100] += 1
             n = int(h.sum())
             if n < CONTRAST_MIN_FRAMES:
@@ -304,7 +345,7 @@ class FrameGeometry:
                 continue
             iris, ok, diam = np.array(iris, float), np.array(ok, bool), np.array(diam, float)
             iris[e], ok[e], diam[e] = p, True, float(iris_diam_px[e])
-            self.pupil_eye_frames += 1
+            self.pupil_eye_frames += int(count)
         return iris, ok, diam
 
     def _row_before_iris(self, pts_s, size_px, points_px, face_count, eyes=None, eyes_origin_px=(0, 0)):
@@ -404,7 +445,7 @@ class FrameGeometry:
         if patches is None:
             return
         row[w + 2:w + 14] = A.ravel()
-        row[w + 14:] = np.ascontiguousarray(patches).reshape(-1).view(np.float64)
+        row[w + PATCHES_AT:] = np.ascontiguousarray(patches).reshape(-1).view(np.float64)
 
     def _decide_small(self) -> None:
         """The "auto" settings' one decision, from the frames with a face seen so far (then no more): whether to go
@@ -556,10 +597,11 @@ class GeometryThread:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None, iris_shape: bool = False):
+                 appearance_below_px: float | None = None, iris_shape: bool = False, side_arcs: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
                                   anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                                  appearance_below_px=appearance_below_px, iris_shape=iris_shape)
+                                  appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                                  side_arcs=side_arcs)
         self._sink = sink
         self._q: queue.Queue = queue.Queue(maxsize=2 * _BATCH)  # room for a whole batch of limbus fits
         self._failure: list[BaseException] = []
@@ -614,10 +656,11 @@ class GeometryInline:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None, iris_shape: bool = False):
+                 appearance_below_px: float | None = None, iris_shape: bool = False, side_arcs: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
                                   anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                                  appearance_below_px=appearance_below_px, iris_shape=iris_shape)
+                                  appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                                  side_arcs=side_arcs)
         self._sink = sink
         self._pending: list = []
 
@@ -647,7 +690,7 @@ def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
     Started by :class:`GeometryProcess` with the arguments
-    ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE [APPEARANCE [BELOW_PX [IRIS_SHAPE]]]]]]`` (BELOW_PX "-" for
+    ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE [APPEARANCE [BELOW_PX [IRIS_SHAPE [SIDE_ARCS]]]]]]]`` (BELOW_PX "-" for
     none). Anything
     else that would print to stdout goes to stderr, so it cannot corrupt the replies.
     """
@@ -659,12 +702,13 @@ def child_main(argv=None) -> int:
     appearance = len(args) > 5 and args[5] == "1"
     appearance_below_px = float(args[6]) if len(args) > 6 and args[6] != "-" else None
     iris_shape = len(args) > 7 and args[7] == "1"
+    side_arcs = len(args) > 8 and args[8] == "1"
     out = os.fdopen(os.dup(1), "wb")
     os.dup2(2, 1)  # stray prints from libraries go to stderr
     inp = sys.stdin.buffer
     geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors, anchor_set=anchor_set,
                         skin_pose=skin_pose, appearance=appearance, appearance_below_px=appearance_below_px,
-                        iris_shape=iris_shape)
+                        iris_shape=iris_shape, side_arcs=side_arcs)
 
     def reply(obj) -> bool:
         try:
@@ -726,7 +770,7 @@ class GeometryProcess:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None, iris_shape: bool = False):
+                 appearance_below_px: float | None = None, iris_shape: bool = False, side_arcs: bool = False):
         self._sink = sink
         if anchor_set not in ANCHOR_SET_CHOICES:
             raise ValueError(f"anchor set must be one of {', '.join(ANCHOR_SET_CHOICES)}, got {anchor_set!r}")
@@ -734,7 +778,7 @@ class GeometryProcess:
             [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parents[1]), repr(float(fov_deg)),
              "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set, "1" if skin_pose else "0",
              "1" if appearance else "0", "-" if appearance_below_px is None else repr(float(appearance_below_px)),
-             "1" if iris_shape else "0"],
+             "1" if iris_shape else "0", "1" if side_arcs else "0"],
             stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._out: queue.Queue = queue.Queue(maxsize=32)  # batches in flight: some 30 MB of eye crops at most
         self._pending: list = []
@@ -829,28 +873,33 @@ class GeometryProcess:
 
 def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
                    eye_anchors: bool = True, anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False,
-                   appearance: bool = False, appearance_below_px: float | None = None, iris_shape: bool = False):
+                   appearance: bool = False, appearance_below_px: float | None = None, iris_shape: bool = False,
+                   side_arcs: bool = False):
     """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
     application, or when no child can be started); ``mode`` forces ``"thread"``, ``"process"`` or
     ``"inline"`` (:class:`GeometryInline`, in the calling thread). ``skin_pose``: the head rotation from skin
     points followed on the picture (:class:`FrameGeometry`); the frames must then be cut with
     ``frame_item(..., skin_pose=True)``. ``iris_shape``: the limbus fit fits the iris as the ellipse its circle
-    fit's centre predicts (:class:`FrameGeometry`)."""
+    fit's centre predicts (:class:`FrameGeometry`). ``side_arcs``: the limbus fit's side-arc rule where the fit
+    is the gaze estimate (:class:`FrameGeometry`)."""
     if mode not in ("auto", "thread", "process", "inline"):
         raise ValueError(f"geometry mode must be auto, thread, process or inline, got {mode!r}")
     if mode == "inline":
         return GeometryInline(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
                               anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px, iris_shape=iris_shape)
+                              appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                              side_arcs=side_arcs)
     frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
             return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
                               anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px, iris_shape=iris_shape)
+                              appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                              side_arcs=side_arcs)
         except OSError:
             if mode == "process":
                 raise
     return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
                               anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px, iris_shape=iris_shape)
+                              appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                              side_arcs=side_arcs)

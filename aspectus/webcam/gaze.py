@@ -305,6 +305,18 @@ class GazeParams:
         a 25 px clip without any reflection it filled 2 of 238 frames, which
         moved the mesh's tracking: kappa 0.463 -> 0.390, noise 1.46 -> 1.60 deg
         (docs/notes/gaze-measurement.md, "A screen mirrored by the corneas").
+    side_arcs : bool
+        With ``refine_iris``: the limbus fit's candidates within 30 deg of the
+        horizontal, seen from the circle's centre, count as rim, never as lid
+        in front of it (:data:`aspectus.webcam.limbus.SIDE_DEG`: a lid reaches
+        them only when it covers half the iris's radius), so the one-sided
+        weights apply to the others only. It acts where the limbus fit is
+        itself the gaze estimate: large faces under ``iris_combine="auto"``
+        and ``"limbus"``, ``"fuse"``, ``"rescale"``; the appearance estimate
+        learns from fits without it (while the first frames of an ``auto``
+        clip are undecided both are fitted). Default False
+        (docs/notes/gaze-measurement.md, "the one-sided weights kept off the
+        candidates within 30 deg").
     """
 
     blink_rel_threshold: float = 0.6
@@ -324,6 +336,7 @@ class GazeParams:
     iris_registration: bool = False
     iris_shape: str = "circle"
     fill_reflections: bool = False
+    side_arcs: bool = False
 
     def __post_init__(self):
         from aspectus.errors import ParameterError
@@ -351,7 +364,7 @@ class GazeParams:
             raise ParameterError(f"gaze parameter iris_combine = {self.iris_combine!r} is not one of "
                                  f"{', '.join(IRIS_COMBINE)}")
         for name in ("refine_iris", "decouple_reference", "eye_anchors", "mirrored", "fuse_in_head",
-                     "iris_registration", "fill_reflections"):
+                     "iris_registration", "fill_reflections", "side_arcs"):
             if not isinstance(getattr(self, name), bool):
                 raise ParameterError(f"gaze parameter {name} must be true or false, got {getattr(self, name)!r}")
         if self.iris_combine == "appearance" and not (self.refine_iris and self.eye_anchors):

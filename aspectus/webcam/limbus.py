@@ -69,6 +69,12 @@ ROI_RADII = 2.6
 EDGE_NOISE_PX = 0.45
 #: the fitted radius stays within this fraction of the face mesh's iris radius
 _R_TOL = 0.15
+#: with ``side_arcs`` (:func:`limbus_centres_many`; ``GazeParams.side_arcs``): limbus candidates within this angle of
+#: the horizontal (seen from the circle's centre) count as rim, never as lid in front of it - in an open eye the
+#: upper lid covers some 1-2 mm of the 11.7 mm iris and the lower lid less (common anatomy, from memory), while a
+#: lid reaches these angles only when it covers half the iris's radius (2.9 mm) or more. :func:`fit_circle`'s
+#: one-sided weights then apply to the other candidates only.
+SIDE_DEG = 30.0
 #: the iris plane's distance from the eyeball centre in iris radii (10.5 mm / 5.85 mm: the gaze model's,
 #: aspectus.webcam.gaze.IRIS_PLANE_RADIUS_MM over half of IRIS_DIAMETER_MM)
 _PLANE_PER_IRIS_RADIUS = float(np.sqrt(12.0 ** 2 - 5.85 ** 2) / 5.85)
@@ -125,17 +131,21 @@ def _solve3(A: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.nd
     return s[:, 0], s[:, 1], s[:, 2]
 
 
-def _weights(res: np.ndarray, huber_px: float, inside_px: float | None) -> np.ndarray:
-    """The circle fit's weights of residuals ``res`` (:func:`fit_circle`)."""
+def _weights(res: np.ndarray, huber_px: float, inside_px: float | None, sided: np.ndarray | None = None) -> np.ndarray:
+    """The circle fit's weights of residuals ``res`` (:func:`fit_circle`); ``sided`` (broadcastable to ``res``,
+    optional): the points the one-sided weights apply to (the others get the symmetric Huber weights)."""
     if inside_px is None:
         return huber_px / np.maximum(np.abs(res), huber_px)  # 1 within huber_px, huber_px / |res| beyond
     # the first factor is 1 inside the circle, the second 1 outside it
-    return huber_px / np.maximum(res, huber_px) * np.square(inside_px / np.maximum(-res, inside_px))
+    one = huber_px / np.maximum(res, huber_px) * np.square(inside_px / np.maximum(-res, inside_px))
+    if sided is None:
+        return one
+    return np.where(sided, one, huber_px / np.maximum(np.abs(res), huber_px))
 
 
 def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: float = 0.2,
                iterations: int = 8, huber_px: float = 1.0, inside_px: float | None = None,
-               r_start: float | None = None) -> tuple[np.ndarray, float, float]:
+               r_start: float | None = None, sided: np.ndarray | None = None) -> tuple[np.ndarray, float, float]:
     """Robust geometric circle fit (centre, radius, RMS residual in px).
 
     Gauss-Newton on the distances of the points from the circle, with Huber
@@ -152,25 +162,30 @@ def fit_circle(points: np.ndarray, centre0: np.ndarray, r0: float, *, r_tol: flo
     falls off as ``1 / |res|`` (a redescending, Cauchy-like tail), so the
     lid/iris junctions no longer pull the circle inwards. The RMS returned
     is then weighted the same way (that of the points taken as the rim).
+    ``sided`` (N,) bool, optional: the points the one-sided weights apply to;
+    the others keep the symmetric Huber weight (default: all points).
 
     One circle; :func:`fit_circles` fits many at once.
     """
     pts = np.asarray(points, dtype=float)[None]
     c, r, rms = fit_circles(pts, np.ones(pts.shape[:2], bool), np.asarray(centre0, float)[None], np.array([float(r0)]),
                             r_tol=r_tol, iterations=iterations, huber_px=huber_px, inside_px=inside_px,
-                            r_start=None if r_start is None else np.array([float(r_start)]))
+                            r_start=None if r_start is None else np.array([float(r_start)]),
+                            sided=None if sided is None else np.asarray(sided, bool)[None])
     return c[0], float(r[0]), float(rms[0])
 
 
 def fit_circles(points: np.ndarray, valid: np.ndarray, centre0: np.ndarray, r0: np.ndarray, *,
                 r_tol: float = 0.2, iterations: int = 8, huber_px: float = 1.0, inside_px: float | None = None,
-                r_start: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                r_start: np.ndarray | None = None, sided: np.ndarray | None = None
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """:func:`fit_circle` for many point sets at once.
 
     Parameters
     ----------
     points : (E, N, 2) candidate points of E circles (padded); valid : (E, N) bool, the points that count.
     centre0 : (E, 2) starting centres; r0 : (E,) nominal radii; r_start : (E,) starting radii, optional.
+    sided : (E, N) bool, optional: the points the one-sided weights (``inside_px``) apply to.
 
     Returns
     -------
@@ -200,7 +215,7 @@ def fit_circles(points: np.ndarray, valid: np.ndarray, centre0: np.ndarray, r0: 
         dist = np.sqrt(dx * dx + dy * dy)
         np.maximum(dist, 1e-9, out=dist)
         np.subtract(dist, r[:, None], out=J[:, 3])
-        w = _weights(J[:, 3], huber_px, inside_px) * vf
+        w = _weights(J[:, 3], huber_px, inside_px, sided) * vf
         np.divide(dx, dist, out=J[:, 0])
         np.divide(dy, dist, out=J[:, 1])
         G = (J[:, :3] * w[:, None, :]) @ J.transpose(0, 2, 1)  # (E, 3, 4): J'WJ | J'W res
@@ -214,7 +229,7 @@ def fit_circles(points: np.ndarray, valid: np.ndarray, centre0: np.ndarray, r0: 
     res = np.sqrt(dx * dx + dy * dy) - r[:, None]
     # with one-sided weights the RMS of the rim points: weighted, so that occluder edges well inside the
     # circle hardly count
-    w = vf if inside_px is None else _weights(res, huber_px, inside_px) * vf
+    w = vf if inside_px is None else _weights(res, huber_px, inside_px, sided) * vf
     with np.errstate(invalid="ignore", divide="ignore"):
         rms = np.sqrt((w * res * res).sum(1) / w.sum(1))
     return np.stack([cx, cy], axis=1), r, rms
@@ -258,7 +273,7 @@ class _Eye:
     """One eye's region of one frame, prepared for ray casting (ROI px)."""
 
     __slots__ = ("frame", "eye", "origin", "c0", "r", "g", "dist", "radii", "cur", "r_fit", "index", "ray_x", "ray_y",
-                 "rad_step", "warp", "pad")
+                 "rad_step", "warp", "pad", "side_arcs", "fitted")
 
     def __init__(self, frame, eye, origin, c0, r, g, dist, radii):
         self.frame, self.eye, self.origin = frame, eye, origin
@@ -269,6 +284,15 @@ class _Eye:
         self.rad_step = (radii[-1] - radii[0]) / (len(radii) - 1)
         self.warp = None  # (2, 2) map that turns the eye's expected ellipse into a circle (:func:`shape_warp`)
         self.pad = 0  # samples read beyond each end of ``radii`` (for the edge-profile model, :func:`_model_edges`)
+        self.side_arcs = False  # the fit's rule for the candidates near the horizontal (SIDE_DEG)
+        self.fitted = False
+
+    def copy(self) -> _Eye:
+        """The same eye region (its arrays shared), to be fitted anew."""
+        other = _Eye(self.frame, self.eye, self.origin, self.c0, self.r, self.g, self.dist, self.radii)
+        other.index, other.ray_x, other.ray_y, other.pad, other.warp = (self.index, self.ray_x, self.ray_y, self.pad,
+                                                                        self.warp)
+        return other
 
 
 def _prepare_eye(cv2, image, points_px, outline, c0, r, frame, e) -> _Eye | None:
@@ -415,7 +439,8 @@ def iris_shape(offset_px: np.ndarray, r_px: float) -> tuple[float, float]:
 
 def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
                         diameters: bool = False, shapes=None, eyeball_px=None,
-                        edge: str = "steepest", contrast: bool = False) -> list[tuple[np.ndarray, ...]]:
+                        edge: str = "steepest", contrast: bool = False, side_arcs: bool = False
+                        ) -> list[tuple[np.ndarray, ...]]:
     """:func:`limbus_centres` of several frames, ``items`` = [(image, points_px, iris_px, iris_diam_px), ...].
 
     With ``diameters`` each frame's tuple also holds both eyes' fitted circle diameters, px (2,), NaN where
@@ -427,22 +452,44 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes:
     ``passes`` more times, and the diameters are the ellipses' major axes. ``shapes``: per frame None or a
     fixed (ratio, minor-axis angle) per eye (2, 2) for every pass (for measurements against a known shape).
 
+    ``side_arcs``: the candidates within :data:`SIDE_DEG` of the horizontal count as rim, never as lid (the
+    one-sided weights apply to the others only; ``GazeParams.side_arcs``). Both fits of the same frames at once:
+    :func:`limbus_centres_variants`.
+
     The ray casting and circle fits of all eyes run together, pass by pass
     (the per-eye arithmetic is the same; NumPy's per-call cost, which is
     most of the time for a few dozen points, is paid once per pass rather
     than once per eye).
     """
+    variant = "side" if side_arcs else "plain"
+    plain, side = limbus_centres_variants(items, [variant] * len(items), min_points=min_points, n_rays=n_rays,
+                                          passes=passes, diameters=diameters, shapes=shapes, eyeball_px=eyeball_px,
+                                          edge=edge, contrast=contrast)
+    return side if side_arcs else plain
+
+
+#: the fits :func:`limbus_centres_variants` makes of a frame
+FIT_VARIANTS = ("plain", "side", "both")
+
+
+def limbus_centres_variants(items, variants, *, min_points: int = 8, n_rays: int = 48, passes: int = 2,
+                            diameters: bool = False, shapes=None, eyeball_px=None, edge: str = "steepest",
+                            contrast: bool = False) -> tuple[list, list]:
+    """:func:`limbus_centres_many` of each frame without (``"plain"``), with (``"side"``) or without and with
+    (``"both"``) ``side_arcs``, ``variants`` one per frame: (the fits without, the fits with), each a list with
+    one entry per frame, None for a frame not fitted that way. The eye regions are prepared once and all fits
+    run in one batch."""
     if edge not in EDGE_LOCATORS:
         raise ValueError(f"edge = {edge!r} is not one of {EDGE_LOCATORS}")
+    if len(variants) != len(items) or any(v not in FIT_VARIANTS for v in variants):
+        raise ValueError(f"variants: one of {FIT_VARIANTS} per frame expected")
     cv2 = import_cv2()
     if n_rays not in _RAYS:
         ang = np.linspace(0, 2 * np.pi, n_rays, endpoint=False)
         _RAYS[n_rays] = (np.cos(ang), np.sin(ang))
     cos_a, sin_a = _RAYS[n_rays]
-    outs, fitted, eyes = [], [], []
+    prepared = []
     for f, (image, points_px, iris_px, iris_diam_px) in enumerate(items):
-        outs.append(np.array(iris_px, float).copy())
-        fitted.append(np.zeros(2, bool))
         for e, outline in enumerate(_OUTLINES):
             r = 0.5 * float(iris_diam_px[e])
             c0 = np.array(iris_px[e], float)
@@ -452,8 +499,16 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes:
             if eye is not None:
                 if shapes is not None and shapes[f] is not None:
                     eye.warp = shape_warp(float(shapes[f][e][0]), float(shapes[f][e][1]))
-                eyes.append(eye)
-    dist = _distance_maps(eyes) if eyes else None
+                prepared.append(eye)
+    dist = _distance_maps(prepared) if prepared else None
+    # the batch: the eyes fitted without the side-arc rule first, then those fitted with it (copies of the same
+    # regions where a frame is fitted both ways)
+    plain_eyes = [eye for eye in prepared if variants[eye.frame] != "side"]
+    side_eyes = [eye.copy() if variants[eye.frame] == "both" else eye for eye in prepared
+                 if variants[eye.frame] != "plain"]
+    for eye in side_eyes:
+        eye.side_arcs = True
+    eyes = plain_eyes + side_eyes
     active = eyes
     # with the eyeball centres a circle is fitted first and the ellipse it predicts ``passes`` times after it,
     # each time with the shape its last fit predicts (the circle's radius lies between the ellipse's axes, which
@@ -467,7 +522,7 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes:
             if nxt is None or np.hypot(*(nxt[0] - eye.c0)) > eye.r:
                 continue
             eye.cur, eye.r_fit = nxt
-            fitted[eye.frame][eye.eye] = True
+            eye.fitted = True
             if eyeball_px is not None and eyeball_px[eye.frame] is not None:
                 # the next pass fits the ellipse this centre predicts
                 ratio, ang = iris_shape(eye.cur + eye.origin - np.asarray(eyeball_px[eye.frame][eye.eye], float),
@@ -475,17 +530,28 @@ def limbus_centres_many(items, *, min_points: int = 8, n_rays: int = 48, passes:
                 eye.warp = shape_warp(ratio, ang)
             still.append(eye)
         active = still
-    diams = [np.full(2, np.nan) for _ in items]
-    steps = [np.full(2, np.nan) for _ in items]
-    for eye in eyes:
-        outs[eye.frame][eye.eye] = eye.cur + eye.origin
-        if fitted[eye.frame][eye.eye]:
-            diams[eye.frame][eye.eye] = 2.0 * eye.r_fit
+    out = []
+    for name, mine in (("plain", plain_eyes), ("side", side_eyes)):
+        wanted = [v in (name, "both") for v in variants]
+        outs = [np.array(item[2], float).copy() if w_ else None for item, w_ in zip(items, wanted)]
+        fitted = [np.zeros(2, bool) if w_ else None for w_ in wanted]
+        diams = [np.full(2, np.nan) if w_ else None for w_ in wanted]
+        steps = [np.full(2, np.nan) if w_ else None for w_ in wanted]
+        for eye in mine:
+            outs[eye.frame][eye.eye] = eye.cur + eye.origin
+            if eye.fitted:
+                fitted[eye.frame][eye.eye] = True
+                diams[eye.frame][eye.eye] = 2.0 * eye.r_fit
+            if contrast:
+                steps[eye.frame][eye.eye] = limbus_contrast(eye.g, eye.dist, eye.cur, eye.r_fit)
         if contrast:
-            steps[eye.frame][eye.eye] = limbus_contrast(eye.g, eye.dist, eye.cur, eye.r_fit)
-    if contrast:
-        return list(zip(outs, fitted, diams, steps))
-    return list(zip(outs, fitted, diams)) if diameters else list(zip(outs, fitted))
+            rows = [(o, f_, d, st) for o, f_, d, st in zip(outs, fitted, diams, steps)]
+        elif diameters:
+            rows = [(o, f_, d) for o, f_, d in zip(outs, fitted, diams)]
+        else:
+            rows = [(o, f_) for o, f_ in zip(outs, fitted)]
+        out.append([row if w_ else None for row, w_ in zip(rows, wanted)])
+    return out[0], out[1]
 
 
 def limbus_contrast(grey: np.ndarray, lid_dist: np.ndarray, centre: np.ndarray, r: float) -> float:
@@ -710,8 +776,16 @@ def _fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all: np.ndarray | 
         W = np.stack([np.eye(2) if w_ is None else w_ for w_ in warps])
         pts = np.einsum("eij,enj->eni", W, pts)
         c0 = np.einsum("eij,ej->ei", W, c0)
+    # with the side-arc rule the candidates near the horizontal are rim whatever the lids do (SIDE_DEG): with
+    # one-sided weights there too, a circle 2-3 px higher and 5-9 % larger through the lower lid's junction with
+    # the iris, with the true rim's upper side arcs inside it, costs little, and the fit can flip between the two
+    # from frame to frame (docs/notes/gaze-measurement.md)
+    sides = np.array([eyes[k].side_arcs for k in sel])
+    sided = None
+    if sides.any():
+        sided = ~sides[:, None] | (np.abs(sin_a)[None, :] >= np.sin(np.radians(SIDE_DEG)))
     c, rfit, rms = fit_circles(pts, keep[sel], c0, r[sel], r_tol=_R_TOL, inside_px=EDGE_NOISE_PX,
-                               r_start=r_start[sel])
+                               r_start=r_start[sel], sided=sided)
     grown = rfit >= (1 + _R_TOL) * r[sel] * (1 - 1e-9)
     if grown.any():
         # With the one-sided weights a circle that holds every candidate inside it costs little, so a fit

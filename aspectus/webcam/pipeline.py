@@ -48,7 +48,8 @@ from aspectus.run_record import missing_output, read_run_json, refuse_foreign_fi
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements, unmirror_record
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
-from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LIMBUS_CONTRAST, LIMBUS_DIAM, RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
+from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LABEL_DIAM, LABEL_IRIS, LIMBUS_CONTRAST, LIMBUS_DIAM,
+                                            RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
                                             frame_item, start_geometry)
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
@@ -321,8 +322,8 @@ def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> t
     from aspectus.webcam.iris_appearance import PATCH_SIZE, appearance_iris
 
     n = len(a)
-    iris = a[:, 15:19].reshape(n, 2, 2).copy()
     w = RECORD_WIDTH
+    iris = _label_columns(a, a[:, 15:19], LABEL_IRIS).reshape(n, 2, 2).copy()
     limbus = iris.copy()
     limbus[~(a[:, w:w + 2] > 0.5)] = np.nan
     rel, _ = relative_aperture(found, a[:, 29:31])
@@ -336,6 +337,17 @@ def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> t
     iris[..., 1] = np.where(np.isfinite(y), y, iris[..., 1])
     info["frames_predicted"] = [int(np.isfinite(y[:, e]).sum()) for e in range(2)]
     return iris, info
+
+
+def _label_columns(a: np.ndarray, own: np.ndarray, label: slice) -> np.ndarray:
+    """``own`` (columns of ``a``) with the appearance estimate's label fits (``label``, offsets from
+    :data:`RECORD_WIDTH`) in the frames that have them: the fits without the side-arc rule
+    (``GazeParams.side_arcs``; :data:`aspectus.webcam.frame_geometry.APPEARANCE_COLUMNS`)."""
+    w = RECORD_WIDTH
+    has = np.isfinite(a[:, w + LABEL_IRIS.start:w + LABEL_IRIS.stop]).all(axis=1)
+    out = np.array(own, float)
+    out[has] = a[has, w + label.start:w + label.stop]
+    return out
 
 
 #: the share of a clip's progress given to the iris registration at its end (``iris_registration``: some 3 ms a
@@ -463,7 +475,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                               mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors),
                               anchor_set=params.gaze.eye_anchor_set, skin_pose=skin, appearance=sample_patches,
                               appearance_below_px=AUTO_APPEARANCE_BELOW_PX if combine == "auto" else None,
-                              iris_shape=params.gaze.iris_shape == "ellipse")
+                              iris_shape=params.gaze.iris_shape == "ellipse",
+                              side_arcs=refine and bool(params.gaze.side_arcs) and combine != "appearance")
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
         pin_to_cpus(background, geometry.pid)
@@ -553,6 +566,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                 app_info = None
     if choice is not None:
         choice["used"] = "appearance" if app_info is not None else ("limbus" if refine else "face mesh")
+    # the limbus fits' diameters (the iris scale): with the appearance estimate those it learnt from
+    limbus_diam = _label_columns(a, a[:, LIMBUS_DIAM], LABEL_DIAM) if fitted else a[:, LIMBUS_DIAM]
     if refine and not fitted:
         # where the limbus fit failed the record holds the face mesh's iris point: marked missing, so that the
         # gaze estimate bridges it from the neighbouring fits (gaze.fill_iris_gaps; the raw mesh point only past
@@ -579,7 +594,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
         iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None,
-        limbus_diam_px=a[:, LIMBUS_DIAM] if params.gaze.refine_iris else None, params=params.gaze)
+        limbus_diam_px=limbus_diam if params.gaze.refine_iris else None, params=params.gaze)
     # measured per eye of the face mesh: in a mirrored clip named for the subject's eyes, as estimate_gaze's own
     # records are (gaze.unmirror_record)
     more = {k: v for k, v in (("iris_appearance", app_info), ("iris_registration", reg_info)) if v is not None}

@@ -13,8 +13,8 @@ import time
 import numpy as np
 import pytest
 
-from aspectus.webcam.frame_geometry import (RECORD_WIDTH, FrameGeometry, GeometryProcess, eye_crop_box, frame_item,
-                                    start_geometry)
+from aspectus.webcam.frame_geometry import (LIMBUS_CONTRAST, LIMBUS_DIAM, PATCHES_AT, RECORD_WIDTH, FrameGeometry,
+                                            GeometryProcess, eye_crop_box, frame_item, start_geometry)
 from aspectus.webcam.landmarks import FaceTracker
 
 pytestmark = pytest.mark.slow
@@ -307,7 +307,7 @@ def test_appearance_columns_follow_the_record_and_leave_it_unchanged(frames_and_
     affine = app[:, RECORD_WIDTH + 2:RECORD_WIDTH + 14]
     with_patch = np.isfinite(affine).all(axis=1)
     assert with_patch[found].mean() > 0.9 and not with_patch[~found].any()
-    patches = np.ascontiguousarray(app[with_patch, RECORD_WIDTH + 14:]).view(np.uint8)
+    patches = np.ascontiguousarray(app[with_patch, RECORD_WIDTH + PATCHES_AT:]).view(np.uint8)
     assert patches.shape == (with_patch.sum(), PATCH_BYTES)
     W, H = PATCH_SIZE
     p = patches.reshape(-1, 2, H, W).astype(float)
@@ -318,3 +318,36 @@ def test_appearance_columns_follow_the_record_and_leave_it_unchanged(frames_and_
     assert (k1, k2) == ("thread", "process")
     np.testing.assert_array_equal(np.ascontiguousarray(t_rows).view(np.uint8), np.ascontiguousarray(app).view(np.uint8))
     np.testing.assert_array_equal(np.ascontiguousarray(p_rows).view(np.uint8), np.ascontiguousarray(app).view(np.uint8))
+
+
+def test_side_arc_fits_and_the_appearance_labels_in_one_run(frames_and_faces):
+    """``side_arcs`` (GazeParams ``side_arcs``, aspectus.webcam.limbus.SIDE_DEG) under ``iris_combine="auto"``:
+    while the first frames are undecided (this clip is shorter than them) each frame is fitted both ways - the
+    record's centres and diameters are those of the rule alone, the label columns those without it, bit for
+    bit, so the appearance estimate learns what it learnt before; every runner gives the same rows."""
+    from aspectus.webcam.frame_geometry import LABEL_DIAM, LABEL_IRIS
+    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX
+
+    frs, obs = frames_and_faces
+    items = [frame_item(f.pts_s, f.image, o, refine_iris=True) for f, o in zip(frs, obs)]
+    auto = dict(appearance=True, appearance_below_px=AUTO_APPEARANCE_BELOW_PX)
+    _, both, _ = _run("thread", items, side_arcs=True, **auto)
+    _, both_p, _ = _run("process", items, side_arcs=True, **auto)
+    _, both_i, _ = _run("inline", items, side_arcs=True, **auto)
+    np.testing.assert_array_equal(both, both_p)
+    np.testing.assert_array_equal(both, both_i)
+    _, plain, _ = _run("thread", items, **auto)
+    _, side, _ = _run("thread", items, side_arcs=True)  # no appearance: the rule's fits alone
+    w = RECORD_WIDTH
+    found = plain[:, 1] > 0.5
+    np.testing.assert_array_equal(both[:, :15], plain[:, :15])  # head pose untouched
+    np.testing.assert_array_equal(both[:, 15:19], side[:, 15:19])
+    np.testing.assert_array_equal(both[:, LIMBUS_DIAM], side[:, LIMBUS_DIAM])
+    np.testing.assert_array_equal(both[found, w + LABEL_IRIS.start:w + LABEL_IRIS.stop], plain[found, 15:19])
+    np.testing.assert_array_equal(both[:, w + LABEL_DIAM.start:w + LABEL_DIAM.stop], plain[:, LIMBUS_DIAM])
+    np.testing.assert_array_equal(both[:, w:w + 2], plain[:, w:w + 2])  # the fit flags of the labels
+    np.testing.assert_array_equal(both[:, LIMBUS_CONTRAST], plain[:, LIMBUS_CONTRAST])
+    np.testing.assert_array_equal(both[:, w + PATCHES_AT:], plain[:, w + PATCHES_AT:])
+    assert np.isnan(plain[:, w + LABEL_IRIS.start:w + LABEL_DIAM.stop]).all()  # without the rule: no labels apart
+    moved = np.abs(both[found, 15:19] - plain[found, 15:19])
+    assert np.nanmax(moved) > 0.01  # the rule changes fits (by how much: docs/notes/gaze-measurement.md)

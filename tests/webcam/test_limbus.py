@@ -208,3 +208,47 @@ def test_limbus_centre_of_a_disc_at_a_known_sub_pixel_centre(centre):
     out, fitted = limbus_centres(img, pts, iris_px, np.array([2.0 * r, np.nan]))
     assert fitted[0]
     assert np.all(np.abs(out[0] - centre) < 0.1), (out[0], centre)
+
+
+def test_fits_with_and_without_the_side_arc_rule_at_once_give_each_alone():
+    """limbus_centres_variants prepares the eye regions once and fits each frame without, with or both ways
+    (GazeParams ``side_arcs``); each result is that of its own run, and without the rule it is the fit as
+    before (the appearance estimate's labels must not move)."""
+    from aspectus.webcam.limbus import limbus_centres_many, limbus_centres_variants
+
+    outline = np.array(RIGHT_EYE_OUTLINE)
+    items = []
+    for k, (r, dx, dy, upper, lower) in enumerate([(10.0, 0.3, -0.2, 8.0, 6.0), (12.5, 0.6, 1.2, 6.0, 5.0),
+                                                   (9.0, -0.8, 0.9, 4.0, 7.0), (2.0, 0.0, 0.0, 8.0, 6.0)]):
+        centre = np.array([45.3 + 0.1 * k, 31.6 - 0.2 * k])
+        img = _drawn_eye(centre, r, upper_px=upper, lower_px=lower)
+        pts = np.zeros((478, 3))
+        half = 2.4 * r
+        xs_up = np.linspace(centre[0] - half, centre[0] + half, 9)[1:-1]
+        pts[outline[0], :2] = (centre[0] - half, centre[1])
+        pts[outline[1:8], 0], pts[outline[1:8], 1] = xs_up, centre[1] - upper
+        pts[outline[8], :2] = (centre[0] + half, centre[1])
+        pts[outline[9:], 0], pts[outline[9:], 1] = xs_up[::-1], centre[1] + lower + 3.0
+        items.append((img, pts, np.array([centre + [dx, dy], [np.nan, np.nan]]), np.array([2 * r, np.nan])))
+    without, with_ = limbus_centres_variants(items, ["both"] * len(items), diameters=True)
+    mixed_plain, mixed_side = limbus_centres_variants(items, ["plain", "side", "both", "plain"], diameters=True)
+    assert mixed_plain[1] is None and mixed_side[0] is None and mixed_side[3] is None
+    for both, side_arcs in ((without, False), (with_, True)):
+        alone = limbus_centres_many(items, diameters=True, side_arcs=side_arcs)
+        mixed = mixed_side if side_arcs else mixed_plain
+        for f, (got, want) in enumerate(zip(both, alone)):
+            for g, w in zip(got, want):
+                np.testing.assert_array_equal(g, w)
+            if mixed[f] is not None:
+                for g, w in zip(mixed[f], want):
+                    np.testing.assert_array_equal(g, w)
+    for got, want in zip(without, limbus_centres_many(items, diameters=True)):  # the default: no rule
+        for g, w in zip(got, want):
+            np.testing.assert_array_equal(g, w)
+    assert [f[0] for _, f, _ in with_] == [True, True, True, False]  # 2 px: too small, the mesh point kept
+    # the drawn lids are straight and the rim round: the two fits agree to a fraction of a pixel
+    for (c0, _, _), (c1, _, _) in zip(without, with_):
+        assert np.nanmax(np.abs(c0 - c1)) < 0.3
+    with pytest.raises(ValueError, match="variants"):
+        limbus_centres_variants(items, ["plain"], diameters=True)
+
