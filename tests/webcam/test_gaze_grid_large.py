@@ -31,13 +31,13 @@ def cell(lund_dir, tmp_path_factory):
     res, trial = G.render_condition(cond, tmp_path_factory.mktemp("large"), lund_dir)
     with G.gaze_inputs() as kw:
         samples, meta = extract_samples(res.path, params=ProcessParams(gaze=GazeParams()))
-    return dict(kw), samples, meta, res.truth, trial
+    return dict(kw), samples, meta, res.truth, trial, res.path
 
 
 def test_frames_without_a_limbus_fit_are_bridged_not_taken_from_the_raw_mesh_point(cell):
     from aspectus.webcam.gaze import GazeParams
 
-    kw, samples, meta, truth, trial = cell
+    kw, samples, meta, truth, trial, _ = cell
     assert meta["gaze_model"]["iris_estimate"]["used"] == "limbus"
     failed = ~np.isfinite(kw["limbus_diam_px"]) & kw["found"][:, None]
     assert failed.sum() >= 10  # measured 7 + 34 frames
@@ -54,3 +54,23 @@ def test_frames_without_a_limbus_fit_are_bridged_not_taken_from_the_raw_mesh_poi
     assert now["pitch_gain"] >= 0.85 and now["pitch_gain"] >= before["pitch_gain"] + 0.03
     assert now["pitch_r"] >= 0.97
     assert now["yaw_r"] >= 0.98 and 0.9 <= now["yaw_gain"] <= 1.1  # measured 0.986-0.987, gain 0.97 -> 0.99
+
+
+def test_side_arc_option_lowers_the_noise_and_meets_the_floor_on_this_cell(cell):
+    """``GazeParams(side_arcs=True)``: the limbus candidates within 30 deg of the horizontal count as rim
+    (aspectus.webcam.limbus.SIDE_DEG), which keeps the one-sided fit off its second solution through the lower
+    lid's junction. An option, not the default: by the rule written before measuring (docs/notes/gaze-measurement.md,
+    2026-12-05) it lowered RMS-S2S on all four 25 px grid cells and six held-out dev clips, but issue 4's end-to-end
+    check fell below its floor with it (per-window fixation-count r 0.850 -> 0.734). Measured here 1.53 -> 1.39
+    deg (issue 15's floor RMS-S2S <= 1.5 met with the option), pitch r 0.977 -> 0.979, gain 0.87 -> 0.89."""
+    from aspectus.webcam.gaze import GazeParams
+    from aspectus.webcam.pipeline import ProcessParams, extract_samples
+
+    _, samples, _, truth, trial, path = cell
+    now = G.measure(samples, truth, trial)
+    side, meta = extract_samples(path, params=ProcessParams(gaze=GazeParams(side_arcs=True)))
+    assert meta["gaze_model"]["iris_estimate"]["used"] == "limbus"
+    got = G.measure(side, truth, trial)
+    assert got["rms_s2s_deg"] <= 1.5 and got["rms_s2s_deg"] <= now["rms_s2s_deg"] - 0.08  # issue 15's floor
+    assert got["pitch_r"] >= 0.97 and got["pitch_gain"] >= 0.85
+    assert got["yaw_r"] >= 0.98 and 0.9 <= got["yaw_gain"] <= 1.1
