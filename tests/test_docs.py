@@ -46,7 +46,9 @@ def test_tutorial_process_clips_and_plot_fixations_per_window(tmp_path):
     png = tmp_path / "fixations_per_window.png"
     assert png.is_file() and png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     for stem in ("linden_brook_p01_s01", "linden_brook_p02_s01"):
-        assert f"linden_brook_{stem[-7:]}.mp4: Usable" in r.stdout
+        # p01's precision supports only the coarser features ("Partly usable"), p02's fixation measures too
+        head = "Partly usable" if stem.endswith("p01_s01") else "Usable"
+        assert f"linden_brook_{stem[-7:]}.mp4: {head}:" in r.stdout
         features = pd.read_csv(tmp_path / stem / "features.csv")
         windows = features.query("scope == 'window'")
         assert len(windows) >= 5 and (windows["end_s"] - windows["start_s"]).round(6).eq(2.0).all()  # 2 s windows

@@ -514,9 +514,12 @@ class ClipView(QWidget):
             self.verdict.setText("No quality figures yet: process the clip to see them.")
             self.verdict.setStyleSheet("color: #555;")
         else:
-            colour = "#2e7d32" if usable else "#b26a00"
+            from aspectus.webcam.pipeline import usable_word
+
+            # green: usable for everything; amber: usable for the coarser features only, or not usable
+            colour = "#2e7d32" if usable_word(s) == "yes" else "#b26a00"
             head, _, rest = str(verdict).partition(":")
-            if head.strip().lower() in ("usable", "not usable"):
+            if head.strip().lower() in ("usable", "partly usable", "not usable"):
                 self.verdict.setText(f"<b>{head.strip()}:</b>{rest}")
             else:
                 self.verdict.setText(f"<b>{'Usable' if usable else 'Not usable'}.</b> {verdict}")

@@ -46,7 +46,9 @@ why when you select it; the others go on.</p>
 <p>The <b>Clip and gaze trace</b> tab shows the video with the tracked face (blurred unless you tick
 <i>Show faces unblurred</i>), a verdict on the clip's quality, and the gaze over time: coloured bands are
 fixations; blinks and lost data are marked. Click the trace to jump the video there. The clip list's
-<i>Face</i> column is the share of frames in which the face was found; <i>Usable</i> is the verdict.</p>
+<i>Face</i> column is the share of frames in which the face was found; <i>Usable</i> is the verdict in one word:
+<i>yes</i> (fixation and saccade measures can be used), <i>partly</i> (the gaze is too unsteady for them; the
+verdict names what can be used) or <i>no</i>.</p>
 <p>Under the video, <i>Noise, sample to sample</i> and <i>SD within fixations</i> are the clip's gaze precision,
 in degrees of visual angle (lower is steadier): how far the gaze estimate moves from one frame to the next while
 the eyes rest on one spot (RMS-S2S), and how widely the samples of one fixation scatter about its centre (SD).

@@ -35,6 +35,10 @@ APP_TITLE = "aspectus"
 FAILED_TRACE_TEXT = "No gaze trace: processing this clip failed (the reason is shown above)."
 TAB_CLIP, TAB_RESULTS, TAB_VALIDATION = 0, 1, 2
 COL_NAME, COL_STATUS, COL_FACE, COL_USABLE = range(4)
+#: what the clip list's Usable column says (aspectus.webcam.pipeline.usable_word)
+USABLE_TIP = ("The verdict on the clip's quality - yes: fixation and saccade measures can be used; partly: the gaze "
+              "is too unsteady for them, only the coarser features the verdict names (such as blink rate and head "
+              "movement) can; no: not usable. Hover over a clip's entry for the reasons.")
 #: a clip's status is shown by its progress bar: the status in words, the percentage while it processes (one
 #: column fewer at 1366 px)
 COL_PROGRESS = COL_STATUS
@@ -129,8 +133,7 @@ class MainWindow(QMainWindow):
         self.clip_list.setHeaderLabels(["Clip", "Status", "Face", "Usable"])
         self.clip_list.headerItem().setToolTip(COL_STATUS, "Processing status; a progress bar while processing")
         self.clip_list.headerItem().setToolTip(COL_FACE, "Share of frames in which the face was tracked")
-        self.clip_list.headerItem().setToolTip(COL_USABLE, "The verdict on the clip's quality (hover over a clip's "
-                                                           "entry for the reasons)")
+        self.clip_list.headerItem().setToolTip(COL_USABLE, USABLE_TIP)
         self.clip_list.setRootIsDecorated(False)
         # clips of one study share a prefix: cut names in the middle so the participant and session show
         self.clip_list.setTextElideMode(Qt.ElideMiddle)
@@ -149,7 +152,7 @@ class MainWindow(QMainWindow):
 
         statuses = (*study_mod.STATUSES, "processing", "queued")
         for col, w in ((COL_STATUS, room(statuses, "Status")), (COL_FACE, room(("100 %",), "Face")),
-                       (COL_USABLE, room(("yes", "no"), "Usable"))):
+                       (COL_USABLE, room(("yes", "partly", "no"), "Usable"))):
             hdr.setSectionResizeMode(col, QHeaderView.Fixed)
             self.clip_list.setColumnWidth(col, w)
         add_btn = QPushButton("Add clips…")
@@ -669,8 +672,9 @@ class MainWindow(QMainWindow):
         it.setToolTip(COL_NAME, c.path)
         s = c.summary or {}
         it.setText(COL_FACE, theme.fmt(s.get("face_found_frac"), pct=True) if s else "")
-        usable = s.get("usable")
-        it.setText(COL_USABLE, "" if usable is None else ("yes" if usable else "no"))
+        from aspectus.webcam.pipeline import usable_word
+
+        it.setText(COL_USABLE, usable_word(s))
         it.setToolTip(COL_USABLE, s.get("verdict") or "")
         bar = self.clip_list.itemWidget(it, COL_PROGRESS)
         if bar is not None:

@@ -61,9 +61,10 @@ SPECS: dict[str, Spec] = {
                          "(Komogortsev et al. 2010).", group="detection"),
     "merge_distance_deg": Spec("… and nearer than", "°", 0, 10, 0.1, 2, help="Largest angle between two fixations "
                                "that are joined.", group="detection"),
-    "merge_noise_factor": Spec("… or nearer than noise ×", "× noise", 0, 10, 0.1, 2, help="The joining angle grows "
-                               "with the clip's noise: the larger of the angle above and this many times the "
-                               "sample-to-sample noise (read over 33 ms steps). 0 switches it off.", group="tuning"),
+    "merge_noise_factor": Spec("Joining angle at least", "× noise", 0, 10, 0.1, 2, help="The joining angle grows "
+                               "with the clip's noise: the larger of the angle under Fixation detection (\"… and "
+                               "nearer than\") and this many times the sample-to-sample noise (read over 33 ms "
+                               "steps). 0 switches it off.", group="tuning"),
     "merge_alpha": Spec("Join when positions not different at level", "", 0, 0.5, 0.01, 3, help="Neighbouring "
                         "fixations are also joined when their mean positions do not differ at this significance "
                         "level, given the noise inside them (noisy webcam gaze splits fixations into fragments). "
@@ -104,16 +105,16 @@ SPECS: dict[str, Spec] = {
                                optional="adapt to each clip",
                                help="Largest spread inside a fixation: (max-min yaw) + (max-min pitch). When "
                                "adapted, each clip gets its own threshold (rows below); run.json records it."),
-    "idt_noise_factor": Spec("Adapted threshold: noise ×", "× noise", 1, 20, 0.5, 1, group="idt",
+    "idt_noise_factor": Spec("Adapted threshold", "× noise", 1, 20, 0.5, 1, group="idt",
                              help="The adapted threshold in units of the clip's noise: its sample-to-sample (RMS-S2S) noise "
                              "read over 33 ms steps, or, below 100 frames a second, how far the gaze wanders over "
                              "the shortest fixation searched for, whichever is larger (run.json records both)."),
-    "idt_min_dispersion_deg": Spec("Adapted threshold at least", "°", 0.1, 10, 0.1, 1, group="idt",
+    "idt_min_dispersion_deg": Spec("… but at least", "°", 0.1, 10, 0.1, 1, group="idt",
                                    help="Lower bound of the adapted threshold."),
     "idt_min_duration_ms": Spec("Shortest fixation searched for", "ms", 20, 1000, 10, group="idt",
                                 help="I-DT's duration threshold: the window that must stay within the spread "
                                 "threshold to start a fixation."),
-    "idt_noise_range_factor": Spec("Adapted threshold: noise's own spread ×", "×", 0, 5, 0.1, 1, group="idt",
+    "idt_noise_range_factor": Spec("… and at least", "× noise range", 0, 5, 0.1, 1, group="idt",
                                    help="The adapted threshold is at least this many times the spread the noise "
                                    "alone reaches over the samples of the shortest fixation searched for (more "
                                    "samples, wider extremes: at 500 Hz that keeps fixations whole). 0 switches "
@@ -155,9 +156,26 @@ _GROUP_TITLES = (("detection", "Fixation detection"), ("idt", "I-DT settings"), 
 #: values differ from the default
 FOLDED = ("tuning", "cleanup", "windows", "more", "processing")
 GAZE_SECTION_TITLE = "Gaze measurement"
-GAZE_NOTE = ("<b>Needs the clips processed again.</b> How the gaze is measured from the video: unlike the detection "
+GAZE_NOTE = ("<b>Takes effect when the clips are processed again.</b> How the gaze is measured from the video: unlike the detection "
              "settings above, a change here takes effect only when a clip is processed again (the face is tracked "
              "again, which takes about as long as the first time).")
+
+
+#: rows shown right after another row (the lower bounds of the adapted I-DT threshold together), not in the order
+#: of AnalysisParams's fields
+FOLLOWS = {"idt_noise_range_factor": "idt_min_dispersion_deg"}
+
+
+def _row_order(names) -> list[str]:
+    """The parameters in the order the panel shows them: AnalysisParams's order, each :data:`FOLLOWS` row moved
+    after the row it follows."""
+    out = []
+    for name in names:
+        if FOLLOWS.get(name) in names:
+            continue
+        out.append(name)
+        out += [n for n, after in FOLLOWS.items() if after == name and n in names]
+    return out
 
 
 class Section(QWidget):
@@ -322,7 +340,7 @@ class ParamsPanel(QWidget):
             form.setContentsMargins(6, 4, 6, 4)
             self._groups[key] = box
             forms[key] = form
-        for name, f in self._fields.items():  # noqa: B007
+        for name in _row_order(self._fields):
             default = self._defaults[name]
             spec = SPECS.get(name) or _guess_spec(name, default)
             if name == "detector":

@@ -822,6 +822,19 @@ PUPIL_MEASURED_TEXT = ("light irises 1.1-1.2 deg sample to sample at 16.6 px but
                        "their own noise figures showed")
 
 
+def usable_word(summary: dict) -> str:
+    """The verdict in one word, for lists of clips: "yes" (usable, and precise enough for fixation and saccade
+    measures), "partly" (usable, but its precision tier supports only the coarser features its verdict names),
+    "no" (not usable), "" (no verdict yet). A summary without a precision tier (from before tiers) reads "yes"
+    when usable."""
+    usable = summary.get("usable")
+    if usable is None:
+        return ""
+    if not usable:
+        return "no"
+    return "yes" if summary.get("precision_tier") in (None, PRECISION_TIERS[0][0]) else "partly"
+
+
 def _low_iris_contrast(summary: dict) -> bool:
     """Whether the clip's irises stand out too little from the whites of the eyes for the limbus fit
     (``iris_contrast_pct`` below :data:`MIN_IRIS_CONTRAST_PCT`; unknown is not low)."""
@@ -922,6 +935,8 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         elif s["precision_tier"] == PRECISION_TIERS[0][0]:  # located by the pupils: coarse at best
             s["precision_tier"], s["trusted_features"] = PRECISION_TIERS[1][0], list(PRECISION_TIERS[1][3])
     s["usable"], s["verdict"] = _verdict(s)
+    if usable_word(s) == "partly":  # usable, but not for fixation measures: the verdict's first word says so
+        s["verdict"] = "Partly usable:" + s["verdict"].removeprefix("Usable:")
     s["verdict"] += _trust_sentence(s)
     if ((meta.get("gaze_model") or {}).get("iris_estimate") or {}).get("used") == "appearance":
         s["verdict"] += (" The iris height was read from the eyes' own appearance over the whole clip, the method "

@@ -60,7 +60,7 @@ def _choose(window, name, value):
 def test_gaze_choices_are_plain_and_apart_from_detection(window):
     p = window.params
     sec = p.sections["gaze"]
-    assert sec.header.isChecked() and "Needs the clips processed again" in p.findChild(
+    assert sec.header.isChecked() and "Takes effect when the clips are processed again" in p.findChild(
         type(p.message), "gaze_note").text()
     assert sec.parent() is p.sections["detection"].parent() and sec.y() > p.sections["detection"].y()  # apart
     combo = p._gaze_combos["iris_combine"]

@@ -281,3 +281,70 @@ def test_the_bland_altman_title_prints_its_three_figures_alike():
     assert _same_decimals(-0.8, -2.35, 0.746) == ["-0.80", "-2.35", "0.75"]
     assert _same_decimals(31.2, -60.4, 122.3) == ["31", "-60", "122"]
     assert _same_decimals(0.0, -1e-15, 1e-15) == ["0.00", "0.00", "0.00"]  # no "-0.00"
+
+
+def test_clip_list_says_partly_usable_for_a_clip_too_unsteady_for_fixation_measures(qtbot, tmp_path):
+    """The Usable column reads the verdict in one word (aspectus.webcam.pipeline.usable_word): a clip whose precision
+    tier does not support fixation counts and durations is "partly", not "yes", and the word fits its column; the
+    clip view shows such a verdict in amber, not in the green of a clip usable for everything."""
+    from PySide6.QtCore import Qt
+
+    from aspectus.studies import project as study_mod
+    from ui.main_window import COL_USABLE, MainWindow
+
+    d = tmp_path / "study"
+    d.mkdir()
+    s = study_mod.new_study(path=d / "pilot.aspectus-study.json", name="Linden Brook reading pilot")
+    for stem in ("p01_s01", "p02_s01", "p03_s01"):
+        (d / f"{stem}.mp4").write_bytes(b"\0" * 64)  # never decoded here
+        s.add_clip(d / f"{stem}.mp4")
+    s.save()
+    w = MainWindow(worker_mode="thread")
+    w.quiet = True
+    qtbot.addWidget(w)
+    w.resize(1366, 768)
+    w.show()
+    try:
+        assert w.open_study(s.path)
+        summaries = {"p01_s01": {"usable": True, "precision_tier": "coarse",
+                                 "verdict": "Partly usable: face tracked in 100% of frames."},
+                     "p02_s01": {"usable": True, "precision_tier": "events", "verdict": "Usable: fine."},
+                     "p03_s01": {"usable": False, "precision_tier": "minimal", "verdict": "Not usable: too dark."}}
+        for c in w.study.clips:
+            c.summary = summaries[c.stem]
+        w._refresh_list()
+        col = {w.clip_list.topLevelItem(i).data(0, Qt.UserRole): w.clip_list.topLevelItem(i).text(COL_USABLE)
+               for i in range(w.clip_list.topLevelItemCount())}
+        assert col == {"p01_s01": "partly", "p02_s01": "yes", "p03_s01": "no"}
+        fm = w.clip_list.fontMetrics()
+        assert fm.horizontalAdvance("partly") + 8 <= w.clip_list.columnWidth(COL_USABLE)
+        assert "partly" in w.clip_list.headerItem().toolTip(COL_USABLE)
+        w.clip_view.set_summary(summaries["p01_s01"])
+        assert w.clip_view.verdict.text().startswith("<b>Partly usable:</b>")
+        assert "#b26a00" in w.clip_view.verdict.styleSheet()
+        w.clip_view.set_summary(summaries["p02_s01"])
+        assert "#2e7d32" in w.clip_view.verdict.styleSheet()
+    finally:
+        w.shutdown()
+
+
+def test_params_panel_labels_do_not_repeat_their_unit_and_the_thresholds_bounds_stand_together(qtbot):
+    """A label says what a value is and the box its unit ("Adapted threshold" | "3.5 × noise"), not both
+    ("… noise ×" | "3.5 × noise"); the two lower bounds of the adapted I-DT threshold are shown one under the other,
+    right after the threshold they bound, so that their "… but at least" / "… and at least" read on from it."""
+    from PySide6.QtWidgets import QFormLayout
+
+    from ui.params_panel import ParamsPanel
+
+    panel = ParamsPanel()
+    qtbot.addWidget(panel)
+    for name, spec in panel._specs.items():
+        text = panel._labels[name].text()
+        assert not text.rstrip().endswith("×"), (name, text)
+        if spec.unit.strip("× ") and len(spec.unit) > 1:
+            assert spec.unit.strip("× ") not in text, (name, text, spec.unit)
+    form = panel._groups["idt"].layout()
+    rows = [form.itemAt(i, QFormLayout.LabelRole).widget().objectName() for i in range(form.rowCount())]
+    at = rows.index("param_label_idt_noise_factor")
+    assert rows[at:at + 3] == ["param_label_idt_noise_factor", "param_label_idt_min_dispersion_deg",
+                               "param_label_idt_noise_range_factor"], rows

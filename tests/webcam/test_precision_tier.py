@@ -8,7 +8,7 @@ import pytest
 from _signals import same_eyes as _same_eyes
 
 from aspectus.events.detect.noise import SD_PER_RMS_S2S_WHITE
-from aspectus.webcam.pipeline import PRECISION_TIERS, precision_tier, summarise, tier_sd_limit_deg
+from aspectus.webcam.pipeline import PRECISION_TIERS, precision_tier, summarise, tier_sd_limit_deg, usable_word
 
 #: the SD of white noise whose RMS-S2S is ``noise`` (SD = RMS-S2S / sqrt(2): aspectus.events.detect.noise)
 _white = SD_PER_RMS_S2S_WHITE
@@ -51,11 +51,11 @@ def _samples(noise_deg, iris_px, n=300, seed=0):
                          "face_count": 1, "distance_mm": 600.0, "iris_diameter_px": iris_px})
 
 
-@pytest.mark.parametrize("noise, iris, tier, words", [
-    (0.3, 20.0, "events", "supports fixation and saccade measures"),
-    (0.3, 9.0, "coarse", "too low for fixation counts and durations"),
+@pytest.mark.parametrize("noise, iris, tier, words, head, word", [
+    (0.3, 20.0, "events", "supports fixation and saccade measures", "Usable:", "yes"),
+    (0.3, 9.0, "coarse", "too low for fixation counts and durations", "Partly usable:", "partly"),
 ])
-def test_summary_and_verdict_carry_the_tier(noise, iris, tier, words):
+def test_summary_and_verdict_carry_the_tier(noise, iris, tier, words, head, word):
     from aspectus.events.analysis import run_analysis
 
     smp = _samples(noise, iris)
@@ -65,6 +65,9 @@ def test_summary_and_verdict_carry_the_tier(noise, iris, tier, words):
     assert s["trusted_features"] == precision_tier(s["noise_rms_s2s_33ms_deg"], iris, s["noise_sd_deg"])[1]
     assert words in s["verdict"] and f"irises about {iris:.0f} px" in s["verdict"]
     assert f"SD {s['noise_sd_deg']:.2f} deg within fixations" in s["verdict"]
+    # a clip usable only for the coarser features does not open its verdict with a plain "Usable", and a list of
+    # clips says it in one word (the app's clip list)
+    assert s["usable"] is True and s["verdict"].startswith(head) and usable_word(s) == word
 
 
 @pytest.mark.parametrize("noise, sd, iris, tier, named, not_named", [
@@ -224,6 +227,7 @@ def test_the_verdict_reads_the_sd_too(sd, usable):
     q = {"valid_frac": 1.0, "noise_rms_s2s_deg": 1.2, "noise_rms_s2s_33ms_deg": 1.2, "noise_sd_deg": sd}
     s = summarise(smp, SimpleNamespace(events=pd.DataFrame({"type": []}), quality=q), {})
     assert s["noise_sd_deg"] == sd and s["usable"] is usable
+    assert usable_word(s) == ("partly" if usable else "no")
     assert s["precision_tier"] == ("minimal" if sd > 2.12 else "coarse")
     if usable:
         assert f"noise 1.20 deg sample to sample (over 33 ms steps), SD {sd:.2f} deg within fixations" in s["verdict"]
