@@ -21,7 +21,7 @@ def register(sub) -> None:
     p.add_argument("table", metavar="TABLE", help="gaze table (CSV/TSV/...) or aspectus samples table")
     p.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output folder")
     add_output_options(p)
-    add_table_arguments(p, title="columns of a gaze table (not needed for a aspectus samples table)")
+    add_table_arguments(p, title="columns of a gaze table (not needed for a samples table from aspectus process)")
     p.add_argument("--segments", metavar="CSV", help="task segments (label, onset_s, offset_s) for per-segment features")
     from aspectus.cli.process_cmd import add_analysis_arguments
 

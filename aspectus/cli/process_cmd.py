@@ -32,11 +32,15 @@ def register(sub) -> None:
                         "face to follow may not be among those reported)")
     p.add_argument("--segments", metavar="CSV", help="task segments (label, onset_s, offset_s) for per-segment features; applied to every clip")
     p.add_argument("--gaze", dest="gaze_settings", action="append", default=[], metavar="NAME=VALUE",
-                   help="a gaze-estimate parameter (aspectus.webcam.gaze.GazeParams), e.g. --gaze eye_anchors=false "
-                        "(repeatable; changes the samples, so landmarking runs again)")
+                   help="a choice of how the gaze is measured (repeatable), e.g. --gaze mirrored=true for clips "
+                        "recorded mirrored left to right, --gaze iris_combine=limbus; the choices are described in "
+                        "the README (What you get per clip) and in the app (Parameters, Gaze measurement), and "
+                        "run.json records them under params, gaze. A change alters the gaze samples, so the face is "
+                        "tracked again")
     add_analysis_arguments(p)
     p.add_argument("--no-reuse", action="store_true",
-                   help="redo landmarking even when OUTDIR holds samples from the same clip and parameters")
+                   help="track the face again even when OUTDIR holds gaze samples from the same clip and settings "
+                        "(by default they are reused, and only the detection and features are redone)")
     p.add_argument("--stages", choices=("overlapped", "serial"), default=None,
                    help="overlapped (default): decoding and the per-frame geometry run beside the face mesh, the "
                         "fastest for one clip on a machine of its own; serial: all in one thread on one core, the "
@@ -57,10 +61,16 @@ def add_analysis_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--detector", default=None, metavar="NAME",
                    help="event detector, one of: " + "; ".join(
                        f"{d} ({names.get(d, d)})" for d in DETECTORS) + f". Default: {default}")
-    p.add_argument("--window-s", type=float, default=None, help="length of the fixed feature windows in seconds")
-    p.add_argument("--step-s", type=float, default=None, help="step between feature windows in seconds")
+    d = AnalysisParams()
+    p.add_argument("--window-s", type=float, default=None, metavar="S",
+                   help=f"length of the fixed feature windows in seconds (default {d.window_s:g})")
+    p.add_argument("--step-s", type=float, default=None, metavar="S",
+                   help=f"start-to-start step between feature windows in seconds (default: the window length "
+                        f"- {d.step_s:g} - so windows lie side by side)")
     p.add_argument("--set", dest="settings", action="append", default=[], metavar="NAME=VALUE",
-                   help="any other analysis parameter, e.g. --set min_fixation_ms=80 (repeatable)")
+                   help="any other detection setting, e.g. --set min_fixation_ms=80 (repeatable); the names are "
+                        "listed when one is misspelt, and the app's Parameters panel shows each one's meaning when "
+                        "you hover over it")
 
 
 def analysis_params_from_args(args):
@@ -72,6 +82,7 @@ def analysis_params_from_args(args):
         d["detector"] = args.detector
     if getattr(args, "window_s", None) is not None:
         d["window_s"] = args.window_s
+        d["step_s"] = args.window_s  # --window-s alone: windows side by side, not the default step's gaps
     if getattr(args, "step_s", None) is not None:
         d["step_s"] = args.step_s
     for item in getattr(args, "settings", []) or []:

@@ -602,7 +602,7 @@ def analyse_table(path, out_dir, *, time_col: str | None = None, time_unit: str 
     if mapping is None and time_col is None:
         samples = _read_samples_file(path)
         if samples is None:
-            raise AspectusInputError("not a aspectus samples table (no t_s, valid, yaw_deg, pitch_deg columns)",
+            raise AspectusInputError("not a samples table from aspectus process (no t_s, valid, yaw_deg, pitch_deg columns)",
                                     path=path, hint="name the columns: --time-col T --x-col X --y-col Y "
                                     "[--units deg|px ...]")
         kind = "samples"

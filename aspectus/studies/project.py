@@ -442,7 +442,7 @@ def load_study(path: str | os.PathLike) -> Study:
         raise AspectusInputError(f"not valid JSON ({exc.msg})", path=path, where=f"line {exc.lineno}",
                                 hint="repair the file or open an older copy") from None
     if not isinstance(raw, dict) or raw.get("format") != STUDY_FORMAT:
-        raise AspectusInputError("not a aspectus study file", path=path,
+        raise AspectusInputError("not an aspectus study file", path=path,
                                 hint=f"a study file is JSON with \"format\": \"{STUDY_FORMAT}\"")
     version = raw.get("version")
     if not isinstance(version, int) or version > STUDY_VERSION:

@@ -189,3 +189,24 @@ def test_a_precision_figure_that_cannot_be_read_prints_n_a(tmp_path, capsys):
     printed = capsys.readouterr().out
     assert "nan" not in printed.lower(), printed
     assert "noise n/a RMS-S2S, 0.2" in printed and " deg SD within fixations" in printed, printed
+
+
+def test_window_length_alone_gives_windows_side_by_side(tmp_path):
+    """--window-s without --step-s: the windows follow one another (the default step is the default window length,
+    10 s; with 2 s windows it left 8 s between them, unseen in the features table)."""
+    from _signals import PLAN
+
+    df, _ = step_signal(rate_hz=30.0, plan=PLAN * 6)  # 14.2 s
+    src = tmp_path / "p02_s01.csv"
+    df[["t_s", "yaw_deg", "pitch_deg"]].to_csv(src, index=False)
+    out = tmp_path / "out"
+    cols = ["--time-col", "t_s", "--x-col", "yaw_deg", "--y-col", "pitch_deg", "--units", "deg"]
+    assert main(["events", str(src), "-o", str(out), "--window-s", "2", *cols]) == 0
+    w = pd.read_csv(out / "features.csv").query("scope == 'window'")
+    span = df["t_s"].iloc[-1] - df["t_s"].iloc[0]
+    assert len(w) >= int(span // 2) - 1 >= 5
+    assert np.allclose(np.diff(w["start_s"]), 2.0) and np.allclose(w["end_s"] - w["start_s"], 2.0)
+    # a step given as well is kept
+    assert main(["events", str(src), "-o", str(tmp_path / "o2"), "--window-s", "2", "--step-s", "1", *cols]) == 0
+    w = pd.read_csv(tmp_path / "o2" / "features.csv").query("scope == 'window'")
+    assert np.allclose(np.diff(w["start_s"]), 1.0)

@@ -119,7 +119,7 @@ def test_reference_mapping_remembered(folder):
 
 @pytest.mark.parametrize("content,match", [
     ("{not json", "not valid JSON"),
-    ('{"format": "something-else"}', "not a aspectus study"),
+    ('{"format": "something-else"}', "not an aspectus study"),
     ('{"format": "aspectus-study", "version": 99}', "newer than this aspectus"),
     ('{"format": "aspectus-study", "version": 1, "clips": [{"nopath": 1}]}', r"clips\[0\]"),
     ('{"format": "aspectus-study", "version": 1, "clips": {"a": 1}}', "'clips' should be list"),
