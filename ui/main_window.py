@@ -66,6 +66,22 @@ class _Provider:
         return self.win.study.output_root()
 
 
+def segments_summary(path, *, shown: int = 4) -> str:
+    """A segments file in a line: its name and the segments it holds, e.g. "segments_p01_s01.csv: 3 segments
+    (passage_1, passage_2, questions)", or its name and why it cannot be read."""
+    from aspectus.events.analysis import read_segments
+
+    name = Path(path).name
+    try:
+        segs = read_segments(path)
+    except (OSError, ValueError) as exc:  # AspectusInputError is a ValueError
+        return f"{name}: cannot be read - {getattr(exc, 'problem', None) or exc}"
+    labels = [str(x) for x in segs["label"]]
+    more = f", … {len(labels) - shown} more" if len(labels) > shown else ""
+    return (f"{name}: {len(labels)} segment{'' if len(labels) == 1 else 's'}"
+            + (f" ({', '.join(labels[:shown])}{more})" if labels else ""))
+
+
 class MainWindow(QMainWindow):
     """The aspectus desktop window.
 
@@ -821,7 +837,13 @@ class MainWindow(QMainWindow):
             return None
 
     def _show_segments_text(self, clip):
-        self.params.set_segments_text(clip.segments if clip else None, enabled=clip is not None)
+        """The clip's task segments in the parameters panel: the file's name and the segments it holds (the path
+        from the study file in the tooltip), or why it cannot be read."""
+        if clip is None or not clip.segments:
+            self.params.set_segments_text(None, enabled=clip is not None)
+            return
+        self.params.set_segments_text(segments_summary(self.study.resolve(clip.segments)),
+                                      tooltip=f"{clip.segments} (from the study file's folder)")
 
     def _seek_from_trace(self, t_s: float):
         self.clip_view.seek(t_s)

@@ -745,8 +745,9 @@ class ParamsPanel(QWidget):
             self._debounce.stop()
             self._emit_analysis()
 
-    def set_segments_text(self, text: str | None, *, enabled: bool = True) -> None:
+    def set_segments_text(self, text: str | None, *, enabled: bool = True, tooltip: str = "") -> None:
         self.segments_label.setText(text or "none")
+        self.segments_label.setToolTip(tooltip)
         self.segments_btn.setEnabled(enabled)
         self.segments_clear.setEnabled(enabled and bool(text))
 

@@ -348,3 +348,24 @@ def test_params_panel_labels_do_not_repeat_their_unit_and_the_thresholds_bounds_
     at = rows.index("param_label_idt_noise_factor")
     assert rows[at:at + 3] == ["param_label_idt_noise_factor", "param_label_idt_min_dispersion_deg",
                                "param_label_idt_noise_range_factor"], rows
+
+
+def test_the_parameters_panel_names_the_segments_file_and_its_segments(qtbot, tmp_path):
+    """Task segments of this clip: the file's name and the segments it holds (not a path climbing out of the study's
+    folder), the path in the tooltip, and a file that cannot be read says why."""
+    from ui.main_window import segments_summary
+    from ui.params_panel import ParamsPanel
+
+    f = tmp_path / "segments_p01_s01.csv"
+    f.write_text("label,onset_s,offset_s\npassage_1,0,8\npassage_2,8,15\nquestions,15,20\n")
+    assert segments_summary(f) == "segments_p01_s01.csv: 3 segments (passage_1, passage_2, questions)"
+    f.write_text("label,onset_s,offset_s\n" + "".join(f"page_{i},{i},{i + 1}\n" for i in range(6)))
+    assert segments_summary(f) == "segments_p01_s01.csv: 6 segments (page_0, page_1, page_2, page_3, … 2 more)"
+    f.write_text("label,start,end\nx,0,1\n")
+    text = segments_summary(f)
+    assert text.startswith("segments_p01_s01.csv: cannot be read - ") and "onset_s" in text, text
+    assert segments_summary(tmp_path / "gone.csv").startswith("gone.csv: cannot be read - ")
+    panel = ParamsPanel()
+    qtbot.addWidget(panel)
+    panel.set_segments_text("segments_p01_s01.csv: 1 segment (reading)", tooltip="../segs/segments_p01_s01.csv")
+    assert panel.segments_label.toolTip() == "../segs/segments_p01_s01.csv" and panel.segments_clear.isEnabled()
