@@ -156,9 +156,9 @@ _GROUP_TITLES = (("detection", "Fixation detection"), ("idt", "I-DT settings"), 
 #: values differ from the default
 FOLDED = ("tuning", "cleanup", "windows", "more", "processing")
 GAZE_SECTION_TITLE = "Gaze measurement"
-GAZE_NOTE = ("<b>Takes effect when the clips are processed again.</b> How the gaze is measured from the video: unlike the detection "
-             "settings above, a change here takes effect only when a clip is processed again (the face is tracked "
-             "again, which takes about as long as the first time).")
+GAZE_NOTE = ("<b>Takes effect when the clips are processed again.</b> How the gaze is measured from the video: "
+             "unlike the detection settings above, a change here means tracking the face again, which takes about "
+             "as long as the first time.")
 
 
 #: rows shown right after another row (the lower bounds of the adapted I-DT threshold together), not in the order

@@ -215,17 +215,17 @@ def summary_lines(doc: dict) -> list[str]:
     lines = [
         f"sequence starts at {f(s.get('start_s'), '{:.3f}')} s{f' ({how})' if how else ''}; "
         f"{s.get('n_targets_used', 0)} of {s.get('n_fixation_targets', 0)} still dots usable",
-        f"offset yaw {f(m.get('offset_yaw_deg'), '{:+.2f}')} deg, pitch {f(m.get('offset_pitch_deg'), '{:+.2f}')} deg; "
-        f"gain yaw {f(m.get('gain_yaw'))}, pitch {f(m.get('gain_pitch'))}",
-        f"accuracy {f(s.get('accuracy_offset_deg'))} deg after offset, {f(s.get('accuracy_offset_gain_deg'))} deg "
-        f"after offset+gain ({f(s.get('accuracy_offset_gain_loo_deg'))} leave-one-out; noise alone would give "
-        f"{f(s.get('accuracy_noise_floor_deg'))} deg)",
+        f"offset yaw {f(m.get('offset_yaw_deg'), '{:+.2f}')} deg, pitch {f(m.get('offset_pitch_deg'), '{:+.2f}')} deg "
+        f"(the constant error); gain yaw {f(m.get('gain_yaw'))}, pitch {f(m.get('gain_pitch'))} (1: the true scale)",
+        f"accuracy (mean angle between dot and gaze) {f(s.get('accuracy_offset_deg'))} deg after offset, "
+        f"{f(s.get('accuracy_offset_gain_deg'))} deg after offset+gain ({f(s.get('accuracy_offset_gain_loo_deg'))} "
+        f"with each dot left out of its own fit; noise alone would give {f(s.get('accuracy_noise_floor_deg'))} deg)",
         f"precision RMS-S2S {f(s.get('precision_rms_s2s_deg'))} deg, SD {f(s.get('precision_sd_deg'))} deg "
         f"({_of(s.get('n_targets_precision'), s.get('n_fixation_targets', 0))} still dots); "
         f"data loss {f(None if s.get('loss_frac') is None else 100 * s['loss_frac'], '{:.1f}')} %",
         f"fixations on dots {f(s.get('n_fixations_on_targets'), '{:.0f}')} (dots fixated "
         f"{f(s.get('n_targets_fixated'), '{:.0f}')} of {s.get('n_fixation_targets', 0)}); "
-        f"pursuit gain {f(s.get('pursuit_gain'))}",
+        f"pursuit gain {f(s.get('pursuit_gain'))} (gaze speed / speed of the moving dot; 1: keeps pace)",
     ]
     lines += [f"note: {x}" for x in doc.get("flags", [])]
     if doc.get("stale"):

@@ -46,6 +46,11 @@ def test_clip_view_shows_the_check(qtbot):
     assert not v.targets_info.isHidden()
     assert "gain yaw 0.58" in text and "0.80 deg after offset+gain" in text and "yaw gain 0.58 is outside" in text
     assert "sequence starts at 1.500 s (by its flash)" in text
+    # the terms are explained where they stand: offset, gain, accuracy, the left-out fit, pursuit gain
+    for words in ("(the constant error)", "(1: the true scale)", "accuracy (mean angle between dot and gaze)",
+                  "0.90 with each dot left out of its own fit", "pursuit gain 0.95 (gaze speed / speed of the moving dot"):
+        assert words in text, words
+    assert "leave-one-out" not in text
     # a figure the check could not measure reads "n/a", never "nan"
     doc["summary"]["pursuit_gain"] = float("nan")
     doc["mapping"]["gain_pitch"] = None
