@@ -160,7 +160,25 @@ def run(args) -> int:
         print(f"  failed: {rec.clip}: {rec.reason}", file=sys.stderr)
     if len(failed) > 20:
         print(f"  ... and {len(failed) - 20} more", file=sys.stderr)
+    verdicts = verdict_counts(res.status)
+    if verdicts:
+        print(verdicts)
     print(f"status: {res.paths['status']}\nstudy table: {res.paths['study_csv']}")
     if c["pending"]:
         return 130
     return 1 if c["failed"] else 0
+
+
+def verdict_counts(status) -> str:
+    """The processed clips' verdicts counted in a line (status.csv's ``usable`` and ``verdict``): how many are
+    usable for fixation measures, usable for the coarser features only ("Partly usable"), and not usable."""
+    if status is None or not len(status) or "usable" not in status or "verdict" not in status:
+        return ""
+    rows = status[status["status"].isin(("done", "skipped"))]
+    if not len(rows):
+        return ""
+    usable = rows["usable"].map(lambda v: v is True or str(v).lower() == "true")
+    partly = usable & rows["verdict"].fillna("").astype(str).str.startswith("Partly usable")
+    n_yes, n_partly, n_no = int((usable & ~partly).sum()), int(partly.sum()), int((~usable).sum())
+    return (f"verdicts: {n_yes} usable, {n_partly} partly usable (coarser features only), {n_no} not usable - the "
+            "verdict column of status.csv says why for each clip")

@@ -188,6 +188,14 @@ def test_cli_batch_manifest_labels_and_exit_codes(study_clips, tmp_path, capsys)
                  "--step-s", "0.5"]) == 1
     text = capsys.readouterr()
     assert "1 done, 0 skipped (already done), 1 failed" in text.out
+    # the processed clip's verdict is counted in words (the failed one has none)
+    import re
+
+    m = re.search(r"verdicts: (\d+) usable, (\d+) partly usable \(coarser features only\), (\d+) not usable", text.out)
+    assert m and sum(map(int, m.groups())) == 1, text.out
+    st = pd.read_csv(out / "status.csv").query("status == 'done'").iloc[0]
+    word = "not usable" if not st["usable"] else ("partly usable" if st["verdict"].startswith("Partly") else "usable")
+    assert int(m.group({"usable": 1, "partly usable": 2, "not usable": 3}[word])) == 1
     assert "p08_s01_notes.mp4" in text.err
     study = pd.read_csv(out / "study_features.csv")
     assert set(study["participant"]) == {"p01"} and set(study["school"]) == {"Linden Brook"}
