@@ -270,7 +270,8 @@ def withheld_reason(n: int, what: str = "windows", *, min_pairs: int = MIN_PAIRS
     more = ("shorter windows (--window-s; in the app: Feature window length), longer recordings, or several clips "
             "compared together (aspectus validate with a folder or manifest; in the app: Compare all clips)"
             if what == "windows" else "more participants")
-    return (f"Only {n} {what} could be paired. With fewer than {min_pairs}, correlations, ICCs and limits of "
+    shown = what.removesuffix("s") if n == 1 else what
+    return (f"Only {n} {shown} could be paired. With fewer than {min_pairs}, correlations, ICCs and limits of "
             f"agreement are too uncertain to mean anything (their 95 % intervals span most of the possible range), "
             f"so they are not shown; the full table (download) still has them. To get more: {more}.")
 
@@ -279,6 +280,10 @@ def withheld_reason(n: int, what: str = "windows", *, min_pairs: int = MIN_PAIRS
 _FORMAT_TEXT = {"BIDS eyetrack": "BIDS eye-tracking recording", "table": "table read with a column mapping"}
 _DETECTOR_TEXT = {"idt": "I-DT (dispersion threshold)", "ivt": "I-VT (velocity threshold)",
                   "i2mc": "I2MC (two-means clustering)"}
+
+
+def _plural(n: int, word: str) -> str:
+    return f"{n} {word}" + ("" if n == 1 else "s")
 
 
 def plain_reading(result) -> str:
@@ -425,7 +430,8 @@ body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;max-width:1100px;
 color:#222;line-height:1.45;font-size:15px}
 h1{font-size:1.5em}h2{font-size:1.2em;margin-top:1.6em;border-bottom:1px solid #ddd}
 table{border-collapse:collapse;font-size:0.87em;margin:0.5em 0 1.2em;max-width:100%}
-th,td{border:1px solid #ccc;padding:3px 6px;text-align:left;vertical-align:top;overflow-wrap:anywhere}
+th,td{border:1px solid #ccc;padding:3px 6px;text-align:left;vertical-align:top;overflow-wrap:break-word}
+table.facts td,table.compact td:last-child{overflow-wrap:anywhere}
 th{background:#f2f2f2;font-weight:600}td.num{text-align:right;white-space:nowrap}
 .ci{display:block;color:#555;font-size:0.85em;white-space:nowrap}
 table.facts td:first-child{white-space:nowrap;color:#444}
@@ -740,8 +746,9 @@ def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.Dat
     parts = [f"<!doctype html><html><head><meta charset='utf-8'>"
              f"<meta name='viewport' content='width=device-width, initial-scale=1'><title>Validation study</title>"
              f"<style>{_CSS}</style></head><body><h1>Webcam against lab eye tracker: study</h1>",
-             f"<p>{len(results)} pair(s) validated, {len(failures)} failed. Same detector and parameters on both "
-             f"sides ({html.escape(str(params.analysis.detector))}); windows of {params.window_length_s:g} s.</p>"]
+             f"<p>{_plural(len(results), 'pair')} validated, {len(failures)} failed. Same detector and parameters "
+             f"on both sides ({html.escape(_DETECTOR_TEXT.get(params.analysis.detector, str(params.analysis.detector)))}"
+             f"); windows of {params.window_length_s:g} s.</p>"]
     if failures:
         parts.append("<div class='note'><strong>Failed pairs</strong><ul>" + "".join(
             f"<li>{html.escape(k)}: {html.escape(v)}</li>" for k, v in failures.items()) + "</ul></div>")

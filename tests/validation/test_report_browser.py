@@ -113,6 +113,7 @@ def test_study_report_shows_the_known_target_check(reports):
     html = reports["study"].read_text()
     assert "Gaze quality on the known-target sequence" in html and "Exclusion rule" in html
     assert "yes: " in html and "yaw gain 0.60 outside 0.8-1.25" in html and html.count(">no check<") == 2
+    assert "3 pairs validated" in html and "both sides (I-DT (dispersion threshold))" in html and "pair(s)" not in html
 
 
 def test_figures_have_no_axis_offset(reports):
@@ -159,6 +160,24 @@ _OVERFLOW_JS = """() => {
   }
   return {scroll: document.documentElement.scrollWidth, client: w, wide: wide.slice(0, 5)};
 }"""
+#: cells whose longest word is wider than the cell's content (a word broken across lines, as "Stat / us" was in the
+#: study report's per-participant table); the facts table and a compact table's last column (paths, notes) may break
+_BROKEN_WORDS_JS = """() => {
+  const ctx = document.createElement('canvas').getContext('2d');
+  const bad = [];
+  for (const cell of document.querySelectorAll('th, td')) {
+    const table = cell.closest('table');
+    if (table.classList.contains('facts')) continue;
+    if (table.classList.contains('compact') && cell === cell.parentElement.lastElementChild) continue;
+    const st = getComputedStyle(cell);
+    ctx.font = st.fontWeight + ' ' + st.fontSize + ' ' + st.fontFamily;
+    const inner = cell.clientWidth - parseFloat(st.paddingLeft) - parseFloat(st.paddingRight);
+    for (const word of (cell.innerText || '').split(/\\s+/)) {
+      if (word && ctx.measureText(word).width > inner + 1) { bad.push(word + ' in ' + Math.round(inner) + ' px'); break; }
+    }
+  }
+  return bad.slice(0, 8);
+}"""
 _IMAGES_JS = "() => Array.from(document.images).map(i => [i.alt, i.complete && i.naturalWidth > 0])"
 
 
@@ -175,6 +194,8 @@ def test_report_fits_screen_and_a4_and_images_load(reports, which):
             assert images and all(ok for _alt, ok in images), images
             screen = page.evaluate(_OVERFLOW_JS)
             assert screen["scroll"] <= screen["client"] and not screen["wide"], screen
+            broken = page.evaluate(_BROKEN_WORDS_JS)
+            assert not broken, broken
             page.emulate_media(media="print")
             page.set_viewport_size({"width": A4_CONTENT_PX, "height": 1000})
             printed = page.evaluate(_OVERFLOW_JS)
