@@ -61,8 +61,11 @@ it still wanders. Hover over a figure for its definition.</p>
 <p>The <b>Parameters</b> panel on the right starts with the defaults, which suit webcam clips. Hover over a
 name to read what it does, its unit and its default. A value you changed is marked with a dot
 (&#9679;) and in bold; <b>Restore defaults</b> sets them all back. Changing a detection parameter re-runs
-detection at once from the saved gaze data; the processing settings at the bottom apply when clips are
-processed again.</p>
+detection at once from the saved gaze data. The <i>Gaze measurement</i> choices and the processing settings
+further down apply only when clips are processed again (the face is tracked again); after such a change the
+panel offers to process the affected clips. For clips recorded mirrored left to right, as many webcam programs
+show the picture, choose <i>mirrored left to right</i> under <i>The clips show the student</i> (Gaze
+measurement) before processing.</p>
 
 <h3>6. Features and export</h3>
 <p>The <b>Features</b> tab lists the features per clip, per fixed window and per task segment (fixation count

@@ -369,3 +369,18 @@ def test_the_parameters_panel_names_the_segments_file_and_its_segments(qtbot, tm
     qtbot.addWidget(panel)
     panel.set_segments_text("segments_p01_s01.csv: 1 segment (reading)", tooltip="../segs/segments_p01_s01.csv")
     assert panel.segments_label.toolTip() == "../segs/segments_p01_s01.csv" and panel.segments_clear.isEnabled()
+
+
+def test_the_guide_names_the_mirrored_choice_and_the_usable_words_as_the_app_shows_them():
+    """The guide's words for the mirrored-recording choice are the panel's own (aspectus.webcam.gaze.GAZE_CHOICES),
+    and its words for the clip list's Usable column are those usable_word gives."""
+    from aspectus.webcam.gaze import GAZE_CHOICE_OF
+    from ui.guide import guide_html
+
+    text = guide_html()
+    c = GAZE_CHOICE_OF["mirrored"]
+    assert f"<i>{c.label}</i>" in text
+    shown = [t for v, t, _ in c.options if v is True][0]
+    assert f"<i>{shown}</i>" in text.replace("\n", " ")
+    for word in ("yes", "partly", "no"):
+        assert f"<i>{word}</i>" in text
