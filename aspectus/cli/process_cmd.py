@@ -91,7 +91,7 @@ def analysis_params_from_args(args):
         k, v = item.split("=", 1)
         k = k.strip()
         if k not in d:
-            raise ParameterError(f"unknown analysis parameter {k!r}", hint="known: " + ", ".join(sorted(d)))
+            raise ParameterError(f"unknown analysis parameter {k!r}", hint=_did_you_mean(k, d))
         d[k] = _parse_value(v.strip(), d[k], k, "--set")
     try:
         return AnalysisParams.from_dict(d)
@@ -122,9 +122,17 @@ def gaze_params_from_args(args):
             raise ParameterError(f"--gaze {item!r} is not NAME=VALUE")
         k, v = (x.strip() for x in item.split("=", 1))
         if k not in d:
-            raise ParameterError(f"unknown gaze parameter {k!r}", hint="known: " + ", ".join(sorted(d)))
+            raise ParameterError(f"unknown gaze parameter {k!r}", hint=_did_you_mean(k, d))
         d[k] = _parse_value(v, d[k], k, "--gaze")
     return GazeParams(**d)
+
+
+def _did_you_mean(name: str, known) -> str:
+    """The hint for a misspelt parameter name: the closest known names first, then all of them."""
+    import difflib
+
+    close = difflib.get_close_matches(name, list(known), n=3, cutoff=0.6)
+    return (f"did you mean {' or '.join(close)}? " if close else "") + "known: " + ", ".join(sorted(known))
 
 
 def _parse_value(v: str, like, name: str, option: str):
@@ -132,7 +140,8 @@ def _parse_value(v: str, like, name: str, option: str):
     from aspectus.errors import ParameterError
 
     def refuse(expected):
-        return ParameterError(f"{option} {name}={v!r}: expected {expected}", hint=f"e.g. {option} {name}={like!r}"
+        shown = str(like).lower() if isinstance(like, bool) else like  # as typed on the command line
+        return ParameterError(f"{option} {name}={v!r}: expected {expected}", hint=f"e.g. {option} {name}={shown}"
                               if like is not None else None)
 
     if isinstance(like, bool):

@@ -210,3 +210,21 @@ def test_window_length_alone_gives_windows_side_by_side(tmp_path):
     assert main(["events", str(src), "-o", str(tmp_path / "o2"), "--window-s", "2", "--step-s", "1", *cols]) == 0
     w = pd.read_csv(tmp_path / "o2" / "features.csv").query("scope == 'window'")
     assert np.allclose(np.diff(w["start_s"]), 1.0)
+
+
+@pytest.mark.parametrize("argv, said", [
+    (["--set", "min_fixaton_ms=80"], "unknown analysis parameter 'min_fixaton_ms' - did you mean min_fixation_ms"),
+    (["--set", "smoothing_window=100"], "did you mean smoothing_window_ms"),
+    (["--set", "edge_speed_low_rates=maybe"], "expected true or false - e.g. --set edge_speed_low_rates=false"),
+])
+def test_a_misspelt_setting_is_answered_with_the_nearest_names(tmp_path, capsys, argv, said):
+    """A mistyped --set names the closest parameters first (then all of them), and a bad true/false value is
+    answered with an example as it would be typed, not Python's False."""
+    df, _ = step_signal(rate_hz=30.0)
+    src = tmp_path / "p02_s01.csv"
+    df[["t_s", "yaw_deg", "pitch_deg"]].to_csv(src, index=False)
+    rc = main(["events", str(src), "-o", str(tmp_path / "out"), "--time-col", "t_s", "--x-col", "yaw_deg",
+               "--y-col", "pitch_deg", "--units", "deg"] + argv)
+    err = capsys.readouterr().err
+    assert rc == 2 and said in err, err
+    assert "False" not in err
