@@ -127,6 +127,10 @@ def gaze_params_from_args(args):
     return GazeParams(**d)
 
 
+def _count(n, word: str) -> str:
+    return f"{n} {word}" + ("" if n == 1 else "s")
+
+
 def _did_you_mean(name: str, known) -> str:
     """The hint for a misspelt parameter name: the closest known names first, then all of them."""
     import difflib
@@ -270,7 +274,7 @@ def run(args) -> int:
         # the two noise figures the verdict and the precision tier read (RMS over 33 ms steps, SD within fixations), as
         # the app shows them
         print(f"{clip.name}: {s['frames']} frame{'' if s['frames'] == 1 else 's'} ({s['duration_s']:.1f} s), face found {s['face_found_frac']:.0%}, "
-              f"{s['blink_count']} blinks, {s['fixation_count']} fixations, median distance "
+              f"{_count(s['blink_count'], 'blink')}, {_count(s['fixation_count'], 'fixation')}, median eye-to-camera distance "
               f"{_num(s['median_distance_mm'], '.0f', 'mm')}, noise {_num(s.get('noise_rms_s2s_33ms_deg'), '.2f', 'deg')} "
               f"sample to sample, SD {_num(s.get('noise_sd_deg'), '.2f', 'deg')} within fixations -> {res.out_dir}")
         print(f"  {s['verdict']}")

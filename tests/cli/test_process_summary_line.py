@@ -27,6 +27,7 @@ def test_the_printed_noise_is_the_verdicts(monkeypatch, tmp_path, capsys):
     assert "SD 0.48 deg" in line, line  # the tier's second figure (SD within fixations) beside it
     # each figure says what it measures, so the two are not read as one noise and its SD
     assert "noise 0.57 deg sample to sample, SD 0.48 deg within fixations" in line, line
+    assert "2 blinks, 20 fixations, median eye-to-camera distance 600 mm" in line, line  # which distance it is
 
 
 def test_a_clip_without_the_figure_prints_no_number(monkeypatch, tmp_path, capsys):
