@@ -64,10 +64,11 @@ def draw_trace(fig, data: TraceData | None, xlim: tuple[float, float], empty_tex
     from matplotlib.collections import PolyCollection
     from matplotlib.patches import Patch
 
-    fig.subplots_adjust(left=0.075, right=0.99, top=0.9, bottom=0.17, hspace=0.1)
+    fig.subplots_adjust(left=0.11, right=0.99, top=0.9, bottom=0.17, hspace=0.1)
     ax_y = fig.add_subplot(2, 1, 1)
     ax_p = fig.add_subplot(2, 1, 2, sharex=ax_y)
-    for ax, name in ((ax_y, "yaw (°)"), (ax_p, "pitch (°)")):
+    # the sign convention on the axis itself (aspectus.schema: yaw > 0 is the student's right, pitch > 0 is up)
+    for ax, name in ((ax_y, "yaw (°)\n+ right"), (ax_p, "pitch (°)\n+ up")):
         ax.set_ylabel(name, fontsize=8)
         ax.tick_params(labelsize=7)
         ax.grid(True, color="#e6e6e6", lw=0.6)

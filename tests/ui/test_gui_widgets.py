@@ -384,3 +384,32 @@ def test_the_guide_names_the_mirrored_choice_and_the_usable_words_as_the_app_sho
     assert f"<i>{shown}</i>" in text.replace("\n", " ")
     for word in ("yes", "partly", "no"):
         assert f"<i>{word}</i>" in text
+
+
+def test_the_gaze_trace_says_which_way_is_positive_and_its_labels_fit():
+    """The trace's axes name the sign convention of aspectus.schema (yaw > 0: the student's right; pitch > 0: up),
+    and the two-line labels stay inside the figure at the app's trace size (about 640 x 230 px)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import numpy as np
+    import pandas as pd
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from aspectus.schema import column
+    from ui.time_view import TraceData, draw_trace
+
+    assert "right" in column("yaw_deg").doc and "up" in column("pitch_deg").doc
+    t = np.arange(300) / 30.0
+    s = pd.DataFrame({"t_s": t, "valid": True, "yaw_deg": 8 * np.sin(t), "pitch_deg": 4 * np.cos(t)})
+    fig = Figure(figsize=(6.4, 2.3), dpi=100)
+    FigureCanvasAgg(fig)
+    draw_trace(fig, TraceData.from_frames(s, None, None), (0.0, 10.0))
+    fig.canvas.draw()
+    ax_y, ax_p = fig.axes[:2]
+    assert ax_y.get_ylabel() == "yaw (°)\n+ right" and ax_p.get_ylabel() == "pitch (°)\n+ up"
+    renderer = fig.canvas.get_renderer()
+    for ax in (ax_y, ax_p):
+        box = ax.yaxis.label.get_window_extent(renderer)
+        assert box.x0 >= 0 and box.y0 >= 0 and box.y1 <= fig.bbox.height, (ax.get_ylabel(), box)
