@@ -801,7 +801,7 @@ class MainWindow(QMainWindow):
                 samples = load_samples(out)
                 events = read_events(out)
             except Exception as exc:  # noqa: BLE001 - a damaged cache is reported, never a crash
-                note = f"The cached results of {stem} cannot be read: {exc}"
+                note = f"The saved results of {stem} cannot be read: {exc}"
         if seg is not None:
             try:
                 from aspectus.events.analysis import read_segments

@@ -322,7 +322,7 @@ class ParamsPanel(QWidget):
         inner = QWidget()
         v = QVBoxLayout(inner)
         v.setContentsMargins(2, 2, 2, 2)
-        intro = QLabel("Detection settings re-run at once on the cached gaze samples; gaze measurement and "
+        intro = QLabel("Detection settings re-run at once on the saved gaze samples; gaze measurement and "
                        "processing settings (further down) need the clips processed again. "
                        f"{CHANGED_MARK.strip()} marks a value that differs from the default; hover over a name "
                        "for what it does.")

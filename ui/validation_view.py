@@ -16,6 +16,7 @@ view shows the summary table. It shows its progress and can be cancelled.
 """
 from __future__ import annotations
 
+import html
 import threading
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -31,6 +32,14 @@ from aspectus.studies import project as study_mod
 from . import theme
 from .plot_canvas import PlotCanvas
 from .results_view import DataFrameModel
+
+
+def offset_words(offset_s: float) -> str:
+    """The clock offset in words: which recording started first and by how much, then the figure as the library
+    defines it (the clip time of the reference's first sample)."""
+    when = "before" if offset_s < 0 else "after"
+    return (f"the lab tracker started {abs(offset_s):.3f} s {when} the webcam (its recording starts at "
+            f"{offset_s:+.3f} s on the clip's clock)")
 
 
 @dataclass
@@ -196,8 +205,8 @@ class ValidationView(QWidget):
             if saved is not None and saved.get("reference") == ref:
                 self.saved_outcome = saved
                 self.offset_label.setText(
-                    f"<b>Earlier comparison</b> ({saved.get('saved_at', '')}): the reference recording starts at "
-                    f"{saved['offset_s']:+.3f} s on the clip's clock. {saved.get('offset_note', '')} "
+                    f"<b>Earlier comparison</b> ({saved.get('saved_at', '')}): {offset_words(saved['offset_s'])}. "
+                    f"{saved.get('offset_note', '')} "
                     "Press Compare to compute it again (and to export the report).")
                 self._show_table(saved["table"])
                 self._show_pairs(saved["pairs"])
@@ -409,8 +418,7 @@ class ValidationView(QWidget):
         if self.clip is None or self.clip.stem != key:
             return
         self.outcome = outcome
-        self.offset_label.setText(f"<b>Alignment:</b> the reference recording starts at "
-                                  f"{outcome.offset_s:+.3f} s on the clip's clock. {outcome.offset_note}")
+        self.offset_label.setText(f"<b>Alignment:</b> {offset_words(outcome.offset_s)}. {outcome.offset_note}")
         self._show_table(outcome.table)
         self._show_pairs(outcome.pairs)
         self._draw()
@@ -505,11 +513,14 @@ class ValidationView(QWidget):
         self.study_btn.setEnabled(self.study is not None and self._study_cancel is None)
         if not has_clip:
             self.ref_label.setText("Select a clip to compare it with a reference recording.")
+            self.ref_label.setToolTip("")
         elif ref is None:
             self.ref_label.setText(f"No reference recording chosen for {c.stem}.")
+            self.ref_label.setToolTip("")
         else:
             what = "BIDS eye-tracking recording" if ref.kind == "bids" else "gaze table"
-            self.ref_label.setText(f"Reference for {c.stem}: <b>{ref.path}</b> ({what}).")
+            self.ref_label.setText(f"Reference for {c.stem}: <b>{html.escape(Path(ref.path).name)}</b> ({what}).")
+            self.ref_label.setToolTip(f"{ref.path} (from the study file's folder)")
         if not self.status.text().startswith(("The comparison", "The study comparison")):
             self.status.setStyleSheet("")
 

@@ -407,6 +407,10 @@ def test_validation_tab_compares_with_reference_and_exports_report(qtbot, window
     qtbot.waitUntil(lambda: bool(ended), timeout=120_000)
     assert vv.outcome is not None, vv.status.text()
     assert "starts at" in vv.offset_label.text() and "-0.400" in vv.offset_label.text()
+    assert "the lab tracker started 0.400 s before the webcam" in vv.offset_label.text()  # which came first
+    # the reference is named by its file; where it lies (from the study file) is in the tooltip
+    assert f"<b>{bids.name}</b>" in vv.ref_label.text()
+    assert window.current_clip().reference.path in vv.ref_label.toolTip()
     assert vv.outcome.offset_s == pytest.approx(-0.4)
     assert vv.model.rowCount() == len(vv.outcome.table)
     qtbot.waitUntil(vv.canvas.is_current, timeout=30_000)
