@@ -201,8 +201,8 @@ def _frame_quantum_ms(d: np.ndarray) -> float | None:
     return q if q >= 5.0 and np.all(np.abs(k - np.round(k)) < 0.05) else None
 
 
-def draw_histogram(fig, durations_ms: np.ndarray):
-    """Fixation-duration histogram (runs in the drawing thread)."""
+def draw_histogram(fig, durations_ms: np.ndarray, what: str = ""):
+    """Fixation-duration histogram (runs in the drawing thread); ``what`` says whose fixations, in the title."""
     from matplotlib.ticker import MaxNLocator
 
     fig.subplots_adjust(left=0.16, right=0.97, top=0.9, bottom=0.15)
@@ -227,10 +227,10 @@ def draw_histogram(fig, durations_ms: np.ndarray):
         ax.axvline(med, color=theme.CURSOR_COLOUR, lw=1.2)
         ax.text(med, 0.97, f" median {med:.0f} ms", transform=ax.get_xaxis_transform(), va="top", ha="left",
                 fontsize=8, color=theme.CURSOR_COLOUR)
-        ax.set_title(f"Fixation durations (n = {len(d)})", fontsize=9)
+        ax.set_title(f"Fixation durations{', ' + what if what else ''} (n = {len(d)})", fontsize=9)
     else:
         ax.text(0.5, 0.5, "No fixations to show", ha="center", va="center", transform=ax.transAxes, color="#555")
-        ax.set_title("Fixation durations", fontsize=9)
+        ax.set_title(f"Fixation durations{', ' + what if what else ''}", fontsize=9)
     ax.set_xlabel("fixation duration (ms)", fontsize=8)
     ax.set_ylabel("count", fontsize=8)
     ax.tick_params(labelsize=7)
@@ -307,6 +307,7 @@ class ResultsView(QWidget):
         lay.addWidget(self.caveat_label)
         lay.addWidget(split, 1)
         self.n_histogram_fixations = 0
+        self.histogram_what = ""  # whose fixations the histogram counts, as its title says
         self.refresh()
 
     # ----------------------------------------------------------------- API
@@ -387,11 +388,15 @@ class ResultsView(QWidget):
 
     def _draw_histogram(self):
         durations = []
+        what = ""
         if self.provider is not None:
             clips = self.provider.clips()
+            # the histogram takes every fixation of the whole clip(s), whichever rows the table shows
+            what = f"{len(clips)} processed clips, whole clips" if len(clips) != 1 else "the processed clip, whole"
             if self.clips_box.currentData() == "current":
                 cur = self.provider.current()
                 clips = [c for c in clips if c[0] == cur]
+                what = f"{cur}, whole clip" if cur else ""
             for name, out_dir, _s in clips:
                 _f, ev = self._clip_tables(name, out_dir)
                 if ev is not None and len(ev):
@@ -399,7 +404,8 @@ class ResultsView(QWidget):
         d = np.concatenate(durations) if durations else np.empty(0)
         d = d[np.isfinite(d)]
         self.n_histogram_fixations = int(len(d))
-        self.canvas.plot(draw_histogram, d)
+        self.histogram_what = what
+        self.canvas.plot(draw_histogram, d, what)
 
     def export(self, path) -> Path:
         """Write the shown table; ``.parquet`` writes Parquet, anything else CSV."""

@@ -329,6 +329,10 @@ def test_export_tables(qtbot, window, processed, tmp_path):
     verdict = rv.model.index(0, list(q.columns).index("verdict"))
     assert rv.model.data(verdict, Qt.ToolTipRole) == q["verdict"].iloc[0]
     assert rv.n_histogram_fixations > 0
+    # the histogram says whose fixations it counts: every fixation of the whole clips, whatever rows are listed
+    assert rv.histogram_what == "2 processed clips, whole clips"
+    rv.clips_box.setCurrentIndex(rv.clips_box.findData("current"))
+    qtbot.waitUntil(lambda: rv.histogram_what == "p01_s01, whole clip", timeout=10_000)
     qtbot.waitUntil(rv.canvas.is_current, timeout=20_000)
     assert rv.canvas.image() is not None
 

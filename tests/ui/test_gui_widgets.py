@@ -99,8 +99,9 @@ def test_duration_histogram_counts_whole_fixations_and_labels_the_overflow_bar()
     d = np.round(rng.gamma(4.0, 60.0, size=199) / frame_ms).clip(2) * frame_ms  # whole frames, 30 fps
     d = np.append(d, 40 * frame_ms)  # one far longer fixation, past the 99th percentile
     fig = Figure()
-    assert draw_histogram(fig, d) == len(d)
+    assert draw_histogram(fig, d, "p01_s01, whole clip") == len(d)
     ax = fig.axes[0]
+    assert ax.get_title() == f"Fixation durations, p01_s01, whole clip (n = {len(d)})"
     fig.canvas.draw()
     ticks = [t for t in ax.get_yticks() if ax.get_ylim()[0] <= t <= ax.get_ylim()[1]]
     assert ticks and all(float(t).is_integer() for t in ticks)
