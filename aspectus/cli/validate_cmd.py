@@ -186,6 +186,15 @@ def _run_folders(args, params, screen, mapping) -> int:
     return _report_study(res)
 
 
+def _f(v) -> str:
+    """A figure with two decimals, "n/a" where it could not be computed (never "nan")."""
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return "n/a"
+    return f"{v:.2f}" if v == v and abs(v) != float("inf") else "n/a"
+
+
 def pair_summary_lines(r) -> list[str]:
     """What the terminal says after one pair: how the clocks were aligned, the headline agreement figures (each
     named in words, with its scale), and where the report is."""
@@ -200,8 +209,8 @@ def pair_summary_lines(r) -> list[str]:
     if al.method != "user" and not al.method.startswith("marker"):
         clocks += f"; confidence {al.confidence:.2f} on a 0-1 scale: {confidence_words(al.confidence)}"
     lines = [clocks + ")."]
-    agree = (f"Agreement: fixation labels sample by sample kappa {r.events['kappa']:.2f} (0: chance, 1: complete); "
-             f"fixation onsets found by both F1 {r.events['f1']:.2f} (1: all matched)")
+    agree = (f"Agreement: fixation labels sample by sample kappa {_f(r.events.get('kappa'))} (0: chance, 1: complete); "
+             f"fixation onsets found by both F1 {_f(r.events.get('f1'))} (1: all matched)")
     fc = ag[(ag["scope"] == "window") & (ag["feature"] == "fixation_count")] if len(ag) else ag
     if len(fc):
         n = int(fc["n"].iloc[0])
@@ -212,7 +221,7 @@ def pair_summary_lines(r) -> list[str]:
         elif n < MIN_PAIRS:  # as the report and the app: too few pairs for r, ICC and limits to mean anything
             agree += f"; {per}: {n} windows, too few for r and ICC (at least {MIN_PAIRS})"
         else:
-            agree += f"; {per} r {fc['pearson_r'].iloc[0]:.2f}, ICC {fc['icc'].iloc[0]:.2f} ({n} windows)"
+            agree += f"; {per} r {_f(fc['pearson_r'].iloc[0])}, ICC {_f(fc['icc'].iloc[0])} ({n} windows)"
     lines.append(agree + ".")
     lines.append(f"Report (open in a browser): {r.paths['report']}")
     return lines

@@ -228,3 +228,4 @@ def test_a_misspelt_setting_is_answered_with_the_nearest_names(tmp_path, capsys,
     err = capsys.readouterr().err
     assert rc == 2 and said in err, err
     assert "False" not in err
+
