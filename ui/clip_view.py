@@ -72,6 +72,12 @@ def noise_tooltip(summary: dict) -> str:
             + _limits())
 
 
+#: what the picture says without a clip: with clips in the study, and in a study without any
+SELECT_CLIP_TEXT = "Select a clip in the list to see it here."
+NO_CLIPS_TEXT = ("No clips yet: add recordings with Add clips… or Add folder…, or drop video files on this window.\n"
+                 "Help → User guide walks through a pilot study.")
+
+
 class FrameLoader(QObject):
     """Decodes the frame at a requested time in a worker thread; only the newest request counts.
 
@@ -289,7 +295,7 @@ class ClipView(QWidget):
         self.loader.opened.connect(self._on_opened)
         self.loader.failed.connect(self._on_failed)
 
-        self.picture = QLabel("Select a clip in the list to see it here.")
+        self.picture = QLabel(NO_CLIPS_TEXT)  # the app starts with an empty study
         self.picture.setAlignment(Qt.AlignCenter)
         self.picture.setMinimumSize(320, 180)
         self.picture.setSizePolicy(QSizePolicy.Ignored, QSizePolicy.Ignored)
@@ -441,9 +447,11 @@ class ClipView(QWidget):
             self.check_status.setStyleSheet("color: #b00020;" if error else "color: #555;")
 
     def set_clip(self, clip_path, *, samples: pd.DataFrame | None = None, summary: dict | None = None,
-                 fov_deg: float = 60.0, position_s: float = 0.0, failure: str | None = None) -> None:
-        """Show a clip; ``samples`` (the cached samples table) supplies frame times, gaze and head position;
-        ``failure`` is the message of a processing that failed (shown in plain words: what, why, what to do)."""
+                 fov_deg: float = 60.0, position_s: float = 0.0, failure: str | None = None,
+                 empty_text: str = SELECT_CLIP_TEXT) -> None:
+        """Show a clip; ``samples`` (the saved samples table) supplies frame times, gaze and head position;
+        ``failure`` is the message of a processing that failed (shown in plain words: what, why, what to do);
+        ``empty_text`` is what the picture says without a clip."""
         self.pause()
         self._clip_path = Path(clip_path) if clip_path is not None else None
         if failure:
@@ -464,7 +472,7 @@ class ClipView(QWidget):
             self.loader.open(None)
             self._img = None
             self.picture.setPixmap(QPixmap())
-            self.picture.setText("Select a clip in the list to see it here.")
+            self.picture.setText(empty_text)
             return
         if self._failure is not None:  # shown until (unless) a frame of the video can be shown after all
             self.picture.setPixmap(QPixmap())

@@ -42,6 +42,8 @@ USABLE_TIP = ("The verdict on the clip's quality - yes: fixation and saccade mea
 #: a clip's status is shown by its progress bar: the status in words, the percentage while it processes (one
 #: column fewer at 1366 px)
 COL_PROGRESS = COL_STATUS
+#: what the gaze trace says while no clip is selected
+NO_CLIP_TRACE_TEXT = "The selected clip's gaze over time is shown here."
 
 
 class _Provider:
@@ -141,6 +143,8 @@ class MainWindow(QMainWindow):
         self._update_title()
         self._refresh_list()
         self._update_actions()
+        if self.current_clip() is None:
+            self._show_clip(None)  # the empty study's views say how to begin, not "process the clip"
 
     # ============================================================== layout
     def _build(self):
@@ -736,10 +740,13 @@ class MainWindow(QMainWindow):
         self._current_events = None
         self._load_gen += 1
         if clip is None:
-            self.clip_view.set_clip(None)
+            from .clip_view import NO_CLIPS_TEXT, SELECT_CLIP_TEXT
+
+            self.clip_view.set_clip(None, empty_text=SELECT_CLIP_TEXT if self.study.clips else NO_CLIPS_TEXT)
             self.clip_view.set_iris_estimate(None)
             self.clip_view.set_check_state(available=False, message="")
-            self.time_view.set_data(None)
+            self.clip_view.verdict.setText("")  # no clip: nothing to process yet, so no "process the clip" either
+            self.time_view.set_data(None, empty_text=NO_CLIP_TRACE_TEXT)
             self.clip_message.hide()
             self.params.set_segments_text(None, enabled=False)
             self.results_view.refresh()

@@ -95,8 +95,19 @@ def processed(tmp_path_factory, tiny_clips):
 
 
 def test_process_study_to_completion(qtbot, window, tiny_clips, tmp_path):
+    # a new window's empty study says how to begin, where the video would be
+    from ui.clip_view import NO_CLIPS_TEXT, SELECT_CLIP_TEXT
+
+    assert not window.study.clips and window.clip_view.picture.text() == NO_CLIPS_TEXT
+    from ui.main_window import NO_CLIP_TRACE_TEXT
+
+    assert window.time_view.empty_text == NO_CLIP_TRACE_TEXT and "process" not in window.clip_view.verdict.text()
+    assert "Add clips" in NO_CLIPS_TEXT and "User guide" in NO_CLIPS_TEXT
     path = _make_study(tmp_path, tiny_clips, ["p01_s01"])
     assert window.open_study(path)
+    window.clip_list.setCurrentItem(None)
+    assert window.clip_view.picture.text() == SELECT_CLIP_TEXT  # clips there, none selected
+    window.select_clip("p01_s01")
     outcome = _run(qtbot, window)
     assert outcome == {"p01_s01": "done"}
     c = window.study.find("p01_s01")
