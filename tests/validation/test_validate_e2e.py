@@ -77,50 +77,66 @@ def _trajectory(rec: pd.DataFrame) -> Trajectory:
                       params={"rate_hz": 240.0, "duration_s": float(t[-1])})
 
 
-def render_lund_clip(lund_dir, clip) -> None:
-    """Render the clip whose eyes follow the recordings (called in a fresh interpreter by the test)."""
+def render_lund_clip(lund_dir, clip, seed=1) -> None:
+    """Render the clip whose eyes follow the recordings (called in a fresh interpreter by the test); ``seed``
+    draws the renderer's head motion, noise and lighting."""
     from aspectus.synth.render import render_clip
 
     rec, _ = _lund_recording(Path(lund_dir))
-    render_clip(Path(clip), _trajectory(rec), size_px=(960, 540), fps=30.0, seed=1)
+    render_clip(Path(clip), _trajectory(rec), size_px=(960, 540), fps=30.0, seed=int(seed))
 
 
-def _render_in_fresh_interpreter(lund_dir, clip) -> None:
+def _render_in_fresh_interpreter(lund_dir, clip, seed=1) -> None:
     # Rendered in a fresh interpreter, so that the test's input cannot depend on which tests ran before
     # it (it once did: libx264's AVX-512 code read unwritten memory - aspectus.synth.clip_writer.x264_options).
     code = ("import sys; sys.path[:0] = [sys.argv[1], sys.argv[1] + '/..']; from test_validate_e2e import render_lund_clip; "
-            "render_lund_clip(sys.argv[2], sys.argv[3])")
-    r = subprocess.run([sys.executable, "-c", code, str(Path(__file__).parent), str(lund_dir), str(clip)],
+            "render_lund_clip(sys.argv[2], sys.argv[3], int(sys.argv[4]))")
+    r = subprocess.run([sys.executable, "-c", code, str(Path(__file__).parent), str(lund_dir), str(clip), str(seed)],
                        capture_output=True, text=True, timeout=1200)
     assert r.returncode == 0, r.stderr[-2000:]
 
 
-@pytest.mark.slow
-def test_rendered_clip_following_lund_recordings(lund_dir, tmp_path):
-    from aspectus.webcam.pipeline import process_clip
-    from aspectus.validation.pair import ValidateParams, validate_pair
-    from aspectus.events.analysis import AnalysisParams
-
-    rec, screen = _lund_recording(lund_dir)
-    clip = tmp_path / "p01_s01_lund.mp4"
-    _render_in_fresh_interpreter(lund_dir, clip)
-    proc = process_clip(clip, tmp_path / "out" / clip.stem)
-    assert proc.summary["valid_frac"] > 0.8
-
+def write_reference(lund_dir, folder) -> Path:
+    """The recordings as one BIDS eye-tracking file starting LEAD_S before the clip; returns its physio path."""
+    rec, screen = _lund_recording(Path(lund_dir))
     x_px, y_px = screen.deg_to_px(rec["yaw_deg"], rec["pitch_deg"])
     table = pd.DataFrame({"timestamp": np.round(rec["t_s"].to_numpy() * 1e6 + 2.5e9),
                           "x_coordinate": np.where(rec["valid"], x_px, np.nan),
                           "y_coordinate": np.where(rec["valid"], y_px, np.nan)})
-    bids = write_bids_physio(tmp_path / "lab", table, base="sub-p01_ses-s01_task-images", sampling_frequency_hz=500.0,
-                             screen=screen, timestamp_unit="us")
-    out = tmp_path / "validation"
-    # the default detector (noise-adaptive I-DT), as a user would run it, on both sides
-    params = ValidateParams(analysis=AnalysisParams(window_s=2.0, step_s=2.0))
-    r = validate_pair(tmp_path / "out" / clip.stem, bids["physio"], out, params=params)
+    bids = write_bids_physio(Path(folder) / "lab", table, base="sub-p01_ses-s01_task-images",
+                             sampling_frequency_hz=500.0, screen=screen, timestamp_unit="us")
+    return bids["physio"]
+
+
+def process_and_validate(clip, folder, physio, params=None):
+    """Process the rendered clip (``params``: ProcessParams, the defaults when None) into ``folder``/out and
+    validate it against ``physio`` into ``folder``/validation with the default detector (noise-adaptive I-DT,
+    as a user would run it, on both sides) over 2-s windows. Returns (process result, alignment dict,
+    per-window fixation-count agreement row, validation result, validation folder)."""
+    from aspectus.events.analysis import AnalysisParams
+    from aspectus.validation.pair import ValidateParams, validate_pair
+    from aspectus.webcam.pipeline import process_clip
+
+    clip, folder = Path(clip), Path(folder)
+    proc = process_clip(clip, folder / "out" / clip.stem) if params is None else \
+        process_clip(clip, folder / "out" / clip.stem, params=params)
+    out = folder / "validation"
+    r = validate_pair(folder / "out" / clip.stem, physio, out,
+                      params=ValidateParams(analysis=AnalysisParams(window_s=2.0, step_s=2.0)))
     al = json.loads((out / "alignment.json").read_text())
-    assert abs(al["offset_s"] - (-LEAD_S)) < 1 / 30, al  # the reference started 1.5 s before the clip
     ag = pd.read_csv(out / "agreement.csv")
     fc = ag[(ag["scope"] == "window") & (ag["feature"] == "fixation_count")].iloc[0]
+    return proc, al, fc, r, out
+
+
+@pytest.mark.slow
+def test_rendered_clip_following_lund_recordings(lund_dir, tmp_path):
+    clip = tmp_path / "p01_s01_lund.mp4"
+    _render_in_fresh_interpreter(lund_dir, clip)
+    physio = write_reference(lund_dir, tmp_path)
+    proc, al, fc, r, out = process_and_validate(clip, tmp_path, physio)
+    assert proc.summary["valid_frac"] > 0.8
+    assert abs(al["offset_s"] - (-LEAD_S)) < 1 / 30, al  # the reference started 1.5 s before the clip
     print(f"offset {al['offset_s']:.4f} s (confidence {al['confidence']:.2f}); fixation count per 2 s window: "
           f"n={fc['n']}, r={fc['pearson_r']:.3f}, ICC={fc['icc']:.3f}, bias={fc['ba_bias']:.2f}; "
           f"kappa={r.events['kappa']:.3f}, F1={r.events['f1']:.3f}")
