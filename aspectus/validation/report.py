@@ -591,25 +591,54 @@ def render_pair_report(result, pngs: dict[str, bytes]) -> str:
 
 
 def summary_caption(icc_form: str = "2,1") -> str:
-    """The caption of the study summary: which figure treats windows as independent and which does not."""
+    """The caption of the study summary to paste (summary.md, summary.html): which figure treats windows as
+    independent and which does not, named as :func:`readable_summary` heads its columns."""
+    icc = ICC_FORM_TEXT.get(icc_form, icc_form)
+    name, _, what = icc.partition(": ")
     return ("Agreement of webcam and lab-tracker features over paired windows of all participants. Estimates with "
-            "95 % CIs in brackets; differences are webcam minus reference. Windows taken as independent: pearson_r, "
-            f"{ICC_FORM_TEXT.get(icc_form, icc_form)}, ccc (Lin's concordance), ba_bias and ba_loa (Bland-Altman "
-            "bias and 95 % limits of agreement); their intervals are too narrow when participants differ. Allowing "
-            "for several windows per participant: rmcorr with its df (repeated-measures correlation, the "
-            "within-participant association; Bakdash & Marusich 2017), ba_bias_repeated (interval from the "
-            "between- and within-participant variance) and ba_loa_repeated (95 % limits for a single window, "
-            "Bland & Altman 2007, true value varying); participant_means_r correlates the participants' means, one "
-            "point per participant.")
+            "95 % CIs in brackets; differences are webcam minus lab tracker. Windows taken as independent: r "
+            f"(Pearson), {name}{f' ({what})' if what else ''}, Lin's CCC (concordance), bias and 95 % limits of agreement "
+            "(Bland-Altman); their intervals are too narrow when participants differ. Allowing for several windows "
+            "per participant: rmcorr with its df (repeated-measures correlation, the within-participant "
+            "association; Bakdash & Marusich 2017), and the bias and 95 % limits for repeated windows (interval "
+            "of the bias from the between- and within-participant variance; limits for a single window, Bland & "
+            "Altman 2007, true value varying); r of participant means correlates the participants' means, one "
+            "point per participant. summary.csv holds the same table with column names for scripts.")
+
+
+#: the summary's columns (:func:`aspectus.validation.summary.study_summary`) as the pasted table heads them
+SUMMARY_HEADERS = {"feature": "Feature", "participants": "Participants", "windows": "Windows",
+                   "mean_webcam": "Webcam mean", "mean_reference": "Lab tracker mean", "pearson_r": "r [95 % CI]",
+                   "ccc": "Lin's CCC [95 % CI]", "ba_bias": "Bias [95 % CI]",
+                   "ba_loa": "95 % limits of agreement", "rmcorr": "rmcorr [95 % CI]", "rmcorr_df": "rmcorr df",
+                   "ba_bias_repeated": "Bias, repeated windows [95 % CI]",
+                   "ba_loa_repeated": "95 % limits, repeated windows",
+                   "participant_means_r": "r of participant means [95 % CI]"}
+
+
+def readable_summary(summary: pd.DataFrame) -> pd.DataFrame:
+    """The study summary with its columns and features named for a reader (summary.md and summary.html; summary.csv
+    keeps the column names scripts use): e.g. ``icc_2_1`` -> "ICC(2,1) [95 % CI]", ``fixation_count`` ->
+    "Fixations (per window)"."""
+    def head(c: str) -> str:
+        if c.startswith("icc_"):
+            return f"ICC({c.removeprefix('icc_').replace('_', ',')}) [95 % CI]"
+        return SUMMARY_HEADERS.get(c, c)
+
+    out = summary.copy()
+    if "feature" in out:
+        out["feature"] = [_label(str(f)) for f in out["feature"]]
+    return out.rename(columns={c: head(str(c)) for c in out.columns})
 
 
 def summary_markdown(summary: pd.DataFrame, *, icc_form: str = "2,1") -> str:
     """The study summary as a Markdown table (to paste), with a caption line."""
     if not len(summary):
         return "_no features could be compared_\n"
-    cols = list(summary.columns)
+    shown = readable_summary(summary)
+    cols = list(shown.columns)
     lines = ["| " + " | ".join(cols) + " |", "| " + " | ".join("---" for _ in cols) + " |"]
-    for _, r in summary.iterrows():
+    for _, r in shown.iterrows():
         lines.append("| " + " | ".join(str(r[c]) for c in cols) + " |")
     return summary_caption(icc_form) + "\n\n" + "\n".join(lines) + "\n"
 
@@ -618,7 +647,7 @@ def summary_html(summary: pd.DataFrame, *, icc_form: str = "2,1") -> str:
     """The study summary as a small standalone HTML table (to paste)."""
     cap = html.escape(summary_caption(icc_form))
     return (f"<!doctype html><html><head><meta charset='utf-8'><style>{_CSS}</style></head><body>"
-            f"<p>{cap}</p>{_table_html(summary)}</body></html>\n")
+            f"<p>{cap}</p>{_table_html(readable_summary(summary))}</body></html>\n")
 
 
 REPEATED_COLS = ["scope", "feature", "participants", "n", "rmcorr", "rmcorr_ci_low", "rmcorr_ci_high", "rmcorr_df",

@@ -240,7 +240,10 @@ def test_study_manifest_pooled_and_summary(session, tmp_path):
     assert fc["n"] == per.loc[per["status"] == "ok", "windows_paired"].sum()
     assert set(per["status"]) == {"ok", "failed"}
     md = (root / "study" / "summary.md").read_text()
-    assert "| feature | participants | windows |" in md and "fixation_count" in md
+    # the table to paste names its columns and features for a reader; summary.csv keeps the names for scripts
+    assert "| Feature | Participants | Windows | Webcam mean | Lab tracker mean | r [95 % CI] | ICC(2,1) [95 % CI] |" in md
+    assert "| Fixations (per window) |" in md and "fixation_count" not in md and "icc_2_1" not in md
+    assert "fixation_count" in (root / "study" / "summary.csv").read_text()
     assert (root / "study" / "summary.html").read_text().count("<tr>") >= 2
     assert (root / "study" / "study_scatter.png").exists()
 

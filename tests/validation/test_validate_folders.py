@@ -242,7 +242,8 @@ def test_folder_study_end_to_end(study, tmp_path):
     assert m.set_index("participant").loc["p02", "mean_webcam"] == pytest.approx(a[s == "p02"].mean())
     assert fc["means_n"] == 3 and np.isfinite(fc["means_pearson_r"])
     md = (out / "summary.md").read_text()
-    assert "| rmcorr | rmcorr_df | ba_bias_repeated | ba_loa_repeated | participant_means_r |" in md
+    assert ("| rmcorr [95 % CI] | rmcorr df | Bias, repeated windows [95 % CI] | 95 % limits, repeated windows | "
+            "r of participant means [95 % CI] |") in md
     assert "Bakdash & Marusich 2017" in md and "Bland & Altman 2007" in md
     html = (out / "report.html").read_text()
     assert "Which figure is which" in html and "Windows taken as independent" in html
