@@ -194,6 +194,20 @@ def _no_checks(results_dir) -> None:
                              "clips that recorded the sequence, then tabulate OUTDIR")
 
 
+def _unit_word(c) -> str:
+    """What a quality column without a unit holds, after its name in the report's list (the label carries the
+    unit of the others): ", yes/no" for a flag, "" for a count or a word."""
+    return ", yes/no" if not c.unit and c.doc.startswith("True when") else ""
+
+
+def _heading(name: str) -> str:
+    """A column of the report's session table as a reader reads it (the schema's label with its unit)."""
+    from aspectus.schema import TARGET_QUALITY_COLUMN_BY_NAME
+
+    c = TARGET_QUALITY_COLUMN_BY_NAME.get(name)
+    return c.human if c is not None else name.replace("_", " ").capitalize()
+
+
 def write_quality_report(results_dir, out_dir, *, rule: ExclusionRule | None = None) -> dict:
     """Write ``target_quality.csv`` (one row per clip, with the verdict) and ``target_quality.md`` (the rule,
     how each figure was computed, the table) into ``out_dir``; returns their paths and counts. A folder without
@@ -217,16 +231,17 @@ def write_quality_report(results_dir, out_dir, *, rule: ExclusionRule | None = N
     lines = ["# Gaze quality on the known-target sequence", "",
              f"{len(tab)} session(s); {n_ex} excluded by the rule below.", "",
              "## Exclusion rule", "", rule.text(), "", "## How the figures were computed", ""]
-    lines += [f"- `{c.name}` ({c.unit or 'count/text'}): {c.doc}" for c in TARGET_QUALITY_COLUMNS]
+    lines += [f"- {c.human} (`{c.name}`{_unit_word(c)}): {c.doc}" for c in TARGET_QUALITY_COLUMNS]
     lines += ["", "Offset and gain are fitted per session (gaze = offset + gain x target, per axis, least squares "
               "on the still targets' median gaze); precision is measured on the gaze mapped by that fit, in degrees "
               "of visual angle on the screen.", "", "## Sessions", "",
-              "| " + " | ".join(shown) + " | reasons |", "|" + "---|" * (len(shown) + 1)]
+              "| " + " | ".join(_heading(c) for c in shown) + " | Reasons |", "|" + "---|" * (len(shown) + 1)]
     for r in tab.itertuples(index=False):
         vals = []
         for c in shown:
             v = getattr(r, c)
-            vals.append(f"{v:.2f}" if isinstance(v, float) else str(v))
+            vals.append(f"{v:.2f}" if isinstance(v, float) else ({True: "yes", False: "no"}.get(v, str(v))
+                                                                  if isinstance(v, (bool, np.bool_)) else str(v)))
         lines.append("| " + " | ".join(vals) + f" | {r.target_exclusion_reasons} |")
     md = write_text(out_dir / "target_quality.md", "\n".join(lines) + "\n")
     return {"csv": csv, "md": md, "sessions": len(tab), "excluded": n_ex}

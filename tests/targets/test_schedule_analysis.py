@@ -270,6 +270,11 @@ def test_study_table_and_exclusion_rule(tmp_path):
     assert res["sessions"] == 3 and res["excluded"] == 2
     md = (tmp_path / "report" / "target_quality.md").read_text()
     assert "worse than 1 deg" in md and "p02" in md
+    # a reader's headings and yes/no in the sessions table, the labels beside the column names in the list
+    assert "| Participant | Session | Accuracy after offset and gain (deg) |" in md and "count/text" not in md
+    assert "- Excluded by the quality rule (`target_excluded`, yes/no):" in md
+    rows = [ln for ln in md.splitlines() if ln.startswith("| p0")]
+    assert len(rows) == 3 and all(" | yes | " in r or " | no | " in r for r in rows) and "True" not in "".join(rows)
     with pytest.raises(ParameterError, match="unknown exclusion rule"):
         ExclusionRule.parse("max_speed=3")
 
