@@ -908,7 +908,13 @@ class MainWindow(QMainWindow):
         the selected (or every outdated) clip again."""
         selected = self.clip_list.selectedItems() or ([self.clip_list.currentItem()]
                                                       if self.clip_list.currentItem() is not None else [])
-        self.params.show_reprocess_offer(len(self._outdated_keys()), len(selected))
+        outdated = len(self._outdated_keys())
+        self.params.show_reprocess_offer(outdated, len(selected))
+        if outdated:  # said where it is seen whatever part of the panel is scrolled into view
+            self.statusBar().showMessage(
+                f"{outdated} clip{'s' if outdated != 1 else ''} now outdated: the change takes effect when "
+                f"{'they are' if outdated != 1 else 'it is'} processed again (Process clips, or the offer under "
+                "Parameters, Gaze measurement).", 20000)
 
     def reprocess(self, which: str) -> bool:
         """Process clips again after a processing setting changed: ``"selected"`` or ``"outdated"`` ones."""

@@ -148,6 +148,9 @@ def test_reprocess_offer_appears_when_a_gaze_choice_changes(window, tmp_path, qt
     assert window.study.clips[0].status == study_mod.STATUS_STALE
     assert p.reprocess_box.isVisibleTo(window)
     assert "1 clip was measured with other settings" in p.reprocess_label.text()
+    # and where it is seen whatever part of the panel is in view: the status bar
+    assert "1 clip now outdated" in window.statusBar().currentMessage() and "processed again" in (
+        window.statusBar().currentMessage())
     assert p.reprocess_selected_btn.isVisibleTo(window) and "selected clip" in p.reprocess_selected_btn.text()
     # back to the default: the clip is current again and the offer goes
     _choose(window, "head_rotation", "mesh")
