@@ -122,7 +122,7 @@ def chain(items, anchor_set: str) -> tuple[dict, dict]:
     R[~found] = np.eye(3)
     t = np.nan_to_num(a[:, 12:15], nan=1.0)
     iris = a[:, 15:19].reshape(n, 2, 2).copy()
-    small, med = small_iris(a[found, 19:21], AUTO_APPEARANCE_BELOW_PX)
+    small, size = small_iris(found, a[:, 19:21], a[:, LIMBUS_DIAM], a[:, 29:31], AUTO_APPEARANCE_BELOW_PX)
     used = "limbus"
     if small:
         patches = np.ascontiguousarray(rows[:, w:]).view(np.uint8)
@@ -132,7 +132,7 @@ def chain(items, anchor_set: str) -> tuple[dict, dict]:
     kw = {"K": np.asarray(geo.state()["K"]), "found": found, "R": R, "t": t, "iris_px": iris,
           "iris_diam_px": a[:, 19:21], "corners_px": a[:, 21:29].reshape(n, 2, 2, 2), "ear": a[:, 29:31],
           "t_s": a[:, 0], "iris_mesh_px": a[:, 31:35].reshape(n, 2, 2), "limbus_diam_px": a[:, LIMBUS_DIAM]}
-    return kw, {"used": used, "median_iris_px": med, "geometry_ms_per_frame": cpu_ms,
+    return kw, {"used": used, "iris_px": size["iris_px"], "geometry_ms_per_frame": cpu_ms,
                 "placement_ms_per_frame": placement_ms}
 
 

@@ -15,7 +15,9 @@ Rows per cell: ``default`` (the pipeline's own run with the default settings; it
 which iris estimate ``iris_combine=auto`` took, run.json's ``gaze_model.iris_estimate.used``, and its
 ``eye_anchor_set`` column which skin points ``eye_anchor_set=auto`` placed the head by), then ``limbus``
 (the default before ``auto``) and ``fuse`` re-estimated on the same per-frame measurements. ``iris_px`` is the
-rendered truth's median iris diameter, ``iris_px_measured`` the face mesh's (what ``auto`` decides on).
+rendered truth's median iris diameter, ``iris_px_measured`` the pipeline's (what ``auto`` decides on: the
+limbus fit's median over open-eye frames, the face mesh's with fewer than 30 fits) and ``iris_px_mesh`` the face
+mesh's median (what ``auto`` decided on until 2026-12-05).
 
     python bench/bench_gaze_grid.py                 # the whole grid
     python bench/bench_gaze_grid.py --quick         # four cells
@@ -85,7 +87,7 @@ def grid(quick: bool, seed: int, fps: float | None = None, reflection: bool = Fa
     return out
 
 
-COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("iris_px_measured", "{:5.1f}"),
+COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("iris_px_measured", "{:5.1f}"), ("iris_px_mesh", "{:5.1f}"),
            ("rms_s2s_deg", "{:5.2f}"), ("rms_fix_deg", "{:5.2f}"), ("rms_s2s_fix_deg", "{:5.2f}"),
            ("noise_rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_33ms_deg", "{:5.2f}"), ("noise_sd_deg", "{:5.2f}"),
            ("valid_frac", "{:5.3f}"), ("valid_far_frac", "{:5.3f}"),

@@ -3,7 +3,8 @@
     python bench/bench_gaze_grid.py --csv grid.csv
     python bench/gaze_grid_table.py grid.csv
 
-One line per variant row: the default first (named by the iris estimate it took, with the face mesh's iris size;
+One line per variant row: the default first (named by the iris estimate it took, with the iris size it took it
+on: ``fit`` the limbus fit's, ``mesh`` the face mesh's - in grids measured before 2026-12-05 always the mesh's;
 where it took the limbus fit its row stands for ``limbus`` too, which is then left out), then ``limbus`` and
 ``fuse``. Columns as bench_gaze_grid.py prints them (definitions in tests/_gaze_grid.py).
 """
@@ -44,6 +45,12 @@ def _sd(r) -> str:
     return "-" if pd.isna(v) else f"{float(v):.2f}"
 
 
+def _source(r) -> str:
+    """``fit`` where the default chose on the limbus fit's iris size, ``mesh`` on the face mesh's (and in grids
+    measured before the CSV named the source)."""
+    return "fit" if r.get("iris_px_measured_from") == "limbus fit" else "mesh"
+
+
 def lines(df: pd.DataFrame) -> list[str]:
     out = list(HEADER)
     for _, cell in df.groupby("label", sort=False):
@@ -57,7 +64,7 @@ def lines(df: pd.DataFrame) -> list[str]:
                    f"{r['yaw_r']:.3f} / {r['yaw_gain']:.2f} | {r['pitch_r']:.3f} / {r['pitch_gain']:.2f} | {r['kappa']:.2f}")
             if name == "default":
                 sep = " =" if took == "limbus" else ":"
-                setting = f"**default**{sep} {took} (mesh {r['iris_px_measured']:.1f} px)"
+                setting = f"**default**{sep} {took} ({_source(r)} {r['iris_px_measured']:.1f} px)"
                 out.append(f"| {r['iris_px']:.1f} px | {describe(r)} | {setting} | {fig} ({r['kappa_truth']:.2f}) |")
             else:
                 out.append(f"|  |  | {name} | {fig} |")

@@ -264,6 +264,10 @@ def with_gaze(samples: pd.DataFrame, **kw) -> pd.DataFrame:
     return s
 
 
+def _px(x) -> float:
+    return float(np.nan if x is None else x)
+
+
 def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: dict | None = None,
                   keep_samples: bool = False, pipeline_gaze: dict | None = None) -> list[dict]:
     """Render, process and measure one condition; one row (the condition's fields and figures) per variant.
@@ -273,9 +277,11 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
     row holds ``iris_estimate``: the iris estimate the default took (run.json's ``gaze_model.iris_estimate.used``;
     None in the other variants' rows), ``eye_anchor_set``: the skin points that placed the head
     (``gaze_model.eye_anchor_set.used``; None in the other variants' rows, which re-use the default's head
-    placement) and ``iris_px_measured``: the clip's median iris diameter as the pipeline measured it
-    (``gaze_model.iris_estimate.median_iris_px``; what the default's choice is made on, NaN unless the
-    pipeline's setting is ``auto``), ``blink_pad_frames`` (``gaze_model.blink_pad_frames``) and ``n_samples``.
+    placement) and ``iris_px_measured``: the clip's iris diameter as the pipeline measured it for its choice
+    (``gaze_model.iris_estimate.iris_px``: the limbus fit's median over open-eye frames, the face mesh's with too
+    few fits; NaN unless the pipeline's setting is ``auto``) with ``iris_px_measured_from`` its source
+    (``iris_px_source``: "limbus fit" or "face mesh") and ``iris_px_mesh`` the face mesh's median
+    (``mesh_median_iris_px``, what the choice read before), ``blink_pad_frames`` (``gaze_model.blink_pad_frames``) and ``n_samples``.
     ``keep_samples``: each row also holds its samples table under
     ``"samples"``. ``pipeline_gaze``: gaze settings for the pipeline's own run (e.g. ``{"eye_anchor_set":
     "below"}``, which acts in the per-frame geometry); the variants re-estimate with them too.
@@ -321,7 +327,8 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
                     | {"iris_estimate": choice.get("used") if not over else None,
                        "eye_anchor_set": anchors.get("used") if not over else None,
                        "blink_pad_frames": meta["gaze_model"].get("blink_pad_frames"), "n_samples": len(s),
-                       "iris_px_measured": float(np.nan if choice.get("median_iris_px") is None
-                                                  else choice["median_iris_px"])}
+                       "iris_px_measured": _px(choice.get("iris_px")),
+                       "iris_px_measured_from": choice.get("iris_px_source"),
+                       "iris_px_mesh": _px(choice.get("mesh_median_iris_px"))}
                     | ({"samples": s} if keep_samples else {}))
     return rows

@@ -39,6 +39,20 @@ def test_rows_name_the_estimate_and_leave_out_the_duplicate_limbus_row(tmp_path)
     assert not any("| limbus |" in line for line in out[5:])
 
 
+def test_the_size_the_default_chose_on_is_named_by_its_source(tmp_path):
+    # since 2026-12-05 the default's choice reads the limbus fit's iris size (the face mesh's with too few fits);
+    # grids measured before name no source and read the mesh's (the test above)
+    rows = [_row("a", "default", iris_estimate="appearance", iris_px_measured=15.97, iris_px_measured_from="limbus fit",
+                 iris_px_mesh=17.35),
+            _row("b", "default", iris_estimate="limbus", iris_px_measured=24.9, iris_px_measured_from="face mesh",
+                 iris_px_mesh=24.9)]
+    path = tmp_path / "grid.csv"
+    pd.DataFrame(rows).to_csv(path, index=False)
+    out = T.lines(pd.read_csv(path))
+    assert "**default**: appearance (fit 16.0 px)" in out[2]
+    assert "**default** = limbus (mesh 24.9 px)" in out[3]
+
+
 def test_a_grid_measured_before_the_clips_sd_existed_shows_a_dash(tmp_path):
     path = tmp_path / "old.csv"
     pd.DataFrame([{k: v for k, v in _row("a", "default", iris_estimate="appearance", iris_px_measured=12.9).items()

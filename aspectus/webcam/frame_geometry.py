@@ -69,6 +69,32 @@ LABEL_DIAM = slice(18, 20)
 PATCHES_AT = 20
 APPEARANCE_WIDTH = sum(n for _, n in APPEARANCE_COLUMNS)
 
+
+def decision_limbus_diam(rows: np.ndarray) -> np.ndarray:
+    """Both eyes' limbus-fit diameters (M, 2) of record rows (M, >= RECORD_WIDTH), as the ``"auto"`` settings' iris
+    size reads them: :data:`LIMBUS_DIAM`, or where a row holds the appearance estimate's label fits (with
+    ``side_arcs``, while the first frames are undecided and on small faces after them) theirs - the fits without
+    the side-arc rule, on which the size rule was measured."""
+    rows = np.asarray(rows, float)
+    d = np.array(rows[:, LIMBUS_DIAM], float)
+    w = RECORD_WIDTH
+    if rows.shape[1] >= w + LABEL_DIAM.stop:
+        has = np.isfinite(rows[:, w + LABEL_IRIS.start:w + LABEL_IRIS.stop]).all(axis=1)
+        d[has] = rows[has, w + LABEL_DIAM.start:w + LABEL_DIAM.stop]
+    return d
+
+
+def first_frames_small_iris(rows: np.ndarray, below_px: float) -> tuple[bool, dict]:
+    """:func:`aspectus.webcam.iris_appearance.small_iris` on the record rows (M, >= RECORD_WIDTH) of the first frames
+    with a face: their face-mesh and limbus-fit iris diameters (:func:`decision_limbus_diam`) and eye aspect ratios.
+    The one first-frames decision of the ``"auto"`` settings, in the per-frame geometry and in the pipeline's
+    keeping of the eye patches."""
+    rows = np.asarray(rows, float)
+    if rows.ndim != 2:  # no rows
+        rows = rows.reshape(-1, RECORD_WIDTH)
+    return small_iris(np.ones(len(rows), bool), rows[:, 19:21], decision_limbus_diam(rows), rows[:, 29:31],
+                      below_px)
+
 #: frames per message to the geometry process, and most frames per batch of limbus fits in either runner
 #: (measured here: fitting 16 frames' eyes together costs 0.4-0.9 ms a frame, one frame at a time 1.2-2.0 ms;
 #: the machine's speed drifts)
@@ -181,8 +207,8 @@ class FrameGeometry:
         every fit has the rule. Default False.
     appearance_below_px : float or None
         With ``appearance``: stop sampling patches (their columns stay empty) once the first
-        :data:`aspectus.webcam.iris_appearance.DECIDE_FRAMES` frames with a face show a median iris diameter
-        that is not below this (``iris_combine="auto"``, whose pipeline drops them by the same rule).
+        :data:`aspectus.webcam.iris_appearance.DECIDE_FRAMES` frames with a face show an iris that is not below
+        this (:func:`first_frames_small_iris`; ``iris_combine="auto"``, whose pipeline drops them by the same rule).
     """
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True,
@@ -244,9 +270,11 @@ class FrameGeometry:
             self._turn_limits = (turn_away_limits_deg(own, pts_mm),
                                  -np.sign(self._anchors_model[:, 0]))
         self._anchors_on_mesh = None  # see place_anchors_on_mesh
-        # "auto" (eye patches, anchor set): the first frames' iris diameters, until the one decision is made
-        self._first_diams: list | None = ([] if (self.appearance and self.appearance_below_px is not None)
-                                          or self.auto_anchors else None)
+        # "auto" (eye patches, anchor set): the first frames' record rows with a face (with the appearance columns
+        # before the patches), until the one decision is made
+        self._decide_width = RECORD_WIDTH + (PATCHES_AT if self.appearance else 0)
+        self._first_rows: list | None = ([] if (self.appearance and self.appearance_below_px is not None)
+                                         or self.auto_anchors else None)
         self.anchored_frames = 0
         self.unanchored_frames = 0
         # each eye's iris contrasts so far, counted in 1 % bins from -100 to 100 %: where their median is low the
@@ -280,10 +308,29 @@ class FrameGeometry:
         """
         out = np.full((len(items), self.width), np.nan)
         fits = []  # (row index, (limbus arguments, crop origin), which fits)
+        first = []  # "auto": this batch's rows with a face still to enter the first frames' decision
         for k, item in enumerate(items):
             out[k], job = self._row_before_iris(*item)
             if job is not None:
                 fits.append((k, job, self._fit_variant()))
+            if self._first_rows is not None and out[k, 1] > 0.5:
+                first.append(k)
+                if len(self._first_rows) + len(first) >= DECIDE_FRAMES:
+                    # the decision reads the limbus fits of its frames, and acts from the next frame on whatever
+                    # the batches are: the fits so far run now, the rest of the batch's after it
+                    self._limbus_fits(out, fits)
+                    fits = []
+                    self._first_rows.extend(out[first, :self._decide_width])
+                    first = []
+                    self._decide_small()
+        self._limbus_fits(out, fits)
+        if self._first_rows is not None:
+            self._first_rows.extend(out[first, :self._decide_width])
+        return out
+
+    def _limbus_fits(self, out: np.ndarray, fits: list) -> None:
+        """Run the limbus fits of ``fits`` ((row index, job of :meth:`_row_before_iris`, variant) into their rows of
+        ``out``."""
         if fits:
             fits_job = {k: job[0] for k, job, _ in fits}
             eyeballs = [job[2] for _, job, _ in fits] if self.iris_shape else None
@@ -308,7 +355,6 @@ class FrameGeometry:
                         out[k, LIMBUS_CONTRAST] = side[j][3]
                 out[k, 15:19] = (iris + off).ravel()
                 out[k, LIMBUS_DIAM] = diam
-        return out
 
     def _fit_variant(self) -> str:
         """Which limbus fits the frame just placed needs (:func:`aspectus.webcam.limbus.limbus_centres_variants`):
@@ -317,7 +363,7 @@ class FrameGeometry:
             return "plain"
         if not (self.appearance and self.appearance_below_px is not None):
             return "side"  # the limbus fit is the gaze estimate (or the iris_combine setting chose the appearance's)
-        if self._first_diams is not None:
+        if self._first_rows is not None:
             return "both"  # "auto", undecided: the appearance estimate may learn from these frames
         return "plain" if self._sampling else "side"
 
@@ -389,10 +435,6 @@ class FrameGeometry:
             local = points_px - off
             job = ((eyes, local, iris - off[:2], m["iris_diam_px"]), off[:2])
         self._last_anchors = self._last_all = None
-        if self._first_diams is not None:  # "auto": settle on the first frames with a face whether it is small
-            self._first_diams.append(np.array(m["iris_diam_px"], float))
-            if len(self._first_diams) >= DECIDE_FRAMES:
-                self._decide_small()
         if self.eye_anchors:
             t_pnp = t
             t = self._anchored_translation(R, t, m, eyes, points_px, eyes_origin_px)
@@ -450,15 +492,17 @@ class FrameGeometry:
     def _decide_small(self) -> None:
         """The "auto" settings' one decision, from the frames with a face seen so far (then no more): whether to go
         on sampling eye patches (``appearance_below_px``) and whether the face is small (``anchor_set="auto"``).
-        Both follow :func:`aspectus.webcam.iris_appearance.small_iris` on the same frames' iris diameters."""
-        if self._first_diams is None:
+        Both follow :func:`aspectus.webcam.iris_appearance.small_iris` on the same frames' rows (their limbus fits'
+        diameters over the open-eye frames; the face mesh's with too few fits), as the pipeline's decision on keeping
+        the patches does (:func:`first_frames_small_iris`)."""
+        if self._first_rows is None:
             return
-        diams = np.array(self._first_diams).reshape(-1, 2)
-        self._first_diams = None
+        first = np.array(self._first_rows, float).reshape(-1, self._decide_width)
+        self._first_rows = None
         if self.appearance_below_px is not None and self.appearance:
-            self._sampling = small_iris(diams, self.appearance_below_px)[0]
+            self._sampling = first_frames_small_iris(first, self.appearance_below_px)[0]
         if self.auto_anchors:
-            self.small_face = small_iris(diams, AUTO_APPEARANCE_BELOW_PX)[0]
+            self.small_face = first_frames_small_iris(first, AUTO_APPEARANCE_BELOW_PX)[0]
 
     def _small_translation(self, R, t_pnp, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
         """``anchor_set="auto"``: the translation refitted to the small-face set (:meth:`_anchored_translation`

@@ -56,11 +56,12 @@ EYEBALL_RADIUS_MM = 12.0
 IRIS_PLANE_RADIUS_MM = float(np.sqrt(EYEBALL_RADIUS_MM ** 2 - (IRIS_DIAMETER_MM / 2) ** 2))
 #: the ways the iris centre is taken (GazeParams.iris_combine)
 IRIS_COMBINE = ("auto", "limbus", "rescale", "fuse", "appearance")
-#: with ``iris_combine="auto"`` the appearance estimate is taken below this median iris diameter (the face
-#: mesh's, px) and the limbus fit at or above it: the geometric middle, sqrt(12 x 25), of the largest size where
-#: the appearance estimate was measured to help (8-12 px: RMS-S2S down 21-55 % on eleven of twelve dev clips,
-#: pitch r up on ten) and the size where it did not (25 px: no better than the limbus fit, pitch r a little
-#: lower on one grid cell); docs/notes/gaze-measurement.md. Set between the measured sizes, not tuned to a test.
+#: with ``iris_combine="auto"`` the appearance estimate is taken below this iris diameter (px; the clip's, as
+#: :func:`switch_iris_px` reads it: the limbus fit's median) and the limbus fit at or above it: the geometric
+#: middle, sqrt(12 x 25), of the largest size where the appearance estimate was measured to help (8-12 px: RMS-S2S
+#: down 21-55 % on eleven of twelve dev clips, pitch r up on ten) and the size where it did not (25 px: no better
+#: than the limbus fit, pitch r a little lower on one grid cell); docs/notes/gaze-measurement.md. Set between the
+#: measured sizes (read then on the face mesh's diameter), not tuned to a test.
 AUTO_APPEARANCE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)), 1)
 #: frames whose eye aperture is at least this share of the clip's open-eye level count as open eyes
 OPEN_EYE_REL = 0.8
@@ -102,8 +103,8 @@ class GazeParams:
         eyeball centre by a third of a millimetre and the gaze by 1-2 deg.
         A centred average has no lag.
     iris_combine : {"auto", "limbus", "rescale", "fuse", "appearance"}
-        ``"auto"`` (default): ``"appearance"`` where the clip's median iris
-        diameter (the face mesh's, px) is below
+        ``"auto"`` (default): ``"appearance"`` where the clip's iris
+        diameter (:func:`switch_iris_px`: the limbus fit's median, px) is below
         :data:`AUTO_APPEARANCE_BELOW_PX` (17.3 px), ``"limbus"`` otherwise,
         and ``"limbus"`` where the appearance estimate cannot run
         (``refine_iris`` or ``eye_anchors`` off, too few open-eye frames);
@@ -160,7 +161,7 @@ class GazeParams:
         Which skin points the anchors follow (:data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`).
         ``"auto"`` (default): ``"below_and_beside"`` where the iris is
         small - by the rule ``iris_combine="auto"`` follows (the first
-        frames' and the clip's median iris diameter, the face mesh's,
+        frames' and the clip's iris diameter, :func:`switch_iris_px`,
         below :data:`AUTO_APPEARANCE_BELOW_PX`) - and ``"below"``
         otherwise, so large faces are placed as before; run.json says which
         was used and why (``gaze_model.eye_anchor_set``). Measured with the
@@ -630,8 +631,11 @@ def describe_iris_estimate(info) -> str | None:
     --------
     >>> describe_iris_estimate({"setting": "limbus", "used": "limbus"})
     'Iris height from: circle fit to the iris edge (as chosen).'
-    >>> print(describe_iris_estimate({"setting": "auto", "used": "appearance", "median_iris_px": 11.2}))
+    >>> print(describe_iris_estimate({"setting": "auto", "used": "appearance", "iris_px": 11.2,
+    ...                               "iris_px_source": "limbus fit"}))
     Iris height from: the eye's appearance (chosen automatically: the iris is 11.2 px across, below 17.3 px).
+
+    A run.json written before the choice read the limbus fit's size gives the face mesh's as ``median_iris_px``.
     """
     if not isinstance(info, dict) or not info.get("used"):
         return None
@@ -643,7 +647,7 @@ def describe_iris_estimate(info) -> str | None:
             chosen = GAZE_CHOICE_OF["iris_combine"].text_of(setting).removesuffix(" (default)")
             return f"Iris height from: {text} (chosen: {chosen}, which could not be used with this clip or settings)."
         return f"Iris height from: {text} (as chosen)."
-    px = info.get("median_iris_px")
+    px = info.get("iris_px", info.get("median_iris_px"))
     reason = str(info.get("reason") or "")
     if "not fitted" in reason:  # the appearance regression had too few open-eye frames to learn from
         obstacle = "the clip has too few frames with open eyes to learn the eye's appearance"
@@ -1053,6 +1057,50 @@ def limbus_iris_scale(mesh_diam_px: np.ndarray, limbus_diam_px: np.ndarray | Non
         return 1.0, rec
     rec |= {"used": "limbus", "reason": f"median of {len(ratio)} open-eye limbus fits"}
     return factor, rec
+
+
+def median_iris_px(diam: np.ndarray) -> float:
+    """The face mesh's figure: the median over frames of the two eyes' mean iris diameter (px; (N, 2), NaN or 0
+    where none), NaN if none."""
+    d = np.asarray(diam, float).reshape(-1, 2)
+    d = np.where(d > 0, d, np.nan)
+    ok = np.isfinite(d).any(axis=1)
+    return float(np.median(_nanmean_quiet(d[ok], axis=1))) if ok.any() else float("nan")
+
+
+def switch_iris_px(found: np.ndarray, mesh_diam_px: np.ndarray, limbus_diam_px: np.ndarray | None,
+                   ear: np.ndarray) -> dict:
+    """The clip's iris diameter on which the ``"auto"`` settings choose (``iris_combine``, ``eye_anchor_set``; the
+    eye patches kept or not): one rule for the pipeline's whole-clip choice and the first frames' decisions
+    (:func:`aspectus.webcam.iris_appearance.small_iris`).
+
+    The limbus fit's: the median of its circle's diameters (both eyes pooled) over the open-eye frames (face
+    found, aperture at least :data:`OPEN_EYE_REL` of the frames' open-eye level, :func:`relative_aperture`) - the
+    figure run.json's ``gaze_model.iris_scale.limbus_median_px`` gives over a whole clip. With fewer than
+    :data:`MIN_SCALE_FITS` such fits (or no limbus fits: ``refine_iris`` off) the face mesh's
+    (:func:`median_iris_px` over the frames with a face), as :func:`limbus_iris_scale` falls back. Arrays are
+    (N,) ``found`` and (N, 2) per eye (NaN or 0 where none). Why the fit's: over 24 rendered dark-iris clips it
+    read 0.948-0.991 of the renderer's iris diameter, nearer than the mesh's (0.994-1.064) on 20, and the mesh's
+    was inflated by the screen's reflection on the corneas and by lids that do not follow the gaze
+    (docs/notes/gaze-measurement.md, "The auto switch read on the limbus fit's diameter").
+
+    Returns ``{"iris_px": the figure (NaN if none), "iris_px_source": "limbus fit" or "face mesh",
+    "limbus_fits": the open-eye fits counted, "mesh_iris_px": the face mesh's figure}``.
+    """
+    found = np.asarray(found, bool)
+    mesh = median_iris_px(np.asarray(mesh_diam_px, float)[found]) if found.any() else float("nan")
+    out = {"iris_px": mesh, "iris_px_source": "face mesh", "limbus_fits": 0, "mesh_iris_px": mesh}
+    if limbus_diam_px is None or not found.any():
+        return out
+    rel, _ = relative_aperture(found, np.asarray(ear, float))
+    with np.errstate(invalid="ignore"):
+        eyes_open = found & (rel >= OPEN_EYE_REL)
+    lim = np.asarray(limbus_diam_px, float)[eyes_open].ravel()
+    lim = lim[np.isfinite(lim) & (lim > 0)]
+    out["limbus_fits"] = int(len(lim))
+    if len(lim) >= MIN_SCALE_FITS:
+        out |= {"iris_px": float(np.median(lim)), "iris_px_source": "limbus fit"}
+    return out
 
 
 def _round_or_none(x, nd: int = 3):

@@ -37,7 +37,8 @@ Measured on twelve rendered dev clips (bench/bench_iris_appearance.py; docs/note
 down on eleven (by 21-55 %; +1 % on the twelfth), pitch r up on ten and within 0.002 on two, pitch gain nearer
 one on seven and further on one - but the fixation kappa against the hand-coders down on five (by 0.01-0.13),
 and at 25 px it is no better than the limbus fit. It is what the default ``iris_combine="auto"`` takes below
-a 17.3 px iris (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`), the limbus fit above. Costs
+a 17.3 px iris (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`, read on the limbus fit's diameter:
+:func:`aspectus.webcam.gaze.switch_iris_px`), the limbus fit above. Costs
 (``time.process_time``): sampling 0.2-0.35 ms a frame at 640 x 480 (0.8-1.0 ms on 720p crops), the regression
 0.15-0.5 ms a frame on 40-s clips; the patches (768 bytes a frame) wait in a temporary file, read back one
 block at a time.
@@ -48,6 +49,7 @@ import numpy as np
 
 from aspectus._env import import_cv2
 from aspectus.geometry import to_opencv_px
+from aspectus.webcam.gaze import switch_iris_px
 
 #: patch size (width, height) in samples, per eye
 PATCH_SIZE = (24, 16)
@@ -79,19 +81,14 @@ BLEND_WEIGHTS = tuple(round(0.1 * k, 1) for k in range(11))
 DECIDE_FRAMES = 150
 
 
-def median_iris_px(diam: np.ndarray) -> float:
-    """Median over frames of the two eyes' mean iris diameter (px; (N, 2), NaN or 0 where none), NaN if none."""
-    d = np.asarray(diam, float).reshape(-1, 2)
-    d = np.where(d > 0, d, np.nan)
-    ok = np.isfinite(d).any(axis=1)
-    return float(np.median(np.nanmean(d[ok], axis=1))) if ok.any() else float("nan")
-
-
-def small_iris(diam: np.ndarray, below_px: float) -> tuple[bool, float]:
-    """(median iris diameter below ``below_px``, that median) - the one rule by which both the per-frame geometry
-    (whether to go on sampling patches) and the pipeline (whether to keep them) decide."""
-    med = median_iris_px(diam)
-    return bool(np.isfinite(med) and med < below_px), med
+def small_iris(found: np.ndarray, mesh_diam_px: np.ndarray, limbus_diam_px: np.ndarray | None, ear: np.ndarray,
+               below_px: float) -> tuple[bool, dict]:
+    """(the iris is below ``below_px``, the size record) - the one rule by which the per-frame geometry (whether to
+    go on sampling patches, whether the face is small), the pipeline (whether to keep them) and the whole clip's
+    ``"auto"`` choices decide, on the clip's iris size as :func:`aspectus.webcam.gaze.switch_iris_px` reads it
+    (the limbus fit's median over open-eye frames; the face mesh's with fewer than 30 fits)."""
+    size = switch_iris_px(found, mesh_diam_px, limbus_diam_px, ear)
+    return bool(np.isfinite(size["iris_px"]) and size["iris_px"] < below_px), size
 
 
 class EyePatchSampler:

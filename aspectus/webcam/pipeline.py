@@ -49,9 +49,9 @@ from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
 from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements, unmirror_record
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
 from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LABEL_DIAM, LABEL_IRIS, LIMBUS_CONTRAST, LIMBUS_DIAM,
-                                            RECORD_WIDTH, SMALL_FACE_T_COLUMNS,
-                                            frame_item, start_geometry)
-from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, median_iris_px, small_iris
+                                            RECORD_WIDTH, SMALL_FACE_T_COLUMNS, decision_limbus_diam,
+                                            first_frames_small_iris, frame_item, start_geometry)
+from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.webcam.limbus import MIN_IRIS_CONTRAST_PCT, fill_iris_reflections
 from aspectus.events.detect.noise import SD_PER_RMS_S2S_WHITE
@@ -235,8 +235,9 @@ class _PatchFile:
         self._f.close()
 
 
-#: with ``iris_combine="auto"``: the eye patches are kept only if the median iris diameter of the first this
-#: many frames with a face (5 s at 30 fps) is below the threshold (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`);
+#: with ``iris_combine="auto"``: the eye patches are kept only if the first this many frames with a face (5 s at
+#: 30 fps) show an iris below the threshold (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`; the limbus fit's
+#: median diameter over their open-eye frames, :func:`aspectus.webcam.frame_geometry.first_frames_small_iris`);
 #: a large face then stores none (768 bytes a frame, some 80 MB an hour at 30 fps) and samples none past them
 AUTO_DECIDE_FRAMES = DECIDE_FRAMES
 
@@ -245,48 +246,60 @@ class _SplitSink:
     """Hands the record's columns of a geometry row to one store and its patch bytes to another.
 
     With ``decide_below_px`` (``iris_combine="auto"``) the patches are kept only while the first
-    :data:`AUTO_DECIDE_FRAMES` frames with a face show a median iris diameter below it; otherwise the patches
-    stored so far are dropped and no more are kept (``self.keep`` False).
+    :data:`AUTO_DECIDE_FRAMES` frames with a face show an iris below it
+    (:func:`aspectus.webcam.frame_geometry.first_frames_small_iris`, the per-frame geometry's own decision on the
+    same rows); otherwise the patches stored so far are dropped and no more are kept (``self.keep`` False).
+    ``first_size``: the decision's size record once made (:func:`aspectus.webcam.gaze.switch_iris_px`).
     """
 
     def __init__(self, rec: _Grow, patches: _PatchFile, width: int, decide_below_px: float | None = None):
         self.rec, self.patches, self.width = rec, patches, width
         self.decide_below_px = decide_below_px
         self.keep = True
-        self.first_median_iris_px: float | None = None
-        self._diams: list = []
+        self.first_size: dict | None = None
+        self._rows: list = []
 
     def __call__(self, row) -> None:
         self.rec.append(row[:self.width])
         if not self.keep:
             return
         self.patches.append(np.ascontiguousarray(row[self.width:]).view(np.uint8))
-        if self.decide_below_px is not None and self.first_median_iris_px is None and row[1] > 0.5:
-            self._diams.append(np.array(row[19:21], float))
-            if len(self._diams) >= AUTO_DECIDE_FRAMES:
+        if self.decide_below_px is not None and self.first_size is None and row[1] > 0.5:
+            self._rows.append(np.array(row[:self.width], float))
+            if len(self._rows) >= AUTO_DECIDE_FRAMES:
                 self.decide()
 
     def decide(self) -> None:
         """Settle whether the patches are kept, from the frames seen so far (also called at the clip's end)."""
-        if self.decide_below_px is None or self.first_median_iris_px is not None:
+        if self.decide_below_px is None or self.first_size is not None:
             return
-        small, med = small_iris(np.array(self._diams), self.decide_below_px)
-        self.first_median_iris_px = med
-        self._diams = []
+        small, self.first_size = first_frames_small_iris(np.array(self._rows), self.decide_below_px)
+        self._rows = []
         if not small:
             self.keep = False
             self.patches.clear()
 
 
-def _anchor_set_choice(gaze, refine: bool, small_first: bool | None, diam: np.ndarray) -> dict:
+def _iris_size_fields(size: dict | None, prefix: str = "") -> dict:
+    """run.json's fields of an iris size the ``"auto"`` settings chose on (:func:`aspectus.webcam.gaze.switch_iris_px`):
+    ``iris_px`` (the figure read against the threshold), ``iris_px_source`` ("limbus fit", or "face mesh" with
+    fewer than 30 open-eye fits), ``limbus_fits`` and ``mesh_median_iris_px`` (the face mesh's median, which the
+    choice read before it read the limbus fit's); each name after ``prefix``."""
+    size = size or {}
+    return {f"{prefix}iris_px": _round(size.get("iris_px")), f"{prefix}iris_px_source": size.get("iris_px_source"),
+            f"{prefix}limbus_fits": size.get("limbus_fits"),
+            f"{prefix}mesh_median_iris_px": _round(size.get("mesh_iris_px"))}
+
+
+def _anchor_set_choice(gaze, refine: bool, small_first: bool | None, small_clip: bool, clip_size: dict) -> dict:
     """run.json's ``gaze_model.eye_anchor_set``: the setting, the set used (None: no anchors, the face mesh's PnP
     translation) and, with ``"auto"``, why.
 
     ``"auto"`` takes :data:`aspectus.webcam.eye_anchors.AUTO_SMALL_FACE_SET` when both the per-frame geometry's
-    first frames (``small_first``: its decision, :func:`aspectus.webcam.iris_appearance.small_iris`) and the whole
-    clip (``diam``: the face frames' iris diameters) show an iris below
-    :data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX` - the rule ``iris_combine="auto"`` follows - and
-    :data:`aspectus.webcam.eye_anchors.DEFAULT_ANCHOR_SET` otherwise.
+    first frames (``small_first``: its decision, :func:`aspectus.webcam.frame_geometry.first_frames_small_iris`) and
+    the whole clip (``small_clip``, on ``clip_size``: :func:`aspectus.webcam.iris_appearance.small_iris`) show an
+    iris below :data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX` - the rule ``iris_combine="auto"`` follows -
+    and :data:`aspectus.webcam.eye_anchors.DEFAULT_ANCHOR_SET` otherwise.
     """
     setting = gaze.eye_anchor_set
     if not (refine and gaze.eye_anchors):
@@ -295,19 +308,19 @@ def _anchor_set_choice(gaze, refine: bool, small_first: bool | None, diam: np.nd
                                                             "translation is used"}
     if setting != "auto":
         return {"setting": setting, "used": setting}
-    small_clip, med = small_iris(diam, AUTO_APPEARANCE_BELOW_PX)
-    out = {"setting": "auto", "threshold_px": AUTO_APPEARANCE_BELOW_PX, "median_iris_px": _round(med),
+    out = {"setting": "auto", "threshold_px": AUTO_APPEARANCE_BELOW_PX, **_iris_size_fields(clip_size),
            "first_frames": AUTO_DECIDE_FRAMES}
+    px = f"{out['iris_px']} px ({out['iris_px_source']})"
     if not small_first:
         out["used"] = DEFAULT_ANCHOR_SET
-        out["reason"] = (f"the first frames' median iris diameter is not below {AUTO_APPEARANCE_BELOW_PX} px"
+        out["reason"] = (f"the first frames' iris diameter is not below {AUTO_APPEARANCE_BELOW_PX} px"
                          if small_first is False else "no face frames to decide on")
     elif not small_clip:
         out["used"] = DEFAULT_ANCHOR_SET
-        out["reason"] = f"the clip's median iris diameter {out['median_iris_px']} px is not below {AUTO_APPEARANCE_BELOW_PX} px"
+        out["reason"] = f"the clip's iris diameter {px} is not below {AUTO_APPEARANCE_BELOW_PX} px"
     else:
         out["used"] = AUTO_SMALL_FACE_SET
-        out["reason"] = f"the clip's median iris diameter {out['median_iris_px']} px is below {AUTO_APPEARANCE_BELOW_PX} px"
+        out["reason"] = f"the clip's iris diameter {px} is below {AUTO_APPEARANCE_BELOW_PX} px"
     return out
 
 
@@ -524,27 +537,32 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     # rotations and translations are cleaned in place, in the record buffer itself (no copies of an hour of them)
     Rm = np.nan_to_num(a[:, 3:12], copy=False).reshape(n, 3, 3)
     Rm[~found] = np.eye(3)
-    anchors_choice = _anchor_set_choice(params.gaze, refine, state.get("small_face"), a[found, 19:21])
+    # the clip's iris size for the "auto" settings (the limbus fit's median over open-eye frames; the mesh's with
+    # fewer than 30 fits): one rule, iris_appearance.small_iris
+    small_clip, clip_size = small_iris(found, a[:, 19:21], decision_limbus_diam(a), a[:, 29:31],
+                                       AUTO_APPEARANCE_BELOW_PX)
+    anchors_choice = _anchor_set_choice(params.gaze, refine, state.get("small_face"), small_clip, clip_size)
     if params.gaze.eye_anchor_set == "auto" and anchors_choice["used"] == AUTO_SMALL_FACE_SET:
         a[:, 12:15] = a[:, SMALL_FACE_T_COLUMNS]  # the small-face set's translation (NaN where no face, as t_mm)
     tm = np.nan_to_num(a[:, 12:15], nan=1.0, copy=False)
     K = np.asarray(state["K"]) if state["K"] is not None else np.eye(3)
     iris = a[:, 15:19].reshape(n, 2, 2)
     app_info = None
-    choice = {"setting": combine, "threshold_px": AUTO_APPEARANCE_BELOW_PX,
-              "median_iris_px": _round(median_iris_px(a[found, 19:21]))} if combine == "auto" else None
+    choice = ({"setting": combine, "threshold_px": AUTO_APPEARANCE_BELOW_PX, **_iris_size_fields(clip_size)}
+              if combine == "auto" else None)
+    clip_px = None if choice is None else f"{choice['iris_px']} px ({choice['iris_px_source']})"
     if sample_patches and combine == "auto":
         sink.decide()  # a clip shorter than the deciding frames
-        choice["first_frames_median_iris_px"] = _round(sink.first_median_iris_px)
+        choice |= _iris_size_fields(sink.first_size, "first_frames_")
         choice["first_frames"] = AUTO_DECIDE_FRAMES
         if not sink.keep:
             appearance = registration = False
-            choice["reason"] = (f"median iris diameter of the first frames {choice['first_frames_median_iris_px']} px "
-                                f"is not below {AUTO_APPEARANCE_BELOW_PX} px: no eye patches kept")
-        elif not (choice["median_iris_px"] is not None and choice["median_iris_px"] < AUTO_APPEARANCE_BELOW_PX):
+            choice["reason"] = (f"the iris diameter of the first frames {choice['first_frames_iris_px']} px "
+                                f"({choice['first_frames_iris_px_source']}) is not below {AUTO_APPEARANCE_BELOW_PX} px: "
+                                "no eye patches kept")
+        elif not small_clip:
             appearance = registration = False
-            choice["reason"] = (f"the clip's median iris diameter {choice['median_iris_px']} px is not below "
-                                f"{AUTO_APPEARANCE_BELOW_PX} px")
+            choice["reason"] = f"the clip's iris diameter {clip_px} is not below {AUTO_APPEARANCE_BELOW_PX} px"
     elif combine == "auto":
         off = [name for name, on in (("refine_iris", refine), ("eye_anchors", bool(params.gaze.eye_anchors))) if not on]
         choice["reason"] = (f"the appearance estimate needs {' and '.join(off)} (off): the "
@@ -555,8 +573,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         fitted = any(blk[e].get("fitted") for blk in app_info["blocks"] for e in ("right", "left"))
         if choice is not None:
             if fitted:
-                choice["reason"] = (f"the clip's median iris diameter {choice['median_iris_px']} px is below "
-                                    f"{AUTO_APPEARANCE_BELOW_PX} px")
+                choice["reason"] = f"the clip's iris diameter {clip_px} is below {AUTO_APPEARANCE_BELOW_PX} px"
             else:
                 choice["reason"] = ("the appearance regression was not fitted (too few open-eye frames with a limbus "
                                     f"fit: at least {MIN_TRAIN_FRAMES} per eye are needed): the limbus fit is used")

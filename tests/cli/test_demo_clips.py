@@ -52,7 +52,8 @@ def test_the_demo_clips_are_large_faces_and_keep_the_limbus_fit(demo_out, repo_r
         truth = pd.read_csv(repo_root / "sample_clips" / f"{clip.stem}_truth.csv")
         assert truth["iris_diameter_px"].median() > 20.0
         assert c["setting"] == "auto" and c["used"] == "limbus", (clip.name, c)
-        assert c["first_frames_median_iris_px"] >= c["threshold_px"], (clip.name, c)
+        assert c["first_frames_iris_px"] >= c["threshold_px"] and c["iris_px"] >= c["threshold_px"], (clip.name, c)
+        assert c["iris_px_source"] == "limbus fit", (clip.name, c)
         # and the head is placed by the skin points below the eyes, as before eye_anchor_set="auto" existed
         a = json.loads((out / clip.stem / "run.json").read_text())["extraction"]["gaze_model"]["eye_anchor_set"]
         assert a["setting"] == "auto" and a["used"] == "below", (clip.name, a)

@@ -119,12 +119,14 @@ def test_iris_estimate_in_plain_words():
         "Iris height from: circle fit to the iris edge (as chosen)."
     assert describe_iris_estimate({"setting": "limbus", "used": "face mesh"}).startswith(
         "Iris height from: the face tracker's iris point (chosen: circle fit to the iris edge, which could not be used")
-    auto_big = describe_iris_estimate({"setting": "auto", "used": "limbus", "median_iris_px": 24.5,
-                                       "reason": "the clip's median iris diameter 24.5 px is not below 17.3 px"})
+    auto_big = describe_iris_estimate({"setting": "auto", "used": "limbus", "iris_px": 24.5,
+                                       "iris_px_source": "limbus fit", "mesh_median_iris_px": 26.1,
+                                       "reason": "the clip's iris diameter 24.5 px (limbus fit) is not below 17.3 px"})
     assert auto_big == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 24.5 px "
                         "across, not below 17.3 px).")
     assert "automatic by face size" not in auto_big and "_" not in auto_big
-    # small iris, but the appearance estimate could not be learnt: said without the method's inner words
+    # small iris, but the appearance estimate could not be learnt: said without the method's inner words (a run.json
+    # written before the choice read the limbus fit's size: the face mesh's as median_iris_px)
     short = describe_iris_estimate({
         "setting": "auto", "used": "limbus", "median_iris_px": 12.1,
         "reason": "the appearance regression was not fitted (too few open-eye frames with a limbus fit: at least "

@@ -4,7 +4,8 @@ the limbus fit on large ones and wherever the appearance estimate cannot run, re
 The rule's threshold (17.3 px, the geometric middle of 12 and 25 px) sits between the iris sizes where the
 appearance estimate was measured to help and not to (docs/notes/gaze-measurement.md); the clips here are
 rendered (aspectus.synth) at sizes well on either side of it: 640 x 360 at 60 cm (about 11 px) and
-1280 x 720 at 60 cm (about 22 px). The sizes read are the face mesh's, as the pipeline reads them.
+1280 x 720 at 60 cm (about 22 px). The sizes read are the limbus fit's, as the pipeline reads them (the face
+mesh's with too few fits): aspectus.webcam.gaze.switch_iris_px.
 """
 from __future__ import annotations
 
@@ -56,6 +57,134 @@ def test_patch_file_gives_back_the_rows_in_blocks(tmp_path):
     f.close()
 
 
+# The switch reads the limbus fit's median diameter over open-eye frames: on 24 rendered dark-iris clips it read
+# 0.948-0.991 of the renderer's iris, the face mesh 0.994-1.064, and the mesh's was inflated by the screen's
+# reflection on the corneas and by lids that do not follow the gaze - on the 16.6 px lids-still grid cell truth
+# 16.55 px, mesh 17.35, fit 15.97 (docs/notes/gaze-measurement.md, "The auto switch read on the limbus fit's
+# diameter"). The sizes below are those three figures.
+_TRUE, _MESH, _FIT = 16.55, 17.35, 15.97
+
+
+def _clip_rows(n=200, mesh=_MESH, fit=_FIT):
+    found = np.ones(n, bool)
+    found[:10] = False
+    ear = np.full((n, 2), 0.30)
+    ear[20:60] = 0.08  # closed lids: the fit's circle there is not the iris (made large here) and is left out
+    lim = np.full((n, 2), fit)
+    lim[20:60] = 30.0
+    lim[:10] = 30.0  # no face: left out
+    return found, np.full((n, 2), mesh), lim, ear
+
+
+def test_the_clip_iris_size_is_the_limbus_fits_over_open_eyes_and_the_mesh_with_too_few_fits():
+    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, MIN_SCALE_FITS, switch_iris_px
+    from aspectus.webcam.iris_appearance import small_iris
+
+    assert _FIT < AUTO_APPEARANCE_BELOW_PX <= _MESH and _TRUE < AUTO_APPEARANCE_BELOW_PX
+    found, mesh, lim, ear = _clip_rows()
+    small, size = small_iris(found, mesh, lim, ear, AUTO_APPEARANCE_BELOW_PX)
+    assert small  # the face mesh's 17.35 px alone took the limbus fit
+    assert size == {"iris_px": pytest.approx(_FIT), "iris_px_source": "limbus fit", "limbus_fits": 2 * 150,
+                    "mesh_iris_px": pytest.approx(_MESH)}
+    # the other way round: a mesh below the threshold and fits above it take the limbus fit
+    assert not small_iris(*_clip_rows(mesh=16.9, fit=17.6), AUTO_APPEARANCE_BELOW_PX)[0]
+    # fewer than MIN_SCALE_FITS (30) open-eye fits, both eyes counted: the face mesh's size, as the iris scale
+    # falls back (gaze.limbus_iris_scale)
+    assert MIN_SCALE_FITS == 30
+    few = np.full_like(lim, np.nan)
+    few[100:114] = _FIT  # 28 fits
+    small, size = small_iris(found, mesh, few, ear, AUTO_APPEARANCE_BELOW_PX)
+    assert not small and size["iris_px_source"] == "face mesh" and size["limbus_fits"] == 28
+    assert size["iris_px"] == pytest.approx(_MESH)
+    few[114] = _FIT  # 30
+    assert small_iris(found, mesh, few, ear, AUTO_APPEARANCE_BELOW_PX)[1]["iris_px_source"] == "limbus fit"
+    # no limbus fits at all (refine_iris off), no face: the mesh's size, or none
+    assert switch_iris_px(found, mesh, None, ear)["iris_px"] == pytest.approx(_MESH)
+    none = switch_iris_px(np.zeros(5, bool), np.full((5, 2), np.nan), np.full((5, 2), np.nan), np.full((5, 2), 0.3))
+    assert np.isnan(none["iris_px"]) and not small_iris(np.zeros(5, bool), np.full((5, 2), np.nan), None,
+                                                        np.full((5, 2), 0.3), AUTO_APPEARANCE_BELOW_PX)[0]
+
+
+def _record_rows(n, mesh, fit, width):
+    from aspectus.webcam.frame_geometry import LIMBUS_DIAM
+
+    rows = np.zeros((n, width))
+    rows[:, 1] = 1.0
+    rows[:, 19:21] = mesh
+    rows[:, LIMBUS_DIAM] = fit
+    rows[:, 29:31] = 0.3
+    return rows
+
+
+def test_the_eye_patches_are_kept_by_the_first_frames_limbus_fits_not_the_face_mesh():
+    """The pipeline's first-frames decision (pipeline._SplitSink) reads the same size as the whole clip's."""
+    from aspectus.webcam.frame_geometry import RECORD_WIDTH
+    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX
+    from aspectus.webcam.iris_appearance import PATCH_BYTES
+    from aspectus.webcam.pipeline import AUTO_DECIDE_FRAMES, _Grow, _PatchFile, _SplitSink
+
+    width = RECORD_WIDTH + 2
+    for mesh, fit, kept in ((_MESH, _FIT, True), (16.9, 17.6, False)):
+        patches = _PatchFile(PATCH_BYTES)
+        sink = _SplitSink(_Grow(width), patches, width, decide_below_px=AUTO_APPEARANCE_BELOW_PX)
+        for row in _record_rows(AUTO_DECIDE_FRAMES + 50, mesh, fit, width + PATCH_BYTES // 8):
+            sink(row)
+        assert sink.keep is kept and len(patches) == (AUTO_DECIDE_FRAMES + 50 if kept else 0), (mesh, fit)
+        assert sink.first_size["iris_px_source"] == "limbus fit"
+        assert sink.first_size["iris_px"] == pytest.approx(fit)
+        patches.close()
+
+
+@pytest.mark.parametrize("side_arcs", [False, True])
+def test_the_geometry_decides_on_the_first_frames_limbus_fits_whatever_the_batches(monkeypatch, side_arcs):
+    """The per-frame geometry's decision (patches sampled on, small face) reads the limbus fits of the first
+    DECIDE_FRAMES frames with a face and acts from the next frame on, however the frames come in batches (the
+    thread runner takes what is queued). With ``side_arcs`` (both fits made while undecided) it reads the fits
+    without the side-arc rule, on which the size rule was measured (frame_geometry.decision_limbus_diam); the
+    fits with it are given a diameter on the other side of the threshold here."""
+    from aspectus.webcam import frame_geometry as fg
+    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX
+
+    def run(mesh, fit, batches):
+        geo = fg.FrameGeometry(fov_deg=60.0, refine_iris=True, anchor_set="auto", appearance=True,
+                               appearance_below_px=AUTO_APPEARANCE_BELOW_PX, side_arcs=side_arcs)
+        seen = []
+
+        def row_before_iris(pts_s, size_px, points_px, face_count, eyes=None, eyes_origin_px=(0, 0)):
+            seen.append((geo._sampling, geo.small_face))
+            row = np.full(geo.width, np.nan)
+            row[0], row[1], row[2] = pts_s, float(points_px is not None), face_count
+            if points_px is None:
+                return row, None
+            row[19:21], row[29:31] = mesh, 0.3
+            iris = np.array([[100.0, 100.0], [160.0, 100.0]])
+            return row, ((None, None, iris, np.full(2, mesh)), np.zeros(2))
+
+        def fits(jobs, variants, **kw):
+            other = 2 * AUTO_APPEARANCE_BELOW_PX - fit  # the side-arc fits' diameter: across the threshold
+
+            def one(job, d):
+                return job[2], np.ones(2, bool), np.full(2, d), np.full(2, 50.0)
+            return ([one(j, fit) if v in ("plain", "both") else None for j, v in zip(jobs, variants)],
+                    [one(j, other) if v in ("side", "both") else None for j, v in zip(jobs, variants)])
+
+        monkeypatch.setattr(geo, "_row_before_iris", row_before_iris)
+        monkeypatch.setattr(fg, "limbus_centres_variants", fits)
+        k = 0
+        for b in batches:  # frame 3 has no face: the 150th face frame is frame 150
+            geo.rows([(k + j, (640, 480), None if k + j == 3 else np.zeros((478, 3)), 1) for j in range(b)])
+            k += b
+        return seen, geo.state()["small_face"]
+
+    n = fg.DECIDE_FRAMES + 40
+    for mesh, fit, small in ((_MESH, _FIT, True), (16.9, 17.6, False)):
+        seen, small_face = run(mesh, fit, [16] * (n // 16) + [n % 16])
+        assert small_face is small
+        assert seen[:fg.DECIDE_FRAMES + 1] == [(True, None)] * (fg.DECIDE_FRAMES + 1)
+        assert seen[fg.DECIDE_FRAMES + 1:] == [(small, small)] * (n - fg.DECIDE_FRAMES - 1)
+        assert run(mesh, fit, [5, 1, 30, 120, 7, 16, 1, 10])[0] == seen
+
+
 @pytest.mark.slow
 def test_auto_takes_the_appearance_estimate_on_a_small_iris(rendered_clip, tmp_path):
     from aspectus.webcam.pipeline import process_clip
@@ -66,8 +195,12 @@ def test_auto_takes_the_appearance_estimate_on_a_small_iris(rendered_clip, tmp_p
     c = gm["iris_estimate"]
     assert gaze["iris_combine"] == "auto"
     assert c["used"] == "appearance", c
-    assert c["median_iris_px"] < c["threshold_px"] and c["first_frames_median_iris_px"] < c["threshold_px"]
-    assert 9.0 <= c["median_iris_px"] <= 13.0  # 11.7 mm at 60 cm through a 60 deg lens 640 px wide: 10.8 px
+    assert c["iris_px"] < c["threshold_px"] and c["first_frames_iris_px"] < c["threshold_px"]
+    assert c["iris_px_source"] == c["first_frames_iris_px_source"] == "limbus fit" and c["limbus_fits"] >= 30
+    assert 9.0 <= c["iris_px"] <= 13.0  # 11.7 mm at 60 cm through a 60 deg lens 640 px wide: 10.8 px
+    # the whole clip's figure is the iris scale's limbus median (the same frames, the same rule)
+    assert c["iris_px"] == pytest.approx(gm["iris_scale"]["limbus_median_px"], abs=0.01)
+    assert 9.0 <= c["mesh_median_iris_px"] <= 13.0
     assert "below" in c["reason"]
     assert any(gm["iris_appearance"]["blocks"][0][e]["fitted"] for e in ("right", "left"))
     verdict = json.loads((tmp_path / clip.stem / "run.json").read_text())["quality"]["verdict"]
@@ -83,7 +216,8 @@ def test_auto_keeps_the_limbus_fit_and_no_patches_on_a_large_iris(rendered_clip,
     gm, _ = _choice(tmp_path, clip)
     c = gm["iris_estimate"]
     assert c["used"] == "limbus", c
-    assert c["first_frames_median_iris_px"] >= c["threshold_px"]  # about 22 px
+    assert c["first_frames_iris_px"] >= c["threshold_px"]  # about 22 px
+    assert c["first_frames_iris_px_source"] == "limbus fit"
     assert c["first_frames"] == AUTO_DECIDE_FRAMES
     assert "appearance" not in json.loads((tmp_path / clip.stem / "run.json").read_text())["quality"]["verdict"]
     assert "no eye patches kept" in c["reason"]
