@@ -1160,8 +1160,10 @@ class MainWindow(QMainWindow):
         return self.guide
 
     def about(self):
+        from aspectus import __version__
+
         QMessageBox.about(self, "About aspectus",
-                          "<b>aspectus</b> – eye-movement features from recorded webcam clips, computed offline "
+                          f"<b>aspectus</b> {__version__} – eye-movement features from recorded webcam clips, computed offline "
                           "on this computer.<br><br>Webcam gaze estimates are research measurements with known "
                           "error, not a diagnostic, disciplinary or surveillance instrument. Classroom video "
                           "shows minors: keep to your consent, assent and ethics approval, and share features "

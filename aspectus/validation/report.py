@@ -529,7 +529,7 @@ def render_pair_report(result, pngs: dict[str, bytes]) -> str:
         ("time both recorded", f"{overlap_text(m['overlap_s'])} (after alignment)"),
         ("windows", f"{m['windows']} of {p['window_s']:g} s, one every {p['step_s']:g} s"),
         ("task segments", m["segments"]), ("ICC reported", m["icc_form"]),
-        ("aspectus", m["aspectus"]))))
+        ("aspectus version", m["aspectus"]))))
     if m.get("window_choice"):
         parts.append(f"<p class='small'>{html.escape(m['window_choice'])}</p>")
 
