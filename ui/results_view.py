@@ -41,11 +41,21 @@ _QUALITY_LABELS = {
 }
 
 
+def value_words(column: str) -> dict:
+    """The values of ``column`` the tables show in words ({value: words}); run.json and exports keep the values."""
+    if column == "precision_tier":
+        from aspectus.webcam.pipeline import TIER_WORDS
+
+        return TIER_WORDS
+    return {}
+
+
 def _tier_tip() -> str:
-    from aspectus.webcam.pipeline import PRECISION_TIERS, precision_limits_text
+    from aspectus.webcam.pipeline import PRECISION_TIERS, TIER_WORDS, precision_limits_text
 
     return ("which features the clip's gaze precision supports (the verdict says why): "
-            + "; ".join(f"{tier}: {', '.join(features)}" for tier, _, _, features in PRECISION_TIERS)
+            + "; ".join(f"{TIER_WORDS.get(tier, tier)} ('{tier}' in exports and run.json): {', '.join(features)}"
+                        for tier, _, _, features in PRECISION_TIERS)
             + ". " + precision_limits_text())
 
 
@@ -101,6 +111,8 @@ class DataFrameModel(QAbstractTableModel):
                 return f"{v:.3f}" if abs(v) < 100 else f"{v:.1f}"
             if isinstance(v, (bool, np.bool_)):
                 return "yes" if v else "no"
+            if self.human_headers and isinstance(v, str):
+                return value_words(str(self._df.columns[index.column()])).get(v, v)  # exports keep the values
             return "" if v is None else str(v)
         if role == Qt.ToolTipRole and isinstance(v, str) and len(v) > 40:
             return v  # a long text (a verdict) is read whole on hover, however narrow its column

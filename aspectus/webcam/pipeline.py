@@ -721,6 +721,11 @@ PRECISION_TIERS = (
 )
 
 
+#: Each tier in a few words for tables people read (the app's quality summary); run.json keeps the tier's name
+TIER_WORDS = {"events": "fixations and saccades", "coarse": "coarse gaze direction",
+              "minimal": "blinks and head movement only"}
+
+
 #: The SD limit of each tier, per degree of its RMS-S2S limit. The tiers were set on the RMS-S2S alone; a clip is
 #: now in a tier only if its SD of samples about their fixation's mean (``noise_sd_deg``) is within the tier's
 #: limit too. For white noise of per-axis SD ``s`` the RMS-S2S is ``2 s`` and that SD ``sqrt(2) s``

@@ -336,7 +336,14 @@ def test_export_tables(qtbot, window, processed, tmp_path):
     for h in ("Duration (s)", "Face found\n(share)", "Median distance\n(mm)", "Precision tier", "Verdict"):
         assert h in heads, (h, heads)
     tier_col = list(q.columns).index("precision_tier")
-    assert "events:" in rv.model.headerData(tier_col, Qt.Horizontal, Qt.ToolTipRole)
+    assert "fixations and saccades ('events' in exports and run.json):" in rv.model.headerData(
+        tier_col, Qt.Horizontal, Qt.ToolTipRole)
+    # the table shows each tier in words; the export above keeps the tier's name
+    from aspectus.webcam.pipeline import TIER_WORDS
+
+    for i, stem in enumerate(q["clip"]):
+        shown = rv.model.data(rv.model.index(i, tier_col), Qt.DisplayRole)
+        assert shown == TIER_WORDS[q["precision_tier"].iloc[i]], (stem, shown)
     verdict = rv.model.index(0, list(q.columns).index("verdict"))
     assert rv.model.data(verdict, Qt.ToolTipRole) == q["verdict"].iloc[0]
     assert rv.n_histogram_fixations > 0
