@@ -466,7 +466,8 @@ class ValidationView(QWidget):
                 shown.append(f"… and {len(items) - 5} more (see participants.csv)")
             return shown
 
-        lines = [f"<b>Study:</b> {n_ok} clip(s) compared with their reference"
+        lines = [f"<b>Study:</b> {n_ok} clip{'' if n_ok == 1 else 's'} compared with {'its' if n_ok == 1 else 'their'} "
+                 "reference"
                  + (f", {n_bad} failed" if n_bad else "") + f". Summary below; report, pooled and per-participant "
                  f"tables in <b>{out}</b> (report.html, summary.csv, participants.csv). Participant and session "
                  f"labels were taken from the clip names (validation_manifest.csv; edit it and run "
@@ -475,8 +476,8 @@ class ValidationView(QWidget):
         lines += listed(list(extra.get("skipped") or []), "left out – ")
         outdated = list(extra.get("outdated") or [])
         if outdated:
-            lines.append(f"{len(outdated)} clip(s) were processed with other parameters than the study's current "
-                         f"ones and compared as they are: " + ", ".join(outdated[:5])
+            lines.append(f"{len(outdated)} clip{' was' if len(outdated) == 1 else 's were'} processed with other "
+                         "parameters than the study's current ones and compared as they are: " + ", ".join(outdated[:5])
                          + (" …" if len(outdated) > 5 else ""))
         from aspectus.validation.report import compact_agreement, compact_participants
 
@@ -491,7 +492,7 @@ class ValidationView(QWidget):
             if n_max < MIN_PAIRS:
                 from aspectus.validation.report import withheld_reason
 
-                lines.append(withheld_reason(n_max))
+                lines.append(withheld_reason(n_max, pooled=True))
         self.status.setStyleSheet("")
         self.status.setText("<br>".join(lines))
         self.offset_label.setText("")

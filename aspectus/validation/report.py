@@ -265,11 +265,18 @@ def confidence_words(conf: float) -> str:
     return "clear" if conf >= 0.5 else ("probable" if conf >= 0.25 else "uncertain")
 
 
-def withheld_reason(n: int, what: str = "windows", *, min_pairs: int = MIN_PAIRS) -> str:
-    """Why statistics are not shown below ``min_pairs`` pairs, and how to get more pairs."""
-    more = ("shorter windows (--window-s; in the app: Feature window length), longer recordings, or several clips "
-            "compared together (aspectus validate with a folder or manifest; in the app: Compare all clips)"
-            if what == "windows" else "more participants")
+def withheld_reason(n: int, what: str = "windows", *, min_pairs: int = MIN_PAIRS, pooled: bool = False) -> str:
+    """Why statistics are not shown below ``min_pairs`` pairs, and how to get more pairs (``pooled``: the windows
+    of a whole study, which comparing several clips together cannot add to)."""
+    if what != "windows":
+        more = "more participants"
+    elif pooled:
+        more = ("shorter windows (in the app: Feature window length; aspectus validate: --window-s), or more or "
+                "longer recordings with a lab tracker")
+    else:
+        more = ("shorter windows (--window-s; in the app: Feature window length), longer recordings, or several "
+                "clips compared together (aspectus validate with a folder or manifest; in the app: Compare all "
+                "clips)")
     shown = what.removesuffix("s") if n == 1 else what
     return (f"Only {n} {shown} could be paired. With fewer than {min_pairs}, correlations, ICCs and limits of "
             f"agreement are too uncertain to mean anything (their 95 % intervals span most of the possible range), "
@@ -460,14 +467,14 @@ def _facts(items) -> str:
         f"<tr><td>{html.escape(k)}</td><td>{html.escape(str(v))}</td></tr>" for k, v in items) + "</tbody></table>"
 
 
-def _agreement_section(agreement: pd.DataFrame, scope: str, what: str) -> str:
+def _agreement_section(agreement: pd.DataFrame, scope: str, what: str, *, pooled: bool = False) -> str:
     table = compact_agreement(agreement, scope)
     if not len(table):
         return ""
     n_max = int(pd.to_numeric(table["n"]).max())
     out = _table_html(table, cls="compact")
     if n_max < MIN_PAIRS:
-        out = f"<p class='note'>{html.escape(withheld_reason(n_max, what))}</p>" + out
+        out = f"<p class='note'>{html.escape(withheld_reason(n_max, what, pooled=pooled))}</p>" + out
     elif (pd.to_numeric(table["n"]) < MIN_PAIRS).any():
         out += (f"<p class='small'>\"not shown\": fewer than {MIN_PAIRS} pairs for that feature (windows where it "
                 "could not be measured on one side are left out).</p>")
@@ -785,7 +792,7 @@ def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.Dat
         parts.append("<div class='note'><strong>Not paired (not in any figure below)</strong><ul>" + "".join(
             f"<li>{html.escape(m)}</li>" for m in unpaired) + "</ul>The pairing is in pairing.csv.</div>")
     parts.append("<h2>Summary: all windows of all participants</h2>"
-                 + _agreement_section(pooled, "window", "windows"))
+                 + _agreement_section(pooled, "window", "windows", pooled=True))
     parts.append("<p class='small'>Windows taken as independent: every paired window of every participant is one point (see \"Which "
                  "figure is which\" below: these intervals are too narrow when participants differ). r: Pearson "
                  f"correlation; ICC: {html.escape(ICC_FORM_TEXT.get(params.icc_form, params.icc_form))}; bias: mean "

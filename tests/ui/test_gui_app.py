@@ -496,7 +496,10 @@ def test_compare_all_clips_uses_given_offset_and_can_be_cancelled(qtbot, window,
     qtbot.waitUntil(lambda: bool(ended), timeout=120_000)
     assert ended == [str(out)], vv.status.text()
     text = vv.status.text()
-    assert "1 clip(s) compared" in text and "1 failed" in text and "p02_s01" in text, text
+    assert "1 clip compared with its reference" in text and "1 failed" in text and "p02_s01" in text, text
+    # too few windows: the way to more is not "compare several clips together" - that is what was done
+    if "could be paired" in text:
+        assert "Compare all clips" not in text.split("could be paired", 1)[1], text
     res = vv.study_outcome
     assert vv.model.rowCount() == (len(res.summary) or len(res.per_participant)) > 0
     man = pd.read_csv(out / "validation_manifest.csv")

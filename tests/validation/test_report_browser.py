@@ -204,3 +204,16 @@ def test_report_fits_screen_and_a4_and_images_load(reports, which):
             assert pdf[:5] == b"%PDF-" and len(pdf) > 10_000
         finally:
             browser.close()
+
+
+def test_too_few_windows_says_how_to_get_more_for_a_pair_and_for_a_study():
+    """Below the minimum the reason names the ways to more windows that apply: a single pair may be compared with
+    others; a study's pooled windows cannot be helped that way."""
+    from aspectus.validation.report import withheld_reason
+
+    one = withheld_reason(4)
+    study = withheld_reason(4, pooled=True)
+    assert "Only 4 windows could be paired" in one and "several clips compared together" in one
+    assert "Only 4 windows could be paired" in study and "several clips" not in study and "Compare all" not in study
+    assert "Feature window length" in study and "longer recordings" in study
+    assert withheld_reason(1, "participants").startswith("Only 1 participant could be paired")
