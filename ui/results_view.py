@@ -244,7 +244,7 @@ def draw_histogram(fig, durations_ms: np.ndarray, what: str = ""):
         ax.text(0.5, 0.5, "No fixations to show", ha="center", va="center", transform=ax.transAxes, color="#555")
         ax.set_title(f"Fixation durations{', ' + what if what else ''}", fontsize=9)
     ax.set_xlabel("fixation duration (ms)", fontsize=8)
-    ax.set_ylabel("count", fontsize=8)
+    ax.set_ylabel("number of fixations", fontsize=8)
     ax.tick_params(labelsize=7)
     return int(len(d))
 

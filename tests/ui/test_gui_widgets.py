@@ -102,6 +102,7 @@ def test_duration_histogram_counts_whole_fixations_and_labels_the_overflow_bar()
     assert draw_histogram(fig, d, "p01_s01, whole clip") == len(d)
     ax = fig.axes[0]
     assert ax.get_title() == f"Fixation durations, p01_s01, whole clip (n = {len(d)})"
+    assert ax.get_ylabel() == "number of fixations" and ax.get_xlabel() == "fixation duration (ms)"
     fig.canvas.draw()
     ticks = [t for t in ax.get_yticks() if ax.get_ylim()[0] <= t <= ax.get_ylim()[1]]
     assert ticks and all(float(t).is_integer() for t in ticks)
