@@ -153,11 +153,16 @@ def run(args) -> int:
 
 
 def _report_study(res) -> int:
-    print(f"{len(res.results)} pair(s) validated, {len(res.failures)} failed -> {res.paths['report']}")
+    n = len(res.results)
+    print(f"{n} pair{'' if n == 1 else 's'} validated, {len(res.failures)} failed -> {res.paths['report']}")
+    line = _pooled_line(getattr(res, "pooled", None))
+    if line:
+        print(line)
     for k, v in res.failures.items():
         print(f"  failed {k}: {v}", file=sys.stderr)
     if res.unpaired:
-        print(f"  {len(res.unpaired)} clip(s)/reference(s) not paired, listed above and in "
+        print(f"  {len(res.unpaired)} file{'' if len(res.unpaired) == 1 else 's'} not paired (clips or references), "
+              "listed above and in "
               f"{res.paths.get('pairing', 'pairing.csv')}", file=sys.stderr)
     return 1 if res.failures else 0
 
@@ -184,6 +189,26 @@ def _run_folders(args, params, screen, mapping) -> int:
                          figures=not args.no_figures, target_rule=args.target_rule,
                          progress=lambda f, m: print(f"[{f:4.0%}] {m}", file=sys.stderr))
     return _report_study(res)
+
+
+def _pooled_line(pooled) -> str:
+    """The study's headline figure in a line: the per-window fixation count's r and ICC over every paired window
+    (or why they are not given), with a pointer to the report for the figures that allow for several windows per
+    participant."""
+    from aspectus.validation.windows import MIN_PAIRS
+
+    if pooled is None or not len(pooled) or "feature" not in pooled:
+        return ""
+    fc = pooled[(pooled["scope"] == "window") & (pooled["feature"] == "fixation_count")]
+    if not len(fc):
+        return ""
+    n = int(fc["n"].iloc[0])
+    if n < MIN_PAIRS:
+        return (f"Fixations per window, all windows pooled: {n} windows, too few for r and ICC (at least "
+                f"{MIN_PAIRS}); shorter windows (--window-s) or more recordings give more.")
+    return (f"Fixations per window, all {n} windows pooled: r {_f(fc['pearson_r'].iloc[0])}, ICC "
+            f"{_f(fc['icc'].iloc[0])} (windows taken as independent; the report also gives the figures that allow "
+            "for several windows per participant).")
 
 
 def _f(v) -> str:

@@ -221,6 +221,17 @@ def test_folder_study_end_to_end(study, tmp_path):
     assert set(per["status"]) == {"ok", "no reference", "no clip"}
     side = json.loads((out / "study_validation.json").read_text())
     assert len(side["unpaired"]) == 2 + 5 and "Bakdash" in side["pooling"]["rmcorr"]
+    # the terminal's headline: the pooled per-window fixation count as the table has it, or why it is withheld
+    from aspectus.cli.validate_cmd import _pooled_line
+    from aspectus.validation.windows import MIN_PAIRS
+
+    fcount = res.pooled[(res.pooled["scope"] == "window") & (res.pooled["feature"] == "fixation_count")].iloc[0]
+    line = _pooled_line(res.pooled)
+    if fcount["n"] >= MIN_PAIRS:
+        assert f"all {int(fcount['n'])} windows pooled: r {fcount['pearson_r']:.2f}, ICC {fcount['icc']:.2f}" in line
+    else:
+        assert f"{int(fcount['n'])} windows, too few for r and ICC" in line
+    assert "nan" not in line.lower()
 
     # the repeated-measures figures equal the functions applied to the pooled windows, participants as subjects
     pooled = pd.read_csv(out / "pooled_agreement.csv")
