@@ -10,7 +10,8 @@ large part from the 7 + 34 frames (right, left eye) where the limbus fit failed:
 point, 2-3 px off vertically there, so the gaze stepped by 5-8 deg each time the source changed. With the true
 centres in those frames the figures were 1.60 deg and gain 0.89; the gaps bridged in the head
 (:func:`aspectus.webcam.gaze.fill_iris_gaps`) read 1.53 deg and 0.87. The rest is the limbus fit's own vertical
-error on fitted frames (SD 0.75 / 1.09 px right / left; docs/notes/gaze-measurement.md).
+error on fitted frames (SD 0.75 / 1.09 px right / left; docs/notes/gaze-measurement.md). Those figures are the
+limbus fit's without the side-arc rule, which the default now applies (its own test below).
 """
 from __future__ import annotations
 
@@ -29,8 +30,8 @@ def cell(lund_dir, tmp_path_factory):
 
     cond = G.Condition("25px", size_px=(1280, 720), distance_mm=530.0, trial="TL20_img_konijntjes", face="hopper")
     res, trial = G.render_condition(cond, tmp_path_factory.mktemp("large"), lund_dir)
-    with G.gaze_inputs() as kw:
-        samples, meta = extract_samples(res.path, params=ProcessParams(gaze=GazeParams()))
+    with G.gaze_inputs() as kw:  # the limbus fit without the side-arc rule (the default before it), as measured
+        samples, meta = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(side_arcs=False)))
     return dict(kw), samples, meta, res.truth, trial, res.path
 
 
@@ -46,7 +47,8 @@ def test_frames_without_a_limbus_fit_are_bridged_not_taken_from_the_raw_mesh_poi
     assert gaps["left"]["filled_frames"] + gaps["right"]["filled_frames"] >= 20  # measured 7 + 25
     now = G.measure(samples, truth, trial)
     raw = np.where(np.isfinite(kw["iris_px"]), kw["iris_px"], kw["iris_mesh_px"])  # the mesh point in the gaps
-    before = G.measure(G.with_gaze(samples, **(kw | {"iris_px": raw}), params=GazeParams()), truth, trial)
+    before = G.measure(G.with_gaze(samples, **(kw | {"iris_px": raw}), params=GazeParams(side_arcs=False)), truth,
+                       trial)
     # measured 2.02 -> 1.53 deg, pitch r 0.969 -> 0.977, gain 0.81 -> 0.87 (issue 15's floor RMS-S2S <= 1.5 is
     # not met: the limbus fit's own vertical error on fitted frames remains)
     assert now["rms_s2s_deg"] <= 0.85 * before["rms_s2s_deg"]
@@ -56,21 +58,23 @@ def test_frames_without_a_limbus_fit_are_bridged_not_taken_from_the_raw_mesh_poi
     assert now["yaw_r"] >= 0.98 and 0.9 <= now["yaw_gain"] <= 1.1  # measured 0.986-0.987, gain 0.97 -> 0.99
 
 
-def test_side_arc_option_lowers_the_noise_and_meets_the_floor_on_this_cell(cell):
-    """``GazeParams(side_arcs=True)``: the limbus candidates within 30 deg of the horizontal count as rim
-    (aspectus.webcam.limbus.SIDE_DEG), which keeps the one-sided fit off its second solution through the lower
-    lid's junction. An option, not the default: by the rule written before measuring (docs/notes/gaze-measurement.md,
-    2026-12-05) it lowered RMS-S2S on all four 25 px grid cells and six held-out dev clips, but issue 4's end-to-end
-    check fell below its floor with it (per-window fixation-count r 0.850 -> 0.734). Measured here 1.53 -> 1.39
-    deg (issue 15's floor RMS-S2S <= 1.5 met with the option), pitch r 0.977 -> 0.979, gain 0.87 -> 0.89."""
+def test_side_arc_rule_lowers_the_noise_and_meets_the_floor_on_this_cell(cell):
+    """The default ``GazeParams(side_arcs=True)``: the limbus candidates within 30 deg of the horizontal count as
+    rim (aspectus.webcam.limbus.SIDE_DEG), which keeps the one-sided fit off its second solution through the lower
+    lid's junction. The default by the rules written before measuring (docs/notes/gaze-measurement.md,
+    2026-12-05): it lowered RMS-S2S on all four 25 px grid cells and six held-out dev clips, and kept issue 4's
+    per-window fixation-count r over eight fresh draws of the end-to-end clip. Measured here against the fit
+    without it (the fixture's): 1.53 -> 1.39 deg (issue 15's floor RMS-S2S <= 1.5 met), pitch r 0.977 -> 0.979,
+    gain 0.87 -> 0.89."""
     from aspectus.webcam.gaze import GazeParams
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
     _, samples, _, truth, trial, path = cell
-    now = G.measure(samples, truth, trial)
-    side, meta = extract_samples(path, params=ProcessParams(gaze=GazeParams(side_arcs=True)))
+    assert GazeParams().side_arcs
+    plain = G.measure(samples, truth, trial)
+    side, meta = extract_samples(path, params=ProcessParams(gaze=GazeParams()))
     assert meta["gaze_model"]["iris_estimate"]["used"] == "limbus"
     got = G.measure(side, truth, trial)
-    assert got["rms_s2s_deg"] <= 1.5 and got["rms_s2s_deg"] <= now["rms_s2s_deg"] - 0.08  # issue 15's floor
+    assert got["rms_s2s_deg"] <= 1.5 and got["rms_s2s_deg"] <= plain["rms_s2s_deg"] - 0.08  # issue 15's floor
     assert got["pitch_r"] >= 0.97 and got["pitch_gain"] >= 0.85
     assert got["yaw_r"] >= 0.98 and 0.9 <= got["yaw_gain"] <= 1.1
