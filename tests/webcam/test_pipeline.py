@@ -448,12 +448,15 @@ def test_reprocessing_keeps_a_users_other_files_and_refuses_unlisted_outputs(pro
 def test_appearance_without_enough_frames_reads_the_iris_as_the_limbus_setting_does(clip):
     """``iris_combine="appearance"`` on a clip too short to learn the regression (90 frames, 150 open-eye frames
     a block needed) takes the limbus fit: the same gaze as ``iris_combine="limbus"``, frames where the fit failed
-    included (bridged from the neighbouring fits, not the face mesh's raw iris point)."""
+    included (bridged from the neighbouring fits, not the face mesh's raw iris point). The fit as the appearance
+    estimate learns from it, without the side-arc rule (``GazeParams.side_arcs`` acts only where the limbus fit is
+    the chosen estimate), so compared with ``limbus`` without it."""
     from aspectus.webcam.gaze import GazeParams, describe_iris_estimate
     from aspectus.webcam.pipeline import extract_samples
 
     app, meta_app = extract_samples(clip, params=ProcessParams(gaze=GazeParams(iris_combine="appearance")))
-    lim, meta_lim = extract_samples(clip, params=ProcessParams(gaze=GazeParams(iris_combine="limbus")))
+    lim, meta_lim = extract_samples(clip, params=ProcessParams(gaze=GazeParams(iris_combine="limbus",
+                                                                               side_arcs=False)))
     gm = meta_lim["gaze_model"]
     assert sum(v["filled_frames"] for v in gm["iris_gaps"].values()) > 0  # the fit failed somewhere, bridged
     assert meta_app["gaze_model"]["iris_gaps"] == gm["iris_gaps"]
