@@ -45,7 +45,9 @@ def test_the_default_chooses_on_the_limbus_fits_size_and_takes_the_appearance_es
 
 def test_the_appearance_estimate_is_guarded_at_the_level_reached(cells):
     d, lim = cells["default"], cells["limbus"]
-    assert d["rms_s2s_deg"] <= 2.0 and d["rms_s2s_deg"] <= 0.8 * lim["rms_s2s_deg"]  # 1.83 against 2.66
+    # 1.83 against 2.66 (the limbus row 2.44 since the side-arc rule is the default: re-estimated from fits that
+    # carry it over the first 150 frames, docs/notes/gaze-measurement.md)
+    assert d["rms_s2s_deg"] <= 2.0 and d["rms_s2s_deg"] <= 0.8 * lim["rms_s2s_deg"]
     assert d["rms_s2s_fix_deg"] <= 1.7  # 1.53
     assert d["pitch_r"] >= 0.91 and d["pitch_r"] >= lim["pitch_r"]  # 0.927 against 0.908
     assert 0.85 <= d["pitch_gain"] <= 1.15  # 0.96
