@@ -12,7 +12,7 @@ import numpy as np
 from aspectus._env import import_cv2
 from aspectus.webcam.eye_anchors import (MIN_SCORE, OFFSET_RADII, PATCH_RADII, PATIENCE_FRAMES, RESCALE_FRACTION,
                                          SEARCH_RADII, _grey, _grey_box_ok, _peak)
-from aspectus.webcam.limbus import EDGE_NOISE_PX, _R_TOL, fit_circles
+from aspectus.webcam.limbus import EDGE_NOISE_PX, SIDE_DEG, _R_TOL, fit_circles
 
 
 def fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all=None, edge="steepest"):
@@ -70,8 +70,14 @@ def fit_many(cv2, eyes: list, cos_a, sin_a, min_points, dist_all=None, edge="ste
         return out
     sel = np.flatnonzero(ok)
     pts = np.stack([qx[sel], qy[sel]], axis=2)
+    # the side-arc rule (GazeParams.side_arcs, the default since 2026-12-05; a change of method, copied from
+    # limbus._fit_many): the candidates near the horizontal are rim, the one-sided weights apply to the others
+    sides = np.array([getattr(eyes[k], "side_arcs", False) for k in sel])
+    sided = None
+    if sides.any():
+        sided = ~sides[:, None] | (np.abs(sin_a)[None, :] >= np.sin(np.radians(SIDE_DEG)))
     c, rfit, rms = fit_circles(pts, keep[sel], centre[sel], r[sel], r_tol=_R_TOL, inside_px=EDGE_NOISE_PX,
-                               r_start=r_start[sel])
+                               r_start=r_start[sel], sided=sided)
     grown = rfit >= (1 + _R_TOL) * r[sel] * (1 - 1e-9)
     if grown.any():
         # With the one-sided weights a circle that holds every candidate inside it costs little, so a fit
