@@ -43,13 +43,16 @@ def _seeds(text: str) -> list[int]:
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--seeds", required=True, help="render seeds, e.g. 14-21 or 2,3,5")
-    ap.add_argument("--option", default="side_arcs", help="GazeParams field set true in the 'on' run")
+    ap.add_argument("--option", default="side_arcs", help="GazeParams field set true in the 'on' run, or "
+                    "FIELD=VALUE (e.g. iris_combine=limbus)")
     ap.add_argument("--work", type=Path, required=True, help="folder for the clips and outputs (kept)")
     ap.add_argument("--json", type=Path, help="append one JSON line per seed and mode here")
     a = ap.parse_args()
     a.work.mkdir(parents=True, exist_ok=True)
     physio = E2E.write_reference(LUND, a.work)
-    modes = {"off": None, "on": ProcessParams(gaze=replace(GazeParams(), **{a.option: True}))}
+    key, _, value = a.option.partition("=")
+    value = True if not value or value.lower() == "true" else (False if value.lower() == "false" else value)
+    modes = {"off": None, "on": ProcessParams(gaze=replace(GazeParams(), **{key: value}))}
     r_of: dict[str, list[float]] = {m: [] for m in modes}
     for seed in _seeds(a.seeds):
         d = a.work / f"seed{seed}"
