@@ -19,6 +19,10 @@ HEADER = ["| iris | picture, compression, face, trial | setting | rms_s2s deg | 
           "| yaw r / gain | pitch r / gain | kappa (truth) |", "| --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
 
 
+#: the renderer's iris colours in words (bench_gaze_grid.py's ``iris_colour``; empty for the dark default)
+COLOUR_WORDS = {"light_blue_grey": "light blue-grey"}
+
+
 def describe(r) -> str:
     """The cell's set-up in words, e.g. ``640x480 CRF 28, hopper, UH21, seed 1``."""
     size = str(r["size_px"]).strip("()").replace(", ", "x")
@@ -32,6 +36,15 @@ def describe(r) -> str:
         parts.append("mirrored")
     if str(r["name"]).startswith("25px_drift"):
         parts.append("drift without turning")
+    colour = r.get("iris_colour")
+    if isinstance(colour, str) and colour:
+        parts.append(f"{COLOUR_WORDS.get(colour, colour.replace('_', ' '))} irises")
+    reflection = r.get("corneal_reflection")
+    if reflection is not None and pd.notna(reflection) and str(reflection) == "True":
+        parts.append("screen mirrored by the corneas")
+    exposure = r.get("exposure_ms")
+    if exposure is not None and pd.notna(exposure) and float(exposure) > 0:
+        parts.append(f"{float(exposure):g} ms exposure")
     if "fps" in r and pd.notna(r["fps"]) and float(r["fps"]) != 30.0:
         parts.append(f"{float(r['fps']):g} fps")
     if int(r["seed"]) != 0 and "other_seed" in str(r["name"]):

@@ -7,7 +7,9 @@ Six panels against the iris diameter (px, the rendered truth): RMS-S2S of the ga
 gain against the truth, and the fixation kappa against the coders with the detector's kappa on the noise-free
 truth (the ceiling at 30 Hz) as grey dashes. Black: the default setting (filled circle where it took the
 appearance estimate of the iris height, open square where it took the limbus fit); blue and orange, smaller:
-``limbus`` and ``fuse``. H.264 CRF beside the default's markers (23, 28, 33; MPEG-4 part 2 as "m").
+``limbus`` and ``fuse``. H.264 CRF beside the default's markers (23, 28, 33; MPEG-4 part 2 as "m"; "@60" a
+60 fps cell), with a letter for each further condition (:func:`_tag`: g glasses, s lids still, r the screen
+mirrored by the corneas, l light irises, h hazel irises, e a 33 ms exposure).
 Issue 15's floors in grey over the iris sizes they apply to (dotted lines, shaded gain band).
 """
 from __future__ import annotations
@@ -24,11 +26,38 @@ PANELS = [("rms_s2s_deg", "RMS-S2S of the gaze error", "deg", None),
 COMPARE = {"limbus": "tab:blue", "fuse": "tab:orange"}
 
 
+#: one letter per condition beyond the grid's common ones, after the compression tag (e.g. "28r")
+CONDITION_LETTERS = (("glasses", "g"), ("lid_follow", "s"), ("corneal_reflection", "r"), ("iris_colour", None),
+                     ("exposure_ms", "e"))
+
+
+def _flag(r, column) -> bool:
+    v = r.get(column)
+    if v is None or v != v:
+        return False
+    if column == "lid_follow":
+        return float(v) == 0.0
+    if column == "exposure_ms":
+        return float(v) > 0
+    return str(v) == "True"
+
+
 def _tag(r) -> str:
-    """The compression ("m": MPEG-4 part 2, else the CRF), and the frame rate when it is not 30 fps ("28@60")."""
+    """The compression ("m": MPEG-4 part 2, else the CRF), the frame rate when it is not 30 fps ("28@60"), and a
+    letter for each further condition: g glasses (and mirrored), s lids still, r the screen mirrored by the
+    corneas, l light blue-grey irises, h hazel irises, e a 33 ms exposure."""
     tag = "m" if r["codec"] == "mpeg4" else str(int(r["crf"]))
     fps = r.get("fps", 30.0)
-    return tag if fps != fps or fps == 30.0 else f"{tag}@{fps:g}"
+    if not (fps != fps or fps == 30.0):
+        tag = f"{tag}@{fps:g}"
+    for column, letter in CONDITION_LETTERS:
+        if column == "iris_colour":
+            colour = r.get(column)
+            if isinstance(colour, str) and colour:
+                tag += "l" if colour.startswith("light") else colour[0]
+        elif _flag(r, column):
+            tag += letter
+    return tag
 
 
 def main(argv=None) -> int:
@@ -82,8 +111,11 @@ def main(argv=None) -> int:
     handles = [plt.Line2D([], [], color="k", marker="o", ls="", label="default: appearance estimate"),
                plt.Line2D([], [], color="k", marker="s", mfc="none", ls="", label="default: limbus fit"),
                *[plt.Line2D([], [], color=c, marker="o", ls="", ms=4, label=v) for v, c in COMPARE.items()]]
-    fig.legend(handles=handles, loc="lower center", ncol=4, fontsize=9, frameon=False)
-    fig.tight_layout(rect=(0, 0.05, 1, 1))
+    fig.legend(handles=handles, loc="lower center", bbox_to_anchor=(0.5, 0.025), ncol=4, fontsize=9, frameon=False)
+    fig.text(0.5, 0.008, "beside the default's markers: H.264 CRF (m: MPEG-4 part 2), @60: 60 fps; g glasses and "
+             "mirrored, s lids still, r screen mirrored by the corneas, l light irises, h hazel irises, "
+             "e 33 ms exposure", ha="center", va="bottom", fontsize=8, color="0.3")
+    fig.tight_layout(rect=(0, 0.075, 1, 1))
     fig.savefig(argv[1], dpi=110)
     return 0
 

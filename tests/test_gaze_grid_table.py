@@ -53,6 +53,22 @@ def test_the_size_the_default_chose_on_is_named_by_its_source(tmp_path):
     assert "**default** = limbus (mesh 24.9 px)" in out[3]
 
 
+def test_iris_colour_reflection_and_exposure_are_named(tmp_path):
+    rows = [_row("a", "default", iris_estimate="appearance", iris_px_measured=16.0, iris_colour="light_blue_grey"),
+            _row("b", "default", iris_estimate="appearance", iris_px_measured=16.1, iris_colour="hazel"),
+            _row("c", "default", iris_estimate="appearance", iris_px_measured=11.8, corneal_reflection=True),
+            _row("d", "default", iris_estimate="appearance", iris_px_measured=11.7, exposure_ms=33.0),
+            _row("e", "default", iris_estimate="appearance", iris_px_measured=11.5, exposure_ms=0.0)]
+    path = tmp_path / "grid.csv"
+    pd.DataFrame(rows).to_csv(path, index=False)
+    out = T.lines(pd.read_csv(path))
+    assert "640x480 CRF 28, hopper, UH21, light blue-grey irises |" in out[2]
+    assert "UH21, hazel irises |" in out[3]
+    assert "UH21, screen mirrored by the corneas |" in out[4]
+    assert "UH21, 33 ms exposure |" in out[5]
+    assert "| 640x480 CRF 28, hopper, UH21 |" in out[6]  # no exposure set: nothing added
+
+
 def test_a_grid_measured_before_the_clips_sd_existed_shows_a_dash(tmp_path):
     path = tmp_path / "old.csv"
     pd.DataFrame([{k: v for k, v in _row("a", "default", iris_estimate="appearance", iris_px_measured=12.9).items()
