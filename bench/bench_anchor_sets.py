@@ -4,7 +4,7 @@ For each clip (the dev clips of bench/bench_iris_appearance.py - trials and seed
 faces, 8.5 and 12 px at 640 x 480, whose head turns +-15 deg in yaw, both faces, H.264 CRF 28, lids following)
 the per-frame geometry is run again on the captured eye crops and landmarks once per anchor set
 (:data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`), the clip-level chain as the pipeline runs it with the default
-``iris_combine="auto"`` (the appearance estimate of the iris height below a 17.3 px iris) and the figures of
+``iris_combine="auto"`` (the appearance estimate of the iris height below a 16.8 px iris) and the figures of
 tests/_gaze_grid.py are measured: RMS-S2S, yaw / pitch r and gain, kappa against the hand-coders; then the same
 with the renderer's true iris centres, and the error of the head origin's picture position (sideways / vertical
 SD, mm at the true depth, after the clip's median: bench/bench_head_translation.py), which places the eyeball

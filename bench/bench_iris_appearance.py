@@ -28,7 +28,7 @@ from a first cross-fit dropped; closed eyes and failed fits are not labels). Pri
     python bench/bench_iris_appearance.py --stages        # where the vertical gain is lost, stage by stage
 
 ``--stages`` measures, per clip, the iris height's vertical gain / error SD / mean bias (px) per eye against the
-truth at each stage of the default chain below 17.3 px and with candidate changes at each: the limbus fit (the
+truth at each stage of the default chain below 16.8 px and with candidate changes at each: the limbus fit (the
 regression's labels) with its radius free within 15 % of the mesh's (the pipeline), fixed per clip at the median
 of its fitted radii or at the true radius, and its rays cast first from the true centre instead of the mesh
 point (how much of the starting point's error a fit keeps); the fitted radius against the mesh's and the true

@@ -12,8 +12,8 @@ once per cell with the default settings and keeps the clip-level gaze estimate's
 * per eye (right, left in the face mesh's order), the localiser's vertical gain / r / error SD (px) against the
   eye's own motion in the picture: the iris's height minus the true eyeball centre's picture height (the truth's
   iris centre minus 10.5 mm along the true gaze, projected), regressed on the same offset of the true iris - for the
-  iris centres the default handed to the gaze estimate (``used``: the appearance estimate below a 17.3 px iris, the
-  limbus fit above), the limbus fit (``limbus``, open-eye frames where it succeeded; below 17.3 px only, where the
+  iris centres the default handed to the gaze estimate (``used``: the appearance estimate below a 16.8 px iris, the
+  limbus fit above), the limbus fit (``limbus``, open-eye frames where it succeeded; below 16.8 px only, where the
   pipeline keeps it apart) and the face mesh's iris point (``mesh``);
 * ``--bins``: the same offsets, mean per sixth of the clip's frames sorted by the true eye-in-head pitch (true ->
   measured, px): a gain loss that is a scale shows as a line of slope below one, one that depends on where the lids

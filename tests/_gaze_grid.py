@@ -206,10 +206,11 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     return out
 
 
-#: gaze settings the grid compares: the default (``iris_combine="auto"``: the appearance estimate below a 17.3 px
-#: iris, the limbus fit above), the limbus fit alone, and the limbus fit fused with the face mesh's iris point
-#: (mapped onto the limbus scale in the head, :func:`aspectus.webcam.gaze.fuse_iris_centres`); ``"iris_px":
-#: "limbus"`` re-estimates on the limbus fit's own centres (what the pipeline had before the appearance estimate)
+#: gaze settings the grid compares: the default (``iris_combine="auto"``: the appearance estimate below a 16.8 px iris
+#: as the limbus fit reads it, 17.3 px of true iris; the limbus fit above), the limbus fit alone, and the limbus fit
+#: fused with the face mesh's iris point (mapped onto the limbus scale in the head,
+#: :func:`aspectus.webcam.gaze.fuse_iris_centres`); ``"iris_px": "limbus"`` re-estimates on the limbus fit's own
+#: centres (what the pipeline had before the appearance estimate)
 VARIANTS = {"default": {}, "limbus": {"iris_combine": "limbus", "iris_px": "limbus"},
             "fuse": {"iris_combine": "fuse", "iris_px": "limbus"}}
 #: a variant with the renderer's true iris centres in place of the localiser's (what the rest of the chain -

@@ -56,13 +56,25 @@ EYEBALL_RADIUS_MM = 12.0
 IRIS_PLANE_RADIUS_MM = float(np.sqrt(EYEBALL_RADIUS_MM ** 2 - (IRIS_DIAMETER_MM / 2) ** 2))
 #: the ways the iris centre is taken (GazeParams.iris_combine)
 IRIS_COMBINE = ("auto", "limbus", "rescale", "fuse", "appearance")
+#: the limbus fit's median iris diameter (what :func:`switch_iris_px` reads) per px of the renderer's true iris
+#: diameter: the median over the 24 cells of the seed-0 gaze grid (``bench/bench_gaze_grid.py --seed 0`` on
+#: ff7c782, 2026-12-05, every cell decided on the limbus fit) of ``iris_px_measured / iris_px``; range 0.914 (12 px
+#: light iris) to 1.005 (12 px hazel iris), dark irises 0.948-0.989 (docs/notes/gaze-measurement.md, "The switch's
+#: threshold on the fit's scale")
+LIMBUS_FIT_PER_TRUE_IRIS = 0.969
 #: with ``iris_combine="auto"`` the appearance estimate is taken below this iris diameter (px; the clip's, as
-#: :func:`switch_iris_px` reads it: the limbus fit's median) and the limbus fit at or above it: the geometric
-#: middle, sqrt(12 x 25), of the largest size where the appearance estimate was measured to help (8-12 px: RMS-S2S
-#: down 21-55 % on eleven of twelve dev clips, pitch r up on ten) and the size where it did not (25 px: no better
-#: than the limbus fit, pitch r a little lower on one grid cell); docs/notes/gaze-measurement.md. Set between the
-#: measured sizes (read then on the face mesh's diameter), not tuned to a test.
-AUTO_APPEARANCE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)), 1)
+#: :func:`switch_iris_px` reads it: the limbus fit's median) and the limbus fit at or above it. Set on TRUE iris
+#: sizes, applied on the fit's scale: the geometric middle, sqrt(12 x 25) = 17.3 px of the renderer's true iris,
+#: of the largest size where the appearance estimate was measured to help (8-12 px: RMS-S2S down 21-55 % on eleven
+#: of twelve dev clips, pitch r up on ten) and the size where it did not (25 px: no better than the limbus fit,
+#: pitch r a little lower on one grid cell), times :data:`LIMBUS_FIT_PER_TRUE_IRIS` (the fit reads below the
+#: truth) = 16.8 px of the fit's diameter; by a rule written before measuring (a unit correction when the ratio
+#: is more than 2 % from 1). Set between the measured sizes, not tuned to a test. Where :func:`switch_iris_px`
+#: falls back to the face mesh (fewer than :data:`MIN_SCALE_FITS` open-eye fits) the same threshold is compared
+#: with the mesh's diameter, which reads ABOVE the truth (same 24 cells: median 1.048 of it; the 20 dark-iris
+#: cells 0.993-1.065, median 1.050): there the switch errs towards the limbus fit, a known, small inconsistency
+#: (it read the light-iris cells at 0.907 and 0.968 of the truth and the hazel ones at 1.009: no one factor fits).
+AUTO_APPEARANCE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)) * LIMBUS_FIT_PER_TRUE_IRIS, 1)
 #: frames whose eye aperture is at least this share of the clip's open-eye level count as open eyes
 OPEN_EYE_REL = 0.8
 #: where the iris's size in pixels (the metric scale) comes from (GazeParams.iris_scale)
@@ -105,7 +117,8 @@ class GazeParams:
     iris_combine : {"auto", "limbus", "rescale", "fuse", "appearance"}
         ``"auto"`` (default): ``"appearance"`` where the clip's iris
         diameter (:func:`switch_iris_px`: the limbus fit's median, px) is below
-        :data:`AUTO_APPEARANCE_BELOW_PX` (17.3 px), ``"limbus"`` otherwise,
+        :data:`AUTO_APPEARANCE_BELOW_PX` (16.8 px on the fit's scale: 17.3 px of
+        true iris), ``"limbus"`` otherwise,
         and ``"limbus"`` where the appearance estimate cannot run
         (``refine_iris`` or ``eye_anchors`` off, too few open-eye frames);
         run.json says which was used and why (``gaze_model.iris_estimate``).
@@ -247,7 +260,7 @@ class GazeParams:
         smoother whose gain and noise levels come from the clip itself).
         Needs ``refine_iris`` and ``eye_anchors`` and the eye patches: with
         ``iris_combine="auto"`` only where the appearance estimate is taken
-        (iris below 17.3 px); with another ``iris_combine`` the patches are
+        (iris below 16.8 px); with another ``iris_combine`` the patches are
         sampled for it (0.2-1.0 ms a frame in the per-frame geometry, 768
         bytes a frame on disk). Default False, by a rule written before
         measuring: on the gaze grid's eight small-face cells and fourteen
@@ -634,7 +647,7 @@ def describe_iris_estimate(info) -> str | None:
     'Iris height from: circle fit to the iris edge (as chosen).'
     >>> print(describe_iris_estimate({"setting": "auto", "used": "appearance", "iris_px": 11.2,
     ...                               "iris_px_source": "limbus fit"}))
-    Iris height from: the eye's appearance (chosen automatically: the iris is 11.2 px across, below 17.3 px).
+    Iris height from: the eye's appearance (chosen automatically: the iris is 11.2 px across, below 16.8 px).
 
     A run.json written before the choice read the limbus fit's size gives the face mesh's as ``median_iris_px``.
     """
@@ -1083,7 +1096,8 @@ def switch_iris_px(found: np.ndarray, mesh_diam_px: np.ndarray, limbus_diam_px: 
     (N,) ``found`` and (N, 2) per eye (NaN or 0 where none). Why the fit's: over 24 rendered dark-iris clips it
     read 0.948-0.991 of the renderer's iris diameter, nearer than the mesh's (0.994-1.064) on 20, and the mesh's
     was inflated by the screen's reflection on the corneas and by lids that do not follow the gaze
-    (docs/notes/gaze-measurement.md, "The auto switch read on the limbus fit's diameter").
+    (docs/notes/gaze-measurement.md, "The auto switch read on the limbus fit's diameter"). The threshold it is
+    compared with, :data:`AUTO_APPEARANCE_BELOW_PX`, is on the fit's scale; the face mesh's fallback reads above it.
 
     Returns ``{"iris_px": the figure (NaN if none), "iris_px_source": "limbus fit" or "face mesh",
     "limbus_fits": the open-eye fits counted, "mesh_iris_px": the face mesh's figure}``.

@@ -37,8 +37,8 @@ Measured on twelve rendered dev clips (bench/bench_iris_appearance.py; docs/note
 down on eleven (by 21-55 %; +1 % on the twelfth), pitch r up on ten and within 0.002 on two, pitch gain nearer
 one on seven and further on one - but the fixation kappa against the hand-coders down on five (by 0.01-0.13),
 and at 25 px it is no better than the limbus fit. It is what the default ``iris_combine="auto"`` takes below
-a 17.3 px iris (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`, read on the limbus fit's diameter:
-:func:`aspectus.webcam.gaze.switch_iris_px`), the limbus fit above. Costs
+a 16.8 px iris on the limbus fit's diameter (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`: 17.3 px of true
+iris on the fit's scale; :func:`aspectus.webcam.gaze.switch_iris_px`), the limbus fit above. Costs
 (``time.process_time``): sampling 0.2-0.35 ms a frame at 640 x 480 (0.8-1.0 ms on 720p crops), the regression
 0.15-0.5 ms a frame on 40-s clips; the patches (768 bytes a frame) wait in a temporary file, read back one
 block at a time.

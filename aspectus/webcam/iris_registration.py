@@ -2,7 +2,7 @@
 (``GazeParams(iris_registration=True)``).
 
 The iris centre of every frame comes from an absolute fit (the limbus circle fit, :mod:`aspectus.webcam.limbus`,
-or below a 17.3 px iris the appearance regression, :mod:`aspectus.webcam.iris_appearance`), whose error is
+or below a 16.8 px iris the appearance regression, :mod:`aspectus.webcam.iris_appearance`), whose error is
 drawn afresh each frame: that is the sample-to-sample noise. A fixation detector needs the gaze's *changes*, and
 the change between two frames can be read from many more pixels than a rim: the whole iris disc, moved against
 itself. So:

@@ -44,8 +44,9 @@ def test_median_fixation_duration_is_plausible(demo_out):
 
 
 def test_the_demo_clips_are_large_faces_and_keep_the_limbus_fit(demo_out, repo_root):
-    """The demo clips' irises are some 21-22 px across (their rendered truth), above the 17.3 px below which the
-    default ``iris_combine="auto"`` takes the appearance estimate: the limbus fit is kept, as before it existed."""
+    """The demo clips' irises are some 21-22 px across (their rendered truth), above the 16.8 px (on the limbus fit's
+    scale; 17.3 px of true iris) below which the default ``iris_combine="auto"`` takes the appearance estimate: the
+    limbus fit is kept, as before it existed."""
     out, clips, _ = demo_out
     for clip in clips:
         c = json.loads((out / clip.stem / "run.json").read_text())["extraction"]["gaze_model"]["iris_estimate"]

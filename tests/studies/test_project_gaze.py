@@ -121,9 +121,9 @@ def test_iris_estimate_in_plain_words():
         "Iris height from: the face tracker's iris point (chosen: circle fit to the iris edge, which could not be used")
     auto_big = describe_iris_estimate({"setting": "auto", "used": "limbus", "iris_px": 24.5,
                                        "iris_px_source": "limbus fit", "mesh_median_iris_px": 26.1,
-                                       "reason": "the clip's iris diameter 24.5 px (limbus fit) is not below 17.3 px"})
+                                       "reason": "the clip's iris diameter 24.5 px (limbus fit) is not below 16.8 px"})
     assert auto_big == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 24.5 px "
-                        "across, not below 17.3 px).")
+                        "across, not below 16.8 px).")
     assert "automatic by face size" not in auto_big and "_" not in auto_big
     # small iris, but the appearance estimate could not be learnt: said without the method's inner words (a run.json
     # written before the choice read the limbus fit's size: the face mesh's as median_iris_px)
@@ -132,7 +132,7 @@ def test_iris_estimate_in_plain_words():
         "reason": "the appearance regression was not fitted (too few open-eye frames with a limbus fit: at least "
                   "150 per eye are needed): the limbus fit is used"})
     assert short == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 12.1 px "
-                     "across, below 17.3 px, but the clip has too few frames with open eyes to learn the eye's "
+                     "across, below 16.8 px, but the clip has too few frames with open eyes to learn the eye's "
                      "appearance).")
     assert describe_iris_estimate(None) is None and describe_iris_estimate({}) is None
 

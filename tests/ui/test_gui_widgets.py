@@ -202,7 +202,7 @@ def test_clip_view_texts_never_cover_the_video_or_its_controls(qtbot):
                       "median_distance_mm": 613.0, "valid_frac": 0.95, "usable": True,
                       "verdict": "Usable: " + "a long verdict that wraps over several lines. " * 12})
     view.set_iris_estimate("Iris height from: the eye's appearance (chosen automatically: the iris is 16.1 px across, "
-                           "below 17.3 px).")
+                           "below 16.8 px).")
     view.targets_info.setText("<b>Known-target check:</b> " + "<br>".join(f"line {i} of the check" for i in range(6)))
     view.targets_info.show()
     for _ in range(3):

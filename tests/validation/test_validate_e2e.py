@@ -164,7 +164,7 @@ def test_rendered_clip_following_lund_recordings(lund_dir, tmp_path):
     # Measured 2026-12-05 (docs/notes/gaze-measurement.md): with the limbus fit as this clip's estimate, seeds
     # 14 / 15 / 16 read r 0.880 / 0.902 / 0.833 with the side-arc rule (the default since; mean 0.872) and 0.871 /
     # 0.927 / 0.895 without it (mean 0.898); since `auto` reads the clip's iris size from the limbus fit (15.9 px
-    # here, below 17.3) the clip takes the appearance estimate: 0.896 / 0.915 / 0.883, mean 0.898, ICC 0.841-0.896,
+    # here, below 16.8) the clip takes the appearance estimate: 0.896 / 0.915 / 0.883, mean 0.898, ICC 0.841-0.896,
     # bias -0.79 to -0.21, kappa 0.354-0.465, F1 0.824-0.855 (the side-arc rule does not act on it). Seed 1, which
     # this test read before, gives r 0.781 with the appearance estimate (0.850 with the limbus fit); over seeds
     # 14-21 0.707-0.926, mean 0.857, three of nine draws with seed 1 below 0.8. History on seed 1: 0.64 -> 0.70

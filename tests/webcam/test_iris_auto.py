@@ -1,8 +1,9 @@
 """The default ``GazeParams(iris_combine="auto")``: the appearance estimate of the iris height on small irises,
 the limbus fit on large ones and wherever the appearance estimate cannot run, recorded in run.json.
 
-The rule's threshold (17.3 px, the geometric middle of 12 and 25 px) sits between the iris sizes where the
-appearance estimate was measured to help and not to (docs/notes/gaze-measurement.md); the clips here are
+The rule's threshold (the geometric middle of 12 and 25 px of true iris, 17.3 px, on the limbus fit's scale: 16.8 px)
+sits between the iris sizes where the appearance estimate was measured to help and not to
+(docs/notes/gaze-measurement.md); the clips here are
 rendered (aspectus.synth) at sizes well on either side of it: 640 x 360 at 60 cm (about 11 px) and
 1280 x 720 at 60 cm (about 22 px). The sizes read are the limbus fit's, as the pipeline reads them (the face
 mesh's with too few fits): aspectus.webcam.gaze.switch_iris_px.
@@ -27,7 +28,6 @@ def test_the_default_is_auto_and_the_setting_is_checked():
     assert GazeParams().iris_combine == "auto"
     # between the 12 px where the appearance estimate helped and the 25 px where it did not
     assert 12.0 < AUTO_APPEARANCE_BELOW_PX < 25.0
-    assert AUTO_APPEARANCE_BELOW_PX == pytest.approx(np.sqrt(12.0 * 25.0), abs=0.05)
     # "auto" needs nothing: it falls back; "appearance" asked for explicitly still needs its inputs
     assert GazeParams(iris_combine="auto", refine_iris=False).iris_combine == "auto"
     assert GazeParams(iris_combine="auto", eye_anchors=False).iris_combine == "auto"
@@ -266,3 +266,37 @@ def test_on_a_large_iris_the_geometry_stops_sampling_patches_after_the_first_fra
     s_proc, meta = extract_samples(clip, geometry_mode="process")
     assert meta["geometry_ran_in"] == "process" and meta["gaze_model"]["iris_estimate"]["used"] == "limbus"
     np.testing.assert_allclose(s_proc["pitch_deg"], s_thread["pitch_deg"], equal_nan=True)
+
+
+def test_the_threshold_set_on_true_sizes_is_applied_on_the_limbus_fits_scale():
+    """sqrt(12 x 25) = 17.3 px was set on the renderer's true iris sizes; the switch reads the limbus fit, which
+    reads below the truth (median 0.969 of it over the seed-0 gaze grid's 24 cells, gaze.LIMBUS_FIT_PER_TRUE_IRIS),
+    so the threshold is 17.3 x 0.969 = 16.8 px of the fit's diameter. A clip whose fit reads between the two now
+    takes the limbus fit (it would have taken the appearance estimate against 17.3 px)."""
+    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, LIMBUS_FIT_PER_TRUE_IRIS
+    from aspectus.webcam.iris_appearance import small_iris
+
+    assert 0.9 < LIMBUS_FIT_PER_TRUE_IRIS < 1.0  # the fit reads a few per cent below the truth
+    assert AUTO_APPEARANCE_BELOW_PX == round(float(np.sqrt(12.0 * 25.0)) * LIMBUS_FIT_PER_TRUE_IRIS, 1) == 16.8
+    true_threshold = round(float(np.sqrt(12.0 * 25.0)), 1)
+    assert true_threshold == 17.3
+    for fit in (16.8, 17.0, 17.25):  # between the fit-scale and the true-scale thresholds
+        small, size = small_iris(*_clip_rows(mesh=fit, fit=fit), AUTO_APPEARANCE_BELOW_PX)
+        assert size["iris_px_source"] == "limbus fit" and size["iris_px"] == pytest.approx(fit)
+        assert not small, fit  # the limbus fit, not the appearance estimate
+        assert small_iris(*_clip_rows(mesh=fit, fit=fit), true_threshold)[0]  # what 17.3 px would have chosen
+    # just below the threshold: the appearance estimate
+    assert small_iris(*_clip_rows(mesh=17.0, fit=16.75), AUTO_APPEARANCE_BELOW_PX)[0]
+    # the end-to-end validation clip's fit (15.9 px) and the largest grid cell's below (16.13 px) stay below it
+    for fit in (15.9, 16.13):
+        assert small_iris(*_clip_rows(fit=fit), AUTO_APPEARANCE_BELOW_PX)[0]
+
+
+def test_the_plain_words_and_the_reason_name_the_threshold_in_use():
+    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, describe_iris_estimate
+
+    text = describe_iris_estimate({"setting": "auto", "used": "limbus", "iris_px": 17.0,
+                                   "iris_px_source": "limbus fit"})
+    assert text == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 17 px across, "
+                    f"not below {AUTO_APPEARANCE_BELOW_PX:g} px).")
+    assert "not below 16.8 px" in text

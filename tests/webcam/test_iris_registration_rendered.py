@@ -87,7 +87,7 @@ def test_fused_gaze_is_steadier_and_no_less_correlated(run):
 def test_large_face_under_auto_keeps_no_patches_and_says_so(lund_dir, tmp_path):
     """At 25 px ``iris_combine="auto"`` takes the limbus fit and keeps no eye patches: nothing to register, and
     run.json says why (the samples are the default's)."""
-    from aspectus.webcam.gaze import GazeParams
+    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
     cond = G.Condition("registration_25px", size_px=(1280, 720), distance_mm=530.0, trial="TH34_img_Europe",
@@ -95,7 +95,7 @@ def test_large_face_under_auto_keeps_no_patches_and_says_so(lund_dir, tmp_path):
     res, _ = G.render_condition(cond, tmp_path, lund_dir)
     s1, m1 = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(iris_registration=True)))
     info = m1["gaze_model"]["iris_registration"]
-    assert info["applied"] is False and "17.3 px" in info["reason"]
+    assert info["applied"] is False and f"{AUTO_APPEARANCE_BELOW_PX} px" in info["reason"]
     assert m1["gaze_model"]["iris_estimate"]["used"] == "limbus"
     s0, _ = extract_samples(res.path, params=ProcessParams(gaze=GazeParams()))
     assert np.allclose(s0["yaw_deg"], s1["yaw_deg"], equal_nan=True)
