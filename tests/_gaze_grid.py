@@ -330,6 +330,8 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
                        "blink_pad_frames": meta["gaze_model"].get("blink_pad_frames"), "n_samples": len(s),
                        "iris_px_measured": _px(choice.get("iris_px")),
                        "iris_px_measured_from": choice.get("iris_px_source"),
-                       "iris_px_mesh": _px(choice.get("mesh_median_iris_px"))}
+                       "iris_px_mesh": _px(choice.get("mesh_median_iris_px")),
+                       "iris_estimate_reason": choice.get("reason") if not over else None,
+                       "appearance_share": choice.get("appearance_share") if not over else None}
                     | ({"samples": s} if keep_samples else {}))
     return rows

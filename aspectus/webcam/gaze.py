@@ -665,6 +665,8 @@ def describe_iris_estimate(info) -> str | None:
     reason = str(info.get("reason") or "")
     if "not fitted" in reason:  # the appearance regression had too few open-eye frames to learn from
         obstacle = "the clip has too few frames with open eyes to learn the eye's appearance"
+    elif "no weight" in reason:  # fitted, but the limbus fit alone agreed better between the eyes
+        obstacle = "the eye's appearance agreed less between the two eyes than the circle fit did"
     elif "needs" in reason:  # refine_iris or eye_anchors switched off
         obstacle = "the eye's appearance cannot be used with the other gaze settings chosen"
     else:

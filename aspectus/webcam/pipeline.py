@@ -349,7 +349,28 @@ def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> t
     y = pred[..., 1]
     iris[..., 1] = np.where(np.isfinite(y), y, iris[..., 1])
     info["frames_predicted"] = [int(np.isfinite(y[:, e]).sum()) for e in range(2)]
+    info["appearance_share"] = appearance_share(info)
     return iris, info
+
+
+def appearance_share(info: dict) -> float:
+    """The share of the iris height that came from the appearance estimate: its blend weight (``w`` of
+    :func:`aspectus.webcam.iris_appearance.blend_weights`; 1 where an eye had too few frames to choose one, 0
+    where the eye's regression was not fitted) averaged over both eyes and the blocks' frames. 0 means that the
+    limbus fit alone was used, whatever was chosen.
+
+    >>> appearance_share({"blocks": [{"frames": [0, 300], "right": {"fitted": True}, "left": {"fitted": False},
+    ...                               "appearance_weight": {"right": 0.5}}]})
+    0.25
+    """
+    total = weight = 0.0
+    for blk in info.get("blocks") or []:
+        a, b = blk["frames"]
+        for eye in ("right", "left"):
+            w = float((blk.get("appearance_weight") or {}).get(eye, 1.0)) if (blk.get(eye) or {}).get("fitted") else 0.0
+            weight += w * (b - a)
+            total += b - a
+    return round(weight / total, 3) if total else 0.0
 
 
 def _label_columns(a: np.ndarray, own: np.ndarray, label: slice) -> np.ndarray:
@@ -568,11 +589,18 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         choice["reason"] = (f"the appearance estimate needs {' and '.join(off)} (off): the "
                             + ("limbus fit" if refine else "face mesh's iris point") + " is used")
     fitted = False  # whether the appearance estimate is the iris source (else the limbus fit, with refine)
+    weightless = False  # fitted, but blended away on every eye (the limbus fit alone agreed better)
     if appearance:
         iris, app_info = _appearance_iris(a, patches, found)
         fitted = any(blk[e].get("fitted") for blk in app_info["blocks"] for e in ("right", "left"))
+        weightless = fitted and app_info["appearance_share"] == 0.0
         if choice is not None:
-            if fitted:
+            choice["appearance_share"] = app_info["appearance_share"]
+            if weightless:
+                choice["reason"] = (f"the clip's iris diameter {clip_px} is below {AUTO_APPEARANCE_BELOW_PX} px, but "
+                                    "the appearance estimate carried no weight (on every eye the limbus fit alone "
+                                    "agreed better with the other eye): the limbus fit is used")
+            elif fitted:
                 choice["reason"] = f"the clip's iris diameter {clip_px} is below {AUTO_APPEARANCE_BELOW_PX} px"
             else:
                 choice["reason"] = ("the appearance regression was not fitted (too few open-eye frames with a limbus "
@@ -582,7 +610,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
             if choice is not None:
                 app_info = None
     if choice is not None:
-        choice["used"] = "appearance" if app_info is not None else ("limbus" if refine else "face mesh")
+        choice["used"] = ("appearance" if app_info is not None and not (appearance and weightless)
+                          else ("limbus" if refine else "face mesh"))
     # the limbus fits' diameters (the iris scale): with the appearance estimate those it learnt from
     limbus_diam = _label_columns(a, a[:, LIMBUS_DIAM], LABEL_DIAM) if fitted else a[:, LIMBUS_DIAM]
     if refine and not fitted:
@@ -619,7 +648,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     if choice is None:
         # an explicit setting: appearance that could not be learnt falls back to the limbus fit
         used = combine if refine else "face mesh"
-        if refine and combine == "appearance" and not fitted:
+        if refine and combine == "appearance" and (not fitted or weightless):
             used = "limbus"
         choice = {"setting": combine, "used": used}
     ginfo["iris_estimate"] = choice

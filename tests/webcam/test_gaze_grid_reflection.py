@@ -24,6 +24,32 @@ def cell(lund_dir, tmp_path_factory):
     return rows[0]
 
 
+@pytest.fixture(scope="module")
+def default_cell(lund_dir, tmp_path_factory):
+    cond = G.Condition("12px_crf28_reflection", size_px=(640, 480), distance_mm=550.0, trial="UH21_img_Rome",
+                       corneal_reflection=True)
+    return G.run_condition(cond, tmp_path_factory.mktemp("reflection_default"), lund_dir,
+                           variants={"default": {}})[0]
+
+
+def test_an_appearance_estimate_that_carries_no_weight_is_reported_as_the_limbus_fit(default_cell):
+    """On this cell (12.1 px, below the switch) the appearance regression was fitted on one eye only (the other had
+    146 open-eye frames with a limbus fit, fewer than the 150 needed) and its blend with the limbus fit chose weight 0
+    (the fit alone agreed better with the other eye), so the gaze is the limbus fit's: RMS-S2S 4.01 deg against 4.02
+    for the ``limbus`` row (grid, seed 0, 2026-12-05). The run must say so rather than name the appearance
+    estimate (run.json's iris_estimate, the verdict and the app's line read ``used``)."""
+    from aspectus.webcam.gaze import describe_iris_estimate
+
+    d = default_cell
+    assert d["iris_px_measured"] < 12.7
+    assert d["appearance_share"] == 0.0
+    assert d["iris_estimate"] == "limbus"
+    assert "no weight" in d["iris_estimate_reason"]
+    text = describe_iris_estimate({"setting": "auto", "used": d["iris_estimate"], "iris_px": d["iris_px_measured"],
+                                   "reason": d["iris_estimate_reason"]})
+    assert text.startswith("Iris height from: circle fit") and "agreed less between the two eyes" in text
+
+
 def test_with_fill_reflections_the_reflection_is_filled_before_the_face_mesh(cell):
     """The face mesh read the reflection as part of the eye: on this cell its iris point's horizontal error SD on
     one eye went from 0.38 px (the same cell without the reflection) to 1.15 px, and the default chain measured
