@@ -41,6 +41,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests"))
 
 import _gaze_grid as G  # noqa: E402
+from _gaze_args import gaze_overrides_or_exit_code  # noqa: E402
 
 LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
 
@@ -119,13 +120,9 @@ def main(argv=None) -> int:
                     help="a gaze setting (aspectus.webcam.gaze.GazeParams) for every row, e.g. head_rotation=skin; "
                          "may be given more than once")
     args = ap.parse_args(argv)
-    gaze = {}
-    for item in args.gaze:
-        name, sep, value = item.partition("=")
-        if not sep:
-            print(f"--gaze {item!r}: expected NAME=VALUE", file=sys.stderr)
-            return 2
-        gaze[name] = {"true": True, "false": False}.get(value.lower(), value)
+    gaze = gaze_overrides_or_exit_code(args.gaze)
+    if isinstance(gaze, int):
+        return gaze
     if args.fps is not None and not 1.0 <= args.fps <= 240.0:
         print(f"--fps {args.fps:g}: expected a frame rate of 1-240 frames per second", file=sys.stderr)
         return 2

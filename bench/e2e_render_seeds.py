@@ -25,6 +25,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path[:0] = [str(ROOT / "tests" / "validation"), str(ROOT / "tests")]
 
 import test_validate_e2e as E2E  # noqa: E402
+from _gaze_args import gaze_overrides_or_exit_code  # noqa: E402
 
 from aspectus.webcam.gaze import GazeParams  # noqa: E402
 from aspectus.webcam.pipeline import ProcessParams  # noqa: E402
@@ -50,9 +51,10 @@ def main() -> int:
     a = ap.parse_args()
     a.work.mkdir(parents=True, exist_ok=True)
     physio = E2E.write_reference(LUND, a.work)
-    key, _, value = a.option.partition("=")
-    value = True if not value or value.lower() == "true" else (False if value.lower() == "false" else value)
-    modes = {"off": None, "on": ProcessParams(gaze=replace(GazeParams(), **{key: value}))}
+    over = gaze_overrides_or_exit_code([a.option if "=" in a.option else f"{a.option}=true"])
+    if isinstance(over, int):
+        return over
+    modes = {"off": None, "on": ProcessParams(gaze=replace(GazeParams(), **over))}
     r_of: dict[str, list[float]] = {m: [] for m in modes}
     for seed in _seeds(a.seeds):
         d = a.work / f"seed{seed}"

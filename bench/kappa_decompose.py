@@ -57,6 +57,7 @@ sys.path.insert(0, str(ROOT / "bench"))
 
 import _gaze_grid as G  # noqa: E402
 import _lund  # noqa: E402
+from _gaze_args import gaze_overrides_or_exit_code  # noqa: E402
 
 LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
 
@@ -457,16 +458,9 @@ def main(argv=None) -> int:
     ap.add_argument("--crf-offset", type=int, default=0,
                     help="with --no-b-frames: write at the clip's CRF plus this (e.g. 3: about the size with B-frames)")
     args = ap.parse_args(argv)
-    gaze = {}
-    for item in args.gaze:
-        name, sep, value = item.partition("=")
-        if not sep:
-            print(f"--gaze {item!r}: expected NAME=VALUE", file=sys.stderr)
-            return 2
-        try:
-            gaze[name] = float(value)
-        except ValueError:
-            gaze[name] = {"true": True, "false": False}.get(value.lower(), value)
+    gaze = gaze_overrides_or_exit_code(args.gaze)
+    if isinstance(gaze, int):
+        return gaze
     conds = conditions()
     if args.only:
         unknown = sorted(set(args.only) - {c.name for c in conds})

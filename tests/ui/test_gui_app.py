@@ -15,6 +15,7 @@ import pytest
 pytest.importorskip("PySide6")
 pytestmark = [pytest.mark.gui, pytest.mark.slow]
 
+from _window import shown_window  # noqa: E402
 from PySide6.QtCore import QMimeData, QPointF, Qt, QTimer, QUrl  # noqa: E402
 from PySide6.QtGui import QDropEvent  # noqa: E402
 
@@ -50,13 +51,7 @@ def _make_study(tmp_path: Path, clips: Path, stems) -> Path:
 
 @pytest.fixture()
 def window(qtbot):
-    from ui.main_window import MainWindow
-
-    w = MainWindow(worker_mode="process")
-    w.quiet = True  # messages go to the status bar instead of modal boxes
-    qtbot.addWidget(w)
-    w.resize(1366, 768)
-    w.show()
+    w = shown_window(qtbot, "process")
     yield w
     w.shutdown()
 
@@ -76,8 +71,8 @@ def processed(tmp_path_factory, tiny_clips):
     make_app()
     tmp = tmp_path_factory.mktemp("processed")
     path = _make_study(tmp, tiny_clips, ["p01_s01", "p02_s01"])
-    from pytestqt.qtbot import QtBot  # noqa: F401 - the module fixture drives Qt through a QEventLoop
     from PySide6.QtCore import QEventLoop
+    from pytestqt.qtbot import QtBot  # noqa: F401 - the module fixture drives Qt through a QEventLoop
 
     w = MainWindow(worker_mode="process")
     w.quiet = True

@@ -13,6 +13,7 @@ import pytest
 pytest.importorskip("PySide6")
 pytestmark = pytest.mark.gui
 
+from _window import shown_window  # noqa: E402
 from aspectus.events.analysis import AnalysisParams  # noqa: E402
 from aspectus.studies import project as study_mod  # noqa: E402
 from aspectus.webcam.pipeline import ProcessParams  # noqa: E402
@@ -36,13 +37,7 @@ def _diff(vals: dict, ref: dict) -> dict:
 
 @pytest.fixture()
 def window(qtbot):
-    from ui.main_window import MainWindow
-
-    w = MainWindow(worker_mode="thread")
-    w.quiet = True
-    qtbot.addWidget(w)
-    w.resize(1366, 768)
-    w.show()
+    w = shown_window(qtbot, "thread")
     yield w
     w.shutdown()
 

@@ -12,6 +12,7 @@ import pytest
 pytest.importorskip("PySide6")
 pytestmark = pytest.mark.gui
 
+from _window import shown_window  # noqa: E402
 from aspectus.studies import project as study_mod  # noqa: E402
 from aspectus.webcam.pipeline import ProcessParams  # noqa: E402
 
@@ -19,13 +20,7 @@ RUN_TIMEOUT_MS = 240_000
 
 
 def _window(qtbot, mode="thread"):
-    from ui.main_window import MainWindow
-
-    w = MainWindow(worker_mode=mode)
-    w.quiet = True
-    qtbot.addWidget(w)
-    w.resize(1366, 768)
-    w.show()
+    w = shown_window(qtbot, mode)
     return w
 
 

@@ -11,8 +11,8 @@ import pytest
 pytest.importorskip("PySide6")
 pytestmark = pytest.mark.gui
 
-from PySide6.QtWidgets import (QAbstractButton, QApplication, QComboBox, QLabel, QTabBar,  # noqa: E402
-                               QTreeWidget)
+from _window import shown_window  # noqa: E402
+from PySide6.QtWidgets import QAbstractButton, QApplication, QComboBox, QLabel, QTabBar, QTreeWidget  # noqa: E402
 
 from aspectus.studies import project as study_mod  # noqa: E402
 
@@ -21,7 +21,6 @@ NAMES = ("linden_brook_p01_s01", "linden_brook_p02_s01", "linden_brook_p13_s02")
 
 @pytest.fixture()
 def window(qtbot, tmp_path):
-    from ui.main_window import MainWindow
 
     src = Path(__file__).resolve().parents[2] / "sample_clips"
     clip = next(iter(sorted(src.glob("*.mp4"))), None)
@@ -34,11 +33,7 @@ def window(qtbot, tmp_path):
     s = study_mod.new_study(path=d / "pilot.aspectus-study.json", name="Linden Brook Primary School reading pilot")
     s.add_paths(sorted(d.glob("*.mp4")))
     s.save()
-    w = MainWindow(worker_mode="thread")
-    w.quiet = True
-    qtbot.addWidget(w)
-    w.resize(1366, 768)
-    w.show()
+    w = shown_window(qtbot, "thread")
     assert w.open_study(s.path)
     yield w
     w.shutdown()

@@ -6,7 +6,7 @@ import pytest
 pytest.importorskip("PySide6")
 pytestmark = pytest.mark.gui
 
-
+from _window import shown_window  # noqa: E402
 def test_mapping_dialog_reads_table_and_names_problems(qtbot, tmp_path):
     from ui.mapping_dialog import MappingDialog
 
@@ -133,7 +133,6 @@ def test_clip_view_shows_a_flagged_clip_as_processing_reads_it(qtbot, tmp_path, 
     """The clip view once turned a left-right mirrored clip upside down (it read the mirror as a half turn)
     while processing read it right: both now go through one rule (``video.upright_rgb``)."""
     import numpy as np
-
     from _tagged_clips import tagged_clip
 
     from aspectus.webcam.video import iter_frames
@@ -159,9 +158,10 @@ def test_clip_view_noise_is_the_figure_the_verdict_reads(qtbot):
     """The quality panel's noise and the verdict's noise are one figure: the RMS over 33 ms steps (at 60 fps the
     per-sample RMS-S2S reads lower; it is named in the tooltip where it differs). A summary from before that
     figure existed shows its per-sample RMS-S2S, the same figure at 30 fps."""
-    from aspectus.webcam.pipeline import summarise
     from _signals import same_eyes
+
     from aspectus.events.analysis import run_analysis
+    from aspectus.webcam.pipeline import summarise
     from ui.clip_view import ClipView
 
     smp = same_eyes(60, seconds=30.0)
@@ -292,7 +292,7 @@ def test_clip_list_says_partly_usable_for_a_clip_too_unsteady_for_fixation_measu
     from PySide6.QtCore import Qt
 
     from aspectus.studies import project as study_mod
-    from ui.main_window import COL_USABLE, MainWindow
+    from ui.main_window import COL_USABLE
 
     d = tmp_path / "study"
     d.mkdir()
@@ -301,11 +301,7 @@ def test_clip_list_says_partly_usable_for_a_clip_too_unsteady_for_fixation_measu
         (d / f"{stem}.mp4").write_bytes(b"\0" * 64)  # never decoded here
         s.add_clip(d / f"{stem}.mp4")
     s.save()
-    w = MainWindow(worker_mode="thread")
-    w.quiet = True
-    qtbot.addWidget(w)
-    w.resize(1366, 768)
-    w.show()
+    w = shown_window(qtbot, "thread")
     try:
         assert w.open_study(s.path)
         summaries = {"p01_s01": {"usable": True, "precision_tier": "coarse",
