@@ -41,7 +41,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests"))
 
 import _gaze_grid as G  # noqa: E402
-from _gaze_args import gaze_overrides_or_exit_code  # noqa: E402
+from _bench_args import gaze_overrides_or_exit_code, only_named  # noqa: E402
 
 LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
 
@@ -130,13 +130,9 @@ def main(argv=None) -> int:
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
         return 2
     cells = grid(args.quick, args.seed, args.fps, args.reflection)
-    if args.only:
-        unknown = sorted(set(args.only) - {c.name for c in cells})
-        if unknown:
-            print(f"--only: no cell named {', '.join(unknown)} (cells: {', '.join(c.name for c in cells)})",
-                  file=sys.stderr)
-            return 2
-        cells = [c for c in cells if c.name in args.only]
+    cells = only_named(cells, args.only, "cell")
+    if isinstance(cells, int):
+        return cells
     rows = []
     out_dir = Path(args.keep) if args.keep else Path(tempfile.mkdtemp(prefix="gaze_grid_"))
     out_dir.mkdir(parents=True, exist_ok=True)

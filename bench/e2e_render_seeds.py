@@ -25,7 +25,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path[:0] = [str(ROOT / "tests" / "validation"), str(ROOT / "tests")]
 
 import test_validate_e2e as E2E  # noqa: E402
-from _gaze_args import gaze_overrides_or_exit_code  # noqa: E402
+from _bench_args import gaze_overrides_or_exit_code  # noqa: E402
 
 from aspectus.webcam.gaze import GazeParams  # noqa: E402
 from aspectus.webcam.pipeline import ProcessParams  # noqa: E402

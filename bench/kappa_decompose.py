@@ -57,7 +57,7 @@ sys.path.insert(0, str(ROOT / "bench"))
 
 import _gaze_grid as G  # noqa: E402
 import _lund  # noqa: E402
-from _gaze_args import gaze_overrides_or_exit_code  # noqa: E402
+from _bench_args import gaze_overrides_or_exit_code, only_named  # noqa: E402
 
 LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
 
@@ -462,13 +462,9 @@ def main(argv=None) -> int:
     if isinstance(gaze, int):
         return gaze
     conds = conditions()
-    if args.only:
-        unknown = sorted(set(args.only) - {c.name for c in conds})
-        if unknown:
-            print(f"--only: no clip named {', '.join(unknown)} (clips: {', '.join(c.name for c in conds)})",
-                  file=sys.stderr)
-            return 2
-        conds = [c for c in conds if c.name in args.only]
+    conds = only_named(conds, args.only, "clip")
+    if isinstance(conds, int):
+        return conds
     cache = Path(args.cache)
     clips = Path(args.clips) if args.clips else cache
     rows = []

@@ -1,4 +1,4 @@
-"""bench/_gaze_args.py: the benchmarks read --gaze NAME=VALUE as `aspectus process --gaze` does."""
+"""bench/_bench_args.py: the benchmarks read --gaze NAME=VALUE as `aspectus process --gaze` does."""
 from __future__ import annotations
 
 import sys
@@ -8,7 +8,7 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
 
-import _gaze_args as A  # noqa: E402
+import _bench_args as A  # noqa: E402
 
 from aspectus.errors import ParameterError  # noqa: E402
 
@@ -26,3 +26,16 @@ def test_a_bad_item_is_refused_with_what_to_write(item, words, capsys):
         A.gaze_overrides([item])
     assert A.gaze_overrides_or_exit_code([item]) == 2
     assert words in capsys.readouterr().err
+
+
+def test_only_picks_named_items_and_refuses_unknown_names(capsys):
+    class Cell:
+        def __init__(self, name):
+            self.name = name
+
+    cells = [Cell("12px_crf28"), Cell("25px_crf28")]
+    assert [c.name for c in A.only_named(cells, ["25px_crf28"], "cell")] == ["25px_crf28"]
+    assert A.only_named(cells, None, "cell") == cells
+    assert A.only_named(cells, ["16px"], "cell") == 2
+    err = capsys.readouterr().err
+    assert "no cell named 16px" in err and "12px_crf28, 25px_crf28" in err

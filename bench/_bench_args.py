@@ -1,6 +1,7 @@
-"""The benchmarks' ``--gaze NAME=VALUE`` items as :class:`aspectus.webcam.gaze.GazeParams` overrides, typed and
-checked by the command line's own parser (:func:`aspectus.cli.process_cmd.gaze_params_from_args`), so a bench run
-takes exactly what ``aspectus process --gaze`` would."""
+"""The benchmarks' shared options: ``--gaze NAME=VALUE`` items as :class:`aspectus.webcam.gaze.GazeParams`
+overrides, typed and checked by the command line's own parser
+(:func:`aspectus.cli.process_cmd.gaze_params_from_args`), so a bench run takes exactly what ``aspectus process
+--gaze`` would; and ``--only NAME ...`` picking named cells or clips."""
 from __future__ import annotations
 
 import sys
@@ -27,3 +28,16 @@ def gaze_overrides_or_exit_code(items: list[str]) -> dict | int:
     except ParameterError as e:
         print(e, file=sys.stderr)
         return 2
+
+
+def only_named(items: list, only: list[str] | None, what: str) -> list | int:
+    """The ``items`` (with a ``.name``) named in ``only`` (all of them without ``--only``), or 2 after one line on
+    stderr naming the unknown names and the known ones (``what``: "cell", "clip")."""
+    if not only:
+        return list(items)
+    unknown = sorted(set(only) - {c.name for c in items})
+    if unknown:
+        print(f"--only: no {what} named {', '.join(unknown)} ({what}s: {', '.join(c.name for c in items)})",
+              file=sys.stderr)
+        return 2
+    return [c for c in items if c.name in only]
