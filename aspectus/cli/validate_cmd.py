@@ -248,5 +248,9 @@ def pair_summary_lines(r) -> list[str]:
         else:
             agree += f"; {per} r {_f(fc['pearson_r'].iloc[0])}, ICC {_f(fc['icc'].iloc[0])} ({n} windows)"
     lines.append(agree + ".")
+    own = r.meta.get("webcam_verdict") or {}
+    if own.get("precision_tier") not in (None, "events"):
+        lines.append(f"Webcam clip's own check: {str(own.get('verdict') or '').split(':', 1)[0] or 'not usable'} - "
+                     "its precision is too low for fixation counts and durations (run.json, quality).")
     lines.append(f"Report (open in a browser): {r.paths['report']}")
     return lines

@@ -782,6 +782,7 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
         "webcam_quality": res_w.quality, "reference_quality": res_r.quality,
         "reference_measured_at": ref_counts.pop("text"), "reference_samples": ref_counts,
         "agreement_withheld": bool(withheld),
+        "webcam_verdict": webcam_verdict(run),
     }
     result = ValidationResult(agreement=agreement, pairs=pairs, alignment=alignment, events=events, webcam=cam,
                               reference=ref_aligned, webcam_analysis=res_w, reference_analysis=res_r, notes=notes,
@@ -790,6 +791,16 @@ def validate_pair(webcam, reference, out_dir=None, *, mapping: TableMapping | No
     if write:
         write_validation(result, out_dir, figures=figures)
     return result
+
+
+def webcam_verdict(run: dict) -> dict | None:
+    """The webcam clip's own precision check as its run.json gives it (``quality``: ``precision_tier``, ``usable``,
+    ``verdict``), or None for a clip processed without one (e.g. a samples table from elsewhere)."""
+    q = (run or {}).get("quality") or {}
+    if not q.get("precision_tier"):
+        return None
+    return {"precision_tier": q["precision_tier"], "usable": q.get("usable"), "verdict": q.get("verdict"),
+            "noise_sd_deg": q.get("noise_sd_deg"), "noise_rms_s2s_deg": q.get("noise_rms_s2s_deg")}
 
 
 #: the first note of a validation whose automatic alignment is uncertain

@@ -293,6 +293,27 @@ def _plural(n: int, word: str) -> str:
     return f"{n} {word}" + ("" if n == 1 else "s")
 
 
+def own_check_sentence(verdict: dict | None) -> str | None:
+    """What the webcam clip's own precision check said (run.json's verdict, :func:`aspectus.validation.pair.
+    webcam_verdict`), where it did not trust fixation measures: a comparison then shows how far off they are,
+    not whether the webcam can measure them. None where it trusted them or there is no check.
+
+    >>> text = own_check_sentence({"precision_tier": "coarse", "verdict": "Partly usable: ...", "noise_sd_deg": 1.09})
+    >>> "too imprecise for fixation counts and durations (Partly usable; its samples spread 1.09 deg" in text
+    True
+    >>> own_check_sentence({"precision_tier": "events", "verdict": "Usable: ..."}) is None
+    True
+    """
+    if not verdict or verdict.get("precision_tier") in (None, "events"):
+        return None
+    head = str(verdict.get("verdict") or "").split(":", 1)[0].strip() or "not usable for fixation measures"
+    sd = verdict.get("noise_sd_deg")
+    spread = (f"; its samples spread {sd:.2f} deg about each fixation's centre"
+              if isinstance(sd, (int, float)) and np.isfinite(sd) else "")
+    return ("The webcam clip's own precision check had already rated it too imprecise for fixation counts and "
+            f"durations ({head}{spread}), so the fixation figures here show how far off such a clip is.")
+
+
 def plain_reading(result) -> str:
     """A short, careful reading of the agreement in plain words."""
     ag = result.agreement
@@ -336,6 +357,9 @@ def plain_reading(result) -> str:
         parts.append(f"Sample by sample, fixation labels agreed with kappa = {_fmt(k)} and fixation onsets were "
                      f"matched with F1 = {_fmt(f1)}; for comparison, two expert human coders agree at about 0.74-0.93 "
                      "on 500 Hz lab data (Andersson et al. 2017).")
+    own = own_check_sentence((getattr(result, "meta", None) or {}).get("webcam_verdict"))
+    if own:
+        parts.append(own)
     parts.append("These figures describe this recording only; they do not show that the webcam can replace the lab "
                  "tracker, and correlation alone does not mean the two measure on the same scale - the limits of "
                  "agreement say how far single values may differ.")
