@@ -737,7 +737,8 @@ def compact_means(pooled: pd.DataFrame, *, min_pairs: int = MIN_PAIRS) -> pd.Dat
 
 
 def compact_participants(per: pd.DataFrame) -> pd.DataFrame:
-    """One row per pair: labels, status, windows, overlap, offset with its confidence, fixation-count r, kappa."""
+    """One row per pair: labels, status, windows, overlap, offset with its confidence, fixation-count r, kappa, and
+    the webcam clip's own precision check ("Usable", "Partly usable", "Not usable": its verdict's opening)."""
     rows = []
     for _, r in per.iterrows() if len(per) else []:
         g = _getter(r)
@@ -752,6 +753,8 @@ def compact_participants(per: pd.DataFrame) -> pd.DataFrame:
                      "Fixations r": (_fmt(g("fixation_count_r")) if _fmt(g("windows_paired"), 0) != "n/a"
                                      and float(g("windows_paired")) >= MIN_PAIRS else "not shown") if ok else "",
                      "kappa": _fmt(g("kappa")) if ok else "",
+                     "Webcam clip's own check": (g("webcam_verdict") or "") if ok and isinstance(
+                         g("webcam_verdict"), str) else "",
                      "Notes": "" if (isinstance(g("notes"), float) or g("notes") is None) else str(g("notes"))})
     return pd.DataFrame(rows)
 

@@ -80,6 +80,14 @@ def _study_rows(source, *, references=None, label_pattern=None, reference_glob=N
     return pairing.rows(), pairing
 
 
+def _own_check(verdict: dict | None) -> dict:
+    """The webcam clip's own precision check for the study table: its tier and its verdict's opening words
+    ("Usable", "Partly usable", "Not usable"; empty without a check)."""
+    verdict = verdict or {}
+    return {"webcam_precision_tier": verdict.get("precision_tier") or "",
+            "webcam_verdict": str(verdict.get("verdict") or "").split(":", 1)[0].strip()}
+
+
 def _target_quality(cam_dir, rule) -> dict:
     """The known-target check's figures of a webcam folder (NaN when it has none) and the rule's verdict."""
     from aspectus.targets.check import read_check
@@ -223,6 +231,7 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
                     "kappa": r.events["kappa"], "f1": r.events["f1"],
                     "fixation_count_r": float(fc["pearson_r"].iloc[0]) if len(fc) else np.nan,
                     "fixation_count_icc": float(fc["icc"].iloc[0]) if len(fc) else np.nan,
+                    **_own_check(r.meta.get("webcam_verdict")),
                     "status": "ok", "notes": "; ".join(r.notes), **_target_quality(cam_dirs.get(key), target_rule)})
     for key, msg in failures.items():
         row = row_of[key]

@@ -219,6 +219,9 @@ def test_study_manifest_pooled_and_summary(session, tmp_path):
     truth2 = synth_trajectory(duration_s=30.0, seed=9, task="reading").samples
     ref2 = write_demo_reference(truth2, root / "lab2", stem="p02_s01", offset_s=2.0, rate_hz=500.0, seed=2)
     _webcam_folder(root / "cam2", truth2, seed=4)
+    # this clip's own precision check did not trust fixation measures (what run.json's quality records)
+    (root / "cam2" / "run.json").write_text(json.dumps({"quality": {
+        "precision_tier": "coarse", "usable": True, "noise_sd_deg": 1.2, "verdict": "Partly usable: samples spread"}}))
     man = root / "manifest.csv"
     man.write_text("webcam,reference,participant,session,mapping\n"
                    f"{session['cam']},{session['ref']['physio']},p01,s01,\n"
@@ -239,6 +242,12 @@ def test_study_manifest_pooled_and_summary(session, tmp_path):
     per = pd.read_csv(root / "study" / "participants.csv")
     assert fc["n"] == per.loc[per["status"] == "ok", "windows_paired"].sum()
     assert set(per["status"]) == {"ok", "failed"}
+    own = per.set_index("key")
+    assert own.loc["p02_s01", "webcam_verdict"] == "Partly usable" and own.loc["p02_s01", "webcam_precision_tier"] == "coarse"
+    assert pd.isna(own.loc["p01_s01", "webcam_verdict"])  # no run.json: no check to name
+    html = (root / "study" / "report.html").read_text()
+    assert "Webcam clip&#x27;s own check" in html or "Webcam clip's own check" in html
+    assert "Partly usable" in html
     md = (root / "study" / "summary.md").read_text()
     # the table to paste names its columns and features for a reader; summary.csv keeps the names for scripts
     assert "| Feature | Participants | Windows | Webcam mean | Lab tracker mean | r [95 % CI] | ICC(2,1) [95 % CI] |" in md
