@@ -633,7 +633,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     finally:
         if patches is not None:
             patches.close()  # the patches are not needed any more (the temporary file goes with it)
-    contrast = iris_contrast(a[:, LIMBUS_CONTRAST]) if refine else None
+    contrast = iris_contrast(a[:, LIMBUS_CONTRAST], mirrored=params.gaze.mirrored) if refine else None
     if contrast is not None:
         contrast["pupil_eye_frames"] = state.get("pupil_eye_frames")  # eyes located by the pupil (a light iris)
     cols, ginfo = estimate_gaze(
@@ -693,11 +693,17 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     return df, meta
 
 
-def iris_contrast(steps: np.ndarray) -> dict:
+def iris_contrast(steps: np.ndarray, *, mirrored: bool = False) -> dict:
     """The clip's iris contrast against the whites of the eyes from the frames' per-eye contrasts (N, 2), % (NaN
     where not measured; :func:`aspectus.webcam.limbus.limbus_contrast`): each eye's median over its frames, the
-    clip's the lower of the two (the gaze reads both eyes), and how many frames each was measured in."""
+    clip's the lower of the two (the gaze reads both eyes), and how many frames each was measured in.
+
+    ``steps`` are the face mesh's [right, left] eyes; ``mirrored`` (a mirrored clip, ``GazeParams.mirrored``): the
+    mesh's right eye is the subject's left, and ``right_pct`` / ``left_pct`` / ``frames`` name the subject's eyes,
+    as run.json's other per-eye records do (:func:`aspectus.webcam.gaze.unmirror_record`)."""
     steps = np.asarray(steps, float).reshape(-1, 2)
+    if mirrored:
+        steps = steps[:, ::-1]
     out = {"frames": [int(np.isfinite(steps[:, e]).sum()) for e in (0, 1)]}
     med = [float(np.median(steps[np.isfinite(steps[:, e]), e])) if out["frames"][e] else float("nan") for e in (0, 1)]
     out["right_pct"], out["left_pct"] = _round(med[0], 1), _round(med[1], 1)
