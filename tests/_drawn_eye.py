@@ -38,3 +38,19 @@ def right_eye_only(outline: np.ndarray) -> np.ndarray:
     pts[list(RIGHT_EYE_OUTLINE), :2] = outline
     pts[list(LEFT_EYE_OUTLINE), :2] = outline + 1000.0
     return pts
+
+
+def lid_line_points(centre, half: float, upper: float, lower: float) -> np.ndarray:
+    """Face mesh points (478 x 3, zero elsewhere) with the right eye's outline (outer corner, 7 upper-lid points,
+    inner corner, 7 lower-lid points) as two straight lids: the corners ``half`` px either side of ``centre`` at
+    its height, the upper lid ``upper`` px above it and the lower lid ``lower`` px below."""
+    from aspectus.webcam.landmarks import RIGHT_EYE_OUTLINE
+
+    outline = np.array(RIGHT_EYE_OUTLINE)
+    pts = np.zeros((478, 3))
+    xs = np.linspace(centre[0] - half, centre[0] + half, 9)[1:-1]
+    pts[outline[0], :2] = (centre[0] - half, centre[1])
+    pts[outline[1:8], 0], pts[outline[1:8], 1] = xs, centre[1] - upper
+    pts[outline[8], :2] = (centre[0] + half, centre[1])
+    pts[outline[9:], 0], pts[outline[9:], 1] = xs[::-1], centre[1] + lower
+    return pts

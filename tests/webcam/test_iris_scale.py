@@ -17,6 +17,8 @@ from aspectus.webcam.gaze import (IRIS_DIAMETER_MM, IRIS_PLANE_RADIUS_MM, MIN_SC
 from aspectus.webcam.headpose import face_model
 from aspectus.webcam.landmarks import LEFT_EYE_CORNERS, RIGHT_EYE_CORNERS
 
+from _drawn_eye import lid_line_points
+
 
 def _project(K, X):
     return np.c_[K[0, 0] * X[:, 0] / X[:, 2] + K[0, 2], K[1, 1] * X[:, 1] / X[:, 2] + K[1, 2]]
@@ -129,10 +131,8 @@ def test_limbus_fit_measures_a_drawn_disc_the_mesh_reads_too_large():
     3.7 % small at an 8.5 px iris, 1.0 % at 12 px and 0.2 % at 25 px (the edge of a blurred disc moves
     inwards by about sigma^2 / 2r, and the fit smooths the picture by a Gaussian of sigma 0.8 px), each
     far nearer than the mesh's 8 %."""
-    from aspectus.webcam.landmarks import RIGHT_EYE_OUTLINE
     from aspectus.webcam.limbus import limbus_centres_many
 
-    outline = np.array(RIGHT_EYE_OUTLINE)
     for r, tol in ((4.25, 0.05), (6.0, 0.02), (12.5, 0.01)):  # 8.5, 12 and 25 px irises
         centre = np.array([45.3, 31.6])
         w, h = 120, 80
@@ -142,13 +142,7 @@ def test_limbus_fit_measures_a_drawn_disc_the_mesh_reads_too_large():
         opening = np.clip(np.minimum(yy - (centre[1] - upper), centre[1] + lower - yy) + 0.5, 0, 1)
         opening *= np.abs(xx - centre[0]) < 2.4 * r
         img = np.clip(150.0 * (1 - opening) + (220.0 * (1 - iris) + 60.0 * iris) * opening, 0, 255).astype(np.uint8)
-        pts = np.zeros((478, 3))
-        half = 2.4 * r
-        xs = np.linspace(centre[0] - half, centre[0] + half, 9)[1:-1]
-        pts[outline[0], :2] = (centre[0] - half, centre[1])
-        pts[outline[1:8], 0], pts[outline[1:8], 1] = xs, centre[1] - upper
-        pts[outline[8], :2] = (centre[0] + half, centre[1])
-        pts[outline[9:], 0], pts[outline[9:], 1] = xs[::-1], centre[1] + lower
+        pts = lid_line_points(centre, 2.4 * r, upper, lower)
         item = (img, pts, np.array([centre + [0.3, -0.2], [np.nan, np.nan]]), np.array([2 * r * 1.08, np.nan]))
         (c, fitted, diam), = limbus_centres_many([item], diameters=True)
         assert fitted[0] and not fitted[1] and np.isnan(diam[1])

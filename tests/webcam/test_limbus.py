@@ -7,6 +7,8 @@ import pytest
 from aspectus.webcam.landmarks import RIGHT_EYE_OUTLINE
 from aspectus.webcam.limbus import EDGE_NOISE_PX, fit_circle, limbus_centres
 
+from _drawn_eye import lid_line_points
+
 
 def _rim_and_lid(centre, r, lid_below_px, rng):
     """Edge points of an iris whose lower part is hidden by a straight lower lid ``lid_below_px`` under the centre.
@@ -86,16 +88,7 @@ def test_limbus_centre_with_the_lower_lid_over_the_iris():
     """
     centre, r = np.array([45.3, 31.6]), 10.0
     img = _drawn_eye(centre, r, upper_px=8.0, lower_px=6.0)
-    pts = np.zeros((478, 3))
-    outline = np.array(RIGHT_EYE_OUTLINE)
-    half = 2.4 * r
-    # outline order: outer corner, upper lid (7 points), inner corner, lower lid (7 points)
-    xs_up = np.linspace(centre[0] - half, centre[0] + half, 9)[1:-1]
-    xs_lo = xs_up[::-1]
-    pts[outline[0], :2] = (centre[0] - half, centre[1])
-    pts[outline[1:8], 0], pts[outline[1:8], 1] = xs_up, centre[1] - 8.0
-    pts[outline[8], :2] = (centre[0] + half, centre[1])
-    pts[outline[9:], 0], pts[outline[9:], 1] = xs_lo, centre[1] + 6.0 + 3.0
+    pts = lid_line_points(centre, 2.4 * r, 8.0, 6.0 + 3.0)
     iris_px = np.array([centre + [0.8, -1.2], [np.nan, np.nan]])  # the mesh point, off (and too high)
     out, fitted = limbus_centres(img, pts, iris_px, np.array([2.2 * r, np.nan]))
     assert fitted[0] and not fitted[1]
@@ -108,19 +101,12 @@ def test_many_frames_at_once_give_what_each_frame_gives_alone():
     """limbus_centres_many fits all eyes of several frames together; each result is that of its frame alone."""
     from aspectus.webcam.limbus import limbus_centres_many
 
-    outline = np.array(RIGHT_EYE_OUTLINE)
     items = []
     for k, (r, dx, dy, lower) in enumerate([(10.0, 0.3, -0.2, 6.0), (7.5, -1.1, 0.8, 5.0), (12.5, 0.0, 0.0, 9.0),
                                             (2.0, 0.0, 0.0, 6.0), (9.0, 1.5, 1.0, 4.0)]):
         centre = np.array([45.3 + 0.1 * k, 31.6 - 0.2 * k])
         img = _drawn_eye(centre, r, upper_px=8.0, lower_px=lower)
-        pts = np.zeros((478, 3))
-        half = 2.4 * r
-        xs_up = np.linspace(centre[0] - half, centre[0] + half, 9)[1:-1]
-        pts[outline[0], :2] = (centre[0] - half, centre[1])
-        pts[outline[1:8], 0], pts[outline[1:8], 1] = xs_up, centre[1] - 8.0
-        pts[outline[8], :2] = (centre[0] + half, centre[1])
-        pts[outline[9:], 0], pts[outline[9:], 1] = xs_up[::-1], centre[1] + lower + 3.0
+        pts = lid_line_points(centre, 2.4 * r, 8.0, lower + 3.0)
         # radii differ, so the rays carry different numbers of samples (the batch pads them); the
         # 2 px iris is too small to fit and keeps the mesh point; the left eye is missing throughout
         items.append((img, pts, np.array([centre + [dx, dy], [np.nan, np.nan]]), np.array([2 * r, np.nan])))
@@ -216,19 +202,12 @@ def test_fits_with_and_without_the_side_arc_rule_at_once_give_each_alone():
     before (the appearance estimate's labels must not move)."""
     from aspectus.webcam.limbus import limbus_centres_many, limbus_centres_variants
 
-    outline = np.array(RIGHT_EYE_OUTLINE)
     items = []
     for k, (r, dx, dy, upper, lower) in enumerate([(10.0, 0.3, -0.2, 8.0, 6.0), (12.5, 0.6, 1.2, 6.0, 5.0),
                                                    (9.0, -0.8, 0.9, 4.0, 7.0), (2.0, 0.0, 0.0, 8.0, 6.0)]):
         centre = np.array([45.3 + 0.1 * k, 31.6 - 0.2 * k])
         img = _drawn_eye(centre, r, upper_px=upper, lower_px=lower)
-        pts = np.zeros((478, 3))
-        half = 2.4 * r
-        xs_up = np.linspace(centre[0] - half, centre[0] + half, 9)[1:-1]
-        pts[outline[0], :2] = (centre[0] - half, centre[1])
-        pts[outline[1:8], 0], pts[outline[1:8], 1] = xs_up, centre[1] - upper
-        pts[outline[8], :2] = (centre[0] + half, centre[1])
-        pts[outline[9:], 0], pts[outline[9:], 1] = xs_up[::-1], centre[1] + lower + 3.0
+        pts = lid_line_points(centre, 2.4 * r, upper, lower + 3.0)
         items.append((img, pts, np.array([centre + [dx, dy], [np.nan, np.nan]]), np.array([2 * r, np.nan])))
     without, with_ = limbus_centres_variants(items, ["both"] * len(items), diameters=True)
     mixed_plain, mixed_side = limbus_centres_variants(items, ["plain", "side", "both", "plain"], diameters=True)
