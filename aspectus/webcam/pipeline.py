@@ -610,7 +610,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
             if choice is not None:
                 app_info = None
     if choice is not None:
-        choice["used"] = ("appearance" if app_info is not None and not (appearance and weightless)
+        choice["used"] = ("appearance" if app_info is not None and not weightless
                           else ("limbus" if refine else "face mesh"))
     # the limbus fits' diameters (the iris scale): with the appearance estimate those it learnt from
     limbus_diam = _label_columns(a, a[:, LIMBUS_DIAM], LABEL_DIAM) if fitted else a[:, LIMBUS_DIAM]
