@@ -36,7 +36,14 @@ def run(args) -> int:
 
     from aspectus.cli.outdir import apply_output_options, prepare_out_dir
 
+    from aspectus.errors import AspectusInputError
+    from aspectus.webcam.video import is_video_file
+
     apply_output_options(args)
+    if is_video_file(args.table):
+        raise AspectusInputError("is a video clip, not a gaze table", path=args.table,
+                                hint="process the clip first (aspectus process CLIP -o OUT), then give "
+                                     "OUT/<clip name>/samples.parquet")
     params = analysis_params_from_args(args)
     prepare_out_dir(args.out, create=False)
     if args.time_col is None and (args.x_col or args.y_col):

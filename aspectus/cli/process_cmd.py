@@ -65,8 +65,8 @@ def add_analysis_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--window-s", type=float, default=None, metavar="S",
                    help=f"length of the fixed feature windows in seconds (default {d.window_s:g})")
     p.add_argument("--step-s", type=float, default=None, metavar="S",
-                   help=f"start-to-start step between feature windows in seconds (default: the window length "
-                        f"- {d.step_s:g} - so windows lie side by side)")
+                   help=f"start-to-start step between feature windows in seconds (default: the window length, "
+                        f"{d.step_s:g}, so windows lie side by side)")
     p.add_argument("--set", dest="settings", action="append", default=[], metavar="NAME=VALUE",
                    help="any other detection setting, e.g. --set min_fixation_ms=80 (repeatable); the names are "
                         "listed when one is misspelt, and the app's Parameters panel shows each one's meaning when "

@@ -185,6 +185,13 @@ def _run_folders(args, params, screen, mapping) -> int:
         print(f"{len(pairing.pairs)} pair(s) found, {len(pairing.messages())} file(s) left over (dry run: nothing "
               "validated)")
         return 0
+    if not pairing.pairs:  # the reasons are the lines above: the error does not repeat them
+        from aspectus.errors import AspectusInputError
+
+        raise AspectusInputError(f"no clip could be paired with a reference ({len(pairing.messages())} file(s) left "
+                                 "over, each listed above with the reason)", path=args.webcam,
+                                 hint="take participant/session labels from the names with --labels REGEX, or write "
+                                      "a manifest CSV and use --manifest")
     res = validate_study(pairing, args.out, params=params, screen=screen, mapping=mapping,
                          figures=not args.no_figures, target_rule=args.target_rule,
                          progress=lambda f, m: print(f"[{f:4.0%}] {m}", file=sys.stderr))

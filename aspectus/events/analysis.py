@@ -595,7 +595,8 @@ def analyse_table(path, out_dir, *, time_col: str | None = None, time_unit: str 
 
     path = Path(path)
     if not path.is_file():
-        raise AspectusInputError("table not found", path=path)
+        raise AspectusInputError("table not found", path=path,
+                                 hint="check the file's name and folder")
     params = params or AnalysisParams()
     samples = None
     kind = "gaze table"

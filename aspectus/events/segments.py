@@ -13,6 +13,16 @@ SEGMENT_COLUMNS = ("label", "onset_s", "offset_s")
 MAX_WINDOWS = 200_000
 
 
+def _header_line(head: bytes, limit: int = 80) -> str:
+    """The file's first line that is not empty or a comment, as written (shortened to ``limit`` characters): the
+    error shows what the file holds, not how the delimiter sniffer split it."""
+    for raw in head.decode("utf-8-sig", errors="replace").splitlines():
+        line = raw.strip()
+        if line and not line.startswith("#"):
+            return line if len(line) <= limit else line[:limit - 3] + "..."
+    return ""
+
+
 def read_segments(path) -> pd.DataFrame:
     """Read a segment file: a CSV (or other delimited table) with columns label, onset_s, offset_s.
 
@@ -42,7 +52,7 @@ def read_segments(path) -> pd.DataFrame:
     df.columns = [str(c).strip() for c in df.columns]
     missing = [c for c in SEGMENT_COLUMNS if c not in df.columns]
     if missing:
-        raise AspectusInputError(f"missing column(s) {', '.join(missing)} (found: {', '.join(df.columns)})",
+        raise AspectusInputError(f"missing column(s) {', '.join(missing)} (the header row reads {_header_line(head)!r})",
                                 path=path, where="header", hint="columns must be label,onset_s,offset_s (seconds)")
     out = pd.DataFrame({"label": df["label"].astype(str).str.strip()})
     for c in ("onset_s", "offset_s"):

@@ -212,8 +212,18 @@ class FolderPairing:
         for key, why in self.not_processed:
             out.append(f"clip {key}: not processed ({why})")
         for path, why in self.ignored:
-            out.append(f"{path}: not used ({why})")
+            out.append(f"{self._shown(path)}: not used ({why})")
         return out
+
+    def _shown(self, path) -> str:
+        """A left-over file as the console and the report name it: relative to the reference or webcam folder it
+        lies in ("reference ..." / "clip folder ..."), so no absolute path (with user names) reaches the report."""
+        for base, what in ((self.reference_folder, "reference"), (self.webcam_folder, "clip folder")):
+            try:
+                return f"{what} {Path(path).resolve().relative_to(Path(base).resolve()).as_posix()}"
+            except (ValueError, OSError, TypeError):
+                continue
+        return Path(path).name
 
     def manifest(self, base: Path | None = None) -> pd.DataFrame:
         """The pairs as a validation manifest (paths relative to ``base`` when given)."""

@@ -116,7 +116,9 @@ class ProcessParams:
                                  f"frame (max_faces), so face {index} from the left can never be found",
                                  hint=f"raise --max-faces to {index + 1} (at most 10) or choose a lower index")
         if not (20.0 <= float(self.fov_deg) <= 120.0):
-            raise ParameterError(f"field of view {self.fov_deg} deg is outside 20-120 deg")
+            raise ParameterError(f"field of view {self.fov_deg:g} deg is outside 20-120 deg",
+                                 hint="give the webcam's horizontal field of view between 20 and 120 deg (--fov-deg; "
+                                      "60 when left out)")
         if not (1 <= int(self.max_faces) <= 10):
             raise ParameterError(f"max_faces must be 1-10, got {self.max_faces}")
 

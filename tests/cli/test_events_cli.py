@@ -124,6 +124,11 @@ def test_bad_input_is_one_clear_line(tmp_path, capsys):
     assert rc == 2 and "--time-col" in err
     rc = main(["events", str(tmp_path / "absent.csv"), "-o", str(out)])
     assert rc == 2 and "not found" in capsys.readouterr().err
+    clip = tmp_path / "p03_s02.mp4"  # a video given where a table belongs: the error says to process it first
+    clip.write_bytes(b"\x00\x00\x00\x18ftypmp42")
+    rc = main(["events", str(clip), "-o", str(out)])
+    err = capsys.readouterr().err
+    assert rc == 2 and "p03_s02.mp4: is a video clip, not a gaze table" in err and "aspectus process" in err
     rc = main(["events", str(src), "-o", str(out), "--time-col", "time", "--x-col", "gx", "--y-col", "gy",
                "--detector", "magic"])
     assert rc == 2 and "unknown detector" in capsys.readouterr().err

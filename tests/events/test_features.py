@@ -133,6 +133,9 @@ def test_read_segments_and_errors(tmp_path):
         assert what in str(err.value) and where in str(err.value) and p.name in str(err.value)
     with pytest.raises(AspectusInputError, match="not found"):
         read_segments(tmp_path / "absent.csv")
+    p.write_text("# segments of p01\nhello\n")  # the header row is shown as written, not as the sniffer split it
+    with pytest.raises(AspectusInputError, match=r"the header row reads 'hello'\)"):
+        read_segments(p)
 
 
 def test_exports_and_sidecar(tmp_path):

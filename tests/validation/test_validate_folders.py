@@ -99,6 +99,8 @@ def test_pairing_by_labels_stems_and_what_is_left_over(tmp_path):
     assert "clip classA__kid3: not processed (failed: no face found in status.csv)" in msgs
     assert "clip classA__kid4: not processed (pending in status.csv)" in msgs
     assert "p05_extra.csv: not used (a plain table: give --mapping FILE" in msgs
+    # files are named relative to their folder: the console and the report carry no absolute path (user names)
+    assert str(tmp_path) not in msgs
     assert "derivatives" not in msgs and "participants.tsv" not in msgs and "physioevents" not in msgs
     table = pairing.table()
     assert table["status"].value_counts().to_dict() == {"paired": 4, "no reference": 2, "no clip": 1,
@@ -278,7 +280,10 @@ def test_folder_study_cli(study, tmp_path, capsys):
     assert not (tmp_path / "dry").exists() and man.exists()
     # without the label pattern nothing pairs: the error says what to do
     rc = main(["validate", str(study["cams"]), str(study["bids"]), "-o", str(tmp_path / "x"), "--no-figures"])
-    assert rc == 2 and "--labels REGEX" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert rc == 2 and "--labels REGEX" in err
+    # each left-over file is listed once, above the error, which points at the list instead of repeating it
+    assert err.count("clip linden_brook_p05_s01: no reference") == 1 and "listed above" in err
     # a study folder against a single file is refused with a hint
     one = next(study["bids"].rglob("*_physio.tsv.gz"))
     rc = main(["validate", str(study["cams"]), str(one), "-o", str(tmp_path / "y")])

@@ -194,7 +194,7 @@ def test_cli_clip_whose_output_cannot_be_written_fails_alone(clip, tmp_path, cap
 def test_bad_parameters_are_refused():
     from aspectus.errors import ParameterError
 
-    with pytest.raises(ParameterError, match="field of view"):
+    with pytest.raises(ParameterError, match=r"field of view 5 deg is outside 20-120 deg.*--fov-deg"):
         ProcessParams(fov_deg=5)
     with pytest.raises(ParameterError, match="face choice"):
         ProcessParams(face="biggest")
