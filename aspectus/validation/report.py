@@ -55,6 +55,11 @@ def _plain_axes(ax, *, min_span: float | None = None) -> None:
             ax.set_ylim(mid - min_span / 2, mid + min_span / 2)
 
 
+def _sentence(text: str) -> str:
+    """``text`` with its first letter in capitals, to open a sentence."""
+    return text[:1].upper() + text[1:]
+
+
 def _fmt(v, nd=2) -> str:
     try:
         v = float(v)
@@ -374,6 +379,8 @@ def plain_reading(result) -> str:
 def _digits(feature: str) -> int:
     if feature.endswith("_ms"):
         return 0
+    if feature.endswith("_per_min"):  # 186.0 per minute, not 186.00: a tenth of an event a minute is detail enough
+        return 1
     if feature.endswith("_frac") or feature.endswith("_deg"):
         return 2
     return 1 if feature.endswith("_count") else 2
@@ -596,7 +603,8 @@ def render_pair_report(result, pngs: dict[str, bytes]) -> str:
                          "Value": _ci(g["estimate"], g["ci_low"], g["ci_high"], 2), "n": g["n"]})
     parts.append(_table_html(pd.DataFrame(rows), ["Measure", "Value", "n"]))
     parts.append(f"<p>{html.escape(_events_in_words(ev))}</p>")
-    parts.append(f"<p class='small'>{html.escape(ev['method']['kappa'])}. {html.escape(ev['method']['matching'])}. "
+    parts.append(f"<p class='small'>{html.escape(_sentence(ev['method']['kappa']))}. "
+                 f"{html.escape(_sentence(ev['method']['matching']))}. "
                  f"Gain: {html.escape(ev['gain']['method'])}.</p>")
 
     parts.append("<h2>Time alignment</h2>")
@@ -695,6 +703,12 @@ def _getter(row):
     return g
 
 
+def _limits(lo, hi, nd: int) -> str:
+    """"lo to hi"; a single "n/a" where neither end could be computed (not "n/a to n/a")."""
+    a, b = _fmt(lo, nd), _fmt(hi, nd)
+    return "n/a" if a == b == "n/a" else f"{a} to {b}"
+
+
 def compact_repeated(pooled: pd.DataFrame, *, min_pairs: int = MIN_PAIRS) -> pd.DataFrame:
     """Repeated-measures figures per feature (windows), compact: rmcorr, bias and limits for one window."""
     rows = []
@@ -712,7 +726,7 @@ def compact_repeated(pooled: pd.DataFrame, *, min_pairs: int = MIN_PAIRS) -> pd.
                      "df": _fmt(df, 0) if ok and np.isfinite(float(df)) and df >= 1 else "",
                      "Bias [95 % CI]": _ci(g("ba_rm_bias"), g("ba_rm_bias_ci_low"), g("ba_rm_bias_ci_high"), nd)
                      if ok else "not shown",
-                     "Limits for one window": f"{_fmt(g('ba_rm_loa_low'), nd)} to {_fmt(g('ba_rm_loa_high'), nd)}"
+                     "Limits for one window": _limits(g("ba_rm_loa_low"), g("ba_rm_loa_high"), nd)
                      if ok else "not shown"})
     return pd.DataFrame(rows)
 
@@ -856,7 +870,8 @@ def render_study_report(per: pd.DataFrame, pooled: pd.DataFrame, summary: pd.Dat
                      + _table_html(compact_repeated(pooled), cls="compact"))
         parts.append("<p class='small'>Interval of rmcorr: Fisher z with df in place of n. Interval of the bias: from "
                      "the between- and within-participant variance of the differences, t on participants - 1 df. No "
-                     "interval is computed for the repeated-measures limits.</p>")
+                     "interval is computed for the repeated-measures limits. n/a: not computable - the bias and the limits "
+                     "need windows of at least two participants.</p>")
     if len(pooled) and "means_n" in pooled.columns:
         means = compact_means(pooled)
         parts.append("<h2>Participant means compared</h2>")

@@ -999,8 +999,7 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
     s["verdict"] += _trust_sentence(s)
     if ((meta.get("gaze_model") or {}).get("iris_estimate") or {}).get("used") == "appearance":
         s["verdict"] += (" The iris height was read from the eyes' own appearance over the whole clip, the method "
-                         "chosen for faces this small (details in run.json under extraction, gaze_model, "
-                         "iris_estimate).")
+                         "chosen for faces this small in the picture (run.json records why).")
     dp = s["decode_problems"]
     if dp.get("stopped_early"):
         s["verdict"] += f" Note: the file is damaged - {dp['stopped_early']}; only the part before that was analysed."

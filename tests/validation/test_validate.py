@@ -391,6 +391,8 @@ def test_the_compact_table_shows_no_negative_zero_and_the_window_choice_says_wha
     t = compact_agreement(ag).set_index("Feature")
     blink = t.loc["Blink rate (1/min)", "Bias [95 % limits]"]
     assert "-0.0" not in blink and blink.startswith("0.0") and " [0.0" in blink
+    # a rate per minute prints one decimal ("12.0", not "12.00"; the report read "186.00" fixations a minute)
+    assert t.loc["Blink rate (1/min)", "Webcam mean"] == "12.0" and blink == "0.0 [0.0 to 0.0]"
     assert t.loc["Fixations (per window)", "ICC [95 % CI]"] == "0.58 [-0.06, 0.88]"  # real negatives stay
     # 20 s of overlap with the 10 s feature windows: 2 s chosen, and the count it gives is named as windows
     c = choose_window_s(20.0, 10.0)

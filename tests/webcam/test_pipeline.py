@@ -126,6 +126,9 @@ def test_verdict_notes_repaired_timestamps(processed):
     assert "3 frame(s) had a missing or out-of-order timestamp" in s["verdict"]
     clean = summarise(res.samples, res.analysis, {"decode": {"frames": 90, "pts_missing": 0}})
     assert "timestamp" not in clean["verdict"]
+    # the small-face method is named in words; where run.json keeps the details is no key path to type
+    small = summarise(res.samples, res.analysis, {"gaze_model": {"iris_estimate": {"used": "appearance"}}})
+    assert "read from the eyes' own appearance" in small["verdict"] and "gaze_model" not in small["verdict"]
 
 
 def test_clip_without_face(tmp_path):
