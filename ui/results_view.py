@@ -41,6 +41,18 @@ _QUALITY_LABELS = {
 }
 
 
+#: headers and definitions of the columns that say which time span a feature row covers
+_SCOPE_LABELS = {
+    "clip": ("Clip", "the clip's name in the study"),
+    "scope": ("Scope", "what the row covers: the whole clip, a fixed window or a task segment"),
+    "label": ("Label", "the task segment's name, the fixed window's number (w0000, w0001, ...), or clip"),
+    "start_s": ("Start (s)", "start of the row's time span on the clip's clock; the whole clip and its first window "
+                             "start half a frame before the first frame, which stands for the time around it"),
+    "end_s": ("End (s)", "end of the row's time span on the clip's clock"),
+    "n_samples": ("Samples", "gaze samples (video frames) in the row's time span"),
+}
+
+
 def value_words(column: str) -> dict:
     """The values of ``column`` the tables show in words ({value: words}); run.json and exports keep the values."""
     if column == "precision_tier":
@@ -148,10 +160,8 @@ def _human(name: str) -> str:
     """A column's label with its unit (aspectus.schema), two lines when long, so columns stay narrow."""
     from aspectus.schema import column, human_label
 
-    if name in ("clip", "scope", "label"):
-        return name.capitalize()
-    if name in ("start_s", "end_s"):
-        return {"start_s": "Start (s)", "end_s": "End (s)"}[name]
+    if name in _SCOPE_LABELS:
+        return _SCOPE_LABELS[name][0]
     if column(name) is None and name in _QUALITY_LABELS:
         text = _QUALITY_LABELS[name][0]
     else:
@@ -167,6 +177,8 @@ def _column_tip(name: str) -> str:
     from aspectus.schema import column
 
     c = column(name)
+    if name in _SCOPE_LABELS:
+        return f"{name}: {_SCOPE_LABELS[name][1]}"
     if c is None and name in _QUALITY_LABELS:
         doc = _tier_tip() if name == "precision_tier" else _QUALITY_LABELS[name][1]
         return f"{name}: {doc}"

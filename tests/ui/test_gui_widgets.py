@@ -266,6 +266,14 @@ def test_features_table_counts_as_counts_rates_with_decimals_and_the_precision_c
     m.human_headers = True
     shown = [[m.data(m.index(r, c), Qt.DisplayRole) for c in range(3)] for r in range(2)]
     assert shown == [["32", "192.0", "600"], ["34", "204.0", "360"]]
+    # the columns that say which time span a row covers read as words, with a definition of their own (the
+    # feature table's n_samples read "N samples", with the events table's definition as its tooltip)
+    spans = DataFrameModel(pd.DataFrame({"scope": ["clip"], "start_s": [-0.017], "n_samples": [600]}))
+    spans.human_headers = True
+    heads = [spans.headerData(c, Qt.Horizontal, Qt.DisplayRole) for c in range(3)]
+    assert heads == ["Scope", "Start (s)", "Samples"]
+    tip = spans.headerData(2, Qt.Horizontal, Qt.ToolTipRole)
+    assert "time span" in tip and "event" not in tip
 
     without = [t for t, _, _, features in PRECISION_TIERS if "fixation count and durations" not in features]
     assert without == ["coarse", "minimal"]
