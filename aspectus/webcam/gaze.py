@@ -647,7 +647,7 @@ def describe_iris_estimate(info) -> str | None:
     'Iris height from: circle fit to the iris edge (as chosen).'
     >>> print(describe_iris_estimate({"setting": "auto", "used": "appearance", "iris_px": 11.2,
     ...                               "iris_px_source": "limbus fit"}))
-    Iris height from: the eye's appearance (chosen automatically: the iris is 11.2 px across, below 16.8 px).
+    Iris height from: the eye's appearance (chosen automatically: the circle fit measures the iris 11.2 px across, below 16.8 px).
 
     A run.json written before the choice read the limbus fit's size gives the face mesh's as ``median_iris_px``.
     """
@@ -673,7 +673,11 @@ def describe_iris_estimate(info) -> str | None:
         obstacle = reason
     if isinstance(px, (int, float)) and not isinstance(px, bool) and np.isfinite(px):
         small = px < AUTO_APPEARANCE_BELOW_PX
-        why = f"the iris is {round(px, 1):g} px across, {'below' if small else 'not below'} {AUTO_APPEARANCE_BELOW_PX:g} px"
+        # the measure is named: the verdict's "irises about N px across" is the face tracker's, which reads larger
+        who = {"limbus fit": "the circle fit measures", "face mesh": "the face tracker measures"}.get(
+            info.get("iris_px_source"))
+        size = f"{who} the iris {round(px, 1):g} px across" if who else f"the iris is {round(px, 1):g} px across"
+        why = f"{size}, {'below' if small else 'not below'} {AUTO_APPEARANCE_BELOW_PX:g} px"
         if used != "appearance" and small and obstacle:
             why += f", but {obstacle}"
     else:

@@ -297,6 +297,7 @@ def test_the_plain_words_and_the_reason_name_the_threshold_in_use():
 
     text = describe_iris_estimate({"setting": "auto", "used": "limbus", "iris_px": 17.0,
                                    "iris_px_source": "limbus fit"})
-    assert text == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 17 px across, "
-                    f"not below {AUTO_APPEARANCE_BELOW_PX:g} px).")
+    # the size names its measure (the verdict's iris size is the face tracker's, which reads larger)
+    assert text == ("Iris height from: circle fit to the iris edge (chosen automatically: the circle fit measures "
+                    f"the iris 17 px across, not below {AUTO_APPEARANCE_BELOW_PX:g} px).")
     assert "not below 16.8 px" in text
