@@ -157,7 +157,9 @@ def run(args) -> int:
           + f" in {res.elapsed_s:.0f} s on {res.engine}")
     failed = res.status[res.status["status"] == "failed"]
     for rec in failed.head(20).itertuples():
-        print(f"  failed: {rec.clip}: {rec.reason}", file=sys.stderr)
+        reason = str(rec.reason)  # the reason usually names the clip already: not "p01.mp4: p01.mp4: ..."
+        print(f"  failed: {reason if reason.startswith(f'{rec.clip}:') else f'{rec.clip}: {reason}'}",
+              file=sys.stderr)
     if len(failed) > 20:
         print(f"  ... and {len(failed) - 20} more", file=sys.stderr)
     verdicts = verdict_counts(res.status)

@@ -206,3 +206,7 @@ def test_cli_batch_manifest_labels_and_exit_codes(study_clips, tmp_path, capsys)
     assert "skip" in capsys.readouterr().out
     assert main(["batch", str(tmp_path / "nothing-here"), "-o", str(out)]) == 2
     assert "not found" in capsys.readouterr().err
+    # a folder's failed clip is named once ("p08_s01_notes.mp4: p08_s01_notes.mp4: ..." before)
+    assert main(["batch", str(study_clips / "bad"), "-o", str(tmp_path / "bad_out"), "--workers", "1", "--quiet"]) == 1
+    err = capsys.readouterr().err
+    assert "failed: p08_s01_notes.mp4: not a readable video file" in err, err
