@@ -220,7 +220,8 @@ def summary_lines(doc: dict) -> list[str]:
         f"accuracy (mean angle between dot and gaze) {f(s.get('accuracy_offset_deg'))} deg after offset, "
         f"{f(s.get('accuracy_offset_gain_deg'))} deg after offset+gain ({f(s.get('accuracy_offset_gain_loo_deg'))} "
         f"with each dot left out of its own fit; noise alone would give {f(s.get('accuracy_noise_floor_deg'))} deg)",
-        f"precision RMS-S2S {f(s.get('precision_rms_s2s_deg'))} deg, SD {f(s.get('precision_sd_deg'))} deg "
+        f"precision {f(s.get('precision_rms_s2s_deg'))} deg sample to sample (RMS), SD "
+        f"{f(s.get('precision_sd_deg'))} deg "
         f"({_of(s.get('n_targets_precision'), s.get('n_fixation_targets', 0))} still dots); "
         f"data loss {f(None if s.get('loss_frac') is None else 100 * s['loss_frac'], '{:.1f}')} %",
         f"fixations on dots {f(s.get('n_fixations_on_targets'), '{:.0f}')} (dots fixated "

@@ -148,6 +148,7 @@ def test_dots_with_too_few_samples_have_no_precision_and_are_counted():
     assert c.summary["precision_rms_s2s_deg"] == pytest.approx(1.0, rel=0.15)
     line = next(x for x in summary_lines(c.to_dict() | {"summary": c.summary}) if x.startswith("precision"))
     assert f"({len(others)} of {len(fx)} still dots)" in line
+    assert " deg sample to sample (RMS), SD " in line and "RMS-S2S" not in line  # in words, as the clip view's noise
 
 
 def test_data_loss_fixations_and_pursuit_gain():
