@@ -307,3 +307,8 @@ def test_summary_with_one_window_per_participant_shows_no_negative_df():
     per = pd.DataFrame({"participant": ["p01", "p02"], "status": ["ok", "ok"]})
     row = study_summary(pooled, per).iloc[0]
     assert row["rmcorr_df"] == "n/a" and row["participants"] == 2 and row["mean_webcam"] == "35.50"
+    # a figure with no estimate reads "n/a" once, not "n/a [n/a, n/a]" or "n/a to n/a"
+    assert row["rmcorr"] == "n/a" and row["ba_loa"] == "n/a" and row["pearson_r"] == "n/a"
+    # every window agreed: the interval is 0 give or take a float's last bit, printed without a "-0.00"
+    agreed = pooled.assign(ba_bias=0.0, ba_bias_ci_low=-1e-15, ba_bias_ci_high=1e-15)
+    assert study_summary(agreed, per).iloc[0]["ba_bias"] == "0.00 [0.00, 0.00]"
