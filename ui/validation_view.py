@@ -573,8 +573,8 @@ class ValidationView(QWidget):
             for i, ((feat, scope), g) in enumerate(pairs.groupby(["feature", "scope"], sort=False)):
                 from aspectus.validation.report import feature_label
 
-                self.feature_box.addItem(f"{feature_label(feat, scope=scope)} – per {scope} (n = {len(g)})",
-                                         (feat, scope))
+                self.feature_box.addItem(f"{_scoped_label(feature_label(feat, scope=scope), scope)} "
+                                         f"(n = {len(g)})", (feat, scope))
                 if len(g) > best_n:
                     best, best_n = i, len(g)
             self.feature_box.setCurrentIndex(best)
@@ -591,8 +591,15 @@ class ValidationView(QWidget):
         from aspectus.validation.report import feature_label
 
         self.canvas.plot(draw_agreement, p["webcam"].to_numpy(dtype=float), p["reference"].to_numpy(dtype=float),
-                         f"{feature_label(feat, scope=scope)}, per {scope}")
+                         _scoped_label(feature_label(feat, scope=scope), scope))
 
+
+
+def _scoped_label(label: str, scope: str) -> str:
+    """A feature's label with the scope it was paired over, said once: "Fixations (per window)" stays as it is
+    (it read "Fixations (per window) – per window"), "Fixation rate (1/min)" becomes "Fixation rate (1/min), per
+    window"."""
+    return label if label.endswith(f"(per {scope})") else f"{label}, per {scope}"
 
 
 def _same_decimals(*values: float) -> list[str]:

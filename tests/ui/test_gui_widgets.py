@@ -293,6 +293,16 @@ def test_the_bland_altman_title_prints_its_three_figures_alike():
     assert _same_decimals(0.0, -1e-15, 1e-15) == ["0.00", "0.00", "0.00"]  # no "-0.00"
 
 
+def test_the_validation_feature_names_say_their_scope_once():
+    # the chooser read "Fixations (per window) – per window (n = 10)"
+    from aspectus.validation.report import feature_label
+    from ui.validation_view import _scoped_label
+
+    assert _scoped_label(feature_label("fixation_count", scope="window"), "window") == "Fixations (per window)"
+    assert _scoped_label(feature_label("blink_rate_per_min", scope="segment"), "segment") == \
+        "Blink rate (1/min), per segment"
+
+
 def test_clip_list_says_partly_usable_for_a_clip_too_unsteady_for_fixation_measures(qtbot, tmp_path):
     """The Usable column reads the verdict in one word (aspectus.webcam.pipeline.usable_word): a clip whose precision
     tier does not support fixation counts and durations is "partly", not "yes", and the word fits its column; the
