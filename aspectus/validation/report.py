@@ -273,8 +273,11 @@ def confidence_words(conf: float) -> str:
 def withheld_reason(n: int, what: str = "windows", *, min_pairs: int = MIN_PAIRS, pooled: bool = False) -> str:
     """Why statistics are not shown below ``min_pairs`` pairs, and how to get more pairs (``pooled``: the windows
     of a whole study, which comparing several clips together cannot add to)."""
-    if what != "windows":
-        more = "more participants"
+    if what == "segments":  # a recording has the segments it has: the windows are the figures to read
+        more = (f"at least {min_pairs} task segments; until then read the fixed windows' figures, which pair the "
+                "same recording in more places")
+    elif what != "windows":
+        more = f"at least {min_pairs} {what}"
     elif pooled:
         more = ("shorter windows (in the app: Feature window length; aspectus validate: --window-s), or more or "
                 "longer recordings with a lab tracker")
@@ -285,7 +288,7 @@ def withheld_reason(n: int, what: str = "windows", *, min_pairs: int = MIN_PAIRS
     shown = what.removesuffix("s") if n == 1 else what
     return (f"Only {n} {shown} could be paired. With fewer than {min_pairs}, correlations, ICCs and limits of "
             f"agreement are too uncertain to mean anything (their 95 % intervals span most of the possible range), "
-            f"so they are not shown; the full table (download) still has them. To get more: {more}.")
+            f"so they are not shown; the full table (download) still has them. To get them: {more}.")
 
 
 #: the reference's format and the detector, named in words in the report's "What was compared"
@@ -764,7 +767,7 @@ def compact_participants(per: pd.DataFrame) -> pd.DataFrame:
                      "Overlap (s)": _fmt(g("overlap_s"), 1) if ok else "",
                      "Offset (s), confidence": f"{_fmt(g('offset_s'), 3)}, {_fmt(g('offset_confidence'))}"
                      if ok else "",
-                     "Fixations r": (_fmt(g("fixation_count_r")) if _fmt(g("windows_paired"), 0) != "n/a"
+                     "Fixations per window, r": (_fmt(g("fixation_count_r")) if _fmt(g("windows_paired"), 0) != "n/a"
                                      and float(g("windows_paired")) >= MIN_PAIRS else "not shown") if ok else "",
                      "kappa": _fmt(g("kappa")) if ok else "",
                      "Webcam clip's own check": (g("webcam_verdict") or "") if ok and isinstance(

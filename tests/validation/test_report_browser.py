@@ -217,3 +217,7 @@ def test_too_few_windows_says_how_to_get_more_for_a_pair_and_for_a_study():
     assert "Only 4 windows could be paired" in study and "several clips" not in study and "Compare all" not in study
     assert "Feature window length" in study and "longer recordings" in study
     assert withheld_reason(1, "participants").startswith("Only 1 participant could be paired")
+    assert withheld_reason(1, "participants").endswith("To get them: at least 10 participants.")
+    # a pair's task segments: more participants would not add any (the note read "To get more: more participants")
+    seg = withheld_reason(3, "segments")
+    assert "participants" not in seg and "fixed windows" in seg
