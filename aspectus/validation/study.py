@@ -269,13 +269,21 @@ def validate_study(source, out_dir, *, references=None, label_pattern: str | Non
               "summary_md": write_text(out / "summary.md", summary_markdown(summary, icc_form=params.icc_form)),
               "summary_html": write_text(out / "summary.html", summary_html(summary, icc_form=params.icc_form)),
               "report": write_text(out / "report.html", html)}
+    from aspectus.validation.pair import _recorded
+
+    def rec(path):  # relative to the study folder, as every output records an input (absolute: --full-paths)
+        return _recorded(path, out) if isinstance(path, (str, Path)) and str(path) else path
+
     if pairing is not None:
-        paths["pairing"] = write_csv(out / "pairing.csv", pairing.table())
+        table = pairing.table()
+        for col in ("webcam", "reference"):
+            table[col] = table[col].map(rec)
+        paths["pairing"] = write_csv(out / "pairing.csv", table)
     paths["study"] = write_json(out / "study_validation.json", {
         "aspectus": __version__,
-        "manifest": str(source) if pairing is None else None,
-        "webcam_folder": str(pairing.webcam_folder) if pairing is not None else None,
-        "reference_folder": str(pairing.reference_folder) if pairing is not None else None,
+        "manifest": rec(str(source)) if pairing is None else None,
+        "webcam_folder": rec(pairing.webcam_folder) if pairing is not None else None,
+        "reference_folder": rec(pairing.reference_folder) if pairing is not None else None,
         "pairs": len(rows), "validated": len(results), "failed": failures, "unpaired": unpaired,
         "target_quality_rule": target_rule.to_dict() if "target_excluded" in per_df.columns else None,
         "params": params.to_dict(),

@@ -223,6 +223,11 @@ def test_folder_study_end_to_end(study, tmp_path):
     assert set(per["status"]) == {"ok", "no reference", "no clip"}
     side = json.loads((out / "study_validation.json").read_text())
     assert len(side["unpaired"]) == 2 + 5 and "Bakdash" in side["pooling"]["rmcorr"]
+    # inputs are recorded relative to the study folder (absolute paths carry user names; --full-paths adds them)
+    for text in ((out / "pairing.csv").read_text(), (out / "study_validation.json").read_text(),
+                 (out / "report.html").read_text()):
+        assert str(study["cams"].parent) not in text and str(tmp_path) not in text
+    assert (out / pairing.loc[pairing["status"] == "paired", "reference"].iloc[0]).is_file()
     # the terminal's headline: the pooled per-window fixation count as the table has it, or why it is withheld
     from aspectus.cli.validate_cmd import _pooled_line
     from aspectus.validation.windows import MIN_PAIRS
