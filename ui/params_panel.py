@@ -389,7 +389,7 @@ class ParamsPanel(QWidget):
         self.fov = QDoubleSpinBox()
         self.fov.setRange(20, 120)
         self.fov.setDecimals(0)
-        self.fov.setSuffix(" °")
+        self.fov.setSuffix("°")  # as the other angles read: "60°"
         pd_ = self._process_defaults
         self.fov.setValue(pd_["fov_deg"])
         self.fov.setToolTip("Assumed horizontal field of view of the webcam (laptop webcams: about 60°).\n"
@@ -586,7 +586,7 @@ class ParamsPanel(QWidget):
             sp.setSingleStep(spec.step)
         sp.setRange(int(spec.lo) if is_int else spec.lo, int(spec.hi) if is_int else spec.hi)
         if spec.unit:
-            sp.setSuffix(f" {spec.unit}" if spec.unit not in ("°",) else "°")
+            sp.setSuffix(spec.unit if spec.unit.startswith("°") else f" {spec.unit}")  # "1.5°", "30°/s", "75 ms"
         sp.setToolTip(spec.help + (f" Allowed: {spec.lo:g}–{spec.hi:g} {spec.unit}." if spec.help else
                                    f"Allowed: {spec.lo:g}–{spec.hi:g} {spec.unit}."))
         sp.setKeyboardTracking(False)

@@ -159,3 +159,8 @@ def test_every_parameter_has_plain_label_and_tooltip_with_unit_and_default(qtbot
     texts = {lab.text() for lab in panel._labels.values()}
     assert "Initial window" not in texts and "Longest saccade" not in texts
     assert not any(t.startswith("merge ") for t in texts)
+    # every angle reads alike: the field of view read "60 °" beside the thresholds' "1.5°"
+    from PySide6.QtWidgets import QAbstractSpinBox
+
+    degree = [w.suffix() for w in panel.findChildren(QAbstractSpinBox) if "°" in getattr(w, "suffix", str)()]
+    assert panel.fov.suffix() == "°" and degree and set(degree) <= {"°", "°/s"}, degree
