@@ -41,7 +41,7 @@ def register(sub) -> None:
                         "OUTDIR/<clip key>/: the folder 'aspectus batch' made for the clip when a batch ran into "
                         "OUTDIR (e.g. OUTDIR/classA__p01 for classA/p01.mp4 beside classB/p01.mp4), the key the "
                         "batch would give it within --study, else OUTDIR/<clip stem>.")
-    c.add_argument("clip", metavar="CLIP")
+    c.add_argument("clip", metavar="CLIP", help="the video file recorded while the sequence was shown")
     c.add_argument("--schedule", required=True, help="the schedule.json that was shown")
     c.add_argument("-o", "--out", required=True, metavar="OUTDIR", help="output root (as for aspectus process)")
     c.add_argument("--study", default=None, metavar="FOLDER_OR_MANIFEST",

@@ -306,6 +306,11 @@ def make_schedule(screen: Screen, *, seed: int = 0, fixation_s: float = 2.0, n_f
                     dot_radius_deg=float(dot_radius_deg), targets=targets, colours=dict(COLOURS))
 
 
+#: what to give instead of a file that is not a schedule
+_SCHEDULE_HINT = ("give the schedule.json that `aspectus targets make` (or the app's Target sequence…) wrote beside "
+                  "the targets.html that was shown")
+
+
 def read_schedule(path) -> Schedule:
     """Read a ``schedule.json`` written by :meth:`Schedule.write`, checking its format and version."""
     path = Path(path)
@@ -315,9 +320,11 @@ def read_schedule(path) -> Schedule:
         raise AspectusInputError("schedule file not found", path=path,
                                  hint="make one with `aspectus targets make`") from None
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise AspectusInputError(f"cannot read the schedule as JSON ({exc})", path=path) from None
+        raise AspectusInputError(f"cannot read the schedule as JSON ({exc})", path=path,
+                                 hint=_SCHEDULE_HINT) from None
     if not isinstance(d, dict) or d.get("format") != SCHEDULE_FORMAT:
-        raise AspectusInputError(f"not a target schedule (expected \"format\": \"{SCHEDULE_FORMAT}\")", path=path)
+        raise AspectusInputError(f"not a target schedule (expected \"format\": \"{SCHEDULE_FORMAT}\")", path=path,
+                                 hint=_SCHEDULE_HINT)
     if d.get("format_version") != SCHEDULE_VERSION:
         raise AspectusInputError(f"schedule format version {d.get('format_version')!r} is not one this aspectus "
                                  f"reads (version {SCHEDULE_VERSION})", path=path,

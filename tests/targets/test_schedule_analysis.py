@@ -75,7 +75,10 @@ def test_schedule_file_errors(tmp_path):
     with pytest.raises(AspectusInputError, match="format version"):
         read_schedule(p)
     p.write_text("{broken")
-    with pytest.raises(AspectusInputError, match="JSON"):
+    with pytest.raises(AspectusInputError, match=r"JSON.*the schedule.json that `aspectus targets make`"):
+        read_schedule(p)
+    p.write_text('{"format": "aspectus.study"}')  # another file of the project: says which file belongs here
+    with pytest.raises(AspectusInputError, match=r"not a target schedule.*wrote beside the targets.html"):
         read_schedule(p)
     with pytest.raises(AspectusInputError, match="not found"):
         read_schedule(tmp_path / "none.json")
