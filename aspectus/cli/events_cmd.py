@@ -55,8 +55,8 @@ def run(args) -> int:
     counts = ev["type"].value_counts()
     print(f"{run_.input_path}: {int(counts.get('fixation', 0))} fixations, {int(counts.get('saccade', 0))} saccades, "
           f"{int(counts.get('blink', 0))} blinks, {int(counts.get('loss', 0))} data-loss periods; "
-          f"noise {_num(q['noise_rms_s2s_deg'], '.3g', 'deg')} RMS-S2S, {_num(q['noise_sd_deg'], '.3g', 'deg')} SD "
-          "within fixations, "
+          f"noise {_num(q['noise_rms_s2s_deg'], '.3g', 'deg')} sample to sample (RMS), "
+          f"SD {_num(q['noise_sd_deg'], '.3g', 'deg')} within fixations, "
           f"valid {q['valid_frac']:.0%}, "
           f"detector {params.detector} -> {run_.paths['events_csv']}", file=sys.stdout)
     return 0

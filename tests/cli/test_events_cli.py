@@ -60,7 +60,9 @@ def test_pixel_table_with_missing_cells(tmp_path, capsys):
     assert side["input"]["kind"] == "gaze table"
     # both precision figures, as the sidecar holds them (Holmqvist, Nystrom & Mulvey 2012: RMS-S2S and SD)
     q = side["quality"]
-    assert f"{q['noise_rms_s2s_deg']:.3g} deg RMS-S2S, {q['noise_sd_deg']:.3g} deg SD within fixations" in printed
+    # in words, as 'aspectus process' prints them ("deg RMS-S2S" before)
+    assert (f"noise {q['noise_rms_s2s_deg']:.3g} deg sample to sample (RMS), SD {q['noise_sd_deg']:.3g} deg within "
+            "fixations") in printed
     for name in ("events.parquet", "features.csv", "features.parquet"):
         assert (out / name).is_file()
 
@@ -193,7 +195,7 @@ def test_a_precision_figure_that_cannot_be_read_prints_n_a(tmp_path, capsys):
     assert rc == 0
     printed = capsys.readouterr().out
     assert "nan" not in printed.lower(), printed
-    assert "noise n/a RMS-S2S, 0.2" in printed and " deg SD within fixations" in printed, printed
+    assert "noise n/a sample to sample (RMS), SD 0.2" in printed and " deg within fixations" in printed, printed
 
 
 def test_window_length_alone_gives_windows_side_by_side(tmp_path):
