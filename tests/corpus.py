@@ -531,12 +531,13 @@ def write_segments_corpus(folder, clip: Path) -> list[Case]:
 
     add("segments_good", "label,onset_s,offset_s\npassage_1,0.0,0.7\nquestions,0.7,1.4\n", 0,
         check=seg_check(["passage_1", "questions"]), why="control")
-    add("segments_empty", "", 1, r"segments_empty\.csv.*empty")
-    add("segments_missing_col", "label,onset_s\npassage_1,0.0\n", 1, r"segments_missing_col\.csv.*offset_s")
-    add("segments_reversed", "label,onset_s,offset_s\npassage_1,1.0,0.5\n", 1,
+    # a bad segment file is refused once, before any clip is processed: an input error (exit 2), not a failed clip
+    add("segments_empty", "", 2, r"segments_empty\.csv.*empty")
+    add("segments_missing_col", "label,onset_s\npassage_1,0.0\n", 2, r"segments_missing_col\.csv.*offset_s")
+    add("segments_reversed", "label,onset_s,offset_s\npassage_1,1.0,0.5\n", 2,
         r"segments_reversed\.csv.*(row|line) (1|2)", why="offset before onset")
-    add("segments_text", "label,onset_s,offset_s\npassage_1,zero,0.5\n", 1, r"segments_text\.csv.*(row|line) (1|2)")
-    add("segments_binary", b"\x00\x01\x02PK\x03\x04" * 50, 1, r"segments_binary\.csv.*binary", why="a spreadsheet saved as .xlsx, renamed")
+    add("segments_text", "label,onset_s,offset_s\npassage_1,zero,0.5\n", 2, r"segments_text\.csv.*(row|line) (1|2)")
+    add("segments_binary", b"\x00\x01\x02PK\x03\x04" * 50, 2, r"segments_binary\.csv.*binary", why="a spreadsheet saved as .xlsx, renamed")
     add("segments_bom", "\ufefflabel,onset_s,offset_s\npassage_1,0.0,0.7\nquestions,0.7,1.4\n".encode("utf-8"), 0,
         check=seg_check(["passage_1", "questions"]), why="Excel's CSV UTF-8 starts with a byte-order mark")
     return cases

@@ -214,6 +214,10 @@ def run(args) -> int:
     from aspectus.cli.outdir import apply_output_options, prepare_out_dir
 
     apply_output_options(args)
+    if args.segments is not None:  # one file for every clip: a problem with it is said once, before any clip runs
+        from aspectus.events.segments import read_segments
+
+        read_segments(args.segments)
     out_root = prepare_out_dir(args.out)
     failures = 0
     stems: dict[str, Path] = {}

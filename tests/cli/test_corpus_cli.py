@@ -160,6 +160,16 @@ def test_segments_case(name, segment_cases, tmp_path, capsys):
     _run_case(segment_cases[name], tmp_path / "out", capsys)
 
 
+def test_a_bad_segment_file_is_said_once_for_all_clips(segment_cases, tmp_path, capsys):
+    """The file applies to every clip: it is read before any clip runs (the error was printed once per clip)."""
+    case = segment_cases["segments_missing_col"]
+    clips = [tmp_path / "p01_s01.mp4", tmp_path / "p02_s01.mp4"]  # never opened: the segment file stops the run
+    code = cli_main(["process", *map(str, clips), "--segments", str(case.path), "-o", str(tmp_path / "out"), "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 2 and err.count("segments_missing_col.csv") == 1 and "offset_s" in err, err
+    assert not (tmp_path / "out").exists()
+
+
 @pytest.mark.slow
 @pytest.mark.timeout(60)
 @pytest.mark.parametrize("name", MANIFEST_CASES)
