@@ -44,6 +44,11 @@ DEFAULT_EVENT_WORDS = {
 }
 
 
+#: what a mapping file is and where one comes from (for errors about a file given as one)
+_MAPPING_HINT = ("give a mapping saved with --save-mapping (or by the app's column dialog), or name the columns with "
+                 "--time-col, --x-col, --y-col and --units")
+
+
 @dataclass
 class TableMapping:
     """Which columns of a gaze table hold what, and in which units.
@@ -190,9 +195,13 @@ class TableMapping:
         except FileNotFoundError:
             raise ReferenceFormatError("mapping file not found", path=path) from None
         except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise ReferenceFormatError(f"mapping file is not valid JSON ({exc})", path=path) from None
+            raise ReferenceFormatError(f"mapping file is not valid JSON ({exc})", path=path, hint=_MAPPING_HINT) from None
         if not isinstance(d, dict):
-            raise ReferenceFormatError("mapping file must hold a JSON object", path=path)
+            raise ReferenceFormatError("mapping file must hold a JSON object", path=path, hint=_MAPPING_HINT)
+        if d.get("kind") != "aspectus table mapping" and not ({"time_col", "x_col", "y_col"} & set(d)):
+            # another JSON file (a study file, a sidecar, a schedule): say what belongs here, not which fields it lacks
+            raise ReferenceFormatError("is not a table mapping (it names none of a mapping's columns)", path=path,
+                                       hint=_MAPPING_HINT)
         try:
             return cls.from_dict(d)
         except ParameterError as exc:

@@ -167,6 +167,11 @@ def test_bad_mapping_file(tmp_path):
         TableMapping.load(p)
     with pytest.raises(ReferenceFormatError, match="not found"):
         TableMapping.load(tmp_path / "absent.json")
+    # another JSON file given as a mapping (here a study file) is named as such, with where a mapping comes from,
+    # not answered with the mapping fields it lacks
+    p.write_text('{"format": "aspectus.study", "clips": [], "analysis": {}}')
+    with pytest.raises(ReferenceFormatError, match=r"is not a table mapping.*--save-mapping"):
+        TableMapping.load(p)
 
 
 def test_read_reference_needs_a_mapping_for_tables(tmp_path):
