@@ -67,10 +67,13 @@ def test_gui_new_command_starts_with_defaults(qtbot, monkeypatch):
 
     from PySide6.QtWidgets import QApplication
 
-    before = {id(w) for w in QApplication.topLevelWidgets()}
+    # the windows open before, held (not their ids alone: a window an earlier test left to be collected could free
+    # its address for the new one, which would then read as one of them)
+    before = list(QApplication.topLevelWidgets())
 
     def fake_exec(*_a):
-        new_ = [w for w in QApplication.topLevelWidgets() if w.objectName() == "aspectus_main" and id(w) not in before]
+        new_ = [w for w in QApplication.topLevelWidgets()
+                if w.objectName() == "aspectus_main" and not any(w is b for b in before)]
         assert len(new_) == 1
         shown["win"] = new_[0]
         return 0
