@@ -122,8 +122,9 @@ def test_iris_estimate_in_plain_words():
     auto_big = describe_iris_estimate({"setting": "auto", "used": "limbus", "iris_px": 24.5,
                                        "iris_px_source": "limbus fit", "mesh_median_iris_px": 26.1,
                                        "reason": "the clip's iris diameter 24.5 px (limbus fit) is not below 16.8 px"})
-    assert auto_big == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 24.5 px "
-                        "across, not below 16.8 px).")
+    # the measure is named (the verdict's "irises about N px across" is the face tracker's, which reads larger)
+    assert auto_big == ("Iris height from: circle fit to the iris edge (chosen automatically: the circle fit measures "
+                        "the iris 24.5 px across, not below 16.8 px).")
     assert "automatic by face size" not in auto_big and "_" not in auto_big
     # small iris, but the appearance estimate could not be learnt: said without the method's inner words (a run.json
     # written before the choice read the limbus fit's size: the face mesh's as median_iris_px)
