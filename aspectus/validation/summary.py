@@ -6,6 +6,8 @@ import numpy as np
 import pandas as pd
 
 from aspectus.validation.agreement import DEFAULT_ICC_FORM
+# the report's formatting, one rule for both: no "-0.00", "n/a" once where there is no estimate
+from aspectus.validation.report import _ci, _fmt, _limits
 
 
 
@@ -14,28 +16,6 @@ def _finite_at_least(v, lo) -> bool:
         return bool(np.isfinite(float(v)) and float(v) >= lo)
     except (TypeError, ValueError):
         return False
-
-
-def _fmt(v, nd=2):
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        return "n/a"
-    if not np.isfinite(v):
-        return "n/a"
-    s = f"{v:.{nd}f}"
-    return s[1:] if s.startswith("-") and float(s) == 0 else s  # "-0.00" reads as a negative number: "0.00"
-
-
-def _est(v, lo, hi) -> str:
-    """"estimate [low, high]"; "n/a" alone where there is no estimate (not "n/a [n/a, n/a]")."""
-    return "n/a" if _fmt(v) == "n/a" else f"{_fmt(v)} [{_fmt(lo)}, {_fmt(hi)}]"
-
-
-def _span(lo, hi) -> str:
-    """"low to high"; "n/a" alone where neither end could be computed."""
-    a, b = _fmt(lo), _fmt(hi)
-    return "n/a" if a == b == "n/a" else f"{a} to {b}"
 
 
 def study_summary(pooled: pd.DataFrame, per: pd.DataFrame, *, icc_form: str = DEFAULT_ICC_FORM) -> pd.DataFrame:
@@ -55,17 +35,17 @@ def study_summary(pooled: pd.DataFrame, per: pd.DataFrame, *, icc_form: str = DE
         rows.append({
             "feature": r["feature"], "participants": n_part, "windows": int(r["n"]),
             "mean_webcam": _fmt(r["mean_webcam"]), "mean_reference": _fmt(r["mean_reference"]),
-            "pearson_r": _est(r["pearson_r"], r["pearson_ci_low"], r["pearson_ci_high"]),
-            f"icc_{icc_form.replace(',', '_')}": _est(r["icc"], r["icc_ci_low"], r["icc_ci_high"]),
-            "ccc": _est(r["ccc"], r["ccc_ci_low"], r["ccc_ci_high"]),
-            "ba_bias": _est(r["ba_bias"], r["ba_bias_ci_low"], r["ba_bias_ci_high"]),
-            "ba_loa": _span(r["ba_loa_low"], r["ba_loa_high"]),
-            "rmcorr": _est(g("rmcorr"), g("rmcorr_ci_low"), g("rmcorr_ci_high")),
+            "pearson_r": _ci(r["pearson_r"], r["pearson_ci_low"], r["pearson_ci_high"], 2),
+            f"icc_{icc_form.replace(',', '_')}": _ci(r["icc"], r["icc_ci_low"], r["icc_ci_high"], 2),
+            "ccc": _ci(r["ccc"], r["ccc_ci_low"], r["ccc_ci_high"], 2),
+            "ba_bias": _ci(r["ba_bias"], r["ba_bias_ci_low"], r["ba_bias_ci_high"], 2),
+            "ba_loa": _limits(r["ba_loa_low"], r["ba_loa_high"], 2),
+            "rmcorr": _ci(g("rmcorr"), g("rmcorr_ci_low"), g("rmcorr_ci_high"), 2),
             # N - k - 1 below 1 (one window per participant) means there is no estimate, not a negative df
             "rmcorr_df": _fmt(g("rmcorr_df") if _finite_at_least(g("rmcorr_df"), 1) else np.nan, 0),
-            "ba_bias_repeated": _est(g("ba_rm_bias"), g("ba_rm_bias_ci_low"), g("ba_rm_bias_ci_high")),
-            "ba_loa_repeated": _span(g("ba_rm_loa_low"), g("ba_rm_loa_high")),
-            "participant_means_r": _est(g("means_pearson_r"), g("means_pearson_ci_low"),
-                                        g("means_pearson_ci_high")),
+            "ba_bias_repeated": _ci(g("ba_rm_bias"), g("ba_rm_bias_ci_low"), g("ba_rm_bias_ci_high"), 2),
+            "ba_loa_repeated": _limits(g("ba_rm_loa_low"), g("ba_rm_loa_high"), 2),
+            "participant_means_r": _ci(g("means_pearson_r"), g("means_pearson_ci_low"),
+                                       g("means_pearson_ci_high"), 2),
         })
     return pd.DataFrame(rows)
