@@ -12,7 +12,9 @@ more than 2 %, the instruction says so before the start.
 
 For tests and kiosks, ``#press=Space`` after the file name makes the page
 press its own start key once it has loaded (the same handler a real key
-press runs). While it runs the page keeps ``window.aspectusTargets`` up to
+press runs, except that it starts at once without asking for full screen:
+a browser grants that only to a real key press, and a kiosk browser opens
+full screen by itself). While it runs the page keeps ``window.aspectusTargets`` up to
 date: ``started``, ``t_s`` (schedule time of the last drawn picture),
 ``index`` (target on screen, -1 for none), ``flash`` (bool), ``done``.
 
@@ -119,7 +121,9 @@ function onKey(e) {
   if (e.code === "Space" || e.code === "Enter" || e.key === " " || e.key === "Enter") {
     e.preventDefault();
     const el = document.documentElement;
-    if (el.requestFullscreen && !document.fullscreenElement) {
+    // a browser grants full screen only to a real key press; a synthetic one (#press=) starts at once,
+    // rather than after the refused request settles, which may take a while on a busy machine
+    if (e.isTrusted && el.requestFullscreen && !document.fullscreenElement) {
       el.requestFullscreen().catch(function () {}).finally(function () { fit(); start(); });
     } else { start(); }
   }
