@@ -62,6 +62,7 @@ class Condition:
     fps: float = 30.0
     iris_colour: str | None = None
     exposure_ms: float = 0.0
+    iris_sampling: str = "area"  # "point": the renderer before 2026-12-05 (aspectus.synth.frame.FaceRig)
 
     def label(self) -> str:
         w, h = self.size_px
@@ -71,7 +72,8 @@ class Condition:
                          " still-lids" if not self.lid_follow else "",
                          f" {self.fps:g}fps" if self.fps != 30.0 else "",
                          f" iris-{self.iris_colour}" if self.iris_colour else "",
-                         f" exp{self.exposure_ms:g}ms" if self.exposure_ms else ""])
+                         f" exp{self.exposure_ms:g}ms" if self.exposure_ms else "",
+                         " point-sampled" if self.iris_sampling != "area" else ""])
         return f"{w}x{h} {self.distance_mm:.0f}mm {codec} {self.face} {self.trial.split('_')[0]} s{self.seed}{extra}"
 
 
@@ -87,7 +89,7 @@ def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
                       seed=cond.seed,
                       lid_follow=cond.lid_follow, lighting_drift=cond.lighting_drift,
                       lighting_gradient=cond.lighting_gradient, glasses=cond.glasses, mirror=cond.mirror,
-                      iris_colour=cond.iris_colour, exposure_ms=cond.exposure_ms,
+                      iris_colour=cond.iris_colour, exposure_ms=cond.exposure_ms, iris_sampling=cond.iris_sampling,
                       corneal_reflection=cond.corneal_reflection, **kw)
     return res, trial
 

@@ -224,6 +224,37 @@ def _iris_texture(rgb, seed: int) -> np.ndarray:
     return np.dstack([col, alpha]).astype(np.float32)
 
 
+#: most sub-pixels per picture pixel (per axis) with which a minified texture is drawn
+MAX_SUPERSAMPLE = 8
+#: how the iris texture becomes pixels (:class:`FaceRig`'s ``iris_sampling``)
+IRIS_SAMPLING = ("area", "point")
+
+
+def _area_sampled_warp(texture: np.ndarray, A: np.ndarray, size_px: tuple[int, int]) -> np.ndarray:
+    """``texture`` warped by the affine map ``A`` (texture -> picture) into a ``size_px`` (w, h) patch, each picture
+    pixel the mean over its area, as a camera's pixel integrates the light falling on it.
+
+    A plain bilinear warp samples the texture at each pixel's centre only. Where the texture is minified (an iris
+    of 8-16 px drawn from a 64-texel disc) that aliases: the disc's edge and its dark rim then move in jumps of up to
+    about half a pixel as the disc moves smoothly (the rim's centre 0.05 px SD off at a 12 px iris), and the
+    streaks shimmer. So the texture is warped onto ``k`` x ``k`` sub-pixels per pixel, ``k`` enough for at most one
+    texel per sub-pixel along the disc's shorter axis (at most :data:`MAX_SUPERSAMPLE`), and averaged back by area.
+    """
+    cv2 = import_cv2()
+    w, h = size_px
+    texel_px = float(np.linalg.svd(A[:, :2], compute_uv=False)[-1])  # picture px per texel, shorter axis
+    k = int(np.clip(np.ceil(1.0 / max(texel_px, 1e-6) - 1e-9), 1, MAX_SUPERSAMPLE))
+    if k == 1:
+        return cv2.warpAffine(texture, A, (w, h), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT,
+                              borderValue=0)
+    # a picture coordinate u (pixel centres at whole numbers) is sub-pixel coordinate (u + 0.5) k - 0.5
+    Ak = A.astype(np.float64) * k
+    Ak[:, 2] += (k - 1) / 2.0
+    fine = cv2.warpAffine(texture, Ak, (w * k, h * k), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT,
+                          borderValue=0)
+    return cv2.resize(fine, (w, h), interpolation=cv2.INTER_AREA)
+
+
 def _box_anchors(x0: float, y0: float, x1: float, y1: float, per_side: int = 12) -> np.ndarray:
     """Fixed points along the edges of the warped box (so the warp leaves the picture outside it as it is)."""
     bx = np.linspace(x0, x1, per_side)
@@ -352,12 +383,25 @@ class FaceRig:
     corneal_reflection : CornealReflection, optional
         Draw the source's reflection on each cornea (None: no reflection,
         the default).
+    iris_sampling : {"area", "point"}
+        How the iris texture becomes pixels: ``"area"`` (the default since
+        2026-12-05) averages it over each pixel's area, as a camera's pixel
+        integrates light; ``"point"`` samples it at each pixel's centre, as
+        the renderer did before, which aliases a small iris (its rim moves
+        in jumps; :func:`_area_sampled_warp`). Kept for re-measuring figures
+        taken on that renderer.
     """
 
     def __init__(self, face: FacePhoto, camera: Camera, *, rest_head_mm=(0.0, 0.0, 600.0),
                  background: np.ndarray, seed: int = 0, lower_skin_follow: float = 0.0, lid_follow: float = 1.0,
-                 glasses: bool = False, iris_rgb=None, corneal_reflection: CornealReflection | None = None):
+                 glasses: bool = False, iris_rgb=None, corneal_reflection: CornealReflection | None = None,
+                 iris_sampling: str = "area"):
         self.corneal_reflection = corneal_reflection
+        if iris_sampling not in IRIS_SAMPLING:
+            from aspectus.errors import ParameterError
+
+            raise ParameterError(f"iris_sampling must be one of {', '.join(IRIS_SAMPLING)}, got {iris_sampling!r}")
+        self.iris_sampling = iris_sampling
         cv2 = import_cv2()
         for name, v in (("lower_skin_follow", lower_skin_follow), ("lid_follow", lid_follow)):
             if not (0.0 <= float(v) <= 1.0):
@@ -635,8 +679,11 @@ class FaceRig:
         tr = _TEX_PX / 2.0
         src = np.float32([[tc, tc], [tc + tr, tc], [tc, tc + tr]])
         A = cv2.getAffineTransform(src, p2.astype(np.float32))
-        tex = cv2.warpAffine(self.iris_texture[eye], A, (pw, ph), flags=cv2.INTER_LINEAR,
-                             borderMode=cv2.BORDER_CONSTANT, borderValue=0)
+        if self.iris_sampling == "area":
+            tex = _area_sampled_warp(self.iris_texture[eye], A, (pw, ph))
+        else:
+            tex = cv2.warpAffine(self.iris_texture[eye], A, (pw, ph), flags=cv2.INTER_LINEAR,
+                                 borderMode=cv2.BORDER_CONSTANT, borderValue=0)
         ia = tex[..., 3:4]
         content = content * (1 - ia) + tex[..., :3] * ia
         # upper-lid shadow on the eyeball

@@ -222,8 +222,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 darkness: float = 1.0, face_visible=None, extra_faces: int = 0, seed: int = 0,
                 lower_skin_follow: float = 0.0, lid_follow: float = 1.0, glasses: bool = False,
                 lighting_drift: float = 0.0, lighting_gradient: float = 0.0, mirror: bool = False,
-                iris_colour=None, exposure_ms: float = 0.0, corneal_reflection=False, progress=None,
-                cancel=None) -> RenderResult:
+                iris_colour=None, exposure_ms: float = 0.0, corneal_reflection=False, iris_sampling: str = "area",
+                progress=None, cancel=None) -> RenderResult:
     """Render a webcam-like clip of a face following ``trajectory`` and write its truth beside it.
 
     Parameters
@@ -313,6 +313,11 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         behind the camera, or a ``CornealReflection`` with the source's
         position, size and brightness. It is drawn before the optical blur,
         noise and compression and clipped by the lids.
+    iris_sampling : {"area", "point"}, default "area"
+        How the iris texture becomes pixels: averaged over each pixel's area
+        (as a camera integrates light), or sampled at each pixel's centre as
+        before 2026-12-05, which aliases irises below about 20 px (their rim
+        moves in jumps); :class:`aspectus.synth.frame.FaceRig`.
     progress : callable, optional
         ``progress(fraction_done, message)``, called every few frames.
     cancel : object with ``is_set()``, optional
@@ -423,7 +428,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
     bg = _background(w, h)
     rig = FaceRig(load_face(face), camera, rest_head_mm=rest, background=bg, seed=seed,
                   lower_skin_follow=lower_skin_follow, lid_follow=lid_follow, glasses=glasses, iris_rgb=iris_rgb,
-                  corneal_reflection=corneal_reflection)
+                  corneal_reflection=corneal_reflection, iris_sampling=iris_sampling)
     light = _light_level(times, seed=seed, drift=float(lighting_drift))
     ramp = (0.5 - (np.arange(w, dtype=np.float32) + 0.5) / w)[None, :, None]  # +0.5 at the left edge
     if extra_faces:
@@ -549,7 +554,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         "mirror": bool(mirror),
         "iris_colour": iris_colour if isinstance(iris_colour, str) or iris_colour is None else list(iris_rgb),
         "iris_rgb": {e: list(rig.iris_rgb[e]) for e in EYES},
-        "exposure_ms": float(exposure_ms), "truth_time": "middle of each frame's exposure (t_s)",
+        "exposure_ms": float(exposure_ms), "iris_sampling": iris_sampling, "truth_time": "middle of each frame's exposure (t_s)",
         "exposure_subframes": {"mean": float(np.mean(subframes)), "max": int(max(subframes))} if subframes else None,
         "corneal_reflection": (None if corneal_reflection is None else
                                {"source_mm": [float(v) for v in corneal_reflection.source_mm],
