@@ -28,7 +28,7 @@ mesh's median (what ``auto`` decided on until 2026-12-05).
     python bench/bench_gaze_grid.py --only 16px_crf28 16px_crf28_light_iris   # these cells only
     python bench/bench_gaze_grid.py --appearance    # also --gaze iris_combine=appearance (a second run per cell)
     python bench/bench_gaze_grid.py --quick --gaze head_rotation=skin   # every row with these gaze settings
-    python bench/bench_gaze_grid.py --iris-sampling point   # on the renderer before 2026-12-05 (aliased small irises)
+    python bench/bench_gaze_grid.py --iris-sampling area    # the iris drawn by pixel area (point: at pixel centres)
 """
 from __future__ import annotations
 
@@ -120,9 +120,9 @@ def main(argv=None) -> int:
     ap.add_argument("--gaze", action="append", default=[], metavar="NAME=VALUE",
                     help="a gaze setting (aspectus.webcam.gaze.GazeParams) for every row, e.g. head_rotation=skin; "
                          "may be given more than once")
-    ap.add_argument("--iris-sampling", choices=("area", "point"), default="area",
-                    help="how the renderer draws the iris: 'area' (by pixel area, the default) or 'point' (at pixel "
-                         "centres, the renderer before 2026-12-05, whose small irises alias)")
+    ap.add_argument("--iris-sampling", choices=("area", "point"),
+                    help="how the renderer draws the iris: 'area' (by pixel area, as a camera integrates light) or "
+                         "'point' (at pixel centres, whose small irises alias); default: the renderer's")
     args = ap.parse_args(argv)
     gaze = gaze_overrides_or_exit_code(args.gaze)
     if isinstance(gaze, int):
@@ -134,7 +134,7 @@ def main(argv=None) -> int:
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
         return 2
     cells = [G.Condition(**{**c.__dict__, "iris_sampling": args.iris_sampling})
-             for c in grid(args.quick, args.seed, args.fps, args.reflection)]
+             for c in grid(args.quick, args.seed, args.fps, args.reflection)]  # None: the renderer's default
     cells = only_named(cells, args.only, "cell")
     if isinstance(cells, int):
         return cells

@@ -9,10 +9,10 @@ lid closure, glasses, mirroring and lighting as the frame had, all taken from th
 picture over the two eyes' boxes (RGB, least squares on the picture's first-order change about the true gaze: one
 Gauss-Newton step, :func:`linearised_fit`). For Gaussian pixel noise that is the maximum-likelihood estimate to
 first order (Kay 1993, *Fundamentals of Statistical Signal Processing: Estimation Theory*, ch. 7-8; from memory),
-and its error is the picture's error projected on the picture's own change with the gaze. It is what an estimator with a perfect model of the face, the head and the light
-reaches on the picture the codec left: a reference for how far the pipeline is from the picture's own limit, not
-a bound every method must respect (an estimator that uses the eyes' motion over time can do better; one that must
-also find the head does worse).
+and its error is the picture's error projected on the picture's own change with the gaze. It is what an estimator
+with a perfect model of the face, the head and the light reaches on the picture the codec left: a reference for how
+far the pipeline is from the picture's own limit, not a bound every method must respect (an estimator that uses the
+eyes' motion over time can do better; one that must also find the head does worse).
 
 Also printed: the **Cramér-Rao bound** (Kay 1993, ch. 3; from memory) of the picture before compression for the
 renderer's sensor noise (Gaussian, 2 grey levels a channel): per axis the square root of the diagonal of
@@ -95,7 +95,7 @@ class PictureModel:
                            seed=cond.seed, lower_skin_follow=0.0, lid_follow=cond.lid_follow, glasses=cond.glasses,
                            iris_rgb=IRIS_COLOURS[cond.iris_colour] if cond.iris_colour else None,
                            corneal_reflection=CornealReflection() if cond.corneal_reflection else None,
-                           iris_sampling=cond.iris_sampling)
+                           **({"iris_sampling": cond.iris_sampling} if cond.iris_sampling else {}))
         self.light = _light_level(self.truth["t_s"].to_numpy(), seed=cond.seed, drift=float(cond.lighting_drift))
         self.ramp = (0.5 - (np.arange(self.w, dtype=np.float32) + 0.5) / self.w)[None, :, None]
 

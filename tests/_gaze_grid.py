@@ -62,7 +62,7 @@ class Condition:
     fps: float = 30.0
     iris_colour: str | None = None
     exposure_ms: float = 0.0
-    iris_sampling: str = "area"  # "point": the renderer before 2026-12-05 (aspectus.synth.frame.FaceRig)
+    iris_sampling: str | None = None  # the renderer's default; "area" or "point" (aspectus.synth.frame.FaceRig)
 
     def label(self) -> str:
         w, h = self.size_px
@@ -73,7 +73,7 @@ class Condition:
                          f" {self.fps:g}fps" if self.fps != 30.0 else "",
                          f" iris-{self.iris_colour}" if self.iris_colour else "",
                          f" exp{self.exposure_ms:g}ms" if self.exposure_ms else "",
-                         " point-sampled" if self.iris_sampling != "area" else ""])
+                         f" {self.iris_sampling}-sampled" if self.iris_sampling else ""])
         return f"{w}x{h} {self.distance_mm:.0f}mm {codec} {self.face} {self.trial.split('_')[0]} s{self.seed}{extra}"
 
 
@@ -85,11 +85,13 @@ def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
                                distance_mm=cond.distance_mm, seed=cond.seed)
     path = Path(out_dir) / f"{cond.name}.mp4"
     kw = {"crf": cond.crf} if cond.codec == "libx264" else {"bitrate_kbps": None}
+    if cond.iris_sampling:
+        kw["iris_sampling"] = cond.iris_sampling
     res = render_clip(path, traj, face=cond.face, size_px=tuple(cond.size_px), fps=cond.fps, codec=cond.codec,
                       seed=cond.seed,
                       lid_follow=cond.lid_follow, lighting_drift=cond.lighting_drift,
                       lighting_gradient=cond.lighting_gradient, glasses=cond.glasses, mirror=cond.mirror,
-                      iris_colour=cond.iris_colour, exposure_ms=cond.exposure_ms, iris_sampling=cond.iris_sampling,
+                      iris_colour=cond.iris_colour, exposure_ms=cond.exposure_ms,
                       corneal_reflection=cond.corneal_reflection, **kw)
     return res, trial
 

@@ -31,7 +31,8 @@ def _rendered(tmp_path, cond: G.Condition, yaw_deg: float, pitch_deg: float, fra
                                    head_distance_mm=cond.distance_mm)
     res = render_clip(tmp_path / "c.mp4", traj, face=cond.face, size_px=cond.size_px, fps=30.0, crf=crf,
                       seed=cond.seed, lid_follow=cond.lid_follow, lighting_drift=cond.lighting_drift,
-                      lighting_gradient=cond.lighting_gradient, glasses=cond.glasses, mirror=cond.mirror)
+                      lighting_gradient=cond.lighting_gradient, glasses=cond.glasses, mirror=cond.mirror,
+                      iris_sampling=cond.iris_sampling)
     return res.truth, PL.decoded_frames(res.path)
 
 
@@ -39,8 +40,8 @@ def test_the_fit_on_a_picture_with_gaussian_noise_is_unbiased_and_its_spread_is_
     """One 12 px frame (640 x 480 at 55 cm) drawn 40 times with independent Gaussian noise of 12 grey levels: the
     linearised fit's error per axis has an SD within 0.72-1.35 of the bound (the SD of 40 draws has a relative
     standard error of about 0.11) and a mean within 3 standard errors of zero."""
-    cond = G.Condition("t", size_px=(640, 480), distance_mm=550.0, lighting_drift=0.0, lighting_gradient=0.0,
-                       head_motion=None, seed=5)
+    cond = G.Condition("t", size_px=(640, 480), distance_mm=550.0, iris_sampling="area", lighting_drift=0.0,
+                       lighting_gradient=0.0, head_motion=None, seed=5)
     truth, _ = _rendered(tmp_path, cond, 4.0, -3.0, frames=1)
     fm = PL.PictureModel(cond, truth).frame(0)
     g0 = np.array([4.0, -3.0])
@@ -61,8 +62,9 @@ def test_the_fit_on_a_picture_with_gaussian_noise_is_unbiased_and_its_spread_is_
 
 def test_the_linearised_fit_recovers_a_gaze_half_a_degree_away():
     """The first-order model holds over the errors the bench measures: a noise-free picture drawn 0.6 deg right of
-    and 0.5 deg below the point of linearisation is read within 0.08 deg (lids that stay still, so that the picture
-    changes smoothly with the gaze)."""
+    and 0.5 deg below the point of linearisation is read within 0.08 deg (lids that stay still and the iris drawn by
+    pixel area, so that the picture changes smoothly with the gaze; drawn at pixel centres the pitch read 1.72
+    for 1.5)."""
     import pandas as pd
 
     truth = pd.DataFrame({"t_s": [0.0], "yaw_deg": [3.0], "pitch_deg": [2.0], "lid_closure": [0.0],
@@ -70,8 +72,8 @@ def test_the_linearised_fit_recovers_a_gaze_half_a_degree_away():
                           "head_x_mm": [0.0], "head_y_mm": [0.0], "head_z_mm": [550.0],
                           "right_iris_x_px": [290.0], "right_iris_y_px": [240.0], "left_iris_x_px": [350.0],
                           "left_iris_y_px": [240.0], "iris_diameter_px": [12.0]})
-    cond = G.Condition("t", size_px=(640, 480), distance_mm=550.0, lighting_drift=0.0, lighting_gradient=0.0,
-                       head_motion=None, lid_follow=0.0, seed=1)
+    cond = G.Condition("t", size_px=(640, 480), distance_mm=550.0, iris_sampling="area", lighting_drift=0.0,
+                       lighting_gradient=0.0, head_motion=None, lid_follow=0.0, seed=1)
     fm = PL.PictureModel(cond, truth).frame(0)
     obs = fm.render(3.6, 1.5)
     est, resid = PL.linearised_fit(fm, obs, (3.0, 2.0))
@@ -86,8 +88,8 @@ def test_the_picture_model_redraws_a_rendered_frame(tmp_path, mirror, glasses):
     RMS (sensor noise of 2 a channel, the codec and its halved colour resolution) and by less than 8 deg away, and
     the linearised fit about a point 1 deg off moves towards the truth (a model that forgot the mirroring, the
     light or the glasses fails all three)."""
-    cond = G.Condition("t", size_px=(640, 480), distance_mm=550.0, lighting_drift=0.15, lighting_gradient=0.3,
-                       head_motion=None, mirror=mirror, glasses=glasses, face="astronaut", seed=2)
+    cond = G.Condition("t", size_px=(640, 480), distance_mm=550.0, iris_sampling="area", lighting_drift=0.15,
+                       lighting_gradient=0.3, head_motion=None, mirror=mirror, glasses=glasses, face="astronaut", seed=2)
     truth, frames = _rendered(tmp_path, cond, -6.0, 5.0, frames=3)
     pm = PL.PictureModel(cond, truth)
     for i in (0, 2):
@@ -103,13 +105,14 @@ def test_the_picture_model_redraws_a_rendered_frame(tmp_path, mirror, glasses):
 
 def test_a_cell_with_an_exposure_is_refused_by_name(tmp_path):
     cond = G.Condition("12px_exp33ms", size_px=(640, 480), distance_mm=550.0, head_motion=None, exposure_ms=33.0)
-    truth, _ = _rendered(tmp_path, G.Condition("t", size_px=(640, 480), distance_mm=550.0, head_motion=None), 0, 0, 1)
+    plain = G.Condition("t", size_px=(640, 480), distance_mm=550.0, iris_sampling="area", head_motion=None)
+    truth, _ = _rendered(tmp_path, plain, 0, 0, 1)
     with pytest.raises(ValueError, match="12px_exp33ms.*33 ms exposure"):
         PL.PictureModel(cond, truth)
 
 
 def test_frames_and_truth_of_different_lengths_are_refused(tmp_path):
-    cond = G.Condition("t", size_px=(640, 480), distance_mm=550.0, head_motion=None)
+    cond = G.Condition("t", size_px=(640, 480), distance_mm=550.0, iris_sampling="area", head_motion=None)
     truth, frames = _rendered(tmp_path, cond, 0.0, 0.0, frames=2)
     with pytest.raises(ValueError, match="decoded frames"):
         PL.model_fit_samples(cond, truth, frames[:-1])

@@ -228,6 +228,8 @@ def _iris_texture(rgb, seed: int) -> np.ndarray:
 MAX_SUPERSAMPLE = 8
 #: how the iris texture becomes pixels (:class:`FaceRig`'s ``iris_sampling``)
 IRIS_SAMPLING = ("area", "point")
+#: the renderer's default ``iris_sampling``
+DEFAULT_IRIS_SAMPLING = "point"
 
 
 def _area_sampled_warp(texture: np.ndarray, A: np.ndarray, size_px: tuple[int, int]) -> np.ndarray:
@@ -395,7 +397,7 @@ class FaceRig:
     def __init__(self, face: FacePhoto, camera: Camera, *, rest_head_mm=(0.0, 0.0, 600.0),
                  background: np.ndarray, seed: int = 0, lower_skin_follow: float = 0.0, lid_follow: float = 1.0,
                  glasses: bool = False, iris_rgb=None, corneal_reflection: CornealReflection | None = None,
-                 iris_sampling: str = "area"):
+                 iris_sampling: str = DEFAULT_IRIS_SAMPLING):
         self.corneal_reflection = corneal_reflection
         if iris_sampling not in IRIS_SAMPLING:
             from aspectus.errors import ParameterError

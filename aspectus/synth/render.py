@@ -29,8 +29,8 @@ from aspectus import __version__
 from aspectus.atomic import atomic_path, sha256_file, write_csv, write_json
 from aspectus.errors import Cancelled, ParameterError
 from aspectus.synth.face import EYES, FACES, IRIS_DIAMETER_MM, load_face
-from aspectus.synth.frame import (EYEBALL_RADIUS_MM, IRIS_COLOURS, Camera, CornealReflection, FaceRig, gaze_vector,
-                                   head_rotation)
+from aspectus.synth.frame import (DEFAULT_IRIS_SAMPLING, EYEBALL_RADIUS_MM, IRIS_COLOURS, Camera, CornealReflection,
+                                   FaceRig, gaze_vector, head_rotation)
 from aspectus.synth.trajectory import Trajectory, saccade_duration_ms, synth_trajectory
 from aspectus.synth.clip_writer import FORMATS, ClipWriter, rotate_for_storage
 
@@ -222,7 +222,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 darkness: float = 1.0, face_visible=None, extra_faces: int = 0, seed: int = 0,
                 lower_skin_follow: float = 0.0, lid_follow: float = 1.0, glasses: bool = False,
                 lighting_drift: float = 0.0, lighting_gradient: float = 0.0, mirror: bool = False,
-                iris_colour=None, exposure_ms: float = 0.0, corneal_reflection=False, iris_sampling: str = "area",
+                iris_colour=None, exposure_ms: float = 0.0, corneal_reflection=False, iris_sampling: str = DEFAULT_IRIS_SAMPLING,
                 progress=None, cancel=None) -> RenderResult:
     """Render a webcam-like clip of a face following ``trajectory`` and write its truth beside it.
 
