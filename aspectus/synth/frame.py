@@ -229,7 +229,7 @@ MAX_SUPERSAMPLE = 8
 #: how the iris texture becomes pixels (:class:`FaceRig`'s ``iris_sampling``)
 IRIS_SAMPLING = ("area", "point")
 #: the renderer's default ``iris_sampling``
-DEFAULT_IRIS_SAMPLING = "point"
+DEFAULT_IRIS_SAMPLING = "area"
 
 
 def _area_sampled_warp(texture: np.ndarray, A: np.ndarray, size_px: tuple[int, int]) -> np.ndarray:

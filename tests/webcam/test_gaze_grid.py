@@ -29,7 +29,8 @@ def cells(lund_dir, tmp_path_factory):
     out = {}
     for name, size, dist, trial, face in (("12px", (640, 480), 550.0, "UH21_img_Rome", "hopper"),
                                           ("8px", (640, 480), 780.0, "UL23_img_Europe", "astronaut")):
-        cond = G.Condition(name, size_px=size, distance_mm=dist, trial=trial, face=face)
+        cond = G.Condition(name, size_px=size, distance_mm=dist, trial=trial, face=face,
+                           iris_sampling=G.GUARDS_MEASURED_ON)
         for row in G.run_condition(cond, d, lund_dir, keep_samples=True, variants=G.VARIANTS | G.TRUE_IRIS):
             out[(name, row["variant"])] = row
     return out
@@ -162,7 +163,8 @@ def test_verdict_at_8_px_says_which_features_are_usable(cells):
 def below(lund_dir, tmp_path_factory):
     """The 8.5 px cell again, the head translation refitted to the anchors below the eyes alone (the set the
     default used on every face before ``eye_anchor_set="auto"``)."""
-    cond = G.Condition("8px_below", size_px=(640, 480), distance_mm=780.0, trial="UL23_img_Europe", face="astronaut")
+    cond = G.Condition("8px_below", size_px=(640, 480), distance_mm=780.0, trial="UL23_img_Europe", face="astronaut",
+                       iris_sampling=G.GUARDS_MEASURED_ON)
     rows = G.run_condition(cond, tmp_path_factory.mktemp("below"), lund_dir, variants={"limbus": G.VARIANTS["limbus"]} | G.TRUE_IRIS,
                            pipeline_gaze={"eye_anchor_set": "below"})
     return {r["variant"]: r for r in rows}

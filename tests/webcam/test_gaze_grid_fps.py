@@ -24,7 +24,7 @@ def rows(lund_dir, tmp_path_factory):
     out = {}
     for fps in (30.0, 60.0):
         cond = G.Condition(f"12px_{fps:g}", size_px=(640, 480), distance_mm=550.0, trial="UH21_img_Rome",
-                           face="hopper", fps=fps)
+                           face="hopper", fps=fps, iris_sampling=G.GUARDS_MEASURED_ON)
         for row in G.run_condition(cond, d, lund_dir, variants={"default": {}} | G.TRUE_IRIS):
             out[(fps, row["variant"])] = row
     return out

@@ -28,7 +28,8 @@ def cell(lund_dir, tmp_path_factory):
     from aspectus.webcam.gaze import GazeParams
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
-    cond = G.Condition("25px", size_px=(1280, 720), distance_mm=530.0, trial="TL20_img_konijntjes", face="hopper")
+    cond = G.Condition("25px", size_px=(1280, 720), distance_mm=530.0, trial="TL20_img_konijntjes", face="hopper",
+                       iris_sampling=G.GUARDS_MEASURED_ON)
     res, trial = G.render_condition(cond, tmp_path_factory.mktemp("large"), lund_dir)
     with G.gaze_inputs() as kw:  # the limbus fit without the side-arc rule (the default before it), as measured
         samples, meta = extract_samples(res.path, params=ProcessParams(gaze=GazeParams(side_arcs=False)))

@@ -18,7 +18,7 @@ pytestmark = pytest.mark.slow
 @pytest.fixture(scope="module")
 def cell(lund_dir, tmp_path_factory):
     cond = G.Condition("12px_crf28_reflection", size_px=(640, 480), distance_mm=550.0, trial="UH21_img_Rome",
-                       corneal_reflection=True)
+                       corneal_reflection=True, iris_sampling=G.GUARDS_MEASURED_ON)
     rows = G.run_condition(cond, tmp_path_factory.mktemp("reflection"), lund_dir, variants={"default": {}},
                            pipeline_gaze={"fill_reflections": True})
     return rows[0]
@@ -27,7 +27,7 @@ def cell(lund_dir, tmp_path_factory):
 @pytest.fixture(scope="module")
 def default_cell(lund_dir, tmp_path_factory):
     cond = G.Condition("12px_crf28_reflection", size_px=(640, 480), distance_mm=550.0, trial="UH21_img_Rome",
-                       corneal_reflection=True)
+                       corneal_reflection=True, iris_sampling=G.GUARDS_MEASURED_ON)
     return G.run_condition(cond, tmp_path_factory.mktemp("reflection_default"), lund_dir,
                            variants={"default": {}})[0]
 

@@ -27,7 +27,7 @@ def figures(lund_dir, tmp_path_factory):
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
     cond = G.Condition("appearance_12px", size_px=(640, 480), distance_mm=550.0, trial=TRIALS, face="hopper",
-                       seed=12, duration_s=40.0)
+                       seed=12, duration_s=40.0, iris_sampling=G.GUARDS_MEASURED_ON)
     res, trial = G.render_condition(cond, tmp_path_factory.mktemp("appearance"), lund_dir)
     seen = {}
     orig_app, orig_est = pipeline._appearance_iris, pipeline.estimate_gaze

@@ -178,7 +178,7 @@ def placements(lund_dir, tmp_path_factory):
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
     cond = G.Condition("placement", size_px=(640, 480), distance_mm=780.0, trial="UL43_img_Rome", face="astronaut",
-                       seed=22, duration_s=4.0)
+                       seed=22, duration_s=4.0, iris_sampling=G.GUARDS_MEASURED_ON)
     res, _ = G.render_condition(cond, tmp_path_factory.mktemp("placement"), lund_dir)
     tru = res.truth[["head_x_mm", "head_y_mm", "head_z_mm"]].to_numpy()
     out = {"iris_px": float(res.truth["iris_diameter_px"].median())}
