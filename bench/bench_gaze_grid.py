@@ -89,6 +89,15 @@ def grid(quick: bool, seed: int, fps: float | None = None, reflection: bool = Fa
     return out
 
 
+def cells_or_exit_code(seed: int, only: list[str] | None) -> list[G.Condition] | int:
+    """The grid's cells for ``seed`` (those named in ``only``; all without), or 2 after one line on stderr when the
+    hand-coded recordings are missing or a name is unknown (for the benches that measure on the grid's cells)."""
+    if not LUND.is_dir():
+        print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
+        return 2
+    return only_named(grid(False, seed), only, "cell")
+
+
 COLUMNS = [("variant", "{:7s}"), ("iris_px", "{:5.1f}"), ("iris_px_measured", "{:5.1f}"), ("iris_px_mesh", "{:5.1f}"),
            ("rms_s2s_deg", "{:5.2f}"), ("rms_fix_deg", "{:5.2f}"), ("rms_s2s_fix_deg", "{:5.2f}"),
            ("noise_rms_s2s_deg", "{:5.2f}"), ("noise_rms_s2s_33ms_deg", "{:5.2f}"), ("noise_sd_deg", "{:5.2f}"),

@@ -44,9 +44,7 @@ sys.path.insert(0, str(ROOT / "tests"))
 sys.path.insert(0, str(ROOT / "bench"))
 
 import _gaze_grid as G  # noqa: E402
-from _bench_args import only_named  # noqa: E402
-
-LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
+from bench_gaze_grid import LUND, cells_or_exit_code  # noqa: E402
 
 #: step of the central differences, deg (about 0.2 px of iris motion at a 12 px iris: well above the rendered
 #: picture's 8-bit rounding, well inside the picture's linear range)
@@ -226,17 +224,12 @@ def measure_cell(cond: G.Condition, lund_dir: Path) -> dict:
 
 
 def main(argv=None) -> int:
-    from bench_gaze_grid import grid
-
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--only", nargs="+", metavar="CELL", help="these cells of bench/bench_gaze_grid.py's grid")
     ap.add_argument("--csv", type=Path, help="also write the rows here")
     args = ap.parse_args(argv)
-    if not LUND.is_dir():
-        print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
-        return 2
-    cells = only_named(grid(False, args.seed), args.only, "cell")
+    cells = cells_or_exit_code(args.seed, args.only)
     if isinstance(cells, int):
         return cells
     rows = []

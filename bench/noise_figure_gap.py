@@ -24,8 +24,7 @@ sys.path.insert(0, str(ROOT / "tests"))
 sys.path.insert(0, str(ROOT / "bench"))
 
 import _gaze_grid as G  # noqa: E402
-from _bench_args import only_named  # noqa: E402
-from bench_gaze_grid import LUND, grid  # noqa: E402
+from bench_gaze_grid import LUND, cells_or_exit_code  # noqa: E402
 
 
 def fixation_ids(events: pd.DataFrame, t_s: np.ndarray) -> np.ndarray:
@@ -69,10 +68,7 @@ def main(argv=None) -> int:
     ap.add_argument("--only", nargs="+", metavar="CELL", help="these cells of the grid (bench/bench_gaze_grid.py)")
     ap.add_argument("--csv", help="write the rows to this CSV file as well")
     args = ap.parse_args(argv)
-    if not LUND.is_dir():
-        print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
-        return 2
-    cells = only_named(grid(False, args.seed), args.only, "cell")
+    cells = cells_or_exit_code(args.seed, args.only)
     if isinstance(cells, int):
         return cells
     import _lund
