@@ -34,10 +34,10 @@ import pandas as pd
 import _lund
 
 #: how the renderer drew the iris when the grid tests' guarded levels were measured (tests/webcam/test_gaze_grid.py,
-#: _fps, _reflection, test_iris_appearance_rendered.py, test_skin_region.py): at pixel centres, as before
-#: 2026-12-05. Drawn by pixel area (the default since), a small iris no longer aliases and those figures move, some
-#: by more than their guards allow (docs/notes/gaze-measurement.md, "The renderer's aliased small irises"); their
-#: cells keep this sampling until they are re-measured on area-drawn irises and re-guarded.
+#: _fps, _reflection, test_skin_region.py): at pixel centres, as before 2026-12-05. Drawn by pixel area (the default
+#: since), a small iris no longer aliases and those figures move, some by more than their guards allow
+#: (docs/notes/gaze-measurement.md, "The renderer's aliased small irises"); their cells keep this sampling until
+#: they are re-measured on area-drawn irises and re-guarded.
 GUARDS_MEASURED_ON = "point"
 #: slow head drift and rotation (the renderer's defaults: yaw +-10, pitch +-4, roll +-2 deg; 15 / 10 / 25 mm)
 HEAD_DRIFT_AND_TURNS: dict = {}
