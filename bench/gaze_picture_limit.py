@@ -33,6 +33,7 @@ import argparse
 import sys
 import tempfile
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -59,7 +60,7 @@ BOX_HALF_IRIS = (1.6, 1.1)
 class FrameModel:
     """The renderer's picture of one frame's eye boxes as a function of the gaze (everything else from the truth)."""
 
-    render: object  # (yaw_deg, pitch_deg) -> (n_pixels * 3,) float
+    render: Callable[[float, float], np.ndarray]  # (yaw_deg, pitch_deg) -> (n_pixels * 3,) float
     box: tuple  # (y0, y1, x0, x1)
     mask: np.ndarray  # (y1 - y0, x1 - x0) bool: the two eye boxes
 
@@ -80,7 +81,7 @@ class PictureModel:
     def __init__(self, cond: G.Condition, truth: pd.DataFrame):
         from aspectus.synth.face import load_face
         from aspectus.synth.frame import IRIS_COLOURS, Camera, CornealReflection, FaceRig
-        from aspectus.synth.render import _background, _light_level
+        from aspectus.synth.render import _background, _light_level, _light_ramp
 
         if cond.exposure_ms:
             raise ValueError(f"cell {cond.name}: a {cond.exposure_ms:g} ms exposure (sub-frames) is not modelled")
@@ -95,17 +96,18 @@ class PictureModel:
                            corneal_reflection=CornealReflection() if cond.corneal_reflection else None,
                            **({"iris_sampling": cond.iris_sampling} if cond.iris_sampling else {}))
         self.light = _light_level(self.truth["t_s"].to_numpy(), seed=cond.seed, drift=float(cond.lighting_drift))
-        self.ramp = (0.5 - (np.arange(self.w, dtype=np.float32) + 0.5) / self.w)[None, :, None]
+        self.ramp = _light_ramp(self.w)
 
     def frame(self, i: int) -> FrameModel:
         from aspectus.synth.frame import gaze_vector, head_rotation
+        from aspectus.synth.render import _light_gain
 
         r = self.truth.iloc[i]
         R = head_rotation(r.head_yaw_deg, r.head_pitch_deg, r.head_roll_deg)
         T = (r.head_x_mm, r.head_y_mm, r.head_z_mm)
         cond = self.cond
         lit = bool(cond.lighting_drift or cond.lighting_gradient)
-        gain = self.light[i] * (1.0 + float(cond.lighting_gradient) * self.light[i] * self.ramp) if lit else None
+        gain = _light_gain(self.light[i], cond.lighting_gradient, self.ramp) if lit else None
         d = float(r.iris_diameter_px)
         bx, by = BOX_HALF_IRIS[0] * d, BOX_HALF_IRIS[1] * d
         xs = np.array([r.right_iris_x_px, r.left_iris_x_px])
@@ -205,7 +207,7 @@ def measure_cell(cond: G.Condition, lund_dir: Path) -> dict:
     """One row: the cell, the model fit's figures (``fit_*``), the pipeline's (``default_*``, ``true_iris_*``)."""
     with tempfile.TemporaryDirectory() as tmp:
         rows = G.run_condition(cond, Path(tmp), lund_dir,
-                               variants={"default": {}, "true_iris": {"iris_px": "truth"}})
+                               variants={"default": {}} | G.TRUE_IRIS)
         from aspectus.synth.render import read_truth
 
         truth = read_truth(Path(tmp) / f"{cond.name}_truth.csv")

@@ -232,7 +232,8 @@ IRIS_SAMPLING = ("area", "point")
 DEFAULT_IRIS_SAMPLING = "area"
 
 
-def _area_sampled_warp(texture: np.ndarray, A: np.ndarray, size_px: tuple[int, int]) -> np.ndarray:
+def _area_sampled_warp(texture: np.ndarray, A: np.ndarray, size_px: tuple[int, int], *,
+                       max_supersample: int = MAX_SUPERSAMPLE) -> np.ndarray:
     """``texture`` warped by the affine map ``A`` (texture -> picture) into a ``size_px`` (w, h) patch, each picture
     pixel the mean over its area, as a camera's pixel integrates the light falling on it.
 
@@ -240,12 +241,13 @@ def _area_sampled_warp(texture: np.ndarray, A: np.ndarray, size_px: tuple[int, i
     of 8-16 px drawn from a 64-texel disc) that aliases: the disc's edge and its dark rim then move in jumps of up to
     about half a pixel as the disc moves smoothly (the rim's centre 0.05 px SD off at a 12 px iris), and the
     streaks shimmer. So the texture is warped onto ``k`` x ``k`` sub-pixels per pixel, ``k`` enough for at most one
-    texel per sub-pixel along the disc's shorter axis (at most :data:`MAX_SUPERSAMPLE`), and averaged back by area.
+    texel per sub-pixel along the disc's shorter axis (at most ``max_supersample``), and averaged back by area;
+    ``max_supersample=1`` is the plain warp (``iris_sampling="point"``).
     """
     cv2 = import_cv2()
     w, h = size_px
     texel_px = float(np.linalg.svd(A[:, :2], compute_uv=False)[-1])  # picture px per texel, shorter axis
-    k = int(np.clip(np.ceil(1.0 / max(texel_px, 1e-6) - 1e-9), 1, MAX_SUPERSAMPLE))
+    k = int(np.clip(np.ceil(1.0 / max(texel_px, 1e-6) - 1e-9), 1, max_supersample))
     if k == 1:
         return cv2.warpAffine(texture, A, (w, h), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT,
                               borderValue=0)
@@ -681,11 +683,8 @@ class FaceRig:
         tr = _TEX_PX / 2.0
         src = np.float32([[tc, tc], [tc + tr, tc], [tc, tc + tr]])
         A = cv2.getAffineTransform(src, p2.astype(np.float32))
-        if self.iris_sampling == "area":
-            tex = _area_sampled_warp(self.iris_texture[eye], A, (pw, ph))
-        else:
-            tex = cv2.warpAffine(self.iris_texture[eye], A, (pw, ph), flags=cv2.INTER_LINEAR,
-                                 borderMode=cv2.BORDER_CONSTANT, borderValue=0)
+        tex = _area_sampled_warp(self.iris_texture[eye], A, (pw, ph),
+                                 max_supersample=MAX_SUPERSAMPLE if self.iris_sampling == "area" else 1)
         ia = tex[..., 3:4]
         content = content * (1 - ia) + tex[..., :3] * ia
         # upper-lid shadow on the eyeball

@@ -204,6 +204,16 @@ def _angles(g: np.ndarray) -> tuple[float, float]:
     return (float(np.degrees(np.arctan2(-g[0], -g[2]))), float(np.degrees(np.arctan2(-g[1], np.hypot(g[0], g[2])))))
 
 
+def _light_ramp(width_px: int) -> np.ndarray:
+    """(1, w, 1) the side-to-side lighting gradient's shape: +0.5 at the picture's left edge, -0.5 at its right."""
+    return (0.5 - (np.arange(width_px, dtype=np.float32) + 0.5) / width_px)[None, :, None]
+
+
+def _light_gain(level: float, gradient: float, ramp: np.ndarray) -> np.ndarray:
+    """The picture's gain for a frame at light ``level`` with a lateral ``gradient`` (:func:`_light_ramp`)."""
+    return level * (1.0 + float(gradient) * level * ramp)
+
+
 def _light_level(times_s: np.ndarray, *, seed: int, drift: float) -> np.ndarray:
     """Relative light level per frame: 1 + drift * (a sum of three slow sinusoids scaled into -1..1)."""
     if not drift:
@@ -222,8 +232,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 darkness: float = 1.0, face_visible=None, extra_faces: int = 0, seed: int = 0,
                 lower_skin_follow: float = 0.0, lid_follow: float = 1.0, glasses: bool = False,
                 lighting_drift: float = 0.0, lighting_gradient: float = 0.0, mirror: bool = False,
-                iris_colour=None, exposure_ms: float = 0.0, corneal_reflection=False, iris_sampling: str = DEFAULT_IRIS_SAMPLING,
-                progress=None, cancel=None) -> RenderResult:
+                iris_colour=None, exposure_ms: float = 0.0, corneal_reflection=False,
+                iris_sampling: str = DEFAULT_IRIS_SAMPLING, progress=None, cancel=None) -> RenderResult:
     """Render a webcam-like clip of a face following ``trajectory`` and write its truth beside it.
 
     Parameters
@@ -430,7 +440,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                   lower_skin_follow=lower_skin_follow, lid_follow=lid_follow, glasses=glasses, iris_rgb=iris_rgb,
                   corneal_reflection=corneal_reflection, iris_sampling=iris_sampling)
     light = _light_level(times, seed=seed, drift=float(lighting_drift))
-    ramp = (0.5 - (np.arange(w, dtype=np.float32) + 0.5) / w)[None, :, None]  # +0.5 at the left edge
+    ramp = _light_ramp(w)
     if extra_faces:
         other = FACES[1] if face == FACES[0] else FACES[0]
         main_iris = camera.focal_px * IRIS_DIAMETER_MM / (rest[2] - EYEBALL_RADIUS_MM)
@@ -490,7 +500,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                     img = np.ascontiguousarray(img[:, ::-1])
                     iris_uv = {e: (w - iris_uv[e][0], iris_uv[e][1]) for e in EYES}
                 if lighting_drift or lighting_gradient:
-                    gain = light[i] * (1.0 + float(lighting_gradient) * light[i] * ramp)
+                    gain = _light_gain(light[i], lighting_gradient, ramp)
                     img = np.clip(img * gain + 0.5, 0, 255).astype(np.uint8)
                 if darkness < 1.0:
                     img = cv2.convertScaleAbs(img, alpha=float(darkness))
@@ -554,7 +564,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         "mirror": bool(mirror),
         "iris_colour": iris_colour if isinstance(iris_colour, str) or iris_colour is None else list(iris_rgb),
         "iris_rgb": {e: list(rig.iris_rgb[e]) for e in EYES},
-        "exposure_ms": float(exposure_ms), "iris_sampling": iris_sampling, "truth_time": "middle of each frame's exposure (t_s)",
+        "exposure_ms": float(exposure_ms), "iris_sampling": iris_sampling,
+        "truth_time": "middle of each frame's exposure (t_s)",
         "exposure_subframes": {"mean": float(np.mean(subframes)), "max": int(max(subframes))} if subframes else None,
         "corneal_reflection": (None if corneal_reflection is None else
                                {"source_mm": [float(v) for v in corneal_reflection.source_mm],
