@@ -86,11 +86,11 @@ def chain(items, anchor_set: str) -> tuple[dict, dict]:
     estimate_gaze's inputs and the iris estimate's record."""
     from aspectus.webcam import pipeline as PL
     from aspectus.webcam.frame_geometry import APPEARANCE_COLUMNS, LIMBUS_DIAM, RECORD_WIDTH, FrameGeometry
-    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX
+    from aspectus.webcam.gaze import SMALL_FACE_BELOW_PX
     from aspectus.webcam.iris_appearance import small_iris
 
     geo = FrameGeometry(fov_deg=60.0, refine_iris=True, eye_anchors=True, anchor_set=anchor_set, appearance=True,
-                        appearance_below_px=AUTO_APPEARANCE_BELOW_PX)
+                        appearance_below_px=SMALL_FACE_BELOW_PX)
     from aspectus.webcam.eye_anchors import EyeAnchorTracker
     from aspectus.webcam.skin_region import SkinRegionTracker
 
@@ -122,7 +122,7 @@ def chain(items, anchor_set: str) -> tuple[dict, dict]:
     R[~found] = np.eye(3)
     t = np.nan_to_num(a[:, 12:15], nan=1.0)
     iris = a[:, 15:19].reshape(n, 2, 2).copy()
-    small, size = small_iris(found, a[:, 19:21], a[:, LIMBUS_DIAM], a[:, 29:31], AUTO_APPEARANCE_BELOW_PX)
+    small, size = small_iris(found, a[:, 19:21], a[:, LIMBUS_DIAM], a[:, 29:31], SMALL_FACE_BELOW_PX)
     used = "limbus"
     if small:
         patches = np.ascontiguousarray(rows[:, w:]).view(np.uint8)

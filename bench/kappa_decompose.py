@@ -171,7 +171,7 @@ def reestimate(cap: dict, gaze: dict) -> pd.DataFrame:
     """The clip's samples from today's gaze estimate on its stored measurements, with settings ``gaze``: the
     pipeline's ``auto`` choice of iris estimate (appearance below the threshold, by the face mesh's median iris)
     as in :func:`aspectus.webcam.pipeline.extract_samples`."""
-    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, OPEN_EYE_REL, GazeParams, relative_aperture, switch_iris_px
+    from aspectus.webcam.gaze import SMALL_FACE_BELOW_PX, OPEN_EYE_REL, GazeParams, relative_aperture, switch_iris_px
     from aspectus.webcam.iris_appearance import PATCH_SIZE, appearance_iris
 
     kw = dict(cap["kw"])
@@ -190,7 +190,7 @@ def reestimate(cap: dict, gaze: dict) -> pd.DataFrame:
     if combine == "auto":
         # the pipeline's rule (gaze.switch_iris_px: the limbus fit's median over the open-eye frames)
         use_app = switch_iris_px(cap["found"], kw["iris_diam_px"], kw.get("limbus_diam_px"),
-                                 kw["ear"])["iris_px"] < AUTO_APPEARANCE_BELOW_PX
+                                 kw["ear"])["iris_px"] < SMALL_FACE_BELOW_PX
     if use_app:
         masked = limbus.copy()
         masked[~cap["limbus_ok"]] = np.nan

@@ -87,7 +87,7 @@ BESIDE_POINTS = (226, 35, 446, 265)
 DEFAULT_ANCHOR_SET = "below"
 #: with ``eye_anchor_set="auto"`` (the default of ``GazeParams``) the set used where the iris is small in the picture
 #: (the same rule as ``iris_combine="auto"``: :func:`aspectus.webcam.iris_appearance.small_iris` below
-#: ``aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX``); :data:`DEFAULT_ANCHOR_SET` elsewhere. Measured on fourteen
+#: ``aspectus.webcam.gaze.SMALL_FACE_BELOW_PX``); :data:`DEFAULT_ANCHOR_SET` elsewhere. Measured on fourteen
 #: small-face dev clips (8.4-12.1 px, eight of them with the head turning +-15 deg): yaw r up on ten, by 0.04-0.38
 #: on all seven astronaut-face clips, down by 0.01-0.06 on four hopper-face clips (docs/notes/gaze-measurement.md).
 AUTO_SMALL_FACE_SET = "below_and_beside"

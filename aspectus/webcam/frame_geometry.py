@@ -30,7 +30,7 @@ from aspectus.webcam.eye_anchors import (ANCHOR_SET_CHOICES, ANCHOR_SETS, AUTO_S
                                          MIN_ANCHOR_RADIUS_PX, REGION_SETS, TURN_LIMITED_SETS, WIDE_SETS,
                                          EyeAnchorTracker, anchor_radius_px, anchor_reach_px,
                                          translation_given_rotation, turn_away_limits_deg)
-from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, frame_measurements
+from aspectus.webcam.gaze import SMALL_FACE_BELOW_PX, frame_measurements
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, PATCH_BYTES, EyePatchSampler, small_iris
 from aspectus.webcam.headpose import HeadPoseSolver
 from aspectus.webcam.landmarks import LEFT_IRIS_CENTRE, LEFT_IRIS_RING, RIGHT_IRIS_CENTRE, RIGHT_IRIS_RING
@@ -181,7 +181,7 @@ class FrameGeometry:
         ``"auto"``: :data:`aspectus.webcam.eye_anchors.DEFAULT_ANCHOR_SET` into ``t_mm`` and, while the first
         :data:`aspectus.webcam.iris_appearance.DECIDE_FRAMES` frames with a face show a small iris
         (:func:`aspectus.webcam.iris_appearance.small_iris` below
-        :data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`) and after them if they did, also
+        :data:`aspectus.webcam.gaze.SMALL_FACE_BELOW_PX`) and after them if they did, also
         :data:`aspectus.webcam.eye_anchors.AUTO_SMALL_FACE_SET` into :data:`SMALL_FACE_T_COLUMNS` (its extra
         points followed by a tracker of their own, so the first set's rows are those it gives alone).
     skin_pose : bool
@@ -201,25 +201,17 @@ class FrameGeometry:
     side_arcs : bool
         With ``refine_iris``: fit the limbus with the side-arc rule (``GazeParams.side_arcs``,
         :func:`aspectus.webcam.limbus.limbus_centres_many`) where the fit is itself the gaze estimate. With
-        ``appearance`` and ``appearance_below_px`` (``iris_combine="auto"``) both fits are made while the first
-        frames are undecided (the label fits into the appearance columns), then only the one the decision needs
-        (without the rule for a small face, whose appearance estimate learns from it; with it otherwise); else
-        every fit has the rule. Default False.
-    appearance_below_px : float or None
-        With ``appearance``: stop sampling patches (their columns stay empty) once the first
-        :data:`aspectus.webcam.iris_appearance.DECIDE_FRAMES` frames with a face show an iris that is not below
-        this (:func:`first_frames_small_iris`; ``iris_combine="auto"``, whose pipeline drops them by the same rule).
+        ``appearance`` too both fits are made: the fit with the rule into the iris columns, the one without into
+        the label columns the appearance estimate learns from (it was measured on those). Default False.
     """
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None, iris_shape: bool = False, side_arcs: bool = False):
+                 iris_shape: bool = False, side_arcs: bool = False):
         self.fov_deg = float(fov_deg)
         self.side_arcs = bool(side_arcs)
         self.appearance = bool(appearance)
         self.width = RECORD_WIDTH + (APPEARANCE_WIDTH if self.appearance else 0)
-        self.appearance_below_px = None if appearance_below_px is None else float(appearance_below_px)
-        self._sampling = True
         self.sampler = EyePatchSampler()
         self._last_anchors: np.ndarray | None = None
         self._last_all: np.ndarray | None = None  # this frame's followed points of the anchor set
@@ -270,11 +262,10 @@ class FrameGeometry:
             self._turn_limits = (turn_away_limits_deg(own, pts_mm),
                                  -np.sign(self._anchors_model[:, 0]))
         self._anchors_on_mesh = None  # see place_anchors_on_mesh
-        # "auto" (eye patches, anchor set): the first frames' record rows with a face (with the appearance columns
-        # before the patches), until the one decision is made
+        # anchor_set "auto": the first frames' record rows with a face (with the appearance columns before the
+        # patches), until the one decision is made
         self._decide_width = RECORD_WIDTH + (PATCHES_AT if self.appearance else 0)
-        self._first_rows: list | None = ([] if (self.appearance and self.appearance_below_px is not None)
-                                         or self.auto_anchors else None)
+        self._first_rows: list | None = [] if self.auto_anchors else None
         self.anchored_frames = 0
         self.unanchored_frames = 0
         # each eye's iris contrasts so far, counted in 1 % bins from -100 to 100 %: where their median is low the
@@ -358,14 +349,11 @@ class FrameGeometry:
 
     def _fit_variant(self) -> str:
         """Which limbus fits the frame just placed needs (:func:`aspectus.webcam.limbus.limbus_centres_variants`):
-        ``"plain"`` without the side-arc rule, ``"side"`` with it, ``"both"`` (``side_arcs``)."""
+        ``"plain"`` without the side-arc rule, ``"side"`` with it, ``"both"`` (``side_arcs`` with ``appearance``:
+        the appearance estimate learns from the fits without the rule)."""
         if not self.side_arcs:
             return "plain"
-        if not (self.appearance and self.appearance_below_px is not None):
-            return "side"  # the limbus fit is the gaze estimate (or the iris_combine setting chose the appearance's)
-        if self._first_rows is not None:
-            return "both"  # "auto", undecided: the appearance estimate may learn from these frames
-        return "plain" if self._sampling else "side"
+        return "both" if self.appearance else "side"
 
     def _pupil_where_faint(self, job, iris, ok, diam, step, count: bool = True):
         """An eye whose frames so far show too little iris contrast (the median of at least
@@ -478,7 +466,7 @@ class FrameGeometry:
         """The limbus-fit flags (0 until a fit succeeds), the patch frames and the patches of one frame."""
         w = RECORD_WIDTH
         row[w:w + 2] = 0.0
-        if not self._sampling or eyes is None or self._last_anchors is None:
+        if eyes is None or self._last_anchors is None:
             return
         A = self.sampler.affines(self._last_anchors, m["corners_px"])
         if A is None:
@@ -490,19 +478,15 @@ class FrameGeometry:
         row[w + PATCHES_AT:] = np.ascontiguousarray(patches).reshape(-1).view(np.float64)
 
     def _decide_small(self) -> None:
-        """The "auto" settings' one decision, from the frames with a face seen so far (then no more): whether to go
-        on sampling eye patches (``appearance_below_px``) and whether the face is small (``anchor_set="auto"``).
-        Both follow :func:`aspectus.webcam.iris_appearance.small_iris` on the same frames' rows (their limbus fits'
-        diameters over the open-eye frames; the face mesh's with too few fits), as the pipeline's decision on keeping
-        the patches does (:func:`first_frames_small_iris`)."""
+        """``anchor_set="auto"``'s one decision, from the frames with a face seen so far (then no more): whether the
+        face is small (:func:`first_frames_small_iris`: :func:`aspectus.webcam.iris_appearance.small_iris` on those
+        frames' rows - their limbus fits' diameters over the open-eye frames, the face mesh's with too few fits -
+        below :data:`aspectus.webcam.gaze.SMALL_FACE_BELOW_PX`)."""
         if self._first_rows is None:
             return
         first = np.array(self._first_rows, float).reshape(-1, self._decide_width)
         self._first_rows = None
-        if self.appearance_below_px is not None and self.appearance:
-            self._sampling = first_frames_small_iris(first, self.appearance_below_px)[0]
-        if self.auto_anchors:
-            self.small_face = first_frames_small_iris(first, AUTO_APPEARANCE_BELOW_PX)[0]
+        self.small_face = first_frames_small_iris(first, SMALL_FACE_BELOW_PX)[0]
 
     def _small_translation(self, R, t_pnp, m, eyes, points_px, eyes_origin_px) -> np.ndarray:
         """``anchor_set="auto"``: the translation refitted to the small-face set (:meth:`_anchored_translation`
@@ -641,10 +625,10 @@ class GeometryThread:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None, iris_shape: bool = False, side_arcs: bool = False):
+                 iris_shape: bool = False, side_arcs: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
                                   anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                                  appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                                  iris_shape=iris_shape,
                                   side_arcs=side_arcs)
         self._sink = sink
         self._q: queue.Queue = queue.Queue(maxsize=2 * _BATCH)  # room for a whole batch of limbus fits
@@ -700,10 +684,10 @@ class GeometryInline:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None, iris_shape: bool = False, side_arcs: bool = False):
+                 iris_shape: bool = False, side_arcs: bool = False):
         self._geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors,
                                   anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                                  appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                                  iris_shape=iris_shape,
                                   side_arcs=side_arcs)
         self._sink = sink
         self._pending: list = []
@@ -734,8 +718,7 @@ def child_main(argv=None) -> int:
     """Entry point of the geometry child: pickled batches in on stdin, pickled replies out on stdout.
 
     Started by :class:`GeometryProcess` with the arguments
-    ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE [APPEARANCE [BELOW_PX [IRIS_SHAPE [SIDE_ARCS]]]]]]]`` (BELOW_PX "-" for
-    none). Anything
+    ``FOV_DEG REFINE [ANCHORS [ANCHOR_SET [SKIN_POSE [APPEARANCE [IRIS_SHAPE [SIDE_ARCS]]]]]]``. Anything
     else that would print to stdout goes to stderr, so it cannot corrupt the replies.
     """
     args = list(sys.argv[1:] if argv is None else argv)
@@ -744,15 +727,14 @@ def child_main(argv=None) -> int:
     anchor_set = args[3] if len(args) > 3 else DEFAULT_ANCHOR_SET
     skin_pose = len(args) > 4 and args[4] == "1"
     appearance = len(args) > 5 and args[5] == "1"
-    appearance_below_px = float(args[6]) if len(args) > 6 and args[6] != "-" else None
-    iris_shape = len(args) > 7 and args[7] == "1"
-    side_arcs = len(args) > 8 and args[8] == "1"
+    iris_shape = len(args) > 6 and args[6] == "1"
+    side_arcs = len(args) > 7 and args[7] == "1"
     out = os.fdopen(os.dup(1), "wb")
     os.dup2(2, 1)  # stray prints from libraries go to stderr
     inp = sys.stdin.buffer
     geo = FrameGeometry(fov_deg=fov_deg, refine_iris=refine_iris, eye_anchors=eye_anchors, anchor_set=anchor_set,
-                        skin_pose=skin_pose, appearance=appearance, appearance_below_px=appearance_below_px,
-                        iris_shape=iris_shape, side_arcs=side_arcs)
+                        skin_pose=skin_pose, appearance=appearance, iris_shape=iris_shape,
+                        side_arcs=side_arcs)
 
     def reply(obj) -> bool:
         try:
@@ -814,15 +796,14 @@ class GeometryProcess:
 
     def __init__(self, *, fov_deg: float, refine_iris: bool, sink, eye_anchors: bool = True,
                  anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False, appearance: bool = False,
-                 appearance_below_px: float | None = None, iris_shape: bool = False, side_arcs: bool = False):
+                 iris_shape: bool = False, side_arcs: bool = False):
         self._sink = sink
         if anchor_set not in ANCHOR_SET_CHOICES:
             raise ValueError(f"anchor set must be one of {', '.join(ANCHOR_SET_CHOICES)}, got {anchor_set!r}")
         self._proc = subprocess.Popen(
             [sys.executable, "-c", _CHILD_BOOT, str(Path(__file__).resolve().parents[1]), repr(float(fov_deg)),
              "1" if refine_iris else "0", "1" if eye_anchors else "0", anchor_set, "1" if skin_pose else "0",
-             "1" if appearance else "0", "-" if appearance_below_px is None else repr(float(appearance_below_px)),
-             "1" if iris_shape else "0", "1" if side_arcs else "0"],
+             "1" if appearance else "0", "1" if iris_shape else "0", "1" if side_arcs else "0"],
             stdin=subprocess.PIPE, stdout=subprocess.PIPE)
         self._out: queue.Queue = queue.Queue(maxsize=32)  # batches in flight: some 30 MB of eye crops at most
         self._pending: list = []
@@ -917,7 +898,7 @@ class GeometryProcess:
 
 def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int, mode: str = "auto",
                    eye_anchors: bool = True, anchor_set: str = DEFAULT_ANCHOR_SET, skin_pose: bool = False,
-                   appearance: bool = False, appearance_below_px: float | None = None, iris_shape: bool = False,
+                   appearance: bool = False, iris_shape: bool = False,
                    side_arcs: bool = False):
     """A :class:`GeometryProcess` (long clips) or :class:`GeometryThread` (short clips, a frozen
     application, or when no child can be started); ``mode`` forces ``"thread"``, ``"process"`` or
@@ -931,19 +912,19 @@ def start_geometry(*, fov_deg: float, refine_iris: bool, sink, frames_hint: int,
     if mode == "inline":
         return GeometryInline(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
                               anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                              iris_shape=iris_shape,
                               side_arcs=side_arcs)
     frozen = bool(getattr(sys, "frozen", False))  # a bundled app has no "python -c" to start
     if mode == "process" or (mode == "auto" and frames_hint >= PROCESS_MIN_FRAMES and not frozen):
         try:
             return GeometryProcess(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
                               anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                              iris_shape=iris_shape,
                               side_arcs=side_arcs)
         except OSError:
             if mode == "process":
                 raise
     return GeometryThread(fov_deg=fov_deg, refine_iris=refine_iris, sink=sink, eye_anchors=eye_anchors,
                               anchor_set=anchor_set, skin_pose=skin_pose, appearance=appearance,
-                              appearance_below_px=appearance_below_px, iris_shape=iris_shape,
+                              iris_shape=iris_shape,
                               side_arcs=side_arcs)

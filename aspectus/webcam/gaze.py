@@ -62,9 +62,12 @@ IRIS_COMBINE = ("auto", "limbus", "rescale", "fuse", "appearance")
 #: light iris) to 1.005 (12 px hazel iris), dark irises 0.948-0.989 (docs/notes/gaze-measurement.md, "The switch's
 #: threshold on the fit's scale")
 LIMBUS_FIT_PER_TRUE_IRIS = 0.969
-#: with ``iris_combine="auto"`` the appearance estimate is taken below this iris diameter (px; the clip's, as
-#: :func:`switch_iris_px` reads it: the limbus fit's median) and the limbus fit at or above it. Set on TRUE iris
-#: sizes, applied on the fit's scale: the geometric middle, sqrt(12 x 25) = 17.3 px of the renderer's true iris,
+#: with ``eye_anchor_set="auto"`` a face is small - the eyes placed by skin points below and beside them - below
+#: this iris diameter (px; the clip's, as :func:`switch_iris_px` reads it: the limbus fit's median). Until
+#: 2026-12-05 it was also where ``iris_combine="auto"`` switched from the appearance estimate to the limbus fit;
+#: since then that takes the appearance estimate at every size (re-measured at 25-50 px on area-drawn irises:
+#: docs/notes/gaze-measurement.md, "The appearance estimate on large faces"). Set on TRUE iris sizes, applied on
+#: the fit's scale: the geometric middle, sqrt(12 x 25) = 17.3 px of the renderer's true iris,
 #: of the largest size where the appearance estimate was measured to help (8-12 px: RMS-S2S down 21-55 % on eleven
 #: of twelve dev clips, pitch r up on ten) and the size where it did not (25 px: no better than the limbus fit,
 #: pitch r a little lower on one grid cell), times :data:`LIMBUS_FIT_PER_TRUE_IRIS` (the fit reads below the
@@ -74,7 +77,7 @@ LIMBUS_FIT_PER_TRUE_IRIS = 0.969
 #: with the mesh's diameter, which reads ABOVE the truth (same 24 cells: median 1.048 of it; the 20 dark-iris
 #: cells 0.993-1.065, median 1.050): there the switch errs towards the limbus fit, a known, small inconsistency
 #: (it read the light-iris cells at 0.907 and 0.968 of the truth and the hazel ones at 1.009: no one factor fits).
-AUTO_APPEARANCE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)) * LIMBUS_FIT_PER_TRUE_IRIS, 1)
+SMALL_FACE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)) * LIMBUS_FIT_PER_TRUE_IRIS, 1)
 #: frames whose eye aperture is at least this share of the clip's open-eye level count as open eyes
 OPEN_EYE_REL = 0.8
 #: where the iris's size in pixels (the metric scale) comes from (GazeParams.iris_scale)
@@ -115,13 +118,12 @@ class GazeParams:
         eyeball centre by a third of a millimetre and the gaze by 1-2 deg.
         A centred average has no lag.
     iris_combine : {"auto", "limbus", "rescale", "fuse", "appearance"}
-        ``"auto"`` (default): ``"appearance"`` where the clip's iris
-        diameter (:func:`switch_iris_px`: the limbus fit's median, px) is below
-        :data:`AUTO_APPEARANCE_BELOW_PX` (16.8 px on the fit's scale: 17.3 px of
-        true iris), ``"limbus"`` otherwise,
-        and ``"limbus"`` where the appearance estimate cannot run
-        (``refine_iris`` or ``eye_anchors`` off, too few open-eye frames);
-        run.json says which was used and why (``gaze_model.iris_estimate``).
+        ``"auto"`` (default): ``"appearance"`` at every iris size (since
+        2026-12-05; below 16.8 px of the limbus fit's diameter before), and
+        ``"limbus"`` where the appearance estimate cannot run
+        (``refine_iris`` or ``eye_anchors`` off, too few open-eye frames)
+        or carried no weight; run.json says which was used and why
+        (``gaze_model.iris_estimate``, with the clip's iris size).
         ``"limbus"``: with ``refine_iris``, the limbus fit alone, the mesh
         point only where the fit fails; ``"rescale"``: horizontally the limbus
         fit, vertically the face mesh's steady point rescaled to the limbus
@@ -142,12 +144,11 @@ class GazeParams:
         ``eye_anchors``). On twelve rendered dev clips (8.5-25 px) it cut
         RMS-S2S by 21-55 % on eleven and raised pitch r on ten (within
         0.002 on the other two), but lowered the fixation kappa against
-        hand-coders on five (docs/notes/gaze-measurement.md); at 25 px it
-        was no better than the limbus fit. It keeps both eyes' patches, 768
-        bytes a frame (some 80 MB an hour at 30 fps), until the clip's end;
-        ``"auto"`` keeps them only while the clip's first frames show an
-        iris below the threshold
-        (:data:`aspectus.webcam.pipeline.AUTO_DECIDE_FRAMES`).
+        hand-coders on five (docs/notes/gaze-measurement.md). On area-drawn
+        irises of 25-50 px (16 grid draws at 25 px, four at 36 and 50 px)
+        it cut RMS-S2S on every one (25 px mean 1.34 -> 0.79 deg). It keeps
+        both eyes' patches, 768 bytes a frame (some 80 MB an hour at 30
+        fps), in a temporary file until the clip's end.
     decouple_reference : bool
         Remove the part of the eyeball centres' vertical motion that follows
         the eyes (:func:`decouple_reference`; default True). The face mesh
@@ -175,7 +176,7 @@ class GazeParams:
         ``"auto"`` (default): ``"below_and_beside"`` where the iris is
         small - by the rule ``iris_combine="auto"`` follows (the first
         frames' and the clip's iris diameter, :func:`switch_iris_px`,
-        below :data:`AUTO_APPEARANCE_BELOW_PX`) - and ``"below"``
+        below :data:`SMALL_FACE_BELOW_PX`) - and ``"below"``
         otherwise, so large faces are placed as before; run.json says which
         was used and why (``gaze_model.eye_anchor_set``). Measured with the
         default chain on fourteen held-out small-face clips (8.4-12.1 px,
@@ -484,17 +485,17 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
     GazeChoice(
         "iris_combine", "Iris height from",
         "How the height of the iris centre in the picture is measured; it decides how well up/down gaze is read.",
-        (("auto", "automatic by face size (default)",
-          f"Uses the eye's appearance where the iris is small in the picture (below {AUTO_APPEARANCE_BELOW_PX:g} px "
-          "across, as a classroom webcam sees a face) and the circle fit otherwise. The clip view says which one a "
-          "clip used. Keep this unless a comparison with a lab eye tracker tells you otherwise."),
+        (("auto", "automatic: the eye's appearance (default)",
+          "Uses the eye's appearance, and the circle fit where the appearance cannot be learnt (too few frames with "
+          "open eyes). The clip view says which one a clip used. Keep this unless a comparison with a lab eye "
+          "tracker tells you otherwise."),
          ("limbus", "circle fit to the iris edge",
-          "A circle is fitted to the edge of the iris in every frame. Best when faces are large in the picture "
-          "(close to the camera, good resolution)."),
+          "A circle is fitted to the edge of the iris in every frame. Noisier up and down than the eye's "
+          "appearance at every face size we measured; for comparisons."),
          ("appearance", "the eye's appearance",
-          "The height is predicted from how the whole eye looks, learnt on each clip from the circle fits. "
-          "Steadier for small faces (far from the camera); it keeps small eye pictures (about 80 MB an hour) "
-          "while the clip is processed."),
+          "The height is predicted from how the whole eye looks, learnt on each clip from the circle fits: what "
+          "the automatic setting uses. It keeps small eye pictures (about 80 MB an hour) while the clip is "
+          "processed."),
          ("fuse", "circle fit and face mesh averaged",
           "Averages the circle fit with the face tracker's own iris point: less jitter, but slow drift remains "
           "and can split fixations in two. For comparisons."),
@@ -514,7 +515,7 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
         "eye_anchor_set", "Eyes placed by skin points",
         "Which skin points are followed to place the eyeballs as the head moves.",
         (("auto", "automatic by face size (default)",
-          f"Below and beside each eye where the iris is small in the picture (below {AUTO_APPEARANCE_BELOW_PX:g} px "
+          f"Below and beside each eye where the iris is small in the picture (below {SMALL_FACE_BELOW_PX:g} px "
           "across, as a classroom webcam sees a face), below each eye otherwise; the same size rule as for the "
           "iris height. Keep this unless a comparison with a lab eye tracker tells you otherwise."),
          ("below", "below each eye",
@@ -645,11 +646,19 @@ def describe_iris_estimate(info) -> str | None:
     --------
     >>> describe_iris_estimate({"setting": "limbus", "used": "limbus"})
     'Iris height from: circle fit to the iris edge (as chosen).'
+    >>> describe_iris_estimate({"setting": "auto", "used": "appearance", "iris_px": 24.9,
+    ...                         "iris_px_source": "limbus fit"})
+    "Iris height from: the eye's appearance (chosen automatically)."
+    >>> print(describe_iris_estimate({"setting": "auto", "used": "limbus", "reason": "the appearance regression was "
+    ...                               "not fitted (too few open-eye frames with a limbus fit)"}))
+    Iris height from: circle fit to the iris edge (chosen automatically: the clip has too few frames with open eyes to learn the eye's appearance).
+
+    A run.json written before 2026-12-05 records the size threshold ``"auto"`` then chose by (``threshold_px``):
     >>> print(describe_iris_estimate({"setting": "auto", "used": "appearance", "iris_px": 11.2,
-    ...                               "iris_px_source": "limbus fit"}))
+    ...                               "iris_px_source": "limbus fit", "threshold_px": 16.8}))
     Iris height from: the eye's appearance (chosen automatically: the circle fit measures the iris 11.2 px across, below 16.8 px).
 
-    A run.json written before the choice read the limbus fit's size gives the face mesh's as ``median_iris_px``.
+    One written before the choice read the limbus fit's size gives the face mesh's as ``median_iris_px``.
     """
     if not isinstance(info, dict) or not info.get("used"):
         return None
@@ -671,13 +680,16 @@ def describe_iris_estimate(info) -> str | None:
         obstacle = "the eye's appearance cannot be used with the other gaze settings chosen"
     else:
         obstacle = reason
+    threshold = info.get("threshold_px")  # runs from before 2026-12-05, when "auto" chose by the iris size
+    if threshold is None:
+        return f"Iris height from: {text} (chosen automatically" + (f": {obstacle})." if used != "appearance" else ").")
     if isinstance(px, (int, float)) and not isinstance(px, bool) and np.isfinite(px):
-        small = px < AUTO_APPEARANCE_BELOW_PX
+        small = px < threshold
         # the measure is named: the verdict's "irises about N px across" is the face tracker's, which reads larger
         who = {"limbus fit": "the circle fit measures", "face mesh": "the face tracker measures"}.get(
             info.get("iris_px_source"))
         size = f"{who} the iris {round(px, 1):g} px across" if who else f"the iris is {round(px, 1):g} px across"
-        why = f"{size}, {'below' if small else 'not below'} {AUTO_APPEARANCE_BELOW_PX:g} px"
+        why = f"{size}, {'below' if small else 'not below'} {threshold:g} px"
         if used != "appearance" and small and obstacle:
             why += f", but {obstacle}"
     else:
@@ -1103,7 +1115,7 @@ def switch_iris_px(found: np.ndarray, mesh_diam_px: np.ndarray, limbus_diam_px: 
     read 0.948-0.991 of the renderer's iris diameter, nearer than the mesh's (0.994-1.064) on 20, and the mesh's
     was inflated by the screen's reflection on the corneas and by lids that do not follow the gaze
     (docs/notes/gaze-measurement.md, "The auto switch read on the limbus fit's diameter"). The threshold it is
-    compared with, :data:`AUTO_APPEARANCE_BELOW_PX`, is on the fit's scale; the face mesh's fallback reads above it.
+    compared with, :data:`SMALL_FACE_BELOW_PX`, is on the fit's scale; the face mesh's fallback reads above it.
 
     Returns ``{"iris_px": the figure (NaN if none), "iris_px_source": "limbus fit" or "face mesh",
     "limbus_fits": the open-eye fits counted, "mesh_iris_px": the face mesh's figure}``.

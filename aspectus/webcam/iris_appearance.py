@@ -36,9 +36,10 @@ lids that follow vertical gaze. So:
 Measured on twelve rendered dev clips (bench/bench_iris_appearance.py; docs/notes/gaze-measurement.md): RMS-S2S
 down on eleven (by 21-55 %; +1 % on the twelfth), pitch r up on ten and within 0.002 on two, pitch gain nearer
 one on seven and further on one - but the fixation kappa against the hand-coders down on five (by 0.01-0.13),
-and at 25 px it is no better than the limbus fit. It is what the default ``iris_combine="auto"`` takes below
-a 16.8 px iris on the limbus fit's diameter (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`: 17.3 px of true
-iris on the fit's scale; :func:`aspectus.webcam.gaze.switch_iris_px`), the limbus fit above. Costs
+and at 25 px (point-sampled irises) no better than the limbus fit. Re-measured on area-drawn irises at 25-50 px
+it lowered RMS-S2S on all 20 draws (docs/notes/gaze-measurement.md, "The appearance estimate on large faces"), and
+since 2026-12-05 the default ``iris_combine="auto"`` takes it at every iris size (below 16.8 px of the limbus fit's
+diameter before). Costs
 (``time.process_time``): sampling 0.2-0.35 ms a frame at 640 x 480 (0.8-1.0 ms on 720p crops), the regression
 0.15-0.5 ms a frame on 40-s clips; the patches (768 bytes a frame) wait in a temporary file, read back one
 block at a time.
@@ -76,17 +77,17 @@ GAIN_LIMITS = (0.5, 1.0)
 BLEND_WEIGHTS = tuple(round(0.1 * k, 1) for k in range(11))
 
 
-#: with ``iris_combine="auto"``: whether the eye patches are kept is settled on this many first frames with a
+#: with ``eye_anchor_set="auto"``: whether the face is small is settled first on this many first frames with a
 #: face (5 s at 30 fps): :func:`small_iris`
 DECIDE_FRAMES = 150
 
 
 def small_iris(found: np.ndarray, mesh_diam_px: np.ndarray, limbus_diam_px: np.ndarray | None, ear: np.ndarray,
                below_px: float) -> tuple[bool, dict]:
-    """(the iris is below ``below_px``, the size record) - the one rule by which the per-frame geometry (whether to
-    go on sampling patches, whether the face is small), the pipeline (whether to keep them) and the whole clip's
-    ``"auto"`` choices decide, on the clip's iris size as :func:`aspectus.webcam.gaze.switch_iris_px` reads it
-    (the limbus fit's median over open-eye frames; the face mesh's with fewer than 30 fits)."""
+    """(the iris is below ``below_px``, the size record) - the one rule by which ``eye_anchor_set="auto"`` decides
+    whether the face is small, on the first frames (the per-frame geometry) and on the whole clip (the pipeline),
+    on the clip's iris size as :func:`aspectus.webcam.gaze.switch_iris_px` reads it (the limbus fit's median over
+    open-eye frames; the face mesh's with fewer than 30 fits)."""
     size = switch_iris_px(found, mesh_diam_px, limbus_diam_px, ear)
     return bool(np.isfinite(size["iris_px"]) and size["iris_px"] < below_px), size
 

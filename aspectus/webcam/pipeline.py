@@ -46,11 +46,11 @@ from aspectus.atomic import (full_paths_wanted, recorded_path, sha256_file, sha2
 from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
-from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements, unmirror_record
+from aspectus.webcam.gaze import SMALL_FACE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements, unmirror_record
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
 from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LABEL_DIAM, LABEL_IRIS, LIMBUS_CONTRAST, LIMBUS_DIAM,
                                             RECORD_WIDTH, SMALL_FACE_T_COLUMNS, decision_limbus_diam,
-                                            first_frames_small_iris, frame_item, start_geometry)
+                                            frame_item, start_geometry)
 from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.webcam.limbus import MIN_IRIS_CONTRAST_PCT, fill_iris_reflections
@@ -237,49 +237,22 @@ class _PatchFile:
         self._f.close()
 
 
-#: with ``iris_combine="auto"``: the eye patches are kept only if the first this many frames with a face (5 s at
-#: 30 fps) show an iris below the threshold (:data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX`; the limbus fit's
-#: median diameter over their open-eye frames, :func:`aspectus.webcam.frame_geometry.first_frames_small_iris`);
-#: a large face then stores none (768 bytes a frame, some 80 MB an hour at 30 fps) and samples none past them
+#: with ``eye_anchor_set="auto"``: the face counts as small only if the first this many frames with a face (5 s
+#: at 30 fps) show an iris below :data:`aspectus.webcam.gaze.SMALL_FACE_BELOW_PX` (the limbus fit's median
+#: diameter over their open-eye frames, :func:`aspectus.webcam.frame_geometry.first_frames_small_iris`), and the
+#: whole clip does too
 AUTO_DECIDE_FRAMES = DECIDE_FRAMES
 
 
 class _SplitSink:
-    """Hands the record's columns of a geometry row to one store and its patch bytes to another.
+    """Hands the record's columns of a geometry row to one store and its patch bytes to another."""
 
-    With ``decide_below_px`` (``iris_combine="auto"``) the patches are kept only while the first
-    :data:`AUTO_DECIDE_FRAMES` frames with a face show an iris below it
-    (:func:`aspectus.webcam.frame_geometry.first_frames_small_iris`, the per-frame geometry's own decision on the
-    same rows); otherwise the patches stored so far are dropped and no more are kept (``self.keep`` False).
-    ``first_size``: the decision's size record once made (:func:`aspectus.webcam.gaze.switch_iris_px`).
-    """
-
-    def __init__(self, rec: _Grow, patches: _PatchFile, width: int, decide_below_px: float | None = None):
+    def __init__(self, rec: _Grow, patches: _PatchFile, width: int):
         self.rec, self.patches, self.width = rec, patches, width
-        self.decide_below_px = decide_below_px
-        self.keep = True
-        self.first_size: dict | None = None
-        self._rows: list = []
 
     def __call__(self, row) -> None:
         self.rec.append(row[:self.width])
-        if not self.keep:
-            return
         self.patches.append(np.ascontiguousarray(row[self.width:]).view(np.uint8))
-        if self.decide_below_px is not None and self.first_size is None and row[1] > 0.5:
-            self._rows.append(np.array(row[:self.width], float))
-            if len(self._rows) >= AUTO_DECIDE_FRAMES:
-                self.decide()
-
-    def decide(self) -> None:
-        """Settle whether the patches are kept, from the frames seen so far (also called at the clip's end)."""
-        if self.decide_below_px is None or self.first_size is not None:
-            return
-        small, self.first_size = first_frames_small_iris(np.array(self._rows), self.decide_below_px)
-        self._rows = []
-        if not small:
-            self.keep = False
-            self.patches.clear()
 
 
 def _iris_size_fields(size: dict | None, prefix: str = "") -> dict:
@@ -300,7 +273,7 @@ def _anchor_set_choice(gaze, refine: bool, small_first: bool | None, small_clip:
     ``"auto"`` takes :data:`aspectus.webcam.eye_anchors.AUTO_SMALL_FACE_SET` when both the per-frame geometry's
     first frames (``small_first``: its decision, :func:`aspectus.webcam.frame_geometry.first_frames_small_iris`) and
     the whole clip (``small_clip``, on ``clip_size``: :func:`aspectus.webcam.iris_appearance.small_iris`) show an
-    iris below :data:`aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX` - the rule ``iris_combine="auto"`` follows -
+    iris below :data:`aspectus.webcam.gaze.SMALL_FACE_BELOW_PX`
     and :data:`aspectus.webcam.eye_anchors.DEFAULT_ANCHOR_SET` otherwise.
     """
     setting = gaze.eye_anchor_set
@@ -310,19 +283,19 @@ def _anchor_set_choice(gaze, refine: bool, small_first: bool | None, small_clip:
                                                             "translation is used"}
     if setting != "auto":
         return {"setting": setting, "used": setting}
-    out = {"setting": "auto", "threshold_px": AUTO_APPEARANCE_BELOW_PX, **_iris_size_fields(clip_size),
+    out = {"setting": "auto", "threshold_px": SMALL_FACE_BELOW_PX, **_iris_size_fields(clip_size),
            "first_frames": AUTO_DECIDE_FRAMES}
     px = f"{out['iris_px']} px ({out['iris_px_source']})"
     if not small_first:
         out["used"] = DEFAULT_ANCHOR_SET
-        out["reason"] = (f"the first frames' iris diameter is not below {AUTO_APPEARANCE_BELOW_PX} px"
+        out["reason"] = (f"the first frames' iris diameter is not below {SMALL_FACE_BELOW_PX} px"
                          if small_first is False else "no face frames to decide on")
     elif not small_clip:
         out["used"] = DEFAULT_ANCHOR_SET
-        out["reason"] = f"the clip's iris diameter {px} is not below {AUTO_APPEARANCE_BELOW_PX} px"
+        out["reason"] = f"the clip's iris diameter {px} is not below {SMALL_FACE_BELOW_PX} px"
     else:
         out["used"] = AUTO_SMALL_FACE_SET
-        out["reason"] = f"the clip's iris diameter {px} is below {AUTO_APPEARANCE_BELOW_PX} px"
+        out["reason"] = f"the clip's iris diameter {px} is below {SMALL_FACE_BELOW_PX} px"
     return out
 
 
@@ -483,8 +456,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     patches = None
     if sample_patches:
         patches = _PatchFile(PATCH_BYTES)  # on disk: an hour of them is some 80 MB
-        sink = _SplitSink(rec, patches, RECORD_WIDTH + n_meta,
-                          decide_below_px=AUTO_APPEARANCE_BELOW_PX if combine == "auto" else None)
+        sink = _SplitSink(rec, patches, RECORD_WIDTH + n_meta)
     t0 = time.perf_counter()
     skin = refine and params.gaze.head_rotation == "skin"
     serial = resolve_stages(stages) == "serial"
@@ -510,9 +482,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     geometry = start_geometry(fov_deg=params.fov_deg, refine_iris=refine, sink=sink, frames_hint=n_hint,
                               mode=geometry_mode, eye_anchors=bool(params.gaze.eye_anchors),
                               anchor_set=params.gaze.eye_anchor_set, skin_pose=skin, appearance=sample_patches,
-                              appearance_below_px=AUTO_APPEARANCE_BELOW_PX if combine == "auto" else None,
                               iris_shape=params.gaze.iris_shape == "ellipse",
-                              side_arcs=refine and bool(params.gaze.side_arcs) and combine != "appearance")
+                              side_arcs=refine and bool(params.gaze.side_arcs) and not appearance)
     if geometry.kind == "process":
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
         pin_to_cpus(background, geometry.pid)
@@ -563,7 +534,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     # the clip's iris size for the "auto" settings (the limbus fit's median over open-eye frames; the mesh's with
     # fewer than 30 fits): one rule, iris_appearance.small_iris
     small_clip, clip_size = small_iris(found, a[:, 19:21], decision_limbus_diam(a), a[:, 29:31],
-                                       AUTO_APPEARANCE_BELOW_PX)
+                                       SMALL_FACE_BELOW_PX)
     anchors_choice = _anchor_set_choice(params.gaze, refine, state.get("small_face"), small_clip, clip_size)
     if params.gaze.eye_anchor_set == "auto" and anchors_choice["used"] == AUTO_SMALL_FACE_SET:
         a[:, 12:15] = a[:, SMALL_FACE_T_COLUMNS]  # the small-face set's translation (NaN where no face, as t_mm)
@@ -571,22 +542,9 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     K = np.asarray(state["K"]) if state["K"] is not None else np.eye(3)
     iris = a[:, 15:19].reshape(n, 2, 2)
     app_info = None
-    choice = ({"setting": combine, "threshold_px": AUTO_APPEARANCE_BELOW_PX, **_iris_size_fields(clip_size)}
-              if combine == "auto" else None)
-    clip_px = None if choice is None else f"{choice['iris_px']} px ({choice['iris_px_source']})"
-    if sample_patches and combine == "auto":
-        sink.decide()  # a clip shorter than the deciding frames
-        choice |= _iris_size_fields(sink.first_size, "first_frames_")
-        choice["first_frames"] = AUTO_DECIDE_FRAMES
-        if not sink.keep:
-            appearance = registration = False
-            choice["reason"] = (f"the iris diameter of the first frames {choice['first_frames_iris_px']} px "
-                                f"({choice['first_frames_iris_px_source']}) is not below {AUTO_APPEARANCE_BELOW_PX} px: "
-                                "no eye patches kept")
-        elif not small_clip:
-            appearance = registration = False
-            choice["reason"] = f"the clip's iris diameter {clip_px} is not below {AUTO_APPEARANCE_BELOW_PX} px"
-    elif combine == "auto":
+    # "auto": the appearance estimate wherever it can run (the clip's iris size is recorded, not decided on)
+    choice = {"setting": combine, **_iris_size_fields(clip_size)} if combine == "auto" else None
+    if combine == "auto" and not appearance:
         off = [name for name, on in (("refine_iris", refine), ("eye_anchors", bool(params.gaze.eye_anchors))) if not on]
         choice["reason"] = (f"the appearance estimate needs {' and '.join(off)} (off): the "
                             + ("limbus fit" if refine else "face mesh's iris point") + " is used")
@@ -599,11 +557,10 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         if choice is not None:
             choice["appearance_share"] = app_info["appearance_share"]
             if weightless:
-                choice["reason"] = (f"the clip's iris diameter {clip_px} is below {AUTO_APPEARANCE_BELOW_PX} px, but "
-                                    "the appearance estimate carried no weight (on every eye the limbus fit alone "
+                choice["reason"] = ("the appearance estimate carried no weight (on every eye the limbus fit alone "
                                     "agreed better with the other eye): the limbus fit is used")
             elif fitted:
-                choice["reason"] = f"the clip's iris diameter {clip_px} is below {AUTO_APPEARANCE_BELOW_PX} px"
+                choice["reason"] = "the appearance estimate was fitted on the clip's own eyes"
             else:
                 choice["reason"] = ("the appearance regression was not fitted (too few open-eye frames with a limbus "
                                     f"fit: at least {MIN_TRAIN_FRAMES} per eye are needed): the limbus fit is used")
@@ -625,9 +582,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         iris[~np.isfinite(a[:, LIMBUS_DIAM])] = np.nan
     reg_info = None
     if params.gaze.iris_registration:
-        reg_info = {"applied": False, "reason": "the eye patches were not kept (iris_combine auto: iris not below "
-                                                f"{AUTO_APPEARANCE_BELOW_PX} px)" if refine and params.gaze.eye_anchors
-                    else "needs refine_iris and eye_anchors"}
+        reg_info = {"applied": False, "reason": "needs refine_iris and eye_anchors"}
     try:
         if registration and patches is not None:
             iris, reg_info = _registered_iris(a, patches, found, iris, progress=progress, cancel=cancel,
@@ -997,9 +952,10 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
     if usable_word(s) == "partly":  # usable, but not for fixation measures: the verdict's first word says so
         s["verdict"] = "Partly usable:" + s["verdict"].removeprefix("Usable:")
     s["verdict"] += _trust_sentence(s)
-    if ((meta.get("gaze_model") or {}).get("iris_estimate") or {}).get("used") == "appearance":
-        s["verdict"] += (" The iris height was read from the eyes' own appearance over the whole clip, the method "
-                         "chosen for faces this small in the picture (run.json records why).")
+    est = (meta.get("gaze_model") or {}).get("iris_estimate") or {}
+    if est.get("setting") == "auto" and est.get("used") == "limbus":  # the default's fallback, said in words
+        s["verdict"] += (" The iris height was read from a circle fitted to the iris edge, noisier up and down than "
+                         "the eyes' own appearance, which could not be learnt on this clip (run.json records why).")
     dp = s["decode_problems"]
     if dp.get("stopped_early"):
         s["verdict"] += f" Note: the file is damaged - {dp['stopped_early']}; only the part before that was analysed."

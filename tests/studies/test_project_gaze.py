@@ -61,7 +61,7 @@ def test_invalid_stored_value_falls_back_with_a_message_naming_the_setting(tmp_p
                                                  "head_rotation": "skin", "pupil_colour": "blue"})
     assert settings == {"head_rotation": "skin"}
     assert len(notes) == 3
-    assert "Iris height from" in notes[0] and "'sideways'" in notes[0] and "automatic by face size" in notes[0]
+    assert "Iris height from" in notes[0] and "'sideways'" in notes[0] and "automatic: the eye's appearance" in notes[0]
     assert "The clips show the student" in notes[1] and "'yes'" in notes[1]  # a string is not the boolean
     assert "pupil_colour" in notes[2]
     # a combination GazeParams refuses (the appearance estimate needs the eye anchors) drops the hidden one
@@ -119,22 +119,29 @@ def test_iris_estimate_in_plain_words():
         "Iris height from: circle fit to the iris edge (as chosen)."
     assert describe_iris_estimate({"setting": "limbus", "used": "face mesh"}).startswith(
         "Iris height from: the face tracker's iris point (chosen: circle fit to the iris edge, which could not be used")
+    # a run.json written before 2026-12-05, when "auto" chose by the iris size (its threshold recorded)
     auto_big = describe_iris_estimate({"setting": "auto", "used": "limbus", "iris_px": 24.5,
-                                       "iris_px_source": "limbus fit", "mesh_median_iris_px": 26.1,
+                                       "iris_px_source": "limbus fit", "mesh_median_iris_px": 26.1, "threshold_px": 16.8,
                                        "reason": "the clip's iris diameter 24.5 px (limbus fit) is not below 16.8 px"})
     # the measure is named (the verdict's "irises about N px across" is the face tracker's, which reads larger)
     assert auto_big == ("Iris height from: circle fit to the iris edge (chosen automatically: the circle fit measures "
                         "the iris 24.5 px across, not below 16.8 px).")
-    assert "automatic by face size" not in auto_big and "_" not in auto_big
+    assert "automatic:" not in auto_big and "_" not in auto_big
     # small iris, but the appearance estimate could not be learnt: said without the method's inner words (a run.json
     # written before the choice read the limbus fit's size: the face mesh's as median_iris_px)
     short = describe_iris_estimate({
-        "setting": "auto", "used": "limbus", "median_iris_px": 12.1,
+        "setting": "auto", "used": "limbus", "median_iris_px": 12.1, "threshold_px": 16.8,
         "reason": "the appearance regression was not fitted (too few open-eye frames with a limbus fit: at least "
                   "150 per eye are needed): the limbus fit is used"})
     assert short == ("Iris height from: circle fit to the iris edge (chosen automatically: the iris is 12.1 px "
                      "across, below 16.8 px, but the clip has too few frames with open eyes to learn the eye's "
                      "appearance).")
+    # since then "auto" takes the appearance estimate at every size; where it could not be learnt it says why
+    now = describe_iris_estimate({"setting": "auto", "used": "limbus", "iris_px": 24.5, "iris_px_source": "limbus fit",
+                                  "reason": "the appearance regression was not fitted (too few open-eye frames with a "
+                                            "limbus fit: at least 150 per eye are needed): the limbus fit is used"})
+    assert now == ("Iris height from: circle fit to the iris edge (chosen automatically: the clip has too few frames "
+                   "with open eyes to learn the eye's appearance).")
     assert describe_iris_estimate(None) is None and describe_iris_estimate({}) is None
 
 

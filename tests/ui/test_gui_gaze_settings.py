@@ -60,11 +60,11 @@ def test_gaze_choices_are_plain_and_apart_from_detection(window):
     assert sec.parent() is p.sections["detection"].parent() and sec.y() > p.sections["detection"].y()  # apart
     combo = p._gaze_combos["iris_combine"]
     texts = [combo.itemText(i) for i in range(combo.count())]
-    assert texts[0] == "automatic by face size (default)" and "circle fit to the iris edge" in texts
+    assert texts[0] == "automatic: the eye's appearance (default)" and "circle fit to the iris edge" in texts
     assert p._labels["gaze:iris_combine"].text() == "Iris height from"
     # the chosen option's help is shown under it, and changes with the choice
     help_lab = p._gaze_help["iris_combine"]
-    assert "small" in help_lab.text()
+    assert "too few frames with open eyes" in help_lab.text()
     _choose(window, "iris_combine", "limbus")
     assert "circle is fitted to the edge of the iris" in help_lab.text()
     # at 1366x768 every option's text fits its choice (test_gui_layout checks the shown ones)

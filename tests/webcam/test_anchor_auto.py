@@ -1,6 +1,6 @@
 """The default ``GazeParams(eye_anchor_set="auto")``: the skin points below and beside the eyes on a small face,
 those below the eyes alone on a large one, by the rule ``iris_combine="auto"`` follows (one threshold,
-``aspectus.webcam.gaze.AUTO_APPEARANCE_BELOW_PX``, one rule, ``aspectus.webcam.iris_appearance.small_iris`` on the
+``aspectus.webcam.gaze.SMALL_FACE_BELOW_PX``, one rule, ``aspectus.webcam.iris_appearance.small_iris`` on the
 limbus fit's iris size),
 recorded in run.json.
 
@@ -30,7 +30,7 @@ def test_the_default_is_auto_and_the_setting_is_checked():
 
 def test_the_rule_picks_the_set_by_the_iris_size_of_the_first_frames_and_the_clip():
     from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
-    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX, GazeParams
+    from aspectus.webcam.gaze import SMALL_FACE_BELOW_PX, GazeParams
     from aspectus.webcam.pipeline import _anchor_set_choice
 
     def size(px):
@@ -41,7 +41,7 @@ def test_the_rule_picks_the_set_by_the_iris_size_of_the_first_frames_and_the_cli
     c = _anchor_set_choice(auto, True, True, *small)
     assert c["used"] == AUTO_SMALL_FACE_SET and c["iris_px"] == 11.0 and c["iris_px_source"] == "limbus fit"
     assert c["mesh_median_iris_px"] == 11.8
-    assert c["threshold_px"] == AUTO_APPEARANCE_BELOW_PX and "is below" in c["reason"]
+    assert c["threshold_px"] == SMALL_FACE_BELOW_PX and "is below" in c["reason"]
     c = _anchor_set_choice(auto, True, False, *large)
     assert c["used"] == DEFAULT_ANCHOR_SET and "first frames" in c["reason"]
     # small at first, large over the clip: the clip decides, as for the iris estimate

@@ -321,16 +321,15 @@ def test_appearance_columns_follow_the_record_and_leave_it_unchanged(frames_and_
 
 
 def test_side_arc_fits_and_the_appearance_labels_in_one_run(frames_and_faces):
-    """``side_arcs`` (GazeParams ``side_arcs``, aspectus.webcam.limbus.SIDE_DEG) under ``iris_combine="auto"``:
-    while the first frames are undecided (this clip is shorter than them) each frame is fitted both ways - the
+    """``side_arcs`` (aspectus.webcam.limbus.SIDE_DEG) with ``appearance``: each frame is fitted both ways - the
     record's centres and diameters are those of the rule alone, the label columns those without it, bit for
-    bit, so the appearance estimate learns what it learnt before; every runner gives the same rows."""
+    bit, so the appearance estimate learns from the fits it was measured on; every runner gives the same rows.
+    (The pipeline asks for no side-arc fits where the appearance estimate is to run: it would not read them.)"""
     from aspectus.webcam.frame_geometry import LABEL_DIAM, LABEL_IRIS
-    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX
 
     frs, obs = frames_and_faces
     items = [frame_item(f.pts_s, f.image, o, refine_iris=True) for f, o in zip(frs, obs)]
-    auto = dict(appearance=True, appearance_below_px=AUTO_APPEARANCE_BELOW_PX)
+    auto = dict(appearance=True)
     _, both, _ = _run("thread", items, side_arcs=True, **auto)
     _, both_p, _ = _run("process", items, side_arcs=True, **auto)
     _, both_i, _ = _run("inline", items, side_arcs=True, **auto)

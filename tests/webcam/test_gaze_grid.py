@@ -91,7 +91,7 @@ def test_with_the_true_iris_centres_the_12_px_pitch_floors_are_reached(cells):
 
 
 def test_the_default_takes_the_appearance_estimate_at_classroom_scale(cells):
-    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX
+    from aspectus.webcam.gaze import SMALL_FACE_BELOW_PX
 
     # The default iris_combine="auto" takes the appearance estimate below a 17.3 px true iris (both cells: 12.1 and
     # 8.5 px by the face mesh). Measured, default against the limbus fit alone (the default before), RMS-S2S
@@ -117,7 +117,7 @@ def test_the_default_takes_the_appearance_estimate_at_classroom_scale(cells):
     # pixels): 12 px 1.64 / 0.917 / 0.79 / 0.271 against 4.13 / 0.691 / 0.74 / 0.141; 8.5 px 2.23 / 0.857 /
     # 0.60 / 0.329 against 3.40 / 0.730 / 0.56 / 0.351. The noise ratio at 8.5 px (0.65; 0.40 at 12 px) no
     # longer meets the 0.6 guarded before: guarded at 0.7.
-    # Since the threshold was put on the fit's scale (17.3 x 0.969 = 16.8 px, gaze.AUTO_APPEARANCE_BELOW_PX) the
+    # Since the threshold was put on the fit's scale (17.3 x 0.969 = 16.8 px, gaze.SMALL_FACE_BELOW_PX) the
     # fit's reading is checked against it, the true size against 17.3 px.
     for name in ("12px", "8px"):
         dft, lim = cells[(name, "default")], cells[(name, "limbus")]
@@ -126,7 +126,7 @@ def test_the_default_takes_the_appearance_estimate_at_classroom_scale(cells):
         # dark-iris clips, the face mesh's 0.994-1.064; docs/notes/gaze-measurement.md)
         assert dft["iris_px_measured_from"] == "limbus fit"
         assert 0.93 * dft["iris_px"] <= dft["iris_px_measured"] <= dft["iris_px"] < 17.3  # true size: true-scale
-        assert dft["iris_px_measured"] < AUTO_APPEARANCE_BELOW_PX  # the fit's reading: the fit's scale (16.8 px)
+        assert dft["iris_px_measured"] < SMALL_FACE_BELOW_PX  # the fit's reading: the fit's scale (16.8 px)
         assert dft["iris_px"] - 0.5 <= dft["iris_px_mesh"] <= dft["iris_px"] + 1.5
         assert dft["rms_s2s_deg"] <= 0.7 * lim["rms_s2s_deg"]
         assert dft["pitch_r"] >= lim["pitch_r"] + 0.05

@@ -24,7 +24,7 @@ pytestmark = pytest.mark.slow
 @pytest.fixture(scope="module")
 def cell(lund_dir, tmp_path_factory):
     cond = G.Condition("16px_glasses_mirror", size_px=(1280, 720), distance_mm=800.0, glasses=True, mirror=True,
-                       face="astronaut", trial="UL23_img_Europe", iris_sampling=G.GUARDS_MEASURED_ON)
+                       face="astronaut", trial="UL23_img_Europe")
     rows = G.run_condition(cond, tmp_path_factory.mktemp("glasses"), lund_dir, variants={"default": {}} | G.TRUE_IRIS)
     return {r["variant"]: r for r in rows}
 

@@ -34,12 +34,12 @@ def cells(lund_dir, tmp_path_factory):
 
 
 def test_the_default_chooses_on_the_limbus_fits_size_and_takes_the_appearance_estimate(cells):
-    from aspectus.webcam.gaze import AUTO_APPEARANCE_BELOW_PX
+    from aspectus.webcam.gaze import SMALL_FACE_BELOW_PX
 
     d = cells["default"]
     assert 16.0 <= d["iris_px"] <= 17.0  # the renderer's truth (16.55 px)
     assert d["iris_px_measured_from"] == "limbus fit"
-    assert d["iris_px_measured"] < d["iris_px"] < AUTO_APPEARANCE_BELOW_PX  # the fit read 15.97 px
+    assert d["iris_px_measured"] < d["iris_px"] < SMALL_FACE_BELOW_PX  # the fit read 15.97 px
     assert d["iris_px_mesh"] > d["iris_px"]  # the face mesh read it large (17.35 px)
     assert d["iris_estimate"] == "appearance" and d["eye_anchor_set"] == "below_and_beside"
 

@@ -126,9 +126,13 @@ def test_verdict_notes_repaired_timestamps(processed):
     assert "3 frame(s) had a missing or out-of-order timestamp" in s["verdict"]
     clean = summarise(res.samples, res.analysis, {"decode": {"frames": 90, "pts_missing": 0}})
     assert "timestamp" not in clean["verdict"]
-    # the small-face method is named in words; where run.json keeps the details is no key path to type
-    small = summarise(res.samples, res.analysis, {"gaze_model": {"iris_estimate": {"used": "appearance"}}})
-    assert "read from the eyes' own appearance" in small["verdict"] and "gaze_model" not in small["verdict"]
+    # the default's fallback to the circle fit is named in words; where run.json keeps the details is no key path
+    # to type; the default itself (the eyes' appearance) needs no sentence, nor a fit chosen explicitly
+    fell = summarise(res.samples, res.analysis, {"gaze_model": {"iris_estimate": {"setting": "auto", "used": "limbus"}}})
+    assert "circle fitted to the iris edge" in fell["verdict"] and "gaze_model" not in fell["verdict"]
+    for est in ({"setting": "auto", "used": "appearance"}, {"setting": "limbus", "used": "limbus"}):
+        s = summarise(res.samples, res.analysis, {"gaze_model": {"iris_estimate": est}})
+        assert "iris height" not in s["verdict"], est
 
 
 def test_clip_without_face(tmp_path):
