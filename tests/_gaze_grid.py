@@ -33,12 +33,6 @@ import pandas as pd
 
 import _lund
 
-#: how the renderer drew the iris when the grid tests' guarded levels were measured (tests/webcam/test_gaze_grid.py,
-#: _fps, _reflection, test_skin_region.py): at pixel centres, as before 2026-12-05. Drawn by pixel area (the default
-#: since), a small iris no longer aliases and those figures move, some by more than their guards allow
-#: (docs/notes/gaze-measurement.md, "The renderer's aliased small irises"); their cells keep this sampling until
-#: they are re-measured on area-drawn irises and re-guarded.
-GUARDS_MEASURED_ON = "point"
 #: slow head drift and rotation (the renderer's defaults: yaw +-10, pitch +-4, roll +-2 deg; 15 / 10 / 25 mm)
 HEAD_DRIFT_AND_TURNS: dict = {}
 #: slow head drift in translation, distance and roll only
@@ -216,8 +210,8 @@ def measure(samples: pd.DataFrame, truth: pd.DataFrame, trial) -> dict:
     return out
 
 
-#: gaze settings the grid compares: the default (``iris_combine="auto"``: the appearance estimate below a 16.8 px iris
-#: as the limbus fit reads it, 17.3 px of true iris; the limbus fit above), the limbus fit alone, and the limbus fit
+#: gaze settings the grid compares: the default (``iris_combine="auto"``: the appearance estimate at every iris size since
+#: 2026-12-05; below 16.8 px of the limbus fit's diameter before, the limbus fit above), the limbus fit alone, and the limbus fit
 #: fused with the face mesh's iris point (mapped onto the limbus scale in the head,
 #: :func:`aspectus.webcam.gaze.fuse_iris_centres`); ``"iris_px": "limbus"`` re-estimates on the limbus fit's own
 #: centres (what the pipeline had before the appearance estimate)

@@ -5,14 +5,19 @@ lateral gradient, slow head drift with rotation (yaw +-10, pitch +-4, roll +-2 d
 8 s of hand-coded recordings (Andersson et al. 2017, ../shared/reference/lund2013): iris 12 px (55 cm, trial
 UH21, hopper face) and 8.5 px (78 cm, trial UL23, astronaut face). Figures are defined in tests/_gaze_grid.py.
 
-The rows: ``default`` (``iris_combine="auto"``: the appearance estimate below a 16.8 px iris as the limbus fit
-reads it, 17.3 px of true iris), ``limbus`` (the limbus fit alone, the default before), ``fuse`` and ``true_iris``.
+The rows: ``default`` (``iris_combine="auto"``: the appearance estimate), ``limbus`` (the limbus fit alone, the default
+before), ``fuse`` and ``true_iris``.
 Issue 15's floors at iris >= 12 px: RMS-S2S <= 1.5 deg, yaw and pitch |r| >= 0.95 with gain 0.85-1.15, fixation
 kappa >= 0.5; at 8-9 px: RMS-S2S <= 3 deg and a verdict that says which features are usable.
 Where a floor is not reached yet the test guards the level reached (so it cannot slip back) and says so.
 Every row takes the metric scale from the limbus fit's iris diameter (``iris_scale="limbus"``, the default);
 the figures in brackets "mesh scale" are those with the face mesh's diameter, which reads the iris 6-7 % too
 large on these cells and so every angle, and its noise, as much too small.
+
+The figures in the comments were measured with the iris drawn at pixel centres, as the renderer drew it until
+2026-12-05; since then it draws by pixel area ("The renderer's aliased small irises", docs/notes/gaze-measurement.md)
+and the cells were re-measured so (seed 0; "area:" in the comments) and the guards set at those levels where
+they moved past them.
 """
 from __future__ import annotations
 
@@ -29,8 +34,7 @@ def cells(lund_dir, tmp_path_factory):
     out = {}
     for name, size, dist, trial, face in (("12px", (640, 480), 550.0, "UH21_img_Rome", "hopper"),
                                           ("8px", (640, 480), 780.0, "UL23_img_Europe", "astronaut")):
-        cond = G.Condition(name, size_px=size, distance_mm=dist, trial=trial, face=face,
-                           iris_sampling=G.GUARDS_MEASURED_ON)
+        cond = G.Condition(name, size_px=size, distance_mm=dist, trial=trial, face=face)
         for row in G.run_condition(cond, d, lund_dir, keep_samples=True, variants=G.VARIANTS | G.TRUE_IRIS):
             out[(name, row["variant"])] = row
     return out
@@ -44,14 +48,14 @@ def test_the_cells_have_the_asked_iris_sizes(cells):
 def test_noise_floor_at_12_px_with_the_fused_iris_centre(cells):
     # issue 15 floor RMS-S2S <= 1.5 deg: measured 1.38 with the fused centre (limbus fit alone 3.57; mesh scale
     # 1.37 and 3.22; the fused centre before it was mapped in the head: 1.52-1.62 on other clips, pitch gain
-    # 0.45-0.51)
+    # 0.45-0.51); area: 1.35 (limbus fit alone 3.75)
     assert cells[("12px", "fuse")]["rms_s2s_deg"] <= 1.5
     assert cells[("12px", "limbus")]["rms_s2s_deg"] > 2 * cells[("12px", "fuse")]["rms_s2s_deg"]
 
 
 def test_noise_floor_at_8_px(cells):
     # issue 15 floor RMS-S2S <= 3 deg at 8-9 px: measured 1.23 fused, 4.01 with the limbus fit alone (mesh
-    # scale 1.21 and 3.62)
+    # scale 1.21 and 3.62); area: 1.23 and 3.81
     assert cells[("8px", "fuse")]["rms_s2s_deg"] <= 3.0
 
 
@@ -67,7 +71,7 @@ def test_pitch_and_fixation_agreement_at_12_px_guarded_below_the_floor(cells):
     # NOT reached: issue 15 floors pitch |r| >= 0.95 with gain 0.85-1.15 and kappa >= 0.5. Measured: pitch r
     # 0.630 / 0.899 (limbus / fused), gain 0.68 / 0.67 (mesh scale 0.61 / 0.60), kappa 0.16 / 0.23, while the
     # default detector on the noise-free truth at the same 30 frames a second reaches only 0.63 against the
-    # coders (kappa_truth).
+    # coders (kappa_truth). Area: pitch r 0.672 / 0.879, gain 0.69 / 0.62, kappa 0.133 / 0.369.
     # (Kappa was 0.27 / 0.37 and guarded at 0.3 before the detector's sample-count-aware I-DT threshold and
     # edge trimming of the events rework; the gaze itself did not change.)
     fused = cells[("12px", "fuse")]
@@ -131,18 +135,23 @@ def test_the_default_takes_the_appearance_estimate_at_classroom_scale(cells):
         assert dft["rms_s2s_deg"] <= 0.7 * lim["rms_s2s_deg"]
         assert dft["pitch_r"] >= lim["pitch_r"] + 0.05
         assert dft["pitch_gain"] >= lim["pitch_gain"] - 0.08  # 0.03 before the convention fix (12 px: -0.06)
-        assert dft["kappa"] >= lim["kappa"] - 0.05  # 0.01 before the convention fix (8.5 px: -0.035)
+        # 0.01 before the convention fix (8.5 px: -0.035); area: 8.5 px 0.370 against 0.425 (-0.055)
+        assert dft["kappa"] >= lim["kappa"] - 0.065
         assert abs(dft["yaw_r"] - lim["yaw_r"]) <= 0.005
     # Since the appearance estimate's instrument gain is kept at or below one (aspectus.webcam.iris_appearance,
     # GAIN_LIMITS; it read 1.24 / 1.10 here and shrank the estimate below its labels' motion): 12 px 1.68 / 0.916 /
     # 0.88 / 0.277 (before 1.64 / 0.917 / 0.79 / 0.328); issue 15's pitch gain band (0.85-1.15) now met at 12 px,
     # pitch r (0.95) and RMS-S2S (1.5) still NOT met. The 8.5 px cell is unchanged (its gains were below one).
     # Where the rest is lost: docs/notes/gaze-measurement.md, "Where the vertical gain is lost at 12 px".
+    # Area (seed 0): 12 px 2.13 / 0.854 / 0.83 / 0.217 against the limbus fit's 3.75 / 0.672 / 0.69 / 0.133; the
+    # pitch gain band is NOT met there any more (0.83); 8.5 px 1.74 / 0.464 / 0.22 / 0.370 against 3.81 / 0.399 /
+    # 0.25 / 0.425 - on this draw the head placement itself lost the vertical (with the true iris centres pitch r
+    # 0.477, gain 0.17); on seed 1, 0.883 / 0.96 (true iris 0.902). Guarded at the area levels.
     d12, d8 = cells[("12px", "default")], cells[("8px", "default")]
-    assert d12["rms_s2s_deg"] <= 1.8 and d12["pitch_r"] >= 0.88 and 0.85 <= d12["pitch_gain"] <= 1.15
+    assert d12["rms_s2s_deg"] <= 2.3 and d12["pitch_r"] >= 0.83 and 0.8 <= d12["pitch_gain"] <= 1.15
     # 8.5 px: issue 15's floor (3 deg) met; the reached level is guarded (2.23 with the sub-pixel lid mask, 1.73
-    # with the rounded one: this cell's noise rose while the 12 px cell's pitch r, gain and kappa rose)
-    assert d8["rms_s2s_deg"] <= 3.0 and d8["rms_s2s_deg"] <= 2.4 and d8["pitch_r"] >= 0.78
+    # with the rounded one: this cell's noise rose while the 12 px cell's pitch r, gain and kappa rose; area 1.74)
+    assert d8["rms_s2s_deg"] <= 3.0 and d8["rms_s2s_deg"] <= 2.4 and d8["pitch_r"] >= 0.4
 
 
 def test_verdict_at_8_px_says_which_features_are_usable(cells):
@@ -163,8 +172,7 @@ def test_verdict_at_8_px_says_which_features_are_usable(cells):
 def below(lund_dir, tmp_path_factory):
     """The 8.5 px cell again, the head translation refitted to the anchors below the eyes alone (the set the
     default used on every face before ``eye_anchor_set="auto"``)."""
-    cond = G.Condition("8px_below", size_px=(640, 480), distance_mm=780.0, trial="UL23_img_Europe", face="astronaut",
-                       iris_sampling=G.GUARDS_MEASURED_ON)
+    cond = G.Condition("8px_below", size_px=(640, 480), distance_mm=780.0, trial="UL23_img_Europe", face="astronaut")
     rows = G.run_condition(cond, tmp_path_factory.mktemp("below"), lund_dir, variants={"limbus": G.VARIANTS["limbus"]} | G.TRUE_IRIS,
                            pipeline_gaze={"eye_anchor_set": "below"})
     return {r["variant"]: r for r in rows}
@@ -179,9 +187,13 @@ def test_anchors_beside_the_eyes_place_the_head_better_at_8_px(cells, below):
     # gain 0.26 -> 0.49, yaw r 0.845 -> 0.936; with the limbus fit: pitch r 0.551 -> 0.739, gain 0.36 -> 0.60
     # (mesh scale: gains 0.24 -> 0.44 and 0.33 -> 0.54). Issue 15's floors (pitch |r| >= 0.95, gain 0.85-1.15) are
     # still NOT met here.
+    # Area (the renderer's default since 2026-12-05), true iris centres, below -> below and beside: seed 0 yaw r
+    # 0.815 -> 0.883, pitch r 0.731 -> 0.477 (gain 0.46 -> 0.17); seed 1 yaw r 0.871 -> 0.904, pitch r 0.903 ->
+    # 0.902. Over seeds 0-3 with the default chain the beside anchors read the better yaw and the lower RMS-S2S on
+    # all four draws and the better pitch on two (docs/notes/gaze-measurement.md, "The renderer's aliased small
+    # irises"): this draw is the one where they cost pitch, so only the yaw is guarded here.
     assert cells[("8px", "default")]["eye_anchor_set"] == "below_and_beside"
     assert below["limbus"]["eye_anchor_set"] is None  # the variants' rows name none (the default's row does)
     old, new = below["true_iris"], cells[("8px", "true_iris")]
-    assert new["pitch_r"] >= 0.88 and new["pitch_r"] > old["pitch_r"] + 0.1
-    assert new["pitch_gain"] >= 0.38 and new["yaw_r"] >= 0.9
-    assert cells[("8px", "limbus")]["pitch_r"] > below["limbus"]["pitch_r"] + 0.1
+    assert new["yaw_r"] >= 0.86 and new["yaw_r"] > old["yaw_r"] + 0.04
+    assert cells[("8px", "limbus")]["yaw_r"] > below["limbus"]["yaw_r"] + 0.04

@@ -178,7 +178,7 @@ def placements(lund_dir, tmp_path_factory):
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
     cond = G.Condition("placement", size_px=(640, 480), distance_mm=780.0, trial="UL43_img_Rome", face="astronaut",
-                       seed=22, duration_s=4.0, iris_sampling=G.GUARDS_MEASURED_ON)
+                       seed=22, duration_s=4.0)
     res, _ = G.render_condition(cond, tmp_path_factory.mktemp("placement"), lund_dir)
     tru = res.truth[["head_x_mm", "head_y_mm", "head_z_mm"]].to_numpy()
     out = {"iris_px": float(res.truth["iris_diameter_px"].median())}
@@ -198,29 +198,33 @@ def placements(lund_dir, tmp_path_factory):
 
 @pytest.mark.slow
 def test_the_head_placement_at_classroom_scale_against_the_renderer(placements):
-    # guards at the levels reached on this clip (SD sideways / vertical, mm): the default small-face set
-    # (below_and_beside) 0.36 / 0.37; the face mesh's PnP translation 0.17 / 0.39 - on the astronaut face at 8.5 px
-    # the mesh errs less sideways, as on the clips of bench/bench_head_translation.py (docs/notes/gaze-measurement.md)
+    # guards at the levels reached on this clip (SD sideways / vertical, mm), iris drawn by pixel area (the
+    # renderer's default since 2026-12-05): the default small-face set (below_and_beside) 0.60 / 0.17; the face
+    # mesh's PnP translation 0.10 / 0.35 - on the astronaut face at 8.5 px the mesh errs less sideways, as on the
+    # clips of bench/bench_head_translation.py (docs/notes/gaze-measurement.md). On point-sampled irises 0.36 / 0.37
+    # and 0.17 / 0.39: the same picture change reshuffles the error draw by draw, with no direction over three
+    # draws (notes, "The renderer's aliased small irises")
     p = placements
     assert 8.0 <= p["iris_px"] <= 9.0
     assert p["auto_used"] == "below_and_beside"
-    assert p["auto"][0] <= 0.45 and p["auto"][1] <= 0.45
-    assert p["mesh"][1] <= 0.5
+    assert p["auto"][0] <= 0.7 and p["auto"][1] <= 0.3
+    assert p["mesh"][0] <= 0.2 and p["mesh"][1] <= 0.45
 
 
 @pytest.mark.slow
 def test_the_sets_measured_against_the_default_small_face_set_stay_at_their_levels(placements):
     # neither won on a clear majority of held-out clips (docs/notes/gaze-measurement.md); guarded at the levels
-    # reached here (SD sideways / vertical, mm): below_low_cheeks_and_beside 0.34 / 0.32, skin_region 0.40 / 0.29
-    # (the default set 0.36 / 0.37)
+    # reached here (SD sideways / vertical, mm), iris drawn by pixel area: below_low_cheeks_and_beside 0.64 / 0.23,
+    # skin_region 0.42 / 0.43 (the default set 0.60 / 0.17); on point-sampled irises 0.34 / 0.32 and 0.40 / 0.29
+    # (0.36 / 0.37)
     p = placements
     assert p["below_low_cheeks_and_beside_used"] == "below_low_cheeks_and_beside"
     assert p["skin_region_used"] == "skin_region"
     # run.json says how often the region was registered (the other sets have no region)
     assert p["skin_region_region_frac"] >= 0.8, p["skin_region_region_frac"]
     assert p["below_low_cheeks_and_beside_region_frac"] is None and p["auto_region_frac"] is None
-    assert p["below_low_cheeks_and_beside"][0] <= 0.42 and p["below_low_cheeks_and_beside"][1] <= 0.40
-    assert p["skin_region"][0] <= 0.5 and p["skin_region"][1] <= 0.36
+    assert p["below_low_cheeks_and_beside"][0] <= 0.75 and p["below_low_cheeks_and_beside"][1] <= 0.35
+    assert p["skin_region"][0] <= 0.5 and p["skin_region"][1] <= 0.5
 
 
 def test_the_eye_crop_covers_the_points_of_the_chosen_set_and_no_more_for_the_others():
