@@ -72,9 +72,9 @@ APPEARANCE_WIDTH = sum(n for _, n in APPEARANCE_COLUMNS)
 
 def decision_limbus_diam(rows: np.ndarray) -> np.ndarray:
     """Both eyes' limbus-fit diameters (M, 2) of record rows (M, >= RECORD_WIDTH), as the ``"auto"`` settings' iris
-    size reads them: :data:`LIMBUS_DIAM`, or where a row holds the appearance estimate's label fits (with
-    ``side_arcs``, while the first frames are undecided and on small faces after them) theirs - the fits without
-    the side-arc rule, on which the size rule was measured."""
+    size reads them: :data:`LIMBUS_DIAM`, or where a row holds the appearance estimate's label fits (``side_arcs``
+    with the appearance columns: both fits made) theirs - the fits without the side-arc rule, on which the size rule
+    was measured."""
     rows = np.asarray(rows, float)
     d = np.array(rows[:, LIMBUS_DIAM], float)
     w = RECORD_WIDTH
@@ -87,8 +87,7 @@ def decision_limbus_diam(rows: np.ndarray) -> np.ndarray:
 def first_frames_small_iris(rows: np.ndarray, below_px: float) -> tuple[bool, dict]:
     """:func:`aspectus.webcam.iris_appearance.small_iris` on the record rows (M, >= RECORD_WIDTH) of the first frames
     with a face: their face-mesh and limbus-fit iris diameters (:func:`decision_limbus_diam`) and eye aspect ratios.
-    The one first-frames decision of the ``"auto"`` settings, in the per-frame geometry and in the pipeline's
-    keeping of the eye patches."""
+    ``eye_anchor_set="auto"``'s first-frames decision in the per-frame geometry (whether the face is small)."""
     rows = np.asarray(rows, float)
     if rows.ndim != 2:  # no rows
         rows = rows.reshape(-1, RECORD_WIDTH)
