@@ -174,9 +174,9 @@ class GazeParams:
     eye_anchor_set : {"auto", "below", "below_and_beside", "below_and_facing_beside", "below_low_cheeks_and_beside", "skin_region"}
         Which skin points the anchors follow (:data:`aspectus.webcam.eye_anchors.ANCHOR_SETS`).
         ``"auto"`` (default): ``"below_and_beside"`` where the iris is
-        small - by the rule ``iris_combine="auto"`` follows (the first
-        frames' and the clip's iris diameter, :func:`switch_iris_px`,
-        below :data:`SMALL_FACE_BELOW_PX`) - and ``"below"``
+        small - the first frames' and the clip's iris diameter,
+        :func:`switch_iris_px`, below :data:`SMALL_FACE_BELOW_PX` (the
+        rule ``iris_combine="auto"`` followed too until 2026-12-05) - and ``"below"``
         otherwise, so large faces are placed as before; run.json says which
         was used and why (``gaze_model.eye_anchor_set``). Measured with the
         default chain on fourteen held-out small-face clips (8.4-12.1 px,
@@ -516,8 +516,8 @@ GAZE_CHOICES: tuple[GazeChoice, ...] = (
         "Which skin points are followed to place the eyeballs as the head moves.",
         (("auto", "automatic by face size (default)",
           f"Below and beside each eye where the iris is small in the picture (below {SMALL_FACE_BELOW_PX:g} px "
-          "across, as a classroom webcam sees a face), below each eye otherwise; the same size rule as for the "
-          "iris height. Keep this unless a comparison with a lab eye tracker tells you otherwise."),
+          "across, as a classroom webcam sees a face), below each eye otherwise. Keep this unless a comparison "
+          "with a lab eye tracker tells you otherwise."),
          ("below", "below each eye",
           "Three points below each eye. Best for faces that are large in the picture."),
          ("below_and_beside", "below and beside each eye",
