@@ -225,13 +225,6 @@ class _PatchFile:
         W, H = PATCH_SIZE
         return out.reshape(-1, 2, H, W)
 
-    def clear(self) -> None:
-        """Drop every row kept (the file is emptied; appending starts again at row 0)."""
-        self._buf = []
-        self._f.seek(0)
-        self._f.truncate()
-        self.n = 0
-
     def close(self) -> None:
         self._buf = []
         self._f.close()

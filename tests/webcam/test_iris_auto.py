@@ -53,8 +53,6 @@ def test_patch_file_gives_back_the_rows_in_blocks(tmp_path):
     assert len(f) == 2500
     assert np.array_equal(f[1000:2100], rows[1000:2100].reshape(-1, 2, H, W))
     assert np.array_equal(f[2400:2500], rows[2400:].reshape(-1, 2, H, W))  # rows still in the write buffer
-    f.clear()
-    assert len(f) == 0 and f[0:10].shape == (0, 2, H, W)
     f.close()
 
 
