@@ -322,6 +322,10 @@ TARGET_QUALITY_COLUMNS: tuple[Column, ...] = (
            label="Target check gain, yaw"),
     Column("target_gain_pitch", "float64", "deg/deg", "fitted measured pitch per degree of target y",
            label="Target check gain, pitch"),
+    *(Column(f"target_gain_{axis}_ci_{end}", "float64", "deg/deg", f"{which} end of the {axis} gain's 95 % "
+             "confidence interval (least-squares slope, t distribution with n - 2 degrees of freedom)",
+             label=f"Target check gain, {axis}, 95 % interval {which}")
+      for axis in ("yaw", "pitch") for end, which in (("low", "lower"), ("high", "upper"))),
     Column("target_accuracy_offset_deg", "float64", "deg", "mean angle between each still dot and the median gaze "
            "on it after the offset-only fit", label="Accuracy after offset"),
     Column("target_accuracy_offset_gain_deg", "float64", "deg", "the same after the offset+gain fit",

@@ -167,11 +167,12 @@ def brighten_flash(path, *, onset_s: float, duration_s: float, gain: float = FLA
 
 def render_target_clip(path, schedule, *, lead_in_s: float = 2.0, tail_s: float = 1.0, offset_deg=(2.0, -6.0),
                        gain=(1.0, 1.0), latency_s: float = 0.2, drift_sd_deg: float = 0.05, head_motion=False,
-                       seed: int = 0, **render_kwargs):
+                       head_distance_mm: float | None = None, seed: int = 0, **render_kwargs):
     """Render a clip whose eyes follow ``schedule`` and whose picture brightens during the flash.
 
     ``render_kwargs`` go to :func:`aspectus.synth.render.render_clip` (``size_px``, ``fps``, ``face``,
-    ``noise_sd``, ``darkness``, ...). Writes ``<stem>_targets.json`` (the sequence's truth) beside the
+    ``noise_sd``, ``darkness``, ...); the other arguments to :func:`schedule_trajectory` (``head_distance_mm``:
+    the face's distance from the camera, which sets the iris's size in the picture). Writes ``<stem>_targets.json`` (the sequence's truth) beside the
     clip's other truth files and returns ``(RenderResult, truth dict)``.
     """
     from aspectus.atomic import sha256_file, write_json
@@ -180,7 +181,8 @@ def render_target_clip(path, schedule, *, lead_in_s: float = 2.0, tail_s: float 
     if render_kwargs.get("rotation_deg"):
         raise ParameterError("render_target_clip writes upright clips only (no rotation_deg)")
     traj = schedule_trajectory(schedule, lead_in_s=lead_in_s, tail_s=tail_s, offset_deg=offset_deg, gain=gain,
-                               latency_s=latency_s, drift_sd_deg=drift_sd_deg, head_motion=head_motion, seed=seed)
+                               latency_s=latency_s, drift_sd_deg=drift_sd_deg, head_motion=head_motion,
+                               head_distance_mm=head_distance_mm, seed=seed)
     res = render_clip(path, traj, seed=seed, **render_kwargs)
     flash = brighten_flash(res.path, onset_s=lead_in_s, duration_s=schedule.flash_s)
     truth = dict(traj.params["target_sequence"], **flash, clip=Path(path).name,

@@ -273,7 +273,9 @@ def angle_between_deg(x1_deg, y1_deg, x2_deg, y2_deg):
 class Mapping:
     """Per-person mapping from measured gaze angles to screen degrees, per axis: ``gaze = offset + gain * target``.
 
-    ``offset_only_*`` is the offset-only fit (gain 1).
+    ``offset_only_*`` is the offset-only fit (gain 1). ``gain_*_ci_low`` / ``gain_*_ci_high``: the gain's 95 %
+    confidence interval from the fit's own scatter (:func:`gain_ci95`); with the 5-10 dots of a sequence it is
+    often wide, and a gain outside the plausible range is only clear evidence when the interval is too.
     """
 
     offset_yaw_deg: float
@@ -285,6 +287,10 @@ class Mapping:
     r_yaw: float
     r_pitch: float
     n_targets: int
+    gain_yaw_ci_low: float = float("nan")
+    gain_yaw_ci_high: float = float("nan")
+    gain_pitch_ci_low: float = float("nan")
+    gain_pitch_ci_high: float = float("nan")
 
     @property
     def usable(self) -> bool:
@@ -313,9 +319,33 @@ def fit_mapping(target_x_deg, target_y_deg, gaze_yaw_deg, gaze_pitch_deg) -> Map
                        float(np.mean(gy - ty)) if n else nan, nan, nan, n)
     bx, ax = np.polyfit(tx, gx, 1)
     by, ay = np.polyfit(ty, gy, 1)
+    (xl, xh), (yl, yh) = gain_ci95(tx, gx), gain_ci95(ty, gy)
     return Mapping(offset_yaw_deg=float(ax), offset_pitch_deg=float(ay), gain_yaw=float(bx), gain_pitch=float(by),
                    offset_only_yaw_deg=float(np.mean(gx - tx)), offset_only_pitch_deg=float(np.mean(gy - ty)),
-                   r_yaw=_pearson(gx, tx), r_pitch=_pearson(gy, ty), n_targets=n)
+                   r_yaw=_pearson(gx, tx), r_pitch=_pearson(gy, ty), n_targets=n, gain_yaw_ci_low=xl,
+                   gain_yaw_ci_high=xh, gain_pitch_ci_low=yl, gain_pitch_ci_high=yh)
+
+
+def gain_ci95(target_deg, gaze_deg) -> tuple[float, float]:
+    """95 % confidence interval of the least-squares slope of ``gaze_deg`` on ``target_deg``.
+
+    The textbook interval for a simple linear regression's slope: b +- t(0.975, n - 2) * s / sqrt(Sxx), with
+    s^2 the residuals' sum of squares over n - 2 (any regression text; e.g. NIST/SEMATECH e-Handbook of
+    Statistical Methods, section 4.2.3). It assumes independent errors of equal size per dot; the dots' errors
+    are partly systematic per gaze direction (docs/notes/target-check.md), which this interval counts as
+    scatter. ``(nan, nan)`` below 3 dots or without spread in the targets.
+    """
+    from scipy.stats import t as student_t
+
+    x, y = np.asarray(target_deg, float), np.asarray(gaze_deg, float)
+    n = len(x)
+    sxx = float(np.sum((x - x.mean()) ** 2)) if n else 0.0
+    if n < 3 or sxx <= 0:
+        return float("nan"), float("nan")
+    b, a = np.polyfit(x, y, 1)
+    s = float(np.sqrt(np.sum((y - a - b * x) ** 2) / (n - 2)))
+    half = float(student_t.ppf(0.975, n - 2)) * s / np.sqrt(sxx)
+    return float(b - half), float(b + half)
 
 
 def precision_admits(ok: np.ndarray, min_samples: int) -> bool:
@@ -570,7 +600,12 @@ def check_samples(samples: pd.DataFrame, schedule: Schedule, *, start_s: float, 
             why = "the picture may be mirrored" if g < 0 else (
                 "the measured angle changes less than the dots' angle" if g < lo else
                 "the measured angle changes more than the dots' angle")
-            flags.append(f"{axis} gain {g:.2f} is outside {lo:g}-{hi:g}: {why}, or the student did not follow "
+            ci = (getattr(m, f"gain_{axis}_ci_low"), getattr(m, f"gain_{axis}_ci_high"))
+            sure = ("" if not all(np.isfinite(ci)) else
+                    f" (95 % interval {ci[0]:.2f} to {ci[1]:.2f}, outside the range too)" if ci[1] < lo or ci[0] > hi else
+                    f" (95 % interval {ci[0]:.2f} to {ci[1]:.2f}, which reaches into the range: the dots scatter "
+                    "too much to be sure)")
+            flags.append(f"{axis} gain {g:.2f} is outside {lo:g}-{hi:g}{sure}: {why}, or the student did not follow "
                          "the dots; angles of this clip are scaled by it")
     summary["gain_in_range"] = bool(all(np.isfinite(g) and lo <= g <= hi for g in (m.gain_yaw, m.gain_pitch)))
     if np.isfinite(summary["loss_frac"]) and summary["loss_frac"] > 0.25:

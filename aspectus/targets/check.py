@@ -200,6 +200,12 @@ def _of(n, total) -> str:
     return f"{'n/a' if n is None else int(n)} of {total}"
 
 
+def _ci(mapping: dict, axis: str, f) -> str:
+    """' (95 % interval lo-hi)' of one axis's gain, or '' for a check written before the interval was kept."""
+    lo, hi = mapping.get(f"gain_{axis}_ci_low"), mapping.get(f"gain_{axis}_ci_high")
+    return "" if f(lo) == "n/a" or f(hi) == "n/a" else f" (95 % interval {f(lo)} to {f(hi)})"
+
+
 def summary_lines(doc: dict) -> list[str]:
     """A few plain lines of a check's figures (for the terminal and the app's clip view)."""
     s, m, a = doc.get("summary", {}), doc.get("mapping", {}), doc.get("alignment", {})
@@ -216,7 +222,8 @@ def summary_lines(doc: dict) -> list[str]:
         f"sequence starts at {f(s.get('start_s'), '{:.3f}')} s{f' ({how})' if how else ''}; "
         f"{s.get('n_targets_used', 0)} of {s.get('n_fixation_targets', 0)} still dots usable",
         f"offset yaw {f(m.get('offset_yaw_deg'), '{:+.2f}')} deg, pitch {f(m.get('offset_pitch_deg'), '{:+.2f}')} deg "
-        f"(the constant error); gain yaw {f(m.get('gain_yaw'))}, pitch {f(m.get('gain_pitch'))} (1: the true scale)",
+        f"(the constant error); gain yaw {f(m.get('gain_yaw'))}{_ci(m, 'yaw', f)}, pitch {f(m.get('gain_pitch'))}"
+        f"{_ci(m, 'pitch', f)} (1: the true scale)",
         f"accuracy (mean angle between dot and gaze) {f(s.get('accuracy_offset_deg'))} deg after offset, "
         f"{f(s.get('accuracy_offset_gain_deg'))} deg after offset+gain ({f(s.get('accuracy_offset_gain_loo_deg'))} "
         f"with each dot left out of its own fit; noise alone would give {f(s.get('accuracy_noise_floor_deg'))} deg)",

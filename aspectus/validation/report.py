@@ -792,6 +792,9 @@ def compact_target_quality(per: pd.DataFrame) -> pd.DataFrame:
         row = {"Pair": who}
         for c in cols:
             row[human_label(c)] = _fmt(g(c), 1 if c.endswith("_frac") else 2) if has else ""
+            lo, hi = (g(f"{c}_ci_{end}") for end in ("low", "high"))
+            if has and c.startswith("target_gain_") and _fmt(lo) != "n/a" and _fmt(hi) != "n/a":
+                row[human_label(c)] += f" ({_fmt(lo)} to {_fmt(hi)})"
         ex = g("target_excluded")
         row["Excluded"] = ("yes: " + str(g("target_exclusion_reasons")) if ex else "no") if has else "no check"
         rows.append(row)

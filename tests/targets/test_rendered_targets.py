@@ -215,15 +215,18 @@ def test_cross_correlation_finds_the_start_without_the_flash(good_clip):
 
 def test_wrong_gain_is_reported(tmp_path, capsys):
     """Eyes that move only 0.6 times as far as the dots (a scaled measurement, or a student not following),
-    in classroom light: a slow +-15 % drift of the light level and a window on the left (the renderer's
-    lighting_drift and lighting_gradient); the flash is still found on its first frame."""
+    in the renderer's classroom conditions: 640x480 at 550 mm (iris 12 px), H.264 CRF 28, lids following the
+    eyes, a slow +-15 % drift of the light level and a window on the left (lighting_drift, lighting_gradient),
+    the head drifting and turning; the flash is still found on its first frame. Measured on four draws of these
+    conditions (schedule seeds 5-8, render seeds 3-6): gains yaw 0.53-0.68, pitch 0.28-0.49, all flagged, start
+    on the first flashed frame every time (bench/bench_target_check.py's k12 rows: 0.51 / 0.47 with 9 dots)."""
     from aspectus.cli import main
 
     sched = make_schedule(SCREEN, seed=5, fixation_s=1.2, n_fixations=5, pursuit_sweeps=0)
     sched.write(tmp_path / "schedule.json")
     render_target_clip(tmp_path / "wrong_gain.mp4", sched, lead_in_s=1.0, tail_s=0.5, gain=(0.6, 0.6),
-                       offset_deg=(2.0, -2.0), size_px=(640, 480), fov_deg=45.0, seed=3,
-                       lighting_drift=0.15, lighting_gradient=0.4)
+                       offset_deg=(2.0, -2.0), size_px=(640, 480), fov_deg=60.0, seed=3, crf=28, head_motion=True,
+                       head_distance_mm=550.0, lighting_drift=0.15, lighting_gradient=0.4)
     rc = main(["targets", "check", str(tmp_path / "wrong_gain.mp4"), "--schedule", str(tmp_path / "schedule.json"),
                "-o", str(tmp_path / "out"), "--quiet"])
     assert rc == 0
@@ -234,8 +237,8 @@ def test_wrong_gain_is_reported(tmp_path, capsys):
     assert doc["alignment"]["method"] == "flash"
     assert abs(doc["alignment"]["frame_index"] - truth["flash_first_frame"]) <= 1
     assert doc["summary"]["gain_in_range"] is False
-    assert doc["mapping"]["gain_yaw"] < 0.7 and doc["mapping"]["gain_pitch"] < 0.75
-    assert "yaw gain" in out and "outside 0.8-1.25" in out
+    assert doc["mapping"]["gain_yaw"] < 0.8 and doc["mapping"]["gain_pitch"] < 0.8
+    assert "yaw gain" in out and "pitch gain" in out and "outside 0.8-1.25" in out and "95 % interval" in out
 
 
 def test_a_clip_without_the_whole_sequence_names_the_clip_and_the_options(tmp_path, capsys):

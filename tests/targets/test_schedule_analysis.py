@@ -109,6 +109,71 @@ def test_offset_and_gain_are_recovered_and_a_wrong_gain_is_flagged():
     assert any("mirrored" in f for f in mirrored.flags)
 
 
+def test_gain_interval_is_the_textbook_slope_interval():
+    """The gain's 95 % interval against scipy.stats.linregress (its slope and standard error; the half-width is
+    t(0.975, n - 2) times the standard error, the textbook interval for a regression slope), and its coverage:
+    over 4000 simulated sequences of 9 dots with independent Gaussian errors it holds the true gain in 95 % of
+    them (binomial SD 0.34 points, so 93.5-96.5 % is a 4.4 SD band)."""
+    from scipy import stats
+
+    from aspectus.targets.analysis import fit_mapping, gain_ci95
+
+    rng = np.random.default_rng(7)
+    x = np.array([-12.0, -6.0, 0.0, 6.0, 12.0, -12.0, 0.0, 12.0, 3.0])
+    y = np.array([-8.0, -8.0, -8.0, 0.0, 0.0, 8.0, 8.0, 8.0, -2.0])
+    gx = 1.5 + 0.9 * x + rng.normal(0, 0.8, len(x))
+    gy = -3.0 + 1.2 * y + rng.normal(0, 0.8, len(y))
+    m = fit_mapping(x, y, gx, gy)
+    for tgt, g, gain, lo, hi in ((x, gx, m.gain_yaw, m.gain_yaw_ci_low, m.gain_yaw_ci_high),
+                                 (y, gy, m.gain_pitch, m.gain_pitch_ci_low, m.gain_pitch_ci_high)):
+        ref = stats.linregress(tgt, g)
+        half = stats.t.ppf(0.975, len(tgt) - 2) * ref.stderr
+        assert gain == pytest.approx(ref.slope, rel=1e-9)
+        assert (lo, hi) == pytest.approx((ref.slope - half, ref.slope + half), rel=1e-9)
+    covered = 0
+    for _ in range(4000):
+        g = 0.8 * x + rng.normal(0, 1.0, len(x))
+        lo, hi = gain_ci95(x, g)
+        covered += lo <= 0.8 <= hi
+    assert 0.935 <= covered / 4000 <= 0.965
+    # too few dots, or no spread: no interval rather than a number
+    assert all(math.isnan(v) for v in gain_ci95([1.0, 2.0], [1.0, 2.0]) + gain_ci95([3.0] * 5, [1, 2, 3, 4, 5]))
+    # exact data: the interval closes on the gain
+    lo, hi = gain_ci95(x, 0.6 * x + 2)
+    assert lo == pytest.approx(0.6) and hi == pytest.approx(0.6)
+
+
+def test_a_wrong_gain_flag_says_whether_the_interval_is_clear_of_the_range():
+    """A gain outside 0.8-1.25 is flagged either way; the note says whether the dots' scatter leaves room for a
+    plausible gain (the interval reaches into the range) or not."""
+    sched = _sched(n_fixations=5, pursuit_sweeps=0)
+    clear = check_samples(_samples(sched, gain=(0.6, 0.6), noise_deg=0.05), sched, start_s=2.0)
+    assert not clear.summary["gain_in_range"]
+    assert clear.mapping.gain_yaw_ci_high < 0.8
+    assert any(f.startswith("yaw gain 0.6") and "outside the range too" in f for f in clear.flags)
+    # the same eyes, with each dot's median off by a few degrees: the gain is still below 0.8, the interval is not
+    rng = np.random.default_rng(3)
+    s = _samples(sched, gain=(0.6, 0.6), noise_deg=0.05)
+    ts = s["t_s"].to_numpy() - 2.0
+    for r in sched.fixations.itertuples(index=False):
+        w = (ts >= r.onset_s) & (ts < r.offset_s)
+        s.loc[w, "yaw_deg"] += rng.normal(0, 2.5)
+    loose = check_samples(s, sched, start_s=2.0)
+    m = loose.mapping
+    assert m.gain_yaw < 0.8 <= m.gain_yaw_ci_high, (m.gain_yaw, m.gain_yaw_ci_low, m.gain_yaw_ci_high)
+    assert any(f.startswith("yaw gain") and "too much to be sure" in f for f in loose.flags)
+    # the terminal's lines give the interval; a check written before the interval was kept reads without it
+    from aspectus.targets.check import summary_lines
+
+    doc = json.loads(json.dumps(loose.to_dict()))
+    line = next(x for x in summary_lines(doc) if x.startswith("offset"))
+    assert f"gain yaw {m.gain_yaw:.2f} (95 % interval {m.gain_yaw_ci_low:.2f} to {m.gain_yaw_ci_high:.2f})" in line
+    for k in [k for k in doc["mapping"] if "_ci_" in k]:
+        del doc["mapping"][k]
+    line = next(x for x in summary_lines(doc) if x.startswith("offset"))
+    assert "interval" not in line and f"gain yaw {m.gain_yaw:.2f}, pitch" in line
+
+
 def test_precision_on_white_noise():
     """White noise of SD s per axis: SD precision sqrt(2) s, RMS-S2S 2 s (successive differences of independent
     samples have variance 2 s^2 per axis), so RMS-S2S / SD = sqrt(2) - the ratio Holmqvist et al. (2012) name

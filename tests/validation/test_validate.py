@@ -316,10 +316,13 @@ def test_study_report_carries_the_known_target_check(session, tmp_path):
     per = pd.read_csv(root / "study" / "participants.csv").set_index("participant")
     assert np.isnan(per.loc["p01", "target_accuracy_offset_gain_deg"]) and pd.isna(per.loc["p01", "target_excluded"])
     assert per.loc["p02", "target_gain_yaw"] == pytest.approx(0.6, abs=0.02)
+    lo, hi = per.loc["p02", "target_gain_yaw_ci_low"], per.loc["p02", "target_gain_yaw_ci_high"]
+    assert lo <= per.loc["p02", "target_gain_yaw"] <= hi < 0.7  # noise-free eyes: a narrow interval
     assert per.loc["p02", "target_excluded"] and "yaw gain 0.60 outside 0.7-1.25" in per.loc["p02", "target_exclusion_reasons"]
     html = (root / "study" / "report.html").read_text()
     assert "Gaze quality on the known-target sequence" in html and "no check" in html
     assert "outside 0.7-1.25" in html and "Accuracy after offset and gain (deg)" in html
+    assert f"{per.loc['p02', 'target_gain_yaw']:.2f} ({lo:.2f} to {hi:.2f})" in html  # the gain with its interval
     side = json.loads((root / "study" / "study_validation.json").read_text())
     assert side["target_quality_rule"]["gain_min"] == 0.7
     # a study without any check: no target_* columns and no section
