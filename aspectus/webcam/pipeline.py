@@ -66,8 +66,10 @@ MIN_USABLE_DURATION_S = 0.5
 #: raised whenever the samples table a clip gives changes for the same parameters, so cached samples of an
 #: earlier method are rebuilt, not reused (2: a face far from the followed one is no longer taken for it;
 #: 3: the eyeball centres' coupling to the eyes is measured on local-quadratic residuals, not 2-s high-passed
-#: series)
-EXTRACTION_REVISION = 3
+#: series; 4: everything the gaze chain changed from 2026-12-04 to 2026-12-05 without raising it - the limbus
+#: fit's picture convention and gap filling, the eye anchors, the iris scale, the appearance estimate as the
+#: default at every face size, among others: results of those days are redone, not mixed into a study)
+EXTRACTION_REVISION = 4
 #: nice steps by which the decoder thread and the geometry process yield to the face mesh (see
 #: :func:`extract_samples`)
 DECODE_NICE = 5
