@@ -10,7 +10,11 @@ estimate, the sequence found, the offset and gain fitted). Printed per clip:
   floor of the check's medians; ``implied`` = eyes + noise, what the renderer's noise and gain imply;
 * ``margin``: ``acc_og - implied`` (issue 20: within 0.5 deg);
 * the fitted gains, the check's precision (RMS-S2S, median over the dots), data loss, pursuit gain, targets
-  fixated out of the still dots, and the flags the check raised.
+  fixated out of the still dots, and the flags the check raised;
+* where the error per dot comes from: over the still dots (the check's windows, valid frames), the SD of the
+  per-dot median error against the renderer's truth (``*_truth.csv``, same frames) of the gaze (``sd_gaze``),
+  the head rotation (``sd_head``) and the eye-in-head angle (``sd_eye``), yaw / pitch in deg; the gaze is about
+  head plus eye-in-head, so the larger of the last two is where the error sits.
 
 Clips (``NAME`` on the command line; all by default):
 
@@ -82,6 +86,20 @@ def run(name: str, d: Path, gaze: dict) -> dict:
     cpu = time.process_time() - t0
     tr = read_truth(res.truth_path).assign(valid=True)
     ideal = check_samples(tr, sched, start_s=tj["flash_first_frame_t_s"], run_events=False)
+    import numpy as np
+    import pandas as pd
+
+    smp = pd.read_parquet(d / "out" / "samples.parquet")
+    tru = read_truth(res.truth_path).set_index("frame_index").reindex(smp["frame_index"].to_numpy())
+    ts = smp["t_s"].to_numpy(float) - tj["flash_first_frame_t_s"]
+    ok = smp["valid"].to_numpy(bool)
+    sd = {}
+    for part, cols in (("gaze", ("yaw_deg", "pitch_deg")), ("head", ("head_yaw_deg", "head_pitch_deg")),
+                       ("eye", ("eye_in_head_yaw_deg", "eye_in_head_pitch_deg"))):
+        err = np.stack([smp[c].to_numpy(float) - tru[c].to_numpy(float) for c in cols], axis=1)
+        med = np.array([np.nanmedian(err[w], axis=0) for r in sched.fixations.itertuples(index=False)
+                        if (w := (ts >= r.onset_s + 0.5) & (ts < r.offset_s) & ok).sum() >= 5])
+        sd[f"sd_{part}"] = "{:.2f} / {:.2f}".format(*np.std(med, axis=0, ddof=1))
     s = check.summary
     eyes, noise = ideal.summary["accuracy_offset_gain_deg"], s["accuracy_noise_floor_deg"]
     fps = 30.0
@@ -94,7 +112,7 @@ def run(name: str, d: Path, gaze: dict) -> dict:
             "loss": s["loss_frac"], "pursuit_gain": s.get("pursuit_gain"),
             "fixated": f"{s['n_targets_fixated']}/{s['n_fixation_targets']}",
             "flags": len(check.flags), "flag_text": " | ".join(check.flags),
-            "cpu_s": round(cpu, 1)}
+            "cpu_s": round(cpu, 1), **sd}
 
 
 def main(argv: list[str]) -> int:
