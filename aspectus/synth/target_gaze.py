@@ -172,8 +172,9 @@ def render_target_clip(path, schedule, *, lead_in_s: float = 2.0, tail_s: float 
 
     ``render_kwargs`` go to :func:`aspectus.synth.render.render_clip` (``size_px``, ``fps``, ``face``,
     ``noise_sd``, ``darkness``, ...); the other arguments to :func:`schedule_trajectory` (``head_distance_mm``:
-    the face's distance from the camera, which sets the iris's size in the picture). Writes ``<stem>_targets.json`` (the sequence's truth) beside the
-    clip's other truth files and returns ``(RenderResult, truth dict)``.
+    the face's distance from the camera, which sets the iris's size in the picture). Writes
+    ``<stem>_targets.json`` (the sequence's truth) beside the clip's other truth files and returns
+    ``(RenderResult, truth dict)``.
     """
     from aspectus.atomic import sha256_file, write_json
     from aspectus.synth.render import render_clip

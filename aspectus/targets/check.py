@@ -201,7 +201,7 @@ def _of(n, total) -> str:
 
 
 def _ci(mapping: dict, axis: str, f) -> str:
-    """' (95 % interval lo-hi)' of one axis's gain, or '' for a check written before the interval was kept."""
+    """' (95 % interval lo to hi)' of one axis's gain, or '' for a check written before the interval was kept."""
     lo, hi = mapping.get(f"gain_{axis}_ci_low"), mapping.get(f"gain_{axis}_ci_high")
     return "" if f(lo) == "n/a" or f(hi) == "n/a" else f" (95 % interval {f(lo)} to {f(hi)})"
 
