@@ -809,7 +809,8 @@ def target_quality_section(per: pd.DataFrame, rule=None) -> str:
         rule = ExclusionRule()
     return ("<h2>Gaze quality on the known-target sequence</h2>"
             "<p>Measured on the webcam alone, without the lab tracker (<code>aspectus targets check</code>): per-person "
-            "offset and gain fitted on the still dots; accuracy is the mean angle between each still dot and the "
+            "offset and gain fitted on the still dots (each gain with its 95 % confidence interval in brackets; "
+            "with 5-15 dots it is often wide); accuracy is the mean angle between each still dot and the "
             "median gaze on it after the fit, precision the RMS sample-to-sample step and the SD on each dot, data "
             "loss the share of the sequence's frames without valid gaze (Holmqvist, Nystroem &amp; Mulvey 2012). "
             "Pairs without a check: \"no check\".</p>"
