@@ -647,8 +647,12 @@ def describe_iris_estimate(info) -> str | None:
     >>> describe_iris_estimate({"setting": "limbus", "used": "limbus"})
     'Iris height from: circle fit to the iris edge (as chosen).'
     >>> describe_iris_estimate({"setting": "auto", "used": "appearance", "iris_px": 24.9,
-    ...                         "iris_px_source": "limbus fit"})
+    ...                         "iris_px_source": "limbus fit", "learnt_from_s": 95.2})
     "Iris height from: the eye's appearance (chosen automatically)."
+
+    A short clip gives the estimate little to learn from (:data:`aspectus.webcam.iris_appearance.WELL_LEARNT_S`):
+    >>> print(describe_iris_estimate({"setting": "auto", "used": "appearance", "learnt_from_s": 7.9}))
+    Iris height from: the eye's appearance (chosen automatically), learnt from 7.9 s of open eyes: on rendered clips it was more precise when it learnt from 40 s - process whole recordings, and cut them into tasks with a segments file rather than into short clips.
     >>> print(describe_iris_estimate({"setting": "auto", "used": "limbus", "reason": "the appearance regression was "
     ...                               "not fitted (too few open-eye frames with a limbus fit)"}))
     Iris height from: circle fit to the iris edge (chosen automatically: the clip has too few frames with open eyes to learn the eye's appearance).
@@ -682,7 +686,16 @@ def describe_iris_estimate(info) -> str | None:
         obstacle = reason
     threshold = info.get("threshold_px")  # runs from before 2026-12-05, when "auto" chose by the iris size
     if threshold is None:
-        return f"Iris height from: {text} (chosen automatically" + (f": {obstacle})." if used != "appearance" else ").")
+        if used != "appearance":
+            return f"Iris height from: {text} (chosen automatically: {obstacle})."
+        from aspectus.webcam.iris_appearance import WELL_LEARNT_S
+
+        learnt = info.get("learnt_from_s")
+        if isinstance(learnt, (int, float)) and not isinstance(learnt, bool) and learnt < WELL_LEARNT_S:
+            return (f"Iris height from: {text} (chosen automatically), learnt from {learnt:g} s of open eyes: on "
+                    f"rendered clips it was more precise when it learnt from {WELL_LEARNT_S:g} s - process whole "
+                    "recordings, and cut them into tasks with a segments file rather than into short clips.")
+        return f"Iris height from: {text} (chosen automatically)."
     if isinstance(px, (int, float)) and not isinstance(px, bool) and np.isfinite(px):
         small = px < threshold
         # the measure is named: the verdict's "irises about N px across" is the face tracker's, which reads larger

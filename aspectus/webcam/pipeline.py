@@ -323,6 +323,18 @@ def _appearance_iris(a: np.ndarray, patches: np.ndarray, found: np.ndarray) -> t
     return iris, info
 
 
+def _learnt_from_s(info: dict, t_s: np.ndarray) -> float | None:
+    """Seconds of open-eye frames the appearance estimate learnt from, on the eye that had fewer (its blocks'
+    ``train_frames`` over the clip's median frame interval); None where that cannot be told."""
+    dt = np.diff(np.asarray(t_s, float))
+    dt = dt[np.isfinite(dt) & (dt > 0)]
+    if not dt.size:
+        return None
+    frames = [sum(int((blk.get(e) or {}).get("train_frames") or 0) for blk in info.get("blocks", []))
+              for e in ("right", "left")]
+    return round(min(frames) * float(np.median(dt)), 1)
+
+
 def appearance_share(info: dict) -> float:
     """The share of the iris height that came from the appearance estimate: its blend weight (``w`` of
     :func:`aspectus.webcam.iris_appearance.blend_weights`; 1 where an eye had too few frames to choose one, 0
@@ -556,6 +568,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                                     "agreed better with the other eye): the limbus fit is used")
             elif fitted:
                 choice["reason"] = "the appearance estimate was fitted on the clip's own eyes"
+                choice["learnt_from_s"] = _learnt_from_s(app_info, a[:, 0])
             else:
                 choice["reason"] = ("the appearance regression was not fitted (too few open-eye frames with a limbus "
                                     f"fit: at least {MIN_TRAIN_FRAMES} per eye are needed): the limbus fit is used")

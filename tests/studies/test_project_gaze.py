@@ -143,6 +143,29 @@ def test_iris_estimate_in_plain_words():
     assert now == ("Iris height from: circle fit to the iris edge (chosen automatically: the clip has too few frames "
                    "with open eyes to learn the eye's appearance).")
     assert describe_iris_estimate(None) is None and describe_iris_estimate({}) is None
+    # learnt from a short clip: said, with what to do; from a long one (or a run.json without the figure): not
+    fitted = {"setting": "auto", "used": "appearance", "iris_px": 11.6, "iris_px_source": "limbus fit",
+              "reason": "the appearance estimate was fitted on the clip's own eyes"}
+    short = describe_iris_estimate(fitted | {"learnt_from_s": 12.3})
+    assert short.startswith("Iris height from: the eye's appearance (chosen automatically), learnt from 12.3 s of "
+                            "open eyes:") and "40 s" in short and "segments file" in short
+    for long_enough in ({"learnt_from_s": 40.0}, {"learnt_from_s": 312.0}, {}, {"learnt_from_s": None}):
+        assert describe_iris_estimate(fitted | long_enough) == "Iris height from: the eye's appearance (chosen automatically)."
+
+
+def test_learnt_from_counts_the_eye_with_fewer_training_frames_at_the_clips_frame_rate():
+    import numpy as np
+
+    from aspectus.webcam.pipeline import _learnt_from_s
+
+    info = {"blocks": [{"right": {"fitted": True, "train_frames": 2900}, "left": {"fitted": True, "train_frames": 2950}},
+                       {"right": {"fitted": True, "train_frames": 600}, "left": {"fitted": False}}]}
+    assert _learnt_from_s(info, np.arange(4000) / 30.0) == pytest.approx(2950 / 30.0, abs=0.05)  # right 2900 + 600, left 2950 + 0
+    assert _learnt_from_s(info, np.arange(4000) / 60.0) == pytest.approx(2950 / 60.0, abs=0.05)
+    t = np.arange(4000) / 30.0
+    t[100:200] = np.nan  # frames without a face keep their times unknown: the median interval still holds
+    assert _learnt_from_s(info, t) == pytest.approx(2950 / 30.0, abs=0.05)
+    assert _learnt_from_s(info, np.array([0.0])) is None and _learnt_from_s({"blocks": []}, t) == 0.0
 
 
 def test_a_blink_pad_saved_in_frames_is_read_in_ms(tmp_path):

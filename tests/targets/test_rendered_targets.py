@@ -112,6 +112,13 @@ def test_start_within_one_frame_and_accuracy_as_the_renderer_implies(good_clip):
     assert tc["figures"]["accuracy_offset_gain_deg"] == pytest.approx(check.summary["accuracy_offset_gain_deg"])
     assert tc["sha256"] == sha256_file(d / "out" / "target_check.json") and tc["params"]["settle_s"] == 0.5
     assert clip_is_done(d / "out", input_sha256=run["input_sha256"], params_sha256=run["params_sha256"])[0]
+    # the appearance estimate learnt from the clip's open-eye frames (no blinks in this render): about its length,
+    # short enough for the plain-words line to say so
+    est = run["extraction"]["gaze_model"]["iris_estimate"]
+    assert est["used"] == "appearance" and res.frames / 30 - 1.5 <= est["learnt_from_s"] <= res.frames / 30
+    from aspectus.webcam.gaze import describe_iris_estimate
+
+    assert f"learnt from {est['learnt_from_s']:g} s of open eyes" in describe_iris_estimate(est)
     import pandas as pd
 
     sg = pd.read_parquet(d / "out" / "screen_gaze.parquet")
