@@ -51,7 +51,7 @@ from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
 from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LABEL_DIAM, LABEL_IRIS, LIMBUS_CONTRAST, LIMBUS_DIAM,
                                             RECORD_WIDTH, SMALL_FACE_T_COLUMNS, decision_limbus_diam,
                                             frame_item, start_geometry)
-from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, small_iris
+from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, WELL_LEARNT_S, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.webcam.limbus import MIN_IRIS_CONTRAST_PCT, fill_iris_reflections
 from aspectus.events.detect.noise import SD_PER_RMS_S2S_WHITE
@@ -918,6 +918,27 @@ def _verdict(summary: dict) -> tuple[bool, str]:
     return True, f"Usable: face tracked in {ff:.0%} of frames, {vf:.0%} usable gaze, {noise_text}."
 
 
+def short_learning_sentence(iris_estimate: dict, precision_tier: str) -> str:
+    """The verdict's advice for a clip too short for the appearance estimate to learn well from (run.json's
+    ``iris_estimate.learnt_from_s`` below :data:`~aspectus.webcam.iris_appearance.WELL_LEARNT_S`) whose precision
+    falls short of the finest tier: a whole recording may measure better. '' otherwise.
+
+    >>> short_learning_sentence({"used": "appearance", "learnt_from_s": 60.0}, "coarse")
+    ''
+    >>> short_learning_sentence({"used": "appearance", "learnt_from_s": 9.5}, "events")
+    ''
+    >>> short_learning_sentence({"used": "appearance", "learnt_from_s": 9.5}, "coarse")[:60]
+    ' The iris height was learnt from only 9.5 s of open eyes: on'
+    """
+    learnt = iris_estimate.get("learnt_from_s")
+    if (iris_estimate.get("used") != "appearance" or not isinstance(learnt, (int, float)) or isinstance(learnt, bool)
+            or not learnt < WELL_LEARNT_S or precision_tier == PRECISION_TIERS[0][0]):
+        return ""
+    return (f" The iris height was learnt from only {learnt:g} s of open eyes: on rendered classroom-scale clips it "
+            f"measured more precisely when learnt from {WELL_LEARNT_S:g} s, so process whole recordings (a segments "
+            "file marks the tasks) rather than short cut clips.")
+
+
 def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
     n = len(samples)
     ev = analysis.events
@@ -964,6 +985,7 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
     if est.get("setting") == "auto" and est.get("used") == "limbus":  # the default's fallback, said in words
         s["verdict"] += (" The iris height was read from a circle fitted to the iris edge, noisier up and down than "
                          "the eyes' own appearance, which could not be learnt on this clip (run.json records why).")
+    s["verdict"] += short_learning_sentence(est, s["precision_tier"])
     dp = s["decode_problems"]
     if dp.get("stopped_early"):
         s["verdict"] += f" Note: the file is damaged - {dp['stopped_early']}; only the part before that was analysed."

@@ -135,6 +135,42 @@ def test_verdict_notes_repaired_timestamps(processed):
         assert "iris height" not in s["verdict"], est
 
 
+def test_verdict_of_a_short_noisy_clip_advises_whole_recordings(processed):
+    """A clip whose appearance estimate learnt from less than WELL_LEARNT_S s and whose precision falls short of
+    the finest tier: the verdict says what may help (a whole recording); a long clip, or a precise one, reads
+    without it."""
+    import numpy as np
+
+    from aspectus.events.analysis import run_analysis
+    from aspectus.webcam.iris_appearance import WELL_LEARNT_S
+    from aspectus.webcam.pipeline import PRECISION_TIERS, summarise
+
+    res, _ = processed
+    noisy = res.samples.copy()
+    rng = np.random.default_rng(4)
+    for c in ("yaw_deg", "pitch_deg"):
+        noisy[c] = noisy[c] + rng.normal(0, 2.5, len(noisy))
+    an = run_analysis(noisy)
+
+    def verdict(samples, analysis, learnt):
+        est = {"setting": "auto", "used": "appearance", "learnt_from_s": learnt}
+        return summarise(samples, analysis, {"gaze_model": {"iris_estimate": est}})
+
+    short = verdict(noisy, an, 12.5)
+    assert short["precision_tier"] != PRECISION_TIERS[0][0]
+    assert "learnt from only 12.5 s of open eyes" in short["verdict"] and "segments file" in short["verdict"]
+    assert "learnt from only" not in verdict(noisy, an, WELL_LEARNT_S)["verdict"]
+    # the rule itself: no advice at the finest tier, nor for the fallback, nor without the figure (older run.json)
+    from aspectus.webcam.pipeline import short_learning_sentence
+
+    finest, other = PRECISION_TIERS[0][0], PRECISION_TIERS[1][0]
+    assert short_learning_sentence({"used": "appearance", "learnt_from_s": 12.5}, finest) == ""
+    assert short_learning_sentence({"used": "appearance", "learnt_from_s": 12.5}, other).startswith(" The iris height")
+    for est in ({"used": "limbus", "learnt_from_s": 12.5}, {"used": "appearance"},
+                {"used": "appearance", "learnt_from_s": True}, {}):
+        assert short_learning_sentence(est, other) == "", est
+
+
 def test_clip_without_face(tmp_path):
     from aspectus.synth.render import render_clip
     from aspectus.synth.trajectory import synth_trajectory
