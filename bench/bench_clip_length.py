@@ -48,11 +48,11 @@ def first_seconds(src: Path, dst: Path, seconds: float) -> Path:
     return dst
 
 
-def run(face: str, iris: int, seed: int, lengths: list[float], work: Path) -> list[dict]:
+def run(face: str, iris: int, seed: int, lengths: list[float], work: Path, trials: str = TRIALS) -> list[dict]:
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
     longest = max(lengths)
-    cond = G.Condition(f"{iris}px_{face}_s{seed}", size_px=(640, 480), distance_mm=DISTANCE_MM[iris], trial=TRIALS,
+    cond = G.Condition(f"{iris}px_{face}_s{seed}", size_px=(640, 480), distance_mm=DISTANCE_MM[iris], trial=trials,
                        face=face, seed=seed, duration_s=longest)
     res, trial = G.render_condition(cond, work, LUND)
     truth = res.truth
@@ -83,6 +83,7 @@ def main(argv=None) -> int:
     ap.add_argument("--seeds", type=int, nargs="+", default=[0, 1, 2])
     ap.add_argument("--lengths", type=float, nargs="+", default=[8.0, 20.0, 40.0],
                     help="clip lengths in s (8 to 40: the trials give 40 s)")
+    ap.add_argument("--trials", default=TRIALS, help="hand-coded trials joined by '+' (four give 40 s)")
     ap.add_argument("--csv", type=Path, help="also write the rows here")
     args = ap.parse_args(argv)
     if not LUND.is_dir():
@@ -95,7 +96,7 @@ def main(argv=None) -> int:
     for iris in args.iris:
         for seed in args.seeds:
             with tempfile.TemporaryDirectory(prefix="clip_length_") as d:
-                rows += run(args.face, iris, seed, args.lengths, Path(d))
+                rows += run(args.face, iris, seed, args.lengths, Path(d), args.trials)
     tab = pd.DataFrame(rows)
     print()
     print(tab.round(3).to_string(index=False))
