@@ -33,21 +33,6 @@ DISTANCE_MM = {12: 550.0, 8: 780.0}
 SHOWN = ("rms_s2s_deg", "yaw_r", "pitch_r", "pitch_gain", "kappa")
 
 
-def first_seconds(src: Path, dst: Path, seconds: float) -> Path:
-    """The clip's frames before ``seconds``, their packets copied (the same encoded frames)."""
-    import av
-
-    with av.open(str(src)) as i, av.open(str(dst), "w") as o:
-        st = i.streams.video[0]
-        ot = o.add_stream_from_template(st)
-        for p in i.demux(st):
-            if p.dts is None or (p.pts is not None and float(p.pts * st.time_base) >= seconds - 1e-6):
-                continue
-            p.stream = ot
-            o.mux(p)
-    return dst
-
-
 def run(face: str, iris: int, seed: int, lengths: list[float], work: Path, trials: str = TRIALS) -> list[dict]:
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
@@ -58,7 +43,7 @@ def run(face: str, iris: int, seed: int, lengths: list[float], work: Path, trial
     truth = res.truth
     rows = []
     for T in sorted(lengths):
-        clip = res.path if T >= longest else first_seconds(res.path, work / f"{cond.name}_first{T:g}.mp4", T)
+        clip = res.path if T >= longest else G.first_seconds(res.path, work / f"{cond.name}_first{T:g}.mp4", T)
         samples, meta = extract_samples(clip, params=ProcessParams())
         tr = truth[truth["t_s"] < T].reset_index(drop=True)
         samples = samples.iloc[:len(tr)].reset_index(drop=True)

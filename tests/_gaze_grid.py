@@ -96,6 +96,22 @@ def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
     return res, trial
 
 
+def first_seconds(src: Path, dst: Path, seconds: float) -> Path:
+    """The clip's frames before ``seconds``, their packets copied into ``dst`` (the same encoded frames: no second
+    encode), for measuring a shorter clip of the very same picture."""
+    import av
+
+    with av.open(str(src)) as i, av.open(str(dst), "w") as o:
+        st = i.streams.video[0]
+        ot = o.add_stream_from_template(st)
+        for p in i.demux(st):
+            if p.dts is None or (p.pts is not None and float(p.pts * st.time_base) >= seconds - 1e-6):
+                continue
+            p.stream = ot
+            o.mux(p)
+    return dst
+
+
 def _fit(est, truth):
     ok = np.isfinite(est) & np.isfinite(truth)
     if ok.sum() < 10:

@@ -53,7 +53,15 @@ def figures(lund_dir, tmp_path_factory):
     for c, v in cols.items():
         if c in default.columns:
             default[c] = v
-    return {"appearance": G.measure(samples, res.truth, trial), "default": G.measure(default, res.truth, trial),
+    # the same clip's first 8 s alone (packets copied: the same frames), for what the clip's length gives
+    short, _ = extract_samples(G.first_seconds(res.path, res.path.with_name("first8.mp4"), 8.0),
+                               params=ProcessParams(gaze=GazeParams(iris_combine="appearance")))
+    first = (res.truth["t_s"] < 8.0).to_numpy()
+    tr8 = res.truth[first].reset_index(drop=True)
+    by_length = {"8 s": G.measure(short.iloc[:len(tr8)].reset_index(drop=True), tr8, trial),
+                 "40 s": G.measure(samples[first].reset_index(drop=True), tr8, trial)}
+    return {"by_length": by_length,
+            "appearance": G.measure(samples, res.truth, trial), "default": G.measure(default, res.truth, trial),
             "info": meta["gaze_model"]["iris_appearance"], "n": len(samples)}
 
 
@@ -108,3 +116,17 @@ def test_appearance_against_issue_15s_floors_at_12px(figures):
     assert app["pitch_r"] >= 0.80  # 0.835 area-drawn (0.952 point-sampled)
     assert 0.85 <= app["pitch_gain"] <= 1.15
     assert app["kappa"] >= dft["kappa"]
+
+
+def test_a_longer_clip_reads_the_same_frames_with_a_higher_pitch_r(figures):
+    """The appearance estimate learns from its clip: the first 8 s of this 40-s clip, learnt from the whole clip
+    against from those 8 s alone (the same encoded frames). Measured 2026-12-05 with bench/bench_clip_length.py on
+    this clip: pitch r 0.844 -> 0.902, RMS-S2S 2.08 -> 2.10 deg, kappa 0.40 -> 0.32. On seven other draws (12 and
+    8.5 px, both faces; docs/notes/gaze-measurement.md, "Clip length") pitch r rose on six and the noise fell on
+    all seven; this draw, held out from those, is where the noise did not fall, so only pitch r is guarded here,
+    and the noise only not to rise by more than 10 %. What the verdict's advice for short clips rests on."""
+    short, long_ = figures["by_length"]["8 s"], figures["by_length"]["40 s"]
+    print({k: (round(short[k], 3), round(long_[k], 3)) for k in ("rms_s2s_deg", "pitch_r", "pitch_gain", "kappa")})
+    assert long_["pitch_r"] >= short["pitch_r"] + 0.03
+    assert long_["rms_s2s_deg"] <= 1.1 * short["rms_s2s_deg"]
+
