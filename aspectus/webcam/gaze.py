@@ -653,8 +653,8 @@ def describe_iris_estimate(info) -> str | None:
     A short clip gives the estimate little to learn from (:data:`aspectus.webcam.iris_appearance.WELL_LEARNT_S`):
     >>> print(describe_iris_estimate({"setting": "auto", "used": "appearance", "learnt_from_s": 7.9}))
     Iris height from: the eye's appearance (chosen automatically), learnt from 7.9 s of open eyes: on rendered
-    clips it was usually more precise when it learnt from 40 s - process whole recordings, and cut them into tasks
-    with a segments file rather than into short clips.
+    clips with 8.5-12 px irises it was usually more precise when it learnt from 40 s - process whole recordings,
+    and cut them into tasks with a segments file rather than into short clips.
     >>> print(describe_iris_estimate({"setting": "auto", "used": "limbus", "reason": "the appearance regression was "
     ...                               "not fitted (too few open-eye frames with a limbus fit)"}))
     Iris height from: circle fit to the iris edge (chosen automatically: the clip has too few frames with open eyes to learn the eye's appearance).
@@ -695,8 +695,9 @@ def describe_iris_estimate(info) -> str | None:
         learnt = info.get("learnt_from_s")
         if isinstance(learnt, (int, float)) and not isinstance(learnt, bool) and learnt < WELL_LEARNT_S:
             return (f"Iris height from: {text} (chosen automatically), learnt from {learnt:g} s of open eyes: on "
-                    f"rendered clips it was usually more precise when it learnt from {WELL_LEARNT_S:g} s - process whole "
-                    "recordings, and cut them into tasks with a segments file rather than into short clips.")
+                    f"rendered clips with 8.5-12 px irises it was usually more precise when it learnt from "
+                    f"{WELL_LEARNT_S:g} s - process whole recordings, and cut them into tasks with a segments file "
+                    "rather than into short clips.")
         return f"Iris height from: {text} (chosen automatically)."
     if isinstance(px, (int, float)) and not isinstance(px, bool) and np.isfinite(px):
         small = px < threshold

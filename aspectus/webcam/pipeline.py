@@ -934,8 +934,8 @@ def short_learning_sentence(iris_estimate: dict, precision_tier: str) -> str:
     if (iris_estimate.get("used") != "appearance" or not isinstance(learnt, (int, float)) or isinstance(learnt, bool)
             or not learnt < WELL_LEARNT_S or precision_tier == PRECISION_TIERS[0][0]):
         return ""
-    return (f" The iris height was learnt from only {learnt:g} s of open eyes: on rendered classroom-scale clips it "
-            f"usually measured more precisely when learnt from {WELL_LEARNT_S:g} s, so process whole recordings (a segments "
+    return (f" The iris height was learnt from only {learnt:g} s of open eyes: on rendered clips with 8.5-12 px irises "
+            f"it usually measured more precisely when learnt from {WELL_LEARNT_S:g} s, so process whole recordings (a segments "
             "file marks the tasks) rather than short cut clips.")
 
 
