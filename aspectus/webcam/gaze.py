@@ -78,6 +78,13 @@ LIMBUS_FIT_PER_TRUE_IRIS = 0.969
 #: cells 0.993-1.065, median 1.050): there the switch errs towards the limbus fit, a known, small inconsistency
 #: (it read the light-iris cells at 0.907 and 0.968 of the truth and the hazel ones at 1.009: no one factor fits).
 SMALL_FACE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)) * LIMBUS_FIT_PER_TRUE_IRIS, 1)
+#: below this many seconds of open-eye frames to learn from (the eye that had fewer), the plain-words line says the
+#: clip is short for the estimate. Measured on seven rendered 640x480 CRF 28 clips (12 and 8.5 px irises, both
+#: faces, four hand-coded trials end to end; docs/notes/gaze-measurement.md, "Clip length"): the same first 8 s
+#: read a lower RMS-S2S on all seven when the estimate learnt from the whole 40 s than from those 8 s
+#: (e.g. 2.67 -> 1.61 deg), pitch r higher on six; from 20 s, in between on the two measured. A held-out eighth
+#: draw (other trials) read 2.08 -> 2.10 deg, pitch r 0.844 -> 0.902
+WELL_LEARNT_S = 40.0
 #: frames whose eye aperture is at least this share of the clip's open-eye level count as open eyes
 OPEN_EYE_REL = 0.8
 #: where the iris's size in pixels (the metric scale) comes from (GazeParams.iris_scale)
@@ -650,7 +657,7 @@ def describe_iris_estimate(info) -> str | None:
     ...                         "iris_px_source": "limbus fit", "learnt_from_s": 95.2})
     "Iris height from: the eye's appearance (chosen automatically)."
 
-    A short clip gives the estimate little to learn from (:data:`aspectus.webcam.iris_appearance.WELL_LEARNT_S`):
+    A short clip gives the estimate little to learn from (:data:`WELL_LEARNT_S`):
     >>> print(describe_iris_estimate({"setting": "auto", "used": "appearance", "learnt_from_s": 7.9}))
     Iris height from: the eye's appearance (chosen automatically), learnt from 7.9 s of open eyes: on rendered
     clips with 8.5-12 px irises it was usually more precise when it learnt from 40 s - process whole recordings,
@@ -690,8 +697,6 @@ def describe_iris_estimate(info) -> str | None:
     if threshold is None:
         if used != "appearance":
             return f"Iris height from: {text} (chosen automatically: {obstacle})."
-        from aspectus.webcam.iris_appearance import WELL_LEARNT_S
-
         learnt = info.get("learnt_from_s")
         if isinstance(learnt, (int, float)) and not isinstance(learnt, bool) and learnt < WELL_LEARNT_S:
             return (f"Iris height from: {text} (chosen automatically), learnt from {learnt:g} s of open eyes: on "

@@ -64,13 +64,6 @@ PATCH_BYTES = 2 * PATCH_SIZE[0] * PATCH_SIZE[1]
 BLOCK_FRAMES = 3000
 #: fewer labelled frames than this in a block (per eye): no regression, the limbus fit stays
 MIN_TRAIN_FRAMES = 150
-#: below this many seconds of open-eye frames to learn from (the eye that had fewer), the plain-words line says the
-#: clip is short for the estimate. Measured on seven rendered 640x480 CRF 28 clips (12 and 8.5 px irises, both
-#: faces, four hand-coded trials end to end; docs/notes/gaze-measurement.md, "Clip length"): the same first 8 s
-#: read a lower RMS-S2S on all seven when the estimate learnt from the whole 40 s than from those 8 s
-#: (e.g. 2.67 -> 1.61 deg), pitch r higher on six; from 20 s, in between on the two measured. A held-out eighth
-#: draw (other trials) read 2.08 -> 2.10 deg, pitch r 0.844 -> 0.902
-WELL_LEARNT_S = 40.0
 #: cross-fitting folds, candidate numbers of components and ridge strengths (per cent of a component's variance)
 FOLDS = 10
 COMPONENTS = (4, 8, 16, 32)

@@ -46,12 +46,13 @@ from aspectus.atomic import (full_paths_wanted, recorded_path, sha256_file, sha2
 from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
-from aspectus.webcam.gaze import SMALL_FACE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements, unmirror_record
+from aspectus.webcam.gaze import (SMALL_FACE_BELOW_PX, WELL_LEARNT_S, GazeParams, estimate_gaze, frame_measurements,
+                                  unmirror_record)
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
 from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LABEL_DIAM, LABEL_IRIS, LIMBUS_CONTRAST, LIMBUS_DIAM,
                                             RECORD_WIDTH, SMALL_FACE_T_COLUMNS, decision_limbus_diam,
                                             frame_item, start_geometry)
-from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, WELL_LEARNT_S, small_iris
+from aspectus.webcam.iris_appearance import DECIDE_FRAMES, MIN_TRAIN_FRAMES, PATCH_BYTES, small_iris
 from aspectus.webcam.landmarks import FaceChoiceError, FaceTracker, mediapipe_version, parse_face_choice
 from aspectus.webcam.limbus import MIN_IRIS_CONTRAST_PCT, fill_iris_reflections
 from aspectus.events.detect.noise import SD_PER_RMS_S2S_WHITE
@@ -920,7 +921,7 @@ def _verdict(summary: dict) -> tuple[bool, str]:
 
 def short_learning_sentence(iris_estimate: dict, precision_tier: str) -> str:
     """The verdict's advice for a clip too short for the appearance estimate to learn well from (run.json's
-    ``iris_estimate.learnt_from_s`` below :data:`~aspectus.webcam.iris_appearance.WELL_LEARNT_S`) whose precision
+    ``iris_estimate.learnt_from_s`` below :data:`~aspectus.webcam.gaze.WELL_LEARNT_S`) whose precision
     falls short of the finest tier: a whole recording may measure better. '' otherwise.
 
     >>> short_learning_sentence({"used": "appearance", "learnt_from_s": 60.0}, "coarse")

@@ -207,8 +207,13 @@ def test_auto_takes_the_appearance_estimate_on_a_small_iris(rendered_clip, tmp_p
     assert 9.0 <= c["mesh_median_iris_px"] <= 13.0
     assert c["reason"] == "the appearance estimate was fitted on the clip's own eyes"
     assert any(gm["iris_appearance"]["blocks"][0][e]["fitted"] for e in ("right", "left"))
-    verdict = json.loads((tmp_path / clip.stem / "run.json").read_text())["quality"]["verdict"]
-    assert "iris height" not in verdict  # the default method needs no sentence (the fallback has one)
+    run = json.loads((tmp_path / clip.stem / "run.json").read_text())
+    verdict = run["quality"]["verdict"]
+    assert "circle fitted" not in verdict  # the default method needs no sentence (the fallback has one)
+    # a short clip (9.2 s here) short of the finest tier gets the advice to process whole recordings, no more
+    assert c["learnt_from_s"] <= run["quality"]["duration_s"]
+    finest = run["quality"]["precision_tier"] == "events"
+    assert ("learnt from only" in verdict) == (not finest), verdict
 
 
 @pytest.mark.slow
@@ -222,7 +227,7 @@ def test_auto_takes_the_appearance_estimate_on_a_large_iris_too(rendered_clip, t
     assert c["used"] == "appearance", c
     assert 19.0 <= c["iris_px"] <= 25.0 and c["iris_px_source"] == "limbus fit"  # 11.7 mm at 60 cm: 21.6 px
     assert any(gm["iris_appearance"]["blocks"][0][e]["fitted"] for e in ("right", "left"))
-    assert "iris height" not in json.loads((tmp_path / clip.stem / "run.json").read_text())["quality"]["verdict"]
+    assert "circle fitted" not in json.loads((tmp_path / clip.stem / "run.json").read_text())["quality"]["verdict"]
     # the anchor set still decides by the size: a large face is placed by the points below the eyes
     assert gm["eye_anchor_set"]["used"] == "below", gm["eye_anchor_set"]
 

@@ -142,7 +142,7 @@ def test_verdict_of_a_short_noisy_clip_advises_whole_recordings(processed):
     import numpy as np
 
     from aspectus.events.analysis import run_analysis
-    from aspectus.webcam.iris_appearance import WELL_LEARNT_S
+    from aspectus.webcam.gaze import WELL_LEARNT_S
     from aspectus.webcam.pipeline import PRECISION_TIERS, summarise
 
     res, _ = processed
