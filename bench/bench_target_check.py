@@ -60,11 +60,17 @@ CLIPS = {
 
 
 def run(name: str, d: Path, gaze: dict) -> dict:
+    from dataclasses import replace
+
+    import numpy as np
+    import pandas as pd
+
     from aspectus.synth.render import read_truth
     from aspectus.synth.target_gaze import render_target_clip
     from aspectus.targets.analysis import check_samples
     from aspectus.targets.check import run_check
     from aspectus.targets.schedule import Screen, make_schedule
+    from aspectus.webcam.pipeline import ProcessParams
 
     face, s_seed, r_seed, gain, c = CLIPS[name]
     sched = make_schedule(Screen(*SCREEN), seed=s_seed, fixation_s=1.2, n_fixations=c["fixations"],
@@ -75,20 +81,13 @@ def run(name: str, d: Path, gaze: dict) -> dict:
                                  offset_deg=(2.0, -2.0), size_px=c["size_px"], fov_deg=60.0, seed=r_seed, face=face,
                                  crf=c["crf"], head_motion=c["head_motion"], head_distance_mm=c["distance_mm"],
                                  **extra)
-    t0 = time.process_time()
-    from dataclasses import replace
-
-    from aspectus.webcam.pipeline import ProcessParams
-
     pp = ProcessParams()
     pp = replace(pp, gaze=replace(pp.gaze, **gaze))
+    t0 = time.process_time()
     check = run_check(d / "clip.mp4", d / "schedule.json", d / "out", process_params=pp)
     cpu = time.process_time() - t0
     tr = read_truth(res.truth_path).assign(valid=True)
     ideal = check_samples(tr, sched, start_s=tj["flash_first_frame_t_s"], run_events=False)
-    import numpy as np
-    import pandas as pd
-
     smp = pd.read_parquet(d / "out" / "samples.parquet")
     tru = read_truth(res.truth_path).set_index("frame_index").reindex(smp["frame_index"].to_numpy())
     ts = smp["t_s"].to_numpy(float) - tj["flash_first_frame_t_s"]

@@ -331,9 +331,10 @@ def gain_ci95(target_deg, gaze_deg) -> tuple[float, float]:
 
     The textbook interval for a simple linear regression's slope: b +- t(0.975, n - 2) * s / sqrt(Sxx), with
     s^2 the residuals' sum of squares over n - 2 (the standard interval of any regression text, from memory;
-    the tests check it against ``scipy.stats.linregress`` and by its coverage). It assumes independent errors of equal size per dot; the dots' errors
-    are partly systematic per gaze direction (docs/notes/target-check.md), which this interval counts as
-    scatter. ``(nan, nan)`` below 3 dots or without spread in the targets.
+    the tests check it against ``scipy.stats.linregress`` and by its coverage). It assumes independent errors
+    of equal size per dot; the dots' errors are partly systematic per gaze direction
+    (docs/notes/target-check.md), which this interval counts as scatter. ``(nan, nan)`` below 3 dots or
+    without spread in the targets.
     """
     from scipy.stats import t as student_t
 

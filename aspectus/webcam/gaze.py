@@ -85,6 +85,10 @@ SMALL_FACE_BELOW_PX = round(float(np.sqrt(12.0 * 25.0)) * LIMBUS_FIT_PER_TRUE_IR
 #: (e.g. 2.67 -> 1.61 deg), pitch r higher on six; from 20 s, in between on the two measured. A held-out eighth
 #: draw (other trials) read 2.08 -> 2.10 deg, pitch r 0.844 -> 0.902
 WELL_LEARNT_S = 40.0
+#: what to do about it, in the plain-words line and the verdict alike
+SHORT_CLIP_ADVICE = (f"on rendered clips with 8.5-12 px irises it was usually more precise when it learnt from "
+                     f"{WELL_LEARNT_S:g} s - process whole recordings, and cut them into tasks with a segments file "
+                     "rather than into short clips.")
 #: frames whose eye aperture is at least this share of the clip's open-eye level count as open eyes
 OPEN_EYE_REL = 0.8
 #: where the iris's size in pixels (the metric scale) comes from (GazeParams.iris_scale)
@@ -646,6 +650,14 @@ def gaze_settings_from_stored(stored) -> tuple[dict, list[str]]:
     return out, notes
 
 
+def learnt_briefly_s(info: dict) -> float | None:
+    """The seconds run.json's ``iris_estimate`` says the appearance estimate learnt from (``learnt_from_s``) when
+    it was used and learnt from less than :data:`WELL_LEARNT_S`; None otherwise (or without the figure)."""
+    learnt = info.get("learnt_from_s") if info.get("used") == "appearance" else None
+    ok = isinstance(learnt, (int, float)) and not isinstance(learnt, bool) and learnt < WELL_LEARNT_S
+    return float(learnt) if ok else None
+
+
 def describe_iris_estimate(info) -> str | None:
     """run.json's ``extraction.gaze_model.iris_estimate`` in plain words (None without one).
 
@@ -697,12 +709,10 @@ def describe_iris_estimate(info) -> str | None:
     if threshold is None:
         if used != "appearance":
             return f"Iris height from: {text} (chosen automatically: {obstacle})."
-        learnt = info.get("learnt_from_s")
-        if isinstance(learnt, (int, float)) and not isinstance(learnt, bool) and learnt < WELL_LEARNT_S:
-            return (f"Iris height from: {text} (chosen automatically), learnt from {learnt:g} s of open eyes: on "
-                    f"rendered clips with 8.5-12 px irises it was usually more precise when it learnt from "
-                    f"{WELL_LEARNT_S:g} s - process whole recordings, and cut them into tasks with a segments file "
-                    "rather than into short clips.")
+        learnt = learnt_briefly_s(info)
+        if learnt is not None:
+            return (f"Iris height from: {text} (chosen automatically), learnt from {learnt:g} s of open eyes: "
+                    + SHORT_CLIP_ADVICE)
         return f"Iris height from: {text} (chosen automatically)."
     if isinstance(px, (int, float)) and not isinstance(px, bool) and np.isfinite(px):
         small = px < threshold

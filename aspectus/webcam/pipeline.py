@@ -46,8 +46,8 @@ from aspectus.atomic import (full_paths_wanted, recorded_path, sha256_file, sha2
 from aspectus._env import background_cpus, lower_process_priority, pin_to_cpus
 from aspectus.run_record import missing_output, read_run_json, refuse_foreign_files, run_json_path
 from aspectus.errors import AspectusInputError, Cancelled, NoFaceError
-from aspectus.webcam.gaze import (SMALL_FACE_BELOW_PX, WELL_LEARNT_S, GazeParams, estimate_gaze, frame_measurements,
-                                  unmirror_record)
+from aspectus.webcam.gaze import (SHORT_CLIP_ADVICE, SMALL_FACE_BELOW_PX, GazeParams, estimate_gaze, frame_measurements,
+                                  learnt_briefly_s, unmirror_record)
 from aspectus.webcam.eye_anchors import AUTO_SMALL_FACE_SET, DEFAULT_ANCHOR_SET
 from aspectus.webcam.frame_geometry import (APPEARANCE_COLUMNS, LABEL_DIAM, LABEL_IRIS, LIMBUS_CONTRAST, LIMBUS_DIAM,
                                             RECORD_WIDTH, SMALL_FACE_T_COLUMNS, decision_limbus_diam,
@@ -931,13 +931,10 @@ def short_learning_sentence(iris_estimate: dict, precision_tier: str) -> str:
     >>> short_learning_sentence({"used": "appearance", "learnt_from_s": 9.5}, "coarse")[:60]
     ' The iris height was learnt from only 9.5 s of open eyes: on'
     """
-    learnt = iris_estimate.get("learnt_from_s")
-    if (iris_estimate.get("used") != "appearance" or not isinstance(learnt, (int, float)) or isinstance(learnt, bool)
-            or not learnt < WELL_LEARNT_S or precision_tier == PRECISION_TIERS[0][0]):
+    learnt = learnt_briefly_s(iris_estimate)
+    if learnt is None or precision_tier == PRECISION_TIERS[0][0]:
         return ""
-    return (f" The iris height was learnt from only {learnt:g} s of open eyes: on rendered clips with 8.5-12 px irises "
-            f"it usually measured more precisely when learnt from {WELL_LEARNT_S:g} s, so process whole recordings (a segments "
-            "file marks the tasks) rather than short cut clips.")
+    return f" The iris height was learnt from only {learnt:g} s of open eyes: {SHORT_CLIP_ADVICE}"
 
 
 def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
