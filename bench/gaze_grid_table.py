@@ -2,11 +2,16 @@
 
     python bench/bench_gaze_grid.py --csv grid.csv
     python bench/gaze_grid_table.py grid.csv
+    python bench/gaze_grid_table.py --draws grid_s0.csv grid_s1.csv ...   # the default over several draws
 
-One line per variant row: the default first (named by the iris estimate it took, with the iris size it took it
-on: ``fit`` the limbus fit's, ``mesh`` the face mesh's - in grids measured before 2026-12-05 always the mesh's;
-where it took the limbus fit its row stands for ``limbus`` too, which is then left out), then ``limbus`` and
+With one CSV: one line per variant row: the default first (named by the iris estimate it took, with the iris size it
+took it on: ``fit`` the limbus fit's, ``mesh`` the face mesh's - in grids measured before 2026-12-05 always the
+mesh's; where it took the limbus fit its row stands for ``limbus`` too, which is then left out), then ``limbus`` and
 ``fuse``. Columns as bench_gaze_grid.py prints them (definitions in tests/_gaze_grid.py).
+
+With ``--draws`` (one CSV per seed of bench_gaze_grid.py): the default's row of each cell summarised over the
+draws - the median with the range - and how many draws earn each precision tier (:func:`_tiers`), then issue 15's
+floors with the draws that meet each.
 """
 from __future__ import annotations
 
@@ -84,22 +89,122 @@ def lines(df: pd.DataFrame) -> list[str]:
     return out
 
 
+#: issue 15's floors: (what, cells it applies to, test on a default row)
+GAIN_BAND = (0.85, 1.15)
+_LARGE = ("25px_crf28", "16px_crf28", "12px_crf28", "12px_crf28_other_seed", "16px_glasses_mirror")
+_DRIFT = ("25px_drift_TL20", "25px_drift_TH34", "25px_drift_UH21")
+
+
+def _in_band(g) -> bool:
+    return GAIN_BAND[0] <= float(g) <= GAIN_BAND[1]
+
+
+FLOORS = (("RMS-S2S <= 1.5 deg", _LARGE, lambda r: r["rms_s2s_deg"] <= 1.5),
+          ("yaw r >= 0.95, gain 0.85-1.15", _LARGE, lambda r: r["yaw_r"] >= 0.95 and _in_band(r["yaw_gain"])),
+          ("pitch r >= 0.95, gain 0.85-1.15", _LARGE, lambda r: r["pitch_r"] >= 0.95 and _in_band(r["pitch_gain"])),
+          ("fixation kappa >= 0.5", _LARGE, lambda r: r["kappa"] >= 0.5),
+          ("8-9 px: RMS-S2S <= 3 deg", ("8px_crf28",), lambda r: r["rms_s2s_deg"] <= 3.0),
+          ("large faces drifting: pitch gain 0.85-1.15", _DRIFT, lambda r: _in_band(r["pitch_gain"])))
+
+SUMMARY_HEADER = ["| set-up | iris | draws | rms_s2s deg | yaw r; gain | pitch r; gain | kappa (truth) | tier: events / "
+                  "coarse / minimal |", "| --- | --- | --- | --- | --- | --- | --- | --- |"]
+
+
+def _spread(v, fmt: str) -> str:
+    """``median (min-max)`` of the values, in ``fmt``."""
+    v = pd.Series(v, dtype=float).dropna()
+    if v.empty:
+        return "-"
+    if len(v) == 1:
+        return fmt.format(v.iloc[0])
+    return f"{fmt.format(v.median())} ({fmt.format(v.min())}-{fmt.format(v.max())})"
+
+
+def _tiers(rows: pd.DataFrame) -> str:
+    """How many draws earn each precision tier: the pipeline's own verdict (``precision_tier``, in CSVs written since
+    2026-12-05) or else the tier rule (:func:`aspectus.webcam.pipeline.precision_tier`) on the row's figures with the
+    face mesh's iris size, as the pipeline reads it - "-" then for cells whose irises are not dark, where the pipeline
+    also applies its iris-contrast rule, which the figures cannot replay."""
+    from aspectus.webcam.pipeline import PRECISION_TIERS, precision_tier
+
+    counts = dict.fromkeys((t[0] for t in PRECISION_TIERS), 0)
+    if "precision_tier" in rows and rows["precision_tier"].notna().all():
+        for t in rows["precision_tier"]:
+            counts[str(t)] += 1
+        return " / ".join(str(n) for n in counts.values())
+    if "iris_colour" in rows and rows["iris_colour"].map(lambda c: isinstance(c, str) and bool(c)).any():
+        return "-"
+    if not {"noise_rms_s2s_33ms_deg", "noise_sd_deg", "iris_px_mesh"} <= set(rows.columns):
+        return "-"
+    for _, r in rows.iterrows():
+        counts[precision_tier(r["noise_rms_s2s_33ms_deg"], r["iris_px_mesh"], r["noise_sd_deg"])[0]] += 1
+    return " / ".join(str(n) for n in counts.values())
+
+
+def default_rows(frames: list[pd.DataFrame]) -> pd.DataFrame:
+    """The default variant's rows of several draws' CSVs, each tagged with its draw's position (``draw``)."""
+    out = []
+    for i, df in enumerate(frames):
+        d = df[df["variant"] == "default"].copy()
+        d["draw"] = i
+        out.append(d)
+    return pd.concat(out, ignore_index=True)
+
+
+def summary_lines(frames: list[pd.DataFrame]) -> list[str]:
+    """The default per cell over the draws (median and range) and the tiers earned; then issue 15's floors."""
+    d = default_rows(frames)
+    out = list(SUMMARY_HEADER)
+    for _, rows in d.groupby("name", sort=False):
+        first = rows.iloc[0].copy()
+        first["seed"] = 0  # the set-up, not the draw
+        out.append(f"| {describe(first)} | {rows['iris_px'].median():.1f} px | {len(rows)} | "
+                   f"{_spread(rows['rms_s2s_deg'], '{:.2f}')} | "
+                   f"{_spread(rows['yaw_r'], '{:.3f}')}; {_spread(rows['yaw_gain'], '{:.2f}')} | "
+                   f"{_spread(rows['pitch_r'], '{:.3f}')}; {_spread(rows['pitch_gain'], '{:.2f}')} | "
+                   f"{_spread(rows['kappa'], '{:.2f}')} ({rows['kappa_truth'].median():.2f}) | {_tiers(rows)} |")
+    out += ["", "| issue 15's floor | cells | draws that meet it |", "| --- | --- | --- |"]
+    for what, cells, test in FLOORS:
+        rows = d[d["name"].isin(cells)]
+        if rows.empty:
+            continue
+        met = int(sum(bool(test(r)) for _, r in rows.iterrows()))
+        out.append(f"| {what} | {', '.join(c for c in cells if c in set(rows['name']))} | {met} of {len(rows)} |")
+    return out
+
+
+NEED = {"label", "variant", "rms_s2s_deg", "rms_s2s_fix_deg", "noise_rms_s2s_deg", "yaw_r", "yaw_gain", "pitch_r",
+        "pitch_gain", "kappa", "kappa_truth", "iris_px", "iris_px_measured", "iris_estimate"}
+
+
+def _read(path: str) -> pd.DataFrame | str:
+    """The grid CSV, or the message that says why it cannot be used."""
+    try:
+        df = pd.read_csv(path)
+    except (OSError, pd.errors.ParserError, pd.errors.EmptyDataError) as e:
+        return f"{path}: cannot read the grid's rows ({e})"
+    if not NEED <= set(df.columns):
+        return f"{path}: not a grid CSV from bench_gaze_grid.py --csv (missing {sorted(NEED - set(df.columns))})"
+    return df
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("csv", help="rows written by bench_gaze_grid.py --csv")
+    ap.add_argument("csv", nargs="+", help="rows written by bench_gaze_grid.py --csv (several with --draws)")
+    ap.add_argument("--draws", action="store_true",
+                    help="summarise the default over the CSVs' draws (one CSV per seed) instead of one draw's table")
     args = ap.parse_args(argv)
-    try:
-        df = pd.read_csv(args.csv)
-    except (OSError, pd.errors.ParserError) as e:
-        print(f"{args.csv}: cannot read the grid's rows ({e})", file=sys.stderr)
+    if len(args.csv) > 1 and not args.draws:
+        print("several CSVs: give --draws to summarise them as draws of one grid", file=sys.stderr)
         return 2
-    need = {"label", "variant", "rms_s2s_deg", "rms_s2s_fix_deg", "noise_rms_s2s_deg", "yaw_r", "yaw_gain", "pitch_r", "pitch_gain",
-            "kappa", "kappa_truth", "iris_px", "iris_px_measured", "iris_estimate"}
-    if not need <= set(df.columns):
-        print(f"{args.csv}: not a grid CSV from bench_gaze_grid.py --csv (missing {sorted(need - set(df.columns))})",
-              file=sys.stderr)
-        return 2
-    print("\n".join(lines(df)))
+    frames = []
+    for path in args.csv:
+        df = _read(path)
+        if isinstance(df, str):
+            print(df, file=sys.stderr)
+            return 2
+        frames.append(df)
+    print("\n".join(summary_lines(frames) if args.draws else lines(frames[0])))
     return 0
 
 

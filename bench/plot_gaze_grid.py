@@ -2,6 +2,10 @@
 
     python bench/bench_gaze_grid.py --csv grid.csv
     python bench/plot_gaze_grid.py grid.csv docs/gaze_grid.png
+    python bench/plot_gaze_grid.py grid_s0.csv grid_s1.csv ... docs/gaze_grid.png   # several draws (seeds)
+
+With several CSVs (one per seed) only the default is drawn: each cell's draws as small grey dots, their median as
+a black marker with a bar over their range.
 
 Six panels against the iris diameter (px, the rendered truth): RMS-S2S of the gaze error, yaw and pitch r and
 gain against the truth, and the fixation kappa against the coders with the detector's kappa on the noise-free
@@ -60,10 +64,57 @@ def _tag(r) -> str:
     return tag
 
 
+def _floor(ax, col, floor, xmax) -> None:
+    """Issue 15's floor for the panel's column, in grey."""
+    if col == "rms_s2s_deg":
+        ax.hlines(1.5, 12.0, xmax, color="0.4", ls=":", lw=1.2, label="floor at >= 12 px")
+        ax.hlines(3.0, 8.0, 9.0, color="0.4", ls="--", lw=1.2, label="floor at 8-9 px")
+    elif floor and floor[0] == "line":
+        ax.hlines(floor[1], floor[2], xmax, color="0.4", ls=":", lw=1.2, label="floor at >= 12 px")
+    elif floor and floor[0] == "band":
+        ax.fill_between([floor[3], xmax], floor[1], floor[2], color="0.88", zorder=0,
+                        label="floor 0.85-1.15 at >= 12 px")
+
+
+def _draws_figure(frames: list, out: str, plt) -> None:
+    """The default over several draws: per cell the draws (grey), their median and range (black)."""
+    import pandas as pd
+
+    d = pd.concat([f[f["variant"] == "default"] for f in frames], ignore_index=True)
+    xmax = max(27.0, float(d["iris_px"].max()) + 1.0)
+    fig, axes = plt.subplots(2, 3, figsize=(13, 7.2))
+    for ax, (col, title, ylabel, floor) in zip(axes.flat, PANELS):
+        ax.scatter(d["iris_px"], d[col], color="0.6", s=9, zorder=2)
+        for _, cell in d.groupby("name", sort=False):
+            x, v = float(cell["iris_px"].median()), cell[col].astype(float)
+            ax.errorbar([x], [v.median()], yerr=[[v.median() - v.min()], [v.max() - v.median()]], color="k",
+                        marker="o", ms=5, capsize=2, lw=1, zorder=3)
+            ax.annotate(_tag(cell.iloc[0]), (x, v.median()), fontsize=7, xytext=(4, 2), textcoords="offset points")
+        if col == "kappa":
+            ax.scatter(d["iris_px"], d["kappa_truth"], color="0.55", marker="_", s=90, zorder=1,
+                       label="detector on the true gaze")
+        _floor(ax, col, floor, xmax)
+        ax.set_xlim(7.0, xmax)
+        ax.set_xlabel("iris diameter, px")
+        ax.set_ylabel(ylabel)
+        ax.set_title(title, fontsize=10)
+        ax.grid(alpha=0.3)
+        ax.legend(fontsize=7, loc="best")
+    seeds = sorted({int(s) for s in d["seed"]}) if "seed" in d else []
+    handles = [plt.Line2D([], [], color="k", marker="o", ls="-", label=f"default: median and range over {len(frames)} "
+                          "draws"), plt.Line2D([], [], color="0.6", marker="o", ls="", ms=3, label="one draw")]
+    fig.legend(handles=handles, loc="lower center", bbox_to_anchor=(0.5, 0.025), ncol=2, fontsize=9, frameon=False)
+    fig.text(0.5, 0.008, "beside the markers: H.264 CRF (m: MPEG-4 part 2), @60: 60 fps; g glasses and mirrored, s lids "
+             "still, r screen mirrored by the corneas, l light irises, h hazel irises, e 33 ms exposure"
+             + (f"; seeds {seeds[0]}-{seeds[-1]}" if seeds else ""), ha="center", va="bottom", fontsize=8, color="0.3")
+    fig.tight_layout(rect=(0, 0.075, 1, 1))
+    fig.savefig(out, dpi=110)
+
+
 def main(argv=None) -> int:
     argv = sys.argv[1:] if argv is None else argv
-    if len(argv) != 2:
-        print("usage: plot_gaze_grid.py GRID.csv OUT.png", file=sys.stderr)
+    if len(argv) < 2:
+        print("usage: plot_gaze_grid.py GRID.csv [GRID2.csv ...] OUT.png", file=sys.stderr)
         return 2
     import matplotlib
 
@@ -71,13 +122,24 @@ def main(argv=None) -> int:
     import matplotlib.pyplot as plt
     import pandas as pd
 
-    d = pd.read_csv(argv[0])
-    missing = ({"variant", "iris_px", "codec", "crf", "iris_estimate", "kappa_truth"} | {c for c, *_ in PANELS}) - set(
-        d.columns)
-    if missing:
-        print(f"{argv[0]}: columns {sorted(missing)} missing; write the CSV with bench/bench_gaze_grid.py --csv",
-              file=sys.stderr)
-        return 2
+    frames = []
+    for path in argv[:-1]:
+        try:
+            d = pd.read_csv(path)
+        except (OSError, pd.errors.ParserError, pd.errors.EmptyDataError) as e:
+            print(f"{path}: cannot read the grid's rows ({e})", file=sys.stderr)
+            return 2
+        missing = ({"name", "variant", "iris_px", "codec", "crf", "iris_estimate", "kappa_truth"}
+                   | {c for c, *_ in PANELS}) - set(d.columns)
+        if missing:
+            print(f"{path}: columns {sorted(missing)} missing; write the CSV with bench/bench_gaze_grid.py --csv",
+                  file=sys.stderr)
+            return 2
+        frames.append(d)
+    if len(frames) > 1:
+        _draws_figure(frames, argv[-1], plt)
+        return 0
+    d = frames[0]
     xmax = max(27.0, float(d["iris_px"].max()) + 1.0)
     fig, axes = plt.subplots(2, 3, figsize=(13, 7.2))
     for ax, (col, title, ylabel, floor) in zip(axes.flat, PANELS):
@@ -94,14 +156,7 @@ def main(argv=None) -> int:
         if col == "kappa":
             ax.scatter(d["iris_px"], d["kappa_truth"], color="0.55", marker="_", s=90, zorder=1,
                        label="detector on the true gaze")
-        if col == "rms_s2s_deg":
-            ax.hlines(1.5, 12.0, xmax, color="0.4", ls=":", lw=1.2, label="floor at >= 12 px")
-            ax.hlines(3.0, 8.0, 9.0, color="0.4", ls="--", lw=1.2, label="floor at 8-9 px")
-        elif floor and floor[0] == "line":
-            ax.hlines(floor[1], floor[2], xmax, color="0.4", ls=":", lw=1.2, label="floor at >= 12 px")
-        elif floor and floor[0] == "band":
-            ax.fill_between([floor[3], xmax], floor[1], floor[2], color="0.88", zorder=0,
-                            label="floor 0.85-1.15 at >= 12 px")
+        _floor(ax, col, floor, xmax)
         ax.set_xlim(7.0, xmax)
         ax.set_xlabel("iris diameter, px")
         ax.set_ylabel(ylabel)

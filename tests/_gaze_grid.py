@@ -302,14 +302,16 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
     (``gaze_model.iris_estimate.iris_px``: the limbus fit's median over open-eye frames, the face mesh's with too
     few fits; NaN unless the pipeline's setting is ``auto``) with ``iris_px_measured_from`` its source
     (``iris_px_source``: "limbus fit" or "face mesh") and ``iris_px_mesh`` the face mesh's median
-    (``mesh_median_iris_px``, what the choice read before), ``blink_pad_frames`` (``gaze_model.blink_pad_frames``) and ``n_samples``.
+    (``mesh_median_iris_px``, what the choice read before), ``blink_pad_frames`` (``gaze_model.blink_pad_frames``), ``n_samples``
+    and ``precision_tier``, the tier the pipeline's summary gives the clip (None in the other variants' rows).
     ``keep_samples``: each row also holds its samples table under
     ``"samples"``. ``pipeline_gaze``: gaze settings for the pipeline's own run (e.g. ``{"eye_anchor_set":
     "below"}``, which acts in the per-frame geometry); the variants re-estimate with them too.
     """
     from aspectus.webcam import pipeline
     from aspectus.webcam.gaze import GazeParams, estimate_gaze
-    from aspectus.webcam.pipeline import ProcessParams, extract_samples
+    from aspectus.events.analysis import run_analysis
+    from aspectus.webcam.pipeline import ProcessParams, extract_samples, summarise
 
     res, trial = render_condition(cond, out_dir, lund_dir)
     captured = {}
@@ -352,6 +354,7 @@ def run_condition(cond: Condition, out_dir: Path, lund_dir: Path, *, variants: d
                        "iris_px_measured_from": choice.get("iris_px_source"),
                        "iris_px_mesh": _px(choice.get("mesh_median_iris_px")),
                        "iris_estimate_reason": choice.get("reason") if not over else None,
-                       "appearance_share": choice.get("appearance_share") if not over else None}
+                       "appearance_share": choice.get("appearance_share") if not over else None,
+                       "precision_tier": summarise(s, run_analysis(s), meta)["precision_tier"] if not over else None}
                     | ({"samples": s} if keep_samples else {}))
     return rows

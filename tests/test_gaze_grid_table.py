@@ -84,3 +84,76 @@ def test_a_file_that_is_not_a_grid_csv_is_refused_with_its_name(tmp_path, capsys
     err = capsys.readouterr().err
     assert "other.csv" in err and "missing" in err
     assert T.main([str(tmp_path / "absent.csv")]) == 2
+
+
+def _draw(seed, **over):
+    """One draw's CSV rows: a 12 px floor cell, the 8.5 px cell and a drifting large face (default rows only)."""
+    rows = [_row(f"12 s{seed}", "default", name="12px_crf28", seed=seed, iris_estimate="appearance",
+                 iris_px_measured=11.5, iris_px_mesh=12.8, noise_rms_s2s_33ms_deg=0.9, **over.get("12", {})),
+            _row(f"12 s{seed}", "limbus", name="12px_crf28", seed=seed, rms_s2s_deg=9.0),
+            _row(f"8 s{seed}", "default", name="8px_crf28", seed=seed, iris_px=8.5, iris_estimate="appearance",
+                 iris_px_measured=8.1, iris_px_mesh=9.0, noise_rms_s2s_33ms_deg=2.0, noise_sd_deg=1.5,
+                 **over.get("8", {})),
+            _row(f"25d s{seed}", "default", name="25px_drift_TL20", seed=seed, iris_px=25.4, codec="mpeg4",
+                 iris_estimate="appearance", iris_px_measured=24.9, iris_px_mesh=26.0, noise_rms_s2s_33ms_deg=0.5,
+                 noise_sd_deg=0.4, **({"pitch_gain": 1.0} | over.get("25d", {})))]
+    return pd.DataFrame(rows)
+
+
+def test_draws_are_summarised_by_median_and_range_with_the_floors_counted():
+    frames = [_draw(0, **{"12": dict(rms_s2s_deg=1.2, pitch_r=0.96, pitch_gain=0.9, kappa=0.3)}),
+              _draw(1, **{"12": dict(rms_s2s_deg=2.0, pitch_r=0.90, pitch_gain=1.2, kappa=0.2),
+                          "8": dict(rms_s2s_deg=3.5), "25d": dict(pitch_gain=1.17)}),
+              _draw(2, **{"12": dict(rms_s2s_deg=1.6, pitch_r=0.97, pitch_gain=1.0, kappa=0.55)})]
+    out = T.summary_lines(frames)
+    row12 = next(line for line in out if line.startswith("| 640x480 CRF 28, hopper, UH21 |"))
+    # the limbus rows (9.0 deg) are not the default's and stay out of the summary
+    assert "| 12.1 px | 3 | 1.60 (1.20-2.00) |" in row12
+    assert "0.960 (0.900-0.970); 1.00 (0.90-1.20)" in row12
+    assert "| 0.30 (0.20-0.55) (0.63) |" in row12
+    # the tier rule on each draw's figures, the face mesh's iris size as the pipeline reads it (12.8 px: events)
+    assert row12.endswith("| 3 / 0 / 0 |")
+    row8 = next(line for line in out if "| 8.5 px |" in line)
+    assert row8.endswith("| 0 / 3 / 0 |")  # 2.0 deg at 33 ms, SD 1.5: the coarse tier
+    floors = {line.split(" | ")[0].lstrip("| "): line.split(" | ")[-1].rstrip(" |") for line in out if " of " in line}
+    assert floors["RMS-S2S <= 1.5 deg"] == "1 of 3"
+    assert floors["pitch r >= 0.95, gain 0.85-1.15"] == "2 of 3"
+    assert floors["fixation kappa >= 0.5"] == "1 of 3"
+    assert floors["8-9 px: RMS-S2S <= 3 deg"] == "2 of 3"
+    assert floors["large faces drifting: pitch gain 0.85-1.15"] == "2 of 3"
+
+
+def test_the_pipelines_own_tier_is_taken_where_the_csv_has_it():
+    frames = [_draw(s, **{"12": dict(precision_tier="minimal")}) for s in range(2)]
+    row12 = next(line for line in T.summary_lines(frames) if line.startswith("| 640x480 CRF 28, hopper, UH21 |"))
+    assert row12.endswith("| 0 / 0 / 2 |")
+    light = [_draw(s, **{"12": dict(iris_colour="light_blue_grey")}) for s in range(2)]
+    row = next(line for line in T.summary_lines(light) if "light blue-grey irises" in line)
+    assert row.endswith("| - |")  # the contrast rule cannot be replayed from the figures
+
+
+def test_several_csvs_need_draws_and_every_file_is_checked(tmp_path, capsys):
+    a, b = tmp_path / "s0.csv", tmp_path / "s1.csv"
+    _draw(0).to_csv(a, index=False)
+    _draw(1).to_csv(b, index=False)
+    assert T.main([str(a), str(b)]) == 2
+    assert "--draws" in capsys.readouterr().err
+    assert T.main(["--draws", str(a), str(b)]) == 0
+    assert "| issue 15's floor |" in capsys.readouterr().out
+    (tmp_path / "bad.csv").write_text("x\n1\n")
+    assert T.main(["--draws", str(a), str(tmp_path / "bad.csv")]) == 2
+    assert "bad.csv" in capsys.readouterr().err
+
+
+def test_the_figure_of_several_draws_is_drawn(tmp_path):
+    import plot_gaze_grid as P
+
+    paths = []
+    for s in range(3):
+        p = tmp_path / f"s{s}.csv"
+        _draw(s, **{"12": dict(rms_s2s_deg=1.0 + s)}).to_csv(p, index=False)
+        paths.append(str(p))
+    out = tmp_path / "grid.png"
+    assert P.main(paths + [str(out)]) == 0
+    assert out.stat().st_size > 10_000
+    assert P.main([str(tmp_path / "absent.csv"), str(out)]) == 2
