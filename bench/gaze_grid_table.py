@@ -163,13 +163,15 @@ def summary_lines(frames: list[pd.DataFrame]) -> list[str]:
                    f"{_spread(rows['yaw_r'], '{:.3f}')}; {_spread(rows['yaw_gain'], '{:.2f}')} | "
                    f"{_spread(rows['pitch_r'], '{:.3f}')}; {_spread(rows['pitch_gain'], '{:.2f}')} | "
                    f"{_spread(rows['kappa'], '{:.2f}')} ({rows['kappa_truth'].median():.2f}) | {_tiers(rows)} |")
-    out += ["", "| issue 15's floor | cells | draws that meet it |", "| --- | --- | --- |"]
+    out += ["", "| issue 15's floor | draws that meet it | by cell |", "| --- | --- | --- |"]
     for what, cells, test in FLOORS:
         rows = d[d["name"].isin(cells)]
         if rows.empty:
             continue
-        met = int(sum(bool(test(r)) for _, r in rows.iterrows()))
-        out.append(f"| {what} | {', '.join(c for c in cells if c in set(rows['name']))} | {met} of {len(rows)} |")
+        ok = pd.Series([bool(test(r)) for _, r in rows.iterrows()], index=rows.index)
+        by_cell = ", ".join(f"{c} {int(ok[rows['name'] == c].sum())}/{int((rows['name'] == c).sum())}"
+                            for c in cells if c in set(rows["name"]))
+        out.append(f"| {what} | {int(ok.sum())} of {len(rows)} | {by_cell} |")
     return out
 
 

@@ -76,22 +76,48 @@ def _floor(ax, col, floor, xmax) -> None:
                         label="floor 0.85-1.15 at >= 12 px")
 
 
+#: the grid's basic set-up at each face size (H.264 CRF 28, dark irises), joined by a line in the figure of several draws
+CURVE_CELLS = ("8px_crf28", "12px_crf28", "16px_crf28", "25px_crf28")
+
+
 def _draws_figure(frames: list, out: str, plt) -> None:
-    """The default over several draws: per cell the draws (grey), their median and range (black)."""
+    """The default over several draws: per cell the draws (grey), their median and range (black); the basic set-up
+    (:data:`CURVE_CELLS`) at its iris size with its medians joined, the other cells of that size spread beside it so
+    that their bars do not hide each other."""
+    import numpy as np
     import pandas as pd
 
     d = pd.concat([f[f["variant"] == "default"] for f in frames], ignore_index=True)
-    xmax = max(27.0, float(d["iris_px"].max()) + 1.0)
+    xmax = max(27.0, float(d["iris_px"].max()) + 1.5)
+    cells = list(dict.fromkeys(d["name"]))
+    size = {c: float(d.loc[d["name"] == c, "iris_px"].median()) for c in cells}
+    groups: dict = {}
+    for c in cells:
+        groups.setdefault(round(size[c]), []).append(c)
+    x_of = {}
+    for members in groups.values():  # the basic set-up at its size, the other cells of that size beside it
+        others = [c for c in members if c not in CURVE_CELLS]
+        step = min(0.3, 1.5 / max(1, (len(others) + 1) // 2))
+        x_of.update({c: size[c] for c in members if c in CURVE_CELLS})
+        x_of.update({c: size[c] + step * (k // 2 + 1) * (1 if k % 2 == 0 else -1) for k, c in enumerate(others)})
     fig, axes = plt.subplots(2, 3, figsize=(13, 7.2))
     for ax, (col, title, ylabel, floor) in zip(axes.flat, PANELS):
-        ax.scatter(d["iris_px"], d[col], color="0.6", s=9, zorder=2)
-        for _, cell in d.groupby("name", sort=False):
-            x, v = float(cell["iris_px"].median()), cell[col].astype(float)
-            ax.errorbar([x], [v.median()], yerr=[[v.median() - v.min()], [v.max() - v.median()]], color="k",
-                        marker="o", ms=5, capsize=2, lw=1, zorder=3)
-            ax.annotate(_tag(cell.iloc[0]), (x, v.median()), fontsize=7, xytext=(4, 2), textcoords="offset points")
+        curve = []
+        for c in cells:
+            v = d.loc[d["name"] == c, col].astype(float)
+            x, m = x_of[c], float(v.median())
+            ax.scatter(np.full(len(v), x), v, color="0.65", s=8, zorder=2)
+            ax.errorbar([x], [m], yerr=[[m - v.min()], [v.max() - m]], color="k", marker="o", ms=4, capsize=2, lw=0.8,
+                        zorder=3)
+            ax.annotate(_tag(d[d["name"] == c].iloc[0]), (x, m), fontsize=6.5, xytext=(3, 1),
+                        textcoords="offset points")
+            if c in CURVE_CELLS:
+                curve.append((x, m))
+        if len(curve) > 1:
+            xs, ms = zip(*sorted(curve))
+            ax.plot(xs, ms, color="k", lw=1.4, zorder=3, label="H.264 CRF 28, median")
         if col == "kappa":
-            ax.scatter(d["iris_px"], d["kappa_truth"], color="0.55", marker="_", s=90, zorder=1,
+            ax.scatter(d["name"].map(x_of), d["kappa_truth"], color="0.55", marker="_", s=60, zorder=1,
                        label="detector on the true gaze")
         _floor(ax, col, floor, xmax)
         ax.set_xlim(7.0, xmax)
@@ -100,13 +126,12 @@ def _draws_figure(frames: list, out: str, plt) -> None:
         ax.set_title(title, fontsize=10)
         ax.grid(alpha=0.3)
         ax.legend(fontsize=7, loc="best")
-    seeds = sorted({int(s) for s in d["seed"]}) if "seed" in d else []
-    handles = [plt.Line2D([], [], color="k", marker="o", ls="-", label=f"default: median and range over {len(frames)} "
-                          "draws"), plt.Line2D([], [], color="0.6", marker="o", ls="", ms=3, label="one draw")]
+    handles = [plt.Line2D([], [], color="k", marker="o", ls="", label=f"default: median and range over {len(frames)} "
+                          "draws"), plt.Line2D([], [], color="0.65", marker="o", ls="", ms=3, label="one draw")]
     fig.legend(handles=handles, loc="lower center", bbox_to_anchor=(0.5, 0.025), ncol=2, fontsize=9, frameon=False)
-    fig.text(0.5, 0.008, "beside the markers: H.264 CRF (m: MPEG-4 part 2), @60: 60 fps; g glasses and mirrored, s lids "
-             "still, r screen mirrored by the corneas, l light irises, h hazel irises, e 33 ms exposure"
-             + (f"; seeds {seeds[0]}-{seeds[-1]}" if seeds else ""), ha="center", va="bottom", fontsize=8, color="0.3")
+    fig.text(0.5, 0.008, "other set-ups of an iris size are drawn beside the CRF 28 one; beside the markers: H.264 CRF "
+             "(m: MPEG-4 part 2), @60: 60 fps; g glasses and mirrored, s lids still, r screen mirrored by the corneas, "
+             "l light irises, h hazel irises, e 33 ms exposure", ha="center", va="bottom", fontsize=8, color="0.3")
     fig.tight_layout(rect=(0, 0.075, 1, 1))
     fig.savefig(out, dpi=110)
 

@@ -115,7 +115,8 @@ def test_draws_are_summarised_by_median_and_range_with_the_floors_counted():
     assert row12.endswith("| 3 / 0 / 0 |")
     row8 = next(line for line in out if "| 8.5 px |" in line)
     assert row8.endswith("| 0 / 3 / 0 |")  # 2.0 deg at 33 ms, SD 1.5: the coarse tier
-    floors = {line.split(" | ")[0].lstrip("| "): line.split(" | ")[-1].rstrip(" |") for line in out if " of " in line}
+    floors = {line.split(" | ")[0].lstrip("| "): line.split(" | ")[1] for line in out if " of " in line}
+    assert any(line.endswith("| 2 of 3 | 25px_drift_TL20 2/3 |") for line in out)
     assert floors["RMS-S2S <= 1.5 deg"] == "1 of 3"
     assert floors["pitch r >= 0.95, gain 0.85-1.15"] == "2 of 3"
     assert floors["fixation kappa >= 0.5"] == "1 of 3"
