@@ -76,6 +76,21 @@ def _floor(ax, col, floor, xmax) -> None:
                         label="floor 0.85-1.15 at >= 12 px")
 
 
+def _finish_panel(ax, panel, xmax, kappa_x, kappa_truth, kappa_size) -> None:
+    """A panel's ceiling (the kappa panel: the detector on the true gaze at ``kappa_x``), floor, axes and legend."""
+    col, title, ylabel, floor = panel
+    if col == "kappa":
+        ax.scatter(kappa_x, kappa_truth, color="0.55", marker="_", s=kappa_size, zorder=1,
+                   label="detector on the true gaze")
+    _floor(ax, col, floor, xmax)
+    ax.set_xlim(7.0, xmax)
+    ax.set_xlabel("iris diameter, px")
+    ax.set_ylabel(ylabel)
+    ax.set_title(title, fontsize=10)
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=7, loc="best")
+
+
 #: the grid's basic set-up at each face size (H.264 CRF 28, dark irises), joined by a line in the figure of several draws
 CURVE_CELLS = ("8px_crf28", "12px_crf28", "16px_crf28", "25px_crf28")
 
@@ -116,16 +131,7 @@ def _draws_figure(frames: list, out: str, plt) -> None:
         if len(curve) > 1:
             xs, ms = zip(*sorted(curve))
             ax.plot(xs, ms, color="k", lw=1.4, zorder=3, label="H.264 CRF 28, median")
-        if col == "kappa":
-            ax.scatter(d["name"].map(x_of), d["kappa_truth"], color="0.55", marker="_", s=60, zorder=1,
-                       label="detector on the true gaze")
-        _floor(ax, col, floor, xmax)
-        ax.set_xlim(7.0, xmax)
-        ax.set_xlabel("iris diameter, px")
-        ax.set_ylabel(ylabel)
-        ax.set_title(title, fontsize=10)
-        ax.grid(alpha=0.3)
-        ax.legend(fontsize=7, loc="best")
+        _finish_panel(ax, (col, title, ylabel, floor), xmax, d["name"].map(x_of), d["kappa_truth"], 60)
     handles = [plt.Line2D([], [], color="k", marker="o", ls="", label=f"default: median and range over {len(frames)} "
                           "draws"), plt.Line2D([], [], color="0.65", marker="o", ls="", ms=3, label="one draw")]
     fig.legend(handles=handles, loc="lower center", bbox_to_anchor=(0.5, 0.025), ncol=2, fontsize=9, frameon=False)
@@ -178,16 +184,7 @@ def main(argv=None) -> int:
                    zorder=3)
         for _, r in g.iterrows():
             ax.annotate(_tag(r), (r["iris_px"], r[col]), fontsize=7, xytext=(4, 2), textcoords="offset points")
-        if col == "kappa":
-            ax.scatter(d["iris_px"], d["kappa_truth"], color="0.55", marker="_", s=90, zorder=1,
-                       label="detector on the true gaze")
-        _floor(ax, col, floor, xmax)
-        ax.set_xlim(7.0, xmax)
-        ax.set_xlabel("iris diameter, px")
-        ax.set_ylabel(ylabel)
-        ax.set_title(title, fontsize=10)
-        ax.grid(alpha=0.3)
-        ax.legend(fontsize=7, loc="best")
+        _finish_panel(ax, (col, title, ylabel, floor), xmax, d["iris_px"], d["kappa_truth"], 90)
     handles = [plt.Line2D([], [], color="k", marker="o", ls="", label="default: appearance estimate"),
                plt.Line2D([], [], color="k", marker="s", mfc="none", ls="", label="default: limbus fit"),
                *[plt.Line2D([], [], color=c, marker="o", ls="", ms=4, label=v) for v, c in COMPARE.items()]]
