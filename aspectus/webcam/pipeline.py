@@ -819,6 +819,36 @@ def _tier_shortfall(summary: dict, tier: str) -> list[str]:
     return out
 
 
+#: The clip's own noise figure (``noise_rms_s2s_33ms_deg``) as a share of the true error's RMS-S2S within the expert
+#: coders' fixations: the median over the rendered grid's 108 draws with dark irises at 30 fps (``bench/bench_gaze_grid.py
+#: --seed N`` for N = 0-5, 2026-12-05; range 0.34-1.03). The figure counts only the steps inside the fixations the
+#: detector found, and the steps it leaves out carry the larger errors (docs/notes/gaze-measurement.md, "What the clip's
+#: own noise figure leaves out"). A clip whose figures lie within this share of its tier's limits may well be beyond them.
+NOISE_FIGURE_SHARE = 0.86
+
+
+def near_tier_limit(summary: dict) -> bool:
+    """Whether a clip in the ``events`` or ``coarse`` tier has its noise or SD above :data:`NOISE_FIGURE_SHARE` of that
+    tier's limit: its true error may exceed the limit although its own figures meet it."""
+    tier = summary.get("precision_tier")
+    if tier not in (PRECISION_TIERS[0][0], PRECISION_TIERS[1][0]):
+        return False
+    limit = next(t[1] for t in PRECISION_TIERS if t[0] == tier)
+    noise, sd = summary.get("noise_rms_s2s_33ms_deg"), summary.get("noise_sd_deg")
+    return bool((noise is not None and np.isfinite(noise) and noise > NOISE_FIGURE_SHARE * limit)
+                or (sd is not None and np.isfinite(sd) and sd > NOISE_FIGURE_SHARE * tier_sd_limit_deg(limit)))
+
+
+def _near_limit_sentence(summary: dict) -> str:
+    """The verdict's caution for a clip near its tier's limits (:func:`near_tier_limit`); '' otherwise."""
+    if not near_tier_limit(summary):
+        return ""
+    what = ("fixation counts and durations" if summary["precision_tier"] == PRECISION_TIERS[0][0]
+            else "the gaze direction")
+    return (f" Its precision is near that limit, and on rendered clips a clip's own noise figure read a median "
+            f"{NOISE_FIGURE_SHARE:.2f} of the true error, so treat {what} with care.")
+
+
 def _trust_sentence(summary: dict) -> str:
     """Which features the clip's precision tier supports, and why not more, in a sentence a reader without the
     measures' definitions can follow (the figures' limits: :data:`PRECISION_TIERS`)."""
@@ -829,13 +859,13 @@ def _trust_sentence(summary: dict) -> str:
         rate = summary.get("frame_rate_hz")
         at = f"at {rate:.0f} frames a second" if rate is not None and np.isfinite(rate) else "at webcam frame rates"
         return (f" Gaze precision ({size}) supports fixation and saccade measures ({at} their "
-                "counts and durations are approximate).")
+                "counts and durations are approximate)." + _near_limit_sentence(summary))
     better, what = (("events", "fixation counts and durations") if tier == "coarse"
                     else ("coarse", "fixation measures, and even for gaze direction averaged over seconds"))
     lead = ("Not trusted for" if tier == "coarse" and _low_iris_contrast(summary) and _pupil_located(summary)
             else "Gaze precision is too low for")
     return (f" {lead} {what}: " + "; ".join(_tier_shortfall(summary, better))
-            + ". Trust only: " + "; ".join(features) + ".")
+            + ". Trust only: " + "; ".join(features) + "." + _near_limit_sentence(summary))
 
 
 #: What the pupil location gave on the rendered grid (``bench/bench_gaze_grid.py``, the light and hazel iris cells,
@@ -975,6 +1005,7 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
             s["precision_tier"], s["trusted_features"] = PRECISION_TIERS[-1][0], list(PRECISION_TIERS[-1][3])
         elif s["precision_tier"] == PRECISION_TIERS[0][0]:  # located by the pupils: coarse at best
             s["precision_tier"], s["trusted_features"] = PRECISION_TIERS[1][0], list(PRECISION_TIERS[1][3])
+    s["precision_near_limit"] = near_tier_limit(s)
     s["usable"], s["verdict"] = _verdict(s)
     if usable_word(s) == "partly":  # usable, but not for fixation measures: the verdict's first word says so
         s["verdict"] = "Partly usable:" + s["verdict"].removeprefix("Usable:")

@@ -295,3 +295,31 @@ def test_the_very_noisy_limit_is_the_coarse_tiers(monkeypatch):
         q = {"valid_frac": 1.0, "noise_rms_s2s_deg": noise, "noise_rms_s2s_33ms_deg": noise, "noise_sd_deg": sd}
         s = summarise(smp, SimpleNamespace(events=pd.DataFrame({"type": []}), quality=q), {})
         assert s["usable"] is False and words in s["verdict"], s["verdict"]
+
+
+@pytest.mark.parametrize("noise, sd, iris, tier, near", [
+    (1.00, 0.70, 20.0, "events", False),
+    (1.40, 0.80, 20.0, "events", True),      # 1.40 > 0.86 x 1.5 = 1.29: within the figure's measured shortfall
+    (1.00, 1.00, 20.0, "events", True),      # the SD: 1.00 > 0.86 x 1.06 = 0.91
+    (2.00, 1.40, 20.0, "coarse", False),
+    (2.80, 1.40, 20.0, "coarse", True),      # 2.80 > 0.86 x 3.0 = 2.58
+    (3.40, 2.30, 20.0, "minimal", False),    # no better tier to be near
+])
+def test_a_clip_near_its_tiers_limit_is_told_to_take_care(noise, sd, iris, tier, near):
+    """The clip's own noise figure reads below the true error (README: a median 0.86 of it over the rendered grid's
+    108 draws), so a clip whose figures lie within that share of its tier's limits is told so, and run.json says it."""
+    from types import SimpleNamespace
+
+    from aspectus.webcam.pipeline import NOISE_FIGURE_SHARE
+
+    assert NOISE_FIGURE_SHARE == pytest.approx(0.86)
+    smp = _samples(0.3, iris)
+    q = {"valid_frac": 1.0, "noise_rms_s2s_deg": noise, "noise_rms_s2s_33ms_deg": noise, "noise_sd_deg": sd}
+    s = summarise(smp, SimpleNamespace(events=pd.DataFrame({"type": []}), quality=q), {})
+    assert s["precision_tier"] == tier
+    assert s["precision_near_limit"] is near
+    said = "Its precision is near that limit" in s["verdict"]
+    assert said is near
+    if near:
+        what = "fixation counts and durations" if tier == "events" else "the gaze direction"
+        assert f"a median 0.86 of the true error, so treat {what} with care." in s["verdict"]
