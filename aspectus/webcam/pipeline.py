@@ -843,10 +843,11 @@ def _near_limit_sentence(summary: dict) -> str:
     """The verdict's caution for a clip near its tier's limits (:func:`near_tier_limit`); '' otherwise."""
     if not near_tier_limit(summary):
         return ""
-    what = ("fixation counts and durations" if summary["precision_tier"] == PRECISION_TIERS[0][0]
-            else "the gaze direction")
-    return (f" Its precision is near that limit, and on rendered clips a clip's own noise figure read a median "
-            f"{NOISE_FIGURE_SHARE:.2f} of the true error, so treat {what} with care.")
+    events = summary["precision_tier"] == PRECISION_TIERS[0][0]
+    limit, what = (("fixation measures", "fixation counts and durations") if events
+                   else ("gaze direction", "the gaze direction"))
+    return (f" Its precision is close to the limit for {limit}, and on rendered clips a clip's own noise figure read "
+            f"a median {NOISE_FIGURE_SHARE:.2f} of the true error, so treat {what} with care.")
 
 
 def _trust_sentence(summary: dict) -> str:

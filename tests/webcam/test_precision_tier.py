@@ -318,8 +318,10 @@ def test_a_clip_near_its_tiers_limit_is_told_to_take_care(noise, sd, iris, tier,
     s = summarise(smp, SimpleNamespace(events=pd.DataFrame({"type": []}), quality=q), {})
     assert s["precision_tier"] == tier
     assert s["precision_near_limit"] is near
-    said = "Its precision is near that limit" in s["verdict"]
+    said = "Its precision is close to the limit for" in s["verdict"]
     assert said is near
     if near:
-        what = "fixation counts and durations" if tier == "events" else "the gaze direction"
+        limit, what = (("fixation measures", "fixation counts and durations") if tier == "events"
+                       else ("gaze direction", "the gaze direction"))
+        assert f"close to the limit for {limit}, and on rendered clips" in s["verdict"]
         assert f"a median 0.86 of the true error, so treat {what} with care." in s["verdict"]
