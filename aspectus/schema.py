@@ -89,13 +89,15 @@ def _label_from_name(name: str, unit: str) -> str:
 #: filled by the webcam pipeline and may be absent in reference data.
 SAMPLE_COLUMNS: tuple[Column, ...] = (
     Column("t_s", "float64", "s", "time of the sample; for clips seconds from the first frame's presentation timestamp", True),
-    Column("valid", "bool", "", "gaze angles usable: face found, eyes open, head turned no further than the limit (default 45 deg), estimate finite", True),
+    Column("valid", "bool", "", "gaze angles usable: face found, eyes open, head turned no further than the limit (default 45 deg), a new picture (not repeated_picture), estimate finite", True),
     Column("yaw_deg", "float64", "deg", "binocular gaze yaw (subject's right positive), NaN when not valid", True),
     Column("pitch_deg", "float64", "deg", "binocular gaze pitch (up positive), NaN when not valid", True),
     Column("frame_index", "int64", "", "0-based index of the decoded frame"),
     Column("pts_s", "float64", "s", "presentation timestamp from the container, on the container's own clock"),
     Column("face_found", "bool", "", "the followed face was tracked in this frame (false while only other faces are in view)"),
     Column("face_count", "int64", "", "number of faces found in this frame, the followed one or not"),
+    Column("repeated_picture", "bool", "", "the frame's picture is the frame before's again, pixel for pixel: the camera "
+           "delivered no new picture and the recorder repeated its last (the sample is not valid)"),
     Column("blink", "bool", "", "eyelids closed: the two eyes' mean aperture, or either eye's own, below "
            "blink_rel_threshold (default 0.6) of this person's open-eye level, widened by blink_pad_ms on each side"),
     Column("left_yaw_deg", "float64", "deg", "subject's left eye gaze yaw"),

@@ -63,6 +63,11 @@ class Condition:
     iris_colour: str | None = None
     exposure_ms: float = 0.0
     iris_sampling: str | None = None  # the renderer's default; "area" or "point" (aspectus.synth.frame.FaceRig)
+    #: frames the camera missed, each with this probability (not the first): "dropped" ones are absent from the
+    #: clip (its timestamps keep the gap, as a variable-frame-rate recording does), "repeated" ones hold the frame
+    #: before's picture again (a constant-frame-rate recorder filling the gap); aspectus.synth.render.lost_frames
+    frame_loss: float = 0.0
+    frame_loss_kind: str = "dropped"
 
     def label(self) -> str:
         w, h = self.size_px
@@ -73,12 +78,13 @@ class Condition:
                          f" {self.fps:g}fps" if self.fps != 30.0 else "",
                          f" iris-{self.iris_colour}" if self.iris_colour else "",
                          f" exp{self.exposure_ms:g}ms" if self.exposure_ms else "",
-                         f" {self.iris_sampling}-sampled" if self.iris_sampling else ""])
+                         f" {self.iris_sampling}-sampled" if self.iris_sampling else "",
+                         f" {100 * self.frame_loss:g}%-{self.frame_loss_kind}" if self.frame_loss else ""])
         return f"{w}x{h} {self.distance_mm:.0f}mm {codec} {self.face} {self.trial.split('_')[0]} s{self.seed}{extra}"
 
 
 def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
-    from aspectus.synth.render import render_clip
+    from aspectus.synth.render import lost_frames, render_clip
 
     trial = _lund.load_trials(lund_dir, cond.trial)  # names joined by '+': end to end
     traj = _lund.as_trajectory(trial, duration_s=cond.duration_s, head_motion=cond.head_motion,
@@ -87,6 +93,15 @@ def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
     kw = {"crf": cond.crf} if cond.codec == "libx264" else {"bitrate_kbps": None}
     if cond.iris_sampling:
         kw["iris_sampling"] = cond.iris_sampling
+    if cond.frame_loss:
+        n = int(np.floor(float(traj.samples["t_s"].iloc[-1]) * cond.fps + 1e-6))  # the renderer's frames
+        lost = lost_frames(n, cond.frame_loss, cond.seed)
+        if cond.frame_loss_kind == "dropped":
+            kw["frame_times_s"] = np.arange(n)[~lost] / float(cond.fps)
+        elif cond.frame_loss_kind == "repeated":
+            kw["repeated_frames"] = lost
+        else:
+            raise ValueError(f"frame_loss_kind must be 'dropped' or 'repeated', got {cond.frame_loss_kind!r}")
     res = render_clip(path, traj, face=cond.face, size_px=tuple(cond.size_px), fps=cond.fps, codec=cond.codec,
                       seed=cond.seed,
                       lid_follow=cond.lid_follow, lighting_drift=cond.lighting_drift,

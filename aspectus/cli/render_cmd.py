@@ -42,7 +42,13 @@ def register(sub) -> None:
     p.add_argument("--fov-deg", type=float, default=60.0, help="horizontal field of view of the camera, degrees (default 60)")
     p.add_argument("--noise-sd", type=float, default=2.0, help="sensor noise SD in grey levels (default 2)")
     p.add_argument("--crf", type=int, default=23, help="H.264 quality, lower is better (default 23)")
-    p.add_argument("--codec", default="libx264", choices=("libx264", "mpeg4"), help="video codec (default libx264)")
+    p.add_argument("--codec", default="libx264", choices=("libx264", "mpeg4", "mjpeg"),
+                   help="video codec: H.264, MPEG-4 part 2 or Motion JPEG (default libx264)")
+    p.add_argument("--lost-frames", type=float, default=0.0, metavar="SHARE",
+                   help="share of frames the camera misses, each at random (e.g. 0.05; default 0)")
+    p.add_argument("--lost-as", default="gaps", choices=("gaps", "repeats"),
+                   help="how the recording holds a missed frame: a gap in its timestamps (default) or the last "
+                   "picture stored again at the constant frame rate")
     p.add_argument("--rotation-deg", type=int, default=0, choices=(0, 90, 180, 270),
                    help="store the picture rotated and tag the clip so players turn it back (default 0)")
     p.add_argument("--darkness", type=float, default=1.0, help="light level in (0, 1]; lower is dimmer and noisier")
@@ -71,7 +77,7 @@ def run(args) -> int:
     import numpy as np
 
     from aspectus.errors import ParameterError
-    from aspectus.synth.render import render_clip, synth_trajectory
+    from aspectus.synth.render import lost_frames, render_clip, synth_trajectory
 
     size = _size(args.size)
     traj = synth_trajectory(duration_s=args.duration_s, seed=args.seed, task=args.task,
@@ -87,6 +93,17 @@ def run(args) -> int:
         d = step + rng.uniform(-j, j, int(args.duration_s * args.fps) + 2)
         frame_times = np.concatenate([[0.0], np.cumsum(d)])
         frame_times = frame_times[frame_times <= args.duration_s]
+    repeated = None
+    if args.lost_frames:
+        if frame_times is None:
+            frame_times = np.arange(int(np.floor(float(traj.samples["t_s"].iloc[-1]) * args.fps + 1e-6))) / args.fps
+        lost = lost_frames(len(frame_times), args.lost_frames, args.seed)
+        if args.lost_as == "repeats":
+            if args.vfr_jitter_ms:
+                raise ParameterError("--lost-as repeats keeps a constant frame rate: leave out --vfr-jitter-ms")
+            repeated, frame_times = lost, None
+        else:
+            frame_times = frame_times[~lost]
 
     bar = None
     progress = None
@@ -105,7 +122,7 @@ def run(args) -> int:
                           rotation_deg=args.rotation_deg, darkness=args.darkness, extra_faces=args.extra_faces,
                           seed=args.seed, lid_follow=1.0 if args.lids == "follow" else 0.0, glasses=args.glasses,
                           lighting_drift=args.lighting_drift, lighting_gradient=args.lighting_gradient,
-                          mirror=args.mirror, progress=progress)
+                          mirror=args.mirror, repeated_frames=repeated, progress=progress)
     finally:
         if bar is not None:
             bar.close()

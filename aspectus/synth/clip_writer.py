@@ -1,7 +1,9 @@
 """Writing rendered frames to a compressed clip with true timestamps.
 
 Frames are encoded with PyAV (FFmpeg): H.264 (libx264, constant quality
-``crf``) or MPEG-4 part 2 (``mpeg4``, fixed bitrate), yuv420p. Each frame
+``crf``) or MPEG-4 part 2 (``mpeg4``, fixed bitrate), yuv420p, or Motion
+JPEG (``mjpeg``, every frame a JPEG of its own at the fixed quantiser
+:data:`MJPEG_QSCALE`, full-range yuvj420p, as many USB webcams deliver). Each frame
 carries an explicit presentation timestamp on a 1/90000 s clock, so a
 variable-frame-rate clip keeps its true frame times. A rotation is written as
 the stream's display matrix (the way phones tag portrait video); a decoder
@@ -28,7 +30,10 @@ from aspectus.errors import ParameterError
 #: container format per file extension
 FORMATS = {".mp4": "mp4", ".mov": "mov", ".m4v": "mp4", ".mkv": "matroska", ".avi": "avi"}
 #: codecs the writer offers
-CODECS = ("libx264", "mpeg4")
+CODECS = ("libx264", "mpeg4", "mjpeg")
+#: Motion JPEG's fixed quantiser scale (FFmpeg's 2-31, lower = finer): a fixed one, so that the same picture gives
+#: the same JPEG, as a camera's own encoder does
+MJPEG_QSCALE = 4
 #: presentation-timestamp clock of written clips (Matroska itself keeps milliseconds)
 TIME_BASE = Fraction(1, 90000)
 #: MPEG-4 part 2 keeps its time base in 16 bits (FFmpeg refuses 1/90000); 1/30000 s holds 30, 25, 60 and
@@ -81,7 +86,7 @@ class ClipWriter:
         Stored picture size (after rotation), even numbers.
     fps : float
         Nominal frame rate in frames per second (the container's average rate).
-    codec : {"libx264", "mpeg4"}
+    codec : {"libx264", "mpeg4", "mjpeg"}
     crf : int
         libx264 constant-rate factor (0-51, lower = better quality).
     bitrate_kbps : float, optional
@@ -109,11 +114,14 @@ class ClipWriter:
         self.container = av.open(str(tmp_path), mode="w", format=fmt)
         rate = Fraction(fps).limit_denominator(1001)
         s = self.container.add_stream(codec, rate=rate)
-        s.width, s.height, s.pix_fmt = int(width_px), int(height_px), "yuv420p"
+        s.width, s.height = int(width_px), int(height_px)
+        s.pix_fmt = "yuvj420p" if codec == "mjpeg" else "yuv420p"
         if codec == "libx264":
             if bitrate_kbps:
                 s.bit_rate = int(bitrate_kbps * 1000)
             s.options = x264_options(None if bitrate_kbps else crf)
+        elif codec == "mjpeg":  # FFmpeg's quality in lambda units: FF_QP2LAMBDA (118) per quantiser step
+            s.options = {"flags": "+qscale", "global_quality": str(MJPEG_QSCALE * 118)}
         else:
             s.bit_rate = int((bitrate_kbps or 1500) * 1000)
         if fmt != "avi":

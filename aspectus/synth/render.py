@@ -35,7 +35,7 @@ from aspectus.synth.trajectory import Trajectory, saccade_duration_ms, synth_tra
 from aspectus.synth.clip_writer import FORMATS, ClipWriter, rotate_for_storage
 
 __all__ = ["render_clip", "RenderResult", "synth_trajectory", "Trajectory", "saccade_duration_ms",
-           "TRUTH_COLUMNS", "read_truth"]
+           "TRUTH_COLUMNS", "read_truth", "lost_frames"]
 
 #: Columns of ``<stem>_truth.csv``, with their meaning. Angles in schema.py's frame; pixel positions in
 #: the upright picture (before any rotation tag is applied), face-mesh convention (pixel i spans [i, i+1)).
@@ -49,6 +49,8 @@ TRUTH_COLUMNS = {
     "blink": "lids at least half closed",
     "lid_closure": "0 = open, 1 = closed",
     "face_visible": "the face was drawn in this frame",
+    "repeated_frame": "the stored picture is the frame before's again (a recorder that repeats the last picture "
+                      "when the camera delivers none); the row's other columns stay the truth at t_s",
     "head_yaw_deg": "head yaw (face turned to the subject's right positive), deg",
     "head_pitch_deg": "head pitch (up positive), deg",
     "head_roll_deg": "head roll (towards the subject's right shoulder positive), deg",
@@ -182,6 +184,25 @@ def _noise_bank(h: int, w: int, *, sd: float, seed: int) -> list[np.ndarray]:
             .astype(np.int16) for _ in range(_NOISE_FIELDS)]
 
 
+def lost_frames(n: int, share: float, seed: int = 0) -> np.ndarray:
+    """Which of ``n`` frames a camera misses: each but the first with probability ``share``, independently.
+
+    Give them to :func:`render_clip` as ``repeated_frames`` (a constant-frame-rate recorder that repeats
+    the last picture) or leave them out of ``frame_times_s`` (a variable-frame-rate recording with gaps).
+
+    >>> lost_frames(6, 0.0).tolist()
+    [False, False, False, False, False, False]
+    >>> bool(lost_frames(1000, 0.5, seed=1)[0]), 400 < int(lost_frames(1000, 0.5, seed=1).sum()) < 600
+    (False, True)
+    """
+    if not (np.isfinite(share) and 0.0 <= share < 1.0):
+        raise ParameterError(f"the share of lost frames must be within 0-1 (1 excluded), got {share!r}")
+    lost = np.random.default_rng([int(seed), 31]).random(int(n)) < float(share)
+    if len(lost):
+        lost[0] = False
+    return lost
+
+
 def _check_frame_times(frame_times_s, duration_s: float) -> np.ndarray:
     t = np.asarray(frame_times_s, dtype=float)
     if t.ndim != 1 or len(t) == 0:
@@ -233,7 +254,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 lower_skin_follow: float = 0.0, lid_follow: float = 1.0, glasses: bool = False,
                 lighting_drift: float = 0.0, lighting_gradient: float = 0.0, mirror: bool = False,
                 iris_colour=None, exposure_ms: float = 0.0, corneal_reflection=False,
-                iris_sampling: str = DEFAULT_IRIS_SAMPLING, progress=None, cancel=None) -> RenderResult:
+                iris_sampling: str = DEFAULT_IRIS_SAMPLING, repeated_frames=None, progress=None,
+                cancel=None) -> RenderResult:
     """Render a webcam-like clip of a face following ``trajectory`` and write its truth beside it.
 
     Parameters
@@ -257,7 +279,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         Horizontal field of view of the camera in degrees.
     noise_sd : float, default 2
         SD of the Gaussian sensor noise in grey levels (0-255 scale).
-    codec : {"libx264", "mpeg4"}, default "libx264"
+    codec : {"libx264", "mpeg4", "mjpeg"}, default "libx264"
     crf : int, default 23
         libx264 constant-rate factor (lower = better, bigger).
     bitrate_kbps : float, optional
@@ -328,6 +350,12 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         (as a camera integrates light), or sampled at each pixel's centre as
         before 2026-12-05, which aliases irises below about 20 px (their rim
         moves in jumps); :class:`aspectus.synth.frame.FaceRig`.
+    repeated_frames : sequence of bool, optional
+        Per frame: store the frame before's picture again (True), as a
+        recorder does when the camera misses a frame and it keeps the
+        constant frame rate by repeating the last picture (sensor noise and
+        all). The first frame cannot be a repeat. The truth marks these
+        frames (``repeated_frame``) and keeps the true state at their time.
     progress : callable, optional
         ``progress(fraction_done, message)``, called every few frames.
     cancel : object with ``is_set()``, optional
@@ -430,6 +458,14 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
         visible = np.asarray(face_visible, dtype=bool)
         if visible.shape != (n,):
             raise ParameterError(f"face_visible must have one entry per frame ({n}), got shape {visible.shape}")
+    if repeated_frames is None:
+        repeated = np.zeros(n, bool)
+    else:
+        repeated = np.asarray(repeated_frames, dtype=bool)
+        if repeated.shape != (n,):
+            raise ParameterError(f"repeated_frames must have one entry per frame ({n}), got shape {repeated.shape}")
+        if repeated[0]:
+            raise ParameterError("the first frame cannot repeat a frame before it", where="frame 0")
 
     track = trajectory.at(times)
     camera = Camera(w, h, float(fov_deg))
@@ -489,7 +525,9 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 eih_yaw, eih_pitch = _angles(R.T @ g)
                 iris_mm = rig.iris_centres_mm(R, T, g)
                 iris_uv = {e: camera.project(iris_mm[e][None])[0] for e in EYES}
-                if visible[i] and exposure_s > 0:
+                if repeated[i]:
+                    pass  # ``frame`` is still the picture stored for the frame before
+                elif visible[i] and exposure_s > 0:
                     img, k_sub = exposed(float(times[i]))
                     subframes.append(k_sub)
                 elif visible[i]:
@@ -497,17 +535,20 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                 else:
                     img = rig.background.copy()
                 if mirror:
-                    img = np.ascontiguousarray(img[:, ::-1])
                     iris_uv = {e: (w - iris_uv[e][0], iris_uv[e][1]) for e in EYES}
-                if lighting_drift or lighting_gradient:
-                    gain = _light_gain(light[i], lighting_gradient, ramp)
-                    img = np.clip(img * gain + 0.5, 0, 255).astype(np.uint8)
-                if darkness < 1.0:
-                    img = cv2.convertScaleAbs(img, alpha=float(darkness))
-                if bank is not None:
-                    k, dy, dx = pick.integers(0, len(bank)), pick.integers(0, _NOISE_PAD), pick.integers(0, _NOISE_PAD)
-                    img = cv2.add(img, bank[k][dy:dy + h, dx:dx + w], dtype=cv2.CV_8U)
-                frame = img
+                if not repeated[i]:
+                    if mirror:
+                        img = np.ascontiguousarray(img[:, ::-1])
+                    if lighting_drift or lighting_gradient:
+                        gain = _light_gain(light[i], lighting_gradient, ramp)
+                        img = np.clip(img * gain + 0.5, 0, 255).astype(np.uint8)
+                    if darkness < 1.0:
+                        img = cv2.convertScaleAbs(img, alpha=float(darkness))
+                    if bank is not None:
+                        k, dy, dx = (pick.integers(0, len(bank)), pick.integers(0, _NOISE_PAD),
+                                     pick.integers(0, _NOISE_PAD))
+                        img = cv2.add(img, bank[k][dy:dy + h, dx:dx + w], dtype=cv2.CV_8U)
+                    frame = img
                 pts_s = writer.write(rotate_for_storage(frame, rotation_deg), float(times[i]))
                 dist = [float(np.linalg.norm(iris_mm[e])) for e in EYES]
                 if not visible[i]:  # no face drawn: no iris in the picture
@@ -516,6 +557,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                     "frame_index": i, "t_s": float(times[i]), "pts_s": pts_s,
                     "yaw_deg": float(r.yaw_deg), "pitch_deg": float(r.pitch_deg), "blink": bool(r.blink),
                     "lid_closure": float(r.lid_closure), "face_visible": bool(visible[i]),
+                    "repeated_frame": bool(repeated[i]),
                     "head_yaw_deg": float(r.head_yaw_deg), "head_pitch_deg": float(r.head_pitch_deg),
                     "head_roll_deg": float(r.head_roll_deg), "head_x_mm": float(r.head_x_mm),
                     "head_y_mm": float(r.head_y_mm), "head_z_mm": float(r.head_z_mm),
@@ -571,7 +613,7 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                                {"source_mm": [float(v) for v in corneal_reflection.source_mm],
                                 "size_mm": [float(v) for v in corneal_reflection.size_mm],
                                 "brightness": float(corneal_reflection.brightness)}),
-        "face_hidden_frames": int((~visible).sum()),
+        "face_hidden_frames": int((~visible).sum()), "repeated_frames": int(repeated.sum()),
         "geometry": {"iris_diameter_mm": IRIS_DIAMETER_MM, "eyeball_radius_mm": EYEBALL_RADIUS_MM,
                      "frame": "aspectus.schema (yaw>0 subject's right, pitch>0 up)",
                      "picture_coordinates": "x = x_norm * width (pixel i spans [i, i+1)), upright picture"},
@@ -585,9 +627,9 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
 
 
 def read_truth(path) -> pd.DataFrame:
-    """Read a ``<stem>_truth.csv`` written by :func:`render_clip` (blink and face_visible as bool)."""
+    """Read a ``<stem>_truth.csv`` written by :func:`render_clip` (its flags as bool)."""
     df = pd.read_csv(path)
-    for c in ("blink", "face_visible"):
+    for c in ("blink", "face_visible", "repeated_frame"):
         if c in df:
             df[c] = df[c].astype(str).str.lower().isin(("true", "1"))
     return df

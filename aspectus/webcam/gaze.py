@@ -1174,6 +1174,7 @@ def _round_or_none(x, nd: int = 3):
 def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndarray, iris_px: np.ndarray,
                   iris_diam_px: np.ndarray, corners_px: np.ndarray, ear: np.ndarray, t_s: np.ndarray | None = None,
                   iris_mesh_px: np.ndarray | None = None, limbus_diam_px: np.ndarray | None = None,
+                  repeated: np.ndarray | None = None,
                   params: GazeParams = GazeParams()) -> tuple[dict, dict]:  # noqa: B008 - a frozen default
     """Gaze, head pose, distance and blinks for a whole clip.
 
@@ -1189,6 +1190,10 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
         The face mesh's own iris centres when ``iris_px`` holds the limbus
         fit (NaN where the fit failed); the two are combined by
         :func:`fuse_iris_centres`.
+    repeated : (N,) bool, optional
+        Frames whose picture repeats the frame before's
+        (:attr:`aspectus.webcam.video.Frame.repeat`): no new measurement, so
+        not valid (``repeated_picture``).
 
     Returns
     -------
@@ -1302,7 +1307,9 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
     closed = blink_frames(found, ear, params.blink_rel_threshold)
     info["blink_pad_frames"] = blink_pad_frames(params.blink_pad_ms, t_s)
     blink = _dilate(closed, info["blink_pad_frames"]) & found
-    valid = found & ~blink & np.isfinite(yaw) & np.isfinite(pitch) & (np.abs(head_yaw) <= params.max_head_yaw_deg)
+    repeated = np.zeros(n, bool) if repeated is None else np.asarray(repeated, bool)
+    valid = (found & ~blink & ~repeated & np.isfinite(yaw) & np.isfinite(pitch)
+             & (np.abs(head_yaw) <= params.max_head_yaw_deg))
     del closed
 
     def only(a, keep):
@@ -1312,6 +1319,7 @@ def estimate_gaze(*, K: np.ndarray, found: np.ndarray, R: np.ndarray, t: np.ndar
 
     cols["valid"] = valid
     cols["blink"] = blink
+    cols["repeated_picture"] = repeated
     for name, a in (("yaw_deg", yaw), ("pitch_deg", pitch), ("left_yaw_deg", lyaw), ("left_pitch_deg", lpitch),
                     ("right_yaw_deg", ryaw), ("right_pitch_deg", rpitch), ("eye_in_head_yaw_deg", hyaw_e),
                     ("eye_in_head_pitch_deg", hpitch_e)):

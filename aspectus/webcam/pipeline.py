@@ -496,6 +496,7 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
         lower_process_priority(geometry.pid, GEOMETRY_NICE)
         pin_to_cpus(background, geometry.pid)
     n_in = 0
+    repeats = []  # frames whose picture is the frame before's again (Frame.repeat): no new measurement
     state = None
     fill = bool(params.gaze.fill_reflections)
     last_iris = None  # with ``fill``: the face mesh's iris centres and diameters in the frame before
@@ -519,6 +520,8 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                 last_iris = None if m_obs is None else (m_obs["iris_px"], m_obs["iris_diam_px"])
             geometry.submit(frame_item(fr.pts_s, fr.image, obs, refine_iris=refine, faces_in_view=tracker.faces_in_view,
                                        skin_pose=skin, anchor_set=params.gaze.eye_anchor_set))
+            if fr.repeat:
+                repeats.append(n_in)
             n_in += 1
             if progress is not None and (n_in % 10 == 0):
                 progress(min(n_in / n_hint, 0.99) * loop_share, f"{clip.name}: frame {n_in} of about {n_hint}")
@@ -602,8 +605,10 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     contrast = iris_contrast(a[:, LIMBUS_CONTRAST], mirrored=params.gaze.mirrored) if refine else None
     if contrast is not None:
         contrast["pupil_eye_frames"] = state.get("pupil_eye_frames")  # eyes located by the pupil (a light iris)
+    repeated = np.zeros(n, bool)
+    repeated[[i for i in repeats if i < n]] = True
     cols, ginfo = estimate_gaze(
-        K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21],
+        K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21], repeated=repeated,
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
         iris_mesh_px=a[:, 31:35].reshape(n, 2, 2) if params.gaze.refine_iris else None,
         limbus_diam_px=limbus_diam if params.gaze.refine_iris else None, params=params.gaze)
@@ -1021,6 +1026,11 @@ def summarise(samples: pd.DataFrame, analysis, meta: dict) -> dict:
         s["verdict"] += f" Note: the file is damaged - {dp['stopped_early']}; only the part before that was analysed."
     elif dp.get("corrupt_packets"):
         s["verdict"] += f" Note: {dp['corrupt_packets']} damaged packet(s) in the file were skipped."
+    rep = int(dp.get("repeated_pictures") or 0)
+    if rep:
+        s["verdict"] += (f" Note: {rep} frame(s) ({rep / max(n, 1):.1%}) repeat the picture before them pixel for pixel:"
+                         " the camera delivered no new picture and the recording repeated its last; those samples "
+                         "count as missing (short gaps are bridged).")
     bad_times = int(dp.get("pts_missing") or 0) + int(dp.get("pts_non_increasing") or 0)
     if bad_times:
         s["verdict"] += (f" Note: {bad_times} frame(s) had a missing or out-of-order timestamp; they were placed "

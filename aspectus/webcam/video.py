@@ -78,11 +78,35 @@ class Frame:
         Presentation timestamp on the container's clock, in seconds.
     image : ndarray
         ``(H, W, 3)`` uint8 RGB picture, upright (rotation applied).
+    repeat : bool
+        A frame coded on its own whose picture is the frame before's, pixel for
+        pixel (:func:`same_picture`): the camera delivered no new one and the
+        recorder kept its frame rate by storing the last picture again.
     """
 
     index: int
     pts_s: float
     image: np.ndarray
+    repeat: bool = False
+
+
+def same_picture(image: np.ndarray, before: np.ndarray | None) -> bool:
+    """Whether ``image`` is ``before`` again, pixel for pixel.
+
+    The decoder asks it of frames coded on their own (intra frames: every
+    frame of Motion JPEG, the key frames of other codecs): a live camera's
+    pictures always differ somewhere (sensor noise, if nothing else), so an
+    intra frame that decodes to the picture before it was coded from the same
+    picture - the recording repeated its last one. A predicted frame
+    (H.264, MPEG-4 part 2) can decode unchanged from a new but still picture
+    (the encoder left every block as it was), and a repeated one is often
+    re-coded with small changes: there a repeat cannot be told from a still
+    scene and is not flagged (docs/notes/frame-loss.md).
+    """
+    if before is None or image.shape != before.shape:
+        return False
+    # a strided look first: genuine frames differ there almost always, so the full comparison is rare
+    return bool(np.array_equal(image[::7, ::7], before[::7, ::7]) and np.array_equal(image, before))
 
 
 @dataclass
@@ -92,6 +116,7 @@ class DecodeReport:
     frames: int = 0
     pts_missing: int = 0
     pts_non_increasing: int = 0
+    repeated_pictures: int = 0
     corrupt_packets: int = 0
     stopped_early: str | None = None
     notes: list[str] = field(default_factory=list)
@@ -346,7 +371,9 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
     A frame without a PTS gets the previous frame's time plus the nominal
     frame interval and is counted in ``report.pts_missing``; a PTS that does
     not increase is moved just after the previous one and counted in
-    ``report.pts_non_increasing``. A corrupt packet is skipped and counted; if
+    ``report.pts_non_increasing``. A frame coded on its own whose picture is
+    the frame before's again (:func:`same_picture`) is yielded with ``repeat`` set and counted in
+    ``report.repeated_pictures``. A corrupt packet is skipped and counted; if
     decoding breaks off, the frames before the break are kept and
     ``report.stopped_early`` says why.
     """
@@ -368,6 +395,16 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
         dt_nominal = 1.0 / float(rate) if rate else 1.0 / 30.0
         last_t = None
         index = 0
+        before = None  # the picture yielded last, to tell a repeated one
+
+        def frame(fr) -> Frame:
+            nonlocal before
+            image = upright(fr)
+            repeat = (bool(fr.key_frame) or int(fr.pict_type) == 1) and same_picture(image, before)  # 1: intra
+            report.repeated_pictures += repeat
+            before = image
+            return Frame(index=index, pts_s=last_t, image=image, repeat=repeat)
+
         upright = _Upright()
         other_end_s = None  # where the data of the other streams (sound) ends: tells a cut file from a long sound track
         demux = container.demux()  # every stream: the demuxer reads their packets anyway
@@ -398,14 +435,14 @@ def iter_frames(path, *, report: DecodeReport | None = None, cancel=None,
                 if fr.width * fr.height > max_pixels:
                     raise VideoError(f"picture size {fr.width}x{fr.height} is too large", path=path,
                                      where=f"frame {index}")
-                yield Frame(index=index, pts_s=last_t, image=upright(fr))
+                yield frame(fr)
                 index += 1
                 report.frames = index
         # flush the decoder
         try:
             for fr in st.codec_context.decode(None):
                 last_t = _frame_time(fr, tb, last_t, dt_nominal, report)
-                yield Frame(index=index, pts_s=last_t, image=upright(fr))
+                yield frame(fr)
                 index += 1
                 report.frames = index
         except av.error.FFmpegError:
