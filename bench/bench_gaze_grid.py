@@ -24,6 +24,9 @@ mesh's median (what ``auto`` decided on until 2026-12-05).
     python bench/bench_gaze_grid.py --fps 60        # the same four cells rendered at 60 fps
     python bench/bench_gaze_grid.py --reflection    # the 25, 16.6 and 12 px CRF 28 cells without and with a
                                                     # corneal reflection of the screen (same trajectories and seeds)
+    python bench/bench_gaze_grid.py --lost-frames 0.1 --lost-as repeated   # the four face sizes (CRF 28) with
+                                                    # 10 % of frames missed: stored again, or left out (dropped)
+    python bench/bench_gaze_grid.py --quick --codec mjpeg   # the four cells in Motion JPEG instead of H.264
     python bench/bench_gaze_grid.py --csv grid.csv  # also write the rows
     python bench/bench_gaze_grid.py --only 16px_crf28 16px_crf28_light_iris   # these cells only
     python bench/bench_gaze_grid.py --appearance    # also --gaze iris_combine=appearance (a second run per cell)
@@ -120,6 +123,15 @@ def main(argv=None) -> int:
                          "screen (the same trajectories and seeds)")
     ap.add_argument("--variants", choices=("all", "default"), default="all",
                     help="'default': only the pipeline's own run per cell (no re-estimated rows)")
+    ap.add_argument("--lost-frames", type=float, default=0.0, metavar="SHARE",
+                    help="the four face sizes only, with this share of frames missed by the camera (e.g. 0.1; "
+                         "the same trajectories and seeds as the grid's cells)")
+    ap.add_argument("--lost-as", choices=("dropped", "repeated"), default="dropped",
+                    help="a missed frame is left out of the clip (its timestamps keep the gap; default) or its "
+                         "picture is the frame before's again (a constant-frame-rate recorder)")
+    ap.add_argument("--codec", choices=("libx264", "mpeg4", "mjpeg"),
+                    help="render every cell with this codec instead of its own (mjpeg: Motion JPEG at a fixed "
+                         "quantiser, each frame a JPEG of its own)")
     ap.add_argument("--seed", type=int, default=0, help="seed of the head motion, noise and lighting (default 0)")
     ap.add_argument("--csv", help="write the rows to this CSV file as well")
     ap.add_argument("--keep", help="keep the rendered clips in this folder")
@@ -139,11 +151,19 @@ def main(argv=None) -> int:
     if args.fps is not None and not 1.0 <= args.fps <= 240.0:
         print(f"--fps {args.fps:g}: expected a frame rate of 1-240 frames per second", file=sys.stderr)
         return 2
+    if not 0.0 <= args.lost_frames < 1.0:
+        print(f"--lost-frames {args.lost_frames:g}: expected a share of frames within 0-1 (e.g. 0.1)", file=sys.stderr)
+        return 2
     if not LUND.is_dir():
         print(f"the hand-coded recordings are not at {LUND}", file=sys.stderr)
         return 2
     cells = [G.Condition(**{**c.__dict__, "iris_sampling": args.iris_sampling})
-             for c in grid(args.quick, args.seed, args.fps, args.reflection)]  # None: the renderer's default
+             for c in grid(args.quick or bool(args.lost_frames), args.seed, args.fps, args.reflection)]  # None: the renderer's default
+    if args.lost_frames:  # the same cells, named for what was lost
+        cells = [G.Condition(**{**c.__dict__, "name": f"{c.name}_lost{100 * args.lost_frames:g}_{args.lost_as}",
+                                "frame_loss": args.lost_frames, "frame_loss_kind": args.lost_as}) for c in cells]
+    if args.codec:
+        cells = [G.Condition(**{**c.__dict__, "name": f"{c.name}_{args.codec}", "codec": args.codec}) for c in cells]
     cells = only_named(cells, args.only, "cell")
     if isinstance(cells, int):
         return cells

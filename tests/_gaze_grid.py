@@ -71,7 +71,7 @@ class Condition:
 
     def label(self) -> str:
         w, h = self.size_px
-        codec = f"CRF{self.crf}" if self.codec == "libx264" else "mp4v"
+        codec = f"CRF{self.crf}" if self.codec == "libx264" else {"mjpeg": "MJPEG"}.get(self.codec, "mp4v")
         extra = "".join([" glasses" if self.glasses else "", " mirror" if self.mirror else "",
                          " reflection" if self.corneal_reflection else "",
                          " still-lids" if not self.lid_follow else "",

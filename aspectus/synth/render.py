@@ -536,6 +536,9 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                     img = rig.background.copy()
                 if mirror:
                     iris_uv = {e: (w - iris_uv[e][0], iris_uv[e][1]) for e in EYES}
+                draw = (pick.integers(0, len(bank)), pick.integers(0, _NOISE_PAD),
+                        pick.integers(0, _NOISE_PAD)) if bank is not None else None  # drawn for repeats too: a
+                # clip with repeats holds the very pictures of the clip without them in its other frames
                 if not repeated[i]:
                     if mirror:
                         img = np.ascontiguousarray(img[:, ::-1])
@@ -544,9 +547,8 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
                         img = np.clip(img * gain + 0.5, 0, 255).astype(np.uint8)
                     if darkness < 1.0:
                         img = cv2.convertScaleAbs(img, alpha=float(darkness))
-                    if bank is not None:
-                        k, dy, dx = (pick.integers(0, len(bank)), pick.integers(0, _NOISE_PAD),
-                                     pick.integers(0, _NOISE_PAD))
+                    if draw is not None:
+                        k, dy, dx = draw
                         img = cv2.add(img, bank[k][dy:dy + h, dx:dx + w], dtype=cv2.CV_8U)
                     frame = img
                 pts_s = writer.write(rotate_for_storage(frame, rotation_deg), float(times[i]))

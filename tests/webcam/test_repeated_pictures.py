@@ -101,6 +101,18 @@ def test_renderer_repeats_the_stored_picture_and_marks_the_truth(tmp_path):
     assert truth["t_s"].is_monotonic_increasing
 
 
+def test_a_clip_with_repeats_holds_the_pictures_of_the_clip_without_them(tmp_path):
+    # the sensor noise is drawn for repeated frames too, so the two clips differ only where a picture repeats:
+    # figures measured on them compare the loss itself, not another draw of the noise
+    traj = synth_trajectory(duration_s=1.0, seed=3)
+    rep = lost_frames(30, 0.2, seed=5)
+    a = render_clip(tmp_path / "a.avi", traj, size_px=(160, 120), codec="mjpeg", seed=1)
+    b = render_clip(tmp_path / "b.avi", traj, size_px=(160, 120), codec="mjpeg", seed=1, repeated_frames=rep)
+    same = [np.array_equal(x.image, y.image) for x, y in zip(iter_frames(a.path), iter_frames(b.path))]
+    assert len(same) == 30 and rep.sum() >= 3
+    assert same == (~rep).tolist()
+
+
 @pytest.mark.parametrize("bad, words", [(np.zeros(7, bool), "one entry per frame"),
                                         (np.r_[True, np.zeros(29, bool)], "first frame")])
 def test_renderer_refuses_bad_repeat_lists(tmp_path, bad, words):
