@@ -10,7 +10,6 @@ with seeds 0 / 1 / 2 (docs/notes/frame-loss.md): true in-fixation RMS-S2S 0.48 /
 """
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 import _gaze_grid as G
