@@ -69,8 +69,9 @@ MIN_USABLE_DURATION_S = 0.5
 #: 3: the eyeball centres' coupling to the eyes is measured on local-quadratic residuals, not 2-s high-passed
 #: series; 4: everything the gaze chain changed from 2026-12-04 to 2026-12-05 without raising it - the limbus
 #: fit's picture convention and gap filling, the eye anchors, the iris scale, the appearance estimate as the
-#: default at every face size, among others: results of those days are redone, not mixed into a study)
-EXTRACTION_REVISION = 4
+#: default at every face size, among others: results of those days are redone, not mixed into a study;
+#: 5: the ``repeated_picture`` column, and a repeated picture's sample no longer valid)
+EXTRACTION_REVISION = 5
 #: nice steps by which the decoder thread and the geometry process yield to the face mesh (see
 #: :func:`extract_samples`)
 DECODE_NICE = 5
