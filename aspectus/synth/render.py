@@ -184,6 +184,16 @@ def _noise_bank(h: int, w: int, *, sd: float, seed: int) -> list[np.ndarray]:
             .astype(np.int16) for _ in range(_NOISE_FIELDS)]
 
 
+def _per_frame_flags(flags, n: int, name: str, *, default: bool) -> np.ndarray:
+    """``flags`` as (n,) bool, or ``default`` for every frame when None."""
+    if flags is None:
+        return np.full(n, bool(default))
+    out = np.asarray(flags, dtype=bool)
+    if out.shape != (n,):
+        raise ParameterError(f"{name} must have one entry per frame ({n}), got shape {out.shape}")
+    return out
+
+
 def lost_frames(n: int, share: float, seed: int = 0) -> np.ndarray:
     """Which of ``n`` frames a camera misses: each but the first with probability ``share``, independently.
 
@@ -452,20 +462,10 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
     if exposure_s > interval + 1e-9:
         raise ParameterError(f"exposure_ms {exposure_ms:g} is longer than the frame interval ({1000 * interval:.4g} ms)",
                              hint="a frame's exposure cannot outlast the time to the next frame")
-    if face_visible is None:
-        visible = np.ones(n, bool)
-    else:
-        visible = np.asarray(face_visible, dtype=bool)
-        if visible.shape != (n,):
-            raise ParameterError(f"face_visible must have one entry per frame ({n}), got shape {visible.shape}")
-    if repeated_frames is None:
-        repeated = np.zeros(n, bool)
-    else:
-        repeated = np.asarray(repeated_frames, dtype=bool)
-        if repeated.shape != (n,):
-            raise ParameterError(f"repeated_frames must have one entry per frame ({n}), got shape {repeated.shape}")
-        if repeated[0]:
-            raise ParameterError("the first frame cannot repeat a frame before it", where="frame 0")
+    visible = _per_frame_flags(face_visible, n, "face_visible", default=True)
+    repeated = _per_frame_flags(repeated_frames, n, "repeated_frames", default=False)
+    if n and repeated[0]:
+        raise ParameterError("the first frame cannot repeat a frame before it", where="frame 0")
 
     track = trajectory.at(times)
     camera = Camera(w, h, float(fov_deg))
