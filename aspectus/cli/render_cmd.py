@@ -94,6 +94,8 @@ def run(args) -> int:
         frame_times = np.concatenate([[0.0], np.cumsum(d)])
         frame_times = frame_times[frame_times <= args.duration_s]
     repeated = None
+    if not (np.isfinite(args.lost_frames) and 0.0 <= args.lost_frames < 1.0):
+        raise ParameterError(f"--lost-frames must be a share of the frames within 0-1, e.g. 0.05; got {args.lost_frames:g}")
     if args.lost_frames:
         if frame_times is None:
             frame_times = np.arange(int(np.floor(float(traj.samples["t_s"].iloc[-1]) * args.fps + 1e-6))) / args.fps

@@ -144,3 +144,26 @@ def test_pipeline_marks_repeated_pictures_missing_and_says_so(rendered_clip):
     s = summarise(samples, run_analysis(samples), meta)
     assert s["decode_problems"]["repeated_pictures"] == int(lost.sum())
     assert f"{int(lost.sum())} frame(s)" in s["verdict"] and "repeat the picture before them" in s["verdict"]
+
+
+def test_cli_renders_missed_frames_as_gaps_or_repeats(tmp_path, capsys):
+    from aspectus.cli import main
+
+    rc = main(["render", str(tmp_path / "gaps.mp4"), "--duration-s", "1", "--size", "160x120", "--quiet",
+               "--lost-frames", "0.3", "--seed", "2"])
+    assert rc == 0
+    gaps = read_truth(tmp_path / "gaps_truth.csv")
+    lost = lost_frames(30, 0.3, seed=2)
+    assert len(gaps) == 30 - lost.sum() and not gaps["repeated_frame"].any()
+    assert np.allclose(gaps["t_s"], np.flatnonzero(~lost) / 30.0)  # the timestamps keep the gaps
+    rc = main(["render", str(tmp_path / "repeats.avi"), "--duration-s", "1", "--size", "160x120", "--quiet",
+               "--lost-frames", "0.3", "--lost-as", "repeats", "--codec", "mjpeg", "--seed", "2"])
+    assert rc == 0
+    assert read_truth(tmp_path / "repeats_truth.csv")["repeated_frame"].tolist() == lost.tolist()
+    assert [f.index for f in iter_frames(tmp_path / "repeats.avi") if f.repeat] == np.flatnonzero(lost).tolist()
+    capsys.readouterr()
+    for bad, words in ((["--lost-frames", "1.5"], "--lost-frames must be a share"),
+                       (["--lost-frames", "0.1", "--lost-as", "repeats", "--vfr-jitter-ms", "5"], "constant frame rate")):
+        rc = main(["render", str(tmp_path / "bad.mp4"), "--duration-s", "1", "--size", "160x120", "--quiet", *bad])
+        assert rc == 2 and words in capsys.readouterr().err
+    assert not (tmp_path / "bad.mp4").exists()
