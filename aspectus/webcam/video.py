@@ -102,6 +102,15 @@ def same_picture(image: np.ndarray, before: np.ndarray | None) -> bool:
     (the encoder left every block as it was), and a repeated one is often
     re-coded with small changes: there a repeat cannot be told from a still
     scene and is not flagged (docs/notes/frame-loss.md).
+
+    Examples
+    --------
+    >>> a = np.zeros((4, 6, 3), np.uint8)
+    >>> same_picture(a.copy(), a), same_picture(a, None)
+    (True, False)
+    >>> b = a.copy(); b[3, 5, 0] = 1
+    >>> same_picture(b, a)
+    False
     """
     if before is None or image.shape != before.shape:
         return False
