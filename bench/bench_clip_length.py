@@ -3,7 +3,8 @@
 The default iris height (:mod:`aspectus.webcam.iris_appearance`) is a regression learnt on the clip's own eye
 patches, so a longer clip gives it more gaze directions and frames to learn from. The gaze grid
 (bench/bench_gaze_grid.py) renders 8-s clips; classroom recordings run for minutes. Per draw, one 40-s clip is
-rendered as the grid's cells are (640x480 H.264 CRF 28, lids following, light drift and gradient, head drift and
+rendered as the grid's cells are (H.264 CRF 28; 640x480 for 12 and 8.5 px irises, 1280x720 for 16.6 and 25 px;
+lids following, light drift and gradient, head drift and
 turns), its eyes following four hand-coded trials end to end (../shared/reference/lund2013: UH21, TL20, TH34,
 UL23). The same clip is then cut to its first ``T`` s by copying its packets (no second encode, so the frames are
 the same) and processed again, for each ``T`` in ``--lengths``. Printed per draw and length: the grid's figures
@@ -11,6 +12,7 @@ the same) and processed again, for each ``T`` in ``--lengths``. Printed per draw
 
     python bench/bench_clip_length.py                          # 12 px hopper, seeds 0-2, lengths 8 20 40
     python bench/bench_clip_length.py --face astronaut --seeds 0 1 --iris 12 8 --lengths 8 40
+    python bench/bench_clip_length.py --iris 25 16 --lengths 8 40   # the large-face set-ups
 
 About 1.5 min of CPU per 40-s clip and length.
 """
@@ -28,8 +30,8 @@ import _gaze_grid as G  # noqa: E402
 
 LUND = ROOT.parent / "shared" / "reference" / "lund2013" / "img"
 TRIALS = "UH21_img_Rome+TL20_img_konijntjes+TH34_img_Europe+UL23_img_Europe"
-#: the grid's 640x480 distances (bench_gaze_grid.SIZES)
-DISTANCE_MM = {12: 550.0, 8: 780.0}
+#: the grid's picture sizes and distances per iris size (bench_gaze_grid.SIZES; 16: 16.6 px)
+SETUPS = {25: ((1280, 720), 530.0), 16: ((1280, 720), 800.0), 12: ((640, 480), 550.0), 8: ((640, 480), 780.0)}
 SHOWN = ("rms_s2s_deg", "yaw_r", "pitch_r", "pitch_gain", "kappa")
 
 
@@ -37,7 +39,8 @@ def run(face: str, iris: int, seed: int, lengths: list[float], work: Path, trial
     from aspectus.webcam.pipeline import ProcessParams, extract_samples
 
     longest = max(lengths)
-    cond = G.Condition(f"{iris}px_{face}_s{seed}", size_px=(640, 480), distance_mm=DISTANCE_MM[iris], trial=trials,
+    size, distance = SETUPS[iris]
+    cond = G.Condition(f"{iris}px_{face}_s{seed}", size_px=size, distance_mm=distance, trial=trials,
                        face=face, seed=seed, duration_s=longest)
     res, trial = G.render_condition(cond, work, LUND)
     truth = res.truth
@@ -64,7 +67,7 @@ def main(argv=None) -> int:
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--face", default="hopper", choices=("hopper", "astronaut"))
-    ap.add_argument("--iris", type=int, nargs="+", default=[12], choices=sorted(DISTANCE_MM))
+    ap.add_argument("--iris", type=int, nargs="+", default=[12], choices=sorted(SETUPS))
     ap.add_argument("--seeds", type=int, nargs="+", default=[0, 1, 2])
     ap.add_argument("--lengths", type=float, nargs="+", default=[8.0, 20.0, 40.0],
                     help="clip lengths in s (8 to 40: the trials give 40 s)")
