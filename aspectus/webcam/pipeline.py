@@ -562,8 +562,11 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
                             + ("limbus fit" if refine else "face mesh's iris point") + " is used")
     fitted = False  # whether the appearance estimate is the iris source (else the limbus fit, with refine)
     weightless = False  # fitted, but blended away on every eye (the limbus fit alone agreed better)
+    repeated = np.zeros(n, bool)  # pictures the recording repeated (Frame.repeat): no new observation
+    repeated[[i for i in repeats if i < n]] = True
     if appearance:
-        iris, app_info = _appearance_iris(a, patches, found)
+        # a repeated picture is no new label either: its copy would count twice in the regression's fit
+        iris, app_info = _appearance_iris(a, patches, found & ~repeated)
         fitted = any(blk[e].get("fitted") for blk in app_info["blocks"] for e in ("right", "left"))
         weightless = fitted and app_info["appearance_share"] == 0.0
         if choice is not None:
@@ -606,8 +609,6 @@ def extract_samples(clip_path, *, params: ProcessParams | None = None, progress:
     contrast = iris_contrast(a[:, LIMBUS_CONTRAST], mirrored=params.gaze.mirrored) if refine else None
     if contrast is not None:
         contrast["pupil_eye_frames"] = state.get("pupil_eye_frames")  # eyes located by the pupil (a light iris)
-    repeated = np.zeros(n, bool)
-    repeated[[i for i in repeats if i < n]] = True
     cols, ginfo = estimate_gaze(
         K=K, found=found, R=Rm, t=tm, iris_px=iris, iris_diam_px=a[:, 19:21], repeated=repeated,
         corners_px=a[:, 21:29].reshape(n, 2, 2, 2), ear=a[:, 29:31], t_s=a[:, 0],
