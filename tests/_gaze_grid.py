@@ -84,7 +84,7 @@ class Condition:
 
 
 def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
-    from aspectus.synth.render import lost_frames, render_clip
+    from aspectus.synth.render import constant_frame_times, lost_frames, render_clip
 
     trial = _lund.load_trials(lund_dir, cond.trial)  # names joined by '+': end to end
     traj = _lund.as_trajectory(trial, duration_s=cond.duration_s, head_motion=cond.head_motion,
@@ -94,10 +94,10 @@ def render_condition(cond: Condition, out_dir: Path, lund_dir: Path):
     if cond.iris_sampling:
         kw["iris_sampling"] = cond.iris_sampling
     if cond.frame_loss:
-        n = int(np.floor(float(traj.samples["t_s"].iloc[-1]) * cond.fps + 1e-6))  # the renderer's frames
-        lost = lost_frames(n, cond.frame_loss, cond.seed)
+        times = constant_frame_times(traj, cond.fps)  # the renderer's frames
+        lost = lost_frames(len(times), cond.frame_loss, cond.seed)
         if cond.frame_loss_kind == "dropped":
-            kw["frame_times_s"] = np.arange(n)[~lost] / float(cond.fps)
+            kw["frame_times_s"] = times[~lost]
         elif cond.frame_loss_kind == "repeated":
             kw["repeated_frames"] = lost
         else:

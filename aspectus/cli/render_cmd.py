@@ -77,7 +77,7 @@ def run(args) -> int:
     import numpy as np
 
     from aspectus.errors import ParameterError
-    from aspectus.synth.render import lost_frames, render_clip, synth_trajectory
+    from aspectus.synth.render import constant_frame_times, lost_frames, render_clip, synth_trajectory
 
     size = _size(args.size)
     traj = synth_trajectory(duration_s=args.duration_s, seed=args.seed, task=args.task,
@@ -98,7 +98,7 @@ def run(args) -> int:
         raise ParameterError(f"--lost-frames must be a share of the frames within 0-1, e.g. 0.05; got {args.lost_frames:g}")
     if args.lost_frames:
         if frame_times is None:
-            frame_times = np.arange(int(np.floor(float(traj.samples["t_s"].iloc[-1]) * args.fps + 1e-6))) / args.fps
+            frame_times = constant_frame_times(traj, args.fps)
         lost = lost_frames(len(frame_times), args.lost_frames, args.seed)
         if args.lost_as == "repeats":
             if args.vfr_jitter_ms:

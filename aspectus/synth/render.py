@@ -35,7 +35,7 @@ from aspectus.synth.trajectory import Trajectory, saccade_duration_ms, synth_tra
 from aspectus.synth.clip_writer import FORMATS, ClipWriter, rotate_for_storage
 
 __all__ = ["render_clip", "RenderResult", "synth_trajectory", "Trajectory", "saccade_duration_ms",
-           "TRUTH_COLUMNS", "read_truth", "lost_frames"]
+           "TRUTH_COLUMNS", "read_truth", "lost_frames", "constant_frame_times"]
 
 #: Columns of ``<stem>_truth.csv``, with their meaning. Angles in schema.py's frame; pixel positions in
 #: the upright picture (before any rotation tag is applied), face-mesh convention (pixel i spans [i, i+1)).
@@ -192,6 +192,17 @@ def _per_frame_flags(flags, n: int, name: str, *, default: bool) -> np.ndarray:
     if out.shape != (n,):
         raise ParameterError(f"{name} must have one entry per frame ({n}), got shape {out.shape}")
     return out
+
+
+def constant_frame_times(trajectory: Trajectory, fps: float) -> np.ndarray:
+    """The frame times, s, :func:`render_clip` uses at a constant ``fps`` without ``frame_times_s``: ``i / fps``
+    for every frame within the trajectory (a list of frames to drop or repeat has one entry per time).
+
+    >>> constant_frame_times(synth_trajectory(duration_s=0.1, seed=0), 30.0).round(4).tolist()
+    [0.0, 0.0333, 0.0667]
+    """
+    duration = float(trajectory.samples["t_s"].iloc[-1])
+    return np.arange(int(np.floor(duration * float(fps) + 1e-6))) / float(fps)
 
 
 def lost_frames(n: int, share: float, seed: int = 0) -> np.ndarray:
@@ -453,10 +464,9 @@ def render_clip(path, trajectory: Trajectory, *, face: str = "hopper", size_px: 
     if vfr:
         times = _check_frame_times(frame_times_s, duration)
     else:
-        n = int(np.floor(duration * fps + 1e-6))
-        if n < 1:
+        times = constant_frame_times(trajectory, fps)
+        if len(times) < 1:
             raise ParameterError(f"the trajectory ({duration:.3g} s) is shorter than one frame at {fps:g} fps")
-        times = np.arange(n) / float(fps)
     n = len(times)
     interval = float(np.diff(times).min()) if n > 1 else (1.0 / fps if not vfr else np.inf)
     if exposure_s > interval + 1e-9:
